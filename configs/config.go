@@ -1,0 +1,501 @@
+// Package configs holds the configuration of the modewatch service: one
+// Config struct whose zero value means "all defaults", loaded from YAML with
+// every unknown key and bad value reported at once with its file:line:column,
+// and checked by Validate.
+//
+// The YAML keys are the snake_case names given in the struct tags; the
+// annotated example configs/modewatch.yaml documents every one of them.
+// Durations are Go durations ("250ms", "15m", "1h30m") or a whole number of
+// days ("7d").
+//
+// Zero values mean defaults: ApplyDefaults fills them in (Load does so before
+// Validate), so a Config built in code may leave everything it does not care
+// about empty.
+package configs
+
+import (
+	"time"
+)
+
+// Defaults used by ApplyDefaults when the corresponding field is zero.
+const (
+	DefaultListen             = "127.0.0.1:7480"
+	DefaultDataDir            = "modewatch-data"
+	DefaultPrefix             = "modewatch"
+	DefaultCheckpointInterval = 5 * time.Minute
+	DefaultShutdownTimeout    = 15 * time.Second
+	DefaultLogFormat          = "text"
+	DefaultLogLevel           = "info"
+	DefaultPrecision          = "ns"
+	DefaultMaxChannels        = 10000
+
+	// DefaultSparsity is the sparse-mode constraint of every mode: at most
+	// 6 channels per mode (l0-constrained, truncated power method).
+	DefaultSparsity = "l0:6"
+	// DefaultModes chooses the number of modes as the smallest r whose
+	// adjusted variance reaches 80 % of the total (common practice for PCA
+	// monitoring is a 70-90 % cumulative-variance rule).
+	DefaultModes = "auto:0.8"
+	// DefaultMaxModes caps the automatic choice of the number of modes.
+	DefaultMaxModes = 10
+	// DefaultHalfLife is the half-life of the exponential weights of the
+	// online model: a frame's weight halves after this much event time.
+	DefaultHalfLife = 7 * 24 * time.Hour
+	// DefaultAlpha is the false-alarm rate of each control limit (per frame).
+	DefaultAlpha = 0.01
+	// DefaultRefreshEvery is the number of frames between refreshes of the
+	// sparse modes from the covariance.
+	DefaultRefreshEvery = 64
+	// DefaultWarmUp is the number of frames learned before any score is
+	// reported.
+	DefaultWarmUp = 500
+
+	// DefaultOnDelayN and DefaultOnDelayM: an alarm goes active when a
+	// statistic is over its limit in N of the last M frames.
+	DefaultOnDelayN = 3
+	DefaultOnDelayM = 5
+	// DefaultOffDelay is how long a statistic must stay below its limit
+	// (minus the deadband) before an active alarm returns to normal.
+	DefaultOffDelay = 5 * time.Minute
+	// DefaultDeadband is the fraction of the limit below it that the
+	// statistic must fall to count as "back in" (hysteresis).
+	DefaultDeadband = 0.05
+	// DefaultFloodCount new alerts within DefaultFloodWindow make a flood
+	// (ISA-18.2 / EEMUA 191: more than 10 alarms in 10 minutes per operator;
+	// from memory).
+	DefaultFloodCount  = 10
+	DefaultFloodWindow = 10 * time.Minute
+	// DefaultChatterCount activations within DefaultChatterWindow make an
+	// alarm chattering (common practice: 3 or more activations a minute).
+	DefaultChatterCount  = 3
+	DefaultChatterWindow = time.Minute
+	// DefaultSinkQueue is the bounded queue length of each alert sink.
+	DefaultSinkQueue = 1024
+)
+
+// Config is the whole configuration of one modewatch service instance.
+type Config struct {
+	// Server is the NATS message server to connect to; with no URLs the
+	// service starts an embedded server on the loopback address.
+	Server Server `yaml:"server"`
+	// Sources are where readings come from (subjects, JetStream, files).
+	Sources Sources `yaml:"sources"`
+	// Channels is the channel map. Empty means auto-discovery: every
+	// numeric field becomes a channel named measurement.tagvalues.field.
+	Channels []Channel `yaml:"channels"`
+	// Frames controls frame alignment.
+	Frames Frames `yaml:"frames"`
+	// Units lists the plant units, each with its channels and model
+	// settings. Empty means one unit per measurement (auto-discovery).
+	Units []Unit `yaml:"units"`
+	// Model holds the default model settings of every unit.
+	Model Model `yaml:"model"`
+	// Alerts holds the alarm settings of every unit.
+	Alerts Alerts `yaml:"alerts"`
+	// Sinks are where alert records go besides the NATS alerts subject.
+	Sinks Sinks `yaml:"sinks"`
+	// HTTP is the HTTP API (health, metrics, units, alerts).
+	HTTP HTTP `yaml:"http"`
+	// DataDir holds checkpoints, the embedded server's JetStream store and
+	// the sink spools. Default "modewatch-data".
+	DataDir string `yaml:"data_dir"`
+	// CheckpointInterval is the time between checkpoints of every unit
+	// (wall clock). Default 5m.
+	CheckpointInterval time.Duration `yaml:"checkpoint_interval"`
+	// ShutdownTimeout bounds a graceful shutdown. Default 15s.
+	ShutdownTimeout time.Duration `yaml:"shutdown_timeout"`
+	// Log configures log/slog output.
+	Log Log `yaml:"log"`
+}
+
+// Server is the NATS connection. At most one of User/Password, Token,
+// NKeySeedFile and CredentialsFile may be given.
+type Server struct {
+	// URLs of the NATS servers ("nats://host:4222"). Empty: embedded server.
+	URLs []string `yaml:"urls"`
+	// Name of the client connection, shown by the server. Default "modewatch".
+	Name            string `yaml:"name"`
+	User            string `yaml:"user"`
+	Password        string `yaml:"password"`
+	Token           string `yaml:"token"`
+	NKeySeedFile    string `yaml:"nkey_seed_file"`
+	CredentialsFile string `yaml:"credentials_file"`
+	TLS             TLS    `yaml:"tls"`
+	// Prefix of the subjects the service publishes on:
+	// <prefix>.alerts.<unit>, <prefix>.scores.<unit>. Default "modewatch".
+	Prefix string `yaml:"prefix"`
+	// EmbeddedPort is the port of the embedded server (used only without
+	// URLs). 0 picks the NATS default 4222; -1 picks a free port.
+	EmbeddedPort int `yaml:"embedded_port"`
+}
+
+// TLS configures a TLS connection to the server: CA to verify it and an
+// optional client certificate and key (both or neither).
+type TLS struct {
+	CA   string `yaml:"ca"`
+	Cert string `yaml:"cert"`
+	Key  string `yaml:"key"`
+}
+
+// Sources are where readings come from.
+type Sources struct {
+	// Subjects are core NATS subjects (wildcards allowed) carrying line
+	// protocol. Default with no sources at all: "<prefix>.readings.>".
+	Subjects []string `yaml:"subjects"`
+	// JetStream, when Stream is set, reads through a durable consumer that
+	// acknowledges only processed data.
+	JetStream JetStream `yaml:"jetstream"`
+	// Files are line-protocol files (plain or .gz) read in order; "-" is
+	// standard input.
+	Files []string `yaml:"files"`
+}
+
+// JetStream names a stream and a durable consumer on it.
+type JetStream struct {
+	Stream  string `yaml:"stream"`
+	Durable string `yaml:"durable"`
+	// Subjects the stream captures when the service has to create it
+	// (embedded server). Default: the Sources subjects.
+	Subjects []string `yaml:"subjects"`
+}
+
+// Channel is one entry of the channel map: which line-protocol series it
+// reads and how it is shown and modelled.
+type Channel struct {
+	// Name is the channel's id, used in units, alerts and the API.
+	// Default: measurement.tagvalues.field as with auto-discovery.
+	Name        string            `yaml:"name"`
+	Measurement string            `yaml:"measurement"`
+	Tags        map[string]string `yaml:"tags"`
+	Field       string            `yaml:"field"`
+	Display     string            `yaml:"display"`
+	// EngUnit is the engineering unit of the value, e.g. "degC", "L/min".
+	EngUnit string `yaml:"eng_unit"`
+	// Min and Max bound the valid range; a value outside is treated as
+	// missing and counted. Empty means unbounded.
+	Min *float64 `yaml:"min"`
+	Max *float64 `yaml:"max"`
+	// Model says whether the channel takes part in the model. Default true.
+	Model *bool `yaml:"model"`
+	// BoolAsNumber maps boolean fields to 0/1 instead of ignoring them.
+	BoolAsNumber bool `yaml:"bool_as_number"`
+	// Unit is the plant unit the channel belongs to. Default: the unit
+	// listing it in Units, else the measurement.
+	Unit string `yaml:"unit"`
+}
+
+// Frames controls frame alignment.
+type Frames struct {
+	// Period of a frame. 0: inferred from the data (median spacing).
+	Period time.Duration `yaml:"period"`
+	// Staleness: a channel's latest value older than this is missing.
+	// Default 3 periods.
+	Staleness time.Duration `yaml:"staleness"`
+	// Lateness allowed after a frame's end before it is emitted; data
+	// arriving later is counted as late and dropped. Default 1 period.
+	Lateness time.Duration `yaml:"lateness"`
+	// ClockJump: a gap in event time over this ends the segment. Default
+	// 100 periods.
+	ClockJump time.Duration `yaml:"clock_jump"`
+	// Precision of line-protocol timestamps: ns, us, ms or s. Default ns.
+	Precision string `yaml:"precision"`
+	// MaxChannels caps auto-discovery. Default 10000.
+	MaxChannels int `yaml:"max_channels"`
+}
+
+// Unit is one part of the plant with its own channels and model.
+type Unit struct {
+	Name string `yaml:"name"`
+	// Channels by name (channel map names or auto-discovered names). A
+	// channel belongs to exactly one unit.
+	Channels []string `yaml:"channels"`
+	// Model overrides the default model settings for this unit; empty
+	// fields inherit Config.Model.
+	Model Model `yaml:"model"`
+	// Alerts overrides the default alarm settings for this unit.
+	Alerts Alerts `yaml:"alerts"`
+}
+
+// Model holds the settings of a unit's online model. Zero fields mean
+// "inherit" (in a unit) or "default" (in Config.Model).
+type Model struct {
+	// Sparsity of every mode: none|l0:K|l1:S|l0pen:G|l1pen:G|logpen:G[,EPS]|exppen:G[,EPS].
+	// Default "l0:6".
+	Sparsity string `yaml:"sparsity"`
+	// Modes: a fixed count "N" or "auto:SHARE" (smallest r reaching that
+	// share of the total variance). Default "auto:0.8".
+	Modes ModeCount `yaml:"modes"`
+	// MaxModes caps the automatic choice. Default 10.
+	MaxModes int `yaml:"max_modes"`
+	// HalfLife of the exponential weights. Default 7d.
+	HalfLife time.Duration `yaml:"halflife"`
+	// Alpha is the per-frame false-alarm rate of each limit, in (0, 0.5).
+	// Default 0.01.
+	Alpha float64 `yaml:"alpha"`
+	// Adapt says whether the model goes on learning. Default true.
+	Adapt *bool `yaml:"adapt"`
+	// Limits: "theory" (F / Box) or "empirical:FILE" (quantiles of a
+	// reference log). Default theory.
+	Limits Limits `yaml:"limits"`
+	// RefreshEvery frames the sparse modes are refreshed. Default 64.
+	RefreshEvery int `yaml:"refresh_every"`
+	// WarmUp frames are learned before scores are reported. Default 500.
+	WarmUp int `yaml:"warmup"`
+	// File is a fitted model (from "modewatch fit") to start from.
+	File string `yaml:"file"`
+}
+
+// Alerts holds the alarm settings. Zero fields mean "inherit"/"default".
+type Alerts struct {
+	// OnDelay: active when over the limit in N of the last M frames.
+	OnDelay OnDelay `yaml:"on_delay"`
+	// OffDelay: time below limit minus deadband before returning to normal.
+	OffDelay time.Duration `yaml:"off_delay"`
+	// Deadband as a fraction of the limit, in [0, 1). Default 0.05.
+	Deadband float64 `yaml:"deadband"`
+	// Severity bands by ratio statistic/limit, ascending. Default
+	// low ≥ 1, medium ≥ 2, high ≥ 4.
+	Severity []SeverityBand `yaml:"severity"`
+	Flood    RateRule       `yaml:"flood"`
+	Chatter  RateRule       `yaml:"chattering"`
+	// FreezeOnAlert freezes a unit's learning while an alert is active.
+	// Default true.
+	FreezeOnAlert *bool `yaml:"freeze_on_alert"`
+}
+
+// OnDelay is the "N of the last M frames" rule.
+type OnDelay struct {
+	N int `yaml:"n"`
+	M int `yaml:"m"`
+}
+
+// SeverityBand names the severity of an alert whose statistic is at least
+// Ratio times its limit.
+type SeverityBand struct {
+	Name  string  `yaml:"name"`
+	Ratio float64 `yaml:"ratio"`
+}
+
+// RateRule is "Count events within Window".
+type RateRule struct {
+	Count  int           `yaml:"count"`
+	Window time.Duration `yaml:"window"`
+}
+
+// Sinks are where alert records go, besides <prefix>.alerts.<unit>.
+type Sinks struct {
+	// Stdout writes JSON lines to standard output.
+	Stdout bool `yaml:"stdout"`
+	// File appends JSON lines to this file.
+	File string `yaml:"file"`
+	// Subject publishes each record to this extra NATS subject.
+	Subject string `yaml:"subject"`
+	// Webhook posts each record to this http(s) URL with retries.
+	Webhook string `yaml:"webhook"`
+	// SpoolDir keeps records a sink could not deliver yet. Default
+	// <data_dir>/spool.
+	SpoolDir string `yaml:"spool_dir"`
+	// Queue is the bounded queue length of each sink. Default 1024.
+	Queue int `yaml:"queue"`
+}
+
+// HTTP is the HTTP API.
+type HTTP struct {
+	// Listen address. Default 127.0.0.1:7480 (loopback only). "off"
+	// disables the API.
+	Listen string `yaml:"listen"`
+}
+
+// Log configures logging.
+type Log struct {
+	// Format: text or json. Default text.
+	Format string `yaml:"format"`
+	// Level: debug, info, warn or error. Default info.
+	Level string `yaml:"level"`
+}
+
+// ApplyDefaults fills every zero field with its default. It is idempotent.
+// Unit overrides are left empty (they inherit); use UnitModel and
+// UnitAlerts for a unit's effective settings.
+func (c *Config) ApplyDefaults() {
+	if c.Server.Name == "" {
+		c.Server.Name = "modewatch"
+	}
+	if c.Server.Prefix == "" {
+		c.Server.Prefix = DefaultPrefix
+	}
+	if len(c.Sources.Subjects) == 0 && c.Sources.JetStream.Stream == "" && len(c.Sources.Files) == 0 {
+		c.Sources.Subjects = []string{c.Server.Prefix + ".readings.>"}
+	}
+	if c.Sources.JetStream.Stream != "" && len(c.Sources.JetStream.Subjects) == 0 {
+		c.Sources.JetStream.Subjects = append([]string(nil), c.Sources.Subjects...)
+		if len(c.Sources.JetStream.Subjects) == 0 {
+			c.Sources.JetStream.Subjects = []string{c.Server.Prefix + ".readings.>"}
+		}
+	}
+	if c.Frames.Precision == "" {
+		c.Frames.Precision = DefaultPrecision
+	}
+	if c.Frames.MaxChannels == 0 {
+		c.Frames.MaxChannels = DefaultMaxChannels
+	}
+	c.Model = c.Model.Over(DefaultModel())
+	c.Alerts = c.Alerts.Over(DefaultAlerts())
+	if c.Sinks.Queue == 0 {
+		c.Sinks.Queue = DefaultSinkQueue
+	}
+	if c.HTTP.Listen == "" {
+		c.HTTP.Listen = DefaultListen
+	}
+	if c.DataDir == "" {
+		c.DataDir = DefaultDataDir
+	}
+	if c.Sinks.SpoolDir == "" {
+		c.Sinks.SpoolDir = c.DataDir + "/spool"
+	}
+	if c.CheckpointInterval == 0 {
+		c.CheckpointInterval = DefaultCheckpointInterval
+	}
+	if c.ShutdownTimeout == 0 {
+		c.ShutdownTimeout = DefaultShutdownTimeout
+	}
+	if c.Log.Format == "" {
+		c.Log.Format = DefaultLogFormat
+	}
+	if c.Log.Level == "" {
+		c.Log.Level = DefaultLogLevel
+	}
+}
+
+// DefaultModel returns the default model settings.
+func DefaultModel() Model {
+	adapt := true
+	return Model{
+		Sparsity:     DefaultSparsity,
+		Modes:        ModeCount{Share: 0.8},
+		MaxModes:     DefaultMaxModes,
+		HalfLife:     DefaultHalfLife,
+		Alpha:        DefaultAlpha,
+		Adapt:        &adapt,
+		Limits:       Limits{Method: LimitsTheory},
+		RefreshEvery: DefaultRefreshEvery,
+		WarmUp:       DefaultWarmUp,
+	}
+}
+
+// DefaultAlerts returns the default alarm settings.
+func DefaultAlerts() Alerts {
+	freeze := true
+	return Alerts{
+		OnDelay:  OnDelay{N: DefaultOnDelayN, M: DefaultOnDelayM},
+		OffDelay: DefaultOffDelay,
+		Deadband: DefaultDeadband,
+		Severity: []SeverityBand{
+			{Name: "low", Ratio: 1},
+			{Name: "medium", Ratio: 2},
+			{Name: "high", Ratio: 4},
+		},
+		Flood:         RateRule{Count: DefaultFloodCount, Window: DefaultFloodWindow},
+		Chatter:       RateRule{Count: DefaultChatterCount, Window: DefaultChatterWindow},
+		FreezeOnAlert: &freeze,
+	}
+}
+
+// Over returns m with every zero field taken from base.
+func (m Model) Over(base Model) Model {
+	if m.Sparsity == "" {
+		m.Sparsity = base.Sparsity
+	}
+	if m.Modes.IsZero() {
+		m.Modes = base.Modes
+	}
+	if m.MaxModes == 0 {
+		m.MaxModes = base.MaxModes
+	}
+	if m.HalfLife == 0 {
+		m.HalfLife = base.HalfLife
+	}
+	if m.Alpha == 0 {
+		m.Alpha = base.Alpha
+	}
+	if m.Adapt == nil {
+		m.Adapt = base.Adapt
+	}
+	if m.Limits.Method == "" {
+		m.Limits = base.Limits
+	}
+	if m.RefreshEvery == 0 {
+		m.RefreshEvery = base.RefreshEvery
+	}
+	if m.WarmUp == 0 {
+		m.WarmUp = base.WarmUp
+	}
+	if m.File == "" {
+		m.File = base.File
+	}
+	return m
+}
+
+// Over returns a with every zero field taken from base.
+func (a Alerts) Over(base Alerts) Alerts {
+	if a.OnDelay == (OnDelay{}) {
+		a.OnDelay = base.OnDelay
+	}
+	if a.OffDelay == 0 {
+		a.OffDelay = base.OffDelay
+	}
+	if a.Deadband == 0 {
+		a.Deadband = base.Deadband
+	}
+	if len(a.Severity) == 0 {
+		a.Severity = base.Severity
+	}
+	if a.Flood == (RateRule{}) {
+		a.Flood = base.Flood
+	}
+	if a.Chatter == (RateRule{}) {
+		a.Chatter = base.Chatter
+	}
+	if a.FreezeOnAlert == nil {
+		a.FreezeOnAlert = base.FreezeOnAlert
+	}
+	return a
+}
+
+// UnitModel returns the effective model settings of unit i: its overrides
+// over Config.Model over the defaults.
+func (c *Config) UnitModel(i int) Model {
+	return c.Units[i].Model.Over(c.Model.Over(DefaultModel()))
+}
+
+// UnitAlerts returns the effective alarm settings of unit i.
+func (c *Config) UnitAlerts(i int) Alerts {
+	return c.Units[i].Alerts.Over(c.Alerts.Over(DefaultAlerts()))
+}
+
+// Unit returns the index of the unit named name, or -1.
+func (c *Config) Unit(name string) int {
+	for i := range c.Units {
+		if c.Units[i].Name == name {
+			return i
+		}
+	}
+	return -1
+}
+
+// ModelFor returns the effective model settings of the unit named name;
+// an unknown unit (auto-discovered) gets Config.Model over the defaults.
+func (c *Config) ModelFor(name string) Model {
+	if i := c.Unit(name); i >= 0 {
+		return c.UnitModel(i)
+	}
+	return c.Model.Over(DefaultModel())
+}
+
+// AlertsFor returns the effective alarm settings of the unit named name.
+func (c *Config) AlertsFor(name string) Alerts {
+	if i := c.Unit(name); i >= 0 {
+		return c.UnitAlerts(i)
+	}
+	return c.Alerts.Over(DefaultAlerts())
+}

@@ -1,0 +1,278 @@
+package configs
+
+import (
+	"errors"
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+	"time"
+)
+
+// TestLoadExample loads the shipped, annotated example configuration and
+// checks a few values as they are written in it.
+func TestLoadExample(t *testing.T) {
+	c, err := Load(filepath.Join("modewatch.yaml"))
+	if err != nil {
+		t.Fatalf("Load: %v", err)
+	}
+	if got, want := c.Frames.Period, 10*time.Second; got != want {
+		t.Errorf("frames.period = %v, want %v", got, want)
+	}
+	if got, want := c.Model.HalfLife, 7*24*time.Hour; got != want {
+		t.Errorf("model.halflife = %v, want %v", got, want)
+	}
+	if got := c.Model.Modes; got != (ModeCount{Share: 0.8}) {
+		t.Errorf("model.modes = %+v", got)
+	}
+	if len(c.Units) != 1 || c.Units[0].Name != "coolwater" {
+		t.Fatalf("units = %+v", c.Units)
+	}
+	// The unit overrides halflife and inherits the rest.
+	m := c.UnitModel(0)
+	if m.HalfLife != 72*time.Hour || m.Alpha != 0.01 || m.Sparsity != "l0:6" || !*m.Adapt {
+		t.Errorf("unit model = %+v", m)
+	}
+	if a := c.UnitAlerts(0); a.OnDelay != (OnDelay{4, 6}) || a.OffDelay != 5*time.Minute {
+		t.Errorf("unit alerts = %+v", a)
+	}
+	if c.Channels[1].Model == nil || *c.Channels[1].Model {
+		t.Errorf("channels[1].model should be false")
+	}
+	if c.Channels[0].Min == nil || *c.Channels[0].Min != 0 || *c.Channels[0].Max != 400 {
+		t.Errorf("channels[0] range = %v..%v", c.Channels[0].Min, c.Channels[0].Max)
+	}
+}
+
+// TestShippedConfigs checks that every service configuration shipped in
+// this directory loads cleanly (scenario files belong to the simulator).
+func TestShippedConfigs(t *testing.T) {
+	files, _ := filepath.Glob("*.yaml")
+	n := 0
+	for _, f := range files {
+		if strings.HasPrefix(f, "scenario") || strings.HasPrefix(f, "grid") {
+			continue
+		}
+		n++
+		t.Run(f, func(t *testing.T) {
+			if _, err := Load(f); err != nil {
+				t.Errorf("%v", err)
+			}
+		})
+	}
+	if n == 0 {
+		t.Fatal("no service configurations found")
+	}
+}
+
+// TestEmptyIsDefaults: an empty file and the zero Config give the defaults.
+func TestEmptyIsDefaults(t *testing.T) {
+	c, err := Parse("empty.yaml", nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if c.HTTP.Listen != DefaultListen || c.DataDir != DefaultDataDir || c.Model.Alpha != DefaultAlpha ||
+		c.Model.Sparsity != DefaultSparsity || c.Alerts.OnDelay != (OnDelay{3, 5}) || c.CheckpointInterval != DefaultCheckpointInterval {
+		t.Errorf("defaults not applied: %+v", c)
+	}
+	if got := c.Sources.Subjects; len(got) != 1 || got[0] != "modewatch.readings.>" {
+		t.Errorf("default subjects = %v", got)
+	}
+	var z Config
+	z.ApplyDefaults()
+	if err := z.Validate(); err != nil {
+		t.Errorf("zero Config with defaults does not validate: %v", err)
+	}
+}
+
+// TestBrokenReportsEverything: a configuration with many problems yields
+// every one of them at once, each with its line and column.
+func TestBrokenReportsEverything(t *testing.T) {
+	_, err := Load(filepath.Join("testdata", "broken.yaml"))
+	var es Errors
+	if !errors.As(err, &es) {
+		t.Fatalf("want Errors, got %T %v", err, err)
+	}
+	if !errors.Is(err, ErrInvalid) {
+		t.Errorf("errors.Is(err, ErrInvalid) = false")
+	}
+	// Positions counted by hand in testdata/broken.yaml.
+	want := []struct {
+		line, col int
+		text      string
+	}{
+		{2, 26, `"http//bad" is not a server URL`},
+		{2, 3, "at most one of user/password, token"}, // placed at the server section
+		{5, 8, "cert and key go together"},
+		{7, 27, `"bad subject" is not a valid subject`},
+		{8, 14, `durable "dur1" needs a stream`},
+		{10, 11, `duration "10 seconds"`},
+		{11, 14, `"minutes" is not one of ns, us, ms, s`},
+		{12, 14, `duration "-5s" is negative`},
+		{17, 10, "valid range is empty"},
+		{18, 11, `channel "coolwater.flow" is already defined as channels[0]`},
+		{21, 5, `unknown key "colour"`},
+		{23, 13, `sparsity "l0:zero"`},
+		{24, 10, `modes "auto:1.5"`},
+		{25, 10, "0.7 is not a false-alarm rate"},
+		{26, 10, `want true or false, found "maybe"`},
+		{27, 11, `want theory or empirical:FILE`},
+		{31, 32, `channel "nosuch.channel" is not in the channel map`},
+		{32, 11, `"steam.drum" must be one subject token`},
+		{33, 16, `channel "coolwater.flow" already belongs to unit "coolwater"`},
+		{35, 13, "want 1 ≤ n ≤ m"},
+		{36, 13, "not a fraction of the limit"},
+		{39, 27, "is not above the previous band"},
+		{41, 12, "is not an http(s) URL"},
+		{42, 1, `unknown key "htpp" (did you mean "http"?)`},
+		{45, 10, `"loud" is not one of debug`},
+	}
+	for _, w := range want {
+		found := false
+		for _, e := range es {
+			if e.Line == w.line && e.Column == w.col && strings.Contains(e.Msg, w.text) {
+				found = true
+				if !strings.HasPrefix(e.Error(), filepath.Join("testdata", "broken.yaml")+":") {
+					t.Errorf("error does not start with the file name: %s", e)
+				}
+			}
+		}
+		if !found {
+			t.Errorf("missing error at %d:%d containing %q", w.line, w.col, w.text)
+		}
+	}
+	if len(es) != len(want) {
+		t.Errorf("got %d errors, want %d:\n%v", len(es), len(want), err)
+	}
+	for i := 1; i < len(es); i++ {
+		if es[i].Line < es[i-1].Line {
+			t.Errorf("errors not sorted by line: %d after %d", es[i].Line, es[i-1].Line)
+		}
+	}
+}
+
+func TestYAMLSyntaxError(t *testing.T) {
+	_, err := Parse("bad.yaml", []byte("server:\n  urls: [a, b\nmodel: {}\n"))
+	var es Errors
+	if !errors.As(err, &es) || len(es) != 1 || es[0].Line == 0 {
+		t.Fatalf("want one located syntax error, got %v", err)
+	}
+	if !strings.HasPrefix(es[0].Error(), "bad.yaml:") {
+		t.Errorf("error %q lacks file name", es[0])
+	}
+}
+
+func TestTypeErrors(t *testing.T) {
+	cases := []struct {
+		name, yaml, want string
+	}{
+		{"list for section", "model: [1, 2]", "want a section"},
+		{"section for list", "units: {a: b}", "want a list"},
+		{"string for int", "frames: {max_channels: many}", "want a whole number"},
+		{"float for int", "model: {warmup: 1.5}", "want a whole number"},
+		{"nan float", "model: {alpha: .nan}", "want a finite number"},
+		{"duplicate key", "log: {level: info, level: debug}", `duplicate key "level"`},
+		{"section for duration", "model: {halflife: {d: 1}}", "want a duration"},
+	}
+	for _, tc := range cases {
+		t.Run(tc.name, func(t *testing.T) {
+			_, err := Parse("x.yaml", []byte(tc.yaml))
+			if err == nil || !strings.Contains(err.Error(), tc.want) {
+				t.Errorf("got %v, want an error containing %q", err, tc.want)
+			}
+			if err != nil && !strings.Contains(err.Error(), "x.yaml:1:") {
+				t.Errorf("error lacks position: %v", err)
+			}
+		})
+	}
+}
+
+func TestParseValues(t *testing.T) {
+	mc := []struct {
+		in   string
+		want ModeCount
+		ok   bool
+	}{
+		{"3", ModeCount{Count: 3}, true},
+		{"auto:0.9", ModeCount{Share: 0.9}, true},
+		{"auto:1", ModeCount{Share: 1}, true},
+		{"0", ModeCount{}, false},
+		{"auto:0", ModeCount{}, false},
+		{"auto:", ModeCount{}, false},
+		{"three", ModeCount{}, false},
+	}
+	for _, tc := range mc {
+		got, err := ParseModeCount(tc.in)
+		if (err == nil) != tc.ok || got != tc.want {
+			t.Errorf("ParseModeCount(%q) = %+v, %v", tc.in, got, err)
+		}
+		if tc.ok && got.String() != tc.in {
+			t.Errorf("ModeCount %q round-trips to %q", tc.in, got.String())
+		}
+	}
+	dur := []struct {
+		in   string
+		want time.Duration
+		ok   bool
+	}{
+		{"7d", 7 * 24 * time.Hour, true},
+		{"1h30m", 90 * time.Minute, true},
+		{"250ms", 250 * time.Millisecond, true},
+		{"-1s", 0, false},
+		{"-2d", 0, false},
+		{"1 day", 0, false},
+	}
+	for _, tc := range dur {
+		got, err := ParseDuration(tc.in)
+		if (err == nil) != tc.ok || got != tc.want {
+			t.Errorf("ParseDuration(%q) = %v, %v", tc.in, got, err)
+		}
+	}
+	lim := []struct {
+		in   string
+		want Limits
+		ok   bool
+	}{
+		{"theory", Limits{Method: LimitsTheory}, true},
+		{"empirical:normal.lp", Limits{Method: LimitsEmpirical, File: "normal.lp"}, true},
+		{"empirical:", Limits{}, false},
+		{"box", Limits{}, false},
+	}
+	for _, tc := range lim {
+		got, err := ParseLimits(tc.in)
+		if (err == nil) != tc.ok || got != tc.want {
+			t.Errorf("ParseLimits(%q) = %+v, %v", tc.in, got, err)
+		}
+	}
+}
+
+func TestSparsitySyntax(t *testing.T) {
+	for _, s := range []string{"none", "l0:5", "l1:2.5", "l0pen:0.1", "l1pen:0.2", "logpen:0.1", "logpen:0.1,0.01", "exppen:1,0.5"} {
+		if err := CheckSparsity(s); err != nil {
+			t.Errorf("CheckSparsity(%q) = %v", s, err)
+		}
+	}
+	for _, s := range []string{"", "l0", "l0:0", "l1:0.5", "l0pen:-1", "logpen:1,0", "l2:3", "dense"} {
+		if err := CheckSparsity(s); err == nil {
+			t.Errorf("CheckSparsity(%q) accepted", s)
+		}
+	}
+}
+
+// TestAuthWithoutURLs: credentials make no sense for the embedded server.
+func TestAuthWithoutURLs(t *testing.T) {
+	_, err := Parse("a.yaml", []byte("server:\n  token: abc\n"))
+	if err == nil || !strings.Contains(err.Error(), "a.yaml:2:3") || !strings.Contains(err.Error(), "no urls") {
+		t.Errorf("got %v", err)
+	}
+}
+
+func TestLoadMissingFile(t *testing.T) {
+	_, err := Load(filepath.Join("testdata", "does-not-exist.yaml"))
+	if !errors.Is(err, os.ErrNotExist) {
+		t.Errorf("got %v, want not-exist", err)
+	}
+	if errors.Is(err, ErrInvalid) {
+		t.Errorf("an I/O error must not be ErrInvalid")
+	}
+}
