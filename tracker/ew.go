@@ -1,0 +1,291 @@
+package tracker
+
+import (
+	"math"
+	"time"
+
+	"gonum.org/v1/gonum/blas"
+	"gonum.org/v1/gonum/blas/blas64"
+	"gonum.org/v1/gonum/mat"
+)
+
+// Forgetting returns the forgetting factor μ of an exponentially weighted
+// estimator whose weights halve every halfLife, sampled every period:
+//
+//	μ = 2^(−Δt/H),  α = 1 − μ
+//
+// A frame's weight then falls to one half after H of event time. A zero or
+// negative halfLife means no forgetting (μ = 1, a cumulative average).
+func Forgetting(period, halfLife time.Duration) float64 {
+	if halfLife <= 0 || period <= 0 {
+		return 1
+	}
+	return math.Exp2(-float64(period) / float64(halfLife))
+}
+
+// SteadyNEff returns the steady-state Kish effective sample size of an
+// exponentially weighted estimator with forgetting factor μ (Kish 1965):
+//
+//	n_eff = (Σw)²/Σw² = (1 + μ)/(1 − μ)
+//
+// which is also the span of the moving average with the same variance
+// (about twice the memory length 1/(1 − μ)).
+func SteadyNEff(mu float64) float64 {
+	if mu >= 1 {
+		return math.Inf(1)
+	}
+	return (1 + mu) / (1 - mu)
+}
+
+// EW holds exponentially weighted per-channel means and variances and the
+// covariance matrix of p channels, updated one frame at a time by the
+// weighted incremental formulas of Finch (2009), "Incremental calculation of
+// weighted mean and variance", §9 (exponentially weighted):
+//
+//	δ = x − b;  b ← b + αδ;  C ← (1 − α)(C + αδδᵀ)
+//
+// With α = 1 − μ this is the forgetting-factor update of recursive PCA
+// (Li, Yue, Valle-Cervantes & Qin 2000). Units: b in channel units, C in
+// channel units squared.
+//
+// Start-up: the first frame sets b = x and C = 0. With CumulativeStart the
+// step is αₖ = max(1 − μ, 1/k) at the k-th frame of a channel, so the first
+// 1/(1 − μ) frames are weighted equally (an ordinary running mean and
+// population covariance) before the exponential forgetting takes over;
+// without it αₖ = 1 − μ from the second frame on.
+//
+// Missing channels: a frame updates only the channels it observes. With
+// sᵢ = √(1 − αᵢ) and uᵢ = √(αᵢ(1 − αᵢ))·δᵢ for an observed channel and
+// sᵢ = 1, uᵢ = 0 for a missing one, the update is the congruence
+//
+//	C ← S C S + u uᵀ,  S = diag(s)
+//
+// which equals Finch's update on the observed block, leaves the mean,
+// variance and covariances among missing channels untouched, shrinks the
+// cross-covariances by √(1 − α) and keeps C positive semidefinite.
+//
+// Batching: complete frames sharing one α are buffered and folded into C
+// with a single rank-B update (blas64.Syrk), which equals B single updates
+// up to rounding:
+//
+//	C ← Πₖ(1 − αₖ)·C + Σₖ cₖ δₖδₖᵀ,  cₖ = αₖ(1 − αₖ)·Π_{j>k}(1 − αⱼ)
+//
+// Means and variances are always current; the covariance is current after
+// Flush.
+type EW struct {
+	p          int
+	mu         float64
+	cumulative bool
+
+	mean  []float64
+	vari  []float64
+	count []float64 // frames seen per channel
+	sumW2 []float64 // Σw² of the normalised weights per channel (Kish)
+
+	cov blas64.Symmetric // upper triangle, p × p
+
+	// Batch buffer: up to cap rows of δ (the deviation from the mean before
+	// the frame) and their steps α.
+	rows   []float64 // capB × p
+	alphas []float64
+	nb     int
+	capB   int
+
+	s, u []float64 // scratch for the direct update
+}
+
+// NewEW returns an estimator for p channels with forgetting factor mu
+// (0 < μ ≤ 1) that buffers up to batch complete frames (batch < 1 means 1,
+// no buffering).
+func NewEW(p int, mu float64, batch int, cumulativeStart bool) *EW {
+	if p < 1 || !(mu > 0 && mu <= 1) {
+		panic("tracker: NewEW: bad size or forgetting factor")
+	}
+	if batch < 1 {
+		batch = 1
+	}
+	e := &EW{
+		p: p, mu: mu, cumulative: cumulativeStart,
+		mean: make([]float64, p), vari: make([]float64, p),
+		count: make([]float64, p), sumW2: make([]float64, p),
+		cov:  blas64.Symmetric{N: p, Stride: p, Data: make([]float64, p*p), Uplo: blas.Upper},
+		rows: make([]float64, batch*p), alphas: make([]float64, batch), capB: batch,
+		s: make([]float64, p), u: make([]float64, p),
+	}
+	return e
+}
+
+// step returns the step α for a channel about to see its k-th frame (k ≥ 1).
+func (e *EW) step(k float64) float64 {
+	if k <= 1 {
+		return 1
+	}
+	a := 1 - e.mu
+	if e.cumulative && 1/k > a {
+		return 1 / k
+	}
+	return a
+}
+
+// Update folds one frame into the estimates. observed may be nil (all
+// observed); x[i] is ignored where observed[i] is false. x must be finite
+// where observed.
+func (e *EW) Update(x []float64, observed []bool) {
+	if len(x) != e.p || (observed != nil && len(observed) != e.p) {
+		panic("tracker: EW.Update: length mismatch")
+	}
+	// A frame joins the batch when every channel is observed and all share
+	// the same step.
+	batchable := true
+	a0 := e.step(e.count[0] + 1)
+	for i := 0; i < e.p; i++ {
+		if (observed != nil && !observed[i]) || e.step(e.count[i]+1) != a0 {
+			batchable = false
+			break
+		}
+	}
+	if batchable && a0 < 1 {
+		row := e.rows[e.nb*e.p : (e.nb+1)*e.p]
+		for i := 0; i < e.p; i++ {
+			d := x[i] - e.mean[i]
+			row[i] = d
+			e.updateChannel(i, x[i], d, a0)
+		}
+		e.alphas[e.nb] = a0
+		e.nb++
+		if e.nb == e.capB {
+			e.Flush()
+		}
+		return
+	}
+	e.Flush()
+	for i := 0; i < e.p; i++ {
+		if observed != nil && !observed[i] {
+			e.s[i], e.u[i] = 1, 0
+			continue
+		}
+		a := e.step(e.count[i] + 1)
+		d := x[i] - e.mean[i]
+		e.s[i] = math.Sqrt(1 - a)
+		e.u[i] = math.Sqrt(a*(1-a)) * d
+		e.updateChannel(i, x[i], d, a)
+	}
+	n := e.p
+	for i := 0; i < n; i++ {
+		si := e.s[i]
+		r := e.cov.Data[i*n+i : i*n+n]
+		for j := range r {
+			r[j] *= si * e.s[i+j]
+		}
+	}
+	blas64.Syr(1, blas64.Vector{N: n, Inc: 1, Data: e.u}, e.cov)
+}
+
+func (e *EW) updateChannel(i int, x, d, a float64) {
+	e.count[i]++
+	if a >= 1 {
+		e.mean[i] = x
+		e.vari[i] = 0
+		e.sumW2[i] = 1
+		return
+	}
+	e.mean[i] += a * d
+	e.vari[i] = (1 - a) * (e.vari[i] + a*d*d)
+	e.sumW2[i] = (1-a)*(1-a)*e.sumW2[i] + a*a
+}
+
+// Flush folds the buffered frames into the covariance with one rank-B
+// update (blas64.Syrk).
+func (e *EW) Flush() {
+	if e.nb == 0 {
+		return
+	}
+	// Scale row k by √cₖ, cₖ = αₖ(1 − αₖ)·Π_{j>k}(1 − αⱼ); accumulate the
+	// total decay Π(1 − αₖ).
+	tail := 1.0
+	for k := e.nb - 1; k >= 0; k-- {
+		a := e.alphas[k]
+		c := math.Sqrt(a * (1 - a) * tail)
+		row := e.rows[k*e.p : (k+1)*e.p]
+		for i := range row {
+			row[i] *= c
+		}
+		tail *= 1 - a
+	}
+	d := blas64.General{Rows: e.nb, Cols: e.p, Stride: e.p, Data: e.rows[:e.nb*e.p]}
+	blas64.Syrk(blas.Trans, 1, d, tail, e.cov)
+	e.nb = 0
+}
+
+// P returns the number of channels.
+func (e *EW) P() int { return e.p }
+
+// Mean returns the EW mean of channel i (channel units).
+func (e *EW) Mean(i int) float64 { return e.mean[i] }
+
+// Var returns the EW variance of channel i (channel units squared).
+func (e *EW) Var(i int) float64 { return e.vari[i] }
+
+// Count returns how many frames have updated channel i.
+func (e *EW) Count(i int) float64 { return e.count[i] }
+
+// NEff returns the Kish effective sample size of channel i,
+// n_eff = (Σw)²/Σw² (Kish 1965, Survey Sampling), 0 before the first frame.
+func (e *EW) NEff(i int) float64 {
+	if e.sumW2[i] == 0 {
+		return 0
+	}
+	return 1 / e.sumW2[i]
+}
+
+// MeanTo copies the means into dst (len p) and returns it.
+func (e *EW) MeanTo(dst []float64) []float64 { copy(dst, e.mean); return dst }
+
+// VarTo copies the variances into dst (len p) and returns it.
+func (e *EW) VarTo(dst []float64) []float64 { copy(dst, e.vari); return dst }
+
+// CovTo flushes the batch and copies the covariance into dst (p × p).
+func (e *EW) CovTo(dst *mat.SymDense) {
+	e.Flush()
+	dst.SetRawSymmetric(copySym(dst.RawSymmetric(), e.cov))
+}
+
+func copySym(dst, src blas64.Symmetric) blas64.Symmetric {
+	n := src.N
+	if dst.N != n {
+		panic("tracker: covariance size mismatch")
+	}
+	for i := 0; i < n; i++ {
+		copy(dst.Data[i*dst.Stride+i:i*dst.Stride+n], src.Data[i*src.Stride+i:i*src.Stride+n])
+	}
+	return dst
+}
+
+// CorrTo flushes the batch and writes the correlation matrix of the channels
+// into dst (p × p): Aᵢⱼ = Cᵢⱼ/√(CᵢᵢCⱼⱼ) for channels with include[i] true,
+// and zero rows and columns for the others (include nil means all). A
+// channel with zero variance must be excluded by the caller.
+func (e *EW) CorrTo(dst *mat.SymDense, include []bool) {
+	e.Flush()
+	n := e.p
+	raw := dst.RawSymmetric()
+	if raw.N != n {
+		panic("tracker: correlation size mismatch")
+	}
+	for i := 0; i < n; i++ {
+		e.s[i] = 0
+		if (include == nil || include[i]) && e.cov.Data[i*n+i] > 0 {
+			e.s[i] = 1 / math.Sqrt(e.cov.Data[i*n+i])
+		}
+	}
+	for i := 0; i < n; i++ {
+		src := e.cov.Data[i*n+i : i*n+n]
+		d := raw.Data[i*raw.Stride+i : i*raw.Stride+n]
+		for j := range d {
+			d[j] = src[j] * e.s[i] * e.s[i+j]
+		}
+		if e.s[i] != 0 {
+			d[0] = 1
+		}
+	}
+}
