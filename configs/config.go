@@ -247,7 +247,8 @@ type Model struct {
 
 // Alerts holds the alarm settings. Zero fields mean "inherit"/"default".
 type Alerts struct {
-	// OnDelay: active when over the limit in N of the last M frames.
+	// OnDelay: active when over the limit in N of the last M frames
+	// (1 ≤ N ≤ M ≤ 64). Default 3 of 5.
 	OnDelay OnDelay `yaml:"on_delay"`
 	// OffDelay: time below limit minus deadband before returning to normal.
 	OffDelay time.Duration `yaml:"off_delay"`
@@ -256,8 +257,12 @@ type Alerts struct {
 	// Severity bands by ratio statistic/limit, ascending. Default
 	// low ≥ 1, medium ≥ 2, high ≥ 4.
 	Severity []SeverityBand `yaml:"severity"`
-	Flood    RateRule       `yaml:"flood"`
-	Chatter  RateRule       `yaml:"chattering"`
+	// Flood: more than Count new alerts of a unit within Window are grouped
+	// into one flood alert. Default 10 in 10m. Top-level only.
+	Flood RateRule `yaml:"flood"`
+	// Chatter: Count activations of one alarm within Window make it
+	// chattering (suppressed and reported). Default 3 in 1m. Top-level only.
+	Chatter RateRule `yaml:"chattering"`
 	// FreezeOnAlert freezes a unit's learning while an alert is active.
 	// Default true.
 	FreezeOnAlert *bool `yaml:"freeze_on_alert"`

@@ -332,8 +332,8 @@ func (v *validator) alerts(p string, a Alerts, partial bool) {
 	if od != (OnDelay{}) || !partial {
 		if od.N < 1 || od.M < od.N {
 			v.add(p+".on_delay", "n=%d of m=%d: want 1 ≤ n ≤ m", od.N, od.M)
-		} else if od.M > 1000 {
-			v.add(p+".on_delay.m", "%d frames is more than 1000", od.M)
+		} else if od.M > 64 {
+			v.add(p+".on_delay.m", "%d frames is more than 64", od.M)
 		}
 	}
 	if a.OffDelay < 0 {
@@ -358,11 +358,15 @@ func (v *validator) alerts(p string, a Alerts, partial bool) {
 		name string
 		r    RateRule
 	}{{"flood", a.Flood}, {"chattering", a.Chatter}} {
-		if r.r == (RateRule{}) && partial {
+		if partial {
+			// The alarm-rate rules count over the whole service.
+			if r.r != (RateRule{}) {
+				v.add(p+"."+r.name, "set %s under the top-level alerts section: it applies to every unit", r.name)
+			}
 			continue
 		}
-		if r.r.Count < 1 {
-			v.add(p+"."+r.name+".count", "%d: want at least 1", r.r.Count)
+		if r.r.Count < 2 {
+			v.add(p+"."+r.name+".count", "%d: want at least 2", r.r.Count)
 		}
 		if r.r.Window <= 0 {
 			v.add(p+"."+r.name+".window", "missing or zero")
