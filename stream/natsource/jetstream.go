@@ -1,0 +1,338 @@
+package natsource
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"log/slog"
+	"sync"
+	"sync/atomic"
+	"time"
+
+	"github.com/nats-io/nats.go"
+	"github.com/nats-io/nats.go/jetstream"
+)
+
+// Defaults for JetStreamConfig.
+const (
+	DefaultMaxAckPending = 1024
+	DefaultAckWait       = 30 * time.Second
+	DefaultPullBatch     = 256
+)
+
+// JetStreamConfig configures a durable pull consumer. Stream and Durable are
+// required; the rest has defaults.
+type JetStreamConfig struct {
+	// Stream is the JetStream stream name. Required.
+	Stream string
+	// Durable is the durable consumer name; its position survives restarts
+	// of this process and of the server (with file storage). Required.
+	Durable string
+	// FilterSubjects restricts the consumer to these subjects (wildcards
+	// allowed); empty means every subject of the stream.
+	FilterSubjects []string
+
+	// CreateStream creates the stream if it does not exist, capturing
+	// StreamSubjects. An existing stream is used as it is.
+	CreateStream   bool
+	StreamSubjects []string      // required with CreateStream
+	StreamMemory   bool          // memory instead of file storage (lost on server restart)
+	StreamMaxAge   time.Duration // 0: keep forever
+	StreamMaxBytes int64         // 0: unlimited
+
+	// BindOnly uses an existing consumer as configured on the server.
+	// Without it the durable consumer is created, or updated to the values
+	// below, which is what the acknowledgement scheme relies on.
+	BindOnly bool
+	// DeliverNew starts a newly created consumer at messages published from
+	// now on; by default it starts at the first message in the stream.
+	DeliverNew bool
+	// MaxAckPending is the most messages delivered but not yet
+	// acknowledged; the server stops delivering at this bound, which is how
+	// intake slows when processing falls behind. Default 1024.
+	MaxAckPending int
+	// AckWait is how long the server waits for an acknowledgement before
+	// delivering the message again; default 30 s. Make it longer than the
+	// time a message may wait for the aligner's watermark (frame period +
+	// allowed lateness, with margin), or messages are redelivered while
+	// still pending (harmless with AckTracker, but wasteful).
+	AckWait time.Duration
+	// MaxDeliver limits delivery attempts; 0 or negative = unlimited
+	// (default: a message is never given up).
+	MaxDeliver int
+	// StartAfter is the last processed stream sequence from the saved
+	// Checkpoint (0 when there is none). On start the consumer is reset so
+	// that the server delivers again, at once and in sequence order,
+	// everything after StartAfter, or, with StartAfter 0, everything after
+	// the consumer's acknowledgement floor. Without the reset, messages the
+	// previous process received but did not acknowledge would come back only
+	// after AckWait, behind newer ones, and their readings would arrive late
+	// for the aligner. Only one process may consume a durable at a time.
+	StartAfter uint64
+	// NoReset skips that reset (e.g. when the durable is shared or the
+	// account may not reset consumers).
+	NoReset bool
+	// PullBatch is the number of messages the client buffers ahead of the
+	// handler; default 256, never more than MaxAckPending.
+	PullBatch int
+}
+
+func (cfg *JetStreamConfig) validate() error {
+	var errs []error
+	bad := func(format string, a ...any) {
+		errs = append(errs, fmt.Errorf("%w: jetstream: "+format, append([]any{ErrConfig}, a...)...))
+	}
+	if cfg.Stream == "" {
+		bad("stream name is required")
+	}
+	if cfg.Durable == "" {
+		bad("durable consumer name is required")
+	}
+	if cfg.CreateStream && len(cfg.StreamSubjects) == 0 {
+		bad("create_stream needs stream_subjects")
+	}
+	if cfg.MaxAckPending < 0 || cfg.PullBatch < 0 || cfg.AckWait < 0 || cfg.StreamMaxAge < 0 || cfg.StreamMaxBytes < 0 {
+		bad("max_ack_pending, pull_batch, ack_wait, stream_max_age and stream_max_bytes must not be negative")
+	}
+	return errors.Join(errs...)
+}
+
+// JetStreamStats are the counters of a JetStream consumer.
+type JetStreamStats struct {
+	Delivered     uint64 // messages handed to the handler
+	Redelivered   uint64 // of which the server had delivered before (crash, AckWait expiry)
+	Acked         uint64 // successful Ack calls
+	AckErrors     uint64 // failed Ack calls (the message will come again)
+	HandlerErrors uint64
+	PullErrors    uint64 // transient errors of the pull iterator (logged)
+}
+
+// JSConsumer is a running JetStream durable pull consumer; create it with
+// ConsumeJetStream.
+type JSConsumer struct {
+	log  *slog.Logger
+	h    Handler
+	cons jetstream.Consumer
+	it   jetstream.MessagesContext
+	wg   sync.WaitGroup
+	done chan struct{}
+	once sync.Once
+	err  error // terminal error, set before done is closed
+
+	delivered, redelivered, acked, ackErrs, handlerErrs, pullErrs atomic.Uint64
+}
+
+// ConsumeJetStream binds to (or creates, see cfg) the durable pull consumer
+// and calls h for every message from one goroutine. The handler receives an
+// Ack to call once the message is processed (usually through AckTracker);
+// until then the message counts against MaxAckPending and is redelivered
+// after AckWait or after a restart. Setup is bounded by ctx.
+func (c *Conn) ConsumeJetStream(ctx context.Context, cfg JetStreamConfig, h Handler) (*JSConsumer, error) {
+	if err := cfg.validate(); err != nil {
+		return nil, err
+	}
+	if h == nil {
+		panic("natsource: ConsumeJetStream with nil handler")
+	}
+	js, err := jetstream.New(c.nc)
+	if err != nil {
+		return nil, fmt.Errorf("natsource: jetstream: %w", err)
+	}
+	if _, err := js.Stream(ctx, cfg.Stream); err != nil {
+		if !errors.Is(err, jetstream.ErrStreamNotFound) || !cfg.CreateStream {
+			return nil, fmt.Errorf("natsource: jetstream stream %q: %w", cfg.Stream, err)
+		}
+		sc := jetstream.StreamConfig{
+			Name:     cfg.Stream,
+			Subjects: cfg.StreamSubjects,
+			Storage:  jetstream.FileStorage,
+			MaxAge:   cfg.StreamMaxAge,
+			MaxBytes: cfg.StreamMaxBytes,
+		}
+		if cfg.StreamMemory {
+			sc.Storage = jetstream.MemoryStorage
+		}
+		if sc.MaxBytes == 0 {
+			sc.MaxBytes = -1
+		}
+		if _, err := js.CreateStream(ctx, sc); err != nil && !errors.Is(err, jetstream.ErrStreamNameAlreadyInUse) {
+			return nil, fmt.Errorf("natsource: create jetstream stream %q: %w", cfg.Stream, err)
+		}
+	}
+	maxAck := cfg.MaxAckPending
+	if maxAck == 0 {
+		maxAck = DefaultMaxAckPending
+	}
+	batch := cfg.PullBatch
+	if batch == 0 {
+		batch = DefaultPullBatch
+	}
+	batch = min(batch, maxAck)
+	var cons jetstream.Consumer
+	if cfg.BindOnly {
+		cons, err = js.Consumer(ctx, cfg.Stream, cfg.Durable)
+	} else {
+		cc := jetstream.ConsumerConfig{
+			Durable:       cfg.Durable,
+			AckPolicy:     jetstream.AckExplicitPolicy,
+			AckWait:       orDur(cfg.AckWait, DefaultAckWait),
+			MaxAckPending: maxAck,
+			MaxDeliver:    -1,
+			DeliverPolicy: jetstream.DeliverAllPolicy,
+		}
+		if cfg.MaxDeliver > 0 {
+			cc.MaxDeliver = cfg.MaxDeliver
+		}
+		if cfg.DeliverNew {
+			cc.DeliverPolicy = jetstream.DeliverNewPolicy
+		}
+		switch len(cfg.FilterSubjects) {
+		case 0:
+		case 1:
+			cc.FilterSubject = cfg.FilterSubjects[0]
+		default:
+			cc.FilterSubjects = cfg.FilterSubjects
+		}
+		cons, err = js.CreateOrUpdateConsumer(ctx, cfg.Stream, cc)
+	}
+	if err != nil {
+		return nil, fmt.Errorf("natsource: jetstream consumer %q on stream %q: %w", cfg.Durable, cfg.Stream, err)
+	}
+	if !cfg.NoReset {
+		if err := resetConsumer(ctx, js, cfg); err != nil {
+			return nil, err
+		}
+	}
+	it, err := cons.Messages(jetstream.PullMaxMessages(batch), jetstream.WithMessagesErrOnMissingHeartbeat(false))
+	if err != nil {
+		return nil, fmt.Errorf("natsource: jetstream consumer %q: %w", cfg.Durable, err)
+	}
+	s := &JSConsumer{
+		log:  c.log.With("source", "jetstream", "stream", cfg.Stream, "consumer", cfg.Durable),
+		h:    h,
+		cons: cons,
+		it:   it,
+		done: make(chan struct{}),
+	}
+	s.wg.Add(1)
+	go s.run()
+	return s, nil
+}
+
+func (s *JSConsumer) run() {
+	defer s.wg.Done()
+	defer close(s.done)
+	for {
+		jm, err := s.it.Next()
+		if err != nil {
+			if errors.Is(err, jetstream.ErrMsgIteratorClosed) {
+				if errors.Is(err, jetstream.ErrConnectionClosed) || errors.Is(err, nats.ErrConnectionClosed) {
+					s.err = fmt.Errorf("natsource: jetstream consumer: %w: %w", ErrClosed, err)
+				}
+				return
+			}
+			if errors.Is(err, jetstream.ErrConsumerDeleted) || errors.Is(err, jetstream.ErrBadRequest) {
+				s.err = fmt.Errorf("natsource: jetstream consumer: %w", err)
+				s.log.Error("consumer stopped", "err", err)
+				s.it.Stop()
+				return
+			}
+			s.pullErrs.Add(1)
+			s.log.Warn("pull error", "err", err)
+			continue
+		}
+		md, err := jm.Metadata()
+		if err != nil {
+			// Not a JetStream message; cannot be acknowledged or ordered.
+			s.pullErrs.Add(1)
+			s.log.Warn("message without JetStream metadata", "subject", jm.Subject(), "err", err)
+			continue
+		}
+		if md.NumDelivered > 1 {
+			s.redelivered.Add(1)
+		}
+		s.delivered.Add(1)
+		m := Msg{Subject: jm.Subject(), Data: jm.Data(), Seq: md.Sequence.Stream, Ack: func() error {
+			if err := jm.Ack(); err != nil {
+				s.ackErrs.Add(1)
+				return fmt.Errorf("natsource: ack stream seq %d: %w", md.Sequence.Stream, err)
+			}
+			s.acked.Add(1)
+			return nil
+		}}
+		if err := s.h(m); err != nil {
+			s.handlerErrs.Add(1)
+			s.log.Warn("handler error", "subject", m.Subject, "seq", m.Seq, "err", err)
+		}
+	}
+}
+
+// Stop stops pulling: messages buffered in the client but not yet handed
+// to the handler are discarded (they are not acknowledged, so the server
+// delivers them again later). It waits for the delivery goroutine, bounded
+// by ctx. Acknowledgements already made are flushed by Conn.Drain.
+// Idempotent.
+func (s *JSConsumer) Stop(ctx context.Context) error {
+	s.once.Do(func() { s.it.Stop() })
+	select {
+	case <-s.done:
+		return nil
+	case <-ctx.Done():
+		return fmt.Errorf("natsource: stop jetstream consumer: %w", ctx.Err())
+	}
+}
+
+// Done is closed when the consumer has stopped (Stop, connection closed, or
+// consumer deleted on the server); Err then says why.
+func (s *JSConsumer) Done() <-chan struct{} { return s.done }
+
+// Err returns the terminal error after Done is closed; nil after Stop.
+func (s *JSConsumer) Err() error {
+	select {
+	case <-s.done:
+		return s.err
+	default:
+		return nil
+	}
+}
+
+// Info returns the consumer's state on the server (pending and
+// unacknowledged counts, delivered and acknowledged floors).
+func (s *JSConsumer) Info(ctx context.Context) (*jetstream.ConsumerInfo, error) {
+	ci, err := s.cons.Info(ctx)
+	if err != nil {
+		return nil, fmt.Errorf("natsource: consumer info: %w", err)
+	}
+	return ci, nil
+}
+
+// Stats returns the counters.
+func (s *JSConsumer) Stats() JetStreamStats {
+	return JetStreamStats{
+		Delivered:     s.delivered.Load(),
+		Redelivered:   s.redelivered.Load(),
+		Acked:         s.acked.Load(),
+		AckErrors:     s.ackErrs.Load(),
+		HandlerErrors: s.handlerErrs.Load(),
+		PullErrors:    s.pullErrs.Load(),
+	}
+}
+
+// resetConsumer makes the server deliver again everything after
+// cfg.StartAfter (or after the acknowledgement floor) in sequence order.
+func resetConsumer(ctx context.Context, js jetstream.JetStream, cfg JetStreamConfig) error {
+	var err error
+	if cfg.StartAfter > 0 {
+		_, err = js.ResetConsumerToSequence(ctx, cfg.Stream, cfg.Durable, cfg.StartAfter+1)
+		if errors.Is(err, jetstream.ErrConsumerInvalidReset) {
+			// e.g. DeliverNew: fall back to the acknowledgement floor.
+			_, err = js.ResetConsumer(ctx, cfg.Stream, cfg.Durable)
+		}
+	} else {
+		_, err = js.ResetConsumer(ctx, cfg.Stream, cfg.Durable)
+	}
+	if err != nil {
+		return fmt.Errorf("natsource: reset jetstream consumer %q on stream %q (set no_reset to skip): %w", cfg.Durable, cfg.Stream, err)
+	}
+	return nil
+}
