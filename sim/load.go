@@ -5,6 +5,7 @@ import (
 	"math"
 	"os"
 	"regexp"
+	"sort"
 	"strconv"
 	"strings"
 	"time"
@@ -21,6 +22,9 @@ type FieldError struct {
 }
 
 func (e *FieldError) Error() string {
+	if e.Field == "" {
+		return fmt.Sprintf("%s:%d:%d: %s", e.File, e.Line, e.Column, e.Msg)
+	}
 	return fmt.Sprintf("%s:%d:%d: %s: %s", e.File, e.Line, e.Column, e.Field, e.Msg)
 }
 
@@ -115,6 +119,10 @@ func LoadBytes(name string, data []byte) (*Scenario, error) {
 	l := &loader{file: name}
 	s := l.scenario(&root)
 	if len(l.errs) > 0 {
+		sort.SliceStable(l.errs, func(i, j int) bool {
+			a, b := l.errs[i], l.errs[j]
+			return a.Line < b.Line || (a.Line == b.Line && a.Column < b.Column)
+		})
 		return nil, &LoadError{File: name, Errs: l.errs}
 	}
 	if err := s.check(); err != nil {
@@ -141,6 +149,7 @@ func (l *loader) errf(n *yaml.Node, path, format string, args ...any) {
 // fields checks that n is a mapping with only the allowed keys, no
 // duplicates and every required key, and returns key → value node.
 func (l *loader) fields(n *yaml.Node, path string, allowed, required []string) map[string]*yaml.Node {
+	n = deref(n)
 	out := map[string]*yaml.Node{}
 	if n.Kind != yaml.MappingNode {
 		l.errf(n, path, "expected a mapping")
@@ -166,7 +175,7 @@ func (l *loader) fields(n *yaml.Node, path string, allowed, required []string) m
 			l.errf(k, kp, "unknown key (allowed: %s)", strings.Join(allowed, ", "))
 			continue
 		}
-		out[k.Value] = v
+		out[k.Value] = deref(v)
 	}
 	for _, r := range required {
 		if _, ok := out[r]; !ok {
@@ -178,6 +187,15 @@ func (l *loader) fields(n *yaml.Node, path string, allowed, required []string) m
 	return out
 }
 
+// deref follows YAML aliases (*name) to their anchored node, so anchors can
+// share channel lists between assets.
+func deref(n *yaml.Node) *yaml.Node {
+	for i := 0; n != nil && n.Kind == yaml.AliasNode && n.Alias != nil && i < 100; i++ {
+		n = n.Alias
+	}
+	return n
+}
+
 func join(path, key string) string {
 	if path == "" {
 		return key
@@ -186,6 +204,7 @@ func join(path, key string) string {
 }
 
 func (l *loader) scalar(n *yaml.Node, path string) (string, bool) {
+	n = deref(n)
 	if n.Kind != yaml.ScalarNode {
 		l.errf(n, path, "expected a single value")
 		return "", false
@@ -223,6 +242,7 @@ func (l *loader) nonneg(n *yaml.Node, path string) float64 {
 }
 
 func (l *loader) floats(n *yaml.Node, path string) []float64 {
+	n = deref(n)
 	if n.Kind != yaml.SequenceNode {
 		l.errf(n, path, "expected a list of numbers")
 		return nil
@@ -235,6 +255,7 @@ func (l *loader) floats(n *yaml.Node, path string) []float64 {
 }
 
 func (l *loader) strs(n *yaml.Node, path string) []string {
+	n = deref(n)
 	if n.Kind != yaml.SequenceNode {
 		l.errf(n, path, "expected a list")
 		return nil
