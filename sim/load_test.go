@@ -95,7 +95,9 @@ func TestLoadTable(t *testing.T) {
 		{"relation driver must touch every channel", func(s string) string {
 			return strings.Replace(s, "terms: {load: 2, speed: 0.1, load*speed: 0.01, load^2: 3}", "terms: {speed: 0.1}", 1)
 		}, `driver "load" has no term in channel(s) plant.pump02.flow, plant.pump03.flow`},
-		{"relation needs two", func(s string) string { return strings.Replace(s, "plant.pump02.flow, plant.pump03.flow", "plant.pump02.flow", 1) }, "at least two channels"},
+		{"relation needs two", func(s string) string {
+			return strings.Replace(s, "plant.pump02.flow, plant.pump03.flow", "plant.pump02.flow", 1)
+		}, "at least two channels"},
 		{"walk without tau", func(s string) string { return strings.Replace(s, "peak: 14h}}", "peak: 14h}, walk: {sigma: 1}}", 1) }, "drivers[0].walk.tau: missing"},
 		{"peak past midnight", func(s string) string { return strings.Replace(s, "peak: 14h", "peak: 25h", 1) }, "below 24h"},
 		{"term gain not a number", func(s string) string { return strings.Replace(s, "load^2: 3", "load^2: lots", 1) }, `terms.load^2: "lots" is not a finite number`},
