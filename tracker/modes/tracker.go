@@ -1,0 +1,540 @@
+package modes
+
+import (
+	"fmt"
+	"math"
+
+	"gonum.org/v1/gonum/mat"
+)
+
+// Defaults of Config.
+const (
+	DefaultShare     = 0.80 // Share when Count and Share are both 0
+	DefaultMaxCount  = 10   // MaxCount cap for the automatic count (and at most p)
+	DefaultColdEvery = 10   // ColdEvery when 0
+	DefaultMatchMin  = 0.5  // MatchMin when 0: |cos| ≥ 0.5, within 60°
+)
+
+// Config configures a Tracker. The zero value means: dense modes (ordinary
+// principal components), as many as needed for DefaultShare of the total
+// variance, at most DefaultMaxCount, projection deflation.
+type Config struct {
+	// Sparsity per mode, in extraction order; a single entry applies to
+	// every mode, none means Dense. With more than one entry there must be
+	// one per mode (Count, or MaxCount with the automatic count).
+	Sparsity []Sparsity
+	// Count is the fixed number of modes r; fewer are kept when the deflated
+	// matrix has no variance left or a penalty leaves a mode empty. 0 means
+	// choose by Share.
+	Count int
+	// Share (0 < Share ≤ 1) with Count == 0: the smallest r whose cumulative
+	// adjusted variance reaches Share·tr(A); default DefaultShare.
+	Share float64
+	// MaxCount caps the automatic count; default min(p, DefaultMaxCount), or
+	// len(Sparsity) when that is above 1.
+	MaxCount int
+	// Deflation between modes; default Projection.
+	Deflation Deflation
+	// Tol and MaxIter: stopping rules of every solve, see Options.
+	Tol     float64
+	MaxIter int
+	// ColdEvery: every ColdEvery-th Refresh also solves every mode from the
+	// cold start and keeps, per mode, the result with the larger objective
+	// (ties: the warm one), so a stale support cannot persist. 0 means
+	// DefaultColdEvery; negative means never (after the first Refresh).
+	ColdEvery int
+	// Start, Refit and EpsStages: see Options.
+	Start     Start
+	Refit     Refit
+	EpsStages int
+	// MatchMin: a new mode inherits the ID of the old mode it is matched to
+	// only if |cos| between their loadings is at least MatchMin; otherwise it
+	// gets a new ID. Default DefaultMatchMin.
+	MatchMin float64
+}
+
+// Mode describes one tracked mode. Its slices view the Tracker's storage:
+// read-only, valid until the next Refresh or UnmarshalBinary.
+type Mode struct {
+	// ID is the stable identity: a new mode takes the ID of the previous
+	// mode its loadings match best by |cosine| (greedy, best pair first),
+	// so an ID names the same group of sensors across refreshes.
+	ID int
+	// Support lists the channels with nonzero loadings, ascending.
+	Support []int
+	// Loadings is the unit loading vector (length p), sign fixed so that the
+	// largest-magnitude loading is positive.
+	Loadings []float64
+	// Variance is xᵀAx on the matrix given to Refresh (the variance of the
+	// mode's score); DeflatedVariance is xᵀA_jx on the deflated matrix the
+	// mode was extracted from. Both in the units of A.
+	Variance, DeflatedVariance float64
+	// AdjustedVariance is R_jj², R the upper Cholesky factor of VᵀAV over the
+	// modes in extraction order (Zou, Hastie & Tibshirani 2006): the variance
+	// this mode adds beyond the earlier ones. Units of A.
+	AdjustedVariance float64
+	// Objective is the value of the mode's sparse problem (see Result).
+	Objective float64
+	// Iterations counts the solver steps of the kept solution (ConGradU steps
+	// plus refit steps); Converged reports a stopping rule fired; Cold
+	// reports the kept solution came from the cold start.
+	Iterations int
+	Converged  bool
+	Cold       bool
+}
+
+type modeSet struct {
+	r    int
+	x    [][]float64
+	supp [][]int
+	id   []int
+	res  []Result
+	vari []float64 // xᵀA_0x
+	adj  []float64
+	g    []float64 // VᵀA_0V, m × m row-major
+	rch  []float64 // upper Cholesky factor of g
+	v    *mat.Dense
+	view []*mat.Dense // view[r] = p × r slice of v, view[0] = nil
+}
+
+func newModeSet(p, m int) *modeSet {
+	s := &modeSet{
+		x:    make([][]float64, m),
+		supp: make([][]int, m),
+		id:   make([]int, m),
+		res:  make([]Result, m),
+		vari: make([]float64, m),
+		adj:  make([]float64, m),
+		g:    make([]float64, m*m),
+		rch:  make([]float64, m*m),
+		v:    mat.NewDense(p, m, nil),
+		view: make([]*mat.Dense, m+1),
+	}
+	for j := 0; j < m; j++ {
+		s.x[j] = make([]float64, p)
+		s.supp[j] = make([]int, 0, p)
+		s.view[j+1] = s.v.Slice(0, p, 0, j+1).(*mat.Dense)
+	}
+	return s
+}
+
+// Tracker keeps r sparse modes of a changing covariance matrix. Refresh
+// starts each mode from its previous loadings (warm start); after
+// construction Refresh does not allocate. A Tracker is not safe for
+// concurrent use.
+type Tracker struct {
+	p         int
+	cfg       Config
+	sp        []Sparsity // one per slot
+	slots     int
+	auto      bool
+	opt       Options
+	ws        *Workspace
+	cur, nxt  *modeSet
+	have      bool
+	coldNext  bool
+	refreshes int
+	nextID    int
+	trace     float64
+	iters     int
+
+	ax0      []float64
+	bx, bc   []float64
+	bxs      []int
+	cosm     []float64
+	usedOld  []bool
+	usedNew  []bool
+	matchOld []int
+}
+
+// NewTracker returns a tracker for p × p matrices; cfg is validated and its
+// defaults filled in. Errors wrap ErrConfig or ErrSparsity.
+func NewTracker(p int, cfg Config) (*Tracker, error) {
+	bad := func(format string, a ...any) (*Tracker, error) {
+		return nil, fmt.Errorf("%w: %s", ErrConfig, fmt.Sprintf(format, a...))
+	}
+	if p < 1 {
+		return bad("dimension p = %d, want ≥ 1", p)
+	}
+	if cfg.Count < 0 || cfg.Count > p {
+		return bad("Count = %d outside [0, p = %d]", cfg.Count, p)
+	}
+	if cfg.MaxCount < 0 || cfg.MaxCount > p {
+		return bad("MaxCount = %d outside [0, p = %d]", cfg.MaxCount, p)
+	}
+	ns := len(cfg.Sparsity)
+	var slots int
+	auto := cfg.Count == 0
+	if auto {
+		if cfg.Share == 0 {
+			cfg.Share = DefaultShare
+		}
+		if !(cfg.Share > 0 && cfg.Share <= 1) {
+			return bad("Share = %g outside (0, 1]", cfg.Share)
+		}
+		if cfg.MaxCount == 0 {
+			cfg.MaxCount = min(p, DefaultMaxCount)
+			if ns > 1 {
+				cfg.MaxCount = ns
+			}
+		}
+		slots = cfg.MaxCount
+	} else {
+		if cfg.Share != 0 {
+			return bad("Share = %g is only used with Count = 0", cfg.Share)
+		}
+		if cfg.MaxCount == 0 {
+			cfg.MaxCount = cfg.Count
+		}
+		if cfg.MaxCount < cfg.Count {
+			return bad("MaxCount = %d below Count = %d", cfg.MaxCount, cfg.Count)
+		}
+		slots = cfg.Count
+	}
+	if ns > 1 && ns != slots {
+		return bad("%d sparsity entries for %d modes (give 1 or one per mode)", ns, slots)
+	}
+	sp := make([]Sparsity, slots)
+	for j := range sp {
+		switch {
+		case ns == 1:
+			sp[j] = cfg.Sparsity[0]
+		case ns > 1:
+			sp[j] = cfg.Sparsity[j]
+		}
+		if err := sp[j].check(p, math.Inf(1)); err != nil {
+			return nil, fmt.Errorf("mode %d: %w", j+1, err)
+		}
+	}
+	if cfg.Deflation != Projection && cfg.Deflation != Schur {
+		return bad("unknown deflation %d", int(cfg.Deflation))
+	}
+	if math.IsNaN(cfg.Tol) || cfg.Tol < 0 || math.IsInf(cfg.Tol, 0) {
+		return bad("Tol = %g, want finite ≥ 0", cfg.Tol)
+	}
+	if cfg.Tol == 0 {
+		cfg.Tol = DefaultTol
+	}
+	if cfg.MaxIter < 0 {
+		return bad("MaxIter = %d, want ≥ 0", cfg.MaxIter)
+	}
+	if cfg.MaxIter == 0 {
+		cfg.MaxIter = DefaultMaxIter
+	}
+	if cfg.ColdEvery == 0 {
+		cfg.ColdEvery = DefaultColdEvery
+	}
+	if cfg.EpsStages < 0 {
+		return bad("EpsStages = %d, want ≥ 0", cfg.EpsStages)
+	}
+	if cfg.Start < StartAuto || cfg.Start > StartDense {
+		return bad("unknown start %d", int(cfg.Start))
+	}
+	if cfg.Refit < RefitAuto || cfg.Refit > RefitNever {
+		return bad("unknown refit %d", int(cfg.Refit))
+	}
+	if cfg.MatchMin == 0 {
+		cfg.MatchMin = DefaultMatchMin
+	}
+	if !(cfg.MatchMin > 0 && cfg.MatchMin <= 1) {
+		return bad("MatchMin = %g outside (0, 1]", cfg.MatchMin)
+	}
+	cfg.Sparsity = sp
+	m := cfg.MaxCount
+	t := &Tracker{
+		p:        p,
+		cfg:      cfg,
+		sp:       sp,
+		slots:    slots,
+		auto:     auto,
+		opt:      Options{Tol: cfg.Tol, MaxIter: cfg.MaxIter, Start: cfg.Start, Refit: cfg.Refit, EpsStages: cfg.EpsStages},
+		ws:       newWorkspace(p, m),
+		cur:      newModeSet(p, m),
+		nxt:      newModeSet(p, m),
+		ax0:      make([]float64, p),
+		bx:       make([]float64, p),
+		bc:       make([]float64, p),
+		bxs:      make([]int, 0, p),
+		cosm:     make([]float64, m*m),
+		usedOld:  make([]bool, m),
+		usedNew:  make([]bool, m),
+		matchOld: make([]int, m),
+	}
+	t.ws.op.defl = cfg.Deflation
+	return t, nil
+}
+
+// Config returns the configuration with defaults filled in (Sparsity has one
+// entry per mode slot).
+func (t *Tracker) Config() Config { return t.cfg }
+
+// Count returns the current number of modes r.
+func (t *Tracker) Count() int { return t.cur.r }
+
+// Loadings returns the p × r matrix whose column j is the loadings of
+// Mode(j), or nil when there are no modes. It is a read-only view, valid
+// until the next Refresh.
+func (t *Tracker) Loadings() *mat.Dense { return t.cur.view[t.cur.r] }
+
+// Mode returns mode j (0 ≤ j < Count()), in extraction order. It panics if
+// j is out of range.
+func (t *Tracker) Mode(j int) Mode {
+	s := t.cur
+	if j < 0 || j >= s.r {
+		panic("modes: mode index out of range")
+	}
+	r := s.res[j]
+	return Mode{
+		ID:               s.id[j],
+		Support:          s.supp[j],
+		Loadings:         s.x[j],
+		Variance:         s.vari[j],
+		DeflatedVariance: r.Variance,
+		AdjustedVariance: s.adj[j],
+		Objective:        r.Objective,
+		Iterations:       r.Iterations + r.RefitIterations,
+		Converged:        r.Converged,
+		Cold:             r.Cold,
+	}
+}
+
+// ScoreCovTo fills dst (r × r; an empty dst is resized) with VᵀAV, the
+// covariance of the mode scores VᵀX under the matrix of the last Refresh.
+// Sparse loadings are not orthogonal, so it is not diagonal.
+func (t *Tracker) ScoreCovTo(dst *mat.SymDense) {
+	r, m := t.cur.r, t.cfg.MaxCount
+	if dst.IsEmpty() {
+		dst.ReuseAsSym(r)
+	}
+	if dst.SymmetricDim() != r {
+		panic("modes: ScoreCovTo dimension mismatch")
+	}
+	for i := 0; i < r; i++ {
+		for j := i; j < r; j++ {
+			dst.SetSym(i, j, t.cur.g[i*m+j])
+		}
+	}
+}
+
+// TotalVariance returns tr(A) of the last Refresh.
+func (t *Tracker) TotalVariance() float64 { return t.trace }
+
+// Iterations returns the total solver steps of the last Refresh, including
+// the cold candidates that were discarded.
+func (t *Tracker) Iterations() int { return t.iters }
+
+// ColdNext makes the next Refresh solve every mode from the cold start
+// only, without a warm candidate. Identities are still matched to the
+// current modes.
+func (t *Tracker) ColdNext() { t.coldNext = true }
+
+// Refresh recomputes the modes for a new matrix a (p × p, symmetric positive
+// semidefinite), each warm-started from its previous loadings. On an error
+// the previous modes are kept unchanged. It does not allocate.
+//
+// Validation reads the diagonal (negative: ErrNotPSD; NaN/Inf:
+// ErrNotFinite; zero trace: ErrZeroMatrix) and every product with a is
+// checked, so a non-finite entry in any column the solvers touch is an
+// ErrNotFinite; a cold refresh (the first one, and every ColdEvery-th)
+// reads all of a. Full positive semidefiniteness is assumed, not checked.
+func (t *Tracker) Refresh(a *mat.SymDense) error {
+	if a.SymmetricDim() != t.p {
+		return fmt.Errorf("%w: matrix is %d × %d, tracker has p = %d", ErrConfig, a.SymmetricDim(), a.SymmetricDim(), t.p)
+	}
+	ws, op := t.ws, t.ws.op
+	op.setMatrix(a)
+	maxDiag, trace, err := ws.checkDiag()
+	if err != nil {
+		return err
+	}
+	for j, sp := range t.sp {
+		if err := sp.check(t.p, maxDiag); err != nil {
+			return fmt.Errorf("mode %d: %w", j+1, err)
+		}
+	}
+	warm := t.have && !t.coldNext
+	tryCold := !warm || (t.cfg.ColdEvery > 0 && (t.refreshes+1)%t.cfg.ColdEvery == 0)
+	if tryCold && !op.baseColumnNorms(ws.cn) {
+		return ws.nonFinite()
+	}
+	m := t.cfg.MaxCount
+	nx := t.nxt
+	nx.r = 0
+	iters := 0
+	var cum float64
+	for j := 0; j < t.slots; j++ {
+		sp := t.sp[j]
+		hasWarm := warm && j < t.cur.r
+		var res Result
+		stop := false
+		if hasWarm {
+			res, err = ws.solve(sp, &t.opt, t.cur.x[j], false)
+			iters += res.Iterations + res.RefitIterations
+			if err == errEmptyOperator {
+				break
+			}
+			if err != nil {
+				return err
+			}
+		}
+		if !hasWarm || tryCold {
+			if hasWarm {
+				copy(t.bx, ws.x)
+				copy(t.bc, ws.c)
+				t.bxs = append(t.bxs[:0], ws.xs...)
+			}
+			rc, err := ws.solve(sp, &t.opt, nil, true)
+			iters += rc.Iterations + rc.RefitIterations
+			switch {
+			case err == errEmptyOperator:
+				stop = true
+			case err != nil:
+				return err
+			}
+			if hasWarm && (stop || rc.Empty || (!res.Empty && res.Objective >= rc.Objective)) {
+				copy(ws.x, t.bx)
+				copy(ws.c, t.bc)
+				ws.xs = append(ws.xs[:0], t.bxs...)
+				stop = false
+			} else if !stop {
+				res = rc
+			}
+		}
+		if stop || res.Empty {
+			break
+		}
+		// Keep the mode.
+		x := nx.x[j]
+		copy(x, ws.x)
+		nx.supp[j] = append(nx.supp[j][:0], ws.xs...)
+		nx.res[j] = res
+		// Row j of G = VᵀA_0V and the next column of its Cholesky factor.
+		saveT := op.t
+		op.t = 0
+		op.apply(t.ax0, x, nx.supp[j])
+		op.t = saveT
+		for i := 0; i <= j; i++ {
+			nx.g[i*m+j] = dotSupp(nx.x[i], t.ax0, nx.supp[i])
+			nx.g[j*m+i] = nx.g[i*m+j]
+		}
+		nx.vari[j] = nx.g[j*m+j]
+		nx.adj[j] = cholColumn(nx.rch, nx.g, m, j)
+		nx.r = j + 1
+		cum += nx.adj[j]
+		if t.auto && cum >= t.cfg.Share*trace {
+			break
+		}
+		if j+1 == t.slots {
+			break
+		}
+		// Deflate; y = A_t x is in ws.c.
+		f := res.Variance
+		if !(f > 0) {
+			break
+		}
+		if tryCold {
+			op.apply(ws.e, ws.c, nil) // z = A_t y
+			deflateColumnNorms(ws.cn, op.defl, x, ws.c, ws.e, f)
+		}
+		if op.defl == Schur {
+			op.pushSchur(x, nx.supp[j], ws.c, f)
+		} else {
+			op.pushProjection(x, nx.supp[j])
+		}
+	}
+	for i := range ws.e {
+		ws.e[i] = 0
+	}
+	t.matchIDs(nx)
+	// Fill the p × r loadings matrix.
+	raw := nx.v.RawMatrix()
+	for i := 0; i < t.p; i++ {
+		row := raw.Data[i*raw.Stride : i*raw.Stride+m]
+		for j := range row {
+			row[j] = 0
+		}
+	}
+	for j := 0; j < nx.r; j++ {
+		for _, i := range nx.supp[j] {
+			raw.Data[i*raw.Stride+j] = nx.x[j][i]
+		}
+	}
+	t.cur, t.nxt = nx, t.cur
+	t.have = true
+	t.coldNext = false
+	t.refreshes++
+	t.trace = trace
+	t.iters = iters
+	return nil
+}
+
+// cholColumn computes column j of the upper Cholesky factor R of g (m × m
+// row-major, rows and columns 0..j filled) into r, given columns 0..j−1,
+// and returns R_jj². A dependent column (R_jj² ≤ 0 after rounding) gives 0.
+func cholColumn(r, g []float64, m, j int) float64 {
+	for i := 0; i < j; i++ {
+		s := g[i*m+j]
+		for l := 0; l < i; l++ {
+			s -= r[l*m+i] * r[l*m+j]
+		}
+		if d := r[i*m+i]; d > 0 {
+			r[i*m+j] = s / d
+		} else {
+			r[i*m+j] = 0
+		}
+	}
+	s := g[j*m+j]
+	for l := 0; l < j; l++ {
+		s -= r[l*m+j] * r[l*m+j]
+	}
+	if !(s > 0) {
+		r[j*m+j] = 0
+		return 0
+	}
+	r[j*m+j] = math.Sqrt(s)
+	return s
+}
+
+// matchIDs gives the modes of nx the IDs of the current modes they match
+// best by |cosine| (greedy: the best remaining pair first, ties by lowest
+// new then lowest old index), new IDs when |cos| < MatchMin.
+func (t *Tracker) matchIDs(nx *modeSet) {
+	old := t.cur
+	ro, rn, m := 0, nx.r, t.cfg.MaxCount
+	if t.have {
+		ro = old.r
+	}
+	for j := 0; j < rn; j++ {
+		t.usedNew[j] = false
+		for i := 0; i < ro; i++ {
+			t.cosm[j*m+i] = math.Abs(dotSupp(nx.x[j], old.x[i], nx.supp[j]))
+		}
+	}
+	for i := 0; i < ro; i++ {
+		t.usedOld[i] = false
+	}
+	for {
+		bj, bi, bv := -1, -1, -1.0
+		for j := 0; j < rn; j++ {
+			if t.usedNew[j] {
+				continue
+			}
+			for i := 0; i < ro; i++ {
+				if !t.usedOld[i] && t.cosm[j*m+i] > bv {
+					bj, bi, bv = j, i, t.cosm[j*m+i]
+				}
+			}
+		}
+		if bj < 0 || bv < t.cfg.MatchMin {
+			break
+		}
+		t.usedNew[bj], t.usedOld[bi] = true, true
+		nx.id[bj] = old.id[bi]
+	}
+	for j := 0; j < rn; j++ {
+		if !t.usedNew[j] {
+			t.nextID++
+			nx.id[j] = t.nextID
+		}
+	}
+}
