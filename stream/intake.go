@@ -263,19 +263,26 @@ func (in *Intake) syncChannels() {
 }
 
 // Feed decodes one payload (one or more lines, as in a message) from source
-// (e.g. a subject) into frames. Malformed lines are reported and skipped;
-// the error is non-nil only if the frame handler failed or the period is
-// unknown. Line numbers in errors count from 1 within the payload.
-func (in *Intake) Feed(source string, payload []byte) error {
+// (e.g. a subject) into frames. It returns the newest event time the payload
+// contributed to a pending frame: the zero Time if it contributed nothing
+// (every line late, rejected or without channels). A message source can
+// acknowledge the payload once Watermark() is after that time. Malformed
+// lines are reported and skipped; the error is non-nil only if the frame
+// handler failed or the period is unknown (ErrNoPeriod). Line numbers in
+// errors count from 1 within the payload.
+func (in *Intake) Feed(source string, payload []byte) (time.Time, error) {
 	in.mu.Lock()
 	defer in.mu.Unlock()
 	if in.al == nil {
-		return ErrNoPeriod
+		return time.Time{}, ErrNoPeriod
 	}
 	in.feedMax = noTime
 	err := in.decode(source, 0, payload)
 	in.publish()
-	return err
+	if in.feedMax == noTime {
+		return time.Time{}, err
+	}
+	return time.Unix(0, in.feedMax).UTC(), err
 }
 
 // FeedAck is Feed for a message that must be acknowledged only after the
@@ -695,9 +702,6 @@ func (in *Intake) entry(dec *lineprotocol.Decoder) error {
 		in.al.CountLate(n)
 		return nil
 	}
-	if t > in.feedMax {
-		in.feedMax = t
-	}
 	for _, v := range vals {
 		c := v.c
 		if c < 0 {
@@ -715,6 +719,9 @@ func (in *Intake) entry(dec *lineprotocol.Decoder) error {
 		}
 		in.al.Put(int(c), x)
 		in.st.Values++
+		if t > in.feedMax {
+			in.feedMax = t
+		}
 	}
 	return nil
 }
