@@ -1,0 +1,290 @@
+package alerts
+
+import (
+	"errors"
+	"fmt"
+	"math"
+	"time"
+)
+
+// Defaults. Sources: LIMITS.md §7 collects them; "[MEM]" marks a figure
+// recalled from the standard and not confirmed in public text.
+const (
+	// DefaultOnCount and DefaultOnWindow: active when over the limit in 3 of
+	// the last 5 frames. Design choice: with independent frames at a per-frame
+	// false-alarm rate α = 0.01 the rule fires with probability
+	// Σ_{k=3..5} C(5,k) αᵏ(1−α)^{5−k} = 9.8506×10⁻⁶ per frame (LIMITS.md §7.3).
+	DefaultOnCount  = 3
+	DefaultOnWindow = 5
+	// DefaultOffDelay is how long a statistic must stay below
+	// limit·(1 − Deadband) before the alarm returns to normal (design).
+	DefaultOffDelay = 5 * time.Minute
+	// DefaultDeadband is 5 % of the limit: the flow/level starting point of
+	// ISA-18.2-2009 §10 [MEM] carried over to the statistic/limit ratio.
+	DefaultDeadband = 0.05
+	// DefaultFloodCount: a flood begins when more than 10 new alerts arrive
+	// in DefaultFloodWindow (ISA-18.2 definition as quoted in public
+	// secondary text [PUB-2]; EEMUA 191 KPI grid "flood 10 in 10 min").
+	DefaultFloodCount  = 10
+	DefaultFloodWindow = 10 * time.Minute
+	// DefaultFloodEnd: the flood ends when the trailing count drops below 5
+	// (ISA-18.2 as quoted [PUB-2]).
+	DefaultFloodEnd = 5
+	// DefaultChatterCount activations within DefaultChatterWindow make an
+	// alarm chattering ("three or more times in a minute", a starting
+	// criterion quoted in public secondary text [PUB-2]).
+	DefaultChatterCount  = 3
+	DefaultChatterWindow = time.Minute
+	// DefaultStaleAfter: an alert in alarm continuously for more than 24 h is
+	// a stale alarm [PUB-2].
+	DefaultStaleAfter = 24 * time.Hour
+	// DefaultMaxShelve bounds a shelve command (design; ISA-18.2 requires
+	// shelving to be time-limited, the figure is ours).
+	DefaultMaxShelve = 24 * time.Hour
+	// DefaultMaxContributors is the number of ranked channels kept in a record.
+	DefaultMaxContributors = 5
+	// DefaultMaxFloodMembers caps the member list of a flood record; further
+	// members are only counted.
+	DefaultMaxFloodMembers = 200
+	// DefaultFloodUpdate is the least frame time between two revisions of a
+	// flood record that only add members.
+	DefaultFloodUpdate = time.Minute
+)
+
+// Caution is carried by every alert record.
+const Caution = "Advisory only: verify in the field and follow site procedures."
+
+// SeverityBand names the severity of an alert whose peak statistic/limit
+// ratio is at least Ratio.
+type SeverityBand struct {
+	Name  string
+	Ratio float64
+}
+
+// DefaultSeverity are the default bands of the peak ratio value/limit
+// (design choice, matching the service configuration defaults): low ≥ 1,
+// medium ≥ 2, high ≥ 4.
+func DefaultSeverity() []SeverityBand {
+	return []SeverityBand{{"low", 1}, {"medium", 2}, {"high", 4}}
+}
+
+// Rules are the alarm settings of the statistics of one unit. The zero
+// value means the defaults.
+type Rules struct {
+	// OnCount and OnWindow: active when over the limit in OnCount of the last
+	// OnWindow frames (1 ≤ OnCount ≤ OnWindow ≤ 64). Defaults 3 of 5.
+	OnCount, OnWindow int
+	// OnHold additionally requires the alarm to have been pending this long
+	// (frame time). Default 0.
+	OnHold time.Duration
+	// OffDelay: time below limit·(1 − Deadband) before returning to normal.
+	// Default 5 min. Negative means zero.
+	OffDelay time.Duration
+	// Deadband as a fraction of the limit, in [0, 1). Default 0.05.
+	// Negative means zero.
+	Deadband float64
+	// Severity bands of the peak ratio, ascending. Default DefaultSeverity.
+	Severity []SeverityBand
+	// NoFreeze keeps the unit learning while an alert is active. By default
+	// learning is frozen from activation until the incident ends.
+	NoFreeze bool
+}
+
+// QualityRule is the alarm setting of one data-quality kind.
+type QualityRule struct {
+	// Hold: the condition must persist this long (frame time) before the
+	// alarm goes active.
+	Hold time.Duration
+	// OffDelay: the condition must be absent this long before normal.
+	OffDelay time.Duration
+	// Severity of the alert (a name of the severity bands).
+	Severity string
+}
+
+// DefaultQuality are the data-quality rules by kind. All figures are design
+// choices: missing for more than 5 min, stuck as soon as the tracker says so,
+// out of range or stale for 1 min; 1 min off-delay.
+func DefaultQuality() map[string]QualityRule {
+	return map[string]QualityRule{
+		QualityStuck:      {Hold: 0, OffDelay: time.Minute, Severity: "low"},
+		QualityOutOfRange: {Hold: time.Minute, OffDelay: time.Minute, Severity: "medium"},
+		QualityStale:      {Hold: time.Minute, OffDelay: time.Minute, Severity: "low"},
+		QualityMissing:    {Hold: 5 * time.Minute, OffDelay: time.Minute, Severity: "low"},
+	}
+}
+
+// Config is the configuration of an Engine. The zero value means defaults.
+type Config struct {
+	// Rules apply to every unit without an entry in Units.
+	Rules Rules
+	// Units holds per-unit rules (complete; zero fields mean the defaults,
+	// not Rules).
+	Units map[string]Rules
+	// Quality rules by kind; kinds left out take DefaultQuality.
+	Quality map[string]QualityRule
+	// FloodCount, FloodWindow, FloodEnd: a flood of a unit begins when more
+	// than FloodCount new alerts fall within the trailing FloodWindow and
+	// ends when that count drops below FloodEnd. Defaults 10, 10 min, 5.
+	FloodCount  int
+	FloodWindow time.Duration
+	FloodEnd    int
+	// FloodUpdate is the least time between member-only revisions of a
+	// flood record. Default 1 min.
+	FloodUpdate time.Duration
+	// MaxFloodMembers caps a flood record's member list. Default 200.
+	MaxFloodMembers int
+	// ChatterCount activations of one alarm within ChatterWindow make it
+	// chattering. Defaults 3 and 60 s.
+	ChatterCount  int
+	ChatterWindow time.Duration
+	// StaleAfter: an alert in alarm continuously for more than this is
+	// flagged stale. Default 24 h.
+	StaleAfter time.Duration
+	// MaxShelve bounds shelve commands. Default 24 h.
+	MaxShelve time.Duration
+	// MaxContributors ranked channels go into a record. Default 5.
+	MaxContributors int
+	// OnEvent, if set, is called for every state change (under the engine's
+	// lock: it must not call back into the Engine).
+	OnEvent func(Event)
+}
+
+func (r Rules) withDefaults() Rules {
+	if r.OnCount == 0 && r.OnWindow == 0 {
+		r.OnCount, r.OnWindow = DefaultOnCount, DefaultOnWindow
+	}
+	if r.OffDelay == 0 {
+		r.OffDelay = DefaultOffDelay
+	} else if r.OffDelay < 0 {
+		r.OffDelay = 0
+	}
+	if r.Deadband == 0 {
+		r.Deadband = DefaultDeadband
+	} else if r.Deadband < 0 {
+		r.Deadband = 0
+	}
+	if len(r.Severity) == 0 {
+		r.Severity = DefaultSeverity()
+	}
+	return r
+}
+
+func (r Rules) validate(where string) error {
+	var errs []error
+	if r.OnCount < 1 || r.OnWindow < r.OnCount || r.OnWindow > 64 {
+		errs = append(errs, fmt.Errorf("alerts: %s: on-delay %d of %d: need 1 ≤ n ≤ m ≤ 64", where, r.OnCount, r.OnWindow))
+	}
+	if r.OnHold < 0 {
+		errs = append(errs, fmt.Errorf("alerts: %s: on-hold %v is negative", where, r.OnHold))
+	}
+	if !(r.Deadband >= 0 && r.Deadband < 1) {
+		errs = append(errs, fmt.Errorf("alerts: %s: deadband %v not in [0, 1)", where, r.Deadband))
+	}
+	prev := math.Inf(-1)
+	for i, b := range r.Severity {
+		if b.Name == "" {
+			errs = append(errs, fmt.Errorf("alerts: %s: severity[%d]: empty name", where, i))
+		}
+		if !(b.Ratio > prev) || math.IsInf(b.Ratio, 0) {
+			errs = append(errs, fmt.Errorf("alerts: %s: severity[%d] %q: ratio %v must be finite and ascending", where, i, b.Name, b.Ratio))
+		}
+		prev = b.Ratio
+	}
+	return errors.Join(errs...)
+}
+
+// withDefaults returns c with every zero field set to its default.
+func (c Config) withDefaults() Config {
+	c.Rules = c.Rules.withDefaults()
+	units := make(map[string]Rules, len(c.Units))
+	for k, r := range c.Units {
+		units[k] = r.withDefaults()
+	}
+	c.Units = units
+	q := DefaultQuality()
+	for k, r := range c.Quality {
+		q[k] = r
+	}
+	c.Quality = q
+	def := func(p *int, v int) {
+		if *p == 0 {
+			*p = v
+		}
+	}
+	defd := func(p *time.Duration, v time.Duration) {
+		if *p == 0 {
+			*p = v
+		}
+	}
+	def(&c.FloodCount, DefaultFloodCount)
+	defd(&c.FloodWindow, DefaultFloodWindow)
+	def(&c.FloodEnd, DefaultFloodEnd)
+	defd(&c.FloodUpdate, DefaultFloodUpdate)
+	def(&c.MaxFloodMembers, DefaultMaxFloodMembers)
+	def(&c.ChatterCount, DefaultChatterCount)
+	defd(&c.ChatterWindow, DefaultChatterWindow)
+	defd(&c.StaleAfter, DefaultStaleAfter)
+	defd(&c.MaxShelve, DefaultMaxShelve)
+	def(&c.MaxContributors, DefaultMaxContributors)
+	return c
+}
+
+// Validate reports every problem of c (after defaults) at once.
+func (c Config) Validate() error {
+	c = c.withDefaults()
+	var errs []error
+	errs = append(errs, c.Rules.validate("rules"))
+	for k, r := range c.Units {
+		if k == "" {
+			errs = append(errs, errors.New("alerts: units: empty unit name"))
+		}
+		errs = append(errs, r.validate("units["+k+"]"))
+	}
+	for k, q := range c.Quality {
+		switch k {
+		case QualityStuck, QualityOutOfRange, QualityStale, QualityMissing:
+		default:
+			errs = append(errs, fmt.Errorf("alerts: quality[%s]: unknown kind", k))
+		}
+		if q.Hold < 0 || q.OffDelay < 0 {
+			errs = append(errs, fmt.Errorf("alerts: quality[%s]: negative hold or off-delay", k))
+		}
+		if q.Severity == "" {
+			errs = append(errs, fmt.Errorf("alerts: quality[%s]: empty severity", k))
+		}
+	}
+	if c.FloodCount < 1 || c.FloodEnd < 1 || c.FloodEnd > c.FloodCount+1 {
+		errs = append(errs, fmt.Errorf("alerts: flood: count %d, end %d: need 1 ≤ end ≤ count+1", c.FloodCount, c.FloodEnd))
+	}
+	if c.FloodWindow <= 0 || c.ChatterWindow <= 0 || c.FloodUpdate < 0 {
+		errs = append(errs, errors.New("alerts: flood/chatter windows must be positive"))
+	}
+	if c.ChatterCount < 2 {
+		errs = append(errs, fmt.Errorf("alerts: chatter count %d: need ≥ 2", c.ChatterCount))
+	}
+	if c.StaleAfter <= 0 || c.MaxShelve <= 0 {
+		errs = append(errs, errors.New("alerts: stale-after and max-shelve must be positive"))
+	}
+	if c.MaxContributors < 0 || c.MaxFloodMembers < 0 {
+		errs = append(errs, errors.New("alerts: max contributors/flood members must not be negative"))
+	}
+	return errors.Join(errs...)
+}
+
+// SignalPoint is a starting point for an absolute alarm on a process signal
+// of one type: deadband in percent of the operating range and on-/off-delay.
+type SignalPoint struct {
+	DeadbandPct float64
+	Delay       time.Duration
+}
+
+// SignalStartingPoints are the starting-point deadbands and delays by signal
+// type of ISA-18.2-2009 §10 (moved towards TR18.2.3 in the 2016 edition).
+// All four rows are from memory [MEM] (LIMITS.md §7.2); they are offered to
+// configure channel alarms and are not used by the statistic alarms.
+var SignalStartingPoints = map[string]SignalPoint{
+	"flow":        {5, 15 * time.Second},
+	"level":       {5, 60 * time.Second},
+	"pressure":    {2, 15 * time.Second},
+	"temperature": {1, 60 * time.Second},
+}

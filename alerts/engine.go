@@ -1,0 +1,1022 @@
+package alerts
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"log/slog"
+	"math"
+	"slices"
+	"sync"
+	"time"
+)
+
+// Publisher receives every record revision the engine publishes. Publish
+// must not block (a sink set queues and spools); the record is freshly
+// built and may be kept.
+type Publisher interface {
+	Publish(r *Record)
+}
+
+// PublisherFunc adapts a function to Publisher.
+type PublisherFunc func(r *Record)
+
+// Publish calls f(r).
+func (f PublisherFunc) Publish(r *Record) { f(r) }
+
+// Learning freezes and thaws the adaptation of a unit's model. The engine
+// calls it while holding its lock, from the goroutine of Observe or Handle:
+// implementations must be safe for concurrent use, quick (set a flag the
+// scoring loop reads before its next step) and must not call the Engine.
+type Learning interface {
+	Freeze(unit string)
+	Thaw(unit string)
+}
+
+// Event kinds.
+const (
+	EventState          = "state"           // an alarm changed state (From → To)
+	EventOpen           = "open"            // an incident opened (a new alert)
+	EventClose          = "close"           // an incident ended
+	EventFloodStart     = "flood_start"     // a unit entered a flood
+	EventFloodEnd       = "flood_end"       // the flood ended
+	EventChatterStart   = "chatter_start"   // an alarm group became chattering
+	EventChatterEnd     = "chatter_end"     // it stayed quiet for the chatter window
+	EventStale          = "stale"           // an incident has been in alarm longer than StaleAfter
+	EventAck            = "ack"             // an operator acknowledged
+	EventShelve         = "shelve"          // an alarm group was shelved
+	EventUnshelve       = "unshelve"        // unshelved by command or expiry
+	EventMaintenanceOn  = "maintenance_on"  // a unit went into maintenance
+	EventMaintenanceOff = "maintenance_off" // and came out
+	EventFreeze         = "freeze"          // learning of the unit frozen
+	EventThaw           = "thaw"            // and thawed
+)
+
+// Event is one state change. Time is frame time (for commands: the unit's
+// latest frame time).
+type Event struct {
+	Time     time.Time
+	Unit     string
+	Kind     string
+	Alarm    string // "t2", "spe", "phi", "<kind>:<channel>" or "" for unit events
+	From, To State  // for EventState
+	Value    float64
+	Limit    float64
+	AlertID  string
+}
+
+// Errors returned by Observe (wrapped with the place).
+var (
+	ErrOutOfOrder = errors.New("alerts: observation older than the unit's last")
+	ErrInput      = errors.New("alerts: bad observation")
+)
+
+// UnitCounters are the counters of one unit, for metrics. Totals are
+// monotonic since the Engine was created; LastHour and LastDay count new
+// alerts in the trailing hour and day of frame time at one-minute
+// resolution (the current minute and the 59 or 1439 before it).
+type UnitCounters struct {
+	Unit         string
+	Frames       uint64 // observations accepted
+	OutOfOrder   uint64 // observations refused as older than the last
+	InvalidStats uint64 // statistics skipped: non-finite value or bad limit
+	Opened       uint64 // new alerts (incidents opened, including suppressed ones)
+	Published    uint64 // record revisions handed to the publisher
+	Floods       uint64 // floods begun
+	Chattering   uint64 // chattering episodes begun
+	// Suppressed publications: chattering re-activations folded into one
+	// incident; incidents hidden by a shelf, by a flood or by maintenance.
+	ChatterSuppressed, ShelvedSuppressed, FloodSuppressed uint64
+	MaintenanceFrames                                     uint64 // observations ignored during maintenance
+	Stale                                                 uint64 // incidents flagged stale
+	LastHour, LastDay                                     int    // new alerts in the trailing hour / day
+	Open                                                  int    // incidents open now
+	InFlood, InMaint                                      bool
+	Frozen                                                bool // learning frozen by the engine
+}
+
+// Engine holds the alarm state of every unit. It is safe for concurrent
+// use: Observe from the scoring goroutine, Handle from the command
+// listeners, Counters and Open from the metrics and HTTP handlers.
+type Engine struct {
+	mu     sync.Mutex
+	cfg    Config
+	pub    Publisher
+	learn  Learning
+	log    *slog.Logger
+	now    func() time.Time
+	units  map[string]*unit
+	byID   map[string]*incident // open incidents and the most recent closed ones
+	closed []string             // ring of closed ids kept in byID
+	nextC  int
+}
+
+// closedKept is the number of closed incidents kept for late
+// acknowledgement (ISA-18.2 "return to normal, unacknowledged").
+const closedKept = 1024
+
+// NewEngine returns an engine with configuration cfg (defaults filled in),
+// publishing to pub. learn may be nil (no freezing); log may be nil
+// (discard).
+func NewEngine(cfg Config, pub Publisher, learn Learning, log *slog.Logger) (*Engine, error) {
+	if err := cfg.Validate(); err != nil {
+		return nil, err
+	}
+	if pub == nil {
+		return nil, errors.New("alerts: nil publisher")
+	}
+	if log == nil {
+		log = slog.New(slog.DiscardHandler)
+	}
+	return &Engine{
+		cfg:    cfg.withDefaults(),
+		pub:    pub,
+		learn:  learn,
+		log:    log,
+		now:    time.Now,
+		units:  make(map[string]*unit),
+		byID:   make(map[string]*incident),
+		closed: make([]string, 0, closedKept),
+	}, nil
+}
+
+// SetClock replaces the wall clock used only to stamp commands (Ack.At).
+// For tests.
+func (e *Engine) SetClock(now func() time.Time) {
+	e.mu.Lock()
+	e.now = now
+	e.mu.Unlock()
+}
+
+// statistic indices
+var statNames = [3]string{StatT2, StatSPE, StatPhi}
+
+func statIndex(name string) int {
+	switch name {
+	case StatT2:
+		return 0
+	case StatSPE:
+		return 1
+	case StatPhi:
+		return 2
+	}
+	return -1
+}
+
+type qkey struct{ kind, channel string }
+
+type unit struct {
+	name     string
+	rules    Rules
+	last     time.Time
+	seen     bool
+	maint    bool
+	frozen   bool
+	model    string // last model state reported
+	stats    [3]Alarm
+	modelG   group
+	quality  map[qkey]*qalarm
+	seq      uint64
+	openings ring // start times (and incidents) of recent new alerts, for floods
+	flood    *incident
+	rate     minuteRing
+	c        UnitCounters
+}
+
+type group struct {
+	key          string // "model" or "<kind>:<channel>"
+	qkind, chann string
+	inAlarm      bool
+	since        time.Time // in alarm continuously since
+	inc          *incident
+	shelf        *Shelve
+	acts         ring // recent activation times, for chattering
+	chattering   bool
+	lastAct      time.Time
+}
+
+type qalarm struct {
+	a   Alarm
+	g   group
+	seq uint64
+}
+
+type statPeak struct {
+	used bool
+	RecordStat
+}
+
+type incident struct {
+	id        string
+	u         *unit
+	g         *group // nil for floods
+	kind      string
+	start     time.Time
+	end       time.Time
+	ended     bool
+	updated   time.Time
+	stats     [3]statPeak
+	peak      Peak
+	hasPeak   bool
+	sev       int
+	sevName   string
+	contrib   []RecordContributor
+	missing   []string
+	ack       *Ack
+	stale     bool
+	chatter   *Chatter
+	rev       int
+	member    bool      // opened during a flood: hidden until the flood ends
+	flood     *incident // the flood listing it
+	memberIdx int
+	endReason string
+	// flood records
+	members     []Member
+	memberCount int
+	lastPub     time.Time
+	dirty       bool
+	maxCount    int
+}
+
+// ring is a fixed-capacity ring of times with an optional incident each.
+type ring struct {
+	t    []time.Time
+	inc  []*incident
+	head int // index of the oldest
+	n    int
+}
+
+func newRing(capacity int) ring {
+	return ring{t: make([]time.Time, capacity), inc: make([]*incident, capacity)}
+}
+
+func (r *ring) push(t time.Time, inc *incident) {
+	c := len(r.t)
+	if r.n < c {
+		i := (r.head + r.n) % c
+		r.t[i], r.inc[i] = t, inc
+		r.n++
+		return
+	}
+	r.t[r.head], r.inc[r.head] = t, inc
+	r.head = (r.head + 1) % c
+}
+
+// at returns the k-th most recent entry (k = 0 newest).
+func (r *ring) at(k int) (time.Time, *incident) {
+	i := (r.head + r.n - 1 - k) % len(r.t)
+	return r.t[i], r.inc[i]
+}
+
+// countAfter counts entries with time > t.
+func (r *ring) countAfter(t time.Time) int {
+	k := 0
+	for ; k < r.n; k++ {
+		if tt, _ := r.at(k); !tt.After(t) {
+			break
+		}
+	}
+	return k
+}
+
+// quiet reports whether the newest entry of r is at least w before t.
+func quiet(r *ring, t time.Time, w time.Duration) bool {
+	if r.n == 0 {
+		return true
+	}
+	last, _ := r.at(0)
+	return t.Sub(last) >= w
+}
+
+func (r *ring) reset() { r.head, r.n = 0, 0; clear(r.inc) }
+
+// minuteRing counts events per minute of frame time over the trailing day.
+type minuteRing struct {
+	b    [1440]uint32
+	last int64 // minute index of the newest bucket; 0 = none yet
+}
+
+func minuteOf(t time.Time) int64 { return t.Unix() / 60 }
+
+func (m *minuteRing) advance(t time.Time) {
+	k := minuteOf(t)
+	if m.last == 0 {
+		m.last = k
+		return
+	}
+	if k <= m.last {
+		return
+	}
+	if k-m.last >= int64(len(m.b)) {
+		m.b = [1440]uint32{}
+	} else {
+		for i := m.last + 1; i <= k; i++ {
+			m.b[i%int64(len(m.b))] = 0
+		}
+	}
+	m.last = k
+}
+
+func (m *minuteRing) add(t time.Time) {
+	m.advance(t)
+	m.b[minuteOf(t)%int64(len(m.b))]++
+}
+
+func (m *minuteRing) sum(minutes int) int {
+	s := 0
+	for i := 0; i < minutes && i < len(m.b); i++ {
+		k := m.last - int64(i)
+		s += int(m.b[((k%1440)+1440)%1440])
+	}
+	return s
+}
+
+func (e *Engine) unit(name string) *unit {
+	u := e.units[name]
+	if u != nil {
+		return u
+	}
+	r, ok := e.cfg.Units[name]
+	if !ok {
+		r = e.cfg.Rules
+	}
+	u = &unit{name: name, rules: r, quality: make(map[qkey]*qalarm)}
+	ar := r.alarmRule()
+	for i := range u.stats {
+		u.stats[i] = NewAlarm(ar)
+	}
+	u.modelG = group{key: GroupModel, acts: newRing(e.cfg.ChatterCount)}
+	u.openings = newRing(max(e.cfg.FloodCount+1, e.cfg.FloodEnd))
+	u.c.Unit = name
+	e.units[name] = u
+	return u
+}
+
+func (r Rules) alarmRule() AlarmRule {
+	return AlarmRule{N: r.OnCount, M: r.OnWindow, OnHold: r.OnHold, OffDelay: r.OffDelay, Deadband: r.Deadband}
+}
+
+func (e *Engine) emit(ev Event) {
+	if e.cfg.OnEvent != nil {
+		e.cfg.OnEvent(ev)
+	}
+	if e.log.Enabled(context.Background(), slog.LevelDebug) {
+		e.log.Debug("alerts: event", "unit", ev.Unit, "kind", ev.Kind, "alarm", ev.Alarm,
+			"from", ev.From.String(), "to", ev.To.String(), "time", ev.Time, "alert", ev.AlertID)
+	}
+}
+
+// Observe feeds one scored frame. It allocates nothing in steady state
+// (no state change). Errors name the unit and wrap ErrOutOfOrder or
+// ErrInput; an observation with a bad entry is still applied for the rest.
+func (e *Engine) Observe(o *Observation) error {
+	if o.Unit == "" {
+		return fmt.Errorf("%w: empty unit", ErrInput)
+	}
+	if o.Time.IsZero() {
+		return fmt.Errorf("%w: unit %q: zero time", ErrInput, o.Unit)
+	}
+	e.mu.Lock()
+	defer e.mu.Unlock()
+	u := e.unit(o.Unit)
+	t := o.Time
+	if u.seen && t.Before(u.last) {
+		u.c.OutOfOrder++
+		return fmt.Errorf("%w: unit %q: %s before %s", ErrOutOfOrder, o.Unit,
+			t.UTC().Format(time.RFC3339Nano), u.last.UTC().Format(time.RFC3339Nano))
+	}
+	u.last, u.seen = t, true
+	u.c.Frames++
+	u.rate.advance(t)
+	if o.ModelState != "" {
+		u.model = o.ModelState
+	}
+	if u.maint {
+		u.c.MaintenanceFrames++
+		return nil
+	}
+	var bad error
+	// Timers first: shelf expiry, flood end, chattering quiet, stale.
+	e.expireShelf(u, &u.modelG, t)
+	for _, q := range u.quality {
+		e.expireShelf(u, &q.g, t)
+	}
+	e.checkFloodEnd(u, t)
+
+	// Statistics.
+	if o.ModelState != ModelWarmup {
+		for i := range o.Stats {
+			s := &o.Stats[i]
+			k := statIndex(s.Name)
+			if k < 0 {
+				bad = fmt.Errorf("%w: unit %q: stats[%d]: unknown statistic %q", ErrInput, o.Unit, i, s.Name)
+				continue
+			}
+			from, to, ok := u.stats[k].Step(t, s.Value, s.Limit)
+			if !ok {
+				u.c.InvalidStats++
+				continue
+			}
+			if from != to {
+				e.emit(Event{Time: t, Unit: u.name, Kind: EventState, Alarm: statNames[k], From: from, To: to, Value: s.Value, Limit: s.Limit})
+			}
+		}
+	}
+	in := false
+	for k := range u.stats {
+		in = in || u.stats[k].State().InAlarm()
+	}
+	g := &u.modelG
+	switch {
+	case in && !g.inAlarm:
+		g.inAlarm, g.since = true, t
+		e.activate(u, g, t, o, nil)
+	case !in && g.inAlarm:
+		g.inAlarm = false
+		if g.inc != nil {
+			e.updateModel(g.inc, o, t)
+		}
+		e.deactivate(u, g, t)
+	case in && g.inc != nil:
+		if e.updateModel(g.inc, o, t) {
+			e.publish(g.inc, t)
+		}
+	}
+
+	// Data quality.
+	u.seq++
+	for i := range o.Quality {
+		q := &o.Quality[i]
+		if _, ok := e.cfg.Quality[q.Kind]; !ok {
+			bad = fmt.Errorf("%w: unit %q: quality[%d]: unknown kind %q", ErrInput, o.Unit, i, q.Kind)
+			continue
+		}
+		e.stepQuality(u, q.Kind, q.Channel, true, t, o)
+	}
+	for _, ch := range o.Missing {
+		e.stepQuality(u, QualityMissing, ch, true, t, o)
+	}
+	for k, q := range u.quality {
+		if q.seq != u.seq {
+			e.stepQuality(u, k.kind, k.channel, false, t, o)
+			if q.a.State() == Normal && q.g.inc == nil && q.g.shelf == nil && !q.g.chattering && quiet(&q.g.acts, t, e.cfg.ChatterWindow) {
+				delete(u.quality, k)
+			}
+		}
+	}
+
+	// Chattering episodes that went quiet; stale alarms; pending flood update.
+	e.checkGroup(u, &u.modelG, t)
+	for _, q := range u.quality {
+		e.checkGroup(u, &q.g, t)
+	}
+	if f := u.flood; f != nil && f.dirty && t.Sub(f.lastPub) >= e.cfg.FloodUpdate {
+		e.publish(f, t)
+	}
+	e.syncFreeze(u, t)
+	return bad
+}
+
+func (e *Engine) stepQuality(u *unit, kind, ch string, present bool, t time.Time, o *Observation) {
+	k := qkey{kind, ch}
+	q := u.quality[k]
+	if q == nil {
+		if !present {
+			return
+		}
+		rule := e.cfg.Quality[kind]
+		q = &qalarm{
+			a: NewAlarm(AlarmRule{N: 1, M: 1, OnHold: rule.Hold, OffDelay: rule.OffDelay}),
+			g: group{key: kind + ":" + ch, qkind: kind, chann: ch, acts: newRing(e.cfg.ChatterCount)},
+		}
+		u.quality[k] = q
+	}
+	if present && q.seq == u.seq {
+		return // named twice in one frame (Missing and Quality)
+	}
+	if present {
+		q.seq = u.seq
+	}
+	v := 0.0
+	if present {
+		v = 2
+	}
+	from, to, _ := q.a.Step(t, v, 1)
+	if from != to {
+		e.emit(Event{Time: t, Unit: u.name, Kind: EventState, Alarm: q.g.key, From: from, To: to})
+	}
+	g := &q.g
+	switch in := to.InAlarm(); {
+	case in && !g.inAlarm:
+		g.inAlarm, g.since = true, t
+		e.activate(u, g, t, o, &q.a)
+	case !in && g.inAlarm:
+		g.inAlarm = false
+		e.deactivate(u, g, t)
+	}
+}
+
+// activate handles a group going into alarm at t: a new incident, or one
+// more activation of a chattering incident.
+func (e *Engine) activate(u *unit, g *group, t time.Time, o *Observation, qa *Alarm) {
+	g.lastAct = t
+	if g.chattering && g.inc != nil {
+		g.inc.chatter.Activations++
+		g.inc.chatter.Last = t
+		u.c.ChatterSuppressed++
+		if g.qkind == "" {
+			e.updateModel(g.inc, o, t)
+		}
+		return
+	}
+	g.acts.push(t, nil)
+	inc := &incident{
+		id: MakeID(u.name, g.key, t), u: u, g: g, kind: KindIncident,
+		start: t.UTC(), memberIdx: -1,
+	}
+	if g.qkind == "" {
+		inc.sev = -1
+		e.updateModel(inc, o, t)
+	} else {
+		inc.sevName = e.cfg.Quality[g.qkind].Severity
+		inc.sev = slices.IndexFunc(u.rules.Severity, func(b SeverityBand) bool { return b.Name == inc.sevName })
+		inc.missing = append(inc.missing[:0], o.Missing...)
+	}
+	g.inc = inc
+	e.remember(inc)
+	u.c.Opened++
+	u.rate.add(t)
+	e.emit(Event{Time: t, Unit: u.name, Kind: EventOpen, Alarm: g.key, AlertID: inc.id})
+	// Chattering: ChatterCount activations within ChatterWindow, i.e. the
+	// oldest of the last ChatterCount is less than the window before t.
+	if g.acts.n == len(g.acts.t) {
+		if first, _ := g.acts.at(g.acts.n - 1); t.Sub(first) < e.cfg.ChatterWindow {
+			g.chattering = true
+			inc.chatter = &Chatter{Activations: g.acts.n, First: first.UTC(), Last: t.UTC()}
+			u.c.Chattering++
+			e.emit(Event{Time: t, Unit: u.name, Kind: EventChatterStart, Alarm: g.key, AlertID: inc.id})
+		}
+	}
+	// Flood: more than FloodCount new alerts within FloodWindow.
+	u.openings.push(t, inc)
+	if u.flood != nil {
+		e.addMember(u.flood, inc, t)
+	} else if n := u.openings.countAfter(t.Add(-e.cfg.FloodWindow)); n > e.cfg.FloodCount {
+		e.startFlood(u, t, n)
+	}
+	e.syncFreeze(u, t)
+	e.publish(inc, t)
+}
+
+func (e *Engine) deactivate(u *unit, g *group, t time.Time) {
+	inc := g.inc
+	if inc == nil {
+		return
+	}
+	if g.chattering {
+		e.refreshStates(inc)
+		return // stays open until quiet for the chatter window
+	}
+	e.closeIncident(inc, t, EndReturned)
+}
+
+// checkGroup ends quiet chattering episodes and flags stale alarms.
+func (e *Engine) checkGroup(u *unit, g *group, t time.Time) {
+	if g.chattering && !g.inAlarm && t.Sub(g.lastAct) >= e.cfg.ChatterWindow {
+		g.chattering = false
+		if g.inc != nil {
+			e.emit(Event{Time: t, Unit: u.name, Kind: EventChatterEnd, Alarm: g.key, AlertID: g.inc.id})
+			e.closeIncident(g.inc, t, EndQuiet)
+		}
+	}
+	// Stale: in alarm continuously for more than StaleAfter.
+	if inc := g.inc; inc != nil && g.inAlarm && !inc.stale && t.Sub(g.since) > e.cfg.StaleAfter {
+		inc.stale = true
+		u.c.Stale++
+		e.emit(Event{Time: t, Unit: u.name, Kind: EventStale, Alarm: g.key, AlertID: inc.id})
+		e.publish(inc, t)
+	}
+}
+
+func (e *Engine) closeIncident(inc *incident, t time.Time, reason string) {
+	inc.end, inc.ended, inc.endReason = t.UTC(), true, reason
+	if inc.g != nil {
+		e.refreshStates(inc)
+		inc.g.inc = nil
+	}
+	if f := inc.flood; f != nil && inc.memberIdx >= 0 && !f.ended {
+		end := inc.end
+		f.members[inc.memberIdx].End = &end
+		f.dirty = true
+	}
+	e.emit(Event{Time: t, Unit: inc.u.name, Kind: EventClose, AlertID: inc.id})
+	e.publish(inc, t)
+	e.retire(inc)
+	e.syncFreeze(inc.u, t)
+}
+
+func (e *Engine) remember(inc *incident) {
+	e.byID[inc.id] = inc
+}
+
+// retire moves a closed incident to the bounded closed list.
+func (e *Engine) retire(inc *incident) {
+	if len(e.closed) < closedKept {
+		e.closed = append(e.closed, inc.id)
+		return
+	}
+	old := e.closed[e.nextC]
+	if o := e.byID[old]; o != nil && o.ended {
+		delete(e.byID, old)
+	}
+	e.closed[e.nextC] = inc.id
+	e.nextC = (e.nextC + 1) % closedKept
+}
+
+// updateModel folds the frame's statistics into a model incident's peaks;
+// it reports whether the severity rose (a revision is due).
+func (e *Engine) updateModel(inc *incident, o *Observation, t time.Time) bool {
+	u := inc.u
+	newPeak := false
+	for i := range o.Stats {
+		s := &o.Stats[i]
+		k := statIndex(s.Name)
+		if k < 0 || !(s.Limit > 0) || math.IsInf(s.Limit, 0) || math.IsNaN(s.Value) || math.IsInf(s.Value, 0) {
+			continue
+		}
+		st := &inc.stats[k]
+		if !u.stats[k].State().InAlarm() && !st.used {
+			continue
+		}
+		r := s.Value / s.Limit
+		if !st.used || r > st.Ratio {
+			st.used = true
+			st.Name, st.Peak, st.Limit, st.Ratio, st.PeakTime = statNames[k], s.Value, s.Limit, r, t.UTC()
+		}
+		if !inc.hasPeak || r > inc.peak.Ratio {
+			inc.hasPeak = true
+			inc.peak = Peak{Statistic: statNames[k], Value: s.Value, Limit: s.Limit, Ratio: r, Time: t.UTC()}
+			newPeak = true
+		}
+	}
+	e.refreshStates(inc)
+	if !newPeak {
+		return false
+	}
+	// Contributors and missing channels at the frame of the peak; the
+	// incident's buffers are reused.
+	n := min(len(o.Contributors), e.cfg.MaxContributors)
+	for len(inc.contrib) < n {
+		inc.contrib = append(inc.contrib, RecordContributor{})
+	}
+	inc.contrib = inc.contrib[:n]
+	for i := 0; i < n; i++ {
+		c := &o.Contributors[i]
+		d := &inc.contrib[i]
+		d.Rank, d.Channel = i+1, c.Channel
+		d.Share, d.RBC, d.RBCLimit = finite(c.Share), finite(c.RBC), finite(c.Limit)
+		d.Modes = append(d.Modes[:0], c.Modes...)
+	}
+	inc.missing = append(inc.missing[:0], o.Missing...)
+	sev := severityIndex(u.rules.Severity, inc.peak.Ratio)
+	if sev > inc.sev {
+		inc.sev = sev
+		inc.sevName = u.rules.Severity[sev].Name
+		return inc.rev > 0
+	}
+	return false
+}
+
+func (e *Engine) refreshStates(inc *incident) {
+	for k := range inc.stats {
+		if inc.stats[k].used {
+			inc.stats[k].State = inc.u.stats[k].State().String()
+		}
+	}
+}
+
+// severityIndex returns the highest band whose ratio r reaches (the first
+// band when r is below all).
+func severityIndex(b []SeverityBand, r float64) int {
+	i := 0
+	for j := range b {
+		if r >= b[j].Ratio {
+			i = j
+		}
+	}
+	return i
+}
+
+// startFlood opens the flood record of u at t listing the n new alerts of
+// the trailing window.
+func (e *Engine) startFlood(u *unit, t time.Time, n int) {
+	f := &incident{
+		id: MakeID(u.name, GroupFlood, t), u: u, kind: KindFlood, start: t.UTC(),
+		memberIdx: -1, sev: -1, maxCount: n,
+	}
+	for k := n - 1; k >= 0; k-- {
+		_, inc := u.openings.at(k)
+		if inc != nil {
+			e.addMember(f, inc, t)
+		}
+	}
+	f.dirty = false
+	u.flood = f
+	u.c.Floods++
+	e.remember(f)
+	e.emit(Event{Time: t, Unit: u.name, Kind: EventFloodStart, AlertID: f.id, Value: float64(n), Limit: float64(e.cfg.FloodCount)})
+	e.publish(f, t)
+}
+
+func (e *Engine) addMember(f *incident, inc *incident, t time.Time) {
+	f.memberCount++
+	if inc.start.Equal(t.UTC()) && !inc.ended && inc.rev == 0 {
+		inc.member = true // opened now: its own records wait for the flood's end
+	}
+	inc.flood = f
+	if inc.sev > f.sev {
+		f.sev, f.sevName = inc.sev, inc.sevName
+	}
+	if len(f.members) < e.cfg.MaxFloodMembers {
+		inc.memberIdx = len(f.members)
+		m := Member{ID: inc.id, Group: inc.g.key, Start: inc.start, Severity: inc.sevName}
+		if inc.ended {
+			end := inc.end
+			m.End = &end
+		}
+		f.members = append(f.members, m)
+	}
+	if c := f.u.openings.countAfter(t.Add(-e.cfg.FloodWindow)); c > f.maxCount {
+		f.maxCount = c
+	}
+	f.dirty = true
+	if t.Sub(f.lastPub) >= e.cfg.FloodUpdate {
+		e.publish(f, t)
+	}
+}
+
+// checkFloodEnd ends u's flood when the trailing count has dropped below
+// FloodEnd: at the instant the FloodEnd-th most recent new alert left the
+// window, e + FloodWindow.
+func (e *Engine) checkFloodEnd(u *unit, t time.Time) {
+	f := u.flood
+	if f == nil {
+		return
+	}
+	if u.openings.countAfter(t.Add(-e.cfg.FloodWindow)) >= e.cfg.FloodEnd {
+		return
+	}
+	te, _ := u.openings.at(e.cfg.FloodEnd - 1)
+	end := te.Add(e.cfg.FloodWindow)
+	e.endFlood(u, end, EndFloodOver)
+}
+
+func (e *Engine) endFlood(u *unit, end time.Time, reason string) {
+	f := u.flood
+	u.flood = nil
+	e.emit(Event{Time: end, Unit: u.name, Kind: EventFloodEnd, AlertID: f.id})
+	e.closeIncident(f, end, reason)
+	// Members still open are annunciated on their own now.
+	for _, inc := range e.openIncidents(u) {
+		if inc.member {
+			inc.member = false
+			e.publish(inc, end)
+		}
+	}
+}
+
+func (e *Engine) openIncidents(u *unit) []*incident {
+	var out []*incident
+	if u.modelG.inc != nil {
+		out = append(out, u.modelG.inc)
+	}
+	for _, q := range u.quality {
+		if q.g.inc != nil {
+			out = append(out, q.g.inc)
+		}
+	}
+	slices.SortFunc(out, func(a, b *incident) int { return a.start.Compare(b.start) })
+	return out
+}
+
+func (e *Engine) expireShelf(u *unit, g *group, t time.Time) {
+	if g.shelf == nil || t.Before(g.shelf.Until) {
+		return
+	}
+	g.shelf = nil
+	id := ""
+	if g.inc != nil {
+		id = g.inc.id
+	}
+	e.emit(Event{Time: t, Unit: u.name, Kind: EventUnshelve, Alarm: g.key, AlertID: id})
+	if g.inc != nil {
+		e.publish(g.inc, t)
+	}
+}
+
+// syncFreeze freezes u's learning while it is in maintenance or (unless
+// NoFreeze) its model statistics are in alarm, and thaws it otherwise.
+func (e *Engine) syncFreeze(u *unit, t time.Time) {
+	want := u.maint || (!u.rules.NoFreeze && u.modelG.inAlarm)
+	if want == u.frozen {
+		return
+	}
+	u.frozen = want
+	if want {
+		if e.learn != nil {
+			e.learn.Freeze(u.name)
+		}
+		e.emit(Event{Time: t, Unit: u.name, Kind: EventFreeze})
+	} else {
+		if e.learn != nil {
+			e.learn.Thaw(u.name)
+		}
+		e.emit(Event{Time: t, Unit: u.name, Kind: EventThaw})
+	}
+}
+
+// publish hands a new revision of inc to the publisher, unless it is
+// suppressed: a shelf or a flood hides new incidents and their updates, but
+// never the end of an incident already published. force publishes anyway
+// (the revision that announces a shelf).
+func (e *Engine) publish(inc *incident, t time.Time) { e.publishIf(inc, t, false) }
+
+func (e *Engine) publishIf(inc *incident, t time.Time, force bool) {
+	inc.updated = t.UTC()
+	u := inc.u
+	if !force && !(inc.ended && inc.rev > 0) {
+		switch {
+		case inc.g != nil && inc.g.shelf != nil:
+			u.c.ShelvedSuppressed++
+			return
+		case inc.member:
+			u.c.FloodSuppressed++
+			return
+		}
+	}
+	inc.rev++
+	inc.dirty = false
+	inc.lastPub = t
+	u.c.Published++
+	e.pub.Publish(e.record(inc))
+}
+
+// record builds the JSON record of inc's current revision.
+func (e *Engine) record(inc *incident) *Record {
+	u := inc.u
+	r := &Record{
+		ID: inc.id, Revision: inc.rev, Kind: inc.kind, Unit: u.name,
+		Start: inc.start, Updated: inc.updated, Severity: inc.sevName,
+		Statistics: []RecordStat{}, Contributors: []RecordContributor{}, Missing: []string{},
+		ModelState: u.model, StaleAlarm: inc.stale, EndReason: inc.endReason, Caution: Caution,
+	}
+	if u.frozen {
+		r.ModelState = ModelFrozen
+	}
+	if r.ModelState == "" {
+		r.ModelState = ModelAdapting
+	}
+	if inc.ended {
+		end := inc.end
+		r.End = &end
+	}
+	if inc.ack != nil {
+		a := *inc.ack
+		r.Acknowledged = &a
+	}
+	if inc.chatter != nil {
+		c := *inc.chatter
+		r.Chattering = &c
+	}
+	switch {
+	case inc.kind == KindFlood:
+		r.Group = GroupFlood
+		r.State = "active"
+		if inc.ended {
+			r.State = Normal.String()
+		}
+		r.Peak = Peak{Statistic: "new_alerts_per_window", Value: float64(inc.maxCount),
+			Limit: float64(e.cfg.FloodCount), Ratio: float64(inc.maxCount) / float64(e.cfg.FloodCount), Time: inc.start}
+		if r.Severity == "" {
+			r.Severity = u.rules.Severity[0].Name
+		}
+		r.Members = make([]Member, len(inc.members))
+		for i, m := range inc.members {
+			r.Members[i] = m
+			if m.End != nil {
+				end := *m.End
+				r.Members[i].End = &end
+			}
+		}
+		r.MemberCount = inc.memberCount
+		return r
+	case inc.g.qkind != "":
+		r.Group = GroupQuality
+		r.Quality = &RecordQuality{Kind: inc.g.qkind, Channel: inc.g.chann}
+		r.Peak = Peak{Statistic: inc.g.qkind, Value: 1, Limit: 1, Ratio: 1, Time: inc.start}
+	default:
+		r.Group = GroupModel
+		r.Peak = inc.peak
+		for _, s := range inc.stats {
+			if s.used {
+				r.Statistics = append(r.Statistics, s.RecordStat)
+			}
+		}
+	}
+	r.State = groupState(inc)
+	if inc.g.shelf != nil {
+		s := *inc.g.shelf
+		r.Shelved = &s
+	}
+	for _, c := range inc.contrib {
+		c.Modes = slices.Clone(c.Modes)
+		if c.Modes == nil {
+			c.Modes = []int{}
+		}
+		r.Contributors = append(r.Contributors, c)
+	}
+	r.Missing = append(r.Missing, inc.missing...)
+	return r
+}
+
+func groupState(inc *incident) string {
+	if inc.ended {
+		return Normal.String()
+	}
+	g := inc.g
+	if g.qkind != "" {
+		if q := inc.u.quality[qkey{g.qkind, g.chann}]; q != nil {
+			return visible(q.a.State()).String()
+		}
+		return Normal.String()
+	}
+	best := Normal
+	for k := range inc.u.stats {
+		s := visible(inc.u.stats[k].State())
+		if s == Active || (s == Returning && best != Active) {
+			best = s
+		}
+	}
+	return best.String()
+}
+
+// visible maps pending (not yet an alarm) to normal for records.
+func visible(s State) State {
+	if s == Pending {
+		return Normal
+	}
+	return s
+}
+
+// Counters appends the counters of every unit to dst, sorted by unit.
+func (e *Engine) Counters(dst []UnitCounters) []UnitCounters {
+	e.mu.Lock()
+	defer e.mu.Unlock()
+	start := len(dst)
+	for _, u := range e.units {
+		c := u.c
+		c.LastHour, c.LastDay = u.rate.sum(60), u.rate.sum(1440)
+		c.Open = len(e.openIncidents(u))
+		c.InFlood, c.InMaint, c.Frozen = u.flood != nil, u.maint, u.frozen
+		dst = append(dst, c)
+	}
+	slices.SortFunc(dst[start:], func(a, b UnitCounters) int {
+		if a.Unit < b.Unit {
+			return -1
+		} else if a.Unit > b.Unit {
+			return 1
+		}
+		return 0
+	})
+	return dst
+}
+
+// Open appends the current revision of every open incident and flood
+// (published or not) to dst, oldest first within a unit, units sorted.
+func (e *Engine) Open(dst []Record) []Record {
+	e.mu.Lock()
+	defer e.mu.Unlock()
+	names := make([]string, 0, len(e.units))
+	for n := range e.units {
+		names = append(names, n)
+	}
+	slices.Sort(names)
+	for _, n := range names {
+		u := e.units[n]
+		if u.flood != nil {
+			dst = append(dst, *e.record(u.flood))
+		}
+		for _, inc := range e.openIncidents(u) {
+			dst = append(dst, *e.record(inc))
+		}
+	}
+	return dst
+}
+
+// finite maps NaN and ±Inf (which JSON cannot carry) to 0.
+func finite(v float64) float64 {
+	if math.IsNaN(v) || math.IsInf(v, 0) {
+		return 0
+	}
+	return v
+}

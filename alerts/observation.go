@@ -1,0 +1,72 @@
+package alerts
+
+import "time"
+
+// Statistic names accepted in Stat.Name.
+const (
+	StatT2  = "t2"  // Hotelling's T² inside the mode subspace
+	StatSPE = "spe" // squared prediction error (Q) outside it
+	StatPhi = "phi" // combined index φ (Yue & Qin 2001)
+)
+
+// Data-quality kinds accepted in Quality.Kind.
+const (
+	QualityStuck      = "stuck"        // flat-lined channel
+	QualityOutOfRange = "out_of_range" // outside its valid range
+	QualityStale      = "stale"        // no fresh value within the staleness limit
+	QualityMissing    = "missing"      // missing (also derived from Observation.Missing)
+)
+
+// Model states accepted in Observation.ModelState.
+const (
+	ModelWarmup   = "warmup"
+	ModelAdapting = "adapting"
+	ModelFrozen   = "frozen"
+	ModelBaseline = "baseline"
+)
+
+// Observation is what the alerts engine sees of one scored frame of one
+// plant unit. cmd fills it from the tracker's score; the engine copies what
+// it keeps, so the caller may reuse the Observation and its slices.
+type Observation struct {
+	// Unit is the plant unit the frame belongs to.
+	Unit string
+	// Time is the frame's event time; it drives every timer of the engine.
+	Time time.Time
+	// Stats are the monitoring statistics with their control limits.
+	// Values and limits are in the statistic's own (dimensionless) units.
+	Stats []Stat
+	// Contributors are ranked by reconstruction-based contribution, largest
+	// first (Alcala & Qin 2009).
+	Contributors []Contributor
+	// Missing names the channels missing in this frame.
+	Missing []string
+	// Quality lists the per-channel data-quality conditions present in this
+	// frame.
+	Quality []Quality
+	// ModelState is one of ModelWarmup, ModelAdapting, ModelFrozen,
+	// ModelBaseline. In warm-up the statistics are ignored.
+	ModelState string
+}
+
+// Stat is one monitoring statistic and its control limit.
+type Stat struct {
+	Name  string // StatT2, StatSPE or StatPhi
+	Value float64
+	Limit float64 // > 0; a frame with a non-finite or non-positive limit is skipped for this statistic
+}
+
+// Contributor is one channel's contribution to the frame's statistics.
+type Contributor struct {
+	Channel string
+	Share   float64 // fraction of the total RBC, in [0, 1]
+	RBC     float64 // reconstruction-based contribution
+	Limit   float64 // control limit of the RBC (0 when unknown)
+	Modes   []int   // the sparse modes whose support contains the channel
+}
+
+// Quality is one data-quality condition of one channel in one frame.
+type Quality struct {
+	Channel string
+	Kind    string // QualityStuck, QualityOutOfRange, QualityStale or QualityMissing
+}

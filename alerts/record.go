@@ -1,0 +1,143 @@
+package alerts
+
+import (
+	"strings"
+	"time"
+)
+
+// Record kinds.
+const (
+	KindIncident = "incident" // one alarm group of one unit in alarm
+	KindFlood    = "flood"    // a flood of new alerts of one unit, grouped
+)
+
+// Record groups.
+const (
+	GroupModel   = "model"   // the statistics T², SPE and φ of a unit together
+	GroupQuality = "quality" // one data-quality condition of one channel
+	GroupFlood   = "flood"
+)
+
+// End reasons.
+const (
+	EndReturned    = "returned"    // every alarm of the incident returned to normal
+	EndMaintenance = "maintenance" // the unit went into maintenance
+	EndQuiet       = "quiet"       // a chattering alarm stayed quiet for the chatter window
+	EndFloodOver   = "flood_over"  // the flood's trailing count dropped below the end figure
+)
+
+// Record is one alert: one incident (or one flood), republished with a new
+// Revision whenever it changes. (ID, Revision) is the deduplication key of
+// one publication; ID alone identifies the incident. The JSON form is
+// described by the schema returned by Schema.
+type Record struct {
+	ID           string              `json:"id"`
+	Revision     int                 `json:"revision"`
+	Kind         string              `json:"kind"`
+	Unit         string              `json:"unit"`
+	Group        string              `json:"group"`
+	Statistics   []RecordStat        `json:"statistics"`
+	Quality      *RecordQuality      `json:"quality"`
+	Start        time.Time           `json:"start"`
+	End          *time.Time          `json:"end"`
+	Updated      time.Time           `json:"updated"`
+	State        string              `json:"state"`
+	Peak         Peak                `json:"peak"`
+	Severity     string              `json:"severity"`
+	Contributors []RecordContributor `json:"contributors"`
+	Missing      []string            `json:"missing"`
+	ModelState   string              `json:"model_state"`
+	Acknowledged *Ack                `json:"acknowledged"`
+	Shelved      *Shelve             `json:"shelved"`
+	StaleAlarm   bool                `json:"stale_alarm"`
+	Chattering   *Chatter            `json:"chattering"`
+	Members      []Member            `json:"members,omitempty"`
+	MemberCount  int                 `json:"member_count,omitempty"`
+	EndReason    string              `json:"end_reason,omitempty"`
+	Caution      string              `json:"caution"`
+}
+
+// RecordStat is the peak of one statistic during the incident.
+type RecordStat struct {
+	Name     string    `json:"name"`
+	Peak     float64   `json:"peak"`
+	Limit    float64   `json:"limit"`
+	Ratio    float64   `json:"ratio"`
+	PeakTime time.Time `json:"peak_time"`
+	State    string    `json:"state"`
+}
+
+// RecordQuality names the data-quality condition of a quality incident.
+type RecordQuality struct {
+	Kind    string `json:"kind"`
+	Channel string `json:"channel"`
+}
+
+// Peak is the largest value/limit ratio of the incident.
+type Peak struct {
+	Statistic string    `json:"statistic"`
+	Value     float64   `json:"value"`
+	Limit     float64   `json:"limit"`
+	Ratio     float64   `json:"ratio"`
+	Time      time.Time `json:"time"`
+}
+
+// RecordContributor is one ranked channel at the time of the peak.
+type RecordContributor struct {
+	Rank     int     `json:"rank"`
+	Channel  string  `json:"channel"`
+	Share    float64 `json:"share"`
+	RBC      float64 `json:"rbc"`
+	RBCLimit float64 `json:"rbc_limit"`
+	Modes    []int   `json:"modes"`
+}
+
+// Ack records who acknowledged the alert and when (wall-clock time of the
+// command).
+type Ack struct {
+	By      string    `json:"by"`
+	At      time.Time `json:"at"`
+	Comment string    `json:"comment,omitempty"`
+}
+
+// Shelve records a shelve: the alarm group is hidden until Until (frame
+// time).
+type Shelve struct {
+	Until  time.Time `json:"until"`
+	By     string    `json:"by"`
+	Reason string    `json:"reason,omitempty"`
+}
+
+// Chatter reports a chattering alarm: its activations within the episode.
+type Chatter struct {
+	Activations int       `json:"activations"`
+	First       time.Time `json:"first"`
+	Last        time.Time `json:"last"`
+}
+
+// Member is one incident of a flood.
+type Member struct {
+	ID       string     `json:"id"`
+	Group    string     `json:"group"`
+	Start    time.Time  `json:"start"`
+	End      *time.Time `json:"end"`
+	Severity string     `json:"severity"`
+}
+
+// idTime is the time layout inside alert ids: UTC, compact, trailing zeros
+// of the fraction dropped.
+const idTime = "20060102T150405.999999999Z"
+
+// MakeID returns the stable id of an incident of group key g of unit u
+// starting at t: "<unit>/<group key>/<start>". Replaying the same frames
+// gives the same ids, so sinks and consumers can deduplicate.
+func MakeID(unit, groupKey string, t time.Time) string {
+	var b strings.Builder
+	b.Grow(len(unit) + len(groupKey) + 2 + len(idTime))
+	b.WriteString(unit)
+	b.WriteByte('/')
+	b.WriteString(groupKey)
+	b.WriteByte('/')
+	b.WriteString(t.UTC().Format(idTime))
+	return b.String()
+}
