@@ -1,0 +1,737 @@
+// Package tracker learns the normal joint behaviour of a plant unit's
+// channels online and scores every frame against it.
+//
+// Per frame (Tracker.Step): the channels are standardized with their
+// exponentially weighted (EW) means and variances, scored against the model
+// of the last refresh — Hotelling's T² inside the span of the modes, the
+// squared prediction error SPE (Q) outside it and the combined index φ of
+// Yue & Qin (2001), each with a control limit at false-alarm rate α — and
+// ranked per channel by reconstruction-based contribution (RBC, Alcalá &
+// Qin 2009) with each channel's own RBC limit. Then, unless learning is
+// frozen, the frame updates the EW statistics (Finch 2009). Every
+// RefreshEvery frames the correlation matrix of the standardized channels
+// is formed from the EW covariance and the sparse modes are refreshed from
+// it, warm-started (package modes), and the limits are recomputed.
+//
+// With z the standardized frame, P (p × r) the mode loadings and A the
+// correlation matrix at the last refresh:
+//
+//	t = Pᵀz,  T² = tᵀ(PᵀAP)⁻¹t                (valid for non-orthogonal sparse loadings)
+//	SPE = ‖(I − P(PᵀP)⁻¹Pᵀ)z‖²
+//	φ = SPE/δ² + T²/τ²                          (δ², τ²: SPE and T² limits)
+//
+// The package is pure computation: no I/O, logging or goroutines. A Tracker
+// is not safe for concurrent use.
+package tracker
+
+import (
+	"errors"
+	"fmt"
+	"math"
+	"time"
+
+	"modewatch/tracker/limits"
+	"modewatch/tracker/modes"
+)
+
+// T2Form selects the T² control limit.
+type T2Form int
+
+const (
+	// T2F is the Phase II F form for a new observation with the mean and
+	// covariance estimated from n_eff earlier ones (NIST/SEMATECH e-Handbook
+	// 6.5.4.3.4), n_eff the Kish effective sample size:
+	//  τ² = r(n²−1)/(n(n−r)) · F_{1−α}(r, n−r)
+	T2F T2Form = iota
+	// T2ChiSquare is the large-sample form τ² = χ²_{1−α}(r).
+	T2ChiSquare
+)
+
+// SPEForm selects the SPE control limit.
+type SPEForm int
+
+const (
+	// SPEBox is Box's (1954) approximation g·χ²_{1−α}(h), g = θ₂/θ₁,
+	// h = θ₁²/θ₂, with θᵢ = tr(Rⁱ) from traces (no eigendecomposition).
+	SPEBox SPEForm = iota
+	// SPEJacksonMudholkar is the limit of Jackson & Mudholkar (1979). It
+	// needs θ₃ = tr(R³), formed explicitly: O(p³) per refresh.
+	SPEJacksonMudholkar
+)
+
+// Index selects the index whose reconstruction-based contributions rank
+// the channels.
+type Index int
+
+const (
+	// IndexCombined ranks by the RBC of φ, which sees faults inside and
+	// outside the mode subspace (Alcalá & Qin 2009, §4).
+	IndexCombined Index = iota
+	// IndexSPE ranks by the RBC of SPE.
+	IndexSPE
+)
+
+// State is the learning state reported with every score.
+type State int
+
+const (
+	StateWarmUp   State = iota // collecting frames; no scores yet
+	StateAdapting              // scoring and learning
+	StateFrozen                // scoring; learning paused (Freeze)
+	StateBaseline              // scoring against a fitted baseline held fixed (Fit)
+)
+
+func (s State) String() string {
+	switch s {
+	case StateWarmUp:
+		return "warmup"
+	case StateAdapting:
+		return "adapting"
+	case StateFrozen:
+		return "frozen"
+	case StateBaseline:
+		return "baseline"
+	}
+	return fmt.Sprintf("State(%d)", int(s))
+}
+
+// Defaults of Config.
+const (
+	DefaultAlpha        = 0.01
+	DefaultRefreshEvery = 64
+	DefaultBatch        = 64
+	DefaultStuckRel     = 1e-9
+	DefaultFlatFrames   = 60
+	DefaultTopContrib   = 10
+	DefaultRidge        = 1e-6
+	DefaultPatternCache = 16
+)
+
+// Config configures a Tracker. The zero value (with Period and HalfLife
+// set) is usable: α = 0.01, refresh every 64 frames, Box SPE limit, F-form
+// T² limit, RBC of φ.
+type Config struct {
+	// Period is the frame period and HalfLife the time after which a
+	// frame's weight has halved: μ = 2^(−Period/HalfLife). HalfLife 0 means
+	// no forgetting (equal weights).
+	Period, HalfLife time.Duration
+	// Modes configures the sparse modes (package modes).
+	Modes modes.Config
+	// Alpha is the false-alarm probability of every limit (default 0.01).
+	Alpha float64
+	// RefreshEvery is the number of learned frames between refreshes of the
+	// modes and limits (default 64).
+	RefreshEvery int
+	// WarmUp is the number of frames learned before the first model and
+	// score (default max(100, 2p)).
+	WarmUp int
+	// Batch is the number of complete frames folded into the covariance by
+	// one rank-B update (default 64).
+	Batch int
+	// T2Limit and SPELimit select the theoretical limits.
+	T2Limit  T2Form
+	SPELimit SPEForm
+	// RBCIndex selects the index of the reconstruction-based contributions.
+	RBCIndex Index
+	// StuckRel: a channel whose EW standard deviation falls to
+	// StuckRel·|mean| or below (or to 0) is stuck (default 1e-9).
+	StuckRel float64
+	// FlatFrames: a channel repeating exactly the same value for this many
+	// consecutive frames is flat-lined (default 60; negative disables).
+	FlatFrames int
+	// TopContrib is the number of ranked contributors reported (default 10).
+	TopContrib int
+	// Ridge ε regularises the correlation, A + εI, when conditioning missing
+	// channels on observed ones (default 1e-6).
+	Ridge float64
+	// PatternCache bounds the number of missing-channel patterns whose
+	// reduced models are cached between refreshes (default 16).
+	PatternCache int
+}
+
+// Errors.
+var (
+	ErrConfig = errors.New("tracker: bad configuration")
+	ErrWidth  = errors.New("tracker: frame width differs from the channel count")
+	ErrInput  = errors.New("tracker: bad input")
+	ErrModel  = errors.New("tracker: model refresh failed")
+)
+
+// Contribution is one channel's share in a frame's out-of-control score.
+type Contribution struct {
+	Channel int
+	// RBC is the reconstruction-based contribution of the channel to the
+	// index chosen by Config.RBCIndex (φ by default), RBCLimit its own
+	// control limit gᵢ·χ²_{1−α}(1) (Alcalá & Qin 2009).
+	RBC, RBCLimit float64
+	// Share is RBC over the index value: the fraction of the index removed
+	// by reconstructing this channel alone (0..1).
+	Share float64
+	// SPEContrib is eᵢ², the channel's term of SPE; T2Contrib is zᵢ(Dz)ᵢ,
+	// D = P(PᵀAP)⁻¹Pᵀ, its term of T² (the terms sum to T²; can be < 0).
+	SPEContrib, T2Contrib float64
+	// Modes lists the IDs of the modes whose support holds the channel.
+	Modes []int
+}
+
+// Score is the result of one frame. Its slices are reused by the next Step
+// with the same dst.
+type Score struct {
+	Ready            bool // false during warm-up: no statistics yet
+	State            State
+	T2, T2Limit      float64
+	SPE, SPELimit    float64
+	Phi, PhiLimit    float64
+	Contrib          []Contribution // ranked by RBC, largest first (at most TopContrib)
+	Missing          []int          // channels missing (or non-finite) in this frame
+	Excluded         []int          // stuck or flat-lined channels, out of the model
+	Frozen           bool           // learning paused
+	NEff             float64        // Kish effective sample size of the model
+	Modes            int            // number of modes r
+	Calibrated       bool           // T², SPE, φ limits set empirically (Calibrate)
+	Frame            uint64         // frames seen, this one included
+	RefreshesPending int            // frames until the next refresh
+}
+
+// Tracker is the streaming model of one plant unit.
+type Tracker struct {
+	p   int
+	cfg Config
+
+	ew   *EW
+	ms   *modes.Tracker
+	mdl  *model
+	w    *work
+	ls   limitSpec
+	maxR int
+
+	ready    bool // a model exists
+	frozen   bool
+	baseline bool
+	frames   uint64
+	learned  uint64
+	since    int // learned frames since the last refresh
+
+	obs   []bool
+	last  []float64
+	run   []int
+	stuck []bool
+	top   []int
+
+	cal      bool
+	calT2    float64
+	calSPE   float64
+	calPhi   float64
+	calScale [3]float64 // empirical / theoretical at the base pattern
+}
+
+func (c *Config) defaults(p int) error {
+	if c.Period < 0 || c.HalfLife < 0 {
+		return fmt.Errorf("%w: Period and HalfLife must not be negative", ErrConfig)
+	}
+	if c.HalfLife > 0 && c.Period == 0 {
+		return fmt.Errorf("%w: HalfLife needs Period", ErrConfig)
+	}
+	if c.Alpha == 0 {
+		c.Alpha = DefaultAlpha
+	}
+	if !(c.Alpha > 0 && c.Alpha < 1) {
+		return fmt.Errorf("%w: Alpha = %v not in (0, 1)", ErrConfig, c.Alpha)
+	}
+	if c.RefreshEvery == 0 {
+		c.RefreshEvery = DefaultRefreshEvery
+	}
+	if c.Batch == 0 {
+		c.Batch = DefaultBatch
+	}
+	if c.WarmUp == 0 {
+		c.WarmUp = max(100, 2*p)
+	}
+	if c.StuckRel == 0 {
+		c.StuckRel = DefaultStuckRel
+	}
+	if c.FlatFrames == 0 {
+		c.FlatFrames = DefaultFlatFrames
+	}
+	if c.TopContrib == 0 {
+		c.TopContrib = DefaultTopContrib
+	}
+	if c.Ridge == 0 {
+		c.Ridge = DefaultRidge
+	}
+	if c.PatternCache == 0 {
+		c.PatternCache = DefaultPatternCache
+	}
+	switch {
+	case c.RefreshEvery < 0, c.Batch < 0, c.WarmUp < 2, c.StuckRel < 0, c.TopContrib < 0, c.Ridge < 0, c.PatternCache < 0:
+		return fmt.Errorf("%w: RefreshEvery %d, Batch %d, WarmUp %d, StuckRel %v, TopContrib %d, Ridge %v, PatternCache %d",
+			ErrConfig, c.RefreshEvery, c.Batch, c.WarmUp, c.StuckRel, c.TopContrib, c.Ridge, c.PatternCache)
+	}
+	if c.T2Limit != T2F && c.T2Limit != T2ChiSquare {
+		return fmt.Errorf("%w: unknown T² limit %d", ErrConfig, c.T2Limit)
+	}
+	if c.SPELimit != SPEBox && c.SPELimit != SPEJacksonMudholkar {
+		return fmt.Errorf("%w: unknown SPE limit %d", ErrConfig, c.SPELimit)
+	}
+	if c.RBCIndex != IndexCombined && c.RBCIndex != IndexSPE {
+		return fmt.Errorf("%w: unknown RBC index %d", ErrConfig, c.RBCIndex)
+	}
+	return nil
+}
+
+// New returns a tracker for p channels. All per-frame storage is allocated
+// here; Step allocates nothing once the first frames have sized dst.
+func New(p int, cfg Config) (*Tracker, error) {
+	if p < 1 {
+		return nil, fmt.Errorf("%w: %d channels", ErrConfig, p)
+	}
+	if err := cfg.defaults(p); err != nil {
+		return nil, err
+	}
+	ms, err := modes.NewTracker(p, cfg.Modes)
+	if err != nil {
+		return nil, fmt.Errorf("%w: %w", ErrConfig, err)
+	}
+	mc := ms.Config()
+	maxR := max(mc.Count, mc.MaxCount, 1)
+	if maxR > 64 {
+		return nil, fmt.Errorf("%w: at most 64 modes, got %d", ErrConfig, maxR)
+	}
+	t := &Tracker{
+		p: p, cfg: cfg, ms: ms, maxR: maxR,
+		ew:    NewEW(p, Forgetting(cfg.Period, cfg.HalfLife), cfg.Batch, true),
+		mdl:   newModel(p, maxR),
+		w:     newWork(p, maxR),
+		obs:   make([]bool, p),
+		last:  make([]float64, p),
+		run:   make([]int, p),
+		stuck: make([]bool, p),
+		top:   make([]int, 0, cfg.TopContrib+1),
+	}
+	for i := range t.last {
+		t.last[i] = math.NaN()
+	}
+	t.ls = limitSpec{alpha: cfg.Alpha, t2: cfg.T2Limit, spe: cfg.SPELimit, rbc: cfg.RBCIndex,
+		chi1: limits.ChiSquare(1-cfg.Alpha, 1)}
+	if cfg.SPELimit == SPEJacksonMudholkar {
+		t.ls.jmSpace = newJMScratch(p, maxR)
+	}
+	return t, nil
+}
+
+// P returns the number of channels.
+func (t *Tracker) P() int { return t.p }
+
+// Config returns the configuration with defaults filled in.
+func (t *Tracker) Config() Config { return t.cfg }
+
+// Stats returns the EW statistics (read-only use).
+func (t *Tracker) Stats() *EW { return t.ew }
+
+// Modes returns the mode tracker (read-only use).
+func (t *Tracker) Modes() *modes.Tracker { return t.ms }
+
+// State returns the learning state.
+func (t *Tracker) State() State {
+	switch {
+	case !t.ready:
+		return StateWarmUp
+	case t.baseline:
+		return StateBaseline
+	case t.frozen:
+		return StateFrozen
+	}
+	return StateAdapting
+}
+
+// Freeze pauses learning: frames are scored but do not update the
+// statistics, and the model is not refreshed (recursive PCA practice while
+// a fault is active: Li, Yue, Valle-Cervantes & Qin 2000).
+func (t *Tracker) Freeze() { t.frozen = true }
+
+// Thaw resumes learning after Freeze, and releases a fitted baseline (Fit)
+// so that it adapts from then on.
+func (t *Tracker) Thaw() { t.frozen, t.baseline = false, false }
+
+// Frozen reports whether learning is paused.
+func (t *Tracker) Frozen() bool { return t.frozen || t.baseline }
+
+// Step scores one frame against the current model and then, unless learning
+// is frozen, folds it into the statistics (and refreshes the model when
+// due). x holds one value per channel in channel units; missing (nil or len
+// p) marks channels without a valid value; a non-finite value is treated
+// as missing. dst receives the score (Ready false during warm-up).
+//
+// Step returns ErrWidth if the frame does not have p channels, and an error
+// wrapping ErrModel if a refresh failed (the previous model is kept; dst is
+// valid).
+func (t *Tracker) Step(dst *Score, x []float64, missing []bool) error {
+	if err := t.prepare(x, missing); err != nil {
+		return err
+	}
+	t.frames++
+	if err := t.score(dst, x); err != nil {
+		return err
+	}
+	if t.frozen || t.baseline {
+		return nil
+	}
+	t.ew.Update(x, t.obs)
+	t.learned++
+	t.since++
+	if (!t.ready && t.learned >= uint64(t.cfg.WarmUp)) || (t.ready && t.cfg.RefreshEvery > 0 && t.since >= t.cfg.RefreshEvery) {
+		if err := t.Refresh(); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
+// Evaluate scores one frame like Step but learns nothing from it.
+func (t *Tracker) Evaluate(dst *Score, x []float64, missing []bool) error {
+	if err := t.prepare(x, missing); err != nil {
+		return err
+	}
+	return t.score(dst, x)
+}
+
+// prepare validates the frame, fills t.obs and tracks flat-lined channels.
+func (t *Tracker) prepare(x []float64, missing []bool) error {
+	if len(x) != t.p || (missing != nil && len(missing) != t.p) {
+		return fmt.Errorf("%w: %d values, %d missing flags, tracker has %d channels", ErrWidth, len(x), len(missing), t.p)
+	}
+	for i, v := range x {
+		ok := (missing == nil || !missing[i]) && !math.IsNaN(v) && !math.IsInf(v, 0)
+		t.obs[i] = ok
+		if !ok {
+			continue
+		}
+		if v == t.last[i] {
+			t.run[i]++
+		} else {
+			t.run[i] = 1
+			t.last[i] = v
+		}
+	}
+	for i := range x {
+		t.stuck[i] = t.isStuck(i)
+	}
+	return nil
+}
+
+// isStuck: flat-lined for FlatFrames frames, or EW variance collapsed.
+func (t *Tracker) isStuck(i int) bool {
+	if t.cfg.FlatFrames > 0 && t.run[i] >= t.cfg.FlatFrames {
+		return true
+	}
+	if t.ew.Count(i) < 2 {
+		return false
+	}
+	v := t.ew.Var(i)
+	s := t.cfg.StuckRel * math.Abs(t.ew.Mean(i))
+	return v <= s*s || v == 0
+}
+
+// score fills dst for x (t.obs and t.stuck set).
+func (t *Tracker) score(dst *Score, x []float64) error {
+	dst.Frame = t.frames
+	dst.State = t.State()
+	dst.Frozen = t.Frozen()
+	dst.Calibrated = t.cal
+	dst.Missing = dst.Missing[:0]
+	dst.Excluded = dst.Excluded[:0]
+	dst.Contrib = dst.Contrib[:0]
+	for i := 0; i < t.p; i++ {
+		if !t.obs[i] {
+			dst.Missing = append(dst.Missing, i)
+		} else if t.stuck[i] || (t.ready && !t.mdl.include[i]) {
+			dst.Excluded = append(dst.Excluded, i)
+		}
+	}
+	if t.cfg.RefreshEvery > 0 {
+		dst.RefreshesPending = t.cfg.RefreshEvery - t.since
+	}
+	if !t.ready {
+		dst.Ready = false
+		dst.T2, dst.T2Limit, dst.SPE, dst.SPELimit, dst.Phi, dst.PhiLimit = 0, 0, 0, 0, 0, 0
+		dst.NEff, dst.Modes = 0, 0
+		if t.cfg.RefreshEvery > 0 {
+			dst.RefreshesPending = t.cfg.WarmUp - int(t.learned)
+		}
+		return nil
+	}
+	m, w := t.mdl, t.w
+	w.miss = w.miss[:0]
+	for i := 0; i < t.p; i++ {
+		switch {
+		case !m.include[i]:
+			w.z[i] = 0 // out of the model since the refresh: zero row of A
+		case !t.obs[i] || t.stuck[i] || !(t.ew.Var(i) > 0):
+			w.z[i] = 0
+			w.miss = append(w.miss, i)
+		default:
+			w.z[i] = (x[i] - t.ew.Mean(i)) / math.Sqrt(t.ew.Var(i))
+		}
+	}
+	pt, err := m.lookupPattern(w.miss, &t.ls, t.cfg.Ridge, t.cfg.PatternCache)
+	if err != nil {
+		dst.Ready = false
+		return fmt.Errorf("%w: %w", ErrModel, err)
+	}
+	if len(w.miss) > 0 {
+		m.impute(w.z, pt, w.imp)
+	}
+	t2, spe, phi := m.scoreZ(w, pt, t.cfg.RBCIndex)
+	dst.Ready = true
+	dst.T2, dst.SPE, dst.Phi = t2, spe, phi
+	dst.T2Limit, dst.SPELimit, dst.PhiLimit = pt.t2Lim, pt.speLim, pt.phiLim
+	if t.cal {
+		dst.T2Limit *= t.calScale[0]
+		dst.SPELimit *= t.calScale[1]
+		dst.PhiLimit *= t.calScale[2]
+	}
+	dst.NEff = m.nEff
+	dst.Modes = m.r
+	// Rank the top contributors by RBC (insertion into a short list).
+	top := t.top[:0]
+	k := t.cfg.TopContrib
+	for i := 0; i < t.p; i++ {
+		if pt.rbcDen[i] == 0 {
+			continue
+		}
+		v := w.rbc[i]
+		if len(top) == k && (k == 0 || v <= w.rbc[top[k-1]]) {
+			continue
+		}
+		j := len(top)
+		if j < k {
+			top = append(top, i)
+		} else {
+			j = k - 1
+		}
+		for j > 0 && w.rbc[top[j-1]] < v {
+			top[j] = top[j-1]
+			j--
+		}
+		top[j] = i
+	}
+	t.top = top
+	index := phi
+	if t.cfg.RBCIndex == IndexSPE {
+		index = spe
+	}
+	for _, i := range top {
+		n := len(dst.Contrib)
+		if n < cap(dst.Contrib) {
+			dst.Contrib = dst.Contrib[:n+1]
+		} else {
+			dst.Contrib = append(dst.Contrib, Contribution{})
+		}
+		c := &dst.Contrib[n]
+		c.Channel = i
+		c.RBC = w.rbc[i]
+		c.RBCLimit = pt.rbcLim[i]
+		c.Share = 0
+		if index > 0 {
+			c.Share = w.rbc[i] / index
+		}
+		c.SPEContrib = w.spec[i]
+		c.T2Contrib = w.t2c[i]
+		c.Modes = append(c.Modes[:0], m.modeIDs[m.modeOff[i]:m.modeOff[i+1]]...)
+	}
+	return nil
+}
+
+// ContributionsTo copies the per-channel RBC, SPE and T² contributions of
+// the last scored frame into the non-nil destinations (len p each).
+func (t *Tracker) ContributionsTo(rbc, spe, t2 []float64) {
+	if rbc != nil {
+		copy(rbc, t.w.rbc)
+	}
+	if spe != nil {
+		copy(spe, t.w.spec)
+	}
+	if t2 != nil {
+		copy(t2, t.w.t2c)
+	}
+}
+
+// Refresh forms the correlation matrix of the standardized channels from
+// the EW covariance (stuck channels get zero rows and leave the model),
+// refreshes the modes from it (warm-started) and recomputes the limits.
+// Step calls it every RefreshEvery learned frames. On error the previous
+// model is kept. It drops empirical limits set by Calibrate.
+func (t *Tracker) Refresh() error {
+	m := t.mdl
+	nEff := math.Inf(1)
+	any := false
+	for i := 0; i < t.p; i++ {
+		in := t.ew.Count(i) >= 2 && t.ew.Var(i) > 0 && !t.isStuck(i)
+		m.include[i] = in
+		if in {
+			any = true
+			nEff = math.Min(nEff, t.ew.NEff(i))
+		}
+	}
+	if !any {
+		return fmt.Errorf("%w: no channel has variance", ErrModel)
+	}
+	t.ew.CorrTo(m.a, m.include)
+	if err := t.ms.Refresh(m.a); err != nil {
+		return fmt.Errorf("%w: %w", ErrModel, err)
+	}
+	if t.ms.Count() == 0 {
+		return fmt.Errorf("%w: the correlation matrix gave no modes", ErrModel)
+	}
+	t.install(nEff)
+	return nil
+}
+
+// install builds the model from m.a and the mode tracker's loadings.
+func (t *Tracker) install(nEff float64) {
+	m := t.mdl
+	m.nEff = nEff
+	t.ls.nEff = nEff
+	r := t.ms.Count()
+	m.setLoadings(t.ms.Loadings())
+	// Mode membership per channel.
+	m.modeIDs = m.modeIDs[:0]
+	for i := 0; i <= t.p; i++ {
+		m.modeOff[i] = 0
+	}
+	for j := 0; j < r; j++ {
+		for _, i := range t.ms.Mode(j).Support {
+			m.modeOff[i+1]++
+		}
+	}
+	for i := 0; i < t.p; i++ {
+		m.modeOff[i+1] += m.modeOff[i]
+	}
+	need := m.modeOff[t.p]
+	if cap(m.modeIDs) < need {
+		m.modeIDs = make([]int, need, t.p*t.maxR)
+	}
+	m.modeIDs = m.modeIDs[:need]
+	for i := 0; i < t.p; i++ {
+		n := 0
+		for j := 0; j < r; j++ {
+			md := t.ms.Mode(j)
+			if containsSorted(md.Support, i) {
+				m.modeIDs[m.modeOff[i]+n] = md.ID
+				n++
+			}
+		}
+	}
+	m.computePattern(m.base, &t.ls)
+	t.ready = true
+	t.since = 0
+	t.cal = false
+}
+
+func containsSorted(s []int, v int) bool {
+	lo, hi := 0, len(s)
+	for lo < hi {
+		h := (lo + hi) / 2
+		if s[h] < v {
+			lo = h + 1
+		} else {
+			hi = h
+		}
+	}
+	return lo < len(s) && s[lo] == v
+}
+
+// Fit sets a fixed baseline from a batch of frames (rows of frames, each of
+// length p), weighting every frame equally: the mean, the sample standard
+// deviation (n − 1) and the correlation of the standardized channels, then
+// the modes and limits, with the effective sample size n. The tracker then
+// scores against this baseline without learning until Thaw. Frames may not
+// have missing or non-finite values; the error names the first such value.
+func (t *Tracker) Fit(frames [][]float64) error {
+	n := len(frames)
+	if n < 3 {
+		return fmt.Errorf("%w: Fit needs at least 3 frames, got %d", ErrInput, n)
+	}
+	for k, f := range frames {
+		if len(f) != t.p {
+			return fmt.Errorf("%w: Fit frame %d has %d values, want %d", ErrWidth, k, len(f), t.p)
+		}
+		for i, v := range f {
+			if math.IsNaN(v) || math.IsInf(v, 0) {
+				return fmt.Errorf("%w: Fit frame %d, channel %d: value %v", ErrInput, k, i, v)
+			}
+		}
+	}
+	e := NewEW(t.p, t.ew.mu, t.cfg.Batch, true)
+	// Equal weights: the cumulative start gives αₖ = 1/k while 1/k > 1 − μ;
+	// set μ = 1 for the fit and restore it afterwards.
+	e.mu = 1
+	for _, f := range frames {
+		e.Update(f, nil)
+	}
+	e.Flush()
+	// Population → sample (n − 1) variance and covariance.
+	s := float64(n) / float64(n-1)
+	for i := range e.vari {
+		e.vari[i] *= s
+	}
+	for i := range e.cov.Data {
+		e.cov.Data[i] *= s
+	}
+	e.mu = t.ew.mu
+	t.ew = e
+	for i := range t.run {
+		t.run[i] = 0
+		t.last[i] = math.NaN()
+	}
+	if err := t.Refresh(); err != nil {
+		return err
+	}
+	t.baseline = true
+	t.learned = uint64(n)
+	return nil
+}
+
+// Calibrate sets the T², SPE and φ limits empirically: each is the
+// (1 − α) quantile of that statistic over the reference frames (normal
+// operation), i.e. the k-th largest value with k = ⌊α·n⌋ + 1, as the
+// published Tennessee Eastman tables do (Russell, Chiang & Braatz 2000).
+// The frames are scored against the current model without learning. For a
+// frame with missing channels the limit of its reduced problem is scaled by
+// the same empirical/theoretical ratio. The empirical limits hold until the
+// next refresh.
+func (t *Tracker) Calibrate(frames [][]float64) error {
+	if !t.ready {
+		return fmt.Errorf("%w: Calibrate before the model exists", ErrInput)
+	}
+	n := len(frames)
+	if n == 0 {
+		return fmt.Errorf("%w: Calibrate needs frames", ErrInput)
+	}
+	vals := [3][]float64{make([]float64, n), make([]float64, n), make([]float64, n)}
+	var sc Score
+	saveCal := t.cal
+	t.cal = false
+	for k, f := range frames {
+		if err := t.Evaluate(&sc, f, nil); err != nil {
+			t.cal = saveCal
+			return fmt.Errorf("tracker: Calibrate frame %d: %w", k, err)
+		}
+		vals[0][k], vals[1][k], vals[2][k] = sc.T2, sc.SPE, sc.Phi
+	}
+	scratch := make([]float64, n)
+	var lim [3]float64
+	for j := range vals {
+		v, err := limits.Empirical(t.cfg.Alpha, vals[j], scratch)
+		if err != nil {
+			t.cal = saveCal
+			return fmt.Errorf("tracker: Calibrate: %w", err)
+		}
+		lim[j] = v
+	}
+	b := t.mdl.base
+	t.calT2, t.calSPE, t.calPhi = lim[0], lim[1], lim[2]
+	t.calScale = [3]float64{lim[0] / b.t2Lim, lim[1] / b.speLim, lim[2] / b.phiLim}
+	t.cal = true
+	return nil
+}
