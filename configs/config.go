@@ -219,7 +219,9 @@ type Unit struct {
 // Model holds the settings of a unit's online model. Zero fields mean
 // "inherit" (in a unit) or "default" (in Config.Model).
 type Model struct {
-	// Sparsity of every mode: none|l0:K|l1:S|l0pen:G|l1pen:G|logpen:G[,EPS]|exppen:G[,EPS].
+	// Sparsity of every mode:
+	// none|l0:K|l1:S|l0pen:G|l1pen:G|l1sqrt:G|logpen:G[,EPS]|exppen:G[,EPS].
+	// K above the unit's channel count (S above √p) is lowered to it.
 	// Default "l0:6".
 	Sparsity string `yaml:"sparsity"`
 	// Modes: a fixed count "N" or "auto:SHARE" (smallest r reaching that

@@ -247,7 +247,7 @@ func TestParseValues(t *testing.T) {
 }
 
 func TestSparsitySyntax(t *testing.T) {
-	for _, s := range []string{"none", "l0:5", "l1:2.5", "l0pen:0.1", "l1pen:0.2", "logpen:0.1", "logpen:0.1,0.01", "exppen:1,0.5"} {
+	for _, s := range []string{"none", "l0:5", "l1:2.5", "l0pen:0.1", "l1pen:0.2", "l1sqrt:0.3", "logpen:0.1", "logpen:0.1,0.01", "exppen:1,0.5"} {
 		if err := CheckSparsity(s); err != nil {
 			t.Errorf("CheckSparsity(%q) = %v", s, err)
 		}
