@@ -486,9 +486,13 @@ func (t *Tracker) score(dst *Score, x []float64) error {
 	dst.T2, dst.SPE, dst.Phi = t2, spe, phi
 	dst.T2Limit, dst.SPELimit, dst.PhiLimit = pt.t2Lim, pt.speLim, pt.phiLim
 	if t.cal {
-		dst.T2Limit *= t.calScale[0]
-		dst.SPELimit *= t.calScale[1]
-		dst.PhiLimit *= t.calScale[2]
+		if pt == m.base {
+			dst.T2Limit, dst.SPELimit, dst.PhiLimit = t.calT2, t.calSPE, t.calPhi
+		} else {
+			dst.T2Limit *= t.calScale[0]
+			dst.SPELimit *= t.calScale[1]
+			dst.PhiLimit *= t.calScale[2]
+		}
 	}
 	dst.NEff = m.nEff
 	dst.Modes = m.r
