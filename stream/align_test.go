@@ -108,10 +108,10 @@ func TestAlignSequences(t *testing.T) {
 			// Before any frame is emitted, an earlier reading (b@4.9 after
 			// a@5.2) extends the segment backwards: frame 4 is emitted with a
 			// missing (no reading yet), then frames 5 and 6.
-			name: "segment start extends backwards",
-			cfg:  AlignConfig{Period: time.Second},
-			in:   []reading{{0, 5.2, 1}, {1, 4.9, 10}, {0, 6.5, 2}},
-			want: []wantFrame{{4, []float64{nan, 10}, 0}, {5, []float64{1, 10}, 0}, {6, []float64{2, 10}, 0}},
+			name:  "segment start extends backwards",
+			cfg:   AlignConfig{Period: time.Second},
+			in:    []reading{{0, 5.2, 1}, {1, 4.9, 10}, {0, 6.5, 2}},
+			want:  []wantFrame{{4, []float64{nan, 10}, 0}, {5, []float64{1, 10}, 0}, {6, []float64{2, 10}, 0}},
 			stats: AlignStats{Readings: 3, Frames: 3},
 			wm:    7,
 		},

@@ -132,20 +132,17 @@ func (in *Intake) Read(ctx context.Context, source string, r io.Reader) error {
 		}
 		last := bytes.LastIndexByte(data[start:], '\n')
 		if last >= 0 {
-			whole := data[start : start+last+1]
-			if err := in.decode(source, base, whole); err != nil {
+			var err error
+			base, err = in.decodeLines(source, base, data[start:start+last+1])
+			if err != nil {
 				in.publish()
 				return err
 			}
-			base += int64(bytes.Count(whole, []byte{'\n'}))
 			start += last + 1
 		}
 		n = copy(buf, data[start:])
 		if n > in.maxLine {
-			in.st.Lines++
-			in.src = source
-			in.reject(ReasonTooLong, base+1, in.maxLine+1,
-				fmt.Errorf("line longer than %d bytes skipped", in.maxLine))
+			in.tooLong(source, base+1)
 			n, skip = 0, true
 		}
 		in.publish()
@@ -155,13 +152,48 @@ func (in *Intake) Read(ctx context.Context, source string, r io.Reader) error {
 		return fmt.Errorf("stream: %s: %w", source, readErr)
 	}
 	if n > 0 && !skip { // last line without a newline
-		if err := in.decode(source, base, buf[:n]); err != nil {
+		if _, err := in.decodeLines(source, base, buf[:n]); err != nil {
 			in.publish()
 			return err
 		}
 	}
 	in.publish()
 	return nil
+}
+
+// decodeLines decodes whole (complete lines, the first being line base+1),
+// skipping and reporting lines longer than MaxLineBytes. It returns the
+// number of lines read so far.
+func (in *Intake) decodeLines(source string, base int64, whole []byte) (int64, error) {
+	seg, segBase, line := 0, base, base
+	for off := 0; off < len(whole); line++ {
+		i := bytes.IndexByte(whole[off:], '\n')
+		if i < 0 {
+			i = len(whole) - off
+		}
+		if i > in.maxLine {
+			if off > seg {
+				if err := in.decode(source, segBase, whole[seg:off]); err != nil {
+					return line, err
+				}
+			}
+			in.tooLong(source, line+1)
+			seg, segBase = off+i+1, line+1
+		}
+		off += i + 1
+	}
+	if seg < len(whole) {
+		if err := in.decode(source, segBase, whole[seg:]); err != nil {
+			return line, err
+		}
+	}
+	return line, nil
+}
+
+func (in *Intake) tooLong(source string, line int64) {
+	in.st.Lines++
+	in.src = source
+	in.reject(ReasonTooLong, line, in.maxLine+1, fmt.Errorf("line longer than %d bytes skipped", in.maxLine))
 }
 
 // InferPeriod estimates the frame period from a prefix of line protocol:
