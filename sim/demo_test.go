@@ -1,0 +1,171 @@
+package sim
+
+import (
+	"bytes"
+	"math"
+	"os"
+	"strings"
+	"testing"
+	"time"
+)
+
+// TestDemoCopyIdentical guards the rule that the embedded demo scenario and
+// the shipped configs/scenario-demo.yaml are the same file.
+func TestDemoCopyIdentical(t *testing.T) {
+	shipped, err := os.ReadFile("../configs/scenario-demo.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !bytes.Equal(shipped, DemoYAML) {
+		t.Fatal("configs/scenario-demo.yaml and sim/scenario-demo.yaml differ; copy one onto the other")
+	}
+}
+
+// TestDemoShape checks the demo against what it promises: 40–60 channels in
+// 3–4 units, 5–7 labelled faults of different kinds, 2–4 days at 10–30 s,
+// the first 24 h fault-free, each fault on few channels, and no two faults of
+// one unit overlapping (so a label names one cause).
+func TestDemoShape(t *testing.T) {
+	s, err := Demo()
+	if err != nil {
+		t.Fatal(err)
+	}
+	if n := len(s.Channels()); n < 40 || n > 60 {
+		t.Errorf("%d channels", n)
+	}
+	if n := len(s.Units); n < 3 || n > 4 {
+		t.Errorf("%d units", n)
+	}
+	if s.Duration < 48*time.Hour || s.Duration > 96*time.Hour || s.Period < 10*time.Second || s.Period > 30*time.Second {
+		t.Errorf("duration %v, period %v", s.Duration, s.Period)
+	}
+	if n := len(s.Episodes); n < 5 || n > 7 {
+		t.Errorf("%d episodes", n)
+	}
+	kinds := map[FaultKind]bool{}
+	for i, e := range s.Episodes {
+		kinds[e.Kind] = true
+		if e.Start.Before(s.Start.Add(24*time.Hour)) || e.End.After(s.End()) {
+			t.Errorf("%s: %v..%v outside [start+24h, end]", e.ID, e.Start, e.End)
+		}
+		if len(e.Channels) > 3 {
+			t.Errorf("%s: %d channels", e.ID, len(e.Channels))
+		}
+		for _, f := range s.Episodes[i+1:] {
+			if unitOf(e.Channels[0]) == unitOf(f.Channels[0]) && e.Start.Before(f.End) && f.Start.Before(e.End) {
+				t.Errorf("%s and %s overlap in unit %s", e.ID, f.ID, unitOf(e.Channels[0]))
+			}
+		}
+	}
+	if len(kinds) != len(s.Episodes) {
+		t.Errorf("%d kinds among %d episodes", len(kinds), len(s.Episodes))
+	}
+}
+
+func unitOf(ch string) string { return ch[:strings.IndexByte(ch, '.')] }
+
+// TestDemoFaultsDetectableNotTrivial runs the demo with and without its
+// faults. Detectable: each fault moves its channels by at least 3 noise σ
+// at some sample. Not trivial: for the slow kinds, at least 80 % of the
+// faulty values stay inside the range the channel spans in the fault-free
+// first day, so a plain high/low limit would not catch them.
+func TestDemoFaultsDetectableNotTrivial(t *testing.T) {
+	s, err := Demo()
+	if err != nil {
+		t.Fatal(err)
+	}
+	last := s.Start
+	for _, e := range s.Episodes {
+		if e.End.After(last) {
+			last = e.End
+		}
+	}
+	s.Duration = last.Sub(s.Start)
+	clean := s.Clone()
+	clean.Episodes = nil
+	infos := s.Channels()
+	idx := map[string]int{}
+	noise := make([]float64, len(infos))
+	k := 0
+	for _, u := range s.Units {
+		for _, a := range u.Assets {
+			for _, c := range a.Channels {
+				idx[infos[k].Name] = k
+				noise[k] = c.Noise
+				k++
+			}
+		}
+	}
+	lo, hi := make([]float64, len(infos)), make([]float64, len(infos))
+	for i := range lo {
+		lo[i], hi[i] = math.Inf(1), math.Inf(-1)
+	}
+	type acc struct{ maxDev, in, n float64 }
+	stats := make([]map[int]*acc, len(s.Episodes))
+	for i, e := range s.Episodes {
+		stats[i] = map[int]*acc{}
+		for _, c := range e.Channels {
+			stats[i][idx[c]] = &acc{}
+		}
+	}
+	g, _ := s.NewGenerator()
+	gc, _ := clean.NewGenerator()
+	day1 := s.Start.Add(24 * time.Hour)
+	for g.Step() && gc.Step() {
+		v, vc := g.Values(), gc.Values()
+		if g.Time().Before(day1) {
+			for i, x := range v {
+				if !math.IsNaN(x) {
+					lo[i], hi[i] = math.Min(lo[i], x), math.Max(hi[i], x)
+				}
+			}
+			continue
+		}
+		for i, e := range s.Episodes {
+			if g.Time().Before(e.Start) || !g.Time().Before(e.End) {
+				continue
+			}
+			for ci, a := range stats[i] {
+				if math.IsNaN(v[ci]) || math.IsNaN(vc[ci]) {
+					continue
+				}
+				a.maxDev = math.Max(a.maxDev, math.Abs(v[ci]-vc[ci]))
+				a.n++
+				if v[ci] >= lo[ci] && v[ci] <= hi[ci] {
+					a.in++
+				}
+			}
+		}
+	}
+	for i, e := range s.Episodes {
+		for ci, a := range stats[i] {
+			if a.maxDev < 3*noise[ci] {
+				t.Errorf("%s on %s: largest change %.3g < 3σ = %.3g", e.ID, infos[ci].Name, a.maxDev, 3*noise[ci])
+			}
+			switch e.Kind {
+			case Bias, Drift, Stuck, Relation, Effect:
+				if a.in < 0.8*a.n {
+					t.Errorf("%s on %s: only %.0f%% of faulty values inside the first day's range [%.3g, %.3g]",
+						e.ID, infos[ci].Name, 100*a.in/a.n, lo[ci], hi[ci])
+				}
+			}
+			t.Logf("%s %s: max change %.3g (%.1fσ), %.0f%% inside normal range", e.ID, infos[ci].Name, a.maxDev, a.maxDev/noise[ci], 100*a.in/a.n)
+		}
+	}
+}
+
+// TestLargeScenario: the performance scenario has 1,000 channels and loads.
+func TestLargeScenario(t *testing.T) {
+	s, err := Load("../configs/scenario-large.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	if n := len(s.Channels()); n != 1000 {
+		t.Errorf("%d channels, want 1000", n)
+	}
+	// A short stretch generates and encodes without error.
+	s.Duration = 10 * s.Period
+	if err := s.WriteLineProtocol(&bytes.Buffer{}); err != nil {
+		t.Fatal(err)
+	}
+}
