@@ -1,0 +1,327 @@
+package tracker
+
+import (
+	"encoding/binary"
+	"errors"
+	"fmt"
+	"hash/crc32"
+	"hash/fnv"
+	"math"
+)
+
+// ErrCheckpoint reports a checkpoint that cannot be restored.
+var ErrCheckpoint = errors.New("tracker: bad checkpoint")
+
+// Checkpoint format, version 1. All integers and floats little-endian:
+//
+//	"MWTK" | u16 version | u32 p | u64 config fingerprint (FNV-1a)
+//	u8 flags (1 ready, 2 frozen, 4 baseline, 8 calibrated)
+//	u64 frames | u64 learned | u32 since
+//	EW:    f64 μ | p × f64 mean | p × f64 variance | p × f64 count | p × f64 Σw²
+//	       p(p+1)/2 × f64 covariance (upper triangle by rows)
+//	       u32 nb | nb × f64 α | nb·p × f64 buffered deviations
+//	flat:  p × f64 last value | p × u32 run length
+//	model: p × u8 included | f64 n_eff | p(p+1)/2 × f64 correlation A (upper)
+//	       (model present only when ready)
+//	cal:   6 × f64 (T², SPE, φ limits and their scales)
+//	modes: u32 n | n bytes of modes.Tracker.MarshalBinary
+//	u32 CRC-32 (IEEE) of everything before
+//
+// The model snapshot (loadings, limits, per-channel data) is recomputed on
+// restore from A and the restored modes by the same code as at the refresh,
+// so it is bit-identical.
+const (
+	ckMagic   = "MWTK"
+	ckVersion = 1
+)
+
+// fingerprint hashes the configuration fields that shape the state.
+func (t *Tracker) fingerprint() uint64 {
+	h := fnv.New64a()
+	c := t.cfg
+	fmt.Fprintf(h, "%d|%d|%v|%d|%d|%d|%d|%d|%d|%v|%d|%d|%v|%d|",
+		c.Period, c.HalfLife, c.Alpha, c.RefreshEvery, c.WarmUp, c.Batch, c.T2Limit, c.SPELimit, c.RBCIndex,
+		c.StuckRel, c.FlatFrames, c.TopContrib, c.Ridge, c.PatternCache)
+	mc := t.ms.Config()
+	fmt.Fprintf(h, "%d|%v|%d|%d|%v|%d|%d|%d|%d|%d|%v|", mc.Count, mc.Share, mc.MaxCount, mc.Deflation,
+		mc.Tol, mc.MaxIter, mc.ColdEvery, mc.Start, mc.Refit, mc.EpsStages, mc.MatchMin)
+	for _, s := range mc.Sparsity {
+		fmt.Fprintf(h, "%s;", s)
+	}
+	return h.Sum64()
+}
+
+// MarshalBinary writes the whole tracker state (statistics, batch buffer,
+// learning state, model, empirical limits and the modes) in the versioned
+// binary form above. It does not change the tracker.
+func (t *Tracker) MarshalBinary() ([]byte, error) {
+	mb, err := t.ms.MarshalBinary()
+	if err != nil {
+		return nil, fmt.Errorf("tracker: checkpoint: %w", err)
+	}
+	p := t.p
+	e := t.ew
+	b := make([]byte, 0, 64+8*(p*p+p*(10+e.capB))+len(mb))
+	le := binary.LittleEndian
+	f64 := func(v float64) { b = le.AppendUint64(b, math.Float64bits(v)) }
+	b = append(b, ckMagic...)
+	b = le.AppendUint16(b, ckVersion)
+	b = le.AppendUint32(b, uint32(p))
+	b = le.AppendUint64(b, t.fingerprint())
+	var flags byte
+	for i, f := range []bool{t.ready, t.frozen, t.baseline, t.cal} {
+		if f {
+			flags |= 1 << i
+		}
+	}
+	b = append(b, flags)
+	b = le.AppendUint64(b, t.frames)
+	b = le.AppendUint64(b, t.learned)
+	b = le.AppendUint32(b, uint32(t.since))
+	f64(e.mu)
+	for _, s := range [][]float64{e.mean, e.vari, e.count, e.sumW2} {
+		for _, v := range s {
+			f64(v)
+		}
+	}
+	for i := 0; i < p; i++ {
+		for _, v := range e.cov.Data[i*p+i : i*p+p] {
+			f64(v)
+		}
+	}
+	b = le.AppendUint32(b, uint32(e.nb))
+	for _, v := range e.alphas[:e.nb] {
+		f64(v)
+	}
+	for _, v := range e.rows[:e.nb*p] {
+		f64(v)
+	}
+	for _, v := range t.last {
+		f64(v)
+	}
+	for _, v := range t.run {
+		b = le.AppendUint32(b, uint32(v))
+	}
+	if t.ready {
+		m := t.mdl
+		for _, in := range m.include {
+			if in {
+				b = append(b, 1)
+			} else {
+				b = append(b, 0)
+			}
+		}
+		f64(m.nEff)
+		a := m.a.RawSymmetric()
+		for i := 0; i < p; i++ {
+			for _, v := range a.Data[i*a.Stride+i : i*a.Stride+p] {
+				f64(v)
+			}
+		}
+	}
+	for _, v := range []float64{t.calT2, t.calSPE, t.calPhi, t.calScale[0], t.calScale[1], t.calScale[2]} {
+		f64(v)
+	}
+	b = le.AppendUint32(b, uint32(len(mb)))
+	b = append(b, mb...)
+	b = le.AppendUint32(b, crc32.ChecksumIEEE(b))
+	return b, nil
+}
+
+type ckReader struct {
+	b   []byte
+	off int
+	err error
+	at  string
+}
+
+func (r *ckReader) need(n int, what string) bool {
+	if r.err != nil {
+		return false
+	}
+	if n < 0 || r.off+n > len(r.b) {
+		r.err = fmt.Errorf("truncated at byte %d reading %s", r.off, what)
+		return false
+	}
+	return true
+}
+
+func (r *ckReader) u8(what string) byte {
+	if !r.need(1, what) {
+		return 0
+	}
+	r.off++
+	return r.b[r.off-1]
+}
+
+func (r *ckReader) u32(what string) uint32 {
+	if !r.need(4, what) {
+		return 0
+	}
+	r.off += 4
+	return binary.LittleEndian.Uint32(r.b[r.off-4:])
+}
+
+func (r *ckReader) u64(what string) uint64 {
+	if !r.need(8, what) {
+		return 0
+	}
+	r.off += 8
+	return binary.LittleEndian.Uint64(r.b[r.off-8:])
+}
+
+func (r *ckReader) f64(what string) float64 { return math.Float64frombits(r.u64(what)) }
+
+func (r *ckReader) floats(dst []float64, what string) {
+	if !r.need(8*len(dst), what) {
+		return
+	}
+	for i := range dst {
+		dst[i] = r.f64(what)
+	}
+}
+
+// UnmarshalBinary restores a state written by MarshalBinary into a tracker
+// made by New with the same number of channels and the same Config. The
+// data is checked completely (length, checksum, version, channel count,
+// configuration, values) before anything changes; on an error wrapping
+// ErrCheckpoint the tracker is unchanged. Feeding the restored tracker the
+// same frames gives bit-identical scores.
+func (t *Tracker) UnmarshalBinary(data []byte) error {
+	bad := func(format string, a ...any) error {
+		return fmt.Errorf("%w: %s", ErrCheckpoint, fmt.Sprintf(format, a...))
+	}
+	if len(data) < 4+2+4+8+4 {
+		return bad("%d bytes is too short for a tracker checkpoint", len(data))
+	}
+	if string(data[:4]) != ckMagic {
+		return bad("not a tracker checkpoint (magic %q)", data[:4])
+	}
+	if v := binary.LittleEndian.Uint16(data[4:]); v != ckVersion {
+		return bad("version %d, this build reads version %d", v, ckVersion)
+	}
+	body := data[:len(data)-4]
+	if crc32.ChecksumIEEE(body) != binary.LittleEndian.Uint32(data[len(data)-4:]) {
+		return bad("checksum mismatch: the checkpoint is truncated or corrupt (%d bytes)", len(data))
+	}
+	r := &ckReader{b: body, off: 6}
+	p := int(r.u32("channel count"))
+	if r.err == nil && p != t.p {
+		return bad("written for %d channels, this tracker has %d", p, t.p)
+	}
+	if fp := r.u64("config fingerprint"); r.err == nil && fp != t.fingerprint() {
+		return bad("written with a different configuration (fingerprint %016x, this tracker %016x)", fp, t.fingerprint())
+	}
+	flags := r.u8("flags")
+	frames := r.u64("frame count")
+	learned := r.u64("learned count")
+	since := int(r.u32("frames since refresh"))
+	mu := r.f64("forgetting factor")
+	if r.err == nil && mu != t.ew.mu {
+		return bad("forgetting factor %v differs from this tracker's %v", mu, t.ew.mu)
+	}
+	mean, vari, count, sumW2 := make([]float64, p), make([]float64, p), make([]float64, p), make([]float64, p)
+	r.floats(mean, "means")
+	r.floats(vari, "variances")
+	r.floats(count, "counts")
+	r.floats(sumW2, "Kish sums")
+	cov := make([]float64, p*(p+1)/2)
+	r.floats(cov, "covariance")
+	nb := int(r.u32("batch length"))
+	if r.err == nil && (nb < 0 || nb > t.ew.capB) {
+		return bad("batch of %d frames exceeds the buffer of %d", nb, t.ew.capB)
+	}
+	alphas := make([]float64, nb)
+	r.floats(alphas, "batch steps")
+	rows := make([]float64, nb*p)
+	r.floats(rows, "batch rows")
+	last := make([]float64, p)
+	r.floats(last, "last values")
+	run := make([]int, p)
+	for i := range run {
+		run[i] = int(r.u32("run lengths"))
+	}
+	ready := flags&1 != 0
+	include := make([]bool, p)
+	var nEff float64
+	var a []float64
+	if ready {
+		for i := range include {
+			include[i] = r.u8("model channels") == 1
+		}
+		nEff = r.f64("effective sample size")
+		a = make([]float64, p*(p+1)/2)
+		r.floats(a, "correlation")
+	}
+	var cal [6]float64
+	r.floats(cal[:], "empirical limits")
+	nm := int(r.u32("modes length"))
+	var mb []byte
+	if r.need(nm, "modes") {
+		mb = r.b[r.off : r.off+nm]
+		r.off += nm
+	}
+	if r.err != nil {
+		return bad("%v", r.err)
+	}
+	if r.off != len(body) {
+		return bad("%d unexpected trailing bytes", len(body)-r.off)
+	}
+	for name, s := range map[string][]float64{"mean": mean, "variance": vari, "count": count, "covariance": cov, "correlation": a} {
+		for i, v := range s {
+			if math.IsNaN(v) || math.IsInf(v, 0) {
+				return bad("%s value %d is %v", name, i, v)
+			}
+		}
+	}
+	for i, v := range vari {
+		if v < 0 {
+			return bad("variance of channel %d is negative (%v)", i, v)
+		}
+	}
+	// Everything checked; the modes validate themselves before changing.
+	if err := t.ms.UnmarshalBinary(mb); err != nil {
+		return fmt.Errorf("%w: %w", ErrCheckpoint, err)
+	}
+	if ready && t.ms.Count() == 0 {
+		return bad("the model is marked ready but the modes section holds no modes")
+	}
+	e := t.ew
+	copy(e.mean, mean)
+	copy(e.vari, vari)
+	copy(e.count, count)
+	copy(e.sumW2, sumW2)
+	k := 0
+	for i := 0; i < p; i++ {
+		for j := i; j < p; j++ {
+			e.cov.Data[i*p+j] = cov[k]
+			k++
+		}
+	}
+	e.nb = nb
+	copy(e.alphas, alphas)
+	copy(e.rows, rows)
+	copy(t.last, last)
+	copy(t.run, run)
+	t.frames, t.learned = frames, learned
+	t.frozen, t.baseline = flags&2 != 0, flags&4 != 0
+	t.ready = false
+	if ready {
+		m := t.mdl
+		copy(m.include, include)
+		raw := m.a.RawSymmetric()
+		k = 0
+		for i := 0; i < p; i++ {
+			for j := i; j < p; j++ {
+				raw.Data[i*raw.Stride+j] = a[k]
+				k++
+			}
+		}
+		t.install(nEff)
+	}
+	t.since = since
+	t.cal = flags&8 != 0
+	t.calT2, t.calSPE, t.calPhi = cal[0], cal[1], cal[2]
+	t.calScale = [3]float64{cal[3], cal[4], cal[5]}
+	return nil
+}

@@ -1,0 +1,159 @@
+package tracker
+
+import (
+	"bytes"
+	"encoding/binary"
+	"errors"
+	"math"
+	"testing"
+	"time"
+
+	"modewatch/tracker/modes"
+)
+
+func sameScore(a, b *Score) bool {
+	eq := func(x, y float64) bool { return math.Float64bits(x) == math.Float64bits(y) }
+	if a.Ready != b.Ready || a.State != b.State || len(a.Contrib) != len(b.Contrib) || len(a.Missing) != len(b.Missing) ||
+		len(a.Excluded) != len(b.Excluded) || a.Frame != b.Frame {
+		return false
+	}
+	for _, p := range [][2]float64{{a.T2, b.T2}, {a.SPE, b.SPE}, {a.Phi, b.Phi}, {a.T2Limit, b.T2Limit},
+		{a.SPELimit, b.SPELimit}, {a.PhiLimit, b.PhiLimit}, {a.NEff, b.NEff}} {
+		if !eq(p[0], p[1]) {
+			return false
+		}
+	}
+	for i := range a.Contrib {
+		x, y := a.Contrib[i], b.Contrib[i]
+		if x.Channel != y.Channel || !eq(x.RBC, y.RBC) || !eq(x.RBCLimit, y.RBCLimit) || !eq(x.SPEContrib, y.SPEContrib) ||
+			!eq(x.T2Contrib, y.T2Contrib) || len(x.Modes) != len(y.Modes) {
+			return false
+		}
+	}
+	return true
+}
+
+// Checkpoint round trip: restoring the state and feeding the same frames
+// gives bit-identical scores, across batches, refreshes, missing frames and
+// a freeze; a truncated, corrupt, wrong-version or foreign checkpoint is a
+// clear error and leaves the tracker unchanged.
+func TestCheckpointRoundTrip(t *testing.T) {
+	const p = 12
+	cfg := Config{Period: time.Second, HalfLife: 10 * time.Minute, WarmUp: 60, RefreshEvery: 16, Batch: 5,
+		Modes: modes.Config{Count: 3, Sparsity: []modes.Sparsity{{Method: modes.L0, K: 5}}}}
+	tr, src := newStream(t, p, cfg)
+	xs := src.frames(600, p)
+	miss := make([]bool, p)
+	miss[3] = true
+	step := func(tr *Tracker, k int, sc *Score) {
+		var m []bool
+		if k%37 == 0 {
+			m = miss
+		}
+		if k == 400 {
+			tr.Freeze()
+		}
+		if k == 430 {
+			tr.Thaw()
+		}
+		if err := tr.Step(sc, xs[k], m); err != nil {
+			t.Fatal(err)
+		}
+	}
+	var sc Score
+	for k := 0; k < 203; k++ { // mid-batch, between refreshes
+		step(tr, k, &sc)
+	}
+	ck, err := tr.MarshalBinary()
+	if err != nil {
+		t.Fatal(err)
+	}
+	want := make([]Score, 0, 397)
+	for k := 203; k < 600; k++ {
+		step(tr, k, &sc)
+		c := sc
+		c.Contrib = append([]Contribution(nil), sc.Contrib...)
+		want = append(want, c)
+	}
+	re, err := New(p, cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := re.UnmarshalBinary(ck); err != nil {
+		t.Fatal(err)
+	}
+	for k := 203; k < 600; k++ {
+		step(re, k, &sc)
+		if !sameScore(&sc, &want[k-203]) {
+			t.Fatalf("frame %d: restored score differs:\n got %+v\nwant %+v", k, sc, want[k-203])
+		}
+	}
+	ck2, _ := re.MarshalBinary()
+	ck3, _ := tr.MarshalBinary()
+	if !bytes.Equal(ck2, ck3) {
+		t.Error("checkpoints of the original and the restored tracker differ after the same frames")
+	}
+
+	// Bad checkpoints.
+	fresh, _ := New(p, cfg)
+	before, _ := fresh.MarshalBinary()
+	wrongVer := bytes.Clone(ck)
+	binary.LittleEndian.PutUint16(wrongVer[4:], 99)
+	corrupt := bytes.Clone(ck)
+	corrupt[len(corrupt)/2] ^= 0x40
+	other, _ := New(p, Config{Period: time.Second, HalfLife: 5 * time.Minute, WarmUp: 60, RefreshEvery: 16, Batch: 5,
+		Modes: modes.Config{Count: 3, Sparsity: []modes.Sparsity{{Method: modes.L0, K: 5}}}})
+	small, _ := New(p-1, cfg)
+	for name, c := range map[string]struct {
+		tr   *Tracker
+		data []byte
+	}{
+		"truncated":     {fresh, ck[:len(ck)-100]},
+		"truncated2":    {fresh, ck[:10]},
+		"empty":         {fresh, nil},
+		"corrupt":       {fresh, corrupt},
+		"wrong version": {fresh, wrongVer},
+		"not ours":      {fresh, []byte("MWMD0123456789abcdefghij")},
+		"other config":  {other, ck},
+		"other width":   {small, ck},
+	} {
+		err := c.tr.UnmarshalBinary(c.data)
+		if !errors.Is(err, ErrCheckpoint) {
+			t.Errorf("%s: want ErrCheckpoint, got %v", name, err)
+			continue
+		}
+		t.Logf("%s: %v", name, err)
+	}
+	after, _ := fresh.MarshalBinary()
+	if !bytes.Equal(before, after) {
+		t.Error("a rejected checkpoint changed the tracker")
+	}
+}
+
+// A fitted, calibrated baseline survives a checkpoint.
+func TestCheckpointBaseline(t *testing.T) {
+	const p = 8
+	tr, src := newStream(t, p, Config{Modes: modes.Config{Count: 2}})
+	if err := tr.Fit(src.frames(500, p)); err != nil {
+		t.Fatal(err)
+	}
+	if err := tr.Calibrate(src.frames(300, p)); err != nil {
+		t.Fatal(err)
+	}
+	ck, err := tr.MarshalBinary()
+	if err != nil {
+		t.Fatal(err)
+	}
+	re, _ := New(p, Config{Modes: modes.Config{Count: 2}})
+	if err := re.UnmarshalBinary(ck); err != nil {
+		t.Fatal(err)
+	}
+	var a, b Score
+	for _, x := range src.frames(50, p) {
+		tr.Step(&a, x, nil)
+		re.Step(&b, x, nil)
+		if !sameScore(&a, &b) || !b.Calibrated || b.State != StateBaseline {
+			t.Fatalf("baseline restore differs: %+v vs %+v", a, b)
+		}
+	}
+}
