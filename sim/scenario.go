@@ -335,8 +335,21 @@ func (s *Scenario) check() error {
 				return fmt.Errorf("sim: episode %s: unknown channel %s", e.ID, c)
 			}
 		}
-		if (e.Kind == Relation || e.Kind == Effect) && s.driverIndex(e.Driver) < 0 {
+		known := false
+		for _, k := range faultKinds {
+			known = known || k == e.Kind
+		}
+		switch {
+		case !known:
+			return fmt.Errorf("sim: episode %s: unknown kind %q", e.ID, e.Kind)
+		case (e.Kind == Relation || e.Kind == Effect) && s.driverIndex(e.Driver) < 0:
 			return fmt.Errorf("sim: episode %s: unknown driver %s", e.ID, e.Driver)
+		case e.Kind == Noise && !(e.Factor > 1):
+			return fmt.Errorf("sim: episode %s: noise factor must be > 1", e.ID)
+		case e.Kind == Spikes && !(e.Rate > 0):
+			return fmt.Errorf("sim: episode %s: spike rate must be > 0", e.ID)
+		case e.Ramp < 0:
+			return fmt.Errorf("sim: episode %s: ramp must be ≥ 0", e.ID)
 		}
 	}
 	return nil
