@@ -247,7 +247,7 @@ func (a *Aligner) Advance(t int64) (bool, error) {
 	if k > a.maxK {
 		a.maxK = k
 	}
-	a.cur = &a.ring[int(k%int64(len(a.ring)))]
+	a.cur = a.slot(k)
 	a.curT = t
 	return true, nil
 }
@@ -287,10 +287,16 @@ func (a *Aligner) Add(c int, t time.Time, v float64) (bool, error) {
 	return true, nil
 }
 
+// slot returns the ring slot of frame k (k may be negative: before 1970).
+func (a *Aligner) slot(k int64) *slot {
+	n := int64(len(a.ring))
+	return &a.ring[int((k%n+n)%n)]
+}
+
 // emit hands frame a.next to the handler.
 func (a *Aligner) emit() error {
 	k := a.next
-	s := &a.ring[int(k%int64(len(a.ring)))]
+	s := a.slot(k)
 	end := (k + 1) * a.per
 	f := &a.frame
 	for c := 0; c < a.p; c++ {
