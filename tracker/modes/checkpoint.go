@@ -5,13 +5,16 @@ import (
 	"fmt"
 	"hash/crc32"
 	"math"
+	"slices"
 )
 
 // Checkpoint format, version 1 (all integers and floats little-endian):
 //
 //	"MWMD" | u16 version | u32 p | u32 r | u64 nextID | u64 refreshes | f64 trace | u8 deflation
-//	r × { u64 id | u8 flags (1 converged, 2 cold) | u32 iterations | u32 refit iterations
-//	      | f64 deflated variance | f64 objective | f64 gap | u32 nnz | nnz × (u32 index, f64 loading) }
+//	r × { u64 id | u8 flags (1 converged, 2 cold, 4 warm start differs) | u32 iterations
+//	      | u32 refit iterations | f64 deflated variance | f64 objective | f64 gap
+//	      | sparse loadings | [flag 4: sparse warm start (the iterate before the refit)] }
+//	sparse vector: u32 nnz | nnz × (u32 index, f64 value), indices ascending, unit norm
 //	r(r+1)/2 × f64: VᵀAV, upper triangle by rows
 //	u32 CRC-32 (IEEE) of everything before
 const (
@@ -44,6 +47,9 @@ func (t *Tracker) MarshalBinary() ([]byte, error) {
 		if res.Cold {
 			flags |= 2
 		}
+		if !slices.Equal(s.x[j], s.pre[j]) {
+			flags |= 4
+		}
 		b = binary.LittleEndian.AppendUint64(b, uint64(s.id[j]))
 		b = append(b, flags)
 		b = binary.LittleEndian.AppendUint32(b, uint32(res.Iterations))
@@ -51,10 +57,9 @@ func (t *Tracker) MarshalBinary() ([]byte, error) {
 		b = binary.LittleEndian.AppendUint64(b, math.Float64bits(res.Variance))
 		b = binary.LittleEndian.AppendUint64(b, math.Float64bits(res.Objective))
 		b = binary.LittleEndian.AppendUint64(b, math.Float64bits(res.Gap))
-		b = binary.LittleEndian.AppendUint32(b, uint32(len(s.supp[j])))
-		for _, i := range s.supp[j] {
-			b = binary.LittleEndian.AppendUint32(b, uint32(i))
-			b = binary.LittleEndian.AppendUint64(b, math.Float64bits(s.x[j][i]))
+		b = appendSparse(b, s.x[j])
+		if flags&4 != 0 {
+			b = appendSparse(b, s.pre[j])
 		}
 	}
 	for i := 0; i < r; i++ {
@@ -118,7 +123,6 @@ func (t *Tracker) UnmarshalBinary(data []byte) error {
 		res := Result{Variance: d.f64(), Objective: d.f64(), Gap: d.f64(),
 			Iterations: int(it), RefitIterations: int(rit),
 			Converged: flags&1 != 0, Cold: flags&2 != 0}
-		nnz := int(d.u32())
 		if d.err != nil {
 			return bad("mode %d: %v", j+1, d.err)
 		}
@@ -130,32 +134,16 @@ func (t *Tracker) UnmarshalBinary(data []byte) error {
 				return bad("mode %d: id %d repeated", j+1, id)
 			}
 		}
-		if nnz > p || nnz == 0 {
-			return bad("mode %d: %d nonzero loadings for p = %d", j+1, nnz, p)
+		var err error
+		if s.supp[j], err = d.sparse(s.x[j], s.supp[j][:0]); err != nil {
+			return bad("mode %d: loadings: %v", j+1, err)
 		}
-		x := s.x[j]
-		for i := range x {
-			x[i] = 0
-		}
-		s.supp[j] = s.supp[j][:0]
-		var norm float64
-		for k := 0; k < nnz; k++ {
-			i, v := int(d.u32()), d.f64()
-			if d.err != nil {
-				return bad("mode %d: loading %d: %v", j+1, k, d.err)
+		if flags&4 != 0 {
+			if t.bpreS, err = d.sparse(s.pre[j], t.bpreS[:0]); err != nil {
+				return bad("mode %d: warm start: %v", j+1, err)
 			}
-			if i >= p || (k > 0 && i <= s.supp[j][k-1]) {
-				return bad("mode %d: loading %d: index %d out of order or range", j+1, k, i)
-			}
-			if math.IsNaN(v) || math.IsInf(v, 0) || v == 0 {
-				return bad("mode %d: loading %d: value %g", j+1, k, v)
-			}
-			x[i] = v
-			s.supp[j] = append(s.supp[j], i)
-			norm += v * v
-		}
-		if math.Abs(norm-1) > 1e-9 {
-			return bad("mode %d: loadings have squared norm %g, want 1", j+1, norm)
+		} else {
+			copy(s.pre[j], s.x[j])
 		}
 		s.id[j] = int(id)
 		s.res[j] = res
@@ -241,3 +229,56 @@ func (d *decoder) u64() uint64 {
 }
 
 func (d *decoder) f64() float64 { return math.Float64frombits(d.u64()) }
+
+func appendSparse(b []byte, x []float64) []byte {
+	n := 0
+	for _, v := range x {
+		if v != 0 {
+			n++
+		}
+	}
+	b = binary.LittleEndian.AppendUint32(b, uint32(n))
+	for i, v := range x {
+		if v != 0 {
+			b = binary.LittleEndian.AppendUint32(b, uint32(i))
+			b = binary.LittleEndian.AppendUint64(b, math.Float64bits(v))
+		}
+	}
+	return b
+}
+
+// sparse reads a sparse unit vector into dst (length p, zeroed here) and
+// appends its indices to supp.
+func (d *decoder) sparse(dst []float64, supp []int) ([]int, error) {
+	p := len(dst)
+	for i := range dst {
+		dst[i] = 0
+	}
+	nnz := int(d.u32())
+	if d.err != nil {
+		return supp, d.err
+	}
+	if nnz > p || nnz == 0 {
+		return supp, fmt.Errorf("%d nonzero entries for p = %d", nnz, p)
+	}
+	var norm float64
+	for k := 0; k < nnz; k++ {
+		i, v := int(d.u32()), d.f64()
+		if d.err != nil {
+			return supp, fmt.Errorf("entry %d: %w", k, d.err)
+		}
+		if i >= p || (k > 0 && i <= supp[len(supp)-1]) {
+			return supp, fmt.Errorf("entry %d: index %d out of order or range", k, i)
+		}
+		if math.IsNaN(v) || math.IsInf(v, 0) || v == 0 {
+			return supp, fmt.Errorf("entry %d: value %g", k, v)
+		}
+		dst[i] = v
+		supp = append(supp, i)
+		norm += v * v
+	}
+	if math.Abs(norm-1) > 1e-9 {
+		return supp, fmt.Errorf("squared norm %g, want 1", norm)
+	}
+	return supp, nil
+}

@@ -134,3 +134,87 @@ func sameInts(a, b []int) bool {
 	}
 	return true
 }
+
+// spiked is a spiked sparse covariance model: r latent factors, factor f
+// driving the k channels supports[f] with unit loadings v_f, plus unit
+// white noise:
+//
+//	x = Σ_f √θ_f z_f v_f + e,  z_f, e_i ~ N(0, 1),  Cov x = I + Σ_f θ_f v_f v_fᵀ
+//
+// θ_f is the spike strength (signal-to-noise ratio of the factor: its
+// variance along v_f over the noise variance 1).
+type spiked struct {
+	a        *mat.SymDense
+	supports [][]int
+	loadings [][]float64
+}
+
+// newSpiked draws the supports (disjoint, seeded) and loadings (random
+// signs, magnitudes uniform in [0.5, 1], normalised). With n > 0, a is the
+// sample covariance (1/n)Σxxᵀ of n draws (zero mean known); with n = 0 it is
+// the population covariance.
+func newSpiked(rng *rand.Rand, p, k int, theta []float64, n int) spiked {
+	perm := rng.Perm(p)
+	var m spiked
+	for f := range theta {
+		supp := append([]int(nil), perm[f*k:(f+1)*k]...)
+		sortInts(supp)
+		v := make([]float64, p)
+		var s float64
+		for _, i := range supp {
+			v[i] = 0.5 + 0.5*rng.Float64()
+			if rng.IntN(2) == 0 {
+				v[i] = -v[i]
+			}
+			s += v[i] * v[i]
+		}
+		for _, i := range supp {
+			v[i] /= math.Sqrt(s)
+		}
+		m.supports = append(m.supports, supp)
+		m.loadings = append(m.loadings, v)
+	}
+	m.a = mat.NewSymDense(p, nil)
+	if n == 0 {
+		for i := 0; i < p; i++ {
+			m.a.SetSym(i, i, 1)
+		}
+		for f, v := range m.loadings {
+			m.a.SymRankOne(m.a, theta[f], mat.NewVecDense(p, v))
+		}
+		return m
+	}
+	x := make([]float64, p)
+	xs := mat.NewVecDense(p, x)
+	for s := 0; s < n; s++ {
+		for i := range x {
+			x[i] = rng.NormFloat64()
+		}
+		for f, v := range m.loadings {
+			z := math.Sqrt(theta[f]) * rng.NormFloat64()
+			for _, i := range m.supports[f] {
+				x[i] += z * v[i]
+			}
+		}
+		m.a.SymRankOne(m.a, 1/float64(n), xs)
+	}
+	return m
+}
+
+// spikedCov returns the covariance of a spiked model with r factors of
+// strength theta on k channels each (population if n = 0).
+func spikedCov(rng *rand.Rand, p, r, k int, theta float64, n int) *mat.SymDense {
+	th := make([]float64, r)
+	for i := range th {
+		th[i] = theta * float64(r-i)
+	}
+	return newSpiked(rng, p, k, th, n).a
+}
+
+func sortInts(s []int) {
+	for i := 1; i < len(s); i++ {
+		for j := i; j > 0 && s[j] < s[j-1]; j-- {
+			s[j], s[j-1] = s[j-1], s[j]
+		}
+	}
+}

@@ -38,6 +38,11 @@ const (
 	// StartDense starts from the leading eigenvector of A, computed by the
 	// power method from StartColumn.
 	StartDense
+	// StartIndex starts from the unit vector e_i*, i* the index of the
+	// column of A with the largest norm. In the factor form A = BᵀB this is
+	// the start z⁰ = b_i*/‖b_i*‖ of the GPower code of Journée et al. (2010),
+	// used for the ℓ0-penalised Pitprops check values (SPARSE_PCA.md §7.4).
+	StartIndex
 )
 
 // Refit selects whether the loadings are replaced, after the sparse solve, by
@@ -99,7 +104,9 @@ type Result struct {
 	// Variance is xᵀAx of the returned unit loadings (after any refit).
 	Variance float64
 	// Objective is F(x) of the sparse problem at the solver's final iterate,
-	// before any refit (xᵀAx for Dense, L0 and L1).
+	// before any refit (xᵀAx for Dense, L0 and L1). In the degenerate ℓ1 case
+	// where the maximiser lies inside the unit ball, Objective is its value
+	// and the loadings are its direction, normalised.
 	Objective float64
 	// Card is the number of nonzero loadings.
 	Card int
@@ -126,6 +133,8 @@ type Workspace struct {
 
 	x, u, c   []float64
 	xs, us    []int // supports of x and u (ascending)
+	pre       []float64
+	preS      []int
 	heap      []int
 	sorted    []float64
 	cn        []float64 // column norms² of the current deflated matrix
@@ -146,6 +155,8 @@ func newWorkspace(p, maxDefl int) *Workspace {
 		x:      make([]float64, p),
 		u:      make([]float64, p),
 		c:      make([]float64, p),
+		pre:    make([]float64, p),
+		preS:   make([]int, 0, p),
 		xs:     make([]int, 0, p),
 		us:     make([]int, 0, p),
 		heap:   make([]int, 0, p),
@@ -195,9 +206,9 @@ func Solve(dst []float64, a *mat.SymDense, sp Sparsity, opt *Options, ws *Worksp
 		if len(opt.Warm) != p {
 			panic("modes: Solve warm start length mismatch")
 		}
-		res, err = ws.solve(sp, opt, opt.Warm, false)
+		res, err = ws.solve(sp, opt, opt.Warm, false, nil, nil)
 	} else {
-		res, err = ws.solve(sp, opt, nil, true)
+		res, err = ws.solve(sp, opt, nil, true, nil, nil)
 	}
 	if err != nil {
 		return Result{}, err
@@ -244,9 +255,12 @@ var errEmptyOperator = fmt.Errorf("%w: no variance left", ErrZeroMatrix)
 
 // solve runs one mode on the current operator. With cold, ws.cn must hold
 // the column norms² of the current (deflated) matrix. warm, if not nil, is
-// the start. On success ws.x holds the sign-fixed unit loadings, ws.xs its
-// support and ws.c = A_t x.
-func (ws *Workspace) solve(sp Sparsity, opt *Options, warm []float64, cold bool) (Result, error) {
+// the start. refitFrom (support refitSupp), if not nil, starts the refit
+// when the solver ends on that same support. On success ws.x holds the
+// sign-fixed unit loadings, ws.xs its support, ws.c = A_t x, and ws.pre,
+// ws.preS the solver's final iterate before the refit (the warm start for
+// the next solve).
+func (ws *Workspace) solve(sp Sparsity, opt *Options, warm []float64, cold bool, refitFrom []float64, refitSupp []int) (Result, error) {
 	res := Result{Gap: math.NaN(), Cold: cold}
 	tol, maxIter := opt.tol(), opt.maxIter()
 	if !cold {
@@ -289,12 +303,20 @@ func (ws *Workspace) solve(sp Sparsity, opt *Options, warm []float64, cold bool)
 		for i := range ws.e {
 			ws.e[i] = 0
 		}
-		ws.e[best] = 1
-		ws.us = append(ws.us[:0], best)
-		ws.op.apply(ws.x, ws.e, ws.us)
-		ws.e[best] = 0
-		if !ws.normalizeX() {
-			return res, errEmptyOperator
+		if start == StartIndex {
+			for i := range ws.x {
+				ws.x[i] = 0
+			}
+			ws.x[best] = 1
+			ws.xs = append(ws.xs[:0], best)
+		} else {
+			ws.e[best] = 1
+			ws.us = append(ws.us[:0], best)
+			ws.op.apply(ws.x, ws.e, ws.us)
+			ws.e[best] = 0
+			if !ws.normalizeX() {
+				return res, errEmptyOperator
+			}
 		}
 		if start == StartDense {
 			st, err := ws.iterate(Sparsity{}, 0, tol, maxIter, nil)
@@ -334,6 +356,12 @@ func (ws *Workspace) solve(sp Sparsity, opt *Options, warm []float64, cold bool)
 		}
 	}
 	res.Objective, res.Gap, res.Converged = st.obj, st.gap, st.converged
+	// Loadings are unit vectors. Only the degenerate ℓ1 tie case ends inside
+	// the ball ((s/m₁)·sign(c) on m₁ tied entries); Objective keeps the
+	// constrained value, the loadings keep the direction.
+	ws.normalizeX()
+	copy(ws.pre, ws.x)
+	ws.preS = append(ws.preS[:0], ws.xs...)
 	refit := opt != nil && opt.Refit == RefitAlways
 	if opt == nil || opt.Refit == RefitAuto {
 		switch sp.Method {
@@ -342,12 +370,21 @@ func (ws *Workspace) solve(sp Sparsity, opt *Options, warm []float64, cold bool)
 		}
 	}
 	if refit {
+		if refitFrom != nil && slices.Equal(ws.xs, refitSupp) {
+			// Same support as last time: the previous eigenvector of the
+			// block is the better start for the power iteration.
+			for _, i := range ws.xs {
+				ws.x[i] = refitFrom[i]
+			}
+			ws.normalizeX()
+		}
 		n, conv, err := ws.refit(tol, maxIter)
 		res.RefitIterations = n
 		res.Converged = res.Converged && conv
 		if err != nil {
 			return res, err
 		}
+		ws.normalizeX() // drops loadings the refit set to exactly 0
 	}
 	ws.fixSign()
 	// c = A_t x for the final loadings (the caller deflates with it).
@@ -799,30 +836,36 @@ func (ws *Workspace) l1Step(s float64) (float64, bool) {
 		}
 		return s * a[0], true
 	}
-	var s1, s2, lambda float64
+	// t1 = Σ_{i<m}(a_i − b), t2 = Σ_{i<m}(a_i − b)² for the current boundary
+	// b, updated as b moves down by δ ≥ 0 with nonnegative terms only
+	// (t2 += 2δ·t1 + mδ², t1 += mδ), so near-ties do not cancel.
+	var t1, t2, lambda float64
 	found := false
+	b := a[0]
 	for m := 1; m <= p; m++ {
-		s1 += a[m-1]
-		s2 += a[m-1] * a[m-1]
-		b := 0.0
+		next := 0.0
 		if m < p {
-			b = a[m]
-			if b == a[m-1] {
-				continue // λ = b would not separate the m largest
-			}
+			next = a[m]
 		}
+		delta := b - next
 		fm := float64(m)
-		l1 := s1 - fm*b
-		l2 := math.Sqrt(math.Max(s2-2*b*s1+fm*b*b, 0))
-		if l1 >= s*l2 {
-			// ρ(b) ≥ s ≥ ρ(a_m⁻): the root is on this segment.
+		t2 += 2*delta*t1 + fm*delta*delta
+		t1 += fm * delta
+		b = next
+		if delta == 0 || t2 == 0 {
+			continue // λ = b would not separate the m largest
+		}
+		// A relative slack of 1e-12 lets s = √m in floating point select
+		// exactly m entries instead of admitting an m+1-th at ~1e-16.
+		if t1 >= s*math.Sqrt(t2)*(1-1e-12) {
+			// ρ(b) ≥ s ≥ ρ(a_m⁻): the root is λ = b + μ on this segment, with
+			// the formula above written for the deviations a_i − b.
 			den := fm - s*s
-			if den <= 1e-12*fm {
-				lambda = b
-			} else {
-				lambda = (s1 - s*math.Sqrt(math.Max(fm*s2-s1*s1, 0)/den)) / fm
-				lambda = math.Min(math.Max(lambda, b), a[m-1])
+			mu := 0.0
+			if den > 1e-12*fm {
+				mu = (t1 - s*math.Sqrt(math.Max(fm*t2-t1*t1, 0)/den)) / fm
 			}
+			lambda = b + math.Min(math.Max(mu, 0), delta)
 			found = true
 			break
 		}

@@ -87,6 +87,7 @@ type modeSet struct {
 	r    int
 	x    [][]float64
 	supp [][]int
+	pre  [][]float64 // solver iterate before the refit: the warm start
 	id   []int
 	res  []Result
 	vari []float64 // xᵀA_0x
@@ -101,6 +102,7 @@ func newModeSet(p, m int) *modeSet {
 	s := &modeSet{
 		x:    make([][]float64, m),
 		supp: make([][]int, m),
+		pre:  make([][]float64, m),
 		id:   make([]int, m),
 		res:  make([]Result, m),
 		vari: make([]float64, m),
@@ -112,6 +114,7 @@ func newModeSet(p, m int) *modeSet {
 	}
 	for j := 0; j < m; j++ {
 		s.x[j] = make([]float64, p)
+		s.pre[j] = make([]float64, p)
 		s.supp[j] = make([]int, 0, p)
 		s.view[j+1] = s.v.Slice(0, p, 0, j+1).(*mat.Dense)
 	}
@@ -140,7 +143,9 @@ type Tracker struct {
 
 	ax0      []float64
 	bx, bc   []float64
+	bpre     []float64
 	bxs      []int
+	bpreS    []int
 	cosm     []float64
 	usedOld  []bool
 	usedNew  []bool
@@ -227,7 +232,7 @@ func NewTracker(p int, cfg Config) (*Tracker, error) {
 	if cfg.EpsStages < 0 {
 		return bad("EpsStages = %d, want ≥ 0", cfg.EpsStages)
 	}
-	if cfg.Start < StartAuto || cfg.Start > StartDense {
+	if cfg.Start < StartAuto || cfg.Start > StartIndex {
 		return bad("unknown start %d", int(cfg.Start))
 	}
 	if cfg.Refit < RefitAuto || cfg.Refit > RefitNever {
@@ -255,6 +260,8 @@ func NewTracker(p int, cfg Config) (*Tracker, error) {
 		bx:       make([]float64, p),
 		bc:       make([]float64, p),
 		bxs:      make([]int, 0, p),
+		bpre:     make([]float64, p),
+		bpreS:    make([]int, 0, p),
 		cosm:     make([]float64, m*m),
 		usedOld:  make([]bool, m),
 		usedNew:  make([]bool, m),
@@ -368,7 +375,7 @@ func (t *Tracker) Refresh(a *mat.SymDense) error {
 		var res Result
 		stop := false
 		if hasWarm {
-			res, err = ws.solve(sp, &t.opt, t.cur.x[j], false)
+			res, err = ws.solve(sp, &t.opt, t.cur.pre[j], false, t.cur.x[j], t.cur.supp[j])
 			iters += res.Iterations + res.RefitIterations
 			if err == errEmptyOperator {
 				break
@@ -381,9 +388,11 @@ func (t *Tracker) Refresh(a *mat.SymDense) error {
 			if hasWarm {
 				copy(t.bx, ws.x)
 				copy(t.bc, ws.c)
+				copy(t.bpre, ws.pre)
 				t.bxs = append(t.bxs[:0], ws.xs...)
+				t.bpreS = append(t.bpreS[:0], ws.preS...)
 			}
-			rc, err := ws.solve(sp, &t.opt, nil, true)
+			rc, err := ws.solve(sp, &t.opt, nil, true, nil, nil)
 			iters += rc.Iterations + rc.RefitIterations
 			switch {
 			case err == errEmptyOperator:
@@ -394,7 +403,9 @@ func (t *Tracker) Refresh(a *mat.SymDense) error {
 			if hasWarm && (stop || rc.Empty || (!res.Empty && res.Objective >= rc.Objective)) {
 				copy(ws.x, t.bx)
 				copy(ws.c, t.bc)
+				copy(ws.pre, t.bpre)
 				ws.xs = append(ws.xs[:0], t.bxs...)
+				ws.preS = append(ws.preS[:0], t.bpreS...)
 				stop = false
 			} else if !stop {
 				res = rc
@@ -407,6 +418,7 @@ func (t *Tracker) Refresh(a *mat.SymDense) error {
 		x := nx.x[j]
 		copy(x, ws.x)
 		nx.supp[j] = append(nx.supp[j][:0], ws.xs...)
+		copy(nx.pre[j], ws.pre)
 		nx.res[j] = res
 		// Row j of G = VᵀA_0V and the next column of its Cholesky factor.
 		saveT := op.t
