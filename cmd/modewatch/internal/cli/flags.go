@@ -57,7 +57,7 @@ func (m *modelFlags) register(fs *flag.FlagSet, withConfig bool) {
 	if withConfig {
 		fs.StringVar(&m.config, "config", "", "configuration `FILE` (YAML); without it, defaults and auto-discovery")
 	}
-	fs.StringVar(&m.sparsity, "sparsity", "", "sparsity of every mode: none|l0:K|l1:S|l0pen:G|l1pen:G|logpen:G[,EPS]|exppen:G[,EPS] (default "+configs.DefaultSparsity+")")
+	fs.StringVar(&m.sparsity, "sparsity", "", "sparsity of every mode: none|l0:K|l1:S|l0pen:G|l1pen:G|l1sqrt:G|logpen:G[,EPS]|exppen:G[,EPS] (default "+configs.DefaultSparsity+")")
 	fs.StringVar(&m.modes, "modes", "", "number of modes: N or auto:SHARE (default "+configs.DefaultModes+")")
 	fs.StringVar(&m.halflife, "halflife", "", "half-life of the exponential weights, e.g. 12h or 7d (default 7d; fit: equal weights)")
 	fs.StringVar(&m.period, "period", "", "frame period, e.g. 10s (default: from the configuration, else inferred from the data)")

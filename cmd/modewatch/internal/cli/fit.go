@@ -1,0 +1,122 @@
+package cli
+
+import (
+	"context"
+	"encoding/json"
+	"fmt"
+	"strings"
+
+	"modewatch/cmd/modewatch/internal/pipeline"
+)
+
+func init() {
+	register(command{name: "fit", args: "--input FILE... --out MODEL", summary: "learn a baseline model from a log of normal operation", run: runFit})
+}
+
+const fitHelp = `
+Learn a baseline model from recorded line protocol of normal operation:
+per unit, the mean and spread of every channel, their correlation, the
+sparse modes and the control limits. Every frame weighs the same unless
+--halflife is given. The model file (JSON, versioned) is read by
+"replay --model" and by the service (model.file in the configuration).
+
+A fitted unit keeps the settings it was fitted with (sparsity, modes,
+half-life, alpha); to change them, fit again. Channels are auto-discovered
+and the frame period inferred unless the configuration or flags say
+otherwise. Input "-" is standard input.`
+
+func runFit(ctx context.Context, env IO, args []string) error {
+	fs := newFlags(env, "fit", "--input FILE... --out MODEL [--json]", fitHelp)
+	var mf modelFlags
+	mf.register(fs, true)
+	var inputs listFlag
+	var outPath string
+	var asJSON bool
+	var out runOutputs
+	fs.Var(&inputs, "input", "line-protocol `FILE` of normal operation (repeatable; also as arguments; - is stdin)")
+	fs.StringVar(&outPath, "out", "", "write the model to `MODEL` (required)")
+	fs.BoolVar(&asJSON, "json", false, "print the learned modes and limits as JSON on standard output")
+	fs.BoolVar(&out.quiet, "quiet", false, "print only errors on standard error")
+	fs.IntVar(&out.maxErrs, "max-errors", 20, "print at most `N` bad lines (all are counted)")
+	pos, err := parseAll(fs, args)
+	if err != nil {
+		return err
+	}
+	inputs = append(inputs, pos...)
+	if len(inputs) == 0 {
+		return usagef("no input: give --input FILE (or - for standard input)")
+	}
+	if outPath == "" {
+		return usagef("--out MODEL is required")
+	}
+	cfg, err := mf.load(fs)
+	if err != nil {
+		return err
+	}
+	if mf.set["limits"] || mf.set["adapt"] {
+		return usagef("--limits and --adapt apply to replay and run, not to fit")
+	}
+	res, _, err := runEngine(ctx, env, cfg, inputs, nil, true, mf.halfLifeSet(), out)
+	if res == nil {
+		return err
+	}
+	if err != nil {
+		return fmt.Errorf("%w (no model written)", err)
+	}
+	n, _, _ := res.Pipeline.Frames()
+	if n == 0 {
+		st := res.Intake.Stats()
+		return fmt.Errorf("%w: %d lines read, %d rejected; no model written", pipeline.ErrNoData, st.Lines, st.Rejected())
+	}
+	model, berr := res.Pipeline.Baseline()
+	if len(model.Units) == 0 {
+		return fmt.Errorf("no unit could be fitted: %w", berr)
+	}
+	if berr != nil {
+		fmt.Fprintf(env.Err, "modewatch fit: some units were left out: %v\n", berr)
+	}
+	if err := pipeline.WriteModel(outPath, model); err != nil {
+		return err
+	}
+	if asJSON {
+		type unitOut struct {
+			Name     string                 `json:"name"`
+			Channels []string               `json:"channels"`
+			Settings pipeline.ModelSettings `json:"settings"`
+			Modes    []pipeline.ModeView    `json:"modes"`
+			Limits   pipeline.LimitsView    `json:"limits"`
+		}
+		o := struct {
+			Model  string    `json:"model"`
+			Frames uint64    `json:"frames"`
+			Period string    `json:"period"`
+			Units  []unitOut `json:"units"`
+		}{Model: outPath, Frames: model.Frames, Period: res.Period.String()}
+		for _, u := range model.Units {
+			o.Units = append(o.Units, unitOut{u.Name, u.Channels, u.Settings, u.Modes, u.Limits})
+		}
+		enc := json.NewEncoder(env.Out)
+		enc.SetIndent("", "  ")
+		return enc.Encode(o)
+	}
+	if !out.quiet {
+		fmt.Fprintf(env.Out, "fitted %d unit(s) on %d frames of %s (%s to %s); model written to %s\n", len(model.Units), model.Frames,
+			res.Period, model.From.Format("2006-01-02T15:04:05Z07:00"), model.To.Format("2006-01-02T15:04:05Z07:00"), outPath)
+		for _, u := range model.Units {
+			lim := ""
+			if u.Limits.T2 != nil && u.Limits.SPE != nil {
+				lim = fmt.Sprintf(", T² limit %.2f, SPE limit %.2f at α=%g", *u.Limits.T2, *u.Limits.SPE, u.Limits.Alpha)
+			}
+			fmt.Fprintf(env.Out, "unit %-12s %3d channels, %d modes%s\n", u.Name, len(u.Channels), len(u.Modes), lim)
+			for _, m := range u.Modes {
+				parts := make([]string, len(m.Channels))
+				for i, c := range m.Channels {
+					parts[i] = fmt.Sprintf("%s %+.2f", strings.TrimPrefix(c, u.Name+"."), m.Loadings[i])
+				}
+				fmt.Fprintf(env.Out, "  mode %d (%4.1f%%): %s\n", m.ID, 100*m.VarianceShare, strings.Join(parts, ", "))
+			}
+		}
+	}
+	return nil
+}
+

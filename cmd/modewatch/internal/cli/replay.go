@@ -1,0 +1,304 @@
+package cli
+
+import (
+	"bufio"
+	"context"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"io"
+	"log/slog"
+	"os"
+	"sort"
+	"strings"
+	"sync"
+	"time"
+
+	"modewatch/alerts"
+	"modewatch/alerts/sink"
+	"modewatch/cmd/modewatch/internal/evaluate"
+	"modewatch/cmd/modewatch/internal/pipeline"
+	"modewatch/configs"
+	"modewatch/stream"
+)
+
+func init() {
+	register(command{name: "replay", args: "--input FILE... [--model MODEL] [--truth FILE] [--scores FILE] [--alerts FILE] [--json]",
+		summary: "score a recorded log frame by frame, as the live service would", run: runReplay})
+}
+
+const replayHelp = `
+Replay recorded line protocol through the same engine as the live service:
+decode, map and align the readings into frames, score every frame of every
+unit (T², SPE and φ against control limits, contributions by channel) and
+run the alarm logic. Without a configuration, channels are auto-discovered
+(measurement.tagvalues.field), each measurement is a unit, and the frame
+period is inferred from the data.
+
+Without --model each unit learns from the start (warm-up, then scoring while
+adapting). With --model the units start from a fitted baseline and go on
+adapting, frozen while an alert is active; --adapt=false holds the model
+fixed.
+
+Input "-" is standard input; files ending in .gz (or gzip content) are
+decompressed. Bad lines are reported with file:line:column and counted; the
+rest of the input is kept. Exit status: 0 done (even with some bad lines),
+1 no usable data or an I/O failure, 2 usage or configuration error.
+
+--json prints one object: frames, channels, lines {accepted, rejected, late,
+duplicate} (late and duplicate count readings), units, modes {unit, id,
+channels, loadings, variance_share}, alerts (count), frames_per_second and,
+with --truth, metrics {episodes, detected, detection_rate, median_delay_s,
+false_alerts, false_alerts_per_day, isolated_top3}.
+
+modewatch is advisory: alerts are prompts to look, not instructions.`
+
+// runOutputs are the optional outputs shared by replay and fit.
+type runOutputs struct {
+	scores  string
+	alerts  string
+	quiet   bool
+	maxErrs int
+}
+
+func runReplay(ctx context.Context, env IO, args []string) error {
+	fs := newFlags(env, "replay", "--input FILE... [--model MODEL] [--truth FILE] [--scores FILE] [--alerts FILE] [--json]", replayHelp)
+	var mf modelFlags
+	mf.register(fs, true)
+	var inputs listFlag
+	var model, truth string
+	var asJSON bool
+	var out runOutputs
+	var grace time.Duration
+	fs.Var(&inputs, "input", "line-protocol `FILE` to replay (repeatable; also as arguments; - is stdin)")
+	fs.StringVar(&model, "model", "", "start from the fitted `MODEL` file written by fit")
+	fs.StringVar(&truth, "truth", "", "truth `FILE` of labelled episodes: adds detection metrics to --json")
+	fs.DurationVar(&grace, "grace", evaluate.DefaultGrace, "an alert this close to an episode is not counted as false")
+	fs.StringVar(&out.scores, "scores", "", "write one line-protocol score line per frame and unit to `FILE`")
+	fs.StringVar(&out.alerts, "alerts", "", "write every alert record revision as JSON lines to `FILE`")
+	fs.BoolVar(&asJSON, "json", false, "print a JSON summary on standard output")
+	fs.BoolVar(&out.quiet, "quiet", false, "print only errors on standard error")
+	fs.IntVar(&out.maxErrs, "max-errors", 20, "print at most `N` bad lines (all are counted)")
+	pos, err := parseAll(fs, args)
+	if err != nil {
+		return err
+	}
+	inputs = append(inputs, pos...)
+	if len(inputs) == 0 {
+		return usagef("no input: give --input FILE (or - for standard input)")
+	}
+	cfg, err := mf.load(fs)
+	if err != nil {
+		return err
+	}
+	var baseline *pipeline.ModelFile
+	if model != "" {
+		if baseline, err = pipeline.ReadModel(model); err != nil {
+			return usagef("--model: %v", err)
+		}
+	}
+	if err := checkEmpirical(cfg, baseline != nil); err != nil {
+		return err
+	}
+	var tr *evaluate.Truth
+	if truth != "" {
+		if tr, err = evaluate.ReadTruth(truth); err != nil {
+			return usagef("--truth: %v", err)
+		}
+	}
+	res, rec, err := runEngine(ctx, env, cfg, inputs, baseline, false, false, out)
+	if res == nil {
+		return err
+	}
+	sum := summarize(res, rec)
+	if tr != nil {
+		m := evaluate.Compute(rec.alertsForMetrics(), tr.Episodes, sum.span, grace)
+		sum.Metrics = &m
+	}
+	if asJSON {
+		enc := json.NewEncoder(env.Out)
+		enc.SetIndent("", "  ")
+		if jerr := enc.Encode(sum); jerr != nil && err == nil {
+			err = jerr
+		}
+	} else if !out.quiet {
+		printSummary(env.Out, sum)
+	}
+	if err == nil && sum.Frames == 0 {
+		err = fmt.Errorf("%w: %d lines read, %d rejected", pipeline.ErrNoData, sum.Lines.Total, sum.Lines.Rejected)
+	}
+	return err
+}
+
+// checkEmpirical refuses empirical limits where they cannot hold: they are
+// quantiles over a reference log scored by a fixed model, and the tracker
+// drops them at its next refresh.
+func checkEmpirical(cfg *configs.Config, haveModel bool) error {
+	models := []configs.Model{cfg.Model}
+	for i := range cfg.Units {
+		models = append(models, cfg.UnitModel(i))
+	}
+	for _, m := range models {
+		if m.Limits.Method != configs.LimitsEmpirical {
+			continue
+		}
+		return usagef("--limits empirical:FILE is not available in this version of replay and run; use theory (the default)")
+	}
+	return nil
+}
+
+// recorder keeps what the alarm engine published.
+type recorder struct {
+	mu     sync.Mutex
+	last   map[string]*alerts.Record // latest revision per record id
+	order  []string
+	lines  *sink.Lines
+	err    error
+	closer io.Closer
+}
+
+func (r *recorder) Publish(rec *alerts.Record) {
+	r.mu.Lock()
+	defer r.mu.Unlock()
+	if _, seen := r.last[rec.ID]; !seen {
+		r.order = append(r.order, rec.ID)
+	}
+	r.last[rec.ID] = rec
+	if r.lines != nil && r.err == nil {
+		m, err := sink.MessageOf(rec)
+		if err == nil {
+			err = r.lines.Deliver(context.Background(), m)
+		}
+		r.err = err
+	}
+}
+
+// incidents returns the latest revision of every incident record (floods
+// excluded: their members are incidents themselves), by start time.
+func (r *recorder) incidents() []*alerts.Record {
+	r.mu.Lock()
+	defer r.mu.Unlock()
+	var out []*alerts.Record
+	for _, id := range r.order {
+		if rec := r.last[id]; rec.Kind != alerts.KindFlood {
+			out = append(out, rec)
+		}
+	}
+	sort.SliceStable(out, func(i, j int) bool { return out[i].Start.Before(out[j].Start) })
+	return out
+}
+
+func (r *recorder) floods() int {
+	r.mu.Lock()
+	defer r.mu.Unlock()
+	n := 0
+	for _, rec := range r.last {
+		if rec.Kind == alerts.KindFlood {
+			n++
+		}
+	}
+	return n
+}
+
+// alertsForMetrics converts the incidents: start time and ranked channels
+// (a data-quality alert names its one channel).
+func (r *recorder) alertsForMetrics() []evaluate.Alert {
+	var out []evaluate.Alert
+	for _, rec := range r.incidents() {
+		a := evaluate.Alert{ID: rec.ID, Start: rec.Start}
+		for _, c := range rec.Contributors {
+			a.Top = append(a.Top, c.Channel)
+		}
+		if len(a.Top) == 0 && rec.Quality != nil {
+			a.Top = []string{rec.Quality.Channel}
+		}
+		out = append(out, a)
+	}
+	return out
+}
+
+// runEngine runs the pipeline over the inputs with the shared outputs.
+func runEngine(ctx context.Context, env IO, cfg *configs.Config, inputs []string, baseline *pipeline.ModelFile, fit, fitHalfLife bool, out runOutputs) (*pipeline.ReplayResult, *recorder, error) {
+	log := newLogger(env.Err, cfg, out.quiet)
+	rec := &recorder{last: map[string]*alerts.Record{}}
+	if out.alerts != "" {
+		f, err := os.Create(out.alerts)
+		if err != nil {
+			return nil, nil, err
+		}
+		defer f.Close()
+		bw := bufio.NewWriterSize(f, 64<<10)
+		defer bw.Flush()
+		rec.lines = sink.NewLines(bw)
+	}
+	var onScore func(u *pipeline.Unit, t time.Time)
+	var scoreErr error
+	if out.scores != "" {
+		f, err := os.Create(out.scores)
+		if err != nil {
+			return nil, nil, err
+		}
+		defer f.Close()
+		bw := bufio.NewWriterSize(f, 256<<10)
+		defer bw.Flush()
+		var enc pipeline.ScoreEncoder
+		onScore = func(u *pipeline.Unit, t time.Time) {
+			enc.Reset()
+			b := enc.Append(u, t)
+			if err := enc.Err(); err != nil {
+				if scoreErr == nil {
+					scoreErr = fmt.Errorf("--scores: unit %q: %w", u.Name, err)
+				}
+				return
+			}
+			if _, err := bw.Write(b); err != nil && scoreErr == nil {
+				scoreErr = fmt.Errorf("--scores: %w", err)
+			}
+		}
+	}
+	printed := 0
+	onLineError := func(err error) {
+		printed++
+		if printed <= out.maxErrs {
+			fmt.Fprintln(env.Err, strings.TrimPrefix(err.Error(), "stream: "))
+		} else if printed == out.maxErrs+1 {
+			fmt.Fprintf(env.Err, "(more bad lines are counted but not printed; see --max-errors)\n")
+		}
+	}
+	res, err := pipeline.Replay(ctx, pipeline.ReplayOptions{
+		Config: cfg, Inputs: inputs, Stdin: env.In, Baseline: baseline, Fit: fit, FitHalfLife: fitHalfLife,
+		Publisher: rec, OnScore: onScore, OnLineError: onLineError, Log: log,
+	})
+	if err == nil {
+		err = scoreErr
+	}
+	if err == nil {
+		err = rec.err
+	}
+	if err != nil && errors.Is(err, stream.ErrHandler) {
+		err = fmt.Errorf("scoring stopped: %w", err)
+	}
+	return res, rec, err
+}
+
+// newLogger returns the command's logger: text on standard error at the
+// configured level (warnings only with --quiet).
+func newLogger(w io.Writer, cfg *configs.Config, quiet bool) *slog.Logger {
+	level := slog.LevelInfo
+	switch cfg.Log.Level {
+	case "debug":
+		level = slog.LevelDebug
+	case "warn":
+		level = slog.LevelWarn
+	case "error":
+		level = slog.LevelError
+	}
+	if quiet && level < slog.LevelWarn {
+		level = slog.LevelWarn
+	}
+	opts := &slog.HandlerOptions{Level: level}
+	if cfg.Log.Format == "json" {
+		return slog.New(slog.NewJSONHandler(w, opts))
+	}
+	return slog.New(slog.NewTextHandler(w, opts))
+}

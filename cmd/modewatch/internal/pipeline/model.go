@@ -1,0 +1,282 @@
+package pipeline
+
+import (
+	"bytes"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"io"
+	"math"
+	"os"
+	"time"
+
+	"modewatch/cmd/modewatch/internal/store"
+	"modewatch/configs"
+	"modewatch/tracker"
+	"modewatch/tracker/modes"
+)
+
+// TrackerConfig converts a unit's model settings into a tracker
+// configuration for p channels. With equal true the frames are weighted
+// equally (no forgetting), as fit does by default.
+//
+// A cardinality above the channel count (l0:K with K > p, l1:S with
+// S > √p) is lowered to it: a unit of 4 channels under the default l0:6
+// gets dense modes rather than an error.
+func TrackerConfig(m configs.Model, period time.Duration, p int, equal bool) (tracker.Config, error) {
+	m = m.Over(configs.DefaultModel())
+	sp, err := modes.ParseSparsity(m.Sparsity)
+	if err != nil {
+		return tracker.Config{}, err
+	}
+	switch sp.Method {
+	case modes.L0:
+		sp.K = min(sp.K, p)
+	case modes.L1:
+		sp.S = math.Min(sp.S, math.Sqrt(float64(p)))
+	}
+	cfg := tracker.Config{
+		Period:       period,
+		HalfLife:     m.HalfLife,
+		Alpha:        m.Alpha,
+		RefreshEvery: m.RefreshEvery,
+		WarmUp:       m.WarmUp,
+		Modes: modes.Config{
+			Sparsity: []modes.Sparsity{sp},
+			Count:    min(m.Modes.Count, p),
+			Share:    m.Modes.Share,
+			MaxCount: min(max(m.MaxModes, m.Modes.Count), p),
+		},
+	}
+	if equal {
+		cfg.HalfLife = 0
+	}
+	return cfg, nil
+}
+
+// ModelFormat and ModelVersion identify a model file written by fit.
+const (
+	ModelFormat  = "modewatch-model"
+	ModelVersion = 1
+)
+
+// ErrModelFile marks a model file that cannot be used: not a model file, a
+// version this program does not read, or a damaged tracker state.
+var ErrModelFile = errors.New("pipeline: unusable model file")
+
+// ModelFile is a fitted model: per unit, its channels (by name, in model
+// order), the settings it was fitted with and the tracker's state. JSON,
+// with the tracker state as base64 of its versioned binary form.
+type ModelFile struct {
+	Format  string      `json:"format"`
+	Version int         `json:"version"`
+	Created time.Time   `json:"created"`
+	Period  Duration    `json:"period"`
+	Frames  uint64      `json:"frames"`
+	From    time.Time   `json:"from"`
+	To      time.Time   `json:"to"`
+	Units   []ModelUnit `json:"units"`
+}
+
+// ModelUnit is one unit of a model file.
+type ModelUnit struct {
+	Name     string        `json:"name"`
+	Channels []string      `json:"channels"`
+	Settings ModelSettings `json:"settings"`
+	Modes    []ModeView    `json:"modes"`
+	Limits   LimitsView    `json:"limits"`
+	State    []byte        `json:"state"`
+}
+
+// ModelSettings records the settings a unit was fitted with. The tracker
+// state can only be restored under exactly these settings, so replay and
+// run use them for a fitted unit (HalfLife 0: equal weights).
+type ModelSettings struct {
+	Sparsity     string   `json:"sparsity"`
+	Modes        string   `json:"modes"`
+	MaxModes     int      `json:"max_modes"`
+	HalfLife     Duration `json:"halflife"`
+	Alpha        float64  `json:"alpha"`
+	RefreshEvery int      `json:"refresh_every"`
+	WarmUp       int      `json:"warmup"`
+}
+
+// Duration is a time.Duration that reads and writes as "1h30m0s".
+type Duration time.Duration
+
+// MarshalText implements encoding.TextMarshaler.
+func (d Duration) MarshalText() ([]byte, error) { return []byte(time.Duration(d).String()), nil }
+
+// UnmarshalText implements encoding.TextUnmarshaler.
+func (d *Duration) UnmarshalText(b []byte) error {
+	v, err := time.ParseDuration(string(b))
+	if err != nil {
+		return err
+	}
+	*d = Duration(v)
+	return nil
+}
+
+func settingsOf(m configs.Model) ModelSettings {
+	return ModelSettings{
+		Sparsity: m.Sparsity, Modes: m.Modes.String(), MaxModes: m.MaxModes, HalfLife: Duration(m.HalfLife),
+		Alpha: m.Alpha, RefreshEvery: m.RefreshEvery, WarmUp: m.WarmUp,
+	}
+}
+
+func (s ModelSettings) model() (configs.Model, error) {
+	mc, err := configs.ParseModeCount(s.Modes)
+	if err != nil {
+		return configs.Model{}, err
+	}
+	return configs.Model{
+		Sparsity: s.Sparsity, Modes: mc, MaxModes: s.MaxModes, HalfLife: time.Duration(s.HalfLife),
+		Alpha: s.Alpha, RefreshEvery: s.RefreshEvery, WarmUp: s.WarmUp,
+	}, nil
+}
+
+// WriteModel writes the model file atomically.
+func WriteModel(path string, m *ModelFile) error {
+	b, err := json.MarshalIndent(m, "", "  ")
+	if err != nil {
+		return fmt.Errorf("pipeline: %w", err)
+	}
+	return store.WriteFile(path, append(b, '\n'), 0o644)
+}
+
+// ReadModel reads and checks a model file.
+func ReadModel(path string) (*ModelFile, error) {
+	b, err := os.ReadFile(path)
+	if err != nil {
+		return nil, fmt.Errorf("pipeline: %w", err)
+	}
+	m, err := DecodeModel(bytes.NewReader(b))
+	if err != nil {
+		return nil, fmt.Errorf("%s: %w", path, err)
+	}
+	return m, nil
+}
+
+// DecodeModel decodes a model file and checks its format and version.
+func DecodeModel(r io.Reader) (*ModelFile, error) {
+	var m ModelFile
+	dec := json.NewDecoder(r)
+	if err := dec.Decode(&m); err != nil {
+		return nil, fmt.Errorf("%w: not a model file: %v", ErrModelFile, err)
+	}
+	if m.Format != ModelFormat {
+		return nil, fmt.Errorf("%w: format %q, want %q", ErrModelFile, m.Format, ModelFormat)
+	}
+	if m.Version != ModelVersion {
+		return nil, fmt.Errorf("%w: version %d; this modewatch reads version %d", ErrModelFile, m.Version, ModelVersion)
+	}
+	if m.Period <= 0 {
+		return nil, fmt.Errorf("%w: frame period %v", ErrModelFile, time.Duration(m.Period))
+	}
+	for i, u := range m.Units {
+		if u.Name == "" || len(u.Channels) == 0 || len(u.State) == 0 {
+			return nil, fmt.Errorf("%w: units[%d]: name, channels and state are required", ErrModelFile, i)
+		}
+	}
+	return &m, nil
+}
+
+// unitFromBaseline creates a unit from a fitted model. The channels are
+// looked up (or registered) in the registry by name when frames arrive;
+// here the unit only records them.
+func (p *Pipeline) unitFromBaseline(mu *ModelUnit) (*Unit, error) {
+	if p.byName[mu.Name] != nil {
+		return nil, fmt.Errorf("%w: unit %q twice", ErrModelFile, mu.Name)
+	}
+	settings, err := mu.Settings.model()
+	if err != nil {
+		return nil, fmt.Errorf("%w: unit %s: %v", ErrModelFile, mu.Name, err)
+	}
+	u := p.newUnit(mu.Name)
+	// The tracker state holds only under the settings it was fitted
+	// with; whether it goes on learning comes from the configuration.
+	adapt := p.cfg.ModelFor(mu.Name).Adapt
+	u.model = settings
+	u.model.Adapt = adapt
+	u.fixed = adapt != nil && !*adapt
+	cfg, err := TrackerConfig(settings, time.Duration(p.opt.Baseline.Period), len(mu.Channels), settings.HalfLife == 0)
+	if err != nil {
+		return nil, fmt.Errorf("%w: unit %s: %v", ErrModelFile, mu.Name, err)
+	}
+	tr, err := tracker.New(len(mu.Channels), cfg)
+	if err != nil {
+		return nil, fmt.Errorf("%w: unit %s: %v", ErrModelFile, mu.Name, err)
+	}
+	if err := restoreState(tr, mu.State); err != nil {
+		return nil, fmt.Errorf("%w: unit %s: %w", ErrModelFile, mu.Name, err)
+	}
+	u.tr = tr
+	u.frozen = tr.Frozen()
+	u.baseline = true
+	u.fixedChannels = true
+	u.x = make([]float64, len(mu.Channels))
+	u.miss = make([]bool, len(mu.Channels))
+	u.names = append([]string(nil), mu.Channels...)
+	u.idx = make([]int, len(mu.Channels))
+	for k := range u.idx {
+		u.idx[k] = -1 // resolved against the registry by resolve
+	}
+	return u, nil
+}
+
+func saveState(tr *tracker.Tracker) ([]byte, error) { return tr.MarshalBinary() }
+
+func restoreState(tr *tracker.Tracker, b []byte) error { return tr.UnmarshalBinary(b) }
+
+// Baseline turns the units of a fitted pipeline into a model file: each
+// unit's model is refreshed once more from all the frames seen and frozen,
+// and its state saved. Units without a model (no frames) are reported in
+// the error and left out.
+func (p *Pipeline) Baseline() (*ModelFile, error) {
+	p.mu.Lock()
+	defer p.mu.Unlock()
+	m := &ModelFile{Format: ModelFormat, Version: ModelVersion, Created: time.Now().UTC(), Period: Duration(p.opt.Period),
+		Frames: p.frames, From: p.first, To: p.last}
+	var errs []error
+	for _, u := range p.Units() {
+		if u.tr == nil || u.failed != nil {
+			errs = append(errs, fmt.Errorf("unit %s: no model (%v)", u.Name, u.failed))
+			continue
+		}
+		if err := u.tr.Refresh(); err != nil {
+			errs = append(errs, fmt.Errorf("unit %s: %w", u.Name, err))
+			continue
+		}
+		u.tr.Freeze()
+		u.frozen = true
+		state, err := saveState(u.tr)
+		if err != nil {
+			errs = append(errs, fmt.Errorf("unit %s: %w", u.Name, err))
+			continue
+		}
+		settings := settingsOf(u.model)
+		if p.opt.Fit && !p.opt.FitHalfLife {
+			settings.HalfLife = 0
+		}
+		mu := ModelUnit{Name: u.Name, Channels: append([]string(nil), u.names...), Settings: settings,
+			Modes: u.modesView(), Limits: u.baseLimits(), State: state}
+		m.Units = append(m.Units, mu)
+	}
+	if len(m.Units) == 0 && len(errs) == 0 {
+		errs = append(errs, ErrNoData)
+	}
+	return m, errors.Join(errs...)
+}
+
+// baseLimits evaluates the model at the channel means (nothing missing)
+// to read the limits of the full problem.
+func (u *Unit) baseLimits() LimitsView {
+	x := make([]float64, u.tr.P())
+	u.tr.Stats().MeanTo(x)
+	var s tracker.Score
+	lv := LimitsView{Alpha: u.tr.Config().Alpha}
+	if err := u.tr.Evaluate(&s, x, nil); err == nil && s.Ready {
+		lv.T2, lv.SPE, lv.Phi = finite(s.T2Limit), finite(s.SPELimit), finite(s.PhiLimit)
+	}
+	return lv
+}

@@ -1,0 +1,256 @@
+// Package pipeline is the per-unit engine of modewatch: it takes aligned
+// frames from package stream, splits them by plant unit, steps each unit's
+// tracker, turns the scores into observations for the alarm engine and
+// hands scores to an optional sink. The commands fit, replay, run and demo
+// all drive the same Pipeline, so tests can drive it in-process.
+//
+// A unit is self-contained: its model, its channel list and its checkpoint
+// depend on no other unit.
+package pipeline
+
+import (
+	"errors"
+	"fmt"
+	"log/slog"
+	"sort"
+	"sync"
+	"time"
+
+	"modewatch/alerts"
+	"modewatch/configs"
+	"modewatch/stream"
+)
+
+// Options configure a Pipeline.
+type Options struct {
+	// Config gives units, model and alarm settings; nil means defaults.
+	Config *configs.Config
+	// Channels is the channel registry the frames refer to.
+	Channels *stream.Channels
+	// Period is the frame period (needed for the half-life).
+	Period time.Duration
+	// Publisher receives every alert record revision; nil discards them.
+	Publisher alerts.Publisher
+	// OnScore, if set, is called for every unit and frame after scoring
+	// (from the frame goroutine, under the pipeline's lock).
+	OnScore func(u *Unit, t time.Time)
+	// Baseline, if set, starts the units it holds from a fitted model.
+	Baseline *ModelFile
+	// Fit makes every unit weigh all frames equally (no forgetting) unless
+	// the half-life was set explicitly (FitHalfLife).
+	Fit         bool
+	FitHalfLife bool
+	// Log receives unit events; nil discards them.
+	Log *slog.Logger
+}
+
+// Pipeline routes frames to units. Frame must be called from one goroutine
+// (the stream intake's); the read methods (Units, UnitView, ...) may be
+// called concurrently from others.
+type Pipeline struct {
+	mu     sync.Mutex
+	opt    Options
+	cfg    *configs.Config
+	ch     *stream.Channels
+	log    *slog.Logger
+	alerts *alerts.Engine
+	// unitsMu guards units and byName, which only grow.
+	unitsMu sync.RWMutex
+	units   []*Unit
+	byName  map[string]*Unit
+	// owner[i] is the unit of channel i, nil when the channel is not part
+	// of any model (Model false); assigned lazily as channels appear.
+	owner    []*Unit
+	known    int // channels of the registry already assigned
+	frames   uint64
+	first    time.Time
+	last     time.Time
+	obs      alerts.Observation
+	stopping bool
+}
+
+// New returns a pipeline. It creates the alarm engine from the alert
+// settings of the configuration.
+func New(opt Options) (*Pipeline, error) {
+	if opt.Channels == nil {
+		return nil, errors.New("pipeline: nil channel registry")
+	}
+	if opt.Period <= 0 {
+		return nil, errors.New("pipeline: frame period not set")
+	}
+	cfg := opt.Config
+	if cfg == nil {
+		cfg = &configs.Config{}
+		cfg.ApplyDefaults()
+	}
+	log := opt.Log
+	if log == nil {
+		log = slog.New(slog.DiscardHandler)
+	}
+	p := &Pipeline{opt: opt, cfg: cfg, ch: opt.Channels, log: log, byName: map[string]*Unit{}}
+	pub := opt.Publisher
+	if pub == nil {
+		pub = alerts.PublisherFunc(func(*alerts.Record) {})
+	}
+	eng, err := alerts.NewEngine(AlertsConfig(cfg), pub, learning{p}, log.With("component", "alerts"))
+	if err != nil {
+		return nil, fmt.Errorf("pipeline: %w", err)
+	}
+	p.alerts = eng
+	if b := opt.Baseline; b != nil {
+		for i := range b.Units {
+			if _, err := p.unitFromBaseline(&b.Units[i]); err != nil {
+				return nil, err
+			}
+		}
+	}
+	return p, nil
+}
+
+// Alerts returns the alarm engine (for commands and the API).
+func (p *Pipeline) Alerts() *alerts.Engine { return p.alerts }
+
+// AlertsConfig converts the alarm settings of a configuration.
+func AlertsConfig(c *configs.Config) alerts.Config {
+	rules := func(a configs.Alerts) alerts.Rules {
+		r := alerts.Rules{
+			OnCount:  a.OnDelay.N,
+			OnWindow: a.OnDelay.M,
+			OffDelay: a.OffDelay,
+			Deadband: a.Deadband,
+			NoFreeze: a.FreezeOnAlert != nil && !*a.FreezeOnAlert,
+		}
+		if r.OffDelay == 0 {
+			r.OffDelay = -1 // configured as zero: no off-delay
+		}
+		for _, b := range a.Severity {
+			r.Severity = append(r.Severity, alerts.SeverityBand{Name: b.Name, Ratio: b.Ratio})
+		}
+		return r
+	}
+	top := c.Alerts.Over(configs.DefaultAlerts())
+	ac := alerts.Config{
+		Rules:         rules(top),
+		Units:         map[string]alerts.Rules{},
+		FloodCount:    top.Flood.Count,
+		FloodWindow:   top.Flood.Window,
+		ChatterCount:  top.Chatter.Count,
+		ChatterWindow: top.Chatter.Window,
+	}
+	for i := range c.Units {
+		ac.Units[c.Units[i].Name] = rules(c.UnitAlerts(i))
+	}
+	return ac
+}
+
+// learning lets the alarm engine freeze and thaw a unit's adaptation. It is
+// called under the alarm engine's lock, possibly from an HTTP command, so
+// it only sets a flag that the unit reads before its next step.
+type learning struct{ p *Pipeline }
+
+func (l learning) Freeze(unit string) { l.set(unit, true) }
+func (l learning) Thaw(unit string)   { l.set(unit, false) }
+func (l learning) set(unit string, v bool) {
+	if l.p.opt.Fit {
+		return // fit learns from every frame of its (normal) input
+	}
+	if u := l.p.lookup(unit); u != nil {
+		u.alertFrozen.Store(v)
+	}
+}
+
+// lookup finds a unit without the pipeline lock (the map only grows under
+// the lock, and Freeze/Thaw may come from inside Frame).
+func (p *Pipeline) lookup(name string) *Unit {
+	p.unitsMu.RLock()
+	defer p.unitsMu.RUnlock()
+	return p.byName[name]
+}
+
+// unitOf returns the name of the unit channel c belongs to: the configured
+// unit listing it, else the channel's own Unit (default its measurement).
+func (p *Pipeline) unitOf(c stream.Channel) string {
+	for i := range p.cfg.Units {
+		for _, n := range p.cfg.Units[i].Channels {
+			if n == c.Name {
+				return p.cfg.Units[i].Name
+			}
+		}
+	}
+	if c.Unit != "" {
+		return c.Unit
+	}
+	return c.Measurement
+}
+
+// assign gives every channel of the registry not yet seen to its unit.
+// Called under p.mu.
+func (p *Pipeline) assign() {
+	n := p.ch.Len()
+	for i := p.known; i < n; i++ {
+		c := p.ch.Channel(i)
+		p.owner = append(p.owner, nil)
+		if !c.Model {
+			continue
+		}
+		name := p.unitOf(c)
+		u := p.byName[name]
+		if u == nil {
+			u = p.newUnit(name)
+		}
+		if u.addChannel(i, c.Name) {
+			p.owner[i] = u
+		}
+	}
+	p.known = n
+}
+
+func (p *Pipeline) newUnit(name string) *Unit {
+	u := newUnit(p, name)
+	p.unitsMu.Lock()
+	p.units = append(p.units, u)
+	sort.Slice(p.units, func(i, j int) bool { return p.units[i].Name < p.units[j].Name })
+	p.byName[name] = u
+	p.unitsMu.Unlock()
+	return u
+}
+
+// Frame scores one aligned frame: the handler for stream.NewIntake.
+func (p *Pipeline) Frame(f *stream.Frame) error {
+	p.mu.Lock()
+	defer p.mu.Unlock()
+	if p.known < p.ch.Len() {
+		p.assign()
+	}
+	if p.frames == 0 {
+		p.first = f.Start
+	}
+	p.frames++
+	p.last = f.Start
+	var errs []error
+	for _, u := range p.units {
+		if err := u.step(f); err != nil {
+			errs = append(errs, err)
+		}
+	}
+	return errors.Join(errs...)
+}
+
+// Frames returns the number of frames seen and the start times of the
+// first and the last.
+func (p *Pipeline) Frames() (n uint64, first, last time.Time) {
+	p.mu.Lock()
+	defer p.mu.Unlock()
+	return p.frames, p.first, p.last
+}
+
+// Units returns the units, sorted by name. The slice is a copy; the units
+// are live (use their View methods for a consistent snapshot).
+func (p *Pipeline) Units() []*Unit {
+	p.unitsMu.RLock()
+	defer p.unitsMu.RUnlock()
+	return append([]*Unit(nil), p.units...)
+}
+
+// Unit returns the unit called name, or nil.
+func (p *Pipeline) Unit(name string) *Unit { return p.lookup(name) }

@@ -1,0 +1,165 @@
+package pipeline
+
+import (
+	"math"
+	"time"
+)
+
+// ModeView describes one mode for people and JSON: its stable id, the
+// channels of its support with their loadings, and its adjusted variance as
+// a share of the unit's total variance (Zou, Hastie & Tibshirani 2006).
+type ModeView struct {
+	ID            int       `json:"id"`
+	Channels      []string  `json:"channels"`
+	Loadings      []float64 `json:"loadings"`
+	VarianceShare float64   `json:"variance_share"`
+}
+
+// LimitsView holds the control limits of the base pattern (no channel
+// missing) at the last refresh.
+type LimitsView struct {
+	Alpha float64  `json:"alpha"`
+	T2    *float64 `json:"t2"`
+	SPE   *float64 `json:"spe"`
+	Phi   *float64 `json:"phi"`
+}
+
+// ContributorView is one ranked channel of a score.
+type ContributorView struct {
+	Channel  string  `json:"channel"`
+	Share    float64 `json:"share"`
+	RBC      float64 `json:"rbc"`
+	RBCLimit float64 `json:"rbc_limit"`
+	Modes    []int   `json:"modes"`
+}
+
+// ScoreView is a unit's latest score. Statistics are null in warm-up.
+type ScoreView struct {
+	Time         time.Time         `json:"time"`
+	Ready        bool              `json:"ready"`
+	T2           *float64          `json:"t2"`
+	T2Limit      *float64          `json:"t2_limit"`
+	SPE          *float64          `json:"spe"`
+	SPELimit     *float64          `json:"spe_limit"`
+	Phi          *float64          `json:"phi"`
+	PhiLimit     *float64          `json:"phi_limit"`
+	Missing      []string          `json:"missing"`
+	Excluded     []string          `json:"excluded"`
+	Contributors []ContributorView `json:"contributors"`
+}
+
+// UnitView is a consistent snapshot of one unit for the API and reports.
+type UnitView struct {
+	Name          string      `json:"name"`
+	Channels      []string    `json:"channels"`
+	NotModelled   []string    `json:"not_modelled,omitempty"`
+	ModelState    string      `json:"model_state"`
+	Error         string      `json:"error,omitempty"`
+	Frames        uint64      `json:"frames"`
+	EmptyFrames   uint64      `json:"empty_frames"`
+	StepErrors    uint64      `json:"step_errors"`
+	EffectiveN    float64     `json:"effective_samples"`
+	Modes         []ModeView  `json:"modes"`
+	Limits        *LimitsView `json:"limits"`
+	Latest        *ScoreView  `json:"latest"`
+	ActiveAlerts  int         `json:"active_alerts"`
+	InMaintenance bool        `json:"maintenance"`
+}
+
+func finite(v float64) *float64 {
+	if math.IsNaN(v) || math.IsInf(v, 0) {
+		return nil
+	}
+	return &v
+}
+
+// modesView lists the unit's current modes.
+func (u *Unit) modesView() []ModeView {
+	if u.tr == nil {
+		return nil
+	}
+	ms := u.tr.Modes()
+	total := ms.TotalVariance()
+	out := make([]ModeView, 0, ms.Count())
+	for j := 0; j < ms.Count(); j++ {
+		m := ms.Mode(j)
+		v := ModeView{ID: m.ID, Channels: make([]string, 0, len(m.Support)), Loadings: make([]float64, 0, len(m.Support))}
+		for _, i := range m.Support {
+			v.Channels = append(v.Channels, u.names[i])
+			v.Loadings = append(v.Loadings, m.Loadings[i])
+		}
+		if total > 0 {
+			v.VarianceShare = m.AdjustedVariance / total
+		}
+		out = append(out, v)
+	}
+	return out
+}
+
+// View returns a snapshot of the unit. Call it from the frame goroutine or
+// through Pipeline.Views (which takes the pipeline's lock).
+func (u *Unit) View(t time.Time) UnitView {
+	v := UnitView{
+		Name: u.Name, Channels: u.Channels(), NotModelled: append([]string(nil), u.late...),
+		ModelState: u.ModelState(), Frames: u.frames, EmptyFrames: u.empty, StepErrors: u.stepErrors,
+		Modes: u.modesView(),
+	}
+	if u.failed != nil {
+		v.Error = u.failed.Error()
+	}
+	if u.tr == nil {
+		return v
+	}
+	s := &u.score
+	v.EffectiveN = s.NEff
+	if s.Ready {
+		v.Limits = &LimitsView{Alpha: u.tr.Config().Alpha, T2: finite(s.T2Limit), SPE: finite(s.SPELimit), Phi: finite(s.PhiLimit)}
+	}
+	sv := &ScoreView{Time: t, Ready: s.Ready, Missing: []string{}, Excluded: []string{}, Contributors: []ContributorView{}}
+	if s.Ready {
+		sv.T2, sv.T2Limit = finite(s.T2), finite(s.T2Limit)
+		sv.SPE, sv.SPELimit = finite(s.SPE), finite(s.SPELimit)
+		sv.Phi, sv.PhiLimit = finite(s.Phi), finite(s.PhiLimit)
+		for _, c := range s.Contrib {
+			sv.Contributors = append(sv.Contributors, ContributorView{
+				Channel: u.names[c.Channel], Share: c.Share, RBC: c.RBC, RBCLimit: c.RBCLimit,
+				Modes: append([]int(nil), c.Modes...),
+			})
+		}
+	}
+	for _, i := range s.Missing {
+		sv.Missing = append(sv.Missing, u.names[i])
+	}
+	for _, i := range s.Excluded {
+		sv.Excluded = append(sv.Excluded, u.names[i])
+	}
+	v.Latest = sv
+	return v
+}
+
+// Views returns snapshots of every unit, sorted by name, with their alert
+// counts.
+func (p *Pipeline) Views() []UnitView {
+	p.mu.Lock()
+	units := p.Units()
+	out := make([]UnitView, len(units))
+	for i, u := range units {
+		out[i] = u.View(p.last)
+	}
+	p.mu.Unlock()
+	p.addAlertCounts(out)
+	return out
+}
+
+// addAlertCounts fills the alert counters from the alarm engine.
+func (p *Pipeline) addAlertCounts(views []UnitView) {
+	cs := p.alerts.Counters(nil)
+	for i := range views {
+		for _, c := range cs {
+			if c.Unit == views[i].Name {
+				views[i].ActiveAlerts = c.Open
+				views[i].InMaintenance = c.InMaint
+			}
+		}
+	}
+}
