@@ -119,4 +119,3 @@ func runFit(ctx context.Context, env IO, args []string) error {
 	}
 	return nil
 }
-
