@@ -5,6 +5,7 @@ import (
 
 	"gonum.org/v1/gonum/blas"
 	"gonum.org/v1/gonum/blas/blas64"
+	"gonum.org/v1/gonum/floats"
 	"gonum.org/v1/gonum/mat"
 )
 
@@ -333,9 +334,5 @@ func deflateColumnNorms(cn []float64, defl Deflation, x, y, z []float64, f float
 	}
 }
 
-func axpy(dst []float64, alpha float64, x []float64) {
-	x = x[:len(dst)]
-	for i, v := range x {
-		dst[i] += alpha * v
-	}
-}
+// axpy sets dst += alpha·x (gonum's assembly kernel).
+func axpy(dst []float64, alpha float64, x []float64) { floats.AddScaled(dst, alpha, x) }

@@ -714,10 +714,10 @@ func (ws *Workspace) oracle(sp Sparsity, eps, f float64) (gap float64, ok bool) 
 	return 0, false
 }
 
-// better reports whether entry i of c beats entry j for T_k: larger
-// magnitude, lower index on ties.
-func better(c []float64, i, j int) bool {
-	a, b := math.Abs(c[i]), math.Abs(c[j])
+// better reports whether entry i beats entry j for T_k (mag holds the
+// magnitudes): larger magnitude, lower index on ties.
+func better(mag []float64, i, j int) bool {
+	a, b := mag[i], mag[j]
 	return a > b || (a == b && i < j)
 }
 
@@ -725,6 +725,10 @@ func better(c []float64, i, j int) bool {
 // binary min-heap (root = worst kept entry) selects the k best in O(p log k).
 func (ws *Workspace) topK(k int) float64 {
 	c, h := ws.c, ws.heap[:0]
+	mag := ws.sorted
+	for i, v := range c {
+		mag[i] = math.Abs(v)
+	}
 	for i := range c {
 		if len(h) < k {
 			h = append(h, i)
@@ -732,7 +736,7 @@ func (ws *Workspace) topK(k int) float64 {
 			j := len(h) - 1
 			for j > 0 {
 				par := (j - 1) / 2
-				if better(c, h[par], h[j]) {
+				if better(mag, h[par], h[j]) {
 					h[par], h[j] = h[j], h[par]
 					j = par
 				} else {
@@ -741,17 +745,17 @@ func (ws *Workspace) topK(k int) float64 {
 			}
 			continue
 		}
-		if !better(c, i, h[0]) {
+		if !better(mag, i, h[0]) {
 			continue
 		}
 		h[0] = i
 		j := 0
 		for {
 			l, r, m := 2*j+1, 2*j+2, j
-			if l < len(h) && better(c, h[m], h[l]) {
+			if l < len(h) && better(mag, h[m], h[l]) {
 				m = l
 			}
-			if r < len(h) && better(c, h[m], h[r]) {
+			if r < len(h) && better(mag, h[m], h[r]) {
 				m = r
 			}
 			if m == j {
