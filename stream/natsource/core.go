@@ -57,6 +57,9 @@ type CoreConfig struct {
 	OverflowReportEvery time.Duration
 }
 
+// libPendingMsgs is the least message bound of the library's own list.
+const libPendingMsgs = 65536
+
 // ErrOverflow is reported (wrapped) through Options.OnEvent and the log when
 // a core subscription drops messages because its queue is full.
 var ErrOverflow = errors.New("natsource: queue full, messages dropped (slow consumer)")
@@ -65,12 +68,12 @@ var ErrOverflow = errors.New("natsource: queue full, messages dropped (slow cons
 type CoreStats struct {
 	Received      uint64 // messages taken off the wire
 	Delivered     uint64 // messages handed to the handler
-	Dropped       uint64 // messages dropped because the queue was full
-	DroppedBytes  uint64 // payload bytes of the dropped messages
+	Dropped       uint64 // messages dropped because a queue was full (ours or the library's, see LibDropped)
+	DroppedBytes  uint64 // payload bytes of the messages dropped from our queue
 	HandlerErrors uint64 // handler calls that returned an error
 	Queued        int    // messages waiting now
 	QueuedBytes   int64  // payload bytes waiting now
-	LibDropped    uint64 // messages dropped inside nats.go by its pending limits (should stay 0)
+	LibDropped    uint64 // of Dropped, those dropped in the client library's list (same byte bound) before reaching our queue
 }
 
 // CoreSub is a running core NATS subscription; create it with SubscribeCore.
@@ -79,6 +82,7 @@ type CoreSub struct {
 	log     *slog.Logger
 	h       Handler
 	subs    []*nats.Subscription
+	libDrop []atomic.Uint64 // last count read from each subscription
 	queue   chan *nats.Msg
 	maxB    int64
 	every   time.Duration
@@ -125,6 +129,7 @@ func (c *Conn) SubscribeCore(ctx context.Context, cfg CoreConfig, h Handler) (*C
 		every:   orDur(cfg.OverflowReportEvery, 10*time.Second),
 		stopped: make(chan struct{}),
 	}
+	s.libDrop = make([]atomic.Uint64, len(cfg.Subjects))
 	for _, subj := range cfg.Subjects {
 		var (
 			sub *nats.Subscription
@@ -139,9 +144,11 @@ func (c *Conn) SubscribeCore(ctx context.Context, cfg CoreConfig, h Handler) (*C
 			s.unsubscribe()
 			return nil, fmt.Errorf("natsource: subscribe %q: %w", subj, err)
 		}
-		// enqueue never blocks, so the library's own pending list stays
-		// short; these limits are a second fence equal to ours.
-		_ = sub.SetPendingLimits(qm, qb)
+		// The library keeps its own list between its reader and enqueue,
+		// which may grow during a burst even though enqueue never blocks.
+		// Fence it too (messages beyond it count as dropped), loose enough
+		// in messages not to trip before our queue does.
+		_ = sub.SetPendingLimits(max(qm, libPendingMsgs), qb)
 		s.subs = append(s.subs, sub)
 	}
 	if err := c.nc.FlushWithContext(ctx); err != nil {
@@ -202,6 +209,17 @@ func (s *CoreSub) run() {
 			s.deliver(m)
 		case <-s.stopped:
 			return
+		case <-s.conn.closed:
+			// Conn.Drain hands us what the library still held; finish
+			// the queue, then end (Stop is then only bookkeeping).
+			for {
+				select {
+				case m := <-s.queue:
+					s.deliver(m)
+				default:
+					return
+				}
+			}
 		}
 	}
 }
@@ -227,6 +245,7 @@ func (s *CoreSub) unsubscribe() {
 // calls return the first call's result.
 func (s *CoreSub) Stop(ctx context.Context) error {
 	s.once.Do(func() {
+		s.readLibDropped()
 		for _, sub := range s.subs {
 			// Drain lets the library deliver what it already holds to
 			// enqueue, then removes the interest.
@@ -280,10 +299,20 @@ func (s *CoreSub) Stats() CoreStats {
 		Queued:        len(s.queue),
 		QueuedBytes:   s.queuedBytes.Load(),
 	}
-	for _, sub := range s.subs {
-		if n, err := sub.Dropped(); err == nil {
-			st.LibDropped += uint64(n)
-		}
-	}
+	st.LibDropped = s.readLibDropped()
+	st.Dropped += st.LibDropped
 	return st
+}
+
+// readLibDropped refreshes and sums the library's drop counts (they can no
+// longer be read once a subscription has ended, so the last value is kept).
+func (s *CoreSub) readLibDropped() uint64 {
+	var sum uint64
+	for i, sub := range s.subs {
+		if n, err := sub.Dropped(); err == nil && uint64(n) > s.libDrop[i].Load() {
+			s.libDrop[i].Store(uint64(n))
+		}
+		sum += s.libDrop[i].Load()
+	}
+	return sum
 }

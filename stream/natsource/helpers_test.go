@@ -1,0 +1,139 @@
+package natsource
+
+import (
+	"context"
+	"fmt"
+	"runtime"
+	"strings"
+	"testing"
+	"time"
+
+	"github.com/nats-io/nats-server/v2/server"
+)
+
+// testOpts returns the options of a real nats-server embedded in the test
+// process on a random loopback port, with JetStream in a temporary store.
+func testOpts(t *testing.T) *server.Options {
+	t.Helper()
+	return &server.Options{
+		Host:      "127.0.0.1",
+		Port:      -1,
+		NoLog:     true,
+		NoSigs:    true,
+		JetStream: true,
+		StoreDir:  t.TempDir(),
+	}
+}
+
+// runServer starts a server with opts and shuts it down at the end of the
+// test.
+func runServer(t *testing.T, opts *server.Options) *server.Server {
+	t.Helper()
+	s, err := server.NewServer(opts)
+	if err != nil {
+		t.Fatalf("new server: %v", err)
+	}
+	go s.Start()
+	if !s.ReadyForConnections(10 * time.Second) {
+		t.Fatal("server not ready")
+	}
+	t.Cleanup(func() {
+		s.Shutdown()
+		s.WaitForShutdown()
+	})
+	return s
+}
+
+// checkNoLeak records the goroutine count now and, at the end of the test
+// (after later cleanups such as server shutdown), waits with a deadline for
+// the count to come back. Call it first in a test.
+func checkNoLeak(t *testing.T) {
+	t.Helper()
+	before := runtime.NumGoroutine()
+	t.Cleanup(func() {
+		deadline := time.Now().Add(10 * time.Second)
+		for {
+			n := runtime.NumGoroutine()
+			if n <= before {
+				return
+			}
+			if time.Now().After(deadline) {
+				buf := make([]byte, 1<<20)
+				buf = buf[:runtime.Stack(buf, true)]
+				t.Errorf("goroutine leak: %d before, %d after\n%s", before, n, buf)
+				return
+			}
+			time.Sleep(10 * time.Millisecond) // polling a condition under a deadline
+		}
+	})
+}
+
+// ctxT returns a context that ends with the test or after d.
+func ctxT(t *testing.T, d time.Duration) context.Context {
+	t.Helper()
+	ctx, cancel := context.WithTimeout(context.Background(), d)
+	t.Cleanup(cancel)
+	return ctx
+}
+
+// waitFor polls cond until it holds or the deadline passes.
+func waitFor(t *testing.T, d time.Duration, what string, cond func() bool) {
+	t.Helper()
+	deadline := time.Now().Add(d)
+	for !cond() {
+		if time.Now().After(deadline) {
+			t.Fatalf("timed out after %v waiting for %s", d, what)
+		}
+		time.Sleep(5 * time.Millisecond) // polling a condition under a deadline
+	}
+}
+
+// eventRecorder collects connection events on a buffered channel.
+type eventRecorder struct{ ch chan Event }
+
+func newEventRecorder() *eventRecorder { return &eventRecorder{ch: make(chan Event, 1024)} }
+
+func (r *eventRecorder) on(e Event) {
+	select {
+	case r.ch <- e:
+	default:
+	}
+}
+
+// wait returns the next event of kind k, failing the test after d.
+func (r *eventRecorder) wait(t *testing.T, k EventKind, d time.Duration) Event {
+	t.Helper()
+	timer := time.NewTimer(d)
+	defer timer.Stop()
+	for {
+		select {
+		case e := <-r.ch:
+			if e.Kind == k {
+				return e
+			}
+		case <-timer.C:
+			t.Fatalf("no %v event within %v", k, d)
+		}
+	}
+}
+
+func drainConn(t *testing.T, c *Conn) {
+	t.Helper()
+	if err := c.Drain(ctxT(t, 10*time.Second)); err != nil {
+		t.Errorf("drain: %v", err)
+	}
+}
+
+func mustContain(t *testing.T, err error, parts ...string) {
+	t.Helper()
+	if err == nil {
+		t.Fatalf("want an error containing %q, got nil", parts)
+	}
+	for _, p := range parts {
+		if !strings.Contains(err.Error(), p) {
+			t.Errorf("error %q does not mention %q", err, p)
+		}
+	}
+}
+
+var _ = fmt.Sprintf

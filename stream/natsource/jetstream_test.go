@@ -1,0 +1,467 @@
+package natsource
+
+import (
+	"math/rand/v2"
+	"net"
+	"strconv"
+	"sync"
+	"testing"
+	"time"
+
+	"github.com/nats-io/nats.go"
+	"github.com/nats-io/nats.go/jetstream"
+)
+
+// publishN publishes n messages "i" (i = 1..n) to subj through JetStream,
+// waiting for each acknowledgement from the server, and returns the
+// stream sequence of each.
+func publishN(t *testing.T, nc *nats.Conn, subj string, from, to int) {
+	t.Helper()
+	js, err := jetstream.New(nc)
+	if err != nil {
+		t.Fatal(err)
+	}
+	ctx := ctxT(t, 30*time.Second)
+	for i := from; i <= to; i++ {
+		if _, err := js.Publish(ctx, subj, []byte(strconv.Itoa(i))); err != nil {
+			t.Fatalf("publish %d: %v", i, err)
+		}
+	}
+}
+
+// eventTimes gives message i a "latest event time" that grows with i but
+// not monotonically (seeded jitter of up to 5 s), so that acknowledgements
+// by watermark happen out of sequence order.
+func eventTimes(n int) []time.Time {
+	r := rand.New(rand.NewPCG(1, 2))
+	ts := make([]time.Time, n+1)
+	t0 := time.Date(2026, 1, 1, 0, 0, 0, 0, time.UTC)
+	for i := 1; i <= n; i++ {
+		ts[i] = t0.Add(time.Duration(i)*time.Second + time.Duration(r.IntN(5000))*time.Millisecond)
+	}
+	return ts
+}
+
+// consumerRun is one life of a consuming process: a connection, a
+// JetStream consumer and an AckTracker, recording what it processed.
+type consumerRun struct {
+	conn *Conn
+	cons *JSConsumer
+	tr   *AckTracker
+
+	mu         sync.Mutex
+	processed  map[uint64]int // stream seq → times fed
+	payload    map[uint64]int
+	wmLag      time.Duration // the simulated aligner runs this far behind the newest event time
+	newest     time.Time
+	ackAll     bool
+	count      chan int
+	loseAck    func(seq uint64, delivery int) bool // fault injection: drop this acknowledgement
+	deliveries map[uint64]int
+	limit      int // if > 0, the process "dies" after feeding this many: later messages are ignored
+}
+
+func startRun(t *testing.T, url string, cfg JetStreamConfig, cp Checkpoint, ts []time.Time, lag time.Duration) *consumerRun {
+	t.Helper()
+	c, err := Connect(ctxT(t, 5*time.Second), Options{URLs: []string{url}, ReconnectWait: 20 * time.Millisecond}, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	r := &consumerRun{
+		conn:       c,
+		tr:         NewAckTracker(cfg.MaxAckPending, cp),
+		processed:  map[uint64]int{},
+		payload:    map[uint64]int{},
+		deliveries: map[uint64]int{},
+		wmLag:      lag,
+		count:      make(chan int, 1<<16),
+	}
+	r.cons, err = c.ConsumeJetStream(ctxT(t, 10*time.Second), cfg, func(m Msg) error {
+		r.mu.Lock()
+		defer r.mu.Unlock()
+		r.deliveries[m.Seq]++
+		if r.limit > 0 && len(r.processed) >= r.limit {
+			return nil
+		}
+		if r.loseAck != nil && r.loseAck(m.Seq, r.deliveries[m.Seq]) {
+			m.Ack = func() error { return nil } // the acknowledgement never reaches the server
+		}
+		if !r.tr.Admit(m) {
+			return nil
+		}
+		i, err := strconv.Atoi(string(m.Data))
+		if err != nil {
+			return err
+		}
+		r.processed[m.Seq]++
+		r.payload[m.Seq] = i
+		if ts[i].After(r.newest) {
+			r.newest = ts[i]
+		}
+		if err := r.tr.Add(m, ts[i]); err != nil {
+			return err
+		}
+		wm := r.newest.Add(-r.wmLag)
+		if r.ackAll {
+			wm = r.newest.Add(time.Hour)
+		}
+		if _, err := r.tr.AckThrough(wm); err != nil {
+			return err
+		}
+		r.count <- len(r.processed)
+		return nil
+	})
+	if err != nil {
+		c.Close()
+		t.Fatal(err)
+	}
+	return r
+}
+
+func (r *consumerRun) waitCount(t *testing.T, n int, d time.Duration) {
+	t.Helper()
+	timer := time.NewTimer(d)
+	defer timer.Stop()
+	for {
+		select {
+		case k := <-r.count:
+			if k >= n {
+				return
+			}
+		case <-timer.C:
+			r.mu.Lock()
+			k := len(r.processed)
+			r.mu.Unlock()
+			t.Fatalf("processed %d messages, want %d within %v", k, n, d)
+		}
+	}
+}
+
+// TestJetStreamCrashRestartExactlyOnce: a consumer processes part of a
+// stream, acknowledging by watermark (out of sequence order), and dies
+// without acknowledging the rest (connection closed, no drain). A new
+// process resumes from the tracker's checkpoint. Taking the checkpoint as the
+// consistent cut (it is saved together with the model state), every
+// message is processed exactly once: those at or below the checkpoint
+// sequence by the first process, all others by the second.
+func TestJetStreamCrashRestartExactlyOnce(t *testing.T) {
+	for _, tc := range []struct {
+		name     string
+		resume   func(cp Checkpoint) uint64 // JetStreamConfig.StartAfter of the second process
+		wantDups bool
+	}{
+		// The server delivers everything after the checkpoint again.
+		{name: "reset to checkpoint", resume: func(cp Checkpoint) uint64 { return cp.Seq }},
+		// The server delivers everything after its acknowledgement floor
+		// again, which lies below the checkpoint because acknowledgements
+		// were lost; the tracker drops what is at or below its checkpoint.
+		{name: "reset to ack floor", resume: func(Checkpoint) uint64 { return 0 }, wantDups: true},
+	} {
+		t.Run(tc.name, func(t *testing.T) { testCrashRestart(t, tc.resume, tc.wantDups) })
+	}
+}
+
+func testCrashRestart(t *testing.T, resume func(Checkpoint) uint64, wantDups bool) {
+	checkNoLeak(t)
+	s := runServer(t, testOpts(t))
+	const n = 400
+	ts := eventTimes(n)
+	cfg := JetStreamConfig{
+		Stream: "READINGS", Durable: "modewatch", CreateStream: true,
+		StreamSubjects: []string{"plant.readings.>"}, FilterSubjects: []string{"plant.readings.>"},
+		MaxAckPending: 64, PullBatch: 16,
+	}
+
+	r1 := startRun(t, s.ClientURL(), cfg, Checkpoint{}, ts, 20*time.Second)
+	r1.mu.Lock()
+	r1.loseAck = func(seq uint64, _ int) bool { return seq%7 == 3 } // acknowledgements lost in the crash
+	r1.limit = 290
+	r1.mu.Unlock()
+	publishN(t, r1.conn.NATS(), "plant.readings.unit1", 1, n)
+	r1.waitCount(t, r1.limit, 20*time.Second)
+	if err := r1.cons.Stop(ctxT(t, 5*time.Second)); err != nil {
+		t.Fatal(err)
+	}
+	r1.mu.Lock()
+	cp := r1.tr.Checkpoint()
+	st1 := r1.tr.Stats()
+	r1.mu.Unlock()
+	r1.conn.Close() // crash: no drain; waiting messages stay unacknowledged
+	if cp.Seq == 0 || st1.Waiting == 0 || st1.Held == st1.Waiting {
+		t.Fatalf("checkpoint %+v, stats %+v: want some acknowledged, some out of order, some waiting", cp, st1)
+	}
+	// MaxAckPending bounds what the first process could hold unacknowledged.
+	if st1.Waiting > cfg.MaxAckPending {
+		t.Errorf("%d waiting, above MaxAckPending %d", st1.Waiting, cfg.MaxAckPending)
+	}
+
+	r2 := startRun(t, s.ClientURL(), JetStreamConfig{
+		Stream: cfg.Stream, Durable: cfg.Durable, MaxAckPending: cfg.MaxAckPending, StartAfter: resume(cp),
+	}, cp, ts, 0)
+	r2.mu.Lock()
+	r2.ackAll = true
+	r2.mu.Unlock()
+	r2.waitCount(t, n-int(cp.Seq), 20*time.Second)
+
+	r2.mu.Lock()
+	seen := map[int]int{}
+	for seq, k := range r1.processed {
+		if seq <= cp.Seq {
+			seen[r1.payload[seq]] += k
+		}
+	}
+	for seq, k := range r2.processed {
+		if seq <= cp.Seq {
+			t.Errorf("second process fed seq %d at or below the checkpoint %d", seq, cp.Seq)
+		}
+		seen[r2.payload[seq]] += k
+	}
+	st2 := r2.tr.Stats()
+	t.Logf("checkpoint seq %d; first process %+v; second process %+v", cp.Seq, st1, st2)
+	r2.mu.Unlock()
+	// The lowest lost acknowledgement is seq 3: the ack floor stays at 2, so
+	// a reset to the floor delivers seqs 3..cp.Seq again, all dropped.
+	if wantDups && st2.Duplicates != cp.Seq-2 {
+		t.Errorf("second process dropped %d duplicates, want %d (seqs 3..%d)", st2.Duplicates, cp.Seq-2, cp.Seq)
+	}
+	if !wantDups && st2.Duplicates != 0 {
+		t.Errorf("second process dropped %d duplicates, want 0", st2.Duplicates)
+	}
+	for i := 1; i <= n; i++ {
+		if seen[i] != 1 {
+			t.Errorf("message %d processed %d times, want exactly once", i, seen[i])
+		}
+	}
+	// Everything acknowledged on the server in the end.
+	waitFor(t, 10*time.Second, "ack floor at the last message", func() bool {
+		ci, err := r2.cons.Info(ctxT(t, 5*time.Second))
+		return err == nil && ci.AckFloor.Stream == n && ci.NumAckPending == 0 && ci.NumPending == 0
+	})
+	if err := r2.cons.Stop(ctxT(t, 5*time.Second)); err != nil {
+		t.Fatal(err)
+	}
+	drainConn(t, r2.conn)
+}
+
+// TestJetStreamRedeliveryDeduplicated: with a short AckWait and a stalled
+// watermark the server redelivers waiting messages, and some
+// acknowledgements are lost (fault injected). Every message is still fed
+// exactly once, duplicates are counted, redelivered waiting messages are
+// acknowledged through their newest delivery, and in the end nothing is
+// left unacknowledged on the server.
+func TestJetStreamRedeliveryDeduplicated(t *testing.T) {
+	checkNoLeak(t)
+	s := runServer(t, testOpts(t))
+	const n = 60
+	ts := eventTimes(n)
+	cfg := JetStreamConfig{
+		Stream: "R", Durable: "d", CreateStream: true, StreamSubjects: []string{"r.>"},
+		AckWait: 300 * time.Millisecond, MaxAckPending: 100,
+	}
+	r := startRun(t, s.ClientURL(), cfg, Checkpoint{}, ts, 1000*time.Hour) // watermark stalled
+	r.mu.Lock()
+	r.loseAck = func(seq uint64, delivery int) bool { return seq%5 == 0 && delivery == 1 }
+	r.mu.Unlock()
+	publishN(t, r.conn.NATS(), "r.x", 1, n)
+	r.waitCount(t, n, 10*time.Second)
+	waitFor(t, 10*time.Second, "redeliveries", func() bool { return r.cons.Stats().Redelivered >= n })
+	// Release the watermark: acknowledge everything through the tracker.
+	r.mu.Lock()
+	if _, err := r.tr.AckThrough(ts[n].Add(time.Hour)); err != nil {
+		t.Error(err)
+	}
+	r.mu.Unlock()
+	// Lost acknowledgements (seq%5 == 0, first delivery) come back after
+	// AckWait and are acknowledged again by Admit.
+	waitFor(t, 10*time.Second, "everything acknowledged", func() bool {
+		ci, err := r.cons.Info(ctxT(t, 5*time.Second))
+		return err == nil && ci.AckFloor.Stream == n && ci.NumAckPending == 0
+	})
+	r.mu.Lock()
+	for seq := uint64(1); seq <= n; seq++ {
+		if r.processed[seq] != 1 {
+			t.Errorf("seq %d fed %d times", seq, r.processed[seq])
+		}
+	}
+	st := r.tr.Stats()
+	r.mu.Unlock()
+	if st.Admitted != n || st.Duplicates < n || st.Waiting != 0 || st.Held != 0 {
+		t.Errorf("tracker stats %+v: want %d admitted, ≥ %d duplicates, none held", st, n, n)
+	}
+	if cp := r.tr.Checkpoint(); cp.Seq != n {
+		t.Errorf("checkpoint seq %d, want %d", cp.Seq, n)
+	}
+	if err := r.cons.Stop(ctxT(t, 5*time.Second)); err != nil {
+		t.Fatal(err)
+	}
+	drainConn(t, r.conn)
+}
+
+// TestJetStreamMaxAckPendingBackpressure: with nothing acknowledged the
+// server delivers exactly MaxAckPending messages and holds the rest back,
+// which is how intake slows when processing falls behind.
+func TestJetStreamMaxAckPendingBackpressure(t *testing.T) {
+	checkNoLeak(t)
+	s := runServer(t, testOpts(t))
+	const n, maxAck = 200, 25
+	ts := eventTimes(n)
+	r := startRun(t, s.ClientURL(), JetStreamConfig{
+		Stream: "B", Durable: "b", CreateStream: true, StreamSubjects: []string{"b"}, MaxAckPending: maxAck,
+	}, Checkpoint{}, ts, 1000*time.Hour)
+	publishN(t, r.conn.NATS(), "b", 1, n)
+	r.waitCount(t, maxAck, 10*time.Second)
+	var ci *jetstream.ConsumerInfo
+	waitFor(t, 10*time.Second, "server-side pending counts", func() bool {
+		var err error
+		ci, err = r.cons.Info(ctxT(t, 5*time.Second))
+		return err == nil && ci.NumAckPending == maxAck && ci.NumPending == n-maxAck
+	})
+	if got := r.cons.Stats().Delivered; got != maxAck {
+		t.Errorf("delivered %d, want %d (MaxAckPending)", got, maxAck)
+	}
+	// Acknowledging 10 lets exactly 10 more in.
+	r.mu.Lock()
+	if _, err := r.tr.AckThrough(ts[1].Add(-time.Nanosecond)); err != nil { // acknowledges nothing
+		t.Error(err)
+	}
+	acked, err := r.tr.AckThrough(maxEventOf(ts[:11]).Add(time.Nanosecond))
+	r.mu.Unlock()
+	if err != nil {
+		t.Fatal(err)
+	}
+	waitFor(t, 10*time.Second, "more deliveries after acks", func() bool {
+		return r.cons.Stats().Delivered == uint64(maxAck+acked)
+	})
+	if err := r.cons.Stop(ctxT(t, 5*time.Second)); err != nil {
+		t.Fatal(err)
+	}
+	drainConn(t, r.conn)
+}
+
+func maxEventOf(ts []time.Time) time.Time {
+	var m time.Time
+	for _, t := range ts {
+		if t.After(m) {
+			m = t
+		}
+	}
+	return m
+}
+
+// TestServerRestartReconnect: the server is shut down mid-stream and a new
+// one started on the same port and store directory. The client reports
+// disconnected and reconnected through its callback, the consumer carries on
+// and the JetStream data published before the restart is all there.
+func TestServerRestartReconnect(t *testing.T) {
+	checkNoLeak(t)
+	opts := testOpts(t)
+	s1 := runServer(t, opts)
+	url := s1.ClientURL()
+	tcpPort := s1.Addr().(*net.TCPAddr).Port
+
+	const n1, n2 = 50, 50
+	ts := eventTimes(n1 + n2)
+	ev := newEventRecorder()
+	c, err := Connect(ctxT(t, 5*time.Second), Options{
+		URLs: []string{url}, ReconnectWait: 20 * time.Millisecond, MaxReconnectWait: 100 * time.Millisecond,
+		ReconnectJitter: -1, OnEvent: ev.on,
+	}, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	ev.wait(t, EventConnected, 5*time.Second)
+	tr := NewAckTracker(0, Checkpoint{})
+	var mu sync.Mutex
+	fed := map[int]int{}
+	got := make(chan int, 1024)
+	cons, err := c.ConsumeJetStream(ctxT(t, 10*time.Second), JetStreamConfig{
+		Stream: "S", Durable: "d", CreateStream: true, StreamSubjects: []string{"s.>"},
+	}, func(m Msg) error {
+		if !tr.Admit(m) {
+			return nil
+		}
+		i, _ := strconv.Atoi(string(m.Data))
+		mu.Lock()
+		fed[i]++
+		mu.Unlock()
+		if err := tr.Add(m, ts[i]); err != nil {
+			return err
+		}
+		_, err := tr.AckThrough(ts[i].Add(time.Hour))
+		got <- i
+		return err
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+	pub, err := nats.Connect(url, nats.ReconnectWait(20*time.Millisecond), nats.MaxReconnects(-1))
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer pub.Close()
+	publishN(t, pub, "s.a", 1, n1)
+	for range n1 {
+		select {
+		case <-got:
+		case <-time.After(10 * time.Second):
+			t.Fatal("first batch not consumed")
+		}
+	}
+	if err := c.NATS().Flush(); err != nil { // acknowledgements reach the server
+		t.Fatal(err)
+	}
+
+	s1.Shutdown()
+	s1.WaitForShutdown()
+	if e := ev.wait(t, EventDisconnected, 10*time.Second); c.State() != StateReconnecting && c.State() != StateConnected {
+		t.Errorf("after %v: state %v", e, c.State())
+	}
+	opts2 := *opts
+	opts2.Port = tcpPort
+	s2 := runServer(t, &opts2)
+	e := ev.wait(t, EventReconnected, 20*time.Second)
+	if c.State() != StateConnected {
+		t.Errorf("state %v after reconnect to %s", c.State(), e.URL)
+	}
+	if st := c.Stats(); st.Reconnects != 1 || st.Disconnects != 1 {
+		t.Errorf("conn stats %+v, want 1 disconnect and 1 reconnect", st)
+	}
+	// Data published before the restart survived in the store directory.
+	js, err := jetstream.New(c.NATS())
+	if err != nil {
+		t.Fatal(err)
+	}
+	waitFor(t, 20*time.Second, "stream back after restart", func() bool {
+		st, err := js.Stream(ctxT(t, 2*time.Second), "S")
+		return err == nil && st.CachedInfo().State.Msgs == n1 && st.CachedInfo().State.FirstSeq == 1
+	})
+	waitFor(t, 20*time.Second, "publisher reconnected", pub.IsConnected)
+	publishN(t, pub, "s.a", n1+1, n1+n2)
+	for range n2 {
+		select {
+		case <-got:
+		case <-time.After(20 * time.Second):
+			t.Fatal("second batch not consumed after the restart")
+		}
+	}
+	mu.Lock()
+	for i := 1; i <= n1+n2; i++ {
+		if fed[i] != 1 {
+			t.Errorf("message %d fed %d times, want 1", i, fed[i])
+		}
+	}
+	mu.Unlock()
+	waitFor(t, 10*time.Second, "all acknowledged", func() bool {
+		ci, err := cons.Info(ctxT(t, 2*time.Second))
+		return err == nil && ci.AckFloor.Stream == n1+n2 && ci.NumAckPending == 0
+	})
+	if err := cons.Stop(ctxT(t, 5*time.Second)); err != nil {
+		t.Fatal(err)
+	}
+	drainConn(t, c)
+	ev.wait(t, EventClosed, 5*time.Second)
+	if c.State() != StateClosed {
+		t.Errorf("state %v after drain", c.State())
+	}
+	_ = s2
+}
