@@ -53,9 +53,9 @@ const (
 	// RefitAuto refits the soft-thresholding penalties (L1Pen, L1PenSqrt,
 	// LogPen, ExpPen), whose loadings are shrunk; the other methods already
 	// end at an eigenvector of their support, or (L1) keep their constraint.
-	RefitAuto Refit = iota
-	RefitAlways
-	RefitNever
+	RefitAuto   Refit = iota
+	RefitAlways       // refit every method (for L1 the result may leave the ℓ1 ball)
+	RefitNever        // keep the solver's loadings
 )
 
 // Options tunes Solve. The zero value (or a nil *Options) means defaults.

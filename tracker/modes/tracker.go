@@ -40,7 +40,9 @@ type Config struct {
 	MaxIter int
 	// ColdEvery: every ColdEvery-th Refresh also solves every mode from the
 	// cold start and keeps, per mode, the result with the larger objective
-	// (ties: the warm one), so a stale support cannot persist. 0 means
+	// (ties: the warm one), so a stale support cannot persist. This matters
+	// most for LogPen and ExpPen, whose zero loadings are sticky from a warm
+	// start. A cold pass reads all of A (O(p²) per mode). 0 means
 	// DefaultColdEvery; negative means never (after the first Refresh).
 	ColdEvery int
 	// Start, Refit and EpsStages: see Options.
@@ -273,7 +275,11 @@ func NewTracker(p int, cfg Config) (*Tracker, error) {
 
 // Config returns the configuration with defaults filled in (Sparsity has one
 // entry per mode slot).
-func (t *Tracker) Config() Config { return t.cfg }
+func (t *Tracker) Config() Config {
+	c := t.cfg
+	c.Sparsity = append([]Sparsity(nil), t.cfg.Sparsity...)
+	return c
+}
 
 // Count returns the current number of modes r.
 func (t *Tracker) Count() int { return t.cur.r }
