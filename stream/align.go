@@ -299,15 +299,24 @@ func (a *Aligner) emit() error {
 	s := a.slot(k)
 	end := (k + 1) * a.per
 	f := &a.frame
-	for c := 0; c < a.p; c++ {
-		if t := s.t[c]; t != noTime {
-			a.carryT[c], a.carryV[c] = t, s.v[c]
-			s.t[c] = noTime
-		}
-		if t := a.carryT[c]; t != noTime && end-t <= a.stale && !math.IsNaN(a.carryV[c]) {
-			f.Values[c], f.Missing[c] = a.carryV[c], false
+	// A carried reading is valid while t ≥ end - Staleness; noTime (the
+	// minimum int64) is always below that bound.
+	minT := end - a.stale
+	p := a.p
+	st, sv := s.t[:p], s.v[:p]
+	ct, cv := a.carryT[:p], a.carryV[:p]
+	fv, fm := f.Values[:p], f.Missing[:p]
+	for c, t := range st {
+		if t != noTime {
+			ct[c], cv[c] = t, sv[c]
+			st[c] = noTime
 		} else {
-			f.Values[c], f.Missing[c] = math.NaN(), true
+			t = ct[c]
+		}
+		if v := cv[c]; t >= minT && v == v {
+			fv[c], fm[c] = v, false
+		} else {
+			fv[c], fm[c] = math.NaN(), true
 		}
 	}
 	f.Start = time.Unix(0, k*a.per).UTC()

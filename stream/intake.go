@@ -154,6 +154,7 @@ type Intake struct {
 	mEnd int      // measurement is sc[:mEnd]
 	tags []tagRef // tags of the line, offsets into sc
 	vals []fieldVal
+	unk  []span
 
 	// Position of the chunk being decoded.
 	src     string
@@ -171,13 +172,13 @@ type Intake struct {
 
 type tagRef struct{ k0, k1, v1 int } // key sc[k0:k1], value sc[k1:v1]
 
+// fieldVal is a numeric field of the line being decoded.
 type fieldVal struct {
-	c      int32   // channel, or -1: unknown (key in sc[k0:k1])
-	k0, k1 int32   // field key in sc, for unknown fields
-	x      float64 // value
-	bool   bool    // came from a boolean field
-	bad    bool    // not finite
+	x float64 // value; NaN if not finite
+	c int32   // channel ≥ 0, or -1-i for an unknown field whose key is unk[i]
 }
+
+type span struct{ k0, k1 int32 } // sc[k0:k1]
 
 type heldAck struct {
 	t   int64
@@ -504,7 +505,7 @@ func (in *Intake) entry(dec *lineprotocol.Decoder) error {
 		in.rejectDecode(err)
 		return nil
 	}
-	lastOff := offsetIn(in.chunk, m)
+	lastTok := m // last token seen, to place errors found after decoding
 	sc := append(in.sc[:0], m...)
 	mEnd := len(sc)
 	in.mEnd = mEnd
@@ -541,7 +542,7 @@ func (in *Intake) entry(dec *lineprotocol.Decoder) error {
 	in.key, in.tags = key, tags
 	s := in.ch.series[string(key)]
 
-	vals := in.vals[:0]
+	vals, unk := in.vals[:0], in.unk[:0]
 	var nStrings, nBools, nUnmapped uint64
 	for j := 0; ; j++ {
 		fk, kind, fv, err := dec.NextFieldBytes()
@@ -553,11 +554,9 @@ func (in *Intake) entry(dec *lineprotocol.Decoder) error {
 		if fk == nil {
 			break
 		}
-		if o := offsetIn(in.chunk, fv); o >= 0 {
-			lastOff = o
-		}
+		lastTok = fv
 		var x float64
-		var isBool, bad bool
+		var isBool bool
 		switch kind {
 		case lineprotocol.Float:
 			x, err = strconv.ParseFloat(str(fv), 64)
@@ -566,14 +565,16 @@ func (in *Intake) entry(dec *lineprotocol.Decoder) error {
 				in.rejectField(fk, fv, "not a float")
 				return nil
 			}
-			bad = math.IsInf(x, 0) || math.IsNaN(x)
+			if x-x != 0 { // ±Inf (also from overflow) or NaN
+				x = math.NaN()
+			}
 		case lineprotocol.Int:
 			var n int64
 			n, err = strconv.ParseInt(str(fv), 10, 64)
 			x = float64(n)
 			if errors.Is(err, strconv.ErrRange) {
 				// A well-formed integer beyond int64 is still a number.
-				x, err = strconv.ParseFloat(str(fv), 64)
+				x, err = parseBig(fv)
 			}
 			if err != nil {
 				in.sc, in.vals = sc, vals
@@ -585,7 +586,7 @@ func (in *Intake) entry(dec *lineprotocol.Decoder) error {
 			n, err = strconv.ParseUint(str(fv), 10, 64)
 			x = float64(n)
 			if errors.Is(err, strconv.ErrRange) {
-				x, err = strconv.ParseFloat(str(fv), 64)
+				x, err = parseBig(fv)
 			}
 			if err != nil {
 				in.sc, in.vals = sc, vals
@@ -610,7 +611,11 @@ func (in *Intake) entry(dec *lineprotocol.Decoder) error {
 		}
 		c := int32(-1)
 		if s != nil {
-			c = s.lookup(j, fk, in.ch)
+			if j < len(s.order) && s.orderKeys[j] == string(fk) {
+				c = s.order[j] // same field order as the series' last line
+			} else {
+				c = s.lookup(j, fk, in.ch)
+			}
 		}
 		if c < 0 && (isBool || !in.ch.auto) {
 			if isBool {
@@ -624,15 +629,15 @@ func (in *Intake) entry(dec *lineprotocol.Decoder) error {
 			nBools++
 			continue
 		}
-		fvl := fieldVal{c: c, x: x, bool: isBool, bad: bad}
 		if c < 0 {
-			fvl.k0 = int32(len(sc))
+			k0 := int32(len(sc))
 			sc = append(sc, fk...)
-			fvl.k1 = int32(len(sc))
+			unk = append(unk, span{k0, int32(len(sc))})
+			c = -int32(len(unk))
 		}
-		vals = append(vals, fvl)
+		vals = append(vals, fieldVal{x, c})
 	}
-	in.sc, in.vals = sc, vals
+	in.sc, in.vals, in.unk = sc, vals, unk
 
 	// Timestamp.
 	tb, err := dec.TimeBytes()
@@ -643,7 +648,7 @@ func (in *Intake) entry(dec *lineprotocol.Decoder) error {
 	var t int64
 	if tb == nil {
 		if in.opt.Now == nil {
-			line, col := in.position(lastOff)
+			line, col := in.position(offsetIn(in.chunk, lastTok))
 			in.reject(ReasonNoTime, line, col, errors.New("line has no timestamp"))
 			return nil
 		}
@@ -673,15 +678,16 @@ func (in *Intake) entry(dec *lineprotocol.Decoder) error {
 		if vals[i].c >= 0 {
 			continue
 		}
-		fk := sc[vals[i].k0:vals[i].k1]
+		u := unk[-1-vals[i].c]
+		fk := sc[u.k0:u.k1]
 		if s == nil {
 			if in.ch.Len() >= in.ch.max {
-				vals[i].c = in.refuse(fk, lastOff, nil)
+				vals[i].c = in.refuse(fk, lastTok, nil)
 				continue
 			}
 			s = in.newSeries(mEnd)
 		}
-		vals[i].c = in.discover(s, fk, lastOff)
+		vals[i].c = in.discover(s, fk, lastTok)
 		grown = grown || vals[i].c >= 0
 	}
 	if grown {
@@ -710,9 +716,8 @@ func (in *Intake) entry(dec *lineprotocol.Decoder) error {
 		}
 		x := v.x
 		switch {
-		case v.bad:
+		case x != x:
 			in.st.NonFinite++
-			x = math.NaN()
 		case x < in.lo[c] || x > in.hi[c]:
 			in.st.OutOfRange++
 			x = math.NaN()
@@ -724,6 +729,16 @@ func (in *Intake) entry(dec *lineprotocol.Decoder) error {
 		}
 	}
 	return nil
+}
+
+// parseBig parses an integer outside the 64-bit range as a float; beyond
+// float64 it is NaN (counted as not finite).
+func parseBig(digits []byte) (float64, error) {
+	x, err := strconv.ParseFloat(str(digits), 64)
+	if errors.Is(err, strconv.ErrRange) {
+		return math.NaN(), nil
+	}
+	return x, err
 }
 
 // rejectField rejects the line for a malformed value fv of field fk.
@@ -766,23 +781,23 @@ func (in *Intake) newSeries(mEnd int) *series {
 
 // discover returns the channel for field fk of s, registering it, or -1 if
 // refused.
-func (in *Intake) discover(s *series, fk []byte, lastOff int) int32 {
+func (in *Intake) discover(s *series, fk, tok []byte) int32 {
 	if c, ok := s.fields[string(fk)]; ok { // registered by an earlier field of this line
 		return c
 	}
 	if in.ch.Len() >= in.ch.max {
-		return in.refuse(fk, lastOff, nil)
+		return in.refuse(fk, tok, nil)
 	}
 	c, err := in.ch.discover(s, string(fk))
 	if err != nil {
-		return in.refuse(fk, lastOff, err)
+		return in.refuse(fk, tok, err)
 	}
 	return int32(c)
 }
 
 // refuse counts a refused series field of the current line, reporting it
 // the first time; it returns -1.
-func (in *Intake) refuse(fk []byte, lastOff int, err error) int32 {
+func (in *Intake) refuse(fk, tok []byte, err error) int32 {
 	n := len(in.key)
 	rk := append(in.key, 0, 0)
 	rk = append(rk, fk...)
@@ -801,7 +816,7 @@ func (in *Intake) refuse(fk []byte, lastOff int, err error) int32 {
 		b = append(b, fk...)
 		err = fmt.Errorf("stream: %s: registry is at its cap of %d channels: %w", b, in.ch.max, ErrRefused)
 	}
-	line, _ := in.position(lastOff)
+	line, _ := in.position(offsetIn(in.chunk, tok))
 	in.report(&LineError{Source: in.src, Line: line, Reason: ReasonRefused, Err: err})
 	return -1
 }
