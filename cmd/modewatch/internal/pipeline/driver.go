@@ -209,12 +209,12 @@ func inferPeriod(name string, stdin io.Reader, prec lineprotocol.Precision) (tim
 			prefix = prefix[:i+1]
 		}
 	}
-	if len(prefix) == 0 {
-		return 0, nil, fmt.Errorf("%w (%s is empty)", ErrNoData, name)
+	if len(bytes.TrimSpace(prefix)) == 0 {
+		return 0, nil, fmt.Errorf("%w: %s is empty", ErrNoData, name)
 	}
 	p, err := stream.InferPeriod(prefix, prec)
 	if err != nil {
-		return 0, nil, fmt.Errorf("pipeline: %s: %w (set the period with --period or frames.period)", name, err)
+		return 0, nil, fmt.Errorf("pipeline: %s: %w (use --period or frames.period)", name, err)
 	}
 	p = RoundPeriod(p)
 	if keep != nil {

@@ -1,0 +1,319 @@
+package cli
+
+import (
+	"bufio"
+	"bytes"
+	"encoding/json"
+	"fmt"
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+	"time"
+
+	"github.com/influxdata/line-protocol/v2/lineprotocol"
+
+	"modewatch/cmd/modewatch/internal/pipeline"
+	"modewatch/sim"
+)
+
+// demoLog writes the first hours of the shipped demo scenario (invented
+// data, deterministic) and returns its path and its lines.
+func demoLog(t *testing.T, hours int) (string, []string) {
+	t.Helper()
+	s, err := sim.Demo()
+	if err != nil {
+		t.Fatal(err)
+	}
+	s = s.Clone()
+	s.Duration = time.Duration(hours) * time.Hour
+	var b bytes.Buffer
+	if err := s.WriteLineProtocol(&b); err != nil {
+		t.Fatal(err)
+	}
+	p := filepath.Join(t.TempDir(), "demo.lp")
+	if err := os.WriteFile(p, b.Bytes(), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	return p, strings.Split(strings.TrimSuffix(b.String(), "\n"), "\n")
+}
+
+func decodeSummary(t *testing.T, out string) summary {
+	t.Helper()
+	var s summary
+	if err := json.Unmarshal([]byte(out), &s); err != nil {
+		t.Fatalf("replay --json output is not JSON: %v\n%s", err, out)
+	}
+	return s
+}
+
+func TestReplayEmptyFile(t *testing.T) {
+	p := filepath.Join(t.TempDir(), "empty.lp")
+	os.WriteFile(p, nil, 0o644)
+	code, _, errs := runCLI(t, "", "replay", p)
+	if code != ExitFailure || !strings.Contains(errs, "empty") {
+		t.Errorf("exit %d, stderr %q", code, errs)
+	}
+	// With the period given, the summary still comes out, with zero frames.
+	code, out, errs := runCLI(t, "", "replay", "--period", "10s", "--json", p)
+	if code != ExitFailure || !strings.Contains(errs, "no usable line-protocol data") {
+		t.Errorf("exit %d, stderr %q", code, errs)
+	}
+	if s := decodeSummary(t, out); s.Frames != 0 || s.Lines.Total != 0 {
+		t.Errorf("summary %+v", s)
+	}
+}
+
+func TestReplayGarbage(t *testing.T) {
+	p := filepath.Join(t.TempDir(), "garbage.lp")
+	os.WriteFile(p, []byte("this is not line protocol\n\x00\x01 = = ,\n{\"json\": true}\n"), 0o644)
+	code, _, errs := runCLI(t, "", "replay", p)
+	if code != ExitFailure || !strings.Contains(errs, "cannot infer the frame period") {
+		t.Errorf("exit %d, stderr %q", code, errs)
+	}
+	code, out, errs := runCLI(t, "", "replay", "--period", "10s", "--json", p)
+	if code != ExitFailure {
+		t.Errorf("exit %d", code)
+	}
+	for _, want := range []string{p + ":1:", p + ":2:", p + ":3:"} {
+		if !strings.Contains(errs, want) {
+			t.Errorf("stderr lacks %q:\n%s", want, errs)
+		}
+	}
+	s := decodeSummary(t, out)
+	if s.Lines.Total != 3 || s.Lines.Rejected != 3 || s.Lines.Accepted != 0 || s.Frames != 0 {
+		t.Errorf("lines %+v frames %d", s.Lines, s.Frames)
+	}
+}
+
+// TestReplaySomeBadLines: bad lines are reported with their place and
+// counted; the rest is scored and the exit status is 0.
+func TestReplaySomeBadLines(t *testing.T) {
+	_, lines := demoLog(t, 4)
+	bad := map[int]string{ // 1-based line numbers of the file written below
+		3:    "coolwater,asset=pump01 flow=abc 1772409600000000000",
+		500:  "coolwater,asset=pump01 flow= 1772409600000000000",
+		2000: "not a line at all",
+	}
+	var b strings.Builder
+	n := 0
+	for _, l := range lines {
+		n++
+		if s, ok := bad[n]; ok {
+			b.WriteString(s + "\n")
+			n++
+		}
+		b.WriteString(l + "\n")
+	}
+	p := filepath.Join(t.TempDir(), "some-bad.lp")
+	os.WriteFile(p, []byte(b.String()), 0o644)
+	code, out, errs := runCLI(t, "", "replay", "--json", p)
+	if code != ExitOK {
+		t.Fatalf("exit %d: %s", code, errs)
+	}
+	for ln := range bad {
+		if !strings.Contains(errs, fmt.Sprintf("%s:%d:", p, ln)) {
+			t.Errorf("bad line %d not reported:\n%s", ln, errs)
+		}
+	}
+	s := decodeSummary(t, out)
+	if s.Lines.Rejected != 3 || s.Lines.Accepted != uint64(len(lines)) || s.Lines.Total != uint64(len(lines)+3) {
+		t.Errorf("lines %+v, want %d accepted and 3 rejected", s.Lines, len(lines))
+	}
+	// 4 h at the demo's 20 s period: 720 frames (± the partial edges).
+	if s.Frames < 715 || s.Frames > 722 || s.Period != "20s" || !s.PeriodInferred {
+		t.Errorf("frames %d period %s inferred %v", s.Frames, s.Period, s.PeriodInferred)
+	}
+	if s.Channels != 50 || len(s.Units) != 4 {
+		t.Errorf("channels %d, units %d (the demo plant has 50 channels in 4 units)", s.Channels, len(s.Units))
+	}
+}
+
+// TestFitReplayModel: fit writes a model; replay --model starts from it;
+// --adapt=false holds it fixed (modes identical to the file's), and the
+// scores and alerts files are written as documented.
+func TestFitReplayModel(t *testing.T) {
+	p, _ := demoLog(t, 12)
+	dir := t.TempDir()
+	model := filepath.Join(dir, "model.json")
+	code, out, errs := runCLI(t, "", "fit", "--quiet", "--json", "--out", model, p)
+	if code != ExitOK {
+		t.Fatalf("fit: exit %d: %s", code, errs)
+	}
+	var fitted struct {
+		Frames uint64
+		Units  []struct {
+			Name  string
+			Modes []pipeline.ModeView
+		}
+	}
+	if err := json.Unmarshal([]byte(out), &fitted); err != nil || len(fitted.Units) != 4 {
+		t.Fatalf("fit --json: %v %s", err, out)
+	}
+	mf, err := pipeline.ReadModel(model)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if mf.Version != pipeline.ModelVersion || mf.Units[0].Settings.HalfLife != 0 {
+		t.Errorf("model version %d, halflife %v (fit weighs frames equally)", mf.Version, mf.Units[0].Settings.HalfLife)
+	}
+
+	scores := filepath.Join(dir, "scores.lp")
+	alertsFile := filepath.Join(dir, "alerts.jsonl")
+	code, out, errs = runCLI(t, "", "replay", "--quiet", "--json", "--model", model, "--adapt=false",
+		"--scores", scores, "--alerts", alertsFile, p)
+	if code != ExitOK {
+		t.Fatalf("replay: exit %d: %s", code, errs)
+	}
+	s := decodeSummary(t, out)
+	for _, u := range s.Units {
+		if u.ModelState != "baseline" {
+			t.Errorf("unit %s state %s, want baseline with --adapt=false", u.Name, u.ModelState)
+		}
+	}
+	// The modes are those of the model file, untouched.
+	for _, fu := range fitted.Units {
+		var got []modeSummary
+		for _, m := range s.Modes {
+			if m.Unit == fu.Name {
+				got = append(got, m)
+			}
+		}
+		if len(got) != len(fu.Modes) {
+			t.Fatalf("unit %s: %d modes after replay, %d fitted", fu.Name, len(got), len(fu.Modes))
+		}
+		for j := range got {
+			if got[j].ID != fu.Modes[j].ID || fmt.Sprint(got[j].Loadings) != fmt.Sprint(fu.Modes[j].Loadings) {
+				t.Errorf("unit %s mode %d changed under --adapt=false", fu.Name, j)
+			}
+		}
+	}
+	// Scores: one line per unit and scored frame, every one decodable.
+	f, err := os.Open(scores)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer f.Close()
+	dec := lineprotocol.NewDecoder(bufio.NewReader(f))
+	nLines := 0
+	units := map[string]int{}
+	for dec.Next() {
+		m, err := dec.Measurement()
+		if err != nil || string(m) != "modewatch_scores" {
+			t.Fatalf("measurement %q, %v", m, err)
+		}
+		k, v, err := dec.NextTag()
+		if err != nil || string(k) != "unit" {
+			t.Fatalf("tag %q=%q, %v", k, v, err)
+		}
+		units[string(v)]++
+		fields := map[string]bool{}
+		for {
+			k, _, err := dec.NextField()
+			if err != nil {
+				t.Fatal(err)
+			}
+			if k == nil {
+				break
+			}
+			fields[string(k)] = true
+		}
+		for _, want := range []string{"t2", "t2_limit", "spe", "spe_limit", "phi", "phi_limit", "missing"} {
+			if !fields[want] {
+				t.Fatalf("score line without %s: %v", want, fields)
+			}
+		}
+		if _, err := dec.Time(lineprotocol.Nanosecond, time.Time{}); err != nil {
+			t.Fatal(err)
+		}
+		nLines++
+	}
+	if nLines == 0 {
+		t.Fatal("no score lines")
+	}
+	for _, u := range s.Units {
+		if units[u.Name] != int(u.Frames) {
+			t.Errorf("unit %s: %d score lines, %d frames scored", u.Name, units[u.Name], u.Frames)
+		}
+	}
+	// Alerts: JSON lines, and the count of distinct incident ids matches.
+	b, err := os.ReadFile(alertsFile)
+	if err != nil {
+		t.Fatal(err)
+	}
+	ids := map[string]bool{}
+	for _, l := range strings.Split(strings.TrimSpace(string(b)), "\n") {
+		if l == "" {
+			continue
+		}
+		var r struct {
+			ID, Kind, Caution string
+			Revision          int
+		}
+		if err := json.Unmarshal([]byte(l), &r); err != nil {
+			t.Fatalf("alert line %q: %v", l, err)
+		}
+		if r.Caution == "" || r.Revision < 1 {
+			t.Errorf("alert record without caution or revision: %s", l)
+		}
+		if r.Kind != "flood" {
+			ids[r.ID] = true
+		}
+	}
+	if len(ids) != s.Alerts {
+		t.Errorf("%d incident ids in --alerts, summary says %d", len(ids), s.Alerts)
+	}
+}
+
+// TestReplayStdinAndTruth: "-" reads standard input and gives the same
+// result as the file; --truth adds the metrics, computed from the alerts.
+func TestReplayStdinAndTruth(t *testing.T) {
+	p, _ := demoLog(t, 6)
+	data, _ := os.ReadFile(p)
+	truth := filepath.Join(t.TempDir(), "truth.json")
+	// Hand-made truth: one episode in the log, one after it.
+	os.WriteFile(truth, []byte(`{"episodes":[
+		{"id":"a","start":"2026-03-02T03:00:00Z","end":"2026-03-02T05:00:00Z","kind":"bias","channels":["air.header.pressure"]},
+		{"id":"b","start":"2026-03-05T03:00:00Z","end":"2026-03-05T05:00:00Z","kind":"bias","channels":["x"]}]}`), 0o644)
+	code, fromFile, errs := runCLI(t, "", "replay", "--quiet", "--json", "--truth", truth, p)
+	if code != ExitOK {
+		t.Fatalf("exit %d: %s", code, errs)
+	}
+	code, fromStdin, errs := runCLI(t, string(data), "replay", "--quiet", "--json", "--truth", truth, "-")
+	if code != ExitOK {
+		t.Fatalf("stdin: exit %d: %s", code, errs)
+	}
+	a, b := decodeSummary(t, fromFile), decodeSummary(t, fromStdin)
+	if a.Frames != b.Frames || a.Alerts != b.Alerts || a.Lines.Accepted != b.Lines.Accepted {
+		t.Errorf("file and stdin differ: %d/%d frames, %d/%d alerts", a.Frames, b.Frames, a.Alerts, b.Alerts)
+	}
+	m := a.Metrics
+	if m == nil || m.Episodes != 2 || m.Detected > 1 {
+		t.Fatalf("metrics %+v", m)
+	}
+	if m.FalseAlertsPerDay == nil {
+		t.Fatal("false_alerts_per_day missing")
+	}
+	// The per-day rate is false alerts over the span of the replay (6 h).
+	if got, want := *m.FalseAlertsPerDay, float64(m.FalseAlerts)/0.25; got < want*0.99 || got > want*1.01 {
+		t.Errorf("false_alerts_per_day %g, want %g", got, want)
+	}
+}
+
+func TestReplayUsage(t *testing.T) {
+	if code, _, errs := runCLI(t, "", "replay"); code != ExitUsage || !strings.Contains(errs, "no input") {
+		t.Errorf("exit %d %q", code, errs)
+	}
+	if code, _, errs := runCLI(t, "", "replay", "--model", "nope.json", "x.lp"); code != ExitUsage || !strings.Contains(errs, "--model") {
+		t.Errorf("exit %d %q", code, errs)
+	}
+	if code, _, errs := runCLI(t, "", "replay", "--alpha", "0.9", "x.lp"); code != ExitUsage || !strings.Contains(errs, "--alpha") {
+		t.Errorf("exit %d %q", code, errs)
+	}
+	if code, _, errs := runCLI(t, "", "replay", filepath.Join(t.TempDir(), "missing.lp")); code != ExitFailure || !strings.Contains(errs, "no such file") {
+		t.Errorf("exit %d %q", code, errs)
+	}
+	if code, _, errs := runCLI(t, "", "fit", "x.lp"); code != ExitUsage || !strings.Contains(errs, "--out") {
+		t.Errorf("exit %d %q", code, errs)
+	}
+}

@@ -1,0 +1,182 @@
+package pipeline
+
+import (
+	"bytes"
+	"context"
+	"math"
+	"testing"
+	"time"
+
+	"modewatch/alerts"
+	"modewatch/configs"
+	"modewatch/sim"
+	"modewatch/stream"
+)
+
+// demoBytes returns the first hours of the shipped demo scenario (invented
+// data).
+func demoBytes(t testing.TB, hours int) []byte {
+	t.Helper()
+	s, err := sim.Demo()
+	if err != nil {
+		t.Fatal(err)
+	}
+	s = s.Clone()
+	s.Duration = time.Duration(hours) * time.Hour
+	var b bytes.Buffer
+	if err := s.WriteLineProtocol(&b); err != nil {
+		t.Fatal(err)
+	}
+	return b.Bytes()
+}
+
+func TestRoundPeriod(t *testing.T) {
+	cases := []struct{ in, want time.Duration }{
+		{19999803603, 20 * time.Second}, // the demo's jittered 20 s
+		{15 * time.Second, 15 * time.Second},
+		{1234567 * time.Microsecond, 1230 * time.Millisecond},
+		{999 * time.Millisecond, 999 * time.Millisecond},
+		{3, 3},
+	}
+	for _, c := range cases {
+		if got := RoundPeriod(c.in); got != c.want {
+			t.Errorf("RoundPeriod(%v) = %v, want %v", c.in, got, c.want)
+		}
+	}
+}
+
+// TestUnitsFromConfig: a configured unit takes the channels it lists; the
+// rest go to their measurement's unit; channels outside the model are left
+// out.
+func TestUnitsFromConfig(t *testing.T) {
+	cfg, err := configs.Parse("c.yaml", []byte(`
+frames: {period: 20s}
+model: {warmup: 50}
+units:
+  - name: pumps
+    channels: [coolwater.pump01.flow, coolwater.pump02.flow]
+`))
+	if err != nil {
+		t.Fatal(err)
+	}
+	res, err := Replay(context.Background(), ReplayOptions{Config: cfg, Inputs: []string{"-"}, Stdin: bytes.NewReader(demoBytes(t, 1))})
+	if err != nil {
+		t.Fatal(err)
+	}
+	u := res.Pipeline.Unit("pumps")
+	if u == nil {
+		t.Fatal("unit pumps missing")
+	}
+	if got := u.Channels(); len(got) != 2 || got[0] != "coolwater.pump01.flow" {
+		t.Errorf("pumps channels %v", got)
+	}
+	cw := res.Pipeline.Unit("coolwater")
+	for _, c := range cw.Channels() {
+		if c == "coolwater.pump01.flow" || c == "coolwater.pump02.flow" {
+			t.Errorf("channel %s in two units", c)
+		}
+	}
+	if n := len(res.Pipeline.Units()); n != 5 {
+		t.Errorf("%d units, want the 4 measurements + pumps", n)
+	}
+}
+
+// TestFrameAllocs guards the per-frame path (split by unit, tracker step,
+// observation for the alarm engine) against allocation once the models
+// exist, as the style guide asks of hot paths.
+func TestFrameAllocs(t *testing.T) {
+	cfg := &configs.Config{Model: configs.Model{WarmUp: 100, RefreshEvery: 1 << 30}}
+	cfg.ApplyDefaults()
+	res, err := Replay(context.Background(), ReplayOptions{Config: cfg, Inputs: []string{"-"}, Stdin: bytes.NewReader(demoBytes(t, 2))})
+	if err != nil {
+		t.Fatal(err)
+	}
+	p := res.Pipeline
+	// Frames of plausible values: each channel at its mean ± 0.1 σ,
+	// alternating (a constant frame would soon count as flat-lined).
+	n := res.Intake.Channels().Len()
+	f := &stream.Frame{Values: make([]float64, n), Missing: make([]bool, n), Start: time.Date(2026, 3, 2, 3, 0, 0, 0, time.UTC)}
+	lo, hi := make([]float64, n), make([]float64, n)
+	for _, u := range p.Units() {
+		if !u.Score().Ready {
+			t.Fatalf("unit %s not ready after 2 h", u.Name)
+		}
+		means := make([]float64, u.Tracker().P())
+		vars := make([]float64, u.Tracker().P())
+		u.Tracker().Stats().MeanTo(means)
+		u.Tracker().Stats().VarTo(vars)
+		for k, i := range u.idx {
+			lo[i], hi[i] = means[k]-0.1*math.Sqrt(vars[k]), means[k]+0.1*math.Sqrt(vars[k])
+		}
+	}
+	odd := false
+	step := func() {
+		odd = !odd
+		if odd {
+			copy(f.Values, hi)
+		} else {
+			copy(f.Values, lo)
+		}
+		f.Start = f.Start.Add(20 * time.Second)
+		if err := p.Frame(f); err != nil {
+			t.Fatal(err)
+		}
+	}
+	step()
+	if a := testing.AllocsPerRun(200, step); a != 0 {
+		t.Errorf("Frame allocates %v times per frame", a)
+	}
+	for _, u := range p.Units() {
+		if math.IsNaN(u.Score().T2) {
+			t.Errorf("unit %s: T² is NaN", u.Name)
+		}
+	}
+}
+
+// TestFreezeOnAlert: while an alert of a unit is active the alarm engine
+// freezes its learning, and the unit reports the model state "frozen".
+func TestFreezeOnAlert(t *testing.T) {
+	data := demoBytes(t, 3)
+	cfg := &configs.Config{Model: configs.Model{WarmUp: 100}}
+	cfg.ApplyDefaults()
+	var opened []*alerts.Record
+	pub := alerts.PublisherFunc(func(r *alerts.Record) { opened = append(opened, r) })
+	res, err := Replay(context.Background(), ReplayOptions{Config: cfg, Inputs: []string{"-"}, Stdin: bytes.NewReader(data), Publisher: pub})
+	if err != nil {
+		t.Fatal(err)
+	}
+	u := res.Pipeline.Unit("air")
+	// Drive a gross fault: every air channel 50 standard deviations off.
+	n := res.Intake.Channels().Len()
+	f := &stream.Frame{Values: make([]float64, n), Missing: make([]bool, n)}
+	_, _, last := res.Pipeline.Frames()
+	means := make([]float64, u.Tracker().P())
+	vars := make([]float64, u.Tracker().P())
+	u.Tracker().Stats().MeanTo(means)
+	u.Tracker().Stats().VarTo(vars)
+	for i := range f.Missing {
+		f.Missing[i] = true
+	}
+	for k, i := range u.idx {
+		f.Missing[i] = false
+		f.Values[i] = means[k] + 50*math.Sqrt(vars[k])*float64(1-2*(k%2))
+	}
+	for k := 1; k <= 10; k++ {
+		f.Start = last.Add(time.Duration(k) * 20 * time.Second)
+		if err := res.Pipeline.Frame(f); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if s := u.ModelState(); s != alerts.ModelFrozen {
+		t.Errorf("air model state %q after a gross fault, want frozen", s)
+	}
+	found := false
+	for _, r := range opened {
+		if r.Unit == "air" && r.End == nil && r.Kind == alerts.KindIncident {
+			found = true
+		}
+	}
+	if !found {
+		t.Error("no open incident for air")
+	}
+}
