@@ -168,8 +168,39 @@ func (m *model) setLoadings(pm mat.Matrix) {
 	a := m.a.RawSymmetric()
 	pg := blas64.General{Rows: p, Cols: R, Stride: R, Data: m.pl}
 	qg := blas64.General{Rows: p, Cols: R, Stride: R, Data: m.q}
-	blas64.Symm(blas.Left, 1, a, pg, 0, blas64.General{Rows: p, Cols: R, Stride: R, Data: m.ap})
-	blas64.Symm(blas.Left, 1, a, qg, 0, blas64.General{Rows: p, Cols: R, Stride: R, Data: m.aq})
+	// AP column by column from the nonzero loadings only: O(p·nnz(P)), so
+	// k-sparse modes cost O(p·k·r) instead of O(p²r).
+	m.symTimesSparse(m.ap, m.pl, r)
+	if rq == r {
+		// Gram–Schmidt gives Q = P U⁻¹ with U = QᵀP upper triangular, so
+		// AQ = AP U⁻¹: O(p r²).
+		u := m.sc1
+		for x := 0; x < r; x++ {
+			for y := 0; y < r; y++ {
+				s := 0.0
+				for i := 0; i < p; i++ {
+					s += m.q[i*R+x] * m.pl[i*R+y]
+				}
+				u[x*R+y] = s
+			}
+		}
+		for i := 0; i < p; i++ {
+			row := m.aq[i*R : i*R+R]
+			src := m.ap[i*R : i*R+R]
+			for y := 0; y < r; y++ {
+				v := src[y]
+				for x := 0; x < y; x++ {
+					v -= row[x] * u[x*R+y]
+				}
+				row[y] = v / u[y*R+y]
+			}
+			for y := r; y < R; y++ {
+				row[y] = 0
+			}
+		}
+	} else {
+		m.symTimesSparse(m.aq, m.q, rq)
+	}
 	blas64.Gemm(blas.Trans, blas.NoTrans, 1, qg, blas64.General{Rows: p, Cols: R, Stride: R, Data: m.aq}, 0,
 		blas64.General{Rows: R, Cols: R, Stride: R, Data: m.qaq})
 	blas64.Gemm(blas.Trans, blas.NoTrans, 1, pg, blas64.General{Rows: p, Cols: R, Stride: R, Data: m.ap}, 0,
@@ -193,6 +224,34 @@ func (m *model) setLoadings(pm mat.Matrix) {
 	m.cache = m.cache[:0]
 	m.next = 0
 	m.omegaOK = false
+}
+
+// symTimesSparse sets the first ncol columns of dst (p × maxR) to A·src,
+// reading only the nonzero entries of src and the stored upper triangle of
+// A (row i of A is A[i, i:] followed by the column A[:i, i]).
+func (m *model) symTimesSparse(dst, src []float64, ncol int) {
+	p, R := m.p, m.maxR
+	a := m.a.RawSymmetric()
+	st := a.Stride
+	for i := range dst[:p*R] {
+		dst[i] = 0
+	}
+	for j := 0; j < ncol; j++ {
+		for i := 0; i < p; i++ {
+			v := src[i*R+j]
+			if v == 0 {
+				continue
+			}
+			// upper part: A[i, i:] into dst[i:, j]
+			blas64.Axpy(v, blas64.Vector{N: p - i, Inc: 1, Data: a.Data[i*st+i : i*st+p]},
+				blas64.Vector{N: p - i, Inc: R, Data: dst[i*R+j:]})
+			if i > 0 {
+				// lower part: A[:i, i] (stored as column i of the upper triangle)
+				blas64.Axpy(v, blas64.Vector{N: i, Inc: st, Data: a.Data[i:]},
+					blas64.Vector{N: i, Inc: R, Data: dst[j:]})
+			}
+		}
+	}
 }
 
 // computePattern fills pt for the model and its missing set: the reduced

@@ -351,3 +351,78 @@ func TestSymPinv(t *testing.T) {
 	approx(t, "pinv singular", d3[0], 0.25, 1e-12, 0)
 	approx(t, "pinv singular", d3[8], 0.5, 1e-12, 0)
 }
+
+// θ from traces (Box) and θ₃ from the explicit residual covariance
+// (Jackson–Mudholkar) equal the sums of powers of the residual eigenvalues
+// (gonum EigenSym as the reference; LIMITS.md S16 [DER]).
+func TestThetaMatchesEigen(t *testing.T) {
+	rng := rand.New(rand.NewPCG(71, 72))
+	const p, r = 15, 4
+	s := randomCov(rng, p, 3)
+	pm := eigenLoadings(s, r)
+	m := newModel(p, r)
+	m.a.CopySym(s)
+	for i := range m.include {
+		m.include[i] = true
+	}
+	m.setLoadings(pm)
+	ls := &limitSpec{alpha: 0.01, t2: T2ChiSquare, spe: SPEJacksonMudholkar, rbc: IndexCombined,
+		chi1: limits.ChiSquare(0.99, 1), nEff: math.Inf(1), jmSpace: newJMScratch(p, r)}
+	m.computePattern(m.base, ls)
+	var es mat.EigenSym
+	es.Factorize(s, false)
+	want := limits.ThetaFromEigen(es.Values(nil)[:p-r])
+	got := m.base.theta
+	approx(t, "θ1", got.T1, want.T1, 1e-12, 1e-10)
+	approx(t, "θ2", got.T2, want.T2, 1e-12, 1e-10)
+	approx(t, "θ3", got.T3, want.T3, 1e-12, 1e-10)
+	jm, _ := limits.SPEJacksonMudholkar(0.01, want)
+	approx(t, "JM limit", m.base.speLim, jm, 0, 1e-10)
+}
+
+// For non-orthogonal sparse loadings the φ limit uses tr(SΦ) and tr((SΦ)²)
+// with the cross term tr(SDSC̃); Monte Carlo: E[φ] = tr(SΦ),
+// Var[φ] = 2 tr((SΦ)²) for Gaussian z (Box 1954 moments [DER]).
+func TestPhiMomentsSparse(t *testing.T) {
+	rng := rand.New(rand.NewPCG(81, 82))
+	const p = 12
+	s := randomCov(rng, p, 3)
+	pm := mat.NewDense(p, 3, nil)
+	for j := 0; j < 3; j++ {
+		for i := 3 * j; i < 3*j+6; i++ {
+			pm.Set(i, j, 0.2+rng.Float64())
+		}
+	}
+	m, _ := testModel(t, s, pm, IndexCombined)
+	b := m.base
+	if math.Abs(b.cross) < 1e-6 {
+		t.Fatalf("cross term %v: loadings not informative for this test", b.cross)
+	}
+	a1, a2 := limits.PhiTraces(b.rank, b.t2Lim, b.speLim, b.theta, b.cross)
+	var ch mat.Cholesky
+	ch.Factorize(s)
+	var lo mat.TriDense
+	ch.LTo(&lo)
+	w := newWork(p, 3)
+	g := mat.NewVecDense(p, nil)
+	var zv mat.VecDense
+	const n = 60000
+	var sum, sum2 float64
+	for k := 0; k < n; k++ {
+		for i := 0; i < p; i++ {
+			g.SetVec(i, rng.NormFloat64())
+		}
+		zv.MulVec(&lo, g)
+		for i := 0; i < p; i++ {
+			w.z[i] = zv.AtVec(i)
+		}
+		_, _, phi := m.scoreZ(w, b, IndexCombined)
+		sum += phi
+		sum2 += phi * phi
+	}
+	mean := sum / n
+	vr := sum2/n - mean*mean
+	t.Logf("tr(SΦ) %.5f vs mean φ %.5f; 2tr((SΦ)²) %.5f vs var %.5f; cross %.4g", a1, mean, 2*a2, vr, b.cross)
+	approx(t, "E[φ]", mean, a1, 0, 0.02)
+	approx(t, "Var[φ]", vr, 2*a2, 0, 0.06)
+}

@@ -18,6 +18,7 @@ import (
 type gaussSource struct {
 	rng      *rand.Rand
 	l        mat.TriDense
+	lr       []float64 // L row-major
 	mean, sd []float64
 	g        []float64
 }
@@ -30,6 +31,12 @@ func newGaussSource(seed uint64, corr *mat.SymDense) *gaussSource {
 	}
 	s := &gaussSource{rng: rand.New(rand.NewPCG(seed, seed+1)), mean: make([]float64, p), sd: make([]float64, p), g: make([]float64, p)}
 	ch.LTo(&s.l)
+	s.lr = make([]float64, p*p)
+	for i := 0; i < p; i++ {
+		for j := 0; j <= i; j++ {
+			s.lr[i*p+j] = s.l.At(i, j)
+		}
+	}
 	for i := 0; i < p; i++ {
 		s.mean[i] = 100 * float64(i+1)
 		s.sd[i] = 0.5 + float64(i%7)
@@ -44,8 +51,8 @@ func (s *gaussSource) frame(dst []float64) []float64 {
 	}
 	for i := 0; i < p; i++ {
 		v := 0.0
-		for j := 0; j <= i; j++ {
-			v += s.l.At(i, j) * s.g[j]
+		for j, l := range s.lr[i*p : i*p+i+1] {
+			v += l * s.g[j]
 		}
 		dst[i] = s.mean[i] + s.sd[i]*v
 	}

@@ -1,0 +1,190 @@
+package tracker
+
+import (
+	"bytes"
+	"fmt"
+	"math/rand/v2"
+	"strconv"
+	"testing"
+	"time"
+
+	"github.com/influxdata/line-protocol/v2/lineprotocol"
+	"gonum.org/v1/gonum/mat"
+
+	"modewatch/tracker/modes"
+)
+
+// benchFrames returns n frames of p channels driven by 5 latent factors
+// plus noise (seeded).
+func benchFrames(p, n int) [][]float64 {
+	rng := rand.New(rand.NewPCG(uint64(p), 99))
+	load := make([]float64, p*5)
+	for i := range load {
+		if rng.IntN(5) == 0 {
+			load[i] = rng.NormFloat64()
+		}
+	}
+	out := make([][]float64, n)
+	var f [5]float64
+	for k := range out {
+		for j := range f {
+			f[j] = rng.NormFloat64()
+		}
+		x := make([]float64, p)
+		for i := range x {
+			v := 10*float64(i%13) + 0.3*rng.NormFloat64()
+			for j := range f {
+				v += load[i*5+j] * f[j]
+			}
+			x[i] = v
+		}
+		out[k] = x
+	}
+	return out
+}
+
+var benchSink float64
+
+// benchFrame measures one frame through Step: standardization, scoring
+// (T², SPE, φ), per-channel contributions and the ranked list, the EW update
+// with the batched covariance (rank-64 Syrk), and the refresh of r = 5
+// sparse modes (l0, k = 10) with their limits amortised over 64 frames.
+func benchFrame(b *testing.B, p int) {
+	frames := benchFrames(p, 256)
+	tr, err := New(p, Config{Period: time.Second, HalfLife: time.Hour, WarmUp: 256, RefreshEvery: 64, Batch: 64,
+		Modes: modes.Config{Count: 5, Sparsity: []modes.Sparsity{{Method: modes.L0, K: 10}}}})
+	if err != nil {
+		b.Fatal(err)
+	}
+	var sc Score
+	for k := 0; k < 512; k++ {
+		if err := tr.Step(&sc, frames[k%256], nil); err != nil {
+			b.Fatal(err)
+		}
+	}
+	b.ReportAllocs()
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		tr.Step(&sc, frames[i%256], nil)
+	}
+	benchSink += sc.T2
+}
+
+func BenchmarkFrame(b *testing.B) {
+	for _, p := range []int{100, 500, 1000} {
+		b.Run(fmt.Sprintf("p=%d", p), func(b *testing.B) { benchFrame(b, p) })
+	}
+}
+
+// lineFrame writes one frame of p values as line protocol the way the
+// demo plant does: measurement = unit, tag asset, ten fields per asset,
+// nanosecond timestamp.
+func lineFrame(p int) []byte {
+	rng := rand.New(rand.NewPCG(7, uint64(p)))
+	var buf bytes.Buffer
+	for a := 0; a < p/10; a++ {
+		fmt.Fprintf(&buf, "unit1,asset=a%03d ", a)
+		for f := 0; f < 10; f++ {
+			if f > 0 {
+				buf.WriteByte(',')
+			}
+			buf.WriteString("v" + strconv.Itoa(f) + "=")
+			buf.WriteString(strconv.FormatFloat(100+rng.NormFloat64()*10, 'g', 8, 64))
+		}
+		buf.WriteString(" 1764547200000000000\n")
+	}
+	return buf.Bytes()
+}
+
+// BenchmarkDecodeFrame decodes one frame's 500 values from line protocol
+// with the official decoder (github.com/influxdata/line-protocol/v2): the
+// bar for BenchmarkFrame/p=500 (issue 3). It is a lower bound on the
+// service's decode cost: no channel lookup or alignment is included.
+func BenchmarkDecodeFrame(b *testing.B) {
+	buf := lineFrame(500)
+	b.SetBytes(int64(len(buf)))
+	b.ReportAllocs()
+	b.ResetTimer()
+	sum := 0.0
+	for i := 0; i < b.N; i++ {
+		dec := lineprotocol.NewDecoderWithBytes(buf)
+		n := 0
+		for dec.Next() {
+			if _, err := dec.Measurement(); err != nil {
+				b.Fatal(err)
+			}
+			for {
+				k, _, err := dec.NextTag()
+				if err != nil {
+					b.Fatal(err)
+				}
+				if k == nil {
+					break
+				}
+			}
+			for {
+				k, v, err := dec.NextField()
+				if err != nil {
+					b.Fatal(err)
+				}
+				if k == nil {
+					break
+				}
+				sum += v.FloatV()
+				n++
+			}
+			if _, err := dec.Time(lineprotocol.Nanosecond, time.Time{}); err != nil {
+				b.Fatal(err)
+			}
+		}
+		if n != 500 {
+			b.Fatalf("decoded %d values", n)
+		}
+	}
+	benchSink += sum
+}
+
+// BenchmarkCovUpdate compares the covariance update per frame at p = 500:
+// rank-1 (blas64.Syr) per frame against the batched rank-64 update
+// (blas64.Syrk), which give the same result within 1e-12 (TestEWBatchEqualsSingle).
+func BenchmarkCovUpdate(b *testing.B) {
+	const p = 500
+	frames := benchFrames(p, 256)
+	for _, batch := range []int{1, 64} {
+		b.Run(fmt.Sprintf("batch=%d", batch), func(b *testing.B) {
+			e := NewEW(p, 0.999, batch, false)
+			for _, x := range frames {
+				e.Update(x, nil)
+			}
+			b.ReportAllocs()
+			b.ResetTimer()
+			for i := 0; i < b.N; i++ {
+				e.Update(frames[i%256], nil)
+			}
+		})
+	}
+}
+
+// BenchmarkRefreshModel measures one model refresh at p = 500 (correlation,
+// modes warm-started, model and limits), the part amortised over 64 frames.
+func BenchmarkRefreshModel(b *testing.B) {
+	const p = 500
+	frames := benchFrames(p, 256)
+	tr, err := New(p, Config{Period: time.Second, HalfLife: time.Hour, WarmUp: 256, RefreshEvery: 1 << 30,
+		Modes: modes.Config{Count: 5, Sparsity: []modes.Sparsity{{Method: modes.L0, K: 10}}}})
+	if err != nil {
+		b.Fatal(err)
+	}
+	var sc Score
+	for k := 0; k < 300; k++ {
+		tr.Step(&sc, frames[k%256], nil)
+	}
+	b.ReportAllocs()
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		if err := tr.Refresh(); err != nil {
+			b.Fatal(err)
+		}
+	}
+	_ = mat.NewVecDense
+}
