@@ -62,7 +62,12 @@ const (
 type Options struct {
 	// Tol: stop when ‖x_t − x_{t−1}‖₂ ≤ Tol or when the stationarity gap
 	//	γ(x) = max_{u∈C} ⟨∇F(x), u − x⟩ (penalised: with −g(u) + g(x))
-	// is at most Tol²·s, s = 2|xᵀAx| (√(xᵀAx) for L1PenSqrt). Default DefaultTol.
+	// is at most Tol²·s, s = 2|xᵀAx| (√(xᵀAx) for L1PenSqrt). The gap is a
+	// by-product of the step (the oracle's maximum), second order in the
+	// distance to a fixed point, hence Tol²; for L0Pen it is the gap of the
+	// factor form, known one step late; for LogPen and ExpPen it is the gap
+	// of the reweighted (majorised) step. Below Tol ≈ 1.2e-7 float64 cannot
+	// resolve the gap and only the step rule is used. Default DefaultTol.
 	Tol float64
 	// MaxIter caps the iterations; default DefaultMaxIter. Hitting it leaves
 	// Result.Converged false.

@@ -403,6 +403,47 @@ func TestDegenerate(t *testing.T) {
 	}
 }
 
+// TestOutsideAssumptions: an indefinite matrix (not a covariance) and
+// entries so large that products overflow give finite loadings or an
+// error, never NaN and never a panic.
+func TestOutsideAssumptions(t *testing.T) {
+	// Eigenvalues 3 and −1 (hand derivation: [[1,2],[2,1]] has (1,±1)/√2).
+	ind := mat.NewSymDense(3, []float64{1, 2, 0, 2, 1, 0, 0, 0, 0.5})
+	huge := mat.NewSymDense(3, []float64{1e308, 1e308, 0, 1e308, 1e308, 0, 0, 0, 1})
+	for _, a := range []*mat.SymDense{ind, huge} {
+		x := make([]float64, 3)
+		for _, sp := range append(noSparsity(3), Sparsity{Method: L0, K: 1}, Sparsity{Method: L0Pen, Gamma: 0.5},
+			Sparsity{Method: L1PenSqrt, Gamma: 0.5}, Sparsity{Method: LogPen, Gamma: 0.5, Eps: 0.1}) {
+			res, err := Solve(x, a, sp, nil, nil)
+			if err != nil {
+				if a == huge && errors.Is(err, ErrNotFinite) {
+					continue
+				}
+				t.Errorf("%v: %v", sp, err)
+				continue
+			}
+			for i, v := range x {
+				if math.IsNaN(v) || math.IsInf(v, 0) {
+					t.Errorf("%v: x[%d] = %g", sp, i, v)
+				}
+			}
+			if math.IsNaN(res.Variance) || math.IsNaN(res.Objective) {
+				t.Errorf("%v: %+v", sp, res)
+			}
+		}
+		tr, _ := NewTracker(3, Config{Count: 3})
+		if err := tr.Refresh(a); err == nil {
+			for j := 0; j < tr.Count(); j++ {
+				if m := tr.Mode(j); math.IsNaN(m.AdjustedVariance) || math.IsNaN(m.Variance) {
+					t.Errorf("tracker mode %d: %+v", j, m)
+				}
+			}
+		} else if !errors.Is(err, ErrNotFinite) {
+			t.Errorf("tracker: %v", err)
+		}
+	}
+}
+
 // TestSolveNoAlloc: with a workspace, Solve does not allocate.
 func TestSolveNoAlloc(t *testing.T) {
 	a := loadPitprops(t)
