@@ -251,7 +251,8 @@ func newStream(t *testing.T, p int, cfg Config) (*Tracker, *gaussSource) {
 // then scores with limits.
 func TestWarmUpAndRefresh(t *testing.T) {
 	const p = 8
-	tr, src := newStream(t, p, Config{Period: time.Second, HalfLife: time.Hour, WarmUp: 40, RefreshEvery: 10, Modes: modes.Config{Count: 2}})
+	tr, src := newStream(t, p, Config{Period: time.Second, HalfLife: time.Hour, WarmUp: 40, RefreshEvery: 10,
+		Modes: modes.Config{Count: 2, Sparsity: []modes.Sparsity{{Method: modes.L0, K: 3}}}})
 	var sc Score
 	x := make([]float64, p)
 	for k := 1; k <= 40; k++ {
@@ -271,6 +272,27 @@ func TestWarmUpAndRefresh(t *testing.T) {
 	approx(t, "n_eff after 40 equal-weight frames", sc.NEff, 40, 0, 1e-9)
 	if got := sc.State.String(); got != "adapting" {
 		t.Errorf("state string %q", got)
+	}
+	// Each contributor lists exactly the modes whose support holds it.
+	if len(sc.Contrib) == 0 {
+		t.Fatal("no contributors")
+	}
+	for _, c := range sc.Contrib {
+		var want []int
+		for j := 0; j < tr.Modes().Count(); j++ {
+			md := tr.Modes().Mode(j)
+			if slices.Contains(md.Support, c.Channel) {
+				want = append(want, md.ID)
+			}
+		}
+		if !slices.Equal(c.Modes, want) {
+			t.Errorf("channel %d: modes %v, want %v", c.Channel, c.Modes, want)
+		}
+	}
+	for i := 1; i < len(sc.Contrib); i++ {
+		if sc.Contrib[i].RBC > sc.Contrib[i-1].RBC {
+			t.Error("contributors not ranked by RBC")
+		}
 	}
 }
 
