@@ -77,6 +77,12 @@ func TestBadLines(t *testing.T) {
 	if !strings.HasPrefix(s.errs[0].Error(), "stream: subj.a:2:8: ") {
 		t.Errorf("error text %q", s.errs[0].Error())
 	}
+	// Each error carries its raw line for a quarantine sink.
+	for _, e := range s.errs {
+		if want := strings.Split(payload, "\n")[e.Line-1]; e.Text != want {
+			t.Errorf("line %d text %q, want %q", e.Line, e.Text, want)
+		}
+	}
 }
 
 // TestNonFinite: ±Inf and float overflow are readings marked missing and

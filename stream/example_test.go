@@ -4,6 +4,8 @@ import (
 	"fmt"
 	"time"
 
+	"github.com/influxdata/line-protocol/v2/lineprotocol"
+
 	"modewatch/stream"
 )
 
@@ -31,4 +33,63 @@ coolwater,asset=pump3 flow=41i 1700000002000000000
 	// 22:13:21 [NaN 18.5 40] [true false false]
 	// 22:13:22 [42 18.75 41] [false false false]
 	// [coolwater.pump2.flow coolwater.pump2.temp coolwater.pump3.flow]
+}
+
+// A configured channel map: the flow channel has a valid range and a display
+// name; the running flag is a boolean read as 0/1 and kept out of the model.
+// Fields not in the map are counted as unmapped.
+func ExampleNewChannels() {
+	lo, hi := 0.0, 120.0
+	noModel := false
+	ch, err := stream.NewChannels([]stream.ChannelSpec{
+		{Measurement: "coolwater", Tags: map[string]string{"asset": "pump2"}, Field: "flow",
+			Display: "Pump 2 flow", EngUnit: "L/min", Min: &lo, Max: &hi},
+		{Measurement: "coolwater", Tags: map[string]string{"asset": "pump2"}, Field: "running",
+			BoolAsNumber: true, Model: &noModel},
+	}, 0)
+	if err != nil {
+		fmt.Println(err)
+		return
+	}
+	for _, c := range ch.List() {
+		fmt.Printf("%s %q unit=%s model=%v range=[%g, %g]\n", c.Name, c.Display, c.Unit, c.Model, c.Min, c.Max)
+	}
+	// Output:
+	// coolwater.pump2.flow "Pump 2 flow" unit=coolwater model=true range=[0, 120]
+	// coolwater.pump2.running "coolwater.pump2.running" unit=coolwater model=false range=[-Inf, +Inf]
+}
+
+// The aligner on its own: readings at event times (seconds) with lateness
+// none; the reading at 0.4 s arrives after frame 0 was emitted and is late.
+func ExampleAligner() {
+	a, _ := stream.NewAligner(stream.AlignConfig{Period: time.Second, Lateness: -1}, 1, func(f *stream.Frame) error {
+		fmt.Println(f.Start.Unix()-1700000000, f.Values)
+		return nil
+	})
+	t0 := time.Unix(1700000000, 0)
+	for _, r := range []struct {
+		sec float64
+		v   float64
+	}{{0.1, 1}, {1.2, 2}, {0.4, 9}, {2.5, 3}} {
+		a.Add(0, t0.Add(time.Duration(r.sec*float64(time.Second))), r.v)
+	}
+	a.Flush()
+	fmt.Printf("late %d, watermark +%v\n", a.Stats().Late, a.Watermark().Sub(t0))
+	// Output:
+	// 0 [1]
+	// 1 [2]
+	// 2 [3]
+	// late 1, watermark +3s
+}
+
+// InferPeriod estimates the frame period from the first lines of a
+// recording when none is configured.
+func ExampleInferPeriod() {
+	p, err := stream.InferPeriod([]byte(`boiler drum=1 1700000000
+boiler drum=2 1700000005
+boiler drum=3 1700000010
+boiler drum=4 1700000020
+`), lineprotocol.Second)
+	fmt.Println(p, err)
+	// Output: 5s <nil>
 }

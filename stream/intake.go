@@ -44,7 +44,13 @@ type LineError struct {
 	Column int
 	Reason Reason
 	Err    error
+	// Text is the raw line (at most MaxErrorText bytes), for a quarantine
+	// sink; empty for lines over MaxLineBytes.
+	Text string
 }
+
+// MaxErrorText bounds LineError.Text.
+const MaxErrorText = 512
 
 func (e *LineError) Error() string {
 	if e.Column > 0 {
@@ -427,7 +433,37 @@ func (in *Intake) reject(reason Reason, line int64, col int, err error) {
 	case ReasonTimeRange:
 		in.st.RejectedTimeRange++
 	}
-	in.report(&LineError{Source: in.src, Line: line, Column: col, Reason: reason, Err: err})
+	in.report(&LineError{Source: in.src, Line: line, Column: col, Reason: reason, Err: err, Text: in.lineText(line)})
+}
+
+// lineText returns the raw text of line (numbered within the source) if it
+// is in the chunk being decoded.
+func (in *Intake) lineText(line int64) string {
+	rel := line - in.base
+	if in.chunk == nil || rel < 1 {
+		return ""
+	}
+	if rel < in.posLine {
+		in.posOff, in.posLine, in.posBeg = 0, 1, 0
+	}
+	for in.posLine < rel {
+		i := bytes.IndexByte(in.chunk[in.posOff:], '\n')
+		if i < 0 {
+			return ""
+		}
+		in.posOff += i + 1
+		in.posLine++
+		in.posBeg = in.posOff
+	}
+	text := in.chunk[in.posBeg:]
+	if i := bytes.IndexByte(text, '\n'); i >= 0 {
+		text = text[:i]
+	}
+	text = bytes.TrimSuffix(text, []byte{'\r'})
+	if len(text) > MaxErrorText {
+		text = text[:MaxErrorText]
+	}
+	return string(text)
 }
 
 // rejectDecode reports an error returned by the decoder.
@@ -817,6 +853,6 @@ func (in *Intake) refuse(fk, tok []byte, err error) int32 {
 		err = fmt.Errorf("stream: %s: registry is at its cap of %d channels: %w", b, in.ch.max, ErrRefused)
 	}
 	line, _ := in.position(offsetIn(in.chunk, tok))
-	in.report(&LineError{Source: in.src, Line: line, Reason: ReasonRefused, Err: err})
+	in.report(&LineError{Source: in.src, Line: line, Reason: ReasonRefused, Err: err, Text: in.lineText(line)})
 	return -1
 }
