@@ -20,6 +20,29 @@
 //	SPE = ‖(I − P(PᵀP)⁻¹Pᵀ)z‖²
 //	φ = SPE/δ² + T²/τ²                          (δ², τ²: SPE and T² limits)
 //
+// Missing channels. A frame is scored on its observed channels: the missing
+// standardized values are replaced by their conditional expectation given
+// the observed ones under the model's correlation A (regularised A + εI),
+//
+//	ẑ_m = A_mo A_oo⁻¹ z_o = −(Ω_mm)⁻¹ Ω_mo z_o,   Ω = (A + εI)⁻¹,
+//
+// and the limits are those of the reduced problem: the imputed frame has
+// covariance S' = A − K (K = A_{m|o}, the conditional covariance, on the
+// missing block), so T² uses (PᵀS'P)⁺ (χ² on its rank), SPE the traces of
+// C̃S'C̃, and the φ and RBC limits follow from S'. Cost: Ω is formed once per
+// refresh at the first incomplete frame (O(p³), allocating); each new
+// missing pattern costs O(|m|³ + |m|²p + p r²) and is cached (at most
+// PatternCache patterns, cleared at each refresh); a frame with a cached
+// pattern costs O(|m|·p + p·r) and allocates nothing. A missing channel's
+// mean, variance and covariances are not updated by the frame; an
+// incomplete frame is folded into the covariance by a direct O(p²) update
+// instead of the batch (see EW).
+//
+// Stuck channels. A channel that repeats exactly the same value for
+// FlatFrames frames, or whose EW standard deviation falls to StuckRel·|mean|,
+// is reported in Score.Excluded and scored as missing; at the next refresh
+// it leaves the model (zero row and column of A) until it moves again.
+//
 // The package is pure computation: no I/O, logging or goroutines. A Tracker
 // is not safe for concurrent use.
 package tracker
