@@ -136,6 +136,14 @@ func (s Stats) Segments() uint64 { return 1 + s.ClockJumps }
 
 // Intake decodes line protocol, maps fields to channels and aligns them into
 // frames. Its methods may be called from several goroutines; they serialize.
+//
+// Per line: the decoder's syntax errors, malformed numbers or booleans and
+// bad timestamps reject the whole line (counted by reason, reported as
+// *LineError); otherwise each numeric field of a known (or newly discovered)
+// channel becomes a reading at the line's event time. Non-finite values and
+// values outside the channel's range are readings marked missing. A line
+// with no channel value (only strings, unmapped fields) is accepted but does
+// not move event time.
 type Intake struct {
 	mu      sync.Mutex
 	ch      *Channels
@@ -717,7 +725,8 @@ func (in *Intake) entry(dec *lineprotocol.Decoder) error {
 		u := unk[-1-vals[i].c]
 		fk := sc[u.k0:u.k1]
 		if s == nil {
-			if in.ch.Len() >= in.ch.max {
+			// Series without channels (all refused by name) are bounded too.
+			if in.ch.Len() >= in.ch.max || len(in.ch.series) >= in.ch.max {
 				vals[i].c = in.refuse(fk, lastTok, nil)
 				continue
 			}

@@ -76,7 +76,9 @@ func (in *Intake) readFile(ctx context.Context, name string) error {
 // decode → map → align with bounded memory: lines are decoded in chunks of
 // whole lines; a line longer than Options.MaxLineBytes is skipped and
 // reported. If the frame period is not yet known it is inferred from the
-// first InferPrefixBytes of r. Read does not flush.
+// first InferPrefixBytes of r. Read does not flush. ctx is checked between
+// reads; a Read blocked in r (a quiet pipe) returns once r does, so close r
+// to stop it.
 func (in *Intake) Read(ctx context.Context, source string, r io.Reader) error {
 	in.mu.Lock()
 	defer in.mu.Unlock()
