@@ -268,6 +268,7 @@ var errEmptyOperator = fmt.Errorf("%w: no variance left", ErrZeroMatrix)
 func (ws *Workspace) solve(sp Sparsity, opt *Options, warm []float64, cold bool, refitFrom []float64, refitSupp []int) (Result, error) {
 	res := Result{Gap: math.NaN(), Cold: cold}
 	tol, maxIter := opt.tol(), opt.maxIter()
+	haveC := false // ws.c already holds A_t x for the start
 	if !cold {
 		copy(ws.x, warm)
 		if !ws.normalizeX() {
@@ -275,6 +276,7 @@ func (ws *Workspace) solve(sp Sparsity, opt *Options, warm []float64, cold bool,
 			res.Cold = true
 		} else {
 			ws.op.apply(ws.c, ws.x, ws.xs)
+			haveC = true
 			if ws.normC() == 0 {
 				// The warm start lies in the null space: start afresh.
 				cold = true
@@ -323,8 +325,9 @@ func (ws *Workspace) solve(sp Sparsity, opt *Options, warm []float64, cold bool,
 				return res, errEmptyOperator
 			}
 		}
+		haveC = false
 		if start == StartDense {
-			st, err := ws.iterate(Sparsity{}, 0, tol, maxIter, nil)
+			st, err := ws.iterate(Sparsity{}, 0, tol, maxIter, nil, false)
 			if err != nil {
 				return res, err
 			}
@@ -346,7 +349,8 @@ func (ws *Workspace) solve(sp Sparsity, opt *Options, warm []float64, cold bool,
 			eps = math.Exp(math.Log(sp.Eps) * float64(s) / float64(stages-1))
 		}
 		var err error
-		st, err = ws.iterate(sp, eps, tol, maxIter, trace)
+		st, err = ws.iterate(sp, eps, tol, maxIter, trace, haveC)
+		haveC = false
 		res.Iterations += st.iters
 		if err != nil {
 			return res, err
@@ -484,10 +488,13 @@ type runStats struct {
 	empty       bool
 }
 
-// iterate runs ConGradU for sp from the unit vector ws.x (support ws.xs).
-func (ws *Workspace) iterate(sp Sparsity, eps, tol float64, maxIter int, trace func(int, float64, bool)) (runStats, error) {
+// iterate runs ConGradU for sp from the unit vector ws.x (support ws.xs);
+// with haveC, ws.c already holds A_t x.
+func (ws *Workspace) iterate(sp Sparsity, eps, tol float64, maxIter int, trace func(int, float64, bool), haveC bool) (runStats, error) {
 	st := runStats{gap: math.NaN()}
-	ws.op.apply(ws.c, ws.x, ws.xs)
+	if !haveC {
+		ws.op.apply(ws.c, ws.x, ws.xs)
+	}
 	f := dotSupp(ws.x, ws.c, ws.xs)
 	if err := ws.checkProduct(f); err != nil {
 		return st, err

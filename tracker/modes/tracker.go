@@ -390,13 +390,19 @@ func (t *Tracker) Refresh(a *mat.SymDense) error {
 				return err
 			}
 		}
-		if !hasWarm || tryCold {
+		// A warm start that a penalty empties may still hold a mode from the
+		// cold start.
+		if !hasWarm || tryCold || res.Empty {
 			if hasWarm {
 				copy(t.bx, ws.x)
 				copy(t.bc, ws.c)
 				copy(t.bpre, ws.pre)
 				t.bxs = append(t.bxs[:0], ws.xs...)
 				t.bpreS = append(t.bpreS[:0], ws.preS...)
+			}
+			if !tryCold && !ws.deflatedNorms() {
+				// Column norms are kept up to date only on cold passes.
+				return ws.nonFinite()
 			}
 			rc, err := ws.solve(sp, &t.opt, nil, true, nil, nil)
 			iters += rc.Iterations + rc.RefitIterations

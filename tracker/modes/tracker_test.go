@@ -498,3 +498,28 @@ func sameFloats(a, b []float64) bool {
 	}
 	return true
 }
+
+// TestTrackerWarmEmptyFallsBackCold: a penalty that empties the warm start
+// (its group went quiet) does not end the extraction; the cold start finds
+// the group that is active now. With γ = 1.5 the squared ℓ1 threshold is
+// 0.75: the quiet group has |(Ax)_i| = 1/√3 ≈ 0.58 < 0.75 (unit noise only),
+// the active one 0.5·(1 + 5) = 3 (hand derivation from twoGroups).
+func TestTrackerWarmEmptyFallsBackCold(t *testing.T) {
+	const p = 12
+	tr, _ := NewTracker(p, Config{Sparsity: []Sparsity{{Method: L1Pen, Gamma: 1.5}}, Count: 1, ColdEvery: -1})
+	if err := tr.Refresh(twoGroups(p, 5, 3)); err != nil {
+		t.Fatal(err)
+	}
+	if got := tr.Mode(0).Support; !sameInts(got, []int{0, 1, 2}) {
+		t.Fatalf("first refresh: support %v, want [0 1 2]", got)
+	}
+	if err := tr.Refresh(twoGroups(p, 0, 5)); err != nil {
+		t.Fatal(err)
+	}
+	if tr.Count() != 1 {
+		t.Fatalf("%d modes after the warm start emptied", tr.Count())
+	}
+	if m := tr.Mode(0); !sameInts(m.Support, []int{5, 6, 7, 8}) || !m.Cold {
+		t.Errorf("second refresh: support %v cold %v, want [5 6 7 8] from the cold start", m.Support, m.Cold)
+	}
+}
