@@ -17,8 +17,12 @@ type learnLog struct {
 	calls []string
 }
 
-func (l *learnLog) Freeze(u string) { l.mu.Lock(); l.calls = append(l.calls, "freeze "+u); l.mu.Unlock() }
-func (l *learnLog) Thaw(u string)   { l.mu.Lock(); l.calls = append(l.calls, "thaw "+u); l.mu.Unlock() }
+func (l *learnLog) Freeze(u string) {
+	l.mu.Lock()
+	l.calls = append(l.calls, "freeze "+u)
+	l.mu.Unlock()
+}
+func (l *learnLog) Thaw(u string) { l.mu.Lock(); l.calls = append(l.calls, "thaw "+u); l.mu.Unlock() }
 
 type harness struct {
 	t      *testing.T
