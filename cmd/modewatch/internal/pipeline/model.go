@@ -181,25 +181,22 @@ func DecodeModel(r io.Reader) (*ModelFile, error) {
 	return &m, nil
 }
 
-// unitFromBaseline creates a unit from a fitted model. The channels are
-// looked up (or registered) in the registry by name when frames arrive;
-// here the unit only records them.
-func (p *Pipeline) unitFromBaseline(mu *ModelUnit) (*Unit, error) {
-	if p.byName[mu.Name] != nil {
+// unitFromModel creates a unit from a model unit (fitted baseline or
+// checkpoint). The channels are resolved against the registry by name when
+// they appear (see addChannel).
+func (p *Pipeline) unitFromModel(mu *ModelUnit, period time.Duration) (*Unit, error) {
+	if p.lookup(mu.Name) != nil {
 		return nil, fmt.Errorf("%w: unit %q twice", ErrModelFile, mu.Name)
 	}
 	settings, err := mu.Settings.model()
 	if err != nil {
 		return nil, fmt.Errorf("%w: unit %s: %v", ErrModelFile, mu.Name, err)
 	}
-	u := p.newUnit(mu.Name)
-	// The tracker state holds only under the settings it was fitted
-	// with; whether it goes on learning comes from the configuration.
+	// The tracker state holds only under the settings it was saved with;
+	// whether it goes on learning comes from the configuration.
 	adapt := p.cfg.ModelFor(mu.Name).Adapt
-	u.model = settings
-	u.model.Adapt = adapt
-	u.fixed = adapt != nil && !*adapt
-	cfg, err := TrackerConfig(settings, time.Duration(p.opt.Baseline.Period), len(mu.Channels), settings.HalfLife == 0)
+	equal := settings.HalfLife == 0
+	cfg, err := TrackerConfig(settings, period, len(mu.Channels), equal)
 	if err != nil {
 		return nil, fmt.Errorf("%w: unit %s: %v", ErrModelFile, mu.Name, err)
 	}
@@ -210,6 +207,11 @@ func (p *Pipeline) unitFromBaseline(mu *ModelUnit) (*Unit, error) {
 	if err := restoreState(tr, mu.State); err != nil {
 		return nil, fmt.Errorf("%w: unit %s: %w", ErrModelFile, mu.Name, err)
 	}
+	u := p.newUnit(mu.Name)
+	u.model = settings
+	u.model.Adapt = adapt
+	u.fixed = adapt != nil && !*adapt
+	u.equal = equal
 	u.tr = tr
 	u.frozen = tr.Frozen()
 	u.baseline = true
@@ -219,7 +221,7 @@ func (p *Pipeline) unitFromBaseline(mu *ModelUnit) (*Unit, error) {
 	u.names = append([]string(nil), mu.Channels...)
 	u.idx = make([]int, len(mu.Channels))
 	for k := range u.idx {
-		u.idx[k] = -1 // resolved against the registry by resolve
+		u.idx[k] = -1 // resolved against the registry by addChannel
 	}
 	return u, nil
 }
@@ -255,7 +257,7 @@ func (p *Pipeline) Baseline() (*ModelFile, error) {
 			continue
 		}
 		settings := settingsOf(u.model)
-		if p.opt.Fit && !p.opt.FitHalfLife {
+		if u.equal {
 			settings.HalfLife = 0
 		}
 		mu := ModelUnit{Name: u.Name, Channels: append([]string(nil), u.names...), Settings: settings,

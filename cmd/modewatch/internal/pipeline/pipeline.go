@@ -98,8 +98,12 @@ func New(opt Options) (*Pipeline, error) {
 	}
 	p.alerts = eng
 	if b := opt.Baseline; b != nil {
+		if time.Duration(b.Period) != opt.Period {
+			return nil, fmt.Errorf("%w: fitted with frames of %v, the input is framed at %v (use --period %v)",
+				ErrModelFile, time.Duration(b.Period), opt.Period, time.Duration(b.Period))
+		}
 		for i := range b.Units {
-			if _, err := p.unitFromBaseline(&b.Units[i]); err != nil {
+			if _, err := p.unitFromModel(&b.Units[i], opt.Period); err != nil {
 				return nil, err
 			}
 		}

@@ -28,6 +28,9 @@ type Unit struct {
 	score tracker.Score
 
 	fixed         bool        // adapt=false: the model never learns
+	equal         bool        // equal weights (fit without a half-life)
+	skipUntil     time.Time   // frames up to this start were scored before a restart
+	firstT, lastT time.Time   // first and last frame scored
 	fixedChannels bool        // the channel list is settled (baseline, checkpoint, out of warm-up)
 	baseline      bool        // started from a fitted model
 	alertFrozen   atomic.Bool // set by the alarm engine
@@ -38,6 +41,7 @@ type Unit struct {
 	frames     uint64 // frames scored
 	empty      uint64 // frames with every channel of the unit missing
 	stepErrors uint64
+	skipped    uint64   // frames already scored before a restart
 	late       []string // channels that appeared after the model was built (not modelled)
 
 	// Snapshot for concurrent readers.
@@ -47,7 +51,8 @@ type Unit struct {
 
 func newUnit(p *Pipeline, name string) *Unit {
 	m := p.cfg.ModelFor(name)
-	return &Unit{Name: name, p: p, model: m, fixed: m.Adapt != nil && !*m.Adapt}
+	return &Unit{Name: name, p: p, model: m, fixed: m.Adapt != nil && !*m.Adapt,
+		equal: p.opt.Fit && !p.opt.FitHalfLife}
 }
 
 // addChannel gives registry channel i to the unit and reports whether it
@@ -81,7 +86,7 @@ func (u *Unit) Tracker() *tracker.Tracker { return u.tr }
 
 // build creates the tracker over the unit's current channels.
 func (u *Unit) build() error {
-	cfg, err := TrackerConfig(u.model, u.p.opt.Period, len(u.idx), u.p.opt.Fit && !u.p.opt.FitHalfLife)
+	cfg, err := TrackerConfig(u.model, u.p.opt.Period, len(u.idx), u.equal)
 	if err != nil {
 		return fmt.Errorf("pipeline: unit %s: %w", u.Name, err)
 	}
@@ -102,6 +107,10 @@ func (u *Unit) build() error {
 func (u *Unit) step(f *stream.Frame) error {
 	if u.failed != nil {
 		return nil
+	}
+	if !f.Start.After(u.skipUntil) && !u.skipUntil.IsZero() {
+		u.skipped++
+		return nil // scored before the restart
 	}
 	if u.tr == nil || len(u.idx) > len(u.x) {
 		// First frame, or channels discovered during warm-up: (re)build
@@ -142,6 +151,10 @@ func (u *Unit) step(f *stream.Frame) error {
 		return nil
 	}
 	u.frames++
+	if u.firstT.IsZero() {
+		u.firstT = f.Start
+	}
+	u.lastT = f.Start
 	if u.score.Ready {
 		// Out of warm-up: the channel list is settled.
 		u.fixedChannels = true

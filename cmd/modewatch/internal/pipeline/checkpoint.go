@@ -1,0 +1,172 @@
+package pipeline
+
+import (
+	"errors"
+	"fmt"
+	"os"
+	"path/filepath"
+	"sort"
+	"strings"
+	"time"
+)
+
+// A unit checkpoint is a model file holding that one unit with its live
+// tracker state (not refreshed, not frozen), written atomically to
+// <dir>/<unit>.ckpt.json. A unit's checkpoint depends on no other unit, so
+// it can be moved to another service instance.
+const checkpointSuffix = ".ckpt.json"
+
+// CheckpointPath returns the checkpoint file of unit in dir.
+func CheckpointPath(dir, unit string) string {
+	return filepath.Join(dir, unit+checkpointSuffix)
+}
+
+// Checkpoint returns the state of every unit that has a model, under the
+// pipeline's lock so that each unit is captured between two frames.
+func (p *Pipeline) Checkpoint() ([]*ModelFile, error) {
+	p.mu.Lock()
+	defer p.mu.Unlock()
+	var out []*ModelFile
+	var errs []error
+	for _, u := range p.Units() {
+		if u.tr == nil || u.failed != nil {
+			continue
+		}
+		state, err := saveState(u.tr)
+		if err != nil {
+			errs = append(errs, fmt.Errorf("unit %s: %w", u.Name, err))
+			continue
+		}
+		settings := settingsOf(u.model)
+		if u.equal {
+			settings.HalfLife = 0
+		}
+		out = append(out, &ModelFile{
+			Format: ModelFormat, Version: ModelVersion, Created: time.Now().UTC(), Period: Duration(p.opt.Period),
+			Frames: u.frames, From: u.firstT, To: u.lastT,
+			Units: []ModelUnit{{Name: u.Name, Channels: append([]string(nil), u.names...), Settings: settings,
+				Modes: u.modesView(), State: state}},
+		})
+	}
+	return out, errors.Join(errs...)
+}
+
+// WriteCheckpoints writes every unit's checkpoint into dir atomically and
+// returns how many were written.
+func (p *Pipeline) WriteCheckpoints(dir string) (int, error) {
+	cks, err := p.Checkpoint()
+	if mkErr := os.MkdirAll(dir, 0o755); mkErr != nil {
+		return 0, fmt.Errorf("pipeline: %w", mkErr)
+	}
+	n := 0
+	for _, ck := range cks {
+		if werr := WriteModel(CheckpointPath(dir, ck.Units[0].Name), ck); werr != nil {
+			err = errors.Join(err, werr)
+			continue
+		}
+		n++
+	}
+	return n, err
+}
+
+// ReadCheckpoints reads every unit checkpoint in dir. Files that cannot be
+// used are returned as errors (one per file) and left out; a missing dir
+// is no error.
+func ReadCheckpoints(dir string) ([]*ModelFile, []error) {
+	ents, err := os.ReadDir(dir)
+	if err != nil {
+		if errors.Is(err, os.ErrNotExist) {
+			return nil, nil
+		}
+		return nil, []error{fmt.Errorf("pipeline: %w", err)}
+	}
+	var out []*ModelFile
+	var errs []error
+	for _, e := range ents {
+		if e.IsDir() || !strings.HasSuffix(e.Name(), checkpointSuffix) {
+			continue
+		}
+		m, err := ReadModel(filepath.Join(dir, e.Name()))
+		if err != nil {
+			errs = append(errs, err)
+			continue
+		}
+		if len(m.Units) != 1 || m.Units[0].Name+checkpointSuffix != e.Name() {
+			errs = append(errs, fmt.Errorf("%s: %w: want exactly the unit named by the file", e.Name(), ErrModelFile))
+			continue
+		}
+		out = append(out, m)
+	}
+	sort.Slice(out, func(i, j int) bool { return out[i].Units[0].Name < out[j].Units[0].Name })
+	return out, errs
+}
+
+// Restore creates units from checkpoints before the first frame. A
+// checkpoint that does not fit (other period, other settings, damaged
+// state) is reported in the returned errors and its unit warms up afresh;
+// the rest are restored. Frames up to each unit's last checkpointed frame
+// are skipped, so none is scored twice.
+func (p *Pipeline) Restore(cks []*ModelFile) (restored []string, errs []error) {
+	p.mu.Lock()
+	defer p.mu.Unlock()
+	for _, ck := range cks {
+		mu := &ck.Units[0]
+		if time.Duration(ck.Period) != p.opt.Period {
+			errs = append(errs, fmt.Errorf("unit %s: checkpoint frame period %v differs from the configured %v; the unit warms up again",
+				mu.Name, time.Duration(ck.Period), p.opt.Period))
+			continue
+		}
+		want := settingsOf(p.cfg.ModelFor(mu.Name))
+		if b := p.baselineUnit(mu.Name); b != nil {
+			want = b.Settings
+		}
+		if mu.Settings != want {
+			errs = append(errs, fmt.Errorf("unit %s: the model settings changed since the checkpoint (%+v, now %+v); the unit warms up again",
+				mu.Name, mu.Settings, want))
+			continue
+		}
+		if old := p.lookup(mu.Name); old != nil {
+			if !old.baseline || old.frames > 0 {
+				errs = append(errs, fmt.Errorf("unit %s: already running; checkpoint not restored", mu.Name))
+				continue
+			}
+			p.drop(old) // the checkpoint is newer than the fitted baseline
+		}
+		u, err := p.unitFromModel(mu, time.Duration(ck.Period))
+		if err != nil {
+			errs = append(errs, fmt.Errorf("unit %s: %w; the unit warms up again", mu.Name, err))
+			continue
+		}
+		u.baseline = false
+		u.frames = ck.Frames
+		u.firstT, u.lastT = ck.From, ck.To
+		u.skipUntil = ck.To
+		restored = append(restored, mu.Name)
+	}
+	return restored, errs
+}
+
+// drop removes a unit that has not seen a frame yet.
+func (p *Pipeline) drop(u *Unit) {
+	p.unitsMu.Lock()
+	defer p.unitsMu.Unlock()
+	delete(p.byName, u.Name)
+	for i, v := range p.units {
+		if v == u {
+			p.units = append(p.units[:i], p.units[i+1:]...)
+			break
+		}
+	}
+}
+
+// baselineUnit returns the fitted unit called name, or nil.
+func (p *Pipeline) baselineUnit(name string) *ModelUnit {
+	if b := p.opt.Baseline; b != nil {
+		for i := range b.Units {
+			if b.Units[i].Name == name {
+				return &b.Units[i]
+			}
+		}
+	}
+	return nil
+}

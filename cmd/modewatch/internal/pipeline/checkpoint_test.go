@@ -1,0 +1,158 @@
+package pipeline
+
+import (
+	"bytes"
+	"context"
+	"errors"
+	"os"
+	"path/filepath"
+	"testing"
+	"time"
+
+	"modewatch/configs"
+	"modewatch/stream"
+)
+
+// collectFrames decodes data into copies of its aligned frames.
+func collectFrames(t *testing.T, data []byte, period time.Duration) (*stream.Channels, []stream.Frame) {
+	t.Helper()
+	ch, err := stream.NewChannels(nil, 0)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var frames []stream.Frame
+	in, err := stream.NewIntake(ch, stream.Options{Align: stream.AlignConfig{Period: period}}, func(f *stream.Frame) error {
+		frames = append(frames, stream.Frame{Start: f.Start, Segment: f.Segment,
+			Values: append([]float64(nil), f.Values...), Missing: append([]bool(nil), f.Missing...)})
+		return nil
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := in.Read(context.Background(), "demo", bytes.NewReader(data)); err != nil {
+		t.Fatal(err)
+	}
+	if err := in.Flush(); err != nil {
+		t.Fatal(err)
+	}
+	return ch, frames
+}
+
+type scoreRec struct {
+	t2, spe float64
+	ready   bool
+}
+
+func runFrames(t *testing.T, p *Pipeline, frames []stream.Frame, got map[string][]scoreRec) {
+	t.Helper()
+	for i := range frames {
+		if err := p.Frame(&frames[i]); err != nil {
+			t.Fatal(err)
+		}
+	}
+}
+
+// TestCheckpointRestore: a run stopped after half the frames, checkpointed
+// and restored gives bit-identical scores for the second half to an
+// uninterrupted run, and frames fed again from before the checkpoint are
+// not scored twice.
+func TestCheckpointRestore(t *testing.T) {
+	const period = 20 * time.Second
+	data := demoBytes(t, 4)
+	ch, frames := collectFrames(t, data, period)
+	// The alarm engine's state is not part of the checkpoint, so learning
+	// is not frozen by alerts here: the test is about the models.
+	noFreeze := false
+	cfg := &configs.Config{Model: configs.Model{WarmUp: 100}, Alerts: configs.Alerts{FreezeOnAlert: &noFreeze}}
+	cfg.ApplyDefaults()
+
+	record := func(dst map[string][]scoreRec) func(u *Unit, _ time.Time) {
+		return func(u *Unit, _ time.Time) {
+			s := u.Score()
+			dst[u.Name] = append(dst[u.Name], scoreRec{s.T2, s.SPE, s.Ready})
+		}
+	}
+	whole := map[string][]scoreRec{}
+	pa, err := New(Options{Config: cfg, Channels: ch, Period: period, OnScore: record(whole)})
+	if err != nil {
+		t.Fatal(err)
+	}
+	runFrames(t, pa, frames, nil)
+
+	half := len(frames) / 2
+	first := map[string][]scoreRec{}
+	pb, _ := New(Options{Config: cfg, Channels: ch, Period: period, OnScore: record(first)})
+	runFrames(t, pb, frames[:half], nil)
+	dir := t.TempDir()
+	n, err := pb.WriteCheckpoints(dir)
+	if err != nil || n != 4 {
+		t.Fatalf("wrote %d checkpoints: %v", n, err)
+	}
+
+	cks, errs := ReadCheckpoints(dir)
+	if len(errs) > 0 || len(cks) != 4 {
+		t.Fatalf("read %d checkpoints: %v", len(cks), errs)
+	}
+	second := map[string][]scoreRec{}
+	pc, _ := New(Options{Config: cfg, Channels: ch, Period: period, OnScore: record(second)})
+	restored, errs := pc.Restore(cks)
+	if len(errs) > 0 || len(restored) != 4 {
+		t.Fatalf("restored %v: %v", restored, errs)
+	}
+	// Redeliver 10 frames from before the checkpoint, then the rest.
+	runFrames(t, pc, frames[half-10:], nil)
+	for unit, all := range whole {
+		if got, want := len(first[unit])+len(second[unit]), len(all); got != want {
+			t.Errorf("unit %s: %d + %d frames scored, uninterrupted %d", unit, len(first[unit]), len(second[unit]), want)
+			continue
+		}
+		for k, r := range second[unit] {
+			w := all[len(first[unit])+k]
+			if r != w && !(r.t2 != r.t2 && w.t2 != w.t2) {
+				t.Fatalf("unit %s frame %d after restore: %+v, uninterrupted %+v", unit, k, r, w)
+			}
+		}
+	}
+}
+
+// TestCheckpointMismatch: a damaged checkpoint or one made under other
+// settings is reported and its unit warms up again; nothing panics.
+func TestCheckpointMismatch(t *testing.T) {
+	const period = 20 * time.Second
+	ch, frames := collectFrames(t, demoBytes(t, 2), period)
+	cfg := &configs.Config{Model: configs.Model{WarmUp: 100}}
+	cfg.ApplyDefaults()
+	p, _ := New(Options{Config: cfg, Channels: ch, Period: period})
+	runFrames(t, p, frames, nil)
+	dir := t.TempDir()
+	if _, err := p.WriteCheckpoints(dir); err != nil {
+		t.Fatal(err)
+	}
+	// Damage one file, and make another claim a different unit.
+	air := CheckpointPath(dir, "air")
+	b, _ := os.ReadFile(air)
+	os.WriteFile(air, b[:len(b)/2], 0o644)
+	os.WriteFile(filepath.Join(dir, "bogus"+checkpointSuffix), []byte(`{"format":"something else"}`), 0o644)
+	cks, errs := ReadCheckpoints(dir)
+	if len(cks) != 3 || len(errs) != 2 {
+		t.Fatalf("%d usable checkpoints, errors %v", len(cks), errs)
+	}
+	for _, err := range errs {
+		if !errors.Is(err, ErrModelFile) {
+			t.Errorf("error %v does not wrap ErrModelFile", err)
+		}
+	}
+	// Other model settings (alpha) than the checkpoints were made with.
+	cfg2 := &configs.Config{Model: configs.Model{WarmUp: 100, Alpha: 0.001}}
+	cfg2.ApplyDefaults()
+	p3, _ := New(Options{Config: cfg2, Channels: ch, Period: period})
+	if restored, rerrs := p3.Restore(cks); len(restored) != 0 || len(rerrs) != 3 {
+		t.Errorf("settings mismatch: restored %v, errors %v", restored, rerrs)
+	}
+	// Another frame period than the checkpoints were made with.
+	p2, _ := New(Options{Config: cfg, Channels: ch, Period: 10 * time.Second})
+	restored, rerrs := p2.Restore(cks)
+	if len(restored) != 0 || len(rerrs) != 3 {
+		t.Errorf("period mismatch: restored %v, errors %v", restored, rerrs)
+	}
+}
