@@ -428,7 +428,7 @@ func Connect(ctx context.Context, opts Options, log *slog.Logger) (*Conn, error)
 	nc, err := nats.Connect(urls, no...)
 	if err != nil {
 		if isAuthErr(err) {
-			return nil, fmt.Errorf("natsource: connect to %s: %w (auth method: %s): %w", redact(opts.URLs), ErrAuth, auth, err)
+			return nil, fmt.Errorf("%w (auth method: %s; servers %s): %w", ErrAuth, auth, redact(opts.URLs), err)
 		}
 		return nil, fmt.Errorf("natsource: connect to %s: %w", redact(opts.URLs), err)
 	}

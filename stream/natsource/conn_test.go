@@ -1,0 +1,96 @@
+package natsource
+
+import (
+	"errors"
+	"path/filepath"
+	"strings"
+	"testing"
+	"time"
+)
+
+func TestOptionsValidate(t *testing.T) {
+	missing := filepath.Join(t.TempDir(), "missing")
+	for _, tc := range []struct {
+		name string
+		o    Options
+		want []string // every fragment must appear; nil means valid
+	}{
+		{"minimal", Options{URLs: []string{"nats://127.0.0.1:4222"}}, nil},
+		{"no urls", Options{}, []string{"urls: at least one"}},
+		{"empty url", Options{URLs: []string{"nats://a:1", " "}}, []string{"urls[1]: empty"}},
+		{"password without user", Options{URLs: []string{"x"}, Password: "p"}, []string{"password given without user"}},
+		{"two methods", Options{URLs: []string{"x"}, User: "u", Token: "t"}, []string{"only one of", "2 given"}},
+		{"missing files", Options{URLs: []string{"x"}, CredentialsFile: missing, TLS: TLSOptions{CAFile: missing}},
+			[]string{"credentials_file:", "tls.ca_file:"}},
+		{"cert without key", Options{URLs: []string{"x"}, TLS: TLSOptions{CertFile: missing}},
+			[]string{"cert_file and key_file must be given together"}},
+		{"negative durations", Options{URLs: []string{"x"}, ReconnectWait: -time.Second}, []string{"reconnect_wait: negative"}},
+		// Every problem is reported at once.
+		{"all at once", Options{Password: "p", ReconnectWait: -1}, []string{"urls:", "password given", "reconnect_wait"}},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			err := tc.o.Validate()
+			if tc.want == nil {
+				if err != nil {
+					t.Fatalf("unexpected error %v", err)
+				}
+				return
+			}
+			if !errors.Is(err, ErrConfig) {
+				t.Fatalf("error %v does not wrap ErrConfig", err)
+			}
+			for _, w := range tc.want {
+				if !strings.Contains(err.Error(), w) {
+					t.Errorf("error %q lacks %q", err, w)
+				}
+			}
+		})
+	}
+}
+
+// TestBackoff checks the reconnect delay schedule against its definition
+// (hand derivation from the Options doc comment, jitter off):
+// delay(k) = min(wait·2^(k-1), maxWait).
+func TestBackoff(t *testing.T) {
+	const wait, maxWait = 500 * time.Millisecond, 30 * time.Second
+	for _, tc := range []struct {
+		k    int
+		want time.Duration
+	}{
+		{1, 500 * time.Millisecond},
+		{2, time.Second},
+		{3, 2 * time.Second},
+		{6, 16 * time.Second},
+		{7, 30 * time.Second}, // 32 s capped
+		{100, 30 * time.Second},
+	} {
+		if got := backoff(tc.k, wait, maxWait, 0); got != tc.want {
+			t.Errorf("backoff(%d) = %v, want %v", tc.k, got, tc.want)
+		}
+	}
+	// Jitter stays within [0, jitter).
+	for range 1000 {
+		d := backoff(2, wait, maxWait, 250*time.Millisecond)
+		if d < time.Second || d >= time.Second+250*time.Millisecond {
+			t.Fatalf("jittered delay %v outside [1s, 1.25s)", d)
+		}
+	}
+}
+
+func TestConnectRefused(t *testing.T) {
+	checkNoLeak(t)
+	// Port 1 on loopback: nothing listens (common practice for a refused port).
+	_, err := Connect(ctxT(t, 5*time.Second), Options{URLs: []string{"nats://127.0.0.1:1"}}, nil)
+	if err == nil || errors.Is(err, ErrAuth) {
+		t.Fatalf("error %v, want a connection error that is not ErrAuth", err)
+	}
+	mustContain(t, err, "127.0.0.1:1")
+}
+
+func TestRedact(t *testing.T) {
+	got := redact([]string{"nats://u:p@host:4222", "tls://host2:4443", "tok@h:1"})
+	want := "nats://***@host:4222,tls://host2:4443,***@h:1"
+	if got != want {
+		t.Errorf("redact = %q, want %q", got, want)
+	}
+}
