@@ -188,3 +188,81 @@ func BenchmarkRefreshModel(b *testing.B) {
 	}
 	_ = mat.NewVecDense
 }
+
+// decodeFrame decodes one line-protocol frame with the official decoder and
+// returns the number of values.
+func decodeFrame(buf []byte) (int, float64) {
+	dec := lineprotocol.NewDecoderWithBytes(buf)
+	n, sum := 0, 0.0
+	for dec.Next() {
+		if _, err := dec.Measurement(); err != nil {
+			return -1, 0
+		}
+		for {
+			k, _, err := dec.NextTag()
+			if err != nil {
+				return -1, 0
+			}
+			if k == nil {
+				break
+			}
+		}
+		for {
+			k, v, err := dec.NextField()
+			if err != nil {
+				return -1, 0
+			}
+			if k == nil {
+				break
+			}
+			sum += v.FloatV()
+			n++
+		}
+		if _, err := dec.Time(lineprotocol.Nanosecond, time.Time{}); err != nil {
+			return -1, 0
+		}
+	}
+	return n, sum
+}
+
+// BenchmarkFrameOverDecode interleaves, frame by frame at p = 500, the
+// decoding of the frame's 500 values (official line-protocol decoder) and
+// the model's work on it (Step: update, scoring, contributions, refresh
+// amortised over 64 frames), and reports the ratio of their total times
+// as model/decode. Interleaving exposes both to the same machine load; the
+// bar of issue 3 is model/decode ≤ 1.
+func BenchmarkFrameOverDecode(b *testing.B) {
+	const p = 500
+	frames := benchFrames(p, 256)
+	buf := lineFrame(p)
+	tr, err := New(p, Config{Period: time.Second, HalfLife: time.Hour, WarmUp: 256, RefreshEvery: 64, Batch: 64,
+		Modes: modes.Config{Count: 5, Sparsity: []modes.Sparsity{{Method: modes.L0, K: 10}}}})
+	if err != nil {
+		b.Fatal(err)
+	}
+	var sc Score
+	for k := 0; k < 512; k++ {
+		tr.Step(&sc, frames[k%256], nil)
+	}
+	var tDec, tModel time.Duration
+	sum := 0.0
+	b.ReportAllocs()
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		t0 := time.Now()
+		n, s := decodeFrame(buf)
+		t1 := time.Now()
+		tr.Step(&sc, frames[i%256], nil)
+		t2 := time.Now()
+		if n != p {
+			b.Fatalf("decoded %d values", n)
+		}
+		sum += s
+		tDec += t1.Sub(t0)
+		tModel += t2.Sub(t1)
+	}
+	b.ReportMetric(float64(tModel)/float64(tDec), "model/decode")
+	b.ReportMetric(float64(tDec.Nanoseconds())/float64(b.N), "decode-ns/frame")
+	b.ReportMetric(float64(tModel.Nanoseconds())/float64(b.N), "model-ns/frame")
+	benchSink += sum + sc.T2
+}

@@ -19,7 +19,7 @@ var ErrCheckpoint = errors.New("tracker: bad checkpoint")
 //	u64 frames | u64 learned | u32 since
 //	EW:    f64 μ | p × f64 mean | p × f64 variance | p × f64 count | p × f64 Σw²
 //	       p(p+1)/2 × f64 covariance (upper triangle by rows)
-//	       u32 nb | nb × f64 α | nb·p × f64 buffered deviations
+//	       u32 nb | nb × f64 α | nb·p × f64 buffered deviations (frame by frame)
 //	flat:  p × f64 last value | p × u32 run length
 //	model: p × u8 included | f64 n_eff | p(p+1)/2 × f64 correlation A (upper)
 //	       (model present only when ready)
@@ -93,8 +93,10 @@ func (t *Tracker) MarshalBinary() ([]byte, error) {
 	for _, v := range e.alphas[:e.nb] {
 		f64(v)
 	}
-	for _, v := range e.rows[:e.nb*p] {
-		f64(v)
+	for k := 0; k < e.nb; k++ {
+		for i := 0; i < p; i++ {
+			f64(e.rows[i*e.capB+k])
+		}
 	}
 	for _, v := range t.last {
 		f64(v)
@@ -300,7 +302,11 @@ func (t *Tracker) UnmarshalBinary(data []byte) error {
 	}
 	e.nb = nb
 	copy(e.alphas, alphas)
-	copy(e.rows, rows)
+	for k := 0; k < nb; k++ {
+		for i := 0; i < p; i++ {
+			e.rows[i*e.capB+k] = rows[k*p+i]
+		}
+	}
 	copy(t.last, last)
 	copy(t.run, run)
 	t.frames, t.learned = frames, learned

@@ -84,9 +84,11 @@ type EW struct {
 
 	cov blas64.Symmetric // upper triangle, p × p
 
-	// Batch buffer: up to cap rows of δ (the deviation from the mean before
-	// the frame) and their steps α.
-	rows   []float64 // capB × p
+	// Batch buffer: up to capB frames of δ (the deviation from the mean
+	// before the frame), stored channel-major (p × capB, so row i holds
+	// channel i's deviations and the update is a dot-product form Syrk),
+	// and their steps α.
+	rows   []float64 // p × capB
 	alphas []float64
 	nb     int
 	capB   int
@@ -145,10 +147,9 @@ func (e *EW) Update(x []float64, observed []bool) {
 		}
 	}
 	if batchable && a0 < 1 {
-		row := e.rows[e.nb*e.p : (e.nb+1)*e.p]
 		for i := 0; i < e.p; i++ {
 			d := x[i] - e.mean[i]
-			row[i] = d
+			e.rows[i*e.capB+e.nb] = d
 			e.updateChannel(i, x[i], d, a0)
 		}
 		e.alphas[e.nb] = a0
@@ -205,15 +206,34 @@ func (e *EW) Flush() {
 	tail := 1.0
 	for k := e.nb - 1; k >= 0; k-- {
 		a := e.alphas[k]
-		c := math.Sqrt(a * (1 - a) * tail)
-		row := e.rows[k*e.p : (k+1)*e.p]
-		for i := range row {
-			row[i] *= c
-		}
+		e.alphas[k] = math.Sqrt(a * (1 - a) * tail) // now the row scale √cₖ
 		tail *= 1 - a
 	}
-	d := blas64.General{Rows: e.nb, Cols: e.p, Stride: e.p, Data: e.rows[:e.nb*e.p]}
-	blas64.Syrk(blas.Trans, 1, d, tail, e.cov)
+	c := e.alphas[:e.nb]
+	for i := 0; i < e.p; i++ {
+		row := e.rows[i*e.capB : i*e.capB+e.nb]
+		for k, ck := range c {
+			row[k] *= ck
+		}
+	}
+	if e.nb <= 4 {
+		// Few frames: scale once, then rank-1 updates (blas64.Syr), cheaper
+		// than the dot-product form for short rows.
+		n := e.p
+		for i := 0; i < n; i++ {
+			r := e.cov.Data[i*n+i : i*n+n]
+			for j := range r {
+				r[j] *= tail
+			}
+		}
+		for k := 0; k < e.nb; k++ {
+			blas64.Syr(1, blas64.Vector{N: n, Inc: e.capB, Data: e.rows[k:]}, e.cov)
+		}
+		e.nb = 0
+		return
+	}
+	d := blas64.General{Rows: e.p, Cols: e.nb, Stride: e.capB, Data: e.rows}
+	blas64.Syrk(blas.NoTrans, 1, d, tail, e.cov)
 	e.nb = 0
 }
 
