@@ -404,6 +404,7 @@ func (t *Tracker) Step(dst *Score, x []float64, missing []bool) error {
 	t.since++
 	if (!t.ready && t.learned >= uint64(t.cfg.WarmUp)) || (t.ready && t.cfg.RefreshEvery > 0 && t.since >= t.cfg.RefreshEvery) {
 		if err := t.Refresh(); err != nil {
+			t.since = 0 // keep the previous model; retry after RefreshEvery frames
 			return err
 		}
 	}
