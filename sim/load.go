@@ -134,9 +134,14 @@ func LoadBytes(name string, data []byte) (*Scenario, error) {
 var nameRE = regexp.MustCompile(`^[a-z][a-z0-9_]*$`)
 
 type loader struct {
-	file string
-	errs []*FieldError
+	file  string
+	errs  []*FieldError
+	total int // channels expanded so far
 }
+
+// maxChannels bounds the expanded scenario so a small file cannot ask for
+// unbounded memory (counts multiply).
+const maxChannels = 200000
 
 func (l *loader) errf(n *yaml.Node, path, format string, args ...any) {
 	line, col := 0, 0
@@ -531,6 +536,12 @@ func (l *loader) assets(s *Scenario, unit string, n *yaml.Node, path string, glo
 	width := len(strconv.Itoa(count))
 	if width < 2 {
 		width = 2
+	}
+	if nc := f["channels"]; nc != nil && nc.Kind == yaml.SequenceNode {
+		if l.total += count * len(nc.Content); l.total > maxChannels {
+			l.errf(n, path, "scenario would have more than %d channels", maxChannels)
+			return nil
+		}
 	}
 	var out []Asset
 	for c := 1; c <= count; c++ {

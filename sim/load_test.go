@@ -179,3 +179,13 @@ func TestParseDuration(t *testing.T) {
 		}
 	}
 }
+
+// TestLoadSizeLimit: counts multiply, so the expanded size is bounded.
+func TestLoadSizeLimit(t *testing.T) {
+	big := strings.Replace(minimal, "count: 3", "count: 100000", 1)
+	big = strings.Replace(big, "        channels:\n", "        channels:\n          - {name: f2, eng_unit: m, base: 1, noise: 1}\n          - {name: f3, eng_unit: m, base: 1, noise: 1}\n", 1)
+	_, err := LoadBytes("big.yaml", []byte(big))
+	if err == nil || !strings.Contains(err.Error(), "more than 200000 channels") {
+		t.Fatalf("got %v", err)
+	}
+}
