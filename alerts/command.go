@@ -245,9 +245,12 @@ func (e *Engine) publishAck(inc *incident, t time.Time) {
 
 func (e *Engine) maintenance(c Command) Reply {
 	u := e.units[c.Unit]
+	note := ""
 	if u == nil {
-		// A unit not seen yet can still be put in maintenance ahead of time.
+		// A unit not seen yet can still be put in maintenance ahead of
+		// time; the reply says so, in case the name is mistyped.
 		u = e.unit(c.Unit)
+		note = " (no frames seen from this unit yet)"
 	}
 	t := u.last
 	if t.IsZero() {
@@ -270,14 +273,14 @@ func (e *Engine) maintenance(c Command) Reply {
 		}
 		e.resetAlarms(u, t)
 		e.syncFreeze(u, t)
-		ok.Message = "maintenance on: alerts suppressed, learning frozen"
+		ok.Message = "maintenance on: alerts suppressed, learning frozen" + note
 		return ok
 	}
 	u.maint = false
 	e.resetAlarms(u, t)
 	e.emit(Event{Time: t, Unit: u.name, Kind: EventMaintenanceOff})
 	e.syncFreeze(u, t)
-	ok.Message = "maintenance off"
+	ok.Message = "maintenance off" + note
 	return ok
 }
 

@@ -662,12 +662,26 @@ func TestObserveAllocs(t *testing.T) {
 	}
 }
 
-func BenchmarkObserve(b *testing.B) {
+// benchObserve measures one frame with nq channels flagged stuck every
+// frame (their alarms active, in steady state).
+func benchObserve(b *testing.B, nq int) {
 	e, _ := NewEngine(Config{}, PublisherFunc(func(*Record) {}), nil, nil)
 	o := Observation{Unit: "u", ModelState: ModelAdapting, Stats: []Stat{{StatT2, 5, 10}, {StatSPE, 1, 5}, {StatPhi, 1, 3}}}
+	for i := 0; i < nq; i++ {
+		o.Quality = append(o.Quality, Quality{fmt.Sprintf("u.c%d.x", i), QualityStuck})
+	}
+	o.Time = sec(0)
+	e.Observe(&o)
 	b.ReportAllocs()
-	for i := 0; b.Loop(); i++ {
+	b.ResetTimer()
+	for i := 1; b.Loop(); i++ {
 		o.Time = sec(float64(i))
 		e.Observe(&o)
+	}
+}
+
+func BenchmarkObserve(b *testing.B) {
+	for _, nq := range []int{0, 10, 100} {
+		b.Run(fmt.Sprintf("stuck=%d", nq), func(b *testing.B) { benchObserve(b, nq) })
 	}
 }

@@ -301,3 +301,34 @@ func TestBackoffSchedule(t *testing.T) {
 		}
 	}
 }
+
+// benchSubmit measures Submit with the destination stalled: queue only
+// (no spool) against the write-ahead spool.
+func benchSubmit(b *testing.B, spool bool) {
+	d := newDest()
+	d.gate = make(chan struct{})
+	o := Options{Name: "b", QueueLen: 1 << 20, Backoff: fast}
+	if spool {
+		o.SpoolDir = b.TempDir()
+		o.Fsync = FsyncNever
+		o.MaxSpoolBytes = 1 << 40
+	}
+	s, _ := New(d, o)
+	m := msg(1)
+	m.Data = make([]byte, 0, 900)
+	m.Data = fmt.Appendf(m.Data, `{"pad":"%0800d"}`, 0)
+	b.ReportAllocs()
+	for b.Loop() {
+		s.Submit(m)
+	}
+	b.StopTimer()
+	close(d.gate)
+	ctx, cancel := context.WithTimeout(context.Background(), time.Millisecond)
+	s.Close(ctx)
+	cancel()
+}
+
+func BenchmarkSubmit(b *testing.B) {
+	b.Run("queue", func(b *testing.B) { benchSubmit(b, false) })
+	b.Run("spool", func(b *testing.B) { benchSubmit(b, true) })
+}
