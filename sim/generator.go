@@ -126,7 +126,7 @@ func (s *Scenario) NewGenerator() (*Generator, error) {
 	g.x = make([]float64, len(s.Drivers))
 	g.xs = make([]float64, len(s.Drivers))
 	index := map[string]int{}
-	for ui, u := range s.Units {
+	for _, u := range s.Units {
 		us := unitState{name: u.Name, a0: len(g.assets)}
 		for _, a := range u.Assets {
 			as := assetState{unit: u.Name, name: a.Name, c0: len(g.ch)}
@@ -148,7 +148,6 @@ func (s *Scenario) NewGenerator() (*Generator, error) {
 		}
 		us.a1 = len(g.assets)
 		g.units = append(g.units, us)
-		_ = ui
 	}
 	g.values = make([]float64, len(g.ch))
 	for i, e := range s.Episodes {

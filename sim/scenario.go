@@ -1,7 +1,7 @@
 // Package sim generates readings from an invented plant so that modewatch can
 // be demonstrated and tested against a known truth.
 //
-// A scenario (YAML, see Load) describes plant units made of assets, each asset
+// A scenario (YAML, see LoadBytes for the format) describes plant units made of assets, each asset
 // carrying a few channels; a handful of latent drivers (load, ambient
 // temperature, setpoints); how each channel depends on the drivers; the
 // sampling, timestamp jitter and random dropouts; and labelled fault episodes.
@@ -29,8 +29,13 @@
 //
 // Output is line protocol, one line per asset and sample: measurement = unit
 // name, tag asset=<asset>, one float field per channel that is present, and a
-// nanosecond timestamp (nominal sample time plus jitter). The channel name in
-// the auto-discovery form measurement.tagvalues.field is unit.asset.field.
+// nanosecond timestamp (nominal sample time plus a uniform jitter in
+// ±Jitter, drawn per line). A line whose channels are all missing is left
+// out. Lines come in nominal time order; with jitter, the timestamps of
+// different assets of one sample may be out of order by up to 2·Jitter, as
+// from separate field devices. Values are clamped to [min, max] when given and
+// rounded to the channel's decimals. The channel name in the auto-discovery
+// form measurement.tagvalues.field is unit.asset.field.
 //
 // The generator is deterministic: math/rand/v2 PCG sources seeded from the
 // scenario seed; the main stream draws the same number of values per sample
