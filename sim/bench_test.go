@@ -90,7 +90,7 @@ func BenchmarkWriteLarge(b *testing.B) {
 			var w io.Writer = io.Discard
 			var zw *gzip.Writer
 			if gz {
-				zw = gzip.NewWriter(w)
+				zw, _ = gzip.NewWriterLevel(w, gzip.BestSpeed)
 				w = zw
 			}
 			if err := s.WriteLineProtocol(w); err != nil {
