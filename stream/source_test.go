@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"compress/gzip"
 	"context"
+	"errors"
 	"fmt"
 	"os"
 	"path/filepath"
@@ -238,5 +239,41 @@ func shiftTimes(payload []byte, base time.Time) {
 			v /= 10
 		}
 		i += j + 1
+	}
+}
+
+// TestIntakeClockJump: a gap over the limit is reported through
+// OnClockJump, counted, and the frames after it carry the next segment.
+func TestIntakeClockJump(t *testing.T) {
+	var jumps []string
+	in, s := newTestIntake(t, Options{
+		Align: AlignConfig{Period: time.Second, ClockJump: time.Minute},
+		OnClockJump: func(from, to time.Time, seg int) {
+			jumps = append(jumps, fmt.Sprintf("%v→%v seg %d", from.Sub(t0), to.Sub(t0), seg))
+		},
+	})
+	in.Feed("j", []byte(lines(0, 3)+lines(3600, 3602)))
+	in.Flush()
+	st := in.Stats()
+	if fmt.Sprint(jumps) != "[2s→1h0m0s seg 1]" || st.Segments() != 2 || st.ClockJumps != 1 || len(s.frames) != 5 {
+		t.Fatalf("jumps %v stats %+v frames %d", jumps, st, len(s.frames))
+	}
+	if s.frames[2].Segment != 0 || s.frames[3].Segment != 1 || !s.frames[3].Start.Equal(at(3600)) {
+		t.Errorf("frames %+v", s.frames)
+	}
+}
+
+// TestHandlerError: a failing frame handler stops Feed with an error that
+// wraps ErrHandler and the handler's error; held acks are not released.
+func TestHandlerError(t *testing.T) {
+	boom := fmt.Errorf("tracker failed")
+	ch, _ := NewChannels(nil, 0)
+	in, _ := NewIntake(ch, Options{Align: AlignConfig{Period: time.Second, Lateness: -1}, Log: quiet},
+		func(*Frame) error { return boom })
+	acked := false
+	in.FeedAck("h", []byte(lines(0, 1)), func() error { acked = true; return nil })
+	_, err := in.Feed("h", []byte(lines(1, 2)))
+	if !errors.Is(err, ErrHandler) || !errors.Is(err, boom) || acked {
+		t.Errorf("err %v acked %v", err, acked)
 	}
 }
