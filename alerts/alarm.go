@@ -30,6 +30,17 @@ func (s State) String() string {
 // MarshalText encodes the state as its name.
 func (s State) MarshalText() ([]byte, error) { return []byte(s.String()), nil }
 
+// UnmarshalText reads a state name.
+func (s *State) UnmarshalText(b []byte) error {
+	for i, n := range stateNames {
+		if n == string(b) {
+			*s = State(i)
+			return nil
+		}
+	}
+	return fmt.Errorf("alerts: unknown state %q", b)
+}
+
 // InAlarm reports whether the state counts as "in alarm" (active or
 // returning): the alert record stays open.
 func (s State) InAlarm() bool { return s == Active || s == Returning }

@@ -1,0 +1,398 @@
+package alerts
+
+import (
+	"encoding/json"
+	"errors"
+	"fmt"
+	"io"
+	"slices"
+	"time"
+)
+
+// snapshotVersion is the version of the snapshot format written by
+// Snapshot; Restore refuses other versions.
+const snapshotVersion = 1
+
+type snapAlarm struct {
+	State  State     `json:"state"`
+	Window uint64    `json:"window"`
+	Since  time.Time `json:"since"`
+}
+
+type snapGroup struct {
+	InAlarm    bool        `json:"in_alarm"`
+	Since      time.Time   `json:"since"`
+	Inc        string      `json:"incident,omitempty"`
+	Shelf      *Shelve     `json:"shelf,omitempty"`
+	Acts       []time.Time `json:"activations,omitempty"` // oldest first
+	Chattering bool        `json:"chattering,omitempty"`
+	LastAct    time.Time   `json:"last_activation"`
+}
+
+type snapQuality struct {
+	Kind    string    `json:"kind"`
+	Channel string    `json:"channel"`
+	Alarm   snapAlarm `json:"alarm"`
+	Group   snapGroup `json:"group"`
+}
+
+type snapOpening struct {
+	T   time.Time `json:"t"`
+	Inc string    `json:"incident,omitempty"`
+}
+
+type snapStat struct {
+	Used bool `json:"used"`
+	RecordStat
+}
+
+type snapIncident struct {
+	ID          string              `json:"id"`
+	Kind        string              `json:"kind"`
+	Group       string              `json:"group,omitempty"` // group key; "" for floods
+	Start       time.Time           `json:"start"`
+	End         time.Time           `json:"end"`
+	Ended       bool                `json:"ended"`
+	Updated     time.Time           `json:"updated"`
+	Stats       [3]snapStat         `json:"stats"`
+	Peak        Peak                `json:"peak"`
+	HasPeak     bool                `json:"has_peak"`
+	Sev         int                 `json:"sev"`
+	SevName     string              `json:"sev_name"`
+	Contrib     []RecordContributor `json:"contrib,omitempty"`
+	Missing     []string            `json:"missing,omitempty"`
+	Ack         *Ack                `json:"ack,omitempty"`
+	Stale       bool                `json:"stale,omitempty"`
+	Chatter     *Chatter            `json:"chatter,omitempty"`
+	Rev         int                 `json:"rev"`
+	Member      bool                `json:"member,omitempty"`
+	Flood       string              `json:"flood,omitempty"`
+	MemberIdx   int                 `json:"member_idx"`
+	EndReason   string              `json:"end_reason,omitempty"`
+	Members     []Member            `json:"members,omitempty"`
+	MemberCount int                 `json:"member_count,omitempty"`
+	LastPub     time.Time           `json:"last_pub"`
+	Dirty       bool                `json:"dirty,omitempty"`
+	MaxCount    int                 `json:"max_count,omitempty"`
+}
+
+type snapUnit struct {
+	Name      string         `json:"name"`
+	Last      time.Time      `json:"last"`
+	Seen      bool           `json:"seen"`
+	Maint     bool           `json:"maintenance"`
+	Frozen    bool           `json:"frozen"`
+	Model     string         `json:"model_state"`
+	Stats     [3]snapAlarm   `json:"stats"`
+	ModelG    snapGroup      `json:"model_group"`
+	Quality   []snapQuality  `json:"quality,omitempty"`
+	Openings  []snapOpening  `json:"openings,omitempty"` // oldest first
+	Flood     string         `json:"flood,omitempty"`
+	RateLast  int64          `json:"rate_last_minute"`
+	RateCount map[int]uint32 `json:"rate_counts,omitempty"` // bucket → count, non-zero only
+	Counters  UnitCounters   `json:"counters"`
+}
+
+type snapshot struct {
+	Version   int            `json:"version"`
+	Units     []snapUnit     `json:"units"`
+	Incidents []snapIncident `json:"incidents"`
+}
+
+// Snapshot writes the engine's state (alarm states, open incidents,
+// shelves, maintenance, floods, chattering, counters) as JSON to w, for
+// Restore after a restart, so that incidents open at shutdown continue
+// under the same id instead of being raised again. Closed incidents kept
+// for late acknowledgement are not included.
+func (e *Engine) Snapshot(w io.Writer) error {
+	e.mu.Lock()
+	s := snapshot{Version: snapshotVersion}
+	incs := map[*incident]bool{}
+	names := make([]string, 0, len(e.units))
+	for n := range e.units {
+		names = append(names, n)
+	}
+	slices.Sort(names)
+	for _, n := range names {
+		u := e.units[n]
+		su := snapUnit{
+			Name: u.name, Last: u.last, Seen: u.seen, Maint: u.maint, Frozen: u.frozen, Model: u.model,
+			ModelG: snapGroupOf(&u.modelG, incs), RateLast: u.rate.last, Counters: u.c,
+		}
+		for k := range u.stats {
+			su.Stats[k] = snapAlarmOf(&u.stats[k])
+		}
+		for k, q := range u.quality {
+			su.Quality = append(su.Quality, snapQuality{Kind: k.kind, Channel: k.channel, Alarm: snapAlarmOf(&q.a), Group: snapGroupOf(&q.g, incs)})
+		}
+		slices.SortFunc(su.Quality, func(a, b snapQuality) int {
+			if c := cmpString(a.Kind, b.Kind); c != 0 {
+				return c
+			}
+			return cmpString(a.Channel, b.Channel)
+		})
+		for k := u.openings.n - 1; k >= 0; k-- {
+			t, inc := u.openings.at(k)
+			o := snapOpening{T: t}
+			if inc != nil {
+				o.Inc = inc.id
+				incs[inc] = true
+			}
+			su.Openings = append(su.Openings, o)
+		}
+		if u.flood != nil {
+			su.Flood = u.flood.id
+			incs[u.flood] = true
+		}
+		for i, c := range u.rate.b {
+			if c != 0 {
+				if su.RateCount == nil {
+					su.RateCount = map[int]uint32{}
+				}
+				su.RateCount[i] = c
+			}
+		}
+		s.Units = append(s.Units, su)
+	}
+	for inc := range incs {
+		if inc.flood != nil {
+			incs[inc.flood] = true
+		}
+	}
+	for inc := range incs {
+		si := snapIncident{
+			ID: inc.id, Kind: inc.kind, Start: inc.start, End: inc.end, Ended: inc.ended, Updated: inc.updated,
+			Peak: inc.peak, HasPeak: inc.hasPeak, Sev: inc.sev, SevName: inc.sevName,
+			Contrib: inc.contrib, Missing: inc.missing, Ack: inc.ack, Stale: inc.stale, Chatter: inc.chatter,
+			Rev: inc.rev, Member: inc.member, MemberIdx: inc.memberIdx, EndReason: inc.endReason,
+			Members: inc.members, MemberCount: inc.memberCount, LastPub: inc.lastPub, Dirty: inc.dirty, MaxCount: inc.maxCount,
+		}
+		for k, st := range inc.stats {
+			si.Stats[k] = snapStat{Used: st.used, RecordStat: st.RecordStat}
+		}
+		if inc.g != nil {
+			si.Group = inc.g.key
+		}
+		if inc.flood != nil {
+			si.Flood = inc.flood.id
+		}
+		s.Incidents = append(s.Incidents, si)
+	}
+	slices.SortFunc(s.Incidents, func(a, b snapIncident) int { return cmpString(a.ID, b.ID) })
+	data, err := json.Marshal(&s)
+	e.mu.Unlock()
+	if err != nil {
+		return fmt.Errorf("alerts: snapshot: %w", err)
+	}
+	if _, err := w.Write(data); err != nil {
+		return fmt.Errorf("alerts: snapshot: %w", err)
+	}
+	return nil
+}
+
+func cmpString(a, b string) int {
+	switch {
+	case a < b:
+		return -1
+	case a > b:
+		return 1
+	}
+	return 0
+}
+
+func snapAlarmOf(a *Alarm) snapAlarm { return snapAlarm{State: a.state, Window: a.window, Since: a.since} }
+
+func snapGroupOf(g *group, incs map[*incident]bool) snapGroup {
+	s := snapGroup{InAlarm: g.inAlarm, Since: g.since, Shelf: g.shelf, Chattering: g.chattering, LastAct: g.lastAct}
+	if g.inc != nil {
+		s.Inc = g.inc.id
+		incs[g.inc] = true
+	}
+	for k := g.acts.n - 1; k >= 0; k-- {
+		t, _ := g.acts.at(k)
+		s.Acts = append(s.Acts, t)
+	}
+	return s
+}
+
+// Restore replaces the engine's state by a snapshot written by Snapshot.
+// The engine's own configuration applies from now on. Units whose learning
+// was frozen are frozen again through the Learning callback. An error
+// leaves the engine unchanged.
+func (e *Engine) Restore(r io.Reader) error {
+	var s snapshot
+	dec := json.NewDecoder(r)
+	if err := dec.Decode(&s); err != nil {
+		return fmt.Errorf("alerts: restore: %w", err)
+	}
+	if s.Version != snapshotVersion {
+		return fmt.Errorf("alerts: restore: snapshot version %d, want %d", s.Version, snapshotVersion)
+	}
+	e.mu.Lock()
+	defer e.mu.Unlock()
+	old := e.units
+	e.units = make(map[string]*unit)
+	incs := make(map[string]*incident, len(s.Incidents))
+	fail := func(format string, args ...any) error {
+		e.units = old
+		return fmt.Errorf("alerts: restore: "+format, args...)
+	}
+	for i := range s.Incidents {
+		si := &s.Incidents[i]
+		if si.ID == "" || incs[si.ID] != nil {
+			return fail("incident %d: empty or repeated id %q", i, si.ID)
+		}
+		incs[si.ID] = &incident{
+			id: si.ID, kind: si.Kind, start: si.Start, end: si.End, ended: si.Ended, updated: si.Updated,
+			peak: si.Peak, hasPeak: si.HasPeak, sev: si.Sev, sevName: si.SevName,
+			contrib: si.Contrib, missing: si.Missing, ack: si.Ack, stale: si.Stale, chatter: si.Chatter,
+			rev: si.Rev, member: si.Member, memberIdx: si.MemberIdx, endReason: si.EndReason,
+			members: si.Members, memberCount: si.MemberCount, lastPub: si.LastPub, dirty: si.Dirty, maxCount: si.MaxCount,
+		}
+	}
+	lookup := func(id string) (*incident, error) {
+		if id == "" {
+			return nil, nil
+		}
+		inc := incs[id]
+		if inc == nil {
+			return nil, fmt.Errorf("unknown incident %q", id)
+		}
+		return inc, nil
+	}
+	for _, si := range s.Incidents {
+		for k, st := range si.Stats {
+			incs[si.ID].stats[k] = statPeak{used: st.Used, RecordStat: st.RecordStat}
+		}
+		if si.Flood != "" {
+			f, err := lookup(si.Flood)
+			if err != nil {
+				return fail("%v", err)
+			}
+			incs[si.ID].flood = f
+		}
+	}
+	for _, su := range s.Units {
+		if su.Name == "" || e.units[su.Name] != nil {
+			return fail("empty or repeated unit %q", su.Name)
+		}
+		u := e.unit(su.Name)
+		u.last, u.seen, u.maint, u.frozen, u.model, u.c = su.Last, su.Seen, su.Maint, su.Frozen, su.Model, su.Counters
+		for k := range u.stats {
+			restoreAlarm(&u.stats[k], su.Stats[k])
+		}
+		if err := e.restoreGroup(u, &u.modelG, su.ModelG, lookup); err != nil {
+			return fail("unit %q: %v", su.Name, err)
+		}
+		for _, sq := range su.Quality {
+			rule, ok := e.cfg.Quality[sq.Kind]
+			if !ok {
+				return fail("unit %q: unknown quality kind %q", su.Name, sq.Kind)
+			}
+			q := &qalarm{
+				a: NewAlarm(AlarmRule{N: 1, M: 1, OnHold: rule.Hold, OffDelay: rule.OffDelay}),
+				g: group{key: sq.Kind + ":" + sq.Channel, qkind: sq.Kind, chann: sq.Channel, acts: newRing(e.cfg.ChatterCount)},
+			}
+			restoreAlarm(&q.a, sq.Alarm)
+			if err := e.restoreGroup(u, &q.g, sq.Group, lookup); err != nil {
+				return fail("unit %q: %v", su.Name, err)
+			}
+			u.quality[qkey{sq.Kind, sq.Channel}] = q
+		}
+		for _, o := range su.Openings {
+			inc, err := lookup(o.Inc)
+			if err != nil {
+				return fail("unit %q: %v", su.Name, err)
+			}
+			u.openings.push(o.T, inc)
+		}
+		f, err := lookup(su.Flood)
+		if err != nil {
+			return fail("unit %q: %v", su.Name, err)
+		}
+		u.flood = f
+		u.rate.last = su.RateLast
+		for i, c := range su.RateCount {
+			if i < 0 || i >= len(u.rate.b) {
+				return fail("unit %q: rate bucket %d", su.Name, i)
+			}
+			u.rate.b[i] = c
+		}
+	}
+	for _, inc := range incs {
+		if inc.u == nil {
+			// floods and closed members listed in openings: their unit
+			// is the one that references them
+			for _, u := range e.units {
+				if u.flood == inc {
+					inc.u = u
+				}
+				for k := 0; k < u.openings.n; k++ {
+					if _, oi := u.openings.at(k); oi == inc {
+						inc.u = u
+					}
+				}
+			}
+		}
+		if inc.u == nil {
+			return fail("incident %q belongs to no unit", inc.id)
+		}
+		if inc.kind != KindFlood && inc.g == nil {
+			// A closed incident kept only for flood membership: give it a
+			// detached group carrying its key for member listings.
+			key := ""
+			for _, si := range s.Incidents {
+				if si.ID == inc.id {
+					key = si.Group
+				}
+			}
+			inc.g = &group{key: key}
+		}
+	}
+	e.byID = make(map[string]*incident, len(incs))
+	e.closed, e.nextC = e.closed[:0], 0
+	for id, inc := range incs {
+		if !inc.ended {
+			e.byID[id] = inc
+		}
+	}
+	for _, u := range e.units {
+		if u.frozen && e.learn != nil {
+			e.learn.Freeze(u.name)
+		}
+	}
+	return nil
+}
+
+func restoreAlarm(a *Alarm, s snapAlarm) {
+	a.state, a.since = s.State, s.Since
+	a.window = s.Window
+	if a.rule.M < 64 {
+		a.window &= 1<<uint(a.rule.M) - 1
+	}
+	if a.state > Returning {
+		a.state = Normal
+	}
+}
+
+func (e *Engine) restoreGroup(u *unit, g *group, s snapGroup, lookup func(string) (*incident, error)) error {
+	g.inAlarm, g.since, g.shelf, g.chattering, g.lastAct = s.InAlarm, s.Since, s.Shelf, s.Chattering, s.LastAct
+	for _, t := range s.Acts {
+		g.acts.push(t, nil)
+	}
+	inc, err := lookup(s.Inc)
+	if err != nil {
+		return err
+	}
+	if inc != nil {
+		if inc.g != nil {
+			return errors.New("incident " + inc.id + " in two groups")
+		}
+		inc.g, inc.u = g, u
+		g.inc = inc
+		if g.chattering && inc.chatter == nil {
+			return errors.New("chattering group without chatter record: " + inc.id)
+		}
+	}
+	return nil
+}
