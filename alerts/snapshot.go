@@ -200,7 +200,9 @@ func cmpString(a, b string) int {
 	return 0
 }
 
-func snapAlarmOf(a *Alarm) snapAlarm { return snapAlarm{State: a.state, Window: a.window, Since: a.since} }
+func snapAlarmOf(a *Alarm) snapAlarm {
+	return snapAlarm{State: a.state, Window: a.window, Since: a.since}
+}
 
 func snapGroupOf(g *group, incs map[*incident]bool) snapGroup {
 	s := snapGroup{InAlarm: g.inAlarm, Since: g.since, Shelf: g.shelf, Chattering: g.chattering, LastAct: g.lastAct}
