@@ -301,10 +301,14 @@ func (e *EW) CorrTo(dst *mat.SymDense, include []bool) {
 	for i := 0; i < n; i++ {
 		src := e.cov.Data[i*n+i : i*n+n]
 		d := raw.Data[i*raw.Stride+i : i*raw.Stride+n]
-		for j := range d {
-			d[j] = src[j] * e.s[i] * e.s[i+j]
+		si := e.s[i]
+		sr := e.s[i:n]
+		d = d[:len(sr)]
+		src = src[:len(sr)]
+		for j, sj := range sr {
+			d[j] = src[j] * si * sj
 		}
-		if e.s[i] != 0 {
+		if si != 0 {
 			d[0] = 1
 		}
 	}

@@ -5,6 +5,7 @@ import (
 
 	"gonum.org/v1/gonum/blas"
 	"gonum.org/v1/gonum/blas/blas64"
+	"gonum.org/v1/gonum/floats"
 	"gonum.org/v1/gonum/mat"
 
 	"modewatch/tracker/limits"
@@ -216,10 +217,7 @@ func (m *model) setLoadings(pm mat.Matrix) {
 	for i := 0; i < p; i++ {
 		row := a.Data[i*a.Stride+i : i*a.Stride+p]
 		m.trA += row[0]
-		m.aFro2 += row[0] * row[0]
-		for _, v := range row[1:] {
-			m.aFro2 += 2 * v * v
-		}
+		m.aFro2 += row[0]*row[0] + 2*floats.Dot(row[1:], row[1:])
 	}
 	m.cache = m.cache[:0]
 	m.next = 0
