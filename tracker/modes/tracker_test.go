@@ -523,3 +523,42 @@ func TestTrackerWarmEmptyFallsBackCold(t *testing.T) {
 		t.Errorf("second refresh: support %v cold %v, want [5 6 7 8] from the cold start", m.Support, m.Cold)
 	}
 }
+
+// TestWarmMatchesCold: after a small covariance change (one exponentially
+// weighted sample, the benchmark's change), the warm refresh lands on the
+// same modes as a cold solve of the new matrix, with fewer iterations.
+// Variances agree to 1e-6 relative: later modes inherit the 1e-6 step
+// tolerance of the earlier ones through the deflation. (Not asserted for
+// L0Pen: on this matrix its warm and cold starts end at two different fixed
+// points, the warm one with the larger penalised objective; both are valid.)
+func TestWarmMatchesCold(t *testing.T) {
+	a1, a2 := benchMatrices(100)
+	for _, sp := range []Sparsity{{Method: L0, K: 10}, {Method: L1PenSqrt, Gamma: 0.5}, {Method: L1, S: 2.5}} {
+		for _, d := range []Deflation{Projection, Schur} {
+			cfg := Config{Sparsity: []Sparsity{sp}, Count: 5, ColdEvery: -1, Deflation: d}
+			warm, _ := NewTracker(100, cfg)
+			cold, _ := NewTracker(100, cfg)
+			if err := warm.Refresh(a1); err != nil {
+				t.Fatal(err)
+			}
+			if err := warm.Refresh(a2); err != nil {
+				t.Fatal(err)
+			}
+			if err := cold.Refresh(a2); err != nil {
+				t.Fatal(err)
+			}
+			if warm.Count() != cold.Count() {
+				t.Fatalf("%v %v: warm %d modes, cold %d", sp, d, warm.Count(), cold.Count())
+			}
+			for j := 0; j < cold.Count(); j++ {
+				w, c := warm.Mode(j), cold.Mode(j)
+				if !sameInts(w.Support, c.Support) || !scalar.EqualWithinAbsOrRel(w.Variance, c.Variance, 1e-6, 1e-6) {
+					t.Errorf("%v %v mode %d: warm %v %.10f, cold %v %.10f", sp, d, j, w.Support, w.Variance, c.Support, c.Variance)
+				}
+			}
+			if warm.Iterations() >= cold.Iterations() {
+				t.Errorf("%v %v: warm %d iterations, cold %d", sp, d, warm.Iterations(), cold.Iterations())
+			}
+		}
+	}
+}
