@@ -95,6 +95,10 @@ type AckTracker struct {
 	capacity int
 	last     uint64 // checkpoint sequence
 	wm       time.Time
+	// minWait is at or below the smallest latest event time among the
+	// waiting messages (exact after a scan), so AckThrough can skip the scan
+	// while the watermark has not passed it.
+	minWait time.Time
 
 	admitted, dups, acked, ackErrs, forgotten uint64
 }
@@ -187,6 +191,9 @@ func (t *AckTracker) Add(m Msg, latest time.Time) error {
 		i -= t.head
 		t.head = 0
 	}
+	if len(t.pending) == t.head || latest.Before(t.minWait) {
+		t.minWait = latest
+	}
 	t.pending = slices.Insert(t.pending, i, pendingMsg{seq: m.Seq, maxEvent: latest, ack: m.Ack})
 	return nil
 }
@@ -218,11 +225,21 @@ func (t *AckTracker) AckThrough(w time.Time) (int, error) {
 		w = t.wm
 	}
 	t.wm = w
+	if len(t.pending) == t.head || !t.minWait.Before(w) {
+		return 0, nil // nothing waiting qualifies
+	}
 	n := 0
 	var first error
+	minWait, anyWaiting := time.Time{}, false
 	for i := t.head; i < len(t.pending); i++ {
 		p := &t.pending[i]
-		if p.done || !p.maxEvent.Before(w) {
+		if p.done {
+			continue
+		}
+		if !p.maxEvent.Before(w) {
+			if !anyWaiting || p.maxEvent.Before(minWait) {
+				minWait, anyWaiting = p.maxEvent, true
+			}
 			continue
 		}
 		p.done = true
@@ -238,6 +255,7 @@ func (t *AckTracker) AckThrough(w time.Time) (int, error) {
 		}
 		p.ack = nil
 	}
+	t.minWait = minWait
 	for t.head < len(t.pending) && t.pending[t.head].done {
 		t.last = t.pending[t.head].seq
 		t.pending[t.head] = pendingMsg{}

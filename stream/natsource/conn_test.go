@@ -2,6 +2,8 @@ package natsource
 
 import (
 	"errors"
+	"fmt"
+	"net"
 	"path/filepath"
 	"strings"
 	"testing"
@@ -92,5 +94,62 @@ func TestRedact(t *testing.T) {
 	want := "nats://***@host:4222,tls://host2:4443,***@h:1"
 	if got != want {
 		t.Errorf("redact = %q, want %q", got, want)
+	}
+}
+
+// TestRetryOnFailedConnect: the service may start before its server. With
+// RetryOnFailedConnect, Connect returns at once in state connecting and the
+// Connected event follows when the server comes up.
+func TestRetryOnFailedConnect(t *testing.T) {
+	checkNoLeak(t)
+	l, err := net.Listen("tcp", "127.0.0.1:0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	port := l.Addr().(*net.TCPAddr).Port
+	l.Close() // free again; the server takes it below
+	ev := newEventRecorder()
+	c, err := Connect(ctxT(t, 5*time.Second), Options{
+		URLs: []string{fmt.Sprintf("nats://127.0.0.1:%d", port)}, RetryOnFailedConnect: true,
+		ReconnectWait: 10 * time.Millisecond, MaxReconnectWait: 50 * time.Millisecond, OnEvent: ev.on,
+	}, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer drainConn(t, c)
+	if c.State() != StateConnecting {
+		t.Errorf("state %v before the server is up, want connecting", c.State())
+	}
+	o := testOpts(t)
+	o.Port = port
+	runServer(t, o)
+	e := ev.wait(t, EventConnected, 10*time.Second)
+	if c.State() != StateConnected || !strings.Contains(e.URL, fmt.Sprint(port)) {
+		t.Errorf("state %v, event %+v", c.State(), e)
+	}
+}
+
+// TestSeveralURLs: with the first server down, the client connects to the
+// next one in the list.
+func TestSeveralURLs(t *testing.T) {
+	checkNoLeak(t)
+	s := runServer(t, testOpts(t))
+	c, err := Connect(ctxT(t, 5*time.Second), Options{
+		URLs: []string{"nats://127.0.0.1:1", s.ClientURL()}, NoRandomize: true, Name: "failover-test",
+	}, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer drainConn(t, c)
+	if st := c.Stats(); st.State != StateConnected || st.URL != s.ClientURL() {
+		t.Errorf("stats %+v, want connected to %s", st, s.ClientURL())
+	}
+	// The name reaches the server's connection list (monitoring).
+	cz, err := s.Connz(nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(cz.Conns) != 1 || cz.Conns[0].Name != "failover-test" {
+		t.Errorf("server sees connections %+v", cz.Conns)
 	}
 }
