@@ -114,3 +114,33 @@ func BenchmarkRefresh(b *testing.B) {
 		})
 	}
 }
+
+// BenchmarkSolve: one cold Solve per method on the p = 500 benchmark
+// matrix (includes the O(p²) pass for the start column), against one
+// EigenSym of the same matrix.
+func BenchmarkSolve(b *testing.B) {
+	const p = 500
+	a, _ := benchMatrices(p)
+	x := make([]float64, p)
+	for _, s := range []string{"none", "l0:10", "l1:3", "l0pen:0.5", "l1pen:2", "l1sqrt:0.5", "logpen:1,0.1", "exppen:1,0.1"} {
+		sp, err := ParseSparsity(s)
+		if err != nil {
+			b.Fatal(err)
+		}
+		b.Run(s, func(b *testing.B) {
+			ws := NewWorkspace(p)
+			iters := 0
+			b.ReportAllocs()
+			b.ResetTimer()
+			for i := 0; i < b.N; i++ {
+				res, err := Solve(x, a, sp, nil, ws)
+				if err != nil {
+					b.Fatal(err)
+				}
+				iters += res.Iterations + res.RefitIterations
+			}
+			b.ReportMetric(float64(iters)/float64(b.N), "iters/op")
+			benchSink += x[0]
+		})
+	}
+}
