@@ -185,6 +185,9 @@ func NewTracker(p int, cfg Config) (*Tracker, error) {
 				cfg.MaxCount = ns
 			}
 		}
+		if cfg.MaxCount > p {
+			return bad("%d sparsity entries for p = %d channels", ns, p)
+		}
 		slots = cfg.MaxCount
 	} else {
 		if cfg.Share != 0 {

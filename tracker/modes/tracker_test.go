@@ -462,6 +462,7 @@ func TestNewTrackerErrors(t *testing.T) {
 		{"maxcount>p", 3, Config{MaxCount: 4}, ErrConfig},
 		{"maxcount<count", 5, Config{Count: 3, MaxCount: 2}, ErrConfig},
 		{"sparsity count", 5, Config{Count: 3, Sparsity: []Sparsity{{}, {}}}, ErrConfig},
+		{"sparsity entries > p", 2, Config{Sparsity: []Sparsity{{}, {}, {}}}, ErrConfig},
 		{"k>p", 5, Config{Count: 1, Sparsity: []Sparsity{{Method: L0, K: 6}}}, ErrSparsity},
 		{"eps", 5, Config{Count: 1, Sparsity: []Sparsity{{Method: LogPen, Gamma: 1}}}, ErrSparsity},
 		{"deflation", 5, Config{Count: 1, Deflation: 7}, ErrConfig},
