@@ -389,7 +389,7 @@ func (t *Tracker) Frozen() bool { return t.frozen || t.baseline }
 // wrapping ErrModel if a refresh failed (the previous model is kept; dst is
 // valid).
 func (t *Tracker) Step(dst *Score, x []float64, missing []bool) error {
-	if err := t.prepare(x, missing); err != nil {
+	if err := t.prepare(x, missing, true); err != nil {
 		return err
 	}
 	t.frames++
@@ -411,23 +411,25 @@ func (t *Tracker) Step(dst *Score, x []float64, missing []bool) error {
 	return nil
 }
 
-// Evaluate scores one frame like Step but learns nothing from it.
+// Evaluate scores one frame like Step but changes no state: it learns
+// nothing and does not advance the flat-line counters or the frame count.
 func (t *Tracker) Evaluate(dst *Score, x []float64, missing []bool) error {
-	if err := t.prepare(x, missing); err != nil {
+	if err := t.prepare(x, missing, false); err != nil {
 		return err
 	}
 	return t.score(dst, x)
 }
 
-// prepare validates the frame, fills t.obs and tracks flat-lined channels.
-func (t *Tracker) prepare(x []float64, missing []bool) error {
+// prepare validates the frame, fills t.obs and t.stuck and, with track,
+// advances the flat-line counters.
+func (t *Tracker) prepare(x []float64, missing []bool, track bool) error {
 	if len(x) != t.p || (missing != nil && len(missing) != t.p) {
 		return fmt.Errorf("%w: %d values, %d missing flags, tracker has %d channels", ErrWidth, len(x), len(missing), t.p)
 	}
 	for i, v := range x {
 		ok := (missing == nil || !missing[i]) && !math.IsNaN(v) && !math.IsInf(v, 0)
 		t.obs[i] = ok
-		if !ok {
+		if !ok || !track {
 			continue
 		}
 		if v == t.last[i] {
