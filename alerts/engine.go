@@ -67,7 +67,7 @@ type Event struct {
 
 // Errors returned by Observe (wrapped with the place).
 var (
-	ErrOutOfOrder = errors.New("alerts: observation older than the unit's last")
+	ErrOutOfOrder = errors.New("alerts: observation not after the unit's last")
 	ErrInput      = errors.New("alerts: bad observation")
 )
 
@@ -78,21 +78,26 @@ var (
 type UnitCounters struct {
 	Unit         string
 	Frames       uint64 // observations accepted
-	OutOfOrder   uint64 // observations refused as older than the last
+	OutOfOrder   uint64 // observations refused: time not after the unit's last
 	InvalidStats uint64 // statistics skipped: non-finite value or bad limit
 	Opened       uint64 // new alerts (incidents opened, including suppressed ones)
 	Published    uint64 // record revisions handed to the publisher
 	Floods       uint64 // floods begun
 	Chattering   uint64 // chattering episodes begun
-	// Suppressed publications: chattering re-activations folded into one
-	// incident; incidents hidden by a shelf, by a flood or by maintenance.
-	ChatterSuppressed, ShelvedSuppressed, FloodSuppressed uint64
-	MaintenanceFrames                                     uint64 // observations ignored during maintenance
-	Stale                                                 uint64 // incidents flagged stale
-	LastHour, LastDay                                     int    // new alerts in the trailing hour / day
-	Open                                                  int    // incidents open now
-	InFlood, InMaint                                      bool
-	Frozen                                                bool // learning frozen by the engine
+
+	ChatterSuppressed uint64 // re-activations folded into a chattering incident
+	ShelvedSuppressed uint64 // publications hidden by a shelf
+	FloodSuppressed   uint64 // publications hidden by a flood (grouped into it)
+	MaintenanceFrames uint64 // observations ignored during maintenance
+	Stale             uint64 // incidents flagged stale
+
+	LastHour  int  // new alerts in the trailing hour
+	LastDay   int  // new alerts in the trailing day
+	Open      int  // incidents open now
+	StaleOpen int  // open incidents flagged stale (ISA-18.2 target: fewer than 5 on any day [MEM])
+	InFlood   bool // the unit is in a flood
+	InMaint   bool // the unit is in maintenance
+	Frozen    bool // learning frozen by the engine
 }
 
 // Engine holds the alarm state of every unit. It is safe for concurrent
@@ -380,22 +385,26 @@ func (e *Engine) Observe(o *Observation) error {
 	defer e.mu.Unlock()
 	u := e.unit(o.Unit)
 	t := o.Time
-	if u.seen && t.Before(u.last) {
+	if u.seen && !t.After(u.last) {
 		u.c.OutOfOrder++
-		return fmt.Errorf("%w: unit %q: %s before %s", ErrOutOfOrder, o.Unit,
+		return fmt.Errorf("%w: unit %q: frame at %s is not after the last at %s", ErrOutOfOrder, o.Unit,
 			t.UTC().Format(time.RFC3339Nano), u.last.UTC().Format(time.RFC3339Nano))
 	}
 	u.last, u.seen = t, true
 	u.c.Frames++
 	u.rate.advance(t)
-	if o.ModelState != "" {
+	var bad error
+	switch o.ModelState {
+	case "":
+	case ModelWarmup, ModelAdapting, ModelFrozen, ModelBaseline:
 		u.model = o.ModelState
+	default:
+		bad = fmt.Errorf("%w: unit %q: unknown model state %q", ErrInput, o.Unit, o.ModelState)
 	}
 	if u.maint {
 		u.c.MaintenanceFrames++
-		return nil
+		return bad
 	}
-	var bad error
 	// Timers first: shelf expiry, flood end, chattering quiet, stale.
 	e.expireShelf(u, &u.modelG, t)
 	for _, q := range u.quality {
@@ -451,9 +460,17 @@ func (e *Engine) Observe(o *Observation) error {
 			bad = fmt.Errorf("%w: unit %q: quality[%d]: unknown kind %q", ErrInput, o.Unit, i, q.Kind)
 			continue
 		}
+		if q.Channel == "" {
+			bad = fmt.Errorf("%w: unit %q: quality[%d]: empty channel", ErrInput, o.Unit, i)
+			continue
+		}
 		e.stepQuality(u, q.Kind, q.Channel, true, t, o)
 	}
-	for _, ch := range o.Missing {
+	for i, ch := range o.Missing {
+		if ch == "" {
+			bad = fmt.Errorf("%w: unit %q: missing[%d]: empty channel", ErrInput, o.Unit, i)
+			continue
+		}
 		e.stepQuality(u, QualityMissing, ch, true, t, o)
 	}
 	for k, q := range u.quality {
@@ -559,8 +576,11 @@ func (e *Engine) activate(u *unit, g *group, t time.Time, o *Observation, qa *Al
 	}
 	// Flood: more than FloodCount new alerts within FloodWindow.
 	u.openings.push(t, inc)
-	if u.flood != nil {
-		e.addMember(u.flood, inc, t)
+	if f := u.flood; f != nil {
+		e.addMember(f, inc, t)
+		if t.Sub(f.lastPub) >= e.cfg.FloodUpdate {
+			e.publish(f, t)
+		}
 	} else if n := u.openings.countAfter(t.Add(-e.cfg.FloodWindow)); n > e.cfg.FloodCount {
 		e.startFlood(u, t, n)
 	}
@@ -750,9 +770,6 @@ func (e *Engine) addMember(f *incident, inc *incident, t time.Time) {
 		f.maxCount = c
 	}
 	f.dirty = true
-	if t.Sub(f.lastPub) >= e.cfg.FloodUpdate {
-		e.publish(f, t)
-	}
 }
 
 // checkFloodEnd ends u's flood when the trailing count has dropped below
@@ -976,7 +993,12 @@ func (e *Engine) Counters(dst []UnitCounters) []UnitCounters {
 	for _, u := range e.units {
 		c := u.c
 		c.LastHour, c.LastDay = u.rate.sum(60), u.rate.sum(1440)
-		c.Open = len(e.openIncidents(u))
+		for _, inc := range e.openIncidents(u) {
+			c.Open++
+			if inc.stale {
+				c.StaleOpen++
+			}
+		}
 		c.InFlood, c.InMaint, c.Frozen = u.flood != nil, u.maint, u.frozen
 		dst = append(dst, c)
 	}

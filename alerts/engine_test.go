@@ -355,7 +355,7 @@ func TestFlood(t *testing.T) {
 		h.quality(550, Quality{Channel: "u.c10.x", Kind: QualityStuck})
 		equalStrings(t, "flood", h.eventsOf(EventFloodStart), []string{"flood_start@550"})
 		r := h.lastOf(KindFlood)
-		if r.Kind != KindFlood || r.MemberCount != 11 || len(r.Members) != 11 || r.Peak.Value != 11 || r.Peak.Limit != 10 {
+		if r.Kind != KindFlood || r.Revision != 1 || r.MemberCount != 11 || len(r.Members) != 11 || r.Peak.Value != 11 || r.Peak.Limit != 10 {
 			t.Fatalf("flood record: %+v", r)
 		}
 		if r.Members[0].ID != "u/stuck:u.c0.x/20260302T080000Z" || r.Members[10].ID != "u/stuck:u.c10.x/20260302T080910Z" {
@@ -493,6 +493,9 @@ func TestStale(t *testing.T) {
 		t.Errorf("not stale after 24 h 0 min 1 s: %+v", r)
 	}
 	equalStrings(t, "stale", h.eventsOf(EventStale), []string{"stale@86401"})
+	if c := h.e.Counters(nil)[0]; c.Stale != 1 || c.StaleOpen != 1 {
+		t.Errorf("stale counters %+v", c)
+	}
 }
 
 // TestQualityMissing: a channel missing for the hold time (default 5 min)
@@ -559,6 +562,9 @@ func TestObserveErrors(t *testing.T) {
 	if !errors.Is(err, ErrOutOfOrder) || !strings.Contains(err.Error(), `"u"`) {
 		t.Errorf("out of order: %v", err)
 	}
+	if err := h.e.Observe(&Observation{Unit: "u", Time: sec(10)}); !errors.Is(err, ErrOutOfOrder) {
+		t.Errorf("repeated frame time: %v", err)
+	}
 	err = h.e.Observe(&Observation{Unit: "u", Time: sec(11), Stats: []Stat{{"q", 1, 1}, {StatT2, 1, 10}}})
 	if !errors.Is(err, ErrInput) || !strings.Contains(err.Error(), `stats[0]: unknown statistic "q"`) {
 		t.Errorf("unknown stat: %v", err)
@@ -571,7 +577,13 @@ func TestObserveErrors(t *testing.T) {
 		t.Errorf("empty unit: %v", err)
 	}
 	h.e.Observe(&Observation{Unit: "u", Time: sec(14), Stats: []Stat{{StatT2, 1, 0}}})
-	if c := h.e.Counters(nil)[0]; c.OutOfOrder != 1 || c.InvalidStats != 1 {
+	if err := h.e.Observe(&Observation{Unit: "u", Time: sec(15), ModelState: "learning"}); !errors.Is(err, ErrInput) || !strings.Contains(err.Error(), `model state "learning"`) {
+		t.Errorf("bad model state: %v", err)
+	}
+	if err := h.e.Observe(&Observation{Unit: "u", Time: sec(16), Missing: []string{""}}); !errors.Is(err, ErrInput) || !strings.Contains(err.Error(), "missing[0]") {
+		t.Errorf("empty missing channel: %v", err)
+	}
+	if c := h.e.Counters(nil)[0]; c.OutOfOrder != 2 || c.InvalidStats != 1 {
 		t.Errorf("counters %+v", c)
 	}
 }
