@@ -200,20 +200,20 @@ type Contribution struct {
 // Score is the result of one frame. Its slices are reused by the next Step
 // with the same dst.
 type Score struct {
-	Ready            bool // false during warm-up: no statistics yet
-	State            State
-	T2, T2Limit      float64
-	SPE, SPELimit    float64
-	Phi, PhiLimit    float64
-	Contrib          []Contribution // ranked by RBC, largest first (at most TopContrib)
-	Missing          []int          // channels missing (or non-finite) in this frame
-	Excluded         []int          // stuck or flat-lined channels, out of the model
-	Frozen           bool           // learning paused
-	NEff             float64        // Kish effective sample size of the model
-	Modes            int            // number of modes r
-	Calibrated       bool           // T², SPE, φ limits set empirically (Calibrate)
-	Frame            uint64         // frames seen, this one included
-	RefreshesPending int            // frames until the next refresh
+	Ready         bool // false during warm-up: no statistics yet
+	State         State
+	T2, T2Limit   float64
+	SPE, SPELimit float64
+	Phi, PhiLimit float64
+	Contrib       []Contribution // ranked by RBC, largest first (at most TopContrib)
+	Missing       []int          // channels missing (or non-finite) in this frame
+	Excluded      []int          // stuck or flat-lined channels, out of the model
+	Frozen        bool           // learning paused
+	NEff          float64        // Kish effective sample size of the model
+	Modes         int            // number of modes r
+	Calibrated    bool           // T², SPE, φ limits set empirically (Calibrate)
+	Frame         uint64         // frames seen, this one included
+	NextRefresh   int            // learned frames until the next refresh (or the end of warm-up)
 }
 
 // Tracker is the streaming model of one plant unit.
@@ -475,14 +475,14 @@ func (t *Tracker) score(dst *Score, x []float64) error {
 		}
 	}
 	if t.cfg.RefreshEvery > 0 {
-		dst.RefreshesPending = t.cfg.RefreshEvery - t.since
+		dst.NextRefresh = t.cfg.RefreshEvery - t.since
 	}
 	if !t.ready {
 		dst.Ready = false
 		dst.T2, dst.T2Limit, dst.SPE, dst.SPELimit, dst.Phi, dst.PhiLimit = 0, 0, 0, 0, 0, 0
 		dst.NEff, dst.Modes = 0, 0
 		if t.cfg.RefreshEvery > 0 {
-			dst.RefreshesPending = t.cfg.WarmUp - int(t.learned)
+			dst.NextRefresh = t.cfg.WarmUp - int(t.learned)
 		}
 		return nil
 	}
