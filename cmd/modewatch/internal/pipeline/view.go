@@ -50,20 +50,22 @@ type ScoreView struct {
 
 // UnitView is a consistent snapshot of one unit for the API and reports.
 type UnitView struct {
-	Name          string      `json:"name"`
-	Channels      []string    `json:"channels"`
-	NotModelled   []string    `json:"not_modelled,omitempty"`
-	ModelState    string      `json:"model_state"`
-	Error         string      `json:"error,omitempty"`
-	Frames        uint64      `json:"frames"`
-	EmptyFrames   uint64      `json:"empty_frames"`
-	StepErrors    uint64      `json:"step_errors"`
-	EffectiveN    float64     `json:"effective_samples"`
-	Modes         []ModeView  `json:"modes"`
-	Limits        *LimitsView `json:"limits"`
-	Latest        *ScoreView  `json:"latest"`
-	ActiveAlerts  int         `json:"active_alerts"`
-	InMaintenance bool        `json:"maintenance"`
+	Name        string   `json:"name"`
+	Channels    []string `json:"channels"`
+	NotModelled []string `json:"not_modelled,omitempty"`
+	ModelState  string   `json:"model_state"`
+	Error       string   `json:"error,omitempty"`
+	Frames      uint64   `json:"frames"`
+	EmptyFrames uint64   `json:"empty_frames"`
+	StepErrors  uint64   `json:"step_errors"`
+	EffectiveN  float64  `json:"effective_samples"`
+	// RefreshIterations is the solver iterations of the last mode refresh.
+	RefreshIterations int         `json:"refresh_iterations"`
+	Modes             []ModeView  `json:"modes"`
+	Limits            *LimitsView `json:"limits"`
+	Latest            *ScoreView  `json:"latest"`
+	ActiveAlerts      int         `json:"active_alerts"`
+	InMaintenance     bool        `json:"maintenance"`
 }
 
 func finite(v float64) *float64 {
@@ -112,6 +114,7 @@ func (u *Unit) View(t time.Time) UnitView {
 	}
 	s := &u.score
 	v.EffectiveN = s.NEff
+	v.RefreshIterations = u.tr.Modes().Iterations()
 	if s.Ready {
 		v.Limits = &LimitsView{Alpha: u.tr.Config().Alpha, T2: finite(s.T2Limit), SPE: finite(s.SPELimit), Phi: finite(s.PhiLimit)}
 	}

@@ -1,0 +1,136 @@
+package service
+
+import (
+	"encoding/json"
+	"io"
+	"net/http"
+	"strings"
+
+	"github.com/prometheus/client_golang/prometheus/promhttp"
+
+	"modewatch/alerts"
+	"modewatch/stream/natsource"
+)
+
+// Caution is served by the API index and printed by the demo.
+const Caution = "modewatch is advisory: it never acts on the plant. Verify every alert in the field; safety decisions follow site procedures, local codes and licensed practice."
+
+// routes returns the HTTP API:
+//
+//	GET  /healthz                     the process is alive
+//	GET  /readyz                      connected to NATS and consuming (503 otherwise)
+//	GET  /metrics                     Prometheus text exposition
+//	GET  /api                         index and caution
+//	GET  /api/units                   every unit: state, latest scores and limits
+//	GET  /api/units/{unit}            one unit with its modes (channels, loadings)
+//	GET  /api/alerts                  open alert records
+//	POST /api/alerts/{op}             op = ack | shelve | unshelve; body {"alert_id", "by", ...}
+//	POST /api/units/{unit}/maintenance  body {"on": true, "by", "reason"}
+//	POST /api/commands                any operator command (alerts.Command JSON)
+func (s *Service) routes() http.Handler {
+	mux := http.NewServeMux()
+	mux.HandleFunc("GET /healthz", func(w http.ResponseWriter, r *http.Request) {
+		writeJSON(w, http.StatusOK, map[string]string{"status": "ok"})
+	})
+	mux.HandleFunc("GET /readyz", s.readyz)
+	mux.Handle("GET /metrics", promhttp.HandlerFor(s.met.reg, promhttp.HandlerOpts{ErrorLog: nil}))
+	mux.HandleFunc("GET /api", func(w http.ResponseWriter, r *http.Request) {
+		writeJSON(w, http.StatusOK, map[string]any{
+			"caution": Caution,
+			"links": []string{"/healthz", "/readyz", "/metrics", "/api/units", "/api/units/{unit}", "/api/alerts",
+				"POST /api/alerts/{ack|shelve|unshelve}", "POST /api/units/{unit}/maintenance", "POST /api/commands"},
+			"subjects": s.info,
+		})
+	})
+	mux.HandleFunc("GET /api/units", func(w http.ResponseWriter, r *http.Request) {
+		views := s.pl.Views()
+		for i := range views {
+			views[i].Modes = nil // listed per unit
+		}
+		writeJSON(w, http.StatusOK, views)
+	})
+	mux.HandleFunc("GET /api/units/{unit}", func(w http.ResponseWriter, r *http.Request) {
+		name := r.PathValue("unit")
+		for _, v := range s.pl.Views() {
+			if v.Name == name {
+				writeJSON(w, http.StatusOK, v)
+				return
+			}
+		}
+		writeJSON(w, http.StatusNotFound, map[string]string{"error": "no unit " + name})
+	})
+	mux.HandleFunc("GET /api/alerts", func(w http.ResponseWriter, r *http.Request) {
+		recs := s.alertsOpen()
+		if recs == nil {
+			recs = []alerts.Record{}
+		}
+		writeJSON(w, http.StatusOK, recs)
+	})
+	mux.HandleFunc("POST /api/alerts/{op}", func(w http.ResponseWriter, r *http.Request) {
+		op := r.PathValue("op")
+		if op != alerts.OpAck && op != alerts.OpShelve && op != alerts.OpUnshelve {
+			writeJSON(w, http.StatusNotFound, alerts.Reply{Error: "unknown operation " + op + " (ack, shelve, unshelve)"})
+			return
+		}
+		s.command(w, r, func(c *alerts.Command) { c.Op = op })
+	})
+	mux.HandleFunc("POST /api/units/{unit}/maintenance", func(w http.ResponseWriter, r *http.Request) {
+		unit := r.PathValue("unit")
+		s.command(w, r, func(c *alerts.Command) { c.Op, c.Unit = alerts.OpMaintenance, unit })
+	})
+	mux.HandleFunc("POST /api/commands", func(w http.ResponseWriter, r *http.Request) {
+		s.command(w, r, func(*alerts.Command) {})
+	})
+	return mux
+}
+
+func (s *Service) readyz(w http.ResponseWriter, r *http.Request) {
+	st := s.conn.State()
+	switch {
+	case !s.ready.Load():
+		writeJSON(w, http.StatusServiceUnavailable, map[string]string{"status": "not ready", "reason": "starting or stopping"})
+	case st != natsource.StateConnected:
+		writeJSON(w, http.StatusServiceUnavailable, map[string]string{"status": "not ready", "reason": "NATS " + st.String()})
+	default:
+		writeJSON(w, http.StatusOK, map[string]string{"status": "ready"})
+	}
+}
+
+// command decodes an operator command from the body (at most 64 KiB),
+// lets fix set the fields the path gives, and applies it.
+func (s *Service) command(w http.ResponseWriter, r *http.Request, fix func(*alerts.Command)) {
+	body, err := io.ReadAll(io.LimitReader(r.Body, 64<<10+1))
+	if err != nil || len(body) > 64<<10 {
+		writeJSON(w, http.StatusBadRequest, alerts.Reply{Error: "body unreadable or over 64 KiB"})
+		return
+	}
+	if strings.TrimSpace(string(body)) == "" {
+		body = []byte("{}")
+	}
+	var c alerts.Command
+	dec := json.NewDecoder(strings.NewReader(string(body)))
+	dec.DisallowUnknownFields()
+	if err := dec.Decode(&c); err != nil {
+		writeJSON(w, http.StatusBadRequest, alerts.Reply{Error: "bad JSON: " + err.Error()})
+		return
+	}
+	fix(&c)
+	if err := c.Validate(); err != nil {
+		writeJSON(w, http.StatusBadRequest, alerts.Reply{Error: err.Error(), AlertID: c.AlertID, Unit: c.Unit})
+		return
+	}
+	rep := s.pl.Alerts().Handle(r.Context(), c)
+	code := http.StatusOK
+	if !rep.OK {
+		code = http.StatusConflict
+	}
+	writeJSON(w, code, rep)
+}
+
+func writeJSON(w http.ResponseWriter, code int, v any) {
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(code)
+	enc := json.NewEncoder(w)
+	enc.SetIndent("", "  ")
+	_ = enc.Encode(v)
+}

@@ -1,0 +1,534 @@
+// Package service runs modewatch as a long-running service: readings in
+// from NATS (an embedded server when none is configured), one engine per
+// plant unit, alerts and scores out on NATS subjects and alert sinks, an
+// HTTP API for health, metrics, units and alerts, periodic atomic
+// checkpoints restored on start, and a graceful shutdown under a deadline.
+package service
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"io"
+	"log/slog"
+	"net"
+	"net/http"
+	"os"
+	"path/filepath"
+	"sync"
+	"sync/atomic"
+	"time"
+
+	"github.com/nats-io/nats.go"
+
+	"modewatch/alerts"
+	"modewatch/alerts/control"
+	"modewatch/alerts/sink"
+	"modewatch/cmd/modewatch/internal/pipeline"
+	"modewatch/configs"
+	"modewatch/stream"
+	"modewatch/stream/natsource"
+)
+
+// Options configure a Service.
+type Options struct {
+	Config *configs.Config
+	Log    *slog.Logger
+	// Stdout receives the stdout alert sink (sinks.stdout); default os.Stdout.
+	Stdout io.Writer
+	// OnScore, if set, is also called for every unit and frame (from the
+	// frame goroutine; it must be quick). The demo uses it for its summary.
+	OnScore func(u *pipeline.Unit, t time.Time)
+}
+
+// Info says where a started service can be reached.
+type Info struct {
+	HTTP     string // base URL of the HTTP API, "" when disabled
+	NATS     string // URL of the NATS server the service uses
+	Embedded bool   // the NATS server runs inside this process
+	Readings []string
+	Alerts   string // subject pattern of the alerts
+	Scores   string // subject pattern of the scores
+	Control  string // subject of operator commands
+}
+
+// Service is one running modewatch instance. Create it with Start.
+type Service struct {
+	cfg  *configs.Config
+	opt  Options
+	log  *slog.Logger
+	info Info
+
+	emb   *natsource.Embedded
+	conn  *natsource.Conn
+	pl    *pipeline.Pipeline
+	in    *stream.Intake
+	core  *natsource.CoreSub
+	js    *natsource.JSConsumer
+	sinks *sink.Set
+	ctl   *control.Responder
+	srv   *http.Server
+	ln    net.Listener
+	met   *metrics
+
+	scoreSubj map[string]string
+	scoreEnc  pipeline.ScoreEncoder
+	scoreErrs atomic.Uint64
+
+	ackMu      sync.Mutex
+	heldAcks   []func() error // JetStream acks waiting for the next checkpoint
+	ackCap     int
+	ckptNow    chan struct{}
+	ckptMu     sync.Mutex
+	lastCkpt   atomic.Int64 // unix ns of the last successful checkpoint
+	ckptErrors atomic.Uint64
+	ready      atomic.Bool
+
+	stopOnce sync.Once
+	wg       sync.WaitGroup
+	done     chan struct{}
+}
+
+// Start starts every part of the service and returns once it is serving.
+// Stop it with Shutdown (or cancel ctx and call Wait).
+func Start(ctx context.Context, opt Options) (_ *Service, err error) {
+	cfg := opt.Config
+	if cfg == nil {
+		cfg = &configs.Config{}
+		cfg.ApplyDefaults()
+	}
+	log := opt.Log
+	if log == nil {
+		log = slog.New(slog.DiscardHandler)
+	}
+	if opt.Stdout == nil {
+		opt.Stdout = os.Stdout
+	}
+	s := &Service{cfg: cfg, opt: opt, log: log, scoreSubj: map[string]string{}, ckptNow: make(chan struct{}, 1), done: make(chan struct{})}
+	defer func() {
+		if err != nil {
+			s.abort()
+		}
+	}()
+
+	var baseline *pipeline.ModelFile
+	if cfg.Model.File != "" {
+		if baseline, err = pipeline.ReadModel(cfg.Model.File); err != nil {
+			return nil, err
+		}
+	}
+	period := cfg.Frames.Period
+	if period == 0 && baseline != nil {
+		period = time.Duration(baseline.Period)
+	}
+	if period == 0 {
+		return nil, errors.New("service: frames.period is required for the live service (or model.file, whose period is used)")
+	}
+	if err := os.MkdirAll(cfg.DataDir, 0o755); err != nil {
+		return nil, fmt.Errorf("service: data directory: %w", err)
+	}
+
+	// Message server.
+	urls := cfg.Server.URLs
+	if len(urls) == 0 {
+		port := cfg.Server.EmbeddedPort
+		s.emb, err = natsource.StartEmbedded(ctx, natsource.EmbeddedConfig{
+			Port: port, StoreDir: filepath.Join(cfg.DataDir, "jetstream"),
+		}, slog.New(minLevel{log.Handler(), slog.LevelWarn}).With("component", "nats-server"))
+		if err != nil {
+			return nil, err
+		}
+		urls = []string{s.emb.ClientURL()}
+		s.info.Embedded = true
+		log.Info("embedded NATS server started", "url", s.emb.ClientURL(), "store", filepath.Join(cfg.DataDir, "jetstream"))
+	}
+	s.met = newMetrics(s)
+	s.conn, err = natsource.Connect(ctx, natsource.Options{
+		URLs: urls, Name: cfg.Server.Name,
+		User: cfg.Server.User, Password: cfg.Server.Password, Token: cfg.Server.Token,
+		NKeySeedFile: cfg.Server.NKeySeedFile, CredentialsFile: cfg.Server.CredentialsFile,
+		TLS:     natsource.TLSOptions{CAFile: cfg.Server.TLS.CA, CertFile: cfg.Server.TLS.Cert, KeyFile: cfg.Server.TLS.Key},
+		OnEvent: s.met.natsEvent,
+	}, log.With("component", "nats"))
+	if err != nil {
+		return nil, err
+	}
+	s.info.NATS = urls[0]
+	nc := s.conn.NATS()
+	prefix := cfg.Server.Prefix
+	s.info.Alerts = prefix + ".alerts.<unit>"
+	s.info.Scores = prefix + ".scores.<unit>"
+	s.info.Control = prefix + ".control"
+
+	// Alert sinks: the alerts subject always, then the configured ones.
+	if s.sinks, err = s.openSinks(nc); err != nil {
+		return nil, err
+	}
+
+	// Channels, pipeline, intake.
+	chans, err := stream.NewChannels(pipeline.ChannelSpecs(cfg), cfg.Frames.MaxChannels)
+	if err != nil {
+		return nil, fmt.Errorf("service: channel map: %w", err)
+	}
+	s.pl, err = pipeline.New(pipeline.Options{
+		Config: cfg, Channels: chans, Period: period, Publisher: s.sinks, OnScore: s.onScore, Baseline: baseline,
+		Log: log,
+	})
+	if err != nil {
+		return nil, err
+	}
+	s.restore()
+	prec, err := pipeline.Precision(cfg.Frames.Precision)
+	if err != nil {
+		return nil, err
+	}
+	s.in, err = stream.NewIntake(chans, stream.Options{
+		Align: pipeline.AlignConfig(cfg.Frames, period), Precision: prec, Log: log.With("component", "stream"),
+	}, s.pl.Frame)
+	if err != nil {
+		return nil, err
+	}
+	if len(cfg.Sources.Files) > 0 {
+		if err := s.in.ReadFiles(ctx, cfg.Sources.Files...); err != nil {
+			return nil, err
+		}
+		log.Info("files read before going live", "files", cfg.Sources.Files)
+	}
+
+	// Operator commands on NATS.
+	if s.ctl, err = control.Listen(nc, s.info.Control, s.pl.Alerts(), log.With("component", "control")); err != nil {
+		return nil, err
+	}
+
+	// Readings.
+	if js := cfg.Sources.JetStream; js.Stream != "" {
+		durable := js.Durable
+		if durable == "" {
+			durable = "modewatch"
+		}
+		s.ackCap = natsource.DefaultMaxAckPending
+		jctx, cancel := context.WithTimeout(ctx, 30*time.Second)
+		defer cancel()
+		s.js, err = s.conn.ConsumeJetStream(jctx, natsource.JetStreamConfig{
+			Stream: js.Stream, Durable: durable, FilterSubjects: cfg.Sources.Subjects,
+			CreateStream: s.info.Embedded, StreamSubjects: js.Subjects,
+			MaxAckPending: s.ackCap,
+			// Acknowledgements wait for the checkpoint that covers the
+			// message (see heldAck), so the server must wait longer.
+			AckWait: 2*cfg.CheckpointInterval + time.Minute,
+		}, s.onJetStream)
+		if err != nil {
+			return nil, err
+		}
+		s.info.Readings = []string{"jetstream " + js.Stream + "/" + durable}
+	} else {
+		sctx, cancel := context.WithTimeout(ctx, 10*time.Second)
+		s.core, err = s.conn.SubscribeCore(sctx, natsource.CoreConfig{Subjects: cfg.Sources.Subjects}, s.onCore)
+		cancel()
+		if err != nil {
+			return nil, err
+		}
+		s.info.Readings = cfg.Sources.Subjects
+	}
+
+	// HTTP API.
+	if cfg.HTTP.Listen != "off" {
+		if s.ln, err = net.Listen("tcp", cfg.HTTP.Listen); err != nil {
+			return nil, fmt.Errorf("service: http: %w", err)
+		}
+		s.srv = &http.Server{Handler: s.routes(), ReadHeaderTimeout: 10 * time.Second}
+		s.info.HTTP = "http://" + s.ln.Addr().String()
+		s.wg.Add(1)
+		go func() {
+			defer s.wg.Done()
+			if err := s.srv.Serve(s.ln); err != nil && !errors.Is(err, http.ErrServerClosed) {
+				log.Error("http server stopped", "err", err)
+			}
+		}()
+	}
+
+	s.wg.Add(1)
+	go s.checkpointLoop()
+	s.ready.Store(true)
+	log.Info("modewatch is running (advisory: it never acts on the plant)", "readings", s.info.Readings,
+		"alerts", s.info.Alerts, "scores", s.info.Scores, "http", s.info.HTTP, "period", period)
+	return s, nil
+}
+
+// Info returns where the service can be reached.
+func (s *Service) Info() Info { return s.info }
+
+// Pipeline returns the engine (for tests and the demo).
+func (s *Service) Pipeline() *pipeline.Pipeline { return s.pl }
+
+// Intake returns the readings intake.
+func (s *Service) Intake() *stream.Intake { return s.in }
+
+// Conn returns the NATS connection.
+func (s *Service) Conn() *natsource.Conn { return s.conn }
+
+func (s *Service) openSinks(nc *nats.Conn) (*sink.Set, error) {
+	cfg := s.cfg
+	spool := cfg.Sinks.SpoolDir
+	if err := os.MkdirAll(spool, 0o755); err != nil {
+		return nil, fmt.Errorf("service: spool: %w", err)
+	}
+	var sinks []*sink.Sink
+	add := func(name string, d sink.Deliverer) error {
+		k, err := sink.New(d, sink.Options{Name: name, QueueLen: cfg.Sinks.Queue, SpoolDir: spool, Logger: s.log.With("sink", name)})
+		if err != nil {
+			return err
+		}
+		sinks = append(sinks, k)
+		return nil
+	}
+	natsSink, err := sink.NewNATS(nc, sink.NATSOptions{Subject: cfg.Server.Prefix + ".alerts.{unit}"})
+	if err != nil {
+		return nil, err
+	}
+	if err := add("nats-alerts", natsSink); err != nil {
+		return nil, err
+	}
+	if cfg.Sinks.Subject != "" {
+		d, err := sink.NewNATS(nc, sink.NATSOptions{Subject: cfg.Sinks.Subject})
+		if err != nil {
+			return nil, err
+		}
+		if err := add("nats-extra", d); err != nil {
+			return nil, err
+		}
+	}
+	if cfg.Sinks.Stdout {
+		if err := add("stdout", sink.NewLines(s.opt.Stdout)); err != nil {
+			return nil, err
+		}
+	}
+	if cfg.Sinks.File != "" {
+		d, err := sink.OpenLines(cfg.Sinks.File, false)
+		if err != nil {
+			return nil, err
+		}
+		if err := add("file", d); err != nil {
+			return nil, err
+		}
+	}
+	if cfg.Sinks.Webhook != "" {
+		d, err := sink.NewWebhook(cfg.Sinks.Webhook, nil, nil)
+		if err != nil {
+			return nil, err
+		}
+		if err := add("webhook", d); err != nil {
+			return nil, err
+		}
+	}
+	return sink.NewSet(s.log.With("component", "sinks"), sinks...), nil
+}
+
+// restore loads the unit checkpoints of the data directory.
+func (s *Service) restore() {
+	dir := filepath.Join(s.cfg.DataDir, "checkpoints")
+	cks, errs := pipeline.ReadCheckpoints(dir)
+	for _, err := range errs {
+		s.log.Warn("checkpoint not usable; the unit warms up again", "err", err)
+	}
+	restored, rerrs := s.pl.Restore(cks)
+	for _, err := range rerrs {
+		s.log.Warn("checkpoint not restored", "err", err)
+	}
+	for _, ck := range cks {
+		for _, name := range restored {
+			if ck.Units[0].Name == name {
+				s.log.Info("unit restored from checkpoint", "unit", name, "frames", ck.Frames, "last_frame", ck.To, "saved", ck.Created)
+			}
+		}
+	}
+	if len(cks) == 0 && len(errs) == 0 {
+		s.log.Info("no checkpoints: every unit starts with a warm-up", "dir", dir)
+	}
+}
+
+// onScore publishes a unit's score line on <prefix>.scores.<unit>.
+func (s *Service) onScore(u *pipeline.Unit, t time.Time) {
+	subj, ok := s.scoreSubj[u.Name]
+	if !ok {
+		subj = s.cfg.Server.Prefix + ".scores." + sink.SubjectToken(u.Name)
+		s.scoreSubj[u.Name] = subj
+	}
+	s.scoreEnc.Reset()
+	b := s.scoreEnc.Append(u, t)
+	if err := s.scoreEnc.Err(); err != nil {
+		s.scoreErrs.Add(1)
+	} else if err := s.conn.NATS().Publish(subj, b); err != nil {
+		s.scoreErrs.Add(1)
+	}
+	if s.opt.OnScore != nil {
+		s.opt.OnScore(u, t)
+	}
+}
+
+func (s *Service) onCore(m natsource.Msg) error {
+	_, err := s.in.Feed(m.Subject, m.Data)
+	return err
+}
+
+// onJetStream feeds a JetStream message; its acknowledgement waits until
+// the frames it contributed to are scored (FeedAck) and then until the
+// next checkpoint holds them, so that after a crash the server delivers
+// again exactly what the restored models have not seen.
+func (s *Service) onJetStream(m natsource.Msg) error {
+	err := s.in.FeedAck(m.Subject, m.Data, func() error { return s.holdAck(m.Ack) })
+	return err
+}
+
+func (s *Service) holdAck(ack func() error) error {
+	s.ackMu.Lock()
+	s.heldAcks = append(s.heldAcks, ack)
+	n := len(s.heldAcks)
+	s.ackMu.Unlock()
+	if n >= s.ackCap/2 {
+		select { // ask for an early checkpoint before the server stops delivering
+		case s.ckptNow <- struct{}{}:
+		default:
+		}
+	}
+	return nil
+}
+
+// Checkpoint writes every unit's checkpoint and then acknowledges the
+// JetStream messages the checkpoint covers.
+func (s *Service) Checkpoint() error {
+	s.ckptMu.Lock()
+	defer s.ckptMu.Unlock()
+	s.ackMu.Lock()
+	acks := s.heldAcks
+	s.heldAcks = nil
+	s.ackMu.Unlock()
+	start := time.Now()
+	n, err := s.pl.WriteCheckpoints(filepath.Join(s.cfg.DataDir, "checkpoints"))
+	if err != nil {
+		s.ckptErrors.Add(1)
+		s.ackMu.Lock()
+		s.heldAcks = append(acks, s.heldAcks...)
+		s.ackMu.Unlock()
+		s.log.Error("checkpoint failed", "err", err)
+		return err
+	}
+	for _, ack := range acks {
+		if aerr := ack(); aerr != nil {
+			s.log.Warn("acknowledgement failed (the message will come again and be skipped)", "err", aerr)
+		}
+	}
+	s.lastCkpt.Store(time.Now().UnixNano())
+	s.log.Debug("checkpoint written", "units", n, "acked", len(acks), "took", time.Since(start))
+	return nil
+}
+
+func (s *Service) checkpointLoop() {
+	defer s.wg.Done()
+	t := time.NewTicker(s.cfg.CheckpointInterval)
+	defer t.Stop()
+	for {
+		select {
+		case <-s.done:
+			return
+		case <-t.C:
+		case <-s.ckptNow:
+		}
+		_ = s.Checkpoint()
+	}
+}
+
+// Wait blocks until ctx is done, then shuts the service down within the
+// configured shutdown timeout.
+func (s *Service) Wait(ctx context.Context) error {
+	<-ctx.Done()
+	sctx, cancel := context.WithTimeout(context.Background(), s.cfg.ShutdownTimeout)
+	defer cancel()
+	return s.Shutdown(sctx)
+}
+
+// Shutdown stops intake, drains NATS, scores what is queued, checkpoints,
+// flushes the sinks and stops the HTTP API and the embedded server, all
+// within ctx. It is idempotent.
+func (s *Service) Shutdown(ctx context.Context) error {
+	var errs []error
+	s.stopOnce.Do(func() {
+		s.log.Info("shutting down")
+		s.ready.Store(false)
+		close(s.done)
+		if s.core != nil {
+			errs = append(errs, s.core.Stop(ctx))
+			// Core NATS cannot redeliver: score the frames still pending.
+			errs = append(errs, s.in.Flush())
+		}
+		if s.js != nil {
+			// Unacknowledged messages come again after a restart.
+			errs = append(errs, s.js.Stop(ctx))
+		}
+		if s.ctl != nil {
+			errs = append(errs, s.ctl.Close(ctx))
+		}
+		errs = append(errs, s.Checkpoint())
+		if s.sinks != nil {
+			errs = append(errs, s.sinks.Close(ctx))
+		}
+		if s.srv != nil {
+			errs = append(errs, s.srv.Shutdown(ctx))
+		}
+		if s.conn != nil {
+			if err := s.conn.Drain(ctx); err != nil && !errors.Is(err, natsource.ErrClosed) {
+				errs = append(errs, err)
+			}
+		}
+		if s.emb != nil {
+			s.emb.Shutdown()
+		}
+		s.wg.Wait()
+		s.log.Info("stopped")
+	})
+	return errors.Join(errs...)
+}
+
+// abort releases what a failed Start had opened.
+func (s *Service) abort() {
+	if s.core != nil {
+		_ = s.core.Stop(context.Background())
+	}
+	if s.js != nil {
+		_ = s.js.Stop(context.Background())
+	}
+	if s.ctl != nil {
+		_ = s.ctl.Close(context.Background())
+	}
+	if s.sinks != nil {
+		_ = s.sinks.Close(context.Background())
+	}
+	if s.ln != nil {
+		s.ln.Close()
+	}
+	if s.conn != nil {
+		s.conn.Close()
+	}
+	if s.emb != nil {
+		s.emb.Shutdown()
+	}
+}
+
+// alertsOpen returns the open alert records.
+func (s *Service) alertsOpen() []alerts.Record { return s.pl.Alerts().Open(nil) }
+
+// minLevel passes on records at or above min only (the embedded server
+// is chatty at info level).
+type minLevel struct {
+	slog.Handler
+	min slog.Level
+}
+
+func (h minLevel) Enabled(ctx context.Context, l slog.Level) bool {
+	return l >= h.min && h.Handler.Enabled(ctx, l)
+}
+
+func (h minLevel) WithAttrs(a []slog.Attr) slog.Handler {
+	return minLevel{h.Handler.WithAttrs(a), h.min}
+}
+func (h minLevel) WithGroup(n string) slog.Handler { return minLevel{h.Handler.WithGroup(n), h.min} }

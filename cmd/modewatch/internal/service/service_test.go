@@ -1,0 +1,268 @@
+package service
+
+import (
+	"bytes"
+	"context"
+	"encoding/json"
+	"io"
+	"net/http"
+	"path/filepath"
+	"strings"
+	"sync"
+	"testing"
+	"time"
+
+	"github.com/nats-io/nats.go"
+	"github.com/prometheus/common/expfmt"
+	"github.com/prometheus/common/model"
+
+	"modewatch/alerts"
+	"modewatch/cmd/modewatch/internal/pipeline"
+	"modewatch/configs"
+	"modewatch/sim"
+)
+
+// fitDay1 fits a model on the fault-free first day of the demo scenario
+// (invented data) and returns the model file's path.
+func fitDay1(t *testing.T, dir string) string {
+	t.Helper()
+	s, err := sim.Demo()
+	if err != nil {
+		t.Fatal(err)
+	}
+	day1 := s.Clone()
+	day1.Duration = 24 * time.Hour
+	var b bytes.Buffer
+	if err := day1.WriteLineProtocol(&b); err != nil {
+		t.Fatal(err)
+	}
+	cfg := &configs.Config{Frames: configs.Frames{Period: s.Period}}
+	cfg.ApplyDefaults()
+	res, err := pipeline.Replay(context.Background(), pipeline.ReplayOptions{Config: cfg, Inputs: []string{"-"}, Stdin: &b, Fit: true})
+	if err != nil {
+		t.Fatal(err)
+	}
+	m, err := res.Pipeline.Baseline()
+	if err != nil {
+		t.Fatal(err)
+	}
+	p := filepath.Join(dir, "model.json")
+	if err := pipeline.WriteModel(p, m); err != nil {
+		t.Fatal(err)
+	}
+	return p
+}
+
+func getJSON(t *testing.T, url string, v any) int {
+	t.Helper()
+	resp, err := http.Get(url)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer resp.Body.Close()
+	if v != nil {
+		if err := json.NewDecoder(resp.Body).Decode(v); err != nil {
+			t.Fatalf("%s: %v", url, err)
+		}
+	}
+	return resp.StatusCode
+}
+
+// TestServiceEndToEnd: the simulator publishes the demo scenario (with its
+// labelled faults) to the service's embedded NATS server; the service
+// raises alerts on the alerts subject, at least one of which starts inside
+// a labelled episode and names one of its channels among its top three;
+// the HTTP API answers, /metrics parses with the Prometheus text parser,
+// an acknowledge command is applied, and a graceful shutdown checkpoints
+// every unit.
+func TestServiceEndToEnd(t *testing.T) {
+	if testing.Short() {
+		t.Skip("publishes three simulated days")
+	}
+	dir := t.TempDir()
+	modelFile := fitDay1(t, dir)
+	cfg, err := configs.Parse("test.yaml", []byte(`
+frames: {period: 20s}
+server: {embedded_port: -1}
+http: {listen: "127.0.0.1:0"}
+model: {file: `+modelFile+`}
+data_dir: `+filepath.Join(dir, "data")+`
+checkpoint_interval: 1m
+`))
+	if err != nil {
+		t.Fatal(err)
+	}
+	ctx, cancel := context.WithCancel(context.Background())
+	defer cancel()
+	svc, err := Start(ctx, Options{Config: cfg})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer svc.Shutdown(context.Background())
+	info := svc.Info()
+	if !info.Embedded || !strings.HasPrefix(info.HTTP, "http://127.0.0.1:") {
+		t.Fatalf("info %+v", info)
+	}
+
+	nc, err := nats.Connect(info.NATS)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer nc.Close()
+	var mu sync.Mutex
+	latest := map[string]alerts.Record{}
+	sub, err := nc.Subscribe("modewatch.alerts.>", func(m *nats.Msg) {
+		var r alerts.Record
+		if err := json.Unmarshal(m.Data, &r); err != nil {
+			t.Errorf("alert message is not a record: %v", err)
+			return
+		}
+		if !strings.HasSuffix(m.Subject, "."+r.Unit) {
+			t.Errorf("record of unit %s on subject %s", r.Unit, m.Subject)
+		}
+		mu.Lock()
+		latest[r.ID] = r
+		mu.Unlock()
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer sub.Unsubscribe()
+	scores, _ := nc.SubscribeSync("modewatch.scores.air")
+	nc.Flush()
+
+	sc, _ := sim.Demo()
+	// Three simulated days in about eight seconds.
+	if _, err := sc.Live(ctx, nc, "modewatch", 3*24*3600/8.0); err != nil {
+		t.Fatal(err)
+	}
+	// The last frames stay pending until later readings pass their end
+	// plus the allowed lateness (one period).
+	end := sc.End().Add(-4 * sc.Period)
+	deadline := time.Now().Add(30 * time.Second)
+	for {
+		_, _, last := svc.Pipeline().Frames()
+		if !last.Before(end) {
+			break
+		}
+		if time.Now().After(deadline) {
+			t.Fatalf("service saw frames up to %v, scenario ends %v", last, sc.End())
+		}
+		time.Sleep(50 * time.Millisecond)
+	}
+	if m, err := scores.NextMsg(5 * time.Second); err != nil || !bytes.HasPrefix(m.Data, []byte("modewatch_scores,unit=air ")) {
+		t.Errorf("score message %v: %v", m, err)
+	}
+	nc.Flush()
+	time.Sleep(200 * time.Millisecond)
+
+	mu.Lock()
+	recs := make([]alerts.Record, 0, len(latest))
+	for _, r := range latest {
+		recs = append(recs, r)
+	}
+	mu.Unlock()
+	isolated := ""
+	for _, ep := range sc.Truth().Episodes {
+		for _, r := range recs {
+			if r.Start.Before(ep.Start) || r.Start.After(ep.End) {
+				continue
+			}
+			for i, c := range r.Contributors {
+				for _, ec := range ep.Channels {
+					if i < 3 && c.Channel == ec {
+						isolated = ep.ID + " by " + r.ID
+					}
+				}
+			}
+		}
+	}
+	if isolated == "" {
+		t.Errorf("no alert on the alerts subject named a faulty channel in its top three (%d records)", len(recs))
+	} else {
+		t.Logf("episode %s", isolated)
+	}
+	for _, r := range recs {
+		if r.Caution != alerts.Caution {
+			t.Errorf("record %s without the advisory caution", r.ID)
+		}
+	}
+
+	// HTTP API.
+	var health map[string]string
+	if code := getJSON(t, info.HTTP+"/healthz", &health); code != 200 || health["status"] != "ok" {
+		t.Errorf("/healthz %d %v", code, health)
+	}
+	if code := getJSON(t, info.HTTP+"/readyz", nil); code != 200 {
+		t.Errorf("/readyz %d", code)
+	}
+	var units []pipeline.UnitView
+	if code := getJSON(t, info.HTTP+"/api/units", &units); code != 200 || len(units) != 4 {
+		t.Fatalf("/api/units %d: %d units", code, len(units))
+	}
+	var air pipeline.UnitView
+	if code := getJSON(t, info.HTTP+"/api/units/air", &air); code != 200 || len(air.Modes) == 0 || air.Latest == nil || air.Latest.T2 == nil {
+		t.Errorf("/api/units/air %d: %+v", code, air)
+	}
+	if code := getJSON(t, info.HTTP+"/api/units/nosuch", nil); code != 404 {
+		t.Errorf("/api/units/nosuch %d", code)
+	}
+	var open []alerts.Record
+	if code := getJSON(t, info.HTTP+"/api/alerts", &open); code != 200 {
+		t.Errorf("/api/alerts %d", code)
+	}
+	if len(recs) > 0 {
+		body := `{"alert_id":"` + recs[0].ID + `","by":"test","comment":"seen"}`
+		resp, err := http.Post(info.HTTP+"/api/alerts/ack", "application/json", strings.NewReader(body))
+		if err != nil {
+			t.Fatal(err)
+		}
+		var rep alerts.Reply
+		json.NewDecoder(resp.Body).Decode(&rep)
+		resp.Body.Close()
+		if resp.StatusCode != 200 || !rep.OK {
+			t.Errorf("ack: %d %+v", resp.StatusCode, rep)
+		}
+	}
+	resp, err := http.Post(info.HTTP+"/api/alerts/ack", "application/json", strings.NewReader(`{"by":"test"}`))
+	if err != nil {
+		t.Fatal(err)
+	}
+	resp.Body.Close()
+	if resp.StatusCode != 400 {
+		t.Errorf("ack without alert_id: %d, want 400", resp.StatusCode)
+	}
+
+	// /metrics parses with the Prometheus text-format parser.
+	resp, err = http.Get(info.HTTP + "/metrics")
+	if err != nil {
+		t.Fatal(err)
+	}
+	body, _ := io.ReadAll(resp.Body)
+	resp.Body.Close()
+	parser := expfmt.NewTextParser(model.LegacyValidation)
+	fams, err := parser.TextToMetricFamilies(bytes.NewReader(body))
+	if err != nil {
+		t.Fatalf("/metrics does not parse: %v", err)
+	}
+	for _, name := range []string{"modewatch_frames_total", "modewatch_lines_total", "modewatch_statistic", "modewatch_statistic_limit",
+		"modewatch_alerts_open", "modewatch_nats_connected", "modewatch_readings_queue_depth", "modewatch_unit_refresh_iterations"} {
+		if fams[name] == nil {
+			t.Errorf("/metrics lacks %s", name)
+		}
+	}
+	if f := fams["modewatch_nats_connected"]; f != nil && f.Metric[0].GetGauge().GetValue() != 1 {
+		t.Errorf("modewatch_nats_connected = %v", f.Metric[0].GetGauge().GetValue())
+	}
+
+	// Graceful shutdown writes a checkpoint per unit.
+	sctx, scancel := context.WithTimeout(context.Background(), 15*time.Second)
+	defer scancel()
+	if err := svc.Shutdown(sctx); err != nil {
+		t.Errorf("shutdown: %v", err)
+	}
+	cks, errs := pipeline.ReadCheckpoints(filepath.Join(dir, "data", "checkpoints"))
+	if len(cks) != 4 || len(errs) > 0 {
+		t.Errorf("%d checkpoints after shutdown: %v", len(cks), errs)
+	}
+}
