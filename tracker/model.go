@@ -71,7 +71,7 @@ type pattern struct {
 	speLim float64
 	phiLim float64
 	dd     []float64 // D'ᵢᵢ = Pᵢ M'⁺ Pᵢᵀ
-	rbcDen []float64 // Mᵢᵢ of the RBC index matrix (C̃ or Φ)
+	rbcInv []float64 // 1/Mᵢᵢ of the RBC index matrix (C̃ or Φ); 0: channel not ranked
 	rbcLim []float64 // gᵢ·χ²_{1−α}(1)
 	err    error
 }
@@ -99,7 +99,7 @@ func (m *model) newPattern(miss []int) *pattern {
 	return &pattern{
 		miss: miss, h: make([]float64, k*m.p), kc: make([]float64, k*k),
 		minv: make([]float64, m.maxR*m.maxR),
-		dd:   make([]float64, m.p), rbcDen: make([]float64, m.p), rbcLim: make([]float64, m.p),
+		dd:   make([]float64, m.p), rbcInv: make([]float64, m.p), rbcLim: make([]float64, m.p),
 	}
 }
 
@@ -412,11 +412,11 @@ func (m *model) computePattern(pt *pattern, ls *limitSpec) {
 			num = dd/(tau2*tau2) + 2*dsc/(tau2*delta2) + rii/(delta2*delta2)
 		}
 		if !m.include[i] || mx >= 0 || den <= 1e-12 {
-			pt.rbcDen[i] = 0
+			pt.rbcInv[i] = 0
 			pt.rbcLim[i] = math.Inf(1)
 			continue
 		}
-		pt.rbcDen[i] = den
+		pt.rbcInv[i] = 1 / den
 		pt.rbcLim[i] = limits.RBC(ls.chi1, num, den)
 	}
 	pt.cross = cross

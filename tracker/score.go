@@ -77,35 +77,33 @@ func (m *model) scoreZ(w *work, pt *pattern, rbc Index) (t2, spe, phi float64) {
 		t2 += w.t[a] * s
 	}
 	tau2, delta2 := pt.t2Lim, pt.speLim
+	// The RBC numerator is (Mz)ᵢ with M = Φ = D/τ² + C̃/δ² or M = C̃.
+	cd, ce := 1/tau2, 1/delta2
+	if rbc == IndexSPE {
+		cd, ce = 0, 1
+	}
 	spe = 0
+	y := w.y[:r]
+	qv := w.q[:rq]
 	for i := 0; i < p; i++ {
 		pr := m.pl[i*R : i*R+r]
 		qr := m.q[i*R : i*R+rq]
 		dz := 0.0
 		for j, v := range pr {
-			dz += v * w.y[j]
+			dz += v * y[j]
 		}
-		e := z[i]
+		zi := z[i]
+		e := zi
 		for j, v := range qr {
-			e -= v * w.q[j]
+			e -= v * qv[j]
 		}
 		w.dz[i] = dz
 		w.e[i] = e
 		w.spec[i] = e * e
-		w.t2c[i] = z[i] * dz
+		w.t2c[i] = zi * dz
 		spe += e * e
-		den := pt.rbcDen[i]
-		if den == 0 {
-			w.rbc[i] = 0
-			continue
-		}
-		var v float64
-		if rbc == IndexSPE {
-			v = e
-		} else {
-			v = dz/tau2 + e/delta2
-		}
-		w.rbc[i] = v * v / den
+		v := cd*dz + ce*e
+		w.rbc[i] = v * v * pt.rbcInv[i]
 	}
 	phi = spe/delta2 + t2/tau2
 	return t2, spe, phi

@@ -526,7 +526,7 @@ func (t *Tracker) score(dst *Score, x []float64) error {
 	top := t.top[:0]
 	k := t.cfg.TopContrib
 	for i := 0; i < t.p; i++ {
-		if pt.rbcDen[i] == 0 {
+		if pt.rbcInv[i] == 0 {
 			continue
 		}
 		v := w.rbc[i]
