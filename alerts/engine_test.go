@@ -4,6 +4,7 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"io"
 	"slices"
 	"strings"
 	"sync"
@@ -695,5 +696,47 @@ func benchObserve(b *testing.B, nq int) {
 func BenchmarkObserve(b *testing.B) {
 	for _, nq := range []int{0, 10, 100} {
 		b.Run(fmt.Sprintf("stuck=%d", nq), func(b *testing.B) { benchObserve(b, nq) })
+	}
+}
+
+// TestConcurrentUse: frames, commands, counters and snapshots from several
+// goroutines (run with -race).
+func TestConcurrentUse(t *testing.T) {
+	var mu sync.Mutex
+	n := 0
+	e, _ := NewEngine(Config{Rules: Rules{OnCount: 1, OnWindow: 1, OffDelay: -1}},
+		PublisherFunc(func(*Record) { mu.Lock(); n++; mu.Unlock() }), &learnLog{}, nil)
+	var wg sync.WaitGroup
+	for _, unit := range []string{"a", "b"} {
+		wg.Go(func() {
+			for s := 0; s < 2000; s++ {
+				r := 0.5
+				if s%7 == 0 {
+					r = 3
+				}
+				e.Observe(&Observation{Unit: unit, Time: sec(float64(s)), ModelState: ModelAdapting, Stats: []Stat{{StatSPE, r, 1}}})
+			}
+		})
+	}
+	wg.Go(func() {
+		on, off := true, false
+		for i := 0; i < 200; i++ {
+			for _, r := range e.Open(nil) {
+				e.Handle(context.Background(), Command{Op: OpAck, AlertID: r.ID, By: "jo"})
+			}
+			e.Handle(context.Background(), Command{Op: OpMaintenance, Unit: "b", On: &on, By: "jo"})
+			e.Counters(nil)
+			e.Snapshot(io.Discard)
+			e.Handle(context.Background(), Command{Op: OpMaintenance, Unit: "b", On: &off, By: "jo"})
+		}
+	})
+	wg.Wait()
+	if c := e.Counters(nil); len(c) != 2 || c[0].Frames != 2000 || c[1].Frames != 2000 {
+		t.Errorf("counters %+v", c)
+	}
+	mu.Lock()
+	defer mu.Unlock()
+	if n == 0 {
+		t.Error("nothing published")
 	}
 }

@@ -131,7 +131,7 @@ type Stats struct {
 	Retries    uint64 // failed attempts that were retried
 	SpoolOnly  uint64 // accepted while the queue was full: kept in the spool only
 	Dropped    uint64 // refused by Submit (closed, queue full without spool, spool full) or lost at Close without spool
-	Rejected   uint64 // permanent failures, written to the reject file
+	Rejected   uint64 // permanent failures (written to <name>.rejected when there is a spool directory)
 	Corrupt    int64  // bytes of torn spool tail cut off at open
 	Pending    int64  // bytes of spool not yet delivered
 	Replayed   uint64 // messages read back from the spool
