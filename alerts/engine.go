@@ -694,7 +694,9 @@ func (e *Engine) updateModel(inc *incident, o *Observation, t time.Time) bool {
 		c := &o.Contributors[i]
 		d := &inc.contrib[i]
 		d.Rank, d.Channel = i+1, c.Channel
-		d.Share, d.RBC, d.RBCLimit = finite(c.Share), finite(c.RBC), finite(c.Limit)
+		// Clamped into their ranges: rounding can leave an RBC of -1e-17.
+		d.Share = min(max(finite(c.Share), 0), 1)
+		d.RBC, d.RBCLimit = max(finite(c.RBC), 0), max(finite(c.Limit), 0)
 		d.Modes = append(d.Modes[:0], c.Modes...)
 	}
 	inc.missing = append(inc.missing[:0], o.Missing...)
@@ -1013,8 +1015,10 @@ func (e *Engine) Counters(dst []UnitCounters) []UnitCounters {
 	return dst
 }
 
-// Open appends the current revision of every open incident and flood
-// (published or not) to dst, oldest first within a unit, units sorted.
+// Open appends the current state of every open incident and flood to dst,
+// oldest first within a unit, units sorted. Revision is that of the last
+// publication; 0 marks an incident not published yet (hidden by a shelf or
+// grouped into a flood).
 func (e *Engine) Open(dst []Record) []Record {
 	e.mu.Lock()
 	defer e.mu.Unlock()

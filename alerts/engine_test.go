@@ -5,6 +5,7 @@ import (
 	"errors"
 	"fmt"
 	"io"
+	"math"
 	"slices"
 	"strings"
 	"sync"
@@ -738,5 +739,21 @@ func TestConcurrentUse(t *testing.T) {
 	defer mu.Unlock()
 	if n == 0 {
 		t.Error("nothing published")
+	}
+}
+
+// TestContributorValuesSanitized: non-finite or slightly negative values
+// from the tracker cannot break the record (JSON has no NaN; the schema
+// wants share in [0, 1] and RBC ≥ 0).
+func TestContributorValuesSanitized(t *testing.T) {
+	h := newHarness(t, Config{Rules: Rules{OnCount: 1, OnWindow: 1}})
+	o := Observation{Unit: "u", Time: sec(0), ModelState: ModelAdapting, Stats: []Stat{{StatPhi, 5, 1}},
+		Contributors: []Contributor{{Channel: "a", Share: math.NaN(), RBC: -1e-17, Limit: math.Inf(1)}, {Channel: "b", Share: 1 + 1e-15, RBC: 2}}}
+	if err := h.e.Observe(&o); err != nil {
+		t.Fatal(err)
+	}
+	c := h.last().Contributors
+	if c[0].Share != 0 || c[0].RBC != 0 || c[0].RBCLimit != 0 || c[1].Share != 1 {
+		t.Errorf("contributors %+v", c)
 	}
 }

@@ -78,7 +78,7 @@ func TestSchemaRejects(t *testing.T) {
 	validateRecord(t, &good)
 	cases := map[string]func(r *Record){
 		"caution":      func(r *Record) { r.Caution = "Advisory." },
-		"revision 0":   func(r *Record) { r.Revision = 0 },
+		"revision -1":  func(r *Record) { r.Revision = -1 },
 		"kind":         func(r *Record) { r.Kind = "alarm" },
 		"model state":  func(r *Record) { r.ModelState = "learning" },
 		"share > 1":    func(r *Record) { r.Contributors[0].Share = 1.5 },
