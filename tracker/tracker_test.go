@@ -129,12 +129,33 @@ func TestFalseAlarmRate(t *testing.T) {
 // overlap, plus independent noise; returned as a correlation matrix. With
 // skewed, a few channels dominate each factor and the noise is small (the
 // situation of LIMITS.md §5.2 where plain contributions smear).
-func fiftyChannelModel(skewed bool) *mat.SymDense {
+func fiftyChannelModel(kind int) *mat.SymDense {
 	const p = 50
 	rng := rand.New(rand.NewPCG(51, 52))
 	f := mat.NewDense(p, 5, nil)
 	noise := make([]float64, p)
-	for i := 0; i < p; i++ {
+	skewed := kind == 1
+	if kind == 3 {
+		// 25 independent redundant pairs (correlation about 0.98).
+		f = mat.NewDense(p, p/2, nil)
+		for m := 0; m < p/2; m++ {
+			f.Set(2*m, m, 1)
+			f.Set(2*m+1, m, 1)
+			noise[2*m], noise[2*m+1] = 0.02, 0.02
+		}
+	}
+	if kind == 2 {
+		// Redundant pairs: channels 2m and 2m+1 measure the same quantity
+		// (gain g_m, small independent noise); each factor drives 5 pairs.
+		for m := 0; m < p/2; m++ {
+			g := 0.6 + 0.8*rng.Float64()
+			for _, i := range []int{2 * m, 2*m + 1} {
+				f.Set(i, m/5, g)
+				noise[i] = 0.05
+			}
+		}
+	}
+	for i := 0; i < p && kind < 2; i++ {
 		if skewed {
 			u := rng.Float64()
 			f.Set(i, i/10, 0.2+3*u*u*u)
@@ -166,23 +187,48 @@ func fiftyChannelModel(skewed bool) *mat.SymDense {
 
 // A single-sensor bias of 3 standard deviations on a 50-channel correlated
 // model: RBC puts the faulty channel first in at least 95 % of seeded
-// trials (Alcalá & Qin 2009), while plain SPE contributions smear
-// (Westerhuis, Gurden & Smilde 2000); both rates are logged.
+// trials (Alcalá & Qin 2009); plain SPE contributions can smear (Westerhuis,
+// Gurden & Smilde 2000); all rates are logged.
+//
+// Models: 0, five factors over overlapping groups of ten channels; 1, the
+// same with a few dominant channels per factor and small noise; 2, five
+// factors over five redundant sensor pairs each; 3, twenty-five independent
+// redundant pairs (correlation 0.98) with one two-channel sparse mode per
+// pair. In models 0–2 plain SPE contributions do not smear much and every
+// method ranks the faulty channel first; model 3 is where they smear: the
+// two sensors of a pair have the same residual direction, so plain SPE
+// contributions and the RBC of SPE cannot tell them apart (about 50 % and
+// 36 % first), and only the RBC of φ, which also weighs the T² part,
+// separates them. There RBC(φ)
+// reaches about 93.5 %, short of the 95 % asked for models 0–2; that rate is
+// asserted only as a floor of 85 %.
 func TestRBCSingleSensorBias(t *testing.T) {
-	for _, skewed := range []bool{false, true} {
-		rbcBias(t, skewed)
+	for kind := 0; kind < 4; kind++ {
+		rbc, plain := rbcBias(t, kind)
+		if kind < 3 && rbc < 0.95 {
+			t.Errorf("model %d: RBC(φ) ranks the faulty channel first in %.1f%% of trials, want ≥ 95%%", kind, 100*rbc)
+		}
+		if kind == 3 && (rbc < 0.85 || plain > 0.6 || rbc < plain+0.3) {
+			t.Errorf("model 3 (redundant pairs): RBC(φ) %.1f%%, plain SPE %.1f%%: expected RBC(φ) ≥ 85%% and plain smeared", 100*rbc, 100*plain)
+		}
 	}
 }
 
-func rbcBias(t *testing.T, skewed bool) {
+// rbcBias returns the share of trials in which the faulty channel is ranked
+// first by RBC(φ) and by its plain SPE contribution.
+func rbcBias(t *testing.T, kind int) (rbcPhi, plainSPE float64) {
 	const p, trials = 50, 2000
-	corr := fiftyChannelModel(skewed)
+	corr := fiftyChannelModel(kind)
 	src := newGaussSource(53, corr)
 	fit := src.frames(20000, p)
 	rates := map[Index]float64{}
 	var plainRate, t2Rate float64
 	for _, idx := range []Index{IndexCombined, IndexSPE} {
-		tr, err := New(p, Config{Modes: modes.Config{Count: 5}, RBCIndex: idx, FlatFrames: -1})
+		mc := modes.Config{Count: 5}
+		if kind == 3 {
+			mc = modes.Config{Count: 25, Sparsity: []modes.Sparsity{{Method: modes.L0, K: 2}}}
+		}
+		tr, err := New(p, Config{Modes: mc, RBCIndex: idx, FlatFrames: -1})
 		if err != nil {
 			t.Fatal(err)
 		}
@@ -218,11 +264,9 @@ func rbcBias(t *testing.T, skewed bool) {
 		plainRate = float64(plain) / trials
 		t2Rate = float64(t2first) / trials
 	}
-	t.Logf("skewed=%v: faulty channel ranked first: RBC(φ) %.1f%%, RBC(SPE) %.1f%%, plain SPE contribution %.1f%%, T² contribution %.1f%% (%d trials)",
-		skewed, 100*rates[IndexCombined], 100*rates[IndexSPE], 100*plainRate, 100*t2Rate, trials)
-	if rates[IndexCombined] < 0.95 {
-		t.Errorf("skewed=%v: RBC(φ) ranks the faulty channel first in %.1f%% of trials, want ≥ 95%%", skewed, 100*rates[IndexCombined])
-	}
+	t.Logf("model %d: faulty channel ranked first: RBC(φ) %.1f%%, RBC(SPE) %.1f%%, plain SPE contribution %.1f%%, T² contribution %.1f%% (%d trials)",
+		kind, 100*rates[IndexCombined], 100*rates[IndexSPE], 100*plainRate, 100*t2Rate, trials)
+	return rates[IndexCombined], plainRate
 }
 
 func (e *EW) sdOf(i int) float64 { return math.Sqrt(e.Var(i)) }
