@@ -88,6 +88,12 @@ type Rules struct {
 	// NoFreeze keeps the unit learning while an alert is active. By default
 	// learning is frozen from activation until the incident ends.
 	NoFreeze bool
+	// FloodCount, FloodWindow, ChatterCount and ChatterWindow override the
+	// engine-wide figures of Config for this unit; zero means those.
+	FloodCount    int
+	FloodWindow   time.Duration
+	ChatterCount  int
+	ChatterWindow time.Duration
 }
 
 // QualityRule is the alarm setting of one data-quality kind.
@@ -125,6 +131,7 @@ type Config struct {
 	// FloodCount, FloodWindow, FloodEnd: a flood of a unit begins when more
 	// than FloodCount new alerts fall within the trailing FloodWindow and
 	// ends when that count drops below FloodEnd. Defaults 10, 10 min, 5.
+	// Rules may override count and window per unit.
 	FloodCount  int
 	FloodWindow time.Duration
 	FloodEnd    int
@@ -134,7 +141,7 @@ type Config struct {
 	// MaxFloodMembers caps a flood record's member list. Default 200.
 	MaxFloodMembers int
 	// ChatterCount activations of one alarm within ChatterWindow make it
-	// chattering. Defaults 3 and 60 s.
+	// chattering. Defaults 3 and 60 s; Rules may override them per unit.
 	ChatterCount  int
 	ChatterWindow time.Duration
 	// StaleAfter: an alert in alarm continuously for more than this is
@@ -149,7 +156,19 @@ type Config struct {
 	OnEvent func(Event)
 }
 
-func (r Rules) withDefaults() Rules {
+func (r Rules) withDefaults(c *Config) Rules {
+	if r.FloodCount == 0 {
+		r.FloodCount = c.FloodCount
+	}
+	if r.FloodWindow == 0 {
+		r.FloodWindow = c.FloodWindow
+	}
+	if r.ChatterCount == 0 {
+		r.ChatterCount = c.ChatterCount
+	}
+	if r.ChatterWindow == 0 {
+		r.ChatterWindow = c.ChatterWindow
+	}
 	if r.OnCount == 0 && r.OnWindow == 0 {
 		r.OnCount, r.OnWindow = DefaultOnCount, DefaultOnWindow
 	}
@@ -169,8 +188,17 @@ func (r Rules) withDefaults() Rules {
 	return r
 }
 
-func (r Rules) validate(where string) error {
+func (r Rules) validate(where string, floodEnd int) error {
 	var errs []error
+	if r.FloodCount < 1 || floodEnd > r.FloodCount+1 {
+		errs = append(errs, fmt.Errorf("alerts: %s: flood count %d with end %d: need 1 ≤ end ≤ count+1", where, r.FloodCount, floodEnd))
+	}
+	if r.FloodWindow <= 0 || r.ChatterWindow <= 0 {
+		errs = append(errs, fmt.Errorf("alerts: %s: flood and chatter windows must be positive", where))
+	}
+	if r.ChatterCount < 2 {
+		errs = append(errs, fmt.Errorf("alerts: %s: chatter count %d: need ≥ 2", where, r.ChatterCount))
+	}
 	if r.OnCount < 1 || r.OnWindow < r.OnCount || r.OnWindow > 64 {
 		errs = append(errs, fmt.Errorf("alerts: %s: on-delay %d of %d: need 1 ≤ n ≤ m ≤ 64", where, r.OnCount, r.OnWindow))
 	}
@@ -195,12 +223,6 @@ func (r Rules) validate(where string) error {
 
 // withDefaults returns c with every zero field set to its default.
 func (c Config) withDefaults() Config {
-	c.Rules = c.Rules.withDefaults()
-	units := make(map[string]Rules, len(c.Units))
-	for k, r := range c.Units {
-		units[k] = r.withDefaults()
-	}
-	c.Units = units
 	q := DefaultQuality()
 	for k, r := range c.Quality {
 		q[k] = r
@@ -226,6 +248,12 @@ func (c Config) withDefaults() Config {
 	defd(&c.StaleAfter, DefaultStaleAfter)
 	defd(&c.MaxShelve, DefaultMaxShelve)
 	def(&c.MaxContributors, DefaultMaxContributors)
+	c.Rules = c.Rules.withDefaults(&c)
+	units := make(map[string]Rules, len(c.Units))
+	for k, r := range c.Units {
+		units[k] = r.withDefaults(&c)
+	}
+	c.Units = units
 	return c
 }
 
@@ -233,12 +261,12 @@ func (c Config) withDefaults() Config {
 func (c Config) Validate() error {
 	c = c.withDefaults()
 	var errs []error
-	errs = append(errs, c.Rules.validate("rules"))
+	errs = append(errs, c.Rules.validate("rules", c.FloodEnd))
 	for k, r := range c.Units {
 		if k == "" {
 			errs = append(errs, errors.New("alerts: units: empty unit name"))
 		}
-		errs = append(errs, r.validate("units["+k+"]"))
+		errs = append(errs, r.validate("units["+k+"]", c.FloodEnd))
 	}
 	for k, q := range c.Quality {
 		switch k {
@@ -253,14 +281,11 @@ func (c Config) Validate() error {
 			errs = append(errs, fmt.Errorf("alerts: quality[%s]: empty severity", k))
 		}
 	}
-	if c.FloodCount < 1 || c.FloodEnd < 1 || c.FloodEnd > c.FloodCount+1 {
-		errs = append(errs, fmt.Errorf("alerts: flood: count %d, end %d: need 1 ≤ end ≤ count+1", c.FloodCount, c.FloodEnd))
+	if c.FloodEnd < 1 {
+		errs = append(errs, fmt.Errorf("alerts: flood end %d: need ≥ 1", c.FloodEnd))
 	}
-	if c.FloodWindow <= 0 || c.ChatterWindow <= 0 || c.FloodUpdate < 0 {
-		errs = append(errs, errors.New("alerts: flood/chatter windows must be positive"))
-	}
-	if c.ChatterCount < 2 {
-		errs = append(errs, fmt.Errorf("alerts: chatter count %d: need ≥ 2", c.ChatterCount))
+	if c.FloodUpdate < 0 {
+		errs = append(errs, errors.New("alerts: flood update interval is negative"))
 	}
 	if c.StaleAfter <= 0 || c.MaxShelve <= 0 {
 		errs = append(errs, errors.New("alerts: stale-after and max-shelve must be positive"))

@@ -350,8 +350,8 @@ func (e *Engine) unit(name string) *unit {
 	for i := range u.stats {
 		u.stats[i] = NewAlarm(ar)
 	}
-	u.modelG = group{key: GroupModel, acts: newRing(e.cfg.ChatterCount)}
-	u.openings = newRing(max(e.cfg.FloodCount+1, e.cfg.FloodEnd))
+	u.modelG = group{key: GroupModel, acts: newRing(u.rules.ChatterCount)}
+	u.openings = newRing(max(u.rules.FloodCount+1, e.cfg.FloodEnd))
 	u.c.Unit = name
 	e.units[name] = u
 	return u
@@ -476,7 +476,7 @@ func (e *Engine) Observe(o *Observation) error {
 	for k, q := range u.quality {
 		if q.seq != u.seq {
 			e.stepQuality(u, k.kind, k.channel, false, t, o)
-			if q.a.State() == Normal && q.g.inc == nil && q.g.shelf == nil && !q.g.chattering && quiet(&q.g.acts, t, e.cfg.ChatterWindow) {
+			if q.a.State() == Normal && q.g.inc == nil && q.g.shelf == nil && !q.g.chattering && quiet(&q.g.acts, t, u.rules.ChatterWindow) {
 				delete(u.quality, k)
 			}
 		}
@@ -504,7 +504,7 @@ func (e *Engine) stepQuality(u *unit, kind, ch string, present bool, t time.Time
 		rule := e.cfg.Quality[kind]
 		q = &qalarm{
 			a: NewAlarm(AlarmRule{N: 1, M: 1, OnHold: rule.Hold, OffDelay: rule.OffDelay}),
-			g: group{key: kind + ":" + ch, qkind: kind, chann: ch, acts: newRing(e.cfg.ChatterCount)},
+			g: group{key: kind + ":" + ch, qkind: kind, chann: ch, acts: newRing(u.rules.ChatterCount)},
 		}
 		u.quality[k] = q
 	}
@@ -567,7 +567,7 @@ func (e *Engine) activate(u *unit, g *group, t time.Time, o *Observation, qa *Al
 	// Chattering: ChatterCount activations within ChatterWindow, i.e. the
 	// oldest of the last ChatterCount is less than the window before t.
 	if g.acts.n == len(g.acts.t) {
-		if first, _ := g.acts.at(g.acts.n - 1); t.Sub(first) < e.cfg.ChatterWindow {
+		if first, _ := g.acts.at(g.acts.n - 1); t.Sub(first) < u.rules.ChatterWindow {
 			g.chattering = true
 			inc.chatter = &Chatter{Activations: g.acts.n, First: first.UTC(), Last: t.UTC()}
 			u.c.Chattering++
@@ -581,7 +581,7 @@ func (e *Engine) activate(u *unit, g *group, t time.Time, o *Observation, qa *Al
 		if t.Sub(f.lastPub) >= e.cfg.FloodUpdate {
 			e.publish(f, t)
 		}
-	} else if n := u.openings.countAfter(t.Add(-e.cfg.FloodWindow)); n > e.cfg.FloodCount {
+	} else if n := u.openings.countAfter(t.Add(-u.rules.FloodWindow)); n > u.rules.FloodCount {
 		e.startFlood(u, t, n)
 	}
 	e.syncFreeze(u, t)
@@ -602,7 +602,7 @@ func (e *Engine) deactivate(u *unit, g *group, t time.Time) {
 
 // checkGroup ends quiet chattering episodes and flags stale alarms.
 func (e *Engine) checkGroup(u *unit, g *group, t time.Time) {
-	if g.chattering && !g.inAlarm && t.Sub(g.lastAct) >= e.cfg.ChatterWindow {
+	if g.chattering && !g.inAlarm && t.Sub(g.lastAct) >= u.rules.ChatterWindow {
 		g.chattering = false
 		if g.inc != nil {
 			e.emit(Event{Time: t, Unit: u.name, Kind: EventChatterEnd, Alarm: g.key, AlertID: g.inc.id})
@@ -746,7 +746,7 @@ func (e *Engine) startFlood(u *unit, t time.Time, n int) {
 	u.flood = f
 	u.c.Floods++
 	e.remember(f)
-	e.emit(Event{Time: t, Unit: u.name, Kind: EventFloodStart, AlertID: f.id, Value: float64(n), Limit: float64(e.cfg.FloodCount)})
+	e.emit(Event{Time: t, Unit: u.name, Kind: EventFloodStart, AlertID: f.id, Value: float64(n), Limit: float64(u.rules.FloodCount)})
 	e.publish(f, t)
 }
 
@@ -768,7 +768,7 @@ func (e *Engine) addMember(f *incident, inc *incident, t time.Time) {
 		}
 		f.members = append(f.members, m)
 	}
-	if c := f.u.openings.countAfter(t.Add(-e.cfg.FloodWindow)); c > f.maxCount {
+	if c := f.u.openings.countAfter(t.Add(-f.u.rules.FloodWindow)); c > f.maxCount {
 		f.maxCount = c
 	}
 	f.dirty = true
@@ -782,11 +782,11 @@ func (e *Engine) checkFloodEnd(u *unit, t time.Time) {
 	if f == nil {
 		return
 	}
-	if u.openings.countAfter(t.Add(-e.cfg.FloodWindow)) >= e.cfg.FloodEnd {
+	if u.openings.countAfter(t.Add(-u.rules.FloodWindow)) >= e.cfg.FloodEnd {
 		return
 	}
 	te, _ := u.openings.at(e.cfg.FloodEnd - 1)
-	end := te.Add(e.cfg.FloodWindow)
+	end := te.Add(u.rules.FloodWindow)
 	e.endFlood(u, end, EndFloodOver)
 }
 
@@ -915,7 +915,7 @@ func (e *Engine) record(inc *incident) *Record {
 			r.State = Normal.String()
 		}
 		r.Peak = Peak{Statistic: "new_alerts_per_window", Value: float64(inc.maxCount),
-			Limit: float64(e.cfg.FloodCount), Ratio: float64(inc.maxCount) / float64(e.cfg.FloodCount), Time: inc.start}
+			Limit: float64(u.rules.FloodCount), Ratio: float64(inc.maxCount) / float64(u.rules.FloodCount), Time: inc.start}
 		if r.Severity == "" {
 			r.Severity = u.rules.Severity[0].Name
 		}

@@ -757,3 +757,17 @@ func TestContributorValuesSanitized(t *testing.T) {
 		t.Errorf("contributors %+v", c)
 	}
 }
+
+// TestPerUnitHygiene: a unit's own flood and chatter figures override the
+// engine-wide ones.
+func TestPerUnitHygiene(t *testing.T) {
+	h := newHarness(t, Config{Units: map[string]Rules{"u": {FloodCount: 4, FloodWindow: time.Minute}}})
+	stuckAt(h, every(0, 10, 5)) // 5 new alerts within a minute: more than 4
+	equalStrings(t, "flood", h.eventsOf(EventFloodStart), []string{"flood_start@40"})
+	if r := h.lastOf(KindFlood); r.Peak.Limit != 4 || r.MemberCount != 5 {
+		t.Errorf("flood record %+v", r)
+	}
+	if err := (Config{FloodEnd: 5, Units: map[string]Rules{"x": {FloodCount: 2}}}).Validate(); err == nil || !strings.Contains(err.Error(), "units[x]: flood count 2 with end 5") {
+		t.Errorf("flood end above count+1 accepted: %v", err)
+	}
+}

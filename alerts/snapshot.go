@@ -293,7 +293,7 @@ func (e *Engine) Restore(r io.Reader) error {
 			}
 			q := &qalarm{
 				a: NewAlarm(AlarmRule{N: 1, M: 1, OnHold: rule.Hold, OffDelay: rule.OffDelay}),
-				g: group{key: sq.Kind + ":" + sq.Channel, qkind: sq.Kind, chann: sq.Channel, acts: newRing(e.cfg.ChatterCount)},
+				g: group{key: sq.Kind + ":" + sq.Channel, qkind: sq.Kind, chann: sq.Channel, acts: newRing(u.rules.ChatterCount)},
 			}
 			restoreAlarm(&q.a, sq.Alarm)
 			if err := e.restoreGroup(u, &q.g, sq.Group, lookup); err != nil {
