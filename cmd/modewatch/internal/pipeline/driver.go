@@ -81,6 +81,14 @@ type ReplayOptions struct {
 	// OnLineError receives every rejected line (a *stream.LineError).
 	OnLineError func(error)
 	Log         *slog.Logger
+	// Prepare, if set, is called once the pipeline exists (units of the
+	// baseline included) and before the first line is read; an error stops
+	// the replay. replay uses it to set empirical control limits.
+	Prepare func(p *Pipeline) error
+	// ReadInput, if set, reads one input into the intake in place of
+	// Intake.ReadFiles; the commands use it to count bytes for a progress
+	// bar.
+	ReadInput func(ctx context.Context, in *stream.Intake, name string) error
 }
 
 // ReplayResult is what a replay or fit saw.
@@ -154,8 +162,21 @@ func Replay(ctx context.Context, opt ReplayOptions) (*ReplayResult, error) {
 		return nil, fmt.Errorf("pipeline: %w", err)
 	}
 	res.Intake = in
+	if opt.Prepare != nil {
+		if err := opt.Prepare(pl); err != nil {
+			return nil, err
+		}
+	}
 	start := time.Now()
-	err = in.ReadFiles(ctx, opt.Inputs...)
+	if opt.ReadInput != nil {
+		for _, name := range opt.Inputs {
+			if err = opt.ReadInput(ctx, in, name); err != nil {
+				break
+			}
+		}
+	} else {
+		err = in.ReadFiles(ctx, opt.Inputs...)
+	}
 	if ferr := in.Flush(); err == nil {
 		err = ferr
 	}
