@@ -332,3 +332,37 @@ func BenchmarkSubmit(b *testing.B) {
 	b.Run("queue", func(b *testing.B) { benchSubmit(b, false) })
 	b.Run("spool", func(b *testing.B) { benchSubmit(b, true) })
 }
+
+// TestSpoolLimitAndFsyncAlways: a full spool refuses with ErrSpoolFull and
+// a counter; with FsyncAlways delivery still works.
+func TestSpoolLimitAndFsyncAlways(t *testing.T) {
+	d := newDest()
+	d.gate = make(chan struct{})
+	s, _ := New(d, Options{Name: "l", SpoolDir: t.TempDir(), MaxSpoolBytes: 300, Fsync: FsyncAlways, Backoff: fast})
+	var full int
+	for i := 0; i < 10; i++ {
+		if err := s.Submit(msg(i)); errors.Is(err, ErrSpoolFull) {
+			full++
+		} else if err != nil {
+			t.Fatal(err)
+		}
+	}
+	line, _ := encode(msg(0)) // all entries have the same length
+	fit := 300 / len(line)
+	if full != 10-fit || s.Stats().Dropped != uint64(10-fit) {
+		t.Errorf("%d refused, want %d; stats %+v", full, 10-fit, s.Stats())
+	}
+	if err := s.Submit(Message{ID: "x", Data: []byte("{")}); err == nil {
+		t.Error("invalid JSON accepted")
+	}
+	close(d.gate)
+	waitFor(t, "delivery", func() bool { return len(d.ids()) == fit })
+	if err := s.Submit(msg(10)); err != nil {
+		t.Errorf("after delivery the spool has room again: %v", err)
+	}
+	waitFor(t, "delivery", func() bool { return len(d.ids()) == fit+1 })
+	closeNow(t, s)
+	if got := d.ids(); !slices.Equal(got, append(ids(0, fit), msg(10).ID)) {
+		t.Errorf("delivered %v", got)
+	}
+}
