@@ -138,10 +138,12 @@ func (e *EW) Update(x []float64, observed []bool) {
 	}
 	// A frame joins the batch when every channel is observed and all share
 	// the same step.
+	// Equal counts give equal steps.
 	batchable := true
-	a0 := e.step(e.count[0] + 1)
-	for i := 0; i < e.p; i++ {
-		if (observed != nil && !observed[i]) || e.step(e.count[i]+1) != a0 {
+	c0 := e.count[0]
+	a0 := e.step(c0 + 1)
+	for i, c := range e.count {
+		if c != c0 || (observed != nil && !observed[i]) {
 			batchable = false
 			break
 		}

@@ -439,8 +439,17 @@ func (t *Tracker) prepare(x []float64, missing []bool, track bool) error {
 			t.last[i] = v
 		}
 	}
+	e := t.ew
+	ff, rel := t.cfg.FlatFrames, t.cfg.StuckRel
 	for i := range x {
-		t.stuck[i] = t.isStuck(i)
+		// = t.isStuck(i), unrolled for the per-frame path
+		st := ff > 0 && t.run[i] >= ff
+		if !st && e.count[i] >= 2 {
+			v := e.vari[i]
+			s := rel * math.Abs(e.mean[i])
+			st = v <= s*s || v == 0
+		}
+		t.stuck[i] = st
 	}
 	return nil
 }
