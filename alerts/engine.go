@@ -761,7 +761,7 @@ func (e *Engine) addMember(f *incident, inc *incident, t time.Time) {
 	}
 	if len(f.members) < e.cfg.MaxFloodMembers {
 		inc.memberIdx = len(f.members)
-		m := Member{ID: inc.id, Group: inc.g.key, Start: inc.start, Severity: inc.sevName}
+		m := Member{ID: inc.id, Alarm: inc.g.key, Start: inc.start, Severity: inc.sevName}
 		if inc.ended {
 			end := inc.end
 			m.End = &end

@@ -115,10 +115,11 @@ type Chatter struct {
 	Last        time.Time `json:"last"`
 }
 
-// Member is one incident of a flood.
+// Member is one incident of a flood. Alarm is the alarm group key of the
+// incident: "model" or "<quality kind>:<channel>".
 type Member struct {
 	ID       string     `json:"id"`
-	Group    string     `json:"group"`
+	Alarm    string     `json:"alarm"`
 	Start    time.Time  `json:"start"`
 	End      *time.Time `json:"end"`
 	Severity string     `json:"severity"`

@@ -85,7 +85,7 @@ func TestSchemaRejects(t *testing.T) {
 		"no stats":     func(r *Record) { r.Statistics = []RecordStat{} },
 		"end no why":   func(r *Record) { r.End = &end; r.State = "normal" },
 		"end active":   func(r *Record) { r.End = &end; r.EndReason = EndReturned },
-		"flood fields": func(r *Record) { r.Members = []Member{{ID: "u/x/1", Group: "model", Start: sec(1), Severity: "low"}} },
+		"flood fields": func(r *Record) { r.Members = []Member{{ID: "u/x/1", Alarm: "model", Start: sec(1), Severity: "low"}} },
 		"quality null": func(r *Record) { r.Group = GroupQuality },
 		"quality set":  func(r *Record) { r.Quality = &RecordQuality{Kind: QualityStuck, Channel: "c"} },
 	}
