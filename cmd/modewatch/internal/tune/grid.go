@@ -1,0 +1,404 @@
+// Package tune searches model and alarm settings against labelled
+// episodes: it reads a grid file (lists of values per setting), expands it
+// into every combination, ranks the results of replaying each one, marks
+// the Pareto front, and writes the table as CSV and the best setting as a
+// configuration snippet. Running the replays is the caller's job (package
+// cli), so that a setting here is replayed exactly as "modewatch replay"
+// would replay it.
+//
+// # Grid file
+//
+// A grid is YAML: a mapping from setting name to a list of values (a single
+// value may stand alone). Every key is optional; a setting that is not
+// listed keeps the value of the base configuration (--config and flags).
+//
+//	sparsity:  [none, "l0:4", "l0:6"]   # --sparsity syntax
+//	modes:     [3, "auto:0.8"]          # N or auto:SHARE
+//	halflife:  [1d, 3d, 7d]             # Go duration or whole days
+//	alpha:     [0.01, 0.001]            # per-frame false-alarm rate, (0, 0.5)
+//	warmup:    [500]                    # frames learned before scoring
+//	refresh_every: [64]                 # frames between mode refreshes
+//	on_delay:  ["3/5", "6/10"]          # N/M: over the limit in N of the last M frames
+//	off_delay: [5m, 15m]                # time back below the limit before the alarm returns
+//	deadband:  [0.05]                   # fraction of the limit, [0, 1)
+//	adapt:     [true, false]            # keep learning while scoring
+//
+// The whole file is checked (unknown keys, bad values, duplicates, too many
+// combinations) and every problem is reported with its line and column
+// before any replay starts.
+package tune
+
+import (
+	"errors"
+	"fmt"
+	"os"
+	"strconv"
+	"strings"
+	"time"
+
+	"go.yaml.in/yaml/v3"
+
+	"modewatch/configs"
+)
+
+// MaxCombinations bounds the size of a grid: the product of the list
+// lengths.
+const MaxCombinations = 10000
+
+// Keys of a grid file, in the order of the table columns.
+var Keys = []string{"sparsity", "modes", "halflife", "alpha", "warmup", "refresh_every", "on_delay", "off_delay", "deadband", "adapt"}
+
+// ModelKeys are the grid keys that change the model itself. A fitted model
+// (--model) carries its own, so a grid used with a fitted model may not
+// list them.
+var ModelKeys = map[string]bool{"sparsity": true, "modes": true, "halflife": true, "alpha": true, "warmup": true, "refresh_every": true}
+
+// Grid is a parsed grid file: for every listed key, its values in file
+// order (as written, normalised: "l0:4", "auto:0.8", "3d", "0.001", "6/10").
+type Grid struct {
+	File   string
+	Axes   []Axis // in the order of Keys, only the keys present
+	values map[string][]value
+}
+
+// Axis is one listed setting and its values, as text.
+type Axis struct {
+	Key    string
+	Values []string
+	Line   int // line of the key in the grid file
+}
+
+// value is one parsed value of an axis.
+type value struct {
+	text string
+	sp   string
+	mc   configs.ModeCount
+	d    time.Duration
+	f    float64
+	n    int
+	od   configs.OnDelay
+	b    bool
+}
+
+// ReadGrid reads and checks a grid file.
+func ReadGrid(path string) (*Grid, error) {
+	data, err := os.ReadFile(path)
+	if err != nil {
+		return nil, fmt.Errorf("tune: %w", err)
+	}
+	return ParseGrid(path, data)
+}
+
+// ParseGrid parses and checks a grid document; name is used in error
+// positions. Every problem is reported at once as configs.Errors (which
+// matches configs.ErrInvalid), each with line and column.
+func ParseGrid(name string, data []byte) (*Grid, error) {
+	g := &Grid{File: name, values: map[string][]value{}}
+	var errs configs.Errors
+	bad := func(n *yaml.Node, path, format string, args ...any) {
+		e := &configs.Error{File: name, Path: path, Msg: fmt.Sprintf(format, args...)}
+		if n != nil {
+			e.Line, e.Column = n.Line, n.Column
+		}
+		errs = append(errs, e)
+	}
+	var doc yaml.Node
+	if err := yaml.Unmarshal(data, &doc); err != nil {
+		e := &configs.Error{File: name, Msg: err.Error()}
+		var te *yaml.TypeError
+		if !errors.As(err, &te) {
+			// yaml.v3 syntax errors read "yaml: line N: ..."; keep the line.
+			msg := err.Error()
+			if rest, ok := strings.CutPrefix(msg, "yaml: line "); ok {
+				if i := strings.IndexByte(rest, ':'); i > 0 {
+					if ln, err := strconv.Atoi(rest[:i]); err == nil {
+						e.Line, e.Column, e.Msg = ln, 1, strings.TrimSpace(rest[i+1:])
+					}
+				}
+			}
+		}
+		return nil, configs.Errors{e}
+	}
+	if len(doc.Content) == 0 {
+		return nil, configs.Errors{{File: name, Msg: "the grid is empty: list at least one setting, e.g. alpha: [0.01, 0.001]"}}
+	}
+	root := doc.Content[0]
+	if root.Kind != yaml.MappingNode {
+		bad(root, "", "a grid is a mapping of setting names to lists of values")
+		return nil, errs
+	}
+	seen := map[string]*yaml.Node{}
+	for i := 0; i+1 < len(root.Content); i += 2 {
+		k, v := root.Content[i], root.Content[i+1]
+		key := k.Value
+		if !known(key) {
+			bad(k, key, "unknown setting; the grid knows %s", strings.Join(Keys, ", "))
+			continue
+		}
+		if prev := seen[key]; prev != nil {
+			bad(k, key, "listed twice (first at line %d)", prev.Line)
+			continue
+		}
+		seen[key] = k
+		items := []*yaml.Node{v}
+		if v.Kind == yaml.SequenceNode {
+			items = v.Content
+			if len(items) == 0 {
+				bad(v, key, "empty list: give at least one value or leave the setting out")
+				continue
+			}
+		}
+		var vals []value
+		texts := map[string]int{}
+		for j, it := range items {
+			path := fmt.Sprintf("%s[%d]", key, j)
+			if v.Kind != yaml.SequenceNode {
+				path = key
+			}
+			if it.Kind != yaml.ScalarNode {
+				bad(it, path, "want a single value, not a list or mapping")
+				continue
+			}
+			pv, err := parseValue(key, it.Value)
+			if err != nil {
+				bad(it, path, "%v", err)
+				continue
+			}
+			if first, dup := texts[pv.text]; dup {
+				bad(it, path, "value %s repeats %s[%d]", pv.text, key, first)
+				continue
+			}
+			texts[pv.text] = j
+			vals = append(vals, pv)
+		}
+		if len(vals) > 0 {
+			g.values[key] = vals
+		}
+	}
+	if len(errs) == 0 && len(g.values) == 0 {
+		bad(root, "", "no setting listed: give at least one of %s", strings.Join(Keys, ", "))
+	}
+	n := 1
+	for _, key := range Keys {
+		vals, ok := g.values[key]
+		if !ok {
+			continue
+		}
+		ax := Axis{Key: key, Line: seen[key].Line}
+		for _, v := range vals {
+			ax.Values = append(ax.Values, v.text)
+		}
+		g.Axes = append(g.Axes, ax)
+		n *= len(vals)
+		if n > MaxCombinations {
+			bad(root, "", "the grid has more than %d combinations; split it or list fewer values", MaxCombinations)
+			break
+		}
+	}
+	if len(errs) > 0 {
+		return nil, errs
+	}
+	return g, nil
+}
+
+func known(key string) bool {
+	for _, k := range Keys {
+		if k == key {
+			return true
+		}
+	}
+	return false
+}
+
+// parseValue checks one value of setting key with the same rules as the
+// configuration and the command-line flags.
+func parseValue(key, s string) (value, error) {
+	s = strings.TrimSpace(s)
+	v := value{text: s}
+	switch key {
+	case "sparsity":
+		if err := configs.CheckSparsity(s); err != nil {
+			return v, err
+		}
+		v.sp = s
+	case "modes":
+		mc, err := configs.ParseModeCount(s)
+		if err != nil {
+			return v, err
+		}
+		v.mc, v.text = mc, mc.String()
+	case "halflife", "off_delay":
+		d, err := configs.ParseDuration(s)
+		if err != nil {
+			return v, err
+		}
+		if d <= 0 {
+			return v, fmt.Errorf("%s must be above zero", key)
+		}
+		v.d, v.text = d, FormatDuration(d)
+	case "alpha":
+		f, err := strconv.ParseFloat(s, 64)
+		if err != nil || !(f > 0 && f < 0.5) {
+			return v, fmt.Errorf("%q is not a false-alarm rate in (0, 0.5)", s)
+		}
+		v.f, v.text = f, strconv.FormatFloat(f, 'g', -1, 64)
+	case "deadband":
+		f, err := strconv.ParseFloat(s, 64)
+		if err != nil || !(f > 0 && f < 1) {
+			return v, fmt.Errorf("%q is not a fraction of the limit in (0, 1)", s)
+		}
+		v.f, v.text = f, strconv.FormatFloat(f, 'g', -1, 64)
+	case "warmup", "refresh_every":
+		n, err := strconv.Atoi(s)
+		min := 1
+		if key == "warmup" {
+			min = 2
+		}
+		if err != nil || n < min {
+			return v, fmt.Errorf("%q: want a whole number of frames ≥ %d", s, min)
+		}
+		v.n, v.text = n, strconv.Itoa(n)
+	case "on_delay":
+		a, b, ok := strings.Cut(s, "/")
+		n, err1 := strconv.Atoi(strings.TrimSpace(a))
+		m, err2 := strconv.Atoi(strings.TrimSpace(b))
+		if !ok || err1 != nil || err2 != nil || n < 1 || n > m || m > 64 {
+			return v, fmt.Errorf("%q: want N/M, over the limit in N of the last M frames, 1 ≤ N ≤ M ≤ 64", s)
+		}
+		v.od, v.text = configs.OnDelay{N: n, M: m}, fmt.Sprintf("%d/%d", n, m)
+	case "adapt":
+		b, err := strconv.ParseBool(s)
+		if err != nil {
+			return v, fmt.Errorf("%q: want true or false", s)
+		}
+		v.b, v.text = b, strconv.FormatBool(b)
+	}
+	return v, nil
+}
+
+// FormatDuration writes d as whole days ("7d") when it is a whole number
+// of days, else as a Go duration ("90m0s" → "1h30m0s"); both forms are
+// read back by configs.ParseDuration.
+func FormatDuration(d time.Duration) string {
+	const day = 24 * time.Hour
+	if d > 0 && d%day == 0 {
+		return strconv.FormatInt(int64(d/day), 10) + "d"
+	}
+	return d.String()
+}
+
+// Size returns the number of combinations.
+func (g *Grid) Size() int {
+	n := 1
+	for _, ax := range g.Axes {
+		n *= len(ax.Values)
+	}
+	return n
+}
+
+// Has reports whether the grid lists key.
+func (g *Grid) Has(key string) bool { _, ok := g.values[key]; return ok }
+
+// Setting is one combination of the grid: an index into each axis.
+type Setting struct {
+	Index int      // position in grid order (the last axis varies fastest)
+	Keys  []string // the grid's keys, in axis order
+	Texts []string // the value of each key, as text
+	vals  []value
+}
+
+// Settings expands the grid into every combination, in grid order: the
+// first axis varies slowest, as in nested loops over the file's settings
+// in the order of Keys.
+func (g *Grid) Settings() []Setting {
+	n := g.Size()
+	out := make([]Setting, n)
+	keys := make([]string, len(g.Axes))
+	for a, ax := range g.Axes {
+		keys[a] = ax.Key
+	}
+	for i := range out {
+		s := Setting{Index: i, Keys: keys, Texts: make([]string, len(g.Axes)), vals: make([]value, len(g.Axes))}
+		rest := i
+		for a := len(g.Axes) - 1; a >= 0; a-- {
+			vals := g.values[g.Axes[a].Key]
+			k := rest % len(vals)
+			rest /= len(vals)
+			s.Texts[a], s.vals[a] = vals[k].text, vals[k]
+		}
+		out[i] = s
+	}
+	return out
+}
+
+// String is the setting as "key=value key=value".
+func (s Setting) String() string {
+	parts := make([]string, len(s.Keys))
+	for i, k := range s.Keys {
+		parts[i] = k + "=" + s.Texts[i]
+	}
+	return strings.Join(parts, " ")
+}
+
+// Value returns the text of key in s, or "".
+func (s Setting) Value(key string) string {
+	for i, k := range s.Keys {
+		if k == key {
+			return s.Texts[i]
+		}
+	}
+	return ""
+}
+
+// Overrides returns the model and alarm settings of s as overrides: fields
+// the setting does not set are zero (inherit).
+func (s Setting) Overrides() (configs.Model, configs.Alerts) {
+	var m configs.Model
+	var a configs.Alerts
+	for i, k := range s.Keys {
+		v := s.vals[i]
+		switch k {
+		case "sparsity":
+			m.Sparsity = v.sp
+		case "modes":
+			m.Modes = v.mc
+		case "halflife":
+			m.HalfLife = v.d
+		case "alpha":
+			m.Alpha = v.f
+		case "warmup":
+			m.WarmUp = v.n
+		case "refresh_every":
+			m.RefreshEvery = v.n
+		case "on_delay":
+			a.OnDelay = v.od
+		case "off_delay":
+			a.OffDelay = v.d
+		case "deadband":
+			a.Deadband = v.f
+		case "adapt":
+			b := v.b
+			m.Adapt = &b
+		}
+	}
+	return m, a
+}
+
+// Apply returns a copy of base with s laid over the defaults and over
+// every unit, as command-line flags are: a unit's own override of a key the
+// grid lists is replaced by the grid's value. base is not changed.
+func (s Setting) Apply(base *configs.Config) *configs.Config {
+	c := *base
+	c.Units = append([]configs.Unit(nil), base.Units...)
+	m, a := s.Overrides()
+	if m.Modes.Count > 0 {
+		m.MaxModes = max(m.Modes.Count, c.Model.MaxModes)
+	}
+	c.Model = m.Over(c.Model)
+	c.Alerts = a.Over(c.Alerts)
+	for i := range c.Units {
+		c.Units[i].Model = m.Over(c.Units[i].Model)
+		c.Units[i].Alerts = a.Over(c.Units[i].Alerts)
+	}
+	return &c
+}
