@@ -69,7 +69,7 @@ func TestUsageAndHelp(t *testing.T) {
 	if code, out, _ := runCLI(t, "", "version"); code != ExitOK || !strings.HasPrefix(out, "modewatch ") {
 		t.Errorf("version: %d %q", code, out)
 	}
-	if code, _, errs := runCLI(t, "", "tune"); code != ExitUsage || !strings.Contains(errs, "not yet available") {
+	if code, _, errs := runCLI(t, "", "tune"); code != ExitUsage || !strings.Contains(errs, "no input") {
 		t.Errorf("tune: %d %q", code, errs)
 	}
 }

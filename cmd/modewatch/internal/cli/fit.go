@@ -56,6 +56,7 @@ func runFit(ctx context.Context, env IO, args []string) error {
 	if mf.set["limits"] || mf.set["adapt"] {
 		return usagef("--limits and --adapt apply to replay and run, not to fit")
 	}
+	out.progress = "fit"
 	res, _, err := runEngine(ctx, env, cfg, inputs, nil, true, mf.halfLifeSet(), out)
 	if res == nil {
 		return err

@@ -59,6 +59,11 @@ type runOutputs struct {
 	alerts  string
 	quiet   bool
 	maxErrs int
+	// Hooks for the report, empirical limits and the progress bar
+	// (label of the bar; "" draws none).
+	onScore  func(u *pipeline.Unit, t time.Time)
+	prepare  func(p *pipeline.Pipeline) error
+	progress string
 }
 
 func runReplay(ctx context.Context, env IO, args []string) error {
@@ -97,9 +102,10 @@ func runReplay(ctx context.Context, env IO, args []string) error {
 			return usagef("--model: %v", err)
 		}
 	}
-	if err := checkEmpirical(cfg, baseline != nil); err != nil {
+	if out.prepare, err = empiricalLimits(cfg, baseline); err != nil {
 		return err
 	}
+	out.progress = "replay"
 	var tr *evaluate.Truth
 	if truth != "" {
 		if tr, err = evaluate.ReadTruth(truth); err != nil {
@@ -256,6 +262,20 @@ func runEngine(ctx context.Context, env IO, cfg *configs.Config, inputs []string
 			}
 		}
 	}
+	if extra := out.onScore; extra != nil {
+		if prev := onScore; prev != nil {
+			onScore = func(u *pipeline.Unit, t time.Time) { prev(u, t); extra(u, t) }
+		} else {
+			onScore = extra
+		}
+	}
+	var readInput func(ctx context.Context, in *stream.Intake, name string) error
+	if out.progress != "" {
+		if prog := newFileProgress(env, out.quiet, out.progress, inputs); prog != nil {
+			defer prog.finish()
+			readInput = prog.readInput
+		}
+	}
 	printed := 0
 	onLineError := func(err error) {
 		printed++
@@ -268,6 +288,7 @@ func runEngine(ctx context.Context, env IO, cfg *configs.Config, inputs []string
 	res, err := pipeline.Replay(ctx, pipeline.ReplayOptions{
 		Config: cfg, Inputs: inputs, Stdin: env.In, Baseline: baseline, Fit: fit, FitHalfLife: fitHalfLife,
 		Publisher: rec, OnScore: onScore, OnLineError: onLineError, Log: log,
+		Prepare: out.prepare, ReadInput: readInput,
 	})
 	if err == nil {
 		err = scoreErr

@@ -13,7 +13,6 @@ var Version = "dev"
 
 func init() {
 	register(command{name: "version", summary: "print the version", run: runVersion})
-	register(command{name: "tune", args: "--input FILE... --truth FILE --grid FILE", summary: "search model settings against labelled incidents (not yet available)", run: runTune})
 }
 
 func runVersion(ctx context.Context, env IO, args []string) error {
@@ -39,14 +38,4 @@ func runVersion(ctx context.Context, env IO, args []string) error {
 	}
 	fmt.Fprintf(env.Out, "modewatch %s%s %s %s/%s\n", Version, rev, runtime.Version(), runtime.GOOS, runtime.GOARCH)
 	return nil
-}
-
-func runTune(ctx context.Context, env IO, args []string) error {
-	fs := newFlags(env, "tune", "--input FILE... --truth FILE --grid FILE", `
-Search model settings against labelled incidents. Not yet available in this
-version: replay with --truth --json gives the metrics for one setting.`)
-	if _, err := parseAll(fs, args); err != nil {
-		return err
-	}
-	return usagef("tune is not yet available in this version; use replay --truth FILE --json for one setting at a time")
 }
