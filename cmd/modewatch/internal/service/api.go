@@ -23,7 +23,7 @@ const Caution = "modewatch is advisory: it never acts on the plant. Verify every
 //	GET  /api                         index and caution
 //	GET  /api/units                   every unit: state, latest scores and limits
 //	GET  /api/units/{unit}            one unit with its modes (channels, loadings)
-//	GET  /api/alerts                  open alert records
+//	GET  /api/alerts                  open alert records (?all=1: the recent ones, open or closed)
 //	POST /api/alerts/{op}             op = ack | shelve | unshelve; body {"alert_id", "by", ...}
 //	POST /api/units/{unit}/maintenance  body {"on": true, "by", "reason"}
 //	POST /api/commands                any operator command (alerts.Command JSON)
@@ -60,6 +60,10 @@ func (s *Service) routes() http.Handler {
 		writeJSON(w, http.StatusNotFound, map[string]string{"error": "no unit " + name})
 	})
 	mux.HandleFunc("GET /api/alerts", func(w http.ResponseWriter, r *http.Request) {
+		if r.URL.Query().Get("all") != "" {
+			writeJSON(w, http.StatusOK, s.Records())
+			return
+		}
 		recs := s.alertsOpen()
 		if recs == nil {
 			recs = []alerts.Record{}

@@ -15,6 +15,7 @@ import (
 	"net/http"
 	"os"
 	"path/filepath"
+	"sort"
 	"sync"
 	"sync/atomic"
 	"time"
@@ -71,6 +72,10 @@ type Service struct {
 	ln    net.Listener
 	met   *metrics
 
+	recMu  sync.Mutex
+	recent map[string]alerts.Record // latest revision of recent records, by id
+	recIDs []string                 // ids in order of first publication (bounded)
+
 	scoreSubj map[string]string
 	scoreEnc  pipeline.ScoreEncoder
 	scoreErrs atomic.Uint64
@@ -104,7 +109,7 @@ func Start(ctx context.Context, opt Options) (_ *Service, err error) {
 	if opt.Stdout == nil {
 		opt.Stdout = os.Stdout
 	}
-	s := &Service{cfg: cfg, opt: opt, log: log, scoreSubj: map[string]string{}, ckptNow: make(chan struct{}, 1), done: make(chan struct{})}
+	s := &Service{cfg: cfg, opt: opt, log: log, scoreSubj: map[string]string{}, recent: map[string]alerts.Record{}, ckptNow: make(chan struct{}, 1), done: make(chan struct{})}
 	defer func() {
 		if err != nil {
 			s.abort()
@@ -171,7 +176,7 @@ func Start(ctx context.Context, opt Options) (_ *Service, err error) {
 		return nil, fmt.Errorf("service: channel map: %w", err)
 	}
 	s.pl, err = pipeline.New(pipeline.Options{
-		Config: cfg, Channels: chans, Period: period, Publisher: s.sinks, OnScore: s.onScore, Baseline: baseline,
+		Config: cfg, Channels: chans, Period: period, Publisher: s, OnScore: s.onScore, Baseline: baseline,
 		Log: log,
 	})
 	if err != nil {
@@ -532,3 +537,36 @@ func (h minLevel) WithAttrs(a []slog.Attr) slog.Handler {
 	return minLevel{h.Handler.WithAttrs(a), h.min}
 }
 func (h minLevel) WithGroup(n string) slog.Handler { return minLevel{h.Handler.WithGroup(n), h.min} }
+
+// maxRecent bounds the records kept for Records and /api/alerts?all=1.
+const maxRecent = 1000
+
+// Publish hands a record revision to the sinks and keeps it for Records.
+func (s *Service) Publish(r *alerts.Record) {
+	s.recMu.Lock()
+	if _, seen := s.recent[r.ID]; !seen {
+		s.recIDs = append(s.recIDs, r.ID)
+		if len(s.recIDs) > maxRecent {
+			delete(s.recent, s.recIDs[0])
+			s.recIDs = s.recIDs[1:]
+		}
+	}
+	s.recent[r.ID] = *r
+	s.recMu.Unlock()
+	s.sinks.Publish(r)
+}
+
+// Records returns the latest revision of the recent incident records (at
+// most 1000, floods left out), open or closed, by start time.
+func (s *Service) Records() []alerts.Record {
+	s.recMu.Lock()
+	defer s.recMu.Unlock()
+	out := make([]alerts.Record, 0, len(s.recIDs))
+	for _, id := range s.recIDs {
+		if r := s.recent[id]; r.Kind != alerts.KindFlood {
+			out = append(out, r)
+		}
+	}
+	sort.SliceStable(out, func(i, j int) bool { return out[i].Start.Before(out[j].Start) })
+	return out
+}

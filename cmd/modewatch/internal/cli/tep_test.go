@@ -1,0 +1,256 @@
+package cli
+
+import (
+	"bufio"
+	"compress/gzip"
+	"fmt"
+	"os"
+	"path/filepath"
+	"strconv"
+	"strings"
+	"testing"
+	"time"
+
+	"github.com/influxdata/line-protocol/v2/lineprotocol"
+
+	"modewatch/cmd/modewatch/internal/pipeline"
+)
+
+// tepDir holds the Tennessee Eastman data copied for the tracker tests
+// (see its SOURCE.md, LICENSE and PUBLISHED.md).
+var tepDir = filepath.Join("..", "..", "..", "..", "tracker", "testdata", "tep")
+
+// Published PCA detection rates on d01_te … d21_te, samples 161–960, with
+// 11 components fitted on rows 21–500 of d00.dat and each limit at 1 %
+// false alarms on d00_te.dat (Russell, Chiang & Braatz 2000, Table (PCA);
+// recalled, confirmed by reproduction — tracker/testdata/tep/PUBLISHED.md).
+var (
+	tepT2 = [21]float64{.992, .980, .002, .044, .225, .989, .915, .966, .006, .334, .206, .971, .940, .842, .012, .166, .741, .887, .004, .299, .264}
+	tepQ  = [21]float64{.997, .986, .009, .962, .254, 1.000, 1.000, .976, .019, .341, .644, .975, .955, 1.000, .027, .245, .892, .899, .127, .450, .430}
+)
+
+// tepNames are the 52 variables in file order (SOURCE.md, "Format").
+func tepNames() []string {
+	var n []string
+	for i := 1; i <= 41; i++ {
+		n = append(n, fmt.Sprintf("xmeas%02d", i))
+	}
+	for i := 1; i <= 11; i++ {
+		n = append(n, fmt.Sprintf("xmv%02d", i))
+	}
+	return n
+}
+
+// readTEP reads a gzip-compressed .dat file: whitespace-separated numbers,
+// one observation per line, except d00.dat, stored transposed (52 lines of
+// 500 values), which is transposed here.
+func readTEP(t *testing.T, name string) [][]float64 {
+	t.Helper()
+	f, err := os.Open(filepath.Join(tepDir, name+".gz"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer f.Close()
+	zr, err := gzip.NewReader(f)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var rows [][]float64
+	sc := bufio.NewScanner(zr)
+	sc.Buffer(make([]byte, 1<<20), 1<<22)
+	for line := 1; sc.Scan(); line++ {
+		fs := strings.Fields(sc.Text())
+		if len(fs) == 0 {
+			continue
+		}
+		row := make([]float64, len(fs))
+		for i, s := range fs {
+			if row[i], err = strconv.ParseFloat(s, 64); err != nil {
+				t.Fatalf("%s:%d: field %d: %v", name, line, i+1, err)
+			}
+		}
+		rows = append(rows, row)
+	}
+	if err := sc.Err(); err != nil {
+		t.Fatal(err)
+	}
+	if name == "d00.dat" {
+		tr := make([][]float64, len(rows[0]))
+		for k := range tr {
+			tr[k] = make([]float64, len(rows))
+			for i := range rows {
+				tr[k][i] = rows[i][k]
+			}
+		}
+		rows = tr
+	}
+	for k, r := range rows {
+		if len(r) != 52 {
+			t.Fatalf("%s: observation %d has %d variables, want 52", name, k+1, len(r))
+		}
+	}
+	return rows
+}
+
+// tepStart is the (invented) time of the first sample of every file.
+var tepStart = time.Date(2026, 1, 5, 0, 0, 0, 0, time.UTC)
+
+// writeTEPLog writes rows as line protocol with the lineprotocol Encoder:
+// one line per sample, measurement "tep", one field per variable, samples
+// 180 s apart (SOURCE.md: 3-minute sampling).
+func writeTEPLog(t *testing.T, path string, rows [][]float64) {
+	t.Helper()
+	names := tepNames()
+	var enc lineprotocol.Encoder
+	enc.SetPrecision(lineprotocol.Second)
+	for k, r := range rows {
+		enc.StartLine("tep")
+		for i, v := range r {
+			enc.AddField(names[i], lineprotocol.MustNewValue(v))
+		}
+		enc.EndLine(tepStart.Add(time.Duration(k) * 180 * time.Second))
+	}
+	if err := enc.Err(); err != nil {
+		t.Fatal(err)
+	}
+	if err := os.WriteFile(path, enc.Bytes(), 0o644); err != nil {
+		t.Fatal(err)
+	}
+}
+
+// tepScores reads a --scores file and returns, per sample (in time order),
+// whether T² and SPE exceeded their limits.
+func tepScores(t *testing.T, path string, n int) (t2, spe []bool) {
+	t.Helper()
+	b, err := os.ReadFile(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	t2, spe = make([]bool, n), make([]bool, n)
+	seen := make([]bool, n)
+	dec := lineprotocol.NewDecoderWithBytes(b)
+	for dec.Next() {
+		if _, err := dec.Measurement(); err != nil {
+			t.Fatal(err)
+		}
+		for {
+			k, _, err := dec.NextTag()
+			if err != nil {
+				t.Fatal(err)
+			}
+			if k == nil {
+				break
+			}
+		}
+		f := map[string]float64{}
+		for {
+			k, v, err := dec.NextField()
+			if err != nil {
+				t.Fatal(err)
+			}
+			if k == nil {
+				break
+			}
+			if v.Kind() == lineprotocol.Float {
+				f[string(k)] = v.FloatV()
+			}
+		}
+		ts, err := dec.Time(lineprotocol.Nanosecond, time.Time{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		k := int(ts.Sub(tepStart) / (180 * time.Second))
+		if k < 0 || k >= n {
+			t.Fatalf("score at %v outside the %d samples", ts, n)
+		}
+		for _, key := range []string{"t2", "t2_limit", "spe", "spe_limit"} {
+			if _, ok := f[key]; !ok {
+				t.Fatalf("sample %d: score line without %s", k+1, key)
+			}
+		}
+		seen[k] = true
+		t2[k] = f["t2"] > f["t2_limit"]
+		spe[k] = f["spe"] > f["spe_limit"]
+	}
+	for k, ok := range seen {
+		if !ok {
+			t.Fatalf("no score for sample %d", k+1)
+		}
+	}
+	return t2, spe
+}
+
+// TestTennesseeEastmanCommands runs the Tennessee Eastman benchmark through
+// the commands, in-process: the .dat files become line protocol, "fit"
+// learns 11 dense modes from rows 21–500 of d00.dat with equal weights,
+// and "replay --model --adapt=false --limits empirical:d00_te" scores each
+// fault test set, writing --scores. The share of samples 161–960 whose T²
+// (SPE) exceeds its limit must match the published PCA detection rates
+// within 0.005 for all 21 faults, as the tracker-level test
+// (tracker/tep_test.go) does on the same data.
+func TestTennesseeEastmanCommands(t *testing.T) {
+	dir := t.TempDir()
+	train := readTEP(t, "d00.dat")
+	if len(train) != 500 {
+		t.Fatalf("d00.dat: %d observations, want 500", len(train))
+	}
+	trainLog := filepath.Join(dir, "d00_rows21-500.lp")
+	writeTEPLog(t, trainLog, train[20:500])
+	normalLog := filepath.Join(dir, "d00_te.lp")
+	writeTEPLog(t, normalLog, readTEP(t, "d00_te.dat"))
+	model := filepath.Join(dir, "tep.model")
+	if code, _, errs := runCLI(t, "", "fit", "--quiet", "--sparsity", "none", "--modes", "11", "--out", model, trainLog); code != ExitOK {
+		t.Fatalf("fit: exit %d: %s", code, errs)
+	}
+	mf, err := pipeline.ReadModel(model)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(mf.Units) != 1 || len(mf.Units[0].Channels) != 52 || len(mf.Units[0].Modes) != 11 || mf.Frames != 480 {
+		t.Fatalf("model: %d units, frames %d", len(mf.Units), mf.Frames)
+	}
+
+	replay := func(name string) (t2, spe []bool) {
+		lp := filepath.Join(dir, name+".lp")
+		if name != "d00_te" {
+			writeTEPLog(t, lp, readTEP(t, name+".dat"))
+		}
+		scores := filepath.Join(dir, name+".scores")
+		code, _, errs := runCLI(t, "", "replay", "--quiet", "--model", model, "--adapt=false",
+			"--limits", "empirical:"+normalLog, "--scores", scores, lp)
+		if code != ExitOK {
+			t.Fatalf("replay %s: exit %d: %s", name, code, errs)
+		}
+		return tepScores(t, scores, 960)
+	}
+	rate := func(x []bool, from int) float64 {
+		n := 0
+		for _, v := range x[from:] {
+			if v {
+				n++
+			}
+		}
+		return float64(n) / float64(len(x)-from)
+	}
+
+	// On the reference log itself the empirical limits let through at most
+	// 1 % (the 10th-largest of 960 is the limit: 9 values above it).
+	t2, spe := replay("d00_te")
+	if r0, r1 := rate(t2, 0), rate(spe, 0); r0 > 0.01 || r1 > 0.01 {
+		t.Errorf("false alarms on d00_te: T² %.4f, SPE %.4f; want ≤ 0.01", r0, r1)
+	}
+	var b strings.Builder
+	fmt.Fprintf(&b, "fault | T² published | T² commands | SPE published | SPE commands\n")
+	for f := 1; f <= 21; f++ {
+		t2, spe := replay(fmt.Sprintf("d%02d_te", f))
+		r0, r1 := rate(t2, 160), rate(spe, 160)
+		fmt.Fprintf(&b, "%5d | %.3f | %.3f | %.3f | %.3f\n", f, tepT2[f-1], r0, tepQ[f-1], r1)
+		if d := r0 - tepT2[f-1]; d > 0.005 || d < -0.005 {
+			t.Errorf("fault %d: T² detection %.3f, published %.3f", f, r0, tepT2[f-1])
+		}
+		if d := r1 - tepQ[f-1]; d > 0.005 || d < -0.005 {
+			t.Errorf("fault %d: SPE detection %.3f, published %.3f", f, r1, tepQ[f-1])
+		}
+	}
+	t.Log("\n" + b.String())
+}
