@@ -79,9 +79,9 @@ type AckTrackerStats struct {
 // again. Waiting ones are never forgotten; JetStream's MaxAckPending bounds
 // their number.
 //
-// After a restart, resume with the saved Checkpoint: give Checkpoint.Seq to
-// JetStreamConfig.StartAfter, so the server delivers everything after it
-// again in order, and skip frames starting before Checkpoint.Watermark,
+// After a restart, resume with the saved Checkpoint: give it to
+// JetStreamConfig.Resume, so the server delivers everything after its
+// sequence again in order, and skip frames starting before Checkpoint.Watermark,
 // which were processed before the checkpoint.
 //
 // Known limit: a value carried forward by the aligner (the latest value of
@@ -94,6 +94,8 @@ type AckTracker struct {
 	head     int
 	capacity int
 	last     uint64 // checkpoint sequence
+	floor    uint64 // server acknowledgement floor, once synced
+	synced   bool   // SetAckFloor was called
 	wm       time.Time
 	// minWait is at or below the smallest latest event time among the
 	// waiting messages (exact after a scan), so AckThrough can skip the scan
@@ -103,12 +105,14 @@ type AckTracker struct {
 	admitted, dups, acked, ackErrs, forgotten uint64
 }
 
-// NewAckTracker returns a tracker holding at most capacity messages (use at
-// least the consumer's MaxAckPending; 0 means 2·DefaultMaxAckPending),
+// NewAckTracker returns a tracker holding at most capacity messages: at
+// least the consumer's MaxAckPending, plus, with the floor sync
+// (JetStreamConfig.Tracker), the messages acknowledged in one FloorEvery
+// (0 means 4·DefaultMaxAckPending),
 // resuming from cp (the zero Checkpoint on first start).
 func NewAckTracker(capacity int, cp Checkpoint) *AckTracker {
 	if capacity <= 0 {
-		capacity = 2 * DefaultMaxAckPending
+		capacity = 4 * DefaultMaxAckPending
 	}
 	return &AckTracker{
 		pending:  make([]pendingMsg, 0, capacity),
@@ -256,16 +260,54 @@ func (t *AckTracker) AckThrough(w time.Time) (int, error) {
 		p.ack = nil
 	}
 	t.minWait = minWait
+	t.pop()
+	return n, first
+}
+
+// pop drops the acknowledged prefix of the held messages and advances the
+// checkpoint sequence over it: without a server floor, over every
+// acknowledged message in sequence order; with one (SetAckFloor), only up
+// to the floor.
+func (t *AckTracker) pop() {
 	for t.head < len(t.pending) && t.pending[t.head].done {
-		t.last = t.pending[t.head].seq
+		seq := t.pending[t.head].seq
+		if t.synced && seq > t.floor {
+			break
+		}
+		t.last = seq
 		t.pending[t.head] = pendingMsg{}
 		t.head++
+	}
+	if t.synced && t.floor > t.last {
+		t.last = t.floor
 	}
 	if t.head == len(t.pending) {
 		t.pending = t.pending[:0]
 		t.head = 0
 	}
-	return n, first
+}
+
+// SetAckFloor tells the tracker the consumer's acknowledgement floor on the
+// server (ConsumerInfo.AckFloor.Stream: every message up to it is
+// acknowledged there). From the first call on, the checkpoint sequence
+// advances only up to the floor, and acknowledged messages above it stay
+// held (within capacity) so that their redeliveries are recognised.
+//
+// Why: a message the server sent but this process never received (lost in
+// flight when the connection dropped) is not held here, and is not
+// acknowledged on the server, so the floor stops below it. Without the
+// floor the checkpoint would pass over it and its redelivery, after
+// AckWait, would be taken for an already processed message and dropped.
+// JSConsumer calls this itself when JetStreamConfig.Tracker is set. A floor
+// lower than a previous one is ignored.
+func (t *AckTracker) SetAckFloor(seq uint64) {
+	t.mu.Lock()
+	defer t.mu.Unlock()
+	if !t.synced || seq > t.floor {
+		t.floor = max(seq, t.floor)
+	}
+	t.synced = true
+	t.pop()
 }
 
 // Checkpoint returns the state to save with the model state.

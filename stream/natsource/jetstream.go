@@ -20,6 +20,11 @@ const (
 	DefaultPullBatch     = 256
 )
 
+// ErrCheckpointAhead reports a checkpoint sequence beyond the stream's last
+// message: the stream is not the one the checkpoint was taken on. Resuming
+// would drop every new message up to that sequence as already processed.
+var ErrCheckpointAhead = errors.New("natsource: checkpoint is ahead of the stream")
+
 // JetStreamConfig configures a durable pull consumer. Stream and Durable are
 // required; the rest has defaults.
 type JetStreamConfig struct {
@@ -60,18 +65,25 @@ type JetStreamConfig struct {
 	// MaxDeliver limits delivery attempts; 0 or negative = unlimited
 	// (default: a message is never given up).
 	MaxDeliver int
-	// StartAfter is the last processed stream sequence from the saved
-	// Checkpoint (0 when there is none). On start the consumer is reset so
-	// that the server delivers again, at once and in sequence order,
-	// everything after StartAfter, or, with StartAfter 0, everything after
-	// the consumer's acknowledgement floor. Without the reset, messages the
-	// previous process received but did not acknowledge would come back only
-	// after AckWait, behind newer ones, and their readings would arrive late
-	// for the aligner. Only one process may consume a durable at a time.
-	StartAfter uint64
+	// Resume is the Checkpoint saved with the model state (nil when there
+	// is none). On start the consumer is reset so that the server delivers
+	// again, at once and in sequence order, everything after Resume.Seq,
+	// or, with Resume nil, everything after the consumer's acknowledgement
+	// floor. Without the reset, messages the previous process received but
+	// did not acknowledge would come back only after AckWait, behind newer
+	// ones, and their readings would arrive late for the aligner. Only one
+	// process may consume a durable at a time.
+	Resume *Checkpoint
 	// NoReset skips that reset (e.g. when the durable is shared or the
 	// account may not reset consumers).
 	NoReset bool
+	// Tracker, if set, is kept informed of the consumer's acknowledgement
+	// floor on the server (AckTracker.SetAckFloor), at start and every
+	// FloorEvery (default 1 s), so that a message lost in flight is not
+	// taken for a processed one when it comes again. Recommended whenever
+	// an AckTracker is used.
+	Tracker    *AckTracker
+	FloorEvery time.Duration
 	// PullBatch is the number of messages the client buffers ahead of the
 	// handler; default 256, never more than MaxAckPending.
 	PullBatch int
@@ -105,6 +117,8 @@ type JetStreamStats struct {
 	AckErrors     uint64 // failed Ack calls (the message will come again)
 	HandlerErrors uint64
 	PullErrors    uint64 // transient errors of the pull iterator (logged)
+	DeliveryGaps  uint64 // deliveries that never arrived (lost in flight); redelivered after AckWait
+	FloorErrors   uint64 // failed acknowledgement-floor queries (Tracker set)
 }
 
 // JSConsumer is a running JetStream durable pull consumer; create it with
@@ -118,8 +132,13 @@ type JSConsumer struct {
 	done chan struct{}
 	once sync.Once
 	err  error // terminal error, set before done is closed
+	// ctx ends background calls (floor queries) at Stop or when run ends.
+	ctx    context.Context
+	cancel context.CancelFunc
 
 	delivered, redelivered, acked, ackErrs, handlerErrs, pullErrs atomic.Uint64
+	gaps, floorErrs                                               atomic.Uint64
+	lastDelivery                                                  uint64 // consumer (delivery) sequence of the last message; run goroutine only
 }
 
 // ConsumeJetStream binds to (or creates, see cfg) the durable pull consumer
@@ -138,7 +157,10 @@ func (c *Conn) ConsumeJetStream(ctx context.Context, cfg JetStreamConfig, h Hand
 	if err != nil {
 		return nil, fmt.Errorf("natsource: jetstream: %w", err)
 	}
-	if _, err := js.Stream(ctx, cfg.Stream); err != nil {
+	var firstSeq, lastSeq uint64
+	if st, err := js.Stream(ctx, cfg.Stream); err == nil {
+		firstSeq, lastSeq = st.CachedInfo().State.FirstSeq, st.CachedInfo().State.LastSeq
+	} else {
 		if !errors.Is(err, jetstream.ErrStreamNotFound) || !cfg.CreateStream {
 			return nil, fmt.Errorf("natsource: jetstream stream %q: %w", cfg.Stream, err)
 		}
@@ -158,6 +180,10 @@ func (c *Conn) ConsumeJetStream(ctx context.Context, cfg JetStreamConfig, h Hand
 		if _, err := js.CreateStream(ctx, sc); err != nil && !errors.Is(err, jetstream.ErrStreamNameAlreadyInUse) {
 			return nil, fmt.Errorf("natsource: create jetstream stream %q: %w", cfg.Stream, err)
 		}
+	}
+	if cfg.Resume != nil && cfg.Resume.Seq > lastSeq {
+		return nil, fmt.Errorf("%w: checkpoint stream seq %d, stream %q ends at %d (recreated or purged?); discard the checkpoint to start over",
+			ErrCheckpointAhead, cfg.Resume.Seq, cfg.Stream, lastSeq)
 	}
 	maxAck := cfg.MaxAckPending
 	if maxAck == 0 {
@@ -199,9 +225,16 @@ func (c *Conn) ConsumeJetStream(ctx context.Context, cfg JetStreamConfig, h Hand
 		return nil, fmt.Errorf("natsource: jetstream consumer %q on stream %q: %w", cfg.Durable, cfg.Stream, err)
 	}
 	if !cfg.NoReset {
-		if err := resetConsumer(ctx, js, cfg); err != nil {
+		if err := resetConsumer(ctx, js, cfg, firstSeq, lastSeq, c.log); err != nil {
 			return nil, err
 		}
+	}
+	if cfg.Tracker != nil {
+		ci, err := cons.Info(ctx)
+		if err != nil {
+			return nil, fmt.Errorf("natsource: jetstream consumer %q: %w", cfg.Durable, err)
+		}
+		cfg.Tracker.SetAckFloor(ci.AckFloor.Stream)
 	}
 	it, err := cons.Messages(jetstream.PullMaxMessages(batch), jetstream.WithMessagesErrOnMissingHeartbeat(false))
 	if err != nil {
@@ -214,14 +247,44 @@ func (c *Conn) ConsumeJetStream(ctx context.Context, cfg JetStreamConfig, h Hand
 		it:   it,
 		done: make(chan struct{}),
 	}
+	s.ctx, s.cancel = context.WithCancel(context.Background())
 	s.wg.Add(1)
 	go s.run()
+	if cfg.Tracker != nil {
+		s.wg.Add(1)
+		go s.syncFloor(cfg.Tracker, orDur(cfg.FloorEvery, time.Second))
+	}
 	return s, nil
+}
+
+// syncFloor passes the server's acknowledgement floor to tr until the
+// consumer stops.
+func (s *JSConsumer) syncFloor(tr *AckTracker, every time.Duration) {
+	defer s.wg.Done()
+	tick := time.NewTicker(every)
+	defer tick.Stop()
+	for {
+		select {
+		case <-s.done:
+			return
+		case <-tick.C:
+			ctx, cancel := context.WithTimeout(s.ctx, every)
+			ci, err := s.cons.Info(ctx)
+			cancel()
+			if err != nil {
+				s.floorErrs.Add(1)
+				s.log.Debug("consumer info", "err", err) // e.g. while reconnecting
+				continue
+			}
+			tr.SetAckFloor(ci.AckFloor.Stream)
+		}
+	}
 }
 
 func (s *JSConsumer) run() {
 	defer s.wg.Done()
 	defer close(s.done)
+	defer s.cancel()
 	for {
 		jm, err := s.it.Next()
 		if err != nil {
@@ -251,6 +314,17 @@ func (s *JSConsumer) run() {
 		if md.NumDelivered > 1 {
 			s.redelivered.Add(1)
 		}
+		// Delivery sequences count every delivery, redeliveries included;
+		// a jump means deliveries that never arrived (lost in flight while
+		// the connection dropped). The server sends them again after
+		// AckWait.
+		if d := md.Sequence.Consumer; s.lastDelivery != 0 && d > s.lastDelivery+1 {
+			k := d - s.lastDelivery - 1
+			s.gaps.Add(k)
+			s.log.Warn("deliveries missing; the server will send them again after AckWait",
+				"missing", k, "after_delivery_seq", s.lastDelivery)
+		}
+		s.lastDelivery = md.Sequence.Consumer
 		s.delivered.Add(1)
 		m := Msg{Subject: jm.Subject(), Data: jm.Data(), Seq: md.Sequence.Stream, Ack: func() error {
 			if err := jm.Ack(); err != nil {
@@ -273,9 +347,13 @@ func (s *JSConsumer) run() {
 // by ctx. Acknowledgements already made are flushed by Conn.Drain.
 // Idempotent.
 func (s *JSConsumer) Stop(ctx context.Context) error {
-	s.once.Do(func() { s.it.Stop() })
+	s.once.Do(func() {
+		s.cancel()
+		s.it.Stop()
+	})
 	select {
 	case <-s.done:
+		s.wg.Wait() // syncFloor ends promptly: its context is cancelled
 		return nil
 	case <-ctx.Done():
 		return fmt.Errorf("natsource: stop jetstream consumer: %w", ctx.Err())
@@ -315,21 +393,32 @@ func (s *JSConsumer) Stats() JetStreamStats {
 		AckErrors:     s.ackErrs.Load(),
 		HandlerErrors: s.handlerErrs.Load(),
 		PullErrors:    s.pullErrs.Load(),
+		DeliveryGaps:  s.gaps.Load(),
+		FloorErrors:   s.floorErrs.Load(),
 	}
 }
 
 // resetConsumer makes the server deliver again everything after
-// cfg.StartAfter (or after the acknowledgement floor) in sequence order.
-func resetConsumer(ctx context.Context, js jetstream.JetStream, cfg JetStreamConfig) error {
+// cfg.Resume.Seq (or after the acknowledgement floor) in sequence order.
+func resetConsumer(ctx context.Context, js jetstream.JetStream, cfg JetStreamConfig, firstSeq, lastSeq uint64, log *slog.Logger) error {
 	var err error
-	if cfg.StartAfter > 0 {
-		_, err = js.ResetConsumerToSequence(ctx, cfg.Stream, cfg.Durable, cfg.StartAfter+1)
+	switch {
+	case cfg.Resume == nil || lastSeq == 0:
+		_, err = js.ResetConsumer(ctx, cfg.Stream, cfg.Durable)
+	default:
+		seq := cfg.Resume.Seq + 1
+		if seq < firstSeq {
+			log.Warn("messages after the checkpoint are no longer in the stream (retention); resuming at the first available",
+				"checkpoint_seq", cfg.Resume.Seq, "first_seq", firstSeq, "stream", cfg.Stream)
+			seq = firstSeq
+		}
+		_, err = js.ResetConsumerToSequence(ctx, cfg.Stream, cfg.Durable, seq)
 		if errors.Is(err, jetstream.ErrConsumerInvalidReset) {
 			// e.g. DeliverNew: fall back to the acknowledgement floor.
+			log.Warn("cannot reset the consumer to the checkpoint; resuming after its acknowledgement floor",
+				"checkpoint_seq", cfg.Resume.Seq, "consumer", cfg.Durable)
 			_, err = js.ResetConsumer(ctx, cfg.Stream, cfg.Durable)
 		}
-	} else {
-		_, err = js.ResetConsumer(ctx, cfg.Stream, cfg.Durable)
 	}
 	if err != nil {
 		return fmt.Errorf("natsource: reset jetstream consumer %q on stream %q (set no_reset to skip): %w", cfg.Durable, cfg.Stream, err)

@@ -1,6 +1,7 @@
 package natsource
 
 import (
+	"errors"
 	"math/rand/v2"
 	"net"
 	"strconv"
@@ -58,7 +59,8 @@ type consumerRun struct {
 	count      chan int
 	loseAck    func(seq uint64, delivery int) bool // fault injection: drop this acknowledgement
 	deliveries map[uint64]int
-	limit      int // if > 0, the process "dies" after feeding this many: later messages are ignored
+	limit      int                                 // if > 0, the process "dies" after feeding this many: later messages are ignored
+	loseMsg    func(seq uint64, delivery int) bool // fault injection: this delivery never arrives
 }
 
 func startRun(t *testing.T, url string, cfg JetStreamConfig, cp Checkpoint, ts []time.Time, lag time.Duration) *consumerRun {
@@ -67,9 +69,13 @@ func startRun(t *testing.T, url string, cfg JetStreamConfig, cp Checkpoint, ts [
 	if err != nil {
 		t.Fatal(err)
 	}
+	tr := NewAckTracker(cfg.MaxAckPending, cp)
+	if cfg.FloorEvery > 0 {
+		cfg.Tracker = tr // tests opt in to the floor sync by setting FloorEvery
+	}
 	r := &consumerRun{
 		conn:       c,
-		tr:         NewAckTracker(cfg.MaxAckPending, cp),
+		tr:         tr,
 		processed:  map[uint64]int{},
 		payload:    map[uint64]int{},
 		deliveries: map[uint64]int{},
@@ -82,6 +88,9 @@ func startRun(t *testing.T, url string, cfg JetStreamConfig, cp Checkpoint, ts [
 		r.deliveries[m.Seq]++
 		if r.limit > 0 && len(r.processed) >= r.limit {
 			return nil
+		}
+		if r.loseMsg != nil && r.loseMsg(m.Seq, r.deliveries[m.Seq]) {
+			return nil // as if lost in flight: never seen, never acknowledged
 		}
 		if r.loseAck != nil && r.loseAck(m.Seq, r.deliveries[m.Seq]) {
 			m.Ack = func() error { return nil } // the acknowledgement never reaches the server
@@ -147,21 +156,27 @@ func (r *consumerRun) waitCount(t *testing.T, n int, d time.Duration) {
 func TestJetStreamCrashRestartExactlyOnce(t *testing.T) {
 	for _, tc := range []struct {
 		name     string
-		resume   func(cp Checkpoint) uint64 // JetStreamConfig.StartAfter of the second process
+		resume   func(cp Checkpoint) *Checkpoint // JetStreamConfig.Resume of the second process
 		wantDups bool
 	}{
 		// The server delivers everything after the checkpoint again.
-		{name: "reset to checkpoint", resume: func(cp Checkpoint) uint64 { return cp.Seq }},
+		{name: "reset to checkpoint", resume: func(cp Checkpoint) *Checkpoint { return &cp }},
 		// The server delivers everything after its acknowledgement floor
 		// again, which lies below the checkpoint because acknowledgements
 		// were lost; the tracker drops what is at or below its checkpoint.
-		{name: "reset to ack floor", resume: func(Checkpoint) uint64 { return 0 }, wantDups: true},
+		{name: "reset to ack floor", resume: func(Checkpoint) *Checkpoint { return nil }, wantDups: true},
 	} {
-		t.Run(tc.name, func(t *testing.T) { testCrashRestart(t, tc.resume, tc.wantDups) })
+		t.Run(tc.name, func(t *testing.T) { testCrashRestart(t, tc.resume, tc.wantDups, 0) })
 	}
+	// With the server's acknowledgement floor passed to the tracker (the
+	// recommended set-up), the checkpoint stays at or below the floor, which
+	// the lost acknowledgement of seq 3 holds at 2.
+	t.Run("floor sync", func(t *testing.T) {
+		testCrashRestart(t, func(cp Checkpoint) *Checkpoint { return &cp }, false, 10*time.Millisecond)
+	})
 }
 
-func testCrashRestart(t *testing.T, resume func(Checkpoint) uint64, wantDups bool) {
+func testCrashRestart(t *testing.T, resume func(Checkpoint) *Checkpoint, wantDups bool, floorEvery time.Duration) {
 	checkNoLeak(t)
 	s := runServer(t, testOpts(t))
 	const n = 400
@@ -169,7 +184,7 @@ func testCrashRestart(t *testing.T, resume func(Checkpoint) uint64, wantDups boo
 	cfg := JetStreamConfig{
 		Stream: "READINGS", Durable: "modewatch", CreateStream: true,
 		StreamSubjects: []string{"plant.readings.>"}, FilterSubjects: []string{"plant.readings.>"},
-		MaxAckPending: 64, PullBatch: 16,
+		MaxAckPending: 64, PullBatch: 16, FloorEvery: floorEvery,
 	}
 
 	r1 := startRun(t, s.ClientURL(), cfg, Checkpoint{}, ts, 20*time.Second)
@@ -187,7 +202,10 @@ func testCrashRestart(t *testing.T, resume func(Checkpoint) uint64, wantDups boo
 	st1 := r1.tr.Stats()
 	r1.mu.Unlock()
 	r1.conn.Close() // crash: no drain; waiting messages stay unacknowledged
-	if cp.Seq == 0 || st1.Waiting == 0 || st1.Held == st1.Waiting {
+	if floorEvery > 0 && cp.Seq > 2 {
+		t.Errorf("checkpoint seq %d above the server's floor (≤ 2)", cp.Seq)
+	}
+	if (cp.Seq == 0 && floorEvery == 0) || st1.Waiting == 0 || st1.Held == st1.Waiting {
 		t.Fatalf("checkpoint %+v, stats %+v: want some acknowledged, some out of order, some waiting", cp, st1)
 	}
 	// MaxAckPending bounds what the first process could hold unacknowledged.
@@ -196,7 +214,8 @@ func testCrashRestart(t *testing.T, resume func(Checkpoint) uint64, wantDups boo
 	}
 
 	r2 := startRun(t, s.ClientURL(), JetStreamConfig{
-		Stream: cfg.Stream, Durable: cfg.Durable, MaxAckPending: cfg.MaxAckPending, StartAfter: resume(cp),
+		Stream: cfg.Stream, Durable: cfg.Durable, MaxAckPending: cfg.MaxAckPending, Resume: resume(cp),
+		FloorEvery: floorEvery,
 	}, cp, ts, 0)
 	r2.mu.Lock()
 	r2.ackAll = true
@@ -464,4 +483,86 @@ func TestServerRestartReconnect(t *testing.T) {
 		t.Errorf("state %v after drain", c.State())
 	}
 	_ = s2
+}
+
+// TestJetStreamCheckpointAhead: a checkpoint from another incarnation of the
+// stream (sequence beyond its end) is refused instead of silently dropping
+// new messages as duplicates; so are incomplete configurations.
+func TestJetStreamCheckpointAhead(t *testing.T) {
+	checkNoLeak(t)
+	s := runServer(t, testOpts(t))
+	c, err := Connect(ctxT(t, 5*time.Second), Options{URLs: []string{s.ClientURL()}}, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer drainConn(t, c)
+	h := func(Msg) error { return nil }
+	cons, err := c.ConsumeJetStream(ctxT(t, 5*time.Second), JetStreamConfig{Stream: "A", Durable: "d", CreateStream: true, StreamSubjects: []string{"a"}}, h)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := cons.Stop(ctxT(t, 5*time.Second)); err != nil {
+		t.Fatal(err)
+	}
+	publishN(t, c.NATS(), "a", 1, 3)
+	_, err = c.ConsumeJetStream(ctxT(t, 5*time.Second), JetStreamConfig{Stream: "A", Durable: "d", Resume: &Checkpoint{Seq: 10}}, h)
+	if !errors.Is(err, ErrCheckpointAhead) {
+		t.Fatalf("checkpoint 10 on a stream ending at 3: %v, want ErrCheckpointAhead", err)
+	}
+	mustContain(t, err, "10", `"A"`, "3")
+	// Resuming exactly at the end is fine.
+	cons, err = c.ConsumeJetStream(ctxT(t, 5*time.Second), JetStreamConfig{Stream: "A", Durable: "d", Resume: &Checkpoint{Seq: 3}}, h)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := cons.Stop(ctxT(t, 5*time.Second)); err != nil {
+		t.Fatal(err)
+	}
+	_, err = c.ConsumeJetStream(ctxT(t, 5*time.Second), JetStreamConfig{Stream: "missing", Durable: "d"}, h)
+	if !errors.Is(err, jetstream.ErrStreamNotFound) {
+		t.Errorf("missing stream without create: %v", err)
+	}
+	_, err = c.ConsumeJetStream(ctxT(t, 5*time.Second), JetStreamConfig{CreateStream: true}, h)
+	if !errors.Is(err, ErrConfig) {
+		t.Fatalf("empty config: %v, want ErrConfig", err)
+	}
+	mustContain(t, err, "stream name is required", "durable consumer name is required", "create_stream needs stream_subjects")
+}
+
+// TestJetStreamLostDelivery: a delivery that never reaches the process
+// (lost in flight) is not acknowledged, so the server's acknowledgement
+// floor stops below it. With the floor passed to the tracker, the message
+// is admitted when the server sends it again after AckWait, although newer
+// messages were processed and acknowledged meanwhile.
+func TestJetStreamLostDelivery(t *testing.T) {
+	checkNoLeak(t)
+	s := runServer(t, testOpts(t))
+	const n, lost = 40, 10
+	ts := eventTimes(n)
+	r := startRun(t, s.ClientURL(), JetStreamConfig{
+		Stream: "L", Durable: "d", CreateStream: true, StreamSubjects: []string{"l"},
+		AckWait: 300 * time.Millisecond, FloorEvery: 20 * time.Millisecond,
+	}, Checkpoint{}, ts, 0)
+	r.mu.Lock()
+	r.ackAll = true
+	r.loseMsg = func(seq uint64, delivery int) bool { return seq == lost && delivery == 1 }
+	r.mu.Unlock()
+	publishN(t, r.conn.NATS(), "l", 1, n)
+	r.waitCount(t, n, 10*time.Second)
+	r.mu.Lock()
+	for seq := uint64(1); seq <= n; seq++ {
+		if r.processed[seq] != 1 {
+			t.Errorf("seq %d fed %d times, want 1", seq, r.processed[seq])
+		}
+	}
+	r.mu.Unlock()
+	waitFor(t, 10*time.Second, "floor at the end", func() bool {
+		ci, err := r.cons.Info(ctxT(t, 2*time.Second))
+		return err == nil && ci.AckFloor.Stream == n && ci.NumAckPending == 0
+	})
+	waitFor(t, 5*time.Second, "checkpoint at the end", func() bool { return r.tr.Checkpoint().Seq == n })
+	if err := r.cons.Stop(ctxT(t, 5*time.Second)); err != nil {
+		t.Fatal(err)
+	}
+	drainConn(t, r.conn)
 }
