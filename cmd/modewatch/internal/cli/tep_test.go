@@ -12,6 +12,7 @@ import (
 	"time"
 
 	"github.com/influxdata/line-protocol/v2/lineprotocol"
+	"gonum.org/v1/gonum/floats/scalar"
 
 	"modewatch/cmd/modewatch/internal/pipeline"
 )
@@ -102,7 +103,6 @@ func writeTEPLog(t *testing.T, path string, rows [][]float64) {
 	t.Helper()
 	names := tepNames()
 	var enc lineprotocol.Encoder
-	enc.SetPrecision(lineprotocol.Second)
 	for k, r := range rows {
 		enc.StartLine("tep")
 		for i, v := range r {
@@ -245,10 +245,17 @@ func TestTennesseeEastmanCommands(t *testing.T) {
 		t2, spe := replay(fmt.Sprintf("d%02d_te", f))
 		r0, r1 := rate(t2, 160), rate(spe, 160)
 		fmt.Fprintf(&b, "%5d | %.3f | %.3f | %.3f | %.3f\n", f, tepT2[f-1], r0, tepQ[f-1], r1)
-		if d := r0 - tepT2[f-1]; d > 0.005 || d < -0.005 {
+		// Within 0.005 inclusive (1e-9 for the binary representation of
+		// the decimals). Fault 21 sits at the edge for SPE, 0.435 against
+		// 0.430 (4 of 800 samples): it fixes the stream 4 valve, so XMV(4)
+		// repeats one value for 801 samples, and the command path's
+		// flat-line rule (60 identical frames, tracker.DefaultFlatFrames)
+		// takes that channel out of the model as stuck, where the
+		// tracker-level test switches the rule off.
+		if !scalar.EqualWithinAbs(r0, tepT2[f-1], 0.005+1e-9) {
 			t.Errorf("fault %d: T² detection %.3f, published %.3f", f, r0, tepT2[f-1])
 		}
-		if d := r1 - tepQ[f-1]; d > 0.005 || d < -0.005 {
+		if !scalar.EqualWithinAbs(r1, tepQ[f-1], 0.005+1e-9) {
 			t.Errorf("fault %d: SPE detection %.3f, published %.3f", f, r1, tepQ[f-1])
 		}
 	}
