@@ -65,7 +65,9 @@ type AckTrackerStats struct {
 //
 // Messages are acknowledged as soon as they qualify, not necessarily in
 // sequence order; the checkpoint sequence advances over the contiguous
-// acknowledged prefix only. A message is a redelivery if its sequence is at
+// acknowledged prefix only, and, once the server's acknowledgement floor is
+// known (SetAckFloor, done by JSConsumer when JetStreamConfig.Tracker is
+// set), no further than that floor. A message is a redelivery if its sequence is at
 // or below the checkpoint sequence or among the messages held: if it is
 // still waiting, its newer acknowledgement handle replaces the old one (the
 // old delivery may have expired); if it was processed already it is
@@ -74,9 +76,9 @@ type AckTrackerStats struct {
 // acknowledgement for after newer ones).
 //
 // Memory is bounded: at most capacity messages are held. When that many are
-// held, acknowledged ones behind an unacknowledged one are forgotten
-// (counted in Forgotten); should such a message come again it is processed
-// again. Waiting ones are never forgotten; JetStream's MaxAckPending bounds
+// held, acknowledged ones behind an unacknowledged one or above the floor
+// are forgotten (counted in Forgotten); should such a message come again
+// it is processed again. Waiting ones are never forgotten; JetStream's MaxAckPending bounds
 // their number.
 //
 // After a restart, resume with the saved Checkpoint: give it to
@@ -108,8 +110,8 @@ type AckTracker struct {
 // NewAckTracker returns a tracker holding at most capacity messages: at
 // least the consumer's MaxAckPending, plus, with the floor sync
 // (JetStreamConfig.Tracker), the messages acknowledged in one FloorEvery
-// (0 means 4·DefaultMaxAckPending),
-// resuming from cp (the zero Checkpoint on first start).
+// (0 means 4·DefaultMaxAckPending), resuming from cp (the zero Checkpoint
+// on first start).
 func NewAckTracker(capacity int, cp Checkpoint) *AckTracker {
 	if capacity <= 0 {
 		capacity = 4 * DefaultMaxAckPending

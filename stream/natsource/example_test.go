@@ -2,10 +2,12 @@ package natsource_test
 
 import (
 	"context"
+	"errors"
 	"fmt"
 	"os"
 	"time"
 
+	"modewatch/stream"
 	"modewatch/stream/natsource"
 )
 
@@ -79,4 +81,78 @@ func ExampleConn_SubscribeCore() {
 	// Output:
 	// plant.readings.coolwater: coolwater,asset=pump2 flow=12.5 1772366400000000000
 	// closed
+}
+
+// The JetStream wiring of the service: a durable consumer feeds
+// stream.Intake, an AckTracker acknowledges by the intake's watermark, and
+// the checkpoint (saved with the model state) resumes it after a restart.
+func ExampleConn_ConsumeJetStream() {
+	ctx, cancel := context.WithTimeout(context.Background(), 20*time.Second)
+	defer cancel()
+	dir, err := os.MkdirTemp("", "natsource-example")
+	if err != nil {
+		fmt.Println(err)
+		return
+	}
+	defer os.RemoveAll(dir)
+	srv, err := natsource.StartEmbedded(ctx, natsource.EmbeddedConfig{Port: -1, StoreDir: dir}, nil)
+	if err != nil {
+		fmt.Println(err)
+		return
+	}
+	defer srv.Shutdown()
+	conn, err := natsource.Connect(ctx, natsource.Options{URLs: []string{srv.ClientURL()}}, nil)
+	if err != nil {
+		fmt.Println(err)
+		return
+	}
+	defer conn.Drain(ctx)
+
+	var saved *natsource.Checkpoint // loaded with the model state; nil on first start
+	var cp natsource.Checkpoint
+	if saved != nil {
+		cp = *saved
+	}
+	ch, _ := stream.NewChannels(nil, 0)
+	frames := make(chan string, 16)
+	in, _ := stream.NewIntake(ch, stream.Options{Align: stream.AlignConfig{Period: time.Second}},
+		func(f *stream.Frame) error {
+			if f.Start.Before(cp.Watermark) {
+				return nil // processed before the checkpoint
+			}
+			frames <- fmt.Sprint(f.Start.Format("15:04:05"), " ", f.Values)
+			return nil
+		})
+	tr := natsource.NewAckTracker(0, cp)
+	cons, err := conn.ConsumeJetStream(ctx, natsource.JetStreamConfig{
+		Stream: "PLANT", Durable: "modewatch", CreateStream: true, StreamSubjects: []string{"plant.readings.>"},
+		Resume: saved, Tracker: tr,
+	}, func(m natsource.Msg) error {
+		if !tr.Admit(m) {
+			return nil
+		}
+		latest, err := in.Feed(m.Subject, m.Data)
+		if addErr := tr.Add(m, latest); addErr != nil {
+			return addErr
+		}
+		_, ackErr := tr.AckThrough(in.Watermark())
+		return errors.Join(err, ackErr)
+	})
+	if err != nil {
+		fmt.Println(err)
+		return
+	}
+	for s := 0; s < 4; s++ {
+		line := fmt.Sprintf("coolwater,asset=pump2 flow=%d %d", 40+s, time.Date(2026, 3, 1, 6, 0, s, 0, time.UTC).UnixNano())
+		conn.NATS().Publish("plant.readings.coolwater", []byte(line))
+	}
+	// Frames are emitted once event time passes their end plus one period.
+	fmt.Println(<-frames)
+	fmt.Println(<-frames)
+	cons.Stop(ctx)
+	fmt.Println("checkpoint seq ≤ 2:", tr.Checkpoint().Seq <= 2, "watermark:", tr.Checkpoint().Watermark.Format("15:04:05"))
+	// Output:
+	// 06:00:00 [40]
+	// 06:00:01 [41]
+	// checkpoint seq ≤ 2: true watermark: 06:00:02
 }
