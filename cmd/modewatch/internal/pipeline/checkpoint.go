@@ -1,6 +1,7 @@
 package pipeline
 
 import (
+	"bytes"
 	"errors"
 	"fmt"
 	"os"
@@ -8,6 +9,8 @@ import (
 	"sort"
 	"strings"
 	"time"
+
+	"modewatch/cmd/modewatch/internal/store"
 )
 
 // A unit checkpoint is a model file holding that one unit with its live
@@ -21,13 +24,23 @@ func CheckpointPath(dir, unit string) string {
 	return filepath.Join(dir, unit+checkpointSuffix)
 }
 
-// Checkpoint returns the state of every unit that has a model, under the
-// pipeline's lock so that each unit is captured between two frames.
-func (p *Pipeline) Checkpoint() ([]*ModelFile, error) {
+// AlertsFile is the file of the alarm engine's state in a checkpoint
+// directory. The alarm engine spans the units, so its state is one file,
+// captured between the same two frames as the units' checkpoints.
+const AlertsFile = "alerts.snapshot.json"
+
+// Checkpoint returns the state of every unit that has a model and the
+// alarm engine's state, under the pipeline's lock so that everything is
+// captured between the same two frames.
+func (p *Pipeline) Checkpoint() ([]*ModelFile, []byte, error) {
 	p.mu.Lock()
 	defer p.mu.Unlock()
 	var out []*ModelFile
 	var errs []error
+	var snap bytes.Buffer
+	if err := p.alerts.Snapshot(&snap); err != nil {
+		errs = append(errs, err)
+	}
 	for _, u := range p.Units() {
 		if u.tr == nil || u.failed != nil {
 			continue
@@ -48,15 +61,21 @@ func (p *Pipeline) Checkpoint() ([]*ModelFile, error) {
 				Modes: u.modesView(), State: state}},
 		})
 	}
-	return out, errors.Join(errs...)
+	return out, snap.Bytes(), errors.Join(errs...)
 }
 
-// WriteCheckpoints writes every unit's checkpoint into dir atomically and
-// returns how many were written.
+// WriteCheckpoints writes every unit's checkpoint and the alarm engine's
+// state into dir, each file atomically, and returns how many units were
+// written.
 func (p *Pipeline) WriteCheckpoints(dir string) (int, error) {
-	cks, err := p.Checkpoint()
+	cks, snap, err := p.Checkpoint()
 	if mkErr := os.MkdirAll(dir, 0o755); mkErr != nil {
 		return 0, fmt.Errorf("pipeline: %w", mkErr)
+	}
+	if len(snap) > 0 {
+		if werr := store.WriteFile(filepath.Join(dir, AlertsFile), snap, 0o644); werr != nil {
+			err = errors.Join(err, werr)
+		}
 	}
 	n := 0
 	for _, ck := range cks {
@@ -169,4 +188,22 @@ func (p *Pipeline) baselineUnit(name string) *ModelUnit {
 		}
 	}
 	return nil
+}
+
+// RestoreAlerts restores the alarm engine's state from dir (after the
+// units, so that frozen units are frozen again). A missing file is no
+// error; a damaged one is, and leaves the engine as it was.
+func (p *Pipeline) RestoreAlerts(dir string) (bool, error) {
+	f, err := os.Open(filepath.Join(dir, AlertsFile))
+	if err != nil {
+		if errors.Is(err, os.ErrNotExist) {
+			return false, nil
+		}
+		return false, fmt.Errorf("pipeline: %w", err)
+	}
+	defer f.Close()
+	if err := p.alerts.Restore(f); err != nil {
+		return false, fmt.Errorf("pipeline: %s: %w", AlertsFile, err)
+	}
+	return true, nil
 }

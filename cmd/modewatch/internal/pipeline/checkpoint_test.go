@@ -4,11 +4,13 @@ import (
 	"bytes"
 	"context"
 	"errors"
+	"fmt"
 	"os"
 	"path/filepath"
 	"testing"
 	"time"
 
+	"modewatch/alerts"
 	"modewatch/configs"
 	"modewatch/stream"
 )
@@ -60,10 +62,9 @@ func TestCheckpointRestore(t *testing.T) {
 	const period = 20 * time.Second
 	data := demoBytes(t, 4)
 	ch, frames := collectFrames(t, data, period)
-	// The alarm engine's state is not part of the checkpoint, so learning
-	// is not frozen by alerts here: the test is about the models.
-	noFreeze := false
-	cfg := &configs.Config{Model: configs.Model{WarmUp: 100}, Alerts: configs.Alerts{FreezeOnAlert: &noFreeze}}
+	// Learning is frozen while alerts are active, so the alarm engine's
+	// state must come back too for the scores to match.
+	cfg := &configs.Config{Model: configs.Model{WarmUp: 100}}
 	cfg.ApplyDefaults()
 
 	record := func(dst map[string][]scoreRec) func(u *Unit, _ time.Time) {
@@ -72,8 +73,20 @@ func TestCheckpointRestore(t *testing.T) {
 			dst[u.Name] = append(dst[u.Name], scoreRec{s.T2, s.SPE, s.Ready})
 		}
 	}
+	type pub struct {
+		id      string
+		rev     int
+		updated time.Time
+		end     bool
+	}
+	publisher := func(dst *[]pub) alerts.Publisher {
+		return alerts.PublisherFunc(func(r *alerts.Record) {
+			*dst = append(*dst, pub{r.ID, r.Revision, r.Updated, r.End != nil})
+		})
+	}
+	var wholePubs, secondPubs []pub
 	whole := map[string][]scoreRec{}
-	pa, err := New(Options{Config: cfg, Channels: ch, Period: period, OnScore: record(whole)})
+	pa, err := New(Options{Config: cfg, Channels: ch, Period: period, OnScore: record(whole), Publisher: publisher(&wholePubs)})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -94,13 +107,30 @@ func TestCheckpointRestore(t *testing.T) {
 		t.Fatalf("read %d checkpoints: %v", len(cks), errs)
 	}
 	second := map[string][]scoreRec{}
-	pc, _ := New(Options{Config: cfg, Channels: ch, Period: period, OnScore: record(second)})
+	pc, _ := New(Options{Config: cfg, Channels: ch, Period: period, OnScore: record(second), Publisher: publisher(&secondPubs)})
 	restored, errs := pc.Restore(cks)
 	if len(errs) > 0 || len(restored) != 4 {
 		t.Fatalf("restored %v: %v", restored, errs)
 	}
+	if ok, err := pc.RestoreAlerts(dir); !ok || err != nil {
+		t.Fatalf("alarm state: %v %v", ok, err)
+	}
 	// Redeliver 10 frames from before the checkpoint, then the rest.
 	runFrames(t, pc, frames[half-10:], nil)
+	// The alert records published after the checkpoint are the same.
+	boundary := frames[half-1].Start
+	var want []pub
+	for _, p := range wholePubs {
+		if p.updated.After(boundary) {
+			want = append(want, p)
+		}
+	}
+	if len(want) == 0 {
+		t.Log("no alert revisions after the checkpoint in this stretch of data")
+	}
+	if fmt.Sprint(want) != fmt.Sprint(secondPubs) {
+		t.Errorf("alert revisions after restore:\n%v\nuninterrupted:\n%v", secondPubs, want)
+	}
 	for unit, all := range whole {
 		if got, want := len(first[unit])+len(second[unit]), len(all); got != want {
 			t.Errorf("unit %s: %d + %d frames scored, uninterrupted %d", unit, len(first[unit]), len(second[unit]), want)

@@ -347,6 +347,11 @@ func (s *Service) restore() {
 			}
 		}
 	}
+	if ok, err := s.pl.RestoreAlerts(dir); err != nil {
+		s.log.Warn("alarm state not restored; alarms start from normal", "err", err)
+	} else if ok {
+		s.log.Info("alarm state restored from checkpoint", "dir", dir)
+	}
 	if len(cks) == 0 && len(errs) == 0 {
 		s.log.Info("no checkpoints: every unit starts with a warm-up", "dir", dir)
 	}
