@@ -3,6 +3,7 @@ package natsource
 import (
 	"errors"
 	"fmt"
+	"net"
 	"slices"
 	"sync"
 	"testing"
@@ -229,5 +230,61 @@ func TestCoreOverflowBytes(t *testing.T) {
 	}
 	if st := sub.Stats(); st.Delivered != 11 || st.QueuedBytes != 0 {
 		t.Errorf("after stop %+v, want 11 delivered, 0 bytes queued", st)
+	}
+}
+
+// TestCoreAcrossServerRestart: a core subscription resumes by itself after
+// the server comes back on the same port (messages published while it was
+// down are gone: core NATS is at most once).
+func TestCoreAcrossServerRestart(t *testing.T) {
+	checkNoLeak(t)
+	opts := testOpts(t)
+	s1 := runServer(t, opts)
+	ev := newEventRecorder()
+	c, err := Connect(ctxT(t, 5*time.Second), Options{
+		URLs: []string{s1.ClientURL()}, ReconnectWait: 20 * time.Millisecond, MaxReconnectWait: 100 * time.Millisecond, OnEvent: ev.on,
+	}, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer drainConn(t, c)
+	got := make(chan string, 16)
+	sub, err := c.SubscribeCore(ctxT(t, 5*time.Second), CoreConfig{Subjects: []string{"live.>"}}, func(m Msg) error {
+		got <- string(m.Data)
+		return nil
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer sub.Stop(ctxT(t, 5*time.Second))
+	port := s1.Addr().(*net.TCPAddr).Port
+	s1.Shutdown()
+	s1.WaitForShutdown()
+	ev.wait(t, EventDisconnected, 10*time.Second)
+	o2 := *opts
+	o2.Port = port
+	s2 := runServer(t, &o2)
+	ev.wait(t, EventReconnected, 20*time.Second)
+	pub, err := Connect(ctxT(t, 5*time.Second), Options{URLs: []string{s2.ClientURL()}}, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer pub.Close()
+	// The subscription is re-established on reconnect; flush the
+	// subscriber's connection so the server has its interest before the
+	// publish.
+	if err := c.NATS().Flush(); err != nil {
+		t.Fatal(err)
+	}
+	if err := pub.NATS().Publish("live.a", []byte("after")); err != nil {
+		t.Fatal(err)
+	}
+	select {
+	case m := <-got:
+		if m != "after" {
+			t.Errorf("got %q", m)
+		}
+	case <-time.After(10 * time.Second):
+		t.Fatal("no message after the restart")
 	}
 }

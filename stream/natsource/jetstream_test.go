@@ -566,3 +566,35 @@ func TestJetStreamLostDelivery(t *testing.T) {
 	}
 	drainConn(t, r.conn)
 }
+
+// TestJetStreamDoneOnClose: when the connection closes under a running
+// consumer, Done is closed and Err says why.
+func TestJetStreamDoneOnClose(t *testing.T) {
+	checkNoLeak(t)
+	s := runServer(t, testOpts(t))
+	c, err := Connect(ctxT(t, 5*time.Second), Options{URLs: []string{s.ClientURL()}}, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	cons, err := c.ConsumeJetStream(ctxT(t, 5*time.Second), JetStreamConfig{
+		Stream: "C", Durable: "d", CreateStream: true, StreamSubjects: []string{"c"},
+	}, func(Msg) error { return nil })
+	if err != nil {
+		t.Fatal(err)
+	}
+	if cons.Err() != nil {
+		t.Fatalf("Err before done: %v", cons.Err())
+	}
+	c.Close()
+	select {
+	case <-cons.Done():
+	case <-time.After(10 * time.Second):
+		t.Fatal("consumer not done after the connection closed")
+	}
+	if !errors.Is(cons.Err(), ErrClosed) {
+		t.Errorf("Err = %v, want ErrClosed", cons.Err())
+	}
+	if err := cons.Stop(ctxT(t, time.Second)); err != nil {
+		t.Errorf("Stop after done: %v", err)
+	}
+}
