@@ -1,0 +1,53 @@
+package cli
+
+import (
+	"fmt"
+	"time"
+
+	"modewatch/cmd/modewatch/internal/evaluate"
+	"modewatch/cmd/modewatch/internal/pipeline"
+	"modewatch/cmd/modewatch/internal/report"
+)
+
+// writeReport writes the replay --report directory: the summary (the
+// --json object), the units with their modes, the collected score series,
+// the alerts and, with a truth file, the episodes and metrics.
+func writeReport(env IO, dir string, inputs []string, sum *summary, res *pipeline.ReplayResult, rec *recorder,
+	tr *evaluate.Truth, grace time.Duration, col *report.Collector, quiet bool) error {
+	in := &report.Input{
+		Title:     "modewatch replay report",
+		Inputs:    inputs,
+		Summary:   sum,
+		Units:     res.Pipeline.Views(),
+		Metrics:   sum.Metrics,
+		Grace:     grace,
+		Collector: col,
+		Generated: time.Now(),
+	}
+	if tr != nil {
+		in.Episodes = tr.Episodes
+	}
+	for _, r := range rec.incidents() {
+		a := report.Alert{ID: r.ID, Unit: r.Unit, Start: r.Start, End: r.End, Severity: r.Severity,
+			Statistic: r.Peak.Statistic, Ratio: r.Peak.Ratio}
+		for i, c := range r.Contributors {
+			if i == 3 {
+				break
+			}
+			a.Top = append(a.Top, c.Channel)
+		}
+		if len(a.Top) == 0 && r.Quality != nil {
+			a.Statistic = r.Quality.Kind
+			a.Top = []string{r.Quality.Channel}
+		}
+		in.Alerts = append(in.Alerts, a)
+	}
+	index, err := report.Write(dir, in)
+	if err != nil {
+		return err
+	}
+	if !quiet {
+		fmt.Fprintf(env.Err, "report written to %s\n", index)
+	}
+	return nil
+}
