@@ -18,6 +18,7 @@ import (
 	"modewatch/alerts/sink"
 	"modewatch/cmd/modewatch/internal/evaluate"
 	"modewatch/cmd/modewatch/internal/pipeline"
+	"modewatch/cmd/modewatch/internal/report"
 	"modewatch/configs"
 	"modewatch/stream"
 )
@@ -82,6 +83,8 @@ func runReplay(ctx context.Context, env IO, args []string) error {
 	fs.StringVar(&out.scores, "scores", "", "write one line-protocol score line per frame and unit to `FILE`")
 	fs.StringVar(&out.alerts, "alerts", "", "write every alert record revision as JSON lines to `FILE`")
 	fs.BoolVar(&asJSON, "json", false, "print a JSON summary on standard output")
+	var reportDir string
+	fs.StringVar(&reportDir, "report", "", "write a self-contained HTML report with SVG charts into `DIR` (DIR/index.html)")
 	fs.BoolVar(&out.quiet, "quiet", false, "print only errors on standard error")
 	fs.IntVar(&out.maxErrs, "max-errors", 20, "print at most `N` bad lines (all are counted)")
 	pos, err := parseAll(fs, args)
@@ -112,6 +115,11 @@ func runReplay(ctx context.Context, env IO, args []string) error {
 			return usagef("--truth: %v", err)
 		}
 	}
+	var col *report.Collector
+	if reportDir != "" {
+		col = report.NewCollector()
+		out.onScore = col.Observe
+	}
 	res, rec, err := runEngine(ctx, env, cfg, inputs, baseline, false, false, out)
 	if res == nil {
 		return err
@@ -120,6 +128,11 @@ func runReplay(ctx context.Context, env IO, args []string) error {
 	if tr != nil {
 		m := evaluate.Compute(rec.alertsForMetrics(), tr.Episodes, sum.span, grace)
 		sum.Metrics = &m
+	}
+	if reportDir != "" {
+		if rerr := writeReport(env, reportDir, inputs, sum, res, rec, tr, grace, col, out.quiet); rerr != nil && err == nil {
+			err = rerr
+		}
 	}
 	if asJSON {
 		enc := json.NewEncoder(env.Out)
