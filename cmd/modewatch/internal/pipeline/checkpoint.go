@@ -15,8 +15,9 @@ import (
 
 // A unit checkpoint is a model file holding that one unit with its live
 // tracker state (not refreshed, not frozen), written atomically to
-// <dir>/<unit>.ckpt.json. A unit's checkpoint depends on no other unit, so
-// it can be moved to another service instance.
+// <generation dir>/<unit>.ckpt.json (see WriteCheckpoints). A unit's
+// checkpoint depends on no other unit, so it can be moved to another
+// service instance.
 const checkpointSuffix = ".ckpt.json"
 
 // CheckpointPath returns the checkpoint file of unit in dir.
@@ -64,34 +65,83 @@ func (p *Pipeline) Checkpoint() ([]*ModelFile, []byte, error) {
 	return out, snap.Bytes(), errors.Join(errs...)
 }
 
+// CurrentFile names, inside a checkpoint directory, the generation
+// directory that holds the latest complete checkpoint.
+const CurrentFile = "CURRENT"
+
 // WriteCheckpoints writes every unit's checkpoint and the alarm engine's
-// state into dir, each file atomically, and returns how many units were
-// written.
+// state as one generation: a new directory dir/gen-<n> with one file per
+// unit and the alarm file, each written atomically, and then the CURRENT
+// file naming it, also atomically. A crash at any point leaves CURRENT on
+// the previous complete generation, so units and alarms are never restored
+// from different moments. Older generations are removed afterwards. It
+// returns how many units were written.
 func (p *Pipeline) WriteCheckpoints(dir string) (int, error) {
 	cks, snap, err := p.Checkpoint()
-	if mkErr := os.MkdirAll(dir, 0o755); mkErr != nil {
-		return 0, fmt.Errorf("pipeline: %w", mkErr)
+	if err != nil {
+		return 0, err
+	}
+	if err := os.MkdirAll(dir, 0o755); err != nil {
+		return 0, fmt.Errorf("pipeline: %w", err)
+	}
+	gen := fmt.Sprintf("gen-%020d", time.Now().UnixNano())
+	gdir := filepath.Join(dir, gen)
+	if err := os.Mkdir(gdir, 0o755); err != nil {
+		return 0, fmt.Errorf("pipeline: %w", err)
 	}
 	if len(snap) > 0 {
-		if werr := store.WriteFile(filepath.Join(dir, AlertsFile), snap, 0o644); werr != nil {
-			err = errors.Join(err, werr)
+		if err := store.WriteFile(filepath.Join(gdir, AlertsFile), snap, 0o644); err != nil {
+			return 0, err
 		}
 	}
-	n := 0
 	for _, ck := range cks {
-		if werr := WriteModel(CheckpointPath(dir, ck.Units[0].Name), ck); werr != nil {
-			err = errors.Join(err, werr)
-			continue
+		if err := WriteModel(CheckpointPath(gdir, ck.Units[0].Name), ck); err != nil {
+			return 0, err
 		}
-		n++
 	}
-	return n, err
+	if err := store.WriteFile(filepath.Join(dir, CurrentFile), []byte(gen+"\n"), 0o644); err != nil {
+		return 0, err
+	}
+	if ents, err := os.ReadDir(dir); err == nil {
+		for _, e := range ents {
+			if e.IsDir() && strings.HasPrefix(e.Name(), "gen-") && e.Name() != gen {
+				os.RemoveAll(filepath.Join(dir, e.Name()))
+			}
+		}
+	}
+	return len(cks), nil
+}
+
+// currentDir returns the directory of the latest complete checkpoint in
+// dir: the generation CURRENT names, or dir itself when there is no
+// CURRENT (unit checkpoint files placed there by hand, for example moved
+// from another instance).
+func currentDir(dir string) (string, error) {
+	b, err := os.ReadFile(filepath.Join(dir, CurrentFile))
+	if errors.Is(err, os.ErrNotExist) {
+		return dir, nil
+	}
+	if err != nil {
+		return "", fmt.Errorf("pipeline: %w", err)
+	}
+	gen := strings.TrimSpace(string(b))
+	if !strings.HasPrefix(gen, "gen-") || strings.ContainsAny(gen, "/\\") {
+		return "", fmt.Errorf("%w: %s names %q, not a checkpoint generation", ErrModelFile, filepath.Join(dir, CurrentFile), gen)
+	}
+	return filepath.Join(dir, gen), nil
 }
 
 // ReadCheckpoints reads every unit checkpoint in dir. Files that cannot be
 // used are returned as errors (one per file) and left out; a missing dir
 // is no error.
 func ReadCheckpoints(dir string) ([]*ModelFile, []error) {
+	if _, err := os.Stat(dir); errors.Is(err, os.ErrNotExist) {
+		return nil, nil
+	}
+	dir, err := currentDir(dir)
+	if err != nil {
+		return nil, []error{err}
+	}
 	ents, err := os.ReadDir(dir)
 	if err != nil {
 		if errors.Is(err, os.ErrNotExist) {
@@ -194,6 +244,13 @@ func (p *Pipeline) baselineUnit(name string) *ModelUnit {
 // units, so that frozen units are frozen again). A missing file is no
 // error; a damaged one is, and leaves the engine as it was.
 func (p *Pipeline) RestoreAlerts(dir string) (bool, error) {
+	if _, err := os.Stat(dir); errors.Is(err, os.ErrNotExist) {
+		return false, nil
+	}
+	dir, err := currentDir(dir)
+	if err != nil {
+		return false, err
+	}
 	f, err := os.Open(filepath.Join(dir, AlertsFile))
 	if err != nil {
 		if errors.Is(err, os.ErrNotExist) {

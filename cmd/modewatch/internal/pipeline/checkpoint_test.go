@@ -159,10 +159,14 @@ func TestCheckpointMismatch(t *testing.T) {
 		t.Fatal(err)
 	}
 	// Damage one file, and make another claim a different unit.
-	air := CheckpointPath(dir, "air")
+	gdir, err := currentDir(dir)
+	if err != nil || gdir == dir {
+		t.Fatalf("current generation %q: %v", gdir, err)
+	}
+	air := CheckpointPath(gdir, "air")
 	b, _ := os.ReadFile(air)
 	os.WriteFile(air, b[:len(b)/2], 0o644)
-	os.WriteFile(filepath.Join(dir, "bogus"+checkpointSuffix), []byte(`{"format":"something else"}`), 0o644)
+	os.WriteFile(filepath.Join(gdir, "bogus"+checkpointSuffix), []byte(`{"format":"something else"}`), 0o644)
 	cks, errs := ReadCheckpoints(dir)
 	if len(cks) != 3 || len(errs) != 2 {
 		t.Fatalf("%d usable checkpoints, errors %v", len(cks), errs)
@@ -184,5 +188,50 @@ func TestCheckpointMismatch(t *testing.T) {
 	restored, rerrs := p2.Restore(cks)
 	if len(restored) != 0 || len(rerrs) != 3 {
 		t.Errorf("period mismatch: restored %v, errors %v", restored, rerrs)
+	}
+}
+
+// TestCheckpointGenerations: a later checkpoint replaces the earlier one
+// as a whole; an interrupted write (a generation directory without CURRENT
+// naming it) is ignored; unit files placed directly in the directory are
+// read when there is no CURRENT.
+func TestCheckpointGenerations(t *testing.T) {
+	const period = 20 * time.Second
+	ch, frames := collectFrames(t, demoBytes(t, 2), period)
+	cfg := &configs.Config{Model: configs.Model{WarmUp: 100}}
+	cfg.ApplyDefaults()
+	p, _ := New(Options{Config: cfg, Channels: ch, Period: period})
+	runFrames(t, p, frames[:200], nil)
+	dir := t.TempDir()
+	if _, err := p.WriteCheckpoints(dir); err != nil {
+		t.Fatal(err)
+	}
+	runFrames(t, p, frames[200:], nil)
+	if _, err := p.WriteCheckpoints(dir); err != nil {
+		t.Fatal(err)
+	}
+	// An interrupted third generation: a directory with half a unit.
+	os.Mkdir(filepath.Join(dir, "gen-99999999999999999999"), 0o755)
+	os.WriteFile(filepath.Join(dir, "gen-99999999999999999999", "air"+checkpointSuffix), []byte("{"), 0o644)
+	cks, errs := ReadCheckpoints(dir)
+	if len(errs) > 0 || len(cks) != 4 {
+		t.Fatalf("%d checkpoints, %v", len(cks), errs)
+	}
+	for _, ck := range cks {
+		if !ck.To.Equal(frames[len(frames)-1].Start) {
+			t.Errorf("unit %s checkpoint to %v, want the second generation (%v)", ck.Units[0].Name, ck.To, frames[len(frames)-1].Start)
+		}
+	}
+	ents, _ := os.ReadDir(dir)
+	if len(ents) != 3 { // CURRENT, the second generation, the interrupted one
+		t.Errorf("%d entries in the checkpoint directory", len(ents))
+	}
+	// A unit file moved in by hand, no CURRENT.
+	moved := t.TempDir()
+	gdir, _ := currentDir(dir)
+	b, _ := os.ReadFile(CheckpointPath(gdir, "steam"))
+	os.WriteFile(CheckpointPath(moved, "steam"), b, 0o644)
+	if cks, errs := ReadCheckpoints(moved); len(cks) != 1 || len(errs) != 0 {
+		t.Errorf("moved checkpoint: %d, %v", len(cks), errs)
 	}
 }

@@ -216,7 +216,9 @@ func Start(ctx context.Context, opt Options) (_ *Service, err error) {
 		defer cancel()
 		s.js, err = s.conn.ConsumeJetStream(jctx, natsource.JetStreamConfig{
 			Stream: js.Stream, Durable: durable, FilterSubjects: cfg.Sources.Subjects,
-			CreateStream: s.info.Embedded, StreamSubjects: js.Subjects,
+			// Created if missing (capturing jetstream.subjects, default the
+			// readings subjects); an existing stream is used as it is.
+			CreateStream: len(js.Subjects) > 0, StreamSubjects: js.Subjects,
 			MaxAckPending: s.ackCap,
 			// Acknowledgements wait for the checkpoint that covers the
 			// message (see heldAck), so the server must wait longer.

@@ -1,0 +1,289 @@
+package cli
+
+import (
+	"bufio"
+	"context"
+	"encoding/json"
+	"fmt"
+	"os"
+	"os/exec"
+	"path/filepath"
+	"strings"
+	"sync"
+	"syscall"
+	"testing"
+	"time"
+
+	"github.com/nats-io/nats-server/v2/server"
+	"github.com/nats-io/nats.go"
+
+	"modewatch/alerts"
+	"modewatch/cmd/modewatch/internal/pipeline"
+	"modewatch/sim"
+)
+
+// TestMain lets the test binary stand in for the modewatch binary: with
+// MODEWATCH_CHILD=1 it runs the command line in MODEWATCH_ARGS, so the
+// restart test can kill a real child process without a separate build.
+func TestMain(m *testing.M) {
+	if os.Getenv("MODEWATCH_CHILD") == "1" {
+		var args []string
+		if err := json.Unmarshal([]byte(os.Getenv("MODEWATCH_ARGS")), &args); err != nil {
+			fmt.Fprintln(os.Stderr, err)
+			os.Exit(2)
+		}
+		os.Exit(childMain(args))
+	}
+	os.Exit(m.Run())
+}
+
+// childMain is main() of cmd/modewatch.
+func childMain(args []string) int {
+	ctx, stop := signalContext()
+	defer stop()
+	return Main(ctx, args, IO{In: os.Stdin, Out: os.Stdout, Err: os.Stderr, Signals: stop})
+}
+
+// scoreLog counts the score lines seen on the scores subject by unit and
+// frame time.
+type scoreLog struct {
+	mu    sync.Mutex
+	seen  map[string]int // "unit time" -> times published
+	total int
+}
+
+func (s *scoreLog) add(m *nats.Msg) {
+	f := strings.Fields(string(m.Data))
+	if len(f) < 3 {
+		return
+	}
+	s.mu.Lock()
+	s.seen[f[0]+" "+f[len(f)-1]]++
+	s.total++
+	s.mu.Unlock()
+}
+
+func (s *scoreLog) distinct() int {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	return len(s.seen)
+}
+
+// TestKillRestart: the service consumes a JetStream stream; one run goes
+// through uninterrupted, the other is killed hard (SIGKILL) mid-stream and
+// restarted from its checkpoint and durable consumer. Both end with the
+// same alert incidents, every frame of every unit is scored, and the
+// restored models count each frame once.
+func TestKillRestart(t *testing.T) {
+	if testing.Short() {
+		t.Skip("starts child processes")
+	}
+	dir := t.TempDir()
+	srv, err := server.NewServer(&server.Options{Host: "127.0.0.1", Port: -1, NoLog: true, NoSigs: true,
+		JetStream: true, StoreDir: filepath.Join(dir, "js")})
+	if err != nil {
+		t.Fatal(err)
+	}
+	go srv.Start()
+	if !srv.ReadyForConnections(10 * time.Second) {
+		t.Fatal("nats server not ready")
+	}
+	t.Cleanup(srv.Shutdown)
+	nc, err := nats.Connect(srv.ClientURL())
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer nc.Close()
+	js, _ := nc.JetStream()
+	if _, err := js.AddStream(&nats.StreamConfig{Name: "READINGS", Subjects: []string{"modewatch.readings.>"}, Storage: nats.FileStorage}); err != nil {
+		t.Fatal(err)
+	}
+
+	// A baseline from the first simulated day, then 12 hours of the second
+	// (with the first labelled fault) stored in the stream. No dropouts,
+	// so that a value carried over a restart cannot differ.
+	sc, _ := sim.Demo()
+	modelPath := filepath.Join(dir, "model.json")
+	day1 := filepath.Join(dir, "day1.lp")
+	d1 := sc.Clone()
+	d1.Duration = 24 * time.Hour
+	f, _ := os.Create(day1)
+	bw := bufio.NewWriter(f)
+	if err := d1.WriteLineProtocol(bw); err != nil {
+		t.Fatal(err)
+	}
+	bw.Flush()
+	f.Close()
+	if code, _, errs := runCLI(t, "", "fit", "--quiet", "--out", modelPath, day1); code != ExitOK {
+		t.Fatalf("fit: %s", errs)
+	}
+	live := sc.Clone()
+	live.Start = sc.Start.Add(24 * time.Hour)
+	live.Duration = 12 * time.Hour
+	live.Dropout = 0
+	if _, err := live.Live(context.Background(), nc, "modewatch", 1e9); err != nil {
+		t.Fatal(err)
+	}
+	for deadline := time.Now().Add(20 * time.Second); ; time.Sleep(20 * time.Millisecond) {
+		info, err := js.StreamInfo("READINGS")
+		if err == nil && info.State.Msgs == uint64(live.Samples()*4) {
+			break
+		}
+		if time.Now().After(deadline) {
+			t.Fatalf("stream holds %v messages, want %d: %v", info.State.Msgs, live.Samples()*4, err)
+		}
+	}
+	// Frames per unit the aligner emits: all but the last, still pending.
+	want := live.Samples() - 1
+
+	scores := &scoreLog{seen: map[string]int{}}
+	sub, _ := nc.Subscribe("modewatch.scores.>", scores.add)
+	defer sub.Unsubscribe()
+
+	run := func(name string) (string, func() *exec.Cmd) {
+		data := filepath.Join(dir, name)
+		os.MkdirAll(data, 0o755)
+		cfg := filepath.Join(data, "config.yaml")
+		os.WriteFile(cfg, []byte(fmt.Sprintf(`server: {urls: [%q]}
+sources:
+  jetstream: {stream: READINGS, durable: %s}
+frames: {period: 20s}
+model: {file: %q}
+sinks: {file: %q}
+http: {listen: "off"}
+data_dir: %q
+checkpoint_interval: 1s
+log: {level: warn}
+`, srv.ClientURL(), name, modelPath, filepath.Join(data, "alerts.jsonl"), data)), 0o644)
+		start := func() *exec.Cmd {
+			args, _ := json.Marshal([]string{"run", "--config", cfg})
+			cmd := exec.Command(os.Args[0], "-test.run=^$")
+			cmd.Env = append(os.Environ(), "MODEWATCH_CHILD=1", "MODEWATCH_ARGS="+string(args))
+			cmd.Stderr = &prefixWriter{t: t, prefix: name + ": "}
+			if err := cmd.Start(); err != nil {
+				t.Fatal(err)
+			}
+			return cmd
+		}
+		return data, start
+	}
+	waitScores := func(n int, what string) {
+		deadline := time.Now().Add(60 * time.Second)
+		for scores.distinct() < n {
+			if time.Now().After(deadline) {
+				t.Fatalf("%s: %d distinct score lines, want %d", what, scores.distinct(), n)
+			}
+			time.Sleep(20 * time.Millisecond)
+		}
+	}
+	stop := func(cmd *exec.Cmd, what string) {
+		cmd.Process.Signal(syscall.SIGTERM)
+		if err := cmd.Wait(); err != nil {
+			t.Fatalf("%s: %v", what, err)
+		}
+	}
+
+	// Uninterrupted.
+	dataA, startA := run("a")
+	a := startA()
+	waitScores(4*want, "run a")
+	stop(a, "run a")
+	countA := scores.distinct()
+
+	// Killed at about half way, then restarted.
+	scores.mu.Lock()
+	scores.seen, scores.total = map[string]int{}, 0
+	scores.mu.Unlock()
+	dataB, startB := run("b")
+	b := startB()
+	waitScores(2*want, "run b before the kill")
+	b.Process.Signal(syscall.SIGKILL)
+	b.Wait()
+	t.Logf("killed after %d distinct frames scored", scores.distinct())
+	b = startB()
+	waitScores(4*want, "run b after the restart")
+	stop(b, "run b")
+	if got := scores.distinct(); got != countA {
+		t.Errorf("run b scored %d distinct unit frames, run a %d", got, countA)
+	}
+
+	// The restored models counted each frame once.
+	cka, _ := pipeline.ReadCheckpoints(filepath.Join(dataA, "checkpoints"))
+	ckb, _ := pipeline.ReadCheckpoints(filepath.Join(dataB, "checkpoints"))
+	if len(cka) != 4 || len(ckb) != 4 {
+		t.Fatalf("checkpoints: %d and %d", len(cka), len(ckb))
+	}
+	for i := range cka {
+		if cka[i].Frames != ckb[i].Frames || !cka[i].To.Equal(ckb[i].To) {
+			t.Errorf("unit %s: run a %d frames to %v, run b %d to %v", cka[i].Units[0].Name, cka[i].Frames, cka[i].To, ckb[i].Frames, ckb[i].To)
+		}
+	}
+
+	// The same incidents, ending the same way.
+	ra, rb := lastRevisions(t, filepath.Join(dataA, "alerts.jsonl")), lastRevisions(t, filepath.Join(dataB, "alerts.jsonl"))
+	t.Logf("%d incidents in both runs; %d score lines published for %d unit frames in the killed run (frames after the last checkpoint are scored again by the restored models)",
+		len(ra), scores.total, scores.distinct())
+	if len(ra) == 0 {
+		t.Error("no alerts in the uninterrupted run: the comparison would prove nothing")
+	}
+	if len(ra) != len(rb) {
+		t.Errorf("run a %d incidents, run b %d", len(ra), len(rb))
+	}
+	for id, x := range ra {
+		y, ok := rb[id]
+		if !ok {
+			t.Errorf("incident %s missing after the restart", id)
+			continue
+		}
+		if x.Revision != y.Revision || x.Peak != y.Peak || (x.End == nil) != (y.End == nil) {
+			t.Errorf("incident %s: run a rev %d peak %+v, run b rev %d peak %+v", id, x.Revision, x.Peak, y.Revision, y.Peak)
+		}
+	}
+}
+
+// lastRevisions reads a JSON-lines alert file and keeps the latest
+// revision of each record.
+func lastRevisions(t *testing.T, path string) map[string]alerts.Record {
+	t.Helper()
+	f, err := os.Open(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer f.Close()
+	out := map[string]alerts.Record{}
+	sc := bufio.NewScanner(f)
+	sc.Buffer(make([]byte, 1<<20), 1<<20)
+	for sc.Scan() {
+		var r alerts.Record
+		if err := json.Unmarshal(sc.Bytes(), &r); err != nil {
+			t.Fatalf("%s: %v", path, err)
+		}
+		if old, ok := out[r.ID]; !ok || r.Revision >= old.Revision {
+			out[r.ID] = r
+		}
+	}
+	return out
+}
+
+// prefixWriter logs a child's standard error through the test log.
+type prefixWriter struct {
+	t      *testing.T
+	prefix string
+	mu     sync.Mutex
+	buf    []byte
+}
+
+func (w *prefixWriter) Write(p []byte) (int, error) {
+	w.mu.Lock()
+	defer w.mu.Unlock()
+	w.buf = append(w.buf, p...)
+	for {
+		i := strings.IndexByte(string(w.buf), '\n')
+		if i < 0 {
+			break
+		}
+		w.t.Log(w.prefix + string(w.buf[:i]))
+		w.buf = w.buf[i+1:]
+	}
+	return len(p), nil
+}
