@@ -95,7 +95,7 @@ func (t *Tracker) MarshalBinary() ([]byte, error) {
 	}
 	for k := 0; k < e.nb; k++ {
 		for i := 0; i < p; i++ {
-			f64(e.rows[i*e.capB+k])
+			f64(e.rows[i*e.ldb+k])
 		}
 	}
 	for _, v := range t.last {
@@ -304,7 +304,7 @@ func (t *Tracker) UnmarshalBinary(data []byte) error {
 	copy(e.alphas, alphas)
 	for k := 0; k < nb; k++ {
 		for i := 0; i < p; i++ {
-			e.rows[i*e.capB+k] = rows[k*p+i]
+			e.rows[i*e.ldb+k] = rows[k*p+i]
 		}
 	}
 	copy(t.last, last)

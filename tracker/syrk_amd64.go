@@ -1,0 +1,47 @@
+package tracker
+
+// syrkRow4AVX2 is the AVX2/FMA micro-kernel of syrkUpper (syrk_amd64.s):
+// c[r][j] ← β·c[r][j] + Σ_l a[r][l]·b[j][l] for the rows r = 0…3 at a
+// (stride lda) and the ncol (even) rows j at b (stride lda), k a positive
+// multiple of 4; c rows at stride ldc.
+//
+//go:noescape
+func syrkRow4AVX2(a *float64, lda, k int, b *float64, ncol int, c *float64, ldc int, beta float64)
+
+func cpuid(eaxArg, ecxArg uint32) (eax, ebx, ecx, edx uint32)
+
+func xgetbv0() (eax uint32)
+
+// hasAVX2FMA reports whether the CPU and the operating system support AVX2
+// and FMA3 (CPUID leaf 1 ECX bits 12 FMA, 27 OSXSAVE, 28 AVX; XCR0 bits 1–2
+// XMM and YMM state; leaf 7 EBX bit 5 AVX2; Intel SDM vol. 2A, CPUID).
+var hasAVX2FMA = func() bool {
+	maxLeaf, _, _, _ := cpuid(0, 0)
+	if maxLeaf < 7 {
+		return false
+	}
+	_, _, ecx1, _ := cpuid(1, 0)
+	const fma, osxsave, avx = 1 << 12, 1 << 27, 1 << 28
+	if ecx1&(fma|osxsave|avx) != fma|osxsave|avx {
+		return false
+	}
+	if xgetbv0()&6 != 6 {
+		return false
+	}
+	_, ebx7, _, _ := cpuid(7, 0)
+	return ebx7&(1<<5) != 0
+}()
+
+// rowKernel updates the off-diagonal run of a 4-row block; ok is false
+// when the CPU lacks AVX2/FMA or k is not a positive multiple of 4.
+func rowKernel(a []float64, lda, k int, b []float64, ncol int, c []float64, ldc int, beta float64) (ok bool) {
+	if !hasAVX2FMA || k <= 0 || k%4 != 0 || ncol < 2 {
+		return false
+	}
+	// Bounds the assembly relies on.
+	_ = a[3*lda+k-1]
+	_ = b[(ncol-1)*lda+k-1]
+	_ = c[3*ldc+ncol-1]
+	syrkRow4AVX2(&a[0], lda, k, &b[0], ncol&^1, &c[0], ldc, beta)
+	return true
+}

@@ -1,0 +1,117 @@
+#include "textflag.h"
+
+// func syrkRow4AVX2(a *float64, lda, k int, b *float64, ncol int, c *float64, ldc int, beta float64)
+//
+// For the four rows a, a+lda, a+2·lda, a+3·lda (k values each, k a positive
+// multiple of 4) and the ncol rows b, b+lda, … (ncol even), updates the
+// 4 × ncol block of c at c, c+ldc, c+2·ldc, c+3·ldc:
+//	c[r][j] ← β·c[r][j] + Σ_l a[r][l]·b[j][l]
+// Eight 4-wide accumulators (4 rows × 2 columns) per column pair, fused
+// multiply-adds, horizontal sums at the end. Strides are in elements.
+TEXT ·syrkRow4AVX2(SB), NOSPLIT, $0-64
+	MOVQ a+0(FP), SI
+	MOVQ lda+8(FP), R8
+	SHLQ $3, R8
+	MOVQ k+16(FP), BX
+	SHLQ $3, BX
+	MOVQ b+24(FP), DI
+	MOVQ c+40(FP), DX
+	MOVQ ldc+48(FP), R10
+	SHLQ $3, R10
+	VBROADCASTSD beta+56(FP), Y14
+	LEAQ (SI)(R8*1), R11
+	LEAQ (R11)(R8*1), R12
+	LEAQ (R12)(R8*1), R13
+
+pair:
+	CMPQ ncol+32(FP), $2
+	JLT  done
+	LEAQ (DI)(R8*1), R9
+	VXORPD Y0, Y0, Y0
+	VXORPD Y1, Y1, Y1
+	VXORPD Y2, Y2, Y2
+	VXORPD Y3, Y3, Y3
+	VXORPD Y4, Y4, Y4
+	VXORPD Y5, Y5, Y5
+	VXORPD Y6, Y6, Y6
+	VXORPD Y7, Y7, Y7
+	XORQ AX, AX
+
+loop:
+	VMOVUPD     (SI)(AX*1), Y8
+	VMOVUPD     (R11)(AX*1), Y9
+	VMOVUPD     (R12)(AX*1), Y10
+	VMOVUPD     (R13)(AX*1), Y11
+	VMOVUPD     (DI)(AX*1), Y12
+	VMOVUPD     (R9)(AX*1), Y13
+	VFMADD231PD Y8, Y12, Y0
+	VFMADD231PD Y8, Y13, Y1
+	VFMADD231PD Y9, Y12, Y2
+	VFMADD231PD Y9, Y13, Y3
+	VFMADD231PD Y10, Y12, Y4
+	VFMADD231PD Y10, Y13, Y5
+	VFMADD231PD Y11, Y12, Y6
+	VFMADD231PD Y11, Y13, Y7
+	ADDQ        $32, AX
+	CMPQ        AX, BX
+	JLT         loop
+
+	// Row 0: X0 = (s00, s01); c ← β·c + s.
+	VHADDPD      Y1, Y0, Y0
+	VEXTRACTF128 $1, Y0, X1
+	VADDPD       X1, X0, X0
+	VMOVUPD      (DX), X1
+	VFMADD231PD  X14, X1, X0
+	VMOVUPD      X0, (DX)
+
+	// Row 1.
+	VHADDPD      Y3, Y2, Y2
+	VEXTRACTF128 $1, Y2, X3
+	VADDPD       X3, X2, X2
+	VMOVUPD      (DX)(R10*1), X3
+	VFMADD231PD  X14, X3, X2
+	VMOVUPD      X2, (DX)(R10*1)
+
+	// Row 2.
+	VHADDPD      Y5, Y4, Y4
+	VEXTRACTF128 $1, Y4, X5
+	VADDPD       X5, X4, X4
+	VMOVUPD      (DX)(R10*2), X5
+	VFMADD231PD  X14, X5, X4
+	VMOVUPD      X4, (DX)(R10*2)
+
+	// Row 3.
+	LEAQ         (DX)(R10*2), CX
+	VHADDPD      Y7, Y6, Y6
+	VEXTRACTF128 $1, Y6, X7
+	VADDPD       X7, X6, X6
+	VMOVUPD      (CX)(R10*1), X7
+	VFMADD231PD  X14, X7, X6
+	VMOVUPD      X6, (CX)(R10*1)
+
+	ADDQ $16, DX
+	LEAQ (DI)(R8*2), DI
+	SUBQ $2, ncol+32(FP)
+	JMP  pair
+
+done:
+	VZEROUPPER
+	RET
+
+// func cpuid(eaxArg, ecxArg uint32) (eax, ebx, ecx, edx uint32)
+TEXT ·cpuid(SB), NOSPLIT, $0-24
+	MOVL eaxArg+0(FP), AX
+	MOVL ecxArg+4(FP), CX
+	CPUID
+	MOVL AX, eax+8(FP)
+	MOVL BX, ebx+12(FP)
+	MOVL CX, ecx+16(FP)
+	MOVL DX, edx+20(FP)
+	RET
+
+// func xgetbv0() (eax uint32)
+TEXT ·xgetbv0(SB), NOSPLIT, $0-4
+	MOVL $0, CX
+	XGETBV
+	MOVL AX, eax+0(FP)
+	RET

@@ -1,0 +1,9 @@
+//go:build !amd64
+
+package tracker
+
+const hasAVX2FMA = false
+
+func rowKernel(a []float64, lda, k int, b []float64, ncol int, c []float64, ldc int, beta float64) bool {
+	return false
+}
