@@ -17,6 +17,7 @@ import (
 	"time"
 
 	"modewatch/cmd/modewatch/internal/pipeline"
+	"modewatch/tracker"
 )
 
 // DefaultBuckets is the default MaxBuckets: a chart holds between
@@ -93,23 +94,32 @@ func NewCollector() *Collector { return &Collector{byName: map[string]*series{}}
 // Observe records the latest score of unit u at frame start t. Frames in
 // warm-up (no statistics yet) only advance the frame count.
 func (c *Collector) Observe(u *pipeline.Unit, t time.Time) {
+	p := 0
+	if tr := u.Tracker(); tr != nil {
+		p = tr.P()
+	}
+	c.add(u.Name, t, u.Score(), p, u.Channels)
+}
+
+// add records score sc of unit name at t; p is the unit's channel count
+// and names returns its channel names (called only when p changed).
+func (c *Collector) add(name string, t time.Time, sc *tracker.Score, p int, names func() []string) {
 	max := c.MaxBuckets
 	if max <= 0 {
 		max = DefaultBuckets
 	}
-	s := c.byName[u.Name]
+	s := c.byName[name]
 	if s == nil {
-		s = &series{name: u.Name, per: 1}
-		c.byName[u.Name] = s
+		s = &series{name: name, per: 1}
+		c.byName[name] = s
 		c.units = append(c.units, s)
 	}
 	s.frames++
-	sc := u.Score()
 	if !sc.Ready {
 		return
 	}
-	if tr := u.Tracker(); tr != nil && tr.P() != len(s.names) {
-		s.setChannels(u.Channels())
+	if p != len(s.names) {
+		s.setChannels(names())
 	}
 	ns := t.UnixNano()
 	s.last = ns
