@@ -80,8 +80,10 @@ type JetStreamConfig struct {
 	// Tracker, if set, is kept informed of the consumer's acknowledgement
 	// floor on the server (AckTracker.SetAckFloor), at start and every
 	// FloorEvery (default 1 s), so that a message lost in flight is not
-	// taken for a processed one when it comes again. Recommended whenever
-	// an AckTracker is used.
+	// taken for a processed one when it comes again; unless NoReset, lost
+	// deliveries are also detected and fetched again at once (see
+	// JetStreamStats.Recoveries). Recommended whenever an AckTracker is
+	// used; every admitted message must then be Added to it.
 	Tracker    *AckTracker
 	FloorEvery time.Duration
 	// PullBatch is the number of messages the client buffers ahead of the
@@ -119,6 +121,7 @@ type JetStreamStats struct {
 	PullErrors    uint64 // transient errors of the pull iterator (logged)
 	DeliveryGaps  uint64 // deliveries that never arrived (lost in flight); redelivered after AckWait
 	FloorErrors   uint64 // failed acknowledgement-floor queries (Tracker set)
+	Recoveries    uint64 // resets requested after deliveries were lost in flight (Tracker set)
 }
 
 // JSConsumer is a running JetStream durable pull consumer; create it with
@@ -137,8 +140,9 @@ type JSConsumer struct {
 	cancel context.CancelFunc
 
 	delivered, redelivered, acked, ackErrs, handlerErrs, pullErrs atomic.Uint64
-	gaps, floorErrs                                               atomic.Uint64
-	lastDelivery                                                  uint64 // consumer (delivery) sequence of the last message; run goroutine only
+	gaps, floorErrs, recoveries                                   atomic.Uint64
+	idle                                                          atomic.Bool // run is waiting for the next message
+	lastDelivery                                                  uint64      // consumer (delivery) sequence of the last message; run goroutine only
 }
 
 // ConsumeJetStream binds to (or creates, see cfg) the durable pull consumer
@@ -252,17 +256,38 @@ func (c *Conn) ConsumeJetStream(ctx context.Context, cfg JetStreamConfig, h Hand
 	go s.run()
 	if cfg.Tracker != nil {
 		s.wg.Add(1)
-		go s.syncFloor(cfg.Tracker, orDur(cfg.FloorEvery, time.Second))
+		var reset func(context.Context) error
+		if !cfg.NoReset {
+			reset = func(ctx context.Context) error {
+				_, err := js.ResetConsumer(ctx, cfg.Stream, cfg.Durable)
+				return err
+			}
+		}
+		go s.syncFloor(cfg.Tracker, orDur(cfg.FloorEvery, time.Second), reset)
 	}
 	return s, nil
 }
 
 // syncFloor passes the server's acknowledgement floor to tr until the
-// consumer stops.
-func (s *JSConsumer) syncFloor(tr *AckTracker, every time.Duration) {
+// consumer stops, and recovers deliveries lost in flight.
+//
+// Lost deliveries (sent by the server to a pull request that no longer
+// reaches this process: the request of a process that just crashed, or one
+// cut off by a dropped connection) are unacknowledged on the server but
+// unknown here. The server would send them again only after AckWait. They
+// show as a persistent surplus of the server's unacknowledged count over
+// the tracker's waiting messages while this consumer is idle:
+//
+//	NumAckPending > Waiting, handler idle, no delivery since the last check
+//
+// seen at two checks in a row. Then the consumer is reset to its
+// acknowledgement floor, so the server delivers the unacknowledged messages
+// again at once and in order (those held are recognised as duplicates).
+func (s *JSConsumer) syncFloor(tr *AckTracker, every time.Duration, reset func(context.Context) error) {
 	defer s.wg.Done()
 	tick := time.NewTicker(every)
 	defer tick.Stop()
+	stalls, lastDelivered := 0, s.delivered.Load()
 	for {
 		select {
 		case <-s.done:
@@ -277,6 +302,27 @@ func (s *JSConsumer) syncFloor(tr *AckTracker, every time.Duration) {
 				continue
 			}
 			tr.SetAckFloor(ci.AckFloor.Stream)
+			delivered := s.delivered.Load()
+			waiting := tr.Stats().Waiting
+			if reset != nil && ci.NumAckPending > waiting && s.idle.Load() && delivered == lastDelivered {
+				stalls++
+			} else {
+				stalls = 0
+			}
+			lastDelivered = delivered
+			if stalls < 2 {
+				continue
+			}
+			stalls = 0
+			s.log.Warn("deliveries lost in flight; asking the server to send unacknowledged messages again",
+				"server_unacknowledged", ci.NumAckPending, "waiting_here", waiting, "ack_floor", ci.AckFloor.Stream)
+			s.recoveries.Add(1)
+			ctx, cancel = context.WithTimeout(s.ctx, 5*every)
+			err = reset(ctx)
+			cancel()
+			if err != nil {
+				s.log.Warn("reset consumer", "err", err)
+			}
 		}
 	}
 }
@@ -286,7 +332,9 @@ func (s *JSConsumer) run() {
 	defer close(s.done)
 	defer s.cancel()
 	for {
+		s.idle.Store(true)
 		jm, err := s.it.Next()
+		s.idle.Store(false)
 		if err != nil {
 			if errors.Is(err, jetstream.ErrMsgIteratorClosed) {
 				if errors.Is(err, jetstream.ErrConnectionClosed) || errors.Is(err, nats.ErrConnectionClosed) {
@@ -395,6 +443,7 @@ func (s *JSConsumer) Stats() JetStreamStats {
 		PullErrors:    s.pullErrs.Load(),
 		DeliveryGaps:  s.gaps.Load(),
 		FloorErrors:   s.floorErrs.Load(),
+		Recoveries:    s.recoveries.Load(),
 	}
 }
 

@@ -598,3 +598,39 @@ func TestJetStreamDoneOnClose(t *testing.T) {
 		t.Errorf("Stop after done: %v", err)
 	}
 }
+
+// TestJetStreamLostTailRecovered: the last deliveries of a burst are lost in
+// flight (as when the server hands them to the pull request of a process
+// that has just died). Nothing newer arrives to reveal the loss, and
+// AckWait is long; the floor sync sees the server's unacknowledged surplus
+// while idle, resets the consumer, and the messages arrive within seconds.
+func TestJetStreamLostTailRecovered(t *testing.T) {
+	checkNoLeak(t)
+	s := runServer(t, testOpts(t))
+	const n = 40
+	ts := eventTimes(n)
+	r := startRun(t, s.ClientURL(), JetStreamConfig{
+		Stream: "T", Durable: "d", CreateStream: true, StreamSubjects: []string{"t"},
+		FloorEvery: 20 * time.Millisecond, // AckWait stays at its 30 s default
+	}, Checkpoint{}, ts, 0)
+	r.mu.Lock()
+	r.ackAll = true
+	r.loseMsg = func(seq uint64, delivery int) bool { return seq > 30 && delivery == 1 }
+	r.mu.Unlock()
+	publishN(t, r.conn.NATS(), "t", 1, n)
+	r.waitCount(t, n, 10*time.Second) // well before AckWait
+	r.mu.Lock()
+	for seq := uint64(1); seq <= n; seq++ {
+		if r.processed[seq] != 1 {
+			t.Errorf("seq %d fed %d times, want 1", seq, r.processed[seq])
+		}
+	}
+	r.mu.Unlock()
+	if st := r.cons.Stats(); st.Recoveries == 0 {
+		t.Errorf("stats %+v: want a recovery", st)
+	}
+	if err := r.cons.Stop(ctxT(t, 5*time.Second)); err != nil {
+		t.Fatal(err)
+	}
+	drainConn(t, r.conn)
+}
