@@ -4,6 +4,7 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"time"
 
 	"modewatch/sim"
 )
@@ -23,9 +24,11 @@ Writes DIR/readings.lp (or readings.lp.gz with --gz) and DIR/truth.json.
 The data is invented, for demonstrations and tests only.`)
 	var scenario, out string
 	var gz bool
+	var duration time.Duration
 	fs.StringVar(&scenario, "scenario", "", "scenario `FILE` (YAML); default: the built-in demo scenario")
 	fs.StringVar(&out, "out", "", "output `DIR` (created if needed; required)")
 	fs.BoolVar(&gz, "gz", false, "gzip the readings")
+	fs.DurationVar(&duration, "duration", 0, "write only this much from the scenario's start (e.g. 24h: the demo's fault-free first day)")
 	pos, err := parseAll(fs, args)
 	if err != nil {
 		return err
@@ -49,12 +52,26 @@ The data is invented, for demonstrations and tests only.`)
 		}
 		return usagef("%v", err)
 	}
+	if duration < 0 || duration > s.Duration {
+		return usagef("--duration %v: want 0 < D ≤ the scenario's %v", duration, s.Duration)
+	}
+	if duration > 0 {
+		s = s.Clone()
+		s.Duration = duration
+		var kept []sim.Episode
+		for _, e := range s.Episodes {
+			if e.Start.Before(s.End()) {
+				kept = append(kept, e)
+			}
+		}
+		s.Episodes = kept
+	}
 	files, err := s.WriteFiles(out, gz)
 	if err != nil {
 		return err
 	}
 	tr := s.Truth()
-	fmt.Fprintf(env.Out, "wrote %s (%s from %s, every %s) and %s (%d labelled episodes)\n",
+	fmt.Fprintf(env.Out, "wrote %s (%s from %s, every %s) and %s (%d labelled episode(s))\n",
 		files.Readings, s.Duration, s.Start.Format("2006-01-02T15:04:05Z07:00"), s.Period, files.Truth, len(tr.Episodes))
 	return nil
 }

@@ -38,11 +38,13 @@ type Unit struct {
 	failed        error       // the model could not be built; the unit is not scored
 
 	// Counters, under p.mu.
-	frames     uint64 // frames scored
-	empty      uint64 // frames with every channel of the unit missing
-	stepErrors uint64
-	skipped    uint64   // frames already scored before a restart
-	late       []string // channels that appeared after the model was built (not modelled)
+	frames      uint64 // frames scored
+	empty       uint64 // frames with every channel of the unit missing
+	stepErrors  uint64
+	skipped     uint64        // frames already scored before a restart
+	refreshes   uint64        // mode refreshes timed (see step)
+	lastRefresh time.Duration // wall time of the last frame step that refreshed
+	late        []string      // channels that appeared after the model was built (not modelled)
 
 	// Snapshot for concurrent readers.
 	viewMu sync.Mutex
@@ -143,7 +145,16 @@ func (u *Unit) step(f *stream.Frame) error {
 		}
 		u.frozen = want
 	}
-	if err := u.tr.Step(&u.score, u.x, u.miss); err != nil {
+	// A refresh of the modes and limits happens inside the Step that
+	// learns the last frame before it is due (NextRefresh == 1 before).
+	refreshDue := !u.frozen && u.score.NextRefresh == 1
+	t0 := time.Now()
+	err := u.tr.Step(&u.score, u.x, u.miss)
+	if refreshDue && err == nil {
+		u.refreshes++
+		u.lastRefresh = time.Since(t0)
+	}
+	if err != nil {
 		u.stepErrors++
 		if u.stepErrors <= 10 {
 			u.p.log.Warn("frame not scored", "unit", u.Name, "time", f.Start, "err", err)

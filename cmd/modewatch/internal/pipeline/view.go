@@ -60,12 +60,16 @@ type UnitView struct {
 	StepErrors  uint64   `json:"step_errors"`
 	EffectiveN  float64  `json:"effective_samples"`
 	// RefreshIterations is the solver iterations of the last mode refresh.
-	RefreshIterations int         `json:"refresh_iterations"`
-	Modes             []ModeView  `json:"modes"`
-	Limits            *LimitsView `json:"limits"`
-	Latest            *ScoreView  `json:"latest"`
-	ActiveAlerts      int         `json:"active_alerts"`
-	InMaintenance     bool        `json:"maintenance"`
+	RefreshIterations int `json:"refresh_iterations"`
+	// Refreshes counts the mode refreshes seen; LastRefreshS is the wall
+	// time of the frame step that did the last one, in seconds.
+	Refreshes     uint64      `json:"refreshes"`
+	LastRefreshS  float64     `json:"last_refresh_s"`
+	Modes         []ModeView  `json:"modes"`
+	Limits        *LimitsView `json:"limits"`
+	Latest        *ScoreView  `json:"latest"`
+	ActiveAlerts  int         `json:"active_alerts"`
+	InMaintenance bool        `json:"maintenance"`
 }
 
 func finite(v float64) *float64 {
@@ -115,6 +119,7 @@ func (u *Unit) View(t time.Time) UnitView {
 	s := &u.score
 	v.EffectiveN = s.NEff
 	v.RefreshIterations = u.tr.Modes().Iterations()
+	v.Refreshes, v.LastRefreshS = u.refreshes, u.lastRefresh.Seconds()
 	if s.Ready {
 		v.Limits = &LimitsView{Alpha: u.tr.Config().Alpha, T2: finite(s.T2Limit), SPE: finite(s.SPELimit), Phi: finite(s.PhiLimit)}
 	}

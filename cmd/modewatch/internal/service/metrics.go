@@ -16,6 +16,7 @@ type metrics struct {
 
 	frames, unitFrames, lines, rejected, readings            *prometheus.Desc
 	stat, limit, ready, nEff, modes, iters, missing          *prometheus.Desc
+	refreshes, refreshTime                                   *prometheus.Desc
 	alertsOpen, alertsOpened, alertsHour, floods, inMaint    *prometheus.Desc
 	natsUp, natsReconnects, natsDisconnects                  *prometheus.Desc
 	queueDepth, dropped, sinkDepth, sinkPending, sinkDropped *prometheus.Desc
@@ -41,6 +42,8 @@ func newMetrics(s *Service) *metrics {
 		modes:           d("unit_modes", "Number of sparse modes of the unit's model.", "unit"),
 		iters:           d("unit_refresh_iterations", "Solver iterations of the unit's last mode refresh.", "unit"),
 		missing:         d("unit_missing_channels", "Channels missing in the unit's latest frame.", "unit"),
+		refreshes:       d("unit_refreshes_total", "Refreshes of the unit's modes and limits.", "unit"),
+		refreshTime:     d("unit_last_refresh_seconds", "Wall time of the frame step that did the unit's last refresh.", "unit"),
 		alertsOpen:      d("alerts_open", "Open alert incidents.", "unit"),
 		alertsOpened:    d("alerts_opened_total", "Alert incidents opened.", "unit"),
 		alertsHour:      d("alerts_last_hour", "New alerts in the trailing hour of frame time.", "unit"),
@@ -66,7 +69,7 @@ func newMetrics(s *Service) *metrics {
 // Describe implements prometheus.Collector.
 func (m *metrics) Describe(ch chan<- *prometheus.Desc) {
 	for _, d := range []*prometheus.Desc{m.frames, m.unitFrames, m.lines, m.rejected, m.readings, m.stat, m.limit, m.ready,
-		m.nEff, m.modes, m.iters, m.missing, m.alertsOpen, m.alertsOpened, m.alertsHour, m.floods, m.inMaint, m.natsUp,
+		m.nEff, m.modes, m.iters, m.missing, m.refreshes, m.refreshTime, m.alertsOpen, m.alertsOpened, m.alertsHour, m.floods, m.inMaint, m.natsUp,
 		m.natsReconnects, m.natsDisconnects, m.queueDepth, m.dropped, m.sinkDepth, m.sinkPending, m.sinkDropped,
 		m.sinkDelivered, m.ckptTime, m.ckptErrors, m.scoreErrors} {
 		ch <- d
@@ -108,6 +111,8 @@ func (m *metrics) Collect(ch chan<- prometheus.Metric) {
 			g(m.nEff, v.EffectiveN, v.Name)
 			g(m.modes, float64(len(v.Modes)), v.Name)
 			g(m.iters, float64(v.RefreshIterations), v.Name)
+			c(m.refreshes, float64(v.Refreshes), v.Name)
+			g(m.refreshTime, v.LastRefreshS, v.Name)
 			scoring := v.Latest != nil && v.Latest.Ready
 			g(m.ready, b(scoring), v.Name)
 			if v.Latest != nil {
