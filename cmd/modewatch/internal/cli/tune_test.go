@@ -1,0 +1,178 @@
+package cli
+
+import (
+	"bytes"
+	"encoding/csv"
+	"encoding/json"
+	"fmt"
+	"os"
+	"path/filepath"
+	"strconv"
+	"strings"
+	"testing"
+	"time"
+
+	"modewatch/cmd/modewatch/internal/evaluate"
+	"modewatch/sim"
+)
+
+// demoWithTruth writes the first hours of the demo scenario (invented
+// data) and a truth file holding the episodes that start within them.
+func demoWithTruth(t *testing.T, hours int) (log, truth string) {
+	t.Helper()
+	s, err := sim.Demo()
+	if err != nil {
+		t.Fatal(err)
+	}
+	s = s.Clone()
+	s.Duration = time.Duration(hours) * time.Hour
+	dir := t.TempDir()
+	files, err := s.WriteFiles(dir, false)
+	if err != nil {
+		t.Fatal(err)
+	}
+	b, err := os.ReadFile(files.Truth)
+	if err != nil {
+		t.Fatal(err)
+	}
+	tr, err := evaluate.DecodeTruth(bytes.NewReader(b))
+	if err != nil {
+		t.Fatal(err)
+	}
+	end := s.Start.Add(s.Duration)
+	var keep []evaluate.Episode
+	for _, e := range tr.Episodes {
+		if e.Start.Before(end) {
+			keep = append(keep, e)
+		}
+	}
+	tr.Episodes = keep
+	b, _ = json.Marshal(tr)
+	truth = filepath.Join(dir, "truth-clipped.json")
+	if err := os.WriteFile(truth, b, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	return files.Readings, truth
+}
+
+func readCSV(t *testing.T, path string) []map[string]string {
+	t.Helper()
+	f, err := os.Open(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer f.Close()
+	recs, err := csv.NewReader(f).ReadAll()
+	if err != nil {
+		t.Fatal(err)
+	}
+	var out []map[string]string
+	for _, r := range recs[1:] {
+		m := map[string]string{}
+		for i, k := range recs[0] {
+			m[k] = r[i]
+		}
+		out = append(out, m)
+	}
+	return out
+}
+
+// TestTuneMatchesReplays runs tune on a 2 × 2 grid (one model setting,
+// one alarm setting) and checks every row against a separate
+// "replay --truth --json" with the same settings given as a configuration
+// file: the metrics must be identical, not merely close.
+func TestTuneMatchesReplays(t *testing.T) {
+	log, truth := demoWithTruth(t, 50)
+	dir := t.TempDir()
+	grid := filepath.Join(dir, "grid.yaml")
+	os.WriteFile(grid, []byte("alpha: [0.01, 0.001]\non_delay: [\"3/5\", \"6/10\"]\n"), 0o644)
+	out := filepath.Join(dir, "out")
+	code, stdout, errs := runCLI(t, "", "tune", "--input", log, "--truth", truth, "--grid", grid, "--out", out, "--jobs", "2")
+	if code != ExitOK {
+		t.Fatalf("tune: exit %d\n%s\n%s", code, stdout, errs)
+	}
+	rows := readCSV(t, filepath.Join(out, "tune.csv"))
+	if len(rows) != 4 {
+		t.Fatalf("%d rows, want 4", len(rows))
+	}
+	pareto := 0
+	for i, row := range rows {
+		if row["rank"] != strconv.Itoa(i+1) {
+			t.Errorf("row %d has rank %s", i, row["rank"])
+		}
+		if row["pareto"] == "true" {
+			pareto++
+		}
+		if row["error"] != "" {
+			t.Fatalf("row %d: %s", i, row["error"])
+		}
+		n, m, _ := strings.Cut(row["on_delay"], "/")
+		cfg := filepath.Join(dir, fmt.Sprintf("c%d.yaml", i))
+		os.WriteFile(cfg, []byte(fmt.Sprintf("model:\n  alpha: %s\nalerts:\n  on_delay: {n: %s, m: %s}\n", row["alpha"], n, m)), 0o644)
+		code, js, errs := runCLI(t, "", "replay", "--config", cfg, "--truth", truth, "--json", "--quiet", log)
+		if code != ExitOK {
+			t.Fatalf("replay: exit %d: %s", code, errs)
+		}
+		s := decodeSummary(t, js)
+		mt := s.Metrics
+		num := func(p *float64) string {
+			if p == nil {
+				return ""
+			}
+			return strconv.FormatFloat(*p, 'g', -1, 64)
+		}
+		want := map[string]string{
+			"episodes": strconv.Itoa(mt.Episodes), "detected": strconv.Itoa(mt.Detected), "detection_rate": num(mt.DetectionRate),
+			"false_alerts": strconv.Itoa(mt.FalseAlerts), "false_alerts_per_day": num(mt.FalseAlertsPerDay),
+			"median_delay_s": num(mt.MedianDelayS), "isolated_top3": strconv.Itoa(mt.IsolatedTop3),
+			"alerts": strconv.Itoa(s.Alerts), "frames": strconv.FormatUint(s.Frames, 10),
+		}
+		for k, v := range want {
+			if row[k] != v {
+				t.Errorf("alpha %s on_delay %s: %s = %q in tune, %q in replay", row["alpha"], row["on_delay"], k, row[k], v)
+			}
+		}
+	}
+	if pareto == 0 {
+		t.Error("no row on the Pareto front")
+	}
+	if !strings.Contains(stdout, "rank") || !strings.Contains(stdout, "*") {
+		t.Errorf("table:\n%s", stdout)
+	}
+	// The best setting is a configuration that check accepts.
+	if code, o, e := runCLI(t, "", "check", "--config", filepath.Join(out, "best.yaml")); code != ExitOK {
+		t.Errorf("check best.yaml: exit %d\n%s%s", code, o, e)
+	}
+}
+
+// TestTuneChecksFirst: a broken grid, or a grid listing model settings
+// with a fitted model, stops tune with exit status 2 before any replay
+// (no output directory is created), naming the lines.
+func TestTuneChecksFirst(t *testing.T) {
+	log, truth := demoWithTruth(t, 2)
+	dir := t.TempDir()
+	grid := filepath.Join(dir, "bad.yaml")
+	os.WriteFile(grid, []byte("alpha: [0.01, 2]\nwarmup: [100]\nnoise: [1]\n"), 0o644)
+	out := filepath.Join(dir, "out")
+	code, _, errs := runCLI(t, "", "tune", "--input", log, "--truth", truth, "--grid", grid, "--out", out)
+	if code != ExitUsage || !strings.Contains(errs, grid+":1:15: alpha[1]") || !strings.Contains(errs, grid+":3:1: noise") {
+		t.Errorf("exit %d, stderr %q", code, errs)
+	}
+	if _, err := os.Stat(out); !os.IsNotExist(err) {
+		t.Errorf("output directory created for a broken grid: %v", err)
+	}
+
+	model := filepath.Join(dir, "m.model")
+	if code, _, errs := runCLI(t, "", "fit", "--quiet", "--out", model, log); code != ExitOK {
+		t.Fatalf("fit: %s", errs)
+	}
+	grid2 := filepath.Join(dir, "model.yaml")
+	os.WriteFile(grid2, []byte("on_delay: [\"3/5\"]\nsparsity: [none]\n"), 0o644)
+	code, _, errs = runCLI(t, "", "tune", "--input", log, "--truth", truth, "--grid", grid2, "--model", model, "--out", out)
+	if code != ExitUsage || !strings.Contains(errs, grid2+":2: sparsity") {
+		t.Errorf("model keys with --model: exit %d, stderr %q", code, errs)
+	}
+	if code, _, errs := runCLI(t, "", "tune", "--input", "-", "--truth", truth, "--grid", grid2); code != ExitUsage || !strings.Contains(errs, "standard input") {
+		t.Errorf("stdin: exit %d, %q", code, errs)
+	}
+}
