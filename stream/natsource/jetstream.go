@@ -280,14 +280,17 @@ func (c *Conn) ConsumeJetStream(ctx context.Context, cfg JetStreamConfig, h Hand
 //
 //	NumAckPending > Waiting, handler idle, no delivery since the last check
 //
-// seen at two checks in a row. Then the consumer is reset to its
+// seen at two checks in a row (more after repeated recoveries). Then the consumer is reset to its
 // acknowledgement floor, so the server delivers the unacknowledged messages
 // again at once and in order (those held are recognised as duplicates).
 func (s *JSConsumer) syncFloor(tr *AckTracker, every time.Duration, reset func(context.Context) error) {
 	defer s.wg.Done()
 	tick := time.NewTicker(every)
 	defer tick.Stop()
-	stalls, lastDelivered := 0, s.delivered.Load()
+	// need doubles after each recovery (up to 64 checks) while the surplus
+	// persists, so a handler that keeps skipping messages does not cause a
+	// reset storm; it drops back to 2 once the counts agree.
+	stalls, need, lastDelivered := 0, 2, s.delivered.Load()
 	for {
 		select {
 		case <-s.done:
@@ -308,12 +311,15 @@ func (s *JSConsumer) syncFloor(tr *AckTracker, every time.Duration, reset func(c
 				stalls++
 			} else {
 				stalls = 0
+				if ci.NumAckPending <= waiting {
+					need = 2
+				}
 			}
 			lastDelivered = delivered
-			if stalls < 2 {
+			if stalls < need {
 				continue
 			}
-			stalls = 0
+			stalls, need = 0, min(2*need, 64)
 			s.log.Warn("deliveries lost in flight; asking the server to send unacknowledged messages again",
 				"server_unacknowledged", ci.NumAckPending, "waiting_here", waiting, "ack_floor", ci.AckFloor.Stream)
 			s.recoveries.Add(1)
