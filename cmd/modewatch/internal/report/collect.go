@@ -14,6 +14,7 @@ package report
 
 import (
 	"math"
+	"slices"
 	"time"
 
 	"modewatch/cmd/modewatch/internal/pipeline"
@@ -129,7 +130,9 @@ func (c *Collector) add(name string, t time.Time, sc *tracker.Score, p int, name
 			s.halve()
 		}
 		s.buckets = append(s.buckets, bucket{})
-		s.contrib = append(s.contrib, make([]float32, s.p)...)
+		n := len(s.contrib)
+		s.contrib = slices.Grow(s.contrib, s.p)[:n+s.p] // no allocation once the buckets have been halved
+		clear(s.contrib[n:])
 		k = len(s.buckets) - 1
 	}
 	b := &s.buckets[k]

@@ -118,3 +118,26 @@ func mustParseSVG(t *testing.T, b []byte) {
 		t.Fatalf("root element %q, want svg", root)
 	}
 }
+
+// TestCollectorAllocs guards the per-frame path: once the buckets have
+// been halved, recording a frame allocates nothing.
+func TestCollectorAllocs(t *testing.T) {
+	c := NewCollector()
+	c.MaxBuckets = 20
+	names := []string{"u.a", "u.b"}
+	nf := func() []string { return names }
+	sc := tracker.Score{Ready: true, T2: 1, T2Limit: 2, SPE: 1, SPELimit: 2, Phi: 1, PhiLimit: 2,
+		Contrib: []tracker.Contribution{{Channel: 1, RBC: 1, RBCLimit: 2}}}
+	t0 := time.Date(2026, 3, 1, 0, 0, 0, 0, time.UTC)
+	k := 0
+	step := func() {
+		c.add("u", t0.Add(time.Duration(k)*time.Second), &sc, 2, nf)
+		k++
+	}
+	for i := 0; i < 200; i++ {
+		step()
+	}
+	if a := testing.AllocsPerRun(5000, step); a != 0 {
+		t.Errorf("%v allocations per frame, want 0", a)
+	}
+}
