@@ -246,7 +246,9 @@ func (s *CoreSub) unsubscribe() {
 func (s *CoreSub) Stop(ctx context.Context) error {
 	s.once.Do(func() {
 		s.readLibDropped()
-		for _, sub := range s.subs {
+		closed := make([]<-chan nats.SubStatus, len(s.subs))
+		for i, sub := range s.subs {
+			closed[i] = sub.StatusChanged(nats.SubscriptionClosed)
 			// Drain lets the library deliver what it already holds to
 			// enqueue, then removes the interest.
 			if err := sub.Drain(); err != nil && !errors.Is(err, nats.ErrConnectionClosed) &&
@@ -254,13 +256,12 @@ func (s *CoreSub) Stop(ctx context.Context) error {
 				s.log.Warn("drain subscription", "subject", sub.Subject, "err", err)
 			}
 		}
-		for _, sub := range s.subs {
-			for sub.IsValid() && !s.conn.nc.IsClosed() {
-				select {
-				case <-ctx.Done():
-					_ = sub.Unsubscribe()
-				case <-time.After(5 * time.Millisecond):
-				}
+		for i, sub := range s.subs {
+			select {
+			case <-closed[i]:
+			case <-s.conn.closed:
+			case <-ctx.Done():
+				_ = sub.Unsubscribe()
 			}
 		}
 		close(s.stopped)

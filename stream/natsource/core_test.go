@@ -12,8 +12,9 @@ import (
 
 // TestCoreWildcardSubjects checks that a core subscription on several
 // subjects with "*" and ">" wildcards receives exactly the matching
-// messages. Matching rules: NATS subject-based messaging documentation
-// ("*" matches one token, ">" one or more trailing tokens).
+// messages. Matching rules as the NATS subject-based messaging
+// documentation states them (cited from memory): "*" matches exactly one
+// token, ">" one or more trailing tokens.
 func TestCoreWildcardSubjects(t *testing.T) {
 	checkNoLeak(t)
 	s := runServer(t, testOpts(t))

@@ -2,7 +2,6 @@ package natsource
 
 import (
 	"context"
-	"fmt"
 	"runtime"
 	"strings"
 	"testing"
@@ -135,5 +134,3 @@ func mustContain(t *testing.T, err error, parts ...string) {
 		}
 	}
 }
-
-var _ = fmt.Sprintf
