@@ -100,22 +100,21 @@ func runFit(ctx context.Context, env IO, args []string) error {
 		enc.SetIndent("", "  ")
 		return enc.Encode(o)
 	}
-	if !out.quiet {
-		fmt.Fprintf(env.Out, "fitted %d unit(s) on %d frames of %s (%s to %s); model written to %s\n", len(model.Units), model.Frames,
-			res.Period, model.From.Format("2006-01-02T15:04:05Z07:00"), model.To.Format("2006-01-02T15:04:05Z07:00"), outPath)
-		for _, u := range model.Units {
-			lim := ""
-			if u.Limits.T2 != nil && u.Limits.SPE != nil {
-				lim = fmt.Sprintf(", T² limit %.2f, SPE limit %.2f at α=%g", *u.Limits.T2, *u.Limits.SPE, u.Limits.Alpha)
+	// The summary is the command's output; --quiet only silences standard error.
+	fmt.Fprintf(env.Out, "fitted %d unit(s) on %d frames of %s (%s to %s); model written to %s\n", len(model.Units), model.Frames,
+		res.Period, model.From.Format("2006-01-02T15:04:05Z07:00"), model.To.Format("2006-01-02T15:04:05Z07:00"), outPath)
+	for _, u := range model.Units {
+		lim := ""
+		if u.Limits.T2 != nil && u.Limits.SPE != nil {
+			lim = fmt.Sprintf(", T² limit %.2f, SPE limit %.2f at α=%g", *u.Limits.T2, *u.Limits.SPE, u.Limits.Alpha)
+		}
+		fmt.Fprintf(env.Out, "unit %-12s %3d channels, %d modes%s\n", u.Name, len(u.Channels), len(u.Modes), lim)
+		for _, m := range u.Modes {
+			parts := make([]string, len(m.Channels))
+			for i, c := range m.Channels {
+				parts[i] = fmt.Sprintf("%s %+.2f", strings.TrimPrefix(c, u.Name+"."), m.Loadings[i])
 			}
-			fmt.Fprintf(env.Out, "unit %-12s %3d channels, %d modes%s\n", u.Name, len(u.Channels), len(u.Modes), lim)
-			for _, m := range u.Modes {
-				parts := make([]string, len(m.Channels))
-				for i, c := range m.Channels {
-					parts[i] = fmt.Sprintf("%s %+.2f", strings.TrimPrefix(c, u.Name+"."), m.Loadings[i])
-				}
-				fmt.Fprintf(env.Out, "  mode %d (%4.1f%%): %s\n", m.ID, 100*m.VarianceShare, strings.Join(parts, ", "))
-			}
+			fmt.Fprintf(env.Out, "  mode %d (%4.1f%%): %s\n", m.ID, 100*m.VarianceShare, strings.Join(parts, ", "))
 		}
 	}
 	return nil

@@ -140,7 +140,7 @@ func runReplay(ctx context.Context, env IO, args []string) error {
 		if jerr := enc.Encode(sum); jerr != nil && err == nil {
 			err = jerr
 		}
-	} else if !out.quiet {
+	} else {
 		printSummary(env.Out, sum)
 	}
 	if err == nil && sum.Frames == 0 {
