@@ -77,71 +77,102 @@ func readCSV(t *testing.T, path string) []map[string]string {
 	return out
 }
 
-// TestTuneMatchesReplays runs tune on a 2 × 2 grid (one model setting,
-// one alarm setting) and checks every row against a separate
-// "replay --truth --json" with the same settings given as a configuration
-// file: the metrics must be identical, not merely close.
+// TestTuneMatchesReplays runs tune on 2 × 2 grids and checks every row
+// against a separate "replay --truth --json" with the same settings given
+// as a configuration file: the metrics must be identical, not merely
+// close. Once learning from the start (a model setting × an alarm
+// setting) and once from a fitted model (an alarm setting × adapt).
 func TestTuneMatchesReplays(t *testing.T) {
 	log, truth := demoWithTruth(t, 50)
+	normal, _ := demoWithTruth(t, 24) // the demo's first day is fault-free
 	dir := t.TempDir()
-	grid := filepath.Join(dir, "grid.yaml")
-	os.WriteFile(grid, []byte("alpha: [0.01, 0.001]\non_delay: [\"3/5\", \"6/10\"]\n"), 0o644)
-	out := filepath.Join(dir, "out")
-	code, stdout, errs := runCLI(t, "", "tune", "--input", log, "--truth", truth, "--grid", grid, "--out", out, "--jobs", "2")
-	if code != ExitOK {
-		t.Fatalf("tune: exit %d\n%s\n%s", code, stdout, errs)
+	model := filepath.Join(dir, "demo.model")
+	if code, _, errs := runCLI(t, "", "fit", "--quiet", "--out", model, normal); code != ExitOK {
+		t.Fatalf("fit: %s", errs)
 	}
-	rows := readCSV(t, filepath.Join(out, "tune.csv"))
-	if len(rows) != 4 {
-		t.Fatalf("%d rows, want 4", len(rows))
-	}
-	pareto := 0
-	for i, row := range rows {
-		if row["rank"] != strconv.Itoa(i+1) {
-			t.Errorf("row %d has rank %s", i, row["rank"])
-		}
-		if row["pareto"] == "true" {
-			pareto++
-		}
-		if row["error"] != "" {
-			t.Fatalf("row %d: %s", i, row["error"])
-		}
-		n, m, _ := strings.Cut(row["on_delay"], "/")
-		cfg := filepath.Join(dir, fmt.Sprintf("c%d.yaml", i))
-		os.WriteFile(cfg, []byte(fmt.Sprintf("model:\n  alpha: %s\nalerts:\n  on_delay: {n: %s, m: %s}\n", row["alpha"], n, m)), 0o644)
-		code, js, errs := runCLI(t, "", "replay", "--config", cfg, "--truth", truth, "--json", "--quiet", log)
-		if code != ExitOK {
-			t.Fatalf("replay: exit %d: %s", code, errs)
-		}
-		s := decodeSummary(t, js)
-		mt := s.Metrics
-		num := func(p *float64) string {
-			if p == nil {
-				return ""
+	for _, tc := range []struct {
+		name, grid string
+		args       []string
+		config     func(row map[string]string) string
+	}{
+		{
+			name: "online", grid: "alpha: [0.01, 0.001]\non_delay: [\"3/5\", \"6/10\"]\n",
+			config: func(row map[string]string) string {
+				n, m, _ := strings.Cut(row["on_delay"], "/")
+				return fmt.Sprintf("model:\n  alpha: %s\nalerts:\n  on_delay: {n: %s, m: %s}\n", row["alpha"], n, m)
+			},
+		},
+		{
+			name: "fitted", grid: "on_delay: [\"3/5\", \"6/10\"]\nadapt: [true, false]\n", args: []string{"--model", model},
+			config: func(row map[string]string) string {
+				n, m, _ := strings.Cut(row["on_delay"], "/")
+				return fmt.Sprintf("model:\n  adapt: %s\nalerts:\n  on_delay: {n: %s, m: %s}\n", row["adapt"], n, m)
+			},
+		},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			dir := t.TempDir()
+			grid := filepath.Join(dir, "grid.yaml")
+			os.WriteFile(grid, []byte(tc.grid), 0o644)
+			out := filepath.Join(dir, "out")
+			args := append([]string{"tune", "--input", log, "--truth", truth, "--grid", grid, "--out", out, "--jobs", "2"}, tc.args...)
+			code, stdout, errs := runCLI(t, "", args...)
+			if code != ExitOK {
+				t.Fatalf("tune: exit %d\n%s\n%s", code, stdout, errs)
 			}
-			return strconv.FormatFloat(*p, 'g', -1, 64)
-		}
-		want := map[string]string{
-			"episodes": strconv.Itoa(mt.Episodes), "detected": strconv.Itoa(mt.Detected), "detection_rate": num(mt.DetectionRate),
-			"false_alerts": strconv.Itoa(mt.FalseAlerts), "false_alerts_per_day": num(mt.FalseAlertsPerDay),
-			"median_delay_s": num(mt.MedianDelayS), "isolated_top3": strconv.Itoa(mt.IsolatedTop3),
-			"alerts": strconv.Itoa(s.Alerts), "frames": strconv.FormatUint(s.Frames, 10),
-		}
-		for k, v := range want {
-			if row[k] != v {
-				t.Errorf("alpha %s on_delay %s: %s = %q in tune, %q in replay", row["alpha"], row["on_delay"], k, row[k], v)
+			rows := readCSV(t, filepath.Join(out, "tune.csv"))
+			if len(rows) != 4 {
+				t.Fatalf("%d rows, want 4", len(rows))
 			}
-		}
-	}
-	if pareto == 0 {
-		t.Error("no row on the Pareto front")
-	}
-	if !strings.Contains(stdout, "rank") || !strings.Contains(stdout, "*") {
-		t.Errorf("table:\n%s", stdout)
-	}
-	// The best setting is a configuration that check accepts.
-	if code, o, e := runCLI(t, "", "check", "--config", filepath.Join(out, "best.yaml")); code != ExitOK {
-		t.Errorf("check best.yaml: exit %d\n%s%s", code, o, e)
+			pareto := 0
+			for i, row := range rows {
+				if row["rank"] != strconv.Itoa(i+1) {
+					t.Errorf("row %d has rank %s", i, row["rank"])
+				}
+				if row["pareto"] == "true" {
+					pareto++
+				}
+				if row["error"] != "" {
+					t.Fatalf("row %d: %s", i, row["error"])
+				}
+				cfg := filepath.Join(dir, fmt.Sprintf("c%d.yaml", i))
+				os.WriteFile(cfg, []byte(tc.config(row)), 0o644)
+				args := append([]string{"replay", "--config", cfg, "--truth", truth, "--json", "--quiet", log}, tc.args...)
+				code, js, errs := runCLI(t, "", args...)
+				if code != ExitOK {
+					t.Fatalf("replay: exit %d: %s", code, errs)
+				}
+				s := decodeSummary(t, js)
+				mt := s.Metrics
+				num := func(p *float64) string {
+					if p == nil {
+						return ""
+					}
+					return strconv.FormatFloat(*p, 'g', -1, 64)
+				}
+				want := map[string]string{
+					"episodes": strconv.Itoa(mt.Episodes), "detected": strconv.Itoa(mt.Detected), "detection_rate": num(mt.DetectionRate),
+					"false_alerts": strconv.Itoa(mt.FalseAlerts), "false_alerts_per_day": num(mt.FalseAlertsPerDay),
+					"median_delay_s": num(mt.MedianDelayS), "isolated_top3": strconv.Itoa(mt.IsolatedTop3),
+					"alerts": strconv.Itoa(s.Alerts), "frames": strconv.FormatUint(s.Frames, 10),
+				}
+				for k, v := range want {
+					if row[k] != v {
+						t.Errorf("%s: %s = %q in tune, %q in replay", tc.config(row), k, row[k], v)
+					}
+				}
+			}
+			if pareto == 0 {
+				t.Error("no row on the Pareto front")
+			}
+			if !strings.Contains(stdout, "rank") || !strings.Contains(stdout, "*") {
+				t.Errorf("table:\n%s", stdout)
+			}
+			// The best setting is a configuration that check accepts.
+			if code, o, e := runCLI(t, "", "check", "--config", filepath.Join(out, "best.yaml")); code != ExitOK {
+				t.Errorf("check best.yaml: exit %d\n%s%s", code, o, e)
+			}
+		})
 	}
 }
 
