@@ -71,6 +71,25 @@ const (
 )
 
 // SPEForm selects the SPE control limit.
+//
+// Which to choose. Both approximate the (1 − α) quantile of
+// Q = Σ λⱼzⱼ² over the residual roots λⱼ. Box's limit is exact when the
+// roots are equal and stays close while they are spread without a dominant
+// one, the usual case of a unit with many channels and a residual made of
+// sensor noise: on the Tennessee Eastman correlation (52 channels, 11
+// modes) it gives 1.09 % false alarms at α = 1 % (JM 0.99 %). When one or
+// two residual roots dominate (too few modes for the structure, or a few
+// channels much noisier than the rest) Box runs high: 1.40 % at α = 1 % on
+// a 20-channel model whose largest residual root is 3.4 × their mean,
+// where JM gives 0.84 % (TestFalseAlarmRate; LIMITS.md §3.2 S5–S8 give Box
+// 1.11–1.18 % and JM 0.80–0.89 %). JM is also conservative at small α
+// where Box is liberal. Rule: keep Box (cheap, O(p²r) per refresh) unless
+// the false-alarm rate matters more than the cost of θ₃ (O(p³) per
+// refresh) or the residual spectrum is known to be dominated by a few
+// roots; a useful sign is Box's h = θ₁²/θ₂ well below the number of
+// residual dimensions (27 of 41 on the plant model, 10.8 of 17 on the hard
+// one). An empirical limit (Calibrate) over a long normal reference log
+// avoids the question.
 type SPEForm int
 
 const (
@@ -151,7 +170,8 @@ type Config struct {
 	// Batch is the number of complete frames folded into the covariance by
 	// one rank-B update (default 64).
 	Batch int
-	// T2Limit and SPELimit select the theoretical limits.
+	// T2Limit and SPELimit select the theoretical limits (see T2Form and
+	// SPEForm for which to choose when). Defaults: the F form and Box.
 	T2Limit  T2Form
 	SPELimit SPEForm
 	// RBCIndex selects the index of the reconstruction-based contributions.

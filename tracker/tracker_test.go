@@ -9,7 +9,9 @@ import (
 	"time"
 
 	"gonum.org/v1/gonum/mat"
+	"gonum.org/v1/gonum/stat"
 
+	"modewatch/tracker/limits"
 	"modewatch/tracker/modes"
 )
 
@@ -67,61 +69,154 @@ func (s *gaussSource) frames(n, p int) [][]float64 {
 	return out
 }
 
+// tepCorrelation is the correlation matrix of rows 21–500 of the Tennessee
+// Eastman normal-operation run d00.dat (testdata/tep, 52 variables): the
+// joint behaviour of a real process model, used as the known covariance of
+// plant-like test frames.
+func tepCorrelation(t testing.TB) *mat.SymDense {
+	rows := loadTEP(t, "d00.dat")[20:500]
+	x := mat.NewDense(len(rows), 52, nil)
+	for i, r := range rows {
+		x.SetRow(i, r)
+	}
+	c := mat.NewSymDense(52, nil)
+	stat.CorrelationMatrix(c, x, nil)
+	return c
+}
+
+// residualRoots returns the eigenvalues of the residual covariance
+// R = C̃ S C̃ (C̃ = I − QQᵀ from the tracker's model) of frames with
+// standardized covariance s, dropping the r null roots of span(Q) (gonum
+// EigenSym as the reference).
+func residualRoots(tr *Tracker, s *mat.SymDense) []float64 {
+	m := tr.mdl
+	p := m.p
+	c := mat.NewDense(p, p, nil)
+	for i := 0; i < p; i++ {
+		for j := 0; j < p; j++ {
+			v := 0.0
+			for k := 0; k < m.rq; k++ {
+				v -= m.q[i*m.maxR+k] * m.q[j*m.maxR+k]
+			}
+			if i == j {
+				v++
+			}
+			c.Set(i, j, v)
+		}
+	}
+	var cs, r mat.Dense
+	cs.Mul(c, s)
+	r.Mul(&cs, c)
+	rs := mat.NewSymDense(p, nil)
+	for i := 0; i < p; i++ {
+		for j := i; j < p; j++ {
+			rs.SetSym(i, j, (r.At(i, j)+r.At(j, i))/2)
+		}
+	}
+	var es mat.EigenSym
+	es.Factorize(rs, false)
+	return es.Values(nil)[m.rq:]
+}
+
 // False-alarm rate at α = 0.01 on 200,000 seeded in-control Gaussian frames
 // with a known correlation: T² and SPE exceed their limits on 0.7–1.3 % of
 // frames (a property of the limits: Montgomery, Introduction to Statistical
-// Quality Control, ch. 11; Jackson & Mudholkar 1979). The model is a
-// baseline fitted on 50,000 frames, so the F form (effective sample size
-// 50,000) is within 0.1 % of the χ² form; LIMITS.md warns the F form is
-// conservative for small n. Both T² forms are checked. The SPE band is
-// checked with the Jackson–Mudholkar limit; Box's approximation runs high on
-// this model (unequal residual eigenvalues: LIMITS.md S5–S8 give 1.1–1.2 %,
-// here it reaches about 1.4 %), and its rate is logged, not asserted.
+// Quality Control, ch. 11; Jackson & Mudholkar 1979). Each model is a
+// baseline fitted on 50,000 frames (F-form T² with n_eff = 50,000, within
+// 0.1 % of the χ² form; LIMITS.md T12 warns the F form is conservative for
+// small n). Besides the band, every SPE rate is compared with the exact
+// tail probability of Q = Σ λⱼzⱼ² at the limit used (Imhof 1961 over the
+// residual roots of the fitted model under the true correlation): the rate
+// must be within 0.12 % of it (binomial s.e. 0.022 %, plus the fit's error).
+//
+// Models:
+//
+//   - plant: the correlation of the Tennessee Eastman normal run (52
+//     channels, testdata/tep) with the 11 dense modes of the published PCA
+//     monitoring set-up. A real process's structure: 41 residual roots
+//     spread without a single dominant one (largest 1.28, mean 0.58; Box's
+//     h = θ₁²/θ₂ = 27 of 41). The default configuration (F-form T², Box
+//     SPE) must hold the 0.7–1.3 % band here. Measured (seed 43): T²
+//     0.99 %, SPE (Box) 1.13 % against an exact tail of 1.09 % at its
+//     limit; with JM, SPE 1.04 % (exact 0.99 %).
+//   - dominant root: a 20-channel, 3-factor random model with 3 modes whose
+//     residual has one dominant root (0.56 against a mean of 0.17; h = 10.8
+//     of 17), the hardest case for Box (LIMITS.md §3.2 guidance). Box runs
+//     high: measured 1.37 %, exact tail 1.40 %, outside the band; this is
+//     asserted as its own band (1.25–1.5 %, and an exact tail ≥ 1.3 %),
+//     showing why the Jackson–Mudholkar limit exists: JM holds the band
+//     here (measured 0.81 %, exact 0.84 %). T² 0.97 % with the χ² and the F
+//     form.
+//
+// φ is logged, not asserted (the band is for T² and SPE): 1.15 %
+// (plant) and 1.26 % (dominant root).
 func TestFalseAlarmRate(t *testing.T) {
-	const p, nFit, n = 20, 50000, 200000
-	rng := rand.New(rand.NewPCG(41, 42))
-	corr := randomCov(rng, p, 3)
+	const nFit, n = 50000, 200000
+	plant := tepCorrelation(t)
+	dominant := randomCov(rand.New(rand.NewPCG(41, 42)), 20, 3)
 	for _, c := range []struct {
-		form T2Form
-		spe  SPEForm
-	}{{T2F, SPEJacksonMudholkar}, {T2ChiSquare, SPEJacksonMudholkar}, {T2ChiSquare, SPEBox}} {
-		form := c.form
-		src := newGaussSource(43, corr)
-		tr, err := New(p, Config{Modes: modes.Config{Count: 3}, T2Limit: form, SPELimit: c.spe, FlatFrames: -1})
-		if err != nil {
-			t.Fatal(err)
-		}
-		if err := tr.Fit(src.frames(nFit, p)); err != nil {
-			t.Fatal(err)
-		}
-		var sc Score
-		x := make([]float64, p)
-		var over [3]int
-		for k := 0; k < n; k++ {
-			if err := tr.Evaluate(&sc, src.frame(x), nil); err != nil {
+		name         string
+		corr         *mat.SymDense
+		modes        int
+		form         T2Form
+		spe          SPEForm
+		speLo, speHi float64 // band asserted for SPE
+		t2Lo, t2Hi   float64
+		exactLo      float64 // exact SPE tail at the limit must be ≥ this (0: unchecked)
+	}{
+		{"plant, default (F, Box)", plant, 11, T2F, SPEBox, 0.007, 0.013, 0.007, 0.013, 0},
+		{"plant, JM", plant, 11, T2F, SPEJacksonMudholkar, 0.007, 0.013, 0.007, 0.013, 0},
+		{"dominant root, Box", dominant, 3, T2ChiSquare, SPEBox, 0.0125, 0.015, 0.007, 0.013, 0.013},
+		{"dominant root, JM", dominant, 3, T2F, SPEJacksonMudholkar, 0.007, 0.013, 0.007, 0.013, 0},
+	} {
+		t.Run(c.name, func(t *testing.T) {
+			p := c.corr.SymmetricDim()
+			src := newGaussSource(43, c.corr)
+			tr, err := New(p, Config{Modes: modes.Config{Count: c.modes}, T2Limit: c.form, SPELimit: c.spe, FlatFrames: -1})
+			if err != nil {
 				t.Fatal(err)
 			}
-			if sc.T2 > sc.T2Limit {
-				over[0]++
+			if err := tr.Fit(src.frames(nFit, p)); err != nil {
+				t.Fatal(err)
 			}
-			if sc.SPE > sc.SPELimit {
-				over[1]++
+			var sc Score
+			x := make([]float64, p)
+			var over [3]int
+			for k := 0; k < n; k++ {
+				if err := tr.Evaluate(&sc, src.frame(x), nil); err != nil {
+					t.Fatal(err)
+				}
+				if sc.T2 > sc.T2Limit {
+					over[0]++
+				}
+				if sc.SPE > sc.SPELimit {
+					over[1]++
+				}
+				if sc.Phi > sc.PhiLimit {
+					over[2]++
+				}
 			}
-			if sc.Phi > sc.PhiLimit {
-				over[2]++
+			rates := [3]float64{float64(over[0]) / n, float64(over[1]) / n, float64(over[2]) / n}
+			roots := residualRoots(tr, c.corr)
+			th := limits.ThetaFromEigen(roots)
+			_, h := limits.BoxParams(th)
+			exact := imhofTail(sc.SPELimit, roots)
+			t.Logf("%s: limits T² %.4f SPE %.4f φ %.4f; exceedances T² %.3f%% SPE %.3f%% (exact tail at this limit %.3f%%, Imhof) φ %.3f%%; residual roots: %d, largest %.3f, mean %.3f, Box h %.1f",
+				c.name, sc.T2Limit, sc.SPELimit, sc.PhiLimit, 100*rates[0], 100*rates[1], 100*exact, 100*rates[2],
+				len(roots), roots[len(roots)-1], th.T1/float64(len(roots)), h)
+			if rates[0] < c.t2Lo || rates[0] > c.t2Hi {
+				t.Errorf("T² false-alarm rate %.3f%% outside %.2f–%.2f %%", 100*rates[0], 100*c.t2Lo, 100*c.t2Hi)
 			}
-		}
-		rates := [3]float64{float64(over[0]) / n, float64(over[1]) / n, float64(over[2]) / n}
-		t.Logf("T² form %d, SPE form %d: limits T² %.4f SPE %.4f φ %.4f; exceedances T² %.4f%% SPE %.4f%% φ %.4f%%",
-			form, c.spe, sc.T2Limit, sc.SPELimit, sc.PhiLimit, 100*rates[0], 100*rates[1], 100*rates[2])
-		for j, name := range []string{"T²", "SPE"} {
-			if j == 1 && c.spe == SPEBox {
-				continue
+			if rates[1] < c.speLo || rates[1] > c.speHi {
+				t.Errorf("SPE false-alarm rate %.3f%% outside %.2f–%.2f %%", 100*rates[1], 100*c.speLo, 100*c.speHi)
 			}
-			if rates[j] < 0.007 || rates[j] > 0.013 {
-				t.Errorf("%s false-alarm rate %.4f%% outside 0.7–1.3 %%", name, 100*rates[j])
+			if math.Abs(rates[1]-exact) > 0.0012 {
+				t.Errorf("SPE false-alarm rate %.3f%% differs from the exact tail %.3f%% at its limit", 100*rates[1], 100*exact)
 			}
-		}
+			if exact < c.exactLo {
+				t.Errorf("exact SPE tail %.3f%% below %.2f%%: the model is not the hard case it is meant to be", 100*exact, 100*c.exactLo)
+			}
+		})
 	}
 }
 
