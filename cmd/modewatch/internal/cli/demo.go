@@ -248,7 +248,9 @@ loop:
 		}
 		fmt.Fprintf(w, "   %-20s %-9s %-36s %s\n", e.ID, e.Kind, strings.Join(e.Channels, ","), status)
 	}
-	fmt.Fprintln(w, "\nThe same log can be replayed offline:  modewatch sim --out demo && modewatch replay demo/readings.lp --truth demo/truth.json")
+	fmt.Fprintln(w, "\nThe same plant offline: modewatch sim --out demo; modewatch sim --duration 24h --out demo-day1;")
+	fmt.Fprintln(w, "  modewatch fit --out demo/model.json demo-day1/readings.lp;")
+	fmt.Fprintln(w, "  modewatch replay --model demo/model.json --truth demo/truth.json demo/readings.lp")
 	fmt.Fprintln(w, service.Caution)
 	return nil
 }
