@@ -2,6 +2,7 @@ package tracker
 
 import (
 	"errors"
+	"fmt"
 	"math"
 	"math/rand/v2"
 	"slices"
@@ -280,49 +281,150 @@ func fiftyChannelModel(kind int) *mat.SymDense {
 	return s
 }
 
-// A single-sensor bias of 3 standard deviations on a 50-channel correlated
-// model: RBC puts the faulty channel first in at least 95 % of seeded
-// trials (Alcalá & Qin 2009); plain SPE contributions can smear (Westerhuis,
-// Gurden & Smilde 2000); all rates are logged.
-//
-// Models: 0, five factors over overlapping groups of ten channels; 1, the
-// same with a few dominant channels per factor and small noise; 2, five
-// factors over five redundant sensor pairs each; 3, twenty-five independent
-// redundant pairs (correlation 0.98) with one two-channel sparse mode per
-// pair. In models 0–2 plain SPE contributions do not smear much and every
-// method ranks the faulty channel first; model 3 is where they smear: the
-// two sensors of a pair have the same residual direction, so plain SPE
-// contributions and the RBC of SPE cannot tell them apart (about 50 % and
-// 36 % first), and only the RBC of φ, which also weighs the T² part,
-// separates them. There RBC(φ)
-// reaches about 93.5 %, short of the 95 % asked for models 0–2; that rate is
-// asserted only as a floor of 85 %.
-func TestRBCSingleSensorBias(t *testing.T) {
-	for kind := 0; kind < 4; kind++ {
-		rbc, plain := rbcBias(t, kind)
-		if kind < 3 && rbc < 0.95 {
-			t.Errorf("model %d: RBC(φ) ranks the faulty channel first in %.1f%% of trials, want ≥ 95%%", kind, 100*rbc)
+// mixedSensorModel: 50 channels, k latent factors; channel i is a mixture
+// of 1 to maxPer factors (random signed weights) plus sensor noise scaled so
+// that the factors explain the share comm of its variance; returned as a
+// correlation matrix (seeded).
+func mixedSensorModel(k int, comm float64, maxPer int, seed uint64) *mat.SymDense {
+	const p = 50
+	rng := rand.New(rand.NewPCG(seed, 7))
+	f := mat.NewDense(p, k, nil)
+	noise := make([]float64, p)
+	for i := 0; i < p; i++ {
+		n := 1 + rng.IntN(maxPer)
+		for a := 0; a < n; a++ {
+			m := rng.IntN(k)
+			f.Set(i, m, f.At(i, m)+rng.NormFloat64())
 		}
-		if kind == 3 && (rbc < 0.85 || plain > 0.6 || rbc < plain+0.3) {
-			t.Errorf("model 3 (redundant pairs): RBC(φ) %.1f%%, plain SPE %.1f%%: expected RBC(φ) ≥ 85%% and plain smeared", 100*rbc, 100*plain)
+		s := 0.0
+		for _, v := range f.RawRowView(i) {
+			s += v * v
+		}
+		noise[i] = s * (1 - comm) / comm
+	}
+	c := mat.NewSymDense(p, nil)
+	c.SymOuterK(1, f)
+	for i := 0; i < p; i++ {
+		c.SetSym(i, i, c.At(i, i)+noise[i])
+	}
+	d := make([]float64, p)
+	for i := range d {
+		d[i] = 1 / math.Sqrt(c.At(i, i))
+	}
+	for i := 0; i < p; i++ {
+		for j := i; j < p; j++ {
+			c.SetSym(i, j, c.At(i, j)*d[i]*d[j])
 		}
 	}
+	return c
 }
 
-// rbcBias returns the share of trials in which the faulty channel is ranked
-// first by RBC(φ) and by its plain SPE contribution.
-func rbcBias(t *testing.T, kind int) (rbcPhi, plainSPE float64) {
-	const p, trials = 50, 2000
-	corr := fiftyChannelModel(kind)
-	src := newGaussSource(53, corr)
-	fit := src.frames(20000, p)
-	rates := map[Index]float64{}
-	var plainRate, t2Rate float64
-	for _, idx := range []Index{IndexCombined, IndexSPE} {
+// smearedChannels counts the channels j for which a pure bias on j gives
+// some other channel a larger plain SPE contribution, |C̃ᵢⱼ| > C̃ⱼⱼ, with
+// C̃ = I − VVᵀ from the r leading eigenvectors of corr (gonum EigenSym).
+func smearedChannels(corr *mat.SymDense, r int) int {
+	p := corr.SymmetricDim()
+	v := eigenLoadings(corr, r)
+	var vv mat.Dense
+	vv.Mul(v, v.T())
+	n := 0
+	for j := 0; j < p; j++ {
+		cjj := 1 - vv.At(j, j)
+		for i := 0; i < p; i++ {
+			if i != j && math.Abs(vv.At(i, j)) > cjj {
+				n++
+				break
+			}
+		}
+	}
+	return n
+}
+
+// A single-sensor bias of 3 standard deviations on a 50-channel correlated
+// model where plain SPE contributions smear: RBC puts the faulty channel
+// first in at least 95 % of seeded trials (Alcalá & Qin 2009), while plain
+// SPE contributions, which smear (Westerhuis, Gurden & Smilde 2000; LIMITS.md
+// §5.2), do so clearly less often. 2,000 trials per model, the faulty
+// channel drawn uniformly.
+//
+// The smearing models ("mixed sensors"): 30 latent factors, each channel a
+// mixture of 1–3 of them with 1 % sensor noise, 30 dense modes (the
+// correlation-matrix analogue of LIMITS.md §5.2: standardizing equalises a
+// single factor's loadings, so the dominance comes from channels shared
+// between factors, which the modes explain almost entirely: small C̃ⱼⱼ,
+// large |C̃ᵢⱼ|). Seeds 17 and 19 were taken from a search over
+// generator seeds for models with the most smearing channels (21 of 50
+// under the population model); the search did not look at RBC. Measured:
+//
+//	seed 17: RBC(φ) 95.8 %, RBC(φ)/limit 96.9 %, RBC(SPE) 72.2 %, plain SPE 57.2 %
+//	seed 19: RBC(φ) 97.2 %, RBC(φ)/limit 97.7 %, RBC(SPE) 73.6 %, plain SPE 56.1 %
+//
+// Asserted: RBC(φ) ≥ 95 %, plain ≤ 70 %, and at least 15 smearing channels.
+// The RBC of SPE alone does not reach 95 % here: with 30 of 50 dimensions
+// in the modes the residual space is too small to separate the channels,
+// and the default index φ adds the T² part.
+//
+// Extra models, where plain contributions do not smear or smear for a
+// structural reason: 0, five factors over overlapping groups of ten
+// channels; 1, the same with a few dominant channels per factor and small
+// noise; 2, five factors over five redundant sensor pairs each (all three:
+// every method ≥ 95 %, asserted for RBC(φ)); 3, twenty-five independent
+// redundant pairs (correlation 0.98) with one two-channel sparse mode per
+// pair: the two sensors of a pair have the same residual direction, so plain
+// contributions and the RBC of SPE cannot tell them apart (49.6 % and 35.4 %
+// first), and only the RBC of φ separates them, through the sign agreement
+// of its T² and SPE parts: 93.5 %, asserted as a floor of 85 %.
+//
+// Ranking by RBC or by RBC over its own limit (RBCᵢ/(gᵢχ²₁), whose
+// in-control distribution is the same for every channel): the ratio was
+// 0.5–1 point better on the smearing models and 0.5 point worse on model 1
+// (96.7 % against 97.2 %). Score.Contrib stays ranked by RBC: for a pure
+// single-sensor fault RBC alone guarantees the faulty channel the largest
+// value (LIMITS.md R7, Alcalá & Qin 2009), the ratio does not; each
+// Contribution carries RBCLimit, so the ratio is at hand.
+func TestRBCSingleSensorBias(t *testing.T) {
+	for _, seed := range []uint64{17, 19} {
+		corr := mixedSensorModel(30, 0.99, 3, seed)
+		sm := smearedChannels(corr, 30)
+		r := rbcBias(t, fmt.Sprintf("mixed sensors, seed %d", seed), corr, modes.Config{Count: 30})
+		if sm < 15 {
+			t.Errorf("seed %d: only %d channels smear under the population model", seed, sm)
+		}
+		if r.rbcPhi < 0.95 {
+			t.Errorf("seed %d: RBC(φ) ranks the faulty channel first in %.1f%% of trials, want ≥ 95%%", seed, 100*r.rbcPhi)
+		}
+		if r.plain > 0.70 {
+			t.Errorf("seed %d: plain SPE contributions rank the faulty channel first in %.1f%%: the model does not smear", seed, 100*r.plain)
+		}
+	}
+	for kind := 0; kind < 4; kind++ {
 		mc := modes.Config{Count: 5}
 		if kind == 3 {
 			mc = modes.Config{Count: 25, Sparsity: []modes.Sparsity{{Method: modes.L0, K: 2}}}
 		}
+		r := rbcBias(t, fmt.Sprintf("model %d", kind), fiftyChannelModel(kind), mc)
+		if kind < 3 && r.rbcPhi < 0.95 {
+			t.Errorf("model %d: RBC(φ) ranks the faulty channel first in %.1f%% of trials, want ≥ 95%%", kind, 100*r.rbcPhi)
+		}
+		if kind == 3 && (r.rbcPhi < 0.85 || r.plain > 0.6 || r.rbcPhi < r.plain+0.3) {
+			t.Errorf("model 3 (redundant pairs): RBC(φ) %.1f%%, plain SPE %.1f%%: expected RBC(φ) ≥ 85%% and plain smeared", 100*r.rbcPhi, 100*r.plain)
+		}
+	}
+}
+
+type rbcRates struct {
+	rbcPhi, rbcPhiRatio, rbcSPE, plain, t2 float64
+}
+
+// rbcBias returns the share of trials in which the faulty channel is ranked
+// first by RBC(φ) (Score.Contrib), by RBC(φ) over its limit, by RBC(SPE)
+// and by its plain SPE and T² contributions.
+func rbcBias(t *testing.T, name string, corr *mat.SymDense, mc modes.Config) rbcRates {
+	const p, trials = 50, 2000
+	src := newGaussSource(53, corr)
+	fit := src.frames(20000, p)
+	var out rbcRates
+	for _, idx := range []Index{IndexCombined, IndexSPE} {
 		tr, err := New(p, Config{Modes: mc, RBCIndex: idx, FlatFrames: -1})
 		if err != nil {
 			t.Fatal(err)
@@ -334,9 +436,10 @@ func rbcBias(t *testing.T, kind int) (rbcPhi, plainSPE float64) {
 		fsrc := newGaussSource(56, corr)
 		var sc Score
 		x := make([]float64, p)
+		rbc := make([]float64, p)
 		spe := make([]float64, p)
 		t2c := make([]float64, p)
-		first, plain, t2first := 0, 0, 0
+		first, ratio, plain, t2first := 0, 0, 0, 0
 		for k := 0; k < trials; k++ {
 			j := trng.IntN(p)
 			fsrc.frame(x)
@@ -347,21 +450,32 @@ func rbcBias(t *testing.T, kind int) (rbcPhi, plainSPE float64) {
 			if len(sc.Contrib) > 0 && sc.Contrib[0].Channel == j {
 				first++
 			}
-			tr.ContributionsTo(nil, spe, t2c)
+			tr.ContributionsTo(rbc, spe, t2c)
 			if argmax(spe) == j {
 				plain++
 			}
 			if argmax(t2c) == j {
 				t2first++
 			}
+			for i := range rbc {
+				rbc[i] /= tr.mdl.base.rbcLim[i]
+			}
+			if argmax(rbc) == j {
+				ratio++
+			}
 		}
-		rates[idx] = float64(first) / trials
-		plainRate = float64(plain) / trials
-		t2Rate = float64(t2first) / trials
+		if idx == IndexCombined {
+			out.rbcPhi = float64(first) / trials
+			out.rbcPhiRatio = float64(ratio) / trials
+		} else {
+			out.rbcSPE = float64(first) / trials
+		}
+		out.plain = float64(plain) / trials
+		out.t2 = float64(t2first) / trials
 	}
-	t.Logf("model %d: faulty channel ranked first: RBC(φ) %.1f%%, RBC(SPE) %.1f%%, plain SPE contribution %.1f%%, T² contribution %.1f%% (%d trials)",
-		kind, 100*rates[IndexCombined], 100*rates[IndexSPE], 100*plainRate, 100*t2Rate, trials)
-	return rates[IndexCombined], plainRate
+	t.Logf("%s: faulty channel ranked first: RBC(φ) %.1f%%, RBC(φ)/limit %.1f%%, RBC(SPE) %.1f%%, plain SPE contribution %.1f%%, T² contribution %.1f%% (%d trials)",
+		name, 100*out.rbcPhi, 100*out.rbcPhiRatio, 100*out.rbcSPE, 100*out.plain, 100*out.t2, trials)
+	return out
 }
 
 func (e *EW) sdOf(i int) float64 { return math.Sqrt(e.Var(i)) }
