@@ -284,3 +284,44 @@ func BenchmarkFrameOverDecode(b *testing.B) {
 	b.ReportMetric(float64(tModel.Nanoseconds())/float64(b.N), "model-ns/frame")
 	benchSink += sum + sc.T2
 }
+
+// BenchmarkMissingPattern measures, at p = 500 with r = 5, the work a new
+// missing pattern costs: the factor of A + εI (once per refresh, at the
+// first incomplete frame) and a new 3-channel pattern (precision rows, H,
+// K, reduced limits), both into preallocated storage.
+func BenchmarkMissingPattern(b *testing.B) {
+	const p = 500
+	frames := benchFrames(p, 256)
+	tr, err := New(p, Config{Period: time.Second, HalfLife: time.Hour, WarmUp: 256, RefreshEvery: 1 << 30,
+		Modes: modes.Config{Count: 5, Sparsity: []modes.Sparsity{{Method: modes.L0, K: 10}}}})
+	if err != nil {
+		b.Fatal(err)
+	}
+	var sc Score
+	for k := 0; k < 300; k++ {
+		tr.Step(&sc, frames[k%256], nil)
+	}
+	m := tr.mdl
+	if err := m.factorRidge(tr.cfg.Ridge); err != nil {
+		b.Fatal(err)
+	}
+	b.Run("factor", func(b *testing.B) {
+		b.ReportAllocs()
+		for i := 0; i < b.N; i++ {
+			if err := m.factorRidge(tr.cfg.Ridge); err != nil {
+				b.Fatal(err)
+			}
+		}
+	})
+	b.Run("pattern3", func(b *testing.B) {
+		b.ReportAllocs()
+		for i := 0; i < b.N; i++ {
+			m.nCache = 0 // force a new pattern
+			miss := []int{i % p, (i + 17) % p, (i + 301) % p}
+			slices.Sort(miss)
+			if _, err := m.lookupPattern(miss, &tr.ls, tr.cfg.Ridge, tr.cfg.PatternCache); err != nil {
+				b.Fatal(err)
+			}
+		}
+	})
+}

@@ -45,12 +45,14 @@ type model struct {
 
 	nEff float64
 
-	base  *pattern   // no channel missing
-	cache []*pattern // missing patterns seen since the refresh (bounded)
-	next  int        // round-robin replacement in cache
+	base    *pattern   // no channel missing
+	slots   []*pattern // preallocated cache slots for missing patterns
+	nCache  int        // slots in use since the refresh
+	next    int        // round-robin replacement among the slots
+	scratch *pattern   // the slot used when caching is off
 
-	omega   *mat.SymDense // (A + εI)⁻¹, computed at the first incomplete frame
-	omegaOK bool
+	chol   []float64 // lower Cholesky factor of A + εI (p × p), allocated at the first incomplete frame
+	cholOK bool      // chol is the factor of the current A
 
 	// scratch (maxR-sized)
 	sc1, sc2, sc3, eig []float64
@@ -62,6 +64,8 @@ type pattern struct {
 	miss []int     // missing channels (sorted)
 	h    []float64 // |m| × p: ẑ_m = H z with z_m = 0 (conditional expectation)
 	kc   []float64 // |m| × |m| conditional covariance K = A_{m|o}
+	fac  []float64 // |m| × |m| Cholesky factor of Ω_mm (scratch of conditional)
+	tmp  []float64 // |m| scratch
 
 	minv   []float64 // pseudo-inverse of M' = PᵀS'P, maxR × maxR
 	rank   int       // rank of M'
@@ -76,7 +80,13 @@ type pattern struct {
 	err    error
 }
 
-func newModel(p, maxR int) *model {
+// patternPrealloc is the number of missing channels per pattern for which a
+// cache slot is preallocated (H: patternPrealloc·p values, K and the factor
+// patternPrealloc² each). A pattern with more missing channels grows its
+// slot once (an allocation); the slot keeps the larger buffers.
+const patternPrealloc = 16
+
+func newModel(p, maxR, slots int) *model {
 	m := &model{
 		p: p, maxR: maxR,
 		a:       mat.NewSymDense(p, nil),
@@ -90,16 +100,41 @@ func newModel(p, maxR int) *model {
 		sc1:     make([]float64, maxR*maxR), sc2: make([]float64, maxR*maxR),
 		sc3: make([]float64, maxR*maxR), eig: make([]float64, maxR*maxR), ev: make([]float64, maxR),
 	}
-	m.base = m.newPattern(nil)
+	m.base = m.newPattern(0)
+	m.slots = make([]*pattern, slots)
+	for i := range m.slots {
+		m.slots[i] = m.newPattern(min(p, patternPrealloc))
+	}
 	return m
 }
 
-func (m *model) newPattern(miss []int) *pattern {
-	k := len(miss)
+// newPattern returns a pattern with storage for up to k missing channels.
+func (m *model) newPattern(k int) *pattern {
 	return &pattern{
-		miss: miss, h: make([]float64, k*m.p), kc: make([]float64, k*k),
+		miss: make([]int, 0, k), h: make([]float64, k*m.p), kc: make([]float64, k*k),
+		fac: make([]float64, k*k), tmp: make([]float64, k),
 		minv: make([]float64, m.maxR*m.maxR),
 		dd:   make([]float64, m.p), rbcInv: make([]float64, m.p), rbcLim: make([]float64, m.p),
+	}
+}
+
+// setMiss sets the pattern's missing set, growing its storage if it holds
+// more channels than the slot was sized for.
+func (pt *pattern) setMiss(miss []int, p int) {
+	k := len(miss)
+	if cap(pt.miss) < k {
+		pt.miss = make([]int, 0, k)
+	}
+	pt.miss = append(pt.miss[:0], miss...)
+	if len(pt.h) < k*p {
+		pt.h = make([]float64, k*p)
+	}
+	if len(pt.kc) < k*k {
+		pt.kc = make([]float64, k*k)
+		pt.fac = make([]float64, k*k)
+	}
+	if len(pt.tmp) < k {
+		pt.tmp = make([]float64, k)
 	}
 }
 
@@ -219,9 +254,9 @@ func (m *model) setLoadings(pm mat.Matrix) {
 		m.trA += row[0]
 		m.aFro2 += row[0]*row[0] + 2*floats.Dot(row[1:], row[1:])
 	}
-	m.cache = m.cache[:0]
+	m.nCache = 0
 	m.next = 0
-	m.omegaOK = false
+	m.cholOK = false
 }
 
 // symTimesSparse sets the first ncol columns of dst (p × maxR) to A·src,

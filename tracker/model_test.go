@@ -16,7 +16,7 @@ func testModel(t *testing.T, s *mat.SymDense, pm *mat.Dense, idx Index) (*model,
 	t.Helper()
 	p := s.SymmetricDim()
 	_, r := pm.Dims()
-	m := newModel(p, r)
+	m := newModel(p, r, 4)
 	m.a.CopySym(s)
 	for i := range m.include {
 		m.include[i] = true
@@ -242,7 +242,8 @@ func TestRBCPureFault(t *testing.T) {
 }
 
 // Missing channels: the imputed values are the Gaussian conditional
-// expectation A_mo A_oo⁻¹ z_o (gonum solve as the reference), and the
+// expectation A_mo A_oo⁻¹ z_o and K the conditional covariance
+// A_mm − A_mo A_oo⁻¹ A_om (gonum Cholesky solves as the reference), and the
 // reduced problem's T² covariance M' and residual traces θ match the
 // moments of the imputed frames (E[SPE] = θ₁, Var[SPE] = 2θ₂; Monte Carlo).
 func TestMissingConditional(t *testing.T) {
@@ -265,6 +266,25 @@ func TestMissingConditional(t *testing.T) {
 		}
 	}
 	chol.Factorize(aoo)
+	// K = A_mm − A_mo A_oo⁻¹ A_om (Schur complement, gonum Cholesky solve as
+	// the reference), to the ridge ε = 1e-10.
+	aom := mat.NewDense(len(obs), len(miss), nil)
+	for a, i := range obs {
+		for b, j := range miss {
+			aom.Set(a, b, s.At(i, j))
+		}
+	}
+	var sol mat.Dense
+	if err := chol.SolveTo(&sol, aom); err != nil {
+		t.Fatal(err)
+	}
+	var schur mat.Dense
+	schur.Mul(aom.T(), &sol)
+	for x, i := range miss {
+		for y, j := range miss {
+			approx(t, "conditional covariance K", pt.kc[x*len(miss)+y], s.At(i, j)-schur.At(x, y), 1e-8, 1e-8)
+		}
+	}
 	var cs mat.Cholesky
 	cs.Factorize(s)
 	var lo mat.TriDense
@@ -360,7 +380,7 @@ func TestThetaMatchesEigen(t *testing.T) {
 	const p, r = 15, 4
 	s := randomCov(rng, p, 3)
 	pm := eigenLoadings(s, r)
-	m := newModel(p, r)
+	m := newModel(p, r, 4)
 	m.a.CopySym(s)
 	for i := range m.include {
 		m.include[i] = true

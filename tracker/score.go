@@ -4,8 +4,6 @@ import (
 	"fmt"
 	"math"
 	"slices"
-
-	"gonum.org/v1/gonum/mat"
 )
 
 // work is the per-frame scratch of the scoring path (sized in New).
@@ -109,106 +107,193 @@ func (m *model) scoreZ(w *work, pt *pattern, rbc Index) (t2, spe, phi float64) {
 	return t2, spe, phi
 }
 
-// lookupPattern returns the cached pattern for the missing set w.miss,
-// computing it (and, at the first incomplete frame after a refresh, the
-// regularised precision matrix Ω = (A + εI)⁻¹) when it is new.
+// lookupPattern returns the pattern for the missing set miss: from the
+// cache when seen since the refresh, else computed into a preallocated
+// cache slot (round-robin replacement once all cacheMax slots are used).
+// At the first incomplete frame after a refresh it factors A + εI.
 func (m *model) lookupPattern(miss []int, ls *limitSpec, ridge float64, cacheMax int) (*pattern, error) {
 	if len(miss) == 0 {
 		return m.base, nil
 	}
-	for _, pt := range m.cache {
+	for _, pt := range m.slots[:m.nCache] {
 		if slices.Equal(pt.miss, miss) {
 			return pt, nil
 		}
 	}
-	if !m.omegaOK {
-		if err := m.computeOmega(ridge); err != nil {
+	if !m.cholOK {
+		if err := m.factorRidge(ridge); err != nil {
 			return nil, err
 		}
 	}
-	pt := m.newPattern(slices.Clone(miss))
+	var pt *pattern
+	switch {
+	case cacheMax <= 0:
+		pt = m.scratchSlot() // not cached
+	case m.nCache < cacheMax && m.nCache < len(m.slots):
+		pt = m.slots[m.nCache]
+		m.nCache++
+	default:
+		n := min(cacheMax, len(m.slots))
+		pt = m.slots[m.next%n]
+		m.next = (m.next + 1) % n
+	}
+	pt.setMiss(miss, m.p)
 	if err := m.conditional(pt, ridge); err != nil {
+		// Leave the slot unusable for lookups until it is rewritten.
+		pt.miss = append(pt.miss[:0], -1)
 		return nil, err
 	}
 	m.computePattern(pt, ls)
-	if len(m.cache) < cacheMax {
-		m.cache = append(m.cache, pt)
-	} else if cacheMax > 0 {
-		m.cache[m.next] = pt
-		m.next = (m.next + 1) % cacheMax
-	}
 	return pt, nil
 }
 
-// computeOmega forms Ω = (A + εI)⁻¹ by Cholesky: O(p³), once per refresh and
-// only when an incomplete frame arrives.
-func (m *model) computeOmega(ridge float64) error {
-	p := m.p
-	reg := mat.NewSymDense(p, nil)
-	reg.CopySym(m.a)
-	for i := 0; i < p; i++ {
-		reg.SetSym(i, i, reg.At(i, i)+ridge)
+// scratchSlot is the slot used when caching is off.
+func (m *model) scratchSlot() *pattern {
+	if m.scratch == nil {
+		m.scratch = m.newPattern(patternPrealloc)
 	}
-	var ch mat.Cholesky
-	if !ch.Factorize(reg) {
+	return m.scratch
+}
+
+// factorRidge forms the lower Cholesky factor L of A + εI in place in the
+// p × p buffer m.chol (row-major, lower triangle): O(p³/6) multiply-adds,
+// once per refresh at the first incomplete frame. The buffer is allocated
+// the first time in the tracker's life that a frame has missing channels
+// (p² values); after that the factorization allocates nothing.
+func (m *model) factorRidge(ridge float64) error {
+	p := m.p
+	if m.chol == nil {
+		m.chol = make([]float64, p*p)
+	}
+	a := m.a.RawSymmetric()
+	l := m.chol
+	for i := 0; i < p; i++ {
+		for j := 0; j <= i; j++ {
+			l[i*p+j] = a.Data[j*a.Stride+i] // A[j][i], j ≤ i, from the upper triangle
+		}
+		l[i*p+i] += ridge
+	}
+	if !cholLower(l, p, p) {
 		return fmt.Errorf("tracker: missing-data model: correlation + %g·I is not positive definite", ridge)
 	}
-	if m.omega == nil {
-		m.omega = mat.NewSymDense(p, nil)
-	}
-	if err := ch.InverseTo(m.omega); err != nil {
-		return fmt.Errorf("tracker: missing-data model: %w", err)
-	}
-	m.omegaOK = true
+	m.cholOK = true
 	return nil
 }
 
-// conditional fills the conditional-expectation operator H and the
-// conditional covariance K of the missing channels given the observed ones,
-// under the regularised model A + εI (Gaussian conditioning via the
-// precision matrix):
+// cholLower factors the symmetric positive definite n × n matrix held in
+// the lower triangle of a (row-major, stride lda) in place, a = LLᵀ
+// (Cholesky–Crout by rows, each entry one contiguous dot product):
 //
-//	K = (Ω_mm)⁻¹ − εI,   ẑ_m = −(Ω_mm)⁻¹ Ω_mo z_o
+//	Lᵢⱼ = (aᵢⱼ − Σ_{k<j} LᵢₖLⱼₖ)/Lⱼⱼ,   Lᵢᵢ = √(aᵢᵢ − Σ_{k<i} Lᵢₖ²)
 //
-// O(|m|³ + |m|²·p).
+// It reports false if a pivot is not positive (a not positive definite).
+func cholLower(a []float64, n, lda int) bool {
+	for i := 0; i < n; i++ {
+		ri := a[i*lda : i*lda+i+1]
+		for j := 0; j < i; j++ {
+			rj := a[j*lda : j*lda+j+1]
+			ri[j] = (ri[j] - dot(ri[:j], rj[:j])) / rj[j]
+		}
+		d := ri[i] - dot(ri[:i], ri[:i])
+		if !(d > 0) {
+			return false
+		}
+		ri[i] = math.Sqrt(d)
+	}
+	return true
+}
+
+// conditional fills the conditional-expectation operator H (|m| × p) and
+// the conditional covariance K (|m| × |m|) of the missing channels given the
+// observed ones, under the regularised model A + εI (Gaussian conditioning
+// via the precision matrix Ω = (A + εI)⁻¹):
+//
+//	K = (Ω_mm)⁻¹ − εI,   ẑ_m = −(Ω_mm)⁻¹ Ω_mo z_o = H z  (z_m = 0)
+//
+// The rows Ω_{m,:} come from the factor of factorRidge by two triangular
+// solves per missing channel (Ωeᵢ = L⁻ᵀL⁻¹eᵢ, O(p²) each), so Ω is never
+// formed; Ω_mm is factored by cholLower. Cost O(|m|p² + |m|²p + |m|³); all
+// storage is the pattern's (preallocated, see newPattern).
 func (m *model) conditional(pt *pattern, ridge float64) error {
 	k, p := len(pt.miss), m.p
-	om := mat.NewSymDense(k, nil)
+	l := m.chol
+	h := pt.h[:k*p]
+	// Rows of Ω for the missing channels, into h.
 	for x, i := range pt.miss {
-		for y := x; y < k; y++ {
-			om.SetSym(x, y, m.omega.At(i, pt.miss[y]))
+		y := h[x*p : (x+1)*p]
+		for j := range y {
+			y[j] = 0
+		}
+		// Forward: L y = eᵢ (y is zero before i).
+		y[i] = 1 / l[i*p+i]
+		for r := i + 1; r < p; r++ {
+			y[r] = -dot(l[r*p+i:r*p+r], y[i:r]) / l[r*p+r]
+		}
+		// Backward: Lᵀ w = y, in place.
+		for r := p - 1; r >= 0; r-- {
+			v := y[r] / l[r*p+r]
+			y[r] = v
+			if v != 0 {
+				row := l[r*p : r*p+r]
+				yy := y[:r]
+				for c, lv := range row {
+					yy[c] -= lv * v
+				}
+			}
 		}
 	}
-	var ch mat.Cholesky
-	if !ch.Factorize(om) {
+	// Ω_mm into kc and its Cholesky factor (lower) into the pattern's fac.
+	fac := pt.fac[:k*k]
+	for x := 0; x < k; x++ {
+		for y, iy := range pt.miss {
+			fac[x*k+y] = h[x*p+iy]
+		}
+	}
+	if !cholLower(fac, k, k) {
 		return fmt.Errorf("tracker: missing-data model: precision block not positive definite")
 	}
-	kinv := mat.NewSymDense(k, nil)
-	if err := ch.InverseTo(kinv); err != nil {
-		return fmt.Errorf("tracker: missing-data model: %w", err)
+	// H = −(Ω_mm)⁻¹ Ω_{m,:} column by column (solve with the factor), zero
+	// on the missing columns; K̃ = (Ω_mm)⁻¹ likewise from the unit columns.
+	v := pt.tmp[:k]
+	solve := func() {
+		for x := 0; x < k; x++ { // L u = v
+			v[x] = (v[x] - dot(fac[x*k:x*k+x], v[:x])) / fac[x*k+x]
+		}
+		for x := k - 1; x >= 0; x-- { // Lᵀ w = u
+			w := v[x] / fac[x*k+x]
+			v[x] = w
+			for y := 0; y < x; y++ {
+				v[y] -= fac[x*k+y] * w
+			}
+		}
+	}
+	for j := 0; j < p; j++ {
+		for x := 0; x < k; x++ {
+			v[x] = h[x*p+j]
+		}
+		solve()
+		for x := 0; x < k; x++ {
+			h[x*p+j] = -v[x]
+		}
+	}
+	for _, i := range pt.miss {
+		for x := 0; x < k; x++ {
+			h[x*p+i] = 0
+		}
+	}
+	kc := pt.kc[:k*k]
+	for y := 0; y < k; y++ {
+		for x := range v {
+			v[x] = 0
+		}
+		v[y] = 1
+		solve()
+		for x := 0; x < k; x++ {
+			kc[x*k+y] = v[x]
+		}
 	}
 	for x := 0; x < k; x++ {
-		for y := 0; y < k; y++ {
-			v := kinv.At(x, y)
-			if x == y {
-				v = math.Max(v-ridge, 0)
-			}
-			pt.kc[x*k+y] = v
-		}
-	}
-	// H = −K̃ Ω_{m,:} (K̃ = (Ω_mm)⁻¹), zero on the missing columns.
-	for x := 0; x < k; x++ {
-		h := pt.h[x*p : (x+1)*p]
-		for j := 0; j < p; j++ {
-			s := 0.0
-			for y, iy := range pt.miss {
-				s += kinv.At(x, y) * m.omega.At(iy, j)
-			}
-			h[j] = -s
-		}
-		for _, i := range pt.miss {
-			h[i] = 0
-		}
+		kc[x*k+x] = math.Max(kc[x*k+x]-ridge, 0)
 	}
 	return nil
 }

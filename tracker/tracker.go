@@ -29,11 +29,19 @@
 // and the limits are those of the reduced problem: the imputed frame has
 // covariance S' = A − K (K = A_{m|o}, the conditional covariance, on the
 // missing block), so T² uses (PᵀS'P)⁺ (χ² on its rank), SPE the traces of
-// C̃S'C̃, and the φ and RBC limits follow from S'. Cost: Ω is formed once per
-// refresh at the first incomplete frame (O(p³), allocating); each new
-// missing pattern costs O(|m|³ + |m|²p + p r²) and is cached (at most
-// PatternCache patterns, cleared at each refresh); a frame with a cached
-// pattern costs O(|m|·p + p·r) and allocates nothing. A missing channel's
+// C̃S'C̃, and the φ and RBC limits follow from S'. Cost: at the first
+// incomplete frame after a refresh A + εI is factored, A + εI = LLᵀ
+// (Cholesky in place, O(p³/6) multiply-adds: p = 500 about 21·10⁶); each
+// new missing pattern m then costs O(|m|·p²) for the rows of Ω (two
+// triangular solves per missing channel; Ω itself is never formed),
+// O(|m|²·p + |m|³) for H and K, and O(p r²) for its limits, and is cached
+// (at most PatternCache patterns, round-robin, cleared at each refresh); a
+// frame with a cached pattern costs O(|m|·p + p·r). Storage: PatternCache
+// slots preallocated in New for up to 16 missing channels each (H 16·p,
+// K 16² values); the p × p factor buffer is allocated at the first
+// incomplete frame in the tracker's life. After that nothing allocates,
+// also for a new pattern, unless a pattern has more than 16 missing
+// channels, which grows its slot once. A missing channel's
 // mean, variance and covariances are not updated by the frame; an
 // incomplete frame is folded into the covariance by a direct O(p²) update
 // instead of the batch (see EW).
@@ -193,7 +201,8 @@ type Config struct {
 	// channels on observed ones (default 1e-6).
 	Ridge float64
 	// PatternCache bounds the number of missing-channel patterns whose
-	// reduced models are cached between refreshes (default 16).
+	// reduced models are cached between refreshes (default 16); each slot
+	// is preallocated in New (about 16·p + 3·p values).
 	PatternCache int
 }
 
@@ -360,7 +369,7 @@ func New(p int, cfg Config) (*Tracker, error) {
 	t := &Tracker{
 		p: p, cfg: cfg, ms: ms, maxR: maxR,
 		ew:    NewEW(p, Forgetting(cfg.Period, cfg.HalfLife), cfg.Batch, true),
-		mdl:   newModel(p, maxR),
+		mdl:   newModel(p, maxR, cfg.PatternCache),
 		w:     newWork(p, maxR),
 		obs:   make([]bool, p),
 		last:  make([]float64, p),
