@@ -12,14 +12,17 @@ import (
 // ErrCheckpoint reports a checkpoint that cannot be restored.
 var ErrCheckpoint = errors.New("tracker: bad checkpoint")
 
-// Checkpoint format, version 1. All integers and floats little-endian:
+// Checkpoint format, version 2. All integers and floats little-endian:
 //
 //	"MWTK" | u16 version | u32 p | u64 config fingerprint (FNV-1a)
 //	u8 flags (1 ready, 2 frozen, 4 baseline, 8 calibrated)
 //	u64 frames | u64 learned | u32 since
+//	u32 p0 (channels at New; those from p0 on were added by Grow)   [v2]
 //	EW:    f64 μ | p × f64 mean | p × f64 variance | p × f64 count | p × f64 Σw²
 //	       p(p+1)/2 × f64 covariance (upper triangle by rows)
-//	       u32 nb | nb × f64 α | nb·p × f64 buffered deviations (frame by frame)
+//	       u32 nb | nb × f64 α (NaN: the frame's steps differ by channel)
+//	       nb·p × f64 buffered deviations (frame by frame)
+//	       per frame with α NaN: p × f64 per-channel steps               [v2]
 //	flat:  p × f64 last value | p × u32 run length
 //	model: p × u8 included | f64 n_eff | p(p+1)/2 × f64 correlation A (upper)
 //	       (model present only when ready)
@@ -27,12 +30,14 @@ var ErrCheckpoint = errors.New("tracker: bad checkpoint")
 //	modes: u32 n | n bytes of modes.Tracker.MarshalBinary
 //	u32 CRC-32 (IEEE) of everything before
 //
+// Version 1 (no p0, no per-channel steps) is still read.
+//
 // The model snapshot (loadings, limits, per-channel data) is recomputed on
 // restore from A and the restored modes by the same code as at the refresh,
 // so it is bit-identical.
 const (
 	ckMagic   = "MWTK"
-	ckVersion = 1
+	ckVersion = 2
 )
 
 // fingerprint hashes the configuration fields that shape the state.
@@ -78,6 +83,7 @@ func (t *Tracker) MarshalBinary() ([]byte, error) {
 	b = le.AppendUint64(b, t.frames)
 	b = le.AppendUint64(b, t.learned)
 	b = le.AppendUint32(b, uint32(t.since))
+	b = le.AppendUint32(b, uint32(t.p0))
 	f64(e.mu)
 	for _, s := range [][]float64{e.mean, e.vari, e.count, e.sumW2} {
 		for _, v := range s {
@@ -96,6 +102,13 @@ func (t *Tracker) MarshalBinary() ([]byte, error) {
 	for k := 0; k < e.nb; k++ {
 		for i := 0; i < p; i++ {
 			f64(e.rows[i*e.ldb+k])
+		}
+	}
+	for k := 0; k < e.nb; k++ {
+		if math.IsNaN(e.alphas[k]) {
+			for i := 0; i < p; i++ {
+				f64(e.al[i*e.ldb+k])
+			}
 		}
 	}
 	for _, v := range t.last {
@@ -199,8 +212,9 @@ func (t *Tracker) UnmarshalBinary(data []byte) error {
 	if string(data[:4]) != ckMagic {
 		return bad("not a tracker checkpoint (magic %q)", data[:4])
 	}
-	if v := binary.LittleEndian.Uint16(data[4:]); v != ckVersion {
-		return bad("version %d, this build reads version %d", v, ckVersion)
+	version := binary.LittleEndian.Uint16(data[4:])
+	if version != 1 && version != ckVersion {
+		return bad("version %d, this build reads versions 1 and %d", version, ckVersion)
 	}
 	body := data[:len(data)-4]
 	if crc32.ChecksumIEEE(body) != binary.LittleEndian.Uint32(data[len(data)-4:]) {
@@ -218,6 +232,13 @@ func (t *Tracker) UnmarshalBinary(data []byte) error {
 	frames := r.u64("frame count")
 	learned := r.u64("learned count")
 	since := int(r.u32("frames since refresh"))
+	p0 := p
+	if version >= 2 {
+		p0 = int(r.u32("initial channel count"))
+		if r.err == nil && (p0 < 1 || p0 > p) {
+			return bad("initial channel count %d outside 1…%d", p0, p)
+		}
+	}
 	mu := r.f64("forgetting factor")
 	if r.err == nil && mu != t.ew.mu {
 		return bad("forgetting factor %v differs from this tracker's %v", mu, t.ew.mu)
@@ -237,6 +258,20 @@ func (t *Tracker) UnmarshalBinary(data []byte) error {
 	r.floats(alphas, "batch steps")
 	rows := make([]float64, nb*p)
 	r.floats(rows, "batch rows")
+	al := make([]float64, nb*p) // per-channel steps, frame by frame
+	for k, a := range alphas {
+		switch {
+		case math.IsNaN(a) && version >= 2:
+			r.floats(al[k*p:(k+1)*p], "per-channel batch steps")
+			for _, v := range al[k*p : (k+1)*p] {
+				if !(v >= 0 && v <= 1) && r.err == nil {
+					return bad("batch frame %d: step %v outside [0, 1]", k, v)
+				}
+			}
+		case !(a >= 0 && a <= 1) && r.err == nil:
+			return bad("batch frame %d: step %v outside [0, 1]", k, a)
+		}
+	}
 	last := make([]float64, p)
 	r.floats(last, "last values")
 	run := make([]int, p)
@@ -305,8 +340,10 @@ func (t *Tracker) UnmarshalBinary(data []byte) error {
 	for k := 0; k < nb; k++ {
 		for i := 0; i < p; i++ {
 			e.rows[i*e.ldb+k] = rows[k*p+i]
+			e.al[i*e.ldb+k] = al[k*p+i]
 		}
 	}
+	t.p0 = p0
 	copy(t.last, last)
 	copy(t.run, run)
 	t.frames, t.learned = frames, learned

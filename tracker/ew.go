@@ -62,13 +62,18 @@ func SteadyNEff(mu float64) float64 {
 //
 // which equals Finch's update on the observed block, leaves the mean,
 // variance and covariances among missing channels untouched, shrinks the
-// cross-covariances by √(1 − α) and keeps C positive semidefinite.
+// cross-covariances by √(1 − α) and keeps C positive semidefinite. The same
+// form covers channels whose steps differ (a channel still in its
+// cumulative start, or added by Grow).
 //
-// Batching: complete frames sharing one α are buffered and folded into C
-// with a single rank-B update (syrkUpper, see Flush), which equals B single updates
-// up to rounding:
+// Batching: every frame is buffered (δ and the steps) and B frames are
+// folded into C by one rank-B update (syrkUpper, see Flush), which equals
+// B single updates up to rounding. Unrolling the congruences,
 //
-//	C ← Πₖ(1 − αₖ)·C + Σₖ cₖ δₖδₖᵀ,  cₖ = αₖ(1 − αₖ)·Π_{j>k}(1 − αⱼ)
+//	C ← D C D + Σₖ (Tₖuₖ)(Tₖuₖ)ᵀ,  Tₖ = Π_{j>k} Sⱼ,  D = Πₖ Sₖ
+//
+// (diagonal products); when every frame's step is shared by all channels
+// this is C ← Πₖ(1 − αₖ)·C + Σₖ cₖ δₖδₖᵀ, cₖ = αₖ(1 − αₖ)·Π_{j>k}(1 − αⱼ).
 //
 // Means and variances are always current; the covariance is current after
 // Flush.
@@ -85,16 +90,20 @@ type EW struct {
 	cov blas64.Symmetric // upper triangle, p × p
 
 	// Batch buffer: up to capB frames of δ (the deviation from the mean
-	// before the frame), stored channel-major (p × capB, so row i holds
-	// channel i's deviations and the update is a dot-product form Syrk),
-	// and their steps α.
-	rows   []float64 // p × ldb
+	// before the frame; 0 for a missing channel), stored channel-major
+	// (p × ldb, so row i holds channel i's deviations and the update is a
+	// dot-product form rank-B update), and their steps α: alphas[k] when
+	// frame k has one step for all channels, else NaN and the per-channel
+	// steps in al (p × ldb, 0 for a missing channel).
+	rows   []float64
+	al     []float64
 	alphas []float64
 	nb     int
 	capB   int
 	ldb    int // row stride of rows: capB rounded up to a multiple of 4 (the kernel's step)
 
-	s, u []float64 // scratch for the direct update
+	sa, s1 []float64 // Flush scratch per frame: √(α(1−α)), √(1−α)
+	s, d   []float64 // scratch per channel
 }
 
 // NewEW returns an estimator for p channels with forgetting factor mu
@@ -107,13 +116,16 @@ func NewEW(p int, mu float64, batch int, cumulativeStart bool) *EW {
 	if batch < 1 {
 		batch = 1
 	}
+	ld := roundUp4(batch)
 	e := &EW{
 		p: p, mu: mu, cumulative: cumulativeStart,
 		mean: make([]float64, p), vari: make([]float64, p),
 		count: make([]float64, p), sumW2: make([]float64, p),
 		cov:  blas64.Symmetric{N: p, Stride: p, Data: make([]float64, p*p), Uplo: blas.Upper},
-		rows: make([]float64, roundUp4(batch)*p), alphas: make([]float64, batch), capB: batch, ldb: roundUp4(batch),
-		s: make([]float64, p), u: make([]float64, p),
+		rows: make([]float64, ld*p), al: make([]float64, ld*p), alphas: make([]float64, batch),
+		capB: batch, ldb: ld,
+		sa: make([]float64, batch), s1: make([]float64, batch),
+		s: make([]float64, p), d: make([]float64, p),
 	}
 	return e
 }
@@ -132,57 +144,60 @@ func (e *EW) step(k float64) float64 {
 
 // Update folds one frame into the estimates. observed may be nil (all
 // observed); x[i] is ignored where observed[i] is false. x must be finite
-// where observed.
+// where observed. The frame joins the batch; the covariance is updated at
+// Flush (every capB frames, or when read).
 func (e *EW) Update(x []float64, observed []bool) {
 	if len(x) != e.p || (observed != nil && len(observed) != e.p) {
 		panic("tracker: EW.Update: length mismatch")
 	}
-	// A frame joins the batch when every channel is observed and all share
-	// the same step.
-	// Equal counts give equal steps.
-	batchable := true
+	k, ld := e.nb, e.ldb
+	// Common case: every channel observed with the same count, so one step.
+	uniform := observed == nil
 	c0 := e.count[0]
-	a0 := e.step(c0 + 1)
-	for i, c := range e.count {
-		if c != c0 || (observed != nil && !observed[i]) {
-			batchable = false
-			break
+	if uniform {
+		for _, c := range e.count {
+			if c != c0 {
+				uniform = false
+				break
+			}
 		}
 	}
-	if batchable && a0 < 1 {
+	if uniform {
+		a := e.step(c0 + 1)
 		for i := 0; i < e.p; i++ {
 			d := x[i] - e.mean[i]
-			e.rows[i*e.ldb+e.nb] = d
-			e.updateChannel(i, x[i], d, a0)
+			e.rows[i*ld+k] = d
+			e.updateChannel(i, x[i], d, a)
 		}
-		e.alphas[e.nb] = a0
-		e.nb++
-		if e.nb == e.capB {
-			e.Flush()
+		e.alphas[k] = a
+	} else {
+		same := true
+		a0 := 0.0
+		for i := 0; i < e.p; i++ {
+			a, d := 0.0, 0.0
+			if observed == nil || observed[i] {
+				a = e.step(e.count[i] + 1)
+				d = x[i] - e.mean[i]
+				e.updateChannel(i, x[i], d, a)
+			}
+			e.rows[i*ld+k] = d
+			e.al[i*ld+k] = a
+			if i == 0 {
+				a0 = a
+			} else if a != a0 {
+				same = false
+			}
 		}
-		return
-	}
-	e.Flush()
-	for i := 0; i < e.p; i++ {
-		if observed != nil && !observed[i] {
-			e.s[i], e.u[i] = 1, 0
-			continue
-		}
-		a := e.step(e.count[i] + 1)
-		d := x[i] - e.mean[i]
-		e.s[i] = math.Sqrt(1 - a)
-		e.u[i] = math.Sqrt(a*(1-a)) * d
-		e.updateChannel(i, x[i], d, a)
-	}
-	n := e.p
-	for i := 0; i < n; i++ {
-		si := e.s[i]
-		r := e.cov.Data[i*n+i : i*n+n]
-		for j := range r {
-			r[j] *= si * e.s[i+j]
+		if same {
+			e.alphas[k] = a0
+		} else {
+			e.alphas[k] = math.NaN()
 		}
 	}
-	blas64.Syr(1, blas64.Vector{N: n, Inc: 1, Data: e.u}, e.cov)
+	e.nb++
+	if e.nb == e.capB {
+		e.Flush()
+	}
 }
 
 func (e *EW) updateChannel(i int, x, d, a float64) {
@@ -201,61 +216,67 @@ func (e *EW) updateChannel(i int, x, d, a float64) {
 // Flush folds the buffered frames into the covariance with one rank-B
 // update: the own upper-triangle kernel syrkUpper (AVX2/FMA on amd64 CPUs
 // that have it, about 5× gonum's blas64.Syrk at p = 500, B = 64:
-// BenchmarkSyrkKernel), else blas64.Syrk.
+// BenchmarkSyrkKernel), else blas64.Syrk. Row k of channel i is scaled by
+// Tₖᵢ·√(αₖᵢ(1 − αₖᵢ)); C is scaled by DᵢDⱼ first (by the single factor
+// Π(1 − αₖ) when every frame had one step for all channels).
 func (e *EW) Flush() {
-	if e.nb == 0 {
+	nb := e.nb
+	if nb == 0 {
 		return
 	}
-	// Scale row k by √cₖ, cₖ = αₖ(1 − αₖ)·Π_{j>k}(1 − αⱼ); accumulate the
-	// total decay Π(1 − αₖ).
-	tail := 1.0
-	for k := e.nb - 1; k >= 0; k-- {
+	ld := e.ldb
+	uniform := true
+	for k := 0; k < nb; k++ {
 		a := e.alphas[k]
-		e.alphas[k] = math.Sqrt(a * (1 - a) * tail) // now the row scale √cₖ
-		tail *= 1 - a
-	}
-	c := e.alphas[:e.nb]
-	if hasAVX2FMA {
-		// Own kernel (syrkUpper): the row length is padded with zeros to
-		// a multiple of 4 for the vector loop.
-		k4 := roundUp4(e.nb)
-		for i := 0; i < e.p; i++ {
-			row := e.rows[i*e.ldb : i*e.ldb+k4]
-			for k, ck := range c {
-				row[k] *= ck
-			}
-			for k := e.nb; k < k4; k++ {
-				row[k] = 0
-			}
+		if math.IsNaN(a) {
+			uniform = false
+			continue
 		}
-		syrkUpper(e.p, k4, e.rows, e.ldb, tail, e.cov.Data, e.cov.Stride)
-		e.nb = 0
-		return
+		e.sa[k] = math.Sqrt(a * (1 - a))
+		e.s1[k] = math.Sqrt(1 - a)
+	}
+	kk := nb
+	if hasAVX2FMA {
+		kk = roundUp4(nb) // the vector loop's step; padded with zeros
 	}
 	for i := 0; i < e.p; i++ {
-		row := e.rows[i*e.ldb : i*e.ldb+e.nb]
-		for k, ck := range c {
-			row[k] *= ck
+		row := e.rows[i*ld : i*ld+kk]
+		al := e.al[i*ld : i*ld+nb]
+		ts := 1.0 // Π_{j>k} √(1 − α_j) of channel i
+		for k := nb - 1; k >= 0; k-- {
+			sa, s1 := e.sa[k], e.s1[k]
+			if math.IsNaN(e.alphas[k]) {
+				a := al[k]
+				sa, s1 = math.Sqrt(a*(1-a)), math.Sqrt(1-a)
+			}
+			row[k] *= sa * ts
+			ts *= s1
 		}
+		for k := nb; k < kk; k++ {
+			row[k] = 0
+		}
+		e.d[i] = ts
 	}
-	if e.nb <= 4 {
-		// Few frames: scale once, then rank-1 updates (blas64.Syr), cheaper
-		// than the dot-product form for short rows.
+	beta := 1.0
+	if uniform {
+		beta = e.d[0] * e.d[0]
+	} else {
 		n := e.p
 		for i := 0; i < n; i++ {
+			di := e.d[i]
 			r := e.cov.Data[i*n+i : i*n+n]
-			for j := range r {
-				r[j] *= tail
+			dd := e.d[i:n]
+			dd = dd[:len(r)]
+			for j, dj := range dd {
+				r[j] *= di * dj
 			}
 		}
-		for k := 0; k < e.nb; k++ {
-			blas64.Syr(1, blas64.Vector{N: n, Inc: e.ldb, Data: e.rows[k:]}, e.cov)
-		}
-		e.nb = 0
-		return
 	}
-	d := blas64.General{Rows: e.p, Cols: e.nb, Stride: e.ldb, Data: e.rows}
-	blas64.Syrk(blas.NoTrans, 1, d, tail, e.cov)
+	if hasAVX2FMA {
+		syrkUpper(e.p, kk, e.rows, ld, beta, e.cov.Data, e.cov.Stride)
+	} else {
+		blas64.Syrk(blas.NoTrans, 1, blas64.General{Rows: e.p, Cols: nb, Stride: ld, Data: e.rows}, beta, e.cov)
+	}
 	e.nb = 0
 }
 
@@ -263,6 +284,22 @@ func roundUp4(n int) int { return (n + 3) &^ 3 }
 
 // P returns the number of channels.
 func (e *EW) P() int { return e.p }
+
+// grown returns a copy of e widened to p2 channels (after a Flush): the
+// statistics of the first p channels are kept, the new channels have no
+// frames yet.
+func (e *EW) grown(p2 int) *EW {
+	e.Flush()
+	g := NewEW(p2, e.mu, e.capB, e.cumulative)
+	copy(g.mean, e.mean)
+	copy(g.vari, e.vari)
+	copy(g.count, e.count)
+	copy(g.sumW2, e.sumW2)
+	for i := 0; i < e.p; i++ {
+		copy(g.cov.Data[i*p2+i:i*p2+e.p], e.cov.Data[i*e.p+i:i*e.p+e.p])
+	}
+	return g
+}
 
 // Mean returns the EW mean of channel i (channel units).
 func (e *EW) Mean(i int) float64 { return e.mean[i] }

@@ -254,6 +254,7 @@ type Score struct {
 	Contrib       []Contribution // ranked by RBC, largest first (at most TopContrib)
 	Missing       []int          // channels missing (or non-finite) in this frame
 	Excluded      []int          // stuck or flat-lined channels, out of the model
+	Warming       []int          // channels added by Grow, not in the model until they have WarmUp frames
 	Frozen        bool           // learning paused
 	NEff          float64        // Kish effective sample size of the model
 	Modes         int            // number of modes r
@@ -264,8 +265,10 @@ type Score struct {
 
 // Tracker is the streaming model of one plant unit.
 type Tracker struct {
-	p   int
-	cfg Config
+	p    int
+	p0   int    // channels at New (or at Fit); channels from p0 on were added by Grow
+	cfg  Config // with defaults for p
+	ucfg Config // as given to New (defaults are recomputed by Grow)
 
 	ew   *EW
 	ms   *modes.Tracker
@@ -354,6 +357,7 @@ func New(p int, cfg Config) (*Tracker, error) {
 	if p < 1 {
 		return nil, fmt.Errorf("%w: %d channels", ErrConfig, p)
 	}
+	ucfg := cfg
 	if err := cfg.defaults(p); err != nil {
 		return nil, err
 	}
@@ -367,7 +371,7 @@ func New(p int, cfg Config) (*Tracker, error) {
 		return nil, fmt.Errorf("%w: at most 64 modes, got %d", ErrConfig, maxR)
 	}
 	t := &Tracker{
-		p: p, cfg: cfg, ms: ms, maxR: maxR,
+		p: p, p0: p, cfg: cfg, ucfg: ucfg, ms: ms, maxR: maxR,
 		ew:    NewEW(p, Forgetting(cfg.Period, cfg.HalfLife), cfg.Batch, true),
 		mdl:   newModel(p, maxR, cfg.PatternCache),
 		w:     newWork(p, maxR),
@@ -521,11 +525,17 @@ func (t *Tracker) score(dst *Score, x []float64) error {
 	dst.Calibrated = t.cal
 	dst.Missing = dst.Missing[:0]
 	dst.Excluded = dst.Excluded[:0]
+	dst.Warming = dst.Warming[:0]
 	dst.Contrib = dst.Contrib[:0]
 	for i := 0; i < t.p; i++ {
-		if !t.obs[i] {
+		switch {
+		case !t.obs[i]:
 			dst.Missing = append(dst.Missing, i)
-		} else if t.stuck[i] || (t.ready && !t.mdl.include[i]) {
+		case t.stuck[i]:
+			dst.Excluded = append(dst.Excluded, i)
+		case t.warming(i):
+			dst.Warming = append(dst.Warming, i)
+		case t.ready && !t.mdl.include[i]:
 			dst.Excluded = append(dst.Excluded, i)
 		}
 	}
@@ -642,7 +652,8 @@ func (t *Tracker) ContributionsTo(rbc, spe, t2 []float64) {
 }
 
 // Refresh forms the correlation matrix of the standardized channels from
-// the EW covariance (stuck channels get zero rows and leave the model),
+// the EW covariance (stuck channels get zero rows and leave the model, and
+// so do channels added by Grow until they have WarmUp frames),
 // refreshes the modes from it (warm-started) and recomputes the limits.
 // Step calls it every RefreshEvery learned frames. On error the previous
 // model is kept. It drops empirical limits set by Calibrate.
@@ -651,7 +662,8 @@ func (t *Tracker) Refresh() error {
 	nEff := math.Inf(1)
 	any := false
 	for i := 0; i < t.p; i++ {
-		in := t.ew.Count(i) >= 2 && t.ew.Var(i) > 0 && !t.isStuck(i)
+		in := t.ew.Count(i) >= 2 && t.ew.Var(i) > 0 && !t.isStuck(i) &&
+			(i < t.p0 || t.ew.Count(i) >= float64(t.cfg.WarmUp))
 		m.include[i] = in
 		if in {
 			any = true
@@ -765,6 +777,7 @@ func (t *Tracker) Fit(frames [][]float64) error {
 	}
 	e.mu = t.ew.mu
 	t.ew = e
+	t.p0 = t.p // every channel is in every fit frame
 	for i := range t.run {
 		t.run[i] = 0
 		t.last[i] = math.NaN()
@@ -818,5 +831,109 @@ func (t *Tracker) Calibrate(frames [][]float64) error {
 	t.calT2, t.calSPE, t.calPhi = lim[0], lim[1], lim[2]
 	t.calScale = [3]float64{lim[0] / b.t2Lim, lim[1] / b.speLim, lim[2] / b.phiLim}
 	t.cal = true
+	return nil
+}
+
+// warming reports whether channel i was added by Grow and has not yet
+// entered the model: out of it, not stuck, and with fewer than WarmUp
+// frames (plus the frames to the refresh that admits it).
+func (t *Tracker) warming(i int) bool {
+	if i < t.p0 || (t.ready && t.mdl.include[i]) {
+		return false
+	}
+	n := float64(t.cfg.WarmUp)
+	if t.ready {
+		n += float64(t.cfg.RefreshEvery)
+	}
+	return t.ew.Count(i) < n
+}
+
+// Grow widens the tracker to p2 ≥ P() channels, for a unit whose channel
+// registry grew (auto-discovery). Channels 0…P()−1 keep everything learned
+// (means, variances, covariances, counts, flat-line state, learning state,
+// empirical limits); channels P()…p2−1 start empty and are learned from the
+// next frame on (their frames batch with the others'). They enter the
+// model at the first refresh after they have WarmUp frames, and until then
+// are listed in Score.Warming and scored as outside the model (like an
+// excluded channel: no effect on T², SPE, φ or the limits). Config defaults
+// that depend on the width (WarmUp = max(100, 2p), the modes' MaxCount) are
+// recomputed for p2 as New(p2, cfg) would, so a checkpoint of the grown
+// tracker restores into New(p2, cfg).
+//
+// If a model exists it is rebuilt at once from the same correlation A
+// (zero rows for the new channels) with a p2-wide mode tracker, started
+// cold: for dense modes scores and limits are unchanged to the mode
+// solver's tolerance (3·10⁻⁷ relative in TestGrow); sparse modes may
+// converge differently, and the mode IDs restart. Nothing is learned by Grow itself, so a frozen tracker or a
+// fitted baseline stays as it is. Cost: O(p2²) copies plus one mode
+// refresh; it allocates (not a per-frame call). On error the tracker is
+// unchanged. p2 < P() is an error wrapping ErrWidth; p2 == P() does nothing.
+func (t *Tracker) Grow(p2 int) error {
+	if p2 < t.p {
+		return fmt.Errorf("%w: cannot shrink from %d to %d channels", ErrWidth, t.p, p2)
+	}
+	if p2 == t.p {
+		return nil
+	}
+	cfg := t.ucfg
+	if err := cfg.defaults(p2); err != nil {
+		return err
+	}
+	ms, err := modes.NewTracker(p2, cfg.Modes)
+	if err != nil {
+		return fmt.Errorf("%w: %w", ErrConfig, err)
+	}
+	mc := ms.Config()
+	maxR := max(mc.Count, mc.MaxCount, 1)
+	if maxR > 64 {
+		return fmt.Errorf("%w: at most 64 modes, got %d", ErrConfig, maxR)
+	}
+	p := t.p
+	m2 := newModel(p2, maxR, cfg.PatternCache)
+	if t.ready {
+		old := t.mdl.a.RawSymmetric()
+		a2 := m2.a.RawSymmetric()
+		for i := 0; i < p; i++ {
+			copy(a2.Data[i*a2.Stride+i:i*a2.Stride+p], old.Data[i*old.Stride+i:i*old.Stride+p])
+		}
+		copy(m2.include, t.mdl.include)
+		if err := ms.Refresh(m2.a); err != nil {
+			return fmt.Errorf("%w: %w", ErrModel, err)
+		}
+		if ms.Count() == 0 {
+			return fmt.Errorf("%w: the correlation matrix gave no modes", ErrModel)
+		}
+	}
+	// Commit.
+	t.ew = t.ew.grown(p2)
+	grow := func(s []float64, fill float64) []float64 {
+		out := make([]float64, p2)
+		copy(out, s)
+		for i := len(s); i < p2; i++ {
+			out[i] = fill
+		}
+		return out
+	}
+	t.last = grow(t.last, math.NaN())
+	run := make([]int, p2)
+	copy(run, t.run)
+	t.run = run
+	t.obs = make([]bool, p2)
+	t.stuck = make([]bool, p2)
+	nEff := t.mdl.nEff
+	t.p, t.cfg, t.ms, t.maxR = p2, cfg, ms, maxR
+	t.mdl = m2
+	t.w = newWork(p2, maxR)
+	if cap(t.top) < cfg.TopContrib+1 {
+		t.top = make([]int, 0, cfg.TopContrib+1)
+	}
+	if cfg.SPELimit == SPEJacksonMudholkar {
+		t.ls.jmSpace = newJMScratch(p2, maxR)
+	}
+	if t.ready {
+		since, cal := t.since, t.cal
+		t.install(nEff)
+		t.since, t.cal = since, cal
+	}
 	return nil
 }

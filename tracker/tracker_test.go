@@ -828,3 +828,108 @@ func TestAdaptiveFollowsDrift(t *testing.T) {
 		t.Errorf("fixed baseline exceedances %.2f%% / %.2f%%: drift too weak for the test", 100*rf[0], 100*rf[1])
 	}
 }
+
+// Grow: a unit's registry grows from 6 to 8 channels while the model runs.
+// The old channels keep their statistics bit for bit and their scores are
+// unchanged to the mode solver's tolerance (dense modes rebuilt from the
+// same correlation, cold-started); the new
+// channels are listed as warming, stay out of the model until they have
+// WarmUp frames, then enter it at a refresh; frames keep batching; the
+// grown tracker's checkpoint restores into New(8, cfg) with bit-identical
+// scores; shrinking is an error.
+func TestGrow(t *testing.T) {
+	const p, p2 = 6, 8
+	rng := rand.New(rand.NewPCG(71, 72))
+	corr := randomCov(rng, p2, 3)
+	src := newGaussSource(73, corr)
+	cfg := Config{Period: time.Second, HalfLife: time.Hour, WarmUp: 50, RefreshEvery: 16, Modes: modes.Config{Count: 3}}
+	tr, err := New(p, cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var sc Score
+	x := make([]float64, p2)
+	for k := 0; k < 200; k++ {
+		src.frame(x)
+		if err := tr.Step(&sc, x[:p], nil); err != nil {
+			t.Fatal(err)
+		}
+	}
+	src.frame(x)
+	var before, after Score
+	if err := tr.Evaluate(&before, x[:p], nil); err != nil {
+		t.Fatal(err)
+	}
+	c0 := covOf(tr.Stats())
+	if err := tr.Grow(p2); err != nil {
+		t.Fatal(err)
+	}
+	c1 := covOf(tr.Stats())
+	if err := tr.Evaluate(&after, x, []bool{6: true, 7: true}); err != nil {
+		t.Fatal(err)
+	}
+	for i := 0; i < p; i++ {
+		for j := i; j < p; j++ {
+			if c0.At(i, j) != c1.At(i, j) {
+				t.Fatalf("cov[%d,%d] changed by Grow: %v → %v", i, j, c0.At(i, j), c1.At(i, j))
+			}
+		}
+	}
+	// The modes are recomputed from a cold start on the same correlation:
+	// equal to the solver's tolerance.
+	approx(t, "T² after Grow", after.T2, before.T2, 0, 1e-5)
+	approx(t, "SPE after Grow", after.SPE, before.SPE, 0, 1e-5)
+	approx(t, "SPE limit after Grow", after.SPELimit, before.SPELimit, 0, 1e-5)
+	if err := tr.Grow(p); !errors.Is(err, ErrWidth) {
+		t.Errorf("shrink: %v", err)
+	}
+	// Learn with all 8 channels; 6 and 7 warm up for WarmUp = 50 frames
+	// and enter at the next refresh.
+	entered := -1
+	batched := false
+	for k := 1; k <= 100; k++ {
+		src.frame(x)
+		nb := tr.ew.nb
+		in := tr.mdl.include[6] && tr.mdl.include[7] // the model that scores this frame
+		if err := tr.Step(&sc, x, nil); err != nil {
+			t.Fatal(err)
+		}
+		batched = batched || tr.ew.nb == nb+1
+		if in && entered < 0 {
+			entered = k
+		}
+		if !in && !slices.Equal(sc.Warming, []int{6, 7}) {
+			t.Fatalf("frame %d: Warming = %v, Excluded = %v", k, sc.Warming, sc.Excluded)
+		}
+		if in && len(sc.Warming) != 0 {
+			t.Fatalf("frame %d: in the model but still warming", k)
+		}
+	}
+	if entered < 50 || entered > 50+16 {
+		t.Errorf("new channels entered the model after %d frames, want after 50 (WarmUp) at the next refresh", entered)
+	}
+	if !batched {
+		t.Error("frames after Grow were not batched")
+	}
+	// Checkpoint of the grown tracker into New(8, cfg).
+	ck, err := tr.MarshalBinary()
+	if err != nil {
+		t.Fatal(err)
+	}
+	tr2, err := New(p2, cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := tr2.UnmarshalBinary(ck); err != nil {
+		t.Fatal(err)
+	}
+	var s1, s2 Score
+	for k := 0; k < 40; k++ {
+		src.frame(x)
+		tr.Step(&s1, x, nil)
+		tr2.Step(&s2, x, nil)
+		if s1.T2 != s2.T2 || s1.SPE != s2.SPE || s1.Phi != s2.Phi || s1.SPELimit != s2.SPELimit {
+			t.Fatalf("frame %d after restore: %v/%v vs %v/%v", k, s1.T2, s1.SPE, s2.T2, s2.SPE)
+		}
+	}
+}
