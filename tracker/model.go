@@ -380,6 +380,8 @@ func (m *model) computePattern(pt *pattern, ls *limitSpec) {
 		pt.t2Lim = math.Inf(1)
 	} else if ls.t2 == T2ChiSquare || math.IsInf(ls.nEff, 1) {
 		pt.t2Lim, err = limits.T2ChiSquare(ls.alpha, l)
+	} else if ls.t2 == T2PhaseI {
+		pt.t2Lim, err = limits.T2PhaseI(ls.alpha, l, ls.nEff)
 	} else {
 		pt.t2Lim, err = limits.T2PhaseII(ls.alpha, l, ls.nEff)
 	}

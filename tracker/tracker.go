@@ -74,8 +74,19 @@ const (
 	// 6.5.4.3.4), n_eff the Kish effective sample size:
 	//  τ² = r(n²−1)/(n(n−r)) · F_{1−α}(r, n−r)
 	T2F T2Form = iota
-	// T2ChiSquare is the large-sample form τ² = χ²_{1−α}(r).
+	// T2ChiSquare is the large-sample form τ² = χ²_{1−α}(r), exact when
+	// the covariance is known; within 1 % of the F form once n_eff is a
+	// few hundred to a thousand (LIMITS.md T4, T9: m ≥ 719 for p = 6 at
+	// α = 0.005), and the F form is conservative below that (T12).
 	T2ChiSquare
+	// T2PhaseI is the Phase I (retrospective) form for frames that took
+	// part in the estimate, e.g. screening a Fit reference set for outliers
+	// with Evaluate: the beta distribution of Tracy, Young & Mason (1992),
+	// one-sided at α, with m = n_eff:
+	//  τ² = ((m−1)²/m) · B_{1−α}(r/2, (m−r−1)/2)
+	// It is below the Phase II limit and never above (m−1)²/m, the largest
+	// T² a reference frame can take. Not for new frames.
+	T2PhaseI
 )
 
 // SPEForm selects the SPE control limit.
@@ -339,7 +350,7 @@ func (c *Config) defaults(p int) error {
 		return fmt.Errorf("%w: RefreshEvery %d, Batch %d, WarmUp %d, StuckRel %v, TopContrib %d, Ridge %v, PatternCache %d",
 			ErrConfig, c.RefreshEvery, c.Batch, c.WarmUp, c.StuckRel, c.TopContrib, c.Ridge, c.PatternCache)
 	}
-	if c.T2Limit != T2F && c.T2Limit != T2ChiSquare {
+	if c.T2Limit != T2F && c.T2Limit != T2ChiSquare && c.T2Limit != T2PhaseI {
 		return fmt.Errorf("%w: unknown T² limit %d", ErrConfig, c.T2Limit)
 	}
 	if c.SPELimit != SPEBox && c.SPELimit != SPEJacksonMudholkar {

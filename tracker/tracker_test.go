@@ -933,3 +933,42 @@ func TestGrow(t *testing.T) {
 		}
 	}
 }
+
+// Phase I T² limit, selectable: a baseline fitted on m = 24 frames with 3
+// dense modes has the Tracy, Young & Mason (1992) limit of LIMITS.md T2
+// (l = 3, m = 24, α = 0.01: 9.379347 [DER]), and no fit frame scored
+// against it exceeds (m−1)²/m = 22.041667, the largest T² a reference frame
+// can take (LIMITS.md §1.1 [DER]). The default Phase II F form on a
+// baseline of m = 23 frames is LIMITS.md T1 (NIST e-Handbook 6.5.4.3.4:
+// 17.00456).
+func TestT2PhaseI(t *testing.T) {
+	const p = 6
+	rng := rand.New(rand.NewPCG(81, 82))
+	src := newGaussSource(83, randomCov(rng, p, 3))
+	for _, c := range []struct {
+		form T2Form
+		m    int
+		want float64
+	}{{T2PhaseI, 24, 9.379347}, {T2F, 23, 17.00456}} {
+		fit := src.frames(c.m, p)
+		tr, err := New(p, Config{Modes: modes.Config{Count: 3}, T2Limit: c.form, FlatFrames: -1, WarmUp: 10})
+		if err != nil {
+			t.Fatal(err)
+		}
+		if err := tr.Fit(fit); err != nil {
+			t.Fatal(err)
+		}
+		var sc Score
+		worst := 0.0
+		for _, x := range fit {
+			if err := tr.Evaluate(&sc, x, nil); err != nil {
+				t.Fatal(err)
+			}
+			worst = math.Max(worst, sc.T2)
+		}
+		approx(t, "T² limit", sc.T2Limit, c.want, 0, 1e-6)
+		if bound := float64((c.m-1)*(c.m-1)) / float64(c.m); worst > bound {
+			t.Errorf("m = %d: a fit frame has T² %v > (m−1)²/m = %v", c.m, worst, bound)
+		}
+	}
+}
