@@ -272,11 +272,7 @@ func (e *EW) Flush() {
 			}
 		}
 	}
-	if hasAVX2FMA {
-		syrkUpper(e.p, kk, e.rows, ld, beta, e.cov.Data, e.cov.Stride)
-	} else {
-		blas64.Syrk(blas.NoTrans, 1, blas64.General{Rows: e.p, Cols: nb, Stride: ld, Data: e.rows}, beta, e.cov)
-	}
+	rankUpdate(e.p, kk, e.rows, ld, 1, beta, e.cov.Data, e.cov.Stride)
 	e.nb = 0
 }
 

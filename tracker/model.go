@@ -51,7 +51,8 @@ type model struct {
 	next    int        // round-robin replacement among the slots
 	scratch *pattern   // the slot used when caching is off
 
-	chol   []float64 // lower Cholesky factor of A + εI (p × p), allocated at the first incomplete frame
+	chol   []float64 // upper Cholesky factor of A + εI (p × p), allocated at the first incomplete frame
+	panel  []float64 // p × cholBlock scratch of cholUpper
 	cholOK bool      // chol is the factor of the current A
 
 	// scratch (maxR-sized)

@@ -155,29 +155,89 @@ func (m *model) scratchSlot() *pattern {
 	return m.scratch
 }
 
-// factorRidge forms the lower Cholesky factor L of A + εI in place in the
-// p × p buffer m.chol (row-major, lower triangle): O(p³/6) multiply-adds,
-// once per refresh at the first incomplete frame. The buffer is allocated
-// the first time in the tracker's life that a frame has missing channels
-// (p² values); after that the factorization allocates nothing.
+// factorRidge forms the upper Cholesky factor U of A + εI = UᵀU in place in
+// the p × p buffer m.chol (row-major, upper triangle), by cholUpper:
+// O(p³/6) multiply-adds, once per refresh at the first incomplete frame.
+// The buffers (p² + 64p values) are allocated the first time in the
+// tracker's life that a frame has missing channels; after that the
+// factorization allocates nothing.
 func (m *model) factorRidge(ridge float64) error {
 	p := m.p
 	if m.chol == nil {
 		m.chol = make([]float64, p*p)
+		m.panel = make([]float64, p*cholBlock)
 	}
 	a := m.a.RawSymmetric()
-	l := m.chol
+	u := m.chol
 	for i := 0; i < p; i++ {
-		for j := 0; j <= i; j++ {
-			l[i*p+j] = a.Data[j*a.Stride+i] // A[j][i], j ≤ i, from the upper triangle
-		}
-		l[i*p+i] += ridge
+		copy(u[i*p+i:i*p+p], a.Data[i*a.Stride+i:i*a.Stride+p])
+		u[i*p+i] += ridge
 	}
-	if !cholLower(l, p, p) {
+	if !cholUpper(u, p, p, m.panel) {
 		return fmt.Errorf("tracker: missing-data model: correlation + %g·I is not positive definite", ridge)
 	}
 	m.cholOK = true
 	return nil
+}
+
+// cholBlock is the panel width of cholUpper (a multiple of 4).
+const cholBlock = 64
+
+// cholUpper factors the symmetric positive definite n × n matrix held in
+// the upper triangle of a (row-major, stride lda) in place, a = UᵀU, by the
+// right-looking blocked Cholesky algorithm (Golub & Van Loan, Matrix
+// Computations, §4.2): for each panel of cholBlock rows, factor the rows
+// (U_rr = √a_rr, the row divided by U_rr, the later panel rows updated
+// with it), then update the trailing block A₂₂ ← A₂₂ − U₁₂ᵀU₁₂ with the
+// rank-update kernel (rankUpdate, α = −1) on the panel transposed into
+// buf (n × cholBlock). It reports false if a pivot is not positive.
+func cholUpper(a []float64, n, lda int, buf []float64) bool {
+	for k0 := 0; k0 < n; k0 += cholBlock {
+		k1 := min(k0+cholBlock, n)
+		for r := k0; r < k1; r++ {
+			d := a[r*lda+r]
+			if !(d > 0) {
+				return false
+			}
+			d = math.Sqrt(d)
+			a[r*lda+r] = d
+			row := a[r*lda+r+1 : r*lda+n]
+			inv := 1 / d
+			for j := range row {
+				row[j] *= inv
+			}
+			for s := r + 1; s < k1; s++ {
+				v := a[r*lda+s]
+				if v == 0 {
+					continue
+				}
+				src := a[r*lda+s : r*lda+n]
+				dst := a[s*lda+s : s*lda+n]
+				dst = dst[:len(src)]
+				for j, x := range src {
+					dst[j] -= v * x
+				}
+			}
+		}
+		if k1 == n {
+			break
+		}
+		rest, kk := n-k1, k1-k0
+		kp := roundUp4(kk)
+		for l := 0; l < kk; l++ {
+			src := a[(k0+l)*lda+k1 : (k0+l)*lda+n]
+			for i, v := range src {
+				buf[i*cholBlock+l] = v
+			}
+		}
+		for i := 0; i < rest; i++ {
+			for l := kk; l < kp; l++ {
+				buf[i*cholBlock+l] = 0
+			}
+		}
+		rankUpdate(rest, kp, buf, cholBlock, -1, 1, a[k1*lda+k1:], lda)
+	}
+	return true
 }
 
 // cholLower factors the symmetric positive definite n × n matrix held in
@@ -187,6 +247,7 @@ func (m *model) factorRidge(ridge float64) error {
 //	Lᵢⱼ = (aᵢⱼ − Σ_{k<j} LᵢₖLⱼₖ)/Lⱼⱼ,   Lᵢᵢ = √(aᵢᵢ − Σ_{k<i} Lᵢₖ²)
 //
 // It reports false if a pivot is not positive (a not positive definite).
+// Used for the small blocks Ω_mm.
 func cholLower(a []float64, n, lda int) bool {
 	for i := 0; i < n; i++ {
 		ri := a[i*lda : i*lda+i+1]
@@ -211,35 +272,36 @@ func cholLower(a []float64, n, lda int) bool {
 //	K = (Ω_mm)⁻¹ − εI,   ẑ_m = −(Ω_mm)⁻¹ Ω_mo z_o = H z  (z_m = 0)
 //
 // The rows Ω_{m,:} come from the factor of factorRidge by two triangular
-// solves per missing channel (Ωeᵢ = L⁻ᵀL⁻¹eᵢ, O(p²) each), so Ω is never
+// solves per missing channel (Ωeᵢ = U⁻¹U⁻ᵀeᵢ, O(p²) each), so Ω is never
 // formed; Ω_mm is factored by cholLower. Cost O(|m|p² + |m|²p + |m|³); all
 // storage is the pattern's (preallocated, see newPattern).
 func (m *model) conditional(pt *pattern, ridge float64) error {
 	k, p := len(pt.miss), m.p
-	l := m.chol
+	u := m.chol
 	h := pt.h[:k*p]
-	// Rows of Ω for the missing channels, into h.
+	// Rows of Ω = U⁻¹U⁻ᵀ for the missing channels, into h.
 	for x, i := range pt.miss {
 		y := h[x*p : (x+1)*p]
 		for j := range y {
 			y[j] = 0
 		}
-		// Forward: L y = eᵢ (y is zero before i).
-		y[i] = 1 / l[i*p+i]
-		for r := i + 1; r < p; r++ {
-			y[r] = -dot(l[r*p+i:r*p+r], y[i:r]) / l[r*p+r]
-		}
-		// Backward: Lᵀ w = y, in place.
-		for r := p - 1; r >= 0; r-- {
-			v := y[r] / l[r*p+r]
+		// Forward: Uᵀ y = eᵢ (y is zero before i), by rows of U.
+		y[i] = 1
+		for r := i; r < p; r++ {
+			v := y[r] / u[r*p+r]
 			y[r] = v
 			if v != 0 {
-				row := l[r*p : r*p+r]
-				yy := y[:r]
-				for c, lv := range row {
-					yy[c] -= lv * v
+				row := u[r*p+r+1 : r*p+p]
+				yy := y[r+1 : p]
+				yy = yy[:len(row)]
+				for c, uv := range row {
+					yy[c] -= uv * v
 				}
 			}
+		}
+		// Backward: U w = y, in place.
+		for r := p - 1; r >= 0; r-- {
+			y[r] = (y[r] - dot(u[r*p+r+1:r*p+p], y[r+1:p])) / u[r*p+r]
 		}
 	}
 	// Ω_mm into kc and its Cholesky factor (lower) into the pattern's fac.

@@ -1,13 +1,18 @@
 package tracker
 
+import (
+	"gonum.org/v1/gonum/blas"
+	"gonum.org/v1/gonum/blas/blas64"
+)
+
 // syrkUpper is the rank-k update of the covariance in dot-product form,
 // upper triangle only, over contiguous row-major storage:
 //
-//	cᵢⱼ ← β·cᵢⱼ + Σ_{l<k} aᵢₗ·aⱼₗ,   0 ≤ i ≤ j < n
+//	cᵢⱼ ← β·cᵢⱼ + α·Σ_{l<k} aᵢₗ·aⱼₗ,   0 ≤ i ≤ j < n
 //
 // a is n × k (row i at a[i·lda:], channel i's buffered deviations), c is
 // n × n (row i at c[i·ldc:]); the strict lower triangle of c is not
-// touched. It computes what blas64.Syrk(blas.NoTrans, 1, a, β, c) does for
+// touched. It computes what blas64.Syrk(blas.NoTrans, α, a, β, c) does for
 // an upper-triangular c, with the same products summed in the same order
 // along l, so results agree with it up to the rounding of the final
 // addition.
@@ -20,7 +25,7 @@ package tracker
 // streams the other rows. Slices are re-cut to length k before the loop so
 // the compiler drops the bounds checks. Cost: n(n+1)/2·k multiply-adds,
 // single-threaded; no allocation.
-func syrkUpper(n, k int, a []float64, lda int, beta float64, c []float64, ldc int) {
+func syrkUpper(n, k int, a []float64, lda int, alpha, beta float64, c []float64, ldc int) {
 	if n == 0 {
 		return
 	}
@@ -45,49 +50,49 @@ func syrkUpper(n, k int, a []float64, lda int, beta float64, c []float64, ldc in
 		c3 := c[(i+3)*ldc : (i+3)*ldc+n]
 		// Diagonal 4 × 4 block: only entries with column ≥ row.
 		s00, s01, _, s11, _, _, _, _ := dot4x2(a0, a1, a2, a3, a0, a1)
-		c0[i] = beta*c0[i] + s00
-		c0[i+1] = beta*c0[i+1] + s01
-		c1[i+1] = beta*c1[i+1] + s11
+		c0[i] = beta*c0[i] + alpha*s00
+		c0[i+1] = beta*c0[i+1] + alpha*s01
+		c1[i+1] = beta*c1[i+1] + alpha*s11
 		s02, s03, s12, s13, s22, s23, _, s33 := dot4x2(a0, a1, a2, a3, a2, a3)
-		c0[i+2] = beta*c0[i+2] + s02
-		c0[i+3] = beta*c0[i+3] + s03
-		c1[i+2] = beta*c1[i+2] + s12
-		c1[i+3] = beta*c1[i+3] + s13
-		c2[i+2] = beta*c2[i+2] + s22
-		c2[i+3] = beta*c2[i+3] + s23
-		c3[i+3] = beta*c3[i+3] + s33
+		c0[i+2] = beta*c0[i+2] + alpha*s02
+		c0[i+3] = beta*c0[i+3] + alpha*s03
+		c1[i+2] = beta*c1[i+2] + alpha*s12
+		c1[i+3] = beta*c1[i+3] + alpha*s13
+		c2[i+2] = beta*c2[i+2] + alpha*s22
+		c2[i+3] = beta*c2[i+3] + alpha*s23
+		c3[i+3] = beta*c3[i+3] + alpha*s33
 		// Off-diagonal run, columns i+4 … n−1: the AVX2/FMA kernel takes
 		// the even part when it can.
 		j := i + 4
-		if ncol := n - j; ncol >= 2 && rowKernel(a[i*lda:], lda, k, a[j*lda:], ncol, c[i*ldc+j:], ldc, beta) {
+		if ncol := n - j; ncol >= 2 && rowKernel(a[i*lda:], lda, k, a[j*lda:], ncol, c[i*ldc+j:], ldc, alpha, beta) {
 			j += ncol &^ 1
 		}
 		for ; j+2 <= n; j += 2 {
 			b0 := a[j*lda : j*lda+k]
 			b1 := a[(j+1)*lda : (j+1)*lda+k]
 			s00, s01, s10, s11, s20, s21, s30, s31 := dot4x2(a0, a1, a2, a3, b0, b1)
-			c0[j] = beta*c0[j] + s00
-			c0[j+1] = beta*c0[j+1] + s01
-			c1[j] = beta*c1[j] + s10
-			c1[j+1] = beta*c1[j+1] + s11
-			c2[j] = beta*c2[j] + s20
-			c2[j+1] = beta*c2[j+1] + s21
-			c3[j] = beta*c3[j] + s30
-			c3[j+1] = beta*c3[j+1] + s31
+			c0[j] = beta*c0[j] + alpha*s00
+			c0[j+1] = beta*c0[j+1] + alpha*s01
+			c1[j] = beta*c1[j] + alpha*s10
+			c1[j+1] = beta*c1[j+1] + alpha*s11
+			c2[j] = beta*c2[j] + alpha*s20
+			c2[j+1] = beta*c2[j+1] + alpha*s21
+			c3[j] = beta*c3[j] + alpha*s30
+			c3[j+1] = beta*c3[j+1] + alpha*s31
 		}
 		if j < n { // one column left
 			b0 := a[j*lda : j*lda+k]
-			c0[j] = beta*c0[j] + dot(a0, b0)
-			c1[j] = beta*c1[j] + dot(a1, b0)
-			c2[j] = beta*c2[j] + dot(a2, b0)
-			c3[j] = beta*c3[j] + dot(a3, b0)
+			c0[j] = beta*c0[j] + alpha*dot(a0, b0)
+			c1[j] = beta*c1[j] + alpha*dot(a1, b0)
+			c2[j] = beta*c2[j] + alpha*dot(a2, b0)
+			c3[j] = beta*c3[j] + alpha*dot(a3, b0)
 		}
 	}
 	for ; i < n; i++ { // the last n mod 4 rows
 		ai := a[i*lda : i*lda+k]
 		ci := c[i*ldc : i*ldc+n]
 		for j := i; j < n; j++ {
-			ci[j] = beta*ci[j] + dot(ai, a[j*lda:j*lda+k])
+			ci[j] = beta*ci[j] + alpha*dot(ai, a[j*lda:j*lda+k])
 		}
 	}
 }
@@ -129,4 +134,19 @@ func dot(x, y []float64) float64 {
 		s0 += x[l] * y[l]
 	}
 	return (s0 + s1) + (s2 + s3)
+}
+
+// rankUpdate is syrkUpper where the AVX2/FMA kernel runs (k is padded by
+// the caller to a multiple of 4 with zero columns) and gonum's blas64.Syrk
+// elsewhere.
+func rankUpdate(n, k int, a []float64, lda int, alpha, beta float64, c []float64, ldc int) {
+	if n == 0 {
+		return
+	}
+	if hasAVX2FMA || k == 0 {
+		syrkUpper(n, k, a, lda, alpha, beta, c, ldc)
+		return
+	}
+	blas64.Syrk(blas.NoTrans, alpha, blas64.General{Rows: n, Cols: k, Stride: lda, Data: a}, beta,
+		blas64.Symmetric{N: n, Stride: ldc, Data: c, Uplo: blas.Upper})
 }

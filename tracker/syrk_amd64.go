@@ -1,12 +1,12 @@
 package tracker
 
 // syrkRow4AVX2 is the AVX2/FMA micro-kernel of syrkUpper (syrk_amd64.s):
-// c[r][j] ← β·c[r][j] + Σ_l a[r][l]·b[j][l] for the rows r = 0…3 at a
+// c[r][j] ← β·c[r][j] + α·Σ_l a[r][l]·b[j][l] for the rows r = 0…3 at a
 // (stride lda) and the ncol (even) rows j at b (stride lda), k a positive
 // multiple of 4; c rows at stride ldc.
 //
 //go:noescape
-func syrkRow4AVX2(a *float64, lda, k int, b *float64, ncol int, c *float64, ldc int, beta float64)
+func syrkRow4AVX2(a *float64, lda, k int, b *float64, ncol int, c *float64, ldc int, alpha, beta float64)
 
 func cpuid(eaxArg, ecxArg uint32) (eax, ebx, ecx, edx uint32)
 
@@ -34,7 +34,7 @@ var hasAVX2FMA = func() bool {
 
 // rowKernel updates the off-diagonal run of a 4-row block; ok is false
 // when the CPU lacks AVX2/FMA or k is not a positive multiple of 4.
-func rowKernel(a []float64, lda, k int, b []float64, ncol int, c []float64, ldc int, beta float64) (ok bool) {
+func rowKernel(a []float64, lda, k int, b []float64, ncol int, c []float64, ldc int, alpha, beta float64) (ok bool) {
 	if !hasAVX2FMA || k <= 0 || k%4 != 0 || ncol < 2 {
 		return false
 	}
@@ -42,6 +42,6 @@ func rowKernel(a []float64, lda, k int, b []float64, ncol int, c []float64, ldc 
 	_ = a[3*lda+k-1]
 	_ = b[(ncol-1)*lda+k-1]
 	_ = c[3*ldc+ncol-1]
-	syrkRow4AVX2(&a[0], lda, k, &b[0], ncol&^1, &c[0], ldc, beta)
+	syrkRow4AVX2(&a[0], lda, k, &b[0], ncol&^1, &c[0], ldc, alpha, beta)
 	return true
 }

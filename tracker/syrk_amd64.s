@@ -1,14 +1,15 @@
 #include "textflag.h"
 
-// func syrkRow4AVX2(a *float64, lda, k int, b *float64, ncol int, c *float64, ldc int, beta float64)
+// func syrkRow4AVX2(a *float64, lda, k int, b *float64, ncol int, c *float64, ldc int, alpha, beta float64)
 //
 // For the four rows a, a+lda, a+2·lda, a+3·lda (k values each, k a positive
 // multiple of 4) and the ncol rows b, b+lda, … (ncol even), updates the
 // 4 × ncol block of c at c, c+ldc, c+2·ldc, c+3·ldc:
-//	c[r][j] ← β·c[r][j] + Σ_l a[r][l]·b[j][l]
+//	c[r][j] ← β·c[r][j] + α·Σ_l a[r][l]·b[j][l]
 // Eight 4-wide accumulators (4 rows × 2 columns) per column pair, fused
 // multiply-adds, horizontal sums at the end. Strides are in elements.
-TEXT ·syrkRow4AVX2(SB), NOSPLIT, $0-64
+// Uses Y15 (X15 is undefined in ABI0 code; the ABI wrapper restores it).
+TEXT ·syrkRow4AVX2(SB), NOSPLIT, $0-72
 	MOVQ a+0(FP), SI
 	MOVQ lda+8(FP), R8
 	SHLQ $3, R8
@@ -18,7 +19,8 @@ TEXT ·syrkRow4AVX2(SB), NOSPLIT, $0-64
 	MOVQ c+40(FP), DX
 	MOVQ ldc+48(FP), R10
 	SHLQ $3, R10
-	VBROADCASTSD beta+56(FP), Y14
+	VBROADCASTSD alpha+56(FP), Y15
+	VBROADCASTSD beta+64(FP), Y14
 	LEAQ (SI)(R8*1), R11
 	LEAQ (R11)(R8*1), R12
 	LEAQ (R12)(R8*1), R13
@@ -60,6 +62,7 @@ loop:
 	VHADDPD      Y1, Y0, Y0
 	VEXTRACTF128 $1, Y0, X1
 	VADDPD       X1, X0, X0
+	VMULPD       X15, X0, X0
 	VMOVUPD      (DX), X1
 	VFMADD231PD  X14, X1, X0
 	VMOVUPD      X0, (DX)
@@ -68,6 +71,7 @@ loop:
 	VHADDPD      Y3, Y2, Y2
 	VEXTRACTF128 $1, Y2, X3
 	VADDPD       X3, X2, X2
+	VMULPD       X15, X2, X2
 	VMOVUPD      (DX)(R10*1), X3
 	VFMADD231PD  X14, X3, X2
 	VMOVUPD      X2, (DX)(R10*1)
@@ -76,6 +80,7 @@ loop:
 	VHADDPD      Y5, Y4, Y4
 	VEXTRACTF128 $1, Y4, X5
 	VADDPD       X5, X4, X4
+	VMULPD       X15, X4, X4
 	VMOVUPD      (DX)(R10*2), X5
 	VFMADD231PD  X14, X5, X4
 	VMOVUPD      X4, (DX)(R10*2)
@@ -85,6 +90,7 @@ loop:
 	VHADDPD      Y7, Y6, Y6
 	VEXTRACTF128 $1, Y6, X7
 	VADDPD       X7, X6, X6
+	VMULPD       X15, X6, X6
 	VMOVUPD      (CX)(R10*1), X7
 	VFMADD231PD  X14, X7, X6
 	VMOVUPD      X6, (CX)(R10*1)

@@ -4,6 +4,6 @@ package tracker
 
 const hasAVX2FMA = false
 
-func rowKernel(a []float64, lda, k int, b []float64, ncol int, c []float64, ldc int, beta float64) bool {
+func rowKernel(a []float64, lda, k int, b []float64, ncol int, c []float64, ldc int, alpha, beta float64) bool {
 	return false
 }

@@ -30,8 +30,9 @@
 // covariance S' = A − K (K = A_{m|o}, the conditional covariance, on the
 // missing block), so T² uses (PᵀS'P)⁺ (χ² on its rank), SPE the traces of
 // C̃S'C̃, and the φ and RBC limits follow from S'. Cost: at the first
-// incomplete frame after a refresh A + εI is factored, A + εI = LLᵀ
-// (Cholesky in place, O(p³/6) multiply-adds: p = 500 about 21·10⁶); each
+// incomplete frame after a refresh A + εI is factored, A + εI = UᵀU
+// (blocked Cholesky in place, O(p³/6) multiply-adds: p = 500 about 21·10⁶,
+// most of them in the rank-update kernel of the covariance); each
 // new missing pattern m then costs O(|m|·p²) for the rows of Ω (two
 // triangular solves per missing channel; Ω itself is never formed),
 // O(|m|²·p + |m|³) for H and K, and O(p r²) for its limits, and is cached
