@@ -39,6 +39,12 @@ type model struct {
 	m   []float64 // PᵀAP
 	ctd []float64 // C̃ᵢᵢ = 1 − ‖Qᵢ‖²
 
+	// Scoring layout: the channels whose row of P or Q is nonzero (all of
+	// them for dense modes, the union of the supports for sparse ones) and
+	// their rows [Pᵢ | Qᵢ] packed contiguously (len(act) × (r + rq)).
+	act []int
+	pq  []float64
+
 	// Mode membership per channel: modeIDs[modeOff[i]:modeOff[i+1]].
 	modeOff []int
 	modeIDs []int
@@ -96,6 +102,7 @@ func newModel(p, maxR, slots int) *model {
 		ap: make([]float64, p*maxR), aq: make([]float64, p*maxR),
 		qaq: make([]float64, maxR*maxR), m: make([]float64, maxR*maxR),
 		ctd:     make([]float64, p),
+		act:     make([]int, 0, p), pq: make([]float64, 2*p*maxR),
 		modeOff: make([]int, p+1),
 		modeIDs: make([]int, 0, p*maxR),
 		sc1:     make([]float64, maxR*maxR), sc2: make([]float64, maxR*maxR),
@@ -248,6 +255,24 @@ func (m *model) setLoadings(pm mat.Matrix) {
 			s += m.q[i*R+j] * m.q[i*R+j]
 		}
 		m.ctd[i] = math.Max(1-s, 0)
+	}
+	m.act = m.act[:0]
+	w := r + rq
+	for i := 0; i < p; i++ {
+		nz := false
+		for j := 0; j < r && !nz; j++ {
+			nz = m.pl[i*R+j] != 0
+		}
+		for j := 0; j < rq && !nz; j++ {
+			nz = m.q[i*R+j] != 0
+		}
+		if !nz {
+			continue
+		}
+		row := m.pq[len(m.act)*w : (len(m.act)+1)*w]
+		copy(row[:r], m.pl[i*R:i*R+r])
+		copy(row[r:], m.q[i*R:i*R+rq])
+		m.act = append(m.act, i)
 	}
 	m.aFro2, m.trA = 0, 0
 	for i := 0; i < p; i++ {

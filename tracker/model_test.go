@@ -200,7 +200,15 @@ func TestRBCPureFault(t *testing.T) {
 			sparse.Set(i, j, 0.3+rng.Float64())
 		}
 	}
-	for name, pm := range map[string]*mat.Dense{"eigen": eigenLoadings(s, 3), "sparse": sparse} {
+	// Sparse loadings that leave channels 3, 4, 8 and 11 outside every mode
+	// (the scoring loop skips their zero rows).
+	gaps := mat.NewDense(12, 3, nil)
+	for j, sup := range [][]int{{0, 1, 2}, {5, 6, 7}, {9, 10}} {
+		for _, i := range sup {
+			gaps.Set(i, j, 0.3+rng.Float64())
+		}
+	}
+	for name, pm := range map[string]*mat.Dense{"eigen": eigenLoadings(s, 3), "sparse": sparse, "sparse with gaps": gaps} {
 		for _, idx := range []Index{IndexSPE, IndexCombined} {
 			m, _ := testModel(t, s, pm, idx)
 			for j := 0; j < 12; j++ {

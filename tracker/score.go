@@ -9,7 +9,8 @@ import (
 // work is the per-frame scratch of the scoring path (sized in New).
 type work struct {
 	z, e, dz, rbc, spec, t2c, imp []float64 // p
-	t, q, y                       []float64 // maxR
+	y                             []float64 // maxR
+	tq                            []float64 // 2·maxR
 	miss                          []int     // current missing pattern
 }
 
@@ -17,8 +18,9 @@ func newWork(p, maxR int) *work {
 	return &work{
 		z: make([]float64, p), e: make([]float64, p), dz: make([]float64, p),
 		rbc: make([]float64, p), spec: make([]float64, p), t2c: make([]float64, p),
-		imp: make([]float64, p),
-		t:   make([]float64, maxR), q: make([]float64, maxR), y: make([]float64, maxR),
+		imp:  make([]float64, p),
+		y:    make([]float64, maxR),
+		tq:   make([]float64, 2*maxR),
 		miss: make([]int, 0, p),
 	}
 }
@@ -42,37 +44,42 @@ func (m *model) impute(z []float64, pt *pattern, tmp []float64) {
 
 // scoreZ scores the standardized (and imputed) frame in w.z under pattern
 // pt: T², SPE, φ and the per-channel SPE contributions e², T² contributions
-// zᵢ(D'z)ᵢ and RBCs. All loops are O(p·r).
+// zᵢ(D'z)ᵢ and RBCs. O(p + nnz·(r + rq)) with nnz the channels with a
+// nonzero row of P or Q (m.act): a channel outside every mode has e = z,
+// D'z = 0.
 func (m *model) scoreZ(w *work, pt *pattern, rbc Index) (t2, spe, phi float64) {
 	p, R, r, rq := m.p, m.maxR, m.r, m.rq
 	z := w.z
-	// t = Pᵀz, q = Qᵀz
-	for j := 0; j < r; j++ {
-		w.t[j], w.q[j] = 0, 0
+	nw := r + rq
+	// tq = [Pᵀz | Qᵀz] over the active rows.
+	tq := w.tq[:nw]
+	for j := range tq {
+		tq[j] = 0
 	}
-	for i := 0; i < p; i++ {
+	act := m.act
+	pq := m.pq[:len(act)*nw]
+	for a, i := range act {
 		zi := z[i]
 		if zi == 0 {
 			continue
 		}
-		pr := m.pl[i*R : i*R+r]
-		qr := m.q[i*R : i*R+rq]
-		for j, v := range pr {
-			w.t[j] += v * zi
-		}
-		for j, v := range qr {
-			w.q[j] += v * zi
+		row := pq[a*nw : a*nw+nw]
+		for j, v := range row {
+			tq[j] += v * zi
 		}
 	}
+	tv, qv := tq[:r], tq[r:]
 	// y = M'⁺t, T² = tᵀy
+	y := w.y[:r]
 	t2 = 0
 	for a := 0; a < r; a++ {
+		mr := pt.minv[a*R : a*R+r]
 		s := 0.0
-		for b := 0; b < r; b++ {
-			s += pt.minv[a*R+b] * w.t[b]
+		for b, v := range mr {
+			s += v * tv[b]
 		}
-		w.y[a] = s
-		t2 += w.t[a] * s
+		y[a] = s
+		t2 += tv[a] * s
 	}
 	tau2, delta2 := pt.t2Lim, pt.speLim
 	// The RBC numerator is (Mz)ᵢ with M = Φ = D/τ² + C̃/δ² or M = C̃.
@@ -81,27 +88,36 @@ func (m *model) scoreZ(w *work, pt *pattern, rbc Index) (t2, spe, phi float64) {
 		cd, ce = 0, 1
 	}
 	spe = 0
-	y := w.y[:r]
-	qv := w.q[:rq]
-	for i := 0; i < p; i++ {
-		pr := m.pl[i*R : i*R+r]
-		qr := m.q[i*R : i*R+rq]
-		dz := 0.0
-		for j, v := range pr {
-			dz += v * y[j]
+	zz := z[:p]
+	dzv, ev, spec, t2c, rbcv, inv := w.dz[:p], w.e[:p], w.spec[:p], w.t2c[:p], w.rbc[:p], pt.rbcInv[:p]
+	next, a := p, 0
+	if len(act) > 0 {
+		next = act[0]
+	}
+	for i, zi := range zz {
+		dz, e := 0.0, zi
+		if i == next {
+			row := pq[a*nw : a*nw+nw]
+			pr, qr := row[:r], row[r:]
+			for j, v := range pr {
+				dz += v * y[j]
+			}
+			for j, v := range qr {
+				e -= v * qv[j]
+			}
+			a++
+			next = p
+			if a < len(act) {
+				next = act[a]
+			}
 		}
-		zi := z[i]
-		e := zi
-		for j, v := range qr {
-			e -= v * qv[j]
-		}
-		w.dz[i] = dz
-		w.e[i] = e
-		w.spec[i] = e * e
-		w.t2c[i] = zi * dz
+		dzv[i] = dz
+		ev[i] = e
+		spec[i] = e * e
+		t2c[i] = zi * dz
 		spe += e * e
 		v := cd*dz + ce*e
-		w.rbc[i] = v * v * pt.rbcInv[i]
+		rbcv[i] = v * v * inv[i]
 	}
 	phi = spe/delta2 + t2/tau2
 	return t2, spe, phi
