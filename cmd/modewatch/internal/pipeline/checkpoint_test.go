@@ -16,7 +16,7 @@ import (
 )
 
 // collectFrames decodes data into copies of its aligned frames.
-func collectFrames(t *testing.T, data []byte, period time.Duration) (*stream.Channels, []stream.Frame) {
+func collectFrames(t testing.TB, data []byte, period time.Duration) (*stream.Channels, []stream.Frame) {
 	t.Helper()
 	ch, err := stream.NewChannels(nil, 0)
 	if err != nil {
