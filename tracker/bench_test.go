@@ -146,8 +146,9 @@ func BenchmarkDecodeFrame(b *testing.B) {
 }
 
 // BenchmarkCovUpdate compares the covariance update per frame at p = 500:
-// rank-1 (blas64.Syr) per frame against the batched rank-64 update
-// (blas64.Syrk), which give the same result within 1e-12 (TestEWBatchEqualsSingle).
+// one frame per update (batch 1: the rank-update kernel with its step
+// padded to 4) against the batched rank-64 update (syrkUpper), which give
+// the same result within 1e-12 (TestEWBatchEqualsSingle).
 func BenchmarkCovUpdate(b *testing.B) {
 	const p = 500
 	frames := benchFrames(p, 256)
