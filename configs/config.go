@@ -106,6 +106,10 @@ type Config struct {
 	ShutdownTimeout time.Duration `yaml:"shutdown_timeout"`
 	// Log configures log/slog output.
 	Log Log `yaml:"log"`
+
+	// Where each key was found, when loaded from a file (see Where).
+	file string
+	pos  map[string][2]int
 }
 
 // Server is the NATS connection. At most one of User/Password, Token,

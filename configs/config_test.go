@@ -276,3 +276,35 @@ func TestLoadMissingFile(t *testing.T) {
 		t.Errorf("an I/O error must not be ErrInvalid")
 	}
 }
+
+// TestCheckFiles: files the configuration names but that cannot be read
+// are reported with their place.
+func TestCheckFiles(t *testing.T) {
+	c, err := Parse("files.yaml", []byte(`server:
+  urls: [nats://a:4222]
+  credentials_file: testdata/no-such.creds
+  tls:
+    ca: testdata/broken.yaml
+model:
+  file: testdata/no-such-model.json
+`))
+	if err != nil {
+		t.Fatal(err)
+	}
+	err = c.CheckFiles()
+	var es Errors
+	if !errors.As(err, &es) || len(es) != 2 {
+		t.Fatalf("got %v", err)
+	}
+	// Positions counted by hand in the YAML above.
+	if es[0].Line != 3 || es[0].Column != 21 || es[0].Path != "server.credentials_file" {
+		t.Errorf("first problem at %d:%d %s", es[0].Line, es[0].Column, es[0].Path)
+	}
+	if es[1].Line != 7 || es[1].Column != 9 || !strings.Contains(es[1].Msg, "no such file") {
+		t.Errorf("second problem %v", es[1])
+	}
+	var zero Config
+	if err := zero.CheckFiles(); err != nil {
+		t.Errorf("zero config: %v", err)
+	}
+}

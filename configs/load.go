@@ -86,6 +86,7 @@ func Parse(name string, data []byte) (*Config, error) {
 	if root.Kind != 0 {
 		d.decode(&root, reflect.ValueOf(&c).Elem(), "")
 	}
+	c.file, c.pos = name, d.pos
 	c.ApplyDefaults()
 	if verr := c.Validate(); verr != nil {
 		var ves Errors
@@ -388,4 +389,65 @@ func describe(n *yaml.Node) string {
 		return strconv.Quote(n.Value)
 	}
 	return kindName(n)
+}
+
+// Where returns the file, line and column of the key path (e.g.
+// "server.tls.ca") in the file the configuration was loaded from, or of
+// its closest ancestor that was written; line 0 when unknown (a Config
+// built in code, or a key left to its default).
+func (c *Config) Where(path string) (file string, line, col int) {
+	if c.pos == nil {
+		return c.file, 0, 0
+	}
+	d := decoder{pos: c.pos}
+	if p, ok := d.lookup(path); ok {
+		return c.file, p[0], p[1]
+	}
+	return c.file, 0, 0
+}
+
+// CheckFiles reports every file the configuration names that cannot be
+// read (model, empirical limits, TLS, credentials, NKey seed), each with
+// its place. Validate does not touch the file system; "modewatch check"
+// calls both.
+func (c *Config) CheckFiles() error {
+	var errs Errors
+	check := func(path, name string) {
+		if name == "" {
+			return
+		}
+		f, err := os.Open(name)
+		if err == nil {
+			f.Close()
+			return
+		}
+		file, line, col := c.Where(path)
+		errs = append(errs, &Error{File: file, Line: line, Column: col, Path: path, Msg: fmt.Sprintf("cannot read %q: %v", name, errors.Unwrap(err))})
+	}
+	check("server.nkey_seed_file", c.Server.NKeySeedFile)
+	check("server.credentials_file", c.Server.CredentialsFile)
+	check("server.tls.ca", c.Server.TLS.CA)
+	check("server.tls.cert", c.Server.TLS.Cert)
+	check("server.tls.key", c.Server.TLS.Key)
+	check("model.file", c.Model.File)
+	if c.Model.Limits.Method == LimitsEmpirical {
+		check("model.limits", c.Model.Limits.File)
+	}
+	for i, u := range c.Units {
+		p := fmt.Sprintf("units[%d].model", i)
+		check(p+".file", u.Model.File)
+		if u.Model.Limits.Method == LimitsEmpirical {
+			check(p+".limits", u.Model.Limits.File)
+		}
+	}
+	for i, f := range c.Sources.Files {
+		if f != "-" {
+			check(fmt.Sprintf("sources.files[%d]", i), f)
+		}
+	}
+	if len(errs) == 0 {
+		return nil
+	}
+	sortErrors(errs)
+	return errs
 }

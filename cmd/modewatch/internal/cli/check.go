@@ -15,7 +15,8 @@ func init() {
 func runCheck(ctx context.Context, env IO, args []string) error {
 	fs := newFlags(env, "check", "--config FILE", `
 Check a service configuration: YAML syntax, unknown keys, bad values and
-consistency (a channel in one unit only, valid subjects, ranges, ...).
+consistency (a channel in one unit only, valid subjects, ranges, ...) and
+that the files it names (model, TLS, credentials, inputs) can be read.
 Every problem is printed on its own line as FILE:LINE:COLUMN: key: message.
 Exit status 0 when the file is valid, 2 when it has problems.`)
 	var file string
@@ -33,6 +34,9 @@ Exit status 0 when the file is valid, 2 when it has problems.`)
 		return usagef("--config FILE is required")
 	}
 	c, err := configs.Load(file)
+	if err == nil {
+		err = c.CheckFiles() // files it names must be readable
+	}
 	if err != nil {
 		var es configs.Errors
 		if errors.As(err, &es) {

@@ -100,6 +100,9 @@ func runReplay(ctx context.Context, env IO, args []string) error {
 		return err
 	}
 	var baseline *pipeline.ModelFile
+	if model == "" {
+		model = cfg.Model.File // the configuration's fitted model, unless --model says otherwise
+	}
 	if model != "" {
 		if baseline, err = pipeline.ReadModel(model); err != nil {
 			return usagef("--model: %v", err)
