@@ -233,6 +233,21 @@ checkpoint_interval: 1m
 		t.Errorf("ack without alert_id: %d, want 400", resp.StatusCode)
 	}
 
+	// Maintenance for a unit, through the HTTP API.
+	resp, err = http.Post(info.HTTP+"/api/units/coolwater/maintenance", "application/json",
+		strings.NewReader(`{"on":true,"by":"test","reason":"pump swap"}`))
+	if err != nil {
+		t.Fatal(err)
+	}
+	resp.Body.Close()
+	if resp.StatusCode != 200 {
+		t.Errorf("maintenance: %d", resp.StatusCode)
+	}
+	var cw pipeline.UnitView
+	if getJSON(t, info.HTTP+"/api/units/coolwater", &cw); !cw.InMaintenance {
+		t.Error("coolwater not in maintenance after the command")
+	}
+
 	// /metrics parses with the Prometheus text-format parser.
 	resp, err = http.Get(info.HTTP + "/metrics")
 	if err != nil {
