@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"encoding/binary"
 	"errors"
+	"hash/crc32"
 	"math"
 	"testing"
 	"time"
@@ -154,6 +155,47 @@ func TestCheckpointBaseline(t *testing.T) {
 		re.Step(&b, x, nil)
 		if !sameScore(&a, &b) || !b.Calibrated || b.State != StateBaseline {
 			t.Fatalf("baseline restore differs: %+v vs %+v", a, b)
+		}
+	}
+}
+
+// Version 1 checkpoints (before Grow and per-channel batch steps) are still
+// read: a version 2 checkpoint of a tracker that never grew and whose batch
+// has one step per frame, rewritten in the version 1 layout (no initial
+// width field), restores with bit-identical scores.
+func TestCheckpointVersion1(t *testing.T) {
+	const p = 7
+	cfg := Config{Period: time.Second, HalfLife: 10 * time.Minute, WarmUp: 40, RefreshEvery: 8, Batch: 16, Modes: modes.Config{Count: 2}}
+	tr, src := newStream(t, p, cfg)
+	var sc Score
+	x := make([]float64, p)
+	for k := 0; k < 101; k++ {
+		tr.Step(&sc, src.frame(x), nil)
+	}
+	ck, err := tr.MarshalBinary()
+	if err != nil {
+		t.Fatal(err)
+	}
+	// Header: magic 4, version 2, p 4, fingerprint 8, flags 1, frames 8,
+	// learned 8, since 4, then the u32 initial width (version 2 only).
+	const at = 4 + 2 + 4 + 8 + 1 + 8 + 8 + 4
+	v1 := append(bytes.Clone(ck[:at]), ck[at+4:len(ck)-4]...)
+	binary.LittleEndian.PutUint16(v1[4:], 1)
+	v1 = binary.LittleEndian.AppendUint32(v1, crc32.ChecksumIEEE(v1))
+	tr2, err := New(p, cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := tr2.UnmarshalBinary(v1); err != nil {
+		t.Fatal(err)
+	}
+	var s1, s2 Score
+	for k := 0; k < 50; k++ {
+		src.frame(x)
+		tr.Step(&s1, x, nil)
+		tr2.Step(&s2, x, nil)
+		if s1.T2 != s2.T2 || s1.SPE != s2.SPE || s1.Phi != s2.Phi {
+			t.Fatalf("frame %d: version 1 restore differs", k)
 		}
 	}
 }

@@ -90,3 +90,37 @@ func ExampleTracker_MarshalBinary() {
 	// identical scores after restore: true
 	// truncated checkpoint rejected: true
 }
+
+// A unit's registry grows while it is monitored (auto-discovery found a
+// third channel): Grow keeps what was learned on the first two, and the new
+// channel is listed as warming until it has WarmUp frames and a refresh has
+// taken it into the model.
+func ExampleTracker_Grow() {
+	rng := rand.New(rand.NewPCG(5, 6))
+	tr, err := tracker.New(2, tracker.Config{Period: time.Second, HalfLife: time.Hour, WarmUp: 100, RefreshEvery: 10,
+		Modes: modes.Config{Count: 1}})
+	if err != nil {
+		fmt.Println(err)
+		return
+	}
+	var sc tracker.Score
+	for k := 0; k < 200; k++ {
+		load := rng.NormFloat64()
+		tr.Step(&sc, []float64{10 + load + 0.1*rng.NormFloat64(), 20 + 2*load + 0.1*rng.NormFloat64()}, nil)
+	}
+	if err := tr.Grow(3); err != nil {
+		fmt.Println(err)
+		return
+	}
+	for k := 1; k <= 120; k++ {
+		load := rng.NormFloat64()
+		x := []float64{10 + load + 0.1*rng.NormFloat64(), 20 + 2*load + 0.1*rng.NormFloat64(), 5 - load + 0.1*rng.NormFloat64()}
+		tr.Step(&sc, x, nil)
+		if k == 1 || k == 120 {
+			fmt.Printf("frame %d after Grow: channels %d, warming %v, ready %v\n", k, tr.P(), sc.Warming, sc.Ready)
+		}
+	}
+	// Output:
+	// frame 1 after Grow: channels 3, warming [2], ready true
+	// frame 120 after Grow: channels 3, warming [], ready true
+}
