@@ -97,8 +97,9 @@ func ExampleTracker_MarshalBinary() {
 // taken it into the model.
 func ExampleTracker_Grow() {
 	rng := rand.New(rand.NewPCG(5, 6))
-	tr, err := tracker.New(2, tracker.Config{Period: time.Second, HalfLife: time.Hour, WarmUp: 100, RefreshEvery: 10,
-		Modes: modes.Config{Count: 1}})
+	cfg := tracker.Config{Period: time.Second, HalfLife: time.Hour, WarmUp: 100, RefreshEvery: 10,
+		Modes: modes.Config{Count: 1}}
+	tr, err := tracker.New(2, cfg)
 	if err != nil {
 		fmt.Println(err)
 		return
@@ -108,7 +109,7 @@ func ExampleTracker_Grow() {
 		load := rng.NormFloat64()
 		tr.Step(&sc, []float64{10 + load + 0.1*rng.NormFloat64(), 20 + 2*load + 0.1*rng.NormFloat64()}, nil)
 	}
-	if err := tr.Grow(3); err != nil {
+	if err := tr.Grow(3, cfg); err != nil { // the Config New(3, cfg) would get
 		fmt.Println(err)
 		return
 	}

@@ -60,6 +60,7 @@ import (
 	"errors"
 	"fmt"
 	"math"
+	"reflect"
 	"time"
 
 	"modewatch/tracker/limits"
@@ -861,36 +862,47 @@ func (t *Tracker) warming(i int) bool {
 }
 
 // Grow widens the tracker to p2 ≥ P() channels, for a unit whose channel
-// registry grew (auto-discovery). Channels 0…P()−1 keep everything learned
-// (means, variances, covariances, counts, flat-line state, learning state,
-// empirical limits); channels P()…p2−1 start empty and are learned from the
-// next frame on (their frames batch with the others'). They enter the
-// model at the first refresh after they have WarmUp frames, and until then
-// are listed in Score.Warming and scored as outside the model (like an
-// excluded channel: no effect on T², SPE, φ or the limits). Config defaults
-// that depend on the width (WarmUp = max(100, 2p), the modes' MaxCount) are
-// recomputed for p2 as New(p2, cfg) would, so a checkpoint of the grown
-// tracker restores into New(p2, cfg).
+// registry grew (auto-discovery). cfg is the configuration for p2 channels,
+// as it would be given to New(p2, cfg), so that a checkpoint of the grown
+// tracker restores into New(p2, cfg); it must keep Period, HalfLife and
+// Batch (the learned statistics depend on them), while the rest (modes,
+// α, limit forms, warm-up, ...) takes effect at once. Defaults that depend
+// on the width (WarmUp = max(100, 2p), the modes' MaxCount) are those of p2.
+//
+// Channels 0…P()−1 keep everything learned (means, variances,
+// covariances, counts, flat-line state, learning state, empirical limits);
+// channels P()…p2−1 start empty and are learned from the next frame on
+// (their frames batch with the others'). They enter the model at the first
+// refresh after they have WarmUp frames, and until then are listed in
+// Score.Warming and scored as outside the model (like an excluded channel:
+// no effect on T², SPE, φ or the limits).
 //
 // If a model exists it is rebuilt at once from the same correlation A
 // (zero rows for the new channels) with a p2-wide mode tracker, started
 // cold: for dense modes scores and limits are unchanged to the mode
 // solver's tolerance (3·10⁻⁷ relative in TestGrow); sparse modes may
-// converge differently, and the mode IDs restart. Nothing is learned by Grow itself, so a frozen tracker or a
-// fitted baseline stays as it is. Cost: O(p2²) copies plus one mode
-// refresh; it allocates (not a per-frame call). On error the tracker is
-// unchanged. p2 < P() is an error wrapping ErrWidth; p2 == P() does nothing.
-func (t *Tracker) Grow(p2 int) error {
+// converge differently, and the mode IDs restart. Nothing is learned by
+// Grow itself, so a frozen tracker or a fitted baseline stays as it is.
+// Empirical limits (Calibrate) are kept unless α changes. Cost: O(p2²)
+// copies plus one mode refresh; it allocates (not a per-frame call). On
+// error the tracker is unchanged. p2 < P() is an error wrapping
+// ErrWidth; p2 == P() with the same cfg does nothing.
+func (t *Tracker) Grow(p2 int, cfg Config) error {
 	if p2 < t.p {
 		return fmt.Errorf("%w: cannot shrink from %d to %d channels", ErrWidth, t.p, p2)
 	}
-	if p2 == t.p {
-		return nil
-	}
-	cfg := t.ucfg
+	ucfg := cfg
 	if err := cfg.defaults(p2); err != nil {
 		return err
 	}
+	if cfg.Period != t.cfg.Period || cfg.HalfLife != t.cfg.HalfLife || cfg.Batch != t.cfg.Batch {
+		return fmt.Errorf("%w: Grow cannot change Period, HalfLife or Batch (%v, %v, %d → %v, %v, %d)",
+			ErrConfig, t.cfg.Period, t.cfg.HalfLife, t.cfg.Batch, cfg.Period, cfg.HalfLife, cfg.Batch)
+	}
+	if p2 == t.p && reflect.DeepEqual(ucfg, t.ucfg) {
+		return nil
+	}
+	keepCal := t.cal && cfg.Alpha == t.cfg.Alpha
 	ms, err := modes.NewTracker(p2, cfg.Modes)
 	if err != nil {
 		return fmt.Errorf("%w: %w", ErrConfig, err)
@@ -933,19 +945,21 @@ func (t *Tracker) Grow(p2 int) error {
 	t.obs = make([]bool, p2)
 	t.stuck = make([]bool, p2)
 	nEff := t.mdl.nEff
-	t.p, t.cfg, t.ms, t.maxR = p2, cfg, ms, maxR
+	t.p, t.cfg, t.ucfg, t.ms, t.maxR = p2, cfg, ucfg, ms, maxR
 	t.mdl = m2
 	t.w = newWork(p2, maxR)
 	if cap(t.top) < cfg.TopContrib+1 {
 		t.top = make([]int, 0, cfg.TopContrib+1)
 	}
+	t.ls = limitSpec{alpha: cfg.Alpha, t2: cfg.T2Limit, spe: cfg.SPELimit, rbc: cfg.RBCIndex,
+		chi1: limits.ChiSquare(1-cfg.Alpha, 1)}
 	if cfg.SPELimit == SPEJacksonMudholkar {
 		t.ls.jmSpace = newJMScratch(p2, maxR)
 	}
 	if t.ready {
-		since, cal := t.since, t.cal
+		since := t.since
 		t.install(nEff)
-		t.since, t.cal = since, cal
+		t.since, t.cal = since, keepCal
 	}
 	return nil
 }

@@ -861,7 +861,7 @@ func TestGrow(t *testing.T) {
 		t.Fatal(err)
 	}
 	c0 := covOf(tr.Stats())
-	if err := tr.Grow(p2); err != nil {
+	if err := tr.Grow(p2, cfg); err != nil {
 		t.Fatal(err)
 	}
 	c1 := covOf(tr.Stats())
@@ -880,8 +880,13 @@ func TestGrow(t *testing.T) {
 	approx(t, "T² after Grow", after.T2, before.T2, 0, 1e-5)
 	approx(t, "SPE after Grow", after.SPE, before.SPE, 0, 1e-5)
 	approx(t, "SPE limit after Grow", after.SPELimit, before.SPELimit, 0, 1e-5)
-	if err := tr.Grow(p); !errors.Is(err, ErrWidth) {
+	if err := tr.Grow(p, cfg); !errors.Is(err, ErrWidth) {
 		t.Errorf("shrink: %v", err)
+	}
+	other := cfg
+	other.HalfLife = time.Minute
+	if err := tr.Grow(p2+1, other); !errors.Is(err, ErrConfig) || tr.P() != p2 {
+		t.Errorf("Grow with another half-life: %v, width %d", err, tr.P())
 	}
 	// Learn with all 8 channels; 6 and 7 warm up for WarmUp = 50 frames
 	// and enter at the next refresh.
