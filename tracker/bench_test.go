@@ -48,7 +48,7 @@ var benchSink float64
 
 // benchFrame measures one frame through Step: standardization, scoring
 // (T², SPE, φ), per-channel contributions and the ranked list, the EW update
-// with the batched covariance (rank-64 Syrk), and the refresh of r = 5
+// with the batched covariance (rank-64 update, syrkUpper), and the refresh of r = 5
 // sparse modes (l0, k = 10) with their limits amortised over 64 frames.
 func benchFrame(b *testing.B, p int) {
 	frames := benchFrames(p, 256)

@@ -40,12 +40,11 @@
 // frame with a cached pattern costs O(|m|·p + p·r). Storage: PatternCache
 // slots preallocated in New for up to 16 missing channels each (H 16·p,
 // K 16² values); the p × p factor buffer is allocated at the first
-// incomplete frame in the tracker's life. After that nothing allocates,
-// also for a new pattern, unless a pattern has more than 16 missing
-// channels, which grows its slot once. A missing channel's
-// mean, variance and covariances are not updated by the frame; an
-// incomplete frame is folded into the covariance by a direct O(p²) update
-// instead of the batch (see EW).
+// incomplete frame in the tracker's life (p² + 64p values). After that
+// nothing allocates, also for a new pattern, unless a pattern has more than
+// 16 missing channels, which grows its slot once. A missing channel's
+// mean, variance and covariances are not updated by the frame; the frame
+// joins the batched covariance update like a complete one (see EW).
 //
 // Stuck channels. A channel that repeats exactly the same value for
 // FlatFrames frames, or whose EW standard deviation falls to StuckRel·|mean|,
