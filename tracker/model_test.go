@@ -454,3 +454,31 @@ func TestPhiMomentsSparse(t *testing.T) {
 	approx(t, "E[φ]", mean, a1, 0, 0.02)
 	approx(t, "Var[φ]", vr, 2*a2, 0, 0.06)
 }
+
+// Why Score.Contrib is ranked by RBC and not by RBC over its limit: for a
+// pure single-sensor fault x = fξⱼ RBCⱼ is the largest RBC (LIMITS.md R7,
+// Cauchy–Schwarz [DER]), but RBCᵢ/(gᵢχ²₁) can put another channel first
+// when gⱼ is larger. A seeded 8-channel model with 2 eigenvector modes
+// (found by searching seeds 0–199: 12 of 1,200 model/mode/index cases):
+// with the RBC of SPE and a bias of 3 on channel 2, the ratio ranks channel
+// 7 first (5.215 against 3.741), RBC ranks channel 2 first.
+func TestRBCRatioLacksGuarantee(t *testing.T) {
+	rng := rand.New(rand.NewPCG(12, 3))
+	s := randomCov(rng, 8, 3)
+	m, _ := testModel(t, s, eigenLoadings(s, 2), IndexSPE)
+	x := make([]float64, 8)
+	x[2] = 3
+	w, _, _, _ := scoreVec(m, IndexSPE, x)
+	ratio := make([]float64, 8)
+	for i := range ratio {
+		ratio[i] = w.rbc[i] / m.base.rbcLim[i]
+	}
+	if argmax(w.rbc) != 2 {
+		t.Errorf("RBC ranks channel %d first for a pure fault on channel 2", argmax(w.rbc))
+	}
+	if argmax(ratio) != 7 {
+		t.Errorf("RBC/limit ranks channel %d first; the seeded case had channel 7", argmax(ratio))
+	}
+	approx(t, "RBC₇/limit", ratio[7], 5.215, 1e-3, 0)
+	approx(t, "RBC₂/limit", ratio[2], 3.741, 1e-3, 0)
+}

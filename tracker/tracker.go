@@ -231,7 +231,9 @@ var (
 // Score.Contrib is ranked by RBC, not by RBC/RBCLimit: for a pure
 // single-sensor fault the faulty channel has the largest RBC whatever the
 // noise levels (Cauchy–Schwarz; Alcalá & Qin 2009), a guarantee the ratio
-// lacks; the ratio, whose in-control distribution is χ²₁/χ²_{1−α}(1) for
+// lacks (TestRBCRatioLacksGuarantee shows a noise-free bias that the ratio
+// pins on another channel); the ratio, whose in-control distribution is
+// χ²₁/χ²_{1−α}(1) for
 // every channel, is at hand from the two fields. Measured on seeded 3σ
 // biases the two rankings differ by under one point either way.
 type Contribution struct {
