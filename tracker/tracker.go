@@ -233,9 +233,9 @@ var (
 // noise levels (Cauchy–Schwarz; Alcalá & Qin 2009), a guarantee the ratio
 // lacks (TestRBCRatioLacksGuarantee shows a noise-free bias that the ratio
 // pins on another channel); the ratio, whose in-control distribution is
-// χ²₁/χ²_{1−α}(1) for
-// every channel, is at hand from the two fields. Measured on seeded 3σ
-// biases the two rankings differ by under one point either way.
+// χ²₁/χ²_{1−α}(1) for every channel, is at hand from the two fields.
+// Measured on seeded 3σ biases the two rankings differ by under one point
+// either way.
 type Contribution struct {
 	Channel int
 	// RBC is the reconstruction-based contribution of the channel to the
