@@ -264,10 +264,10 @@ type Alerts struct {
 	// low ≥ 1, medium ≥ 2, high ≥ 4.
 	Severity []SeverityBand `yaml:"severity"`
 	// Flood: more than Count new alerts of a unit within Window are grouped
-	// into one flood alert. Default 10 in 10m. Top-level only.
+	// into one flood alert. Default 10 in 10m.
 	Flood RateRule `yaml:"flood"`
 	// Chatter: Count activations of one alarm within Window make it
-	// chattering (suppressed and reported). Default 3 in 1m. Top-level only.
+	// chattering (suppressed and reported). Default 3 in 1m.
 	Chatter RateRule `yaml:"chattering"`
 	// FreezeOnAlert freezes a unit's learning while an alert is active.
 	// Default true.

@@ -308,3 +308,32 @@ model:
 		t.Errorf("zero config: %v", err)
 	}
 }
+
+// TestUnitRateRules: a unit may set its own flood and chattering figures;
+// the rest inherit.
+func TestUnitRateRules(t *testing.T) {
+	c, err := Parse("u.yaml", []byte(`
+alerts: {flood: {count: 20, window: 15m}}
+units:
+  - name: boiler
+    alerts: {chattering: {count: 5, window: 2m}}
+  - name: bad
+    alerts: {flood: {count: 1, window: 0s}}
+`))
+	if err == nil || !strings.Contains(err.Error(), "u.yaml:7:29: units[1].alerts.flood.count") || !strings.Contains(err.Error(), "units[1].alerts.flood.window") {
+		t.Fatalf("got %v", err)
+	}
+	c, err = Parse("u.yaml", []byte(`
+alerts: {flood: {count: 20, window: 15m}}
+units:
+  - name: boiler
+    alerts: {chattering: {count: 5, window: 2m}}
+`))
+	if err != nil {
+		t.Fatal(err)
+	}
+	a := c.AlertsFor("boiler")
+	if a.Flood != (RateRule{20, 15 * time.Minute}) || a.Chatter != (RateRule{5, 2 * time.Minute}) {
+		t.Errorf("boiler alerts %+v", a)
+	}
+}

@@ -358,12 +358,8 @@ func (v *validator) alerts(p string, a Alerts, partial bool) {
 		name string
 		r    RateRule
 	}{{"flood", a.Flood}, {"chattering", a.Chatter}} {
-		if partial {
-			// The alarm-rate rules count over the whole service.
-			if r.r != (RateRule{}) {
-				v.add(p+"."+r.name, "set %s under the top-level alerts section: it applies to every unit", r.name)
-			}
-			continue
+		if partial && r.r == (RateRule{}) {
+			continue // inherited
 		}
 		if r.r.Count < 2 {
 			v.add(p+"."+r.name+".count", "%d: want at least 2", r.r.Count)

@@ -130,6 +130,8 @@ func AlertsConfig(c *configs.Config) alerts.Config {
 		for _, b := range a.Severity {
 			r.Severity = append(r.Severity, alerts.SeverityBand{Name: b.Name, Ratio: b.Ratio})
 		}
+		r.FloodCount, r.FloodWindow = a.Flood.Count, a.Flood.Window
+		r.ChatterCount, r.ChatterWindow = a.Chatter.Count, a.Chatter.Window
 		return r
 	}
 	top := c.Alerts.Over(configs.DefaultAlerts())
