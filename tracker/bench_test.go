@@ -50,32 +50,42 @@ var benchSink float64
 // (T², SPE, φ), per-channel contributions and the ranked list, the EW update
 // with the batched covariance (rank-64 update, syrkUpper), and the refresh of r = 5
 // sparse modes (l0, k = 10) with their limits amortised over 64 frames.
-func benchFrame(b *testing.B, p int) {
+func benchFrame(b *testing.B, p, missing int) {
 	frames := benchFrames(p, 256)
 	tr, err := New(p, Config{Period: time.Second, HalfLife: time.Hour, WarmUp: 256, RefreshEvery: 64, Batch: 64,
 		Modes: modes.Config{Count: 5, Sparsity: []modes.Sparsity{{Method: modes.L0, K: 10}}}})
 	if err != nil {
 		b.Fatal(err)
 	}
+	var miss []bool
+	if missing >= 0 {
+		miss = make([]bool, p)
+		miss[missing] = true
+	}
 	var sc Score
 	for k := 0; k < 512; k++ {
-		if err := tr.Step(&sc, frames[k%256], nil); err != nil {
+		if err := tr.Step(&sc, frames[k%256], miss); err != nil {
 			b.Fatal(err)
 		}
 	}
 	b.ReportAllocs()
 	b.ResetTimer()
 	for i := 0; i < b.N; i++ {
-		tr.Step(&sc, frames[i%256], nil)
+		tr.Step(&sc, frames[i%256], miss)
 	}
 	benchSink += sc.T2
 }
 
 func BenchmarkFrame(b *testing.B) {
 	for _, p := range []int{100, 500, 1000} {
-		b.Run(fmt.Sprintf("p=%d", p), func(b *testing.B) { benchFrame(b, p) })
+		b.Run(fmt.Sprintf("p=%d", p), func(b *testing.B) { benchFrame(b, p, -1) })
 	}
 }
+
+// BenchmarkFrameMissing is BenchmarkFrame at p = 500 with channel 7 missing
+// in every frame: the imputation and reduced limits of a cached pattern per
+// frame, and at each refresh the factor of A + εI and the pattern again.
+func BenchmarkFrameMissing(b *testing.B) { benchFrame(b, 500, 7) }
 
 // lineFrame writes one frame of p values as line protocol the way the
 // demo plant does: measurement = unit, tag asset, ten fields per asset,
