@@ -68,11 +68,18 @@ func benchFrame(b *testing.B, p, missing int) {
 			b.Fatal(err)
 		}
 	}
+	refreshes := 0
 	b.ReportAllocs()
 	b.ResetTimer()
 	for i := 0; i < b.N; i++ {
 		tr.Step(&sc, frames[i%256], miss)
+		if sc.NextRefresh == 1 { // this frame's learning triggered a refresh
+			refreshes++
+		}
 	}
+	b.StopTimer()
+	// The amortisation the figure includes: 1 refresh per 64 frames.
+	b.ReportMetric(64*float64(refreshes)/float64(b.N), "refreshes/64frames")
 	benchSink += sc.T2
 }
 
@@ -259,6 +266,7 @@ func BenchmarkFrameOverDecode(b *testing.B) {
 	}
 	var tDec, tModel, bDec, bModel time.Duration
 	var ratios []float64
+	refreshes := 0
 	sum := 0.0
 	b.ReportAllocs()
 	b.ResetTimer()
@@ -270,6 +278,9 @@ func BenchmarkFrameOverDecode(b *testing.B) {
 		t2 := time.Now()
 		if n != p {
 			b.Fatalf("decoded %d values", n)
+		}
+		if sc.NextRefresh == 1 { // this frame's learning triggered a refresh
+			refreshes++
 		}
 		sum += s
 		bDec += t1.Sub(t0)
@@ -291,6 +302,7 @@ func BenchmarkFrameOverDecode(b *testing.B) {
 		b.ReportMetric(ratios[len(ratios)/2], "model/decode(median)")
 	}
 	b.ReportMetric(float64(tModel)/float64(tDec), "model/decode")
+	b.ReportMetric(64*float64(refreshes)/float64(b.N), "refreshes/64frames")
 	b.ReportMetric(float64(tDec.Nanoseconds())/float64(b.N), "decode-ns/frame")
 	b.ReportMetric(float64(tModel.Nanoseconds())/float64(b.N), "model-ns/frame")
 	benchSink += sum + sc.T2
