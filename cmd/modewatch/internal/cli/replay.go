@@ -152,23 +152,6 @@ func runReplay(ctx context.Context, env IO, args []string) error {
 	return err
 }
 
-// checkEmpirical refuses empirical limits where they cannot hold: they are
-// quantiles over a reference log scored by a fixed model, and the tracker
-// drops them at its next refresh.
-func checkEmpirical(cfg *configs.Config, haveModel bool) error {
-	models := []configs.Model{cfg.Model}
-	for i := range cfg.Units {
-		models = append(models, cfg.UnitModel(i))
-	}
-	for _, m := range models {
-		if m.Limits.Method != configs.LimitsEmpirical {
-			continue
-		}
-		return usagef("--limits empirical:FILE is not available in this version of replay and run; use theory (the default)")
-	}
-	return nil
-}
-
 // recorder keeps what the alarm engine published.
 type recorder struct {
 	mu     sync.Mutex

@@ -6,6 +6,7 @@ import (
 	"log/slog"
 	"os"
 
+	"modewatch/cmd/modewatch/internal/pipeline"
 	"modewatch/cmd/modewatch/internal/service"
 	"modewatch/configs"
 )
@@ -50,11 +51,18 @@ func runRun(ctx context.Context, env IO, args []string) error {
 	if err != nil {
 		return err
 	}
-	if err := checkEmpirical(cfg, cfg.Model.File != ""); err != nil {
+	var baseline *pipeline.ModelFile
+	if cfg.Model.File != "" {
+		if baseline, err = pipeline.ReadModel(cfg.Model.File); err != nil {
+			return usagef("model.file: %v", err)
+		}
+	}
+	prepare, err := empiricalLimits(cfg, baseline) // with a fixed fitted model only
+	if err != nil {
 		return err
 	}
 	log := serviceLogger(env, cfg)
-	svc, err := service.Start(ctx, service.Options{Config: cfg, Log: log, Stdout: env.Out})
+	svc, err := service.Start(ctx, service.Options{Config: cfg, Log: log, Stdout: env.Out, Prepare: prepare})
 	if err != nil {
 		return err
 	}

@@ -40,6 +40,9 @@ type Options struct {
 	// OnScore, if set, is also called for every unit and frame (from the
 	// frame goroutine; it must be quick). The demo uses it for its summary.
 	OnScore func(u *pipeline.Unit, t time.Time)
+	// Prepare, if set, is called once the units are built and restored,
+	// before the first reading (run uses it to set empirical limits).
+	Prepare func(p *pipeline.Pipeline) error
 }
 
 // Info says where a started service can be reached.
@@ -183,6 +186,11 @@ func Start(ctx context.Context, opt Options) (_ *Service, err error) {
 		return nil, err
 	}
 	s.restore()
+	if opt.Prepare != nil {
+		if err := opt.Prepare(s.pl); err != nil {
+			return nil, err
+		}
+	}
 	prec, err := pipeline.Precision(cfg.Frames.Precision)
 	if err != nil {
 		return nil, err
@@ -355,7 +363,11 @@ func (s *Service) restore() {
 		s.log.Info("alarm state restored from checkpoint", "dir", dir)
 	}
 	if len(cks) == 0 && len(errs) == 0 {
-		s.log.Info("no checkpoints: every unit starts with a warm-up", "dir", dir)
+		if s.cfg.Model.File != "" {
+			s.log.Info("no checkpoints: units start from the fitted model", "model", s.cfg.Model.File, "dir", dir)
+		} else {
+			s.log.Info("no checkpoints: every unit starts with a warm-up", "dir", dir)
+		}
 	}
 }
 
