@@ -40,7 +40,7 @@
 // frame with a cached pattern costs O(|m|·p + p·r). Storage: PatternCache
 // slots preallocated in New for up to 16 missing channels each (H 16·p,
 // K 16² values); the p × p factor buffer is allocated at the first
-// incomplete frame in the tracker's life (p² + 64p values). After that
+// incomplete frame in the tracker's life (p² + 16p values). After that
 // nothing allocates, also for a new pattern, unless a pattern has more than
 // 16 missing channels, which grows its slot once. A missing channel's
 // mean, variance and covariances are not updated by the frame; the frame
