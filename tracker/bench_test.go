@@ -255,7 +255,14 @@ func decodeFrame(buf []byte) (int, float64) {
 // as model/decode, and the median over refresh periods (64 frames) of the
 // per-period ratio. Interleaving exposes both to the same machine load; the
 // bar of issue 3 is model/decode ≤ 1.
-func BenchmarkFrameOverDecode(b *testing.B) {
+func BenchmarkFrameOverDecode(b *testing.B) { benchOverDecode(b, -1) }
+
+// BenchmarkFrameMissingOverDecode is BenchmarkFrameOverDecode with channel
+// 7, part of the model, missing in every timed frame (see
+// BenchmarkFrameMissing).
+func BenchmarkFrameMissingOverDecode(b *testing.B) { benchOverDecode(b, 7) }
+
+func benchOverDecode(b *testing.B, missing int) {
 	const p = 500
 	frames := benchFrames(p, 256)
 	buf := lineFrame(p)
@@ -268,6 +275,11 @@ func BenchmarkFrameOverDecode(b *testing.B) {
 	for k := 0; k < 512; k++ {
 		tr.Step(&sc, frames[k%256], nil)
 	}
+	var miss []bool
+	if missing >= 0 {
+		miss = make([]bool, p)
+		miss[missing] = true
+	}
 	var tDec, tModel, bDec, bModel time.Duration
 	var ratios []float64
 	refreshes := 0
@@ -278,7 +290,7 @@ func BenchmarkFrameOverDecode(b *testing.B) {
 		t0 := time.Now()
 		n, s := decodeFrame(buf)
 		t1 := time.Now()
-		tr.Step(&sc, frames[i%256], nil)
+		tr.Step(&sc, frames[i%256], miss)
 		t2 := time.Now()
 		if n != p {
 			b.Fatalf("decoded %d values", n)
