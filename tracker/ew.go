@@ -103,6 +103,7 @@ type EW struct {
 	ldb    int // row stride of rows: capB rounded up to a multiple of 4 (the kernel's step)
 
 	sa, s1 []float64 // Flush scratch per frame: √(α(1−α)), √(1−α)
+	ref    []float64 // Flush scratch per frame with steps differing by channel: the step sa, s1 hold
 	s, d   []float64 // scratch per channel
 }
 
@@ -124,7 +125,7 @@ func NewEW(p int, mu float64, batch int, cumulativeStart bool) *EW {
 		cov:  blas64.Symmetric{N: p, Stride: p, Data: make([]float64, p*p), Uplo: blas.Upper},
 		rows: make([]float64, ld*p), al: make([]float64, ld*p), alphas: make([]float64, batch),
 		capB: batch, ldb: ld,
-		sa: make([]float64, batch), s1: make([]float64, batch),
+		sa: make([]float64, batch), s1: make([]float64, batch), ref: make([]float64, batch),
 		s: make([]float64, p), d: make([]float64, p),
 	}
 	return e
@@ -229,8 +230,18 @@ func (e *EW) Flush() {
 	for k := 0; k < nb; k++ {
 		a := e.alphas[k]
 		if math.IsNaN(a) {
+			// Steps differ by channel; most are usually one value (the
+			// others 0 for missing channels): precompute for the first
+			// nonzero step, which gives the same numbers as per entry.
 			uniform = false
-			continue
+			a = 0
+			for i := 0; i < e.p; i++ {
+				if v := e.al[i*ld+k]; v != 0 {
+					a = v
+					break
+				}
+			}
+			e.ref[k] = a
 		}
 		e.sa[k] = math.Sqrt(a * (1 - a))
 		e.s1[k] = math.Sqrt(1 - a)
@@ -246,8 +257,13 @@ func (e *EW) Flush() {
 		for k := nb - 1; k >= 0; k-- {
 			sa, s1 := e.sa[k], e.s1[k]
 			if math.IsNaN(e.alphas[k]) {
-				a := al[k]
-				sa, s1 = math.Sqrt(a*(1-a)), math.Sqrt(1-a)
+				switch a := al[k]; a {
+				case e.ref[k]:
+				case 0: // missing
+					sa, s1 = 0, 1
+				default:
+					sa, s1 = math.Sqrt(a*(1-a)), math.Sqrt(1-a)
+				}
 			}
 			row[k] *= sa * ts
 			ts *= s1

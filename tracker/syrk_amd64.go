@@ -45,3 +45,52 @@ func rowKernel(a []float64, lda, k int, b []float64, ncol int, c []float64, ldc 
 	syrkRow4AVX2(&a[0], lda, k, &b[0], ncol&^1, &c[0], ldc, alpha, beta)
 	return true
 }
+
+// gerUpdAVX2 is the outer-product micro-kernel of cholUpper's trailing
+// update (syrk_amd64.s): c[x][y] ← c[x][y] − Σ_l p[l][x]·q[l][y] for x = 0…3
+// and ncol (a multiple of 8) columns y, k ≥ 1 panel rows at stride ldp.
+//
+//go:noescape
+func gerUpdAVX2(p *float64, q *float64, ldp, k int, c *float64, ldc, ncol int)
+
+// trailingUpdate subtracts U₁₂ᵀU₁₂ from the upper triangle of the trailing
+// block, where the panel U₁₂ is the k rows at a[k0·lda + k1 :] (rows at
+// stride lda) over the columns k1…n−1, and the trailing block is
+// a[k1·lda + k1 :]. Entries of the strict lower triangle of the 4 × 4
+// diagonal blocks are overwritten with unused values. It reports false
+// when the CPU lacks AVX2/FMA (the caller then uses the dot-product form).
+func trailingUpdate(a []float64, lda, n, k0, k1 int) bool {
+	if !hasAVX2FMA {
+		return false
+	}
+	k := k1 - k0
+	i := k1
+	for ; i+4 <= n; i += 4 {
+		ncol := n - i
+		n8 := ncol &^ 7
+		if n8 > 0 {
+			_ = a[(k1-1)*lda+i+n8-1]
+			_ = a[(i+3)*lda+i+n8-1]
+			gerUpdAVX2(&a[k0*lda+i], &a[k0*lda+i], lda, k, &a[i*lda+i], lda, n8)
+		}
+		for j := i + n8; j < n; j++ {
+			for r := 0; r < 4; r++ {
+				s := 0.0
+				for l := k0; l < k1; l++ {
+					s += a[l*lda+i+r] * a[l*lda+j]
+				}
+				a[(i+r)*lda+j] -= s
+			}
+		}
+	}
+	for ; i < n; i++ { // the last n mod 4 rows
+		for j := i; j < n; j++ {
+			s := 0.0
+			for l := k0; l < k1; l++ {
+				s += a[l*lda+i] * a[l*lda+j]
+			}
+			a[i*lda+j] -= s
+		}
+	}
+	return true
+}

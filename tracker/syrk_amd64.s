@@ -121,3 +121,96 @@ TEXT ·xgetbv0(SB), NOSPLIT, $0-4
 	XGETBV
 	MOVL AX, eax+0(FP)
 	RET
+
+// func gerUpdAVX2(p *float64, q *float64, ldp, k int, c *float64, ldc, ncol int)
+//
+// Outer-product form of the trailing update of the blocked Cholesky, for
+// the four rows x = 0…3 at p and the ncol (a multiple of 8) columns y at q
+// of a k-row panel (rows at stride ldp):
+//	c[x][y] ← c[x][y] − Σ_l p[l][x]·q[l][y]
+// Per panel row: four broadcasts, two 4-wide loads, eight fused
+// multiply-adds into eight accumulators (4 rows × 8 columns); no horizontal
+// sums. k ≥ 1. Strides are in elements.
+TEXT ·gerUpdAVX2(SB), NOSPLIT, $0-56
+	MOVQ p+0(FP), SI
+	MOVQ q+8(FP), DI
+	MOVQ ldp+16(FP), R8
+	SHLQ $3, R8
+	MOVQ k+24(FP), CX
+	MOVQ c+32(FP), DX
+	MOVQ ldc+40(FP), R10
+	SHLQ $3, R10
+	MOVQ ncol+48(FP), R9
+
+gblock:
+	CMPQ R9, $8
+	JLT  gdone
+	VXORPD Y0, Y0, Y0
+	VXORPD Y1, Y1, Y1
+	VXORPD Y2, Y2, Y2
+	VXORPD Y3, Y3, Y3
+	VXORPD Y4, Y4, Y4
+	VXORPD Y5, Y5, Y5
+	VXORPD Y6, Y6, Y6
+	VXORPD Y7, Y7, Y7
+	MOVQ   SI, R11
+	MOVQ   DI, R12
+	MOVQ   CX, BX
+
+gloop:
+	VMOVUPD      (R12), Y8
+	VMOVUPD      32(R12), Y9
+	VBROADCASTSD (R11), Y10
+	VFMADD231PD  Y8, Y10, Y0
+	VFMADD231PD  Y9, Y10, Y1
+	VBROADCASTSD 8(R11), Y11
+	VFMADD231PD  Y8, Y11, Y2
+	VFMADD231PD  Y9, Y11, Y3
+	VBROADCASTSD 16(R11), Y12
+	VFMADD231PD  Y8, Y12, Y4
+	VFMADD231PD  Y9, Y12, Y5
+	VBROADCASTSD 24(R11), Y13
+	VFMADD231PD  Y8, Y13, Y6
+	VFMADD231PD  Y9, Y13, Y7
+	ADDQ         R8, R11
+	ADDQ         R8, R12
+	DECQ         BX
+	JNZ          gloop
+
+	VMOVUPD (DX), Y8
+	VSUBPD  Y0, Y8, Y8
+	VMOVUPD Y8, (DX)
+	VMOVUPD 32(DX), Y9
+	VSUBPD  Y1, Y9, Y9
+	VMOVUPD Y9, 32(DX)
+
+	VMOVUPD (DX)(R10*1), Y8
+	VSUBPD  Y2, Y8, Y8
+	VMOVUPD Y8, (DX)(R10*1)
+	VMOVUPD 32(DX)(R10*1), Y9
+	VSUBPD  Y3, Y9, Y9
+	VMOVUPD Y9, 32(DX)(R10*1)
+
+	VMOVUPD (DX)(R10*2), Y8
+	VSUBPD  Y4, Y8, Y8
+	VMOVUPD Y8, (DX)(R10*2)
+	VMOVUPD 32(DX)(R10*2), Y9
+	VSUBPD  Y5, Y9, Y9
+	VMOVUPD Y9, 32(DX)(R10*2)
+
+	LEAQ    (DX)(R10*2), R13
+	VMOVUPD (R13)(R10*1), Y8
+	VSUBPD  Y6, Y8, Y8
+	VMOVUPD Y8, (R13)(R10*1)
+	VMOVUPD 32(R13)(R10*1), Y9
+	VSUBPD  Y7, Y9, Y9
+	VMOVUPD Y9, 32(R13)(R10*1)
+
+	ADDQ $64, DI
+	ADDQ $64, DX
+	SUBQ $8, R9
+	JMP  gblock
+
+gdone:
+	VZEROUPPER
+	RET

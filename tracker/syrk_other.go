@@ -7,3 +7,5 @@ const hasAVX2FMA = false
 func rowKernel(a []float64, lda, k int, b []float64, ncol int, c []float64, ldc int, alpha, beta float64) bool {
 	return false
 }
+
+func trailingUpdate(a []float64, lda, n, k0, k1 int) bool { return false }
