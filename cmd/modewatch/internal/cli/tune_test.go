@@ -207,3 +207,35 @@ func TestTuneChecksFirst(t *testing.T) {
 		t.Errorf("stdin: exit %d, %q", code, errs)
 	}
 }
+
+// TestDemoTune runs tune with the demo grid documented in the README
+// (tune/testdata/demo-grid.yaml) on the whole demo scenario (invented
+// data, 3 days, 7 labelled episodes) and checks the claim made there: the
+// best setting detects every episode with at most one false alert per
+// simulated day, and best.yaml replays to the same metrics.
+func TestDemoTune(t *testing.T) {
+	log, truth := demoWithTruth(t, 72)
+	out := filepath.Join(t.TempDir(), "tune")
+	grid := filepath.Join("..", "tune", "testdata", "demo-grid.yaml")
+	code, stdout, errs := runCLI(t, "", "tune", "--input", log, "--truth", truth, "--grid", grid, "--out", out)
+	if code != ExitOK {
+		t.Fatalf("exit %d: %s", code, errs)
+	}
+	t.Log("\n" + stdout)
+	rows := readCSV(t, filepath.Join(out, "tune.csv"))
+	best := rows[0]
+	if len(rows) != 16 || best["detected"] != best["episodes"] || best["episodes"] != "7" {
+		t.Fatalf("%d rows; best %v", len(rows), best)
+	}
+	perDay, _ := strconv.ParseFloat(best["false_alerts_per_day"], 64)
+	if perDay > 1 {
+		t.Errorf("best setting has %v false alerts per day", perDay)
+	}
+	code, js, errs := runCLI(t, "", "replay", "--config", filepath.Join(out, "best.yaml"), "--truth", truth, "--json", "--quiet", log)
+	if code != ExitOK {
+		t.Fatalf("replay best.yaml: %s", errs)
+	}
+	if m := decodeSummary(t, js).Metrics; m.Detected != 7 || strconv.Itoa(m.FalseAlerts) != best["false_alerts"] {
+		t.Errorf("best.yaml replays to %d detected, %d false alerts", m.Detected, m.FalseAlerts)
+	}
+}
