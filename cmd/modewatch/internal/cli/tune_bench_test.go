@@ -1,0 +1,86 @@
+package cli
+
+import (
+	"context"
+	"os"
+	"path/filepath"
+	"strconv"
+	"testing"
+	"time"
+
+	"modewatch/cmd/modewatch/internal/pipeline"
+	"modewatch/cmd/modewatch/internal/report"
+	"modewatch/configs"
+	"modewatch/sim"
+)
+
+// benchDemoLog writes the first hours of the demo scenario (invented
+// data) and returns its path.
+func benchDemoLog(b *testing.B, hours int) string {
+	s, err := sim.Demo()
+	if err != nil {
+		b.Fatal(err)
+	}
+	s = s.Clone()
+	s.Duration = time.Duration(hours) * time.Hour
+	files, err := s.WriteFiles(b.TempDir(), false)
+	if err != nil {
+		b.Fatal(err)
+	}
+	return files.Readings
+}
+
+// benchReplay replays log once per iteration, with the report collector
+// on the OnScore hook or without it (the baseline).
+func benchReplay(b *testing.B, log string, collect bool) {
+	cfg := &configs.Config{}
+	cfg.ApplyDefaults()
+	b.ReportAllocs()
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		opt := pipeline.ReplayOptions{Config: cfg, Inputs: []string{log}}
+		if collect {
+			opt.OnScore = report.NewCollector().Observe
+		}
+		if _, err := pipeline.Replay(context.Background(), opt); err != nil {
+			b.Fatal(err)
+		}
+	}
+}
+
+// BenchmarkReplayReport measures what collecting the report's series adds
+// to a replay of 12 h of the demo scenario: compare "collect" with
+// "baseline" in the same run.
+func BenchmarkReplayReport(b *testing.B) {
+	log := benchDemoLog(b, 12)
+	b.Run("baseline", func(b *testing.B) { benchReplay(b, log, false) })
+	b.Run("collect", func(b *testing.B) { benchReplay(b, log, true) })
+}
+
+// BenchmarkTuneJobs runs tune on a grid of 4 settings over 12 h of the
+// demo with 1 and with 2 workers; the ratio of the two shows the parallel
+// speed-up (bounded by the cores actually free).
+func BenchmarkTuneJobs(b *testing.B) {
+	log := benchDemoLog(b, 12)
+	dir := b.TempDir()
+	truth := filepath.Join(dir, "truth.json")
+	os.WriteFile(truth, []byte(`{"episodes":[]}`), 0o644)
+	grid := filepath.Join(dir, "grid.yaml")
+	os.WriteFile(grid, []byte("alpha: [0.01, 0.001]\non_delay: [\"3/5\", \"6/10\"]\n"), 0o644)
+	for _, jobs := range []int{1, 2} {
+		b.Run("jobs="+strconv.Itoa(jobs), func(b *testing.B) {
+			b.ReportAllocs()
+			for i := 0; i < b.N; i++ {
+				code := Main(context.Background(), []string{"tune", "--quiet", "--input", log, "--truth", truth, "--grid", grid,
+					"--out", filepath.Join(dir, "out"), "--jobs", strconv.Itoa(jobs)}, IO{Out: discard{}, Err: discard{}})
+				if code != ExitOK {
+					b.Fatalf("exit %d", code)
+				}
+			}
+		})
+	}
+}
+
+type discard struct{}
+
+func (discard) Write(p []byte) (int, error) { return len(p), nil }
