@@ -52,6 +52,16 @@ channels, loadings, variance_share}, alerts (count), frames_per_second and,
 with --truth, metrics {episodes, detected, detection_rate, median_delay_s,
 false_alerts, false_alerts_per_day, isolated_top3}.
 
+--report DIR writes DIR/index.html and DIR/charts/*.svg, a report that
+opens from disk without network access: the summary, per unit T², SPE and
+φ against their limits with alerts and labelled episodes shaded, the
+loadings of every mode, a heat map of the top contributing channels, and
+the alerts with the episodes they matched.
+
+--limits empirical:FILE sets each limit at the (1 − α) quantile of its
+statistic over FILE (a log of normal operation) scored by the fitted
+model; it needs --model and --adapt=false.
+
 modewatch is advisory: alerts are prompts to look, not instructions.`
 
 // runOutputs are the optional outputs shared by replay and fit.
