@@ -2,6 +2,7 @@ package cli
 
 import (
 	"context"
+	"log/slog"
 	"os"
 	"path/filepath"
 	"strconv"
@@ -12,6 +13,7 @@ import (
 	"modewatch/cmd/modewatch/internal/report"
 	"modewatch/configs"
 	"modewatch/sim"
+	"modewatch/stream"
 )
 
 // benchDemoLog writes the first hours of the demo scenario (invented
@@ -48,11 +50,38 @@ func benchReplay(b *testing.B, log string, collect bool) {
 	}
 }
 
+// benchDecode reads log through decode → map → align with a handler that
+// does nothing: the part of a replay that tune repeats in every worker
+// instead of keeping the frames in memory.
+func benchDecode(b *testing.B, log string) {
+	b.ReportAllocs()
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		chans, err := stream.NewChannels(nil, 0)
+		if err != nil {
+			b.Fatal(err)
+		}
+		in, err := stream.NewIntake(chans, stream.Options{Align: stream.AlignConfig{Period: 20 * time.Second}, Log: slog.New(slog.DiscardHandler)},
+			func(*stream.Frame) error { return nil })
+		if err != nil {
+			b.Fatal(err)
+		}
+		if err := in.ReadFiles(context.Background(), log); err != nil {
+			b.Fatal(err)
+		}
+		if err := in.Flush(); err != nil {
+			b.Fatal(err)
+		}
+	}
+}
+
 // BenchmarkReplayReport measures what collecting the report's series adds
-// to a replay of 12 h of the demo scenario: compare "collect" with
-// "baseline" in the same run.
+// to a replay of 12 h of the demo scenario ("collect" against "baseline"
+// in the same run), and how much of a replay is reading and framing the
+// log ("decode-only"), which tune repeats per setting.
 func BenchmarkReplayReport(b *testing.B) {
 	log := benchDemoLog(b, 12)
+	b.Run("decode-only", func(b *testing.B) { benchDecode(b, log) })
 	b.Run("baseline", func(b *testing.B) { benchReplay(b, log, false) })
 	b.Run("collect", func(b *testing.B) { benchReplay(b, log, true) })
 }
