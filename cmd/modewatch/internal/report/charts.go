@@ -53,7 +53,7 @@ type spans struct {
 func (s *spans) Plot(c draw.Canvas, plt *plot.Plot) {
 	trX, _ := plt.Transforms(&c)
 	sty := draw.TextStyle{Color: s.text, Font: font.From(plot.DefaultFont, vg.Points(7)), Handler: plt.Title.TextStyle.Handler}
-	for _, it := range s.items {
+	for k, it := range s.items {
 		x0, x1 := trX(it.from), trX(it.to)
 		if x1 < c.Min.X || x0 > c.Max.X {
 			continue
@@ -64,7 +64,10 @@ func (s *spans) Plot(c draw.Canvas, plt *plot.Plot) {
 		}
 		c.FillPolygon(s.fill, []vg.Point{{X: x0, Y: c.Min.Y}, {X: x1, Y: c.Min.Y}, {X: x1, Y: c.Max.Y}, {X: x0, Y: c.Max.Y}})
 		if it.label != "" && s.text != nil {
-			c.FillText(sty, vg.Point{X: x0 + vg.Points(1.5), Y: c.Max.Y - vg.Points(8)}, it.label)
+			// Alternate two label rows so that neighbouring or overlapping
+			// episodes stay readable.
+			y := c.Max.Y - vg.Points(8) - vg.Length(k%2)*vg.Points(9)
+			c.FillText(sty, vg.Point{X: x0 + vg.Points(1.5), Y: y}, it.label)
 		}
 	}
 }
