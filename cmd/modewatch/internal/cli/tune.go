@@ -10,6 +10,7 @@ import (
 	"path/filepath"
 	"runtime"
 	"strings"
+	"sync"
 	"time"
 
 	"modewatch/cmd/modewatch/internal/evaluate"
@@ -166,9 +167,13 @@ func runTune(ctx context.Context, env IO, args []string) error {
 
 	prog := newCountProgress(env, quiet, "tune", len(settings))
 	start := time.Now()
+	slow := newSlowWatch(env, quiet, slowAfter)
+	defer slow.stop()
 	eval := func(ctx context.Context, s tune.Setting) tune.Result {
 		cfg := s.Apply(base)
+		done := slow.begin(s.String())
 		m, frames, alerts, lines, err := replayMetrics(ctx, cfg, inputs, baseline, tr, grace)
+		done()
 		prog.add("tune", lines)
 		r := tune.Result{Metrics: m, Frames: frames, Alerts: alerts}
 		if err != nil {
@@ -277,4 +282,65 @@ func snippetNote(best *tune.Result, n int, inputs []string, truth, config string
 		"modewatch is advisory: safety decisions follow site procedures, local codes and licensed practice.",
 	)
 	return note
+}
+
+// slowAfter is how long one setting may replay before tune names it on
+// standard error: a setting that takes far longer than the others points
+// at a model that struggles (or a defect) and the user should know which.
+const slowAfter = 2 * time.Minute
+
+// slowWatch names settings whose replay runs longer than after, once each.
+type slowWatch struct {
+	mu      sync.Mutex
+	running map[string]time.Time
+	told    map[string]bool
+	quit    chan struct{}
+	wg      sync.WaitGroup
+}
+
+func newSlowWatch(env IO, quiet bool, after time.Duration) *slowWatch {
+	w := &slowWatch{running: map[string]time.Time{}, told: map[string]bool{}, quit: make(chan struct{})}
+	if quiet {
+		return w
+	}
+	w.wg.Add(1)
+	go func() {
+		defer w.wg.Done()
+		t := time.NewTicker(after / 4)
+		defer t.Stop()
+		for {
+			select {
+			case <-w.quit:
+				return
+			case now := <-t.C:
+				w.mu.Lock()
+				for name, since := range w.running {
+					if d := now.Sub(since); d >= after && !w.told[name] {
+						w.told[name] = true
+						fmt.Fprintf(env.Err, "tune: still replaying %s after %s\n", name, d.Round(time.Second))
+					}
+				}
+				w.mu.Unlock()
+			}
+		}
+	}()
+	return w
+}
+
+// begin notes that the setting called name starts; the returned func
+// notes its end.
+func (w *slowWatch) begin(name string) func() {
+	w.mu.Lock()
+	w.running[name] = time.Now()
+	w.mu.Unlock()
+	return func() {
+		w.mu.Lock()
+		delete(w.running, name)
+		w.mu.Unlock()
+	}
+}
+
+func (w *slowWatch) stop() {
+	close(w.quit)
+	w.wg.Wait()
 }

@@ -9,6 +9,7 @@ import (
 	"path/filepath"
 	"strconv"
 	"strings"
+	"sync"
 	"testing"
 	"time"
 
@@ -237,5 +238,41 @@ func TestDemoTune(t *testing.T) {
 	}
 	if m := decodeSummary(t, js).Metrics; m.Detected != 7 || strconv.Itoa(m.FalseAlerts) != best["false_alerts"] {
 		t.Errorf("best.yaml replays to %d detected, %d false alerts", m.Detected, m.FalseAlerts)
+	}
+}
+
+// syncBuffer is a bytes.Buffer safe for concurrent writers.
+type syncBuffer struct {
+	mu sync.Mutex
+	b  bytes.Buffer
+}
+
+func (s *syncBuffer) Write(p []byte) (int, error) {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	return s.b.Write(p)
+}
+func (s *syncBuffer) String() string { s.mu.Lock(); defer s.mu.Unlock(); return s.b.String() }
+
+// TestSlowWatch: a setting running past the threshold is named once on
+// standard error; one that ends in time is not.
+func TestSlowWatch(t *testing.T) {
+	var errb syncBuffer
+	w := newSlowWatch(IO{Err: &errb}, false, 20*time.Millisecond)
+	quick := w.begin("alpha=0.01")
+	quick()
+	done := w.begin("sparsity=l0:3")
+	deadline := time.Now().Add(5 * time.Second)
+	for !strings.Contains(errb.String(), "still replaying sparsity=l0:3") {
+		if time.Now().After(deadline) {
+			t.Fatalf("no report of the slow setting: %q", errb.String())
+		}
+		time.Sleep(5 * time.Millisecond)
+	}
+	time.Sleep(60 * time.Millisecond) // three more ticks: no repeat
+	done()
+	w.stop()
+	if s := errb.String(); strings.Count(s, "still replaying") != 1 || strings.Contains(s, "alpha") {
+		t.Errorf("stderr %q", s)
 	}
 }
