@@ -341,11 +341,18 @@ func (e *Engine) unit(name string) *unit {
 	if u != nil {
 		return u
 	}
+	u = e.newUnitState(name)
+	e.units[name] = u
+	return u
+}
+
+// newUnitState returns the initial state of unit name, not registered.
+func (e *Engine) newUnitState(name string) *unit {
 	r, ok := e.cfg.Units[name]
 	if !ok {
 		r = e.cfg.Rules
 	}
-	u = &unit{name: name, rules: r, quality: make(map[qkey]*qalarm)}
+	u := &unit{name: name, rules: r, quality: make(map[qkey]*qalarm)}
 	ar := r.alarmRule()
 	for i := range u.stats {
 		u.stats[i] = NewAlarm(ar)
@@ -353,7 +360,6 @@ func (e *Engine) unit(name string) *unit {
 	u.modelG = group{key: GroupModel, acts: newRing(u.rules.ChatterCount)}
 	u.openings = newRing(max(u.rules.FloodCount+1, e.cfg.FloodEnd))
 	u.c.Unit = name
-	e.units[name] = u
 	return u
 }
 

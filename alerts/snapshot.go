@@ -95,6 +95,7 @@ type snapUnit struct {
 
 type snapshot struct {
 	Version   int            `json:"version"`
+	Unit      string         `json:"unit,omitempty"` // set by SnapshotUnit: the one unit it holds
 	Units     []snapUnit     `json:"units"`
 	Incidents []snapIncident `json:"incidents"`
 }
@@ -106,15 +107,56 @@ type snapshot struct {
 // for late acknowledgement are not included.
 func (e *Engine) Snapshot(w io.Writer) error {
 	e.mu.Lock()
-	s := snapshot{Version: snapshotVersion}
-	incs := map[*incident]bool{}
 	names := make([]string, 0, len(e.units))
 	for n := range e.units {
 		names = append(names, n)
 	}
 	slices.Sort(names)
-	for _, n := range names {
-		u := e.units[n]
+	us := make([]*unit, len(names))
+	for i, n := range names {
+		us[i] = e.units[n]
+	}
+	data, err := json.Marshal(e.snapshotOf(us, ""))
+	e.mu.Unlock()
+	return writeSnapshot(w, data, err)
+}
+
+// SnapshotUnit writes the state of one unit (as Snapshot does for all):
+// its alarms, open incidents and floods, shelves, maintenance, chattering
+// and counters. Units share nothing in the engine, so this is everything
+// another engine needs to carry the unit on (RestoreUnit), e.g. on another
+// service instance. A unit the engine has not seen is written with no
+// state, and RestoreUnit of that snapshot resets the unit.
+func (e *Engine) SnapshotUnit(name string, w io.Writer) error {
+	if name == "" {
+		return fmt.Errorf("%w: empty unit", ErrInput)
+	}
+	e.mu.Lock()
+	var us []*unit
+	if u := e.units[name]; u != nil {
+		us = append(us, u)
+	}
+	data, err := json.Marshal(e.snapshotOf(us, name))
+	e.mu.Unlock()
+	return writeSnapshot(w, data, err)
+}
+
+func writeSnapshot(w io.Writer, data []byte, err error) error {
+	if err != nil {
+		return fmt.Errorf("alerts: snapshot: %w", err)
+	}
+	if _, err := w.Write(data); err != nil {
+		return fmt.Errorf("alerts: snapshot: %w", err)
+	}
+	return nil
+}
+
+// snapshotOf captures units us (and the incidents they reference). Called
+// under e.mu.
+func (e *Engine) snapshotOf(us []*unit, only string) *snapshot {
+	s := &snapshot{Version: snapshotVersion, Unit: only, Units: []snapUnit{}, Incidents: []snapIncident{}}
+	incs := map[*incident]bool{}
+	for _, u := range us {
 		su := snapUnit{
 			Name: u.name, Last: u.last, Seen: u.seen, Maint: u.maint, Frozen: u.frozen, Model: u.model,
 			ModelG: snapGroupOf(&u.modelG, incs), RateLast: u.rate.last, Counters: u.c,
@@ -179,15 +221,7 @@ func (e *Engine) Snapshot(w io.Writer) error {
 		s.Incidents = append(s.Incidents, si)
 	}
 	slices.SortFunc(s.Incidents, func(a, b snapIncident) int { return cmpString(a.ID, b.ID) })
-	data, err := json.Marshal(&s)
-	e.mu.Unlock()
-	if err != nil {
-		return fmt.Errorf("alerts: snapshot: %w", err)
-	}
-	if _, err := w.Write(data); err != nil {
-		return fmt.Errorf("alerts: snapshot: %w", err)
-	}
-	return nil
+	return s
 }
 
 func cmpString(a, b string) int {
@@ -217,27 +251,111 @@ func snapGroupOf(g *group, incs map[*incident]bool) snapGroup {
 	return s
 }
 
-// Restore replaces the engine's state by a snapshot written by Snapshot.
-// The engine's own configuration applies from now on. Units whose learning
-// was frozen are frozen again through the Learning callback. An error
-// leaves the engine unchanged.
+// Restore replaces the engine's state by a snapshot written by Snapshot
+// (or SnapshotUnit). The engine's own configuration applies from now on.
+// Units whose learning was frozen are frozen again through the Learning
+// callback. An error leaves the engine unchanged.
 func (e *Engine) Restore(r io.Reader) error {
-	var s snapshot
-	dec := json.NewDecoder(r)
-	if err := dec.Decode(&s); err != nil {
-		return fmt.Errorf("alerts: restore: %w", err)
-	}
-	if s.Version != snapshotVersion {
-		return fmt.Errorf("alerts: restore: snapshot version %d, want %d", s.Version, snapshotVersion)
+	s, err := readSnapshot(r)
+	if err != nil {
+		return err
 	}
 	e.mu.Lock()
 	defer e.mu.Unlock()
-	old := e.units
-	e.units = make(map[string]*unit)
+	units, incs, err := e.build(s)
+	if err != nil {
+		return err
+	}
+	e.units = units
+	e.byID = make(map[string]*incident, len(incs))
+	e.closed, e.nextC = e.closed[:0], 0
+	for id, inc := range incs {
+		if !inc.ended {
+			e.byID[id] = inc
+		}
+	}
+	for _, u := range e.units {
+		if u.frozen && e.learn != nil {
+			e.learn.Freeze(u.name)
+		}
+	}
+	return nil
+}
+
+// RestoreUnit replaces the state of unit name, and only that unit, by its
+// part of a snapshot written by SnapshotUnit(name, ...) or by Snapshot.
+// Every other unit, its incidents and their ids are left as they are, so a
+// unit's checkpoint can be moved into an engine that runs other units. A
+// snapshot without state for the unit resets it. The unit's learning is
+// frozen or thawed through the Learning callback to match the restored
+// state. An error (damaged snapshot, or one written by SnapshotUnit for
+// another unit) leaves the engine unchanged.
+func (e *Engine) RestoreUnit(name string, r io.Reader) error {
+	if name == "" {
+		return fmt.Errorf("%w: empty unit", ErrInput)
+	}
+	s, err := readSnapshot(r)
+	if err != nil {
+		return err
+	}
+	if s.Unit != "" && s.Unit != name {
+		return fmt.Errorf("alerts: restore: the snapshot holds unit %q, not %q", s.Unit, name)
+	}
+	e.mu.Lock()
+	defer e.mu.Unlock()
+	units, incs, err := e.build(s)
+	if err != nil {
+		return err
+	}
+	u := units[name]
+	old := e.units[name]
+	if old != nil {
+		for id, inc := range e.byID {
+			if inc.u == old {
+				delete(e.byID, id)
+			}
+		}
+	}
+	if u == nil {
+		delete(e.units, name)
+	} else {
+		e.units[name] = u
+		for id, inc := range incs {
+			if inc.u == u && !inc.ended {
+				e.byID[id] = inc
+			}
+		}
+	}
+	if e.learn != nil {
+		switch {
+		case u != nil && u.frozen:
+			e.learn.Freeze(name)
+		case old != nil && old.frozen:
+			e.learn.Thaw(name)
+		}
+	}
+	return nil
+}
+
+func readSnapshot(r io.Reader) (*snapshot, error) {
+	var s snapshot
+	dec := json.NewDecoder(r)
+	if err := dec.Decode(&s); err != nil {
+		return nil, fmt.Errorf("alerts: restore: %w", err)
+	}
+	if s.Version != snapshotVersion {
+		return nil, fmt.Errorf("alerts: restore: snapshot version %d, want %d", s.Version, snapshotVersion)
+	}
+	return &s, nil
+}
+
+// build makes the units and incidents of s without touching the engine's
+// state (only its configuration). Called under e.mu.
+func (e *Engine) build(s *snapshot) (map[string]*unit, map[string]*incident, error) {
+	units := make(map[string]*unit, len(s.Units))
 	incs := make(map[string]*incident, len(s.Incidents))
-	fail := func(format string, args ...any) error {
-		e.units = old
-		return fmt.Errorf("alerts: restore: "+format, args...)
+	fail := func(format string, args ...any) (map[string]*unit, map[string]*incident, error) {
+		return nil, nil, fmt.Errorf("alerts: restore: "+format, args...)
 	}
 	for i := range s.Incidents {
 		si := &s.Incidents[i]
@@ -275,10 +393,11 @@ func (e *Engine) Restore(r io.Reader) error {
 		}
 	}
 	for _, su := range s.Units {
-		if su.Name == "" || e.units[su.Name] != nil {
+		if su.Name == "" || units[su.Name] != nil {
 			return fail("empty or repeated unit %q", su.Name)
 		}
-		u := e.unit(su.Name)
+		u := e.newUnitState(su.Name)
+		units[su.Name] = u
 		u.last, u.seen, u.maint, u.frozen, u.model, u.c = su.Last, su.Seen, su.Maint, su.Frozen, su.Model, su.Counters
 		for k := range u.stats {
 			restoreAlarm(&u.stats[k], su.Stats[k])
@@ -325,7 +444,7 @@ func (e *Engine) Restore(r io.Reader) error {
 		if inc.u == nil {
 			// floods and closed members listed in openings: their unit
 			// is the one that references them
-			for _, u := range e.units {
+			for _, u := range units {
 				if u.flood == inc {
 					inc.u = u
 				}
@@ -333,6 +452,16 @@ func (e *Engine) Restore(r io.Reader) error {
 					if _, oi := u.openings.at(k); oi == inc {
 						inc.u = u
 					}
+				}
+			}
+		}
+	}
+	for _, inc := range incs {
+		if inc.u == nil && inc.kind == KindFlood {
+			// an ended flood still named by one of its members
+			for _, m := range incs {
+				if m.flood == inc && m.u != nil {
+					inc.u = m.u
 				}
 			}
 		}
@@ -351,19 +480,7 @@ func (e *Engine) Restore(r io.Reader) error {
 			inc.g = &group{key: key}
 		}
 	}
-	e.byID = make(map[string]*incident, len(incs))
-	e.closed, e.nextC = e.closed[:0], 0
-	for id, inc := range incs {
-		if !inc.ended {
-			e.byID[id] = inc
-		}
-	}
-	for _, u := range e.units {
-		if u.frozen && e.learn != nil {
-			e.learn.Freeze(u.name)
-		}
-	}
-	return nil
+	return units, incs, nil
 }
 
 func restoreAlarm(a *Alarm, s snapAlarm) {

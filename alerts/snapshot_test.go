@@ -16,8 +16,16 @@ import (
 // every record published.
 func scenario(t *testing.T, e *Engine, out *[]string, from, to int) {
 	t.Helper()
+	scenarioUnit(t, e, "u", from, to)
+	_ = out
+}
+
+// scenarioUnit is scenario for unit name; its commands touch only that
+// unit's alerts.
+func scenarioUnit(t *testing.T, e *Engine, name string, from, to int) {
+	t.Helper()
 	for s := from; s < to; s++ {
-		o := Observation{Unit: "u", Time: sec(float64(s)), ModelState: ModelAdapting}
+		o := Observation{Unit: name, Time: sec(float64(s)), ModelState: ModelAdapting}
 		r := 0.5
 		switch {
 		case s == 10 || s == 30 || s == 45: // chattering
@@ -26,36 +34,38 @@ func scenario(t *testing.T, e *Engine, out *[]string, from, to int) {
 			r = 1.5 + float64(s%97)/40
 		}
 		o.Stats = []Stat{{StatT2, 10 * r, 10}, {StatSPE, 2, 5}, {StatPhi, r, 1}}
-		o.Contributors = []Contributor{{Channel: fmt.Sprintf("u.c%d.x", s%3), Share: 0.5, RBC: 2, Limit: 1, Modes: []int{s % 4}}}
+		o.Contributors = []Contributor{{Channel: fmt.Sprintf("%s.c%d.x", name, s%3), Share: 0.5, RBC: 2, Limit: 1, Modes: []int{s % 4}}}
 		if s >= 300 && s < 300+12*20 && (s-300)%20 == 0 {
-			o.Quality = []Quality{{Channel: fmt.Sprintf("u.q%d.x", (s-300)/20), Kind: QualityStuck}}
+			o.Quality = []Quality{{Channel: fmt.Sprintf("%s.q%d.x", name, (s-300)/20), Kind: QualityStuck}}
 		}
 		if s >= 100 && s < 500 {
-			o.Missing = []string{"u.tank.level"}
+			o.Missing = []string{name + ".tank.level"}
 		}
 		if err := e.Observe(&o); err != nil {
 			t.Fatal(err)
 		}
 		switch s {
 		case 250, 1010:
-			for _, id := range openIDs(e) {
+			for _, id := range openIDs(e, name) {
 				e.Handle(context.Background(), Command{Op: OpAck, AlertID: id, By: "jo"})
 			}
 		case 260:
-			for _, id := range openIDs(e) {
+			for _, id := range openIDs(e, name) {
 				if strings.Contains(id, "/model/") {
 					e.Handle(context.Background(), Command{Op: OpShelve, AlertID: id, By: "jo", Reason: "test", For: Duration(5 * time.Minute)})
 				}
 			}
 		}
 	}
-	_ = out
 }
 
-func openIDs(e *Engine) []string {
+// openIDs lists the open alerts of unit.
+func openIDs(e *Engine, unit string) []string {
 	var ids []string
 	for _, r := range e.Open(nil) {
-		ids = append(ids, r.ID)
+		if r.Unit == unit {
+			ids = append(ids, r.ID)
+		}
 	}
 	return ids
 }
@@ -125,5 +135,107 @@ func TestRestoreRejects(t *testing.T) {
 		if err := e.Restore(strings.NewReader(bad)); err == nil {
 			t.Errorf("%s: accepted", bad)
 		}
+	}
+}
+
+// TestSnapshotUnit: one unit's state, snapshotted alone at any frame and
+// restored into another engine that runs a different unit, goes on to
+// publish exactly the records of an uninterrupted run, while the other
+// unit's records are exactly those it publishes running alone.
+func TestSnapshotUnit(t *testing.T) {
+	const end = 1200
+	byUnit := func(recs []string, unit string) []string {
+		var out []string
+		for _, r := range recs {
+			if strings.Contains(r, `"unit":"`+unit+`"`) {
+				out = append(out, r)
+			}
+		}
+		return out
+	}
+	// Uninterrupted: units a and b in one engine; c alone in another.
+	var whole, solo []string
+	w := newRecorder(t, &whole)
+	for s := 0; s < end; s++ {
+		scenarioUnit(t, w, "a", s, s+1)
+		scenarioUnit(t, w, "b", s, s+1)
+	}
+	scenarioUnit(t, newRecorder(t, &solo), "c", 0, end)
+	wantA := byUnit(whole, "a")
+	if len(wantA) < 20 || len(solo) < 20 {
+		t.Fatalf("scenario published only %d and %d records", len(wantA), len(solo))
+	}
+	for _, cut := range []int{46, 255, 265, 545, 905} {
+		t.Run(fmt.Sprint(cut), func(t *testing.T) {
+			var first, second []string
+			e1 := newRecorder(t, &first)
+			for s := 0; s < cut; s++ {
+				scenarioUnit(t, e1, "a", s, s+1)
+				scenarioUnit(t, e1, "b", s, s+1)
+			}
+			var buf bytes.Buffer
+			if err := e1.SnapshotUnit("a", &buf); err != nil {
+				t.Fatal(err)
+			}
+			// Another instance, running unit c since frame 0.
+			e2 := newRecorder(t, &second)
+			learn := &learnLog{}
+			e2.learn = learn
+			scenarioUnit(t, e2, "c", 0, cut)
+			if err := e2.RestoreUnit("b", bytes.NewReader(buf.Bytes())); err == nil {
+				t.Error("the snapshot of unit a was restored as unit b")
+			}
+			learn.calls = nil
+			if err := e2.RestoreUnit("a", bytes.NewReader(buf.Bytes())); err != nil {
+				t.Fatal(err)
+			}
+			// Only unit a's learning is set, and only if it was frozen.
+			wantCalls := "[]"
+			if c := e1.Counters(nil); c[0].Frozen {
+				wantCalls = "[freeze a]"
+			}
+			if fmt.Sprint(learn.calls) != wantCalls {
+				t.Errorf("learning callbacks at the restore: %v, want %s", learn.calls, wantCalls)
+			}
+			for s := cut; s < end; s++ {
+				scenarioUnit(t, e2, "a", s, s+1)
+				scenarioUnit(t, e2, "c", s, s+1)
+			}
+			got := append(byUnit(first, "a"), byUnit(second, "a")...)
+			if fmt.Sprint(got) != fmt.Sprint(wantA) {
+				t.Errorf("unit a: %d records after the move, %d uninterrupted", len(got), len(wantA))
+				for i := range min(len(got), len(wantA)) {
+					if got[i] != wantA[i] {
+						t.Fatalf("record %d differs:\n got %s\nwant %s", i, got[i], wantA[i])
+					}
+				}
+			}
+			if gotC := byUnit(second, "c"); fmt.Sprint(gotC) != fmt.Sprint(solo) {
+				t.Errorf("unit c disturbed by the restore of a: %d records, %d alone", len(gotC), len(solo))
+			}
+			if n := len(byUnit(second, "b")); n != 0 {
+				t.Errorf("unit b, not moved, published %d records in the second engine", n)
+			}
+		})
+	}
+	// A snapshot of the whole engine also restores a single unit (the
+	// alarm file of earlier checkpoints), and a unit it lacks is reset.
+	var all bytes.Buffer
+	if err := w.Snapshot(&all); err != nil {
+		t.Fatal(err)
+	}
+	var none []string
+	e3 := newRecorder(t, &none)
+	if err := e3.RestoreUnit("b", bytes.NewReader(all.Bytes())); err != nil {
+		t.Fatal(err)
+	}
+	if c := e3.Counters(nil); len(c) != 1 || c[0].Unit != "b" || c[0].Frames != end {
+		t.Errorf("counters after restoring b from a whole snapshot: %+v", c)
+	}
+	if err := e3.RestoreUnit("b", strings.NewReader(`{"version":1,"unit":"b","units":[],"incidents":[]}`)); err != nil {
+		t.Fatal(err)
+	}
+	if c := e3.Counters(nil); len(c) != 0 {
+		t.Errorf("unit b not reset by an empty snapshot: %+v", c)
 	}
 }
