@@ -14,10 +14,10 @@ import (
 )
 
 // A unit checkpoint is a model file holding that one unit with its live
-// tracker state (not refreshed, not frozen), written atomically to
-// <generation dir>/<unit>.ckpt.json (see WriteCheckpoints). A unit's
-// checkpoint depends on no other unit, so it can be moved to another
-// service instance.
+// tracker state (not refreshed, not frozen) and its alarm state
+// (ModelUnit.Alerts), written atomically to <generation dir>/<unit>.ckpt.json
+// (see WriteCheckpoints). A unit's checkpoint depends on no other unit, so
+// it can be moved alone to another service instance.
 const checkpointSuffix = ".ckpt.json"
 
 // CheckpointPath returns the checkpoint file of unit in dir.
@@ -25,29 +25,31 @@ func CheckpointPath(dir, unit string) string {
 	return filepath.Join(dir, unit+checkpointSuffix)
 }
 
-// AlertsFile is the file of the alarm engine's state in a checkpoint
-// directory. The alarm engine spans the units, so its state is one file,
-// captured between the same two frames as the units' checkpoints.
+// AlertsFile is the file in which checkpoints before the per-unit alarm
+// state kept the alarm engine's state of all units. It is no longer
+// written; ReadCheckpoints still reads it for unit checkpoints without
+// their own alarm state.
 const AlertsFile = "alerts.snapshot.json"
 
-// Checkpoint returns the state of every unit that has a model and the
-// alarm engine's state, under the pipeline's lock so that everything is
-// captured between the same two frames.
-func (p *Pipeline) Checkpoint() ([]*ModelFile, []byte, error) {
+// Checkpoint returns the state of every unit that has a model, tracker
+// and alarm state together, under the pipeline's lock so that everything
+// is captured between the same two frames.
+func (p *Pipeline) Checkpoint() ([]*ModelFile, error) {
 	p.mu.Lock()
 	defer p.mu.Unlock()
 	var out []*ModelFile
 	var errs []error
-	var snap bytes.Buffer
-	if err := p.alerts.Snapshot(&snap); err != nil {
-		errs = append(errs, err)
-	}
 	for _, u := range p.Units() {
 		if u.tr == nil || u.failed != nil {
 			continue
 		}
 		state, err := saveState(u.tr)
 		if err != nil {
+			errs = append(errs, fmt.Errorf("unit %s: %w", u.Name, err))
+			continue
+		}
+		var snap bytes.Buffer
+		if err := p.alerts.SnapshotUnit(u.Name, &snap); err != nil {
 			errs = append(errs, fmt.Errorf("unit %s: %w", u.Name, err))
 			continue
 		}
@@ -59,25 +61,23 @@ func (p *Pipeline) Checkpoint() ([]*ModelFile, []byte, error) {
 			Format: ModelFormat, Version: ModelVersion, Created: time.Now().UTC(), Period: Duration(p.opt.Period),
 			Frames: u.frames, From: u.firstT, To: u.lastT,
 			Units: []ModelUnit{{Name: u.Name, Channels: append([]string(nil), u.names...), Settings: settings,
-				Modes: u.modesView(), State: state}},
+				Modes: u.modesView(), State: state, Alerts: snap.Bytes()}},
 		})
 	}
-	return out, snap.Bytes(), errors.Join(errs...)
+	return out, errors.Join(errs...)
 }
 
 // CurrentFile names, inside a checkpoint directory, the generation
 // directory that holds the latest complete checkpoint.
 const CurrentFile = "CURRENT"
 
-// WriteCheckpoints writes every unit's checkpoint and the alarm engine's
-// state as one generation: a new directory dir/gen-<n> with one file per
-// unit and the alarm file, each written atomically, and then the CURRENT
-// file naming it, also atomically. A crash at any point leaves CURRENT on
-// the previous complete generation, so units and alarms are never restored
-// from different moments. Older generations are removed afterwards. It
+// WriteCheckpoints writes every unit's checkpoint as one generation: a
+// new directory dir/gen-<n> with one file per unit, each written
+// atomically, and then the CURRENT file naming it, also atomically. A
+// crash at any point leaves CURRENT on the previous complete generation. Older generations are removed afterwards. It
 // returns how many units were written.
 func (p *Pipeline) WriteCheckpoints(dir string) (int, error) {
-	cks, snap, err := p.Checkpoint()
+	cks, err := p.Checkpoint()
 	if err != nil {
 		return 0, err
 	}
@@ -88,11 +88,6 @@ func (p *Pipeline) WriteCheckpoints(dir string) (int, error) {
 	gdir := filepath.Join(dir, gen)
 	if err := os.Mkdir(gdir, 0o755); err != nil {
 		return 0, fmt.Errorf("pipeline: %w", err)
-	}
-	if len(snap) > 0 {
-		if err := store.WriteFile(filepath.Join(gdir, AlertsFile), snap, 0o644); err != nil {
-			return 0, err
-		}
 	}
 	for _, ck := range cks {
 		if err := WriteModel(CheckpointPath(gdir, ck.Units[0].Name), ck); err != nil {
@@ -133,7 +128,8 @@ func currentDir(dir string) (string, error) {
 
 // ReadCheckpoints reads every unit checkpoint in dir. Files that cannot be
 // used are returned as errors (one per file) and left out; a missing dir
-// is no error.
+// is no error. A checkpoint written before units carried their own alarm
+// state gets it from the generation's AlertsFile, when there is one.
 func ReadCheckpoints(dir string) ([]*ModelFile, []error) {
 	if _, err := os.Stat(dir); errors.Is(err, os.ErrNotExist) {
 		return nil, nil
@@ -166,15 +162,32 @@ func ReadCheckpoints(dir string) ([]*ModelFile, []error) {
 		}
 		out = append(out, m)
 	}
+	var legacy []byte
+	for _, m := range out {
+		if len(m.Units[0].Alerts) > 0 {
+			continue
+		}
+		if legacy == nil {
+			b, err := os.ReadFile(filepath.Join(dir, AlertsFile))
+			if err != nil {
+				break // none: those units' alarms start from normal
+			}
+			legacy = b
+		}
+		m.Units[0].Alerts = legacy
+	}
 	sort.Slice(out, func(i, j int) bool { return out[i].Units[0].Name < out[j].Units[0].Name })
 	return out, errs
 }
 
-// Restore creates units from checkpoints before the first frame. A
-// checkpoint that does not fit (other period, other settings, damaged
-// state) is reported in the returned errors and its unit warms up afresh;
-// the rest are restored. Frames up to each unit's last checkpointed frame
-// are skipped, so none is scored twice.
+// Restore creates units from checkpoints, each with its tracker and its
+// alarm state, before the unit's first frame. It may be called while other
+// units run (a unit's checkpoint moved in from another instance): they are
+// not touched. A checkpoint that does not fit (other period, other
+// settings, damaged tracker or alarm state) is reported in the returned
+// errors and its unit warms up afresh (or starts from the fitted model) with
+// alarms from normal; the rest are restored. Frames up to each unit's last
+// checkpointed frame are skipped, so none is scored twice.
 func (p *Pipeline) Restore(cks []*ModelFile) (restored []string, errs []error) {
 	p.mu.Lock()
 	defer p.mu.Unlock()
@@ -194,18 +207,35 @@ func (p *Pipeline) Restore(cks []*ModelFile) (restored []string, errs []error) {
 				mu.Name, mu.Settings, want))
 			continue
 		}
-		if old := p.lookup(mu.Name); old != nil {
-			if !old.baseline || old.frames > 0 {
-				errs = append(errs, fmt.Errorf("unit %s: already running; checkpoint not restored", mu.Name))
-				continue
-			}
-			p.drop(old) // the checkpoint is newer than the fitted baseline
+		old := p.lookup(mu.Name)
+		if old != nil && (!old.baseline || old.frames > 0) {
+			errs = append(errs, fmt.Errorf("unit %s: already running; checkpoint not restored", mu.Name))
+			continue
 		}
-		u, err := p.unitFromModel(mu, time.Duration(ck.Period))
+		u, err := p.buildFromModel(mu, time.Duration(ck.Period))
 		if err != nil {
 			errs = append(errs, fmt.Errorf("unit %s: %w; the unit warms up again", mu.Name, err))
 			continue
 		}
+		if old != nil {
+			p.drop(old) // the checkpoint is newer than the fitted baseline
+		}
+		p.register(u)
+		// The alarm state after the unit is registered, so that a unit
+		// whose learning was frozen by an alert is frozen again.
+		if len(mu.Alerts) > 0 {
+			if err := p.alerts.RestoreUnit(mu.Name, bytes.NewReader(mu.Alerts)); err != nil {
+				p.drop(u)
+				if old != nil {
+					p.register(old)
+				}
+				errs = append(errs, fmt.Errorf("unit %s: alarm state: %w; incompatible checkpoint, the unit warms up again", mu.Name, err))
+				continue
+			}
+		} else {
+			p.log.Warn("checkpoint without alarm state; the unit's alarms start from normal", "unit", mu.Name)
+		}
+		p.resolve(u)
 		u.baseline = false
 		u.frames = ck.Frames
 		u.firstT, u.lastT = ck.From, ck.To
@@ -213,6 +243,28 @@ func (p *Pipeline) Restore(cks []*ModelFile) (restored []string, errs []error) {
 		restored = append(restored, mu.Name)
 	}
 	return restored, errs
+}
+
+// resolve gives a unit restored while the pipeline runs the channels of
+// its model that the registry already holds and no other unit owns.
+// Called under p.mu.
+func (p *Pipeline) resolve(u *Unit) {
+	for k, name := range u.names {
+		i, ok := p.ch.Index(name)
+		if !ok || i >= p.known || u.idx[k] >= 0 {
+			continue // not seen yet: assign resolves it by name
+		}
+		if o := p.owner[i]; o != nil && o != u && p.lookup(o.Name) == o {
+			p.log.Warn("channel of a restored unit belongs to another unit; it is scored as missing",
+				"unit", u.Name, "channel", name, "owner", o.Name)
+			continue
+		}
+		if !p.ch.Channel(i).Model {
+			continue
+		}
+		u.idx[k] = i
+		p.owner[i] = u
+	}
 }
 
 // drop removes a unit that has not seen a frame yet.
@@ -238,29 +290,4 @@ func (p *Pipeline) baselineUnit(name string) *ModelUnit {
 		}
 	}
 	return nil
-}
-
-// RestoreAlerts restores the alarm engine's state from dir (after the
-// units, so that frozen units are frozen again). A missing file is no
-// error; a damaged one is, and leaves the engine as it was.
-func (p *Pipeline) RestoreAlerts(dir string) (bool, error) {
-	if _, err := os.Stat(dir); errors.Is(err, os.ErrNotExist) {
-		return false, nil
-	}
-	dir, err := currentDir(dir)
-	if err != nil {
-		return false, err
-	}
-	f, err := os.Open(filepath.Join(dir, AlertsFile))
-	if err != nil {
-		if errors.Is(err, os.ErrNotExist) {
-			return false, nil
-		}
-		return false, fmt.Errorf("pipeline: %w", err)
-	}
-	defer f.Close()
-	if err := p.alerts.Restore(f); err != nil {
-		return false, fmt.Errorf("pipeline: %s: %w", AlertsFile, err)
-	}
-	return true, nil
 }

@@ -112,9 +112,6 @@ func TestCheckpointRestore(t *testing.T) {
 	if len(errs) > 0 || len(restored) != 4 {
 		t.Fatalf("restored %v: %v", restored, errs)
 	}
-	if ok, err := pc.RestoreAlerts(dir); !ok || err != nil {
-		t.Fatalf("alarm state: %v %v", ok, err)
-	}
 	// Redeliver 10 frames from before the checkpoint, then the rest.
 	runFrames(t, pc, frames[half-10:], nil)
 	// The alert records published after the checkpoint are the same.

@@ -86,6 +86,10 @@ type ModelUnit struct {
 	Modes    []ModeView    `json:"modes"`
 	Limits   LimitsView    `json:"limits"`
 	State    []byte        `json:"state"`
+	// Alerts is the unit's alarm state (alerts.Engine.SnapshotUnit) in a
+	// unit checkpoint, captured between the same two frames as State, so
+	// that the file alone carries the unit on; absent in fitted models.
+	Alerts json.RawMessage `json:"alerts,omitempty"`
 }
 
 // ModelSettings records the settings a unit was fitted with. The tracker
@@ -188,6 +192,16 @@ func (p *Pipeline) unitFromModel(mu *ModelUnit, period time.Duration) (*Unit, er
 	if p.lookup(mu.Name) != nil {
 		return nil, fmt.Errorf("%w: unit %q twice", ErrModelFile, mu.Name)
 	}
+	u, err := p.buildFromModel(mu, period)
+	if err != nil {
+		return nil, err
+	}
+	p.register(u)
+	return u, nil
+}
+
+// buildFromModel is unitFromModel without registering the unit.
+func (p *Pipeline) buildFromModel(mu *ModelUnit, period time.Duration) (*Unit, error) {
 	settings, err := mu.Settings.model()
 	if err != nil {
 		return nil, fmt.Errorf("%w: unit %s: %v", ErrModelFile, mu.Name, err)
@@ -207,7 +221,7 @@ func (p *Pipeline) unitFromModel(mu *ModelUnit, period time.Duration) (*Unit, er
 	if err := restoreState(tr, mu.State); err != nil {
 		return nil, fmt.Errorf("%w: unit %s: %w", ErrModelFile, mu.Name, err)
 	}
-	u := p.newUnit(mu.Name)
+	u := newUnit(p, mu.Name)
 	u.model = settings
 	u.model.Adapt = adapt
 	u.fixed = adapt != nil && !*adapt

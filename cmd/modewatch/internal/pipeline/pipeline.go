@@ -213,12 +213,18 @@ func (p *Pipeline) assign() {
 
 func (p *Pipeline) newUnit(name string) *Unit {
 	u := newUnit(p, name)
+	p.register(u)
+	return u
+}
+
+// register adds u to the units.
+func (p *Pipeline) register(u *Unit) {
+	name := u.Name
 	p.unitsMu.Lock()
 	p.units = append(p.units, u)
 	sort.Slice(p.units, func(i, j int) bool { return p.units[i].Name < p.units[j].Name })
 	p.byName[name] = u
 	p.unitsMu.Unlock()
-	return u
 }
 
 // Frame scores one aligned frame: the handler for stream.NewIntake.

@@ -353,14 +353,9 @@ func (s *Service) restore() {
 	for _, ck := range cks {
 		for _, name := range restored {
 			if ck.Units[0].Name == name {
-				s.log.Info("unit restored from checkpoint", "unit", name, "frames", ck.Frames, "last_frame", ck.To, "saved", ck.Created)
+				s.log.Info("unit restored from checkpoint (model and alarm state)", "unit", name, "frames", ck.Frames, "last_frame", ck.To, "saved", ck.Created)
 			}
 		}
-	}
-	if ok, err := s.pl.RestoreAlerts(dir); err != nil {
-		s.log.Warn("alarm state not restored; alarms start from normal", "err", err)
-	} else if ok {
-		s.log.Info("alarm state restored from checkpoint", "dir", dir)
 	}
 	if len(cks) == 0 && len(errs) == 0 {
 		if s.cfg.Model.File != "" {
