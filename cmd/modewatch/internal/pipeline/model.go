@@ -229,7 +229,6 @@ func (p *Pipeline) buildFromModel(mu *ModelUnit, period time.Duration) (*Unit, e
 	u.tr = tr
 	u.frozen = tr.Frozen()
 	u.baseline = true
-	u.fixedChannels = true
 	u.x = make([]float64, len(mu.Channels))
 	u.miss = make([]bool, len(mu.Channels))
 	u.names = append([]string(nil), mu.Channels...)

@@ -31,7 +31,6 @@ type Unit struct {
 	equal         bool        // equal weights (fit without a half-life)
 	skipUntil     time.Time   // frames up to this start were scored before a restart
 	firstT, lastT time.Time   // first and last frame scored
-	fixedChannels bool        // the channel list is settled (baseline, checkpoint, out of warm-up)
 	baseline      bool        // started from a fitted model
 	alertFrozen   atomic.Bool // set by the alarm engine
 	frozen        bool        // the tracker is frozen now
@@ -44,7 +43,7 @@ type Unit struct {
 	skipped     uint64        // frames already scored before a restart
 	refreshes   uint64        // mode refreshes timed (see step)
 	lastRefresh time.Duration // wall time of the last frame step that refreshed
-	late        []string      // channels that appeared after the model was built (not modelled)
+	late        []string      // channels that could not join the model (fixed model, Grow failed)
 
 	// Snapshot for concurrent readers.
 	viewMu sync.Mutex
@@ -58,18 +57,21 @@ func newUnit(p *Pipeline, name string) *Unit {
 }
 
 // addChannel gives registry channel i to the unit and reports whether it
-// is modelled. A unit whose channel list is fixed (fitted baseline,
-// restored checkpoint, or a model out of warm-up) only resolves the
-// channels it knows; others are reported once and left out.
+// is modelled. A channel the unit's model already names (fitted baseline,
+// restored checkpoint) is resolved by name; a new one joins the model: at
+// the next frame the tracker is widened (tracker.Grow), keeping what it
+// learned, and the channel warms up until it has the warm-up frames. Only
+// a model held fixed (adapt=false) cannot take a new channel: it is
+// reported once and left out.
 func (u *Unit) addChannel(i int, name string) bool {
-	if u.fixedChannels {
-		for k, n := range u.names {
-			if n == name && u.idx[k] < 0 {
-				u.idx[k] = i
-				return true
-			}
+	for k, n := range u.names {
+		if n == name && u.idx[k] < 0 {
+			u.idx[k] = i
+			return true
 		}
-		u.p.log.Warn("channel is not part of the unit's model; it is not modelled until the model is rebuilt (refit, or restart without checkpoint)",
+	}
+	if u.fixed && u.tr != nil {
+		u.p.log.Warn("channel is not part of the unit's model, which is held fixed (adapt=false); it is not modelled until the model is refitted",
 			"unit", u.Name, "channel", name)
 		u.late = append(u.late, name)
 		return false
@@ -77,6 +79,37 @@ func (u *Unit) addChannel(i int, name string) bool {
 	u.idx = append(u.idx, i)
 	u.names = append(u.names, name)
 	return true
+}
+
+// grow widens the unit's tracker to the channels added since it was built,
+// keeping what it learned (tracker.Grow); the new channels are learned from
+// this frame on and enter the model once they have WarmUp frames. Each new
+// channel is logged once. If the tracker cannot grow, the new channels are
+// reported and left out.
+func (u *Unit) grow() {
+	p0, p2 := u.tr.P(), len(u.idx)
+	cfg, err := TrackerConfig(u.model, u.p.opt.Period, p2, u.equal)
+	if err == nil {
+		err = u.tr.Grow(p2, cfg)
+	}
+	if err != nil {
+		for _, n := range u.names[p0:] {
+			u.p.log.Error("new channel cannot join the unit's model; it is not modelled", "unit", u.Name, "channel", n, "err", err)
+			u.late = append(u.late, n)
+		}
+		u.names, u.idx = u.names[:p0], u.idx[:p0]
+		return
+	}
+	u.x = append(u.x, make([]float64, p2-p0)...)
+	u.miss = append(u.miss, make([]bool, p2-p0)...)
+	state := "warming up with the unit"
+	if u.tr.State() != tracker.StateWarmUp {
+		state = "warming up; the unit's model goes on without it meanwhile"
+	}
+	for _, n := range u.names[p0:] {
+		u.p.log.Info("new channel joins the unit's model", "unit", u.Name, "channel", n, "state", state,
+			"warmup_frames", u.tr.Config().WarmUp, "channels", p2)
+	}
 }
 
 // Channels returns the names of the unit's model channels.
@@ -114,14 +147,16 @@ func (u *Unit) step(f *stream.Frame) error {
 		u.skipped++
 		return nil // scored before the restart
 	}
-	if u.tr == nil || len(u.idx) > len(u.x) {
-		// First frame, or channels discovered during warm-up: (re)build
-		// the model over every channel known now.
+	switch {
+	case u.tr == nil:
+		// First frame: build the model over every channel known now.
 		if err := u.build(); err != nil {
 			u.failed = err
 			u.p.log.Error("unit is not monitored", "unit", u.Name, "err", err)
 			return nil
 		}
+	case len(u.idx) > len(u.x):
+		u.grow() // channels discovered since
 	}
 	observed := 0
 	for k, i := range u.idx {
@@ -166,10 +201,6 @@ func (u *Unit) step(f *stream.Frame) error {
 		u.firstT = f.Start
 	}
 	u.lastT = f.Start
-	if u.score.Ready {
-		// Out of warm-up: the channel list is settled.
-		u.fixedChannels = true
-	}
 	u.observe(f.Start)
 	if u.p.opt.OnScore != nil {
 		u.p.opt.OnScore(u, f.Start)
@@ -215,9 +246,17 @@ func (u *Unit) observe(t time.Time) {
 		o.Missing = append(o.Missing, u.names[i])
 	}
 	if s.Ready {
-		// Before the model exists a channel's variance is not yet
-		// estimated, so "stuck" is only reported once scoring starts.
+		// Before a channel has the warm-up frames its variance is not yet
+		// estimated, so "stuck" is only reported once scoring starts and,
+		// for a channel that joined later (Score.Warming, or excluded
+		// while its first frames repeat a value), once it has them too.
+		// Warming channels are no quality alarm. (A model held fixed
+		// learns nothing more: its channels are judged as they are.)
+		warm := float64(u.tr.Config().WarmUp)
 		for _, i := range s.Excluded {
+			if !u.fixed && u.tr.Stats().Count(i) < warm {
+				continue
+			}
 			o.Quality = append(o.Quality, alerts.Quality{Channel: u.names[i], Kind: alerts.QualityStuck})
 		}
 	}

@@ -35,16 +35,20 @@ type ContributorView struct {
 
 // ScoreView is a unit's latest score. Statistics are null in warm-up.
 type ScoreView struct {
-	Time         time.Time         `json:"time"`
-	Ready        bool              `json:"ready"`
-	T2           *float64          `json:"t2"`
-	T2Limit      *float64          `json:"t2_limit"`
-	SPE          *float64          `json:"spe"`
-	SPELimit     *float64          `json:"spe_limit"`
-	Phi          *float64          `json:"phi"`
-	PhiLimit     *float64          `json:"phi_limit"`
-	Missing      []string          `json:"missing"`
-	Excluded     []string          `json:"excluded"`
+	Time     time.Time `json:"time"`
+	Ready    bool      `json:"ready"`
+	T2       *float64  `json:"t2"`
+	T2Limit  *float64  `json:"t2_limit"`
+	SPE      *float64  `json:"spe"`
+	SPELimit *float64  `json:"spe_limit"`
+	Phi      *float64  `json:"phi"`
+	PhiLimit *float64  `json:"phi_limit"`
+	Missing  []string  `json:"missing"`
+	Excluded []string  `json:"excluded"`
+	// Warming lists channels that joined the unit after its model was
+	// built and are learned but not yet in the model (no alarm: they are
+	// not scored until they have the warm-up frames).
+	Warming      []string          `json:"warming"`
 	Contributors []ContributorView `json:"contributors"`
 }
 
@@ -123,7 +127,7 @@ func (u *Unit) View(t time.Time) UnitView {
 	if s.Ready {
 		v.Limits = &LimitsView{Alpha: u.tr.Config().Alpha, T2: finite(s.T2Limit), SPE: finite(s.SPELimit), Phi: finite(s.PhiLimit)}
 	}
-	sv := &ScoreView{Time: t, Ready: s.Ready, Missing: []string{}, Excluded: []string{}, Contributors: []ContributorView{}}
+	sv := &ScoreView{Time: t, Ready: s.Ready, Missing: []string{}, Excluded: []string{}, Warming: []string{}, Contributors: []ContributorView{}}
 	if s.Ready {
 		sv.T2, sv.T2Limit = finite(s.T2), finite(s.T2Limit)
 		sv.SPE, sv.SPELimit = finite(s.SPE), finite(s.SPELimit)
@@ -140,6 +144,9 @@ func (u *Unit) View(t time.Time) UnitView {
 	}
 	for _, i := range s.Excluded {
 		sv.Excluded = append(sv.Excluded, u.names[i])
+	}
+	for _, i := range s.Warming {
+		sv.Warming = append(sv.Warming, u.names[i])
 	}
 	v.Latest = sv
 	return v
