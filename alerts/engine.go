@@ -174,6 +174,7 @@ type unit struct {
 	name     string
 	rules    Rules
 	last     time.Time
+	tick     time.Time // latest Tick (timers run up to here without a frame)
 	seen     bool
 	maint    bool
 	frozen   bool
@@ -498,6 +499,60 @@ func (e *Engine) Observe(o *Observation) error {
 	}
 	e.syncFreeze(u, t)
 	return bad
+}
+
+// Tick advances the alarm time of unit to t without a frame: it runs the
+// timers a frame at t runs first, so that a unit whose frames stop (a
+// gateway down, a stalled source) still ends them on time in a live
+// service:
+//
+//	shelf expiry   at Shelve.Until
+//	flood end      when fewer than FloodEnd new alerts lie in the window
+//	chatter end    after ChatterWindow without a new activation
+//	stale flag     after StaleAfter continuously in alarm
+//
+// and publishes a pending flood revision. It steps no alarm (there are no
+// statistics), counts no frame and does not move the unit's last frame
+// time, so a frame arriving later with a time before t (a backlog) is still
+// accepted; its timers then find the work done. Events and revisions are
+// stamped t. t at or before the unit's last frame or last Tick, a unit
+// without frames and a unit in maintenance change nothing; Tick reports
+// whether time advanced. Replays should not call it: there frame time
+// rules. Safe for concurrent use; it allocates only when it publishes.
+func (e *Engine) Tick(unit string, t time.Time) bool {
+	e.mu.Lock()
+	defer e.mu.Unlock()
+	u := e.units[unit]
+	if u == nil || !u.seen || u.maint || !t.After(u.last) || !t.After(u.tick) {
+		return false
+	}
+	u.tick = t
+	u.rate.advance(t)
+	e.expireShelf(u, &u.modelG, t)
+	for _, q := range u.quality {
+		e.expireShelf(u, &q.g, t)
+	}
+	e.checkFloodEnd(u, t)
+	e.checkGroup(u, &u.modelG, t)
+	for _, q := range u.quality {
+		e.checkGroup(u, &q.g, t)
+	}
+	if f := u.flood; f != nil && f.dirty && t.Sub(f.lastPub) >= e.cfg.FloodUpdate {
+		e.publish(f, t)
+	}
+	e.syncFreeze(u, t)
+	return true
+}
+
+// LastFrame returns the frame time of unit's latest observation (zero if
+// none).
+func (e *Engine) LastFrame(unit string) time.Time {
+	e.mu.Lock()
+	defer e.mu.Unlock()
+	if u := e.units[unit]; u != nil {
+		return u.last
+	}
+	return time.Time{}
 }
 
 func (e *Engine) stepQuality(u *unit, kind, ch string, present bool, t time.Time, o *Observation) {
