@@ -92,6 +92,12 @@ type Service struct {
 	ckptErrors atomic.Uint64
 	ready      atomic.Bool
 
+	// Wall-clock time each unit's latest frame was scored, for the alarm
+	// timers of units whose frames stop (tickUnits).
+	clockMu  sync.Mutex
+	lastWall map[string]time.Time
+	started  time.Time
+
 	stopOnce sync.Once
 	wg       sync.WaitGroup
 	done     chan struct{}
@@ -112,7 +118,8 @@ func Start(ctx context.Context, opt Options) (_ *Service, err error) {
 	if opt.Stdout == nil {
 		opt.Stdout = os.Stdout
 	}
-	s := &Service{cfg: cfg, opt: opt, log: log, scoreSubj: map[string]string{}, recent: map[string]alerts.Record{}, ckptNow: make(chan struct{}, 1), done: make(chan struct{})}
+	s := &Service{cfg: cfg, opt: opt, log: log, scoreSubj: map[string]string{}, recent: map[string]alerts.Record{}, ckptNow: make(chan struct{}, 1), done: make(chan struct{}),
+		lastWall: map[string]time.Time{}, started: time.Now()}
 	defer func() {
 		if err != nil {
 			s.abort()
@@ -264,6 +271,9 @@ func Start(ctx context.Context, opt Options) (_ *Service, err error) {
 
 	s.wg.Add(1)
 	go s.checkpointLoop()
+	every, stall := tickTiming(period, cfg.Frames.Lateness)
+	s.wg.Add(1)
+	go s.tickLoop(every, stall)
 	s.ready.Store(true)
 	log.Info("modewatch is running (advisory: it never acts on the plant)", "readings", s.info.Readings,
 		"alerts", s.info.Alerts, "scores", s.info.Scores, "http", s.info.HTTP, "period", period)
@@ -368,6 +378,9 @@ func (s *Service) restore() {
 
 // onScore publishes a unit's score line on <prefix>.scores.<unit>.
 func (s *Service) onScore(u *pipeline.Unit, t time.Time) {
+	s.clockMu.Lock()
+	s.lastWall[u.Name] = time.Now()
+	s.clockMu.Unlock()
 	subj, ok := s.scoreSubj[u.Name]
 	if !ok {
 		subj = s.cfg.Server.Prefix + ".scores." + sink.SubjectToken(u.Name)
@@ -455,6 +468,62 @@ func (s *Service) checkpointLoop() {
 		}
 		_ = s.Checkpoint()
 	}
+}
+
+// tickTiming returns how often the alarm timers of stalled units are
+// advanced (the frame period, within 1 s … 10 s) and after how long without
+// a scored frame a unit counts as stalled: two periods plus the allowed
+// lateness, when its next frame is overdue even for a slow source.
+func tickTiming(period, lateness time.Duration) (every, stall time.Duration) {
+	every = min(max(period, time.Second), 10*time.Second)
+	stall = max(2*period+lateness, every)
+	return every, stall
+}
+
+// tickLoop advances the alarm timers of stalled units every interval.
+func (s *Service) tickLoop(every, stall time.Duration) {
+	defer s.wg.Done()
+	t := time.NewTicker(every)
+	defer t.Stop()
+	for {
+		select {
+		case <-s.done:
+			return
+		case now := <-t.C:
+			s.tickUnits(now, stall)
+		}
+	}
+}
+
+// tickUnits advances the alarm time of every unit that has scored no frame
+// for stall or longer to its latest frame time plus the wall-clock time
+// elapsed since that frame was scored (alerts.Engine.Tick), so that shelves
+// expire and floods and chattering end while its frames have stopped. The
+// frame time so reached lags the plant's clock by the frame's period and
+// lateness, never leads it. Units that score normally are not touched: for
+// them frame time rules, as in a replay. It returns how many units ticked.
+func (s *Service) tickUnits(now time.Time, stall time.Duration) int {
+	eng := s.pl.Alerts()
+	n := 0
+	for _, u := range s.pl.Units() {
+		// The frame time first: a frame scored between the two reads
+		// moves the wall time too and the unit is not stalled.
+		last := eng.LastFrame(u.Name)
+		s.clockMu.Lock()
+		wall, ok := s.lastWall[u.Name]
+		s.clockMu.Unlock()
+		if !ok {
+			wall = s.started // restored from a checkpoint, no frame since
+		}
+		idle := now.Sub(wall)
+		if last.IsZero() || idle < stall {
+			continue
+		}
+		if eng.Tick(u.Name, last.Add(idle)) {
+			n++
+		}
+	}
+	return n
 }
 
 // Wait blocks until ctx is done, then shuts the service down within the

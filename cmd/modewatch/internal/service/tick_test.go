@@ -1,0 +1,138 @@
+package service
+
+import (
+	"bytes"
+	"context"
+	"fmt"
+	"math"
+	"path/filepath"
+	"testing"
+	"time"
+
+	"github.com/nats-io/nats.go"
+
+	"modewatch/alerts"
+	"modewatch/configs"
+)
+
+// TestStalledUnitShelfExpires: when a unit's readings stop, the service
+// still advances its alarm timers from the wall clock (alerts.Engine.Tick):
+// a shelf set on one of its alerts expires and the alert is annunciated
+// again without any new frame.
+func TestStalledUnitShelfExpires(t *testing.T) {
+	dir := t.TempDir()
+	cfg, err := configs.Parse("tick.yaml", []byte(`
+frames: {period: 1s}
+server: {embedded_port: -1}
+http: {listen: "off"}
+data_dir: `+filepath.Join(dir, "data")+`
+`))
+	if err != nil {
+		t.Fatal(err)
+	}
+	svc, err := Start(context.Background(), Options{Config: cfg})
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { svc.Shutdown(context.Background()) })
+	nc, err := nats.Connect(svc.Info().NATS)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer nc.Close()
+
+	// 500 s of readings (invented) from unit tk; channel b stops after
+	// 100 s, so a "missing" quality alert opens after its 5-minute hold.
+	t0 := time.Now().Add(-time.Hour).Truncate(time.Second)
+	var b bytes.Buffer
+	for k := 0; k < 500; k++ {
+		ts := t0.Add(time.Duration(k) * time.Second).UnixNano()
+		a := 10 + math.Sin(float64(k)/7)
+		if k < 100 {
+			fmt.Fprintf(&b, "tk,asset=x a=%.4f,b=%.4f %d\n", a, 5+math.Cos(float64(k)/5), ts)
+		} else {
+			fmt.Fprintf(&b, "tk,asset=x a=%.4f %d\n", a, ts)
+		}
+		if b.Len() > 32<<10 || k == 499 {
+			if err := nc.Publish("modewatch.readings.tk", b.Bytes()); err != nil {
+				t.Fatal(err)
+			}
+			b.Reset()
+		}
+	}
+	nc.Flush()
+	eng := svc.Pipeline().Alerts()
+	var id string
+	deadline := time.Now().Add(10 * time.Second)
+	for id == "" {
+		for _, r := range eng.Open(nil) {
+			if r.Quality != nil && r.Quality.Kind == alerts.QualityMissing && r.Quality.Channel == "tk.x.b" {
+				id = r.ID
+			}
+		}
+		if time.Now().After(deadline) {
+			t.Fatalf("no missing-channel alert; open: %+v", eng.Open(nil))
+		}
+		time.Sleep(20 * time.Millisecond)
+	}
+	// Wait until the last frame is scored (the readings have stopped).
+	var last time.Time
+	for {
+		l := eng.LastFrame("tk")
+		if l.Equal(last) && !l.IsZero() {
+			break
+		}
+		last = l
+		time.Sleep(300 * time.Millisecond)
+	}
+	frames, _, _ := svc.Pipeline().Frames()
+	if rep := eng.Handle(context.Background(), alerts.Command{Op: alerts.OpShelve, AlertID: id, By: "test",
+		Reason: "instrument work", For: alerts.Duration(time.Second)}); !rep.OK {
+		t.Fatalf("shelve: %+v", rep)
+	}
+	shelved := func() bool {
+		for _, r := range eng.Open(nil) {
+			if r.ID == id {
+				return r.Shelved != nil
+			}
+		}
+		t.Fatalf("alert %s closed", id)
+		return false
+	}
+	if !shelved() {
+		t.Fatal("not shelved")
+	}
+	// No frame comes; the stall is noticed after 2 periods + lateness and
+	// the shelf, 1 s of frame time, expires at the next tick.
+	deadline = time.Now().Add(15 * time.Second)
+	for shelved() {
+		if time.Now().After(deadline) {
+			t.Fatal("shelf of a stalled unit did not expire")
+		}
+		time.Sleep(50 * time.Millisecond)
+	}
+	if n, _, _ := svc.Pipeline().Frames(); n != frames {
+		t.Errorf("%d frames came meanwhile: the expiry was not the tick's", n-frames)
+	}
+	var found bool
+	for _, r := range svc.Records() {
+		if r.ID == id {
+			found = r.Shelved == nil && r.Updated.After(last)
+		}
+	}
+	if !found {
+		t.Error("no record revision annunciating the alert after the shelf expired")
+	}
+}
+
+func TestTickTiming(t *testing.T) {
+	for _, c := range []struct{ period, lateness, every, stall time.Duration }{
+		{time.Second, time.Second, time.Second, 3 * time.Second},
+		{20 * time.Second, 20 * time.Second, 10 * time.Second, time.Minute},
+		{100 * time.Millisecond, 0, time.Second, time.Second},
+	} {
+		if e, s := tickTiming(c.period, c.lateness); e != c.every || s != c.stall {
+			t.Errorf("tickTiming(%v, %v) = %v, %v; want %v, %v", c.period, c.lateness, e, s, c.every, c.stall)
+		}
+	}
+}
