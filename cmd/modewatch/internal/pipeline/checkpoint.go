@@ -43,28 +43,52 @@ func (p *Pipeline) Checkpoint() ([]*ModelFile, error) {
 		if u.tr == nil || u.failed != nil {
 			continue
 		}
-		state, err := saveState(u.tr)
+		ck, err := p.checkpointOf(u)
 		if err != nil {
-			errs = append(errs, fmt.Errorf("unit %s: %w", u.Name, err))
+			errs = append(errs, err)
 			continue
 		}
-		var snap bytes.Buffer
-		if err := p.alerts.SnapshotUnit(u.Name, &snap); err != nil {
-			errs = append(errs, fmt.Errorf("unit %s: %w", u.Name, err))
-			continue
-		}
-		settings := settingsOf(u.model)
-		if u.equal {
-			settings.HalfLife = 0
-		}
-		out = append(out, &ModelFile{
-			Format: ModelFormat, Version: ModelVersion, Created: time.Now().UTC(), Period: Duration(p.opt.Period),
-			Frames: u.frames, From: u.firstT, To: u.lastT,
-			Units: []ModelUnit{{Name: u.Name, Channels: append([]string(nil), u.names...), Settings: settings,
-				Modes: u.modesView(), State: state, Alerts: snap.Bytes()}},
-		})
+		out = append(out, ck)
 	}
 	return out, errors.Join(errs...)
+}
+
+// ErrNoUnit marks a unit that does not exist or has no model yet.
+var ErrNoUnit = errors.New("pipeline: no such unit with a model")
+
+// CheckpointUnit returns the checkpoint of the unit called name (tracker
+// and alarm state), the file another instance restores to carry the unit
+// on. It wraps ErrNoUnit when the unit is unknown or has no model yet.
+func (p *Pipeline) CheckpointUnit(name string) (*ModelFile, error) {
+	p.mu.Lock()
+	defer p.mu.Unlock()
+	u := p.lookup(name)
+	if u == nil || u.tr == nil || u.failed != nil {
+		return nil, fmt.Errorf("%w: %q", ErrNoUnit, name)
+	}
+	return p.checkpointOf(u)
+}
+
+// checkpointOf captures unit u. Called under p.mu.
+func (p *Pipeline) checkpointOf(u *Unit) (*ModelFile, error) {
+	state, err := saveState(u.tr)
+	if err != nil {
+		return nil, fmt.Errorf("unit %s: %w", u.Name, err)
+	}
+	var snap bytes.Buffer
+	if err := p.alerts.SnapshotUnit(u.Name, &snap); err != nil {
+		return nil, fmt.Errorf("unit %s: %w", u.Name, err)
+	}
+	settings := settingsOf(u.model)
+	if u.equal {
+		settings.HalfLife = 0
+	}
+	return &ModelFile{
+		Format: ModelFormat, Version: ModelVersion, Created: time.Now().UTC(), Period: Duration(p.opt.Period),
+		Frames: u.frames, From: u.firstT, To: u.lastT,
+		Units: []ModelUnit{{Name: u.Name, Channels: append([]string(nil), u.names...), Settings: settings,
+			Modes: u.modesView(), State: state, Alerts: snap.Bytes()}},
+	}, nil
 }
 
 // CurrentFile names, inside a checkpoint directory, the generation

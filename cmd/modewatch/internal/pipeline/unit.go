@@ -210,8 +210,13 @@ func (u *Unit) step(f *stream.Frame) error {
 
 // ModelState returns the unit's model state in the alarm engine's terms.
 func (u *Unit) ModelState() string {
+	ready := u.score.Ready
+	if u.tr != nil && u.score.Frame == 0 {
+		// restored (checkpoint, fitted model), no frame scored yet
+		ready = u.tr.State() != tracker.StateWarmUp
+	}
 	switch {
-	case u.tr == nil || !u.score.Ready:
+	case u.tr == nil || !ready:
 		return alerts.ModelWarmup
 	case u.fixed:
 		return alerts.ModelBaseline

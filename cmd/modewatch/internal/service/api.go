@@ -1,7 +1,9 @@
 package service
 
 import (
+	"bytes"
 	"encoding/json"
+	"errors"
 	"io"
 	"net/http"
 	"strings"
@@ -9,6 +11,7 @@ import (
 	"github.com/prometheus/client_golang/prometheus/promhttp"
 
 	"modewatch/alerts"
+	"modewatch/cmd/modewatch/internal/pipeline"
 	"modewatch/stream/natsource"
 )
 
@@ -27,6 +30,9 @@ const Caution = "modewatch is advisory: it never acts on the plant. Verify every
 //	POST /api/alerts/{op}             op = ack | shelve | unshelve; body {"alert_id", "by", ...}
 //	POST /api/units/{unit}/maintenance  body {"on": true, "by", "reason"}
 //	POST /api/commands                any operator command (alerts.Command JSON)
+//	GET  /api/units/{unit}/checkpoint the unit's checkpoint now (model and alarm state)
+//	PUT  /api/units/{unit}/checkpoint take over a unit from its checkpoint file
+//	                                  (moved from another instance); other units are not touched
 func (s *Service) routes() http.Handler {
 	mux := http.NewServeMux()
 	mux.HandleFunc("GET /healthz", func(w http.ResponseWriter, r *http.Request) {
@@ -38,7 +44,8 @@ func (s *Service) routes() http.Handler {
 		writeJSON(w, http.StatusOK, map[string]any{
 			"caution": Caution,
 			"links": []string{"/healthz", "/readyz", "/metrics", "/api/units", "/api/units/{unit}", "/api/alerts",
-				"POST /api/alerts/{ack|shelve|unshelve}", "POST /api/units/{unit}/maintenance", "POST /api/commands"},
+				"POST /api/alerts/{ack|shelve|unshelve}", "POST /api/units/{unit}/maintenance", "POST /api/commands",
+				"GET /api/units/{unit}/checkpoint", "PUT /api/units/{unit}/checkpoint"},
 			"subjects": s.info,
 		})
 	})
@@ -85,8 +92,40 @@ func (s *Service) routes() http.Handler {
 	mux.HandleFunc("POST /api/commands", func(w http.ResponseWriter, r *http.Request) {
 		s.command(w, r, func(*alerts.Command) {})
 	})
+	mux.HandleFunc("GET /api/units/{unit}/checkpoint", func(w http.ResponseWriter, r *http.Request) {
+		ck, err := s.pl.CheckpointUnit(r.PathValue("unit"))
+		switch {
+		case errors.Is(err, pipeline.ErrNoUnit):
+			writeJSON(w, http.StatusNotFound, map[string]string{"error": err.Error()})
+		case err != nil:
+			writeJSON(w, http.StatusInternalServerError, map[string]string{"error": err.Error()})
+		default:
+			writeJSON(w, http.StatusOK, ck)
+		}
+	})
+	mux.HandleFunc("PUT /api/units/{unit}/checkpoint", func(w http.ResponseWriter, r *http.Request) {
+		body, err := io.ReadAll(io.LimitReader(r.Body, maxCheckpointBody+1))
+		if err != nil || len(body) > maxCheckpointBody {
+			writeJSON(w, http.StatusBadRequest, map[string]string{"error": "body unreadable or over 256 MiB"})
+			return
+		}
+		ck, err := pipeline.DecodeModel(bytes.NewReader(body))
+		if err != nil {
+			writeJSON(w, http.StatusBadRequest, map[string]string{"error": err.Error()})
+			return
+		}
+		if err := s.Adopt(ck, r.PathValue("unit")); err != nil {
+			writeJSON(w, http.StatusConflict, map[string]string{"error": err.Error()})
+			return
+		}
+		writeJSON(w, http.StatusOK, map[string]string{"status": "restored", "unit": r.PathValue("unit")})
+	})
 	return mux
 }
+
+// maxCheckpointBody bounds a unit checkpoint sent to the API (a unit of
+// 2000 channels holds two p(p+1)/2 matrices, about 43 MiB in base64).
+const maxCheckpointBody = 256 << 20
 
 func (s *Service) readyz(w http.ResponseWriter, r *http.Request) {
 	st := s.conn.State()

@@ -376,6 +376,31 @@ func (s *Service) restore() {
 	}
 }
 
+// Adopt takes over a unit from its checkpoint (tracker and alarm state),
+// e.g. a unit moved from another instance, while the service runs: the
+// unit must not be running here yet, and the checkpoint must hold exactly
+// the unit called name. Other units are not touched. The next checkpoint,
+// asked for at once, includes the unit. Frames up to the checkpoint's last
+// one are skipped when they come again.
+func (s *Service) Adopt(ck *pipeline.ModelFile, name string) error {
+	if len(ck.Units) != 1 || ck.Units[0].Name != name {
+		return fmt.Errorf("service: the checkpoint must hold exactly unit %q", name)
+	}
+	restored, errs := s.pl.Restore([]*pipeline.ModelFile{ck})
+	if len(restored) != 1 {
+		err := errors.Join(errs...)
+		s.log.Warn("unit checkpoint not taken over", "unit", name, "err", err)
+		return fmt.Errorf("service: %w", err)
+	}
+	s.log.Info("unit taken over from a checkpoint (model and alarm state)", "unit", name, "frames", ck.Frames,
+		"last_frame", ck.To, "saved", ck.Created)
+	select {
+	case s.ckptNow <- struct{}{}:
+	default:
+	}
+	return nil
+}
+
 // onScore publishes a unit's score line on <prefix>.scores.<unit>.
 func (s *Service) onScore(u *pipeline.Unit, t time.Time) {
 	s.clockMu.Lock()
