@@ -15,7 +15,7 @@ type metrics struct {
 	reg *prometheus.Registry
 
 	frames, unitFrames, lines, rejected, readings            *prometheus.Desc
-	stat, limit, ready, nEff, modes, iters, missing          *prometheus.Desc
+	stat, limit, ready, nEff, modes, iters, missing, warming *prometheus.Desc
 	refreshes, refreshTime                                   *prometheus.Desc
 	alertsOpen, alertsOpened, alertsHour, floods, inMaint    *prometheus.Desc
 	natsUp, natsReconnects, natsDisconnects                  *prometheus.Desc
@@ -42,6 +42,7 @@ func newMetrics(s *Service) *metrics {
 		modes:           d("unit_modes", "Number of sparse modes of the unit's model.", "unit"),
 		iters:           d("unit_refresh_iterations", "Solver iterations of the unit's last mode refresh.", "unit"),
 		missing:         d("unit_missing_channels", "Channels missing in the unit's latest frame.", "unit"),
+		warming:         d("unit_warming_channels", "Channels that joined the unit after its model was built and are not yet in it (no alarm).", "unit"),
 		refreshes:       d("unit_refreshes_total", "Refreshes of the unit's modes and limits.", "unit"),
 		refreshTime:     d("unit_last_refresh_seconds", "Wall time of the frame step that did the unit's last refresh.", "unit"),
 		alertsOpen:      d("alerts_open", "Open alert incidents.", "unit"),
@@ -69,7 +70,7 @@ func newMetrics(s *Service) *metrics {
 // Describe implements prometheus.Collector.
 func (m *metrics) Describe(ch chan<- *prometheus.Desc) {
 	for _, d := range []*prometheus.Desc{m.frames, m.unitFrames, m.lines, m.rejected, m.readings, m.stat, m.limit, m.ready,
-		m.nEff, m.modes, m.iters, m.missing, m.refreshes, m.refreshTime, m.alertsOpen, m.alertsOpened, m.alertsHour, m.floods, m.inMaint, m.natsUp,
+		m.nEff, m.modes, m.iters, m.missing, m.warming, m.refreshes, m.refreshTime, m.alertsOpen, m.alertsOpened, m.alertsHour, m.floods, m.inMaint, m.natsUp,
 		m.natsReconnects, m.natsDisconnects, m.queueDepth, m.dropped, m.sinkDepth, m.sinkPending, m.sinkDropped,
 		m.sinkDelivered, m.ckptTime, m.ckptErrors, m.scoreErrors} {
 		ch <- d
@@ -117,6 +118,7 @@ func (m *metrics) Collect(ch chan<- prometheus.Metric) {
 			g(m.ready, b(scoring), v.Name)
 			if v.Latest != nil {
 				g(m.missing, float64(len(v.Latest.Missing)), v.Name)
+				g(m.warming, float64(len(v.Latest.Warming)), v.Name)
 			}
 			if scoring {
 				for _, st := range []struct {

@@ -262,7 +262,7 @@ checkpoint_interval: 1m
 	}
 	for _, name := range []string{"modewatch_frames_total", "modewatch_lines_total", "modewatch_statistic", "modewatch_statistic_limit",
 		"modewatch_alerts_open", "modewatch_nats_connected", "modewatch_readings_queue_depth", "modewatch_unit_refresh_iterations",
-		"modewatch_unit_refreshes_total", "modewatch_unit_last_refresh_seconds"} {
+		"modewatch_unit_refreshes_total", "modewatch_unit_last_refresh_seconds", "modewatch_unit_warming_channels"} {
 		if fams[name] == nil {
 			t.Errorf("/metrics lacks %s", name)
 		}

@@ -18,7 +18,8 @@ import (
 // TestStalledUnitShelfExpires: when a unit's readings stop, the service
 // still advances its alarm timers from the wall clock (alerts.Engine.Tick):
 // a shelf set on one of its alerts expires and the alert is annunciated
-// again without any new frame.
+// again without any new frame. On the way, a channel that starts reporting
+// late is counted as warming in /metrics and raises no quality alarm.
 func TestStalledUnitShelfExpires(t *testing.T) {
 	dir := t.TempDir()
 	cfg, err := configs.Parse("tick.yaml", []byte(`
@@ -48,10 +49,13 @@ data_dir: `+filepath.Join(dir, "data")+`
 	for k := 0; k < 500; k++ {
 		ts := t0.Add(time.Duration(k) * time.Second).UnixNano()
 		a := 10 + math.Sin(float64(k)/7)
-		if k < 100 {
+		switch {
+		case k < 100:
 			fmt.Fprintf(&b, "tk,asset=x a=%.4f,b=%.4f %d\n", a, 5+math.Cos(float64(k)/5), ts)
-		} else {
+		case k < 300:
 			fmt.Fprintf(&b, "tk,asset=x a=%.4f %d\n", a, ts)
+		default: // channel c starts: it joins the model, warming
+			fmt.Fprintf(&b, "tk,asset=x a=%.4f,c=%.4f %d\n", a, 1+math.Sin(float64(k)/3), ts)
 		}
 		if b.Len() > 32<<10 || k == 499 {
 			if err := nc.Publish("modewatch.readings.tk", b.Bytes()); err != nil {
@@ -86,6 +90,29 @@ data_dir: `+filepath.Join(dir, "data")+`
 		time.Sleep(300 * time.Millisecond)
 	}
 	frames, _, _ := svc.Pipeline().Frames()
+	// The late channel c is counted as warming, not as a quality alarm.
+	fams, err := svc.met.reg.Gather()
+	if err != nil {
+		t.Fatal(err)
+	}
+	warming := -1.0
+	for _, f := range fams {
+		if f.GetName() == "modewatch_unit_warming_channels" {
+			for _, m := range f.Metric {
+				if m.Label[0].GetValue() == "tk" {
+					warming = m.GetGauge().GetValue()
+				}
+			}
+		}
+	}
+	if warming != 1 {
+		t.Errorf("modewatch_unit_warming_channels{unit=\"tk\"} = %v, want 1 (channel c)", warming)
+	}
+	for _, r := range eng.Open(nil) {
+		if r.Quality != nil && r.Quality.Channel == "tk.x.c" {
+			t.Errorf("quality alert for the warming channel: %s", r.ID)
+		}
+	}
 	if rep := eng.Handle(context.Background(), alerts.Command{Op: alerts.OpShelve, AlertID: id, By: "test",
 		Reason: "instrument work", For: alerts.Duration(time.Second)}); !rep.OK {
 		t.Fatalf("shelve: %+v", rep)
