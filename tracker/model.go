@@ -93,6 +93,11 @@ type pattern struct {
 // slot once (an allocation); the slot keeps the larger buffers.
 const patternPrealloc = 16
 
+// emptyResidual is the residual trace θ₁, relative to the trace of the
+// included correlation matrix, below which the residual subspace counts as
+// empty (rounding only, about 1e-16 per channel in practice).
+const emptyResidual = 1e-12
+
 func newModel(p, maxR, slots int) *model {
 	m := &model{
 		p: p, maxR: maxR,
@@ -415,9 +420,16 @@ func (m *model) computePattern(pt *pattern, ls *limitSpec) {
 		pt.err = err
 		pt.t2Lim = math.Inf(1)
 	}
-	if ls.spe == SPEJacksonMudholkar {
+	switch {
+	case pt.theta.T1 <= emptyResidual*math.Max(sTr, 1):
+		// The modes span every included channel (e.g. as many 1-sparse
+		// modes as channels): the residual subspace is empty up to
+		// rounding, SPE is identically zero and carries no information.
+		// SPE cannot alarm and φ reduces to T²/τ², not an error.
+		pt.speLim, err = math.Inf(1), nil
+	case ls.spe == SPEJacksonMudholkar:
 		pt.speLim, err = limits.SPEJacksonMudholkar(ls.alpha, pt.theta)
-	} else {
+	default:
 		pt.speLim, err = limits.SPEBox(ls.alpha, pt.theta)
 	}
 	if err != nil {
@@ -483,9 +495,14 @@ func (m *model) computePattern(pt *pattern, ls *limitSpec) {
 		pt.rbcLim[i] = limits.RBC(ls.chi1, num, den)
 	}
 	pt.cross = cross
-	if math.IsInf(tau2, 1) || math.IsInf(delta2, 1) {
+	if math.IsInf(tau2, 1) {
 		pt.phiLim = math.Inf(1)
 		return
+	}
+	// With no usable SPE limit (δ² = +∞) the SPE terms drop out of the
+	// traces and φ = T²/τ²: its limit is that of the T² part alone.
+	if math.IsInf(delta2, 1) {
+		cross = 0
 	}
 	a1, a2 := limits.PhiTraces(l, tau2, delta2, pt.theta, cross)
 	pt.phiLim, err = limits.PhiLimit(ls.alpha, a1, a2)

@@ -977,3 +977,35 @@ func TestT2PhaseI(t *testing.T) {
 		}
 	}
 }
+
+// Modes that span every channel leave an empty residual subspace: SPE is
+// identically zero, so it cannot alarm (limit +∞), and φ reduces to T²/τ²
+// with the limit of the T² part alone (Yue & Qin 2001 with the SPE term
+// dropped: tr(SΦ) = l/τ², tr((SΦ)²) = l/τ⁴, so ζ² = χ²_{1−α}(l)/τ² — derived).
+// Before this case was handled the φ traces were +∞ and the limit
+// computation never returned (found by replaying the demo with l0:3).
+func TestEmptyResidualSubspace(t *testing.T) {
+	const p = 4
+	tr, src := newStream(t, p, Config{Period: time.Second, HalfLife: time.Hour, WarmUp: 40, RefreshEvery: 10,
+		T2Limit: T2ChiSquare,
+		Modes:   modes.Config{Count: p, MaxCount: p, Sparsity: []modes.Sparsity{{Method: modes.L0, K: 1}}}})
+	var sc Score
+	x := make([]float64, p)
+	for k := 0; k < 200; k++ {
+		if err := tr.Step(&sc, src.frame(x), nil); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if !sc.Ready || sc.Modes != p {
+		t.Fatalf("ready %v with %d modes, want %d", sc.Ready, sc.Modes, p)
+	}
+	if !math.IsInf(sc.SPELimit, 1) {
+		t.Errorf("SPE limit %v with an empty residual subspace, want +Inf", sc.SPELimit)
+	}
+	if math.IsNaN(sc.SPE) || sc.SPE > 1e-9 {
+		t.Errorf("SPE %v, want 0 up to rounding", sc.SPE)
+	}
+	chi := limits.ChiSquare(0.99, p)
+	approx(t, "φ limit = χ²(l)/τ²", sc.PhiLimit, chi/sc.T2Limit, 0, 1e-9)
+	approx(t, "φ = T²/τ²", sc.Phi, sc.T2/sc.T2Limit, 1e-12, 1e-9)
+}

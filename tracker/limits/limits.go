@@ -36,12 +36,24 @@ func checkAlpha(alpha float64) error {
 //
 //	P(X ≤ χ²_p(ν)) = p.
 func ChiSquare(p, nu float64) float64 {
+	if !validDOF(nu) {
+		return math.NaN()
+	}
 	return distuv.ChiSquared{K: nu}.Quantile(p)
 }
+
+// validDOF reports whether ν is a usable degree-of-freedom or shape
+// parameter: positive and finite. The quantile functions return NaN for any
+// other ν instead of handing it to distuv, whose root search does not end on
+// a NaN parameter.
+func validDOF(nu float64) bool { return nu > 0 && !math.IsInf(nu, 1) }
 
 // F returns the lower-tail quantile F_p(ν₁, ν₂) of Snedecor's F distribution.
 // The textbook "F_α(ν₁, ν₂)" upper critical value is F(1−α, ν₁, ν₂).
 func F(p, nu1, nu2 float64) float64 {
+	if !validDOF(nu1) || !validDOF(nu2) {
+		return math.NaN()
+	}
 	return distuv.F{D1: nu1, D2: nu2}.Quantile(p)
 }
 
@@ -52,11 +64,17 @@ func Normal(p float64) float64 {
 
 // StudentT returns the lower-tail quantile t_p(ν) of Student's t.
 func StudentT(p, nu float64) float64 {
+	if !validDOF(nu) {
+		return math.NaN()
+	}
 	return distuv.StudentsT{Mu: 0, Sigma: 1, Nu: nu}.Quantile(p)
 }
 
 // Beta returns the lower-tail quantile B_p(a, b) of the beta distribution.
 func Beta(p, a, b float64) float64 {
+	if !validDOF(a) || !validDOF(b) {
+		return math.NaN()
+	}
 	return distuv.Beta{Alpha: a, Beta: b}.Quantile(p)
 }
 
@@ -140,6 +158,15 @@ func BoxMoments(m, v float64) (g, h float64) {
 	return v / (2 * m), 2 * m * m / v
 }
 
+// finiteLimit returns lim, or an ErrDomain error naming the statistic when
+// lim is not a positive finite number (degenerate traces, underflow).
+func finiteLimit(name string, lim float64) (float64, error) {
+	if !(lim > 0) || math.IsInf(lim, 1) {
+		return 0, fmt.Errorf("%w: %s limit %v is not a positive finite number", ErrDomain, name, lim)
+	}
+	return lim, nil
+}
+
 func checkTheta(th Theta, needT3 bool) error {
 	if !(th.T1 > 0 && th.T2 > 0) || math.IsInf(th.T1, 0) || math.IsInf(th.T2, 0) {
 		return fmt.Errorf("%w: residual traces θ₁ = %v, θ₂ = %v must be positive and finite", ErrDomain, th.T1, th.T2)
@@ -164,7 +191,7 @@ func SPEBox(alpha float64, th Theta) (float64, error) {
 		return 0, err
 	}
 	g, h := BoxParams(th)
-	return g * ChiSquare(1-alpha, h), nil
+	return finiteLimit("SPE", g*ChiSquare(1-alpha, h))
 }
 
 // SPEJacksonMudholkar is the SPE limit of Jackson & Mudholkar (1979),
@@ -185,7 +212,7 @@ func SPEJacksonMudholkar(alpha float64, th Theta) (float64, error) {
 	if !(base > 0) || h0 == 0 {
 		return 0, fmt.Errorf("%w: Jackson–Mudholkar bracket %v (h₀ = %v) not positive", ErrDomain, base, h0)
 	}
-	return th.T1 * math.Pow(base, 1/h0), nil
+	return finiteLimit("SPE", th.T1*math.Pow(base, 1/h0))
 }
 
 // JMh0 returns h₀ = 1 − 2θ₁θ₃/(3θ₂²) of Jackson & Mudholkar (1979).
@@ -205,12 +232,12 @@ func PhiLimit(alpha, trSPhi, trSPhi2 float64) (float64, error) {
 	if err := checkAlpha(alpha); err != nil {
 		return 0, err
 	}
-	if !(trSPhi > 0 && trSPhi2 > 0) {
-		return 0, fmt.Errorf("%w: φ traces %v, %v must be positive", ErrDomain, trSPhi, trSPhi2)
+	if !(trSPhi > 0 && trSPhi2 > 0) || math.IsInf(trSPhi, 1) || math.IsInf(trSPhi2, 1) {
+		return 0, fmt.Errorf("%w: φ traces %v, %v must be positive and finite", ErrDomain, trSPhi, trSPhi2)
 	}
 	g := trSPhi2 / trSPhi
 	h := trSPhi * trSPhi / trSPhi2
-	return g * ChiSquare(1-alpha, h), nil
+	return finiteLimit("φ", g*ChiSquare(1-alpha, h))
 }
 
 // PhiTraces returns tr(SΦ) and tr((SΦ)²) for Φ = D/τ² + C̃/δ² when the

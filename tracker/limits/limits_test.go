@@ -525,3 +525,33 @@ func TestT2FFormConservative(t *testing.T) {
 	}
 	approx(t, "T12 Monte Carlo", float64(over)/n, 0.00631, 2e-4, 0)
 }
+
+// Degenerate parameters give NaN or an ErrDomain error at once; distuv's
+// root search does not end on a NaN parameter, so they must never reach it.
+func TestDegenerateParameters(t *testing.T) {
+	for _, tc := range []struct {
+		name string
+		got  float64
+	}{
+		{"χ² ν=NaN", ChiSquare(0.99, math.NaN())},
+		{"χ² ν=+Inf", ChiSquare(0.99, math.Inf(1))},
+		{"χ² ν=0", ChiSquare(0.99, 0)},
+		{"F ν₁=NaN", F(0.99, math.NaN(), 3)},
+		{"F ν₂=-1", F(0.99, 3, -1)},
+		{"t ν=NaN", StudentT(0.99, math.NaN())},
+		{"beta a=NaN", Beta(0.99, math.NaN(), 2)},
+	} {
+		if !math.IsNaN(tc.got) {
+			t.Errorf("%s: got %v, want NaN", tc.name, tc.got)
+		}
+	}
+	inf := math.Inf(1)
+	if _, err := PhiLimit(0.01, inf, inf); !errors.Is(err, ErrDomain) {
+		t.Errorf("PhiLimit(+Inf traces): err %v, want ErrDomain", err)
+	}
+	// Residual traces at rounding level with θ₂ > θ₁ (an empty residual
+	// subspace seen through rounding): h underflows and the limit is 0.
+	if _, err := SPEBox(0.01, Theta{T1: 2.8e-17, T2: 2.8e-14}); !errors.Is(err, ErrDomain) {
+		t.Errorf("SPEBox at rounding-level traces: err %v, want ErrDomain", err)
+	}
+}
