@@ -210,14 +210,14 @@ func TestTuneChecksFirst(t *testing.T) {
 }
 
 // TestDemoTune runs tune with the demo grid documented in the README
-// (configs/tune-demo.yaml) on the whole demo scenario (invented
+// (configs/grid-demo.yaml) on the whole demo scenario (invented
 // data, 3 days, 7 labelled episodes) and checks the claim made there: the
 // best setting detects every episode with at most one false alert per
 // simulated day, and best.yaml replays to the same metrics.
 func TestDemoTune(t *testing.T) {
 	log, truth := demoWithTruth(t, 72)
 	out := filepath.Join(t.TempDir(), "tune")
-	grid := filepath.Join("..", "..", "..", "..", "configs", "tune-demo.yaml")
+	grid := filepath.Join("..", "..", "..", "..", "configs", "grid-demo.yaml")
 	code, stdout, errs := runCLI(t, "", "tune", "--input", log, "--truth", truth, "--grid", grid, "--out", out)
 	if code != ExitOK {
 		t.Fatalf("exit %d: %s", code, errs)
