@@ -20,6 +20,8 @@ import (
 	"github.com/nats-io/nats-server/v2/server"
 	"github.com/nats-io/nats.go"
 	"github.com/nats-io/nkeys"
+
+	"modewatch/stream/natsource/natstest"
 )
 
 // connectAndPing connects with opts and checks the connection carries a
@@ -49,9 +51,9 @@ func wantAuthErr(t *testing.T, err error, method string) {
 
 func TestAuthUserPassword(t *testing.T) {
 	checkNoLeak(t)
-	o := testOpts(t)
+	o := natstest.JetStreamOptions(t)
 	o.Users = []*server.User{{Username: "plant", Password: "s3cret"}}
-	s := runServer(t, o)
+	s := natstest.Run(t, o)
 	url := []string{s.ClientURL()}
 	if err := connectAndPing(t, Options{URLs: url, User: "plant", Password: "s3cret"}); err != nil {
 		t.Fatalf("good credentials: %v", err)
@@ -64,9 +66,9 @@ func TestAuthUserPassword(t *testing.T) {
 
 func TestAuthToken(t *testing.T) {
 	checkNoLeak(t)
-	o := testOpts(t)
+	o := natstest.JetStreamOptions(t)
 	o.Authorization = "t0ken-abc"
-	s := runServer(t, o)
+	s := natstest.Run(t, o)
 	url := []string{s.ClientURL()}
 	if err := connectAndPing(t, Options{URLs: url, Token: "t0ken-abc"}); err != nil {
 		t.Fatalf("good token: %v", err)
@@ -94,9 +96,9 @@ func TestAuthNKeySeedFile(t *testing.T) {
 	stranger, _ := nkeys.CreateUser()
 	strangerSeed, _ := stranger.Seed()
 
-	o := testOpts(t)
+	o := natstest.JetStreamOptions(t)
 	o.Nkeys = []*server.NkeyUser{{Nkey: pub}}
-	s := runServer(t, o)
+	s := natstest.Run(t, o)
 	url := []string{s.ClientURL()}
 	if err := connectAndPing(t, Options{URLs: url, NKeySeedFile: writeFile(t, "user.nk", seed)}); err != nil {
 		t.Fatalf("listed nkey: %v", err)
@@ -141,7 +143,7 @@ func operatorSetup(t *testing.T) (*server.Options, nkeys.KeyPair, func(signer nk
 	if err := res.Store(apub, ajwt); err != nil {
 		t.Fatal(err)
 	}
-	o := testOpts(t)
+	o := natstest.JetStreamOptions(t)
 	o.JetStream = false
 	o.TrustedOperators = []*jwt.OperatorClaims{oclaims}
 	o.AccountResolver = res
@@ -170,7 +172,7 @@ func operatorSetup(t *testing.T) (*server.Options, nkeys.KeyPair, func(signer nk
 func TestAuthCredentialsFile(t *testing.T) {
 	checkNoLeak(t)
 	o, akp, creds := operatorSetup(t)
-	s := runServer(t, o)
+	s := natstest.Run(t, o)
 	url := []string{s.ClientURL()}
 	if err := connectAndPing(t, Options{URLs: url, CredentialsFile: creds(akp, "monitor")}); err != nil {
 		t.Fatalf("valid credentials file: %v", err)
@@ -259,9 +261,9 @@ func TestTLSMutual(t *testing.T) {
 	if tc.ClientAuth != tls.RequireAndVerifyClientCert {
 		t.Fatalf("server does not require client certificates: %v", tc.ClientAuth)
 	}
-	o := testOpts(t)
+	o := natstest.JetStreamOptions(t)
 	o.TLS, o.TLSVerify, o.TLSConfig, o.TLSTimeout = true, true, tc, 5
-	s := runServer(t, o)
+	s := natstest.Run(t, o)
 	url := []string{s.ClientURL()}
 
 	good := Options{URLs: url, TLS: TLSOptions{CAFile: f.ca, CertFile: f.clientCert, KeyFile: f.clientKey}}

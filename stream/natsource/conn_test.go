@@ -8,6 +8,8 @@ import (
 	"strings"
 	"testing"
 	"time"
+
+	"modewatch/stream/natsource/natstest"
 )
 
 func TestOptionsValidate(t *testing.T) {
@@ -120,9 +122,9 @@ func TestRetryOnFailedConnect(t *testing.T) {
 	if c.State() != StateConnecting {
 		t.Errorf("state %v before the server is up, want connecting", c.State())
 	}
-	o := testOpts(t)
+	o := natstest.JetStreamOptions(t)
 	o.Port = port
-	runServer(t, o)
+	natstest.Run(t, o)
 	e := ev.wait(t, EventConnected, 10*time.Second)
 	if c.State() != StateConnected || !strings.Contains(e.URL, fmt.Sprint(port)) {
 		t.Errorf("state %v, event %+v", c.State(), e)
@@ -133,7 +135,7 @@ func TestRetryOnFailedConnect(t *testing.T) {
 // next one in the list.
 func TestSeveralURLs(t *testing.T) {
 	checkNoLeak(t)
-	s := runServer(t, testOpts(t))
+	s := natstest.StartJetStream(t)
 	c, err := Connect(ctxT(t, 5*time.Second), Options{
 		URLs: []string{"nats://127.0.0.1:1", s.ClientURL()}, NoRandomize: true, Name: "failover-test",
 	}, nil)

@@ -3,11 +3,12 @@ package natsource
 import (
 	"errors"
 	"fmt"
-	"net"
 	"slices"
 	"sync"
 	"testing"
 	"time"
+
+	"modewatch/stream/natsource/natstest"
 )
 
 // TestCoreWildcardSubjects checks that a core subscription on several
@@ -17,7 +18,7 @@ import (
 // token, ">" one or more trailing tokens.
 func TestCoreWildcardSubjects(t *testing.T) {
 	checkNoLeak(t)
-	s := runServer(t, testOpts(t))
+	s := natstest.StartJetStream(t)
 	c, err := Connect(ctxT(t, 5*time.Second), Options{URLs: []string{s.ClientURL()}}, nil)
 	if err != nil {
 		t.Fatal(err)
@@ -102,7 +103,7 @@ func TestCoreWildcardSubjects(t *testing.T) {
 // gets exactly the queued ones.
 func TestCoreOverflowBounded(t *testing.T) {
 	checkNoLeak(t)
-	s := runServer(t, testOpts(t))
+	s := natstest.StartJetStream(t)
 	ev := newEventRecorder()
 	c, err := Connect(ctxT(t, 5*time.Second), Options{URLs: []string{s.ClientURL()}, OnEvent: ev.on}, nil)
 	if err != nil {
@@ -179,7 +180,7 @@ func TestCoreOverflowBounded(t *testing.T) {
 // TestCoreOverflowBytes checks the byte bound of the queue.
 func TestCoreOverflowBytes(t *testing.T) {
 	checkNoLeak(t)
-	s := runServer(t, testOpts(t))
+	s := natstest.StartJetStream(t)
 	c, err := Connect(ctxT(t, 5*time.Second), Options{URLs: []string{s.ClientURL()}}, nil)
 	if err != nil {
 		t.Fatal(err)
@@ -239,8 +240,8 @@ func TestCoreOverflowBytes(t *testing.T) {
 // down are gone: core NATS is at most once).
 func TestCoreAcrossServerRestart(t *testing.T) {
 	checkNoLeak(t)
-	opts := testOpts(t)
-	s1 := runServer(t, opts)
+	opts := natstest.JetStreamOptions(t)
+	s1 := natstest.Run(t, opts)
 	ev := newEventRecorder()
 	c, err := Connect(ctxT(t, 5*time.Second), Options{
 		URLs: []string{s1.ClientURL()}, ReconnectWait: 20 * time.Millisecond, MaxReconnectWait: 100 * time.Millisecond, OnEvent: ev.on,
@@ -258,13 +259,10 @@ func TestCoreAcrossServerRestart(t *testing.T) {
 		t.Fatal(err)
 	}
 	defer sub.Stop(ctxT(t, 5*time.Second))
-	port := s1.Addr().(*net.TCPAddr).Port
 	s1.Shutdown()
 	s1.WaitForShutdown()
 	ev.wait(t, EventDisconnected, 10*time.Second)
-	o2 := *opts
-	o2.Port = port
-	s2 := runServer(t, &o2)
+	s2 := natstest.Restart(t, s1, opts)
 	ev.wait(t, EventReconnected, 20*time.Second)
 	pub, err := Connect(ctxT(t, 5*time.Second), Options{URLs: []string{s2.ClientURL()}}, nil)
 	if err != nil {

@@ -6,42 +6,7 @@ import (
 	"strings"
 	"testing"
 	"time"
-
-	"github.com/nats-io/nats-server/v2/server"
 )
-
-// testOpts returns the options of a real nats-server embedded in the test
-// process on a random loopback port, with JetStream in a temporary store.
-func testOpts(t *testing.T) *server.Options {
-	t.Helper()
-	return &server.Options{
-		Host:      "127.0.0.1",
-		Port:      -1,
-		NoLog:     true,
-		NoSigs:    true,
-		JetStream: true,
-		StoreDir:  t.TempDir(),
-	}
-}
-
-// runServer starts a server with opts and shuts it down at the end of the
-// test.
-func runServer(t *testing.T, opts *server.Options) *server.Server {
-	t.Helper()
-	s, err := server.NewServer(opts)
-	if err != nil {
-		t.Fatalf("new server: %v", err)
-	}
-	go s.Start()
-	if !s.ReadyForConnections(10 * time.Second) {
-		t.Fatal("server not ready")
-	}
-	t.Cleanup(func() {
-		s.Shutdown()
-		s.WaitForShutdown()
-	})
-	return s
-}
 
 // checkNoLeak records the goroutine count now and, at the end of the test
 // (after later cleanups such as server shutdown), waits with a deadline for

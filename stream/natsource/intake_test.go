@@ -9,12 +9,12 @@ import (
 	"testing"
 	"time"
 
-	"github.com/nats-io/nats-server/v2/server"
 	"github.com/nats-io/nats.go"
 	"github.com/nats-io/nats.go/jetstream"
 
 	"modewatch/stream"
 	"modewatch/stream/natsource"
+	"modewatch/stream/natsource/natstest"
 )
 
 // The end-to-end path: line protocol published through JetStream, fed into
@@ -157,17 +157,7 @@ func (p *process) waitFed(t *testing.T, n int) {
 // from the checkpoint, and checks that every frame is delivered exactly once
 // across both lives, complete and with the published values.
 func TestIntakeJetStreamExactlyOnce(t *testing.T) {
-	opts := &server.Options{Host: "127.0.0.1", Port: -1, NoLog: true, NoSigs: true, JetStream: true, StoreDir: t.TempDir()}
-	srv, err := server.NewServer(opts)
-	if err != nil {
-		t.Fatal(err)
-	}
-	go srv.Start()
-	if !srv.ReadyForConnections(10 * time.Second) {
-		t.Fatal("server not ready")
-	}
-	defer func() { srv.Shutdown(); srv.WaitForShutdown() }()
-	url := srv.ClientURL()
+	url := natstest.StartJetStream(t).ClientURL()
 
 	const n = 120      // seconds of data; messages 0..n
 	const crashAt = 70 // messages fed by the first life

@@ -3,7 +3,6 @@ package natsource
 import (
 	"errors"
 	"math/rand/v2"
-	"net"
 	"strconv"
 	"sync"
 	"testing"
@@ -11,6 +10,8 @@ import (
 
 	"github.com/nats-io/nats.go"
 	"github.com/nats-io/nats.go/jetstream"
+
+	"modewatch/stream/natsource/natstest"
 )
 
 // publishN publishes n messages "i" (i = 1..n) to subj through JetStream,
@@ -178,7 +179,7 @@ func TestJetStreamCrashRestartExactlyOnce(t *testing.T) {
 
 func testCrashRestart(t *testing.T, resume func(Checkpoint) *Checkpoint, wantDups bool, floorEvery time.Duration) {
 	checkNoLeak(t)
-	s := runServer(t, testOpts(t))
+	s := natstest.StartJetStream(t)
 	const n = 400
 	ts := eventTimes(n)
 	cfg := JetStreamConfig{
@@ -270,7 +271,7 @@ func testCrashRestart(t *testing.T, resume func(Checkpoint) *Checkpoint, wantDup
 // left unacknowledged on the server.
 func TestJetStreamRedeliveryDeduplicated(t *testing.T) {
 	checkNoLeak(t)
-	s := runServer(t, testOpts(t))
+	s := natstest.StartJetStream(t)
 	const n = 60
 	ts := eventTimes(n)
 	cfg := JetStreamConfig{
@@ -321,7 +322,7 @@ func TestJetStreamRedeliveryDeduplicated(t *testing.T) {
 // which is how intake slows when processing falls behind.
 func TestJetStreamMaxAckPendingBackpressure(t *testing.T) {
 	checkNoLeak(t)
-	s := runServer(t, testOpts(t))
+	s := natstest.StartJetStream(t)
 	const n, maxAck = 200, 25
 	ts := eventTimes(n)
 	r := startRun(t, s.ClientURL(), JetStreamConfig{
@@ -373,10 +374,9 @@ func maxEventOf(ts []time.Time) time.Time {
 // and the JetStream data published before the restart is all there.
 func TestServerRestartReconnect(t *testing.T) {
 	checkNoLeak(t)
-	opts := testOpts(t)
-	s1 := runServer(t, opts)
+	opts := natstest.JetStreamOptions(t)
+	s1 := natstest.Run(t, opts)
 	url := s1.ClientURL()
-	tcpPort := s1.Addr().(*net.TCPAddr).Port
 
 	const n1, n2 = 50, 50
 	ts := eventTimes(n1 + n2)
@@ -435,9 +435,7 @@ func TestServerRestartReconnect(t *testing.T) {
 	if e := ev.wait(t, EventDisconnected, 10*time.Second); c.State() != StateReconnecting && c.State() != StateConnected {
 		t.Errorf("after %v: state %v", e, c.State())
 	}
-	opts2 := *opts
-	opts2.Port = tcpPort
-	s2 := runServer(t, &opts2)
+	s2 := natstest.Restart(t, s1, opts)
 	e := ev.wait(t, EventReconnected, 20*time.Second)
 	if c.State() != StateConnected {
 		t.Errorf("state %v after reconnect to %s", c.State(), e.URL)
@@ -490,7 +488,7 @@ func TestServerRestartReconnect(t *testing.T) {
 // new messages as duplicates; so are incomplete configurations.
 func TestJetStreamCheckpointAhead(t *testing.T) {
 	checkNoLeak(t)
-	s := runServer(t, testOpts(t))
+	s := natstest.StartJetStream(t)
 	c, err := Connect(ctxT(t, 5*time.Second), Options{URLs: []string{s.ClientURL()}}, nil)
 	if err != nil {
 		t.Fatal(err)
@@ -536,7 +534,7 @@ func TestJetStreamCheckpointAhead(t *testing.T) {
 // messages were processed and acknowledged meanwhile.
 func TestJetStreamLostDelivery(t *testing.T) {
 	checkNoLeak(t)
-	s := runServer(t, testOpts(t))
+	s := natstest.StartJetStream(t)
 	const n, lost = 40, 10
 	ts := eventTimes(n)
 	r := startRun(t, s.ClientURL(), JetStreamConfig{
@@ -571,7 +569,7 @@ func TestJetStreamLostDelivery(t *testing.T) {
 // consumer, Done is closed and Err says why.
 func TestJetStreamDoneOnClose(t *testing.T) {
 	checkNoLeak(t)
-	s := runServer(t, testOpts(t))
+	s := natstest.StartJetStream(t)
 	c, err := Connect(ctxT(t, 5*time.Second), Options{URLs: []string{s.ClientURL()}}, nil)
 	if err != nil {
 		t.Fatal(err)
@@ -606,7 +604,7 @@ func TestJetStreamDoneOnClose(t *testing.T) {
 // while idle, resets the consumer, and the messages arrive within seconds.
 func TestJetStreamLostTailRecovered(t *testing.T) {
 	checkNoLeak(t)
-	s := runServer(t, testOpts(t))
+	s := natstest.StartJetStream(t)
 	const n = 40
 	ts := eventTimes(n)
 	r := startRun(t, s.ClientURL(), JetStreamConfig{

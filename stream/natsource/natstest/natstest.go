@@ -1,0 +1,106 @@
+// Package natstest starts real nats-server instances inside a test process,
+// so that tests of every package talk to a genuine server on a loopback port
+// rather than to a mock. Each server is shut down when the test ends.
+//
+// It is test support only: production code starts its embedded server with
+// natsource.StartEmbedded.
+package natstest
+
+import (
+	"net/url"
+	"strconv"
+	"testing"
+	"time"
+
+	"github.com/nats-io/nats-server/v2/server"
+	"github.com/nats-io/nats.go"
+)
+
+// ReadyTimeout bounds the wait for a started server to accept clients.
+const ReadyTimeout = 10 * time.Second
+
+// Options returns the options of a core NATS server on a random loopback
+// port, without logging or signal handlers. Callers may change fields before
+// passing them to Run.
+func Options() *server.Options {
+	return &server.Options{Host: "127.0.0.1", Port: -1, NoLog: true, NoSigs: true}
+}
+
+// JetStreamOptions returns Options with JetStream enabled and its store in a
+// temporary directory of t.
+func JetStreamOptions(t testing.TB) *server.Options {
+	t.Helper()
+	o := Options()
+	o.JetStream = true
+	o.StoreDir = t.TempDir()
+	return o
+}
+
+// Run starts a server with opts, waits up to ReadyTimeout for it to accept
+// clients and shuts it down (waiting for the shutdown to complete) when the
+// test ends. It fails the test if the server cannot start.
+func Run(t testing.TB, opts *server.Options) *server.Server {
+	t.Helper()
+	s, err := server.NewServer(opts)
+	if err != nil {
+		t.Fatalf("natstest: new server: %v", err)
+	}
+	go s.Start()
+	t.Cleanup(func() {
+		s.Shutdown()
+		s.WaitForShutdown()
+	})
+	if !s.ReadyForConnections(ReadyTimeout) {
+		t.Fatalf("natstest: server not ready within %v", ReadyTimeout)
+	}
+	return s
+}
+
+// Start runs a core NATS server (no JetStream) for the test.
+func Start(t testing.TB) *server.Server {
+	t.Helper()
+	return Run(t, Options())
+}
+
+// StartJetStream runs a server with JetStream in a temporary store for the
+// test.
+func StartJetStream(t testing.TB) *server.Server {
+	t.Helper()
+	return Run(t, JetStreamOptions(t))
+}
+
+// Restart shuts old down if it is still running, waits for it to stop and
+// runs a new server with a copy of opts on the port old listened on. With the
+// same opts.StoreDir the JetStream data survives, as after a real server
+// restart; clients with reconnects enabled find the new server at the same
+// address.
+func Restart(t testing.TB, old *server.Server, opts *server.Options) *server.Server {
+	t.Helper()
+	// ClientURL reads the resolved port from the server's options, so it
+	// still answers after Shutdown (Addr does not).
+	u, err := url.Parse(old.ClientURL())
+	if err != nil {
+		t.Fatalf("natstest: client URL of the old server: %v", err)
+	}
+	port, err := strconv.Atoi(u.Port())
+	if err != nil {
+		t.Fatalf("natstest: port of the old server %q: %v", u.Host, err)
+	}
+	old.Shutdown()
+	old.WaitForShutdown()
+	o := opts.Clone()
+	o.Port = port
+	return Run(t, o)
+}
+
+// Connect opens a client connection to s with the given nats options and
+// closes it when the test ends.
+func Connect(t testing.TB, s *server.Server, opts ...nats.Option) *nats.Conn {
+	t.Helper()
+	nc, err := nats.Connect(s.ClientURL(), opts...)
+	if err != nil {
+		t.Fatalf("natstest: connect to %s: %v", s.ClientURL(), err)
+	}
+	t.Cleanup(nc.Close)
+	return nc
+}
