@@ -9,8 +9,9 @@ import (
 	"testing"
 	"time"
 
-	"github.com/nats-io/nats-server/v2/server"
 	"github.com/nats-io/nats.go"
+
+	"modewatch/stream/natsource/natstest"
 )
 
 // natsConn starts a real NATS server in the test process and connects to it.
@@ -22,16 +23,7 @@ func natsConn(t *testing.T) *nats.Conn {
 // natsServer starts a real NATS server in the test process and returns its URL.
 func natsServer(t *testing.T) string {
 	t.Helper()
-	s, err := server.NewServer(&server.Options{Host: "127.0.0.1", Port: -1, NoLog: true, NoSigs: true})
-	if err != nil {
-		t.Fatal(err)
-	}
-	go s.Start()
-	t.Cleanup(s.Shutdown)
-	if !s.ReadyForConnections(5 * time.Second) {
-		t.Fatal("nats server not ready")
-	}
-	return s.ClientURL()
+	return natstest.Start(t).ClientURL()
 }
 
 func connect(t *testing.T, url string) *nats.Conn {

@@ -8,29 +8,16 @@ import (
 	"testing"
 	"time"
 
-	"github.com/nats-io/nats-server/v2/server"
 	"github.com/nats-io/nats.go"
 
 	"modewatch/alerts"
+	"modewatch/stream/natsource/natstest"
 )
 
+// startServer runs a real NATS server in the test process and connects to it.
 func startServer(t *testing.T) *nats.Conn {
 	t.Helper()
-	s, err := server.NewServer(&server.Options{Host: "127.0.0.1", Port: -1, NoLog: true, NoSigs: true})
-	if err != nil {
-		t.Fatal(err)
-	}
-	go s.Start()
-	if !s.ReadyForConnections(5 * time.Second) {
-		t.Fatal("nats server not ready")
-	}
-	t.Cleanup(s.Shutdown)
-	nc, err := nats.Connect(s.ClientURL())
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(nc.Close)
-	return nc
+	return natstest.Connect(t, natstest.Start(t))
 }
 
 // TestResponder sends commands as NATS requests to a real embedded server

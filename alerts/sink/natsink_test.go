@@ -13,35 +13,18 @@ import (
 	"testing"
 	"time"
 
-	"github.com/nats-io/nats-server/v2/server"
 	"github.com/nats-io/nats.go"
 	"github.com/nats-io/nats.go/jetstream"
 	"github.com/santhosh-tekuri/jsonschema/v6"
 
 	"modewatch/alerts"
+	"modewatch/stream/natsource/natstest"
 )
 
 // startServer runs a real NATS server with JetStream in the test process.
 func startServer(t *testing.T) *nats.Conn {
 	t.Helper()
-	s, err := server.NewServer(&server.Options{
-		Host: "127.0.0.1", Port: -1, NoLog: true, NoSigs: true,
-		JetStream: true, StoreDir: t.TempDir(),
-	})
-	if err != nil {
-		t.Fatal(err)
-	}
-	go s.Start()
-	if !s.ReadyForConnections(5 * time.Second) {
-		t.Fatal("nats server not ready")
-	}
-	t.Cleanup(s.Shutdown)
-	nc, err := nats.Connect(s.ClientURL())
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(nc.Close)
-	return nc
+	return natstest.Connect(t, natstest.StartJetStream(t))
 }
 
 // records runs a small scenario through a real engine and returns every

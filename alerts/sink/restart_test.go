@@ -2,38 +2,22 @@ package sink
 
 import (
 	"context"
-	"net"
 	"testing"
 	"time"
 
-	"github.com/nats-io/nats-server/v2/server"
 	"github.com/nats-io/nats.go"
 	"github.com/nats-io/nats.go/jetstream"
-)
 
-func runServer(t *testing.T, port int, store string) *server.Server {
-	t.Helper()
-	s, err := server.NewServer(&server.Options{
-		Host: "127.0.0.1", Port: port, NoLog: true, NoSigs: true, JetStream: true, StoreDir: store,
-	})
-	if err != nil {
-		t.Fatal(err)
-	}
-	go s.Start()
-	if !s.ReadyForConnections(10 * time.Second) {
-		t.Fatal("nats server not ready")
-	}
-	return s
-}
+	"modewatch/stream/natsource/natstest"
+)
 
 // TestServerComesBack: the NATS server goes away while records keep
 // coming; Submit does not block, the records wait in the spool, and when
 // the server is back (same port, same JetStream store) every record
 // reaches the stream once, in order.
 func TestServerComesBack(t *testing.T) {
-	store := t.TempDir()
-	srv := runServer(t, -1, store)
-	port := srv.Addr().(*net.TCPAddr).Port
+	opts := natstest.JetStreamOptions(t)
+	srv := natstest.Run(t, opts)
 	reconnected := make(chan struct{}, 1)
 	nc, err := nats.Connect(srv.ClientURL(), nats.MaxReconnects(-1), nats.ReconnectWait(20*time.Millisecond),
 		nats.ReconnectHandler(func(*nats.Conn) {
@@ -76,8 +60,7 @@ func TestServerComesBack(t *testing.T) {
 		t.Fatalf("while down: %+v", st)
 	}
 
-	srv = runServer(t, port, store)
-	defer srv.Shutdown()
+	srv = natstest.Restart(t, srv, opts)
 	select {
 	case <-reconnected:
 	case <-time.After(10 * time.Second):
