@@ -14,12 +14,12 @@ import (
 	"testing"
 	"time"
 
-	"github.com/nats-io/nats-server/v2/server"
 	"github.com/nats-io/nats.go"
 
 	"modewatch/alerts"
 	"modewatch/cmd/modewatch/internal/pipeline"
 	"modewatch/sim"
+	"modewatch/stream/natsource/natstest"
 )
 
 // TestMain lets the test binary stand in for the modewatch binary: with
@@ -79,21 +79,8 @@ func TestKillRestart(t *testing.T) {
 		t.Skip("starts child processes")
 	}
 	dir := t.TempDir()
-	srv, err := server.NewServer(&server.Options{Host: "127.0.0.1", Port: -1, NoLog: true, NoSigs: true,
-		JetStream: true, StoreDir: filepath.Join(dir, "js")})
-	if err != nil {
-		t.Fatal(err)
-	}
-	go srv.Start()
-	if !srv.ReadyForConnections(10 * time.Second) {
-		t.Fatal("nats server not ready")
-	}
-	t.Cleanup(srv.Shutdown)
-	nc, err := nats.Connect(srv.ClientURL())
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer nc.Close()
+	srv := natstest.StartJetStream(t)
+	nc := natstest.Connect(t, srv)
 	js, _ := nc.JetStream()
 	if _, err := js.AddStream(&nats.StreamConfig{Name: "READINGS", Subjects: []string{"modewatch.readings.>"}, Storage: nats.FileStorage}); err != nil {
 		t.Fatal(err)
