@@ -1,79 +1,30 @@
 package tracker
 
 import (
-	"bufio"
-	"compress/gzip"
 	"fmt"
-	"os"
-	"path/filepath"
-	"strconv"
 	"strings"
 	"testing"
 
 	"modewatch/tracker/modes"
+	"modewatch/tracker/tepdata"
 )
 
-// loadTEP reads a gzip-compressed Tennessee Eastman file from
-// testdata/tep (see testdata/tep/SOURCE.md): whitespace-separated numbers,
-// one observation per line, except d00.dat which is stored transposed
-// (52 lines of 500 values) and is transposed here.
+// loadTEP reads a Tennessee Eastman file through tepdata (the benchmark
+// data in testdata/tep, see SOURCE.md), failing the test on any error.
 func loadTEP(t testing.TB, name string) [][]float64 {
 	t.Helper()
-	f, err := os.Open(filepath.Join("testdata", "tep", name+".gz"))
+	rows, err := tepdata.Load(name)
 	if err != nil {
 		t.Fatal(err)
-	}
-	defer f.Close()
-	gz, err := gzip.NewReader(f)
-	if err != nil {
-		t.Fatal(err)
-	}
-	var rows [][]float64
-	sc := bufio.NewScanner(gz)
-	sc.Buffer(make([]byte, 1<<20), 1<<22)
-	line := 0
-	for sc.Scan() {
-		line++
-		fs := strings.Fields(sc.Text())
-		if len(fs) == 0 {
-			continue
-		}
-		row := make([]float64, len(fs))
-		for i, s := range fs {
-			v, err := strconv.ParseFloat(s, 64)
-			if err != nil {
-				t.Fatalf("%s:%d: field %d: %v", name, line, i+1, err)
-			}
-			row[i] = v
-		}
-		rows = append(rows, row)
-	}
-	if err := sc.Err(); err != nil {
-		t.Fatal(err)
-	}
-	if name == "d00.dat" { // stored 52 × 500
-		tr := make([][]float64, len(rows[0]))
-		for k := range tr {
-			tr[k] = make([]float64, len(rows))
-			for i := range rows {
-				tr[k][i] = rows[i][k]
-			}
-		}
-		rows = tr
-	}
-	for k, r := range rows {
-		if len(r) != 52 {
-			t.Fatalf("%s: observation %d has %d variables, want 52", name, k+1, len(r))
-		}
 	}
 	return rows
 }
 
 // Published PCA detection rates on d01_te … d21_te, samples 161–960
 // (Russell, Chiang & Braatz 2000, Table (PCA); recalled, confirmed by
-// reproduction — testdata/tep/PUBLISHED.md).
-var tepPublishedT2 = [21]float64{.992, .980, .002, .044, .225, .989, .915, .966, .006, .334, .206, .971, .940, .842, .012, .166, .741, .887, .004, .299, .264}
-var tepPublishedQ = [21]float64{.997, .986, .009, .962, .254, 1.000, 1.000, .976, .019, .341, .644, .975, .955, 1.000, .027, .245, .892, .899, .127, .450, .430}
+// reproduction — testdata/tep/PUBLISHED.md), kept in tepdata.
+var tepPublishedT2 = tepdata.PublishedT2
+var tepPublishedQ = tepdata.PublishedQ
 
 type tepResult struct {
 	t2, q, phi [21]float64

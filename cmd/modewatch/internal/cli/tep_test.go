@@ -1,12 +1,9 @@
 package cli
 
 import (
-	"bufio"
-	"compress/gzip"
 	"fmt"
 	"os"
 	"path/filepath"
-	"strconv"
 	"strings"
 	"testing"
 	"time"
@@ -15,80 +12,29 @@ import (
 	"gonum.org/v1/gonum/floats/scalar"
 
 	"modewatch/cmd/modewatch/internal/pipeline"
+	"modewatch/tracker/tepdata"
 )
-
-// tepDir holds the Tennessee Eastman data copied for the tracker tests
-// (see its SOURCE.md, LICENSE and PUBLISHED.md).
-var tepDir = filepath.Join("..", "..", "..", "..", "tracker", "testdata", "tep")
 
 // Published PCA detection rates on d01_te … d21_te, samples 161–960, with
 // 11 components fitted on rows 21–500 of d00.dat and each limit at 1 %
 // false alarms on d00_te.dat (Russell, Chiang & Braatz 2000, Table (PCA);
-// recalled, confirmed by reproduction — tracker/testdata/tep/PUBLISHED.md).
+// recalled, confirmed by reproduction — tracker/testdata/tep/PUBLISHED.md),
+// kept in tepdata.
 var (
-	tepT2 = [21]float64{.992, .980, .002, .044, .225, .989, .915, .966, .006, .334, .206, .971, .940, .842, .012, .166, .741, .887, .004, .299, .264}
-	tepQ  = [21]float64{.997, .986, .009, .962, .254, 1.000, 1.000, .976, .019, .341, .644, .975, .955, 1.000, .027, .245, .892, .899, .127, .450, .430}
+	tepT2 = tepdata.PublishedT2
+	tepQ  = tepdata.PublishedQ
 )
 
 // tepNames are the 52 variables in file order (SOURCE.md, "Format").
-func tepNames() []string {
-	var n []string
-	for i := 1; i <= 41; i++ {
-		n = append(n, fmt.Sprintf("xmeas%02d", i))
-	}
-	for i := 1; i <= 11; i++ {
-		n = append(n, fmt.Sprintf("xmv%02d", i))
-	}
-	return n
-}
+func tepNames() []string { return tepdata.Names() }
 
-// readTEP reads a gzip-compressed .dat file: whitespace-separated numbers,
-// one observation per line, except d00.dat, stored transposed (52 lines of
-// 500 values), which is transposed here.
+// readTEP reads a Tennessee Eastman file from tracker/testdata/tep through
+// tepdata, failing the test on any error.
 func readTEP(t *testing.T, name string) [][]float64 {
 	t.Helper()
-	f, err := os.Open(filepath.Join(tepDir, name+".gz"))
+	rows, err := tepdata.Load(name)
 	if err != nil {
 		t.Fatal(err)
-	}
-	defer f.Close()
-	zr, err := gzip.NewReader(f)
-	if err != nil {
-		t.Fatal(err)
-	}
-	var rows [][]float64
-	sc := bufio.NewScanner(zr)
-	sc.Buffer(make([]byte, 1<<20), 1<<22)
-	for line := 1; sc.Scan(); line++ {
-		fs := strings.Fields(sc.Text())
-		if len(fs) == 0 {
-			continue
-		}
-		row := make([]float64, len(fs))
-		for i, s := range fs {
-			if row[i], err = strconv.ParseFloat(s, 64); err != nil {
-				t.Fatalf("%s:%d: field %d: %v", name, line, i+1, err)
-			}
-		}
-		rows = append(rows, row)
-	}
-	if err := sc.Err(); err != nil {
-		t.Fatal(err)
-	}
-	if name == "d00.dat" {
-		tr := make([][]float64, len(rows[0]))
-		for k := range tr {
-			tr[k] = make([]float64, len(rows))
-			for i := range rows {
-				tr[k][i] = rows[i][k]
-			}
-		}
-		rows = tr
-	}
-	for k, r := range rows {
-		if len(r) != 52 {
-			t.Fatalf("%s: observation %d has %d variables, want 52", name, k+1, len(r))
-		}
 	}
 	return rows
 }
