@@ -107,15 +107,7 @@ var ErrNoData = errors.New("pipeline: no usable line-protocol data in the input"
 // frame. It returns the result even when the input ends in an error, so
 // the caller can report what was processed.
 func Replay(ctx context.Context, opt ReplayOptions) (*ReplayResult, error) {
-	cfg := opt.Config
-	if cfg == nil {
-		cfg = &configs.Config{}
-		cfg.ApplyDefaults()
-	}
-	log := opt.Log
-	if log == nil {
-		log = slog.New(slog.DiscardHandler)
-	}
+	cfg, log := OrDefaults(opt.Config, opt.Log)
 	prec, err := Precision(cfg.Frames.Precision)
 	if err != nil {
 		return nil, err

@@ -69,6 +69,21 @@ type Pipeline struct {
 	stopping bool
 }
 
+// OrDefaults gives the nil Config and Log fields of the options structs
+// (Options, ReplayOptions and the service's) their meaning: it returns cfg,
+// or a Config holding every default when cfg is nil, and log, or a logger
+// that discards every record when log is nil.
+func OrDefaults(cfg *configs.Config, log *slog.Logger) (*configs.Config, *slog.Logger) {
+	if cfg == nil {
+		cfg = &configs.Config{}
+		cfg.ApplyDefaults()
+	}
+	if log == nil {
+		log = slog.New(slog.DiscardHandler)
+	}
+	return cfg, log
+}
+
 // New returns a pipeline. It creates the alarm engine from the alert
 // settings of the configuration.
 func New(opt Options) (*Pipeline, error) {
@@ -78,15 +93,7 @@ func New(opt Options) (*Pipeline, error) {
 	if opt.Period <= 0 {
 		return nil, errors.New("pipeline: frame period not set")
 	}
-	cfg := opt.Config
-	if cfg == nil {
-		cfg = &configs.Config{}
-		cfg.ApplyDefaults()
-	}
-	log := opt.Log
-	if log == nil {
-		log = slog.New(slog.DiscardHandler)
-	}
+	cfg, log := OrDefaults(opt.Config, opt.Log)
 	p := &Pipeline{opt: opt, cfg: cfg, ch: opt.Channels, log: log, byName: map[string]*Unit{}}
 	pub := opt.Publisher
 	if pub == nil {

@@ -106,15 +106,7 @@ type Service struct {
 // Start starts every part of the service and returns once it is serving.
 // Stop it with Shutdown (or cancel ctx and call Wait).
 func Start(ctx context.Context, opt Options) (_ *Service, err error) {
-	cfg := opt.Config
-	if cfg == nil {
-		cfg = &configs.Config{}
-		cfg.ApplyDefaults()
-	}
-	log := opt.Log
-	if log == nil {
-		log = slog.New(slog.DiscardHandler)
-	}
+	cfg, log := pipeline.OrDefaults(opt.Config, opt.Log)
 	if opt.Stdout == nil {
 		opt.Stdout = os.Stdout
 	}
