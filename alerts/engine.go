@@ -490,14 +490,7 @@ func (e *Engine) Observe(o *Observation) error {
 	}
 
 	// Chattering episodes that went quiet; stale alarms; pending flood update.
-	e.checkGroup(u, &u.modelG, t)
-	for _, q := range u.quality {
-		e.checkGroup(u, &q.g, t)
-	}
-	if f := u.flood; f != nil && f.dirty && t.Sub(f.lastPub) >= e.cfg.FloodUpdate {
-		e.publish(f, t)
-	}
-	e.syncFreeze(u, t)
+	e.endTimers(u, t)
 	return bad
 }
 
@@ -533,6 +526,14 @@ func (e *Engine) Tick(unit string, t time.Time) bool {
 		e.expireShelf(u, &q.g, t)
 	}
 	e.checkFloodEnd(u, t)
+	e.endTimers(u, t)
+	return true
+}
+
+// endTimers runs the timers that close a frame at t, and Tick at t, of
+// unit u: chattering episodes that went quiet and stale alarms in every
+// alarm group, then a pending flood revision and the freeze state.
+func (e *Engine) endTimers(u *unit, t time.Time) {
 	e.checkGroup(u, &u.modelG, t)
 	for _, q := range u.quality {
 		e.checkGroup(u, &q.g, t)
@@ -541,7 +542,6 @@ func (e *Engine) Tick(unit string, t time.Time) bool {
 		e.publish(f, t)
 	}
 	e.syncFreeze(u, t)
-	return true
 }
 
 // LastFrame returns the frame time of unit's latest observation (zero if
