@@ -36,15 +36,9 @@ func runFit(ctx context.Context, env IO, args []string) error {
 	fs.Var(&inputs, "input", "line-protocol `FILE` of normal operation (repeatable; also as arguments; - is stdin)")
 	fs.StringVar(&outPath, "out", "", "write the model to `MODEL` (required)")
 	fs.BoolVar(&asJSON, "json", false, "print the learned modes and limits as JSON on standard output")
-	fs.BoolVar(&out.quiet, "quiet", false, "print only errors on standard error")
-	fs.IntVar(&out.maxErrs, "max-errors", 20, "print at most `N` bad lines (all are counted)")
-	pos, err := parseAll(fs, args)
-	if err != nil {
+	out.register(fs)
+	if err := parseInputs(fs, args, &inputs); err != nil {
 		return err
-	}
-	inputs = append(inputs, pos...)
-	if len(inputs) == 0 {
-		return usagef("no input: give --input FILE (or - for standard input)")
 	}
 	if outPath == "" {
 		return usagef("--out MODEL is required")

@@ -5,6 +5,7 @@ import (
 	"context"
 	"encoding/json"
 	"errors"
+	"flag"
 	"fmt"
 	"io"
 	"log/slog"
@@ -77,6 +78,28 @@ type runOutputs struct {
 	progress string
 }
 
+// register adds the flags of the error output that fit and replay share:
+// --quiet and --max-errors.
+func (o *runOutputs) register(fs *flag.FlagSet) {
+	fs.BoolVar(&o.quiet, "quiet", false, "print only errors on standard error")
+	fs.IntVar(&o.maxErrs, "max-errors", 20, "print at most `N` bad lines (all are counted)")
+}
+
+// parseInputs parses args into fs and appends the positional arguments
+// to inputs, the --input files of fit and replay (registered on fs). No
+// input at all is a usage error.
+func parseInputs(fs *flag.FlagSet, args []string, inputs *listFlag) error {
+	pos, err := parseAll(fs, args)
+	if err != nil {
+		return err
+	}
+	*inputs = append(*inputs, pos...)
+	if len(*inputs) == 0 {
+		return usagef("no input: give --input FILE (or - for standard input)")
+	}
+	return nil
+}
+
 func runReplay(ctx context.Context, env IO, args []string) error {
 	fs := newFlags(env, "replay", "--input FILE... [--model MODEL] [--truth FILE] [--scores FILE] [--alerts FILE] [--json]", replayHelp)
 	var mf modelFlags
@@ -95,15 +118,9 @@ func runReplay(ctx context.Context, env IO, args []string) error {
 	fs.BoolVar(&asJSON, "json", false, "print a JSON summary on standard output")
 	var reportDir string
 	fs.StringVar(&reportDir, "report", "", "write a self-contained HTML report with SVG charts into `DIR` (DIR/index.html)")
-	fs.BoolVar(&out.quiet, "quiet", false, "print only errors on standard error")
-	fs.IntVar(&out.maxErrs, "max-errors", 20, "print at most `N` bad lines (all are counted)")
-	pos, err := parseAll(fs, args)
-	if err != nil {
+	out.register(fs)
+	if err := parseInputs(fs, args, &inputs); err != nil {
 		return err
-	}
-	inputs = append(inputs, pos...)
-	if len(inputs) == 0 {
-		return usagef("no input: give --input FILE (or - for standard input)")
 	}
 	cfg, err := mf.load(fs)
 	if err != nil {
