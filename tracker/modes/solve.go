@@ -674,14 +674,10 @@ func (ws *Workspace) oracle(sp Sparsity, eps, f float64) (gap float64, ok bool) 
 				ws.us = append(ws.us, i)
 			}
 		}
-		if n == 0 {
+		if n, ok = normalizeSupport(u, ws.us, n); !ok {
 			return 0, false
 		}
-		n = math.Sqrt(n)
 		ws.lastNormI = n
-		for _, i := range ws.us {
-			u[i] /= n
-		}
 		return math.NaN(), true
 	case L1Pen, L1PenSqrt, LogPen, ExpPen:
 		tau := sp.Gamma / 2
@@ -705,12 +701,8 @@ func (ws *Workspace) oracle(sp Sparsity, eps, f float64) (gap float64, ok bool) 
 				ws.us = append(ws.us, i)
 			}
 		}
-		if n == 0 {
+		if n, ok = normalizeSupport(u, ws.us, n); !ok {
 			return 0, false
-		}
-		n = math.Sqrt(n)
-		for _, i := range ws.us {
-			u[i] /= n
 		}
 		if sp.Method == L1PenSqrt {
 			// F = √f − γ‖x‖₁: gap = ‖S_{γ√f}(Ax)‖/√f − √f + γ‖x‖₁.
@@ -897,14 +889,29 @@ func (ws *Workspace) l1Step(s float64) (float64, bool) {
 			ws.us = append(ws.us, i)
 		}
 	}
-	if n == 0 {
+	n, ok := normalizeSupport(u, ws.us, n)
+	if !ok {
 		return 0, false
 	}
-	n = math.Sqrt(n)
-	for _, i := range ws.us {
+	return n + lambda*s, true
+}
+
+// normalizeSupport makes u a unit vector when it is zero outside the
+// indices us and n2 = Σ_{i∈us} u_i²:
+//
+//	u_i ← u_i / √n2  for i ∈ us
+//
+// It returns √n2, or 0 and false for an empty support (n2 = 0), leaving u
+// unchanged.
+func normalizeSupport(u []float64, us []int, n2 float64) (float64, bool) {
+	if n2 == 0 {
+		return 0, false
+	}
+	n := math.Sqrt(n2)
+	for _, i := range us {
 		u[i] /= n
 	}
-	return n + lambda*s, true
+	return n, true
 }
 
 // refit replaces ws.x by the leading eigenvector of A_t restricted to the
