@@ -143,6 +143,21 @@ func TestRho07Model(t *testing.T) {
 	}
 }
 
+// toCorrelation scales the covariance s in place to its correlation
+// matrix: s_ij ← s_ij / √(s_ii s_jj).
+func toCorrelation(s *mat.SymDense) {
+	p := s.SymmetricDim()
+	d := make([]float64, p)
+	for i := range d {
+		d[i] = 1 / math.Sqrt(s.At(i, i))
+	}
+	for i := 0; i < p; i++ {
+		for j := i; j < p; j++ {
+			s.SetSym(i, j, s.At(i, j)*d[i]*d[j])
+		}
+	}
+}
+
 // randomModel: a seeded correlated covariance (k factors + noise) and its
 // leading eigenvectors (gonum EigenSym as the reference) or sparse
 // non-orthogonal loadings.
@@ -158,16 +173,7 @@ func randomCov(rng *rand.Rand, p, k int) *mat.SymDense {
 	for i := 0; i < p; i++ {
 		s.SetSym(i, i, s.At(i, i)+0.2+0.3*rng.Float64())
 	}
-	// to a correlation matrix
-	d := make([]float64, p)
-	for i := range d {
-		d[i] = 1 / math.Sqrt(s.At(i, i))
-	}
-	for i := 0; i < p; i++ {
-		for j := i; j < p; j++ {
-			s.SetSym(i, j, s.At(i, j)*d[i]*d[j])
-		}
-	}
+	toCorrelation(s)
 	return s
 }
 

@@ -270,15 +270,7 @@ func fiftyChannelModel(kind int) *mat.SymDense {
 	for i := 0; i < p; i++ {
 		s.SetSym(i, i, s.At(i, i)+noise[i])
 	}
-	d := make([]float64, p)
-	for i := range d {
-		d[i] = 1 / math.Sqrt(s.At(i, i))
-	}
-	for i := 0; i < p; i++ {
-		for j := i; j < p; j++ {
-			s.SetSym(i, j, s.At(i, j)*d[i]*d[j])
-		}
-	}
+	toCorrelation(s)
 	return s
 }
 
@@ -308,15 +300,7 @@ func mixedSensorModel(k int, comm float64, maxPer int, seed uint64) *mat.SymDens
 	for i := 0; i < p; i++ {
 		c.SetSym(i, i, c.At(i, i)+noise[i])
 	}
-	d := make([]float64, p)
-	for i := range d {
-		d[i] = 1 / math.Sqrt(c.At(i, i))
-	}
-	for i := 0; i < p; i++ {
-		for j := i; j < p; j++ {
-			c.SetSym(i, j, c.At(i, j)*d[i]*d[j])
-		}
-	}
+	toCorrelation(c)
 	return c
 }
 

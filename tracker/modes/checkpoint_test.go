@@ -2,6 +2,7 @@ package modes
 
 import (
 	"errors"
+	"slices"
 	"testing"
 )
 
@@ -25,7 +26,7 @@ func TestCheckpointRoundTrip(t *testing.T) {
 	}
 	for j := 0; j < tr.Count(); j++ {
 		m, r := tr.Mode(j), rt.Mode(j)
-		if m.ID != r.ID || !sameInts(m.Support, r.Support) || !sameFloats(m.Loadings, r.Loadings) ||
+		if m.ID != r.ID || !slices.Equal(m.Support, r.Support) || !slices.Equal(m.Loadings, r.Loadings) ||
 			m.Variance != r.Variance || m.AdjustedVariance != r.AdjustedVariance || m.Iterations != r.Iterations ||
 			m.Converged != r.Converged || m.DeflatedVariance != r.DeflatedVariance {
 			t.Errorf("mode %d: restored %+v, want %+v", j, r, m)
@@ -84,7 +85,7 @@ func TestCheckpointCorrupt(t *testing.T) {
 		if !errors.Is(err, ErrCheckpoint) {
 			t.Errorf("%s: error %v, want ErrCheckpoint", name, err)
 		}
-		if rt.Count() != 2 || !sameFloats(rt.Mode(0).Loadings, before) {
+		if rt.Count() != 2 || !slices.Equal(rt.Mode(0).Loadings, before) {
 			t.Errorf("%s: tracker changed by a failed restore", name)
 		}
 	}

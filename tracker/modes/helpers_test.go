@@ -131,18 +131,6 @@ func support(x []float64) []int {
 	return s
 }
 
-func sameInts(a, b []int) bool {
-	if len(a) != len(b) {
-		return false
-	}
-	for i := range a {
-		if a[i] != b[i] {
-			return false
-		}
-	}
-	return true
-}
-
 // spiked is a spiked sparse covariance model: r latent factors, factor f
 // driving the k channels supports[f] with unit loadings v_f, plus unit
 // white noise:

@@ -3,6 +3,7 @@ package modes
 import (
 	"fmt"
 	"math"
+	"slices"
 	"testing"
 
 	"gonum.org/v1/gonum/floats/scalar"
@@ -58,7 +59,7 @@ func TestPitpropsL0(t *testing.T) {
 				t.Errorf("card %d, want %d", res.Card, c.k)
 			}
 			if c.support != nil {
-				if got, want := support(x), pitpropsIndex(t, c.support...); !sameInts(got, want) {
+				if got, want := support(x), pitpropsIndex(t, c.support...); !slices.Equal(got, want) {
 					t.Errorf("support %v, want %v (%v)", got, want, c.support)
 				}
 			}

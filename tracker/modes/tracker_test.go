@@ -4,6 +4,7 @@ import (
 	"errors"
 	"math"
 	"math/rand/v2"
+	"slices"
 	"testing"
 
 	"gonum.org/v1/gonum/floats/scalar"
@@ -52,7 +53,7 @@ func TestSpikedRecovery(t *testing.T) {
 			for f, want := range m.supports {
 				found := false
 				for j := 0; j < 3; j++ {
-					if !used[j] && sameInts(tr.Mode(j).Support, want) {
+					if !used[j] && slices.Equal(tr.Mode(j).Support, want) {
 						used[j], found = true, true
 						break
 					}
@@ -314,7 +315,7 @@ func TestTrackerErrorsKeepState(t *testing.T) {
 		if err := tr.Refresh(c.a); !errors.Is(err, c.want) {
 			t.Errorf("%s: error %v, want %v", c.name, err, c.want)
 		}
-		if tr.Count() != 2 || !sameFloats(tr.Mode(0).Loadings, want) {
+		if tr.Count() != 2 || !slices.Equal(tr.Mode(0).Loadings, want) {
 			t.Fatalf("%s: state changed after the error", c.name)
 		}
 	}
@@ -488,18 +489,6 @@ func TestNewTrackerErrors(t *testing.T) {
 	}
 }
 
-func sameFloats(a, b []float64) bool {
-	if len(a) != len(b) {
-		return false
-	}
-	for i := range a {
-		if a[i] != b[i] {
-			return false
-		}
-	}
-	return true
-}
-
 // TestTrackerWarmEmptyFallsBackCold: a penalty that empties the warm start
 // (its group went quiet) does not end the extraction; the cold start finds
 // the group that is active now. With γ = 1.5 the squared ℓ1 threshold is
@@ -511,7 +500,7 @@ func TestTrackerWarmEmptyFallsBackCold(t *testing.T) {
 	if err := tr.Refresh(twoGroups(p, 5, 3)); err != nil {
 		t.Fatal(err)
 	}
-	if got := tr.Mode(0).Support; !sameInts(got, []int{0, 1, 2}) {
+	if got := tr.Mode(0).Support; !slices.Equal(got, []int{0, 1, 2}) {
 		t.Fatalf("first refresh: support %v, want [0 1 2]", got)
 	}
 	if err := tr.Refresh(twoGroups(p, 0, 5)); err != nil {
@@ -520,7 +509,7 @@ func TestTrackerWarmEmptyFallsBackCold(t *testing.T) {
 	if tr.Count() != 1 {
 		t.Fatalf("%d modes after the warm start emptied", tr.Count())
 	}
-	if m := tr.Mode(0); !sameInts(m.Support, []int{5, 6, 7, 8}) || !m.Cold {
+	if m := tr.Mode(0); !slices.Equal(m.Support, []int{5, 6, 7, 8}) || !m.Cold {
 		t.Errorf("second refresh: support %v cold %v, want [5 6 7 8] from the cold start", m.Support, m.Cold)
 	}
 }
@@ -553,7 +542,7 @@ func TestWarmMatchesCold(t *testing.T) {
 			}
 			for j := 0; j < cold.Count(); j++ {
 				w, c := warm.Mode(j), cold.Mode(j)
-				if !sameInts(w.Support, c.Support) || !scalar.EqualWithinAbsOrRel(w.Variance, c.Variance, 1e-6, 1e-6) {
+				if !slices.Equal(w.Support, c.Support) || !scalar.EqualWithinAbsOrRel(w.Variance, c.Variance, 1e-6, 1e-6) {
 					t.Errorf("%v %v mode %d: warm %v %.10f, cold %v %.10f", sp, d, j, w.Support, w.Variance, c.Support, c.Variance)
 				}
 			}
