@@ -18,12 +18,7 @@ import (
 // token, ">" one or more trailing tokens.
 func TestCoreWildcardSubjects(t *testing.T) {
 	checkNoLeak(t)
-	s := natstest.StartJetStream(t)
-	c, err := Connect(ctxT(t, 5*time.Second), Options{URLs: []string{s.ClientURL()}}, nil)
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer drainConn(t, c)
+	c := connectLocal(t)
 
 	var (
 		mu  sync.Mutex
@@ -180,12 +175,7 @@ func TestCoreOverflowBounded(t *testing.T) {
 // TestCoreOverflowBytes checks the byte bound of the queue.
 func TestCoreOverflowBytes(t *testing.T) {
 	checkNoLeak(t)
-	s := natstest.StartJetStream(t)
-	c, err := Connect(ctxT(t, 5*time.Second), Options{URLs: []string{s.ClientURL()}}, nil)
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer drainConn(t, c)
+	c := connectLocal(t)
 	release := make(chan struct{})
 	var releaseOnce sync.Once
 	defer releaseOnce.Do(func() { close(release) })

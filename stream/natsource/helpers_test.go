@@ -6,6 +6,8 @@ import (
 	"strings"
 	"testing"
 	"time"
+
+	"modewatch/stream/natsource/natstest"
 )
 
 // checkNoLeak records the goroutine count now and, at the end of the test
@@ -79,6 +81,19 @@ func (r *eventRecorder) wait(t *testing.T, k EventKind, d time.Duration) Event {
 			t.Fatalf("no %v event within %v", k, d)
 		}
 	}
+}
+
+// connectLocal starts a server with JetStream for the test and returns a
+// connection to it, drained when the test ends (before the server stops).
+func connectLocal(t *testing.T) *Conn {
+	t.Helper()
+	s := natstest.StartJetStream(t)
+	c, err := Connect(ctxT(t, 5*time.Second), Options{URLs: []string{s.ClientURL()}}, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { drainConn(t, c) })
+	return c
 }
 
 func drainConn(t *testing.T, c *Conn) {

@@ -488,12 +488,7 @@ func TestServerRestartReconnect(t *testing.T) {
 // new messages as duplicates; so are incomplete configurations.
 func TestJetStreamCheckpointAhead(t *testing.T) {
 	checkNoLeak(t)
-	s := natstest.StartJetStream(t)
-	c, err := Connect(ctxT(t, 5*time.Second), Options{URLs: []string{s.ClientURL()}}, nil)
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer drainConn(t, c)
+	c := connectLocal(t)
 	h := func(Msg) error { return nil }
 	cons, err := c.ConsumeJetStream(ctxT(t, 5*time.Second), JetStreamConfig{Stream: "A", Durable: "d", CreateStream: true, StreamSubjects: []string{"a"}}, h)
 	if err != nil {
