@@ -39,6 +39,22 @@ func benchPayload(nFields, nLines int) ([]byte, int) {
 
 var benchSink float64
 
+// warmIntake returns an intake with a one-second frame period whose frames
+// feed benchSink, warmed up by one Feed of payload with its timestamps
+// moved to start at base: the channels are discovered before the timer.
+func warmIntake(b *testing.B, payload []byte, base time.Time) (*Intake, *Channels) {
+	b.Helper()
+	ch, _ := NewChannels(nil, 0)
+	in, err := NewIntake(ch, Options{Align: AlignConfig{Period: time.Second}, Log: quiet},
+		func(f *Frame) error { benchSink += f.Values[0]; return nil })
+	if err != nil {
+		b.Fatal(err)
+	}
+	shiftTimes(payload, base)
+	in.Feed("bench", payload)
+	return in, ch
+}
+
 // BenchmarkIntake measures decode + map + align (Intake.Feed) against a bare
 // loop over the same input that only decodes it with the official decoder
 // and parses every value (Decoder.NextField, Decoder.Time). Each op is one
@@ -50,15 +66,8 @@ func BenchmarkIntake(b *testing.B) {
 		payload, nValues := benchPayload(nf, nLines)
 		base := t0 // timestamps of payload start here; only ever moved forward
 		b.Run(fmt.Sprintf("fields=%d/intake", nf), func(b *testing.B) {
-			ch, _ := NewChannels(nil, 0)
-			in, err := NewIntake(ch, Options{Align: AlignConfig{Period: time.Second}, Log: quiet},
-				func(f *Frame) error { benchSink += f.Values[0]; return nil })
-			if err != nil {
-				b.Fatal(err)
-			}
 			base = base.Add(time.Duration(nLines/4) * time.Second)
-			shiftTimes(payload, base)
-			in.Feed("bench", payload) // warm-up: discovers the channels
+			in, ch := warmIntake(b, payload, base)
 			if in.Stats().Rejected() != 0 || ch.Len() != 4*nf {
 				b.Fatalf("warm-up: %+v, %d channels", in.Stats(), ch.Len())
 			}
@@ -152,15 +161,8 @@ func BenchmarkIntakeRatio(b *testing.B) {
 		payload, nValues := benchPayload(nf, nLines)
 		base := t0
 		b.Run(fmt.Sprintf("fields=%d", nf), func(b *testing.B) {
-			ch, _ := NewChannels(nil, 0)
-			in, err := NewIntake(ch, Options{Align: AlignConfig{Period: time.Second}, Log: quiet},
-				func(f *Frame) error { benchSink += f.Values[0]; return nil })
-			if err != nil {
-				b.Fatal(err)
-			}
 			base = base.Add(time.Duration(nLines/4) * time.Second)
-			shiftTimes(payload, base)
-			in.Feed("bench", payload)
+			in, _ := warmIntake(b, payload, base)
 			var bare, intake time.Duration
 			b.ResetTimer()
 			for i := 0; i < b.N; i++ {
