@@ -3,6 +3,7 @@ package cli
 import (
 	"bytes"
 	"context"
+	_ "embed"
 	"errors"
 	"fmt"
 	"io"
@@ -23,6 +24,7 @@ import (
 	"modewatch/cmd/modewatch/internal/service"
 	"modewatch/configs"
 	"modewatch/sim"
+	"modewatch/stream"
 )
 
 func init() {
@@ -38,21 +40,70 @@ with seven labelled faults, in live mode at a speed-up. A compact summary
 shows, per unit, T² and SPE against their limits and the open alerts with
 their top sensors. At the end the alerts are scored against the labels.
 
+The model and alarm settings are those of configs/demo.yaml (embedded in
+the binary; the first lines of the output name them). They were found with
+"modewatch tune" on this demo's own labelled log, so they are tuned on
+known, invented incidents, not certified for any plant.
+
 Needs no configuration and no network. Data (model, checkpoints, spool)
 goes to a temporary directory unless --data-dir is given. The data is
 invented. modewatch is advisory: it never acts on the plant.`
 
+// demoYAML is the demo's service configuration, configs/demo.yaml (the
+// copy embedded here is kept identical by TestDemoConfigCopyIdentical; the
+// package cannot embed a file outside its directory). Its model and alarm
+// settings were found with "modewatch tune" on the demo's own labelled log.
+//
+//go:embed demo.yaml
+var demoYAML []byte
+
+// demoConfigName is the name demo configuration problems are reported under.
+const demoConfigName = "configs/demo.yaml"
+
+// demoConfig returns the demo's configuration (configs/demo.yaml) with the
+// HTTP API on listen (another free port if it is taken) and data in dataDir.
+func demoConfig(listen, dataDir string) (*configs.Config, error) {
+	cfg, err := configs.Parse(demoConfigName, demoYAML)
+	if err != nil {
+		return nil, fmt.Errorf("the embedded demo configuration: %w", err)
+	}
+	cfg.HTTP.Listen = freeListen(listen)
+	cfg.DataDir = dataDir
+	return cfg, nil
+}
+
+// demoSettings describes the model and alarm settings of cfg in one line.
+func demoSettings(cfg *configs.Config) string {
+	return fmt.Sprintf("sparsity %s, modes %s, α = %g per frame, alarm after %d of %d frames over a limit, off-delay %s",
+		cfg.Model.Sparsity, cfg.Model.Modes, cfg.Model.Alpha, cfg.Alerts.OnDelay.N, cfg.Alerts.OnDelay.M, cfg.Alerts.OffDelay)
+}
+
+// demoOptions are the demo's flags.
+type demoOptions struct {
+	duration time.Duration // wall clock; 0: until the two days are sent
+	listen   string
+	dataDir  string // "" for a temporary directory
+	speed    float64
+	quiet    bool
+}
+
+// demoOutcome is what a demo run measured, for tests.
+type demoOutcome struct {
+	metrics    evaluate.Metrics // the alerts against the labelled faults that started
+	span       time.Duration    // event time scored
+	frames     uint64           // frames scored per unit
+	linesSent  uint64           // line-protocol lines the simulator published
+	linesTaken uint64           // of them, lines the service received
+}
+
 func runDemo(ctx context.Context, env IO, args []string) error {
 	fs := newFlags(env, "demo", "[--duration D] [--listen ADDR] [--speed X]", demoHelp)
-	var duration time.Duration
-	var listen, dataDir string
-	var speed float64
-	var quiet bool
-	fs.DurationVar(&duration, "duration", 0, "stop after this long (wall clock); default: when the two simulated days have been sent")
-	fs.StringVar(&listen, "listen", configs.DefaultListen, "`ADDR` of the HTTP API (another free port is used if it is taken)")
-	fs.Float64Var(&speed, "speed", 1440, "simulated seconds per second (1440: a day per minute)")
-	fs.StringVar(&dataDir, "data-dir", "", "keep the demo's data in `DIR` instead of a temporary directory")
-	fs.BoolVar(&quiet, "quiet", false, "no live summary, only the final report")
+	var opt demoOptions
+	fs.DurationVar(&opt.duration, "duration", 0, "stop after this long (wall clock); default: when the two simulated days have been sent")
+	fs.StringVar(&opt.listen, "listen", configs.DefaultListen, "`ADDR` of the HTTP API (another free port is used if it is taken)")
+	fs.Float64Var(&opt.speed, "speed", 1440, "simulated seconds per second (1440: a day per minute)")
+	fs.StringVar(&opt.dataDir, "data-dir", "", "keep the demo's data in `DIR` instead of a temporary directory")
+	fs.BoolVar(&opt.quiet, "quiet", false, "no live summary, only the final report")
 	pos, err := parseAll(fs, args)
 	if err != nil {
 		return err
@@ -60,58 +111,68 @@ func runDemo(ctx context.Context, env IO, args []string) error {
 	if len(pos) > 0 {
 		return usagef("unexpected arguments %q", pos)
 	}
-	if !(speed > 0) {
+	if !(opt.speed > 0) {
 		return usagef("--speed must be above 0")
 	}
-	if duration < 0 {
+	if opt.duration < 0 {
 		return usagef("--duration must not be negative")
 	}
+	_, err = runDemoWith(ctx, env, opt)
+	return err
+}
+
+// runDemoWith runs the demo with parsed options and returns what it
+// measured (also printed on env.Out).
+func runDemoWith(ctx context.Context, env IO, opt demoOptions) (demoOutcome, error) {
+	var oc demoOutcome
+	dataDir := opt.dataDir
 	if dataDir == "" {
 		dir, err := os.MkdirTemp("", "modewatch-demo-")
 		if err != nil {
-			return err
+			return oc, err
 		}
 		defer os.RemoveAll(dir)
 		dataDir = dir
 	}
+	cfg, err := demoConfig(opt.listen, dataDir)
+	if err != nil {
+		return oc, err
+	}
+	sc, err := sim.Demo()
+	if err != nil {
+		return oc, err
+	}
+	if cfg.Frames.Period != sc.Period {
+		return oc, fmt.Errorf("%s: frames.period %s differs from the demo plant's sample period %s", demoConfigName, cfg.Frames.Period, sc.Period)
+	}
 	w := env.Out
 	fmt.Fprintln(w, "modewatch demo: an invented plant (4 units, 50 channels), simulated; no real equipment is involved.")
 	fmt.Fprintln(w, service.Caution)
+	fmt.Fprintf(w, "settings (%s): %s.\n", demoConfigName, demoSettings(cfg))
+	fmt.Fprintln(w, "  They were found with \"modewatch tune\" on this demo's own labelled log: tuned on known, invented")
+	fmt.Fprintln(w, "  incidents, so expect them to look good here; they are a starting point, not certified for any plant.")
 	fmt.Fprintln(w)
 
-	sc, err := sim.Demo()
-	if err != nil {
-		return err
-	}
 	// 1. Learn normal operation from the first, fault-free day.
 	day1 := sc.Clone()
 	day1.Duration = 24 * time.Hour
 	var buf bytes.Buffer
 	if err := day1.WriteLineProtocol(&buf); err != nil {
-		return err
+		return oc, err
 	}
-	cfg := &configs.Config{
-		Frames:             configs.Frames{Period: sc.Period},
-		Server:             configs.Server{EmbeddedPort: -1},
-		HTTP:               configs.HTTP{Listen: freeListen(listen)},
-		DataDir:            dataDir,
-		CheckpointInterval: time.Minute,
-		Log:                configs.Log{Level: "warn"},
-	}
-	cfg.ApplyDefaults()
 	log := newLogger(env.Err, cfg, true)
 	fitStart := time.Now()
 	res, err := pipeline.Replay(ctx, pipeline.ReplayOptions{Config: cfg, Inputs: []string{"-"}, Stdin: &buf, Fit: true, Log: log})
 	if err != nil {
-		return fmt.Errorf("fitting the first day: %w", err)
+		return oc, fmt.Errorf("fitting the first day: %w", err)
 	}
 	model, err := res.Pipeline.Baseline()
 	if err != nil {
-		return fmt.Errorf("fitting the first day: %w", err)
+		return oc, fmt.Errorf("fitting the first day: %w", err)
 	}
 	modelPath := filepath.Join(dataDir, "demo-model.json")
 	if err := pipeline.WriteModel(modelPath, model); err != nil {
-		return err
+		return oc, err
 	}
 	nModes := 0
 	for _, u := range model.Units {
@@ -125,7 +186,7 @@ func runDemo(ctx context.Context, env IO, args []string) error {
 	board := newBoard()
 	svc, err := service.Start(ctx, service.Options{Config: cfg, Log: log, Stdout: io.Discard, OnScore: board.score})
 	if err != nil {
-		return err
+		return oc, err
 	}
 	defer func() {
 		sctx, cancel := context.WithTimeout(context.Background(), cfg.ShutdownTimeout)
@@ -144,27 +205,31 @@ func runDemo(ctx context.Context, env IO, args []string) error {
 	live.Duration = sc.Duration - 24*time.Hour
 	nc, err := nats.Connect(info.NATS, nats.Name("modewatch-demo-plant"))
 	if err != nil {
-		return err
+		return oc, err
 	}
 	defer nc.Close()
 	fmt.Fprintf(w, "3. publishing %s of simulated plant (%s to %s, 7 labelled faults) at %gx", live.Duration,
-		live.Start.Format("Jan 2 15:04"), live.End().Format("Jan 2 15:04"), speed)
-	if duration > 0 {
-		fmt.Fprintf(w, " for %s", duration)
+		live.Start.Format("Jan 2 15:04"), live.End().Format("Jan 2 15:04"), opt.speed)
+	if opt.duration > 0 {
+		fmt.Fprintf(w, " for %s", opt.duration)
 	}
 	fmt.Fprintf(w, "; Ctrl-C stops\n\n")
 
 	runCtx, cancel := context.WithCancel(ctx)
 	defer cancel()
-	if duration > 0 {
+	if opt.duration > 0 {
 		var c2 context.CancelFunc
-		runCtx, c2 = context.WithTimeout(runCtx, duration)
+		runCtx, c2 = context.WithTimeout(runCtx, opt.duration)
 		defer c2()
 	}
-	liveErr := make(chan error, 1)
+	type liveResult struct {
+		st  sim.LiveStats
+		err error
+	}
+	liveDone := make(chan liveResult, 1)
 	go func() {
-		_, err := live.Live(runCtx, nc, "modewatch", speed)
-		liveErr <- err
+		st, err := live.Live(runCtx, nc, cfg.Server.Prefix, opt.speed)
+		liveDone <- liveResult{st, err}
 	}()
 	tty := false
 	if f, ok := env.Out.(*os.File); ok && term.IsTerminal(int(f.Fd())) {
@@ -178,17 +243,19 @@ func runDemo(ctx context.Context, env IO, args []string) error {
 	}
 	n := 0
 	lines := 0
+	var sent sim.LiveStats
 loop:
 	for {
 		select {
-		case err := <-liveErr:
-			if err != nil && !errors.Is(err, context.Canceled) && !errors.Is(err, context.DeadlineExceeded) {
-				return err
+		case r := <-liveDone:
+			if r.err != nil && !errors.Is(r.err, context.Canceled) && !errors.Is(r.err, context.DeadlineExceeded) {
+				return oc, r.err
 			}
+			sent = r.st
 			break loop
 		case <-tick.C:
 			n++
-			if quiet || n%every != 0 {
+			if opt.quiet || n%every != 0 {
 				continue
 			}
 			text := board.render(svc.Records())
@@ -199,9 +266,15 @@ loop:
 			lines = strings.Count(text, "\n")
 		}
 	}
-	// Let the service score what it has received.
-	time.Sleep(300 * time.Millisecond)
-	if !quiet {
+	// Let the service score what it has received: every line sent (one
+	// per asset and sample), or until it stops making progress.
+	assets := 0
+	for _, u := range live.Units {
+		assets += len(u.Assets)
+	}
+	oc.linesSent = uint64(sent.Samples) * uint64(assets)
+	oc.linesTaken = waitIntake(ctx, svc.Intake(), oc.linesSent)
+	if !opt.quiet {
 		if tty && lines > 0 {
 			fmt.Fprintf(w, "\x1b[%dA\x1b[J", lines)
 		}
@@ -210,7 +283,12 @@ loop:
 
 	// 4. Report against the labels.
 	frames, first, last := svc.Pipeline().Frames()
+	oc.frames = frames
 	fmt.Fprintf(w, "\n4. scored %d frames per unit (%s to %s)\n", frames, first.Format("Jan 2 15:04"), last.Format("Jan 2 15:04"))
+	if oc.linesTaken < oc.linesSent {
+		fmt.Fprintf(w, "   the service received %d of the %d lines sent: it could not keep up at %gx (try a lower --speed)\n",
+			oc.linesTaken, oc.linesSent, opt.speed)
+	}
 	recs := svc.Records()
 	var eps []evaluate.Episode
 	for _, e := range live.Truth().Episodes {
@@ -229,10 +307,14 @@ loop:
 		}
 		al = append(al, a)
 	}
-	span := last.Sub(first) + sc.Period
-	m := evaluate.Compute(al, eps, span, evaluate.DefaultGrace)
+	oc.span = last.Sub(first) + sc.Period
+	m := evaluate.Compute(al, eps, oc.span, evaluate.DefaultGrace)
+	oc.metrics = m
 	fmt.Fprintf(w, "   %d alerts; labelled faults started so far: %d, detected %d, isolated in the top 3: %d; false alerts %d",
 		len(recs), m.Episodes, m.Detected, m.IsolatedTop3, m.FalseAlerts)
+	if m.FalseAlertsPerDay != nil {
+		fmt.Fprintf(w, " (%.2f per simulated day)", *m.FalseAlertsPerDay)
+	}
 	if m.MedianDelayS != nil {
 		fmt.Fprintf(w, "; median delay %s", (time.Duration(*m.MedianDelayS) * time.Second).String())
 	}
@@ -248,11 +330,34 @@ loop:
 		}
 		fmt.Fprintf(w, "   %-20s %-9s %-36s %s\n", e.ID, e.Kind, strings.Join(e.Channels, ","), status)
 	}
-	fmt.Fprintln(w, "\nThe same plant offline: modewatch sim --out demo; modewatch sim --duration 24h --out demo-day1;")
-	fmt.Fprintln(w, "  modewatch fit --out demo/model.json demo-day1/readings.lp;")
-	fmt.Fprintln(w, "  modewatch replay --model demo/model.json --truth demo/truth.json demo/readings.lp")
+	fmt.Fprintf(w, "\nThese settings came from \"modewatch tune\" on this same labelled log; on a real plant, tune on your own\n")
+	fmt.Fprintf(w, "recorded incidents. The same plant offline, with the same settings (%s):\n", demoConfigName)
+	fmt.Fprintln(w, "  modewatch sim --out demo; modewatch sim --duration 24h --out demo-day1;")
+	fmt.Fprintf(w, "  modewatch fit --config %s --out demo/model.json demo-day1/readings.lp;\n", demoConfigName)
+	fmt.Fprintf(w, "  modewatch replay --config %s --model demo/model.json --truth demo/truth.json demo/readings.lp\n", demoConfigName)
 	fmt.Fprintln(w, service.Caution)
-	return nil
+	return oc, nil
+}
+
+// waitIntake waits until in has received want lines, or has received none
+// for two seconds, or ctx is done, and returns the lines received. Then it
+// gives the frame goroutine a moment to score the last frames.
+func waitIntake(ctx context.Context, in *stream.Intake, want uint64) uint64 {
+	const poll = 50 * time.Millisecond
+	got := in.Stats().Lines
+	idle := time.Duration(0)
+	for got < want && idle < 2*time.Second && ctx.Err() == nil {
+		time.Sleep(poll)
+		now := in.Stats().Lines
+		if now == got {
+			idle += poll
+		} else {
+			idle = 0
+		}
+		got = now
+	}
+	time.Sleep(300 * time.Millisecond)
+	return got
 }
 
 // freeListen returns addr if it can be listened on, else the same host

@@ -1,13 +1,23 @@
 package cli
 
 import (
+	"bytes"
+	"context"
+	"math"
+	"os"
+	"path/filepath"
 	"strings"
 	"testing"
+	"time"
+
+	"modewatch/cmd/modewatch/internal/service"
+	"modewatch/configs"
 )
 
 // TestDemoRuns: the demo needs no configuration and no network (embedded
 // server on a free loopback port, HTTP API on a free port if the default is
-// taken), stops by itself with --duration, and says that it is advisory.
+// taken), stops by itself with --duration, and says that it is advisory and
+// which settings it runs with.
 func TestDemoRuns(t *testing.T) {
 	if testing.Short() {
 		t.Skip("runs the demo for a few seconds")
@@ -16,12 +26,104 @@ func TestDemoRuns(t *testing.T) {
 	if code != ExitOK {
 		t.Fatalf("exit %d\nstdout:\n%s\nstderr:\n%s", code, out, errs)
 	}
+	cfg, err := demoConfig("127.0.0.1:0", t.TempDir())
+	if err != nil {
+		t.Fatal(err)
+	}
 	for _, want := range []string{
-		"modewatch is advisory", "1. fitted 4 units", "2. service running with an embedded NATS server at nats://127.0.0.1:",
+		"modewatch is advisory", "settings (configs/demo.yaml): " + demoSettings(cfg), `"modewatch tune"`, "not certified",
+		"1. fitted 4 units", "2. service running with an embedded NATS server at nats://127.0.0.1:",
 		"/api/units", "3. publishing", "plant time", "4. scored", "F1-header-bias",
 	} {
 		if !strings.Contains(out, want) {
 			t.Errorf("demo output lacks %q:\n%s", want, out)
 		}
+	}
+}
+
+// TestDemoOutcome runs the whole demo (both simulated days) at a high
+// speed-up and checks its outcome against the labelled faults of the demo
+// plant: every one detected, at most one false alert per simulated day.
+//
+// These are the figures of configs/demo.yaml measured offline with
+// "modewatch tune --model" and "modewatch replay --model" on the same data
+// (7 of 7 detected, 0 false alerts, 6 isolated in the top 3; README,
+// "The demo plant"); the bounds below leave room for the live path (NATS,
+// wall-clock pacing) without accepting a worse tool: the issue's target for
+// the demo is every labelled episode detected with at most one false alert
+// per simulated day. The data and the faults are invented (sim), so this is
+// a check of the shipped demo, not a validation of the method.
+func TestDemoOutcome(t *testing.T) {
+	if testing.Short() {
+		t.Skip("runs the full demo (two simulated days) at a high speed-up")
+	}
+	var out, errb bytes.Buffer
+	ctx, cancel := context.WithTimeout(context.Background(), 2*time.Minute)
+	defer cancel()
+	oc, err := runDemoWith(ctx, IO{In: strings.NewReader(""), Out: &out, Err: &errb},
+		demoOptions{listen: "127.0.0.1:0", dataDir: t.TempDir(), speed: 20000, quiet: true})
+	if err != nil {
+		t.Fatalf("%v\nstdout:\n%s\nstderr:\n%s", err, out.String(), errb.String())
+	}
+	if oc.linesTaken != oc.linesSent {
+		t.Errorf("the service received %d of %d lines", oc.linesTaken, oc.linesSent)
+	}
+	// Two days at 20 s are 8640 samples; the last frame or two may still
+	// wait for later data when the publisher stops.
+	if oc.frames < 8640-3 {
+		t.Errorf("scored %d frames, want about 8640", oc.frames)
+	}
+	m := oc.metrics
+	if m.Episodes != 7 || m.Detected != 7 {
+		t.Errorf("detected %d of %d labelled faults, want 7 of 7", m.Detected, m.Episodes)
+	}
+	if m.FalseAlertsPerDay == nil || *m.FalseAlertsPerDay > 1 || math.IsNaN(*m.FalseAlertsPerDay) {
+		t.Errorf("false alerts per day = %v (%d false alerts over %s), want at most 1", m.FalseAlertsPerDay, m.FalseAlerts, oc.span)
+	}
+	// Offline the settings point at a faulty sensor for 6 of 7 faults; at
+	// least 5 keeps the check meaningful if one alert's ranking changes.
+	if m.IsolatedTop3 < 5 {
+		t.Errorf("%d faults isolated in the top 3, want at least 5", m.IsolatedTop3)
+	}
+	text := out.String()
+	// The advisory caution opens and closes the output.
+	if n := strings.Count(text, service.Caution); n != 2 {
+		t.Errorf("the caution %q appears %d times, want 2 (first and last lines)", service.Caution, n)
+	}
+	for _, want := range []string{
+		`found with "modewatch tune" on this demo's own labelled log`, "not certified for any plant",
+		"4. scored", "labelled faults started so far: 7, detected 7", "per simulated day",
+	} {
+		if !strings.Contains(text, want) {
+			t.Errorf("demo output lacks %q", want)
+		}
+	}
+	if t.Failed() {
+		t.Logf("demo output:\n%s\nstderr:\n%s", text, errb.String())
+	}
+}
+
+// TestDemoConfigCopyIdentical guards the rule that the embedded demo
+// configuration and the shipped configs/demo.yaml are the same file, and
+// that it loads as a service configuration with the demo plant's period.
+func TestDemoConfigCopyIdentical(t *testing.T) {
+	shipped, err := os.ReadFile(filepath.Join("..", "..", "..", "..", "configs", "demo.yaml"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !bytes.Equal(shipped, demoYAML) {
+		t.Fatal("configs/demo.yaml and cmd/modewatch/internal/cli/demo.yaml differ; copy one onto the other")
+	}
+	cfg, err := demoConfig("127.0.0.1:0", t.TempDir())
+	if err != nil {
+		t.Fatal(err)
+	}
+	if cfg.Frames.Period != 20*time.Second || cfg.Server.EmbeddedPort != -1 {
+		t.Errorf("period %s, embedded port %d", cfg.Frames.Period, cfg.Server.EmbeddedPort)
+	}
+	// The settings differ from the defaults (that is why the file exists).
+	if cfg.Model.Sparsity == configs.DefaultSparsity && cfg.Model.Alpha == configs.DefaultAlpha &&
+		cfg.Alerts.OnDelay == (configs.OnDelay{N: configs.DefaultOnDelayN, M: configs.DefaultOnDelayM}) {
+		t.Error("configs/demo.yaml has the default model and alarm settings")
 	}
 }
