@@ -46,27 +46,38 @@ func benchFrames(p, n int) [][]float64 {
 
 var benchSink float64
 
+// newBenchTracker returns a tracker of p channels with the benchmark
+// settings — one-second frames, one-hour half-life, warm-up 256, r = 5
+// sparse modes (l0, k = 10), a refresh every refreshEvery frames and
+// covariance batches of batch frames (0: the default) — stepped through
+// warm frames of benchFrames(p, 256) into sc, and those frames.
+func newBenchTracker(b *testing.B, sc *Score, p, refreshEvery, batch, warm int) (*Tracker, [][]float64) {
+	b.Helper()
+	frames := benchFrames(p, 256)
+	tr, err := New(p, Config{Period: time.Second, HalfLife: time.Hour, WarmUp: 256, RefreshEvery: refreshEvery, Batch: batch,
+		Modes: modes.Config{Count: 5, Sparsity: []modes.Sparsity{{Method: modes.L0, K: 10}}}})
+	if err != nil {
+		b.Fatal(err)
+	}
+	for k := 0; k < warm; k++ {
+		if err := tr.Step(sc, frames[k%256], nil); err != nil {
+			b.Fatal(err)
+		}
+	}
+	return tr, frames
+}
+
 // benchFrame measures one frame through Step: standardization, scoring
 // (T², SPE, φ), per-channel contributions and the ranked list, the EW update
 // with the batched covariance (rank-64 update, syrkUpper), and the refresh of r = 5
 // sparse modes (l0, k = 10) with their limits amortised over 64 frames.
 func benchFrame(b *testing.B, p, missing int) {
-	frames := benchFrames(p, 256)
-	tr, err := New(p, Config{Period: time.Second, HalfLife: time.Hour, WarmUp: 256, RefreshEvery: 64, Batch: 64,
-		Modes: modes.Config{Count: 5, Sparsity: []modes.Sparsity{{Method: modes.L0, K: 10}}}})
-	if err != nil {
-		b.Fatal(err)
-	}
+	var sc Score
+	tr, frames := newBenchTracker(b, &sc, p, 64, 64, 512)
 	var miss []bool
 	if missing >= 0 {
 		miss = make([]bool, p)
 		miss[missing] = true
-	}
-	var sc Score
-	for k := 0; k < 512; k++ {
-		if err := tr.Step(&sc, frames[k%256], nil); err != nil {
-			b.Fatal(err)
-		}
 	}
 	refreshes := 0
 	b.ReportAllocs()
@@ -164,16 +175,7 @@ func BenchmarkCovUpdate(b *testing.B) {
 // modes warm-started, model and limits), the part amortised over 64 frames.
 func BenchmarkRefreshModel(b *testing.B) {
 	const p = 500
-	frames := benchFrames(p, 256)
-	tr, err := New(p, Config{Period: time.Second, HalfLife: time.Hour, WarmUp: 256, RefreshEvery: 1 << 30,
-		Modes: modes.Config{Count: 5, Sparsity: []modes.Sparsity{{Method: modes.L0, K: 10}}}})
-	if err != nil {
-		b.Fatal(err)
-	}
-	var sc Score
-	for k := 0; k < 300; k++ {
-		tr.Step(&sc, frames[k%256], nil)
-	}
+	tr, _ := newBenchTracker(b, new(Score), p, 1<<30, 0, 300)
 	b.ReportAllocs()
 	b.ResetTimer()
 	for i := 0; i < b.N; i++ {
@@ -236,17 +238,9 @@ func BenchmarkFrameMissingOverDecode(b *testing.B) { benchOverDecode(b, 7) }
 
 func benchOverDecode(b *testing.B, missing int) {
 	const p = 500
-	frames := benchFrames(p, 256)
 	buf := lineFrame(p)
-	tr, err := New(p, Config{Period: time.Second, HalfLife: time.Hour, WarmUp: 256, RefreshEvery: 64, Batch: 64,
-		Modes: modes.Config{Count: 5, Sparsity: []modes.Sparsity{{Method: modes.L0, K: 10}}}})
-	if err != nil {
-		b.Fatal(err)
-	}
 	var sc Score
-	for k := 0; k < 512; k++ {
-		tr.Step(&sc, frames[k%256], nil)
-	}
+	tr, frames := newBenchTracker(b, &sc, p, 64, 64, 512)
 	var miss []bool
 	if missing >= 0 {
 		miss = make([]bool, p)
@@ -302,16 +296,7 @@ func benchOverDecode(b *testing.B, missing int) {
 // K, reduced limits), both into preallocated storage.
 func BenchmarkMissingPattern(b *testing.B) {
 	const p = 500
-	frames := benchFrames(p, 256)
-	tr, err := New(p, Config{Period: time.Second, HalfLife: time.Hour, WarmUp: 256, RefreshEvery: 1 << 30,
-		Modes: modes.Config{Count: 5, Sparsity: []modes.Sparsity{{Method: modes.L0, K: 10}}}})
-	if err != nil {
-		b.Fatal(err)
-	}
-	var sc Score
-	for k := 0; k < 300; k++ {
-		tr.Step(&sc, frames[k%256], nil)
-	}
+	tr, _ := newBenchTracker(b, new(Score), p, 1<<30, 0, 300)
 	m := tr.mdl
 	if err := m.factorRidge(tr.cfg.Ridge); err != nil {
 		b.Fatal(err)
