@@ -17,9 +17,9 @@ import (
 	"modewatch/sim"
 )
 
-// demoLog writes the first hours of the shipped demo scenario (invented
-// data, deterministic) and returns its path and its lines.
-func demoLog(t *testing.T, hours int) (string, []string) {
+// demoHours returns a copy of the shipped demo scenario (invented data,
+// deterministic) cut to its first hours.
+func demoHours(t *testing.T, hours int) *sim.Scenario {
 	t.Helper()
 	s, err := sim.Demo()
 	if err != nil {
@@ -27,6 +27,14 @@ func demoLog(t *testing.T, hours int) (string, []string) {
 	}
 	s = s.Clone()
 	s.Duration = time.Duration(hours) * time.Hour
+	return s
+}
+
+// demoLog writes the first hours of the shipped demo scenario (invented
+// data, deterministic) and returns its path and its lines.
+func demoLog(t *testing.T, hours int) (string, []string) {
+	t.Helper()
+	s := demoHours(t, hours)
 	var b bytes.Buffer
 	if err := s.WriteLineProtocol(&b); err != nil {
 		t.Fatal(err)

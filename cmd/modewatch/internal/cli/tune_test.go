@@ -14,19 +14,13 @@ import (
 	"time"
 
 	"modewatch/cmd/modewatch/internal/evaluate"
-	"modewatch/sim"
 )
 
 // demoWithTruth writes the first hours of the demo scenario (invented
 // data) and a truth file holding the episodes that start within them.
 func demoWithTruth(t *testing.T, hours int) (log, truth string) {
 	t.Helper()
-	s, err := sim.Demo()
-	if err != nil {
-		t.Fatal(err)
-	}
-	s = s.Clone()
-	s.Duration = time.Duration(hours) * time.Hour
+	s := demoHours(t, hours)
 	dir := t.TempDir()
 	files, err := s.WriteFiles(dir, false)
 	if err != nil {
