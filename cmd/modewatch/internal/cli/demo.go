@@ -61,14 +61,19 @@ var demoYAML []byte
 const demoConfigName = "configs/demo.yaml"
 
 // demoConfig returns the demo's configuration (configs/demo.yaml) with the
-// HTTP API on listen (another free port if it is taken) and data in dataDir.
+// HTTP API on listen (another free port if it is taken) and all its data
+// (model, checkpoints, JetStream store, spool) in dataDir.
 func demoConfig(listen, dataDir string) (*configs.Config, error) {
 	cfg, err := configs.Parse(demoConfigName, demoYAML)
 	if err != nil {
 		return nil, fmt.Errorf("the embedded demo configuration: %w", err)
 	}
 	cfg.HTTP.Listen = freeListen(listen)
+	// Everything the demo writes goes under dataDir: the defaults that
+	// derive from data_dir (the sink spool) are filled in again.
 	cfg.DataDir = dataDir
+	cfg.Sinks.SpoolDir = ""
+	cfg.ApplyDefaults()
 	return cfg, nil
 }
 

@@ -114,9 +114,14 @@ func TestDemoConfigCopyIdentical(t *testing.T) {
 	if !bytes.Equal(shipped, demoYAML) {
 		t.Fatal("configs/demo.yaml and cmd/modewatch/internal/cli/demo.yaml differ; copy one onto the other")
 	}
-	cfg, err := demoConfig("127.0.0.1:0", t.TempDir())
+	dir := t.TempDir()
+	cfg, err := demoConfig("127.0.0.1:0", dir)
 	if err != nil {
 		t.Fatal(err)
+	}
+	// Nothing may be written outside the demo's data directory.
+	if cfg.DataDir != dir || !strings.HasPrefix(cfg.Sinks.SpoolDir, dir) {
+		t.Errorf("data_dir %q, spool %q: want both under %q", cfg.DataDir, cfg.Sinks.SpoolDir, dir)
 	}
 	if cfg.Frames.Period != 20*time.Second || cfg.Server.EmbeddedPort != -1 {
 		t.Errorf("period %s, embedded port %d", cfg.Frames.Period, cfg.Server.EmbeddedPort)
