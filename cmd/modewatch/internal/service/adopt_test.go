@@ -11,8 +11,6 @@ import (
 	"testing"
 	"time"
 
-	"github.com/nats-io/nats.go"
-
 	"modewatch/alerts"
 	"modewatch/cmd/modewatch/internal/pipeline"
 	"modewatch/configs"
@@ -94,7 +92,7 @@ data_dir: `+filepath.Join(dir, "data")+`
 	// This instance: the other units from the start.
 	var firstMu sync.Mutex
 	var first *bool // readiness of the moved unit's first score here
-	svc, err := Start(context.Background(), Options{Config: cfg, OnScore: func(u *pipeline.Unit, _ time.Time) {
+	svc, nc := startWithClient(t, Options{Config: cfg, OnScore: func(u *pipeline.Unit, _ time.Time) {
 		firstMu.Lock()
 		if u.Name == moved && first == nil {
 			r := u.Score().Ready
@@ -102,15 +100,6 @@ data_dir: `+filepath.Join(dir, "data")+`
 		}
 		firstMu.Unlock()
 	}})
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(func() { svc.Shutdown(context.Background()) })
-	nc, err := nats.Connect(svc.Info().NATS)
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer nc.Close()
 	publish := func(keep func(l []byte) bool) {
 		var b bytes.Buffer
 		for _, l := range lines {

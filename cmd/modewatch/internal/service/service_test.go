@@ -282,3 +282,21 @@ checkpoint_interval: 1m
 		t.Errorf("%d checkpoints after shutdown: %v", len(cks), errs)
 	}
 }
+
+// startWithClient starts the service with opt (its configuration with an
+// embedded server) and returns it with a client connection to that server;
+// both are closed when the test ends, the connection first.
+func startWithClient(t *testing.T, opt Options) (*Service, *nats.Conn) {
+	t.Helper()
+	svc, err := Start(context.Background(), opt)
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { svc.Shutdown(context.Background()) })
+	nc, err := nats.Connect(svc.Info().NATS)
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(nc.Close)
+	return svc, nc
+}

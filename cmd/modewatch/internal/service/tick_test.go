@@ -9,8 +9,6 @@ import (
 	"testing"
 	"time"
 
-	"github.com/nats-io/nats.go"
-
 	"modewatch/alerts"
 	"modewatch/configs"
 )
@@ -31,16 +29,7 @@ data_dir: `+filepath.Join(dir, "data")+`
 	if err != nil {
 		t.Fatal(err)
 	}
-	svc, err := Start(context.Background(), Options{Config: cfg})
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(func() { svc.Shutdown(context.Background()) })
-	nc, err := nats.Connect(svc.Info().NATS)
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer nc.Close()
+	svc, nc := startWithClient(t, Options{Config: cfg})
 
 	// 500 s of readings (invented) from unit tk; channel b stops after
 	// 100 s, so a "missing" quality alert opens after its 5-minute hold.
