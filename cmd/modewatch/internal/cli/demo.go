@@ -336,7 +336,8 @@ loop:
 		fmt.Fprintf(w, "   %-20s %-9s %-36s %s\n", e.ID, e.Kind, strings.Join(e.Channels, ","), status)
 	}
 	fmt.Fprintf(w, "\nThese settings came from \"modewatch tune\" on this same labelled log; on a real plant, tune on your own\n")
-	fmt.Fprintf(w, "recorded incidents. The same plant offline, with the same settings (%s):\n", demoConfigName)
+	fmt.Fprintln(w, "recorded incidents. The plant offline with the same settings (sim writes the three days as one run, so")
+	fmt.Fprintln(w, "days 2 and 3 differ in detail from the ones published here, and so do the figures):")
 	fmt.Fprintln(w, "  modewatch sim --out demo; modewatch sim --duration 24h --out demo-day1;")
 	fmt.Fprintf(w, "  modewatch fit --config %s --out demo/model.json demo-day1/readings.lp;\n", demoConfigName)
 	fmt.Fprintf(w, "  modewatch replay --config %s --model demo/model.json --truth demo/truth.json demo/readings.lp\n", demoConfigName)
