@@ -152,6 +152,17 @@ type Sources struct {
 	// Files are line-protocol files (plain or .gz) read in order; "-" is
 	// standard input.
 	Files []string `yaml:"files"`
+	// Queue bounds the core-NATS messages waiting to be decoded; a message
+	// beyond either bound is dropped and counted (JetStream slows intake
+	// instead). Zero means the default of the message source (4096
+	// messages, 64 MiB).
+	Queue Queue `yaml:"queue"`
+}
+
+// Queue bounds a queue by messages and by bytes.
+type Queue struct {
+	Messages int `yaml:"messages"`
+	Bytes    int `yaml:"bytes"`
 }
 
 // JetStream names a stream and a durable consumer on it.

@@ -173,6 +173,7 @@ func TestTypeErrors(t *testing.T) {
 		{"nan float", "model: {alpha: .nan}", "want a finite number"},
 		{"duplicate key", "log: {level: info, level: debug}", `duplicate key "level"`},
 		{"section for duration", "model: {halflife: {d: 1}}", "want a duration"},
+		{"negative queue", "sources: {queue: {messages: -1}}", "may not be negative"},
 	}
 	for _, tc := range cases {
 		t.Run(tc.name, func(t *testing.T) {
@@ -335,5 +336,24 @@ units:
 	a := c.AlertsFor("boiler")
 	if a.Flood != (RateRule{20, 15 * time.Minute}) || a.Chatter != (RateRule{5, 2 * time.Minute}) {
 		t.Errorf("boiler alerts %+v", a)
+	}
+}
+
+// The core-NATS queue bounds reach the configuration as written; zero keeps
+// the message source's defaults.
+func TestSourcesQueue(t *testing.T) {
+	c, err := Parse("q.yaml", []byte("sources: {queue: {messages: 262144, bytes: 268435456}}\n"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if q := c.Sources.Queue; q.Messages != 262144 || q.Bytes != 268435456 {
+		t.Errorf("queue = %+v", q)
+	}
+	c, err = Parse("empty.yaml", nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if q := c.Sources.Queue; q != (Queue{}) {
+		t.Errorf("default queue = %+v, want zero (the source's defaults)", q)
 	}
 }

@@ -159,6 +159,9 @@ func (c *Config) validateSources(v *validator) {
 			v.add(fmt.Sprintf("sources.files[%d]", i), "empty file name")
 		}
 	}
+	if q := c.Sources.Queue; q.Messages < 0 || q.Bytes < 0 {
+		v.add("sources.queue", "messages %d and bytes %d may not be negative (0: default)", q.Messages, q.Bytes)
+	}
 }
 
 func (c *Config) validateFrames(v *validator) {

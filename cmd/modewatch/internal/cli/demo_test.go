@@ -65,8 +65,9 @@ func TestDemoOutcome(t *testing.T) {
 	if err != nil {
 		t.Fatalf("%v\nstdout:\n%s\nstderr:\n%s", err, out.String(), errb.String())
 	}
-	// 15000× sends a sample every 1.3 ms (4 messages); the service's
-	// subscription queue (4096 messages) bridges a stall of about 1.3 s.
+	// 15000× sends a sample every 1.3 ms (4 messages); the demo
+	// configuration's subscription queue (sources.queue, 262,144 messages)
+	// bridges a stall of the service of about a minute.
 	if oc.linesTaken != oc.linesSent {
 		t.Errorf("the service received %d of %d lines (it could not keep up at this speed)", oc.linesTaken, oc.linesSent)
 	}

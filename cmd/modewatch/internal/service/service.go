@@ -237,7 +237,8 @@ func Start(ctx context.Context, opt Options) (_ *Service, err error) {
 		s.info.Readings = []string{"jetstream " + js.Stream + "/" + durable}
 	} else {
 		sctx, cancel := context.WithTimeout(ctx, 10*time.Second)
-		s.core, err = s.conn.SubscribeCore(sctx, natsource.CoreConfig{Subjects: cfg.Sources.Subjects}, s.onCore)
+		s.core, err = s.conn.SubscribeCore(sctx, natsource.CoreConfig{Subjects: cfg.Sources.Subjects,
+			QueueMsgs: cfg.Sources.Queue.Messages, QueueBytes: cfg.Sources.Queue.Bytes}, s.onCore)
 		cancel()
 		if err != nil {
 			return nil, err
