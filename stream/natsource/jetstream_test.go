@@ -185,7 +185,11 @@ func testCrashRestart(t *testing.T, resume func(Checkpoint) *Checkpoint, wantDup
 	cfg := JetStreamConfig{
 		Stream: "READINGS", Durable: "modewatch", CreateStream: true,
 		StreamSubjects: []string{"plant.readings.>"}, FilterSubjects: []string{"plant.readings.>"},
-		MaxAckPending: 64, PullBatch: 16, FloorEvery: floorEvery,
+		// Every 7th acknowledgement is lost (about 41 of the first 290),
+		// and each holds a MaxAckPending slot until AckWait (30 s); 128
+		// leaves room for the messages waiting for the watermark, so a
+		// loaded machine does not starve intake before the 290th message.
+		MaxAckPending: 128, PullBatch: 16, FloorEvery: floorEvery,
 	}
 
 	r1 := startRun(t, s.ClientURL(), cfg, Checkpoint{}, ts, 20*time.Second)
