@@ -14,7 +14,12 @@ type Frame struct {
 	Start   time.Time // start of the frame period, event time (UTC)
 	Values  []float64 // one per channel, in the channel's engineering unit; NaN where Missing
 	Missing []bool    // true where no valid value within the staleness limit
-	Segment int       // segment number, from 0; incremented after a clock jump
+	// Times holds the event time (ns since the Unix epoch) of the reading
+	// behind each present value, which may be from an earlier frame
+	// (carried within the staleness limit); meaningless where Missing.
+	// A restart seeds the aligner with these (Aligner.Seed).
+	Times   []int64
+	Segment int // segment number, from 0; incremented after a clock jump
 }
 
 // AlignConfig sets the frame alignment. The zero value of each duration
@@ -188,6 +193,7 @@ func (a *Aligner) Grow(p int) {
 	for len(a.frame.Values) < p {
 		a.frame.Values = append(a.frame.Values, math.NaN())
 		a.frame.Missing = append(a.frame.Missing, true)
+		a.frame.Times = append(a.frame.Times, noTime)
 	}
 	a.p = p
 }
@@ -305,18 +311,24 @@ func (a *Aligner) emit() error {
 	p := a.p
 	st, sv := s.t[:p], s.v[:p]
 	ct, cv := a.carryT[:p], a.carryV[:p]
-	fv, fm := f.Values[:p], f.Missing[:p]
+	fv, fm, ft := f.Values[:p], f.Missing[:p], f.Times[:p]
 	for c, t := range st {
+		v := sv[c]
 		if t != noTime {
-			ct[c], cv[c] = t, sv[c]
 			st[c] = noTime
+			// Without seeding the carry is always older than a reading of
+			// this frame; a seeded one (Seed) can be newer and is kept.
+			if t > ct[c] {
+				ct[c], cv[c] = t, v
+			}
 		} else {
-			t = ct[c]
+			t, v = ct[c], cv[c]
 		}
-		if v := cv[c]; t >= minT && v == v {
-			fv[c], fm[c] = v, false
+		// t < end excludes a seeded reading newer than this frame.
+		if t >= minT && t < end && v == v {
+			fv[c], fm[c], ft[c] = v, false, t
 		} else {
-			fv[c], fm[c] = math.NaN(), true
+			fv[c], fm[c], ft[c] = math.NaN(), true, noTime
 		}
 	}
 	f.Start = time.Unix(0, k*a.per).UTC()
@@ -373,3 +385,26 @@ func (a *Aligner) Watermark() time.Time {
 
 // Stats returns the counters.
 func (a *Aligner) Stats() AlignStats { return a.stats }
+
+// ErrSeedLate reports a Seed after the aligner has taken a reading.
+var ErrSeedLate = errors.New("stream: aligner seeded after its first reading")
+
+// Seed sets channel c's carried reading to v at event time t, as if that
+// reading had arrived in an earlier frame, so that a restarted aligner
+// carries it into the following frames exactly as an uninterrupted one
+// would: it is present in a frame ending at E while t < E and E - t ≤
+// Staleness, until a newer reading of c replaces it. A restart passes the
+// Values and Times of the last frame its checkpoint covers. It must be
+// called before the first reading (else ErrSeedLate); it panics if
+// c ≥ Len().
+func (a *Aligner) Seed(c int, v float64, t time.Time) error {
+	if a.started || a.emitted {
+		return ErrSeedLate
+	}
+	ns := t.UnixNano()
+	if t.Before(MinTime) || t.After(MaxTime) {
+		return fmt.Errorf("stream: seed at %s: %w", t.Format(time.RFC3339Nano), ErrTimeRange)
+	}
+	a.carryT[c], a.carryV[c] = ns, v
+	return nil
+}

@@ -381,6 +381,26 @@ func (in *Intake) Flush() error {
 	return err
 }
 
+// SeedLast seeds the aligner with channel name's last reading before a
+// restart: value v at event time t, carried into the following frames as
+// an uninterrupted run would carry it (see Aligner.Seed). Call it before
+// the first Feed or Read; an unknown channel is an error.
+func (in *Intake) SeedLast(name string, v float64, t time.Time) error {
+	in.mu.Lock()
+	defer in.mu.Unlock()
+	if in.al == nil {
+		return ErrNoPeriod
+	}
+	c, ok := in.ch.Index(name)
+	if !ok {
+		return fmt.Errorf("stream: seed: unknown channel %q", name)
+	}
+	if c >= in.al.Len() {
+		in.syncChannels()
+	}
+	return in.al.Seed(c, v, t)
+}
+
 // Watermark returns the end of the last emitted frame (zero before the
 // first). Safe for concurrent use.
 func (in *Intake) Watermark() time.Time {
