@@ -386,8 +386,8 @@ func (a *Aligner) Watermark() time.Time {
 // Stats returns the counters.
 func (a *Aligner) Stats() AlignStats { return a.stats }
 
-// ErrSeedLate reports a Seed after the aligner has taken a reading.
-var ErrSeedLate = errors.New("stream: aligner seeded after its first reading")
+// ErrSeedLate reports a Seed for a channel that already has a reading.
+var ErrSeedLate = errors.New("stream: channel seeded after its first reading")
 
 // Seed sets channel c's carried reading to v at event time t, as if that
 // reading had arrived in an earlier frame, so that a restarted aligner
@@ -395,16 +395,20 @@ var ErrSeedLate = errors.New("stream: aligner seeded after its first reading")
 // would: it is present in a frame ending at E while t < E and E - t ≤
 // Staleness, until a newer reading of c replaces it. A restart passes the
 // Values and Times of the last frame its checkpoint covers. It must be
-// called before the first reading (else ErrSeedLate); it panics if
-// c ≥ Len().
+// called before c's first reading (else ErrSeedLate); frames already
+// emitted are not changed. It panics if c ≥ Len().
 func (a *Aligner) Seed(c int, v float64, t time.Time) error {
-	if a.started || a.emitted {
+	if a.carryT[c] != noTime {
 		return ErrSeedLate
 	}
-	ns := t.UnixNano()
+	for i := range a.ring {
+		if a.ring[i].t[c] != noTime {
+			return ErrSeedLate
+		}
+	}
 	if t.Before(MinTime) || t.After(MaxTime) {
 		return fmt.Errorf("stream: seed at %s: %w", t.Format(time.RFC3339Nano), ErrTimeRange)
 	}
-	a.carryT[c], a.carryV[c] = ns, v
+	a.carryT[c], a.carryV[c] = t.UnixNano(), v
 	return nil
 }

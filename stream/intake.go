@@ -150,6 +150,7 @@ type Intake struct {
 	opt     Options
 	handle  func(*Frame) error
 	al      *Aligner
+	seeds   map[string]seedReading // SeedLast for channels not discovered yet
 	log     *slog.Logger
 	st      Stats
 	logged  int
@@ -273,7 +274,17 @@ func (in *Intake) syncChannels() {
 		in.boolOK = append(in.boolOK, c.BoolAsNumber)
 	}
 	if in.al != nil {
+		n0 := in.al.Len()
 		in.al.Grow(n)
+		for i := n0; i < n && len(in.seeds) > 0; i++ {
+			name := in.ch.Channel(i).Name
+			if r, ok := in.seeds[name]; ok {
+				delete(in.seeds, name)
+				if err := in.al.Seed(i, r.v, r.t); err != nil {
+					in.log.Warn("stream: carried reading not seeded", "channel", name, "err", err)
+				}
+			}
+		}
 	}
 }
 
@@ -384,21 +395,36 @@ func (in *Intake) Flush() error {
 // SeedLast seeds the aligner with channel name's last reading before a
 // restart: value v at event time t, carried into the following frames as
 // an uninterrupted run would carry it (see Aligner.Seed). Call it before
-// the first Feed or Read; an unknown channel is an error.
+// the first Feed or Read. A channel not in the registry yet (found by
+// auto-discovery) is seeded when it is discovered, before its first
+// reading is aligned.
 func (in *Intake) SeedLast(name string, v float64, t time.Time) error {
 	in.mu.Lock()
 	defer in.mu.Unlock()
 	if in.al == nil {
 		return ErrNoPeriod
 	}
+	if t.Before(MinTime) || t.After(MaxTime) {
+		return fmt.Errorf("stream: seed %s at %s: %w", name, t.Format(time.RFC3339Nano), ErrTimeRange)
+	}
 	c, ok := in.ch.Index(name)
 	if !ok {
-		return fmt.Errorf("stream: seed: unknown channel %q", name)
+		if in.seeds == nil {
+			in.seeds = map[string]seedReading{}
+		}
+		in.seeds[name] = seedReading{v, t}
+		return nil
 	}
 	if c >= in.al.Len() {
 		in.syncChannels()
 	}
 	return in.al.Seed(c, v, t)
+}
+
+// seedReading is a carried reading waiting for its channel's discovery.
+type seedReading struct {
+	v float64
+	t time.Time
 }
 
 // Watermark returns the end of the last emitted frame (zero before the

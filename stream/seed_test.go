@@ -2,6 +2,7 @@ package stream
 
 import (
 	"errors"
+	"fmt"
 	"math"
 	"slices"
 	"testing"
@@ -157,5 +158,42 @@ func TestAlignSeed(t *testing.T) {
 				t.Error("no frame after the cut compared")
 			}
 		})
+	}
+}
+
+// TestIntakeSeedDiscovered: with auto-discovery a seeded channel is not in
+// the registry at the restart; its seed waits and is applied when the
+// channel is discovered, before its first reading. By hand (period 1 s,
+// default staleness 3 s, lateness 1 s): b is seeded at 0.5 with 7 and
+// first read at 2.2, so frame 1 holds a = 2 and b = 7 (2 - 0.5 = 1.5 ≤ 3),
+// frame 2 a = 2 carried and b = 8.
+func TestIntakeSeedDiscovered(t *testing.T) {
+	in, s := newTestIntake(t, Options{Align: AlignConfig{Period: time.Second}})
+	if err := in.SeedLast("m.b", 7, at(0.5)); err != nil {
+		t.Fatal(err)
+	}
+	lines := fmt.Sprintf("m a=2 %d\nm b=8 %d\n", at(1.1).UnixNano(), at(2.2).UnixNano())
+	if _, err := in.Feed("test", []byte(lines)); err != nil {
+		t.Fatal(err)
+	}
+	if err := in.Flush(); err != nil {
+		t.Fatal(err)
+	}
+	if c, ok := in.Channels().Index("m.b"); !ok || c != 1 {
+		t.Fatalf("channel m.b: %d, %v", c, ok)
+	}
+	want := [][]float64{{2, 7}, {2, 8}}
+	if len(s.frames) != len(want) {
+		t.Fatalf("%d frames, want %d", len(s.frames), len(want))
+	}
+	for i, f := range s.frames {
+		if !f.Start.Equal(at(float64(i + 1))) {
+			t.Errorf("frame %d starts at %v", i, f.Start)
+		}
+		for c, w := range want[i] {
+			if f.Missing[c] || f.Values[c] != w {
+				t.Errorf("frame %d channel %d: %v (missing %v), want %v", i, c, f.Values[c], f.Missing[c], w)
+			}
+		}
 	}
 }
