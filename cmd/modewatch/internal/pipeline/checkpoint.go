@@ -4,8 +4,10 @@ import (
 	"bytes"
 	"errors"
 	"fmt"
+	"math"
 	"os"
 	"path/filepath"
+	"slices"
 	"sort"
 	"strings"
 	"time"
@@ -87,8 +89,38 @@ func (p *Pipeline) checkpointOf(u *Unit) (*ModelFile, error) {
 		Format: ModelFormat, Version: ModelVersion, Created: time.Now().UTC(), Period: Duration(p.opt.Period),
 		Frames: u.frames, From: u.firstT, To: u.lastT,
 		Units: []ModelUnit{{Name: u.Name, Channels: append([]string(nil), u.names...), Settings: settings,
-			Modes: u.modesView(), State: state, Alerts: snap.Bytes()}},
+			Modes: u.modesView(), State: state, Alerts: snap.Bytes(), Last: u.lastReadings()}},
 	}, nil
+}
+
+// lastReadings returns the readings carried in the unit's last scored
+// frame. Called under p.mu, so they belong to the same frame as the
+// tracker state: the aligner may already hold newer readings (frames
+// emitted or pending after it), which a restart gets again from the
+// unacknowledged messages.
+func (u *Unit) lastReadings() []LastReading {
+	var out []LastReading
+	for k, at := range u.lastAt {
+		if at != noReading && k < len(u.names) {
+			out = append(out, LastReading{Channel: u.names[k], Value: u.lastV[k], Time: time.Unix(0, at).UTC()})
+		}
+	}
+	return out
+}
+
+// setLast restores the carried readings of a unit checkpoint, so that a
+// checkpoint taken before the unit scores again saves them unchanged.
+func (u *Unit) setLast(last []LastReading) {
+	u.lastV = make([]float64, len(u.names))
+	u.lastAt = make([]int64, len(u.names))
+	for k := range u.lastAt {
+		u.lastV[k], u.lastAt[k] = math.NaN(), noReading
+	}
+	for _, r := range last {
+		if k := slices.Index(u.names, r.Channel); k >= 0 && !r.Time.IsZero() {
+			u.lastV[k], u.lastAt[k] = r.Value, r.Time.UnixNano()
+		}
+	}
 }
 
 // CurrentFile names, inside a checkpoint directory, the generation
@@ -264,6 +296,7 @@ func (p *Pipeline) Restore(cks []*ModelFile) (restored []string, errs []error) {
 		u.frames = ck.Frames
 		u.firstT, u.lastT = ck.From, ck.To
 		u.skipUntil = ck.To
+		u.setLast(mu.Last)
 		restored = append(restored, mu.Name)
 	}
 	return restored, errs

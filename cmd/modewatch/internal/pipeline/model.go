@@ -90,6 +90,20 @@ type ModelUnit struct {
 	// unit checkpoint, captured between the same two frames as State, so
 	// that the file alone carries the unit on; absent in fitted models.
 	Alerts json.RawMessage `json:"alerts,omitempty"`
+	// Last holds, in a unit checkpoint, the unit's channels present in
+	// its last scored frame (the checkpoint's To): value and event time of
+	// the reading the aligner carried, so that a restart seeds the aligner
+	// with them (stream.Intake.SeedLast) and the first frames after it
+	// carry them as an uninterrupted run would. Absent in fitted models
+	// and in older checkpoints (then nothing is seeded).
+	Last []LastReading `json:"last,omitempty"`
+}
+
+// LastReading is a channel's reading carried at a checkpoint's last frame.
+type LastReading struct {
+	Channel string    `json:"channel"`
+	Value   float64   `json:"value"` // engineering unit
+	Time    time.Time `json:"time"`  // event time of the reading (at or before the frame)
 }
 
 // ModelSettings records the settings a unit was fitted with. The tracker

@@ -3,6 +3,7 @@ package pipeline
 import (
 	"fmt"
 	"math"
+	"slices"
 	"sync"
 	"sync/atomic"
 	"time"
@@ -27,14 +28,19 @@ type Unit struct {
 	miss  []bool
 	score tracker.Score
 
-	fixed         bool        // adapt=false: the model never learns
-	equal         bool        // equal weights (fit without a half-life)
-	skipUntil     time.Time   // frames up to this start were scored before a restart
-	firstT, lastT time.Time   // first and last frame scored
-	baseline      bool        // started from a fitted model
-	alertFrozen   atomic.Bool // set by the alarm engine
-	frozen        bool        // the tracker is frozen now
-	failed        error       // the model could not be built; the unit is not scored
+	fixed         bool      // adapt=false: the model never learns
+	equal         bool      // equal weights (fit without a half-life)
+	skipUntil     time.Time // frames up to this start were scored before a restart
+	firstT, lastT time.Time // first and last frame scored
+	// lastV, lastAt: each model channel's value in the frame lastT and the
+	// event time (ns) of its reading; lastAt is noReading where missing.
+	// A checkpoint saves them to seed the aligner on restart.
+	lastV       []float64
+	lastAt      []int64
+	baseline    bool        // started from a fitted model
+	alertFrozen atomic.Bool // set by the alarm engine
+	frozen      bool        // the tracker is frozen now
+	failed      error       // the model could not be built; the unit is not scored
 
 	// Counters, under p.mu.
 	frames      uint64 // frames scored
@@ -201,11 +207,31 @@ func (u *Unit) step(f *stream.Frame) error {
 		u.firstT = f.Start
 	}
 	u.lastT = f.Start
+	u.keepLast(f)
 	u.observe(f.Start)
 	if u.p.opt.OnScore != nil {
 		u.p.opt.OnScore(u, f.Start)
 	}
 	return nil
+}
+
+// noReading marks a channel without a carried reading in lastAt.
+const noReading = math.MinInt64
+
+// keepLast records the unit's channels' values and reading times in f, the
+// frame just scored. It allocates only when the unit's channels changed.
+func (u *Unit) keepLast(f *stream.Frame) {
+	if len(u.lastAt) != len(u.idx) {
+		u.lastV = slices.Grow(u.lastV[:0], len(u.idx))[:len(u.idx)]
+		u.lastAt = slices.Grow(u.lastAt[:0], len(u.idx))[:len(u.idx)]
+	}
+	for k, i := range u.idx {
+		if i >= 0 && i < len(f.Times) && !f.Missing[i] {
+			u.lastV[k], u.lastAt[k] = f.Values[i], f.Times[i]
+		} else {
+			u.lastV[k], u.lastAt[k] = math.NaN(), noReading
+		}
+	}
 }
 
 // ModelState returns the unit's model state in the alarm engine's terms.

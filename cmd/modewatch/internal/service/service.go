@@ -184,7 +184,7 @@ func Start(ctx context.Context, opt Options) (_ *Service, err error) {
 	if err != nil {
 		return nil, err
 	}
-	s.restore()
+	seeds := s.restore()
 	if opt.Prepare != nil {
 		if err := opt.Prepare(s.pl); err != nil {
 			return nil, err
@@ -200,6 +200,7 @@ func Start(ctx context.Context, opt Options) (_ *Service, err error) {
 	if err != nil {
 		return nil, err
 	}
+	s.seed(seeds)
 	if len(cfg.Sources.Files) > 0 {
 		if err := s.in.ReadFiles(ctx, cfg.Sources.Files...); err != nil {
 			return nil, err
@@ -342,8 +343,9 @@ func (s *Service) openSinks(nc *nats.Conn) (*sink.Set, error) {
 	return sink.NewSet(s.log.With("component", "sinks"), sinks...), nil
 }
 
-// restore loads the unit checkpoints of the data directory.
-func (s *Service) restore() {
+// restore loads the unit checkpoints of the data directory. It returns
+// the restored units' carried readings, for seed.
+func (s *Service) restore() []pipeline.LastReading {
 	dir := filepath.Join(s.cfg.DataDir, "checkpoints")
 	cks, errs := pipeline.ReadCheckpoints(dir)
 	for _, err := range errs {
@@ -353,10 +355,13 @@ func (s *Service) restore() {
 	for _, err := range rerrs {
 		s.log.Warn("checkpoint not restored", "err", err)
 	}
+	var seeds []pipeline.LastReading
 	for _, ck := range cks {
 		for _, name := range restored {
 			if ck.Units[0].Name == name {
-				s.log.Info("unit restored from checkpoint (model and alarm state)", "unit", name, "frames", ck.Frames, "last_frame", ck.To, "saved", ck.Created)
+				s.log.Info("unit restored from checkpoint (model and alarm state)", "unit", name, "frames", ck.Frames, "last_frame", ck.To, "saved", ck.Created,
+					"carried_readings", len(ck.Units[0].Last))
+				seeds = append(seeds, ck.Units[0].Last...)
 			}
 		}
 	}
@@ -365,6 +370,21 @@ func (s *Service) restore() {
 			s.log.Info("no checkpoints: units start from the fitted model", "model", s.cfg.Model.File, "dir", dir)
 		} else {
 			s.log.Info("no checkpoints: every unit starts with a warm-up", "dir", dir)
+		}
+	}
+	return seeds
+}
+
+// seed gives the aligner, before the first reading, the readings the
+// restored units' last checkpointed frame carried, so that the frames after
+// a restart carry them (within the staleness limit) as an uninterrupted run
+// would. A reading that cannot be seeded (channel not in the registry yet)
+// is logged; its channel is missing until its next reading, as before.
+func (s *Service) seed(seeds []pipeline.LastReading) {
+	for _, r := range seeds {
+		if err := s.in.SeedLast(r.Channel, r.Value, r.Time); err != nil {
+			s.log.Warn("carried reading of the checkpoint not restored; the channel waits for its next reading",
+				"channel", r.Channel, "err", err)
 		}
 	}
 }
