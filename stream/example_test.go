@@ -93,3 +93,22 @@ boiler drum=4 1700000020
 	fmt.Println(p, err)
 	// Output: 5s <nil>
 }
+
+// A restart seeds the aligner with the reading the last checkpointed frame
+// carried (a flow of 12.5 read at 10:00:00.4), so the frame starting at
+// 10:00:01, which has no flow reading of its own, carries it as an
+// uninterrupted run would (staleness 3 s, the default).
+func ExampleAligner_Seed() {
+	t0 := time.Date(2026, 1, 5, 10, 0, 0, 0, time.UTC)
+	a, _ := stream.NewAligner(stream.AlignConfig{Period: time.Second}, 2, func(f *stream.Frame) error {
+		fmt.Println(f.Start.Format("15:04:05"), f.Values, f.Missing)
+		return nil
+	})
+	if err := a.Seed(1, 12.5, t0.Add(400*time.Millisecond)); err != nil {
+		fmt.Println(err)
+	}
+	a.Add(0, t0.Add(1100*time.Millisecond), 80.1)
+	a.Flush()
+	// Output:
+	// 10:00:01 [80.1 12.5] [false false]
+}
