@@ -313,7 +313,7 @@ model:
 // TestUnitRateRules: a unit may set its own flood and chattering figures;
 // the rest inherit.
 func TestUnitRateRules(t *testing.T) {
-	c, err := Parse("u.yaml", []byte(`
+	_, err := Parse("u.yaml", []byte(`
 alerts: {flood: {count: 20, window: 15m}}
 units:
   - name: boiler
@@ -324,7 +324,7 @@ units:
 	if err == nil || !strings.Contains(err.Error(), "u.yaml:7:29: units[1].alerts.flood.count") || !strings.Contains(err.Error(), "units[1].alerts.flood.window") {
 		t.Fatalf("got %v", err)
 	}
-	c, err = Parse("u.yaml", []byte(`
+	c, err := Parse("u.yaml", []byte(`
 alerts: {flood: {count: 20, window: 15m}}
 units:
   - name: boiler

@@ -180,9 +180,8 @@ type Intake struct {
 	posBeg  int
 	feedMax int64 // newest accepted event time in the current Feed, ns
 
-	buf   []byte // read buffer for Read
-	acks  []heldAck
-	acked uint64
+	buf  []byte // read buffer for Read
+	acks []heldAck
 }
 
 type tagRef struct{ k0, k1, v1 int } // key sc[k0:k1], value sc[k1:v1]

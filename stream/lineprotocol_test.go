@@ -8,8 +8,8 @@ import (
 	"gonum.org/v1/gonum/floats/scalar"
 )
 
-// refDoc names the document the cases below come from.
-const refDoc = "InfluxDB v2 line protocol reference, docs.influxdata.com/influxdb/v2/reference/syntax/line-protocol/"
+// The cases below come from the InfluxDB v2 line protocol reference,
+// docs.influxdata.com/influxdb/v2/reference/syntax/line-protocol/.
 
 var fixedNow = time.Date(2019, 5, 2, 16, 12, 41, 0, time.UTC)
 

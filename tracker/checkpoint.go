@@ -147,7 +147,6 @@ type ckReader struct {
 	b   []byte
 	off int
 	err error
-	at  string
 }
 
 func (r *ckReader) need(n int, what string) bool {

@@ -60,7 +60,7 @@ func TestServerComesBack(t *testing.T) {
 		t.Fatalf("while down: %+v", st)
 	}
 
-	srv = natstest.Restart(t, srv, opts)
+	natstest.Restart(t, srv, opts) // shut down by the test cleanup
 	select {
 	case <-reconnected:
 	case <-time.After(10 * time.Second):

@@ -389,11 +389,11 @@ type board struct {
 }
 
 type unitLine struct {
-	t                   time.Time
-	state               string
-	t2, t2l, spe, spel  float64
-	ready               bool
-	missing, outOfLimit int
+	t                  time.Time
+	state              string
+	t2, t2l, spe, spel float64
+	ready              bool
+	missing            int
 }
 
 func newBoard() *board { return &board{units: map[string]*unitLine{}, all: map[string]alerts.Record{}} }

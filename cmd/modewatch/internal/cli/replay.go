@@ -181,12 +181,11 @@ func runReplay(ctx context.Context, env IO, args []string) error {
 
 // recorder keeps what the alarm engine published.
 type recorder struct {
-	mu     sync.Mutex
-	last   map[string]*alerts.Record // latest revision per record id
-	order  []string
-	lines  *sink.Lines
-	err    error
-	closer io.Closer
+	mu    sync.Mutex
+	last  map[string]*alerts.Record // latest revision per record id
+	order []string
+	lines *sink.Lines
+	err   error
 }
 
 func (r *recorder) Publish(rec *alerts.Record) {

@@ -60,13 +60,12 @@ type Pipeline struct {
 	byName  map[string]*Unit
 	// owner[i] is the unit of channel i, nil when the channel is not part
 	// of any model (Model false); assigned lazily as channels appear.
-	owner    []*Unit
-	known    int // channels of the registry already assigned
-	frames   uint64
-	first    time.Time
-	last     time.Time
-	obs      alerts.Observation
-	stopping bool
+	owner  []*Unit
+	known  int // channels of the registry already assigned
+	frames uint64
+	first  time.Time
+	last   time.Time
+	obs    alerts.Observation
 }
 
 // OrDefaults gives the nil Config and Log fields of the options structs

@@ -4,7 +4,6 @@ import (
 	"fmt"
 	"math"
 	"slices"
-	"sync"
 	"sync/atomic"
 	"time"
 
@@ -51,9 +50,6 @@ type Unit struct {
 	lastRefresh time.Duration // wall time of the last frame step that refreshed
 	late        []string      // channels that could not join the model (fixed model, Grow failed)
 
-	// Snapshot for concurrent readers.
-	viewMu sync.Mutex
-	view   UnitView
 }
 
 func newUnit(p *Pipeline, name string) *Unit {
