@@ -297,17 +297,43 @@ func quiet(r *ring, t time.Time, w time.Duration) bool {
 func (r *ring) reset() { r.head, r.n = 0, 0; clear(r.inc) }
 
 // minuteRing counts events per minute of frame time over the trailing day.
+// Minutes are counted from the Unix epoch and are negative before 1970;
+// a minute k lives in bucket floorMod(k, 1440).
 type minuteRing struct {
 	b    [1440]uint32
-	last int64 // minute index of the newest bucket; 0 = none yet
+	last int64 // minute index of the newest bucket, when set
+	set  bool  // last is meaningful (minute 0 is a real minute)
 }
 
-func minuteOf(t time.Time) int64 { return t.Unix() / 60 }
+// minuteOf returns ⌊t/1 min⌋ since the Unix epoch (negative before 1970).
+// [time.Time.Unix] already rounds down, so only the division needs care.
+func minuteOf(t time.Time) int64 { return floorDiv(t.Unix(), 60) }
+
+// floorDiv returns ⌊x/y⌋ for y > 0 (Go's / truncates toward zero).
+func floorDiv(x, y int64) int64 {
+	q := x / y
+	if x%y < 0 {
+		q--
+	}
+	return q
+}
+
+// floorMod returns x mod y in [0, y) for y > 0 (Go's % takes the sign of
+// x, which makes a negative index for times before 1970).
+func floorMod(x, y int64) int64 {
+	m := x % y
+	if m < 0 {
+		m += y
+	}
+	return m
+}
+
+func (m *minuteRing) bucket(k int64) *uint32 { return &m.b[floorMod(k, int64(len(m.b)))] }
 
 func (m *minuteRing) advance(t time.Time) {
 	k := minuteOf(t)
-	if m.last == 0 {
-		m.last = k
+	if !m.set {
+		m.last, m.set = k, true
 		return
 	}
 	if k <= m.last {
@@ -317,7 +343,7 @@ func (m *minuteRing) advance(t time.Time) {
 		m.b = [1440]uint32{}
 	} else {
 		for i := m.last + 1; i <= k; i++ {
-			m.b[i%int64(len(m.b))] = 0
+			*m.bucket(i) = 0
 		}
 	}
 	m.last = k
@@ -325,14 +351,16 @@ func (m *minuteRing) advance(t time.Time) {
 
 func (m *minuteRing) add(t time.Time) {
 	m.advance(t)
-	m.b[minuteOf(t)%int64(len(m.b))]++
+	*m.bucket(minuteOf(t))++
 }
 
 func (m *minuteRing) sum(minutes int) int {
+	if !m.set {
+		return 0
+	}
 	s := 0
 	for i := 0; i < minutes && i < len(m.b); i++ {
-		k := m.last - int64(i)
-		s += int(m.b[((k%1440)+1440)%1440])
+		s += int(*m.bucket(m.last - int64(i)))
 	}
 	return s
 }

@@ -432,7 +432,10 @@ func (e *Engine) build(s *snapshot) (map[string]*unit, map[string]*incident, err
 			return fail("unit %q: %v", su.Name, err)
 		}
 		u.flood = f
-		u.rate.last = su.RateLast
+		// Minute 0 is a real minute (1970-01-01 00:00 UTC): the ring is set
+		// when it has a newest minute or any count. A set ring at minute 0
+		// with no counts restores as unset, which counts the same.
+		u.rate.last, u.rate.set = su.RateLast, su.RateLast != 0 || len(su.RateCount) > 0
 		for i, c := range su.RateCount {
 			if i < 0 || i >= len(u.rate.b) {
 				return fail("unit %q: rate bucket %d", su.Name, i)
