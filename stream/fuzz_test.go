@@ -13,7 +13,8 @@ import (
 // that splits the input), and checks that nothing panics and the invariants
 // hold: frames strictly in time order, Values NaN exactly where Missing,
 // every line counted as accepted or rejected. Seeds are in
-// testdata/fuzz/FuzzIntake (run by plain go test).
+// testdata/fuzz/FuzzIntake (run by plain go test); they include logs dated
+// before 1970, one crossing the epoch, and both ends of MinTime..MaxTime.
 func FuzzIntake(f *testing.F) {
 	f.Fuzz(func(t *testing.T, data []byte) {
 		for _, stream := range []bool{false, true} {
