@@ -11,13 +11,13 @@ import (
 type State uint8
 
 const (
-	Normal    State = iota // below the limit (or back for the off-delay)
-	Pending                // over the limit in fewer than N of the last M frames
-	Active                 // in alarm
-	Returning              // below limit·(1 − deadband), off-delay running
+	Normal     State = iota // below the limit (or back for the off-delay)
+	Confirming              // over the limit in fewer than N of the last M frames
+	Active                  // in alarm
+	Clearing                // below limit·(1 − deadband), off-delay running
 )
 
-var stateNames = [...]string{"normal", "pending", "active", "returning"}
+var stateNames = [...]string{"normal", "confirming", "active", "clearing"}
 
 // String returns the state's lower-case name.
 func (s State) String() string {
@@ -42,15 +42,15 @@ func (s *State) UnmarshalText(b []byte) error {
 }
 
 // InAlarm reports whether the state counts as "in alarm" (active or
-// returning): the alert record stays open.
-func (s State) InAlarm() bool { return s == Active || s == Returning }
+// clearing): the alert record stays open.
+func (s State) InAlarm() bool { return s == Active || s == Clearing }
 
 // AlarmRule is the timing of one alarm.
 type AlarmRule struct {
 	// N of the last M frames over the limit make the alarm active
 	// (1 ≤ N ≤ M ≤ 64).
 	N, M int
-	// OnHold: the alarm must also have been pending this long.
+	// OnHold: the alarm must also have been confirming this long.
 	OnHold time.Duration
 	// OffDelay: the ratio must stay below 1 − Deadband this long.
 	OffDelay time.Duration
@@ -62,12 +62,12 @@ type AlarmRule struct {
 // r = value/limit of each frame and the frame time:
 //
 //	over:  r > 1                 clear: r < 1 − Deadband
-//	normal    → pending    on the first over frame
-//	pending   → active     when over in ≥ N of the last M frames and pending ≥ OnHold
-//	pending   → normal     when none of the last M frames is over
-//	active    → returning  on a clear frame (→ normal at once if OffDelay = 0)
-//	returning → active     on a frame that is not clear
-//	returning → normal     when clear for ≥ OffDelay since entering returning
+//	normal     → confirming  on the first over frame
+//	confirming → active      when over in ≥ N of the last M frames and confirming ≥ OnHold
+//	confirming → normal      when none of the last M frames is over
+//	active     → clearing    on a clear frame (→ normal at once if OffDelay = 0)
+//	clearing   → active      on a frame that is not clear
+//	clearing   → normal      when clear for ≥ OffDelay since entering clearing
 //
 // (OPC UA Part 9, Annex B.1.5 semantics of on-delay, off-delay and deadband.)
 // The zero Alarm is in Normal; Step allocates nothing.
@@ -106,13 +106,13 @@ func (a *Alarm) Step(t time.Time, v, l float64) (from, to State, ok bool) {
 	over := r > 1
 	clear := r < 1-a.rule.Deadband
 	switch a.state {
-	case Normal, Pending:
+	case Normal, Confirming:
 		a.push(over)
 		if a.state == Normal {
 			if !over {
 				return from, from, true
 			}
-			a.state, a.since = Pending, t
+			a.state, a.since = Confirming, t
 		}
 		n := bits.OnesCount64(a.window)
 		switch {
@@ -123,12 +123,12 @@ func (a *Alarm) Step(t time.Time, v, l float64) (from, to State, ok bool) {
 		}
 	case Active:
 		if clear {
-			a.state, a.since = Returning, t
+			a.state, a.since = Clearing, t
 			if a.rule.OffDelay == 0 {
 				a.reset(t)
 			}
 		}
-	case Returning:
+	case Clearing:
 		switch {
 		case !clear:
 			a.state, a.since = Active, t

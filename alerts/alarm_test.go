@@ -26,19 +26,19 @@ type step struct {
 // deadband: OPC UA Part 9, Annex B.1.5 [PUB] (LIMITS.md §7.2); n-of-m
 // on-delay: LIMITS.md §9 L6 (design).
 func TestAlarmTransitions(t *testing.T) {
-	N, P, A, R := Normal, Pending, Active, Returning
+	N, Cf, A, Cl := Normal, Confirming, Active, Clearing
 	cases := []struct {
 		name  string
 		rule  AlarmRule
 		steps []step
 	}{
 		{
-			// L6: over in frames 1, 3, 4 with n = 3, m = 5: pending until
+			// L6: over in frames 1, 3, 4 with n = 3, m = 5: confirming until
 			// frame 4, active at frame 4.
 			name: "L6 on-delay 3 of 5",
 			rule: AlarmRule{N: 3, M: 5, OffDelay: 10 * time.Second, Deadband: 0.05},
 			steps: []step{
-				{1, 1.2, P}, {2, 0.5, P}, {3, 1.3, P}, {4, 1.1, A}, {5, 1.5, A},
+				{1, 1.2, Cf}, {2, 0.5, Cf}, {3, 1.3, Cf}, {4, 1.1, A}, {5, 1.5, A},
 			},
 		},
 		{
@@ -47,7 +47,7 @@ func TestAlarmTransitions(t *testing.T) {
 			name: "L6 single spike",
 			rule: AlarmRule{N: 3, M: 5, OffDelay: 10 * time.Second, Deadband: 0.05},
 			steps: []step{
-				{0, 0.5, N}, {1, 9, P}, {2, 0.5, P}, {3, 0.5, P}, {4, 0.5, P}, {5, 0.5, P}, {6, 0.5, N}, {7, 0.5, N},
+				{0, 0.5, N}, {1, 9, Cf}, {2, 0.5, Cf}, {3, 0.5, Cf}, {4, 0.5, Cf}, {5, 0.5, Cf}, {6, 0.5, N}, {7, 0.5, N},
 			},
 		},
 		{
@@ -73,9 +73,9 @@ func TestAlarmTransitions(t *testing.T) {
 			rule: AlarmRule{N: 1, M: 1, OffDelay: 10 * time.Second, Deadband: 0.05},
 			steps: []step{
 				{0, 2, A},
-				{1, 0.5, R}, {5, 0.5, R}, {10, 0.5, R}, // 9 s below
-				{11, 0.97, A},                            // inside the deadband: not clear, back to active
-				{12, 0.5, R}, {21, 0.5, R}, {22, 0.5, N}, // 10 s below: normal
+				{1, 0.5, Cl}, {5, 0.5, Cl}, {10, 0.5, Cl}, // 9 s below
+				{11, 0.97, A},                              // inside the deadband: not clear, back to active
+				{12, 0.5, Cl}, {21, 0.5, Cl}, {22, 0.5, N}, // 10 s below: normal
 				{23, 0.5, N},
 			},
 		},
@@ -83,14 +83,14 @@ func TestAlarmTransitions(t *testing.T) {
 			name: "on-hold on top of n of m",
 			rule: AlarmRule{N: 2, M: 3, OnHold: 5 * time.Second, OffDelay: time.Second},
 			steps: []step{
-				{0, 2, P}, {1, 2, P}, {4, 2, P}, {5, 2, A}, {6, 0.1, R}, {7, 0.1, N},
+				{0, 2, Cf}, {1, 2, Cf}, {4, 2, Cf}, {5, 2, A}, {6, 0.1, Cl}, {7, 0.1, N},
 			},
 		},
 		{
 			// a spike that dies out before the on-hold ends never activates.
 			name:  "on-hold spike",
 			rule:  AlarmRule{N: 1, M: 1, OnHold: 5 * time.Second},
-			steps: []step{{0, 2, P}, {1, 2, P}, {2, 0.5, N}},
+			steps: []step{{0, 2, Cf}, {1, 2, Cf}, {2, 0.5, N}},
 		},
 		{
 			name: "full cycle m = 64",
@@ -98,7 +98,7 @@ func TestAlarmTransitions(t *testing.T) {
 			steps: func() []step {
 				var s []step
 				for i := 0; i < 63; i++ {
-					s = append(s, step{float64(i), 2, P})
+					s = append(s, step{float64(i), 2, Cf})
 				}
 				return append(s, step{63, 2, A}, step{64, 0.1, N})
 			}(),
@@ -120,7 +120,7 @@ func TestAlarmTransitions(t *testing.T) {
 				if to != from && !a.Since().Equal(sec(s.at)) {
 					t.Errorf("frame %d: Since = %v, want the frame time %v", i, a.Since(), sec(s.at))
 				}
-				if to == Active && from != Active && from != Returning {
+				if to == Active && from != Active && from != Clearing {
 					activations++
 				}
 				prev = to

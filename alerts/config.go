@@ -74,10 +74,10 @@ type Rules struct {
 	// OnCount and OnWindow: active when over the limit in OnCount of the last
 	// OnWindow frames (1 ≤ OnCount ≤ OnWindow ≤ 64). Defaults 3 of 5.
 	OnCount, OnWindow int
-	// OnHold additionally requires the alarm to have been pending this long
+	// OnHold additionally requires the alarm to have been confirming this long
 	// (frame time). Default 0.
 	OnHold time.Duration
-	// OffDelay: time below limit·(1 − Deadband) before returning to normal.
+	// OffDelay: time below limit·(1 − Deadband) before going back to normal.
 	// Default 5 min. Negative means zero.
 	OffDelay time.Duration
 	// Deadband as a fraction of the limit, in [0, 1). Default 0.05.

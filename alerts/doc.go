@@ -7,13 +7,14 @@
 // (ANSI/ISA-18.2-2016, IEC 62682:2014, EEMUA 191) and of OPC UA Part 9,
 // Annex B.1.5 for on-delay, off-delay and deadband:
 //
-//	normal → pending → active → returning → normal
+//	normal → confirming → active → clearing → normal
 //
-// An alarm of a statistic goes pending when the statistic first exceeds its
-// control limit, active when it is over the limit in at least N of the last
-// M frames (and, if OnHold > 0, has been pending for OnHold), returning when
-// it falls below limit·(1 − Deadband), and normal once it has stayed there
-// for OffDelay. Time is always the frame (event) time of the Observation,
+// An alarm of a statistic goes confirming when the statistic first exceeds
+// its control limit (over the limit, waiting for the on-delay count), active
+// when it is over the limit in at least N of the last M frames (and, if
+// OnHold > 0, has been confirming for OnHold), clearing when it falls below
+// limit·(1 − Deadband) (waiting out the off-delay), and normal once it has
+// stayed there for OffDelay. Time is always the frame (event) time of the Observation,
 // never the wall clock, so replays run faster than real time and give the
 // same records.
 //

@@ -1061,16 +1061,16 @@ func groupState(inc *incident) string {
 	best := Normal
 	for k := range inc.u.stats {
 		s := visible(inc.u.stats[k].State())
-		if s == Active || (s == Returning && best != Active) {
+		if s == Active || (s == Clearing && best != Active) {
 			best = s
 		}
 	}
 	return best.String()
 }
 
-// visible maps pending (not yet an alarm) to normal for records.
+// visible maps confirming (not yet an alarm) to normal for records.
 func visible(s State) State {
-	if s == Pending {
+	if s == Confirming {
 		return Normal
 	}
 	return s

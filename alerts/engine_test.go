@@ -136,7 +136,7 @@ var fastRules = Rules{OnCount: 3, OnWindow: 5, OffDelay: 10 * time.Second, Deadb
 func TestEngineLifecycle(t *testing.T) {
 	h := newHarness(t, Config{Rules: fastRules})
 	h.model(0, 0.5)
-	h.model(1, 1.2) // pending
+	h.model(1, 1.2) // confirming
 	h.model(2, 1.1)
 	h.model(3, 1.3) // 3 of the last 3 (window not full yet): active
 	if len(h.recs) != 1 {
@@ -161,10 +161,10 @@ func TestEngineLifecycle(t *testing.T) {
 		t.Errorf("escalation: rev %d severity %q peak %+v", r.Revision, r.Severity, r.Peak)
 	}
 	h.model(5, 1.8) // lower peak: no revision
-	h.model(6, 0.9) // below 1 − 0.05: returning
+	h.model(6, 0.9) // below 1 − 0.05: clearing
 	h.model(15, 0.9)
 	if len(h.recs) != 2 {
-		t.Fatalf("%d records while returning, want 2", len(h.recs))
+		t.Fatalf("%d records while clearing, want 2", len(h.recs))
 	}
 	h.model(16, 0.9) // 10 s below: normal
 	r = h.last()
@@ -175,9 +175,9 @@ func TestEngineLifecycle(t *testing.T) {
 		t.Errorf("close: id %q stats %+v", r.ID, r.Statistics)
 	}
 	equalStrings(t, "events", h.eventsOf(), []string{
-		"missing:u.tank.level normal→pending@0", // missing, not yet for the 5-min hold
-		"t2 normal→pending@1", "t2 pending→active@3", "open@3", "freeze@3",
-		"t2 active→returning@6", "t2 returning→normal@16", "close@16", "thaw@16",
+		"missing:u.tank.level normal→confirming@0", // missing, not yet for the 5-min hold
+		"t2 normal→confirming@1", "t2 confirming→active@3", "open@3", "freeze@3",
+		"t2 active→clearing@6", "t2 clearing→normal@16", "close@16", "thaw@16",
 	})
 	equalStrings(t, "learning", h.learn.calls, []string{"freeze u", "thaw u"})
 	c := h.e.Counters(nil)

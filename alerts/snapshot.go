@@ -14,9 +14,31 @@ import (
 const snapshotVersion = 1
 
 type snapAlarm struct {
-	State  State     `json:"state"`
+	State  snapState `json:"state"`
 	Window uint64    `json:"window"`
 	Since  time.Time `json:"since"`
+}
+
+// snapState is an alarm state in a snapshot. It reads the names the states
+// had before they were renamed ("pending" is now confirming, "returning" is
+// now clearing), so that a checkpoint written by an earlier release still
+// restores its open incidents; it writes the current names.
+type snapState State
+
+// MarshalText writes the state's current name.
+func (s snapState) MarshalText() ([]byte, error) { return State(s).MarshalText() }
+
+// UnmarshalText reads a current or a former state name.
+func (s *snapState) UnmarshalText(b []byte) error {
+	switch string(b) {
+	case "pending":
+		*s = snapState(Confirming)
+		return nil
+	case "returning":
+		*s = snapState(Clearing)
+		return nil
+	}
+	return (*State)(s).UnmarshalText(b)
 }
 
 type snapGroup struct {
@@ -235,7 +257,7 @@ func cmpString(a, b string) int {
 }
 
 func snapAlarmOf(a *Alarm) snapAlarm {
-	return snapAlarm{State: a.state, Window: a.window, Since: a.since}
+	return snapAlarm{State: snapState(a.state), Window: a.window, Since: a.since}
 }
 
 func snapGroupOf(g *group, incs map[*incident]bool) snapGroup {
@@ -487,12 +509,12 @@ func (e *Engine) build(s *snapshot) (map[string]*unit, map[string]*incident, err
 }
 
 func restoreAlarm(a *Alarm, s snapAlarm) {
-	a.state, a.since = s.State, s.Since
+	a.state, a.since = State(s.State), s.Since
 	a.window = s.Window
 	if a.rule.M < 64 {
 		a.window &= 1<<uint(a.rule.M) - 1
 	}
-	if a.state > Returning {
+	if a.state > Clearing {
 		a.state = Normal
 	}
 }

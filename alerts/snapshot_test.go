@@ -5,6 +5,7 @@ import (
 	"context"
 	"encoding/json"
 	"fmt"
+	"slices"
 	"strings"
 	"testing"
 	"time"
@@ -237,5 +238,45 @@ func TestSnapshotUnit(t *testing.T) {
 	}
 	if c := e3.Counters(nil); len(c) != 0 {
 		t.Errorf("unit b not reset by an empty snapshot: %+v", c)
+	}
+}
+
+// TestRestoreFormerStateNames: a snapshot written before the alarm states
+// were renamed (confirming was "pending", clearing was "returning") restores
+// to the same continuation as one with the current names.
+func TestRestoreFormerStateNames(t *testing.T) {
+	const end = 1200
+	var want []string
+	scenario(t, newRecorder(t, &want), &want, 0, end)
+	seen := map[string]bool{}
+	for cut := 10; cut < end; cut += 15 {
+		var got []string
+		e1 := newRecorder(t, &got)
+		scenario(t, e1, &got, 0, cut)
+		var buf bytes.Buffer
+		if err := e1.Snapshot(&buf); err != nil {
+			t.Fatal(err)
+		}
+		old := buf.String()
+		for cur, former := range map[string]string{`"state":"confirming"`: `"state":"pending"`, `"state":"clearing"`: `"state":"returning"`} {
+			if strings.Contains(old, cur) {
+				seen[cur] = true
+				old = strings.ReplaceAll(old, cur, former)
+			}
+		}
+		if old == buf.String() {
+			continue
+		}
+		e2 := newRecorder(t, &got)
+		if err := e2.Restore(strings.NewReader(old)); err != nil {
+			t.Fatalf("cut %d: %v", cut, err)
+		}
+		scenario(t, e2, &got, cut, end)
+		if !slices.Equal(got, want) {
+			t.Fatalf("cut %d: the continuation from former state names differs", cut)
+		}
+	}
+	if len(seen) != 2 {
+		t.Fatalf("no cut caught both a confirming and a clearing alarm: %v", seen)
 	}
 }

@@ -267,7 +267,7 @@ type Alerts struct {
 	// OnDelay: active when over the limit in N of the last M frames
 	// (1 ≤ N ≤ M ≤ 64). Default 3 of 5.
 	OnDelay OnDelay `yaml:"on_delay"`
-	// OffDelay: time below limit minus deadband before returning to normal.
+	// OffDelay: time below limit minus deadband before going back to normal.
 	OffDelay time.Duration `yaml:"off_delay"`
 	// Deadband as a fraction of the limit, in [0, 1). Default 0.05.
 	Deadband float64 `yaml:"deadband"`
