@@ -19,8 +19,16 @@ import (
 
 // Defaults used by ApplyDefaults when the corresponding field is zero.
 const (
-	DefaultListen             = "127.0.0.1:7480"
-	DefaultDataDir            = "modewatch-data"
+	// DefaultListen is the HTTP API address: loopback only, port 7526.
+	// The port was chosen on 2026-12-04 after checking the IANA Service
+	// Name and Transport Protocol Port Number Registry (RFC 6335; a copy
+	// with entries up to 2025): 7526 lies in the unassigned block
+	// 7512-7541, with no unauthorised use noted. It also stays clear of
+	// the ports metrics software commonly takes (exporters 9100-9999,
+	// 9090, 3000, 8080-8081), of NATS (4222, 6222, 8222), and of the
+	// neighbouring defaults 7474, 7687 and 7580-7590.
+	DefaultListen             = "127.0.0.1:7526"
+	DefaultStateDir           = "modewatch-data"
 	DefaultPrefix             = "modewatch"
 	DefaultCheckpointInterval = 5 * time.Minute
 	DefaultShutdownTimeout    = 15 * time.Second
@@ -69,8 +77,9 @@ const (
 	// alarm chattering (common practice: 3 or more activations a minute).
 	DefaultChatterCount  = 3
 	DefaultChatterWindow = time.Minute
-	// DefaultSinkQueue is the bounded queue length of each alert sink.
-	DefaultSinkQueue = 1024
+	// DefaultDeliveryQueue is the bounded queue length of each alert
+	// delivery target.
+	DefaultDeliveryQueue = 1024
 )
 
 // Config is the whole configuration of one modewatch service instance.
@@ -78,8 +87,8 @@ type Config struct {
 	// Server is the NATS message server to connect to; with no URLs the
 	// service starts an embedded server on the loopback address.
 	Server Server `yaml:"server"`
-	// Sources are where readings come from (subjects, JetStream, files).
-	Sources Sources `yaml:"sources"`
+	// Intake is where readings come from (subjects, JetStream, files).
+	Intake Intake `yaml:"intake"`
 	// Channels is the channel map. Empty means auto-discovery: every
 	// numeric field becomes a channel named measurement.tagvalues.field.
 	Channels []Channel `yaml:"channels"`
@@ -92,13 +101,13 @@ type Config struct {
 	Model Model `yaml:"model"`
 	// Alerts holds the alarm settings of every unit.
 	Alerts Alerts `yaml:"alerts"`
-	// Sinks are where alert records go besides the NATS alerts subject.
-	Sinks Sinks `yaml:"sinks"`
+	// Delivery is where alert records go besides the NATS alerts subject.
+	Delivery Delivery `yaml:"delivery"`
 	// HTTP is the HTTP API (health, metrics, units, alerts).
 	HTTP HTTP `yaml:"http"`
-	// DataDir holds checkpoints, the embedded server's JetStream store and
-	// the sink spools. Default "modewatch-data".
-	DataDir string `yaml:"data_dir"`
+	// StateDir holds checkpoints, the embedded server's JetStream store and
+	// the delivery spools. Default "modewatch-data".
+	StateDir string `yaml:"state_dir"`
 	// CheckpointInterval is the time between checkpoints of every unit
 	// (wall clock). Default 5m.
 	CheckpointInterval time.Duration `yaml:"checkpoint_interval"`
@@ -141,10 +150,10 @@ type TLS struct {
 	Key  string `yaml:"key"`
 }
 
-// Sources are where readings come from.
-type Sources struct {
+// Intake is where readings come from.
+type Intake struct {
 	// Subjects are core NATS subjects (wildcards allowed) carrying line
-	// protocol. Default with no sources at all: "<prefix>.readings.>".
+	// protocol. Default with no intake at all: "<prefix>.readings.>".
 	Subjects []string `yaml:"subjects"`
 	// JetStream, when Stream is set, reads through a durable consumer that
 	// acknowledges only processed data.
@@ -170,7 +179,7 @@ type JetStream struct {
 	Stream  string `yaml:"stream"`
 	Durable string `yaml:"durable"`
 	// Subjects the stream captures when the service has to create it
-	// (embedded server). Default: the Sources subjects.
+	// (embedded server). Default: the Intake subjects.
 	Subjects []string `yaml:"subjects"`
 }
 
@@ -304,8 +313,8 @@ type RateRule struct {
 	Window time.Duration `yaml:"window"`
 }
 
-// Sinks are where alert records go, besides <prefix>.alerts.<unit>.
-type Sinks struct {
+// Delivery is where alert records go, besides <prefix>.alerts.<unit>.
+type Delivery struct {
 	// Stdout writes JSON lines to standard output.
 	Stdout bool `yaml:"stdout"`
 	// File appends JSON lines to this file.
@@ -314,16 +323,17 @@ type Sinks struct {
 	Subject string `yaml:"subject"`
 	// Webhook posts each record to this http(s) URL with retries.
 	Webhook string `yaml:"webhook"`
-	// SpoolDir keeps records a sink could not deliver yet. Default
-	// <data_dir>/spool.
+	// SpoolDir keeps records a delivery target could not take yet.
+	// Default <state_dir>/spool.
 	SpoolDir string `yaml:"spool_dir"`
-	// Queue is the bounded queue length of each sink. Default 1024.
+	// Queue is the bounded queue length of each delivery target.
+	// Default 1024.
 	Queue int `yaml:"queue"`
 }
 
 // HTTP is the HTTP API.
 type HTTP struct {
-	// Listen address. Default 127.0.0.1:7480 (loopback only). "off"
+	// Listen address. Default [DefaultListen] (loopback only). "off"
 	// disables the API.
 	Listen string `yaml:"listen"`
 }
@@ -346,13 +356,13 @@ func (c *Config) ApplyDefaults() {
 	if c.Server.Prefix == "" {
 		c.Server.Prefix = DefaultPrefix
 	}
-	if len(c.Sources.Subjects) == 0 && c.Sources.JetStream.Stream == "" && len(c.Sources.Files) == 0 {
-		c.Sources.Subjects = []string{c.Server.Prefix + ".readings.>"}
+	if len(c.Intake.Subjects) == 0 && c.Intake.JetStream.Stream == "" && len(c.Intake.Files) == 0 {
+		c.Intake.Subjects = []string{c.Server.Prefix + ".readings.>"}
 	}
-	if c.Sources.JetStream.Stream != "" && len(c.Sources.JetStream.Subjects) == 0 {
-		c.Sources.JetStream.Subjects = append([]string(nil), c.Sources.Subjects...)
-		if len(c.Sources.JetStream.Subjects) == 0 {
-			c.Sources.JetStream.Subjects = []string{c.Server.Prefix + ".readings.>"}
+	if c.Intake.JetStream.Stream != "" && len(c.Intake.JetStream.Subjects) == 0 {
+		c.Intake.JetStream.Subjects = append([]string(nil), c.Intake.Subjects...)
+		if len(c.Intake.JetStream.Subjects) == 0 {
+			c.Intake.JetStream.Subjects = []string{c.Server.Prefix + ".readings.>"}
 		}
 	}
 	if c.Frames.Precision == "" {
@@ -363,17 +373,17 @@ func (c *Config) ApplyDefaults() {
 	}
 	c.Model = c.Model.Over(DefaultModel())
 	c.Alerts = c.Alerts.Over(DefaultAlerts())
-	if c.Sinks.Queue == 0 {
-		c.Sinks.Queue = DefaultSinkQueue
+	if c.Delivery.Queue == 0 {
+		c.Delivery.Queue = DefaultDeliveryQueue
 	}
 	if c.HTTP.Listen == "" {
 		c.HTTP.Listen = DefaultListen
 	}
-	if c.DataDir == "" {
-		c.DataDir = DefaultDataDir
+	if c.StateDir == "" {
+		c.StateDir = DefaultStateDir
 	}
-	if c.Sinks.SpoolDir == "" {
-		c.Sinks.SpoolDir = c.DataDir + "/spool"
+	if c.Delivery.SpoolDir == "" {
+		c.Delivery.SpoolDir = c.StateDir + "/spool"
 	}
 	if c.CheckpointInterval == 0 {
 		c.CheckpointInterval = DefaultCheckpointInterval

@@ -71,11 +71,11 @@ func TestEmptyIsDefaults(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if c.HTTP.Listen != DefaultListen || c.DataDir != DefaultDataDir || c.Model.Alpha != DefaultAlpha ||
+	if c.HTTP.Listen != DefaultListen || c.StateDir != DefaultStateDir || c.Model.Alpha != DefaultAlpha ||
 		c.Model.Sparsity != DefaultSparsity || c.Alerts.OnDelay != (OnDelay{3, 5}) || c.CheckpointInterval != DefaultCheckpointInterval {
 		t.Errorf("defaults not applied: %+v", c)
 	}
-	if got := c.Sources.Subjects; len(got) != 1 || got[0] != "modewatch.readings.>" {
+	if got := c.Intake.Subjects; len(got) != 1 || got[0] != "modewatch.readings.>" {
 		t.Errorf("default subjects = %v", got)
 	}
 	var z Config
@@ -173,7 +173,7 @@ func TestTypeErrors(t *testing.T) {
 		{"nan float", "model: {alpha: .nan}", "want a finite number"},
 		{"duplicate key", "log: {level: info, level: debug}", `duplicate key "level"`},
 		{"section for duration", "model: {halflife: {d: 1}}", "want a duration"},
-		{"negative queue", "sources: {queue: {messages: -1}}", "may not be negative"},
+		{"negative queue", "intake: {queue: {messages: -1}}", "may not be negative"},
 	}
 	for _, tc := range cases {
 		t.Run(tc.name, func(t *testing.T) {
@@ -341,19 +341,56 @@ units:
 
 // The core-NATS queue bounds reach the configuration as written; zero keeps
 // the message source's defaults.
-func TestSourcesQueue(t *testing.T) {
-	c, err := Parse("q.yaml", []byte("sources: {queue: {messages: 262144, bytes: 268435456}}\n"))
+func TestIntakeQueue(t *testing.T) {
+	c, err := Parse("q.yaml", []byte("intake: {queue: {messages: 262144, bytes: 268435456}}\n"))
 	if err != nil {
 		t.Fatal(err)
 	}
-	if q := c.Sources.Queue; q.Messages != 262144 || q.Bytes != 268435456 {
+	if q := c.Intake.Queue; q.Messages != 262144 || q.Bytes != 268435456 {
 		t.Errorf("queue = %+v", q)
 	}
 	c, err = Parse("empty.yaml", nil)
 	if err != nil {
 		t.Fatal(err)
 	}
-	if q := c.Sources.Queue; q != (Queue{}) {
+	if q := c.Intake.Queue; q != (Queue{}) {
 		t.Errorf("default queue = %+v, want zero (the source's defaults)", q)
+	}
+}
+
+// TestRenamedKeys: the top-level keys an earlier release read are refused at
+// their line and column with the spelling to write instead, alongside every
+// other problem of the file, and the new spellings are accepted.
+func TestRenamedKeys(t *testing.T) {
+	old := "frames: {period: 10s}\n" +
+		"sources:\n  subjects: [plant.>]\n" +
+		"sinks: {stdout: true}\n" +
+		"  \n" +
+		"data_dir: /var/lib/x\n" +
+		"model: {alpha: 2}\n"
+	_, err := Parse("config.yaml", []byte(old))
+	var es Errors
+	if !errors.As(err, &es) || !errors.Is(err, ErrInvalid) {
+		t.Fatalf("want Errors, got %T %v", err, err)
+	}
+	got := make([]string, len(es))
+	for i, e := range es {
+		got[i] = e.Error()
+	}
+	want := []string{
+		`config.yaml:2:1: key "sources" was renamed: write "intake"`,
+		`config.yaml:4:1: key "sinks" was renamed: write "delivery"`,
+		`config.yaml:6:1: key "data_dir" was renamed: write "state_dir"`,
+		`config.yaml:7:16: model.alpha: 2 is not a false-alarm rate in (0, 0.5)`,
+	}
+	if strings.Join(got, "\n") != strings.Join(want, "\n") {
+		t.Errorf("errors:\n%s\nwant:\n%s", strings.Join(got, "\n"), strings.Join(want, "\n"))
+	}
+	c, err := Parse("config.yaml", []byte("frames: {period: 10s}\nintake:\n  subjects: [plant.>]\ndelivery: {stdout: true}\nstate_dir: /var/lib/x\n"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if c.Intake.Subjects[0] != "plant.>" || !c.Delivery.Stdout || c.StateDir != "/var/lib/x" {
+		t.Errorf("new keys not read: %+v %+v %q", c.Intake, c.Delivery, c.StateDir)
 	}
 }

@@ -319,6 +319,11 @@ func (d *decoder) decodeStruct(n *yaml.Node, v reflect.Value, path string) {
 		k, val := n.Content[i], n.Content[i+1]
 		kp := join(path, k.Value)
 		fi, ok := fields[k.Value]
+		if to, renamed := renamedKeys[kp]; !ok && renamed {
+			d.errs = append(d.errs, &Error{File: d.file, Line: k.Line, Column: k.Column, Path: path,
+				Msg: fmt.Sprintf("key %q was renamed: write %q", k.Value, to)})
+			continue
+		}
 		if !ok {
 			msg := fmt.Sprintf("unknown key %q", k.Value)
 			if s := suggest(k.Value, names); s != "" {
@@ -337,6 +342,15 @@ func (d *decoder) decodeStruct(n *yaml.Node, v reflect.Value, path string) {
 		d.pos[kp] = [2]int{val.Line, val.Column}
 		d.decode(val, v.Field(fi), kp)
 	}
+}
+
+// renamedKeys maps the full path of each key that an earlier release read
+// to the name it has now. Parse refuses the old spelling at its place and
+// says what to write instead, rather than calling it unknown.
+var renamedKeys = map[string]string{
+	"sources":  "intake",
+	"sinks":    "delivery",
+	"data_dir": "state_dir",
 }
 
 // suggest returns the known name closest to key when it is a likely typo
@@ -440,9 +454,9 @@ func (c *Config) CheckFiles() error {
 			check(p+".limits", u.Model.Limits.File)
 		}
 	}
-	for i, f := range c.Sources.Files {
+	for i, f := range c.Intake.Files {
 		if f != "-" {
-			check(fmt.Sprintf("sources.files[%d]", i), f)
+			check(fmt.Sprintf("intake.files[%d]", i), f)
 		}
 	}
 	if len(errs) == 0 {

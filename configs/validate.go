@@ -16,15 +16,15 @@ import (
 func (c *Config) Validate() error {
 	v := &validator{}
 	c.validateServer(v)
-	c.validateSources(v)
+	c.validateIntake(v)
 	c.validateFrames(v)
 	c.validateChannelsAndUnits(v)
 	v.model("model", c.Model, false)
 	v.alerts("alerts", c.Alerts, false)
-	c.validateSinks(v)
+	c.validateDelivery(v)
 	if c.HTTP.Listen != "" && c.HTTP.Listen != "off" {
 		if _, port, err := net.SplitHostPort(c.HTTP.Listen); err != nil {
-			v.add("http.listen", "%q is not host:port (e.g. 127.0.0.1:7480)", c.HTTP.Listen)
+			v.add("http.listen", "%q is not host:port (e.g. %s)", c.HTTP.Listen, DefaultListen)
 		} else if p, err := strconv.Atoi(port); err != nil || p < 0 || p > 65535 {
 			v.add("http.listen", "port %q is not a number in 0..65535", port)
 		}
@@ -134,33 +134,33 @@ func validSubject(s string) bool {
 	return true
 }
 
-func (c *Config) validateSources(v *validator) {
-	for i, s := range c.Sources.Subjects {
+func (c *Config) validateIntake(v *validator) {
+	for i, s := range c.Intake.Subjects {
 		if !validSubject(s) {
-			v.add(fmt.Sprintf("sources.subjects[%d]", i), "%q is not a valid subject", s)
+			v.add(fmt.Sprintf("intake.subjects[%d]", i), "%q is not a valid subject", s)
 		}
 	}
-	js := c.Sources.JetStream
+	js := c.Intake.JetStream
 	if js.Durable != "" && js.Stream == "" {
-		v.add("sources.jetstream", "durable %q needs a stream", js.Durable)
+		v.add("intake.jetstream", "durable %q needs a stream", js.Durable)
 	}
-	for _, x := range []struct{ path, name string }{{"sources.jetstream.stream", js.Stream}, {"sources.jetstream.durable", js.Durable}} {
+	for _, x := range []struct{ path, name string }{{"intake.jetstream.stream", js.Stream}, {"intake.jetstream.durable", js.Durable}} {
 		if strings.ContainsAny(x.name, " \t.*>") {
 			v.add(x.path, "%q may not contain spaces, '.', '*' or '>'", x.name)
 		}
 	}
 	for i, s := range js.Subjects {
 		if !validSubject(s) {
-			v.add(fmt.Sprintf("sources.jetstream.subjects[%d]", i), "%q is not a valid subject", s)
+			v.add(fmt.Sprintf("intake.jetstream.subjects[%d]", i), "%q is not a valid subject", s)
 		}
 	}
-	for i, f := range c.Sources.Files {
+	for i, f := range c.Intake.Files {
 		if f == "" {
-			v.add(fmt.Sprintf("sources.files[%d]", i), "empty file name")
+			v.add(fmt.Sprintf("intake.files[%d]", i), "empty file name")
 		}
 	}
-	if q := c.Sources.Queue; q.Messages < 0 || q.Bytes < 0 {
-		v.add("sources.queue", "messages %d and bytes %d may not be negative (0: default)", q.Messages, q.Bytes)
+	if q := c.Intake.Queue; q.Messages < 0 || q.Bytes < 0 {
+		v.add("intake.queue", "messages %d and bytes %d may not be negative (0: default)", q.Messages, q.Bytes)
 	}
 }
 
@@ -373,18 +373,18 @@ func (v *validator) alerts(p string, a Alerts, partial bool) {
 	}
 }
 
-func (c *Config) validateSinks(v *validator) {
-	s := c.Sinks
+func (c *Config) validateDelivery(v *validator) {
+	s := c.Delivery
 	if s.Subject != "" && !validToken(s.Subject) {
-		v.add("sinks.subject", "%q is not a valid subject to publish on (no wildcards)", s.Subject)
+		v.add("delivery.subject", "%q is not a valid subject to publish on (no wildcards)", s.Subject)
 	}
 	if s.Webhook != "" {
 		u, err := url.Parse(s.Webhook)
 		if err != nil || (u.Scheme != "http" && u.Scheme != "https") || u.Host == "" {
-			v.add("sinks.webhook", "%q is not an http(s) URL", s.Webhook)
+			v.add("delivery.webhook", "%q is not an http(s) URL", s.Webhook)
 		}
 	}
 	if s.Queue < 0 {
-		v.add("sinks.queue", "negative")
+		v.add("delivery.queue", "negative")
 	}
 }

@@ -38,6 +38,24 @@ func TestCheckBrokenConfig(t *testing.T) {
 	}
 }
 
+// TestCheckRenamedKeys: "modewatch check" on a configuration written for
+// an earlier release names each renamed key at its place and says what to
+// write instead, and exits as for any other problem in the file.
+func TestCheckRenamedKeys(t *testing.T) {
+	cfg := filepath.Join(t.TempDir(), "config.yaml")
+	old := "frames:\n  period: 10s\nsources:\n  subjects: [plant.>]\nsinks:\n  stdout: true\ndata_dir: /tmp/x\n"
+	if err := os.WriteFile(cfg, []byte(old), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	code, out, _ := runCLI(t, "", "check", "--config", cfg)
+	want := cfg + `:3:1: key "sources" was renamed: write "intake"` + "\n" +
+		cfg + `:5:1: key "sinks" was renamed: write "delivery"` + "\n" +
+		cfg + `:7:1: key "data_dir" was renamed: write "state_dir"` + "\n"
+	if code != ExitUsage || out != want {
+		t.Errorf("exit %d, output:\n%s\nwant exit %d and:\n%s", code, out, ExitUsage, want)
+	}
+}
+
 func TestCheckGoodConfig(t *testing.T) {
 	cfg := filepath.Join("..", "..", "..", "..", "configs", "modewatch.yaml")
 	code, out, _ := runCLI(t, "", "check", "--config", cfg)

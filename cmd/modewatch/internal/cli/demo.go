@@ -46,7 +46,7 @@ the binary; the first lines of the output name them). They were found with
 known, invented incidents, not certified for any plant.
 
 Needs no configuration and no network. Data (model, checkpoints, spool)
-goes to a temporary directory unless --data-dir is given. The data is
+goes to a temporary directory unless --state-dir is given. The data is
 invented. modewatch is advisory: it never acts on the plant.`
 
 // demoYAML is the demo's service configuration, configs/demo.yaml (the
@@ -62,17 +62,17 @@ const demoConfigName = "configs/demo.yaml"
 
 // demoConfig returns the demo's configuration (configs/demo.yaml) with the
 // HTTP API on listen (another free port if it is taken) and all its data
-// (model, checkpoints, JetStream store, spool) in dataDir.
-func demoConfig(listen, dataDir string) (*configs.Config, error) {
+// (model, checkpoints, JetStream store, spool) in stateDir.
+func demoConfig(listen, stateDir string) (*configs.Config, error) {
 	cfg, err := configs.Parse(demoConfigName, demoYAML)
 	if err != nil {
 		return nil, fmt.Errorf("the embedded demo configuration: %w", err)
 	}
 	cfg.HTTP.Listen = freeListen(listen)
-	// Everything the demo writes goes under dataDir: the defaults that
-	// derive from data_dir (the sink spool) are filled in again.
-	cfg.DataDir = dataDir
-	cfg.Sinks.SpoolDir = ""
+	// Everything the demo writes goes under stateDir: the defaults that
+	// derive from state_dir (the delivery spool) are filled in again.
+	cfg.StateDir = stateDir
+	cfg.Delivery.SpoolDir = ""
 	cfg.ApplyDefaults()
 	return cfg, nil
 }
@@ -87,7 +87,7 @@ func demoSettings(cfg *configs.Config) string {
 type demoOptions struct {
 	duration time.Duration // wall clock; 0: until the two days are sent
 	listen   string
-	dataDir  string // "" for a temporary directory
+	stateDir string // "" for a temporary directory
 	speed    float64
 	quiet    bool
 }
@@ -107,7 +107,7 @@ func runDemo(ctx context.Context, env IO, args []string) error {
 	fs.DurationVar(&opt.duration, "duration", 0, "stop after this long (wall clock); default: when the two simulated days have been sent")
 	fs.StringVar(&opt.listen, "listen", configs.DefaultListen, "`ADDR` of the HTTP API (another free port is used if it is taken)")
 	fs.Float64Var(&opt.speed, "speed", 1440, "simulated seconds per second (1440: a day per minute)")
-	fs.StringVar(&opt.dataDir, "data-dir", "", "keep the demo's data in `DIR` instead of a temporary directory")
+	fs.StringVar(&opt.stateDir, "state-dir", "", "keep the demo's data in `DIR` instead of a temporary directory")
 	fs.BoolVar(&opt.quiet, "quiet", false, "no live summary, only the final report")
 	pos, err := parseAll(fs, args)
 	if err != nil {
@@ -130,16 +130,16 @@ func runDemo(ctx context.Context, env IO, args []string) error {
 // measured (also printed on env.Out).
 func runDemoWith(ctx context.Context, env IO, opt demoOptions) (demoOutcome, error) {
 	var oc demoOutcome
-	dataDir := opt.dataDir
-	if dataDir == "" {
+	stateDir := opt.stateDir
+	if stateDir == "" {
 		dir, err := os.MkdirTemp("", "modewatch-demo-")
 		if err != nil {
 			return oc, err
 		}
 		defer os.RemoveAll(dir)
-		dataDir = dir
+		stateDir = dir
 	}
-	cfg, err := demoConfig(opt.listen, dataDir)
+	cfg, err := demoConfig(opt.listen, stateDir)
 	if err != nil {
 		return oc, err
 	}
@@ -175,7 +175,7 @@ func runDemoWith(ctx context.Context, env IO, opt demoOptions) (demoOutcome, err
 	if err != nil {
 		return oc, fmt.Errorf("fitting the first day: %w", err)
 	}
-	modelPath := filepath.Join(dataDir, "demo-model.json")
+	modelPath := filepath.Join(stateDir, "demo-model.json")
 	if err := pipeline.WriteModel(modelPath, model); err != nil {
 		return oc, err
 	}
@@ -202,7 +202,7 @@ func runDemoWith(ctx context.Context, env IO, opt demoOptions) (demoOutcome, err
 	fmt.Fprintf(w, "2. service running with an embedded NATS server at %s\n", info.NATS)
 	fmt.Fprintf(w, "   HTTP API:  %s/api/units   %s/api/alerts   %s/metrics   %s/healthz\n", info.HTTP, info.HTTP, info.HTTP, info.HTTP)
 	fmt.Fprintf(w, "   subjects:  readings modewatch.readings.<unit>, alerts %s, scores %s\n", info.Alerts, info.Scores)
-	fmt.Fprintf(w, "   data:      %s\n", dataDir)
+	fmt.Fprintf(w, "   state:     %s\n", stateDir)
 
 	// 3. The next two days, live.
 	live := sc.Clone()

@@ -22,7 +22,7 @@ func TestDemoRuns(t *testing.T) {
 	if testing.Short() {
 		t.Skip("runs the demo for a few seconds")
 	}
-	code, out, errs := runCLI(t, "", "demo", "--duration", "3s", "--speed", "20000", "--data-dir", t.TempDir())
+	code, out, errs := runCLI(t, "", "demo", "--duration", "3s", "--speed", "20000", "--state-dir", t.TempDir())
 	if code != ExitOK {
 		t.Fatalf("exit %d\nstdout:\n%s\nstderr:\n%s", code, out, errs)
 	}
@@ -61,12 +61,12 @@ func TestDemoOutcome(t *testing.T) {
 	ctx, cancel := context.WithTimeout(context.Background(), 2*time.Minute)
 	defer cancel()
 	oc, err := runDemoWith(ctx, IO{In: strings.NewReader(""), Out: &out, Err: &errb},
-		demoOptions{listen: "127.0.0.1:0", dataDir: t.TempDir(), speed: 15000, quiet: true})
+		demoOptions{listen: "127.0.0.1:0", stateDir: t.TempDir(), speed: 15000, quiet: true})
 	if err != nil {
 		t.Fatalf("%v\nstdout:\n%s\nstderr:\n%s", err, out.String(), errb.String())
 	}
 	// 15000× sends a sample every 1.3 ms (4 messages); the demo
-	// configuration's subscription queue (sources.queue, 262,144 messages)
+	// configuration's subscription queue (intake.queue, 262,144 messages)
 	// bridges a stall of the service of about a minute.
 	if oc.linesTaken != oc.linesSent {
 		t.Errorf("the service received %d of %d lines (it could not keep up at this speed)", oc.linesTaken, oc.linesSent)
@@ -122,9 +122,9 @@ func TestDemoConfigCopyIdentical(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	// Nothing may be written outside the demo's data directory.
-	if cfg.DataDir != dir || !strings.HasPrefix(cfg.Sinks.SpoolDir, dir) {
-		t.Errorf("data_dir %q, spool %q: want both under %q", cfg.DataDir, cfg.Sinks.SpoolDir, dir)
+	// Nothing may be written outside the demo's state directory.
+	if cfg.StateDir != dir || !strings.HasPrefix(cfg.Delivery.SpoolDir, dir) {
+		t.Errorf("state_dir %q, spool %q: want both under %q", cfg.StateDir, cfg.Delivery.SpoolDir, dir)
 	}
 	if cfg.Frames.Period != 20*time.Second || cfg.Server.EmbeddedPort != -1 {
 		t.Errorf("period %s, embedded port %d", cfg.Frames.Period, cfg.Server.EmbeddedPort)

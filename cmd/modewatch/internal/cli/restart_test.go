@@ -133,13 +133,13 @@ func TestKillRestart(t *testing.T) {
 		os.MkdirAll(data, 0o755)
 		cfg := filepath.Join(data, "config.yaml")
 		os.WriteFile(cfg, []byte(fmt.Sprintf(`server: {urls: [%q]}
-sources:
+intake:
   jetstream: {stream: READINGS, durable: %s}
 frames: {period: 20s}
 model: {file: %q}
-sinks: {file: %q}
+delivery: {file: %q}
 http: {listen: "off"}
-data_dir: %q
+state_dir: %q
 checkpoint_interval: 1s
 log: {level: warn}
 `, srv.ClientURL(), name, modelPath, filepath.Join(data, "alerts.jsonl"), data)), 0o644)

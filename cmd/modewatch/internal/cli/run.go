@@ -20,18 +20,18 @@ Run the live monitoring service. It subscribes to the readings subjects
 (or a JetStream durable consumer), frames the readings, scores every frame
 of every unit against its model, and publishes alerts (JSON) on
 <prefix>.alerts.<unit> and scores (line protocol) on <prefix>.scores.<unit>,
-also through the configured alert sinks. With no server URLs configured it
-starts an embedded NATS server (JetStream stored in the data directory) on
+also through the configured delivery targets. With no server URLs configured it
+starts an embedded NATS server (JetStream stored in the state directory) on
 the loopback address.
 
-HTTP API (default 127.0.0.1:7480): /healthz, /readyz, /metrics, /api/units,
+HTTP API (default ` + configs.DefaultListen + `): /healthz, /readyz, /metrics, /api/units,
 /api/units/{unit}, /api/alerts, POST /api/alerts/{ack|shelve|unshelve},
 POST /api/units/{unit}/maintenance.
 
-Every unit is checkpointed to <data_dir>/checkpoints at the configured
+Every unit is checkpointed to <state_dir>/checkpoints at the configured
 interval and at shutdown, atomically, and restored on start. SIGINT or
-SIGTERM stops intake, scores what is queued, checkpoints, flushes the sinks
-and exits 0 within shutdown_timeout; a second signal exits at once.
+SIGTERM stops intake, scores what is queued, checkpoints, flushes the delivery
+queues and exits 0 within shutdown_timeout; a second signal exits at once.
 
 frames.period is required (or model.file, whose period is used).
 modewatch is advisory: it never acts on the plant.`

@@ -20,7 +20,7 @@ func TestShutdownLeavesNoGoroutines(t *testing.T) {
 frames: {period: 10s}
 server: {embedded_port: -1}
 http: {listen: "127.0.0.1:0"}
-data_dir: `+filepath.Join(dir, "data")+`
+state_dir: `+filepath.Join(dir, "data")+`
 `))
 	if err != nil {
 		t.Fatal(err)

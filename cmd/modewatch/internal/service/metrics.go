@@ -9,18 +9,18 @@ import (
 
 // metrics exposes the service's state in the Prometheus text format. The
 // values are read at scrape time from the pipeline, intake, alarm engine,
-// NATS connection and sinks, so nothing is counted twice.
+// NATS connection and delivery targets, so nothing is counted twice.
 type metrics struct {
 	s   *Service
 	reg *prometheus.Registry
 
-	frames, unitFrames, lines, rejected, readings            *prometheus.Desc
-	stat, limit, ready, nEff, modes, iters, missing, warming *prometheus.Desc
-	refreshes, refreshTime                                   *prometheus.Desc
-	alertsOpen, alertsOpened, alertsHour, floods, inMaint    *prometheus.Desc
-	natsUp, natsReconnects, natsDisconnects                  *prometheus.Desc
-	queueDepth, dropped, sinkDepth, sinkPending, sinkDropped *prometheus.Desc
-	sinkDelivered, ckptTime, ckptErrors, scoreErrors         *prometheus.Desc
+	frames, unitFrames, lines, rejected, readings                        *prometheus.Desc
+	stat, limit, ready, nEff, modes, iters, missing, warming             *prometheus.Desc
+	refreshes, refreshTime                                               *prometheus.Desc
+	alertsOpen, alertsOpened, alertsHour, floods, inMaint                *prometheus.Desc
+	natsUp, natsReconnects, natsDisconnects                              *prometheus.Desc
+	queueDepth, dropped, deliveryDepth, deliveryPending, deliveryDropped *prometheus.Desc
+	deliveryDone, ckptTime, ckptErrors, scoreErrors                      *prometheus.Desc
 }
 
 func newMetrics(s *Service) *metrics {
@@ -55,10 +55,10 @@ func newMetrics(s *Service) *metrics {
 		natsDisconnects: d("nats_disconnects_total", "Disconnections from NATS."),
 		queueDepth:      d("readings_queue_depth", "Messages waiting in the readings queue."),
 		dropped:         d("readings_dropped_total", "Messages dropped because the readings queue was full."),
-		sinkDepth:       d("sink_queue_depth", "Alert records waiting in a sink's queue.", "sink"),
-		sinkPending:     d("sink_spool_pending_bytes", "Spooled bytes not yet delivered by a sink.", "sink"),
-		sinkDropped:     d("sink_dropped_total", "Alert records a sink could not keep.", "sink"),
-		sinkDelivered:   d("sink_delivered_total", "Alert records delivered by a sink.", "sink"),
+		deliveryDepth:   d("delivery_queue_depth", "Alert records waiting in a delivery target's queue.", "target"),
+		deliveryPending: d("delivery_spool_pending_bytes", "Spooled bytes not yet delivered to a delivery target.", "target"),
+		deliveryDropped: d("delivery_dropped_total", "Alert records a delivery target could not keep.", "target"),
+		deliveryDone:    d("delivery_delivered_total", "Alert records delivered to a delivery target.", "target"),
 		ckptTime:        d("checkpoint_last_success_timestamp_seconds", "Time of the last successful checkpoint (Unix seconds)."),
 		ckptErrors:      d("checkpoint_errors_total", "Checkpoints that failed."),
 		scoreErrors:     d("score_publish_errors_total", "Score lines that could not be published."),
@@ -71,8 +71,8 @@ func newMetrics(s *Service) *metrics {
 func (m *metrics) Describe(ch chan<- *prometheus.Desc) {
 	for _, d := range []*prometheus.Desc{m.frames, m.unitFrames, m.lines, m.rejected, m.readings, m.stat, m.limit, m.ready,
 		m.nEff, m.modes, m.iters, m.missing, m.warming, m.refreshes, m.refreshTime, m.alertsOpen, m.alertsOpened, m.alertsHour, m.floods, m.inMaint, m.natsUp,
-		m.natsReconnects, m.natsDisconnects, m.queueDepth, m.dropped, m.sinkDepth, m.sinkPending, m.sinkDropped,
-		m.sinkDelivered, m.ckptTime, m.ckptErrors, m.scoreErrors} {
+		m.natsReconnects, m.natsDisconnects, m.queueDepth, m.dropped, m.deliveryDepth, m.deliveryPending, m.deliveryDropped,
+		m.deliveryDone, m.ckptTime, m.ckptErrors, m.scoreErrors} {
 		ch <- d
 	}
 }
@@ -156,10 +156,10 @@ func (m *metrics) Collect(ch chan<- prometheus.Metric) {
 	if s.sinks != nil {
 		for _, k := range s.sinks.Sinks() {
 			st := k.Stats()
-			g(m.sinkDepth, float64(st.QueueDepth), k.Name())
-			g(m.sinkPending, float64(st.Pending), k.Name())
-			c(m.sinkDropped, float64(st.Dropped), k.Name())
-			c(m.sinkDelivered, float64(st.Delivered), k.Name())
+			g(m.deliveryDepth, float64(st.QueueDepth), k.Name())
+			g(m.deliveryPending, float64(st.Pending), k.Name())
+			c(m.deliveryDropped, float64(st.Dropped), k.Name())
+			c(m.deliveryDone, float64(st.Delivered), k.Name())
 		}
 	}
 	if t := s.lastCkpt.Load(); t > 0 {

@@ -35,7 +35,7 @@ import (
 type Options struct {
 	Config *configs.Config
 	Log    *slog.Logger
-	// Stdout receives the stdout alert sink (sinks.stdout); default os.Stdout.
+	// Stdout receives the stdout alert delivery (delivery.stdout); default os.Stdout.
 	Stdout io.Writer
 	// OnScore, if set, is also called for every unit and frame (from the
 	// frame goroutine; it must be quick). The demo uses it for its summary.
@@ -131,7 +131,7 @@ func Start(ctx context.Context, opt Options) (_ *Service, err error) {
 	if period == 0 {
 		return nil, errors.New("service: frames.period is required for the live service (or model.file, whose period is used)")
 	}
-	if err := os.MkdirAll(cfg.DataDir, 0o755); err != nil {
+	if err := os.MkdirAll(cfg.StateDir, 0o755); err != nil {
 		return nil, fmt.Errorf("service: data directory: %w", err)
 	}
 
@@ -140,14 +140,14 @@ func Start(ctx context.Context, opt Options) (_ *Service, err error) {
 	if len(urls) == 0 {
 		port := cfg.Server.EmbeddedPort
 		s.emb, err = natsource.StartEmbedded(ctx, natsource.EmbeddedConfig{
-			Port: port, StoreDir: filepath.Join(cfg.DataDir, "jetstream"),
+			Port: port, StoreDir: filepath.Join(cfg.StateDir, "jetstream"),
 		}, slog.New(minLevel{log.Handler(), slog.LevelWarn}).With("component", "nats-server"))
 		if err != nil {
 			return nil, err
 		}
 		urls = []string{s.emb.ClientURL()}
 		s.info.Embedded = true
-		log.Info("embedded NATS server started", "url", s.emb.ClientURL(), "store", filepath.Join(cfg.DataDir, "jetstream"))
+		log.Info("embedded NATS server started", "url", s.emb.ClientURL(), "store", filepath.Join(cfg.StateDir, "jetstream"))
 	}
 	s.met = newMetrics(s)
 	s.conn, err = natsource.Connect(ctx, natsource.Options{
@@ -201,11 +201,11 @@ func Start(ctx context.Context, opt Options) (_ *Service, err error) {
 		return nil, err
 	}
 	s.seed(seeds)
-	if len(cfg.Sources.Files) > 0 {
-		if err := s.in.ReadFiles(ctx, cfg.Sources.Files...); err != nil {
+	if len(cfg.Intake.Files) > 0 {
+		if err := s.in.ReadFiles(ctx, cfg.Intake.Files...); err != nil {
 			return nil, err
 		}
-		log.Info("files read before going live", "files", cfg.Sources.Files)
+		log.Info("files read before going live", "files", cfg.Intake.Files)
 	}
 
 	// Operator commands on NATS.
@@ -214,7 +214,7 @@ func Start(ctx context.Context, opt Options) (_ *Service, err error) {
 	}
 
 	// Readings.
-	if js := cfg.Sources.JetStream; js.Stream != "" {
+	if js := cfg.Intake.JetStream; js.Stream != "" {
 		durable := js.Durable
 		if durable == "" {
 			durable = "modewatch"
@@ -223,7 +223,7 @@ func Start(ctx context.Context, opt Options) (_ *Service, err error) {
 		jctx, cancel := context.WithTimeout(ctx, 30*time.Second)
 		defer cancel()
 		s.js, err = s.conn.ConsumeJetStream(jctx, natsource.JetStreamConfig{
-			Stream: js.Stream, Durable: durable, FilterSubjects: cfg.Sources.Subjects,
+			Stream: js.Stream, Durable: durable, FilterSubjects: cfg.Intake.Subjects,
 			// Created if missing (capturing jetstream.subjects, default the
 			// readings subjects); an existing stream is used as it is.
 			CreateStream: len(js.Subjects) > 0, StreamSubjects: js.Subjects,
@@ -238,13 +238,13 @@ func Start(ctx context.Context, opt Options) (_ *Service, err error) {
 		s.info.Readings = []string{"jetstream " + js.Stream + "/" + durable}
 	} else {
 		sctx, cancel := context.WithTimeout(ctx, 10*time.Second)
-		s.core, err = s.conn.SubscribeCore(sctx, natsource.CoreConfig{Subjects: cfg.Sources.Subjects,
-			QueueMsgs: cfg.Sources.Queue.Messages, QueueBytes: cfg.Sources.Queue.Bytes}, s.onCore)
+		s.core, err = s.conn.SubscribeCore(sctx, natsource.CoreConfig{Subjects: cfg.Intake.Subjects,
+			QueueMsgs: cfg.Intake.Queue.Messages, QueueBytes: cfg.Intake.Queue.Bytes}, s.onCore)
 		cancel()
 		if err != nil {
 			return nil, err
 		}
-		s.info.Readings = cfg.Sources.Subjects
+		s.info.Readings = cfg.Intake.Subjects
 	}
 
 	// HTTP API.
@@ -288,13 +288,13 @@ func (s *Service) Conn() *natsource.Conn { return s.conn }
 
 func (s *Service) openSinks(nc *nats.Conn) (*sink.Set, error) {
 	cfg := s.cfg
-	spool := cfg.Sinks.SpoolDir
+	spool := cfg.Delivery.SpoolDir
 	if err := os.MkdirAll(spool, 0o755); err != nil {
 		return nil, fmt.Errorf("service: spool: %w", err)
 	}
 	var sinks []*sink.Sink
 	add := func(name string, d sink.Deliverer) error {
-		k, err := sink.New(d, sink.Options{Name: name, QueueLen: cfg.Sinks.Queue, SpoolDir: spool, Logger: s.log.With("sink", name)})
+		k, err := sink.New(d, sink.Options{Name: name, QueueLen: cfg.Delivery.Queue, SpoolDir: spool, Logger: s.log.With("target", name)})
 		if err != nil {
 			return err
 		}
@@ -308,8 +308,8 @@ func (s *Service) openSinks(nc *nats.Conn) (*sink.Set, error) {
 	if err := add("nats-alerts", natsSink); err != nil {
 		return nil, err
 	}
-	if cfg.Sinks.Subject != "" {
-		d, err := sink.NewNATS(nc, sink.NATSOptions{Subject: cfg.Sinks.Subject})
+	if cfg.Delivery.Subject != "" {
+		d, err := sink.NewNATS(nc, sink.NATSOptions{Subject: cfg.Delivery.Subject})
 		if err != nil {
 			return nil, err
 		}
@@ -317,13 +317,13 @@ func (s *Service) openSinks(nc *nats.Conn) (*sink.Set, error) {
 			return nil, err
 		}
 	}
-	if cfg.Sinks.Stdout {
+	if cfg.Delivery.Stdout {
 		if err := add("stdout", sink.NewLines(s.opt.Stdout)); err != nil {
 			return nil, err
 		}
 	}
-	if cfg.Sinks.File != "" {
-		d, err := sink.OpenLines(cfg.Sinks.File, false)
+	if cfg.Delivery.File != "" {
+		d, err := sink.OpenLines(cfg.Delivery.File, false)
 		if err != nil {
 			return nil, err
 		}
@@ -331,8 +331,8 @@ func (s *Service) openSinks(nc *nats.Conn) (*sink.Set, error) {
 			return nil, err
 		}
 	}
-	if cfg.Sinks.Webhook != "" {
-		d, err := sink.NewWebhook(cfg.Sinks.Webhook, nil, nil)
+	if cfg.Delivery.Webhook != "" {
+		d, err := sink.NewWebhook(cfg.Delivery.Webhook, nil, nil)
 		if err != nil {
 			return nil, err
 		}
@@ -340,13 +340,13 @@ func (s *Service) openSinks(nc *nats.Conn) (*sink.Set, error) {
 			return nil, err
 		}
 	}
-	return sink.NewSet(s.log.With("component", "sinks"), sinks...), nil
+	return sink.NewSet(s.log.With("component", "delivery"), sinks...), nil
 }
 
 // restore loads the unit checkpoints of the data directory. It returns
 // the restored units' carried readings, for seed.
 func (s *Service) restore() []pipeline.LastReading {
-	dir := filepath.Join(s.cfg.DataDir, "checkpoints")
+	dir := filepath.Join(s.cfg.StateDir, "checkpoints")
 	cks, errs := pipeline.ReadCheckpoints(dir)
 	for _, err := range errs {
 		s.log.Warn("checkpoint not usable; the unit warms up again", "err", err)
@@ -474,7 +474,7 @@ func (s *Service) Checkpoint() error {
 	s.heldAcks = nil
 	s.ackMu.Unlock()
 	start := time.Now()
-	n, err := s.pl.WriteCheckpoints(filepath.Join(s.cfg.DataDir, "checkpoints"))
+	n, err := s.pl.WriteCheckpoints(filepath.Join(s.cfg.StateDir, "checkpoints"))
 	if err != nil {
 		s.ckptErrors.Add(1)
 		s.ackMu.Lock()

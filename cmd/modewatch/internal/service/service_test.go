@@ -86,7 +86,7 @@ frames: {period: 20s}
 server: {embedded_port: -1}
 http: {listen: "127.0.0.1:0"}
 model: {file: `+modelFile+`}
-data_dir: `+filepath.Join(dir, "data")+`
+state_dir: `+filepath.Join(dir, "data")+`
 checkpoint_interval: 1m
 `))
 	if err != nil {

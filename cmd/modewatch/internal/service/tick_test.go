@@ -24,7 +24,7 @@ func TestStalledUnitShelfExpires(t *testing.T) {
 frames: {period: 1s}
 server: {embedded_port: -1}
 http: {listen: "off"}
-data_dir: `+filepath.Join(dir, "data")+`
+state_dir: `+filepath.Join(dir, "data")+`
 `))
 	if err != nil {
 		t.Fatal(err)
