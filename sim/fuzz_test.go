@@ -2,6 +2,7 @@ package sim
 
 import (
 	"os"
+	"strings"
 	"testing"
 	"time"
 )
@@ -13,6 +14,21 @@ func FuzzLoadBytes(f *testing.F) {
 	f.Add([]byte(minimal))
 	f.Add([]byte(faultBase))
 	f.Add([]byte(realism))
+	// Plants dated before 1970, one crossing the epoch, and at the start of
+	// the range the stream package accepts (frame times are negative Unix
+	// nanoseconds there).
+	for _, start := range []time.Time{
+		time.Date(1969, 12, 31, 23, 59, 0, 0, time.UTC),
+		time.Date(1955, 6, 1, 0, 0, 0, 0, time.UTC),
+		time.Date(1823, 12, 1, 0, 0, 0, 0, time.UTC),
+	} {
+		b := strings.Replace(minimal, "2026-01-05T00:00:00Z", start.Format(time.RFC3339), 1)
+		b = strings.Replace(b, "2026-01-05T00:30:00Z", start.Add(30*time.Minute).Format(time.RFC3339), 1)
+		if _, err := LoadBytes("seed.yaml", []byte(b)); err != nil {
+			f.Fatalf("seed starting %v: %v", start, err)
+		}
+		f.Add([]byte(b))
+	}
 	if b, err := os.ReadFile("testdata/bad.yaml"); err == nil {
 		f.Add(b)
 	}
