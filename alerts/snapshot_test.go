@@ -87,6 +87,19 @@ func newRecorder(t *testing.T, out *[]string) *Engine {
 
 // TestSnapshotRestore: stopping at any frame, restoring into a new engine
 // and going on gives exactly the records of an uninterrupted run.
+// snapshotAfter runs the scenario on a new recording engine up to frame cut
+// and returns the engine and its snapshot.
+func snapshotAfter(t *testing.T, cut int, got *[]string) (*Engine, []byte) {
+	t.Helper()
+	e := newRecorder(t, got)
+	scenario(t, e, got, 0, cut)
+	var buf bytes.Buffer
+	if err := e.Snapshot(&buf); err != nil {
+		t.Fatal(err)
+	}
+	return e, buf.Bytes()
+}
+
 func TestSnapshotRestore(t *testing.T) {
 	const end = 1200
 	var want []string
@@ -97,14 +110,9 @@ func TestSnapshotRestore(t *testing.T) {
 	for _, cut := range []int{20, 46, 210, 255, 265, 310, 545, 700, 905, 1011} {
 		t.Run(fmt.Sprint(cut), func(t *testing.T) {
 			var got []string
-			e1 := newRecorder(t, &got)
-			scenario(t, e1, &got, 0, cut)
-			var buf bytes.Buffer
-			if err := e1.Snapshot(&buf); err != nil {
-				t.Fatal(err)
-			}
+			e1, snap := snapshotAfter(t, cut, &got)
 			e2 := newRecorder(t, &got)
-			if err := e2.Restore(bytes.NewReader(buf.Bytes())); err != nil {
+			if err := e2.Restore(bytes.NewReader(snap)); err != nil {
 				t.Fatal(err)
 			}
 			scenario(t, e2, &got, cut, end)
@@ -251,20 +259,15 @@ func TestRestoreFormerStateNames(t *testing.T) {
 	seen := map[string]bool{}
 	for cut := 10; cut < end; cut += 15 {
 		var got []string
-		e1 := newRecorder(t, &got)
-		scenario(t, e1, &got, 0, cut)
-		var buf bytes.Buffer
-		if err := e1.Snapshot(&buf); err != nil {
-			t.Fatal(err)
-		}
-		old := buf.String()
+		_, snap := snapshotAfter(t, cut, &got)
+		old := string(snap)
 		for cur, former := range map[string]string{`"state":"confirming"`: `"state":"pending"`, `"state":"clearing"`: `"state":"returning"`} {
 			if strings.Contains(old, cur) {
 				seen[cur] = true
 				old = strings.ReplaceAll(old, cur, former)
 			}
 		}
-		if old == buf.String() {
+		if old == string(snap) {
 			continue
 		}
 		e2 := newRecorder(t, &got)

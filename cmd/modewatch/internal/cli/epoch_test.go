@@ -1,9 +1,6 @@
 package cli
 
 import (
-	"bytes"
-	"os"
-	"path/filepath"
 	"testing"
 	"time"
 
@@ -27,15 +24,7 @@ func TestReplayBefore1970(t *testing.T) {
 	later := old.AddDate(56, 2, 0) // 2026-02-28 20:00 UTC, a whole number of days later
 	run := func(start time.Time) summary {
 		t.Helper()
-		s := base.Rebase(start)
-		var b bytes.Buffer
-		if err := s.WriteLineProtocol(&b); err != nil {
-			t.Fatal(err)
-		}
-		p := filepath.Join(t.TempDir(), "plant.lp")
-		if err := os.WriteFile(p, b.Bytes(), 0o644); err != nil {
-			t.Fatal(err)
-		}
+		p, _ := scenarioLog(t, base.Rebase(start))
 		code, out, errs := runCLI(t, "", "replay", "--quiet", "--json", p)
 		if code != ExitOK {
 			t.Fatalf("replay of a log starting %v: exit %d: %s", start, code, errs)

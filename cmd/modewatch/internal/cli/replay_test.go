@@ -34,12 +34,18 @@ func demoHours(t *testing.T, hours int) *sim.Scenario {
 // data, deterministic) and returns its path and its lines.
 func demoLog(t *testing.T, hours int) (string, []string) {
 	t.Helper()
-	s := demoHours(t, hours)
+	return scenarioLog(t, demoHours(t, hours))
+}
+
+// scenarioLog writes the readings of scenario s as line protocol to a
+// temporary file and returns its path and its lines.
+func scenarioLog(t *testing.T, s *sim.Scenario) (string, []string) {
+	t.Helper()
 	var b bytes.Buffer
 	if err := s.WriteLineProtocol(&b); err != nil {
 		t.Fatal(err)
 	}
-	p := filepath.Join(t.TempDir(), "demo.lp")
+	p := filepath.Join(t.TempDir(), "plant.lp")
 	if err := os.WriteFile(p, b.Bytes(), 0o644); err != nil {
 		t.Fatal(err)
 	}
