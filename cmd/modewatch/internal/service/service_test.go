@@ -262,9 +262,19 @@ checkpoint_interval: 1m
 	}
 	for _, name := range []string{"modewatch_frames_total", "modewatch_lines_total", "modewatch_statistic", "modewatch_statistic_limit",
 		"modewatch_alerts_open", "modewatch_nats_connected", "modewatch_readings_queue_depth", "modewatch_unit_refresh_iterations",
-		"modewatch_unit_refreshes_total", "modewatch_unit_last_refresh_seconds", "modewatch_unit_warming_channels"} {
+		"modewatch_unit_refreshes_total", "modewatch_unit_last_refresh_seconds", "modewatch_unit_warming_channels",
+		"modewatch_delivery_queue_depth", "modewatch_delivery_spool_pending_bytes", "modewatch_delivery_dropped_total",
+		"modewatch_delivery_delivered_total"} {
 		if fams[name] == nil {
 			t.Errorf("/metrics lacks %s", name)
+		}
+	}
+	for name, f := range fams {
+		if strings.Contains(name, "sink") {
+			t.Errorf("/metrics has %s: delivery metrics are named modewatch_delivery_*", name)
+		}
+		if strings.HasPrefix(name, "modewatch_delivery_") && f.Metric[0].GetLabel()[0].GetName() != "target" {
+			t.Errorf("%s labelled %v, want target", name, f.Metric[0].GetLabel())
 		}
 	}
 	if f := fams["modewatch_nats_connected"]; f != nil && f.Metric[0].GetGauge().GetValue() != 1 {
