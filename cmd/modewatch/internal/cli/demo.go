@@ -301,19 +301,12 @@ loop:
 			eps = append(eps, evaluate.Episode{ID: e.ID, Start: e.Start, End: e.End, Kind: e.Kind, Channels: e.Channels})
 		}
 	}
-	var al []evaluate.Alert
-	for _, r := range recs {
-		a := evaluate.Alert{ID: r.ID, Start: r.Start}
-		for _, c := range r.Contributors {
-			a.Top = append(a.Top, c.Channel)
-		}
-		if len(a.Top) == 0 && r.Quality != nil {
-			a.Top = []string{r.Quality.Channel}
-		}
-		al = append(al, a)
-	}
 	oc.span = last.Sub(first) + sc.Period
-	m := evaluate.Compute(al, eps, oc.span, evaluate.DefaultGrace)
+	ptrs := make([]*alerts.Record, len(recs))
+	for i := range recs {
+		ptrs[i] = &recs[i]
+	}
+	m := evaluate.Compute(evaluate.AlertsOf(ptrs), eps, scoreRun(svc.Pipeline().Views(), first, first.Add(oc.span), evaluate.DefaultGrace))
 	oc.metrics = m
 	fmt.Fprintf(w, "   %d alerts; labelled faults started so far: %d, detected %d, isolated in the top 3: %d; false alerts %d",
 		len(recs), m.Episodes, m.Detected, m.IsolatedTop3, m.FalseAlerts)

@@ -51,7 +51,12 @@ rest of the input is kept. Exit status: 0 done (even with some bad lines),
 duplicate} (late and duplicate count readings), units, modes {unit, id,
 channels, loadings, variance_share}, alerts (count), frames_per_second and,
 with --truth, metrics {episodes, detected, detection_rate, median_delay_s,
-false_alerts, false_alerts_per_day, isolated_top3}.
+false_alerts, false_alerts_per_day, isolated_top3, units {unit, alerts,
+false_alerts, alert_open_share_normal, longest_open_alert_s}, matches}.
+Scoring is strict: an episode is detected only by an alert of a unit that
+holds one of its channels, and an alert is false unless it starts inside an
+episode of its own unit (± --grace). alert_open_share_normal is the share of
+the unit's time outside its episodes (± grace) with an alert open.
 
 --report DIR writes DIR/index.html and DIR/charts/*.svg, a report that
 opens from disk without network access: the summary, per unit T², SPE and
@@ -156,7 +161,7 @@ func runReplay(ctx context.Context, env IO, args []string) error {
 	}
 	sum := summarize(res, rec)
 	if tr != nil {
-		m := evaluate.Compute(rec.alertsForMetrics(), tr.Episodes, sum.span, grace)
+		m := score(res, rec, sum, tr.Episodes, grace)
 		sum.Metrics = &m
 	}
 	if reportDir != "" {
@@ -231,21 +236,31 @@ func (r *recorder) floods() int {
 	return n
 }
 
-// alertsForMetrics converts the incidents: start time and ranked channels
-// (a data-quality alert names its one channel).
-func (r *recorder) alertsForMetrics() []evaluate.Alert {
-	var out []evaluate.Alert
-	for _, rec := range r.incidents() {
-		a := evaluate.Alert{ID: rec.ID, Start: rec.Start}
-		for _, c := range rec.Contributors {
-			a.Top = append(a.Top, c.Channel)
-		}
-		if len(a.Top) == 0 && rec.Quality != nil {
-			a.Top = []string{rec.Quality.Channel}
-		}
-		out = append(out, a)
+// score scores the recorded alerts strictly against the episodes (see
+// evaluate.Compute), each channel in the unit the replay put it in.
+func score(res *pipeline.ReplayResult, rec *recorder, sum *summary, episodes []evaluate.Episode, grace time.Duration) evaluate.Metrics {
+	var from, to time.Time
+	if sum.From != nil {
+		from, to = *sum.From, sum.From.Add(sum.span)
 	}
-	return out
+	return evaluate.Compute(evaluate.AlertsOf(rec.incidents()), episodes, scoreRun(res.Pipeline.Views(), from, to, grace))
+}
+
+// scoreRun is the scorer's view of a run over [from, to): the units of the
+// pipeline and the unit of each of their channels.
+func scoreRun(views []pipeline.UnitView, from, to time.Time, grace time.Duration) evaluate.Run {
+	unitOf := map[string]string{}
+	var units []string
+	for _, v := range views {
+		units = append(units, v.Name)
+		for _, c := range v.Channels {
+			unitOf[c] = v.Name
+		}
+		for _, c := range v.NotModelled {
+			unitOf[c] = v.Name
+		}
+	}
+	return evaluate.Run{From: from, To: to, Grace: grace, Units: units, UnitOf: func(ch string) string { return unitOf[ch] }}
 }
 
 // runEngine runs the pipeline over the inputs with the shared outputs.

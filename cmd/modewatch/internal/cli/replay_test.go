@@ -312,6 +312,26 @@ func TestReplayStdinAndTruth(t *testing.T) {
 	if got, want := *m.FalseAlertsPerDay, float64(m.FalseAlerts)/0.25; got < want*0.99 || got > want*1.01 {
 		t.Errorf("false_alerts_per_day %g, want %g", got, want)
 	}
+	// Per unit: every unit of the replay, its alerts adding up to the
+	// summary's, the open share a fraction, the longest alert within the
+	// 6 h replay.
+	if len(m.Units) != len(a.Units) {
+		t.Fatalf("metrics.units %+v for %d units", m.Units, len(a.Units))
+	}
+	total, falseN := 0, 0
+	for _, u := range m.Units {
+		total += u.Alerts
+		falseN += u.FalseAlerts
+		if u.AlertOpenShareNormal == nil || *u.AlertOpenShareNormal < 0 || *u.AlertOpenShareNormal > 1 || u.LongestOpenAlertS > 6*3600 {
+			t.Errorf("unit %+v", u)
+		}
+	}
+	if total != a.Alerts || falseN != m.FalseAlerts {
+		t.Errorf("units hold %d alerts, %d false; the summary says %d, %d", total, falseN, a.Alerts, m.FalseAlerts)
+	}
+	if !strings.Contains(fromFile, `"alert_open_share_normal"`) || !strings.Contains(fromFile, `"longest_open_alert_s"`) {
+		t.Error("replay --json lacks the per-unit keys")
+	}
 }
 
 func TestReplayUsage(t *testing.T) {

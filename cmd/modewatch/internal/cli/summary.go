@@ -179,6 +179,14 @@ func printSummary(w io.Writer, s *summary) {
 			fmt.Fprintf(w, " (%.2f per day)", *m.FalseAlertsPerDay)
 		}
 		fmt.Fprintf(w, ", %d isolated in the top 3\n", m.IsolatedTop3)
+		for _, u := range m.Units {
+			share := "no normal time"
+			if u.AlertOpenShareNormal != nil {
+				share = fmt.Sprintf("alert open %.1f%% of normal time", 100**u.AlertOpenShareNormal)
+			}
+			fmt.Fprintf(w, "  unit %-12s %d alert(s), %d false, %s, longest alert %s\n", u.Unit, u.Alerts, u.FalseAlerts, share,
+				(time.Duration(u.LongestOpenAlertS) * time.Second).String())
+		}
 	}
 	fmt.Fprintln(w, "Advisory only: verify in the field and follow site procedures.")
 }

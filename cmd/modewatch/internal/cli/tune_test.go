@@ -206,8 +206,10 @@ func TestTuneChecksFirst(t *testing.T) {
 // TestDemoTune runs tune with the demo grid documented in the README
 // (configs/grid-demo.yaml) on the whole demo scenario (invented
 // data, 3 days, 7 labelled episodes) and checks the claim made there: the
-// best setting detects every episode with at most one false alert per
-// simulated day, and best.yaml replays to the same metrics.
+// best setting, scored strictly, stays within the budget of one false alert
+// per simulated day and detects at least 5 of the 7 episodes (measured: 5
+// of 7 at 0.33 per day; no setting of the grid detects all 7 within the
+// budget), and best.yaml replays to the same metrics.
 func TestDemoTune(t *testing.T) {
 	log, truth := demoWithTruth(t, 72)
 	out := filepath.Join(t.TempDir(), "tune")
@@ -219,7 +221,7 @@ func TestDemoTune(t *testing.T) {
 	t.Log("\n" + stdout)
 	rows := readCSV(t, filepath.Join(out, "tune.csv"))
 	best := rows[0]
-	if len(rows) != 16 || best["detected"] != best["episodes"] || best["episodes"] != "7" {
+	if det, _ := strconv.Atoi(best["detected"]); len(rows) != 16 || det < 5 || best["episodes"] != "7" {
 		t.Fatalf("%d rows; best %v", len(rows), best)
 	}
 	perDay, _ := strconv.ParseFloat(best["false_alerts_per_day"], 64)
@@ -230,7 +232,7 @@ func TestDemoTune(t *testing.T) {
 	if code != ExitOK {
 		t.Fatalf("replay best.yaml: %s", errs)
 	}
-	if m := decodeSummary(t, js).Metrics; m.Detected != 7 || strconv.Itoa(m.FalseAlerts) != best["false_alerts"] {
+	if m := decodeSummary(t, js).Metrics; strconv.Itoa(m.Detected) != best["detected"] || strconv.Itoa(m.FalseAlerts) != best["false_alerts"] {
 		t.Errorf("best.yaml replays to %d detected, %d false alerts", m.Detected, m.FalseAlerts)
 	}
 }

@@ -93,7 +93,7 @@ func TestComputeEdges(t *testing.T) {
 			if tc.zeroGrace {
 				grace = 0
 			}
-			got := Compute(tc.alerts, tc.episodes, tc.span, grace)
+			got := Compute(tc.alerts, tc.episodes, oneUnit(tc.span, grace))
 			if got.Episodes != len(tc.episodes) || got.Detected != tc.detected || got.FalseAlerts != tc.falseN || got.IsolatedTop3 != tc.isolated {
 				t.Errorf("counts: episodes %d detected %d false %d isolated %d, want %d %d %d %d",
 					got.Episodes, got.Detected, got.FalseAlerts, got.IsolatedTop3, len(tc.episodes), tc.detected, tc.falseN, tc.isolated)

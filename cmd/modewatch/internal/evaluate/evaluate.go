@@ -1,6 +1,8 @@
 // Package evaluate scores a replay's alerts against labelled episodes (a
-// truth file): detection, delay, false alerts and isolation, as reported by
-// "modewatch replay --truth FILE --json".
+// truth file): detection, delay, false alerts, isolation and, per unit, the
+// share of normal time with an alert open, as reported by "modewatch replay
+// --truth FILE --json", tune, the demo, the report and the realism suite.
+// The scoring is strict: an alert counts only for the unit that raised it.
 package evaluate
 
 import (
@@ -9,8 +11,12 @@ import (
 	"fmt"
 	"io"
 	"os"
+	"slices"
 	"sort"
+	"strings"
 	"time"
+
+	"modewatch/alerts"
 )
 
 // DefaultGrace is how far an episode is extended on both sides before an
@@ -77,12 +83,69 @@ func DecodeTruth(r io.Reader) (*Truth, error) {
 	return &t, nil
 }
 
-// Alert is what the metrics need of an alert record: when it started and
-// its contributing channels, ranked.
+// Alert is what the metrics need of an alert record: its unit, when it
+// started and ended, and its contributing channels, ranked.
 type Alert struct {
 	ID    string
+	Unit  string
 	Start time.Time
-	Top   []string // contributing channels, largest share first
+	End   time.Time // zero: still open when the replay ended
+	Top   []string  // contributing channels, largest share first
+}
+
+// AlertsOf converts alert records to the alerts the metrics score: every
+// incident (flood records are left out: their members are incidents
+// themselves), with its contributors ranked; a data-quality alert without
+// contributors names its one channel.
+func AlertsOf(recs []*alerts.Record) []Alert {
+	var out []Alert
+	for _, r := range recs {
+		if r.Kind == alerts.KindFlood {
+			continue
+		}
+		a := Alert{ID: r.ID, Unit: r.Unit, Start: r.Start}
+		if r.End != nil {
+			a.End = *r.End
+		}
+		for _, c := range r.Contributors {
+			a.Top = append(a.Top, c.Channel)
+		}
+		if len(a.Top) == 0 && r.Quality != nil {
+			a.Top = []string{r.Quality.Channel}
+		}
+		out = append(out, a)
+	}
+	return out
+}
+
+// Run is what the scorer needs of the replay beyond the alerts.
+type Run struct {
+	// From and To bound the replay in event time (To excluded): the
+	// per-day rate and the open share are taken over it.
+	From, To time.Time
+	// Grace extends each episode on both sides before an alert starting
+	// outside it counts as false (DefaultGrace is the commands' default).
+	Grace time.Duration
+	// UnitOf maps a channel to the unit that holds it under the
+	// configuration or auto-discovery. Nil, or "" for a channel it does not
+	// know: the text before the channel's first dot (the measurement, the
+	// unit under auto-discovery).
+	UnitOf func(channel string) string
+	// Units lists the units reported under Metrics.Units, in order; units
+	// that only appear in alerts are added after them, sorted.
+	Units []string
+}
+
+func (r Run) unitOf(ch string) string {
+	if r.UnitOf != nil {
+		if u := r.UnitOf(ch); u != "" {
+			return u
+		}
+	}
+	if i := strings.IndexByte(ch, '.'); i >= 0 {
+		return ch[:i]
+	}
+	return ch
 }
 
 // Metrics is the "metrics" object of replay --json. Rates and delays that
@@ -95,9 +158,25 @@ type Metrics struct {
 	FalseAlerts       int      `json:"false_alerts"`
 	FalseAlertsPerDay *float64 `json:"false_alerts_per_day"`
 	IsolatedTop3      int      `json:"isolated_top3"`
+	// Per unit: alerts, false alerts, open share and longest alert.
+	Units []UnitMetrics `json:"units"`
 	// Per episode: the id of the first alert inside it ("" if missed),
 	// for reports.
 	Matches []Match `json:"matches,omitempty"`
+}
+
+// UnitMetrics scores one unit.
+type UnitMetrics struct {
+	Unit        string `json:"unit"`
+	Alerts      int    `json:"alerts"`
+	FalseAlerts int    `json:"false_alerts"`
+	// AlertOpenShareNormal is the share of the unit's normal time (the run
+	// outside the unit's own episodes ± grace) during which at least one of
+	// its alerts was open; null when the unit has no normal time.
+	AlertOpenShareNormal *float64 `json:"alert_open_share_normal"`
+	// LongestOpenAlertS is the longest time one alert of the unit was open
+	// (until the end of the run for an alert still open), in seconds.
+	LongestOpenAlertS float64 `json:"longest_open_alert_s"`
 }
 
 // Match says how one episode was seen.
@@ -108,31 +187,49 @@ type Match struct {
 	Isolated bool     `json:"isolated_top3"`
 }
 
-// Compute scores alerts against episodes over a replay that covered span
-// of event time (for the per-day rate).
+// Compute scores alerts against episodes strictly, by unit: an alert
+// speaks only for the unit that raised it.
 //
-//   - An episode is detected when an alert starts inside [start, end]
-//     (both ends included); its delay is from the episode start to the
-//     first such alert.
-//   - A false alert starts outside every episode extended by grace on both
-//     sides, [start − grace, end + grace].
+//   - An episode belongs to the units holding its channels (run.UnitOf).
+//     It is detected when an alert of one of those units starts inside
+//     [start, end] (both ends included); its delay is from the episode
+//     start to the first such alert. An alert of another unit is no
+//     detection.
+//   - A false alert starts outside every episode of its own unit extended
+//     by grace on both sides, [start − grace, end + grace]; an alert of
+//     another unit during an episode is false.
 //   - isolated_top3 counts detected episodes whose first alert lists one of
-//     the episode's channels among its top three contributors.
+//     the episode's channels among its top three contributors (a
+//     data-quality alert lists its own channel).
 //   - median_delay_s is the median of the delays of the detected episodes
 //     (the mean of the middle two for an even count).
+//   - Per unit, alert_open_share_normal is |open ∩ normal| / |normal|,
+//     where normal is [from, to) minus the unit's episodes ± grace and open
+//     is the union of its alerts' [start, end) (end = to while open);
+//     longest_open_alert_s is the longest such interval of one alert.
 //
-// An alert inside two overlapping episodes detects both.
-func Compute(alerts []Alert, episodes []Episode, span, grace time.Duration) Metrics {
+// An alert inside two overlapping episodes of its unit detects both.
+func Compute(alerts []Alert, episodes []Episode, run Run) Metrics {
+	grace := run.Grace
 	sorted := make([]Alert, len(alerts))
 	copy(sorted, alerts)
 	sort.SliceStable(sorted, func(i, j int) bool { return sorted[i].Start.Before(sorted[j].Start) })
 
-	m := Metrics{Episodes: len(episodes)}
+	// The units of each episode.
+	epUnits := make([]map[string]bool, len(episodes))
+	for i, e := range episodes {
+		epUnits[i] = map[string]bool{}
+		for _, ch := range e.Channels {
+			epUnits[i][run.unitOf(ch)] = true
+		}
+	}
+
+	m := Metrics{Episodes: len(episodes), Units: []UnitMetrics{}}
 	var delays []float64
-	for _, e := range episodes {
+	for i, e := range episodes {
 		match := Match{Episode: e.ID}
 		for _, a := range sorted {
-			if a.Start.Before(e.Start) || a.Start.After(e.End) {
+			if !epUnits[i][a.Unit] || a.Start.Before(e.Start) || a.Start.After(e.End) {
 				continue
 			}
 			d := a.Start.Sub(e.Start).Seconds()
@@ -144,10 +241,8 @@ func Compute(alerts []Alert, episodes []Episode, span, grace time.Duration) Metr
 				top = top[:3]
 			}
 			for _, ch := range top {
-				for _, ech := range e.Channels {
-					if ch == ech {
-						match.Isolated = true
-					}
+				if slices.Contains(e.Channels, ch) {
+					match.Isolated = true
 				}
 			}
 			if match.Isolated {
@@ -157,18 +252,75 @@ func Compute(alerts []Alert, episodes []Episode, span, grace time.Duration) Metr
 		}
 		m.Matches = append(m.Matches, match)
 	}
+
+	byUnit := map[string]*UnitMetrics{}
+	var order []string
+	addUnit := func(u string) *UnitMetrics {
+		if um := byUnit[u]; um != nil {
+			return um
+		}
+		byUnit[u] = &UnitMetrics{Unit: u}
+		order = append(order, u)
+		return byUnit[u]
+	}
+	for _, u := range run.Units {
+		addUnit(u)
+	}
+	var extra []string
 	for _, a := range sorted {
+		if byUnit[a.Unit] == nil {
+			extra = append(extra, a.Unit)
+			byUnit[a.Unit] = &UnitMetrics{Unit: a.Unit}
+		}
+	}
+	sort.Strings(extra)
+	order = append(order, extra...)
+
+	for _, a := range sorted {
+		um := byUnit[a.Unit]
+		um.Alerts++
 		inside := false
-		for _, e := range episodes {
-			if !a.Start.Before(e.Start.Add(-grace)) && !a.Start.After(e.End.Add(grace)) {
+		for i, e := range episodes {
+			if epUnits[i][a.Unit] && !a.Start.Before(e.Start.Add(-grace)) && !a.Start.After(e.End.Add(grace)) {
 				inside = true
 				break
 			}
 		}
 		if !inside {
 			m.FalseAlerts++
+			um.FalseAlerts++
 		}
 	}
+
+	for _, u := range order {
+		um := byUnit[u]
+		var excluded, open []interval
+		for i, e := range episodes {
+			if epUnits[i][u] {
+				excluded = append(excluded, interval{e.Start.Add(-grace), e.End.Add(grace)})
+			}
+		}
+		for _, a := range sorted {
+			if a.Unit != u {
+				continue
+			}
+			end := a.End
+			if end.IsZero() || (!run.To.IsZero() && end.After(run.To)) {
+				end = run.To
+			}
+			if d := end.Sub(a.Start).Seconds(); d > um.LongestOpenAlertS {
+				um.LongestOpenAlertS = d
+			}
+			open = append(open, interval{a.Start, end})
+		}
+		normal := subtract([]interval{{run.From, run.To}}, excluded)
+		if total := length(normal); total > 0 {
+			share := length(intersect(normal, union(open))) / total
+			um.AlertOpenShareNormal = &share
+		}
+		m.Units = append(m.Units, *um)
+	}
+
 	if m.Episodes > 0 {
 		r := float64(m.Detected) / float64(m.Episodes)
 		m.DetectionRate = &r
@@ -182,9 +334,90 @@ func Compute(alerts []Alert, episodes []Episode, span, grace time.Duration) Metr
 		}
 		m.MedianDelayS = &med
 	}
-	if span > 0 {
+	if span := run.To.Sub(run.From); span > 0 {
 		r := float64(m.FalseAlerts) / (span.Hours() / 24)
 		m.FalseAlertsPerDay = &r
 	}
 	return m
+}
+
+// interval is [from, to) in event time.
+type interval struct{ from, to time.Time }
+
+// union merges intervals into sorted disjoint ones (empty ones dropped).
+func union(in []interval) []interval {
+	var s []interval
+	for _, iv := range in {
+		if iv.to.After(iv.from) {
+			s = append(s, iv)
+		}
+	}
+	sort.Slice(s, func(i, j int) bool { return s[i].from.Before(s[j].from) })
+	var out []interval
+	for _, iv := range s {
+		if n := len(out); n > 0 && !iv.from.After(out[n-1].to) {
+			if iv.to.After(out[n-1].to) {
+				out[n-1].to = iv.to
+			}
+			continue
+		}
+		out = append(out, iv)
+	}
+	return out
+}
+
+// subtract removes the cut intervals from the sorted disjoint set in.
+func subtract(in, cut []interval) []interval {
+	out := union(in)
+	for _, c := range union(cut) {
+		var next []interval
+		for _, iv := range out {
+			if !c.from.After(iv.from) && !c.to.Before(iv.to) {
+				continue // fully cut
+			}
+			if !c.to.After(iv.from) || !c.from.Before(iv.to) {
+				next = append(next, iv) // no overlap
+				continue
+			}
+			if c.from.After(iv.from) {
+				next = append(next, interval{iv.from, c.from})
+			}
+			if c.to.Before(iv.to) {
+				next = append(next, interval{c.to, iv.to})
+			}
+		}
+		out = next
+	}
+	return out
+}
+
+// intersect returns the overlap of two sorted disjoint sets.
+func intersect(a, b []interval) []interval {
+	var out []interval
+	for i, j := 0, 0; i < len(a) && j < len(b); {
+		from, to := a[i].from, a[i].to
+		if b[j].from.After(from) {
+			from = b[j].from
+		}
+		if b[j].to.Before(to) {
+			to = b[j].to
+		}
+		if to.After(from) {
+			out = append(out, interval{from, to})
+		}
+		if a[i].to.Before(b[j].to) {
+			i++
+		} else {
+			j++
+		}
+	}
+	return out
+}
+
+func length(s []interval) float64 {
+	var d time.Duration
+	for _, iv := range s {
+		d += iv.to.Sub(iv.from)
+	}
+	return d.Seconds()
 }

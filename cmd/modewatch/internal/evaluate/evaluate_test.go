@@ -16,8 +16,20 @@ func ep(id string, from, to float64, ch ...string) Episode {
 	return Episode{ID: id, Start: at(from), End: at(to), Kind: "bias", Channels: ch}
 }
 
+// al is an alert of unit "u", the one unit of the cases that name bare
+// channels (see oneUnit).
 func al(id string, start float64, top ...string) Alert {
-	return Alert{ID: id, Start: at(start), Top: top}
+	return Alert{ID: id, Unit: "u", Start: at(start), Top: top}
+}
+
+// oneUnit is a run from t0 over span in which every channel belongs to
+// unit "u".
+func oneUnit(span, grace time.Duration) Run {
+	r := Run{Grace: grace, UnitOf: func(string) string { return "u" }}
+	if span > 0 {
+		r.From, r.To = t0, t0.Add(span)
+	}
+	return r
 }
 
 func ptr(f float64) *float64 { return &f }
@@ -97,7 +109,7 @@ func TestCompute(t *testing.T) {
 	}
 	for _, tc := range cases {
 		t.Run(tc.name, func(t *testing.T) {
-			got := Compute(tc.alerts, tc.episodes, tc.span, DefaultGrace)
+			got := Compute(tc.alerts, tc.episodes, oneUnit(tc.span, DefaultGrace))
 			w := tc.want
 			if got.Episodes != w.Episodes || got.Detected != w.Detected || got.FalseAlerts != w.FalseAlerts || got.IsolatedTop3 != w.IsolatedTop3 {
 				t.Errorf("counts: got episodes %d detected %d false %d isolated %d, want %d %d %d %d",

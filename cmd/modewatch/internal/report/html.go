@@ -311,15 +311,27 @@ func fmtFloat(p *float64, prec int) string {
 }
 
 func metricRows(m *evaluate.Metrics, grace time.Duration) []kv {
-	return []kv{
+	rows := []kv{
 		{"episodes", strconv.Itoa(m.Episodes)},
 		{"detected", strconv.Itoa(m.Detected)},
 		{"detection rate", fmtFloat(m.DetectionRate, 3)},
 		{"median delay", fmtDelay(m.MedianDelayS)},
-		{"false alerts", fmt.Sprintf("%d (starting outside every episode extended by %s)", m.FalseAlerts, grace)},
+		{"false alerts", fmt.Sprintf("%d (starting outside every episode of their own unit extended by %s)", m.FalseAlerts, grace)},
 		{"false alerts per day", fmtFloat(m.FalseAlertsPerDay, 2)},
 		{"isolated in the top 3", strconv.Itoa(m.IsolatedTop3)},
 	}
+	for _, u := range m.Units {
+		rows = append(rows, kv{"unit " + u.Unit, fmt.Sprintf("%d alert(s), %d false; alert open %s%% of normal time; longest alert %s",
+			u.Alerts, u.FalseAlerts, fmtPercent(u.AlertOpenShareNormal), fmtDelay(&u.LongestOpenAlertS))})
+	}
+	return rows
+}
+
+func fmtPercent(p *float64) string {
+	if p == nil {
+		return "–"
+	}
+	return strconv.FormatFloat(100**p, 'f', 1, 64)
 }
 
 func episodeRows(eps []evaluate.Episode, m *evaluate.Metrics) []episodeRow {
