@@ -49,6 +49,15 @@ type drvState struct {
 	levels    []float64
 	pSwitch   float64
 	level     int
+	mean      float64
+	trend     float64 // per ns
+	reset     int64   // ns, 0: never
+	moves     []move
+}
+
+type move struct {
+	at, over int64 // Unix ns, ns
+	by       float64
 }
 
 type epRef struct {
@@ -67,6 +76,10 @@ type chanState struct {
 	terms       []Term
 	eps         []epRef
 	field       string
+	quantum     float64
+	gated       bool
+	gate        int
+	rest        float64
 }
 
 type assetState struct {
@@ -113,6 +126,12 @@ func (s *Scenario) NewGenerator() (*Generator, error) {
 			peak:   float64(d.Daily.Peak),
 			wSigma: d.Walk.Sigma,
 			levels: d.Steps.Levels,
+			mean:   d.Mean,
+			trend:  d.Trend.PerDay / float64(24*time.Hour),
+			reset:  int64(d.Trend.Reset),
+		}
+		for _, m := range d.Moves {
+			ds.moves = append(ds.moves, move{at: m.At.UnixNano(), over: int64(m.Over), by: m.By})
 		}
 		if d.Walk.Sigma > 0 {
 			ds.phi = math.Exp(-dt / d.Walk.Tau.Seconds())
@@ -135,6 +154,7 @@ func (s *Scenario) NewGenerator() (*Generator, error) {
 					base: c.Base, noise: c.Noise, scale: math.Pow10(c.Decimals),
 					min: c.Min, max: c.Max, clamp: c.Min < c.Max,
 					wSigma: c.Wander.Sigma, terms: c.Terms, field: c.Field,
+					quantum: c.Quantum, gated: c.Gate.On, gate: c.Gate.Driver, rest: c.Gate.Rest,
 				}
 				if c.Wander.Sigma > 0 {
 					cs.phi = math.Exp(-dt / c.Wander.Tau.Seconds())
@@ -206,6 +226,23 @@ func (g *Generator) Step() bool {
 				d.level = g.rng.IntN(len(d.levels))
 			}
 			x += d.levels[d.level]
+		}
+		if d.trend != 0 {
+			el := g.now - g.start
+			if d.reset > 0 {
+				el %= d.reset
+			}
+			x += d.trend * float64(el)
+		}
+		for _, m := range d.moves {
+			if g.now < m.at {
+				break
+			}
+			if m.over > 0 && g.now-m.at < m.over {
+				x += m.by * float64(g.now-m.at) / float64(m.over)
+			} else {
+				x += m.by
+			}
 		}
 		g.x[i] = x
 	}
@@ -295,6 +332,9 @@ func (g *Generator) channel(ci int) float64 {
 	if c.noise > 0 {
 		y += c.noise * g.rng.NormFloat64()
 	}
+	if c.gated && g.drv[c.gate].mean+g.x[c.gate] <= 0 {
+		y = c.rest // at rest: the noise was drawn all the same, for the stream
+	}
 	dropped := false
 	if g.s.Dropout > 0 {
 		dropped = g.rng.Float64() < g.s.Dropout
@@ -326,6 +366,9 @@ func (g *Generator) channel(ci int) float64 {
 	if c.clamp {
 		y = math.Max(c.min, math.Min(c.max, y))
 	}
+	if c.quantum > 0 {
+		y = math.Round(y/c.quantum) * c.quantum
+	}
 	y = math.Round(y*c.scale) / c.scale
 	if anyActive {
 		for _, r := range c.eps {
@@ -339,7 +382,7 @@ func (g *Generator) channel(ci int) float64 {
 					e.held[r.pos], e.heldSet[r.pos] = y, true
 				}
 				y = e.held[r.pos]
-			case Dropout:
+			case Dropout, Outage:
 				dropped = true
 			}
 		}

@@ -415,3 +415,59 @@ func TestStuckHoldsFirstValue(t *testing.T) {
 }
 
 var _ = scalar.EqualWithinAbsOrRel
+
+// TestTrendMovesGateQuantum checks the generator's slow changes and
+// machine states against their definitions (Trend, Move, Gate, Quantum),
+// value by value, with no noise so every number is derived by hand.
+func TestTrendMovesGateQuantum(t *testing.T) {
+	const y = `
+seed: 1
+start: 2026-01-05T00:00:00Z
+duration: 3h
+period: 10m
+drivers:
+  - {name: wear, mean: 0, trend: {per_day: 24, reset: 2h}}
+  - {name: sp, mean: 10, moves: [{at: 1h, by: 2, over: 20m}, {at: 2h, by: -1}]}
+  - {name: run, mean: 0, steps: {levels: [0, 1], hold: 1000h}}
+units:
+  - name: u
+    assets:
+      - name: a
+        channels:
+          - {name: w, eng_unit: x, base: 0, noise: 0, decimals: 6, terms: {wear: 1}}
+          - {name: s, eng_unit: x, base: 10, noise: 0, decimals: 6, quantum: 0.5, terms: {sp: 1.1}}
+          - {name: m, eng_unit: x, base: 5, noise: 0, decimals: 6, gate: run, rest: -1, terms: {sp: 1}}
+`
+	s, err := LoadBytes("t.yaml", []byte(y))
+	if err != nil {
+		t.Fatal(err)
+	}
+	g, _ := s.NewGenerator()
+	for g.Step() {
+		h := float64(g.Index()) / 6 // hours since start
+		// wear: 24 per day = 1 per hour, back to 0 every 2 h.
+		wear := math.Mod(h, 2)
+		// sp: +2 ramped over 20 min from 1 h, then -1 from 2 h.
+		sp := 0.0
+		if h >= 1 {
+			sp += 2 * math.Min(1, (h-1)*3)
+		}
+		if h >= 2 {
+			sp--
+		}
+		v := g.Values()
+		if !scalar.EqualWithinAbs(v[0], wear, 1e-6) {
+			t.Errorf("%.2f h: wear reads %g, want %g", h, v[0], wear)
+		}
+		if want := math.Round((10+1.1*sp)/0.5) * 0.5; v[1] != want {
+			t.Errorf("%.2f h: quantised channel reads %g, want %g", h, v[1], want)
+		}
+		want := 5 + sp
+		if g.Drivers()[2] <= 0 {
+			want = -1 // at rest
+		}
+		if !scalar.EqualWithinAbs(v[2], want, 1e-6) {
+			t.Errorf("%.2f h: gated channel reads %g, want %g", h, v[2], want)
+		}
+	}
+}

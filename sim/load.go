@@ -72,6 +72,7 @@ func Load(path string) (*Scenario, error) {
 //	seed: 42                        # unsigned integer
 //	start: 2026-03-02T00:00:00Z     # first sample
 //	duration: 3d
+//	split: 2d                       # optional: normal part before, test part after (normal.lp, test.lp)
 //	period: 20s
 //	jitter: 250ms                   # optional, < period/2
 //	dropout: 0.0005                 # optional, probability per value
@@ -81,6 +82,8 @@ func Load(path string) (*Scenario, error) {
 //	    daily: {amplitude: 0.12, peak: 14h}    # optional
 //	    walk: {sigma: 0.03, tau: 6h}           # optional
 //	    steps: {levels: [-0.1, 0, 0.1], hold: 8h}   # optional
+//	    trend: {per_day: 0.4, reset: 5d}       # optional slow change; reset: back to 0 (sawtooth)
+//	    moves: [{at: 9d, by: 2, over: 30m}]    # optional planned changes (setpoint, grade)
 //	units:
 //	  - name: coolwater             # line-protocol measurement
 //	    assets:
@@ -96,10 +99,13 @@ func Load(path string) (*Scenario, error) {
 //	            min: 0              # optional clamp
 //	            max: 900            # optional clamp
 //	            wander: {sigma: 2, tau: 4h}   # optional own slow variation
+//	            quantum: 0.5        # optional: round to multiples of it
+//	            gate: pump_run      # optional: at rest while this driver's value is ≤ 0
+//	            rest: 0             # optional: the exact reading at rest (default 0)
 //	            terms: {speed: 0.9, heat_load^2: -20, heat_load*ambient: 0.5}
 //	faults:
 //	  - id: F1
-//	    kind: bias                  # bias drift stuck noise spikes dropout relation effect
+//	    kind: bias                  # bias drift stuck noise spikes dropout relation effect outage
 //	    start: 28h                  # offset from start, or RFC 3339
 //	    end: 34h
 //	    channels: [coolwater.pump01.flow]
@@ -108,6 +114,7 @@ func Load(path string) (*Scenario, error) {
 //	    rate: 4                     # spikes per hour
 //	    driver: speed               # relation, effect
 //	    ramp: 1h                    # relation, optional
+//	  - {id: F2, kind: outage, unit: coolwater, start: 40h, end: 40h30m}  # every channel of the unit silent
 //
 // Term keys name a driver (linear), driver^2 (square) or a*b (product);
 // names resolve first to the asset's own drivers, then to global ones.
@@ -135,6 +142,7 @@ var nameRE = regexp.MustCompile(`^[a-z][a-z0-9_]*$`)
 
 type loader struct {
 	file  string
+	start time.Time // the scenario's start, for times given as offsets
 	errs  []*FieldError
 	total int // channels expanded so far
 }
@@ -272,8 +280,20 @@ func (l *loader) strs(n *yaml.Node, path string) []string {
 	return out
 }
 
-// parseDuration accepts Go durations and a number of days ("3d", "0.5d").
+// parseDuration accepts Go durations, a number of days ("3d", "0.5d") and
+// days followed by a Go duration ("7d6h", "10d2h30m").
 func parseDuration(s string) (time.Duration, error) {
+	if days, rest, ok := strings.Cut(s, "d"); ok && rest != "" {
+		d, err := parseDuration(days + "d")
+		if err != nil {
+			return 0, fmt.Errorf("%q is not a duration", s)
+		}
+		r, err := time.ParseDuration(rest)
+		if err != nil || r < 0 {
+			return 0, fmt.Errorf("%q is not a duration (e.g. 20s, 6h, 3d, 7d6h)", s)
+		}
+		return d + r, nil
+	}
 	if d, ok := strings.CutSuffix(s, "d"); ok {
 		v, err := strconv.ParseFloat(d, 64)
 		if err != nil || math.IsNaN(v) || math.IsInf(v, 0) || math.Abs(v) > 100000 {
@@ -311,7 +331,7 @@ func (l *loader) scenario(root *yaml.Node) *Scenario {
 		return s
 	}
 	doc := root.Content[0]
-	f := l.fields(doc, "", []string{"name", "seed", "start", "duration", "period", "jitter", "dropout", "drivers", "units", "faults"},
+	f := l.fields(doc, "", []string{"name", "seed", "start", "duration", "split", "period", "jitter", "dropout", "drivers", "units", "faults"},
 		[]string{"seed", "start", "duration", "period", "units"})
 	if n := f["name"]; n != nil {
 		s.Name, _ = l.scalar(n, "name")
@@ -332,12 +352,19 @@ func (l *loader) scenario(root *yaml.Node) *Scenario {
 				l.errf(n, "start", "%q is not an RFC 3339 time", v)
 			}
 			s.Start = t.UTC()
+			l.start = s.Start
 		}
 	}
 	if n := f["duration"]; n != nil {
 		s.Duration = l.duration(n, "duration")
 		if s.Duration == 0 {
 			l.errf(n, "duration", "must be > 0")
+		}
+	}
+	if n := f["split"]; n != nil {
+		s.Split = l.when(s, n, "split")
+		if !s.Split.IsZero() && s.Duration > 0 && (!s.Split.After(s.Start) || !s.Split.Before(s.End())) {
+			l.errf(n, "split", "must lie after start and before start + duration")
 		}
 	}
 	if n := f["period"]; n != nil {
@@ -413,7 +440,7 @@ func (l *loader) scenario(root *yaml.Node) *Scenario {
 // driver parses one driver; it returns the name node for later messages.
 func (l *loader) driver(n *yaml.Node, path string) (Driver, *yaml.Node) {
 	var d Driver
-	f := l.fields(n, path, []string{"name", "mean", "daily", "walk", "steps"}, []string{"name"})
+	f := l.fields(n, path, []string{"name", "mean", "daily", "walk", "steps", "trend", "moves"}, []string{"name"})
 	if v := f["name"]; v != nil {
 		d.Name = l.name(v, path+".name")
 	}
@@ -449,6 +476,40 @@ func (l *loader) driver(n *yaml.Node, path string) (Driver, *yaml.Node) {
 			d.Steps.Hold = l.duration(a, p+".hold")
 			if d.Steps.Hold == 0 {
 				l.errf(a, p+".hold", "must be > 0")
+			}
+		}
+	}
+	if v := f["trend"]; v != nil {
+		p := path + ".trend"
+		g := l.fields(v, p, []string{"per_day", "reset"}, []string{"per_day"})
+		if a := g["per_day"]; a != nil {
+			d.Trend.PerDay = l.float(a, p+".per_day")
+		}
+		if a := g["reset"]; a != nil {
+			d.Trend.Reset = l.duration(a, p+".reset")
+		}
+	}
+	if v := f["moves"]; v != nil {
+		if v.Kind != yaml.SequenceNode {
+			l.errf(v, path+".moves", "expected a list")
+		} else {
+			for i, mn := range v.Content {
+				p := fmt.Sprintf("%s.moves[%d]", path, i)
+				g := l.fields(mn, p, []string{"at", "by", "over"}, []string{"at", "by"})
+				var m Move
+				if a := g["at"]; a != nil {
+					m.At = l.whenFrom(l.start, a, p+".at")
+				}
+				if a := g["by"]; a != nil {
+					m.By = l.float(a, p+".by")
+				}
+				if a := g["over"]; a != nil {
+					m.Over = l.duration(a, p+".over")
+				}
+				if k := len(d.Moves); k > 0 && m.At.Before(d.Moves[k-1].At) {
+					l.errf(mn, p+".at", "moves must be in time order")
+				}
+				d.Moves = append(d.Moves, m)
 			}
 		}
 	}
@@ -591,7 +652,7 @@ func (l *loader) assets(s *Scenario, unit string, n *yaml.Node, path string, glo
 
 func (l *loader) channel(n *yaml.Node, path string, scope, global map[string]int) Channel {
 	ch := Channel{Decimals: 3, Min: 1, Max: -1}
-	f := l.fields(n, path, []string{"name", "eng_unit", "base", "noise", "decimals", "min", "max", "wander", "terms"},
+	f := l.fields(n, path, []string{"name", "eng_unit", "base", "noise", "decimals", "min", "max", "wander", "terms", "quantum", "gate", "rest"},
 		[]string{"name", "eng_unit", "base", "noise"})
 	if v := f["name"]; v != nil {
 		ch.Field = l.name(v, path+".name")
@@ -629,6 +690,24 @@ func (l *loader) channel(n *yaml.Node, path string, scope, global map[string]int
 	}
 	if v := f["wander"]; v != nil {
 		ch.Wander = l.walk(v, path+".wander")
+	}
+	if v := f["quantum"]; v != nil {
+		ch.Quantum = l.nonneg(v, path+".quantum")
+	}
+	if v := f["gate"]; v != nil {
+		if name, ok := l.scalar(v, path+".gate"); ok {
+			i, err := resolve(name, scope, global)
+			if err != nil {
+				l.errf(v, path+".gate", "%v", err)
+			}
+			ch.Gate.On, ch.Gate.Driver = err == nil, i
+		}
+	}
+	if v := f["rest"]; v != nil {
+		ch.Gate.Rest = l.float(v, path+".rest")
+		if f["gate"] == nil {
+			l.errf(v, path+".rest", "needs a gate (the driver that starts and stops the machine)")
+		}
 	}
 	if v := f["terms"]; v != nil {
 		p := path + ".terms"
@@ -687,6 +766,11 @@ func parseTerm(s string, scope, global map[string]int) (Term, error) {
 }
 
 func (l *loader) when(s *Scenario, n *yaml.Node, path string) time.Time {
+	return l.whenFrom(s.Start, n, path)
+}
+
+// whenFrom parses an RFC 3339 time or an offset from start.
+func (l *loader) whenFrom(start time.Time, n *yaml.Node, path string) time.Time {
 	v, ok := l.scalar(n, path)
 	if !ok {
 		return time.Time{}
@@ -699,13 +783,13 @@ func (l *loader) when(s *Scenario, n *yaml.Node, path string) time.Time {
 		l.errf(n, path, "%q is neither an RFC 3339 time nor an offset from start such as 30h", v)
 		return time.Time{}
 	}
-	return s.Start.Add(d)
+	return start.Add(d)
 }
 
 func (l *loader) episode(s *Scenario, n *yaml.Node, path string, channels map[string]bool) Episode {
 	var e Episode
-	f := l.fields(n, path, []string{"id", "kind", "start", "end", "channels", "size", "factor", "rate", "driver", "ramp"},
-		[]string{"id", "kind", "start", "end", "channels"})
+	f := l.fields(n, path, []string{"id", "kind", "start", "end", "channels", "unit", "size", "factor", "rate", "driver", "ramp"},
+		[]string{"id", "kind", "start", "end"})
 	if v := f["id"]; v != nil {
 		e.ID, _ = l.scalar(v, path+".id")
 		if e.ID == "" {
@@ -752,6 +836,31 @@ func (l *loader) episode(s *Scenario, n *yaml.Node, path string, channels map[st
 			}
 			seen[c] = true
 		}
+	}
+	switch v := f["unit"]; {
+	case e.Kind == Outage && v == nil:
+		l.errf(n, path+".unit", "required by kind %q", e.Kind)
+	case e.Kind == Outage && f["channels"] != nil:
+		l.errf(f["channels"], path+".channels", "not used by kind %q (it silences every channel of its unit)", e.Kind)
+	case e.Kind == Outage:
+		e.Unit, _ = l.scalar(v, path+".unit")
+		for _, u := range s.Units {
+			if u.Name != e.Unit {
+				continue
+			}
+			for _, a := range u.Assets {
+				for _, c := range a.Channels {
+					e.Channels = append(e.Channels, u.Name+"."+a.Name+"."+c.Field)
+				}
+			}
+		}
+		if len(e.Channels) == 0 {
+			l.errf(v, path+".unit", "unknown unit %q", e.Unit)
+		}
+	case v != nil:
+		l.errf(v, path+".unit", "not used by kind %q", e.Kind)
+	case f["channels"] == nil && e.Kind != "":
+		l.errf(n, path+".channels", "missing")
 	}
 	// Parameters: which kinds use them, and which require them.
 	type param struct {

@@ -172,6 +172,10 @@ func TestParseDuration(t *testing.T) {
 		{"0.5d", 12 * time.Hour, true},
 		{"d", 0, false},
 		{"3 days", 0, false},
+		{"7d6h", 7*24*time.Hour + 6*time.Hour, true},
+		{"10d2h30m", 242*time.Hour + 30*time.Minute, true},
+		{"1d-2h", 0, false},
+		{"xd2h", 0, false},
 	} {
 		got, err := parseDuration(c.in)
 		if (err == nil) != c.ok || got != c.want {
@@ -187,5 +191,44 @@ func TestLoadSizeLimit(t *testing.T) {
 	_, err := LoadBytes("big.yaml", []byte(big))
 	if err == nil || !strings.Contains(err.Error(), "more than 200000 channels") {
 		t.Fatalf("got %v", err)
+	}
+}
+
+// TestLoadRealismKeys: the keys the realism plants use (split, trend,
+// moves, quantum, gate, rest, outage) are parsed, and their misuse is
+// reported with its place.
+func TestLoadRealismKeys(t *testing.T) {
+	good := strings.Replace(minimal, "duration: 2h", "duration: 2h\nsplit: 1h", 1)
+	good = strings.Replace(good, "daily: {amplitude: 0.1, peak: 14h}}", "daily: {amplitude: 0.1, peak: 14h}, trend: {per_day: 2, reset: 1d}, moves: [{at: 1h30m, by: 0.2, over: 10m}]}", 1)
+	good = strings.Replace(good, "load^2: 3}}", "load^2: 3}, quantum: 0.5, gate: speed, rest: 0}", 1)
+	good += "  - {id: F2, kind: outage, start: 1h10m, end: 1h40m, unit: plant}\n"
+	s, err := LoadBytes("good.yaml", []byte(good))
+	if err != nil {
+		t.Fatal(err)
+	}
+	d := s.Drivers[0]
+	ch := s.Units[0].Assets[0].Channels[0]
+	if !s.Split.Equal(s.Start.Add(time.Hour)) || d.Trend != (Trend{PerDay: 2, Reset: 24 * time.Hour}) ||
+		len(d.Moves) != 1 || !d.Moves[0].At.Equal(s.Start.Add(90*time.Minute)) || d.Moves[0].By != 0.2 || d.Moves[0].Over != 10*time.Minute ||
+		ch.Quantum != 0.5 || !ch.Gate.On || s.Drivers[ch.Gate.Driver].Name != "plant.pump01.speed" {
+		t.Errorf("parsed %+v, %+v, %+v", s.Split, d, ch)
+	}
+	if e := s.Episodes[1]; e.Kind != Outage || e.Unit != "plant" || len(e.Channels) != 3 {
+		t.Errorf("outage %+v, want the unit's 3 channels", e)
+	}
+	for _, c := range []struct{ from, to, want string }{
+		{"split: 1h", "split: 3h", "split: must lie after start"},
+		{"rest: 0}", "rest: 0, gate: nope}", "duplicate key"},
+		{"gate: speed, rest: 0}", "rest: 1}", "rest: needs a gate"},
+		{"gate: speed", "gate: nope", `gate: unknown driver "nope"`},
+		{"unit: plant}", "unit: tank}", `unit: unknown unit "tank"`},
+		{"unit: plant}", "channels: [plant.pump01.flow]}", `faults[1].unit: required by kind "outage"`},
+		{"by: 0.2, over: 10m}", "over: 10m}", "moves[0].by: missing"},
+	} {
+		bad := strings.Replace(good, c.from, c.to, 1)
+		_, err := LoadBytes("bad.yaml", []byte(bad))
+		if err == nil || !strings.Contains(err.Error(), c.want) {
+			t.Errorf("%s → %s: got %v, want …%s…", c.from, c.to, err, c.want)
+		}
 	}
 }

@@ -57,9 +57,12 @@ type Scenario struct {
 	Seed     uint64
 	Start    time.Time     // first nominal sample time, UTC
 	Duration time.Duration // samples are at Start + k·Period for k·Period < Duration
-	Period   time.Duration // nominal sample period
-	Jitter   time.Duration // timestamps are shifted by a uniform draw in [-Jitter, +Jitter]
-	Dropout  float64       // probability that one channel value is missing from one sample
+	// Split, when set, ends the normal part: WriteFiles writes the samples
+	// before it to normal.lp and the rest to test.lp (zero: one file).
+	Split   time.Time
+	Period  time.Duration // nominal sample period
+	Jitter  time.Duration // timestamps are shifted by a uniform draw in [-Jitter, +Jitter]
+	Dropout float64       // probability that one channel value is missing from one sample
 
 	Drivers  []Driver // global drivers followed by the expanded asset-local ones
 	Units    []Unit
@@ -77,6 +80,26 @@ type Driver struct {
 	Daily Cycle
 	Walk  Walk
 	Steps Steps
+	Trend Trend
+	Moves []Move // planned changes, in time order
+}
+
+// Trend is a slow linear change PerDay·(t − Start)/24 h (seasonal warming;
+// fouling or filter loading as normal wear). With Reset > 0 it starts
+// again from 0 every Reset after Start (a filter changed, a heat exchanger
+// cleaned): a sawtooth.
+type Trend struct {
+	PerDay float64
+	Reset  time.Duration
+}
+
+// Move is a planned change of a driver that is not a fault (a setpoint
+// change, a product grade or load change): from At the driver is higher by
+// By, reached linearly over Over (zero: a step). Moves add up.
+type Move struct {
+	At   time.Time
+	By   float64
+	Over time.Duration
 }
 
 // Cycle is a daily cosine A·cos(2π(τ - Peak)/24 h), τ the UTC time of day.
@@ -122,6 +145,22 @@ type Channel struct {
 	Min, Max float64 // clamp range; Min > Max (the default) means no clamp
 	Wander   Walk    // the channel's own slow variation
 	Terms    []Term
+	// Quantum, when > 0, rounds the value to a multiple of it (a reading
+	// in steps, e.g. a level in whole percent or a counter), before the
+	// rounding to Decimals.
+	Quantum float64
+	Gate    Gate
+}
+
+// Gate ties a channel to a machine that starts and stops: when On, while
+// driver Driver (an index into Scenario.Drivers) has a value (mean +
+// deviation) ≤ 0 the machine is at rest and the channel reads Rest
+// exactly, without noise (a speed of 0 when a swing machine is stopped).
+// Sensor faults still apply to the rest reading.
+type Gate struct {
+	On     bool
+	Driver int
+	Rest   float64
 }
 
 // TermKind selects f in gain·f(x).
@@ -166,6 +205,9 @@ const (
 	// others as if it were higher by Size (ramped in over Ramp), so one
 	// channel moves against the others.
 	Relation FaultKind = "relation"
+	// Outage silences every channel of one unit (a gateway or network
+	// failure): nothing of the unit is written while it lasts.
+	Outage FaultKind = "outage"
 	// Effect is a gradual change of Driver's effect on the named channels
 	// (fouling-like): every term involving Driver is multiplied by a factor
 	// going linearly from 1 at the start to Factor at the end, and back to 1
@@ -173,7 +215,7 @@ const (
 	Effect FaultKind = "effect"
 )
 
-var faultKinds = []FaultKind{Bias, Drift, Stuck, Noise, Spikes, Dropout, Relation, Effect}
+var faultKinds = []FaultKind{Bias, Drift, Stuck, Noise, Spikes, Dropout, Relation, Effect, Outage}
 
 // Episode is one labelled fault.
 type Episode struct {
@@ -181,7 +223,8 @@ type Episode struct {
 	Kind     FaultKind
 	Start    time.Time // active for nominal sample times in [Start, End)
 	End      time.Time
-	Channels []string // unit.asset.field
+	Channels []string // unit.asset.field; for an outage, every channel of Unit
+	Unit     string   // outage
 	Size     float64  // bias, drift, spikes (engineering units); relation (driver units)
 	Factor   float64  // noise (σ multiplier), effect (gain multiplier at the end)
 	Rate     float64  // spikes per hour
@@ -234,6 +277,16 @@ func (s *Scenario) Rebase(start time.Time) *Scenario {
 	start = start.UTC().Truncate(time.Second)
 	d := start.Sub(s.Start)
 	c.Start = start
+	if !s.Split.IsZero() {
+		c.Split = s.Split.Add(d)
+	}
+	c.Drivers = append([]Driver(nil), s.Drivers...)
+	for i := range c.Drivers {
+		c.Drivers[i].Moves = append([]Move(nil), s.Drivers[i].Moves...)
+		for j := range c.Drivers[i].Moves {
+			c.Drivers[i].Moves[j].At = c.Drivers[i].Moves[j].At.Add(d)
+		}
+	}
 	c.Episodes = make([]Episode, len(s.Episodes))
 	for i, e := range s.Episodes {
 		e.Start = e.Start.Add(d)
@@ -250,6 +303,7 @@ func (s *Scenario) Clone() *Scenario {
 	c.Drivers = append([]Driver(nil), s.Drivers...)
 	for i := range c.Drivers {
 		c.Drivers[i].Steps.Levels = append([]float64(nil), s.Drivers[i].Steps.Levels...)
+		c.Drivers[i].Moves = append([]Move(nil), s.Drivers[i].Moves...)
 	}
 	c.Units = make([]Unit, len(s.Units))
 	for i, u := range s.Units {
@@ -297,12 +351,23 @@ func (s *Scenario) check() error {
 	if !(s.Dropout >= 0 && s.Dropout < 1) {
 		return fmt.Errorf("sim: dropout must be in [0, 1)")
 	}
+	if !s.Split.IsZero() && (!s.Split.After(s.Start) || !s.Split.Before(s.End())) {
+		return fmt.Errorf("sim: split must lie after start and before the end")
+	}
 	for _, d := range s.Drivers {
 		if d.Walk.Sigma < 0 || (d.Walk.Sigma > 0 && d.Walk.Tau <= 0) {
 			return fmt.Errorf("sim: driver %s: walk needs sigma ≥ 0 and tau > 0", d.Name)
 		}
 		if len(d.Steps.Levels) > 0 && d.Steps.Hold <= 0 {
 			return fmt.Errorf("sim: driver %s: steps need hold > 0", d.Name)
+		}
+		if d.Trend.Reset < 0 {
+			return fmt.Errorf("sim: driver %s: trend reset must be ≥ 0", d.Name)
+		}
+		for _, m := range d.Moves {
+			if m.Over < 0 {
+				return fmt.Errorf("sim: driver %s: move over must be ≥ 0", d.Name)
+			}
 		}
 	}
 	names := map[string]bool{}
@@ -319,6 +384,12 @@ func (s *Scenario) check() error {
 				}
 				if c.Decimals < 0 || c.Decimals > 9 {
 					return fmt.Errorf("sim: channel %s: decimals must be in [0, 9]", n)
+				}
+				if c.Gate.On && (c.Gate.Driver < 0 || c.Gate.Driver >= len(s.Drivers)) {
+					return fmt.Errorf("sim: channel %s: gate refers to a missing driver", n)
+				}
+				if c.Quantum < 0 || math.IsNaN(c.Quantum) {
+					return fmt.Errorf("sim: channel %s: quantum must be ≥ 0", n)
 				}
 				for _, t := range c.Terms {
 					if t.A < 0 || t.A >= len(s.Drivers) || (t.Kind == Product && (t.B < 0 || t.B >= len(s.Drivers))) {

@@ -20,7 +20,10 @@ line protocol, together with the truth file of its labelled fault
 episodes. Output is deterministic for a given scenario seed. Without
 --scenario the shipped demo scenario is used (configs/scenario-demo.yaml).
 
-Writes DIR/readings.lp (or readings.lp.gz with --gz) and DIR/truth.json.
+Writes DIR/readings.lp (or readings.lp.gz with --gz) and DIR/truth.json; a
+scenario with a split (the realism plants) writes DIR/normal.lp, the normal
+days to fit on, and DIR/test.lp, the days after the split, instead of
+readings.lp.
 The data is invented, for demonstrations and tests only.`)
 	var scenario, out string
 	var gz bool
@@ -58,6 +61,9 @@ The data is invented, for demonstrations and tests only.`)
 	if duration > 0 {
 		s = s.Clone()
 		s.Duration = duration
+		if !s.Split.Before(s.End()) {
+			s.Split = time.Time{} // all of it is normal days: one file
+		}
 		var kept []sim.Episode
 		for _, e := range s.Episodes {
 			if e.Start.Before(s.End()) {
@@ -71,6 +77,11 @@ The data is invented, for demonstrations and tests only.`)
 		return err
 	}
 	tr := s.Truth()
+	if files.Readings == "" {
+		fmt.Fprintf(env.Out, "wrote %s (%s of normal operation from %s, every %s), %s (the %s after it) and %s (%d labelled episode(s))\n",
+			files.Normal, s.Split.Sub(s.Start), s.Start.Format(time.RFC3339), s.Period, files.Test, s.End().Sub(s.Split), files.Truth, len(tr.Episodes))
+		return nil
+	}
 	fmt.Fprintf(env.Out, "wrote %s (%s from %s, every %s) and %s (%d labelled episode(s))\n",
 		files.Readings, s.Duration, s.Start.Format("2006-01-02T15:04:05Z07:00"), s.Period, files.Truth, len(tr.Episodes))
 	return nil
