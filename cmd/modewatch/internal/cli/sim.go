@@ -4,17 +4,18 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"strings"
 	"time"
 
 	"modewatch/sim"
 )
 
 func init() {
-	register(command{name: "sim", args: "--scenario FILE --out DIR", summary: "write an invented plant's readings (line protocol) and truth file", run: runSim})
+	register(command{name: "sim", args: "[--scenario FILE] --out DIR | --suite", summary: "write an invented plant's readings (line protocol) and truth file", run: runSim})
 }
 
 func runSim(ctx context.Context, env IO, args []string) error {
-	fs := newFlags(env, "sim", "[--scenario FILE] --out DIR [--gz]", `
+	fs := newFlags(env, "sim", "[--scenario FILE] --out DIR [--gz] | --suite [--config FILE] [--plants A,B] [--days D] [--out DIR] [--json]", `
 Generate the readings of an invented plant from a scenario file (YAML) as
 line protocol, together with the truth file of its labelled fault
 episodes. Output is deterministic for a given scenario seed. Without
@@ -32,12 +33,36 @@ The data is invented, for demonstrations and tests only.`)
 	fs.StringVar(&out, "out", "", "output `DIR` (created if needed; required)")
 	fs.BoolVar(&gz, "gz", false, "gzip the readings")
 	fs.DurationVar(&duration, "duration", 0, "write only this much from the scenario's start (e.g. 24h: the demo's fault-free first day)")
+	var suite, asJSON bool
+	var config, plants string
+	var days float64
+	fs.BoolVar(&suite, "suite", false, "run the realism suite: fit on each plant's normal days, replay its test days, print one table")
+	fs.StringVar(&config, "config", "", "with --suite: apply the settings of configuration `FILE` (default: the defaults)")
+	fs.StringVar(&plants, "plants", "", "with --suite: run only these plants (comma-separated names)")
+	fs.Float64Var(&days, "days", 0, "with --suite: keep only `D` days on each side of the split (a quick check)")
+	fs.BoolVar(&asJSON, "json", false, "with --suite: print the rows as JSON")
 	pos, err := parseAll(fs, args)
 	if err != nil {
 		return err
 	}
 	if len(pos) > 0 {
 		return usagef("unexpected arguments %q", pos)
+	}
+	if suite {
+		if scenario != "" || gz || duration != 0 {
+			return usagef("--suite runs the built-in plants: --scenario, --gz and --duration do not apply")
+		}
+		if days < 0 {
+			return usagef("--days %g: want D > 0", days)
+		}
+		opt := suiteOptions{config: config, days: days, out: out, json: asJSON}
+		if plants != "" {
+			opt.plants = strings.Split(plants, ",")
+		}
+		return runSuite(ctx, env, opt)
+	}
+	if config != "" || plants != "" || days != 0 || asJSON {
+		return usagef("--config, --plants, --days and --json go with --suite")
 	}
 	if out == "" {
 		return usagef("--out DIR is required")
