@@ -397,3 +397,24 @@ func TestWriteSplit(t *testing.T) {
 		t.Error("a range that does not contain the split was accepted")
 	}
 }
+
+// TestRealismFaultsDetectable runs every plant with and without its faults:
+// each fault moves its channels by at least 3 noise σ at some sample (a
+// stuck sensor: at least 1 σ, it only stops moving), and the log shows how
+// much of each fault stays inside the channel's normal-day range.
+func TestRealismFaultsDetectable(t *testing.T) {
+	for name, s := range loadPlants(t) {
+		t.Run(name, func(t *testing.T) {
+			for _, f := range faultEffects(t, s, s.Split) {
+				need := 3.0
+				if f.kind == Stuck {
+					need = 1
+				}
+				if f.maxDev < need*f.noise {
+					t.Errorf("%s on %s: largest change %.3g < %gσ = %.3g", f.id, f.channel, f.maxDev, need, need*f.noise)
+				}
+				t.Logf("%s %s: max change %.3g (%.1f noise σ), %.0f%% inside the normal days' range", f.id, f.channel, f.maxDev, f.maxDev/f.noise, 100*f.inside)
+			}
+		})
+	}
+}
