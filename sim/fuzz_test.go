@@ -5,6 +5,8 @@ import (
 	"strings"
 	"testing"
 	"time"
+
+	plants "modewatch/configs/realism"
 )
 
 // FuzzLoadBytes: no input makes the loader or a short generation panic, and
@@ -29,6 +31,9 @@ func FuzzLoadBytes(f *testing.F) {
 		}
 		f.Add([]byte(b))
 	}
+	for _, p := range plants.Plants() {
+		f.Add(p.YAML)
+	}
 	if b, err := os.ReadFile("testdata/bad.yaml"); err == nil {
 		f.Add(b)
 	}
@@ -43,6 +48,7 @@ func FuzzLoadBytes(f *testing.F) {
 		// Keep generation short whatever the scenario says.
 		if s.Samples() > 50 {
 			s.Duration = 50 * s.Period
+			s.Split = time.Time{} // it may lie beyond the shortened end
 		}
 		if len(s.Channels()) > 2000 || s.Period < time.Millisecond {
 			return
