@@ -160,9 +160,18 @@ func TestReplayReport(t *testing.T) {
 	}
 	text := string(page)
 	for _, want := range []string{report.Advisory[:40], "site procedures, local codes and licensed practice",
-		">frames<", ">lines.accepted<", "F1-header-bias", "detection rate", "downsampled"} {
+		">frames<", ">lines.accepted<", "F1-header-bias", "detection rate", "downsampled", "of their own unit"} {
 		if !strings.Contains(text, want) {
 			t.Errorf("index.html lacks %q", want)
 		}
+	}
+	// The strict per-unit figures, one row per unit.
+	for _, u := range sum.Metrics.Units {
+		if !strings.Contains(text, ">unit "+u.Unit+"<") {
+			t.Errorf("index.html lacks the metrics row of unit %s", u.Unit)
+		}
+	}
+	if strings.Count(text, "of normal time; longest alert") != len(sum.Units) {
+		t.Errorf("want one open-share figure per unit (%d)", len(sum.Units))
 	}
 }
