@@ -26,6 +26,16 @@
 // and S a setpoint that holds one of the listed levels (offsets from mean) and,
 // at each sample with probability Δt/hold, jumps to a level drawn uniformly
 // from the list (its stationary distribution is uniform over the levels).
+// Two slow terms may follow: a trend r·((t − start) mod R)/24 h (seasonal
+// warming with no reset R; normal wear such as filter loading with one) and
+// planned moves, each adding its offset from a given time on, ramped in
+// over a given span (a setpoint change, a product grade).
+//
+// A channel may be gated by a driver: while that driver's value is ≤ 0
+// the machine is at rest and the channel reads its rest value exactly (a
+// stopped machine's speed of 0). A quantum rounds a channel to multiples of
+// it before the decimals do. A scenario may split its run into normal days
+// and test days (WriteSplit writes them as two files).
 //
 // Output is line protocol, one line per asset and sample: measurement = unit
 // name, tag asset=<asset>, one float field per channel that is present, and a
