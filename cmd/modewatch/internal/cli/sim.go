@@ -11,7 +11,7 @@ import (
 )
 
 func init() {
-	register(command{name: "sim", args: "[--scenario FILE] --out DIR | --suite", summary: "write an invented plant's readings (line protocol) and truth file", run: runSim})
+	register(command{name: "sim", args: "[--scenario FILE] --out DIR | --suite", summary: "write an invented plant's readings (line protocol) and truth file; --suite runs the realism suite", run: runSim})
 }
 
 func runSim(ctx context.Context, env IO, args []string) error {
