@@ -109,13 +109,15 @@ type QualityRule struct {
 
 // DefaultQuality are the data-quality rules by kind. All figures are design
 // choices: missing for more than 5 min, stuck as soon as the tracker says so,
-// out of range or stale for 1 min; 1 min off-delay.
+// out of range or stale for 1 min; 1 min off-delay; a silent unit at once,
+// closed by its first reading.
 func DefaultQuality() map[string]QualityRule {
 	return map[string]QualityRule{
 		QualityStuck:      {Hold: 0, OffDelay: time.Minute, Severity: "low"},
 		QualityOutOfRange: {Hold: time.Minute, OffDelay: time.Minute, Severity: "medium"},
 		QualityStale:      {Hold: time.Minute, OffDelay: time.Minute, Severity: "low"},
 		QualityMissing:    {Hold: 5 * time.Minute, OffDelay: time.Minute, Severity: "low"},
+		QualitySilent:     {Hold: 0, OffDelay: 0, Severity: "medium"},
 	}
 }
 
@@ -270,7 +272,7 @@ func (c Config) Validate() error {
 	}
 	for k, q := range c.Quality {
 		switch k {
-		case QualityStuck, QualityOutOfRange, QualityStale, QualityMissing:
+		case QualityStuck, QualityOutOfRange, QualityStale, QualityMissing, QualitySilent:
 		default:
 			errs = append(errs, fmt.Errorf("alerts: quality[%s]: unknown kind", k))
 		}

@@ -68,5 +68,5 @@ type Contributor struct {
 // Quality is one data-quality condition of one channel in one frame.
 type Quality struct {
 	Channel string
-	Kind    string // QualityStuck, QualityOutOfRange, QualityStale or QualityMissing
+	Kind    string // QualityStuck, QualityOutOfRange, QualityStale, QualityMissing or QualitySilent
 }

@@ -148,7 +148,7 @@ func Replay(ctx context.Context, opt ReplayOptions) (*ReplayResult, error) {
 	res.Pipeline = pl
 	in, err := stream.NewIntake(chans, stream.Options{
 		Align: AlignConfig(cfg.Frames, res.Period), Precision: prec, OnError: opt.OnLineError,
-		Log: log, Stdin: stdin,
+		Log: log, Stdin: stdin, OnClockJump: pl.ClockJump,
 	}, pl.Frame)
 	if err != nil {
 		return nil, fmt.Errorf("pipeline: %w", err)

@@ -10,6 +10,7 @@ import (
 	"os"
 	"time"
 
+	"modewatch/alerts"
 	"modewatch/cmd/modewatch/internal/store"
 	"modewatch/configs"
 	"modewatch/tracker"
@@ -55,9 +56,14 @@ func TrackerConfig(m configs.Model, period time.Duration, p int, equal bool) (tr
 }
 
 // ModelFormat and ModelVersion identify a model file written by fit.
+// Version 2 added each unit's data-quality profiles (ModelUnit.Quality);
+// a version 1 file still loads, its channels judged by the rules without a
+// profile, as when it was written.
 const (
 	ModelFormat  = "modewatch-model"
-	ModelVersion = 1
+	ModelVersion = 2
+	// modelVersionMin is the oldest version this program reads.
+	modelVersionMin = 1
 )
 
 // ErrModelFile marks a model file that cannot be used: not a model file, a
@@ -97,6 +103,10 @@ type ModelUnit struct {
 	// carry them as an uninterrupted run would. Absent in fitted models
 	// and in older checkpoints (then nothing is seeded).
 	Last []LastReading `json:"last,omitempty"`
+	// Quality holds the data-quality profile of each channel learned from
+	// the normal log (fit), carried on by checkpoints; absent in version 1
+	// files, whose channels are judged by the rules without a profile.
+	Quality []alerts.ChannelProfile `json:"quality,omitempty"`
 }
 
 // LastReading is a channel's reading carried at a checkpoint's last frame.
@@ -185,8 +195,8 @@ func DecodeModel(r io.Reader) (*ModelFile, error) {
 	if m.Format != ModelFormat {
 		return nil, fmt.Errorf("%w: format %q, want %q", ErrModelFile, m.Format, ModelFormat)
 	}
-	if m.Version != ModelVersion {
-		return nil, fmt.Errorf("%w: version %d; this modewatch reads version %d", ErrModelFile, m.Version, ModelVersion)
+	if m.Version < modelVersionMin || m.Version > ModelVersion {
+		return nil, fmt.Errorf("%w: version %d; this modewatch reads versions %d to %d", ErrModelFile, m.Version, modelVersionMin, ModelVersion)
 	}
 	if m.Period <= 0 {
 		return nil, fmt.Errorf("%w: frame period %v", ErrModelFile, time.Duration(m.Period))
@@ -243,6 +253,7 @@ func (p *Pipeline) buildFromModel(mu *ModelUnit, period time.Duration) (*Unit, e
 	u.tr = tr
 	u.frozen = tr.Frozen()
 	u.baseline = true
+	u.profile = mu.Quality
 	u.x = make([]float64, len(mu.Channels))
 	u.miss = make([]bool, len(mu.Channels))
 	u.names = append([]string(nil), mu.Channels...)
@@ -288,7 +299,7 @@ func (p *Pipeline) Baseline() (*ModelFile, error) {
 			settings.HalfLife = 0
 		}
 		mu := ModelUnit{Name: u.Name, Channels: append([]string(nil), u.names...), Settings: settings,
-			Modes: u.modesView(), Limits: u.baseLimits(), State: state}
+			Modes: u.modesView(), Limits: u.baseLimits(), State: state, Quality: u.Profiles()}
 		m.Units = append(m.Units, mu)
 	}
 	if len(m.Units) == 0 && len(errs) == 0 {

@@ -66,6 +66,7 @@ type Pipeline struct {
 	first  time.Time
 	last   time.Time
 	obs    alerts.Observation
+	stale  time.Duration // staleness limit of the frames (silence.go)
 }
 
 // OrDefaults gives the nil Config and Log fields of the options structs
@@ -93,7 +94,8 @@ func New(opt Options) (*Pipeline, error) {
 		return nil, errors.New("pipeline: frame period not set")
 	}
 	cfg, log := OrDefaults(opt.Config, opt.Log)
-	p := &Pipeline{opt: opt, cfg: cfg, ch: opt.Channels, log: log, byName: map[string]*Unit{}}
+	p := &Pipeline{opt: opt, cfg: cfg, ch: opt.Channels, log: log, byName: map[string]*Unit{},
+		stale: staleness(cfg, opt.Period)}
 	pub := opt.Publisher
 	if pub == nil {
 		pub = alerts.PublisherFunc(func(*alerts.Record) {})

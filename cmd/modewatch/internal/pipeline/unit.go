@@ -41,6 +41,12 @@ type Unit struct {
 	frozen      bool        // the tracker is frozen now
 	failed      error       // the model could not be built; the unit is not scored
 
+	// Data quality: profile from the model file (nil: none), the screen
+	// applying it, and in fit the learner of a new profile.
+	profile []alerts.ChannelProfile
+	screen  *alerts.Screen
+	learn   *profiler
+
 	// Counters, under p.mu.
 	frames      uint64 // frames scored
 	empty       uint64 // frames with every channel of the unit missing
@@ -169,8 +175,10 @@ func (u *Unit) step(f *stream.Frame) error {
 			u.x[k], u.miss[k] = math.NaN(), true
 		}
 	}
+	u.screenFrame()
 	if observed == 0 {
 		u.empty++
+		u.observeSilent(f.Start)
 		return nil
 	}
 	want := u.fixed || u.alertFrozen.Load()
@@ -270,8 +278,11 @@ func (u *Unit) observe(t time.Time) {
 		}
 	}
 	for _, i := range s.Missing {
-		o.Missing = append(o.Missing, u.names[i])
+		if u.screen.MissingAlarm(i) {
+			o.Missing = append(o.Missing, u.names[i])
+		}
 	}
+	o.Quality = u.screen.AppendQuality(o.Quality)
 	if s.Ready {
 		// Before a channel has the warm-up frames its variance is not yet
 		// estimated, so "stuck" is only reported once scoring starts and,
@@ -281,6 +292,9 @@ func (u *Unit) observe(t time.Time) {
 		// learns nothing more: its channels are judged as they are.)
 		warm := float64(u.tr.Config().WarmUp)
 		for _, i := range s.Excluded {
+			if u.screen.Profiled(i) {
+				continue // judged by its profile (AppendQuality)
+			}
 			if !u.fixed && u.tr.Stats().Count(i) < warm {
 				continue
 			}

@@ -196,6 +196,7 @@ func Start(ctx context.Context, opt Options) (_ *Service, err error) {
 	}
 	s.in, err = stream.NewIntake(chans, stream.Options{
 		Align: pipeline.AlignConfig(cfg.Frames, period), Precision: prec, Log: log.With("component", "stream"),
+		OnClockJump: s.pl.ClockJump,
 	}, s.pl.Frame)
 	if err != nil {
 		return nil, err
@@ -559,6 +560,12 @@ func (s *Service) tickUnits(now time.Time, stall time.Duration) int {
 		}
 		if eng.Tick(u.Name, last.Add(idle)) {
 			n++
+		}
+		// No reading at all for longer than the staleness: the unit is
+		// silent by the wall clock (its frames, which would show it, are
+		// not formed while nothing arrives).
+		if idle > s.pl.Staleness() {
+			eng.Silence(u.Name, last.Add(idle))
 		}
 	}
 	return n

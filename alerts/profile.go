@@ -1,0 +1,213 @@
+package alerts
+
+import "math"
+
+// QualitySilent is the data-quality kind of a unit whose channels are all
+// silent: every channel of the unit has had no reading for longer than the
+// staleness limit (a gateway or its link down). It is one alert per unit;
+// its Quality.Channel is the unit's name. It opens at once and closes with
+// the first frame that carries a reading of the unit again.
+const QualitySilent = "silent"
+
+// Settings of the learned data-quality rules (design choices, tested in
+// profile_test.go).
+const (
+	// StuckMargin: a profiled channel repeating a live value for more
+	// than its normal longest flat run plus this many frames is stuck. The
+	// margin keeps a sensor frozen at a live value within 20 frames of
+	// the normal flat-run length while leaving room for a run a little
+	// longer than the longest one in the normal log.
+	StuckMargin = 15
+	// RestRun: a value the channel sat at for at least this many frames in
+	// a row in the normal log, at the bottom or top of its normal range
+	// (a machine at rest reads 0, a closed valve 0 %), is a rest value:
+	// sitting there is never "stuck".
+	RestRun = 10
+	// MaxLevels: a channel with at most this many distinct values in the
+	// normal log is discrete (a status, a small count, a coarse reading):
+	// it stays at one value for as long as the plant does, so it is
+	// never "stuck".
+	MaxLevels = 10
+	// MaxRest bounds the rest values kept per channel.
+	MaxRest = 4
+)
+
+// ChannelProfile is what a normal log says about one channel's data
+// quality; fit learns it (the engine's profile learner) and the model file
+// carries it. The zero value (Frames 0) means "no profile": the channel is
+// judged by the rules without a profile (a flat run of the tracker's
+// FlatFrames is stuck, any missing frame counts towards the missing hold).
+type ChannelProfile struct {
+	Channel string `json:"channel"`
+	// Frames observed (value present) and Missing frames in the normal log.
+	Frames  int `json:"frames"`
+	Missing int `json:"missing"`
+	// MaxFlat is the longest run of consecutive frames holding exactly
+	// the same value, away from the rest values (frames).
+	MaxFlat int `json:"max_flat"`
+	// Rest lists the values the channel sat flat at for RestRun frames or
+	// more at the bottom or top of its normal range.
+	Rest []float64 `json:"rest,omitempty"`
+	// Levels is the number of distinct values when at most MaxLevels
+	// (a discrete channel), else 0.
+	Levels int `json:"levels"`
+	// Step is the smallest non-zero change between consecutive values
+	// (the quantisation of a quantised reading), 0 when it never changed.
+	Step float64 `json:"step"`
+	// Min and Max are the range of the normal log, in the channel's unit.
+	Min float64 `json:"min"`
+	Max float64 `json:"max"`
+	// MaxGap is the longest run of consecutive missing frames (frames).
+	MaxGap int `json:"max_gap"`
+}
+
+// MissingRate is the share of the normal log's frames in which the channel
+// was missing.
+func (p *ChannelProfile) MissingRate() float64 {
+	if n := p.Frames + p.Missing; n > 0 {
+		return float64(p.Missing) / float64(n)
+	}
+	return 0
+}
+
+// Discrete reports whether the channel had at most MaxLevels distinct
+// values in the normal log.
+func (p *ChannelProfile) Discrete() bool { return p.Levels > 0 }
+
+// isRest reports whether v is one of the channel's rest values.
+func (p *ChannelProfile) isRest(v float64) bool {
+	for _, r := range p.Rest {
+		if v == r {
+			return true
+		}
+	}
+	return false
+}
+
+// outOfRange reports whether v lies beyond the normal range by more than
+// the margin m = max(Max − Min, 0.1·max(|Min|, |Max|), Step): a reading no
+// normal variation explains (a sensor failed to full scale, a sign or
+// unit error). A channel that was constant at 0 has no margin and no
+// range rule.
+func (p *ChannelProfile) outOfRange(v float64) bool {
+	m := math.Max(p.Max-p.Min, math.Max(0.1*math.Max(math.Abs(p.Min), math.Abs(p.Max)), p.Step))
+	if !(m > 0) {
+		return false
+	}
+	return v < p.Min-m || v > p.Max+m
+}
+
+// Screen applies the data-quality rules of one unit frame by frame: it
+// tracks each channel's current flat run and missing run and judges them
+// against the channel's profile. Build it with [NewScreen], widen it with
+// [Screen.Grow], feed each frame with [Screen.Step]. It allocates nothing
+// per frame.
+type Screen struct {
+	unit  string
+	names []string
+	prof  []ChannelProfile
+	last  []float64
+	flat  []int
+	gap   []int
+	// silent: every channel missing in the last Step.
+	silent bool
+}
+
+// NewScreen returns the screen of unit over channels names, each judged by
+// the profile of the same channel name in prof (none: no profile).
+func NewScreen(unit string, names []string, prof []ChannelProfile) *Screen {
+	s := &Screen{unit: unit}
+	s.Grow(names, prof)
+	return s
+}
+
+// Grow adds the channels of names beyond those the screen has (names must
+// extend the screen's channel list), with their profiles from prof.
+func (s *Screen) Grow(names []string, prof []ChannelProfile) {
+	for _, n := range names[len(s.names):] {
+		var cp ChannelProfile
+		for i := range prof {
+			if prof[i].Channel == n {
+				cp = prof[i]
+				break
+			}
+		}
+		s.names = append(s.names, n)
+		s.prof = append(s.prof, cp)
+		s.last = append(s.last, math.NaN())
+		s.flat = append(s.flat, 0)
+		s.gap = append(s.gap, 0)
+	}
+}
+
+// Len returns the number of channels.
+func (s *Screen) Len() int { return len(s.names) }
+
+// Profiles returns the channels' profiles (zero where none), in channel
+// order. The slice is the screen's own.
+func (s *Screen) Profiles() []ChannelProfile { return s.prof }
+
+// Profiled reports whether channel k has a learned profile.
+func (s *Screen) Profiled(k int) bool { return s.prof[k].Frames > 0 }
+
+// Step advances the runs by one frame: x holds the values (in the
+// screen's channel order) and miss the missing flags.
+func (s *Screen) Step(x []float64, miss []bool) {
+	s.silent = len(x) > 0
+	for k, v := range x {
+		if miss[k] || v != v {
+			s.gap[k]++
+			continue // a flat run goes on over a gap: a frozen sensor may also drop out
+		}
+		s.silent = false
+		s.gap[k] = 0
+		if v == s.last[k] {
+			s.flat[k]++
+		} else {
+			s.last[k], s.flat[k] = v, 1
+		}
+	}
+}
+
+// Silent reports whether every channel was missing in the last frame.
+func (s *Screen) Silent() bool { return s.silent }
+
+// MissingAlarm reports whether channel k, missing in the last frame, is
+// missing for longer than the normal log ever saw (its MaxGap), so that
+// its missing rule counts this frame. A channel without profile: always.
+func (s *Screen) MissingAlarm(k int) bool {
+	p := &s.prof[k]
+	return p.Frames == 0 || s.gap[k] > p.MaxGap
+}
+
+// AppendQuality appends to dst the conditions of the last frame that the
+// profiles decide, and returns it:
+//
+//	silent        every channel missing (one condition, Channel = unit)
+//	stuck         a profiled channel, not discrete, repeating a value that
+//	              is not one of its rest values for more than
+//	              MaxFlat + StuckMargin frames
+//	out_of_range  a profiled channel beyond its normal range by more than
+//	              the range's width (see ChannelProfile)
+//
+// Channels without a profile add nothing here: the caller applies the
+// rules without a profile to them.
+func (s *Screen) AppendQuality(dst []Quality) []Quality {
+	if s.silent {
+		return append(dst, Quality{Channel: s.unit, Kind: QualitySilent})
+	}
+	for k := range s.prof {
+		p := &s.prof[k]
+		if p.Frames == 0 || s.gap[k] > 0 {
+			continue
+		}
+		v := s.last[k]
+		if !p.Discrete() && s.flat[k] > p.MaxFlat+StuckMargin && !p.isRest(v) {
+			dst = append(dst, Quality{Channel: s.names[k], Kind: QualityStuck})
+		}
+		if p.outOfRange(v) {
+			dst = append(dst, Quality{Channel: s.names[k], Kind: QualityOutOfRange})
+		}
+	}
+	return dst
+}
