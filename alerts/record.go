@@ -54,7 +54,9 @@ type Record struct {
 	Members      []Member            `json:"members,omitempty"`
 	MemberCount  int                 `json:"member_count,omitempty"`
 	EndReason    string              `json:"end_reason,omitempty"`
-	Caution      string              `json:"caution"`
+	// Notice is the text of an informational record (Kind KindNotice).
+	Notice  string `json:"notice,omitempty"`
+	Caution string `json:"caution"`
 }
 
 // RecordStat is the peak of one statistic during the incident.

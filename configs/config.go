@@ -238,6 +238,19 @@ type Unit struct {
 	Model Model `yaml:"model"`
 	// Alerts overrides the default alarm settings for this unit.
 	Alerts Alerts `yaml:"alerts"`
+	// State names the unit's operating-state channel (any channel, of this
+	// unit or another): each of its distinct values, or with StateBands
+	// each band of its values, is one operating state with a model of its
+	// own. Empty: one model for all states.
+	State string `yaml:"state"`
+	// StateBands are ascending band edges of the state channel's values:
+	// band 0 is below the first edge, band i from edge i-1 (inclusive) to
+	// edge i. Empty: each distinct value is a state.
+	StateBands []float64 `yaml:"state_bands"`
+	// Context lists channels of other units that drive this unit (an
+	// upstream header pressure): they enter the unit's model and explain
+	// its variation, and are never named as contributors of its alerts.
+	Context []string `yaml:"context"`
 }
 
 // Model holds the settings of a unit's online model. Zero fields mean

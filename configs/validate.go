@@ -243,6 +243,7 @@ func (c *Config) validateChannelsAndUnits(v *validator) {
 		v.model(p+".model", u.Model, true)
 		v.alerts(p+".alerts", u.Alerts, true)
 	}
+	c.validateDrivers(v, names, owner)
 	for i, ch := range c.Channels {
 		if ch.Unit == "" {
 			continue
