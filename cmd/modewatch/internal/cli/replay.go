@@ -210,13 +210,14 @@ func (r *recorder) Publish(rec *alerts.Record) {
 }
 
 // incidents returns the latest revision of every incident record (floods
-// excluded: their members are incidents themselves), by start time.
+// excluded: their members are incidents themselves; notices are not
+// alerts), by start time.
 func (r *recorder) incidents() []*alerts.Record {
 	r.mu.Lock()
 	defer r.mu.Unlock()
 	var out []*alerts.Record
 	for _, id := range r.order {
-		if rec := r.last[id]; rec.Kind != alerts.KindFlood {
+		if rec := r.last[id]; rec.Kind == alerts.KindIncident {
 			out = append(out, rec)
 		}
 	}

@@ -85,11 +85,17 @@ func (p *Pipeline) checkpointOf(u *Unit) (*ModelFile, error) {
 	if u.equal {
 		settings.HalfLife = 0
 	}
+	var sf *StatesFile
+	if u.states != nil && len(u.states.models) > 0 {
+		if sf, _, err = u.statesBaseline(false); err != nil {
+			return nil, fmt.Errorf("unit %s: %w", u.Name, err)
+		}
+	}
 	return &ModelFile{
 		Format: ModelFormat, Version: ModelVersion, Created: time.Now().UTC(), Period: Duration(p.opt.Period),
 		Frames: u.frames, From: u.firstT, To: u.lastT,
 		Units: []ModelUnit{{Name: u.Name, Channels: append([]string(nil), u.names...), Settings: settings,
-			Modes: u.modesView(), State: state, Alerts: snap.Bytes(), Last: u.lastReadings(), Quality: u.Profiles()}},
+			Modes: u.modesView(), State: state, Alerts: snap.Bytes(), Last: u.lastReadings(), Quality: u.Profiles(), States: sf}},
 	}, nil
 }
 

@@ -107,6 +107,9 @@ type ModelUnit struct {
 	// the normal log (fit), carried on by checkpoints; absent in version 1
 	// files, whose channels are judged by the rules without a profile.
 	Quality []alerts.ChannelProfile `json:"quality,omitempty"`
+	// States holds one model per operating state of a unit with a state
+	// channel (version 2); State then holds the state with most frames.
+	States *StatesFile `json:"states,omitempty"`
 }
 
 // LastReading is a channel's reading carried at a checkpoint's last frame.
@@ -254,6 +257,15 @@ func (p *Pipeline) buildFromModel(mu *ModelUnit, period time.Duration) (*Unit, e
 	u.frozen = tr.Frozen()
 	u.baseline = true
 	u.profile = mu.Quality
+	u.states = nil
+	if mu.States != nil {
+		if err := u.restoreStates(mu.States, len(mu.Channels), cfg); err != nil {
+			return nil, fmt.Errorf("%w: unit %s: %v", ErrModelFile, mu.Name, err)
+		}
+	} else if i := p.cfg.Unit(mu.Name); i >= 0 && p.cfg.Units[i].State != "" {
+		p.log.Warn("the unit's model was fitted without operating states; it is scored by its one model (fit again to use units[].state)",
+			"unit", mu.Name, "state_channel", p.cfg.Units[i].State)
+	}
 	u.x = make([]float64, len(mu.Channels))
 	u.miss = make([]bool, len(mu.Channels))
 	u.names = append([]string(nil), mu.Channels...)
@@ -283,7 +295,17 @@ func (p *Pipeline) Baseline() (*ModelFile, error) {
 			errs = append(errs, fmt.Errorf("unit %s: no model (%v)", u.Name, u.failed))
 			continue
 		}
-		if err := u.tr.Refresh(); err != nil {
+		var sf *StatesFile
+		if u.states != nil {
+			f, best, err := u.statesBaseline(true)
+			if err != nil {
+				errs = append(errs, fmt.Errorf("unit %s: %w", u.Name, err))
+			}
+			if best < 0 {
+				continue
+			}
+			sf, u.tr = f, u.states.models[best].tr
+		} else if err := u.tr.Refresh(); err != nil {
 			errs = append(errs, fmt.Errorf("unit %s: %w", u.Name, err))
 			continue
 		}
@@ -299,7 +321,7 @@ func (p *Pipeline) Baseline() (*ModelFile, error) {
 			settings.HalfLife = 0
 		}
 		mu := ModelUnit{Name: u.Name, Channels: append([]string(nil), u.names...), Settings: settings,
-			Modes: u.modesView(), Limits: u.baseLimits(), State: state, Quality: u.Profiles()}
+			Modes: u.modesView(), Limits: u.baseLimits(), State: state, Quality: u.Profiles(), States: sf}
 		m.Units = append(m.Units, mu)
 	}
 	if len(m.Units) == 0 && len(errs) == 0 {
@@ -310,12 +332,15 @@ func (p *Pipeline) Baseline() (*ModelFile, error) {
 
 // baseLimits evaluates the model at the channel means (nothing missing)
 // to read the limits of the full problem.
-func (u *Unit) baseLimits() LimitsView {
-	x := make([]float64, u.tr.P())
-	u.tr.Stats().MeanTo(x)
+func (u *Unit) baseLimits() LimitsView { return limitsOf(u.tr) }
+
+// limitsOf reads the limits of the full problem of tr.
+func limitsOf(tr *tracker.Tracker) LimitsView {
+	x := make([]float64, tr.P())
+	tr.Stats().MeanTo(x)
 	var s tracker.Score
-	lv := LimitsView{Alpha: u.tr.Config().Alpha}
-	if err := u.tr.Evaluate(&s, x, nil); err == nil && s.Ready {
+	lv := LimitsView{Alpha: tr.Config().Alpha}
+	if err := tr.Evaluate(&s, x, nil); err == nil && s.Ready {
 		lv.T2, lv.SPE, lv.Phi = finite(s.T2Limit), finite(s.SPELimit), finite(s.PhiLimit)
 	}
 	return lv

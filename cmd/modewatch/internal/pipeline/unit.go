@@ -46,6 +46,8 @@ type Unit struct {
 	profile []alerts.ChannelProfile
 	screen  *alerts.Screen
 	learn   *profiler
+	// states: one model per operating state (nil: one model); see states.go.
+	states *unitStates
 
 	// Counters, under p.mu.
 	frames      uint64 // frames scored
@@ -60,8 +62,12 @@ type Unit struct {
 
 func newUnit(p *Pipeline, name string) *Unit {
 	m := p.cfg.ModelFor(name)
-	return &Unit{Name: name, p: p, model: m, fixed: m.Adapt != nil && !*m.Adapt,
+	u := &Unit{Name: name, p: p, model: m, fixed: m.Adapt != nil && !*m.Adapt,
 		equal: p.opt.Fit && !p.opt.FitHalfLife}
+	if i := p.cfg.Unit(name); i >= 0 && p.cfg.Units[i].State != "" {
+		u.states = newStates(p.cfg.Units[i].State, p.cfg.Units[i].StateBands)
+	}
+	return u
 }
 
 // addChannel gives registry channel i to the unit and reports whether it
@@ -181,6 +187,9 @@ func (u *Unit) step(f *stream.Frame) error {
 		u.observeSilent(f.Start)
 		return nil
 	}
+	if u.states != nil && !u.enterState(f) {
+		return nil // no operating state yet
+	}
 	want := u.fixed || u.alertFrozen.Load()
 	if want != u.frozen {
 		if want {
@@ -207,6 +216,9 @@ func (u *Unit) step(f *stream.Frame) error {
 		return nil
 	}
 	u.frames++
+	if u.states != nil {
+		u.states.models[u.states.cur].frames++
+	}
 	if u.firstT.IsZero() {
 		u.firstT = f.Start
 	}
@@ -266,7 +278,9 @@ func (u *Unit) observe(t time.Time) {
 	o.Contributors = o.Contributors[:0]
 	o.Missing = o.Missing[:0]
 	o.Quality = o.Quality[:0]
-	if s.Ready {
+	// In the hold-off after an operating-state switch the frame is scored
+	// and shown but its statistics start no incident.
+	if s.Ready && (u.states == nil || !u.states.inHoldOff()) {
 		o.Stats = append(o.Stats,
 			alerts.Stat{Name: alerts.StatT2, Value: s.T2, Limit: s.T2Limit},
 			alerts.Stat{Name: alerts.StatSPE, Value: s.SPE, Limit: s.SPELimit},

@@ -3,6 +3,8 @@ package pipeline
 import (
 	"math"
 	"time"
+
+	"modewatch/tracker"
 )
 
 // ModeView describes one mode for people and JSON: its stable id, the
@@ -74,6 +76,10 @@ type UnitView struct {
 	Latest        *ScoreView  `json:"latest"`
 	ActiveAlerts  int         `json:"active_alerts"`
 	InMaintenance bool        `json:"maintenance"`
+	// State is the unit's current operating state and States every state
+	// with its own modes (absent for a unit with one model).
+	State  string      `json:"state,omitempty"`
+	States []StateView `json:"states,omitempty"`
 }
 
 func finite(v float64) *float64 {
@@ -84,11 +90,14 @@ func finite(v float64) *float64 {
 }
 
 // modesView lists the unit's current modes.
-func (u *Unit) modesView() []ModeView {
-	if u.tr == nil {
+func (u *Unit) modesView() []ModeView { return u.modesOf(u.tr) }
+
+// modesOf lists the modes of tr, one of the unit's trackers.
+func (u *Unit) modesOf(tr *tracker.Tracker) []ModeView {
+	if tr == nil {
 		return nil
 	}
-	ms := u.tr.Modes()
+	ms := tr.Modes()
 	total := ms.TotalVariance()
 	out := make([]ModeView, 0, ms.Count())
 	for j := 0; j < ms.Count(); j++ {
@@ -112,7 +121,7 @@ func (u *Unit) View(t time.Time) UnitView {
 	v := UnitView{
 		Name: u.Name, Channels: u.Channels(), NotModelled: append([]string(nil), u.late...),
 		ModelState: u.ModelState(), Frames: u.frames, EmptyFrames: u.empty, StepErrors: u.stepErrors,
-		Modes: u.modesView(),
+		Modes: u.modesView(), State: u.CurrentState(), States: u.statesView(),
 	}
 	if u.failed != nil {
 		v.Error = u.failed.Error()

@@ -685,13 +685,13 @@ func (s *Service) Publish(r *alerts.Record) {
 }
 
 // Records returns the latest revision of the recent incident records (at
-// most 1000, floods left out), open or closed, by start time.
+// most 1000, floods and notices left out), open or closed, by start time.
 func (s *Service) Records() []alerts.Record {
 	s.recMu.Lock()
 	defer s.recMu.Unlock()
 	out := make([]alerts.Record, 0, len(s.recIDs))
 	for _, id := range s.recIDs {
-		if r := s.recent[id]; r.Kind != alerts.KindFlood {
+		if r := s.recent[id]; r.Kind == alerts.KindIncident {
 			out = append(out, r)
 		}
 	}
