@@ -11,6 +11,7 @@ import (
 
 	"modewatch/alerts"
 	"modewatch/configs"
+	"modewatch/stream"
 )
 
 // The operating-state tests run on an invented two-state plant at 10 s
@@ -287,5 +288,60 @@ func TestStateHoldOff(t *testing.T) {
 	}
 	if len(noHold) < 2 {
 		t.Errorf("%d alerts without the hold-off: the lag does not show", len(noHold))
+	}
+}
+
+// TestStateFrameAllocs: scoring frames that switch between operating
+// states allocates nothing (the states exist; a new state allocates once).
+func TestStateFrameAllocs(t *testing.T) {
+	cfg := sConfig(t, "model: {refresh_every: 1000000000}\nunits: [{name: mix, state: ctl.a.mode}]\n")
+	res, err := Replay(context.Background(), ReplayOptions{Config: cfg, Inputs: []string{"-"},
+		Stdin: bytes.NewReader(sPlant(0, 3*1080, nil, nil, 1, 0))})
+	if err != nil {
+		t.Fatal(err)
+	}
+	p := res.Pipeline
+	mix := p.Unit("mix")
+	if mix.states == nil || len(mix.states.models) != 2 {
+		t.Fatalf("unit mix has no two states")
+	}
+	n := res.Intake.Channels().Len()
+	mode, _ := res.Intake.Channels().Index("ctl.a.mode")
+	f := &stream.Frame{Values: make([]float64, n), Missing: make([]bool, n), Times: make([]int64, n),
+		Start: sStart.Add(4 * 1080 * sPeriod)}
+	// Each state's frames at its channel means ± 0.1 σ, alternating.
+	frames := [2][2][]float64{}
+	for s, m := range mix.states.models {
+		means, vars := make([]float64, m.tr.P()), make([]float64, m.tr.P())
+		m.tr.Stats().MeanTo(means)
+		m.tr.Stats().VarTo(vars)
+		for j := range frames[s] {
+			frames[s][j] = make([]float64, n)
+			for i := range frames[s][j] {
+				frames[s][j][i] = 1 + 0.01*float64(j) // the other units' channels
+			}
+			for k, i := range mix.idx {
+				frames[s][j][i] = means[k] + (0.2*float64(j)-0.1)*math.Sqrt(vars[k])
+			}
+			frames[s][j][mode] = m.key
+		}
+	}
+	k := 0
+	step := func() {
+		k++
+		copy(f.Values, frames[(k/10)%2][k%2])
+		f.Start = f.Start.Add(sPeriod)
+		if err := p.Frame(f); err != nil {
+			t.Fatal(err)
+		}
+	}
+	for range 40 {
+		step()
+	}
+	if !mix.Score().Ready || mix.states.cur < 0 {
+		t.Fatal("unit mix is not scoring")
+	}
+	if a := testing.AllocsPerRun(200, step); a != 0 {
+		t.Errorf("Frame allocates %v times per frame", a)
 	}
 }
