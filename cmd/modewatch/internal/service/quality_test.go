@@ -77,7 +77,7 @@ frames: {period: 1s}
 server: {embedded_port: -1}
 http: {listen: "off"}
 model: {file: `+modelFile+`}
-data_dir: `+filepath.Join(dir, "data")+`
+state_dir: `+filepath.Join(dir, "data")+`
 `))
 	if err != nil {
 		t.Fatal(err)
