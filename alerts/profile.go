@@ -109,6 +109,7 @@ type Screen struct {
 	last  []float64
 	flat  []int
 	gap   []int
+	skip  []bool // channels judged elsewhere (context channels of other units)
 	// silent: every channel missing in the last Step.
 	silent bool
 }
@@ -137,8 +138,14 @@ func (s *Screen) Grow(names []string, prof []ChannelProfile) {
 		s.last = append(s.last, math.NaN())
 		s.flat = append(s.flat, 0)
 		s.gap = append(s.gap, 0)
+		s.skip = append(s.skip, false)
 	}
 }
+
+// Skip sets whether channel k is left to another unit's rules (a context
+// channel: a driver from another unit, judged there): it raises no
+// condition here and does not count for the unit's silence.
+func (s *Screen) Skip(k int, skip bool) { s.skip[k] = skip }
 
 // Len returns the number of channels.
 func (s *Screen) Len() int { return len(s.names) }
@@ -147,8 +154,10 @@ func (s *Screen) Len() int { return len(s.names) }
 // order. The slice is the screen's own.
 func (s *Screen) Profiles() []ChannelProfile { return s.prof }
 
-// Profiled reports whether channel k has a learned profile.
-func (s *Screen) Profiled(k int) bool { return s.prof[k].Frames > 0 }
+// Profiled reports whether channel k has a learned profile (or is left to
+// another unit's rules, see Skip): the rules without a profile do not
+// apply to it.
+func (s *Screen) Profiled(k int) bool { return s.prof[k].Frames > 0 || s.skip[k] }
 
 // Step advances the runs by one frame: x holds the values (in the
 // screen's channel order) and miss the missing flags.
@@ -159,7 +168,9 @@ func (s *Screen) Step(x []float64, miss []bool) {
 			s.gap[k]++
 			continue // a flat run goes on over a gap: a frozen sensor may also drop out
 		}
-		s.silent = false
+		if !s.skip[k] {
+			s.silent = false
+		}
 		s.gap[k] = 0
 		if v == s.last[k] {
 			s.flat[k]++
@@ -177,7 +188,7 @@ func (s *Screen) Silent() bool { return s.silent }
 // its missing rule counts this frame. A channel without profile: always.
 func (s *Screen) MissingAlarm(k int) bool {
 	p := &s.prof[k]
-	return p.Frames == 0 || s.gap[k] > p.MaxGap
+	return !s.skip[k] && (p.Frames == 0 || s.gap[k] > p.MaxGap)
 }
 
 // AppendQuality appends to dst the conditions of the last frame that the
@@ -198,7 +209,7 @@ func (s *Screen) AppendQuality(dst []Quality) []Quality {
 	}
 	for k := range s.prof {
 		p := &s.prof[k]
-		if p.Frames == 0 || s.gap[k] > 0 {
+		if p.Frames == 0 || s.gap[k] > 0 || s.skip[k] {
 			continue
 		}
 		v := s.last[k]

@@ -8,6 +8,7 @@ import (
 	"io"
 	"math"
 	"os"
+	"slices"
 	"time"
 
 	"modewatch/alerts"
@@ -110,6 +111,9 @@ type ModelUnit struct {
 	// States holds one model per operating state of a unit with a state
 	// channel (version 2); State then holds the state with most frames.
 	States *StatesFile `json:"states,omitempty"`
+	// Context names the unit's context channels (drivers from other
+	// units) among Channels (version 2).
+	Context []string `json:"context,omitempty"`
 }
 
 // LastReading is a channel's reading carried at a checkpoint's last frame.
@@ -257,6 +261,11 @@ func (p *Pipeline) buildFromModel(mu *ModelUnit, period time.Duration) (*Unit, e
 	u.frozen = tr.Frozen()
 	u.baseline = true
 	u.profile = mu.Quality
+	for _, c := range mu.Context {
+		if !slices.Contains(u.context, c) {
+			u.context = append(u.context, c)
+		}
+	}
 	u.states = nil
 	if mu.States != nil {
 		if err := u.restoreStates(mu.States, len(mu.Channels), cfg); err != nil {
@@ -321,7 +330,7 @@ func (p *Pipeline) Baseline() (*ModelFile, error) {
 			settings.HalfLife = 0
 		}
 		mu := ModelUnit{Name: u.Name, Channels: append([]string(nil), u.names...), Settings: settings,
-			Modes: u.modesView(), Limits: u.baseLimits(), State: state, Quality: u.Profiles(), States: sf}
+			Modes: u.modesView(), Limits: u.baseLimits(), State: state, Quality: u.Profiles(), States: sf, Context: u.contextIn()}
 		m.Units = append(m.Units, mu)
 	}
 	if len(m.Units) == 0 && len(errs) == 0 {

@@ -215,6 +215,7 @@ func (p *Pipeline) assign() {
 		if u.addChannel(i, c.Name) {
 			p.owner[i] = u
 		}
+		p.assignContext(i, c, u)
 	}
 	p.known = n
 }

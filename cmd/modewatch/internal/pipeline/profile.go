@@ -132,6 +132,9 @@ func (u *Unit) screenFrame() {
 	} else if u.screen.Len() < len(u.names) {
 		u.screen.Grow(u.names, u.profile)
 	}
+	for k := range u.ctx {
+		u.screen.Skip(k, u.ctx[k])
+	}
 	u.screen.Step(u.x, u.miss)
 	if u.p.opt.Fit {
 		if u.learn == nil {

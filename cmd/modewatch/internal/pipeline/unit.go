@@ -48,6 +48,14 @@ type Unit struct {
 	learn   *profiler
 	// states: one model per operating state (nil: one model); see states.go.
 	states *unitStates
+	// Context channels (drivers from other units; context.go): their
+	// names, a flag per model channel, and the regression removing them.
+	context []string
+	ctx     []bool
+	nCtx    int
+	drivers *tracker.Drivers
+	drvTr   *tracker.Tracker // the tracker drivers was fitted on
+	adj     []float64
 
 	// Counters, under p.mu.
 	frames      uint64 // frames scored
@@ -67,6 +75,7 @@ func newUnit(p *Pipeline, name string) *Unit {
 	if i := p.cfg.Unit(name); i >= 0 && p.cfg.Units[i].State != "" {
 		u.states = newStates(p.cfg.Units[i].State, p.cfg.Units[i].StateBands)
 	}
+	u.context = slices.Clone(p.contextOf(name))
 	return u
 }
 
@@ -181,6 +190,10 @@ func (u *Unit) step(f *stream.Frame) error {
 			u.x[k], u.miss[k] = math.NaN(), true
 		}
 	}
+	u.syncContext()
+	if u.nCtx > 0 {
+		observed = u.ownObserved()
+	}
 	u.screenFrame()
 	if observed == 0 {
 		u.empty++
@@ -207,6 +220,9 @@ func (u *Unit) step(f *stream.Frame) error {
 	if refreshDue && err == nil {
 		u.refreshes++
 		u.lastRefresh = time.Since(t0)
+	}
+	if u.drivers != nil && err == nil {
+		u.scoreDrivers(refreshDue)
 	}
 	if err != nil {
 		u.stepErrors++
@@ -286,13 +302,16 @@ func (u *Unit) observe(t time.Time) {
 			alerts.Stat{Name: alerts.StatSPE, Value: s.SPE, Limit: s.SPELimit},
 			alerts.Stat{Name: alerts.StatPhi, Value: s.Phi, Limit: s.PhiLimit})
 		for _, c := range s.Contrib {
+			if u.isContext(c.Channel) {
+				continue // a driver from another unit is never blamed here
+			}
 			o.Contributors = append(o.Contributors, alerts.Contributor{
 				Channel: u.names[c.Channel], Share: c.Share, RBC: c.RBC, Limit: c.RBCLimit, Modes: c.Modes,
 			})
 		}
 	}
 	for _, i := range s.Missing {
-		if u.screen.MissingAlarm(i) {
+		if u.screen.MissingAlarm(i) && !u.isContext(i) {
 			o.Missing = append(o.Missing, u.names[i])
 		}
 	}

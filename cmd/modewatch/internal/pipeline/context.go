@@ -1,0 +1,110 @@
+package pipeline
+
+import (
+	"slices"
+
+	"modewatch/stream"
+	"modewatch/tracker"
+)
+
+// Drivers from other units. A unit's context channels (units[].context,
+// or the model file it was fitted into) are channels of other units that
+// drive it. They join the unit's model like its own channels; each frame
+// is then scored with their explained part removed (tracker.Drivers), so
+// that a driver moving the unit raises nothing in it; they are never named
+// as contributors, and their data quality is their own unit's business.
+
+// contextOf returns the context channel names of the configured unit name.
+func (p *Pipeline) contextOf(name string) []string {
+	if i := p.cfg.Unit(name); i >= 0 {
+		return p.cfg.Units[i].Context
+	}
+	return nil
+}
+
+// assignContext gives registry channel i (owned by owner, possibly nil) to
+// every unit that takes it as a context channel. Called under p.mu.
+func (p *Pipeline) assignContext(i int, c stream.Channel, owner *Unit) {
+	for k := range p.cfg.Units {
+		cu := &p.cfg.Units[k]
+		if slices.Contains(cu.Context, c.Name) && p.byName[cu.Name] == nil {
+			p.newUnit(cu.Name)
+		}
+	}
+	for _, u := range p.units {
+		if u == owner || !slices.Contains(u.context, c.Name) {
+			continue
+		}
+		u.addChannel(i, c.Name)
+	}
+}
+
+// isContext reports whether model channel k of the unit is a context
+// channel.
+func (u *Unit) isContext(k int) bool { return k < len(u.ctx) && u.ctx[k] }
+
+// syncContext updates the per-channel context flags, the screen's and the
+// drivers after the unit's channels changed. It allocates only then.
+func (u *Unit) syncContext() {
+	if len(u.context) == 0 || len(u.ctx) == len(u.names) {
+		return
+	}
+	u.ctx = u.ctx[:0]
+	n := 0
+	for _, name := range u.names {
+		c := slices.Contains(u.context, name)
+		u.ctx = append(u.ctx, c)
+		if c {
+			n++
+		}
+	}
+	u.nCtx = n
+	u.drivers, u.drvTr = nil, nil
+	if d, err := tracker.NewDrivers(len(u.names), u.ctx); err == nil {
+		u.drivers = d
+		u.adj = make([]float64, len(u.names))
+	}
+}
+
+// ownObserved counts the unit's own channels present in the frame just
+// read (context channels do not keep a unit from being silent).
+func (u *Unit) ownObserved() int {
+	n := 0
+	for k, m := range u.miss {
+		if !m && !u.isContext(k) {
+			n++
+		}
+	}
+	return n
+}
+
+// scoreDrivers rescores the frame just stepped with its context channels'
+// part removed, refitting the regression on them when the model was
+// refreshed or the operating state changed. It allocates nothing.
+func (u *Unit) scoreDrivers(refreshed bool) {
+	d := u.drivers
+	if d == nil || !u.score.Ready || u.tr.P() != len(u.adj) {
+		return
+	}
+	if refreshed || !d.Ready() || u.drvTr != u.tr {
+		if err := d.Fit(u.tr); err != nil {
+			return
+		}
+		u.drvTr = u.tr
+	}
+	d.Adjust(u.adj, u.x, u.miss, u.tr)
+	if err := u.tr.Evaluate(&u.score, u.adj, u.miss); err != nil {
+		u.stepErrors++
+	}
+}
+
+// contextIn returns the unit's context channels among its model channels.
+func (u *Unit) contextIn() []string {
+	var out []string
+	for _, n := range u.names {
+		if slices.Contains(u.context, n) {
+			out = append(out, n)
+		}
+	}
+	return out
+}
