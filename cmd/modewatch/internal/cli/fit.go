@@ -4,6 +4,7 @@ import (
 	"context"
 	"encoding/json"
 	"fmt"
+	"io"
 	"strings"
 
 	"modewatch/cmd/modewatch/internal/pipeline"
@@ -80,6 +81,11 @@ func runFit(ctx context.Context, env IO, args []string) error {
 			Settings pipeline.ModelSettings `json:"settings"`
 			Modes    []pipeline.ModeView    `json:"modes"`
 			Limits   pipeline.LimitsView    `json:"limits"`
+			// States: the operating states (units[].state), each with its
+			// modes; Suggested: context candidates (units[].context).
+			States    []stateOut                   `json:"states,omitempty"`
+			HoldOff   *int                         `json:"state_hold_off_frames,omitempty"`
+			Suggested []pipeline.ContextSuggestion `json:"context_suggested,omitempty"`
 		}
 		o := struct {
 			Model  string    `json:"model"`
@@ -88,7 +94,15 @@ func runFit(ctx context.Context, env IO, args []string) error {
 			Units  []unitOut `json:"units"`
 		}{Model: outPath, Frames: model.Frames, Period: res.Period.String()}
 		for _, u := range model.Units {
-			o.Units = append(o.Units, unitOut{u.Name, u.Channels, u.Settings, u.Modes, u.Limits})
+			uo := unitOut{Name: u.Name, Channels: u.Channels, Settings: u.Settings, Modes: u.Modes, Limits: u.Limits, Suggested: u.Suggested}
+			if u.States != nil {
+				h := u.States.HoldOff
+				uo.HoldOff = &h
+				for _, s := range u.States.Models {
+					uo.States = append(uo.States, stateOut{Label: s.Label, Frames: s.Frames, Modes: s.Modes, Limits: s.Limits})
+				}
+			}
+			o.Units = append(o.Units, uo)
 		}
 		enc := json.NewEncoder(env.Out)
 		enc.SetIndent("", "  ")
@@ -103,13 +117,39 @@ func runFit(ctx context.Context, env IO, args []string) error {
 			lim = fmt.Sprintf(", T² limit %.2f, SPE limit %.2f at α=%g", *u.Limits.T2, *u.Limits.SPE, u.Limits.Alpha)
 		}
 		fmt.Fprintf(env.Out, "unit %-12s %3d channels, %d modes%s\n", u.Name, len(u.Channels), len(u.Modes), lim)
-		for _, m := range u.Modes {
-			parts := make([]string, len(m.Channels))
-			for i, c := range m.Channels {
-				parts[i] = fmt.Sprintf("%s %+.2f", strings.TrimPrefix(c, u.Name+"."), m.Loadings[i])
+		if u.States == nil {
+			printModes(env.Out, u.Name, "  ", u.Modes)
+		} else {
+			fmt.Fprintf(env.Out, "  %d operating states by %s (hold-off after a switch: %d frames)\n",
+				len(u.States.Models), u.States.Channel, u.States.HoldOff)
+			for _, s := range u.States.Models {
+				fmt.Fprintf(env.Out, "  state %s: %d frames, %d modes\n", s.Label, s.Frames, len(s.Modes))
+				printModes(env.Out, u.Name, "    ", s.Modes)
 			}
-			fmt.Fprintf(env.Out, "  mode %d (%4.1f%%): %s\n", m.ID, 100*m.VarianceShare, strings.Join(parts, ", "))
+		}
+		for _, s := range u.Suggested {
+			fmt.Fprintf(env.Out, "  context suggestion: %s (unit %s) explains %.0f%% of this unit's variance; list it in units[].context if it drives this unit\n",
+				s.Channel, s.Unit, 100*s.Share)
 		}
 	}
 	return nil
+}
+
+// stateOut is one operating state in fit's JSON output.
+type stateOut struct {
+	Label  string              `json:"label"`
+	Frames uint64              `json:"frames"`
+	Modes  []pipeline.ModeView `json:"modes"`
+	Limits pipeline.LimitsView `json:"limits"`
+}
+
+// printModes prints modes, one line each, channel names without the unit.
+func printModes(w io.Writer, unit, indent string, modes []pipeline.ModeView) {
+	for _, m := range modes {
+		parts := make([]string, len(m.Channels))
+		for i, c := range m.Channels {
+			parts[i] = fmt.Sprintf("%s %+.2f", strings.TrimPrefix(c, unit+"."), m.Loadings[i])
+		}
+		fmt.Fprintf(w, "%smode %d (%4.1f%%): %s\n", indent, m.ID, 100*m.VarianceShare, strings.Join(parts, ", "))
+	}
 }

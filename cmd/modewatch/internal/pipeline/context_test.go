@@ -109,3 +109,39 @@ func TestContextDriver(t *testing.T) {
 		t.Error("without hp as context the upstream step raised no alert in dn: the test shows nothing")
 	}
 }
+
+// TestContextSuggested: fit suggests a channel of another unit that
+// explains a large share of a unit's variance, with that share: dn.a and
+// dn.b follow up.hp with noise σ 0.3 (corr² = 1/1.09 each by hand), dn.c
+// is independent, so up.hp explains (2/1.09 + 0)/3 = 0.612 of dn.
+func TestContextSuggested(t *testing.T) {
+	rng := rand.New(rand.NewPCG(8, 9))
+	var b bytes.Buffer
+	for k := 0; k < 5000; k++ {
+		hp := rng.NormFloat64()
+		ts := sStart.Add(time.Duration(k) * sPeriod).UnixNano()
+		fmt.Fprintf(&b, "up,asset=x hp=%.5f %d\n", hp, ts)
+		fmt.Fprintf(&b, "dn,asset=x a=%.5f,b=%.5f,c=%.5f %d\n", hp+0.3*rng.NormFloat64(), -hp+0.3*rng.NormFloat64(), rng.NormFloat64(), ts)
+	}
+	res, err := Replay(context.Background(), ReplayOptions{Config: sConfig(t, ""), Inputs: []string{"-"}, Stdin: &b, Fit: true})
+	if err != nil {
+		t.Fatal(err)
+	}
+	m, err := res.Pipeline.Baseline()
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, u := range m.Units {
+		if u.Name != "dn" {
+			continue
+		}
+		if len(u.Suggested) != 1 || u.Suggested[0].Channel != "up.x.hp" || u.Suggested[0].Unit != "up" {
+			t.Fatalf("dn: suggested %+v, want up.x.hp", u.Suggested)
+		}
+		if s := u.Suggested[0].Share; math.Abs(s-2/1.09/3) > 0.03 {
+			t.Errorf("up.x.hp explains %.3f of dn's variance, by hand 0.612", s)
+		}
+		return
+	}
+	t.Fatal("no unit dn")
+}

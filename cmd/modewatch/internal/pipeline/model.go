@@ -114,6 +114,9 @@ type ModelUnit struct {
 	// Context names the unit's context channels (drivers from other
 	// units) among Channels (version 2).
 	Context []string `json:"context,omitempty"`
+	// Suggested lists channels of other units that explain a large share
+	// of this unit's variance in the fitted log: candidates for Context.
+	Suggested []ContextSuggestion `json:"context_suggested,omitempty"`
 }
 
 // LastReading is a channel's reading carried at a checkpoint's last frame.
@@ -299,6 +302,7 @@ func (p *Pipeline) Baseline() (*ModelFile, error) {
 	m := &ModelFile{Format: ModelFormat, Version: ModelVersion, Created: time.Now().UTC(), Period: Duration(p.opt.Period),
 		Frames: p.frames, From: p.first, To: p.last}
 	var errs []error
+	sug := p.suggestions()
 	for _, u := range p.Units() {
 		if u.tr == nil || u.failed != nil {
 			errs = append(errs, fmt.Errorf("unit %s: no model (%v)", u.Name, u.failed))
@@ -330,7 +334,7 @@ func (p *Pipeline) Baseline() (*ModelFile, error) {
 			settings.HalfLife = 0
 		}
 		mu := ModelUnit{Name: u.Name, Channels: append([]string(nil), u.names...), Settings: settings,
-			Modes: u.modesView(), Limits: u.baseLimits(), State: state, Quality: u.Profiles(), States: sf, Context: u.contextIn()}
+			Modes: u.modesView(), Limits: u.baseLimits(), State: state, Quality: u.Profiles(), States: sf, Context: u.contextIn(), Suggested: sug[u.Name]}
 		m.Units = append(m.Units, mu)
 	}
 	if len(m.Units) == 0 && len(errs) == 0 {

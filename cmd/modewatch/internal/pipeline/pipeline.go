@@ -67,6 +67,7 @@ type Pipeline struct {
 	last   time.Time
 	obs    alerts.Observation
 	stale  time.Duration // staleness limit of the frames (silence.go)
+	cross  crossStats    // fit: cross-products for context suggestions (suggest.go)
 }
 
 // OrDefaults gives the nil Config and Log fields of the options structs
@@ -248,6 +249,9 @@ func (p *Pipeline) Frame(f *stream.Frame) error {
 	}
 	p.frames++
 	p.last = f.Start
+	if p.opt.Fit {
+		p.addCross(f)
+	}
 	var errs []error
 	for _, u := range p.units {
 		if err := u.step(f); err != nil {
