@@ -401,6 +401,9 @@ func (b *board) score(u *pipeline.Unit, t time.Time) {
 		b.units[u.Name] = l
 	}
 	l.t, l.state, l.ready, l.missing = t, u.ModelState(), s.Ready, len(s.Missing)
+	if st := u.CurrentState(); st != "" {
+		l.state += ", state " + st // the unit's operating state
+	}
 	l.t2, l.t2l, l.spe, l.spel = s.T2, s.T2Limit, s.SPE, s.SPELimit
 	b.mu.Unlock()
 }

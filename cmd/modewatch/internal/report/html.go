@@ -143,6 +143,25 @@ func Write(dir string, in *Input) (string, error) {
 			}
 			u.Modes = append(u.Modes, chart{Src: rel, Alt: fmt.Sprintf("loadings of mode %d of unit %s: %s", m.ID, uv.Name, strings.Join(m.Channels, ", "))})
 		}
+		u.OpState = uv.State
+		for si, st := range uv.States {
+			ss := stateSection{Label: st.Label, Current: st.Current, Frames: st.Frames}
+			for _, m := range st.Modes {
+				b, err := loadingsChart(uv.Name, m)
+				if err != nil {
+					return "", fmt.Errorf("report: unit %s state %s mode %d: %w", uv.Name, st.Label, m.ID, err)
+				}
+				if b == nil {
+					continue
+				}
+				rel, err := put(fmt.Sprintf("%s-state-%d-mode-%d.svg", base, si, m.ID), b)
+				if err != nil {
+					return "", err
+				}
+				ss.Modes = append(ss.Modes, chart{Src: rel, Alt: fmt.Sprintf("loadings of mode %d of unit %s in state %s: %s", m.ID, uv.Name, st.Label, strings.Join(m.Channels, ", "))})
+			}
+			u.OpStates = append(u.OpStates, ss)
+		}
 		page.Units = append(page.Units, u)
 	}
 	var b bytes.Buffer
@@ -229,6 +248,17 @@ type unitSection struct {
 	PerBucket                  int
 	Stats, Modes               []chart
 	Heat                       *chart
+	// OpState is the current operating state and OpStates each state's
+	// modes (units with a state channel).
+	OpState  string
+	OpStates []stateSection
+}
+
+type stateSection struct {
+	Label   string
+	Current bool
+	Frames  uint64
+	Modes   []chart
 }
 
 type episodeRow struct {
@@ -505,11 +535,17 @@ nav a { color: #f6f3ec; margin-right: 1em; }
 {{if .Heat}}<h3>Top contributing channels</h3>
 <p class="note">Reconstruction-based contribution of each channel over its own control limit (Alcalá and Qin 2009); 1 or more means the channel alone explains a significant part of the deviation.</p>
 <div class="charts"><img src="{{.Heat.Src}}" alt="{{.Heat.Alt}}"/></div>{{end}}
-{{if .Modes}}<h3>Modes</h3>
+{{if .OpStates}}<h3>Operating states</h3>
+<p class="note">One model per state; at the end of the replay the unit was in state {{.OpState}}. Loadings of each state's modes, by channel.</p>
+{{range .OpStates}}<h4>State {{.Label}}{{if .Current}} (current){{end}}, {{.Frames}} frame(s)</h4>
+<div class="modes">
+{{range .Modes}}<img src="{{.Src}}" alt="{{.Alt}}"/>
+{{end}}</div>
+{{end}}{{else}}{{if .Modes}}<h3>Modes</h3>
 <p class="note">Loadings of each mode at the end of the replay, by channel.</p>
 <div class="modes">
 {{range .Modes}}<img src="{{.Src}}" alt="{{.Alt}}"/>
-{{end}}</div>{{end}}
+{{end}}</div>{{end}}{{end}}
 {{end}}
 <p class="advisory">{{.Advisory}}</p>
 </main>
