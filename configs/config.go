@@ -241,7 +241,9 @@ type Unit struct {
 	// State names the unit's operating-state channel (any channel, of this
 	// unit or another): each of its distinct values, or with StateBands
 	// each band of its values, is one operating state with a model of its
-	// own. Empty: one model for all states.
+	// own. StateAuto lets fit find the states from the normal log (a
+	// Gaussian mixture on the leading mode scores, the number of states by
+	// BIC). Empty: one model for all states.
 	State string `yaml:"state"`
 	// StateBands are ascending band edges of the state channel's values:
 	// band 0 is below the first edge, band i from edge i-1 (inclusive) to

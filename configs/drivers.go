@@ -11,6 +11,9 @@ import (
 // there is one), bands finite and ascending, and a context channel must
 // not be one of the unit's own channels. owner maps each listed channel
 // to the index of its unit.
+// StateAuto as units[].state lets fit find the unit's operating states.
+const StateAuto = "auto"
+
 func (c *Config) validateDrivers(v *validator, names map[string]int, owner map[string]int) {
 	known := func(path, ch string) {
 		if ch == "" {
@@ -25,9 +28,12 @@ func (c *Config) validateDrivers(v *validator, names map[string]int, owner map[s
 	}
 	for ui, u := range c.Units {
 		p := fmt.Sprintf("units[%d]", ui)
-		if u.State != "" {
+		switch {
+		case u.State == StateAuto && len(u.StateBands) > 0:
+			v.add(p+".state_bands", "bands apply to a state channel, not to found states (state: auto)")
+		case u.State != "" && u.State != StateAuto:
 			known(p+".state", u.State)
-		} else if len(u.StateBands) > 0 {
+		case u.State == "" && len(u.StateBands) > 0:
 			v.add(p+".state_bands", "bands without a state channel (set units[%d].state)", ui)
 		}
 		for i, b := range u.StateBands {

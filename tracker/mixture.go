@@ -299,3 +299,39 @@ func invCholesky(a []float64, d int) (li []float64, logDet float64, ok bool) {
 	}
 	return li, logDet, true
 }
+
+// AdjustedRand returns the adjusted Rand index of two labelings of the
+// same points (Hubert & Arabie 1985): 1 for the same partition whatever
+// the label names, about 0 for chance agreement:
+//
+//	ARI = (Σᵢⱼ C(nᵢⱼ,2) − E) / (½(Σᵢ C(aᵢ,2) + Σⱼ C(bⱼ,2)) − E)
+//	E   = Σᵢ C(aᵢ,2) · Σⱼ C(bⱼ,2) / C(n,2)
+//
+// with nᵢⱼ the points labelled i in a and j in b, aᵢ and bⱼ the label
+// counts. It measures found operating states against labelled ones.
+func AdjustedRand(a, b []int) float64 {
+	c2 := func(v int) float64 { return float64(v) * float64(v-1) / 2 }
+	type pair struct{ i, j int }
+	nij, ai, bj := map[pair]int{}, map[int]int{}, map[int]int{}
+	for k := range a {
+		nij[pair{a[k], b[k]}]++
+		ai[a[k]]++
+		bj[b[k]]++
+	}
+	var s, sa, sb float64
+	for _, v := range nij {
+		s += c2(v)
+	}
+	for _, v := range ai {
+		sa += c2(v)
+	}
+	for _, v := range bj {
+		sb += c2(v)
+	}
+	e := sa * sb / c2(len(a))
+	den := (sa+sb)/2 - e
+	if den == 0 {
+		return 1
+	}
+	return (s - e) / den
+}

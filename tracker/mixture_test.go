@@ -9,46 +9,16 @@ import (
 	"gonum.org/v1/gonum/mat"
 )
 
-// adjustedRand is the adjusted Rand index of two labelings (Hubert &
-// Arabie 1985): (Σ C(nᵢⱼ,2) − E) / (½(Σ C(aᵢ,2) + Σ C(bⱼ,2)) − E),
-// E = Σ C(aᵢ,2) Σ C(bⱼ,2) / C(n,2).
-func adjustedRand(a, b []int) float64 {
-	c2 := func(v int) float64 { return float64(v) * float64(v-1) / 2 }
-	type pair struct{ i, j int }
-	nij, ai, bj := map[pair]int{}, map[int]int{}, map[int]int{}
-	for k := range a {
-		nij[pair{a[k], b[k]}]++
-		ai[a[k]]++
-		bj[b[k]]++
-	}
-	var s, sa, sb float64
-	for _, v := range nij {
-		s += c2(v)
-	}
-	for _, v := range ai {
-		sa += c2(v)
-	}
-	for _, v := range bj {
-		sb += c2(v)
-	}
-	e := sa * sb / c2(len(a))
-	den := (sa+sb)/2 - e
-	if den == 0 {
-		return 1
-	}
-	return (s - e) / den
-}
-
 // TestAdjustedRand checks the index on the examples of the scikit-learn
 // documentation of adjusted_rand_score (values from memory: 1, 0.57…, 0).
 func TestAdjustedRand(t *testing.T) {
-	if v := adjustedRand([]int{0, 0, 1, 1}, []int{1, 1, 0, 0}); v != 1 {
+	if v := AdjustedRand([]int{0, 0, 1, 1}, []int{1, 1, 0, 0}); v != 1 {
 		t.Errorf("relabelled: %v", v)
 	}
-	if v := adjustedRand([]int{0, 0, 1, 2}, []int{0, 0, 1, 1}); !scalar.EqualWithinAbs(v, 4.0/7, 1e-12) {
+	if v := AdjustedRand([]int{0, 0, 1, 2}, []int{0, 0, 1, 1}); !scalar.EqualWithinAbs(v, 4.0/7, 1e-12) {
 		t.Errorf("split cluster: %v, want 4/7 = 0.5714", v)
 	}
-	if v := adjustedRand([]int{0, 0, 0, 0}, []int{0, 1, 2, 3}); v != 0 {
+	if v := AdjustedRand([]int{0, 0, 0, 0}, []int{0, 1, 2, 3}); v != 0 {
 		t.Errorf("all apart: %v", v)
 	}
 }
@@ -82,7 +52,7 @@ func TestMixtureFindsStates(t *testing.T) {
 	for i, p := range x {
 		got[i] = m.Classify(p)
 	}
-	if ari := adjustedRand(truth, got); ari < 0.9 {
+	if ari := AdjustedRand(truth, got); ari < 0.9 {
 		t.Errorf("adjusted Rand index %.3f, want ≥ 0.9", ari)
 	}
 	// Reference density: rebuild Σ = L Lᵀ from L⁻¹ and ask gonum.

@@ -69,6 +69,9 @@ type unitStates struct {
 	noState uint64
 	full    bool // MaxStates reached and said so
 	wins    []*holdWindow
+	auto    *autoStates // states found by fit (state: auto), nil: by channel
+	// noWindows: do not time transitions (fit's kept frames were thinned).
+	noWindows bool
 }
 
 // newStates returns the states of a unit classified by channel.
@@ -76,8 +79,12 @@ func newStates(channel string, bands []float64) *unitStates {
 	return &unitStates{channel: channel, bands: slices.Clone(bands), reg: -1, cur: -1, since: holdOffWindow}
 }
 
-// label names a state for people: the value, or the band.
+// label names a state for people: the value, the band, or the found
+// state's number.
 func (s *unitStates) label(key float64) string {
+	if s.auto != nil {
+		return fmt.Sprintf("found-%d", int(key)+1)
+	}
 	if len(s.bands) == 0 {
 		return strconv.FormatFloat(key, 'g', -1, 64)
 	}
@@ -110,20 +117,29 @@ func (s *unitStates) find(key float64) int {
 // state is created.
 func (u *Unit) enterState(f *stream.Frame) bool {
 	s := u.states
-	if s.reg < 0 {
+	if s.reg < 0 && s.auto == nil {
 		if i, ok := u.p.ch.Index(s.channel); ok {
 			s.reg = i
 		}
 	}
 	key, ok := 0.0, false
-	if s.reg >= 0 && s.reg < len(f.Values) && !f.Missing[s.reg] {
+	switch {
+	case s.auto != nil:
+		key, ok = s.auto.classify(u.x, u.miss), true
+	case s.reg >= 0 && s.reg < len(f.Values) && !f.Missing[s.reg]:
 		key, ok = tracker.StateKey(f.Values[s.reg], s.bands)
 	}
+	return u.enterKey(key, ok, f.Start)
+}
+
+// enterKey is enterState for a classified frame (ok false: no state).
+func (u *Unit) enterKey(key float64, ok bool, t time.Time) bool {
+	s := u.states
 	next := s.cur
 	if ok {
 		next = s.find(key)
 		if next < 0 {
-			next = u.newState(key, f.Start)
+			next = u.newState(key, t)
 		}
 	}
 	if next < 0 {
@@ -198,7 +214,7 @@ func (u *Unit) switchState(i int) {
 	u.frozen = m.tr.Frozen()
 	if s.cur >= 0 {
 		s.since = 0
-		if u.p.opt.Fit && len(s.wins) < maxHoldOffWindows {
+		if u.p.opt.Fit && !s.noWindows && len(s.wins) < maxHoldOffWindows {
 			s.wins = append(s.wins, &holdWindow{state: i, p: len(u.x)})
 		}
 	}
@@ -266,8 +282,9 @@ type StateModel struct {
 
 // StatesFile is the operating-state part of a model unit.
 type StatesFile struct {
-	Channel string       `json:"channel"`
+	Channel string       `json:"channel"` // "auto": found by fit (Auto)
 	Bands   []float64    `json:"bands,omitempty"`
+	Auto    *autoStates  `json:"auto,omitempty"`
 	HoldOff int          `json:"hold_off_frames"`
 	Models  []StateModel `json:"models"`
 }
@@ -279,7 +296,7 @@ type StatesFile struct {
 // frames, whose tracker the file's unit State holds.
 func (u *Unit) statesBaseline(withLimits bool) (*StatesFile, int, error) {
 	s := u.states
-	out := &StatesFile{Channel: s.channel, Bands: slices.Clone(s.bands)}
+	out := &StatesFile{Channel: s.channel, Bands: slices.Clone(s.bands), Auto: s.auto}
 	best, bestN := -1, uint64(0)
 	var errs []error
 	warm := uint64(u.tr.Config().WarmUp)
@@ -324,6 +341,12 @@ func (u *Unit) statesBaseline(withLimits bool) (*StatesFile, int, error) {
 func (u *Unit) restoreStates(sf *StatesFile, p int, cfg tracker.Config) error {
 	s := newStates(sf.Channel, sf.Bands)
 	s.holdOff = sf.HoldOff
+	if sf.Auto != nil {
+		if err := sf.Auto.check(p); err != nil {
+			return err
+		}
+		s.auto = sf.Auto
+	}
 	for _, sm := range sf.Models {
 		tr, err := tracker.New(p, cfg)
 		if err != nil {

@@ -12,6 +12,7 @@ import (
 	"modewatch/alerts"
 	"modewatch/configs"
 	"modewatch/stream"
+	"modewatch/tracker"
 )
 
 // The operating-state tests run on an invented two-state plant at 10 s
@@ -35,12 +36,21 @@ func sState(k int) int { return (k / 1080) % 2 }
 // the bias on x3 where fault(k). With lag > 0, x3 enters state 1 as a
 // first-order response with that time constant (frames) instead of at
 // once.
-func sPlant(from, to int, keep func(state int) bool, fault func(k int) bool, seed uint64, lag float64) []byte {
+//
+// With gauss the load is a Gaussian AR(1) process (unit variance, time
+// constant 100 frames) instead of the daily-like swing, whose arcsine
+// distribution has two humps of its own.
+func sPlant(from, to int, keep func(state int) bool, fault func(k int) bool, seed uint64, lag float64, gauss bool) []byte {
 	rng := rand.New(rand.NewPCG(seed, 11))
 	var b bytes.Buffer
+	ar := 0.0
 	for k := from; k < to; k++ {
 		s := sState(k)
 		L := math.Sin(2*math.Pi*float64(k)/720) + 0.2*rng.NormFloat64()
+		if gauss {
+			ar = 0.99*ar + math.Sqrt(1-0.99*0.99)*rng.NormFloat64()
+			L = ar
+		}
 		n := func(sd float64) float64 { return sd * rng.NormFloat64() }
 		var x [4]float64
 		if s == 0 {
@@ -71,18 +81,18 @@ const sNormal = 2 * 8640 // two days
 // cfg); it returns the mix unit's alert starts and the share of fault
 // frames with φ over its limit.
 func sRun(t *testing.T, cfg, rcfg *configs.Config, keep func(int) bool, fault func(int) bool) (starts []time.Time, over float64, m *ModelFile) {
-	return sRunLag(t, cfg, rcfg, keep, fault, 0, nil)
+	return sRunLag(t, cfg, rcfg, keep, fault, 0, false, nil)
 }
 
-// sRunLag is sRun with a lagged entry into state 1; edit, if set, changes
-// the fitted model before the replay.
-func sRunLag(t *testing.T, cfg, rcfg *configs.Config, keep func(int) bool, fault func(int) bool, lag float64, edit func(*ModelFile)) (starts []time.Time, over float64, m *ModelFile) {
+// sRunLag is sRun with a lagged entry into state 1 and, with gauss, the
+// Gaussian load; edit, if set, changes the fitted model before the replay.
+func sRunLag(t *testing.T, cfg, rcfg *configs.Config, keep func(int) bool, fault func(int) bool, lag float64, gauss bool, edit func(*ModelFile)) (starts []time.Time, over float64, m *ModelFile) {
 	t.Helper()
 	if rcfg == nil {
 		rcfg = cfg
 	}
 	res, err := Replay(context.Background(), ReplayOptions{Config: cfg, Inputs: []string{"-"},
-		Stdin: bytes.NewReader(sPlant(0, sNormal, keep, nil, 1, lag)), Fit: true})
+		Stdin: bytes.NewReader(sPlant(0, sNormal, keep, nil, 1, lag, gauss)), Fit: true})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -96,7 +106,7 @@ func sRunLag(t *testing.T, cfg, rcfg *configs.Config, keep func(int) bool, fault
 	seen := map[string]bool{}
 	var nf, no int
 	_, err = Replay(context.Background(), ReplayOptions{Config: rcfg, Inputs: []string{"-"},
-		Stdin:    bytes.NewReader(sPlant(sNormal, sNormal+8640, keep, fault, 2, lag)),
+		Stdin:    bytes.NewReader(sPlant(sNormal, sNormal+8640, keep, fault, 2, lag, gauss)),
 		Baseline: m,
 		Publisher: alerts.PublisherFunc(func(r *alerts.Record) {
 			if r.Unit == "mix" && r.Kind == alerts.KindIncident && r.Group == alerts.GroupModel && !seen[r.ID] {
@@ -213,7 +223,7 @@ func TestOperatingStates(t *testing.T) {
 func TestNewOperatingState(t *testing.T) {
 	cfg := sConfig(t, "units: [{name: mix, state: ctl.a.mode, state_bands: [0.5, 1.5]}]\n")
 	res, err := Replay(context.Background(), ReplayOptions{Config: cfg, Inputs: []string{"-"},
-		Stdin: bytes.NewReader(sPlant(0, sNormal, nil, nil, 1, 0)), Fit: true})
+		Stdin: bytes.NewReader(sPlant(0, sNormal, nil, nil, 1, 0, false)), Fit: true})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -222,7 +232,7 @@ func TestNewOperatingState(t *testing.T) {
 		t.Fatal(err)
 	}
 	// Test day: mode reads 2 (band 2, never seen) in state 1's periods.
-	data := bytes.ReplaceAll(sPlant(sNormal, sNormal+8640, nil, nil, 2, 0), []byte("mode=1i"), []byte("mode=2i"))
+	data := bytes.ReplaceAll(sPlant(sNormal, sNormal+8640, nil, nil, 2, 0, false), []byte("mode=1i"), []byte("mode=2i"))
 	var notices, incidents int
 	var p *Pipeline
 	_, err = Replay(context.Background(), ReplayOptions{Config: cfg, Inputs: []string{"-"}, Stdin: bytes.NewReader(data), Baseline: m,
@@ -262,7 +272,7 @@ func TestNewOperatingState(t *testing.T) {
 func TestStateHoldOff(t *testing.T) {
 	cfg := sConfig(t, "units: [{name: mix, state: ctl.a.mode}]\n")
 	never := func(int) bool { return false }
-	starts, _, m := sRunLag(t, cfg, nil, nil, never, 5, nil)
+	starts, _, m := sRunLag(t, cfg, nil, nil, never, 5, false, nil)
 	var h int
 	for _, u := range m.Units {
 		if u.States != nil {
@@ -281,7 +291,7 @@ func TestStateHoldOff(t *testing.T) {
 			}
 		}
 	}
-	noHold, _, _ := sRunLag(t, cfg, nil, nil, never, 5, zero)
+	noHold, _, _ := sRunLag(t, cfg, nil, nil, never, 5, false, zero)
 	t.Logf("hold-off %d frames: %d alerts; without: %d alerts", h, len(starts), len(noHold))
 	if len(starts) > 0 {
 		t.Errorf("%d alerts with the learned hold-off, first at %v", len(starts), starts[0])
@@ -296,7 +306,7 @@ func TestStateHoldOff(t *testing.T) {
 func TestStateFrameAllocs(t *testing.T) {
 	cfg := sConfig(t, "model: {refresh_every: 1000000000}\nunits: [{name: mix, state: ctl.a.mode}]\n")
 	res, err := Replay(context.Background(), ReplayOptions{Config: cfg, Inputs: []string{"-"},
-		Stdin: bytes.NewReader(sPlant(0, 3*1080, nil, nil, 1, 0))})
+		Stdin: bytes.NewReader(sPlant(0, 3*1080, nil, nil, 1, 0, false))})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -343,5 +353,64 @@ func TestStateFrameAllocs(t *testing.T) {
 	}
 	if a := testing.AllocsPerRun(200, step); a != 0 {
 		t.Errorf("Frame allocates %v times per frame", a)
+	}
+}
+
+// TestFoundStates: with state: auto and no state channel (and the
+// Gaussian load, so that each state is one Gaussian), fit finds the
+// plant's two states (BIC), its classification of the normal log matches
+// the simulated states with an adjusted Rand index of at least 0.9, and
+// the in-state bias is detected as with the state channel.
+func TestFoundStates(t *testing.T) {
+	fault := func(k int) bool { return k >= sNormal && sState(k) == 0 && k%1080 >= 360 }
+	cfg := sConfig(t, "units: [{name: mix, state: auto}]\n")
+	starts, over, m := sRunLag(t, cfg, nil, nil, fault, 0, true, nil)
+	var mix *ModelUnit
+	for i := range m.Units {
+		if m.Units[i].Name == "mix" {
+			mix = &m.Units[i]
+		}
+	}
+	if mix == nil || mix.States == nil || mix.States.Auto == nil {
+		t.Fatalf("no found states in the model file: %+v", mix)
+	}
+	if k := mix.States.Auto.Mixture.K(); k != 2 || len(mix.States.Models) != 2 {
+		t.Fatalf("found %d states (%d models), want 2", k, len(mix.States.Models))
+	}
+	// Classify the normal log with the fitted model, held fixed.
+	var truth, found []int
+	_, err := Replay(context.Background(), ReplayOptions{Config: sConfig(t, "model: {adapt: false}\nunits: [{name: mix, state: auto}]\n"),
+		Inputs: []string{"-"}, Stdin: bytes.NewReader(sPlant(0, sNormal, nil, nil, 1, 0, true)), Baseline: m,
+		OnScore: func(u *Unit, ft time.Time) {
+			if u.Name != "mix" {
+				return
+			}
+			truth = append(truth, sState(int(ft.Sub(sStart)/sPeriod)))
+			found = append(found, int(u.states.models[u.states.cur].key))
+		}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	ari := tracker.AdjustedRand(truth, found)
+	hit := 0
+	for _, s := range starts {
+		if fault(int(s.Sub(sStart) / sPeriod)) {
+			hit++
+		}
+	}
+	t.Logf("found states: ARI %.4f over %d frames; %d alerts in the fault, φ over its limit in %.3f of fault frames", ari, len(truth), hit, over)
+	if ari < 0.9 {
+		t.Errorf("adjusted Rand index %.3f, want ≥ 0.9", ari)
+	}
+	if hit < 3 {
+		t.Errorf("%d alerts during the 4 fault periods with found states", hit)
+	}
+	a := mix.States.Auto
+	if err := a.check(len(mix.Channels)); err != nil {
+		t.Fatal(err)
+	}
+	x, miss := make([]float64, len(mix.Channels)), make([]bool, len(mix.Channels))
+	if n := testing.AllocsPerRun(100, func() { a.classify(x, miss) }); n != 0 {
+		t.Errorf("classifying a frame allocates %v", n)
 	}
 }

@@ -56,6 +56,7 @@ type Unit struct {
 	drivers *tracker.Drivers
 	drvTr   *tracker.Tracker // the tracker drivers was fitted on
 	adj     []float64
+	autoBuf *autoBuffer // fit with state: auto: the frames kept
 
 	// Counters, under p.mu.
 	frames      uint64 // frames scored
@@ -72,7 +73,12 @@ func newUnit(p *Pipeline, name string) *Unit {
 	m := p.cfg.ModelFor(name)
 	u := &Unit{Name: name, p: p, model: m, fixed: m.Adapt != nil && !*m.Adapt,
 		equal: p.opt.Fit && !p.opt.FitHalfLife}
-	if i := p.cfg.Unit(name); i >= 0 && p.cfg.Units[i].State != "" {
+	switch i := p.cfg.Unit(name); {
+	case p.isAuto(name):
+		if p.opt.Fit {
+			u.autoBuf = &autoBuffer{stride: 1} // states found at the end (autostates.go)
+		}
+	case i >= 0 && p.cfg.Units[i].State != "":
 		u.states = newStates(p.cfg.Units[i].State, p.cfg.Units[i].StateBands)
 	}
 	u.context = slices.Clone(p.contextOf(name))
@@ -223,6 +229,9 @@ func (u *Unit) step(f *stream.Frame) error {
 	}
 	if u.drivers != nil && err == nil {
 		u.scoreDrivers(refreshDue)
+	}
+	if u.autoBuf != nil && err == nil {
+		u.autoBuf.add(u.x, u.miss)
 	}
 	if err != nil {
 		u.stepErrors++
