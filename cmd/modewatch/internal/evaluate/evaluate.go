@@ -17,6 +17,7 @@ import (
 	"time"
 
 	"modewatch/alerts"
+	"modewatch/sim"
 )
 
 // DefaultGrace is how far an episode is extended on both sides before an
@@ -91,19 +92,24 @@ type Alert struct {
 	Start time.Time
 	End   time.Time // zero: still open when the replay ended
 	Top   []string  // contributing channels, largest share first
+	// Silent marks a unit's silent alert (every channel of the unit
+	// without readings): it names the unit, not a channel, and isolates an
+	// outage episode of its unit.
+	Silent bool
 }
 
 // AlertsOf converts alert records to the alerts the metrics score: every
 // incident (flood records are left out: their members are incidents
-// themselves), with its contributors ranked; a data-quality alert without
-// contributors names its one channel.
+// themselves; notices are not alerts), with its contributors ranked; a
+// data-quality alert without contributors names its one channel.
 func AlertsOf(recs []*alerts.Record) []Alert {
 	var out []Alert
 	for _, r := range recs {
-		if r.Kind == alerts.KindFlood {
+		if r.Kind != alerts.KindIncident {
 			continue
 		}
-		a := Alert{ID: r.ID, Unit: r.Unit, Start: r.Start}
+		a := Alert{ID: r.ID, Unit: r.Unit, Start: r.Start,
+			Silent: r.Quality != nil && r.Quality.Kind == alerts.QualitySilent}
 		if r.End != nil {
 			a.End = *r.End
 		}
@@ -244,6 +250,9 @@ func Compute(alerts []Alert, episodes []Episode, run Run) Metrics {
 				if slices.Contains(e.Channels, ch) {
 					match.Isolated = true
 				}
+			}
+			if a.Silent && e.Kind == string(sim.Outage) {
+				match.Isolated = true // the silent unit is the outage's unit
 			}
 			if match.Isolated {
 				m.IsolatedTop3++
