@@ -203,7 +203,12 @@ func (u *Unit) step(f *stream.Frame) error {
 	u.screenFrame()
 	if observed == 0 {
 		u.empty++
-		u.observeSilent(f.Start)
+		// Silent: the unit had readings in this run and lost them, or has
+		// had none for longer than the staleness since the run began (the
+		// first frames of a run may precede a unit's first reading).
+		if !u.lastT.IsZero() || f.Start.Sub(u.p.first) > u.p.stale {
+			u.observeSilent(f.Start)
+		}
 		return nil
 	}
 	if u.states != nil && !u.enterState(f) {
