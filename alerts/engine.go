@@ -547,6 +547,14 @@ func (e *Engine) Tick(unit string, t time.Time) bool {
 	if u == nil || !u.seen || u.maint || !t.After(u.last) || !t.After(u.tick) {
 		return false
 	}
+	e.startTimers(u, t)
+	e.endTimers(u, t)
+	return true
+}
+
+// startTimers moves unit u's tick time to t and runs the timers a frame at
+// t runs first: shelf expiry and flood end.
+func (e *Engine) startTimers(u *unit, t time.Time) {
 	u.tick = t
 	u.rate.advance(t)
 	e.expireShelf(u, &u.modelG, t)
@@ -554,8 +562,6 @@ func (e *Engine) Tick(unit string, t time.Time) bool {
 		e.expireShelf(u, &q.g, t)
 	}
 	e.checkFloodEnd(u, t)
-	e.endTimers(u, t)
-	return true
 }
 
 // endTimers runs the timers that close a frame at t, and Tick at t, of

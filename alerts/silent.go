@@ -20,13 +20,7 @@ func (e *Engine) Silence(unit string, t time.Time) bool {
 		return false
 	}
 	if t.After(u.tick) {
-		u.tick = t
-		u.rate.advance(t)
-		e.expireShelf(u, &u.modelG, t)
-		for _, q := range u.quality {
-			e.expireShelf(u, &q.g, t)
-		}
-		e.checkFloodEnd(u, t)
+		e.startTimers(u, t)
 	}
 	// A fresh sequence number marks the condition present for this step
 	// only; the next Observe (u.seq+1) steps it absent unless named again.

@@ -2,7 +2,6 @@ package service
 
 import (
 	"bytes"
-	"context"
 	"fmt"
 	"math"
 	"math/rand/v2"
@@ -11,7 +10,6 @@ import (
 	"time"
 
 	"modewatch/alerts"
-	"modewatch/cmd/modewatch/internal/pipeline"
 	"modewatch/configs"
 )
 
@@ -58,20 +56,7 @@ func TestServiceQualityRules(t *testing.T) {
 	t0 := time.Now().Add(-3 * time.Hour).Truncate(time.Second)
 	var normal bytes.Buffer
 	qLines(&normal, t0, 0, 3000, never, never, never, rng)
-	cfg := &configs.Config{Frames: configs.Frames{Period: time.Second}}
-	cfg.ApplyDefaults()
-	res, err := pipeline.Replay(context.Background(), pipeline.ReplayOptions{Config: cfg, Inputs: []string{"-"}, Stdin: &normal, Fit: true})
-	if err != nil {
-		t.Fatal(err)
-	}
-	m, err := res.Pipeline.Baseline()
-	if err != nil {
-		t.Fatal(err)
-	}
-	modelFile := filepath.Join(dir, "model.json")
-	if err := pipeline.WriteModel(modelFile, m); err != nil {
-		t.Fatal(err)
-	}
+	modelFile := fitFile(t, dir, time.Second, &normal)
 	scfg, err := configs.Parse("q.yaml", []byte(`
 frames: {period: 1s}
 server: {embedded_port: -1}

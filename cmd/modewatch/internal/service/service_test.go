@@ -36,9 +36,17 @@ func fitDay1(t *testing.T, dir string) string {
 	if err := day1.WriteLineProtocol(&b); err != nil {
 		t.Fatal(err)
 	}
-	cfg := &configs.Config{Frames: configs.Frames{Period: s.Period}}
+	return fitFile(t, dir, s.Period, &b)
+}
+
+// fitFile fits a model with the default settings on the line protocol in
+// r, framed at period, and writes it to dir/model.json, whose path it
+// returns.
+func fitFile(t *testing.T, dir string, period time.Duration, r io.Reader) string {
+	t.Helper()
+	cfg := &configs.Config{Frames: configs.Frames{Period: period}}
 	cfg.ApplyDefaults()
-	res, err := pipeline.Replay(context.Background(), pipeline.ReplayOptions{Config: cfg, Inputs: []string{"-"}, Stdin: &b, Fit: true})
+	res, err := pipeline.Replay(context.Background(), pipeline.ReplayOptions{Config: cfg, Inputs: []string{"-"}, Stdin: r, Fit: true})
 	if err != nil {
 		t.Fatal(err)
 	}
