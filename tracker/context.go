@@ -77,6 +77,27 @@ func NewDrivers(p int, ctx []bool) (*Drivers, error) {
 // Ready reports whether B has been fitted.
 func (d *Drivers) Ready() bool { return d.ready }
 
+// Slopes returns the regression in channel units of the last Fit (own ×
+// context channels, row-major), nil before the first; a checkpoint saves
+// it so that a restart goes on with the same regression until the next
+// refresh.
+func (d *Drivers) Slopes() []float64 {
+	if !d.ready {
+		return nil
+	}
+	return append([]float64(nil), d.slope...)
+}
+
+// SetSlopes restores the regression saved by Slopes.
+func (d *Drivers) SetSlopes(s []float64) error {
+	if len(s) != len(d.slope) {
+		return fmt.Errorf("%w: %d driver slopes, want %d", ErrWidth, len(s), len(d.slope))
+	}
+	copy(d.slope, s)
+	d.ready = true
+	return nil
+}
+
 // Fit recomputes B from t's current correlation (with the tracker's
 // ridge ε). It allocates nothing.
 func (d *Drivers) Fit(t *Tracker) error {

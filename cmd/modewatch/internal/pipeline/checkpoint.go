@@ -95,7 +95,8 @@ func (p *Pipeline) checkpointOf(u *Unit) (*ModelFile, error) {
 		Format: ModelFormat, Version: ModelVersion, Created: time.Now().UTC(), Period: Duration(p.opt.Period),
 		Frames: u.frames, From: u.firstT, To: u.lastT,
 		Units: []ModelUnit{{Name: u.Name, Channels: append([]string(nil), u.names...), Settings: settings,
-			Modes: u.modesView(), State: state, Alerts: snap.Bytes(), Last: u.lastReadings(), Quality: u.Profiles(), States: sf, Context: u.contextIn()}},
+			Modes: u.modesView(), State: state, Alerts: snap.Bytes(), Last: u.lastReadings(), Quality: u.Profiles(), States: sf, Context: u.contextIn(),
+			DriverSlopes: u.driverSlopes(u.tr, false)}},
 	}, nil
 }
 

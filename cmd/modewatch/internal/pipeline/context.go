@@ -59,9 +59,9 @@ func (u *Unit) syncContext() {
 		}
 	}
 	u.nCtx = n
-	u.drivers, u.drvTr = nil, nil
-	if d, err := tracker.NewDrivers(len(u.names), u.ctx); err == nil {
-		u.drivers = d
+	u.drivers = nil
+	if n > 0 && n < len(u.names) {
+		u.drivers = map[*tracker.Tracker]*tracker.Drivers{}
 		u.adj = make([]float64, len(u.names))
 	}
 }
@@ -79,23 +79,73 @@ func (u *Unit) ownObserved() int {
 }
 
 // scoreDrivers rescores the frame just stepped with its context channels'
-// part removed, refitting the regression on them when the model was
-// refreshed or the operating state changed. It allocates nothing.
+// part removed, by the regression of the current model (state), refitted
+// when the model was refreshed. It allocates only when a model gets its
+// regression.
 func (u *Unit) scoreDrivers(refreshed bool) {
-	d := u.drivers
-	if d == nil || !u.score.Ready || u.tr.P() != len(u.adj) {
+	if !u.score.Ready || u.tr.P() != len(u.adj) {
 		return
 	}
-	if refreshed || !d.Ready() || u.drvTr != u.tr {
+	d := u.drivers[u.tr]
+	if d == nil {
+		var err error
+		if d, err = tracker.NewDrivers(len(u.names), u.ctx); err != nil {
+			return
+		}
+		u.drivers[u.tr] = d
+		if s := u.slopes[u.tr]; s != nil && d.SetSlopes(s) == nil {
+			delete(u.slopes, u.tr) // restored: goes on as before the restart
+		}
+	}
+	if refreshed || !d.Ready() {
 		if err := d.Fit(u.tr); err != nil {
 			return
 		}
-		u.drvTr = u.tr
 	}
 	d.Adjust(u.adj, u.x, u.miss, u.tr)
 	if err := u.tr.Evaluate(&u.score, u.adj, u.miss); err != nil {
 		u.stepErrors++
 	}
+}
+
+// driverSlopes returns the regression of tr's drivers to save with it
+// (nil without context channels or before one was fitted); with fit, it
+// fits it first (after the model's final refresh in fit).
+func (u *Unit) driverSlopes(tr *tracker.Tracker, fit bool) []float64 {
+	if u.drivers == nil && fit {
+		u.syncContext()
+	}
+	if u.drivers == nil {
+		return nil
+	}
+	d := u.drivers[tr]
+	if fit {
+		if d == nil {
+			var err error
+			if d, err = tracker.NewDrivers(len(u.names), u.ctx); err != nil {
+				return nil
+			}
+			u.drivers[tr] = d
+		}
+		if d.Fit(tr) != nil {
+			return nil
+		}
+	}
+	if d == nil {
+		return u.slopes[tr] // restored, not used yet
+	}
+	return d.Slopes()
+}
+
+// restoreSlopes keeps a saved regression for tr until its drivers exist.
+func (u *Unit) restoreSlopes(tr *tracker.Tracker, s []float64) {
+	if len(s) == 0 {
+		return
+	}
+	if u.slopes == nil {
+		u.slopes = map[*tracker.Tracker][]float64{}
+	}
+	u.slopes[tr] = s
 }
 
 // contextIn returns the unit's context channels among its model channels.

@@ -114,6 +114,9 @@ type ModelUnit struct {
 	// Context names the unit's context channels (drivers from other
 	// units) among Channels (version 2).
 	Context []string `json:"context,omitempty"`
+	// DriverSlopes is the regression on the context channels of the model
+	// in State (context.go), so that a restart goes on with it.
+	DriverSlopes []float64 `json:"driver_slopes,omitempty"`
 	// Suggested lists channels of other units that explain a large share
 	// of this unit's variance in the fitted log: candidates for Context.
 	Suggested []ContextSuggestion `json:"context_suggested,omitempty"`
@@ -270,6 +273,7 @@ func (p *Pipeline) buildFromModel(mu *ModelUnit, period time.Duration) (*Unit, e
 		}
 	}
 	u.states = nil
+	u.restoreSlopes(tr, mu.DriverSlopes)
 	if mu.States != nil {
 		if err := u.restoreStates(mu.States, len(mu.Channels), cfg); err != nil {
 			return nil, fmt.Errorf("%w: unit %s: %v", ErrModelFile, mu.Name, err)
@@ -341,7 +345,8 @@ func (p *Pipeline) Baseline() (*ModelFile, error) {
 			settings.HalfLife = 0
 		}
 		mu := ModelUnit{Name: u.Name, Channels: append([]string(nil), u.names...), Settings: settings,
-			Modes: u.modesView(), Limits: u.baseLimits(), State: state, Quality: u.Profiles(), States: sf, Context: u.contextIn(), Suggested: sug[u.Name]}
+			Modes: u.modesView(), Limits: u.baseLimits(), State: state, Quality: u.Profiles(), States: sf, Context: u.contextIn(), Suggested: sug[u.Name],
+			DriverSlopes: u.driverSlopes(u.tr, true)}
 		m.Units = append(m.Units, mu)
 	}
 	if len(m.Units) == 0 && len(errs) == 0 {

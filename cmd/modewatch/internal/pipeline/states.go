@@ -278,6 +278,8 @@ type StateModel struct {
 	Modes  []ModeView `json:"modes"`
 	Limits LimitsView `json:"limits"`
 	State  []byte     `json:"state"`
+	// DriverSlopes: the state model's regression on the context channels.
+	DriverSlopes []float64 `json:"driver_slopes,omitempty"`
 }
 
 // StatesFile is the operating-state part of a model unit.
@@ -318,7 +320,8 @@ func (u *Unit) statesBaseline(withLimits bool) (*StatesFile, int, error) {
 			errs = append(errs, fmt.Errorf("state %s: %w", s.label(m.key), err))
 			continue
 		}
-		sm := StateModel{Key: m.key, Label: s.label(m.key), Frames: m.frames, Modes: u.modesOf(m.tr), State: b}
+		sm := StateModel{Key: m.key, Label: s.label(m.key), Frames: m.frames, Modes: u.modesOf(m.tr), State: b,
+			DriverSlopes: u.driverSlopes(m.tr, u.p.opt.Fit)}
 		if withLimits {
 			sm.Limits = limitsOf(m.tr)
 		}
@@ -359,6 +362,7 @@ func (u *Unit) restoreStates(sf *StatesFile, p int, cfg tracker.Config) error {
 			return fmt.Errorf("more than %d operating states", tracker.MaxStates)
 		}
 		s.models = append(s.models, &stateModel{key: sm.Key, tr: tr, frames: sm.Frames, fitted: true})
+		u.restoreSlopes(tr, sm.DriverSlopes)
 	}
 	if len(s.models) == 0 {
 		return fmt.Errorf("operating states without a model")

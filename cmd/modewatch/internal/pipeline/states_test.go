@@ -414,3 +414,54 @@ func TestFoundStates(t *testing.T) {
 		t.Errorf("classifying a frame allocates %v", n)
 	}
 }
+
+// TestStatesCheckpoint: a unit with operating states and a context
+// channel, stopped after half the frames, checkpointed (through the JSON
+// file) and restored, scores the second half exactly as an uninterrupted
+// run: every state's model, the current state and the drivers come back.
+func TestStatesCheckpoint(t *testing.T) {
+	cfg := sConfig(t, "model: {warmup: 200}\nunits: [{name: mix, state: ctl.a.mode, context: [ctl.a.load]}]\n")
+	ch, frames := collectFrames(t, sPlant(0, 3*2160, nil, nil, 1, 0, false), sPeriod)
+	record := func(dst *[]scoreRec) func(u *Unit, _ time.Time) {
+		return func(u *Unit, _ time.Time) {
+			if u.Name == "mix" {
+				s := u.Score()
+				*dst = append(*dst, scoreRec{s.T2, s.SPE, s.Ready})
+			}
+		}
+	}
+	var whole, first, second []scoreRec
+	pa, _ := New(Options{Config: cfg, Channels: ch, Period: sPeriod, OnScore: record(&whole)})
+	runFrames(t, pa, frames, nil)
+	half := len(frames)/2 + 100 // inside a state-1 period
+	pb, _ := New(Options{Config: cfg, Channels: ch, Period: sPeriod, OnScore: record(&first)})
+	runFrames(t, pb, frames[:half], nil)
+	ck, err := pb.CheckpointUnit("mix")
+	if err != nil {
+		t.Fatal(err)
+	}
+	if s := ck.Units[0].States; s == nil || len(s.Models) != 2 || len(ck.Units[0].Context) != 1 || s.Models[1].DriverSlopes == nil {
+		t.Fatalf("checkpoint: states %+v, context %v", s, ck.Units[0].Context)
+	}
+	var buf bytes.Buffer
+	if err := encodeJSON(&buf, ck); err != nil {
+		t.Fatal(err)
+	}
+	ck2, err := DecodeModel(&buf)
+	if err != nil {
+		t.Fatal(err)
+	}
+	pc, _ := New(Options{Config: cfg, Channels: ch, Period: sPeriod, OnScore: record(&second)})
+	if restored, errs := pc.Restore([]*ModelFile{ck2}); len(errs) > 0 || len(restored) != 1 {
+		t.Fatalf("restored %v: %v", restored, errs)
+	}
+	runFrames(t, pc, frames[half:], nil)
+	if len(first)+len(second) != len(whole) {
+		t.Fatalf("%d + %d frames scored, uninterrupted %d", len(first), len(second), len(whole))
+	}
+	for k, r := range second {
+		if w := whole[len(first)+k]; r != w {
+			t.Fatalf("frame %d after restore: %+v, uninterrupted %+v", k, r, w)
+		}
+	}
+}

@@ -53,8 +53,8 @@ type Unit struct {
 	context []string
 	ctx     []bool
 	nCtx    int
-	drivers *tracker.Drivers
-	drvTr   *tracker.Tracker // the tracker drivers was fitted on
+	drivers map[*tracker.Tracker]*tracker.Drivers // one regression per model (state)
+	slopes  map[*tracker.Tracker][]float64        // saved regressions to restore (model file)
 	adj     []float64
 	autoBuf *autoBuffer // fit with state: auto: the frames kept
 
