@@ -302,9 +302,10 @@ func TestStateHoldOff(t *testing.T) {
 }
 
 // TestStateFrameAllocs: scoring frames that switch between operating
-// states allocates nothing (the states exist; a new state allocates once).
+// states, with a context channel, allocates nothing (the states and their
+// regressions exist; a new state allocates once).
 func TestStateFrameAllocs(t *testing.T) {
-	cfg := sConfig(t, "model: {refresh_every: 1000000000}\nunits: [{name: mix, state: ctl.a.mode}]\n")
+	cfg := sConfig(t, "model: {refresh_every: 1000000000}\nunits: [{name: mix, state: ctl.a.mode, context: [ctl.a.load]}]\n")
 	res, err := Replay(context.Background(), ReplayOptions{Config: cfg, Inputs: []string{"-"},
 		Stdin: bytes.NewReader(sPlant(0, 3*1080, nil, nil, 1, 0, false))})
 	if err != nil {
@@ -348,8 +349,8 @@ func TestStateFrameAllocs(t *testing.T) {
 	for range 40 {
 		step()
 	}
-	if !mix.Score().Ready || mix.states.cur < 0 {
-		t.Fatal("unit mix is not scoring")
+	if !mix.Score().Ready || mix.states.cur < 0 || len(mix.drivers) != 2 {
+		t.Fatalf("unit mix is not scoring with both states' drivers (%d)", len(mix.drivers))
 	}
 	if a := testing.AllocsPerRun(200, step); a != 0 {
 		t.Errorf("Frame allocates %v times per frame", a)
