@@ -98,3 +98,32 @@ func TestNotice(t *testing.T) {
 		t.Errorf("a notice left %d open alerts", len(open))
 	}
 }
+
+// TestSilence: the wall-clock silent condition opens one silent alert at
+// once (its record validates against the schema), repeated calls keep it,
+// and the unit's next frame that does not name it closes it.
+func TestSilence(t *testing.T) {
+	h := newHarness(t, Config{})
+	t0 := time.Date(2026, 3, 2, 8, 0, 0, 0, time.UTC)
+	h.e.Observe(&Observation{Unit: "u", Time: t0, ModelState: ModelAdapting})
+	if h.e.Silence("u", t0) || h.e.Silence("nobody", t0.Add(time.Minute)) {
+		t.Fatal("Silence stepped at the last frame's time or for an unknown unit")
+	}
+	for k := 1; k <= 3; k++ {
+		if !h.e.Silence("u", t0.Add(time.Duration(k)*10*time.Second)) {
+			t.Fatalf("Silence %d not stepped", k)
+		}
+	}
+	open := h.e.Open(nil)
+	if len(open) != 1 || open[0].Quality == nil || open[0].Quality.Kind != QualitySilent || open[0].Quality.Channel != "u" {
+		t.Fatalf("open alerts %+v, want one silent alert of unit u", open)
+	}
+	h.e.Observe(&Observation{Unit: "u", Time: t0.Add(time.Minute), ModelState: ModelAdapting})
+	if open := h.e.Open(nil); len(open) != 0 {
+		t.Errorf("silent alert still open after a frame with readings: %+v", open)
+	}
+	last := h.recs[len(h.recs)-1]
+	if last.End == nil || !last.End.Equal(t0.Add(time.Minute)) {
+		t.Errorf("silent alert ended %v, want at the returning frame", last.End)
+	}
+}
