@@ -198,8 +198,10 @@ func (s *Screen) MissingAlarm(k int) bool {
 //	stuck         a profiled channel, not discrete, repeating a value that
 //	              is not one of its rest values for more than
 //	              MaxFlat + StuckMargin frames
-//	out_of_range  a profiled channel beyond its normal range by more than
-//	              the range's width (see ChannelProfile)
+//	out_of_range  a profiled channel, not discrete, beyond its normal
+//	              range by more than the range's width (see ChannelProfile);
+//	              a status taking a value its normal log never had is a
+//	              change of state, not a failed sensor
 //
 // Channels without a profile add nothing here: the caller applies the
 // rules without a profile to them.
@@ -216,7 +218,7 @@ func (s *Screen) AppendQuality(dst []Quality) []Quality {
 		if !p.Discrete() && s.flat[k] > p.MaxFlat+StuckMargin && !p.isRest(v) {
 			dst = append(dst, Quality{Channel: s.names[k], Kind: QualityStuck})
 		}
-		if p.outOfRange(v) {
+		if !p.Discrete() && p.outOfRange(v) {
 			dst = append(dst, Quality{Channel: s.names[k], Kind: QualityOutOfRange})
 		}
 	}

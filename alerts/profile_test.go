@@ -52,6 +52,7 @@ func TestScreen(t *testing.T) {
 			[]Quality{{"u.speed", QualityStuck}}},
 		{"flow far out of range", 1, [4]float64{1500, 1, 60, 1}, [4]bool{}, []Quality{{"u.flow", QualityOutOfRange}}},
 		{"flow near its range", 1, [4]float64{1500, 1, 54, 1}, [4]bool{}, nil},
+		{"status at a value never seen", 1, [4]float64{1500, 7, 40, 1}, [4]bool{}, nil},
 		{"all silent", 3, [4]float64{nan, nan, nan, nan}, [4]bool{}, []Quality{{"u", QualitySilent}}},
 	}
 	for _, c := range cases {
