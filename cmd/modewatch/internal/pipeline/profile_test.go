@@ -272,3 +272,29 @@ func TestQualityRulesReplay(t *testing.T) {
 }
 
 func encodeJSON(w *bytes.Buffer, m *ModelFile) error { return json.NewEncoder(w).Encode(m) }
+
+// TestProfileCheckpoint: a unit started from a fitted model carries its
+// data-quality profiles on in its checkpoint, unchanged.
+func TestProfileCheckpoint(t *testing.T) {
+	cfg := qConfig(t)
+	m := qFit(t, cfg)
+	res, err := Replay(context.Background(), ReplayOptions{Config: cfg, Inputs: []string{"-"},
+		Stdin: bytes.NewReader(qPlant(qDay, qDay+200, qEvents{}, 3)), Baseline: m})
+	if err != nil {
+		t.Fatal(err)
+	}
+	ck, err := res.Pipeline.CheckpointUnit("press")
+	if err != nil {
+		t.Fatal(err)
+	}
+	var want []alerts.ChannelProfile
+	for _, u := range m.Units {
+		if u.Name == "press" {
+			want = u.Quality
+		}
+	}
+	got := ck.Units[0].Quality
+	if len(want) == 0 || fmt.Sprint(got) != fmt.Sprint(want) {
+		t.Errorf("checkpoint profiles %+v, fitted %+v", got, want)
+	}
+}
