@@ -793,6 +793,7 @@ func (e *Engine) updateModel(inc *incident, o *Observation, t time.Time) bool {
 		d.Share = min(max(finite(c.Share), 0), 1)
 		d.RBC, d.RBCLimit = max(finite(c.RBC), 0), max(finite(c.Limit), 0)
 		d.Modes = append(d.Modes[:0], c.Modes...)
+		d.setExpected(c)
 	}
 	inc.missing = append(inc.missing[:0], o.Missing...)
 	sev := severityIndex(u.rules.Severity, inc.peak.Ratio)

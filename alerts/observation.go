@@ -63,6 +63,13 @@ type Contributor struct {
 	RBC     float64 // reconstruction-based contribution
 	Limit   float64 // control limit of the RBC (0 when unknown)
 	Modes   []int   // the sparse modes whose support contains the channel
+	// Reading, Expected and Band: the channel's value, the value the other
+	// channels imply under the model and the half-width of its band at
+	// coverage BandCoverage, in the channel's unit. They are used only
+	// when BandCoverage is in (0, 1); Expected and Band may be NaN where
+	// the channel cannot be reconstructed.
+	Reading, Expected, Band float64
+	BandCoverage            float64
 }
 
 // Quality is one data-quality condition of one channel in one frame.

@@ -92,6 +92,16 @@ type RecordContributor struct {
 	RBC      float64 `json:"rbc"`
 	RBCLimit float64 `json:"rbc_limit"`
 	Modes    []int   `json:"modes"`
+	// Reading is the channel's value at the frame of the peak, Expected
+	// the value the other channels imply under the model there and Band
+	// the half-width of the band Expected ± Band that holds the
+	// fault-free value with the probability BandCoverage; all in the
+	// channel's engineering unit, null where unknown (see
+	// RecordContributor.Expectation).
+	Reading      Number  `json:"reading"`
+	Expected     Number  `json:"expected"`
+	Band         Number  `json:"band"`
+	BandCoverage float64 `json:"band_coverage,omitempty"`
 }
 
 // Ack records who acknowledged the alert and when (wall-clock time of the

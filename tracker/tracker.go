@@ -255,6 +255,13 @@ type Contribution struct {
 	SPEContrib, T2Contrib float64
 	// Modes lists the IDs of the modes whose support holds the channel.
 	Modes []int
+	// Reading is the channel's value in this frame, Expected the value the
+	// other channels imply under the model (its reconstruction) and Band
+	// the half-width of the interval Expected ± Band that holds the
+	// fault-free value with probability BandCoverage; all in channel
+	// units (NaN where the channel cannot be reconstructed). See
+	// expectedOf for the formulas.
+	Reading, Expected, Band float64
 }
 
 // Score is the result of one frame. Its slices are reused by the next Step
@@ -647,6 +654,7 @@ func (t *Tracker) score(dst *Score, x []float64) error {
 		c.SPEContrib = w.spec[i]
 		c.T2Contrib = w.t2c[i]
 		c.Modes = append(c.Modes[:0], m.modeIDs[m.modeOff[i]:m.modeOff[i+1]]...)
+		t.expectedOf(c, i, x, pt)
 	}
 	return nil
 }

@@ -455,6 +455,10 @@ func (b *board) render(recs []alerts.Record) string {
 			if i == 3 {
 				break
 			}
+			if i == 0 && c.Expected.Known() {
+				top = append(top, fmt.Sprintf("%s (%.0f%%)", c.Expectation(), 100*c.Share))
+				continue
+			}
 			top = append(top, fmt.Sprintf("%s %.0f%%", c.Channel, 100*c.Share))
 		}
 		if r.Quality != nil {

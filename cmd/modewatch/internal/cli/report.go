@@ -36,6 +36,9 @@ func writeReport(env IO, dir string, inputs []string, sum *summary, res *pipelin
 			}
 			a.Top = append(a.Top, c.Channel)
 		}
+		if len(r.Contributors) > 0 && r.Contributors[0].Reading.Known() {
+			a.Expected = r.Contributors[0].Expectation()
+		}
 		if len(a.Top) == 0 && r.Quality != nil {
 			a.Statistic = r.Quality.Kind
 			a.Top = []string{r.Quality.Channel}

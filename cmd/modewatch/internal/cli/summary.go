@@ -72,6 +72,7 @@ type alertLine struct {
 	stat     string
 	ratio    float64
 	top      []string
+	expected string // the leading channel's reading and expected value
 }
 
 func summarize(res *pipeline.ReplayResult, rec *recorder) *summary {
@@ -109,6 +110,9 @@ func summarize(res *pipeline.ReplayResult, rec *recorder) *summary {
 				break
 			}
 			al.top = append(al.top, c.Channel)
+		}
+		if len(r.Contributors) > 0 && r.Contributors[0].Expected.Known() {
+			al.expected = r.Contributors[0].Expectation()
 		}
 		if len(al.top) == 0 && r.Quality != nil {
 			al.stat = r.Quality.Kind
@@ -168,6 +172,9 @@ func printSummary(w io.Writer, s *summary) {
 	fmt.Fprintf(w, "; %.0f frames/s\n", s.FramesPerSecond)
 	for _, a := range s.top {
 		fmt.Fprintf(w, "  %s %-10s %-6s %-4s ×%.1f  %s\n", a.start.Format(time.RFC3339), a.unit, a.severity, a.stat, a.ratio, strings.Join(a.top, ", "))
+		if a.expected != "" {
+			fmt.Fprintf(w, "      %s\n", a.expected)
+		}
 	}
 	if m := s.Metrics; m != nil {
 		fmt.Fprintf(w, "truth: %d of %d episodes detected", m.Detected, m.Episodes)

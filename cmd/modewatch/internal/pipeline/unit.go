@@ -321,6 +321,7 @@ func (u *Unit) observe(t time.Time) {
 			}
 			o.Contributors = append(o.Contributors, alerts.Contributor{
 				Channel: u.names[c.Channel], Share: c.Share, RBC: c.RBC, Limit: c.RBCLimit, Modes: c.Modes,
+				Reading: c.Reading, Expected: c.Expected, Band: c.Band, BandCoverage: tracker.BandCoverage,
 			})
 		}
 	}

@@ -4,6 +4,7 @@ import (
 	"math"
 	"time"
 
+	"modewatch/alerts"
 	"modewatch/tracker"
 )
 
@@ -33,6 +34,13 @@ type ContributorView struct {
 	RBC      float64 `json:"rbc"`
 	RBCLimit float64 `json:"rbc_limit"`
 	Modes    []int   `json:"modes"`
+	// Reading, Expected and Band: the channel's value, the value the
+	// other channels imply under the model and the half-width of its band
+	// at coverage BandCoverage, in the channel's unit (null where unknown).
+	Reading      alerts.Number `json:"reading"`
+	Expected     alerts.Number `json:"expected"`
+	Band         alerts.Number `json:"band"`
+	BandCoverage float64       `json:"band_coverage"`
 }
 
 // ScoreView is a unit's latest score. Statistics are null in warm-up.
@@ -144,7 +152,9 @@ func (u *Unit) View(t time.Time) UnitView {
 		for _, c := range s.Contrib {
 			sv.Contributors = append(sv.Contributors, ContributorView{
 				Channel: u.names[c.Channel], Share: c.Share, RBC: c.RBC, RBCLimit: c.RBCLimit,
-				Modes: append([]int(nil), c.Modes...),
+				Modes:   append([]int(nil), c.Modes...),
+				Reading: alerts.Number(c.Reading), Expected: alerts.Number(c.Expected), Band: alerts.Number(c.Band),
+				BandCoverage: tracker.BandCoverage,
 			})
 		}
 	}

@@ -28,6 +28,10 @@ type Alert struct {
 	Statistic string  // statistic of the peak ("t2", "spe", "phi") or the data-quality kind
 	Ratio     float64 // peak value over its limit
 	Top       []string
+	// Expected says what the leading channel reads and what the other
+	// channels imply at the peak ("p.flow reads 71.2, expected 64.0 ± 1.1",
+	// alerts.RecordContributor.Expectation); "" when unknown.
+	Expected string
 }
 
 // Input is what a report shows.
@@ -268,8 +272,8 @@ type episodeRow struct {
 }
 
 type alertRow struct {
-	Start, End, Unit, Severity, Statistic, Ratio, Top, Match string
-	False                                                    bool
+	Start, End, Unit, Severity, Statistic, Ratio, Top, Expected, Match string
+	False                                                              bool
 }
 
 // flatten turns a JSON-marshallable value into sorted dotted key/value
@@ -402,7 +406,7 @@ func alertRows(in *Input, maxRows int) ([]alertRow, int) {
 			return out, len(alerts) - maxRows
 		}
 		r := alertRow{Start: a.Start.UTC().Format(time.RFC3339), End: "active at the end", Unit: a.Unit, Severity: a.Severity,
-			Statistic: a.Statistic, Top: strings.Join(a.Top, ", ")}
+			Statistic: a.Statistic, Top: strings.Join(a.Top, ", "), Expected: a.Expected}
 		if a.End != nil {
 			r.End = a.End.UTC().Format(time.RFC3339)
 		}
@@ -519,8 +523,8 @@ nav a { color: #f6f3ec; margin-right: 1em; }
 
 <h2 id="alerts">Alerts</h2>
 {{if .Alerts}}<table>
-<tr><th>start</th><th>end</th><th>unit</th><th>severity</th><th>statistic</th><th>peak / limit</th><th>top sensors</th>{{if .Truth}}<th>truth</th>{{end}}</tr>
-{{range .Alerts}}<tr{{if .False}} class="false"{{end}}><td>{{.Start}}</td><td>{{.End}}</td><td>{{.Unit}}</td><td>{{.Severity}}</td><td>{{.Statistic}}</td><td class="num">{{.Ratio}}</td><td>{{.Top}}</td>{{if $.Truth}}<td>{{.Match}}</td>{{end}}</tr>
+<tr><th>start</th><th>end</th><th>unit</th><th>severity</th><th>statistic</th><th>peak / limit</th><th>top sensors</th><th>reading and expected value (95 % band)</th>{{if .Truth}}<th>truth</th>{{end}}</tr>
+{{range .Alerts}}<tr{{if .False}} class="false"{{end}}><td>{{.Start}}</td><td>{{.End}}</td><td>{{.Unit}}</td><td>{{.Severity}}</td><td>{{.Statistic}}</td><td class="num">{{.Ratio}}</td><td>{{.Top}}</td><td>{{.Expected}}</td>{{if $.Truth}}<td>{{.Match}}</td>{{end}}</tr>
 {{end}}</table>
 {{if .AlertsLeftOut}}<p class="note">{{.AlertsLeftOut}} later alert(s) are left out of this table; the --alerts file holds them all.</p>{{end}}
 {{else}}<p>No alerts.</p>{{end}}
