@@ -18,6 +18,7 @@ const (
 	OpShelve      = "shelve"      // shelve an alert's alarm group: alert_id, until or for, by, reason
 	OpUnshelve    = "unshelve"    // end a shelf early: alert_id, by
 	OpMaintenance = "maintenance" // unit, on, by
+	OpAccept      = "accept"      // accept a model incident (alert_id) or every one of a unit (unit) as the new normal: by, comment
 )
 
 // ErrCommand marks an invalid command.
@@ -47,6 +48,8 @@ func (d *Duration) UnmarshalText(b []byte) error {
 //	{"op":"shelve","alert_id":"...","until":"2026-12-01T18:00:00Z","by":"jo","reason":"..."}
 //	{"op":"unshelve","alert_id":"...","by":"jo"}
 //	{"op":"maintenance","unit":"coolwater","on":true,"by":"jo","reason":"pump swap"}
+//	{"op":"accept","alert_id":"...","by":"jo","comment":"new feed grade"}
+//	{"op":"accept","unit":"coolwater","by":"jo","comment":"setpoint moved"}
 //
 // A shelf's Until is compared with frame time; For counts from the unit's
 // latest frame time.
@@ -123,8 +126,10 @@ func (c Command) Validate() error {
 	case OpMaintenance:
 		need(c.Unit != "", `field "unit": required`)
 		need(c.On != nil, `field "on": required (true or false)`)
+	case OpAccept:
+		need((c.AlertID == "") != (c.Unit == ""), `fields "alert_id"/"unit": give exactly one`)
 	default:
-		errs = append(errs, fmt.Sprintf(`field "op": %q is not one of ack, shelve, unshelve, maintenance`, c.Op))
+		errs = append(errs, fmt.Sprintf(`field "op": %q is not one of ack, shelve, unshelve, maintenance, accept`, c.Op))
 	}
 	if len(errs) > 0 {
 		return fmt.Errorf("%w: %s", ErrCommand, strings.Join(errs, "; "))
@@ -167,6 +172,9 @@ func (e *Engine) apply(c Command) Reply {
 	defer e.mu.Unlock()
 	if c.Op == OpMaintenance {
 		return e.maintenance(c)
+	}
+	if c.Op == OpAccept && c.Unit != "" {
+		return e.acceptUnit(c)
 	}
 	inc := e.byID[c.AlertID]
 	if inc == nil {
@@ -216,6 +224,14 @@ func (e *Engine) apply(c Command) Reply {
 			e.publishIf(g.inc, t, true)
 		}
 		ok.Message = "shelved until " + until.UTC().Format(time.RFC3339Nano)
+		return ok
+	case OpAccept:
+		msg, accepted := e.acceptIncident(inc, c)
+		if !accepted {
+			return fail(c, "%s", msg)
+		}
+		e.syncMask(u, t)
+		ok.Message = msg
 		return ok
 	case OpUnshelve:
 		g := inc.g
@@ -291,6 +307,8 @@ func (e *Engine) resetAlarms(u *unit, t time.Time) {
 	g := &u.modelG
 	g.inAlarm, g.chattering, g.inc, g.shelf = false, false, nil, nil
 	g.acts.reset()
+	u.loc.extra = u.loc.extra[:0]
+	u.loc.newLoc.Reset(t)
 	clear(u.quality)
 	u.openings.reset()
 }

@@ -88,6 +88,19 @@ type Rules struct {
 	// NoFreeze keeps the unit learning while an alert is active. By default
 	// learning is frozen from activation until the incident ends.
 	NoFreeze bool
+	// SingleIncident keeps one model incident per unit (no incidents per
+	// location, location.go). FreezeWhole freezes the unit's learning
+	// while its model alarm is in alarm even when the Learning can mask
+	// channels (hold.go). Both restore the behaviour before incidents per
+	// location, for comparison.
+	SingleIncident, FreezeWhole bool
+	// LocationQuiet: an incident whose location has no channel over its own
+	// limit this long, while the unit stays in alarm for others, ends.
+	// Default DefaultLocationQuiet.
+	LocationQuiet time.Duration
+	// AcceptAfter is the bounded hold: an incident flat this long is taken
+	// as the new normal. Default DefaultAcceptAfter; negative: never.
+	AcceptAfter time.Duration
 	// FloodCount, FloodWindow, ChatterCount and ChatterWindow override the
 	// engine-wide figures of Config for this unit; zero means those.
 	FloodCount    int
@@ -186,6 +199,12 @@ func (r Rules) withDefaults(c *Config) Rules {
 	}
 	if len(r.Severity) == 0 {
 		r.Severity = DefaultSeverity()
+	}
+	if r.LocationQuiet <= 0 {
+		r.LocationQuiet = DefaultLocationQuiet
+	}
+	if r.AcceptAfter == 0 {
+		r.AcceptAfter = DefaultAcceptAfter
 	}
 	return r
 }

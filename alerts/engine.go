@@ -50,6 +50,7 @@ const (
 	EventMaintenanceOff = "maintenance_off" // and came out
 	EventFreeze         = "freeze"          // learning of the unit frozen
 	EventThaw           = "thaw"            // and thawed
+	EventAccept         = "accept"          // an incident was accepted as the new normal (bounded hold or operator)
 )
 
 // Event is one state change. Time is frame time (for commands: the unit's
@@ -187,6 +188,7 @@ type unit struct {
 	flood    *incident
 	rate     minuteRing
 	c        UnitCounters
+	loc      unitLoc // incidents per location (location.go)
 }
 
 type group struct {
@@ -242,6 +244,7 @@ type incident struct {
 	lastPub     time.Time
 	dirty       bool
 	maxCount    int
+	loc         *locState // location of a model incident (location.go); nil for quality and floods
 }
 
 // ring is a fixed-capacity ring of times with an optional incident each.
@@ -388,6 +391,7 @@ func (e *Engine) newUnitState(name string) *unit {
 	}
 	u.modelG = group{key: GroupModel, acts: newRing(u.rules.ChatterCount)}
 	u.openings = newRing(max(u.rules.FloodCount+1, e.cfg.FloodEnd))
+	u.loc.newLoc = NewAlarm(ar)
 	u.c.Unit = name
 	return u
 }
@@ -480,11 +484,10 @@ func (e *Engine) Observe(o *Observation) error {
 		if g.inc != nil {
 			e.updateModel(g.inc, o, t)
 		}
+		e.endAllLocated(u, t)
 		e.deactivate(u, g, t)
 	case in && g.inc != nil:
-		if e.updateModel(g.inc, o, t) {
-			e.publish(g.inc, t)
-		}
+		e.stepLocations(u, o, t)
 	}
 
 	// Data quality.
@@ -649,6 +652,9 @@ func (e *Engine) activate(u *unit, g *group, t time.Time, o *Observation, qa *Al
 	if g.qkind == "" {
 		inc.sev = -1
 		e.updateModel(inc, o, t)
+		if !u.rules.SingleIncident {
+			e.locate(inc, o, t)
+		}
 	} else {
 		inc.sevName = e.cfg.Quality[g.qkind].Severity
 		inc.sev = slices.IndexFunc(u.rules.Severity, func(b SeverityBand) bool { return b.Name == inc.sevName })
@@ -669,7 +675,14 @@ func (e *Engine) activate(u *unit, g *group, t time.Time, o *Observation, qa *Al
 			e.emit(Event{Time: t, Unit: u.name, Kind: EventChatterStart, Alarm: g.key, AlertID: inc.id})
 		}
 	}
-	// Flood: more than FloodCount new alerts within FloodWindow.
+	e.countOpening(u, inc, t)
+	e.syncFreeze(u, t)
+	e.publish(inc, t)
+}
+
+// countOpening counts a new alert of u towards its flood: more than
+// FloodCount new alerts within FloodWindow.
+func (e *Engine) countOpening(u *unit, inc *incident, t time.Time) {
 	u.openings.push(t, inc)
 	if f := u.flood; f != nil {
 		e.addMember(f, inc, t)
@@ -679,8 +692,6 @@ func (e *Engine) activate(u *unit, g *group, t time.Time, o *Observation, qa *Al
 	} else if n := u.openings.countAfter(t.Add(-u.rules.FloodWindow)); n > u.rules.FloodCount {
 		e.startFlood(u, t, n)
 	}
-	e.syncFreeze(u, t)
-	e.publish(inc, t)
 }
 
 func (e *Engine) deactivate(u *unit, g *group, t time.Time) {
@@ -692,7 +703,11 @@ func (e *Engine) deactivate(u *unit, g *group, t time.Time) {
 		e.refreshStates(inc)
 		return // stays open until quiet for the chatter window
 	}
-	e.closeIncident(inc, t, EndReturned)
+	reason := EndReturned
+	if inc.loc != nil {
+		reason = inc.loc.hold.endReason()
+	}
+	e.closeIncident(inc, t, reason)
 }
 
 // checkGroup ends quiet chattering episodes and flags stale alarms.
@@ -717,7 +732,11 @@ func (e *Engine) closeIncident(inc *incident, t time.Time, reason string) {
 	inc.end, inc.ended, inc.endReason = t.UTC(), true, reason
 	if inc.g != nil {
 		e.refreshStates(inc)
-		inc.g.inc = nil
+		if inc.g.inc == inc {
+			inc.g.inc = nil
+		} else if i := slices.Index(inc.u.loc.extra, inc); i >= 0 {
+			inc.u.loc.extra = slices.Delete(inc.u.loc.extra, i, i+1)
+		}
 	}
 	if f := inc.flood; f != nil && inc.memberIdx >= 0 && !f.ended {
 		end := inc.end
@@ -905,6 +924,7 @@ func (e *Engine) openIncidents(u *unit) []*incident {
 	if u.modelG.inc != nil {
 		out = append(out, u.modelG.inc)
 	}
+	out = append(out, u.loc.extra...)
 	for _, q := range u.quality {
 		if q.g.inc != nil {
 			out = append(out, q.g.inc)
@@ -931,8 +951,11 @@ func (e *Engine) expireShelf(u *unit, g *group, t time.Time) {
 
 // syncFreeze freezes u's learning while it is in maintenance or (unless
 // NoFreeze) its model statistics are in alarm, and thaws it otherwise.
+// With learning by reconstruction (Masking) the alarm freezes nothing: the
+// open incidents' channels are masked instead (syncMask).
 func (e *Engine) syncFreeze(u *unit, t time.Time) {
-	want := u.maint || (!u.rules.NoFreeze && u.modelG.inAlarm)
+	e.syncMask(u, t)
+	want := u.maint || (!u.rules.NoFreeze && u.modelG.inAlarm && !e.masking(u))
 	if want == u.frozen {
 		return
 	}
@@ -1032,6 +1055,7 @@ func (e *Engine) record(inc *incident) *Record {
 	default:
 		r.Group = GroupModel
 		r.Peak = inc.peak
+		e.recordLocation(r, inc)
 		for _, s := range inc.stats {
 			if s.used {
 				r.Statistics = append(r.Statistics, s.RecordStat)

@@ -44,6 +44,12 @@ type Observation struct {
 	// Quality lists the per-channel data-quality conditions present in this
 	// frame.
 	Quality []Quality
+	// Location names the channels of this frame's location: those whose
+	// contributions exceed their own limits, widened by the supports of
+	// the modes that hold them (the caller computes it from the model). A
+	// model incident opening on this frame is located there; empty means
+	// the leading contributors (see location.go).
+	Location []string
 	// ModelState is one of ModelWarmup, ModelAdapting, ModelFrozen,
 	// ModelBaseline. In warm-up the statistics are ignored.
 	ModelState string

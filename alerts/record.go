@@ -54,6 +54,15 @@ type Record struct {
 	Members      []Member            `json:"members,omitempty"`
 	MemberCount  int                 `json:"member_count,omitempty"`
 	EndReason    string              `json:"end_reason,omitempty"`
+	// Location: the channels of a model incident's location (sorted);
+	// Merged: ids of later incidents that grew into this one; MergedInto:
+	// the incident this one grew into (end reason "merged"). Accepted: who
+	// accepted the incident as the new normal and when (an operator, or
+	// the bounded hold after accept_after flat).
+	Location   []string `json:"location,omitempty"`
+	Merged     []string `json:"merged,omitempty"`
+	MergedInto string   `json:"merged_into,omitempty"`
+	Accepted   *Ack     `json:"accepted,omitempty"`
 	// Notice is the text of an informational record (Kind KindNotice).
 	Notice  string `json:"notice,omitempty"`
 	Caution string `json:"caution"`

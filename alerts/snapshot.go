@@ -10,8 +10,11 @@ import (
 )
 
 // snapshotVersion is the version of the snapshot format written by
-// Snapshot; Restore refuses other versions.
-const snapshotVersion = 1
+// Snapshot. Version 2 adds incidents per location and the bounded hold
+// (snapUnit.Extra, NewLoc; snapIncident.Location); Restore reads versions
+// 1 and 2 (a version-1 model incident is located at its contributors) and
+// refuses others.
+const snapshotVersion = 2
 
 type snapAlarm struct {
 	State  snapState `json:"state"`
@@ -96,6 +99,7 @@ type snapIncident struct {
 	LastPub     time.Time           `json:"last_pub"`
 	Dirty       bool                `json:"dirty,omitempty"`
 	MaxCount    int                 `json:"max_count,omitempty"`
+	Location    *snapLoc            `json:"location,omitempty"`
 }
 
 type snapUnit struct {
@@ -113,6 +117,8 @@ type snapUnit struct {
 	RateLast  int64          `json:"rate_last_minute"`
 	RateCount map[int]uint32 `json:"rate_counts,omitempty"` // bucket → count, non-zero only
 	Counters  UnitCounters   `json:"counters"`
+	Extra     []string       `json:"extra_incidents,omitempty"` // open model incidents after the first, oldest first
+	NewLoc    *snapAlarm     `json:"new_location,omitempty"`    // on-delay of a new location
 }
 
 type snapshot struct {
@@ -186,6 +192,13 @@ func (e *Engine) snapshotOf(us []*unit, only string) *snapshot {
 		for k := range u.stats {
 			su.Stats[k] = snapAlarmOf(&u.stats[k])
 		}
+		for _, inc := range u.loc.extra {
+			su.Extra = append(su.Extra, inc.id)
+			incs[inc] = true
+		}
+		if nl := snapAlarmOf(&u.loc.newLoc); nl.State != Normal || nl.Window != 0 {
+			su.NewLoc = &nl
+		}
 		for k, q := range u.quality {
 			su.Quality = append(su.Quality, snapQuality{Kind: k.kind, Channel: k.channel, Alarm: snapAlarmOf(&q.a), Group: snapGroupOf(&q.g, incs)})
 		}
@@ -237,6 +250,7 @@ func (e *Engine) snapshotOf(us []*unit, only string) *snapshot {
 		if inc.g != nil {
 			si.Group = inc.g.key
 		}
+		si.Location = snapLocOf(inc.loc)
 		if inc.flood != nil {
 			si.Flood = inc.flood.id
 		}
@@ -300,6 +314,7 @@ func (e *Engine) Restore(r io.Reader) error {
 		if u.frozen && e.learn != nil {
 			e.learn.Freeze(u.name)
 		}
+		e.syncMask(u, u.last)
 	}
 	return nil
 }
@@ -355,6 +370,11 @@ func (e *Engine) RestoreUnit(name string, r io.Reader) error {
 		case old != nil && old.frozen:
 			e.learn.Thaw(name)
 		}
+		if u != nil {
+			e.syncMask(u, u.last)
+		} else if old != nil && len(old.loc.sent) > 0 && e.masking(old) {
+			e.learn.(Masking).Mask(name, nil)
+		}
 	}
 	return nil
 }
@@ -365,8 +385,8 @@ func readSnapshot(r io.Reader) (*snapshot, error) {
 	if err := dec.Decode(&s); err != nil {
 		return nil, fmt.Errorf("alerts: restore: %w", err)
 	}
-	if s.Version != snapshotVersion {
-		return nil, fmt.Errorf("alerts: restore: snapshot version %d, want %d", s.Version, snapshotVersion)
+	if s.Version != snapshotVersion && s.Version != 1 {
+		return nil, fmt.Errorf("alerts: restore: snapshot version %d, want 1 or %d", s.Version, snapshotVersion)
 	}
 	return &s, nil
 }
@@ -406,6 +426,7 @@ func (e *Engine) build(s *snapshot) (map[string]*unit, map[string]*incident, err
 		for k, st := range si.Stats {
 			incs[si.ID].stats[k] = statPeak{used: st.Used, RecordStat: st.RecordStat}
 		}
+		incs[si.ID].loc = si.Location.restore()
 		if si.Flood != "" {
 			f, err := lookup(si.Flood)
 			if err != nil {
@@ -425,6 +446,9 @@ func (e *Engine) build(s *snapshot) (map[string]*unit, map[string]*incident, err
 			restoreAlarm(&u.stats[k], su.Stats[k])
 		}
 		if err := e.restoreGroup(u, &u.modelG, su.ModelG, lookup); err != nil {
+			return fail("unit %q: %v", su.Name, err)
+		}
+		if err := e.restoreLocations(u, su, lookup); err != nil {
 			return fail("unit %q: %v", su.Name, err)
 		}
 		for _, sq := range su.Quality {

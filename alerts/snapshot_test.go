@@ -136,8 +136,9 @@ func TestSnapshotRestore(t *testing.T) {
 func TestRestoreRejects(t *testing.T) {
 	e, _ := NewEngine(Config{}, PublisherFunc(func(*Record) {}), nil, nil)
 	for _, bad := range []string{
-		`{"version":2}`,
+		`{"version":3}`,
 		`{"version":1,"units":[{"name":"u","flood":"nope"}]}`,
+		`{"version":2,"units":[{"name":"u","extra_incidents":["nope"]}]}`,
 		`{"version":1,"units":[{"name":""}]}`,
 		`not json`,
 	} {

@@ -143,11 +143,26 @@ func (e *EW) step(k float64) float64 {
 	return a
 }
 
+// wstep is the step of weight w: α·w, except the first frame's α = 1.
+func (e *EW) wstep(k, w float64) float64 {
+	a := e.step(k)
+	if a < 1 {
+		a *= w
+	}
+	return a
+}
+
 // Update folds one frame into the estimates. observed may be nil (all
 // observed); x[i] is ignored where observed[i] is false. x must be finite
 // where observed. The frame joins the batch; the covariance is updated at
 // Flush (every capB frames, or when read).
-func (e *EW) Update(x []float64, observed []bool) {
+func (e *EW) Update(x []float64, observed []bool) { e.UpdateWeighted(x, observed, 1) }
+
+// UpdateWeighted folds one frame into the estimates with weight w in
+// (0, 1]: every step α is scaled by w, so the frame counts as w of a frame
+// (w = 1 is Update). Used for bounded-influence learning (see
+// Tracker.StepMasked).
+func (e *EW) UpdateWeighted(x []float64, observed []bool, w float64) {
 	if len(x) != e.p || (observed != nil && len(observed) != e.p) {
 		panic("tracker: EW.Update: length mismatch")
 	}
@@ -164,7 +179,7 @@ func (e *EW) Update(x []float64, observed []bool) {
 		}
 	}
 	if uniform {
-		a := e.step(c0 + 1)
+		a := e.wstep(c0+1, w)
 		for i := 0; i < e.p; i++ {
 			d := x[i] - e.mean[i]
 			e.rows[i*ld+k] = d
@@ -177,7 +192,7 @@ func (e *EW) Update(x []float64, observed []bool) {
 		for i := 0; i < e.p; i++ {
 			a, d := 0.0, 0.0
 			if observed == nil || observed[i] {
-				a = e.step(e.count[i] + 1)
+				a = e.wstep(e.count[i]+1, w)
 				d = x[i] - e.mean[i]
 				e.updateChannel(i, x[i], d, a)
 			}

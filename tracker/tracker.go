@@ -216,6 +216,11 @@ type Config struct {
 	// reduced models are cached between refreshes (default 16); each slot
 	// is preallocated in New (about 16·p + 3·p values).
 	PatternCache int
+	// Robust is the Huber constant k of the bounded-influence learning
+	// weight (see StepMasked): a frame whose distance d = √(φ/φ_lim) of
+	// the channels it is learned on exceeds k is learned with weight k/d.
+	// Default DefaultRobust; negative: every frame has weight 1.
+	Robust float64
 }
 
 // Errors.
@@ -280,6 +285,7 @@ type Score struct {
 	NEff          float64        // Kish effective sample size of the model
 	Modes         int            // number of modes r
 	Calibrated    bool           // T², SPE, φ limits set empirically (Calibrate)
+	LearnWeight   float64        // weight the frame was learned with (0: not learned; see StepMasked)
 	Frame         uint64         // frames seen, this one included
 	NextRefresh   int            // learned frames until the next refresh (or the end of warm-up)
 }
@@ -295,6 +301,7 @@ type Tracker struct {
 	ms   *modes.Tracker
 	mdl  *model
 	w    *work
+	lw   *learnWork // scratch of the learning pass (learn.go)
 	ls   limitSpec
 	maxR int
 
@@ -355,6 +362,9 @@ func (c *Config) defaults(p int) error {
 	if c.PatternCache == 0 {
 		c.PatternCache = DefaultPatternCache
 	}
+	if c.Robust == 0 {
+		c.Robust = DefaultRobust
+	}
 	switch {
 	case c.RefreshEvery < 0, c.Batch < 0, c.WarmUp < 2, c.StuckRel < 0, c.TopContrib < 0, c.Ridge < 0, c.PatternCache < 0:
 		return fmt.Errorf("%w: RefreshEvery %d, Batch %d, WarmUp %d, StuckRel %v, TopContrib %d, Ridge %v, PatternCache %d",
@@ -396,6 +406,7 @@ func New(p int, cfg Config) (*Tracker, error) {
 		ew:    NewEW(p, Forgetting(cfg.Period, cfg.HalfLife), cfg.Batch, true),
 		mdl:   newModel(p, maxR, cfg.PatternCache),
 		w:     newWork(p, maxR),
+		lw:    newLearnWork(p, maxR),
 		obs:   make([]bool, p),
 		last:  make([]float64, p),
 		run:   make([]int, p),
@@ -460,17 +471,13 @@ func (t *Tracker) Frozen() bool { return t.frozen || t.baseline }
 // wrapping ErrModel if a refresh failed (the previous model is kept; dst is
 // valid).
 func (t *Tracker) Step(dst *Score, x []float64, missing []bool) error {
-	if err := t.prepare(x, missing, true); err != nil {
-		return err
-	}
-	t.frames++
-	if err := t.score(dst, x); err != nil {
-		return err
-	}
-	if t.frozen || t.baseline {
-		return nil
-	}
-	t.ew.Update(x, t.obs)
+	return t.StepMasked(dst, x, missing, nil)
+}
+
+// learnStep folds the frame xl (prepared by learnFrame) with weight wt
+// into the statistics and refreshes the model when due.
+func (t *Tracker) learnStep(xl []float64, wt float64) error {
+	t.ew.UpdateWeighted(xl, t.obs, wt)
 	t.learned++
 	t.since++
 	if (!t.ready && t.learned >= uint64(t.cfg.WarmUp)) || (t.ready && t.cfg.RefreshEvery > 0 && t.since >= t.cfg.RefreshEvery) {
@@ -538,6 +545,26 @@ func (t *Tracker) isStuck(i int) bool {
 	return v <= s*s || v == 0
 }
 
+// standardize fills w.z with the standardized frame x and w.miss with the
+// channels scored as missing (not observed, stuck, without variance, or
+// set in mask, which may be nil); z is 0 for those and for channels out of
+// the model.
+func (t *Tracker) standardize(w *work, x []float64, mask []bool) {
+	m := t.mdl
+	w.miss = w.miss[:0]
+	for i := 0; i < t.p; i++ {
+		switch {
+		case !m.include[i]:
+			w.z[i] = 0 // out of the model since the refresh: zero row of A
+		case !t.obs[i] || t.stuck[i] || !(t.ew.Var(i) > 0) || (mask != nil && mask[i]):
+			w.z[i] = 0
+			w.miss = append(w.miss, i)
+		default:
+			w.z[i] = (x[i] - t.ew.Mean(i)) / math.Sqrt(t.ew.Var(i))
+		}
+	}
+}
+
 // score fills dst for x (t.obs and t.stuck set).
 func (t *Tracker) score(dst *Score, x []float64) error {
 	dst.Frame = t.frames
@@ -573,18 +600,7 @@ func (t *Tracker) score(dst *Score, x []float64) error {
 		return nil
 	}
 	m, w := t.mdl, t.w
-	w.miss = w.miss[:0]
-	for i := 0; i < t.p; i++ {
-		switch {
-		case !m.include[i]:
-			w.z[i] = 0 // out of the model since the refresh: zero row of A
-		case !t.obs[i] || t.stuck[i] || !(t.ew.Var(i) > 0):
-			w.z[i] = 0
-			w.miss = append(w.miss, i)
-		default:
-			w.z[i] = (x[i] - t.ew.Mean(i)) / math.Sqrt(t.ew.Var(i))
-		}
-	}
+	t.standardize(w, x, nil)
 	pt, err := m.lookupPattern(w.miss, &t.ls, t.cfg.Ridge, t.cfg.PatternCache)
 	if err != nil {
 		dst.Ready = false
@@ -957,6 +973,7 @@ func (t *Tracker) Grow(p2 int, cfg Config) error {
 	t.p, t.cfg, t.ucfg, t.ms, t.maxR = p2, cfg, ucfg, ms, maxR
 	t.mdl = m2
 	t.w = newWork(p2, maxR)
+	t.lw = newLearnWork(p2, maxR)
 	if cap(t.top) < cfg.TopContrib+1 {
 		t.top = make([]int, 0, cfg.TopContrib+1)
 	}

@@ -1,0 +1,176 @@
+package alerts
+
+import (
+	"slices"
+	"strconv"
+	"time"
+)
+
+// Learning during an incident.
+//
+// With a Learning that also implements Masking, an open model incident no
+// longer freezes the whole unit: the engine hands the unit's model the
+// channels of every open incident that has not been accepted (Mask), and
+// the model goes on learning with those channels replaced by their
+// reconstruction from the others, so the rest of the unit follows the
+// plant while the fault is not learned. Rules.FreezeWhole keeps the old
+// behaviour (learning frozen while the model alarm is in alarm).
+//
+// Bounded hold. An incident whose peak has not grown by more than
+// holdGrowth (relative) and whose location has not grown for
+// Rules.AcceptAfter of frame time is taken as the plant's new normal: its
+// channels leave the mask and are learned again, its record says so
+// (Accepted, ModelState ModelAccepted), and it ends with EndNewNormal once
+// its statistics return below the limits. An operator can accept an
+// incident, or every model incident of a unit, at once (OpAccept); the
+// record carries who and when, like an acknowledgement.
+
+// Model states of an incident under learning by reconstruction (besides
+// the unit states ModelAdapting, ModelFrozen, ...).
+const (
+	// ModelReconstructing: the unit learns on, with this incident's
+	// channels replaced by their reconstruction from the others.
+	ModelReconstructing = "reconstructing"
+	// ModelAccepted: the incident was accepted as the new normal and its
+	// channels are learned again.
+	ModelAccepted = "accepted"
+)
+
+// Masking receives the channels a unit's model must not learn from as
+// they are (the locations of its open, not accepted incidents), sorted;
+// nil or empty means none. Like Learning it is called under the engine's
+// lock, must be quick and must not call the Engine; it must copy
+// channels if it keeps them.
+type Masking interface {
+	Mask(unit string, channels []string)
+}
+
+// DefaultAcceptAfter is the bounded hold: how long an incident must stay
+// flat before its channels are learned again as the new normal. It is
+// chosen on the realism suite and the demo together (see README,
+// Validation).
+const DefaultAcceptAfter = 8 * time.Hour
+
+// holdGrowth is the relative growth of an incident's peak ratio that
+// restarts its bounded hold (design choice: a quarter more than the peak
+// so far is growth, noise on a flat statistic is not).
+const holdGrowth = 0.25
+
+// holdBy names the bounded hold as the author of an automatic acceptance.
+const holdBy = "modewatch bounded hold"
+
+// holdState is the bounded hold of one model incident.
+type holdState struct {
+	growth   time.Time // last growth of the peak or the location
+	ref      float64   // peak ratio at the last growth
+	accepted *Ack      // who accepted it and when; nil while held
+}
+
+func (h *holdState) start(t time.Time) { h.growth = t }
+
+// endReason is the end reason of an incident that returned to normal.
+func (h *holdState) endReason() string {
+	if h.accepted != nil {
+		return EndNewNormal
+	}
+	return EndReturned
+}
+
+// stepHolds runs the bounded hold of u's open model incidents at frame t.
+func (e *Engine) stepHolds(u *unit, o *Observation, t time.Time) {
+	after := u.rules.AcceptAfter
+	for _, inc := range u.modelIncidents() {
+		l := inc.loc
+		if l == nil || l.hold.accepted != nil {
+			continue
+		}
+		h := &l.hold
+		if inc.hasPeak && inc.peak.Ratio > h.ref*(1+holdGrowth) {
+			h.growth, h.ref = t, inc.peak.Ratio
+			continue
+		}
+		if after > 0 && t.Sub(h.growth) >= after {
+			h.accepted = &Ack{By: holdBy, At: t.UTC(), Comment: "flat for " + after.String() + " (accept_after): learned as the new normal"}
+			e.emit(Event{Time: t, Unit: u.name, Kind: EventAccept, AlertID: inc.id})
+			e.publish(inc, t)
+		}
+	}
+	e.syncMask(u, t)
+}
+
+// noteGrowth restarts the bounded hold of inc (its location grew).
+func (l *locState) noteGrowth(t time.Time) { l.hold.growth = t }
+
+// masking reports whether u learns by reconstruction around its incidents.
+func (e *Engine) masking(u *unit) bool {
+	_, ok := e.learn.(Masking)
+	return ok && !u.rules.FreezeWhole && !u.rules.NoFreeze && !u.rules.SingleIncident
+}
+
+// syncMask hands u's model the channels of its open, not accepted model
+// incidents when they changed.
+func (e *Engine) syncMask(u *unit, t time.Time) {
+	if !e.masking(u) {
+		return
+	}
+	m := u.loc.mask[:0]
+	if !u.maint {
+		for _, inc := range u.modelIncidents() {
+			if inc.loc == nil || inc.loc.hold.accepted != nil {
+				continue
+			}
+			for _, ch := range inc.loc.channels {
+				if i, ok := slices.BinarySearch(m, ch); !ok {
+					m = slices.Insert(m, i, ch)
+				}
+			}
+		}
+	}
+	u.loc.mask = m
+	if slices.Equal(m, u.loc.sent) {
+		return
+	}
+	u.loc.sent = append(u.loc.sent[:0], m...)
+	e.learn.(Masking).Mask(u.name, m)
+}
+
+// acceptIncident applies OpAccept to one model incident: the reply text
+// and whether the incident is accepted now.
+func (e *Engine) acceptIncident(inc *incident, c Command) (string, bool) {
+	if inc.kind != KindIncident || inc.g == nil || inc.g.qkind != "" || inc.loc == nil {
+		return "alerts: only an incident of the model statistics can be accepted as normal", false
+	}
+	if inc.ended {
+		return "alerts: the alert has ended", false
+	}
+	if a := inc.loc.hold.accepted; a != nil {
+		return "already accepted by " + a.By, true
+	}
+	u := inc.u
+	inc.loc.hold.accepted = &Ack{By: c.By, At: e.now().UTC(), Comment: c.Comment}
+	e.emit(Event{Time: u.last, Unit: u.name, Kind: EventAccept, AlertID: inc.id})
+	e.publish(inc, u.last)
+	return "accepted as normal: its channels are learned again", true
+}
+
+// acceptUnit applies OpAccept to every open model incident of a unit.
+func (e *Engine) acceptUnit(c Command) Reply {
+	u := e.units[c.Unit]
+	if u == nil {
+		return fail(c, "alerts: unknown unit %q", c.Unit)
+	}
+	n := 0
+	for _, inc := range slices.Clone(u.modelIncidents()) {
+		if inc.loc != nil && inc.loc.hold.accepted == nil {
+			if _, ok := e.acceptIncident(inc, c); ok {
+				n++
+			}
+		}
+	}
+	e.syncMask(u, u.last)
+	if n == 0 {
+		return Reply{OK: true, Unit: u.name, Message: "no open model incident to accept"}
+	}
+	return Reply{OK: true, Unit: u.name, Message: "accepted as normal: " + strconv.Itoa(n) + " incident(s); their channels are learned again"}
+}
+

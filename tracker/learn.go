@@ -1,0 +1,155 @@
+package tracker
+
+import "math"
+
+// DefaultRobust is the default Huber constant of Config.Robust: frames
+// within 1.5 times the φ limit's distance are learned with full weight
+// (chosen with the realism suite; see the README's Validation).
+const DefaultRobust = 1.5
+
+// learnWork is the scratch of the learning pass, sized in New.
+type learnWork struct {
+	w  *work
+	xl []float64 // the frame as learned: masked channels reconstructed
+}
+
+func newLearnWork(p, maxR int) *learnWork {
+	return &learnWork{w: newWork(p, maxR), xl: make([]float64, p)}
+}
+
+// StepMasked is Step with learning around faults. It scores x like Step;
+// then, unless learning is frozen, it learns the frame with
+//
+//   - the channels set in mask (nil: none; else len p) replaced by their
+//     reconstruction from the other channels: the conditional expectation
+//     under the model, ẑ_m = A_mo A_oo⁻¹ z_o, as for missing channels
+//     (Dunia & Qin 1998; Alcalá & Qin 2009), so that the rest of the unit
+//     keeps learning while a fault in the masked channels is not learned;
+//   - a bounded-influence weight (Huber 1964): with d = √(φ/φ_lim) the
+//     distance of the frame on its unmasked channels (φ and its limit
+//     under the reduced model of the masked pattern), the frame is learned
+//     with weight w = min(1, k/d), k = Config.Robust — Huber's ψ(d)/d — so
+//     a frame far outside the limits moves the model as much as one at k
+//     and no more (Huber, "Robust estimation of a location parameter",
+//     Ann. Math. Statist. 35(1), 1964: the weight of his M-estimator).
+//
+// Score.LearnWeight reports w (0 when nothing was learned). Channels that
+// are missing are not learned, as with Step. The reconstruction is less
+// variable than the channel; the conditional covariance is added to the
+// masked channels' variances and covariances (addConditional) so that a
+// long mask does not shrink them. Allocation-free like Step once the
+// masked pattern is cached.
+func (t *Tracker) StepMasked(dst *Score, x []float64, missing, mask []bool) error {
+	if err := t.prepare(x, missing, true); err != nil {
+		return err
+	}
+	if mask != nil && len(mask) != t.p {
+		return ErrWidth
+	}
+	t.frames++
+	if err := t.score(dst, x); err != nil {
+		return err
+	}
+	dst.LearnWeight = 0
+	if t.frozen || t.baseline {
+		return nil
+	}
+	xl, wt, err := t.learnFrame(dst, x, mask)
+	if err != nil {
+		return err
+	}
+	dst.LearnWeight = wt
+	return t.learnStep(xl, wt)
+}
+
+// learnFrame returns the frame to learn (x itself, or a copy with the
+// masked channels reconstructed) and its weight.
+func (t *Tracker) learnFrame(dst *Score, x []float64, mask []bool) ([]float64, float64, error) {
+	if !t.ready {
+		return x, 1, nil
+	}
+	any := false
+	for i, m := range mask {
+		if m && t.obs[i] && t.mdl.include[i] {
+			any = true
+			break
+		}
+	}
+	r := ratio(dst.Phi, dst.PhiLimit)
+	xl := x
+	if any {
+		lw := t.lw
+		w := lw.w
+		t.standardize(w, x, mask)
+		pt, err := t.mdl.lookupPattern(w.miss, &t.ls, t.cfg.Ridge, t.cfg.PatternCache)
+		if err != nil {
+			return nil, 0, ErrModel
+		}
+		t.mdl.impute(w.z, pt, w.imp)
+		copy(lw.xl, x)
+		for i, m := range mask {
+			if m && t.obs[i] && t.mdl.include[i] {
+				lw.xl[i] = t.ew.Mean(i) + math.Sqrt(t.ew.Var(i))*w.z[i]
+			}
+		}
+		xl = lw.xl
+		_, _, phi := t.mdl.scoreZ(w, pt, t.cfg.RBCIndex)
+		lim := pt.phiLim
+		if t.cal {
+			lim *= t.calScale[2]
+		}
+		r = ratio(phi, lim)
+		wt := huberWeight(r, t.cfg.Robust)
+		t.addConditional(pt, mask, wt)
+		return xl, wt, nil
+	}
+	return xl, huberWeight(r, t.cfg.Robust), nil
+}
+
+// addConditional adds to the EW variances and covariances of the masked
+// channels the part of the update their reconstruction lacks. With d the
+// true and d̂ the reconstructed deviation, E[d_m d_nᵀ] = d̂_m d̂_nᵀ + K_mn
+// (K the conditional covariance, z units; the reconstruction error is
+// uncorrelated with the observed channels, so their cross terms need
+// nothing). The update C ← (1 − α)(C + αddᵀ) thus gets α·K_mn·σ_mσ_n
+// added before it. The covariance's batch of pending frames is scaled by
+// this frame's (1 − α) as well, an error of at most Batch·α relative on
+// the correction.
+func (t *Tracker) addConditional(pt *pattern, mask []bool, wt float64) {
+	e := t.ew
+	k, n := len(pt.miss), e.p
+	for x, i := range pt.miss {
+		if !mask[i] || !t.obs[i] {
+			continue
+		}
+		a := e.wstep(e.count[i]+1, wt)
+		si := math.Sqrt(e.vari[i])
+		for y, j := range pt.miss {
+			if !mask[j] || !t.obs[j] || j < i {
+				continue
+			}
+			c := a * pt.kc[x*k+y] * si * math.Sqrt(e.vari[j])
+			e.cov.Data[i*n+j] += c
+			if i == j {
+				e.vari[i] += c
+			}
+		}
+	}
+}
+
+// ratio is v/l, or 0 when the limit is not finite and positive.
+func ratio(v, l float64) float64 {
+	if !(l > 0) || math.IsInf(l, 0) || math.IsNaN(v) {
+		return 0
+	}
+	return v / l
+}
+
+// huberWeight is Huber's (1964) weight ψ(d)/d = min(1, k/d) at the
+// distance d = √r of a statistic over its limit; k ≤ 0 gives 1.
+func huberWeight(r, k float64) float64 {
+	if k <= 0 || r <= k*k {
+		return 1
+	}
+	return k / math.Sqrt(r)
+}
