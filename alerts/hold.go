@@ -173,4 +173,3 @@ func (e *Engine) acceptUnit(c Command) Reply {
 	}
 	return Reply{OK: true, Unit: u.name, Message: "accepted as normal: " + strconv.Itoa(n) + " incident(s); their channels are learned again"}
 }
-

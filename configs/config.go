@@ -307,6 +307,20 @@ type Alerts struct {
 	// FreezeOnAlert freezes a unit's learning while an alert is active.
 	// Default true.
 	FreezeOnAlert *bool `yaml:"freeze_on_alert"`
+	// LearnAroundAlert: while an alert is active the unit goes on
+	// learning with the alert's channels replaced by their reconstruction
+	// from the others, instead of freezing all learning. Default true;
+	// needs freeze_on_alert true (false learns everything, faults too).
+	LearnAroundAlert *bool `yaml:"learn_around_alert"`
+	// IncidentsPerLocation: a fault in other equipment of a unit already
+	// in alarm is a new incident of its own. Default true; false keeps one
+	// model incident per unit.
+	IncidentsPerLocation *bool `yaml:"incidents_per_location"`
+	// AcceptAfter is the bounded hold: an incident whose statistics stay
+	// flat (no growth) this long of plant time is taken as the new normal
+	// and its channels are learned again. Zero: the alarm engine's default
+	// (8h, chosen on the realism suite); negative: never.
+	AcceptAfter time.Duration `yaml:"accept_after"`
 }
 
 // OnDelay is the "N of the last M frames" rule.
@@ -505,6 +519,15 @@ func (a Alerts) Over(base Alerts) Alerts {
 	}
 	if a.FreezeOnAlert == nil {
 		a.FreezeOnAlert = base.FreezeOnAlert
+	}
+	if a.LearnAroundAlert == nil {
+		a.LearnAroundAlert = base.LearnAroundAlert
+	}
+	if a.IncidentsPerLocation == nil {
+		a.IncidentsPerLocation = base.IncidentsPerLocation
+	}
+	if a.AcceptAfter == 0 {
+		a.AcceptAfter = base.AcceptAfter
 	}
 	return a
 }

@@ -68,6 +68,7 @@ type Pipeline struct {
 	obs    alerts.Observation
 	stale  time.Duration // staleness limit of the frames (silence.go)
 	cross  crossStats    // fit: cross-products for context suggestions (suggest.go)
+	masks  masks         // per unit: channels learned as their reconstruction (location.go)
 }
 
 // OrDefaults gives the nil Config and Log fields of the options structs
@@ -132,6 +133,10 @@ func AlertsConfig(c *configs.Config) alerts.Config {
 			OffDelay: a.OffDelay,
 			Deadband: a.Deadband,
 			NoFreeze: a.FreezeOnAlert != nil && !*a.FreezeOnAlert,
+
+			FreezeWhole:    a.LearnAroundAlert != nil && !*a.LearnAroundAlert,
+			SingleIncident: a.IncidentsPerLocation != nil && !*a.IncidentsPerLocation,
+			AcceptAfter:    a.AcceptAfter,
 		}
 		if r.OffDelay == 0 {
 			r.OffDelay = -1 // configured as zero: no off-delay

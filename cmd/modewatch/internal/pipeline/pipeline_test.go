@@ -3,6 +3,7 @@ package pipeline
 import (
 	"bytes"
 	"context"
+	"fmt"
 	"math"
 	"testing"
 	"time"
@@ -134,10 +135,19 @@ func TestFrameAllocs(t *testing.T) {
 }
 
 // TestFreezeOnAlert: while an alert of a unit is active the alarm engine
-// freezes its learning, and the unit reports the model state "frozen".
+// either (learn_around_alert: false) freezes its learning, and the unit
+// reports the model state "frozen", or (the default) keeps it learning
+// with the incident's channels learned as their reconstruction: the
+// record says "reconstructing" and those channels are masked.
 func TestFreezeOnAlert(t *testing.T) {
+	for _, around := range []bool{false, true} {
+		t.Run(fmt.Sprintf("learn_around_alert=%v", around), func(t *testing.T) { freezeOnAlert(t, around) })
+	}
+}
+
+func freezeOnAlert(t *testing.T, around bool) {
 	data := demoBytes(t, 3)
-	cfg := &configs.Config{Model: configs.Model{WarmUp: 100}}
+	cfg := &configs.Config{Model: configs.Model{WarmUp: 100}, Alerts: configs.Alerts{LearnAroundAlert: &around}}
 	cfg.ApplyDefaults()
 	var opened []*alerts.Record
 	pub := alerts.PublisherFunc(func(r *alerts.Record) { opened = append(opened, r) })
@@ -146,7 +156,7 @@ func TestFreezeOnAlert(t *testing.T) {
 		t.Fatal(err)
 	}
 	u := res.Pipeline.Unit("air")
-	// Drive a gross fault: every air channel 50 standard deviations off.
+	// Drive a gross fault: two air channels 50 standard deviations off.
 	n := res.Intake.Channels().Len()
 	f := &stream.Frame{Values: make([]float64, n), Missing: make([]bool, n)}
 	_, _, last := res.Pipeline.Frames()
@@ -159,7 +169,10 @@ func TestFreezeOnAlert(t *testing.T) {
 	}
 	for k, i := range u.idx {
 		f.Missing[i] = false
-		f.Values[i] = means[k] + 50*math.Sqrt(vars[k])*float64(1-2*(k%2))
+		f.Values[i] = means[k]
+		if k < 2 {
+			f.Values[i] += 50 * math.Sqrt(vars[k]) * float64(1-2*(k%2))
+		}
 	}
 	for k := 1; k <= 10; k++ {
 		f.Start = last.Add(time.Duration(k) * 20 * time.Second)
@@ -167,8 +180,21 @@ func TestFreezeOnAlert(t *testing.T) {
 			t.Fatal(err)
 		}
 	}
-	if s := u.ModelState(); s != alerts.ModelFrozen {
-		t.Errorf("air model state %q after a gross fault, want frozen", s)
+	want := alerts.ModelFrozen
+	if around {
+		want = alerts.ModelAdapting
+	}
+	if s := u.ModelState(); s != want {
+		t.Errorf("air model state %q after a gross fault, want %s", s, want)
+	}
+	if around {
+		m := u.learnMask()
+		if m == nil || !m[0] || !m[1] {
+			t.Errorf("mask %v does not hold the faulty channels", m)
+		}
+		if s := opened[len(opened)-1].ModelState; s != alerts.ModelReconstructing {
+			t.Errorf("record model state %q", s)
+		}
 	}
 	found := false
 	for _, r := range opened {

@@ -67,6 +67,13 @@ type Unit struct {
 	lastRefresh time.Duration // wall time of the last frame step that refreshed
 	late        []string      // channels that could not join the model (fixed model, Grow failed)
 
+	// Learning around incidents (location.go).
+	mbox    *maskBox
+	mver    uint64
+	mask    []bool // channels learned as their reconstruction
+	masked  bool   // some channel of mask is set
+	locMark []bool // scratch of location
+
 }
 
 func newUnit(p *Pipeline, name string) *Unit {
@@ -227,7 +234,7 @@ func (u *Unit) step(f *stream.Frame) error {
 	// learns the last frame before it is due (NextRefresh == 1 before).
 	refreshDue := !u.frozen && u.score.NextRefresh == 1
 	t0 := time.Now()
-	err := u.tr.Step(&u.score, u.x, u.miss)
+	err := u.tr.StepMasked(&u.score, u.x, u.miss, u.learnMask())
 	if refreshDue && err == nil {
 		u.refreshes++
 		u.lastRefresh = time.Since(t0)
@@ -308,9 +315,11 @@ func (u *Unit) observe(t time.Time) {
 	o.Contributors = o.Contributors[:0]
 	o.Missing = o.Missing[:0]
 	o.Quality = o.Quality[:0]
+	o.Location = o.Location[:0]
 	// In the hold-off after an operating-state switch the frame is scored
 	// and shown but its statistics start no incident.
 	if s.Ready && (u.states == nil || !u.states.inHoldOff()) {
+		o.Location = u.location(o.Location)
 		o.Stats = append(o.Stats,
 			alerts.Stat{Name: alerts.StatT2, Value: s.T2, Limit: s.T2Limit},
 			alerts.Stat{Name: alerts.StatSPE, Value: s.SPE, Limit: s.SPELimit},

@@ -44,7 +44,7 @@ func (s *Service) routes() http.Handler {
 		writeJSON(w, http.StatusOK, map[string]any{
 			"caution": Caution,
 			"links": []string{"/healthz", "/readyz", "/metrics", "/api/units", "/api/units/{unit}", "/api/alerts",
-				"POST /api/alerts/{ack|shelve|unshelve}", "POST /api/units/{unit}/maintenance", "POST /api/commands",
+				"POST /api/alerts/{ack|shelve|unshelve|accept}", "POST /api/units/{unit}/maintenance", "POST /api/units/{unit}/accept", "POST /api/commands",
 				"GET /api/units/{unit}/checkpoint", "PUT /api/units/{unit}/checkpoint"},
 			"subjects": s.info,
 		})
@@ -79,8 +79,8 @@ func (s *Service) routes() http.Handler {
 	})
 	mux.HandleFunc("POST /api/alerts/{op}", func(w http.ResponseWriter, r *http.Request) {
 		op := r.PathValue("op")
-		if op != alerts.OpAck && op != alerts.OpShelve && op != alerts.OpUnshelve {
-			writeJSON(w, http.StatusNotFound, alerts.Reply{Error: "unknown operation " + op + " (ack, shelve, unshelve)"})
+		if op != alerts.OpAck && op != alerts.OpShelve && op != alerts.OpUnshelve && op != alerts.OpAccept {
+			writeJSON(w, http.StatusNotFound, alerts.Reply{Error: "unknown operation " + op + " (ack, shelve, unshelve, accept)"})
 			return
 		}
 		s.command(w, r, func(c *alerts.Command) { c.Op = op })
@@ -88,6 +88,10 @@ func (s *Service) routes() http.Handler {
 	mux.HandleFunc("POST /api/units/{unit}/maintenance", func(w http.ResponseWriter, r *http.Request) {
 		unit := r.PathValue("unit")
 		s.command(w, r, func(c *alerts.Command) { c.Op, c.Unit = alerts.OpMaintenance, unit })
+	})
+	mux.HandleFunc("POST /api/units/{unit}/accept", func(w http.ResponseWriter, r *http.Request) {
+		unit := r.PathValue("unit")
+		s.command(w, r, func(c *alerts.Command) { c.Op, c.Unit = alerts.OpAccept, unit })
 	})
 	mux.HandleFunc("POST /api/commands", func(w http.ResponseWriter, r *http.Request) {
 		s.command(w, r, func(*alerts.Command) {})

@@ -241,6 +241,19 @@ checkpoint_interval: 1m
 		t.Errorf("ack without alert_id: %d, want 400", resp.StatusCode)
 	}
 
+	// Accept a unit's state as normal, through the HTTP API: the reply
+	// says how many incidents were accepted (possibly none by now).
+	resp, err = http.Post(info.HTTP+"/api/units/air/accept", "application/json", strings.NewReader(`{"by":"test","comment":"new grade"}`))
+	if err != nil {
+		t.Fatal(err)
+	}
+	var arep alerts.Reply
+	json.NewDecoder(resp.Body).Decode(&arep)
+	resp.Body.Close()
+	if resp.StatusCode != 200 || !arep.OK || !strings.Contains(arep.Message, "accept") {
+		t.Errorf("accept: %d %+v", resp.StatusCode, arep)
+	}
+
 	// Maintenance for a unit, through the HTTP API.
 	resp, err = http.Post(info.HTTP+"/api/units/coolwater/maintenance", "application/json",
 		strings.NewReader(`{"on":true,"by":"test","reason":"pump swap"}`))
