@@ -16,8 +16,10 @@ import (
 // plant while the fault is not learned. Rules.FreezeWhole keeps the old
 // behaviour (learning frozen while the model alarm is in alarm).
 //
-// Bounded hold. An incident whose peak has not grown by more than
-// holdGrowth (relative) and whose location has not grown for
+// Bounded hold. An incident whose level (the largest statistic/limit
+// ratio of each frame, smoothed over about holdSmooth frames) has not
+// grown by more than holdGrowth (relative) and whose location has not
+// grown for
 // Rules.AcceptAfter of frame time is taken as the plant's new normal: its
 // channels leave the mask and are learned again, its record says so
 // (Accepted, ModelState ModelAccepted), and it ends with EndNewNormal once
@@ -45,6 +47,14 @@ type Masking interface {
 	Mask(unit string, channels []string)
 }
 
+// Accepting is implemented by a Learning whose model can take the current
+// level of some channels as their normal at once (the engine recentres
+// them). The engine calls Accept when an incident is accepted as the new
+// normal, with its channels (sorted), under its lock, like Mask.
+type Accepting interface {
+	Accept(unit string, channels []string)
+}
+
 // DefaultAcceptAfter is the bounded hold: how long an incident must stay
 // flat before its channels are learned again as the new normal. It is
 // chosen on the realism suite and the demo together (see README,
@@ -56,13 +66,19 @@ const DefaultAcceptAfter = 8 * time.Hour
 // so far is growth, noise on a flat statistic is not).
 const holdGrowth = 0.25
 
+// holdSmooth is the span in frames of the exponential smoothing of an
+// incident's level (design choice: a few minutes at the usual periods, so
+// that the level is a level and not the noise's largest excursion).
+const holdSmooth = 30
+
 // holdBy names the bounded hold as the author of an automatic acceptance.
 const holdBy = "modewatch bounded hold"
 
 // holdState is the bounded hold of one model incident.
 type holdState struct {
-	growth   time.Time // last growth of the peak or the location
-	ref      float64   // peak ratio at the last growth
+	growth   time.Time // last growth of the level or the location
+	ref      float64   // level at the last growth
+	level    float64   // smoothed largest statistic/limit ratio
 	accepted *Ack      // who accepted it and when; nil while held
 }
 
@@ -79,19 +95,31 @@ func (h *holdState) endReason() string {
 // stepHolds runs the bounded hold of u's open model incidents at frame t.
 func (e *Engine) stepHolds(u *unit, o *Observation, t time.Time) {
 	after := u.rules.AcceptAfter
+	r := 0.0
+	for i := range o.Stats {
+		if s := &o.Stats[i]; s.Limit > 0 && s.Value/s.Limit > r {
+			r = s.Value / s.Limit
+		}
+	}
 	for _, inc := range u.modelIncidents() {
 		l := inc.loc
 		if l == nil || l.hold.accepted != nil {
 			continue
 		}
 		h := &l.hold
-		if inc.hasPeak && inc.peak.Ratio > h.ref*(1+holdGrowth) {
-			h.growth, h.ref = t, inc.peak.Ratio
+		if h.level == 0 {
+			h.level = r
+		} else {
+			h.level += (r - h.level) / holdSmooth
+		}
+		if h.level > h.ref*(1+holdGrowth) {
+			h.growth, h.ref = t, h.level
 			continue
 		}
 		if after > 0 && t.Sub(h.growth) >= after {
 			h.accepted = &Ack{By: holdBy, At: t.UTC(), Comment: "flat for " + after.String() + " (accept_after): learned as the new normal"}
 			e.emit(Event{Time: t, Unit: u.name, Kind: EventAccept, AlertID: inc.id})
+			e.recentre(u, inc)
 			e.publish(inc, t)
 		}
 	}
@@ -149,6 +177,7 @@ func (e *Engine) acceptIncident(inc *incident, c Command) (string, bool) {
 	u := inc.u
 	inc.loc.hold.accepted = &Ack{By: c.By, At: e.now().UTC(), Comment: c.Comment}
 	e.emit(Event{Time: u.last, Unit: u.name, Kind: EventAccept, AlertID: inc.id})
+	e.recentre(u, inc)
 	e.publish(inc, u.last)
 	return "accepted as normal: its channels are learned again", true
 }
@@ -172,4 +201,12 @@ func (e *Engine) acceptUnit(c Command) Reply {
 		return Reply{OK: true, Unit: u.name, Message: "no open model incident to accept"}
 	}
 	return Reply{OK: true, Unit: u.name, Message: "accepted as normal: " + strconv.Itoa(n) + " incident(s); their channels are learned again"}
+}
+
+// recentre tells an Accepting learner to take the current level of the
+// accepted incident's channels as their normal.
+func (e *Engine) recentre(u *unit, inc *incident) {
+	if a, ok := e.learn.(Accepting); ok && e.masking(u) {
+		a.Accept(u.name, inc.loc.channels)
+	}
 }

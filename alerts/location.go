@@ -15,7 +15,7 @@ import (
 // exceed their own limits, widened by the supports of the modes that hold
 // them; computed by the caller, which knows the model). While the unit is
 // in alarm, every frame is attributed by its leading contributors (the
-// first leadCount ranked channels over their own limits):
+// first LeadCount ranked channels over their own limits, see LeadShare):
 //
 //   - leading channels inside one open incident's location support it: its
 //     peaks and contributors are updated from the frame, and its location
@@ -48,12 +48,21 @@ const (
 	EndNewNormal = "new_normal"
 )
 
-// leadCount is the number of leading contributors that attribute a frame
-// to an incident location (design choice: a fault in one piece of
-// equipment typically puts one to three channels over their own limits
-// first; RBC ranks the faulty channel first for a single-sensor fault,
-// Alcalá & Qin 2009).
-const leadCount = 3
+// LeadCount and LeadShare define a frame's leading contributors: the
+// first LeadCount ranked channels that exceed their own limits and whose
+// RBC is at least LeadShare of the first one's (design choice: a fault in
+// one piece of equipment puts one to three channels well over their own
+// limits first, RBC ranking the faulty channel first for a single-sensor
+// fault, Alcalá & Qin 2009; a channel over its own limit by chance, which
+// happens in α of the frames, is far below the fault's channel). The
+// caller's Observation.Location widens the same channels.
+const (
+	LeadCount = 3
+	LeadShare = 0.25
+)
+
+// leadCount is LeadCount, for array sizes.
+const leadCount = LeadCount
 
 // DefaultLocationQuiet is how long an incident's location may go without
 // a channel over its own contribution limit, while the unit stays in
@@ -68,7 +77,37 @@ type locState struct {
 	lastSupport time.Time // last frame with a location channel over its limit
 	merged      []string  // ids merged into this incident
 	mergedInto  string
-	hold        holdState // bounded hold and acceptance (hold.go)
+	hold        holdState      // bounded hold and acceptance (hold.go)
+	cand        map[string]int // leading channels outside the location: frames they led in
+}
+
+// growFrames is how many frames a channel outside an incident's location
+// must lead, in frames the incident leads, before the location grows to
+// it (design choice: a fault that spreads leads every frame; a channel
+// over its limit near the first by chance does so in well under 10⁻³ of
+// the frames).
+const growFrames = 10
+
+// grows counts the leading channels outside the location and reports
+// whether one of them has now led growFrames frames.
+func (l *locState) grows(lead []string) bool {
+	grow := false
+	for _, ch := range lead {
+		if l.holds(ch) {
+			continue
+		}
+		if l.cand == nil {
+			l.cand = map[string]int{}
+		}
+		l.cand[ch]++
+		if l.cand[ch] >= growFrames {
+			grow = true
+		}
+	}
+	if grow {
+		clear(l.cand)
+	}
+	return grow
 }
 
 // unitLoc is a unit's state of incidents per location.
@@ -122,16 +161,28 @@ func frameLocation(o *Observation, lead []string) []string {
 // leading appends to dst the channels of the first leadCount contributors
 // of o that exceed their own limit.
 func leading(dst []string, o *Observation) []string {
+	top := 0.0
 	for i := range o.Contributors {
 		c := &o.Contributors[i]
 		if len(dst) == leadCount {
 			break
 		}
-		if c.Limit > 0 && c.RBC > c.Limit {
+		if IsLeading(c.RBC, c.Limit, top) {
+			if top == 0 {
+				top = c.RBC
+			}
 			dst = append(dst, c.Channel)
 		}
 	}
 	return dst
+}
+
+// IsLeading reports whether a contributor with reconstruction-based
+// contribution rbc and limit lim is leading, given the RBC of the first
+// leading contributor of the frame (0 while there is none): over its
+// limit and at least LeadShare of the first.
+func IsLeading(rbc, lim, first float64) bool {
+	return lim > 0 && rbc > lim && rbc >= LeadShare*first
 }
 
 // locate sets the location of a model incident opening on frame o.
@@ -176,6 +227,13 @@ func (e *Engine) stepLocations(u *unit, o *Observation, t time.Time) {
 		if g.inc != nil {
 			e.support(g.inc, o, t)
 		}
+	case first == nil && g.inc != nil && g.inc.loc != nil && len(g.inc.loc.channels) == 0:
+		// The unit's incident opened without a channel to blame: the
+		// first frame with one locates it.
+		u.loc.newLoc.Step(t, 0, 1)
+		g.inc.loc.add(frameLocation(o, lead))
+		g.inc.dirty = true
+		e.support(g.inc, o, t)
 	case first == nil:
 		if _, to, _ := u.loc.newLoc.Step(t, 2, 1); to == Active {
 			u.loc.newLoc.Reset(t)
@@ -186,7 +244,7 @@ func (e *Engine) stepLocations(u *unit, o *Observation, t time.Time) {
 		// Growth: a frame whose leading channels all lie in first's
 		// location or in none widens first by the frame's location; if it
 		// now meets another incident's, they grew into each other.
-		if e.leadsOnly(u, first, lead) && first.loc.add(frameLocation(o, lead)) {
+		if e.leadsOnly(u, first, lead) && first.loc.grows(lead) && first.loc.add(frameLocation(o, lead)) {
 			first.loc.noteGrowth(t)
 			first.dirty = true
 			first = e.absorbOverlaps(u, first, t)
@@ -393,13 +451,15 @@ func (e *Engine) recordLocation(r *Record, inc *incident) {
 
 // snapLoc is the snapshot of a model incident's location and hold.
 type snapLoc struct {
-	Channels    []string  `json:"channels"`
-	LastSupport time.Time `json:"last_support"`
-	Merged      []string  `json:"merged,omitempty"`
-	MergedInto  string    `json:"merged_into,omitempty"`
-	Growth      time.Time `json:"hold_growth"`
-	Ref         float64   `json:"hold_ref"`
-	Accepted    *Ack      `json:"accepted,omitempty"`
+	Channels    []string       `json:"channels"`
+	LastSupport time.Time      `json:"last_support"`
+	Merged      []string       `json:"merged,omitempty"`
+	MergedInto  string         `json:"merged_into,omitempty"`
+	Growth      time.Time      `json:"hold_growth"`
+	Ref         float64        `json:"hold_ref"`
+	Level       float64        `json:"hold_level"`
+	Candidates  map[string]int `json:"candidates,omitempty"`
+	Accepted    *Ack           `json:"accepted,omitempty"`
 }
 
 func snapLocOf(l *locState) *snapLoc {
@@ -407,7 +467,7 @@ func snapLocOf(l *locState) *snapLoc {
 		return nil
 	}
 	return &snapLoc{Channels: l.channels, LastSupport: l.lastSupport, Merged: l.merged, MergedInto: l.mergedInto,
-		Growth: l.hold.growth, Ref: l.hold.ref, Accepted: l.hold.accepted}
+		Growth: l.hold.growth, Ref: l.hold.ref, Level: l.hold.level, Accepted: l.hold.accepted, Candidates: l.cand}
 }
 
 func (s *snapLoc) restore() *locState {
@@ -415,7 +475,7 @@ func (s *snapLoc) restore() *locState {
 		return nil
 	}
 	l := &locState{lastSupport: s.LastSupport, merged: s.Merged, mergedInto: s.MergedInto,
-		hold: holdState{growth: s.Growth, ref: s.Ref, accepted: s.Accepted}}
+		hold: holdState{growth: s.Growth, ref: s.Ref, level: s.Level, accepted: s.Accepted}, cand: s.Candidates}
 	l.add(s.Channels)
 	return l
 }

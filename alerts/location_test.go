@@ -143,15 +143,22 @@ func TestLocationsMerge(t *testing.T) {
 	if n := len(h.modelRecords()); n != 2 {
 		t.Fatalf("%d incidents, want 2", n)
 	}
-	// The second fault spreads: its frame location now reaches u.b.
-	for ; at < 70; at++ {
-		h.frame(at, 3, []string{"u.c"}, "u.c", "u.d", "u.b")
+	// The second fault spreads to u.e, whose mode holds u.b of the first:
+	// after growFrames frames led by u.e too, the second location grows
+	// into the first's. A single frame does not grow it.
+	h.frame(at, 3, []string{"u.c", "u.e"}, "u.c", "u.d", "u.e", "u.b")
+	at++
+	if n := len(h.modelRecords()); n != 2 || h.byStart()[1].End != nil {
+		t.Fatalf("one frame merged the incidents")
+	}
+	for ; at < 80; at++ {
+		h.frame(at, 3, []string{"u.c", "u.e"}, "u.c", "u.d", "u.e", "u.b")
 	}
 	early, late := h.byStart()[0], h.byStart()[1]
 	if late.EndReason != EndMerged || late.MergedInto != early.ID {
 		t.Errorf("later incident: end %q into %q, want merged into %s", late.EndReason, late.MergedInto, early.ID)
 	}
-	if early.End != nil || !slices.Contains(early.Merged, late.ID) || !slices.Equal(early.Location, []string{"u.a", "u.b", "u.c", "u.d"}) {
+	if early.End != nil || !slices.Contains(early.Merged, late.ID) || !slices.Equal(early.Location, []string{"u.a", "u.b", "u.c", "u.d", "u.e"}) {
 		t.Errorf("earlier incident: end %v merged %v location %v", early.End, early.Merged, early.Location)
 	}
 }

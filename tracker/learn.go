@@ -112,12 +112,14 @@ func (t *Tracker) learnFrame(dst *Score, x []float64, mask []bool) ([]float64, f
 // (K the conditional covariance, z units; the reconstruction error is
 // uncorrelated with the observed channels, so their cross terms need
 // nothing). The update C ← (1 − α)(C + αddᵀ) thus gets α·K_mn·σ_mσ_n
-// added before it. The covariance's batch of pending frames is scaled by
-// this frame's (1 − α) as well, an error of at most Batch·α relative on
-// the correction.
+// added before it. The pending batch is folded in first (EW.Flush), so
+// that the result does not depend on where a batch starts (a restart from
+// a checkpoint flushes it): learning around an incident costs one rank-1
+// update per frame instead of one rank-B update per B frames.
 func (t *Tracker) addConditional(pt *pattern, mask []bool, wt float64) {
 	e := t.ew
 	k, n := len(pt.miss), e.p
+	e.Flush()
 	for x, i := range pt.miss {
 		if !mask[i] || !t.obs[i] {
 			continue
@@ -152,4 +154,27 @@ func huberWeight(r, k float64) float64 {
 		return 1
 	}
 	return k / math.Sqrt(r)
+}
+
+// Recentre moves the EW means of the channels set in which (len p)
+// towards their values in x (channel units; a non-finite value leaves the
+// channel as it is) as the k-th of a run of frames (k ≥ 1):
+//
+//	μᵢ ← μᵢ + (xᵢ − μᵢ)/k
+//
+// so k = 1, 2, …, n over n consecutive frames leaves μᵢ at the plain mean
+// of those n readings. Variances and covariances are kept: the model takes
+// the current level of those channels as their normal. It is the engine's
+// step when an incident is accepted as the plant's new normal (a setpoint
+// moved); with a long half-life the means would otherwise take days to
+// follow. It allocates nothing.
+func (t *Tracker) Recentre(x []float64, which []bool, k int) {
+	if len(x) != t.p || len(which) != t.p || k < 1 {
+		panic("tracker: Recentre: length mismatch or k < 1")
+	}
+	for i, w := range which {
+		if w && !math.IsNaN(x[i]) && !math.IsInf(x[i], 0) && t.ew.count[i] > 0 {
+			t.ew.mean[i] += (x[i] - t.ew.mean[i]) / float64(k)
+		}
+	}
 }

@@ -1,8 +1,11 @@
 package pipeline
 
 import (
+	"math"
 	"slices"
 	"sync"
+
+	"modewatch/alerts"
 )
 
 // Learning around incidents and incident locations: the engine's side.
@@ -15,9 +18,10 @@ import (
 
 // maskBox holds one unit's mask as the alarm engine last set it.
 type maskBox struct {
-	mu  sync.Mutex
-	ver uint64
-	ch  []string
+	mu       sync.Mutex
+	ver      uint64
+	ch       []string
+	recentre []string // accepted channels whose current level becomes normal at the next frame
 }
 
 // masks maps unit names to their boxes.
@@ -53,9 +57,41 @@ func (l learning) Mask(unit string, channels []string) {
 	b.mu.Unlock()
 }
 
+// Accept implements alerts.Accepting: the unit's next frame recentres the
+// channels on their current level (tracker.Recentre).
+func (l learning) Accept(unit string, channels []string) {
+	if l.p.opt.Fit {
+		return
+	}
+	b := l.p.masks.box(unit)
+	b.mu.Lock()
+	b.recentre = append(b.recentre, channels...)
+	b.ver++
+	b.mu.Unlock()
+}
+
+// recentreFrames is the number of frames whose mean becomes the new
+// normal level of an accepted incident's channels (tracker.Recentre): the
+// level then carries σ/√30 of noise, 0.18σ (design choice).
+const recentreFrames = 30
+
 // learnMask returns the mask the unit's next frame is learned with (nil:
-// none), rebuilt only when the engine changed it or the unit grew.
+// none), rebuilt only when the engine changed it or the unit grew, and
+// recentres the channels of an incident just accepted over the first
+// recentreFrames frames after the acceptance.
 func (u *Unit) learnMask() []bool {
+	m := u.learnMaskOnly()
+	if u.recentK < recentreFrames && len(u.recent) == len(u.x) {
+		u.recentK++
+		u.tr.Recentre(u.x, u.recent, u.recentK)
+		if u.recentK == recentreFrames {
+			clear(u.recent)
+		}
+	}
+	return m
+}
+
+func (u *Unit) learnMaskOnly() []bool {
 	if u.mbox == nil {
 		u.mbox = u.p.masks.box(u.Name)
 	}
@@ -72,6 +108,16 @@ func (u *Unit) learnMask() []bool {
 	if len(u.mask) != len(u.names) {
 		u.mask = make([]bool, len(u.names))
 	}
+	if len(b.recentre) > 0 {
+		if len(u.recent) != len(u.names) {
+			u.recent = make([]bool, len(u.names))
+		}
+		for k, n := range u.names {
+			u.recent[k] = u.recent[k] || slices.Contains(b.recentre, n)
+		}
+		u.recentK = 0
+		b.recentre = b.recentre[:0]
+	}
 	u.masked = false
 	for k, n := range u.names {
 		u.mask[k] = slices.Contains(b.ch, n)
@@ -83,9 +129,17 @@ func (u *Unit) learnMask() []bool {
 	return u.mask
 }
 
-// location appends to dst the names of the frame's location: the ranked
-// contributors over their own RBC limits, widened by the supports of the
-// modes that hold them. It allocates only when the unit grew.
+// Location of a frame: its leading contributors (alerts.IsLeading: the
+// first alerts.LeadCount ranked channels over their own RBC limits and near
+// the first one), widened by the channels that
+// move with them, i.e. the support of each mode holding a leading channel,
+// restricted to loadings of at least widenShare of the mode's largest (a
+// sparse mode whose cardinality exceeds its group of sensors carries a
+// few near-zero loadings from elsewhere).
+const widenShare = 0.3
+
+// location appends to dst the names of the frame's location (see
+// above). It allocates only when the unit grew.
 func (u *Unit) location(dst []string) []string {
 	s := &u.score
 	if len(u.locMark) != len(u.names) {
@@ -99,15 +153,31 @@ func (u *Unit) location(dst []string) []string {
 		}
 	}
 	ms := u.tr.Modes()
+	lead, first := 0, 0.0
 	for _, c := range s.Contrib {
-		if !(c.RBCLimit > 0 && c.RBC > c.RBCLimit) {
+		if lead == alerts.LeadCount {
+			break
+		}
+		if !alerts.IsLeading(c.RBC, c.RBCLimit, first) {
 			continue
 		}
+		if lead == 0 {
+			first = c.RBC
+		}
+		lead++
 		add(c.Channel)
 		for _, id := range c.Modes {
 			for j := 0; j < ms.Count(); j++ {
-				if m := ms.Mode(j); m.ID == id {
-					for _, i := range m.Support {
+				m := ms.Mode(j)
+				if m.ID != id {
+					continue
+				}
+				big := 0.0
+				for _, i := range m.Support {
+					big = max(big, math.Abs(m.Loadings[i]))
+				}
+				for _, i := range m.Support {
+					if math.Abs(m.Loadings[i]) >= widenShare*big {
 						add(i)
 					}
 				}

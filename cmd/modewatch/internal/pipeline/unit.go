@@ -73,13 +73,15 @@ type Unit struct {
 	mask    []bool // channels learned as their reconstruction
 	masked  bool   // some channel of mask is set
 	locMark []bool // scratch of location
+	recent  []bool // channels being recentred after an acceptance
+	recentK int    // frames of the recentring done (recentreFrames: none pending)
 
 }
 
 func newUnit(p *Pipeline, name string) *Unit {
 	m := p.cfg.ModelFor(name)
 	u := &Unit{Name: name, p: p, model: m, fixed: m.Adapt != nil && !*m.Adapt,
-		equal: p.opt.Fit && !p.opt.FitHalfLife}
+		equal: p.opt.Fit && !p.opt.FitHalfLife, recentK: recentreFrames}
 	switch i := p.cfg.Unit(name); {
 	case p.isAuto(name):
 		if p.opt.Fit {
