@@ -196,7 +196,7 @@ func (e *Engine) snapshotOf(us []*unit, only string) *snapshot {
 			su.Extra = append(su.Extra, inc.id)
 			incs[inc] = true
 		}
-		if nl := snapAlarmOf(&u.loc.newLoc); nl.State != Normal || nl.Window != 0 {
+		if nl := snapAlarmOf(&u.loc.newLoc); State(nl.State) != Normal || nl.Window != 0 {
 			su.NewLoc = &nl
 		}
 		for k, q := range u.quality {
