@@ -280,6 +280,11 @@ type Model struct {
 	Limits Limits `yaml:"limits"`
 	// RefreshEvery frames the sparse modes are refreshed. Default 64.
 	RefreshEvery int `yaml:"refresh_every"`
+	// Robust is the Huber constant of the bounded-influence learning
+	// weight: a frame whose distance √(φ/φ_limit) exceeds it is learned
+	// with weight robust/distance. Zero: the tracker's default; negative:
+	// every frame learned with full weight.
+	Robust float64 `yaml:"robust"`
 	// WarmUp frames are learned before scores are reported. Default 500.
 	WarmUp int `yaml:"warmup"`
 	// File is a fitted model (from "modewatch fit") to start from.
@@ -319,7 +324,8 @@ type Alerts struct {
 	// AcceptAfter is the bounded hold: an incident whose statistics stay
 	// flat (no growth) this long of plant time is taken as the new normal
 	// and its channels are learned again. Zero: the alarm engine's default
-	// (8h, chosen on the realism suite); negative: never.
+	// (8h, chosen on the realism suite); a very long one (8760h) in effect
+	// never.
 	AcceptAfter time.Duration `yaml:"accept_after"`
 }
 
@@ -466,6 +472,9 @@ func DefaultAlerts() Alerts {
 func (m Model) Over(base Model) Model {
 	if m.Sparsity == "" {
 		m.Sparsity = base.Sparsity
+	}
+	if m.Robust == 0 {
+		m.Robust = base.Robust
 	}
 	if m.Modes.IsZero() {
 		m.Modes = base.Modes

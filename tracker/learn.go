@@ -3,9 +3,9 @@ package tracker
 import "math"
 
 // DefaultRobust is the default Huber constant of Config.Robust: frames
-// within 1.5 times the φ limit's distance are learned with full weight
-// (chosen with the realism suite; see the README's Validation).
-const DefaultRobust = 1.5
+// within 3 times the φ limit's distance are learned with full weight.
+// Chosen on the realism suite and the demo together (README, Validation).
+const DefaultRobust = 3
 
 // learnWork is the scratch of the learning pass, sized in New.
 type learnWork struct {

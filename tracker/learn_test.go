@@ -73,8 +73,9 @@ func median(v []float64) float64 {
 }
 
 // TestHuberWeight checks the weight against Huber's ψ(d)/d = min(1, k/d)
-// (Huber 1964) and that a gross outlier moves the learned mean by the
-// weight's share only.
+// (Huber 1964) and that a gross outlier (50σ on one channel, about 15
+// times the distance of the φ limit) moves the learned mean by the
+// weight's share only (k/d ≈ 0.2 at the default k = 3).
 func TestHuberWeight(t *testing.T) {
 	for _, c := range []struct{ r, k, want float64 }{
 		{0.5, 1.5, 1}, {2.25, 1.5, 1}, {9, 1.5, 0.5}, {100, 1, 0.1}, {100, -1, 1},
@@ -98,14 +99,14 @@ func TestHuberWeight(t *testing.T) {
 		src.frame(x)
 		x[0] += 50 * src.sd[0]
 		tr.Step(&sc, x, nil)
-		if robust > 0 && !(sc.LearnWeight < 0.2) {
+		if robust > 0 && !(sc.LearnWeight < 0.25) {
 			t.Errorf("a 50σ frame was learned with weight %v", sc.LearnWeight)
 		}
 		return math.Abs(tr.Stats().Mean(0)-m0) / src.sd[0]
 	}
 	full, robust := move(-1), move(DefaultRobust)
 	t.Logf("a 50σ frame moves the mean by %.4fσ learned fully, %.4fσ with the Huber weight", full, robust)
-	if robust > 0.2*full {
+	if robust > 0.25*full {
 		t.Errorf("down-weighting: %.4fσ vs %.4fσ", robust, full)
 	}
 }
@@ -115,13 +116,8 @@ func TestHuberWeight(t *testing.T) {
 // into preallocated storage).
 func TestStepMaskedAllocs(t *testing.T) {
 	const p = 30
-	tr, src := newStream(t, p, Config{Period: time.Second, HalfLife: time.Hour, WarmUp: 80, RefreshEvery: 8, Batch: 4,
-		Modes: modes.Config{Count: 4, Sparsity: []modes.Sparsity{{Method: modes.L0, K: 6}}}})
-	var sc Score
-	xs := src.frames(64, p)
-	for k := 0; k < 200; k++ {
-		tr.Step(&sc, xs[k%64], nil)
-	}
+	tr, xs, scp := allocTracker(t)
+	sc := *scp
 	mask := make([]bool, p)
 	mask[2], mask[9] = true, true
 	sc.Missing = make([]int, 0, p)

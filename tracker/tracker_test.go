@@ -655,7 +655,9 @@ func TestStepMissing(t *testing.T) {
 // with a new missing pattern after warm-up (STYLE.md; testing.AllocsPerRun).
 // Only the first incomplete frame in the tracker's life allocates (the p × p
 // factor buffer), done here before the measurements.
-func TestStepAllocs(t *testing.T) {
+// allocTracker returns a 30-channel tracker that refreshes every 8 frames,
+// warmed up on 200 frames, and 64 frames to cycle through.
+func allocTracker(t *testing.T) (*Tracker, [][]float64, *Score) {
 	const p = 30
 	tr, src := newStream(t, p, Config{Period: time.Second, HalfLife: time.Hour, WarmUp: 80, RefreshEvery: 8, Batch: 4,
 		Modes: modes.Config{Count: 4, Sparsity: []modes.Sparsity{{Method: modes.L0, K: 6}}}})
@@ -664,6 +666,13 @@ func TestStepAllocs(t *testing.T) {
 	for k := 0; k < 200; k++ {
 		tr.Step(&sc, xs[k%64], nil)
 	}
+	return tr, xs, &sc
+}
+
+func TestStepAllocs(t *testing.T) {
+	const p = 30
+	tr, xs, scp := allocTracker(t)
+	sc := *scp
 	miss := make([]bool, p)
 	miss[4] = true
 	tr.Step(&sc, xs[0], miss)

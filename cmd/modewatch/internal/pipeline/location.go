@@ -81,6 +81,12 @@ const recentreFrames = 30
 // recentreFrames frames after the acceptance.
 func (u *Unit) learnMask() []bool {
 	m := u.learnMaskOnly()
+	if u.fixed {
+		// A model held fixed (adapt=false) learns nothing, not even an
+		// accepted new normal.
+		u.recentK = recentreFrames
+		return nil
+	}
 	if u.recentK < recentreFrames && len(u.recent) == len(u.x) {
 		u.recentK++
 		u.tr.Recentre(u.x, u.recent, u.recentK)

@@ -43,6 +43,7 @@ func TrackerConfig(m configs.Model, period time.Duration, p int, equal bool) (tr
 		Alpha:        m.Alpha,
 		RefreshEvery: m.RefreshEvery,
 		WarmUp:       m.WarmUp,
+		Robust:       m.Robust,
 		Modes: modes.Config{
 			Sparsity: []modes.Sparsity{sp},
 			Count:    min(m.Modes.Count, p),
