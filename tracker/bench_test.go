@@ -229,14 +229,20 @@ func decodeFrame(buf []byte) (int, float64) {
 // as model/decode, and the median over refresh periods (64 frames) of the
 // per-period ratio. Interleaving exposes both to the same machine load; the
 // bar of issue 3 is model/decode ≤ 1.
-func BenchmarkFrameOverDecode(b *testing.B) { benchOverDecode(b, -1) }
+func BenchmarkFrameOverDecode(b *testing.B) { benchOverDecode(b, -1, false) }
 
 // BenchmarkFrameMissingOverDecode is BenchmarkFrameOverDecode with channel
 // 7, part of the model, missing in every timed frame (see
 // BenchmarkFrameMissing).
-func BenchmarkFrameMissingOverDecode(b *testing.B) { benchOverDecode(b, 7) }
+func BenchmarkFrameMissingOverDecode(b *testing.B) { benchOverDecode(b, 7, false) }
 
-func benchOverDecode(b *testing.B, missing int) {
+// BenchmarkFrameMaskedOverDecode is BenchmarkFrameOverDecode while an
+// incident is open: StepMasked learns channels 3, 7 and 11 as their
+// reconstruction in every timed frame (and folds the covariance batch in
+// every frame, see addConditional).
+func BenchmarkFrameMaskedOverDecode(b *testing.B) { benchOverDecode(b, -1, true) }
+
+func benchOverDecode(b *testing.B, missing int, masked bool) {
 	const p = 500
 	buf := lineFrame(p)
 	var sc Score
@@ -245,6 +251,11 @@ func benchOverDecode(b *testing.B, missing int) {
 	if missing >= 0 {
 		miss = make([]bool, p)
 		miss[missing] = true
+	}
+	var mask []bool
+	if masked {
+		mask = make([]bool, p)
+		mask[3], mask[7], mask[11] = true, true, true
 	}
 	var tDec, tModel, bDec, bModel time.Duration
 	var ratios []float64
@@ -256,7 +267,7 @@ func benchOverDecode(b *testing.B, missing int) {
 		t0 := time.Now()
 		n, s := decodeFrame(buf)
 		t1 := time.Now()
-		tr.Step(&sc, frames[i%256], miss)
+		tr.StepMasked(&sc, frames[i%256], miss, mask)
 		t2 := time.Now()
 		if n != p {
 			b.Fatalf("decoded %d values", n)

@@ -143,6 +143,21 @@ func (e *EW) step(k float64) float64 {
 	return a
 }
 
+// pendingDecay returns Π √(1 − αₖ) over the frames of the batch not yet
+// folded into the covariance, for channel i: the factor Flush scales row
+// and column i of C by (Dᵢ in the comment of EW).
+func (e *EW) pendingDecay(i int) float64 {
+	d := 1.0
+	for k := 0; k < e.nb; k++ {
+		a := e.alphas[k]
+		if math.IsNaN(a) {
+			a = e.al[i*e.ldb+k]
+		}
+		d *= math.Sqrt(1 - a)
+	}
+	return d
+}
+
 // wstep is the step of weight w: α·w, except the first frame's α = 1.
 func (e *EW) wstep(k, w float64) float64 {
 	a := e.step(k)

@@ -112,26 +112,28 @@ func (t *Tracker) learnFrame(dst *Score, x []float64, mask []bool) ([]float64, f
 // (K the conditional covariance, z units; the reconstruction error is
 // uncorrelated with the observed channels, so their cross terms need
 // nothing). The update C ← (1 − α)(C + αddᵀ) thus gets α·K_mn·σ_mσ_n
-// added before it. The pending batch is folded in first (EW.Flush), so
-// that the result does not depend on where a batch starts (a restart from
-// a checkpoint flushes it): learning around an incident costs one rank-1
-// update per frame instead of one rank-B update per B frames.
+// added before it. The covariance still holds the batch of frames not yet
+// folded in (see EW.Flush), which will scale C by their decays; the term
+// is divided by those decays (EW.pendingDecay) so that it ends scaled by
+// this frame's and the later frames' only, as if the batch had been
+// folded in first. The batch is left as it is, so a checkpoint (which
+// stores it) restores the same numbers.
 func (t *Tracker) addConditional(pt *pattern, mask []bool, wt float64) {
 	e := t.ew
 	k, n := len(pt.miss), e.p
-	e.Flush()
 	for x, i := range pt.miss {
 		if !mask[i] || !t.obs[i] {
 			continue
 		}
 		a := e.wstep(e.count[i]+1, wt)
 		si := math.Sqrt(e.vari[i])
+		di := e.pendingDecay(i)
 		for y, j := range pt.miss {
 			if !mask[j] || !t.obs[j] || j < i {
 				continue
 			}
 			c := a * pt.kc[x*k+y] * si * math.Sqrt(e.vari[j])
-			e.cov.Data[i*n+j] += c
+			e.cov.Data[i*n+j] += c / (di * e.pendingDecay(j))
 			if i == j {
 				e.vari[i] += c
 			}

@@ -135,3 +135,42 @@ func TestStepMaskedAllocs(t *testing.T) {
 		t.Errorf("200 masked frames (25 refreshes) made %d allocations", d)
 	}
 }
+
+// TestConditionalWithBatch: the conditional-covariance term added while
+// frames wait in the covariance batch ends up as if the batch had been
+// folded in first (EW.pendingDecay): two trackers fed the same masked
+// frames, one flushing its batch before every frame, hold the same
+// covariance to rounding.
+func TestConditionalWithBatch(t *testing.T) {
+	const p = 12
+	cfg := Config{Period: time.Second, HalfLife: 10 * time.Minute, Batch: 16, Modes: modes.Config{Count: 3}, FlatFrames: -1}
+	a, src := newStream(t, p, cfg)
+	b, _ := newStream(t, p, cfg)
+	var sa, sb Score
+	x := make([]float64, p)
+	mask := make([]bool, p)
+	mask[2], mask[5] = true, true
+	for k := 0; k < 900; k++ {
+		src.frame(x)
+		if k > 300 {
+			x[2] += 3 * src.sd[2]
+		}
+		if err := a.StepMasked(&sa, x, nil, mask); err != nil {
+			t.Fatal(err)
+		}
+		b.ew.Flush()
+		if err := b.StepMasked(&sb, x, nil, mask); err != nil {
+			t.Fatal(err)
+		}
+	}
+	a.ew.Flush()
+	b.ew.Flush()
+	worst := 0.0
+	for i, v := range a.ew.cov.Data {
+		w := b.ew.cov.Data[i]
+		worst = math.Max(worst, math.Abs(v-w)/math.Max(math.Abs(w), 1e-300))
+	}
+	if worst > 1e-9 {
+		t.Errorf("covariances differ by %g relative", worst)
+	}
+}
