@@ -175,7 +175,9 @@ func freezeOnAlert(t *testing.T, around bool) {
 			f.Values[i] += 50 * math.Sqrt(vars[k]) * float64(1-2*(k%2))
 		}
 	}
-	for k := 1; k <= 10; k++ {
+	// 30 frames: a channel joins an open incident's location after leading
+	// 10 frames (an incident may be open in air before the fault).
+	for k := 1; k <= 30; k++ {
 		f.Start = last.Add(time.Duration(k) * 20 * time.Second)
 		if err := res.Pipeline.Frame(f); err != nil {
 			t.Fatal(err)
@@ -199,7 +201,7 @@ func freezeOnAlert(t *testing.T, around bool) {
 		// The fault goes on: learning around it, scoring and the alarm
 		// engine's attribution allocate nothing per frame.
 		// (The readings wobble a little so no channel flat-lines.)
-		k := 11
+		k := 31
 		base := slices.Clone(f.Values)
 		if a := testing.AllocsPerRun(50, func() {
 			f.Start = last.Add(time.Duration(k) * 20 * time.Second)
