@@ -482,7 +482,8 @@ func (s *snapLoc) restore() *locState {
 
 // restoreLocations restores u's open model incidents after the first and
 // the on-delay of a new location from su. A model incident without a
-// location (a version-1 snapshot) is located at its contributors.
+// location (a version-1 snapshot) is located at its contributors over
+// their own limits (with none, at the next frame that has some).
 func (e *Engine) restoreLocations(u *unit, su snapUnit, lookup func(string) (*incident, error)) error {
 	for _, id := range su.Extra {
 		inc, err := lookup(id)
@@ -506,7 +507,9 @@ func (e *Engine) restoreLocations(u *unit, su snapUnit, lookup func(string) (*in
 			inc.loc = &locState{lastSupport: u.last}
 			inc.loc.hold.start(u.last)
 			for _, c := range inc.contrib {
-				inc.loc.add([]string{c.Channel})
+				if c.RBCLimit > 0 && c.RBC > c.RBCLimit {
+					inc.loc.add([]string{c.Channel})
+				}
 			}
 		}
 	}

@@ -1,6 +1,8 @@
 package alerts
 
 import (
+	"bytes"
+	"encoding/json"
 	"slices"
 	"strings"
 	"sync"
@@ -283,4 +285,53 @@ func keys(m map[string]*Record) []string {
 	}
 	slices.Sort(out)
 	return out
+}
+
+// TestRestoreVersion1: a snapshot written before incidents per location
+// (version 1, no locations) still restores; its open model incident is
+// located at its contributors and attributes the next frames.
+func TestRestoreVersion1(t *testing.T) {
+	h, _ := locHarness(t, Config{})
+	for at := 0.0; at < 30; at++ {
+		h.frame(at, 3, []string{"u.a", "u.b"}, "u.a", "u.b")
+	}
+	var buf strings.Builder
+	if err := h.e.Snapshot(&buf); err != nil {
+		t.Fatal(err)
+	}
+	// Make it a version-1 snapshot: no version-2 fields.
+	var snap map[string]any
+	if err := json.Unmarshal([]byte(buf.String()), &snap); err != nil {
+		t.Fatal(err)
+	}
+	snap["version"] = 1
+	for _, inc := range snap["incidents"].([]any) {
+		delete(inc.(map[string]any), "location")
+	}
+	for _, u := range snap["units"].([]any) {
+		delete(u.(map[string]any), "extra_incidents")
+		delete(u.(map[string]any), "new_location")
+	}
+	old, _ := json.Marshal(snap)
+	h2, _ := locHarness(t, Config{})
+	if err := h2.e.Restore(bytes.NewReader(old)); err != nil {
+		t.Fatalf("version-1 snapshot refused: %v", err)
+	}
+	for at := 30.0; at < 40; at++ {
+		h2.frame(at, 3, []string{"u.a"}, "u.a")
+	}
+	var recs []Record
+	for _, r := range h2.e.Open(nil) {
+		if r.Group == GroupModel {
+			recs = append(recs, r)
+		}
+	}
+	if len(recs) != 1 || len(h2.modelRecords()) != 0 {
+		t.Fatalf("%d open incidents after the restore (%d new records), want the one carried on", len(recs), len(h2.modelRecords()))
+	}
+	for _, r := range recs {
+		if !slices.Equal(r.Location, []string{"u.a", "u.b"}) {
+			t.Errorf("restored incident located at %v, want its contributors", r.Location)
+		}
+	}
 }
