@@ -11,31 +11,38 @@ import (
 // A unit's model statistics (T², SPE, φ) are one alarm per unit, but a unit
 // may hold several faults at once in different equipment. Each model
 // incident therefore has a location: the channels given in
-// Observation.Location when it opened (the channels whose contributions
-// exceed their own limits, widened by the supports of the modes that hold
-// them; computed by the caller, which knows the model). While the unit is
-// in alarm, every frame is attributed by its leading contributors (the
-// first LeadCount ranked channels over their own limits, see LeadShare):
+// Observation.Location when it opened (the frame's leading channels,
+// widened by the channels the modes holding them move with; computed by
+// the caller, which knows the model). While the unit is in alarm, every
+// frame is attributed by its leading contributors (the first LeadCount
+// ranked channels over their own limits and near the first, see
+// LeadShare):
 //
-//   - leading channels inside one open incident's location support it: its
-//     peaks and contributors are updated from the frame, and its location
-//     grows by the frame's location;
-//   - leading channels all outside every open location count towards the
-//     on-delay of a new incident (the unit's own on-delay rule, OnCount of
-//     OnWindow such frames); when it is met a new incident opens, with its
-//     own id and record, located at the frame's channels that no open
-//     incident holds;
-//   - leading channels in two incidents' locations, or a location that
-//     grows into another's, merge the later incident into the earlier one:
-//     the later closes with end reason EndMerged and MergedInto set, the
-//     earlier lists it in Merged and takes its location.
+//   - a frame whose first leading channel lies in an open incident's
+//     location supports that incident: its peaks and contributors are
+//     updated from the frame;
+//   - a frame whose first leading channel lies outside every open location
+//     counts towards the on-delay of a new incident (the unit's own
+//     on-delay rule, OnCount of OnWindow such frames, so a second fault is
+//     reported with the same delay as on a quiet unit); when it is met a
+//     new incident opens, with its own id and record, located at the
+//     frame's channels that no open incident holds;
+//   - a leading channel outside every location that leads growFrames
+//     frames of one incident grows that incident's location by the frame's
+//     location; a location that grows into another's merges the later
+//     incident into the earlier one: the later closes with end reason
+//     EndMerged and MergedInto set, the earlier lists it in Merged and
+//     takes its location;
+//   - a frame without a leading channel supports the unit's first
+//     incident (which, opened without one, is located by the first frame
+//     that has one).
 //
 // An incident whose location has had no channel over its limit for
-// Rules.LocationQuiet while the unit stays in alarm ends (EndReturned); all
-// of them end when the unit's statistics return to normal. Floods count
-// every new incident; chattering stays a property of the unit's model
-// alarm (the first incident). Rules.SingleIncident restores one model
-// incident per unit.
+// Rules.LocationQuiet while the unit stays in alarm ends (EndReturned, or
+// EndNewNormal once accepted); all of them end when the unit's statistics
+// return to normal. Floods count every new incident; chattering stays a
+// property of the unit's model alarm (the first incident).
+// Rules.SingleIncident restores one model incident per unit.
 
 // End reasons of model incidents (besides EndReturned).
 const (
@@ -60,9 +67,6 @@ const (
 	LeadCount = 3
 	LeadShare = 0.25
 )
-
-// leadCount is LeadCount, for array sizes.
-const leadCount = LeadCount
 
 // DefaultLocationQuiet is how long an incident's location may go without
 // a channel over its own contribution limit, while the unit stays in
@@ -158,13 +162,13 @@ func frameLocation(o *Observation, lead []string) []string {
 	return lead
 }
 
-// leading appends to dst the channels of the first leadCount contributors
+// leading appends to dst the channels of the first LeadCount contributors
 // of o that exceed their own limit.
 func leading(dst []string, o *Observation) []string {
 	top := 0.0
 	for i := range o.Contributors {
 		c := &o.Contributors[i]
-		if len(dst) == leadCount {
+		if len(dst) == LeadCount {
 			break
 		}
 		if IsLeading(c.RBC, c.Limit, top) {
@@ -187,7 +191,7 @@ func IsLeading(rbc, lim, first float64) bool {
 
 // locate sets the location of a model incident opening on frame o.
 func (e *Engine) locate(inc *incident, o *Observation, t time.Time) {
-	var buf [leadCount]string
+	var buf [LeadCount]string
 	lead := leading(buf[:0], o)
 	inc.loc = &locState{lastSupport: t}
 	inc.loc.add(frameLocation(o, lead))
@@ -206,7 +210,7 @@ func (e *Engine) stepLocations(u *unit, o *Observation, t time.Time) {
 		}
 		return
 	}
-	var buf [leadCount]string
+	var buf [LeadCount]string
 	lead := leading(buf[:0], o)
 	all := u.modelIncidents()
 	// The first leading channel attributes the frame.
