@@ -285,6 +285,10 @@ type Model struct {
 	// with weight robust/distance. Zero: the tracker's default; negative:
 	// every frame learned with full weight.
 	Robust float64 `yaml:"robust"`
+	// ScoreLag: each frame is learned this long (plant time) after it was
+	// scored, so a slow drift is scored against a model that has not yet
+	// followed it (N-step-ahead scoring). Default 0.
+	ScoreLag time.Duration `yaml:"score_lag"`
 	// WarmUp frames are learned before scores are reported. Default 500.
 	WarmUp int `yaml:"warmup"`
 	// File is a fitted model (from "modewatch fit") to start from.
@@ -475,6 +479,9 @@ func (m Model) Over(base Model) Model {
 	}
 	if m.Robust == 0 {
 		m.Robust = base.Robust
+	}
+	if m.ScoreLag == 0 {
+		m.ScoreLag = base.ScoreLag
 	}
 	if m.Modes.IsZero() {
 		m.Modes = base.Modes

@@ -12,7 +12,7 @@ import (
 // ErrCheckpoint reports a checkpoint that cannot be restored.
 var ErrCheckpoint = errors.New("tracker: bad checkpoint")
 
-// Checkpoint format, version 2. All integers and floats little-endian:
+// Checkpoint format, version 3. All integers and floats little-endian:
 //
 //	"MWTK" | u16 version | u32 p | u64 config fingerprint (FNV-1a)
 //	u8 flags (1 ready, 2 frozen, 4 baseline, 8 calibrated)
@@ -27,17 +27,20 @@ var ErrCheckpoint = errors.New("tracker: bad checkpoint")
 //	model: p × u8 included | f64 n_eff | p(p+1)/2 × f64 correlation A (upper)
 //	       (model present only when ready)
 //	cal:   6 × f64 (T², SPE, φ limits and their scales)
+//	lag:   u32 n | n × (f64 ratio | p × f64 values | p × u8 flags)       [v3]
+//	       frames scored, not yet learned (Config.Lag), oldest first
 //	modes: u32 n | n bytes of modes.Tracker.MarshalBinary
 //	u32 CRC-32 (IEEE) of everything before
 //
-// Version 1 (no p0, no per-channel steps) is still read.
+// Versions 1 (no p0, no per-channel steps) and 2 (no lag section) are
+// still read.
 //
 // The model snapshot (loadings, limits, per-channel data) is recomputed on
 // restore from A and the restored modes by the same code as at the refresh,
 // so it is bit-identical.
 const (
 	ckMagic   = "MWTK"
-	ckVersion = 2
+	ckVersion = 3
 )
 
 // fingerprint hashes the configuration fields that shape the state.
@@ -53,6 +56,8 @@ func (t *Tracker) fingerprint() uint64 {
 	for _, s := range mc.Sparsity {
 		fmt.Fprintf(h, "%s;", s)
 	}
+	// Lag and Robust are left out: they shape how frames are learned, not
+	// the state (a checkpoint's lag frames are checked against the ring).
 	return h.Sum64()
 }
 
@@ -137,6 +142,19 @@ func (t *Tracker) MarshalBinary() ([]byte, error) {
 	for _, v := range []float64{t.calT2, t.calSPE, t.calPhi, t.calScale[0], t.calScale[1], t.calScale[2]} {
 		f64(v)
 	}
+	if l := t.lag; l != nil {
+		b = le.AppendUint32(b, uint32(l.n))
+		for k := 0; k < l.n; k++ {
+			s := (l.head + k) % l.size
+			f64(l.ratio[s])
+			for _, v := range l.x[s*p : (s+1)*p] {
+				f64(v)
+			}
+			b = append(b, l.flags[s*p:(s+1)*p]...)
+		}
+	} else {
+		b = le.AppendUint32(b, 0)
+	}
 	b = le.AppendUint32(b, uint32(len(mb)))
 	b = append(b, mb...)
 	b = le.AppendUint32(b, crc32.ChecksumIEEE(b))
@@ -212,8 +230,8 @@ func (t *Tracker) UnmarshalBinary(data []byte) error {
 		return bad("not a tracker checkpoint (magic %q)", data[:4])
 	}
 	version := binary.LittleEndian.Uint16(data[4:])
-	if version != 1 && version != ckVersion {
-		return bad("version %d, this build reads versions 1 and %d", version, ckVersion)
+	if version < 1 || version > ckVersion {
+		return bad("version %d, this build reads versions 1 to %d", version, ckVersion)
 	}
 	body := data[:len(data)-4]
 	if crc32.ChecksumIEEE(body) != binary.LittleEndian.Uint32(data[len(data)-4:]) {
@@ -291,6 +309,29 @@ func (t *Tracker) UnmarshalBinary(data []byte) error {
 	}
 	var cal [6]float64
 	r.floats(cal[:], "empirical limits")
+	nLag := 0
+	var lagX []float64
+	var lagFlags []byte
+	var lagRatio []float64
+	if version >= 3 {
+		nLag = int(r.u32("lag frames"))
+		size := 0
+		if t.lag != nil {
+			size = t.lag.size
+		}
+		if r.err == nil && (nLag < 0 || nLag > size) {
+			return bad("%d frames waiting to be learned, this tracker's lag is %d", nLag, size)
+		}
+		lagX, lagFlags, lagRatio = make([]float64, nLag*p), make([]byte, nLag*p), make([]float64, nLag)
+		for k := 0; k < nLag && r.err == nil; k++ {
+			lagRatio[k] = r.f64("lag ratio")
+			r.floats(lagX[k*p:(k+1)*p], "lag frame")
+			if r.need(p, "lag flags") {
+				copy(lagFlags[k*p:(k+1)*p], r.b[r.off:r.off+p])
+				r.off += p
+			}
+		}
+	}
 	nm := int(r.u32("modes length"))
 	var mb []byte
 	if r.need(nm, "modes") {
@@ -360,6 +401,12 @@ func (t *Tracker) UnmarshalBinary(data []byte) error {
 			}
 		}
 		t.install(nEff)
+	}
+	if l := t.lag; l != nil {
+		copy(l.x, lagX)
+		copy(l.flags, lagFlags)
+		copy(l.ratio, lagRatio)
+		l.head, l.n = 0, nLag
 	}
 	t.since = since
 	t.cal = flags&8 != 0

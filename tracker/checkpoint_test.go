@@ -177,9 +177,16 @@ func TestCheckpointVersion1(t *testing.T) {
 		t.Fatal(err)
 	}
 	// Header: magic 4, version 2, p 4, fingerprint 8, flags 1, frames 8,
-	// learned 8, since 4, then the u32 initial width (version 2 only).
+	// learned 8, since 4, then the u32 initial width (version 2 on). The
+	// u32 count of the lag section (version 3 on) sits before the modes.
 	const at = 4 + 2 + 4 + 8 + 1 + 8 + 8 + 4
-	v1 := append(bytes.Clone(ck[:at]), ck[at+4:len(ck)-4]...)
+	mb, err := tr.ms.MarshalBinary()
+	if err != nil {
+		t.Fatal(err)
+	}
+	lagAt := len(ck) - 4 - len(mb) - 4 - 4
+	v1 := append(bytes.Clone(ck[:at]), ck[at+4:lagAt]...)
+	v1 = append(v1, ck[lagAt+4:len(ck)-4]...)
 	binary.LittleEndian.PutUint16(v1[4:], 1)
 	v1 = binary.LittleEndian.AppendUint32(v1, crc32.ChecksumIEEE(v1))
 	tr2, err := New(p, cfg)

@@ -54,7 +54,14 @@ func (t *Tracker) StepMasked(dst *Score, x []float64, missing, mask []bool) erro
 	if t.frozen || t.baseline {
 		return nil
 	}
-	xl, wt, err := t.learnFrame(dst, x, mask)
+	r := ratio(dst.Phi, dst.PhiLimit)
+	if t.lag != nil {
+		var ok bool
+		if x, mask, r, ok = t.lag.swap(t, x, mask, r); !ok {
+			return nil // the ring is filling: nothing to learn yet
+		}
+	}
+	xl, wt, err := t.learnFrame(r, x, mask)
 	if err != nil {
 		return err
 	}
@@ -63,8 +70,10 @@ func (t *Tracker) StepMasked(dst *Score, x []float64, missing, mask []bool) erro
 }
 
 // learnFrame returns the frame to learn (x itself, or a copy with the
-// masked channels reconstructed) and its weight.
-func (t *Tracker) learnFrame(dst *Score, x []float64, mask []bool) ([]float64, float64, error) {
+// masked channels reconstructed) and its weight; r is the frame's φ over
+// its limit (the distance when no channel is masked). t.obs and t.stuck
+// hold the frame's flags.
+func (t *Tracker) learnFrame(r float64, x []float64, mask []bool) ([]float64, float64, error) {
 	if !t.ready {
 		return x, 1, nil
 	}
@@ -75,7 +84,6 @@ func (t *Tracker) learnFrame(dst *Score, x []float64, mask []bool) ([]float64, f
 			break
 		}
 	}
-	r := ratio(dst.Phi, dst.PhiLimit)
 	xl := x
 	if any {
 		lw := t.lw

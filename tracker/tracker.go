@@ -216,6 +216,12 @@ type Config struct {
 	// reduced models are cached between refreshes (default 16); each slot
 	// is preallocated in New (about 16·p + 3·p values).
 	PatternCache int
+	// Lag is the horizon of N-step-ahead scoring (Wang, Kruger & Irwin
+	// 2005): a frame is learned Lag frames after it was scored, so the
+	// model that scores frame t has learned frames up to t − Lag − 1 and a
+	// slow drift is scored against a model that has not yet followed it.
+	// Default 0 (learn each frame after scoring it).
+	Lag int
 	// Robust is the Huber constant k of the bounded-influence learning
 	// weight (see StepMasked): a frame whose distance d = √(φ/φ_lim) of
 	// the channels it is learned on exceeds k is learned with weight k/d.
@@ -302,6 +308,7 @@ type Tracker struct {
 	mdl  *model
 	w    *work
 	lw   *learnWork // scratch of the learning pass (learn.go)
+	lag  *lagRing   // frames waiting to be learned (Config.Lag; lag.go), nil without
 	ls   limitSpec
 	maxR int
 
@@ -366,6 +373,8 @@ func (c *Config) defaults(p int) error {
 		c.Robust = DefaultRobust
 	}
 	switch {
+	case c.Lag < 0 || c.Lag > MaxLag:
+		return fmt.Errorf("%w: Lag %d outside 0…%d frames", ErrConfig, c.Lag, MaxLag)
 	case c.RefreshEvery < 0, c.Batch < 0, c.WarmUp < 2, c.StuckRel < 0, c.TopContrib < 0, c.Ridge < 0, c.PatternCache < 0:
 		return fmt.Errorf("%w: RefreshEvery %d, Batch %d, WarmUp %d, StuckRel %v, TopContrib %d, Ridge %v, PatternCache %d",
 			ErrConfig, c.RefreshEvery, c.Batch, c.WarmUp, c.StuckRel, c.TopContrib, c.Ridge, c.PatternCache)
@@ -407,6 +416,7 @@ func New(p int, cfg Config) (*Tracker, error) {
 		mdl:   newModel(p, maxR, cfg.PatternCache),
 		w:     newWork(p, maxR),
 		lw:    newLearnWork(p, maxR),
+		lag:   newLagRing(p, cfg.Lag),
 		obs:   make([]bool, p),
 		last:  make([]float64, p),
 		run:   make([]int, p),
@@ -816,6 +826,7 @@ func (t *Tracker) Fit(frames [][]float64) error {
 	e.mu = t.ew.mu
 	t.ew = e
 	t.p0 = t.p // every channel is in every fit frame
+	t.lag.reset()
 	for i := range t.run {
 		t.run[i] = 0
 		t.last[i] = math.NaN()
@@ -974,6 +985,7 @@ func (t *Tracker) Grow(p2 int, cfg Config) error {
 	t.mdl = m2
 	t.w = newWork(p2, maxR)
 	t.lw = newLearnWork(p2, maxR)
+	t.lag = t.lag.grown(p2, cfg.Lag)
 	if cap(t.top) < cfg.TopContrib+1 {
 		t.top = make([]int, 0, cfg.TopContrib+1)
 	}

@@ -4,8 +4,11 @@ import (
 	"math"
 	"slices"
 	"sync"
+	"time"
 
 	"modewatch/alerts"
+	"modewatch/configs"
+	"modewatch/tracker"
 )
 
 // Learning around incidents and incident locations: the engine's side.
@@ -191,4 +194,18 @@ func (u *Unit) location(dst []string) []string {
 		}
 	}
 	return dst
+}
+
+// learnSettings sets how a unit's tracker learns from the configuration,
+// also for a unit started from a fitted model (whose file keeps only the
+// settings its state depends on): the Huber constant (model.robust) and,
+// except while fitting, the scoring lag (model.score_lag, in frames of
+// period).
+func (p *Pipeline) learnSettings(cfg *tracker.Config, m configs.Model, period time.Duration) {
+	m = m.Over(configs.DefaultModel())
+	cfg.Robust = m.Robust
+	cfg.Lag = 0
+	if !p.opt.Fit && m.ScoreLag > 0 && period > 0 {
+		cfg.Lag = int(m.ScoreLag / period)
+	}
 }

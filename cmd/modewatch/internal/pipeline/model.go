@@ -43,7 +43,6 @@ func TrackerConfig(m configs.Model, period time.Duration, p int, equal bool) (tr
 		Alpha:        m.Alpha,
 		RefreshEvery: m.RefreshEvery,
 		WarmUp:       m.WarmUp,
-		Robust:       m.Robust,
 		Modes: modes.Config{
 			Sparsity: []modes.Sparsity{sp},
 			Count:    min(m.Modes.Count, p),
@@ -252,6 +251,7 @@ func (p *Pipeline) buildFromModel(mu *ModelUnit, period time.Duration) (*Unit, e
 	if err != nil {
 		return nil, fmt.Errorf("%w: unit %s: %v", ErrModelFile, mu.Name, err)
 	}
+	p.learnSettings(&cfg, p.cfg.ModelFor(mu.Name), period)
 	tr, err := tracker.New(len(mu.Channels), cfg)
 	if err != nil {
 		return nil, fmt.Errorf("%w: unit %s: %v", ErrModelFile, mu.Name, err)

@@ -127,6 +127,7 @@ func (u *Unit) addChannel(i int, name string) bool {
 func (u *Unit) grow() {
 	p0, p2 := u.tr.P(), len(u.idx)
 	cfg, err := TrackerConfig(u.model, u.p.opt.Period, p2, u.equal)
+	u.p.learnSettings(&cfg, u.model, u.p.opt.Period)
 	if err == nil {
 		err = u.tr.Grow(p2, cfg)
 	}
@@ -160,6 +161,7 @@ func (u *Unit) Tracker() *tracker.Tracker { return u.tr }
 // build creates the tracker over the unit's current channels.
 func (u *Unit) build() error {
 	cfg, err := TrackerConfig(u.model, u.p.opt.Period, len(u.idx), u.equal)
+	u.p.learnSettings(&cfg, u.model, u.p.opt.Period)
 	if err != nil {
 		return fmt.Errorf("pipeline: unit %s: %w", u.Name, err)
 	}
