@@ -177,6 +177,7 @@ func (u *Unit) newState(key float64, t time.Time) int {
 		tr = u.tr // the unit's first tracker becomes its first state's
 	} else {
 		cfg, err := TrackerConfig(u.model, u.p.opt.Period, len(u.idx), u.equal)
+		u.p.learnSettings(&cfg, u.model, u.p.opt.Period)
 		if err == nil {
 			tr, err = tracker.New(len(u.idx), cfg)
 		}
@@ -205,6 +206,7 @@ func (u *Unit) switchState(i int) {
 	u.score, m.score = m.score, u.score
 	if p2 := len(u.idx); m.tr.P() < p2 {
 		if cfg, err := TrackerConfig(u.model, u.p.opt.Period, p2, u.equal); err == nil {
+			u.p.learnSettings(&cfg, u.model, u.p.opt.Period)
 			if err := m.tr.Grow(p2, cfg); err != nil {
 				u.p.log.Error("operating state's model cannot take the unit's new channels", "unit", u.Name, "err", err)
 			}
