@@ -166,16 +166,8 @@ func TestCheckpointBaseline(t *testing.T) {
 func TestCheckpointVersion1(t *testing.T) {
 	const p = 7
 	cfg := Config{Period: time.Second, HalfLife: 10 * time.Minute, WarmUp: 40, RefreshEvery: 8, Batch: 16, Modes: modes.Config{Count: 2}}
-	tr, src := newStream(t, p, cfg)
-	var sc Score
+	tr, src, ck := steppedTracker(t, p, cfg, 101)
 	x := make([]float64, p)
-	for k := 0; k < 101; k++ {
-		tr.Step(&sc, src.frame(x), nil)
-	}
-	ck, err := tr.MarshalBinary()
-	if err != nil {
-		t.Fatal(err)
-	}
 	// Header: magic 4, version 2, p 4, fingerprint 8, flags 1, frames 8,
 	// learned 8, since 4, then the u32 initial width (version 2 on). The
 	// u32 count of the lag section (version 3 on) sits before the modes.
@@ -205,4 +197,21 @@ func TestCheckpointVersion1(t *testing.T) {
 			t.Fatalf("frame %d: version 1 restore differs", k)
 		}
 	}
+}
+
+// steppedTracker returns a tracker of p channels that has stepped n frames
+// of its stream, the stream, and the tracker's checkpoint.
+func steppedTracker(t *testing.T, p int, cfg Config, n int) (*Tracker, *gaussSource, []byte) {
+	t.Helper()
+	tr, src := newStream(t, p, cfg)
+	var sc Score
+	x := make([]float64, p)
+	for k := 0; k < n; k++ {
+		tr.Step(&sc, src.frame(x), nil)
+	}
+	ck, err := tr.MarshalBinary()
+	if err != nil {
+		t.Fatal(err)
+	}
+	return tr, src, ck
 }

@@ -55,16 +55,8 @@ func TestLagCheckpoint(t *testing.T) {
 	const p = 9
 	cfg := Config{Period: time.Second, HalfLife: 10 * time.Minute, WarmUp: 40, RefreshEvery: 8, Batch: 16, Modes: modes.Config{Count: 2}, Lag: 25}
 	for _, n := range []int{10, 110} { // ring filling, ring full
-		tr, src := newStream(t, p, cfg)
-		var sc Score
+		tr, src, ck := steppedTracker(t, p, cfg, n)
 		x := make([]float64, p)
-		for k := 0; k < n; k++ {
-			tr.Step(&sc, src.frame(x), nil)
-		}
-		ck, err := tr.MarshalBinary()
-		if err != nil {
-			t.Fatal(err)
-		}
 		tr2, _ := New(p, cfg)
 		if err := tr2.UnmarshalBinary(ck); err != nil {
 			t.Fatal(err)
@@ -90,13 +82,7 @@ func TestLagCheckpoint(t *testing.T) {
 	}
 	// A lag of 0 writes no frames, and a checkpoint with waiting frames is
 	// refused by a tracker without lag.
-	tr, src := newStream(t, p, cfg)
-	var sc Score
-	x := make([]float64, p)
-	for k := 0; k < 10; k++ {
-		tr.Step(&sc, src.frame(x), nil)
-	}
-	ck, _ := tr.MarshalBinary()
+	_, _, ck := steppedTracker(t, p, cfg, 10)
 	c0 := cfg
 	c0.Lag = 0
 	tr0, _ := New(p, c0)
