@@ -19,15 +19,6 @@ import (
 
 // Defaults used by ApplyDefaults when the corresponding field is zero.
 const (
-	// DefaultListen is the HTTP API address: loopback only, port 7526.
-	// The port was chosen on 2026-12-04 after checking the IANA Service
-	// Name and Transport Protocol Port Number Registry (RFC 6335; a copy
-	// with entries up to 2025): 7526 lies in the unassigned block
-	// 7512-7541, with no unauthorised use noted. It also stays clear of
-	// the ports metrics software commonly takes (exporters 9100-9999,
-	// 9090, 3000, 8080-8081), of NATS (4222, 6222, 8222), and of the
-	// neighbouring defaults 7474, 7687 and 7580-7590.
-	DefaultListen             = "127.0.0.1:7526"
 	DefaultStateDir           = "modewatch-data"
 	DefaultPrefix             = "modewatch"
 	DefaultCheckpointInterval = 5 * time.Minute
@@ -370,13 +361,6 @@ type Delivery struct {
 	Queue int `yaml:"queue"`
 }
 
-// HTTP is the HTTP API.
-type HTTP struct {
-	// Listen address. Default [DefaultListen] (loopback only). "off"
-	// disables the API.
-	Listen string `yaml:"listen"`
-}
-
 // Log configures logging.
 type Log struct {
 	// Format: text or json. Default text.
@@ -415,9 +399,7 @@ func (c *Config) ApplyDefaults() {
 	if c.Delivery.Queue == 0 {
 		c.Delivery.Queue = DefaultDeliveryQueue
 	}
-	if c.HTTP.Listen == "" {
-		c.HTTP.Listen = DefaultListen
-	}
+	c.HTTP.applyDefaults()
 	if c.StateDir == "" {
 		c.StateDir = DefaultStateDir
 	}

@@ -444,6 +444,15 @@ func (c *Config) CheckFiles() error {
 	check("server.tls.cert", c.Server.TLS.Cert)
 	check("server.tls.key", c.Server.TLS.Key)
 	check("model.file", c.Model.File)
+	check("http.tls.cert", c.HTTP.TLS.Cert)
+	check("http.tls.key", c.HTTP.TLS.Key)
+	check("http.tls.client_ca", c.HTTP.TLS.ClientCA)
+	if c.HTTP.TokensFile != "" {
+		if _, err := ReadTokensFile(c.HTTP.TokensFile); err != nil {
+			file, line, col := c.Where("http.tokens_file")
+			errs = append(errs, &Error{File: file, Line: line, Column: col, Path: "http.tokens_file", Msg: err.Error()})
+		}
+	}
 	if c.Model.Limits.Method == LimitsEmpirical {
 		check("model.limits", c.Model.Limits.File)
 	}

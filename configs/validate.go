@@ -2,9 +2,7 @@ package configs
 
 import (
 	"fmt"
-	"net"
 	"net/url"
-	"strconv"
 	"strings"
 	"time"
 )
@@ -22,13 +20,7 @@ func (c *Config) Validate() error {
 	v.model("model", c.Model, false)
 	v.alerts("alerts", c.Alerts, false)
 	c.validateDelivery(v)
-	if c.HTTP.Listen != "" && c.HTTP.Listen != "off" {
-		if _, port, err := net.SplitHostPort(c.HTTP.Listen); err != nil {
-			v.add("http.listen", "%q is not host:port (e.g. %s)", c.HTTP.Listen, DefaultListen)
-		} else if p, err := strconv.Atoi(port); err != nil || p < 0 || p > 65535 {
-			v.add("http.listen", "port %q is not a number in 0..65535", port)
-		}
-	}
+	c.HTTP.validate(v)
 	if c.CheckpointInterval < 0 || (c.CheckpointInterval > 0 && c.CheckpointInterval < time.Second) {
 		v.add("checkpoint_interval", "%v is too short (at least 1s)", c.CheckpointInterval)
 	}

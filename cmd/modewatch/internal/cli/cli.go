@@ -112,7 +112,7 @@ type configError struct{ err error }
 func (e configError) Error() string { return e.err.Error() }
 func (e configError) Unwrap() error { return e.err }
 
-var topOrder = []string{"run", "fit", "replay", "demo", "sim", "check", "tune", "version"}
+var topOrder = []string{"run", "fit", "replay", "demo", "sim", "check", "token", "tune", "version"}
 
 func order(name string) int {
 	for i, n := range topOrder {

@@ -11,6 +11,7 @@ import (
 	"github.com/prometheus/client_golang/prometheus/promhttp"
 
 	"modewatch/alerts"
+	"modewatch/cmd/modewatch/internal/access"
 	"modewatch/cmd/modewatch/internal/pipeline"
 	"modewatch/stream/natsource"
 )
@@ -33,12 +34,16 @@ const Caution = "modewatch is advisory: it never acts on the plant. Verify every
 //	GET  /api/units/{unit}/checkpoint the unit's checkpoint now (model and alarm state)
 //	PUT  /api/units/{unit}/checkpoint take over a unit from its checkpoint file
 //	                                  (moved from another instance); other units are not touched
+//
+// /healthz and /readyz answer everyone (supervisors probe them); the other
+// GET endpoints need the read role and the POST and PUT ones the write
+// role (package access). A writer's name is the "by" of its commands.
 func (s *Service) routes() http.Handler {
-	mux := http.NewServeMux()
-	mux.HandleFunc("GET /healthz", func(w http.ResponseWriter, r *http.Request) {
+	mux := &guardedMux{ServeMux: http.NewServeMux(), g: s.guard}
+	mux.ServeMux.HandleFunc("GET /healthz", func(w http.ResponseWriter, r *http.Request) {
 		writeJSON(w, http.StatusOK, map[string]string{"status": "ok"})
 	})
-	mux.HandleFunc("GET /readyz", s.readyz)
+	mux.ServeMux.HandleFunc("GET /readyz", s.readyz)
 	mux.Handle("GET /metrics", promhttp.HandlerFor(s.met.reg, promhttp.HandlerOpts{ErrorLog: nil}))
 	mux.HandleFunc("GET /api", func(w http.ResponseWriter, r *http.Request) {
 		writeJSON(w, http.StatusOK, map[string]any{
@@ -96,7 +101,7 @@ func (s *Service) routes() http.Handler {
 	mux.HandleFunc("POST /api/commands", func(w http.ResponseWriter, r *http.Request) {
 		s.command(w, r, func(*alerts.Command) {})
 	})
-	mux.HandleFunc("GET /api/units/{unit}/checkpoint", func(w http.ResponseWriter, r *http.Request) {
+	mux.HandleFunc("GET /api/units/{unit}/checkpoint", s.largeRequest(func(w http.ResponseWriter, r *http.Request) {
 		ck, err := s.pl.CheckpointUnit(r.PathValue("unit"))
 		switch {
 		case errors.Is(err, pipeline.ErrNoUnit):
@@ -106,8 +111,8 @@ func (s *Service) routes() http.Handler {
 		default:
 			writeJSON(w, http.StatusOK, ck)
 		}
-	})
-	mux.HandleFunc("PUT /api/units/{unit}/checkpoint", func(w http.ResponseWriter, r *http.Request) {
+	}))
+	mux.HandleFunc("PUT /api/units/{unit}/checkpoint", s.largeRequest(func(w http.ResponseWriter, r *http.Request) {
 		body, err := io.ReadAll(io.LimitReader(r.Body, maxCheckpointBody+1))
 		if err != nil || len(body) > maxCheckpointBody {
 			writeJSON(w, http.StatusBadRequest, map[string]string{"error": "body unreadable or over 256 MiB"})
@@ -123,9 +128,26 @@ func (s *Service) routes() http.Handler {
 			return
 		}
 		writeJSON(w, http.StatusOK, map[string]string{"status": "restored", "unit": r.PathValue("unit")})
-	})
-	return mux
+	}))
+	return mux.ServeMux
 }
+
+// guardedMux registers every handler behind the guard: GET with the read
+// role, any other method with the write role.
+type guardedMux struct {
+	*http.ServeMux
+	g *access.Guard
+}
+
+func (m *guardedMux) Handle(pattern string, h http.Handler) {
+	if strings.HasPrefix(pattern, "GET ") {
+		m.ServeMux.Handle(pattern, m.g.Read(h))
+	} else {
+		m.ServeMux.Handle(pattern, m.g.Write(h))
+	}
+}
+
+func (m *guardedMux) HandleFunc(pattern string, h http.HandlerFunc) { m.Handle(pattern, h) }
 
 // maxCheckpointBody bounds a unit checkpoint sent to the API (a unit of
 // 2000 channels holds two p(p+1)/2 matrices, about 43 MiB in base64).
@@ -162,6 +184,9 @@ func (s *Service) command(w http.ResponseWriter, r *http.Request, fix func(*aler
 		return
 	}
 	fix(&c)
+	if id, ok := access.From(r.Context()); ok && id.Name != "" {
+		c.By = id.Name // an authenticated caller speaks for itself
+	}
 	if err := c.Validate(); err != nil {
 		writeJSON(w, http.StatusBadRequest, alerts.Reply{Error: err.Error(), AlertID: c.AlertID, Unit: c.Unit})
 		return

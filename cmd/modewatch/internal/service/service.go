@@ -25,6 +25,7 @@ import (
 	"modewatch/alerts"
 	"modewatch/alerts/control"
 	"modewatch/alerts/sink"
+	"modewatch/cmd/modewatch/internal/access"
 	"modewatch/cmd/modewatch/internal/pipeline"
 	"modewatch/configs"
 	"modewatch/stream"
@@ -73,6 +74,8 @@ type Service struct {
 	ctl   *control.Responder
 	srv   *http.Server
 	ln    net.Listener
+	guard *access.Guard
+	large chan struct{} // one token per large request being served
 	met   *metrics
 
 	recMu  sync.Mutex
@@ -249,19 +252,8 @@ func Start(ctx context.Context, opt Options) (_ *Service, err error) {
 	}
 
 	// HTTP API.
-	if cfg.HTTP.Listen != "off" {
-		if s.ln, err = net.Listen("tcp", cfg.HTTP.Listen); err != nil {
-			return nil, fmt.Errorf("service: http: %w", err)
-		}
-		s.srv = &http.Server{Handler: s.routes(), ReadHeaderTimeout: 10 * time.Second}
-		s.info.HTTP = "http://" + s.ln.Addr().String()
-		s.wg.Add(1)
-		go func() {
-			defer s.wg.Done()
-			if err := s.srv.Serve(s.ln); err != nil && !errors.Is(err, http.ErrServerClosed) {
-				log.Error("http server stopped", "err", err)
-			}
-		}()
+	if err := s.serveHTTP(); err != nil {
+		return nil, err
 	}
 
 	s.wg.Add(1)

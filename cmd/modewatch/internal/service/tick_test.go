@@ -1,10 +1,7 @@
 package service
 
 import (
-	"bytes"
 	"context"
-	"fmt"
-	"math"
 	"path/filepath"
 	"testing"
 	"time"
@@ -31,43 +28,9 @@ state_dir: `+filepath.Join(dir, "data")+`
 	}
 	svc, nc := startWithClient(t, Options{Config: cfg})
 
-	// 500 s of readings (invented) from unit tk; channel b stops after
-	// 100 s, so a "missing" quality alert opens after its 5-minute hold.
-	t0 := time.Now().Add(-time.Hour).Truncate(time.Second)
-	var b bytes.Buffer
-	for k := 0; k < 500; k++ {
-		ts := t0.Add(time.Duration(k) * time.Second).UnixNano()
-		a := 10 + math.Sin(float64(k)/7)
-		switch {
-		case k < 100:
-			fmt.Fprintf(&b, "tk,asset=x a=%.4f,b=%.4f %d\n", a, 5+math.Cos(float64(k)/5), ts)
-		case k < 300:
-			fmt.Fprintf(&b, "tk,asset=x a=%.4f %d\n", a, ts)
-		default: // channel c starts: it joins the model, warming
-			fmt.Fprintf(&b, "tk,asset=x a=%.4f,c=%.4f %d\n", a, 1+math.Sin(float64(k)/3), ts)
-		}
-		if b.Len() > 32<<10 || k == 499 {
-			if err := nc.Publish("modewatch.readings.tk", b.Bytes()); err != nil {
-				t.Fatal(err)
-			}
-			b.Reset()
-		}
-	}
-	nc.Flush()
+	// Readings (invented) of unit tk until a missing-channel alert opens.
+	id := openMissingAlert(t, svc, nc)
 	eng := svc.Pipeline().Alerts()
-	var id string
-	deadline := time.Now().Add(10 * time.Second)
-	for id == "" {
-		for _, r := range eng.Open(nil) {
-			if r.Quality != nil && r.Quality.Kind == alerts.QualityMissing && r.Quality.Channel == "tk.x.b" {
-				id = r.ID
-			}
-		}
-		if time.Now().After(deadline) {
-			t.Fatalf("no missing-channel alert; open: %+v", eng.Open(nil))
-		}
-		time.Sleep(20 * time.Millisecond)
-	}
 	// Wait until the last frame is scored (the readings have stopped).
 	var last time.Time
 	for {
@@ -120,7 +83,7 @@ state_dir: `+filepath.Join(dir, "data")+`
 	}
 	// No frame comes; the stall is noticed after 2 periods + lateness and
 	// the shelf, 1 s of frame time, expires at the next tick.
-	deadline = time.Now().Add(15 * time.Second)
+	deadline := time.Now().Add(15 * time.Second)
 	for shelved() {
 		if time.Now().After(deadline) {
 			t.Fatal("shelf of a stalled unit did not expire")

@@ -1,0 +1,313 @@
+package service
+
+import (
+	"context"
+	"crypto/ecdsa"
+	"crypto/elliptic"
+	"crypto/rand"
+	"crypto/tls"
+	"crypto/x509"
+	"crypto/x509/pkix"
+	"encoding/json"
+	"encoding/pem"
+	"io"
+	"math/big"
+	"net"
+	"net/http"
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+	"time"
+
+	"modewatch/alerts"
+	"modewatch/cmd/modewatch/internal/access"
+	"modewatch/configs"
+)
+
+// do sends one request with an optional bearer token and returns the
+// status and the decoded JSON body.
+func do(t *testing.T, c *http.Client, method, url, token, body string) (int, map[string]any) {
+	t.Helper()
+	req, err := http.NewRequest(method, url, strings.NewReader(body))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if token != "" {
+		req.Header.Set("Authorization", "Bearer "+token)
+	}
+	resp, err := c.Do(req)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer resp.Body.Close()
+	var v map[string]any
+	b, _ := io.ReadAll(resp.Body)
+	_ = json.Unmarshal(b, &v)
+	return resp.StatusCode, v
+}
+
+// TestHTTPTokens: without a token each write endpoint answers 401, with a
+// read-only token 403; a writer's command is applied and the record's
+// "by" is the token's name, whatever the body says.
+func TestHTTPTokens(t *testing.T) {
+	dir := t.TempDir()
+	reader, writer := "reader-token-0123456789abcdef", "writer-token-0123456789abcdef"
+	cfg, err := configs.Parse("auth.yaml", []byte(`
+frames: {period: 1s}
+server: {embedded_port: -1}
+http:
+  listen: "127.0.0.1:0"
+  tokens:
+    - {name: viewer, role: read, hash: "`+access.HashToken(reader)+`"}
+    - {name: shift-lead, role: write, hash: "`+access.HashToken(writer)+`"}
+data_dir: `+filepath.Join(dir, "data")+`
+`))
+	if err != nil {
+		t.Fatal(err)
+	}
+	svc, nc := startWithClient(t, Options{Config: cfg})
+	id := openMissingAlert(t, svc, nc)
+	base := svc.Info().HTTP
+	c := http.DefaultClient
+
+	writes := []struct{ method, path, body string }{
+		{"POST", "/api/alerts/ack", `{"alert_id":"` + id + `","by":"mallory"}`},
+		{"POST", "/api/alerts/shelve", `{"alert_id":"` + id + `","for":"1h","by":"mallory","reason":"x"}`},
+		{"POST", "/api/alerts/unshelve", `{"alert_id":"` + id + `","by":"mallory"}`},
+		{"POST", "/api/units/tk/maintenance", `{"on":true,"by":"mallory"}`},
+		{"POST", "/api/commands", `{"op":"ack","alert_id":"` + id + `","by":"mallory"}`},
+		{"PUT", "/api/units/tk/checkpoint", `{}`},
+	}
+	for _, w := range writes {
+		if code, _ := do(t, c, w.method, base+w.path, "", w.body); code != http.StatusUnauthorized {
+			t.Errorf("%s %s without a token: %d, want 401", w.method, w.path, code)
+		}
+		if code, _ := do(t, c, w.method, base+w.path, "wrong-token-0123456789", w.body); code != http.StatusUnauthorized {
+			t.Errorf("%s %s with an unknown token: %d, want 401", w.method, w.path, code)
+		}
+		if code, _ := do(t, c, w.method, base+w.path, reader, w.body); code != http.StatusForbidden {
+			t.Errorf("%s %s with a read token: %d, want 403", w.method, w.path, code)
+		}
+	}
+	for _, path := range []string{"/api/units", "/api/alerts", "/metrics", "/api"} {
+		if code, _ := do(t, c, "GET", base+path, "", ""); code != http.StatusUnauthorized {
+			t.Errorf("GET %s without a token: %d, want 401", path, code)
+		}
+		if code, _ := do(t, c, "GET", base+path, reader, ""); code != http.StatusOK {
+			t.Errorf("GET %s with a read token: %d, want 200", path, code)
+		}
+	}
+	for _, path := range []string{"/healthz", "/readyz"} {
+		if code, _ := do(t, c, "GET", base+path, "", ""); code != http.StatusOK {
+			t.Errorf("GET %s without a token: %d, want 200 (probes)", path, code)
+		}
+	}
+	if open := svc.Pipeline().Alerts().Open(nil); len(open) == 0 || open[0].Acknowledged != nil {
+		t.Fatalf("a refused command changed the alert: %+v", open)
+	}
+
+	code, rep := do(t, c, "POST", base+"/api/alerts/ack", writer, writes[0].body)
+	if code != http.StatusOK || rep["ok"] != true {
+		t.Fatalf("ack with a write token: %d %v", code, rep)
+	}
+	var acked *alerts.Ack
+	for _, r := range svc.Pipeline().Alerts().Open(nil) {
+		if r.ID == id {
+			acked = r.Acknowledged
+		}
+	}
+	if acked == nil || acked.By != "shift-lead" {
+		t.Fatalf("acknowledged %+v, want by the token's name shift-lead", acked)
+	}
+	var published bool
+	for _, r := range svc.Records() {
+		published = published || (r.ID == id && r.Acknowledged != nil && r.Acknowledged.By == "shift-lead")
+	}
+	if !published {
+		t.Error("no published record revision acknowledged by shift-lead")
+	}
+}
+
+// TestHTTPLargeRequestsLimited: while one checkpoint upload is being
+// received, a second one is answered 429 at once.
+func TestHTTPLargeRequestsLimited(t *testing.T) {
+	dir := t.TempDir()
+	cfg, err := configs.Parse("large.yaml", []byte(`
+frames: {period: 1s}
+server: {embedded_port: -1}
+http: {listen: "127.0.0.1:0", large_requests: 1}
+data_dir: `+filepath.Join(dir, "data")+`
+`))
+	if err != nil {
+		t.Fatal(err)
+	}
+	svc, _ := startWithClient(t, Options{Config: cfg})
+	url := svc.Info().HTTP + "/api/units/tk/checkpoint"
+	pr, pw := io.Pipe()
+	first := make(chan int, 1)
+	go func() {
+		req, _ := http.NewRequest("PUT", url, pr)
+		resp, err := http.DefaultClient.Do(req)
+		if err != nil {
+			first <- -1
+			return
+		}
+		resp.Body.Close()
+		first <- resp.StatusCode
+	}()
+	if _, err := pw.Write([]byte(`{"format":`)); err != nil { // the handler is reading now
+		t.Fatal(err)
+	}
+	code, rep := do(t, http.DefaultClient, "PUT", url, "", `{}`)
+	if code != http.StatusTooManyRequests {
+		t.Errorf("second upload during the first: %d %v, want 429", code, rep)
+	}
+	pw.Close()
+	select {
+	case c := <-first:
+		if c != http.StatusBadRequest {
+			t.Errorf("truncated first upload: %d, want 400", c)
+		}
+	case <-time.After(10 * time.Second):
+		t.Fatal("first upload not answered")
+	}
+	if code, _ := do(t, http.DefaultClient, "PUT", url, "", `{}`); code == http.StatusTooManyRequests {
+		t.Error("upload after the first ended still refused as busy")
+	}
+}
+
+// TestHTTPRefusesOpenNetworkListen: Start refuses a non-loopback listen
+// address without authentication unless open_access says it is meant.
+func TestHTTPRefusesOpenNetworkListen(t *testing.T) {
+	cfg := &configs.Config{Frames: configs.Frames{Period: time.Second}, DataDir: t.TempDir()}
+	cfg.Server.EmbeddedPort = -1
+	cfg.HTTP.Listen = "0.0.0.0:0"
+	cfg.ApplyDefaults()
+	if _, err := Start(context.Background(), Options{Config: cfg}); err == nil || !strings.Contains(err.Error(), "no authentication") {
+		t.Fatalf("Start with an open network listen: %v, want refused", err)
+	}
+	cfg.HTTP.OpenAccess = true
+	svc, err := Start(context.Background(), Options{Config: cfg})
+	if err != nil {
+		t.Fatalf("with open_access: %v", err)
+	}
+	svc.Shutdown(context.Background())
+}
+
+// pki writes a test CA, a server certificate for 127.0.0.1 and a client
+// certificate with common name cn (all ECDSA P-256) into dir, plus a
+// client certificate from another CA; it returns their paths.
+type pkiFiles struct {
+	ca, serverCert, serverKey string
+	client, stranger          tls.Certificate
+	pool                      *x509.CertPool
+}
+
+func makePKI(t *testing.T, dir, cn string) pkiFiles {
+	t.Helper()
+	newCA := func(name string) (*x509.Certificate, *ecdsa.PrivateKey) {
+		k, _ := ecdsa.GenerateKey(elliptic.P256(), rand.Reader)
+		tpl := &x509.Certificate{SerialNumber: big.NewInt(1), Subject: pkix.Name{CommonName: name},
+			NotBefore: time.Now().Add(-time.Hour), NotAfter: time.Now().Add(time.Hour),
+			IsCA: true, BasicConstraintsValid: true, KeyUsage: x509.KeyUsageCertSign}
+		der, err := x509.CreateCertificate(rand.Reader, tpl, tpl, &k.PublicKey, k)
+		if err != nil {
+			t.Fatal(err)
+		}
+		c, _ := x509.ParseCertificate(der)
+		return c, k
+	}
+	leaf := func(ca *x509.Certificate, caKey *ecdsa.PrivateKey, name string, usage x509.ExtKeyUsage, ip net.IP) ([]byte, *ecdsa.PrivateKey) {
+		k, _ := ecdsa.GenerateKey(elliptic.P256(), rand.Reader)
+		tpl := &x509.Certificate{SerialNumber: big.NewInt(time.Now().UnixNano()), Subject: pkix.Name{CommonName: name},
+			NotBefore: time.Now().Add(-time.Hour), NotAfter: time.Now().Add(time.Hour),
+			KeyUsage: x509.KeyUsageDigitalSignature, ExtKeyUsage: []x509.ExtKeyUsage{usage}}
+		if ip != nil {
+			tpl.IPAddresses = []net.IP{ip}
+		}
+		der, err := x509.CreateCertificate(rand.Reader, tpl, ca, &k.PublicKey, caKey)
+		if err != nil {
+			t.Fatal(err)
+		}
+		return der, k
+	}
+	pair := func(der []byte, k *ecdsa.PrivateKey) tls.Certificate {
+		return tls.Certificate{Certificate: [][]byte{der}, PrivateKey: k}
+	}
+	write := func(name, typ string, der []byte) string {
+		p := filepath.Join(dir, name)
+		if err := os.WriteFile(p, pem.EncodeToMemory(&pem.Block{Type: typ, Bytes: der}), 0o600); err != nil {
+			t.Fatal(err)
+		}
+		return p
+	}
+	ca, caKey := newCA("modewatch test CA")
+	other, otherKey := newCA("another CA")
+	var f pkiFiles
+	f.ca = write("ca.pem", "CERTIFICATE", ca.Raw)
+	sDer, sKey := leaf(ca, caKey, "modewatch", x509.ExtKeyUsageServerAuth, net.IPv4(127, 0, 0, 1))
+	f.serverCert = write("server.pem", "CERTIFICATE", sDer)
+	kb, _ := x509.MarshalECPrivateKey(sKey)
+	f.serverKey = write("server-key.pem", "EC PRIVATE KEY", kb)
+	f.client = pair(leaf(ca, caKey, cn, x509.ExtKeyUsageClientAuth, nil))
+	f.stranger = pair(leaf(other, otherKey, cn, x509.ExtKeyUsageClientAuth, nil))
+	f.pool = x509.NewCertPool()
+	f.pool.AddCert(ca)
+	return f
+}
+
+// TestHTTPClientCertificate: HTTPS with a client certificate end to end
+// (crypto/tls on both sides): the certificate's common name is the
+// caller; without it (or a token) the API answers 401, and a certificate
+// from another CA fails the handshake.
+func TestHTTPClientCertificate(t *testing.T) {
+	dir := t.TempDir()
+	f := makePKI(t, dir, "ops-console")
+	cfg, err := configs.Parse("tls.yaml", []byte(`
+frames: {period: 1s}
+server: {embedded_port: -1}
+http:
+  listen: "127.0.0.1:0"
+  tls: {cert: `+f.serverCert+`, key: `+f.serverKey+`, client_ca: `+f.ca+`}
+  clients: [{name: ops-console, role: write}]
+data_dir: `+filepath.Join(dir, "data")+`
+`))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := cfg.CheckFiles(); err != nil {
+		t.Fatal(err)
+	}
+	svc, nc := startWithClient(t, Options{Config: cfg})
+	base := svc.Info().HTTP
+	if !strings.HasPrefix(base, "https://127.0.0.1:") {
+		t.Fatalf("HTTP %q, want https", base)
+	}
+	client := func(certs ...tls.Certificate) *http.Client {
+		return &http.Client{Transport: &http.Transport{TLSClientConfig: &tls.Config{RootCAs: f.pool, Certificates: certs}}}
+	}
+	if code, _ := do(t, client(), "GET", base+"/api/units", "", ""); code != http.StatusUnauthorized {
+		t.Errorf("without a certificate: %d, want 401", code)
+	}
+	if code, _ := do(t, client(f.client), "GET", base+"/api/units", "", ""); code != http.StatusOK {
+		t.Errorf("with the client certificate: %d, want 200", code)
+	}
+	// Sent even though the server asks for certificates of its CA only.
+	force := &http.Client{Transport: &http.Transport{TLSClientConfig: &tls.Config{RootCAs: f.pool,
+		GetClientCertificate: func(*tls.CertificateRequestInfo) (*tls.Certificate, error) { return &f.stranger, nil }}}}
+	if resp, err := force.Get(base + "/api/units"); err == nil {
+		resp.Body.Close()
+		t.Errorf("a certificate from another CA was let through the handshake (status %d)", resp.StatusCode)
+	}
+	id := openMissingAlert(t, svc, nc)
+	code, rep := do(t, client(f.client), "POST", base+"/api/alerts/ack", "", `{"alert_id":"`+id+`","by":"someone"}`)
+	if code != http.StatusOK {
+		t.Fatalf("ack over TLS with the certificate: %d %v", code, rep)
+	}
+	for _, r := range svc.Pipeline().Alerts().Open(nil) {
+		if r.ID == id && (r.Acknowledged == nil || r.Acknowledged.By != "ops-console") {
+			t.Errorf("acknowledged %+v, want by ops-console", r.Acknowledged)
+		}
+	}
+}
