@@ -27,6 +27,16 @@ const (
 	DefaultLogLevel           = "info"
 	DefaultPrecision          = "ns"
 	DefaultMaxChannels        = 10000
+	// MaxChannelsCeiling bounds frames.max_channels: the channel registry
+	// holds a name, a series key and a few counters per channel.
+	MaxChannelsCeiling = 100000
+	// DefaultUnitMaxChannels caps the channels of one unit's model. A
+	// unit's model needs about 18·p² + 6000·p bytes (measured, see the
+	// README), so 2000 channels fit in 80 MB, and with one checkpoint
+	// being written or received beside it in under 256 MiB.
+	DefaultUnitMaxChannels = 2000
+	// UnitMaxChannelsCeiling bounds model.max_channels (about 1.8 GB).
+	UnitMaxChannelsCeiling = 10000
 
 	// DefaultSparsity is the sparse-mode constraint of every mode: at most
 	// 6 channels per mode (l0-constrained, truncated power method).
@@ -284,6 +294,9 @@ type Model struct {
 	WarmUp int `yaml:"warmup"`
 	// File is a fitted model (from "modewatch fit") to start from.
 	File string `yaml:"file"`
+	// MaxChannels caps the channels of the unit's model; a channel beyond
+	// it is refused, logged once and counted. Default 2000.
+	MaxChannels int `yaml:"max_channels"`
 }
 
 // Alerts holds the alarm settings. Zero fields mean "inherit"/"default".
@@ -433,6 +446,7 @@ func DefaultModel() Model {
 		Limits:       Limits{Method: LimitsTheory},
 		RefreshEvery: DefaultRefreshEvery,
 		WarmUp:       DefaultWarmUp,
+		MaxChannels:  DefaultUnitMaxChannels,
 	}
 }
 
@@ -491,6 +505,9 @@ func (m Model) Over(base Model) Model {
 	}
 	if m.File == "" {
 		m.File = base.File
+	}
+	if m.MaxChannels == 0 {
+		m.MaxChannels = base.MaxChannels
 	}
 	return m
 }

@@ -173,8 +173,8 @@ func (c *Config) validateFrames(v *validator) {
 		}
 	}
 	v.oneOf("frames.precision", f.Precision, "ns", "us", "ms", "s")
-	if f.MaxChannels < 0 {
-		v.add("frames.max_channels", "negative")
+	if f.MaxChannels < 0 || f.MaxChannels > MaxChannelsCeiling {
+		v.add("frames.max_channels", "%d is outside 0…%d", f.MaxChannels, MaxChannelsCeiling)
 	}
 }
 
@@ -317,6 +317,9 @@ func (v *validator) model(p string, m Model, partial bool) {
 	}
 	if m.WarmUp < 0 {
 		v.add(p+".warmup", "negative")
+	}
+	if m.MaxChannels < 0 || m.MaxChannels > UnitMaxChannelsCeiling {
+		v.add(p+".max_channels", "%d is outside 0…%d (a unit's model needs about 18·p² bytes)", m.MaxChannels, UnitMaxChannelsCeiling)
 	}
 	if !partial && m.Alpha == 0 {
 		v.add(p+".alpha", "missing")

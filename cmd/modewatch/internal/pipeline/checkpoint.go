@@ -256,6 +256,10 @@ func (p *Pipeline) Restore(cks []*ModelFile) (restored []string, errs []error) {
 	defer p.mu.Unlock()
 	for _, ck := range cks {
 		mu := &ck.Units[0]
+		if err := checkUnitCaps(mu, p.cfg.ModelFor(mu.Name).MaxChannels); err != nil {
+			errs = append(errs, err) // sizes first: the file may come from the network
+			continue
+		}
 		if time.Duration(ck.Period) != p.opt.Period {
 			errs = append(errs, fmt.Errorf("unit %s: checkpoint frame period %v differs from the configured %v; the unit warms up again",
 				mu.Name, time.Duration(ck.Period), p.opt.Period))

@@ -203,7 +203,7 @@ func DecodeModel(r io.Reader) (*ModelFile, error) {
 	var m ModelFile
 	dec := json.NewDecoder(r)
 	if err := dec.Decode(&m); err != nil {
-		return nil, fmt.Errorf("%w: not a model file: %v", ErrModelFile, err)
+		return nil, fmt.Errorf("%w: not a model file: %w", ErrModelFile, err)
 	}
 	if m.Format != ModelFormat {
 		return nil, fmt.Errorf("%w: format %q, want %q", ErrModelFile, m.Format, ModelFormat)
@@ -239,6 +239,9 @@ func (p *Pipeline) unitFromModel(mu *ModelUnit, period time.Duration) (*Unit, er
 
 // buildFromModel is unitFromModel without registering the unit.
 func (p *Pipeline) buildFromModel(mu *ModelUnit, period time.Duration) (*Unit, error) {
+	if err := checkUnitCaps(mu, p.cfg.ModelFor(mu.Name).MaxChannels); err != nil {
+		return nil, err // before the tracker allocates p² for it
+	}
 	settings, err := mu.Settings.model()
 	if err != nil {
 		return nil, fmt.Errorf("%w: unit %s: %v", ErrModelFile, mu.Name, err)
@@ -262,6 +265,7 @@ func (p *Pipeline) buildFromModel(mu *ModelUnit, period time.Duration) (*Unit, e
 	u := newUnit(p, mu.Name)
 	u.model = settings
 	u.model.Adapt = adapt
+	u.model.MaxChannels = p.cfg.ModelFor(mu.Name).MaxChannels
 	u.fixed = adapt != nil && !*adapt
 	u.equal = equal
 	u.tr = tr

@@ -66,6 +66,8 @@ type Unit struct {
 	refreshes   uint64        // mode refreshes timed (see step)
 	lastRefresh time.Duration // wall time of the last frame step that refreshed
 	late        []string      // channels that could not join the model (fixed model, Grow failed)
+	refused     uint64        // channels refused at the unit's channel cap
+	refusedEx   []string      // the first few of them, for the view
 
 	// Learning around incidents (location.go).
 	mbox    *maskBox
@@ -108,6 +110,10 @@ func (u *Unit) addChannel(i int, name string) bool {
 			return true
 		}
 	}
+	if len(u.names) >= u.model.MaxChannels {
+		u.refuse(name)
+		return false
+	}
 	if u.fixed && u.tr != nil {
 		u.p.log.Warn("channel is not part of the unit's model, which is held fixed (adapt=false); it is not modelled until the model is refitted",
 			"unit", u.Name, "channel", name)
@@ -117,6 +123,21 @@ func (u *Unit) addChannel(i int, name string) bool {
 	u.idx = append(u.idx, i)
 	u.names = append(u.names, name)
 	return true
+}
+
+// maxRefusedShown bounds the refused channel names a unit keeps for its view.
+const maxRefusedShown = 16
+
+// refuse reports a channel refused because the unit has model.max_channels
+// channels already. addChannel sees each registry channel once, so each
+// name is logged once.
+func (u *Unit) refuse(name string) {
+	u.refused++
+	if len(u.refusedEx) < maxRefusedShown {
+		u.refusedEx = append(u.refusedEx, name)
+	}
+	u.p.log.Warn("channel refused: the unit is at its channel cap (model.max_channels); it is not modelled",
+		"unit", u.Name, "channel", name, "cap", u.model.MaxChannels, "refused", u.refused)
 }
 
 // grow widens the unit's tracker to the channels added since it was built,

@@ -88,6 +88,14 @@ type UnitView struct {
 	// with its own modes (absent for a unit with one model).
 	State  string      `json:"state,omitempty"`
 	States []StateView `json:"states,omitempty"`
+	// MaxChannels is the unit's channel cap; RefusedChannels counts the
+	// channels refused at it, RefusedExamples names the first few.
+	MaxChannels     int      `json:"max_channels"`
+	RefusedChannels uint64   `json:"refused_channels"`
+	RefusedExamples []string `json:"refused_examples,omitempty"`
+	// MemoryBytes estimates the memory of the unit's model (UnitModelBytes
+	// of its channel count).
+	MemoryBytes int64 `json:"memory_bytes"`
 }
 
 func finite(v float64) *float64 {
@@ -130,6 +138,8 @@ func (u *Unit) View(t time.Time) UnitView {
 		Name: u.Name, Channels: u.Channels(), NotModelled: append([]string(nil), u.late...),
 		ModelState: u.ModelState(), Frames: u.frames, EmptyFrames: u.empty, StepErrors: u.stepErrors,
 		Modes: u.modesView(), State: u.CurrentState(), States: u.statesView(),
+		MaxChannels: u.model.MaxChannels, RefusedChannels: u.refused, RefusedExamples: append([]string(nil), u.refusedEx...),
+		MemoryBytes: u.memoryBytes(),
 	}
 	if u.failed != nil {
 		v.Error = u.failed.Error()

@@ -1,9 +1,9 @@
 package service
 
 import (
-	"bytes"
 	"encoding/json"
 	"errors"
+	"fmt"
 	"io"
 	"net/http"
 	"strings"
@@ -112,24 +112,43 @@ func (s *Service) routes() http.Handler {
 			writeJSON(w, http.StatusOK, ck)
 		}
 	}))
-	mux.HandleFunc("PUT /api/units/{unit}/checkpoint", s.largeRequest(func(w http.ResponseWriter, r *http.Request) {
-		body, err := io.ReadAll(io.LimitReader(r.Body, maxCheckpointBody+1))
-		if err != nil || len(body) > maxCheckpointBody {
-			writeJSON(w, http.StatusBadRequest, map[string]string{"error": "body unreadable or over 256 MiB"})
-			return
-		}
-		ck, err := pipeline.DecodeModel(bytes.NewReader(body))
-		if err != nil {
-			writeJSON(w, http.StatusBadRequest, map[string]string{"error": err.Error()})
-			return
-		}
-		if err := s.Adopt(ck, r.PathValue("unit")); err != nil {
-			writeJSON(w, http.StatusConflict, map[string]string{"error": err.Error()})
-			return
-		}
-		writeJSON(w, http.StatusOK, map[string]string{"status": "restored", "unit": r.PathValue("unit")})
-	}))
+	mux.HandleFunc("PUT /api/units/{unit}/checkpoint", s.largeRequest(s.putCheckpoint))
 	return mux.ServeMux
+}
+
+// putCheckpoint takes over a unit from the checkpoint in the body. The
+// body is limited by the unit's channel cap (CheckpointBodyBytes) before
+// it is read, and every size in it is checked against the cap before
+// anything is built from it; a refused body gets 413 or 400 with the
+// reason, and the unit is untouched.
+func (s *Service) putCheckpoint(w http.ResponseWriter, r *http.Request) {
+	unit := r.PathValue("unit")
+	limit := pipeline.CheckpointBodyBytes(s.cfg.ModelFor(unit).MaxChannels)
+	if r.ContentLength > limit {
+		writeJSON(w, http.StatusRequestEntityTooLarge, map[string]string{
+			"error": fmt.Sprintf("checkpoint of %d bytes is over the %d bytes of a unit of model.max_channels %d", r.ContentLength, limit, s.cfg.ModelFor(unit).MaxChannels)})
+		return
+	}
+	ck, err := pipeline.DecodeModel(http.MaxBytesReader(w, r.Body, limit))
+	var tooLarge *http.MaxBytesError
+	switch {
+	case errors.As(err, &tooLarge):
+		writeJSON(w, http.StatusRequestEntityTooLarge, map[string]string{
+			"error": fmt.Sprintf("checkpoint over the %d bytes of a unit of model.max_channels %d", limit, s.cfg.ModelFor(unit).MaxChannels)})
+		return
+	case err != nil:
+		writeJSON(w, http.StatusBadRequest, map[string]string{"error": err.Error()})
+		return
+	}
+	if err := s.Adopt(ck, unit); err != nil {
+		code := http.StatusConflict // the unit runs here already, or another period
+		if errors.Is(err, pipeline.ErrModelFile) {
+			code = http.StatusBadRequest
+		}
+		writeJSON(w, code, map[string]string{"error": err.Error()})
+		return
+	}
+	writeJSON(w, http.StatusOK, map[string]string{"status": "restored", "unit": unit})
 }
 
 // guardedMux registers every handler behind the guard: GET with the read
@@ -148,10 +167,6 @@ func (m *guardedMux) Handle(pattern string, h http.Handler) {
 }
 
 func (m *guardedMux) HandleFunc(pattern string, h http.HandlerFunc) { m.Handle(pattern, h) }
-
-// maxCheckpointBody bounds a unit checkpoint sent to the API (a unit of
-// 2000 channels holds two p(p+1)/2 matrices, about 43 MiB in base64).
-const maxCheckpointBody = 256 << 20
 
 func (s *Service) readyz(w http.ResponseWriter, r *http.Request) {
 	st := s.conn.State()

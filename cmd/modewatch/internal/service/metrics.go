@@ -21,6 +21,7 @@ type metrics struct {
 	natsUp, natsReconnects, natsDisconnects                              *prometheus.Desc
 	queueDepth, dropped, deliveryDepth, deliveryPending, deliveryDropped *prometheus.Desc
 	deliveryDone, ckptTime, ckptErrors, scoreErrors                      *prometheus.Desc
+	unitMemory, unitRefused                                              *prometheus.Desc
 }
 
 func newMetrics(s *Service) *metrics {
@@ -62,6 +63,8 @@ func newMetrics(s *Service) *metrics {
 		ckptTime:        d("checkpoint_last_success_timestamp_seconds", "Time of the last successful checkpoint (Unix seconds)."),
 		ckptErrors:      d("checkpoint_errors_total", "Checkpoints that failed."),
 		scoreErrors:     d("score_publish_errors_total", "Score lines that could not be published."),
+		unitMemory:      d("unit_model_bytes", "Estimated memory of the unit's model in bytes (18·p² + 6000·p for p channels).", "unit"),
+		unitRefused:     d("unit_refused_channels_total", "Channels refused because the unit was at its channel cap (model.max_channels).", "unit"),
 	}
 	m.reg.MustRegister(m, collectors.NewGoCollector(), collectors.NewProcessCollector(collectors.ProcessCollectorOpts{}))
 	return m
@@ -72,7 +75,7 @@ func (m *metrics) Describe(ch chan<- *prometheus.Desc) {
 	for _, d := range []*prometheus.Desc{m.frames, m.unitFrames, m.lines, m.rejected, m.readings, m.stat, m.limit, m.ready,
 		m.nEff, m.modes, m.iters, m.missing, m.warming, m.refreshes, m.refreshTime, m.alertsOpen, m.alertsOpened, m.alertsHour, m.floods, m.inMaint, m.natsUp,
 		m.natsReconnects, m.natsDisconnects, m.queueDepth, m.dropped, m.deliveryDepth, m.deliveryPending, m.deliveryDropped,
-		m.deliveryDone, m.ckptTime, m.ckptErrors, m.scoreErrors} {
+		m.deliveryDone, m.ckptTime, m.ckptErrors, m.scoreErrors, m.unitMemory, m.unitRefused} {
 		ch <- d
 	}
 }
@@ -109,6 +112,8 @@ func (m *metrics) Collect(ch chan<- prometheus.Metric) {
 	if s.pl != nil {
 		for _, v := range s.pl.Views() {
 			c(m.unitFrames, float64(v.Frames), v.Name)
+			g(m.unitMemory, float64(v.MemoryBytes), v.Name)
+			c(m.unitRefused, float64(v.RefusedChannels), v.Name)
 			g(m.nEff, v.EffectiveN, v.Name)
 			g(m.modes, float64(len(v.Modes)), v.Name)
 			g(m.iters, float64(v.RefreshIterations), v.Name)

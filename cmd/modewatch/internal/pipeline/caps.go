@@ -1,0 +1,128 @@
+package pipeline
+
+import (
+	"encoding/binary"
+	"fmt"
+	"hash/crc32"
+	"time"
+
+	"modewatch/tracker"
+)
+
+// UnitModelBytes estimates the memory of a unit's model of p channels in
+// bytes: 18·p² + 6000·p. The coefficients are fitted to the live heap of a
+// tracker after warm-up with the default settings (p = 400, 800, 1600:
+// 5.1, 15.8 and 54.5 MB; the estimate is within 10 % of each), and the
+// test TestUnitModelBytes checks them again. The p² term is the
+// covariance, the correlation and the refresh workspace; a checkpoint of
+// the unit adds about 9·p² while it is written.
+func UnitModelBytes(p int) int64 {
+	q := int64(p)
+	return 18*q*q + 6000*q
+}
+
+// maxStateBytes bounds the size of a tracker state of p channels (the
+// measured states take 8.2·p² … 11.7·p² bytes from p = 100 up, plus the
+// batch buffer and the modes for small p).
+func maxStateBytes(p int) int {
+	return 12*p*p + 2048*p + 64<<10
+}
+
+// checkState checks one tracker state of p channels: its length against
+// the bounds for p, the channel count in its header and its checksum.
+func checkState(name string, st []byte, p int) error {
+	switch {
+	case len(st) > maxStateBytes(p):
+		return fmt.Errorf("%w: unit %.64q: tracker state of %d bytes is too long for %d channels (at most %d)", ErrModelFile, name, len(st), p, maxStateBytes(p))
+	case len(st) < minStateBytes(p):
+		return fmt.Errorf("%w: unit %.64q: tracker state of %d bytes is truncated (%d channels need at least %d)", ErrModelFile, name, len(st), p, minStateBytes(p))
+	}
+	// The header: magic, version (u16), channel count (u32); the last 4
+	// bytes are the CRC-32 of the rest. Checked here so that a damaged
+	// state is refused before the tracker allocates for it.
+	if sp := int64(binary.LittleEndian.Uint32(st[6:10])); sp != int64(p) {
+		return fmt.Errorf("%w: unit %.64q: tracker state for %d channels, the file lists %d", ErrModelFile, name, sp, p)
+	}
+	if crc32.ChecksumIEEE(st[:len(st)-4]) != binary.LittleEndian.Uint32(st[len(st)-4:]) {
+		return fmt.Errorf("%w: unit %.64q: tracker state checksum mismatch (truncated or corrupt)", ErrModelFile, name)
+	}
+	return nil
+}
+
+// memoryBytes estimates the memory of the unit's models: one per
+// operating state (at least one), each UnitModelBytes of its channels.
+func (u *Unit) memoryBytes() int64 {
+	n := 1
+	if u.states != nil && len(u.states.models) > 1 {
+		n = len(u.states.models)
+	}
+	return int64(n) * UnitModelBytes(len(u.names))
+}
+
+// minStateBytes is the smallest tracker state of p channels: the header
+// and checksum (43 bytes), per channel mean, variance, count, Kish sum
+// and last value (8 bytes each) and run length (4), and the covariance's
+// upper triangle.
+func minStateBytes(p int) int {
+	return 43 + 44*p + 8*p*(p+1)/2
+}
+
+// maxNameBytes bounds a unit or channel name in a model file.
+const maxNameBytes = 1024
+
+// CheckpointBodyBytes bounds the JSON of a unit checkpoint whose unit has
+// at most maxChannels channels: the base64 of the largest tracker states
+// (the unit's and one per operating state, at most tracker.MaxStates),
+// the channel names, the carried readings and the alarm state.
+func CheckpointBodyBytes(maxChannels int) int64 {
+	return int64(1+tracker.MaxStates)*int64(maxStateBytes(maxChannels))*4/3 + int64(maxChannels)*(3*maxNameBytes+256) + 16<<20
+}
+
+// checkUnitCaps checks the sizes a model unit asks for against the unit's
+// channel cap before anything is built from it: the channel count, the
+// names, the carried readings, and the tracker state's own channel count
+// and length. Nothing is allocated.
+func checkUnitCaps(mu *ModelUnit, maxChannels int) error {
+	p := len(mu.Channels)
+	switch {
+	case p > maxChannels:
+		return fmt.Errorf("%w: unit %.64q has %d channels, over this unit's cap of %d (model.max_channels)", ErrModelFile, mu.Name, p, maxChannels)
+	case len(mu.Name) > maxNameBytes:
+		return fmt.Errorf("%w: unit name of %d bytes (at most %d)", ErrModelFile, len(mu.Name), maxNameBytes)
+	case len(mu.Last) > p:
+		return fmt.Errorf("%w: unit %.64q carries %d readings for %d channels", ErrModelFile, mu.Name, len(mu.Last), p)
+	}
+	if err := checkState(mu.Name, mu.State, p); err != nil {
+		return err
+	}
+	if st := mu.States; st != nil {
+		if len(st.Models) > tracker.MaxStates || len(st.Bands) > tracker.MaxStates {
+			return fmt.Errorf("%w: unit %.64q: %d state models and %d bands (at most %d)", ErrModelFile, mu.Name, len(st.Models), len(st.Bands), tracker.MaxStates)
+		}
+		for i := range st.Models {
+			if err := checkState(fmt.Sprintf("%s state %d", mu.Name, i), st.Models[i].State, p); err != nil {
+				return err
+			}
+		}
+	}
+	seen := make(map[string]struct{}, p)
+	for i, n := range mu.Channels {
+		if n == "" || len(n) > maxNameBytes {
+			return fmt.Errorf("%w: unit %.64q: channel %d: name of %d bytes (1…%d)", ErrModelFile, mu.Name, i, len(n), maxNameBytes)
+		}
+		if _, dup := seen[n]; dup {
+			return fmt.Errorf("%w: unit %.64q: channel %.64q listed twice", ErrModelFile, mu.Name, n)
+		}
+		seen[n] = struct{}{}
+	}
+	for i, r := range mu.Last {
+		if _, ok := seen[r.Channel]; !ok {
+			return fmt.Errorf("%w: unit %.64q: carried reading %d names channel %.64q, not one of the unit's", ErrModelFile, mu.Name, i, r.Channel)
+		}
+	}
+	if mu.Settings.WarmUp < 0 || mu.Settings.RefreshEvery < 0 || mu.Settings.MaxModes < 0 ||
+		time.Duration(mu.Settings.HalfLife) < 0 {
+		return fmt.Errorf("%w: unit %.64q: settings out of range (%+v)", ErrModelFile, mu.Name, mu.Settings)
+	}
+	return nil
+}
