@@ -57,6 +57,11 @@ func (s *Set) Sinks() []*Sink { return s.sinks }
 
 // Close closes every sink concurrently under ctx.
 func (s *Set) Close(ctx context.Context) error {
+	defer func() {
+		if n := s.Waiting(); n > 0 {
+			s.log.Warn("sinks closed; undelivered records wait in the spools for the next start", "records", n)
+		}
+	}()
 	errs := make([]error, len(s.sinks))
 	var wg sync.WaitGroup
 	for i, k := range s.sinks {
@@ -64,4 +69,14 @@ func (s *Set) Close(ctx context.Context) error {
 	}
 	wg.Wait()
 	return errors.Join(errs...)
+}
+
+// Waiting returns, after Close, how many undelivered records wait in the
+// sinks' spools, all sinks together.
+func (s *Set) Waiting() int {
+	n := 0
+	for _, k := range s.sinks {
+		n += k.Waiting()
+	}
+	return n
 }

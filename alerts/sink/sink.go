@@ -160,6 +160,7 @@ type Sink struct {
 	lastErr string
 	ok      bool
 	rejects *rejectFile
+	waiting int // records left in the spool at Close
 
 	q       chan entry
 	wake    chan struct{} // an entry went to the spool only
@@ -336,8 +337,11 @@ func (s *Sink) Name() string { return s.o.Name }
 // Close stops accepting messages, delivers what is pending until ctx is
 // done, then stops the goroutines, records the delivered position and
 // closes the spool and the deliverer. Whatever is undelivered stays in the
-// spool for the next start. Close is idempotent; later calls return the
-// first result.
+// spool for the next start: with a spool, a destination whose last attempt
+// failed is not waited for, and ctx ending before everything is
+// delivered is not an error (Waiting says how many records wait); without
+// one it is, and the undelivered records are counted as dropped. Close is
+// idempotent; later calls return the first result.
 func (s *Sink) Close(ctx context.Context) error {
 	s.once.Do(func() {
 		s.mu.Lock()
@@ -346,14 +350,22 @@ func (s *Sink) Close(ctx context.Context) error {
 		close(s.drain)
 		done := make(chan struct{})
 		go func() { s.wg.Wait(); close(done) }()
+		s.mu.Lock()
+		down := s.sp != nil && !s.ok && s.lastErr != ""
+		s.mu.Unlock()
 		var errs []error
+		if down { // the destination is failing and the spool holds the rest: no use waiting
+			ctx = canceled
+		}
 		select {
 		case <-done:
 		case <-ctx.Done():
 			close(s.quit)
 			s.stop()
 			<-done
-			errs = append(errs, fmt.Errorf("sink %s: close: %w", s.o.Name, ctx.Err()))
+			if s.sp == nil { // with a spool, nothing is lost: see below
+				errs = append(errs, fmt.Errorf("sink %s: close: %w", s.o.Name, ctx.Err()))
+			}
 		}
 		s.stop()
 		s.mu.Lock()
@@ -365,7 +377,9 @@ func (s *Sink) Close(ctx context.Context) error {
 				errs = append(errs, err)
 			}
 			if p := s.sp.end - s.next; p > 0 {
-				s.log.Warn("sink: closed with undelivered records in the spool", "bytes", p)
+				s.waiting = s.countSpooled()
+				s.log.Warn("sink: closed with undelivered records safe in the spool; they are delivered after the next start",
+					"records", s.waiting, "bytes", p)
 			}
 			errs = append(errs, s.sp.close(), s.rejects.close())
 		} else if n := len(s.q); n > 0 {
@@ -377,6 +391,35 @@ func (s *Sink) Close(ctx context.Context) error {
 		s.cerr = errors.Join(errs...)
 	})
 	return s.cerr
+}
+
+// canceled is a context that is done already.
+var canceled = func() context.Context {
+	ctx, cancel := context.WithCancel(context.Background())
+	cancel()
+	return ctx
+}()
+
+// countSpooled counts the records in the spool not yet delivered. Called
+// under s.mu after the delivery goroutine stopped.
+func (s *Sink) countSpooled() int {
+	n := 0
+	for off := s.next; off < s.sp.end; n++ {
+		_, after, err := s.sp.read(off)
+		if err != nil || after <= off {
+			break
+		}
+		off = after
+	}
+	return n
+}
+
+// Waiting returns, after Close, how many undelivered records wait in the
+// spool for the next start.
+func (s *Sink) Waiting() int {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	return s.waiting
 }
 
 func (s *Sink) syncLoop() {

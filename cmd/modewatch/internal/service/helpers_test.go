@@ -54,3 +54,14 @@ func openMissingAlert(t *testing.T, svc *Service, nc *nats.Conn) string {
 		time.Sleep(20 * time.Millisecond)
 	}
 }
+
+// natsClient connects to the service's NATS server; closed at the end.
+func natsClient(t *testing.T, svc *Service) *nats.Conn {
+	t.Helper()
+	nc, err := nats.Connect(svc.Info().NATS)
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(nc.Close)
+	return nc
+}

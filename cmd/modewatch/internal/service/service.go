@@ -595,7 +595,11 @@ func (s *Service) Shutdown(ctx context.Context) error {
 		}
 		errs = append(errs, s.Checkpoint())
 		if s.sinks != nil {
-			errs = append(errs, s.sinks.Close(ctx))
+			// Half the time left at most: the rest of the shutdown needs
+			// some, and what is not delivered stays in the spools.
+			sctx, cancel := halfway(ctx)
+			errs = append(errs, s.sinks.Close(sctx))
+			cancel()
 		}
 		if s.srv != nil {
 			errs = append(errs, s.srv.Shutdown(ctx))
@@ -609,9 +613,23 @@ func (s *Service) Shutdown(ctx context.Context) error {
 			s.emb.Shutdown()
 		}
 		s.wg.Wait()
-		s.log.Info("stopped")
+		waiting := 0
+		if s.sinks != nil {
+			waiting = s.sinks.Waiting()
+		}
+		s.log.Info("stopped", "records_waiting_in_spool", waiting)
 	})
 	return errors.Join(errs...)
+}
+
+// halfway returns a context that ends halfway between now and ctx's
+// deadline (ctx itself when it has none).
+func halfway(ctx context.Context) (context.Context, context.CancelFunc) {
+	d, ok := ctx.Deadline()
+	if !ok {
+		return context.WithCancel(ctx)
+	}
+	return context.WithDeadline(ctx, time.Now().Add(time.Until(d)/2))
 }
 
 // abort releases what a failed Start had opened.

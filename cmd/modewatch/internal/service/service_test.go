@@ -324,10 +324,5 @@ func startWithClient(t *testing.T, opt Options) (*Service, *nats.Conn) {
 		t.Fatal(err)
 	}
 	t.Cleanup(func() { svc.Shutdown(context.Background()) })
-	nc, err := nats.Connect(svc.Info().NATS)
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(nc.Close)
-	return svc, nc
+	return svc, natsClient(t, svc)
 }
