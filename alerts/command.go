@@ -80,6 +80,16 @@ const maxText = 512
 // ParseCommand decodes and validates one JSON command. Unknown fields are
 // errors; errors name the field or byte offset.
 func ParseCommand(data []byte) (Command, error) {
+	c, err := DecodeCommand(data)
+	if err != nil {
+		return c, err
+	}
+	return c, c.Validate()
+}
+
+// DecodeCommand decodes one JSON command without validating it (for a
+// caller that sets fields first, e.g. the authenticated "by").
+func DecodeCommand(data []byte) (Command, error) {
 	var c Command
 	dec := json.NewDecoder(bytes.NewReader(data))
 	dec.DisallowUnknownFields()
@@ -99,7 +109,7 @@ func ParseCommand(data []byte) (Command, error) {
 	if dec.More() {
 		return c, fmt.Errorf("%w: offset %d: data after the command", ErrCommand, dec.InputOffset())
 	}
-	return c, c.Validate()
+	return c, nil
 }
 
 // Validate checks the fields the operation needs; every problem is

@@ -141,6 +141,10 @@ type Server struct {
 	// EmbeddedPort is the port of the embedded server (used only without
 	// URLs). 0 picks the NATS default 4222; -1 picks a free port.
 	EmbeddedPort int `yaml:"embedded_port"`
+	// Users of the embedded server (only without URLs). With any, every
+	// client must authenticate and may publish and subscribe only where
+	// its user's permissions allow; the service connects as its own user.
+	Users []NATSUser `yaml:"users"`
 }
 
 // TLS configures a TLS connection to the server: CA to verify it and an

@@ -88,3 +88,38 @@ func TestReadTokensFile(t *testing.T) {
 		t.Errorf("CheckFiles: %v, want the tokens file's error at its key", err)
 	}
 }
+
+func TestNATSUsers(t *testing.T) {
+	bc := "$2a$11$CZU.L4wXEpch6GPCcqRIJ.aztVUH6e6N6tNpGSKVajnkliGmrJy4q"
+	nk := "U" + strings.Repeat("A", 55)
+	cases := []struct {
+		name, users, want string
+	}{
+		{"three roles", `[{name: gw, password: "` + bc + `", publish: ["modewatch.readings.>"]}, {name: jo, nkey: ` + nk + `, operator: true}, {name: hist, password: "` + bc + `", subscribe: ["modewatch.alerts.>"]}]`, ""},
+		{"plain password", `[{name: gw, password: hunter2}]`, "not a bcrypt hash"},
+		{"both", `[{name: gw, password: "` + bc + `", nkey: ` + nk + `}]`, "exactly one"},
+		{"bad nkey", `[{name: gw, nkey: SUAB}]`, "not a user public NKey"},
+		{"control by wildcard", `[{name: gw, password: "` + bc + `", publish: ["modewatch.>"]}]`, "reaches the control subjects"},
+		{"control of another", `[{name: gw, password: "` + bc + `", publish: ["modewatch.control.jo"]}]`, "reaches the control subjects"},
+		{"control by star", `[{name: gw, password: "` + bc + `", publish: ["modewatch.*.jo"]}]`, "reaches the control subjects"},
+		{"dotted name", `[{name: a.b, password: "` + bc + `"}]`, "without spaces"},
+		{"service name", `[{name: modewatch-service, password: "` + bc + `"}]`, "service's own user"},
+	}
+	for _, c := range cases {
+		t.Run(c.name, func(t *testing.T) {
+			_, err := Parse("u.yaml", []byte("server: {users: "+c.users+"}\n"))
+			if c.want == "" {
+				if err != nil {
+					t.Fatal(err)
+				}
+				return
+			}
+			if err == nil || !strings.Contains(err.Error(), c.want) {
+				t.Errorf("err %v, want %q", err, c.want)
+			}
+		})
+	}
+	if _, err := Parse("u.yaml", []byte("server: {urls: [nats://x:4222], users: [{name: gw, password: \""+bc+"\"}]}\n")); err == nil {
+		t.Error("users with urls accepted")
+	}
+}

@@ -86,6 +86,7 @@ func (c *Config) validateServer(v *validator) {
 	if !validToken(s.Prefix) {
 		v.add("server.prefix", "%q is not a valid subject prefix (letters, digits, '-', '_', separated by '.')", s.Prefix)
 	}
+	c.validateNATSUsers(v)
 	if s.EmbeddedPort < -1 || s.EmbeddedPort > 65535 {
 		v.add("server.embedded_port", "%d is not a port (0..65535, or -1 for any free port)", s.EmbeddedPort)
 	}

@@ -15,6 +15,7 @@ import (
 	"errors"
 	"fmt"
 	"log/slog"
+	"strings"
 	"sync"
 	"time"
 
@@ -33,6 +34,7 @@ const MaxRequest = 64 << 10
 
 // Responder serves a control subject.
 type Responder struct {
+	byUser bool // the last subject token names the sender (ListenPerUser)
 	nc     *nats.Conn
 	sub    *nats.Subscription
 	h      Handler
@@ -64,11 +66,37 @@ func Listen(nc *nats.Conn, subject string, h Handler, log *slog.Logger) (*Respon
 	return r, nil
 }
 
+// ListenPerUser serves prefix.<user> for every user: the message server
+// lets each user publish only on its own subject (see the service's NATS
+// users), so the subject's last token is the authenticated sender, and it
+// replaces the command's "by".
+func ListenPerUser(nc *nats.Conn, prefix string, h Handler, log *slog.Logger) (*Responder, error) {
+	r, err := Listen(nc, prefix+".*", h, log)
+	if r != nil {
+		r.byUser = true
+	}
+	return r, err
+}
+
+// parse decodes and validates the command of m; per user, the subject's
+// user is its "by".
+func (r *Responder) parse(m *nats.Msg) (alerts.Command, error) {
+	if !r.byUser {
+		return alerts.ParseCommand(m.Data)
+	}
+	c, err := alerts.DecodeCommand(m.Data)
+	if err != nil {
+		return c, err
+	}
+	c.By = m.Subject[strings.LastIndexByte(m.Subject, '.')+1:]
+	return c, c.Validate()
+}
+
 func (r *Responder) serve(m *nats.Msg) {
 	var rep alerts.Reply
 	if len(m.Data) > MaxRequest {
 		rep = alerts.Reply{Error: fmt.Sprintf("control: command of %d bytes exceeds %d", len(m.Data), MaxRequest)}
-	} else if c, err := alerts.ParseCommand(m.Data); err != nil {
+	} else if c, err := r.parse(m); err != nil {
 		rep = alerts.Reply{Error: err.Error()}
 		r.log.Warn("control: bad command", "err", err)
 	} else {

@@ -2,12 +2,15 @@ package natsource
 
 import (
 	"context"
+	"crypto/rand"
+	"encoding/hex"
 	"fmt"
 	"log/slog"
 	"sync"
 	"time"
 
 	"github.com/nats-io/nats-server/v2/server"
+	"github.com/nats-io/nkeys"
 )
 
 // EmbeddedConfig configures an in-process nats-server. The zero value is
@@ -30,12 +33,35 @@ type EmbeddedConfig struct {
 	ServerName string
 	// Debug passes the server's debug messages to the log at debug level.
 	Debug bool
+	// Users, when given, make the server require authentication: each
+	// user connects with a password (plain or a bcrypt hash "$2a$…") or an
+	// NKey and may publish and subscribe only where its permissions allow.
+	// A service user (ServiceUser) with every permission is added.
+	Users []EmbeddedUser
 }
+
+// EmbeddedUser is a user of the embedded server.
+type EmbeddedUser struct {
+	// Name is the user name (password users) or a label (NKey users).
+	Name string
+	// Password, plain or bcrypt-hashed ("$2a$…", compared by the
+	// server); or NKey, the user's public key ("U…"). Exactly one.
+	Password string
+	NKey     string
+	// Publish and Subscribe list the subjects (wildcards allowed) the
+	// user may publish to and subscribe to; empty allows none.
+	Publish, Subscribe []string
+}
+
+// ServiceUserName is the user the service connects as when the embedded
+// server has users; its password is made at random at every start.
+const ServiceUserName = "modewatch-service"
 
 // Embedded is a nats-server running inside this process.
 type Embedded struct {
-	srv  *server.Server
-	once sync.Once
+	srv     *server.Server
+	once    sync.Once
+	svcPass string
 }
 
 // StartEmbedded starts the server and waits until it accepts connections,
@@ -70,6 +96,13 @@ func StartEmbedded(ctx context.Context, cfg EmbeddedConfig, log *slog.Logger) (*
 	if log == nil {
 		opts.NoLog = true
 	}
+	var svcPass string
+	if len(cfg.Users) > 0 {
+		var err error
+		if svcPass, err = addUsers(opts, cfg.Users); err != nil {
+			return nil, err
+		}
+	}
 	srv, err := server.NewServer(opts)
 	if err != nil {
 		return nil, fmt.Errorf("natsource: embedded server: %w", err)
@@ -88,7 +121,49 @@ func StartEmbedded(ctx context.Context, cfg EmbeddedConfig, log *slog.Logger) (*
 		return nil, fmt.Errorf("natsource: embedded server on %s:%d not ready within %v (port in use or store_dir %q unusable?)",
 			host, cfg.Port, wait.Round(time.Millisecond), cfg.StoreDir)
 	}
-	return &Embedded{srv: srv}, nil
+	return &Embedded{srv: srv, svcPass: svcPass}, nil
+}
+
+// addUsers puts the users and the service user into opts and returns the
+// service user's password.
+func addUsers(opts *server.Options, users []EmbeddedUser) (string, error) {
+	perms := func(u EmbeddedUser) *server.Permissions {
+		return &server.Permissions{
+			Publish:   &server.SubjectPermission{Allow: append([]string{}, u.Publish...)},
+			Subscribe: &server.SubjectPermission{Allow: append([]string{}, u.Subscribe...)},
+		}
+	}
+	for _, u := range users {
+		switch {
+		case u.Name == ServiceUserName:
+			return "", fmt.Errorf("%w: embedded server: user name %q is reserved for the service", ErrConfig, u.Name)
+		case (u.Password == "") == (u.NKey == ""):
+			return "", fmt.Errorf("%w: embedded server: user %q needs exactly one of password and nkey", ErrConfig, u.Name)
+		case u.NKey != "":
+			if !nkeys.IsValidPublicUserKey(u.NKey) {
+				return "", fmt.Errorf("%w: embedded server: user %q: %q is not an NKey user public key (U…)", ErrConfig, u.Name, u.NKey)
+			}
+			opts.Nkeys = append(opts.Nkeys, &server.NkeyUser{Nkey: u.NKey, Permissions: perms(u)})
+		default:
+			opts.Users = append(opts.Users, &server.User{Username: u.Name, Password: u.Password, Permissions: perms(u)})
+		}
+	}
+	var b [24]byte
+	if _, err := rand.Read(b[:]); err != nil {
+		return "", err
+	}
+	pass := hex.EncodeToString(b[:])
+	opts.Users = append(opts.Users, &server.User{Username: ServiceUserName, Password: pass}) // no permissions: everything
+	return pass, nil
+}
+
+// ServiceUser returns the user and password the service connects with
+// when the server has users ("", "" otherwise).
+func (e *Embedded) ServiceUser() (user, password string) {
+	if e.svcPass == "" {
+		return "", ""
+	}
+	return ServiceUserName, e.svcPass
 }
 
 // ClientURL returns the URL clients connect to, e.g. "nats://127.0.0.1:4222".

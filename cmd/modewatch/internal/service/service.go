@@ -143,7 +143,7 @@ func Start(ctx context.Context, opt Options) (_ *Service, err error) {
 	if len(urls) == 0 {
 		port := cfg.Server.EmbeddedPort
 		s.emb, err = natsource.StartEmbedded(ctx, natsource.EmbeddedConfig{
-			Port: port, StoreDir: filepath.Join(cfg.StateDir, "jetstream"),
+			Port: port, StoreDir: filepath.Join(cfg.StateDir, "jetstream"), Users: embeddedUsers(cfg),
 		}, slog.New(minLevel{log.Handler(), slog.LevelWarn}).With("component", "nats-server"))
 		if err != nil {
 			return nil, err
@@ -153,9 +153,13 @@ func Start(ctx context.Context, opt Options) (_ *Service, err error) {
 		log.Info("embedded NATS server started", "url", s.emb.ClientURL(), "store", filepath.Join(cfg.StateDir, "jetstream"))
 	}
 	s.met = newMetrics(s)
+	user, password := cfg.Server.User, cfg.Server.Password
+	if s.emb != nil && len(cfg.Server.Users) > 0 {
+		user, password = s.emb.ServiceUser()
+	}
 	s.conn, err = natsource.Connect(ctx, natsource.Options{
 		URLs: urls, Name: cfg.Server.Name,
-		User: cfg.Server.User, Password: cfg.Server.Password, Token: cfg.Server.Token,
+		User: user, Password: password, Token: cfg.Server.Token,
 		NKeySeedFile: cfg.Server.NKeySeedFile, CredentialsFile: cfg.Server.CredentialsFile,
 		TLS:     natsource.TLSOptions{CAFile: cfg.Server.TLS.CA, CertFile: cfg.Server.TLS.Cert, KeyFile: cfg.Server.TLS.Key},
 		OnEvent: s.met.natsEvent,
@@ -169,6 +173,9 @@ func Start(ctx context.Context, opt Options) (_ *Service, err error) {
 	s.info.Alerts = prefix + ".alerts.<unit>"
 	s.info.Scores = prefix + ".scores.<unit>"
 	s.info.Control = prefix + ".control"
+	if len(cfg.Server.Users) > 0 {
+		s.info.Control = prefix + ".control.<user>"
+	}
 
 	// Alert sinks: the alerts subject always, then the configured ones.
 	if s.sinks, err = s.openSinks(nc); err != nil {
@@ -213,7 +220,12 @@ func Start(ctx context.Context, opt Options) (_ *Service, err error) {
 	}
 
 	// Operator commands on NATS.
-	if s.ctl, err = control.Listen(nc, s.info.Control, s.pl.Alerts(), log.With("component", "control")); err != nil {
+	if len(cfg.Server.Users) > 0 { // each operator on its own subject: "by" is the user
+		s.ctl, err = control.ListenPerUser(nc, prefix+".control", s.pl.Alerts(), log.With("component", "control"))
+	} else {
+		s.ctl, err = control.Listen(nc, s.info.Control, s.pl.Alerts(), log.With("component", "control"))
+	}
+	if err != nil {
 		return nil, err
 	}
 
@@ -620,6 +632,17 @@ func (s *Service) Shutdown(ctx context.Context) error {
 		s.log.Info("stopped", "records_waiting_in_spool", waiting)
 	})
 	return errors.Join(errs...)
+}
+
+// embeddedUsers turns the configured users of the embedded server into its
+// users with their effective permissions.
+func embeddedUsers(cfg *configs.Config) []natsource.EmbeddedUser {
+	var out []natsource.EmbeddedUser
+	for _, u := range cfg.Server.Users {
+		out = append(out, natsource.EmbeddedUser{Name: u.Name, Password: u.Password, NKey: u.NKey,
+			Publish: cfg.NATSPublish(u), Subscribe: cfg.NATSSubscribe(u)})
+	}
+	return out
 }
 
 // halfway returns a context that ends halfway between now and ctx's

@@ -1,0 +1,117 @@
+package service
+
+import (
+	"encoding/json"
+	"path/filepath"
+	"strings"
+	"testing"
+	"time"
+
+	"github.com/nats-io/nats.go"
+	"github.com/nats-io/nkeys"
+	"golang.org/x/crypto/bcrypt"
+
+	"modewatch/alerts"
+	"modewatch/configs"
+)
+
+// TestEmbeddedServerUsers: the embedded server with three roles (a
+// readings publisher with a password, an operator with an NKey, a viewer
+// without control permission): a wrong password is refused; the viewer
+// can neither shelve on its own control subject nor speak for the
+// operator; the operator's shelve is applied with "by" its user name,
+// whatever the command says.
+func TestEmbeddedServerUsers(t *testing.T) {
+	hash := func(pw string) string {
+		h, err := bcrypt.GenerateFromPassword([]byte(pw), bcrypt.MinCost)
+		if err != nil {
+			t.Fatal(err)
+		}
+		return string(h)
+	}
+	op, err := nkeys.CreateUser()
+	if err != nil {
+		t.Fatal(err)
+	}
+	opPub, _ := op.PublicKey()
+	opSeed, _ := op.Seed()
+	dir := t.TempDir()
+	cfg, err := configs.Parse("users.yaml", []byte(`
+frames: {period: 1s}
+server:
+  embedded_port: -1
+  users:
+    - {name: gateway, password: "`+hash("gateway-secret")+`", publish: ["modewatch.readings.>"]}
+    - {name: jo, nkey: `+opPub+`, operator: true, subscribe: ["modewatch.alerts.>"]}
+    - {name: viewer, password: "`+hash("viewer-secret")+`", subscribe: ["modewatch.alerts.>"]}
+http: {listen: "off"}
+data_dir: `+filepath.Join(dir, "data")+`
+`))
+	if err != nil {
+		t.Fatal(err)
+	}
+	svc, err := Start(t.Context(), Options{Config: cfg})
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { svc.Shutdown(t.Context()) })
+	url := svc.Info().NATS
+	if _, err := nats.Connect(url); err == nil {
+		t.Fatal("connected without credentials")
+	}
+	if _, err := nats.Connect(url, nats.UserInfo("gateway", "wrong")); err == nil || !strings.Contains(strings.ToLower(err.Error()), "authorization") {
+		t.Fatalf("wrong password: %v, want an authorization violation", err)
+	}
+	connect := func(opts ...nats.Option) *nats.Conn {
+		nc, err := nats.Connect(url, opts...)
+		if err != nil {
+			t.Fatal(err)
+		}
+		t.Cleanup(nc.Close)
+		return nc
+	}
+	gateway := connect(nats.UserInfo("gateway", "gateway-secret"))
+	id := openMissingAlert(t, svc, gateway)
+
+	viewer := connect(nats.UserInfo("viewer", "viewer-secret"))
+	shelve := func(by string) []byte {
+		b, _ := json.Marshal(alerts.Command{Op: alerts.OpShelve, AlertID: id, For: alerts.Duration(time.Hour), By: by, Reason: "test"})
+		return b
+	}
+	for _, subj := range []string{"modewatch.control.viewer", "modewatch.control.jo", "modewatch.control"} {
+		if m, err := viewer.Request(subj, shelve("viewer"), time.Second); err == nil {
+			t.Errorf("viewer's shelve on %s answered: %s", subj, m.Data)
+		}
+	}
+	rec := func() alerts.Record {
+		for _, r := range svc.Pipeline().Alerts().Open(nil) {
+			if r.ID == id {
+				return r
+			}
+		}
+		t.Fatalf("alert %s closed", id)
+		return alerts.Record{}
+	}
+	if r := rec(); r.Shelved != nil {
+		t.Fatalf("shelved by a user without control permission: %+v", r.Shelved)
+	}
+
+	jo := connect(nats.Nkey(opPub, func(nonce []byte) ([]byte, error) {
+		kp, err := nkeys.FromSeed(opSeed)
+		if err != nil {
+			return nil, err
+		}
+		return kp.Sign(nonce)
+	}))
+	m, err := jo.Request("modewatch.control.jo", shelve("mallory"), 5*time.Second)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var rep alerts.Reply
+	if err := json.Unmarshal(m.Data, &rep); err != nil || !rep.OK {
+		t.Fatalf("operator's shelve: %s %v", m.Data, err)
+	}
+	if r := rec(); r.Shelved == nil || r.Shelved.By != "jo" {
+		t.Fatalf("shelved %+v, want by jo (the authenticated user)", r.Shelved)
+	}
+}
