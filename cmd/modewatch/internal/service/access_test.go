@@ -61,7 +61,7 @@ http:
   tokens:
     - {name: viewer, role: read, hash: "`+access.HashToken(reader)+`"}
     - {name: shift-lead, role: write, hash: "`+access.HashToken(writer)+`"}
-data_dir: `+filepath.Join(dir, "data")+`
+state_dir: `+filepath.Join(dir, "data")+`
 `))
 	if err != nil {
 		t.Fatal(err)
@@ -137,7 +137,7 @@ func TestHTTPLargeRequestsLimited(t *testing.T) {
 frames: {period: 1s}
 server: {embedded_port: -1}
 http: {listen: "127.0.0.1:0", large_requests: 1}
-data_dir: `+filepath.Join(dir, "data")+`
+state_dir: `+filepath.Join(dir, "data")+`
 `))
 	if err != nil {
 		t.Fatal(err)
@@ -180,7 +180,7 @@ data_dir: `+filepath.Join(dir, "data")+`
 // TestHTTPRefusesOpenNetworkListen: Start refuses a non-loopback listen
 // address without authentication unless open_access says it is meant.
 func TestHTTPRefusesOpenNetworkListen(t *testing.T) {
-	cfg := &configs.Config{Frames: configs.Frames{Period: time.Second}, DataDir: t.TempDir()}
+	cfg := &configs.Config{Frames: configs.Frames{Period: time.Second}, StateDir: t.TempDir()}
 	cfg.Server.EmbeddedPort = -1
 	cfg.HTTP.Listen = "0.0.0.0:0"
 	cfg.ApplyDefaults()
@@ -271,7 +271,7 @@ http:
   listen: "127.0.0.1:0"
   tls: {cert: `+f.serverCert+`, key: `+f.serverKey+`, client_ca: `+f.ca+`}
   clients: [{name: ops-console, role: write}]
-data_dir: `+filepath.Join(dir, "data")+`
+state_dir: `+filepath.Join(dir, "data")+`
 `))
 	if err != nil {
 		t.Fatal(err)

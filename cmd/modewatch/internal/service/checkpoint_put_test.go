@@ -24,7 +24,7 @@ frames: {period: 1s}
 model: {max_channels: 50}
 server: {embedded_port: -1}
 http: {listen: "127.0.0.1:0"}
-data_dir: `+filepath.Join(dir, "data")+`
+state_dir: `+filepath.Join(dir, "data")+`
 `))
 	if err != nil {
 		t.Fatal(err)

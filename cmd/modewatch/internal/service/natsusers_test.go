@@ -45,7 +45,7 @@ server:
     - {name: jo, nkey: `+opPub+`, operator: true, subscribe: ["modewatch.alerts.>"]}
     - {name: viewer, password: "`+hash("viewer-secret")+`", subscribe: ["modewatch.alerts.>"]}
 http: {listen: "off"}
-data_dir: `+filepath.Join(dir, "data")+`
+state_dir: `+filepath.Join(dir, "data")+`
 `))
 	if err != nil {
 		t.Fatal(err)

@@ -33,9 +33,9 @@ func TestShutdownWithWebhookDown(t *testing.T) {
 frames: {period: 1s}
 server: {embedded_port: -1}
 http: {listen: "off"}
-sinks: {webhook: `+hook.URL+`}
+delivery: {webhook: `+hook.URL+`}
 shutdown_timeout: 10s
-data_dir: `+filepath.Join(dir, "data")+`
+state_dir: `+filepath.Join(dir, "data")+`
 `))
 	if err != nil {
 		t.Fatal(err)
