@@ -166,6 +166,11 @@ type Intake struct {
 	// Files are line-protocol files (plain or .gz) read in order; "-" is
 	// standard input.
 	Files []string `yaml:"files"`
+	// StallExit: when no readings can be consumed for this long (NATS
+	// connection down or refused, consumer gone and not recreated), the
+	// service exits with status 1 so that a supervisor restarts it.
+	// Default 10m; "off" never exits (readiness still says so).
+	StallExit StallExit `yaml:"stall_exit"`
 	// Queue bounds the core-NATS messages waiting to be decoded; a message
 	// beyond either bound is dropped and counted (JetStream slows intake
 	// instead). Zero means the default of the message source (4096
@@ -186,6 +191,16 @@ type JetStream struct {
 	// Subjects the stream captures when the service has to create it
 	// (embedded server). Default: the Intake subjects.
 	Subjects []string `yaml:"subjects"`
+	// MaxAge and MaxBytes limit a stream the service creates: older
+	// readings, and the oldest beyond the size, are removed by the
+	// server. Defaults 7d and 1 GiB (see DefaultStreamMaxAge). An
+	// existing stream keeps its own limits.
+	MaxAge   time.Duration `yaml:"max_age"`
+	MaxBytes int64         `yaml:"max_bytes"`
+	// NoReset skips the consumer reset at start (for a durable shared
+	// with another reader, or an account that may not reset consumers).
+	// A server without the reset API is detected and skipped anyway.
+	NoReset bool `yaml:"no_reset"`
 }
 
 // Channel is one entry of the channel map: which line-protocol series it
@@ -405,6 +420,7 @@ func (c *Config) ApplyDefaults() {
 			c.Intake.JetStream.Subjects = []string{c.Server.Prefix + ".readings.>"}
 		}
 	}
+	c.applyIntakeDefaults()
 	if c.Frames.Precision == "" {
 		c.Frames.Precision = DefaultPrecision
 	}

@@ -133,6 +133,7 @@ func (c *Config) validateIntake(v *validator) {
 			v.add(fmt.Sprintf("intake.subjects[%d]", i), "%q is not a valid subject", s)
 		}
 	}
+	c.validateIntakeLimits(v)
 	js := c.Intake.JetStream
 	if js.Durable != "" && js.Stream == "" {
 		v.add("intake.jetstream", "durable %q needs a stream", js.Durable)

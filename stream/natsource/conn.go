@@ -283,6 +283,7 @@ type ConnStats struct {
 	Reconnects    uint64
 	AsyncErrors   uint64
 	SlowConsumers uint64 // slow-consumer errors reported by the client library
+	AuthRejects   uint64 // reconnect attempts the server refused for the credentials
 	InMsgs        uint64
 	InBytes       uint64
 }
@@ -300,6 +301,7 @@ type Conn struct {
 	reconnects    atomic.Uint64
 	asyncErrs     atomic.Uint64
 	slowConsumers atomic.Uint64
+	authRejects   atomic.Uint64
 	closed        chan struct{}
 	closeOnce     sync.Once
 }
@@ -366,6 +368,11 @@ func Connect(ctx context.Context, opts Options, log *slog.Logger) (*Conn, error)
 			c.log.Info("reconnected", "url", u)
 			c.emit(Event{Kind: EventReconnected, URL: u})
 		}),
+		// A server that rejects the credentials on a reconnect (a password
+		// rotated) is tried again with the backoff above, not given up
+		// after two rejections as nats.go does by default; each rejection
+		// is logged as an error and counted.
+		nats.IgnoreAuthErrorAbort(),
 		nats.ClosedHandler(func(nc *nats.Conn) { c.markClosed(nc.LastError()) }),
 		nats.ErrorHandler(func(nc *nats.Conn, sub *nats.Subscription, err error) {
 			c.asyncErrs.Add(1)
@@ -375,6 +382,13 @@ func Connect(ctx context.Context, opts Options, log *slog.Logger) (*Conn, error)
 			}
 			if errors.Is(err, nats.ErrSlowConsumer) {
 				c.slowConsumers.Add(1)
+			}
+			if isAuthErr(err) { // a reconnect refused (see IgnoreAuthErrorAbort above)
+				c.authRejects.Add(1)
+				c.log.Error("the server rejected the credentials; trying again with backoff", "err", err,
+					"rejections", c.authRejects.Load())
+				c.emit(ev)
+				return
 			}
 			c.log.Warn("asynchronous error", "subject", ev.Subject, "err", err)
 			c.emit(ev)
@@ -506,6 +520,7 @@ func (c *Conn) Stats() ConnStats {
 		Reconnects:    c.reconnects.Load(),
 		AsyncErrors:   c.asyncErrs.Load(),
 		SlowConsumers: c.slowConsumers.Load(),
+		AuthRejects:   c.authRejects.Load(),
 		InMsgs:        s.InMsgs,
 		InBytes:       s.InBytes,
 	}

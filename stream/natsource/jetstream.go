@@ -89,6 +89,32 @@ type JetStreamConfig struct {
 	// PullBatch is the number of messages the client buffers ahead of the
 	// handler; default 256, never more than MaxAckPending.
 	PullBatch int
+	// Recreate makes the consumer survive its deletion on the server (an
+	// administrator's mistake, a stream deleted with it): the stream is
+	// created again when CreateStream allows, the consumer is created
+	// again to start after the last message handed to the handler (or at
+	// the start of a new stream), and consuming goes on, retried with
+	// backoff until it succeeds or Stop. OnRecreate (if set) is called
+	// after each recreation, from the delivery goroutine, so the caller
+	// can report the gap. Not with BindOnly.
+	Recreate   bool
+	OnRecreate func(Recreated)
+}
+
+// Recreated describes a recreation of the consumer (JetStreamConfig.Recreate).
+type Recreated struct {
+	// StreamRecreated: the stream was gone and was created again empty;
+	// whatever it held and whatever was published meanwhile is lost.
+	StreamRecreated bool
+	// AfterSeq is the stream sequence of the last message handed to the
+	// handler before the deletion; the new consumer starts after it (0:
+	// none, or the stream is new).
+	AfterSeq uint64
+	// Since is when the deletion was noticed; the consumer was recreated
+	// at Time.
+	Since, Time time.Time
+	// Err is the error that reported the deletion.
+	Err error
 }
 
 func (cfg *JetStreamConfig) validate() error {
@@ -122,6 +148,7 @@ type JetStreamStats struct {
 	DeliveryGaps  uint64 // deliveries that never arrived (lost in flight); redelivered after AckWait
 	FloorErrors   uint64 // failed acknowledgement-floor queries (Tracker set)
 	Recoveries    uint64 // resets requested after deliveries were lost in flight (Tracker set)
+	Recreated     uint64 // consumer recreations after its deletion (Recreate set)
 }
 
 // JSConsumer is a running JetStream durable pull consumer; create it with
@@ -143,6 +170,18 @@ type JSConsumer struct {
 	gaps, floorErrs, recoveries                                   atomic.Uint64
 	idle                                                          atomic.Bool // run is waiting for the next message
 	lastDelivery                                                  uint64      // consumer (delivery) sequence of the last message; run goroutine only
+
+	// Recreation (JetStreamConfig.Recreate).
+	js         jetstream.JetStream
+	cfg        JetStreamConfig
+	cc         jetstream.ConsumerConfig
+	batch      int
+	mu         sync.Mutex // guards cons, it and stopped
+	stopped    bool
+	lastSeq    uint64      // stream sequence of the last message handed over; run goroutine only
+	down       atomic.Bool // the consumer is gone and being recreated
+	downReason atomic.Pointer[string]
+	recreated  atomic.Uint64
 }
 
 // ConsumeJetStream binds to (or creates, see cfg) the durable pull consumer
@@ -199,10 +238,11 @@ func (c *Conn) ConsumeJetStream(ctx context.Context, cfg JetStreamConfig, h Hand
 	}
 	batch = min(batch, maxAck)
 	var cons jetstream.Consumer
+	var cc jetstream.ConsumerConfig
 	if cfg.BindOnly {
 		cons, err = js.Consumer(ctx, cfg.Stream, cfg.Durable)
 	} else {
-		cc := jetstream.ConsumerConfig{
+		cc = jetstream.ConsumerConfig{
 			Durable:       cfg.Durable,
 			AckPolicy:     jetstream.AckExplicitPolicy,
 			AckWait:       orDur(cfg.AckWait, DefaultAckWait),
@@ -229,7 +269,12 @@ func (c *Conn) ConsumeJetStream(ctx context.Context, cfg JetStreamConfig, h Hand
 		return nil, fmt.Errorf("natsource: jetstream consumer %q on stream %q: %w", cfg.Durable, cfg.Stream, err)
 	}
 	if !cfg.NoReset {
-		if err := resetConsumer(ctx, js, cfg, firstSeq, lastSeq, c.log); err != nil {
+		err := resetConsumer(ctx, js, cfg, firstSeq, lastSeq, c.log)
+		if errors.Is(err, ErrNoResetAPI) {
+			c.log.Warn("the server has no consumer-reset API (NATS server older than the one this was built with); going on without resets: unacknowledged messages come again after AckWait",
+				"stream", cfg.Stream, "consumer", cfg.Durable, "err", err)
+			cfg.NoReset = true
+		} else if err != nil {
 			return nil, err
 		}
 	}
@@ -250,6 +295,7 @@ func (c *Conn) ConsumeJetStream(ctx context.Context, cfg JetStreamConfig, h Hand
 		cons: cons,
 		it:   it,
 		done: make(chan struct{}),
+		js:   js, cfg: cfg, cc: cc, batch: batch,
 	}
 	s.ctx, s.cancel = context.WithCancel(context.Background())
 	s.wg.Add(1)
@@ -297,7 +343,7 @@ func (s *JSConsumer) syncFloor(tr *AckTracker, every time.Duration, reset func(c
 			return
 		case <-tick.C:
 			ctx, cancel := context.WithTimeout(s.ctx, every)
-			ci, err := s.cons.Info(ctx)
+			ci, err := s.consumer().Info(ctx)
 			cancel()
 			if err != nil {
 				s.floorErrs.Add(1)
@@ -333,25 +379,150 @@ func (s *JSConsumer) syncFloor(tr *AckTracker, every time.Duration, reset func(c
 	}
 }
 
+// consumer returns the current consumer (it changes when recreated).
+func (s *JSConsumer) consumer() jetstream.Consumer {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	return s.cons
+}
+
+func (s *JSConsumer) iter() jetstream.MessagesContext {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	return s.it
+}
+
+// gone reports an error of the message iterator that means the consumer
+// no longer exists on the server.
+func gone(err error) bool {
+	return errors.Is(err, jetstream.ErrConsumerDeleted) || errors.Is(err, jetstream.ErrConsumerNotFound) ||
+		errors.Is(err, jetstream.ErrStreamNotFound) || errors.Is(err, jetstream.ErrBadRequest)
+}
+
+// Down reports whether the consumer is gone on the server and being
+// recreated, and why.
+func (s *JSConsumer) Down() (bool, string) {
+	if !s.down.Load() {
+		return false, ""
+	}
+	if r := s.downReason.Load(); r != nil {
+		return true, *r
+	}
+	return true, "consumer gone"
+}
+
+// recreate creates the stream (if gone and allowed) and the consumer again
+// and installs a new message iterator, retrying with backoff until it
+// succeeds (true) or the consumer is stopped (false).
+func (s *JSConsumer) recreate(cause error) bool {
+	since := time.Now()
+	reason := fmt.Sprintf("consumer %q of stream %q gone on the server (%v); recreating", s.cfg.Durable, s.cfg.Stream, cause)
+	s.downReason.Store(&reason)
+	s.down.Store(true)
+	defer s.down.Store(false)
+	s.log.Error("consumer gone on the server; recreating it", "err", cause, "last_stream_seq", s.lastSeq)
+	for attempt := 1; ; attempt++ {
+		ev, err := s.recreateOnce(cause)
+		if err == nil {
+			ev.Since, ev.Time = since, time.Now()
+			s.recreated.Add(1)
+			s.lastDelivery = 0 // delivery sequences restart with the consumer
+			s.log.Warn("consumer recreated; readings published while it was gone may be missing",
+				"stream_recreated", ev.StreamRecreated, "after_stream_seq", ev.AfterSeq, "gap", ev.Time.Sub(since).Round(time.Millisecond))
+			if s.cfg.OnRecreate != nil {
+				s.cfg.OnRecreate(ev)
+			}
+			return true
+		}
+		s.log.Error("recreating the consumer failed; trying again", "attempt", attempt, "err", err)
+		select {
+		case <-s.ctx.Done():
+			return false
+		case <-time.After(backoff(attempt, 250*time.Millisecond, 30*time.Second, 100*time.Millisecond)):
+		}
+	}
+}
+
+func (s *JSConsumer) recreateOnce(cause error) (Recreated, error) {
+	ctx, cancel := context.WithTimeout(s.ctx, 10*time.Second)
+	defer cancel()
+	ev := Recreated{Err: cause, AfterSeq: s.lastSeq}
+	if _, err := s.js.Stream(ctx, s.cfg.Stream); err != nil {
+		if !errors.Is(err, jetstream.ErrStreamNotFound) || !s.cfg.CreateStream {
+			return ev, fmt.Errorf("stream %q: %w", s.cfg.Stream, err)
+		}
+		sc := jetstream.StreamConfig{Name: s.cfg.Stream, Subjects: s.cfg.StreamSubjects, Storage: jetstream.FileStorage,
+			MaxAge: s.cfg.StreamMaxAge, MaxBytes: s.cfg.StreamMaxBytes}
+		if s.cfg.StreamMemory {
+			sc.Storage = jetstream.MemoryStorage
+		}
+		if sc.MaxBytes == 0 {
+			sc.MaxBytes = -1
+		}
+		if _, err := s.js.CreateStream(ctx, sc); err != nil && !errors.Is(err, jetstream.ErrStreamNameAlreadyInUse) {
+			return ev, fmt.Errorf("create stream %q: %w", s.cfg.Stream, err)
+		}
+		ev.StreamRecreated, ev.AfterSeq = true, 0
+	}
+	cc := s.cc
+	if ev.AfterSeq > 0 {
+		cc.DeliverPolicy, cc.OptStartSeq = jetstream.DeliverByStartSequencePolicy, ev.AfterSeq+1
+	}
+	cons, err := s.js.CreateOrUpdateConsumer(ctx, s.cfg.Stream, cc)
+	if err != nil {
+		return ev, fmt.Errorf("create consumer %q: %w", s.cfg.Durable, err)
+	}
+	it, err := cons.Messages(jetstream.PullMaxMessages(s.batch), jetstream.WithMessagesErrOnMissingHeartbeat(false))
+	if err != nil {
+		return ev, fmt.Errorf("consume %q: %w", s.cfg.Durable, err)
+	}
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	if s.stopped {
+		it.Stop()
+		return ev, errors.New("stopped")
+	}
+	s.cons, s.it = cons, it
+	if ev.StreamRecreated {
+		s.lastSeq = 0
+	}
+	return ev, nil
+}
+
 func (s *JSConsumer) run() {
 	defer s.wg.Done()
 	defer close(s.done)
 	defer s.cancel()
 	for {
 		s.idle.Store(true)
-		jm, err := s.it.Next()
+		jm, err := s.iter().Next()
 		s.idle.Store(false)
 		if err != nil {
 			if errors.Is(err, jetstream.ErrMsgIteratorClosed) {
-				if errors.Is(err, jetstream.ErrConnectionClosed) || errors.Is(err, nats.ErrConnectionClosed) {
+				s.mu.Lock()
+				stopped := s.stopped
+				s.mu.Unlock()
+				switch {
+				case errors.Is(err, jetstream.ErrConnectionClosed) || errors.Is(err, nats.ErrConnectionClosed):
 					s.err = fmt.Errorf("natsource: jetstream consumer: %w: %w", ErrClosed, err)
+				case !stopped && s.cfg.Recreate && !s.cfg.BindOnly:
+					if s.recreate(err) { // closed by the server side: start again
+						continue
+					}
 				}
 				return
 			}
-			if errors.Is(err, jetstream.ErrConsumerDeleted) || errors.Is(err, jetstream.ErrBadRequest) {
+			if gone(err) {
+				if s.cfg.Recreate && !s.cfg.BindOnly {
+					s.iter().Stop()
+					if s.recreate(err) {
+						continue
+					}
+					return
+				}
 				s.err = fmt.Errorf("natsource: jetstream consumer: %w", err)
 				s.log.Error("consumer stopped", "err", err)
-				s.it.Stop()
+				s.iter().Stop()
 				return
 			}
 			s.pullErrs.Add(1)
@@ -379,6 +550,7 @@ func (s *JSConsumer) run() {
 				"missing", k, "after_delivery_seq", s.lastDelivery)
 		}
 		s.lastDelivery = md.Sequence.Consumer
+		s.lastSeq = md.Sequence.Stream
 		s.delivered.Add(1)
 		m := Msg{Subject: jm.Subject(), Data: jm.Data(), Seq: md.Sequence.Stream, Ack: func() error {
 			if err := jm.Ack(); err != nil {
@@ -403,7 +575,10 @@ func (s *JSConsumer) run() {
 func (s *JSConsumer) Stop(ctx context.Context) error {
 	s.once.Do(func() {
 		s.cancel()
+		s.mu.Lock()
+		s.stopped = true
 		s.it.Stop()
+		s.mu.Unlock()
 	})
 	select {
 	case <-s.done:
@@ -431,7 +606,7 @@ func (s *JSConsumer) Err() error {
 // Info returns the consumer's state on the server (pending and
 // unacknowledged counts, delivered and acknowledged floors).
 func (s *JSConsumer) Info(ctx context.Context) (*jetstream.ConsumerInfo, error) {
-	ci, err := s.cons.Info(ctx)
+	ci, err := s.consumer().Info(ctx)
 	if err != nil {
 		return nil, fmt.Errorf("natsource: consumer info: %w", err)
 	}
@@ -450,12 +625,25 @@ func (s *JSConsumer) Stats() JetStreamStats {
 		DeliveryGaps:  s.gaps.Load(),
 		FloorErrors:   s.floorErrs.Load(),
 		Recoveries:    s.recoveries.Load(),
+		Recreated:     s.recreated.Load(),
 	}
 }
+
+// ErrNoResetAPI reports a server that does not answer the consumer-reset
+// request (servers before the API existed, e.g. NATS 2.9 and 2.10): the
+// request times out or finds no responder. ConsumeJetStream then goes on
+// as with NoReset.
+var ErrNoResetAPI = errors.New("natsource: the server has no consumer-reset API")
+
+// resetWait bounds a consumer-reset request: a server without the API
+// does not answer it.
+const resetWait = 5 * time.Second
 
 // resetConsumer makes the server deliver again everything after
 // cfg.Resume.Seq (or after the acknowledgement floor) in sequence order.
 func resetConsumer(ctx context.Context, js jetstream.JetStream, cfg JetStreamConfig, firstSeq, lastSeq uint64, log *slog.Logger) error {
+	ctx, cancel := context.WithTimeout(ctx, resetWait)
+	defer cancel()
 	var err error
 	switch {
 	case cfg.Resume == nil || lastSeq == 0:
@@ -474,6 +662,9 @@ func resetConsumer(ctx context.Context, js jetstream.JetStream, cfg JetStreamCon
 				"checkpoint_seq", cfg.Resume.Seq, "consumer", cfg.Durable)
 			_, err = js.ResetConsumer(ctx, cfg.Stream, cfg.Durable)
 		}
+	}
+	if errors.Is(err, context.DeadlineExceeded) || errors.Is(err, nats.ErrNoResponders) || errors.Is(err, nats.ErrTimeout) {
+		return fmt.Errorf("%w: reset of consumer %q on stream %q: %w", ErrNoResetAPI, cfg.Durable, cfg.Stream, err)
 	}
 	if err != nil {
 		return fmt.Errorf("natsource: reset jetstream consumer %q on stream %q (set no_reset to skip): %w", cfg.Durable, cfg.Stream, err)

@@ -2,6 +2,7 @@ package cli
 
 import (
 	"context"
+	"errors"
 	"fmt"
 	"log/slog"
 	"os"
@@ -69,7 +70,13 @@ func runRun(ctx context.Context, env IO, args []string) error {
 	info := svc.Info()
 	fmt.Fprintf(env.Err, "modewatch running: readings %v via %s; alerts on %s, scores on %s; HTTP %s\n",
 		info.Readings, info.NATS, info.Alerts, info.Scores, info.HTTP)
-	<-ctx.Done()
+	select {
+	case <-ctx.Done():
+	case <-svc.Failed(): // readings not consumed for intake.stall_exit
+		sctx, cancel := context.WithTimeout(context.Background(), cfg.ShutdownTimeout)
+		defer cancel()
+		return errors.Join(svc.Err(), svc.Shutdown(sctx))
+	}
 	if env.Signals != nil {
 		env.Signals() // a second signal now ends the process at once
 	}

@@ -13,7 +13,6 @@ import (
 	"modewatch/alerts"
 	"modewatch/cmd/modewatch/internal/access"
 	"modewatch/cmd/modewatch/internal/pipeline"
-	"modewatch/stream/natsource"
 )
 
 // Caution is served by the API index and printed by the demo.
@@ -169,15 +168,19 @@ func (m *guardedMux) Handle(pattern string, h http.Handler) {
 func (m *guardedMux) HandleFunc(pattern string, h http.HandlerFunc) { m.Handle(pattern, h) }
 
 func (s *Service) readyz(w http.ResponseWriter, r *http.Request) {
-	st := s.conn.State()
-	switch {
-	case !s.ready.Load():
+	if !s.ready.Load() {
 		writeJSON(w, http.StatusServiceUnavailable, map[string]string{"status": "not ready", "reason": "starting or stopping"})
-	case st != natsource.StateConnected:
-		writeJSON(w, http.StatusServiceUnavailable, map[string]string{"status": "not ready", "reason": "NATS " + st.String()})
-	default:
-		writeJSON(w, http.StatusOK, map[string]string{"status": "ready"})
+		return
 	}
+	if ok, why := s.consuming(); !ok {
+		body := map[string]any{"status": "not ready", "reason": "readings are not consumed: " + why}
+		if d := s.stalled(); d > 0 {
+			body["stalled_s"] = d.Seconds()
+		}
+		writeJSON(w, http.StatusServiceUnavailable, body)
+		return
+	}
+	writeJSON(w, http.StatusOK, map[string]string{"status": "ready"})
 }
 
 // command decodes an operator command from the body (at most 64 KiB),

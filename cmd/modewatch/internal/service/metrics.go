@@ -22,6 +22,7 @@ type metrics struct {
 	queueDepth, dropped, deliveryDepth, deliveryPending, deliveryDropped *prometheus.Desc
 	deliveryDone, ckptTime, ckptErrors, scoreErrors                      *prometheus.Desc
 	unitMemory, unitRefused                                              *prometheus.Desc
+	consuming, stalledSec, authRejects, recreations                      *prometheus.Desc
 }
 
 func newMetrics(s *Service) *metrics {
@@ -54,6 +55,10 @@ func newMetrics(s *Service) *metrics {
 		natsUp:          d("nats_connected", "1 while connected to a NATS server."),
 		natsReconnects:  d("nats_reconnects_total", "Reconnections to NATS."),
 		natsDisconnects: d("nats_disconnects_total", "Disconnections from NATS."),
+		consuming:       d("readings_consumed", "1 while readings are being consumed (connected, consumer running); 0 says readiness fails."),
+		stalledSec:      d("readings_stalled_seconds", "Seconds since readings stopped being consumed (0 while they are)."),
+		authRejects:     d("nats_auth_rejections_total", "Reconnect attempts the NATS server refused for the credentials."),
+		recreations:     d("jetstream_consumer_recreations_total", "Times the JetStream consumer (or its stream) was recreated after its deletion."),
 		queueDepth:      d("readings_queue_depth", "Messages waiting in the readings queue."),
 		dropped:         d("readings_dropped_total", "Messages dropped because the readings queue was full."),
 		deliveryDepth:   d("delivery_queue_depth", "Alert records waiting in a delivery target's queue.", "target"),
@@ -75,7 +80,8 @@ func (m *metrics) Describe(ch chan<- *prometheus.Desc) {
 	for _, d := range []*prometheus.Desc{m.frames, m.unitFrames, m.lines, m.rejected, m.readings, m.stat, m.limit, m.ready,
 		m.nEff, m.modes, m.iters, m.missing, m.warming, m.refreshes, m.refreshTime, m.alertsOpen, m.alertsOpened, m.alertsHour, m.floods, m.inMaint, m.natsUp,
 		m.natsReconnects, m.natsDisconnects, m.queueDepth, m.dropped, m.deliveryDepth, m.deliveryPending, m.deliveryDropped,
-		m.deliveryDone, m.ckptTime, m.ckptErrors, m.scoreErrors, m.unitMemory, m.unitRefused} {
+		m.deliveryDone, m.ckptTime, m.ckptErrors, m.scoreErrors, m.unitMemory, m.unitRefused,
+		m.consuming, m.stalledSec, m.authRejects, m.recreations} {
 		ch <- d
 	}
 }
@@ -152,6 +158,11 @@ func (m *metrics) Collect(ch chan<- prometheus.Metric) {
 		g(m.natsUp, b(cs.State == natsource.StateConnected))
 		c(m.natsReconnects, float64(cs.Reconnects))
 		c(m.natsDisconnects, float64(cs.Disconnects))
+		c(m.authRejects, float64(cs.AuthRejects))
+		ok, _ := s.consuming()
+		g(m.consuming, b(ok))
+		g(m.stalledSec, s.stalled().Seconds())
+		c(m.recreations, float64(s.recreations.Load()))
 	}
 	if s.core != nil {
 		cs := s.core.Stats()

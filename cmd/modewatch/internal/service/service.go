@@ -101,6 +101,12 @@ type Service struct {
 	lastWall map[string]time.Time
 	started  time.Time
 
+	// Readings not consumed since (unix ns, 0: consumed); see stallLoop.
+	stalledSince atomic.Int64
+	failed       chan struct{}
+	failErr      error
+	recreations  atomic.Uint64
+
 	stopOnce sync.Once
 	wg       sync.WaitGroup
 	done     chan struct{}
@@ -113,7 +119,7 @@ func Start(ctx context.Context, opt Options) (_ *Service, err error) {
 	if opt.Stdout == nil {
 		opt.Stdout = os.Stdout
 	}
-	s := &Service{cfg: cfg, opt: opt, log: log, scoreSubj: map[string]string{}, recent: map[string]alerts.Record{}, ckptNow: make(chan struct{}, 1), done: make(chan struct{}),
+	s := &Service{cfg: cfg, opt: opt, log: log, scoreSubj: map[string]string{}, recent: map[string]alerts.Record{}, ckptNow: make(chan struct{}, 1), done: make(chan struct{}), failed: make(chan struct{}),
 		lastWall: map[string]time.Time{}, started: time.Now()}
 	defer func() {
 		if err != nil {
@@ -243,6 +249,9 @@ func Start(ctx context.Context, opt Options) (_ *Service, err error) {
 			// Created if missing (capturing jetstream.subjects, default the
 			// readings subjects); an existing stream is used as it is.
 			CreateStream: len(js.Subjects) > 0, StreamSubjects: js.Subjects,
+			StreamMaxAge: js.MaxAge, StreamMaxBytes: js.MaxBytes, NoReset: js.NoReset,
+			// A consumer or stream deleted on the server is created again.
+			Recreate: true, OnRecreate: s.onRecreate,
 			MaxAckPending: s.ackCap,
 			// Acknowledgements wait for the checkpoint that covers the
 			// message (see heldAck), so the server must wait longer.
@@ -273,6 +282,8 @@ func Start(ctx context.Context, opt Options) (_ *Service, err error) {
 	every, stall := tickTiming(period, cfg.Frames.Lateness)
 	s.wg.Add(1)
 	go s.tickLoop(every, stall)
+	s.wg.Add(1)
+	go s.stallLoop()
 	s.ready.Store(true)
 	log.Info("modewatch is running (advisory: it never acts on the plant)", "readings", s.info.Readings,
 		"alerts", s.info.Alerts, "scores", s.info.Scores, "http", s.info.HTTP, "period", period)
