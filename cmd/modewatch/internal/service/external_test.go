@@ -1,0 +1,135 @@
+package service
+
+import (
+	"bytes"
+	"context"
+	"fmt"
+	"log/slog"
+	"net"
+	"os"
+	"os/exec"
+	"path/filepath"
+	"regexp"
+	"strconv"
+	"sync"
+	"testing"
+	"time"
+
+	"github.com/nats-io/nats.go"
+
+	"modewatch/configs"
+)
+
+// minServerVersion is the oldest NATS server release the service is
+// tested against (TestExternalOldestServer).
+const minServerVersion = "2.9"
+
+// externalServer finds a nats-server binary: $MODEWATCH_NATS_SERVER, else
+// nats-server on the PATH. It skips the test, saying how to get one, when
+// there is none.
+func externalServer(t *testing.T) (bin, version string) {
+	t.Helper()
+	bin = os.Getenv("MODEWATCH_NATS_SERVER")
+	if bin == "" {
+		var err error
+		if bin, err = exec.LookPath("nats-server"); err != nil {
+			t.Skipf("no external nats-server binary on this machine: set MODEWATCH_NATS_SERVER to one of release %s "+
+				"(e.g. built with: go install github.com/nats-io/nats-server/v2@v2.9.25)", minServerVersion)
+		}
+	}
+	out, err := exec.Command(bin, "--version").CombinedOutput()
+	if err != nil {
+		t.Fatalf("%s --version: %v: %s", bin, err, out)
+	}
+	m := regexp.MustCompile(`v?(\d+\.\d+\.\d+)`).FindSubmatch(out)
+	if m == nil {
+		t.Fatalf("%s --version: no version in %q", bin, out)
+	}
+	return bin, string(m[1])
+}
+
+// TestExternalOldestServer runs the service with JetStream intake against
+// an external nats-server process of the oldest supported release (2.9,
+// which has no consumer-reset API: the service must detect that and go
+// on): the readings stream is created with its limits, readings published
+// to it are scored, and /readyz answers ready.
+func TestExternalOldestServer(t *testing.T) {
+	bin, version := externalServer(t)
+	t.Logf("external server %s, version %s", bin, version)
+	ln, err := net.Listen("tcp", "127.0.0.1:0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	port := ln.Addr().(*net.TCPAddr).Port
+	ln.Close()
+	dir := t.TempDir()
+	var logs bytes.Buffer
+	cmd := exec.Command(bin, "-a", "127.0.0.1", "-p", strconv.Itoa(port), "-js", "-sd", filepath.Join(dir, "js"))
+	cmd.Stdout, cmd.Stderr = &logs, &logs
+	if err := cmd.Start(); err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { cmd.Process.Kill(); cmd.Wait() })
+	url := fmt.Sprintf("nats://127.0.0.1:%d", port)
+	waitUntil(t, 10*time.Second, "external server accepting connections", func() bool {
+		nc, err := nats.Connect(url)
+		if err == nil {
+			nc.Close()
+		}
+		return err == nil
+	})
+	cfg, err := configs.Parse("ext.yaml", []byte(`
+frames: {period: 1s}
+server: {urls: [`+url+`]}
+intake: {jetstream: {stream: READINGS, max_age: 1h, max_bytes: 67108864}}
+http: {listen: "127.0.0.1:0"}
+state_dir: `+filepath.Join(dir, "data")+`
+`))
+	if err != nil {
+		t.Fatal(err)
+	}
+	start := time.Now()
+	var svcLog syncBuffer
+	svc, err := Start(t.Context(), Options{Config: cfg, Log: slog.New(slog.NewTextHandler(&svcLog, nil))})
+	if err != nil {
+		t.Fatalf("start against nats-server %s: %v\n%s", version, err, logs.String())
+	}
+	t.Cleanup(func() {
+		ctx, cancel := context.WithTimeout(context.Background(), 5*time.Second)
+		defer cancel()
+		svc.Shutdown(ctx)
+	})
+	t.Logf("started in %v", time.Since(start))
+	nc, err := nats.Connect(url)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer nc.Close()
+	id := openMissingAlert(t, svc, nc)
+	t.Logf("alert %s from readings through nats-server %s", id, version)
+	code, reason := readyz(t, svc)
+	if code != 200 {
+		t.Errorf("/readyz %d: %s", code, reason)
+	}
+	if old := regexp.MustCompile(`^2\.(9|10)\.`).MatchString(version); old && !bytes.Contains(svcLog.Bytes(), []byte("no consumer-reset API")) {
+		t.Errorf("nats-server %s has no consumer-reset API, but the fallback was not logged", version)
+	}
+}
+
+// syncBuffer is a bytes.Buffer safe for a logger and a reader.
+type syncBuffer struct {
+	mu sync.Mutex
+	b  bytes.Buffer
+}
+
+func (s *syncBuffer) Write(p []byte) (int, error) {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	return s.b.Write(p)
+}
+
+func (s *syncBuffer) Bytes() []byte {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	return bytes.Clone(s.b.Bytes())
+}
