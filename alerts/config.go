@@ -131,6 +131,7 @@ func DefaultQuality() map[string]QualityRule {
 		QualityStale:      {Hold: time.Minute, OffDelay: time.Minute, Severity: "low"},
 		QualityMissing:    {Hold: 5 * time.Minute, OffDelay: time.Minute, Severity: "low"},
 		QualitySilent:     {Hold: 0, OffDelay: 0, Severity: "medium"},
+		QualityIntakeGap:  {Hold: 0, OffDelay: time.Minute, Severity: "medium"},
 	}
 }
 
@@ -291,7 +292,7 @@ func (c Config) Validate() error {
 	}
 	for k, q := range c.Quality {
 		switch k {
-		case QualityStuck, QualityOutOfRange, QualityStale, QualityMissing, QualitySilent:
+		case QualityStuck, QualityOutOfRange, QualityStale, QualityMissing, QualitySilent, QualityIntakeGap:
 		default:
 			errs = append(errs, fmt.Errorf("alerts: quality[%s]: unknown kind", k))
 		}

@@ -15,6 +15,10 @@ const (
 	QualityOutOfRange = "out_of_range" // outside its valid range
 	QualityStale      = "stale"        // no fresh value within the staleness limit
 	QualityMissing    = "missing"      // missing (also derived from Observation.Missing)
+	// QualityIntakeGap: readings may be lost upstream of the unit (the
+	// readings consumer or stream was deleted and recreated); Channel
+	// names the intake rather than one channel.
+	QualityIntakeGap = "intake_gap"
 )
 
 // Model states accepted in Observation.ModelState.

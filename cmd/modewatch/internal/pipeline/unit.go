@@ -38,6 +38,7 @@ type Unit struct {
 	lastAt      []int64
 	baseline    bool        // started from a fitted model
 	alertFrozen atomic.Bool // set by the alarm engine
+	gap         atomic.Bool // readings may have been lost upstream (NoteIntakeGap); reported at the next frame
 	frozen      bool        // the tracker is frozen now
 	failed      error       // the model could not be built; the unit is not scored
 
@@ -123,6 +124,18 @@ func (u *Unit) addChannel(i int, name string) bool {
 	u.idx = append(u.idx, i)
 	u.names = append(u.names, name)
 	return true
+}
+
+// IntakeChannel is the channel name of an intake-gap quality alert.
+const IntakeChannel = "(intake)"
+
+// NoteIntakeGap tells every unit that readings may have been lost upstream
+// (the readings consumer or stream was recreated): each raises an
+// intake-gap quality alert at its next frame. Safe from any goroutine.
+func (p *Pipeline) NoteIntakeGap() {
+	for _, u := range p.Units() {
+		u.gap.Store(true)
+	}
 }
 
 // maxRefusedShown bounds the refused channel names a unit keeps for its view.
@@ -365,6 +378,9 @@ func (u *Unit) observe(t time.Time) {
 		}
 	}
 	o.Quality = u.screen.AppendQuality(o.Quality)
+	if u.gap.Swap(false) {
+		o.Quality = append(o.Quality, alerts.Quality{Channel: IntakeChannel, Kind: alerts.QualityIntakeGap})
+	}
 	if s.Ready {
 		// Before a channel has the warm-up frames its variance is not yet
 		// estimated, so "stuck" is only reported once scoring starts and,

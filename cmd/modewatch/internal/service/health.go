@@ -95,6 +95,7 @@ func (s *Service) stalled() time.Duration {
 // a deleted stream everything it held, may be missing from every unit.
 func (s *Service) onRecreate(ev natsource.Recreated) {
 	s.recreations.Add(1)
+	s.pl.NoteIntakeGap() // a quality alert of each unit at its next frame
 	units := make([]string, 0, 8)
 	for _, u := range s.pl.Units() {
 		units = append(units, u.Name)

@@ -13,6 +13,7 @@ import (
 	"github.com/nats-io/nats.go"
 	"github.com/nats-io/nats.go/jetstream"
 
+	"modewatch/alerts"
 	"modewatch/configs"
 	"modewatch/stream/natsource/natstest"
 )
@@ -92,6 +93,16 @@ state_dir: `+filepath.Join(dir, "data")+`
 	publish(200, 300)
 	waitUntil(t, 20*time.Second, "frames up to 295 s after the stream was recreated", framesUpTo(295))
 	waitUntil(t, 5*time.Second, "ready again", func() bool { code, _ := readyz(t, svc); return code == http.StatusOK })
+	gaps := 0
+	for _, r := range svc.Records() {
+		if r.Unit == "rc" && r.Quality != nil && r.Quality.Kind == alerts.QualityIntakeGap {
+			gaps++
+		}
+	}
+	if gaps == 0 {
+		t.Error("no intake-gap quality alert of unit rc")
+	}
+	t.Logf("%d intake-gap alert(s) of unit rc", gaps)
 }
 
 // TestPasswordRotation: on a separately started in-process server, the
