@@ -52,18 +52,7 @@ func TestHTTPTokenEntries(t *testing.T) {
 		{"duplicate", `[{name: jo, role: read, hash: "` + good + `"}, {name: jo, role: write, hash: "` + good + `"}]`, "also the name"},
 	}
 	for _, c := range cases {
-		t.Run(c.name, func(t *testing.T) {
-			_, err := Parse("tok.yaml", []byte("http: {tokens: "+c.tokens+"}\n"))
-			if c.want == "" {
-				if err != nil {
-					t.Fatal(err)
-				}
-				return
-			}
-			if err == nil || !strings.Contains(err.Error(), c.want) {
-				t.Errorf("err %v, want %q", err, c.want)
-			}
-		})
+		t.Run(c.name, func(t *testing.T) { wantParse(t, "http: {tokens: "+c.tokens+"}\n", c.want) })
 	}
 }
 
@@ -106,20 +95,22 @@ func TestNATSUsers(t *testing.T) {
 		{"service name", `[{name: modewatch-service, password: "` + bc + `"}]`, "service's own user"},
 	}
 	for _, c := range cases {
-		t.Run(c.name, func(t *testing.T) {
-			_, err := Parse("u.yaml", []byte("server: {users: "+c.users+"}\n"))
-			if c.want == "" {
-				if err != nil {
-					t.Fatal(err)
-				}
-				return
-			}
-			if err == nil || !strings.Contains(err.Error(), c.want) {
-				t.Errorf("err %v, want %q", err, c.want)
-			}
-		})
+		t.Run(c.name, func(t *testing.T) { wantParse(t, "server: {users: "+c.users+"}\n", c.want) })
 	}
 	if _, err := Parse("u.yaml", []byte("server: {urls: [nats://x:4222], users: [{name: gw, password: \""+bc+"\"}]}\n")); err == nil {
 		t.Error("users with urls accepted")
+	}
+}
+
+// wantParse parses yaml and checks that it is accepted (want "") or
+// refused with an error containing want.
+func wantParse(t *testing.T, yaml, want string) {
+	t.Helper()
+	_, err := Parse("t.yaml", []byte(yaml))
+	switch {
+	case want == "" && err != nil:
+		t.Fatal(err)
+	case want != "" && (err == nil || !strings.Contains(err.Error(), want)):
+		t.Errorf("err %v, want %q", err, want)
 	}
 }

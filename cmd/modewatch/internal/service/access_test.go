@@ -51,21 +51,13 @@ func do(t *testing.T, c *http.Client, method, url, token, body string) (int, map
 // read-only token 403; a writer's command is applied and the record's
 // "by" is the token's name, whatever the body says.
 func TestHTTPTokens(t *testing.T) {
-	dir := t.TempDir()
 	reader, writer := "reader-token-0123456789abcdef", "writer-token-0123456789abcdef"
-	cfg, err := configs.Parse("auth.yaml", []byte(`
-frames: {period: 1s}
-server: {embedded_port: -1}
+	cfg := serviceConfig(t, `server: {embedded_port: -1}
 http:
   listen: "127.0.0.1:0"
   tokens:
     - {name: viewer, role: read, hash: "`+access.HashToken(reader)+`"}
-    - {name: shift-lead, role: write, hash: "`+access.HashToken(writer)+`"}
-state_dir: `+filepath.Join(dir, "data")+`
-`))
-	if err != nil {
-		t.Fatal(err)
-	}
+    - {name: shift-lead, role: write, hash: "`+access.HashToken(writer)+`"}`)
 	svc, nc := startWithClient(t, Options{Config: cfg})
 	id := openMissingAlert(t, svc, nc)
 	base := svc.Info().HTTP
@@ -132,16 +124,8 @@ state_dir: `+filepath.Join(dir, "data")+`
 // TestHTTPLargeRequestsLimited: while one checkpoint upload is being
 // received, a second one is answered 429 at once.
 func TestHTTPLargeRequestsLimited(t *testing.T) {
-	dir := t.TempDir()
-	cfg, err := configs.Parse("large.yaml", []byte(`
-frames: {period: 1s}
-server: {embedded_port: -1}
-http: {listen: "127.0.0.1:0", large_requests: 1}
-state_dir: `+filepath.Join(dir, "data")+`
-`))
-	if err != nil {
-		t.Fatal(err)
-	}
+	cfg := serviceConfig(t, `server: {embedded_port: -1}
+http: {listen: "127.0.0.1:0", large_requests: 1}`)
 	svc, _ := startWithClient(t, Options{Config: cfg})
 	url := svc.Info().HTTP + "/api/units/tk/checkpoint"
 	pr, pw := io.Pipe()
@@ -264,18 +248,11 @@ func makePKI(t *testing.T, dir, cn string) pkiFiles {
 func TestHTTPClientCertificate(t *testing.T) {
 	dir := t.TempDir()
 	f := makePKI(t, dir, "ops-console")
-	cfg, err := configs.Parse("tls.yaml", []byte(`
-frames: {period: 1s}
-server: {embedded_port: -1}
+	cfg := serviceConfig(t, `server: {embedded_port: -1}
 http:
   listen: "127.0.0.1:0"
   tls: {cert: `+f.serverCert+`, key: `+f.serverKey+`, client_ca: `+f.ca+`}
-  clients: [{name: ops-console, role: write}]
-state_dir: `+filepath.Join(dir, "data")+`
-`))
-	if err != nil {
-		t.Fatal(err)
-	}
+  clients: [{name: ops-console, role: write}]`)
 	if err := cfg.CheckFiles(); err != nil {
 		t.Fatal(err)
 	}

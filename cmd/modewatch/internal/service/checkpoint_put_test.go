@@ -5,12 +5,10 @@ import (
 	"fmt"
 	"io"
 	"net/http"
-	"path/filepath"
 	"strings"
 	"testing"
 
 	"modewatch/cmd/modewatch/internal/pipeline"
-	"modewatch/configs"
 )
 
 // TestPutHostileCheckpoint: checkpoint uploads made to hurt get 4xx with
@@ -18,17 +16,9 @@ import (
 // 400 with the cap, a body over the unit's limit 413 (sent without a
 // length, so the server stops reading at the limit), truncated JSON 400.
 func TestPutHostileCheckpoint(t *testing.T) {
-	dir := t.TempDir()
-	cfg, err := configs.Parse("put.yaml", []byte(`
-frames: {period: 1s}
-model: {max_channels: 50}
+	cfg := serviceConfig(t, `model: {max_channels: 50}
 server: {embedded_port: -1}
-http: {listen: "127.0.0.1:0"}
-state_dir: `+filepath.Join(dir, "data")+`
-`))
-	if err != nil {
-		t.Fatal(err)
-	}
+http: {listen: "127.0.0.1:0"}`)
 	svc, _ := startWithClient(t, Options{Config: cfg})
 	url := svc.Info().HTTP + "/api/units/victim/checkpoint"
 

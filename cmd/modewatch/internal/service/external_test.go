@@ -2,7 +2,6 @@ package service
 
 import (
 	"bytes"
-	"context"
 	"fmt"
 	"log/slog"
 	"net"
@@ -16,8 +15,6 @@ import (
 	"time"
 
 	"github.com/nats-io/nats.go"
-
-	"modewatch/configs"
 )
 
 // minServerVersion is the oldest NATS server release the service is
@@ -78,27 +75,12 @@ func TestExternalOldestServer(t *testing.T) {
 		}
 		return err == nil
 	})
-	cfg, err := configs.Parse("ext.yaml", []byte(`
-frames: {period: 1s}
-server: {urls: [`+url+`]}
+	cfg := serviceConfig(t, `server: {urls: [`+url+`]}
 intake: {jetstream: {stream: READINGS, max_age: 1h, max_bytes: 67108864}}
-http: {listen: "127.0.0.1:0"}
-state_dir: `+filepath.Join(dir, "data")+`
-`))
-	if err != nil {
-		t.Fatal(err)
-	}
+http: {listen: "127.0.0.1:0"}`)
 	start := time.Now()
 	var svcLog syncBuffer
-	svc, err := Start(t.Context(), Options{Config: cfg, Log: slog.New(slog.NewTextHandler(&svcLog, nil))})
-	if err != nil {
-		t.Fatalf("start against nats-server %s: %v\n%s", version, err, logs.String())
-	}
-	t.Cleanup(func() {
-		ctx, cancel := context.WithTimeout(context.Background(), 5*time.Second)
-		defer cancel()
-		svc.Shutdown(ctx)
-	})
+	svc := startService(t, Options{Config: cfg, Log: slog.New(slog.NewTextHandler(&svcLog, nil))})
 	t.Logf("started in %v", time.Since(start))
 	nc, err := nats.Connect(url)
 	if err != nil {

@@ -2,14 +2,17 @@ package service
 
 import (
 	"bytes"
+	"context"
 	"fmt"
 	"math"
+	"path/filepath"
 	"testing"
 	"time"
 
 	"github.com/nats-io/nats.go"
 
 	"modewatch/alerts"
+	"modewatch/configs"
 )
 
 // openMissingAlert publishes 500 s of invented readings of unit tk (period
@@ -64,4 +67,31 @@ func natsClient(t *testing.T, svc *Service) *nats.Conn {
 	}
 	t.Cleanup(nc.Close)
 	return nc
+}
+
+// serviceConfig parses the test configuration "frames: {period: 1s}",
+// then yaml, then a state_dir in a temporary directory.
+func serviceConfig(t *testing.T, yaml string) *configs.Config {
+	t.Helper()
+	cfg, err := configs.Parse(t.Name()+".yaml", []byte("frames: {period: 1s}\n"+yaml+"\nstate_dir: "+filepath.Join(t.TempDir(), "data")+"\n"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	return cfg
+}
+
+// startService starts the service with opt and shuts it down when the
+// test ends, waiting at most 5 s (its connection may be down).
+func startService(t *testing.T, opt Options) *Service {
+	t.Helper()
+	svc, err := Start(t.Context(), opt)
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() {
+		ctx, cancel := context.WithTimeout(context.Background(), 5*time.Second)
+		defer cancel()
+		svc.Shutdown(ctx)
+	})
+	return svc
 }

@@ -2,7 +2,6 @@ package service
 
 import (
 	"encoding/json"
-	"path/filepath"
 	"strings"
 	"testing"
 	"time"
@@ -12,7 +11,6 @@ import (
 	"golang.org/x/crypto/bcrypt"
 
 	"modewatch/alerts"
-	"modewatch/configs"
 )
 
 // TestEmbeddedServerUsers: the embedded server with three roles (a
@@ -35,26 +33,14 @@ func TestEmbeddedServerUsers(t *testing.T) {
 	}
 	opPub, _ := op.PublicKey()
 	opSeed, _ := op.Seed()
-	dir := t.TempDir()
-	cfg, err := configs.Parse("users.yaml", []byte(`
-frames: {period: 1s}
-server:
+	cfg := serviceConfig(t, `server:
   embedded_port: -1
   users:
     - {name: gateway, password: "`+hash("gateway-secret")+`", publish: ["modewatch.readings.>"]}
     - {name: jo, nkey: `+opPub+`, operator: true, subscribe: ["modewatch.alerts.>"]}
     - {name: viewer, password: "`+hash("viewer-secret")+`", subscribe: ["modewatch.alerts.>"]}
-http: {listen: "off"}
-state_dir: `+filepath.Join(dir, "data")+`
-`))
-	if err != nil {
-		t.Fatal(err)
-	}
-	svc, err := Start(t.Context(), Options{Config: cfg})
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(func() { svc.Shutdown(t.Context()) })
+http: {listen: "off"}`)
+	svc := startService(t, Options{Config: cfg})
 	url := svc.Info().NATS
 	if _, err := nats.Connect(url); err == nil {
 		t.Fatal("connected without credentials")

@@ -1,10 +1,8 @@
 package service
 
 import (
-	"context"
 	"fmt"
 	"net/http"
-	"path/filepath"
 	"strings"
 	"testing"
 	"time"
@@ -14,7 +12,6 @@ import (
 	"github.com/nats-io/nats.go/jetstream"
 
 	"modewatch/alerts"
-	"modewatch/configs"
 	"modewatch/stream/natsource/natstest"
 )
 
@@ -44,17 +41,9 @@ func readyz(t *testing.T, svc *Service) (int, string) {
 // held meanwhile is scored; the stream deleted too is recreated, and the
 // readings after it are scored. The recreations are counted.
 func TestJetStreamConsumerAndStreamDeleted(t *testing.T) {
-	dir := t.TempDir()
-	cfg, err := configs.Parse("js.yaml", []byte(`
-frames: {period: 1s}
-server: {embedded_port: -1}
+	cfg := serviceConfig(t, `server: {embedded_port: -1}
 intake: {jetstream: {stream: READINGS}}
-http: {listen: "127.0.0.1:0"}
-state_dir: `+filepath.Join(dir, "data")+`
-`))
-	if err != nil {
-		t.Fatal(err)
-	}
+http: {listen: "127.0.0.1:0"}`)
 	svc, nc := startWithClient(t, Options{Config: cfg})
 	js, _ := jetstream.New(nc)
 	t0 := time.Now().Add(-time.Hour).Truncate(time.Second)
@@ -114,25 +103,9 @@ func TestPasswordRotation(t *testing.T) {
 	opts := natstest.Options()
 	opts.Users = []*server.User{{Username: "mw", Password: "first-secret"}}
 	srv := natstest.Run(t, opts)
-	dir := t.TempDir()
-	cfg, err := configs.Parse("rot.yaml", []byte(`
-frames: {period: 1s}
-server: {urls: [`+srv.ClientURL()+`], user: mw, password: first-secret}
-http: {listen: "127.0.0.1:0"}
-state_dir: `+filepath.Join(dir, "data")+`
-`))
-	if err != nil {
-		t.Fatal(err)
-	}
-	svc, err := Start(t.Context(), Options{Config: cfg})
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(func() { // the connection may be down: do not wait for its drain
-		ctx, cancel := context.WithTimeout(context.Background(), 2*time.Second)
-		defer cancel()
-		svc.Shutdown(ctx)
-	})
+	cfg := serviceConfig(t, `server: {urls: [`+srv.ClientURL()+`], user: mw, password: first-secret}
+http: {listen: "127.0.0.1:0"}`)
+	svc := startService(t, Options{Config: cfg})
 	waitUntil(t, 5*time.Second, "ready", func() bool { code, _ := readyz(t, svc); return code == http.StatusOK })
 
 	rotated := opts.Clone()
@@ -174,26 +147,10 @@ func TestStallExit(t *testing.T) {
 		t.Skip("waits 10 s for the stall limit")
 	}
 	srv := natstest.Run(t, natstest.Options())
-	dir := t.TempDir()
-	cfg, err := configs.Parse("stall.yaml", []byte(`
-frames: {period: 1s}
-server: {urls: [`+srv.ClientURL()+`]}
+	cfg := serviceConfig(t, `server: {urls: [`+srv.ClientURL()+`]}
 intake: {stall_exit: 10s}
-http: {listen: "off"}
-state_dir: `+filepath.Join(dir, "data")+`
-`))
-	if err != nil {
-		t.Fatal(err)
-	}
-	svc, err := Start(t.Context(), Options{Config: cfg})
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(func() { // the connection may be down: do not wait for its drain
-		ctx, cancel := context.WithTimeout(context.Background(), 2*time.Second)
-		defer cancel()
-		svc.Shutdown(ctx)
-	})
+http: {listen: "off"}`)
+	svc := startService(t, Options{Config: cfg})
 	start := time.Now()
 	srv.Shutdown()
 	select {

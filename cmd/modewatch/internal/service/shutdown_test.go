@@ -4,12 +4,9 @@ import (
 	"context"
 	"net/http"
 	"net/http/httptest"
-	"path/filepath"
 	"sync/atomic"
 	"testing"
 	"time"
-
-	"modewatch/configs"
 )
 
 // TestShutdownWithWebhookDown: while the webhook answers 503, a shutdown
@@ -28,18 +25,10 @@ func TestShutdownWithWebhookDown(t *testing.T) {
 		delivered.Add(1)
 	}))
 	defer hook.Close()
-	dir := t.TempDir()
-	cfg, err := configs.Parse("hook.yaml", []byte(`
-frames: {period: 1s}
-server: {embedded_port: -1}
+	cfg := serviceConfig(t, `server: {embedded_port: -1}
 http: {listen: "off"}
 delivery: {webhook: `+hook.URL+`}
-shutdown_timeout: 10s
-state_dir: `+filepath.Join(dir, "data")+`
-`))
-	if err != nil {
-		t.Fatal(err)
-	}
+shutdown_timeout: 10s`)
 	svc, err := Start(context.Background(), Options{Config: cfg})
 	if err != nil {
 		t.Fatal(err)
