@@ -93,8 +93,8 @@ type UnitView struct {
 	MaxChannels     int      `json:"max_channels"`
 	RefusedChannels uint64   `json:"refused_channels"`
 	RefusedExamples []string `json:"refused_examples,omitempty"`
-	// MemoryBytes estimates the memory of the unit's model (UnitModelBytes
-	// of its channel count).
+	// MemoryBytes estimates the memory of the unit's models (UnitModelBytes
+	// of its channel count, once per operating state).
 	MemoryBytes int64 `json:"memory_bytes"`
 }
 

@@ -68,7 +68,7 @@ func newMetrics(s *Service) *metrics {
 		ckptTime:        d("checkpoint_last_success_timestamp_seconds", "Time of the last successful checkpoint (Unix seconds)."),
 		ckptErrors:      d("checkpoint_errors_total", "Checkpoints that failed."),
 		scoreErrors:     d("score_publish_errors_total", "Score lines that could not be published."),
-		unitMemory:      d("unit_model_bytes", "Estimated memory of the unit's model in bytes (18·p² + 6000·p for p channels).", "unit"),
+		unitMemory:      d("unit_model_bytes", "Estimated memory of the unit's models in bytes (18·p² + 6000·p for p channels, per operating state).", "unit"),
 		unitRefused:     d("unit_refused_channels_total", "Channels refused because the unit was at its channel cap (model.max_channels).", "unit"),
 	}
 	m.reg.MustRegister(m, collectors.NewGoCollector(), collectors.NewProcessCollector(collectors.ProcessCollectorOpts{}))
