@@ -145,6 +145,11 @@ type Server struct {
 	// client must authenticate and may publish and subscribe only where
 	// its user's permissions allow; the service connects as its own user.
 	Users []NATSUser `yaml:"users"`
+	// ControlPerUser: with an external server (urls), operators give
+	// commands on <prefix>.control.<user> and the service records <user>
+	// as "by"; that server's permissions must let each operator publish
+	// on its own subject only. Always so with Users on the embedded server.
+	ControlPerUser bool `yaml:"control_per_user"`
 }
 
 // TLS configures a TLS connection to the server: CA to verify it and an

@@ -11,6 +11,7 @@ import (
 	"golang.org/x/crypto/bcrypt"
 
 	"modewatch/alerts"
+	"modewatch/stream/natsource/natstest"
 )
 
 // TestEmbeddedServerUsers: the embedded server with three roles (a
@@ -99,5 +100,34 @@ http: {listen: "off"}`)
 	}
 	if r := rec(); r.Shelved == nil || r.Shelved.By != "jo" {
 		t.Fatalf("shelved %+v, want by jo (the authenticated user)", r.Shelved)
+	}
+}
+
+// TestControlPerUserExternal: with an external server and
+// control_per_user, a command on <prefix>.control.<user> is recorded with
+// that user as "by"; the plain control subject is not served.
+func TestControlPerUserExternal(t *testing.T) {
+	srv := natstest.Start(t)
+	cfg := serviceConfig(t, `server: {urls: [`+srv.ClientURL()+`], control_per_user: true}
+http: {listen: "off"}`)
+	svc := startService(t, Options{Config: cfg})
+	nc := natsClient(t, svc)
+	id := openMissingAlert(t, svc, nc)
+	b, _ := json.Marshal(alerts.Command{Op: alerts.OpAck, AlertID: id, By: "mallory"})
+	if _, err := nc.Request("modewatch.control", b, 300*time.Millisecond); err == nil {
+		t.Error("the plain control subject answered")
+	}
+	m, err := nc.Request("modewatch.control.kim", b, 5*time.Second)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var rep alerts.Reply
+	if err := json.Unmarshal(m.Data, &rep); err != nil || !rep.OK {
+		t.Fatalf("ack: %s %v", m.Data, err)
+	}
+	for _, r := range svc.Pipeline().Alerts().Open(nil) {
+		if r.ID == id && (r.Acknowledged == nil || r.Acknowledged.By != "kim") {
+			t.Errorf("acknowledged %+v, want by kim", r.Acknowledged)
+		}
 	}
 }

@@ -179,7 +179,8 @@ func Start(ctx context.Context, opt Options) (_ *Service, err error) {
 	s.info.Alerts = prefix + ".alerts.<unit>"
 	s.info.Scores = prefix + ".scores.<unit>"
 	s.info.Control = prefix + ".control"
-	if len(cfg.Server.Users) > 0 {
+	perUser := len(cfg.Server.Users) > 0 || cfg.Server.ControlPerUser
+	if perUser {
 		s.info.Control = prefix + ".control.<user>"
 	}
 
@@ -226,7 +227,7 @@ func Start(ctx context.Context, opt Options) (_ *Service, err error) {
 	}
 
 	// Operator commands on NATS.
-	if len(cfg.Server.Users) > 0 { // each operator on its own subject: "by" is the user
+	if perUser { // each operator on its own subject: "by" is the user
 		s.ctl, err = control.ListenPerUser(nc, prefix+".control", s.pl.Alerts(), log.With("component", "control"))
 	} else {
 		s.ctl, err = control.Listen(nc, s.info.Control, s.pl.Alerts(), log.With("component", "control"))
