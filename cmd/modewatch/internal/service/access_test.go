@@ -95,6 +95,22 @@ http:
 			t.Errorf("GET %s without a token: %d, want 200 (probes)", path, code)
 		}
 	}
+	if code, rep := do(t, c, "POST", base+"/api/alerts/ack", writer, `{"alert_id":"`+strings.Repeat("x", 70<<10)+`"}`); code != http.StatusRequestEntityTooLarge {
+		t.Errorf("command body over 64 KiB: %d %v, want 413", code, rep)
+	}
+	req, _ := http.NewRequest("GET", base+"/metrics", nil)
+	req.Header.Set("Authorization", "Bearer "+reader)
+	resp, err := c.Do(req)
+	if err != nil {
+		t.Fatal(err)
+	}
+	metrics, _ := io.ReadAll(resp.Body)
+	resp.Body.Close()
+	for _, want := range []string{"modewatch_readings_consumed 1", `modewatch_unit_model_bytes{unit="tk"}`, `modewatch_unit_refused_channels_total{unit="tk"} 0`} {
+		if !strings.Contains(string(metrics), want) {
+			t.Errorf("/metrics lacks %q", want)
+		}
+	}
 	if open := svc.Pipeline().Alerts().Open(nil); len(open) == 0 || open[0].Acknowledged != nil {
 		t.Fatalf("a refused command changed the alert: %+v", open)
 	}

@@ -11,6 +11,7 @@ import (
 	"github.com/prometheus/client_golang/prometheus/promhttp"
 
 	"modewatch/alerts"
+	"modewatch/alerts/control"
 	"modewatch/cmd/modewatch/internal/access"
 	"modewatch/cmd/modewatch/internal/pipeline"
 )
@@ -186,9 +187,14 @@ func (s *Service) readyz(w http.ResponseWriter, r *http.Request) {
 // command decodes an operator command from the body (at most 64 KiB),
 // lets fix set the fields the path gives, and applies it.
 func (s *Service) command(w http.ResponseWriter, r *http.Request, fix func(*alerts.Command)) {
-	body, err := io.ReadAll(io.LimitReader(r.Body, 64<<10+1))
-	if err != nil || len(body) > 64<<10 {
-		writeJSON(w, http.StatusBadRequest, alerts.Reply{Error: "body unreadable or over 64 KiB"})
+	body, err := io.ReadAll(http.MaxBytesReader(w, r.Body, control.MaxRequest))
+	var tooLarge *http.MaxBytesError
+	switch {
+	case errors.As(err, &tooLarge):
+		writeJSON(w, http.StatusRequestEntityTooLarge, alerts.Reply{Error: fmt.Sprintf("a command is at most %d bytes", control.MaxRequest)})
+		return
+	case err != nil:
+		writeJSON(w, http.StatusBadRequest, alerts.Reply{Error: "body unreadable: " + err.Error()})
 		return
 	}
 	if strings.TrimSpace(string(body)) == "" {
