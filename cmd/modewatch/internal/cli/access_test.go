@@ -5,6 +5,9 @@ import (
 	"path/filepath"
 	"strings"
 	"testing"
+	"time"
+
+	"modewatch/stream/natsource/natstest"
 )
 
 // TestCheckAndRunRefuseOpenNetworkListen: check and run refuse an HTTP
@@ -37,5 +40,44 @@ func TestCheckAndRunRefuseOpenNetworkListen(t *testing.T) {
 	os.WriteFile(cfg, []byte("frames: {period: 1s}\nhttp:\n  listen: 0.0.0.0:7480\n  tokens:\n    "+entry+"\n"), 0o600)
 	if code, out, errs := runCLI(t, "", "check", "--config", cfg); code != ExitOK {
 		t.Errorf("with a token: exit %d, %q %q", code, out, errs)
+	}
+}
+
+// TestRunExitsWhenReadingsStall: run exits with status 1 once readings
+// went unconsumed for intake.stall_exit (the server is gone), so that a
+// supervisor restarts it.
+func TestRunExitsWhenReadingsStall(t *testing.T) {
+	if testing.Short() {
+		t.Skip("waits 10 s for the stall limit")
+	}
+	srv := natstest.Run(t, natstest.Options())
+	cfg := filepath.Join(t.TempDir(), "stall.yaml")
+	os.WriteFile(cfg, []byte("frames: {period: 1s}\nserver: {urls: ["+srv.ClientURL()+"]}\nintake: {stall_exit: 10s}\nhttp: {listen: \"off\"}\n"+
+		"state_dir: "+filepath.Join(t.TempDir(), "data")+"\nshutdown_timeout: 2s\n"), 0o600)
+	type result struct {
+		code int
+		errs string
+	}
+	done := make(chan result, 1)
+	go func() {
+		code, _, errs := runCLI(t, "", "run", "--config", cfg)
+		done <- result{code, errs}
+	}()
+	// Once it runs, take the server away.
+	deadline := time.Now().Add(10 * time.Second)
+	for srv.NumClients() == 0 {
+		if time.Now().After(deadline) {
+			t.Fatal("run never connected")
+		}
+		time.Sleep(20 * time.Millisecond)
+	}
+	srv.Shutdown()
+	select {
+	case r := <-done:
+		if r.code != ExitFailure || !strings.Contains(r.errs, "intake.stall_exit") {
+			t.Errorf("exit %d, stderr %q", r.code, r.errs)
+		}
+	case <-time.After(40 * time.Second):
+		t.Fatal("run did not exit within 40 s of the server's end")
 	}
 }
