@@ -155,7 +155,10 @@ func (e *Engine) SetClock(now func() time.Time) {
 }
 
 // statistic indices
-var statNames = [3]string{StatT2, StatSPE, StatPhi}
+var statNames = [nStats]string{StatT2, StatSPE, StatPhi, StatResidual, StatVariance, StatRelation}
+
+// nStats is the number of statistics the engine keeps an alarm for.
+const nStats = 6
 
 func statIndex(name string) int {
 	switch name {
@@ -165,6 +168,12 @@ func statIndex(name string) int {
 		return 1
 	case StatPhi:
 		return 2
+	case StatResidual:
+		return 3
+	case StatVariance:
+		return 4
+	case StatRelation:
+		return 5
 	}
 	return -1
 }
@@ -180,7 +189,7 @@ type unit struct {
 	maint    bool
 	frozen   bool
 	model    string // last model state reported
-	stats    [3]Alarm
+	stats    [nStats]Alarm
 	modelG   group
 	quality  map[qkey]*qalarm
 	seq      uint64
@@ -223,7 +232,7 @@ type incident struct {
 	end       time.Time
 	ended     bool
 	updated   time.Time
-	stats     [3]statPeak
+	stats     [nStats]statPeak
 	peak      Peak
 	hasPeak   bool
 	sev       int

@@ -7,6 +7,16 @@ const (
 	StatT2  = "t2"  // Hotelling's T² inside the mode subspace
 	StatSPE = "spe" // squared prediction error (Q) outside it
 	StatPhi = "phi" // combined index φ (Yue & Qin 2001)
+	// StatResidual is the residual Mahalanobis statistic (the frame's
+	// distance outside the modes, weighted by how tightly each residual
+	// direction is normally held).
+	StatResidual = "res"
+	// StatVariance is the per-channel variance statistic (a channel's
+	// smoothed squared residual against its normal level).
+	StatVariance = "var"
+	// StatRelation is the relation-mode statistic (the largest score of a
+	// sparse tight relation among a few channels).
+	StatRelation = "rel"
 )
 
 // Data-quality kinds accepted in Quality.Kind.
@@ -61,7 +71,7 @@ type Observation struct {
 
 // Stat is one monitoring statistic and its control limit.
 type Stat struct {
-	Name  string // StatT2, StatSPE or StatPhi
+	Name  string // StatT2, StatSPE, StatPhi, StatResidual, StatVariance or StatRelation
 	Value float64
 	Limit float64 // > 0; a frame with a non-finite or non-positive limit is skipped for this statistic
 }

@@ -79,7 +79,7 @@ type snapIncident struct {
 	End         time.Time           `json:"end"`
 	Ended       bool                `json:"ended"`
 	Updated     time.Time           `json:"updated"`
-	Stats       [3]snapStat         `json:"stats"`
+	Stats       [nStats]snapStat    `json:"stats"`
 	Peak        Peak                `json:"peak"`
 	HasPeak     bool                `json:"has_peak"`
 	Sev         int                 `json:"sev"`
@@ -103,22 +103,22 @@ type snapIncident struct {
 }
 
 type snapUnit struct {
-	Name      string         `json:"name"`
-	Last      time.Time      `json:"last"`
-	Seen      bool           `json:"seen"`
-	Maint     bool           `json:"maintenance"`
-	Frozen    bool           `json:"frozen"`
-	Model     string         `json:"model_state"`
-	Stats     [3]snapAlarm   `json:"stats"`
-	ModelG    snapGroup      `json:"model_group"`
-	Quality   []snapQuality  `json:"quality,omitempty"`
-	Openings  []snapOpening  `json:"openings,omitempty"` // oldest first
-	Flood     string         `json:"flood,omitempty"`
-	RateLast  int64          `json:"rate_last_minute"`
-	RateCount map[int]uint32 `json:"rate_counts,omitempty"` // bucket → count, non-zero only
-	Counters  UnitCounters   `json:"counters"`
-	Extra     []string       `json:"extra_incidents,omitempty"` // open model incidents after the first, oldest first
-	NewLoc    *snapAlarm     `json:"new_location,omitempty"`    // on-delay of a new location
+	Name      string            `json:"name"`
+	Last      time.Time         `json:"last"`
+	Seen      bool              `json:"seen"`
+	Maint     bool              `json:"maintenance"`
+	Frozen    bool              `json:"frozen"`
+	Model     string            `json:"model_state"`
+	Stats     [nStats]snapAlarm `json:"stats"`
+	ModelG    snapGroup         `json:"model_group"`
+	Quality   []snapQuality     `json:"quality,omitempty"`
+	Openings  []snapOpening     `json:"openings,omitempty"` // oldest first
+	Flood     string            `json:"flood,omitempty"`
+	RateLast  int64             `json:"rate_last_minute"`
+	RateCount map[int]uint32    `json:"rate_counts,omitempty"` // bucket → count, non-zero only
+	Counters  UnitCounters      `json:"counters"`
+	Extra     []string          `json:"extra_incidents,omitempty"` // open model incidents after the first, oldest first
+	NewLoc    *snapAlarm        `json:"new_location,omitempty"`    // on-delay of a new location
 }
 
 type snapshot struct {

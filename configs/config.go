@@ -321,10 +321,26 @@ type Model struct {
 	// MaxChannels caps the channels of the unit's model; a channel beyond
 	// it is refused, logged once and counted. Default 2000.
 	MaxChannels int `yaml:"max_channels"`
+	// Statistics lists the statistics whose alarms open an alert:
+	// t2, spe, phi, res (residual Mahalanobis), var (per-channel
+	// variance), rel (relation modes). Default DefaultStatistics.
+	Statistics string `yaml:"statistics"`
+	// Smoothing is the EWMA weight λ in (0, 1) applied to each alarm
+	// statistic's ratio to its limit before the alarm rule (a remedy for
+	// serially correlated statistics); its threshold then comes from
+	// alerts.budget. 0 (default) means no smoothing.
+	Smoothing float64 `yaml:"smoothing"`
 }
 
 // Alerts holds the alarm settings. Zero fields mean "inherit"/"default".
 type Alerts struct {
+	// Budget is the expected number of false alerts per unit per day that
+	// fit calibrates each unit's thresholds to (by running the alarm rule
+	// over held-out normal data). It wins over alpha: alpha then only
+	// shapes the base limits that the calibrated scale multiplies.
+	// Default DefaultBudget; negative turns the calibration off (the
+	// limits stay those of alpha).
+	Budget float64 `yaml:"budget"`
 	// OnDelay: active when over the limit in N of the last M frames
 	// (1 ≤ N ≤ M ≤ 64). Default 3 of 5.
 	OnDelay OnDelay `yaml:"on_delay"`
@@ -472,6 +488,7 @@ func DefaultModel() Model {
 		RefreshEvery: DefaultRefreshEvery,
 		WarmUp:       DefaultWarmUp,
 		MaxChannels:  DefaultUnitMaxChannels,
+		Statistics:   DefaultStatistics,
 	}
 }
 
@@ -479,6 +496,7 @@ func DefaultModel() Model {
 func DefaultAlerts() Alerts {
 	freeze := true
 	return Alerts{
+		Budget:   DefaultBudget,
 		OnDelay:  OnDelay{N: DefaultOnDelayN, M: DefaultOnDelayM},
 		OffDelay: DefaultOffDelay,
 		Deadband: DefaultDeadband,
@@ -534,11 +552,20 @@ func (m Model) Over(base Model) Model {
 	if m.MaxChannels == 0 {
 		m.MaxChannels = base.MaxChannels
 	}
+	if m.Statistics == "" {
+		m.Statistics = base.Statistics
+	}
+	if m.Smoothing == 0 {
+		m.Smoothing = base.Smoothing
+	}
 	return m
 }
 
 // Over returns a with every zero field taken from base.
 func (a Alerts) Over(base Alerts) Alerts {
+	if a.Budget == 0 {
+		a.Budget = base.Budget
+	}
 	if a.OnDelay == (OnDelay{}) {
 		a.OnDelay = base.OnDelay
 	}

@@ -2,6 +2,7 @@ package configs
 
 import (
 	"fmt"
+	"math"
 	"net/url"
 	"strings"
 	"time"
@@ -305,6 +306,14 @@ func (v *validator) model(p string, m Model, partial bool) {
 	if m.MaxModes < 0 {
 		v.add(p+".max_modes", "negative")
 	}
+	if m.Smoothing != 0 && !(m.Smoothing > 0 && m.Smoothing < 1) {
+		v.add(p+".smoothing", "%g is not an EWMA weight in (0, 1)", m.Smoothing)
+	}
+	if m.Statistics != "" {
+		if _, err := ParseStatistics(m.Statistics); err != nil {
+			v.add(p+".statistics", "%v", err)
+		}
+	}
 	if m.Modes.Count > 0 && m.MaxModes > 0 && m.Modes.Count > m.MaxModes && !partial {
 		v.add(p+".modes", "%d modes is more than max_modes %d", m.Modes.Count, m.MaxModes)
 	}
@@ -329,6 +338,9 @@ func (v *validator) model(p string, m Model, partial bool) {
 }
 
 func (v *validator) alerts(p string, a Alerts, partial bool) {
+	if math.IsNaN(a.Budget) || math.IsInf(a.Budget, 0) || a.Budget > 1440 {
+		v.add(p+".budget", "%v false alerts per day: want a finite number up to 1440 (negative: off)", a.Budget)
+	}
 	od := a.OnDelay
 	if od != (OnDelay{}) || !partial {
 		if od.N < 1 || od.M < od.N {

@@ -47,7 +47,10 @@ func (t *Tracker) StepMasked(dst *Score, x []float64, missing, mask []bool) erro
 		return ErrWidth
 	}
 	t.frames++
-	if err := t.score(dst, x); err != nil {
+	t.stepping = true
+	err := t.score(dst, x)
+	t.stepping = false
+	if err != nil {
 		return err
 	}
 	dst.LearnWeight = 0

@@ -227,6 +227,24 @@ type Config struct {
 	// the channels it is learned on exceeds k is learned with weight k/d.
 	// Default DefaultRobust; negative: every frame has weight 1.
 	Robust float64
+	// Residual adds the residual Mahalanobis statistic R = zᵀΩz − T²
+	// (Score.Residual) and Variance the per-channel variance statistic
+	// (Score.Variance); see resStat. Either costs 2p² values of storage,
+	// a factorization per refresh and O(p²) per frame.
+	Residual, Variance bool
+	// ResidualRidge ε_R of Ω = (A + ε_R·I)⁻¹ (default DefaultResidualRidge)
+	// and VarianceLambda the EWMA weight of the variance statistic
+	// (default DefaultVarianceLambda, in (0, 1]).
+	ResidualRidge, VarianceLambda float64
+	// RankResidual ranks Score.Contrib by the RBC of the residual
+	// Mahalanobis statistic (with its limit χ²_{1−α}(1)) in frames where
+	// that statistic is further over its limit than the RBC index
+	// (needs Residual).
+	RankResidual bool
+	// Relations is the number of relation modes (sparse minor components
+	// naming tight relations; see relStat), 0 for none, and RelationSize
+	// the channels per relation (default DefaultRelationSize).
+	Relations, RelationSize int
 }
 
 // Errors.
@@ -292,8 +310,20 @@ type Score struct {
 	Modes         int            // number of modes r
 	Calibrated    bool           // T², SPE, φ limits set empirically (Calibrate)
 	LearnWeight   float64        // weight the frame was learned with (0: not learned; see StepMasked)
-	Frame         uint64         // frames seen, this one included
-	NextRefresh   int            // learned frames until the next refresh (or the end of warm-up)
+	// Residual is the residual Mahalanobis statistic and ResidualLimit its
+	// limit; Variance the variance statistic, VarianceLimit its limit and
+	// VarianceChannel the channel that sets it (−1: none). Zero unless
+	// Config.Residual or Config.Variance (see resStat).
+	Residual, ResidualLimit float64
+	Variance, VarianceLimit float64
+	VarianceChannel         int
+	// Relation is the largest relation-mode score, RelationLimit its limit
+	// and RelationMode the index of that relation in Tracker.Relations
+	// (−1: none). Zero unless Config.Relations > 0 (see relStat).
+	Relation, RelationLimit float64
+	RelationMode            int
+	Frame                   uint64 // frames seen, this one included
+	NextRefresh             int    // learned frames until the next refresh (or the end of warm-up)
 }
 
 // Tracker is the streaming model of one plant unit.
@@ -311,6 +341,10 @@ type Tracker struct {
 	lag  *lagRing   // frames waiting to be learned (Config.Lag; lag.go), nil without
 	ls   limitSpec
 	maxR int
+	rs   *resStat // nil unless Config.Residual or Config.Variance
+	rl   *relStat // nil unless Config.Relations > 0
+	// stepping: score is called from Step (advance the variance EWMA)
+	stepping bool
 
 	ready    bool // a model exists
 	frozen   bool
@@ -372,6 +406,21 @@ func (c *Config) defaults(p int) error {
 	if c.Robust == 0 {
 		c.Robust = DefaultRobust
 	}
+	if c.ResidualRidge == 0 {
+		c.ResidualRidge = DefaultResidualRidge
+	}
+	if c.VarianceLambda == 0 {
+		c.VarianceLambda = DefaultVarianceLambda
+	}
+	if c.RelationSize == 0 {
+		c.RelationSize = DefaultRelationSize
+	}
+	if c.Relations < 0 || c.Relations > 64 || c.RelationSize < 2 {
+		return fmt.Errorf("%w: Relations %d (0 to 64), RelationSize %d (≥ 2)", ErrConfig, c.Relations, c.RelationSize)
+	}
+	if !(c.ResidualRidge > 0) || math.IsInf(c.ResidualRidge, 0) || !(c.VarianceLambda > 0 && c.VarianceLambda <= 1) {
+		return fmt.Errorf("%w: ResidualRidge %v, VarianceLambda %v", ErrConfig, c.ResidualRidge, c.VarianceLambda)
+	}
 	switch {
 	case c.Lag < 0 || c.Lag > MaxLag:
 		return fmt.Errorf("%w: Lag %d outside 0…%d frames", ErrConfig, c.Lag, MaxLag)
@@ -422,6 +471,10 @@ func New(p int, cfg Config) (*Tracker, error) {
 		run:   make([]int, p),
 		stuck: make([]bool, p),
 		top:   make([]int, 0, cfg.TopContrib+1),
+		rs:    newResStat(p, &cfg),
+	}
+	if t.rl, err = newRelStat(p, &cfg); err != nil {
+		return nil, err
 	}
 	for i := range t.last {
 		t.last[i] = math.NaN()
@@ -620,6 +673,12 @@ func (t *Tracker) score(dst *Score, x []float64) error {
 		m.impute(w.z, pt, w.imp)
 	}
 	t2, spe, phi := m.scoreZ(w, pt, t.cfg.RBCIndex)
+	if t.rs != nil {
+		t.rs.score(dst, m, w.z, w.dz, t2, len(w.miss), t.obs, t.stuck, t.stepping, t.stepping && !t.frozen && !t.baseline)
+	}
+	if t.rl != nil {
+		t.rl.score(dst, w.z)
+	}
 	dst.Ready = true
 	dst.T2, dst.SPE, dst.Phi = t2, spe, phi
 	dst.T2Limit, dst.SPELimit, dst.PhiLimit = pt.t2Lim, pt.speLim, pt.phiLim
@@ -635,14 +694,22 @@ func (t *Tracker) score(dst *Score, x []float64) error {
 	dst.NEff = m.nEff
 	dst.Modes = m.r
 	// Rank the top contributors by RBC (insertion into a short list).
+	index, indexLim := phi, dst.PhiLimit
+	if t.cfg.RBCIndex == IndexSPE {
+		index, indexLim = spe, dst.SPELimit
+	}
+	rbc, useRes := w.rbc, t.rankResidual(dst, index, indexLim)
+	if useRes {
+		rbc, index = t.rs.rbc, dst.Residual
+	}
 	top := t.top[:0]
 	k := t.cfg.TopContrib
 	for i := 0; i < t.p; i++ {
 		if pt.rbcInv[i] == 0 {
 			continue
 		}
-		v := w.rbc[i]
-		if len(top) == k && (k == 0 || v <= w.rbc[top[k-1]]) {
+		v := rbc[i]
+		if len(top) == k && (k == 0 || v <= rbc[top[k-1]]) {
 			continue
 		}
 		j := len(top)
@@ -651,17 +718,13 @@ func (t *Tracker) score(dst *Score, x []float64) error {
 		} else {
 			j = k - 1
 		}
-		for j > 0 && w.rbc[top[j-1]] < v {
+		for j > 0 && rbc[top[j-1]] < v {
 			top[j] = top[j-1]
 			j--
 		}
 		top[j] = i
 	}
 	t.top = top
-	index := phi
-	if t.cfg.RBCIndex == IndexSPE {
-		index = spe
-	}
 	for _, i := range top {
 		n := len(dst.Contrib)
 		if n < cap(dst.Contrib) {
@@ -671,11 +734,14 @@ func (t *Tracker) score(dst *Score, x []float64) error {
 		}
 		c := &dst.Contrib[n]
 		c.Channel = i
-		c.RBC = w.rbc[i]
+		c.RBC = rbc[i]
 		c.RBCLimit = pt.rbcLim[i]
+		if useRes {
+			c.RBCLimit = t.rs.rbcLim
+		}
 		c.Share = 0
 		if index > 0 {
-			c.Share = w.rbc[i] / index
+			c.Share = rbc[i] / index
 		}
 		c.SPEContrib = w.spec[i]
 		c.T2Contrib = w.t2c[i]
@@ -768,6 +834,12 @@ func (t *Tracker) install(nEff float64) {
 		}
 	}
 	m.computePattern(m.base, &t.ls)
+	if t.rs != nil {
+		t.rs.refresh(m, t.cfg.Alpha)
+	}
+	if t.rl != nil {
+		t.rl.refresh(m)
+	}
 	t.ready = true
 	t.since = 0
 	t.cal = false
@@ -964,6 +1036,10 @@ func (t *Tracker) Grow(p2 int, cfg Config) error {
 			return fmt.Errorf("%w: the correlation matrix gave no modes", ErrModel)
 		}
 	}
+	rl, err := newRelStat(p2, &cfg)
+	if err != nil {
+		return err
+	}
 	// Commit.
 	t.ew = t.ew.grown(p2)
 	grow := func(s []float64, fill float64) []float64 {
@@ -986,6 +1062,8 @@ func (t *Tracker) Grow(p2 int, cfg Config) error {
 	t.w = newWork(p2, maxR)
 	t.lw = newLearnWork(p2, maxR)
 	t.lag = t.lag.grown(p2, cfg.Lag)
+	t.rs = newResStat(p2, &cfg)
+	t.rl = rl
 	if cap(t.top) < cfg.TopContrib+1 {
 		t.top = make([]int, 0, cfg.TopContrib+1)
 	}

@@ -244,7 +244,8 @@ func TestTrackerAutoCount(t *testing.T) {
 	for _, c := range []struct {
 		share float64
 		want  int
-	}{{0.30, 1}, {0.50, 2}, {0.80, 5}, {0.86, 6}, {0.871, 7}, {1, 13}} {
+	}{{0.30, 1}, {0.50, 2}, {0.80, 5}, {0.86, 6}, {0.871, 7}, {1, 12}} {
+		// Kaiser's rule off; share 1 stops one short of p (the residual minimum).
 		tr, err := NewTracker(13, Config{Share: c.share, MaxCount: 13, Tol: 1e-10})
 		if err != nil {
 			t.Fatal(err)
@@ -262,6 +263,32 @@ func TestTrackerAutoCount(t *testing.T) {
 	for j, want := range []float64{4.218633, 2.378101} {
 		if got := tr.Mode(j).AdjustedVariance; !scalar.EqualWithinAbs(got, want, 1e-6) {
 			t.Errorf("dense mode %d: adjusted variance %.7f, eigenvalue %.6f", j, got, want)
+		}
+	}
+}
+
+// TestTrackerKaiser: with MinAdjusted 1 the automatic count keeps
+// the modes whose eigenvalue exceeds 1, four on Pitprops (eigenvalues
+// 4.218633, 2.378101, 1.878226, 1.109390, 0.910047, … in REFERENCE.md),
+// whatever the share asks; Jolliffe's 0.7 keeps six (0.815413 > 0.7 >
+// 0.576345); with the rule off, share 0.95 needs nine (cumulative 12.326
+// of 13 after eight, 12.678 after nine).
+func TestTrackerKaiser(t *testing.T) {
+	a := loadPitprops(t)
+	for _, c := range []struct {
+		rel   float64
+		share float64
+		want  int
+	}{{1, 0.95, 4}, {1, 0.5, 2}, {0.7, 0.95, 6}, {0, 0.95, 9}} {
+		tr, err := NewTracker(13, Config{Share: c.share, MaxCount: 13, Tol: 1e-10, MinAdjusted: c.rel})
+		if err != nil {
+			t.Fatal(err)
+		}
+		if err := tr.Refresh(a); err != nil {
+			t.Fatal(err)
+		}
+		if tr.Count() != c.want {
+			t.Errorf("MinAdjusted %g, share %g: %d modes, want %d", c.rel, c.share, tr.Count(), c.want)
 		}
 	}
 }

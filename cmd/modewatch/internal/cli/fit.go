@@ -24,7 +24,17 @@ sparse modes and the control limits. Every frame weighs the same unless
 A fitted unit keeps the settings it was fitted with (sparsity, modes,
 half-life, alpha); to change them, fit again. Channels are auto-discovered
 and the frame period inferred unless the configuration or flags say
-otherwise. Input "-" is standard input.`
+otherwise. Input "-" is standard input.
+
+With alerts.budget (default 0.5: one false alert per unit every two days) each
+unit's limits are calibrated: a model learned on the first half of the
+log scores the second half, the whole alarm rule's statistic is fitted by
+an extreme-value model of block maxima, and every limit is multiplied by
+the scale at which the expected false alerts per day meet the budget.
+fit prints the scale, the limits, the expected rate with its 95 %
+interval, and the days of normal log needed when the log is too short.
+The budget wins over alpha, which then only sets the base limits. Input
+from standard input cannot be calibrated (it is read once).`
 
 func runFit(ctx context.Context, env IO, args []string) error {
 	fs := newFlags(env, "fit", "--input FILE... --out MODEL [--json]", fitHelp)
@@ -71,6 +81,7 @@ func runFit(ctx context.Context, env IO, args []string) error {
 	if berr != nil {
 		fmt.Fprintf(env.Err, "modewatch fit: some units were left out: %v\n", berr)
 	}
+	budgetNotes := calibrateBudgets(ctx, env, cfg, inputs, mf, model)
 	if err := pipeline.WriteModel(outPath, model); err != nil {
 		return err
 	}
@@ -86,6 +97,8 @@ func runFit(ctx context.Context, env IO, args []string) error {
 			States    []stateOut                   `json:"states,omitempty"`
 			HoldOff   *int                         `json:"state_hold_off_frames,omitempty"`
 			Suggested []pipeline.ContextSuggestion `json:"context_suggested,omitempty"`
+			// Calibration: alerts.budget's calibration (absent: off or failed).
+			Calibration *pipeline.Calibration `json:"calibration,omitempty"`
 		}
 		o := struct {
 			Model  string    `json:"model"`
@@ -94,7 +107,8 @@ func runFit(ctx context.Context, env IO, args []string) error {
 			Units  []unitOut `json:"units"`
 		}{Model: outPath, Frames: model.Frames, Period: res.Period.String()}
 		for _, u := range model.Units {
-			uo := unitOut{Name: u.Name, Channels: u.Channels, Settings: u.Settings, Modes: u.Modes, Limits: u.Limits, Suggested: u.Suggested}
+			uo := unitOut{Name: u.Name, Channels: u.Channels, Settings: u.Settings, Modes: u.Modes, Limits: u.Limits, Suggested: u.Suggested,
+				Calibration: u.Calibration}
 			if u.States != nil {
 				h := u.States.HoldOff
 				uo.HoldOff = &h
@@ -116,7 +130,7 @@ func runFit(ctx context.Context, env IO, args []string) error {
 		if u.Limits.T2 != nil && u.Limits.SPE != nil {
 			lim = fmt.Sprintf(", T² limit %.2f, SPE limit %.2f at α=%g", *u.Limits.T2, *u.Limits.SPE, u.Limits.Alpha)
 		}
-		fmt.Fprintf(env.Out, "unit %-12s %3d channels, %d modes%s\n", u.Name, len(u.Channels), len(u.Modes), lim)
+		fmt.Fprintf(env.Out, "unit %-12s %3d channels, %d modes, %d residual dimensions%s\n", u.Name, len(u.Channels), len(u.Modes), u.Limits.ResidualDims, lim)
 		if u.States == nil {
 			printModes(env.Out, u.Name, "  ", u.Modes)
 		} else {
@@ -131,6 +145,10 @@ func runFit(ctx context.Context, env IO, args []string) error {
 			fmt.Fprintf(env.Out, "  context suggestion: %s (unit %s) explains %.0f%% of this unit's variance; list it in units[].context if it drives this unit\n",
 				s.Channel, s.Unit, 100*s.Share)
 		}
+		printCalibration(env, u)
+	}
+	for _, n := range budgetNotes {
+		fmt.Fprintln(env.Out, n)
 	}
 	return nil
 }

@@ -50,6 +50,8 @@ type modelFlags struct {
 	alpha    string
 	adapt    string
 	limits   string
+	stats    string
+	smooth   string
 	set      map[string]bool
 }
 
@@ -64,6 +66,8 @@ func (m *modelFlags) register(fs *flag.FlagSet, withConfig bool) {
 	fs.StringVar(&m.alpha, "alpha", "", "false-alarm rate of each control limit per frame, in (0, 0.5) (default 0.01)")
 	fs.StringVar(&m.adapt, "adapt", "", "`true|false`: keep learning while scoring (default true)")
 	fs.StringVar(&m.limits, "limits", "", "control limits: theory|empirical:FILE (default theory)")
+	fs.StringVar(&m.smooth, "smoothing", "", "EWMA weight in (0, 1) of the alarm statistics before the alarm rule; its threshold comes from alerts.budget (default 0: none)")
+	fs.StringVar(&m.stats, "statistics", "", "statistics that raise alarms, a list of t2,spe,phi,res,var,rel (default "+configs.DefaultStatistics+")")
 }
 
 // load reads the configuration (or starts from defaults), applies the
@@ -94,6 +98,19 @@ func (m *modelFlags) load(fs *flag.FlagSet) (*configs.Config, error) {
 			bad("sparsity", err)
 		}
 		over.Sparsity = m.sparsity
+	}
+	if m.set["smoothing"] {
+		v, err := strconv.ParseFloat(m.smooth, 64)
+		if err != nil || !(v > 0 && v < 1) {
+			bad("smoothing", fmt.Errorf("%q is not an EWMA weight in (0, 1)", m.smooth))
+		}
+		over.Smoothing = v
+	}
+	if m.set["statistics"] {
+		if _, err := configs.ParseStatistics(m.stats); err != nil {
+			bad("statistics", err)
+		}
+		over.Statistics = m.stats
 	}
 	if m.set["modes"] {
 		v, err := configs.ParseModeCount(m.modes)

@@ -165,6 +165,7 @@ func calibrate(p *pipeline.Pipeline, cfg *configs.Config, period time.Duration, 
 		if err := t.unit.Tracker().Calibrate(t.rows); err != nil {
 			return fmt.Errorf("empirical limits: unit %s over %s: %w", t.unit.Name, file, err)
 		}
+		t.unit.DropCalibration() // the empirical limits replace the budget's scale
 	}
 	return nil
 }

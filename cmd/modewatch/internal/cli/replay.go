@@ -81,6 +81,7 @@ type runOutputs struct {
 	onScore  func(u *pipeline.Unit, t time.Time)
 	prepare  func(p *pipeline.Pipeline) error
 	progress string
+	keep     func(t time.Time) bool // frames to run (nil: all)
 }
 
 // register adds the flags of the error output that fit and replay share:
@@ -329,7 +330,7 @@ func runEngine(ctx context.Context, env IO, cfg *configs.Config, inputs []string
 	res, err := pipeline.Replay(ctx, pipeline.ReplayOptions{
 		Config: cfg, Inputs: inputs, Stdin: env.In, Baseline: baseline, Fit: fit, FitHalfLife: fitHalfLife,
 		Publisher: rec, OnScore: onScore, OnLineError: onLineError, Log: log,
-		Prepare: out.prepare, ReadInput: readInput,
+		Prepare: out.prepare, ReadInput: readInput, Keep: out.keep,
 	})
 	if err == nil {
 		err = scoreErr

@@ -89,6 +89,8 @@ type ReplayOptions struct {
 	// Intake.ReadFiles; the commands use it to count bytes for a progress
 	// bar.
 	ReadInput func(ctx context.Context, in *stream.Intake, name string) error
+	// Keep selects frames by start time (see Options.Keep).
+	Keep func(t time.Time) bool
 }
 
 // ReplayResult is what a replay or fit saw.
@@ -140,7 +142,7 @@ func Replay(ctx context.Context, opt ReplayOptions) (*ReplayResult, error) {
 	}
 	pl, err := New(Options{
 		Config: cfg, Channels: chans, Period: res.Period, Publisher: opt.Publisher, OnScore: opt.OnScore,
-		Baseline: opt.Baseline, Fit: opt.Fit, FitHalfLife: opt.FitHalfLife, Log: log,
+		Baseline: opt.Baseline, Fit: opt.Fit, FitHalfLife: opt.FitHalfLife, Log: log, Keep: opt.Keep,
 	})
 	if err != nil {
 		return nil, err

@@ -53,6 +53,14 @@ func TrackerConfig(m configs.Model, period time.Duration, p int, equal bool) (tr
 	if equal {
 		cfg.HalfLife = 0
 	}
+	st, err := configs.ParseStatistics(m.Statistics)
+	if err != nil {
+		return tracker.Config{}, err
+	}
+	cfg.Residual, cfg.Variance = st.Residual, st.Variance
+	if st.Relation && p >= 3 {
+		cfg.Relations = min(p/3, configs.MaxRelations)
+	}
 	return cfg, nil
 }
 
@@ -92,7 +100,10 @@ type ModelUnit struct {
 	Settings ModelSettings `json:"settings"`
 	Modes    []ModeView    `json:"modes"`
 	Limits   LimitsView    `json:"limits"`
-	State    []byte        `json:"state"`
+	// Calibration, when fit calibrated the unit to alerts.budget, scales
+	// every alarm limit (absent: the limits of alpha).
+	Calibration *Calibration `json:"calibration,omitempty"`
+	State       []byte       `json:"state"`
 	// Alerts is the unit's alarm state (alerts.Engine.SnapshotUnit) in a
 	// unit checkpoint, captured between the same two frames as State, so
 	// that the file alone carries the unit on; absent in fitted models.
@@ -140,6 +151,8 @@ type ModelSettings struct {
 	Alpha        float64  `json:"alpha"`
 	RefreshEvery int      `json:"refresh_every"`
 	WarmUp       int      `json:"warmup"`
+	Statistics   string   `json:"statistics,omitempty"`
+	Smoothing    float64  `json:"smoothing,omitempty"`
 }
 
 // Duration is a time.Duration that reads and writes as "1h30m0s".
@@ -161,7 +174,7 @@ func (d *Duration) UnmarshalText(b []byte) error {
 func settingsOf(m configs.Model) ModelSettings {
 	return ModelSettings{
 		Sparsity: m.Sparsity, Modes: m.Modes.String(), MaxModes: m.MaxModes, HalfLife: Duration(m.HalfLife),
-		Alpha: m.Alpha, RefreshEvery: m.RefreshEvery, WarmUp: m.WarmUp,
+		Alpha: m.Alpha, RefreshEvery: m.RefreshEvery, WarmUp: m.WarmUp, Statistics: m.Statistics, Smoothing: m.Smoothing,
 	}
 }
 
@@ -172,7 +185,7 @@ func (s ModelSettings) model() (configs.Model, error) {
 	}
 	return configs.Model{
 		Sparsity: s.Sparsity, Modes: mc, MaxModes: s.MaxModes, HalfLife: time.Duration(s.HalfLife),
-		Alpha: s.Alpha, RefreshEvery: s.RefreshEvery, WarmUp: s.WarmUp,
+		Alpha: s.Alpha, RefreshEvery: s.RefreshEvery, WarmUp: s.WarmUp, Statistics: s.Statistics, Smoothing: s.Smoothing,
 	}, nil
 }
 
@@ -264,6 +277,11 @@ func (p *Pipeline) buildFromModel(mu *ModelUnit, period time.Duration) (*Unit, e
 	}
 	u := newUnit(p, mu.Name)
 	u.model = settings
+	u.stats = alarmStats(settings)
+	u.smooth = settings.Smoothing
+	if c := mu.Calibration; c != nil && c.Scale > 0 && !math.IsInf(c.Scale, 0) {
+		u.scale, u.cal = c.Scale, c
+	}
 	u.model.Adapt = adapt
 	u.model.MaxChannels = p.cfg.ModelFor(mu.Name).MaxChannels
 	u.fixed = adapt != nil && !*adapt
@@ -369,7 +387,7 @@ func limitsOf(tr *tracker.Tracker) LimitsView {
 	x := make([]float64, tr.P())
 	tr.Stats().MeanTo(x)
 	var s tracker.Score
-	lv := LimitsView{Alpha: tr.Config().Alpha}
+	lv := LimitsView{Alpha: tr.Config().Alpha, ResidualDims: tr.ResidualDims()}
 	if err := tr.Evaluate(&s, x, nil); err == nil && s.Ready {
 		lv.T2, lv.SPE, lv.Phi = finite(s.T2Limit), finite(s.SPELimit), finite(s.PhiLimit)
 	}

@@ -42,6 +42,10 @@ type Options struct {
 	FitHalfLife bool
 	// Log receives unit events; nil discards them.
 	Log *slog.Logger
+	// Keep, if set, selects the frames by start time: a frame for which it
+	// returns false is neither scored nor learned (fit's calibration
+	// learns on one part of a log and scores the other).
+	Keep func(t time.Time) bool
 }
 
 // Pipeline routes frames to units. Frame must be called from one goroutine
@@ -248,6 +252,9 @@ func (p *Pipeline) Frame(f *stream.Frame) error {
 	defer p.mu.Unlock()
 	if p.known < p.ch.Len() {
 		p.assign()
+	}
+	if p.opt.Keep != nil && !p.opt.Keep(f.Start) {
+		return nil
 	}
 	if p.frames == 0 {
 		p.first = f.Start

@@ -28,10 +28,11 @@ func (e *ScoreEncoder) Append(u *Unit, t time.Time) []byte {
 	e.enc.StartLine(ScoreMeasurement)
 	e.enc.AddTag("unit", u.Name)
 	if s.Ready {
+		c := u.limitScale()
 		for _, f := range [...]struct {
 			key string
 			v   float64
-		}{{"t2", s.T2}, {"t2_limit", s.T2Limit}, {"spe", s.SPE}, {"spe_limit", s.SPELimit}, {"phi", s.Phi}, {"phi_limit", s.PhiLimit}} {
+		}{{"t2", s.T2}, {"t2_limit", c * s.T2Limit}, {"spe", s.SPE}, {"spe_limit", c * s.SPELimit}, {"phi", s.Phi}, {"phi_limit", c * s.PhiLimit}} {
 			if !math.IsNaN(f.v) && !math.IsInf(f.v, 0) {
 				e.enc.AddField(f.key, lineprotocol.MustNewValue(f.v))
 			}

@@ -19,8 +19,18 @@ type Unit struct {
 
 	p     *Pipeline
 	model configs.Model
-	idx   []int    // registry index of each model channel
-	names []string // channel names, same order
+	stats configs.Statistics // model.statistics: which statistics raise alarms
+	scale float64            // every alarm limit is multiplied by it (budget calibration; 1 without)
+	cal   *Calibration       // the calibration behind scale, kept for checkpoints
+	// smooth is model.smoothing (EWMA weight of the alarm statistics; 0:
+	// off); sm holds the smoothed ratios and smOK whether each started.
+	smooth float64
+	sm     [nStatistics]float64
+	smOK   [nStatistics]bool
+	last   []alerts.Stat // this frame's alarm statistics, unscaled
+	ctmp   []alerts.Contributor
+	idx    []int    // registry index of each model channel
+	names  []string // channel names, same order
 
 	tr    *tracker.Tracker
 	x     []float64
@@ -83,7 +93,7 @@ type Unit struct {
 
 func newUnit(p *Pipeline, name string) *Unit {
 	m := p.cfg.ModelFor(name)
-	u := &Unit{Name: name, p: p, model: m, fixed: m.Adapt != nil && !*m.Adapt,
+	u := &Unit{Name: name, p: p, model: m, stats: alarmStats(m), scale: 1, smooth: m.Over(configs.DefaultModel()).Smoothing, fixed: m.Adapt != nil && !*m.Adapt,
 		equal: p.opt.Fit && !p.opt.FitHalfLife, recentK: recentreFrames}
 	switch i := p.cfg.Unit(name); {
 	case p.isAuto(name):
@@ -354,14 +364,19 @@ func (u *Unit) observe(t time.Time) {
 	o.Missing = o.Missing[:0]
 	o.Quality = o.Quality[:0]
 	o.Location = o.Location[:0]
+	if s.Ready {
+		u.frameStats(s)
+	}
 	// In the hold-off after an operating-state switch the frame is scored
-	// and shown but its statistics start no incident.
-	if s.Ready && (u.states == nil || !u.states.inHoldOff()) {
+	// and shown but its statistics start no incident (and the budget
+	// calibration does not see them).
+	hold := u.states != nil && u.states.inHoldOff()
+	if hold {
+		u.last = u.last[:0]
+	}
+	if s.Ready && !hold {
 		o.Location = u.location(o.Location)
-		o.Stats = append(o.Stats,
-			alerts.Stat{Name: alerts.StatT2, Value: s.T2, Limit: s.T2Limit},
-			alerts.Stat{Name: alerts.StatSPE, Value: s.SPE, Limit: s.SPELimit},
-			alerts.Stat{Name: alerts.StatPhi, Value: s.Phi, Limit: s.PhiLimit})
+		o.Stats = u.appendStats(o.Stats)
 		for _, c := range s.Contrib {
 			if u.isContext(c.Channel) {
 				continue // a driver from another unit is never blamed here
@@ -371,6 +386,7 @@ func (u *Unit) observe(t time.Time) {
 				Reading: c.Reading, Expected: c.Expected, Band: c.Band, BandCoverage: tracker.BandCoverage,
 			})
 		}
+		u.leadRelation(o, s)
 	}
 	for _, i := range s.Missing {
 		if u.screen.MissingAlarm(i) && !u.isContext(i) {

@@ -25,6 +25,9 @@ type LimitsView struct {
 	T2    *float64 `json:"t2"`
 	SPE   *float64 `json:"spe"`
 	Phi   *float64 `json:"phi"`
+	// ResidualDims is the dimension of the residual subspace (channels in
+	// the model less modes) where SPE lives; 0 means SPE cannot alarm.
+	ResidualDims int `json:"residual_dims"`
 }
 
 // ContributorView is one ranked channel of a score.
@@ -151,14 +154,15 @@ func (u *Unit) View(t time.Time) UnitView {
 	v.EffectiveN = s.NEff
 	v.RefreshIterations = u.tr.Modes().Iterations()
 	v.Refreshes, v.LastRefreshS = u.refreshes, u.lastRefresh.Seconds()
+	c := u.limitScale()
 	if s.Ready {
-		v.Limits = &LimitsView{Alpha: u.tr.Config().Alpha, T2: finite(s.T2Limit), SPE: finite(s.SPELimit), Phi: finite(s.PhiLimit)}
+		v.Limits = &LimitsView{Alpha: u.tr.Config().Alpha, T2: finite(c * s.T2Limit), SPE: finite(c * s.SPELimit), Phi: finite(c * s.PhiLimit)}
 	}
 	sv := &ScoreView{Time: t, Ready: s.Ready, Missing: []string{}, Excluded: []string{}, Warming: []string{}, Contributors: []ContributorView{}}
 	if s.Ready {
-		sv.T2, sv.T2Limit = finite(s.T2), finite(s.T2Limit)
-		sv.SPE, sv.SPELimit = finite(s.SPE), finite(s.SPELimit)
-		sv.Phi, sv.PhiLimit = finite(s.Phi), finite(s.PhiLimit)
+		sv.T2, sv.T2Limit = finite(s.T2), finite(c*s.T2Limit)
+		sv.SPE, sv.SPELimit = finite(s.SPE), finite(c*s.SPELimit)
+		sv.Phi, sv.PhiLimit = finite(s.Phi), finite(c*s.PhiLimit)
 		for _, c := range s.Contrib {
 			sv.Contributors = append(sv.Contributors, ContributorView{
 				Channel: u.names[c.Channel], Share: c.Share, RBC: c.RBC, RBCLimit: c.RBCLimit,

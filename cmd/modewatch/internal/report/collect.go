@@ -99,12 +99,13 @@ func (c *Collector) Observe(u *pipeline.Unit, t time.Time) {
 	if tr := u.Tracker(); tr != nil {
 		p = tr.P()
 	}
-	c.add(u.Name, t, u.Score(), p, u.Channels)
+	c.add(u.Name, t, u.Score(), u.LimitScale(), p, u.Channels)
 }
 
-// add records score sc of unit name at t; p is the unit's channel count
-// and names returns its channel names (called only when p changed).
-func (c *Collector) add(name string, t time.Time, sc *tracker.Score, p int, names func() []string) {
+// add records score sc of unit name at t, its limits multiplied by scale
+// (the unit's budget calibration); p is the unit's channel count and names
+// returns its channel names (called only when p changed).
+func (c *Collector) add(name string, t time.Time, sc *tracker.Score, scale float64, p int, names func() []string) {
 	max := c.MaxBuckets
 	if max <= 0 {
 		max = DefaultBuckets
@@ -137,7 +138,7 @@ func (c *Collector) add(name string, t time.Time, sc *tracker.Score, p int, name
 	}
 	b := &s.buckets[k]
 	vals := [nStats]float64{sc.T2, sc.SPE, sc.Phi}
-	lims := [nStats]float64{sc.T2Limit, sc.SPELimit, sc.PhiLimit}
+	lims := [nStats]float64{scale * sc.T2Limit, scale * sc.SPELimit, scale * sc.PhiLimit}
 	if b.n == 0 {
 		b.from = ns
 		for i := range vals {

@@ -1,0 +1,106 @@
+package cli
+
+import (
+	"context"
+	"fmt"
+	"time"
+
+	"modewatch/cmd/modewatch/internal/pipeline"
+	"modewatch/configs"
+)
+
+// budgetFor returns alerts.budget for unit name (its own setting, else the
+// top-level one, else the default); ≤ 0 means off.
+func budgetFor(cfg *configs.Config, name string) float64 {
+	if i := cfg.Unit(name); i >= 0 {
+		return cfg.UnitAlerts(i).Budget
+	}
+	return cfg.Alerts.Over(configs.DefaultAlerts()).Budget
+}
+
+// calibrateBudgets calibrates every unit of the fitted model to its
+// alerts.budget (pipeline.CalibrateBudget): it learns a model on the first
+// pipeline.CalibrationShare of the normal log, replays the rest from it
+// with the settings the service uses (adapting, without freezing on
+// alerts), records the ratio of every alarm statistic to its limit, and
+// sets each unit's Calibration. It returns lines for the summary: which
+// setting wins, units left uncalibrated and why.
+func calibrateBudgets(ctx context.Context, env IO, cfg *configs.Config, inputs []string, mf modelFlags, model *pipeline.ModelFile) []string {
+	any := false
+	for _, u := range model.Units {
+		if budgetFor(cfg, u.Name) > 0 {
+			any = true
+		}
+	}
+	if !any {
+		return nil
+	}
+	var notes []string
+	for _, in := range inputs {
+		if in == "-" {
+			return []string{"alerts.budget: not calibrated (standard input cannot be read twice); the limits are those of alpha"}
+		}
+	}
+	from, to := model.From, model.To
+	split := from.Add(time.Duration(pipeline.CalibrationShare * float64(to.Sub(from))))
+	learnDays := split.Sub(from).Hours() / 24
+	quiet := runOutputs{quiet: true}
+	outA := quiet
+	outA.keep = func(t time.Time) bool { return t.Before(split) }
+	resA, _, err := runEngine(ctx, env, cfg, inputs, nil, true, mf.halfLifeSet(), outA)
+	if err != nil || resA == nil {
+		return []string{fmt.Sprintf("alerts.budget: not calibrated: learning on the first part of the log failed: %v", err)}
+	}
+	modelA, errA := resA.Pipeline.Baseline()
+	if len(modelA.Units) == 0 {
+		return []string{fmt.Sprintf("alerts.budget: not calibrated: no unit could be learned from the first part of the log: %v", errA)}
+	}
+	cfgB := *cfg
+	off := false
+	cfgB.Alerts.FreezeOnAlert = &off
+	rec := pipeline.NewRatioRecorder()
+	outB := quiet
+	outB.keep = func(t time.Time) bool { return !t.Before(split) }
+	outB.onScore = rec.OnScore
+	if _, _, err := runEngine(ctx, env, &cfgB, inputs, modelA, false, false, outB); err != nil {
+		return []string{fmt.Sprintf("alerts.budget: not calibrated: scoring the held-out part of the log failed: %v", err)}
+	}
+	for i := range model.Units {
+		u := &model.Units[i]
+		b := budgetFor(cfg, u.Name)
+		if b <= 0 {
+			continue
+		}
+		cal, err := rec.Calibrate(u.Name, b, pipeline.AlarmRule(cfg, u.Name), learnDays)
+		if err != nil {
+			msg := fmt.Sprintf("warning: unit %s not calibrated to alerts.budget (limits of alpha kept): %v", u.Name, err)
+			if cal.DaysNeeded > 0 {
+				msg += fmt.Sprintf("; about %.1f days of normal log needed", cal.DaysNeeded)
+			}
+			notes = append(notes, msg)
+			continue
+		}
+		u.Calibration = &cal
+	}
+	if mf.set["alpha"] || (cfg.Model.Alpha != 0 && cfg.Model.Alpha != configs.DefaultAlpha) {
+		notes = append(notes, "alerts.budget and alpha are both set: the budget wins (its calibrated scale multiplies the limits of alpha)")
+	}
+	return notes
+}
+
+// printCalibration prints a unit's budget calibration under its fit line.
+func printCalibration(env IO, u pipeline.ModelUnit) {
+	c := u.Calibration
+	if c == nil {
+		return
+	}
+	th := ""
+	if u.Limits.T2 != nil && u.Limits.SPE != nil {
+		th = fmt.Sprintf(" (T² %.2f, SPE %.2f)", c.Scale**u.Limits.T2, c.Scale**u.Limits.SPE)
+	}
+	fmt.Fprintf(env.Out, "  budget %.3g false alerts/day: limits ×%.3f%s; expected %.3g/day [95%% %.3g, %.3g]; held-out %.1f days: %d alerts of the whole rule at this scale; GEV of %d block maxima of %v\n",
+		c.Budget, c.Scale, th, c.Rate, c.RateLow, c.RateHigh, c.HeldOutDays, c.Observed, c.Blocks, time.Duration(c.Block))
+	if c.DaysNeeded > 0 {
+		fmt.Fprintf(env.Out, "  warning: the normal log is too short for this budget: the interval is wider than a factor 2; about %.1f days of normal log needed\n", c.DaysNeeded)
+	}
+}

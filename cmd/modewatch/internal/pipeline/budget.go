@@ -1,0 +1,290 @@
+package pipeline
+
+import (
+	"errors"
+	"fmt"
+	"math"
+	"slices"
+	"time"
+
+	"modewatch/alerts"
+	"modewatch/configs"
+	"modewatch/tracker/limits"
+)
+
+// Calibration is a unit's false-alert budget calibration (alerts.budget),
+// made by fit: every control limit of the unit is multiplied by Scale.
+type Calibration struct {
+	// Scale multiplies every limit of the unit (T², SPE, φ and the others
+	// chosen by model.statistics).
+	Scale float64 `json:"scale"`
+	// Budget is the target, false alerts per day.
+	Budget float64 `json:"budget_per_day"`
+	// Rate is the expected false alerts per day at Scale from the
+	// extreme-value model, RateLow and RateHigh its approximate 95 %
+	// interval (delta method).
+	Rate     float64 `json:"rate_per_day"`
+	RateLow  float64 `json:"rate_low_per_day"`
+	RateHigh float64 `json:"rate_high_per_day"`
+	// Observed is the number of alerts the whole alarm rule opened over
+	// the held-out data at Scale; HeldOutDays the held-out span.
+	Observed    int     `json:"observed_alerts"`
+	HeldOutDays float64 `json:"held_out_days"`
+	// Blocks of length Block gave the block maxima of the rule statistic
+	// fitted by the GEV (Mu, Sigma, Xi).
+	Blocks int      `json:"blocks"`
+	Block  Duration `json:"block"`
+	Mu     float64  `json:"gev_mu"`
+	Sigma  float64  `json:"gev_sigma"`
+	Xi     float64  `json:"gev_xi"`
+	// DaysNeeded is set when the normal log is too short for the budget:
+	// the days of normal log (held-out and learning parts together) for
+	// the interval to lie within a factor of two of the rate.
+	DaysNeeded float64 `json:"days_needed,omitempty"`
+}
+
+// Calibration settings.
+const (
+	// CalibrationShare is the share of the normal log that fit learns
+	// from before scoring the rest for the calibration.
+	CalibrationShare = 0.5
+	// minBlocks is the fewest block maxima the GEV is fitted to (Coles
+	// 2001 fits 65; below about 20 the shape is barely identified).
+	minBlocks = 20
+	// minBlock and maxBlock bound the block length: long enough that
+	// blocks are nearly independent for the slow serial correlation of
+	// process data, short enough to give minBlocks from a few days.
+	minBlock = 30 * time.Minute
+	maxBlock = 24 * time.Hour
+	// maxBlockShare bounds P(block maximum > scale) at the budget, so that
+	// a block rarely holds two alerts.
+	maxBlockShare = 0.2
+)
+
+// ErrCalibration marks a calibration that could not be made.
+var ErrCalibration = errors.New("pipeline: budget calibration")
+
+// RatioRecorder records, per unit and frame, the ratio statistic/limit of
+// each statistic that raises alarms (NaN when a statistic has no valid
+// limit), for CalibrateBudget. Use OnScore as the replay's OnScore.
+type RatioRecorder struct {
+	units map[string]*ratioSeries
+}
+
+type ratioSeries struct {
+	t []time.Time
+	r [][nStatistics]float64
+}
+
+// nStatistics is the number of statistics appendStats can report.
+const nStatistics = 6
+
+// NewRatioRecorder returns an empty recorder.
+func NewRatioRecorder() *RatioRecorder { return &RatioRecorder{units: map[string]*ratioSeries{}} }
+
+// OnScore records the unit's latest score at frame time t.
+func (rr *RatioRecorder) OnScore(u *Unit, t time.Time) {
+	s := &u.score
+	if !s.Ready {
+		return
+	}
+	ser := rr.units[u.Name]
+	if ser == nil {
+		ser = &ratioSeries{}
+		rr.units[u.Name] = ser
+	}
+	var row [nStatistics]float64
+	for i := range row {
+		row[i] = math.NaN()
+	}
+	for _, x := range u.last {
+		i := slices.Index(statNames[:], x.Name)
+		if i >= 0 && x.Limit > 0 && !math.IsInf(x.Limit, 0) && !math.IsNaN(x.Value) {
+			row[i] = x.Value / x.Limit
+		}
+	}
+	ser.t = append(ser.t, t)
+	ser.r = append(ser.r, row)
+}
+
+// Units returns the names of the units recorded.
+func (rr *RatioRecorder) Units() []string {
+	var n []string
+	for k := range rr.units {
+		n = append(n, k)
+	}
+	slices.Sort(n)
+	return n
+}
+
+// Calibrate calibrates unit name (see CalibrateBudget).
+func (rr *RatioRecorder) Calibrate(name string, budget float64, rule alerts.AlarmRule, learnDays float64) (Calibration, error) {
+	ser := rr.units[name]
+	if ser == nil || len(ser.t) == 0 {
+		return Calibration{}, fmt.Errorf("%w: unit %s: no scored frame in the held-out data", ErrCalibration, name)
+	}
+	return CalibrateBudget(ser.t, ser.r, budget, rule, learnDays)
+}
+
+// AlarmRule returns the alarm rule of unit name under configuration c.
+func AlarmRule(c *configs.Config, name string) alerts.AlarmRule {
+	ac := AlertsConfig(c)
+	r, ok := ac.Units[name]
+	if !ok {
+		r = ac.Rules
+	}
+	ar := alerts.AlarmRule{N: r.OnCount, M: r.OnWindow, OnHold: r.OnHold, OffDelay: max(r.OffDelay, 0), Deadband: r.Deadband}
+	return ar
+}
+
+// CalibrateBudget finds the scale c of a unit's limits at which its whole
+// alarm rule opens, on normal data, budget false alerts per day.
+//
+// Input: the frame times t and, per frame, the ratio statistic/limit of
+// each alarm statistic (NaN: none) of held-out normal frames scored as the
+// service would score them. The rule statistic of frame k is the largest,
+// over statistics, of the N-th largest ratio among the last M frames: the
+// on-delay rule (N of M frames over the limit) opens an alarm at scale c
+// exactly when it exceeds c. It is serially correlated, so the frames are
+// cut into blocks (at least 20, 30 min to 24 h, and at most a fifth of
+// the budget's return period) whose maxima are close to
+// independent; a GEV is fitted to the block maxima (Coles 2001, ch. 3 and
+// §5.2 on stationary sequences, where dependence changes the GEV's
+// parameters but not its form) and
+//
+//	rate(c) = (blocks per day) · P(block maximum > c)
+//
+// counts at most one alert per block, which holds at the rare levels of a
+// budget (the off-delay merges the frames of one excursion). c solves
+// rate(c) = budget: c = z_p, the GEV return level at p = budget · block /
+// day. The interval is the delta-method 95 % interval of P at c. The
+// whole alarm rule (alerts.Alarm per statistic, any active opens the
+// unit's alert, off-delay and deadband included) is then run over the
+// held-out frames at c to count the alerts it opens (Observed).
+//
+// learnDays, the span of normal log used for learning before the held-out
+// part, only enters DaysNeeded.
+func CalibrateBudget(t []time.Time, ratios [][nStatistics]float64, budget float64, rule alerts.AlarmRule, learnDays float64) (Calibration, error) {
+	n := len(t)
+	if n < 2 || len(ratios) != n {
+		return Calibration{}, fmt.Errorf("%w: %d frames", ErrCalibration, n)
+	}
+	if !(budget > 0) {
+		return Calibration{}, fmt.Errorf("%w: budget %v per day", ErrCalibration, budget)
+	}
+	span := t[n-1].Sub(t[0])
+	days := span.Hours() / 24
+	// Blocks short enough that the budget's level is exceeded in at most
+	// 1 block in 5 (one alert per block), long enough to be independent.
+	block := span / minBlocks
+	block = min(max(block, minBlock), maxBlock, time.Duration(maxBlockShare/budget*24*float64(time.Hour)))
+	nb := int(span / block)
+	if nb < minBlocks {
+		need := (float64(minBlocks)*minBlock.Hours()/24)/(1-CalibrationShare) + 0
+		return Calibration{HeldOutDays: days, DaysNeeded: need}, fmt.Errorf("%w: %.2f days of held-out normal data give %d blocks of %v, need %d",
+			ErrCalibration, days, nb, block, minBlocks)
+	}
+	// Rule statistic per frame.
+	nth := make([]float64, rule.M)
+	s := make([]float64, n)
+	for k := 0; k < n; k++ {
+		best := math.Inf(-1)
+		for j := 0; j < nStatistics; j++ {
+			w := nth[:0]
+			for i := max(0, k-rule.M+1); i <= k; i++ {
+				if v := ratios[i][j]; !math.IsNaN(v) {
+					w = append(w, v)
+				}
+			}
+			if len(w) < rule.N {
+				continue
+			}
+			slices.Sort(w)
+			best = math.Max(best, w[len(w)-rule.N])
+		}
+		s[k] = best
+	}
+	// Block maxima.
+	maxima := make([]float64, 0, nb)
+	t0 := t[0]
+	cur, have := math.Inf(-1), false
+	bi := 0
+	for k := 0; k < n; k++ {
+		b := int(t[k].Sub(t0) / block)
+		if b >= nb {
+			break
+		}
+		if b != bi {
+			if have {
+				maxima = append(maxima, cur)
+			}
+			bi, cur, have = b, math.Inf(-1), false
+		}
+		if !math.IsInf(s[k], -1) {
+			cur, have = math.Max(cur, s[k]), true
+		}
+	}
+	if have {
+		maxima = append(maxima, cur)
+	}
+	if len(maxima) < minBlocks {
+		return Calibration{HeldOutDays: days}, fmt.Errorf("%w: %d blocks with a score, need %d", ErrCalibration, len(maxima), minBlocks)
+	}
+	fit, err := limits.FitGEV(maxima)
+	if err != nil {
+		return Calibration{HeldOutDays: days}, fmt.Errorf("%w: %w", ErrCalibration, err)
+	}
+	perDay := 24 * float64(time.Hour) / float64(block)
+	p := budget / perDay
+	cal := Calibration{Budget: budget, HeldOutDays: days, Blocks: len(maxima), Block: Duration(block),
+		Mu: fit.Mu, Sigma: fit.Sigma, Xi: fit.Xi}
+	if p >= 1 {
+		return cal, fmt.Errorf("%w: a budget of %v per day is an alert in every block of %v", ErrCalibration, budget, block)
+	}
+	c := fit.ReturnLevel(p)
+	if !(c > 0) || math.IsInf(c, 0) || math.IsNaN(c) {
+		return cal, fmt.Errorf("%w: the GEV return level %v is not a usable scale", ErrCalibration, c)
+	}
+	pc, se := fit.ExceedSE(c)
+	cal.Scale = c
+	cal.Rate = pc * perDay
+	// Interval on the log scale (P is positive and skewed).
+	rel := 0.0
+	if pc > 0 {
+		rel = se / pc
+	}
+	cal.RateLow = cal.Rate * math.Exp(-1.96*rel)
+	cal.RateHigh = cal.Rate * math.Exp(1.96*rel)
+	// Too short: the interval is wider than a factor 2 either side; the
+	// relative standard error falls as 1/√(blocks).
+	if f := 1.96 * rel / math.Ln2; f > 1 {
+		cal.DaysNeeded = (days + learnDays) * f * f
+	}
+	cal.Observed = countAlerts(t, ratios, c, rule)
+	return cal, nil
+}
+
+// countAlerts runs the alarm rule (one alerts.Alarm per statistic, the
+// unit's alert open while any is in alarm) over the frames with every
+// limit multiplied by c and returns the number of alerts opened.
+func countAlerts(t []time.Time, ratios [][nStatistics]float64, c float64, rule alerts.AlarmRule) int {
+	var al [nStatistics]alerts.Alarm
+	for j := range al {
+		al[j] = alerts.NewAlarm(rule)
+	}
+	open, count := false, 0
+	for k := range t {
+		in := false
+		for j := range al {
+			if v := ratios[k][j]; !math.IsNaN(v) {
+				al[j].Step(t[k], v, c)
+			}
+			in = in || al[j].State().InAlarm()
+		}
+		if in && !open {
+			count++
+		}
+		open = in
+	}
+	return count
+}

@@ -1,0 +1,130 @@
+package pipeline
+
+import (
+	"math"
+
+	"modewatch/alerts"
+	"modewatch/configs"
+	"modewatch/tracker"
+)
+
+// alarmStats returns the statistics of the unit's model settings that
+// raise alarms (model.statistics; the default when it does not parse,
+// which validation has already reported).
+func alarmStats(m configs.Model) configs.Statistics {
+	st, err := configs.ParseStatistics(m.Over(configs.DefaultModel()).Statistics)
+	if err != nil {
+		st, _ = configs.ParseStatistics(configs.DefaultStatistics)
+	}
+	return st
+}
+
+// statNames lists the alarm statistics in their fixed order (the slots of
+// Unit.sm and of the ratio recorder).
+var statNames = [nStatistics]string{alerts.StatT2, alerts.StatSPE, alerts.StatPhi,
+	alerts.StatResidual, alerts.StatVariance, alerts.StatRelation}
+
+// frameStats computes the unit's alarm statistics of score s, chosen by
+// model.statistics, into u.last, unscaled. With model.smoothing λ each is
+// replaced by the EWMA of its ratio to its limit, r̃ ← (1 − λ)r̃ + λr,
+// against a limit of 1 (the smoothed statistic's own threshold comes from
+// the budget calibration, which multiplies it). Call once per frame.
+func (u *Unit) frameStats(s *tracker.Score) {
+	st := u.stats
+	on := [nStatistics]bool{st.T2, st.SPE, st.Phi, st.Residual, st.Variance, st.Relation}
+	val := [nStatistics]float64{s.T2, s.SPE, s.Phi, s.Residual, s.Variance, s.Relation}
+	lim := [nStatistics]float64{s.T2Limit, s.SPELimit, s.PhiLimit, s.ResidualLimit, s.VarianceLimit, s.RelationLimit}
+	u.last = u.last[:0]
+	for k := range on {
+		if !on[k] || (k >= 3 && !(lim[k] > 0)) {
+			continue
+		}
+		v, l := val[k], lim[k]
+		if lam := u.smooth; lam > 0 && lam < 1 {
+			if l > 0 && !math.IsInf(l, 0) && !math.IsNaN(v) && !math.IsInf(v, 0) {
+				r := v / l
+				if u.smOK[k] {
+					u.sm[k] += lam * (r - u.sm[k])
+				} else {
+					u.sm[k], u.smOK[k] = r, true
+				}
+			}
+			if !u.smOK[k] {
+				continue
+			}
+			v, l = u.sm[k], 1
+		}
+		u.last = append(u.last, alerts.Stat{Name: statNames[k], Value: v, Limit: l})
+	}
+}
+
+// limitScale returns the factor of the budget calibration on every limit
+// of the unit (1 without one): the limits the alarms use, which the
+// views and the scores output show.
+func (u *Unit) limitScale() float64 {
+	if c := u.scale; c > 0 && !math.IsInf(c, 0) {
+		return c
+	}
+	return 1
+}
+
+// LimitScale returns the factor the unit's alarm limits carry beyond the
+// tracker's (the budget calibration; 1 without one).
+func (u *Unit) LimitScale() float64 { return u.limitScale() }
+
+// DropCalibration removes the unit's budget calibration: its limits are
+// the tracker's again (empirical limits set on the tracker replace it).
+func (u *Unit) DropCalibration() { u.scale, u.cal = 1, nil }
+
+// leadRelation puts the channels of the broken relation first among the
+// frame's contributors when the relation statistic (model.statistics rel)
+// is over its limit, so that an alert opened by it names that relation:
+// its channels in their order, those already ranked keeping their figures,
+// the others with zero share and RBC (their contribution to the RBC index
+// was below the reported ones); the other contributors follow in rank.
+func (u *Unit) leadRelation(o *alerts.Observation, s *tracker.Score) {
+	if !u.stats.Relation || s.RelationMode < 0 || !(s.Relation > s.RelationLimit*u.limitScale()) {
+		return
+	}
+	supp := u.tr.RelationSupport(s.RelationMode)
+	if len(supp) == 0 {
+		return
+	}
+	tmp := u.ctmp[:0]
+	in := func(name string) bool {
+		for _, i := range supp {
+			if u.names[i] == name {
+				return true
+			}
+		}
+		return false
+	}
+	for _, i := range supp {
+		c := alerts.Contributor{Channel: u.names[i]}
+		for _, x := range o.Contributors {
+			if x.Channel == c.Channel {
+				c = x
+				break
+			}
+		}
+		tmp = append(tmp, c)
+	}
+	for _, x := range o.Contributors {
+		if !in(x.Channel) {
+			tmp = append(tmp, x)
+		}
+	}
+	o.Contributors = append(o.Contributors[:0], tmp...)
+	u.ctmp = tmp
+}
+
+// appendStats appends the unit's alarm statistics of the current frame
+// (u.last) to dst with every limit multiplied by the budget scale.
+func (u *Unit) appendStats(dst []alerts.Stat) []alerts.Stat {
+	c := u.limitScale()
+	for _, x := range u.last {
+		x.Limit *= c
+		dst = append(dst, x)
+	}
+	return dst
+}
