@@ -31,11 +31,11 @@ const (
 	// holds a name, a series key and a few counters per channel.
 	MaxChannelsCeiling = 100000
 	// DefaultUnitMaxChannels caps the channels of one unit's model. A
-	// unit's model needs about 18·p² + 6000·p bytes (measured, see the
-	// README), so 2000 channels fit in 80 MB, and with one checkpoint
-	// being written or received beside it in under 256 MiB.
+	// unit's model needs about 34·p² + 6000·p bytes (measured, see the
+	// README), so 2000 channels fit in about 150 MB, and with one
+	// checkpoint being written or received beside it in under 256 MiB.
 	DefaultUnitMaxChannels = 2000
-	// UnitMaxChannelsCeiling bounds model.max_channels (about 1.8 GB).
+	// UnitMaxChannelsCeiling bounds model.max_channels (about 3.4 GB).
 	UnitMaxChannelsCeiling = 10000
 
 	// DefaultSparsity is the sparse-mode constraint of every mode: at most
