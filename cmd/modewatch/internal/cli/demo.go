@@ -200,6 +200,7 @@ func runDemoWith(ctx context.Context, env IO, opt demoOptions) (demoOutcome, err
 	}()
 	info := svc.Info()
 	fmt.Fprintf(w, "2. service running with an embedded NATS server at %s\n", info.NATS)
+	fmt.Fprintf(w, "   status page: %s/  (open it in a browser)\n", info.HTTP)
 	fmt.Fprintf(w, "   HTTP API:  %s/api/units   %s/api/alerts   %s/metrics   %s/healthz\n", info.HTTP, info.HTTP, info.HTTP, info.HTTP)
 	fmt.Fprintf(w, "   subjects:  readings modewatch.readings.<unit>, alerts %s, scores %s\n", info.Alerts, info.Scores)
 	fmt.Fprintf(w, "   state:     %s\n", stateDir)

@@ -34,12 +34,17 @@ const Caution = "modewatch is advisory: it never acts on the plant. Verify every
 //	GET  /api/units/{unit}/checkpoint the unit's checkpoint now (model and alarm state)
 //	PUT  /api/units/{unit}/checkpoint take over a unit from its checkpoint file
 //	                                  (moved from another instance); other units are not touched
+//	GET  /, /page/...                 the status page (statuspage.Page.Register)
 //
 // /healthz and /readyz answer everyone (supervisors probe them); the other
 // GET endpoints need the read role and the POST and PUT ones the write
-// role (package access). A writer's name is the "by" of its commands.
+// role (package access). A writer's name is the "by" of its commands. The
+// status page's data and event stream take the read role too; its shell
+// and assets hold no plant data and answer everyone, so that a browser
+// can ask for a token.
 func (s *Service) routes() http.Handler {
 	mux := &guardedMux{ServeMux: http.NewServeMux(), g: s.guard}
+	s.page = s.registerPage(mux.ServeMux, s.guard.Read, s.pageIdentity)
 	mux.ServeMux.HandleFunc("GET /healthz", func(w http.ResponseWriter, r *http.Request) {
 		writeJSON(w, http.StatusOK, map[string]string{"status": "ok"})
 	})
@@ -48,7 +53,7 @@ func (s *Service) routes() http.Handler {
 	mux.HandleFunc("GET /api", func(w http.ResponseWriter, r *http.Request) {
 		writeJSON(w, http.StatusOK, map[string]any{
 			"caution": Caution,
-			"links": []string{"/healthz", "/readyz", "/metrics", "/api/units", "/api/units/{unit}", "/api/alerts",
+			"links": []string{"/ (status page)", "/healthz", "/readyz", "/metrics", "/api/units", "/api/units/{unit}", "/api/alerts",
 				"POST /api/alerts/{ack|shelve|unshelve|accept}", "POST /api/units/{unit}/maintenance", "POST /api/units/{unit}/accept", "POST /api/commands",
 				"GET /api/units/{unit}/checkpoint", "PUT /api/units/{unit}/checkpoint"},
 			"subjects": s.info,

@@ -27,6 +27,7 @@ import (
 	"modewatch/alerts/sink"
 	"modewatch/cmd/modewatch/internal/access"
 	"modewatch/cmd/modewatch/internal/pipeline"
+	"modewatch/cmd/modewatch/internal/statuspage"
 	"modewatch/configs"
 	"modewatch/stream"
 	"modewatch/stream/natsource"
@@ -77,6 +78,8 @@ type Service struct {
 	guard *access.Guard
 	large chan struct{} // one token per large request being served
 	met   *metrics
+	hist  *statuspage.History // trends of the status page
+	page  *statuspage.Page
 
 	recMu  sync.Mutex
 	recent map[string]alerts.Record // latest revision of recent records, by id
@@ -120,7 +123,7 @@ func Start(ctx context.Context, opt Options) (_ *Service, err error) {
 		opt.Stdout = os.Stdout
 	}
 	s := &Service{cfg: cfg, opt: opt, log: log, scoreSubj: map[string]string{}, recent: map[string]alerts.Record{}, ckptNow: make(chan struct{}, 1), done: make(chan struct{}), failed: make(chan struct{}),
-		lastWall: map[string]time.Time{}, started: time.Now()}
+		lastWall: map[string]time.Time{}, started: time.Now(), hist: statuspage.NewHistory(0, 0, 0)}
 	defer func() {
 		if err != nil {
 			s.abort()
@@ -436,6 +439,7 @@ func (s *Service) onScore(u *pipeline.Unit, t time.Time) {
 	s.clockMu.Lock()
 	s.lastWall[u.Name] = time.Now()
 	s.clockMu.Unlock()
+	s.recordHistory(u, t)
 	subj, ok := s.scoreSubj[u.Name]
 	if !ok {
 		subj = s.cfg.Server.Prefix + ".scores." + sink.SubjectToken(u.Name)

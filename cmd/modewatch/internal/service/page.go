@@ -1,0 +1,55 @@
+package service
+
+import (
+	"net/http"
+	"time"
+
+	"modewatch/alerts"
+	"modewatch/cmd/modewatch/internal/access"
+	"modewatch/cmd/modewatch/internal/pipeline"
+	"modewatch/cmd/modewatch/internal/statuspage"
+)
+
+// pageSource gives the status page the same views as /api/*.
+type pageSource struct{ s *Service }
+
+func (p pageSource) Views() []pipeline.UnitView { return p.s.pl.Views() }
+func (p pageSource) Open() []alerts.Record      { return p.s.alertsOpen() }
+func (p pageSource) Records() []alerts.Record   { return p.s.Records() }
+
+// pageOps are the operator commands the API takes, as the page offers them.
+var pageOps = []string{alerts.OpAck, alerts.OpShelve, alerts.OpUnshelve, alerts.OpMaintenance}
+
+// registerPage serves the status page at / on mux, behind read (the read
+// permission of the API; nil: none), drawing trends from the service's
+// history ring.
+func (s *Service) registerPage(mux *http.ServeMux, read func(http.Handler) http.Handler, identify func(*http.Request) statuspage.Identity) *statuspage.Page {
+	var sev []string
+	for _, b := range s.cfg.Alerts.Severity {
+		sev = append(sev, b.Name)
+	}
+	pg := statuspage.New(pageSource{s}, s.hist, statuspage.Options{
+		Read: read, Identify: identify, Ops: pageOps, Severities: sev, Caution: Caution,
+	})
+	pg.Register(mux)
+	return pg
+}
+
+// recordHistory keeps a scored frame of u in the history ring the page's
+// trends are drawn from (fixed memory per unit; no allocation after the
+// unit's first frame).
+func (s *Service) recordHistory(u *pipeline.Unit, t time.Time) {
+	sc := u.Score()
+	if !sc.Ready {
+		return
+	}
+	s.hist.Add(u.Name, t, statuspage.Stats{T2: sc.T2, T2Limit: sc.T2Limit, SPE: sc.SPE, SPELimit: sc.SPELimit, Phi: sc.Phi, PhiLimit: sc.PhiLimit})
+}
+
+// pageIdentity tells the status page who a request (already through the
+// guard) is: its token's or certificate's name, and whether it holds the
+// write role.
+func (s *Service) pageIdentity(r *http.Request) statuspage.Identity {
+	id, _ := access.From(r.Context())
+	return statuspage.Identity{Name: id.Name, CanWrite: id.Role >= access.Write, Auth: !s.guard.Open()}
+}
