@@ -161,7 +161,9 @@ function spark(tr, key, w = 160, h = 26) {
   const s = tr[key];
   const n = s.value.length;
   const r = s.value.map((v, i) => (v != null && s.limit[i] ? v / s.limit[i] : null));
-  const top = Math.max(1.5, ...r.filter((x) => x != null).map((x) => Math.min(x, 6)));
+  // The limit sits at a third of the height or higher; larger values are
+  // clipped to the top and marked.
+  const top = Math.min(3, Math.max(1.5, ...r.filter((x) => x != null)));
   const X = (i) => (n <= 1 ? 0 : (i * w) / (n - 1));
   const Y = (x) => h - 2 - (Math.min(x, top) / top) * (h - 4);
   let d = "", pen = false, over = "";
@@ -275,7 +277,7 @@ function bandCell(c) {
 }
 
 function renderUnit(d) {
-  if (!d) { $("view").innerHTML = `<p class="error">No such unit.</p><p><a href="#/">Back to the plant</a></p>`; return; }
+  if (!d) { setLive("waiting", "no such unit"); $("view").innerHTML = `<p class="error">No such unit.</p><p><a href="#/">Back to the plant</a></p>`; return; }
   const u = d.unit;
   const spans = [...d.records, ...d.open].filter((r) => r.group !== "quality");
   const st = [u.model_state, u.operating_state].filter(Boolean).map(esc).join(" · ");
