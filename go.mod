@@ -3,6 +3,7 @@ module modewatch
 go 1.26.0
 
 require (
+	github.com/chromedp/chromedp v0.24.0
 	github.com/influxdata/line-protocol/v2 v2.2.1
 	github.com/nats-io/jwt/v2 v2.8.2
 	github.com/nats-io/nats-server/v2 v2.15.2
@@ -29,7 +30,6 @@ require (
 	github.com/beorn7/perks v1.0.1 // indirect
 	github.com/cespare/xxhash/v2 v2.3.0 // indirect
 	github.com/chromedp/cdproto v0.160.1 // indirect
-	github.com/chromedp/chromedp v0.24.0 // indirect
 	github.com/go-json-experiment/json v0.0.0-20260213210345-44df1a37e875 // indirect
 	github.com/golang/freetype v0.0.0-20170609003504-e2365dfdc4a0 // indirect
 	github.com/google/go-tpm v0.9.8 // indirect

@@ -58,6 +58,7 @@ func (s *Service) serveHTTP() error {
 	s.srv = &http.Server{Handler: s.routes(), TLSConfig: tcfg,
 		ReadHeaderTimeout: 10 * time.Second, ReadTimeout: h.ReadTimeout, WriteTimeout: h.WriteTimeout, IdleTimeout: h.IdleTimeout,
 		MaxHeaderBytes: 64 << 10, ErrorLog: slog.NewLogLogger(s.log.With("component", "http").Handler(), slog.LevelWarn)}
+	s.srv.RegisterOnShutdown(s.page.Close) // the page's event streams never go idle
 	s.info.HTTP = scheme + s.ln.Addr().String()
 	s.log.Info("HTTP API", "url", s.info.HTTP, "authentication", !s.guard.Open(), "tls", tcfg != nil,
 		"client_certificates", h.TLS.ClientCA != "")

@@ -24,15 +24,28 @@ var pageOps = []string{alerts.OpAck, alerts.OpShelve, alerts.OpUnshelve, alerts.
 // permission of the API; nil: none), drawing trends from the service's
 // history ring.
 func (s *Service) registerPage(mux *http.ServeMux, read func(http.Handler) http.Handler, identify func(*http.Request) statuspage.Identity) *statuspage.Page {
-	var sev []string
-	for _, b := range s.cfg.Alerts.Severity {
-		sev = append(sev, b.Name)
-	}
-	pg := statuspage.New(pageSource{s}, s.hist, statuspage.Options{
-		Read: read, Identify: identify, Ops: pageOps, Severities: sev, Caution: Caution,
-	})
+	pg := s.StatusPage(statuspage.Options{Read: read, Identify: identify})
 	pg.Register(mux)
 	return pg
+}
+
+// StatusPage returns a status page over this service's units, incidents
+// and trend history with opt; the operations the API takes, the severity
+// names and the caution are filled in when opt leaves them empty. The
+// service serves one at /; tests serve another behind their own front.
+func (s *Service) StatusPage(opt statuspage.Options) *statuspage.Page {
+	if opt.Ops == nil {
+		opt.Ops = pageOps
+	}
+	if opt.Severities == nil {
+		for _, b := range s.cfg.Alerts.Severity {
+			opt.Severities = append(opt.Severities, b.Name)
+		}
+	}
+	if opt.Caution == "" {
+		opt.Caution = Caution
+	}
+	return statuspage.New(pageSource{s}, s.hist, opt)
 }
 
 // recordHistory keeps a scored frame of u in the history ring the page's

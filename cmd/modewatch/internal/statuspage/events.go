@@ -53,6 +53,9 @@ func (p *Page) events(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	select {
+	case <-p.done:
+		http.Error(w, "the service is stopping", http.StatusServiceUnavailable)
+		return
 	case p.sem <- struct{}{}:
 	default:
 		w.Header().Set("Retry-After", "5")
@@ -110,6 +113,8 @@ func (p *Page) events(w http.ResponseWriter, r *http.Request) {
 		}
 		select {
 		case <-r.Context().Done():
+			return
+		case <-p.done:
 			return
 		case <-tick.C:
 			idle += p.opt.Interval

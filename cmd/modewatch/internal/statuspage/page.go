@@ -97,7 +97,15 @@ type Page struct {
 	mu      sync.Mutex
 	base    *base
 	clients int
+
+	done      chan struct{}
+	closeOnce sync.Once
 }
+
+// Close ends every open event stream and refuses new ones, so that the
+// HTTP server's Shutdown is not held up by streams that never go idle
+// (register it with http.Server.RegisterOnShutdown). It is idempotent.
+func (p *Page) Close() { p.closeOnce.Do(func() { close(p.done) }) }
 
 // New returns the page over src, drawing trends from hist.
 func New(src Source, hist *History, opt Options) *Page {
@@ -118,7 +126,7 @@ func New(src Source, hist *History, opt Options) *Page {
 	if opt.Identify == nil {
 		opt.Identify = func(*http.Request) Identity { return Identity{CanWrite: true} }
 	}
-	return &Page{src: src, hist: hist, opt: opt, sem: make(chan struct{}, opt.MaxClients)}
+	return &Page{src: src, hist: hist, opt: opt, sem: make(chan struct{}, opt.MaxClients), done: make(chan struct{})}
 }
 
 // Register adds the page's routes to mux:

@@ -12,6 +12,7 @@ const state = {
   filters: { unit: "", severity: "", closed: false },
   window: "1h",
   lastEvent: 0,
+  events: 0,           // view events received since the page loaded
 };
 
 const $ = (id) => document.getElementById(id);
@@ -113,6 +114,7 @@ function openStream(query, onView) {
               }
               if (ev === "view" && data) {
                 backoff = 1000;
+                document.body.dataset.events = String(++state.events);
                 onView(JSON.parse(data));
               } else if (ev === "gone") {
                 onView(null);
@@ -224,6 +226,7 @@ function renderPlant(p) {
   }
   html += `</div>`;
   $("view").innerHTML = html;
+  if (!performance.getEntriesByName("modewatch-first-view").length) performance.mark("modewatch-first-view");
 }
 
 function sevRank(name) {

@@ -1,0 +1,463 @@
+package statuspage_test
+
+import (
+	"bytes"
+	"context"
+	"encoding/json"
+	"fmt"
+	"io"
+	"log/slog"
+	"net/http"
+	"net/http/httptest"
+	"net/http/httputil"
+	"net/url"
+	"os"
+	"os/exec"
+	"path/filepath"
+	"strings"
+	"testing"
+	"time"
+
+	"github.com/chromedp/chromedp"
+	"github.com/nats-io/nats.go"
+
+	"modewatch/alerts"
+	"modewatch/cmd/modewatch/internal/pipeline"
+	"modewatch/cmd/modewatch/internal/service"
+	"modewatch/cmd/modewatch/internal/statuspage"
+	"modewatch/configs"
+	"modewatch/sim"
+)
+
+// The browser tests drive Debian's headless chromium. Where it is not
+// installed they skip with this hint.
+const installHint = "no chromium found: install it with `apt-get update && apt-get install -y chromium` " +
+	"(or set MODEWATCH_CHROMIUM to a Chromium binary) to run the status page's browser tests"
+
+func chromium(t *testing.T) string {
+	t.Helper()
+	if testing.Short() {
+		t.Skip("drives a real browser")
+	}
+	if p := os.Getenv("MODEWATCH_CHROMIUM"); p != "" {
+		return p
+	}
+	for _, name := range []string{"chromium", "chromium-browser"} {
+		if p, err := exec.LookPath(name); err == nil {
+			return p
+		}
+	}
+	t.Skip(installHint)
+	return ""
+}
+
+// browser starts headless chromium with a fresh profile and returns a
+// context for new tabs.
+func browser(t *testing.T, path string) context.Context {
+	t.Helper()
+	opts := []chromedp.ExecAllocatorOption{
+		chromedp.ExecPath(path), chromedp.Headless, chromedp.NoSandbox, chromedp.DisableGPU, chromedp.NoFirstRun,
+		chromedp.NoDefaultBrowserCheck,
+		chromedp.Flag("disable-background-networking", true), chromedp.Flag("disable-component-update", true),
+		chromedp.Flag("disable-sync", true), chromedp.Flag("disable-dev-shm-usage", true),
+		chromedp.Flag("disable-background-timer-throttling", true), chromedp.Flag("disable-renderer-backgrounding", true),
+		chromedp.Flag("force-color-profile", "srgb"), chromedp.Flag("hide-scrollbars", true),
+		chromedp.UserDataDir(t.TempDir()), chromedp.WindowSize(1280, 860),
+	}
+	actx, cancel := chromedp.NewExecAllocator(context.Background(), opts...)
+	t.Cleanup(cancel)
+	bctx, bcancel := chromedp.NewContext(actx)
+	t.Cleanup(bcancel)
+	if err := chromedp.Do(bctx); err != nil { // starts the browser
+		t.Skipf("chromium at %s does not start (%v); %s", path, err, installHint)
+	}
+	return bctx
+}
+
+// tab opens a new tab of the browser.
+func tab(t *testing.T, bctx context.Context) context.Context {
+	t.Helper()
+	ctx, cancel := chromedp.NewContext(bctx)
+	t.Cleanup(cancel)
+	return ctx
+}
+
+// artifacts returns the directory test artifacts (screenshots, measured
+// figures) are written to: $MODEWATCH_ARTIFACTS, else a directory under
+// the system's temporary directory that outlives the test.
+func artifacts(t *testing.T) string {
+	dir := os.Getenv("MODEWATCH_ARTIFACTS")
+	if dir == "" {
+		dir = filepath.Join(os.TempDir(), "modewatch-statuspage-artifacts")
+	}
+	if err := os.MkdirAll(dir, 0o755); err != nil {
+		t.Fatal(err)
+	}
+	return dir
+}
+
+func screenshot(t *testing.T, ctx context.Context, name string) {
+	t.Helper()
+	png, err := chromedp.Run(ctx, chromedp.FullScreenshot(100))
+	if err != nil {
+		t.Fatalf("screenshot %s: %v", name, err)
+	}
+	p := filepath.Join(artifacts(t), name+".png")
+	if err := os.WriteFile(p, png, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	t.Logf("screenshot: %s (%d bytes)", p, len(png))
+	// MODEWATCH_SCREENSHOTS names the folder of the README's screenshots.
+	if dir := os.Getenv("MODEWATCH_SCREENSHOTS"); dir != "" {
+		if err := os.WriteFile(filepath.Join(dir, name+".png"), png, 0o644); err != nil {
+			t.Fatal(err)
+		}
+	}
+}
+
+func poll(t *testing.T, ctx context.Context, what, expr string, timeout time.Duration) {
+	t.Helper()
+	if _, err := chromedp.Run(ctx, chromedp.Poll[bool](expr, chromedp.WithPollingInterval(20*time.Millisecond), chromedp.WithPollingTimeout(timeout))); err != nil {
+		t.Fatalf("%s: %v", what, err)
+	}
+}
+
+func eval[T any](t *testing.T, ctx context.Context, expr string) T {
+	t.Helper()
+	v, err := chromedp.Run(ctx, chromedp.Evaluate[T](expr))
+	if err != nil {
+		t.Fatalf("evaluate %s: %v", expr, err)
+	}
+	return v
+}
+
+// hash moves the page to another view (no reload).
+func hash(t *testing.T, ctx context.Context, h string) {
+	t.Helper()
+	_ = eval[string](t, ctx, fmt.Sprintf("location.hash = %q", h))
+}
+
+// login opens the page at path and gives it token through its form.
+func login(t *testing.T, ctx context.Context, base, path, token string) {
+	t.Helper()
+	if err := chromedp.Do(ctx, chromedp.Navigate(base+path),
+		chromedp.WaitVisible(chromedp.CSS("#token")),
+		chromedp.SendKeys(chromedp.CSS("#token"), token),
+		chromedp.Click(chromedp.CSS("#login-go")),
+	); err != nil {
+		t.Fatalf("login: %v", err)
+	}
+}
+
+// Tokens of the test's access check (a stand-in for the service's own,
+// issue of access control): a reader and a writer called operator-a.
+const (
+	readerToken = "rd-4c1e9a"
+	writerToken = "wr-77b0d2"
+	writerName  = "operator-a"
+)
+
+func identify(r *http.Request) statuspage.Identity {
+	switch r.Header.Get("Authorization") {
+	case "Bearer " + writerToken:
+		return statuspage.Identity{Name: writerName, CanWrite: true, Auth: true}
+	case "Bearer " + readerToken:
+		return statuspage.Identity{Name: "viewer", Auth: true}
+	}
+	return statuspage.Identity{}
+}
+
+// guard passes requests with a known token; write says whether the
+// writer's is needed (403 for the reader's).
+func guard(write bool) func(http.Handler) http.Handler {
+	return func(h http.Handler) http.Handler {
+		return http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
+			id := identify(r)
+			switch {
+			case !id.Auth:
+				http.Error(w, "a bearer token is needed", http.StatusUnauthorized)
+			case write && !id.CanWrite:
+				http.Error(w, "this token may not change alerts", http.StatusForbidden)
+			default:
+				h.ServeHTTP(w, r)
+			}
+		})
+	}
+}
+
+// demoPlant starts the service on the demo plant (configs/demo.yaml,
+// model fitted on its fault-free first day, embedded NATS) and a front
+// server that serves the service's status page and proxies /api behind the
+// test's token check. It returns the front's URL and the scenario whose
+// next hours are to be published.
+func demoPlant(t *testing.T) (front *httptest.Server, svc *service.Service, sc *sim.Scenario) {
+	t.Helper()
+	yaml, err := os.ReadFile("../../../../configs/demo.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	cfg, err := configs.Parse("configs/demo.yaml", yaml)
+	if err != nil {
+		t.Fatal(err)
+	}
+	dir := t.TempDir()
+	cfg.HTTP.Listen, cfg.DataDir, cfg.Sinks.SpoolDir = "127.0.0.1:0", dir, ""
+	cfg.Log.Level = "error"
+	cfg.ApplyDefaults()
+	sc, err = sim.Demo()
+	if err != nil {
+		t.Fatal(err)
+	}
+	day1 := sc.Clone()
+	day1.Duration = 24 * time.Hour
+	var buf bytes.Buffer
+	if err := day1.WriteLineProtocol(&buf); err != nil {
+		t.Fatal(err)
+	}
+	log := slog.New(slog.NewTextHandler(io.Discard, nil))
+	res, err := pipeline.Replay(context.Background(), pipeline.ReplayOptions{Config: cfg, Inputs: []string{"-"}, Stdin: &buf, Fit: true, Log: log})
+	if err != nil {
+		t.Fatal(err)
+	}
+	model, err := res.Pipeline.Baseline()
+	if err != nil {
+		t.Fatal(err)
+	}
+	cfg.Model.File = filepath.Join(dir, "model.json")
+	if err := pipeline.WriteModel(cfg.Model.File, model); err != nil {
+		t.Fatal(err)
+	}
+	svc, err = service.Start(context.Background(), service.Options{Config: cfg, Log: log, Stdout: io.Discard})
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() {
+		ctx, cancel := context.WithTimeout(context.Background(), 20*time.Second)
+		defer cancel()
+		_ = svc.Shutdown(ctx)
+	})
+	api, _ := url.Parse(svc.Info().HTTP)
+	mux := http.NewServeMux()
+	pg := svc.StatusPage(statuspage.Options{Read: guard(false), Identify: identify})
+	pg.Register(mux)
+	proxy := httputil.NewSingleHostReverseProxy(api)
+	mux.Handle("GET /api/", guard(false)(proxy))
+	mux.Handle("POST /api/", guard(true)(proxy))
+	front = httptest.NewServer(mux)
+	t.Cleanup(front.Close) // after the browser and the streams are gone
+	t.Cleanup(pg.Close)
+	return front, svc, sc
+}
+
+func apiJSON(t *testing.T, base, path, token string, v any) {
+	t.Helper()
+	req, _ := http.NewRequest("GET", base+path, nil)
+	req.Header.Set("Authorization", "Bearer "+token)
+	res, err := http.DefaultClient.Do(req)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer res.Body.Close()
+	if err := json.NewDecoder(res.Body).Decode(v); err != nil {
+		t.Fatalf("GET %s: %v", path, err)
+	}
+}
+
+// TestBrowserDemo drives the page in headless chromium against the
+// service running the demo plant:
+//   - the plant view lists every unit the API lists;
+//   - a bias injected on steam.boiler1.steam_pressure puts steam at the top
+//     with its incident within the update interval (plus the browser's
+//     own scheduling) of the incident appearing in /api/alerts;
+//   - after the front drops every connection the page resumes its event
+//     stream without reloading;
+//   - a reader's incidents view has no action buttons, and the API refuses
+//     the reader's acknowledgement;
+//   - a writer acknowledges the incident through the confirmation dialog,
+//     and the page and /api/alerts show it acknowledged by the writer;
+//   - screenshots of the three views and of a narrow screen are written as
+//     test artifacts, and the narrow screen does not scroll sideways.
+func TestBrowserDemo(t *testing.T) {
+	path := chromium(t)
+	front, svc, sc := demoPlant(t)
+	bctx := browser(t, path)
+
+	// The second simulated day, fault-free for 40 plant minutes, then a
+	// bias of 0.6 bar (12 times the channel's noise, configs/scenario-demo.yaml)
+	// on the boiler's steam pressure; 200x sends a 20 s frame every 0.1 s.
+	live := sc.Clone()
+	live.Start = sc.Start.Add(24 * time.Hour)
+	live.Duration = 8 * time.Hour
+	const faulty = "steam"
+	live.Episodes = []sim.Episode{{ID: "T1-pressure-bias", Kind: sim.Bias, Start: live.Start.Add(40 * time.Minute),
+		End: live.End(), Channels: []string{"steam.boiler1.steam_pressure"}, Size: 0.6}}
+	nc, err := nats.Connect(svc.Info().NATS)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer nc.Close()
+	pctx, stop := context.WithCancel(context.Background())
+	defer stop()
+	go func() { _, _ = live.Live(pctx, nc, "modewatch", 200) }()
+
+	reader := tab(t, bctx)
+	login(t, reader, front.URL, "/#/", readerToken)
+	var units []struct {
+		Name string `json:"name"`
+	}
+	deadline := time.Now().Add(30 * time.Second)
+	for len(units) < len(sc.Units) && time.Now().Before(deadline) {
+		apiJSON(t, front.URL, "/api/units", readerToken, &units)
+		time.Sleep(50 * time.Millisecond)
+	}
+	if len(units) != len(sc.Units) {
+		t.Fatalf("the API lists %d units, the demo plant has %d", len(units), len(sc.Units))
+	}
+	poll(t, reader, "plant view lists every unit", fmt.Sprintf(`document.querySelectorAll("#units .urow[data-unit]").length === %d`, len(units)), 20*time.Second)
+	shown := eval[[]string](t, reader, `[...document.querySelectorAll("#units .urow[data-unit]")].map(r => r.dataset.unit).sort()`)
+	for i, u := range units {
+		if shown[i] != u.Name {
+			t.Errorf("plant view shows %v, the API %v", shown, units)
+			break
+		}
+	}
+	_ = eval[bool](t, reader, `(window.loadedOnce = true)`)
+
+	// The fault: wait for its incident in the API, then for the page.
+	var id string
+	deadline = time.Now().Add(90 * time.Second)
+	for id == "" && time.Now().Before(deadline) {
+		var open []alerts.Record
+		apiJSON(t, front.URL, "/api/alerts", readerToken, &open)
+		for _, r := range open {
+			if r.Unit == faulty && r.Group == alerts.GroupModel {
+				id = r.ID
+			}
+		}
+		if id == "" {
+			time.Sleep(20 * time.Millisecond)
+		}
+	}
+	if id == "" {
+		t.Fatal("no incident on steam in /api/alerts within 90 s of the fault")
+	}
+	seen := time.Now()
+	poll(t, reader, "the faulty unit at the top with its incident",
+		`(() => { const r = document.querySelector("#units .urow[data-unit]"); return !!r && r.dataset.unit === "steam" && !!r.querySelector(".incs .sev"); })()`,
+		10*time.Second)
+	lag := time.Since(seen)
+	t.Logf("incident in /api/alerts → steam at the top of the page with it: %s (update interval %s)", lag.Round(time.Millisecond), statuspage.DefaultInterval)
+	if lag > 3*statuspage.DefaultInterval {
+		t.Errorf("the page showed the incident %s after the API, more than three update intervals", lag)
+	}
+	screenshot(t, reader, "plant")
+
+	// Lost connections: the page resumes its stream without reloading.
+	before := eval[string](t, reader, `document.body.dataset.events || "0"`)
+	front.CloseClientConnections()
+	poll(t, reader, "events again after the connections were dropped",
+		fmt.Sprintf(`window.loadedOnce === true && Number(document.body.dataset.events) > %s && document.getElementById("live").dataset.state === "live"`, before),
+		20*time.Second)
+
+	// The reader: the incident is listed with no action buttons, and the
+	// API refuses the reader's acknowledgement.
+	hash(t, reader, "#/incidents")
+	poll(t, reader, "reader's incidents view", fmt.Sprintf(`!!document.querySelector('tr[data-id=%q]')`, id), 10*time.Second)
+	if n := eval[int](t, reader, `document.querySelectorAll("button[data-act]").length`); n != 0 {
+		t.Errorf("the reader sees %d action buttons", n)
+	}
+	body := fmt.Sprintf(`{"alert_id":%q,"by":"viewer"}`, id)
+	req, _ := http.NewRequest("POST", front.URL+"/api/alerts/ack", strings.NewReader(body))
+	req.Header.Set("Authorization", "Bearer "+readerToken)
+	if res, err := http.DefaultClient.Do(req); err != nil || res.StatusCode != http.StatusForbidden {
+		t.Errorf("reader's acknowledgement: %v %v, want 403", res.StatusCode, err)
+	}
+
+	// The writer acknowledges through the page.
+	writer := tab(t, bctx)
+	login(t, writer, front.URL, "/#/incidents", writerToken)
+	ack := fmt.Sprintf(`tr[data-id=%q] button[data-act="ack"]`, id)
+	if err := chromedp.Do(writer, chromedp.WaitVisible(chromedp.CSS(ack))); err != nil {
+		t.Fatal(err)
+	}
+	screenshot(t, writer, "incidents")
+	if err := chromedp.Do(writer,
+		chromedp.Click(chromedp.CSS(ack)),
+		chromedp.WaitVisible(chromedp.CSS("#confirm")),
+		chromedp.SendKeys(chromedp.CSS(`#confirm input[name="comment"]`), "seen on the local gauge"),
+		chromedp.Click(chromedp.CSS("#confirm-ok")),
+	); err != nil {
+		t.Fatal(err)
+	}
+	poll(t, writer, "the incident acknowledged by the writer in the page",
+		fmt.Sprintf(`(() => { const r = document.querySelector('tr[data-id=%q]'); return !!r && r.dataset.state === "acknowledged" && r.textContent.includes("acknowledged by %s"); })()`, id, writerName),
+		10*time.Second)
+	var open []alerts.Record
+	apiJSON(t, front.URL, "/api/alerts", readerToken, &open)
+	acked := false
+	for _, r := range open {
+		if r.ID == id && r.Acknowledged != nil && r.Acknowledged.By == writerName {
+			acked = true
+		}
+	}
+	if !acked {
+		t.Errorf("/api/alerts does not show %s acknowledged by %s", id, writerName)
+	}
+
+	// The unit view of the faulty unit, its incident with contributors.
+	hash(t, writer, "#/unit/"+faulty)
+	poll(t, writer, "unit view with charts and contributors", `document.querySelectorAll(".chart svg").length >= 2 && !!document.querySelector("table.contributors td")`, 10*time.Second)
+	screenshot(t, writer, "unit")
+
+	// A narrow screen: no sideways scrolling.
+	if err := chromedp.Do(reader, chromedp.EmulateViewport(400, 860)); err != nil {
+		t.Fatal(err)
+	}
+	hash(t, reader, "#/")
+	poll(t, reader, "narrow plant view", `document.querySelectorAll("#units .urow[data-unit]").length > 0`, 10*time.Second)
+	if w := eval[[]int](t, reader, `[document.documentElement.scrollWidth, window.innerWidth]`); w[0] > w[1] {
+		t.Errorf("narrow screen: the page is %d px wide in a %d px window", w[0], w[1])
+	}
+	screenshot(t, reader, "plant-narrow")
+}
+
+// TestBrowserLoad measures, in headless chromium, how long the plant view
+// of 50 units with 100 channels each (5,000 channels) takes from the start
+// of navigation to the first complete render (the page's
+// "modewatch-first-view" mark), and writes the figure as an artifact. It
+// checks that every unit is drawn; the time is reported, not asserted.
+func TestBrowserLoad(t *testing.T) {
+	path := chromium(t)
+	f := statuspage.NewFakePlant(50, 100)
+	mux := http.NewServeMux()
+	pg := statuspage.New(f, f.Hist, statuspage.Options{})
+	pg.Register(mux)
+	srv := httptest.NewServer(mux)
+	t.Cleanup(srv.Close) // after the browser and the streams are gone
+	t.Cleanup(pg.Close)
+	ctx := tab(t, browser(t, path))
+	var ms []float64
+	for i := 0; i < 5; i++ {
+		if err := chromedp.Do(ctx, chromedp.Navigate(srv.URL+"/?load="+fmt.Sprint(i)+"#/")); err != nil {
+			t.Fatal(err)
+		}
+		poll(t, ctx, "50 units drawn", `document.querySelectorAll("#units .urow[data-unit]").length === 50 && performance.getEntriesByName("modewatch-first-view").length === 1`, 20*time.Second)
+		ms = append(ms, eval[float64](t, ctx, `performance.getEntriesByName("modewatch-first-view")[0].startTime`))
+	}
+	t.Logf("plant view of 50 units / 5,000 channels, navigation start to first complete render: %.0f ms (loads: %.0f)", median(ms), ms)
+	p := filepath.Join(artifacts(t), "load-50x5000.txt")
+	_ = os.WriteFile(p, []byte(fmt.Sprintf("plant view, 50 units, 5000 channels, headless chromium: navigation start to first render, median of %d loads: %.0f ms (%.0f)\n", len(ms), median(ms), ms)), 0o644)
+	screenshot(t, ctx, "load-50x5000")
+}
+
+func median(x []float64) float64 {
+	s := append([]float64(nil), x...)
+	for i := range s {
+		for j := i + 1; j < len(s); j++ {
+			if s[j] < s[i] {
+				s[i], s[j] = s[j], s[i]
+			}
+		}
+	}
+	return s[len(s)/2]
+}
