@@ -165,7 +165,7 @@ func (p *Page) index(w http.ResponseWriter, r *http.Request) {
 	html := strings.ReplaceAll(string(b), "{{caution}}", htmlEscape(p.opt.Caution))
 	w.Header().Set("Content-Type", "text/html; charset=utf-8")
 	w.Header().Set("Cache-Control", "no-cache")
-	w.Header().Set("Content-Security-Policy", "default-src 'self'; style-src 'self'; script-src 'self'; img-src 'self' data:")
+	w.Header().Set("Content-Security-Policy", "default-src 'self'; style-src 'self' 'unsafe-inline'; script-src 'self'; img-src 'self' data:")
 	_, _ = w.Write([]byte(html))
 }
 
@@ -429,6 +429,7 @@ func (p *Page) unit(b *base, name string, win time.Duration) (UnitDetail, bool) 
 // Incidents is the incidents view: open incidents and the recent ones
 // (open or closed), newest first.
 type Incidents struct {
+	Time   time.Time       `json:"time"` // latest frame time of any unit
 	Units  []string        `json:"units"`
 	Open   []alerts.Record `json:"open"`
 	Recent []alerts.Record `json:"recent"`
@@ -438,6 +439,9 @@ func (p *Page) incidents(b *base) Incidents {
 	out := Incidents{Units: make([]string, 0, len(b.views)), Open: append([]alerts.Record{}, b.open...), Recent: []alerts.Record{}}
 	for i := range b.views {
 		out.Units = append(out.Units, b.views[i].Name)
+		if l := b.views[i].Latest; l != nil && l.Time.After(out.Time) {
+			out.Time = l.Time
+		}
 	}
 	open := map[string]bool{}
 	for _, r := range b.open {

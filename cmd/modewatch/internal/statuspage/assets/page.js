@@ -21,6 +21,11 @@ const fmt = (x, d = 2) => (x == null || !isFinite(x) ? "—" : Math.abs(x) >= 10
 const pct = (x) => (x == null ? "—" : (100 * x).toFixed(0) + "%");
 const sleep = (ms, signal) => new Promise((res) => { const t = setTimeout(res, ms); signal && signal.addEventListener("abort", () => { clearTimeout(t); res(); }); });
 
+// short drops the unit's name from a channel name shown inside that unit.
+function short(unit, ch) {
+  return ch.startsWith(unit + ".") ? ch.slice(unit.length + 1) : ch;
+}
+
 function when(s) {
   if (!s) return "—";
   const d = new Date(s);
@@ -158,7 +163,7 @@ function showLogin(status) {
 // ---- small SVG helpers ----------------------------------------------------
 
 // spark draws a ratio trend (value/limit) with the limit at ratio 1.
-function spark(tr, key, w = 160, h = 26) {
+function spark(tr, key, w = 160, h = 32) {
   if (!tr) return "";
   const s = tr[key];
   const n = s.value.length;
@@ -216,7 +221,7 @@ function renderPlant(p) {
     if (u.maintenance) status += ` <span class="tag">maintenance</span>`;
     const st = [u.model_state, u.operating_state].filter(Boolean).map(esc).join(" · ");
     const incs = u.incidents.map((i) => `<span>${i.group === "quality" ? `<span class="sev sev-quality">${esc(i.severity)}</span>` : `<span class="sev ${sevClass(i.severity)}">${esc(i.severity)}</span>`}
-       ${i.acked ? `<span class="tag">ack</span>` : ""}${i.shelved ? `<span class="tag">shelved</span>` : ""} ${esc(i.top.join(", "))} <span class="muted">${fmt(i.ratio, 1)}×</span></span>`).join("");
+       ${i.acked ? `<span class="tag">ack</span>` : ""}${i.shelved ? `<span class="tag">shelved</span>` : ""} ${esc(i.top.map((c) => short(u.name, c)).join(", "))} <span class="muted">${fmt(i.ratio, 1)}×</span></span>`).join("");
     html += `<div class="urow${abn || overAny ? " abn" : ""}" data-unit="${esc(u.name)}" style="--sev-col:${sevColour(worst)}">
       <div class="ustatus">${status}</div>
       <div><div class="uname"><a href="#/unit/${encodeURIComponent(u.name)}">${esc(u.name)}</a></div><div class="ustate">${st} · ${u.channels} ch</div></div>
@@ -237,11 +242,12 @@ function sevRank(name) {
 // ---- unit view -------------------------------------------------------------
 
 function chart(tr, key, label, spans) {
-  const W = 600, H = 150, L = 44, R = 6, T = 6, B = 18;
+  const W = 1000, H = 150, L = 52, R = 8, T = 8, B = 20;
   const s = tr[key];
   const n = s.value.length;
   const vals = s.value.filter((v) => v != null), lims = s.limit.filter((v) => v != null);
   if (!vals.length) return `<div class="chart"><h3><span>${label}</span><span class="muted">no scores in this window</span></h3></div>`;
+  if (!lims.length) return `<div class="chart"><h3><span>${label}</span><span class="muted">no control limit for this unit (statistic not scored)</span></h3></div>`;
   const lim = lims.length ? Math.max(...lims) : 1;
   const top = Math.max(lim * 1.6, Math.min(Math.max(...vals), lim * 8)) * 1.05;
   const t0 = Date.parse(tr.start), step = tr.step_s * 1000, t1 = t0 + n * step;
@@ -260,7 +266,7 @@ function chart(tr, key, label, spans) {
   const cur = [...s.value].reverse().find((v) => v != null), curLim = [...s.limit].reverse().find((v) => v != null);
   const isOver = cur != null && curLim && cur > curLim;
   return `<div class="chart" data-stat="${key}"><h3><span>${label}</span><span class="${isOver ? "error" : "muted"}">${isOver ? "▲ over limit · " : ""}last ${fmt(cur)} / limit ${fmt(curLim)}</span></h3>
-    <svg viewBox="0 0 ${W} ${H}" preserveAspectRatio="none" role="img" aria-label="${label} against its limit">${ticks}${sh}
+    <svg viewBox="0 0 ${W} ${H}" role="img" aria-label="${label} against its limit">${ticks}${sh}
     <path class="lim" d="${path(s.limit)}"/><path class="val" d="${path(s.value)}"/>${over}${tl}</svg></div>`;
 }
 
@@ -282,6 +288,7 @@ function bandCell(c) {
 function renderUnit(d) {
   if (!d) { setLive("waiting", "no such unit"); $("view").innerHTML = `<p class="error">No such unit.</p><p><a href="#/">Back to the plant</a></p>`; return; }
   const u = d.unit;
+  $("clock").textContent = u.latest ? "plant time " + when(u.latest.time) : "no frames yet";
   const spans = [...d.records, ...d.open].filter((r) => r.group !== "quality");
   const st = [u.model_state, u.operating_state].filter(Boolean).map(esc).join(" · ");
   let html = `<h1><a href="#/">Plant</a> › ${esc(u.name)}</h1>
@@ -292,10 +299,10 @@ function renderUnit(d) {
     <p class="muted">Solid line: statistic (largest value/limit in each point); dashed: control limit; shaded: incidents; ▪ points over the limit.</p>`;
   for (const r of d.open) {
     html += `<h2>Open incident ${sevBadge(r)} <span class="muted">${esc(r.id)} since ${when(r.start)}, peak ${esc(r.peak.statistic)} ${fmt(r.peak.ratio, 1)}× limit</span></h2>`;
-    if (r.quality) { html += `<p class="quality">${esc(r.quality.kind)} on ${esc(r.quality.channel)}</p>`; continue; }
+    if (r.quality) { html += `<p class="quality">${esc(r.quality.kind)} on ${esc(short(u.name, r.quality.channel))}</p>`; continue; }
     html += `<table class="wide contributors"><thead><tr><th>#</th><th>Sensor</th><th class="num">Share</th><th class="num">RBC / limit</th><th>Modes</th><th class="num">Reading</th><th class="num">Expected</th><th class="num">Band</th><th></th></tr></thead><tbody>`;
     for (const c of r.contributors) {
-      html += `<tr><td data-k="#">${c.rank}</td><td data-k="sensor"><b>${esc(c.channel)}</b></td><td class="num" data-k="share">${pct(c.share)}</td><td class="num" data-k="RBC/limit">${c.rbc_limit ? fmt(c.rbc / c.rbc_limit) : "—"}</td><td data-k="modes">${(c.modes || []).map((m) => "M" + m).join(" ")}</td>${bandCell(c)}</tr>`;
+      html += `<tr><td data-k="#">${c.rank}</td><td data-k="sensor"><b title="${esc(c.channel)}">${esc(short(u.name, c.channel))}</b></td><td class="num" data-k="share">${pct(c.share)}</td><td class="num" data-k="RBC/limit">${c.rbc_limit ? fmt(c.rbc / c.rbc_limit) : "—"}</td><td data-k="modes">${(c.modes || []).map((m) => "M" + m).join(" ")}</td>${bandCell(c)}</tr>`;
     }
     html += `</tbody></table>`;
   }
@@ -308,7 +315,7 @@ function renderUnit(d) {
     const mx = Math.max(...m.loadings.map(Math.abs), 1e-9);
     html += `<div class="mode"><h3>M${m.id} <span class="muted">${pct(m.variance_share)} of variance</span></h3>` + m.channels.map((ch, i) => {
       const l = m.loadings[i], w = (50 * Math.abs(l)) / mx;
-      return `<div class="load"><span class="ch" title="${esc(ch)}">${esc(ch)}</span><span class="bar2"><i style="left:${l >= 0 ? 50 : 50 - w}%;width:${w}%"></i></span><span class="num">${l.toFixed(2)}</span></div>`;
+      return `<div class="load"><span class="ch" title="${esc(ch)}">${esc(short(u.name, ch))}</span><span class="bar2"><i style="left:${l >= 0 ? 50 : 50 - w}%;width:${w}%"></i></span><span class="num">${l.toFixed(2)}</span></div>`;
     }).join("") + `</div>`;
   }
   html += `</div><h2>Recent incidents</h2>` + incidentTable(d.records.slice(0, 20), false);
@@ -358,6 +365,7 @@ function incidentTable(recs, withActions) {
 function renderIncidents(d) {
   if (!d) return;
   state.view = d;
+  $("clock").textContent = d.time && !d.time.startsWith("0001") ? "plant time " + when(d.time) : "no frames yet";
   const f = state.filters;
   const keep = (r) => (!f.unit || r.unit === f.unit) && (!f.severity || r.severity === f.severity);
   const sevs = (state.me && state.me.severities) || [];
