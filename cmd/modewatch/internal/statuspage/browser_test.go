@@ -256,7 +256,7 @@ func demoPlant(t *testing.T) (front *httptest.Server, svc *service.Service, sc *
 		t.Fatal(err)
 	}
 	dir := t.TempDir()
-	cfg.HTTP.Listen, cfg.DataDir, cfg.Sinks.SpoolDir = "127.0.0.1:0", dir, ""
+	cfg.HTTP.Listen, cfg.StateDir, cfg.Delivery.SpoolDir = "127.0.0.1:0", dir, ""
 	cfg.Log.Level = "error"
 	cfg.ApplyDefaults()
 	sc, err = sim.Demo()
