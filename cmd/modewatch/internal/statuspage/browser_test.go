@@ -100,7 +100,9 @@ func artifacts(t *testing.T) string {
 	return dir
 }
 
-func screenshot(t *testing.T, ctx context.Context, name string) {
+// screenshot writes the tab's full page as name.png to the artifacts, and
+// for the README's views (readme) also to $MODEWATCH_SCREENSHOTS when set.
+func screenshot(t *testing.T, ctx context.Context, name string, readme bool) {
 	t.Helper()
 	png, err := chromedp.Run(ctx, chromedp.FullScreenshot(100))
 	if err != nil {
@@ -112,7 +114,7 @@ func screenshot(t *testing.T, ctx context.Context, name string) {
 	}
 	t.Logf("screenshot: %s (%d bytes)", p, len(png))
 	// MODEWATCH_SCREENSHOTS names the folder of the README's screenshots.
-	if dir := os.Getenv("MODEWATCH_SCREENSHOTS"); dir != "" {
+	if dir := os.Getenv("MODEWATCH_SCREENSHOTS"); dir != "" && readme {
 		if err := os.WriteFile(filepath.Join(dir, name+".png"), smallPNG(t, png), 0o644); err != nil {
 			t.Fatal(err)
 		}
@@ -411,7 +413,7 @@ func TestBrowserDemo(t *testing.T) {
 	if lag > 3*statuspage.DefaultInterval {
 		t.Errorf("the page showed the incident %s after the API, more than three update intervals", lag)
 	}
-	screenshot(t, reader, "plant")
+	screenshot(t, reader, "plant", true)
 
 	// Lost connections: the page resumes its stream without reloading.
 	before := eval[string](t, reader, `document.body.dataset.events || "0"`)
@@ -441,7 +443,7 @@ func TestBrowserDemo(t *testing.T) {
 	if err := chromedp.Do(writer, chromedp.WaitVisible(chromedp.CSS(ack))); err != nil {
 		t.Fatal(err)
 	}
-	screenshot(t, writer, "incidents")
+	screenshot(t, writer, "incidents", true)
 	if err := chromedp.Do(writer,
 		chromedp.Click(chromedp.CSS(ack)),
 		chromedp.WaitVisible(chromedp.CSS("#confirm")),
@@ -468,7 +470,7 @@ func TestBrowserDemo(t *testing.T) {
 	// The unit view of the faulty unit, its incident with contributors.
 	hash(t, writer, "#/unit/"+faulty)
 	poll(t, writer, "unit view with charts and contributors", `document.querySelectorAll(".chart svg").length >= 2 && !!document.querySelector("table.contributors td")`, 10*time.Second)
-	screenshot(t, writer, "unit")
+	screenshot(t, writer, "unit", true)
 
 	// A narrow screen: no sideways scrolling.
 	if err := chromedp.Do(reader, chromedp.EmulateViewport(400, 860)); err != nil {
@@ -479,7 +481,7 @@ func TestBrowserDemo(t *testing.T) {
 	if w := eval[[]int](t, reader, `[document.documentElement.scrollWidth, window.innerWidth]`); w[0] > w[1] {
 		t.Errorf("narrow screen: the page is %d px wide in a %d px window", w[0], w[1])
 	}
-	screenshot(t, reader, "plant-narrow")
+	screenshot(t, reader, "plant-narrow", true)
 }
 
 // TestBrowserLoad measures, in headless chromium, how long the plant view
@@ -508,7 +510,7 @@ func TestBrowserLoad(t *testing.T) {
 	t.Logf("plant view of 50 units / 5,000 channels, navigation start to first complete render: %.0f ms (loads: %.0f)", median(ms), ms)
 	p := filepath.Join(artifacts(t), "load-50x5000.txt")
 	_ = os.WriteFile(p, []byte(fmt.Sprintf("plant view, 50 units, 5000 channels, headless chromium: navigation start to first render, median of %d loads: %.0f ms (%.0f)\n", len(ms), median(ms), ms)), 0o644)
-	screenshot(t, ctx, "load-50x5000")
+	screenshot(t, ctx, "load-50x5000", false)
 }
 
 func median(x []float64) float64 {

@@ -311,7 +311,7 @@ function renderUnit(d) {
     html += `<h2>Data quality</h2><p class="quality">${lat.missing.length ? "missing: " + esc(lat.missing.join(", ")) + "<br>" : ""}${lat.excluded.length ? "excluded: " + esc(lat.excluded.join(", ")) + "<br>" : ""}${lat.warming.length ? "warming up: " + esc(lat.warming.join(", ")) : ""}</p>`;
   }
   html += `<h2>Modes (${(u.modes || []).length}) <span class="muted">loadings per sensor, share of variance</span></h2><div class="modes">`;
-  for (const m of u.modes || []) {
+  for (const m of [...(u.modes || [])].sort((a, b) => b.variance_share - a.variance_share)) {
     const mx = Math.max(...m.loadings.map(Math.abs), 1e-9);
     html += `<div class="mode"><h3>M${m.id} <span class="muted">${pct(m.variance_share)} of variance</span></h3>` + m.channels.map((ch, i) => {
       const l = m.loadings[i], w = (50 * Math.abs(l)) / mx;
