@@ -6,13 +6,11 @@ import (
 	"io"
 	"math"
 	"net/http"
-	"path/filepath"
 	"strings"
 	"testing"
 	"time"
 
 	"modewatch/cmd/modewatch/internal/statuspage"
-	"modewatch/configs"
 	"modewatch/sim"
 )
 
@@ -24,18 +22,7 @@ func TestStatusPageServed(t *testing.T) {
 	if testing.Short() {
 		t.Skip("publishes two simulated hours")
 	}
-	dir := t.TempDir()
-	modelFile := fitDay1(t, dir)
-	cfg, err := configs.Parse("test.yaml", []byte(`
-frames: {period: 20s}
-server: {embedded_port: -1}
-http: {listen: "127.0.0.1:0"}
-model: {file: `+modelFile+`}
-state_dir: `+filepath.Join(dir, "data")+`
-`))
-	if err != nil {
-		t.Fatal(err)
-	}
+	cfg := fittedConfig(t, t.TempDir(), "")
 	svc, nc := startWithClient(t, Options{Config: cfg, Stdout: io.Discard})
 	sc, err := sim.Demo()
 	if err != nil {

@@ -61,6 +61,25 @@ func fitFile(t *testing.T, dir string, period time.Duration, r io.Reader) string
 	return p
 }
 
+// fittedConfig returns a service configuration with the model of fitDay1,
+// an embedded server, the HTTP API on a free loopback port and its state
+// under dir, plus the YAML lines of extra.
+func fittedConfig(t *testing.T, dir, extra string) *configs.Config {
+	t.Helper()
+	modelFile := fitDay1(t, dir)
+	cfg, err := configs.Parse("test.yaml", []byte(`
+frames: {period: 20s}
+server: {embedded_port: -1}
+http: {listen: "127.0.0.1:0"}
+model: {file: `+modelFile+`}
+state_dir: `+filepath.Join(dir, "data")+`
+`+extra))
+	if err != nil {
+		t.Fatal(err)
+	}
+	return cfg
+}
+
 func getJSON(t *testing.T, url string, v any) int {
 	t.Helper()
 	resp, err := http.Get(url)
@@ -88,18 +107,7 @@ func TestServiceEndToEnd(t *testing.T) {
 		t.Skip("publishes three simulated days")
 	}
 	dir := t.TempDir()
-	modelFile := fitDay1(t, dir)
-	cfg, err := configs.Parse("test.yaml", []byte(`
-frames: {period: 20s}
-server: {embedded_port: -1}
-http: {listen: "127.0.0.1:0"}
-model: {file: `+modelFile+`}
-state_dir: `+filepath.Join(dir, "data")+`
-checkpoint_interval: 1m
-`))
-	if err != nil {
-		t.Fatal(err)
-	}
+	cfg := fittedConfig(t, dir, "checkpoint_interval: 1m\n")
 	ctx, cancel := context.WithCancel(context.Background())
 	defer cancel()
 	svc, err := Start(ctx, Options{Config: cfg})

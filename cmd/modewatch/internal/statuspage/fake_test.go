@@ -97,6 +97,13 @@ func NewFakePlant(units, perUnit int) *FakePlant {
 			}
 			f.open = append(f.open, r)
 		}
+		if u%10 == 7 { // a stuck sensor, acknowledged
+			f.open = append(f.open, alerts.Record{ID: name + "-q", Revision: 2, Kind: alerts.KindIncident, Unit: name, Group: alerts.GroupQuality,
+				Start: now.Add(-2 * time.Hour), Updated: now, State: "active", Severity: "low", Caution: alerts.Caution,
+				Quality:      &alerts.RecordQuality{Kind: "stuck", Channel: v.Channels[4]},
+				Peak:         alerts.Peak{Statistic: "stuck", Value: 1, Limit: 1, Ratio: 1, Time: now.Add(-2 * time.Hour)},
+				Acknowledged: &alerts.Ack{By: "operator-b", At: now.Add(-time.Hour), Comment: "transmitter replaced tomorrow"}})
+		}
 	}
 	for k := 0; k < 200; k++ {
 		name := fmt.Sprintf("unit%02d", k%units)

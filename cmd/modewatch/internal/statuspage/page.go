@@ -64,7 +64,11 @@ const (
 	maxListed = 12
 )
 
-// Options configure a Handler. The zero value serves without access
+// DefaultCaution is printed on every page when Options.Caution is empty.
+const DefaultCaution = "modewatch is advisory: it never acts on the plant and is not a safety system. " +
+	"Safety decisions follow site procedures, local codes and licensed practice."
+
+// Options configure a Page. The zero value serves without access
 // control.
 type Options struct {
 	// Read wraps every handler that returns plant data with the read
@@ -84,7 +88,8 @@ type Options struct {
 	// (default DefaultMaxClients); more are refused with 503.
 	Interval   time.Duration
 	MaxClients int
-	// Caution is printed on every page.
+	// Caution is printed at the top and foot of every page (default
+	// DefaultCaution).
 	Caution string
 }
 
@@ -120,6 +125,9 @@ func New(src Source, hist *History, opt Options) *Page {
 		for _, b := range alerts.DefaultSeverity() {
 			opt.Severities = append(opt.Severities, b.Name)
 		}
+	}
+	if opt.Caution == "" {
+		opt.Caution = DefaultCaution
 	}
 	if opt.Read == nil {
 		opt.Read = func(h http.Handler) http.Handler { return h }

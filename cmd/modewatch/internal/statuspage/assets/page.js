@@ -192,7 +192,8 @@ function statCell(u, key, label) {
 }
 
 function qualityCell(u) {
-  const q = [];
+  const q = u.incidents.filter((i) => i.group === "quality").map((i) =>
+    `<span class="sev sev-quality">${esc(i.severity)}</span> ${esc(i.statistic)}: ${esc(i.top.map((c) => short(u.name, c)).join(", "))}${i.acked ? ` <span class="tag">ack</span>` : ""}`);
   if (u.error) q.push(`<span class="q">model error: ${esc(u.error)}</span>`);
   const list = (n, what) => n.count ? q.push(`<span class="q" title="${esc(n.names.join(", "))}${n.count > n.names.length ? ", …" : ""}">${n.count} ${what}</span>`) : 0;
   list(u.missing, "missing");
@@ -212,17 +213,19 @@ function renderPlant(p) {
     <span class="muted">ratios are statistic ÷ control limit; trends show the last 4 h, dashed line = limit</span></p>`;
   html += `<div class="units" id="units"><div class="urow head"><span>Status</span><span>Unit</span><span>T²</span><span>SPE</span><span>φ</span><span>Open incidents</span><span>Data quality</span></div>`;
   for (const u of p.units) {
-    const worst = u.incidents.reduce((a, b) => (sevRank(b.severity) > sevRank(a) ? b.severity : a), "");
+    const proc = u.incidents.filter((i) => i.group !== "quality");
+    const worst = proc.reduce((a, b) => (sevRank(b.severity) > sevRank(a) ? b.severity : a), "");
     const abn = u.incidents.length > 0;
     const overAny = Object.values(u.ratio || {}).some((r) => r != null && r > 1);
     let status = `<span class="normal-badge">normal</span>`;
-    if (abn) status = `<span class="sev ${sevClass(worst)}">${esc(worst)}</span>`;
+    if (proc.length) status = `<span class="sev ${sevClass(worst)}">${esc(worst)}</span>`;
     else if (overAny) status = `<span class="sev sev-other">over limit</span>`;
+    else if (abn) status = `<span class="sev sev-quality">data quality</span>`;
     if (u.maintenance) status += ` <span class="tag">maintenance</span>`;
     const st = [u.model_state, u.operating_state].filter(Boolean).map(esc).join(" · ");
-    const incs = u.incidents.map((i) => `<span>${i.group === "quality" ? `<span class="sev sev-quality">${esc(i.severity)}</span>` : `<span class="sev ${sevClass(i.severity)}">${esc(i.severity)}</span>`}
+    const incs = u.incidents.filter((i) => i.group !== "quality").map((i) => `<span>${i.group === "quality" ? `<span class="sev sev-quality">${esc(i.severity)}</span>` : `<span class="sev ${sevClass(i.severity)}">${esc(i.severity)}</span>`}
        ${i.acked ? `<span class="tag">ack</span>` : ""}${i.shelved ? `<span class="tag">shelved</span>` : ""} ${esc(i.top.map((c) => short(u.name, c)).join(", "))} <span class="muted">${fmt(i.ratio, 1)}×</span></span>`).join("");
-    html += `<div class="urow${abn || overAny ? " abn" : ""}" data-unit="${esc(u.name)}" style="--sev-col:${sevColour(worst)}">
+    html += `<div class="urow${abn || overAny ? " abn" : ""}" data-unit="${esc(u.name)}" style="--sev-col:${proc.length ? sevColour(worst) : abn && !overAny ? "var(--quality)" : "var(--ink)"}">
       <div class="ustatus">${status}</div>
       <div><div class="uname"><a href="#/unit/${encodeURIComponent(u.name)}">${esc(u.name)}</a></div><div class="ustate">${st} · ${u.channels} ch</div></div>
       ${statCell(u, "t2", "T²")}${statCell(u, "spe", "SPE")}${statCell(u, "phi", "φ")}
