@@ -47,11 +47,8 @@ func (p *Page) events(w http.ResponseWriter, r *http.Request) {
 			return
 		}
 	}
-	fl, ok := w.(http.Flusher)
-	if !ok {
-		http.Error(w, "streaming not supported", http.StatusInternalServerError)
-		return
-	}
+	rc := http.NewResponseController(w)
+	fl := flusher{rc}
 	select {
 	case <-p.done:
 		http.Error(w, "the service is stopping", http.StatusServiceUnavailable)
@@ -72,14 +69,20 @@ func (p *Page) events(w http.ResponseWriter, r *http.Request) {
 		<-p.sem
 	}()
 
+	_ = rc.SetWriteDeadline(time.Now().Add(heartbeat + p.opt.Interval + 10*time.Second))
 	h := w.Header()
 	h.Set("Content-Type", "text/event-stream")
 	h.Set("Cache-Control", "no-store")
 	h.Set("X-Accel-Buffering", "no")
 	w.WriteHeader(http.StatusOK)
 	fmt.Fprintf(w, "retry: %d\n\n", (2 * p.opt.Interval).Milliseconds())
-	fl.Flush()
+	if err := rc.Flush(); err != nil {
+		return // the writer cannot stream
+	}
 
+	// A server's WriteTimeout would cut the stream: each write gets its
+	// own deadline instead (where the server supports it).
+	grace := heartbeat + p.opt.Interval + 10*time.Second
 	seq, _ := strconv.ParseUint(r.Header.Get("Last-Event-ID"), 10, 64)
 	var last []byte
 	tick := time.NewTicker(p.opt.Interval)
@@ -96,6 +99,7 @@ func (p *Page) events(w http.ResponseWriter, r *http.Request) {
 		if err != nil {
 			return
 		}
+		_ = rc.SetWriteDeadline(time.Now().Add(grace))
 		switch {
 		case !bytes.Equal(b, last):
 			seq++
@@ -121,3 +125,10 @@ func (p *Page) events(w http.ResponseWriter, r *http.Request) {
 		}
 	}
 }
+
+// flusher flushes through a ResponseController (which finds the
+// http.Flusher behind wrapping writers); events checks once that the
+// writer can flush.
+type flusher struct{ rc *http.ResponseController }
+
+func (f flusher) Flush() { _ = f.rc.Flush() }

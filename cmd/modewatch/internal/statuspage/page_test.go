@@ -305,3 +305,25 @@ func TestEventsRate(t *testing.T) {
 		t.Errorf("after a change: event %s, want 2", e.id)
 	}
 }
+
+// TestEventsOutliveWriteTimeout: a server WriteTimeout shorter than the
+// stream does not cut it (each write sets its own deadline).
+func TestEventsOutliveWriteTimeout(t *testing.T) {
+	f := NewFakePlant(2, 5)
+	pg := New(f, f.Hist, Options{Interval: 50 * time.Millisecond})
+	mux := http.NewServeMux()
+	pg.Register(mux)
+	srv := httptest.NewUnstartedServer(mux)
+	srv.Config.WriteTimeout = 200 * time.Millisecond
+	srv.Start()
+	t.Cleanup(srv.Close)
+	t.Cleanup(pg.Close)
+	ctx, cancel := context.WithCancel(context.Background())
+	defer cancel()
+	_, ch := openEvents(t, ctx, srv.URL+"/page/events?view=plant", "")
+	start := time.Now()
+	for time.Since(start) < 1500*time.Millisecond {
+		f.Bump()
+		next(t, ch)
+	}
+}
