@@ -328,8 +328,9 @@ func apiJSON(t *testing.T, base, path, token string, v any) {
 //     own scheduling) of the incident appearing in /api/alerts;
 //   - after the front drops every connection the page resumes its event
 //     stream without reloading;
-//   - a reader's incidents view has no action buttons, and the API refuses
-//     the reader's acknowledgement;
+//   - a reader's incidents view has no action buttons, its unit and
+//     severity filters hide and show the incident, and the API refuses the
+//     reader's acknowledgement;
 //   - a writer acknowledges the incident through the confirmation dialog,
 //     and the page and /api/alerts show it acknowledged by the writer;
 //   - screenshots of the three views and of a narrow screen are written as
@@ -428,6 +429,13 @@ func TestBrowserDemo(t *testing.T) {
 	poll(t, reader, "reader's incidents view", fmt.Sprintf(`!!document.querySelector('tr[data-id=%q]')`, id), 10*time.Second)
 	if n := eval[int](t, reader, `document.querySelectorAll("button[data-act]").length`); n != 0 {
 		t.Errorf("the reader sees %d action buttons", n)
+	}
+	// The filters: another unit or another severity hides the incident.
+	for _, f := range [][2]string{{"f-unit", "air"}, {"f-sev", "low"}} {
+		_ = eval[bool](t, reader, fmt.Sprintf(`(() => { const s = document.getElementById(%q); s.value = %q; s.dispatchEvent(new Event("change")); return true; })()`, f[0], f[1]))
+		poll(t, reader, "filter "+f[0]+" = "+f[1]+" hides the incident", fmt.Sprintf(`!document.querySelector('tr[data-id=%q]')`, id), 5*time.Second)
+		_ = eval[bool](t, reader, fmt.Sprintf(`(() => { const s = document.getElementById(%q); s.value = ""; s.dispatchEvent(new Event("change")); return true; })()`, f[0]))
+		poll(t, reader, "filter "+f[0]+" cleared shows the incident", fmt.Sprintf(`!!document.querySelector('tr[data-id=%q]')`, id), 5*time.Second)
 	}
 	body := fmt.Sprintf(`{"alert_id":%q,"by":"viewer"}`, id)
 	req, _ := http.NewRequest("POST", front.URL+"/api/alerts/ack", strings.NewReader(body))

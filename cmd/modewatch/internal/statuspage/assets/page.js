@@ -370,20 +370,27 @@ function renderIncidents(d) {
   state.view = d;
   $("clock").textContent = d.time && !d.time.startsWith("0001") ? "plant time " + when(d.time) : "no frames yet";
   const f = state.filters;
-  const keep = (r) => (!f.unit || r.unit === f.unit) && (!f.severity || r.severity === f.severity);
   const sevs = (state.me && state.me.severities) || [];
-  const open = d.open.filter(keep), recent = d.recent.filter(keep);
-  let html = `<h1>Incidents</h1><div class="filters">
+  // The filter bar is drawn once per list of units, so that an update does
+  // not close a list the user has open; the tables are redrawn.
+  const key = JSON.stringify(d.units);
+  if (!$("inc-tables") || $("view").dataset.units !== key) {
+    $("view").dataset.units = key;
+    $("view").innerHTML = `<h1>Incidents</h1><div class="filters">
     <label>Unit <select id="f-unit"><option value="">all</option>${d.units.map((u) => `<option ${u === f.unit ? "selected" : ""}>${esc(u)}</option>`).join("")}</select></label>
     <label>Severity <select id="f-sev"><option value="">all</option>${sevs.map((s) => `<option ${s === f.severity ? "selected" : ""}>${esc(s)}</option>`).join("")}</select></label>
     <label><input type="checkbox" id="f-closed" ${f.closed ? "checked" : ""}> show closed</label>
     ${state.me && !state.me.identity.can_write ? `<span class="tag">read only: actions need a token with write permission</span>` : ""}</div>
-    <h2>Open (${open.length})</h2>${incidentTable(open, true)}`;
+    <div id="inc-tables"></div>`;
+    $("f-unit").addEventListener("change", (e) => { f.unit = e.target.value; renderIncidents(state.view); });
+    $("f-sev").addEventListener("change", (e) => { f.severity = e.target.value; renderIncidents(state.view); });
+    $("f-closed").addEventListener("change", (e) => { f.closed = e.target.checked; renderIncidents(state.view); });
+  }
+  const keep = (r) => (!f.unit || r.unit === f.unit) && (!f.severity || r.severity === f.severity);
+  const open = d.open.filter(keep), recent = d.recent.filter(keep);
+  let html = `<h2>Open (${open.length})</h2>${incidentTable(open, true)}`;
   if (f.closed) html += `<h2>Recent, closed (${recent.length})</h2>${incidentTable(recent, false)}`;
-  $("view").innerHTML = html;
-  $("f-unit").addEventListener("change", (e) => { f.unit = e.target.value; renderIncidents(state.view); });
-  $("f-sev").addEventListener("change", (e) => { f.severity = e.target.value; renderIncidents(state.view); });
-  $("f-closed").addEventListener("change", (e) => { f.closed = e.target.checked; renderIncidents(state.view); });
+  $("inc-tables").innerHTML = html;
   for (const b of document.querySelectorAll("[data-act]")) b.addEventListener("click", () => act(b.dataset.act, b.dataset.id, b.dataset.unit));
 }
 
@@ -449,6 +456,7 @@ function act(op, id, unit) {
 
 function route() {
   const h = location.hash || "#/";
+  delete $("view").dataset.units;
   for (const a of document.querySelectorAll(".bar nav a")) a.classList.toggle("on", h === a.getAttribute("href") || (a.id === "nav-plant" && h.startsWith("#/unit/")));
   const m = h.match(/^#\/unit\/(.+)$/);
   if (m) {
