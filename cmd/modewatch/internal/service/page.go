@@ -4,6 +4,8 @@ import (
 	"net/http"
 	"time"
 
+	"github.com/prometheus/client_golang/prometheus"
+
 	"modewatch/alerts"
 	"modewatch/cmd/modewatch/internal/access"
 	"modewatch/cmd/modewatch/internal/pipeline"
@@ -26,6 +28,14 @@ var pageOps = []string{alerts.OpAck, alerts.OpShelve, alerts.OpUnshelve, alerts.
 func (s *Service) registerPage(mux *http.ServeMux, read func(http.Handler) http.Handler, identify func(*http.Request) statuspage.Identity) *statuspage.Page {
 	pg := s.StatusPage(statuspage.Options{Read: read, Identify: identify})
 	pg.Register(mux)
+	s.met.reg.MustRegister(
+		prometheus.NewGaugeFunc(prometheus.GaugeOpts{Name: "modewatch_page_clients", Help: "Open event streams of the status page."},
+			func() float64 { n, _ := pg.Clients(); return float64(n) }),
+		prometheus.NewCounterFunc(prometheus.CounterOpts{Name: "modewatch_page_clients_refused_total", Help: "Event streams of the status page refused at the client limit."},
+			func() float64 { _, n := pg.Clients(); return float64(n) }),
+		prometheus.NewCounterFunc(prometheus.CounterOpts{Name: "modewatch_page_history_dropped_total", Help: "Scored frames the status page's history did not keep (unit limit reached)."},
+			func() float64 { return float64(s.hist.Dropped()) }),
+	)
 	return pg
 }
 

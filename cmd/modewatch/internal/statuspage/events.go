@@ -13,11 +13,12 @@ import (
 // proxies keep it open and a dead client is noticed.
 const heartbeat = 15 * time.Second
 
-// Clients returns the number of open event streams.
-func (p *Page) Clients() int {
+// Clients returns the number of open event streams and how many were
+// refused (MaxClients reached) since the page was made.
+func (p *Page) Clients() (open int, refused uint64) {
 	p.mu.Lock()
 	defer p.mu.Unlock()
-	return p.clients
+	return p.clients, p.refused
 }
 
 // events streams the view named by ?view= (plant, unit with ?unit= and
@@ -55,6 +56,9 @@ func (p *Page) events(w http.ResponseWriter, r *http.Request) {
 		return
 	case p.sem <- struct{}{}:
 	default:
+		p.mu.Lock()
+		p.refused++
+		p.mu.Unlock()
 		w.Header().Set("Retry-After", "5")
 		http.Error(w, fmt.Sprintf("too many live clients (at most %d); retry later", p.opt.MaxClients), http.StatusServiceUnavailable)
 		return

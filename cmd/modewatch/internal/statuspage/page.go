@@ -103,6 +103,7 @@ type Page struct {
 	mu      sync.Mutex
 	base    *base
 	clients int
+	refused uint64
 
 	done      chan struct{}
 	closeOnce sync.Once

@@ -229,16 +229,19 @@ func TestEventsClientLimit(t *testing.T) {
 	_, ch2 := openEvents(t, ctx2, srv.URL+"/page/events?view=incidents", "")
 	next(t, ch1)
 	next(t, ch2)
-	if n := pg.Clients(); n != 2 {
+	if n, _ := pg.Clients(); n != 2 {
 		t.Fatalf("%d clients, want 2", n)
 	}
 	res, _ := openEvents(t, context.Background(), srv.URL+"/page/events?view=plant", "")
 	if res.StatusCode != http.StatusServiceUnavailable || res.Header.Get("Retry-After") == "" {
 		t.Fatalf("third client: %d (Retry-After %q), want 503 with Retry-After", res.StatusCode, res.Header.Get("Retry-After"))
 	}
+	if _, refused := pg.Clients(); refused != 1 {
+		t.Errorf("%d refused, want 1", refused)
+	}
 	cancel1()
 	deadline := time.Now().Add(10 * time.Second)
-	for pg.Clients() != 1 && time.Now().Before(deadline) {
+	for n, _ := pg.Clients(); n != 1 && time.Now().Before(deadline); n, _ = pg.Clients() {
 		time.Sleep(10 * time.Millisecond)
 	}
 	ctx3, cancel3 := context.WithCancel(context.Background())
