@@ -133,8 +133,9 @@ func TestPlantOrder(t *testing.T) {
 	for _, u := range p.Units {
 		got = append(got, u.Name)
 	}
-	// unit03 high incident; unit07 low incident; unit11 (u%10 == 1?)
-	// none over; unit05 missing channels; the rest by their ratio < 1.
+	// unit03: a high incident; unit07: a low one (and the fake plant's
+	// acknowledged stuck sensor); unit05: missing channels; the rest are
+	// normal and follow by their largest ratio.
 	if got[0] != "unit03" || got[1] != "unit07" || got[2] != "unit05" {
 		t.Errorf("order %v, want unit03 (high incident), unit07 (low incident), unit05 (missing channels) first", got)
 	}
