@@ -490,6 +490,12 @@ func TestBrowserDemo(t *testing.T) {
 		t.Errorf("narrow screen: the page is %d px wide in a %d px window", w[0], w[1])
 	}
 	screenshot(t, reader, "plant-narrow", true)
+	hash(t, reader, "#/unit/"+faulty)
+	poll(t, reader, "narrow unit view", `document.querySelectorAll(".chart svg").length >= 2`, 10*time.Second)
+	if w := eval[[]int](t, reader, `[document.documentElement.scrollWidth, window.innerWidth]`); w[0] > w[1] {
+		t.Errorf("narrow unit view: the page is %d px wide in a %d px window", w[0], w[1])
+	}
+	screenshot(t, reader, "unit-narrow", false)
 }
 
 // TestBrowserLoad measures, in headless chromium, how long the plant view

@@ -245,7 +245,8 @@ function sevRank(name) {
 // ---- unit view -------------------------------------------------------------
 
 function chart(tr, key, label, spans) {
-  const W = 1000, H = 150, L = 52, R = 8, T = 8, B = 20;
+  // Drawn at the width it is shown at, so that the labels keep their size.
+  const W = Math.max(320, Math.min(1200, ($("view").clientWidth || 1000) - 40)), H = 150, L = 52, R = 8, T = 8, B = 20;
   const s = tr[key];
   const n = s.value.length;
   const vals = s.value.filter((v) => v != null), lims = s.limit.filter((v) => v != null);
