@@ -19,7 +19,6 @@ import (
 	"encoding/json"
 	"io/fs"
 	"net/http"
-	"reflect"
 	"sort"
 	"strings"
 	"sync"
@@ -349,7 +348,7 @@ func (p *Page) plant(b *base) Plant {
 	out.Open = len(b.open)
 	for i := range b.views {
 		v := &b.views[i]
-		row := UnitRow{Name: v.Name, ModelState: v.ModelState, Operating: operatingState(v), Maintenance: v.InMaintenance, Error: v.Error,
+		row := UnitRow{Name: v.Name, ModelState: v.ModelState, Operating: v.State, Maintenance: v.InMaintenance, Error: v.Error,
 			Channels: len(v.Channels), Frames: v.Frames, StepErrors: v.StepErrors, Ratio: map[string]*float64{},
 			Incidents: byUnit[v.Name], NotModelled: names(v.NotModelled)}
 		if row.Incidents == nil {
@@ -394,16 +393,6 @@ func (p *Page) plant(b *base) Plant {
 		return out.Units[i].Name < out.Units[j].Name
 	})
 	return out
-}
-
-// operatingState returns the unit's operating state when the unit view
-// carries one (a string field OperatingState), else "".
-func operatingState(v *pipeline.UnitView) string {
-	f := reflect.ValueOf(v).Elem().FieldByName("OperatingState")
-	if f.IsValid() && f.Kind() == reflect.String {
-		return f.String()
-	}
-	return ""
 }
 
 // UnitDetail is the unit view.

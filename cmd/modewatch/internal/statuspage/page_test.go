@@ -127,8 +127,12 @@ func TestPlantOrder(t *testing.T) {
 	// give unit07 a low incident, and unit05 has missing channels.
 	f.open = append(f.open, alerts.Record{ID: "x", Unit: "unit07", Group: alerts.GroupQuality, Severity: "low",
 		Quality: &alerts.RecordQuality{Kind: "stuck", Channel: "unit07.asset0.ch001"}})
+	f.views[3].State = "high-load" // unit03's operating state
 	pg := New(f, f.Hist, Options{})
 	p := pg.plant(pg.snapshot())
+	if p.Units[0].Operating != "high-load" {
+		t.Errorf("unit03's operating state %q, want high-load", p.Units[0].Operating)
+	}
 	var got []string
 	for _, u := range p.Units {
 		got = append(got, u.Name)

@@ -55,6 +55,7 @@ function sevClass(name) {
   return known.includes(name) ? "sev-" + name : "sev-other";
 }
 function sevBadge(r) {
+  if (r.kind === "notice") return `<span class="tag" title="informational, not an alarm">notice</span>`;
   if (r.group === "quality") return `<span class="sev sev-quality" title="data quality">${esc(r.severity || "quality")}</span>`;
   return `<span class="sev ${sevClass(r.severity)}">${esc(r.severity)}</span>`;
 }
@@ -222,7 +223,7 @@ function renderPlant(p) {
     else if (overAny) status = `<span class="sev sev-other">over limit</span>`;
     else if (abn) status = `<span class="sev sev-quality">data quality</span>`;
     if (u.maintenance) status += ` <span class="tag">maintenance</span>`;
-    const st = [u.model_state, u.operating_state].filter(Boolean).map(esc).join(" · ");
+    const st = [u.model_state, u.operating_state ? "state " + u.operating_state : ""].filter(Boolean).map(esc).join(" · ");
     const incs = u.incidents.filter((i) => i.group !== "quality").map((i) => `<span>${i.group === "quality" ? `<span class="sev sev-quality">${esc(i.severity)}</span>` : `<span class="sev ${sevClass(i.severity)}">${esc(i.severity)}</span>`}
        ${i.acked ? `<span class="tag">ack</span>` : ""}${i.shelved ? `<span class="tag">shelved</span>` : ""} ${esc(i.top.map((c) => short(u.name, c)).join(", "))} <span class="muted">${fmt(i.ratio, 1)}×</span></span>`).join("");
     html += `<div class="urow${abn || overAny ? " abn" : ""}" data-unit="${esc(u.name)}" style="--sev-col:${proc.length ? sevColour(worst) : abn && !overAny ? "var(--quality)" : "var(--ink)"}">
@@ -294,7 +295,7 @@ function renderUnit(d) {
   const u = d.unit;
   $("clock").textContent = u.latest ? "plant time " + when(u.latest.time) : "no frames yet";
   const spans = [...d.records, ...d.open].filter((r) => r.group !== "quality");
-  const st = [u.model_state, u.operating_state].filter(Boolean).map(esc).join(" · ");
+  const st = [u.model_state, u.state ? "operating state " + u.state : ""].filter(Boolean).map(esc).join(" · ");
   let html = `<h1><a href="#/">Plant</a> › ${esc(u.name)}</h1>
     <p class="summary"><span>${st}</span><span><b>${u.channels.length}</b> channels</span><span><b>${u.frames}</b> frames</span>
     ${u.maintenance ? `<span class="tag">maintenance</span>` : ""}<span>${u.latest ? "latest frame " + when(u.latest.time) : "no frame yet"}</span></p>
@@ -313,6 +314,9 @@ function renderUnit(d) {
   const lat = u.latest;
   if (lat && (lat.missing.length || lat.excluded.length || lat.warming.length)) {
     html += `<h2>Data quality</h2><p class="quality">${lat.missing.length ? "missing: " + esc(lat.missing.join(", ")) + "<br>" : ""}${lat.excluded.length ? "excluded: " + esc(lat.excluded.join(", ")) + "<br>" : ""}${lat.warming.length ? "warming up: " + esc(lat.warming.join(", ")) : ""}</p>`;
+  }
+  if (u.states && u.states.length) {
+    html += `<h2>Operating states</h2><p class="summary">` + u.states.map((x) => `<span>${x.current ? "<b>▶ " + esc(x.label) + "</b>" : esc(x.label)} <span class="muted">${x.frames} frames · ${esc(x.model_state)}${x.fitted ? "" : " · learned online"}</span></span>`).join("") + `</p>`;
   }
   html += `<h2>Modes (${(u.modes || []).length}) <span class="muted">loadings per sensor, share of variance</span></h2><div class="modes">`;
   for (const m of [...(u.modes || [])].sort((a, b) => b.variance_share - a.variance_share)) {
@@ -356,11 +360,11 @@ function incidentTable(recs, withActions) {
   if (!recs.length) return `<p class="muted">None.</p>`;
   let h = `<table class="wide incidents"><thead><tr><th>Severity</th><th>Unit</th><th>Started</th><th>State</th><th class="num">Peak</th><th>Top sensors</th><th>Who did what</th>${withActions ? "<th>Actions</th>" : ""}</tr></thead><tbody>`;
   for (const r of recs) {
-    const top = r.quality ? `${esc(r.quality.kind)}: ${esc(r.quality.channel)}` : r.contributors.slice(0, 3).map((c) => esc(c.channel)).join(", ");
+    const top = r.kind === "notice" ? esc(r.notice) : r.quality ? `${esc(r.quality.kind)}: ${esc(r.quality.channel || r.unit)}` : (r.contributors || []).slice(0, 3).map((c) => esc(c.channel)).join(", ");
     h += `<tr data-id="${esc(r.id)}" data-state="${esc(r.end ? "closed" : r.acknowledged ? "acknowledged" : "open")}"><td data-k="severity">${sevBadge(r)}</td><td data-k="unit"><a href="#/unit/${encodeURIComponent(r.unit)}">${esc(r.unit)}</a></td>
       <td data-k="started">${when(r.start)}${r.end ? "<br><span class='muted'>ended " + when(r.end) + "</span>" : ""}</td>
       <td data-k="state">${esc(r.end ? "closed" : r.state)}${r.acknowledged ? ` <span class="tag">ack</span>` : ""}${r.shelved ? ` <span class="tag">shelved</span>` : ""}</td>
-      <td class="num" data-k="peak">${esc(r.peak.statistic)} ${fmt(r.peak.ratio, 1)}×</td><td data-k="top">${top}</td><td class="who-did" data-k="who">${whoDid(r) || "—"}</td>
+      <td class="num" data-k="peak">${r.kind === "notice" ? "—" : esc(r.peak.statistic) + " " + fmt(r.peak.ratio, 1) + "×"}</td><td data-k="top">${top}</td><td class="who-did" data-k="who">${whoDid(r) || "—"}</td>
       ${withActions ? `<td data-k="actions">${actionButtons(r)}</td>` : ""}</tr>`;
   }
   return h + `</tbody></table>`;
