@@ -20,7 +20,7 @@ func (p pageSource) Open() []alerts.Record      { return p.s.alertsOpen() }
 func (p pageSource) Records() []alerts.Record   { return p.s.Records() }
 
 // pageOps are the operator commands the API takes, as the page offers them.
-var pageOps = []string{alerts.OpAck, alerts.OpShelve, alerts.OpUnshelve, alerts.OpMaintenance}
+var pageOps = []string{alerts.OpAck, alerts.OpShelve, alerts.OpUnshelve, alerts.OpMaintenance, alerts.OpAccept}
 
 // registerPage serves the status page at / on mux, behind read (the read
 // permission of the API; nil: none), drawing trends from the service's

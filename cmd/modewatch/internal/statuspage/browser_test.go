@@ -333,6 +333,10 @@ func apiJSON(t *testing.T, base, path, token string, v any) {
 //     reader's acknowledgement;
 //   - a writer acknowledges the incident through the confirmation dialog,
 //     and the page and /api/alerts show it acknowledged by the writer;
+//   - the writer accepts it as the new normal through the page, and the
+//     API's record says who did;
+//   - the unit view shows the incident's contributors with their reading,
+//     expected value and band;
 //   - screenshots of the three views and of a narrow screen are written as
 //     test artifacts, and the narrow screen does not scroll sideways.
 func TestBrowserDemo(t *testing.T) {
@@ -478,7 +482,37 @@ func TestBrowserDemo(t *testing.T) {
 	// The unit view of the faulty unit, its incident with contributors.
 	hash(t, writer, "#/unit/"+faulty)
 	poll(t, writer, "unit view with charts and contributors", `document.querySelectorAll(".chart svg").length >= 2 && !!document.querySelector("table.contributors td")`, 10*time.Second)
+	// The contributors carry their reading, expected value and band.
+	poll(t, writer, "the top contributor's expected value", `/^-?[0-9]/.test(document.querySelector('table.contributors td[data-k="expected"]')?.textContent || "")`, 10*time.Second)
 	screenshot(t, writer, "unit", true)
+
+	// The writer accepts the incident as the new normal: it leaves the
+	// open list, and the API's record names who accepted it.
+	hash(t, writer, "#/incidents")
+	accept := fmt.Sprintf(`tr[data-id=%q] button[data-act="accept"]`, id)
+	if err := chromedp.Do(writer,
+		chromedp.WaitVisible(chromedp.CSS(accept)),
+		chromedp.Click(chromedp.CSS(accept)),
+		chromedp.WaitVisible(chromedp.CSS("#confirm")),
+		chromedp.SendKeys(chromedp.CSS(`#confirm input[name="reason"]`), "new burner setting, approved"),
+		chromedp.Click(chromedp.CSS("#confirm-ok")),
+	); err != nil {
+		t.Fatal(err)
+	}
+	poll(t, writer, "the accepted incident leaves the open list", fmt.Sprintf(`!document.querySelector('tr[data-id=%q] button[data-act]')`, id), 10*time.Second)
+	var all []alerts.Record
+	accepted := false
+	for deadline := time.Now().Add(10 * time.Second); !accepted && time.Now().Before(deadline); time.Sleep(50 * time.Millisecond) {
+		apiJSON(t, front.URL, "/api/alerts?all=1", readerToken, &all)
+		for _, r := range all {
+			if r.ID == id && r.Accepted != nil && r.Accepted.By == writerName {
+				accepted = true
+			}
+		}
+	}
+	if !accepted {
+		t.Errorf("/api/alerts?all=1 does not show %s accepted by %s", id, writerName)
+	}
 
 	// A narrow screen: no sideways scrolling.
 	if err := chromedp.Do(reader, chromedp.EmulateViewport(400, 860)); err != nil {

@@ -93,7 +93,8 @@ func NewFakePlant(units, perUnit int) *FakePlant {
 				Start: now.Add(-time.Hour), Updated: now, State: "active", Severity: "high", Caution: alerts.Caution,
 				Peak: alerts.Peak{Statistic: "t2", Value: 30, Limit: 12, Ratio: 2.5, Time: now.Add(-30 * time.Minute)}}
 			for k := 0; k < 10; k++ {
-				r.Contributors = append(r.Contributors, alerts.RecordContributor{Rank: k + 1, Channel: v.Channels[k], Share: 0.5 / float64(k+1), RBC: 9, RBCLimit: 6.6})
+				r.Contributors = append(r.Contributors, alerts.RecordContributor{Rank: k + 1, Channel: v.Channels[k], Share: 0.5 / float64(k+1), RBC: 9, RBCLimit: 6.6,
+					Reading: alerts.Number(52 + float64(k)), Expected: alerts.Number(50 + float64(k)), Band: 1.2, BandCoverage: 0.95})
 			}
 			f.open = append(f.open, r)
 		}

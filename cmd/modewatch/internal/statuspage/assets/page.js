@@ -275,6 +275,11 @@ function chart(tr, key, label, spans) {
     <path class="lim" d="${path(s.limit)}"/><path class="val" d="${path(s.value)}"/>${over}${tl}</svg></div>`;
 }
 
+function bandCov(r) {
+  const c = (r.contributors || []).find((x) => x.band_coverage);
+  return c ? ` (${Math.round(100 * c.band_coverage)} %)` : "";
+}
+
 function bandCell(c) {
   const rd = c.reading ?? c.value, ex = c.expected;
   let lo = c.band_low, hi = c.band_high;
@@ -304,8 +309,9 @@ function renderUnit(d) {
     <p class="muted">Solid line: statistic (largest value/limit in each point); dashed: control limit; shaded: incidents; ▪ points over the limit.</p>`;
   for (const r of d.open) {
     html += `<h2>Open incident ${sevBadge(r)} <span class="muted">${esc(r.id)} since ${when(r.start)}, peak ${esc(r.peak.statistic)} ${fmt(r.peak.ratio, 1)}× limit</span></h2>`;
+    if (r.location && r.location.length) html += `<p>Location: <b>${esc(r.location.map((c) => short(u.name, c)).join(", "))}</b></p>`;
     if (r.quality) { html += `<p class="quality">${esc(r.quality.kind)} on ${esc(short(u.name, r.quality.channel))}</p>`; continue; }
-    html += `<table class="wide contributors"><thead><tr><th>#</th><th>Sensor</th><th class="num">Share</th><th class="num">RBC / limit</th><th>Modes</th><th class="num">Reading</th><th class="num">Expected</th><th class="num">Band</th><th></th></tr></thead><tbody>`;
+    html += `<table class="wide contributors"><thead><tr><th>#</th><th>Sensor</th><th class="num">Share</th><th class="num">RBC / limit</th><th>Modes</th><th class="num">Reading</th><th class="num">Expected</th><th class="num">Band${bandCov(r)}</th><th></th></tr></thead><tbody>`;
     for (const c of r.contributors) {
       html += `<tr><td data-k="#">${c.rank}</td><td data-k="sensor"><b title="${esc(c.channel)}">${esc(short(u.name, c.channel))}</b></td><td class="num" data-k="share">${pct(c.share)}</td><td class="num" data-k="RBC/limit">${c.rbc_limit ? fmt(c.rbc / c.rbc_limit) : "—"}</td><td data-k="modes">${(c.modes || []).map((m) => "M" + m).join(" ")}</td>${bandCell(c)}</tr>`;
     }
@@ -341,6 +347,7 @@ function whoDid(r) {
   const w = [];
   if (r.acknowledged) w.push(`acknowledged by <b>${esc(r.acknowledged.by)}</b> ${when(r.acknowledged.at)}${r.acknowledged.comment ? " — " + esc(r.acknowledged.comment) : ""}`);
   if (r.shelved) w.push(`shelved by <b>${esc(r.shelved.by)}</b> until ${when(r.shelved.until)}${r.shelved.reason ? " — " + esc(r.shelved.reason) : ""}`);
+  if (r.accepted) w.push(`accepted as normal by <b>${esc(r.accepted.by)}</b> ${when(r.accepted.at)}${r.accepted.comment ? " — " + esc(r.accepted.comment) : ""}`);
   if (r.end_reason) w.push("ended: " + esc(r.end_reason));
   return w.join("<br>");
 }
@@ -352,7 +359,7 @@ function actionButtons(r) {
   if (can("shelve") && !r.shelved) b.push(`<button data-act="shelve" data-id="${esc(r.id)}">Shelve…</button>`);
   if (can("unshelve") && r.shelved) b.push(`<button data-act="unshelve" data-id="${esc(r.id)}">Unshelve</button>`);
   if (can("maintenance")) b.push(`<button data-act="maintenance" data-id="${esc(r.id)}" data-unit="${esc(r.unit)}">Maintenance…</button>`);
-  if (can("accept")) b.push(`<button data-act="accept" data-id="${esc(r.id)}" data-unit="${esc(r.unit)}">Accept as normal…</button>`);
+  if (can("accept") && r.group === "model" && !r.accepted) b.push(`<button data-act="accept" data-id="${esc(r.id)}" data-unit="${esc(r.unit)}">Accept as normal…</button>`);
   return b.length ? `<div class="actions">${b.join("")}</div>` : `<span class="muted">view only</span>`;
 }
 
@@ -416,7 +423,7 @@ function act(op, id, unit) {
     shelve: `Shelve incident ${id}: its alarm group is hidden until the shelf ends. Give how long and why.`,
     unshelve: `End the shelf of incident ${id} now?`,
     maintenance: `Put unit ${unit} in maintenance: its alarms are silenced until maintenance is switched off. Every open incident of the unit ends.`,
-    accept: `Accept the current behaviour of unit ${unit} as its new normal: the model learns it and the incident ends.`,
+    accept: `Accept what incident ${id} shows on unit ${unit} as the unit's new normal: the model learns it from now on and the incident ends. Only do this when the change is known and intended.`,
   }[op];
   const fields = {
     ack: `<label>Comment (optional)<input name="comment" maxlength="500"></label>`,
@@ -439,7 +446,7 @@ function act(op, id, unit) {
     if (fd.get("by")) localStorage.setItem("modewatch-by", fd.get("by"));
     let url = "/api/alerts/" + op;
     if (op === "maintenance") { url = "/api/units/" + encodeURIComponent(unit) + "/maintenance"; body.on = fd.get("on") === "true"; body.reason = fd.get("reason"); }
-    else if (op === "accept") { url = "/api/commands"; Object.assign(body, { op: "accept", alert_id: id, unit, reason: fd.get("reason") }); }
+    else if (op === "accept") { url = "/api/alerts/accept"; Object.assign(body, { alert_id: id, comment: fd.get("reason") }); }
     else {
       body.alert_id = id;
       if (op === "shelve") { body.for = fd.get("for"); body.reason = fd.get("reason"); }
