@@ -455,7 +455,6 @@ func TestBrowserDemo(t *testing.T) {
 	if err := chromedp.Do(writer, chromedp.WaitVisible(chromedp.CSS(ack))); err != nil {
 		t.Fatal(err)
 	}
-	screenshot(t, writer, "incidents", true)
 	if err := chromedp.Do(writer,
 		chromedp.Click(chromedp.CSS(ack)),
 		chromedp.WaitVisible(chromedp.CSS("#confirm")),
@@ -467,6 +466,7 @@ func TestBrowserDemo(t *testing.T) {
 	poll(t, writer, "the incident acknowledged by the writer in the page",
 		fmt.Sprintf(`(() => { const r = document.querySelector('tr[data-id=%q]'); return !!r && r.dataset.state === "acknowledged" && r.textContent.includes("acknowledged by %s"); })()`, id, writerName),
 		10*time.Second)
+	screenshot(t, writer, "incidents", true)
 	var open []alerts.Record
 	apiJSON(t, front.URL, "/api/alerts", readerToken, &open)
 	acked := false
