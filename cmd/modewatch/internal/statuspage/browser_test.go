@@ -10,15 +10,15 @@ import (
 	"image/png"
 	"io"
 	"log/slog"
+	"net"
 	"net/http"
 	"net/http/httptest"
-	"net/http/httputil"
-	"net/url"
 	"os"
 	"os/exec"
 	"path/filepath"
 	"sort"
 	"strings"
+	"sync"
 	"testing"
 	"time"
 
@@ -26,6 +26,7 @@ import (
 	"github.com/nats-io/nats.go"
 
 	"modewatch/alerts"
+	"modewatch/cmd/modewatch/internal/access"
 	"modewatch/cmd/modewatch/internal/pipeline"
 	"modewatch/cmd/modewatch/internal/service"
 	"modewatch/cmd/modewatch/internal/statuspage"
@@ -206,48 +207,20 @@ func login(t *testing.T, ctx context.Context, base, path, token string) {
 	}
 }
 
-// Tokens of the test's access check (a stand-in for the service's own,
-// issue of access control): a reader and a writer called operator-a.
+// Tokens the service is configured with (stored hashed): a reader and a
+// writer called operator-a, whose name the API records as "by".
 const (
-	readerToken = "rd-4c1e9a"
-	writerToken = "wr-77b0d2"
+	readerToken = "rd-4c1e9a-status-page-test"
+	writerToken = "wr-77b0d2-status-page-test"
 	writerName  = "operator-a"
 )
 
-func identify(r *http.Request) statuspage.Identity {
-	switch r.Header.Get("Authorization") {
-	case "Bearer " + writerToken:
-		return statuspage.Identity{Name: writerName, CanWrite: true, Auth: true}
-	case "Bearer " + readerToken:
-		return statuspage.Identity{Name: "viewer", Auth: true}
-	}
-	return statuspage.Identity{}
-}
-
-// guard passes requests with a known token; write says whether the
-// writer's is needed (403 for the reader's).
-func guard(write bool) func(http.Handler) http.Handler {
-	return func(h http.Handler) http.Handler {
-		return http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
-			id := identify(r)
-			switch {
-			case !id.Auth:
-				http.Error(w, "a bearer token is needed", http.StatusUnauthorized)
-			case write && !id.CanWrite:
-				http.Error(w, "this token may not change alerts", http.StatusForbidden)
-			default:
-				h.ServeHTTP(w, r)
-			}
-		})
-	}
-}
-
 // demoPlant starts the service on the demo plant (configs/demo.yaml,
-// model fitted on its fault-free first day, embedded NATS) and a front
-// server that serves the service's status page and proxies /api behind the
-// test's token check. It returns the front's URL and the scenario whose
-// next hours are to be published.
-func demoPlant(t *testing.T) (front *httptest.Server, svc *service.Service, sc *sim.Scenario) {
+// model fitted on its fault-free first day, embedded NATS) with bearer
+// tokens for a reader and a writer, and returns the service's status page
+// (the same listener as its API) and the scenario whose next hours are to
+// be published.
+func demoPlant(t *testing.T) (base string, svc *service.Service, sc *sim.Scenario) {
 	t.Helper()
 	yaml, err := os.ReadFile("../../../../configs/demo.yaml")
 	if err != nil {
@@ -259,6 +232,10 @@ func demoPlant(t *testing.T) (front *httptest.Server, svc *service.Service, sc *
 	}
 	dir := t.TempDir()
 	cfg.HTTP.Listen, cfg.StateDir, cfg.Delivery.SpoolDir = "127.0.0.1:0", dir, ""
+	cfg.HTTP.Tokens = []configs.Token{
+		{Name: "viewer", Role: configs.RoleRead, Hash: access.HashToken(readerToken)},
+		{Name: writerName, Role: configs.RoleWrite, Hash: access.HashToken(writerToken)},
+	}
 	cfg.Log.Level = "error"
 	cfg.ApplyDefaults()
 	sc, err = sim.Demo()
@@ -293,17 +270,56 @@ func demoPlant(t *testing.T) (front *httptest.Server, svc *service.Service, sc *
 		defer cancel()
 		_ = svc.Shutdown(ctx)
 	})
-	api, _ := url.Parse(svc.Info().HTTP)
-	mux := http.NewServeMux()
-	pg := svc.StatusPage(statuspage.Options{Read: guard(false), Identify: identify})
-	pg.Register(mux)
-	proxy := httputil.NewSingleHostReverseProxy(api)
-	mux.Handle("GET /api/", guard(false)(proxy))
-	mux.Handle("POST /api/", guard(true)(proxy))
-	front = httptest.NewServer(mux)
-	t.Cleanup(front.Close) // after the browser and the streams are gone
-	t.Cleanup(pg.Close)
-	return front, svc, sc
+	return svc.Info().HTTP, svc, sc
+}
+
+// relay forwards TCP connections to a target address and can drop every
+// connection it holds.
+type relay struct {
+	ln    net.Listener
+	mu    sync.Mutex
+	conns []net.Conn
+}
+
+func newRelay(t *testing.T, target string) *relay {
+	t.Helper()
+	ln, err := net.Listen("tcp", "127.0.0.1:0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	r := &relay{ln: ln}
+	t.Cleanup(func() { ln.Close(); r.drop() })
+	go func() {
+		for {
+			c, err := ln.Accept()
+			if err != nil {
+				return
+			}
+			u, err := net.Dial("tcp", target)
+			if err != nil {
+				c.Close()
+				continue
+			}
+			r.mu.Lock()
+			r.conns = append(r.conns, c, u)
+			r.mu.Unlock()
+			go func() { _, _ = io.Copy(u, c); u.Close() }()
+			go func() { _, _ = io.Copy(c, u); c.Close() }()
+		}
+	}()
+	return r
+}
+
+func (r *relay) addr() string { return r.ln.Addr().String() }
+
+// drop closes every connection relayed so far.
+func (r *relay) drop() {
+	r.mu.Lock()
+	defer r.mu.Unlock()
+	for _, c := range r.conns {
+		c.Close()
+	}
+	r.conns = nil
 }
 
 func apiJSON(t *testing.T, base, path, token string, v any) {
@@ -341,7 +357,11 @@ func apiJSON(t *testing.T, base, path, token string, v any) {
 //     test artifacts, and the narrow screen does not scroll sideways.
 func TestBrowserDemo(t *testing.T) {
 	path := chromium(t)
-	front, svc, sc := demoPlant(t)
+	direct, svc, sc := demoPlant(t)
+	// The browser reaches the service through a relay that can drop every
+	// connection, as a network failure would.
+	rl := newRelay(t, strings.TrimPrefix(direct, "http://"))
+	base := "http://" + rl.addr()
 	bctx := browser(t, path)
 
 	// The second simulated day, fault-free for 40 plant minutes, then a
@@ -369,13 +389,13 @@ func TestBrowserDemo(t *testing.T) {
 	go func() { _, _ = live.Live(pctx, nc, "modewatch", 200) }()
 
 	reader := tab(t, bctx)
-	login(t, reader, front.URL, "/#/", readerToken)
+	login(t, reader, base, "/#/", readerToken)
 	var units []struct {
 		Name string `json:"name"`
 	}
 	deadline := time.Now().Add(30 * time.Second)
 	for len(units) < len(sc.Units) && time.Now().Before(deadline) {
-		apiJSON(t, front.URL, "/api/units", readerToken, &units)
+		apiJSON(t, base, "/api/units", readerToken, &units)
 		time.Sleep(50 * time.Millisecond)
 	}
 	if len(units) != len(sc.Units) {
@@ -396,7 +416,7 @@ func TestBrowserDemo(t *testing.T) {
 	deadline = time.Now().Add(faultAfter/200 + 60*time.Second)
 	for id == "" && time.Now().Before(deadline) {
 		var open []alerts.Record
-		apiJSON(t, front.URL, "/api/alerts", readerToken, &open)
+		apiJSON(t, base, "/api/alerts", readerToken, &open)
 		for _, r := range open {
 			if r.Unit == faulty && r.Group == alerts.GroupModel {
 				id = r.ID
@@ -422,7 +442,7 @@ func TestBrowserDemo(t *testing.T) {
 
 	// Lost connections: the page resumes its stream without reloading.
 	before := eval[string](t, reader, `document.body.dataset.events || "0"`)
-	front.CloseClientConnections()
+	rl.drop()
 	poll(t, reader, "events again after the connections were dropped",
 		fmt.Sprintf(`window.loadedOnce === true && Number(document.body.dataset.events) > %s && document.getElementById("live").dataset.state === "live"`, before),
 		20*time.Second)
@@ -442,7 +462,7 @@ func TestBrowserDemo(t *testing.T) {
 		poll(t, reader, "filter "+f[0]+" cleared shows the incident", fmt.Sprintf(`!!document.querySelector('tr[data-id=%q]')`, id), 5*time.Second)
 	}
 	body := fmt.Sprintf(`{"alert_id":%q,"by":"viewer"}`, id)
-	req, _ := http.NewRequest("POST", front.URL+"/api/alerts/ack", strings.NewReader(body))
+	req, _ := http.NewRequest("POST", base+"/api/alerts/ack", strings.NewReader(body))
 	req.Header.Set("Authorization", "Bearer "+readerToken)
 	if res, err := http.DefaultClient.Do(req); err != nil || res.StatusCode != http.StatusForbidden {
 		t.Errorf("reader's acknowledgement: %v %v, want 403", res.StatusCode, err)
@@ -450,7 +470,7 @@ func TestBrowserDemo(t *testing.T) {
 
 	// The writer acknowledges through the page.
 	writer := tab(t, bctx)
-	login(t, writer, front.URL, "/#/incidents", writerToken)
+	login(t, writer, base, "/#/incidents", writerToken)
 	ack := fmt.Sprintf(`tr[data-id=%q] button[data-act="ack"]`, id)
 	if err := chromedp.Do(writer, chromedp.WaitVisible(chromedp.CSS(ack))); err != nil {
 		t.Fatal(err)
@@ -468,7 +488,7 @@ func TestBrowserDemo(t *testing.T) {
 		10*time.Second)
 	screenshot(t, writer, "incidents", true)
 	var open []alerts.Record
-	apiJSON(t, front.URL, "/api/alerts", readerToken, &open)
+	apiJSON(t, base, "/api/alerts", readerToken, &open)
 	acked := false
 	for _, r := range open {
 		if r.ID == id && r.Acknowledged != nil && r.Acknowledged.By == writerName {
@@ -503,7 +523,7 @@ func TestBrowserDemo(t *testing.T) {
 	var all []alerts.Record
 	accepted := false
 	for deadline := time.Now().Add(10 * time.Second); !accepted && time.Now().Before(deadline); time.Sleep(50 * time.Millisecond) {
-		apiJSON(t, front.URL, "/api/alerts?all=1", readerToken, &all)
+		apiJSON(t, base, "/api/alerts?all=1", readerToken, &all)
 		for _, r := range all {
 			if r.ID == id && r.Accepted != nil && r.Accepted.By == writerName {
 				accepted = true
