@@ -3,13 +3,16 @@ package service
 import (
 	"bufio"
 	"context"
+	"encoding/json"
 	"io"
 	"math"
 	"net/http"
+	"slices"
 	"strings"
 	"testing"
 	"time"
 
+	"modewatch/cmd/modewatch/internal/access"
 	"modewatch/cmd/modewatch/internal/statuspage"
 	"modewatch/sim"
 )
@@ -91,5 +94,75 @@ func TestStatusPageServed(t *testing.T) {
 	}
 	if ctx.Err() != nil {
 		t.Error("shutdown took its whole deadline")
+	}
+}
+
+// TestStatusPageTokens: the page's data and event stream take the API's
+// read permission (401 without a token or with an unknown one, 200 with a
+// reader's), its shell and assets answer everyone and hold no plant data,
+// and /page/me offers the actions to a writer only, under the token's name.
+func TestStatusPageTokens(t *testing.T) {
+	reader, writer := "reader-token-0123456789abcdef", "writer-token-0123456789abcdef"
+	cfg := serviceConfig(t, `server: {embedded_port: -1}
+http:
+  listen: "127.0.0.1:0"
+  tokens:
+    - {name: viewer, role: read, hash: "`+access.HashToken(reader)+`"}
+    - {name: shift-lead, role: write, hash: "`+access.HashToken(writer)+`"}`)
+	svc, nc := startWithClient(t, Options{Config: cfg})
+	openMissingAlert(t, svc, nc)
+	base := svc.Info().HTTP
+	status := func(path, token string) int {
+		ctx, cancel := context.WithTimeout(context.Background(), 5*time.Second)
+		defer cancel()
+		req, _ := http.NewRequestWithContext(ctx, "GET", base+path, nil)
+		if token != "" {
+			req.Header.Set("Authorization", "Bearer "+token)
+		}
+		res, err := http.DefaultClient.Do(req)
+		if err != nil {
+			t.Fatal(err)
+		}
+		res.Body.Close() // an event stream is cut here
+		return res.StatusCode
+	}
+	for _, path := range []string{"/page/me", "/page/data/plant", "/page/data/unit/tk", "/page/data/incidents", "/page/events?view=plant"} {
+		for _, c := range []struct {
+			token string
+			code  int
+		}{{"", 401}, {"wrong-token-0123456789", 401}, {reader, 200}, {writer, 200}} {
+			if got := status(path, c.token); got != c.code {
+				t.Errorf("GET %s with token %q: %d, want %d", path, c.token, got, c.code)
+			}
+		}
+	}
+	for _, path := range []string{"/", "/page/assets/page.js", "/page/assets/page.css"} {
+		res, err := http.Get(base + path)
+		if err != nil {
+			t.Fatal(err)
+		}
+		b, _ := io.ReadAll(res.Body)
+		res.Body.Close()
+		if res.StatusCode != 200 || strings.Contains(string(b), "tk.") {
+			t.Errorf("GET %s without a token: %d (plant data in it: %v), want 200 without plant data", path, res.StatusCode, strings.Contains(string(b), "tk."))
+		}
+	}
+	var me struct {
+		Identity statuspage.Identity `json:"identity"`
+		Ops      []string            `json:"ops"`
+	}
+	if code, v := do(t, http.DefaultClient, "GET", base+"/page/me", reader, ""); code == 200 {
+		b, _ := json.Marshal(v)
+		_ = json.Unmarshal(b, &me)
+		if me.Identity.CanWrite || len(me.Ops) != 0 || me.Identity.Name != "viewer" || !me.Identity.Auth {
+			t.Errorf("reader's /page/me %+v, want viewer without write or operations", me)
+		}
+	}
+	if code, v := do(t, http.DefaultClient, "GET", base+"/page/me", writer, ""); code == 200 {
+		b, _ := json.Marshal(v)
+		_ = json.Unmarshal(b, &me)
+		if !me.Identity.CanWrite || me.Identity.Name != "shift-lead" || !slices.Contains(me.Ops, "accept") {
+			t.Errorf("writer's /page/me %+v, want shift-lead with write and the accept operation", me)
+		}
 	}
 }
