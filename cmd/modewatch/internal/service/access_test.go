@@ -21,7 +21,6 @@ import (
 	"time"
 
 	"modewatch/alerts"
-	"modewatch/cmd/modewatch/internal/access"
 	"modewatch/configs"
 )
 
@@ -51,14 +50,8 @@ func do(t *testing.T, c *http.Client, method, url, token, body string) (int, map
 // read-only token 403; a writer's command is applied and the record's
 // "by" is the token's name, whatever the body says.
 func TestHTTPTokens(t *testing.T) {
-	reader, writer := "reader-token-0123456789abcdef", "writer-token-0123456789abcdef"
-	cfg := serviceConfig(t, `server: {embedded_port: -1}
-http:
-  listen: "127.0.0.1:0"
-  tokens:
-    - {name: viewer, role: read, hash: "`+access.HashToken(reader)+`"}
-    - {name: shift-lead, role: write, hash: "`+access.HashToken(writer)+`"}`)
-	svc, nc := startWithClient(t, Options{Config: cfg})
+	reader, writer := testReader, testWriter
+	svc, nc := startWithClient(t, Options{Config: tokenConfig(t)})
 	id := openMissingAlert(t, svc, nc)
 	base := svc.Info().HTTP
 	c := http.DefaultClient

@@ -14,6 +14,7 @@ import (
 
 	"modewatch/cmd/modewatch/internal/access"
 	"modewatch/cmd/modewatch/internal/statuspage"
+	"modewatch/configs"
 	"modewatch/sim"
 )
 
@@ -97,19 +98,27 @@ func TestStatusPageServed(t *testing.T) {
 	}
 }
 
+// A reader's (viewer) and a writer's (shift-lead) bearer tokens, and a
+// service configuration that takes them.
+const testReader, testWriter = "reader-token-0123456789abcdef", "writer-token-0123456789abcdef"
+
+func tokenConfig(t *testing.T) *configs.Config {
+	t.Helper()
+	return serviceConfig(t, `server: {embedded_port: -1}
+http:
+  listen: "127.0.0.1:0"
+  tokens:
+    - {name: viewer, role: read, hash: "`+access.HashToken(testReader)+`"}
+    - {name: shift-lead, role: write, hash: "`+access.HashToken(testWriter)+`"}`)
+}
+
 // TestStatusPageTokens: the page's data and event stream take the API's
 // read permission (401 without a token or with an unknown one, 200 with a
 // reader's), its shell and assets answer everyone and hold no plant data,
 // and /page/me offers the actions to a writer only, under the token's name.
 func TestStatusPageTokens(t *testing.T) {
-	reader, writer := "reader-token-0123456789abcdef", "writer-token-0123456789abcdef"
-	cfg := serviceConfig(t, `server: {embedded_port: -1}
-http:
-  listen: "127.0.0.1:0"
-  tokens:
-    - {name: viewer, role: read, hash: "`+access.HashToken(reader)+`"}
-    - {name: shift-lead, role: write, hash: "`+access.HashToken(writer)+`"}`)
-	svc, nc := startWithClient(t, Options{Config: cfg})
+	reader, writer := testReader, testWriter
+	svc, nc := startWithClient(t, Options{Config: tokenConfig(t)})
 	openMissingAlert(t, svc, nc)
 	base := svc.Info().HTTP
 	status := func(path, token string) int {

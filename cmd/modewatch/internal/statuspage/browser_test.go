@@ -273,6 +273,21 @@ func demoPlant(t *testing.T) (base string, svc *service.Service, sc *sim.Scenari
 	return svc.Info().HTTP, svc, sc
 }
 
+// confirmAction clicks the action button at sel, writes text into the
+// confirmation dialog's field and confirms.
+func confirmAction(t *testing.T, ctx context.Context, sel, field, text string) {
+	t.Helper()
+	if err := chromedp.Do(ctx,
+		chromedp.WaitVisible(chromedp.CSS(sel)),
+		chromedp.Click(chromedp.CSS(sel)),
+		chromedp.WaitVisible(chromedp.CSS("#confirm")),
+		chromedp.SendKeys(chromedp.CSS(fmt.Sprintf(`#confirm input[name=%q]`, field)), text),
+		chromedp.Click(chromedp.CSS("#confirm-ok")),
+	); err != nil {
+		t.Fatal(err)
+	}
+}
+
 // relay forwards TCP connections to a target address and can drop every
 // connection it holds.
 type relay struct {
@@ -472,17 +487,7 @@ func TestBrowserDemo(t *testing.T) {
 	writer := tab(t, bctx)
 	login(t, writer, base, "/#/incidents", writerToken)
 	ack := fmt.Sprintf(`tr[data-id=%q] button[data-act="ack"]`, id)
-	if err := chromedp.Do(writer, chromedp.WaitVisible(chromedp.CSS(ack))); err != nil {
-		t.Fatal(err)
-	}
-	if err := chromedp.Do(writer,
-		chromedp.Click(chromedp.CSS(ack)),
-		chromedp.WaitVisible(chromedp.CSS("#confirm")),
-		chromedp.SendKeys(chromedp.CSS(`#confirm input[name="comment"]`), "seen on the local gauge"),
-		chromedp.Click(chromedp.CSS("#confirm-ok")),
-	); err != nil {
-		t.Fatal(err)
-	}
+	confirmAction(t, writer, ack, "comment", "seen on the local gauge")
 	poll(t, writer, "the incident acknowledged by the writer in the page",
 		fmt.Sprintf(`(() => { const r = document.querySelector('tr[data-id=%q]'); return !!r && r.dataset.state === "acknowledged" && r.textContent.includes("acknowledged by %s"); })()`, id, writerName),
 		10*time.Second)
@@ -510,15 +515,7 @@ func TestBrowserDemo(t *testing.T) {
 	// open list, and the API's record names who accepted it.
 	hash(t, writer, "#/incidents")
 	accept := fmt.Sprintf(`tr[data-id=%q] button[data-act="accept"]`, id)
-	if err := chromedp.Do(writer,
-		chromedp.WaitVisible(chromedp.CSS(accept)),
-		chromedp.Click(chromedp.CSS(accept)),
-		chromedp.WaitVisible(chromedp.CSS("#confirm")),
-		chromedp.SendKeys(chromedp.CSS(`#confirm input[name="reason"]`), "new burner setting, approved"),
-		chromedp.Click(chromedp.CSS("#confirm-ok")),
-	); err != nil {
-		t.Fatal(err)
-	}
+	confirmAction(t, writer, accept, "reason", "new burner setting, approved")
 	poll(t, writer, "the accepted incident leaves the open list", fmt.Sprintf(`!document.querySelector('tr[data-id=%q] button[data-act]')`, id), 10*time.Second)
 	var all []alerts.Record
 	accepted := false
