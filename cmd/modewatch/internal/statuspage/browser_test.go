@@ -273,6 +273,14 @@ func demoPlant(t *testing.T) (base string, svc *service.Service, sc *sim.Scenari
 	return svc.Info().HTTP, svc, sc
 }
 
+// noSideways checks that the page fits the window's width.
+func noSideways(t *testing.T, ctx context.Context, what string) {
+	t.Helper()
+	if w := eval[[]int](t, ctx, `[document.documentElement.scrollWidth, window.innerWidth]`); w[0] > w[1] {
+		t.Errorf("%s: the page is %d px wide in a %d px window", what, w[0], w[1])
+	}
+}
+
 // confirmAction clicks the action button at sel, writes text into the
 // confirmation dialog's field and confirms.
 func confirmAction(t *testing.T, ctx context.Context, sel, field, text string) {
@@ -511,6 +519,19 @@ func TestBrowserDemo(t *testing.T) {
 	poll(t, writer, "the top contributor's expected value", `/^-?[0-9]/.test(document.querySelector('table.contributors td[data-k="expected"]')?.textContent || "")`, 10*time.Second)
 	screenshot(t, writer, "unit", true)
 
+	// A narrow screen: no sideways scrolling.
+	if err := chromedp.Do(reader, chromedp.EmulateViewport(400, 860)); err != nil {
+		t.Fatal(err)
+	}
+	hash(t, reader, "#/")
+	poll(t, reader, "narrow plant view", `document.querySelectorAll("#units .urow[data-unit]").length > 0`, 10*time.Second)
+	noSideways(t, reader, "narrow plant view")
+	screenshot(t, reader, "plant-narrow", true)
+	hash(t, reader, "#/unit/"+faulty)
+	poll(t, reader, "narrow unit view", `document.querySelectorAll(".chart svg").length >= 2`, 10*time.Second)
+	noSideways(t, reader, "narrow unit view")
+	screenshot(t, reader, "unit-narrow", false)
+
 	// The writer accepts the incident as the new normal: it leaves the
 	// open list, and the API's record names who accepted it.
 	hash(t, writer, "#/incidents")
@@ -530,23 +551,6 @@ func TestBrowserDemo(t *testing.T) {
 	if !accepted {
 		t.Errorf("/api/alerts?all=1 does not show %s accepted by %s", id, writerName)
 	}
-
-	// A narrow screen: no sideways scrolling.
-	if err := chromedp.Do(reader, chromedp.EmulateViewport(400, 860)); err != nil {
-		t.Fatal(err)
-	}
-	hash(t, reader, "#/")
-	poll(t, reader, "narrow plant view", `document.querySelectorAll("#units .urow[data-unit]").length > 0`, 10*time.Second)
-	if w := eval[[]int](t, reader, `[document.documentElement.scrollWidth, window.innerWidth]`); w[0] > w[1] {
-		t.Errorf("narrow screen: the page is %d px wide in a %d px window", w[0], w[1])
-	}
-	screenshot(t, reader, "plant-narrow", true)
-	hash(t, reader, "#/unit/"+faulty)
-	poll(t, reader, "narrow unit view", `document.querySelectorAll(".chart svg").length >= 2`, 10*time.Second)
-	if w := eval[[]int](t, reader, `[document.documentElement.scrollWidth, window.innerWidth]`); w[0] > w[1] {
-		t.Errorf("narrow unit view: the page is %d px wide in a %d px window", w[0], w[1])
-	}
-	screenshot(t, reader, "unit-narrow", false)
 }
 
 // TestBrowserLoad measures, in headless chromium, how long the plant view
