@@ -517,6 +517,9 @@ func TestBrowserDemo(t *testing.T) {
 	poll(t, writer, "unit view with charts and contributors", `document.querySelectorAll(".chart svg").length >= 2 && !!document.querySelector("table.contributors td")`, 10*time.Second)
 	// The contributors carry their reading, expected value and band.
 	poll(t, writer, "the top contributor's expected value", `/^-?[0-9]/.test(document.querySelector('table.contributors td[data-k="expected"]')?.textContent || "")`, 10*time.Second)
+	if n := eval[int](t, writer, `document.querySelectorAll('button[data-act="maintenance"]').length`); n != 1 {
+		t.Errorf("the writer's unit view has %d maintenance buttons, want 1", n)
+	}
 	screenshot(t, writer, "unit", true)
 
 	// A narrow screen: no sideways scrolling.
@@ -530,6 +533,9 @@ func TestBrowserDemo(t *testing.T) {
 	hash(t, reader, "#/unit/"+faulty)
 	poll(t, reader, "narrow unit view", `document.querySelectorAll(".chart svg").length >= 2`, 10*time.Second)
 	noSideways(t, reader, "narrow unit view")
+	if n := eval[int](t, reader, `document.querySelectorAll("button[data-act]").length`); n != 0 {
+		t.Errorf("the reader's unit view has %d action buttons", n)
+	}
 	screenshot(t, reader, "unit-narrow", false)
 
 	// The writer accepts the incident as the new normal: it leaves the

@@ -303,7 +303,8 @@ function renderUnit(d) {
   const st = [u.model_state, u.state ? "operating state " + u.state : ""].filter(Boolean).map(esc).join(" · ");
   let html = `<h1><a href="#/">Plant</a> › ${esc(u.name)}</h1>
     <p class="summary"><span>${st}</span><span><b>${u.channels.length}</b> channels</span><span><b>${u.frames}</b> frames</span>
-    ${u.maintenance ? `<span class="tag">maintenance</span>` : ""}<span>${u.latest ? "latest frame " + when(u.latest.time) : "no frame yet"}</span></p>
+    ${u.maintenance ? `<span class="tag">maintenance</span>` : ""}<span>${u.latest ? "latest frame " + when(u.latest.time) : "no frame yet"}</span>
+    ${can("maintenance") ? `<button data-act="maintenance" data-unit="${esc(u.name)}">${u.maintenance ? "End maintenance…" : "Maintenance…"}</button>` : ""}</p>
     <div class="windows" role="group" aria-label="window">${[["1h", "last hour"], ["8h", "shift (8 h)"], ["24h", "day"]].map(([w, t]) => `<button data-win="${w}" class="${state.window === w ? "on" : ""}">${t}</button>`).join("")}</div>
     <div class="charts">${chart(d.trend, "t2", "T²", spans)}${chart(d.trend, "spe", "SPE", spans)}${chart(d.trend, "phi", "φ", spans)}</div>
     <p class="muted">Solid line: statistic (largest value/limit in each point); dashed: control limit; shaded: incidents; ▪ points over the limit.</p>`;
@@ -335,6 +336,7 @@ function renderUnit(d) {
   html += `</div><h2>Recent incidents</h2>` + incidentTable(d.records.slice(0, 20), false);
   $("view").innerHTML = html;
   for (const b of document.querySelectorAll("[data-win]")) b.addEventListener("click", () => { state.window = b.dataset.win; route(); });
+  for (const b of document.querySelectorAll("[data-act]")) b.addEventListener("click", () => act(b.dataset.act, b.dataset.id, b.dataset.unit));
 }
 
 // ---- incidents view --------------------------------------------------------
