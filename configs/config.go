@@ -375,6 +375,11 @@ type Alerts struct {
 	// (12h, chosen on the realism suite); a very long one (8760h) in effect
 	// never.
 	AcceptAfter time.Duration `yaml:"accept_after"`
+	// LocationQuiet: an incident whose location has had no channel over
+	// its own contribution limit this long of plant time, while the unit
+	// stays in alarm for another incident, ends. Zero: the alarm engine's
+	// default (15m, alerts.DefaultLocationQuiet).
+	LocationQuiet time.Duration `yaml:"location_quiet"`
 }
 
 // OnDelay is the "N of the last M frames" rule.
@@ -595,6 +600,9 @@ func (a Alerts) Over(base Alerts) Alerts {
 	}
 	if a.AcceptAfter == 0 {
 		a.AcceptAfter = base.AcceptAfter
+	}
+	if a.LocationQuiet == 0 {
+		a.LocationQuiet = base.LocationQuiet
 	}
 	return a
 }

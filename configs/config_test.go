@@ -394,3 +394,36 @@ func TestRenamedKeys(t *testing.T) {
 		t.Errorf("new keys not read: %+v %+v %q", c.Intake, c.Delivery, c.StateDir)
 	}
 }
+
+// TestLocationQuiet: alerts.location_quiet reaches a unit as written, a
+// unit may override it, zero leaves the alarm engine's default, and a
+// negative one is refused at its place.
+func TestLocationQuiet(t *testing.T) {
+	c, err := Parse("l.yaml", []byte(`
+alerts: {location_quiet: 30m}
+units:
+  - name: boiler
+    alerts: {location_quiet: 1h}
+  - name: air
+`))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if q := c.AlertsFor("boiler").LocationQuiet; q != time.Hour {
+		t.Errorf("boiler location_quiet = %v, want 1h", q)
+	}
+	if q := c.AlertsFor("air").LocationQuiet; q != 30*time.Minute {
+		t.Errorf("air location_quiet = %v, want 30m", q)
+	}
+	c, err = Parse("empty.yaml", nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if q := c.AlertsFor("any").LocationQuiet; q != 0 {
+		t.Errorf("default location_quiet = %v, want 0 (the alarm engine's default)", q)
+	}
+	_, err = Parse("n.yaml", []byte("alerts: {location_quiet: -5m}\n"))
+	if err == nil || !strings.Contains(err.Error(), "n.yaml:1:26: alerts.location_quiet") {
+		t.Errorf("negative location_quiet: got %v", err)
+	}
+}

@@ -352,6 +352,9 @@ func (v *validator) alerts(p string, a Alerts, partial bool) {
 	if a.OffDelay < 0 {
 		v.add(p+".off_delay", "negative")
 	}
+	if a.LocationQuiet < 0 {
+		v.add(p+".location_quiet", "negative")
+	}
 	if a.Deadband < 0 || a.Deadband >= 1 {
 		v.add(p+".deadband", "%g is not a fraction of the limit in [0, 1)", a.Deadband)
 	}

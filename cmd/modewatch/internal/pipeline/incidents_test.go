@@ -179,3 +179,26 @@ func TestSetpointStepAndRelationShift(t *testing.T) {
 		t.Error("relation shift: no incident naming the shifted channel first within 30 min")
 	}
 }
+
+// TestLocationQuietKey: alerts.location_quiet reaches the alarm rules of
+// the units, a unit's own value over the plant's, and none leaves the
+// alarm engine's default.
+func TestLocationQuietKey(t *testing.T) {
+	c := &configs.Config{
+		Alerts: configs.Alerts{LocationQuiet: 40 * time.Minute},
+		Units:  []configs.Unit{{Name: "air"}, {Name: "boiler", Alerts: configs.Alerts{LocationQuiet: time.Hour}}},
+	}
+	ac := AlertsConfig(c)
+	if q := ac.Rules.LocationQuiet; q != 40*time.Minute {
+		t.Errorf("plant location quiet %v, want 40m", q)
+	}
+	if q := ac.Units["air"].LocationQuiet; q != 40*time.Minute {
+		t.Errorf("air location quiet %v, want 40m", q)
+	}
+	if q := ac.Units["boiler"].LocationQuiet; q != time.Hour {
+		t.Errorf("boiler location quiet %v, want 1h", q)
+	}
+	if q := AlertsConfig(&configs.Config{}).Rules.LocationQuiet; q != 0 {
+		t.Errorf("unset location quiet %v, want 0 (alerts.DefaultLocationQuiet applies)", q)
+	}
+}

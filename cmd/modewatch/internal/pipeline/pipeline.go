@@ -141,6 +141,7 @@ func AlertsConfig(c *configs.Config) alerts.Config {
 			FreezeWhole:    a.LearnAroundAlert != nil && !*a.LearnAroundAlert,
 			SingleIncident: a.IncidentsPerLocation != nil && !*a.IncidentsPerLocation,
 			AcceptAfter:    a.AcceptAfter,
+			LocationQuiet:  a.LocationQuiet,
 		}
 		if r.OffDelay == 0 {
 			r.OffDelay = -1 // configured as zero: no off-delay
