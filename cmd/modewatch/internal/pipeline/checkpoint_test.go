@@ -66,64 +66,79 @@ func TestCheckpointRestore(t *testing.T) {
 	// state must come back too for the scores to match.
 	cfg := &configs.Config{Model: configs.Model{WarmUp: 100}}
 	cfg.ApplyDefaults()
+	if n := restartMatches(t, cfg, ch, period, frames, len(frames)/2, nil); n == 0 {
+		t.Log("no alert revisions after the checkpoint in this stretch of data")
+	}
+}
 
+// pubRec is what the restart tests compare of a published alert record.
+type pubRec struct {
+	id      string
+	rev     int
+	updated time.Time
+	end     bool
+}
+
+// restartMatches runs frames through one pipeline, and again through a
+// second one checkpointed after the first cut frames and a third restored
+// from that checkpoint, fed again from 10 frames before the cut: the
+// scores of every unit and the alert revisions published after the cut
+// must be bit for bit the uninterrupted run's. Each record of the
+// uninterrupted run also goes to seen (nil: none). It returns the number
+// of revisions compared.
+func restartMatches(t *testing.T, cfg *configs.Config, ch *stream.Channels, period time.Duration, frames []stream.Frame, cut int,
+	seen func(*alerts.Record)) int {
+	t.Helper()
 	record := func(dst map[string][]scoreRec) func(u *Unit, _ time.Time) {
 		return func(u *Unit, _ time.Time) {
 			s := u.Score()
 			dst[u.Name] = append(dst[u.Name], scoreRec{s.T2, s.SPE, s.Ready})
 		}
 	}
-	type pub struct {
-		id      string
-		rev     int
-		updated time.Time
-		end     bool
-	}
-	publisher := func(dst *[]pub) alerts.Publisher {
+	publisher := func(dst *[]pubRec, also func(*alerts.Record)) alerts.Publisher {
 		return alerts.PublisherFunc(func(r *alerts.Record) {
-			*dst = append(*dst, pub{r.ID, r.Revision, r.Updated, r.End != nil})
+			*dst = append(*dst, pubRec{r.ID, r.Revision, r.Updated, r.End != nil})
+			if also != nil {
+				also(r)
+			}
 		})
 	}
-	var wholePubs, secondPubs []pub
+	var wholePubs, secondPubs []pubRec
 	whole := map[string][]scoreRec{}
-	pa, err := New(Options{Config: cfg, Channels: ch, Period: period, OnScore: record(whole), Publisher: publisher(&wholePubs)})
+	pa, err := New(Options{Config: cfg, Channels: ch, Period: period, OnScore: record(whole), Publisher: publisher(&wholePubs, seen)})
 	if err != nil {
 		t.Fatal(err)
 	}
 	runFrames(t, pa, frames, nil)
 
-	half := len(frames) / 2
 	first := map[string][]scoreRec{}
 	pb, _ := New(Options{Config: cfg, Channels: ch, Period: period, OnScore: record(first)})
-	runFrames(t, pb, frames[:half], nil)
+	runFrames(t, pb, frames[:cut], nil)
 	dir := t.TempDir()
 	n, err := pb.WriteCheckpoints(dir)
-	if err != nil || n != 4 {
-		t.Fatalf("wrote %d checkpoints: %v", n, err)
+	if err != nil || n != len(whole) {
+		t.Fatalf("wrote %d checkpoints for %d units: %v", n, len(whole), err)
 	}
 
 	cks, errs := ReadCheckpoints(dir)
-	if len(errs) > 0 || len(cks) != 4 {
+	if len(errs) > 0 || len(cks) != n {
 		t.Fatalf("read %d checkpoints: %v", len(cks), errs)
 	}
 	second := map[string][]scoreRec{}
-	pc, _ := New(Options{Config: cfg, Channels: ch, Period: period, OnScore: record(second), Publisher: publisher(&secondPubs)})
+	pc, _ := New(Options{Config: cfg, Channels: ch, Period: period, OnScore: record(second), Publisher: publisher(&secondPubs, nil)})
 	restored, errs := pc.Restore(cks)
-	if len(errs) > 0 || len(restored) != 4 {
+	if len(errs) > 0 || len(restored) != n {
 		t.Fatalf("restored %v: %v", restored, errs)
 	}
 	// Redeliver 10 frames from before the checkpoint, then the rest.
-	runFrames(t, pc, frames[half-10:], nil)
+	runFrames(t, pc, frames[cut-10:], nil)
 	// The alert records published after the checkpoint are the same.
-	boundary := frames[half-1].Start
-	var want []pub
+	boundary := frames[cut-1].Start
+	var want []pubRec
 	for _, p := range wholePubs {
 		if p.updated.After(boundary) {
 			want = append(want, p)
 		}
-	}
-	if len(want) == 0 {
-		t.Log("no alert revisions after the checkpoint in this stretch of data")
 	}
 	if fmt.Sprint(want) != fmt.Sprint(secondPubs) {
 		t.Errorf("alert revisions after restore:\n%v\nuninterrupted:\n%v", secondPubs, want)
@@ -140,6 +155,7 @@ func TestCheckpointRestore(t *testing.T) {
 			}
 		}
 	}
+	return len(want)
 }
 
 // TestCheckpointMismatch: a damaged checkpoint or one made under other

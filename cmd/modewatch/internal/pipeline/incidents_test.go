@@ -12,6 +12,7 @@ import (
 
 	"modewatch/alerts"
 	"modewatch/configs"
+	"modewatch/stream"
 )
 
 // bench is an invented unit for the incident tests (invented data, as the
@@ -200,5 +201,42 @@ func TestLocationQuietKey(t *testing.T) {
 	}
 	if q := AlertsConfig(&configs.Config{}).Rules.LocationQuiet; q != 0 {
 		t.Errorf("unset location quiet %v, want 0 (alerts.DefaultLocationQuiet applies)", q)
+	}
+}
+
+// TestRestartInsideRecentring: a setpoint step is accepted as the new
+// normal after accept_after (2h here), and the accepted channels are
+// recentred over the next recentreFrames frames. A checkpoint cut at the
+// acceptance frame (the acceptance handed over, not yet taken up) and one
+// cut 10 frames into the window restore to the uninterrupted run's scores
+// and alert revisions bit for bit.
+func TestRestartInsideRecentring(t *testing.T) {
+	const period = 10 * time.Second
+	b := newBench(2)
+	b.run(2 * 24 * time.Hour)
+	b.level[0] = 3
+	b.run(3 * time.Hour)
+	ch, frames := collectFrames(t, b.lines.Bytes(), period)
+	cfg := &configs.Config{Alerts: configs.Alerts{AcceptAfter: 2 * time.Hour}}
+	cfg.ApplyDefaults()
+	var at time.Time
+	restartMatches(t, cfg, ch, period, frames, len(frames)-10, func(r *alerts.Record) {
+		if r.Accepted != nil && at.IsZero() {
+			at = r.Accepted.At
+		}
+	})
+	if at.IsZero() {
+		t.Fatal("no incident was accepted as the new normal")
+	}
+	k := slices.IndexFunc(frames, func(f stream.Frame) bool { return f.Start.Equal(at) })
+	if k < 0 {
+		t.Fatalf("no frame at the acceptance %v", at)
+	}
+	for _, after := range []int{0, 10} {
+		t.Run(fmt.Sprintf("cut %d frames after the acceptance", after), func(t *testing.T) {
+			if n := restartMatches(t, cfg, ch, period, frames, k+1+after, nil); n == 0 {
+				t.Error("no alert revision after the cut to compare")
+			}
+		})
 	}
 }

@@ -100,6 +100,64 @@ func (u *Unit) learnMask() []bool {
 	return m
 }
 
+// RecentreState is a recentring in progress (see learnMask): the channels
+// whose EW means are being moved to the mean of recentreFrames frames
+// after an acceptance, and how many of those frames are done. A
+// checkpoint carries it so that a restart inside the window goes on
+// where the uninterrupted run would.
+type RecentreState struct {
+	Channels []string `json:"channels"`
+	Done     int      `json:"done"` // frames done, 0 ≤ Done < recentreFrames
+}
+
+// recentreState returns the recentring in progress after the unit's last
+// frame, nil when there is none: an acceptance handed over by the alarm
+// engine but not yet taken up (it restarts the window at the next frame,
+// see learnMaskOnly) counts as a window with no frame done. Called under
+// p.mu; it changes nothing.
+func (u *Unit) recentreState() *RecentreState {
+	var s RecentreState
+	if u.recentK < recentreFrames && len(u.recent) == len(u.names) {
+		for k, on := range u.recent {
+			if on {
+				s.Channels = append(s.Channels, u.names[k])
+			}
+		}
+		s.Done = u.recentK
+	}
+	if u.mbox == nil {
+		u.mbox = u.p.masks.box(u.Name)
+	}
+	b := u.mbox
+	b.mu.Lock()
+	for _, n := range b.recentre {
+		if slices.Contains(u.names, n) && !slices.Contains(s.Channels, n) {
+			s.Channels = append(s.Channels, n)
+		}
+		s.Done = 0
+	}
+	b.mu.Unlock()
+	if len(s.Channels) == 0 || u.fixed {
+		return nil
+	}
+	slices.Sort(s.Channels)
+	return &s
+}
+
+// setRecentre restores a checkpoint's recentring in progress (nil: none).
+// Channels the unit does not hold are ignored.
+func (u *Unit) setRecentre(s *RecentreState) {
+	u.recentK = recentreFrames
+	if s == nil || s.Done < 0 || s.Done >= recentreFrames {
+		return
+	}
+	u.recent = make([]bool, len(u.names))
+	for k, n := range u.names {
+		u.recent[k] = slices.Contains(s.Channels, n)
+	}
+	u.recentK = s.Done
+}
+
 func (u *Unit) learnMaskOnly() []bool {
 	if u.mbox == nil {
 		u.mbox = u.p.masks.box(u.Name)

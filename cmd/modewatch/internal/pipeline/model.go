@@ -67,10 +67,12 @@ func TrackerConfig(m configs.Model, period time.Duration, p int, equal bool) (tr
 // ModelFormat and ModelVersion identify a model file written by fit.
 // Version 2 added each unit's data-quality profiles (ModelUnit.Quality);
 // a version 1 file still loads, its channels judged by the rules without a
-// profile, as when it was written.
+// profile, as when it was written. Version 3 added, in unit checkpoints,
+// the recentring of an accepted incident's channels in progress
+// (ModelUnit.Recentre); an older checkpoint loads with none in progress.
 const (
 	ModelFormat  = "modewatch-model"
-	ModelVersion = 2
+	ModelVersion = 3
 	// modelVersionMin is the oldest version this program reads.
 	modelVersionMin = 1
 )
@@ -131,6 +133,11 @@ type ModelUnit struct {
 	// Suggested lists channels of other units that explain a large share
 	// of this unit's variance in the fitted log: candidates for Context.
 	Suggested []ContextSuggestion `json:"context_suggested,omitempty"`
+	// Recentre is, in a unit checkpoint (version 3), the recentring of
+	// the channels of an incident just accepted as the new normal that is
+	// still in progress at the checkpoint's last frame; absent when none
+	// is.
+	Recentre *RecentreState `json:"recentre,omitempty"`
 }
 
 // LastReading is a channel's reading carried at a checkpoint's last frame.
