@@ -162,7 +162,7 @@ func runReplay(ctx context.Context, env IO, args []string) error {
 	}
 	sum := summarize(res, rec)
 	if tr != nil {
-		m := score(res, rec, sum, tr.Episodes, grace)
+		m := score(res, rec, sum, tr.Episodes, grace, holdOf(cfg))
 		sum.Metrics = &m
 	}
 	if reportDir != "" {
@@ -240,12 +240,26 @@ func (r *recorder) floods() int {
 
 // score scores the recorded alerts strictly against the episodes (see
 // evaluate.Compute), each channel in the unit the replay put it in.
-func score(res *pipeline.ReplayResult, rec *recorder, sum *summary, episodes []evaluate.Episode, grace time.Duration) evaluate.Metrics {
+func score(res *pipeline.ReplayResult, rec *recorder, sum *summary, episodes []evaluate.Episode, grace time.Duration,
+	hold func(string) time.Duration) evaluate.Metrics {
 	var from, to time.Time
 	if sum.From != nil {
 		from, to = *sum.From, sum.From.Add(sum.span)
 	}
-	return evaluate.Compute(evaluate.AlertsOf(rec.incidents()), episodes, scoreRun(res.Pipeline.Views(), from, to, grace))
+	run := scoreRun(res.Pipeline.Views(), from, to, grace)
+	run.Hold = hold
+	return evaluate.Compute(evaluate.AlertsOf(rec.incidents()), episodes, run)
+}
+
+// holdOf returns each unit's bounded hold under cfg (alerts.accept_after,
+// the alarm engine's default when unset) for the scorer's hold check.
+func holdOf(cfg *configs.Config) func(string) time.Duration {
+	return func(unit string) time.Duration {
+		if h := cfg.AlertsFor(unit).AcceptAfter; h != 0 {
+			return h
+		}
+		return alerts.DefaultAcceptAfter
+	}
 }
 
 // scoreRun is the scorer's view of a run over [from, to): the units of the

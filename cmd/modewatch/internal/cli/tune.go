@@ -251,7 +251,7 @@ func replayMetrics(ctx context.Context, cfg *configs.Config, inputs []string, ba
 	if err == nil && sum.Frames == 0 {
 		err = fmt.Errorf("%w: %d lines read, %d rejected", pipeline.ErrNoData, sum.Lines.Total, sum.Lines.Rejected)
 	}
-	m = score(res, rec, sum, tr.Episodes, grace)
+	m = score(res, rec, sum, tr.Episodes, grace, holdOf(cfg))
 	return m, sum.Frames, sum.Alerts, sum.Lines.Total, err
 }
 

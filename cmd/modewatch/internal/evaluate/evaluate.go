@@ -140,6 +140,10 @@ type Run struct {
 	// Units lists the units reported under Metrics.Units, in order; units
 	// that only appear in alerts are added after them, sorted.
 	Units []string
+	// Hold returns a unit's bounded hold (alerts.accept_after): an alert
+	// should not stay open past the end of the unit's episodes it overlaps
+	// (± grace) plus the hold. Nil, or a hold ≤ 0 for a unit: not checked.
+	Hold func(unit string) time.Duration
 }
 
 func (r Run) unitOf(ch string) string {
@@ -164,6 +168,10 @@ type Metrics struct {
 	FalseAlerts       int      `json:"false_alerts"`
 	FalseAlertsPerDay *float64 `json:"false_alerts_per_day"`
 	IsolatedTop3      int      `json:"isolated_top3"`
+	// OpenPastHold counts the alerts open longer than their episode plus
+	// the unit's bounded hold (see UnitMetrics.OpenPastHold); null when
+	// the run gave no hold.
+	OpenPastHold *int `json:"open_past_hold"`
 	// Per unit: alerts, false alerts, open share and longest alert.
 	Units []UnitMetrics `json:"units"`
 	// Per episode: the id of the first alert inside it ("" if missed),
@@ -183,6 +191,14 @@ type UnitMetrics struct {
 	// LongestOpenAlertS is the longest time one alert of the unit was open
 	// (until the end of the run for an alert still open), in seconds.
 	LongestOpenAlertS float64 `json:"longest_open_alert_s"`
+	// OpenPastHold counts the unit's alerts still open after the end of
+	// the latest of its episodes they overlap (extended by grace; the
+	// alert's start when it overlaps none) plus the unit's bounded hold
+	// (Run.Hold), until the end of the run for one still open;
+	// LongestPastHoldS is the longest such overrun, in seconds. Both 0
+	// when the run gives no hold.
+	OpenPastHold     int     `json:"open_past_hold"`
+	LongestPastHoldS float64 `json:"longest_past_hold_s"`
 }
 
 // Match says how one episode was seen.
@@ -213,6 +229,10 @@ type Match struct {
 //     where normal is [from, to) minus the unit's episodes ± grace and open
 //     is the union of its alerts' [start, end) (end = to while open);
 //     longest_open_alert_s is the longest such interval of one alert.
+//   - Per unit, with a bounded hold h (Run.Hold), an alert is open past
+//     its hold when its end (to while open) is later than
+//     max(start, end + grace of the unit's episodes it overlaps) + h: the
+//     target "no incident open longer than its episode plus accept_after".
 //
 // An alert inside two overlapping episodes of its unit detects both.
 func Compute(alerts []Alert, episodes []Episode, run Run) Metrics {
@@ -321,6 +341,10 @@ func Compute(alerts []Alert, episodes []Episode, run Run) Metrics {
 				um.LongestOpenAlertS = d
 			}
 			open = append(open, interval{a.Start, end})
+			if over := pastHold(a, end, u, episodes, epUnits, grace, run.Hold); over > 0 {
+				um.OpenPastHold++
+				um.LongestPastHoldS = max(um.LongestPastHoldS, over.Seconds())
+			}
 		}
 		normal := subtract([]interval{{run.From, run.To}}, excluded)
 		if total := length(normal); total > 0 {
@@ -328,6 +352,13 @@ func Compute(alerts []Alert, episodes []Episode, run Run) Metrics {
 			um.AlertOpenShareNormal = &share
 		}
 		m.Units = append(m.Units, *um)
+	}
+	if run.Hold != nil {
+		n := 0
+		for _, um := range m.Units {
+			n += um.OpenPastHold
+		}
+		m.OpenPastHold = &n
 	}
 
 	if m.Episodes > 0 {
@@ -348,6 +379,29 @@ func Compute(alerts []Alert, episodes []Episode, run Run) Metrics {
 		m.FalseAlertsPerDay = &r
 	}
 	return m
+}
+
+// pastHold returns how long alert a of unit u, open until end, stayed
+// open past the end of the latest of u's episodes it overlaps (extended by
+// grace; its start when none) plus u's hold; 0 when not past it or when
+// there is no hold.
+func pastHold(a Alert, end time.Time, u string, episodes []Episode, epUnits []map[string]bool, grace time.Duration,
+	hold func(string) time.Duration) time.Duration {
+	if hold == nil {
+		return 0
+	}
+	h := hold(u)
+	if h <= 0 {
+		return 0
+	}
+	due := a.Start
+	for i, e := range episodes {
+		from, to := e.Start.Add(-grace), e.End.Add(grace)
+		if epUnits[i][u] && a.Start.Before(to) && end.After(from) && to.After(due) {
+			due = to
+		}
+	}
+	return max(0, end.Sub(due.Add(h)))
 }
 
 // interval is [from, to) in event time.

@@ -133,3 +133,41 @@ func TestComputeStrict(t *testing.T) {
 		}
 	})
 }
+
+// TestComputePastHold checks the bounded-hold check of Compute with a hold
+// of 2 h on hand-made alerts over one day (minutes after t0, episode e1 of
+// the pump from 60 to 120, grace 15 min: due at 135 + 120 = 255); every
+// expected value is counted by hand from the doc comment of Compute.
+func TestComputePastHold(t *testing.T) {
+	day := 24 * time.Hour
+	hold := func(u string) time.Duration {
+		if u == "boiler" {
+			return 0 // not checked
+		}
+		return 2 * time.Hour
+	}
+	run := Run{From: t0, To: t0.Add(day), Grace: DefaultGrace, Units: []string{"boiler", "pump"}, Hold: hold}
+	e1 := ep("e1", 60, 120, "pump.p1.flow")
+	al := []Alert{
+		ual("p1", "pump", 70, 250, "pump.p1.flow"),      // in e1, ends before 255: fine
+		ual("p2", "pump", 90, 300, "pump.p1.flow"),      // in e1, 45 min past 255
+		ual("p3", "pump", 600, 700, "pump.p1.speed"),    // no episode: due 600 + 120 = 720, fine
+		ual("p4", "pump", 1000, -1, "pump.p1.speed"),    // no episode, open to 1440: 320 min past 1120
+		ual("b", "boiler", 70, -1, "boiler.b1.temp"),    // boiler: no hold, not checked
+		ual("p5", "pump", 130, 260, "pump.p1.pressure"), // starts in the grace of e1: due 255, 5 min past
+	}
+	m := Compute(al, []Episode{e1}, run)
+	if m.OpenPastHold == nil || *m.OpenPastHold != 3 {
+		t.Fatalf("open past hold %v, want 3", m.OpenPastHold)
+	}
+	b, p := m.Units[0], m.Units[1]
+	if b.OpenPastHold != 0 || b.LongestPastHoldS != 0 {
+		t.Errorf("boiler: %d past hold, longest %v s; want 0 (no hold)", b.OpenPastHold, b.LongestPastHoldS)
+	}
+	if p.OpenPastHold != 3 || p.LongestPastHoldS != 320*60 {
+		t.Errorf("pump: %d past hold, longest %v s; want 3 and %v", p.OpenPastHold, p.LongestPastHoldS, 320*60)
+	}
+	if m := Compute(al, []Episode{e1}, Run{From: t0, To: t0.Add(day), Grace: DefaultGrace}); m.OpenPastHold != nil || m.Units[1].OpenPastHold != 0 {
+		t.Errorf("without a hold: %v past hold, pump %d; want null and 0", m.OpenPastHold, m.Units[1].OpenPastHold)
+	}
+}
