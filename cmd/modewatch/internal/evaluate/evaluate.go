@@ -192,8 +192,8 @@ type UnitMetrics struct {
 	// (until the end of the run for an alert still open), in seconds.
 	LongestOpenAlertS float64 `json:"longest_open_alert_s"`
 	// OpenPastHold counts the unit's alerts still open after the end of
-	// the latest of its episodes they overlap (extended by grace; the
-	// alert's start when it overlaps none) plus the unit's bounded hold
+	// the latest of its episodes they started in (extended by grace; the
+	// alert's start when none) plus the unit's bounded hold
 	// (Run.Hold), until the end of the run for one still open;
 	// LongestPastHoldS is the longest such overrun, in seconds. Both 0
 	// when the run gives no hold.
@@ -231,7 +231,7 @@ type Match struct {
 //     longest_open_alert_s is the longest such interval of one alert.
 //   - Per unit, with a bounded hold h (Run.Hold), an alert is open past
 //     its hold when its end (to while open) is later than
-//     max(start, end + grace of the unit's episodes it overlaps) + h: the
+//     max(start, end + grace of the unit's episodes it started in) + h: the
 //     target "no incident open longer than its episode plus accept_after".
 //
 // An alert inside two overlapping episodes of its unit detects both.
@@ -382,9 +382,10 @@ func Compute(alerts []Alert, episodes []Episode, run Run) Metrics {
 }
 
 // pastHold returns how long alert a of unit u, open until end, stayed
-// open past the end of the latest of u's episodes it overlaps (extended by
-// grace; its start when none) plus u's hold; 0 when not past it or when
-// there is no hold.
+// open past the end of the latest of u's episodes it started in (extended
+// by grace; its start when none) plus u's hold; 0 when not past it or when
+// there is no hold. An alert that stays open into later episodes is
+// measured from its own: it swallowed them.
 func pastHold(a Alert, end time.Time, u string, episodes []Episode, epUnits []map[string]bool, grace time.Duration,
 	hold func(string) time.Duration) time.Duration {
 	if hold == nil {
@@ -397,7 +398,7 @@ func pastHold(a Alert, end time.Time, u string, episodes []Episode, epUnits []ma
 	due := a.Start
 	for i, e := range episodes {
 		from, to := e.Start.Add(-grace), e.End.Add(grace)
-		if epUnits[i][u] && a.Start.Before(to) && end.After(from) && to.After(due) {
+		if epUnits[i][u] && !a.Start.Before(from) && !a.Start.After(to) && to.After(due) {
 			due = to
 		}
 	}
