@@ -9,12 +9,13 @@ const DefaultRobust = 3
 
 // learnWork is the scratch of the learning pass, sized in New.
 type learnWork struct {
-	w  *work
-	xl []float64 // the frame as learned: masked channels reconstructed
+	w   *work
+	xl  []float64 // the frame as learned: masked channels reconstructed
+	dec []float64 // addConditional: the pending decay of each channel of the pattern
 }
 
 func newLearnWork(p, maxR int) *learnWork {
-	return &learnWork{w: newWork(p, maxR), xl: make([]float64, p)}
+	return &learnWork{w: newWork(p, maxR), xl: make([]float64, p), dec: make([]float64, p)}
 }
 
 // StepMasked is Step with learning around faults. It scores x like Step;
@@ -129,22 +130,32 @@ func (t *Tracker) learnFrame(r float64, x []float64, mask []bool) ([]float64, fl
 // this frame's and the later frames' only, as if the batch had been
 // folded in first. The batch is left as it is, so a checkpoint (which
 // stores it) restores the same numbers.
+//
+// Each masked channel's pending decay (a product over the batch) is taken
+// once per frame, so the term costs O(k·B + k²) for k masked channels and
+// B pending frames, not O(k²·B).
 func (t *Tracker) addConditional(pt *pattern, mask []bool, wt float64) {
 	e := t.ew
 	k, n := len(pt.miss), e.p
+	dec := t.lw.dec[:k]
+	for x, i := range pt.miss {
+		if mask[i] && t.obs[i] {
+			dec[x] = e.pendingDecay(i)
+		}
+	}
 	for x, i := range pt.miss {
 		if !mask[i] || !t.obs[i] {
 			continue
 		}
 		a := e.wstep(e.count[i]+1, wt)
 		si := math.Sqrt(e.vari[i])
-		di := e.pendingDecay(i)
+		di := dec[x]
 		for y, j := range pt.miss {
 			if !mask[j] || !t.obs[j] || j < i {
 				continue
 			}
 			c := a * pt.kc[x*k+y] * si * math.Sqrt(e.vari[j])
-			e.cov.Data[i*n+j] += c / (di * e.pendingDecay(j))
+			e.cov.Data[i*n+j] += c / (di * dec[y])
 			if i == j {
 				e.vari[i] += c
 			}

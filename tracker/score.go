@@ -301,19 +301,28 @@ func (m *model) conditional(pt *pattern, ridge float64) error {
 	k, p := len(pt.miss), m.p
 	u := m.chol
 	h := pt.h[:k*p]
-	// Rows of Ω = U⁻¹U⁻ᵀ for the missing channels, into h.
+	// Rows of Ω = U⁻¹U⁻ᵀ for the missing channels, into h. The solves of
+	// all missing channels go row by row of U together (each row read once
+	// for all of them while it is in cache); each channel's arithmetic is
+	// that of its own solve.
 	for x, i := range pt.miss {
 		y := h[x*p : (x+1)*p]
 		for j := range y {
 			y[j] = 0
 		}
-		// Forward: Uᵀ y = eᵢ (y is zero before i), by rows of U.
 		y[i] = 1
-		for r := i; r < p; r++ {
+	}
+	// Forward: Uᵀ y = eᵢ (y is zero before i), by rows of U.
+	for r := slices.Min(pt.miss); r < p; r++ {
+		row := u[r*p+r+1 : r*p+p]
+		for x, i := range pt.miss {
+			if i > r {
+				continue // y is still zero up to i
+			}
+			y := h[x*p : (x+1)*p]
 			v := y[r] / u[r*p+r]
 			y[r] = v
 			if v != 0 {
-				row := u[r*p+r+1 : r*p+p]
 				yy := y[r+1 : p]
 				yy = yy[:len(row)]
 				for c, uv := range row {
@@ -321,9 +330,13 @@ func (m *model) conditional(pt *pattern, ridge float64) error {
 				}
 			}
 		}
-		// Backward: U w = y, in place.
-		for r := p - 1; r >= 0; r-- {
-			y[r] = (y[r] - dot(u[r*p+r+1:r*p+p], y[r+1:p])) / u[r*p+r]
+	}
+	// Backward: U w = y, in place.
+	for r := p - 1; r >= 0; r-- {
+		row := u[r*p+r+1 : r*p+p]
+		for x := range pt.miss {
+			y := h[x*p : (x+1)*p]
+			y[r] = (y[r] - dot(row, y[r+1:p])) / u[r*p+r]
 		}
 	}
 	// Ω_mm into kc and its Cholesky factor (lower) into the pattern's fac.
