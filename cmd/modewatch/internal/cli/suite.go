@@ -33,23 +33,23 @@ type suiteOptions struct {
 
 // suiteRow is one plant's line of the suite table (and of --json).
 type suiteRow struct {
-	Plant        string                 `json:"plant"`
-	Period       string                 `json:"period"`
-	Channels     int                    `json:"channels"`
-	Units        int                    `json:"units"`
-	NormalDays   float64                `json:"normal_days"`
-	TestDays     float64                `json:"test_days"`
-	Metrics      evaluate.Metrics       `json:"metrics"`
-	WorstUnit    string                 `json:"worst_unit"`     // the unit with the largest open share
-	OpenShare    *float64               `json:"open_share"`     // that unit's alert_open_share_normal
-	LongestOpenS float64                `json:"longest_open_s"` // the longest open alert of any unit
+	Plant        string           `json:"plant"`
+	Period       string           `json:"period"`
+	Channels     int              `json:"channels"`
+	Units        int              `json:"units"`
+	NormalDays   float64          `json:"normal_days"`
+	TestDays     float64          `json:"test_days"`
+	Metrics      evaluate.Metrics `json:"metrics"`
+	WorstUnit    string           `json:"worst_unit"`     // the unit with the largest open share
+	OpenShare    *float64         `json:"open_share"`     // that unit's alert_open_share_normal
+	LongestOpenS float64          `json:"longest_open_s"` // the longest open alert of any unit
 	// PastHold counts the alerts open longer than their episode plus the
 	// unit's accept_after (evaluate.UnitMetrics.OpenPastHold), over the
 	// plant; LongestPastHoldS is the longest overrun.
-	PastHold         int     `json:"open_past_hold"`
-	LongestPastHoldS float64 `json:"longest_past_hold_s"`
-	Kinds        map[string]suiteDetect `json:"by_kind"`
-	Error        string                 `json:"error,omitempty"`
+	PastHold         int                    `json:"open_past_hold"`
+	LongestPastHoldS float64                `json:"longest_past_hold_s"`
+	Kinds            map[string]suiteDetect `json:"by_kind"`
+	Error            string                 `json:"error,omitempty"`
 }
 
 // suiteDetect counts the episodes of one fault kind and how many were
