@@ -46,6 +46,11 @@ type Options struct {
 	// returns false is neither scored nor learned (fit's calibration
 	// learns on one part of a log and scores the other).
 	Keep func(t time.Time) bool
+	// Workers is the number of goroutines that step the units' trackers
+	// of a frame in parallel (0 or 1: the frame goroutine alone). With
+	// more than one, Close stops them. Scores and alert records are the
+	// same whatever the number (see Unit.finish).
+	Workers int
 }
 
 // Pipeline routes frames to units. Frame must be called from one goroutine
@@ -73,6 +78,7 @@ type Pipeline struct {
 	stale  time.Duration // staleness limit of the frames (silence.go)
 	cross  crossStats    // fit: cross-products for context suggestions (suggest.go)
 	masks  masks         // per unit: channels learned as their reconstruction (location.go)
+	pool   *pool         // scoring workers (pool.go)
 }
 
 // OrDefaults gives the nil Config and Log fields of the options structs
@@ -122,6 +128,7 @@ func New(opt Options) (*Pipeline, error) {
 			}
 		}
 	}
+	p.pool = newPool(opt.Workers) // last: nothing after it can fail
 	return p, nil
 }
 
@@ -265,13 +272,25 @@ func (p *Pipeline) Frame(f *stream.Frame) error {
 	if p.opt.Fit {
 		p.addCross(f)
 	}
-	var errs []error
+	if len(p.pool.workers) == 1 {
+		var errs []error
+		for _, u := range p.units {
+			if err := u.step(f); err != nil {
+				errs = append(errs, err)
+			}
+		}
+		return errors.Join(errs...)
+	}
+	p.pool.place(p.units)
+	p.pool.learn(f)
 	for _, u := range p.units {
-		if err := u.step(f); err != nil {
-			errs = append(errs, err)
+		if u.parallel() {
+			u.finish(f)
+		} else {
+			u.step(f) // whole, in unit order (see Unit.parallel)
 		}
 	}
-	return errors.Join(errs...)
+	return nil
 }
 
 // Frames returns the number of frames seen and the start times of the

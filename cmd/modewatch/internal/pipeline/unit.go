@@ -89,6 +89,9 @@ type Unit struct {
 	recent  []bool // channels being recentred after an acceptance
 	recentK int    // frames of the recentring done (recentreFrames: none pending)
 
+	pending int // what stepModel left for finish (pendNone, ...)
+	worker  int // 1 + index of the scoring worker that steps this unit (pool.go); 0: none yet
+
 }
 
 func newUnit(p *Pipeline, name string) *Unit {
@@ -222,14 +225,26 @@ func (u *Unit) build() error {
 	return nil
 }
 
-// step scores frame f for this unit. Called under p.mu.
+// step scores frame f for this unit and hands the score on. Called under
+// p.mu.
 func (u *Unit) step(f *stream.Frame) error {
+	u.stepModel(f)
+	u.finish(f)
+	return nil
+}
+
+// stepModel steps the unit's tracker over frame f (the costly part of a frame)
+// and leaves what to hand on for finish. For a unit whose parallel() holds
+// it touches only the unit's own state, so the stepModel calls of different
+// units run in parallel (pool.go). Called under p.mu.
+func (u *Unit) stepModel(f *stream.Frame) {
+	u.pending = pendNone
 	if u.failed != nil {
-		return nil
+		return
 	}
 	if !f.Start.After(u.skipUntil) && !u.skipUntil.IsZero() {
 		u.skipped++
-		return nil // scored before the restart
+		return // scored before the restart
 	}
 	switch {
 	case u.tr == nil:
@@ -237,7 +252,7 @@ func (u *Unit) step(f *stream.Frame) error {
 		if err := u.build(); err != nil {
 			u.failed = err
 			u.p.log.Error("unit is not monitored", "unit", u.Name, "err", err)
-			return nil
+			return
 		}
 	case len(u.idx) > len(u.x):
 		u.grow() // channels discovered since
@@ -262,12 +277,12 @@ func (u *Unit) step(f *stream.Frame) error {
 		// had none for longer than the staleness since the run began (the
 		// first frames of a run may precede a unit's first reading).
 		if !u.lastT.IsZero() || f.Start.Sub(u.p.first) > u.p.stale {
-			u.observeSilent(f.Start)
+			u.pending = pendSilent
 		}
-		return nil
+		return
 	}
 	if u.states != nil && !u.enterState(f) {
-		return nil // no operating state yet
+		return // no operating state yet
 	}
 	want := u.fixed || u.alertFrozen.Load()
 	if want != u.frozen {
@@ -298,7 +313,7 @@ func (u *Unit) step(f *stream.Frame) error {
 		if u.stepErrors <= 10 {
 			u.p.log.Warn("frame not scored", "unit", u.Name, "time", f.Start, "err", err)
 		}
-		return nil
+		return
 	}
 	u.frames++
 	if u.states != nil {
@@ -309,12 +324,38 @@ func (u *Unit) step(f *stream.Frame) error {
 	}
 	u.lastT = f.Start
 	u.keepLast(f)
-	u.observe(f.Start)
-	if u.p.opt.OnScore != nil {
-		u.p.opt.OnScore(u, f.Start)
-	}
-	return nil
+	u.pending = pendScored
 }
+
+// What finish hands on after learn.
+const (
+	pendNone   = iota
+	pendSilent // the unit lost its readings: a silent observation
+	pendScored // a score: an observation and OnScore
+)
+
+// finish hands what stepModel left to the alarm engine and to OnScore. The
+// finish calls of one frame run one after the other in unit order,
+// whatever the number of workers, so that alert records come out in the
+// same order as from a single worker. Called under p.mu.
+func (u *Unit) finish(f *stream.Frame) {
+	switch u.pending {
+	case pendSilent:
+		u.observeSilent(f.Start)
+	case pendScored:
+		u.observe(f.Start)
+		if u.p.opt.OnScore != nil {
+			u.p.opt.OnScore(u, f.Start)
+		}
+	}
+	u.pending = pendNone
+}
+
+// parallel reports whether stepModel may run on a worker: it then touches only
+// the unit's own state. A unit with operating states tells the alarm
+// engine about new states from inside stepModel, so it is stepped whole, in
+// unit order (see Pipeline.Frame).
+func (u *Unit) parallel() bool { return u.states == nil }
 
 // noReading marks a channel without a carried reading in lastAt.
 const noReading = math.MinInt64

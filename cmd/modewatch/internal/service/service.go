@@ -199,7 +199,7 @@ func Start(ctx context.Context, opt Options) (_ *Service, err error) {
 	}
 	s.pl, err = pipeline.New(pipeline.Options{
 		Config: cfg, Channels: chans, Period: period, Publisher: s, OnScore: s.onScore, Baseline: baseline,
-		Log: log,
+		Log: log, Workers: pipeline.DefaultWorkers(),
 	})
 	if err != nil {
 		return nil, err
@@ -622,6 +622,7 @@ func (s *Service) Shutdown(ctx context.Context) error {
 			errs = append(errs, s.ctl.Close(ctx))
 		}
 		errs = append(errs, s.Checkpoint())
+		s.pl.Close()
 		if s.sinks != nil {
 			// Half the time left at most: the rest of the shutdown needs
 			// some, and what is not delivered stays in the spools.
@@ -681,6 +682,9 @@ func (s *Service) abort() {
 	}
 	if s.ctl != nil {
 		_ = s.ctl.Close(context.Background())
+	}
+	if s.pl != nil {
+		s.pl.Close()
 	}
 	if s.sinks != nil {
 		_ = s.sinks.Close(context.Background())
