@@ -43,7 +43,7 @@ func (f fakeInst) Gain(_ context.Context, u string) error {
 }
 
 func (f fakeInst) Release(_ context.Context, u string) error { f.drop(u); return nil }
-func (f fakeInst) Lose(u string)                            { f.drop(u) }
+func (f fakeInst) Lose(u string)                             { f.drop(u) }
 func (f fakeInst) drop(u string) {
 	f.w.mu.Lock()
 	defer f.w.mu.Unlock()
