@@ -116,6 +116,9 @@ type Config struct {
 	ShutdownTimeout time.Duration `yaml:"shutdown_timeout"`
 	// Log configures log/slog output.
 	Log Log `yaml:"log"`
+	// Cluster spreads the units over several instances (off unless
+	// cluster.instance is set).
+	Cluster Cluster `yaml:"cluster"`
 
 	// Where each key was found, when loaded from a file (see Where).
 	file string
@@ -477,6 +480,7 @@ func (c *Config) ApplyDefaults() {
 	if c.Log.Level == "" {
 		c.Log.Level = DefaultLogLevel
 	}
+	c.applyClusterDefaults()
 }
 
 // DefaultModel returns the default model settings.

@@ -22,6 +22,7 @@ func (c *Config) Validate() error {
 	v.alerts("alerts", c.Alerts, false)
 	c.validateDelivery(v)
 	c.HTTP.validate(v)
+	c.validateCluster(v)
 	if c.CheckpointInterval < 0 || (c.CheckpointInterval > 0 && c.CheckpointInterval < time.Second) {
 		v.add("checkpoint_interval", "%v is too short (at least 1s)", c.CheckpointInterval)
 	}

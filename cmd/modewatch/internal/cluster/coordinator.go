@@ -2,6 +2,7 @@ package cluster
 
 import (
 	"context"
+	"encoding/json"
 	"errors"
 	"fmt"
 	"log/slog"
@@ -75,11 +76,13 @@ type Coordinator struct {
 	log *slog.Logger
 
 	started time.Time
-	lastOK  time.Time        // last round whose renewals all reached the server
-	held    map[string]Lease // the leases this instance holds
+	lastOK  time.Time            // last round whose renewals all reached the server
+	held    map[string]Lease     // the leases this instance holds
+	failed  map[string]time.Time // units whose Gain failed, and when
 
-	mu     sync.Mutex
-	status Status
+	mu       sync.Mutex
+	status   Status
+	forfeits map[string]bool // units the handler could not keep running
 
 	wake chan struct{}
 	stop chan struct{}
@@ -101,7 +104,7 @@ func NewCoordinator(reg *Registry, cfg CoordinatorConfig, h Handler) (*Coordinat
 	if cfg.Now == nil {
 		cfg.Now = time.Now
 	}
-	return &Coordinator{reg: reg, cfg: cfg, h: h, log: cfg.Log, held: map[string]Lease{},
+	return &Coordinator{reg: reg, cfg: cfg, h: h, log: cfg.Log, held: map[string]Lease{}, failed: map[string]time.Time{},
 		wake: make(chan struct{}, 1), stop: make(chan struct{}), done: make(chan struct{}),
 		status: Status{Instance: cfg.Instance}}, nil
 }
@@ -135,12 +138,12 @@ func (c *Coordinator) Run(ctx context.Context) {
 	}
 }
 
-// watch wakes a round when an instance appears, or a lease or an
-// announcement is deleted (a hand-over, a graceful stop). Renewals do not
-// wake it (they would start rounds in a loop); expiries produce no event,
-// the periodic round finds them.
+// watch wakes a round when an instance appears, a lease changes hands, or
+// a lease or an announcement is deleted (a hand-over, a graceful stop).
+// Renewals do not wake it (they would start rounds in a loop); expiries
+// produce no event, the periodic round finds them.
 func (c *Coordinator) watch(ctx context.Context) {
-	seen := map[string]bool{}
+	seen := map[string]string{} // key → owner (leases), "x" (announcements)
 	for ctx.Err() == nil {
 		w, err := c.reg.KV().WatchAll(ctx)
 		if err != nil {
@@ -164,10 +167,22 @@ func (c *Coordinator) watch(ctx context.Context) {
 				continue
 			}
 			k := e.Key()
-			wake := e.Operation() != jetstream.KeyValuePut
-			if strings.HasPrefix(k, memberPrefix) {
-				wake = wake || !seen[k]
-				seen[k] = e.Operation() == jetstream.KeyValuePut
+			put := e.Operation() == jetstream.KeyValuePut
+			wake := !put
+			switch {
+			case strings.HasPrefix(k, memberPrefix):
+				wake = wake || seen[k] == ""
+				seen[k] = "x"
+			case put:
+				// A lease changing hands; its renewals do not wake.
+				var l Lease
+				if json.Unmarshal(e.Value(), &l) == nil {
+					wake = seen[k] != l.Owner
+					seen[k] = l.Owner
+				}
+			}
+			if !put {
+				delete(seen, k)
 			}
 			if wake {
 				select {
@@ -178,6 +193,22 @@ func (c *Coordinator) watch(ctx context.Context) {
 		}
 		close(stopped)
 		_ = w.Stop()
+	}
+}
+
+// Forfeit gives up unit's lease at the next round without calling the
+// Handler: the handler stopped the unit on its own (it could not run it).
+// Another instance, or this one after a pause, takes it.
+func (c *Coordinator) Forfeit(unit string) {
+	c.mu.Lock()
+	if c.forfeits == nil {
+		c.forfeits = map[string]bool{}
+	}
+	c.forfeits[unit] = true
+	c.mu.Unlock()
+	select {
+	case c.wake <- struct{}{}:
+	default:
 	}
 }
 
@@ -210,6 +241,19 @@ func (c *Coordinator) round(ctx context.Context) error {
 	defer cancel()
 	now := c.cfg.Now()
 	var errs []error
+	c.mu.Lock()
+	forfeits := c.forfeits
+	c.forfeits = nil
+	c.mu.Unlock()
+	for u := range forfeits {
+		if l, ok := c.held[u]; ok {
+			if err := c.reg.Release(rctx, l); err != nil && !errors.Is(err, ErrLost) {
+				errs = append(errs, err)
+			}
+			delete(c.held, u)
+			c.failed[u] = now
+		}
+	}
 	renewed := true
 	for _, u := range slices.Sorted(maps.Keys(c.held)) {
 		l, err := c.reg.Renew(rctx, c.held[u])
@@ -283,6 +327,9 @@ func (c *Coordinator) round(ctx context.Context) error {
 		if l, ok := snap.Leases[u]; ok && l.Owner != c.cfg.Instance {
 			continue // held by its old owner until released or expired
 		}
+		if t, ok := c.failed[u]; ok && now.Sub(t) < c.cfg.Every {
+			continue // failed lately: not again before the next periodic round
+		}
 		l, err := c.reg.Acquire(rctx, u, c.cfg.Instance, c.cfg.Now())
 		if err != nil {
 			if !errors.Is(err, ErrHeld) {
@@ -291,12 +338,14 @@ func (c *Coordinator) round(ctx context.Context) error {
 			continue
 		}
 		if err := c.h.Gain(rctx, u); err != nil {
+			c.failed[u] = now
 			errs = append(errs, fmt.Errorf("cluster: take %s: %w", u, err))
 			if rerr := c.reg.Release(rctx, l); rerr != nil && !errors.Is(rerr, ErrLost) {
 				errs = append(errs, rerr)
 			}
 			continue
 		}
+		delete(c.failed, u)
 		c.log.Info("unit taken", "unit", u)
 		c.held[u] = l
 		snap.Leases[u] = l

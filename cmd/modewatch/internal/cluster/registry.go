@@ -65,7 +65,11 @@ type Registry struct {
 	ttl time.Duration
 }
 
-// OpenRegistry creates or updates the bucket and returns its Registry.
+// OpenRegistry binds to the bucket, creating it when missing (an
+// existing bucket is used as it is: its TTL must be the lease TTL every
+// instance uses). Instances starting together race to create it; the
+// losers bind to the winner's. Each attempt is bounded by 5 s, all of
+// them by ctx.
 func OpenRegistry(ctx context.Context, js jetstream.JetStream, cfg RegistryConfig) (*Registry, error) {
 	if cfg.TTL <= 0 {
 		return nil, errors.New("cluster: lease TTL must be positive")
@@ -76,14 +80,44 @@ func OpenRegistry(ctx context.Context, js jetstream.JetStream, cfg RegistryConfi
 	if cfg.Replicas == 0 {
 		cfg.Replicas = 1
 	}
-	kv, err := js.CreateOrUpdateKeyValue(ctx, jetstream.KeyValueConfig{
-		Bucket: cfg.Bucket, Description: "modewatch instances and unit leases",
-		History: 1, TTL: cfg.TTL, Replicas: cfg.Replicas, Storage: jetstream.FileStorage,
+	kv, err := Retry(ctx, func(ctx context.Context) (jetstream.KeyValue, error) {
+		kv, err := js.KeyValue(ctx, cfg.Bucket)
+		if errors.Is(err, jetstream.ErrBucketNotFound) {
+			kv, err = js.CreateKeyValue(ctx, jetstream.KeyValueConfig{
+				Bucket: cfg.Bucket, Description: "modewatch instances and unit leases",
+				History: 1, TTL: cfg.TTL, Replicas: cfg.Replicas, Storage: jetstream.FileStorage,
+			})
+		}
+		return kv, err
 	})
 	if err != nil {
 		return nil, fmt.Errorf("cluster: bucket %s: %w", cfg.Bucket, err)
 	}
+	st, err := kv.Status(ctx)
+	if err == nil && st.TTL() != cfg.TTL {
+		return nil, fmt.Errorf("cluster: bucket %s has a TTL of %v, this instance's lease TTL is %v: every instance must use the same", cfg.Bucket, st.TTL(), cfg.TTL)
+	}
 	return &Registry{kv: kv, ttl: cfg.TTL}, nil
+}
+
+// Retry calls f with a context bounded by 5 s until it succeeds or ctx
+// ends, waiting 200 ms between attempts; it returns the last error. A
+// cluster still electing leaders, or two instances creating the same
+// bucket at once, fail an attempt or two.
+func Retry[T any](ctx context.Context, f func(context.Context) (T, error)) (T, error) {
+	for {
+		actx, cancel := context.WithTimeout(ctx, 5*time.Second)
+		v, err := f(actx)
+		cancel()
+		if err == nil {
+			return v, nil
+		}
+		select {
+		case <-ctx.Done():
+			return v, err
+		case <-time.After(200 * time.Millisecond):
+		}
+	}
 }
 
 // TTL returns the lifetime of an entry without renewal.

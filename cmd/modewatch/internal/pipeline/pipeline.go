@@ -228,7 +228,7 @@ func (p *Pipeline) assign() {
 		name := p.unitOf(c)
 		u := p.byName[name]
 		if u == nil {
-			u = p.newUnit(name)
+			u = p.rebuild(name)
 		}
 		if u.addChannel(i, c.Name) {
 			p.owner[i] = u

@@ -130,3 +130,19 @@ func (p *Pipeline) Close() {
 	defer p.mu.Unlock()
 	p.pool.close()
 }
+
+// forget takes a removed unit off its worker.
+func (w *pool) forget(u *Unit) {
+	if !u.placed() {
+		return
+	}
+	pw := &w.workers[min(u.worker-1, len(w.workers)-1)]
+	for i, v := range pw.units {
+		if v == u {
+			pw.units = append(pw.units[:i], pw.units[i+1:]...)
+			pw.channels -= max(len(u.idx), 1)
+			break
+		}
+	}
+	w.assigned--
+}

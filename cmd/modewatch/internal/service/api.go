@@ -25,7 +25,8 @@ const Caution = "modewatch is advisory: it never acts on the plant. Verify every
 //	GET  /readyz                      connected to NATS and consuming (503 otherwise)
 //	GET  /metrics                     Prometheus text exposition
 //	GET  /api                         index and caution
-//	GET  /api/units                   every unit: state, latest scores and limits
+//	GET  /api/units                   every unit: state, latest scores and limits (in a cluster: and owner)
+//	GET  /api/cluster                 the cluster's instances and which units each owns
 //	GET  /api/units/{unit}            one unit with its modes (channels, loadings)
 //	GET  /api/alerts                  open alert records (?all=1: the recent ones, open or closed)
 //	POST /api/alerts/{op}             op = ack | shelve | unshelve; body {"alert_id", "by", ...}
@@ -64,8 +65,9 @@ func (s *Service) routes() http.Handler {
 		for i := range views {
 			views[i].Modes = nil // listed per unit
 		}
-		writeJSON(w, http.StatusOK, views)
+		writeJSON(w, http.StatusOK, s.unitViews(views))
 	})
+	mux.HandleFunc("GET /api/cluster", s.clusterRoute)
 	mux.HandleFunc("GET /api/units/{unit}", func(w http.ResponseWriter, r *http.Request) {
 		name := r.PathValue("unit")
 		for _, v := range s.pl.Views() {

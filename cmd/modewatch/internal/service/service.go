@@ -80,6 +80,8 @@ type Service struct {
 	met   *metrics
 	hist  *statuspage.History // trends of the status page
 	page  *statuspage.Page
+	clu   *clusterPart                // nil unless cluster.instance is set
+	cluOn atomic.Pointer[clusterPart] // clu, for the NATS event callback
 
 	recMu  sync.Mutex
 	recent map[string]alerts.Record // latest revision of recent records, by id
@@ -171,7 +173,7 @@ func Start(ctx context.Context, opt Options) (_ *Service, err error) {
 		User: user, Password: password, Token: cfg.Server.Token,
 		NKeySeedFile: cfg.Server.NKeySeedFile, CredentialsFile: cfg.Server.CredentialsFile,
 		TLS:     natsource.TLSOptions{CAFile: cfg.Server.TLS.CA, CertFile: cfg.Server.TLS.Cert, KeyFile: cfg.Server.TLS.Key},
-		OnEvent: s.met.natsEvent,
+		OnEvent: func(e natsource.Event) { s.met.natsEvent(e); s.clusterEvent(e) },
 	}, log.With("component", "nats"))
 	if err != nil {
 		return nil, err
@@ -204,7 +206,10 @@ func Start(ctx context.Context, opt Options) (_ *Service, err error) {
 	if err != nil {
 		return nil, err
 	}
-	seeds := s.restore()
+	var seeds []pipeline.LastReading
+	if !cfg.Cluster.Enabled() { // in a cluster, units are restored as they are taken
+		seeds = s.restore()
+	}
 	if opt.Prepare != nil {
 		if err := opt.Prepare(s.pl); err != nil {
 			return nil, err
@@ -240,7 +245,9 @@ func Start(ctx context.Context, opt Options) (_ *Service, err error) {
 	}
 
 	// Readings.
-	if js := cfg.Intake.JetStream; js.Stream != "" {
+	if cfg.Cluster.Enabled() {
+		s.info.Readings = []string{"jetstream " + cfg.Intake.JetStream.Stream + ", one consumer per owned unit on " + cfg.Cluster.UnitSubject}
+	} else if js := cfg.Intake.JetStream; js.Stream != "" {
 		durable := js.Durable
 		if durable == "" {
 			durable = "modewatch"
@@ -281,6 +288,11 @@ func Start(ctx context.Context, opt Options) (_ *Service, err error) {
 		return nil, err
 	}
 
+	if cfg.Cluster.Enabled() {
+		if err := s.startCluster(ctx, chans, stream.Options{Align: pipeline.AlignConfig(cfg.Frames, period), Precision: prec}); err != nil {
+			return nil, err
+		}
+	}
 	s.wg.Add(1)
 	go s.checkpointLoop()
 	every, stall := tickTiming(period, cfg.Frames.Lateness)
@@ -608,6 +620,7 @@ func (s *Service) Shutdown(ctx context.Context) error {
 	s.stopOnce.Do(func() {
 		s.log.Info("shutting down")
 		s.ready.Store(false)
+		errs = append(errs, s.stopCluster(ctx)) // hand units over first
 		close(s.done)
 		if s.core != nil {
 			errs = append(errs, s.core.Stop(ctx))
@@ -682,6 +695,11 @@ func (s *Service) abort() {
 	}
 	if s.ctl != nil {
 		_ = s.ctl.Close(context.Background())
+	}
+	if s.clu != nil {
+		s.clu.cancel()
+		<-s.clu.done
+		s.clu.host.Stop(context.Background())
 	}
 	if s.pl != nil {
 		s.pl.Close()

@@ -1,0 +1,370 @@
+package cli
+
+import (
+	"bufio"
+	"context"
+	"encoding/json"
+	"fmt"
+	"os"
+	"os/exec"
+	"path/filepath"
+	"strings"
+	"syscall"
+	"testing"
+	"time"
+
+	"github.com/nats-io/nats.go/jetstream"
+
+	"modewatch/cmd/modewatch/internal/cluster/host"
+	"modewatch/sim"
+	"modewatch/stream/natsource/natstest"
+)
+
+// clusterConfig returns a cluster configuration for one instance.
+func clusterConfig(urls []string, instance, group, model, data string, units []string, ttl time.Duration) string {
+	q := make([]string, len(urls))
+	for i, u := range urls {
+		q[i] = fmt.Sprintf("%q", u)
+	}
+	return fmt.Sprintf(`server: {urls: [%s]}
+intake:
+  jetstream: {stream: READINGS, durable: %s}
+frames: {period: 20s}
+model: {file: %q}
+delivery: {file: %q}
+http: {listen: "off"}
+state_dir: %q
+checkpoint_interval: 1s
+shutdown_timeout: 30s
+log: {level: warn}
+cluster:
+  instance: %s
+  units: [%s]
+  bucket: %s_leases
+  store: %s_checkpoints
+  lease_ttl: %s
+  replicas: 3
+`, strings.Join(q, ", "), group, model, filepath.Join(data, "alerts.jsonl"), data, instance,
+		strings.Join(units, ", "), group, group, ttl)
+}
+
+// child is one modewatch instance run as a child process.
+type child struct {
+	name, data string
+	cmd        *exec.Cmd
+}
+
+func startChild(t *testing.T, dir, name, cfg string) *child {
+	data := filepath.Join(dir, name)
+	os.MkdirAll(data, 0o755)
+	path := filepath.Join(data, "config.yaml")
+	os.WriteFile(path, []byte(cfg), 0o644)
+	if code, out, errs := runCLI(t, "", "check", "--config", path); code != ExitOK {
+		t.Fatalf("check %s: %s%s", name, out, errs)
+	}
+	args, _ := json.Marshal([]string{"run", "--config", path})
+	cmd := exec.Command(os.Args[0], "-test.run=^$")
+	cmd.Env = append(os.Environ(), "MODEWATCH_CHILD=1", "MODEWATCH_ARGS="+string(args))
+	cmd.Stderr = &prefixWriter{t: t, prefix: name + ": "}
+	if err := cmd.Start(); err != nil {
+		t.Fatal(err)
+	}
+	c := &child{name: name, data: data, cmd: cmd}
+	t.Cleanup(func() {
+		if c.cmd.ProcessState == nil {
+			c.cmd.Process.Kill()
+			c.cmd.Wait()
+		}
+	})
+	return c
+}
+
+func (c *child) stop(t *testing.T) {
+	c.cmd.Process.Signal(syscall.SIGTERM)
+	if err := c.cmd.Wait(); err != nil {
+		t.Fatalf("%s: %v", c.name, err)
+	}
+}
+
+// owners reads the unit leases of a group's bucket: unit → instance.
+func owners(t *testing.T, js jetstream.JetStream, group string) map[string]string {
+	ctx, cancel := context.WithTimeout(context.Background(), 5*time.Second)
+	defer cancel()
+	kv, err := js.KeyValue(ctx, group+"_leases")
+	if err != nil {
+		return nil
+	}
+	out := map[string]string{}
+	keys, _ := kv.Keys(ctx)
+	for _, k := range keys {
+		if !strings.HasPrefix(k, "unit.") {
+			continue
+		}
+		e, err := kv.Get(ctx, k)
+		if err != nil {
+			continue
+		}
+		var l struct{ Unit, Owner string }
+		if json.Unmarshal(e.Value(), &l) == nil {
+			out[l.Unit] = l.Owner
+		}
+	}
+	return out
+}
+
+// until polls cond every 50 ms until it holds or within passes.
+func until(t *testing.T, within time.Duration, what string, cond func() bool) time.Duration {
+	t.Helper()
+	start := time.Now()
+	tick := time.NewTicker(50 * time.Millisecond)
+	defer tick.Stop()
+	for !cond() {
+		if time.Since(start) > within {
+			t.Fatalf("not within %v: %s", within, what)
+		}
+		<-tick.C
+	}
+	return time.Since(start)
+}
+
+// TestClusterFailover (issue 16): a 3-server NATS cluster (routes on
+// loopback, replicas 3) and 3 modewatch instances as child processes share
+// the demo plant's 4 units. One instance is killed (SIGKILL) half way
+// through 12 hours of readings, one NATS server is shut down later, and a
+// second instance is stopped gracefully while more readings arrive. At the
+// end the latest revision of every alert record, the frame counters and
+// last frames of the stored checkpoints, and the set of scored unit frames
+// equal those of one uninterrupted instance over the same stream.
+func TestClusterFailover(t *testing.T) {
+	if testing.Short() {
+		t.Skip("starts a NATS cluster and child processes")
+	}
+	const ttl = 4 * time.Second
+	dir := t.TempDir()
+	cl := natstest.StartCluster(t, 3)
+	var urls []string
+	for _, s := range cl.Servers {
+		urls = append(urls, s.ClientURL())
+	}
+	nc := natstest.Connect(t, cl.Servers[0]) // s1 stays up
+	js, _ := jetstream.New(nc)
+	ctx := context.Background()
+	if _, err := js.CreateStream(ctx, jetstream.StreamConfig{Name: "READINGS", Subjects: []string{"modewatch.readings.>"},
+		Storage: jetstream.FileStorage, Replicas: 3}); err != nil {
+		t.Fatal(err)
+	}
+
+	sc, _ := sim.Demo()
+	var units []string
+	for _, u := range sc.Units {
+		units = append(units, u.Name)
+	}
+	modelPath := filepath.Join(dir, "model.json")
+	day1 := filepath.Join(dir, "day1.lp")
+	d1 := sc.Clone()
+	d1.Duration = 24 * time.Hour
+	f, _ := os.Create(day1)
+	bw := bufio.NewWriter(f)
+	if err := d1.WriteLineProtocol(bw); err != nil {
+		t.Fatal(err)
+	}
+	bw.Flush()
+	f.Close()
+	if code, _, errs := runCLI(t, "", "fit", "--quiet", "--out", modelPath, day1); code != ExitOK {
+		t.Fatalf("fit: %s", errs)
+	}
+	part1 := sc.Clone()
+	part1.Start = sc.Start.Add(24 * time.Hour)
+	part1.Duration = 12 * time.Hour
+	part2 := sc.Clone()
+	part2.Start = part1.End()
+	part2.Duration = 3 * time.Hour
+	// publish sends a part of the scenario, one message per unit and
+	// sample as sim.Live does, paced to last about dur, each publication
+	// acknowledged by the stream (retried with its message id, so a
+	// retry is stored once: a NATS server goes down mid-stream). The
+	// channel yields once every message is stored.
+	publish := func(s *sim.Scenario, dur time.Duration) chan error {
+		done := make(chan error, 1)
+		go func() {
+			g, err := s.NewGenerator()
+			if err != nil {
+				done <- err
+				return
+			}
+			tick := time.NewTicker(dur / time.Duration(s.Samples()))
+			defer tick.Stop()
+			var buf []byte
+			for g.Step() {
+				<-tick.C
+				for u := 0; u < g.Units(); u++ {
+					buf, _ = g.AppendUnit(buf[:0], u)
+					subj := sim.Subject("modewatch", g.UnitName(u))
+					id := fmt.Sprintf("%s@%d", subj, g.Time().UnixNano())
+					for deadline := time.Now().Add(30 * time.Second); ; {
+						pctx, cancel := context.WithTimeout(ctx, 2*time.Second)
+						_, err := js.Publish(pctx, subj, buf, jetstream.WithMsgID(id))
+						cancel()
+						if err == nil {
+							break
+						}
+						if time.Now().After(deadline) {
+							done <- fmt.Errorf("publish %s: %w", id, err)
+							return
+						}
+						<-tick.C
+					}
+				}
+			}
+			done <- nil
+		}()
+		return done
+	}
+	want1 := part1.Samples() - 1 // frames per unit; the last stays pending
+	wantAll := part1.Samples() + part2.Samples() - 1
+
+	scores := &scoreLog{seen: map[string]int{}}
+	sub, _ := nc.Subscribe("modewatch.scores.>", scores.add)
+	defer sub.Unsubscribe()
+	waitScores := func(n int, what string) {
+		start := time.Now()
+		tick := time.NewTicker(50 * time.Millisecond)
+		defer tick.Stop()
+		for scores.distinct() < n {
+			if time.Since(start) > 120*time.Second {
+				scores.mu.Lock()
+				per := map[string]int{}
+				for k := range scores.seen {
+					per[strings.Fields(k)[0]]++
+				}
+				scores.mu.Unlock()
+				t.Fatalf("%s: %d distinct unit frames scored within 120 s, want %d; per unit %v; owners %v", what, scores.distinct(), n, per, owners(t, js, "mw"))
+			}
+			<-tick.C
+		}
+	}
+
+	// Three instances share the units before the readings flow.
+	inst := map[string]*child{}
+	for _, id := range []string{"x", "y", "z"} {
+		inst[id] = startChild(t, dir, id, clusterConfig(urls, id, "mw", modelPath, filepath.Join(dir, id), units, ttl))
+	}
+	until(t, 60*time.Second, "4 units spread over the 3 instances", func() bool {
+		o := owners(t, js, "mw")
+		seen := map[string]bool{}
+		for _, u := range units {
+			seen[o[u]] = true
+		}
+		return len(o) == len(units) && len(seen) == 3 && !seen[""]
+	})
+	pub1 := publish(part1, 20*time.Second)
+	waitScores(len(units)*want1/2, "before the kill")
+	own := owners(t, js, "mw")
+	victim := own[units[0]]
+	inst[victim].cmd.Process.Signal(syscall.SIGKILL)
+	inst[victim].cmd.Wait()
+	took := until(t, 30*time.Second, "the killed instance's units owned by survivors", func() bool {
+		o := owners(t, js, "mw")
+		for _, u := range units {
+			if o[u] == "" || o[u] == victim {
+				return false
+			}
+		}
+		return true
+	})
+	t.Logf("SIGKILL of %s (owners %v) at %d distinct unit frames; its units owned again after %v (lease TTL %v, bound 30 s)",
+		victim, own, scores.distinct(), took.Round(100*time.Millisecond), ttl)
+
+	// One NATS server goes away; the service goes on.
+	waitScores(len(units)*want1*3/4, "before a NATS server stops")
+	cl.Servers[2].Shutdown()
+	t.Logf("NATS server s3 shut down at %d distinct frames", scores.distinct())
+	if err := <-pub1; err != nil {
+		t.Fatal(err)
+	}
+	waitScores(len(units)*want1, "part 1 after a NATS server stopped")
+
+	// A graceful stop while more readings arrive.
+	var survivors []string
+	for _, id := range []string{"x", "y", "z"} {
+		if id != victim {
+			survivors = append(survivors, id)
+		}
+	}
+	pub2 := publish(part2, 10*time.Second)
+	waitScores(len(units)*(want1+part2.Samples()/3), "part 2 before the graceful stop")
+	leaving, staying := inst[survivors[0]], inst[survivors[1]]
+	before := owners(t, js, "mw")
+	t0 := time.Now()
+	leaving.stop(t)
+	handed := until(t, 30*time.Second, "the stopped instance's units owned by the last one", func() bool {
+		o := owners(t, js, "mw")
+		for _, u := range units {
+			if o[u] != staying.name {
+				return false
+			}
+		}
+		return true
+	})
+	t.Logf("graceful stop of %s (owners %v): every unit on %s %v after the stop began, %v after it ended (lease TTL %v)",
+		leaving.name, before, staying.name, time.Since(t0).Round(100*time.Millisecond), handed.Round(100*time.Millisecond), ttl)
+	if handed >= ttl {
+		t.Errorf("hand-over took %v after the stop, not shorter than the lease TTL %v", handed, ttl)
+	}
+	if err := <-pub2; err != nil {
+		t.Fatal(err)
+	}
+	waitScores(len(units)*wantAll, "all readings")
+	staying.stop(t)
+	clusterDistinct := scores.distinct()
+
+	// One uninterrupted instance over the same stream.
+	scores.mu.Lock()
+	scores.seen, scores.total = map[string]int{}, 0
+	scores.mu.Unlock()
+	ref := startChild(t, dir, "solo", clusterConfig(urls[:2], "solo", "ref", modelPath, filepath.Join(dir, "solo"), units, ttl))
+	waitScores(len(units)*wantAll, "the uninterrupted instance")
+	ref.stop(t)
+	if got := scores.distinct(); got != clusterDistinct {
+		t.Errorf("uninterrupted: %d distinct unit frames, cluster %d", got, clusterDistinct)
+	}
+
+	// Stored checkpoints: each unit counted every frame once.
+	for _, u := range units {
+		stA, _ := js.ObjectStore(ctx, "ref_checkpoints")
+		stB, _ := js.ObjectStore(ctx, "mw_checkpoints")
+		a, errA := host.LoadCheckpoint(ctx, stA, u)
+		b, errB := host.LoadCheckpoint(ctx, stB, u)
+		if errA != nil || errB != nil || a == nil || b == nil {
+			t.Fatalf("unit %s: checkpoints %v %v", u, errA, errB)
+		}
+		if a.Frames != b.Frames || !a.To.Equal(b.To) {
+			t.Errorf("unit %s: uninterrupted %d frames to %v, cluster %d to %v", u, a.Frames, a.To, b.Frames, b.To)
+		}
+	}
+
+	// The same incidents with the same final revisions.
+	ra := lastRevisions(t, filepath.Join(dir, "solo", "alerts.jsonl"))
+	rb := map[string]int{}
+	for _, id := range []string{"x", "y", "z"} {
+		path := filepath.Join(dir, id, "alerts.jsonl")
+		if _, err := os.Stat(path); err != nil {
+			continue
+		}
+		for rid, r := range lastRevisions(t, path) {
+			rb[rid] = max(rb[rid], r.Revision)
+		}
+	}
+	if len(ra) == 0 {
+		t.Error("no alerts in the uninterrupted run: the comparison would prove nothing")
+	}
+	if len(ra) != len(rb) {
+		t.Errorf("uninterrupted %d incidents, cluster %d", len(ra), len(rb))
+	}
+	for id, x := range ra {
+		if rev, ok := rb[id]; !ok || rev != x.Revision {
+			t.Errorf("incident %s: uninterrupted revision %d, cluster %d (present %v)", id, x.Revision, rev, ok)
+		}
+	}
+	t.Logf("%d incidents in both; %d distinct unit frames", len(ra), clusterDistinct)
+}
