@@ -244,6 +244,40 @@ func TestClusterFailover(t *testing.T) {
 		}
 	}
 
+	// waitFrames waits until every unit's checkpoint in a group's object
+	// store counts n frames (the model's own frame counter).
+	waitFrames := func(group string, n int, what string) {
+		t.Helper()
+		var last map[string]uint64
+		start := time.Now()
+		tick := time.NewTicker(200 * time.Millisecond)
+		defer tick.Stop()
+		for {
+			last = map[string]uint64{}
+			done := true
+			if st, err := js.ObjectStore(ctx, group+"_checkpoints"); err == nil {
+				for _, u := range units {
+					ck, err := host.LoadCheckpoint(ctx, st, u)
+					if err != nil || ck == nil {
+						done = false
+						continue
+					}
+					last[u] = ck.Frames
+					done = done && ck.Frames >= uint64(n)
+				}
+			} else {
+				done = false
+			}
+			if done {
+				return
+			}
+			if time.Since(start) > 120*time.Second {
+				t.Fatalf("%s: stored checkpoints count %v frames within 120 s, want %d each; owners %v", what, last, n, owners(t, js, group))
+			}
+			<-tick.C
+		}
+	}
+
 	// Three instances share the units before the readings flow.
 	inst := map[string]*child{}
 	for _, id := range []string{"x", "y", "z"} {
@@ -282,7 +316,7 @@ func TestClusterFailover(t *testing.T) {
 	if err := <-pub1; err != nil {
 		t.Fatal(err)
 	}
-	waitScores(len(units)*want1, "part 1 after a NATS server stopped")
+	waitFrames("mw", want1, "part 1 after a NATS server stopped")
 
 	// A graceful stop while more readings arrive.
 	var survivors []string
@@ -314,7 +348,7 @@ func TestClusterFailover(t *testing.T) {
 	if err := <-pub2; err != nil {
 		t.Fatal(err)
 	}
-	waitScores(len(units)*wantAll, "all readings")
+	waitFrames("mw", wantAll, "all readings")
 	staying.stop(t)
 	clusterDistinct := scores.distinct()
 
@@ -323,11 +357,12 @@ func TestClusterFailover(t *testing.T) {
 	scores.seen, scores.total = map[string]int{}, 0
 	scores.mu.Unlock()
 	ref := startChild(t, dir, "solo", clusterConfig(urls[:2], "solo", "ref", modelPath, filepath.Join(dir, "solo"), units, ttl))
-	waitScores(len(units)*wantAll, "the uninterrupted instance")
+	waitFrames("ref", wantAll, "the uninterrupted instance")
 	ref.stop(t)
-	if got := scores.distinct(); got != clusterDistinct {
-		t.Errorf("uninterrupted: %d distinct unit frames, cluster %d", got, clusterDistinct)
-	}
+	// Score lines travel on core NATS: one published as a connection
+	// drops may be lost, so they are only logged; the frame counters are
+	// the check.
+	t.Logf("distinct unit frames seen on the scores subject: uninterrupted %d, cluster %d (of %d)", scores.distinct(), clusterDistinct, len(units)*wantAll)
 
 	// Stored checkpoints: each unit counted every frame once.
 	for _, u := range units {
@@ -338,8 +373,8 @@ func TestClusterFailover(t *testing.T) {
 		if errA != nil || errB != nil || a == nil || b == nil {
 			t.Fatalf("unit %s: checkpoints %v %v", u, errA, errB)
 		}
-		if a.Frames != b.Frames || !a.To.Equal(b.To) {
-			t.Errorf("unit %s: uninterrupted %d frames to %v, cluster %d to %v", u, a.Frames, a.To, b.Frames, b.To)
+		if a.Frames != uint64(wantAll) || a.Frames != b.Frames || !a.To.Equal(b.To) {
+			t.Errorf("unit %s: uninterrupted %d frames to %v, cluster %d to %v; the log has %d", u, a.Frames, a.To, b.Frames, b.To, wantAll)
 		}
 	}
 

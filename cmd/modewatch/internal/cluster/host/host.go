@@ -60,7 +60,10 @@ type Host struct {
 	opt Options
 	log *slog.Logger
 
-	op    sync.Mutex // one Gain, Release, Lose or Resync at a time
+	op sync.Mutex // one Gain, Release, Lose or Resync at a time
+	// feed serialises the units' intakes: they share the channel registry,
+	// whose series map belongs to one decoding goroutine at a time.
+	feed  sync.Mutex
 	mu    sync.Mutex
 	units map[string]*hosted
 	moved map[string]time.Time // when each unit last came or went here
@@ -174,16 +177,20 @@ func (h *Host) gain(ctx context.Context, unit string) error {
 		_ = pl.RemoveUnit(unit)
 		return err
 	}
+	h.feed.Lock()
 	for _, r := range seeds {
 		if err := u.in.SeedLast(r.Channel, r.Value, r.Time); err != nil {
 			h.log.Warn("carried reading of the checkpoint not restored", "unit", unit, "channel", r.Channel, "err", err)
 		}
 	}
+	h.feed.Unlock()
 	subj := h.opt.Subject(unit)
 	u.js, err = h.opt.Conn.ConsumeJetStream(ctx, natsource.JetStreamConfig{
 		Stream: h.opt.Stream, Durable: h.opt.Durable + "_" + unit, FilterSubjects: []string{subj},
 		MaxAckPending: h.opt.MaxAckPending, AckWait: h.opt.AckWait,
 	}, func(m natsource.Msg) error {
+		h.feed.Lock()
+		defer h.feed.Unlock()
 		return u.in.FeedAck(m.Subject, m.Data, func() error { return h.hold(u, m.Ack) })
 	})
 	if err != nil {
