@@ -1,7 +1,6 @@
 package cli
 
 import (
-	"bufio"
 	"context"
 	"encoding/json"
 	"fmt"
@@ -20,23 +19,10 @@ import (
 	"modewatch/stream/natsource/natstest"
 )
 
-// clusterConfig returns a cluster configuration for one instance.
+// clusterConfig returns a cluster configuration for one instance of a
+// group (its durable consumers, bucket and store are named after it).
 func clusterConfig(urls []string, instance, group, model, data string, units []string, ttl time.Duration) string {
-	q := make([]string, len(urls))
-	for i, u := range urls {
-		q[i] = fmt.Sprintf("%q", u)
-	}
-	return fmt.Sprintf(`server: {urls: [%s]}
-intake:
-  jetstream: {stream: READINGS, durable: %s}
-frames: {period: 20s}
-model: {file: %q}
-delivery: {file: %q}
-http: {listen: "off"}
-state_dir: %q
-checkpoint_interval: 1s
-shutdown_timeout: 30s
-log: {level: warn}
+	return jetStreamRunConfig(urls, group, model, data) + fmt.Sprintf(`shutdown_timeout: 30s
 cluster:
   instance: %s
   units: [%s]
@@ -44,8 +30,7 @@ cluster:
   store: %s_checkpoints
   lease_ttl: %s
   replicas: 3
-`, strings.Join(q, ", "), group, model, filepath.Join(data, "alerts.jsonl"), data, instance,
-		strings.Join(units, ", "), group, group, ttl)
+`, instance, strings.Join(units, ", "), group, group, ttl)
 }
 
 // child is one modewatch instance run as a child process.
@@ -62,13 +47,7 @@ func startChild(t *testing.T, dir, name, cfg string) *child {
 	if code, out, errs := runCLI(t, "", "check", "--config", path); code != ExitOK {
 		t.Fatalf("check %s: %s%s", name, out, errs)
 	}
-	args, _ := json.Marshal([]string{"run", "--config", path})
-	cmd := exec.Command(os.Args[0], "-test.run=^$")
-	cmd.Env = append(os.Environ(), "MODEWATCH_CHILD=1", "MODEWATCH_ARGS="+string(args))
-	cmd.Stderr = &prefixWriter{t: t, prefix: name + ": "}
-	if err := cmd.Start(); err != nil {
-		t.Fatal(err)
-	}
+	cmd := startModewatch(t, name, "run", "--config", path)
 	c := &child{name: name, data: data, cmd: cmd}
 	t.Cleanup(func() {
 		if c.cmd.ProcessState == nil {
@@ -159,20 +138,7 @@ func TestClusterFailover(t *testing.T) {
 	for _, u := range sc.Units {
 		units = append(units, u.Name)
 	}
-	modelPath := filepath.Join(dir, "model.json")
-	day1 := filepath.Join(dir, "day1.lp")
-	d1 := sc.Clone()
-	d1.Duration = 24 * time.Hour
-	f, _ := os.Create(day1)
-	bw := bufio.NewWriter(f)
-	if err := d1.WriteLineProtocol(bw); err != nil {
-		t.Fatal(err)
-	}
-	bw.Flush()
-	f.Close()
-	if code, _, errs := runCLI(t, "", "fit", "--quiet", "--out", modelPath, day1); code != ExitOK {
-		t.Fatalf("fit: %s", errs)
-	}
+	modelPath := fitDemoDay1(t, dir)
 	part1 := sc.Clone()
 	part1.Start = sc.Start.Add(24 * time.Hour)
 	part1.Duration = 12 * time.Hour
@@ -244,40 +210,56 @@ func TestClusterFailover(t *testing.T) {
 		}
 	}
 
-	// waitFrames waits until every unit's checkpoint in a group's object
-	// store counts n frames (the model's own frame counter).
-	waitFrames := func(group string, n int, what string) {
+	// stored returns every unit's frame counter in a group's stored
+	// checkpoints (units without one are left out).
+	stored := func(group string) map[string]uint64 {
+		out := map[string]uint64{}
+		st, err := js.ObjectStore(ctx, group+"_checkpoints")
+		if err != nil {
+			return out
+		}
+		for _, u := range units {
+			if ck, err := host.LoadCheckpoint(ctx, st, u); err == nil && ck != nil {
+				out[u] = ck.Frames
+			}
+		}
+		return out
+	}
+	// waitSame waits until the cluster's stored checkpoints count, for
+	// every unit, the frames the uninterrupted instance's count, at least
+	// n-1 each (about n frames per unit in the log; the last one or two
+	// of each unit, by the timestamp jitter, wait in its aligner for a
+	// later reading), unchanged over two polls a second apart (the
+	// checkpoint interval).
+	waitSame := func(n int, what string) {
 		t.Helper()
-		var last map[string]uint64
+		var a, b map[string]uint64
+		prev := ""
 		start := time.Now()
-		tick := time.NewTicker(200 * time.Millisecond)
+		tick := time.NewTicker(time.Second)
 		defer tick.Stop()
 		for {
-			last = map[string]uint64{}
-			done := true
-			if st, err := js.ObjectStore(ctx, group+"_checkpoints"); err == nil {
-				for _, u := range units {
-					ck, err := host.LoadCheckpoint(ctx, st, u)
-					if err != nil || ck == nil {
-						done = false
-						continue
-					}
-					last[u] = ck.Frames
-					done = done && ck.Frames >= uint64(n)
-				}
-			} else {
-				done = false
+			a, b = stored("ref"), stored("mw")
+			ok := len(a) == len(units)
+			for _, u := range units {
+				ok = ok && a[u] >= uint64(n-1) && a[u] == b[u]
 			}
-			if done {
+			now := fmt.Sprint(a, b)
+			if ok && now == prev {
 				return
 			}
+			prev = now
 			if time.Since(start) > 120*time.Second {
-				t.Fatalf("%s: stored checkpoints count %v frames within 120 s, want %d each; owners %v", what, last, n, owners(t, js, group))
+				t.Fatalf("%s: within 120 s the stored frame counters are uninterrupted %v, cluster %v (the log has %d frames per unit); owners %v",
+					what, a, b, n, owners(t, js, "mw"))
 			}
 			<-tick.C
 		}
 	}
 
+	// One uninterrupted instance over the same stream, and three
+	// instances sharing the units, before the readings flow.
+	ref := startChild(t, dir, "solo", clusterConfig(urls[:2], "solo", "ref", modelPath, filepath.Join(dir, "solo"), units, ttl))
 	// Three instances share the units before the readings flow.
 	inst := map[string]*child{}
 	for _, id := range []string{"x", "y", "z"} {
@@ -316,7 +298,7 @@ func TestClusterFailover(t *testing.T) {
 	if err := <-pub1; err != nil {
 		t.Fatal(err)
 	}
-	waitFrames("mw", want1, "part 1 after a NATS server stopped")
+	waitSame(want1, "part 1 after a NATS server stopped")
 
 	// A graceful stop while more readings arrive.
 	var survivors []string
@@ -348,21 +330,14 @@ func TestClusterFailover(t *testing.T) {
 	if err := <-pub2; err != nil {
 		t.Fatal(err)
 	}
-	waitFrames("mw", wantAll, "all readings")
+	waitSame(wantAll, "all readings")
 	staying.stop(t)
-	clusterDistinct := scores.distinct()
-
-	// One uninterrupted instance over the same stream.
-	scores.mu.Lock()
-	scores.seen, scores.total = map[string]int{}, 0
-	scores.mu.Unlock()
-	ref := startChild(t, dir, "solo", clusterConfig(urls[:2], "solo", "ref", modelPath, filepath.Join(dir, "solo"), units, ttl))
-	waitFrames("ref", wantAll, "the uninterrupted instance")
 	ref.stop(t)
+
 	// Score lines travel on core NATS: one published as a connection
-	// drops may be lost, so they are only logged; the frame counters are
-	// the check.
-	t.Logf("distinct unit frames seen on the scores subject: uninterrupted %d, cluster %d (of %d)", scores.distinct(), clusterDistinct, len(units)*wantAll)
+	// drops may be lost, so they are only logged; the stored frame
+	// counters are the check.
+	t.Logf("distinct unit frames seen on the scores subject (both runs): %d; %d score lines in all", scores.distinct(), scores.total)
 
 	// Stored checkpoints: each unit counted every frame once.
 	for _, u := range units {
@@ -373,7 +348,7 @@ func TestClusterFailover(t *testing.T) {
 		if errA != nil || errB != nil || a == nil || b == nil {
 			t.Fatalf("unit %s: checkpoints %v %v", u, errA, errB)
 		}
-		if a.Frames != uint64(wantAll) || a.Frames != b.Frames || !a.To.Equal(b.To) {
+		if a.Frames+1 < uint64(wantAll) || a.Frames != b.Frames || !a.To.Equal(b.To) {
 			t.Errorf("unit %s: uninterrupted %d frames to %v, cluster %d to %v; the log has %d", u, a.Frames, a.To, b.Frames, b.To, wantAll)
 		}
 	}
@@ -401,5 +376,5 @@ func TestClusterFailover(t *testing.T) {
 			t.Errorf("incident %s: uninterrupted revision %d, cluster %d (present %v)", id, x.Revision, rev, ok)
 		}
 	}
-	t.Logf("%d incidents in both; %d distinct unit frames", len(ra), clusterDistinct)
+	t.Logf("%d incidents in both runs", len(ra))
 }

@@ -92,20 +92,7 @@ func TestKillRestart(t *testing.T) {
 	// restart need readings carried from before it, which the checkpoint
 	// holds and the restart seeds into the aligner.
 	sc, _ := sim.Demo()
-	modelPath := filepath.Join(dir, "model.json")
-	day1 := filepath.Join(dir, "day1.lp")
-	d1 := sc.Clone()
-	d1.Duration = 24 * time.Hour
-	f, _ := os.Create(day1)
-	bw := bufio.NewWriter(f)
-	if err := d1.WriteLineProtocol(bw); err != nil {
-		t.Fatal(err)
-	}
-	bw.Flush()
-	f.Close()
-	if code, _, errs := runCLI(t, "", "fit", "--quiet", "--out", modelPath, day1); code != ExitOK {
-		t.Fatalf("fit: %s", errs)
-	}
+	modelPath := fitDemoDay1(t, dir)
 	live := sc.Clone()
 	live.Start = sc.Start.Add(24 * time.Hour)
 	live.Duration = 12 * time.Hour
@@ -132,27 +119,8 @@ func TestKillRestart(t *testing.T) {
 		data := filepath.Join(dir, name)
 		os.MkdirAll(data, 0o755)
 		cfg := filepath.Join(data, "config.yaml")
-		os.WriteFile(cfg, []byte(fmt.Sprintf(`server: {urls: [%q]}
-intake:
-  jetstream: {stream: READINGS, durable: %s}
-frames: {period: 20s}
-model: {file: %q}
-delivery: {file: %q}
-http: {listen: "off"}
-state_dir: %q
-checkpoint_interval: 1s
-log: {level: warn}
-`, srv.ClientURL(), name, modelPath, filepath.Join(data, "alerts.jsonl"), data)), 0o644)
-		start := func() *exec.Cmd {
-			args, _ := json.Marshal([]string{"run", "--config", cfg})
-			cmd := exec.Command(os.Args[0], "-test.run=^$")
-			cmd.Env = append(os.Environ(), "MODEWATCH_CHILD=1", "MODEWATCH_ARGS="+string(args))
-			cmd.Stderr = &prefixWriter{t: t, prefix: name + ": "}
-			if err := cmd.Start(); err != nil {
-				t.Fatal(err)
-			}
-			return cmd
-		}
+		os.WriteFile(cfg, []byte(jetStreamRunConfig([]string{srv.ClientURL()}, name, modelPath, data)), 0o644)
+		start := func() *exec.Cmd { return startModewatch(t, name, "run", "--config", cfg) }
 		return data, start
 	}
 	waitScores := func(n int, what string) {
@@ -227,6 +195,63 @@ log: {level: warn}
 			t.Errorf("incident %s: run a rev %d peak %+v, run b rev %d peak %+v", id, x.Revision, x.Peak, y.Revision, y.Peak)
 		}
 	}
+}
+
+// jetStreamRunConfig is the configuration of a run that reads the READINGS
+// stream through the durable consumer durable, starts from the fitted
+// model, writes alerts to data/alerts.jsonl and checkpoints every second.
+func jetStreamRunConfig(urls []string, durable, model, data string) string {
+	q := make([]string, len(urls))
+	for i, u := range urls {
+		q[i] = fmt.Sprintf("%q", u)
+	}
+	return fmt.Sprintf(`server: {urls: [%s]}
+intake:
+  jetstream: {stream: READINGS, durable: %s}
+frames: {period: 20s}
+model: {file: %q}
+delivery: {file: %q}
+http: {listen: "off"}
+state_dir: %q
+checkpoint_interval: 1s
+log: {level: warn}
+`, strings.Join(q, ", "), durable, model, filepath.Join(data, "alerts.jsonl"), data)
+}
+
+// startModewatch starts the test binary as modewatch with args (see
+// TestMain), its standard error in the test log prefixed by name.
+func startModewatch(t *testing.T, name string, args ...string) *exec.Cmd {
+	t.Helper()
+	a, _ := json.Marshal(args)
+	cmd := exec.Command(os.Args[0], "-test.run=^$")
+	cmd.Env = append(os.Environ(), "MODEWATCH_CHILD=1", "MODEWATCH_ARGS="+string(a))
+	cmd.Stderr = &prefixWriter{t: t, prefix: name + ": "}
+	if err := cmd.Start(); err != nil {
+		t.Fatal(err)
+	}
+	return cmd
+}
+
+// fitDemoDay1 fits a model with the fit command on the fault-free first day
+// of the demo plant (invented data) and returns the model file's path.
+func fitDemoDay1(t *testing.T, dir string) string {
+	t.Helper()
+	sc, _ := sim.Demo()
+	modelPath := filepath.Join(dir, "model.json")
+	day1 := filepath.Join(dir, "day1.lp")
+	d1 := sc.Clone()
+	d1.Duration = 24 * time.Hour
+	f, _ := os.Create(day1)
+	bw := bufio.NewWriter(f)
+	if err := d1.WriteLineProtocol(bw); err != nil {
+		t.Fatal(err)
+	}
+	bw.Flush()
+	f.Close()
+	if code, _, errs := runCLI(t, "", "fit", "--quiet", "--out", modelPath, day1); code != ExitOK {
+		t.Fatalf("fit: %s", errs)
+	}
+	return modelPath
 }
 
 // lastRevisions reads a JSON-lines alert file and keeps the latest

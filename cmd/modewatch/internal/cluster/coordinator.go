@@ -305,16 +305,14 @@ func (c *Coordinator) round(ctx context.Context) error {
 			continue
 		}
 		c.log.Info("handing unit over", "unit", u, "to", to)
-		if err := c.h.Release(rctx, u); err != nil {
-			// Keep it: the new owner would resume from an older state.
-			errs = append(errs, fmt.Errorf("cluster: hand over %s: %w", u, err))
-			continue
-		}
-		if err := c.reg.Release(rctx, c.held[u]); err != nil && !errors.Is(err, ErrLost) {
+		if err := c.handOver(rctx, u); err != nil {
+			// Kept (if not saved, the new owner would resume from an
+			// older state).
 			errs = append(errs, err)
 		}
-		delete(c.held, u)
-		delete(snap.Leases, u)
+		if _, kept := c.held[u]; !kept {
+			delete(snap.Leases, u)
+		}
 	}
 	// Take the units the plan gives this instance and nobody holds.
 	for _, u := range c.cfg.Units {
@@ -393,17 +391,24 @@ func (c *Coordinator) Stop(ctx context.Context) error {
 			errs = append(errs, err)
 		}
 		for _, u := range slices.Sorted(maps.Keys(c.held)) {
-			if err := c.h.Release(ctx, u); err != nil {
-				// Not saved: let the lease expire, the next owner resumes
-				// from the last stored state.
-				errs = append(errs, fmt.Errorf("cluster: hand over %s: %w", u, err))
-				continue
-			}
-			if err := c.reg.Release(ctx, c.held[u]); err != nil && !errors.Is(err, ErrLost) {
-				errs = append(errs, err)
-			}
-			delete(c.held, u)
+			// A unit not saved keeps its lease until it expires; the next
+			// owner resumes from the last stored state.
+			errs = append(errs, c.handOver(ctx, u))
 		}
 	})
 	return errors.Join(errs...)
+}
+
+// handOver lets the handler save unit and then deletes its lease. If the
+// handler fails the lease is kept and the error returned.
+func (c *Coordinator) handOver(ctx context.Context, u string) error {
+	if err := c.h.Release(ctx, u); err != nil {
+		return fmt.Errorf("cluster: hand over %s: %w", u, err)
+	}
+	l := c.held[u]
+	delete(c.held, u)
+	if err := c.reg.Release(ctx, l); err != nil && !errors.Is(err, ErrLost) {
+		return err
+	}
+	return nil
 }

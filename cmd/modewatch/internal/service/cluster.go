@@ -45,13 +45,17 @@ func (s *Service) startCluster(ctx context.Context, chans *stream.Channels, alig
 	if err != nil {
 		return fmt.Errorf("service: cluster: %w", err)
 	}
-	octx, cancel := context.WithTimeout(ctx, 30*time.Second)
+	// Each bounded by a minute: a cluster still electing its leaders, or
+	// several instances starting at once, take a few attempts.
+	octx, cancel := context.WithTimeout(ctx, time.Minute)
 	defer cancel()
 	reg, err := cluster.OpenRegistry(octx, js, cluster.RegistryConfig{Bucket: k.Bucket, TTL: k.LeaseTTL, Replicas: k.Replicas})
 	if err != nil {
 		return err
 	}
-	store, err := host.OpenStore(octx, js, k.Store, k.Replicas)
+	sctx, scancel := context.WithTimeout(ctx, time.Minute)
+	defer scancel()
+	store, err := host.OpenStore(sctx, js, k.Store, k.Replicas)
 	if err != nil {
 		return err
 	}
