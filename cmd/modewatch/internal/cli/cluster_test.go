@@ -212,15 +212,15 @@ func TestClusterFailover(t *testing.T) {
 
 	// stored returns every unit's frame counter in a group's stored
 	// checkpoints (units without one are left out).
-	stored := func(group string) map[string]uint64 {
-		out := map[string]uint64{}
+	stored := func(group string) map[string]string {
+		out := map[string]string{}
 		st, err := js.ObjectStore(ctx, group+"_checkpoints")
 		if err != nil {
 			return out
 		}
 		for _, u := range units {
 			if ck, err := host.LoadCheckpoint(ctx, st, u); err == nil && ck != nil {
-				out[u] = ck.Frames
+				out[u] = fmt.Sprintf("%d to %s", ck.Frames, ck.To.Format("15:04:05"))
 			}
 		}
 		return out
@@ -233,7 +233,7 @@ func TestClusterFailover(t *testing.T) {
 	// checkpoint interval).
 	waitSame := func(n int, what string) {
 		t.Helper()
-		var a, b map[string]uint64
+		var a, b map[string]string
 		prev := ""
 		start := time.Now()
 		tick := time.NewTicker(time.Second)
@@ -242,7 +242,9 @@ func TestClusterFailover(t *testing.T) {
 			a, b = stored("ref"), stored("mw")
 			ok := len(a) == len(units)
 			for _, u := range units {
-				ok = ok && a[u] >= uint64(n-1) && a[u] == b[u]
+				var fa int
+				fmt.Sscan(a[u], &fa)
+				ok = ok && fa >= n-1 && a[u] == b[u]
 			}
 			now := fmt.Sprint(a, b)
 			if ok && now == prev {

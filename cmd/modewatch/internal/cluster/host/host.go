@@ -226,6 +226,12 @@ func (h *Host) Early() <-chan struct{} { return h.early }
 func (h *Host) save(ctx context.Context, u *hosted) error {
 	u.saveMu.Lock()
 	defer u.saveMu.Unlock()
+	h.mu.Lock()
+	current := h.units[u.name] == u
+	h.mu.Unlock()
+	if !current {
+		return nil // stopped meanwhile: its acknowledgements are dropped
+	}
 	u.ackMu.Lock()
 	acks := u.acks
 	u.acks = nil
@@ -286,7 +292,9 @@ func (h *Host) running() []*hosted {
 }
 
 // Release stops unit's consumer, stores its checkpoint and acknowledges
-// what it covers, then forgets the unit: a graceful hand-over.
+// what it covers, then forgets the unit: a graceful hand-over. It always
+// gives the unit up; if the checkpoint cannot be stored the next owner
+// resumes from the previous stored one (and scores again what followed).
 func (h *Host) Release(ctx context.Context, unit string) error {
 	h.op.Lock()
 	defer h.op.Unlock()
@@ -300,7 +308,9 @@ func (h *Host) Release(ctx context.Context, unit string) error {
 		h.log.Warn("consumer stop", "unit", unit, "err", err)
 	}
 	if err := h.save(ctx, u); err != nil {
-		return err
+		// Nothing is lost: messages are acknowledged only up to the last
+		// stored checkpoint, from which the next owner resumes.
+		h.log.Warn("checkpoint not stored at hand-over; the next owner resumes from the last stored one", "unit", unit, "err", err)
 	}
 	h.forget(unit)
 	return nil
@@ -320,6 +330,8 @@ func (h *Host) drop(unit string) {
 	if u == nil {
 		return
 	}
+	u.saveMu.Lock() // let a save in progress finish first
+	defer u.saveMu.Unlock()
 	ctx, cancel := context.WithTimeout(context.Background(), 5*time.Second)
 	defer cancel()
 	_ = u.js.Stop(ctx)
