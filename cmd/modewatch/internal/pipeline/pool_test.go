@@ -131,6 +131,9 @@ func TestWorkersPlacement(t *testing.T) {
 // TestWorkersFrameAllocs: handing a frame to the workers and waiting for
 // them allocates nothing.
 func TestWorkersFrameAllocs(t *testing.T) {
+	if raceOn {
+		t.Skip("the race detector allocates on channel hand-overs")
+	}
 	const period = 20 * time.Second
 	ch, frames := collectFrames(t, demoBytes(t, 2), period)
 	cfg := &configs.Config{Model: configs.Model{WarmUp: 100}}
