@@ -112,3 +112,23 @@ func ExampleAligner_Seed() {
 	// Output:
 	// 10:00:01 [80.1 12.5] [false false]
 }
+
+// A restarted aligner resumes right after its checkpoint's last frame
+// (10:00:01): the frame at 10:00:02, which holds only the carried reading
+// of channel 0, is emitted before that of the first new reading.
+func ExampleAligner_ResumeAt() {
+	t0 := time.Date(2026, 1, 5, 10, 0, 0, 0, time.UTC)
+	a, _ := stream.NewAligner(stream.AlignConfig{Period: time.Second, Staleness: 3 * time.Second}, 1, func(f *stream.Frame) error {
+		fmt.Println(f.Start.Format("15:04:05"), f.Values, f.Missing)
+		return nil
+	})
+	a.Seed(0, 80.1, t0.Add(1900*time.Millisecond))
+	if err := a.ResumeAt(t0.Add(2 * time.Second)); err != nil {
+		fmt.Println(err)
+	}
+	a.Add(0, t0.Add(3100*time.Millisecond), 80.4)
+	a.Flush()
+	// Output:
+	// 10:00:02 [80.1] [false]
+	// 10:00:03 [80.4] [false]
+}

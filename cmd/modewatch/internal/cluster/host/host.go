@@ -158,10 +158,14 @@ func (h *Host) gain(ctx context.Context, unit string) error {
 	pl := h.opt.Pipeline
 	_ = pl.RemoveUnit(unit) // a stale copy from an earlier ownership
 	var seeds []pipeline.LastReading
+	var resume time.Time // start of the frame after the restored checkpoint's last
 	if ck != nil {
 		restored, errs := pl.Restore([]*pipeline.ModelFile{ck})
 		if len(restored) == 1 {
 			seeds = ck.Units[0].Last
+			if !ck.To.IsZero() {
+				resume = ck.To.Add(h.opt.Intake.Align.Period)
+			}
 			h.log.Info("unit restored from the cluster's checkpoint", "unit", unit, "frames", ck.Frames, "last_frame", ck.To, "saved", ck.Created)
 		} else {
 			h.log.Warn("stored checkpoint not restored; the unit warms up again", "unit", unit, "err", errors.Join(errs...))
@@ -181,6 +185,13 @@ func (h *Host) gain(ctx context.Context, unit string) error {
 	for _, r := range seeds {
 		if err := u.in.SeedLast(r.Channel, r.Value, r.Time); err != nil {
 			h.log.Warn("carried reading of the checkpoint not restored", "unit", unit, "channel", r.Channel, "err", err)
+		}
+	}
+	if !resume.IsZero() {
+		// The unit's own aligner starts right after the checkpoint, so
+		// that a frame holding only carried readings is not left out.
+		if err := u.in.ResumeAt(resume); err != nil {
+			h.log.Warn("aligner not resumed after the checkpoint", "unit", unit, "err", err)
 		}
 	}
 	h.feed.Unlock()
