@@ -88,3 +88,13 @@ func (p *Pipeline) RemoveUnit(name string) error {
 	p.pool.forget(u)
 	return nil
 }
+
+// Fresh reports whether the unit called name is as New built it from the
+// fitted baseline (with what Options.Prepare set, such as empirical
+// limits) and has scored no frame: taking it over needs no rebuild.
+func (p *Pipeline) Fresh(name string) bool {
+	p.mu.Lock()
+	defer p.mu.Unlock()
+	u := p.lookup(name)
+	return u != nil && u.baseline && u.frames == 0 && u.skipUntil.IsZero()
+}

@@ -156,7 +156,9 @@ func (h *Host) gain(ctx context.Context, unit string) error {
 		return err // the lease goes back; another try later
 	}
 	pl := h.opt.Pipeline
-	_ = pl.RemoveUnit(unit) // a stale copy from an earlier ownership
+	if ck != nil || !pl.Fresh(unit) {
+		_ = pl.RemoveUnit(unit) // a stale copy from an earlier ownership
+	}
 	var seeds []pipeline.LastReading
 	var resume time.Time // start of the frame after the restored checkpoint's last
 	if ck != nil {
