@@ -12,7 +12,7 @@ import (
 // ErrCheckpoint reports a checkpoint that cannot be restored.
 var ErrCheckpoint = errors.New("tracker: bad checkpoint")
 
-// Checkpoint format, version 3. All integers and floats little-endian:
+// Checkpoint format, version 4. All integers and floats little-endian:
 //
 //	"MWTK" | u16 version | u32 p | u64 config fingerprint (FNV-1a)
 //	u8 flags (1 ready, 2 frozen, 4 baseline, 8 calibrated)
@@ -29,18 +29,23 @@ var ErrCheckpoint = errors.New("tracker: bad checkpoint")
 //	cal:   6 × f64 (T², SPE, φ limits and their scales)
 //	lag:   u32 n | n × (f64 ratio | p × f64 values | p × u8 flags)       [v3]
 //	       frames scored, not yet learned (Config.Lag), oldest first
+//	var:   u8 present (Config.Variance) | p × f64 q | p × f64 ℓ | p × f64 n   [v4]
+//	       the variance statistic's EWMA, normal level and frames behind it
+//	       (restored into a tracker with the statistic off: ignored; into
+//	       one with it on from a checkpoint without: started again)
 //	modes: u32 n | n bytes of modes.Tracker.MarshalBinary
 //	u32 CRC-32 (IEEE) of everything before
 //
-// Versions 1 (no p0, no per-channel steps) and 2 (no lag section) are
-// still read.
+// Versions 1 (no p0, no per-channel steps), 2 (no lag section) and 3 (no
+// variance section: a restored variance statistic starts again from its
+// EWMA and normal level at 1) are still read.
 //
 // The model snapshot (loadings, limits, per-channel data) is recomputed on
 // restore from A and the restored modes by the same code as at the refresh,
 // so it is bit-identical.
 const (
 	ckMagic   = "MWTK"
-	ckVersion = 3
+	ckVersion = 4
 )
 
 // fingerprint hashes the configuration fields that shape the state.
@@ -154,6 +159,16 @@ func (t *Tracker) MarshalBinary() ([]byte, error) {
 		}
 	} else {
 		b = le.AppendUint32(b, 0)
+	}
+	if rs := t.rs; rs != nil && rs.vr {
+		b = append(b, 1)
+		for _, s := range [][]float64{rs.q, rs.lvl, rs.lvlN} {
+			for _, v := range s {
+				f64(v)
+			}
+		}
+	} else {
+		b = append(b, 0)
 	}
 	b = le.AppendUint32(b, uint32(len(mb)))
 	b = append(b, mb...)
@@ -332,6 +347,20 @@ func (t *Tracker) UnmarshalBinary(data []byte) error {
 			}
 		}
 	}
+	var vq, vl, vn []float64 // variance statistic (v4; nil: start again)
+	if version >= 4 {
+		hasVar := r.u8("variance flag")
+		switch {
+		case r.err != nil:
+		case hasVar > 1:
+			return bad("variance flag %d is neither 0 nor 1", hasVar)
+		case hasVar == 1:
+			vq, vl, vn = make([]float64, p), make([]float64, p), make([]float64, p)
+			r.floats(vq, "variance EWMA")
+			r.floats(vl, "variance normal levels")
+			r.floats(vn, "variance level counts")
+		}
+	}
 	nm := int(r.u32("modes length"))
 	var mb []byte
 	if r.need(nm, "modes") {
@@ -354,6 +383,11 @@ func (t *Tracker) UnmarshalBinary(data []byte) error {
 	for i, v := range vari {
 		if v < 0 {
 			return bad("variance of channel %d is negative (%v)", i, v)
+		}
+	}
+	for i := range vq {
+		if !(vq[i] >= 0) || math.IsInf(vq[i], 0) || !(vl[i] > 0) || math.IsInf(vl[i], 0) || !(vn[i] >= 0) || math.IsInf(vn[i], 0) {
+			return bad("variance statistic of channel %d: EWMA %v, normal level %v, count %v", i, vq[i], vl[i], vn[i])
 		}
 	}
 	// Everything checked; the modes validate themselves before changing.
@@ -407,6 +441,17 @@ func (t *Tracker) UnmarshalBinary(data []byte) error {
 		copy(l.flags, lagFlags)
 		copy(l.ratio, lagRatio)
 		l.head, l.n = 0, nLag
+	}
+	if rs := t.rs; rs != nil && rs.vr {
+		if vq != nil {
+			copy(rs.q, vq)
+			copy(rs.lvl, vl)
+			copy(rs.lvlN, vn)
+		} else {
+			for i := range rs.q {
+				rs.q[i], rs.lvl[i], rs.lvlN[i] = 1, 1, 0
+			}
+		}
 	}
 	t.since = since
 	t.cal = flags&8 != 0

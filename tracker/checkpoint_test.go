@@ -170,15 +170,16 @@ func TestCheckpointVersion1(t *testing.T) {
 	x := make([]float64, p)
 	// Header: magic 4, version 2, p 4, fingerprint 8, flags 1, frames 8,
 	// learned 8, since 4, then the u32 initial width (version 2 on). The
-	// u32 count of the lag section (version 3 on) sits before the modes.
+	// u32 count of the lag section (version 3 on) and the u8 flag of the
+	// variance section (version 4 on) sit before the modes.
 	const at = 4 + 2 + 4 + 8 + 1 + 8 + 8 + 4
 	mb, err := tr.ms.MarshalBinary()
 	if err != nil {
 		t.Fatal(err)
 	}
-	lagAt := len(ck) - 4 - len(mb) - 4 - 4
+	lagAt := len(ck) - 4 - len(mb) - 4 - 1 - 4
 	v1 := append(bytes.Clone(ck[:at]), ck[at+4:lagAt]...)
-	v1 = append(v1, ck[lagAt+4:len(ck)-4]...)
+	v1 = append(v1, ck[lagAt+4+1:len(ck)-4]...)
 	binary.LittleEndian.PutUint16(v1[4:], 1)
 	v1 = binary.LittleEndian.AppendUint32(v1, crc32.ChecksumIEEE(v1))
 	tr2, err := New(p, cfg)
@@ -214,4 +215,84 @@ func steppedTracker(t *testing.T, p int, cfg Config, n int) (*Tracker, *gaussSou
 		t.Fatal(err)
 	}
 	return tr, src, ck
+}
+
+// The variance statistic's EWMA and normal levels travel in the checkpoint
+// (version 4): a tracker restored mid-stream gives bit-identical R and V
+// to an uninterrupted one. A version 3 checkpoint (no variance section)
+// still loads and starts the statistic again from its levels at 1, which
+// gives different V: the comparison this test makes can fail.
+func TestCheckpointVarianceState(t *testing.T) {
+	const p = 9
+	cfg := Config{Period: time.Second, HalfLife: 10 * time.Minute, WarmUp: 60, RefreshEvery: 16, Batch: 4,
+		Residual: true, Variance: true, Modes: modes.Config{Count: 2}}
+	tr, src, ck := steppedTracker(t, p, cfg, 317) // mid-batch, between refreshes
+	xs := src.frames(300, p)
+	type rv struct{ r, v, rl, vl float64 }
+	want := make([]rv, len(xs))
+	var sc Score
+	for k, x := range xs {
+		if err := tr.Step(&sc, x, nil); err != nil {
+			t.Fatal(err)
+		}
+		if !sc.Ready || !(sc.VarianceLimit > 0) {
+			t.Fatalf("frame %d: no variance statistic (%+v)", k, sc)
+		}
+		want[k] = rv{sc.Residual, sc.Variance, sc.ResidualLimit, sc.VarianceLimit}
+	}
+	replay := func(ck []byte) (same bool, first int) {
+		re, err := New(p, cfg)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if err := re.UnmarshalBinary(ck); err != nil {
+			t.Fatal(err)
+		}
+		for k, x := range xs {
+			if err := re.Step(&sc, x, nil); err != nil {
+				t.Fatal(err)
+			}
+			got := rv{sc.Residual, sc.Variance, sc.ResidualLimit, sc.VarianceLimit}
+			if math.Float64bits(got.r) != math.Float64bits(want[k].r) || math.Float64bits(got.v) != math.Float64bits(want[k].v) ||
+				got.rl != want[k].rl || got.vl != want[k].vl {
+				return false, k
+			}
+		}
+		return true, -1
+	}
+	if same, k := replay(ck); !same {
+		t.Fatalf("frame %d after restore: variance or residual statistic differs from the uninterrupted run", k)
+	}
+
+	// The same state written as version 3: drop the variance section
+	// (flag, then 3p floats, just before the modes).
+	mb, err := func() ([]byte, error) {
+		re, _ := New(p, cfg)
+		if err := re.UnmarshalBinary(ck); err != nil {
+			return nil, err
+		}
+		return re.ms.MarshalBinary()
+	}()
+	if err != nil {
+		t.Fatal(err)
+	}
+	varAt := len(ck) - 4 - len(mb) - 4 - (1 + 3*8*p)
+	if ck[varAt] != 1 {
+		t.Fatalf("variance flag %d at byte %d, want 1", ck[varAt], varAt)
+	}
+	v3 := append(bytes.Clone(ck[:varAt]), ck[varAt+1+3*8*p:len(ck)-4]...)
+	binary.LittleEndian.PutUint16(v3[4:], 3)
+	v3 = binary.LittleEndian.AppendUint32(v3, crc32.ChecksumIEEE(v3))
+	if same, _ := replay(v3); same {
+		t.Error("a version 3 checkpoint (variance state dropped) gave the same variance statistic: the test cannot see the state")
+	}
+
+	// A corrupt normal level is refused.
+	bad := bytes.Clone(ck[:len(ck)-4])
+	binary.LittleEndian.PutUint64(bad[varAt+1+8*p:], math.Float64bits(-1))
+	bad = binary.LittleEndian.AppendUint32(bad, crc32.ChecksumIEEE(bad))
+	re, _ := New(p, cfg)
+	if err := re.UnmarshalBinary(bad); !errors.Is(err, ErrCheckpoint) {
+		t.Errorf("negative normal level: want ErrCheckpoint, got %v", err)
+	}
 }

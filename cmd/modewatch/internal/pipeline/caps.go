@@ -97,6 +97,9 @@ func checkUnitCaps(mu *ModelUnit, maxChannels int) error {
 	if err := checkState(mu.Name, mu.State, p); err != nil {
 		return err
 	}
+	if err := checkSmoothed(mu); err != nil {
+		return err
+	}
 	if st := mu.States; st != nil {
 		if len(st.Models) > tracker.MaxStates || len(st.Bands) > tracker.MaxStates {
 			return fmt.Errorf("%w: unit %.64q: %d state models and %d bands (at most %d)", ErrModelFile, mu.Name, len(st.Models), len(st.Bands), tracker.MaxStates)

@@ -130,6 +130,10 @@ type ModelUnit struct {
 	// DriverSlopes is the regression on the context channels of the model
 	// in State (context.go), so that a restart goes on with it.
 	DriverSlopes []float64 `json:"driver_slopes,omitempty"`
+	// Smoothed holds, in a unit checkpoint with model.smoothing, each alarm
+	// statistic's smoothed ratio at the checkpoint's last frame; absent in
+	// fitted models and older checkpoints (the smoothing starts again).
+	Smoothed []SmoothedStat `json:"smoothed,omitempty"`
 	// Suggested lists channels of other units that explain a large share
 	// of this unit's variance in the fitted log: candidates for Context.
 	Suggested []ContextSuggestion `json:"context_suggested,omitempty"`
