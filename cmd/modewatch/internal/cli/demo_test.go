@@ -12,6 +12,8 @@ import (
 
 	"modewatch/cmd/modewatch/internal/service"
 	"modewatch/configs"
+
+	"go.yaml.in/yaml/v3"
 )
 
 // TestDemoRuns: the demo needs no configuration and no network (embedded
@@ -31,7 +33,7 @@ func TestDemoRuns(t *testing.T) {
 		t.Fatal(err)
 	}
 	for _, want := range []string{
-		"modewatch is advisory", "settings (configs/demo.yaml): " + demoSettings(cfg), `"modewatch tune"`, "not certified",
+		"modewatch is advisory", "settings: the defaults (configs/demo.yaml only sets", demoSettings(cfg), "calibrated to alerts.budget",
 		"1. fitted 4 units", "2. service running with an embedded NATS server at nats://127.0.0.1:",
 		"/api/units", "3. publishing", "plant time", "4. scored", "F1-header-bias",
 	} {
@@ -46,15 +48,16 @@ func TestDemoRuns(t *testing.T) {
 // plant, scored strictly (an alert counts only in the unit that holds the
 // faulty sensor).
 //
-// This live run measured 7 of 7 detected, 7 isolated in the top 3 and 6
-// false alerts over the two days (3.00 per simulated day) with the
-// settings of configs/demo.yaml. The bounds are every labelled episode
-// detected, at most 4 false alerts per simulated day (one above the
-// measured rate; the issue's target of one per day is not met) and at
-// least 5 isolated (two fewer than measured, so one alert's ranking may
-// change). The data and the faults are invented (sim) and the settings
-// were tuned on them, so this is a check of the shipped demo, not a
-// validation of the method.
+// The demo runs with the default detection settings (chosen on the
+// realism suite, not on this plant) and each unit calibrated to the
+// default alerts.budget on the first day. Three live runs at 15000× each
+// measured 3 of 7 detected (F1 bias, F3 stuck, F4 noise), 3 isolated in
+// the top 3 and 2 false alerts over the two days (1.00 per simulated
+// day). The bounds are those figures, with one false alert more
+// (1.5 per simulated day): detection below 3 or more false alerts than
+// that is a change in the defaults' behaviour on this plant worth a look.
+// The data and the faults are invented (sim); this is a check of the
+// shipped demo, not a validation of the method.
 func TestDemoOutcome(t *testing.T) {
 	if testing.Short() {
 		t.Skip("runs the full demo (two simulated days) at a high speed-up")
@@ -79,14 +82,14 @@ func TestDemoOutcome(t *testing.T) {
 		t.Errorf("scored %d frames, want about 8640", oc.frames)
 	}
 	m := oc.metrics
-	if m.Episodes != 7 || m.Detected != 7 {
-		t.Errorf("detected %d of %d labelled faults, want 7 of 7", m.Detected, m.Episodes)
+	if m.Episodes != 7 || m.Detected < 3 {
+		t.Errorf("detected %d of %d labelled faults, want at least 3 of 7", m.Detected, m.Episodes)
 	}
-	if m.FalseAlertsPerDay == nil || *m.FalseAlertsPerDay > 4 || math.IsNaN(*m.FalseAlertsPerDay) {
-		t.Errorf("false alerts per day = %v (%d false alerts over %s), want at most 4", m.FalseAlertsPerDay, m.FalseAlerts, oc.span)
+	if m.FalseAlertsPerDay == nil || *m.FalseAlertsPerDay > 1.5 || math.IsNaN(*m.FalseAlertsPerDay) {
+		t.Errorf("false alerts per day = %v (%d false alerts over %s), want at most 1.5", m.FalseAlertsPerDay, m.FalseAlerts, oc.span)
 	}
-	if m.IsolatedTop3 < 5 {
-		t.Errorf("%d faults isolated in the top 3, want at least 5", m.IsolatedTop3)
+	if m.IsolatedTop3 < 3 {
+		t.Errorf("%d faults isolated in the top 3, want at least 3", m.IsolatedTop3)
 	}
 	text := out.String()
 	// The advisory caution opens and closes the output.
@@ -94,8 +97,8 @@ func TestDemoOutcome(t *testing.T) {
 		t.Errorf("the caution %q appears %d times, want 2 (first and last lines)", service.Caution, n)
 	}
 	for _, want := range []string{
-		`found with "modewatch tune" on this demo's own labelled log`, "not certified for any plant",
-		"4. scored", "labelled faults started so far: 7, detected 7", "per simulated day",
+		"the defaults, chosen on the realism suite", "4 calibrated to alerts.budget",
+		"4. scored", "labelled faults started so far: 7, detected", "per simulated day",
 	} {
 		if !strings.Contains(text, want) {
 			t.Errorf("demo output lacks %q", want)
@@ -129,9 +132,21 @@ func TestDemoConfigCopyIdentical(t *testing.T) {
 	if cfg.Frames.Period != 20*time.Second || cfg.Server.EmbeddedPort != -1 {
 		t.Errorf("period %s, embedded port %d", cfg.Frames.Period, cfg.Server.EmbeddedPort)
 	}
-	// The settings differ from the defaults (that is why the file exists).
-	if cfg.Model.Sparsity == configs.DefaultSparsity && cfg.Model.Alpha == configs.DefaultAlpha &&
-		cfg.Alerts.OnDelay == (configs.OnDelay{N: configs.DefaultOnDelayN, M: configs.DefaultOnDelayM}) {
-		t.Error("configs/demo.yaml has the default model and alarm settings")
+	// No detection tuning: the demo runs with the default model and alarm
+	// settings, which the realism suite chose (issue 11: the file keeps
+	// only what the demo needs to run).
+	var top map[string]any
+	if err := yaml.Unmarshal(demoYAML, &top); err != nil {
+		t.Fatal(err)
+	}
+	for _, k := range []string{"model", "alerts", "units"} {
+		if _, ok := top[k]; ok {
+			t.Errorf("configs/demo.yaml sets %s: the demo runs with the default detection settings", k)
+		}
+	}
+	def := &configs.Config{}
+	def.ApplyDefaults()
+	if got, want := demoSettings(cfg), demoSettings(def); got != want {
+		t.Errorf("demo settings %q, defaults %q", got, want)
 	}
 }

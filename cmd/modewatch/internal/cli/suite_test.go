@@ -88,11 +88,14 @@ func TestSimSuite(t *testing.T) {
 	}
 }
 
-// TestSimSuiteConfig: --config reaches fit (the model carries the demo
-// settings' sparsity, l0:3, where the default is l0:6).
+// TestSimSuiteConfig: --config reaches fit (the model carries the
+// configuration's sparsity, l0:3, where the default is l0:6).
 func TestSimSuiteConfig(t *testing.T) {
 	out := t.TempDir()
-	cfg := filepath.Join("..", "..", "..", "..", "configs", "demo.yaml")
+	cfg := filepath.Join(t.TempDir(), "sparse.yaml")
+	if err := os.WriteFile(cfg, []byte("model:\n  sparsity: \"l0:3\"\n"), 0o644); err != nil {
+		t.Fatal(err)
+	}
 	code, stdout, errs := runCLI(t, "", "sim", "--suite", "--days", "0.25", "--plants", "demo", "--config", cfg, "--out", out)
 	if code != ExitOK {
 		t.Fatalf("exit %d: %s", code, errs)
