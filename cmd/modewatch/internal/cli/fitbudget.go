@@ -100,6 +100,9 @@ func printCalibration(env IO, u pipeline.ModelUnit) {
 	}
 	fmt.Fprintf(env.Out, "  budget %.3g false alerts/day: limits ×%.3f%s; expected %.3g/day [95%% %.3g, %.3g]; held-out %.1f days: %d alerts of the whole rule at this scale; GEV of %d block maxima of %v\n",
 		c.Budget, c.Scale, th, c.Rate, c.RateLow, c.RateHigh, c.HeldOutDays, c.Observed, c.Blocks, time.Duration(c.Block))
+	if c.GEVScale > 0 {
+		fmt.Fprintf(env.Out, "  the extreme-value scale ×%.3f opened more alerts over the held-out days than the budget allows there; raised to ×%.3f\n", c.GEVScale, c.Scale)
+	}
 	if c.DaysNeeded > 0 {
 		fmt.Fprintf(env.Out, "  warning: the normal log is too short for this budget: the interval is wider than a factor 2; about %.1f days of normal log needed\n", c.DaysNeeded)
 	}

@@ -37,6 +37,11 @@ type Calibration struct {
 	Mu     float64  `json:"gev_mu"`
 	Sigma  float64  `json:"gev_sigma"`
 	Xi     float64  `json:"gev_xi"`
+	// GEVScale, when set, is the GEV's scale for the budget, which opened
+	// more alerts over the held-out data than the budget allows there
+	// (⌊budget · HeldOutDays⌋); Scale was then raised to the smallest that
+	// does not, and Rate is the GEV's rate at it.
+	GEVScale float64 `json:"gev_scale,omitempty"`
 	// DaysNeeded is set when the normal log is too short for the budget:
 	// the days of normal log (held-out and learning parts together) for
 	// the interval to lie within a factor of two of the rate.
@@ -162,6 +167,15 @@ func AlarmRule(c *configs.Config, name string) alerts.AlarmRule {
 // unit's alert, off-delay and deadband included) is then run over the
 // held-out frames at c to count the alerts it opens (Observed).
 //
+// When that count exceeds ⌊budget · held-out days⌋, the GEV contradicts
+// the data it was fitted to (an excursion the block maxima count once
+// opens several alerts when the statistic hovers about the limit longer
+// than the off-delay), and c is raised to the smallest scale whose count
+// is within it (Calibration.GEVScale keeps the GEV's). On the realism
+// suite this raised 7 of 10 units' scales by up to 24 % and took the
+// false alerts per day summed over the plants from 9.2 to 8.4 at the
+// same detections (README, Validation).
+//
 // learnDays, the span of normal log used for learning before the held-out
 // part, only enters DaysNeeded.
 func CalibrateBudget(t []time.Time, ratios [][nStatistics]float64, budget float64, rule alerts.AlarmRule, learnDays float64) (Calibration, error) {
@@ -261,7 +275,54 @@ func CalibrateBudget(t []time.Time, ratios [][nStatistics]float64, budget float6
 		cal.DaysNeeded = (days + learnDays) * f * f
 	}
 	cal.Observed = countAlerts(t, ratios, c, rule)
+	if allow := math.Floor(budget * days); float64(cal.Observed) > allow {
+		// The held-out data contradicts the GEV: raise the scale to the
+		// smallest at which the whole rule opens at most the budget's
+		// share of alerts over them.
+		cal.GEVScale = c
+		c = heldOutScale(t, ratios, s, c, allow, rule)
+		pc, se = fit.ExceedSE(c)
+		cal.Scale = c
+		cal.Rate = pc * perDay
+		rel = 0
+		if pc > 0 {
+			rel = se / pc
+		}
+		cal.RateLow = cal.Rate * math.Exp(-1.96*rel)
+		cal.RateHigh = cal.Rate * math.Exp(1.96*rel)
+		cal.Observed = countAlerts(t, ratios, c, rule)
+	}
 	return cal, nil
+}
+
+// heldOutScale returns the smallest scale above lo (to a relative 10⁻⁹)
+// at which the alarm rule opens at most allow alerts over the held-out
+// frames, by bisection between lo and just above the largest rule
+// statistic s (where it opens none). The count is not strictly monotone
+// in the scale (a higher limit can split one excursion in two), so the
+// result is checked, and the upper end kept if the bisection's is not
+// within allow.
+func heldOutScale(t []time.Time, ratios [][nStatistics]float64, s []float64, lo, allow float64, rule alerts.AlarmRule) float64 {
+	hi := lo
+	for _, v := range s {
+		if !math.IsInf(v, 0) && !math.IsNaN(v) && v > hi {
+			hi = v
+		}
+	}
+	hi *= 1 + 1e-9
+	top := hi
+	for hi-lo > 1e-9*hi {
+		mid := lo + (hi-lo)/2
+		if float64(countAlerts(t, ratios, mid, rule)) <= allow {
+			hi = mid
+		} else {
+			lo = mid
+		}
+	}
+	if float64(countAlerts(t, ratios, hi, rule)) > allow {
+		return top
+	}
+	return hi
 }
 
 // countAlerts runs the alarm rule (one alerts.Alarm per statistic, the

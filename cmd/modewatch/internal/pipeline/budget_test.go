@@ -103,3 +103,59 @@ func TestBudgetAR1(t *testing.T) {
 		t.Errorf("per-frame α limits gave %.2f alerts/day; expected them to miss the budget (above 2× and above the interval)", alpha)
 	}
 }
+
+// TestBudgetHeldOutFloor: held-out ratios whose excursions hover about
+// their peak longer than the off-delay, so that each breaks into several
+// alerts, while the block maxima count each once. The GEV's scale then
+// opens more alerts over the held-out days than the budget allows there
+// (⌊budget · days⌋); the calibration raises the scale to the smallest
+// that does not (checked against a scan of the whole rule) and keeps the
+// GEV's scale. Invented series (seeded), derived check.
+func TestBudgetHeldOutFloor(t *testing.T) {
+	const period = time.Minute
+	const days = 4
+	n := days * 24 * 60
+	rng := rand.New(rand.NewPCG(5, 8))
+	t0 := time.Date(2026, 1, 1, 0, 0, 0, 0, time.UTC)
+	ts := make([]time.Time, n)
+	rs := make([][nStatistics]float64, n)
+	for k := range rs {
+		ts[k] = t0.Add(time.Duration(k) * period)
+		rs[k] = [nStatistics]float64{0.3 + 0.1*rng.Float64(), math.NaN(), math.NaN(), math.NaN(), math.NaN(), math.NaN()}
+	}
+	// An excursion every 3 h: 90 min of peaks of one height, 8 min on and
+	// 8 min off (longer than the 5 min off-delay), heights 0.9 to 1.5.
+	for start := 60; start+90 < n; start += 180 {
+		h := 0.9 + 0.6*rng.Float64()
+		for k := start; k < start+90; k++ {
+			if (k-start)%16 < 8 {
+				rs[k][0] = h * (0.97 + 0.03*rng.Float64())
+			}
+		}
+	}
+	rule := alerts.AlarmRule{N: 3, M: 5, OffDelay: 5 * time.Minute}
+	const budget = 0.5
+	cal, err := CalibrateBudget(ts, rs, budget, rule, days)
+	if err != nil {
+		t.Fatal(err)
+	}
+	allow := int(math.Floor(budget * days))
+	t.Logf("GEV scale %.4f, calibrated %.4f, held-out alerts %d (allowed %d), rate %.3f [%.3f, %.3f]",
+		cal.GEVScale, cal.Scale, cal.Observed, allow, cal.Rate, cal.RateLow, cal.RateHigh)
+	if !(cal.GEVScale > 0) {
+		t.Fatalf("the GEV's scale was not raised (held-out alerts %d, allowed %d): the series does not exercise the floor", cal.Observed, allow)
+	}
+	if got := countAlerts(ts, rs, cal.GEVScale, rule); got <= allow {
+		t.Errorf("at the GEV's scale %.4f the rule opens %d alerts, within the %d allowed: it should not have been raised", cal.GEVScale, got, allow)
+	}
+	if cal.Observed > allow || countAlerts(ts, rs, cal.Scale, rule) != cal.Observed {
+		t.Errorf("calibrated scale %.4f opens %d alerts (recorded %d), allowed %d", cal.Scale, countAlerts(ts, rs, cal.Scale, rule), cal.Observed, allow)
+	}
+	// The smallest such scale: 0.2 % lower opens more than allowed.
+	if got := countAlerts(ts, rs, cal.Scale*0.998, rule); got <= allow {
+		t.Errorf("0.2 %% below the calibrated scale the rule opens %d alerts, still within %d: the scale is not the smallest", got, allow)
+	}
+	if !(cal.Rate < budget) {
+		t.Errorf("rate at the raised scale %.3f, want below the budget %v", cal.Rate, budget)
+	}
+}
