@@ -28,6 +28,24 @@ func augmentRows(t testing.TB, rows [][]float64, lags, from int) [][]float64 {
 	return out
 }
 
+// overLimits scores rows with tr (no learning) and counts the frames over
+// the T², SPE and φ limits.
+func overLimits(t testing.TB, tr *Tracker, rows [][]float64) (n [3]int) {
+	t.Helper()
+	var sc Score
+	for _, x := range rows {
+		if err := tr.Evaluate(&sc, x, nil); err != nil {
+			t.Fatal(err)
+		}
+		for j, over := range [3]bool{sc.T2 > sc.T2Limit, sc.SPE > sc.SPELimit, sc.Phi > sc.PhiLimit} {
+			if over {
+				n[j]++
+			}
+		}
+	}
+	return n
+}
+
 type tepDynResult struct {
 	farTheory [2]float64 // T², SPE over d00_te at the α = 1 % theoretical limits
 	t2, q     [21]float64
@@ -67,39 +85,14 @@ func runTEPDynamic(t testing.TB, lags int, mc modes.Config, train, normal [][]fl
 		res.supports = append(res.supports, append([]int(nil), tr.Modes().Mode(j).Support...))
 	}
 	norm := augmentRows(t, normal, lags, lags)
-	var sc Score
-	for _, x := range norm {
-		if err := tr.Evaluate(&sc, x, nil); err != nil {
-			t.Fatal(err)
-		}
-		if sc.T2 > sc.T2Limit {
-			res.farTheory[0]++
-		}
-		if sc.SPE > sc.SPELimit {
-			res.farTheory[1]++
-		}
-	}
-	res.farTheory[0] /= float64(len(norm))
-	res.farTheory[1] /= float64(len(norm))
+	n := overLimits(t, tr, norm)
+	res.farTheory[0] = float64(n[0]) / float64(len(norm))
+	res.farTheory[1] = float64(n[1]) / float64(len(norm))
 	if err := tr.Calibrate(norm); err != nil {
 		t.Fatal(err)
 	}
 	for f := 0; f < 21; f++ {
-		var n [2]int
-		for k, x := range augmentRows(t, faults[f], lags, 0) {
-			if k < 160 {
-				continue
-			}
-			if err := tr.Evaluate(&sc, x, nil); err != nil {
-				t.Fatal(err)
-			}
-			if sc.T2 > sc.T2Limit {
-				n[0]++
-			}
-			if sc.SPE > sc.SPELimit {
-				n[1]++
-			}
-		}
+		n := overLimits(t, tr, augmentRows(t, faults[f], lags, 0)[160:])
 		res.t2[f] = float64(n[0]) / 800
 		res.q[f] = float64(n[1]) / 800
 	}
