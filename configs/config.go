@@ -333,6 +333,14 @@ type Model struct {
 	// serially correlated statistics); its threshold then comes from
 	// alerts.budget. 0 (default) means no smoothing.
 	Smoothing float64 `yaml:"smoothing"`
+	// Lags is the number of lagged copies of the channels the model sees
+	// (dynamic modes, Ku, Storer & Georgakis 1995): each frame is modelled
+	// with the Lags frames before it, so that a mode names sensor-and-lag
+	// pairs. 0 (default) is the static model; at most tracker.MaxLags.
+	// The unit's channels are then fixed at the first frame, context
+	// channels are modelled as the unit's own, and empirical limits are
+	// not available.
+	Lags int `yaml:"lags"`
 }
 
 // Alerts holds the alarm settings. Zero fields mean "inherit"/"default".
@@ -566,6 +574,9 @@ func (m Model) Over(base Model) Model {
 	}
 	if m.Smoothing == 0 {
 		m.Smoothing = base.Smoothing
+	}
+	if m.Lags == 0 {
+		m.Lags = base.Lags
 	}
 	return m
 }

@@ -6,6 +6,8 @@ import (
 	"net/url"
 	"strings"
 	"time"
+
+	"modewatch/tracker"
 )
 
 // Validate checks the configuration and returns every problem at once as
@@ -306,6 +308,9 @@ func (v *validator) model(p string, m Model, partial bool) {
 	}
 	if m.MaxModes < 0 {
 		v.add(p+".max_modes", "negative")
+	}
+	if m.Lags < 0 || m.Lags > tracker.MaxLags {
+		v.add(p+".lags", "%d lagged copies, want 0 to %d", m.Lags, tracker.MaxLags)
 	}
 	if m.Smoothing != 0 && !(m.Smoothing > 0 && m.Smoothing < 1) {
 		v.add(p+".smoothing", "%g is not an EWMA weight in (0, 1)", m.Smoothing)

@@ -1,6 +1,7 @@
 package tracker
 
 import (
+	"encoding/binary"
 	"fmt"
 	"math"
 )
@@ -105,3 +106,56 @@ func (l *Lagged) Augment(dst []float64, dstMissing []bool, x []float64, missing 
 // Reset forgets the previous frames (after a gap in the data, so that no
 // augmented frame joins frames that were not consecutive).
 func (l *Lagged) Reset() { l.head, l.n = 0, 0 }
+
+// MarshalBinary writes the previous frames held (nil-safe: nil for a nil
+// Lagged), little-endian:
+//
+//	u32 p | u32 L | u32 n | n × p × f64 (x_{t−1} first; NaN: missing)
+func (l *Lagged) MarshalBinary() ([]byte, error) {
+	if l == nil {
+		return nil, nil
+	}
+	b := make([]byte, 0, 12+8*l.n*l.p)
+	b = binary.LittleEndian.AppendUint32(b, uint32(l.p))
+	b = binary.LittleEndian.AppendUint32(b, uint32(l.lags))
+	b = binary.LittleEndian.AppendUint32(b, uint32(l.n))
+	for k := 0; k < l.n; k++ {
+		s := (l.head + k) % l.lags
+		for _, v := range l.ring[s*l.p : (s+1)*l.p] {
+			b = binary.LittleEndian.AppendUint64(b, math.Float64bits(v))
+		}
+	}
+	return b, nil
+}
+
+// UnmarshalBinary restores the previous frames written by MarshalBinary
+// into a Lagged of the same p and L; on an error nothing changes. Empty
+// data on a nil Lagged is no error.
+func (l *Lagged) UnmarshalBinary(data []byte) error {
+	if l == nil {
+		if len(data) == 0 {
+			return nil
+		}
+		return fmt.Errorf("tracker: lagged frames given to a model without lagged copies")
+	}
+	if len(data) < 12 {
+		return fmt.Errorf("tracker: lagged frames: %d bytes is too short", len(data))
+	}
+	p, lags, n := int(binary.LittleEndian.Uint32(data)), int(binary.LittleEndian.Uint32(data[4:])), int(binary.LittleEndian.Uint32(data[8:]))
+	switch {
+	case p != l.p || lags != l.lags:
+		return fmt.Errorf("tracker: lagged frames of %d channels and %d lags, this model has %d and %d", p, lags, l.p, l.lags)
+	case n < 0 || n > lags || len(data) != 12+8*n*p:
+		return fmt.Errorf("tracker: lagged frames: %d frames in %d bytes (at most %d frames of %d channels)", n, len(data), lags, p)
+	}
+	for i := 0; i < n*p; i++ {
+		if v := math.Float64frombits(binary.LittleEndian.Uint64(data[12+8*i:])); math.IsInf(v, 0) {
+			return fmt.Errorf("tracker: lagged frames: value %d is %v", i, v)
+		}
+	}
+	l.head, l.n = 0, n
+	for i := 0; i < n*p; i++ {
+		l.ring[i] = math.Float64frombits(binary.LittleEndian.Uint64(data[12+8*i:]))
+	}
+	return nil
+}

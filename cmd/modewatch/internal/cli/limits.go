@@ -92,6 +92,9 @@ func calibrate(p *pipeline.Pipeline, cfg *configs.Config, period time.Duration, 
 		if u == nil || u.Tracker() == nil {
 			return fmt.Errorf("empirical limits: unit %s has no fitted model", name)
 		}
+		if u.Lags() > 0 {
+			return fmt.Errorf("empirical limits: unit %s: not available for a model with lagged copies (model.lags %d)", u.Name, u.Lags())
+		}
 		t := &target{unit: u, names: u.Channels()}
 		t.idx = make([]int, len(t.names))
 		for k := range t.idx {

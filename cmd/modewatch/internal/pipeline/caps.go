@@ -58,7 +58,7 @@ func (u *Unit) memoryBytes() int64 {
 	if u.states != nil && len(u.states.models) > 1 {
 		n = len(u.states.models)
 	}
-	return int64(n) * UnitModelBytes(len(u.names))
+	return int64(n) * UnitModelBytes(trackerWidth(u.model, len(u.names)))
 }
 
 // minStateBytes is the smallest tracker state of p channels: the header
@@ -93,8 +93,13 @@ func checkUnitCaps(mu *ModelUnit, maxChannels int) error {
 		return fmt.Errorf("%w: unit name of %d bytes (at most %d)", ErrModelFile, len(mu.Name), maxNameBytes)
 	case len(mu.Last) > p:
 		return fmt.Errorf("%w: unit %.64q carries %d readings for %d channels", ErrModelFile, mu.Name, len(mu.Last), p)
+	case mu.Settings.Lags < 0 || mu.Settings.Lags > tracker.MaxLags:
+		return fmt.Errorf("%w: unit %.64q: %d lagged copies (0 to %d)", ErrModelFile, mu.Name, mu.Settings.Lags, tracker.MaxLags)
+	case p*(1+mu.Settings.Lags) > maxChannels:
+		return fmt.Errorf("%w: unit %.64q: %d channels with %d lagged copies are %d columns, over this unit's cap of %d (model.max_channels)",
+			ErrModelFile, mu.Name, p, mu.Settings.Lags, p*(1+mu.Settings.Lags), maxChannels)
 	}
-	if err := checkState(mu.Name, mu.State, p); err != nil {
+	if err := checkState(mu.Name, mu.State, p*(1+mu.Settings.Lags)); err != nil {
 		return err
 	}
 	if err := checkSmoothed(mu); err != nil {

@@ -232,7 +232,7 @@ func (u *Unit) location(dst []string) []string {
 			first = c.RBC
 		}
 		lead++
-		add(c.Channel)
+		add(u.base(c.Channel))
 		for _, id := range c.Modes {
 			for j := 0; j < ms.Count(); j++ {
 				m := ms.Mode(j)
@@ -245,7 +245,7 @@ func (u *Unit) location(dst []string) []string {
 				}
 				for _, i := range m.Support {
 					if math.Abs(m.Loadings[i]) >= widenShare*big {
-						add(i)
+						add(u.base(i))
 					}
 				}
 			}

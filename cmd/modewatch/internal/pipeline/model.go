@@ -19,14 +19,16 @@ import (
 )
 
 // TrackerConfig converts a unit's model settings into a tracker
-// configuration for p channels. With equal true the frames are weighted
-// equally (no forgetting), as fit does by default.
+// configuration for p channels (with model.lags L, for the p·(L+1)
+// columns of the lagged frames, trackerWidth). With equal true the frames
+// are weighted equally (no forgetting), as fit does by default.
 //
 // A cardinality above the channel count (l0:K with K > p, l1:S with
 // S > √p) is lowered to it: a unit of 4 channels under the default l0:6
 // gets dense modes rather than an error.
 func TrackerConfig(m configs.Model, period time.Duration, p int, equal bool) (tracker.Config, error) {
 	m = m.Over(configs.DefaultModel())
+	p = trackerWidth(m, p)
 	sp, err := modes.ParseSparsity(m.Sparsity)
 	if err != nil {
 		return tracker.Config{}, err
@@ -130,6 +132,11 @@ type ModelUnit struct {
 	// DriverSlopes is the regression on the context channels of the model
 	// in State (context.go), so that a restart goes on with it.
 	DriverSlopes []float64 `json:"driver_slopes,omitempty"`
+	// Lagged holds, in a unit checkpoint with model.lags, the previous
+	// frames of the lagged model (tracker.Lagged.MarshalBinary); absent in
+	// fitted models (a restart from one starts with the lagged values
+	// missing for model.lags frames).
+	Lagged []byte `json:"lagged,omitempty"`
 	// Smoothed holds, in a unit checkpoint with model.smoothing, each alarm
 	// statistic's smoothed ratio at the checkpoint's last frame; absent in
 	// fitted models and older checkpoints (the smoothing starts again).
@@ -164,6 +171,7 @@ type ModelSettings struct {
 	WarmUp       int      `json:"warmup"`
 	Statistics   string   `json:"statistics,omitempty"`
 	Smoothing    float64  `json:"smoothing,omitempty"`
+	Lags         int      `json:"lags,omitempty"`
 }
 
 // Duration is a time.Duration that reads and writes as "1h30m0s".
@@ -185,7 +193,7 @@ func (d *Duration) UnmarshalText(b []byte) error {
 func settingsOf(m configs.Model) ModelSettings {
 	return ModelSettings{
 		Sparsity: m.Sparsity, Modes: m.Modes.String(), MaxModes: m.MaxModes, HalfLife: Duration(m.HalfLife),
-		Alpha: m.Alpha, RefreshEvery: m.RefreshEvery, WarmUp: m.WarmUp, Statistics: m.Statistics, Smoothing: m.Smoothing,
+		Alpha: m.Alpha, RefreshEvery: m.RefreshEvery, WarmUp: m.WarmUp, Statistics: m.Statistics, Smoothing: m.Smoothing, Lags: max(m.Lags, 0),
 	}
 }
 
@@ -196,7 +204,7 @@ func (s ModelSettings) model() (configs.Model, error) {
 	}
 	return configs.Model{
 		Sparsity: s.Sparsity, Modes: mc, MaxModes: s.MaxModes, HalfLife: time.Duration(s.HalfLife),
-		Alpha: s.Alpha, RefreshEvery: s.RefreshEvery, WarmUp: s.WarmUp, Statistics: s.Statistics, Smoothing: s.Smoothing,
+		Alpha: s.Alpha, RefreshEvery: s.RefreshEvery, WarmUp: s.WarmUp, Statistics: s.Statistics, Smoothing: s.Smoothing, Lags: s.Lags,
 	}, nil
 }
 
@@ -279,7 +287,7 @@ func (p *Pipeline) buildFromModel(mu *ModelUnit, period time.Duration) (*Unit, e
 		return nil, fmt.Errorf("%w: unit %s: %v", ErrModelFile, mu.Name, err)
 	}
 	p.learnSettings(&cfg, p.cfg.ModelFor(mu.Name), period)
-	tr, err := tracker.New(len(mu.Channels), cfg)
+	tr, err := tracker.New(trackerWidth(settings, len(mu.Channels)), cfg)
 	if err != nil {
 		return nil, fmt.Errorf("%w: unit %s: %v", ErrModelFile, mu.Name, err)
 	}
@@ -316,9 +324,18 @@ func (p *Pipeline) buildFromModel(mu *ModelUnit, period time.Duration) (*Unit, e
 		p.log.Warn("the unit's model was fitted without operating states; it is scored by its one model (fit again to use units[].state)",
 			"unit", mu.Name, "state_channel", p.cfg.Units[i].State)
 	}
-	u.x = make([]float64, len(mu.Channels))
-	u.miss = make([]bool, len(mu.Channels))
 	u.names = append([]string(nil), mu.Channels...)
+	if err := u.newLagged(len(mu.Channels)); err != nil {
+		return nil, fmt.Errorf("%w: %v", ErrModelFile, err)
+	}
+	if u.lag != nil && len(u.context) > 0 {
+		p.log.Warn("the unit's model has lagged copies (model.lags), which do not combine with context channels; they are left out",
+			"unit", mu.Name, "context", u.context)
+		u.context = nil
+	}
+	if err := u.lag.UnmarshalBinary(mu.Lagged); err != nil && len(mu.Lagged) > 0 {
+		return nil, fmt.Errorf("%w: unit %s: %v", ErrModelFile, mu.Name, err)
+	}
 	u.idx = make([]int, len(mu.Channels))
 	for k := range u.idx {
 		u.idx[k] = -1 // resolved against the registry by addChannel

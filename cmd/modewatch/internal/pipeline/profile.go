@@ -135,7 +135,8 @@ func (u *Unit) screenFrame() {
 	for k := range u.ctx {
 		u.screen.Skip(k, u.ctx[k])
 	}
-	u.screen.Step(u.x, u.miss)
+	p := len(u.names) // the channels; u.x holds lagged columns after them with model.lags
+	u.screen.Step(u.x[:p], u.miss[:p])
 	if u.p.opt.Fit {
 		if u.learn == nil {
 			u.learn = &profiler{}
@@ -143,7 +144,7 @@ func (u *Unit) screenFrame() {
 		if len(u.learn.prof) < len(u.names) {
 			u.learn.grow(u.names)
 		}
-		u.learn.add(u.x, u.miss)
+		u.learn.add(u.x[:p], u.miss[:p])
 	}
 }
 

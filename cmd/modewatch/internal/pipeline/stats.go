@@ -93,14 +93,17 @@ func (u *Unit) leadRelation(o *alerts.Observation, s *tracker.Score) {
 	tmp := u.ctmp[:0]
 	in := func(name string) bool {
 		for _, i := range supp {
-			if u.names[i] == name {
+			if u.names[u.base(i)] == name {
 				return true
 			}
 		}
 		return false
 	}
 	for _, i := range supp {
-		c := alerts.Contributor{Channel: u.names[i]}
+		c := alerts.Contributor{Channel: u.names[u.base(i)]}
+		if u.listed(tmp, u.base(i)) {
+			continue // the same channel at another lag (model.lags)
+		}
 		for _, x := range o.Contributors {
 			if x.Channel == c.Channel {
 				c = x

@@ -33,9 +33,11 @@ type Unit struct {
 	names  []string // channel names, same order
 
 	tr    *tracker.Tracker
-	x     []float64
+	x     []float64 // the frame as the tracker sees it (lagged.go: p·(L+1) with model.lags)
 	miss  []bool
 	score tracker.Score
+	lag   *tracker.Lagged // model.lags: the previous frames (nil: static model)
+	lmask []bool          // learning mask widened to the lagged columns
 
 	fixed         bool      // adapt=false: the model never learns
 	equal         bool      // equal weights (fit without a half-life)
@@ -107,7 +109,20 @@ func newUnit(p *Pipeline, name string) *Unit {
 		u.states = newStates(p.cfg.Units[i].State, p.cfg.Units[i].StateBands)
 	}
 	u.context = slices.Clone(p.contextOf(name))
+	u.staticIfNeeded()
 	return u
+}
+
+// staticIfNeeded turns model.lags off, with a warning, for a unit with
+// operating states or context channels, which the lagged model does not
+// support: its model is static, and its settings (and model file) say so.
+func (u *Unit) staticIfNeeded() {
+	if u.lags() == 0 || (u.states == nil && u.autoBuf == nil && !u.p.isAuto(u.Name) && len(u.context) == 0) {
+		return
+	}
+	u.p.log.Warn("model.lags does not combine with operating states or context channels; the unit's model is static",
+		"unit", u.Name, "lags", u.lags())
+	u.model.Lags = -1 // Over keeps an explicit value; lags() reads it as 0
 }
 
 // addChannel gives registry channel i to the unit and reports whether it
@@ -126,6 +141,12 @@ func (u *Unit) addChannel(i int, name string) bool {
 	}
 	if len(u.names) >= u.model.MaxChannels {
 		u.refuse(name)
+		return false
+	}
+	if u.lag != nil && u.tr != nil {
+		u.p.log.Warn("channel is not part of the unit's model: a model with lagged copies (model.lags) keeps the channels it started with; it is not modelled until the model is refitted",
+			"unit", u.Name, "channel", name)
+		u.late = append(u.late, name)
 		return false
 	}
 	if u.fixed && u.tr != nil {
@@ -212,13 +233,14 @@ func (u *Unit) build() error {
 	if err != nil {
 		return fmt.Errorf("pipeline: unit %s: %w", u.Name, err)
 	}
-	tr, err := tracker.New(len(u.idx), cfg)
+	tr, err := tracker.New(trackerWidth(u.model, len(u.idx)), cfg)
 	if err != nil {
 		return fmt.Errorf("pipeline: unit %s (%d channels): %w", u.Name, len(u.idx), err)
 	}
+	if err := u.newLagged(len(u.idx)); err != nil {
+		return err
+	}
 	u.tr = tr
-	u.x = make([]float64, len(u.idx))
-	u.miss = make([]bool, len(u.idx))
 	u.frozen = false
 	u.p.log.Info("unit model built", "unit", u.Name, "channels", len(u.idx), "sparsity", u.model.Sparsity,
 		"modes", u.model.Modes.String(), "halflife", u.model.HalfLife, "warmup_frames", u.model.WarmUp)
@@ -266,6 +288,7 @@ func (u *Unit) stepModel(f *stream.Frame) {
 			u.x[k], u.miss[k] = math.NaN(), true
 		}
 	}
+	u.augment()
 	u.syncContext()
 	if u.nCtx > 0 {
 		observed = u.ownObserved()
@@ -297,7 +320,7 @@ func (u *Unit) stepModel(f *stream.Frame) {
 	// learns the last frame before it is due (NextRefresh == 1 before).
 	refreshDue := !u.frozen && u.score.NextRefresh == 1
 	t0 := time.Now()
-	err := u.tr.StepMasked(&u.score, u.x, u.miss, u.learnMask())
+	err := u.tr.StepMasked(&u.score, u.x, u.miss, u.lagMask(u.learnMask()))
 	if refreshDue && err == nil {
 		u.refreshes++
 		u.lastRefresh = time.Since(t0)
@@ -422,15 +445,18 @@ func (u *Unit) observe(t time.Time) {
 			if u.isContext(c.Channel) {
 				continue // a driver from another unit is never blamed here
 			}
+			if u.lag != nil && u.listed(o.Contributors, u.base(c.Channel)) {
+				continue // a lagged column whose channel is ranked already
+			}
 			o.Contributors = append(o.Contributors, alerts.Contributor{
-				Channel: u.names[c.Channel], Share: c.Share, RBC: c.RBC, Limit: c.RBCLimit, Modes: c.Modes,
+				Channel: u.names[u.base(c.Channel)], Share: c.Share, RBC: c.RBC, Limit: c.RBCLimit, Modes: c.Modes,
 				Reading: c.Reading, Expected: c.Expected, Band: c.Band, BandCoverage: tracker.BandCoverage,
 			})
 		}
 		u.leadRelation(o, s)
 	}
 	for _, i := range s.Missing {
-		if u.screen.MissingAlarm(i) && !u.isContext(i) {
+		if i < len(u.names) && u.screen.MissingAlarm(i) && !u.isContext(i) {
 			o.Missing = append(o.Missing, u.names[i])
 		}
 	}
@@ -447,6 +473,9 @@ func (u *Unit) observe(t time.Time) {
 		// learns nothing more: its channels are judged as they are.)
 		warm := float64(u.tr.Config().WarmUp)
 		for _, i := range s.Excluded {
+			if i >= len(u.names) {
+				continue // a lagged column: its channel at lag 0 is judged
+			}
 			if u.screen.Profiled(i) {
 				continue // judged by its profile (AppendQuality)
 			}

@@ -123,7 +123,7 @@ func (u *Unit) modesOf(tr *tracker.Tracker) []ModeView {
 		m := ms.Mode(j)
 		v := ModeView{ID: m.ID, Channels: make([]string, 0, len(m.Support)), Loadings: make([]float64, 0, len(m.Support))}
 		for _, i := range m.Support {
-			v.Channels = append(v.Channels, u.names[i])
+			v.Channels = append(v.Channels, u.column(i))
 			v.Loadings = append(v.Loadings, m.Loadings[i])
 		}
 		if total > 0 {
@@ -165,21 +165,28 @@ func (u *Unit) View(t time.Time) UnitView {
 		sv.Phi, sv.PhiLimit = finite(s.Phi), finite(c*s.PhiLimit)
 		for _, c := range s.Contrib {
 			sv.Contributors = append(sv.Contributors, ContributorView{
-				Channel: u.names[c.Channel], Share: c.Share, RBC: c.RBC, RBCLimit: c.RBCLimit,
+				Channel: u.column(c.Channel), Share: c.Share, RBC: c.RBC, RBCLimit: c.RBCLimit,
 				Modes:   append([]int(nil), c.Modes...),
 				Reading: alerts.Number(c.Reading), Expected: alerts.Number(c.Expected), Band: alerts.Number(c.Band),
 				BandCoverage: tracker.BandCoverage,
 			})
 		}
 	}
+	// Channels at lag 0 only (model.lags: the lagged columns repeat them).
 	for _, i := range s.Missing {
-		sv.Missing = append(sv.Missing, u.names[i])
+		if i < len(u.names) {
+			sv.Missing = append(sv.Missing, u.names[i])
+		}
 	}
 	for _, i := range s.Excluded {
-		sv.Excluded = append(sv.Excluded, u.names[i])
+		if i < len(u.names) {
+			sv.Excluded = append(sv.Excluded, u.names[i])
+		}
 	}
 	for _, i := range s.Warming {
-		sv.Warming = append(sv.Warming, u.names[i])
+		if i < len(u.names) {
+			sv.Warming = append(sv.Warming, u.names[i])
+		}
 	}
 	v.Latest = sv
 	return v
