@@ -337,9 +337,10 @@ type Model struct {
 	// (dynamic modes, Ku, Storer & Georgakis 1995): each frame is modelled
 	// with the Lags frames before it, so that a mode names sensor-and-lag
 	// pairs. 0 (default) is the static model; at most tracker.MaxLags.
-	// The unit's channels are then fixed at the first frame, context
-	// channels are modelled as the unit's own, and empirical limits are
-	// not available.
+	// The unit's channels are then fixed at the first frame; context
+	// channels and operating states turn it off for the unit (a warning
+	// says so), empirical limits are not available, and an incident
+	// accepted as normal does not recentre its channels.
 	Lags int `yaml:"lags"`
 }
 
