@@ -745,7 +745,8 @@ func TestConfigErrors(t *testing.T) {
 // Slow legitimate change (every channel's level drifts by 4 standard
 // deviations and the gains of the load factor change by 30 % over 30,000
 // frames) is followed by the adaptive model: its exceedance rate stays near
-// α, while a baseline fitted on the first frames and held fixed alarms on
+// α (from both sides) and a fault right after the drift still alarms,
+// while a baseline fitted on the first frames and held fixed alarms on
 // most frames (recursive PCA motivation: Li, Yue, Valle-Cervantes & Qin
 // 2000, "slow and normal process changes … lead to false alarms for a
 // fixed-model monitoring approach").
@@ -777,8 +778,25 @@ func TestAdaptiveFollowsDrift(t *testing.T) {
 	var sa, sf Score
 	var overA, overF [2]int
 	scored := 0
-	for k := 0; k < n; k++ {
+	// After the drift, a fault the adaptive model must still see: channel 3
+	// leaves the relation by 6 noise standard deviations for faultN frames.
+	const faultN = 200
+	var hitA, hitSPE int
+	for k := 0; k < n+faultN; k++ {
 		frame(k, x)
+		if k >= n {
+			x[3] += 3
+			if err := ad.Step(&sa, x, nil); err != nil {
+				t.Fatal(err)
+			}
+			if sa.T2 > sa.T2Limit || sa.SPE > sa.SPELimit {
+				hitA++
+			}
+			if sa.SPE > sa.SPELimit {
+				hitSPE++
+			}
+			continue
+		}
 		if k < warm {
 			first[k] = append([]float64(nil), x...)
 		}
@@ -812,10 +830,21 @@ func TestAdaptiveFollowsDrift(t *testing.T) {
 	rf := [2]float64{float64(overF[0]) / float64(scored), float64(overF[1]) / float64(scored)}
 	t.Logf("exceedances over %d drifting frames: adaptive T² %.2f%% SPE %.2f%%; fixed baseline T² %.2f%% SPE %.2f%%",
 		scored, 100*ra[0], 100*ra[1], 100*rf[0], 100*rf[1])
+	t.Logf("fault after the drift: adaptive alarms on %d of %d frames (SPE %d)", hitA, faultN, hitSPE)
+	// Near α from both sides: a model whose limits never let anything
+	// through (or that never scores) has no exceedances at all. The bar
+	// [0.5 %, 2.5 %] is wide because the adapting model's exceedances are
+	// correlated in time (a binomial count of 28,000 independent frames
+	// would stay within 1 ± 0.2 %).
 	for j, name := range []string{"T²", "SPE"} {
-		if ra[j] > 0.025 {
-			t.Errorf("adaptive %s exceedance %.2f%% under slow drift, want near α = 1%%", name, 100*ra[j])
+		if ra[j] > 0.025 || ra[j] < 0.005 {
+			t.Errorf("adaptive %s exceedance %.2f%% under slow drift, want near α = 1%% (0.5–2.5 %%)", name, 100*ra[j])
 		}
+	}
+	// And it still sees a fault: at least 40 of the 200 fault frames over
+	// a limit, twenty times what α = 1 % on either statistic would give.
+	if hitA < 40 {
+		t.Errorf("adaptive model alarms on %d of %d frames of a 6σ fault after the drift, want ≥ 40", hitA, faultN)
 	}
 	if rf[0]+rf[1] < 0.3 {
 		t.Errorf("fixed baseline exceedances %.2f%% / %.2f%%: drift too weak for the test", 100*rf[0], 100*rf[1])
