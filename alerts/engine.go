@@ -95,7 +95,7 @@ type UnitCounters struct {
 	LastHour  int  // new alerts in the trailing hour
 	LastDay   int  // new alerts in the trailing day
 	Open      int  // incidents open now
-	StaleOpen int  // open incidents flagged stale (ISA-18.2 target: fewer than 5 on any day [MEM])
+	StaleOpen int  // open incidents flagged stale (ISA-18.2 target: fewer than 5 on any day [from memory])
 	InFlood   bool // the unit is in a flood
 	InMaint   bool // the unit is in maintenance
 	Frozen    bool // learning frozen by the engine

@@ -33,7 +33,7 @@ const (
 	// StartColumn starts from the column of A with the largest Euclidean norm,
 	// normalised (one power step from e_i*; ties: lowest index). On Pitprops
 	// the truncated power method from this start reaches the exact λ*(k) for
-	// every k (SPARSE_PCA.md §4, §7.3).
+	// every k (exhaustive search; testdata/REFERENCE.md).
 	StartColumn
 	// StartDense starts from the leading eigenvector of A, computed by the
 	// power method from StartColumn.
@@ -41,7 +41,7 @@ const (
 	// StartIndex starts from the unit vector e_i*, i* the index of the
 	// column of A with the largest norm. In the factor form A = BᵀB this is
 	// the start z⁰ = b_i*/‖b_i*‖ of the GPower code of Journée et al. (2010),
-	// used for the ℓ0-penalised Pitprops check values (SPARSE_PCA.md §7.4).
+	// used for the ℓ0-penalised Pitprops check values of the tests.
 	StartIndex
 )
 
@@ -549,7 +549,7 @@ func (ws *Workspace) iterate(sp Sparsity, eps, tol float64, maxIter int, trace f
 			trace(st.iters, ws.objective(sp, eps, f), true)
 		}
 		if useGap && sp.Method == L0Pen && fPrev > 0 && f > 0 {
-			// Lagged gap of the z-form (SPARSE_PCA.md §3(iii)): with
+			// Lagged gap of the z-form (Luss & Teboulle 2013): with
 			// y = (Ax_prev)_I/√f_prev, γ(z_prev) = 2‖y‖(√f − ‖y‖).
 			y := ws.lastNormI / math.Sqrt(fPrev)
 			g := 2 * y * (math.Sqrt(f) - y)
@@ -790,7 +790,7 @@ func (ws *Workspace) topK(k int) float64 {
 }
 
 // l1Step writes the maximiser u of ⟨c, u⟩ over ‖u‖₂ ≤ 1, ‖u‖₁ ≤ s and returns
-// the maximum ⟨c, u⟩ (SPARSE_PCA.md §3(ii), derived there):
+// the maximum ⟨c, u⟩ (Luss & Teboulle 2013, the ℓ1-constrained map):
 //
 //	u = S_λ(c)/‖S_λ(c)‖₂, λ = 0 if ‖c‖₁ ≤ s‖c‖₂, else the unique λ with
 //	‖S_λ(c)‖₁ = s‖S_λ(c)‖₂; value ‖S_λ(c)‖₂ + λs.
