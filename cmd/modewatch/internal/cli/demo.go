@@ -7,6 +7,7 @@ import (
 	"errors"
 	"fmt"
 	"io"
+	"math"
 	"net"
 	"os"
 	"path/filepath"
@@ -432,7 +433,7 @@ func (b *board) render(recs []alerts.Record) string {
 			fmt.Fprintf(&sb, "  %-10s %-31s %s\n", n, "warming up", l.state)
 			continue
 		}
-		fmt.Fprintf(&sb, "  %-10s %6.1f/%-6.1f %s %6.2f/%-6.2f %s %s\n", n, l.t2, l.t2l, bar(l.t2/l.t2l), l.spe, l.spel, bar(l.spe/l.spel), l.state)
+		fmt.Fprintf(&sb, "  %-10s %6.1f/%-6.1f %s %s %s\n", n, l.t2, l.t2l, bar(l.t2/l.t2l), speCell(l.spe, l.spel), l.state)
 	}
 	b.mu.Unlock()
 	// Open alerts first, then the three most recent that have ended.
@@ -475,6 +476,16 @@ func (b *board) render(recs []alerts.Record) string {
 		line("ended", r)
 	}
 	return sb.String()
+}
+
+// speCell is the SPE column of the board (19 characters): value/limit and
+// its bar, or, when the limit is not finite (the modes span every channel,
+// so nothing is left for SPE to measure), says so in words.
+func speCell(spe, limit float64) string {
+	if math.IsInf(limit, 0) || math.IsNaN(limit) {
+		return fmt.Sprintf("%-19s", "no residual space")
+	}
+	return fmt.Sprintf("%6.2f/%-6.2f %s", spe, limit, bar(spe/limit))
 }
 
 // bar shows a ratio to the limit in 5 cells; "!" past the limit.
