@@ -295,7 +295,7 @@ func (e *Engine) maintenance(c Command) Reply {
 			e.closeIncident(inc, t, EndMaintenance)
 		}
 		if u.flood != nil {
-			e.endFlood(u, t, EndMaintenance)
+			e.endFlood(u, t, t, EndMaintenance)
 		}
 		e.resetAlarms(u, t)
 		e.syncFreeze(u, t)

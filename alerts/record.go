@@ -40,7 +40,7 @@ type Record struct {
 	Quality      *RecordQuality      `json:"quality"`
 	Start        time.Time           `json:"start"`
 	End          *time.Time          `json:"end"`
-	Updated      time.Time           `json:"updated"`
+	Updated      time.Time           `json:"updated"` // frame time of the latest frame the record reflects; never before a peak time
 	State        string              `json:"state"`
 	Peak         Peak                `json:"peak"`
 	Severity     string              `json:"severity"`
