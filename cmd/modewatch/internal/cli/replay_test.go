@@ -285,8 +285,8 @@ func TestFitReplayModel(t *testing.T) {
 // The truth is made by hand around the alerts the replay writes: episode
 // a spans the start of the first incident, episode b lies after the log,
 // so exactly one episode is detected, by that incident, and every other
-// incident starting away from a is false (the scoring rule of
-// evaluate.Compute, applied here by hand).
+// incident starting away from a, or in another unit, is false (the strict
+// scoring rule of evaluate.Compute, applied here by hand).
 func TestReplayStdinAndTruth(t *testing.T) {
 	p, _ := demoLog(t, 6)
 	data, _ := os.ReadFile(p)
@@ -308,12 +308,22 @@ func TestReplayStdinAndTruth(t *testing.T) {
 	if firstID == "" {
 		t.Fatal("the 6-hour demo log raised no incident: the truth would have nothing to detect")
 	}
+	// Episode a names a channel of the first incident's unit (scoring is
+	// strict: only an alert of the unit holding the episode's channels
+	// detects it).
+	first := recs[firstID]
+	aChannel := first.Unit + ".x"
+	if len(first.Contributors) > 0 {
+		aChannel = first.Contributors[0].Channel
+	} else if first.Quality != nil {
+		aChannel = first.Quality.Channel
+	}
 	aStart, aEnd := firstStart.Add(-10*time.Minute), firstStart.Add(time.Minute)
 	truth := filepath.Join(t.TempDir(), "truth.json")
 	os.WriteFile(truth, []byte(fmt.Sprintf(`{"episodes":[
-		{"id":"a","start":%q,"end":%q,"kind":"bias","channels":["air.header.pressure"]},
-		{"id":"b","start":"2026-03-05T03:00:00Z","end":"2026-03-05T05:00:00Z","kind":"bias","channels":["x"]}]}`,
-		aStart.Format(time.RFC3339Nano), aEnd.Format(time.RFC3339Nano))), 0o644)
+		{"id":"a","start":%q,"end":%q,"kind":"bias","channels":[%q]},
+		{"id":"b","start":"2026-03-05T03:00:00Z","end":"2026-03-05T05:00:00Z","kind":"bias","channels":[%q]}]}`,
+		aStart.Format(time.RFC3339Nano), aEnd.Format(time.RFC3339Nano), aChannel, aChannel)), 0o644)
 	code, fromFile, errs := runCLI(t, "", "replay", "--quiet", "--json", "--truth", truth, p)
 	if code != ExitOK {
 		t.Fatalf("exit %d: %s", code, errs)
@@ -336,14 +346,14 @@ func TestReplayStdinAndTruth(t *testing.T) {
 	if m.Matches[1].Alert != "" {
 		t.Errorf("episode b, after the log, matched alert %s", m.Matches[1].Alert)
 	}
-	wantFalse := 0
+	wantFalse := 0 // incidents outside episode a ± grace or of another unit
 	for _, r := range recs {
-		if r.Kind != "flood" && (r.Start.Before(aStart.Add(-evaluate.DefaultGrace)) || r.Start.After(aEnd.Add(evaluate.DefaultGrace))) {
+		if r.Kind != "flood" && (r.Unit != first.Unit || r.Start.Before(aStart.Add(-evaluate.DefaultGrace)) || r.Start.After(aEnd.Add(evaluate.DefaultGrace))) {
 			wantFalse++
 		}
 	}
 	if m.FalseAlerts != wantFalse {
-		t.Errorf("%d false alerts, want %d (incidents starting outside episode a ± %v)", m.FalseAlerts, wantFalse, evaluate.DefaultGrace)
+		t.Errorf("%d false alerts, want %d (incidents of another unit or starting outside episode a ± %v)", m.FalseAlerts, wantFalse, evaluate.DefaultGrace)
 	}
 	if m.FalseAlertsPerDay == nil {
 		t.Fatal("false_alerts_per_day missing")
