@@ -2,7 +2,6 @@ package alerts
 
 import (
 	"bytes"
-	"encoding/json"
 	"fmt"
 	"testing"
 	"time"
@@ -34,17 +33,7 @@ func confirmRun(t *testing.T, e *Engine, from, to int) {
 }
 
 func newConfirmRecorder(t *testing.T, out *[]string) *Engine {
-	t.Helper()
-	e, err := NewEngine(Config{Rules: Rules{OnCount: 3, OnWindow: 5, OffDelay: time.Second}},
-		PublisherFunc(func(r *Record) {
-			b, _ := json.Marshal(r)
-			*out = append(*out, string(b))
-		}), nil, nil)
-	if err != nil {
-		t.Fatal(err)
-	}
-	e.SetClock(func() time.Time { return t0 })
-	return e
+	return newRecorderRules(t, out, Rules{OnCount: 3, OnWindow: 5, OffDelay: time.Second})
 }
 
 // TestSnapshotRestoreConfirming: a snapshot cut while a 3-of-5 alarm is

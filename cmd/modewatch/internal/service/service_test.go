@@ -20,6 +20,7 @@ import (
 	"modewatch/cmd/modewatch/internal/pipeline"
 	"modewatch/configs"
 	"modewatch/sim"
+	"modewatch/stream/natsource/natstest"
 )
 
 // fitDay1 fits a model on the fault-free first day of the demo scenario
@@ -171,7 +172,7 @@ func TestServiceEndToEnd(t *testing.T) {
 	}
 	// Every record the service holds reaches the alerts subject, at its
 	// latest revision (the NATS delivery works from a queue).
-	waitUntil(t, 10*time.Second, "every record on the alerts subject", func() bool {
+	natstest.WaitFor(t, 10*time.Second, "every record on the alerts subject", func() bool {
 		mu.Lock()
 		defer mu.Unlock()
 		for _, r := range svc.Records() {

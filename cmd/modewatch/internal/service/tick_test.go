@@ -9,6 +9,7 @@ import (
 
 	"modewatch/alerts"
 	"modewatch/configs"
+	"modewatch/stream/natsource/natstest"
 )
 
 // TestStalledUnitShelfExpires: when a unit's readings stop, the service
@@ -37,7 +38,7 @@ state_dir: `+filepath.Join(dir, "data")+`
 	// one period of lateness), so the last frame scored starts at
 	// t0 + 497 s.
 	last := t0.Add(497 * time.Second)
-	waitUntil(t, 10*time.Second, fmt.Sprintf("last frame of unit tk at %v", last), func() bool {
+	natstest.WaitFor(t, 10*time.Second, fmt.Sprintf("last frame of unit tk at %v", last), func() bool {
 		return eng.LastFrame("tk").Equal(last)
 	})
 	frames, _, _ := svc.Pipeline().Frames()
