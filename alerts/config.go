@@ -24,15 +24,15 @@ const (
 	DefaultDeadband = 0.05
 	// DefaultFloodCount: a flood begins when more than 10 new alerts arrive
 	// in DefaultFloodWindow (ISA-18.2 definition as quoted in public
-	// secondary text [quoted in public secondary text]; EEMUA 191 KPI grid "flood 10 in 10 min").
+	// secondary text; EEMUA 191 KPI grid "flood 10 in 10 min").
 	DefaultFloodCount  = 10
 	DefaultFloodWindow = 10 * time.Minute
 	// DefaultFloodEnd: the flood ends when the trailing count drops below 5
-	// (ISA-18.2 as quoted [quoted in public secondary text]).
+	// (ISA-18.2 as quoted in public secondary text).
 	DefaultFloodEnd = 5
 	// DefaultChatterCount activations within DefaultChatterWindow make an
 	// alarm chattering ("three or more times in a minute", a starting
-	// criterion quoted in public secondary text [quoted in public secondary text]).
+	// criterion quoted in public secondary text).
 	DefaultChatterCount  = 3
 	DefaultChatterWindow = time.Minute
 	// DefaultStaleAfter: an alert in alarm continuously for more than 24 h is

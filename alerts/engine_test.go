@@ -611,7 +611,7 @@ func TestConfigValidate(t *testing.T) {
 // config.go (ISA-18.2 and the design choices named there).
 func TestDefaultsL11(t *testing.T) {
 	c := Config{}.withDefaults()
-	// ISA-18.2 flood as quoted [quoted in public secondary text]: more than 10 in 10 min, ends < 5.
+	// ISA-18.2 flood as quoted in public secondary text: more than 10 in 10 min, ends < 5.
 	if c.FloodCount != 10 || c.FloodWindow != 10*time.Minute || c.FloodEnd != 5 {
 		t.Errorf("flood %d in %v end %d", c.FloodCount, c.FloodWindow, c.FloodEnd)
 	}
