@@ -76,7 +76,7 @@ type Unit struct {
 	skipped     uint64        // frames already scored before a restart
 	refreshes   uint64        // mode refreshes timed (see step)
 	lastRefresh time.Duration // wall time of the last frame step that refreshed
-	late        []string      // channels that could not join the model (fixed model, Grow failed)
+	notModelled []string      // channels that could not join the model (fixed model, Grow failed)
 	refused     uint64        // channels refused at the unit's channel cap
 	refusedEx   []string      // the first few of them, for the view
 
@@ -131,7 +131,7 @@ func (u *Unit) addChannel(i int, name string) bool {
 	if u.fixed && u.tr != nil {
 		u.p.log.Warn("channel is not part of the unit's model, which is held fixed (adapt=false); it is not modelled until the model is refitted",
 			"unit", u.Name, "channel", name)
-		u.late = append(u.late, name)
+		u.notModelled = append(u.notModelled, name)
 		return false
 	}
 	u.idx = append(u.idx, i)
@@ -181,7 +181,7 @@ func (u *Unit) grow() {
 	if err != nil {
 		for _, n := range u.names[p0:] {
 			u.p.log.Error("new channel cannot join the unit's model; it is not modelled", "unit", u.Name, "channel", n, "err", err)
-			u.late = append(u.late, n)
+			u.notModelled = append(u.notModelled, n)
 		}
 		u.names, u.idx = u.names[:p0], u.idx[:p0]
 		return
@@ -227,10 +227,9 @@ func (u *Unit) build() error {
 
 // step scores frame f for this unit and hands the score on. Called under
 // p.mu.
-func (u *Unit) step(f *stream.Frame) error {
+func (u *Unit) step(f *stream.Frame) {
 	u.stepModel(f)
 	u.finish(f)
-	return nil
 }
 
 // stepModel steps the unit's tracker over frame f (the costly part of a frame)
