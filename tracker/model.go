@@ -352,7 +352,7 @@ func (m *model) computePattern(pt *pattern, ls *limitSpec) {
 		sTr -= pt.kc[x*k+x]
 		for y, iy := range pt.miss {
 			kv := pt.kc[x*k+y]
-			av := a.Data[minInt(ix, iy)*a.Stride+maxInt(ix, iy)]
+			av := a.Data[min(ix, iy)*a.Stride+max(ix, iy)]
 			sFro2 += (av-kv)*(av-kv) - av*av
 			for i := 0; i < r; i++ {
 				for j := 0; j < r; j++ {
@@ -669,16 +669,3 @@ func symPinv(dst, s []float64, r, R int, v, ev, w []float64) int {
 	return rank
 }
 
-func minInt(a, b int) int {
-	if a < b {
-		return a
-	}
-	return b
-}
-
-func maxInt(a, b int) int {
-	if a > b {
-		return a
-	}
-	return b
-}

@@ -60,6 +60,7 @@ import (
 	"fmt"
 	"math"
 	"reflect"
+	"slices"
 	"time"
 
 	"modewatch/tracker/limits"
@@ -824,7 +825,7 @@ func (t *Tracker) install(nEff float64) {
 		n := 0
 		for j := 0; j < r; j++ {
 			md := t.ms.Mode(j)
-			if containsSorted(md.Support, i) {
+			if _, ok := slices.BinarySearch(md.Support, i); ok {
 				m.modeIDs[m.modeOff[i]+n] = md.ID
 				n++
 			}
@@ -842,18 +843,6 @@ func (t *Tracker) install(nEff float64) {
 	t.cal = false
 }
 
-func containsSorted(s []int, v int) bool {
-	lo, hi := 0, len(s)
-	for lo < hi {
-		h := (lo + hi) / 2
-		if s[h] < v {
-			lo = h + 1
-		} else {
-			hi = h
-		}
-	}
-	return lo < len(s) && s[lo] == v
-}
 
 // Fit sets a fixed baseline from a batch of frames (rows of frames, each of
 // length p), weighting every frame equally: the mean, the sample standard
