@@ -43,7 +43,6 @@
 package tune
 
 import (
-	"errors"
 	"fmt"
 	"os"
 	"strconv"
@@ -118,20 +117,7 @@ func ParseGrid(name string, data []byte) (*Grid, error) {
 	}
 	var doc yaml.Node
 	if err := yaml.Unmarshal(data, &doc); err != nil {
-		e := &configs.Error{File: name, Msg: err.Error()}
-		var te *yaml.TypeError
-		if !errors.As(err, &te) {
-			// yaml.v3 syntax errors read "yaml: line N: ..."; keep the line.
-			msg := err.Error()
-			if rest, ok := strings.CutPrefix(msg, "yaml: line "); ok {
-				if i := strings.IndexByte(rest, ':'); i > 0 {
-					if ln, err := strconv.Atoi(rest[:i]); err == nil {
-						e.Line, e.Column, e.Msg = ln, 1, strings.TrimSpace(rest[i+1:])
-					}
-				}
-			}
-		}
-		return nil, configs.Errors{e}
+		return nil, configs.Errors{configs.YAMLError(name, err)}
 	}
 	if len(doc.Content) == 0 {
 		return nil, configs.Errors{{File: name, Msg: "the grid is empty: list at least one setting, e.g. alpha: [0.01, 0.001]"}}
