@@ -238,7 +238,6 @@ func inferPeriod(name string, stdin io.Reader, prec lineprotocol.Precision) (tim
 	return p, nil, nil
 }
 
-
 // RoundPeriod rounds an inferred frame period to three significant digits
 // (19.9998 s → 20 s): timestamps carry jitter, and frames on a round grid
 // are easier to read and line up with other tools.
