@@ -668,4 +668,3 @@ func symPinv(dst, s []float64, r, R int, v, ev, w []float64) int {
 	}
 	return rank
 }
-

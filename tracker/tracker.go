@@ -843,7 +843,6 @@ func (t *Tracker) install(nEff float64) {
 	t.cal = false
 }
 
-
 // Fit sets a fixed baseline from a batch of frames (rows of frames, each of
 // length p), weighting every frame equally: the mean, the sample standard
 // deviation (n − 1) and the correlation of the standardized channels, then
