@@ -2,7 +2,6 @@ package pipeline
 
 import (
 	"fmt"
-	"math"
 	"slices"
 	"sync/atomic"
 	"time"
@@ -256,15 +255,7 @@ func (u *Unit) stepModel(f *stream.Frame) {
 	case len(u.idx) > len(u.x):
 		u.grow() // channels discovered since
 	}
-	observed := 0
-	for k, i := range u.idx {
-		if i >= 0 && i < len(f.Values) && !f.Missing[i] {
-			u.x[k], u.miss[k] = f.Values[i], false
-			observed++
-		} else {
-			u.x[k], u.miss[k] = math.NaN(), true
-		}
-	}
+	observed := f.Gather(u.x, u.miss, nil, u.idx)
 	u.syncContext()
 	if u.nCtx > 0 {
 		observed = u.ownObserved()
@@ -357,7 +348,7 @@ func (u *Unit) finish(f *stream.Frame) {
 func (u *Unit) parallel() bool { return u.states == nil }
 
 // noReading marks a channel without a carried reading in lastAt.
-const noReading = math.MinInt64
+const noReading = stream.NoReading
 
 // keepLast records the unit's channels' values and reading times in f, the
 // frame just scored. It allocates only when the unit's channels changed.
@@ -366,13 +357,7 @@ func (u *Unit) keepLast(f *stream.Frame) {
 		u.lastV = slices.Grow(u.lastV[:0], len(u.idx))[:len(u.idx)]
 		u.lastAt = slices.Grow(u.lastAt[:0], len(u.idx))[:len(u.idx)]
 	}
-	for k, i := range u.idx {
-		if i >= 0 && i < len(f.Times) && !f.Missing[i] {
-			u.lastV[k], u.lastAt[k] = f.Values[i], f.Times[i]
-		} else {
-			u.lastV[k], u.lastAt[k] = math.NaN(), noReading
-		}
-	}
+	f.Gather(u.lastV, nil, u.lastAt, u.idx)
 }
 
 // ModelState returns the unit's model state in the alarm engine's terms.
