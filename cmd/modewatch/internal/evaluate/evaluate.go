@@ -113,12 +113,7 @@ func AlertsOf(recs []*alerts.Record) []Alert {
 		if r.End != nil {
 			a.End = *r.End
 		}
-		for _, c := range r.Contributors {
-			a.Top = append(a.Top, c.Channel)
-		}
-		if len(a.Top) == 0 && r.Quality != nil {
-			a.Top = []string{r.Quality.Channel}
-		}
+		_, a.Top = r.Channels(0)
 		out = append(out, a)
 	}
 	return out
