@@ -36,10 +36,7 @@
 // auto-discovered channel list grows during the log (a unit rebuilds its
 // model when a channel appears in warm-up). Re-reading keeps memory
 // bounded and the results identical, by construction, to separate
-// replays. The price, measured with BenchmarkReplayReport in package cli
-// (12 h of the demo, 50 channels, 2 shared cores): reading and framing is
-// about 38 % of a replay (18.6 ms of 49.0 ms), so in-memory frames could
-// make tune up to about 1.6 times faster.
+// replays. The price in time is measured in the package README.
 package tune
 
 import (
