@@ -174,45 +174,7 @@ func (m *model) setLoadings(pm mat.Matrix) {
 			m.pl[i*R+j] = pm.At(i, j)
 		}
 	}
-	// Gram–Schmidt into q.
-	rq := 0
-	for j := 0; j < r; j++ {
-		for i := 0; i < p; i++ {
-			m.q[i*R+rq] = m.pl[i*R+j]
-		}
-		for pass := 0; pass < 2; pass++ {
-			for k := 0; k < rq; k++ {
-				d := 0.0
-				for i := 0; i < p; i++ {
-					d += m.q[i*R+k] * m.q[i*R+rq]
-				}
-				for i := 0; i < p; i++ {
-					m.q[i*R+rq] -= d * m.q[i*R+k]
-				}
-			}
-		}
-		nrm := 0.0
-		for i := 0; i < p; i++ {
-			nrm += m.q[i*R+rq] * m.q[i*R+rq]
-		}
-		col := 0.0
-		for i := 0; i < p; i++ {
-			col += m.pl[i*R+j] * m.pl[i*R+j]
-		}
-		if nrm <= 1e-20*col || nrm == 0 {
-			continue
-		}
-		nrm = 1 / math.Sqrt(nrm)
-		for i := 0; i < p; i++ {
-			m.q[i*R+rq] *= nrm
-		}
-		rq++
-	}
-	for i := 0; i < p; i++ {
-		for j := rq; j < R; j++ {
-			m.q[i*R+j] = 0
-		}
-	}
+	rq := m.orthonormalise(r)
 	m.rq = rq
 	a := m.a.RawSymmetric()
 	pg := blas64.General{Rows: p, Cols: R, Stride: R, Data: m.pl}
@@ -221,32 +183,7 @@ func (m *model) setLoadings(pm mat.Matrix) {
 	// k-sparse modes cost O(p·k·r) instead of O(p²r).
 	m.symTimesSparse(m.ap, m.pl, r)
 	if rq == r {
-		// Gram–Schmidt gives Q = P U⁻¹ with U = QᵀP upper triangular, so
-		// AQ = AP U⁻¹: O(p r²).
-		u := m.sc1
-		for x := 0; x < r; x++ {
-			for y := 0; y < r; y++ {
-				s := 0.0
-				for i := 0; i < p; i++ {
-					s += m.q[i*R+x] * m.pl[i*R+y]
-				}
-				u[x*R+y] = s
-			}
-		}
-		for i := 0; i < p; i++ {
-			row := m.aq[i*R : i*R+R]
-			src := m.ap[i*R : i*R+R]
-			for y := 0; y < r; y++ {
-				v := src[y]
-				for x := 0; x < y; x++ {
-					v -= row[x] * u[x*R+y]
-				}
-				row[y] = v / u[y*R+y]
-			}
-			for y := r; y < R; y++ {
-				row[y] = 0
-			}
-		}
+		m.aqFromAP(r)
 	} else {
 		m.symTimesSparse(m.aq, m.q, rq)
 	}
@@ -288,6 +225,83 @@ func (m *model) setLoadings(pm mat.Matrix) {
 	m.nCache = 0
 	m.next = 0
 	m.cholOK = false
+}
+
+// orthonormalise writes into the first columns of q the first r loadings
+// of pl orthonormalised by modified Gram–Schmidt (two passes; a column
+// dependent within 1e-10 of its norm is dropped), zeroes the rest of q and
+// returns the number of columns kept.
+func (m *model) orthonormalise(r int) int {
+	p, R := m.p, m.maxR
+	rq := 0
+	for j := 0; j < r; j++ {
+		for i := 0; i < p; i++ {
+			m.q[i*R+rq] = m.pl[i*R+j]
+		}
+		for pass := 0; pass < 2; pass++ {
+			for k := 0; k < rq; k++ {
+				d := 0.0
+				for i := 0; i < p; i++ {
+					d += m.q[i*R+k] * m.q[i*R+rq]
+				}
+				for i := 0; i < p; i++ {
+					m.q[i*R+rq] -= d * m.q[i*R+k]
+				}
+			}
+		}
+		nrm := 0.0
+		for i := 0; i < p; i++ {
+			nrm += m.q[i*R+rq] * m.q[i*R+rq]
+		}
+		col := 0.0
+		for i := 0; i < p; i++ {
+			col += m.pl[i*R+j] * m.pl[i*R+j]
+		}
+		if nrm <= 1e-20*col || nrm == 0 {
+			continue
+		}
+		nrm = 1 / math.Sqrt(nrm)
+		for i := 0; i < p; i++ {
+			m.q[i*R+rq] *= nrm
+		}
+		rq++
+	}
+	for i := 0; i < p; i++ {
+		for j := rq; j < R; j++ {
+			m.q[i*R+j] = 0
+		}
+	}
+	return rq
+}
+
+// aqFromAP sets AQ = AP·U⁻¹ in O(p r²) when Gram–Schmidt kept all r
+// columns: then Q = P·U⁻¹ with U = QᵀP upper triangular.
+func (m *model) aqFromAP(r int) {
+	p, R := m.p, m.maxR
+	u := m.sc1
+	for x := 0; x < r; x++ {
+		for y := 0; y < r; y++ {
+			s := 0.0
+			for i := 0; i < p; i++ {
+				s += m.q[i*R+x] * m.pl[i*R+y]
+			}
+			u[x*R+y] = s
+		}
+	}
+	for i := 0; i < p; i++ {
+		row := m.aq[i*R : i*R+R]
+		src := m.ap[i*R : i*R+R]
+		for y := 0; y < r; y++ {
+			v := src[y]
+			for x := 0; x < y; x++ {
+				v -= row[x] * u[x*R+y]
+			}
+			row[y] = v / u[y*R+y]
+		}
+		for y := r; y < R; y++ {
+			row[y] = 0
+		}
+	}
 }
 
 // symTimesSparse sets the first ncol columns of dst (p × maxR) to A·src,
