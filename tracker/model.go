@@ -352,30 +352,8 @@ func (m *model) computePattern(pt *pattern, ls *limitSpec) {
 		return -1
 	}
 	// M' = M − P_mᵀ K P_m; QᵀS'Q = QᵀAQ − Q_mᵀ K Q_m.
-	mp := m.sc1
-	qsq := m.sc2
-	for i := 0; i < r; i++ {
-		for j := 0; j < r; j++ {
-			mp[i*R+j] = m.m[i*R+j]
-			qsq[i*R+j] = m.qaq[i*R+j]
-		}
-	}
-	sTr := m.trA
-	sFro2 := m.aFro2
-	for x, ix := range pt.miss {
-		sTr -= pt.kc[x*k+x]
-		for y, iy := range pt.miss {
-			kv := pt.kc[x*k+y]
-			av := a.Data[min(ix, iy)*a.Stride+max(ix, iy)]
-			sFro2 += (av-kv)*(av-kv) - av*av
-			for i := 0; i < r; i++ {
-				for j := 0; j < r; j++ {
-					mp[i*R+j] -= m.pl[ix*R+i] * kv * m.pl[iy*R+j]
-					qsq[i*R+j] -= m.q[ix*R+i] * kv * m.q[iy*R+j]
-				}
-			}
-		}
-	}
+	mp, qsq := m.sc1, m.sc2
+	sTr, sFro2 := m.reducedMoments(pt, mp, qsq)
 	// Pseudo-inverse of M' by Jacobi eigen-decomposition (r is small).
 	pt.rank = symPinv(pt.minv, mp, r, R, m.eig, m.ev, m.sc3)
 	// Residual traces θ₁ = tr S' − tr QᵀS'Q, θ₂ = ‖S'‖² − 2‖S'Q‖² + ‖QᵀS'Q‖².
@@ -418,40 +396,7 @@ func (m *model) computePattern(pt *pattern, ls *limitSpec) {
 	if ls.spe == SPEJacksonMudholkar {
 		pt.theta.T3 = m.theta3(pt, ls.jmSpace)
 	}
-	// Limits.
-	var err error
-	l := pt.rank
-	if l < 1 {
-		pt.t2Lim = math.Inf(1)
-	} else if ls.t2 == T2ChiSquare || math.IsInf(ls.nEff, 1) {
-		pt.t2Lim, err = limits.T2ChiSquare(ls.alpha, l)
-	} else if ls.t2 == T2PhaseI {
-		pt.t2Lim, err = limits.T2PhaseI(ls.alpha, l, ls.nEff)
-	} else {
-		pt.t2Lim, err = limits.T2PhaseII(ls.alpha, l, ls.nEff)
-	}
-	if err != nil {
-		pt.err = err
-		pt.t2Lim = math.Inf(1)
-	}
-	switch {
-	case pt.theta.T1 <= emptyResidual*math.Max(sTr, 1):
-		// The modes span every included channel (e.g. as many 1-sparse
-		// modes as channels): the residual subspace is empty up to
-		// rounding, SPE is identically zero and carries no information.
-		// SPE cannot alarm and φ reduces to T²/τ², not an error.
-		pt.speLim, err = math.Inf(1), nil
-	case ls.spe == SPEJacksonMudholkar:
-		pt.speLim, err = limits.SPEJacksonMudholkar(ls.alpha, pt.theta)
-	default:
-		pt.speLim, err = limits.SPEBox(ls.alpha, pt.theta)
-	}
-	if err != nil {
-		pt.speLim = math.Inf(1)
-		if pt.err == nil {
-			pt.err = err
-		}
-	}
+	pt.setT2SPELimits(ls, sTr)
 	// Per channel: D'ᵢᵢ, (D'S'C̃)ᵢᵢ, Rᵢᵢ; cross = tr(S'D'S'C̃) = Σᵢ (D'S'C̃)ᵢᵢ... computed
 	// as tr(M'⁺ (C̃S'P)ᵀ(C̃S'P)) = Σᵢ (C̃S'P)ᵢ M'⁺ (C̃S'P)ᵢᵀ.
 	tau2, delta2 := pt.t2Lim, pt.speLim
@@ -509,6 +454,87 @@ func (m *model) computePattern(pt *pattern, ls *limitSpec) {
 		pt.rbcLim[i] = limits.RBC(ls.chi1, num, den)
 	}
 	pt.cross = cross
+	pt.setPhiLimit(ls, cross)
+}
+
+// reducedMoments writes into mp and qsq (r × r, stride maxR) the moments
+// of the reduced correlation S' = A − K of pattern pt (K the correction of
+// its missing channels): M' = M − P_mᵀ K P_m and QᵀS'Q = QᵀAQ − Q_mᵀ K Q_m,
+// and returns tr S' and ‖S'‖²_F.
+func (m *model) reducedMoments(pt *pattern, mp, qsq []float64) (sTr, sFro2 float64) {
+	R, r := m.maxR, m.r
+	k := len(pt.miss)
+	a := m.a.RawSymmetric()
+	for i := 0; i < r; i++ {
+		for j := 0; j < r; j++ {
+			mp[i*R+j] = m.m[i*R+j]
+			qsq[i*R+j] = m.qaq[i*R+j]
+		}
+	}
+	sTr, sFro2 = m.trA, m.aFro2
+	for x, ix := range pt.miss {
+		sTr -= pt.kc[x*k+x]
+		for y, iy := range pt.miss {
+			kv := pt.kc[x*k+y]
+			av := a.Data[min(ix, iy)*a.Stride+max(ix, iy)]
+			sFro2 += (av-kv)*(av-kv) - av*av
+			for i := 0; i < r; i++ {
+				for j := 0; j < r; j++ {
+					mp[i*R+j] -= m.pl[ix*R+i] * kv * m.pl[iy*R+j]
+					qsq[i*R+j] -= m.q[ix*R+i] * kv * m.q[iy*R+j]
+				}
+			}
+		}
+	}
+	return sTr, sFro2
+}
+
+// setT2SPELimits sets the T² limit of pattern pt (its rank, the form and
+// sample size of ls) and its SPE limit (+Inf when the modes leave no
+// residual space, relative to tr S' = sTr); an error of either is kept in
+// pt.err and its limit is +Inf.
+func (pt *pattern) setT2SPELimits(ls *limitSpec, sTr float64) {
+	var err error
+	l := pt.rank
+	if l < 1 {
+		pt.t2Lim = math.Inf(1)
+	} else if ls.t2 == T2ChiSquare || math.IsInf(ls.nEff, 1) {
+		pt.t2Lim, err = limits.T2ChiSquare(ls.alpha, l)
+	} else if ls.t2 == T2PhaseI {
+		pt.t2Lim, err = limits.T2PhaseI(ls.alpha, l, ls.nEff)
+	} else {
+		pt.t2Lim, err = limits.T2PhaseII(ls.alpha, l, ls.nEff)
+	}
+	if err != nil {
+		pt.err = err
+		pt.t2Lim = math.Inf(1)
+	}
+	switch {
+	case pt.theta.T1 <= emptyResidual*math.Max(sTr, 1):
+		// The modes span every included channel (e.g. as many 1-sparse
+		// modes as channels): the residual subspace is empty up to
+		// rounding, SPE is identically zero and carries no information.
+		// SPE cannot alarm and φ reduces to T²/τ², not an error.
+		pt.speLim, err = math.Inf(1), nil
+	case ls.spe == SPEJacksonMudholkar:
+		pt.speLim, err = limits.SPEJacksonMudholkar(ls.alpha, pt.theta)
+	default:
+		pt.speLim, err = limits.SPEBox(ls.alpha, pt.theta)
+	}
+	if err != nil {
+		pt.speLim = math.Inf(1)
+		if pt.err == nil {
+			pt.err = err
+		}
+	}
+}
+
+// setPhiLimit sets the limit of the combined index φ of pattern pt from
+// its T² and SPE limits, its residual traces and cross = tr(S'D'S'C̃): +Inf
+// without a T² limit; with no SPE limit, that of the T² part alone.
+func (pt *pattern) setPhiLimit(ls *limitSpec, cross float64) {
+	tau2, delta2, l := pt.t2Lim, pt.speLim, pt.rank
+	var err error
 	if math.IsInf(tau2, 1) {
 		pt.phiLim = math.Inf(1)
 		return
