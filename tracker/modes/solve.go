@@ -287,52 +287,13 @@ func (ws *Workspace) solve(sp Sparsity, opt *Options, warm []float64, cold bool,
 			return res, ws.nonFinite()
 		}
 	}
-	start := StartAuto
-	if opt != nil {
-		start = opt.Start
-	}
-	if start == StartAuto {
-		start = StartColumn
-		if sp.Method == LogPen || sp.Method == ExpPen {
-			start = StartDense
-		}
-	}
 	if cold {
-		best := -1
-		for i, v := range ws.cn {
-			if best < 0 || v > ws.cn[best] {
-				best = i
-			}
-		}
-		if ws.cn[best] == 0 {
-			return res, errEmptyOperator
-		}
-		for i := range ws.e {
-			ws.e[i] = 0
-		}
-		if start == StartIndex {
-			for i := range ws.x {
-				ws.x[i] = 0
-			}
-			ws.x[best] = 1
-			ws.xs = append(ws.xs[:0], best)
-		} else {
-			ws.e[best] = 1
-			ws.us = append(ws.us[:0], best)
-			ws.op.apply(ws.x, ws.e, ws.us)
-			ws.e[best] = 0
-			if !ws.normalizeX() {
-				return res, errEmptyOperator
-			}
+		n, err := ws.coldStart(startOf(sp, opt), tol, maxIter)
+		res.Iterations += n
+		if err != nil {
+			return res, err
 		}
 		haveC = false
-		if start == StartDense {
-			st, err := ws.iterate(Sparsity{}, 0, tol, maxIter, nil, false)
-			if err != nil {
-				return res, err
-			}
-			res.Iterations += st.iters
-		}
 	}
 	stages := 1
 	if opt != nil && opt.EpsStages > 1 && (sp.Method == LogPen || sp.Method == ExpPen) && sp.Eps < 1 {
@@ -401,6 +362,61 @@ func (ws *Workspace) solve(sp Sparsity, opt *Options, warm []float64, cold bool,
 	res.Variance = dotSupp(ws.x, ws.c, ws.xs)
 	res.Card = len(ws.xs)
 	return res, nil
+}
+
+// startOf is the cold start of opt (StartAuto: the dense start for the
+// smooth-ℓ0 surrogates, the largest column otherwise).
+func startOf(sp Sparsity, opt *Options) Start {
+	start := StartAuto
+	if opt != nil {
+		start = opt.Start
+	}
+	if start == StartAuto {
+		start = StartColumn
+		if sp.Method == LogPen || sp.Method == ExpPen {
+			start = StartDense
+		}
+	}
+	return start
+}
+
+// coldStart puts the cold start into ws.x: from the column of largest norm
+// (its index alone, or the column itself normalized), then for StartDense
+// the dense power iteration from there. It returns the iterations used;
+// errEmptyOperator when the matrix is zero.
+func (ws *Workspace) coldStart(start Start, tol float64, maxIter int) (int, error) {
+	best := -1
+	for i, v := range ws.cn {
+		if best < 0 || v > ws.cn[best] {
+			best = i
+		}
+	}
+	if ws.cn[best] == 0 {
+		return 0, errEmptyOperator
+	}
+	for i := range ws.e {
+		ws.e[i] = 0
+	}
+	if start == StartIndex {
+		for i := range ws.x {
+			ws.x[i] = 0
+		}
+		ws.x[best] = 1
+		ws.xs = append(ws.xs[:0], best)
+	} else {
+		ws.e[best] = 1
+		ws.us = append(ws.us[:0], best)
+		ws.op.apply(ws.x, ws.e, ws.us)
+		ws.e[best] = 0
+		if !ws.normalizeX() {
+			return 0, errEmptyOperator
+		}
+	}
+	if start == StartDense {
+		st, err := ws.iterate(Sparsity{}, 0, tol, maxIter, nil, false)
+		return st.iters, err
+	}
+	return 0, nil
 }
 
 // deflatedNorms fills ws.cn with the column norms² of A_t when the caller
