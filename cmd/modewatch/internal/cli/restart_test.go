@@ -191,7 +191,8 @@ func TestKillRestart(t *testing.T) {
 		data := filepath.Join(dir, name)
 		os.MkdirAll(data, 0o755)
 		cfg := filepath.Join(data, "config.yaml")
-		os.WriteFile(cfg, []byte(jetStreamRunConfig([]string{srv.ClientURL()}, name, modelPath, data)), 0o644)
+		// A 1-of-1 on-delay, so that the runs raise incidents to compare.
+		os.WriteFile(cfg, []byte(jetStreamRunConfig([]string{srv.ClientURL()}, name, modelPath, data)+"alerts: {on_delay: {n: 1, m: 1}}\n"), 0o644)
 		start := func() *exec.Cmd { return startModewatch(t, name, "run", "--config", cfg) }
 		return data, start
 	}
@@ -219,15 +220,24 @@ func TestKillRestart(t *testing.T) {
 	b := startB()
 	waitScores(4*(first.Samples()-1), "run b before the first kill")
 	lastFrame := scores.latest()
+	// A checkpoint acknowledges what was held when it began, so the one
+	// that first holds the last frame may leave the last messages
+	// unacknowledged: wait for the one after it.
+	var firstHeld time.Time
 	for deadline := time.Now().Add(30 * time.Second); ; time.Sleep(20 * time.Millisecond) {
 		cks, _ := pipeline.ReadCheckpoints(filepath.Join(dataB, "checkpoints"))
 		n := 0
+		var created time.Time
 		for _, ck := range cks {
 			if ck.To.Equal(lastFrame) {
 				n++
+				created = ck.Created
 			}
 		}
-		if n == 4 {
+		if n == 4 && firstHeld.IsZero() {
+			firstHeld = created
+		}
+		if n == 4 && created.After(firstHeld) {
 			break
 		}
 		if time.Now().After(deadline) {
