@@ -159,7 +159,7 @@ func (a *Alarm) push(over bool) {
 // WindowProbability is the probability that a window of m independent
 // frames, each over the limit with probability α, holds at least n
 // exceedances (the per-frame false-alarm probability of the n-of-m
-// on-delay, LIMITS.md §7.3):
+// on-delay; a binomial tail):
 //
 //	P = Σ_{k=n..m} C(m,k) αᵏ (1−α)^{m−k}
 func WindowProbability(alpha float64, n, m int) float64 {
@@ -178,7 +178,7 @@ func WindowProbability(alpha float64, n, m int) float64 {
 
 // ConsecutiveRunLength is the expected number of independent frames until
 // the first run of n consecutive exceedances, each with probability α
-// (LIMITS.md §7.3):
+// (Feller, An Introduction to Probability Theory, vol. I, ch. XIII):
 //
 //	E = (1 − αⁿ) / ((1 − α) αⁿ)
 func ConsecutiveRunLength(alpha float64, n int) float64 {

@@ -23,8 +23,7 @@ type step struct {
 
 // TestAlarmTransitions drives the state machine frame by frame and asserts
 // the state after every frame. Semantics of on-delay, off-delay and
-// deadband: OPC UA Part 9, Annex B.1.5 [PUB] (LIMITS.md §7.2); n-of-m
-// on-delay: LIMITS.md §9 L6 (design).
+// deadband: OPC UA Part 9, Annex B.1.5; n-of-m on-delay: our design.
 func TestAlarmTransitions(t *testing.T) {
 	N, Cf, A, Cl := Normal, Confirming, Active, Clearing
 	cases := []struct {
@@ -156,8 +155,8 @@ func TestNewAlarmPanicsOnBadRule(t *testing.T) {
 
 // TestFalseAlarmArithmetic is L9: one-sample rule at α = 0.01 and 1 Hz gives
 // 36 exceedances per hour; the (3,5) window probability is 9.8506×10⁻⁶
-// (LIMITS.md §7.3 [DER]), also checked against gonum's binomial survival
-// function and other rows of §7.3.
+// (binomial tail, computed), also checked against gonum's binomial
+// survival function and other rows below.
 func TestFalseAlarmArithmetic(t *testing.T) {
 	if got := WindowProbability(0.01, 1, 1) * 3600; !scalar.EqualWithinAbsOrRel(got, 36, 0, 1e-12) {
 		t.Errorf("one-sample rule, 1 h at 1 Hz: %v, want 36", got)
@@ -165,7 +164,7 @@ func TestFalseAlarmArithmetic(t *testing.T) {
 	cases := []struct {
 		alpha float64
 		n, m  int
-		want  float64 // LIMITS.md §7.3 [DER]
+		want  float64 // binomial tail Σ_{k≥n} C(m,k)αᵏ(1−α)^{m−k}, computed
 	}{
 		{0.01, 2, 3, 2.98e-4},
 		{0.01, 3, 5, 9.8506e-6},
@@ -214,8 +213,9 @@ func TestFalseAlarmArithmetic(t *testing.T) {
 
 // TestRunLength is L10: with independent draws at α = 0.01 the mean wait
 // for 2 consecutive exceedances is (1 − α²)/((1 − α)α²) = 10,100 frames
-// (LIMITS.md §7.3 [DER]); the Alarm with N = M = 2 is that rule. Fewer
-// sequences than the 10⁶ of L10 keep the test fast; the tolerance is
+// (the mean waiting time for a run of 2 successes; Feller, An Introduction
+// to Probability Theory, vol. I, ch. XIII); the Alarm with N = M = 2 is
+// that rule. Fewer sequences than 10⁶ keep the test fast; the tolerance is
 // ±3 standard errors of the seeded sample.
 func TestRunLength(t *testing.T) {
 	if got := ConsecutiveRunLength(0.01, 2); !scalar.EqualWithinAbsOrRel(got, 10100, 0, 1e-12) {

@@ -24,8 +24,9 @@ const (
 // ErrCommand marks an invalid command.
 var ErrCommand = errors.New("alerts: invalid command")
 
-// Duration is a time.Duration that reads and writes JSON as a Go duration
-// string ("90m", "2h").
+// Duration is a time.Duration that reads and writes JSON (and any text
+// encoding) as a Go duration string: it writes "1h30m0s" and reads anything
+// time.ParseDuration accepts ("90m", "2h"). Commands and model files use it.
 type Duration time.Duration
 
 // MarshalText writes d as a Go duration string.
@@ -295,7 +296,7 @@ func (e *Engine) maintenance(c Command) Reply {
 			e.closeIncident(inc, t, EndMaintenance)
 		}
 		if u.flood != nil {
-			e.endFlood(u, t, EndMaintenance)
+			e.endFlood(u, t, t, EndMaintenance)
 		}
 		e.resetAlarms(u, t)
 		e.syncFreeze(u, t)

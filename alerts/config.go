@@ -7,36 +7,36 @@ import (
 	"time"
 )
 
-// Defaults. Sources: LIMITS.md §7 collects them; "[MEM]" marks a figure
-// recalled from the standard and not confirmed in public text.
+// Defaults, each with its source; "[from memory]" marks a figure recalled from
+// the standard and not confirmed in public text.
 const (
 	// DefaultOnCount and DefaultOnWindow: active when over the limit in 3 of
 	// the last 5 frames. Design choice: with independent frames at a per-frame
 	// false-alarm rate α = 0.01 the rule fires with probability
-	// Σ_{k=3..5} C(5,k) αᵏ(1−α)^{5−k} = 9.8506×10⁻⁶ per frame (LIMITS.md §7.3).
+	// Σ_{k=3..5} C(5,k) αᵏ(1−α)^{5−k} = 9.8506×10⁻⁶ per frame (binomial tail).
 	DefaultOnCount  = 3
 	DefaultOnWindow = 5
 	// DefaultOffDelay is how long a statistic must stay below
 	// limit·(1 − Deadband) before the alarm returns to normal (design).
 	DefaultOffDelay = 5 * time.Minute
 	// DefaultDeadband is 5 % of the limit: the flow/level starting point of
-	// ISA-18.2-2009 §10 [MEM] carried over to the statistic/limit ratio.
+	// ISA-18.2-2009 §10 [from memory] carried over to the statistic/limit ratio.
 	DefaultDeadband = 0.05
 	// DefaultFloodCount: a flood begins when more than 10 new alerts arrive
 	// in DefaultFloodWindow (ISA-18.2 definition as quoted in public
-	// secondary text [PUB-2]; EEMUA 191 KPI grid "flood 10 in 10 min").
+	// secondary text; EEMUA 191 KPI grid "flood 10 in 10 min").
 	DefaultFloodCount  = 10
 	DefaultFloodWindow = 10 * time.Minute
 	// DefaultFloodEnd: the flood ends when the trailing count drops below 5
-	// (ISA-18.2 as quoted [PUB-2]).
+	// (ISA-18.2 as quoted in public secondary text).
 	DefaultFloodEnd = 5
 	// DefaultChatterCount activations within DefaultChatterWindow make an
 	// alarm chattering ("three or more times in a minute", a starting
-	// criterion quoted in public secondary text [PUB-2]).
+	// criterion quoted in public secondary text).
 	DefaultChatterCount  = 3
 	DefaultChatterWindow = time.Minute
 	// DefaultStaleAfter: an alert in alarm continuously for more than 24 h is
-	// a stale alarm [PUB-2].
+	// a stale alarm [quoted in public secondary text].
 	DefaultStaleAfter = 24 * time.Hour
 	// DefaultMaxShelve bounds a shelve command (design; ISA-18.2 requires
 	// shelving to be time-limited, the figure is ours).
@@ -327,7 +327,7 @@ type SignalPoint struct {
 
 // SignalStartingPoints are the starting-point deadbands and delays by signal
 // type of ISA-18.2-2009 §10 (moved towards TR18.2.3 in the 2016 edition).
-// All four rows are from memory [MEM] (LIMITS.md §7.2); they are offered to
+// All four rows are from memory [from memory]; they are offered to
 // configure channel alarms and are not used by the statistic alarms.
 var SignalStartingPoints = map[string]SignalPoint{
 	"flow":        {5, 15 * time.Second},

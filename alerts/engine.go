@@ -95,7 +95,7 @@ type UnitCounters struct {
 	LastHour  int  // new alerts in the trailing hour
 	LastDay   int  // new alerts in the trailing day
 	Open      int  // incidents open now
-	StaleOpen int  // open incidents flagged stale (ISA-18.2 target: fewer than 5 on any day [MEM])
+	StaleOpen int  // open incidents flagged stale (ISA-18.2 target: fewer than 5 on any day [from memory])
 	InFlood   bool // the unit is in a flood
 	InMaint   bool // the unit is in maintenance
 	Frozen    bool // learning frozen by the engine
@@ -911,10 +911,14 @@ func (e *Engine) checkFloodEnd(u *unit, t time.Time) {
 	}
 	te, _ := u.openings.at(e.cfg.FloodEnd - 1)
 	end := te.Add(u.rules.FloodWindow)
-	e.endFlood(u, end, EndFloodOver)
+	e.endFlood(u, end, t, EndFloodOver)
 }
 
-func (e *Engine) endFlood(u *unit, end time.Time, reason string) {
+// endFlood closes u's flood as of end, found at frame time now (≥ end): the
+// members still open are annunciated on their own in a revision of now, so
+// that their peaks, which may lie after end, are never later than the
+// revision's updated time.
+func (e *Engine) endFlood(u *unit, end, now time.Time, reason string) {
 	f := u.flood
 	u.flood = nil
 	e.emit(Event{Time: end, Unit: u.name, Kind: EventFloodEnd, AlertID: f.id})
@@ -923,7 +927,7 @@ func (e *Engine) endFlood(u *unit, end time.Time, reason string) {
 	for _, inc := range e.openIncidents(u) {
 		if inc.member {
 			inc.member = false
-			e.publish(inc, end)
+			e.publish(inc, now)
 		}
 	}
 }
@@ -1147,7 +1151,8 @@ func (e *Engine) Counters(dst []UnitCounters) []UnitCounters {
 // Open appends the current state of every open incident and flood to dst,
 // oldest first within a unit, units sorted. Revision is that of the last
 // publication; 0 marks an incident not published yet (hidden by a shelf or
-// grouped into a flood).
+// grouped into a flood). An incident's peaks and Updated are as of the
+// unit's latest frame, which may be after the last publication.
 func (e *Engine) Open(dst []Record) []Record {
 	e.mu.Lock()
 	defer e.mu.Unlock()
@@ -1162,7 +1167,13 @@ func (e *Engine) Open(dst []Record) []Record {
 			dst = append(dst, *e.record(u.flood))
 		}
 		for _, inc := range e.openIncidents(u) {
-			dst = append(dst, *e.record(inc))
+			r := e.record(inc)
+			// Its peaks hold every frame seen so far, also those after
+			// the last revision: updated is the latest of them.
+			if u.last.After(r.Updated) {
+				r.Updated = u.last.UTC()
+			}
+			dst = append(dst, *r)
 		}
 	}
 	return dst

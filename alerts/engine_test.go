@@ -343,7 +343,7 @@ func every(start, step float64, n int) []float64 {
 }
 
 // TestFlood checks L1–L3: ISA-18.2's flood definition as quoted in public
-// secondary text [PUB-2] (LIMITS.md §7.1): a flood begins when more than
+// secondary text: a flood begins when more than
 // 10 alarms fall in 10 minutes and ends when the count drops below 5.
 func TestFlood(t *testing.T) {
 	t.Run("L1 starts at the 11th", func(t *testing.T) {
@@ -450,8 +450,7 @@ func chatter(t *testing.T, acts []float64, end float64) *harness {
 }
 
 // TestChattering is L4: "three or more times in a minute" is a starting
-// criterion for a chattering alarm quoted in public secondary text
-// [PUB-2] (LIMITS.md §7.1).
+// criterion for a chattering alarm quoted in public secondary text.
 func TestChattering(t *testing.T) {
 	t.Run("0 20 40 chatters", func(t *testing.T) {
 		h := chatter(t, []float64{0, 20, 40, 50}, 120)
@@ -481,7 +480,7 @@ func TestChattering(t *testing.T) {
 }
 
 // TestStale is L5: an alarm active continuously for more than 24 h is
-// stale [PUB-2] (LIMITS.md §7.1).
+// stale (ISA-18.2, as quoted in public secondary text).
 func TestStale(t *testing.T) {
 	h := newHarness(t, Config{Rules: Rules{OnCount: 1, OnWindow: 1}})
 	h.model(0, 2)
@@ -608,30 +607,31 @@ func TestConfigValidate(t *testing.T) {
 	}
 }
 
-// TestDefaultsL11: the defaults equal the figures cited in LIMITS.md §7.
+// TestDefaultsL11: the defaults equal the figures cited beside them in
+// config.go (ISA-18.2 and the design choices named there).
 func TestDefaultsL11(t *testing.T) {
 	c := Config{}.withDefaults()
-	// ISA-18.2 flood as quoted [PUB-2]: more than 10 in 10 min, ends < 5.
+	// ISA-18.2 flood as quoted in public secondary text: more than 10 in 10 min, ends < 5.
 	if c.FloodCount != 10 || c.FloodWindow != 10*time.Minute || c.FloodEnd != 5 {
 		t.Errorf("flood %d in %v end %d", c.FloodCount, c.FloodWindow, c.FloodEnd)
 	}
-	// Chattering: 3 in 1 min, a starting criterion [PUB-2].
+	// Chattering: 3 in 1 min, a starting criterion [quoted in public secondary text].
 	if c.ChatterCount != 3 || c.ChatterWindow != time.Minute {
 		t.Errorf("chatter %d in %v", c.ChatterCount, c.ChatterWindow)
 	}
-	// Stale: 24 h [PUB-2].
+	// Stale: 24 h [quoted in public secondary text].
 	if c.StaleAfter != 24*time.Hour {
 		t.Errorf("stale %v", c.StaleAfter)
 	}
 	// Deadband and delay by signal type: ISA-18.2-2009 §10, from memory
-	// [MEM] (LIMITS.md §7.2).
+	// [from memory].
 	want := map[string]SignalPoint{"flow": {5, 15 * time.Second}, "level": {5, time.Minute}, "pressure": {2, 15 * time.Second}, "temperature": {1, time.Minute}}
 	for k, v := range want {
 		if SignalStartingPoints[k] != v {
 			t.Errorf("%s: %+v, want %+v", k, SignalStartingPoints[k], v)
 		}
 	}
-	// The statistic deadband default is the flow/level 5 % [MEM] (design
+	// The statistic deadband default is the flow/level 5 % [from memory] (design
 	// transfer to the value/limit ratio).
 	if c.Rules.Deadband != 0.05 || c.Rules.OnCount != 3 || c.Rules.OnWindow != 5 {
 		t.Errorf("rules %+v", c.Rules)
@@ -639,7 +639,7 @@ func TestDefaultsL11(t *testing.T) {
 }
 
 // TestObserveAllocs guards the per-frame path: no allocation while no
-// alarm changes state (STYLE.md hot loop).
+// alarm changes state (testing.AllocsPerRun).
 func TestObserveAllocs(t *testing.T) {
 	e, err := NewEngine(Config{}, PublisherFunc(func(*Record) {}), nil, nil)
 	if err != nil {

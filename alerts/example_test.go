@@ -63,7 +63,7 @@ func ExampleParseCommand() {
 }
 
 // The per-frame false-alarm probability of the default 3-of-5 on-delay at
-// a 1 % limit, against the bare limit (LIMITS.md §7.3).
+// a 1 % limit, against the bare limit (a binomial tail).
 func ExampleWindowProbability() {
 	fmt.Printf("%.4g per frame, %.4g per hour at 1 Hz\n", alerts.WindowProbability(0.01, 1, 1), alerts.WindowProbability(0.01, 1, 1)*3600)
 	fmt.Printf("%.5g per frame with 3 of 5\n", alerts.WindowProbability(0.01, 3, 5))

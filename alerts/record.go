@@ -40,7 +40,7 @@ type Record struct {
 	Quality      *RecordQuality      `json:"quality"`
 	Start        time.Time           `json:"start"`
 	End          *time.Time          `json:"end"`
-	Updated      time.Time           `json:"updated"`
+	Updated      time.Time           `json:"updated"` // frame time of the latest frame the record reflects; never before a peak time
 	State        string              `json:"state"`
 	Peak         Peak                `json:"peak"`
 	Severity     string              `json:"severity"`
@@ -162,4 +162,23 @@ func MakeID(unit, groupKey string, t time.Time) string {
 	b.WriteByte('/')
 	b.WriteString(t.UTC().Format(idTime))
 	return b.String()
+}
+
+// Channels returns the channels record r names, most telling first: its
+// first n ranked contributors (all of them when n ≤ 0), or, for a
+// data-quality alert without contributors, its one channel. It also
+// returns what r is about: the statistic of its peak, or the data-quality
+// kind.
+func (r *Record) Channels(n int) (about string, channels []string) {
+	about = r.Peak.Statistic
+	for i, c := range r.Contributors {
+		if n > 0 && i == n {
+			break
+		}
+		channels = append(channels, c.Channel)
+	}
+	if len(channels) == 0 && r.Quality != nil {
+		about, channels = r.Quality.Kind, []string{r.Quality.Channel}
+	}
+	return about, channels
 }

@@ -392,25 +392,15 @@ func readSnapshot(r io.Reader) (*snapshot, error) {
 }
 
 // build makes the units and incidents of s without touching the engine's
-// state (only its configuration). Called under e.mu.
+// state (only its configuration): the incidents, then the units that
+// reference them, then each incident's unit and group. Called under e.mu.
 func (e *Engine) build(s *snapshot) (map[string]*unit, map[string]*incident, error) {
-	units := make(map[string]*unit, len(s.Units))
-	incs := make(map[string]*incident, len(s.Incidents))
-	fail := func(format string, args ...any) (map[string]*unit, map[string]*incident, error) {
-		return nil, nil, fmt.Errorf("alerts: restore: "+format, args...)
+	fail := func(err error) (map[string]*unit, map[string]*incident, error) {
+		return nil, nil, fmt.Errorf("alerts: restore: %w", err)
 	}
-	for i := range s.Incidents {
-		si := &s.Incidents[i]
-		if si.ID == "" || incs[si.ID] != nil {
-			return fail("incident %d: empty or repeated id %q", i, si.ID)
-		}
-		incs[si.ID] = &incident{
-			id: si.ID, kind: si.Kind, start: si.Start, end: si.End, ended: si.Ended, updated: si.Updated,
-			peak: si.Peak, hasPeak: si.HasPeak, sev: si.Sev, sevName: si.SevName,
-			contrib: si.Contrib, missing: si.Missing, ack: si.Ack, stale: si.Stale, chatter: si.Chatter,
-			rev: si.Rev, member: si.Member, memberIdx: si.MemberIdx, endReason: si.EndReason,
-			members: si.Members, memberCount: si.MemberCount, lastPub: si.LastPub, dirty: si.Dirty, maxCount: si.MaxCount,
-		}
+	incs, err := buildIncidents(s)
+	if err != nil {
+		return fail(err)
 	}
 	lookup := func(id string) (*incident, error) {
 		if id == "" {
@@ -423,72 +413,112 @@ func (e *Engine) build(s *snapshot) (map[string]*unit, map[string]*incident, err
 		return inc, nil
 	}
 	for _, si := range s.Incidents {
-		for k, st := range si.Stats {
-			incs[si.ID].stats[k] = statPeak{used: st.Used, RecordStat: st.RecordStat}
+		f, err := lookup(si.Flood)
+		if err != nil {
+			return fail(err)
 		}
-		incs[si.ID].loc = si.Location.restore()
-		if si.Flood != "" {
-			f, err := lookup(si.Flood)
-			if err != nil {
-				return fail("%v", err)
-			}
-			incs[si.ID].flood = f
-		}
+		incs[si.ID].flood = f
 	}
+	units := make(map[string]*unit, len(s.Units))
 	for _, su := range s.Units {
 		if su.Name == "" || units[su.Name] != nil {
-			return fail("empty or repeated unit %q", su.Name)
+			return fail(fmt.Errorf("empty or repeated unit %q", su.Name))
 		}
-		u := e.newUnitState(su.Name)
-		units[su.Name] = u
-		u.last, u.seen, u.maint, u.frozen, u.model, u.c = su.Last, su.Seen, su.Maint, su.Frozen, su.Model, su.Counters
-		for k := range u.stats {
-			restoreAlarm(&u.stats[k], su.Stats[k])
-		}
-		if err := e.restoreGroup(u, &u.modelG, su.ModelG, lookup); err != nil {
-			return fail("unit %q: %v", su.Name, err)
-		}
-		if err := e.restoreLocations(u, su, lookup); err != nil {
-			return fail("unit %q: %v", su.Name, err)
-		}
-		for _, sq := range su.Quality {
-			rule, ok := e.cfg.Quality[sq.Kind]
-			if !ok {
-				return fail("unit %q: unknown quality kind %q", su.Name, sq.Kind)
-			}
-			q := &qalarm{
-				a: NewAlarm(AlarmRule{N: 1, M: 1, OnHold: rule.Hold, OffDelay: rule.OffDelay}),
-				g: group{key: sq.Kind + ":" + sq.Channel, qkind: sq.Kind, chann: sq.Channel, acts: newRing(u.rules.ChatterCount)},
-			}
-			restoreAlarm(&q.a, sq.Alarm)
-			if err := e.restoreGroup(u, &q.g, sq.Group, lookup); err != nil {
-				return fail("unit %q: %v", su.Name, err)
-			}
-			u.quality[qkey{sq.Kind, sq.Channel}] = q
-		}
-		for _, o := range su.Openings {
-			inc, err := lookup(o.Inc)
-			if err != nil {
-				return fail("unit %q: %v", su.Name, err)
-			}
-			u.openings.push(o.T, inc)
-		}
-		f, err := lookup(su.Flood)
+		u, err := e.buildUnit(su, lookup)
 		if err != nil {
-			return fail("unit %q: %v", su.Name, err)
+			return fail(fmt.Errorf("unit %q: %w", su.Name, err))
 		}
-		u.flood = f
-		// Minute 0 is a real minute (1970-01-01 00:00 UTC): the ring is set
-		// when it has a newest minute or any count. A set ring at minute 0
-		// with no counts restores as unset, which counts the same.
-		u.rate.last, u.rate.set = su.RateLast, su.RateLast != 0 || len(su.RateCount) > 0
-		for i, c := range su.RateCount {
-			if i < 0 || i >= len(u.rate.b) {
-				return fail("unit %q: rate bucket %d", su.Name, i)
-			}
-			u.rate.b[i] = c
-		}
+		units[su.Name] = u
 	}
+	if err := attachIncidents(s, units, incs); err != nil {
+		return fail(err)
+	}
+	return units, incs, nil
+}
+
+// buildIncidents makes the incidents of s, with their statistics' peaks
+// and locations.
+func buildIncidents(s *snapshot) (map[string]*incident, error) {
+	incs := make(map[string]*incident, len(s.Incidents))
+	for i := range s.Incidents {
+		si := &s.Incidents[i]
+		if si.ID == "" || incs[si.ID] != nil {
+			return nil, fmt.Errorf("incident %d: empty or repeated id %q", i, si.ID)
+		}
+		inc := &incident{
+			id: si.ID, kind: si.Kind, start: si.Start, end: si.End, ended: si.Ended, updated: si.Updated,
+			peak: si.Peak, hasPeak: si.HasPeak, sev: si.Sev, sevName: si.SevName,
+			contrib: si.Contrib, missing: si.Missing, ack: si.Ack, stale: si.Stale, chatter: si.Chatter,
+			rev: si.Rev, member: si.Member, memberIdx: si.MemberIdx, endReason: si.EndReason,
+			members: si.Members, memberCount: si.MemberCount, lastPub: si.LastPub, dirty: si.Dirty, maxCount: si.MaxCount,
+		}
+		for k, st := range si.Stats {
+			inc.stats[k] = statPeak{used: st.Used, RecordStat: st.RecordStat}
+		}
+		inc.loc = si.Location.restore()
+		incs[si.ID] = inc
+	}
+	return incs, nil
+}
+
+// buildUnit makes the state of one unit of a snapshot: alarms, groups,
+// locations, data-quality alarms, openings, flood and alert-rate ring.
+func (e *Engine) buildUnit(su snapUnit, lookup func(string) (*incident, error)) (*unit, error) {
+	u := e.newUnitState(su.Name)
+	u.last, u.seen, u.maint, u.frozen, u.model, u.c = su.Last, su.Seen, su.Maint, su.Frozen, su.Model, su.Counters
+	for k := range u.stats {
+		restoreAlarm(&u.stats[k], su.Stats[k])
+	}
+	if err := e.restoreGroup(u, &u.modelG, su.ModelG, lookup); err != nil {
+		return nil, err
+	}
+	if err := e.restoreLocations(u, su, lookup); err != nil {
+		return nil, err
+	}
+	for _, sq := range su.Quality {
+		rule, ok := e.cfg.Quality[sq.Kind]
+		if !ok {
+			return nil, fmt.Errorf("unknown quality kind %q", sq.Kind)
+		}
+		q := &qalarm{
+			a: NewAlarm(AlarmRule{N: 1, M: 1, OnHold: rule.Hold, OffDelay: rule.OffDelay}),
+			g: group{key: sq.Kind + ":" + sq.Channel, qkind: sq.Kind, chann: sq.Channel, acts: newRing(u.rules.ChatterCount)},
+		}
+		restoreAlarm(&q.a, sq.Alarm)
+		if err := e.restoreGroup(u, &q.g, sq.Group, lookup); err != nil {
+			return nil, err
+		}
+		u.quality[qkey{sq.Kind, sq.Channel}] = q
+	}
+	for _, o := range su.Openings {
+		inc, err := lookup(o.Inc)
+		if err != nil {
+			return nil, err
+		}
+		u.openings.push(o.T, inc)
+	}
+	f, err := lookup(su.Flood)
+	if err != nil {
+		return nil, err
+	}
+	u.flood = f
+	// Minute 0 is a real minute (1970-01-01 00:00 UTC): the ring is set
+	// when it has a newest minute or any count. A set ring at minute 0
+	// with no counts restores as unset, which counts the same.
+	u.rate.last, u.rate.set = su.RateLast, su.RateLast != 0 || len(su.RateCount) > 0
+	for i, c := range su.RateCount {
+		if i < 0 || i >= len(u.rate.b) {
+			return nil, fmt.Errorf("rate bucket %d", i)
+		}
+		u.rate.b[i] = c
+	}
+	return u, nil
+}
+
+// attachIncidents gives every incident its unit (floods and closed members
+// through the unit or member that references them) and a closed incident
+// kept only for flood membership a detached group carrying its key.
+func attachIncidents(s *snapshot, units map[string]*unit, incs map[string]*incident) error {
 	for _, inc := range incs {
 		if inc.u == nil {
 			// floods and closed members listed in openings: their unit
@@ -515,11 +545,9 @@ func (e *Engine) build(s *snapshot) (map[string]*unit, map[string]*incident, err
 			}
 		}
 		if inc.u == nil {
-			return fail("incident %q belongs to no unit", inc.id)
+			return fmt.Errorf("incident %q belongs to no unit", inc.id)
 		}
 		if inc.kind != KindFlood && inc.g == nil {
-			// A closed incident kept only for flood membership: give it a
-			// detached group carrying its key for member listings.
 			key := ""
 			for _, si := range s.Incidents {
 				if si.ID == inc.id {
@@ -529,7 +557,7 @@ func (e *Engine) build(s *snapshot) (map[string]*unit, map[string]*incident, err
 			inc.g = &group{key: key}
 		}
 	}
-	return units, incs, nil
+	return nil
 }
 
 func restoreAlarm(a *Alarm, s snapAlarm) {

@@ -72,7 +72,14 @@ func openIDs(e *Engine, unit string) []string {
 }
 
 func newRecorder(t *testing.T, out *[]string) *Engine {
-	e, err := NewEngine(Config{Rules: Rules{OnCount: 1, OnWindow: 1, OffDelay: 3 * time.Second}},
+	return newRecorderRules(t, out, Rules{OnCount: 1, OnWindow: 1, OffDelay: 3 * time.Second})
+}
+
+// newRecorderRules is an engine with rules that appends the JSON of every
+// record it publishes to out, checking each against the schema.
+func newRecorderRules(t *testing.T, out *[]string, rules Rules) *Engine {
+	t.Helper()
+	e, err := NewEngine(Config{Rules: rules},
 		PublisherFunc(func(r *Record) {
 			validateRecord(t, r)
 			b, _ := json.Marshal(r)

@@ -8,7 +8,7 @@ import (
 // TestTick: with the frames stopped, Tick ends shelves, floods and
 // chattering at the same instants as frames would (the L3 and L4 cases of
 // TestFlood and TestChattering: ISA-18.2 flood end and chattering as quoted
-// in [PUB-2], LIMITS.md §7.1), and a late frame from before the tick is
+// in public secondary text), and a late frame from before the tick is
 // still accepted.
 func TestTick(t *testing.T) {
 	t.Run("shelf expires", func(t *testing.T) {

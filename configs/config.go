@@ -15,6 +15,10 @@ package configs
 
 import (
 	"time"
+
+	"modewatch/alerts"
+	"modewatch/tracker"
+	"modewatch/tracker/modes"
 )
 
 // Defaults used by ApplyDefaults when the corresponding field is zero.
@@ -45,39 +49,42 @@ const (
 	// adjusted variance reaches 80 % of the total (common practice for PCA
 	// monitoring is a 70-90 % cumulative-variance rule).
 	DefaultModes = "auto:0.8"
-	// DefaultMaxModes caps the automatic choice of the number of modes.
-	DefaultMaxModes = 10
+	// DefaultMaxModes caps the automatic choice of the number of modes
+	// (the tracker's).
+	DefaultMaxModes = modes.DefaultMaxCount
 	// DefaultHalfLife is the half-life of the exponential weights of the
 	// online model: a frame's weight halves after this much event time.
 	DefaultHalfLife = 7 * 24 * time.Hour
-	// DefaultAlpha is the false-alarm rate of each control limit (per frame).
-	DefaultAlpha = 0.01
+	// DefaultAlpha is the false-alarm rate of each control limit (per
+	// frame; the tracker's).
+	DefaultAlpha = tracker.DefaultAlpha
 	// DefaultRefreshEvery is the number of frames between refreshes of the
-	// sparse modes from the covariance.
-	DefaultRefreshEvery = 64
+	// sparse modes from the covariance (the tracker's).
+	DefaultRefreshEvery = tracker.DefaultRefreshEvery
 	// DefaultWarmUp is the number of frames learned before any score is
 	// reported.
 	DefaultWarmUp = 500
 
 	// DefaultOnDelayN and DefaultOnDelayM: an alarm goes active when a
 	// statistic is over its limit in N of the last M frames.
-	DefaultOnDelayN = 3
-	DefaultOnDelayM = 5
+	// (The alarm engine's.)
+	DefaultOnDelayN = alerts.DefaultOnCount
+	DefaultOnDelayM = alerts.DefaultOnWindow
 	// DefaultOffDelay is how long a statistic must stay below its limit
 	// (minus the deadband) before an active alarm returns to normal.
-	DefaultOffDelay = 5 * time.Minute
+	DefaultOffDelay = alerts.DefaultOffDelay
 	// DefaultDeadband is the fraction of the limit below it that the
 	// statistic must fall to count as "back in" (hysteresis).
-	DefaultDeadband = 0.05
+	DefaultDeadband = alerts.DefaultDeadband
 	// DefaultFloodCount new alerts within DefaultFloodWindow make a flood
 	// (ISA-18.2 / EEMUA 191: more than 10 alarms in 10 minutes per operator;
 	// from memory).
-	DefaultFloodCount  = 10
-	DefaultFloodWindow = 10 * time.Minute
+	DefaultFloodCount  = alerts.DefaultFloodCount
+	DefaultFloodWindow = alerts.DefaultFloodWindow
 	// DefaultChatterCount activations within DefaultChatterWindow make an
 	// alarm chattering (common practice: 3 or more activations a minute).
-	DefaultChatterCount  = 3
-	DefaultChatterWindow = time.Minute
+	DefaultChatterCount  = alerts.DefaultChatterCount
+	DefaultChatterWindow = alerts.DefaultChatterWindow
 	// DefaultDeliveryQueue is the bounded queue length of each alert
 	// delivery target.
 	DefaultDeliveryQueue = 1024

@@ -138,11 +138,17 @@ func (d *decoder) errorf(n *yaml.Node, path, format string, args ...any) {
 	d.errs = append(d.errs, &Error{File: d.file, Line: n.Line, Column: n.Column, Path: path, Msg: fmt.Sprintf(format, args...)})
 }
 
-// yamlError turns a syntax error of the YAML parser into an Error. The
-// parser reports "yaml: line N: msg".
-func (d *decoder) yamlError(err error) *Error {
+// yamlError turns a syntax error of the YAML parser into an Error.
+func (d *decoder) yamlError(err error) *Error { return YAMLError(d.file, err) }
+
+// YAMLError turns an error of the YAML parser on file into an Error: a
+// syntax error ("yaml: line N: msg") keeps its line (column 1); any other
+// error is kept whole, without a position. Every YAML reader of the
+// project (configuration, tune grids, plant scenarios) reports through
+// [Error].
+func YAMLError(file string, err error) *Error {
 	msg := err.Error()
-	e := &Error{File: d.file, Msg: msg}
+	e := &Error{File: file, Msg: msg}
 	if rest, ok := strings.CutPrefix(msg, "yaml: line "); ok {
 		if i := strings.Index(rest, ":"); i > 0 {
 			if n, err := strconv.Atoi(rest[:i]); err == nil {

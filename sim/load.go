@@ -11,22 +11,15 @@ import (
 	"time"
 
 	"go.yaml.in/yaml/v3"
+
+	"modewatch/configs"
 )
 
-// FieldError is one problem in a scenario file, with its position.
-type FieldError struct {
-	File         string
-	Line, Column int
-	Field        string // path of the offending key, e.g. units[0].assets[1].channels[2].noise
-	Msg          string
-}
-
-func (e *FieldError) Error() string {
-	if e.Field == "" {
-		return fmt.Sprintf("%s:%d:%d: %s", e.File, e.Line, e.Column, e.Msg)
-	}
-	return fmt.Sprintf("%s:%d:%d: %s: %s", e.File, e.Line, e.Column, e.Field, e.Msg)
-}
+// FieldError is one problem in a scenario file, with its position and the
+// path of the offending key (Path, e.g.
+// units[0].assets[1].channels[2].noise): the configuration's error type,
+// shared by every YAML reader of the project.
+type FieldError = configs.Error
 
 // LoadError collects every problem found in a scenario file.
 type LoadError struct {
@@ -156,7 +149,7 @@ func (l *loader) errf(n *yaml.Node, path, format string, args ...any) {
 	if n != nil {
 		line, col = n.Line, n.Column
 	}
-	l.errs = append(l.errs, &FieldError{File: l.file, Line: line, Column: col, Field: path, Msg: fmt.Sprintf(format, args...)})
+	l.errs = append(l.errs, &FieldError{File: l.file, Line: line, Column: col, Path: path, Msg: fmt.Sprintf(format, args...)})
 }
 
 // fields checks that n is a mapping with only the allowed keys, no

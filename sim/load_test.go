@@ -45,7 +45,7 @@ func TestLoadErrorsAllAtOnce(t *testing.T) {
 	}
 	for i, w := range want {
 		g := le.Errs[i]
-		if g.File != "testdata/bad.yaml" || g.Line != w.line || g.Column != w.col || g.Field != w.field || !strings.Contains(g.Msg, w.msg) {
+		if g.File != "testdata/bad.yaml" || g.Line != w.line || g.Column != w.col || g.Path != w.field || !strings.Contains(g.Msg, w.msg) {
 			t.Errorf("problem %d: got %v, want %d:%d %s: …%s…", i, g, w.line, w.col, w.field, w.msg)
 		}
 	}

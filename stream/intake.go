@@ -585,16 +585,44 @@ func (in *Intake) decode(src string, base int64, chunk []byte) error {
 	return nil
 }
 
-// entry handles one line-protocol entry. It returns an error only if the
-// frame handler failed.
+// entry handles one line-protocol entry: its series (measurement and
+// tags), its fields, its timestamp, the channels it discovers, and the
+// values it hands to the aligner. A bad line is rejected (counted, placed,
+// quarantined); entry returns an error only if the frame handler failed.
 func (in *Intake) entry(dec *lineprotocol.Decoder) error {
 	in.st.Lines++
+	s, lastTok, ok := in.entrySeries(dec)
+	if !ok {
+		return nil
+	}
+	var fc fieldCounts
+	if lastTok, fc, ok = in.entryFields(dec, s, lastTok); !ok {
+		return nil
+	}
+	t, ok := in.entryTime(dec, lastTok)
+	if !ok {
+		return nil
+	}
+	in.st.Accepted++
+	in.st.Strings += fc.strings
+	in.st.Bools += fc.bools
+	in.st.Unmapped += fc.unmapped
+	if len(in.vals) == 0 {
+		return nil
+	}
+	in.discoverFields(s, lastTok)
+	return in.putFields(t)
+}
+
+// entrySeries decodes the measurement and the tags of an entry into in.sc
+// (tags sorted by key) and in.key, and returns the known series of that
+// key (nil if new) and the measurement token (to place later errors).
+func (in *Intake) entrySeries(dec *lineprotocol.Decoder) (*series, []byte, bool) {
 	m, err := dec.Measurement()
 	if err != nil {
 		in.rejectDecode(err)
-		return nil
+		return nil, nil, false
 	}
-	lastTok := m // last token seen, to place errors found after decoding
 	sc := append(in.sc[:0], m...)
 	mEnd := len(sc)
 	in.mEnd = mEnd
@@ -604,7 +632,7 @@ func (in *Intake) entry(dec *lineprotocol.Decoder) error {
 		if err != nil {
 			in.sc, in.tags = sc, tags
 			in.rejectDecode(err)
-			return nil
+			return nil, nil, false
 		}
 		if k == nil {
 			break
@@ -628,17 +656,32 @@ func (in *Intake) entry(dec *lineprotocol.Decoder) error {
 		key = append(key, 0)
 		key = append(key, sc[t.k1:t.v1]...)
 	}
-	in.key, in.tags = key, tags
-	s := in.ch.series[string(key)]
+	in.sc, in.key, in.tags = sc, key, tags
+	return in.ch.series[string(key)], m, true
+}
 
-	vals, unk := in.vals[:0], in.unk[:0]
-	var nStrings, nBools, nUnmapped uint64
+// fieldCounts are the fields of an entry that give no value.
+type fieldCounts struct{ strings, bools, unmapped uint64 }
+
+// entryFields decodes the fields of an entry of series s (nil if new) into
+// in.vals: each numeric or boolean field as a value and its channel, or,
+// for a field not known yet under auto-discovery, the index of its key in
+// in.unk (negative channel). It returns the last token seen and the
+// fields that give no value; false if the entry was rejected.
+func (in *Intake) entryFields(dec *lineprotocol.Decoder, s *series, lastTok []byte) ([]byte, fieldCounts, bool) {
+	var fc fieldCounts
+	sc, vals, unk := in.sc, in.vals[:0], in.unk[:0]
+	var fk, fv []byte
+	var why string // set: the field is rejected for this reason
+fields:
 	for j := 0; ; j++ {
-		fk, kind, fv, err := dec.NextFieldBytes()
+		var kind lineprotocol.ValueKind
+		var err error
+		fk, kind, fv, err = dec.NextFieldBytes()
 		if err != nil {
 			in.sc, in.vals = sc, vals
 			in.rejectDecode(err)
-			return nil
+			return nil, fc, false
 		}
 		if fk == nil {
 			break
@@ -650,9 +693,8 @@ func (in *Intake) entry(dec *lineprotocol.Decoder) error {
 		case lineprotocol.Float:
 			x, err = strconv.ParseFloat(str(fv), 64)
 			if err != nil && !errors.Is(err, strconv.ErrRange) {
-				in.sc, in.vals = sc, vals
-				in.rejectField(fk, fv, "not a float")
-				return nil
+				why = "not a float"
+				break fields
 			}
 			if x-x != 0 { // ±Inf (also from overflow) or NaN
 				x = math.NaN()
@@ -666,9 +708,8 @@ func (in *Intake) entry(dec *lineprotocol.Decoder) error {
 				x, err = parseBig(fv)
 			}
 			if err != nil {
-				in.sc, in.vals = sc, vals
-				in.rejectField(fk, fv, "not an integer")
-				return nil
+				why = "not an integer"
+				break fields
 			}
 		case lineprotocol.Uint:
 			var n uint64
@@ -678,9 +719,8 @@ func (in *Intake) entry(dec *lineprotocol.Decoder) error {
 				x, err = parseBig(fv)
 			}
 			if err != nil {
-				in.sc, in.vals = sc, vals
-				in.rejectField(fk, fv, "not an unsigned integer")
-				return nil
+				why = "not an unsigned integer"
+				break fields
 			}
 		case lineprotocol.Bool:
 			switch str(fv) {
@@ -689,13 +729,12 @@ func (in *Intake) entry(dec *lineprotocol.Decoder) error {
 			case "f", "F", "false", "False", "FALSE":
 				x = 0
 			default:
-				in.sc, in.vals = sc, vals
-				in.rejectField(fk, fv, "not a boolean")
-				return nil
+				why = "not a boolean"
+				break fields
 			}
 			isBool = true
 		default: // String
-			nStrings++
+			fc.strings++
 			continue
 		}
 		c := int32(-1)
@@ -708,14 +747,14 @@ func (in *Intake) entry(dec *lineprotocol.Decoder) error {
 		}
 		if c < 0 && (isBool || !in.ch.auto) {
 			if isBool {
-				nBools++
+				fc.bools++
 			} else {
-				nUnmapped++
+				fc.unmapped++
 			}
 			continue
 		}
 		if c >= 0 && isBool && !in.boolOK[c] {
-			nBools++
+			fc.bools++
 			continue
 		}
 		if c < 0 {
@@ -726,42 +765,48 @@ func (in *Intake) entry(dec *lineprotocol.Decoder) error {
 		}
 		vals = append(vals, fieldVal{x, c})
 	}
+	if why != "" {
+		in.sc, in.vals = sc, vals
+		in.rejectField(fk, fv, why)
+		return nil, fc, false
+	}
 	in.sc, in.vals, in.unk = sc, vals, unk
+	return lastTok, fc, true
+}
 
-	// Timestamp.
+// entryTime decodes the timestamp of an entry, in ns since the Unix epoch:
+// the line's, scaled by the precision, or Options.Now for a line without
+// one (rejected when Now is nil); false if the entry was rejected.
+func (in *Intake) entryTime(dec *lineprotocol.Decoder, lastTok []byte) (int64, bool) {
 	tb, err := dec.TimeBytes()
 	if err != nil {
 		in.rejectDecode(err)
-		return nil
+		return 0, false
 	}
-	var t int64
 	if tb == nil {
 		if in.opt.Now == nil {
 			line, col := in.position(offsetIn(in.chunk, lastTok))
 			in.reject(ReasonNoTime, line, col, errors.New("line has no timestamp"))
-			return nil
+			return 0, false
 		}
-		t = in.opt.Now().UnixNano()
-	} else {
-		ts, err := strconv.ParseInt(str(tb), 10, 64)
-		d := int64(in.opt.Precision.Duration())
-		if err != nil || ts > maxAbsTime/d || ts < -maxAbsTime/d {
-			line, col := in.position(offsetIn(in.chunk, tb))
-			in.reject(ReasonTimeRange, line, col, fmt.Errorf("timestamp %q (%s) outside %s..%s",
-				tb, in.opt.Precision, MinTime.Format(time.RFC3339), MaxTime.Format(time.RFC3339)))
-			return nil
-		}
-		t = ts * d
+		return in.opt.Now().UnixNano(), true
 	}
-	in.st.Accepted++
-	in.st.Strings += nStrings
-	in.st.Bools += nBools
-	in.st.Unmapped += nUnmapped
-	if len(vals) == 0 {
-		return nil
+	ts, err := strconv.ParseInt(str(tb), 10, 64)
+	d := int64(in.opt.Precision.Duration())
+	if err != nil || ts > maxAbsTime/d || ts < -maxAbsTime/d {
+		line, col := in.position(offsetIn(in.chunk, tb))
+		in.reject(ReasonTimeRange, line, col, fmt.Errorf("timestamp %q (%s) outside %s..%s",
+			tb, in.opt.Precision, MinTime.Format(time.RFC3339), MaxTime.Format(time.RFC3339)))
+		return 0, false
 	}
+	return ts * d, true
+}
 
-	// Auto-discovery of new channels.
+// discoverFields gives the fields of in.vals not known yet (auto-discovery)
+// their channels, or refuses them when the registry is full; s is the
+// entry's series (nil if new: created here when a channel is added).
+func (in *Intake) discoverFields(s *series, lastTok []byte) {
+	vals, unk, sc := in.vals, in.unk, in.sc
 	grown := false
 	for i := range vals {
 		if vals[i].c >= 0 {
@@ -775,7 +820,7 @@ func (in *Intake) entry(dec *lineprotocol.Decoder) error {
 				vals[i].c = in.refuse(fk, lastTok, nil)
 				continue
 			}
-			s = in.newSeries(mEnd)
+			s = in.newSeries(in.mEnd)
 		}
 		vals[i].c = in.discover(s, fk, lastTok)
 		grown = grown || vals[i].c >= 0
@@ -783,7 +828,14 @@ func (in *Intake) entry(dec *lineprotocol.Decoder) error {
 	if grown {
 		in.syncChannels()
 	}
+}
 
+// putFields hands the values of in.vals at event time t (ns) to the
+// aligner: NaN where not finite or outside the channel's range, counted;
+// all counted late if t is before the aligner's watermark. It returns an
+// error only if the frame handler failed.
+func (in *Intake) putFields(t int64) error {
+	vals := in.vals
 	ok, err := in.al.Advance(t)
 	if err != nil {
 		return err

@@ -235,227 +235,294 @@ func (r *ckReader) floats(dst []float64, what string) {
 // ErrCheckpoint the tracker is unchanged. Feeding the restored tracker the
 // same frames gives bit-identical scores.
 func (t *Tracker) UnmarshalBinary(data []byte) error {
-	bad := func(format string, a ...any) error {
-		return fmt.Errorf("%w: %s", ErrCheckpoint, fmt.Sprintf(format, a...))
+	st, err := t.decodeCheckpoint(data)
+	if err != nil {
+		return err
 	}
+	if err := st.check(); err != nil {
+		return err
+	}
+	// Everything checked; the modes validate themselves before changing.
+	if err := t.ms.UnmarshalBinary(st.modes); err != nil {
+		return fmt.Errorf("%w: %w", ErrCheckpoint, err)
+	}
+	if st.ready() && t.ms.Count() == 0 {
+		return ckError("the model is marked ready but the modes section holds no modes")
+	}
+	t.apply(st)
+	return nil
+}
+
+// ckState is a decoded tracker checkpoint, not yet applied.
+type ckState struct {
+	p, p0, nb, since              int
+	flags                         uint8
+	frames, learned               uint64
+	mean, vari, count, sumW2, cov []float64
+	alphas, rows, al              []float64 // batch: steps, rows, per-channel steps (frame-major)
+	last                          []float64
+	run                           []int
+	include                       []bool
+	nEff                          float64
+	a                             []float64 // correlation, upper triangle (ready only)
+	cal                           [6]float64
+	nLag                          int // frames scored, not yet learned (version ≥ 3)
+	lagX, lagRatio                []float64
+	lagFlags                      []byte
+	vq, vl, vn                    []float64 // variance statistic (version ≥ 4; nil: start again)
+	modes                         []byte
+}
+
+func (st *ckState) ready() bool { return st.flags&1 != 0 }
+
+// ckError is an error wrapping ErrCheckpoint.
+func ckError(format string, a ...any) error {
+	return fmt.Errorf("%w: %s", ErrCheckpoint, fmt.Sprintf(format, a...))
+}
+
+// decodeCheckpoint checks the frame of a checkpoint (length, magic,
+// version, checksum) and its fit to t (channel count, configuration,
+// forgetting factor, batch and lag sizes), and decodes its fields.
+func (t *Tracker) decodeCheckpoint(data []byte) (*ckState, error) {
+	bad := ckError
 	if len(data) < 4+2+4+8+4 {
-		return bad("%d bytes is too short for a tracker checkpoint", len(data))
+		return nil, bad("%d bytes is too short for a tracker checkpoint", len(data))
 	}
 	if string(data[:4]) != ckMagic {
-		return bad("not a tracker checkpoint (magic %q)", data[:4])
+		return nil, bad("not a tracker checkpoint (magic %q)", data[:4])
 	}
 	version := binary.LittleEndian.Uint16(data[4:])
 	if version < 1 || version > ckVersion {
-		return bad("version %d, this build reads versions 1 to %d", version, ckVersion)
+		return nil, bad("version %d, this build reads versions 1 to %d", version, ckVersion)
 	}
 	body := data[:len(data)-4]
 	if crc32.ChecksumIEEE(body) != binary.LittleEndian.Uint32(data[len(data)-4:]) {
-		return bad("checksum mismatch: the checkpoint is truncated or corrupt (%d bytes)", len(data))
+		return nil, bad("checksum mismatch: the checkpoint is truncated or corrupt (%d bytes)", len(data))
 	}
 	r := &ckReader{b: body, off: 6}
+	st := &ckState{}
 	p := int(r.u32("channel count"))
 	if r.err == nil && p != t.p {
-		return bad("written for %d channels, this tracker has %d", p, t.p)
+		return nil, bad("written for %d channels, this tracker has %d", p, t.p)
 	}
+	st.p = p
 	if fp := r.u64("config fingerprint"); r.err == nil && fp != t.fingerprint() {
-		return bad("written with a different configuration (fingerprint %016x, this tracker %016x)", fp, t.fingerprint())
+		return nil, bad("written with a different configuration (fingerprint %016x, this tracker %016x)", fp, t.fingerprint())
 	}
-	flags := r.u8("flags")
-	frames := r.u64("frame count")
-	learned := r.u64("learned count")
-	since := int(r.u32("frames since refresh"))
-	p0 := p
+	st.flags = r.u8("flags")
+	st.frames = r.u64("frame count")
+	st.learned = r.u64("learned count")
+	st.since = int(r.u32("frames since refresh"))
+	st.p0 = p
 	if version >= 2 {
-		p0 = int(r.u32("initial channel count"))
-		if r.err == nil && (p0 < 1 || p0 > p) {
-			return bad("initial channel count %d outside 1…%d", p0, p)
+		st.p0 = int(r.u32("initial channel count"))
+		if r.err == nil && (st.p0 < 1 || st.p0 > p) {
+			return nil, bad("initial channel count %d outside 1…%d", st.p0, p)
 		}
 	}
 	mu := r.f64("forgetting factor")
 	if r.err == nil && mu != t.ew.mu {
-		return bad("forgetting factor %v differs from this tracker's %v", mu, t.ew.mu)
+		return nil, bad("forgetting factor %v differs from this tracker's %v", mu, t.ew.mu)
 	}
-	mean, vari, count, sumW2 := make([]float64, p), make([]float64, p), make([]float64, p), make([]float64, p)
-	r.floats(mean, "means")
-	r.floats(vari, "variances")
-	r.floats(count, "counts")
-	r.floats(sumW2, "Kish sums")
-	cov := make([]float64, p*(p+1)/2)
-	r.floats(cov, "covariance")
-	nb := int(r.u32("batch length"))
-	if r.err == nil && (nb < 0 || nb > t.ew.capB) {
-		return bad("batch of %d frames exceeds the buffer of %d", nb, t.ew.capB)
+	st.mean, st.vari, st.count, st.sumW2 = make([]float64, p), make([]float64, p), make([]float64, p), make([]float64, p)
+	r.floats(st.mean, "means")
+	r.floats(st.vari, "variances")
+	r.floats(st.count, "counts")
+	r.floats(st.sumW2, "Kish sums")
+	st.cov = make([]float64, p*(p+1)/2)
+	r.floats(st.cov, "covariance")
+	if err := t.decodeBatch(r, st, version); err != nil {
+		return nil, err
 	}
-	alphas := make([]float64, nb)
-	r.floats(alphas, "batch steps")
-	rows := make([]float64, nb*p)
-	r.floats(rows, "batch rows")
-	al := make([]float64, nb*p) // per-channel steps, frame by frame
-	for k, a := range alphas {
-		switch {
-		case math.IsNaN(a) && version >= 2:
-			r.floats(al[k*p:(k+1)*p], "per-channel batch steps")
-			for _, v := range al[k*p : (k+1)*p] {
-				if !(v >= 0 && v <= 1) && r.err == nil {
-					return bad("batch frame %d: step %v outside [0, 1]", k, v)
-				}
-			}
-		case !(a >= 0 && a <= 1) && r.err == nil:
-			return bad("batch frame %d: step %v outside [0, 1]", k, a)
+	st.last = make([]float64, p)
+	r.floats(st.last, "last values")
+	st.run = make([]int, p)
+	for i := range st.run {
+		st.run[i] = int(r.u32("run lengths"))
+	}
+	st.include = make([]bool, p)
+	if st.ready() {
+		for i := range st.include {
+			st.include[i] = r.u8("model channels") == 1
 		}
+		st.nEff = r.f64("effective sample size")
+		st.a = make([]float64, p*(p+1)/2)
+		r.floats(st.a, "correlation")
 	}
-	last := make([]float64, p)
-	r.floats(last, "last values")
-	run := make([]int, p)
-	for i := range run {
-		run[i] = int(r.u32("run lengths"))
-	}
-	ready := flags&1 != 0
-	include := make([]bool, p)
-	var nEff float64
-	var a []float64
-	if ready {
-		for i := range include {
-			include[i] = r.u8("model channels") == 1
-		}
-		nEff = r.f64("effective sample size")
-		a = make([]float64, p*(p+1)/2)
-		r.floats(a, "correlation")
-	}
-	var cal [6]float64
-	r.floats(cal[:], "empirical limits")
-	nLag := 0
-	var lagX []float64
-	var lagFlags []byte
-	var lagRatio []float64
+	r.floats(st.cal[:], "empirical limits")
 	if version >= 3 {
-		nLag = int(r.u32("lag frames"))
-		size := 0
-		if t.lag != nil {
-			size = t.lag.size
-		}
-		if r.err == nil && (nLag < 0 || nLag > size) {
-			return bad("%d frames waiting to be learned, this tracker's lag is %d", nLag, size)
-		}
-		lagX, lagFlags, lagRatio = make([]float64, nLag*p), make([]byte, nLag*p), make([]float64, nLag)
-		for k := 0; k < nLag && r.err == nil; k++ {
-			lagRatio[k] = r.f64("lag ratio")
-			r.floats(lagX[k*p:(k+1)*p], "lag frame")
-			if r.need(p, "lag flags") {
-				copy(lagFlags[k*p:(k+1)*p], r.b[r.off:r.off+p])
-				r.off += p
-			}
+		if err := t.decodeLag(r, st); err != nil {
+			return nil, err
 		}
 	}
-	var vq, vl, vn []float64 // variance statistic (v4; nil: start again)
 	if version >= 4 {
 		hasVar := r.u8("variance flag")
 		switch {
 		case r.err != nil:
 		case hasVar > 1:
-			return bad("variance flag %d is neither 0 nor 1", hasVar)
+			return nil, ckError("variance flag %d is neither 0 nor 1", hasVar)
 		case hasVar == 1:
-			vq, vl, vn = make([]float64, p), make([]float64, p), make([]float64, p)
-			r.floats(vq, "variance EWMA")
-			r.floats(vl, "variance normal levels")
-			r.floats(vn, "variance level counts")
+			st.vq, st.vl, st.vn = make([]float64, p), make([]float64, p), make([]float64, p)
+			r.floats(st.vq, "variance EWMA")
+			r.floats(st.vl, "variance normal levels")
+			r.floats(st.vn, "variance level counts")
 		}
 	}
 	nm := int(r.u32("modes length"))
-	var mb []byte
 	if r.need(nm, "modes") {
-		mb = r.b[r.off : r.off+nm]
+		st.modes = r.b[r.off : r.off+nm]
 		r.off += nm
 	}
 	if r.err != nil {
-		return bad("%v", r.err)
+		return nil, bad("%v", r.err)
 	}
 	if r.off != len(body) {
-		return bad("%d unexpected trailing bytes", len(body)-r.off)
+		return nil, bad("%d unexpected trailing bytes", len(body)-r.off)
 	}
-	for name, s := range map[string][]float64{"mean": mean, "variance": vari, "count": count, "covariance": cov, "correlation": a} {
+	return st, nil
+}
+
+// decodeBatch decodes the pending batch of the covariance update: its
+// length (at most the buffer), steps and rows.
+func (t *Tracker) decodeBatch(r *ckReader, st *ckState, version uint16) error {
+	p := st.p
+	nb := int(r.u32("batch length"))
+	if r.err == nil && (nb < 0 || nb > t.ew.capB) {
+		return ckError("batch of %d frames exceeds the buffer of %d", nb, t.ew.capB)
+	}
+	st.nb = nb
+	st.alphas = make([]float64, nb)
+	r.floats(st.alphas, "batch steps")
+	st.rows = make([]float64, nb*p)
+	r.floats(st.rows, "batch rows")
+	st.al = make([]float64, nb*p) // per-channel steps, frame by frame
+	for k, a := range st.alphas {
+		switch {
+		case math.IsNaN(a) && version >= 2:
+			r.floats(st.al[k*p:(k+1)*p], "per-channel batch steps")
+			for _, v := range st.al[k*p : (k+1)*p] {
+				if !(v >= 0 && v <= 1) && r.err == nil {
+					return ckError("batch frame %d: step %v outside [0, 1]", k, v)
+				}
+			}
+		case !(a >= 0 && a <= 1) && r.err == nil:
+			return ckError("batch frame %d: step %v outside [0, 1]", k, a)
+		}
+	}
+	return nil
+}
+
+// decodeLag decodes the frames scored but not yet learned (at most the
+// tracker's lag).
+func (t *Tracker) decodeLag(r *ckReader, st *ckState) error {
+	p := st.p
+	nLag := int(r.u32("lag frames"))
+	size := 0
+	if t.lag != nil {
+		size = t.lag.size
+	}
+	if r.err == nil && (nLag < 0 || nLag > size) {
+		return ckError("%d frames waiting to be learned, this tracker's lag is %d", nLag, size)
+	}
+	st.nLag = nLag
+	st.lagX, st.lagFlags, st.lagRatio = make([]float64, nLag*p), make([]byte, nLag*p), make([]float64, nLag)
+	for k := 0; k < nLag && r.err == nil; k++ {
+		st.lagRatio[k] = r.f64("lag ratio")
+		r.floats(st.lagX[k*p:(k+1)*p], "lag frame")
+		if r.need(p, "lag flags") {
+			copy(st.lagFlags[k*p:(k+1)*p], r.b[r.off:r.off+p])
+			r.off += p
+		}
+	}
+	return nil
+}
+
+// check refuses values no tracker writes: non-finite statistics and
+// negative variances.
+func (st *ckState) check() error {
+	for name, s := range map[string][]float64{"mean": st.mean, "variance": st.vari, "count": st.count, "covariance": st.cov, "correlation": st.a} {
 		for i, v := range s {
 			if math.IsNaN(v) || math.IsInf(v, 0) {
-				return bad("%s value %d is %v", name, i, v)
+				return ckError("%s value %d is %v", name, i, v)
 			}
 		}
 	}
-	for i, v := range vari {
+	for i, v := range st.vari {
 		if v < 0 {
-			return bad("variance of channel %d is negative (%v)", i, v)
+			return ckError("variance of channel %d is negative (%v)", i, v)
 		}
 	}
-	for i := range vq {
-		if !(vq[i] >= 0) || math.IsInf(vq[i], 0) || !(vl[i] > 0) || math.IsInf(vl[i], 0) || !(vn[i] >= 0) || math.IsInf(vn[i], 0) {
-			return bad("variance statistic of channel %d: EWMA %v, normal level %v, count %v", i, vq[i], vl[i], vn[i])
+	for i := range st.vq {
+		q, l, n := st.vq[i], st.vl[i], st.vn[i]
+		if !(q >= 0) || math.IsInf(q, 0) || !(l > 0) || math.IsInf(l, 0) || !(n >= 0) || math.IsInf(n, 0) {
+			return ckError("variance statistic of channel %d: EWMA %v, normal level %v, count %v", i, q, l, n)
 		}
 	}
-	// Everything checked; the modes validate themselves before changing.
-	if err := t.ms.UnmarshalBinary(mb); err != nil {
-		return fmt.Errorf("%w: %w", ErrCheckpoint, err)
-	}
-	if ready && t.ms.Count() == 0 {
-		return bad("the model is marked ready but the modes section holds no modes")
-	}
+	return nil
+}
+
+// apply installs a decoded and checked checkpoint (its modes already
+// restored into t.ms).
+func (t *Tracker) apply(st *ckState) {
+	p := st.p
 	e := t.ew
-	copy(e.mean, mean)
-	copy(e.vari, vari)
-	copy(e.count, count)
-	copy(e.sumW2, sumW2)
+	copy(e.mean, st.mean)
+	copy(e.vari, st.vari)
+	copy(e.count, st.count)
+	copy(e.sumW2, st.sumW2)
 	k := 0
 	for i := 0; i < p; i++ {
 		for j := i; j < p; j++ {
-			e.cov.Data[i*p+j] = cov[k]
+			e.cov.Data[i*p+j] = st.cov[k]
 			k++
 		}
 	}
-	e.nb = nb
-	copy(e.alphas, alphas)
-	for k := 0; k < nb; k++ {
+	e.nb = st.nb
+	copy(e.alphas, st.alphas)
+	for k := 0; k < st.nb; k++ {
 		for i := 0; i < p; i++ {
-			e.rows[i*e.ldb+k] = rows[k*p+i]
-			e.al[i*e.ldb+k] = al[k*p+i]
+			e.rows[i*e.ldb+k] = st.rows[k*p+i]
+			e.al[i*e.ldb+k] = st.al[k*p+i]
 		}
 	}
-	t.p0 = p0
-	copy(t.last, last)
-	copy(t.run, run)
-	t.frames, t.learned = frames, learned
-	t.frozen, t.baseline = flags&2 != 0, flags&4 != 0
+	t.p0 = st.p0
+	copy(t.last, st.last)
+	copy(t.run, st.run)
+	t.frames, t.learned = st.frames, st.learned
+	t.frozen, t.baseline = st.flags&2 != 0, st.flags&4 != 0
 	t.ready = false
-	if ready {
+	if st.ready() {
 		m := t.mdl
-		copy(m.include, include)
+		copy(m.include, st.include)
 		raw := m.a.RawSymmetric()
 		k = 0
 		for i := 0; i < p; i++ {
 			for j := i; j < p; j++ {
-				raw.Data[i*raw.Stride+j] = a[k]
+				raw.Data[i*raw.Stride+j] = st.a[k]
 				k++
 			}
 		}
-		t.install(nEff)
+		t.install(st.nEff)
 	}
 	if l := t.lag; l != nil {
-		copy(l.x, lagX)
-		copy(l.flags, lagFlags)
-		copy(l.ratio, lagRatio)
-		l.head, l.n = 0, nLag
+		copy(l.x, st.lagX)
+		copy(l.flags, st.lagFlags)
+		copy(l.ratio, st.lagRatio)
+		l.head, l.n = 0, st.nLag
 	}
 	if rs := t.rs; rs != nil && rs.vr {
-		if vq != nil {
-			copy(rs.q, vq)
-			copy(rs.lvl, vl)
-			copy(rs.lvlN, vn)
+		if st.vq != nil {
+			copy(rs.q, st.vq)
+			copy(rs.lvl, st.vl)
+			copy(rs.lvlN, st.vn)
 		} else {
 			for i := range rs.q {
 				rs.q[i], rs.lvl[i], rs.lvlN[i] = 1, 1, 0
 			}
 		}
 	}
-	t.since = since
-	t.cal = flags&8 != 0
-	t.calT2, t.calSPE, t.calPhi = cal[0], cal[1], cal[2]
-	t.calScale = [3]float64{cal[3], cal[4], cal[5]}
-	return nil
+	t.since = st.since
+	t.cal = st.flags&8 != 0
+	t.calT2, t.calSPE, t.calPhi = st.cal[0], st.cal[1], st.cal[2]
+	t.calScale = [3]float64{st.cal[3], st.cal[4], st.cal[5]}
 }

@@ -23,7 +23,7 @@ func covOf(e *EW) *mat.SymDense {
 	return c
 }
 
-// A1, A2, A3: EW recursion with μ = 0.9 from b = x₁, C = 0 (LIMITS.md §6.4 [DER]).
+// A1, A2, A3: EW recursion with μ = 0.9 from b = x₁, C = 0 (hand computation).
 func TestEWFixtureA1(t *testing.T) {
 	xs := [][]float64{{1, 2}, {2, 1}, {4, 3}, {3, 5}, {5, 4}}
 	wantB := [][]float64{{1.1, 1.9}, {1.39, 2.01}, {1.551, 2.309}, {1.8959, 2.4781}}
@@ -61,7 +61,7 @@ func TestEWFixtureA1(t *testing.T) {
 	approx(t, "A2 C01", c01, 1.08177021, 0, 1e-12)
 }
 
-// A4: a step 0 → 1 into an EW mean reaches 1 − μⁿ after n frames (μ = 0.99) [DER].
+// A4: a step 0 → 1 into an EW mean reaches 1 − μⁿ after n frames (μ = 0.99) [derived].
 func TestEWStepResponse(t *testing.T) {
 	e := NewEW(1, 0.99, 16, false)
 	e.Update([]float64{0}, nil)
@@ -75,7 +75,8 @@ func TestEWStepResponse(t *testing.T) {
 	}
 }
 
-// A7: half-life mapping μ = 2^(−Δt/H) (LIMITS.md §6.2 [DER]).
+// A7: half-life mapping μ = 2^(−Δt/H) (the definition of a half-life: the
+// weight halves after H).
 func TestForgetting(t *testing.T) {
 	for _, c := range []struct {
 		dt, h              time.Duration
@@ -105,7 +106,7 @@ func TestForgetting(t *testing.T) {
 }
 
 // A8: the Finch update equals the forgetting-factor update of Li et al. (2000)
-// per sample, b ← μb + (1−μ)x, C ← μ(C + ΔbΔbᵀ) + (1−μ)(x − b₊)(x − b₊)ᵀ [DER].
+// per sample, b ← μb + (1−μ)x, C ← μ(C + ΔbΔbᵀ) + (1−μ)(x − b₊)(x − b₊)ᵀ [derived].
 func TestEWEqualsLi(t *testing.T) {
 	const p = 4
 	mu := 0.97
@@ -147,7 +148,7 @@ func TestEWEqualsLi(t *testing.T) {
 }
 
 // A6: a batch of B frames folded by one rank-B update equals B single
-// updates within 1e-12 relative (algebraic identity [DER]); also through the
+// updates within 1e-12 relative (algebraic identity [derived]); also through the
 // cumulative start-up, where the step changes from frame to frame.
 func TestEWBatchEqualsSingle(t *testing.T) {
 	const p, n = 37, 501

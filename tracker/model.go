@@ -174,45 +174,7 @@ func (m *model) setLoadings(pm mat.Matrix) {
 			m.pl[i*R+j] = pm.At(i, j)
 		}
 	}
-	// Gram–Schmidt into q.
-	rq := 0
-	for j := 0; j < r; j++ {
-		for i := 0; i < p; i++ {
-			m.q[i*R+rq] = m.pl[i*R+j]
-		}
-		for pass := 0; pass < 2; pass++ {
-			for k := 0; k < rq; k++ {
-				d := 0.0
-				for i := 0; i < p; i++ {
-					d += m.q[i*R+k] * m.q[i*R+rq]
-				}
-				for i := 0; i < p; i++ {
-					m.q[i*R+rq] -= d * m.q[i*R+k]
-				}
-			}
-		}
-		nrm := 0.0
-		for i := 0; i < p; i++ {
-			nrm += m.q[i*R+rq] * m.q[i*R+rq]
-		}
-		col := 0.0
-		for i := 0; i < p; i++ {
-			col += m.pl[i*R+j] * m.pl[i*R+j]
-		}
-		if nrm <= 1e-20*col || nrm == 0 {
-			continue
-		}
-		nrm = 1 / math.Sqrt(nrm)
-		for i := 0; i < p; i++ {
-			m.q[i*R+rq] *= nrm
-		}
-		rq++
-	}
-	for i := 0; i < p; i++ {
-		for j := rq; j < R; j++ {
-			m.q[i*R+j] = 0
-		}
-	}
+	rq := m.orthonormalise(r)
 	m.rq = rq
 	a := m.a.RawSymmetric()
 	pg := blas64.General{Rows: p, Cols: R, Stride: R, Data: m.pl}
@@ -221,32 +183,7 @@ func (m *model) setLoadings(pm mat.Matrix) {
 	// k-sparse modes cost O(p·k·r) instead of O(p²r).
 	m.symTimesSparse(m.ap, m.pl, r)
 	if rq == r {
-		// Gram–Schmidt gives Q = P U⁻¹ with U = QᵀP upper triangular, so
-		// AQ = AP U⁻¹: O(p r²).
-		u := m.sc1
-		for x := 0; x < r; x++ {
-			for y := 0; y < r; y++ {
-				s := 0.0
-				for i := 0; i < p; i++ {
-					s += m.q[i*R+x] * m.pl[i*R+y]
-				}
-				u[x*R+y] = s
-			}
-		}
-		for i := 0; i < p; i++ {
-			row := m.aq[i*R : i*R+R]
-			src := m.ap[i*R : i*R+R]
-			for y := 0; y < r; y++ {
-				v := src[y]
-				for x := 0; x < y; x++ {
-					v -= row[x] * u[x*R+y]
-				}
-				row[y] = v / u[y*R+y]
-			}
-			for y := r; y < R; y++ {
-				row[y] = 0
-			}
-		}
+		m.aqFromAP(r)
 	} else {
 		m.symTimesSparse(m.aq, m.q, rq)
 	}
@@ -288,6 +225,83 @@ func (m *model) setLoadings(pm mat.Matrix) {
 	m.nCache = 0
 	m.next = 0
 	m.cholOK = false
+}
+
+// orthonormalise writes into the first columns of q the first r loadings
+// of pl orthonormalised by modified Gram–Schmidt (two passes; a column
+// dependent within 1e-10 of its norm is dropped), zeroes the rest of q and
+// returns the number of columns kept.
+func (m *model) orthonormalise(r int) int {
+	p, R := m.p, m.maxR
+	rq := 0
+	for j := 0; j < r; j++ {
+		for i := 0; i < p; i++ {
+			m.q[i*R+rq] = m.pl[i*R+j]
+		}
+		for pass := 0; pass < 2; pass++ {
+			for k := 0; k < rq; k++ {
+				d := 0.0
+				for i := 0; i < p; i++ {
+					d += m.q[i*R+k] * m.q[i*R+rq]
+				}
+				for i := 0; i < p; i++ {
+					m.q[i*R+rq] -= d * m.q[i*R+k]
+				}
+			}
+		}
+		nrm := 0.0
+		for i := 0; i < p; i++ {
+			nrm += m.q[i*R+rq] * m.q[i*R+rq]
+		}
+		col := 0.0
+		for i := 0; i < p; i++ {
+			col += m.pl[i*R+j] * m.pl[i*R+j]
+		}
+		if nrm <= 1e-20*col || nrm == 0 {
+			continue
+		}
+		nrm = 1 / math.Sqrt(nrm)
+		for i := 0; i < p; i++ {
+			m.q[i*R+rq] *= nrm
+		}
+		rq++
+	}
+	for i := 0; i < p; i++ {
+		for j := rq; j < R; j++ {
+			m.q[i*R+j] = 0
+		}
+	}
+	return rq
+}
+
+// aqFromAP sets AQ = AP·U⁻¹ in O(p r²) when Gram–Schmidt kept all r
+// columns: then Q = P·U⁻¹ with U = QᵀP upper triangular.
+func (m *model) aqFromAP(r int) {
+	p, R := m.p, m.maxR
+	u := m.sc1
+	for x := 0; x < r; x++ {
+		for y := 0; y < r; y++ {
+			s := 0.0
+			for i := 0; i < p; i++ {
+				s += m.q[i*R+x] * m.pl[i*R+y]
+			}
+			u[x*R+y] = s
+		}
+	}
+	for i := 0; i < p; i++ {
+		row := m.aq[i*R : i*R+R]
+		src := m.ap[i*R : i*R+R]
+		for y := 0; y < r; y++ {
+			v := src[y]
+			for x := 0; x < y; x++ {
+				v -= row[x] * u[x*R+y]
+			}
+			row[y] = v / u[y*R+y]
+		}
+		for y := r; y < R; y++ {
+			row[y] = 0
+		}
+	}
 }
 
 // symTimesSparse sets the first ncol columns of dst (p × maxR) to A·src,
@@ -338,30 +352,8 @@ func (m *model) computePattern(pt *pattern, ls *limitSpec) {
 		return -1
 	}
 	// M' = M − P_mᵀ K P_m; QᵀS'Q = QᵀAQ − Q_mᵀ K Q_m.
-	mp := m.sc1
-	qsq := m.sc2
-	for i := 0; i < r; i++ {
-		for j := 0; j < r; j++ {
-			mp[i*R+j] = m.m[i*R+j]
-			qsq[i*R+j] = m.qaq[i*R+j]
-		}
-	}
-	sTr := m.trA
-	sFro2 := m.aFro2
-	for x, ix := range pt.miss {
-		sTr -= pt.kc[x*k+x]
-		for y, iy := range pt.miss {
-			kv := pt.kc[x*k+y]
-			av := a.Data[minInt(ix, iy)*a.Stride+maxInt(ix, iy)]
-			sFro2 += (av-kv)*(av-kv) - av*av
-			for i := 0; i < r; i++ {
-				for j := 0; j < r; j++ {
-					mp[i*R+j] -= m.pl[ix*R+i] * kv * m.pl[iy*R+j]
-					qsq[i*R+j] -= m.q[ix*R+i] * kv * m.q[iy*R+j]
-				}
-			}
-		}
-	}
+	mp, qsq := m.sc1, m.sc2
+	sTr, sFro2 := m.reducedMoments(pt, mp, qsq)
 	// Pseudo-inverse of M' by Jacobi eigen-decomposition (r is small).
 	pt.rank = symPinv(pt.minv, mp, r, R, m.eig, m.ev, m.sc3)
 	// Residual traces θ₁ = tr S' − tr QᵀS'Q, θ₂ = ‖S'‖² − 2‖S'Q‖² + ‖QᵀS'Q‖².
@@ -404,40 +396,7 @@ func (m *model) computePattern(pt *pattern, ls *limitSpec) {
 	if ls.spe == SPEJacksonMudholkar {
 		pt.theta.T3 = m.theta3(pt, ls.jmSpace)
 	}
-	// Limits.
-	var err error
-	l := pt.rank
-	if l < 1 {
-		pt.t2Lim = math.Inf(1)
-	} else if ls.t2 == T2ChiSquare || math.IsInf(ls.nEff, 1) {
-		pt.t2Lim, err = limits.T2ChiSquare(ls.alpha, l)
-	} else if ls.t2 == T2PhaseI {
-		pt.t2Lim, err = limits.T2PhaseI(ls.alpha, l, ls.nEff)
-	} else {
-		pt.t2Lim, err = limits.T2PhaseII(ls.alpha, l, ls.nEff)
-	}
-	if err != nil {
-		pt.err = err
-		pt.t2Lim = math.Inf(1)
-	}
-	switch {
-	case pt.theta.T1 <= emptyResidual*math.Max(sTr, 1):
-		// The modes span every included channel (e.g. as many 1-sparse
-		// modes as channels): the residual subspace is empty up to
-		// rounding, SPE is identically zero and carries no information.
-		// SPE cannot alarm and φ reduces to T²/τ², not an error.
-		pt.speLim, err = math.Inf(1), nil
-	case ls.spe == SPEJacksonMudholkar:
-		pt.speLim, err = limits.SPEJacksonMudholkar(ls.alpha, pt.theta)
-	default:
-		pt.speLim, err = limits.SPEBox(ls.alpha, pt.theta)
-	}
-	if err != nil {
-		pt.speLim = math.Inf(1)
-		if pt.err == nil {
-			pt.err = err
-		}
-	}
+	pt.setT2SPELimits(ls, sTr)
 	// Per channel: D'ᵢᵢ, (D'S'C̃)ᵢᵢ, Rᵢᵢ; cross = tr(S'D'S'C̃) = Σᵢ (D'S'C̃)ᵢᵢ... computed
 	// as tr(M'⁺ (C̃S'P)ᵀ(C̃S'P)) = Σᵢ (C̃S'P)ᵢ M'⁺ (C̃S'P)ᵢᵀ.
 	tau2, delta2 := pt.t2Lim, pt.speLim
@@ -495,6 +454,87 @@ func (m *model) computePattern(pt *pattern, ls *limitSpec) {
 		pt.rbcLim[i] = limits.RBC(ls.chi1, num, den)
 	}
 	pt.cross = cross
+	pt.setPhiLimit(ls, cross)
+}
+
+// reducedMoments writes into mp and qsq (r × r, stride maxR) the moments
+// of the reduced correlation S' = A − K of pattern pt (K the correction of
+// its missing channels): M' = M − P_mᵀ K P_m and QᵀS'Q = QᵀAQ − Q_mᵀ K Q_m,
+// and returns tr S' and ‖S'‖²_F.
+func (m *model) reducedMoments(pt *pattern, mp, qsq []float64) (sTr, sFro2 float64) {
+	R, r := m.maxR, m.r
+	k := len(pt.miss)
+	a := m.a.RawSymmetric()
+	for i := 0; i < r; i++ {
+		for j := 0; j < r; j++ {
+			mp[i*R+j] = m.m[i*R+j]
+			qsq[i*R+j] = m.qaq[i*R+j]
+		}
+	}
+	sTr, sFro2 = m.trA, m.aFro2
+	for x, ix := range pt.miss {
+		sTr -= pt.kc[x*k+x]
+		for y, iy := range pt.miss {
+			kv := pt.kc[x*k+y]
+			av := a.Data[min(ix, iy)*a.Stride+max(ix, iy)]
+			sFro2 += (av-kv)*(av-kv) - av*av
+			for i := 0; i < r; i++ {
+				for j := 0; j < r; j++ {
+					mp[i*R+j] -= m.pl[ix*R+i] * kv * m.pl[iy*R+j]
+					qsq[i*R+j] -= m.q[ix*R+i] * kv * m.q[iy*R+j]
+				}
+			}
+		}
+	}
+	return sTr, sFro2
+}
+
+// setT2SPELimits sets the T² limit of pattern pt (its rank, the form and
+// sample size of ls) and its SPE limit (+Inf when the modes leave no
+// residual space, relative to tr S' = sTr); an error of either is kept in
+// pt.err and its limit is +Inf.
+func (pt *pattern) setT2SPELimits(ls *limitSpec, sTr float64) {
+	var err error
+	l := pt.rank
+	if l < 1 {
+		pt.t2Lim = math.Inf(1)
+	} else if ls.t2 == T2ChiSquare || math.IsInf(ls.nEff, 1) {
+		pt.t2Lim, err = limits.T2ChiSquare(ls.alpha, l)
+	} else if ls.t2 == T2PhaseI {
+		pt.t2Lim, err = limits.T2PhaseI(ls.alpha, l, ls.nEff)
+	} else {
+		pt.t2Lim, err = limits.T2PhaseII(ls.alpha, l, ls.nEff)
+	}
+	if err != nil {
+		pt.err = err
+		pt.t2Lim = math.Inf(1)
+	}
+	switch {
+	case pt.theta.T1 <= emptyResidual*math.Max(sTr, 1):
+		// The modes span every included channel (e.g. as many 1-sparse
+		// modes as channels): the residual subspace is empty up to
+		// rounding, SPE is identically zero and carries no information.
+		// SPE cannot alarm and φ reduces to T²/τ², not an error.
+		pt.speLim, err = math.Inf(1), nil
+	case ls.spe == SPEJacksonMudholkar:
+		pt.speLim, err = limits.SPEJacksonMudholkar(ls.alpha, pt.theta)
+	default:
+		pt.speLim, err = limits.SPEBox(ls.alpha, pt.theta)
+	}
+	if err != nil {
+		pt.speLim = math.Inf(1)
+		if pt.err == nil {
+			pt.err = err
+		}
+	}
+}
+
+// setPhiLimit sets the limit of the combined index φ of pattern pt from
+// its T² and SPE limits, its residual traces and cross = tr(S'D'S'C̃): +Inf
+// without a T² limit; with no SPE limit, that of the T² part alone.
+func (pt *pattern) setPhiLimit(ls *limitSpec, cross float64) {
+	tau2, delta2, l := pt.t2Lim, pt.speLim, pt.rank
+	var err error
 	if math.IsInf(tau2, 1) {
 		pt.phiLim = math.Inf(1)
 		return
@@ -667,18 +707,4 @@ func symPinv(dst, s []float64, r, R int, v, ev, w []float64) int {
 		}
 	}
 	return rank
-}
-
-func minInt(a, b int) int {
-	if a < b {
-		return a
-	}
-	return b
-}
-
-func maxInt(a, b int) int {
-	if a > b {
-		return a
-	}
-	return b
 }

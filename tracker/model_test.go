@@ -37,7 +37,8 @@ func scoreVec(m *model, idx Index, z []float64) (*work, float64, float64, float6
 	return w, t2, spe, phi
 }
 
-// R1–R5: the smearing example of LIMITS.md §5.2 [DER]: one factor with
+// R1–R5: a smearing example (hand derivation; the effect is Westerhuis,
+// Gurden & Smilde 2000's): one factor with
 // loadings a = (4, 1, 1, 1), noise 0.01, sensor 1 biased by 1.
 func TestSmearingExample(t *testing.T) {
 	a := []float64{4, 1, 1, 1}
@@ -95,7 +96,7 @@ func rho07() *mat.SymDense {
 }
 
 // S12–S14, C1–C2, R6: the model p = 4, ρ = 0.7, l = 1 (Montgomery exercise
-// covariance; values LIMITS.md [DER]).
+// covariance; values by hand derivation).
 func TestRho07Model(t *testing.T) {
 	pm := mat.NewDense(4, 1, []float64{0.5, 0.5, 0.5, 0.5})
 	for _, idx := range []Index{IndexSPE, IndexCombined} {
@@ -194,7 +195,7 @@ func eigenLoadings(s *mat.SymDense, r int) *mat.Dense {
 
 // R7: for a pure single-channel fault x = fξⱼ the RBC of the faulty channel
 // equals the whole index and is the largest (Cauchy–Schwarz; Alcalá & Qin
-// 2009 [DER]), for eigenvector and for non-orthogonal sparse loadings. Also
+// 2009 [derived]), for eigenvector and for non-orthogonal sparse loadings. Also
 // the T² of non-orthogonal loadings equals the direct tᵀ(PᵀSP)⁻¹t and SPE the
 // direct ‖(I − P(PᵀP)⁻¹Pᵀ)z‖² (gonum as the reference).
 func TestRBCPureFault(t *testing.T) {
@@ -388,7 +389,7 @@ func TestSymPinv(t *testing.T) {
 
 // θ from traces (Box) and θ₃ from the explicit residual covariance
 // (Jackson–Mudholkar) equal the sums of powers of the residual eigenvalues
-// (gonum EigenSym as the reference; LIMITS.md S16 [DER]).
+// (gonum EigenSym as the reference).
 func TestThetaMatchesEigen(t *testing.T) {
 	rng := rand.New(rand.NewPCG(71, 72))
 	const p, r = 15, 4
@@ -416,7 +417,7 @@ func TestThetaMatchesEigen(t *testing.T) {
 
 // For non-orthogonal sparse loadings the φ limit uses tr(SΦ) and tr((SΦ)²)
 // with the cross term tr(SDSC̃); Monte Carlo: E[φ] = tr(SΦ),
-// Var[φ] = 2 tr((SΦ)²) for Gaussian z (Box 1954 moments [DER]).
+// Var[φ] = 2 tr((SΦ)²) for Gaussian z (Box 1954 moments [derived]).
 func TestPhiMomentsSparse(t *testing.T) {
 	rng := rand.New(rand.NewPCG(81, 82))
 	const p = 12
@@ -462,8 +463,8 @@ func TestPhiMomentsSparse(t *testing.T) {
 }
 
 // Why Score.Contrib is ranked by RBC and not by RBC over its limit: for a
-// pure single-sensor fault x = fξⱼ RBCⱼ is the largest RBC (LIMITS.md R7,
-// Cauchy–Schwarz [DER]), but RBCᵢ/(gᵢχ²₁) can put another channel first
+// pure single-sensor fault x = fξⱼ RBCⱼ is the largest RBC (Alcalá & Qin
+// 2009; by Cauchy–Schwarz), but RBCᵢ/(gᵢχ²₁) can put another channel first
 // when gⱼ is larger. A seeded 8-channel model with 2 eigenvector modes
 // (found by searching seeds 0–199: 12 of 1,200 model/mode/index cases):
 // with the RBC of SPE and a bias of 3 on channel 2, the ratio ranks channel

@@ -198,10 +198,9 @@ func (m *model) factorRidge(ridge float64) error {
 	return nil
 }
 
-// cholBlock is the panel width of cholUpper (a multiple of 4): at p = 500
-// widths 8, 16, 24, 32, 48, 64 took 1.65, 1.67, 1.74, 1.77, 2.04 and
-// 2.20 ms per factor in one interleaved run with the AVX2 trailing update
-// (wide panels leave more to the row-by-row panel updates).
+// cholBlock is the panel width of cholUpper (a multiple of 4); wide panels
+// leave more to the row-by-row panel updates. The widths measured are in
+// the package README.
 const cholBlock = 16
 
 // cholUpper factors the symmetric positive definite n × n matrix held in

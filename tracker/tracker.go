@@ -60,6 +60,7 @@ import (
 	"fmt"
 	"math"
 	"reflect"
+	"slices"
 	"time"
 
 	"modewatch/tracker/limits"
@@ -77,8 +78,9 @@ const (
 	T2F T2Form = iota
 	// T2ChiSquare is the large-sample form τ² = χ²_{1−α}(r), exact when
 	// the covariance is known; within 1 % of the F form once n_eff is a
-	// few hundred to a thousand (LIMITS.md T4, T9: m ≥ 719 for p = 6 at
-	// α = 0.005), and the F form is conservative below that (T12).
+	// few hundred to a thousand (computed from the F and χ² quantiles:
+	// m ≥ 719 for p = 6 at α = 0.005), and the F form is conservative below
+	// that.
 	T2ChiSquare
 	// T2PhaseI is the Phase I (retrospective) form for frames that took
 	// part in the estimate, e.g. screening a Fit reference set for outliers
@@ -90,26 +92,22 @@ const (
 	T2PhaseI
 )
 
-// SPEForm selects the SPE control limit.
+// SPEForm selects the SPE control limit: [SPEBox] (the default) or
+// [SPEJacksonMudholkar]. Both approximate the (1 − α) quantile of
+// Q = Σ λⱼzⱼ² over the residual roots λⱼ.
 //
-// Which to choose. Both approximate the (1 − α) quantile of
-// Q = Σ λⱼzⱼ² over the residual roots λⱼ. Box's limit is exact when the
-// roots are equal and stays close while they are spread without a dominant
-// one, the usual case of a unit with many channels and a residual made of
-// sensor noise: on the Tennessee Eastman correlation (52 channels, 11
-// modes) it gives 1.09 % false alarms at α = 1 % (JM 0.99 %). When one or
-// two residual roots dominate (too few modes for the structure, or a few
-// channels much noisier than the rest) Box runs high: 1.40 % at α = 1 % on
-// a 20-channel model whose largest residual root is 3.4 × their mean,
-// where JM gives 0.84 % (TestFalseAlarmRate; LIMITS.md §3.2 S5–S8 give Box
-// 1.11–1.18 % and JM 0.80–0.89 %). JM is also conservative at small α
-// where Box is liberal. Rule: keep Box (cheap, O(p²r) per refresh) unless
-// the false-alarm rate matters more than the cost of θ₃ (O(p³) per
-// refresh) or the residual spectrum is known to be dominated by a few
-// roots; a useful sign is Box's h = θ₁²/θ₂ well below the number of
-// residual dimensions (27 of 41 on the plant model, 10.8 of 17 on the hard
-// one). An empirical limit (Calibrate) over a long normal reference log
-// avoids the question.
+// Box's limit is exact when the roots are equal and stays close while they
+// are spread without a dominant one, the usual case of a unit with many
+// channels and a residual made of sensor noise. When one or two residual
+// roots dominate (too few modes for the structure, or a few channels much
+// noisier than the rest) Box runs high and Jackson–Mudholkar is closer; JM
+// is also conservative at small α where Box is liberal. Keep Box (cheap,
+// O(p²r) per refresh) unless the false-alarm rate matters more than the
+// cost of θ₃ (O(p³) per refresh) or the residual spectrum is known to be
+// dominated by a few roots; a useful sign is Box's h = θ₁²/θ₂ well below
+// the number of residual dimensions. An empirical limit ([Tracker.Calibrate])
+// over a long normal reference log avoids the question. Measured rates are
+// in the package README.
 type SPEForm int
 
 const (
@@ -275,7 +273,7 @@ type Contribution struct {
 	// by reconstructing this channel alone (0..1).
 	Share float64
 	// SPEContrib is eᵢ², the channel's term of SPE (≥ 0; smears onto
-	// correlated channels, LIMITS.md §5.2). T2Contrib is zᵢ(Dz)ᵢ,
+	// correlated channels: Westerhuis, Gurden & Smilde 2000). T2Contrib is zᵢ(Dz)ᵢ,
 	// D = P(PᵀAP)⁻¹Pᵀ, its term of T² (the terms sum to T²). T2Contrib is
 	// signed: negative when the channel's standardized value zᵢ and the
 	// model's pull (Dz)ᵢ point in opposite directions, i.e. the channel
@@ -827,7 +825,7 @@ func (t *Tracker) install(nEff float64) {
 		n := 0
 		for j := 0; j < r; j++ {
 			md := t.ms.Mode(j)
-			if containsSorted(md.Support, i) {
+			if _, ok := slices.BinarySearch(md.Support, i); ok {
 				m.modeIDs[m.modeOff[i]+n] = md.ID
 				n++
 			}
@@ -843,19 +841,6 @@ func (t *Tracker) install(nEff float64) {
 	t.ready = true
 	t.since = 0
 	t.cal = false
-}
-
-func containsSorted(s []int, v int) bool {
-	lo, hi := 0, len(s)
-	for lo < hi {
-		h := (lo + hi) / 2
-		if s[h] < v {
-			lo = h + 1
-		} else {
-			hi = h
-		}
-	}
-	return lo < len(s) && s[lo] == v
 }
 
 // Fit sets a fixed baseline from a batch of frames (rows of frames, each of

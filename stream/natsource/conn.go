@@ -328,6 +328,30 @@ func Connect(ctx context.Context, opts Options, log *slog.Logger) (*Conn, error)
 	}
 	c.state.Store(int32(StateConnecting))
 
+	no, auth, err := c.natsOptions(ctx, opts)
+	if err != nil {
+		return nil, err
+	}
+	urls := strings.Join(opts.URLs, ",")
+	nc, err := nats.Connect(urls, no...)
+	if err != nil {
+		if isAuthErr(err) {
+			return nil, fmt.Errorf("%w (auth method: %s; servers %s): %w", ErrAuth, auth, redact(opts.URLs), err)
+		}
+		return nil, fmt.Errorf("natsource: connect to %s: %w", redact(opts.URLs), err)
+	}
+	c.nc = nc
+	if nc.IsConnected() {
+		c.markConnected(nc)
+	}
+	return c, nil
+}
+
+// natsOptions turns opts into nats.go options: timeouts bounded by ctx,
+// reconnection with backoff, the handlers that keep c's state and
+// counters, and the authentication and TLS options. It also returns the
+// name of the authentication method, for errors.
+func (c *Conn) natsOptions(ctx context.Context, opts Options) ([]nats.Option, string, error) {
 	timeout := orDur(opts.ConnectTimeout, DefaultConnectTimeout)
 	if dl, ok := ctx.Deadline(); ok {
 		if left := time.Until(dl); left < timeout {
@@ -409,48 +433,45 @@ func Connect(ctx context.Context, opts Options, log *slog.Logger) (*Conn, error)
 	if opts.MaxPingsOut > 0 {
 		no = append(no, nats.MaxPingsOutstanding(opts.MaxPingsOut))
 	}
+	auth, err := authOptions(opts, &no)
+	if err != nil {
+		return nil, "", err
+	}
+	return no, auth, nil
+}
+
+// authOptions appends to no the authentication and TLS options of opts and
+// returns the name of the authentication method.
+func authOptions(opts Options, no *[]nats.Option) (string, error) {
 	auth := "none"
 	switch {
 	case opts.User != "":
-		no = append(no, nats.UserInfo(opts.User, opts.Password))
+		*no = append(*no, nats.UserInfo(opts.User, opts.Password))
 		auth = "user/password"
 	case opts.Token != "":
-		no = append(no, nats.Token(opts.Token))
+		*no = append(*no, nats.Token(opts.Token))
 		auth = "token"
 	case opts.NKeySeedFile != "":
 		o, err := nats.NkeyOptionFromSeed(opts.NKeySeedFile)
 		if err != nil {
-			return nil, fmt.Errorf("%w: nkey_seed_file %q: %w", ErrConfig, opts.NKeySeedFile, err)
+			return "", fmt.Errorf("%w: nkey_seed_file %q: %w", ErrConfig, opts.NKeySeedFile, err)
 		}
-		no = append(no, o)
+		*no = append(*no, o)
 		auth = "nkey"
 	case opts.CredentialsFile != "":
-		no = append(no, nats.UserCredentials(opts.CredentialsFile))
+		*no = append(*no, nats.UserCredentials(opts.CredentialsFile))
 		auth = "credentials file"
 	}
 	if opts.TLS.enabled() {
-		no = append(no, nats.Secure())
+		*no = append(*no, nats.Secure())
 		if opts.TLS.CAFile != "" {
-			no = append(no, nats.RootCAs(opts.TLS.CAFile))
+			*no = append(*no, nats.RootCAs(opts.TLS.CAFile))
 		}
 		if opts.TLS.CertFile != "" {
-			no = append(no, nats.ClientCert(opts.TLS.CertFile, opts.TLS.KeyFile))
+			*no = append(*no, nats.ClientCert(opts.TLS.CertFile, opts.TLS.KeyFile))
 		}
 	}
-
-	urls := strings.Join(opts.URLs, ",")
-	nc, err := nats.Connect(urls, no...)
-	if err != nil {
-		if isAuthErr(err) {
-			return nil, fmt.Errorf("%w (auth method: %s; servers %s): %w", ErrAuth, auth, redact(opts.URLs), err)
-		}
-		return nil, fmt.Errorf("natsource: connect to %s: %w", redact(opts.URLs), err)
-	}
-	c.nc = nc
-	if nc.IsConnected() {
-		c.markConnected(nc)
-	}
-	return c, nil
+	return auth, nil
 }
 
 func isAuthErr(err error) bool {

@@ -1,8 +1,7 @@
 // Package natsource brings reading payloads in from NATS: core subscriptions
 // (at-most-once, bounded queue with counted overflow) and JetStream durable
-// pull consumers (at-least-once, acknowledged only after the frames a message
-// contributed to are processed; duplicates removed by stream sequence on the
-// consumer side). It also starts an embedded nats-server for the service when
+// pull consumers (at-least-once, acknowledged by the caller once the frames
+// a message contributed to are safely processed). It also starts an embedded nats-server for the service when
 // no server URL is configured.
 //
 // The package moves bytes only; decoding, channel mapping and frame alignment
@@ -18,27 +17,25 @@
 //     buffered without bound. Ack is a no-op.
 //   - JetStream (ConsumeJetStream): a message is delivered at least once. The
 //     server stops sending when MaxAckPending messages are unacknowledged, so
-//     intake slows when the handler's caller acknowledges late. An AckTracker
-//     acknowledges messages once the aligner's watermark passes their latest
-//     event time and filters redeliveries by stream sequence, so that, with
-//     its Checkpoint saved together with the model state, every message is
-//     processed exactly once across crashes and restarts.
+//     intake slows when the handler's caller acknowledges late. A message
+//     not acknowledged within AckWait is delivered again; one lost in flight
+//     (a delivery sequence gap, counted in JetStreamStats.DeliveryGaps) comes
+//     again after AckWait.
 //
-// Restart procedure for JetStream (checked end to end with stream.Intake in
-// the package tests):
+// Restart (what the service does; see cmd/modewatch/internal/service):
 //
-//  1. Save AckTracker.Checkpoint() together with the model state.
-//  2. On start, tr := NewAckTracker(capacity, saved) and ConsumeJetStream
-//     with JetStreamConfig{Resume: &saved, Tracker: tr}: the consumer is
-//     reset so the server delivers everything after saved.Seq again, in
-//     order, and the tracker follows the server's acknowledgement floor.
-//  3. Skip frames that start before saved.Watermark; they were processed
-//     before the checkpoint.
+//  1. Each message is fed with stream.Intake.FeedAck; its acknowledgement
+//     is released once the frames it contributed to are emitted, and then
+//     held until the next checkpoint of the unit models holds those frames.
+//  2. On start, ConsumeJetStream resets the durable consumer to its
+//     acknowledgement floor (unless NoReset), so the server delivers again,
+//     at once and in sequence order, every message after the floor.
+//  3. The restored units skip the frames their checkpoint holds, and the
+//     aligner is seeded with the readings the checkpoint's last frame
+//     carried (stream.Intake.SeedLast).
 //
-// With these, every frame reaches the model exactly once relative to the
-// restored model state. Without a saved checkpoint (Resume nil) the
-// consumer restarts after its acknowledgement floor; messages acknowledged
-// out of order above the floor then come again (at least once).
+// Messages acknowledged out of order above the floor come again too; the
+// skipping in step 3 makes that harmless.
 //
 // Connection handling (Connect) follows nats.go: several server URLs,
 // user/password, token, NKey seed file, credentials file, TLS with a CA and a

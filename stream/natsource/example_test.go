@@ -2,43 +2,14 @@ package natsource_test
 
 import (
 	"context"
-	"errors"
 	"fmt"
 	"os"
+	"sync"
 	"time"
 
 	"modewatch/stream"
 	"modewatch/stream/natsource"
 )
-
-// Acknowledge JetStream messages once the aligner's watermark has passed
-// their latest event time, and drop a redelivery.
-func ExampleAckTracker() {
-	t0 := time.Date(2026, 3, 1, 12, 0, 0, 0, time.UTC)
-	ack := func(seq uint64) func() error {
-		return func() error { fmt.Println("ack", seq); return nil }
-	}
-	tr := natsource.NewAckTracker(0, natsource.Checkpoint{})
-	latest := []time.Duration{1: 10 * time.Second, 2: 20 * time.Second} // by stream seq
-	for seq := uint64(1); seq <= 2; seq++ {
-		m := natsource.Msg{Seq: seq, Ack: ack(seq)}
-		if tr.Admit(m) {
-			// ... feed m.Data to decode → map → align ...
-			_ = tr.Add(m, t0.Add(latest[seq]))
-		}
-	}
-	tr.AckThrough(t0.Add(15 * time.Second)) // frames up to 12:00:15 processed
-	// Seq 1 comes again (its acknowledgement was lost): acknowledged, not fed.
-	fmt.Println("redelivered 1 admitted:", tr.Admit(natsource.Msg{Seq: 1, Ack: ack(1)}))
-	tr.AckThrough(t0.Add(25 * time.Second))
-	fmt.Println("last processed seq:", tr.Checkpoint().Seq)
-	// Output:
-	// ack 1
-	// ack 1
-	// redelivered 1 admitted: false
-	// ack 2
-	// last processed seq: 2
-}
 
 // Run an embedded server, subscribe to a wildcard subject and receive one
 // message.
@@ -84,8 +55,13 @@ func ExampleConn_SubscribeCore() {
 }
 
 // The JetStream wiring of the service: a durable consumer feeds
-// stream.Intake, an AckTracker acknowledges by the intake's watermark, and
-// the checkpoint (saved with the model state) resumes it after a restart.
+// stream.Intake through FeedAck, whose callback runs once the frames a
+// message contributed to are emitted; the service holds these
+// acknowledgements until its next checkpoint holds those frames, then
+// acknowledges them. After a restart the consumer is reset to its
+// acknowledgement floor, so everything the checkpoint does not hold comes
+// again at once; the frames the checkpoint holds are skipped, and the
+// readings its last frame carried are seeded (stream.Intake.SeedLast).
 func ExampleConn_ConsumeJetStream() {
 	ctx, cancel := context.WithTimeout(context.Background(), 20*time.Second)
 	defer cancel()
@@ -108,35 +84,28 @@ func ExampleConn_ConsumeJetStream() {
 	}
 	defer conn.Drain(ctx)
 
-	var saved *natsource.Checkpoint // loaded with the model state; nil on first start
-	var cp natsource.Checkpoint
-	if saved != nil {
-		cp = *saved
-	}
+	var saved time.Time // the last frame the checkpoint holds; zero on first start
 	ch, _ := stream.NewChannels(nil, 0)
 	frames := make(chan string, 16)
 	in, _ := stream.NewIntake(ch, stream.Options{Align: stream.AlignConfig{Period: time.Second}},
 		func(f *stream.Frame) error {
-			if f.Start.Before(cp.Watermark) {
+			if !saved.IsZero() && !f.Start.After(saved) {
 				return nil // processed before the checkpoint
 			}
 			frames <- fmt.Sprint(f.Start.Format("15:04:05"), " ", f.Values)
 			return nil
 		})
-	tr := natsource.NewAckTracker(0, cp)
+	var mu sync.Mutex
+	var held []func() error // acknowledgements waiting for the next checkpoint
 	cons, err := conn.ConsumeJetStream(ctx, natsource.JetStreamConfig{
 		Stream: "PLANT", Durable: "modewatch", CreateStream: true, StreamSubjects: []string{"plant.readings.>"},
-		Resume: saved, Tracker: tr,
 	}, func(m natsource.Msg) error {
-		if !tr.Admit(m) {
+		return in.FeedAck(m.Subject, m.Data, func() error {
+			mu.Lock()
+			held = append(held, m.Ack)
+			mu.Unlock()
 			return nil
-		}
-		latest, err := in.Feed(m.Subject, m.Data)
-		if addErr := tr.Add(m, latest); addErr != nil {
-			return addErr
-		}
-		_, ackErr := tr.AckThrough(in.Watermark())
-		return errors.Join(err, ackErr)
+		})
 	})
 	if err != nil {
 		fmt.Println(err)
@@ -150,9 +119,16 @@ func ExampleConn_ConsumeJetStream() {
 	fmt.Println(<-frames)
 	fmt.Println(<-frames)
 	cons.Stop(ctx)
-	fmt.Println("checkpoint seq ≤ 2:", tr.Checkpoint().Seq <= 2, "watermark:", tr.Checkpoint().Watermark.Format("15:04:05"))
+	// A checkpoint: save the model state (up to frame 06:00:01), then
+	// acknowledge the messages of the frames it holds.
+	mu.Lock()
+	for _, ack := range held {
+		ack()
+	}
+	fmt.Println("acknowledged with the checkpoint:", len(held))
+	mu.Unlock()
 	// Output:
 	// 06:00:00 [40]
 	// 06:00:01 [41]
-	// checkpoint seq ≤ 2: true watermark: 06:00:02
+	// acknowledged with the checkpoint: 2
 }

@@ -45,13 +45,7 @@ func ctxT(t *testing.T, d time.Duration) context.Context {
 // waitFor polls cond until it holds or the deadline passes.
 func waitFor(t *testing.T, d time.Duration, what string, cond func() bool) {
 	t.Helper()
-	deadline := time.Now().Add(d)
-	for !cond() {
-		if time.Now().After(deadline) {
-			t.Fatalf("timed out after %v waiting for %s", d, what)
-		}
-		time.Sleep(5 * time.Millisecond) // polling a condition under a deadline
-	}
+	natstest.WaitFor(t, d, what, cond)
 }
 
 // eventRecorder collects connection events on a buffered channel.

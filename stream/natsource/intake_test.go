@@ -19,7 +19,8 @@ import (
 
 // The end-to-end path: line protocol published through JetStream, fed into
 // the stream package's decode → map → align (stream.Intake), acknowledged
-// by the aligner's watermark through an AckTracker.
+// by the aligner's watermark (Intake.FeedAck) once a checkpoint holds the
+// frames, as the service does.
 
 var e2eT0 = time.Date(2026, 3, 1, 6, 0, 0, 0, time.UTC)
 
@@ -61,25 +62,43 @@ func (l *frameLog) add(ch *stream.Channels, f *stream.Frame) {
 	l.frames[s] = append(l.frames[s], vals)
 }
 
-// process is one life of the consuming service.
+// checkpoint is what the service saves with the model state: the last
+// frame processed and the readings that frame carried.
+type checkpoint struct {
+	to   time.Time
+	last []seed
+}
+
+type seed struct {
+	name string
+	v    float64
+	t    time.Time
+}
+
+// process is one life of the consuming service: JetStream messages fed to
+// the Intake with FeedAck, acknowledgements held until a checkpoint holds
+// the frames they contributed to, frames the previous life's checkpoint
+// holds skipped, and its carried readings seeded.
 type process struct {
 	conn   *natsource.Conn
 	cons   *natsource.JSConsumer
 	in     *stream.Intake
-	tr     *natsource.AckTracker
 	fed    chan uint64
-	mu     sync.Mutex
-	limit  int // > 0: the process dies after feeding this many messages
-	nFed   int
-	errors []error
+	frames *frameLog
+
+	mu      sync.Mutex
+	held    []func() error // acknowledgements waiting for the next checkpoint
+	last    time.Time      // start of the last frame processed
+	carried []seed         // the readings it carried
+	limit   int            // > 0: the process dies after feeding this many messages
+	ckptAt  int            // > 0: a checkpoint after feeding this many messages (and whenever 32 acknowledgements wait)
+	ckpt    checkpoint
+	nFed    int
+	errors  []error
 }
 
-func startProcess(t *testing.T, url string, resume *natsource.Checkpoint, frames *frameLog, limit int) *process {
+func startProcess(t *testing.T, url string, resume *checkpoint, frames *frameLog, limit, ckptAt int) *process {
 	t.Helper()
-	var cp natsource.Checkpoint
-	if resume != nil {
-		cp = *resume
-	}
 	ctx, cancel := context.WithTimeout(context.Background(), 10*time.Second)
 	defer cancel()
 	c, err := natsource.Connect(ctx, natsource.Options{URLs: []string{url}}, nil)
@@ -90,44 +109,56 @@ func startProcess(t *testing.T, url string, resume *natsource.Checkpoint, frames
 	if err != nil {
 		t.Fatal(err)
 	}
-	p := &process{conn: c, tr: natsource.NewAckTracker(0, cp), fed: make(chan uint64, 4096), limit: limit}
+	p := &process{conn: c, fed: make(chan uint64, 4096), frames: frames, limit: limit, ckptAt: ckptAt}
+	// The frame handler runs inside FeedAck or Flush, with p.mu held.
 	p.in, err = stream.NewIntake(ch, stream.Options{Align: stream.AlignConfig{Period: time.Second, Staleness: time.Second}},
 		func(f *stream.Frame) error {
-			// After a restart, frames starting before the checkpoint's
-			// watermark were processed by the previous life.
-			if f.Start.Before(cp.Watermark) {
-				return nil
+			if resume != nil && !f.Start.After(resume.to) {
+				return nil // the checkpoint holds it
 			}
 			frames.add(ch, f)
+			p.last, p.carried = f.Start, p.carried[:0]
+			for i, v := range f.Values {
+				if !f.Missing[i] {
+					p.carried = append(p.carried, seed{ch.Channel(i).Name, v, time.Unix(0, f.Times[i]).UTC()})
+				}
+			}
 			return nil
 		})
 	if err != nil {
 		t.Fatal(err)
 	}
+	if resume != nil {
+		for _, s := range resume.last {
+			if err := p.in.SeedLast(s.name, s.v, s.t); err != nil {
+				t.Fatal(err)
+			}
+		}
+	}
 	p.cons, err = c.ConsumeJetStream(ctx, natsource.JetStreamConfig{
 		Stream: "PLANT", Durable: "modewatch", CreateStream: true, StreamSubjects: []string{"plant.readings.>"},
-		MaxAckPending: 64, Resume: resume, Tracker: p.tr, FloorEvery: 20 * time.Millisecond,
+		MaxAckPending: 64,
 	}, func(m natsource.Msg) error {
 		p.mu.Lock()
 		defer p.mu.Unlock()
 		if p.limit > 0 && p.nFed >= p.limit {
 			return nil // dead: nothing more is processed or acknowledged
 		}
-		if !p.tr.Admit(m) {
+		err := p.in.FeedAck(m.Subject, m.Data, func() error {
+			p.held = append(p.held, m.Ack)
 			return nil
-		}
-		latest, err := p.in.Feed(m.Subject, m.Data)
+		})
 		if err != nil {
 			p.errors = append(p.errors, err)
 			return err
 		}
-		if err := p.tr.Add(m, latest); err != nil {
-			return err
-		}
-		if _, err := p.tr.AckThrough(p.in.Watermark()); err != nil {
-			return err
-		}
 		p.nFed++
+		// Like the service, a checkpoint also comes early once the held
+		// acknowledgements reach half of MaxAckPending, before the server
+		// stops delivering.
+		if p.nFed == p.ckptAt || len(p.held) >= 32 {
+			p.ckpt = p.checkpointLocked()
+		}
 		p.fed <- m.Seq
 		return nil
 	})
@@ -138,32 +169,56 @@ func startProcess(t *testing.T, url string, resume *natsource.Checkpoint, frames
 	return p
 }
 
-func (p *process) waitFed(t *testing.T, n int) {
+// checkpointLocked saves the state (here: the last frame and its carried
+// readings) and then acknowledges the messages it covers. Called with p.mu
+// held.
+func (p *process) checkpointLocked() checkpoint {
+	cp := checkpoint{to: p.last, last: append([]seed(nil), p.carried...)}
+	for _, ack := range p.held {
+		if err := ack(); err != nil {
+			p.errors = append(p.errors, err)
+		}
+	}
+	p.held = nil
+	return cp
+}
+
+// waitSeq waits until the message with stream sequence seq is fed.
+func (p *process) waitSeq(t *testing.T, seq uint64) {
 	t.Helper()
 	timer := time.NewTimer(20 * time.Second)
 	defer timer.Stop()
-	for got := 0; got < n; got++ {
+	for {
 		select {
-		case <-p.fed:
+		case s := <-p.fed:
+			if s == seq {
+				return
+			}
 		case <-timer.C:
-			t.Fatalf("fed %d of %d messages", got, n)
+			p.mu.Lock()
+			defer p.mu.Unlock()
+			t.Fatalf("message seq %d not fed; %d fed, errors %v", seq, p.nFed, p.errors)
 		}
 	}
 }
 
-// TestIntakeJetStreamExactlyOnce publishes line-protocol messages through
-// JetStream, feeds them into the stream package's Intake, acknowledges by
-// its watermark, kills the consumer before some are acknowledged, restarts
-// from the checkpoint, and checks that every frame is delivered exactly once
-// across both lives, complete and with the published values.
-func TestIntakeJetStreamExactlyOnce(t *testing.T) {
+// TestIntakeJetStreamRestart publishes line-protocol messages through
+// JetStream and runs the service's restart design end to end with the
+// stream package's Intake: acknowledgements by the aligner's watermark
+// (FeedAck), held until a checkpoint; a crash some messages after the
+// checkpoint; a restart that resets the consumer to its acknowledgement
+// floor, seeds the checkpoint's carried readings and skips the frames the
+// checkpoint holds. Every frame is then processed exactly once, counting
+// the first life up to its checkpoint and the second life after it,
+// complete and with the published values.
+func TestIntakeJetStreamRestart(t *testing.T) {
 	url := natstest.StartJetStream(t).ClientURL()
 
-	const n = 120      // seconds of data; messages 0..n
+	const n = 120      // seconds of data; messages 0..n, stream seqs 1..n+1
+	const ckptAt = 50  // a checkpoint after this many messages
 	const crashAt = 70 // messages fed by the first life
-	frames := &frameLog{frames: map[int][]map[string]float64{}}
-
-	p1 := startProcess(t, url, nil, frames, crashAt)
+	first := &frameLog{frames: map[int][]map[string]float64{}}
+	p1 := startProcess(t, url, nil, first, crashAt, ckptAt)
 	pub, err := nats.Connect(url)
 	if err != nil {
 		t.Fatal(err)
@@ -180,51 +235,46 @@ func TestIntakeJetStreamExactlyOnce(t *testing.T) {
 			t.Fatal(err)
 		}
 	}
-	p1.waitFed(t, crashAt)
-	// Let the floor sync catch up with the acknowledgements, as it does
-	// between checkpoints in the service: messages 0..67 (stream seqs
-	// 1..68) have latest event times before the watermark of 68 s.
-	deadline := time.Now().Add(10 * time.Second)
-	for p1.tr.Checkpoint().Seq != 68 {
-		if time.Now().After(deadline) {
-			t.Fatalf("checkpoint seq %d, want 68", p1.tr.Checkpoint().Seq)
-		}
-		time.Sleep(5 * time.Millisecond) // polling a condition under a deadline
-	}
+	p1.waitSeq(t, crashAt)
 	if err := p1.cons.Stop(ctx); err != nil {
 		t.Fatal(err)
 	}
-	p1.mu.Lock()
-	cp := p1.tr.Checkpoint()
-	st1 := p1.tr.Stats()
-	p1.mu.Unlock()
-	p1.conn.Close() // crash: no drain, no flush of the intake
-	if st1.Waiting == 0 {
-		t.Fatalf("first life: checkpoint %+v, stats %+v: want acknowledged and waiting messages", cp, st1)
-	}
-	t.Logf("first life: checkpoint seq %d, watermark %v; %+v", cp.Seq, cp.Watermark.Sub(e2eT0), st1)
-
-	p2 := startProcess(t, url, &cp, frames, 0)
-	p2.waitFed(t, n+1-int(cp.Seq))
-	if err := p2.in.Flush(); err != nil { // end of the test's input: emit the rest
+	if err := p1.conn.NATS().Flush(); err != nil { // the checkpoint's acknowledgements reach the server
 		t.Fatal(err)
 	}
+	p1.mu.Lock()
+	cp := p1.ckpt
+	p1.mu.Unlock()
+	p1.conn.Close() // crash: no drain, no flush of the intake, no further checkpoint
+	to := int(cp.to.Sub(e2eT0) / time.Second)
+	if cp.to.IsZero() || len(cp.last) != 3 {
+		t.Fatalf("checkpoint after %d messages: last frame %v, %d carried readings; want a frame and 3", ckptAt, cp.to, len(cp.last))
+	}
+	t.Logf("first life: checkpoint at frame %d s, crash after %d messages", to, crashAt)
+
+	second := &frameLog{frames: map[int][]map[string]float64{}}
+	p2 := startProcess(t, url, &cp, second, 0, 0)
+	p2.waitSeq(t, n+1)
 	p2.mu.Lock()
-	if _, err := p2.tr.AckThrough(p2.in.Watermark()); err != nil {
+	if err := p2.in.Flush(); err != nil { // end of the test's input: emit the rest
 		t.Error(err)
 	}
-	st2 := p2.tr.Stats()
+	p2.checkpointLocked()
+	errs := append(p1.errors, p2.errors...)
 	p2.mu.Unlock()
-	t.Logf("second life: %+v; intake %+v", st2, p2.in.Stats())
-	if st2.Waiting != 0 {
-		t.Errorf("second life left %d messages unacknowledged after the final frames", st2.Waiting)
+	if len(errs) > 0 {
+		t.Errorf("errors: %v", errs)
 	}
 
-	frames.mu.Lock()
+	first.mu.Lock()
+	second.mu.Lock()
 	for s := 0; s < n; s++ {
-		got := frames.frames[s]
+		got := second.frames[s]
+		if s <= to {
+			got = append(first.frames[s], got...)
+		}
 		if len(got) != 1 {
-			t.Errorf("frame %d s delivered %d times, want exactly once", s, len(got))
+			t.Errorf("frame %d s processed %d times (checkpoint at %d s), want exactly once", s, len(got), to)
 			continue
 		}
 		want := map[string]float64{
@@ -238,15 +288,16 @@ func TestIntakeJetStreamExactlyOnce(t *testing.T) {
 			}
 		}
 	}
-	for s := range frames.frames {
-		if s < 0 || s >= n {
-			t.Errorf("unexpected frame at %d s", s)
+	for s := range second.frames {
+		if s <= to || s >= n {
+			t.Errorf("second life: unexpected frame at %d s", s)
 		}
 	}
-	frames.mu.Unlock()
+	second.mu.Unlock()
+	first.mu.Unlock()
 
 	// Every message acknowledged on the server.
-	deadline = time.Now().Add(10 * time.Second)
+	deadline := time.Now().Add(10 * time.Second)
 	for {
 		ci, err := p2.cons.Info(ctx)
 		if err == nil && ci.AckFloor.Stream == n+1 && ci.NumAckPending == 0 {

@@ -20,11 +20,6 @@ const (
 	DefaultPullBatch     = 256
 )
 
-// ErrCheckpointAhead reports a checkpoint sequence beyond the stream's last
-// message: the stream is not the one the checkpoint was taken on. Resuming
-// would drop every new message up to that sequence as already processed.
-var ErrCheckpointAhead = errors.New("natsource: checkpoint is ahead of the stream")
-
 // JetStreamConfig configures a durable pull consumer. Stream and Durable are
 // required; the rest has defaults.
 type JetStreamConfig struct {
@@ -60,32 +55,23 @@ type JetStreamConfig struct {
 	// delivering the message again; default 30 s. Make it longer than the
 	// time a message may wait for the aligner's watermark (frame period +
 	// allowed lateness, with margin), or messages are redelivered while
-	// still pending (harmless with AckTracker, but wasteful).
+	// still pending (wasteful, and the service skips what it has scored).
 	AckWait time.Duration
 	// MaxDeliver limits delivery attempts; 0 or negative = unlimited
 	// (default: a message is never given up).
 	MaxDeliver int
-	// Resume is the Checkpoint saved with the model state (nil when there
-	// is none). On start the consumer is reset so that the server delivers
-	// again, at once and in sequence order, everything after Resume.Seq,
-	// or, with Resume nil, everything after the consumer's acknowledgement
-	// floor. Without the reset, messages the previous process received but
-	// did not acknowledge would come back only after AckWait, behind newer
-	// ones, and their readings would arrive late for the aligner. Only one
-	// process may consume a durable at a time.
-	Resume *Checkpoint
-	// NoReset skips that reset (e.g. when the durable is shared or the
-	// account may not reset consumers).
+	// NoReset skips the reset of the consumer on start. By default the
+	// consumer is reset to its acknowledgement floor, so that the server
+	// delivers again, at once and in sequence order, every message after
+	// the floor: messages the previous process received but did not
+	// acknowledge would otherwise come back only after AckWait, behind
+	// newer ones, and their readings would arrive late for the aligner.
+	// Messages acknowledged out of order above the floor come again too
+	// (at least once). Set NoReset when the durable is shared or the
+	// account may not reset consumers (a server without the reset API is
+	// detected and treated so). Only one process may consume a durable at
+	// a time.
 	NoReset bool
-	// Tracker, if set, is kept informed of the consumer's acknowledgement
-	// floor on the server (AckTracker.SetAckFloor), at start and every
-	// FloorEvery (default 1 s), so that a message lost in flight is not
-	// taken for a processed one when it comes again; unless NoReset, lost
-	// deliveries are also detected and fetched again at once (see
-	// JetStreamStats.Recoveries). Recommended whenever an AckTracker is
-	// used; every admitted message must then be Added to it.
-	Tracker    *AckTracker
-	FloorEvery time.Duration
 	// PullBatch is the number of messages the client buffers ahead of the
 	// handler; default 256, never more than MaxAckPending.
 	PullBatch int
@@ -146,8 +132,6 @@ type JetStreamStats struct {
 	HandlerErrors uint64
 	PullErrors    uint64 // transient errors of the pull iterator (logged)
 	DeliveryGaps  uint64 // deliveries that never arrived (lost in flight); redelivered after AckWait
-	FloorErrors   uint64 // failed acknowledgement-floor queries (Tracker set)
-	Recoveries    uint64 // resets requested after deliveries were lost in flight (Tracker set)
 	Recreated     uint64 // consumer recreations after its deletion (Recreate set)
 }
 
@@ -167,9 +151,8 @@ type JSConsumer struct {
 	cancel context.CancelFunc
 
 	delivered, redelivered, acked, ackErrs, handlerErrs, pullErrs atomic.Uint64
-	gaps, floorErrs, recoveries                                   atomic.Uint64
-	idle                                                          atomic.Bool // run is waiting for the next message
-	lastDelivery                                                  uint64      // consumer (delivery) sequence of the last message; run goroutine only
+	gaps                                                          atomic.Uint64
+	lastDelivery                                                  uint64 // consumer (delivery) sequence of the last message; run goroutine only
 
 	// Recreation (JetStreamConfig.Recreate).
 	js         jetstream.JetStream
@@ -186,9 +169,11 @@ type JSConsumer struct {
 
 // ConsumeJetStream binds to (or creates, see cfg) the durable pull consumer
 // and calls h for every message from one goroutine. The handler receives an
-// Ack to call once the message is processed (usually through AckTracker);
-// until then the message counts against MaxAckPending and is redelivered
-// after AckWait or after a restart. Setup is bounded by ctx.
+// Ack to call once the message is processed (the service acknowledges once
+// a checkpoint holds the frames the message contributed to); until then the
+// message counts against MaxAckPending and is delivered again after
+// AckWait, or at once after a restart (see NoReset). Setup is bounded by
+// ctx.
 func (c *Conn) ConsumeJetStream(ctx context.Context, cfg JetStreamConfig, h Handler) (*JSConsumer, error) {
 	if err := cfg.validate(); err != nil {
 		return nil, err
@@ -200,10 +185,7 @@ func (c *Conn) ConsumeJetStream(ctx context.Context, cfg JetStreamConfig, h Hand
 	if err != nil {
 		return nil, fmt.Errorf("natsource: jetstream: %w", err)
 	}
-	var firstSeq, lastSeq uint64
-	if st, err := js.Stream(ctx, cfg.Stream); err == nil {
-		firstSeq, lastSeq = st.CachedInfo().State.FirstSeq, st.CachedInfo().State.LastSeq
-	} else {
+	if _, err := js.Stream(ctx, cfg.Stream); err != nil {
 		if !errors.Is(err, jetstream.ErrStreamNotFound) || !cfg.CreateStream {
 			return nil, fmt.Errorf("natsource: jetstream stream %q: %w", cfg.Stream, err)
 		}
@@ -223,10 +205,6 @@ func (c *Conn) ConsumeJetStream(ctx context.Context, cfg JetStreamConfig, h Hand
 		if _, err := js.CreateStream(ctx, sc); err != nil && !errors.Is(err, jetstream.ErrStreamNameAlreadyInUse) {
 			return nil, fmt.Errorf("natsource: create jetstream stream %q: %w", cfg.Stream, err)
 		}
-	}
-	if cfg.Resume != nil && cfg.Resume.Seq > lastSeq {
-		return nil, fmt.Errorf("%w: checkpoint stream seq %d, stream %q ends at %d (recreated or purged?); discard the checkpoint to start over",
-			ErrCheckpointAhead, cfg.Resume.Seq, cfg.Stream, lastSeq)
 	}
 	maxAck := cfg.MaxAckPending
 	if maxAck == 0 {
@@ -269,7 +247,7 @@ func (c *Conn) ConsumeJetStream(ctx context.Context, cfg JetStreamConfig, h Hand
 		return nil, fmt.Errorf("natsource: jetstream consumer %q on stream %q: %w", cfg.Durable, cfg.Stream, err)
 	}
 	if !cfg.NoReset {
-		err := resetConsumer(ctx, js, cfg, firstSeq, lastSeq, c.log)
+		err := resetConsumer(ctx, js, cfg)
 		if errors.Is(err, ErrNoResetAPI) {
 			c.log.Warn("the server has no consumer-reset API (NATS server older than the one this was built with); going on without resets: unacknowledged messages come again after AckWait",
 				"stream", cfg.Stream, "consumer", cfg.Durable, "err", err)
@@ -277,13 +255,6 @@ func (c *Conn) ConsumeJetStream(ctx context.Context, cfg JetStreamConfig, h Hand
 		} else if err != nil {
 			return nil, err
 		}
-	}
-	if cfg.Tracker != nil {
-		ci, err := cons.Info(ctx)
-		if err != nil {
-			return nil, fmt.Errorf("natsource: jetstream consumer %q: %w", cfg.Durable, err)
-		}
-		cfg.Tracker.SetAckFloor(ci.AckFloor.Stream)
 	}
 	it, err := cons.Messages(jetstream.PullMaxMessages(batch), jetstream.WithMessagesErrOnMissingHeartbeat(false))
 	if err != nil {
@@ -300,83 +271,7 @@ func (c *Conn) ConsumeJetStream(ctx context.Context, cfg JetStreamConfig, h Hand
 	s.ctx, s.cancel = context.WithCancel(context.Background())
 	s.wg.Add(1)
 	go s.run()
-	if cfg.Tracker != nil {
-		s.wg.Add(1)
-		var reset func(context.Context) error
-		if !cfg.NoReset {
-			reset = func(ctx context.Context) error {
-				_, err := js.ResetConsumer(ctx, cfg.Stream, cfg.Durable)
-				return err
-			}
-		}
-		go s.syncFloor(cfg.Tracker, orDur(cfg.FloorEvery, time.Second), reset)
-	}
 	return s, nil
-}
-
-// syncFloor passes the server's acknowledgement floor to tr until the
-// consumer stops, and recovers deliveries lost in flight.
-//
-// Lost deliveries (sent by the server to a pull request that no longer
-// reaches this process: the request of a process that just crashed, or one
-// cut off by a dropped connection) are unacknowledged on the server but
-// unknown here. The server would send them again only after AckWait. They
-// show as a persistent surplus of the server's unacknowledged count over
-// the tracker's waiting messages while this consumer is idle:
-//
-//	NumAckPending > Waiting, handler idle, no delivery since the last check
-//
-// seen at two checks in a row (more after repeated recoveries). Then the consumer is reset to its
-// acknowledgement floor, so the server delivers the unacknowledged messages
-// again at once and in order (those held are recognised as duplicates).
-func (s *JSConsumer) syncFloor(tr *AckTracker, every time.Duration, reset func(context.Context) error) {
-	defer s.wg.Done()
-	tick := time.NewTicker(every)
-	defer tick.Stop()
-	// need doubles after each recovery (up to 64 checks) while the surplus
-	// persists, so a handler that keeps skipping messages does not cause a
-	// reset storm; it drops back to 2 once the counts agree.
-	stalls, need, lastDelivered := 0, 2, s.delivered.Load()
-	for {
-		select {
-		case <-s.done:
-			return
-		case <-tick.C:
-			ctx, cancel := context.WithTimeout(s.ctx, every)
-			ci, err := s.consumer().Info(ctx)
-			cancel()
-			if err != nil {
-				s.floorErrs.Add(1)
-				s.log.Debug("consumer info", "err", err) // e.g. while reconnecting
-				continue
-			}
-			tr.SetAckFloor(ci.AckFloor.Stream)
-			delivered := s.delivered.Load()
-			waiting := tr.Stats().Waiting
-			if reset != nil && ci.NumAckPending > waiting && s.idle.Load() && delivered == lastDelivered {
-				stalls++
-			} else {
-				stalls = 0
-				if ci.NumAckPending <= waiting {
-					need = 2
-				}
-			}
-			lastDelivered = delivered
-			if stalls < need {
-				continue
-			}
-			stalls, need = 0, min(2*need, 64)
-			s.log.Warn("deliveries lost in flight; asking the server to send unacknowledged messages again",
-				"server_unacknowledged", ci.NumAckPending, "waiting_here", waiting, "ack_floor", ci.AckFloor.Stream)
-			s.recoveries.Add(1)
-			ctx, cancel = context.WithTimeout(s.ctx, 5*every)
-			err = reset(ctx)
-			cancel()
-			if err != nil {
-				s.log.Warn("reset consumer", "err", err)
-			}
-		}
-	}
 }
 
 // consumer returns the current consumer (it changes when recreated).
@@ -494,9 +389,7 @@ func (s *JSConsumer) run() {
 	defer close(s.done)
 	defer s.cancel()
 	for {
-		s.idle.Store(true)
 		jm, err := s.iter().Next()
-		s.idle.Store(false)
 		if err != nil {
 			if errors.Is(err, jetstream.ErrMsgIteratorClosed) {
 				s.mu.Lock()
@@ -623,8 +516,6 @@ func (s *JSConsumer) Stats() JetStreamStats {
 		HandlerErrors: s.handlerErrs.Load(),
 		PullErrors:    s.pullErrs.Load(),
 		DeliveryGaps:  s.gaps.Load(),
-		FloorErrors:   s.floorErrs.Load(),
-		Recoveries:    s.recoveries.Load(),
 		Recreated:     s.recreated.Load(),
 	}
 }
@@ -639,35 +530,17 @@ var ErrNoResetAPI = errors.New("natsource: the server has no consumer-reset API"
 // does not answer it.
 const resetWait = 5 * time.Second
 
-// resetConsumer makes the server deliver again everything after
-// cfg.Resume.Seq (or after the acknowledgement floor) in sequence order.
-func resetConsumer(ctx context.Context, js jetstream.JetStream, cfg JetStreamConfig, firstSeq, lastSeq uint64, log *slog.Logger) error {
+// resetConsumer makes the server deliver again, at once and in sequence
+// order, everything after the consumer's acknowledgement floor.
+func resetConsumer(ctx context.Context, js jetstream.JetStream, cfg JetStreamConfig) error {
 	ctx, cancel := context.WithTimeout(ctx, resetWait)
 	defer cancel()
-	var err error
-	switch {
-	case cfg.Resume == nil || lastSeq == 0:
-		_, err = js.ResetConsumer(ctx, cfg.Stream, cfg.Durable)
-	default:
-		seq := cfg.Resume.Seq + 1
-		if seq < firstSeq {
-			log.Warn("messages after the checkpoint are no longer in the stream (retention); resuming at the first available",
-				"checkpoint_seq", cfg.Resume.Seq, "first_seq", firstSeq, "stream", cfg.Stream)
-			seq = firstSeq
-		}
-		_, err = js.ResetConsumerToSequence(ctx, cfg.Stream, cfg.Durable, seq)
-		if errors.Is(err, jetstream.ErrConsumerInvalidReset) {
-			// e.g. DeliverNew: fall back to the acknowledgement floor.
-			log.Warn("cannot reset the consumer to the checkpoint; resuming after its acknowledgement floor",
-				"checkpoint_seq", cfg.Resume.Seq, "consumer", cfg.Durable)
-			_, err = js.ResetConsumer(ctx, cfg.Stream, cfg.Durable)
-		}
-	}
+	_, err := js.ResetConsumer(ctx, cfg.Stream, cfg.Durable)
 	if errors.Is(err, context.DeadlineExceeded) || errors.Is(err, nats.ErrNoResponders) || errors.Is(err, nats.ErrTimeout) {
 		return fmt.Errorf("%w: reset of consumer %q on stream %q: %w", ErrNoResetAPI, cfg.Durable, cfg.Stream, err)
 	}
 	if err != nil {
-		return fmt.Errorf("natsource: reset jetstream consumer %q on stream %q (set no_reset to skip): %w", cfg.Durable, cfg.Stream, err)
+		return fmt.Errorf("natsource: reset jetstream consumer %q on stream %q to its acknowledgement floor (no_reset skips it): %w", cfg.Durable, cfg.Stream, err)
 	}
 	return nil
 }

@@ -7,7 +7,8 @@ import (
 )
 
 // Limits of a model with l = 1 retained mode and three equal residual
-// eigenvalues 0.3 (LIMITS.md S12, C1) at a 1 % false-alarm rate.
+// eigenvalues 0.3 (the equicorrelated p = 4, ρ = 0.7 model of Montgomery's
+// exercise, whose residual roots are 1 − ρ = 0.3) at a 1 % false-alarm rate.
 func Example() {
 	th := limits.ThetaFromEigen([]float64{0.3, 0.3, 0.3})
 	t2, _ := limits.T2ChiSquare(0.01, 1)

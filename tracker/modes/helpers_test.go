@@ -1,7 +1,7 @@
 package modes
 
 // Sources of the check values in these tests: "REFERENCE.md" and
-// "SPARSE_PCA.md §n" are testdata/REFERENCE.md (Pitprops λ*(k), eigenvalues,
+// "testdata/SPARSE_PCA.md §n" are testdata/REFERENCE.md (Pitprops λ*(k), eigenvalues,
 // published multi-component results) and testdata/SPARSE_PCA.md (derivations
 // and independent numpy check values for every ConGradU variant); the
 // Pitprops matrix and its provenance are testdata/pitprops_corr.csv and

@@ -87,7 +87,7 @@ func (m Method) String() string {
 }
 
 // DefaultEps is the ε of the smooth-ℓ0 surrogates when the flag omits it.
-// 0.1 is the value used for the Pitprops check values (SPARSE_PCA.md §7.4).
+// 0.1 is the value used for the Pitprops check values of the tests.
 const DefaultEps = 0.1
 
 // Sparsity is the sparsity model of one mode. Only the fields of its Method
@@ -261,7 +261,8 @@ func (s Sparsity) check(p int, maxDiag float64) error {
 		}
 		// (Ax)_i² ≤ A_ii·xᵀAx for PSD A (Cauchy–Schwarz), so γ ≥ max A_ii
 		// keeps nothing in the ℓ0-penalised map and γ ≥ max √A_ii nothing
-		// in the square-root ℓ1 map (SPARSE_PCA.md §3(iii), §3(iv)).
+		// in the square-root ℓ1 map (fixed-point conditions of the maps of
+		// Luss & Teboulle 2013).
 		if s.Method == L0Pen && s.Gamma >= maxDiag {
 			return fmt.Errorf("%w: %s: γ = %g ≥ max A_ii = %g", ErrPenaltyTooHigh, s, s.Gamma, maxDiag)
 		}

@@ -33,7 +33,7 @@ const (
 	// StartColumn starts from the column of A with the largest Euclidean norm,
 	// normalised (one power step from e_i*; ties: lowest index). On Pitprops
 	// the truncated power method from this start reaches the exact λ*(k) for
-	// every k (SPARSE_PCA.md §4, §7.3).
+	// every k (exhaustive search; testdata/REFERENCE.md).
 	StartColumn
 	// StartDense starts from the leading eigenvector of A, computed by the
 	// power method from StartColumn.
@@ -41,7 +41,7 @@ const (
 	// StartIndex starts from the unit vector e_i*, i* the index of the
 	// column of A with the largest norm. In the factor form A = BᵀB this is
 	// the start z⁰ = b_i*/‖b_i*‖ of the GPower code of Journée et al. (2010),
-	// used for the ℓ0-penalised Pitprops check values (SPARSE_PCA.md §7.4).
+	// used for the ℓ0-penalised Pitprops check values of the tests.
 	StartIndex
 )
 
@@ -287,52 +287,13 @@ func (ws *Workspace) solve(sp Sparsity, opt *Options, warm []float64, cold bool,
 			return res, ws.nonFinite()
 		}
 	}
-	start := StartAuto
-	if opt != nil {
-		start = opt.Start
-	}
-	if start == StartAuto {
-		start = StartColumn
-		if sp.Method == LogPen || sp.Method == ExpPen {
-			start = StartDense
-		}
-	}
 	if cold {
-		best := -1
-		for i, v := range ws.cn {
-			if best < 0 || v > ws.cn[best] {
-				best = i
-			}
-		}
-		if ws.cn[best] == 0 {
-			return res, errEmptyOperator
-		}
-		for i := range ws.e {
-			ws.e[i] = 0
-		}
-		if start == StartIndex {
-			for i := range ws.x {
-				ws.x[i] = 0
-			}
-			ws.x[best] = 1
-			ws.xs = append(ws.xs[:0], best)
-		} else {
-			ws.e[best] = 1
-			ws.us = append(ws.us[:0], best)
-			ws.op.apply(ws.x, ws.e, ws.us)
-			ws.e[best] = 0
-			if !ws.normalizeX() {
-				return res, errEmptyOperator
-			}
+		n, err := ws.coldStart(startOf(sp, opt), tol, maxIter)
+		res.Iterations += n
+		if err != nil {
+			return res, err
 		}
 		haveC = false
-		if start == StartDense {
-			st, err := ws.iterate(Sparsity{}, 0, tol, maxIter, nil, false)
-			if err != nil {
-				return res, err
-			}
-			res.Iterations += st.iters
-		}
 	}
 	stages := 1
 	if opt != nil && opt.EpsStages > 1 && (sp.Method == LogPen || sp.Method == ExpPen) && sp.Eps < 1 {
@@ -401,6 +362,61 @@ func (ws *Workspace) solve(sp Sparsity, opt *Options, warm []float64, cold bool,
 	res.Variance = dotSupp(ws.x, ws.c, ws.xs)
 	res.Card = len(ws.xs)
 	return res, nil
+}
+
+// startOf is the cold start of opt (StartAuto: the dense start for the
+// smooth-ℓ0 surrogates, the largest column otherwise).
+func startOf(sp Sparsity, opt *Options) Start {
+	start := StartAuto
+	if opt != nil {
+		start = opt.Start
+	}
+	if start == StartAuto {
+		start = StartColumn
+		if sp.Method == LogPen || sp.Method == ExpPen {
+			start = StartDense
+		}
+	}
+	return start
+}
+
+// coldStart puts the cold start into ws.x: from the column of largest norm
+// (its index alone, or the column itself normalized), then for StartDense
+// the dense power iteration from there. It returns the iterations used;
+// errEmptyOperator when the matrix is zero.
+func (ws *Workspace) coldStart(start Start, tol float64, maxIter int) (int, error) {
+	best := -1
+	for i, v := range ws.cn {
+		if best < 0 || v > ws.cn[best] {
+			best = i
+		}
+	}
+	if ws.cn[best] == 0 {
+		return 0, errEmptyOperator
+	}
+	for i := range ws.e {
+		ws.e[i] = 0
+	}
+	if start == StartIndex {
+		for i := range ws.x {
+			ws.x[i] = 0
+		}
+		ws.x[best] = 1
+		ws.xs = append(ws.xs[:0], best)
+	} else {
+		ws.e[best] = 1
+		ws.us = append(ws.us[:0], best)
+		ws.op.apply(ws.x, ws.e, ws.us)
+		ws.e[best] = 0
+		if !ws.normalizeX() {
+			return 0, errEmptyOperator
+		}
+	}
+	if start == StartDense {
+		st, err := ws.iterate(Sparsity{}, 0, tol, maxIter, nil, false)
+		return st.iters, err
+	}
+	return 0, nil
 }
 
 // deflatedNorms fills ws.cn with the column norms² of A_t when the caller
@@ -549,7 +565,7 @@ func (ws *Workspace) iterate(sp Sparsity, eps, tol float64, maxIter int, trace f
 			trace(st.iters, ws.objective(sp, eps, f), true)
 		}
 		if useGap && sp.Method == L0Pen && fPrev > 0 && f > 0 {
-			// Lagged gap of the z-form (SPARSE_PCA.md §3(iii)): with
+			// Lagged gap of the z-form (Luss & Teboulle 2013): with
 			// y = (Ax_prev)_I/√f_prev, γ(z_prev) = 2‖y‖(√f − ‖y‖).
 			y := ws.lastNormI / math.Sqrt(fPrev)
 			g := 2 * y * (math.Sqrt(f) - y)
@@ -790,7 +806,7 @@ func (ws *Workspace) topK(k int) float64 {
 }
 
 // l1Step writes the maximiser u of ⟨c, u⟩ over ‖u‖₂ ≤ 1, ‖u‖₁ ≤ s and returns
-// the maximum ⟨c, u⟩ (SPARSE_PCA.md §3(ii), derived there):
+// the maximum ⟨c, u⟩ (Luss & Teboulle 2013, the ℓ1-constrained map):
 //
 //	u = S_λ(c)/‖S_λ(c)‖₂, λ = 0 if ‖c‖₁ ≤ s‖c‖₂, else the unique λ with
 //	‖S_λ(c)‖₁ = s‖S_λ(c)‖₂; value ‖S_λ(c)‖₂ + λs.

@@ -451,28 +451,13 @@ func (t *Tracker) Refresh(a *mat.SymDense) error {
 		if stop || res.Empty {
 			break
 		}
-		// Keep the mode.
-		x := nx.x[j]
-		copy(x, ws.x)
-		nx.supp[j] = append(nx.supp[j][:0], ws.xs...)
-		copy(nx.pre[j], ws.pre)
-		nx.res[j] = res
-		// Row j of G = VᵀA_0V and the next column of its Cholesky factor.
-		saveT := op.t
-		op.t = 0
-		op.apply(t.ax0, x, nx.supp[j])
-		op.t = saveT
-		for i := 0; i <= j; i++ {
-			nx.g[i*m+j] = dotSupp(nx.x[i], t.ax0, nx.supp[i])
-			nx.g[j*m+i] = nx.g[i*m+j]
-		}
-		nx.vari[j] = nx.g[j*m+j]
-		nx.adj[j] = cholColumn(nx.rch, nx.g, m, j)
-		if t.auto && j > 0 && (j+1 > capR || !(nx.adj[j] > minAdj)) {
+		adj := t.keep(nx, j, res)
+		if t.auto && j > 0 && (j+1 > capR || !(adj > minAdj)) {
 			break // Kaiser's rule or the residual minimum: not kept
 		}
 		nx.r = j + 1
-		cum += nx.adj[j]
+		cum += adj
+		x := nx.x[j]
 		if t.auto && cum >= t.cfg.Share*trace {
 			break
 		}
@@ -498,19 +483,7 @@ func (t *Tracker) Refresh(a *mat.SymDense) error {
 		ws.e[i] = 0
 	}
 	t.matchIDs(nx)
-	// Fill the p × r loadings matrix.
-	raw := nx.v.RawMatrix()
-	for i := 0; i < t.p; i++ {
-		row := raw.Data[i*raw.Stride : i*raw.Stride+m]
-		for j := range row {
-			row[j] = 0
-		}
-	}
-	for j := 0; j < nx.r; j++ {
-		for _, i := range nx.supp[j] {
-			raw.Data[i*raw.Stride+j] = nx.x[j][i]
-		}
-	}
+	nx.fillLoadings(t.p, m)
 	t.cur, t.nxt = nx, t.cur
 	t.have = true
 	t.coldNext = false
@@ -518,6 +491,47 @@ func (t *Tracker) Refresh(a *mat.SymDense) error {
 	t.trace = trace
 	t.iters = iters
 	return nil
+}
+
+// keep stores the solution in the workspace as mode j of nx (with its
+// result res), adds row j of G = VᵀA_0V and the next column of G's
+// Cholesky factor, and returns the mode's adjusted variance; the caller
+// decides whether the mode counts (nx.r).
+func (t *Tracker) keep(nx *modeSet, j int, res Result) float64 {
+	ws, op, m := t.ws, t.ws.op, t.cfg.MaxCount
+	x := nx.x[j]
+	copy(x, ws.x)
+	nx.supp[j] = append(nx.supp[j][:0], ws.xs...)
+	copy(nx.pre[j], ws.pre)
+	nx.res[j] = res
+	saveT := op.t
+	op.t = 0
+	op.apply(t.ax0, x, nx.supp[j])
+	op.t = saveT
+	for i := 0; i <= j; i++ {
+		nx.g[i*m+j] = dotSupp(nx.x[i], t.ax0, nx.supp[i])
+		nx.g[j*m+i] = nx.g[i*m+j]
+	}
+	nx.vari[j] = nx.g[j*m+j]
+	nx.adj[j] = cholColumn(nx.rch, nx.g, m, j)
+	return nx.adj[j]
+}
+
+// fillLoadings writes the p × m loadings matrix of s from its sparse modes
+// (zero beyond its r modes and outside their supports).
+func (s *modeSet) fillLoadings(p, m int) {
+	raw := s.v.RawMatrix()
+	for i := 0; i < p; i++ {
+		row := raw.Data[i*raw.Stride : i*raw.Stride+m]
+		for j := range row {
+			row[j] = 0
+		}
+	}
+	for j := 0; j < s.r; j++ {
+		for _, i := range s.supp[j] {
+			raw.Data[i*raw.Stride+j] = s.x[j][i]
+		}
+	}
 }
 
 // cholColumn computes column j of the upper Cholesky factor R of g (m × m

@@ -104,3 +104,17 @@ func Connect(t testing.TB, s *server.Server, opts ...nats.Option) *nats.Conn {
 	t.Cleanup(nc.Close)
 	return nc
 }
+
+// WaitFor polls cond every 5 ms until it holds, failing the test with what
+// if it does not within d: tests wait on a condition with a deadline,
+// never on a fixed sleep.
+func WaitFor(t testing.TB, d time.Duration, what string, cond func() bool) {
+	t.Helper()
+	deadline := time.Now().Add(d)
+	for !cond() {
+		if time.Now().After(deadline) {
+			t.Fatalf("timed out after %v waiting for %s", d, what)
+		}
+		time.Sleep(5 * time.Millisecond) // polling a condition under a deadline
+	}
+}

@@ -189,7 +189,7 @@ func TestClusterFailover(t *testing.T) {
 	want1 := part1.Samples() - 1 // frames per unit; the last stays pending
 	wantAll := part1.Samples() + part2.Samples() - 1
 
-	scores := &scoreLog{seen: map[string]int{}}
+	scores := &scoreLog{seen: map[string][]string{}}
 	sub, _ := nc.Subscribe("modewatch.scores.>", scores.add)
 	defer sub.Unsubscribe()
 	waitScores := func(n int, what string) {

@@ -7,6 +7,8 @@ import (
 	"errors"
 	"fmt"
 	"io"
+	"log/slog"
+	"math"
 	"net"
 	"os"
 	"path/filepath"
@@ -16,7 +18,6 @@ import (
 	"time"
 
 	"github.com/nats-io/nats.go"
-	"golang.org/x/term"
 
 	"modewatch/alerts"
 	"modewatch/cmd/modewatch/internal/evaluate"
@@ -157,48 +158,10 @@ func runDemoWith(ctx context.Context, env IO, opt demoOptions) (demoOutcome, err
 	fmt.Fprintln(w)
 
 	// 1. Learn normal operation from the first, fault-free day.
-	day1 := sc.Clone()
-	day1.Duration = 24 * time.Hour
-	var buf bytes.Buffer
-	if err := day1.WriteLineProtocol(&buf); err != nil {
-		return oc, err
-	}
-	// The log goes to a file: the budget calibration reads it twice.
-	day1Path := filepath.Join(stateDir, "demo-day1.lp")
-	if err := os.WriteFile(day1Path, buf.Bytes(), 0o644); err != nil {
-		return oc, err
-	}
 	log := newLogger(env.Err, cfg, true)
-	fitStart := time.Now()
-	res, err := pipeline.Replay(ctx, pipeline.ReplayOptions{Config: cfg, Inputs: []string{day1Path}, Fit: true, Log: log})
+	modelPath, err := demoFit(ctx, env, cfg, sc, stateDir, log)
 	if err != nil {
-		return oc, fmt.Errorf("fitting the first day: %w", err)
-	}
-	model, err := res.Pipeline.Baseline()
-	if err != nil {
-		return oc, fmt.Errorf("fitting the first day: %w", err)
-	}
-	// As fit does: each unit's limits calibrated to alerts.budget on the
-	// held-out part of the day.
-	calNotes := calibrateBudgets(ctx, IO{In: env.In, Out: io.Discard, Err: env.Err}, cfg, []string{day1Path}, modelFlags{}, model)
-	modelPath := filepath.Join(stateDir, "demo-model.json")
-	if err := pipeline.WriteModel(modelPath, model); err != nil {
 		return oc, err
-	}
-	nModes := 0
-	for _, u := range model.Units {
-		nModes += len(u.Modes)
-	}
-	nCal := 0
-	for _, u := range model.Units {
-		if u.Calibration != nil {
-			nCal++
-		}
-	}
-	fmt.Fprintf(w, "1. fitted %d units (%d sparse modes) on the first simulated day (%d frames of %s), %d calibrated to alerts.budget, in %s\n",
-		len(model.Units), nModes, model.Frames, sc.Period, nCal, time.Since(fitStart).Round(time.Millisecond))
-	for _, n := range calNotes {
-		fmt.Fprintf(w, "   %s\n", n)
 	}
 
 	// 2. The service, from that model.
@@ -236,57 +199,11 @@ func runDemoWith(ctx context.Context, env IO, opt demoOptions) (demoOutcome, err
 	}
 	fmt.Fprintf(w, "; Ctrl-C stops\n\n")
 
-	runCtx, cancel := context.WithCancel(ctx)
-	defer cancel()
-	if opt.duration > 0 {
-		var c2 context.CancelFunc
-		runCtx, c2 = context.WithTimeout(runCtx, opt.duration)
-		defer c2()
+	sent, lines, err := demoPublish(ctx, env, opt, live, nc, cfg.Server.Prefix, board, svc)
+	if err != nil {
+		return oc, err
 	}
-	type liveResult struct {
-		st  sim.LiveStats
-		err error
-	}
-	liveDone := make(chan liveResult, 1)
-	go func() {
-		st, err := live.Live(runCtx, nc, cfg.Server.Prefix, opt.speed)
-		liveDone <- liveResult{st, err}
-	}()
-	tty := false
-	if f, ok := env.Out.(*os.File); ok && term.IsTerminal(int(f.Fd())) {
-		tty = true
-	}
-	tick := time.NewTicker(time.Second)
-	defer tick.Stop()
-	every := 5
-	if tty {
-		every = 1
-	}
-	n := 0
-	lines := 0
-	var sent sim.LiveStats
-loop:
-	for {
-		select {
-		case r := <-liveDone:
-			if r.err != nil && !errors.Is(r.err, context.Canceled) && !errors.Is(r.err, context.DeadlineExceeded) {
-				return oc, r.err
-			}
-			sent = r.st
-			break loop
-		case <-tick.C:
-			n++
-			if opt.quiet || n%every != 0 {
-				continue
-			}
-			text := board.render(svc.Records())
-			if tty && lines > 0 {
-				fmt.Fprintf(w, "\x1b[%dA\x1b[J", lines) // redraw in place
-			}
-			fmt.Fprint(w, text)
-			lines = strings.Count(text, "\n")
-		}
-	}
+	tty := isTerminal(env.Out)
 	// Let the service score what it has received: every line sent (one
 	// per asset and sample), or until it stops making progress.
 	assets := 0
@@ -303,12 +220,124 @@ loop:
 	}
 
 	// 4. Report against the labels.
+	demoReport(w, svc, sc, live, opt.speed, &oc)
+	fmt.Fprintf(w, "\nThe detection settings are the defaults, chosen on the realism suite (modewatch sim --suite), not on\n")
+	fmt.Fprintln(w, "this plant's labelled faults. The plant offline with the same settings (sim writes the three days as one run, so")
+	fmt.Fprintln(w, "days 2 and 3 differ in detail from the ones published here, and so do the figures):")
+	fmt.Fprintln(w, "  modewatch sim --out demo; modewatch sim --duration 24h --out demo-day1;")
+	fmt.Fprintf(w, "  modewatch fit --config %s --out demo/model.json demo-day1/readings.lp;\n", demoConfigName)
+	fmt.Fprintf(w, "  modewatch replay --config %s --model demo/model.json --truth demo/truth.json demo/readings.lp\n", demoConfigName)
+	fmt.Fprintln(w, service.Caution)
+	return oc, nil
+}
+
+// demoFit fits the demo's model on the first, fault-free day of sc and
+// writes it in stateDir; it returns the model file's path.
+func demoFit(ctx context.Context, env IO, cfg *configs.Config, sc *sim.Scenario, stateDir string, log *slog.Logger) (string, error) {
+	w := env.Out
+	day1 := sc.Clone()
+	day1.Duration = 24 * time.Hour
+	var buf bytes.Buffer
+	if err := day1.WriteLineProtocol(&buf); err != nil {
+		return "", err
+	}
+	// The log goes to a file: the budget calibration reads it twice.
+	day1Path := filepath.Join(stateDir, "demo-day1.lp")
+	if err := os.WriteFile(day1Path, buf.Bytes(), 0o644); err != nil {
+		return "", err
+	}
+	fitStart := time.Now()
+	res, err := pipeline.Replay(ctx, pipeline.ReplayOptions{Config: cfg, Inputs: []string{day1Path}, Fit: true, Log: log})
+	if err != nil {
+		return "", fmt.Errorf("fitting the first day: %w", err)
+	}
+	model, err := res.Pipeline.Baseline()
+	if err != nil {
+		return "", fmt.Errorf("fitting the first day: %w", err)
+	}
+	// As fit does: each unit's limits calibrated to alerts.budget on the
+	// held-out part of the day.
+	calNotes := calibrateBudgets(ctx, IO{In: env.In, Out: io.Discard, Err: env.Err}, cfg, []string{day1Path}, modelFlags{}, model)
+	modelPath := filepath.Join(stateDir, "demo-model.json")
+	if err := pipeline.WriteModel(modelPath, model); err != nil {
+		return "", err
+	}
+	nModes, nCal := 0, 0
+	for _, u := range model.Units {
+		nModes += len(u.Modes)
+		if u.Calibration != nil {
+			nCal++
+		}
+	}
+	fmt.Fprintf(w, "1. fitted %d units (%d sparse modes) on the first simulated day (%d frames of %s), %d calibrated to alerts.budget, in %s\n",
+		len(model.Units), nModes, model.Frames, sc.Period, nCal, time.Since(fitStart).Round(time.Millisecond))
+	for _, n := range calNotes {
+		fmt.Fprintf(w, "   %s\n", n)
+	}
+	return modelPath, nil
+}
+
+// demoPublish publishes live to the service at opt.speed until it ends,
+// opt.duration passes or ctx is done, drawing the board as it goes. It
+// returns what was sent and how many lines the last board drawn has.
+func demoPublish(ctx context.Context, env IO, opt demoOptions, live *sim.Scenario, nc *nats.Conn, prefix string, board *board, svc *service.Service) (sim.LiveStats, int, error) {
+	w := env.Out
+	runCtx, cancel := context.WithCancel(ctx)
+	defer cancel()
+	if opt.duration > 0 {
+		var c2 context.CancelFunc
+		runCtx, c2 = context.WithTimeout(runCtx, opt.duration)
+		defer c2()
+	}
+	type liveResult struct {
+		st  sim.LiveStats
+		err error
+	}
+	liveDone := make(chan liveResult, 1)
+	go func() {
+		st, err := live.Live(runCtx, nc, prefix, opt.speed)
+		liveDone <- liveResult{st, err}
+	}()
+	tty := isTerminal(env.Out)
+	tick := time.NewTicker(time.Second)
+	defer tick.Stop()
+	every := 5
+	if tty {
+		every = 1
+	}
+	n := 0
+	lines := 0
+	for {
+		select {
+		case r := <-liveDone:
+			if r.err != nil && !errors.Is(r.err, context.Canceled) && !errors.Is(r.err, context.DeadlineExceeded) {
+				return r.st, lines, r.err
+			}
+			return r.st, lines, nil
+		case <-tick.C:
+			n++
+			if opt.quiet || n%every != 0 {
+				continue
+			}
+			text := board.render(svc.Records())
+			if tty && lines > 0 {
+				fmt.Fprintf(w, "\x1b[%dA\x1b[J", lines) // redraw in place
+			}
+			fmt.Fprint(w, text)
+			lines = strings.Count(text, "\n")
+		}
+	}
+}
+
+// demoReport scores the service's alerts against the labelled faults that
+// started while it ran, prints the figures and keeps them in oc.
+func demoReport(w io.Writer, svc *service.Service, sc, live *sim.Scenario, speed float64, oc *demoOutcome) {
 	frames, first, last := svc.Pipeline().Frames()
 	oc.frames = frames
 	fmt.Fprintf(w, "\n4. scored %d frames per unit (%s to %s)\n", frames, first.Format("Jan 2 15:04"), last.Format("Jan 2 15:04"))
 	if oc.linesTaken < oc.linesSent {
 		fmt.Fprintf(w, "   the service received %d of the %d lines sent: it could not keep up at %gx (try a lower --speed)\n",
-			oc.linesTaken, oc.linesSent, opt.speed)
+			oc.linesTaken, oc.linesSent, speed)
 	}
 	recs := svc.Records()
 	var eps []evaluate.Episode
@@ -344,14 +373,6 @@ loop:
 		}
 		fmt.Fprintf(w, "   %-20s %-9s %-36s %s\n", e.ID, e.Kind, strings.Join(e.Channels, ","), status)
 	}
-	fmt.Fprintf(w, "\nThe detection settings are the defaults, chosen on the realism suite (modewatch sim --suite), not on\n")
-	fmt.Fprintln(w, "this plant's labelled faults. The plant offline with the same settings (sim writes the three days as one run, so")
-	fmt.Fprintln(w, "days 2 and 3 differ in detail from the ones published here, and so do the figures):")
-	fmt.Fprintln(w, "  modewatch sim --out demo; modewatch sim --duration 24h --out demo-day1;")
-	fmt.Fprintf(w, "  modewatch fit --config %s --out demo/model.json demo-day1/readings.lp;\n", demoConfigName)
-	fmt.Fprintf(w, "  modewatch replay --config %s --model demo/model.json --truth demo/truth.json demo/readings.lp\n", demoConfigName)
-	fmt.Fprintln(w, service.Caution)
-	return oc, nil
 }
 
 // waitIntake waits until in has received want lines, or has received none
@@ -447,7 +468,7 @@ func (b *board) render(recs []alerts.Record) string {
 			fmt.Fprintf(&sb, "  %-10s %-31s %s\n", n, "warming up", l.state)
 			continue
 		}
-		fmt.Fprintf(&sb, "  %-10s %6.1f/%-6.1f %s %6.2f/%-6.2f %s %s\n", n, l.t2, l.t2l, bar(l.t2/l.t2l), l.spe, l.spel, bar(l.spe/l.spel), l.state)
+		fmt.Fprintf(&sb, "  %-10s %6.1f/%-6.1f %s %s %s\n", n, l.t2, l.t2l, bar(l.t2/l.t2l), speCell(l.spe, l.spel), l.state)
 	}
 	b.mu.Unlock()
 	// Open alerts first, then the three most recent that have ended.
@@ -490,6 +511,16 @@ func (b *board) render(recs []alerts.Record) string {
 		line("ended", r)
 	}
 	return sb.String()
+}
+
+// speCell is the SPE column of the board (19 characters): value/limit and
+// its bar, or, when the limit is not finite (the modes span every channel,
+// so nothing is left for SPE to measure), says so in words.
+func speCell(spe, limit float64) string {
+	if math.IsInf(limit, 0) || math.IsNaN(limit) {
+		return fmt.Sprintf("%-19s", "no residual space")
+	}
+	return fmt.Sprintf("%6.2f/%-6.2f %s", spe, limit, bar(spe/limit))
 }
 
 // bar shows a ratio to the limit in 5 cells; "!" past the limit.

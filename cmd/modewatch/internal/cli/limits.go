@@ -4,7 +4,6 @@ import (
 	"context"
 	"errors"
 	"fmt"
-	"math"
 	"sort"
 	"time"
 
@@ -134,15 +133,7 @@ func calibrate(p *pipeline.Pipeline, cfg *configs.Config, period time.Duration, 
 		}
 		for _, t := range ts {
 			row := make([]float64, len(t.names))
-			seen := false
-			for k, i := range t.idx {
-				row[k] = math.NaN()
-				if i >= 0 && i < len(f.Values) && !f.Missing[i] {
-					row[k] = f.Values[i]
-					seen = true
-				}
-			}
-			if seen {
+			if f.Gather(row, nil, nil, t.idx) > 0 {
 				t.rows = append(t.rows, row)
 			}
 		}

@@ -13,6 +13,7 @@ import (
 
 	"github.com/influxdata/line-protocol/v2/lineprotocol"
 
+	"modewatch/cmd/modewatch/internal/evaluate"
 	"modewatch/cmd/modewatch/internal/pipeline"
 	"modewatch/sim"
 )
@@ -281,14 +282,48 @@ func TestFitReplayModel(t *testing.T) {
 
 // TestReplayStdinAndTruth: "-" reads standard input and gives the same
 // result as the file; --truth adds the metrics, computed from the alerts.
+// The truth is made by hand around the alerts the replay writes: episode
+// a spans the start of the first incident, episode b lies after the log,
+// so exactly one episode is detected, by that incident, and every other
+// incident starting away from a, or in another unit, is false (the strict
+// scoring rule of evaluate.Compute, applied here by hand).
 func TestReplayStdinAndTruth(t *testing.T) {
 	p, _ := demoLog(t, 6)
 	data, _ := os.ReadFile(p)
+	alertsFile := filepath.Join(t.TempDir(), "alerts.jsonl")
+	if code, _, errs := runCLI(t, "", "replay", "--quiet", "--alerts", alertsFile, p); code != ExitOK {
+		t.Fatalf("exit %d: %s", code, errs)
+	}
+	recs := lastRevisions(t, alertsFile)
+	var firstID string
+	var firstStart time.Time
+	for id, r := range recs {
+		if r.Kind == "flood" {
+			continue
+		}
+		if firstID == "" || r.Start.Before(firstStart) || (r.Start.Equal(firstStart) && id < firstID) {
+			firstID, firstStart = id, r.Start
+		}
+	}
+	if firstID == "" {
+		t.Fatal("the 6-hour demo log raised no incident: the truth would have nothing to detect")
+	}
+	// Episode a names a channel of the first incident's unit (scoring is
+	// strict: only an alert of the unit holding the episode's channels
+	// detects it).
+	first := recs[firstID]
+	aChannel := first.Unit + ".x"
+	if len(first.Contributors) > 0 {
+		aChannel = first.Contributors[0].Channel
+	} else if first.Quality != nil {
+		aChannel = first.Quality.Channel
+	}
+	aStart, aEnd := firstStart.Add(-10*time.Minute), firstStart.Add(time.Minute)
 	truth := filepath.Join(t.TempDir(), "truth.json")
-	// Hand-made truth: one episode in the log, one after it.
-	os.WriteFile(truth, []byte(`{"episodes":[
-		{"id":"a","start":"2026-03-02T03:00:00Z","end":"2026-03-02T05:00:00Z","kind":"bias","channels":["air.header.pressure"]},
-		{"id":"b","start":"2026-03-05T03:00:00Z","end":"2026-03-05T05:00:00Z","kind":"bias","channels":["x"]}]}`), 0o644)
+	os.WriteFile(truth, []byte(fmt.Sprintf(`{"episodes":[
+		{"id":"a","start":%q,"end":%q,"kind":"bias","channels":[%q]},
+		{"id":"b","start":"2026-03-05T03:00:00Z","end":"2026-03-05T05:00:00Z","kind":"bias","channels":[%q]}]}`,
+		aStart.Format(time.RFC3339Nano), aEnd.Format(time.RFC3339Nano), aChannel, aChannel)), 0o644)
 	code, fromFile, errs := runCLI(t, "", "replay", "--quiet", "--json", "--truth", truth, p)
 	if code != ExitOK {
 		t.Fatalf("exit %d: %s", code, errs)
@@ -302,8 +337,23 @@ func TestReplayStdinAndTruth(t *testing.T) {
 		t.Errorf("file and stdin differ: %d/%d frames, %d/%d alerts", a.Frames, b.Frames, a.Alerts, b.Alerts)
 	}
 	m := a.Metrics
-	if m == nil || m.Episodes != 2 || m.Detected > 1 {
-		t.Fatalf("metrics %+v", m)
+	if m == nil || m.Episodes != 2 || m.Detected != 1 || len(m.Matches) != 2 {
+		t.Fatalf("metrics %+v, want 2 episodes and 1 detected", m)
+	}
+	if m.Matches[0].Alert != firstID || m.Matches[0].DelayS == nil || *m.Matches[0].DelayS != firstStart.Sub(aStart).Seconds() {
+		t.Errorf("episode a: matched %+v, want alert %s after %v s", m.Matches[0], firstID, firstStart.Sub(aStart).Seconds())
+	}
+	if m.Matches[1].Alert != "" {
+		t.Errorf("episode b, after the log, matched alert %s", m.Matches[1].Alert)
+	}
+	wantFalse := 0 // incidents outside episode a ± grace or of another unit
+	for _, r := range recs {
+		if r.Kind != "flood" && (r.Unit != first.Unit || r.Start.Before(aStart.Add(-evaluate.DefaultGrace)) || r.Start.After(aEnd.Add(evaluate.DefaultGrace))) {
+			wantFalse++
+		}
+	}
+	if m.FalseAlerts != wantFalse {
+		t.Errorf("%d false alerts, want %d (incidents of another unit or starting outside episode a ± %v)", m.FalseAlerts, wantFalse, evaluate.DefaultGrace)
 	}
 	if m.FalseAlertsPerDay == nil {
 		t.Fatal("false_alerts_per_day missing")

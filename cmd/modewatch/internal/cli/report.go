@@ -28,20 +28,10 @@ func writeReport(env IO, dir string, inputs []string, sum *summary, res *pipelin
 		in.Episodes = tr.Episodes
 	}
 	for _, r := range rec.incidents() {
-		a := report.Alert{ID: r.ID, Unit: r.Unit, Start: r.Start, End: r.End, Severity: r.Severity,
-			Statistic: r.Peak.Statistic, Ratio: r.Peak.Ratio}
-		for i, c := range r.Contributors {
-			if i == 3 {
-				break
-			}
-			a.Top = append(a.Top, c.Channel)
-		}
+		a := report.Alert{ID: r.ID, Unit: r.Unit, Start: r.Start, End: r.End, Severity: r.Severity, Ratio: r.Peak.Ratio}
+		a.Statistic, a.Top = r.Channels(3)
 		if len(r.Contributors) > 0 && r.Contributors[0].Reading.Known() {
 			a.Expected = r.Contributors[0].Expectation()
-		}
-		if len(a.Top) == 0 && r.Quality != nil {
-			a.Statistic = r.Quality.Kind
-			a.Top = []string{r.Quality.Channel}
 		}
 		in.Alerts = append(in.Alerts, a)
 	}

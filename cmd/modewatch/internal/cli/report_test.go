@@ -160,7 +160,7 @@ func TestReplayReport(t *testing.T) {
 	}
 	text := string(page)
 	for _, want := range []string{report.Advisory[:40], "site procedures, local codes and licensed practice",
-		">frames<", ">lines.accepted<", "F1-header-bias", "detection rate", "downsampled", "of their own unit"} {
+		">frames<", ">accepted<", ">Input lines<", ">replay time<", `&#34;lines&#34;: {`, "F1-header-bias", "detection rate", "downsampled", "of their own unit"} {
 		if !strings.Contains(text, want) {
 			t.Errorf("index.html lacks %q", want)
 		}

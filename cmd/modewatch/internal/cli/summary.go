@@ -104,19 +104,10 @@ func summarize(res *pipeline.ReplayResult, rec *recorder) *summary {
 	for _, r := range rec.incidents() {
 		perUnit[r.Unit]++
 		s.Alerts++
-		al := alertLine{start: r.Start, unit: r.Unit, severity: r.Severity, stat: r.Peak.Statistic, ratio: r.Peak.Ratio}
-		for i, c := range r.Contributors {
-			if i == 3 {
-				break
-			}
-			al.top = append(al.top, c.Channel)
-		}
+		al := alertLine{start: r.Start, unit: r.Unit, severity: r.Severity, ratio: r.Peak.Ratio}
+		al.stat, al.top = r.Channels(3)
 		if len(r.Contributors) > 0 && r.Contributors[0].Expected.Known() {
 			al.expected = r.Contributors[0].Expectation()
-		}
-		if len(al.top) == 0 && r.Quality != nil {
-			al.stat = r.Quality.Kind
-			al.top = []string{r.Quality.Channel}
 		}
 		s.top = append(s.top, al)
 	}

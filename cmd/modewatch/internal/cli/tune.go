@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"context"
 	"errors"
+	"flag"
 	"fmt"
 	"io"
 	"os"
@@ -105,59 +106,11 @@ func runTune(ctx context.Context, env IO, args []string) error {
 	}
 	// Everything is checked before the first replay: grid, configuration,
 	// truth, model and every combination.
-	grid, err := tune.ReadGrid(gridFile)
-	if err != nil {
-		var es configs.Errors
-		if errors.As(err, &es) {
-			for _, e := range es {
-				fmt.Fprintln(env.Err, e)
-			}
-			return configError{fmt.Errorf("%s: %d problem(s)", gridFile, len(es))}
-		}
-		return usagef("--grid: %v", err)
-	}
-	base, err := mf.load(fs)
+	plan, err := planTune(env, fs, &mf, gridFile, truth, model)
 	if err != nil {
 		return err
 	}
-	tr, err := evaluate.ReadTruth(truth)
-	if err != nil {
-		return usagef("--truth: %v", err)
-	}
-	var baseline *pipeline.ModelFile
-	if model != "" {
-		if baseline, err = pipeline.ReadModel(model); err != nil {
-			return usagef("--model: %v", err)
-		}
-		var listed []string
-		for _, ax := range grid.Axes {
-			if tune.ModelKeys[ax.Key] {
-				listed = append(listed, fmt.Sprintf("%s:%d: %s", gridFile, ax.Line, ax.Key))
-			}
-		}
-		if len(listed) > 0 {
-			return usagef("with --model the units keep the settings they were fitted with; the grid may list only on_delay, off_delay, deadband and adapt, not:\n  %s",
-				strings.Join(listed, "\n  "))
-		}
-	}
-	settings := grid.Settings()
-	var problems []string
-	for _, s := range settings {
-		c := s.Apply(base)
-		if err := c.Validate(); err != nil {
-			problems = append(problems, fmt.Sprintf("%s: %v", s, err))
-			continue
-		}
-		if _, err := empiricalLimits(c, baseline); err != nil {
-			problems = append(problems, fmt.Sprintf("%s: %v", s, err))
-		}
-	}
-	if len(problems) > 0 {
-		if len(problems) > 10 {
-			problems = append(problems[:10], fmt.Sprintf("... and %d more", len(problems)-10))
-		}
-		return usagef("%d combination(s) of the grid are not valid settings:\n  %s", len(problems), strings.Join(problems, "\n  "))
-	}
+	settings, base, tr, baseline := plan.settings, plan.base, plan.truth, plan.baseline
 	if err := os.MkdirAll(outDir, 0o755); err != nil {
 		return err
 	}
@@ -185,45 +138,12 @@ func runTune(ctx context.Context, env IO, args []string) error {
 	prog.finish()
 	ranked := tune.Rank(results, maxFalse)
 
-	var csvBuf bytes.Buffer
-	if err := tune.WriteCSV(&csvBuf, ranked); err != nil {
+	best, err := writeTune(env, ranked, tuneOutput{dir: outDir, top: top, quiet: quiet, maxFalse: maxFalse, start: start,
+		note: func(best *tune.Result) []string {
+			return snippetNote(best, len(ranked), inputs, truth, mf.config, grace, maxFalse)
+		}})
+	if err != nil {
 		return err
-	}
-	csvPath := filepath.Join(outDir, "tune.csv")
-	if err := store.WriteFile(csvPath, csvBuf.Bytes(), 0o644); err != nil {
-		return err
-	}
-	best := &ranked[0]
-	var snip bytes.Buffer
-	note := snippetNote(best, len(ranked), inputs, truth, mf.config, grace, maxFalse)
-	if err := tune.WriteSnippet(&snip, best, note); err != nil {
-		return err
-	}
-	bestPath := filepath.Join(outDir, "best.yaml")
-	if best.Err == "" {
-		if err := store.WriteFile(bestPath, snip.Bytes(), 0o644); err != nil {
-			return err
-		}
-	}
-
-	if err := tune.WriteTable(env.Out, ranked, top); err != nil {
-		return err
-	}
-	meet := 0
-	for i := range ranked {
-		if tune.Meets(&ranked[i], maxFalse) {
-			meet++
-		}
-	}
-	if !quiet {
-		fmt.Fprintf(env.Out, "%d of %d settings detect every episode with at most %g false alert(s) per day; %s elapsed\n",
-			meet, len(ranked), maxFalse, time.Since(start).Round(100*time.Millisecond))
-		fmt.Fprintf(env.Out, "wrote %s", csvPath)
-		if best.Err == "" {
-			fmt.Fprintf(env.Out, " and %s (rank 1)", bestPath)
-		}
-		fmt.Fprintln(env.Out)
-		fmt.Fprintln(env.Out, "Advisory only: settings found on past incidents are a starting point; verify in the field and follow site procedures.")
 	}
 	if runErr != nil {
 		return runErr
@@ -232,6 +152,128 @@ func runTune(ctx context.Context, env IO, args []string) error {
 		return fmt.Errorf("no setting could be replayed; first error: %s", best.Err)
 	}
 	return nil
+}
+
+// tunePlan is what tune checked before its first replay.
+type tunePlan struct {
+	settings []tune.Setting
+	base     *configs.Config
+	truth    *evaluate.Truth
+	baseline *pipeline.ModelFile // nil without --model
+}
+
+// planTune reads and checks the grid, the configuration, the truth and the
+// model, and checks that every combination of the grid is a valid setting.
+func planTune(env IO, fs *flag.FlagSet, mf *modelFlags, gridFile, truth, model string) (*tunePlan, error) {
+	grid, err := tune.ReadGrid(gridFile)
+	if err != nil {
+		var es configs.Errors
+		if errors.As(err, &es) {
+			for _, e := range es {
+				fmt.Fprintln(env.Err, e)
+			}
+			return nil, configError{fmt.Errorf("%s: %d problem(s)", gridFile, len(es))}
+		}
+		return nil, usagef("--grid: %v", err)
+	}
+	base, err := mf.load(fs)
+	if err != nil {
+		return nil, err
+	}
+	tr, err := evaluate.ReadTruth(truth)
+	if err != nil {
+		return nil, usagef("--truth: %v", err)
+	}
+	var baseline *pipeline.ModelFile
+	if model != "" {
+		if baseline, err = pipeline.ReadModel(model); err != nil {
+			return nil, usagef("--model: %v", err)
+		}
+		var listed []string
+		for _, ax := range grid.Axes {
+			if tune.ModelKeys[ax.Key] {
+				listed = append(listed, fmt.Sprintf("%s:%d: %s", gridFile, ax.Line, ax.Key))
+			}
+		}
+		if len(listed) > 0 {
+			return nil, usagef("with --model the units keep the settings they were fitted with; the grid may list only on_delay, off_delay, deadband and adapt, not:\n  %s",
+				strings.Join(listed, "\n  "))
+		}
+	}
+	settings := grid.Settings()
+	var problems []string
+	for _, s := range settings {
+		c := s.Apply(base)
+		if err := c.Validate(); err != nil {
+			problems = append(problems, fmt.Sprintf("%s: %v", s, err))
+			continue
+		}
+		if _, err := empiricalLimits(c, baseline); err != nil {
+			problems = append(problems, fmt.Sprintf("%s: %v", s, err))
+		}
+	}
+	if len(problems) > 0 {
+		if len(problems) > 10 {
+			problems = append(problems[:10], fmt.Sprintf("... and %d more", len(problems)-10))
+		}
+		return nil, usagef("%d combination(s) of the grid are not valid settings:\n  %s", len(problems), strings.Join(problems, "\n  "))
+	}
+	return &tunePlan{settings: settings, base: base, truth: tr, baseline: baseline}, nil
+}
+
+// tuneOutput says where and how tune writes its results.
+type tuneOutput struct {
+	dir      string
+	top      int
+	quiet    bool
+	maxFalse float64
+	start    time.Time
+	note     func(best *tune.Result) []string // the comment of best.yaml
+}
+
+// writeTune writes tune.csv (every row) and best.yaml (rank 1, unless it
+// failed) into out.dir, prints the table of the best out.top rows and a
+// summary, and returns rank 1.
+func writeTune(env IO, ranked []tune.Result, out tuneOutput) (*tune.Result, error) {
+	var csvBuf bytes.Buffer
+	if err := tune.WriteCSV(&csvBuf, ranked); err != nil {
+		return nil, err
+	}
+	csvPath := filepath.Join(out.dir, "tune.csv")
+	if err := store.WriteFile(csvPath, csvBuf.Bytes(), 0o644); err != nil {
+		return nil, err
+	}
+	best := &ranked[0]
+	var snip bytes.Buffer
+	if err := tune.WriteSnippet(&snip, best, out.note(best)); err != nil {
+		return nil, err
+	}
+	bestPath := filepath.Join(out.dir, "best.yaml")
+	if best.Err == "" {
+		if err := store.WriteFile(bestPath, snip.Bytes(), 0o644); err != nil {
+			return nil, err
+		}
+	}
+	if err := tune.WriteTable(env.Out, ranked, out.top); err != nil {
+		return nil, err
+	}
+	meet := 0
+	for i := range ranked {
+		if tune.Meets(&ranked[i], out.maxFalse) {
+			meet++
+		}
+	}
+	if !out.quiet {
+		fmt.Fprintf(env.Out, "%d of %d settings detect every episode with at most %g false alert(s) per day; %s elapsed\n",
+			meet, len(ranked), out.maxFalse, time.Since(out.start).Round(100*time.Millisecond))
+		fmt.Fprintf(env.Out, "wrote %s", csvPath)
+		if best.Err == "" {
+			fmt.Fprintf(env.Out, " and %s (rank 1)", bestPath)
+		}
+		fmt.Fprintln(env.Out)
+		fmt.Fprintln(env.Out, "Advisory only: settings found on past incidents are a starting point; verify in the field and follow site procedures.")
+	}
+	return best, nil
 }
 
 // replayMetrics replays the inputs under cfg through the replay command's

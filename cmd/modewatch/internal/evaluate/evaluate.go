@@ -113,12 +113,7 @@ func AlertsOf(recs []*alerts.Record) []Alert {
 		if r.End != nil {
 			a.End = *r.End
 		}
-		for _, c := range r.Contributors {
-			a.Top = append(a.Top, c.Channel)
-		}
-		if len(a.Top) == 0 && r.Quality != nil {
-			a.Top = []string{r.Quality.Channel}
-		}
+		_, a.Top = r.Channels(0)
 		out = append(out, a)
 	}
 	return out
@@ -236,7 +231,6 @@ type Match struct {
 //
 // An alert inside two overlapping episodes of its unit detects both.
 func Compute(alerts []Alert, episodes []Episode, run Run) Metrics {
-	grace := run.Grace
 	sorted := make([]Alert, len(alerts))
 	copy(sorted, alerts)
 	sort.SliceStable(sorted, func(i, j int) bool { return sorted[i].Start.Before(sorted[j].Start) })
@@ -251,6 +245,60 @@ func Compute(alerts []Alert, episodes []Episode, run Run) Metrics {
 	}
 
 	m := Metrics{Episodes: len(episodes), Units: []UnitMetrics{}}
+	delays := m.match(sorted, episodes, epUnits)
+	byUnit, order := unitsOf(sorted, run)
+	for _, a := range sorted {
+		um := byUnit[a.Unit]
+		um.Alerts++
+		inside := false
+		for i, e := range episodes {
+			if epUnits[i][a.Unit] && !a.Start.Before(e.Start.Add(-run.Grace)) && !a.Start.After(e.End.Add(run.Grace)) {
+				inside = true
+				break
+			}
+		}
+		if !inside {
+			m.FalseAlerts++
+			um.FalseAlerts++
+		}
+	}
+	for _, u := range order {
+		um := byUnit[u]
+		um.openTimes(u, sorted, episodes, epUnits, run)
+		m.Units = append(m.Units, *um)
+	}
+	if run.Hold != nil {
+		n := 0
+		for _, um := range m.Units {
+			n += um.OpenPastHold
+		}
+		m.OpenPastHold = &n
+	}
+
+	if m.Episodes > 0 {
+		r := float64(m.Detected) / float64(m.Episodes)
+		m.DetectionRate = &r
+	}
+	if len(delays) > 0 {
+		sort.Float64s(delays)
+		n := len(delays)
+		med := delays[n/2]
+		if n%2 == 0 {
+			med = (delays[n/2-1] + delays[n/2]) / 2
+		}
+		m.MedianDelayS = &med
+	}
+	if span := run.To.Sub(run.From); span > 0 {
+		r := float64(m.FalseAlerts) / (span.Hours() / 24)
+		m.FalseAlertsPerDay = &r
+	}
+	return m
+}
+
+// match finds, for each episode, the first alert of one of its units
+// (epUnits) starting inside it (sorted by start), counting detections and
+// isolations into m, and returns the detection delays in seconds.
+func (m *Metrics) match(sorted []Alert, episodes []Episode, epUnits []map[string]bool) []float64 {
 	var delays []float64
 	for i, e := range episodes {
 		match := Match{Episode: e.ID}
@@ -281,19 +329,19 @@ func Compute(alerts []Alert, episodes []Episode, run Run) Metrics {
 		}
 		m.Matches = append(m.Matches, match)
 	}
+	return delays
+}
 
+// unitsOf returns the per-unit metrics to fill, by unit, and the units in
+// report order: those of the run, then any other unit with alerts, sorted.
+func unitsOf(sorted []Alert, run Run) (map[string]*UnitMetrics, []string) {
 	byUnit := map[string]*UnitMetrics{}
 	var order []string
-	addUnit := func(u string) *UnitMetrics {
-		if um := byUnit[u]; um != nil {
-			return um
-		}
-		byUnit[u] = &UnitMetrics{Unit: u}
-		order = append(order, u)
-		return byUnit[u]
-	}
 	for _, u := range run.Units {
-		addUnit(u)
+		if byUnit[u] == nil {
+			byUnit[u] = &UnitMetrics{Unit: u}
+			order = append(order, u)
+		}
 	}
 	var extra []string
 	for _, a := range sorted {
@@ -303,82 +351,42 @@ func Compute(alerts []Alert, episodes []Episode, run Run) Metrics {
 		}
 	}
 	sort.Strings(extra)
-	order = append(order, extra...)
+	return byUnit, append(order, extra...)
+}
 
+// openTimes sets unit u's longest open alert, its alerts open past the
+// hold, and the share of its normal time (the run minus its episodes ±
+// grace) with an alert open.
+func (um *UnitMetrics) openTimes(u string, sorted []Alert, episodes []Episode, epUnits []map[string]bool, run Run) {
+	grace := run.Grace
+	var excluded, open []interval
+	for i, e := range episodes {
+		if epUnits[i][u] {
+			excluded = append(excluded, interval{e.Start.Add(-grace), e.End.Add(grace)})
+		}
+	}
 	for _, a := range sorted {
-		um := byUnit[a.Unit]
-		um.Alerts++
-		inside := false
-		for i, e := range episodes {
-			if epUnits[i][a.Unit] && !a.Start.Before(e.Start.Add(-grace)) && !a.Start.After(e.End.Add(grace)) {
-				inside = true
-				break
-			}
+		if a.Unit != u {
+			continue
 		}
-		if !inside {
-			m.FalseAlerts++
-			um.FalseAlerts++
+		end := a.End
+		if end.IsZero() || (!run.To.IsZero() && end.After(run.To)) {
+			end = run.To
+		}
+		if d := end.Sub(a.Start).Seconds(); d > um.LongestOpenAlertS {
+			um.LongestOpenAlertS = d
+		}
+		open = append(open, interval{a.Start, end})
+		if over := pastHold(a, end, u, episodes, epUnits, grace, run.Hold); over > 0 {
+			um.OpenPastHold++
+			um.LongestPastHoldS = max(um.LongestPastHoldS, over.Seconds())
 		}
 	}
-
-	for _, u := range order {
-		um := byUnit[u]
-		var excluded, open []interval
-		for i, e := range episodes {
-			if epUnits[i][u] {
-				excluded = append(excluded, interval{e.Start.Add(-grace), e.End.Add(grace)})
-			}
-		}
-		for _, a := range sorted {
-			if a.Unit != u {
-				continue
-			}
-			end := a.End
-			if end.IsZero() || (!run.To.IsZero() && end.After(run.To)) {
-				end = run.To
-			}
-			if d := end.Sub(a.Start).Seconds(); d > um.LongestOpenAlertS {
-				um.LongestOpenAlertS = d
-			}
-			open = append(open, interval{a.Start, end})
-			if over := pastHold(a, end, u, episodes, epUnits, grace, run.Hold); over > 0 {
-				um.OpenPastHold++
-				um.LongestPastHoldS = max(um.LongestPastHoldS, over.Seconds())
-			}
-		}
-		normal := subtract([]interval{{run.From, run.To}}, excluded)
-		if total := length(normal); total > 0 {
-			share := length(intersect(normal, union(open))) / total
-			um.AlertOpenShareNormal = &share
-		}
-		m.Units = append(m.Units, *um)
+	normal := subtract([]interval{{run.From, run.To}}, excluded)
+	if total := length(normal); total > 0 {
+		share := length(intersect(normal, union(open))) / total
+		um.AlertOpenShareNormal = &share
 	}
-	if run.Hold != nil {
-		n := 0
-		for _, um := range m.Units {
-			n += um.OpenPastHold
-		}
-		m.OpenPastHold = &n
-	}
-
-	if m.Episodes > 0 {
-		r := float64(m.Detected) / float64(m.Episodes)
-		m.DetectionRate = &r
-	}
-	if len(delays) > 0 {
-		sort.Float64s(delays)
-		n := len(delays)
-		med := delays[n/2]
-		if n%2 == 0 {
-			med = (delays[n/2-1] + delays[n/2]) / 2
-		}
-		m.MedianDelayS = &med
-	}
-	if span := run.To.Sub(run.From); span > 0 {
-		r := float64(m.FalseAlerts) / (span.Hours() / 24)
-		m.FalseAlertsPerDay = &r
-	}
-	return m
 }
 
 // pastHold returns how long alert a of unit u, open until end, stayed

@@ -32,11 +32,11 @@ type Calibration struct {
 	HeldOutDays float64 `json:"held_out_days"`
 	// Blocks of length Block gave the block maxima of the rule statistic
 	// fitted by the GEV (Mu, Sigma, Xi).
-	Blocks int      `json:"blocks"`
-	Block  Duration `json:"block"`
-	Mu     float64  `json:"gev_mu"`
-	Sigma  float64  `json:"gev_sigma"`
-	Xi     float64  `json:"gev_xi"`
+	Blocks int             `json:"blocks"`
+	Block  alerts.Duration `json:"block"`
+	Mu     float64         `json:"gev_mu"`
+	Sigma  float64         `json:"gev_sigma"`
+	Xi     float64         `json:"gev_xi"`
 	// GEVScale, when set, is the GEV's scale for the budget, which opened
 	// more alerts over the held-out data than the budget allows there
 	// (⌊budget · HeldOutDays⌋); Scale was then raised to the smallest that
@@ -250,7 +250,7 @@ func CalibrateBudget(t []time.Time, ratios [][nStatistics]float64, budget float6
 	}
 	perDay := 24 * float64(time.Hour) / float64(block)
 	p := budget / perDay
-	cal := Calibration{Budget: budget, HeldOutDays: days, Blocks: len(maxima), Block: Duration(block),
+	cal := Calibration{Budget: budget, HeldOutDays: days, Blocks: len(maxima), Block: alerts.Duration(block),
 		Mu: fit.Mu, Sigma: fit.Sigma, Xi: fit.Xi}
 	if p >= 1 {
 		return cal, fmt.Errorf("%w: a budget of %v per day is an alert in every block of %v", ErrCalibration, budget, block)

@@ -12,6 +12,7 @@ import (
 	"strings"
 	"time"
 
+	"modewatch/alerts"
 	"modewatch/cmd/modewatch/internal/store"
 )
 
@@ -92,7 +93,7 @@ func (p *Pipeline) checkpointOf(u *Unit) (*ModelFile, error) {
 		}
 	}
 	return &ModelFile{
-		Format: ModelFormat, Version: ModelVersion, Created: time.Now().UTC(), Period: Duration(p.opt.Period),
+		Format: ModelFormat, Version: ModelVersion, Created: time.Now().UTC(), Period: alerts.Duration(p.opt.Period),
 		Frames: u.frames, From: u.firstT, To: u.lastT,
 		Units: []ModelUnit{{Name: u.Name, Channels: append([]string(nil), u.names...), Settings: settings,
 			Modes: u.modesView(), State: state, Alerts: snap.Bytes(), Last: u.lastReadings(), Quality: u.Profiles(), States: sf, Context: u.contextIn(),

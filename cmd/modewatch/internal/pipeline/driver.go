@@ -220,7 +220,7 @@ func inferPeriod(name string, stdin io.Reader, prec lineprotocol.Precision) (tim
 	}
 	prefix, _ := br.Peek(stream.InferPrefixBytes)
 	if len(prefix) == stream.InferPrefixBytes {
-		if i := lastNewline(prefix); i >= 0 {
+		if i := bytes.LastIndexByte(prefix, '\n'); i >= 0 {
 			prefix = prefix[:i+1]
 		}
 	}
@@ -236,15 +236,6 @@ func inferPeriod(name string, stdin io.Reader, prec lineprotocol.Precision) (tim
 		return p, keep, nil
 	}
 	return p, nil, nil
-}
-
-func lastNewline(b []byte) int {
-	for i := len(b) - 1; i >= 0; i-- {
-		if b[i] == '\n' {
-			return i
-		}
-	}
-	return -1
 }
 
 // RoundPeriod rounds an inferred frame period to three significant digits

@@ -87,14 +87,14 @@ var ErrModelFile = errors.New("pipeline: unusable model file")
 // order), the settings it was fitted with and the tracker's state. JSON,
 // with the tracker state as base64 of its versioned binary form.
 type ModelFile struct {
-	Format  string      `json:"format"`
-	Version int         `json:"version"`
-	Created time.Time   `json:"created"`
-	Period  Duration    `json:"period"`
-	Frames  uint64      `json:"frames"`
-	From    time.Time   `json:"from"`
-	To      time.Time   `json:"to"`
-	Units   []ModelUnit `json:"units"`
+	Format  string          `json:"format"`
+	Version int             `json:"version"`
+	Created time.Time       `json:"created"`
+	Period  alerts.Duration `json:"period"`
+	Frames  uint64          `json:"frames"`
+	From    time.Time       `json:"from"`
+	To      time.Time       `json:"to"`
+	Units   []ModelUnit     `json:"units"`
 }
 
 // ModelUnit is one unit of a model file.
@@ -162,37 +162,21 @@ type LastReading struct {
 // state can only be restored under exactly these settings, so replay and
 // run use them for a fitted unit (HalfLife 0: equal weights).
 type ModelSettings struct {
-	Sparsity     string   `json:"sparsity"`
-	Modes        string   `json:"modes"`
-	MaxModes     int      `json:"max_modes"`
-	HalfLife     Duration `json:"halflife"`
-	Alpha        float64  `json:"alpha"`
-	RefreshEvery int      `json:"refresh_every"`
-	WarmUp       int      `json:"warmup"`
-	Statistics   string   `json:"statistics,omitempty"`
-	Smoothing    float64  `json:"smoothing,omitempty"`
-	Lags         int      `json:"lags,omitempty"`
-}
-
-// Duration is a time.Duration that reads and writes as "1h30m0s".
-type Duration time.Duration
-
-// MarshalText implements encoding.TextMarshaler.
-func (d Duration) MarshalText() ([]byte, error) { return []byte(time.Duration(d).String()), nil }
-
-// UnmarshalText implements encoding.TextUnmarshaler.
-func (d *Duration) UnmarshalText(b []byte) error {
-	v, err := time.ParseDuration(string(b))
-	if err != nil {
-		return err
-	}
-	*d = Duration(v)
-	return nil
+	Sparsity     string          `json:"sparsity"`
+	Modes        string          `json:"modes"`
+	MaxModes     int             `json:"max_modes"`
+	HalfLife     alerts.Duration `json:"halflife"`
+	Alpha        float64         `json:"alpha"`
+	RefreshEvery int             `json:"refresh_every"`
+	WarmUp       int             `json:"warmup"`
+	Statistics   string          `json:"statistics,omitempty"`
+	Smoothing    float64         `json:"smoothing,omitempty"`
+	Lags         int             `json:"lags,omitempty"`
 }
 
 func settingsOf(m configs.Model) ModelSettings {
 	return ModelSettings{
-		Sparsity: m.Sparsity, Modes: m.Modes.String(), MaxModes: m.MaxModes, HalfLife: Duration(m.HalfLife),
+		Sparsity: m.Sparsity, Modes: m.Modes.String(), MaxModes: m.MaxModes, HalfLife: alerts.Duration(m.HalfLife),
 		Alpha: m.Alpha, RefreshEvery: m.RefreshEvery, WarmUp: m.WarmUp, Statistics: m.Statistics, Smoothing: m.Smoothing, Lags: max(m.Lags, 0),
 	}
 }
@@ -354,7 +338,7 @@ func restoreState(tr *tracker.Tracker, b []byte) error { return tr.UnmarshalBina
 func (p *Pipeline) Baseline() (*ModelFile, error) {
 	p.mu.Lock()
 	defer p.mu.Unlock()
-	m := &ModelFile{Format: ModelFormat, Version: ModelVersion, Created: time.Now().UTC(), Period: Duration(p.opt.Period),
+	m := &ModelFile{Format: ModelFormat, Version: ModelVersion, Created: time.Now().UTC(), Period: alerts.Duration(p.opt.Period),
 		Frames: p.frames, From: p.first, To: p.last}
 	var errs []error
 	sug := p.suggestions()

@@ -254,7 +254,9 @@ func (p *Pipeline) register(u *Unit) {
 	p.unitsMu.Unlock()
 }
 
-// Frame scores one aligned frame: the handler for stream.NewIntake.
+// Frame scores one aligned frame for every unit: the handler for
+// [stream.NewIntake]. It returns nil: a unit that fails keeps its error
+// (shown in its view) and stops scoring, the others go on.
 func (p *Pipeline) Frame(f *stream.Frame) error {
 	p.mu.Lock()
 	defer p.mu.Unlock()
@@ -273,13 +275,10 @@ func (p *Pipeline) Frame(f *stream.Frame) error {
 		p.addCross(f)
 	}
 	if len(p.pool.workers) == 1 {
-		var errs []error
 		for _, u := range p.units {
-			if err := u.step(f); err != nil {
-				errs = append(errs, err)
-			}
+			u.step(f)
 		}
-		return errors.Join(errs...)
+		return nil
 	}
 	p.pool.place(p.units)
 	p.pool.learn(f)

@@ -2,7 +2,6 @@ package pipeline
 
 import (
 	"fmt"
-	"math"
 	"slices"
 	"sync/atomic"
 	"time"
@@ -78,7 +77,7 @@ type Unit struct {
 	skipped     uint64        // frames already scored before a restart
 	refreshes   uint64        // mode refreshes timed (see step)
 	lastRefresh time.Duration // wall time of the last frame step that refreshed
-	late        []string      // channels that could not join the model (fixed model, Grow failed)
+	notModelled []string      // channels that could not join the model (fixed model, Grow failed)
 	refused     uint64        // channels refused at the unit's channel cap
 	refusedEx   []string      // the first few of them, for the view
 
@@ -146,13 +145,13 @@ func (u *Unit) addChannel(i int, name string) bool {
 	if u.lag != nil && u.tr != nil {
 		u.p.log.Warn("channel is not part of the unit's model: a model with lagged copies (model.lags) keeps the channels it started with; it is not modelled until the model is refitted",
 			"unit", u.Name, "channel", name)
-		u.late = append(u.late, name)
+		u.notModelled = append(u.notModelled, name)
 		return false
 	}
 	if u.fixed && u.tr != nil {
 		u.p.log.Warn("channel is not part of the unit's model, which is held fixed (adapt=false); it is not modelled until the model is refitted",
 			"unit", u.Name, "channel", name)
-		u.late = append(u.late, name)
+		u.notModelled = append(u.notModelled, name)
 		return false
 	}
 	u.idx = append(u.idx, i)
@@ -202,7 +201,7 @@ func (u *Unit) grow() {
 	if err != nil {
 		for _, n := range u.names[p0:] {
 			u.p.log.Error("new channel cannot join the unit's model; it is not modelled", "unit", u.Name, "channel", n, "err", err)
-			u.late = append(u.late, n)
+			u.notModelled = append(u.notModelled, n)
 		}
 		u.names, u.idx = u.names[:p0], u.idx[:p0]
 		return
@@ -249,10 +248,9 @@ func (u *Unit) build() error {
 
 // step scores frame f for this unit and hands the score on. Called under
 // p.mu.
-func (u *Unit) step(f *stream.Frame) error {
+func (u *Unit) step(f *stream.Frame) {
 	u.stepModel(f)
 	u.finish(f)
-	return nil
 }
 
 // stepModel steps the unit's tracker over frame f (the costly part of a frame)
@@ -279,15 +277,7 @@ func (u *Unit) stepModel(f *stream.Frame) {
 	case len(u.idx) > len(u.x):
 		u.grow() // channels discovered since
 	}
-	observed := 0
-	for k, i := range u.idx {
-		if i >= 0 && i < len(f.Values) && !f.Missing[i] {
-			u.x[k], u.miss[k] = f.Values[i], false
-			observed++
-		} else {
-			u.x[k], u.miss[k] = math.NaN(), true
-		}
-	}
+	observed := f.Gather(u.x, u.miss, nil, u.idx)
 	u.augment()
 	u.syncContext()
 	if u.nCtx > 0 {
@@ -381,7 +371,7 @@ func (u *Unit) finish(f *stream.Frame) {
 func (u *Unit) parallel() bool { return u.states == nil }
 
 // noReading marks a channel without a carried reading in lastAt.
-const noReading = math.MinInt64
+const noReading = stream.NoReading
 
 // keepLast records the unit's channels' values and reading times in f, the
 // frame just scored. It allocates only when the unit's channels changed.
@@ -390,13 +380,7 @@ func (u *Unit) keepLast(f *stream.Frame) {
 		u.lastV = slices.Grow(u.lastV[:0], len(u.idx))[:len(u.idx)]
 		u.lastAt = slices.Grow(u.lastAt[:0], len(u.idx))[:len(u.idx)]
 	}
-	for k, i := range u.idx {
-		if i >= 0 && i < len(f.Times) && !f.Missing[i] {
-			u.lastV[k], u.lastAt[k] = f.Values[i], f.Times[i]
-		} else {
-			u.lastV[k], u.lastAt[k] = math.NaN(), noReading
-		}
-	}
+	f.Gather(u.lastV, nil, u.lastAt, u.idx)
 }
 
 // ModelState returns the unit's model state in the alarm engine's terms.

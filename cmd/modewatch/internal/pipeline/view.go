@@ -138,7 +138,7 @@ func (u *Unit) modesOf(tr *tracker.Tracker) []ModeView {
 // through Pipeline.Views (which takes the pipeline's lock).
 func (u *Unit) View(t time.Time) UnitView {
 	v := UnitView{
-		Name: u.Name, Channels: u.Channels(), NotModelled: append([]string(nil), u.late...),
+		Name: u.Name, Channels: u.Channels(), NotModelled: append([]string(nil), u.notModelled...),
 		ModelState: u.ModelState(), Frames: u.frames, EmptyFrames: u.empty, StepErrors: u.stepErrors,
 		Modes: u.modesView(), State: u.CurrentState(), States: u.statesView(),
 		MaxChannels: u.model.MaxChannels, RefusedChannels: u.refused, RefusedExamples: append([]string(nil), u.refusedEx...),

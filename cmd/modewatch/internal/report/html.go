@@ -38,8 +38,9 @@ type Alert struct {
 type Input struct {
 	Title  string
 	Inputs []string
-	// Summary is the replay's --json object; its scalar fields (nested
-	// objects flattened to dotted keys) make the summary table.
+	// Summary is the replay's --json object; its scalar fields make the
+	// summary table, labelled, rounded and grouped by meaning, and the
+	// object itself is one click away on the page.
 	Summary any
 	Units   []pipeline.UnitView
 	Alerts  []Alert
@@ -72,8 +73,12 @@ func Write(dir string, in *Input) (string, error) {
 	if page.Title == "" {
 		page.Title = "modewatch replay report"
 	}
-	var err error
-	if page.Summary, err = flatten(in.Summary); err != nil {
+	flat, err := flatten(in.Summary)
+	if err != nil {
+		return "", err
+	}
+	page.Summary = groupSummary(flat)
+	if page.SummaryJSON, err = rawJSON(in.Summary); err != nil {
 		return "", err
 	}
 	if m := in.Metrics; m != nil {
@@ -232,7 +237,8 @@ func unitSpans(in *Input, uv pipeline.UnitView, s *series) (alerts, episodes []s
 type pageData struct {
 	Title, Advisory, Generated string
 	Inputs                     []string
-	Summary                    []kv
+	Summary                    []summaryGroup
+	SummaryJSON                string // replay --json, indented
 	Truth                      bool
 	Metrics                    []kv
 	Episodes                   []episodeRow
@@ -501,11 +507,13 @@ nav a { color: #f6f3ec; margin-right: 1em; }
 <p class="advisory"><strong>Advisory.</strong> {{.Advisory}}</p>
 
 <h2 id="summary">Summary</h2>
-<p class="note">The figures of <code>modewatch replay --json</code> for this run.</p>
 <table>
-<tr><th>figure</th><th>value</th></tr>
-{{range .Summary}}<tr><td>{{.Key}}</td><td class="num">{{.Value}}</td></tr>
-{{end}}</table>
+{{range .Summary}}<tr><th colspan="2">{{.Title}}</th></tr>
+{{range .Rows}}<tr><td>{{.Key}}</td><td class="num">{{.Value}}</td></tr>
+{{end}}{{end}}</table>
+{{if .SummaryJSON}}<details><summary>The same figures as <code>modewatch replay --json</code> writes them</summary>
+<pre>{{.SummaryJSON}}</pre>
+</details>{{end}}
 {{if .Units}}<table>
 <tr><th>unit</th><th>channels</th><th>frames</th><th>model state</th><th>notes</th></tr>
 {{range .Units}}<tr><td><a href="#{{.Anchor}}">{{.Name}}</a></td><td class="num">{{.Channels}}</td><td class="num">{{.Frames}}</td><td>{{.State}}</td><td>{{.Error}}</td></tr>

@@ -22,6 +22,14 @@ import (
 // alert and returns its id.
 func openMissingAlert(t *testing.T, svc *Service, nc *nats.Conn) string {
 	t.Helper()
+	id, _ := openMissingAlertAt(t, svc, nc)
+	return id
+}
+
+// openMissingAlertAt is openMissingAlert, also returning the time of the
+// first reading (the readings are at t0 + k s, k = 0..499).
+func openMissingAlertAt(t *testing.T, svc *Service, nc *nats.Conn) (string, time.Time) {
+	t.Helper()
 	t0 := time.Now().Add(-time.Hour).Truncate(time.Second)
 	var b bytes.Buffer
 	for k := 0; k < 500; k++ {
@@ -48,7 +56,7 @@ func openMissingAlert(t *testing.T, svc *Service, nc *nats.Conn) string {
 	for {
 		for _, r := range eng.Open(nil) {
 			if r.Quality != nil && r.Quality.Kind == alerts.QualityMissing && r.Quality.Channel == "tk.x.b" {
-				return r.ID
+				return r.ID, t0
 			}
 		}
 		if time.Now().After(deadline) {

@@ -117,8 +117,12 @@ type Service struct {
 	done     chan struct{}
 }
 
-// Start starts every part of the service and returns once it is serving.
-// Stop it with Shutdown (or cancel ctx and call Wait).
+// Start starts every part of the service and returns once it is serving:
+// the message server connection, the alert delivery, the engine (restored
+// from its checkpoints), the intake, the operator commands, the readings,
+// the HTTP API and, in a cluster, the unit leases; then the checkpoint,
+// tick and stall loops. An error stops whatever had started. Stop the
+// service with Shutdown (or cancel ctx and call Wait).
 func Start(ctx context.Context, opt Options) (_ *Service, err error) {
 	cfg, log := pipeline.OrDefaults(opt.Config, opt.Log)
 	if opt.Stdout == nil {
@@ -149,45 +153,10 @@ func Start(ctx context.Context, opt Options) (_ *Service, err error) {
 		return nil, fmt.Errorf("service: data directory: %w", err)
 	}
 
-	// Message server.
-	urls := cfg.Server.URLs
-	if len(urls) == 0 {
-		port := cfg.Server.EmbeddedPort
-		s.emb, err = natsource.StartEmbedded(ctx, natsource.EmbeddedConfig{
-			Port: port, StoreDir: filepath.Join(cfg.StateDir, "jetstream"), Users: embeddedUsers(cfg),
-		}, slog.New(minLevel{log.Handler(), slog.LevelWarn}).With("component", "nats-server"))
-		if err != nil {
-			return nil, err
-		}
-		urls = []string{s.emb.ClientURL()}
-		s.info.Embedded = true
-		log.Info("embedded NATS server started", "url", s.emb.ClientURL(), "store", filepath.Join(cfg.StateDir, "jetstream"))
-	}
-	s.met = newMetrics(s)
-	user, password := cfg.Server.User, cfg.Server.Password
-	if s.emb != nil && len(cfg.Server.Users) > 0 {
-		user, password = s.emb.ServiceUser()
-	}
-	s.conn, err = natsource.Connect(ctx, natsource.Options{
-		URLs: urls, Name: cfg.Server.Name,
-		User: user, Password: password, Token: cfg.Server.Token,
-		NKeySeedFile: cfg.Server.NKeySeedFile, CredentialsFile: cfg.Server.CredentialsFile,
-		TLS:     natsource.TLSOptions{CAFile: cfg.Server.TLS.CA, CertFile: cfg.Server.TLS.Cert, KeyFile: cfg.Server.TLS.Key},
-		OnEvent: func(e natsource.Event) { s.met.natsEvent(e); s.clusterEvent(e) },
-	}, log.With("component", "nats"))
-	if err != nil {
+	if err := s.connect(ctx); err != nil {
 		return nil, err
 	}
-	s.info.NATS = urls[0]
 	nc := s.conn.NATS()
-	prefix := cfg.Server.Prefix
-	s.info.Alerts = prefix + ".alerts.<unit>"
-	s.info.Scores = prefix + ".scores.<unit>"
-	s.info.Control = prefix + ".control"
-	perUser := len(cfg.Server.Users) > 0 || cfg.Server.ControlPerUser
-	if perUser {
-		s.info.Control = prefix + ".control.<user>"
-	}
 
 	// Alert sinks: the alerts subject always, then the configured ones.
 	if s.sinks, err = s.openSinks(nc); err != nil {
@@ -234,14 +203,96 @@ func Start(ctx context.Context, opt Options) (_ *Service, err error) {
 		log.Info("files read before going live", "files", cfg.Intake.Files)
 	}
 
+	if err := s.listen(ctx); err != nil {
+		return nil, err
+	}
+
+	// HTTP API.
+	if err := s.serveHTTP(); err != nil {
+		return nil, err
+	}
+
+	if cfg.Cluster.Enabled() {
+		if err := s.startCluster(ctx, chans, stream.Options{Align: pipeline.AlignConfig(cfg.Frames, period), Precision: prec}); err != nil {
+			return nil, err
+		}
+	}
+	s.wg.Add(1)
+	go s.checkpointLoop()
+	every, stall := tickTiming(period, cfg.Frames.Lateness)
+	s.wg.Add(1)
+	go s.tickLoop(every, stall)
+	s.wg.Add(1)
+	go s.stallLoop()
+	s.ready.Store(true)
+	log.Info("modewatch is running (advisory: it never acts on the plant)", "readings", s.info.Readings,
+		"alerts", s.info.Alerts, "scores", s.info.Scores, "http", s.info.HTTP, "period", period)
+	return s, nil
+}
+
+// connect starts the embedded message server when no server URL is
+// configured (with the configured users), and connects to the server.
+func (s *Service) connect(ctx context.Context) (err error) {
+	cfg, log := s.cfg, s.log
+	urls := cfg.Server.URLs
+	if len(urls) == 0 {
+		port := cfg.Server.EmbeddedPort
+		s.emb, err = natsource.StartEmbedded(ctx, natsource.EmbeddedConfig{
+			Port: port, StoreDir: filepath.Join(cfg.StateDir, "jetstream"), Users: embeddedUsers(cfg),
+		}, slog.New(minLevel{log.Handler(), slog.LevelWarn}).With("component", "nats-server"))
+		if err != nil {
+			return err
+		}
+		urls = []string{s.emb.ClientURL()}
+		s.info.Embedded = true
+		log.Info("embedded NATS server started", "url", s.emb.ClientURL(), "store", filepath.Join(cfg.StateDir, "jetstream"))
+	}
+	s.met = newMetrics(s)
+	user, password := cfg.Server.User, cfg.Server.Password
+	if s.emb != nil && len(cfg.Server.Users) > 0 {
+		user, password = s.emb.ServiceUser()
+	}
+	s.conn, err = natsource.Connect(ctx, natsource.Options{
+		URLs: urls, Name: cfg.Server.Name,
+		User: user, Password: password, Token: cfg.Server.Token,
+		NKeySeedFile: cfg.Server.NKeySeedFile, CredentialsFile: cfg.Server.CredentialsFile,
+		TLS:     natsource.TLSOptions{CAFile: cfg.Server.TLS.CA, CertFile: cfg.Server.TLS.Cert, KeyFile: cfg.Server.TLS.Key},
+		OnEvent: func(e natsource.Event) { s.met.natsEvent(e); s.clusterEvent(e) },
+	}, log.With("component", "nats"))
+	if err != nil {
+		return err
+	}
+	s.info.NATS = urls[0]
+	prefix := cfg.Server.Prefix
+	s.info.Alerts = prefix + ".alerts.<unit>"
+	s.info.Scores = prefix + ".scores.<unit>"
+	s.info.Control = prefix + ".control"
+	if s.perUser() {
+		s.info.Control = prefix + ".control.<user>"
+	}
+	return nil
+}
+
+// perUser says whether each operator has a control subject of their own,
+// so that a command's "by" is the authenticated user.
+func (s *Service) perUser() bool {
+	return len(s.cfg.Server.Users) > 0 || s.cfg.Server.ControlPerUser
+}
+
+// listen answers operator commands and starts the readings: in a cluster
+// each owned unit gets its own consumer later (startCluster); otherwise a
+// JetStream durable consumer when a stream is configured, core NATS
+// subjects if not.
+func (s *Service) listen(ctx context.Context) (err error) {
+	cfg, log, nc, prefix := s.cfg, s.log, s.conn.NATS(), s.cfg.Server.Prefix
 	// Operator commands on NATS.
-	if perUser { // each operator on its own subject: "by" is the user
+	if s.perUser() { // each operator on its own subject: "by" is the user
 		s.ctl, err = control.ListenPerUser(nc, prefix+".control", s.pl.Alerts(), log.With("component", "control"))
 	} else {
 		s.ctl, err = control.Listen(nc, s.info.Control, s.pl.Alerts(), log.With("component", "control"))
 	}
 	if err != nil {
-		return nil, err
+		return err
 	}
 
 	// Readings.
@@ -269,7 +320,7 @@ func Start(ctx context.Context, opt Options) (_ *Service, err error) {
 			AckWait: 2*cfg.CheckpointInterval + time.Minute,
 		}, s.onJetStream)
 		if err != nil {
-			return nil, err
+			return err
 		}
 		s.info.Readings = []string{"jetstream " + js.Stream + "/" + durable}
 	} else {
@@ -278,32 +329,11 @@ func Start(ctx context.Context, opt Options) (_ *Service, err error) {
 			QueueMsgs: cfg.Intake.Queue.Messages, QueueBytes: cfg.Intake.Queue.Bytes}, s.onCore)
 		cancel()
 		if err != nil {
-			return nil, err
+			return err
 		}
 		s.info.Readings = cfg.Intake.Subjects
 	}
-
-	// HTTP API.
-	if err := s.serveHTTP(); err != nil {
-		return nil, err
-	}
-
-	if cfg.Cluster.Enabled() {
-		if err := s.startCluster(ctx, chans, stream.Options{Align: pipeline.AlignConfig(cfg.Frames, period), Precision: prec}); err != nil {
-			return nil, err
-		}
-	}
-	s.wg.Add(1)
-	go s.checkpointLoop()
-	every, stall := tickTiming(period, cfg.Frames.Lateness)
-	s.wg.Add(1)
-	go s.tickLoop(every, stall)
-	s.wg.Add(1)
-	go s.stallLoop()
-	s.ready.Store(true)
-	log.Info("modewatch is running (advisory: it never acts on the plant)", "readings", s.info.Readings,
-		"alerts", s.info.Alerts, "scores", s.info.Scores, "http", s.info.HTTP, "period", period)
-	return s, nil
+	return nil
 }
 
 // Info returns where the service can be reached.

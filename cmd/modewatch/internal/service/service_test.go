@@ -20,6 +20,7 @@ import (
 	"modewatch/cmd/modewatch/internal/pipeline"
 	"modewatch/configs"
 	"modewatch/sim"
+	"modewatch/stream/natsource/natstest"
 )
 
 // fitDay1 fits a model on the fault-free first day of the demo scenario
@@ -169,8 +170,18 @@ func TestServiceEndToEnd(t *testing.T) {
 	if m, err := scores.NextMsg(5 * time.Second); err != nil || !bytes.HasPrefix(m.Data, []byte("modewatch_scores,unit=air ")) {
 		t.Errorf("score message %v: %v", m, err)
 	}
-	nc.Flush()
-	time.Sleep(200 * time.Millisecond)
+	// Every record the service holds reaches the alerts subject, at its
+	// latest revision (the NATS delivery works from a queue).
+	natstest.WaitFor(t, 10*time.Second, "every record on the alerts subject", func() bool {
+		mu.Lock()
+		defer mu.Unlock()
+		for _, r := range svc.Records() {
+			if latest[r.ID].Revision < r.Revision {
+				return false
+			}
+		}
+		return true
+	})
 
 	mu.Lock()
 	recs := make([]alerts.Record, 0, len(latest))

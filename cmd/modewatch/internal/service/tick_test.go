@@ -2,12 +2,14 @@ package service
 
 import (
 	"context"
+	"fmt"
 	"path/filepath"
 	"testing"
 	"time"
 
 	"modewatch/alerts"
 	"modewatch/configs"
+	"modewatch/stream/natsource/natstest"
 )
 
 // TestStalledUnitShelfExpires: when a unit's readings stop, the service
@@ -29,18 +31,16 @@ state_dir: `+filepath.Join(dir, "data")+`
 	svc, nc := startWithClient(t, Options{Config: cfg})
 
 	// Readings (invented) of unit tk until a missing-channel alert opens.
-	id := openMissingAlert(t, svc, nc)
+	id, t0 := openMissingAlertAt(t, svc, nc)
 	eng := svc.Pipeline().Alerts()
-	// Wait until the last frame is scored (the readings have stopped).
-	var last time.Time
-	for {
-		l := eng.LastFrame("tk")
-		if l.Equal(last) && !l.IsZero() {
-			break
-		}
-		last = l
-		time.Sleep(300 * time.Millisecond)
-	}
+	// Wait until the last frame is scored: the readings end at t0 + 499 s,
+	// and the frames of the last two seconds stay pending (the frame and
+	// one period of lateness), so the last frame scored starts at
+	// t0 + 497 s.
+	last := t0.Add(497 * time.Second)
+	natstest.WaitFor(t, 10*time.Second, fmt.Sprintf("last frame of unit tk at %v", last), func() bool {
+		return eng.LastFrame("tk").Equal(last)
+	})
 	frames, _, _ := svc.Pipeline().Frames()
 	// The late channel c is counted as warming, not as a quality alarm.
 	fams, err := svc.met.reg.Gather()

@@ -36,14 +36,10 @@
 // auto-discovered channel list grows during the log (a unit rebuilds its
 // model when a channel appears in warm-up). Re-reading keeps memory
 // bounded and the results identical, by construction, to separate
-// replays. The price, measured with BenchmarkReplayReport in package cli
-// (12 h of the demo, 50 channels, 2 shared cores): reading and framing is
-// about 38 % of a replay (18.6 ms of 49.0 ms), so in-memory frames could
-// make tune up to about 1.6 times faster.
+// replays. The price in time is measured in the package README.
 package tune
 
 import (
-	"errors"
 	"fmt"
 	"os"
 	"strconv"
@@ -118,20 +114,7 @@ func ParseGrid(name string, data []byte) (*Grid, error) {
 	}
 	var doc yaml.Node
 	if err := yaml.Unmarshal(data, &doc); err != nil {
-		e := &configs.Error{File: name, Msg: err.Error()}
-		var te *yaml.TypeError
-		if !errors.As(err, &te) {
-			// yaml.v3 syntax errors read "yaml: line N: ..."; keep the line.
-			msg := err.Error()
-			if rest, ok := strings.CutPrefix(msg, "yaml: line "); ok {
-				if i := strings.IndexByte(rest, ':'); i > 0 {
-					if ln, err := strconv.Atoi(rest[:i]); err == nil {
-						e.Line, e.Column, e.Msg = ln, 1, strings.TrimSpace(rest[i+1:])
-					}
-				}
-			}
-		}
-		return nil, configs.Errors{e}
+		return nil, configs.Errors{configs.YAMLError(name, err)}
 	}
 	if len(doc.Content) == 0 {
 		return nil, configs.Errors{{File: name, Msg: "the grid is empty: list at least one setting, e.g. alpha: [0.01, 0.001]"}}
