@@ -47,6 +47,11 @@ type stateModel struct {
 	score  tracker.Score // spare while the state is active (its score is u.score)
 	frames uint64        // frames of this state scored
 	fitted bool          // from the model file
+	// learnFrames: a state new to a fitted unit is learned for this many
+	// frames (alerts.accept_after of its own frame time) before its
+	// statistics may start incidents, like any new normal; 0: no such
+	// hold (a state of the fitted model, or accept_after never).
+	learnFrames uint64
 }
 
 // holdWindow holds frames after one transition (fit).
@@ -186,10 +191,17 @@ func (u *Unit) newState(key float64, t time.Time) int {
 			return s.cur
 		}
 	}
-	s.models = append(s.models, &stateModel{key: key, tr: tr})
+	m := &stateModel{key: key, tr: tr}
+	s.models = append(s.models, m)
 	if u.baseline && !u.p.opt.Fit {
-		text := fmt.Sprintf("new operating state %s=%s: not in the fitted model; its model is learned from now on (warming up, no statistics until then)",
-			s.channel, s.label(key))
+		after := u.acceptAfter()
+		m.learnFrames = learnFrames(after, u.p.opt.Period)
+		text := fmt.Sprintf("new operating state %s=%s: not in the fitted model; its model is learned from now on and its statistics start no incident before it has run %v (accept_after), like any new normal",
+			s.channel, s.label(key), after)
+		if m.learnFrames == 0 {
+			text = fmt.Sprintf("new operating state %s=%s: not in the fitted model; its model is learned from now on (warming up, no statistics until then)",
+				s.channel, s.label(key))
+		}
 		u.p.log.Info("new operating state", "unit", u.Name, "state_channel", s.channel, "state", s.label(key), "time", t)
 		u.p.alerts.Notice(u.Name, alerts.GroupState, s.label(key), text, t)
 	}
@@ -238,8 +250,47 @@ func (s *unitStates) keepWindow(x []float64, miss []bool) {
 }
 
 // inHoldOff reports whether the latest frame lies within the hold-off
-// after a transition.
-func (s *unitStates) inHoldOff() bool { return s.since < s.holdOff }
+// after a transition, or in a new state still being learned.
+func (s *unitStates) inHoldOff() bool {
+	if s.since < s.holdOff {
+		return true
+	}
+	return s.cur >= 0 && s.models[s.cur].learning()
+}
+
+// learning reports whether a new state is still within its first
+// accept_after of frames.
+func (m *stateModel) learning() bool { return m.frames < m.learnFrames }
+
+// learnFrames returns the frames of period in the bounded hold after (at
+// least one; 0 when after is negative: never).
+func learnFrames(after, period time.Duration) uint64 {
+	if after < 0 || period <= 0 {
+		return 0
+	}
+	return uint64(max(1, (after+period-1)/period))
+}
+
+// acceptAfter returns the unit's bounded hold (alerts.accept_after, the
+// alarm engine's default when unset; negative: never).
+func (u *Unit) acceptAfter() time.Duration {
+	if h := u.p.cfg.AlertsFor(u.Name).AcceptAfter; h != 0 {
+		return h
+	}
+	return alerts.DefaultAcceptAfter
+}
+
+// stateLearned publishes the notice that the current state, new to the
+// fitted model, has been learned for accept_after and is scored from now
+// on. It is called once its frames reach learnFrames.
+func (u *Unit) stateLearned(t time.Time) {
+	s := u.states
+	m := s.models[s.cur]
+	text := fmt.Sprintf("operating state %s=%s learned: %d frames since it was new; its statistics start incidents from now on",
+		s.channel, s.label(m.key), m.frames)
+	u.p.log.Info("new operating state learned", "unit", u.Name, "state_channel", s.channel, "state", s.label(m.key), "time", t)
+	u.p.alerts.Notice(u.Name, alerts.GroupState, s.label(m.key)+":learned", text, t)
+}
 
 // learnHoldOff sets the hold-off from the transition windows, scoring each
 // with the finished (refreshed) model of its state.
@@ -282,6 +333,11 @@ type StateModel struct {
 	State  []byte     `json:"state"`
 	// DriverSlopes: the state model's regression on the context channels.
 	DriverSlopes []float64 `json:"driver_slopes,omitempty"`
+	// Online: a state new to the fitted model, learned in the run that
+	// wrote this checkpoint; LearnFrames its bounded hold in frames
+	// (stateModel.learnFrames). Absent in fitted models.
+	Online      bool   `json:"online,omitempty"`
+	LearnFrames uint64 `json:"learn_frames,omitempty"`
 }
 
 // StatesFile is the operating-state part of a model unit.
@@ -323,7 +379,7 @@ func (u *Unit) statesBaseline(withLimits bool) (*StatesFile, int, error) {
 			continue
 		}
 		sm := StateModel{Key: m.key, Label: s.label(m.key), Frames: m.frames, Modes: u.modesOf(m.tr), State: b,
-			DriverSlopes: u.driverSlopes(m.tr, u.p.opt.Fit)}
+			DriverSlopes: u.driverSlopes(m.tr, u.p.opt.Fit), Online: !m.fitted && !u.p.opt.Fit, LearnFrames: m.learnFrames}
 		if withLimits {
 			sm.Limits = limitsOf(m.tr)
 		}
@@ -363,7 +419,7 @@ func (u *Unit) restoreStates(sf *StatesFile, p int, cfg tracker.Config) error {
 		if len(s.models) >= tracker.MaxStates {
 			return fmt.Errorf("more than %d operating states", tracker.MaxStates)
 		}
-		s.models = append(s.models, &stateModel{key: sm.Key, tr: tr, frames: sm.Frames, fitted: true})
+		s.models = append(s.models, &stateModel{key: sm.Key, tr: tr, frames: sm.Frames, fitted: !sm.Online, learnFrames: sm.LearnFrames})
 		u.restoreSlopes(tr, sm.DriverSlopes)
 	}
 	if len(s.models) == 0 {
@@ -377,13 +433,16 @@ func (u *Unit) restoreStates(sf *StatesFile, p int, cfg tracker.Config) error {
 
 // StateView describes one operating state for the API and reports.
 type StateView struct {
-	Key     float64    `json:"key"`
-	Label   string     `json:"label"`
-	Frames  uint64     `json:"frames"`
-	Fitted  bool       `json:"fitted"` // in the fitted model (false: new, learned online)
-	Current bool       `json:"current"`
-	Model   string     `json:"model_state"`
-	Modes   []ModeView `json:"modes"`
+	Key    float64 `json:"key"`
+	Label  string  `json:"label"`
+	Frames uint64  `json:"frames"`
+	Fitted bool    `json:"fitted"` // in the fitted model (false: new, learned online)
+	// Learning: a new state within its first accept_after; its
+	// statistics start no incident yet.
+	Learning bool       `json:"learning,omitempty"`
+	Current  bool       `json:"current"`
+	Model    string     `json:"model_state"`
+	Modes    []ModeView `json:"modes"`
 }
 
 // statesView lists the unit's states (nil without states).
@@ -404,7 +463,7 @@ func (u *Unit) statesView() []StateView {
 			st = "adapting"
 		}
 		out = append(out, StateView{Key: m.key, Label: s.label(m.key), Frames: m.frames, Fitted: m.fitted,
-			Current: i == s.cur, Model: st, Modes: u.modesOf(m.tr)})
+			Learning: m.learning(), Current: i == s.cur, Model: st, Modes: u.modesOf(m.tr)})
 	}
 	return out
 }

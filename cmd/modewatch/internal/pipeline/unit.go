@@ -330,7 +330,10 @@ func (u *Unit) stepModel(f *stream.Frame) {
 	}
 	u.frames++
 	if u.states != nil {
-		u.states.models[u.states.cur].frames++
+		m := u.states.models[u.states.cur]
+		if m.frames++; m.learnFrames > 0 && m.frames == m.learnFrames {
+			u.stateLearned(f.Start)
+		}
 	}
 	if u.firstT.IsZero() {
 		u.firstT = f.Start
