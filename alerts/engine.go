@@ -738,6 +738,9 @@ func (e *Engine) checkGroup(u *unit, g *group, t time.Time) {
 }
 
 func (e *Engine) closeIncident(inc *incident, t time.Time, reason string) {
+	if t.Before(inc.start) {
+		t = inc.start // a silent unit's first frame, stamped before its alert (SilenceUnseen)
+	}
 	inc.end, inc.ended, inc.endReason = t.UTC(), true, reason
 	if inc.g != nil {
 		e.refreshStates(inc)

@@ -128,3 +128,35 @@ func TestSilence(t *testing.T) {
 		t.Errorf("silent alert ended %v, want at the returning frame", last.End)
 	}
 }
+
+// TestSilenceUnseen: a unit without frames in this run (known from the
+// configuration or a model file) raises one silent alert however often it
+// is told, and its first frame closes it, at the alert's start when the
+// frame is stamped before it (the service's estimate of the plant's clock
+// may run ahead of the gateway's).
+func TestSilenceUnseen(t *testing.T) {
+	h := newHarness(t, Config{})
+	t0 := time.Date(2026, 3, 2, 8, 0, 0, 0, time.UTC)
+	for k := 0; k < 3; k++ {
+		if !h.e.SilenceUnseen("u", t0.Add(time.Duration(k)*time.Second)) {
+			t.Fatalf("SilenceUnseen %d not stepped", k)
+		}
+	}
+	if h.e.SilenceUnseen("u", t0) {
+		t.Error("SilenceUnseen stepped at a time already passed")
+	}
+	open := h.e.Open(nil)
+	if len(open) != 1 || open[0].Quality == nil || open[0].Quality.Kind != QualitySilent || open[0].Quality.Channel != "u" {
+		t.Fatalf("open alerts %+v, want one silent alert of unit u", open)
+	}
+	if err := h.e.Observe(&Observation{Unit: "u", Time: t0.Add(-500 * time.Millisecond), ModelState: ModelAdapting}); err != nil {
+		t.Fatalf("first frame refused: %v", err)
+	}
+	if open := h.e.Open(nil); len(open) != 0 {
+		t.Errorf("silent alert still open after the unit's first frame: %+v", open)
+	}
+	last := h.recs[len(h.recs)-1]
+	if last.End == nil || !last.End.Equal(t0) {
+		t.Errorf("silent alert ended %v, want at its start %v", last.End, t0)
+	}
+}

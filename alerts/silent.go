@@ -29,3 +29,33 @@ func (e *Engine) Silence(unit string, t time.Time) bool {
 	e.endTimers(u, t)
 	return true
 }
+
+// SilenceUnseen is [Engine.Silence] for a unit that has had no frame in
+// this run: a unit the service knows from its configuration, model file or
+// checkpoint whose gateway has sent nothing since start-up. The live
+// service calls it once the run is older than the staleness limit, with t
+// its best estimate of the plant's frame time. It raises (or keeps) the
+// unit's silent condition at t; the unit's first frame, whatever its time,
+// closes it (at the alert's start at the earliest). A unit that has frames
+// is handled as by Silence; a unit in maintenance changes nothing.
+func (e *Engine) SilenceUnseen(unit string, t time.Time) bool {
+	if unit == "" || t.IsZero() {
+		return false
+	}
+	e.mu.Lock()
+	u := e.units[unit]
+	if u != nil && u.seen {
+		e.mu.Unlock()
+		return e.Silence(unit, t)
+	}
+	defer e.mu.Unlock()
+	u = e.unit(unit)
+	if u.maint || !t.After(u.tick) && !u.tick.IsZero() {
+		return false
+	}
+	e.startTimers(u, t)
+	u.seq++
+	e.stepQuality(u, QualitySilent, unit, true, t, &Observation{Unit: unit, Time: t})
+	e.endTimers(u, t)
+	return true
+}

@@ -606,6 +606,7 @@ func (s *Service) tickLoop(every, stall time.Duration) {
 func (s *Service) tickUnits(now time.Time, stall time.Duration) int {
 	eng := s.pl.Alerts()
 	n := 0
+	s.silenceUnseen(now)
 	for _, u := range s.pl.Units() {
 		// The frame time first: a frame scored between the two reads
 		// moves the wall time too and the unit is not stalled.
@@ -631,6 +632,45 @@ func (s *Service) tickUnits(now time.Time, stall time.Duration) int {
 		}
 	}
 	return n
+}
+
+// silenceUnseen raises the silent alert of every unit the service knows
+// (from the configuration's units, the model file or a checkpoint) that has
+// had no frame since start-up, once the run is older than the staleness
+// limit: its gateway has been silent from the start, so no frame of it is
+// ever formed. The alert is stamped with the plant's frame time as the
+// other units show it (their latest frame plus the wall time since), or
+// the wall clock when no unit has a frame; the unit's first frame closes
+// it.
+func (s *Service) silenceUnseen(now time.Time) {
+	if now.Sub(s.started) <= s.pl.Staleness() {
+		return
+	}
+	eng := s.pl.Alerts()
+	names := make(map[string]bool, len(s.cfg.Units))
+	for i := range s.cfg.Units {
+		names[s.cfg.Units[i].Name] = true
+	}
+	plant := time.Time{}
+	for _, u := range s.pl.Units() {
+		names[u.Name] = true
+		s.clockMu.Lock()
+		wall, ok := s.lastWall[u.Name]
+		s.clockMu.Unlock()
+		if last := eng.LastFrame(u.Name); ok && !last.IsZero() {
+			if t := last.Add(now.Sub(wall)); t.After(plant) {
+				plant = t
+			}
+		}
+	}
+	if plant.IsZero() {
+		plant = now
+	}
+	for name := range names {
+		if eng.LastFrame(name).IsZero() {
+			eng.SilenceUnseen(name, plant)
+		}
+	}
 }
 
 // Wait blocks until ctx is done, then shuts the service down within the
