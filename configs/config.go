@@ -278,7 +278,10 @@ type Unit struct {
 	// each band of its values, is one operating state with a model of its
 	// own. StateAuto lets fit find the states from the normal log (a
 	// Gaussian mixture on the leading mode scores, the number of states by
-	// BIC). Empty: one model for all states.
+	// BIC). Empty: fit splits the unit by a status channel of its own
+	// when one is clear (a few integer values held for long runs, in one
+	// of which another channel of the unit rests, as a stopped machine's
+	// speed), else one model for all states. StateNone: one model.
 	State string `yaml:"state"`
 	// StateBands are ascending band edges of the state channel's values:
 	// band 0 is below the first edge, band i from edge i-1 (inclusive) to

@@ -14,6 +14,10 @@ import (
 // StateAuto as units[].state lets fit find the unit's operating states.
 const StateAuto = "auto"
 
+// StateNone as units[].state keeps the unit one model: fit does not look
+// for a status channel that would split it into operating states.
+const StateNone = "none"
+
 func (c *Config) validateDrivers(v *validator, names map[string]int, owner map[string]int) {
 	known := func(path, ch string) {
 		if ch == "" {
@@ -31,7 +35,9 @@ func (c *Config) validateDrivers(v *validator, names map[string]int, owner map[s
 		switch {
 		case u.State == StateAuto && len(u.StateBands) > 0:
 			v.add(p+".state_bands", "bands apply to a state channel, not to found states (state: auto)")
-		case u.State != "" && u.State != StateAuto:
+		case u.State == StateNone && len(u.StateBands) > 0:
+			v.add(p+".state_bands", "bands apply to a state channel, not to state: none")
+		case u.State != "" && u.State != StateAuto && u.State != StateNone:
 			known(p+".state", u.State)
 		case u.State == "" && len(u.StateBands) > 0:
 			v.add(p+".state_bands", "bands without a state channel (set units[%d].state)", ui)

@@ -304,7 +304,7 @@ func (p *Pipeline) buildFromModel(mu *ModelUnit, period time.Duration) (*Unit, e
 		if err := u.restoreStates(mu.States, len(mu.Channels), cfg); err != nil {
 			return nil, fmt.Errorf("%w: unit %s: %v", ErrModelFile, mu.Name, err)
 		}
-	} else if i := p.cfg.Unit(mu.Name); i >= 0 && p.cfg.Units[i].State != "" && !p.isAuto(mu.Name) {
+	} else if i := p.cfg.Unit(mu.Name); i >= 0 && p.cfg.Units[i].State != "" && p.cfg.Units[i].State != configs.StateNone && !p.isAuto(mu.Name) {
 		p.log.Warn("the unit's model was fitted without operating states; it is scored by its one model (fit again to use units[].state)",
 			"unit", mu.Name, "state_channel", p.cfg.Units[i].State)
 	}
@@ -348,7 +348,11 @@ func (p *Pipeline) Baseline() (*ModelFile, error) {
 			continue
 		}
 		var sf *StatesFile
-		if u.autoBuf != nil {
+		if u.autoBuf != nil && !p.isAuto(u.Name) {
+			if ch := u.findGateStates(); ch != "" {
+				p.log.Info("operating states by a status channel found", "unit", u.Name, "state_channel", ch, "states", len(u.states.models))
+			}
+		} else if u.autoBuf != nil {
 			k, err := u.findStates()
 			if err != nil {
 				errs = append(errs, fmt.Errorf("unit %s: finding operating states: %w (fitted as one model)", u.Name, err))

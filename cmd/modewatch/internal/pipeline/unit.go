@@ -104,8 +104,11 @@ func newUnit(p *Pipeline, name string) *Unit {
 		if p.opt.Fit {
 			u.autoBuf = &autoBuffer{stride: 1} // states found at the end (autostates.go)
 		}
+	case i >= 0 && p.cfg.Units[i].State == configs.StateNone:
 	case i >= 0 && p.cfg.Units[i].State != "":
 		u.states = newStates(p.cfg.Units[i].State, p.cfg.Units[i].StateBands)
+	case p.wantsGateStates(name):
+		u.autoBuf = &autoBuffer{stride: 1} // a status channel looked for at the end (gatestates.go)
 	}
 	u.context = slices.Clone(p.contextOf(name))
 	u.staticIfNeeded()
