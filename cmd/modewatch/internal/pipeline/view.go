@@ -91,6 +91,13 @@ type UnitView struct {
 	// with its own modes (absent for a unit with one model).
 	State  string      `json:"state,omitempty"`
 	States []StateView `json:"states,omitempty"`
+	// StateChannel is the channel whose values are the states ("auto":
+	// found by fit); HoldOffFrames the frames after a switch that start
+	// no incident, InHoldOff whether the latest frame lies in them (or in
+	// a new state still being learned).
+	StateChannel  string `json:"state_channel,omitempty"`
+	HoldOffFrames int    `json:"hold_off_frames,omitempty"`
+	InHoldOff     bool   `json:"in_hold_off,omitempty"`
 	// MaxChannels is the unit's channel cap; RefusedChannels counts the
 	// channels refused at it, RefusedExamples names the first few.
 	MaxChannels     int      `json:"max_channels"`
@@ -143,6 +150,9 @@ func (u *Unit) View(t time.Time) UnitView {
 		Modes: u.modesView(), State: u.CurrentState(), States: u.statesView(),
 		MaxChannels: u.model.MaxChannels, RefusedChannels: u.refused, RefusedExamples: append([]string(nil), u.refusedEx...),
 		MemoryBytes: u.memoryBytes(),
+	}
+	if s := u.states; s != nil {
+		v.StateChannel, v.HoldOffFrames, v.InHoldOff = s.channel, s.holdOff, s.cur >= 0 && s.inHoldOff()
 	}
 	if u.failed != nil {
 		v.Error = u.failed.Error()
