@@ -641,9 +641,11 @@ func (s *Service) tickUnits(now time.Time, stall time.Duration) int {
 // ever formed. The alert is stamped with the plant's frame time as the
 // other units show it (their latest frame plus the wall time since), or
 // the wall clock when no unit has a frame; the unit's first frame closes
-// it.
+// it. In a cluster it does nothing: which units this instance should hear
+// from is the lease holder's business, and a unit it takes is restored
+// from its checkpoint (so it has frames).
 func (s *Service) silenceUnseen(now time.Time) {
-	if now.Sub(s.started) <= s.pl.Staleness() {
+	if s.clu != nil || now.Sub(s.started) <= s.pl.Staleness() {
 		return
 	}
 	eng := s.pl.Alerts()
