@@ -2,7 +2,6 @@ package pipeline
 
 import (
 	"bytes"
-	"context"
 	"fmt"
 	"math"
 	"math/rand/v2"
@@ -48,15 +47,7 @@ func TestFitFindsStatusChannel(t *testing.T) {
 		if err != nil {
 			t.Fatal(err)
 		}
-		res, err := Replay(context.Background(), ReplayOptions{Config: cfg, Inputs: []string{"-"},
-			Stdin: bytes.NewReader(gPlant(8640, true)), Fit: true})
-		if err != nil {
-			t.Fatal(err)
-		}
-		m, err := res.Pipeline.Baseline()
-		if err != nil {
-			t.Fatal(err)
-		}
+		m := fitBytes(t, cfg, gPlant(8640, true))
 		if len(m.Units) != 1 {
 			t.Fatalf("%d units", len(m.Units))
 		}

@@ -7,7 +7,15 @@ import (
 	"time"
 
 	"modewatch/alerts"
+	"modewatch/configs"
 )
+
+// sFit fits cfg on the normal days of the two-state plant and returns the
+// model file.
+func sFit(t *testing.T, cfg *configs.Config) *ModelFile {
+	t.Helper()
+	return fitBytes(t, cfg, sPlant(0, sNormal, nil, nil, 1, 0, false))
+}
 
 // TestNewStateLearnedAfterAcceptAfter: a state never seen in the fitted
 // model is learned for alerts.accept_after of its own frames before its
@@ -32,15 +40,7 @@ func TestNewStateLearnedAfterAcceptAfter(t *testing.T) {
 	earlyFault := func(k int) bool { return k >= early && k < end }
 	lateFault := func(k int) bool { return k >= late && k < lateEnd }
 	fitCfg := sConfig(t, "units: [{name: mix, state: ctl.a.mode, state_bands: [0.5, 1.5]}]\n")
-	res, err := Replay(context.Background(), ReplayOptions{Config: fitCfg, Inputs: []string{"-"},
-		Stdin: bytes.NewReader(sPlant(0, sNormal, nil, nil, 1, 0, false)), Fit: true})
-	if err != nil {
-		t.Fatal(err)
-	}
-	m, err := res.Pipeline.Baseline()
-	if err != nil {
-		t.Fatal(err)
-	}
+	m := sFit(t, fitCfg)
 	at := func(k int) time.Time { return sStart.Add(time.Duration(k) * sPeriod) }
 	run := func(acceptAfter string, fault func(int) bool) (earlyInc, lateInc int, notices []*alerts.Record, p *Pipeline) {
 		data := bytes.ReplaceAll(sPlant(sNormal, sNormal+8640, nil, fault, 2, 0, false), []byte("mode=1i"), []byte("mode=2i"))

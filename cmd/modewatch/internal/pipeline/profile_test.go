@@ -83,8 +83,15 @@ const qDay = 8640 // frames of 10 s in a day
 // qFit fits the plant's normal day and returns the model file.
 func qFit(t *testing.T, cfg *configs.Config) *ModelFile {
 	t.Helper()
+	return fitBytes(t, cfg, qPlant(0, qDay, qEvents{}, 1))
+}
+
+// fitBytes fits cfg on the line protocol of data and returns the model
+// file.
+func fitBytes(t *testing.T, cfg *configs.Config, data []byte) *ModelFile {
+	t.Helper()
 	res, err := Replay(context.Background(), ReplayOptions{Config: cfg, Inputs: []string{"-"},
-		Stdin: bytes.NewReader(qPlant(0, qDay, qEvents{}, 1)), Fit: true})
+		Stdin: bytes.NewReader(data), Fit: true})
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -230,15 +230,8 @@ func TestOperatingStates(t *testing.T) {
 // warms up) and starts no alert while it warms up.
 func TestNewOperatingState(t *testing.T) {
 	cfg := sConfig(t, "units: [{name: mix, state: ctl.a.mode, state_bands: [0.5, 1.5]}]\n")
-	res, err := Replay(context.Background(), ReplayOptions{Config: cfg, Inputs: []string{"-"},
-		Stdin: bytes.NewReader(sPlant(0, sNormal, nil, nil, 1, 0, false)), Fit: true})
-	if err != nil {
-		t.Fatal(err)
-	}
-	m, err := res.Pipeline.Baseline()
-	if err != nil {
-		t.Fatal(err)
-	}
+	m := sFit(t, cfg)
+	var err error
 	// Test day: mode reads 2 (band 2, never seen) in state 1's periods.
 	data := bytes.ReplaceAll(sPlant(sNormal, sNormal+8640, nil, nil, 2, 0, false), []byte("mode=1i"), []byte("mode=2i"))
 	var notices, incidents int

@@ -11,6 +11,8 @@ import (
 
 	"modewatch/alerts"
 	"modewatch/configs"
+
+	"github.com/nats-io/nats.go"
 )
 
 // qLines writes frames [from, to) of a small invented plant at 1 s: unit
@@ -40,6 +42,34 @@ func qLines(b *bytes.Buffer, t0 time.Time, from, to int, rest, frozen, svOff fun
 	}
 }
 
+// qService fits a model on normal frames [0, n) of qLines (seeded with
+// seed), starts the service from it with the embedded NATS server at a
+// 1 s period and the YAML lines of extra, and returns it with a client,
+// the plant's start time (3 h ago) and the random source, for the frames
+// that follow.
+func qService(t *testing.T, seed uint64, n int, extra string) (*Service, *nats.Conn, time.Time, *rand.Rand) {
+	t.Helper()
+	dir := t.TempDir()
+	never := func(int) bool { return false }
+	rng := rand.New(rand.NewPCG(seed, seed+1))
+	t0 := time.Now().Add(-3 * time.Hour).Truncate(time.Second)
+	var normal bytes.Buffer
+	qLines(&normal, t0, 0, n, never, never, never, rng)
+	modelFile := fitFile(t, dir, time.Second, &normal)
+	scfg, err := configs.Parse("q.yaml", []byte(`
+frames: {period: 1s}
+server: {embedded_port: -1}
+model: {file: `+modelFile+`}
+state_dir: `+filepath.Join(dir, "data")+`
+`+extra+`
+`))
+	if err != nil {
+		t.Fatal(err)
+	}
+	svc, nc := startWithClient(t, Options{Config: scfg})
+	return svc, nc, t0, rng
+}
+
 // TestServiceQualityRules runs the learned data-quality rules in the live
 // service with its embedded NATS server (invented data; behaviour test).
 // After a fit on 3000 normal frames it receives 1500 frames in which the
@@ -50,24 +80,7 @@ func qLines(b *bytes.Buffer, t0 time.Time, from, to int, rest, frozen, svOff fun
 // within 3 periods of its outage, closed by its return; and, once nothing
 // arrives, a silent alert of each unit by the wall clock.
 func TestServiceQualityRules(t *testing.T) {
-	dir := t.TempDir()
-	never := func(int) bool { return false }
-	rng := rand.New(rand.NewPCG(3, 4))
-	t0 := time.Now().Add(-3 * time.Hour).Truncate(time.Second)
-	var normal bytes.Buffer
-	qLines(&normal, t0, 0, 3000, never, never, never, rng)
-	modelFile := fitFile(t, dir, time.Second, &normal)
-	scfg, err := configs.Parse("q.yaml", []byte(`
-frames: {period: 1s}
-server: {embedded_port: -1}
-http: {listen: "off"}
-model: {file: `+modelFile+`}
-state_dir: `+filepath.Join(dir, "data")+`
-`))
-	if err != nil {
-		t.Fatal(err)
-	}
-	svc, nc := startWithClient(t, Options{Config: scfg})
+	svc, nc, t0, rng := qService(t, 3, 3000, `http: {listen: "off"}`)
 
 	const (
 		restFrom, restTo     = 3200, 3800

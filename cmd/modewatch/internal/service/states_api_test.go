@@ -2,13 +2,10 @@ package service
 
 import (
 	"bytes"
-	"math/rand/v2"
-	"path/filepath"
 	"testing"
 	"time"
 
 	"modewatch/cmd/modewatch/internal/pipeline"
-	"modewatch/configs"
 )
 
 // TestAPIUnitsStates: a model fitted with default settings on a log where
@@ -18,24 +15,8 @@ import (
 // hold-off and each state with its own modes, exactly one of them current
 // (invented data; behaviour test with the embedded NATS server).
 func TestAPIUnitsStates(t *testing.T) {
-	dir := t.TempDir()
 	never := func(int) bool { return false }
-	rng := rand.New(rand.NewPCG(9, 10))
-	t0 := time.Now().Add(-3 * time.Hour).Truncate(time.Second)
-	var normal bytes.Buffer
-	qLines(&normal, t0, 0, 6000, never, never, never, rng)
-	modelFile := fitFile(t, dir, time.Second, &normal)
-	scfg, err := configs.Parse("q.yaml", []byte(`
-frames: {period: 1s}
-server: {embedded_port: -1}
-http: {listen: "127.0.0.1:0", open_access: true}
-model: {file: `+modelFile+`}
-state_dir: `+filepath.Join(dir, "data")+`
-`))
-	if err != nil {
-		t.Fatal(err)
-	}
-	svc, nc := startWithClient(t, Options{Config: scfg})
+	svc, nc, t0, rng := qService(t, 9, 6000, `http: {listen: "127.0.0.1:0", open_access: true}`)
 	var b bytes.Buffer
 	qLines(&b, t0, 6000, 6300, never, never, never, rng)
 	if err := nc.Publish("modewatch.readings.q", b.Bytes()); err != nil {

@@ -4,14 +4,11 @@ import (
 	"bytes"
 	"fmt"
 	"math"
-	"math/rand/v2"
-	"path/filepath"
 	"sync/atomic"
 	"testing"
 	"time"
 
 	"modewatch/alerts"
-	"modewatch/configs"
 )
 
 // TestServiceSilentFromStart runs the live service with its embedded NATS
@@ -24,25 +21,8 @@ import (
 // formed), ot none; when sv's gateway starts sending, its first data
 // closes its alert, and no second one opens.
 func TestServiceSilentFromStart(t *testing.T) {
-	dir := t.TempDir()
-	never := func(int) bool { return false }
-	rng := rand.New(rand.NewPCG(5, 6))
-	t0 := time.Now().Add(-3 * time.Hour).Truncate(time.Second)
-	var normal bytes.Buffer
-	qLines(&normal, t0, 0, 3000, never, never, never, rng)
-	modelFile := fitFile(t, dir, time.Second, &normal)
-	scfg, err := configs.Parse("q.yaml", []byte(`
-frames: {period: 1s}
-server: {embedded_port: -1}
-http: {listen: "off"}
-model: {file: `+modelFile+`}
-state_dir: `+filepath.Join(dir, "data")+`
-units: [{name: cf, channels: [cf.g.level]}]
-`))
-	if err != nil {
-		t.Fatal(err)
-	}
-	svc, nc := startWithClient(t, Options{Config: scfg})
+	svc, nc, _, rng := qService(t, 5, 3000, `http: {listen: "off"}
+units: [{name: cf, channels: [cf.g.level]}]`)
 	started := time.Now()
 
 	// Live readings: ot from the start, sv once svOn is set.
@@ -152,23 +132,7 @@ units: [{name: cf, channels: [cf.g.level]}]
 // staleness limit plus two tick intervals of start-up (invented data;
 // behaviour test with the embedded NATS server).
 func TestServiceSilentNothingArrives(t *testing.T) {
-	dir := t.TempDir()
-	never := func(int) bool { return false }
-	rng := rand.New(rand.NewPCG(7, 8))
-	var normal bytes.Buffer
-	qLines(&normal, time.Now().Add(-3*time.Hour).Truncate(time.Second), 0, 3000, never, never, never, rng)
-	modelFile := fitFile(t, dir, time.Second, &normal)
-	scfg, err := configs.Parse("q.yaml", []byte(`
-frames: {period: 1s}
-server: {embedded_port: -1}
-http: {listen: "off"}
-model: {file: `+modelFile+`}
-state_dir: `+filepath.Join(dir, "data")+`
-`))
-	if err != nil {
-		t.Fatal(err)
-	}
-	svc, _ := startWithClient(t, Options{Config: scfg})
+	svc, _, _, _ := qService(t, 7, 3000, `http: {listen: "off"}`)
 	started := time.Now()
 	bound := svc.pl.Staleness() + 3*time.Second
 	deadline := started.Add(bound + 10*time.Second)
