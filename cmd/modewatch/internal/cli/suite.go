@@ -49,7 +49,12 @@ type suiteRow struct {
 	PastHold         int                    `json:"open_past_hold"`
 	LongestPastHoldS float64                `json:"longest_past_hold_s"`
 	Kinds            map[string]suiteDetect `json:"by_kind"`
-	Error            string                 `json:"error,omitempty"`
+	// AtSwitch lists the alerts matched to no fault that start within
+	// suiteSwitchWindow after a machine start or stop, a status change or
+	// a driver move, or name a status channel (switchAlerts): the issue's
+	// target is none.
+	AtSwitch []string `json:"at_switch"`
+	Error    string   `json:"error,omitempty"`
 }
 
 // suiteDetect counts the episodes of one fault kind and how many were
@@ -179,7 +184,8 @@ func runSuitePlant(ctx context.Context, dir string, p suitePlant, opt suiteOptio
 	}
 	var out bytes.Buffer
 	quiet.Out = &out
-	if err := runReplay(ctx, quiet, append(slices.Clone(cfgArgs), "--quiet", "--json", "--model", model, "--truth", files.Truth, files.Test)); err != nil {
+	alertsFile := filepath.Join(dir, "alerts.jsonl")
+	if err := runReplay(ctx, quiet, append(slices.Clone(cfgArgs), "--quiet", "--json", "--model", model, "--truth", files.Truth, "--alerts", alertsFile, files.Test)); err != nil {
 		return fail(fmt.Errorf("replay: %w %s", err, strings.TrimSpace(errb.String())))
 	}
 	var sum summary
@@ -197,6 +203,17 @@ func runSuitePlant(ctx context.Context, dir string, p suitePlant, opt suiteOptio
 	}
 	tr, err := evaluate.ReadTruth(files.Truth)
 	if err != nil {
+		return fail(err)
+	}
+	sw, status, err := plantSwitches(s, s.Split, to)
+	if err != nil {
+		return fail(err)
+	}
+	matched := map[string]bool{}
+	for _, m := range row.Metrics.Matches {
+		matched[m.Alert] = true
+	}
+	if row.AtSwitch, err = switchAlerts(alertsFile, matched, sw, status); err != nil {
 		return fail(err)
 	}
 	for i, e := range tr.Episodes {
@@ -240,6 +257,14 @@ func printSuite(w io.Writer, rows []suiteRow) {
 	tw.Flush()
 	fmt.Fprintln(w, "days: normal + test. open share: the largest share of a unit's normal time (outside its own faults ± 15 min) with an alert open.")
 	fmt.Fprintln(w, "past hold: alerts open longer than their fault (± 15 min; none: their start) plus accept_after, and the longest overrun (target 0).")
+	parts := make([]string, 0, len(rows))
+	for _, r := range rows {
+		if r.Error == "" {
+			parts = append(parts, fmt.Sprintf("%s %d", r.Plant, len(r.AtSwitch)))
+		}
+	}
+	fmt.Fprintf(w, "at a switch: false alerts starting within %v after a machine start or stop, a status change or a planned move, or naming a status channel (target 0; listed in --json): %s\n",
+		suiteSwitchWindow, strings.Join(parts, ", "))
 	// Detection by fault kind, over all plants.
 	kinds := map[string]suiteDetect{}
 	var names []string
@@ -255,7 +280,7 @@ func printSuite(w io.Writer, rows []suiteRow) {
 		}
 	}
 	slices.Sort(names)
-	parts := make([]string, len(names))
+	parts = make([]string, len(names))
 	for i, k := range names {
 		parts[i] = fmt.Sprintf("%s %d/%d", k, kinds[k].Detected, kinds[k].Episodes)
 	}
