@@ -4,6 +4,7 @@ import (
 	"bufio"
 	"encoding/json"
 	"fmt"
+	"io"
 	"math"
 	"os"
 	"slices"
@@ -123,7 +124,13 @@ func switchAlerts(path string, matched map[string]bool, sw []suiteSwitch, status
 		return nil, err
 	}
 	defer f.Close()
-	sc := bufio.NewScanner(f)
+	return readSwitchAlerts(f, path, matched, sw, status)
+}
+
+// readSwitchAlerts is switchAlerts reading the records from r (named
+// path in errors).
+func readSwitchAlerts(r io.Reader, path string, matched map[string]bool, sw []suiteSwitch, status map[string]bool) ([]string, error) {
+	sc := bufio.NewScanner(r)
 	sc.Buffer(make([]byte, 0, 64<<10), 16<<20)
 	out := []string{}
 	done := map[string]bool{}

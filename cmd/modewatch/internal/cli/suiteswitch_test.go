@@ -2,8 +2,6 @@ package cli
 
 import (
 	"encoding/json"
-	"os"
-	"path/filepath"
 	"strings"
 	"testing"
 	"time"
@@ -78,17 +76,15 @@ func TestPlantSwitches(t *testing.T) {
 			Contributors: []alerts.RecordContributor{{Channel: "boost.comp1.power"}, {Channel: "boost.comp2.running"}}},
 		{ID: "boost/d", Kind: alerts.KindIncident, Unit: "boost", Start: start.Add(10 * time.Second)},
 	}
-	path := filepath.Join(t.TempDir(), "alerts.jsonl")
-	var b []byte
+	var b strings.Builder
+	enc := json.NewEncoder(&b)
 	for _, r := range recs {
-		line, _ := json.Marshal(r)
-		b = append(append(b, line...), '\n')
-	}
-	if err := os.WriteFile(path, b, 0o644); err != nil {
-		t.Fatal(err)
+		if err := enc.Encode(r); err != nil {
+			t.Fatal(err)
+		}
 	}
 	all, status, _ := plantSwitches(s, s.Start, s.Start.Add(24*time.Hour))
-	got, err := switchAlerts(path, map[string]bool{"boost/d": true}, all, status)
+	got, err := readSwitchAlerts(strings.NewReader(b.String()), "alerts.jsonl", map[string]bool{"boost/d": true}, all, status)
 	if err != nil {
 		t.Fatal(err)
 	}
