@@ -76,12 +76,13 @@ type autoBuffer struct {
 	miss   []bool
 	stride int
 	k      int
+	gate   *gateScreen // looking for a status channel (gatestates.go), nil: found states
 }
 
 // add keeps frame x (every stride-th).
 func (b *autoBuffer) add(x []float64, miss []bool) {
 	if len(x) != b.p {
-		*b = autoBuffer{p: len(x), stride: 1} // the channels changed: start again
+		*b = autoBuffer{p: len(x), stride: 1, gate: b.gate} // the channels changed: start again
 	}
 	if b.k++; (b.k-1)%b.stride != 0 {
 		return

@@ -34,6 +34,38 @@ const (
 	gateMinShare = 0.05
 )
 
+// gateScreen follows, frame by frame, which channels of a unit can still
+// be a status channel (integer values, at most gateMaxLevels of them), so
+// that fit keeps no frames of a unit that has none.
+type gateScreen struct {
+	levels [][]float64
+	out    []bool // no longer a candidate
+}
+
+// screen takes one frame and reports whether any channel is still a
+// candidate.
+func (g *gateScreen) screen(x []float64, miss []bool) bool {
+	if len(g.levels) != len(x) {
+		g.levels, g.out = make([][]float64, len(x)), make([]bool, len(x)) // channels changed: start again
+	}
+	alive := false
+	for c, v := range x {
+		if g.out[c] {
+			continue
+		}
+		switch {
+		case miss[c] || slices.Contains(g.levels[c], v):
+		case v != math.Trunc(v) || math.IsInf(v, 0) || len(g.levels[c]) == gateMaxLevels:
+			g.out[c] = true
+			continue
+		default:
+			g.levels[c] = append(g.levels[c], v)
+		}
+		alive = true
+	}
+	return alive
+}
+
 // wantsGateStates reports whether fit should look for a status channel of
 // unit name: no state configured (state: none turns it off).
 func (p *Pipeline) wantsGateStates(name string) bool {

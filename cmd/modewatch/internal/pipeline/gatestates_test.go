@@ -67,3 +67,34 @@ func TestFitFindsStatusChannel(t *testing.T) {
 		t.Errorf("state: none: states %+v, want one model", m.Units[0].States)
 	}
 }
+
+// TestGateScreen: fit keeps a unit's frames only while one of its channels
+// can still be a status channel (integer values, at most four of them).
+func TestGateScreen(t *testing.T) {
+	nan := math.NaN()
+	for _, tc := range []struct {
+		name   string
+		frames [][]float64
+		want   bool
+	}{
+		{"a flag among live readings", [][]float64{{0, 1.5}, {1, 2.5}, {0, nan}}, true},
+		{"live readings only", [][]float64{{0.5, 1.5}, {1.25, 2.5}}, false},
+		{"integers of five levels", [][]float64{{0}, {1}, {2}, {3}, {4}}, false},
+		{"integers of four levels, missing between", [][]float64{{0}, {1}, {nan}, {2}, {3}, {1}}, true},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			var g gateScreen
+			got := true
+			for _, f := range tc.frames {
+				miss := make([]bool, len(f))
+				for i, v := range f {
+					miss[i] = math.IsNaN(v)
+				}
+				got = g.screen(f, miss)
+			}
+			if got != tc.want {
+				t.Errorf("screen: %v, want %v", got, tc.want)
+			}
+		})
+	}
+}

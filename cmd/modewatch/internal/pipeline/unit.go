@@ -108,7 +108,7 @@ func newUnit(p *Pipeline, name string) *Unit {
 	case i >= 0 && p.cfg.Units[i].State != "":
 		u.states = newStates(p.cfg.Units[i].State, p.cfg.Units[i].StateBands)
 	case p.wantsGateStates(name):
-		u.autoBuf = &autoBuffer{stride: 1} // a status channel looked for at the end (gatestates.go)
+		u.autoBuf = &autoBuffer{stride: 1, gate: &gateScreen{}} // a status channel looked for at the end (gatestates.go)
 	}
 	u.context = slices.Clone(p.contextOf(name))
 	u.staticIfNeeded()
@@ -323,6 +323,9 @@ func (u *Unit) stepModel(f *stream.Frame) {
 	}
 	if u.autoBuf != nil && err == nil {
 		u.autoBuf.add(u.x, u.miss)
+		if u.autoBuf.gate != nil && !u.autoBuf.gate.screen(u.x, u.miss) {
+			u.autoBuf = nil // no channel can be a status channel: keep no frames
+		}
 	}
 	if err != nil {
 		u.stepErrors++
