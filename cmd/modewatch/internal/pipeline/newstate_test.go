@@ -3,11 +3,14 @@ package pipeline
 import (
 	"bytes"
 	"context"
+	"slices"
+	"strings"
 	"testing"
 	"time"
 
 	"modewatch/alerts"
 	"modewatch/configs"
+	"modewatch/stream"
 )
 
 // sFit fits cfg on the normal days of the two-state plant and returns the
@@ -93,5 +96,67 @@ func TestNewStateLearnedAfterAcceptAfter(t *testing.T) {
 	}
 	if earlyInc, _, _, _ := run("1h", earlyFault); earlyInc == 0 {
 		t.Error("accept_after 1h: the bias inside the new state's first period started no incident; the 4h case proves nothing")
+	}
+}
+
+// TestNewStateLearningSurvivesRestart: a checkpoint written 700 frames
+// into the new state's first period (inside its 1440 frames of learning
+// under accept_after 4h) and restored into a new pipeline from the same
+// fitted model keeps the state new and learning: the bias later in that
+// period starts no incident, and the learned notice comes at the state's
+// 1440th frame, as in the uninterrupted run.
+func TestNewStateLearningSurvivesRestart(t *testing.T) {
+	const (
+		newStart = sNormal + 1080
+		early    = newStart + 750
+		end      = newStart + 1000
+		learnAt  = sNormal + 3240 + 360 - 1
+	)
+	cfg := sConfig(t, "units: [{name: mix, state: ctl.a.mode, state_bands: [0.5, 1.5]}]\nalerts: {accept_after: 4h}\n")
+	m := sFit(t, cfg)
+	fault := func(k int) bool { return k >= early && k < end }
+	data := bytes.ReplaceAll(sPlant(sNormal, sNormal+4000, nil, fault, 2, 0, false), []byte("mode=1i"), []byte("mode=2i"))
+	ch, frames := collectFrames(t, data, sPeriod)
+	var incidents int
+	var learned []time.Time
+	pub := alerts.PublisherFunc(func(r *alerts.Record) {
+		switch {
+		case r.Unit != "mix" || r.Revision != 1:
+		case r.Kind == alerts.KindNotice && strings.Contains(r.ID, ":learned"):
+			learned = append(learned, r.Start)
+		case r.Kind == alerts.KindIncident && r.Group == alerts.GroupModel && !r.Start.Before(sStart.Add(early*sPeriod)):
+			incidents++
+		}
+	})
+	cut := slices.IndexFunc(frames, func(f stream.Frame) bool { return !f.Start.Before(sStart.Add((newStart + 700) * sPeriod)) })
+	pa, err := New(Options{Config: cfg, Channels: ch, Period: sPeriod, Baseline: m, Publisher: pub})
+	if err != nil {
+		t.Fatal(err)
+	}
+	runFrames(t, pa, frames[:cut], nil)
+	dir := t.TempDir()
+	if _, err := pa.WriteCheckpoints(dir); err != nil {
+		t.Fatal(err)
+	}
+	cks, errs := ReadCheckpoints(dir)
+	if len(errs) > 0 {
+		t.Fatal(errs)
+	}
+	pb, err := New(Options{Config: cfg, Channels: ch, Period: sPeriod, Baseline: m, Publisher: pub})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, errs := pb.Restore(cks); len(errs) > 0 {
+		t.Fatal(errs)
+	}
+	if v := pb.Unit("mix").View(time.Time{}); len(v.States) != 3 || v.States[2].Fitted || !v.States[2].Learning {
+		t.Fatalf("restored states %+v, want the third new and learning", v.States)
+	}
+	runFrames(t, pb, frames[cut:], nil)
+	if incidents != 0 {
+		t.Errorf("%d incidents from the bias inside the new state's learning, after the restart", incidents)
+	}
+	if len(learned) != 1 || !learned[0].Equal(sStart.Add(learnAt*sPeriod)) {
+		t.Errorf("learned notices %v, want one at %v", learned, sStart.Add(learnAt*sPeriod))
 	}
 }
