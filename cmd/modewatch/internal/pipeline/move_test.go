@@ -94,14 +94,7 @@ func TestCheckpointMoveUnit(t *testing.T) {
 	_, opt = newRecorderOpts(cfg, ch, period)
 	pb, _ := New(opt)
 	runFrames(t, pb, frames[:half], nil)
-	dir := t.TempDir()
-	if _, err := pb.WriteCheckpoints(dir); err != nil {
-		t.Fatal(err)
-	}
-	cks, errs := ReadCheckpoints(dir)
-	if len(errs) > 0 {
-		t.Fatal(errs)
-	}
+	cks := checkpointsOf(t, pb)
 	var ck *ModelFile
 	for _, c := range cks {
 		if c.Units[0].Name == moved {
