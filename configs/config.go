@@ -62,8 +62,8 @@ const (
 	// sparse modes from the covariance (the tracker's).
 	DefaultRefreshEvery = tracker.DefaultRefreshEvery
 	// DefaultWarmUp is the number of frames learned before any score is
-	// reported.
-	DefaultWarmUp = 500
+	// reported (the tracker's).
+	DefaultWarmUp = tracker.DefaultWarmUp
 
 	// DefaultOnDelayN and DefaultOnDelayM: an alarm goes active when a
 	// statistic is over its limit in N of the last M frames.
@@ -327,7 +327,8 @@ type Model struct {
 	// scored, so a slow drift is scored against a model that has not yet
 	// followed it (N-step-ahead scoring). Default 0.
 	ScoreLag time.Duration `yaml:"score_lag"`
-	// WarmUp frames are learned before scores are reported. Default 500.
+	// WarmUp frames are learned before scores are reported. Default
+	// tracker.DefaultWarmUp (500).
 	WarmUp int `yaml:"warmup"`
 	// File is a fitted model (from "modewatch fit") to start from.
 	File string `yaml:"file"`

@@ -170,6 +170,12 @@ const (
 	DefaultTopContrib   = 10
 	DefaultRidge        = 1e-6
 	DefaultPatternCache = 16
+	// DefaultWarmUp is the number of frames learned before the first
+	// model and score when Config.WarmUp is zero, and the service's
+	// default (model.warmup). A unit of more than DefaultWarmUp/2 channels
+	// wants a longer warm-up: at least two frames per channel (common
+	// practice; a covariance from fewer frames than channels is singular).
+	DefaultWarmUp = 500
 )
 
 // Config configures a Tracker. The zero value (with Period and HalfLife
@@ -188,7 +194,7 @@ type Config struct {
 	// modes and limits (default 64).
 	RefreshEvery int
 	// WarmUp is the number of frames learned before the first model and
-	// score (default max(100, 2p)).
+	// score (default [DefaultWarmUp]).
 	WarmUp int
 	// Batch is the number of complete frames folded into the covariance by
 	// one rank-B update (default 64).
@@ -384,7 +390,7 @@ func (c *Config) defaults(p int) error {
 		c.Batch = DefaultBatch
 	}
 	if c.WarmUp == 0 {
-		c.WarmUp = max(100, 2*p)
+		c.WarmUp = DefaultWarmUp
 	}
 	if c.StuckRel == 0 {
 		c.StuckRel = DefaultStuckRel
@@ -960,7 +966,7 @@ func (t *Tracker) warming(i int) bool {
 // tracker restores into New(p2, cfg); it must keep Period, HalfLife and
 // Batch (the learned statistics depend on them), while the rest (modes,
 // α, limit forms, warm-up, ...) takes effect at once. Defaults that depend
-// on the width (WarmUp = max(100, 2p), the modes' MaxCount) are those of p2.
+// on the width (the modes' MaxCount) are those of p2.
 //
 // Channels 0…P()−1 keep everything learned (means, variances,
 // covariances, counts, flat-line state, learning state, empirical limits);

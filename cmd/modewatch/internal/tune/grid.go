@@ -42,7 +42,7 @@ package tune
 import (
 	"fmt"
 	"os"
-	"strconv"
+	"slices"
 	"strings"
 	"time"
 
@@ -55,20 +55,41 @@ import (
 // lengths.
 const MaxCombinations = 10000
 
-// Keys of a grid file, in the order of the table columns.
-var Keys = []string{"sparsity", "modes", "halflife", "alpha", "warmup", "refresh_every", "on_delay", "off_delay", "deadband", "adapt"}
+// Keys of a grid file, in the order of the table columns: the settings of
+// configs.Settings that a grid may list.
+var Keys = gridKeys()
 
 // ModelKeys are the grid keys that change the model itself. A fitted model
 // (--model) carries its own, so a grid used with a fitted model may not
 // list them.
-var ModelKeys = map[string]bool{"sparsity": true, "modes": true, "halflife": true, "alpha": true, "warmup": true, "refresh_every": true}
+var ModelKeys = modelKeys()
+
+func gridKeys() []string {
+	var keys []string
+	for _, st := range configs.Settings() {
+		if st.Grid {
+			keys = append(keys, st.Name)
+		}
+	}
+	return keys
+}
+
+func modelKeys() map[string]bool {
+	m := map[string]bool{}
+	for _, st := range configs.Settings() {
+		if st.Grid && st.Model {
+			m[st.Name] = true
+		}
+	}
+	return m
+}
 
 // Grid is a parsed grid file: for every listed key, its values in file
 // order (as written, normalised: "l0:4", "auto:0.8", "3d", "0.001", "6/10").
 type Grid struct {
 	File   string
 	Axes   []Axis // in the order of Keys, only the keys present
-	values map[string][]value
+	values map[string][]string
 }
 
 // Axis is one listed setting and its values, as text.
@@ -76,18 +97,6 @@ type Axis struct {
 	Key    string
 	Values []string
 	Line   int // line of the key in the grid file
-}
-
-// value is one parsed value of an axis.
-type value struct {
-	text string
-	sp   string
-	mc   configs.ModeCount
-	d    time.Duration
-	f    float64
-	n    int
-	od   configs.OnDelay
-	b    bool
 }
 
 // ReadGrid reads and checks a grid file.
@@ -103,7 +112,7 @@ func ReadGrid(path string) (*Grid, error) {
 // positions. Every problem is reported at once as configs.Errors (which
 // matches configs.ErrInvalid), each with line and column.
 func ParseGrid(name string, data []byte) (*Grid, error) {
-	g := &Grid{File: name, values: map[string][]value{}}
+	g := &Grid{File: name, values: map[string][]string{}}
 	var errs configs.Errors
 	bad := func(n *yaml.Node, path, format string, args ...any) {
 		e := &configs.Error{File: name, Path: path, Msg: fmt.Sprintf(format, args...)}
@@ -145,7 +154,7 @@ func ParseGrid(name string, data []byte) (*Grid, error) {
 				continue
 			}
 		}
-		var vals []value
+		var vals []string
 		texts := map[string]int{}
 		for j, it := range items {
 			path := fmt.Sprintf("%s[%d]", key, j)
@@ -156,17 +165,17 @@ func ParseGrid(name string, data []byte) (*Grid, error) {
 				bad(it, path, "want a single value, not a list or mapping")
 				continue
 			}
-			pv, err := parseValue(key, it.Value)
+			text, err := configs.LookupSetting(key).Parse(&configs.Overrides{}, it.Value)
 			if err != nil {
 				bad(it, path, "%v", err)
 				continue
 			}
-			if first, dup := texts[pv.text]; dup {
-				bad(it, path, "value %s repeats %s[%d]", pv.text, key, first)
+			if first, dup := texts[text]; dup {
+				bad(it, path, "value %s repeats %s[%d]", text, key, first)
 				continue
 			}
-			texts[pv.text] = j
-			vals = append(vals, pv)
+			texts[text] = j
+			vals = append(vals, text)
 		}
 		if len(vals) > 0 {
 			g.values[key] = vals
@@ -181,10 +190,7 @@ func ParseGrid(name string, data []byte) (*Grid, error) {
 		if !ok {
 			continue
 		}
-		ax := Axis{Key: key, Line: seen[key].Line}
-		for _, v := range vals {
-			ax.Values = append(ax.Values, v.text)
-		}
+		ax := Axis{Key: key, Line: seen[key].Line, Values: vals}
 		g.Axes = append(g.Axes, ax)
 		n *= len(vals)
 		if n > MaxCombinations {
@@ -198,91 +204,11 @@ func ParseGrid(name string, data []byte) (*Grid, error) {
 	return g, nil
 }
 
-func known(key string) bool {
-	for _, k := range Keys {
-		if k == key {
-			return true
-		}
-	}
-	return false
-}
-
-// parseValue checks one value of setting key with the same rules as the
-// configuration and the command-line flags.
-func parseValue(key, s string) (value, error) {
-	s = strings.TrimSpace(s)
-	v := value{text: s}
-	switch key {
-	case "sparsity":
-		if err := configs.CheckSparsity(s); err != nil {
-			return v, err
-		}
-		v.sp = s
-	case "modes":
-		mc, err := configs.ParseModeCount(s)
-		if err != nil {
-			return v, err
-		}
-		v.mc, v.text = mc, mc.String()
-	case "halflife", "off_delay":
-		d, err := configs.ParseDuration(s)
-		if err != nil {
-			return v, err
-		}
-		if d <= 0 {
-			return v, fmt.Errorf("%s must be above zero", key)
-		}
-		v.d, v.text = d, FormatDuration(d)
-	case "alpha":
-		f, err := strconv.ParseFloat(s, 64)
-		if err != nil || !(f > 0 && f < 0.5) {
-			return v, fmt.Errorf("%q is not a false-alarm rate in (0, 0.5)", s)
-		}
-		v.f, v.text = f, strconv.FormatFloat(f, 'g', -1, 64)
-	case "deadband":
-		f, err := strconv.ParseFloat(s, 64)
-		if err != nil || !(f > 0 && f < 1) {
-			return v, fmt.Errorf("%q is not a fraction of the limit in (0, 1)", s)
-		}
-		v.f, v.text = f, strconv.FormatFloat(f, 'g', -1, 64)
-	case "warmup", "refresh_every":
-		n, err := strconv.Atoi(s)
-		min := 1
-		if key == "warmup" {
-			min = 2
-		}
-		if err != nil || n < min {
-			return v, fmt.Errorf("%q: want a whole number of frames ≥ %d", s, min)
-		}
-		v.n, v.text = n, strconv.Itoa(n)
-	case "on_delay":
-		a, b, ok := strings.Cut(s, "/")
-		n, err1 := strconv.Atoi(strings.TrimSpace(a))
-		m, err2 := strconv.Atoi(strings.TrimSpace(b))
-		if !ok || err1 != nil || err2 != nil || n < 1 || n > m || m > 64 {
-			return v, fmt.Errorf("%q: want N/M, over the limit in N of the last M frames, 1 ≤ N ≤ M ≤ 64", s)
-		}
-		v.od, v.text = configs.OnDelay{N: n, M: m}, fmt.Sprintf("%d/%d", n, m)
-	case "adapt":
-		b, err := strconv.ParseBool(s)
-		if err != nil {
-			return v, fmt.Errorf("%q: want true or false", s)
-		}
-		v.b, v.text = b, strconv.FormatBool(b)
-	}
-	return v, nil
-}
+func known(key string) bool { return slices.Contains(Keys, key) }
 
 // FormatDuration writes d as whole days ("7d") when it is a whole number
-// of days, else as a Go duration ("90m0s" → "1h30m0s"); both forms are
-// read back by configs.ParseDuration.
-func FormatDuration(d time.Duration) string {
-	const day = 24 * time.Hour
-	if d > 0 && d%day == 0 {
-		return strconv.FormatInt(int64(d/day), 10) + "d"
-	}
-	return d.String()
-}
+// of days, else as a Go duration; it is configs.FormatDuration.
+func FormatDuration(d time.Duration) string { return configs.FormatDuration(d) }
 
 // Size returns the number of combinations.
 func (g *Grid) Size() int {
@@ -300,8 +226,7 @@ func (g *Grid) Has(key string) bool { _, ok := g.values[key]; return ok }
 type Setting struct {
 	Index int      // position in grid order (the last axis varies fastest)
 	Keys  []string // the grid's keys, in axis order
-	Texts []string // the value of each key, as text
-	vals  []value
+	Texts []string // the value of each key, as text (normal form)
 }
 
 // Settings expands the grid into every combination, in grid order: the
@@ -315,13 +240,13 @@ func (g *Grid) Settings() []Setting {
 		keys[a] = ax.Key
 	}
 	for i := range out {
-		s := Setting{Index: i, Keys: keys, Texts: make([]string, len(g.Axes)), vals: make([]value, len(g.Axes))}
+		s := Setting{Index: i, Keys: keys, Texts: make([]string, len(g.Axes))}
 		rest := i
 		for a := len(g.Axes) - 1; a >= 0; a-- {
 			vals := g.values[g.Axes[a].Key]
 			k := rest % len(vals)
 			rest /= len(vals)
-			s.Texts[a], s.vals[a] = vals[k].text, vals[k]
+			s.Texts[a] = vals[k]
 		}
 		out[i] = s
 	}
@@ -348,37 +273,17 @@ func (s Setting) Value(key string) string {
 }
 
 // Overrides returns the model and alarm settings of s as overrides: fields
-// the setting does not set are zero (inherit).
+// the setting does not set are zero (inherit). Each value is read by its
+// configs.Setting, as the configuration and the flags read it.
 func (s Setting) Overrides() (configs.Model, configs.Alerts) {
-	var m configs.Model
-	var a configs.Alerts
+	var o configs.Overrides
 	for i, k := range s.Keys {
-		v := s.vals[i]
-		switch k {
-		case "sparsity":
-			m.Sparsity = v.sp
-		case "modes":
-			m.Modes = v.mc
-		case "halflife":
-			m.HalfLife = v.d
-		case "alpha":
-			m.Alpha = v.f
-		case "warmup":
-			m.WarmUp = v.n
-		case "refresh_every":
-			m.RefreshEvery = v.n
-		case "on_delay":
-			a.OnDelay = v.od
-		case "off_delay":
-			a.OffDelay = v.d
-		case "deadband":
-			a.Deadband = v.f
-		case "adapt":
-			b := v.b
-			m.Adapt = &b
+		// The texts were checked by ParseGrid.
+		if _, err := configs.LookupSetting(k).Parse(&o, s.Texts[i]); err != nil {
+			panic(fmt.Sprintf("tune: grid value %s=%s: %v", k, s.Texts[i], err))
 		}
 	}
-	return m, a
+	return o.Model, o.Alerts
 }
 
 // Apply returns a copy of base with s laid over the defaults and over
@@ -388,14 +293,6 @@ func (s Setting) Apply(base *configs.Config) *configs.Config {
 	c := *base
 	c.Units = append([]configs.Unit(nil), base.Units...)
 	m, a := s.Overrides()
-	if m.Modes.Count > 0 {
-		m.MaxModes = max(m.Modes.Count, c.Model.MaxModes)
-	}
-	c.Model = m.Over(c.Model)
-	c.Alerts = a.Over(c.Alerts)
-	for i := range c.Units {
-		c.Units[i].Model = m.Over(c.Units[i].Model)
-		c.Units[i].Alerts = a.Over(c.Units[i].Alerts)
-	}
+	configs.Overrides{Model: m, Alerts: a}.Apply(&c)
 	return &c
 }

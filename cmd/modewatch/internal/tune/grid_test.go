@@ -88,7 +88,7 @@ alpha: [0.02]
 		"bad.yaml:4:12: on_delay[0]:",
 		"bad.yaml:5:8: modes: empty list",
 		"bad.yaml:6:12: halflife[0]: want a single value",
-		"bad.yaml:6:20: halflife[1]: halflife must be above zero",
+		"bad.yaml:6:20: halflife[1]: a duration must be above zero",
 		"bad.yaml:7:9: adapt[0]:",
 		"bad.yaml:8:1: alpha: listed twice (first at line 3)",
 	}

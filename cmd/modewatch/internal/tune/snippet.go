@@ -3,8 +3,9 @@ package tune
 import (
 	"fmt"
 	"io"
-	"strconv"
 	"strings"
+
+	"modewatch/configs"
 )
 
 // WriteSnippet writes the setting of r as a configuration snippet (YAML
@@ -20,16 +21,12 @@ func WriteSnippet(w io.Writer, r *Result, note []string) error {
 	s := r.Setting
 	var model, alerts []string
 	for i, k := range s.Keys {
-		v := s.vals[i]
-		switch k {
-		case "sparsity", "modes":
-			model = append(model, fmt.Sprintf("  %s: %s", k, strconv.Quote(v.text)))
-		case "halflife", "alpha", "warmup", "refresh_every", "adapt":
-			model = append(model, fmt.Sprintf("  %s: %s", k, v.text))
-		case "on_delay":
-			alerts = append(alerts, fmt.Sprintf("  on_delay: {n: %d, m: %d}", v.od.N, v.od.M))
-		case "off_delay", "deadband":
-			alerts = append(alerts, fmt.Sprintf("  %s: %s", k, v.text))
+		st := configs.LookupSetting(k)
+		line := fmt.Sprintf("  %s: %s", st.Name, st.YAML(s.Texts[i]))
+		if st.Section == "alerts" {
+			alerts = append(alerts, line)
+		} else {
+			model = append(model, line)
 		}
 	}
 	if len(model) > 0 {

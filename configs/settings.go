@@ -1,0 +1,309 @@
+package configs
+
+import (
+	"errors"
+	"fmt"
+	"strconv"
+	"strings"
+	"time"
+
+	"modewatch/alerts"
+	"modewatch/tracker"
+)
+
+// Setting describes one model or alarm setting that a configuration file,
+// a command-line flag and a tune grid all accept. It is the one place that
+// knows the setting's names, its default, how its text form is read and
+// checked, and how it is written back into a configuration; the flags
+// ([Settings] with Flag), the tune grid keys and its snippet writer all
+// read this table.
+//
+// Text forms are those of the flags and grids: "l0:6", "auto:0.8", "7d",
+// "0.01", "3/5", "true".
+type Setting struct {
+	// Name is the grid key and the YAML key inside Section ("halflife",
+	// "on_delay"); the flag is the same with '-' for '_' ([Setting.Flag]).
+	Name string
+	// Section is the configuration section holding it: "model" or "alerts"
+	// (also each unit's override of that section).
+	Section string
+	// Doc says what the setting does, for flag usage and docs.
+	Doc string
+	// Default is the default as text, read from the package that owns it;
+	// empty when the owning package chooses it from the data (see Doc).
+	Default string
+	// Model reports whether the setting changes the model itself, so that
+	// a fitted model file carries it.
+	Model bool
+	// Grid reports whether a tune grid may list it.
+	Grid bool
+
+	set  func(o *Overrides, s string) (string, error)
+	yaml func(text string) string
+}
+
+// Overrides are model and alarm settings laid over a configuration: zero
+// fields inherit.
+type Overrides struct {
+	Model  Model
+	Alerts Alerts
+}
+
+// Path is the setting's key path in a configuration ("model.halflife").
+func (s *Setting) Path() string { return s.Section + "." + s.Name }
+
+// Flag is the setting's command-line flag name ("refresh-every").
+func (s *Setting) Flag() string { return strings.ReplaceAll(s.Name, "_", "-") }
+
+// Parse checks text and sets the setting's field in dst. It returns the
+// text in normal form ("auto:0.80" → "auto:0.8", "72h" → "3d"); an error
+// says what is wrong with the value, without a position.
+func (s *Setting) Parse(dst *Overrides, text string) (string, error) {
+	return s.set(dst, strings.TrimSpace(text))
+}
+
+// YAML returns a normal-form value as written after "Name:" in a
+// configuration file.
+func (s *Setting) YAML(text string) string {
+	if s.yaml == nil {
+		return text
+	}
+	return s.yaml(text)
+}
+
+// Apply lays o over the defaults and over every unit of c, as command-line
+// flags and tune settings are: a unit's own override of a key o sets is
+// replaced. A fixed mode count above max_modes raises max_modes to it.
+func (o Overrides) Apply(c *Config) {
+	m, a := o.Model, o.Alerts
+	if m.Modes.Count > 0 {
+		m.MaxModes = max(m.Modes.Count, c.Model.MaxModes)
+	}
+	c.Model = m.Over(c.Model)
+	c.Alerts = a.Over(c.Alerts)
+	for i := range c.Units {
+		c.Units[i].Model = m.Over(c.Units[i].Model)
+		c.Units[i].Alerts = a.Over(c.Units[i].Alerts)
+	}
+}
+
+// Settings returns the table of settings, grid keys first in the order of
+// the tune table's columns. The caller may not change it.
+func Settings() []Setting { return settings }
+
+// LookupSetting returns the setting named name (grid key or flag name), or
+// nil.
+func LookupSetting(name string) *Setting {
+	name = strings.ReplaceAll(name, "-", "_")
+	for i := range settings {
+		if settings[i].Name == name {
+			return &settings[i]
+		}
+	}
+	return nil
+}
+
+// FormatDuration writes d as whole days ("7d") when it is a whole number
+// of days, else as a Go duration ("90m0s" → "1h30m0s"); both forms are
+// read back by [ParseDuration].
+func FormatDuration(d time.Duration) string {
+	const day = 24 * time.Hour
+	if d > 0 && d%day == 0 {
+		return strconv.FormatInt(int64(d/day), 10) + "d"
+	}
+	return d.String()
+}
+
+func quoted(text string) string { return strconv.Quote(text) }
+
+func positiveDuration(s string) (time.Duration, string, error) {
+	d, err := ParseDuration(s)
+	if err != nil {
+		return 0, s, err
+	}
+	if d <= 0 {
+		return 0, s, errors.New("a duration must be above zero")
+	}
+	return d, FormatDuration(d), nil
+}
+
+// fraction reads a number in (0, hi), what says what it is.
+func fraction(s string, hi float64, what string) (float64, string, error) {
+	f, err := strconv.ParseFloat(s, 64)
+	if err != nil || !(f > 0 && f < hi) {
+		return 0, s, fmt.Errorf("%q is not %s in (0, %g)", s, what, hi)
+	}
+	return f, strconv.FormatFloat(f, 'g', -1, 64), nil
+}
+
+// frames reads a whole number of frames ≥ lo.
+func frames(s string, lo int) (int, string, error) {
+	n, err := strconv.Atoi(s)
+	if err != nil || n < lo {
+		return 0, s, fmt.Errorf("%q: want a whole number of frames ≥ %d", s, lo)
+	}
+	return n, strconv.Itoa(n), nil
+}
+
+// ParseOnDelay reads "N/M": over the limit in N of the last M frames,
+// 1 ≤ N ≤ M ≤ 64.
+func ParseOnDelay(s string) (OnDelay, error) {
+	a, b, ok := strings.Cut(s, "/")
+	n, err1 := strconv.Atoi(strings.TrimSpace(a))
+	m, err2 := strconv.Atoi(strings.TrimSpace(b))
+	if !ok || err1 != nil || err2 != nil || n < 1 || n > m || m > maxOnWindow {
+		return OnDelay{}, fmt.Errorf("%q: want N/M, over the limit in N of the last M frames, 1 ≤ N ≤ M ≤ %d", s, maxOnWindow)
+	}
+	return OnDelay{N: n, M: m}, nil
+}
+
+// String is the "N/M" form.
+func (o OnDelay) String() string { return fmt.Sprintf("%d/%d", o.N, o.M) }
+
+// maxOnWindow bounds on_delay's M (the alarm engine keeps the window in a
+// 64-bit mask).
+const maxOnWindow = 64
+
+var settings = []Setting{
+	{
+		Name: "sparsity", Section: "model", Model: true, Grid: true, Default: DefaultSparsity,
+		Doc: "sparsity of every mode: none|l0:K|l1:S|l0pen:G|l1pen:G|l1sqrt:G|logpen:G[,EPS]|exppen:G[,EPS]",
+		set: func(o *Overrides, s string) (string, error) {
+			if err := CheckSparsity(s); err != nil {
+				return s, err
+			}
+			o.Model.Sparsity = s
+			return s, nil
+		},
+		yaml: quoted,
+	},
+	{
+		Name: "modes", Section: "model", Model: true, Grid: true, Default: DefaultModes,
+		Doc: "number of modes: N or auto:SHARE",
+		set: func(o *Overrides, s string) (string, error) {
+			mc, err := ParseModeCount(s)
+			if err != nil {
+				return s, err
+			}
+			o.Model.Modes = mc
+			return mc.String(), nil
+		},
+		yaml: quoted,
+	},
+	{
+		Name: "halflife", Section: "model", Model: true, Grid: true, Default: FormatDuration(DefaultHalfLife),
+		Doc: "half-life of the exponential weights, e.g. 12h or 7d (fit: equal weights unless given)",
+		set: func(o *Overrides, s string) (string, error) {
+			d, text, err := positiveDuration(s)
+			o.Model.HalfLife = d
+			return text, err
+		},
+	},
+	{
+		Name: "alpha", Section: "model", Model: true, Grid: true, Default: strconv.FormatFloat(tracker.DefaultAlpha, 'g', -1, 64),
+		Doc: "false-alarm rate of each control limit per frame, in (0, 0.5)",
+		set: func(o *Overrides, s string) (string, error) {
+			f, text, err := fraction(s, 0.5, "a false-alarm rate")
+			o.Model.Alpha = f
+			return text, err
+		},
+	},
+	{
+		Name: "warmup", Section: "model", Model: true, Grid: true, Default: strconv.Itoa(tracker.DefaultWarmUp),
+		Doc: "frames learned before scores are reported (a unit of p channels wants at least 2p)",
+		set: func(o *Overrides, s string) (string, error) {
+			n, text, err := frames(s, 2)
+			o.Model.WarmUp = n
+			return text, err
+		},
+	},
+	{
+		Name: "refresh_every", Section: "model", Model: true, Grid: true, Default: strconv.Itoa(tracker.DefaultRefreshEvery),
+		Doc: "frames learned between refreshes of the modes and limits",
+		set: func(o *Overrides, s string) (string, error) {
+			n, text, err := frames(s, 1)
+			o.Model.RefreshEvery = n
+			return text, err
+		},
+	},
+	{
+		Name: "on_delay", Section: "alerts", Grid: true, Default: OnDelay{N: alerts.DefaultOnCount, M: alerts.DefaultOnWindow}.String(),
+		Doc: "N/M: an alarm goes active when over its limit in N of the last M frames",
+		set: func(o *Overrides, s string) (string, error) {
+			od, err := ParseOnDelay(s)
+			if err != nil {
+				return s, err
+			}
+			o.Alerts.OnDelay = od
+			return od.String(), nil
+		},
+		yaml: func(text string) string {
+			od, _ := ParseOnDelay(text)
+			return fmt.Sprintf("{n: %d, m: %d}", od.N, od.M)
+		},
+	},
+	{
+		Name: "off_delay", Section: "alerts", Grid: true, Default: FormatDuration(alerts.DefaultOffDelay),
+		Doc: "time back below the limit (minus the deadband) before an active alarm returns to normal",
+		set: func(o *Overrides, s string) (string, error) {
+			d, text, err := positiveDuration(s)
+			o.Alerts.OffDelay = d
+			return text, err
+		},
+	},
+	{
+		Name: "deadband", Section: "alerts", Grid: true, Default: strconv.FormatFloat(alerts.DefaultDeadband, 'g', -1, 64),
+		Doc: "fraction of the limit below it that a statistic must fall to count as back in, in (0, 1)",
+		set: func(o *Overrides, s string) (string, error) {
+			f, text, err := fraction(s, 1, "a fraction of the limit")
+			o.Alerts.Deadband = f
+			return text, err
+		},
+	},
+	{
+		Name: "adapt", Section: "model", Grid: true, Default: "true",
+		Doc: "true|false: keep learning while scoring",
+		set: func(o *Overrides, s string) (string, error) {
+			b, err := strconv.ParseBool(s)
+			if err != nil {
+				return s, fmt.Errorf("%q: want true or false", s)
+			}
+			o.Model.Adapt = &b
+			return strconv.FormatBool(b), nil
+		},
+	},
+	{
+		Name: "limits", Section: "model", Default: LimitsTheory,
+		Doc: "control limits: theory|empirical:FILE",
+		set: func(o *Overrides, s string) (string, error) {
+			l, err := ParseLimits(s)
+			if err != nil {
+				return s, err
+			}
+			o.Model.Limits = l
+			return s, nil
+		},
+		yaml: quoted,
+	},
+	{
+		Name: "smoothing", Section: "model",
+		Doc: "EWMA weight in (0, 1) of the alarm statistics before the alarm rule; its threshold comes from alerts.budget (default: none)",
+		set: func(o *Overrides, s string) (string, error) {
+			f, text, err := fraction(s, 1, "an EWMA weight")
+			o.Model.Smoothing = f
+			return text, err
+		},
+	},
+	{
+		Name: "statistics", Section: "model", Default: DefaultStatistics,
+		Doc: "statistics that raise alarms, a list of t2,spe,phi,res,var,rel",
+		set: func(o *Overrides, s string) (string, error) {
+			if _, err := ParseStatistics(s); err != nil {
+				return s, err
+			}
+			o.Model.Statistics = s
+			return s, nil
+		},
+		yaml: quoted,
+	},
+}

@@ -1,0 +1,103 @@
+package configs
+
+import (
+	"reflect"
+	"strconv"
+	"testing"
+	"time"
+
+	"modewatch/alerts"
+	"modewatch/tracker"
+	"modewatch/tracker/modes"
+)
+
+// TestSettingDefaults checks that each setting's default is the constant
+// of the package that owns it, and that reading that default through the
+// setting gives exactly the value the configuration fills in.
+func TestSettingDefaults(t *testing.T) {
+	owner := map[string]string{
+		"sparsity":      DefaultSparsity,
+		"modes":         DefaultModes,
+		"halflife":      "7d", // DefaultHalfLife
+		"alpha":         strconv.FormatFloat(tracker.DefaultAlpha, 'g', -1, 64),
+		"warmup":        strconv.Itoa(tracker.DefaultWarmUp),
+		"refresh_every": strconv.Itoa(tracker.DefaultRefreshEvery),
+		"on_delay":      strconv.Itoa(alerts.DefaultOnCount) + "/" + strconv.Itoa(alerts.DefaultOnWindow),
+		"off_delay":     FormatDuration(alerts.DefaultOffDelay),
+		"deadband":      strconv.FormatFloat(alerts.DefaultDeadband, 'g', -1, 64),
+		"adapt":         "true",
+		"limits":        LimitsTheory,
+		"smoothing":     "", // no smoothing
+		"statistics":    DefaultStatistics,
+	}
+	if DefaultHalfLife != 7*24*time.Hour {
+		t.Fatalf("DefaultHalfLife = %v; the table above says 7d", DefaultHalfLife)
+	}
+	if len(owner) != len(Settings()) {
+		t.Fatalf("%d settings, %d owners listed", len(Settings()), len(owner))
+	}
+	dm, da := DefaultModel(), DefaultAlerts()
+	for _, st := range Settings() {
+		t.Run(st.Name, func(t *testing.T) {
+			want, ok := owner[st.Name]
+			if !ok {
+				t.Fatalf("no owner listed for %s", st.Name)
+			}
+			if st.Default != want {
+				t.Fatalf("Default = %q, owning package's %q", st.Default, want)
+			}
+			if st.Default == "" {
+				return
+			}
+			var o Overrides
+			text, err := st.Parse(&o, st.Default)
+			if err != nil {
+				t.Fatalf("the default %q does not parse: %v", st.Default, err)
+			}
+			if text != st.Default {
+				t.Errorf("the default %q is not in normal form (%q)", st.Default, text)
+			}
+			// The parsed default laid over the configuration's defaults
+			// changes nothing, and it does set a field.
+			if m := o.Model.Over(dm); !reflect.DeepEqual(m, dm) {
+				t.Errorf("model with %s's default = %+v, configuration default %+v", st.Name, m, dm)
+			}
+			if a := o.Alerts.Over(da); !reflect.DeepEqual(a, da) {
+				t.Errorf("alerts with %s's default = %+v, configuration default %+v", st.Name, a, da)
+			}
+			if reflect.DeepEqual(o, Overrides{}) {
+				t.Errorf("parsing %q set no field", st.Default)
+			}
+		})
+	}
+	// warmup: the tracker's own zero value means the same default.
+	tr, err := tracker.New(4, tracker.Config{Modes: modes.Config{Count: 1}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if got := tr.Config().WarmUp; got != dm.WarmUp {
+		t.Errorf("tracker warm-up %d, configuration default %d", got, dm.WarmUp)
+	}
+}
+
+// TestSettingNames checks that every setting has a section, a doc line and
+// is found by its grid key and by its flag name.
+func TestSettingNames(t *testing.T) {
+	for _, st := range Settings() {
+		if st.Section != "model" && st.Section != "alerts" {
+			t.Errorf("%s: section %q", st.Name, st.Section)
+		}
+		if st.Doc == "" {
+			t.Errorf("%s: no doc", st.Name)
+		}
+		if LookupSetting(st.Name) == nil || LookupSetting(st.Flag()) == nil {
+			t.Errorf("%s: not found by name or flag %q", st.Name, st.Flag())
+		}
+		if st.Model && st.Section != "model" {
+			t.Errorf("%s: changes the model but lives in %s", st.Name, st.Section)
+		}
+	}
+	if LookupSetting("nonesuch") != nil {
+		t.Error("an unknown name was found")
+	}
+}
