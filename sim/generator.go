@@ -268,7 +268,6 @@ func (g *Generator) Step() bool {
 // missing). The main stream draws the same values whatever episodes are active.
 func (g *Generator) channel(ci int) float64 {
 	c := &g.ch[ci]
-	x := g.x
 	anyActive := false
 	for _, r := range c.eps {
 		if g.active[r.ep] {
@@ -276,29 +275,62 @@ func (g *Generator) channel(ci int) float64 {
 			break
 		}
 	}
-	// Process faults alter what this channel sees of the drivers.
+	x := g.x
 	if anyActive {
-		copied := false
-		for _, r := range c.eps {
-			e := &g.eps[r.ep]
-			if !g.active[r.ep] || e.Kind != Relation {
-				continue
-			}
-			if !copied {
-				copy(g.xs, g.x)
-				x, copied = g.xs, true
-			}
-			shift := e.Size
-			if e.Ramp > 0 {
-				shift *= math.Min(1, float64(g.now-e.start)/float64(e.Ramp))
-			}
-			if r.pos == 0 {
-				x[e.driver] -= shift
-			} else {
-				x[e.driver] += shift
-			}
+		x = g.relationDrivers(c)
+	}
+	y := g.process(c, x, anyActive)
+	y = g.sensorNoise(c, y)
+	dropped := false
+	if g.s.Dropout > 0 {
+		dropped = g.rng.Float64() < g.s.Dropout
+	}
+	if anyActive {
+		y = g.sensorFaults(c, y)
+	}
+	y = c.reading(y)
+	if anyActive {
+		var lost bool
+		y, lost = g.heldOrLost(c, y)
+		dropped = dropped || lost
+	}
+	if dropped {
+		return math.NaN()
+	}
+	return y
+}
+
+// relationDrivers returns the drivers as channel c sees them: g.x, or a
+// copy of it with the shifts of c's active relation faults (the first
+// channel of a relation sees the driver moved down, the others up).
+func (g *Generator) relationDrivers(c *chanState) []float64 {
+	x := g.x
+	copied := false
+	for _, r := range c.eps {
+		e := &g.eps[r.ep]
+		if !g.active[r.ep] || e.Kind != Relation {
+			continue
+		}
+		if !copied {
+			copy(g.xs, g.x)
+			x, copied = g.xs, true
+		}
+		shift := e.Size
+		if e.Ramp > 0 {
+			shift *= math.Min(1, float64(g.now-e.start)/float64(e.Ramp))
+		}
+		if r.pos == 0 {
+			x[e.driver] -= shift
+		} else {
+			x[e.driver] += shift
 		}
 	}
+	return x
+}
+
+// process is channel c's true value from the drivers x: its base plus
+// each term times its gain, the gains changed by active effect faults.
+func (g *Generator) process(c *chanState, x []float64, anyActive bool) float64 {
 	y := c.base
 	for _, t := range c.terms {
 		var f float64
@@ -321,6 +353,12 @@ func (g *Generator) channel(ci int) float64 {
 		}
 		y += gain * f
 	}
+	return y
+}
+
+// sensorNoise adds channel c's wander and white noise to y, and holds a
+// gated channel at its rest value while its gate driver is off.
+func (g *Generator) sensorNoise(c *chanState, y float64) float64 {
 	if c.wSigma > 0 {
 		if g.k == 0 {
 			c.w = c.wSigma * g.rng.NormFloat64()
@@ -335,62 +373,70 @@ func (g *Generator) channel(ci int) float64 {
 	if c.gated && g.drv[c.gate].mean+g.x[c.gate] <= 0 {
 		y = c.rest // at rest: the noise was drawn all the same, for the stream
 	}
-	dropped := false
-	if g.s.Dropout > 0 {
-		dropped = g.rng.Float64() < g.s.Dropout
-	}
-	if anyActive {
-		for _, r := range c.eps {
-			e := &g.eps[r.ep]
-			if !g.active[r.ep] {
-				continue
-			}
-			switch e.Kind {
-			case Bias:
-				y += e.Size
-			case Drift:
-				y += e.Size * g.frac(e)
-			case Noise:
-				y += c.noise * math.Sqrt(e.Factor*e.Factor-1) * e.rng.NormFloat64()
-			case Spikes:
-				if e.rng.Float64() < e.pSpike {
-					if e.rng.Float64() < 0.5 {
-						y -= e.Size
-					} else {
-						y += e.Size
-					}
+	return y
+}
+
+// sensorFaults adds the active bias, drift, noise and spike faults of
+// channel c to y.
+func (g *Generator) sensorFaults(c *chanState, y float64) float64 {
+	for _, r := range c.eps {
+		e := &g.eps[r.ep]
+		if !g.active[r.ep] {
+			continue
+		}
+		switch e.Kind {
+		case Bias:
+			y += e.Size
+		case Drift:
+			y += e.Size * g.frac(e)
+		case Noise:
+			y += c.noise * math.Sqrt(e.Factor*e.Factor-1) * e.rng.NormFloat64()
+		case Spikes:
+			if e.rng.Float64() < e.pSpike {
+				if e.rng.Float64() < 0.5 {
+					y -= e.Size
+				} else {
+					y += e.Size
 				}
 			}
 		}
 	}
+	return y
+}
+
+// reading is y as the instrument reports it: clamped to its range,
+// quantised, rounded to its resolution.
+func (c *chanState) reading(y float64) float64 {
 	if c.clamp {
 		y = math.Max(c.min, math.Min(c.max, y))
 	}
 	if c.quantum > 0 {
 		y = math.Round(y/c.quantum) * c.quantum
 	}
-	y = math.Round(y*c.scale) / c.scale
-	if anyActive {
-		for _, r := range c.eps {
-			e := &g.eps[r.ep]
-			if !g.active[r.ep] {
-				continue
+	return math.Round(y*c.scale) / c.scale
+}
+
+// heldOrLost applies channel c's active stuck faults (the reading holds
+// the first value seen) and reports whether a dropout or outage fault
+// loses the reading.
+func (g *Generator) heldOrLost(c *chanState, y float64) (float64, bool) {
+	lost := false
+	for _, r := range c.eps {
+		e := &g.eps[r.ep]
+		if !g.active[r.ep] {
+			continue
+		}
+		switch e.Kind {
+		case Stuck:
+			if !e.heldSet[r.pos] {
+				e.held[r.pos], e.heldSet[r.pos] = y, true
 			}
-			switch e.Kind {
-			case Stuck:
-				if !e.heldSet[r.pos] {
-					e.held[r.pos], e.heldSet[r.pos] = y, true
-				}
-				y = e.held[r.pos]
-			case Dropout, Outage:
-				dropped = true
-			}
+			y = e.held[r.pos]
+		case Dropout, Outage:
+			lost = true
 		}
 	}
-	if dropped {
-		return math.NaN()
-	}
-	return y
+	return y, lost
 }
 
 // frac is the elapsed fraction of episode e at the current sample, in [0, 1).

@@ -790,19 +790,7 @@ func (l *loader) episode(s *Scenario, n *yaml.Node, path string, channels map[st
 		}
 	}
 	if v := f["kind"]; v != nil {
-		k, _ := l.scalar(v, path+".kind")
-		e.Kind = FaultKind(k)
-		known := false
-		for _, fk := range faultKinds {
-			known = known || fk == e.Kind
-		}
-		if !known {
-			names := make([]string, len(faultKinds))
-			for i, fk := range faultKinds {
-				names[i] = string(fk)
-			}
-			l.errf(v, path+".kind", "unknown kind %q (one of %s)", k, strings.Join(names, ", "))
-		}
+		e.Kind = l.faultKind(v, path+".kind")
 	}
 	if v := f["start"]; v != nil {
 		e.Start = l.when(s, v, path+".start")
@@ -813,6 +801,38 @@ func (l *loader) episode(s *Scenario, n *yaml.Node, path string, channels map[st
 			l.errf(v, path+".end", "must be after start")
 		}
 	}
+	l.episodeChannels(s, &e, n, f, path, channels)
+	l.episodeParams(s, &e, n, f, path)
+	if e.Kind == Relation && len(e.Channels) < 2 {
+		if v := f["channels"]; v != nil {
+			l.errf(v, path+".channels", "relation needs at least two channels (the first moves against the others)")
+		}
+	}
+	return e
+}
+
+// faultKind reads an episode's kind; an unknown kind is an error naming the
+// known ones.
+func (l *loader) faultKind(v *yaml.Node, path string) FaultKind {
+	k, _ := l.scalar(v, path)
+	kind := FaultKind(k)
+	known := false
+	for _, fk := range faultKinds {
+		known = known || fk == kind
+	}
+	if !known {
+		names := make([]string, len(faultKinds))
+		for i, fk := range faultKinds {
+			names[i] = string(fk)
+		}
+		l.errf(v, path, "unknown kind %q (one of %s)", k, strings.Join(names, ", "))
+	}
+	return kind
+}
+
+// episodeChannels reads an episode's channels, or for an outage its unit
+// (every channel of it).
+func (l *loader) episodeChannels(s *Scenario, e *Episode, n *yaml.Node, f map[string]*yaml.Node, path string, channels map[string]bool) {
 	if v := f["channels"]; v != nil {
 		e.Channels = l.strs(v, path+".channels")
 		if v.Kind == yaml.SequenceNode && len(e.Channels) == 0 {
@@ -855,6 +875,11 @@ func (l *loader) episode(s *Scenario, n *yaml.Node, path string, channels map[st
 	case f["channels"] == nil && e.Kind != "":
 		l.errf(n, path+".channels", "missing")
 	}
+}
+
+// episodeParams reads the parameters of an episode that its kind uses,
+// and says which it needs or does not use.
+func (l *loader) episodeParams(s *Scenario, e *Episode, n *yaml.Node, f map[string]*yaml.Node, path string) {
 	// Parameters: which kinds use them, and which require them.
 	type param struct {
 		key      string
@@ -909,19 +934,13 @@ func (l *loader) episode(s *Scenario, n *yaml.Node, path string, channels map[st
 			e.Driver, _ = l.scalar(v, kp)
 			if s.driverIndex(e.Driver) < 0 {
 				l.errf(v, kp, "unknown driver %q (global name, or unit.asset.name for an asset driver)", e.Driver)
-			} else if !l.touches(s, e) {
-				l.errf(v, kp, "driver %q has no term in channel(s) %s", e.Driver, strings.Join(l.untouched(s, e), ", "))
+			} else if !l.touches(s, *e) {
+				l.errf(v, kp, "driver %q has no term in channel(s) %s", e.Driver, strings.Join(l.untouched(s, *e), ", "))
 			}
 		case "ramp":
 			e.Ramp = l.duration(v, kp)
 		}
 	}
-	if e.Kind == Relation && len(e.Channels) < 2 {
-		if v := f["channels"]; v != nil {
-			l.errf(v, path+".channels", "relation needs at least two channels (the first moves against the others)")
-		}
-	}
-	return e
 }
 
 func (l *loader) touches(s *Scenario, e Episode) bool { return len(l.untouched(s, e)) == 0 }
