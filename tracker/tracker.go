@@ -642,18 +642,7 @@ func (t *Tracker) score(dst *Score, x []float64) error {
 	dst.Excluded = dst.Excluded[:0]
 	dst.Warming = dst.Warming[:0]
 	dst.Contrib = dst.Contrib[:0]
-	for i := 0; i < t.p; i++ {
-		switch {
-		case !t.obs[i]:
-			dst.Missing = append(dst.Missing, i)
-		case t.stuck[i]:
-			dst.Excluded = append(dst.Excluded, i)
-		case t.warming(i):
-			dst.Warming = append(dst.Warming, i)
-		case t.ready && !t.mdl.include[i]:
-			dst.Excluded = append(dst.Excluded, i)
-		}
-	}
+	t.channelStates(dst)
 	if t.cfg.RefreshEvery > 0 {
 		dst.NextRefresh = t.cfg.RefreshEvery - t.since
 	}
@@ -706,29 +695,7 @@ func (t *Tracker) score(dst *Score, x []float64) error {
 	if useRes {
 		rbc, index = t.rs.rbc, dst.Residual
 	}
-	top := t.top[:0]
-	k := t.cfg.TopContrib
-	for i := 0; i < t.p; i++ {
-		if pt.rbcInv[i] == 0 {
-			continue
-		}
-		v := rbc[i]
-		if len(top) == k && (k == 0 || v <= rbc[top[k-1]]) {
-			continue
-		}
-		j := len(top)
-		if j < k {
-			top = append(top, i)
-		} else {
-			j = k - 1
-		}
-		for j > 0 && rbc[top[j-1]] < v {
-			top[j] = top[j-1]
-			j--
-		}
-		top[j] = i
-	}
-	t.top = top
+	top := t.rankTop(rbc, pt.rbcInv)
 	for _, i := range top {
 		n := len(dst.Contrib)
 		if n < cap(dst.Contrib) {
@@ -753,6 +720,53 @@ func (t *Tracker) score(dst *Score, x []float64) error {
 		t.expectedOf(c, i, x, pt)
 	}
 	return nil
+}
+
+// channelStates lists in dst the channels of this frame that are missing,
+// excluded (stuck, or left out of the model) and warming.
+func (t *Tracker) channelStates(dst *Score) {
+	for i := 0; i < t.p; i++ {
+		switch {
+		case !t.obs[i]:
+			dst.Missing = append(dst.Missing, i)
+		case t.stuck[i]:
+			dst.Excluded = append(dst.Excluded, i)
+		case t.warming(i):
+			dst.Warming = append(dst.Warming, i)
+		case t.ready && !t.mdl.include[i]:
+			dst.Excluded = append(dst.Excluded, i)
+		}
+	}
+}
+
+// rankTop returns the TopContrib channels of largest rbc, largest first,
+// among those the pattern can reconstruct (rbcInv ≠ 0), by insertion into
+// a short list kept in t.top.
+func (t *Tracker) rankTop(rbc, rbcInv []float64) []int {
+	top := t.top[:0]
+	k := t.cfg.TopContrib
+	for i := 0; i < t.p; i++ {
+		if rbcInv[i] == 0 {
+			continue
+		}
+		v := rbc[i]
+		if len(top) == k && (k == 0 || v <= rbc[top[k-1]]) {
+			continue
+		}
+		j := len(top)
+		if j < k {
+			top = append(top, i)
+		} else {
+			j = k - 1
+		}
+		for j > 0 && rbc[top[j-1]] < v {
+			top[j] = top[j-1]
+			j--
+		}
+		top[j] = i
+	}
+	t.top = top
+	return top
 }
 
 // ContributionsTo copies the per-channel RBC, SPE and T² contributions of

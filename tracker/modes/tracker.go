@@ -165,30 +165,30 @@ type Tracker struct {
 	matchOld []int
 }
 
-// NewTracker returns a tracker for p × p matrices; cfg is validated and its
-// defaults filled in. Errors wrap ErrConfig or ErrSparsity.
-func NewTracker(p int, cfg Config) (*Tracker, error) {
-	bad := func(format string, a ...any) (*Tracker, error) {
-		return nil, fmt.Errorf("%w: %s", ErrConfig, fmt.Sprintf(format, a...))
-	}
-	if p < 1 {
-		return bad("dimension p = %d, want ≥ 1", p)
-	}
+// configErr is an ErrConfig error with its reason.
+func configErr(format string, a ...any) error {
+	return fmt.Errorf("%w: %s", ErrConfig, fmt.Sprintf(format, a...))
+}
+
+// countDefaults checks the number of modes of cfg for p channels and fills
+// its defaults (Share and MaxCount for an automatic count, MaxCount for a
+// fixed one). It returns the number of mode slots and whether the count is
+// automatic.
+func (cfg *Config) countDefaults(p int) (slots int, auto bool, err error) {
 	if cfg.Count < 0 || cfg.Count > p {
-		return bad("Count = %d outside [0, p = %d]", cfg.Count, p)
+		return 0, false, configErr("Count = %d outside [0, p = %d]", cfg.Count, p)
 	}
 	if cfg.MaxCount < 0 || cfg.MaxCount > p {
-		return bad("MaxCount = %d outside [0, p = %d]", cfg.MaxCount, p)
+		return 0, false, configErr("MaxCount = %d outside [0, p = %d]", cfg.MaxCount, p)
 	}
 	ns := len(cfg.Sparsity)
-	var slots int
-	auto := cfg.Count == 0
+	auto = cfg.Count == 0
 	if auto {
 		if cfg.Share == 0 {
 			cfg.Share = DefaultShare
 		}
 		if !(cfg.Share > 0 && cfg.Share <= 1) {
-			return bad("Share = %g outside (0, 1]", cfg.Share)
+			return 0, false, configErr("Share = %g outside (0, 1]", cfg.Share)
 		}
 		if cfg.MaxCount == 0 {
 			cfg.MaxCount = min(p, DefaultMaxCount)
@@ -197,26 +197,33 @@ func NewTracker(p int, cfg Config) (*Tracker, error) {
 			}
 		}
 		if cfg.MaxCount > p {
-			return bad("%d sparsity entries for p = %d channels", ns, p)
+			return 0, false, configErr("%d sparsity entries for p = %d channels", ns, p)
 		}
 		slots = cfg.MaxCount
 		if !(cfg.MinAdjusted >= 0) || math.IsInf(cfg.MinAdjusted, 0) {
-			return bad("MinAdjusted = %g, want finite ≥ 0", cfg.MinAdjusted)
+			return 0, false, configErr("MinAdjusted = %g, want finite ≥ 0", cfg.MinAdjusted)
 		}
 	} else {
 		if cfg.Share != 0 {
-			return bad("Share = %g is only used with Count = 0", cfg.Share)
+			return 0, false, configErr("Share = %g is only used with Count = 0", cfg.Share)
 		}
 		if cfg.MaxCount == 0 {
 			cfg.MaxCount = cfg.Count
 		}
 		if cfg.MaxCount < cfg.Count {
-			return bad("MaxCount = %d below Count = %d", cfg.MaxCount, cfg.Count)
+			return 0, false, configErr("MaxCount = %d below Count = %d", cfg.MaxCount, cfg.Count)
 		}
 		slots = cfg.Count
 	}
+	return slots, auto, nil
+}
+
+// slotSparsity checks cfg.Sparsity (one entry for all modes, or one per
+// slot) and returns the sparsity of each slot.
+func (cfg *Config) slotSparsity(p, slots int) ([]Sparsity, error) {
+	ns := len(cfg.Sparsity)
 	if ns > 1 && ns != slots {
-		return bad("%d sparsity entries for %d modes (give 1 or one per mode)", ns, slots)
+		return nil, configErr("%d sparsity entries for %d modes (give 1 or one per mode)", ns, slots)
 	}
 	sp := make([]Sparsity, slots)
 	for j := range sp {
@@ -230,17 +237,23 @@ func NewTracker(p int, cfg Config) (*Tracker, error) {
 			return nil, fmt.Errorf("mode %d: %w", j+1, err)
 		}
 	}
+	return sp, nil
+}
+
+// solverDefaults checks the iteration settings of cfg and fills their
+// defaults.
+func (cfg *Config) solverDefaults() error {
 	if cfg.Deflation != Projection && cfg.Deflation != Schur {
-		return bad("unknown deflation %d", int(cfg.Deflation))
+		return configErr("unknown deflation %d", int(cfg.Deflation))
 	}
 	if math.IsNaN(cfg.Tol) || cfg.Tol < 0 || math.IsInf(cfg.Tol, 0) {
-		return bad("Tol = %g, want finite ≥ 0", cfg.Tol)
+		return configErr("Tol = %g, want finite ≥ 0", cfg.Tol)
 	}
 	if cfg.Tol == 0 {
 		cfg.Tol = DefaultTol
 	}
 	if cfg.MaxIter < 0 {
-		return bad("MaxIter = %d, want ≥ 0", cfg.MaxIter)
+		return configErr("MaxIter = %d, want ≥ 0", cfg.MaxIter)
 	}
 	if cfg.MaxIter == 0 {
 		cfg.MaxIter = DefaultMaxIter
@@ -249,19 +262,39 @@ func NewTracker(p int, cfg Config) (*Tracker, error) {
 		cfg.ColdEvery = DefaultColdEvery
 	}
 	if cfg.EpsStages < 0 {
-		return bad("EpsStages = %d, want ≥ 0", cfg.EpsStages)
+		return configErr("EpsStages = %d, want ≥ 0", cfg.EpsStages)
 	}
 	if cfg.Start < StartAuto || cfg.Start > StartIndex {
-		return bad("unknown start %d", int(cfg.Start))
+		return configErr("unknown start %d", int(cfg.Start))
 	}
 	if cfg.Refit < RefitAuto || cfg.Refit > RefitNever {
-		return bad("unknown refit %d", int(cfg.Refit))
+		return configErr("unknown refit %d", int(cfg.Refit))
 	}
 	if cfg.MatchMin == 0 {
 		cfg.MatchMin = DefaultMatchMin
 	}
 	if !(cfg.MatchMin > 0 && cfg.MatchMin <= 1) {
-		return bad("MatchMin = %g outside (0, 1]", cfg.MatchMin)
+		return configErr("MatchMin = %g outside (0, 1]", cfg.MatchMin)
+	}
+	return nil
+}
+
+// NewTracker returns a tracker for p × p matrices; cfg is validated and its
+// defaults filled in. Errors wrap ErrConfig or ErrSparsity.
+func NewTracker(p int, cfg Config) (*Tracker, error) {
+	if p < 1 {
+		return nil, configErr("dimension p = %d, want ≥ 1", p)
+	}
+	slots, auto, err := cfg.countDefaults(p)
+	if err != nil {
+		return nil, err
+	}
+	sp, err := cfg.slotSparsity(p, slots)
+	if err != nil {
+		return nil, err
+	}
+	if err := cfg.solverDefaults(); err != nil {
+		return nil, err
 	}
 	cfg.Sparsity = sp
 	m := cfg.MaxCount
@@ -401,52 +434,9 @@ func (t *Tracker) Refresh(a *mat.SymDense) error {
 	}
 	capR, minAdj := residualCap(pin, trace, t.cfg.MinAdjusted)
 	for j := 0; j < t.slots; j++ {
-		sp := t.sp[j]
-		hasWarm := warm && j < t.cur.r
-		var res Result
-		stop := false
-		if hasWarm {
-			res, err = ws.solve(sp, &t.opt, t.cur.pre[j], false, t.cur.x[j], t.cur.supp[j])
-			iters += res.Iterations + res.RefitIterations
-			if err == errEmptyOperator {
-				break
-			}
-			if err != nil {
-				return err
-			}
-		}
-		// A warm start that a penalty empties may still hold a mode from the
-		// cold start.
-		if !hasWarm || tryCold || res.Empty {
-			if hasWarm {
-				copy(t.bx, ws.x)
-				copy(t.bc, ws.c)
-				copy(t.bpre, ws.pre)
-				t.bxs = append(t.bxs[:0], ws.xs...)
-				t.bpreS = append(t.bpreS[:0], ws.preS...)
-			}
-			if !tryCold && !ws.deflatedNorms() {
-				// Column norms are kept up to date only on cold passes.
-				return ws.nonFinite()
-			}
-			rc, err := ws.solve(sp, &t.opt, nil, true, nil, nil)
-			iters += rc.Iterations + rc.RefitIterations
-			switch {
-			case err == errEmptyOperator:
-				stop = true
-			case err != nil:
-				return err
-			}
-			if hasWarm && (stop || rc.Empty || (!res.Empty && res.Objective >= rc.Objective)) {
-				copy(ws.x, t.bx)
-				copy(ws.c, t.bc)
-				copy(ws.pre, t.bpre)
-				ws.xs = append(ws.xs[:0], t.bxs...)
-				ws.preS = append(ws.preS[:0], t.bpreS...)
-				stop = false
-			} else if !stop {
-				res = rc
-			}
+		res, stop, err := t.solveSlot(j, warm, tryCold, &iters)
+		if err != nil {
+			return err
 		}
 		if stop || res.Empty {
 			break
@@ -491,6 +481,61 @@ func (t *Tracker) Refresh(a *mat.SymDense) error {
 	t.trace = trace
 	t.iters = iters
 	return nil
+}
+
+// solveSlot solves for mode slot j of a refresh: from the warm start of
+// the current mode j (when warm), from a cold start (when tryCold, there is
+// no warm start, or a penalty emptied the warm one), keeping the better of
+// the two. It adds the iterations to *iters; stop says the operator has no
+// more modes to give.
+func (t *Tracker) solveSlot(j int, warm, tryCold bool, iters *int) (res Result, stop bool, err error) {
+	ws := t.ws
+	sp := t.sp[j]
+	hasWarm := warm && j < t.cur.r
+	if hasWarm {
+		res, err = ws.solve(sp, &t.opt, t.cur.pre[j], false, t.cur.x[j], t.cur.supp[j])
+		*iters += res.Iterations + res.RefitIterations
+		if err == errEmptyOperator {
+			return res, true, nil
+		}
+		if err != nil {
+			return res, false, err
+		}
+	}
+	// A warm start that a penalty empties may still hold a mode from the
+	// cold start.
+	if !hasWarm || tryCold || res.Empty {
+		if hasWarm {
+			copy(t.bx, ws.x)
+			copy(t.bc, ws.c)
+			copy(t.bpre, ws.pre)
+			t.bxs = append(t.bxs[:0], ws.xs...)
+			t.bpreS = append(t.bpreS[:0], ws.preS...)
+		}
+		if !tryCold && !ws.deflatedNorms() {
+			// Column norms are kept up to date only on cold passes.
+			return res, false, ws.nonFinite()
+		}
+		rc, err := ws.solve(sp, &t.opt, nil, true, nil, nil)
+		*iters += rc.Iterations + rc.RefitIterations
+		switch {
+		case err == errEmptyOperator:
+			stop = true
+		case err != nil:
+			return res, false, err
+		}
+		if hasWarm && (stop || rc.Empty || (!res.Empty && res.Objective >= rc.Objective)) {
+			copy(ws.x, t.bx)
+			copy(ws.c, t.bc)
+			copy(ws.pre, t.bpre)
+			ws.xs = append(ws.xs[:0], t.bxs...)
+			ws.preS = append(ws.preS[:0], t.bpreS...)
+			stop = false
+		} else if !stop {
+			res = rc
+		}
+	}
+	return res, stop, nil
 }
 
 // keep stores the solution in the workspace as mode j of nx (with its
