@@ -196,27 +196,12 @@ func (o *operator) apply(dst, v []float64, vsupp []int) {
 		o.wsupp = o.wsupp[:0]
 		for _, i := range vsupp {
 			w[i] = v[i]
-			if !o.wmark[i] {
-				o.wmark[i] = true
-				o.wsupp = append(o.wsupp, i)
-			}
 		}
+		o.markSupport(vsupp)
 		if proj {
 			for s := o.t - 1; s >= 0; s-- {
-				x := o.xs[s]
-				var dot float64
-				for _, i := range o.xsupp[s] {
-					dot += x[i] * w[i]
-				}
-				if dot == 0 {
-					continue
-				}
-				for _, i := range o.xsupp[s] {
-					if !o.wmark[i] {
-						o.wmark[i] = true
-						o.wsupp = append(o.wsupp, i)
-					}
-					w[i] -= dot * x[i]
+				if o.project(w, s) {
+					o.markSupport(o.xsupp[s])
 				}
 			}
 		}
@@ -262,18 +247,30 @@ func (o *operator) apply(dst, v []float64, vsupp []int) {
 	}
 }
 
-// project sets z ← (I − x_s x_sᵀ) z for a dense z.
-func (o *operator) project(z []float64, s int) {
+// project sets z ← (I − x_s x_sᵀ) z for a dense z; it reports whether z
+// changed (x_sᵀz ≠ 0).
+func (o *operator) project(z []float64, s int) bool {
 	x := o.xs[s]
 	var dot float64
 	for _, i := range o.xsupp[s] {
 		dot += x[i] * z[i]
 	}
 	if dot == 0 {
-		return
+		return false
 	}
 	for _, i := range o.xsupp[s] {
 		z[i] -= dot * x[i]
+	}
+	return true
+}
+
+// markSupport adds the indices of supp not yet marked to the support of w.
+func (o *operator) markSupport(supp []int) {
+	for _, i := range supp {
+		if !o.wmark[i] {
+			o.wmark[i] = true
+			o.wsupp = append(o.wsupp, i)
+		}
 	}
 }
 
