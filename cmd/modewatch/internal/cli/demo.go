@@ -343,7 +343,7 @@ func demoReport(w io.Writer, svc *service.Service, sc, live *sim.Scenario, speed
 	var eps []evaluate.Episode
 	for _, e := range live.Truth().Episodes {
 		if e.Start.Before(last) {
-			eps = append(eps, evaluate.Episode{ID: e.ID, Start: e.Start, End: e.End, Kind: e.Kind, Channels: e.Channels})
+			eps = append(eps, e)
 		}
 	}
 	oc.span = last.Sub(first) + sc.Period

@@ -24,21 +24,14 @@ import (
 // alert starting outside it counts as false.
 const DefaultGrace = 15 * time.Minute
 
-// Episode is one labelled incident of a truth file.
-type Episode struct {
-	ID       string    `json:"id"`
-	Start    time.Time `json:"start"`
-	End      time.Time `json:"end"`
-	Kind     string    `json:"kind"`
-	Channels []string  `json:"channels"`
-}
+// Episode is one labelled incident of a truth file: the type sim writes
+// truth files with ([sim.TruthEpisode]).
+type Episode = sim.TruthEpisode
 
 // Truth is the content of a truth file:
 // {"episodes":[{"id","start","end","kind","channels":[...]}]} with RFC 3339
-// times and channel names in the auto-discovery form.
-type Truth struct {
-	Episodes []Episode `json:"episodes"`
-}
+// times and channel names in the auto-discovery form ([sim.Truth]).
+type Truth = sim.Truth
 
 // ReadTruth reads and checks a truth file.
 func ReadTruth(path string) (*Truth, error) {
