@@ -81,27 +81,16 @@ func (s *Service) startCluster(ctx context.Context, chans *stream.Channels, alig
 	c := &clusterPart{coord: coord, host: h, cancel: rcancel, done: make(chan struct{}), resync: make(chan struct{}, 1)}
 	go func() { defer close(c.done); coord.Run(rctx) }()
 	s.wg.Add(1)
-	go func() {
-		defer s.wg.Done()
-		t := time.NewTicker(s.cfg.CheckpointInterval)
-		defer t.Stop()
-		for {
-			select {
-			case <-s.done:
-				return
-			case <-t.C:
-			case <-h.Early():
-			}
-			sctx, cancel := context.WithTimeout(context.Background(), s.cfg.CheckpointInterval)
-			if err := h.SaveAll(sctx); err != nil {
-				s.log.Error("storing unit checkpoints failed", "err", err)
-				s.ckptErrors.Add(1)
-			} else {
-				s.lastCkpt.Store(time.Now().UnixNano())
-			}
-			cancel()
+	go s.everyCheckpoint(h.Early(), func() {
+		sctx, cancel := context.WithTimeout(context.Background(), s.cfg.CheckpointInterval)
+		defer cancel()
+		if err := h.SaveAll(sctx); err != nil {
+			s.log.Error("storing unit checkpoints failed", "err", err)
+			s.ckptErrors.Add(1)
+		} else {
+			s.lastCkpt.Store(time.Now().UnixNano())
 		}
-	}()
+	})
 	s.clu = c
 	s.cluOn.Store(c)
 	s.wg.Add(1)

@@ -557,6 +557,12 @@ func (s *Service) Checkpoint() error {
 }
 
 func (s *Service) checkpointLoop() {
+	s.everyCheckpoint(s.ckptNow, func() { _ = s.Checkpoint() })
+}
+
+// everyCheckpoint calls save every checkpoint interval and whenever early
+// receives, until the service stops; it is one goroutine of s.wg.
+func (s *Service) everyCheckpoint(early <-chan struct{}, save func()) {
 	defer s.wg.Done()
 	t := time.NewTicker(s.cfg.CheckpointInterval)
 	defer t.Stop()
@@ -565,9 +571,9 @@ func (s *Service) checkpointLoop() {
 		case <-s.done:
 			return
 		case <-t.C:
-		case <-s.ckptNow:
+		case <-early:
 		}
-		_ = s.Checkpoint()
+		save()
 	}
 }
 
