@@ -14,6 +14,7 @@
 package configs
 
 import (
+	"cmp"
 	"time"
 
 	"modewatch/alerts"
@@ -454,12 +455,8 @@ type Log struct {
 // Unit overrides are left empty (they inherit); use UnitModel and
 // UnitAlerts for a unit's effective settings.
 func (c *Config) ApplyDefaults() {
-	if c.Server.Name == "" {
-		c.Server.Name = "modewatch"
-	}
-	if c.Server.Prefix == "" {
-		c.Server.Prefix = DefaultPrefix
-	}
+	c.Server.Name = cmp.Or(c.Server.Name, "modewatch")
+	c.Server.Prefix = cmp.Or(c.Server.Prefix, DefaultPrefix)
 	if len(c.Intake.Subjects) == 0 && c.Intake.JetStream.Stream == "" && len(c.Intake.Files) == 0 {
 		c.Intake.Subjects = []string{c.Server.Prefix + ".readings.>"}
 	}
@@ -470,36 +467,18 @@ func (c *Config) ApplyDefaults() {
 		}
 	}
 	c.applyIntakeDefaults()
-	if c.Frames.Precision == "" {
-		c.Frames.Precision = DefaultPrecision
-	}
-	if c.Frames.MaxChannels == 0 {
-		c.Frames.MaxChannels = DefaultMaxChannels
-	}
+	c.Frames.Precision = cmp.Or(c.Frames.Precision, DefaultPrecision)
+	c.Frames.MaxChannels = cmp.Or(c.Frames.MaxChannels, DefaultMaxChannels)
 	c.Model = c.Model.Over(DefaultModel())
 	c.Alerts = c.Alerts.Over(DefaultAlerts())
-	if c.Delivery.Queue == 0 {
-		c.Delivery.Queue = DefaultDeliveryQueue
-	}
+	c.Delivery.Queue = cmp.Or(c.Delivery.Queue, DefaultDeliveryQueue)
 	c.HTTP.applyDefaults()
-	if c.StateDir == "" {
-		c.StateDir = DefaultStateDir
-	}
-	if c.Delivery.SpoolDir == "" {
-		c.Delivery.SpoolDir = c.StateDir + "/spool"
-	}
-	if c.CheckpointInterval == 0 {
-		c.CheckpointInterval = DefaultCheckpointInterval
-	}
-	if c.ShutdownTimeout == 0 {
-		c.ShutdownTimeout = DefaultShutdownTimeout
-	}
-	if c.Log.Format == "" {
-		c.Log.Format = DefaultLogFormat
-	}
-	if c.Log.Level == "" {
-		c.Log.Level = DefaultLogLevel
-	}
+	c.StateDir = cmp.Or(c.StateDir, DefaultStateDir)
+	c.Delivery.SpoolDir = cmp.Or(c.Delivery.SpoolDir, c.StateDir+"/spool")
+	c.CheckpointInterval = cmp.Or(c.CheckpointInterval, DefaultCheckpointInterval)
+	c.ShutdownTimeout = cmp.Or(c.ShutdownTimeout, DefaultShutdownTimeout)
+	c.Log.Format = cmp.Or(c.Log.Format, DefaultLogFormat)
+	c.Log.Level = cmp.Or(c.Log.Level, DefaultLogLevel)
 	c.applyClusterDefaults()
 }
 
@@ -542,95 +521,43 @@ func DefaultAlerts() Alerts {
 
 // Over returns m with every zero field taken from base.
 func (m Model) Over(base Model) Model {
-	if m.Sparsity == "" {
-		m.Sparsity = base.Sparsity
-	}
-	if m.Robust == 0 {
-		m.Robust = base.Robust
-	}
-	if m.ScoreLag == 0 {
-		m.ScoreLag = base.ScoreLag
-	}
-	if m.Modes.IsZero() {
-		m.Modes = base.Modes
-	}
-	if m.MaxModes == 0 {
-		m.MaxModes = base.MaxModes
-	}
-	if m.HalfLife == 0 {
-		m.HalfLife = base.HalfLife
-	}
-	if m.Alpha == 0 {
-		m.Alpha = base.Alpha
-	}
-	if m.Adapt == nil {
-		m.Adapt = base.Adapt
-	}
+	m.Sparsity = cmp.Or(m.Sparsity, base.Sparsity)
+	m.Robust = cmp.Or(m.Robust, base.Robust)
+	m.ScoreLag = cmp.Or(m.ScoreLag, base.ScoreLag)
+	m.Modes = cmp.Or(m.Modes, base.Modes)
+	m.MaxModes = cmp.Or(m.MaxModes, base.MaxModes)
+	m.HalfLife = cmp.Or(m.HalfLife, base.HalfLife)
+	m.Alpha = cmp.Or(m.Alpha, base.Alpha)
+	m.Adapt = cmp.Or(m.Adapt, base.Adapt)
 	if m.Limits.Method == "" {
 		m.Limits = base.Limits
 	}
-	if m.RefreshEvery == 0 {
-		m.RefreshEvery = base.RefreshEvery
-	}
-	if m.WarmUp == 0 {
-		m.WarmUp = base.WarmUp
-	}
-	if m.File == "" {
-		m.File = base.File
-	}
-	if m.MaxChannels == 0 {
-		m.MaxChannels = base.MaxChannels
-	}
-	if m.Statistics == "" {
-		m.Statistics = base.Statistics
-	}
-	if m.Smoothing == 0 {
-		m.Smoothing = base.Smoothing
-	}
-	if m.Lags == 0 {
-		m.Lags = base.Lags
-	}
+	m.RefreshEvery = cmp.Or(m.RefreshEvery, base.RefreshEvery)
+	m.WarmUp = cmp.Or(m.WarmUp, base.WarmUp)
+	m.File = cmp.Or(m.File, base.File)
+	m.MaxChannels = cmp.Or(m.MaxChannels, base.MaxChannels)
+	m.Statistics = cmp.Or(m.Statistics, base.Statistics)
+	m.Smoothing = cmp.Or(m.Smoothing, base.Smoothing)
+	m.Lags = cmp.Or(m.Lags, base.Lags)
 	return m
 }
 
 // Over returns a with every zero field taken from base.
 func (a Alerts) Over(base Alerts) Alerts {
-	if a.Budget == 0 {
-		a.Budget = base.Budget
-	}
-	if a.OnDelay == (OnDelay{}) {
-		a.OnDelay = base.OnDelay
-	}
-	if a.OffDelay == 0 {
-		a.OffDelay = base.OffDelay
-	}
-	if a.Deadband == 0 {
-		a.Deadband = base.Deadband
-	}
+	a.Budget = cmp.Or(a.Budget, base.Budget)
+	a.OnDelay = cmp.Or(a.OnDelay, base.OnDelay)
+	a.OffDelay = cmp.Or(a.OffDelay, base.OffDelay)
+	a.Deadband = cmp.Or(a.Deadband, base.Deadband)
 	if len(a.Severity) == 0 {
 		a.Severity = base.Severity
 	}
-	if a.Flood == (RateRule{}) {
-		a.Flood = base.Flood
-	}
-	if a.Chatter == (RateRule{}) {
-		a.Chatter = base.Chatter
-	}
-	if a.FreezeOnAlert == nil {
-		a.FreezeOnAlert = base.FreezeOnAlert
-	}
-	if a.LearnAroundAlert == nil {
-		a.LearnAroundAlert = base.LearnAroundAlert
-	}
-	if a.IncidentsPerLocation == nil {
-		a.IncidentsPerLocation = base.IncidentsPerLocation
-	}
-	if a.AcceptAfter == 0 {
-		a.AcceptAfter = base.AcceptAfter
-	}
-	if a.LocationQuiet == 0 {
-		a.LocationQuiet = base.LocationQuiet
-	}
+	a.Flood = cmp.Or(a.Flood, base.Flood)
+	a.Chatter = cmp.Or(a.Chatter, base.Chatter)
+	a.FreezeOnAlert = cmp.Or(a.FreezeOnAlert, base.FreezeOnAlert)
+	a.LearnAroundAlert = cmp.Or(a.LearnAroundAlert, base.LearnAroundAlert)
+	a.IncidentsPerLocation = cmp.Or(a.IncidentsPerLocation, base.IncidentsPerLocation)
+	a.AcceptAfter = cmp.Or(a.AcceptAfter, base.AcceptAfter)
+	a.LocationQuiet = cmp.Or(a.LocationQuiet, base.LocationQuiet)
 	return a
 }
 
