@@ -222,19 +222,9 @@ func TestFitReplayModel(t *testing.T) {
 			t.Fatalf("tag %q=%q, %v", k, v, err)
 		}
 		units[string(v)]++
-		fields := map[string]bool{}
-		for {
-			k, _, err := dec.NextField()
-			if err != nil {
-				t.Fatal(err)
-			}
-			if k == nil {
-				break
-			}
-			fields[string(k)] = true
-		}
+		fields := lineFields(t, dec)
 		for _, want := range []string{"t2", "t2_limit", "spe", "spe_limit", "phi", "phi_limit", "missing"} {
-			if !fields[want] {
+			if _, ok := fields[want]; !ok {
 				t.Fatalf("score line without %s: %v", want, fields)
 			}
 		}

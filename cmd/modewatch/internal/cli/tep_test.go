@@ -90,16 +90,9 @@ func tepScores(t *testing.T, path string, n int) (t2, spe []bool) {
 			}
 		}
 		f := map[string]float64{}
-		for {
-			k, v, err := dec.NextField()
-			if err != nil {
-				t.Fatal(err)
-			}
-			if k == nil {
-				break
-			}
+		for k, v := range lineFields(t, dec) {
 			if v.Kind() == lineprotocol.Float {
-				f[string(k)] = v.FloatV()
+				f[k] = v.FloatV()
 			}
 		}
 		ts, err := dec.Time(lineprotocol.Nanosecond, time.Time{})
@@ -215,4 +208,21 @@ func TestTennesseeEastmanCommands(t *testing.T) {
 		}
 	}
 	t.Log("\n" + b.String())
+}
+
+// lineFields reads the remaining fields of the decoder's current line
+// (after its measurement and tags) by name.
+func lineFields(t testing.TB, dec *lineprotocol.Decoder) map[string]lineprotocol.Value {
+	t.Helper()
+	fields := map[string]lineprotocol.Value{}
+	for {
+		k, v, err := dec.NextField()
+		if err != nil {
+			t.Fatal(err)
+		}
+		if k == nil {
+			return fields
+		}
+		fields[string(k)] = v
+	}
 }
