@@ -248,27 +248,27 @@ func (l *loader) nonneg(n *yaml.Node, path string) float64 {
 }
 
 func (l *loader) floats(n *yaml.Node, path string) []float64 {
-	n = deref(n)
-	if n.Kind != yaml.SequenceNode {
-		l.errf(n, path, "expected a list of numbers")
-		return nil
-	}
-	out := make([]float64, len(n.Content))
-	for i, c := range n.Content {
-		out[i] = l.float(c, fmt.Sprintf("%s[%d]", path, i))
-	}
-	return out
+	return list(l, n, path, "expected a list of numbers", l.float)
 }
 
 func (l *loader) strs(n *yaml.Node, path string) []string {
+	return list(l, n, path, "expected a list", func(c *yaml.Node, p string) string {
+		v, _ := l.scalar(c, p)
+		return v
+	})
+}
+
+// list reads the YAML list n with one, which gets each element and its
+// path ("path[i]"); a node that is not a list is the error want.
+func list[T any](l *loader, n *yaml.Node, path, want string, one func(*yaml.Node, string) T) []T {
 	n = deref(n)
 	if n.Kind != yaml.SequenceNode {
-		l.errf(n, path, "expected a list")
+		l.errf(n, path, "%s", want)
 		return nil
 	}
-	out := make([]string, len(n.Content))
+	out := make([]T, len(n.Content))
 	for i, c := range n.Content {
-		out[i], _ = l.scalar(c, fmt.Sprintf("%s[%d]", path, i))
+		out[i] = one(c, fmt.Sprintf("%s[%d]", path, i))
 	}
 	return out
 }
