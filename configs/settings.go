@@ -116,33 +116,44 @@ func FormatDuration(d time.Duration) string {
 
 func quoted(text string) string { return strconv.Quote(text) }
 
-func positiveDuration(s string) (time.Duration, string, error) {
-	d, err := ParseDuration(s)
-	if err != nil {
-		return 0, s, err
+// setDuration reads a duration above zero into the field of o that field
+// returns.
+func setDuration(field func(o *Overrides) *time.Duration) func(*Overrides, string) (string, error) {
+	return func(o *Overrides, s string) (string, error) {
+		d, err := ParseDuration(s)
+		if err != nil {
+			return s, err
+		}
+		if d <= 0 {
+			return s, errors.New("a duration must be above zero")
+		}
+		*field(o) = d
+		return FormatDuration(d), nil
 	}
-	if d <= 0 {
-		return 0, s, errors.New("a duration must be above zero")
-	}
-	return d, FormatDuration(d), nil
 }
 
-// fraction reads a number in (0, hi), what says what it is.
-func fraction(s string, hi float64, what string) (float64, string, error) {
-	f, err := strconv.ParseFloat(s, 64)
-	if err != nil || !(f > 0 && f < hi) {
-		return 0, s, fmt.Errorf("%q is not %s in (0, %g)", s, what, hi)
+// setFraction reads a number in (0, hi), what says what it is.
+func setFraction(hi float64, what string, field func(o *Overrides) *float64) func(*Overrides, string) (string, error) {
+	return func(o *Overrides, s string) (string, error) {
+		f, err := strconv.ParseFloat(s, 64)
+		if err != nil || !(f > 0 && f < hi) {
+			return s, fmt.Errorf("%q is not %s in (0, %g)", s, what, hi)
+		}
+		*field(o) = f
+		return strconv.FormatFloat(f, 'g', -1, 64), nil
 	}
-	return f, strconv.FormatFloat(f, 'g', -1, 64), nil
 }
 
-// frames reads a whole number of frames ≥ lo.
-func frames(s string, lo int) (int, string, error) {
-	n, err := strconv.Atoi(s)
-	if err != nil || n < lo {
-		return 0, s, fmt.Errorf("%q: want a whole number of frames ≥ %d", s, lo)
+// setFrames reads a whole number of frames ≥ lo.
+func setFrames(lo int, field func(o *Overrides) *int) func(*Overrides, string) (string, error) {
+	return func(o *Overrides, s string) (string, error) {
+		n, err := strconv.Atoi(s)
+		if err != nil || n < lo {
+			return s, fmt.Errorf("%q: want a whole number of frames ≥ %d", s, lo)
+		}
+		*field(o) = n
+		return strconv.Itoa(n), nil
 	}
-	return n, strconv.Itoa(n), nil
 }
 
 // ParseOnDelay reads "N/M": over the limit in N of the last M frames,
@@ -193,38 +204,22 @@ var settings = []Setting{
 	{
 		Name: "halflife", Section: "model", Model: true, Grid: true, Default: FormatDuration(DefaultHalfLife),
 		Doc: "half-life of the exponential weights, e.g. 12h or 7d (fit: equal weights unless given)",
-		set: func(o *Overrides, s string) (string, error) {
-			d, text, err := positiveDuration(s)
-			o.Model.HalfLife = d
-			return text, err
-		},
+		set: setDuration(func(o *Overrides) *time.Duration { return &o.Model.HalfLife }),
 	},
 	{
 		Name: "alpha", Section: "model", Model: true, Grid: true, Default: strconv.FormatFloat(tracker.DefaultAlpha, 'g', -1, 64),
 		Doc: "false-alarm rate of each control limit per frame, in (0, 0.5)",
-		set: func(o *Overrides, s string) (string, error) {
-			f, text, err := fraction(s, 0.5, "a false-alarm rate")
-			o.Model.Alpha = f
-			return text, err
-		},
+		set: setFraction(0.5, "a false-alarm rate", func(o *Overrides) *float64 { return &o.Model.Alpha }),
 	},
 	{
 		Name: "warmup", Section: "model", Model: true, Grid: true, Default: strconv.Itoa(tracker.DefaultWarmUp),
 		Doc: "frames learned before scores are reported (a unit of p channels wants at least 2p)",
-		set: func(o *Overrides, s string) (string, error) {
-			n, text, err := frames(s, 2)
-			o.Model.WarmUp = n
-			return text, err
-		},
+		set: setFrames(2, func(o *Overrides) *int { return &o.Model.WarmUp }),
 	},
 	{
 		Name: "refresh_every", Section: "model", Model: true, Grid: true, Default: strconv.Itoa(tracker.DefaultRefreshEvery),
 		Doc: "frames learned between refreshes of the modes and limits",
-		set: func(o *Overrides, s string) (string, error) {
-			n, text, err := frames(s, 1)
-			o.Model.RefreshEvery = n
-			return text, err
-		},
+		set: setFrames(1, func(o *Overrides) *int { return &o.Model.RefreshEvery }),
 	},
 	{
 		Name: "on_delay", Section: "alerts", Grid: true, Default: OnDelay{N: alerts.DefaultOnCount, M: alerts.DefaultOnWindow}.String(),
@@ -245,20 +240,12 @@ var settings = []Setting{
 	{
 		Name: "off_delay", Section: "alerts", Grid: true, Default: FormatDuration(alerts.DefaultOffDelay),
 		Doc: "time back below the limit (minus the deadband) before an active alarm returns to normal",
-		set: func(o *Overrides, s string) (string, error) {
-			d, text, err := positiveDuration(s)
-			o.Alerts.OffDelay = d
-			return text, err
-		},
+		set: setDuration(func(o *Overrides) *time.Duration { return &o.Alerts.OffDelay }),
 	},
 	{
 		Name: "deadband", Section: "alerts", Grid: true, Default: strconv.FormatFloat(alerts.DefaultDeadband, 'g', -1, 64),
 		Doc: "fraction of the limit below it that a statistic must fall to count as back in, in (0, 1)",
-		set: func(o *Overrides, s string) (string, error) {
-			f, text, err := fraction(s, 1, "a fraction of the limit")
-			o.Alerts.Deadband = f
-			return text, err
-		},
+		set: setFraction(1, "a fraction of the limit", func(o *Overrides) *float64 { return &o.Alerts.Deadband }),
 	},
 	{
 		Name: "adapt", Section: "model", Grid: true, Default: "true",
@@ -288,11 +275,7 @@ var settings = []Setting{
 	{
 		Name: "smoothing", Section: "model",
 		Doc: "EWMA weight in (0, 1) of the alarm statistics before the alarm rule; its threshold comes from alerts.budget (default: none)",
-		set: func(o *Overrides, s string) (string, error) {
-			f, text, err := fraction(s, 1, "an EWMA weight")
-			o.Model.Smoothing = f
-			return text, err
-		},
+		set: setFraction(1, "an EWMA weight", func(o *Overrides) *float64 { return &o.Model.Smoothing }),
 	},
 	{
 		Name: "statistics", Section: "model", Default: DefaultStatistics,
