@@ -72,20 +72,32 @@ func (s *Service) serveHTTP() error {
 	return nil
 }
 
+// largeSlotWait is how long a large request waits for a slot before it is
+// refused. A client can hold the whole of a large response (the handler's
+// last Write went straight to the socket) a moment before that handler
+// returns and frees its slot, so a client that sends its next transfer at
+// once would otherwise be refused by its own previous one.
+const largeSlotWait = time.Second
+
 // largeRequest wraps a handler whose request or response may be large (a
 // unit checkpoint): at most http.large_requests run at once, and a request
-// beyond that is answered 429 at once rather than queued, so that a burst
-// of uploads cannot hold several bodies in memory together.
+// beyond that waits at most [largeSlotWait] (without reading its body) and
+// is then answered 429 rather than queued, so that a burst of uploads
+// cannot hold several bodies in memory together.
 func (s *Service) largeRequest(h http.HandlerFunc) http.HandlerFunc {
 	return func(w http.ResponseWriter, r *http.Request) {
+		wait := time.NewTimer(largeSlotWait)
+		defer wait.Stop()
 		select {
 		case s.large <- struct{}{}:
 			defer func() { <-s.large }()
 			h(w, r)
-		default:
-			w.Header().Set("Retry-After", strconv.Itoa(5))
-			writeJSON(w, http.StatusTooManyRequests, map[string]string{
-				"error": fmt.Sprintf("busy: %d large request(s) (checkpoint transfers) in progress; retry later", cap(s.large))})
+			return
+		case <-wait.C:
+		case <-r.Context().Done():
 		}
+		w.Header().Set("Retry-After", strconv.Itoa(5))
+		writeJSON(w, http.StatusTooManyRequests, map[string]string{
+			"error": fmt.Sprintf("busy: %d large request(s) (checkpoint transfers) in progress; retry later", cap(s.large))})
 	}
 }
