@@ -131,7 +131,8 @@ func TestHTTPTokens(t *testing.T) {
 }
 
 // TestHTTPLargeRequestsLimited: while one checkpoint upload is being
-// received, a second one is answered 429 at once.
+// received, a second one is answered 429 once its short wait for a slot
+// is over.
 func TestHTTPLargeRequestsLimited(t *testing.T) {
 	cfg := serviceConfig(t, `server: {embedded_port: -1}
 http: {listen: "127.0.0.1:0", large_requests: 1}`)
@@ -149,9 +150,12 @@ http: {listen: "127.0.0.1:0", large_requests: 1}`)
 		resp.Body.Close()
 		first <- resp.StatusCode
 	}()
-	if _, err := pw.Write([]byte(`{"format":`)); err != nil { // the handler is reading now
+	if _, err := pw.Write([]byte(`{"format":`)); err != nil {
 		t.Fatal(err)
 	}
+	// The client has sent the first bytes; the handler holds the slot
+	// only once the server has routed the request to it.
+	waitUntil(t, 10*time.Second, "the first upload holding the slot", func() bool { return len(svc.large) == 1 })
 	code, rep := do(t, http.DefaultClient, "PUT", url, "", `{}`)
 	if code != http.StatusTooManyRequests {
 		t.Errorf("second upload during the first: %d %v, want 429", code, rep)
