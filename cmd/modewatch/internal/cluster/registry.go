@@ -62,6 +62,7 @@ type Lease struct {
 // Its methods are safe for concurrent use.
 type Registry struct {
 	kv  jetstream.KeyValue
+	js  jetstream.JetStream
 	ttl time.Duration
 }
 
@@ -97,7 +98,7 @@ func OpenRegistry(ctx context.Context, js jetstream.JetStream, cfg RegistryConfi
 	if err == nil && st.TTL() != cfg.TTL {
 		return nil, fmt.Errorf("cluster: bucket %s has a TTL of %v, this instance's lease TTL is %v: every instance must use the same", cfg.Bucket, st.TTL(), cfg.TTL)
 	}
-	return &Registry{kv: kv, ttl: cfg.TTL}, nil
+	return &Registry{kv: kv, js: js, ttl: cfg.TTL}, nil
 }
 
 // Retry calls f with a context bounded by 5 s until it succeeds or ctx
@@ -177,42 +178,57 @@ type Snapshot struct {
 // Read returns every live announcement and lease. Entries that do not
 // decode are skipped and reported in the error, which does not stop the
 // read.
+//
+// The keys are listed from the bucket's stream (its subjects at the moment
+// of the call) and each is then read at its latest revision. A key watch
+// is not used here: while other instances renew their entries (a new
+// revision replaces the old one, the bucket keeps one), a watch can report
+// that all initial values are delivered before it has delivered the new
+// revision of a key whose old one it skipped, and such a snapshot misses
+// a live instance or lease; plans made from it move units needlessly.
 func (r *Registry) Read(ctx context.Context) (Snapshot, error) {
 	s := Snapshot{Members: map[string]Member{}, Leases: map[string]Lease{}}
-	w, err := r.kv.WatchAll(ctx, jetstream.IgnoreDeletes())
+	prefix := "$KV." + r.kv.Bucket() + "."
+	st, err := r.js.Stream(ctx, "KV_"+r.kv.Bucket())
 	if err != nil {
 		return s, fmt.Errorf("cluster: read: %w", err)
 	}
-	defer w.Stop()
+	info, err := st.Info(ctx, jetstream.WithSubjectFilter(prefix+">"))
+	if err != nil {
+		return s, fmt.Errorf("cluster: read: %w", err)
+	}
 	var bad []error
-	for {
-		var e jetstream.KeyValueEntry
-		select {
-		case <-ctx.Done():
-			return s, fmt.Errorf("cluster: read: %w", ctx.Err())
-		case e = <-w.Updates():
+	for subj := range info.State.Subjects {
+		k := strings.TrimPrefix(subj, prefix)
+		isMember := strings.HasPrefix(k, memberPrefix)
+		if !isMember && !strings.HasPrefix(k, leasePrefix) && !strings.HasPrefix(k, leaseB64) {
+			continue
 		}
-		if e == nil { // the initial values are all delivered
-			return s, errors.Join(bad...)
+		e, err := r.kv.Get(ctx, k)
+		if errors.Is(err, jetstream.ErrKeyNotFound) || errors.Is(err, jetstream.ErrKeyDeleted) {
+			continue // deleted or expired since the listing
 		}
-		switch k := e.Key(); {
-		case strings.HasPrefix(k, memberPrefix):
+		if err != nil {
+			return s, fmt.Errorf("cluster: read %s: %w", k, err)
+		}
+		if isMember {
 			var m Member
 			if err := json.Unmarshal(e.Value(), &m); err != nil {
 				bad = append(bad, fmt.Errorf("cluster: %s: %w", k, err))
 				continue
 			}
 			s.Members[m.ID] = m
-		case strings.HasPrefix(k, leasePrefix), strings.HasPrefix(k, leaseB64):
-			var l Lease
-			if err := json.Unmarshal(e.Value(), &l); err != nil {
-				bad = append(bad, fmt.Errorf("cluster: %s: %w", k, err))
-				continue
-			}
-			l.Revision = e.Revision()
-			s.Leases[l.Unit] = l
+			continue
 		}
+		var l Lease
+		if err := json.Unmarshal(e.Value(), &l); err != nil {
+			bad = append(bad, fmt.Errorf("cluster: %s: %w", k, err))
+			continue
+		}
+		l.Revision = e.Revision()
+		s.Leases[l.Unit] = l
 	}
+	return s, errors.Join(bad...)
 }
 
 // Acquire takes the lease of unit for owner if nobody holds it (create,
