@@ -165,6 +165,15 @@ type JSConsumer struct {
 	down       atomic.Bool // the consumer is gone and being recreated
 	downReason atomic.Pointer[string]
 	recreated  atomic.Uint64
+
+	// startSeq is the first stream sequence the consumer recreated after
+	// its deletion was asked for (0: no such bound); run goroutine only.
+	// The server can still deliver earlier messages: a durable consumer
+	// created again under its old name may pick up the deleted one's
+	// state as last written to disk (e.g. delivered up to 1 when 10 were),
+	// overriding the start sequence, and deliver as new what this
+	// consumer already handed over.
+	startSeq uint64
 }
 
 // ConsumeJetStream binds to (or creates, see cfg) the durable pull consumer
@@ -306,6 +315,16 @@ func (s *JSConsumer) Down() (bool, string) {
 	return true, "consumer gone"
 }
 
+// recreateSettle is how long recreate waits before its first attempt. The
+// server tells a deleted consumer's pull requests, and forgets the stream's
+// name, before it has finished tearing the deleted one down: it removes the
+// consumer's and the stream's storage by name last. A consumer or stream
+// created under the same name meanwhile can start from the deleted
+// consumer's state as last written (messages already handed over come
+// again, see startSeq) or lose its storage (publishes are never
+// acknowledged).
+const recreateSettle = time.Second
+
 // recreate creates the stream (if gone and allowed) and the consumer again
 // and installs a new message iterator, retrying with backoff until it
 // succeeds (true) or the consumer is stopped (false).
@@ -316,6 +335,11 @@ func (s *JSConsumer) recreate(cause error) bool {
 	s.down.Store(true)
 	defer s.down.Store(false)
 	s.log.Error("consumer gone on the server; recreating it", "err", cause, "last_stream_seq", s.lastSeq)
+	select {
+	case <-s.ctx.Done():
+		return false
+	case <-time.After(recreateSettle):
+	}
 	for attempt := 1; ; attempt++ {
 		ev, err := s.recreateOnce(cause)
 		if err == nil {
@@ -378,6 +402,10 @@ func (s *JSConsumer) recreateOnce(cause error) (Recreated, error) {
 		return ev, errors.New("stopped")
 	}
 	s.cons, s.it = cons, it
+	s.startSeq = 0
+	if ev.AfterSeq > 0 {
+		s.startSeq = ev.AfterSeq + 1
+	}
 	if ev.StreamRecreated {
 		s.lastSeq = 0
 	}
@@ -427,6 +455,17 @@ func (s *JSConsumer) run() {
 			// Not a JetStream message; cannot be acknowledged or ordered.
 			s.pullErrs.Add(1)
 			s.log.Warn("message without JetStream metadata", "subject", jm.Subject(), "err", err)
+			continue
+		}
+		if seq := md.Sequence.Stream; seq < s.startSeq {
+			// Handed over before the consumer was recreated (see
+			// startSeq): acknowledged so that it does not come again,
+			// and not handed over twice.
+			s.log.Warn("message before the recreated consumer's start delivered again (stale consumer state on the server); acknowledged, not handed over",
+				"stream_seq", seq, "start_stream_seq", s.startSeq)
+			if err := jm.Ack(); err != nil {
+				s.ackErrs.Add(1)
+			}
 			continue
 		}
 		if md.NumDelivered > 1 {
