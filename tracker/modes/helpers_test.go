@@ -1,8 +1,8 @@
 package modes
 
 // Sources of the check values in these tests: "REFERENCE.md" and
-// "testdata/SPARSE_PCA.md §n" are testdata/REFERENCE.md (Pitprops λ*(k), eigenvalues,
-// published multi-component results) and testdata/SPARSE_PCA.md (derivations
+// "testdata/CONGRADU_NOTES.md §n" are testdata/REFERENCE.md (Pitprops λ*(k), eigenvalues,
+// published multi-component results) and testdata/CONGRADU_NOTES.md (derivations
 // and independent numpy check values for every ConGradU variant); the
 // Pitprops matrix and its provenance are testdata/pitprops_corr.csv and
 // testdata/SOURCE.md. gonum's mat.EigenSym and mat.Cholesky serve as the

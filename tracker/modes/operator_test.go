@@ -11,7 +11,7 @@ import (
 
 // TestOperatorDeflation compares the implicit deflated products and the
 // updated column norms with explicitly deflated matrices built by gonum mat
-// products from the formulas of Mackey (NIPS 2008; table in testdata/SPARSE_PCA.md §5):
+// products from the formulas of Mackey (NIPS 2008; table in testdata/CONGRADU_NOTES.md §5):
 //
 //	projection: A_t = (I − xxᵀ)A_{t−1}(I − xxᵀ)
 //	Schur:      A_t = A_{t−1} − A_{t−1}xxᵀA_{t−1}/(xᵀA_{t−1}x)

@@ -11,7 +11,7 @@ import (
 
 // lambdaStar holds λ*(k) = max xᵀAx over ‖x‖₂ = 1, ‖x‖₀ ≤ k on Pitprops and
 // the optimal support (nil where not unique), from exhaustive search over
-// all 8191 supports (testdata/REFERENCE.md; testdata/SPARSE_PCA.md §7.2), confirmed
+// all 8191 supports (testdata/REFERENCE.md; testdata/CONGRADU_NOTES.md §7.2), confirmed
 // for k = 5 (3.40615) and k = 10 (4.17264) by the branch-and-bound of Berk &
 // Bertsimas, Math. Prog. Comp. 11 (2019).
 var lambdaStar = []struct {
@@ -70,7 +70,7 @@ func TestPitpropsL0(t *testing.T) {
 // TestPitpropsSixModes: six modes with cardinalities 7, 4, 4, 1, 1, 1 (those
 // of Zou, Hastie & Tibshirani 2006 on Pitprops) must reach at least 75.0 %
 // cumulative adjusted variance of tr(A) = 13. REFERENCE.md: a truncated power
-// method with these cardinalities reaches 75.2–75.6 % (testdata/SPARSE_PCA.md §7.5:
+// method with these cardinalities reaches 75.2–75.6 % (testdata/CONGRADU_NOTES.md §7.5:
 // projection 75.64 %, Schur 75.51 % with several starts); the published SPCA
 // figure is about 75.8 % (from memory, medium confidence).
 func TestPitpropsSixModes(t *testing.T) {
@@ -140,7 +140,7 @@ func TestPitpropsDensePC1(t *testing.T) {
 }
 
 // TestPitpropsVariants checks the other ConGradU variants against the
-// Pitprops check values of testdata/SPARSE_PCA.md §7.4 (computed independently with
+// Pitprops check values of testdata/CONGRADU_NOTES.md §7.4 (computed independently with
 // numpy; largest-column start unless noted). Cardinality and xᵀAx of the
 // solver's loadings (no refit), and xᵀAx after the refit where §7.4 gives it.
 // Values are rounded to 6 decimals there, hence the 1e-6 tolerance.
@@ -242,7 +242,7 @@ func TestPitpropsVariants(t *testing.T) {
 		t.Errorf("l0pen 0.3 from the column start: card %d, %.7f; want 6, λ*(6) = 3.770960", res.Card, res.Variance)
 	}
 	// The ℓ0-penalised solutions satisfy the fixed-point bound card < λ/γ
-	// (testdata/SPARSE_PCA.md §3(iii), derived there).
+	// (testdata/CONGRADU_NOTES.md §3(iii), derived there).
 	if float64(res.Card) >= res.Variance/0.3 {
 		t.Errorf("card %d violates card < λ/γ = %.3f", res.Card, res.Variance/0.3)
 	}

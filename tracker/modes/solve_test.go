@@ -91,7 +91,7 @@ func monotoneCases(p int, dmax float64, rng *rand.Rand) []Sparsity {
 
 // TestMonotone: ConGradU never decreases its objective (Luss & Teboulle
 // 2013; the ascent inequality f(x⁺) − f(x) ≥ γ(x) ≥ 0 is derived in
-// testdata/SPARSE_PCA.md §2, and for the penalised and reweighted maps in §3(iii)–(v)).
+// testdata/CONGRADU_NOTES.md §2, and for the penalised and reweighted maps in §3(iii)–(v)).
 // Checked from the first feasible iterate (starts need not be feasible),
 // over 60 seeded matrices of three kinds and every variant, from the cold
 // start and from a random warm start, with a relative slack of 1e-12.
@@ -161,7 +161,7 @@ func TestMonotone(t *testing.T) {
 
 // TestL1TieCase: when the largest |(Ax)_i| is attained m₁ > s² times the
 // ℓ1/ℓ2 oracle has no root and the maximiser is (s/m₁)·sign on the tied
-// entries, inside the ball (testdata/SPARSE_PCA.md §3(ii)). On A = 11ᵀ (p = 3) every
+// entries, inside the ball (testdata/CONGRADU_NOTES.md §3(ii)). On A = 11ᵀ (p = 3) every
 // (Ax)_i ties; max (Σx)² over ‖x‖₂ ≤ 1, ‖x‖₁ ≤ s is s² (hand derivation:
 // Σx ≤ ‖x‖₁ ≤ s, attained at x = s/3·1), so with s = 1.5 the objective is
 // 2.25 and the returned unit loadings are 1/√3 each (variance 3).
@@ -186,7 +186,7 @@ func TestL1TieCase(t *testing.T) {
 }
 
 // TestL1Oracle checks the exact ℓ1/ℓ2 step against its defining
-// properties (testdata/SPARSE_PCA.md §3(ii)): the maximiser u of ⟨c, u⟩ over
+// properties (testdata/CONGRADU_NOTES.md §3(ii)): the maximiser u of ⟨c, u⟩ over
 // ‖u‖₂ ≤ 1, ‖u‖₁ ≤ s is S_λ(c)/‖S_λ(c)‖ with ‖u‖₁ = s when the ℓ1 bound is
 // active, and no feasible vector does better (1000 random feasible vectors
 // per case; a feasible v is a random direction scaled into both balls).
@@ -300,7 +300,7 @@ func TestSolveErrors(t *testing.T) {
 		{"ε=0 log", pit, Sparsity{Method: LogPen, Gamma: 0.1, Eps: 0}, ErrSparsity},
 		{"ε<0 exp", pit, Sparsity{Method: ExpPen, Gamma: 0.1, Eps: -1}, ErrSparsity},
 		{"unknown method", pit, Sparsity{Method: 99}, ErrSparsity},
-		// (Ax)_i² ≤ A_ii·xᵀAx: γ ≥ max A_ii = 1 keeps nothing (testdata/SPARSE_PCA.md §3(iii)).
+		// (Ax)_i² ≤ A_ii·xᵀAx: γ ≥ max A_ii = 1 keeps nothing (testdata/CONGRADU_NOTES.md §3(iii)).
 		{"l0pen γ=max A_ii", pit, Sparsity{Method: L0Pen, Gamma: 1}, ErrPenaltyTooHigh},
 		{"l1sqrt γ=max √A_ii", pit, Sparsity{Method: L1PenSqrt, Gamma: 1}, ErrPenaltyTooHigh},
 		{"zero matrix", zero, Sparsity{Method: L0, K: 2}, ErrZeroMatrix},
@@ -374,7 +374,7 @@ func TestDegenerate(t *testing.T) {
 		t.Errorf("null-space warm start: %+v, %v", res, err)
 	}
 	// The squared ℓ1 penalty has no a-priori bound: too large a γ gives an
-	// explicit empty component (testdata/SPARSE_PCA.md §3(iv): x = 0 once γ ≳ 3 on Pitprops).
+	// explicit empty component (testdata/CONGRADU_NOTES.md §3(iv): x = 0 once γ ≳ 3 on Pitprops).
 	for i := range x {
 		x[i] = 1
 	}

@@ -31,7 +31,7 @@ func TestSpikedRecovery(t *testing.T) {
 			{"l0 projection", Sparsity{Method: L0, K: k}, Projection},
 			{"l0 schur", Sparsity{Method: L0, K: k}, Schur},
 			// ℓ0 penalty: at a fixed point entry i is kept iff
-			// (Ax)_i² > γ·xᵀAx, i.e. λx_i² > γ (testdata/SPARSE_PCA.md §3(iii)). The
+			// (Ax)_i² > γ·xᵀAx, i.e. λx_i² > γ (testdata/CONGRADU_NOTES.md §3(iii)). The
 			// smallest factor loading has x_i² ≥ 0.25/(0.25 + 5) ≈ 0.05 and
 			// λ ≈ 1 + θ ≥ 4, so λx_i² ≳ 0.2; noise entries of Ax are
 			// O(√(λ/n)), λx_i² ≈ 1/n. γ = 0.1 lies between.
