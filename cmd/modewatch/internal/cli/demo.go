@@ -139,6 +139,8 @@ func runDemoWith(ctx context.Context, env IO, opt demoOptions) (demoOutcome, err
 		}
 		defer os.RemoveAll(dir)
 		stateDir = dir
+	} else if err := os.MkdirAll(stateDir, 0o755); err != nil {
+		return oc, fmt.Errorf("--state-dir: %w", err)
 	}
 	cfg, err := demoConfig(opt.listen, stateDir)
 	if err != nil {

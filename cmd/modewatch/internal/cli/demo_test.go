@@ -19,12 +19,12 @@ import (
 // TestDemoRuns: the demo needs no configuration and no network (embedded
 // server on a free loopback port, HTTP API on a free port if the default is
 // taken), stops by itself with --duration, and says that it is advisory and
-// which settings it runs with.
+// which settings it runs with; --state-dir may name a folder not made yet.
 func TestDemoRuns(t *testing.T) {
 	if testing.Short() {
 		t.Skip("runs the demo for a few seconds")
 	}
-	code, out, errs := runCLI(t, "", "demo", "--duration", "3s", "--speed", "20000", "--state-dir", t.TempDir())
+	code, out, errs := runCLI(t, "", "demo", "--duration", "3s", "--speed", "20000", "--state-dir", filepath.Join(t.TempDir(), "not", "there", "yet"))
 	if code != ExitOK {
 		t.Fatalf("exit %d\nstdout:\n%s\nstderr:\n%s", code, out, errs)
 	}
