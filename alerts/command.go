@@ -320,6 +320,6 @@ func (e *Engine) resetAlarms(u *unit, t time.Time) {
 	g.acts.reset()
 	u.loc.extra = u.loc.extra[:0]
 	u.loc.newLoc.Reset(t)
-	clear(u.quality)
+	u.clearQuality()
 	u.openings.reset()
 }

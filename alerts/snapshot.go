@@ -199,15 +199,9 @@ func (e *Engine) snapshotOf(us []*unit, only string) *snapshot {
 		if nl := snapAlarmOf(&u.loc.newLoc); State(nl.State) != Normal || nl.Window != 0 {
 			su.NewLoc = &nl
 		}
-		for k, q := range u.quality {
-			su.Quality = append(su.Quality, snapQuality{Kind: k.kind, Channel: k.channel, Alarm: snapAlarmOf(&q.a), Group: snapGroupOf(&q.g, incs)})
+		for _, q := range u.qorder { // sorted by kind, then channel
+			su.Quality = append(su.Quality, snapQuality{Kind: q.g.qkind, Channel: q.g.chann, Alarm: snapAlarmOf(&q.a), Group: snapGroupOf(&q.g, incs)})
 		}
-		slices.SortFunc(su.Quality, func(a, b snapQuality) int {
-			if c := cmpString(a.Kind, b.Kind); c != 0 {
-				return c
-			}
-			return cmpString(a.Channel, b.Channel)
-		})
 		for k := u.openings.n - 1; k >= 0; k-- {
 			t, inc := u.openings.at(k)
 			o := snapOpening{T: t}
@@ -488,7 +482,7 @@ func (e *Engine) buildUnit(su snapUnit, lookup func(string) (*incident, error)) 
 		if err := e.restoreGroup(u, &q.g, sq.Group, lookup); err != nil {
 			return nil, err
 		}
-		u.quality[qkey{sq.Kind, sq.Channel}] = q
+		u.addQuality(qkey{sq.Kind, sq.Channel}, q)
 	}
 	for _, o := range su.Openings {
 		inc, err := lookup(o.Inc)
