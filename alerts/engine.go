@@ -1176,14 +1176,7 @@ func (e *Engine) Counters(dst []UnitCounters) []UnitCounters {
 		c.InFlood, c.InMaint, c.Frozen = u.flood != nil, u.maint, u.frozen
 		dst = append(dst, c)
 	}
-	slices.SortFunc(dst[start:], func(a, b UnitCounters) int {
-		if a.Unit < b.Unit {
-			return -1
-		} else if a.Unit > b.Unit {
-			return 1
-		}
-		return 0
-	})
+	slices.SortFunc(dst[start:], func(a, b UnitCounters) int { return cmp.Compare(a.Unit, b.Unit) })
 	return dst
 }
 

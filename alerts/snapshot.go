@@ -1,6 +1,7 @@
 package alerts
 
 import (
+	"cmp"
 	"encoding/json"
 	"errors"
 	"fmt"
@@ -250,18 +251,8 @@ func (e *Engine) snapshotOf(us []*unit, only string) *snapshot {
 		}
 		s.Incidents = append(s.Incidents, si)
 	}
-	slices.SortFunc(s.Incidents, func(a, b snapIncident) int { return cmpString(a.ID, b.ID) })
+	slices.SortFunc(s.Incidents, func(a, b snapIncident) int { return cmp.Compare(a.ID, b.ID) })
 	return s
-}
-
-func cmpString(a, b string) int {
-	switch {
-	case a < b:
-		return -1
-	case a > b:
-		return 1
-	}
-	return 0
 }
 
 func snapAlarmOf(a *Alarm) snapAlarm {
