@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"encoding/json"
 	"fmt"
+	"strings"
 	"testing"
 	"time"
 )
@@ -73,6 +74,25 @@ func TestStuckTogetherDeterministic(t *testing.T) {
 			if got[i] != want[i] {
 				t.Fatalf("run %d: record %d differs:\n got %s\nwant %s", run, i, got[i], want[i])
 			}
+		}
+	}
+}
+
+// TestCommandValidateOrder: a command with every text field too long is
+// refused with the fields named in their order, the same on every call
+// (they were checked in Go map order).
+func TestCommandValidateOrder(t *testing.T) {
+	long := strings.Repeat("x", maxText+1)
+	c := Command{Op: OpAccept, By: long, Reason: long, Comment: long, AlertID: long, Unit: long}
+	var names []string
+	for _, f := range []string{"by", "reason", "comment", "alert_id", "unit"} {
+		names = append(names, fmt.Sprintf("field %q: longer than %d bytes", f, maxText))
+	}
+	want := strings.Join(names, "; ")
+	for run := 0; run < 20; run++ {
+		err := c.Validate()
+		if err == nil || !strings.Contains(err.Error(), want) {
+			t.Fatalf("run %d: %v\nwant it to hold %s", run, err, want)
 		}
 	}
 }
