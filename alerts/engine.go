@@ -605,6 +605,15 @@ func (e *Engine) LastFrame(unit string) time.Time {
 	return time.Time{}
 }
 
+// newQuality returns the data-quality alarm of kind on channel ch of u,
+// in its initial state, under rule (not registered).
+func (u *unit) newQuality(kind, ch string, rule QualityRule) *qalarm {
+	return &qalarm{
+		a: NewAlarm(AlarmRule{N: 1, M: 1, OnHold: rule.Hold, OffDelay: rule.OffDelay}),
+		g: group{key: kind + ":" + ch, qkind: kind, chann: ch, acts: newRing(u.rules.ChatterCount)},
+	}
+}
+
 // addQuality registers the data-quality alarm q under k (replacing one
 // already there), keeping u.qorder sorted by kind, then channel.
 func (u *unit) addQuality(k qkey, q *qalarm) {
@@ -642,11 +651,7 @@ func (e *Engine) stepQuality(u *unit, kind, ch string, present bool, t time.Time
 		if !present {
 			return
 		}
-		rule := e.cfg.Quality[kind]
-		q = &qalarm{
-			a: NewAlarm(AlarmRule{N: 1, M: 1, OnHold: rule.Hold, OffDelay: rule.OffDelay}),
-			g: group{key: kind + ":" + ch, qkind: kind, chann: ch, acts: newRing(u.rules.ChatterCount)},
-		}
+		q = u.newQuality(kind, ch, e.cfg.Quality[kind])
 		u.addQuality(k, q)
 	}
 	if present && q.seq == u.seq {

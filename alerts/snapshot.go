@@ -465,10 +465,7 @@ func (e *Engine) buildUnit(su snapUnit, lookup func(string) (*incident, error)) 
 		if !ok {
 			return nil, fmt.Errorf("unknown quality kind %q", sq.Kind)
 		}
-		q := &qalarm{
-			a: NewAlarm(AlarmRule{N: 1, M: 1, OnHold: rule.Hold, OffDelay: rule.OffDelay}),
-			g: group{key: sq.Kind + ":" + sq.Channel, qkind: sq.Kind, chann: sq.Channel, acts: newRing(u.rules.ChatterCount)},
-		}
+		q := u.newQuality(sq.Kind, sq.Channel, rule)
 		restoreAlarm(&q.a, sq.Alarm)
 		if err := e.restoreGroup(u, &q.g, sq.Group, lookup); err != nil {
 			return nil, err
