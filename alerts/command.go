@@ -123,8 +123,11 @@ func (c Command) Validate() error {
 		}
 	}
 	need(strings.TrimSpace(c.By) != "", `field "by": who gives the command is required`)
-	for name, v := range map[string]string{"by": c.By, "reason": c.Reason, "comment": c.Comment, "alert_id": c.AlertID, "unit": c.Unit} {
-		need(len(v) <= maxText, fmt.Sprintf("field %q: longer than %d bytes", name, maxText))
+	// In field order, so that the same command always gets the same reply.
+	for _, f := range [...]struct{ name, v string }{{"by", c.By}, {"reason", c.Reason}, {"comment", c.Comment}, {"alert_id", c.AlertID}, {"unit", c.Unit}} {
+		if len(f.v) > maxText {
+			errs = append(errs, fmt.Sprintf("field %q: longer than %d bytes", f.name, maxText))
+		}
 	}
 	switch c.Op {
 	case OpAck, OpUnshelve:
@@ -320,6 +323,6 @@ func (e *Engine) resetAlarms(u *unit, t time.Time) {
 	g.acts.reset()
 	u.loc.extra = u.loc.extra[:0]
 	u.loc.newLoc.Reset(t)
-	clear(u.quality)
+	u.clearQuality()
 	u.openings.reset()
 }

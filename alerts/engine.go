@@ -1,6 +1,7 @@
 package alerts
 
 import (
+	"cmp"
 	"context"
 	"errors"
 	"fmt"
@@ -192,6 +193,7 @@ type unit struct {
 	stats    [nStats]Alarm
 	modelG   group
 	quality  map[qkey]*qalarm
+	qorder   []*qalarm // the values of quality sorted by kind, then channel: every walk goes through it, so that output never depends on map order
 	seq      uint64
 	openings ring // start times (and incidents) of recent new alerts, for floods
 	flood    *incident
@@ -455,7 +457,7 @@ func (e *Engine) Observe(o *Observation) error {
 	}
 	// Timers first: shelf expiry, flood end, chattering quiet, stale.
 	e.expireShelf(u, &u.modelG, t)
-	for _, q := range u.quality {
+	for _, q := range u.qorder {
 		e.expireShelf(u, &q.g, t)
 	}
 	e.checkFloodEnd(u, t)
@@ -520,11 +522,13 @@ func (e *Engine) Observe(o *Observation) error {
 		}
 		e.stepQuality(u, QualityMissing, ch, true, t, o)
 	}
-	for k, q := range u.quality {
+	for i := 0; i < len(u.qorder); i++ {
+		q := u.qorder[i]
 		if q.seq != u.seq {
-			e.stepQuality(u, k.kind, k.channel, false, t, o)
+			e.stepQuality(u, q.g.qkind, q.g.chann, false, t, o)
 			if q.a.State() == Normal && q.g.inc == nil && q.g.shelf == nil && !q.g.chattering && quiet(&q.g.acts, t, u.rules.ChatterWindow) {
-				delete(u.quality, k)
+				u.dropQuality(i)
+				i--
 			}
 		}
 	}
@@ -570,7 +574,7 @@ func (e *Engine) startTimers(u *unit, t time.Time) {
 	u.tick = t
 	u.rate.advance(t)
 	e.expireShelf(u, &u.modelG, t)
-	for _, q := range u.quality {
+	for _, q := range u.qorder {
 		e.expireShelf(u, &q.g, t)
 	}
 	e.checkFloodEnd(u, t)
@@ -581,7 +585,7 @@ func (e *Engine) startTimers(u *unit, t time.Time) {
 // alarm group, then a pending flood revision and the freeze state.
 func (e *Engine) endTimers(u *unit, t time.Time) {
 	e.checkGroup(u, &u.modelG, t)
-	for _, q := range u.quality {
+	for _, q := range u.qorder {
 		e.checkGroup(u, &q.g, t)
 	}
 	if f := u.flood; f != nil && f.dirty && t.Sub(f.lastPub) >= e.cfg.FloodUpdate {
@@ -601,6 +605,45 @@ func (e *Engine) LastFrame(unit string) time.Time {
 	return time.Time{}
 }
 
+// newQuality returns the data-quality alarm of kind on channel ch of u,
+// in its initial state, under rule (not registered).
+func (u *unit) newQuality(kind, ch string, rule QualityRule) *qalarm {
+	return &qalarm{
+		a: NewAlarm(AlarmRule{N: 1, M: 1, OnHold: rule.Hold, OffDelay: rule.OffDelay}),
+		g: group{key: kind + ":" + ch, qkind: kind, chann: ch, acts: newRing(u.rules.ChatterCount)},
+	}
+}
+
+// addQuality registers the data-quality alarm q under k (replacing one
+// already there), keeping u.qorder sorted by kind, then channel.
+func (u *unit) addQuality(k qkey, q *qalarm) {
+	i, found := slices.BinarySearchFunc(u.qorder, k, func(a *qalarm, k qkey) int {
+		if c := cmp.Compare(a.g.qkind, k.kind); c != 0 {
+			return c
+		}
+		return cmp.Compare(a.g.chann, k.channel)
+	})
+	if found {
+		u.qorder[i] = q
+	} else {
+		u.qorder = slices.Insert(u.qorder, i, q)
+	}
+	u.quality[k] = q
+}
+
+// dropQuality removes u.qorder[i] and its entry in u.quality.
+func (u *unit) dropQuality(i int) {
+	q := u.qorder[i]
+	delete(u.quality, qkey{q.g.qkind, q.g.chann})
+	u.qorder = slices.Delete(u.qorder, i, i+1)
+}
+
+// clearQuality removes every data-quality alarm of u.
+func (u *unit) clearQuality() {
+	clear(u.quality)
+	u.qorder = slices.Delete(u.qorder, 0, len(u.qorder))
+}
+
 func (e *Engine) stepQuality(u *unit, kind, ch string, present bool, t time.Time, o *Observation) {
 	k := qkey{kind, ch}
 	q := u.quality[k]
@@ -608,12 +651,8 @@ func (e *Engine) stepQuality(u *unit, kind, ch string, present bool, t time.Time
 		if !present {
 			return
 		}
-		rule := e.cfg.Quality[kind]
-		q = &qalarm{
-			a: NewAlarm(AlarmRule{N: 1, M: 1, OnHold: rule.Hold, OffDelay: rule.OffDelay}),
-			g: group{key: kind + ":" + ch, qkind: kind, chann: ch, acts: newRing(u.rules.ChatterCount)},
-		}
-		u.quality[k] = q
+		q = u.newQuality(kind, ch, e.cfg.Quality[kind])
+		u.addQuality(k, q)
 	}
 	if present && q.seq == u.seq {
 		return // named twice in one frame (Missing and Quality)
@@ -941,12 +980,14 @@ func (e *Engine) openIncidents(u *unit) []*incident {
 		out = append(out, u.modelG.inc)
 	}
 	out = append(out, u.loc.extra...)
-	for _, q := range u.quality {
+	for _, q := range u.qorder {
 		if q.g.inc != nil {
 			out = append(out, q.g.inc)
 		}
 	}
-	slices.SortFunc(out, func(a, b *incident) int { return a.start.Compare(b.start) })
+	// Stable: incidents that started in the same frame keep the order
+	// above (model, locations, data quality by kind and channel).
+	slices.SortStableFunc(out, func(a, b *incident) int { return a.start.Compare(b.start) })
 	return out
 }
 
@@ -1140,14 +1181,7 @@ func (e *Engine) Counters(dst []UnitCounters) []UnitCounters {
 		c.InFlood, c.InMaint, c.Frozen = u.flood != nil, u.maint, u.frozen
 		dst = append(dst, c)
 	}
-	slices.SortFunc(dst[start:], func(a, b UnitCounters) int {
-		if a.Unit < b.Unit {
-			return -1
-		} else if a.Unit > b.Unit {
-			return 1
-		}
-		return 0
-	})
+	slices.SortFunc(dst[start:], func(a, b UnitCounters) int { return cmp.Compare(a.Unit, b.Unit) })
 	return dst
 }
 

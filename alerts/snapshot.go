@@ -1,6 +1,7 @@
 package alerts
 
 import (
+	"cmp"
 	"encoding/json"
 	"errors"
 	"fmt"
@@ -199,15 +200,9 @@ func (e *Engine) snapshotOf(us []*unit, only string) *snapshot {
 		if nl := snapAlarmOf(&u.loc.newLoc); State(nl.State) != Normal || nl.Window != 0 {
 			su.NewLoc = &nl
 		}
-		for k, q := range u.quality {
-			su.Quality = append(su.Quality, snapQuality{Kind: k.kind, Channel: k.channel, Alarm: snapAlarmOf(&q.a), Group: snapGroupOf(&q.g, incs)})
+		for _, q := range u.qorder { // sorted by kind, then channel
+			su.Quality = append(su.Quality, snapQuality{Kind: q.g.qkind, Channel: q.g.chann, Alarm: snapAlarmOf(&q.a), Group: snapGroupOf(&q.g, incs)})
 		}
-		slices.SortFunc(su.Quality, func(a, b snapQuality) int {
-			if c := cmpString(a.Kind, b.Kind); c != 0 {
-				return c
-			}
-			return cmpString(a.Channel, b.Channel)
-		})
 		for k := u.openings.n - 1; k >= 0; k-- {
 			t, inc := u.openings.at(k)
 			o := snapOpening{T: t}
@@ -256,18 +251,8 @@ func (e *Engine) snapshotOf(us []*unit, only string) *snapshot {
 		}
 		s.Incidents = append(s.Incidents, si)
 	}
-	slices.SortFunc(s.Incidents, func(a, b snapIncident) int { return cmpString(a.ID, b.ID) })
+	slices.SortFunc(s.Incidents, func(a, b snapIncident) int { return cmp.Compare(a.ID, b.ID) })
 	return s
-}
-
-func cmpString(a, b string) int {
-	switch {
-	case a < b:
-		return -1
-	case a > b:
-		return 1
-	}
-	return 0
 }
 
 func snapAlarmOf(a *Alarm) snapAlarm {
@@ -480,15 +465,12 @@ func (e *Engine) buildUnit(su snapUnit, lookup func(string) (*incident, error)) 
 		if !ok {
 			return nil, fmt.Errorf("unknown quality kind %q", sq.Kind)
 		}
-		q := &qalarm{
-			a: NewAlarm(AlarmRule{N: 1, M: 1, OnHold: rule.Hold, OffDelay: rule.OffDelay}),
-			g: group{key: sq.Kind + ":" + sq.Channel, qkind: sq.Kind, chann: sq.Channel, acts: newRing(u.rules.ChatterCount)},
-		}
+		q := u.newQuality(sq.Kind, sq.Channel, rule)
 		restoreAlarm(&q.a, sq.Alarm)
 		if err := e.restoreGroup(u, &q.g, sq.Group, lookup); err != nil {
 			return nil, err
 		}
-		u.quality[qkey{sq.Kind, sq.Channel}] = q
+		u.addQuality(qkey{sq.Kind, sq.Channel}, q)
 	}
 	for _, o := range su.Openings {
 		inc, err := lookup(o.Inc)
