@@ -67,7 +67,8 @@ func (s *Service) startCluster(ctx context.Context, chans *stream.Channels, alig
 		Conn: s.conn, Pipeline: s.pl, Channels: chans, Intake: align,
 		Stream: s.cfg.Intake.JetStream.Stream, Durable: durable, Subject: k.Subject, Store: store,
 		MaxAckPending: natsource.DefaultMaxAckPending, AckWait: 2*s.cfg.CheckpointInterval + time.Minute,
-		Log: s.log.With("component", "cluster"),
+		Log:         s.log.With("component", "cluster"),
+		MaxChannels: func(u string) int { return s.cfg.ModelFor(u).MaxChannels },
 	})
 	var coord *cluster.Coordinator
 	h.SetForfeit(func(u string) { coord.Forfeit(u) })
