@@ -131,10 +131,12 @@ func (s *Service) stopCluster(ctx context.Context) error {
 // Cluster returns the cluster as this instance sees it, or false when
 // clustering is off.
 func (s *Service) Cluster() (cluster.Status, bool) {
-	if s.clu == nil {
+	// Through cluOn: the HTTP API serves before startCluster sets s.clu.
+	c := s.cluOn.Load()
+	if c == nil {
 		return cluster.Status{}, false
 	}
-	return s.clu.coord.Status(), true
+	return c.coord.Status(), true
 }
 
 // clusterUnit is a unit in /api/units with its owner.
@@ -218,10 +220,11 @@ func (m clusterMetrics) Describe(ch chan<- *prometheus.Desc) {
 }
 
 func (m clusterMetrics) Collect(ch chan<- prometheus.Metric) {
-	st, ok := m.s.Cluster()
-	if !ok {
+	c := m.s.cluOn.Load()
+	if c == nil {
 		return
 	}
+	st := c.coord.Status()
 	for _, u := range st.Units {
 		if u.Owner == "" {
 			continue
@@ -230,5 +233,5 @@ func (m clusterMetrics) Collect(ch chan<- prometheus.Metric) {
 		ch <- prometheus.MustNewConstMetric(descMoved, prometheus.GaugeValue, float64(u.Since.UnixNano())/1e9, u.Unit, u.Owner)
 	}
 	ch <- prometheus.MustNewConstMetric(descMembers, prometheus.GaugeValue, float64(len(st.Members)))
-	ch <- prometheus.MustNewConstMetric(descSaves, prometheus.CounterValue, float64(m.s.clu.host.Stats().Saves))
+	ch <- prometheus.MustNewConstMetric(descSaves, prometheus.CounterValue, float64(c.host.Stats().Saves))
 }
