@@ -433,8 +433,11 @@ func (h *Host) Stats() Stats {
 }
 
 // Stop stops every unit's consumer without saving (Release them first for
-// a graceful stop).
+// a graceful stop). It waits for a Gain, Release or Resync in progress, so
+// that none starts a consumer again after it.
 func (h *Host) Stop(ctx context.Context) {
+	h.op.Lock()
+	defer h.op.Unlock()
 	for _, u := range h.running() {
 		_ = u.js.Stop(ctx)
 		h.forget(u.name)
