@@ -103,8 +103,10 @@ func (s *Service) startCluster(ctx context.Context, chans *stream.Channels, alig
 				return
 			case <-c.resync:
 			}
-			rctx, cancel := context.WithTimeout(context.Background(), time.Minute)
-			h.Resync(rctx)
+			// Under the coordinator's context: stopCluster cancels it
+			// before the host's Stop, which waits for this Resync.
+			yctx, cancel := context.WithTimeout(rctx, time.Minute)
+			h.Resync(yctx)
 			cancel()
 		}
 	}()
