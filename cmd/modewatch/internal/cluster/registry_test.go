@@ -163,12 +163,7 @@ func TestLeaseExpires(t *testing.T) {
 // well-formed entries beside it are still read.
 func TestReadSkipsOversizeEntry(t *testing.T) {
 	s := natstest.StartJetStream(t)
-	nc, err := nats.Connect(s.ClientURL())
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(nc.Close)
-	js, err := jetstream.New(nc)
+	js, err := jetstream.New(natstest.Connect(t, s))
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -9,10 +9,7 @@ import (
 	"testing"
 	"time"
 
-	"github.com/nats-io/nats.go/jetstream"
-
 	"modewatch/configs"
-	"modewatch/stream/natsource/natstest"
 )
 
 // TestClusterStartServesSafely: the HTTP API serves before the cluster part
@@ -20,13 +17,8 @@ import (
 // runs must read the cluster part safely (under -race this test fails if
 // they read the plain field startCluster writes).
 func TestClusterStartServesSafely(t *testing.T) {
-	srv := natstest.StartJetStream(t)
-	nc := natstest.Connect(t, srv)
-	js, _ := jetstream.New(nc)
+	srv := readingsServer(t)
 	ctx := context.Background()
-	if _, err := js.CreateStream(ctx, jetstream.StreamConfig{Name: "READINGS", Subjects: []string{"modewatch.readings.>"}}); err != nil {
-		t.Fatal(err)
-	}
 	ln, err := net.Listen("tcp", "127.0.0.1:0")
 	if err != nil {
 		t.Fatal(err)

@@ -7,7 +7,6 @@ import (
 	"testing"
 	"time"
 
-	"github.com/nats-io/nats.go"
 	"github.com/nats-io/nats.go/jetstream"
 
 	"modewatch/stream/natsource/natstest"
@@ -19,12 +18,7 @@ import (
 // no checkpoint and no error.
 func TestLoadCheckpointBounded(t *testing.T) {
 	s := natstest.StartJetStream(t)
-	nc, err := nats.Connect(s.ClientURL())
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(nc.Close)
-	js, err := jetstream.New(nc)
+	js, err := jetstream.New(natstest.Connect(t, s))
 	if err != nil {
 		t.Fatal(err)
 	}
