@@ -176,7 +176,7 @@ func (c *Coordinator) watch(ctx context.Context) {
 			case put:
 				// A lease changing hands; its renewals do not wake.
 				var l Lease
-				if json.Unmarshal(e.Value(), &l) == nil {
+				if len(e.Value()) <= MaxEntryBytes && json.Unmarshal(e.Value(), &l) == nil {
 					wake = seen[k] != l.Owner
 					seen[k] = l.Owner
 				}

@@ -64,6 +64,14 @@ func (w *world) killed(id string) {
 	}
 }
 
+// moved reads the count of moves under the lock: the coordinators' goroutines
+// write it in Gain while the test reads it.
+func (w *world) moved() int {
+	w.mu.Lock()
+	defer w.mu.Unlock()
+	return w.moves
+}
+
 func (w *world) snapshot() map[string]string {
 	w.mu.Lock()
 	defer w.mu.Unlock()
@@ -155,8 +163,8 @@ func TestCoordinatorFailover(t *testing.T) {
 			t.Errorf("unit %s moved from survivor %s to %s", u, o, after[u])
 		}
 	}
-	if w.moves != 4 {
-		t.Errorf("%d units moved, want the dead instance's 4", w.moves)
+	if m := w.moved(); m != 4 {
+		t.Errorf("%d units moved, want the dead instance's 4", m)
 	}
 	st := cs["a"].c.Status()
 	if len(st.Units) != 12 || len(cs["a"].c.Owned()) != 6 {
@@ -182,8 +190,8 @@ func TestCoordinatorHandOver(t *testing.T) {
 	w.mu.Unlock()
 	startCoord(t, open(), w, "c", units)
 	waitFor(t, 10*time.Second, "a joining instance gets 4 units", func() bool { return balanced(w, units, []string{"a", "b", "c"}, 4) })
-	if w.moves != 4 {
-		t.Errorf("%d units moved when c joined, want 4", w.moves)
+	if m := w.moved(); m != 4 {
+		t.Errorf("%d units moved when c joined, want 4", m)
 	}
 
 	ctx, cancel := context.WithTimeout(context.Background(), 10*time.Second)

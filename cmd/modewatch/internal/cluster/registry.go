@@ -87,6 +87,7 @@ func OpenRegistry(ctx context.Context, js jetstream.JetStream, cfg RegistryConfi
 			kv, err = js.CreateKeyValue(ctx, jetstream.KeyValueConfig{
 				Bucket: cfg.Bucket, Description: "modewatch instances and unit leases",
 				History: 1, TTL: cfg.TTL, Replicas: cfg.Replicas, Storage: jetstream.FileStorage,
+				MaxValueSize: MaxEntryBytes,
 			})
 		}
 		return kv, err
@@ -126,6 +127,12 @@ func (r *Registry) TTL() time.Duration { return r.ttl }
 
 // KV returns the bucket (for watching changes).
 func (r *Registry) KV() jetstream.KeyValue { return r.kv }
+
+// MaxEntryBytes bounds an announcement or lease value. Ours are a few
+// hundred bytes; a longer value (a corrupt or foreign entry) is refused by
+// the bucket when this instance creates it, and skipped and reported
+// before it is decoded when read.
+const MaxEntryBytes = 16 << 10
 
 const (
 	memberPrefix = "instance."
@@ -210,6 +217,10 @@ func (r *Registry) Read(ctx context.Context) (Snapshot, error) {
 		}
 		if err != nil {
 			return s, fmt.Errorf("cluster: read %s: %w", k, err)
+		}
+		if n := len(e.Value()); n > MaxEntryBytes {
+			bad = append(bad, fmt.Errorf("cluster: %s: value of %d bytes is over %d", k, n, MaxEntryBytes))
+			continue
 		}
 		if isMember {
 			var m Member

@@ -3,6 +3,7 @@ package cluster
 import (
 	"context"
 	"errors"
+	"strings"
 	"testing"
 	"time"
 
@@ -153,5 +154,42 @@ func TestLeaseExpires(t *testing.T) {
 	}
 	if el := time.Since(start); el < ttl/2 {
 		t.Errorf("press taken after %v, before its TTL of %v could have run out", el, ttl)
+	}
+}
+
+// TestReadSkipsOversizeEntry: a value over MaxEntryBytes under an
+// announcement key (written by something other than an instance into a
+// bucket created without the size limit) is reported and skipped, and the
+// well-formed entries beside it are still read.
+func TestReadSkipsOversizeEntry(t *testing.T) {
+	s := natstest.StartJetStream(t)
+	js, err := jetstream.New(natstest.Connect(t, s))
+	if err != nil {
+		t.Fatal(err)
+	}
+	ctx := ctxT(t)
+	// A bucket made beforehand without a value limit.
+	kv, err := js.CreateKeyValue(ctx, jetstream.KeyValueConfig{Bucket: DefaultBucket, History: 1, TTL: time.Minute})
+	if err != nil {
+		t.Fatal(err)
+	}
+	r, err := OpenRegistry(ctx, js, RegistryConfig{TTL: time.Minute})
+	if err != nil {
+		t.Fatal(err)
+	}
+	now := time.Date(2026, 3, 9, 6, 0, 0, 0, time.UTC)
+	if err := r.Announce(ctx, Member{ID: "a", Started: now, Seen: now}); err != nil {
+		t.Fatal(err)
+	}
+	huge := `{"id":"x","http":"` + strings.Repeat("h", 2*MaxEntryBytes) + `"}`
+	if _, err := kv.Put(ctx, memberPrefix+"x", []byte(huge)); err != nil {
+		t.Fatal(err)
+	}
+	snap, err := r.Read(ctx)
+	if err == nil || !strings.Contains(err.Error(), "instance.x") {
+		t.Errorf("oversize entry: error %v, want one naming instance.x", err)
+	}
+	if _, ok := snap.Members["x"]; ok || snap.Members["a"].ID != "a" {
+		t.Errorf("members %v: want a only", snap.Members)
 	}
 }

@@ -67,7 +67,8 @@ func (s *Service) startCluster(ctx context.Context, chans *stream.Channels, alig
 		Conn: s.conn, Pipeline: s.pl, Channels: chans, Intake: align,
 		Stream: s.cfg.Intake.JetStream.Stream, Durable: durable, Subject: k.Subject, Store: store,
 		MaxAckPending: natsource.DefaultMaxAckPending, AckWait: 2*s.cfg.CheckpointInterval + time.Minute,
-		Log: s.log.With("component", "cluster"),
+		Log:         s.log.With("component", "cluster"),
+		MaxChannels: func(u string) int { return s.cfg.ModelFor(u).MaxChannels },
 	})
 	var coord *cluster.Coordinator
 	h.SetForfeit(func(u string) { coord.Forfeit(u) })
@@ -102,8 +103,10 @@ func (s *Service) startCluster(ctx context.Context, chans *stream.Channels, alig
 				return
 			case <-c.resync:
 			}
-			rctx, cancel := context.WithTimeout(context.Background(), time.Minute)
-			h.Resync(rctx)
+			// Under the coordinator's context: stopCluster cancels it
+			// before the host's Stop, which waits for this Resync.
+			yctx, cancel := context.WithTimeout(rctx, time.Minute)
+			h.Resync(yctx)
 			cancel()
 		}
 	}()
@@ -130,10 +133,12 @@ func (s *Service) stopCluster(ctx context.Context) error {
 // Cluster returns the cluster as this instance sees it, or false when
 // clustering is off.
 func (s *Service) Cluster() (cluster.Status, bool) {
-	if s.clu == nil {
+	// Through cluOn: the HTTP API serves before startCluster sets s.clu.
+	c := s.cluOn.Load()
+	if c == nil {
 		return cluster.Status{}, false
 	}
-	return s.clu.coord.Status(), true
+	return c.coord.Status(), true
 }
 
 // clusterUnit is a unit in /api/units with its owner.
@@ -217,10 +222,11 @@ func (m clusterMetrics) Describe(ch chan<- *prometheus.Desc) {
 }
 
 func (m clusterMetrics) Collect(ch chan<- prometheus.Metric) {
-	st, ok := m.s.Cluster()
-	if !ok {
+	c := m.s.cluOn.Load()
+	if c == nil {
 		return
 	}
+	st := c.coord.Status()
 	for _, u := range st.Units {
 		if u.Owner == "" {
 			continue
@@ -229,5 +235,5 @@ func (m clusterMetrics) Collect(ch chan<- prometheus.Metric) {
 		ch <- prometheus.MustNewConstMetric(descMoved, prometheus.GaugeValue, float64(u.Since.UnixNano())/1e9, u.Unit, u.Owner)
 	}
 	ch <- prometheus.MustNewConstMetric(descMembers, prometheus.GaugeValue, float64(len(st.Members)))
-	ch <- prometheus.MustNewConstMetric(descSaves, prometheus.CounterValue, float64(m.s.clu.host.Stats().Saves))
+	ch <- prometheus.MustNewConstMetric(descSaves, prometheus.CounterValue, float64(c.host.Stats().Saves))
 }

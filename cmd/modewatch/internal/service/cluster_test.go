@@ -8,6 +8,7 @@ import (
 	"testing"
 	"time"
 
+	"github.com/nats-io/nats-server/v2/server"
 	"github.com/nats-io/nats.go/jetstream"
 
 	"modewatch/configs"
@@ -15,19 +16,26 @@ import (
 	"modewatch/stream/natsource/natstest"
 )
 
+// readingsServer starts a JetStream server holding the READINGS stream of
+// the demo's reading subjects.
+func readingsServer(t *testing.T) *server.Server {
+	srv := natstest.StartJetStream(t)
+	js, _ := jetstream.New(natstest.Connect(t, srv))
+	if _, err := js.CreateStream(context.Background(), jetstream.StreamConfig{Name: "READINGS", Subjects: []string{"modewatch.readings.>"}}); err != nil {
+		t.Fatal(err)
+	}
+	return srv
+}
+
 // TestClusterViews: two instances in one process share the demo plant's
 // four units over a JetStream server: /api/cluster lists both with two
 // units each, /api/units gives every unit its owner and when it moved
 // (the units owned here with their frames), /metrics names the owners, and
 // a graceful shutdown of one leaves the other with all four.
 func TestClusterViews(t *testing.T) {
-	srv := natstest.StartJetStream(t)
+	srv := readingsServer(t)
 	nc := natstest.Connect(t, srv)
-	js, _ := jetstream.New(nc)
 	ctx := context.Background()
-	if _, err := js.CreateStream(ctx, jetstream.StreamConfig{Name: "READINGS", Subjects: []string{"modewatch.readings.>"}}); err != nil {
-		t.Fatal(err)
-	}
 	sc, _ := sim.Demo()
 	var units []string
 	for _, u := range sc.Units {

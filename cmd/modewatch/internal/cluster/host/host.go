@@ -17,6 +17,7 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"io"
 	"log/slog"
 	"maps"
 	"slices"
@@ -27,6 +28,7 @@ import (
 
 	"modewatch/cmd/modewatch/internal/cluster"
 	"modewatch/cmd/modewatch/internal/pipeline"
+	"modewatch/configs"
 	"modewatch/stream"
 	"modewatch/stream/natsource"
 )
@@ -50,6 +52,10 @@ type Options struct {
 	MaxAckPending int
 	AckWait       time.Duration
 	Log           *slog.Logger
+	// MaxChannels returns a unit's channel cap (model.max_channels), which
+	// bounds the size of its stored checkpoint read on Gain; default
+	// configs.DefaultUnitMaxChannels.
+	MaxChannels func(unit string) int
 	// Forfeit, if set, is called for a unit Resync could not start again
 	// (cluster.Coordinator.Forfeit gives its lease up).
 	Forfeit func(unit string)
@@ -117,16 +123,36 @@ func OpenStore(ctx context.Context, js jetstream.JetStream, bucket string, repli
 func objectName(unit string) string { return "unit/" + unit + ".json" }
 
 // LoadCheckpoint returns unit's stored checkpoint, or nil when there is
-// none.
+// none; see [LoadCheckpointWithin]. The bound is that of a unit at the
+// highest model.max_channels any configuration accepts.
 func LoadCheckpoint(ctx context.Context, st jetstream.ObjectStore, unit string) (*pipeline.ModelFile, error) {
-	b, err := st.GetBytes(ctx, objectName(unit))
+	return LoadCheckpointWithin(ctx, st, unit, pipeline.CheckpointBodyBytes(configs.UnitMaxChannelsCeiling))
+}
+
+// LoadCheckpointWithin returns unit's stored checkpoint, or nil when there
+// is none. An object over limit bytes (by its recorded size, or by what it
+// holds) is refused with an error before it is read into memory: a corrupt
+// or hostile object cannot make the instance allocate without a bound.
+func LoadCheckpointWithin(ctx context.Context, st jetstream.ObjectStore, unit string, limit int64) (*pipeline.ModelFile, error) {
+	res, err := st.Get(ctx, objectName(unit))
 	if errors.Is(err, jetstream.ErrObjectNotFound) {
 		return nil, nil
 	}
 	if err != nil {
 		return nil, fmt.Errorf("host: checkpoint of %s: %w", unit, err)
 	}
-	ck, err := pipeline.DecodeModel(bytes.NewReader(b))
+	defer res.Close()
+	if info, err := res.Info(); err == nil && info.Size > uint64(limit) {
+		return nil, fmt.Errorf("host: checkpoint of %s: object of %d bytes is over the %d bytes of the unit's channel cap", unit, info.Size, limit)
+	}
+	var b bytes.Buffer
+	if _, err := b.ReadFrom(io.LimitReader(res, limit+1)); err != nil {
+		return nil, fmt.Errorf("host: checkpoint of %s: %w", unit, err)
+	}
+	if int64(b.Len()) > limit {
+		return nil, fmt.Errorf("host: checkpoint of %s: object is over the %d bytes of the unit's channel cap", unit, limit)
+	}
+	ck, err := pipeline.DecodeModel(&b)
 	if err != nil {
 		return nil, fmt.Errorf("host: checkpoint of %s: %w", unit, err)
 	}
@@ -151,7 +177,11 @@ func (h *Host) gain(ctx context.Context, unit string) error {
 	if running {
 		return nil
 	}
-	ck, err := LoadCheckpoint(ctx, h.opt.Store, unit)
+	maxCh := configs.DefaultUnitMaxChannels
+	if h.opt.MaxChannels != nil {
+		maxCh = h.opt.MaxChannels(unit)
+	}
+	ck, err := LoadCheckpointWithin(ctx, h.opt.Store, unit, pipeline.CheckpointBodyBytes(maxCh))
 	if err != nil {
 		return err // the lease goes back; another try later
 	}
@@ -403,8 +433,11 @@ func (h *Host) Stats() Stats {
 }
 
 // Stop stops every unit's consumer without saving (Release them first for
-// a graceful stop).
+// a graceful stop). It waits for a Gain, Release or Resync in progress, so
+// that none starts a consumer again after it.
 func (h *Host) Stop(ctx context.Context) {
+	h.op.Lock()
+	defer h.op.Unlock()
 	for _, u := range h.running() {
 		_ = u.js.Stop(ctx)
 		h.forget(u.name)
