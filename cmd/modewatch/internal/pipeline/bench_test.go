@@ -12,11 +12,8 @@ import (
 // invented data) whose models have learned the first two hours, and the
 // aligned frames of the next four hours.
 func benchSetup(b *testing.B) (*Pipeline, []stream.Frame) {
-	const period = 20 * time.Second
-	ch, frames := collectFrames(b, demoBytes(b, 6), period)
-	cfg := &configs.Config{Model: configs.Model{WarmUp: 100}}
-	cfg.ApplyDefaults()
-	p, err := New(Options{Config: cfg, Channels: ch, Period: period})
+	cfg, ch, frames := demoFrames(b, 6*time.Hour, configs.Model{WarmUp: 100})
+	p, err := New(Options{Config: cfg, Channels: ch, Period: demoPeriod})
 	if err != nil {
 		b.Fatal(err)
 	}

@@ -66,11 +66,8 @@ func TestUnitModelBytes(t *testing.T) {
 // (invented data, two hours, warm-up 100 frames) and the configuration.
 func unitCheckpoint(t testing.TB) (*ModelFile, *configs.Config, *stream.Channels) {
 	t.Helper()
-	const period = 20 * time.Second
-	ch, frames := collectFrames(t, demoBytes(t, 2), period)
-	cfg := &configs.Config{Model: configs.Model{WarmUp: 100}}
-	cfg.ApplyDefaults()
-	p, err := New(Options{Config: cfg, Channels: ch, Period: period})
+	cfg, ch, frames := demoFrames(t, 2*time.Hour, configs.Model{WarmUp: 100})
+	p, err := New(Options{Config: cfg, Channels: ch, Period: demoPeriod})
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -5,12 +5,16 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"math"
 	"os"
 	"path/filepath"
+	"strconv"
+	"strings"
 	"testing"
 	"time"
 
 	"modewatch/alerts"
+	"modewatch/cmd/modewatch/internal/testkit"
 	"modewatch/configs"
 	"modewatch/stream"
 )
@@ -54,19 +58,97 @@ func runFrames(t *testing.T, p *Pipeline, frames []stream.Frame, got map[string]
 	}
 }
 
+// cutRun is the restart check of a setting: the frames run through one
+// pipeline uninterrupted (whole), and through another (cut) stopped after
+// the first half and checkpointed to dir. record is what is compared of
+// each unit's frame (exact bit patterns, as a string).
+type cutRun struct {
+	t      *testing.T
+	opt    Options // of the uninterrupted run; the others have no Publisher
+	frames []stream.Frame
+	record func(*Unit) string
+	half   int
+	dir    string
+	whole  *Pipeline
+	cut    *Pipeline
+	// each unit's records in the uninterrupted run and before the cut
+	wholeRecs, firstRecs map[string][]string
+}
+
+// newCutRun runs both pipelines and writes the checkpoint.
+func newCutRun(t *testing.T, opt Options, frames []stream.Frame, record func(*Unit) string) *cutRun {
+	t.Helper()
+	r := &cutRun{t: t, opt: opt, frames: frames, record: record, half: len(frames) / 2, dir: t.TempDir(),
+		wholeRecs: map[string][]string{}, firstRecs: map[string][]string{}}
+	r.whole = r.pipeline(r.wholeRecs, opt.Publisher)
+	runFrames(t, r.whole, frames, nil)
+	r.cut = r.pipeline(r.firstRecs, nil)
+	runFrames(t, r.cut, frames[:r.half], nil)
+	if _, err := r.cut.WriteCheckpoints(r.dir); err != nil {
+		t.Fatal(err)
+	}
+	return r
+}
+
+// pipeline returns a pipeline of r's options with pub as its publisher,
+// recording every unit's frame into dst.
+func (r *cutRun) pipeline(dst map[string][]string, pub alerts.Publisher) *Pipeline {
+	r.t.Helper()
+	opt := r.opt
+	opt.Publisher = pub
+	opt.OnScore = func(u *Unit, _ time.Time) { dst[u.Name] = append(dst[u.Name], r.record(u)) }
+	p, err := New(opt)
+	if err != nil {
+		r.t.Fatal(err)
+	}
+	return p
+}
+
+// resume restores the checkpoint, each unit's file passed through edit
+// first (nil: as written), into a new pipeline and runs the frames after
+// the cut. It returns where the records first differ from the
+// uninterrupted run's, "" when they agree frame for frame.
+func (r *cutRun) resume(edit func(*ModelFile)) string {
+	t := r.t
+	t.Helper()
+	cks, errs := ReadCheckpoints(r.dir)
+	if len(errs) > 0 || len(cks) == 0 {
+		t.Fatalf("read %d checkpoints: %v", len(cks), errs)
+	}
+	if edit != nil {
+		for _, ck := range cks {
+			edit(ck)
+		}
+	}
+	second := map[string][]string{}
+	p := r.pipeline(second, nil)
+	if restored, errs := p.Restore(cks); len(errs) > 0 || len(restored) != len(cks) {
+		t.Fatalf("restored %v: %v", restored, errs)
+	}
+	runFrames(t, p, r.frames[r.half:], nil)
+	for unit, all := range r.wholeRecs {
+		first := r.firstRecs[unit]
+		if got, want := len(first)+len(second[unit]), len(all); got != want {
+			return fmt.Sprintf("unit %s: %d + %d frames scored, uninterrupted %d", unit, len(first), len(second[unit]), want)
+		}
+		for k, s := range second[unit] {
+			if w := all[len(first)+k]; s != w {
+				return fmt.Sprintf("unit %s frame %d after restore:\n%s\nuninterrupted:\n%s", unit, k, s, w)
+			}
+		}
+	}
+	return ""
+}
+
 // TestCheckpointRestore: a run stopped after half the frames, checkpointed
 // and restored gives bit-identical scores for the second half to an
 // uninterrupted run, and frames fed again from before the checkpoint are
 // not scored twice.
 func TestCheckpointRestore(t *testing.T) {
-	const period = 20 * time.Second
-	data := demoBytes(t, 4)
-	ch, frames := collectFrames(t, data, period)
 	// Learning is frozen while alerts are active, so the alarm engine's
 	// state must come back too for the scores to match.
-	cfg := &configs.Config{Model: configs.Model{WarmUp: 100}}
-	cfg.ApplyDefaults()
-	if n := restartMatches(t, cfg, ch, period, frames, len(frames)/2, nil); n == 0 {
+	cfg, ch, frames := demoFrames(t, 4*time.Hour, configs.Model{WarmUp: 100})
+	if n := restartMatches(t, cfg, ch, demoPeriod, frames, len(frames)/2, nil); n == 0 {
 		t.Log("no alert revisions after the checkpoint in this stretch of data")
 	}
 }
@@ -161,11 +243,8 @@ func restartMatches(t *testing.T, cfg *configs.Config, ch *stream.Channels, peri
 // TestCheckpointMismatch: a damaged checkpoint or one made under other
 // settings is reported and its unit warms up again; nothing panics.
 func TestCheckpointMismatch(t *testing.T) {
-	const period = 20 * time.Second
-	ch, frames := collectFrames(t, demoBytes(t, 2), period)
-	cfg := &configs.Config{Model: configs.Model{WarmUp: 100}}
-	cfg.ApplyDefaults()
-	p, _ := New(Options{Config: cfg, Channels: ch, Period: period})
+	cfg, ch, frames := demoFrames(t, 2*time.Hour, configs.Model{WarmUp: 100})
+	p, _ := New(Options{Config: cfg, Channels: ch, Period: demoPeriod})
 	runFrames(t, p, frames, nil)
 	dir := t.TempDir()
 	if _, err := p.WriteCheckpoints(dir); err != nil {
@@ -192,15 +271,15 @@ func TestCheckpointMismatch(t *testing.T) {
 	// Other model settings (alpha) than the checkpoints were made with.
 	cfg2 := &configs.Config{Model: configs.Model{WarmUp: 100, Alpha: 0.001}}
 	cfg2.ApplyDefaults()
-	p3, _ := New(Options{Config: cfg2, Channels: ch, Period: period})
+	p3, _ := New(Options{Config: cfg2, Channels: ch, Period: demoPeriod})
 	if restored, rerrs := p3.Restore(cks); len(restored) != 0 || len(rerrs) != 3 {
 		t.Errorf("settings mismatch: restored %v, errors %v", restored, rerrs)
 	}
-	// Another frame period than the checkpoints were made with.
+	// Another frame demoPeriod than the checkpoints were made with.
 	p2, _ := New(Options{Config: cfg, Channels: ch, Period: 10 * time.Second})
 	restored, rerrs := p2.Restore(cks)
 	if len(restored) != 0 || len(rerrs) != 3 {
-		t.Errorf("period mismatch: restored %v, errors %v", restored, rerrs)
+		t.Errorf("demoPeriod mismatch: restored %v, errors %v", restored, rerrs)
 	}
 }
 
@@ -209,11 +288,8 @@ func TestCheckpointMismatch(t *testing.T) {
 // naming it) is ignored; unit files placed directly in the directory are
 // read when there is no CURRENT.
 func TestCheckpointGenerations(t *testing.T) {
-	const period = 20 * time.Second
-	ch, frames := collectFrames(t, demoBytes(t, 2), period)
-	cfg := &configs.Config{Model: configs.Model{WarmUp: 100}}
-	cfg.ApplyDefaults()
-	p, _ := New(Options{Config: cfg, Channels: ch, Period: period})
+	cfg, ch, frames := demoFrames(t, 2*time.Hour, configs.Model{WarmUp: 100})
+	p, _ := New(Options{Config: cfg, Channels: ch, Period: demoPeriod})
 	runFrames(t, p, frames[:200], nil)
 	dir := t.TempDir()
 	if _, err := p.WriteCheckpoints(dir); err != nil {
@@ -246,5 +322,179 @@ func TestCheckpointGenerations(t *testing.T) {
 	os.WriteFile(CheckpointPath(moved, "steam"), b, 0o644)
 	if cks, errs := ReadCheckpoints(moved); len(cks) != 1 || len(errs) != 0 {
 		t.Errorf("moved checkpoint: %d, %v", len(cks), errs)
+	}
+}
+
+// TestCheckpointCarriedReadings: a run stopped at a checkpoint and
+// restarted with an aligner seeded from the checkpoint's carried readings
+// (ModelUnit.Last) scores every later frame bit-identically to an
+// uninterrupted run over the demo data with its timestamp jitter and
+// dropouts, where frames right after the cut carry readings from before
+// it. The reference is the uninterrupted run itself; a control restart
+// without the seeds shows that the data needs them.
+func TestCheckpointCarriedReadings(t *testing.T) {
+	data := testkit.DemoLog(t, 3*time.Hour)
+	lines := bytes.SplitAfter(data, []byte("\n"))
+	cfg := &configs.Config{Model: configs.Model{WarmUp: 100}}
+	cfg.ApplyDefaults()
+	ch, err := stream.NewChannels(nil, 0)
+	if err != nil {
+		t.Fatal(err)
+	}
+	align := stream.Options{Align: stream.AlignConfig{Period: demoPeriod}}
+	type rec struct {
+		at     time.Time
+		t2, q  float64
+		scored bool
+	}
+	record := func(dst map[string][]rec) func(u *Unit, at time.Time) {
+		return func(u *Unit, at time.Time) {
+			s := u.Score()
+			dst[u.Name] = append(dst[u.Name], rec{at, s.T2, s.SPE, true})
+		}
+	}
+	run := func(p *Pipeline, seed []LastReading, lines [][]byte) {
+		t.Helper()
+		in, err := stream.NewIntake(ch, align, p.Frame)
+		if err != nil {
+			t.Fatal(err)
+		}
+		for _, r := range seed {
+			if err := in.SeedLast(r.Channel, r.Value, r.Time); err != nil {
+				t.Fatal(err)
+			}
+		}
+		if _, err := in.Feed("demo", bytes.Join(lines, nil)); err != nil {
+			t.Fatal(err)
+		}
+		if err := in.Flush(); err != nil {
+			t.Fatal(err)
+		}
+	}
+	whole := map[string][]rec{}
+	pa, _ := New(Options{Config: cfg, Channels: ch, Period: demoPeriod, OnScore: record(whole)})
+	run(pa, nil, lines)
+
+	// First part: the first half of the lines, without the final flush
+	// (a crash), then a checkpoint.
+	cut := len(lines) / 2
+	pb, _ := New(Options{Config: cfg, Channels: ch, Period: demoPeriod})
+	inB, _ := stream.NewIntake(ch, align, pb.Frame)
+	if _, err := inB.Feed("demo", bytes.Join(lines[:cut], nil)); err != nil {
+		t.Fatal(err)
+	}
+	dir := t.TempDir()
+	if _, err := pb.WriteCheckpoints(dir); err != nil {
+		t.Fatal(err)
+	}
+	cks, errs := ReadCheckpoints(dir)
+	if len(errs) > 0 || len(cks) != 4 {
+		t.Fatalf("%d checkpoints: %v", len(cks), errs)
+	}
+	var seeds []LastReading
+	var to time.Time
+	for _, ck := range cks {
+		if len(ck.Units[0].Last) == 0 {
+			t.Errorf("unit %s: checkpoint without carried readings", ck.Units[0].Name)
+		}
+		seeds = append(seeds, ck.Units[0].Last...)
+		if to.IsZero() || ck.To.Before(to) {
+			to = ck.To
+		}
+	}
+	// Redelivery: every reading not in a frame the checkpoint covers
+	// (event time at or after the end of its last frame). Readings before
+	// that and not yet delivered would have been late in the
+	// uninterrupted run too.
+	end := to.Add(demoPeriod).UnixNano()
+	var rest [][]byte
+	for _, l := range lines {
+		f := bytes.Fields(l)
+		if len(f) == 0 {
+			continue
+		}
+		ns, err := strconv.ParseInt(string(f[len(f)-1]), 10, 64)
+		if err != nil {
+			t.Fatalf("line %q: %v", l, err)
+		}
+		if ns >= end {
+			rest = append(rest, l)
+		}
+	}
+
+	restart := func(seed []LastReading) (map[string][]rec, int) {
+		got := map[string][]rec{}
+		pc, _ := New(Options{Config: cfg, Channels: ch, Period: demoPeriod, OnScore: record(got)})
+		if restored, errs := pc.Restore(cks); len(restored) != 4 || len(errs) > 0 {
+			t.Fatalf("restored %v: %v", restored, errs)
+		}
+		run(pc, seed, rest)
+		diff, n := 0, 0
+		for unit, all := range whole {
+			byT := map[time.Time]rec{}
+			for _, r := range got[unit] {
+				byT[r.at] = r
+			}
+			for _, w := range all {
+				if !w.at.After(to) {
+					continue
+				}
+				n++
+				r := byT[w.at]
+				if !r.scored || (r.t2 != w.t2 && !(r.t2 != r.t2 && w.t2 != w.t2)) || (r.q != w.q && !(r.q != r.q && w.q != w.q)) {
+					diff++
+				}
+			}
+		}
+		if n == 0 {
+			t.Fatal("no unit frame after the checkpoint")
+		}
+		return got, diff
+	}
+	if _, diff := restart(seeds); diff != 0 {
+		t.Errorf("seeded restart: %d unit frames after the checkpoint differ from the uninterrupted run", diff)
+	}
+	if _, diff := restart(nil); diff == 0 {
+		t.Error("control: a restart without seeds matches too, so this data does not test the carried readings")
+	}
+}
+
+// TestCheckpointSmoothedAndVariance: with model.smoothing on and the
+// variance statistic among the alarm statistics, a run cut in the middle,
+// checkpointed and restored gives bit-identical alarm statistics (the
+// smoothed ratios, the variance statistic) for the second half to an
+// uninterrupted run. Restoring the same checkpoint without its smoothed
+// ratios gives different ones, so the comparison can see them.
+func TestCheckpointSmoothedAndVariance(t *testing.T) {
+	cfg, ch, frames := demoFrames(t, 4*time.Hour, configs.Model{WarmUp: 100, Smoothing: 0.1, Statistics: "t2,spe,phi,res,var"})
+
+	// Each unit's alarm statistics per frame, as exact bit patterns.
+	record := func(u *Unit) string {
+		var b strings.Builder
+		for _, s := range u.appendStats(nil) {
+			fmt.Fprintf(&b, "%s=%x/%x ", s.Name, math.Float64bits(s.Value), math.Float64bits(s.Limit))
+		}
+		return b.String()
+	}
+	run := newCutRun(t, Options{Config: cfg, Channels: ch, Period: demoPeriod}, frames, record)
+	carried := 0
+	for _, u := range run.cut.Units() {
+		carried += len(u.smoothedState())
+	}
+	if carried == 0 {
+		t.Fatal("no smoothed statistic to carry at the cut")
+	}
+	if where := run.resume(nil); where != "" {
+		t.Fatal(where)
+	}
+	if run.resume(func(ck *ModelFile) { ck.Units[0].Smoothed = nil }) == "" {
+		t.Error("dropping the smoothed ratios changed nothing: the test cannot see them")
+	}
+	// A damaged smoothed ratio is refused with the unit named.
+	cks, _ := ReadCheckpoints(run.dir)
+	cks[0].Units[0].Smoothed = []SmoothedStat{{Stat: "t2", Ratio: -1}}
+	pd, _ := New(Options{Config: cfg, Channels: ch, Period: demoPeriod})
+	if _, errs := pd.Restore(cks[:1]); len(errs) != 1 || !strings.Contains(errs[0].Error(), cks[0].Units[0].Name) {
+		t.Errorf("negative smoothed ratio: %v", errs)
 	}
 }

@@ -11,6 +11,7 @@ import (
 	"time"
 
 	"modewatch/alerts"
+	"modewatch/cmd/modewatch/internal/testkit"
 	"modewatch/configs"
 	"modewatch/stream"
 	"modewatch/tracker"
@@ -108,7 +109,7 @@ func runLate(t *testing.T, data []byte, period time.Duration) *lateRun {
 func TestLateChannel(t *testing.T) {
 	const period = 20 * time.Second
 	const warmUp = 100
-	data := demoBytes(t, 4)
+	data := testkit.DemoLog(t, 4*time.Hour)
 	_, frames := collectFrames(t, data, period)
 	for _, tc := range []struct {
 		name string

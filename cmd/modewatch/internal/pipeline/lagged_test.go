@@ -10,6 +10,7 @@ import (
 	"time"
 
 	"modewatch/alerts"
+	"modewatch/cmd/modewatch/internal/testkit"
 	"modewatch/configs"
 	"modewatch/stream"
 )
@@ -22,29 +23,20 @@ import (
 // bit-identically, which it does not when the checkpoint's previous frame
 // is dropped.
 func TestLaggedUnits(t *testing.T) {
-	const period = 20 * time.Second
-	ch, frames := collectFrames(t, demoBytes(t, 4), period)
-	cfg := &configs.Config{Model: configs.Model{WarmUp: 100, Lags: 1}}
-	cfg.ApplyDefaults()
-	type rec struct{ t2, spe, res float64 }
-	record := func(dst map[string][]rec) func(u *Unit, _ time.Time) {
-		return func(u *Unit, _ time.Time) {
-			s := u.Score()
-			dst[u.Name] = append(dst[u.Name], rec{s.T2, s.SPE, s.Residual})
-		}
-	}
+	cfg, ch, frames := demoFrames(t, 4*time.Hour, configs.Model{WarmUp: 100, Lags: 1})
 	var contributors []string
 	pub := alerts.PublisherFunc(func(r *alerts.Record) {
 		for _, c := range r.Contributors {
 			contributors = append(contributors, c.Channel)
 		}
 	})
-	whole := map[string][]rec{}
-	pa, err := New(Options{Config: cfg, Channels: ch, Period: period, OnScore: record(whole), Publisher: pub})
-	if err != nil {
-		t.Fatal(err)
+	// Every frame's T², SPE and residual statistic, as exact bit patterns.
+	record := func(u *Unit) string {
+		s := u.Score()
+		return fmt.Sprintf("%x %x %x", math.Float64bits(s.T2), math.Float64bits(s.SPE), math.Float64bits(s.Residual))
 	}
-	runFrames(t, pa, frames, nil)
+	run := newCutRun(t, Options{Config: cfg, Channels: ch, Period: demoPeriod, Publisher: pub}, frames, record)
+	pa := run.whole
 	lagged := 0
 	for _, u := range pa.Units() {
 		if got, want := u.Tracker().P(), 2*len(u.Channels()); got != want {
@@ -70,53 +62,19 @@ func TestLaggedUnits(t *testing.T) {
 		t.Log("no alert in this stretch of data")
 	}
 
-	half := len(frames) / 2
-	first := map[string][]rec{}
-	pb, _ := New(Options{Config: cfg, Channels: ch, Period: period, OnScore: record(first)})
-	runFrames(t, pb, frames[:half], nil)
-	dir := t.TempDir()
-	if _, err := pb.WriteCheckpoints(dir); err != nil {
-		t.Fatal(err)
-	}
-	resume := func(drop bool) string {
-		cks, errs := ReadCheckpoints(dir)
-		if len(errs) > 0 || len(cks) == 0 {
-			t.Fatalf("read %d checkpoints: %v", len(cks), errs)
+	if d := run.resume(func(ck *ModelFile) {
+		if len(ck.Units[0].Lagged) == 0 {
+			t.Fatalf("unit %s: checkpoint without the previous frame", ck.Units[0].Name)
 		}
-		for _, ck := range cks {
-			if len(ck.Units[0].Lagged) == 0 {
-				t.Fatalf("unit %s: checkpoint without the previous frame", ck.Units[0].Name)
-			}
-			if drop {
-				ck.Units[0].Lagged = nil
-			}
-		}
-		second := map[string][]rec{}
-		pc, _ := New(Options{Config: cfg, Channels: ch, Period: period, OnScore: record(second)})
-		if restored, errs := pc.Restore(cks); len(errs) > 0 || len(restored) != len(cks) {
-			t.Fatalf("restored %v: %v", restored, errs)
-		}
-		runFrames(t, pc, frames[half:], nil)
-		for unit, all := range whole {
-			for k, r := range second[unit] {
-				w := all[len(first[unit])+k]
-				if math.Float64bits(r.t2) != math.Float64bits(w.t2) || math.Float64bits(r.spe) != math.Float64bits(w.spe) ||
-					math.Float64bits(r.res) != math.Float64bits(w.res) {
-					return fmt.Sprintf("unit %s frame %d after restore: %+v, uninterrupted %+v", unit, k, r, w)
-				}
-			}
-		}
-		return ""
-	}
-	if d := resume(false); d != "" {
+	}); d != "" {
 		t.Fatal(d)
 	}
-	if resume(true) == "" {
+	if run.resume(func(ck *ModelFile) { ck.Units[0].Lagged = nil }) == "" {
 		t.Error("dropping the previous frame from the checkpoint changed nothing: the test cannot see it")
 	}
 
 	// A frame allocates nothing with lagged copies.
-	res, err := Replay(context.Background(), ReplayOptions{Config: cfg, Inputs: []string{"-"}, Stdin: bytes.NewReader(demoBytes(t, 2))})
+	res, err := Replay(context.Background(), ReplayOptions{Config: cfg, Inputs: []string{"-"}, Stdin: bytes.NewReader(testkit.DemoLog(t, 2*time.Hour))})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -129,7 +87,7 @@ func TestLaggedUnits(t *testing.T) {
 		for i := range f.Values {
 			f.Values[i] *= 1 + 1e-4*math.Sin(float64(k+i))
 		}
-		f.Start = f.Start.Add(period)
+		f.Start = f.Start.Add(demoPeriod)
 		if err := res.Pipeline.Frame(f); err != nil {
 			t.Fatal(err)
 		}

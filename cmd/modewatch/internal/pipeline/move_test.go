@@ -11,6 +11,7 @@ import (
 	"time"
 
 	"modewatch/alerts"
+	"modewatch/cmd/modewatch/internal/testkit"
 	"modewatch/configs"
 	"modewatch/stream"
 )
@@ -72,14 +73,13 @@ func sameScores(got, want []scoreRec) int {
 // where the other units warm up, and in a pipeline that already runs the
 // other units, which it does not disturb (issue 6: units are self-contained).
 func TestCheckpointMoveUnit(t *testing.T) {
-	const period = 20 * time.Second
 	const moved = "coolwater"
-	data := demoBytes(t, 4)
-	ch, frames := collectFrames(t, data, period)
+	data := testkit.DemoLog(t, 4*time.Hour)
+	ch, frames := collectFrames(t, data, demoPeriod)
 	cfg := &configs.Config{Model: configs.Model{WarmUp: 100}}
 	cfg.ApplyDefaults()
 
-	whole, opt := newRecorderOpts(cfg, ch, period)
+	whole, opt := newRecorderOpts(cfg, ch, demoPeriod)
 	pa, err := New(opt)
 	if err != nil {
 		t.Fatal(err)
@@ -91,7 +91,7 @@ func TestCheckpointMoveUnit(t *testing.T) {
 
 	// Instance 1 checkpoints every unit after frame half.
 	half := len(frames) / 2
-	_, opt = newRecorderOpts(cfg, ch, period)
+	_, opt = newRecorderOpts(cfg, ch, demoPeriod)
 	pb, _ := New(opt)
 	runFrames(t, pb, frames[:half], nil)
 	cks := checkpointsOf(t, pb)
@@ -139,7 +139,7 @@ func TestCheckpointMoveUnit(t *testing.T) {
 	}
 
 	t.Run("fresh", func(t *testing.T) {
-		got, opt := newRecorderOpts(cfg, ch, period)
+		got, opt := newRecorderOpts(cfg, ch, demoPeriod)
 		pc, _ := New(opt)
 		restored, errs := pc.Restore([]*ModelFile{ck})
 		if len(errs) > 0 || len(restored) != 1 {
@@ -180,9 +180,9 @@ func TestCheckpointMoveUnit(t *testing.T) {
 		if err != nil {
 			t.Fatal(err)
 		}
-		got, opt := newRecorderOpts(cfg, ch2, period)
+		got, opt := newRecorderOpts(cfg, ch2, demoPeriod)
 		pd, _ := New(opt)
-		in, err := stream.NewIntake(ch2, stream.Options{Align: stream.AlignConfig{Period: period}}, pd.Frame)
+		in, err := stream.NewIntake(ch2, stream.Options{Align: stream.AlignConfig{Period: demoPeriod}}, pd.Frame)
 		if err != nil {
 			t.Fatal(err)
 		}
@@ -234,11 +234,8 @@ func lineTime(t *testing.T, l []byte) time.Time {
 // still restores every unit with its alarms; a damaged alarm file is
 // reported as an incompatible checkpoint and the units warm up again.
 func TestCheckpointLegacyAlarmFile(t *testing.T) {
-	const period = 20 * time.Second
-	ch, frames := collectFrames(t, demoBytes(t, 3), period)
-	cfg := &configs.Config{Model: configs.Model{WarmUp: 100}}
-	cfg.ApplyDefaults()
-	_, opt := newRecorderOpts(cfg, ch, period)
+	cfg, ch, frames := demoFrames(t, 3*time.Hour, configs.Model{WarmUp: 100})
+	_, opt := newRecorderOpts(cfg, ch, demoPeriod)
 	p, _ := New(opt)
 	runFrames(t, p, frames, nil)
 	open := p.Alerts().Open(nil)
@@ -273,7 +270,7 @@ func TestCheckpointLegacyAlarmFile(t *testing.T) {
 		t.Fatal(err)
 	}
 	cks, errs = ReadCheckpoints(dir)
-	_, opt = newRecorderOpts(cfg, ch, period)
+	_, opt = newRecorderOpts(cfg, ch, demoPeriod)
 	p2, _ := New(opt)
 	restored, rerrs := p2.Restore(cks)
 	if len(errs) > 0 || len(rerrs) > 0 || len(restored) != len(cks) {
@@ -287,7 +284,7 @@ func TestCheckpointLegacyAlarmFile(t *testing.T) {
 		t.Fatal(err)
 	}
 	cks, _ = ReadCheckpoints(dir)
-	_, opt = newRecorderOpts(cfg, ch, period)
+	_, opt = newRecorderOpts(cfg, ch, demoPeriod)
 	p3, _ := New(opt)
 	restored, rerrs = p3.Restore(cks)
 	if len(restored) != 0 || len(rerrs) != len(cks) {

@@ -10,26 +10,23 @@ import (
 	"time"
 
 	"modewatch/alerts"
+	"modewatch/cmd/modewatch/internal/testkit"
 	"modewatch/configs"
-	"modewatch/sim"
 	"modewatch/stream"
 )
 
-// demoBytes returns the first hours of the shipped demo scenario (invented
-// data).
-func demoBytes(t testing.TB, hours int) []byte {
-	t.Helper()
-	s, err := sim.Demo()
-	if err != nil {
-		t.Fatal(err)
-	}
-	s = s.Clone()
-	s.Duration = time.Duration(hours) * time.Hour
-	var b bytes.Buffer
-	if err := s.WriteLineProtocol(&b); err != nil {
-		t.Fatal(err)
-	}
-	return b.Bytes()
+// demoPeriod is the frame period the tests align the demo log to.
+const demoPeriod = 20 * time.Second
+
+// demoFrames returns the channels and aligned frames (demoPeriod) of the
+// demo scenario's first d (invented data), and a configuration with model
+// over the defaults.
+func demoFrames(tb testing.TB, d time.Duration, model configs.Model) (*configs.Config, *stream.Channels, []stream.Frame) {
+	tb.Helper()
+	ch, frames := collectFrames(tb, testkit.DemoLog(tb, d), demoPeriod)
+	cfg := &configs.Config{Model: model}
+	cfg.ApplyDefaults()
+	return cfg, ch, frames
 }
 
 func TestRoundPeriod(t *testing.T) {
@@ -61,7 +58,7 @@ units:
 	if err != nil {
 		t.Fatal(err)
 	}
-	res, err := Replay(context.Background(), ReplayOptions{Config: cfg, Inputs: []string{"-"}, Stdin: bytes.NewReader(demoBytes(t, 1))})
+	res, err := Replay(context.Background(), ReplayOptions{Config: cfg, Inputs: []string{"-"}, Stdin: bytes.NewReader(testkit.DemoLog(t, time.Hour))})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -89,7 +86,7 @@ units:
 func TestFrameAllocs(t *testing.T) {
 	cfg := &configs.Config{Model: configs.Model{WarmUp: 100, RefreshEvery: 1 << 30}}
 	cfg.ApplyDefaults()
-	res, err := Replay(context.Background(), ReplayOptions{Config: cfg, Inputs: []string{"-"}, Stdin: bytes.NewReader(demoBytes(t, 2))})
+	res, err := Replay(context.Background(), ReplayOptions{Config: cfg, Inputs: []string{"-"}, Stdin: bytes.NewReader(testkit.DemoLog(t, 2*time.Hour))})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -147,7 +144,7 @@ func TestFreezeOnAlert(t *testing.T) {
 }
 
 func freezeOnAlert(t *testing.T, around bool) {
-	data := demoBytes(t, 3)
+	data := testkit.DemoLog(t, 3*time.Hour)
 	cfg := &configs.Config{Model: configs.Model{WarmUp: 100}, Alerts: configs.Alerts{LearnAroundAlert: &around}}
 	cfg.ApplyDefaults()
 	var opened []*alerts.Record

@@ -19,16 +19,13 @@ import (
 // alert record revisions in the same order (the parallel part touches only
 // each unit's own tracker; the alarm engine is fed in unit order).
 func TestWorkersSameResult(t *testing.T) {
-	const period = 20 * time.Second
-	ch, frames := collectFrames(t, demoBytes(t, 4), period)
-	cfg := &configs.Config{Model: configs.Model{WarmUp: 100}}
-	cfg.ApplyDefaults()
+	cfg, ch, frames := demoFrames(t, 4*time.Hour, configs.Model{WarmUp: 100})
 	type run struct {
 		scores map[string][]scoreRec
 		pubs   []unitPub
 	}
 	runWith := func(workers int) run {
-		r, opt := newRecorderOpts(cfg, ch, period)
+		r, opt := newRecorderOpts(cfg, ch, demoPeriod)
 		var pubs []unitPub
 		opt.Publisher = alerts.PublisherFunc(func(a *alerts.Record) {
 			pubs = append(pubs, unitPub{a.ID, a.Revision, a.Updated, a.End != nil})
@@ -80,9 +77,8 @@ func TestWorkersSameResult(t *testing.T) {
 // TestWorkersPlacement: every unit has exactly one worker, and a unit
 // keeps it from frame to frame; Close leaves a pipeline that still scores.
 func TestWorkersPlacement(t *testing.T) {
-	const period = 20 * time.Second
-	ch, frames := collectFrames(t, demoBytes(t, 1), period)
-	p, err := New(Options{Channels: ch, Period: period, Workers: 3})
+	_, ch, frames := demoFrames(t, time.Hour, configs.Model{})
+	p, err := New(Options{Channels: ch, Period: demoPeriod, Workers: 3})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -119,7 +115,7 @@ func TestWorkersPlacement(t *testing.T) {
 	p.Close() // idempotent
 	before := p.Units()[0].frames
 	last := frames[len(frames)-1]
-	last.Start = last.Start.Add(period)
+	last.Start = last.Start.Add(demoPeriod)
 	if err := p.Frame(&last); err != nil {
 		t.Fatal(err)
 	}
@@ -136,12 +132,9 @@ func TestWorkersFrameAllocs(t *testing.T) {
 	if raceOn {
 		t.Skip("the race detector allocates on channel hand-overs")
 	}
-	const period = 20 * time.Second
-	ch, frames := collectFrames(t, demoBytes(t, 2), period)
-	cfg := &configs.Config{Model: configs.Model{WarmUp: 100}}
-	cfg.ApplyDefaults()
+	cfg, ch, frames := demoFrames(t, 2*time.Hour, configs.Model{WarmUp: 100})
 	allocs := func(workers int) float64 {
-		p, err := New(Options{Config: cfg, Channels: ch, Period: period, Workers: workers})
+		p, err := New(Options{Config: cfg, Channels: ch, Period: demoPeriod, Workers: workers})
 		if err != nil {
 			t.Fatal(err)
 		}
@@ -154,7 +147,7 @@ func TestWorkersFrameAllocs(t *testing.T) {
 			// Replay the last quarter's frames shifted past the end.
 			src := &frames[len(frames)*3/4+k%(len(frames)/4)]
 			f.Values, f.Missing = src.Values, src.Missing
-			f.Start = f.Start.Add(period)
+			f.Start = f.Start.Add(demoPeriod)
 			if err := p.Frame(&f); err != nil {
 				t.Fatal(err)
 			}
