@@ -4,6 +4,7 @@ import (
 	"testing"
 	"time"
 
+	"modewatch/cmd/modewatch/internal/testkit"
 	"modewatch/sim"
 )
 
@@ -15,7 +16,7 @@ import (
 // minutes. A whole-day shift keeps the plant's daily cycles in phase, so
 // every count must agree exactly.
 func TestReplayBefore1970(t *testing.T) {
-	base := demoHours(t, 8)
+	base := testkit.DemoScenario(t, 8*time.Hour)
 	base.Episodes = []sim.Episode{{
 		ID: "stuck", Kind: sim.Stuck, Channels: []string{"chill.chiller02.chw_return_temp"},
 		Start: base.Start.Add(3 * time.Hour), End: base.Start.Add(5 * time.Hour),

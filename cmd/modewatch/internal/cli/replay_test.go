@@ -2,7 +2,6 @@ package cli
 
 import (
 	"bufio"
-	"bytes"
 	"encoding/json"
 	"fmt"
 	"os"
@@ -15,42 +14,27 @@ import (
 
 	"modewatch/cmd/modewatch/internal/evaluate"
 	"modewatch/cmd/modewatch/internal/pipeline"
+	"modewatch/cmd/modewatch/internal/testkit"
 	"modewatch/sim"
 )
-
-// demoHours returns a copy of the shipped demo scenario (invented data,
-// deterministic) cut to its first hours.
-func demoHours(t *testing.T, hours int) *sim.Scenario {
-	t.Helper()
-	s, err := sim.Demo()
-	if err != nil {
-		t.Fatal(err)
-	}
-	s = s.Clone()
-	s.Duration = time.Duration(hours) * time.Hour
-	return s
-}
 
 // demoLog writes the first hours of the shipped demo scenario (invented
 // data, deterministic) and returns its path and its lines.
 func demoLog(t *testing.T, hours int) (string, []string) {
 	t.Helper()
-	return scenarioLog(t, demoHours(t, hours))
+	return scenarioLog(t, testkit.DemoScenario(t, time.Duration(hours)*time.Hour))
 }
 
 // scenarioLog writes the readings of scenario s as line protocol to a
 // temporary file and returns its path and its lines.
 func scenarioLog(t *testing.T, s *sim.Scenario) (string, []string) {
 	t.Helper()
-	var b bytes.Buffer
-	if err := s.WriteLineProtocol(&b); err != nil {
-		t.Fatal(err)
-	}
+	b := testkit.LineProtocol(t, s)
 	p := filepath.Join(t.TempDir(), "plant.lp")
-	if err := os.WriteFile(p, b.Bytes(), 0o644); err != nil {
+	if err := os.WriteFile(p, b, 0o644); err != nil {
 		t.Fatal(err)
 	}
-	return p, strings.Split(strings.TrimSuffix(b.String(), "\n"), "\n")
+	return p, strings.Split(strings.TrimSuffix(string(b), "\n"), "\n")
 }
 
 func decodeSummary(t *testing.T, out string) summary {

@@ -11,20 +11,15 @@ import (
 
 	"modewatch/cmd/modewatch/internal/pipeline"
 	"modewatch/cmd/modewatch/internal/report"
+	"modewatch/cmd/modewatch/internal/testkit"
 	"modewatch/configs"
-	"modewatch/sim"
 	"modewatch/stream"
 )
 
 // benchDemoLog writes the first hours of the demo scenario (invented
 // data) and returns its path.
 func benchDemoLog(b *testing.B, hours int) string {
-	s, err := sim.Demo()
-	if err != nil {
-		b.Fatal(err)
-	}
-	s = s.Clone()
-	s.Duration = time.Duration(hours) * time.Hour
+	s := testkit.DemoScenario(b, time.Duration(hours)*time.Hour)
 	files, err := s.WriteFiles(b.TempDir(), false)
 	if err != nil {
 		b.Fatal(err)

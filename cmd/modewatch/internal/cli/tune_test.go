@@ -9,18 +9,18 @@ import (
 	"path/filepath"
 	"strconv"
 	"strings"
-	"sync"
 	"testing"
 	"time"
 
 	"modewatch/cmd/modewatch/internal/evaluate"
+	"modewatch/cmd/modewatch/internal/testkit"
 )
 
 // demoWithTruth writes the first hours of the demo scenario (invented
 // data) and a truth file holding the episodes that start within them.
 func demoWithTruth(t *testing.T, hours int) (log, truth string) {
 	t.Helper()
-	s := demoHours(t, hours)
+	s := testkit.DemoScenario(t, time.Duration(hours)*time.Hour)
 	dir := t.TempDir()
 	files, err := s.WriteFiles(dir, false)
 	if err != nil {
@@ -237,23 +237,10 @@ func TestDemoTune(t *testing.T) {
 	}
 }
 
-// syncBuffer is a bytes.Buffer safe for concurrent writers.
-type syncBuffer struct {
-	mu sync.Mutex
-	b  bytes.Buffer
-}
-
-func (s *syncBuffer) Write(p []byte) (int, error) {
-	s.mu.Lock()
-	defer s.mu.Unlock()
-	return s.b.Write(p)
-}
-func (s *syncBuffer) String() string { s.mu.Lock(); defer s.mu.Unlock(); return s.b.String() }
-
 // TestSlowWatch: a setting running past the threshold is named once on
 // standard error; one that ends in time is not.
 func TestSlowWatch(t *testing.T) {
-	var errb syncBuffer
+	var errb testkit.SyncBuffer
 	w := newSlowWatch(IO{Err: &errb}, false, 20*time.Millisecond)
 	quick := w.begin("alpha=0.01")
 	quick()

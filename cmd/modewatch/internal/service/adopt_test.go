@@ -6,15 +6,13 @@ import (
 	"encoding/json"
 	"fmt"
 	"net/http"
-	"path/filepath"
 	"sync"
 	"testing"
 	"time"
 
 	"modewatch/alerts"
 	"modewatch/cmd/modewatch/internal/pipeline"
-	"modewatch/configs"
-	"modewatch/sim"
+	"modewatch/cmd/modewatch/internal/testkit"
 	"modewatch/stream"
 )
 
@@ -36,28 +34,10 @@ func lineTime(t *testing.T, l []byte) time.Time {
 // frames and alerts are not disturbed.
 func TestAdoptUnitCheckpoint(t *testing.T) {
 	const moved = "coolwater"
-	dir := t.TempDir()
-	cfg, err := configs.Parse("adopt.yaml", []byte(`
-frames: {period: 20s}
-model: {warmup: 100}
+	cfg := serviceConfigAt(t, t.TempDir(), 20*time.Second, `model: {warmup: 100}
 server: {embedded_port: -1}
-http: {listen: "127.0.0.1:0"}
-state_dir: `+filepath.Join(dir, "data")+`
-`))
-	if err != nil {
-		t.Fatal(err)
-	}
-	sc, err := sim.Demo()
-	if err != nil {
-		t.Fatal(err)
-	}
-	sc = sc.Clone()
-	sc.Duration = 4 * time.Hour
-	var data bytes.Buffer
-	if err := sc.WriteLineProtocol(&data); err != nil {
-		t.Fatal(err)
-	}
-	lines := bytes.SplitAfter(data.Bytes(), []byte("\n"))
+http: {listen: "127.0.0.1:0"}`)
+	lines := bytes.SplitAfter(testkit.DemoLog(t, 4*time.Hour), []byte("\n"))
 	cut := lineTime(t, lines[0]).Truncate(cfg.Frames.Period).Add(2 * time.Hour)
 
 	// The other instance: every unit, first two hours; its checkpoint of

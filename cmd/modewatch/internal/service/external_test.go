@@ -10,11 +10,12 @@ import (
 	"path/filepath"
 	"regexp"
 	"strconv"
-	"sync"
 	"testing"
 	"time"
 
 	"github.com/nats-io/nats.go"
+
+	"modewatch/cmd/modewatch/internal/testkit"
 )
 
 // minServerVersion is the oldest NATS server release the service is
@@ -79,7 +80,7 @@ func TestExternalOldestServer(t *testing.T) {
 intake: {jetstream: {stream: READINGS, max_age: 1h, max_bytes: 67108864}}
 http: {listen: "127.0.0.1:0"}`)
 	start := time.Now()
-	var svcLog syncBuffer
+	var svcLog testkit.SyncBuffer
 	svc := startService(t, Options{Config: cfg, Log: slog.New(slog.NewTextHandler(&svcLog, nil))})
 	t.Logf("started in %v", time.Since(start))
 	nc, err := nats.Connect(url)
@@ -96,22 +97,4 @@ http: {listen: "127.0.0.1:0"}`)
 	if old := regexp.MustCompile(`^2\.(9|10)\.`).MatchString(version); old && !bytes.Contains(svcLog.Bytes(), []byte("no consumer-reset API")) {
 		t.Errorf("nats-server %s has no consumer-reset API, but the fallback was not logged", version)
 	}
-}
-
-// syncBuffer is a bytes.Buffer safe for a logger and a reader.
-type syncBuffer struct {
-	mu sync.Mutex
-	b  bytes.Buffer
-}
-
-func (s *syncBuffer) Write(p []byte) (int, error) {
-	s.mu.Lock()
-	defer s.mu.Unlock()
-	return s.b.Write(p)
-}
-
-func (s *syncBuffer) Bytes() []byte {
-	s.mu.Lock()
-	defer s.mu.Unlock()
-	return bytes.Clone(s.b.Bytes())
 }

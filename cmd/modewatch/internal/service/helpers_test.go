@@ -81,7 +81,14 @@ func natsClient(t *testing.T, svc *Service) *nats.Conn {
 // then yaml, then a state_dir in a temporary directory.
 func serviceConfig(t *testing.T, yaml string) *configs.Config {
 	t.Helper()
-	cfg, err := configs.Parse(t.Name()+".yaml", []byte("frames: {period: 1s}\n"+yaml+"\nstate_dir: "+filepath.Join(t.TempDir(), "data")+"\n"))
+	return serviceConfigAt(t, t.TempDir(), time.Second, yaml)
+}
+
+// serviceConfigAt parses the configuration of the YAML lines of yaml with
+// the given frame period and its state under dir/data.
+func serviceConfigAt(t *testing.T, dir string, period time.Duration, yaml string) *configs.Config {
+	t.Helper()
+	cfg, err := configs.Parse(t.Name()+".yaml", []byte("frames: {period: "+period.String()+"}\n"+yaml+"\nstate_dir: "+filepath.Join(dir, "data")+"\n"))
 	if err != nil {
 		t.Fatal(err)
 	}

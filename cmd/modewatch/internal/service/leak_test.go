@@ -2,12 +2,9 @@ package service
 
 import (
 	"context"
-	"path/filepath"
 	"runtime"
 	"testing"
 	"time"
-
-	"modewatch/configs"
 )
 
 // TestShutdownLeavesNoGoroutines: Start and Shutdown of a service with an
@@ -15,16 +12,8 @@ import (
 // and Shutdown is idempotent.
 func TestShutdownLeavesNoGoroutines(t *testing.T) {
 	before := runtime.NumGoroutine()
-	dir := t.TempDir()
-	cfg, err := configs.Parse("leak.yaml", []byte(`
-frames: {period: 10s}
-server: {embedded_port: -1}
-http: {listen: "127.0.0.1:0"}
-state_dir: `+filepath.Join(dir, "data")+`
-`))
-	if err != nil {
-		t.Fatal(err)
-	}
+	cfg := serviceConfigAt(t, t.TempDir(), 10*time.Second, `server: {embedded_port: -1}
+http: {listen: "127.0.0.1:0"}`)
 	svc, err := Start(context.Background(), Options{Config: cfg})
 	if err != nil {
 		t.Fatal(err)

@@ -5,12 +5,10 @@ import (
 	"fmt"
 	"math"
 	"math/rand/v2"
-	"path/filepath"
 	"testing"
 	"time"
 
 	"modewatch/alerts"
-	"modewatch/configs"
 
 	"github.com/nats-io/nats.go"
 )
@@ -56,16 +54,9 @@ func qService(t *testing.T, seed uint64, n int, extra string) (*Service, *nats.C
 	var normal bytes.Buffer
 	qLines(&normal, t0, 0, n, never, never, never, rng)
 	modelFile := fitFile(t, dir, time.Second, &normal)
-	scfg, err := configs.Parse("q.yaml", []byte(`
-frames: {period: 1s}
-server: {embedded_port: -1}
+	scfg := serviceConfigAt(t, dir, time.Second, `server: {embedded_port: -1}
 model: {file: `+modelFile+`}
-state_dir: `+filepath.Join(dir, "data")+`
-`+extra+`
-`))
-	if err != nil {
-		t.Fatal(err)
-	}
+`+extra)
 	svc, nc := startWithClient(t, Options{Config: scfg})
 	return svc, nc, t0, rng
 }

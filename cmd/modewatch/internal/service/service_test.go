@@ -18,6 +18,7 @@ import (
 
 	"modewatch/alerts"
 	"modewatch/cmd/modewatch/internal/pipeline"
+	"modewatch/cmd/modewatch/internal/testkit"
 	"modewatch/configs"
 	"modewatch/sim"
 	"modewatch/stream/natsource/natstest"
@@ -27,17 +28,8 @@ import (
 // (invented data) and returns the model file's path.
 func fitDay1(t *testing.T, dir string) string {
 	t.Helper()
-	s, err := sim.Demo()
-	if err != nil {
-		t.Fatal(err)
-	}
-	day1 := s.Clone()
-	day1.Duration = 24 * time.Hour
-	var b bytes.Buffer
-	if err := day1.WriteLineProtocol(&b); err != nil {
-		t.Fatal(err)
-	}
-	return fitFile(t, dir, s.Period, &b)
+	day1 := testkit.DemoScenario(t, 24*time.Hour)
+	return fitFile(t, dir, day1.Period, bytes.NewReader(testkit.LineProtocol(t, day1)))
 }
 
 // fitFile fits a model with the default settings on the line protocol in
@@ -68,17 +60,10 @@ func fitFile(t *testing.T, dir string, period time.Duration, r io.Reader) string
 func fittedConfig(t *testing.T, dir, extra string) *configs.Config {
 	t.Helper()
 	modelFile := fitDay1(t, dir)
-	cfg, err := configs.Parse("test.yaml", []byte(`
-frames: {period: 20s}
-server: {embedded_port: -1}
+	return serviceConfigAt(t, dir, 20*time.Second, `server: {embedded_port: -1}
 http: {listen: "127.0.0.1:0"}
 model: {file: `+modelFile+`}
-state_dir: `+filepath.Join(dir, "data")+`
-`+extra))
-	if err != nil {
-		t.Fatal(err)
-	}
-	return cfg
+`+extra)
 }
 
 func getJSON(t *testing.T, url string, v any) int {

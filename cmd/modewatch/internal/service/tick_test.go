@@ -3,12 +3,10 @@ package service
 import (
 	"context"
 	"fmt"
-	"path/filepath"
 	"testing"
 	"time"
 
 	"modewatch/alerts"
-	"modewatch/configs"
 	"modewatch/stream/natsource/natstest"
 )
 
@@ -18,16 +16,8 @@ import (
 // again without any new frame. On the way, a channel that starts reporting
 // late is counted as warming in /metrics and raises no quality alarm.
 func TestStalledUnitShelfExpires(t *testing.T) {
-	dir := t.TempDir()
-	cfg, err := configs.Parse("tick.yaml", []byte(`
-frames: {period: 1s}
-server: {embedded_port: -1}
-http: {listen: "off"}
-state_dir: `+filepath.Join(dir, "data")+`
-`))
-	if err != nil {
-		t.Fatal(err)
-	}
+	cfg := serviceConfig(t, `server: {embedded_port: -1}
+http: {listen: "off"}`)
 	svc, nc := startWithClient(t, Options{Config: cfg})
 
 	// Readings (invented) of unit tk until a missing-channel alert opens.

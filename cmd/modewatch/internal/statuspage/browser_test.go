@@ -30,6 +30,7 @@ import (
 	"modewatch/cmd/modewatch/internal/pipeline"
 	"modewatch/cmd/modewatch/internal/service"
 	"modewatch/cmd/modewatch/internal/statuspage"
+	"modewatch/cmd/modewatch/internal/testkit"
 	"modewatch/configs"
 	"modewatch/sim"
 )
@@ -242,14 +243,9 @@ func demoPlant(t *testing.T) (base string, svc *service.Service, sc *sim.Scenari
 	if err != nil {
 		t.Fatal(err)
 	}
-	day1 := sc.Clone()
-	day1.Duration = 24 * time.Hour
-	var buf bytes.Buffer
-	if err := day1.WriteLineProtocol(&buf); err != nil {
-		t.Fatal(err)
-	}
+	day1 := testkit.LineProtocol(t, testkit.DemoScenario(t, 24*time.Hour))
 	log := slog.New(slog.NewTextHandler(io.Discard, nil))
-	res, err := pipeline.Replay(context.Background(), pipeline.ReplayOptions{Config: cfg, Inputs: []string{"-"}, Stdin: &buf, Fit: true, Log: log})
+	res, err := pipeline.Replay(context.Background(), pipeline.ReplayOptions{Config: cfg, Inputs: []string{"-"}, Stdin: bytes.NewReader(day1), Fit: true, Log: log})
 	if err != nil {
 		t.Fatal(err)
 	}
