@@ -188,12 +188,27 @@ func TestTypeErrors(t *testing.T) {
 	}
 }
 
+// parseCase is one input of a value parser, the value it must give and
+// whether it is accepted (a refused input must give the zero value).
+type parseCase[T comparable] struct {
+	in   string
+	want T
+	ok   bool
+}
+
+// checkParse runs parse, named name in messages, on every case.
+func checkParse[T comparable](t *testing.T, name string, parse func(string) (T, error), cases []parseCase[T]) {
+	t.Helper()
+	for _, tc := range cases {
+		got, err := parse(tc.in)
+		if (err == nil) != tc.ok || got != tc.want {
+			t.Errorf("%s(%q) = %+v, %v", name, tc.in, got, err)
+		}
+	}
+}
+
 func TestParseValues(t *testing.T) {
-	mc := []struct {
-		in   string
-		want ModeCount
-		ok   bool
-	}{
+	mc := []parseCase[ModeCount]{
 		{"3", ModeCount{Count: 3}, true},
 		{"auto:0.9", ModeCount{Share: 0.9}, true},
 		{"auto:1", ModeCount{Share: 1}, true},
@@ -202,49 +217,26 @@ func TestParseValues(t *testing.T) {
 		{"auto:", ModeCount{}, false},
 		{"three", ModeCount{}, false},
 	}
+	checkParse(t, "ParseModeCount", ParseModeCount, mc)
 	for _, tc := range mc {
-		got, err := ParseModeCount(tc.in)
-		if (err == nil) != tc.ok || got != tc.want {
-			t.Errorf("ParseModeCount(%q) = %+v, %v", tc.in, got, err)
-		}
-		if tc.ok && got.String() != tc.in {
+		if got, _ := ParseModeCount(tc.in); tc.ok && got.String() != tc.in {
 			t.Errorf("ModeCount %q round-trips to %q", tc.in, got.String())
 		}
 	}
-	dur := []struct {
-		in   string
-		want time.Duration
-		ok   bool
-	}{
+	checkParse(t, "ParseDuration", ParseDuration, []parseCase[time.Duration]{
 		{"7d", 7 * 24 * time.Hour, true},
 		{"1h30m", 90 * time.Minute, true},
 		{"250ms", 250 * time.Millisecond, true},
 		{"-1s", 0, false},
 		{"-2d", 0, false},
 		{"1 day", 0, false},
-	}
-	for _, tc := range dur {
-		got, err := ParseDuration(tc.in)
-		if (err == nil) != tc.ok || got != tc.want {
-			t.Errorf("ParseDuration(%q) = %v, %v", tc.in, got, err)
-		}
-	}
-	lim := []struct {
-		in   string
-		want Limits
-		ok   bool
-	}{
+	})
+	checkParse(t, "ParseLimits", ParseLimits, []parseCase[Limits]{
 		{"theory", Limits{Method: LimitsTheory}, true},
 		{"empirical:normal.lp", Limits{Method: LimitsEmpirical, File: "normal.lp"}, true},
 		{"empirical:", Limits{}, false},
 		{"box", Limits{}, false},
-	}
-	for _, tc := range lim {
-		got, err := ParseLimits(tc.in)
-		if (err == nil) != tc.ok || got != tc.want {
-			t.Errorf("ParseLimits(%q) = %+v, %v", tc.in, got, err)
-		}
-	}
+	})
 }
 
 func TestSparsitySyntax(t *testing.T) {

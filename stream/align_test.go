@@ -25,6 +25,27 @@ type wantFrame struct {
 
 var nan = math.NaN()
 
+// alignAll runs the readings in through a new Aligner of two channels
+// under cfg and flushes it; it returns the Aligner and the frames it
+// emitted.
+func alignAll(t *testing.T, cfg AlignConfig, in []reading) (*Aligner, *sink) {
+	t.Helper()
+	s := &sink{}
+	a, err := NewAligner(cfg, 2, s.handle)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, r := range in {
+		if _, err := a.Add(r.c, at(r.t), r.v); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if err := a.Flush(); err != nil {
+		t.Fatal(err)
+	}
+	return a, s
+}
+
 // TestAlignSequences runs hand-built sequences of two channels (a = 0,
 // b = 1) through an Aligner and checks the emitted frames and counters. Each
 // expected frame is derived by hand in the comment beside the case from the
@@ -118,19 +139,7 @@ func TestAlignSequences(t *testing.T) {
 	}
 	for _, tt := range tests {
 		t.Run(tt.name, func(t *testing.T) {
-			s := &sink{}
-			a, err := NewAligner(tt.cfg, 2, s.handle)
-			if err != nil {
-				t.Fatal(err)
-			}
-			for _, r := range tt.in {
-				if _, err := a.Add(r.c, at(r.t), r.v); err != nil {
-					t.Fatal(err)
-				}
-			}
-			if err := a.Flush(); err != nil {
-				t.Fatal(err)
-			}
+			a, s := alignAll(t, tt.cfg, tt.in)
 			if len(s.frames) != len(tt.want) {
 				t.Fatalf("got %d frames %+v, want %d", len(s.frames), s.frames, len(tt.want))
 			}

@@ -72,17 +72,7 @@ func TestAlignSeed(t *testing.T) {
 	}
 	for _, tc := range tests {
 		t.Run(tc.name, func(t *testing.T) {
-			whole := &sink{}
-			a, err := NewAligner(tc.cfg, 2, whole.handle)
-			if err != nil {
-				t.Fatal(err)
-			}
-			for _, r := range tc.in {
-				if _, err := a.Add(r.c, at(r.t), r.v); err != nil {
-					t.Fatal(err)
-				}
-			}
-			a.Flush()
+			_, whole := alignAll(t, tc.cfg, tc.in)
 
 			// Before the cut: keep the last frame's values and times.
 			var lastV []float64

@@ -2,6 +2,7 @@ package natsource
 
 import (
 	"context"
+	"fmt"
 	"runtime"
 	"strings"
 	"testing"
@@ -63,16 +64,25 @@ func (r *eventRecorder) on(e Event) {
 // wait returns the next event of kind k, failing the test after d.
 func (r *eventRecorder) wait(t *testing.T, k EventKind, d time.Duration) Event {
 	t.Helper()
+	return receiveUntil(t, r.ch, d, func(e Event) bool { return e.Kind == k },
+		func() string { return fmt.Sprintf("no %v event within %v", k, d) })
+}
+
+// receiveUntil takes values from ch until ok accepts one, which it
+// returns; when none is accepted within d it fails the test with the
+// message of fail.
+func receiveUntil[T any](t *testing.T, ch <-chan T, d time.Duration, ok func(T) bool, fail func() string) T {
+	t.Helper()
 	timer := time.NewTimer(d)
 	defer timer.Stop()
 	for {
 		select {
-		case e := <-r.ch:
-			if e.Kind == k {
-				return e
+		case v := <-ch:
+			if ok(v) {
+				return v
 			}
 		case <-timer.C:
-			t.Fatalf("no %v event within %v", k, d)
+			t.Fatal(fail())
 		}
 	}
 }

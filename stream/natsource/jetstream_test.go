@@ -2,6 +2,7 @@ package natsource
 
 import (
 	"errors"
+	"fmt"
 	"math/rand/v2"
 	"strconv"
 	"sync"
@@ -145,21 +146,11 @@ func startRun(t *testing.T, url string, cfg JetStreamConfig, ts []time.Time, lag
 
 func (r *consumerRun) waitCount(t *testing.T, n int, d time.Duration) {
 	t.Helper()
-	timer := time.NewTimer(d)
-	defer timer.Stop()
-	for {
-		select {
-		case k := <-r.count:
-			if k >= n {
-				return
-			}
-		case <-timer.C:
-			r.mu.Lock()
-			k := len(r.processed)
-			r.mu.Unlock()
-			t.Fatalf("processed %d messages, want %d within %v", k, n, d)
-		}
-	}
+	receiveUntil(t, r.count, d, func(k int) bool { return k >= n }, func() string {
+		r.mu.Lock()
+		defer r.mu.Unlock()
+		return fmt.Sprintf("processed %d messages, want %d within %v", len(r.processed), n, d)
+	})
 }
 
 // TestJetStreamCrashRestartRedelivers: a consumer processes part of a

@@ -3,8 +3,6 @@ package evaluate
 import (
 	"testing"
 	"time"
-
-	"gonum.org/v1/gonum/floats/scalar"
 )
 
 // TestComputeEdges adds edge cases to TestCompute and checks the
@@ -94,25 +92,8 @@ func TestComputeEdges(t *testing.T) {
 				grace = 0
 			}
 			got := Compute(tc.alerts, tc.episodes, oneUnit(tc.span, grace))
-			if got.Episodes != len(tc.episodes) || got.Detected != tc.detected || got.FalseAlerts != tc.falseN || got.IsolatedTop3 != tc.isolated {
-				t.Errorf("counts: episodes %d detected %d false %d isolated %d, want %d %d %d %d",
-					got.Episodes, got.Detected, got.FalseAlerts, got.IsolatedTop3, len(tc.episodes), tc.detected, tc.falseN, tc.isolated)
-			}
-			for _, f := range []struct {
-				name      string
-				got, want *float64
-			}{
-				{"detection_rate", got.DetectionRate, tc.rate},
-				{"median_delay_s", got.MedianDelayS, tc.median},
-				{"false_alerts_per_day", got.FalseAlertsPerDay, tc.perDay},
-			} {
-				switch {
-				case (f.got == nil) != (f.want == nil):
-					t.Errorf("%s: got %v, want %v", f.name, f.got, f.want)
-				case f.got != nil && !scalar.EqualWithinAbsOrRel(*f.got, *f.want, 1e-12, 1e-12):
-					t.Errorf("%s: got %g, want %g", f.name, *f.got, *f.want)
-				}
-			}
+			checkMetrics(t, got, Metrics{Episodes: len(tc.episodes), Detected: tc.detected, FalseAlerts: tc.falseN, IsolatedTop3: tc.isolated,
+				DetectionRate: tc.rate, MedianDelayS: tc.median, FalseAlertsPerDay: tc.perDay})
 			if len(got.Matches) != len(tc.episodes) {
 				t.Fatalf("%d matches for %d episodes", len(got.Matches), len(tc.episodes))
 			}

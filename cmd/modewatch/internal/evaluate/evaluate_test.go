@@ -109,28 +109,34 @@ func TestCompute(t *testing.T) {
 	}
 	for _, tc := range cases {
 		t.Run(tc.name, func(t *testing.T) {
-			got := Compute(tc.alerts, tc.episodes, oneUnit(tc.span, DefaultGrace))
-			w := tc.want
-			if got.Episodes != w.Episodes || got.Detected != w.Detected || got.FalseAlerts != w.FalseAlerts || got.IsolatedTop3 != w.IsolatedTop3 {
-				t.Errorf("counts: got episodes %d detected %d false %d isolated %d, want %d %d %d %d",
-					got.Episodes, got.Detected, got.FalseAlerts, got.IsolatedTop3, w.Episodes, w.Detected, w.FalseAlerts, w.IsolatedTop3)
-			}
-			for _, f := range []struct {
-				name      string
-				got, want *float64
-			}{
-				{"detection_rate", got.DetectionRate, w.DetectionRate},
-				{"median_delay_s", got.MedianDelayS, w.MedianDelayS},
-				{"false_alerts_per_day", got.FalseAlertsPerDay, w.FalseAlertsPerDay},
-			} {
-				switch {
-				case (f.got == nil) != (f.want == nil):
-					t.Errorf("%s: got %v, want %v", f.name, f.got, f.want)
-				case f.got != nil && !scalar.EqualWithinAbsOrRel(*f.got, *f.want, 1e-12, 1e-12):
-					t.Errorf("%s: got %g, want %g", f.name, *f.got, *f.want)
-				}
-			}
+			checkMetrics(t, Compute(tc.alerts, tc.episodes, oneUnit(tc.span, DefaultGrace)), tc.want)
 		})
+	}
+}
+
+// checkMetrics compares the counts of got with want's, and its rates
+// within 1e-12 (absolute or relative), where a missing rate (nil) must be
+// missing in both.
+func checkMetrics(t *testing.T, got, want Metrics) {
+	t.Helper()
+	if got.Episodes != want.Episodes || got.Detected != want.Detected || got.FalseAlerts != want.FalseAlerts || got.IsolatedTop3 != want.IsolatedTop3 {
+		t.Errorf("counts: got episodes %d detected %d false %d isolated %d, want %d %d %d %d",
+			got.Episodes, got.Detected, got.FalseAlerts, got.IsolatedTop3, want.Episodes, want.Detected, want.FalseAlerts, want.IsolatedTop3)
+	}
+	for _, f := range []struct {
+		name      string
+		got, want *float64
+	}{
+		{"detection_rate", got.DetectionRate, want.DetectionRate},
+		{"median_delay_s", got.MedianDelayS, want.MedianDelayS},
+		{"false_alerts_per_day", got.FalseAlertsPerDay, want.FalseAlertsPerDay},
+	} {
+		switch {
+		case (f.got == nil) != (f.want == nil):
+			t.Errorf("%s: got %v, want %v", f.name, f.got, f.want)
+		case f.got != nil && !scalar.EqualWithinAbsOrRel(*f.got, *f.want, 1e-12, 1e-12):
+			t.Errorf("%s: got %g, want %g", f.name, *f.got, *f.want)
+		}
 	}
 }
 
