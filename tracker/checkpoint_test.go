@@ -34,6 +34,41 @@ func sameScore(a, b *Score) bool {
 	return true
 }
 
+// restoreTracker returns a new tracker of p channels under cfg restored
+// from the checkpoint ck; an error ends the test.
+func restoreTracker(t *testing.T, p int, cfg Config, ck []byte) *Tracker {
+	t.Helper()
+	tr, err := New(p, cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := tr.UnmarshalBinary(ck); err != nil {
+		t.Fatal(err)
+	}
+	return tr
+}
+
+// stepBoth steps a and b through the same n frames of src and ends the
+// test, naming what, at the first frame whose scores are not bit for bit
+// the same (sameScore).
+func stepBoth(t *testing.T, a, b *Tracker, src *gaussSource, p, n int, what string) {
+	t.Helper()
+	x := make([]float64, p)
+	var sa, sb Score
+	for k := 0; k < n; k++ {
+		src.frame(x)
+		if err := a.Step(&sa, x, nil); err != nil {
+			t.Fatal(err)
+		}
+		if err := b.Step(&sb, x, nil); err != nil {
+			t.Fatal(err)
+		}
+		if !sameScore(&sa, &sb) {
+			t.Fatalf("frame %d: %s differs:\n got %+v\nwant %+v", k, what, sb, sa)
+		}
+	}
+}
+
 // Checkpoint round trip: restoring the state and feeding the same frames
 // gives bit-identical scores, across batches, refreshes, missing frames and
 // a freeze; a truncated, corrupt, wrong-version or foreign checkpoint is a
@@ -76,13 +111,7 @@ func TestCheckpointRoundTrip(t *testing.T) {
 		c.Contrib = append([]Contribution(nil), sc.Contrib...)
 		want = append(want, c)
 	}
-	re, err := New(p, cfg)
-	if err != nil {
-		t.Fatal(err)
-	}
-	if err := re.UnmarshalBinary(ck); err != nil {
-		t.Fatal(err)
-	}
+	re := restoreTracker(t, p, cfg, ck)
 	for k := 203; k < 600; k++ {
 		step(re, k, &sc)
 		if !sameScore(&sc, &want[k-203]) {
@@ -145,10 +174,7 @@ func TestCheckpointBaseline(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	re, _ := New(p, Config{Modes: modes.Config{Count: 2}})
-	if err := re.UnmarshalBinary(ck); err != nil {
-		t.Fatal(err)
-	}
+	re := restoreTracker(t, p, Config{Modes: modes.Config{Count: 2}}, ck)
 	var a, b Score
 	for _, x := range src.frames(50, p) {
 		tr.Step(&a, x, nil)
@@ -167,7 +193,6 @@ func TestCheckpointVersion1(t *testing.T) {
 	const p = 7
 	cfg := Config{Period: time.Second, HalfLife: 10 * time.Minute, WarmUp: 40, RefreshEvery: 8, Batch: 16, Modes: modes.Config{Count: 2}}
 	tr, src, ck := steppedTracker(t, p, cfg, 101)
-	x := make([]float64, p)
 	// Header: magic 4, version 2, p 4, fingerprint 8, flags 1, frames 8,
 	// learned 8, since 4, then the u32 initial width (version 2 on). The
 	// u32 count of the lag section (version 3 on) and the u8 flag of the
@@ -182,34 +207,14 @@ func TestCheckpointVersion1(t *testing.T) {
 	v1 = append(v1, ck[lagAt+4+1:len(ck)-4]...)
 	binary.LittleEndian.PutUint16(v1[4:], 1)
 	v1 = binary.LittleEndian.AppendUint32(v1, crc32.ChecksumIEEE(v1))
-	tr2, err := New(p, cfg)
-	if err != nil {
-		t.Fatal(err)
-	}
-	if err := tr2.UnmarshalBinary(v1); err != nil {
-		t.Fatal(err)
-	}
-	var s1, s2 Score
-	for k := 0; k < 50; k++ {
-		src.frame(x)
-		tr.Step(&s1, x, nil)
-		tr2.Step(&s2, x, nil)
-		if s1.T2 != s2.T2 || s1.SPE != s2.SPE || s1.Phi != s2.Phi {
-			t.Fatalf("frame %d: version 1 restore differs", k)
-		}
-	}
+	stepBoth(t, tr, restoreTracker(t, p, cfg, v1), src, p, 50, "version 1 restore")
 }
 
 // steppedTracker returns a tracker of p channels that has stepped n frames
 // of its stream, the stream, and the tracker's checkpoint.
 func steppedTracker(t *testing.T, p int, cfg Config, n int) (*Tracker, *gaussSource, []byte) {
 	t.Helper()
-	tr, src := newStream(t, p, cfg)
-	var sc Score
-	x := make([]float64, p)
-	for k := 0; k < n; k++ {
-		tr.Step(&sc, src.frame(x), nil)
-	}
+	tr, src, _, _ := warmStream(t, p, cfg, n)
 	ck, err := tr.MarshalBinary()
 	if err != nil {
 		t.Fatal(err)
@@ -241,13 +246,7 @@ func TestCheckpointVarianceState(t *testing.T) {
 		want[k] = rv{sc.Residual, sc.Variance, sc.ResidualLimit, sc.VarianceLimit}
 	}
 	replay := func(ck []byte) (same bool, first int) {
-		re, err := New(p, cfg)
-		if err != nil {
-			t.Fatal(err)
-		}
-		if err := re.UnmarshalBinary(ck); err != nil {
-			t.Fatal(err)
-		}
+		re := restoreTracker(t, p, cfg, ck)
 		for k, x := range xs {
 			if err := re.Step(&sc, x, nil); err != nil {
 				t.Fatal(err)

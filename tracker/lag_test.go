@@ -57,10 +57,7 @@ func TestLagCheckpoint(t *testing.T) {
 	for _, n := range []int{10, 110} { // ring filling, ring full
 		tr, src, ck := steppedTracker(t, p, cfg, n)
 		x := make([]float64, p)
-		tr2, _ := New(p, cfg)
-		if err := tr2.UnmarshalBinary(ck); err != nil {
-			t.Fatal(err)
-		}
+		tr2 := restoreTracker(t, p, cfg, ck)
 		var s1, s2 Score
 		mask := make([]bool, p)
 		mask[3] = true

@@ -486,6 +486,22 @@ func newStream(t *testing.T, p int, cfg Config) (*Tracker, *gaussSource) {
 	return tr, newGaussSource(61, randomCov(rng, p, 3))
 }
 
+// warmStream is newStream stepped through n frames of its source: it
+// returns the last frame's score and the frame buffer too. A step error
+// ends the test.
+func warmStream(t *testing.T, p int, cfg Config, n int) (*Tracker, *gaussSource, Score, []float64) {
+	t.Helper()
+	tr, src := newStream(t, p, cfg)
+	var sc Score
+	x := make([]float64, p)
+	for k := 0; k < n; k++ {
+		if err := tr.Step(&sc, src.frame(x), nil); err != nil {
+			t.Fatalf("frame %d: %v", k, err)
+		}
+	}
+	return tr, src, sc, x
+}
+
 // Warm-up: no scores before WarmUp learned frames, stated in the output;
 // then scores with limits.
 func TestWarmUpAndRefresh(t *testing.T) {
@@ -538,12 +554,7 @@ func TestWarmUpAndRefresh(t *testing.T) {
 // Freeze stops learning (statistics unchanged, state frozen); Thaw resumes.
 func TestFreezeThaw(t *testing.T) {
 	const p = 6
-	tr, src := newStream(t, p, Config{Period: time.Second, HalfLife: time.Minute, WarmUp: 30, Modes: modes.Config{Count: 2}})
-	var sc Score
-	x := make([]float64, p)
-	for k := 0; k < 50; k++ {
-		tr.Step(&sc, src.frame(x), nil)
-	}
+	tr, src, sc, x := warmStream(t, p, Config{Period: time.Second, HalfLife: time.Minute, WarmUp: 30, Modes: modes.Config{Count: 2}}, 50)
 	tr.Freeze()
 	before := tr.Stats().MeanTo(make([]float64, p))
 	for k := 0; k < 20; k++ {
@@ -614,12 +625,7 @@ func TestStuckChannel(t *testing.T) {
 // statistics are not updated.
 func TestStepMissing(t *testing.T) {
 	const p = 10
-	tr, src := newStream(t, p, Config{Period: time.Second, HalfLife: time.Hour, WarmUp: 100, Modes: modes.Config{Count: 3}})
-	var sc Score
-	x := make([]float64, p)
-	for k := 0; k < 200; k++ {
-		tr.Step(&sc, src.frame(x), nil)
-	}
+	tr, src, sc, x := warmStream(t, p, Config{Period: time.Second, HalfLife: time.Hour, WarmUp: 100, Modes: modes.Config{Count: 3}}, 200)
 	full := sc
 	miss := make([]bool, p)
 	miss[2], miss[5] = true, true
@@ -944,22 +950,7 @@ func TestGrow(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	tr2, err := New(p2, cfg)
-	if err != nil {
-		t.Fatal(err)
-	}
-	if err := tr2.UnmarshalBinary(ck); err != nil {
-		t.Fatal(err)
-	}
-	var s1, s2 Score
-	for k := 0; k < 40; k++ {
-		src.frame(x)
-		tr.Step(&s1, x, nil)
-		tr2.Step(&s2, x, nil)
-		if s1.T2 != s2.T2 || s1.SPE != s2.SPE || s1.Phi != s2.Phi || s1.SPELimit != s2.SPELimit {
-			t.Fatalf("frame %d after restore: %v/%v vs %v/%v", k, s1.T2, s1.SPE, s2.T2, s2.SPE)
-		}
-	}
+	stepBoth(t, tr, restoreTracker(t, p2, cfg, ck), src, p2, 40, "score after restore")
 }
 
 // Phase I T² limit, selectable: a baseline fitted on m = 24 frames with 3

@@ -258,21 +258,25 @@ func TestT2Values(t *testing.T) {
 	approx(t, "T6 x1", 10*t2(s5, []float64{1, 0}), 20.917339, 0, 1e-7)
 	approx(t, "T6 x2", 10*t2(s5, []float64{0, 1}), 30.997984, 0, 1e-7)
 	approx(t, "T6 x1 closed form", 10*t2(s5, []float64{1, 0}), 10*0.83/(1.23*0.83-0.79*0.79), 0, 1e-12)
-	s7 := mat.NewSymDense(4, nil)
-	for i := 0; i < 4; i++ {
-		for j := i; j < 4; j++ {
-			v := 0.7
-			if i == j {
-				v = 1
-			}
-			s7.SetSym(i, j, v)
-		}
-	}
+	s7 := equicorrelated(4, 0.7)
 	approx(t, "T7", t2(s7, []float64{3.5, 3.5, 3.5, 3.5}), 15.806452, 0, 1e-7)
 	approx(t, "T7 = 49/3.1", t2(s7, []float64{3.5, 3.5, 3.5, 3.5}), 49/3.1, 0, 1e-12)
 	approx(t, "T8", t2(s7, []float64{2.5, 2, -1, 0}), 28.279570, 0, 1e-7)
 	chi4, _ := T2ChiSquare(0.01, 4)
 	approx(t, "T7 χ²_0.99(4)", chi4, 13.2767, 1e-4, 0)
+}
+
+// equicorrelated returns the p × p correlation matrix with every
+// off-diagonal element rho.
+func equicorrelated(p int, rho float64) *mat.SymDense {
+	s := mat.NewSymDense(p, nil)
+	for i := 0; i < p; i++ {
+		s.SetSym(i, i, 1)
+		for j := i + 1; j < p; j++ {
+			s.SetSym(i, j, rho)
+		}
+	}
+	return s
 }
 
 // S1–S8, S10, S12, S15, S17: SPE limits; θ, h₀, Box and Jackson–Mudholkar.
@@ -383,16 +387,7 @@ func TestSPELimits(t *testing.T) {
 // S11, S16: θ from traces tr(Sⁱ) − Σ_{j≤l} λⱼⁱ equals θ from the residual
 // eigenvalues (gonum EigenSym as the reference) [derived].
 func TestThetaTraceIdentity(t *testing.T) {
-	rho := mat.NewSymDense(4, nil)
-	for i := 0; i < 4; i++ {
-		for j := i; j < 4; j++ {
-			v := 0.7
-			if i == j {
-				v = 1
-			}
-			rho.SetSym(i, j, v)
-		}
-	}
+	rho := equicorrelated(4, 0.7)
 	rng := rand.New(rand.NewPCG(7, 11))
 	rnd := mat.NewDense(30, 12, nil)
 	for i := 0; i < 30; i++ {
