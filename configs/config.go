@@ -15,6 +15,7 @@ package configs
 
 import (
 	"cmp"
+	"reflect"
 	"time"
 
 	"modewatch/alerts"
@@ -521,44 +522,26 @@ func DefaultAlerts() Alerts {
 
 // Over returns m with every zero field taken from base.
 func (m Model) Over(base Model) Model {
-	m.Sparsity = cmp.Or(m.Sparsity, base.Sparsity)
-	m.Robust = cmp.Or(m.Robust, base.Robust)
-	m.ScoreLag = cmp.Or(m.ScoreLag, base.ScoreLag)
-	m.Modes = cmp.Or(m.Modes, base.Modes)
-	m.MaxModes = cmp.Or(m.MaxModes, base.MaxModes)
-	m.HalfLife = cmp.Or(m.HalfLife, base.HalfLife)
-	m.Alpha = cmp.Or(m.Alpha, base.Alpha)
-	m.Adapt = cmp.Or(m.Adapt, base.Adapt)
-	if m.Limits.Method == "" {
-		m.Limits = base.Limits
-	}
-	m.RefreshEvery = cmp.Or(m.RefreshEvery, base.RefreshEvery)
-	m.WarmUp = cmp.Or(m.WarmUp, base.WarmUp)
-	m.File = cmp.Or(m.File, base.File)
-	m.MaxChannels = cmp.Or(m.MaxChannels, base.MaxChannels)
-	m.Statistics = cmp.Or(m.Statistics, base.Statistics)
-	m.Smoothing = cmp.Or(m.Smoothing, base.Smoothing)
-	m.Lags = cmp.Or(m.Lags, base.Lags)
+	overZero(&m, base)
 	return m
 }
 
 // Over returns a with every zero field taken from base.
 func (a Alerts) Over(base Alerts) Alerts {
-	a.Budget = cmp.Or(a.Budget, base.Budget)
-	a.OnDelay = cmp.Or(a.OnDelay, base.OnDelay)
-	a.OffDelay = cmp.Or(a.OffDelay, base.OffDelay)
-	a.Deadband = cmp.Or(a.Deadband, base.Deadband)
-	if len(a.Severity) == 0 {
-		a.Severity = base.Severity
-	}
-	a.Flood = cmp.Or(a.Flood, base.Flood)
-	a.Chatter = cmp.Or(a.Chatter, base.Chatter)
-	a.FreezeOnAlert = cmp.Or(a.FreezeOnAlert, base.FreezeOnAlert)
-	a.LearnAroundAlert = cmp.Or(a.LearnAroundAlert, base.LearnAroundAlert)
-	a.IncidentsPerLocation = cmp.Or(a.IncidentsPerLocation, base.IncidentsPerLocation)
-	a.AcceptAfter = cmp.Or(a.AcceptAfter, base.AcceptAfter)
-	a.LocationQuiet = cmp.Or(a.LocationQuiet, base.LocationQuiet)
+	overZero(&a, base)
 	return a
+}
+
+// overZero sets every field of the struct *v that holds its zero value
+// (an empty list counts as zero) to base's value of that field. A setting
+// added to Model or Alerts is inherited with no line of its own here.
+func overZero[T any](v *T, base T) {
+	dst, src := reflect.ValueOf(v).Elem(), reflect.ValueOf(base)
+	for i := range dst.NumField() {
+		if f := dst.Field(i); f.IsZero() || (f.Kind() == reflect.Slice && f.Len() == 0) {
+			f.Set(src.Field(i))
+		}
+	}
 }
 
 // UnitModel returns the effective model settings of unit i: its overrides

@@ -2,7 +2,6 @@ package modes
 
 import (
 	"fmt"
-	"math"
 	"math/rand/v2"
 	"testing"
 
@@ -22,17 +21,7 @@ func benchMatrices(p int) (a1, a2 *mat.SymDense) {
 	theta := []float64{10, 8, 6, 5, 4}
 	m := newSpiked(rng, p, 10, theta, 0) // supports and loadings only
 	n := 2 * p
-	draw := func(x []float64) {
-		for i := range x {
-			x[i] = rng.NormFloat64()
-		}
-		for f, v := range m.loadings {
-			z := math.Sqrt(theta[f]) * rng.NormFloat64()
-			for _, i := range m.supports[f] {
-				x[i] += z * v[i]
-			}
-		}
-	}
+	draw := func(x []float64) { m.draw(rng, theta, x) }
 	data := mat.NewDense(p, n, nil)
 	x := make([]float64, p)
 	for s := 0; s < n; s++ {
@@ -51,6 +40,22 @@ func benchMatrices(p int) (a1, a2 *mat.SymDense) {
 
 var benchSizes = []int{100, 500, 1000}
 
+// timeRefreshes times b.N refreshes of tr, refresh i on the matrix next(i)
+// returns, and reports the solver iterations per refresh.
+func timeRefreshes(b *testing.B, tr *Tracker, next func(i int) *mat.SymDense) {
+	iters := 0
+	b.ReportAllocs()
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		if err := tr.Refresh(next(i)); err != nil {
+			b.Fatal(err)
+		}
+		iters += tr.Iterations()
+	}
+	b.ReportMetric(float64(iters)/float64(b.N), "iters/op")
+	benchSink += tr.Mode(0).Variance
+}
+
 // BenchmarkRefresh: r = 5 modes with k = 10 (l0:10, projection deflation).
 // warm: refresh after a small covariance change, warm-started, no cold
 // retry; cold: every mode from the cold start; eigensym: gonum's full
@@ -67,39 +72,22 @@ func BenchmarkRefresh(b *testing.B) {
 			if err := tr.Refresh(a1); err != nil {
 				b.Fatal(err)
 			}
-			iters := 0
-			b.ReportAllocs()
-			b.ResetTimer()
-			for i := 0; i < b.N; i++ {
-				a := a2
+			timeRefreshes(b, tr, func(i int) *mat.SymDense {
 				if i%2 == 1 {
-					a = a1
+					return a1
 				}
-				if err := tr.Refresh(a); err != nil {
-					b.Fatal(err)
-				}
-				iters += tr.Iterations()
-			}
-			b.ReportMetric(float64(iters)/float64(b.N), "iters/op")
-			benchSink += tr.Mode(0).Variance
+				return a2
+			})
 		})
 		b.Run(fmt.Sprintf("p=%d/cold", p), func(b *testing.B) {
 			tr, err := NewTracker(p, cfg)
 			if err != nil {
 				b.Fatal(err)
 			}
-			iters := 0
-			b.ReportAllocs()
-			b.ResetTimer()
-			for i := 0; i < b.N; i++ {
+			timeRefreshes(b, tr, func(int) *mat.SymDense {
 				tr.ColdNext()
-				if err := tr.Refresh(a1); err != nil {
-					b.Fatal(err)
-				}
-				iters += tr.Iterations()
-			}
-			b.ReportMetric(float64(iters)/float64(b.N), "iters/op")
-			benchSink += tr.Mode(0).Variance
+				return a1
+			})
 		})
 		b.Run(fmt.Sprintf("p=%d/eigensym", p), func(b *testing.B) {
 			var es mat.EigenSym

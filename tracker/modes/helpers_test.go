@@ -183,18 +183,24 @@ func newSpiked(rng *rand.Rand, p, k int, theta []float64, n int) spiked {
 	x := make([]float64, p)
 	xs := mat.NewVecDense(p, x)
 	for s := 0; s < n; s++ {
-		for i := range x {
-			x[i] = rng.NormFloat64()
-		}
-		for f, v := range m.loadings {
-			z := math.Sqrt(theta[f]) * rng.NormFloat64()
-			for _, i := range m.supports[f] {
-				x[i] += z * v[i]
-			}
-		}
+		m.draw(rng, theta, x)
 		m.a.SymRankOne(m.a, 1/float64(n), xs)
 	}
 	return m
+}
+
+// draw fills x with one draw of the model: unit noise plus each factor f,
+// of variance theta[f], along its loadings.
+func (m *spiked) draw(rng *rand.Rand, theta, x []float64) {
+	for i := range x {
+		x[i] = rng.NormFloat64()
+	}
+	for f, v := range m.loadings {
+		z := math.Sqrt(theta[f]) * rng.NormFloat64()
+		for _, i := range m.supports[f] {
+			x[i] += z * v[i]
+		}
+	}
 }
 
 // spikedCov returns the covariance of a spiked model with r factors of

@@ -279,30 +279,52 @@ func scoreRun(views []pipeline.UnitView, from, to time.Time, grace time.Duration
 	return evaluate.Run{From: from, To: to, Grace: grace, Units: units, UnitOf: func(ch string) string { return unitOf[ch] }}
 }
 
+// bufferedFile is a file written through a buffer of its own.
+type bufferedFile struct {
+	*bufio.Writer
+	f *os.File
+}
+
+// createBuffered creates (or truncates) the file at path, written through
+// a buffer of size bytes.
+func createBuffered(path string, size int) (*bufferedFile, error) {
+	f, err := os.Create(path)
+	if err != nil {
+		return nil, err
+	}
+	return &bufferedFile{Writer: bufio.NewWriterSize(f, size), f: f}, nil
+}
+
+// Close writes out the buffer and closes the file; it returns the first
+// error of the two.
+func (b *bufferedFile) Close() error {
+	err := b.Flush()
+	if cerr := b.f.Close(); err == nil {
+		err = cerr
+	}
+	return err
+}
+
 // runEngine runs the pipeline over the inputs with the shared outputs.
 func runEngine(ctx context.Context, env IO, cfg *configs.Config, inputs []string, baseline *pipeline.ModelFile, fit, fitHalfLife bool, out runOutputs) (*pipeline.ReplayResult, *recorder, error) {
 	log := newLogger(env.Err, cfg, out.quiet)
 	rec := &recorder{last: map[string]*alerts.Record{}}
 	if out.alerts != "" {
-		f, err := os.Create(out.alerts)
+		bw, err := createBuffered(out.alerts, 64<<10)
 		if err != nil {
 			return nil, nil, err
 		}
-		defer f.Close()
-		bw := bufio.NewWriterSize(f, 64<<10)
-		defer bw.Flush()
+		defer bw.Close()
 		rec.lines = sink.NewLines(bw)
 	}
 	var onScore func(u *pipeline.Unit, t time.Time)
 	var scoreErr error
 	if out.scores != "" {
-		f, err := os.Create(out.scores)
+		bw, err := createBuffered(out.scores, 256<<10)
 		if err != nil {
 			return nil, nil, err
 		}
-		defer f.Close()
-		bw := bufio.NewWriterSize(f, 256<<10)
-		defer bw.Flush()
+		defer bw.Close()
 		var enc pipeline.ScoreEncoder
 		onScore = func(u *pipeline.Unit, t time.Time) {
 			enc.Reset()
