@@ -4,7 +4,6 @@ import (
 	"errors"
 	"os"
 	"path/filepath"
-	"reflect"
 	"strings"
 	"testing"
 	"time"
@@ -418,61 +417,5 @@ units:
 	_, err = Parse("n.yaml", []byte("alerts: {location_quiet: -5m}\n"))
 	if err == nil || !strings.Contains(err.Error(), "n.yaml:1:26: alerts.location_quiet") {
 		t.Errorf("negative location_quiet: got %v", err)
-	}
-}
-
-// fillNonZero sets every field reachable from v (settable) to a value
-// other than its zero value.
-func fillNonZero(v reflect.Value) {
-	switch v.Kind() {
-	case reflect.String:
-		v.SetString("set")
-	case reflect.Int, reflect.Int64:
-		v.SetInt(7)
-	case reflect.Float64:
-		v.SetFloat(0.25)
-	case reflect.Bool:
-		v.SetBool(true)
-	case reflect.Pointer:
-		v.Set(reflect.New(v.Type().Elem()))
-		fillNonZero(v.Elem())
-	case reflect.Struct:
-		for i := range v.NumField() {
-			fillNonZero(v.Field(i))
-		}
-	case reflect.Slice:
-		v.Set(reflect.MakeSlice(v.Type(), 1, 1))
-		fillNonZero(v.Index(0))
-	default:
-		panic("fillNonZero: no value for kind " + v.Kind().String())
-	}
-}
-
-// TestOverEveryField: a unit's model and alarm settings with no field set
-// take every field from the settings below them, an empty severity list
-// included; a field that is set is kept.
-func TestOverEveryField(t *testing.T) {
-	var fullM Model
-	fillNonZero(reflect.ValueOf(&fullM).Elem())
-	if got := (Model{}).Over(fullM); !reflect.DeepEqual(got, fullM) {
-		t.Errorf("empty model over a full one = %+v, want %+v", got, fullM)
-	}
-	if got := fullM.Over(DefaultModel()); !reflect.DeepEqual(got, fullM) {
-		t.Errorf("full model over the defaults = %+v, want it unchanged", got)
-	}
-	var fullA Alerts
-	fillNonZero(reflect.ValueOf(&fullA).Elem())
-	if got := (Alerts{Severity: []SeverityBand{}}).Over(fullA); !reflect.DeepEqual(got, fullA) {
-		t.Errorf("empty alarm settings over full ones = %+v, want %+v", got, fullA)
-	}
-	if got := fullA.Over(DefaultAlerts()); !reflect.DeepEqual(got, fullA) {
-		t.Errorf("full alarm settings over the defaults = %+v, want them unchanged", got)
-	}
-	// One field set, the rest inherited.
-	got := Model{WarmUp: 42}.Over(fullM)
-	want := fullM
-	want.WarmUp = 42
-	if !reflect.DeepEqual(got, want) {
-		t.Errorf("model with warmup 42 over a full one = %+v, want %+v", got, want)
 	}
 }

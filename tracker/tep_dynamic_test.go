@@ -30,20 +30,29 @@ func augmentRows(t testing.TB, rows [][]float64, lags, from int) [][]float64 {
 
 // overLimits scores rows with tr (no learning) and counts the frames over
 // the T², SPE and φ limits.
-func overLimits(t testing.TB, tr *Tracker, rows [][]float64) (n [3]int) {
+func overLimits(t testing.TB, tr *Tracker, rows [][]float64) [3]int {
 	t.Helper()
 	var sc Score
+	var n exceed
 	for _, x := range rows {
 		if err := tr.Evaluate(&sc, x, nil); err != nil {
 			t.Fatal(err)
 		}
-		for j, over := range [3]bool{sc.T2 > sc.T2Limit, sc.SPE > sc.SPELimit, sc.Phi > sc.PhiLimit} {
-			if over {
-				n[j]++
-			}
-		}
+		n.add(&sc)
 	}
 	return n
+}
+
+// exceed counts frames over the T², SPE and φ limits, in that order.
+type exceed [3]int
+
+// add counts the statistics of sc that are over their limits.
+func (e *exceed) add(sc *Score) {
+	for j, over := range [3]bool{sc.T2 > sc.T2Limit, sc.SPE > sc.SPELimit, sc.Phi > sc.PhiLimit} {
+		if over {
+			e[j]++
+		}
+	}
 }
 
 type tepDynResult struct {

@@ -183,20 +183,12 @@ func TestFalseAlarmRate(t *testing.T) {
 			}
 			var sc Score
 			x := make([]float64, p)
-			var over [3]int
+			var over exceed
 			for k := 0; k < n; k++ {
 				if err := tr.Evaluate(&sc, src.frame(x), nil); err != nil {
 					t.Fatal(err)
 				}
-				if sc.T2 > sc.T2Limit {
-					over[0]++
-				}
-				if sc.SPE > sc.SPELimit {
-					over[1]++
-				}
-				if sc.Phi > sc.PhiLimit {
-					over[2]++
-				}
+				over.add(&sc)
 			}
 			rates := [3]float64{float64(over[0]) / n, float64(over[1]) / n, float64(over[2]) / n}
 			roots := residualRoots(tr, c.corr)
@@ -783,7 +775,7 @@ func TestAdaptiveFollowsDrift(t *testing.T) {
 	first := make([][]float64, warm)
 	x := make([]float64, p)
 	var sa, sf Score
-	var overA, overF [2]int
+	var overA, overF exceed // T², SPE (and φ, not compared)
 	scored := 0
 	// After the drift, a fault the adaptive model must still see: channel 3
 	// leaves the relation by 6 noise standard deviations for faultN frames.
@@ -820,18 +812,8 @@ func TestAdaptiveFollowsDrift(t *testing.T) {
 		}
 		fixed.Evaluate(&sf, x, nil)
 		scored++
-		if sa.T2 > sa.T2Limit {
-			overA[0]++
-		}
-		if sa.SPE > sa.SPELimit {
-			overA[1]++
-		}
-		if sf.T2 > sf.T2Limit {
-			overF[0]++
-		}
-		if sf.SPE > sf.SPELimit {
-			overF[1]++
-		}
+		overA.add(&sa)
+		overF.add(&sf)
 	}
 	ra := [2]float64{float64(overA[0]) / float64(scored), float64(overA[1]) / float64(scored)}
 	rf := [2]float64{float64(overF[0]) / float64(scored), float64(overF[1]) / float64(scored)}

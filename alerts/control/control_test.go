@@ -8,22 +8,14 @@ import (
 	"testing"
 	"time"
 
-	"github.com/nats-io/nats.go"
-
 	"modewatch/alerts"
 	"modewatch/stream/natsource/natstest"
 )
 
-// startServer runs a real NATS server in the test process and connects to it.
-func startServer(t *testing.T) *nats.Conn {
-	t.Helper()
-	return natstest.Connect(t, natstest.Start(t))
-}
-
 // TestResponder sends commands as NATS requests to a real embedded server
 // and checks the replies and their effect on the engine's records.
 func TestResponder(t *testing.T) {
-	nc := startServer(t)
+	nc := natstest.Connect(t, natstest.Start(t)) // a real server in the test process
 	var mu sync.Mutex
 	var recs []*alerts.Record
 	e, err := alerts.NewEngine(alerts.Config{Rules: alerts.Rules{OnCount: 1, OnWindow: 1}},
