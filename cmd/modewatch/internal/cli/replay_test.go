@@ -188,36 +188,17 @@ func TestFitReplayModel(t *testing.T) {
 		}
 	}
 	// Scores: one line per unit and scored frame, every one decodable.
-	f, err := os.Open(scores)
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer f.Close()
-	dec := lineprotocol.NewDecoder(bufio.NewReader(f))
-	nLines := 0
+	lines := readScores(t, scores)
 	units := map[string]int{}
-	for dec.Next() {
-		m, err := dec.Measurement()
-		if err != nil || string(m) != "modewatch_scores" {
-			t.Fatalf("measurement %q, %v", m, err)
-		}
-		k, v, err := dec.NextTag()
-		if err != nil || string(k) != "unit" {
-			t.Fatalf("tag %q=%q, %v", k, v, err)
-		}
-		units[string(v)]++
-		fields := lineFields(t, dec)
+	for _, l := range lines {
+		units[l.unit]++
 		for _, want := range []string{"t2", "t2_limit", "spe", "spe_limit", "phi", "phi_limit", "missing"} {
-			if _, ok := fields[want]; !ok {
-				t.Fatalf("score line without %s: %v", want, fields)
+			if _, ok := l.fields[want]; !ok {
+				t.Fatalf("score line without %s: %v", want, l.fields)
 			}
 		}
-		if _, err := dec.Time(lineprotocol.Nanosecond, time.Time{}); err != nil {
-			t.Fatal(err)
-		}
-		nLines++
 	}
-	if nLines == 0 {
+	if len(lines) == 0 {
 		t.Fatal("no score lines")
 	}
 	for _, u := range s.Units {
@@ -373,5 +354,64 @@ func TestReplayUsage(t *testing.T) {
 	}
 	if code, _, errs := runCLI(t, "", "fit", "x.lp"); code != ExitUsage || !strings.Contains(errs, "--out") {
 		t.Errorf("exit %d %q", code, errs)
+	}
+}
+
+// scoreLine is one line of a --scores file.
+type scoreLine struct {
+	unit   string
+	fields map[string]lineprotocol.Value
+	time   time.Time
+}
+
+// readScores decodes every line of the --scores file at path; a line that
+// is not a modewatch_scores line led by its unit tag ends the test.
+func readScores(t testing.TB, path string) []scoreLine {
+	t.Helper()
+	f, err := os.Open(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer f.Close()
+	var lines []scoreLine
+	dec := lineprotocol.NewDecoder(bufio.NewReader(f))
+	for dec.Next() {
+		m, err := dec.Measurement()
+		if err != nil || string(m) != "modewatch_scores" {
+			t.Fatalf("measurement %q, %v", m, err)
+		}
+		k, v, err := dec.NextTag()
+		if err != nil || string(k) != "unit" {
+			t.Fatalf("tag %q=%q, %v", k, v, err)
+		}
+		l := scoreLine{unit: string(v)}
+		for k, _, err := dec.NextTag(); k != nil || err != nil; k, _, err = dec.NextTag() {
+			if err != nil {
+				t.Fatal(err)
+			}
+		}
+		l.fields = lineFields(t, dec)
+		if l.time, err = dec.Time(lineprotocol.Nanosecond, time.Time{}); err != nil {
+			t.Fatal(err)
+		}
+		lines = append(lines, l)
+	}
+	return lines
+}
+
+// lineFields reads the remaining fields of the decoder's current line
+// (after its measurement and tags) by name.
+func lineFields(t testing.TB, dec *lineprotocol.Decoder) map[string]lineprotocol.Value {
+	t.Helper()
+	fields := map[string]lineprotocol.Value{}
+	for {
+		k, v, err := dec.NextField()
+		if err != nil {
+			t.Fatal(err)
+		}
+		if k == nil {
+			return fields
+		}
+		fields[string(k)] = v
 	}
 }

@@ -69,39 +69,18 @@ func writeTEPLog(t *testing.T, path string, rows [][]float64) {
 // whether T² and SPE exceeded their limits.
 func tepScores(t *testing.T, path string, n int) (t2, spe []bool) {
 	t.Helper()
-	b, err := os.ReadFile(path)
-	if err != nil {
-		t.Fatal(err)
-	}
 	t2, spe = make([]bool, n), make([]bool, n)
 	seen := make([]bool, n)
-	dec := lineprotocol.NewDecoderWithBytes(b)
-	for dec.Next() {
-		if _, err := dec.Measurement(); err != nil {
-			t.Fatal(err)
-		}
-		for {
-			k, _, err := dec.NextTag()
-			if err != nil {
-				t.Fatal(err)
-			}
-			if k == nil {
-				break
-			}
-		}
+	for _, l := range readScores(t, path) {
 		f := map[string]float64{}
-		for k, v := range lineFields(t, dec) {
+		for k, v := range l.fields {
 			if v.Kind() == lineprotocol.Float {
 				f[k] = v.FloatV()
 			}
 		}
-		ts, err := dec.Time(lineprotocol.Nanosecond, time.Time{})
-		if err != nil {
-			t.Fatal(err)
-		}
-		k := int(ts.Sub(tepStart) / (180 * time.Second))
+		k := int(l.time.Sub(tepStart) / (180 * time.Second))
 		if k < 0 || k >= n {
-			t.Fatalf("score at %v outside the %d samples", ts, n)
+			t.Fatalf("score at %v outside the %d samples", l.time, n)
 		}
 		for _, key := range []string{"t2", "t2_limit", "spe", "spe_limit"} {
 			if _, ok := f[key]; !ok {
@@ -208,21 +187,4 @@ func TestTennesseeEastmanCommands(t *testing.T) {
 		}
 	}
 	t.Log("\n" + b.String())
-}
-
-// lineFields reads the remaining fields of the decoder's current line
-// (after its measurement and tags) by name.
-func lineFields(t testing.TB, dec *lineprotocol.Decoder) map[string]lineprotocol.Value {
-	t.Helper()
-	fields := map[string]lineprotocol.Value{}
-	for {
-		k, v, err := dec.NextField()
-		if err != nil {
-			t.Fatal(err)
-		}
-		if k == nil {
-			return fields
-		}
-		fields[string(k)] = v
-	}
 }
