@@ -19,6 +19,7 @@ import (
 
 	"modewatch/alerts"
 	"modewatch/cmd/modewatch/internal/pipeline"
+	"modewatch/cmd/modewatch/internal/testkit"
 	"modewatch/sim"
 	"modewatch/stream/natsource/natstest"
 )
@@ -378,18 +379,11 @@ func startModewatch(t *testing.T, name string, args ...string) *exec.Cmd {
 // of the demo plant (invented data) and returns the model file's path.
 func fitDemoDay1(t *testing.T, dir string) string {
 	t.Helper()
-	sc, _ := sim.Demo()
 	modelPath := filepath.Join(dir, "model.json")
 	day1 := filepath.Join(dir, "day1.lp")
-	d1 := sc.Clone()
-	d1.Duration = 24 * time.Hour
-	f, _ := os.Create(day1)
-	bw := bufio.NewWriter(f)
-	if err := d1.WriteLineProtocol(bw); err != nil {
+	if err := os.WriteFile(day1, testkit.DemoLog(t, 24*time.Hour), 0o644); err != nil {
 		t.Fatal(err)
 	}
-	bw.Flush()
-	f.Close()
 	if code, _, errs := runCLI(t, "", "fit", "--quiet", "--out", modelPath, day1); code != ExitOK {
 		t.Fatalf("fit: %s", errs)
 	}
