@@ -33,7 +33,7 @@ var ErrCheckpoint = errors.New("tracker: bad checkpoint")
 //	       the variance statistic's EWMA, normal level and frames behind it
 //	       (restored into a tracker with the statistic off: ignored; into
 //	       one with it on from a checkpoint without: started again)
-//	modes: u32 n | n bytes of modes.Tracker.MarshalBinary
+//	modes: u32 n | n bytes of modes.Set.MarshalBinary
 //	u32 CRC-32 (IEEE) of everything before
 //
 // Versions 1 (no p0, no per-channel steps), 2 (no lag section) and 3 (no

@@ -43,7 +43,7 @@ const DefaultRelationSize = 3
 // O(p³/2), plus the mode solves; per frame O(m·K).
 type relStat struct {
 	p, m   int
-	ms     *modes.Tracker
+	ms     *modes.Set
 	b      *mat.SymDense
 	u, inv []float64
 	panel  []float64
@@ -58,7 +58,7 @@ func newRelStat(p int, cfg *Config) (*relStat, error) {
 		return nil, nil
 	}
 	k := min(cfg.RelationSize, p)
-	ms, err := modes.NewTracker(p, modes.Config{Count: min(cfg.Relations, p),
+	ms, err := modes.NewSet(p, modes.Config{Count: min(cfg.Relations, p),
 		Sparsity: []modes.Sparsity{{Method: modes.L0, K: k}}})
 	if err != nil {
 		return nil, fmt.Errorf("%w: relation modes: %w", ErrConfig, err)

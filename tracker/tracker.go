@@ -338,7 +338,7 @@ type Tracker struct {
 	ucfg Config // as given to New (defaults are recomputed by Grow)
 
 	ew   *EW
-	ms   *modes.Tracker
+	ms   *modes.Set
 	mdl  *model
 	w    *work
 	lw   *learnWork // scratch of the learning pass (learn.go)
@@ -454,7 +454,7 @@ func New(p int, cfg Config) (*Tracker, error) {
 	if err := cfg.defaults(p); err != nil {
 		return nil, err
 	}
-	ms, err := modes.NewTracker(p, cfg.Modes)
+	ms, err := modes.NewSet(p, cfg.Modes)
 	if err != nil {
 		return nil, fmt.Errorf("%w: %w", ErrConfig, err)
 	}
@@ -500,8 +500,8 @@ func (t *Tracker) Config() Config { return t.cfg }
 // Stats returns the EW statistics (read-only use).
 func (t *Tracker) Stats() *EW { return t.ew }
 
-// Modes returns the mode tracker (read-only use).
-func (t *Tracker) Modes() *modes.Tracker { return t.ms }
+// Modes returns the unit's mode set (read-only use).
+func (t *Tracker) Modes() *modes.Set { return t.ms }
 
 // State returns the learning state.
 func (t *Tracker) State() State {
@@ -816,7 +816,7 @@ func (t *Tracker) Refresh() error {
 	return nil
 }
 
-// install builds the model from m.a and the mode tracker's loadings.
+// install builds the model from m.a and the mode set's loadings.
 func (t *Tracker) install(nEff float64) {
 	m := t.mdl
 	m.nEff = nEff
@@ -991,7 +991,7 @@ func (t *Tracker) warming(i int) bool {
 // no effect on T², SPE, φ or the limits).
 //
 // If a model exists it is rebuilt at once from the same correlation A
-// (zero rows for the new channels) with a p2-wide mode tracker, started
+// (zero rows for the new channels) with a p2-wide mode set, started
 // cold: for dense modes scores and limits are unchanged to the mode
 // solver's tolerance (3·10⁻⁷ relative in TestGrow); sparse modes may
 // converge differently, and the mode IDs restart. Nothing is learned by
@@ -1016,7 +1016,7 @@ func (t *Tracker) Grow(p2 int, cfg Config) error {
 		return nil
 	}
 	keepCal := t.cal && cfg.Alpha == t.cfg.Alpha
-	ms, err := modes.NewTracker(p2, cfg.Modes)
+	ms, err := modes.NewSet(p2, cfg.Modes)
 	if err != nil {
 		return fmt.Errorf("%w: %w", ErrConfig, err)
 	}

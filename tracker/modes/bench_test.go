@@ -42,7 +42,7 @@ var benchSizes = []int{100, 500, 1000}
 
 // timeRefreshes times b.N refreshes of tr, refresh i on the matrix next(i)
 // returns, and reports the solver iterations per refresh.
-func timeRefreshes(b *testing.B, tr *Tracker, next func(i int) *mat.SymDense) {
+func timeRefreshes(b *testing.B, tr *Set, next func(i int) *mat.SymDense) {
 	iters := 0
 	b.ReportAllocs()
 	b.ResetTimer()
@@ -65,7 +65,7 @@ func BenchmarkRefresh(b *testing.B) {
 		a1, a2 := benchMatrices(p)
 		cfg := Config{Sparsity: []Sparsity{{Method: L0, K: 10}}, Count: 5, ColdEvery: -1}
 		b.Run(fmt.Sprintf("p=%d/warm", p), func(b *testing.B) {
-			tr, err := NewTracker(p, cfg)
+			tr, err := NewSet(p, cfg)
 			if err != nil {
 				b.Fatal(err)
 			}
@@ -80,7 +80,7 @@ func BenchmarkRefresh(b *testing.B) {
 			})
 		})
 		b.Run(fmt.Sprintf("p=%d/cold", p), func(b *testing.B) {
-			tr, err := NewTracker(p, cfg)
+			tr, err := NewSet(p, cfg)
 			if err != nil {
 				b.Fatal(err)
 			}

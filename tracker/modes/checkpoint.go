@@ -24,8 +24,8 @@ const (
 
 // MarshalBinary encodes the current modes (loadings, identities, variances
 // and the counters needed to continue) for a checkpoint. The configuration
-// is not included: restore into a Tracker built with the same p.
-func (t *Tracker) MarshalBinary() ([]byte, error) {
+// is not included: restore into a Set built with the same p.
+func (t *Set) MarshalBinary() ([]byte, error) {
 	s := t.cur
 	r := s.r
 	m := t.cfg.MaxCount
@@ -74,9 +74,9 @@ func (t *Tracker) MarshalBinary() ([]byte, error) {
 // UnmarshalBinary restores modes written by MarshalBinary. The data is
 // checked completely (checksum, version, dimension, indices, finite unit
 // loadings, identities) before anything changes; on an error, wrapping
-// ErrCheckpoint and naming the offending field, the Tracker is unchanged.
+// ErrCheckpoint and naming the offending field, the Set is unchanged.
 // The next Refresh warm-starts from the restored modes.
-func (t *Tracker) UnmarshalBinary(data []byte) error {
+func (t *Set) UnmarshalBinary(data []byte) error {
 	bad := func(format string, a ...any) error {
 		return fmt.Errorf("%w: %s", ErrCheckpoint, fmt.Sprintf(format, a...))
 	}
@@ -104,13 +104,13 @@ func (t *Tracker) UnmarshalBinary(data []byte) error {
 		return bad("header: %v", d.err)
 	}
 	if p != t.p {
-		return bad("dimension p = %d, tracker has p = %d", p, t.p)
+		return bad("dimension p = %d, mode set has p = %d", p, t.p)
 	}
 	if r > t.slots {
-		return bad("%d modes, tracker holds at most %d", r, t.slots)
+		return bad("%d modes, mode set holds at most %d", r, t.slots)
 	}
 	if Deflation(defl) != t.cfg.Deflation {
-		return bad("written with %s deflation, tracker uses %s", Deflation(defl), t.cfg.Deflation)
+		return bad("written with %s deflation, mode set uses %s", Deflation(defl), t.cfg.Deflation)
 	}
 	if nextID > math.MaxInt32 || refreshes > math.MaxInt32 || !(trace >= 0) || math.IsInf(trace, 0) {
 		return bad("header counters out of range")

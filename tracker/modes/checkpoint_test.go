@@ -9,7 +9,7 @@ import (
 func TestCheckpointRoundTrip(t *testing.T) {
 	a := loadPitprops(t)
 	cfg := Config{Sparsity: []Sparsity{{Method: L0, K: 7}, {Method: L0, K: 4}, {Method: L1PenSqrt, Gamma: 0.3}}, Count: 3, ColdEvery: -1}
-	tr, _ := NewTracker(13, cfg)
+	tr, _ := NewSet(13, cfg)
 	if err := tr.Refresh(a); err != nil {
 		t.Fatal(err)
 	}
@@ -17,7 +17,7 @@ func TestCheckpointRoundTrip(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	rt, _ := NewTracker(13, cfg)
+	rt, _ := NewSet(13, cfg)
 	if err := rt.UnmarshalBinary(b); err != nil {
 		t.Fatal(err)
 	}
@@ -32,7 +32,7 @@ func TestCheckpointRoundTrip(t *testing.T) {
 			t.Errorf("mode %d: restored %+v, want %+v", j, r, m)
 		}
 	}
-	// The restored tracker continues warm: same IDs, few iterations.
+	// The restored set continues warm: same IDs, few iterations.
 	if err := rt.Refresh(a); err != nil {
 		t.Fatal(err)
 	}
@@ -41,8 +41,8 @@ func TestCheckpointRoundTrip(t *testing.T) {
 			t.Errorf("after restore, mode %d: id %d cold %v iterations %d", j, m.ID, m.Cold, m.Iterations)
 		}
 	}
-	// An empty tracker round-trips too.
-	e, _ := NewTracker(13, cfg)
+	// An empty set round-trips too.
+	e, _ := NewSet(13, cfg)
 	eb, _ := e.MarshalBinary()
 	if err := rt.UnmarshalBinary(eb); err != nil || rt.Count() != 0 {
 		t.Errorf("empty checkpoint: %v, %d modes", err, rt.Count())
@@ -52,7 +52,7 @@ func TestCheckpointRoundTrip(t *testing.T) {
 func TestCheckpointCorrupt(t *testing.T) {
 	a := loadPitprops(t)
 	cfg := Config{Sparsity: []Sparsity{{Method: L0, K: 5}}, Count: 2}
-	tr, _ := NewTracker(13, cfg)
+	tr, _ := NewSet(13, cfg)
 	if err := tr.Refresh(a); err != nil {
 		t.Fatal(err)
 	}
@@ -76,7 +76,7 @@ func TestCheckpointCorrupt(t *testing.T) {
 	v2[4] = 2
 	cases["future version"] = v2
 	for name, b := range cases {
-		rt, _ := NewTracker(13, cfg)
+		rt, _ := NewSet(13, cfg)
 		if err := rt.Refresh(a); err != nil {
 			t.Fatal(err)
 		}
@@ -86,19 +86,19 @@ func TestCheckpointCorrupt(t *testing.T) {
 			t.Errorf("%s: error %v, want ErrCheckpoint", name, err)
 		}
 		if rt.Count() != 2 || !slices.Equal(rt.Mode(0).Loadings, before) {
-			t.Errorf("%s: tracker changed by a failed restore", name)
+			t.Errorf("%s: set changed by a failed restore", name)
 		}
 	}
-	// Dimension and deflation must match the tracker.
-	other, _ := NewTracker(12, Config{Count: 2})
+	// Dimension and deflation must match the set.
+	other, _ := NewSet(12, Config{Count: 2})
 	if err := other.UnmarshalBinary(good); !errors.Is(err, ErrCheckpoint) {
 		t.Errorf("p mismatch: %v", err)
 	}
-	schur, _ := NewTracker(13, Config{Count: 2, Deflation: Schur})
+	schur, _ := NewSet(13, Config{Count: 2, Deflation: Schur})
 	if err := schur.UnmarshalBinary(good); !errors.Is(err, ErrCheckpoint) {
 		t.Errorf("deflation mismatch: %v", err)
 	}
-	small, _ := NewTracker(13, Config{Count: 1})
+	small, _ := NewSet(13, Config{Count: 1})
 	if err := small.UnmarshalBinary(good); !errors.Is(err, ErrCheckpoint) {
 		t.Errorf("too many modes: %v", err)
 	}
@@ -107,13 +107,13 @@ func TestCheckpointCorrupt(t *testing.T) {
 // FuzzUnmarshal: arbitrary bytes never panic and never leave NaN loadings.
 func FuzzUnmarshal(f *testing.F) {
 	a := loadPitprops(f)
-	tr, _ := NewTracker(13, Config{Count: 2})
+	tr, _ := NewSet(13, Config{Count: 2})
 	_ = tr.Refresh(a)
 	good, _ := tr.MarshalBinary()
 	f.Add(good)
 	f.Add([]byte("MWMD"))
 	f.Fuzz(func(t *testing.T, b []byte) {
-		rt, _ := NewTracker(13, Config{Count: 2})
+		rt, _ := NewSet(13, Config{Count: 2})
 		if err := rt.UnmarshalBinary(b); err != nil {
 			return
 		}

@@ -84,9 +84,9 @@ func ExampleParseSparsity() {
 // first is the exact 7-sparse optimum, 30.74 % of the trace, REFERENCE.md). A
 // second Refresh with the same matrix converges at once from the warm start
 // and keeps the identities.
-func ExampleTracker() {
+func ExampleSet() {
 	a, names := pitprops()
-	tr, err := modes.NewTracker(13, modes.Config{
+	tr, err := modes.NewSet(13, modes.Config{
 		Sparsity: []modes.Sparsity{{Method: modes.L0, K: 7}, {Method: modes.L0, K: 4}, {Method: modes.L0, K: 4}},
 		Count:    3,
 	})

@@ -39,8 +39,9 @@
 // is the adjusted variance of Zou, Hastie & Tibshirani (J. Comput. Graph.
 // Stat. 15, 2006): R_jj² with R the upper Cholesky factor of VᵀAV.
 //
-// Solve finds one mode with a caller-owned Workspace; Tracker keeps a set of
-// modes and refreshes them, warm-started, without allocating.
+// [Solve] finds one mode with a caller-owned [Workspace]; a [Set] holds
+// several modes of a changing matrix and refreshes them, warm-started,
+// without allocating.
 package modes
 
 import (

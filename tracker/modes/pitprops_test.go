@@ -82,7 +82,7 @@ func TestPitpropsSixModes(t *testing.T) {
 	}
 	for _, d := range []Deflation{Projection, Schur} {
 		t.Run(d.String(), func(t *testing.T) {
-			tr, err := NewTracker(13, Config{Sparsity: sp, Count: 6, Deflation: d, Tol: 1e-10})
+			tr, err := NewSet(13, Config{Sparsity: sp, Count: 6, Deflation: d, Tol: 1e-10})
 			if err != nil {
 				t.Fatal(err)
 			}

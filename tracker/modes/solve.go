@@ -428,7 +428,7 @@ func (ws *Workspace) deflatedNorms() bool {
 	if !op.baseColumnNorms(ws.cn) {
 		return false
 	}
-	// Replay the deflations one by one, as the Tracker does on a cold pass.
+	// Replay the deflations one by one, as the Set does on a cold pass.
 	op.t = 0
 	for s := 0; s < t; s++ {
 		x, supp := op.xs[s], op.xsupp[s]

@@ -431,15 +431,15 @@ func TestOutsideAssumptions(t *testing.T) {
 				t.Errorf("%v: %+v", sp, res)
 			}
 		}
-		tr, _ := NewTracker(3, Config{Count: 3})
+		tr, _ := NewSet(3, Config{Count: 3})
 		if err := tr.Refresh(a); err == nil {
 			for j := 0; j < tr.Count(); j++ {
 				if m := tr.Mode(j); math.IsNaN(m.AdjustedVariance) || math.IsNaN(m.Variance) {
-					t.Errorf("tracker mode %d: %+v", j, m)
+					t.Errorf("set mode %d: %+v", j, m)
 				}
 			}
 		} else if !errors.Is(err, ErrNotFinite) {
-			t.Errorf("tracker: %v", err)
+			t.Errorf("set: %v", err)
 		}
 	}
 }
@@ -464,7 +464,7 @@ func TestSolveNoAlloc(t *testing.T) {
 // FuzzSolve: any symmetric 4 × 4 matrix (entries from the fuzzer, including
 // NaN, Inf, negative diagonals and indefinite matrices) and any method give
 // an error or finite loadings — never a panic, never NaN — in Solve and in a
-// Tracker (both deflations, warm and cold refreshes).
+// Set (both deflations, warm and cold refreshes).
 func FuzzSolve(f *testing.F) {
 	f.Add(uint8(1), uint8(2), 1.0, 0.5, 0.2, 1.0, 0.3, 1.0, 0.0, 0.1, 0.0, 1.0, 0.3)
 	f.Add(uint8(3), uint8(1), 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.5)
@@ -478,7 +478,7 @@ func FuzzSolve(f *testing.F) {
 		})
 		sp := Sparsity{Method: Method(m % 8), K: 1 + int(k%4), S: 1 + math.Abs(math.Mod(par, 1)), Gamma: math.Abs(par), Eps: 0.01 + math.Abs(math.Mod(par, 1))}
 		for _, d := range []Deflation{Projection, Schur} {
-			tr, err := NewTracker(4, Config{Sparsity: []Sparsity{sp}, Count: 3, Deflation: d, MaxIter: 200, ColdEvery: 1})
+			tr, err := NewSet(4, Config{Sparsity: []Sparsity{sp}, Count: 3, Deflation: d, MaxIter: 200, ColdEvery: 1})
 			if err != nil {
 				break
 			}

@@ -37,7 +37,7 @@ func TestSpikedRecovery(t *testing.T) {
 			// O(√(λ/n)), λx_i² ≈ 1/n. γ = 0.1 lies between.
 			{"l0pen projection", Sparsity{Method: L0Pen, Gamma: 0.1}, Projection},
 		} {
-			tr, err := NewTracker(p, Config{Sparsity: []Sparsity{c.sp}, Count: 3, Deflation: c.defl})
+			tr, err := NewSet(p, Config{Sparsity: []Sparsity{c.sp}, Count: 3, Deflation: c.defl})
 			if err != nil {
 				t.Fatal(err)
 			}
@@ -88,17 +88,17 @@ func twoGroups(p int, ta, tb float64) *mat.SymDense {
 	return a
 }
 
-// TestTrackerIdentity: IDs follow the groups of sensors. When the second
+// TestSetIdentity: IDs follow the groups of sensors. When the second
 // group becomes the stronger one, a cold retry moves it to the first slot and
 // its ID moves with it; without cold retries the warm start holds the old
 // order (the stale local optimum the cold retry exists for).
-func TestTrackerIdentity(t *testing.T) {
+func TestSetIdentity(t *testing.T) {
 	const p = 12
 	sp := []Sparsity{{Method: L0, K: 4}}
 	before, after := twoGroups(p, 5, 3), twoGroups(p, 3, 5)
 	groupA, groupB := []int{0, 1, 2}, []int{5, 6, 7, 8}
 
-	tr, err := NewTracker(p, Config{Sparsity: sp, Count: 2, ColdEvery: 1, Refit: RefitNever})
+	tr, err := NewSet(p, Config{Sparsity: sp, Count: 2, ColdEvery: 1, Refit: RefitNever})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -135,7 +135,7 @@ func TestTrackerIdentity(t *testing.T) {
 	}
 
 	// Without cold retries the warm start keeps group A in slot 0.
-	tw, _ := NewTracker(p, Config{Sparsity: sp, Count: 2, ColdEvery: -1, Refit: RefitNever})
+	tw, _ := NewSet(p, Config{Sparsity: sp, Count: 2, ColdEvery: -1, Refit: RefitNever})
 	if err := tw.Refresh(before); err != nil {
 		t.Fatal(err)
 	}
@@ -162,13 +162,13 @@ func TestTrackerIdentity(t *testing.T) {
 	}
 }
 
-// TestTrackerSign: the largest-magnitude loading of every mode is positive
+// TestSetSign: the largest-magnitude loading of every mode is positive
 // (common practice for reporting PCA loadings; the rule of the issue).
-func TestTrackerSign(t *testing.T) {
+func TestSetSign(t *testing.T) {
 	rng := rand.New(rand.NewPCG(3, 4))
 	for rep := 0; rep < 20; rep++ {
 		m := newSpiked(rng, 30, 4, []float64{5, 3}, 200)
-		tr, _ := NewTracker(30, Config{Sparsity: []Sparsity{{Method: L1PenSqrt, Gamma: 0.3}}, Count: 2})
+		tr, _ := NewSet(30, Config{Sparsity: []Sparsity{{Method: L1PenSqrt, Gamma: 0.3}}, Count: 2})
 		for it := 0; it < 2; it++ {
 			if err := tr.Refresh(m.a); err != nil {
 				t.Fatal(err)
@@ -189,13 +189,13 @@ func TestTrackerSign(t *testing.T) {
 	}
 }
 
-// TestTrackerAdjustedVariance compares the tracker's adjusted variances
+// TestSetAdjustedVariance compares the set's adjusted variances
 // and score covariance with gonum: VᵀAV by mat products and R_jj² from
 // mat.Cholesky (Zou, Hastie & Tibshirani 2006, adjusted variance = R_jj²).
-func TestTrackerAdjustedVariance(t *testing.T) {
+func TestSetAdjustedVariance(t *testing.T) {
 	a := loadPitprops(t)
 	for _, d := range []Deflation{Projection, Schur} {
-		tr, _ := NewTracker(13, Config{Sparsity: []Sparsity{{Method: L0, K: 7}, {Method: L0, K: 4}, {Method: L0, K: 4}, {Method: L0, K: 1}},
+		tr, _ := NewSet(13, Config{Sparsity: []Sparsity{{Method: L0, K: 7}, {Method: L0, K: 4}, {Method: L0, K: 4}, {Method: L0, K: 1}},
 			Count: 4, Deflation: d})
 		if err := tr.Refresh(a); err != nil {
 			t.Fatal(err)
@@ -235,18 +235,18 @@ func TestTrackerAdjustedVariance(t *testing.T) {
 	}
 }
 
-// TestTrackerAutoCount: with dense modes the adjusted variances are the
+// TestSetAutoCount: with dense modes the adjusted variances are the
 // eigenvalues, so the automatic count follows the cumulative shares of the
 // Pitprops eigenvalues in REFERENCE.md: 32.45, 50.74, 65.19, 73.72, 80.72,
 // 86.998 % (first six 87.00 %).
-func TestTrackerAutoCount(t *testing.T) {
+func TestSetAutoCount(t *testing.T) {
 	a := loadPitprops(t)
 	for _, c := range []struct {
 		share float64
 		want  int
 	}{{0.30, 1}, {0.50, 2}, {0.80, 5}, {0.86, 6}, {0.871, 7}, {1, 12}} {
 		// Kaiser's rule off; share 1 stops one short of p (the residual minimum).
-		tr, err := NewTracker(13, Config{Share: c.share, MaxCount: 13, Tol: 1e-10})
+		tr, err := NewSet(13, Config{Share: c.share, MaxCount: 13, Tol: 1e-10})
 		if err != nil {
 			t.Fatal(err)
 		}
@@ -257,7 +257,7 @@ func TestTrackerAutoCount(t *testing.T) {
 			t.Errorf("share %.3f: %d modes, want %d", c.share, tr.Count(), c.want)
 		}
 	}
-	tr, _ := NewTracker(13, Config{Share: 0.5, MaxCount: 13, Tol: 1e-10})
+	tr, _ := NewSet(13, Config{Share: 0.5, MaxCount: 13, Tol: 1e-10})
 	_ = tr.Refresh(a)
 	// Eigenvalues 4.218633, 2.378101 (REFERENCE.md).
 	for j, want := range []float64{4.218633, 2.378101} {
@@ -267,20 +267,20 @@ func TestTrackerAutoCount(t *testing.T) {
 	}
 }
 
-// TestTrackerKaiser: with MinAdjusted 1 the automatic count keeps
+// TestSetKaiser: with MinAdjusted 1 the automatic count keeps
 // the modes whose eigenvalue exceeds 1, four on Pitprops (eigenvalues
 // 4.218633, 2.378101, 1.878226, 1.109390, 0.910047, … in REFERENCE.md),
 // whatever the share asks; Jolliffe's 0.7 keeps six (0.815413 > 0.7 >
 // 0.576345); with the rule off, share 0.95 needs nine (cumulative 12.326
 // of 13 after eight, 12.678 after nine).
-func TestTrackerKaiser(t *testing.T) {
+func TestSetKaiser(t *testing.T) {
 	a := loadPitprops(t)
 	for _, c := range []struct {
 		rel   float64
 		share float64
 		want  int
 	}{{1, 0.95, 4}, {1, 0.5, 2}, {0.7, 0.95, 6}, {0, 0.95, 9}} {
-		tr, err := NewTracker(13, Config{Share: c.share, MaxCount: 13, Tol: 1e-10, MinAdjusted: c.rel})
+		tr, err := NewSet(13, Config{Share: c.share, MaxCount: 13, Tol: 1e-10, MinAdjusted: c.rel})
 		if err != nil {
 			t.Fatal(err)
 		}
@@ -293,14 +293,14 @@ func TestTrackerKaiser(t *testing.T) {
 	}
 }
 
-// TestTrackerRankExhausted: a rank-one matrix has one mode; asking for
+// TestSetRankExhausted: a rank-one matrix has one mode; asking for
 // three gives one, with no error and no NaN.
-func TestTrackerRankExhausted(t *testing.T) {
+func TestSetRankExhausted(t *testing.T) {
 	u := []float64{1, 2, 0, 2}
 	a := mat.NewSymDense(4, nil)
 	a.SymRankOne(a, 1, mat.NewVecDense(4, u))
 	for _, d := range []Deflation{Projection, Schur} {
-		tr, _ := NewTracker(4, Config{Count: 3, Deflation: d})
+		tr, _ := NewSet(4, Config{Count: 3, Deflation: d})
 		if err := tr.Refresh(a); err != nil {
 			t.Fatal(err)
 		}
@@ -313,11 +313,11 @@ func TestTrackerRankExhausted(t *testing.T) {
 	}
 }
 
-// TestTrackerErrorsKeepState: a bad matrix is an error and leaves the
+// TestSetErrorsKeepState: a bad matrix is an error and leaves the
 // previous modes in place; a later good matrix works.
-func TestTrackerErrorsKeepState(t *testing.T) {
+func TestSetErrorsKeepState(t *testing.T) {
 	a := loadPitprops(t)
-	tr, _ := NewTracker(13, Config{Sparsity: []Sparsity{{Method: L0, K: 5}}, Count: 2})
+	tr, _ := NewSet(13, Config{Sparsity: []Sparsity{{Method: L0, K: 5}}, Count: 2})
 	if err := tr.Refresh(a); err != nil {
 		t.Fatal(err)
 	}
@@ -347,29 +347,29 @@ func TestTrackerErrorsKeepState(t *testing.T) {
 		}
 	}
 	// A NaN in a column no warm solve touches is found by the cold pass.
-	tc, _ := NewTracker(13, Config{Sparsity: []Sparsity{{Method: L0, K: 5}}, Count: 1})
+	tc, _ := NewSet(13, Config{Sparsity: []Sparsity{{Method: L0, K: 5}}, Count: 1})
 	if err := tc.Refresh(bad(10, 11, math.NaN())); !errors.Is(err, ErrNotFinite) {
 		t.Errorf("cold refresh with NaN at (10,11): %v", err)
 	}
 	// l0pen with γ ≥ max A_ii.
-	tp, _ := NewTracker(13, Config{Sparsity: []Sparsity{{Method: L0Pen, Gamma: 1.5}}, Count: 1})
+	tp, _ := NewSet(13, Config{Sparsity: []Sparsity{{Method: L0Pen, Gamma: 1.5}}, Count: 1})
 	if err := tp.Refresh(a); !errors.Is(err, ErrPenaltyTooHigh) {
 		t.Errorf("l0pen:1.5 on a correlation matrix: %v", err)
 	}
 	// The squared ℓ1 penalty too large: no modes, no error.
-	te, _ := NewTracker(13, Config{Sparsity: []Sparsity{{Method: L1Pen, Gamma: 4}}, Count: 2})
+	te, _ := NewSet(13, Config{Sparsity: []Sparsity{{Method: L1Pen, Gamma: 4}}, Count: 2})
 	if err := te.Refresh(a); err != nil || te.Count() != 0 || te.Loadings() != nil {
 		t.Errorf("l1pen:4: err %v, %d modes", err, te.Count())
 	}
 }
 
-// TestTrackerStuckChannels: channels whose variance drops to zero (a zero
+// TestSetStuckChannels: channels whose variance drops to zero (a zero
 // row) move a mode off them; a warm start lying wholly on zero rows falls
 // back to the cold start.
-func TestTrackerStuckChannels(t *testing.T) {
+func TestSetStuckChannels(t *testing.T) {
 	const p = 12
 	a := twoGroups(p, 5, 3)
-	tr, _ := NewTracker(p, Config{Sparsity: []Sparsity{{Method: L0, K: 3}}, Count: 2, ColdEvery: -1})
+	tr, _ := NewSet(p, Config{Sparsity: []Sparsity{{Method: L0, K: 3}}, Count: 2, ColdEvery: -1})
 	if err := tr.Refresh(a); err != nil {
 		t.Fatal(err)
 	}
@@ -420,7 +420,7 @@ func TestRefreshNoAlloc(t *testing.T) {
 	for _, sp := range sps {
 		for _, d := range []Deflation{Projection, Schur} {
 			for _, cold := range []int{-1, 1} {
-				tr, err := NewTracker(p, Config{Sparsity: []Sparsity{sp}, Count: 3, Deflation: d, ColdEvery: cold, EpsStages: 2})
+				tr, err := NewSet(p, Config{Sparsity: []Sparsity{sp}, Count: 3, Deflation: d, ColdEvery: cold, EpsStages: 2})
 				if err != nil {
 					t.Fatal(err)
 				}
@@ -446,11 +446,11 @@ func TestRefreshNoAlloc(t *testing.T) {
 	}
 }
 
-// TestTrackerWarmIterations: refreshing with the same matrix converges at
+// TestSetWarmIterations: refreshing with the same matrix converges at
 // once from the warm start, and the iterations per mode are reported.
-func TestTrackerWarmIterations(t *testing.T) {
+func TestSetWarmIterations(t *testing.T) {
 	a := loadPitprops(t)
-	tr, _ := NewTracker(13, Config{Sparsity: []Sparsity{{Method: L0, K: 6}}, Count: 3, ColdEvery: -1})
+	tr, _ := NewSet(13, Config{Sparsity: []Sparsity{{Method: L0, K: 6}}, Count: 3, ColdEvery: -1})
 	if err := tr.Refresh(a); err != nil {
 		t.Fatal(err)
 	}
@@ -473,7 +473,7 @@ func TestTrackerWarmIterations(t *testing.T) {
 	}
 }
 
-func TestNewTrackerErrors(t *testing.T) {
+func TestNewSetErrors(t *testing.T) {
 	cases := []struct {
 		name string
 		p    int
@@ -499,12 +499,12 @@ func TestNewTrackerErrors(t *testing.T) {
 		{"start", 5, Config{Count: 1, Start: 9}, ErrConfig},
 	}
 	for _, c := range cases {
-		if _, err := NewTracker(c.p, c.cfg); !errors.Is(err, c.want) {
+		if _, err := NewSet(c.p, c.cfg); !errors.Is(err, c.want) {
 			t.Errorf("%s: error %v, want %v", c.name, err, c.want)
 		}
 	}
 	// Defaults of the zero Config.
-	tr, err := NewTracker(20, Config{})
+	tr, err := NewSet(20, Config{})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -515,14 +515,14 @@ func TestNewTrackerErrors(t *testing.T) {
 	}
 }
 
-// TestTrackerWarmEmptyFallsBackCold: a penalty that empties the warm start
+// TestSetWarmEmptyFallsBackCold: a penalty that empties the warm start
 // (its group went quiet) does not end the extraction; the cold start finds
 // the group that is active now. With γ = 1.5 the squared ℓ1 threshold is
 // 0.75: the quiet group has |(Ax)_i| = 1/√3 ≈ 0.58 < 0.75 (unit noise only),
 // the active one 0.5·(1 + 5) = 3 (hand derivation from twoGroups).
-func TestTrackerWarmEmptyFallsBackCold(t *testing.T) {
+func TestSetWarmEmptyFallsBackCold(t *testing.T) {
 	const p = 12
-	tr, _ := NewTracker(p, Config{Sparsity: []Sparsity{{Method: L1Pen, Gamma: 1.5}}, Count: 1, ColdEvery: -1})
+	tr, _ := NewSet(p, Config{Sparsity: []Sparsity{{Method: L1Pen, Gamma: 1.5}}, Count: 1, ColdEvery: -1})
 	if err := tr.Refresh(twoGroups(p, 5, 3)); err != nil {
 		t.Fatal(err)
 	}
@@ -552,8 +552,8 @@ func TestWarmMatchesCold(t *testing.T) {
 	for _, sp := range []Sparsity{{Method: L0, K: 10}, {Method: L1PenSqrt, Gamma: 0.5}, {Method: L1, S: 2.5}} {
 		for _, d := range []Deflation{Projection, Schur} {
 			cfg := Config{Sparsity: []Sparsity{sp}, Count: 5, ColdEvery: -1, Deflation: d}
-			warm, _ := NewTracker(100, cfg)
-			cold, _ := NewTracker(100, cfg)
+			warm, _ := NewSet(100, cfg)
+			cold, _ := NewSet(100, cfg)
 			if err := warm.Refresh(a1); err != nil {
 				t.Fatal(err)
 			}

@@ -15,7 +15,7 @@ const (
 	DefaultMatchMin  = 0.5  // MatchMin when 0: |cos| ≥ 0.5, within 60°
 )
 
-// Config configures a Tracker. The zero value means: dense modes (ordinary
+// Config configures a Set. The zero value means: dense modes (ordinary
 // principal components), as many as needed for DefaultShare of the total
 // variance, at most DefaultMaxCount, projection deflation.
 type Config struct {
@@ -66,7 +66,7 @@ type Config struct {
 	MatchMin float64
 }
 
-// Mode describes one tracked mode. Its slices view the Tracker's storage:
+// Mode describes one mode of a [Set]. Its slices view the Set's storage:
 // read-only, valid until the next Refresh or UnmarshalBinary.
 type Mode struct {
 	// ID is the stable identity: a new mode takes the ID of the previous
@@ -134,11 +134,12 @@ func newModeSet(p, m int) *modeSet {
 	return s
 }
 
-// Tracker keeps r sparse modes of a changing covariance matrix. Refresh
-// starts each mode from its previous loadings (warm start); after
-// construction Refresh does not allocate. A Tracker is not safe for
+// Set holds r sparse modes of a changing covariance matrix from one
+// refresh to the next: [Set.Refresh] solves each mode again from its
+// previous loadings (warm start) and keeps its identity and sign. After
+// construction Refresh does not allocate. A Set is not safe for
 // concurrent use.
-type Tracker struct {
+type Set struct {
 	p         int
 	cfg       Config
 	sp        []Sparsity // one per slot
@@ -279,9 +280,9 @@ func (cfg *Config) solverDefaults() error {
 	return nil
 }
 
-// NewTracker returns a tracker for p × p matrices; cfg is validated and its
+// NewSet returns a mode set for p × p matrices; cfg is validated and its
 // defaults filled in. Errors wrap ErrConfig or ErrSparsity.
-func NewTracker(p int, cfg Config) (*Tracker, error) {
+func NewSet(p int, cfg Config) (*Set, error) {
 	if p < 1 {
 		return nil, configErr("dimension p = %d, want ≥ 1", p)
 	}
@@ -298,7 +299,7 @@ func NewTracker(p int, cfg Config) (*Tracker, error) {
 	}
 	cfg.Sparsity = sp
 	m := cfg.MaxCount
-	t := &Tracker{
+	t := &Set{
 		p:        p,
 		cfg:      cfg,
 		sp:       sp,
@@ -325,23 +326,23 @@ func NewTracker(p int, cfg Config) (*Tracker, error) {
 
 // Config returns the configuration with defaults filled in (Sparsity has one
 // entry per mode slot).
-func (t *Tracker) Config() Config {
+func (t *Set) Config() Config {
 	c := t.cfg
 	c.Sparsity = append([]Sparsity(nil), t.cfg.Sparsity...)
 	return c
 }
 
 // Count returns the current number of modes r.
-func (t *Tracker) Count() int { return t.cur.r }
+func (t *Set) Count() int { return t.cur.r }
 
 // Loadings returns the p × r matrix whose column j is the loadings of
 // Mode(j), or nil when there are no modes. It is a read-only view, valid
 // until the next Refresh.
-func (t *Tracker) Loadings() *mat.Dense { return t.cur.view[t.cur.r] }
+func (t *Set) Loadings() *mat.Dense { return t.cur.view[t.cur.r] }
 
 // Mode returns mode j (0 ≤ j < Count()), in extraction order. It panics if
 // j is out of range.
-func (t *Tracker) Mode(j int) Mode {
+func (t *Set) Mode(j int) Mode {
 	s := t.cur
 	if j < 0 || j >= s.r {
 		panic("modes: mode index out of range")
@@ -364,7 +365,7 @@ func (t *Tracker) Mode(j int) Mode {
 // ScoreCovTo fills dst (r × r; an empty dst is resized) with VᵀAV, the
 // covariance of the mode scores VᵀX under the matrix of the last Refresh.
 // Sparse loadings are not orthogonal, so it is not diagonal.
-func (t *Tracker) ScoreCovTo(dst *mat.SymDense) {
+func (t *Set) ScoreCovTo(dst *mat.SymDense) {
 	r, m := t.cur.r, t.cfg.MaxCount
 	if dst.IsEmpty() {
 		dst.ReuseAsSym(r)
@@ -380,16 +381,16 @@ func (t *Tracker) ScoreCovTo(dst *mat.SymDense) {
 }
 
 // TotalVariance returns tr(A) of the last Refresh.
-func (t *Tracker) TotalVariance() float64 { return t.trace }
+func (t *Set) TotalVariance() float64 { return t.trace }
 
 // Iterations returns the total solver steps of the last Refresh, including
 // the cold candidates that were discarded.
-func (t *Tracker) Iterations() int { return t.iters }
+func (t *Set) Iterations() int { return t.iters }
 
 // ColdNext makes the next Refresh solve every mode from the cold start
 // only, without a warm candidate. Identities are still matched to the
 // current modes.
-func (t *Tracker) ColdNext() { t.coldNext = true }
+func (t *Set) ColdNext() { t.coldNext = true }
 
 // Refresh recomputes the modes for a new matrix a (p × p, symmetric positive
 // semidefinite), each warm-started from its previous loadings. On an error
@@ -400,9 +401,9 @@ func (t *Tracker) ColdNext() { t.coldNext = true }
 // checked, so a non-finite entry in any column the solvers touch is an
 // ErrNotFinite; a cold refresh (the first one, and every ColdEvery-th)
 // reads all of a. Full positive semidefiniteness is assumed, not checked.
-func (t *Tracker) Refresh(a *mat.SymDense) error {
+func (t *Set) Refresh(a *mat.SymDense) error {
 	if a.SymmetricDim() != t.p {
-		return fmt.Errorf("%w: matrix is %d × %d, tracker has p = %d", ErrConfig, a.SymmetricDim(), a.SymmetricDim(), t.p)
+		return fmt.Errorf("%w: matrix is %d × %d, mode set has p = %d", ErrConfig, a.SymmetricDim(), a.SymmetricDim(), t.p)
 	}
 	ws, op := t.ws, t.ws.op
 	op.setMatrix(a)
@@ -488,7 +489,7 @@ func (t *Tracker) Refresh(a *mat.SymDense) error {
 // no warm start, or a penalty emptied the warm one), keeping the better of
 // the two. It adds the iterations to *iters; stop says the operator has no
 // more modes to give.
-func (t *Tracker) solveSlot(j int, warm, tryCold bool, iters *int) (res Result, stop bool, err error) {
+func (t *Set) solveSlot(j int, warm, tryCold bool, iters *int) (res Result, stop bool, err error) {
 	ws := t.ws
 	sp := t.sp[j]
 	hasWarm := warm && j < t.cur.r
@@ -542,7 +543,7 @@ func (t *Tracker) solveSlot(j int, warm, tryCold bool, iters *int) (res Result, 
 // result res), adds row j of G = VᵀA_0V and the next column of G's
 // Cholesky factor, and returns the mode's adjusted variance; the caller
 // decides whether the mode counts (nx.r).
-func (t *Tracker) keep(nx *modeSet, j int, res Result) float64 {
+func (t *Set) keep(nx *modeSet, j int, res Result) float64 {
 	ws, op, m := t.ws, t.ws.op, t.cfg.MaxCount
 	x := nx.x[j]
 	copy(x, ws.x)
@@ -609,7 +610,7 @@ func cholColumn(r, g []float64, m, j int) float64 {
 // matchIDs gives the modes of nx the IDs of the current modes they match
 // best by |cosine| (greedy: the best remaining pair first, ties by lowest
 // new then lowest old index), new IDs when |cos| < MatchMin.
-func (t *Tracker) matchIDs(nx *modeSet) {
+func (t *Set) matchIDs(nx *modeSet) {
 	old := t.cur
 	ro, rn, m := 0, nx.r, t.cfg.MaxCount
 	if t.have {
