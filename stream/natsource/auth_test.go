@@ -1,15 +1,9 @@
 package natsource
 
 import (
-	"crypto/ecdsa"
-	"crypto/elliptic"
-	"crypto/rand"
 	"crypto/tls"
 	"crypto/x509"
-	"crypto/x509/pkix"
-	"encoding/pem"
 	"errors"
-	"math/big"
 	"net"
 	"os"
 	"path/filepath"
@@ -195,56 +189,11 @@ type tlsFiles struct{ ca, serverCert, serverKey, clientCert, clientKey string }
 func makeTLS(t *testing.T) tlsFiles {
 	t.Helper()
 	dir := t.TempDir()
-	write := func(name, typ string, der []byte) string {
-		p := filepath.Join(dir, name)
-		if err := os.WriteFile(p, pem.EncodeToMemory(&pem.Block{Type: typ, Bytes: der}), 0o600); err != nil {
-			t.Fatal(err)
-		}
-		return p
-	}
-	key := func() *ecdsa.PrivateKey {
-		k, err := ecdsa.GenerateKey(elliptic.P256(), rand.Reader)
-		if err != nil {
-			t.Fatal(err)
-		}
-		return k
-	}
-	now := time.Now()
-	caKey := key()
-	caTmpl := &x509.Certificate{
-		SerialNumber: big.NewInt(1), Subject: pkix.Name{CommonName: "test CA"},
-		NotBefore: now.Add(-time.Hour), NotAfter: now.Add(time.Hour),
-		IsCA: true, BasicConstraintsValid: true, KeyUsage: x509.KeyUsageCertSign,
-	}
-	caDER, err := x509.CreateCertificate(rand.Reader, caTmpl, caTmpl, &caKey.PublicKey, caKey)
-	if err != nil {
-		t.Fatal(err)
-	}
-	caCert, _ := x509.ParseCertificate(caDER)
-	leaf := func(serial int64, cn string, usage x509.ExtKeyUsage, ip net.IP) (string, string) {
-		k := key()
-		tmpl := &x509.Certificate{
-			SerialNumber: big.NewInt(serial), Subject: pkix.Name{CommonName: cn},
-			NotBefore: now.Add(-time.Hour), NotAfter: now.Add(time.Hour),
-			KeyUsage: x509.KeyUsageDigitalSignature, ExtKeyUsage: []x509.ExtKeyUsage{usage},
-		}
-		if ip != nil {
-			tmpl.IPAddresses = []net.IP{ip}
-		}
-		der, err := x509.CreateCertificate(rand.Reader, tmpl, caCert, &k.PublicKey, caKey)
-		if err != nil {
-			t.Fatal(err)
-		}
-		kder, err := x509.MarshalECPrivateKey(k)
-		if err != nil {
-			t.Fatal(err)
-		}
-		return write(cn+".pem", "CERTIFICATE", der), write(cn+"-key.pem", "EC PRIVATE KEY", kder)
-	}
+	ca := natstest.NewCA(t, "test CA")
 	var f tlsFiles
-	f.ca = write("ca.pem", "CERTIFICATE", caDER)
-	f.serverCert, f.serverKey = leaf(2, "server", x509.ExtKeyUsageServerAuth, net.ParseIP("127.0.0.1"))
-	f.clientCert, f.clientKey = leaf(3, "client", x509.ExtKeyUsageClientAuth, nil)
+	f.ca = natstest.WritePEM(t, dir, "ca.pem", "CERTIFICATE", ca.Cert.Raw)
+	f.serverCert, f.serverKey = ca.IssueFiles(t, dir, "server", x509.ExtKeyUsageServerAuth, net.ParseIP("127.0.0.1"))
+	f.clientCert, f.clientKey = ca.IssueFiles(t, dir, "client", x509.ExtKeyUsageClientAuth, nil)
 	return f
 }
 

@@ -1,6 +1,8 @@
 // Package natstest starts real nats-server instances inside a test process,
 // so that tests of every package talk to a genuine server on a loopback port
 // rather than to a mock. Each server is shut down when the test ends.
+// [CA] makes the certificates of TLS tests, for the server and for the
+// service's HTTP API alike.
 //
 // It is test support only: production code starts its embedded server with
 // natsource.StartEmbedded.

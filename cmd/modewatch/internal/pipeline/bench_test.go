@@ -67,9 +67,7 @@ func BenchmarkTrackersOnly(b *testing.B) {
 		for i := range frames {
 			x := make([]float64, len(u.idx))
 			m := make([]bool, len(u.idx))
-			for c, j := range u.idx {
-				x[c], m[c] = frames[i].Values[j], frames[i].Missing[j]
-			}
+			frames[i].Gather(x, m, nil, u.idx)
 			per[k].x = append(per[k].x, x)
 			per[k].miss = append(per[k].miss, m)
 		}

@@ -3,25 +3,19 @@ package service
 import (
 	"context"
 	"crypto/ecdsa"
-	"crypto/elliptic"
-	"crypto/rand"
 	"crypto/tls"
 	"crypto/x509"
-	"crypto/x509/pkix"
 	"encoding/json"
-	"encoding/pem"
 	"io"
-	"math/big"
 	"net"
 	"net/http"
-	"os"
-	"path/filepath"
 	"strings"
 	"testing"
 	"time"
 
 	"modewatch/alerts"
 	"modewatch/configs"
+	"modewatch/stream/natsource/natstest"
 )
 
 // do sends one request with an optional bearer token and returns the
@@ -203,54 +197,18 @@ type pkiFiles struct {
 
 func makePKI(t *testing.T, dir, cn string) pkiFiles {
 	t.Helper()
-	newCA := func(name string) (*x509.Certificate, *ecdsa.PrivateKey) {
-		k, _ := ecdsa.GenerateKey(elliptic.P256(), rand.Reader)
-		tpl := &x509.Certificate{SerialNumber: big.NewInt(1), Subject: pkix.Name{CommonName: name},
-			NotBefore: time.Now().Add(-time.Hour), NotAfter: time.Now().Add(time.Hour),
-			IsCA: true, BasicConstraintsValid: true, KeyUsage: x509.KeyUsageCertSign}
-		der, err := x509.CreateCertificate(rand.Reader, tpl, tpl, &k.PublicKey, k)
-		if err != nil {
-			t.Fatal(err)
-		}
-		c, _ := x509.ParseCertificate(der)
-		return c, k
-	}
-	leaf := func(ca *x509.Certificate, caKey *ecdsa.PrivateKey, name string, usage x509.ExtKeyUsage, ip net.IP) ([]byte, *ecdsa.PrivateKey) {
-		k, _ := ecdsa.GenerateKey(elliptic.P256(), rand.Reader)
-		tpl := &x509.Certificate{SerialNumber: big.NewInt(time.Now().UnixNano()), Subject: pkix.Name{CommonName: name},
-			NotBefore: time.Now().Add(-time.Hour), NotAfter: time.Now().Add(time.Hour),
-			KeyUsage: x509.KeyUsageDigitalSignature, ExtKeyUsage: []x509.ExtKeyUsage{usage}}
-		if ip != nil {
-			tpl.IPAddresses = []net.IP{ip}
-		}
-		der, err := x509.CreateCertificate(rand.Reader, tpl, ca, &k.PublicKey, caKey)
-		if err != nil {
-			t.Fatal(err)
-		}
-		return der, k
-	}
 	pair := func(der []byte, k *ecdsa.PrivateKey) tls.Certificate {
 		return tls.Certificate{Certificate: [][]byte{der}, PrivateKey: k}
 	}
-	write := func(name, typ string, der []byte) string {
-		p := filepath.Join(dir, name)
-		if err := os.WriteFile(p, pem.EncodeToMemory(&pem.Block{Type: typ, Bytes: der}), 0o600); err != nil {
-			t.Fatal(err)
-		}
-		return p
-	}
-	ca, caKey := newCA("modewatch test CA")
-	other, otherKey := newCA("another CA")
+	ca := natstest.NewCA(t, "modewatch test CA")
+	other := natstest.NewCA(t, "another CA")
 	var f pkiFiles
-	f.ca = write("ca.pem", "CERTIFICATE", ca.Raw)
-	sDer, sKey := leaf(ca, caKey, "modewatch", x509.ExtKeyUsageServerAuth, net.IPv4(127, 0, 0, 1))
-	f.serverCert = write("server.pem", "CERTIFICATE", sDer)
-	kb, _ := x509.MarshalECPrivateKey(sKey)
-	f.serverKey = write("server-key.pem", "EC PRIVATE KEY", kb)
-	f.client = pair(leaf(ca, caKey, cn, x509.ExtKeyUsageClientAuth, nil))
-	f.stranger = pair(leaf(other, otherKey, cn, x509.ExtKeyUsageClientAuth, nil))
+	f.ca = natstest.WritePEM(t, dir, "ca.pem", "CERTIFICATE", ca.Cert.Raw)
+	f.serverCert, f.serverKey = ca.IssueFiles(t, dir, "server", x509.ExtKeyUsageServerAuth, net.IPv4(127, 0, 0, 1))
+	f.client = pair(ca.Issue(t, cn, x509.ExtKeyUsageClientAuth, nil))
+	f.stranger = pair(other.Issue(t, cn, x509.ExtKeyUsageClientAuth, nil))
 	f.pool = x509.NewCertPool()
-	f.pool.AddCert(ca)
+	f.pool.AddCert(ca.Cert)
 	return f
 }
 
