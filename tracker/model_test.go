@@ -169,10 +169,22 @@ func randomCov(rng *rand.Rand, p, k int) *mat.SymDense {
 			f.Set(i, j, rng.NormFloat64())
 		}
 	}
+	noise := make([]float64, p)
+	for i := range noise {
+		noise[i] = 0.2 + 0.3*rng.Float64()
+	}
+	return factorCorrelation(f, noise)
+}
+
+// factorCorrelation returns the correlation matrix of the covariance
+// F Fᵀ + diag(noise): factor loadings F (p × k) and independent noise of
+// the given variances.
+func factorCorrelation(f *mat.Dense, noise []float64) *mat.SymDense {
+	p, _ := f.Dims()
 	s := mat.NewSymDense(p, nil)
 	s.SymOuterK(1, f)
 	for i := 0; i < p; i++ {
-		s.SetSym(i, i, s.At(i, i)+0.2+0.3*rng.Float64())
+		s.SetSym(i, i, s.At(i, i)+noise[i])
 	}
 	toCorrelation(s)
 	return s

@@ -258,13 +258,7 @@ func fiftyChannelModel(kind int) *mat.SymDense {
 			f.Set(i, i/10+1, 0.5)
 		}
 	}
-	s := mat.NewSymDense(p, nil)
-	s.SymOuterK(1, f)
-	for i := 0; i < p; i++ {
-		s.SetSym(i, i, s.At(i, i)+noise[i])
-	}
-	toCorrelation(s)
-	return s
+	return factorCorrelation(f, noise)
 }
 
 // mixedSensorModel: 50 channels, k latent factors; channel i is a mixture
@@ -288,13 +282,7 @@ func mixedSensorModel(k int, comm float64, maxPer int, seed uint64) *mat.SymDens
 		}
 		noise[i] = s * (1 - comm) / comm
 	}
-	c := mat.NewSymDense(p, nil)
-	c.SymOuterK(1, f)
-	for i := 0; i < p; i++ {
-		c.SetSym(i, i, c.At(i, i)+noise[i])
-	}
-	toCorrelation(c)
-	return c
+	return factorCorrelation(f, noise)
 }
 
 // smearedChannels counts the channels j for which a pure bias on j gives

@@ -144,6 +144,16 @@ func startRun(t *testing.T, url string, cfg JetStreamConfig, ts []time.Time, lag
 	return r
 }
 
+// stop stops the run's consumer, waiting up to 5 s, and drains its
+// connection.
+func (r *consumerRun) stop(t *testing.T) {
+	t.Helper()
+	if err := r.cons.Stop(ctxT(t, 5*time.Second)); err != nil {
+		t.Fatal(err)
+	}
+	drainConn(t, r.conn)
+}
+
 func (r *consumerRun) waitCount(t *testing.T, n int, d time.Duration) {
 	t.Helper()
 	receiveUntil(t, r.count, d, func(k int) bool { return k >= n }, func() string {
@@ -230,10 +240,7 @@ func TestJetStreamCrashRestartRedelivers(t *testing.T) {
 		ci, err := r2.cons.Info(ctxT(t, 5*time.Second))
 		return err == nil && ci.AckFloor.Stream == n && ci.NumAckPending == 0 && ci.NumPending == 0
 	})
-	if err := r2.cons.Stop(ctxT(t, 5*time.Second)); err != nil {
-		t.Fatal(err)
-	}
-	drainConn(t, r2.conn)
+	r2.stop(t)
 }
 
 // TestJetStreamRedelivery: with a short AckWait and a stalled watermark the
@@ -277,10 +284,7 @@ func TestJetStreamRedelivery(t *testing.T) {
 		}
 	}
 	r.mu.Unlock()
-	if err := r.cons.Stop(ctxT(t, 5*time.Second)); err != nil {
-		t.Fatal(err)
-	}
-	drainConn(t, r.conn)
+	r.stop(t)
 }
 
 // TestJetStreamMaxAckPendingBackpressure: with nothing acknowledged the
@@ -318,10 +322,7 @@ func TestJetStreamMaxAckPendingBackpressure(t *testing.T) {
 	waitFor(t, 10*time.Second, "more deliveries after acks", func() bool {
 		return r.cons.Stats().Delivered == uint64(maxAck+acked)
 	})
-	if err := r.cons.Stop(ctxT(t, 5*time.Second)); err != nil {
-		t.Fatal(err)
-	}
-	drainConn(t, r.conn)
+	r.stop(t)
 }
 
 func maxEventOf(ts []time.Time) time.Time {
@@ -495,10 +496,7 @@ func TestJetStreamLostDelivery(t *testing.T) {
 		ci, err := r.cons.Info(ctxT(t, 2*time.Second))
 		return err == nil && ci.AckFloor.Stream == n && ci.NumAckPending == 0
 	})
-	if err := r.cons.Stop(ctxT(t, 5*time.Second)); err != nil {
-		t.Fatal(err)
-	}
-	drainConn(t, r.conn)
+	r.stop(t)
 }
 
 // TestJetStreamDoneOnClose: when the connection closes under a running
