@@ -27,21 +27,29 @@ func collectFrames(t testing.TB, data []byte, period time.Duration) (*stream.Cha
 		t.Fatal(err)
 	}
 	var frames []stream.Frame
-	in, err := stream.NewIntake(ch, stream.Options{Align: stream.AlignConfig{Period: period}}, func(f *stream.Frame) error {
+	feedLog(t, ch, period, "demo", data, func(f *stream.Frame) error {
 		frames = append(frames, stream.Frame{Start: f.Start, Segment: f.Segment,
 			Values: append([]float64(nil), f.Values...), Missing: append([]bool(nil), f.Missing...)})
 		return nil
 	})
+	return ch, frames
+}
+
+// feedLog reads the line protocol data (named name in messages) through an
+// intake of the channels ch aligned at period, handing every frame to
+// emit, and flushes it.
+func feedLog(t testing.TB, ch *stream.Channels, period time.Duration, name string, data []byte, emit func(*stream.Frame) error) {
+	t.Helper()
+	in, err := stream.NewIntake(ch, stream.Options{Align: stream.AlignConfig{Period: period}}, emit)
 	if err != nil {
 		t.Fatal(err)
 	}
-	if err := in.Read(context.Background(), "demo", bytes.NewReader(data)); err != nil {
+	if err := in.Read(context.Background(), name, bytes.NewReader(data)); err != nil {
 		t.Fatal(err)
 	}
 	if err := in.Flush(); err != nil {
 		t.Fatal(err)
 	}
-	return ch, frames
 }
 
 type scoreRec struct {

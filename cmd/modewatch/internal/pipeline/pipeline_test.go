@@ -379,16 +379,7 @@ func runLate(t *testing.T, data []byte, period time.Duration) *lateRun {
 	if err != nil {
 		t.Fatal(err)
 	}
-	in, err := stream.NewIntake(ch, stream.Options{Align: stream.AlignConfig{Period: period}}, r.p.Frame)
-	if err != nil {
-		t.Fatal(err)
-	}
-	if err := in.Read(context.Background(), "late.lp", bytes.NewReader(data)); err != nil {
-		t.Fatal(err)
-	}
-	if err := in.Flush(); err != nil {
-		t.Fatal(err)
-	}
+	feedLog(t, ch, period, "late.lp", data, r.p.Frame)
 	r.joins = strings.Count(logs.String(), `msg="new channel joins the unit's model"`)
 	if strings.Contains(logs.String(), "not modelled") {
 		t.Errorf("a channel was left out of the model:\n%s", logs.String())
