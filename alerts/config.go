@@ -98,6 +98,16 @@ type Rules struct {
 	// limit this long, while the unit stays in alarm for others, ends.
 	// Default DefaultLocationQuiet.
 	LocationQuiet time.Duration
+	// ReopenWithin: a model incident that returned to normal re-opens,
+	// instead of a new one, when the unit goes into alarm again within
+	// this time at its location or at no place of its own (reopen.go).
+	// Default DefaultReopenWithin; negative: never.
+	ReopenWithin time.Duration
+	// SpecificShare: a frame points at a place of its own (may open a new
+	// location) only when its first leading channel explains at least
+	// this share of the index (reopen.go). Default DefaultSpecificShare;
+	// negative: every frame with a leading channel does.
+	SpecificShare float64
 	// AcceptAfter is the bounded hold: an incident flat this long is taken
 	// as the new normal. Default DefaultAcceptAfter; negative: never.
 	AcceptAfter time.Duration
@@ -207,6 +217,14 @@ func (r Rules) withDefaults(c *Config) Rules {
 	if r.AcceptAfter == 0 {
 		r.AcceptAfter = DefaultAcceptAfter
 	}
+	if r.ReopenWithin == 0 {
+		r.ReopenWithin = DefaultReopenWithin
+	}
+	if r.SpecificShare == 0 {
+		r.SpecificShare = DefaultSpecificShare
+	} else if r.SpecificShare < 0 {
+		r.SpecificShare = 0
+	}
 	return r
 }
 
@@ -226,6 +244,9 @@ func (r Rules) validate(where string, floodEnd int) error {
 	}
 	if r.OnHold < 0 {
 		errs = append(errs, fmt.Errorf("alerts: %s: on-hold %v is negative", where, r.OnHold))
+	}
+	if !(r.SpecificShare >= 0 && r.SpecificShare <= 1) {
+		errs = append(errs, fmt.Errorf("alerts: %s: specific share %v not in [0, 1]", where, r.SpecificShare))
 	}
 	if !(r.Deadband >= 0 && r.Deadband < 1) {
 		errs = append(errs, fmt.Errorf("alerts: %s: deadband %v not in [0, 1)", where, r.Deadband))

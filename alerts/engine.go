@@ -52,6 +52,7 @@ const (
 	EventFreeze         = "freeze"          // learning of the unit frozen
 	EventThaw           = "thaw"            // and thawed
 	EventAccept         = "accept"          // an incident was accepted as the new normal (bounded hold or operator)
+	EventReopen         = "reopen"          // an incident that had returned re-opened (reopen.go)
 )
 
 // Event is one state change. Time is frame time (for commands: the unit's
@@ -200,6 +201,7 @@ type unit struct {
 	rate     minuteRing
 	c        UnitCounters
 	loc      unitLoc // incidents per location (location.go)
+	recent   recentClosed // model incidents that may re-open (reopen.go)
 }
 
 type group struct {
@@ -256,6 +258,8 @@ type incident struct {
 	dirty       bool
 	maxCount    int
 	loc         *locState // location of a model incident (location.go); nil for quality and floods
+	reopened    int       // times re-opened after a return (reopen.go)
+	lastReopen  time.Time
 }
 
 // ring is a fixed-capacity ring of times with an optional incident each.
@@ -693,6 +697,17 @@ func (e *Engine) activate(u *unit, g *group, t time.Time, o *Observation, qa *Al
 		return
 	}
 	g.acts.push(t, nil)
+	if g.qkind == "" && !u.rules.SingleIncident {
+		var buf [LeadCount]string
+		if inc := u.reopenable(o, leading(buf[:0], o), t); inc != nil {
+			e.reopen(u, inc, o, t)
+			g.inc = inc
+			e.checkChatterStart(u, g, inc, t)
+			e.syncFreeze(u, t)
+			e.publish(inc, t)
+			return
+		}
+	}
 	inc := &incident{
 		id: MakeID(u.name, g.key, t), u: u, g: g, kind: KindIncident,
 		start: t.UTC(), memberIdx: -1,
@@ -713,8 +728,16 @@ func (e *Engine) activate(u *unit, g *group, t time.Time, o *Observation, qa *Al
 	u.c.Opened++
 	u.rate.add(t)
 	e.emit(Event{Time: t, Unit: u.name, Kind: EventOpen, Alarm: g.key, AlertID: inc.id})
-	// Chattering: ChatterCount activations within ChatterWindow, i.e. the
-	// oldest of the last ChatterCount is less than the window before t.
+	e.checkChatterStart(u, g, inc, t)
+	e.countOpening(u, inc, t)
+	e.syncFreeze(u, t)
+	e.publish(inc, t)
+}
+
+// checkChatterStart starts a chattering episode of g, with inc as its
+// incident, when ChatterCount activations fall within ChatterWindow, i.e.
+// the oldest of the last ChatterCount is less than the window before t.
+func (e *Engine) checkChatterStart(u *unit, g *group, inc *incident, t time.Time) {
 	if g.acts.n == len(g.acts.t) {
 		if first, _ := g.acts.at(g.acts.n - 1); t.Sub(first) < u.rules.ChatterWindow {
 			g.chattering = true
@@ -723,9 +746,6 @@ func (e *Engine) activate(u *unit, g *group, t time.Time, o *Observation, qa *Al
 			e.emit(Event{Time: t, Unit: u.name, Kind: EventChatterStart, Alarm: g.key, AlertID: inc.id})
 		}
 	}
-	e.countOpening(u, inc, t)
-	e.syncFreeze(u, t)
-	e.publish(inc, t)
 }
 
 // countOpening counts a new alert of u towards its flood: more than
@@ -782,6 +802,7 @@ func (e *Engine) closeIncident(inc *incident, t time.Time, reason string) {
 	}
 	inc.end, inc.ended, inc.endReason = t.UTC(), true, reason
 	if inc.g != nil {
+		inc.u.recent.note(inc.u, inc, reason)
 		e.refreshStates(inc)
 		if inc.g.inc == inc {
 			inc.g.inc = nil
@@ -1113,6 +1134,7 @@ func (e *Engine) record(inc *incident) *Record {
 		r.Group = GroupModel
 		r.Peak = inc.peak
 		e.recordLocation(r, inc)
+		recordReopen(r, inc)
 		for _, s := range inc.stats {
 			if s.used {
 				r.Statistics = append(r.Statistics, s.RecordStat)

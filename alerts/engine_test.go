@@ -199,7 +199,9 @@ func TestNoFreeze(t *testing.T) {
 }
 
 func TestAcknowledge(t *testing.T) {
-	h := newHarness(t, Config{Rules: Rules{OnCount: 1, OnWindow: 1, OffDelay: -1}})
+	// Re-opening off: the alert at 3 s is to be a new one (reopen_test.go
+	// covers re-opening).
+	h := newHarness(t, Config{Rules: Rules{OnCount: 1, OnWindow: 1, OffDelay: -1, ReopenWithin: -1}})
 	h.model(0, 2)
 	id := h.last().ID
 	rep := h.cmd(Command{Op: OpAck, AlertID: id, By: "jo", Comment: "seen"})
@@ -236,7 +238,8 @@ func TestAcknowledge(t *testing.T) {
 // the end of an alert already published, and on expiry annunciates what
 // is still active.
 func TestShelve(t *testing.T) {
-	h := newHarness(t, Config{Rules: Rules{OnCount: 1, OnWindow: 1, OffDelay: 5 * time.Second}, MaxShelve: time.Hour})
+	// Re-opening off: the alert at 30 s is to be a new one.
+	h := newHarness(t, Config{Rules: Rules{OnCount: 1, OnWindow: 1, OffDelay: 5 * time.Second, ReopenWithin: -1}, MaxShelve: time.Hour})
 	h.model(0, 2)
 	id := h.last().ID
 	for _, bad := range []Command{
@@ -436,9 +439,10 @@ func TestFlood(t *testing.T) {
 }
 
 // chatter feeds frames each second from 0 to end with T² over its limit
-// exactly at the activation seconds (N = M = 1, off-delay 0).
+// exactly at the activation seconds (N = M = 1, off-delay 0), re-opening
+// off (every activation is a new alert until the episode starts).
 func chatter(t *testing.T, acts []float64, end float64) *harness {
-	h := newHarness(t, Config{Rules: Rules{OnCount: 1, OnWindow: 1, OffDelay: -1}})
+	h := newHarness(t, Config{Rules: Rules{OnCount: 1, OnWindow: 1, OffDelay: -1, ReopenWithin: -1}})
 	for s := 0.0; s <= end; s++ {
 		r := 0.5
 		if slices.Contains(acts, s) {

@@ -238,6 +238,11 @@ func (e *Engine) stepLocations(u *unit, o *Observation, t time.Time) {
 		g.inc.loc.add(frameLocation(o, lead))
 		g.inc.dirty = true
 		e.support(g.inc, o, t)
+	case first == nil && !u.specific(o):
+		// A frame that points at no place of its own (reopen.go) does
+		// not count towards a new location, nor does it speak for an
+		// open one.
+		u.loc.newLoc.Step(t, 0, 1)
 	case first == nil:
 		if _, to, _ := u.loc.newLoc.Step(t, 2, 1); to == Active {
 			u.loc.newLoc.Reset(t)
@@ -314,6 +319,13 @@ func (e *Engine) support(inc *incident, o *Observation, t time.Time) {
 // leading channels lie outside every open location.
 func (e *Engine) openLocation(u *unit, o *Observation, lead []string, t time.Time) {
 	g := &u.modelG
+	if inc := u.reopenable(o, lead, t); inc != nil {
+		e.reopen(u, inc, o, t)
+		u.loc.extra = append(u.loc.extra, inc)
+		e.syncMask(u, t)
+		e.publish(inc, t)
+		return
+	}
 	inc := &incident{
 		id: MakeID(u.name, g.key, t), u: u, g: g, kind: KindIncident,
 		start: t.UTC(), memberIdx: -1, sev: -1,

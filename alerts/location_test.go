@@ -45,13 +45,14 @@ func locHarness(t *testing.T, cfg Config) (*harness, *maskLog) {
 }
 
 // frame feeds unit "u" at second at with φ ratio r and the given channels
-// over their own limits (in rank order); loc is the frame's location.
+// over their own limits (in rank order), the first explaining half the
+// index as a single fault's channel does; loc is the frame's location.
 func (h *harness) frame(at, r float64, over []string, loc ...string) {
 	h.t.Helper()
 	o := Observation{Unit: "u", Time: sec(at), ModelState: ModelAdapting,
 		Stats: []Stat{{StatT2, 1, 10}, {StatSPE, 1, 5}, {StatPhi, r, 1}}, Location: loc}
 	for i, c := range over {
-		o.Contributors = append(o.Contributors, Contributor{Channel: c, RBC: float64(10 - i), Limit: 2, Share: 0.1})
+		o.Contributors = append(o.Contributors, Contributor{Channel: c, RBC: float64(10 - i), Limit: 2, Share: float64(10-i) / 20})
 	}
 	o.Contributors = append(o.Contributors, Contributor{Channel: "u.quiet", RBC: 0.5, Limit: 2})
 	if err := h.e.Observe(&o); err != nil {

@@ -63,6 +63,11 @@ type Record struct {
 	Merged     []string `json:"merged,omitempty"`
 	MergedInto string   `json:"merged_into,omitempty"`
 	Accepted   *Ack     `json:"accepted,omitempty"`
+	// Reopened counts the returns of a model incident to normal after
+	// which it re-opened within alerts.reopen_within (re-alarm of the same
+	// disturbance), LastReopened the frame time of the latest.
+	Reopened     int        `json:"reopened,omitempty"`
+	LastReopened *time.Time `json:"last_reopened,omitempty"`
 	// Notice is the text of an informational record (Kind KindNotice).
 	Notice  string `json:"notice,omitempty"`
 	Caution string `json:"caution"`

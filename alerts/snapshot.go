@@ -101,6 +101,8 @@ type snapIncident struct {
 	Dirty       bool                `json:"dirty,omitempty"`
 	MaxCount    int                 `json:"max_count,omitempty"`
 	Location    *snapLoc            `json:"location,omitempty"`
+	Reopened    int                 `json:"reopened,omitempty"`
+	LastReopen  time.Time           `json:"last_reopened"`
 }
 
 type snapUnit struct {
@@ -120,6 +122,7 @@ type snapUnit struct {
 	Counters  UnitCounters      `json:"counters"`
 	Extra     []string          `json:"extra_incidents,omitempty"` // open model incidents after the first, oldest first
 	NewLoc    *snapAlarm        `json:"new_location,omitempty"`    // on-delay of a new location
+	Recent    []string          `json:"recent_incidents,omitempty"` // model incidents that may re-open, oldest end first
 }
 
 type snapshot struct {
@@ -197,6 +200,10 @@ func (e *Engine) snapshotOf(us []*unit, only string) *snapshot {
 			su.Extra = append(su.Extra, inc.id)
 			incs[inc] = true
 		}
+		for _, inc := range u.recent.incs {
+			su.Recent = append(su.Recent, inc.id)
+			incs[inc] = true
+		}
 		if nl := snapAlarmOf(&u.loc.newLoc); State(nl.State) != Normal || nl.Window != 0 {
 			su.NewLoc = &nl
 		}
@@ -238,6 +245,7 @@ func (e *Engine) snapshotOf(us []*unit, only string) *snapshot {
 			Contrib: inc.contrib, Missing: inc.missing, Ack: inc.ack, Stale: inc.stale, Chatter: inc.chatter,
 			Rev: inc.rev, Member: inc.member, MemberIdx: inc.memberIdx, EndReason: inc.endReason,
 			Members: inc.members, MemberCount: inc.memberCount, LastPub: inc.lastPub, Dirty: inc.dirty, MaxCount: inc.maxCount,
+			Reopened: inc.reopened, LastReopen: inc.lastReopen,
 		}
 		for k, st := range inc.stats {
 			si.Stats[k] = snapStat{Used: st.used, RecordStat: st.RecordStat}
@@ -436,6 +444,7 @@ func buildIncidents(s *snapshot) (map[string]*incident, error) {
 			contrib: si.Contrib, missing: si.Missing, ack: si.Ack, stale: si.Stale, chatter: si.Chatter,
 			rev: si.Rev, member: si.Member, memberIdx: si.MemberIdx, endReason: si.EndReason,
 			members: si.Members, memberCount: si.MemberCount, lastPub: si.LastPub, dirty: si.Dirty, maxCount: si.MaxCount,
+			reopened: si.Reopened, lastReopen: si.LastReopen,
 		}
 		for k, st := range si.Stats {
 			inc.stats[k] = statPeak{used: st.Used, RecordStat: st.RecordStat}
@@ -459,6 +468,17 @@ func (e *Engine) buildUnit(su snapUnit, lookup func(string) (*incident, error)) 
 	}
 	if err := e.restoreLocations(u, su, lookup); err != nil {
 		return nil, err
+	}
+	for _, id := range su.Recent {
+		inc, err := lookup(id)
+		if err != nil {
+			return nil, err
+		}
+		if inc == nil || inc.g != nil || !inc.ended {
+			return nil, fmt.Errorf("recent incident %q listed twice or not ended", id)
+		}
+		inc.g, inc.u = &u.modelG, u
+		u.recent.incs = append(u.recent.incs, inc)
 	}
 	for _, sq := range su.Quality {
 		rule, ok := e.cfg.Quality[sq.Kind]

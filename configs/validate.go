@@ -361,6 +361,12 @@ func (v *validator) alerts(p string, a Alerts, partial bool) {
 	if a.LocationQuiet < 0 {
 		v.add(p+".location_quiet", "negative")
 	}
+	if a.ReopenWithin < 0 {
+		v.add(p+".reopen_within", "negative")
+	}
+	if a.SpecificShare < 0 || a.SpecificShare > 1 {
+		v.add(p+".specific_share", "%g is not a share of the index in [0, 1]", a.SpecificShare)
+	}
 	if a.Deadband < 0 || a.Deadband >= 1 {
 		v.add(p+".deadband", "%g is not a fraction of the limit in [0, 1)", a.Deadband)
 	}

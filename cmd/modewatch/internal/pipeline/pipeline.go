@@ -149,6 +149,8 @@ func AlertsConfig(c *configs.Config) alerts.Config {
 			SingleIncident: a.IncidentsPerLocation != nil && !*a.IncidentsPerLocation,
 			AcceptAfter:    a.AcceptAfter,
 			LocationQuiet:  a.LocationQuiet,
+			ReopenWithin:   a.ReopenWithin,
+			SpecificShare:  a.SpecificShare,
 		}
 		if r.OffDelay == 0 {
 			r.OffDelay = -1 // configured as zero: no off-delay
