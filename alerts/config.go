@@ -100,7 +100,7 @@ type Rules struct {
 	LocationQuiet time.Duration
 	// ReopenWithin: a model incident that returned to normal re-opens,
 	// instead of a new one, when the unit goes into alarm again within
-	// this time at its location or at no place of its own (reopen.go).
+	// this time on a frame that names no place of its own (reopen.go).
 	// Default DefaultReopenWithin; negative: never.
 	ReopenWithin time.Duration
 	// SpecificShare: a frame points at a place of its own (may open a new

@@ -698,8 +698,7 @@ func (e *Engine) activate(u *unit, g *group, t time.Time, o *Observation, qa *Al
 	}
 	g.acts.push(t, nil)
 	if g.qkind == "" && !u.rules.SingleIncident {
-		var buf [LeadCount]string
-		if inc := u.reopenable(o, leading(buf[:0], o), t); inc != nil {
+		if inc := u.reopenable(o, t); inc != nil {
 			e.reopen(u, inc, o, t)
 			g.inc = inc
 			e.checkChatterStart(u, g, inc, t)

@@ -319,13 +319,6 @@ func (e *Engine) support(inc *incident, o *Observation, t time.Time) {
 // leading channels lie outside every open location.
 func (e *Engine) openLocation(u *unit, o *Observation, lead []string, t time.Time) {
 	g := &u.modelG
-	if inc := u.reopenable(o, lead, t); inc != nil {
-		e.reopen(u, inc, o, t)
-		u.loc.extra = append(u.loc.extra, inc)
-		e.syncMask(u, t)
-		e.publish(inc, t)
-		return
-	}
 	inc := &incident{
 		id: MakeID(u.name, g.key, t), u: u, g: g, kind: KindIncident,
 		start: t.UTC(), memberIdx: -1, sev: -1,

@@ -407,17 +407,17 @@ type Alerts struct {
 	LocationQuiet time.Duration `yaml:"location_quiet"`
 	// ReopenWithin: a model incident that returned to normal re-opens
 	// under its id, instead of a new alert, when its unit goes into alarm
-	// again within this time of plant time at its location or at no place
-	// of its own (the same disturbance re-alarming). Zero: the alarm
-	// engine's default (1h, alerts.DefaultReopenWithin); a very short one
-	// (1s) in effect never.
+	// again within this time of plant time on a frame that names no place
+	// of its own (see specific_share): the same unit-wide disturbance
+	// re-alarming. Zero: the alarm engine's default (2h,
+	// alerts.DefaultReopenWithin); a very short one (1s) in effect never.
 	ReopenWithin time.Duration `yaml:"reopen_within"`
-	// SpecificShare: a frame may open an incident at a new location of a
-	// unit in alarm only when its leading channel alone explains at least
-	// this share of the index (its reconstruction-based contribution over
-	// the index). Zero: the alarm engine's default (0.2,
-	// alerts.DefaultSpecificShare); a tiny one (1e-9) in effect every
-	// frame with a channel over its limit.
+	// SpecificShare: a frame names a place of its own (may open an
+	// incident at a new location of a unit in alarm) only when its leading
+	// channel alone explains at least this share of the index (its
+	// reconstruction-based contribution over the index). Zero: the alarm
+	// engine's default (0.25, alerts.DefaultSpecificShare); a tiny one
+	// (1e-9) in effect every frame with a channel over its limit.
 	SpecificShare float64 `yaml:"specific_share"`
 }
 
