@@ -200,7 +200,7 @@ type unit struct {
 	flood    *incident
 	rate     minuteRing
 	c        UnitCounters
-	loc      unitLoc // incidents per location (location.go)
+	loc      unitLoc      // incidents per location (location.go)
 	recent   recentClosed // model incidents that may re-open (reopen.go)
 }
 

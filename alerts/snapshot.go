@@ -120,8 +120,8 @@ type snapUnit struct {
 	RateLast  int64             `json:"rate_last_minute"`
 	RateCount map[int]uint32    `json:"rate_counts,omitempty"` // bucket → count, non-zero only
 	Counters  UnitCounters      `json:"counters"`
-	Extra     []string          `json:"extra_incidents,omitempty"` // open model incidents after the first, oldest first
-	NewLoc    *snapAlarm        `json:"new_location,omitempty"`    // on-delay of a new location
+	Extra     []string          `json:"extra_incidents,omitempty"`  // open model incidents after the first, oldest first
+	NewLoc    *snapAlarm        `json:"new_location,omitempty"`     // on-delay of a new location
 	Recent    []string          `json:"recent_incidents,omitempty"` // model incidents that may re-open, oldest end first
 }
 
