@@ -129,6 +129,11 @@ func (e *Engine) reopen(u *unit, inc *incident, o *Observation, t time.Time) {
 		inc.loc.hold.start(t)
 	}
 	inc.dirty = true
+	// Out of the ring of closed incidents: it is open again, and its next
+	// end retires it anew (an older entry would drop it from byID early).
+	if i := slices.Index(e.closed, inc.id); i >= 0 {
+		e.closed[i] = ""
+	}
 	e.remember(inc)
 	e.emit(Event{Time: t, Unit: u.name, Kind: EventReopen, Alarm: inc.g.key, AlertID: inc.id})
 	e.updateModel(inc, o, t)

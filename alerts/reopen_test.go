@@ -6,7 +6,6 @@ import (
 	"math/rand/v2"
 	"slices"
 	"testing"
-	"time"
 )
 
 // wideFrame feeds unit "u" at second at with φ ratio r and a unit-wide
@@ -71,6 +70,9 @@ func TestUnitWideMoveOneIncident(t *testing.T) {
 	equalStrings(t, "open and re-open events", h.eventsOf(EventOpen, EventReopen), []string{"open@2", "reopen@3002", "open@16202"})
 	if c := h.e.Counters(nil)[0]; c.Opened != 2 {
 		t.Errorf("opened %d new alerts, want 2", c.Opened)
+	}
+	if rep := h.cmd(Command{Op: OpAck, AlertID: first.ID, By: "jo"}); !rep.OK {
+		t.Errorf("ack of the re-opened and closed incident: %+v", rep)
 	}
 
 	_, old := run(Rules{SpecificShare: 1e-9, ReopenWithin: -1})
@@ -165,5 +167,4 @@ func TestReopenSettings(t *testing.T) {
 	if err := (Config{Rules: Rules{SpecificShare: 1.5}}).Validate(); err == nil {
 		t.Error("specific share 1.5 accepted")
 	}
-	_ = time.Second
 }
