@@ -4,6 +4,8 @@ import (
 	"math"
 	"time"
 
+	"modewatch/alerts"
+
 	"github.com/influxdata/line-protocol/v2/lineprotocol"
 )
 
@@ -14,6 +16,8 @@ const ScoreMeasurement = "modewatch_scores"
 //
 //	modewatch_scores,unit=<unit> t2=…,t2_limit=…,spe=…,spe_limit=…,phi=…,phi_limit=…,missing=<n>i,state="adapting" <frame start>
 //
+// with res, var and rel (and their _limit) added when model.statistics
+// raises alarms on them.
 // The statistics are left out during warm-up (and where a value is not
 // finite, which line protocol cannot carry); missing and state are always
 // present. Timestamps are in nanoseconds.
@@ -35,6 +39,17 @@ func (e *ScoreEncoder) Append(u *Unit, t time.Time) []byte {
 		}{{"t2", s.T2}, {"t2_limit", c * s.T2Limit}, {"spe", s.SPE}, {"spe_limit", c * s.SPELimit}, {"phi", s.Phi}, {"phi_limit", c * s.PhiLimit}} {
 			if !math.IsNaN(f.v) && !math.IsInf(f.v, 0) {
 				e.enc.AddField(f.key, lineprotocol.MustNewValue(f.v))
+			}
+		}
+		// The other alarm statistics of model.statistics (res, var, rel),
+		// as the alarms see them (smoothed ratios with model.smoothing).
+		for _, x := range u.last {
+			if x.Name == alerts.StatT2 || x.Name == alerts.StatSPE || x.Name == alerts.StatPhi {
+				continue
+			}
+			if !math.IsNaN(x.Value) && !math.IsInf(x.Value, 0) && !math.IsInf(x.Limit, 0) && !math.IsNaN(x.Limit) {
+				e.enc.AddField(x.Name, lineprotocol.MustNewValue(x.Value))
+				e.enc.AddField(x.Name+"_limit", lineprotocol.MustNewValue(c*x.Limit))
 			}
 		}
 	}
