@@ -369,6 +369,11 @@ type Alerts struct {
 	// OnDelay: active when over the limit in N of the last M frames
 	// (1 ≤ N ≤ M ≤ 64). Default 3 of 5.
 	OnDelay OnDelay `yaml:"on_delay"`
+	// OnSpan is the least plant time the default on-delay window (3 of 5
+	// frames) spans: at short frame periods M grows to cover it, and N in
+	// proportion (alerts.SpanOnDelay). Another on_delay is taken as given
+	// unless on_span is set too. Zero: alerts.DefaultOnSpan.
+	OnSpan time.Duration `yaml:"on_span"`
 	// OffDelay: time below limit minus deadband before going back to normal.
 	OffDelay time.Duration `yaml:"off_delay"`
 	// Deadband as a fraction of the limit, in [0, 1). Default 0.05.

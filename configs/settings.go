@@ -238,6 +238,11 @@ var settings = []Setting{
 		},
 	},
 	{
+		Name: "on_span", Section: "alerts", Grid: true,
+		Doc: "least plant time the on-delay window spans: at short frame periods M grows to cover it, and N in proportion; applies to the default on-delay, and to another when set (default: 50s)",
+		set: setDuration(func(o *Overrides) *time.Duration { return &o.Alerts.OnSpan }),
+	},
+	{
 		Name: "off_delay", Section: "alerts", Grid: true, Default: FormatDuration(alerts.DefaultOffDelay),
 		Doc: "time back below the limit (minus the deadband) before an active alarm returns to normal",
 		set: setDuration(func(o *Overrides) *time.Duration { return &o.Alerts.OffDelay }),

@@ -23,6 +23,7 @@ func TestSettingDefaults(t *testing.T) {
 		"warmup":        strconv.Itoa(tracker.DefaultWarmUp),
 		"refresh_every": strconv.Itoa(tracker.DefaultRefreshEvery),
 		"on_delay":      strconv.Itoa(alerts.DefaultOnCount) + "/" + strconv.Itoa(alerts.DefaultOnWindow),
+		"on_span":       "", // alerts.DefaultOnSpan, applied by the engine
 		"off_delay":     FormatDuration(alerts.DefaultOffDelay),
 		"deadband":      strconv.FormatFloat(alerts.DefaultDeadband, 'g', -1, 64),
 		"adapt":         "true",

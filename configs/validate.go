@@ -355,6 +355,9 @@ func (v *validator) alerts(p string, a Alerts, partial bool) {
 			v.add(p+".on_delay.m", "%d frames is more than 64", od.M)
 		}
 	}
+	if a.OnSpan < 0 {
+		v.add(p+".on_span", "negative")
+	}
 	if a.OffDelay < 0 {
 		v.add(p+".off_delay", "negative")
 	}

@@ -71,7 +71,7 @@ func calibrateBudgets(ctx context.Context, env IO, cfg *configs.Config, inputs [
 		if b <= 0 {
 			continue
 		}
-		cal, err := rec.Calibrate(u.Name, b, pipeline.AlarmRule(cfg, u.Name), learnDays)
+		cal, err := rec.Calibrate(u.Name, b, pipeline.AlarmRuleAt(cfg, u.Name, time.Duration(model.Period)), learnDays)
 		if err != nil {
 			msg := fmt.Sprintf("warning: unit %s not calibrated to alerts.budget (limits of alpha kept): %v", u.Name, err)
 			if cal.DaysNeeded > 0 {

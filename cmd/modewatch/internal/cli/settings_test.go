@@ -19,6 +19,7 @@ func TestSettingRoutesAgree(t *testing.T) {
 		"sparsity": "l0:4", "modes": "3", "halflife": "3d", "alpha": "0.001",
 		"warmup": "800", "refresh_every": "32", "on_delay": "6/10", "off_delay": "20m",
 		"deadband": "0.1", "adapt": "false", "limits": "empirical:reference.lp", "smoothing": "0.3",
+		"on_span":    "2m",
 		"statistics": "t2,spe",
 	}
 	base := &configs.Config{}

@@ -112,7 +112,7 @@ func New(opt Options) (*Pipeline, error) {
 	if pub == nil {
 		pub = alerts.PublisherFunc(func(*alerts.Record) {})
 	}
-	eng, err := alerts.NewEngine(AlertsConfig(cfg), pub, learning{p}, log.With("component", "alerts"))
+	eng, err := alerts.NewEngine(AlertsConfigAt(cfg, opt.Period), pub, learning{p}, log.With("component", "alerts"))
 	if err != nil {
 		return nil, fmt.Errorf("pipeline: %w", err)
 	}
@@ -136,7 +136,13 @@ func New(opt Options) (*Pipeline, error) {
 func (p *Pipeline) Alerts() *alerts.Engine { return p.alerts }
 
 // AlertsConfig converts the alarm settings of a configuration.
-func AlertsConfig(c *configs.Config) alerts.Config {
+func AlertsConfig(c *configs.Config) alerts.Config { return AlertsConfigAt(c, 0) }
+
+// AlertsConfigAt is AlertsConfig at frame period period: the default
+// on-delay (3 of 5 frames) is widened to span alerts.on_span of plant time
+// (alerts.SpanOnDelay; a period of 0 leaves it); another on_delay is taken
+// as given unless on_span is set too.
+func AlertsConfigAt(c *configs.Config, period time.Duration) alerts.Config {
 	rules := func(a configs.Alerts) alerts.Rules {
 		r := alerts.Rules{
 			OnCount:  a.OnDelay.N,
@@ -152,6 +158,7 @@ func AlertsConfig(c *configs.Config) alerts.Config {
 			ReopenWithin:   a.ReopenWithin,
 			SpecificShare:  a.SpecificShare,
 		}
+		r.OnCount, r.OnWindow = spanOnDelay(a, r.OnCount, r.OnWindow, period)
 		if r.OffDelay == 0 {
 			r.OffDelay = -1 // configured as zero: no off-delay
 		}
