@@ -133,7 +133,8 @@ type QualityRule struct {
 // DefaultQuality are the data-quality rules by kind. All figures are design
 // choices: missing for more than 5 min, stuck as soon as the tracker says so,
 // out of range or stale for 1 min; 1 min off-delay; a silent unit at once,
-// closed by its first reading.
+// closed by its first reading; spikes at once (the count over SpikeSpan is
+// its own on-delay), 5 min off-delay.
 func DefaultQuality() map[string]QualityRule {
 	return map[string]QualityRule{
 		QualityStuck:      {Hold: 0, OffDelay: time.Minute, Severity: "low"},
@@ -142,6 +143,7 @@ func DefaultQuality() map[string]QualityRule {
 		QualityMissing:    {Hold: 5 * time.Minute, OffDelay: time.Minute, Severity: "low"},
 		QualitySilent:     {Hold: 0, OffDelay: 0, Severity: "medium"},
 		QualityIntakeGap:  {Hold: 0, OffDelay: time.Minute, Severity: "medium"},
+		QualitySpikes:     {Hold: 0, OffDelay: 5 * time.Minute, Severity: "low"},
 	}
 }
 
@@ -313,7 +315,7 @@ func (c Config) Validate() error {
 	}
 	for k, q := range c.Quality {
 		switch k {
-		case QualityStuck, QualityOutOfRange, QualityStale, QualityMissing, QualitySilent, QualityIntakeGap:
+		case QualityStuck, QualityOutOfRange, QualityStale, QualityMissing, QualitySilent, QualityIntakeGap, QualitySpikes:
 		default:
 			errs = append(errs, fmt.Errorf("alerts: quality[%s]: unknown kind", k))
 		}

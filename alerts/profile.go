@@ -59,6 +59,14 @@ type ChannelProfile struct {
 	Max float64 `json:"max"`
 	// MaxGap is the longest run of consecutive missing frames (frames).
 	MaxGap int `json:"max_gap"`
+	// SpikeSize is the least departure of a reading from both its
+	// neighbours that makes it a spike, in the channel's unit; SpikeMax
+	// the most spikes the normal log had within SpikeSpanFrames frames
+	// (SpikeSpan of plant time). SpikeSize 0: no spike rule (see
+	// SpikeLearner).
+	SpikeSize       float64 `json:"spike_size,omitempty"`
+	SpikeMax        int     `json:"spike_max,omitempty"`
+	SpikeSpanFrames int     `json:"spike_span_frames,omitempty"`
 }
 
 // MissingRate is the share of the normal log's frames in which the channel
@@ -110,6 +118,8 @@ type Screen struct {
 	flat  []int
 	gap   []int
 	skip  []bool // channels judged elsewhere (context channels of other units)
+	spk   []spikeTrack
+	frame int64 // frames stepped
 	// silent: every channel missing in the last Step.
 	silent bool
 }
@@ -139,6 +149,7 @@ func (s *Screen) Grow(names []string, prof []ChannelProfile) {
 		s.flat = append(s.flat, 0)
 		s.gap = append(s.gap, 0)
 		s.skip = append(s.skip, false)
+		s.spk = append(s.spk, spikeTrack{})
 	}
 }
 
@@ -163,7 +174,11 @@ func (s *Screen) Profiled(k int) bool { return s.prof[k].Frames > 0 || s.skip[k]
 // screen's channel order) and miss the missing flags.
 func (s *Screen) Step(x []float64, miss []bool) {
 	s.silent = len(x) > 0
+	s.frame++
 	for k, v := range x {
+		if p := &s.prof[k]; p.SpikeSize > 0 {
+			s.spk[k].step(v, !miss[k], s.frame, p.SpikeSize)
+		}
 		if miss[k] || v != v {
 			s.gap[k]++
 			continue // a flat run goes on over a gap: a frozen sensor may also drop out
@@ -202,6 +217,10 @@ func (s *Screen) MissingAlarm(k int) bool {
 //	              range by more than the range's width (see ChannelProfile);
 //	              a status taking a value its normal log never had is a
 //	              change of state, not a failed sensor
+//	spikes        a profiled channel with a spike rule (SpikeSize > 0)
+//	              that had more than SpikeMax + SpikeMargin one-frame
+//	              spikes in the last SpikeSpanFrames frames, and more than
+//	              a quarter of that in the last quarter of the span
 //
 // Channels without a profile add nothing here: the caller applies the
 // rules without a profile to them.
@@ -211,7 +230,13 @@ func (s *Screen) AppendQuality(dst []Quality) []Quality {
 	}
 	for k := range s.prof {
 		p := &s.prof[k]
-		if p.Frames == 0 || s.gap[k] > 0 || s.skip[k] {
+		if p.Frames == 0 || s.skip[k] {
+			continue
+		}
+		if p.SpikeSize > 0 && s.spk[k].inAlarm(s.frame, p.SpikeSpanFrames, p.SpikeMax) {
+			dst = append(dst, Quality{Channel: s.names[k], Kind: QualitySpikes})
+		}
+		if s.gap[k] > 0 {
 			continue
 		}
 		v := s.last[k]

@@ -14,7 +14,8 @@ const maxRestCandidates = 16
 
 // profiler learns the data-quality profile of a unit's channels from a
 // normal log (fit): per channel its flat runs, rest values, distinct
-// levels, quantisation step, range and missing runs (alerts.ChannelProfile).
+// levels, quantisation step, range, missing runs and spikes
+// (alerts.ChannelProfile).
 type profiler struct {
 	prof   []alerts.ChannelProfile
 	last   []float64
@@ -23,6 +24,8 @@ type profiler struct {
 	rest   [][]restRun // long runs: value and its longest run
 	levels [][]float64 // distinct values, up to alerts.MaxLevels+1
 	seen   []bool      // a value was observed
+	spikes []alerts.SpikeLearner
+	period time.Duration // frame period (the spike rule's span in frames)
 }
 
 type restRun struct {
@@ -40,6 +43,7 @@ func (pr *profiler) grow(names []string) {
 		pr.rest = append(pr.rest, nil)
 		pr.levels = append(pr.levels, nil)
 		pr.seen = append(pr.seen, false)
+		pr.spikes = append(pr.spikes, alerts.NewSpikeLearner(pr.period))
 	}
 }
 
@@ -48,6 +52,7 @@ func (pr *profiler) grow(names []string) {
 func (pr *profiler) add(x []float64, miss []bool) {
 	for k, v := range x {
 		p := &pr.prof[k]
+		pr.spikes[k].Add(v, !miss[k], p.Step)
 		if miss[k] || v != v {
 			p.Missing++
 			pr.gap[k]++
@@ -118,6 +123,7 @@ func (pr *profiler) profiles() []alerts.ChannelProfile {
 		if n := len(pr.levels[k]); n <= alerts.MaxLevels {
 			p.Levels = n
 		}
+		pr.spikes[k].Profile(&p)
 		out = append(out, p)
 	}
 	return out
@@ -139,7 +145,7 @@ func (u *Unit) screenFrame() {
 	u.screen.Step(u.x[:p], u.miss[:p])
 	if u.p.opt.Fit {
 		if u.learn == nil {
-			u.learn = &profiler{}
+			u.learn = &profiler{period: u.p.opt.Period}
 		}
 		if len(u.learn.prof) < len(u.names) {
 			u.learn.grow(u.names)
