@@ -5,12 +5,12 @@ import (
 	"time"
 )
 
-// DefaultOnSpan is the least plant time an on-delay window spans by
-// default (configs alerts.on_span): 50 s, the window of the default rule
+// DefaultOnSpan is the least plant time the default on-delay window spans
+// (configs alerts.on_span): 50 s, the window of the default rule
 // (DefaultOnCount of DefaultOnWindow frames) at 10 s frames. At shorter
 // frame periods a window of DefaultOnWindow frames lasts only seconds,
-// and a reading that flips for two or three frames (a quantised, nearly
-// constant channel stepping by one quantum) opens an alarm; the false-
+// and a few stray frames within it (a quantised, nearly constant channel
+// stepping by one quantum now and then) open an alarm; the false-
 // alert budget then raises every limit of the unit to keep such blips
 // out, blinding it to slow faults. Chosen on the realism suite (its only
 // plant below 10 s frames, at 5 s, detected its discharge drift with a
