@@ -132,3 +132,27 @@ func TestSpikeTrack(t *testing.T) {
 		}
 	}
 }
+
+// TestSpikeScreenAllocs: the spike rule adds no allocation per frame.
+func TestSpikeScreenAllocs(t *testing.T) {
+	prof := []ChannelProfile{{Channel: "u.a", Frames: 1000, MaxFlat: 5, Min: 0, Max: 100, SpikeSize: 1, SpikeMax: 2, SpikeSpanFrames: 720}}
+	s := NewScreen("u", []string{"u.a"}, prof)
+	x, miss := []float64{50}, []bool{false}
+	q := make([]Quality, 0, 4)
+	k := 0
+	allocs := testing.AllocsPerRun(2000, func() {
+		k++
+		x[0] = 50
+		if k%3 == 0 {
+			x[0] = 60 // a spike every third frame: the rule is in alarm
+		}
+		s.Step(x, miss)
+		q = s.AppendQuality(q[:0])
+	})
+	if allocs != 0 {
+		t.Errorf("%v allocations per frame", allocs)
+	}
+	if len(q) == 0 || q[0].Kind != QualitySpikes {
+		t.Errorf("conditions %v, want spikes", q)
+	}
+}
