@@ -424,6 +424,13 @@ type Alerts struct {
 	// engine's default (0.25, alerts.DefaultSpecificShare); a tiny one
 	// (1e-9) in effect every frame with a channel over its limit.
 	SpecificShare float64 `yaml:"specific_share"`
+	// AcceptWeight is the weight of an accepted incident's state in the
+	// unit's normal experience: the state joins the learned covariance
+	// beside the old normal, so the incident closes and a return to the
+	// old operating point raises nothing. Zero: the default (0.2,
+	// pipeline.DefaultAcceptWeight); negative: the means of the accepted
+	// channels move to their current level instead.
+	AcceptWeight float64 `yaml:"accept_weight"`
 }
 
 // OnDelay is the "N of the last M frames" rule.

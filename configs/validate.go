@@ -370,6 +370,9 @@ func (v *validator) alerts(p string, a Alerts, partial bool) {
 	if a.SpecificShare < 0 || a.SpecificShare > 1 {
 		v.add(p+".specific_share", "%g is not a share of the index in [0, 1]", a.SpecificShare)
 	}
+	if math.IsNaN(a.AcceptWeight) || math.IsInf(a.AcceptWeight, 0) || a.AcceptWeight > 10 {
+		v.add(p+".accept_weight", "must be a finite number, at most 10")
+	}
 	if a.Deadband < 0 || a.Deadband >= 1 {
 		v.add(p+".deadband", "%g is not a fraction of the limit in [0, 1)", a.Deadband)
 	}

@@ -92,9 +92,19 @@ func (u *Unit) learnMask() []bool {
 	}
 	if u.recentK < recentreFrames && len(u.recent) == len(u.x) {
 		u.recentK++
-		u.tr.Recentre(u.x, u.recent, u.recentK)
+		if w := u.acceptWeight(); w > 0 {
+			u.tr.Widen(u.x, u.recent, w/recentreFrames)
+		} else {
+			u.tr.Recentre(u.x, u.recent, u.recentK)
+		}
 		if u.recentK == recentreFrames {
 			clear(u.recent)
+			if u.acceptWeight() > 0 {
+				// The widened normal holds from the next frame on; a
+				// failed refresh keeps the previous model until the
+				// regular one.
+				_ = u.tr.Refresh()
+			}
 		}
 	}
 	return m
