@@ -48,8 +48,9 @@ type Masking interface {
 }
 
 // Accepting is implemented by a Learning whose model can take the current
-// level of some channels as their normal at once (the engine recentres
-// them). The engine calls Accept when an incident is accepted as the new
+// state of some channels as normal at once (the pipeline widens its
+// learned normal to hold it, or moves the channels' means). The engine
+// calls Accept when an incident is accepted as the new
 // normal, with its channels (sorted), under its lock, like Mask.
 type Accepting interface {
 	Accept(unit string, channels []string)
@@ -203,8 +204,8 @@ func (e *Engine) acceptUnit(c Command) Reply {
 	return Reply{OK: true, Unit: u.name, Message: "accepted as normal: " + strconv.Itoa(n) + " incident(s); their channels are learned again"}
 }
 
-// recentre tells an Accepting learner to take the current level of the
-// accepted incident's channels as their normal.
+// recentre tells an Accepting learner to take the current state of the
+// accepted incident's channels as normal.
 func (e *Engine) recentre(u *unit, inc *incident) {
 	if a, ok := e.learn.(Accepting); ok && e.masking(u) {
 		a.Accept(u.name, inc.loc.channels)

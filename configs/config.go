@@ -353,7 +353,7 @@ type Model struct {
 	// The unit's channels are then fixed at the first frame; context
 	// channels and operating states turn it off for the unit (a warning
 	// says so), empirical limits are not available, and an incident
-	// accepted as normal does not recentre its channels.
+	// accepted as normal does not widen or recentre its model.
 	Lags int `yaml:"lags"`
 }
 
