@@ -24,13 +24,10 @@ func mahalanobis(t *testing.T, c *mat.SymDense, d []float64) float64 {
 	return mat.Dot(mat.NewVecDense(len(d), d), &y)
 }
 
-// TestWidenShermanMorrison: Widen adds w·δδᵀ to the covariance and keeps
-// the means, so the state's Mahalanobis distance m becomes m/(1 + w·m)
-// (Sherman & Morrison 1950, the rank-one update of an inverse), checked
-// against a direct Cholesky solve (gonum); channels outside which, and
-// the variances of the covariance's diagonal, follow.
-func TestWidenShermanMorrison(t *testing.T) {
-	const p = 10
+// learnedStream returns a tracker of p channels that has learned 3000
+// frames of its seeded Gaussian source, and the source.
+func learnedStream(t *testing.T, p int) (*Tracker, *gaussSource) {
+	t.Helper()
 	tr, src := newStream(t, p, Config{Period: time.Second, HalfLife: time.Hour, Batch: 16, Modes: modes.Config{Count: 2}, FlatFrames: -1})
 	var sc Score
 	x := make([]float64, p)
@@ -39,6 +36,18 @@ func TestWidenShermanMorrison(t *testing.T) {
 			t.Fatal(err)
 		}
 	}
+	return tr, src
+}
+
+// TestWidenShermanMorrison: Widen adds w·δδᵀ to the covariance and keeps
+// the means, so the state's Mahalanobis distance m becomes m/(1 + w·m)
+// (Sherman & Morrison 1950, the rank-one update of an inverse), checked
+// against a direct Cholesky solve (gonum); channels outside which, and
+// the variances of the covariance's diagonal, follow.
+func TestWidenShermanMorrison(t *testing.T) {
+	const p = 10
+	tr, src := learnedStream(t, p)
+	x := make([]float64, p)
 	src.frame(x)
 	which := make([]bool, p)
 	d := make([]float64, p)
@@ -92,14 +101,9 @@ func TestWidenShermanMorrison(t *testing.T) {
 // and the old operating point both score within the limits.
 func TestWidenScores(t *testing.T) {
 	const p = 10
-	tr, src := newStream(t, p, Config{Period: time.Second, HalfLife: time.Hour, Batch: 16, Modes: modes.Config{Count: 2}, FlatFrames: -1})
+	tr, src := learnedStream(t, p)
 	var sc Score
 	x := make([]float64, p)
-	for k := 0; k < 3000; k++ {
-		if err := tr.Step(&sc, src.frame(x), nil); err != nil {
-			t.Fatal(err)
-		}
-	}
 	which := make([]bool, p)
 	which[3] = true
 	shift := 6 * math.Sqrt(tr.ew.Var(3))
