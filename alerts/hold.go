@@ -60,7 +60,7 @@ type Accepting interface {
 // flat before its channels are learned again as the new normal. It is
 // chosen on the realism suite and the demo together (see README,
 // Validation).
-const DefaultAcceptAfter = 2 * time.Hour
+const DefaultAcceptAfter = 4 * time.Hour
 
 // holdGrowth is the relative growth of an incident's peak ratio that
 // restarts its bounded hold (design choice: a quarter more than the peak

@@ -402,7 +402,7 @@ type Alerts struct {
 	// AcceptAfter is the bounded hold: an incident whose statistics stay
 	// flat (no growth) this long of plant time is taken as the new normal
 	// and its channels are learned again. Zero: the alarm engine's default
-	// (2h, chosen on the realism suite); a very long one (8760h) in effect
+	// (4h, chosen on the realism suite); a very long one (8760h) in effect
 	// never.
 	AcceptAfter time.Duration `yaml:"accept_after"`
 	// LocationQuiet: an incident whose location has had no channel over
