@@ -124,7 +124,7 @@ func newModel(p, maxR, slots int) *model {
 // newPattern returns a pattern with storage for up to k missing channels.
 func (m *model) newPattern(k int) *pattern {
 	return &pattern{
-		miss: make([]int, 0, k), h: make([]float64, k*m.p), kc: make([]float64, k*k),
+		miss: make([]int, 0, k), h: make([]float64, roundUp4(k)*m.p), kc: make([]float64, k*k),
 		fac: make([]float64, k*k), tmp: make([]float64, k),
 		minv: make([]float64, m.maxR*m.maxR),
 		dd:   make([]float64, m.p), rbcInv: make([]float64, m.p), rbcLim: make([]float64, m.p),
@@ -139,8 +139,8 @@ func (pt *pattern) setMiss(miss []int, p int) {
 		pt.miss = make([]int, 0, k)
 	}
 	pt.miss = append(pt.miss[:0], miss...)
-	if len(pt.h) < k*p {
-		pt.h = make([]float64, k*p)
+	if len(pt.h) < roundUp4(k)*p { // precisionRows pads to a multiple of 4 rows
+		pt.h = make([]float64, roundUp4(k)*p)
 	}
 	if len(pt.kc) < k*k {
 		pt.kc = make([]float64, k*k)

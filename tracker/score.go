@@ -288,57 +288,24 @@ func cholLower(a []float64, n, lda int) bool {
 // conditional fills the conditional-expectation operator H (|m| × p) and
 // the conditional covariance K (|m| × |m|) of the missing channels given the
 // observed ones, under the regularised model A + εI (Gaussian conditioning
-// via the precision matrix Ω = (A + εI)⁻¹):
+// via the precision matrix Ω = (A + εI)⁻¹; the reconstruction of Dunia &
+// Qin 1998 along the missing channels' directions):
 //
 //	K = (Ω_mm)⁻¹ − εI,   ẑ_m = −(Ω_mm)⁻¹ Ω_mo z_o = H z  (z_m = 0)
 //
 // The rows Ω_{m,:} come from the factor of factorRidge by two triangular
-// solves per missing channel (Ωeᵢ = U⁻¹U⁻ᵀeᵢ, O(p²) each), so Ω is never
-// formed; Ω_mm is factored by cholLower. Cost O(|m|p² + |m|²p + |m|³); all
-// storage is the pattern's (preallocated, see newPattern).
+// solves with |m| right-hand sides (precisionRows), so Ω is never formed;
+// Ω_mm is factored by cholLower, Ω_mm = LLᵀ, and H = −L⁻ᵀL⁻¹Ω_{m,:} is
+// solved in place row by row (each row of H a combination of whole rows
+// of p values). The per-frame cost of the reconstruction is then the
+// product H z, |m|·p multiply-adds (impute). Cost per pattern and refresh
+// O(|m|p² + |m|²p + |m|³); all storage is the pattern's (preallocated, see
+// newPattern).
 func (m *model) conditional(pt *pattern, ridge float64) error {
 	k, p := len(pt.miss), m.p
-	u := m.chol
 	h := pt.h[:k*p]
-	// Rows of Ω = U⁻¹U⁻ᵀ for the missing channels, into h. The solves of
-	// all missing channels go row by row of U together (each row read once
-	// for all of them while it is in cache); each channel's arithmetic is
-	// that of its own solve.
-	for x, i := range pt.miss {
-		y := h[x*p : (x+1)*p]
-		for j := range y {
-			y[j] = 0
-		}
-		y[i] = 1
-	}
-	// Forward: Uᵀ y = eᵢ (y is zero before i), by rows of U.
-	for r := slices.Min(pt.miss); r < p; r++ {
-		row := u[r*p+r+1 : r*p+p]
-		for x, i := range pt.miss {
-			if i > r {
-				continue // y is still zero up to i
-			}
-			y := h[x*p : (x+1)*p]
-			v := y[r] / u[r*p+r]
-			y[r] = v
-			if v != 0 {
-				yy := y[r+1 : p]
-				yy = yy[:len(row)]
-				for c, uv := range row {
-					yy[c] -= uv * v
-				}
-			}
-		}
-	}
-	// Backward: U w = y, in place.
-	for r := p - 1; r >= 0; r-- {
-		row := u[r*p+r+1 : r*p+p]
-		for x := range pt.miss {
-			y := h[x*p : (x+1)*p]
-			y[r] = (y[r] - dot(row, y[r+1:p])) / u[r*p+r]
-		}
-	}
-	// Ω_mm into kc and its Cholesky factor (lower) into the pattern's fac.
+	m.precisionRows(pt.h, pt.miss)
+	// Ω_mm into the pattern's fac and its Cholesky factor (lower) there.
 	fac := pt.fac[:k*k]
 	for x := 0; x < k; x++ {
 		for y, iy := range pt.miss {
@@ -348,10 +315,48 @@ func (m *model) conditional(pt *pattern, ridge float64) error {
 	if !cholLower(fac, k, k) {
 		return fmt.Errorf("tracker: missing-data model: precision block not positive definite")
 	}
-	// H = −(Ω_mm)⁻¹ Ω_{m,:} column by column (solve with the factor), zero
-	// on the missing columns; K̃ = (Ω_mm)⁻¹ likewise from the unit columns.
+	// H = −(Ω_mm)⁻¹ Ω_{m,:}: L Z = Ω_{m,:}, then Lᵀ X = Z, by rows in place;
+	// zero on the missing columns.
+	for x := 0; x < k; x++ {
+		hx := h[x*p : (x+1)*p]
+		for y := 0; y < x; y++ {
+			if l := fac[x*k+y]; l != 0 {
+				axpyTo(hx, -l, h[y*p:(y+1)*p])
+			}
+		}
+		d := fac[x*k+x]
+		for j := range hx {
+			hx[j] /= d
+		}
+	}
+	for x := k - 1; x >= 0; x-- {
+		hx := h[x*p : (x+1)*p]
+		for y := x + 1; y < k; y++ {
+			if l := fac[y*k+x]; l != 0 {
+				axpyTo(hx, -l, h[y*p:(y+1)*p])
+			}
+		}
+		d := fac[x*k+x]
+		for j := range hx {
+			hx[j] /= d
+		}
+	}
+	for j := range h {
+		h[j] = -h[j]
+	}
+	for _, i := range pt.miss {
+		for x := 0; x < k; x++ {
+			h[x*p+i] = 0
+		}
+	}
+	// K̃ = (Ω_mm)⁻¹ from the unit columns, then K = K̃ − εI.
 	v := pt.tmp[:k]
-	solve := func() {
+	kc := pt.kc[:k*k]
+	for y := 0; y < k; y++ {
+		for x := range v {
+			v[x] = 0
+		}
+		v[y] = 1
 		for x := 0; x < k; x++ { // L u = v
 			v[x] = (v[x] - dot(fac[x*k:x*k+x], v[:x])) / fac[x*k+x]
 		}
@@ -362,28 +367,6 @@ func (m *model) conditional(pt *pattern, ridge float64) error {
 				v[y] -= fac[x*k+y] * w
 			}
 		}
-	}
-	for j := 0; j < p; j++ {
-		for x := 0; x < k; x++ {
-			v[x] = h[x*p+j]
-		}
-		solve()
-		for x := 0; x < k; x++ {
-			h[x*p+j] = -v[x]
-		}
-	}
-	for _, i := range pt.miss {
-		for x := 0; x < k; x++ {
-			h[x*p+i] = 0
-		}
-	}
-	kc := pt.kc[:k*k]
-	for y := 0; y < k; y++ {
-		for x := range v {
-			v[x] = 0
-		}
-		v[y] = 1
-		solve()
 		for x := 0; x < k; x++ {
 			kc[x*k+y] = v[x]
 		}
@@ -392,4 +375,12 @@ func (m *model) conditional(pt *pattern, ridge float64) error {
 		kc[x*k+x] = math.Max(kc[x*k+x]-ridge, 0)
 	}
 	return nil
+}
+
+// axpyTo adds a·x to dst (len(x) ≥ len(dst)).
+func axpyTo(dst []float64, a float64, x []float64) {
+	x = x[:len(dst)]
+	for j, v := range x {
+		dst[j] += a * v
+	}
 }

@@ -94,3 +94,20 @@ func trailingUpdate(a []float64, lda, n, k0, k1 int) bool {
 	}
 	return true
 }
+
+// gerKernel subtracts Σ_l p[l][x]·q[l][y] from c[x][y] for the four rows
+// x = 0…3 of c (stride ldc) and the first ncol &^ 7 columns y, over k ≥ 1
+// rows of p and q (both at stride ldp), with gerUpdAVX2, and returns the
+// number of columns done (0 without AVX2/FMA).
+func gerKernel(p, q []float64, ldp, k int, c []float64, ldc, ncol int) int {
+	n8 := ncol &^ 7
+	if !hasAVX2FMA || k < 1 || n8 == 0 {
+		return 0
+	}
+	// Bounds the assembly relies on.
+	_ = p[(k-1)*ldp+3]
+	_ = q[(k-1)*ldp+n8-1]
+	_ = c[3*ldc+n8-1]
+	gerUpdAVX2(&p[0], &q[0], ldp, k, &c[0], ldc, n8)
+	return n8
+}

@@ -9,3 +9,5 @@ func rowKernel(a []float64, lda, k int, b []float64, ncol int, c []float64, ldc 
 }
 
 func trailingUpdate(a []float64, lda, n, k0, k1 int) bool { return false }
+
+func gerKernel(p, q []float64, ldp, k int, c []float64, ldc, ncol int) int { return 0 }
