@@ -59,13 +59,14 @@ func (t *Tracker) StepMasked(dst *Score, x []float64, missing, mask []bool) erro
 		return nil
 	}
 	r := ratio(dst.Phi, dst.PhiLimit)
+	scored := t.lag == nil // t.w holds this frame standardized (score)
 	if t.lag != nil {
 		var ok bool
 		if x, mask, r, ok = t.lag.swap(t, x, mask, r); !ok {
 			return nil // the ring is filling: nothing to learn yet
 		}
 	}
-	xl, wt, err := t.learnFrame(r, x, mask)
+	xl, wt, err := t.learnFrame(r, x, mask, scored)
 	if err != nil {
 		return err
 	}
@@ -76,8 +77,15 @@ func (t *Tracker) StepMasked(dst *Score, x []float64, missing, mask []bool) erro
 // learnFrame returns the frame to learn (x itself, or a copy with the
 // masked channels reconstructed) and its weight; r is the frame's φ over
 // its limit (the distance when no channel is masked). t.obs and t.stuck
-// hold the frame's flags.
-func (t *Tracker) learnFrame(r float64, x []float64, mask []bool) ([]float64, float64, error) {
+// hold the frame's flags; scored reports that t.w holds x standardized by
+// score, whose values are then reused (maskScored).
+//
+// Per frame with k channels masked this costs, beyond Step, the product
+// ẑ_m = H z (k·p multiply-adds), a second scoring under the masked
+// pattern (its φ and limit, O(p + nnz·r)) and the conditional-covariance
+// term; the pattern's H and K come from the cache (lookupPattern), built
+// once per refresh and masked set.
+func (t *Tracker) learnFrame(r float64, x []float64, mask []bool, scored bool) ([]float64, float64, error) {
 	if !t.ready {
 		return x, 1, nil
 	}
@@ -92,7 +100,11 @@ func (t *Tracker) learnFrame(r float64, x []float64, mask []bool) ([]float64, fl
 	if any {
 		lw := t.lw
 		w := lw.w
-		t.standardize(w, x, mask)
+		if scored {
+			t.maskScored(w, t.w, mask)
+		} else {
+			t.standardize(w, x, mask)
+		}
 		pt, err := t.mdl.lookupPattern(w.miss, &t.ls, t.cfg.Ridge, t.cfg.PatternCache)
 		if err != nil {
 			return nil, 0, ErrModel
@@ -116,6 +128,27 @@ func (t *Tracker) learnFrame(r float64, x []float64, mask []bool) ([]float64, fl
 		return xl, wt, nil
 	}
 	return xl, huberWeight(r, t.cfg.Robust), nil
+}
+
+// maskScored fills w as standardize(w, x, mask) would, from src, which
+// holds the same frame standardized without a mask (score; the values of
+// its missing channels imputed): the standardized values are copied, not
+// recomputed, so they are the same numbers.
+func (t *Tracker) maskScored(w, src *work, mask []bool) {
+	m := t.mdl
+	w.miss = w.miss[:0]
+	z, sz := w.z[:t.p], src.z[:t.p]
+	for i := range z {
+		switch {
+		case !m.include[i]:
+			z[i] = 0
+		case !t.obs[i] || t.stuck[i] || !(t.ew.Var(i) > 0) || (mask != nil && mask[i]):
+			z[i] = 0
+			w.miss = append(w.miss, i)
+		default:
+			z[i] = sz[i]
+		}
+	}
 }
 
 // addConditional adds to the EW variances and covariances of the masked

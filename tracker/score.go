@@ -5,6 +5,7 @@ import (
 	"math"
 	"slices"
 
+	"gonum.org/v1/gonum/blas"
 	"gonum.org/v1/gonum/blas/blas64"
 )
 
@@ -28,17 +29,16 @@ func newWork(p, maxR int) *work {
 }
 
 // impute replaces the missing entries of z (which must be zero on entry) by
-// their conditional expectation given the observed ones, ẑ_m = H z.
+// their conditional expectation given the observed ones, ẑ_m = H z: one
+// matrix–vector product, |m|·p multiply-adds (gonum's blas64.Gemv, which
+// allocates nothing).
 func (m *model) impute(z []float64, pt *pattern, tmp []float64) {
-	p := m.p
-	for x := range pt.miss {
-		h := pt.h[x*p : (x+1)*p]
-		s := 0.0
-		for j, v := range h {
-			s += v * z[j]
-		}
-		tmp[x] = s
+	p, k := m.p, len(pt.miss)
+	if k == 0 {
+		return
 	}
+	blas64.Gemv(blas.NoTrans, 1, blas64.General{Rows: k, Cols: p, Stride: p, Data: pt.h[:k*p]},
+		blas64.Vector{N: p, Inc: 1, Data: z[:p]}, 0, blas64.Vector{N: k, Inc: 1, Data: tmp[:k]})
 	for x, i := range pt.miss {
 		z[i] = tmp[x]
 	}

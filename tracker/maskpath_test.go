@@ -1,0 +1,58 @@
+package tracker
+
+import (
+	"testing"
+	"time"
+
+	"modewatch/tracker/modes"
+)
+
+// maskScored (the learning pass reusing the scoring pass's standardized
+// frame) gives exactly what standardize gives for the same frame and mask:
+// the same values and the same missing list, with a channel missing, a
+// flat-lined (stuck) one and masked ones among them.
+func TestMaskScoredEqualsStandardize(t *testing.T) {
+	const p = 30
+	tr, src := newStream(t, p, Config{Period: time.Second, HalfLife: time.Hour, WarmUp: 80, RefreshEvery: 8, Batch: 4,
+		FlatFrames: 5, Modes: modes.Config{Count: 4, Sparsity: []modes.Sparsity{{Method: modes.L0, K: 6}}}})
+	var sc Score
+	xs := src.frames(64, p)
+	for k := 0; k < 200; k++ {
+		if err := tr.Step(&sc, xs[k%64], nil); err != nil {
+			t.Fatal(err)
+		}
+	}
+	miss := make([]bool, p)
+	miss[4] = true
+	mask := make([]bool, p)
+	mask[2], mask[9], mask[17] = true, true, true
+	for k := 0; k < 12; k++ {
+		x := append([]float64(nil), xs[k]...)
+		x[11] = 3.25 // flat from the 5th frame on: stuck
+		if err := tr.Evaluate(&sc, x, miss); err != nil {
+			t.Fatal(err)
+		}
+		w1, w2 := newWork(p, tr.mdl.maxR), newWork(p, tr.mdl.maxR)
+		tr.standardize(w1, x, mask)
+		tr.maskScored(w2, tr.w, mask)
+		if len(w1.miss) != len(w2.miss) {
+			t.Fatalf("frame %d: missing %v, reused %v", k, w1.miss, w2.miss)
+		}
+		for j := range w1.miss {
+			if w1.miss[j] != w2.miss[j] {
+				t.Fatalf("frame %d: missing %v, reused %v", k, w1.miss, w2.miss)
+			}
+		}
+		for i := range w1.z {
+			if w1.z[i] != w2.z[i] {
+				t.Fatalf("frame %d, channel %d: z %v, reused %v", k, i, w1.z[i], w2.z[i])
+			}
+		}
+		if err := tr.Step(&sc, x, miss); err != nil { // advance the flat-line counter
+			t.Fatal(err)
+		}
+	}
+	if !tr.stuck[11] {
+		t.Error("channel 11 never counted as stuck: the test does not cover it")
+	}
+}
