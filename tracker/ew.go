@@ -147,8 +147,32 @@ func (e *EW) step(k float64) float64 {
 // folded into the covariance, for channel i: the factor Flush scales row
 // and column i of C by (Dᵢ in the comment of EW).
 func (e *EW) pendingDecay(i int) float64 {
-	d := 1.0
-	for k := 0; k < e.nb; k++ {
+	d, f := e.pendingDecayHead()
+	return e.pendingDecayFrom(i, d, f)
+}
+
+// pendingDecayHead returns the part of pendingDecay shared by every
+// channel: the product d over the leading frames of the batch whose step
+// was one for all channels, and the index f of the first frame whose steps
+// differ by channel (e.nb if none). pendingDecayFrom(i, d, f) completes it
+// for channel i with the same products in the same order, so a caller that
+// needs many channels' decays takes the shared part once.
+func (e *EW) pendingDecayHead() (d float64, f int) {
+	d = 1.0
+	for f = 0; f < e.nb; f++ {
+		a := e.alphas[f]
+		if math.IsNaN(a) {
+			break
+		}
+		d *= math.Sqrt(1 - a)
+	}
+	return d, f
+}
+
+// pendingDecayFrom completes pendingDecayHead's product d, whose first
+// per-channel frame is f, for channel i.
+func (e *EW) pendingDecayFrom(i int, d float64, f int) float64 {
+	for k := f; k < e.nb; k++ {
 		a := e.alphas[k]
 		if math.IsNaN(a) {
 			a = e.al[i*e.ldb+k]

@@ -165,15 +165,18 @@ func (t *Tracker) maskScored(w, src *work, mask []bool) {
 // stores it) restores the same numbers.
 //
 // Each masked channel's pending decay (a product over the batch) is taken
-// once per frame, so the term costs O(k·B + k²) for k masked channels and
-// B pending frames, not O(k²·B).
+// once per frame, and its part shared by all channels (the frames with one
+// step for every channel, EW.pendingDecayHead) once for all of them, so
+// the term costs O(B + k²) for k masked channels and B pending frames
+// when every frame had one step (O(k·B + k²) at most).
 func (t *Tracker) addConditional(pt *pattern, mask []bool, wt float64) {
 	e := t.ew
 	k, n := len(pt.miss), e.p
 	dec := t.lw.dec[:k]
+	d0, f := e.pendingDecayHead()
 	for x, i := range pt.miss {
 		if mask[i] && t.obs[i] {
-			dec[x] = e.pendingDecay(i)
+			dec[x] = e.pendingDecayFrom(i, d0, f)
 		}
 	}
 	for x, i := range pt.miss {
