@@ -12,10 +12,11 @@ type learnWork struct {
 	w   *work
 	xl  []float64 // the frame as learned: masked channels reconstructed
 	dec []float64 // addConditional: the pending decay of each channel of the pattern
+	sd  []float64 // addConditional: the EW standard deviation of each channel of the pattern
 }
 
 func newLearnWork(p, maxR int) *learnWork {
-	return &learnWork{w: newWork(p, maxR), xl: make([]float64, p), dec: make([]float64, p)}
+	return &learnWork{w: newWork(p, maxR), xl: make([]float64, p), dec: make([]float64, p), sd: make([]float64, p)}
 }
 
 // StepMasked is Step with learning around faults. It scores x like Step;
@@ -172,11 +173,12 @@ func (t *Tracker) maskScored(w, src *work, mask []bool) {
 func (t *Tracker) addConditional(pt *pattern, mask []bool, wt float64) {
 	e := t.ew
 	k, n := len(pt.miss), e.p
-	dec := t.lw.dec[:k]
+	dec, sd := t.lw.dec[:k], t.lw.sd[:k]
 	d0, f := e.pendingDecayHead()
 	for x, i := range pt.miss {
 		if mask[i] && t.obs[i] {
 			dec[x] = e.pendingDecayFrom(i, d0, f)
+			sd[x] = math.Sqrt(e.vari[i]) // before this frame's terms (as σ_m, σ_n above)
 		}
 	}
 	for x, i := range pt.miss {
@@ -184,13 +186,14 @@ func (t *Tracker) addConditional(pt *pattern, mask []bool, wt float64) {
 			continue
 		}
 		a := e.wstep(e.count[i]+1, wt)
-		si := math.Sqrt(e.vari[i])
+		si := sd[x]
 		di := dec[x]
-		for y, j := range pt.miss {
-			if !mask[j] || !t.obs[j] || j < i {
+		for y := x; y < k; y++ { // pt.miss is sorted: the pairs j ≥ i
+			j := pt.miss[y]
+			if !mask[j] || !t.obs[j] {
 				continue
 			}
-			c := a * pt.kc[x*k+y] * si * math.Sqrt(e.vari[j])
+			c := a * pt.kc[x*k+y] * si * sd[y]
 			e.cov.Data[i*n+j] += c / (di * dec[y])
 			if i == j {
 				e.vari[i] += c

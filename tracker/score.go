@@ -377,10 +377,8 @@ func (m *model) conditional(pt *pattern, ridge float64) error {
 	return nil
 }
 
-// axpyTo adds a·x to dst (len(x) ≥ len(dst)).
+// axpyTo adds a·x to dst (len(x) ≥ len(dst)) with gonum's blas64.Axpy.
 func axpyTo(dst []float64, a float64, x []float64) {
-	x = x[:len(dst)]
-	for j, v := range x {
-		dst[j] += a * v
-	}
+	n := len(dst)
+	blas64.Axpy(a, blas64.Vector{N: n, Inc: 1, Data: x[:n]}, blas64.Vector{N: n, Inc: 1, Data: dst})
 }
