@@ -1,6 +1,7 @@
 package tracker
 
 import (
+	"runtime"
 	"testing"
 	"time"
 
@@ -54,5 +55,60 @@ func TestMaskScoredEqualsStandardize(t *testing.T) {
 	}
 	if !tr.stuck[11] {
 		t.Error("channel 11 never counted as stuck: the test does not cover it")
+	}
+}
+
+// Zero allocations per masked frame with a wide mask (24 of 60 channels,
+// more than a pattern slot holds before it grows): after the first masked
+// frame, which grows the slot once, 200 frames with a refresh every 8
+// (each rebuilding the factor, the precision rows, H and K) allocate
+// nothing (runtime.MemStats, since testing.AllocsPerRun would round an
+// allocation every few frames down to 0).
+func TestStepMaskedWideAllocs(t *testing.T) {
+	const p = 60
+	tr, src := newStream(t, p, Config{Period: time.Second, HalfLife: time.Hour, WarmUp: 80, RefreshEvery: 8, Batch: 4,
+		Modes: modes.Config{Count: 4, Sparsity: []modes.Sparsity{{Method: modes.L0, K: 6}}}})
+	var sc Score
+	xs := src.frames(64, p)
+	for k := 0; k < 200; k++ {
+		tr.Step(&sc, xs[k%64], nil)
+	}
+	mask := make([]bool, p)
+	for i := 1; i < p; i += 5 {
+		mask[i] = true
+	}
+	mask[2], mask[3], mask[58], mask[59] = true, true, true, true // 16 so far
+	for i := 4; i < 40; i += 5 {
+		mask[i] = true
+	}
+	n := 0
+	for _, m := range mask {
+		if m {
+			n++
+		}
+	}
+	if n != 24 {
+		t.Fatalf("%d masked channels, want 24", n)
+	}
+	sc.Missing = make([]int, 0, p)
+	sc.Excluded = make([]int, 0, p)
+	sc.Warming = make([]int, 0, p)
+	if err := tr.StepMasked(&sc, xs[0], nil, mask); err != nil {
+		t.Fatal(err)
+	}
+	defer runtime.GOMAXPROCS(runtime.GOMAXPROCS(1))
+	var ms0, ms1 runtime.MemStats
+	runtime.ReadMemStats(&ms0)
+	for k := 0; k < 200; k++ {
+		if err := tr.StepMasked(&sc, xs[k%64], nil, mask); err != nil {
+			t.Fatal(err)
+		}
+	}
+	runtime.ReadMemStats(&ms1)
+	if d := ms1.Mallocs - ms0.Mallocs; d != 0 {
+		t.Errorf("200 frames with 24 channels masked (25 refreshes) made %d allocations", d)
+	}
+	if sc.LearnWeight == 0 {
+		t.Error("the masked frames were not learned")
 	}
 }
