@@ -319,7 +319,9 @@ func benchOverDecode(b *testing.B, missing, masked int) {
 // BenchmarkMissingPattern measures, at p = 500 with r = 5, the work a new
 // missing pattern costs: the factor of A + εI (once per refresh, at the
 // first incomplete frame) and a new 3-channel pattern (precision rows, H,
-// K, reduced limits), both into preallocated storage.
+// K, reduced limits), both into preallocated storage; pattern24 is the
+// 24-channel pattern of BenchmarkFrameMaskedWideOverDecode (every 20th
+// channel), as built once per refresh while two incidents are open.
 func BenchmarkMissingPattern(b *testing.B) {
 	const p = 500
 	tr, _ := newBenchTracker(b, new(Score), p, 1<<30, 0, 300)
@@ -342,6 +344,19 @@ func BenchmarkMissingPattern(b *testing.B) {
 			miss := []int{i % p, (i + 17) % p, (i + 301) % p}
 			slices.Sort(miss)
 			if _, err := m.lookupPattern(miss, &tr.ls, tr.cfg.Ridge, tr.cfg.PatternCache); err != nil {
+				b.Fatal(err)
+			}
+		}
+	})
+	wide := make([]int, 24)
+	for x := range wide {
+		wide[x] = 20 * x
+	}
+	b.Run("pattern24", func(b *testing.B) {
+		b.ReportAllocs()
+		for i := 0; i < b.N; i++ {
+			m.nCache = 0 // force a new pattern
+			if _, err := m.lookupPattern(wide, &tr.ls, tr.cfg.Ridge, tr.cfg.PatternCache); err != nil {
 				b.Fatal(err)
 			}
 		}
