@@ -52,10 +52,17 @@ var benchSink float64
 // covariance batches of batch frames (0: the default) — stepped through
 // warm frames of benchFrames(p, 256) into sc, and those frames.
 func newBenchTracker(b *testing.B, sc *Score, p, refreshEvery, batch, warm int) (*Tracker, [][]float64) {
+	return newBenchTrackerResidual(b, sc, p, refreshEvery, batch, warm, false)
+}
+
+// newBenchTrackerResidual is newBenchTracker with the residual Mahalanobis
+// statistic (Config.Residual) on or off.
+func newBenchTrackerResidual(b *testing.B, sc *Score, p, refreshEvery, batch, warm int, residual bool) (*Tracker, [][]float64) {
 	b.Helper()
 	frames := benchFrames(p, 256)
 	tr, err := New(p, Config{Period: time.Second, HalfLife: time.Hour, WarmUp: 256, RefreshEvery: refreshEvery, Batch: batch,
-		Modes: modes.Config{Count: 5, Sparsity: []modes.Sparsity{{Method: modes.L0, K: 10}}}})
+		Residual: residual,
+		Modes:    modes.Config{Count: 5, Sparsity: []modes.Sparsity{{Method: modes.L0, K: 10}}}})
 	if err != nil {
 		b.Fatal(err)
 	}
@@ -248,14 +255,30 @@ func BenchmarkFrameMaskedOverDecode(b *testing.B) { benchOverDecode(b, -1, 3) }
 // plants.
 func BenchmarkFrameMaskedWideOverDecode(b *testing.B) { benchOverDecode(b, -1, 24) }
 
+// BenchmarkFrameResidualOverDecode is BenchmarkFrameOverDecode with the
+// residual Mahalanobis statistic on (Config.Residual; the service's
+// default statistics include it): per refresh the factor of A + ε_R·I and
+// its inverse, per frame Ωz.
+func BenchmarkFrameResidualOverDecode(b *testing.B) { benchOverDecodeResidual(b, -1, 0, true) }
+
+// BenchmarkFrameResidualMaskedOverDecode is BenchmarkFrameMaskedOverDecode
+// with the residual Mahalanobis statistic on.
+func BenchmarkFrameResidualMaskedOverDecode(b *testing.B) { benchOverDecodeResidual(b, -1, 3, true) }
+
 // benchOverDecode runs the interleaved benchmark with channel missing
 // missing (-1: none) and masked channels learned as their reconstruction
 // (0: none; 3: channels 3, 7, 11; more: every 20th channel).
 func benchOverDecode(b *testing.B, missing, masked int) {
+	benchOverDecodeResidual(b, missing, masked, false)
+}
+
+// benchOverDecodeResidual is benchOverDecode with the residual statistic
+// on or off.
+func benchOverDecodeResidual(b *testing.B, missing, masked int, residual bool) {
 	const p = 500
 	buf := lineFrame(p)
 	var sc Score
-	tr, frames := newBenchTracker(b, &sc, p, 64, 64, 512)
+	tr, frames := newBenchTrackerResidual(b, &sc, p, 64, 64, 512, residual)
 	var miss []bool
 	if missing >= 0 {
 		miss = make([]bool, p)
