@@ -27,73 +27,8 @@ func (m *model) precisionRows(h []float64, miss []int) {
 	kp := roundUp4(k)
 	u := m.chol
 	h = h[:kp*p]
-	for x := 0; x < kp; x++ {
-		y := h[x*p : (x+1)*p]
-		for j := range y {
-			y[j] = 0
-		}
-		if x < k {
-			y[miss[x]] = 1
-		}
-	}
+	forwardUnit(h, kp, u, p, miss, m.panel)
 	const bs = cholBlock
-	pbuf := m.panel[:bs*p] // the panel of y values, rows at stride p (the kernel's)
-	// Forward: Uᵀ y = e, from the first missing channel on (y is zero
-	// before its own channel).
-	for b0 := miss[0]; b0 < p; b0 += bs {
-		b1 := min(b0+bs, p)
-		for g := 0; g < k; g += 4 {
-			if miss[g] >= b1 {
-				break // this group and the later ones are still zero here
-			}
-			ge := min(g+4, k)
-			for r := b0; r < b1; r++ {
-				d := u[r*p+r]
-				row := u[r*p+r+1 : r*p+b1]
-				for x := g; x < ge; x++ {
-					y := h[x*p : (x+1)*p]
-					v := y[r] / d
-					y[r] = v
-					if v == 0 {
-						continue
-					}
-					yy := y[r+1 : b1]
-					yy = yy[:len(row)]
-					for c, uv := range row {
-						yy[c] -= uv * v
-					}
-				}
-			}
-			if b1 == p {
-				continue
-			}
-			done := 0
-			if hasAVX2FMA && p-b1 >= 8 {
-				for l := 0; l < b1-b0; l++ {
-					pr := pbuf[l*p : l*p+4]
-					for j := range pr {
-						pr[j] = h[(g+j)*p+b0+l] // padding rows are zero
-					}
-				}
-				done = gerKernel(pbuf, u[b0*p+b1:], p, b1-b0, h[g*p+b1:], p, p-b1)
-			}
-			for x := g; x < ge; x++ {
-				y := h[x*p : (x+1)*p]
-				yy := y[b1+done : p]
-				for l := b0; l < b1; l++ {
-					v := y[l]
-					if v == 0 {
-						continue
-					}
-					row := u[l*p+b1+done : l*p+p]
-					row = row[:len(yy)]
-					for c, uv := range row {
-						yy[c] -= uv * v
-					}
-				}
-			}
-		}
-	}
 	// Backward: U w = y in place, by panels from the bottom (their starts
 	// b1 = p − j·cholBlock, so the kernel's length p − b1 is a multiple of 4).
 	var s [4 * bs]float64
@@ -121,6 +56,95 @@ func (m *model) precisionRows(h []float64, miss []int) {
 				for x := g; x < ge; x++ {
 					y := h[x*p : (x+1)*p]
 					y[r] = (y[r] - s[(x-g)*bs+r-b0] - dot(row, y[r+1:b1])) / d
+				}
+			}
+		}
+	}
+}
+
+// forwardUnit sets the first rows rows of h (stride p) to zero and then
+// row x < k to the solution y of Uᵀy = e_c, c = miss[x] (miss nil: c = x,
+// k = rows), which is row c of U⁻¹ (zero before c): forward substitution
+// with the upper factor U (row-major p × p) for all the right-hand sides
+// together, by panels of cholBlock rows (see precisionRows), the panel
+// update four rows of h at a time by gerUpdAVX2 where the CPU has it and
+// h holds the four rows (rows k…rows−1 are zero and stay zero). miss must
+// be sorted. pbuf holds cholBlock·p values (the factorization's panel
+// scratch). Cost Σₓ (p − cₓ)²/2 multiply-adds; no allocation.
+func forwardUnit(h []float64, rows int, u []float64, p int, miss []int, pbuf []float64) {
+	k := rows
+	if miss != nil {
+		k = len(miss)
+	}
+	col := func(x int) int {
+		if miss == nil {
+			return x
+		}
+		return miss[x]
+	}
+	h = h[:rows*p]
+	for j := range h {
+		h[j] = 0
+	}
+	if k == 0 {
+		return
+	}
+	for x := 0; x < k; x++ {
+		h[x*p+col(x)] = 1
+	}
+	const bs = cholBlock
+	pbuf = pbuf[:bs*p] // the panel of y values, rows at stride p (the kernel's)
+	// y is zero before its own channel: start at the first one.
+	for b0 := col(0); b0 < p; b0 += bs {
+		b1 := min(b0+bs, p)
+		for g := 0; g < k; g += 4 {
+			if col(g) >= b1 {
+				break // this group and the later ones are still zero here
+			}
+			ge := min(g+4, k)
+			for r := b0; r < b1; r++ {
+				d := u[r*p+r]
+				row := u[r*p+r+1 : r*p+b1]
+				for x := g; x < ge; x++ {
+					y := h[x*p : (x+1)*p]
+					v := y[r] / d
+					y[r] = v
+					if v == 0 {
+						continue
+					}
+					yy := y[r+1 : b1]
+					yy = yy[:len(row)]
+					for c, uv := range row {
+						yy[c] -= uv * v
+					}
+				}
+			}
+			if b1 == p {
+				continue
+			}
+			done := 0
+			if hasAVX2FMA && p-b1 >= 8 && g+4 <= rows {
+				for l := 0; l < b1-b0; l++ {
+					pr := pbuf[l*p : l*p+4]
+					for j := range pr {
+						pr[j] = h[(g+j)*p+b0+l] // rows past k are zero
+					}
+				}
+				done = gerKernel(pbuf, u[b0*p+b1:], p, b1-b0, h[g*p+b1:], p, p-b1)
+			}
+			for x := g; x < ge; x++ {
+				y := h[x*p : (x+1)*p]
+				yy := y[b1+done : p]
+				for l := b0; l < b1; l++ {
+					v := y[l]
+					if v == 0 {
+						continue
+					}
+					row := u[l*p+b1+done : l*p+p]
+					row = row[:len(yy)]
+					for c, uv := range row {
+						yy[c] -= uv * v
+					}
 				}
 			}
 		}

@@ -115,3 +115,108 @@ func TestPrecisionRowsBlocked(t *testing.T) {
 		}
 	}
 }
+
+// factorInverse (the residual statistic's and the relation modes' factor
+// and inverse; the inverse by forwardUnit) against gonum: U⁻¹ times the
+// factor is the identity, and U⁻¹U⁻ᵀ equals gonum's Cholesky inverse of
+// A + εI, at sizes that cross the panel width and leave a partial group of
+// four rows (p = 9, 66, 203).
+func TestFactorInverseAgainstGonum(t *testing.T) {
+	const ridge = 1e-4
+	for _, p := range []int{9, 66, 203} {
+		rng := rand.New(rand.NewPCG(uint64(p), 43))
+		s := randomCov(rng, p, 5)
+		u := make([]float64, p*p)
+		inv := make([]float64, p*p)
+		for i := range inv {
+			inv[i] = math.NaN() // every value must be written
+		}
+		if !factorInverse(u, inv, make([]float64, p*cholBlock), s.RawSymmetric(), p, ridge) {
+			t.Fatalf("p=%d: not positive definite", p)
+		}
+		for i := 0; i < p; i++ {
+			for j := 0; j < p; j++ {
+				v := 0.0 // (U⁻¹U)ᵢⱼ over the upper triangles
+				for k := i; k <= j; k++ {
+					v += inv[i*p+k] * u[k*p+j]
+				}
+				want := 0.0
+				if i == j {
+					want = 1
+				}
+				if j < i && inv[i*p+j] != 0 {
+					t.Fatalf("p=%d: U⁻¹[%d,%d] = %v below the diagonal", p, i, j, inv[i*p+j])
+				}
+				if j >= i && !(math.Abs(v-want) <= 1e-10) {
+					t.Fatalf("p=%d: (U⁻¹U)[%d,%d] = %v", p, i, j, v)
+				}
+			}
+		}
+		se := mat.NewSymDense(p, nil)
+		se.CopySym(s)
+		for i := 0; i < p; i++ {
+			se.SetSym(i, i, se.At(i, i)+ridge)
+		}
+		var ch mat.Cholesky
+		if !ch.Factorize(se) {
+			t.Fatal("reference factor failed")
+		}
+		var omega mat.SymDense
+		if err := ch.InverseTo(&omega); err != nil {
+			t.Fatal(err)
+		}
+		for i := 0; i < p; i++ {
+			for j := i; j < p; j++ {
+				v := 0.0
+				for k := j; k < p; k++ {
+					v += inv[i*p+k] * inv[j*p+k]
+				}
+				approx(t, fmt.Sprintf("p=%d Ω[%d,%d]", p, i, j), v, omega.At(i, j), 1e-9, 1e-8)
+			}
+		}
+	}
+}
+
+// The residual statistic's Ωz (omegaTimes: U⁻ᵀ and U⁻¹ products four rows
+// at a time) against gonum's Cholesky inverse of A + ε_R·I times z, at
+// sizes with and without a partial group of four rows (p = 9, 64, 66, 203).
+func TestOmegaTimesAgainstGonum(t *testing.T) {
+	for _, p := range []int{9, 64, 66, 203} {
+		rng := rand.New(rand.NewPCG(uint64(p), 47))
+		s := randomCov(rng, p, 5)
+		m, _ := testModel(t, s, eigenLoadings(s, 3), IndexCombined)
+		cfg := Config{Residual: true, ResidualRidge: DefaultResidualRidge, Alpha: 0.01, VarianceLambda: DefaultVarianceLambda}
+		rs := newResStat(p, &cfg)
+		rs.refresh(m, 0.01)
+		if !rs.ok {
+			t.Fatalf("p=%d: refresh failed", p)
+		}
+		se := mat.NewSymDense(p, nil)
+		se.CopySym(s)
+		for i := 0; i < p; i++ {
+			se.SetSym(i, i, se.At(i, i)+DefaultResidualRidge)
+		}
+		var ch mat.Cholesky
+		if !ch.Factorize(se) {
+			t.Fatal("reference factor failed")
+		}
+		for trial := 0; trial < 3; trial++ {
+			z := make([]float64, p)
+			for i := range z {
+				z[i] = rng.NormFloat64()
+			}
+			var want mat.VecDense
+			if err := ch.SolveVecTo(&want, mat.NewVecDense(p, z)); err != nil {
+				t.Fatal(err)
+			}
+			v := make([]float64, p)
+			rs.omegaTimes(v, z)
+			scale := mat.Norm(&want, math.Inf(1))
+			for i := range v {
+				if d := math.Abs(v[i] - want.AtVec(i)); !(d <= 1e-9*scale) {
+					t.Fatalf("p=%d: (Ωz)[%d] = %v, gonum %v", p, i, v[i], want.AtVec(i))
+				}
+			}
+		}
+	}
+}

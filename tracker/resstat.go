@@ -56,16 +56,18 @@ const (
 // that only got noisier raises its own qᵢ, which names it.
 //
 // Cost: per refresh a Cholesky factor and its inverse, O(p³/3); per frame
-// two triangular solves, O(p²). Storage 2p² + O(p), allocated in New.
+// Ωz = U⁻¹(U⁻ᵀz), two triangular matrix–vector products, p² multiply-adds
+// (omegaTimes). Storage 2p² + O(p), allocated in New.
 type resStat struct {
 	p            int
 	res, vr      bool
 	ridge, lam   float64
-	u, uinv      []float64 // upper Cholesky factor of A + ε_R I and its inverse (row-major p × p)
+	u, uinv      []float64 // upper Cholesky factor U of A + ε_R I and U⁻¹ (row-major p × p); after refresh u holds U⁻ᵀ (lower)
 	panel        []float64
+	zb           []float64 // scratch of omegaTimes: 2 × p, the vector and a zero row
 	omd          []float64 // Ωᵢᵢ
 	mii          []float64 // Mᵢᵢ = Ωᵢᵢ − Dᵢᵢ
-	s, v         []float64 // scratch: forward solve, Ωz
+	v            []float64 // scratch: Ωz
 	rbc          []float64 // last frame's RBC of R
 	q, lvl       []float64 // variance EWMA and its normal level
 	lvlN         []float64 // frames behind lvl (cumulative start)
@@ -83,7 +85,7 @@ func newResStat(p int, cfg *Config) *resStat {
 	rs := &resStat{
 		p: p, res: cfg.Residual, vr: cfg.Variance, ridge: cfg.ResidualRidge, lam: cfg.VarianceLambda,
 		u: make([]float64, p*p), uinv: make([]float64, p*p), panel: make([]float64, p*cholBlock),
-		omd: make([]float64, p), mii: make([]float64, p), s: make([]float64, p), v: make([]float64, p),
+		omd: make([]float64, p), mii: make([]float64, p), v: make([]float64, p), zb: make([]float64, 2*p),
 		rbc: make([]float64, p), q: make([]float64, p), lvl: make([]float64, p), lvlN: make([]float64, p),
 	}
 	for i := range rs.q {
@@ -106,6 +108,7 @@ func (rs *resStat) refresh(m *model, alpha float64) {
 	if !rs.ok {
 		return
 	}
+	transposeUpper(rs.u, rs.uinv, p) // U⁻ᵀ for omegaTimes; the factor is not needed again
 	inv := rs.uinv
 	// Ω = U⁻¹U⁻ᵀ: Ωᵢᵢ = ‖row i of U⁻¹‖².
 	pin := 0
@@ -128,8 +131,11 @@ func (rs *resStat) refresh(m *model, alpha float64) {
 
 // factorInverse sets u to the upper Cholesky factor of A + εI (row-major
 // p × p, A in the upper triangle of a) and inv to U⁻¹, by cholUpper and
-// back substitution: O(p³/3) multiply-adds in all. It reports false when
-// A + εI is not positive definite.
+// forward substitution: row i of U⁻¹ solves Uᵀy = eᵢ (Golub & Van Loan,
+// Matrix Computations, §3.1), all rows together by panels of the factor
+// (forwardUnit, the factorization's AVX2/FMA kernel where the CPU has it):
+// O(p³/3) multiply-adds in all. panel holds cholBlock·p values. It reports
+// false when A + εI is not positive definite.
 func factorInverse(u, inv, panel []float64, a blas64.Symmetric, p int, ridge float64) bool {
 	for i := 0; i < p; i++ {
 		copy(u[i*p+i:i*p+p], a.Data[i*a.Stride+i:i*a.Stride+p])
@@ -138,19 +144,7 @@ func factorInverse(u, inv, panel []float64, a blas64.Symmetric, p int, ridge flo
 	if !cholUpper(u, p, p, panel) {
 		return false
 	}
-	for i := range inv {
-		inv[i] = 0
-	}
-	for j := 0; j < p; j++ {
-		inv[j*p+j] = 1 / u[j*p+j]
-		for i := j - 1; i >= 0; i-- {
-			s := 0.0
-			for k := i + 1; k <= j; k++ {
-				s += u[i*p+k] * inv[k*p+j]
-			}
-			inv[i*p+j] = -s / u[i*p+i]
-		}
-	}
+	forwardUnit(inv, p, u, p, nil, panel)
 	return true
 }
 
@@ -165,29 +159,8 @@ func (rs *resStat) score(dst *Score, m *model, z, dz []float64, t2 float64, nMis
 		return
 	}
 	p := rs.p
-	u, s, v := rs.u, rs.s, rs.v
-	// Uᵀs = z (row-oriented forward substitution), then U v = s.
-	copy(s, z[:p])
-	for k := 0; k < p; k++ {
-		sk := s[k] / u[k*p+k]
-		s[k] = sk
-		if sk == 0 {
-			continue
-		}
-		row := u[k*p+k+1 : k*p+p]
-		rest := s[k+1 : p]
-		for j, x := range row {
-			rest[j] -= x * sk
-		}
-	}
-	for i := p - 1; i >= 0; i-- {
-		acc := s[i]
-		row := u[i*p+i+1 : i*p+p]
-		for j, x := range row {
-			acc -= x * v[i+1+j]
-		}
-		v[i] = acc / u[i*p+i]
-	}
+	v := rs.v
+	rs.omegaTimes(v, z[:p])
 	if rs.res {
 		q := 0.0
 		for i := 0; i < p; i++ {
@@ -269,4 +242,76 @@ func (t *Tracker) rankResidual(dst *Score, index, indexLim float64) bool {
 		return false
 	}
 	return dst.Residual/dst.ResidualLimit > index/indexLim
+}
+
+// transposeUpper sets dst (row-major p × p) to the transpose of the upper
+// triangular src, zero above the diagonal, by 8 × 8 tiles.
+func transposeUpper(dst, src []float64, p int) {
+	const tile = 8
+	for i0 := 0; i0 < p; i0 += tile {
+		for j0 := 0; j0 < p; j0 += tile {
+			for i := i0; i < min(i0+tile, p); i++ {
+				for j := j0; j < min(j0+tile, p); j++ {
+					v := 0.0
+					if j <= i {
+						v = src[j*p+i]
+					}
+					dst[i*p+j] = v
+				}
+			}
+		}
+	}
+}
+
+// omegaTimes sets v = Ωz = U⁻¹(U⁻ᵀz) (len p each) from U⁻ᵀ (rs.u after
+// refresh, lower) and U⁻¹ (rs.uinv, upper): s = U⁻ᵀz, sⱼ = Σ_{l≤j} (U⁻ᵀ)ⱼₗ zₗ,
+// then vᵢ = Σ_{l≥i} (U⁻¹)ᵢₗ sₗ; two triangular matrix–vector products, p²
+// multiply-adds in all, in dot form four rows at a time by the AVX2/FMA
+// kernel of the covariance update (rowKernel) where the CPU has it. The
+// dot of a row can run over zeros of the triangle past (or before) the
+// diagonal so that its length is a multiple of 4. It computes Ωz through
+// the inverse factor rather than by forward and back substitution with U
+// (the same product; rounding differs), because the products have no
+// chain of dependent steps. No allocation.
+func (rs *resStat) omegaTimes(v, z []float64) {
+	p := rs.p
+	lt, ui := rs.u, rs.uinv
+	b := rs.zb[:2*p] // [x; 0]: the kernel takes its columns in pairs, rows at stride p
+	for j := range b[p:] {
+		b[p+j] = 0
+	}
+	copy(b[:p], z)
+	// s = U⁻ᵀz into v; rows j…j+3 of U⁻ᵀ are zero past j+3.
+	j := 0
+	for ; j+4 <= p; j += 4 {
+		var c [8]float64
+		if rowKernel(lt[j*p:], p, j+4, b, 2, c[:], 2, 1, 0) {
+			v[j], v[j+1], v[j+2], v[j+3] = c[0], c[2], c[4], c[6]
+			continue
+		}
+		for r := j; r < j+4; r++ {
+			v[r] = dot(lt[r*p:r*p+r+1], z)
+		}
+	}
+	for ; j < p; j++ {
+		v[j] = dot(lt[j*p:j*p+j+1], z)
+	}
+	// v = U⁻¹s; rows i…i+3 of U⁻¹ are zero before i.
+	copy(b[:p], v)
+	s := b[:p]
+	i := 0
+	for ; i+4 <= p; i += 4 {
+		i0 := p - roundUp4(p-i)
+		var c [8]float64
+		if i0 >= 0 && rowKernel(ui[i*p+i0:], p, p-i0, b[i0:], 2, c[:], 2, 1, 0) {
+			v[i], v[i+1], v[i+2], v[i+3] = c[0], c[2], c[4], c[6]
+			continue
+		}
+		for r := i; r < i+4; r++ {
+			v[r] = dot(ui[r*p+r:r*p+p], s[r:])
+		}
+	}
+	for ; i < p; i++ {
+		v[i] = dot(ui[i*p+i:i*p+p], s[i:])
+	}
 }
