@@ -24,20 +24,7 @@ func TestPrecisionRowsBlocked(t *testing.T) {
 		rng := rand.New(rand.NewPCG(uint64(p), 41))
 		s := randomCov(rng, p, 5)
 		m, ls := testModel(t, s, eigenLoadings(s, 3), IndexCombined)
-		// Reference: Ω = (A + εI)⁻¹ by gonum.
-		se := mat.NewSymDense(p, nil)
-		se.CopySym(s)
-		for i := 0; i < p; i++ {
-			se.SetSym(i, i, se.At(i, i)+ridge)
-		}
-		var ch mat.Cholesky
-		if !ch.Factorize(se) {
-			t.Fatal("reference factor failed")
-		}
-		var omega mat.SymDense
-		if err := ch.InverseTo(&omega); err != nil {
-			t.Fatal(err)
-		}
+		omega, _ := refPrecision(t, s, ridge)
 		scale := 0.0
 		for i := 0; i < p; i++ {
 			scale = math.Max(scale, omega.At(i, i))
@@ -152,19 +139,7 @@ func TestFactorInverseAgainstGonum(t *testing.T) {
 				}
 			}
 		}
-		se := mat.NewSymDense(p, nil)
-		se.CopySym(s)
-		for i := 0; i < p; i++ {
-			se.SetSym(i, i, se.At(i, i)+ridge)
-		}
-		var ch mat.Cholesky
-		if !ch.Factorize(se) {
-			t.Fatal("reference factor failed")
-		}
-		var omega mat.SymDense
-		if err := ch.InverseTo(&omega); err != nil {
-			t.Fatal(err)
-		}
+		omega, _ := refPrecision(t, s, ridge)
 		for i := 0; i < p; i++ {
 			for j := i; j < p; j++ {
 				v := 0.0
@@ -191,15 +166,7 @@ func TestOmegaTimesAgainstGonum(t *testing.T) {
 		if !rs.ok {
 			t.Fatalf("p=%d: refresh failed", p)
 		}
-		se := mat.NewSymDense(p, nil)
-		se.CopySym(s)
-		for i := 0; i < p; i++ {
-			se.SetSym(i, i, se.At(i, i)+DefaultResidualRidge)
-		}
-		var ch mat.Cholesky
-		if !ch.Factorize(se) {
-			t.Fatal("reference factor failed")
-		}
+		_, ch := refPrecision(t, s, DefaultResidualRidge)
 		for trial := 0; trial < 3; trial++ {
 			z := make([]float64, p)
 			for i := range z {
@@ -219,4 +186,25 @@ func TestOmegaTimesAgainstGonum(t *testing.T) {
 			}
 		}
 	}
+}
+
+// refPrecision returns the reference precision matrix Ω = (S + εI)⁻¹ and
+// the Cholesky factor of S + εI, by gonum.
+func refPrecision(t *testing.T, s *mat.SymDense, ridge float64) (*mat.SymDense, *mat.Cholesky) {
+	t.Helper()
+	p := s.SymmetricDim()
+	se := mat.NewSymDense(p, nil)
+	se.CopySym(s)
+	for i := 0; i < p; i++ {
+		se.SetSym(i, i, se.At(i, i)+ridge)
+	}
+	var ch mat.Cholesky
+	if !ch.Factorize(se) {
+		t.Fatal("reference factor failed")
+	}
+	var omega mat.SymDense
+	if err := ch.InverseTo(&omega); err != nil {
+		t.Fatal(err)
+	}
+	return &omega, &ch
 }
