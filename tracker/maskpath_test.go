@@ -66,13 +66,8 @@ func TestMaskScoredEqualsStandardize(t *testing.T) {
 // allocation every few frames down to 0).
 func TestStepMaskedWideAllocs(t *testing.T) {
 	const p = 60
-	tr, src := newStream(t, p, Config{Period: time.Second, HalfLife: time.Hour, WarmUp: 80, RefreshEvery: 8, Batch: 4,
-		Modes: modes.Config{Count: 4, Sparsity: []modes.Sparsity{{Method: modes.L0, K: 6}}}})
-	var sc Score
-	xs := src.frames(64, p)
-	for k := 0; k < 200; k++ {
-		tr.Step(&sc, xs[k%64], nil)
-	}
+	tr, xs, scp := allocTrackerP(t, p)
+	sc := *scp
 	mask := make([]bool, p)
 	for i := 1; i < p; i += 5 {
 		mask[i] = true

@@ -644,8 +644,10 @@ func TestStepMissing(t *testing.T) {
 // factor buffer), done here before the measurements.
 // allocTracker returns a 30-channel tracker that refreshes every 8 frames,
 // warmed up on 200 frames, and 64 frames to cycle through.
-func allocTracker(t *testing.T) (*Tracker, [][]float64, *Score) {
-	const p = 30
+func allocTracker(t *testing.T) (*Tracker, [][]float64, *Score) { return allocTrackerP(t, 30) }
+
+// allocTrackerP is allocTracker with p channels.
+func allocTrackerP(t *testing.T, p int) (*Tracker, [][]float64, *Score) {
 	tr, src := newStream(t, p, Config{Period: time.Second, HalfLife: time.Hour, WarmUp: 80, RefreshEvery: 8, Batch: 4,
 		Modes: modes.Config{Count: 4, Sparsity: []modes.Sparsity{{Method: modes.L0, K: 6}}}})
 	var sc Score
