@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"time"
 
+	"modewatch/alerts"
 	"modewatch/cmd/modewatch/internal/pipeline"
 	"modewatch/configs"
 )
@@ -71,7 +72,8 @@ func calibrateBudgets(ctx context.Context, env IO, cfg *configs.Config, inputs [
 		if b <= 0 {
 			continue
 		}
-		cal, err := rec.Calibrate(u.Name, b, pipeline.AlarmRuleAt(cfg, u.Name, time.Duration(model.Period)), learnDays)
+		perStat := cfg.AlertsFor(u.Name).BudgetPerStatistic
+		cal, err := rec.Calibrate(u.Name, b, pipeline.AlarmRuleAt(cfg, u.Name, time.Duration(model.Period)), learnDays, perStat != nil && *perStat)
 		if err != nil {
 			msg := fmt.Sprintf("warning: unit %s not calibrated to alerts.budget (limits of alpha kept): %v", u.Name, err)
 			if cal.DaysNeeded > 0 {
@@ -100,6 +102,15 @@ func printCalibration(env IO, u pipeline.ModelUnit) {
 	}
 	fmt.Fprintf(env.Out, "  budget %.3g false alerts/day: limits ×%.3f%s; expected %.3g/day [95%% %.3g, %.3g]; held-out %.1f days: %d alerts of the whole rule at this scale; GEV of %d block maxima of %v\n",
 		c.Budget, c.Scale, th, c.Rate, c.RateLow, c.RateHigh, c.HeldOutDays, c.Observed, c.Blocks, time.Duration(c.Block))
+	if len(c.Scales) > 0 {
+		fmt.Fprintf(env.Out, "  per statistic (same tail probability, the whole rule at the budget):")
+		for _, n := range []string{alerts.StatT2, alerts.StatSPE, alerts.StatPhi, alerts.StatResidual, alerts.StatVariance, alerts.StatRelation} {
+			if v, ok := c.Scales[n]; ok {
+				fmt.Fprintf(env.Out, " %s ×%.3f", n, v)
+			}
+		}
+		fmt.Fprintln(env.Out)
+	}
 	if c.GEVScale > 0 {
 		fmt.Fprintf(env.Out, "  the extreme-value scale ×%.3f opened more alerts over the held-out days than the budget allows there; raised to ×%.3f\n", c.GEVScale, c.Scale)
 	}

@@ -42,6 +42,13 @@ type Calibration struct {
 	// (⌊budget · HeldOutDays⌋); Scale was then raised to the smallest that
 	// does not, and Rate is the GEV's rate at it.
 	GEVScale float64 `json:"gev_scale,omitempty"`
+	// Scales, when set (alerts.budget_per_statistic), multiply each
+	// statistic's limit by its own factor, keyed by statistic name (t2,
+	// spe, phi, res, var, rel): every statistic at the same tail
+	// probability, the whole rule at the budget (calibrateEach). Rate,
+	// its interval and Observed then describe the rule at these scales;
+	// Scale stays the single scale, used by a statistic without one.
+	Scales map[string]float64 `json:"scales,omitempty"`
 	// DaysNeeded is set when the normal log is too short for the budget:
 	// the days of normal log (held-out and learning parts together) for
 	// the interval to lie within a factor of two of the rate.
@@ -122,13 +129,19 @@ func (rr *RatioRecorder) Units() []string {
 	return n
 }
 
-// Calibrate calibrates unit name (see CalibrateBudget).
-func (rr *RatioRecorder) Calibrate(name string, budget float64, rule alerts.AlarmRule, learnDays float64) (Calibration, error) {
+// Calibrate calibrates unit name (see CalibrateBudget); with perStat
+// (alerts.budget_per_statistic) each statistic also gets its own scale
+// (calibrateEach).
+func (rr *RatioRecorder) Calibrate(name string, budget float64, rule alerts.AlarmRule, learnDays float64, perStat bool) (Calibration, error) {
 	ser := rr.units[name]
 	if ser == nil || len(ser.t) == 0 {
 		return Calibration{}, fmt.Errorf("%w: unit %s: no scored frame in the held-out data", ErrCalibration, name)
 	}
-	return CalibrateBudget(ser.t, ser.r, budget, rule, learnDays)
+	cal, err := CalibrateBudget(ser.t, ser.r, budget, rule, learnDays)
+	if err == nil && perStat {
+		calibrateEach(&cal, ser.t, ser.r, rule)
+	}
+	return cal, err
 }
 
 // AlarmRule returns the alarm rule of unit name under configuration c.

@@ -282,9 +282,7 @@ func (p *Pipeline) buildFromModel(mu *ModelUnit, period time.Duration) (*Unit, e
 	u.model = settings
 	u.stats = alarmStats(settings)
 	u.smooth = settings.Smoothing
-	if c := mu.Calibration; c != nil && c.Scale > 0 && !math.IsInf(c.Scale, 0) {
-		u.scale, u.cal = c.Scale, c
-	}
+	u.setCalibration(mu.Calibration)
 	u.model.Adapt = adapt
 	u.model.MaxChannels = p.cfg.ModelFor(mu.Name).MaxChannels
 	u.fixed = adapt != nil && !*adapt

@@ -32,11 +32,10 @@ func (e *ScoreEncoder) Append(u *Unit, t time.Time) []byte {
 	e.enc.StartLine(ScoreMeasurement)
 	e.enc.AddTag("unit", u.Name)
 	if s.Ready {
-		c := u.limitScale()
 		for _, f := range [...]struct {
 			key string
 			v   float64
-		}{{"t2", s.T2}, {"t2_limit", c * s.T2Limit}, {"spe", s.SPE}, {"spe_limit", c * s.SPELimit}, {"phi", s.Phi}, {"phi_limit", c * s.PhiLimit}} {
+		}{{"t2", s.T2}, {"t2_limit", u.statScale(0) * s.T2Limit}, {"spe", s.SPE}, {"spe_limit", u.statScale(1) * s.SPELimit}, {"phi", s.Phi}, {"phi_limit", u.statScale(2) * s.PhiLimit}} {
 			if !math.IsNaN(f.v) && !math.IsInf(f.v, 0) {
 				e.enc.AddField(f.key, lineprotocol.MustNewValue(f.v))
 			}
@@ -49,7 +48,7 @@ func (e *ScoreEncoder) Append(u *Unit, t time.Time) []byte {
 			}
 			if !math.IsNaN(x.Value) && !math.IsInf(x.Value, 0) && !math.IsInf(x.Limit, 0) && !math.IsNaN(x.Limit) {
 				e.enc.AddField(x.Name, lineprotocol.MustNewValue(x.Value))
-				e.enc.AddField(x.Name+"_limit", lineprotocol.MustNewValue(c*x.Limit))
+				e.enc.AddField(x.Name+"_limit", lineprotocol.MustNewValue(u.StatScale(x.Name)*x.Limit))
 			}
 		}
 	}

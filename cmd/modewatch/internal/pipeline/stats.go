@@ -68,13 +68,50 @@ func (u *Unit) limitScale() float64 {
 	return 1
 }
 
+// statScale returns the budget calibration's factor on the limit of
+// statistic k (in the order of statNames): its own scale when the
+// calibration gave one, else the unit's.
+func (u *Unit) statScale(k int) float64 {
+	if c := u.scales[k]; c > 0 && !math.IsInf(c, 0) {
+		return c
+	}
+	return u.limitScale()
+}
+
+// StatScale returns the factor the limit of statistic name (alerts.StatT2,
+// ...) carries beyond the tracker's (the budget calibration; 1 without
+// one).
+func (u *Unit) StatScale(name string) float64 {
+	for k, n := range statNames {
+		if n == name {
+			return u.statScale(k)
+		}
+	}
+	return u.limitScale()
+}
+
+// setCalibration sets the unit's budget calibration (nil or unusable:
+// none).
+func (u *Unit) setCalibration(c *Calibration) {
+	u.scale, u.cal, u.scales = 1, nil, [nStatistics]float64{}
+	if c == nil || !(c.Scale > 0) || math.IsInf(c.Scale, 0) {
+		return
+	}
+	u.scale, u.cal = c.Scale, c
+	for k, n := range statNames {
+		if v, ok := c.Scales[n]; ok && v > 0 && !math.IsInf(v, 0) {
+			u.scales[k] = v
+		}
+	}
+}
+
 // LimitScale returns the factor the unit's alarm limits carry beyond the
 // tracker's (the budget calibration; 1 without one).
 func (u *Unit) LimitScale() float64 { return u.limitScale() }
 
 // DropCalibration removes the unit's budget calibration: its limits are
 // the tracker's again (empirical limits set on the tracker replace it).
-func (u *Unit) DropCalibration() { u.scale, u.cal = 1, nil }
+func (u *Unit) DropCalibration() { u.setCalibration(nil) }
 
 // leadRelation puts the channels of the broken relation first among the
 // frame's contributors when the relation statistic (model.statistics rel)
@@ -83,7 +120,7 @@ func (u *Unit) DropCalibration() { u.scale, u.cal = 1, nil }
 // the others with zero share and RBC (their contribution to the RBC index
 // was below the reported ones); the other contributors follow in rank.
 func (u *Unit) leadRelation(o *alerts.Observation, s *tracker.Score) {
-	if !u.stats.Relation || s.RelationMode < 0 || !(s.Relation > s.RelationLimit*u.limitScale()) {
+	if !u.stats.Relation || s.RelationMode < 0 || !(s.Relation > s.RelationLimit*u.statScale(5)) {
 		return
 	}
 	supp := u.tr.RelationSupport(s.RelationMode)
@@ -122,11 +159,10 @@ func (u *Unit) leadRelation(o *alerts.Observation, s *tracker.Score) {
 }
 
 // appendStats appends the unit's alarm statistics of the current frame
-// (u.last) to dst with every limit multiplied by the budget scale.
+// (u.last) to dst with every limit multiplied by its budget scale.
 func (u *Unit) appendStats(dst []alerts.Stat) []alerts.Stat {
-	c := u.limitScale()
 	for _, x := range u.last {
-		x.Limit *= c
+		x.Limit *= u.StatScale(x.Name)
 		dst = append(dst, x)
 	}
 	return dst

@@ -21,6 +21,9 @@ type Unit struct {
 	stats configs.Statistics // model.statistics: which statistics raise alarms
 	scale float64            // every alarm limit is multiplied by it (budget calibration; 1 without)
 	cal   *Calibration       // the calibration behind scale, kept for checkpoints
+	// scales, where above zero, replace scale for one statistic (in the
+	// order of statNames; Calibration.Scales).
+	scales [nStatistics]float64
 	// smooth is model.smoothing (EWMA weight of the alarm statistics; 0:
 	// off); sm holds the smoothed ratios and smOK whether each started.
 	smooth float64

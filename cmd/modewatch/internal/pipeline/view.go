@@ -164,15 +164,15 @@ func (u *Unit) View(t time.Time) UnitView {
 	v.EffectiveN = s.NEff
 	v.RefreshIterations = u.tr.Modes().Iterations()
 	v.Refreshes, v.LastRefreshS = u.refreshes, u.lastRefresh.Seconds()
-	c := u.limitScale()
+	c2, cq, cp := u.statScale(0), u.statScale(1), u.statScale(2)
 	if s.Ready {
-		v.Limits = &LimitsView{Alpha: u.tr.Config().Alpha, T2: finite(c * s.T2Limit), SPE: finite(c * s.SPELimit), Phi: finite(c * s.PhiLimit)}
+		v.Limits = &LimitsView{Alpha: u.tr.Config().Alpha, T2: finite(c2 * s.T2Limit), SPE: finite(cq * s.SPELimit), Phi: finite(cp * s.PhiLimit)}
 	}
 	sv := &ScoreView{Time: t, Ready: s.Ready, Missing: []string{}, Excluded: []string{}, Warming: []string{}, Contributors: []ContributorView{}}
 	if s.Ready {
-		sv.T2, sv.T2Limit = finite(s.T2), finite(c*s.T2Limit)
-		sv.SPE, sv.SPELimit = finite(s.SPE), finite(c*s.SPELimit)
-		sv.Phi, sv.PhiLimit = finite(s.Phi), finite(c*s.PhiLimit)
+		sv.T2, sv.T2Limit = finite(s.T2), finite(c2*s.T2Limit)
+		sv.SPE, sv.SPELimit = finite(s.SPE), finite(cq*s.SPELimit)
+		sv.Phi, sv.PhiLimit = finite(s.Phi), finite(cp*s.PhiLimit)
 		for _, c := range s.Contrib {
 			sv.Contributors = append(sv.Contributors, ContributorView{
 				Channel: u.column(c.Channel), Share: c.Share, RBC: c.RBC, RBCLimit: c.RBCLimit,
