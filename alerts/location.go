@@ -249,7 +249,21 @@ func (e *Engine) stepLocations(u *unit, o *Observation, t time.Time) {
 			e.openLocation(u, o, lead, t)
 		}
 	default:
-		u.loc.newLoc.Step(t, 0, 1)
+		// The frame belongs to first, but with the open incidents'
+		// channels reconstructed it stays out of control, led by a
+		// channel outside every location (Observation.Beyond): a second
+		// fault in other equipment, on the same on-delay as on a quiet
+		// unit.
+		if len(o.Beyond) > 0 && e.outsideAll(u, o.Beyond[:1]) == 0 {
+			if _, to, _ := u.loc.newLoc.Step(t, 2, 1); to == Active {
+				u.loc.newLoc.Reset(t)
+				e.support(first, o, t)
+				e.openLocation(u, o, o.Beyond, t)
+				break
+			}
+		} else {
+			u.loc.newLoc.Step(t, 0, 1)
+		}
 		// Growth: a frame whose leading channels all lie in first's
 		// location or in none widens first by the frame's location; if it
 		// now meets another incident's, they grew into each other.
@@ -281,6 +295,24 @@ func (e *Engine) stepLocations(u *unit, o *Observation, t time.Time) {
 		}
 	}
 	e.stepHolds(u, o, t)
+}
+
+// outsideAll returns the index in chs of the first channel that lies in
+// no open incident's location of u, or -1.
+func (e *Engine) outsideAll(u *unit, chs []string) int {
+	for k, ch := range chs {
+		held := false
+		for _, inc := range u.modelIncidents() {
+			if inc.loc != nil && inc.loc.holds(ch) {
+				held = true
+				break
+			}
+		}
+		if !held {
+			return k
+		}
+	}
+	return -1
 }
 
 func (l *locState) holdsAny(chs []string) bool {

@@ -64,6 +64,14 @@ type Observation struct {
 	// model incident opening on this frame is located there; empty means
 	// the leading contributors (see location.go).
 	Location []string
+	// Beyond names the leading contributors of this frame scored once more
+	// with the channels of the unit's open incidents reconstructed from
+	// the others (the caller computes it from the model), given only when
+	// a statistic of that score stays over its limit: a second fault that
+	// the open incidents do not explain. Its first channel, when it lies
+	// outside every open incident's location, feeds the on-delay of a new
+	// incident (see location.go). Empty: none, or not computed.
+	Beyond []string
 	// ModelState is one of ModelWarmup, ModelAdapting, ModelFrozen,
 	// ModelBaseline. In warm-up the statistics are ignored.
 	ModelState string

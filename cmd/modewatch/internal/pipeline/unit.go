@@ -85,13 +85,18 @@ type Unit struct {
 	refusedEx   []string      // the first few of them, for the view
 
 	// Learning around incidents (location.go).
-	mbox    *maskBox
-	mver    uint64
-	mask    []bool // channels learned as their reconstruction
-	masked  bool   // some channel of mask is set
-	locMark []bool // scratch of location
-	recent  []bool // channels being recentred after an acceptance
-	recentK int    // frames of the recentring done (recentreFrames: none pending)
+	mbox *maskBox
+	mver uint64
+	mask []bool // channels learned as their reconstruction
+	// beyond scores the frame with mask's channels reconstructed, bmiss
+	// its missing flags (beyond.go).
+	beyond    tracker.Score
+	bmiss     []bool
+	beyondSet int8   // alerts.beyond_incidents: 0 not read yet, 1 on, -1 off
+	masked    bool   // some channel of mask is set
+	locMark   []bool // scratch of location
+	recent    []bool // channels being recentred after an acceptance
+	recentK   int    // frames of the recentring done (recentreFrames: none pending)
 
 	pending int // what stepModel left for finish (pendNone, ...)
 	worker  int // 1 + index of the scoring worker that steps this unit (pool.go); 0: none yet
@@ -424,6 +429,7 @@ func (u *Unit) observe(t time.Time) {
 	o.Missing = o.Missing[:0]
 	o.Quality = o.Quality[:0]
 	o.Location = o.Location[:0]
+	o.Beyond = o.Beyond[:0]
 	if s.Ready {
 		u.frameStats(s)
 	}
@@ -450,6 +456,7 @@ func (u *Unit) observe(t time.Time) {
 			})
 		}
 		u.leadRelation(o, s)
+		o.Beyond = u.appendBeyond(o.Beyond[:0])
 	}
 	for _, i := range s.Missing {
 		if i < len(u.names) && u.screen.MissingAlarm(i) && !u.isContext(i) {
