@@ -17,6 +17,7 @@ import (
 	"slices"
 	"time"
 
+	"modewatch/alerts"
 	"modewatch/cmd/modewatch/internal/pipeline"
 	"modewatch/tracker"
 )
@@ -99,13 +100,13 @@ func (c *Collector) Observe(u *pipeline.Unit, t time.Time) {
 	if tr := u.Tracker(); tr != nil {
 		p = tr.P()
 	}
-	c.add(u.Name, t, u.Score(), u.LimitScale(), p, u.Channels)
+	c.add(u.Name, t, u.Score(), [nStats]float64{u.StatScale(alerts.StatT2), u.StatScale(alerts.StatSPE), u.StatScale(alerts.StatPhi)}, p, u.Channels)
 }
 
-// add records score sc of unit name at t, its limits multiplied by scale
-// (the unit's budget calibration); p is the unit's channel count and names
+// add records score sc of unit name at t, its T², SPE and φ limits
+// multiplied by scale (the unit's budget calibration of each); p is the unit's channel count and names
 // returns its channel names (called only when p changed).
-func (c *Collector) add(name string, t time.Time, sc *tracker.Score, scale float64, p int, names func() []string) {
+func (c *Collector) add(name string, t time.Time, sc *tracker.Score, scale [nStats]float64, p int, names func() []string) {
 	max := c.MaxBuckets
 	if max <= 0 {
 		max = DefaultBuckets
@@ -138,7 +139,7 @@ func (c *Collector) add(name string, t time.Time, sc *tracker.Score, scale float
 	}
 	b := &s.buckets[k]
 	vals := [nStats]float64{sc.T2, sc.SPE, sc.Phi}
-	lims := [nStats]float64{scale * sc.T2Limit, scale * sc.SPELimit, scale * sc.PhiLimit}
+	lims := [nStats]float64{scale[0] * sc.T2Limit, scale[1] * sc.SPELimit, scale[2] * sc.PhiLimit}
 	if b.n == 0 {
 		b.from = ns
 		for i := range vals {

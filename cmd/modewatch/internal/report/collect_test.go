@@ -38,7 +38,7 @@ func TestCollectorBounded(t *testing.T) {
 		if k == 5000 {
 			sc.Contrib = append(sc.Contrib, tracker.Contribution{Channel: 2, RBC: 12, RBCLimit: 4})
 		}
-		c.add("u", t0.Add(time.Duration(k)*10*time.Second), &sc, 1, len(names), func() []string { return names })
+		c.add("u", t0.Add(time.Duration(k)*10*time.Second), &sc, [nStats]float64{1, 1, 1}, len(names), func() []string { return names })
 	}
 	s := c.byName["u"]
 	if s.frames != frames {
@@ -131,7 +131,7 @@ func TestCollectorAllocs(t *testing.T) {
 	t0 := time.Date(2026, 3, 1, 0, 0, 0, 0, time.UTC)
 	k := 0
 	step := func() {
-		c.add("u", t0.Add(time.Duration(k)*time.Second), &sc, 1, 2, nf)
+		c.add("u", t0.Add(time.Duration(k)*time.Second), &sc, [nStats]float64{1, 1, 1}, 2, nf)
 		k++
 	}
 	for i := 0; i < 200; i++ {
