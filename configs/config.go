@@ -371,10 +371,8 @@ type Alerts struct {
 	// whole rule at the budget, instead of one scale for all (which the
 	// statistic with the heaviest tail sets, e.g. T² at a setpoint step a
 	// short normal log never saw, blinding SPE and res). Default false:
-	// on the realism suite and the demo it took the false alerts per day
-	// from 0.2/4.2/1.2/0.0 to 1.0/7.6/1.6/4.5 for +2 detections, the
-	// held-out tails of the statistics the single scale had covered
-	// being too short a guide to the test days.
+	// on the realism suite it raised the false alerts of three plants
+	// for one more detection (README, Validation).
 	BudgetPerStatistic *bool `yaml:"budget_per_statistic"`
 	// OnDelay: active when over the limit in N of the last M frames
 	// (1 ≤ N ≤ M ≤ 64). Default 3 of 5.
@@ -421,8 +419,8 @@ type Alerts struct {
 	// channel of that score, if outside every open location, feeds the
 	// on-delay of a new incident (a second fault the first hides).
 	// Default false: on the realism suite it reported the water works'
-	// second fault in 6.5 min but split plant moves into many incidents
-	// (false alerts there 1.2 → 6.0 a day).
+	// second fault but split plant moves into many incidents (README,
+	// Validation).
 	BeyondIncidents *bool `yaml:"beyond_incidents"`
 	// LocationQuiet: an incident whose location has had no channel over
 	// its own contribution limit this long of plant time, while the unit
