@@ -418,9 +418,8 @@ type Alerts struct {
 	// Qin 1998); when a statistic stays over its limit so, the leading
 	// channel of that score, if outside every open location, feeds the
 	// on-delay of a new incident (a second fault the first hides).
-	// Default false: on the realism suite it reported the water works'
-	// second fault but split plant moves into many incidents (README,
-	// Validation).
+	// Default true (chosen on the realism suite with the narrower
+	// incident locations: README, Validation).
 	BeyondIncidents *bool `yaml:"beyond_incidents"`
 	// LocationQuiet: an incident whose location has had no channel over
 	// its own contribution limit this long of plant time, while the unit

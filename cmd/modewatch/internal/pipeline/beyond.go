@@ -25,7 +25,7 @@ import (
 // appendBeyond appends to dst the leading contributors of the frame
 // scored with the unit's masked channels reconstructed, when some alarm
 // statistic of that score is over its (calibrated) limit; dst unchanged
-// otherwise, without alerts.beyond_incidents, and for units whose frames carry lagged copies or smoothed
+// otherwise, with alerts.beyond_incidents false, and for units whose frames carry lagged copies or smoothed
 // statistics (model.lags, model.smoothing). It allocates only when the
 // unit grew.
 func (u *Unit) appendBeyond(dst []string) []string {
@@ -34,6 +34,7 @@ func (u *Unit) appendBeyond(dst []string) []string {
 	}
 	if len(u.bmiss) != len(u.x) {
 		u.bmiss = make([]bool, len(u.x))
+		u.presizeBeyond()
 	}
 	for i := range u.bmiss {
 		u.bmiss[i] = u.mask[i] || (i < len(u.miss) && u.miss[i])
@@ -81,13 +82,26 @@ func (u *Unit) beyondOver(s *tracker.Score) bool {
 }
 
 // beyondOn reports whether alerts.beyond_incidents holds for the unit
-// (read once).
+// (default true; read once).
 func (u *Unit) beyondOn() bool {
 	if u.beyondSet == 0 {
-		u.beyondSet = -1
-		if b := u.p.cfg.AlertsFor(u.Name).BeyondIncidents; b != nil && *b {
-			u.beyondSet = 1
+		u.beyondSet = 1
+		if b := u.p.cfg.AlertsFor(u.Name).BeyondIncidents; b != nil && !*b {
+			u.beyondSet = -1
 		}
 	}
 	return u.beyondSet > 0
+}
+
+// presizeBeyond gives the second score's contributor slots their full
+// size (every ranked slot, each with room for the modes of every column),
+// so that scoring it allocates nothing per frame even though the channels
+// in each rank change from frame to frame.
+func (u *Unit) presizeBeyond() {
+	n, p := u.tr.Config().TopContrib, u.tr.P()
+	c := make([]tracker.Contribution, n)
+	for i := range c {
+		c[i].Modes = make([]int, 0, p)
+	}
+	u.beyond.Contrib = c[:0]
 }
