@@ -301,18 +301,22 @@ func (e *Engine) stepLocations(u *unit, o *Observation, t time.Time) {
 // no open incident's location of u, or -1.
 func (e *Engine) outsideAll(u *unit, chs []string) int {
 	for k, ch := range chs {
-		held := false
-		for _, inc := range u.modelIncidents() {
-			if inc.loc != nil && inc.loc.holds(ch) {
-				held = true
-				break
-			}
-		}
-		if !held {
+		if !u.located(ch) {
 			return k
 		}
 	}
 	return -1
+}
+
+// located reports whether ch lies in the location of an open model
+// incident of u.
+func (u *unit) located(ch string) bool {
+	for _, inc := range u.modelIncidents() {
+		if inc.loc != nil && inc.loc.holds(ch) {
+			return true
+		}
+	}
+	return false
 }
 
 func (l *locState) holdsAny(chs []string) bool {
@@ -360,14 +364,7 @@ func (e *Engine) openLocation(u *unit, o *Observation, lead []string, t time.Tim
 	loc := frameLocation(o, lead)
 	inc.loc.add(lead[:1]) // the first leading channel is outside every location
 	for _, ch := range loc {
-		held := false
-		for _, other := range u.modelIncidents() {
-			if other.loc != nil && other.loc.holds(ch) {
-				held = true
-				break
-			}
-		}
-		if !held {
+		if !u.located(ch) {
 			inc.loc.add([]string{ch})
 		}
 	}

@@ -20,25 +20,8 @@ import (
 // data (seeded).
 func TestSecondFaultBeyond(t *testing.T) {
 	off := false
-	b := newBench(3)
-	b.run(2 * 24 * time.Hour)
-	t1 := b.t
-	b.bias[1] = 8 // pump f1
-	b.run(2 * time.Hour)
-	t2 := b.t
-	b.bias[6] = 3 // dryer f2
-	b.run(2 * time.Hour)
-	find := func(rs []*alerts.Record) (pump, dryer *alerts.Record) {
-		for _, r := range rs {
-			switch {
-			case pump == nil && !r.Start.Before(t1) && slices.Contains(r.Location, benchChannel(1)):
-				pump = r
-			case dryer == nil && !r.Start.Before(t2) && slices.Contains(r.Location, benchChannel(6)):
-				dryer = r
-			}
-		}
-		return pump, dryer
-	}
+	b, t1, t2 := twoFaultBench(3, 8, 3)
+	find := func(rs []*alerts.Record) (pump, dryer *alerts.Record) { return pumpAndDryer(rs, t1, t2) }
 	without := replayBench(t, b, configs.Alerts{BeyondIncidents: &off})
 	t.Logf("without beyond_incidents:%s", describe(without))
 	if p, d := find(without); p != nil && d != nil && p != d {

@@ -342,23 +342,9 @@ func heldOutScale(t []time.Time, ratios [][nStatistics]float64, s []float64, lo,
 // unit's alert open while any is in alarm) over the frames with every
 // limit multiplied by c and returns the number of alerts opened.
 func countAlerts(t []time.Time, ratios [][nStatistics]float64, c float64, rule alerts.AlarmRule) int {
-	var al [nStatistics]alerts.Alarm
-	for j := range al {
-		al[j] = alerts.NewAlarm(rule)
+	var sc [nStatistics]float64
+	for j := range sc {
+		sc[j] = c
 	}
-	open, count := false, 0
-	for k := range t {
-		in := false
-		for j := range al {
-			if v := ratios[k][j]; !math.IsNaN(v) {
-				al[j].Step(t[k], v, c)
-			}
-			in = in || al[j].State().InAlarm()
-		}
-		if in && !open {
-			count++
-		}
-		open = in
-	}
-	return count
+	return countAlertsEach(t, ratios, sc, rule)
 }

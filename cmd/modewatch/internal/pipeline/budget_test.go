@@ -52,6 +52,33 @@ func ratiosOf(t *testing.T, tr *tracker.Tracker, a *ar1Plant, start time.Time, p
 	return ts, rs
 }
 
+// fittedAR1 returns the six-channel AR(1) plant (φ = 0.95, one frame a
+// minute, seeded), a tracker fitted on 5 days of it, the alarm rule of the
+// budget tests (3 of 5, 10-minute off-delay) and the time of the first
+// held-out frame. It skips a -short run (a long run).
+func fittedAR1(t *testing.T) (*tracker.Tracker, *ar1Plant, alerts.AlarmRule, time.Time) {
+	t.Helper()
+	if testing.Short() {
+		t.Skip("long run")
+	}
+	a := &ar1Plant{rng: rand.New(rand.NewPCG(11, 3)), phi: 0.95, x: make([]float64, 6)}
+	for range 200 {
+		a.frame()
+	}
+	tr, err := tracker.New(6, tracker.Config{Period: time.Minute})
+	if err != nil {
+		t.Fatal(err)
+	}
+	fit := make([][]float64, 5*24*60)
+	for k := range fit {
+		fit[k] = a.frame()
+	}
+	if err := tr.Fit(fit); err != nil {
+		t.Fatal(err)
+	}
+	return tr, a, alerts.AlarmRule{N: 3, M: 5, OffDelay: 10 * time.Minute, Deadband: 0.05}, time.Date(2026, 1, 1, 0, 0, 0, 0, time.UTC)
+}
+
 // TestBudgetAR1: six channels, AR(1) with φ = 0.95 at one frame a minute,
 // a model fitted on 5 days and the alarm rule 3 of 5 with a 10-minute
 // off-delay. The per-frame α = 1 % limits, which assume independent
@@ -60,28 +87,8 @@ func ratiosOf(t *testing.T, tr *tracker.Tracker, a *ar1Plant, start time.Time, p
 // further 100 days lies within the calibration's 95 % interval and
 // within a factor 2 of the budget (the target).
 func TestBudgetAR1(t *testing.T) {
-	if testing.Short() {
-		t.Skip("long run")
-	}
-	a := &ar1Plant{rng: rand.New(rand.NewPCG(11, 3)), phi: 0.95, x: make([]float64, 6)}
-	for range 200 {
-		a.frame()
-	}
-	const period = time.Minute
-	const day = 24 * 60
-	tr, err := tracker.New(6, tracker.Config{Period: period})
-	if err != nil {
-		t.Fatal(err)
-	}
-	fit := make([][]float64, 5*day)
-	for k := range fit {
-		fit[k] = a.frame()
-	}
-	if err := tr.Fit(fit); err != nil {
-		t.Fatal(err)
-	}
-	rule := alerts.AlarmRule{N: 3, M: 5, OffDelay: 10 * time.Minute, Deadband: 0.05}
-	t0 := time.Date(2026, 1, 1, 0, 0, 0, 0, time.UTC)
+	tr, a, rule, t0 := fittedAR1(t)
+	const period, day = time.Minute, 24 * 60
 	ct, cr := ratiosOf(t, tr, a, t0, period, 10*day)
 	const budget = 1.0
 	cal, err := CalibrateBudget(ct, cr, budget, rule, 5)

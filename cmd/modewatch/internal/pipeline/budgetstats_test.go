@@ -2,12 +2,10 @@ package pipeline
 
 import (
 	"math"
-	"math/rand/v2"
 	"testing"
 	"time"
 
 	"modewatch/alerts"
-	"modewatch/tracker"
 	"modewatch/tracker/limits"
 )
 
@@ -22,28 +20,8 @@ import (
 // meets the budget: the rate measured over 100 further days lies within
 // the calibration's 95 % interval (invented series, seeded; derived check).
 func TestBudgetPerStatistic(t *testing.T) {
-	if testing.Short() {
-		t.Skip("long run")
-	}
-	a := &ar1Plant{rng: rand.New(rand.NewPCG(11, 3)), phi: 0.95, x: make([]float64, 6)}
-	for range 200 {
-		a.frame()
-	}
-	const period = time.Minute
-	const day = 24 * 60
-	tr, err := tracker.New(6, tracker.Config{Period: period})
-	if err != nil {
-		t.Fatal(err)
-	}
-	fit := make([][]float64, 5*day)
-	for k := range fit {
-		fit[k] = a.frame()
-	}
-	if err := tr.Fit(fit); err != nil {
-		t.Fatal(err)
-	}
-	rule := alerts.AlarmRule{N: 3, M: 5, OffDelay: 10 * time.Minute, Deadband: 0.05}
-	t0 := time.Date(2026, 1, 1, 0, 0, 0, 0, time.UTC)
+	tr, a, rule, t0 := fittedAR1(t)
+	const period, day = time.Minute, 24 * 60
 	const budget = 1.0
 	ct, cr := ratiosOf(t, tr, a, t0, period, 10*day)
 	clean, err := CalibrateBudget(ct, cr, budget, rule, 5)

@@ -95,22 +95,24 @@ func describe(rs []*alerts.Record) string {
 	return sb.String()
 }
 
-// TestTwoFaultsOneUnit: a 4σ bias on the pump, then, while it persists, a
-// 4σ bias on the dryer of the same unit: two incidents, each naming its
-// own equipment's channel first and holding it in its location, the
-// second as early after its fault as the first after its own.
-func TestTwoFaultsOneUnit(t *testing.T) {
-	b := newBench(1)
+// twoFaultBench runs the bench 2 days, then a bias of first σ on the
+// pump's f1 for 2 h (from t1), then also one of second σ on the dryer's
+// f2 for 2 h (from t2).
+func twoFaultBench(seed uint64, first, second float64) (b *bench, t1, t2 time.Time) {
+	b = newBench(seed)
 	b.run(2 * 24 * time.Hour)
-	t1 := b.t
-	b.bias[1] = 4 // pump f1
+	t1 = b.t
+	b.bias[1] = first
 	b.run(2 * time.Hour)
-	t2 := b.t
-	b.bias[6] = 4 // dryer f2
+	t2 = b.t
+	b.bias[6] = second
 	b.run(2 * time.Hour)
-	rs := replayBench(t, b, configs.Alerts{})
-	t.Logf("incidents:%s", describe(rs))
-	var pump, dryer *alerts.Record
+	return b, t1, t2
+}
+
+// pumpAndDryer returns the first incident from t1 holding the pump's f1
+// and the first from t2 holding the dryer's f2 (nil: none).
+func pumpAndDryer(rs []*alerts.Record, t1, t2 time.Time) (pump, dryer *alerts.Record) {
 	for _, r := range rs {
 		switch {
 		case pump == nil && !r.Start.Before(t1) && slices.Contains(r.Location, benchChannel(1)):
@@ -119,6 +121,18 @@ func TestTwoFaultsOneUnit(t *testing.T) {
 			dryer = r
 		}
 	}
+	return pump, dryer
+}
+
+// TestTwoFaultsOneUnit: a 4σ bias on the pump, then, while it persists, a
+// 4σ bias on the dryer of the same unit: two incidents, each naming its
+// own equipment's channel first and holding it in its location, the
+// second as early after its fault as the first after its own.
+func TestTwoFaultsOneUnit(t *testing.T) {
+	b, t1, t2 := twoFaultBench(1, 4, 4)
+	rs := replayBench(t, b, configs.Alerts{})
+	t.Logf("incidents:%s", describe(rs))
+	pump, dryer := pumpAndDryer(rs, t1, t2)
 	if pump == nil || dryer == nil || pump == dryer {
 		t.Fatalf("want one incident for the pump and another for the dryer")
 	}
