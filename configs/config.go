@@ -417,9 +417,10 @@ type Alerts struct {
 	// scored with their channels reconstructed from the others (Dunia &
 	// Qin 1998); when a statistic stays over its limit so, the leading
 	// channel of that score, if outside every open location, feeds the
-	// on-delay of a new incident (a second fault the first hides).
-	// Default true (chosen on the realism suite with the narrower
-	// incident locations: README, Validation).
+	// on-delay of a new incident (a second fault the first hides). It
+	// needs locations narrow enough to leave channels to reconstruct
+	// from. Default false (README, Validation: on the realism suite it
+	// found no fault the defaults miss).
 	BeyondIncidents *bool `yaml:"beyond_incidents"`
 	// LocationQuiet: an incident whose location has had no channel over
 	// its own contribution limit this long of plant time, while the unit

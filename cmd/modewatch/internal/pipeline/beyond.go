@@ -25,7 +25,7 @@ import (
 // appendBeyond appends to dst the leading contributors of the frame
 // scored with the unit's masked channels reconstructed, when some alarm
 // statistic of that score is over its (calibrated) limit; dst unchanged
-// otherwise, with alerts.beyond_incidents false, and for units whose frames carry lagged copies or smoothed
+// otherwise, without alerts.beyond_incidents, and for units whose frames carry lagged copies or smoothed
 // statistics (model.lags, model.smoothing). It allocates only when the
 // unit grew.
 func (u *Unit) appendBeyond(dst []string) []string {
@@ -82,12 +82,12 @@ func (u *Unit) beyondOver(s *tracker.Score) bool {
 }
 
 // beyondOn reports whether alerts.beyond_incidents holds for the unit
-// (default true; read once).
+// (default false; read once).
 func (u *Unit) beyondOn() bool {
 	if u.beyondSet == 0 {
-		u.beyondSet = 1
-		if b := u.p.cfg.AlertsFor(u.Name).BeyondIncidents; b != nil && !*b {
-			u.beyondSet = -1
+		u.beyondSet = -1
+		if b := u.p.cfg.AlertsFor(u.Name).BeyondIncidents; b != nil && *b {
+			u.beyondSet = 1
 		}
 	}
 	return u.beyondSet > 0

@@ -208,23 +208,12 @@ func (u *Unit) learnMaskOnly() []bool {
 
 // Location of a frame: its leading contributors (alerts.IsLeading: the
 // first alerts.LeadCount ranked channels over their own RBC limits and near
-// the first one), widened by the channels that move with them: in each
-// mode in which a leading channel is a member (its loading at least
-// widenShare of the mode's largest), the other members (loadings at least
-// widenShare of the largest too). A sparse mode of l0:K holds K channels,
-// most of them its group of sensors and a few with small loadings it
-// leaks into; neither the leaks nor the modes a leading channel only leaks
-// into belong to the location, else a channel driven with the whole unit
-// (a pump's power, which every demand-driven mode touches) pulls in every
-// group, and a second fault in other equipment of the unit is taken for
-// part of the first (its frames support the first incident, and the
-// reconstruction that looks beyond the open incidents, Observation.Beyond,
-// has nothing left to reconstruct from). Design choice, chosen on the
-// realism suite with alerts.beyond_incidents: 0.5 to 0.8 gave the same
-// detections, 0.8 the fewest false alerts; 0.3 (the share before, for
-// the other members only) kept the water works' second fault inside the
-// first's location (README, Validation).
-const widenShare = 0.8
+// the first one), widened by the channels that
+// move with them, i.e. the support of each mode holding a leading channel,
+// restricted to loadings of at least widenShare of the mode's largest (a
+// sparse mode whose cardinality exceeds its group of sensors carries a
+// few near-zero loadings from elsewhere).
+const widenShare = 0.3
 
 // location appends to dst the names of the frame's location (see
 // above). It allocates only when the unit grew.
@@ -260,15 +249,9 @@ func (u *Unit) location(dst []string) []string {
 				if m.ID != id {
 					continue
 				}
-				big, own := 0.0, 0.0
+				big := 0.0
 				for _, i := range m.Support {
 					big = max(big, math.Abs(m.Loadings[i]))
-					if i == c.Channel {
-						own = math.Abs(m.Loadings[i])
-					}
-				}
-				if own < widenShare*big {
-					continue // the channel is a near-zero leftover of this mode, not one of its group
 				}
 				for _, i := range m.Support {
 					if math.Abs(m.Loadings[i]) >= widenShare*big {
