@@ -97,7 +97,8 @@ func (p *Pipeline) checkpointOf(u *Unit) (*ModelFile, error) {
 		Frames: u.frames, From: u.firstT, To: u.lastT,
 		Units: []ModelUnit{{Name: u.Name, Channels: append([]string(nil), u.names...), Settings: settings,
 			Modes: u.modesView(), State: state, Alerts: snap.Bytes(), Last: u.lastReadings(), Quality: u.Profiles(), States: sf, Context: u.contextIn(),
-			DriverSlopes: u.driverSlopes(u.tr, false), Calibration: u.cal, Recentre: u.recentreState(), Smoothed: u.smoothedState(), Lagged: u.laggedState()}},
+			DriverSlopes: u.driverSlopes(u.tr, false), Calibration: u.cal, Recentre: u.recentreState(), Smoothed: u.smoothedState(), Lagged: u.laggedState(),
+			Screen: u.screenState()}},
 	}, nil
 }
 
@@ -281,6 +282,9 @@ func (p *Pipeline) Restore(cks []*ModelFile) (restored []string, errs []error) {
 			continue
 		}
 		u, err := p.buildFromModel(mu, time.Duration(ck.Period))
+		if err == nil {
+			err = u.setScreen(mu.Screen) // before anything is registered: a refusal changes nothing
+		}
 		if err != nil {
 			errs = append(errs, fmt.Errorf("unit %s: %w; the unit warms up again", mu.Name, err))
 			continue
