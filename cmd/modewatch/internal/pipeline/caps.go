@@ -6,6 +6,7 @@ import (
 	"hash/crc32"
 	"time"
 
+	"modewatch/alerts"
 	"modewatch/tracker"
 )
 
@@ -75,10 +76,16 @@ const maxNameBytes = 1024
 // CheckpointBodyBytes bounds the JSON of a unit checkpoint whose unit has
 // at most maxChannels channels: the base64 of the largest tracker states
 // (the unit's and one per operating state, at most tracker.MaxStates),
-// the channel names, the carried readings and the alarm state.
+// the channel names, the carried readings, the data-quality screen's
+// runs (screenRunBytes per channel) and the alarm state.
 func CheckpointBodyBytes(maxChannels int) int64 {
-	return int64(1+tracker.MaxStates)*int64(maxStateBytes(maxChannels))*4/3 + int64(maxChannels)*(3*maxNameBytes+256) + 16<<20
+	return int64(1+tracker.MaxStates)*int64(maxStateBytes(maxChannels))*4/3 + int64(maxChannels)*(3*maxNameBytes+256+screenRunBytes) + 16<<20
 }
+
+// screenRunBytes bounds the JSON of one channel's screen run beyond its
+// name: alerts.MaxSpikeCount spike ages and two readings of at most 24
+// characters each, and the field names and counts.
+const screenRunBytes = (alerts.MaxSpikeCount+2)*25 + 256
 
 // checkUnitCaps checks the sizes a model unit asks for against the unit's
 // channel cap before anything is built from it: the channel count, the
@@ -93,6 +100,8 @@ func checkUnitCaps(mu *ModelUnit, maxChannels int) error {
 		return fmt.Errorf("%w: unit name of %d bytes (at most %d)", ErrModelFile, len(mu.Name), maxNameBytes)
 	case len(mu.Last) > p:
 		return fmt.Errorf("%w: unit %.64q carries %d readings for %d channels", ErrModelFile, mu.Name, len(mu.Last), p)
+	case len(mu.Screen) > p:
+		return fmt.Errorf("%w: unit %.64q carries %d screen runs for %d channels", ErrModelFile, mu.Name, len(mu.Screen), p)
 	case mu.Settings.Lags < 0 || mu.Settings.Lags > tracker.MaxLags:
 		return fmt.Errorf("%w: unit %.64q: %d lagged copies (0 to %d)", ErrModelFile, mu.Name, mu.Settings.Lags, tracker.MaxLags)
 	case p*(1+mu.Settings.Lags) > maxChannels:
@@ -128,6 +137,11 @@ func checkUnitCaps(mu *ModelUnit, maxChannels int) error {
 	for i, r := range mu.Last {
 		if _, ok := seen[r.Channel]; !ok {
 			return fmt.Errorf("%w: unit %.64q: carried reading %d names channel %.64q, not one of the unit's", ErrModelFile, mu.Name, i, r.Channel)
+		}
+	}
+	for i, r := range mu.Screen {
+		if _, ok := seen[r.Channel]; !ok {
+			return fmt.Errorf("%w: unit %.64q: screen run %d names channel %.64q, not one of the unit's", ErrModelFile, mu.Name, i, r.Channel)
 		}
 	}
 	if mu.Settings.WarmUp < 0 || mu.Settings.RefreshEvery < 0 || mu.Settings.MaxModes < 0 ||

@@ -14,6 +14,7 @@ import (
 	"testing"
 	"time"
 
+	"modewatch/alerts"
 	"modewatch/configs"
 	"modewatch/stream"
 	"modewatch/tracker"
@@ -190,6 +191,21 @@ func TestHostileCheckpoints(t *testing.T) {
 			m.Units[0].Last = append(m.Units[0].Last, LastReading{Channel: "nobody", Value: 1})
 			return enc(m)
 		}, "not one of the unit's"},
+		{"screen run of a stranger", func() []byte {
+			m := clone()
+			m.Units[0].Screen = []alerts.ChannelRun{{Channel: "nobody", Flat: 3}}
+			return enc(m)
+		}, "screen run 0 names channel"},
+		{"screen runs over the channels", func() []byte {
+			m := clone()
+			m.Units[0].Screen = make([]alerts.ChannelRun, len(m.Units[0].Channels)+1)
+			return enc(m)
+		}, "screen runs for"},
+		{"screen spikes out of order", func() []byte {
+			m := clone()
+			m.Units[0].Screen = []alerts.ChannelRun{{Channel: m.Units[0].Channels[0], Spikes: []int64{5, 5}}}
+			return enc(m)
+		}, "not positive and ascending"},
 	}
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {

@@ -14,6 +14,7 @@ import (
 
 	"modewatch/alerts"
 	"modewatch/cmd/modewatch/internal/store"
+	"modewatch/stream"
 )
 
 // A unit checkpoint is a model file holding that one unit with its live
@@ -97,7 +98,8 @@ func (p *Pipeline) checkpointOf(u *Unit) (*ModelFile, error) {
 		Frames: u.frames, From: u.firstT, To: u.lastT,
 		Units: []ModelUnit{{Name: u.Name, Channels: append([]string(nil), u.names...), Settings: settings,
 			Modes: u.modesView(), State: state, Alerts: snap.Bytes(), Last: u.lastReadings(), Quality: u.Profiles(), States: sf, Context: u.contextIn(),
-			DriverSlopes: u.driverSlopes(u.tr, false), Calibration: u.cal, Recentre: u.recentreState(), Smoothed: u.smoothedState(), Lagged: u.laggedState()}},
+			DriverSlopes: u.driverSlopes(u.tr, false), Calibration: u.cal, Recentre: u.recentreState(), Smoothed: u.smoothedState(), Lagged: u.laggedState(),
+			Screen: u.screenState()}},
 	}, nil
 }
 
@@ -129,6 +131,49 @@ func (u *Unit) setLast(last []LastReading) {
 			u.lastV[k], u.lastAt[k] = r.Value, r.Time.UnixNano()
 		}
 	}
+	u.seedV, u.seedAt = nil, nil
+	if len(last) > 0 {
+		u.seedV, u.seedAt = slices.Clone(u.lastV), slices.Clone(u.lastAt)
+	}
+}
+
+// seeded reports whether channel k, which frame f does not reach, carries
+// the checkpoint's reading in f as an uninterrupted aligner would carry
+// it: its event time t before the frame's end E and E − t within the
+// staleness limit. After a restart the channel registry starts empty, and
+// the aligner gets a channel's carried reading (stream.Intake.SeedLast)
+// only when the channel's first reading is decoded again; a frame emitted
+// before that (the channel's next readings dropped or later) would
+// otherwise miss a reading the uninterrupted run had.
+func (u *Unit) seeded(k int, f *stream.Frame) bool {
+	if i := u.idx[k]; i >= 0 && i < len(f.Values) {
+		return false // the aligner has the channel, and its seed
+	}
+	at := u.seedAt[k]
+	end := f.Start.Add(u.p.opt.Period).UnixNano()
+	return at != noReading && at < end && end-at <= int64(u.p.stale)
+}
+
+// carrySeeds gives the channels of frame f that seeded holds for the
+// checkpoint's carried reading, and returns how many. Once no seed can be
+// used again (every one reached by the frames or stale), the seeds are
+// dropped. It allocates nothing.
+func (u *Unit) carrySeeds(f *stream.Frame) int {
+	n, live := 0, false
+	end := f.Start.Add(u.p.opt.Period).UnixNano()
+	for k, at := range u.seedAt {
+		if u.seeded(k, f) {
+			u.x[k], u.miss[k] = u.seedV[k], false
+			n++
+		}
+		if i := u.idx[k]; at != noReading && end-at <= int64(u.p.stale) && (i < 0 || i >= len(f.Values)) {
+			live = true
+		}
+	}
+	if !live {
+		u.seedV, u.seedAt = nil, nil
+	}
+	return n
 }
 
 // CurrentFile names, inside a checkpoint directory, the generation
@@ -281,6 +326,9 @@ func (p *Pipeline) Restore(cks []*ModelFile) (restored []string, errs []error) {
 			continue
 		}
 		u, err := p.buildFromModel(mu, time.Duration(ck.Period))
+		if err == nil {
+			err = u.setScreen(mu.Screen) // before anything is registered: a refusal changes nothing
+		}
 		if err != nil {
 			errs = append(errs, fmt.Errorf("unit %s: %w; the unit warms up again", mu.Name, err))
 			continue

@@ -72,9 +72,14 @@ func TrackerConfig(m configs.Model, period time.Duration, p int, equal bool) (tr
 // profile, as when it was written. Version 3 added, in unit checkpoints,
 // the recentring of an accepted incident's channels in progress
 // (ModelUnit.Recentre); an older checkpoint loads with none in progress.
+// Version 4 added, in unit checkpoints, the running state of the unit's
+// data-quality screen (ModelUnit.Screen: flat runs, missing runs, recent
+// spikes); an older checkpoint loads with that state empty, as a restart
+// before version 4 began it (flat and missing runs and spike counts from
+// zero).
 const (
 	ModelFormat  = "modewatch-model"
-	ModelVersion = 3
+	ModelVersion = 4
 	// modelVersionMin is the oldest version this program reads.
 	modelVersionMin = 1
 )
@@ -149,6 +154,13 @@ type ModelUnit struct {
 	// still in progress at the checkpoint's last frame; absent when none
 	// is.
 	Recentre *RecentreState `json:"recentre,omitempty"`
+	// Screen is, in a unit checkpoint (version 4), the running state of
+	// the unit's data-quality screen at the checkpoint's last frame, per
+	// channel that has any (alerts.Screen.AppendState): the current flat
+	// run (stuck), missing run (missing hold) and recent readings and
+	// spikes (spikes). Absent in fitted models and older checkpoints: the
+	// runs then start empty.
+	Screen []alerts.ChannelRun `json:"screen,omitempty"`
 }
 
 // LastReading is a channel's reading carried at a checkpoint's last frame.

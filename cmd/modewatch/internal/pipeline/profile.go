@@ -1,6 +1,7 @@
 package pipeline
 
 import (
+	"fmt"
 	"math"
 	"slices"
 	"time"
@@ -184,4 +185,29 @@ func (u *Unit) Profiles() []alerts.ChannelProfile {
 		return out
 	}
 	return slices.Clone(u.profile)
+}
+
+// screenState returns the running state of the unit's data-quality screen
+// for its checkpoint (nil before the screen's first frame). Called under
+// p.mu, between the same two frames as the tracker state.
+func (u *Unit) screenState() []alerts.ChannelRun {
+	if u.screen == nil {
+		return nil
+	}
+	return u.screen.AppendState(nil)
+}
+
+// setScreen restores the running state of a unit checkpoint's screen
+// (none: every run starts empty, as before checkpoints carried it). The
+// screen is built here, over the model's channels and profiles, as the
+// unit's first frame would build it; a state that does not fit the
+// unit's channels is refused (alerts.Screen.SetState) and the unit is
+// left without a screen.
+func (u *Unit) setScreen(runs []alerts.ChannelRun) error {
+	s := alerts.NewScreen(u.Name, u.names, u.profile)
+	if err := s.SetState(runs); err != nil {
+		return fmt.Errorf("%w: %w", ErrModelFile, err)
+	}
+	u.screen = s
+	return nil
 }

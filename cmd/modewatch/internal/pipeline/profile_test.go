@@ -40,6 +40,10 @@ type qEvents struct {
 	rest   func(k int) bool
 	frozen func(k int) bool
 	silent func(k int, unit string) bool
+	// spike, when set, is added to flow's reading of frame k (a one-frame
+	// spike); drop, when true, leaves out level's reading of frame k.
+	spike func(k int) float64
+	drop  func(k int) bool
 }
 
 // qPlant writes frames [from, to) of the plant as line protocol.
@@ -62,14 +66,18 @@ func qPlant(from, to int, ev qEvents, seed uint64) []byte {
 		if ev.frozen == nil || !ev.frozen(k) {
 			flow = 40 + rng.NormFloat64()
 		}
+		flowOut := flow
+		if ev.spike != nil {
+			flowOut += ev.spike(k)
+		}
 		temp := math.Round((60+3*math.Sin(float64(k)/500)+0.4*rng.NormFloat64())*2) / 2
 		if ev.silent == nil || !ev.silent(k, "press") {
 			fmt.Fprintf(&b, "press,asset=line speed=%.3f,status=%di,flow=%.4f,temp=%.1f,p2=%.4f %d\n",
-				speed, status, flow, temp, 0.02*speed+rng.NormFloat64(), ts)
+				speed, status, flowOut, temp, 0.02*speed+rng.NormFloat64(), ts)
 		}
 		if ev.silent == nil || !ev.silent(k, "feed") {
 			lvl := 5 + math.Sin(float64(k)/300) + 0.1*rng.NormFloat64()
-			if k%997 >= 6 { // dropouts of 6 readings: 3 frames past the staleness
+			if k%997 >= 6 && (ev.drop == nil || !ev.drop(k)) { // dropouts of 6 readings: 3 frames past the staleness
 				fmt.Fprintf(&b, "feed,asset=tank level=%.4f %d\n", lvl, ts)
 			}
 			fmt.Fprintf(&b, "feed,asset=tank out=%.4f %d\n", 2*lvl+0.2*rng.NormFloat64(), ts)

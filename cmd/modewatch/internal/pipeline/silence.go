@@ -37,8 +37,8 @@ func (p *Pipeline) ClockJump(from, to time.Time, _ int) {
 	p.mu.Lock()
 	defer p.mu.Unlock()
 	for _, u := range p.units {
-		if u.screen == nil || u.tr == nil || u.lastT.IsZero() || !t.After(u.lastT) {
-			continue
+		if u.screen == nil || len(u.x) == 0 || u.tr == nil || u.lastT.IsZero() || !t.After(u.lastT) {
+			continue // no frame in this run yet (a unit restored from a checkpoint waits for its first)
 		}
 		u.screen.Step(nanFrame(u.x, u.miss), u.miss)
 		u.observeSilent(t)

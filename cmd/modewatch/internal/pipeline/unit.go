@@ -48,8 +48,13 @@ type Unit struct {
 	// lastV, lastAt: each model channel's value in the frame lastT and the
 	// event time (ns) of its reading; lastAt is noReading where missing.
 	// A checkpoint saves them to seed the aligner on restart.
-	lastV       []float64
-	lastAt      []int64
+	lastV  []float64
+	lastAt []int64
+	// seedV, seedAt: after a restore, the checkpoint's carried readings
+	// (as lastV, lastAt), used for the channels the frames do not reach
+	// yet (see carrySeeds); nil once none can be used.
+	seedV       []float64
+	seedAt      []int64
 	baseline    bool        // started from a fitted model
 	alertFrozen atomic.Bool // set by the alarm engine
 	gap         atomic.Bool // readings may have been lost upstream (NoteIntakeGap); reported at the next frame
@@ -289,6 +294,9 @@ func (u *Unit) stepModel(f *stream.Frame) {
 		u.grow() // channels discovered since
 	}
 	observed := f.Gather(u.x, u.miss, nil, u.idx)
+	if u.seedAt != nil {
+		observed += u.carrySeeds(f)
+	}
 	u.augment()
 	u.syncContext()
 	if u.nCtx > 0 {
@@ -398,6 +406,11 @@ func (u *Unit) keepLast(f *stream.Frame) {
 		u.lastAt = slices.Grow(u.lastAt[:0], len(u.idx))[:len(u.idx)]
 	}
 	f.Gather(u.lastV, nil, u.lastAt, u.idx)
+	for k := range u.seedAt {
+		if u.seeded(k, f) {
+			u.lastV[k], u.lastAt[k] = u.seedV[k], u.seedAt[k]
+		}
+	}
 }
 
 // ModelState returns the unit's model state in the alarm engine's terms.
