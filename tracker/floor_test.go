@@ -33,6 +33,21 @@ func quantisedFrames(n int, seed uint64) [][]float64 {
 	return out
 }
 
+// fitWithFloor returns a one-mode tracker over the four channels of
+// quantisedFrames with the scale floor set, fitted on fit.
+func fitWithFloor(t *testing.T, fit [][]float64, floor []float64) *Tracker {
+	t.Helper()
+	tr, err := New(4, Config{Period: time.Minute, Modes: modes.Config{Count: 1}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	tr.SetScaleFloor(floor)
+	if err := tr.Fit(fit); err != nil {
+		t.Fatal(err)
+	}
+	return tr
+}
+
 // TestScaleFloor: with the floor of the quantised channel at its step q
 // (SetScaleFloor), the standardization and the correlation A follow the
 // formulas of SetScaleFloor (hand derivation: zᵢ = (xᵢ − μᵢ)/q,
@@ -44,19 +59,8 @@ func quantisedFrames(n int, seed uint64) [][]float64 {
 func TestScaleFloor(t *testing.T) {
 	const q = 0.01
 	fit := quantisedFrames(3000, 1)
-	newFitted := func(floor []float64) *Tracker {
-		tr, err := New(4, Config{Period: time.Minute, Modes: modes.Config{Count: 1}})
-		if err != nil {
-			t.Fatal(err)
-		}
-		tr.SetScaleFloor(floor)
-		if err := tr.Fit(fit); err != nil {
-			t.Fatal(err)
-		}
-		return tr
-	}
-	raw := newFitted(nil)
-	fl := newFitted([]float64{0, 0, 0, q})
+	raw := fitWithFloor(t, fit, nil)
+	fl := fitWithFloor(t, fit, []float64{0, 0, 0, q})
 	if got := fl.ScaleFloor(3); !scalar.EqualWithinAbsOrRel(got, q, 1e-15, 1e-12) {
 		t.Errorf("ScaleFloor(3) = %v, want %v", got, q)
 	}
@@ -121,14 +125,7 @@ func TestScaleFloorOff(t *testing.T) {
 	x := []float64{11, 21, 4, 3.51}
 	var want Score
 	for k, floor := range [][]float64{nil, {0, 0, 0, 0}, {1e-6, 1e-6, 1e-6, 1e-6}} {
-		tr, err := New(4, Config{Period: time.Minute, Modes: modes.Config{Count: 1}})
-		if err != nil {
-			t.Fatal(err)
-		}
-		tr.SetScaleFloor(floor)
-		if err := tr.Fit(fit); err != nil {
-			t.Fatal(err)
-		}
+		tr := fitWithFloor(t, fit, floor)
 		var s Score
 		if err := tr.Evaluate(&s, x, nil); err != nil {
 			t.Fatal(err)

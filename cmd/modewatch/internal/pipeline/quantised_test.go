@@ -48,11 +48,8 @@ func tankPlant(from, to int, ev tEvents, seed uint64) []byte {
 		in := 50 + 5*math.Sin(float64(k)/300) + 0.5*rng.NormFloat64()
 		out := in + 0.5*rng.NormFloat64()
 		press := 2.00
-		switch u := rng.Float64(); {
-		case u < 0.01:
-			press = 1.99
-		case u < 0.02:
-			press = 2.01
+		if u := rng.Float64(); u < 0.02 {
+			press += 0.01 * float64(2*int(u/0.01)-1) // one step down or up, 1 % each
 		}
 		if ev.press != nil {
 			if v, ok := ev.press(k); ok {
