@@ -18,8 +18,9 @@ import (
 // (c = 1/√12) any quantised channel deserves. At c = 1 one step of a
 // nearly constant channel is one standard deviation, while a move of
 // many steps still stands out. Chosen on the realism suite and the demo
-// together (README: c = 1/√12 leaves one step at 3.5 σ, which still
-// opened the district-heating pumps' false alert).
+// together (README: 1/√12 leaves one step at 3.5 σ, which still opened
+// the district-heating pumps' false alert; from 3 steps the floor reaches
+// quantised valves that move several steps and the false alerts rise).
 const DefaultResolutionFloor = 1.0
 
 // resolutionFloor returns the unit's model.resolution_floor (0: none).
