@@ -30,6 +30,22 @@ const (
 	MaxLevels = 10
 	// MaxRest bounds the rest values kept per channel.
 	MaxRest = 4
+	// StuckTailRuns: the tail of a channel's flat-run lengths is
+	// estimated from its StuckTailRuns longest live runs in the normal
+	// log (ChannelProfile.FlatTail).
+	StuckTailRuns = 10
+	// StuckTail: a live value is stuck once its flat run exceeds the
+	// normal longest run by this many tail scales (when that is more than
+	// StuckMargin). Under an exponential tail of scale β, runs beyond the
+	// longest of n normal runs by m come about exp(−m/β) times per n runs
+	// (peaks over a threshold with shape 0: Coles 2001, An Introduction to
+	// Statistical Modeling of Extreme Values, ch. 4): at m = 4β about once
+	// in 55 normal logs' worth of runs, about once a year for a week-long
+	// normal log. A live analog sensor's runs are a frame or two (β < 1:
+	// StuckMargin decides); a coarsely quantised reading held by its
+	// controller has runs of tens of frames whose longest varies from day
+	// to day by several β.
+	StuckTail = 4
 )
 
 // ChannelProfile is what a normal log says about one channel's data
@@ -67,6 +83,35 @@ type ChannelProfile struct {
 	SpikeSize       float64 `json:"spike_size,omitempty"`
 	SpikeMax        int     `json:"spike_max,omitempty"`
 	SpikeSpanFrames int     `json:"spike_span_frames,omitempty"`
+	// FlatTail is the scale β of the exponential tail of the channel's
+	// live flat-run lengths (frames; see FlatTailScale), 0 when unknown
+	// (fewer than StuckTailRuns+1 runs, or a model file from before it).
+	FlatTail float64 `json:"flat_tail,omitempty"`
+}
+
+// FlatTailScale returns the exponential tail scale of run lengths from
+// top, the longest runs longest first: with the k = len(top) − 1 longest
+// over the threshold u = top[k], the maximum-likelihood scale of their
+// excesses, β̂ = (1/k)·Σᵢ₌₁ᵏ (top[i−1] − u) (the exponential, shape 0,
+// case of the peaks-over-threshold model: Coles 2001, ch. 4). It returns 0
+// when top holds fewer than StuckTailRuns+1 runs.
+func FlatTailScale(top []int) float64 {
+	k := len(top) - 1
+	if k < StuckTailRuns {
+		return 0
+	}
+	s := 0.0
+	for _, n := range top[:k] {
+		s += float64(n - top[k])
+	}
+	return s / float64(k)
+}
+
+// StuckAfter returns the flat-run length (frames) beyond which a live
+// value of the channel is stuck: its normal longest run MaxFlat plus the
+// larger of StuckMargin and StuckTail tail scales (FlatTail).
+func (p *ChannelProfile) StuckAfter() int {
+	return p.MaxFlat + max(StuckMargin, int(math.Ceil(StuckTail*p.FlatTail)))
 }
 
 // MissingRate is the share of the normal log's frames in which the channel
@@ -212,7 +257,7 @@ func (s *Screen) MissingAlarm(k int) bool {
 //	silent        every channel missing (one condition, Channel = unit)
 //	stuck         a profiled channel, not discrete, repeating a value that
 //	              is not one of its rest values for more than
-//	              MaxFlat + StuckMargin frames
+//	              StuckAfter frames
 //	out_of_range  a profiled channel, not discrete, beyond its normal
 //	              range by more than the range's width (see ChannelProfile);
 //	              a status taking a value its normal log never had is a
@@ -240,7 +285,7 @@ func (s *Screen) AppendQuality(dst []Quality) []Quality {
 			continue
 		}
 		v := s.last[k]
-		if !p.Discrete() && s.flat[k] > p.MaxFlat+StuckMargin && !p.isRest(v) {
+		if !p.Discrete() && s.flat[k] > p.StuckAfter() && !p.isRest(v) {
 			dst = append(dst, Quality{Channel: s.names[k], Kind: QualityStuck})
 		}
 		if !p.Discrete() && p.outOfRange(v) {

@@ -329,6 +329,13 @@ type Model struct {
 	// scored, so a slow drift is scored against a model that has not yet
 	// followed it (N-step-ahead scoring). Default 0.
 	ScoreLag time.Duration `yaml:"score_lag"`
+	// ResolutionFloor: no channel is standardized with a standard
+	// deviation below this multiple of its resolution, the quantisation
+	// step its data-quality profile learned in fit (a nearly constant
+	// quantised reading would otherwise make one step many standard
+	// deviations). Zero: the default (pipeline.DefaultResolutionFloor);
+	// negative: no floor.
+	ResolutionFloor float64 `yaml:"resolution_floor"`
 	// WarmUp frames are learned before scores are reported. Default
 	// tracker.DefaultWarmUp (500).
 	WarmUp int `yaml:"warmup"`

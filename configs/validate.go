@@ -326,6 +326,9 @@ func (v *validator) model(p string, m Model, partial bool) {
 	if m.HalfLife < 0 {
 		v.add(p+".halflife", "negative")
 	}
+	if math.IsNaN(m.ResolutionFloor) || math.IsInf(m.ResolutionFloor, 0) {
+		v.add(p+".resolution_floor", "%g is not a finite multiple of the resolution", m.ResolutionFloor)
+	}
 	if m.Alpha != 0 && !(m.Alpha > 0 && m.Alpha < 0.5) {
 		v.add(p+".alpha", "%g is not a false-alarm rate in (0, 0.5)", m.Alpha)
 	}

@@ -49,7 +49,7 @@ func (t *Tracker) expectedOf(c *Contribution, i int, x []float64, pt *pattern) {
 	mz := cd*w.dz[i] + ce*w.e[i]
 	zr := w.z[i] - mz*inv
 	s2 := pt.rbcLim[i] / t.ls.chi1 * inv
-	sd := math.Sqrt(t.ew.Var(i))
+	sd := math.Sqrt(t.scaleVar(i))
 	c.Expected = t.ew.Mean(i) + sd*zr
 	c.Band = bandZ * sd * math.Sqrt(math.Max(s2, 0))
 }

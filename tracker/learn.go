@@ -114,7 +114,7 @@ func (t *Tracker) learnFrame(r float64, x []float64, mask []bool, scored bool) (
 		copy(lw.xl, x)
 		for i, m := range mask {
 			if m && t.obs[i] && t.mdl.include[i] {
-				lw.xl[i] = t.ew.Mean(i) + math.Sqrt(t.ew.Var(i))*w.z[i]
+				lw.xl[i] = t.ew.Mean(i) + math.Sqrt(t.scaleVar(i))*w.z[i]
 			}
 		}
 		xl = lw.xl
@@ -178,7 +178,7 @@ func (t *Tracker) addConditional(pt *pattern, mask []bool, wt float64) {
 	for x, i := range pt.miss {
 		if mask[i] && t.obs[i] {
 			dec[x] = e.pendingDecayFrom(i, d0, f)
-			sd[x] = math.Sqrt(e.vari[i]) // before this frame's terms (as σ_m, σ_n above)
+			sd[x] = math.Sqrt(t.scaleVar(i)) // before this frame's terms (as σ_m, σ_n above; with the scale floor)
 		}
 	}
 	for x, i := range pt.miss {

@@ -368,6 +368,8 @@ type Tracker struct {
 	calSPE   float64
 	calPhi   float64
 	calScale [3]float64 // empirical / theoretical at the base pattern
+
+	floor []float64 // variance floor per channel (SetScaleFloor), nil: none
 }
 
 func (c *Config) defaults(p int) error {
@@ -627,7 +629,7 @@ func (t *Tracker) standardize(w *work, x []float64, mask []bool) {
 			w.z[i] = 0
 			w.miss = append(w.miss, i)
 		default:
-			w.z[i] = (x[i] - t.ew.Mean(i)) / math.Sqrt(t.ew.Var(i))
+			w.z[i] = (x[i] - t.ew.Mean(i)) / math.Sqrt(t.scaleVar(i))
 		}
 	}
 }
@@ -805,7 +807,7 @@ func (t *Tracker) Refresh() error {
 	if !any {
 		return fmt.Errorf("%w: no channel has variance", ErrModel)
 	}
-	t.ew.CorrTo(m.a, m.include)
+	t.corrTo(m.include)
 	if err := t.ms.Refresh(m.a); err != nil {
 		return fmt.Errorf("%w: %w", ErrModel, err)
 	}
@@ -1061,6 +1063,9 @@ func (t *Tracker) Grow(p2 int, cfg Config) error {
 	t.run = run
 	t.obs = make([]bool, p2)
 	t.stuck = make([]bool, p2)
+	if t.floor != nil {
+		t.floor = grow(t.floor, 0)
+	}
 	nEff := t.mdl.nEff
 	t.p, t.cfg, t.ucfg, t.ms, t.maxR = p2, cfg, ucfg, ms, maxR
 	t.mdl = m2

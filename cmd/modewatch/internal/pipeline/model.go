@@ -334,6 +334,12 @@ func (p *Pipeline) buildFromModel(mu *ModelUnit, period time.Duration) (*Unit, e
 	for k := range u.idx {
 		u.idx[k] = -1 // resolved against the registry by addChannel
 	}
+	u.floorScale(u.tr, mu.Quality)
+	if u.states != nil {
+		for _, m := range u.states.models {
+			u.floorScale(m.tr, mu.Quality)
+		}
+	}
 	return u, nil
 }
 
@@ -378,9 +384,12 @@ func (p *Pipeline) Baseline() (*ModelFile, error) {
 				continue
 			}
 			sf, u.tr = f, u.states.models[best].tr
-		} else if err := u.tr.Refresh(); err != nil {
-			errs = append(errs, fmt.Errorf("unit %s: %w", u.Name, err))
-			continue
+		} else {
+			u.floorScale(u.tr, u.Profiles()) // the final refresh forms A with the learned resolutions
+			if err := u.tr.Refresh(); err != nil {
+				errs = append(errs, fmt.Errorf("unit %s: %w", u.Name, err))
+				continue
+			}
 		}
 		u.tr.Freeze()
 		u.frozen = true

@@ -27,11 +27,36 @@ type profiler struct {
 	seen   []bool      // a value was observed
 	spikes []alerts.SpikeLearner
 	period time.Duration // frame period (the spike rule's span in frames)
+	// The longest flat runs, for the tail of their distribution
+	// (alerts.ChannelProfile.FlatTail): short counts the runs of each
+	// length below alerts.RestRun; other keeps the longest runs of values
+	// beyond maxRestCandidates (rest holds those of the others).
+	short [][alerts.RestRun]int
+	other [][]int
 }
 
 type restRun struct {
-	v float64
-	n int
+	v   float64
+	n   int
+	top []int // its longest runs, longest first (tailKeep)
+}
+
+// tailKeep is the number of longest runs kept per value: the runs the
+// tail scale is estimated from, and the threshold below them.
+const tailKeep = alerts.StuckTailRuns + 1
+
+// keepLongest inserts run n into top (longest first), keeping at most
+// tailKeep runs.
+func keepLongest(top []int, n int) []int {
+	i, _ := slices.BinarySearchFunc(top, n, func(a, b int) int { return b - a })
+	if i >= tailKeep {
+		return top
+	}
+	top = slices.Insert(top, i, n)
+	if len(top) > tailKeep {
+		top = top[:tailKeep]
+	}
+	return top
 }
 
 // grow adds the channels of names beyond those the profiler has.
@@ -45,6 +70,8 @@ func (pr *profiler) grow(names []string) {
 		pr.levels = append(pr.levels, nil)
 		pr.seen = append(pr.seen, false)
 		pr.spikes = append(pr.spikes, alerts.NewSpikeLearner(pr.period))
+		pr.short = append(pr.short, [alerts.RestRun]int{})
+		pr.other = append(pr.other, nil)
 	}
 }
 
@@ -83,20 +110,50 @@ func (pr *profiler) add(x []float64, miss []bool) {
 // endRun books the flat run of channel k that just ended.
 func (pr *profiler) endRun(k int) {
 	n, v := pr.run[k], pr.last[k]
+	if n <= 0 {
+		return
+	}
 	if n < alerts.RestRun {
 		pr.prof[k].MaxFlat = max(pr.prof[k].MaxFlat, n)
+		pr.short[k][n]++
 		return
 	}
 	rs := pr.rest[k]
 	if i := slices.IndexFunc(rs, func(r restRun) bool { return r.v == v }); i >= 0 {
 		rs[i].n = max(rs[i].n, n)
+		rs[i].top = keepLongest(rs[i].top, n)
 		return
 	}
 	if len(rs) < maxRestCandidates {
-		pr.rest[k] = append(rs, restRun{v, n})
+		pr.rest[k] = append(rs, restRun{v, n, []int{n}})
 		return
 	}
 	pr.prof[k].MaxFlat = max(pr.prof[k].MaxFlat, n) // too many long-run values to tell rest from live
+	pr.other[k] = keepLongest(pr.other[k], n)
+}
+
+// flatTail returns the exponential tail scale of channel k's live flat
+// runs (alerts.ChannelProfile.FlatTail) given its rest values: 0 when
+// fewer than tailKeep runs were seen.
+func (pr *profiler) flatTail(k int, rest []float64) float64 {
+	var top []int
+	add := func(n int) { top = keepLongest(top, n) }
+	for _, r := range pr.rest[k] {
+		if !slices.Contains(rest, r.v) {
+			for _, n := range r.top {
+				add(n)
+			}
+		}
+	}
+	for _, n := range pr.other[k] {
+		add(n)
+	}
+	for n := alerts.RestRun - 1; n >= 1 && len(top) < tailKeep; n-- {
+		for c := pr.short[k][n]; c > 0 && len(top) < tailKeep; c-- {
+			add(n)
+		}
+	}
+	return alerts.FlatTailScale(top)
 }
 
 // profiles finishes the open runs and returns the profiles of the channels
@@ -125,6 +182,7 @@ func (pr *profiler) profiles() []alerts.ChannelProfile {
 			p.Levels = n
 		}
 		pr.spikes[k].Profile(&p)
+		p.FlatTail = pr.flatTail(k, p.Rest)
 		out = append(out, p)
 	}
 	return out

@@ -191,6 +191,9 @@ func (u *Unit) newState(key float64, t time.Time) int {
 			return s.cur
 		}
 	}
+	if !u.p.opt.Fit && tr != u.tr {
+		u.floorScale(tr, u.Profiles()) // fit sets the floor with the final profiles (statesBaseline)
+	}
 	m := &stateModel{key: key, tr: tr}
 	s.models = append(s.models, m)
 	if u.baseline && !u.p.opt.Fit {
@@ -367,6 +370,7 @@ func (u *Unit) statesBaseline(withLimits bool) (*StatesFile, int, error) {
 					s.label(m.key), m.frames, warm))
 				continue
 			}
+			u.floorScale(m.tr, u.Profiles())
 			if err := m.tr.Refresh(); err != nil {
 				errs = append(errs, fmt.Errorf("state %s: %d frames: %w", s.label(m.key), m.frames, err))
 				continue
