@@ -61,6 +61,9 @@ func (t *Tracker) fingerprint() uint64 {
 	for _, s := range mc.Sparsity {
 		fmt.Fprintf(h, "%s;", s)
 	}
+	if mc.MinCount != 0 {
+		fmt.Fprintf(h, "min%d|", mc.MinCount) // absent when 0: older states keep their fingerprint
+	}
 	// Lag and Robust are left out: they shape how frames are learned, not
 	// the state (a checkpoint's lag frames are checked against the ring).
 	return h.Sum64()

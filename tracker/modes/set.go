@@ -33,6 +33,14 @@ type Config struct {
 	// MaxCount caps the automatic count; default min(p, DefaultMaxCount), or
 	// len(Sparsity) when that is above 1.
 	MaxCount int
+	// MinCount, with the automatic count, is the fewest modes the Share rule
+	// may stop at: the count goes on past Share until MinCount modes are
+	// kept, still within MaxCount, MinAdjusted and the residual cap (so it
+	// is a floor on the Share rule, never on those). 0 (the default): no
+	// floor. Operating states of one unit use it so that each state keeps
+	// as many modes as the richest state (channels the state does not move
+	// then stay in the modes of every state, not in one state's residual).
+	MinCount int
 	// MinAdjusted: with the automatic count and MinAdjusted > 0, a mode
 	// after the first is kept only while its AdjustedVariance exceeds
 	// MinAdjusted times the average variance of a channel with nonzero
@@ -201,12 +209,15 @@ func (cfg *Config) countDefaults(p int) (slots int, auto bool, err error) {
 			return 0, false, configErr("%d sparsity entries for p = %d channels", ns, p)
 		}
 		slots = cfg.MaxCount
+		if cfg.MinCount < 0 {
+			return 0, false, configErr("MinCount = %d, want ≥ 0", cfg.MinCount)
+		}
 		if !(cfg.MinAdjusted >= 0) || math.IsInf(cfg.MinAdjusted, 0) {
 			return 0, false, configErr("MinAdjusted = %g, want finite ≥ 0", cfg.MinAdjusted)
 		}
 	} else {
-		if cfg.Share != 0 {
-			return 0, false, configErr("Share = %g is only used with Count = 0", cfg.Share)
+		if cfg.Share != 0 || cfg.MinCount != 0 {
+			return 0, false, configErr("Share = %g and MinCount = %d are only used with Count = 0", cfg.Share, cfg.MinCount)
 		}
 		if cfg.MaxCount == 0 {
 			cfg.MaxCount = cfg.Count
@@ -449,7 +460,7 @@ func (t *Set) Refresh(a *mat.SymDense) error {
 		nx.r = j + 1
 		cum += adj
 		x := nx.x[j]
-		if t.auto && cum >= t.cfg.Share*trace {
+		if t.auto && cum >= t.cfg.Share*trace && j+1 >= t.cfg.MinCount {
 			break
 		}
 		if j+1 == t.slots {

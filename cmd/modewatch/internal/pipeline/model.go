@@ -283,6 +283,9 @@ func (p *Pipeline) buildFromModel(mu *ModelUnit, period time.Duration) (*Unit, e
 		return nil, fmt.Errorf("%w: unit %s: %v", ErrModelFile, mu.Name, err)
 	}
 	p.learnSettings(&cfg, p.cfg.ModelFor(mu.Name), period)
+	if mu.States != nil {
+		floorModes(&cfg, mu.States.MinModes) // the states' shared floor (statemodes.go)
+	}
 	tr, err := tracker.New(trackerWidth(settings, len(mu.Channels)), cfg)
 	if err != nil {
 		return nil, fmt.Errorf("%w: unit %s: %v", ErrModelFile, mu.Name, err)

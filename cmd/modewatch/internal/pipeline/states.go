@@ -77,6 +77,9 @@ type unitStates struct {
 	auto    *autoStates // states found by fit (state: auto), nil: by channel
 	// noWindows: do not time transitions (fit's kept frames were thinned).
 	noWindows bool
+	// minModes: the floor of every state's automatic mode count
+	// (statemodes.go), 0: none.
+	minModes int
 }
 
 // newStates returns the states of a unit classified by channel.
@@ -183,6 +186,7 @@ func (u *Unit) newState(key float64, t time.Time) int {
 	} else {
 		cfg, err := TrackerConfig(u.model, u.p.opt.Period, len(u.idx), u.equal)
 		u.p.learnSettings(&cfg, u.model, u.p.opt.Period)
+		u.stateModesConfig(&cfg)
 		if err == nil {
 			tr, err = tracker.New(len(u.idx), cfg)
 		}
@@ -222,6 +226,7 @@ func (u *Unit) switchState(i int) {
 	if p2 := len(u.idx); m.tr.P() < p2 {
 		if cfg, err := TrackerConfig(u.model, u.p.opt.Period, p2, u.equal); err == nil {
 			u.p.learnSettings(&cfg, u.model, u.p.opt.Period)
+			u.stateModesConfig(&cfg)
 			if err := m.tr.Grow(p2, cfg); err != nil {
 				u.p.log.Error("operating state's model cannot take the unit's new channels", "unit", u.Name, "err", err)
 			}
@@ -345,11 +350,14 @@ type StateModel struct {
 
 // StatesFile is the operating-state part of a model unit.
 type StatesFile struct {
-	Channel string       `json:"channel"` // "auto": found by fit (Auto)
-	Bands   []float64    `json:"bands,omitempty"`
-	Auto    *autoStates  `json:"auto,omitempty"`
-	HoldOff int          `json:"hold_off_frames"`
-	Models  []StateModel `json:"models"`
+	Channel string      `json:"channel"` // "auto": found by fit (Auto)
+	Bands   []float64   `json:"bands,omitempty"`
+	Auto    *autoStates `json:"auto,omitempty"`
+	HoldOff int         `json:"hold_off_frames"`
+	// MinModes is the floor of every state's automatic mode count (the
+	// largest count of the fitted states; absent: none).
+	MinModes int          `json:"min_modes,omitempty"`
+	Models   []StateModel `json:"models"`
 }
 
 // statesBaseline refreshes and freezes every state model with a model and
@@ -363,6 +371,10 @@ func (u *Unit) statesBaseline(withLimits bool) (*StatesFile, int, error) {
 	best, bestN := -1, uint64(0)
 	var errs []error
 	warm := uint64(u.tr.Config().WarmUp)
+	if u.p.opt.Fit {
+		u.alignStateModes()
+	}
+	out.MinModes = s.minModes
 	for i, m := range s.models {
 		if u.p.opt.Fit {
 			if m.frames < warm {
@@ -406,6 +418,8 @@ func (u *Unit) statesBaseline(withLimits bool) (*StatesFile, int, error) {
 func (u *Unit) restoreStates(sf *StatesFile, p int, cfg tracker.Config) error {
 	s := newStates(sf.Channel, sf.Bands)
 	s.holdOff = sf.HoldOff
+	s.minModes = max(sf.MinModes, 0)
+	floorModes(&cfg, s.minModes) // buildFromModel did the same for the unit's tracker
 	if sf.Auto != nil {
 		if err := sf.Auto.check(p); err != nil {
 			return err

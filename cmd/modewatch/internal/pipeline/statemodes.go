@@ -1,0 +1,88 @@
+package pipeline
+
+import "modewatch/tracker"
+
+// Shared mode count of a unit's operating states. Each state's model
+// counts its modes by the Share rule (model.modes auto:SHARE) on its own
+// correlation matrix. Where one machine dominates a state's variance (two
+// duty pumps moving together while the swing pump stands still), the rule
+// reaches its share after a few modes, and the channels the state does not
+// move (the river's temperature, turbidity and conductivity at a raw-water
+// intake) are left in that state's residual while the other state keeps
+// them in its modes. Their slow normal wander then raises SPE in one state
+// only: the first frame after the machine stops alerts, led by channels
+// the machine does not drive. So fit learns each state's automatic count
+// and, when they differ, gives every state the largest of them as the
+// floor of its Share rule
+// (modes.Config.MinCount; still within max_modes and the residual cap, so
+// each state keeps a residual). The floor is saved with the states
+// (StatesFile.MinModes) and holds for every later refresh, and for a state
+// first seen online.
+
+// ShareStateModes turns the shared floor on (fit); false leaves each
+// state's count to its own Share rule, as before.
+var ShareStateModes = true
+
+// stateModesConfig applies the states' floor on the mode count to a state
+// tracker's configuration (automatic count only).
+func (u *Unit) stateModesConfig(cfg *tracker.Config) {
+	if s := u.states; s != nil {
+		floorModes(cfg, s.minModes)
+	}
+}
+
+// floorModes sets the floor of cfg's automatic mode count (within its
+// MaxCount); a fixed count or a floor of 0 leaves cfg as it is.
+func floorModes(cfg *tracker.Config, floor int) {
+	if floor <= 0 || cfg.Modes.Count != 0 {
+		return
+	}
+	cfg.Modes.MinCount = floor
+	if cfg.Modes.MaxCount > 0 {
+		cfg.Modes.MinCount = min(floor, cfg.Modes.MaxCount)
+	}
+}
+
+// alignStateModes (fit) reads the mode count of every state model with
+// enough frames (from its latest refresh: a further refresh here would move
+// the warm-started modes of units it leaves alone), takes the largest of
+// their counts as the floor of all and rebuilds
+// the modes of each state under it, when the counts differ. It reports the
+// floor (0: none set).
+func (u *Unit) alignStateModes() int {
+	s := u.states
+	if !ShareStateModes || s == nil || len(s.models) < 2 {
+		return 0
+	}
+	warm := uint64(u.tr.Config().WarmUp)
+	floor, least, n := 0, 0, 0
+	for _, m := range s.models {
+		if m.frames < warm || m.tr.Config().Modes.Count != 0 || m.tr.Modes().Count() == 0 {
+			continue // no model yet, or a fixed count
+		}
+		c := m.tr.Modes().Count()
+		if n == 0 || c < least {
+			least = c
+		}
+		floor = max(floor, c)
+		n++
+	}
+	if n < 2 || floor == least {
+		return 0 // the states agree already: their counts stay their own
+	}
+	s.minModes = floor
+	for _, m := range s.models {
+		if m.frames < warm {
+			continue
+		}
+		cfg := m.tr.Config()
+		if cfg.Modes.Count != 0 {
+			continue
+		}
+		u.stateModesConfig(&cfg)
+		if err := m.tr.Grow(m.tr.P(), cfg); err != nil {
+			u.p.log.Error("operating state's model cannot take the shared mode count", "unit", u.Name, "state", s.label(m.key), "err", err)
+		}
+	}
+	return floor
+}
