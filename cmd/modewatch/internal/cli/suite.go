@@ -49,9 +49,10 @@ type suiteRow struct {
 	PastHold         int                    `json:"open_past_hold"`
 	LongestPastHoldS float64                `json:"longest_past_hold_s"`
 	Kinds            map[string]suiteDetect `json:"by_kind"`
-	// AtSwitch lists the alerts matched to no fault that start within
-	// suiteSwitchWindow after a machine start or stop, a status change or
-	// a driver move, or name a status channel (switchAlerts): the issue's
+	// AtSwitch lists the false alerts (the strict scorer's: outside every
+	// episode of their unit ± grace) that start within suiteSwitchWindow
+	// after a machine start or stop, a status change or the ramp of a
+	// driver move, or name a status channel (switchAlerts): the issue's
 	// target is none.
 	AtSwitch []string `json:"at_switch"`
 	Error    string   `json:"error,omitempty"`
@@ -209,11 +210,12 @@ func runSuitePlant(ctx context.Context, dir string, p suitePlant, opt suiteOptio
 	if err != nil {
 		return fail(err)
 	}
-	matched := map[string]bool{}
-	for _, m := range row.Metrics.Matches {
-		matched[m.Alert] = true
+	// The replay's scorer: auto-discovered units, the default grace.
+	run := evaluate.Run{Grace: evaluate.DefaultGrace}
+	isFalse := func(unit string, start time.Time) bool {
+		return run.False(evaluate.Alert{Unit: unit, Start: start}, tr.Episodes)
 	}
-	if row.AtSwitch, err = switchAlerts(alertsFile, matched, sw, status); err != nil {
+	if row.AtSwitch, err = switchAlerts(alertsFile, isFalse, sw, status); err != nil {
 		return fail(err)
 	}
 	for i, e := range tr.Episodes {
@@ -263,7 +265,7 @@ func printSuite(w io.Writer, rows []suiteRow) {
 			parts = append(parts, fmt.Sprintf("%s %d", r.Plant, len(r.AtSwitch)))
 		}
 	}
-	fmt.Fprintf(w, "at a switch: false alerts starting within %v after a machine start or stop, a status change or a planned move, or naming a status channel (target 0; listed in --json): %s\n",
+	fmt.Fprintf(w, "at a switch: false alerts starting within %v after a machine start or stop, a status change or a planned move (and its ramp), or naming a status channel (target 0; listed in --json): %s\n",
 		suiteSwitchWindow, strings.Join(parts, ", "))
 	// Detection by fault kind, over all plants.
 	kinds := map[string]suiteDetect{}

@@ -16,7 +16,8 @@ import (
 )
 
 // suiteSwitchWindow: an alert that starts this soon after a switch of its
-// plant counts as raised by the switch.
+// plant (after the end of a planned move's ramp) counts as raised by the
+// switch.
 const suiteSwitchWindow = 2 * time.Minute
 
 // suiteSwitch is one switch of a plant's test days that is no fault: a
@@ -25,7 +26,8 @@ const suiteSwitchWindow = 2 * time.Minute
 // planned move of a driver (a grade change, a setpoint move).
 type suiteSwitch struct {
 	t    time.Time
-	unit string // "": a driver move, which may reach every unit
+	over time.Duration // a planned move's ramp; 0 for a switch
+	unit string        // "": a driver move, which may reach every unit
 	what string
 }
 
@@ -60,7 +62,7 @@ func plantSwitches(s *sim.Scenario, from, to time.Time) ([]suiteSwitch, map[stri
 	for _, d := range s.Drivers {
 		for _, m := range d.Moves {
 			if !m.At.Before(from) && m.At.Before(to) {
-				out = append(out, suiteSwitch{t: m.At, what: "move of " + d.Name})
+				out = append(out, suiteSwitch{t: m.At, over: m.Over, what: "move of " + d.Name})
 			}
 		}
 	}
@@ -114,22 +116,27 @@ func b2f(b bool) float64 {
 }
 
 // switchAlerts reads the alert records of a replay (JSON lines, every
-// revision) and lists the alerts matched to no fault that start within
-// suiteSwitchWindow after a switch of their unit (or a driver move), or
+// revision) and lists the false alerts (isFalse: the strict scorer's rule,
+// evaluate.Run.False) that start within suiteSwitchWindow after a switch
+// of their unit (or during a driver move's ramp or that long after it), or
 // name a status channel among their first three contributors or as their
 // data-quality channel.
-func switchAlerts(path string, matched map[string]bool, sw []suiteSwitch, status map[string]bool) ([]string, error) {
+func switchAlerts(path string, isFalse func(unit string, start time.Time) bool, sw []suiteSwitch, status map[string]bool) ([]string, error) {
 	f, err := os.Open(path)
 	if err != nil {
 		return nil, err
 	}
 	defer f.Close()
-	return readSwitchAlerts(f, path, matched, sw, status)
+	return readSwitchAlerts(f, path, isFalse, sw, status)
 }
 
 // readSwitchAlerts is switchAlerts reading the records from r (named
 // path in errors).
-func readSwitchAlerts(r io.Reader, path string, matched map[string]bool, sw []suiteSwitch, status map[string]bool) ([]string, error) {
+func readSwitchAlerts(r io.Reader, path string, isFalse func(unit string, start time.Time) bool, sw []suiteSwitch, status map[string]bool) ([]string, error) {
+	var span time.Duration // the longest window after a switch's start
+	for _, w := range sw {
+		span = max(span, w.over+suiteSwitchWindow)
+	}
 	sc := bufio.NewScanner(r)
 	sc.Buffer(make([]byte, 0, 64<<10), 16<<20)
 	out := []string{}
@@ -139,13 +146,16 @@ func readSwitchAlerts(r io.Reader, path string, matched map[string]bool, sw []su
 		if err := json.Unmarshal(sc.Bytes(), &r); err != nil {
 			return nil, fmt.Errorf("%s: %w", path, err)
 		}
-		if r.Kind != alerts.KindIncident || done[r.ID] || matched[r.ID] {
+		if r.Kind != alerts.KindIncident || done[r.ID] || !isFalse(r.Unit, r.Start) {
 			continue
 		}
 		done[r.ID] = true
 		var why []string
 		i := sort.Search(len(sw), func(i int) bool { return sw[i].t.After(r.Start) })
-		for j := i - 1; j >= 0 && r.Start.Sub(sw[j].t) <= suiteSwitchWindow; j-- {
+		for j := i - 1; j >= 0 && r.Start.Sub(sw[j].t) <= span; j-- {
+			if r.Start.Sub(sw[j].t) > sw[j].over+suiteSwitchWindow {
+				continue
+			}
 			if sw[j].unit == "" || sw[j].unit == r.Unit {
 				why = append(why, fmt.Sprintf("%s after %s", r.Start.Sub(sw[j].t), sw[j].what))
 				break

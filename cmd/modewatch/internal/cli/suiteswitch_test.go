@@ -61,7 +61,8 @@ func TestPlantSwitches(t *testing.T) {
 
 	// switchAlerts over hand-made records: one 30 s after comp2 starts in
 	// its unit (listed), one of the other unit at the same time (not),
-	// one naming the status channel (listed), one matched to a fault (not).
+	// one naming the status channel (listed), one inside a fault (not
+	// false: not listed).
 	var start time.Time
 	for _, w := range sw0(t, s) {
 		if w.what == "boost.comp2.speed started" {
@@ -84,12 +85,38 @@ func TestPlantSwitches(t *testing.T) {
 		}
 	}
 	all, status, _ := plantSwitches(s, s.Start, s.Start.Add(24*time.Hour))
-	got, err := readSwitchAlerts(strings.NewReader(b.String()), "alerts.jsonl", map[string]bool{"boost/d": true}, all, status)
+	isFalse := func(unit string, at time.Time) bool { return !(unit == "boost" && at.Equal(start.Add(10*time.Second))) }
+	got, err := readSwitchAlerts(strings.NewReader(b.String()), "alerts.jsonl", isFalse, all, status)
 	if err != nil {
 		t.Fatal(err)
 	}
 	if len(got) != 2 || !strings.HasPrefix(got[0], "boost/a (30s after boost.comp2") || !strings.HasPrefix(got[1], "boost/c (names status channel boost.comp2.running") {
 		t.Errorf("alerts at a switch %q", got)
+	}
+	// A planned move counts over its ramp (the discharge setpoint's on day
+	// 9 takes 30 min) and suiteSwitchWindow after it: an alert 25 min into
+	// the ramp is listed, one 35 min after its start is not.
+	move := s.Start.Add(9 * 24 * time.Hour)
+	mv, _, err := plantSwitches(s, move.Add(-time.Minute), move.Add(time.Hour))
+	if err != nil {
+		t.Fatal(err)
+	}
+	b.Reset()
+	for _, r := range []alerts.Record{
+		{ID: "inlet/ramp", Kind: alerts.KindIncident, Unit: "inlet", Start: move.Add(25 * time.Minute)},
+		{ID: "inlet/after", Kind: alerts.KindIncident, Unit: "inlet", Start: move.Add(35 * time.Minute)},
+	} {
+		if err := enc.Encode(r); err != nil {
+			t.Fatal(err)
+		}
+	}
+	anyFalse := func(string, time.Time) bool { return true }
+	got, err = readSwitchAlerts(strings.NewReader(b.String()), "alerts.jsonl", anyFalse, mv, status)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(got) != 1 || got[0] != "inlet/ramp (25m0s after move of discharge_sp)" {
+		t.Errorf("alerts at a move %q, want only the one inside its ramp", got)
 	}
 }
 

@@ -197,6 +197,36 @@ type Match struct {
 	Isolated bool     `json:"isolated_top3"`
 }
 
+// inside reports whether alert a starts inside an episode of its own unit
+// (epUnits, per episode) extended by grace on both sides.
+func inside(a Alert, episodes []Episode, epUnits []map[string]bool, grace time.Duration) bool {
+	for i, e := range episodes {
+		if epUnits[i][a.Unit] && !a.Start.Before(e.Start.Add(-grace)) && !a.Start.After(e.End.Add(grace)) {
+			return true
+		}
+	}
+	return false
+}
+
+// False reports whether Compute counts alert a as false against episodes:
+// it starts outside every episode of its own unit extended by r.Grace.
+func (r Run) False(a Alert, episodes []Episode) bool {
+	return !inside(a, episodes, r.episodeUnits(episodes), r.Grace)
+}
+
+// episodeUnits returns the units of each episode: those holding its
+// channels.
+func (r Run) episodeUnits(episodes []Episode) []map[string]bool {
+	epUnits := make([]map[string]bool, len(episodes))
+	for i, e := range episodes {
+		epUnits[i] = map[string]bool{}
+		for _, ch := range e.Channels {
+			epUnits[i][r.unitOf(ch)] = true
+		}
+	}
+	return epUnits
+}
+
 // Compute scores alerts against episodes strictly, by unit: an alert
 // speaks only for the unit that raised it.
 //
@@ -228,14 +258,7 @@ func Compute(alerts []Alert, episodes []Episode, run Run) Metrics {
 	copy(sorted, alerts)
 	sort.SliceStable(sorted, func(i, j int) bool { return sorted[i].Start.Before(sorted[j].Start) })
 
-	// The units of each episode.
-	epUnits := make([]map[string]bool, len(episodes))
-	for i, e := range episodes {
-		epUnits[i] = map[string]bool{}
-		for _, ch := range e.Channels {
-			epUnits[i][run.unitOf(ch)] = true
-		}
-	}
+	epUnits := run.episodeUnits(episodes)
 
 	m := Metrics{Episodes: len(episodes), Units: []UnitMetrics{}}
 	delays := m.match(sorted, episodes, epUnits)
@@ -243,14 +266,7 @@ func Compute(alerts []Alert, episodes []Episode, run Run) Metrics {
 	for _, a := range sorted {
 		um := byUnit[a.Unit]
 		um.Alerts++
-		inside := false
-		for i, e := range episodes {
-			if epUnits[i][a.Unit] && !a.Start.Before(e.Start.Add(-run.Grace)) && !a.Start.After(e.End.Add(run.Grace)) {
-				inside = true
-				break
-			}
-		}
-		if !inside {
+		if !inside(a, episodes, epUnits, run.Grace) {
 			m.FalseAlerts++
 			um.FalseAlerts++
 		}
