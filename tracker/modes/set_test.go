@@ -293,6 +293,39 @@ func TestSetKaiser(t *testing.T) {
 	}
 }
 
+// TestSetMinCount: MinCount is a floor on the Share rule only. On
+// Pitprops (eigenvalues in REFERENCE.md) share 0.5 stops at 2 modes; a
+// floor of 5 keeps 5, a floor of 13 stops at the residual minimum (12 of
+// 13 channels), a floor below the Share count changes nothing, and
+// Kaiser's rule (MinAdjusted 1: four eigenvalues above 1) still stops at 4
+// under a floor of 6. A fixed Count with a floor is a configuration error.
+func TestSetMinCount(t *testing.T) {
+	a := loadPitprops(t)
+	for _, c := range []struct {
+		share float64
+		floor int
+		rel   float64
+		want  int
+	}{{0.5, 0, 0, 2}, {0.5, 5, 0, 5}, {0.5, 13, 0, 12}, {0.8, 3, 0, 5}, {0.5, 6, 1, 4}} {
+		tr, err := NewSet(13, Config{Share: c.share, MaxCount: 13, MinCount: c.floor, Tol: 1e-10, MinAdjusted: c.rel})
+		if err != nil {
+			t.Fatal(err)
+		}
+		if err := tr.Refresh(a); err != nil {
+			t.Fatal(err)
+		}
+		if tr.Count() != c.want {
+			t.Errorf("share %g, MinCount %d, MinAdjusted %g: %d modes, want %d", c.share, c.floor, c.rel, tr.Count(), c.want)
+		}
+	}
+	if _, err := NewSet(13, Config{Count: 3, MinCount: 4}); !errors.Is(err, ErrConfig) {
+		t.Errorf("Count 3 with MinCount 4: err %v, want ErrConfig", err)
+	}
+	if _, err := NewSet(13, Config{MinCount: -1}); !errors.Is(err, ErrConfig) {
+		t.Errorf("MinCount -1: err %v, want ErrConfig", err)
+	}
+}
+
 // TestSetRankExhausted: a rank-one matrix has one mode; asking for
 // three gives one, with no error and no NaN.
 func TestSetRankExhausted(t *testing.T) {

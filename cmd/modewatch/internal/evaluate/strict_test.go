@@ -48,6 +48,16 @@ func TestComputeStrict(t *testing.T) {
 		if m.Detected != 1 || m.FalseAlerts != 2 || m.IsolatedTop3 != 1 || m.Matches[0].Alert != "p" {
 			t.Fatalf("got detected %d false %d isolated %d match %+v, want 1 2 1 and alert p", m.Detected, m.FalseAlerts, m.IsolatedTop3, m.Matches[0])
 		}
+		// Run.False says the same of each alert: b and p2 are false, p is
+		// not; a second pump alert inside e1 (± grace) is not false either.
+		for _, c := range []struct {
+			a    Alert
+			want bool
+		}{{al[0], true}, {al[1], false}, {al[2], true}, {ual("p3", "pump", 130, 140), false}} {
+			if got := run.False(c.a, []Episode{e1}); got != c.want {
+				t.Errorf("False(%s) = %v, want %v", c.a.ID, got, c.want)
+			}
+		}
 		if *m.MedianDelayS != 1800 || *m.FalseAlertsPerDay != 2 {
 			t.Errorf("median delay %v s, false per day %v; want 1800 and 2", *m.MedianDelayS, *m.FalseAlertsPerDay)
 		}

@@ -1,6 +1,10 @@
 package pipeline
 
-import "modewatch/tracker"
+import (
+	"math"
+
+	"modewatch/tracker"
+)
 
 // Shared mode count of a unit's operating states. Each state's model
 // counts its modes by the Share rule (model.modes auto:SHARE) on its own
@@ -12,12 +16,22 @@ import "modewatch/tracker"
 // them in its modes. Their slow normal wander then raises SPE in one state
 // only: the first frame after the machine stops alerts, led by channels
 // the machine does not drive. So fit learns each state's automatic count
-// and, when they differ, gives every state the largest of them as the
-// floor of its Share rule
+// and, when they differ and some channel is one the states do not move
+// (the same mean and spread in each: unmovedChannels), gives every state
+// the largest of them as the floor of its Share rule
 // (modes.Config.MinCount; still within max_modes and the residual cap, so
 // each state keeps a residual). The floor is saved with the states
 // (StatesFile.MinModes) and holds for every later refresh, and for a state
 // first seen online.
+
+const (
+	// unmovedMean and unmovedSpread: a channel is one the states do not
+	// move when its mean differs between any two fitted states by at most
+	// unmovedMean of its (pooled) standard deviation and its variance by
+	// at most a factor unmovedSpread.
+	unmovedMean   = 0.5
+	unmovedSpread = 2.0
+)
 
 // ShareStateModes turns the shared floor on (fit); false leaves each
 // state's count to its own Share rule, as before.
@@ -70,6 +84,9 @@ func (u *Unit) alignStateModes() int {
 	if n < 2 || floor == least {
 		return 0 // the states agree already: their counts stay their own
 	}
+	if u.unmovedChannels(warm) == 0 {
+		return 0 // every channel differs by state: each state's own structure
+	}
 	s.minModes = floor
 	for _, m := range s.models {
 		if m.frames < warm {
@@ -85,4 +102,51 @@ func (u *Unit) alignStateModes() int {
 		}
 	}
 	return floor
+}
+
+// unmovedChannels counts the unit's channels that its fitted states (those
+// with at least warm frames) do not move: the same mean and spread in each
+// (unmovedMean, unmovedSpread; a channel at rest in a state moves). Only
+// such channels are left in one state's residual by the Share rule while
+// another state models them, so only a unit with one gets the floor; a
+// unit whose states differ in every channel keeps each state's own count
+// (its detection in a state is then that of a model of the state alone).
+func (u *Unit) unmovedChannels(warm uint64) int {
+	s := u.states
+	var ms [][2][]float64 // per fitted state: means, variances
+	for _, m := range s.models {
+		if m.frames < warm {
+			continue
+		}
+		p := m.tr.P()
+		mv := [2][]float64{make([]float64, p), make([]float64, p)}
+		m.tr.Stats().MeanTo(mv[0])
+		m.tr.Stats().VarTo(mv[1])
+		ms = append(ms, mv)
+	}
+	if len(ms) < 2 {
+		return 0
+	}
+	n := 0
+	for i := range ms[0][0] {
+		if u.isContext(i) {
+			continue
+		}
+		same := true
+		for a := 0; a < len(ms) && same; a++ {
+			for b := a + 1; b < len(ms) && same; b++ {
+				if i >= len(ms[a][0]) || i >= len(ms[b][0]) {
+					same = false
+					break
+				}
+				va, vb := ms[a][1][i], ms[b][1][i]
+				same = va > 0 && vb > 0 && va <= unmovedSpread*vb && vb <= unmovedSpread*va &&
+					math.Abs(ms[a][0][i]-ms[b][0][i]) <= unmovedMean*math.Sqrt((va+vb)/2)
+			}
+		}
+		if same {
+			n++
+		}
+	}
+	return n
 }
