@@ -80,6 +80,7 @@ type unitStates struct {
 	// minModes: the floor of every state's automatic mode count
 	// (statemodes.go), 0: none.
 	minModes int
+	bip      *bipWork // posterior scoring of found states (bipstates.go)
 }
 
 // newStates returns the states of a unit classified by channel.
@@ -312,7 +313,11 @@ func (s *unitStates) learnHoldOff() {
 		}
 		settled, calm := w.n, 0
 		for j := 0; j < w.n; j++ {
-			err := tr.Evaluate(&sc, w.x[j*w.p:(j+1)*w.p], w.miss[j*w.p:(j+1)*w.p])
+			x, miss := w.x[j*w.p:(j+1)*w.p], w.miss[j*w.p:(j+1)*w.p]
+			err := tr.Evaluate(&sc, x, miss)
+			if err == nil {
+				s.combine(&sc, w.state, x, miss) // found states: as they are scored (bipstates.go)
+			}
 			if err == nil && sc.Ready && sc.Phi <= sc.PhiLimit {
 				if calm++; calm == settleFrames {
 					settled = j + 1 - settleFrames

@@ -337,6 +337,9 @@ func (u *Unit) stepModel(f *stream.Frame) {
 	if u.drivers != nil && err == nil {
 		u.scoreDrivers(refreshDue)
 	}
+	if u.states != nil && u.states.auto != nil && err == nil {
+		u.posteriorScore() // found states: posterior-weighted statistics (bipstates.go)
+	}
 	if u.autoBuf != nil && err == nil {
 		u.autoBuf.add(u.x, u.miss)
 		if u.autoBuf.gate != nil && !u.autoBuf.gate.screen(u.x, u.miss) {

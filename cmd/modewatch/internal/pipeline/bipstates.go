@@ -1,0 +1,180 @@
+package pipeline
+
+import (
+	"math"
+
+	"modewatch/tracker"
+)
+
+// Scoring by found operating states (units[].state: auto). fit finds the
+// states as the components of a Gaussian mixture on the leading mode
+// scores and learns one model per state (autostates.go). A frame is
+// learned by the model of its most probable component. How it is scored
+// is FoundStateScoring:
+//
+//   - ScoreMostProbable: by the most probable component's model alone,
+//     its statistics against its limits.
+//   - ScorePosterior: every statistic is the Bayesian inference
+//     combination over all the states' models (Yu & Qin 2008, AIChE J.
+//     54(7)), weighted by the frame's posterior probability of each state:
+//
+//     BIP = Σₖ P(Cₖ | x) · P_L⁽ᵏ⁾(x),   alarm when BIP > 1 − α,
+//
+//     with P_L⁽ᵏ⁾ the local probability of the statistic under state k's
+//     model (a scaled χ² matched at the state's limit; tracker.BIPRatio
+//     has the formulas), reported on the most probable state's scale as
+//     value = ρ*·limit, so that value > limit exactly when BIP > 1 − α.
+//     The degrees of freedom per statistic: T² the state's modes r, SPE
+//     and the residual statistic its residual dimensions, φ both, the
+//     variance and relation statistics 1. A frame between two states (a
+//     transition, a state's edge) is then judged by both, in proportion;
+//     a frame deep inside one state is judged by it alone, as before.
+//     The contributions, expected values and location stay those of the
+//     most probable state's model.
+//
+// Each found state's model scores every frame under ScorePosterior (K
+// evaluations a frame instead of one), for found-state units only.
+
+// Found-state scoring rules (FoundStateScoring).
+const (
+	ScoreMostProbable = "most_probable"
+	ScorePosterior    = "posterior"
+)
+
+// FoundStateScoring is the scoring rule of units with found states; its
+// default was chosen on the realism suite run with state: auto (see the
+// package README's figures).
+var FoundStateScoring = ScorePosterior
+
+// bipWork is the per-unit work of posterior scoring, sized once.
+type bipWork struct {
+	post  []float64           // K posteriors
+	score []tracker.Score     // per state model: its score of the frame
+	tails []tracker.StateTail // per state model
+}
+
+// posteriorScore replaces the statistics of u.score (the most probable
+// state's) by their posterior-weighted combination over the found states'
+// models. It allocates only the first time.
+func (u *Unit) posteriorScore() {
+	s := u.states
+	if s == nil || s.cur < 0 {
+		return
+	}
+	s.combine(&u.score, s.cur, u.x, u.miss)
+}
+
+// combine replaces the statistics of cur, the score of frame x by state
+// model ci, by their posterior-weighted combination over every found
+// state's model (FoundStateScoring ScorePosterior; otherwise it does
+// nothing). It allocates only the first time.
+func (s *unitStates) combine(cur *tracker.Score, ci int, x []float64, miss []bool) {
+	if FoundStateScoring != ScorePosterior || s.auto == nil || len(s.models) < 2 || !cur.Ready || ci < 0 || ci >= len(s.models) {
+		return
+	}
+	a := s.auto
+	k := a.Mixture.K()
+	w := s.bip
+	if w == nil || len(w.post) != k || len(w.score) < len(s.models) {
+		w = &bipWork{post: make([]float64, k), score: make([]tracker.Score, len(s.models)+1),
+			tails: make([]tracker.StateTail, 0, len(s.models)+1)}
+		s.bip = w
+	}
+	a.classifyScores(x, miss)
+	a.Mixture.PosteriorTo(w.post, a.score)
+	scores := w.score[:len(s.models)]
+	var ok stateSet
+	for i, m := range s.models {
+		c := int(m.key)
+		if c < 0 || c >= k || !(w.post[c] > 0) {
+			continue
+		}
+		if i == ci {
+			ok.set(i)
+			continue
+		}
+		if m.tr.P() != len(x) || m.tr.State() == tracker.StateWarmUp {
+			continue
+		}
+		if err := m.tr.Evaluate(&scores[i], x, miss); err != nil || !scores[i].Ready {
+			continue
+		}
+		ok.set(i)
+	}
+	ctr := s.models[ci].tr
+	alpha := ctr.Config().Alpha
+	for st := 0; st < nStatistics; st++ {
+		lim := statOf(cur, st, true)
+		if !(lim > 0) || math.IsInf(lim, 0) {
+			continue
+		}
+		w.tails = w.tails[:0]
+		for i, m := range s.models {
+			if !ok.has(i) {
+				continue
+			}
+			sc := &scores[i]
+			if i == ci {
+				sc = cur
+			}
+			l := statOf(sc, st, true)
+			if !(l > 0) || math.IsInf(l, 0) {
+				continue
+			}
+			w.tails = append(w.tails, tracker.StateTail{Posterior: w.post[int(m.key)], Ratio: statOf(sc, st, false) / l,
+				DOF: statDOF(sc, m.tr, st)})
+		}
+		if r := tracker.BIPRatio(w.tails, statDOF(cur, ctr, st), alpha); !math.IsNaN(r) {
+			setStat(cur, st, r*lim)
+		}
+	}
+}
+
+// statOf returns statistic slot st (statNames' order) of s, or its limit.
+func statOf(s *tracker.Score, st int, limit bool) float64 {
+	v := [nStatistics][2]float64{{s.T2, s.T2Limit}, {s.SPE, s.SPELimit}, {s.Phi, s.PhiLimit},
+		{s.Residual, s.ResidualLimit}, {s.Variance, s.VarianceLimit}, {s.Relation, s.RelationLimit}}
+	if limit {
+		return v[st][1]
+	}
+	return v[st][0]
+}
+
+// setStat sets the value of statistic slot st of s.
+func setStat(s *tracker.Score, st int, v float64) {
+	switch st {
+	case 0:
+		s.T2 = v
+	case 1:
+		s.SPE = v
+	case 2:
+		s.Phi = v
+	case 3:
+		s.Residual = v
+	case 4:
+		s.Variance = v
+	case 5:
+		s.Relation = v
+	}
+}
+
+// statDOF returns the degrees of freedom of statistic slot st under the
+// model tr that gave score s (see the scoring comment above).
+func statDOF(s *tracker.Score, tr *tracker.Tracker, st int) float64 {
+	r, q := float64(s.Modes), float64(tr.ResidualDims())
+	switch st {
+	case 0:
+		return r
+	case 1, 3:
+		return q
+	case 2:
+		return r + q
+	}
+	return 1
+}
+
+// stateSet is a small bit set of state indices (tracker.MaxStates ≤ 64).
+type stateSet uint64
+
+func (b *stateSet) set(i int)     { *b |= 1 << uint(i) }
+func (b stateSet) has(i int) bool { return b&(1<<uint(i)) != 0 }
