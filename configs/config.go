@@ -353,6 +353,12 @@ type Model struct {
 	// serially correlated statistics); its threshold then comes from
 	// alerts.budget. 0 (default) means no smoothing.
 	Smoothing float64 `yaml:"smoothing"`
+	// StateScoring is how a unit with found operating states (state:
+	// auto) scores a frame: "posterior" (every state's model, weighted by
+	// the frame's posterior probability of the state; Yu & Qin 2008) or
+	// "most_probable" (the most probable state's model alone). Default
+	// tracker.DefaultStateScoring.
+	StateScoring string `yaml:"state_scoring"`
 	// Lags is the number of lagged copies of the channels the model sees
 	// (dynamic modes, Ku, Storer & Georgakis 1995): each frame is modelled
 	// with the Lags frames before it, so that a mode names sensor-and-lag
@@ -548,6 +554,7 @@ func DefaultModel() Model {
 		WarmUp:       DefaultWarmUp,
 		MaxChannels:  DefaultUnitMaxChannels,
 		Statistics:   DefaultStatistics,
+		StateScoring: tracker.DefaultStateScoring,
 	}
 }
 

@@ -283,6 +283,17 @@ var settings = []Setting{
 		set: setFraction(1, "an EWMA weight", func(o *Overrides) *float64 { return &o.Model.Smoothing }),
 	},
 	{
+		Name: "state_scoring", Section: "model", Default: tracker.DefaultStateScoring,
+		Doc: "found operating states (state: auto): posterior (every state's model, by the frame's posterior) or most_probable",
+		set: func(o *Overrides, s string) (string, error) {
+			if err := CheckStateScoring(s); err != nil {
+				return s, err
+			}
+			o.Model.StateScoring = s
+			return s, nil
+		},
+	},
+	{
 		Name: "statistics", Section: "model", Default: DefaultStatistics,
 		Doc: "statistics that raise alarms, a list of t2,spe,phi,res,var,rel",
 		set: func(o *Overrides, s string) (string, error) {
@@ -294,4 +305,13 @@ var settings = []Setting{
 		},
 		yaml: quoted,
 	},
+}
+
+// CheckStateScoring checks a found-state scoring rule (model.state_scoring).
+func CheckStateScoring(s string) error {
+	switch s {
+	case tracker.StateScoringPosterior, tracker.StateScoringMostProbable:
+		return nil
+	}
+	return fmt.Errorf("%q: want %s or %s", s, tracker.StateScoringPosterior, tracker.StateScoringMostProbable)
 }

@@ -30,6 +30,7 @@ func TestSettingDefaults(t *testing.T) {
 		"limits":        LimitsTheory,
 		"smoothing":     "", // no smoothing
 		"statistics":    DefaultStatistics,
+		"state_scoring": tracker.DefaultStateScoring,
 	}
 	if DefaultHalfLife != 7*24*time.Hour {
 		t.Fatalf("DefaultHalfLife = %v; the table above says 7d", DefaultHalfLife)

@@ -320,6 +320,9 @@ func (v *validator) model(p string, m Model, partial bool) {
 			v.add(p+".statistics", "%v", err)
 		}
 	}
+	if err := CheckStateScoring(m.StateScoring); m.StateScoring != "" && err != nil {
+		v.add(p+".state_scoring", "%v", err)
+	}
 	if m.Modes.Count > 0 && m.MaxModes > 0 && m.Modes.Count > m.MaxModes && !partial {
 		v.add(p+".modes", "%d modes is more than max_modes %d", m.Modes.Count, m.MaxModes)
 	}

@@ -10,6 +10,18 @@ import (
 // must not make a unit build models without bound.
 const MaxStates = 8
 
+// Scoring rules of found operating states (a Gaussian mixture's
+// components): by the most probable component's model alone, or by the
+// posterior-weighted combination of every component's model
+// ([BIPRatio], Yu & Qin 2008). DefaultStateScoring was chosen on the
+// realism suite run with every unit's states found (the package README of
+// cmd/modewatch, or the branch notes, give the figures).
+const (
+	StateScoringMostProbable = "most_probable"
+	StateScoringPosterior    = "posterior"
+	DefaultStateScoring      = StateScoringPosterior
+)
+
 // StateKey classifies value v of a unit's operating-state channel: with no
 // bands each distinct value is its own state (key v); with ascending band
 // edges b₀ < b₁ < … the key is the band index, the number of edges at or

@@ -155,6 +155,7 @@ func (u *Unit) findStates() (int, error) {
 	// Learn the kept frames again, each by the model of its state.
 	s := newStates(configs.StateAuto, nil)
 	s.auto = a
+	s.posterior = u.posteriorScoring()
 	s.noWindows = b.stride > 1 // thinned: transitions cannot be timed
 	u.states = s
 	for f := 0; f < n; f++ {

@@ -10,13 +10,14 @@ import (
 // states as the components of a Gaussian mixture on the leading mode
 // scores and learns one model per state (autostates.go). A frame is
 // learned by the model of its most probable component. How it is scored
-// is FoundStateScoring:
+// is model.state_scoring:
 //
-//   - ScoreMostProbable: by the most probable component's model alone,
-//     its statistics against its limits.
-//   - ScorePosterior: every statistic is the Bayesian inference
-//     combination over all the states' models (Yu & Qin 2008, AIChE J.
-//     54(7)), weighted by the frame's posterior probability of each state:
+//   - most_probable: by the most probable component's model alone, its
+//     statistics against its limits.
+//   - posterior (tracker.DefaultStateScoring): every statistic is the
+//     Bayesian inference combination over all the states' models (Yu &
+//     Qin 2008, AIChE J. 54(7)), weighted by the frame's posterior
+//     probability of each state:
 //
 //     BIP = Σₖ P(Cₖ | x) · P_L⁽ᵏ⁾(x),   alarm when BIP > 1 − α,
 //
@@ -30,21 +31,17 @@ import (
 //     transition, a state's edge) is then judged by both, in proportion;
 //     a frame deep inside one state is judged by it alone, as before.
 //     The contributions, expected values and location stay those of the
-//     most probable state's model.
+//     most probable state's model, and the transition hold-off is learned
+//     under the same rule.
 //
-// Each found state's model scores every frame under ScorePosterior (K
+// Each found state's model scores every frame under posterior scoring (K
 // evaluations a frame instead of one), for found-state units only.
 
-// Found-state scoring rules (FoundStateScoring).
-const (
-	ScoreMostProbable = "most_probable"
-	ScorePosterior    = "posterior"
-)
-
-// FoundStateScoring is the scoring rule of units with found states; its
-// default was chosen on the realism suite run with state: auto (see the
-// package README's figures).
-var FoundStateScoring = ScorePosterior
+// posteriorScoring reports whether the unit scores found states by their
+// posterior (model.state_scoring).
+func (u *Unit) posteriorScoring() bool {
+	return u.p.cfg.ModelFor(u.Name).StateScoring == tracker.StateScoringPosterior
+}
 
 // bipWork is the per-unit work of posterior scoring, sized once.
 type bipWork struct {
@@ -66,10 +63,9 @@ func (u *Unit) posteriorScore() {
 
 // combine replaces the statistics of cur, the score of frame x by state
 // model ci, by their posterior-weighted combination over every found
-// state's model (FoundStateScoring ScorePosterior; otherwise it does
-// nothing). It allocates only the first time.
+// state's model (posterior scoring; otherwise it does nothing). It allocates only the first time.
 func (s *unitStates) combine(cur *tracker.Score, ci int, x []float64, miss []bool) {
-	if FoundStateScoring != ScorePosterior || s.auto == nil || len(s.models) < 2 || !cur.Ready || ci < 0 || ci >= len(s.models) {
+	if !s.posterior || s.auto == nil || len(s.models) < 2 || !cur.Ready || ci < 0 || ci >= len(s.models) {
 		return
 	}
 	a := s.auto

@@ -15,12 +15,9 @@ import (
 // deep inside one state (posterior ≈ 1) keeps that state's statistics.
 func TestFoundStatesPosterior(t *testing.T) {
 	fault := func(k int) bool { return k >= sNormal && sState(k) == 0 && k%1080 >= 360 }
-	cfg := sConfig(t, "units: [{name: mix, state: auto}]\n")
 	run := func(rule string) (hit, false_ int, over float64, m *ModelFile) {
 		t.Helper()
-		old := FoundStateScoring
-		FoundStateScoring = rule
-		defer func() { FoundStateScoring = old }()
+		cfg := sConfig(t, "model: {state_scoring: "+rule+"}\nunits: [{name: mix, state: auto}]\n")
 		starts, over, m := sRunLag(t, cfg, nil, nil, fault, 0, true, nil)
 		for _, s := range starts {
 			if fault(int(s.Sub(sStart) / sPeriod)) {
@@ -31,8 +28,8 @@ func TestFoundStatesPosterior(t *testing.T) {
 		}
 		return hit, false_, over, m
 	}
-	mpHit, mpFalse, mpOver, _ := run(ScoreMostProbable)
-	bpHit, bpFalse, bpOver, m := run(ScorePosterior)
+	mpHit, mpFalse, mpOver, _ := run(tracker.StateScoringMostProbable)
+	bpHit, bpFalse, bpOver, m := run(tracker.StateScoringPosterior)
 	t.Logf("most probable: %d alerts in the fault, %d outside, φ over its limit in %.3f of fault frames", mpHit, mpFalse, mpOver)
 	t.Logf("posterior:     %d alerts in the fault, %d outside, φ over its limit in %.3f of fault frames", bpHit, bpFalse, bpOver)
 	if bpHit < 3 || mpHit < 3 {
@@ -65,6 +62,7 @@ func TestFoundStatesPosterior(t *testing.T) {
 	}
 	s := newStates(mix.States.Channel, nil)
 	s.auto = mix.States.Auto
+	s.posterior = true
 	if err := s.auto.check(p); err != nil {
 		t.Fatal(err)
 	}

@@ -79,8 +79,9 @@ type unitStates struct {
 	noWindows bool
 	// minModes: the floor of every state's automatic mode count
 	// (statemodes.go), 0: none.
-	minModes int
-	bip      *bipWork // posterior scoring of found states (bipstates.go)
+	minModes  int
+	bip       *bipWork // posterior scoring of found states (bipstates.go)
+	posterior bool     // found states scored by their posterior (model.state_scoring)
 }
 
 // newStates returns the states of a unit classified by channel.
@@ -430,6 +431,7 @@ func (u *Unit) restoreStates(sf *StatesFile, p int, cfg tracker.Config) error {
 			return err
 		}
 		s.auto = sf.Auto
+		s.posterior = u.posteriorScoring()
 	}
 	for _, sm := range sf.Models {
 		tr, err := tracker.New(p, cfg)
