@@ -100,7 +100,8 @@ func (s *unitStates) combine(cur *tracker.Score, ci int, x []float64, miss []boo
 	ctr := s.models[ci].tr
 	alpha := ctr.Config().Alpha
 	for st := 0; st < nStatistics; st++ {
-		lim := statOf(cur, st, true)
+		cv, cl := statFields(cur, st)
+		lim := *cl
 		if !(lim > 0) || math.IsInf(lim, 0) {
 			continue
 		}
@@ -113,45 +114,35 @@ func (s *unitStates) combine(cur *tracker.Score, ci int, x []float64, miss []boo
 			if i == ci {
 				sc = cur
 			}
-			l := statOf(sc, st, true)
-			if !(l > 0) || math.IsInf(l, 0) {
+			v, l := statFields(sc, st)
+			if !(*l > 0) || math.IsInf(*l, 0) {
 				continue
 			}
-			w.tails = append(w.tails, tracker.StateTail{Posterior: w.post[int(m.key)], Ratio: statOf(sc, st, false) / l,
+			w.tails = append(w.tails, tracker.StateTail{Posterior: w.post[int(m.key)], Ratio: *v / *l,
 				DOF: statDOF(sc, m.tr, st)})
 		}
 		if r := tracker.BIPRatio(w.tails, statDOF(cur, ctr, st), alpha); !math.IsNaN(r) {
-			setStat(cur, st, r*lim)
+			*cv = r * lim
 		}
 	}
 }
 
-// statOf returns statistic slot st (statNames' order) of s, or its limit.
-func statOf(s *tracker.Score, st int, limit bool) float64 {
-	v := [nStatistics][2]float64{{s.T2, s.T2Limit}, {s.SPE, s.SPELimit}, {s.Phi, s.PhiLimit},
-		{s.Residual, s.ResidualLimit}, {s.Variance, s.VarianceLimit}, {s.Relation, s.RelationLimit}}
-	if limit {
-		return v[st][1]
-	}
-	return v[st][0]
-}
-
-// setStat sets the value of statistic slot st of s.
-func setStat(s *tracker.Score, st int, v float64) {
+// statFields returns the value and the limit of statistic slot st of s
+// (statNames' order).
+func statFields(s *tracker.Score, st int) (v, lim *float64) {
 	switch st {
 	case 0:
-		s.T2 = v
+		return &s.T2, &s.T2Limit
 	case 1:
-		s.SPE = v
+		return &s.SPE, &s.SPELimit
 	case 2:
-		s.Phi = v
+		return &s.Phi, &s.PhiLimit
 	case 3:
-		s.Residual = v
+		return &s.Residual, &s.ResidualLimit
 	case 4:
-		s.Variance = v
-	case 5:
-		s.Relation = v
+		return &s.Variance, &s.VarianceLimit
 	}
+	return &s.Relation, &s.RelationLimit
 }
 
 // statDOF returns the degrees of freedom of statistic slot st under the

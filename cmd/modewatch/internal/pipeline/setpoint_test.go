@@ -2,7 +2,6 @@ package pipeline
 
 import (
 	"bytes"
-	"context"
 	"fmt"
 	"math"
 	"math/rand/v2"
@@ -71,32 +70,22 @@ func TestSetpointMoveAsDriver(t *testing.T) {
 	run := func(yaml, replay string) (moveAlerts int, blamed, stuckAlert bool) {
 		t.Helper()
 		m := fitBytes(t, sConfig(t, yaml), spPlant(0, day, nil, nil, 1))
-		seen := map[string]bool{}
-		_, err := Replay(context.Background(), ReplayOptions{Config: sConfig(t, replay+yaml), Inputs: []string{"-"},
-			Stdin: bytes.NewReader(spPlant(day, 2*day, move, stuck, 2)), Baseline: m,
-			Publisher: alerts.PublisherFunc(func(r *alerts.Record) {
-				if r.Kind != alerts.KindIncident || seen[r.ID] {
-					return
-				}
-				seen[r.ID] = true
-				if r.Quality != nil && r.Quality.Kind == alerts.QualityStuck && r.Quality.Channel == "sup.a.temp" {
-					stuckAlert = true
-				}
-				if r.Group != alerts.GroupModel {
-					return
-				}
-				for _, c := range r.Contributors {
-					blamed = blamed || c.Channel == "sup.a.sp"
-				}
-				k := int(r.Start.Sub(sStart)/sPeriod) - day
-				t.Logf("%q: alert %s at frame %d (%s, %v)", yaml, r.ID, k, r.Peak.Statistic, r.Location)
-				if k >= 3000 && k < 3000+720 {
-					moveAlerts++
-				}
-			})})
-		if err != nil {
-			t.Fatal(err)
-		}
+		replayIncidents(t, sConfig(t, replay+yaml), m, spPlant(day, 2*day, move, stuck, 2), func(r *alerts.Record) {
+			if r.Quality != nil && r.Quality.Kind == alerts.QualityStuck && r.Quality.Channel == "sup.a.temp" {
+				stuckAlert = true
+			}
+			if r.Group != alerts.GroupModel {
+				return
+			}
+			for _, c := range r.Contributors {
+				blamed = blamed || c.Channel == "sup.a.sp"
+			}
+			k := int(r.Start.Sub(sStart)/sPeriod) - day
+			t.Logf("%q: alert %s at frame %d (%s, %v)", yaml, r.ID, k, r.Peak.Statistic, r.Location)
+			if k >= 3000 && k < 3000+720 {
+				moveAlerts++
+			}
+		})
 		return moveAlerts, blamed, stuckAlert
 	}
 	n, blamed, st := run("units: [{name: sup, context: [sup.a.sp]}]\n", "")

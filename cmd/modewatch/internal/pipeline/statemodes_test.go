@@ -10,6 +10,7 @@ import (
 	"time"
 
 	"modewatch/alerts"
+	"modewatch/configs"
 )
 
 // wRun is the swing machine's state at frame k: it runs (1) or stands by
@@ -95,30 +96,20 @@ func TestStateModesShared(t *testing.T) {
 		defer func() { ShareStateModes = old }()
 		cfg := sConfig(t, "")
 		m = fitBytes(t, cfg, wPlant(0, day, nil, nil, 1))
-		seen := map[string]bool{}
-		_, err := Replay(context.Background(), ReplayOptions{Config: cfg, Inputs: []string{"-"},
-			Stdin: bytes.NewReader(wPlant(day, 2*day, warm, stuck, 2)), Baseline: m,
-			Publisher: alerts.PublisherFunc(func(r *alerts.Record) {
-				if r.Kind != alerts.KindIncident || seen[r.ID] {
-					return
-				}
-				seen[r.ID] = true
-				if r.Quality != nil && r.Quality.Kind == alerts.QualityStuck && r.Quality.Channel == "r.river.temp" {
-					stuckAlert = true
-				}
-				if r.Group != alerts.GroupModel {
-					return
-				}
-				all++
-				k := int(r.Start.Sub(sStart) / sPeriod)
-				if wRun(k) == 0 {
-					stopped++
-					t.Logf("shared modes %v: alert %s while the pump stands by (%s, %v)", share, r.ID, r.Peak.Statistic, r.Location)
-				}
-			})})
-		if err != nil {
-			t.Fatal(err)
-		}
+		replayIncidents(t, cfg, m, wPlant(day, 2*day, warm, stuck, 2), func(r *alerts.Record) {
+			if r.Quality != nil && r.Quality.Kind == alerts.QualityStuck && r.Quality.Channel == "r.river.temp" {
+				stuckAlert = true
+			}
+			if r.Group != alerts.GroupModel {
+				return
+			}
+			all++
+			k := int(r.Start.Sub(sStart) / sPeriod)
+			if wRun(k) == 0 {
+				stopped++
+				t.Logf("shared modes %v: alert %s while the pump stands by (%s, %v)", share, r.ID, r.Peak.Statistic, r.Location)
+			}
+		})
 		return stopped, all, stuckAlert, m
 	}
 	n, all, st, m := run(true)
@@ -152,5 +143,22 @@ func TestStateModesShared(t *testing.T) {
 	}
 	if all > all0 {
 		t.Errorf("shared modes: %d model alerts, more than the %d with each state's own count", all, all0)
+	}
+}
+
+// replayIncidents replays data from model m under cfg and calls fn with
+// the first revision of every incident record.
+func replayIncidents(t *testing.T, cfg *configs.Config, m *ModelFile, data []byte, fn func(r *alerts.Record)) {
+	t.Helper()
+	seen := map[string]bool{}
+	_, err := Replay(context.Background(), ReplayOptions{Config: cfg, Inputs: []string{"-"}, Stdin: bytes.NewReader(data), Baseline: m,
+		Publisher: alerts.PublisherFunc(func(r *alerts.Record) {
+			if r.Kind == alerts.KindIncident && !seen[r.ID] {
+				seen[r.ID] = true
+				fn(r)
+			}
+		})})
+	if err != nil {
+		t.Fatal(err)
 	}
 }
