@@ -70,8 +70,12 @@ type StateTail struct {
 // When the tail underflows (every state puts the frame beyond ~1e-300),
 // ρ* is the ratio of the state with the largest posterior. Entries with a
 // non-positive posterior, ratio NaN or DOF ≤ 0 are left out; none left:
-// NaN. It allocates nothing.
-func BIPRatio(states []StateTail, h, alpha float64) float64 {
+// NaN. α and the quantiles q(h) come from q (nil: α = DefaultAlpha, each
+// quantile computed). It allocates nothing.
+func BIPRatio(states []StateTail, h float64, q *ChiQuantiles) float64 {
+	if q == nil {
+		q = &ChiQuantiles{alpha: DefaultAlpha}
+	}
 	tail, wsum := 0.0, 0.0
 	best, bestP := math.NaN(), -1.0
 	for _, s := range states {
@@ -79,7 +83,7 @@ func BIPRatio(states []StateTail, h, alpha float64) float64 {
 			continue
 		}
 		wsum += s.Posterior
-		tail += s.Posterior * chiTail(math.Max(s.Ratio, 0)*chiQuantile(1-alpha, s.DOF), s.DOF)
+		tail += s.Posterior * chiTail(math.Max(s.Ratio, 0)*q.At(s.DOF), s.DOF)
 		if s.Posterior > bestP {
 			best, bestP = s.Ratio, s.Posterior
 		}
@@ -94,7 +98,34 @@ func BIPRatio(states []StateTail, h, alpha float64) float64 {
 	case tail >= 1:
 		return 0
 	}
-	return 2 * mathext.GammaIncRegCompInv(h/2, tail) / chiQuantile(1-alpha, h)
+	return 2 * mathext.GammaIncRegCompInv(h/2, tail) / q.At(h)
+}
+
+// ChiQuantiles holds the upper control quantiles q(h) = F⁻¹_{χ²(h)}(1 − α)
+// of one α for [BIPRatio], kept for whole h up to a bound as they are
+// first asked for (each is a root search); other h are computed each time.
+type ChiQuantiles struct {
+	alpha float64
+	q     []float64 // by whole h; 0: not computed yet
+}
+
+// NewChiQuantiles returns the quantiles of α, kept for whole h ≤ maxH.
+func NewChiQuantiles(alpha float64, maxH int) *ChiQuantiles {
+	return &ChiQuantiles{alpha: alpha, q: make([]float64, max(maxH, 0)+1)}
+}
+
+// Alpha returns the α of the quantiles.
+func (c *ChiQuantiles) Alpha() float64 { return c.alpha }
+
+// At returns q(h). It allocates nothing.
+func (c *ChiQuantiles) At(h float64) float64 {
+	if i := int(h); float64(i) == h && i >= 0 && i < len(c.q) {
+		if c.q[i] == 0 {
+			c.q[i] = chiQuantile(1-c.alpha, h)
+		}
+		return c.q[i]
+	}
+	return chiQuantile(1-c.alpha, h)
 }
 
 // chiTail returns P(χ²(h) > x).

@@ -33,12 +33,12 @@ func TestBIPRatio(t *testing.T) {
 		{"underflow: the most probable state's ratio", []StateTail{{0.7, 400, 2}, {0.3, 500, 2}}, 2, 400},
 	} {
 		t.Run(c.name, func(t *testing.T) {
-			if got := BIPRatio(c.states, c.h, alpha); !scalar.EqualWithinAbsOrRel(got, c.want, 1e-9, 1e-9) {
+			if got := BIPRatio(c.states, c.h, NewChiQuantiles(alpha, 16)); !scalar.EqualWithinAbsOrRel(got, c.want, 1e-9, 1e-9) {
 				t.Errorf("BIPRatio = %.12g, want %.12g", got, c.want)
 			}
 		})
 	}
-	if got := BIPRatio([]StateTail{{0, 1, 2}}, 2, alpha); !math.IsNaN(got) {
+	if got := BIPRatio([]StateTail{{0, 1, 2}}, 2, NewChiQuantiles(alpha, 0)); !math.IsNaN(got) {
 		t.Errorf("no usable state: %v, want NaN", got)
 	}
 	// An alarm exactly when BIP > 1 − α: a frame over the limit in the
@@ -47,10 +47,10 @@ func TestBIPRatio(t *testing.T) {
 	// (h = 4 both: tails 0.00094 and 0.616 by the χ²(4) survival
 	// e^(−x/2)(1 + x/2), so 5 % of posterior in the other state already
 	// puts 0.031 > α in the tail).
-	if r := BIPRatio([]StateTail{{0.999, 1.4, 4}, {0.001, 0.2, 4}}, 4, alpha); !(r > 1) {
+	if r := BIPRatio([]StateTail{{0.999, 1.4, 4}, {0.001, 0.2, 4}}, 4, NewChiQuantiles(alpha, 8)); !(r > 1) {
 		t.Errorf("probable state over its limit: ρ* %v, want > 1", r)
 	}
-	if r := BIPRatio([]StateTail{{0.95, 1.4, 4}, {0.05, 0.2, 4}}, 4, alpha); !(r < 1) {
+	if r := BIPRatio([]StateTail{{0.95, 1.4, 4}, {0.05, 0.2, 4}}, 4, &ChiQuantiles{alpha: alpha}); !(r < 1) {
 		t.Errorf("5 %% posterior in a state well inside: ρ* %v, want < 1", r)
 	}
 }

@@ -48,6 +48,7 @@ type bipWork struct {
 	post  []float64           // K posteriors
 	score []tracker.Score     // per state model: its score of the frame
 	tails []tracker.StateTail // per state model
+	q     *tracker.ChiQuantiles
 }
 
 // posteriorScore replaces the statistics of u.score (the most probable
@@ -98,7 +99,9 @@ func (s *unitStates) combine(cur *tracker.Score, ci int, x []float64, miss []boo
 		ok.set(i)
 	}
 	ctr := s.models[ci].tr
-	alpha := ctr.Config().Alpha
+	if alpha := ctr.Config().Alpha; w.q == nil || w.q.Alpha() != alpha {
+		w.q = tracker.NewChiQuantiles(alpha, 2*len(x)+2) // h ≤ r + residual dimensions ≤ 2p
+	}
 	for st := 0; st < nStatistics; st++ {
 		cv, cl := statFields(cur, st)
 		lim := *cl
@@ -121,7 +124,7 @@ func (s *unitStates) combine(cur *tracker.Score, ci int, x []float64, miss []boo
 			w.tails = append(w.tails, tracker.StateTail{Posterior: w.post[int(m.key)], Ratio: *v / *l,
 				DOF: statDOF(sc, m.tr, st)})
 		}
-		if r := tracker.BIPRatio(w.tails, statDOF(cur, ctr, st), alpha); !math.IsNaN(r) {
+		if r := tracker.BIPRatio(w.tails, statDOF(cur, ctr, st), w.q); !math.IsNaN(r) {
 			*cv = r * lim
 		}
 	}

@@ -51,31 +51,8 @@ func TestFoundStatesPosterior(t *testing.T) {
 	if mix == nil || mix.States == nil || mix.States.Auto == nil {
 		t.Fatalf("no found states: %+v", mix)
 	}
+	s := foundStates(t, mix)
 	p := len(mix.Channels)
-	settings, err := mix.Settings.model()
-	if err != nil {
-		t.Fatal(err)
-	}
-	tcfg, err := TrackerConfig(settings, sPeriod, p, true)
-	if err != nil {
-		t.Fatal(err)
-	}
-	s := newStates(mix.States.Channel, nil)
-	s.auto = mix.States.Auto
-	s.posterior = true
-	if err := s.auto.check(p); err != nil {
-		t.Fatal(err)
-	}
-	for _, sm := range mix.States.Models {
-		tr, err := tracker.New(p, tcfg)
-		if err != nil {
-			t.Fatal(err)
-		}
-		if err := restoreState(tr, sm.State); err != nil {
-			t.Fatal(err)
-		}
-		s.models = append(s.models, &stateModel{key: sm.Key, tr: tr})
-	}
 	x, miss := []float64{0.05, -0.1, 0.02, 0.3}, make([]bool, p)
 	ci := s.find(s.auto.classify(x, miss))
 	var own, comb tracker.Score
@@ -94,5 +71,73 @@ func TestFoundStatesPosterior(t *testing.T) {
 	}
 	if n := testing.AllocsPerRun(50, func() { s.combine(&comb, ci, x, miss) }); n != 0 {
 		t.Errorf("combining a frame allocates %v times", n)
+	}
+}
+
+// foundStates rebuilds the found states of a fitted unit (models held
+// fixed), scored by their posterior.
+func foundStates(tb testing.TB, mix *ModelUnit) *unitStates {
+	tb.Helper()
+	p := len(mix.Channels)
+	settings, err := mix.Settings.model()
+	if err != nil {
+		tb.Fatal(err)
+	}
+	tcfg, err := TrackerConfig(settings, sPeriod, p, true)
+	if err != nil {
+		tb.Fatal(err)
+	}
+	s := newStates(mix.States.Channel, nil)
+	s.auto = mix.States.Auto
+	s.posterior = true
+	if err := s.auto.check(p); err != nil {
+		tb.Fatal(err)
+	}
+	for _, sm := range mix.States.Models {
+		tr, err := tracker.New(p, tcfg)
+		if err != nil {
+			tb.Fatal(err)
+		}
+		if err := restoreState(tr, sm.State); err != nil {
+			tb.Fatal(err)
+		}
+		s.models = append(s.models, &stateModel{key: sm.Key, tr: tr})
+	}
+	return s
+}
+
+// BenchmarkFoundStateScoring is the scoring of one frame of the two-state
+// plant's found states (classify, the most probable state's score) by the
+// most probable state alone and by the posterior combination, which also
+// scores the frame by the other state's model: compare the two with
+// benchstat.
+func BenchmarkFoundStateScoring(b *testing.B) {
+	cfg := sConfig(b, "units: [{name: mix, state: auto}]\n")
+	m := fitBytes(b, cfg, sPlant(0, sNormal, nil, nil, 1, 0, true))
+	var mix *ModelUnit
+	for i := range m.Units {
+		if m.Units[i].Name == "mix" {
+			mix = &m.Units[i]
+		}
+	}
+	if mix == nil || mix.States == nil || mix.States.Auto == nil {
+		b.Fatal("no found states")
+	}
+	s := foundStates(b, mix)
+	x, miss := []float64{0.5, 0.4, 0.3, 0.2}, make([]bool, 4)
+	var sc tracker.Score
+	for _, rule := range []string{tracker.StateScoringMostProbable, tracker.StateScoringPosterior} {
+		b.Run(rule, func(b *testing.B) {
+			s.posterior = rule == tracker.StateScoringPosterior
+			b.ReportAllocs()
+			for i := 0; i < b.N; i++ {
+				ci := s.find(s.auto.classify(x, miss))
+				if err := s.models[ci].tr.Evaluate(&sc, x, miss); err != nil {
+					b.Fatal(err)
+				}
+				s.combine(&sc, ci, x, miss)
+			}
+			benchSink = sc.Phi
+		})
 	}
 }

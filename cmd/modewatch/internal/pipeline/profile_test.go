@@ -96,7 +96,7 @@ func qFit(t *testing.T, cfg *configs.Config) *ModelFile {
 
 // fitBytes fits cfg on the line protocol of data and returns the model
 // file.
-func fitBytes(t *testing.T, cfg *configs.Config, data []byte) *ModelFile {
+func fitBytes(t testing.TB, cfg *configs.Config, data []byte) *ModelFile {
 	t.Helper()
 	res, err := Replay(context.Background(), ReplayOptions{Config: cfg, Inputs: []string{"-"},
 		Stdin: bytes.NewReader(data), Fit: true})

@@ -141,7 +141,7 @@ func sRunLag(t *testing.T, cfg, rcfg *configs.Config, keep func(int) bool, fault
 // pinned to T², SPE and φ: the residual Mahalanobis statistic (in the
 // defaults) sees the in-state bias with one model over both states, which
 // would hide what these tests compare.
-func sConfig(t *testing.T, yaml string) *configs.Config {
+func sConfig(t testing.TB, yaml string) *configs.Config {
 	t.Helper()
 	cfg, err := configs.Parse("s.yaml", []byte("frames: {period: 10s}\n"+yaml))
 	if err != nil {
