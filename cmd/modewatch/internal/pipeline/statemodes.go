@@ -16,7 +16,8 @@ import (
 // them in its modes. Their slow normal wander then raises SPE in one state
 // only: the first frame after the machine stops alerts, led by channels
 // the machine does not drive. So fit learns each state's automatic count
-// and, when they differ and some channel is one the states do not move
+// and, when the richest state has at least twice the modes of the poorest
+// (stateModesRatio) and some channel is one the states do not move
 // (the same mean and spread in each: unmovedChannels), gives every state
 // the largest of them as the floor of its Share rule
 // (modes.Config.MinCount; still within max_modes and the residual cap, so
@@ -31,6 +32,12 @@ const (
 	// at most a factor unmovedSpread.
 	unmovedMean   = 0.5
 	unmovedSpread = 2.0
+	// stateModesRatio: the floor is set only when the richest state has at
+	// least this many times the modes of the poorest (10 against 3 on the
+	// water works' raw-water unit). A difference of a mode or so is the
+	// Share rule landing either side of its share; on the suite, flooring
+	// the compressor station's boost (4 against 3) cost a detection.
+	stateModesRatio = 2
 )
 
 // ShareStateModes turns the shared floor on (fit); false leaves each
@@ -61,8 +68,8 @@ func floorModes(cfg *tracker.Config, floor int) {
 // enough frames (from its latest refresh: a further refresh here would move
 // the warm-started modes of units it leaves alone), takes the largest of
 // their counts as the floor of all and rebuilds
-// the modes of each state under it, when the counts differ. It reports the
-// floor (0: none set).
+// the modes of each state under it, when the counts differ by a factor
+// stateModesRatio or more. It reports the floor (0: none set).
 func (u *Unit) alignStateModes() int {
 	s := u.states
 	if !ShareStateModes || s == nil || len(s.models) < 2 {
@@ -81,8 +88,8 @@ func (u *Unit) alignStateModes() int {
 		floor = max(floor, c)
 		n++
 	}
-	if n < 2 || floor == least {
-		return 0 // the states agree already: their counts stay their own
+	if n < 2 || floor < stateModesRatio*least {
+		return 0 // the states' counts are near enough: each keeps its own
 	}
 	if u.unmovedChannels(warm) == 0 {
 		return 0 // every channel differs by state: each state's own structure
