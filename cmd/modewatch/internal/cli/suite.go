@@ -55,7 +55,10 @@ type suiteRow struct {
 	// driver move, or name a status channel (switchAlerts): the issue's
 	// target is none.
 	AtSwitch []string `json:"at_switch"`
-	Error    string   `json:"error,omitempty"`
+	// Budgets sets each calibrated unit's measured false alerts beside
+	// fit's expected rate and interval (suiteBudgets).
+	Budgets []suiteBudget `json:"budget,omitempty"`
+	Error   string        `json:"error,omitempty"`
 }
 
 // suiteDetect counts the episodes of one fault kind and how many were
@@ -194,6 +197,9 @@ func runSuitePlant(ctx context.Context, dir string, p suitePlant, opt suiteOptio
 		return fail(fmt.Errorf("replay output: %v", err))
 	}
 	row.Metrics = *sum.Metrics
+	if row.Budgets, err = suiteBudgets(model, row.Metrics.Units, row.TestDays); err != nil {
+		return fail(err)
+	}
 	for _, u := range row.Metrics.Units {
 		if u.AlertOpenShareNormal != nil && (row.OpenShare == nil || *u.AlertOpenShareNormal > *row.OpenShare) {
 			row.OpenShare, row.WorstUnit = u.AlertOpenShareNormal, u.Unit
@@ -267,6 +273,7 @@ func printSuite(w io.Writer, rows []suiteRow) {
 	}
 	fmt.Fprintf(w, "at a switch: false alerts starting within %v after a machine start or stop, a status change or a planned move (and its ramp), or naming a status channel (target 0; listed in --json): %s\n",
 		suiteSwitchWindow, strings.Join(parts, ", "))
+	printSuiteBudgets(w, rows)
 	// Detection by fault kind, over all plants.
 	kinds := map[string]suiteDetect{}
 	var names []string
