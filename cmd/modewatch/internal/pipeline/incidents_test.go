@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"context"
 	"fmt"
+	"math"
 	"math/rand/v2"
 	"slices"
 	"strings"
@@ -252,5 +253,237 @@ func TestRestartInsideRecentring(t *testing.T) {
 				t.Error("no alert revision after the cut to compare")
 			}
 		})
+	}
+}
+
+// wideBench is an invented heating network for the unit-wide move test
+// (invented data, as the realism suite's): eight substations of three
+// channels each (return temperature, flow, valve), all driven by one heat
+// demand (a daily cycle and a slow walk) and each by its own use (a slow
+// walk). Frames every minute.
+type wideBench struct {
+	rng    *rand.Rand
+	demand float64 // walk part of the demand
+	use    [8]float64
+	step   float64 // added to the demand: a load change
+	bias   float64 // added to substation 3's flow: a sensor fault
+	lines  bytes.Buffer
+	t      time.Time
+}
+
+func newWideBench(seed uint64) *wideBench {
+	return &wideBench{rng: rand.New(rand.NewPCG(seed, 3)), t: time.Date(2026, 5, 4, 0, 0, 0, 0, time.UTC)}
+}
+
+func (b *wideBench) flowBias(s int) float64 {
+	if s == 3 {
+		return b.bias
+	}
+	return 0
+}
+
+func (b *wideBench) run(d time.Duration) {
+	const a = 0.99 // AR(1) of the walks per minute: a time constant of 100 min
+	for end := b.t.Add(d); b.t.Before(end); b.t = b.t.Add(time.Minute) {
+		b.demand = a*b.demand + 0.03*math.Sqrt(1-a*a)*b.rng.NormFloat64()
+		h := float64(b.t.Hour()) + float64(b.t.Minute())/60
+		dm := 0.6 + 0.08*math.Cos(2*math.Pi*(h-7)/24) + b.demand + b.step
+		for s := range b.use {
+			b.use[s] = a*b.use[s] + 0.06*math.Sqrt(1-a*a)*b.rng.NormFloat64()
+			u := b.use[s]
+			fmt.Fprintf(&b.lines, "net,sub=s%d ret=%.2f,flow=%.2f,valve=%.2f %d\n", s,
+				50-6*dm-4*u+0.2*b.rng.NormFloat64(), 12+12*dm+15*u+0.3*b.rng.NormFloat64()+b.flowBias(s),
+				50+50*dm+60*u+0.4*b.rng.NormFloat64(), b.t.UnixNano())
+		}
+	}
+}
+
+// TestUnitWideMove: a load change takes the network's demand to a level
+// the normal days never showed (+0.15 of design, as the realism suite's
+// district heating on its day 10); every substation moves with it, the
+// statistics hover around their limits and which substation ranks first
+// is chance. With the defaults the move is one incident (or a few, not one
+// per wander of the leading channel), and a 5 m³/h flow bias on one
+// substation (about 4σ) starting while the move holds the unit in alarm is
+// still reported on its own within 15 min, naming its channel first. With
+// alerts.specific_share and reopen_within switched off (and the 12h
+// bounded hold of that time) the same frames open a train of incidents
+// (the behaviour before them; the log shows
+// whether the bias was still reported on its own).
+func TestUnitWideMove(t *testing.T) {
+	type result struct {
+		move  int            // incidents after the step, other than the fault's
+		fault *alerts.Record // the incident naming the biased flow first
+		all   []*alerts.Record
+	}
+	run := func(a configs.Alerts) result {
+		b := newWideBench(1)
+		b.run(4 * 24 * time.Hour)
+		t0 := b.t
+		b.step = 0.15
+		b.run(10 * time.Hour)
+		tf := b.t
+		b.bias = 5
+		b.run(4 * time.Hour)
+		b.bias = 0
+		b.run(10 * time.Hour)
+		var res result
+		for _, r := range replayBench(t, &bench{lines: b.lines}, a) {
+			switch {
+			case r.Start.Before(t0):
+			case res.fault == nil && !r.Start.Before(tf) && r.Start.Sub(tf) <= 15*time.Minute && r.Contributors[0].Channel == "net.s3.flow":
+				res.fault = r
+				res.all = append(res.all, r)
+			default:
+				res.move++
+				res.all = append(res.all, r)
+			}
+		}
+		return res
+	}
+	def := run(configs.Alerts{})
+	t.Logf("defaults: %d incidents of the move%s", def.move, describe(def.all))
+	if def.move < 1 || def.move > 2 {
+		t.Errorf("the move opened %d incidents, want one or two", def.move)
+	}
+	if def.fault == nil {
+		t.Error("the flow bias was not reported on its own within 15 min")
+	} else if def.fault.EndReason == alerts.EndMerged {
+		t.Errorf("the flow bias's incident merged into %s", def.fault.MergedInto)
+	}
+	// The behaviour before the rules had the bounded hold of that time,
+	// 12h: a shorter hold accepts and closes the train's incidents too
+	// (at 4h the rules off open 2 incidents on this seed), which would
+	// hide what the rules do.
+	off := run(configs.Alerts{SpecificShare: 1e-9, ReopenWithin: time.Nanosecond, AcceptAfter: 12 * time.Hour})
+	t.Logf("rules off: %d incidents of the move, the bias on its own: %v%s", off.move, off.fault != nil, describe(off.all))
+	if off.move < def.move+3 {
+		t.Errorf("with the rules off the move opened %d incidents, with them %d: the test does not see them work", off.move, def.move)
+	}
+}
+
+// TestSecondFaultBeyond: a strong fault on the pump (8σ on one channel),
+// then, while it persists, a weaker one on the dryer of the same unit
+// (3σ): the dryer's channel rarely leads a frame the pump's channel
+// dominates. With alerts.beyond_incidents the frame scored with the
+// pump incident's channels reconstructed is led by the dryer's channel,
+// and the dryer gets an incident of its own, located at its own
+// equipment, as early after its fault as on a quiet unit (a 3σ fault on
+// a quiet bench is reported within minutes; 10 min allowed). Invented
+// data (seeded).
+func TestSecondFaultBeyond(t *testing.T) {
+	on := true
+	b, t1, t2 := twoFaultBench(3, 8, 3)
+	without := replayBench(t, b, configs.Alerts{})
+	t.Logf("defaults (without beyond_incidents):%s", describe(without))
+	if p, d := pumpAndDryer(without, t1, t2); p != nil && d != nil && p != d {
+		t.Logf("(the defaults reported the dryer too)")
+	}
+	rs := replayBench(t, b, configs.Alerts{BeyondIncidents: &on})
+	t.Logf("with beyond_incidents:%s", describe(rs))
+	pump, dryer := pumpAndDryer(rs, t1, t2)
+	if pump == nil || dryer == nil || pump == dryer {
+		t.Fatalf("want one incident for the pump and another for the dryer")
+	}
+	if slices.Contains(dryer.Location, benchChannel(1)) {
+		t.Errorf("the dryer's incident holds the pump's channel: %v", dryer.Location)
+	}
+	if d := dryer.Start.Sub(t2); d > 10*time.Minute {
+		t.Errorf("the second fault took %v to be reported", d)
+	}
+	if pump.End != nil && pump.EndReason == alerts.EndMerged {
+		t.Errorf("the pump's incident merged into %s", pump.MergedInto)
+	}
+}
+
+// runCycle appends d of bench frames whose latent loads follow a daily
+// cycle of amplitude amp (in σ, over the setpoints base) with period per,
+// as the demand of a plant does.
+func (b *bench) runCycle(d time.Duration, base [3]float64, amp float64, per time.Duration) {
+	for end := b.t.Add(d); b.t.Before(end); {
+		ph := 2 * math.Pi * float64(b.t.UnixNano()%int64(per)) / float64(per)
+		for e := range b.level {
+			b.level[e] = base[e] + amp*math.Sin(ph)
+		}
+		b.run(10 * time.Second)
+	}
+}
+
+// TestAcceptedIncidentCloses: on a unit whose loads follow a daily cycle
+// (6 h here, 1.5σ), a setpoint step of the pump (3σ, the structure
+// unchanged) is accepted after accept_after (2h) and its incident closes
+// within 30 min of the acceptance (the widening window of recentreFrames
+// frames, then the off-delay): the accepted state joins the normal
+// experience. Moving the means instead (accept_weight < 0) takes the
+// hour's level of the cycle as the normal, and the incident is still
+// open long after (logged for comparison, not checked).
+func TestAcceptedIncidentCloses(t *testing.T) {
+	gen := func() (*bench, time.Time) {
+		b := newBench(5)
+		b.runCycle(2*24*time.Hour, [3]float64{}, 1.5, 6*time.Hour)
+		t0 := b.t
+		b.runCycle(8*time.Hour, [3]float64{3, 0, 0}, 1.5, 6*time.Hour)
+		return b, t0
+	}
+	open := func(a configs.Alerts) (worst time.Duration, accepted int) {
+		b, t0 := gen()
+		rs := replayBench(t, b, a)
+		t.Logf("accept_weight %v:%s", a.AcceptWeight, describe(rs))
+		for _, r := range rs {
+			if r.Start.Before(t0) || r.Accepted == nil {
+				continue
+			}
+			accepted++
+			end := b.t
+			if r.End != nil {
+				end = *r.End
+			}
+			worst = max(worst, end.Sub(r.Accepted.At))
+		}
+		return worst, accepted
+	}
+	w, n := open(configs.Alerts{AcceptAfter: 2 * time.Hour})
+	if n == 0 {
+		t.Fatal("the setpoint step raised no incident accepted as the new normal")
+	}
+	if w > 30*time.Minute {
+		t.Errorf("an accepted incident stayed open %v after its acceptance, want at most 30m", w)
+	}
+	old, _ := open(configs.Alerts{AcceptAfter: 2 * time.Hour, AcceptWeight: -1})
+	t.Logf("longest open after acceptance: widening %v, moving the means %v", w, old)
+}
+
+// TestReturnAfterAcceptance: a 4σ bias of one pump channel lasts 5 h, so
+// its incident is accepted as the new normal after accept_after (2h)
+// while the fault persists; when the fault ends the channel returns to
+// its old normal, and that raises no new incident (the old operating
+// point stays in the normal experience), where moving the means to the
+// biased level turned the return into a new alert held for the whole
+// bounded hold.
+func TestReturnAfterAcceptance(t *testing.T) {
+	b := newBench(6)
+	b.run(2 * 24 * time.Hour)
+	t0 := b.t
+	b.bias[1] = 4
+	b.run(5 * time.Hour)
+	t1 := b.t
+	b.bias[1] = 0
+	b.run(4 * time.Hour)
+	rs := replayBench(t, b, configs.Alerts{AcceptAfter: 2 * time.Hour})
+	t.Logf("incidents:%s", describe(rs))
+	accepted := false
+	for _, r := range rs {
+		if r.Start.Before(t0) {
+			continue
+		}
+		if r.Start.Before(t1) && r.Accepted != nil && r.End != nil && r.End.Before(t1) && r.EndReason == alerts.EndNewNormal {
+			accepted = true
+		}
+		if !r.Start.Before(t1) {
+			t.Errorf("the return to the old normal at %v raised incident %s", t1.Format("15:04"), r.ID)
+		}
+	}
+	if !accepted {
+		t.Error("the bias was not accepted as the new normal and closed before it ended")
 	}
 }
