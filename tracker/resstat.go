@@ -55,20 +55,31 @@ const (
 // g·χ²_{1−α/p_in}(h) with a Bonferroni share α/p_in per channel. A sensor
 // that only got noisier raises its own qᵢ, which names it.
 //
-// Cost: per refresh a Cholesky factor and its inverse, O(p³/3); per frame
-// Ωz = U⁻¹(U⁻ᵀz), two triangular matrix–vector products, p² multiply-adds
-// (omegaTimes). Storage 2p² + O(p), allocated in New.
+// Cost: per refresh the Cholesky factor A + ε_R I = LLᵀ (O(p³/6)); per
+// frame zᵀΩz = ‖L⁻¹z‖², one triangular solve, p²/2 multiply-adds
+// (lowerSolve). Ωz = L⁻ᵀ(L⁻¹z) and the diagonal of Ω (O(p³/6), once per
+// refresh) are formed only when they are read: every frame with the
+// variance statistic, and for the RBC of R when they are asked for
+// (ResidualContributionsTo, Config.RankResidual with R further over its
+// limit than the index), from the factor and the frame they belong to.
+// Storage 2p² + O(p) (two factors: the current one and the one of the
+// last frame scored, which a refresh may have replaced), allocated in New.
 type resStat struct {
 	p            int
 	res, vr      bool
 	ridge, lam   float64
-	u, uinv      []float64 // upper Cholesky factor U of A + ε_R I and U⁻¹ (row-major p × p); after refresh u holds U⁻ᵀ (lower)
+	gens         [2]resGen // the factor of the current model is gens[cur]
+	cur          int
 	panel        []float64
-	zb           []float64 // scratch of omegaTimes: 2 × p, the vector and a zero row
-	omd          []float64 // Ωᵢᵢ
-	mii          []float64 // Mᵢᵢ = Ωᵢᵢ − Dᵢᵢ
+	zb           []float64 // [y; 0] (2 × p): y = L⁻¹z of the last frame scored, the zero row for rowKernel
+	sb           []float64 // scratch of lowerSolve: 4 × resDiagBlock
+	db           []float64 // scratch of diagOf: resDiagBlock × p
 	v            []float64 // scratch: Ωz
-	rbc          []float64 // last frame's RBC of R
+	rbc          []float64 // RBC of R of the last frame scored (once settled)
+	pending      bool      // rbc not yet formed for the last frame scored
+	pgen         int       // the factor that scored it
+	pdz          []float64 // its Dz
+	pinc         []bool    // m.include when it was scored
 	q, lvl       []float64 // variance EWMA and its normal level
 	lvlN         []float64 // frames behind lvl (cumulative start)
 	ok           bool
@@ -78,15 +89,35 @@ type resStat struct {
 	zAlpha       float64 // z_{1−α} for the Wilson–Hilferty limit
 }
 
+// resGen is one factor of the residual statistic and what its RBC needs:
+// L (row-major p × p, lower triangle), Dᵢᵢ and the channels of the model
+// at that refresh, and, once formed (diag), Ωᵢᵢ and Mᵢᵢ = Ωᵢᵢ − Dᵢᵢ.
+type resGen struct {
+	l        []float64
+	dd       []float64
+	inc      []bool
+	omd, mii []float64
+	diag     bool
+}
+
+// resDiagBlock is the number of unit right-hand sides solved together for
+// the diagonal of Ω (diagOf); even, as rowKernel takes its columns in pairs.
+const resDiagBlock = 16
+
 func newResStat(p int, cfg *Config) *resStat {
 	if !cfg.Residual && !cfg.Variance {
 		return nil
 	}
 	rs := &resStat{
 		p: p, res: cfg.Residual, vr: cfg.Variance, ridge: cfg.ResidualRidge, lam: cfg.VarianceLambda,
-		u: make([]float64, p*p), uinv: make([]float64, p*p), panel: make([]float64, p*cholBlock),
-		omd: make([]float64, p), mii: make([]float64, p), v: make([]float64, p), zb: make([]float64, 2*p),
-		rbc: make([]float64, p), q: make([]float64, p), lvl: make([]float64, p), lvlN: make([]float64, p),
+		panel: make([]float64, p*cholBlock), v: make([]float64, p), zb: make([]float64, 2*p),
+		sb: make([]float64, 4*resDiagBlock), db: make([]float64, resDiagBlock*p),
+		rbc: make([]float64, p), pdz: make([]float64, p), pinc: make([]bool, p),
+		q: make([]float64, p), lvl: make([]float64, p), lvlN: make([]float64, p),
+	}
+	for k := range rs.gens {
+		rs.gens[k] = resGen{l: make([]float64, p*p), dd: make([]float64, p), inc: make([]bool, p),
+			omd: make([]float64, p), mii: make([]float64, p)}
 	}
 	for i := range rs.q {
 		rs.q[i], rs.lvl[i] = 1, 1
@@ -101,32 +132,181 @@ func newResStat(p int, cfg *Config) *resStat {
 // refresh factors A + ε_R I of the new model m and sets the limits.
 // Channels out of the model have zero rows of A: their Ω entries are 1/ε_R
 // on the diagonal and zero elsewhere, and their z is 0, so they add
-// nothing to R.
+// nothing to R. The factor goes into the slot not in use; the slot of the
+// last frame scored is kept until its RBC is formed (settled first if a
+// second refresh comes before another frame).
 func (rs *resStat) refresh(m *model, alpha float64) {
 	p := rs.p
-	rs.ok = factorInverse(rs.u, rs.uinv, rs.panel, m.a.RawSymmetric(), p, rs.ridge)
+	nxt := 1 - rs.cur
+	if rs.pending && rs.pgen == nxt {
+		rs.contributions()
+	}
+	g := &rs.gens[nxt]
+	rs.ok = factorLower(g.l, rs.panel, m.a.RawSymmetric(), p, rs.ridge)
 	if !rs.ok {
 		return
 	}
-	transposeUpper(rs.u, rs.uinv, p) // U⁻ᵀ for omegaTimes; the factor is not needed again
-	inv := rs.uinv
-	// Ω = U⁻¹U⁻ᵀ: Ωᵢᵢ = ‖row i of U⁻¹‖².
+	rs.cur = nxt
+	copy(g.dd, m.base.dd)
+	copy(g.inc, m.include)
+	g.diag = false
 	pin := 0
-	for i := 0; i < p; i++ {
-		s := 0.0
-		for _, v := range inv[i*p+i : i*p+p] {
-			s += v * v
-		}
-		rs.omd[i] = s
-		rs.mii[i] = 0
-		if m.include[i] {
+	for _, in := range m.include {
+		if in {
 			pin++
-			rs.mii[i] = s - m.base.dd[i]
 		}
 	}
 	rs.dims = max(pin-m.r, 1)
 	rs.lim = limits.ChiSquare(1-alpha, float64(rs.dims))
 	rs.vlim = rs.vg * limits.ChiSquare(1-alpha/float64(max(pin, 1)), rs.vh)
+	if rs.vr {
+		rs.diagOf(g)
+	}
+}
+
+// factorLower sets l to the lower Cholesky factor L of A + εI = LLᵀ
+// (row-major p × p, A in the upper triangle of a; the strict upper
+// triangle of l is left holding U = Lᵀ and is never read): cholUpper
+// gives U in place, then its transpose into the lower triangle, eight
+// rows of L at a time (one cache line of each row of U read, eight rows of
+// L written in order). panel holds cholBlock·p values. It reports false
+// when A + εI is not positive definite.
+func factorLower(l, panel []float64, a blas64.Symmetric, p int, ridge float64) bool {
+	for i := 0; i < p; i++ {
+		copy(l[i*p+i:i*p+p], a.Data[i*a.Stride+i:i*a.Stride+p])
+		l[i*p+i] += ridge
+	}
+	if !cholUpper(l, p, p, panel) {
+		return false
+	}
+	i0 := 0
+	for ; i0+8 <= p; i0 += 8 {
+		r0, r1, r2, r3 := l[i0*p:i0*p+i0], l[(i0+1)*p:(i0+1)*p+i0], l[(i0+2)*p:(i0+2)*p+i0], l[(i0+3)*p:(i0+3)*p+i0]
+		r4, r5, r6, r7 := l[(i0+4)*p:(i0+4)*p+i0], l[(i0+5)*p:(i0+5)*p+i0], l[(i0+6)*p:(i0+6)*p+i0], l[(i0+7)*p:(i0+7)*p+i0]
+		for j := range r0 {
+			u := l[j*p+i0 : j*p+i0+8]
+			r0[j], r1[j], r2[j], r3[j] = u[0], u[1], u[2], u[3]
+			r4[j], r5[j], r6[j], r7[j] = u[4], u[5], u[6], u[7]
+		}
+		for i := i0 + 1; i < i0+8; i++ {
+			for j := i0; j < i; j++ {
+				l[i*p+j] = l[j*p+i]
+			}
+		}
+	}
+	for i := i0; i < p; i++ {
+		for j := 0; j < i; j++ {
+			l[i*p+j] = l[j*p+i]
+		}
+	}
+	return true
+}
+
+// diagOf forms Ωᵢᵢ = ‖L⁻¹eᵢ‖² (the squared norm of column i of L⁻¹) and
+// Mᵢᵢ = Ωᵢᵢ − Dᵢᵢ (0 for channels out of the model) of the factor g, by
+// lowerSolve with resDiagBlock unit right-hand sides at a time (each zero
+// before its own channel): Σᵢ (p − i)²/2 ≈ p³/6 multiply-adds.
+func (rs *resStat) diagOf(g *resGen) {
+	if g.diag {
+		return
+	}
+	p, nb := rs.p, resDiagBlock
+	y := rs.db
+	for c := 0; c < p; c += nb {
+		k := min(nb, p-c)
+		for j := range y {
+			y[j] = 0
+		}
+		for x := 0; x < k; x++ {
+			y[x*p+c+x] = 1
+		}
+		lowerSolve(y, k, nb, g.l, p, c, rs.sb)
+		for x := 0; x < k; x++ {
+			i := c + x
+			s := 0.0
+			for _, v := range y[x*p+i : x*p+p] {
+				s += v * v
+			}
+			g.omd[i] = s
+			g.mii[i] = 0
+			if g.inc[i] {
+				g.mii[i] = s - g.dd[i]
+			}
+		}
+	}
+	g.diag = true
+}
+
+// lowerSolve solves L yₓ = bₓ in place for the nrhs right-hand sides held
+// in the rows of y (row x at y[x·p:], each zero before c0), with L the
+// lower triangle of l (row-major p × p): forward substitution in dot form
+// (Golub & Van Loan, Matrix Computations, §3.1), four rows of L at a time
+// — the dots of the four rows with the solved part of every yₓ by the
+// AVX2/FMA kernel of the covariance update (rowKernel) where the CPU has
+// it, then the 4 × 4 diagonal block by substitution. y holds ncol rows
+// (ncol ≥ nrhs, even; rows nrhs…ncol−1 zero), s 4·ncol values. Cost
+// nrhs·(p − c0)²/2 multiply-adds; no allocation.
+func lowerSolve(y []float64, nrhs, ncol int, l []float64, p, c0 int, s []float64) {
+	start := c0 &^ 3 // y is zero from here to c0: the kernel's length stays a multiple of 4
+	s = s[:4*ncol]
+	for r0 := start; r0 < p; r0 += 4 {
+		r1 := min(r0+4, p)
+		for j := range s {
+			s[j] = 0
+		}
+		if r1 < r0+4 || !rowKernel(l[r0*p+start:], p, r0-start, y[start:], ncol, s, ncol, 1, 0) {
+			for r := r0; r < r1; r++ {
+				row := l[r*p+start : r*p+r0]
+				for x := 0; x < nrhs; x++ {
+					s[(r-r0)*ncol+x] = dot(row, y[x*p+start:])
+				}
+			}
+		}
+		for r := r0; r < r1; r++ {
+			d := l[r*p+r]
+			row := l[r*p+r0 : r*p+r]
+			for x := 0; x < nrhs; x++ {
+				yx := y[x*p : x*p+p]
+				yx[r] = (yx[r] - s[(r-r0)*ncol+x] - dot(row, yx[r0:r])) / d
+			}
+		}
+	}
+}
+
+// upperSolveT solves Lᵀv = y (L the lower triangle of l, row-major p × p)
+// into v, by back substitution in column form (each step subtracts a
+// multiple of row i of L, contiguous, from the unsolved part), four rows
+// at a time: p²/2 multiply-adds, no allocation.
+func upperSolveT(v, y, l []float64, p int) {
+	copy(v[:p], y[:p])
+	i := p - 1
+	for ; i >= 0 && (i+1)%4 != 0; i-- {
+		v[i] /= l[i*p+i]
+		axpyRow(v[:i], -v[i], l[i*p:i*p+i])
+	}
+	for ; i >= 3; i -= 4 {
+		// Rows i−3…i: finish the 4 × 4 block, then subtract all four rows.
+		for r := i; r > i-4; r-- {
+			v[r] /= l[r*p+r]
+			for c := i - 3; c < r; c++ {
+				v[c] -= v[r] * l[r*p+c]
+			}
+		}
+		a0, a1, a2, a3 := v[i-3], v[i-2], v[i-1], v[i]
+		r0, r1, r2, r3 := l[(i-3)*p:(i-3)*p+i-3], l[(i-2)*p:(i-2)*p+i-3], l[(i-1)*p:(i-1)*p+i-3], l[i*p:i*p+i-3]
+		vv := v[:i-3]
+		for c := range vv {
+			vv[c] -= a0*r0[c] + a1*r1[c] + a2*r2[c] + a3*r3[c]
+		}
+	}
+}
+
+// axpyRow sets y += a·x (len(x) = len(y)).
+func axpyRow(y []float64, a float64, x []float64) {
+	x = x[:len(y)]
+	for c, v := range x {
+		y[c] += a * v
+	}
 }
 
 // factorInverse sets u to the upper Cholesky factor of A + εI (row-major
@@ -152,41 +332,40 @@ func factorInverse(u, inv, panel []float64, a blas64.Symmetric, p int, ridge flo
 // and t2 from the scoring path; nMiss is the number of missing (imputed)
 // channels, obs and stuck mark the channels seen in the frame. advance
 // moves the variance EWMA (Step, not Evaluate) and learn also its normal
-// levels.
+// levels. R needs only y = L⁻¹z; the RBC of R is left pending (settled by
+// contributions) with what it needs: the factor's slot, Dz and the
+// channels of the model.
 func (rs *resStat) score(dst *Score, m *model, z, dz []float64, t2 float64, nMiss int, obs, stuck []bool, advance, learn bool) {
 	dst.Residual, dst.ResidualLimit, dst.Variance, dst.VarianceLimit, dst.VarianceChannel = 0, 0, 0, 0, -1
 	if !rs.ok {
 		return
 	}
 	p := rs.p
-	v := rs.v
-	rs.omegaTimes(v, z[:p])
+	g := &rs.gens[rs.cur]
+	q := rs.forward(z[:p])
 	if rs.res {
-		q := 0.0
-		for i := 0; i < p; i++ {
-			q += z[i] * v[i]
-		}
 		r := max(q-t2, 0)
 		dst.Residual = r
 		dst.ResidualLimit = rs.lim
 		if nMiss > 0 {
 			dst.ResidualLimit = wilsonHilferty(float64(max(rs.dims-nMiss, 1)), rs.zAlpha)
 		}
-		for i := 0; i < p; i++ {
-			rs.rbc[i] = 0
-			if mi := rs.mii[i]; mi > 0 && m.include[i] {
-				d := v[i] - dz[i]
-				rs.rbc[i] = d * d / mi
-			}
-		}
+		rs.pending, rs.pgen = true, rs.cur
+		copy(rs.pdz, dz[:p])
+		copy(rs.pinc, m.include)
 	}
 	if rs.vr {
+		v := rs.v
+		upperSolveT(v, rs.zb, g.l, p)
+		if rs.res {
+			rs.settle(v)
+		}
 		best, bi := 0.0, -1
 		for i := 0; i < p; i++ {
-			if !m.include[i] || !obs[i] || stuck[i] || !(rs.omd[i] > 0) {
+			if !m.include[i] || !obs[i] || stuck[i] || !(g.omd[i] > 0) {
 				continue
 			}
-			ri := v[i] / math.Sqrt(rs.omd[i])
+			ri := v[i] / math.Sqrt(g.omd[i])
 			r2 := ri * ri
 			if advance {
 				rs.q[i] += rs.lam * (r2 - rs.q[i])
@@ -205,6 +384,70 @@ func (rs *resStat) score(dst *Score, m *model, z, dz []float64, t2 float64, nMis
 		}
 		dst.Variance, dst.VarianceLimit, dst.VarianceChannel = best, rs.vlim, bi
 	}
+}
+
+// forward sets y = L⁻¹z (rs.zb[:p]) under the current factor and returns
+// ‖y‖² = zᵀΩz: lowerSolve for one right-hand side, written out (the dots
+// of four rows of L with the solved part of y by rowKernel, its zero
+// second column the row rs.zb[p:], then the 4 × 4 diagonal block).
+func (rs *resStat) forward(z []float64) float64 {
+	p := rs.p
+	l := rs.gens[rs.cur].l
+	b := rs.zb[:2*p]
+	y := b[:p]
+	copy(y, z)
+	for j := range b[p:] {
+		b[p+j] = 0
+	}
+	q := 0.0
+	r0 := 0
+	for ; r0+4 <= p; r0 += 4 {
+		var c [8]float64
+		if !rowKernel(l[r0*p:], p, r0, b, 2, c[:], 2, 1, 0) {
+			for r := 0; r < 4; r++ {
+				c[2*r] = dot(l[(r0+r)*p:(r0+r)*p+r0], y)
+			}
+		}
+		l0, l1, l2, l3 := l[r0*p+r0:r0*p+r0+1], l[(r0+1)*p+r0:(r0+1)*p+r0+2], l[(r0+2)*p+r0:(r0+2)*p+r0+3], l[(r0+3)*p+r0:(r0+3)*p+r0+4]
+		y0 := (y[r0] - c[0]) / l0[0]
+		y1 := (y[r0+1] - c[2] - l1[0]*y0) / l1[1]
+		y2 := (y[r0+2] - c[4] - (l2[0]*y0 + l2[1]*y1)) / l2[2]
+		y3 := (y[r0+3] - c[6] - (l3[0]*y0 + l3[1]*y1 + l3[2]*y2)) / l3[3]
+		y[r0], y[r0+1], y[r0+2], y[r0+3] = y0, y1, y2, y3
+		q += (y0*y0 + y1*y1) + (y2*y2 + y3*y3)
+	}
+	for r := r0; r < p; r++ {
+		y[r] = (y[r] - dot(l[r*p:r*p+r], y)) / l[r*p+r]
+		q += y[r] * y[r]
+	}
+	return q
+}
+
+// contributions returns the RBC of R of the last frame scored, forming it
+// first if it is pending: Ωz = L⁻ᵀy under the factor that scored the frame
+// (the y of that frame is still in rs.zb), and Ωᵢᵢ of that factor if not
+// yet formed.
+func (rs *resStat) contributions() []float64 {
+	if rs.pending {
+		upperSolveT(rs.v, rs.zb, rs.gens[rs.pgen].l, rs.p)
+		rs.settle(rs.v)
+	}
+	return rs.rbc
+}
+
+// settle forms the RBC of R of the pending frame from v = Ωz:
+// RBCᵢ = ((Ωz)ᵢ − (Dz)ᵢ)²/Mᵢᵢ.
+func (rs *resStat) settle(v []float64) {
+	g := &rs.gens[rs.pgen]
+	rs.diagOf(g)
+	for i := 0; i < rs.p; i++ {
+		rs.rbc[i] = 0
+		if mi := g.mii[i]; mi > 0 && rs.pinc[i] {
+			d := v[i] - rs.pdz[i]
+			rs.rbc[i] = d * d / mi
+		}
+	}
+	rs.pending = false
 }
 
 // wilsonHilferty is the χ² quantile on ν degrees of freedom at the normal
@@ -228,7 +471,7 @@ func (t *Tracker) ResidualContributionsTo(dst []float64) {
 		}
 		return
 	}
-	copy(dst, t.rs.rbc)
+	copy(dst, t.rs.contributions())
 }
 
 // rankResidual reports whether the contributors of the frame in dst are
@@ -244,74 +487,10 @@ func (t *Tracker) rankResidual(dst *Score, index, indexLim float64) bool {
 	return dst.Residual/dst.ResidualLimit > index/indexLim
 }
 
-// transposeUpper sets dst (row-major p × p) to the transpose of the upper
-// triangular src, zero above the diagonal, by 8 × 8 tiles.
-func transposeUpper(dst, src []float64, p int) {
-	const tile = 8
-	for i0 := 0; i0 < p; i0 += tile {
-		for j0 := 0; j0 < p; j0 += tile {
-			for i := i0; i < min(i0+tile, p); i++ {
-				for j := j0; j < min(j0+tile, p); j++ {
-					v := 0.0
-					if j <= i {
-						v = src[j*p+i]
-					}
-					dst[i*p+j] = v
-				}
-			}
-		}
-	}
-}
-
-// omegaTimes sets v = Ωz = U⁻¹(U⁻ᵀz) (len p each) from U⁻ᵀ (rs.u after
-// refresh, lower) and U⁻¹ (rs.uinv, upper): s = U⁻ᵀz, sⱼ = Σ_{l≤j} (U⁻ᵀ)ⱼₗ zₗ,
-// then vᵢ = Σ_{l≥i} (U⁻¹)ᵢₗ sₗ; two triangular matrix–vector products, p²
-// multiply-adds in all, in dot form four rows at a time by the AVX2/FMA
-// kernel of the covariance update (rowKernel) where the CPU has it. The
-// dot of a row can run over zeros of the triangle past (or before) the
-// diagonal so that its length is a multiple of 4. It computes Ωz through
-// the inverse factor rather than by forward and back substitution with U
-// (the same product; rounding differs), because the products have no
-// chain of dependent steps. No allocation.
+// omegaTimes sets v = Ωz (len p each) under the current factor:
+// y = L⁻¹z (forward), then v = L⁻ᵀy (upperSolveT). It overwrites the y of
+// the last frame scored: only for tests.
 func (rs *resStat) omegaTimes(v, z []float64) {
-	p := rs.p
-	lt, ui := rs.u, rs.uinv
-	b := rs.zb[:2*p] // [x; 0]: the kernel takes its columns in pairs, rows at stride p
-	for j := range b[p:] {
-		b[p+j] = 0
-	}
-	copy(b[:p], z)
-	// s = U⁻ᵀz into v; rows j…j+3 of U⁻ᵀ are zero past j+3.
-	j := 0
-	for ; j+4 <= p; j += 4 {
-		var c [8]float64
-		if rowKernel(lt[j*p:], p, j+4, b, 2, c[:], 2, 1, 0) {
-			v[j], v[j+1], v[j+2], v[j+3] = c[0], c[2], c[4], c[6]
-			continue
-		}
-		for r := j; r < j+4; r++ {
-			v[r] = dot(lt[r*p:r*p+r+1], z)
-		}
-	}
-	for ; j < p; j++ {
-		v[j] = dot(lt[j*p:j*p+j+1], z)
-	}
-	// v = U⁻¹s; rows i…i+3 of U⁻¹ are zero before i.
-	copy(b[:p], v)
-	s := b[:p]
-	i := 0
-	for ; i+4 <= p; i += 4 {
-		i0 := p - roundUp4(p-i)
-		var c [8]float64
-		if i0 >= 0 && rowKernel(ui[i*p+i0:], p, p-i0, b[i0:], 2, c[:], 2, 1, 0) {
-			v[i], v[i+1], v[i+2], v[i+3] = c[0], c[2], c[4], c[6]
-			continue
-		}
-		for r := i; r < i+4; r++ {
-			v[r] = dot(ui[r*p+r:r*p+p], s[r:])
-		}
-	}
-	for ; i < p; i++ {
-		v[i] = dot(ui[i*p+i:i*p+p], s[i:])
-	}
+	rs.forward(z)
+	upperSolveT(v, rs.zb, rs.gens[rs.cur].l, rs.p)
 }

@@ -695,7 +695,7 @@ func (t *Tracker) score(dst *Score, x []float64) error {
 	}
 	rbc, useRes := w.rbc, t.rankResidual(dst, index, indexLim)
 	if useRes {
-		rbc, index = t.rs.rbc, dst.Residual
+		rbc, index = t.rs.contributions(), dst.Residual
 	}
 	top := t.rankTop(rbc, pt.rbcInv)
 	for _, i := range top {

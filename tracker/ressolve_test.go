@@ -1,0 +1,163 @@
+package tracker
+
+import (
+	"fmt"
+	"math"
+	"math/rand/v2"
+	"testing"
+	"time"
+
+	"gonum.org/v1/gonum/mat"
+)
+
+// The residual statistic's factor and solves against gonum: factorLower's
+// L equals gonum's Cholesky factor of A + ε_R·I, forward's y = L⁻¹z and
+// ‖y‖² equal gonum's triangular solve and zᵀ(A + ε_R·I)⁻¹z, and diagOf's
+// Ωᵢᵢ and Mᵢᵢ = Ωᵢᵢ − Dᵢᵢ equal the diagonal of gonum's Cholesky inverse
+// (less the T² matrix's diagonal), at sizes below one group of four rows,
+// with and without a partial group and across the diagonal block of
+// diagOf (p = 3, 9, 64, 66, 203).
+func TestResidualSolvesAgainstGonum(t *testing.T) {
+	for _, p := range []int{3, 9, 64, 66, 203} {
+		t.Run(fmt.Sprintf("p=%d", p), func(t *testing.T) {
+			rng := rand.New(rand.NewPCG(uint64(p), 53))
+			s := randomCov(rng, p, min(5, p-1))
+			m, _ := testModel(t, s, eigenLoadings(s, min(2, p-1)), IndexCombined)
+			cfg := Config{Residual: true, ResidualRidge: DefaultResidualRidge, Alpha: 0.01, VarianceLambda: DefaultVarianceLambda}
+			rs := newResStat(p, &cfg)
+			rs.refresh(m, 0.01)
+			if !rs.ok {
+				t.Fatal("refresh failed")
+			}
+			g := &rs.gens[rs.cur]
+			omega, ch := refPrecision(t, s, DefaultResidualRidge)
+			var lref mat.TriDense
+			ch.LTo(&lref)
+			for i := 0; i < p; i++ {
+				for j := 0; j <= i; j++ {
+					approx(t, fmt.Sprintf("L[%d,%d]", i, j), g.l[i*p+j], lref.At(i, j), 1e-12, 1e-10)
+				}
+			}
+			for trial := 0; trial < 3; trial++ {
+				z := make([]float64, p)
+				for i := range z {
+					z[i] = rng.NormFloat64()
+				}
+				q := rs.forward(z)
+				var y, oz mat.VecDense
+				if err := y.SolveVec(&lref, mat.NewVecDense(p, z)); err != nil {
+					t.Fatal(err)
+				}
+				for i := 0; i < p; i++ {
+					approx(t, fmt.Sprintf("y[%d]", i), rs.zb[i], y.AtVec(i), 1e-10, 1e-9)
+				}
+				oz.MulVec(omega, mat.NewVecDense(p, z))
+				approx(t, "zᵀΩz", q, mat.Dot(mat.NewVecDense(p, z), &oz), 1e-9, 1e-9)
+			}
+			rs.diagOf(g)
+			for i := 0; i < p; i++ {
+				approx(t, fmt.Sprintf("Ω[%d,%d]", i, i), g.omd[i], omega.At(i, i), 1e-9, 1e-9)
+				approx(t, fmt.Sprintf("M[%d,%d]", i, i), g.mii[i], omega.At(i, i)-m.base.dd[i], 1e-9, 1e-9)
+			}
+		})
+	}
+}
+
+// The RBC of R formed on demand equals the RBC formed with the frame's
+// score: a tracker with the residual statistic alone (pending until read)
+// against one with the variance statistic too (formed in every frame, as
+// the variance statistic needs Ωz), frame by frame over refreshes; a third
+// tracker read only at the frames whose learning refreshed the model (so
+// the RBC comes from the factor the refresh replaced) and once more after
+// two extra refreshes (the slot of the scoring factor then reused). The
+// statistics are bit for bit the same in all three.
+func TestResidualContributionsOnDemand(t *testing.T) {
+	const p = 12
+	var trs [3]*Tracker
+	for k := range trs {
+		cfg := Config{Period: time.Second, HalfLife: time.Hour, WarmUp: 50, RefreshEvery: 10, Residual: true, Variance: k == 1}
+		tr, err := New(p, cfg)
+		if err != nil {
+			t.Fatal(err)
+		}
+		trs[k] = tr
+	}
+	rp := &relationPlant{rng: rand.New(rand.NewPCG(23, 1))}
+	x := make([]float64, p)
+	var sc [3]Score
+	var rbc [3][]float64
+	for k := range rbc {
+		rbc[k] = make([]float64, p)
+	}
+	checked, atRefresh := 0, 0
+	for f := 0; f < 305; f++ {
+		rp.frame(x)
+		if f%50 == 0 {
+			x[9] += 0.5 // break a relation now and then: R and its RBC move
+		}
+		for k, tr := range trs {
+			if err := tr.Step(&sc[k], x, nil); err != nil {
+				t.Fatal(err)
+			}
+		}
+		if !sc[0].Ready {
+			continue
+		}
+		for k := 1; k < 3; k++ {
+			if sc[k].Residual != sc[0].Residual || sc[k].ResidualLimit != sc[0].ResidualLimit {
+				t.Fatalf("frame %d: R %v/%v, tracker %d %v/%v", f, sc[0].Residual, sc[0].ResidualLimit, k, sc[k].Residual, sc[k].ResidualLimit)
+			}
+		}
+		trs[0].ResidualContributionsTo(rbc[0])
+		trs[1].ResidualContributionsTo(rbc[1])
+		refreshed := sc[2].NextRefresh == 1 // this frame's learning refreshed the model
+		if refreshed {
+			trs[2].ResidualContributionsTo(rbc[2])
+			atRefresh++
+		}
+		for i := 0; i < p; i++ {
+			if rbc[0][i] != rbc[1][i] || (refreshed && rbc[2][i] != rbc[1][i]) {
+				t.Fatalf("frame %d channel %d: RBC on demand %v, at refresh %v, with the score %v", f, i, rbc[0][i], rbc[2][i], rbc[1][i])
+			}
+		}
+		checked++
+	}
+	if checked < 200 || atRefresh < 20 {
+		t.Fatalf("checked %d frames, %d at a refresh", checked, atRefresh)
+	}
+	// One more frame, not read on the third tracker, then two refreshes
+	// with frames learned without scoring before each (the correlation
+	// moves): the second reuses the slot of the factor that scored the
+	// frame, so its RBC is formed before.
+	rp.frame(x)
+	for k, tr := range trs {
+		if err := tr.Step(&sc[k], x, nil); err != nil || sc[k].NextRefresh == 1 {
+			t.Fatalf("last frame: %v, next refresh %d", err, sc[k].NextRefresh)
+		}
+	}
+	trs[1].ResidualContributionsTo(rbc[1])
+	for n := 0; n < 2; n++ {
+		for f := 0; f < 20; f++ {
+			rp.frame(x)
+			x[10] += 1
+			trs[2].Stats().Update(x, nil)
+		}
+		trs[2].Stats().Flush()
+		if err := trs[2].Refresh(); err != nil {
+			t.Fatal(err)
+		}
+	}
+	trs[2].ResidualContributionsTo(rbc[2])
+	nonzero := 0
+	for i := 0; i < p; i++ {
+		if rbc[2][i] != rbc[1][i] {
+			t.Fatalf("after two refreshes, channel %d: RBC %v, with the score %v", i, rbc[2][i], rbc[1][i])
+		}
+		if rbc[1][i] > 0 && !math.IsInf(rbc[1][i], 0) {
+			nonzero++
+		}
+	}
+	if nonzero == 0 {
+		t.Fatal("every RBC is zero")
+	}
+}
