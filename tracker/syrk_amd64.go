@@ -71,7 +71,7 @@ func trailingUpdate(a []float64, lda, n, k0, k1 int) bool {
 		if n8 > 0 {
 			_ = a[(k1-1)*lda+i+n8-1]
 			_ = a[(i+3)*lda+i+n8-1]
-			gerUpdAVX2(&a[k0*lda+i], &a[k0*lda+i], lda, k, &a[i*lda+i], lda, n8)
+			gerUpd(&a[k0*lda+i], a[k0*lda+i:], lda, k, a[i*lda+i:], lda, n8)
 		}
 		for j := i + n8; j < n; j++ {
 			for r := 0; r < 4; r++ {
@@ -108,6 +108,6 @@ func gerKernel(p, q []float64, ldp, k int, c []float64, ldc, ncol int) int {
 	_ = p[(k-1)*ldp+3]
 	_ = q[(k-1)*ldp+n8-1]
 	_ = c[3*ldc+n8-1]
-	gerUpdAVX2(&p[0], &q[0], ldp, k, &c[0], ldc, n8)
+	gerUpd(&p[0], q, ldp, k, c, ldc, n8)
 	return n8
 }

@@ -1,0 +1,95 @@
+#include "textflag.h"
+
+// func gerUpdAVX512(p *float64, q *float64, ldp, k int, c *float64, ldc, ncol int)
+//
+// gerUpdAVX2 with 8-wide vectors: for the four rows x = 0…3 at p and the
+// ncol (a multiple of 16) columns y at q of a k-row panel (rows at stride
+// ldp):
+//	c[x][y] ← c[x][y] − Σ_l p[l][x]·q[l][y]
+// Per panel row: four broadcasts, two 8-wide loads, eight fused
+// multiply-adds into eight accumulators (4 rows × 16 columns). Each c
+// value is summed over l in the same order as by gerUpdAVX2, so the two
+// give the same bits. k ≥ 1. Strides are in elements.
+TEXT ·gerUpdAVX512(SB), NOSPLIT, $0-56
+	MOVQ p+0(FP), SI
+	MOVQ q+8(FP), DI
+	MOVQ ldp+16(FP), R8
+	SHLQ $3, R8
+	MOVQ k+24(FP), CX
+	MOVQ c+32(FP), DX
+	MOVQ ldc+40(FP), R10
+	SHLQ $3, R10
+	MOVQ ncol+48(FP), R9
+
+zblock:
+	CMPQ   R9, $16
+	JLT    zdone
+	VPXORQ Z0, Z0, Z0
+	VPXORQ Z1, Z1, Z1
+	VPXORQ Z2, Z2, Z2
+	VPXORQ Z3, Z3, Z3
+	VPXORQ Z4, Z4, Z4
+	VPXORQ Z5, Z5, Z5
+	VPXORQ Z6, Z6, Z6
+	VPXORQ Z7, Z7, Z7
+	MOVQ   SI, R11
+	MOVQ   DI, R12
+	MOVQ   CX, BX
+
+zloop:
+	VMOVUPD      (R12), Z8
+	VMOVUPD      64(R12), Z9
+	VBROADCASTSD (R11), Z10
+	VFMADD231PD  Z8, Z10, Z0
+	VFMADD231PD  Z9, Z10, Z1
+	VBROADCASTSD 8(R11), Z11
+	VFMADD231PD  Z8, Z11, Z2
+	VFMADD231PD  Z9, Z11, Z3
+	VBROADCASTSD 16(R11), Z12
+	VFMADD231PD  Z8, Z12, Z4
+	VFMADD231PD  Z9, Z12, Z5
+	VBROADCASTSD 24(R11), Z13
+	VFMADD231PD  Z8, Z13, Z6
+	VFMADD231PD  Z9, Z13, Z7
+	ADDQ         R8, R11
+	ADDQ         R8, R12
+	DECQ         BX
+	JNZ          zloop
+
+	VMOVUPD (DX), Z8
+	VSUBPD  Z0, Z8, Z8
+	VMOVUPD Z8, (DX)
+	VMOVUPD 64(DX), Z9
+	VSUBPD  Z1, Z9, Z9
+	VMOVUPD Z9, 64(DX)
+
+	VMOVUPD (DX)(R10*1), Z8
+	VSUBPD  Z2, Z8, Z8
+	VMOVUPD Z8, (DX)(R10*1)
+	VMOVUPD 64(DX)(R10*1), Z9
+	VSUBPD  Z3, Z9, Z9
+	VMOVUPD Z9, 64(DX)(R10*1)
+
+	VMOVUPD (DX)(R10*2), Z8
+	VSUBPD  Z4, Z8, Z8
+	VMOVUPD Z8, (DX)(R10*2)
+	VMOVUPD 64(DX)(R10*2), Z9
+	VSUBPD  Z5, Z9, Z9
+	VMOVUPD Z9, 64(DX)(R10*2)
+
+	LEAQ    (DX)(R10*2), R13
+	VMOVUPD (R13)(R10*1), Z8
+	VSUBPD  Z6, Z8, Z8
+	VMOVUPD Z8, (R13)(R10*1)
+	VMOVUPD 64(R13)(R10*1), Z9
+	VSUBPD  Z7, Z9, Z9
+	VMOVUPD Z9, 64(R13)(R10*1)
+
+	ADDQ $128, DI
+	ADDQ $128, DX
+	SUBQ $16, R9
+	JMP  zblock
+
+zdone:
+	VZEROUPPER
+	RET
