@@ -57,7 +57,8 @@ type model struct {
 	next    int        // round-robin replacement among the slots
 	scratch *pattern   // the slot used when caching is off
 
-	chol   []float64 // upper Cholesky factor of A + εI (p × p), allocated at the first incomplete frame
+	chol   []float64 // upper Cholesky factor of A + εI (p × p, upper triangle): own, or the residual statistic's (shareFactor)
+	own    []float64 // chol's own buffer, allocated at the first incomplete frame that needs it
 	panel  []float64 // p × cholBlock scratch of cholUpper
 	cholOK bool      // chol is the factor of the current A
 

@@ -161,3 +161,71 @@ func TestResidualContributionsOnDemand(t *testing.T) {
 		t.Fatal("every RBC is zero")
 	}
 }
+
+// One factorization for the residual statistic and the missing-data model
+// when their ridges agree (model.shareFactor): a tracker with the residual
+// statistic on and Ridge = ResidualRidge, whose missing-data model reads
+// the residual statistic's factor, scores and learns frames with a masked
+// pair and a channel missing every third frame exactly as one without the
+// residual statistic, which factors A + εI itself (T², SPE, φ, limits,
+// contributors, their expected values and bands, bit for bit); the factor
+// is the same either way (cholUpper of the same matrix).
+func TestSharedFactorSameScores(t *testing.T) {
+	const p = 12
+	var trs [2]*Tracker
+	for k := range trs {
+		cfg := Config{Period: time.Second, HalfLife: time.Hour, WarmUp: 50, RefreshEvery: 10,
+			Residual: k == 0, Ridge: DefaultResidualRidge, ResidualRidge: DefaultResidualRidge}
+		tr, err := New(p, cfg)
+		if err != nil {
+			t.Fatal(err)
+		}
+		trs[k] = tr
+	}
+	rp := &relationPlant{rng: rand.New(rand.NewPCG(29, 1))}
+	x := make([]float64, p)
+	miss := make([]bool, p)
+	mask := make([]bool, p)
+	mask[2], mask[5] = true, true
+	var sc [2]Score
+	incomplete := 0
+	for f := 0; f < 400; f++ {
+		rp.frame(x)
+		miss[7] = f%3 == 0
+		var m []bool
+		if f >= 100 {
+			m = mask
+		}
+		for k, tr := range trs {
+			if err := tr.StepMasked(&sc[k], x, miss, m); err != nil {
+				t.Fatal(err)
+			}
+		}
+		a, b := &sc[0], &sc[1]
+		if !a.Ready {
+			continue
+		}
+		if miss[7] || m != nil {
+			incomplete++
+		}
+		same := a.T2 == b.T2 && a.SPE == b.SPE && a.Phi == b.Phi && a.T2Limit == b.T2Limit &&
+			a.SPELimit == b.SPELimit && a.PhiLimit == b.PhiLimit && len(a.Contrib) == len(b.Contrib)
+		for i := 0; same && i < len(a.Contrib); i++ {
+			ca, cb := a.Contrib[i], b.Contrib[i]
+			same = ca.Channel == cb.Channel && ca.RBC == cb.RBC && ca.Expected == cb.Expected && ca.Band == cb.Band
+		}
+		if !same {
+			t.Fatalf("frame %d: shared factor T² %v SPE %v φ %v %+v, own factor T² %v SPE %v φ %v %+v",
+				f, a.T2, a.SPE, a.Phi, a.Contrib, b.T2, b.SPE, b.Phi, b.Contrib)
+		}
+	}
+	if incomplete < 300 {
+		t.Fatalf("%d incomplete frames scored", incomplete)
+	}
+	if m := trs[0].mdl; len(m.chol) == 0 || &m.chol[0] != &trs[0].rs.factorU()[0] || m.own != nil {
+		t.Fatal("the missing-data model does not use the residual statistic's factor")
+	}
+	if m := trs[1].mdl; m.own == nil || &m.chol[0] != &m.own[0] {
+		t.Fatal("the tracker without the residual statistic does not factor A + εI itself")
+	}
+}

@@ -165,8 +165,8 @@ func (rs *resStat) refresh(m *model, alpha float64) {
 }
 
 // factorLower sets l to the lower Cholesky factor L of A + εI = LLᵀ
-// (row-major p × p, A in the upper triangle of a; the strict upper
-// triangle of l is left holding U = Lᵀ and is never read): cholUpper
+// (row-major p × p, A in the upper triangle of a; the upper triangle of l
+// keeps U = Lᵀ, for the missing-data model, factorU): cholUpper
 // gives U in place, then its transpose into the lower triangle, eight
 // rows of L at a time (one cache line of each row of U read, eight rows of
 // L written in order). panel holds cholBlock·p values. It reports false
@@ -201,6 +201,11 @@ func factorLower(l, panel []float64, a blas64.Symmetric, p int, ridge float64) b
 	}
 	return true
 }
+
+// factorU returns the current factor's buffer, whose upper triangle holds
+// U = Lᵀ (row-major p × p), for the missing-data model when its ridge is
+// ε_R (model.shareFactor). Valid until the next refresh but one.
+func (rs *resStat) factorU() []float64 { return rs.gens[rs.cur].l }
 
 // diagOf forms Ωᵢᵢ = ‖L⁻¹eᵢ‖² (the squared norm of column i of L⁻¹) and
 // Mᵢᵢ = Ωᵢᵢ − Dᵢᵢ (0 for channels out of the model) of the factor g, by

@@ -181,10 +181,13 @@ func (m *model) scratchSlot() *pattern {
 // factorization allocates nothing.
 func (m *model) factorRidge(ridge float64) error {
 	p := m.p
-	if m.chol == nil {
-		m.chol = make([]float64, p*p)
+	if m.own == nil {
+		m.own = make([]float64, p*p)
+	}
+	if m.panel == nil {
 		m.panel = make([]float64, p*cholBlock)
 	}
+	m.chol = m.own
 	a := m.a.RawSymmetric()
 	u := m.chol
 	for i := 0; i < p; i++ {
@@ -196,6 +199,20 @@ func (m *model) factorRidge(ridge float64) error {
 	}
 	m.cholOK = true
 	return nil
+}
+
+// shareFactor takes u (row-major p × p, its upper triangle the factor U of
+// A + εI of the current A, with the ridge ε of factorRidge) as the
+// missing-data model's factor until the next refresh, so that a frame with
+// missing channels needs no factorization of its own: the residual
+// statistic's factor when its ridge is the same (Tracker.install). u is
+// only read; factorRidge never writes into it.
+func (m *model) shareFactor(u []float64) {
+	if m.panel == nil {
+		m.panel = make([]float64, m.p*cholBlock)
+	}
+	m.chol = u
+	m.cholOK = true
 }
 
 // cholBlock is the panel width of cholUpper (a multiple of 4); wide panels

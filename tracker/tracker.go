@@ -856,6 +856,9 @@ func (t *Tracker) install(nEff float64) {
 	m.computePattern(m.base, &t.ls)
 	if t.rs != nil {
 		t.rs.refresh(m, t.cfg.Alpha)
+		if t.rs.ok && t.rs.ridge == t.cfg.Ridge {
+			m.shareFactor(t.rs.factorU()) // one factorization for both
+		}
 	}
 	if t.rl != nil {
 		t.rl.refresh(m)
