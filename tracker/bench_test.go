@@ -60,9 +60,13 @@ func newBenchTracker(b *testing.B, sc *Score, p, refreshEvery, batch, warm int) 
 func newBenchTrackerResidual(b *testing.B, sc *Score, p, refreshEvery, batch, warm int, residual bool) (*Tracker, [][]float64) {
 	b.Helper()
 	frames := benchFrames(p, 256)
+	ridge := 0.0 // the default
+	if shareRidge {
+		ridge = DefaultResidualRidge
+	}
 	tr, err := New(p, Config{Period: time.Second, HalfLife: time.Hour, WarmUp: 256, RefreshEvery: refreshEvery, Batch: batch,
-		Residual: residual,
-		Modes:    modes.Config{Count: 5, Sparsity: []modes.Sparsity{{Method: modes.L0, K: 10}}}})
+		Residual: residual, Ridge: ridge,
+		Modes: modes.Config{Count: 5, Sparsity: []modes.Sparsity{{Method: modes.L0, K: 10}}}})
 	if err != nil {
 		b.Fatal(err)
 	}
@@ -264,6 +268,19 @@ func BenchmarkFrameResidualOverDecode(b *testing.B) { benchOverDecodeResidual(b,
 // BenchmarkFrameResidualMaskedOverDecode is BenchmarkFrameMaskedOverDecode
 // with the residual Mahalanobis statistic on.
 func BenchmarkFrameResidualMaskedOverDecode(b *testing.B) { benchOverDecodeResidual(b, -1, 3, true) }
+
+// BenchmarkFrameResidualMaskedSharedOverDecode is
+// BenchmarkFrameResidualMaskedOverDecode with Ridge = ResidualRidge, so that
+// the missing-data model reads the residual statistic's factor
+// (model.shareFactor) instead of factoring A + εI again at each refresh.
+func BenchmarkFrameResidualMaskedSharedOverDecode(b *testing.B) {
+	shareRidge = true
+	defer func() { shareRidge = false }()
+	benchOverDecodeResidual(b, -1, 3, true)
+}
+
+// shareRidge sets Ridge = ResidualRidge in newBenchTrackerResidual.
+var shareRidge bool
 
 // benchOverDecode runs the interleaved benchmark with channel missing
 // missing (-1: none) and masked channels learned as their reconstruction
