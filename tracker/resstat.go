@@ -57,7 +57,7 @@ const (
 //
 // Cost: per refresh the Cholesky factor A + ε_R I = LLᵀ (O(p³/6)); per
 // frame zᵀΩz = ‖L⁻¹z‖², one triangular solve, p²/2 multiply-adds
-// (lowerSolve). Ωz = L⁻ᵀ(L⁻¹z) and the diagonal of Ω (O(p³/6), once per
+// (forward). Ωz = L⁻ᵀ(L⁻¹z) and the diagonal of Ω (O(p³/6), once per
 // refresh) are formed only when they are read: every frame with the
 // variance statistic, and for the RBC of R when they are asked for
 // (ResidualContributionsTo, Config.RankResidual with R further over its
@@ -320,7 +320,8 @@ func axpyRow(y []float64, a float64, x []float64) {
 // Matrix Computations, §3.1), all rows together by panels of the factor
 // (forwardUnit, the factorization's AVX2/FMA kernel where the CPU has it):
 // O(p³/3) multiply-adds in all. panel holds cholBlock·p values. It reports
-// false when A + εI is not positive definite.
+// false when A + εI is not positive definite. Used by the relation modes
+// (the residual statistic needs only the factor: factorLower).
 func factorInverse(u, inv, panel []float64, a blas64.Symmetric, p int, ridge float64) bool {
 	for i := 0; i < p; i++ {
 		copy(u[i*p+i:i*p+p], a.Data[i*a.Stride+i:i*a.Stride+p])
