@@ -74,14 +74,7 @@ func TestResidualSolvesAgainstGonum(t *testing.T) {
 func TestResidualContributionsOnDemand(t *testing.T) {
 	const p = 12
 	var trs [3]*Tracker
-	for k := range trs {
-		cfg := Config{Period: time.Second, HalfLife: time.Hour, WarmUp: 50, RefreshEvery: 10, Residual: true, Variance: k == 1}
-		tr, err := New(p, cfg)
-		if err != nil {
-			t.Fatal(err)
-		}
-		trs[k] = tr
-	}
+	newTrackers(t, trs[:], p, func(k int, c *Config) { c.Residual, c.Variance = true, k == 1 })
 	rp := &relationPlant{rng: rand.New(rand.NewPCG(23, 1))}
 	x := make([]float64, p)
 	var sc [3]Score
@@ -173,15 +166,9 @@ func TestResidualContributionsOnDemand(t *testing.T) {
 func TestSharedFactorSameScores(t *testing.T) {
 	const p = 12
 	var trs [2]*Tracker
-	for k := range trs {
-		cfg := Config{Period: time.Second, HalfLife: time.Hour, WarmUp: 50, RefreshEvery: 10,
-			Residual: k == 0, Ridge: DefaultResidualRidge, ResidualRidge: DefaultResidualRidge}
-		tr, err := New(p, cfg)
-		if err != nil {
-			t.Fatal(err)
-		}
-		trs[k] = tr
-	}
+	newTrackers(t, trs[:], p, func(k int, c *Config) {
+		c.Residual, c.Ridge, c.ResidualRidge = k == 0, DefaultResidualRidge, DefaultResidualRidge
+	})
 	rp := &relationPlant{rng: rand.New(rand.NewPCG(29, 1))}
 	x := make([]float64, p)
 	miss := make([]bool, p)
@@ -227,5 +214,21 @@ func TestSharedFactorSameScores(t *testing.T) {
 	}
 	if m := trs[1].mdl; m.own == nil || &m.chol[0] != &m.own[0] {
 		t.Fatal("the tracker without the residual statistic does not factor A + εI itself")
+	}
+}
+
+// newTrackers fills trs with trackers of p channels (one-second frames,
+// one-hour half-life, warm-up 50, a refresh every 10 frames), tracker k's
+// configuration then adjusted by set.
+func newTrackers(t *testing.T, trs []*Tracker, p int, set func(k int, c *Config)) {
+	t.Helper()
+	for k := range trs {
+		cfg := Config{Period: time.Second, HalfLife: time.Hour, WarmUp: 50, RefreshEvery: 10}
+		set(k, &cfg)
+		tr, err := New(p, cfg)
+		if err != nil {
+			t.Fatal(err)
+		}
+		trs[k] = tr
 	}
 }
