@@ -9,8 +9,9 @@ import _ "embed"
 var DemoYAML []byte
 
 // Demo returns the parsed demo scenario: an invented utility block of four
-// units and 50 channels over three days at 20 s, fault-free for the first
-// 24 h, then seven labelled faults.
+// units and 50 channels over six days at 20 s, fault-free for the four
+// normal days before its split, then seven labelled faults in the two
+// test days.
 func Demo() (*Scenario, error) {
 	return LoadBytes("scenario-demo.yaml", DemoYAML)
 }

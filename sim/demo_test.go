@@ -22,9 +22,11 @@ func TestDemoCopyIdentical(t *testing.T) {
 }
 
 // TestDemoShape checks the demo against what it promises: 40–60 channels in
-// 3–4 units, 5–7 labelled faults of different kinds, 2–4 days at 10–30 s,
-// the first 24 h fault-free, each fault on few channels, and no two faults of
-// one unit overlapping (so a label names one cause).
+// 3–4 units, 5–7 labelled faults of different kinds, at 10–30 s, 3–7
+// fault-free normal days before the split (several, as a plant engineer
+// would fit on) and two test days after it (the live demo's length), every
+// fault within the test days and on few channels, and no two faults of one
+// unit overlapping (so a label names one cause).
 func TestDemoShape(t *testing.T) {
 	s, err := Demo()
 	if err != nil {
@@ -36,8 +38,9 @@ func TestDemoShape(t *testing.T) {
 	if n := len(s.Units); n < 3 || n > 4 {
 		t.Errorf("%d units", n)
 	}
-	if s.Duration < 48*time.Hour || s.Duration > 96*time.Hour || s.Period < 10*time.Second || s.Period > 30*time.Second {
-		t.Errorf("duration %v, period %v", s.Duration, s.Period)
+	normal := s.Split.Sub(s.Start)
+	if normal < 3*24*time.Hour || normal > 7*24*time.Hour || s.End().Sub(s.Split) != 48*time.Hour || s.Period < 10*time.Second || s.Period > 30*time.Second {
+		t.Errorf("split after %v of %v, period %v", normal, s.Duration, s.Period)
 	}
 	if n := len(s.Episodes); n < 5 || n > 7 {
 		t.Errorf("%d episodes", n)
@@ -45,8 +48,8 @@ func TestDemoShape(t *testing.T) {
 	kinds := map[FaultKind]bool{}
 	for i, e := range s.Episodes {
 		kinds[e.Kind] = true
-		if e.Start.Before(s.Start.Add(24*time.Hour)) || e.End.After(s.End()) {
-			t.Errorf("%s: %v..%v outside [start+24h, end]", e.ID, e.Start, e.End)
+		if e.Start.Before(s.Split) || e.End.After(s.End()) {
+			t.Errorf("%s: %v..%v outside the test days [split, end]", e.ID, e.Start, e.End)
 		}
 		if len(e.Channels) > 3 {
 			t.Errorf("%s: %d channels", e.ID, len(e.Channels))
@@ -68,7 +71,8 @@ func unitOf(ch string) string { return ch[:strings.IndexByte(ch, '.')] }
 // faults. Detectable: each fault moves its channels by at least 3 noise σ
 // at some sample. Not trivial: for the slow kinds, at least 80 % of the
 // faulty values stay inside the range the channel spans in the fault-free
-// first day, so a plain high/low limit would not catch them.
+// normal days before the split, so a plain high/low limit would not catch
+// them.
 func TestDemoFaultsDetectableNotTrivial(t *testing.T) {
 	s, err := Demo()
 	if err != nil {
@@ -81,14 +85,14 @@ func TestDemoFaultsDetectableNotTrivial(t *testing.T) {
 		}
 	}
 	s.Duration = last.Sub(s.Start)
-	for _, f := range faultEffects(t, s, s.Start.Add(24*time.Hour)) {
+	for _, f := range faultEffects(t, s, s.Split) {
 		if f.maxDev < 3*f.noise {
 			t.Errorf("%s on %s: largest change %.3g < 3σ = %.3g", f.id, f.channel, f.maxDev, 3*f.noise)
 		}
 		switch f.kind {
 		case Bias, Drift, Stuck, Relation, Effect:
 			if f.inside < 0.8 {
-				t.Errorf("%s on %s: only %.0f%% of faulty values inside the first day's range", f.id, f.channel, 100*f.inside)
+				t.Errorf("%s on %s: only %.0f%% of faulty values inside the normal days' range", f.id, f.channel, 100*f.inside)
 			}
 		}
 		t.Logf("%s %s: max change %.3g (%.1fσ), %.0f%% inside normal range", f.id, f.channel, f.maxDev, f.maxDev/f.noise, 100*f.inside)

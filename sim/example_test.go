@@ -111,16 +111,18 @@ func ExampleDemo() {
 		return
 	}
 	fmt.Println(len(s.Units), "units,", len(s.Channels()), "channels,", s.Samples(), "samples,", len(s.Episodes), "faults")
+	fmt.Println("normal before", s.Split.Sub(s.Start), "then", s.End().Sub(s.Split), "of test days")
 	for _, e := range s.Episodes {
-		fmt.Println(e.ID, e.Kind, e.Start.Sub(s.Start), e.End.Sub(s.Start), e.Channels)
+		fmt.Println(e.ID, e.Kind, e.Start.Sub(s.Split), e.End.Sub(s.Split), e.Channels)
 	}
 	// Output:
-	// 4 units, 50 channels, 12960 samples, 7 faults
-	// F1-header-bias bias 28h0m0s 34h0m0s [air.header.pressure]
-	// F2-supply-drift drift 36h0m0s 44h0m0s [coolwater.tower.supply_temp]
-	// F3-return-stuck stuck 40h0m0s 46h0m0s [chill.chiller02.chw_return_temp]
-	// F4-vibration-noise noise 47h0m0s 50h0m0s [air.comp1.vibration]
-	// F5-pump-relation relation 52h0m0s 58h0m0s [coolwater.pump02.flow coolwater.pump02.motor_power coolwater.pump02.discharge_pressure]
-	// F6-hx-fouling effect 59h0m0s 70h0m0s [coolwater.hx1.process_out_temp]
-	// F7-o2-spikes spikes 62h0m0s 64h0m0s [steam.boiler1.o2]
+	// 4 units, 50 channels, 25920 samples, 7 faults
+	// normal before 96h0m0s then 48h0m0s of test days
+	// F1-header-bias bias 4h0m0s 10h0m0s [air.header.pressure]
+	// F2-supply-drift drift 12h0m0s 20h0m0s [coolwater.tower.supply_temp]
+	// F3-return-stuck stuck 16h0m0s 22h0m0s [chill.chiller02.chw_return_temp]
+	// F4-vibration-noise noise 23h0m0s 26h0m0s [air.comp1.vibration]
+	// F5-pump-relation relation 28h0m0s 34h0m0s [coolwater.pump02.flow coolwater.pump02.motor_power coolwater.pump02.discharge_pressure]
+	// F6-hx-fouling effect 35h0m0s 46h0m0s [coolwater.hx1.process_out_temp]
+	// F7-o2-spikes spikes 38h0m0s 40h0m0s [steam.boiler1.o2]
 }

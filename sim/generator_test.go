@@ -24,8 +24,7 @@ func shortDemo(t testing.TB, d time.Duration) *Scenario {
 	if err != nil {
 		t.Fatal(err)
 	}
-	s.Duration = d
-	return s
+	return s.Head(d)
 }
 
 func lpBytes(t testing.TB, s *Scenario) []byte {

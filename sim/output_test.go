@@ -21,7 +21,7 @@ func TestTruthRoundTrip(t *testing.T) {
 	if err := s.WriteTruth(&b); err != nil {
 		t.Fatal(err)
 	}
-	if !strings.Contains(b.String(), `"start": "2026-03-03T04:00:00Z"`) {
+	if !strings.Contains(b.String(), `"start": "2026-03-06T04:00:00Z"`) {
 		t.Errorf("F1 start not in RFC 3339 UTC:\n%s", b.String())
 	}
 	got, err := ReadTruth(&b)

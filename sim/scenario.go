@@ -307,6 +307,47 @@ func (s *Scenario) Rebase(start time.Time) *Scenario {
 	return &c
 }
 
+// Head returns a copy of s cut to its first d: the split is dropped when
+// it does not lie before the new end (all of it is then normal days), and
+// only the episodes that start within d are kept.
+func (s *Scenario) Head(d time.Duration) *Scenario {
+	c := s.Clone()
+	c.Duration = d
+	if !c.Split.Before(c.End()) {
+		c.Split = time.Time{}
+	}
+	c.Episodes = c.Episodes[:0]
+	for _, e := range s.Episodes {
+		if e.Start.Before(c.End()) {
+			c.Episodes = append(c.Episodes, e)
+		}
+	}
+	return c
+}
+
+// Normal returns the normal part of a split scenario, the samples before
+// its split, as a scenario of its own without a split (s itself when it
+// has no split).
+func (s *Scenario) Normal() *Scenario {
+	if s.Split.IsZero() {
+		return s
+	}
+	return s.Head(s.Split.Sub(s.Start))
+}
+
+// Tested returns the test part of a split scenario, from its split to its
+// end, as a scenario of its own without a split that starts at the split
+// (s itself when it has no split). Its random draws start again from the
+// seed, so its samples differ in detail from the same instants of s.
+func (s *Scenario) Tested() *Scenario {
+	if s.Split.IsZero() {
+		return s
+	}
+	c := s.Clone()
+	c.Start, c.Duration, c.Split = s.Split, s.End().Sub(s.Split), time.Time{}
+	return c
+}
+
 // Clone returns a deep copy of s, for tests that alter a scenario.
 func (s *Scenario) Clone() *Scenario {
 	c := *s

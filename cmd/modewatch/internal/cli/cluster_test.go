@@ -139,10 +139,9 @@ func TestClusterFailover(t *testing.T) {
 		units = append(units, u.Name)
 	}
 	modelPath := fitDemoDay1(t, dir)
-	part1 := sc.Clone()
-	part1.Start = sc.Start.Add(24 * time.Hour)
+	part1 := sc.Tested() // the test days after the split: F1 from 4 h on
 	part1.Duration = 12 * time.Hour
-	part2 := sc.Clone()
+	part2 := sc.Tested()
 	part2.Start = part1.End()
 	part2.Duration = 3 * time.Hour
 	// publish sends a part of the scenario, one message per unit and

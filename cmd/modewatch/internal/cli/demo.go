@@ -159,7 +159,7 @@ func runDemoWith(ctx context.Context, env IO, opt demoOptions) (demoOutcome, err
 	fmt.Fprintf(w, "settings: the defaults (%s only sets the period, the embedded server and the queue): %s.\n", demoConfigName, demoSettings(cfg))
 	fmt.Fprintln(w)
 
-	// 1. Learn normal operation from the first, fault-free day.
+	// 1. Learn normal operation from the fault-free days before the split.
 	log := newLogger(env.Err, cfg, true)
 	modelPath, err := demoFit(ctx, env, cfg, sc, stateDir, log)
 	if err != nil {
@@ -185,10 +185,8 @@ func runDemoWith(ctx context.Context, env IO, opt demoOptions) (demoOutcome, err
 	fmt.Fprintf(w, "   subjects:  readings modewatch.readings.<unit>, alerts %s, scores %s\n", info.Alerts, info.Scores)
 	fmt.Fprintf(w, "   state:     %s\n", stateDir)
 
-	// 3. The next two days, live.
-	live := sc.Clone()
-	live.Start = sc.Start.Add(24 * time.Hour)
-	live.Duration = sc.Duration - 24*time.Hour
+	// 3. The test days after the split, live.
+	live := sc.Tested()
 	nc, err := nats.Connect(info.NATS, nats.Name("modewatch-demo-plant"))
 	if err != nil {
 		return oc, err
@@ -224,42 +222,42 @@ func runDemoWith(ctx context.Context, env IO, opt demoOptions) (demoOutcome, err
 	// 4. Report against the labels.
 	demoReport(w, svc, sc, live, opt.speed, &oc)
 	fmt.Fprintf(w, "\nThe detection settings are the defaults, chosen on the realism suite (modewatch sim --suite), not on\n")
-	fmt.Fprintln(w, "this plant's labelled faults. The plant offline with the same settings (sim writes the three days as one run, so")
-	fmt.Fprintln(w, "days 2 and 3 differ in detail from the ones published here, and so do the figures):")
-	fmt.Fprintln(w, "  modewatch sim --out demo; modewatch sim --duration 24h --out demo-day1;")
-	fmt.Fprintf(w, "  modewatch fit --config %s --out demo/model.json demo-day1/readings.lp;\n", demoConfigName)
-	fmt.Fprintf(w, "  modewatch replay --config %s --model demo/model.json --truth demo/truth.json demo/readings.lp\n", demoConfigName)
+	fmt.Fprintln(w, "this plant's labelled faults. The plant offline with the same settings (sim writes all its days as one run, so")
+	fmt.Fprintln(w, "the test days differ in detail from the ones published here, and so do the figures):")
+	fmt.Fprintln(w, "  modewatch sim --out demo;")
+	fmt.Fprintf(w, "  modewatch fit --config %s --out demo/model.json demo/normal.lp;\n", demoConfigName)
+	fmt.Fprintf(w, "  modewatch replay --config %s --model demo/model.json --truth demo/truth.json demo/test.lp\n", demoConfigName)
 	fmt.Fprintln(w, service.Caution)
 	return oc, nil
 }
 
-// demoFit fits the demo's model on the first, fault-free day of sc and
-// writes it in stateDir; it returns the model file's path.
+// demoFit fits the demo's model on the fault-free normal days of sc (the
+// samples before its split) and writes it in stateDir; it returns the
+// model file's path.
 func demoFit(ctx context.Context, env IO, cfg *configs.Config, sc *sim.Scenario, stateDir string, log *slog.Logger) (string, error) {
 	w := env.Out
-	day1 := sc.Clone()
-	day1.Duration = 24 * time.Hour
+	normal := sc.Normal()
 	var buf bytes.Buffer
-	if err := day1.WriteLineProtocol(&buf); err != nil {
+	if err := normal.WriteLineProtocol(&buf); err != nil {
 		return "", err
 	}
 	// The log goes to a file: the budget calibration reads it twice.
-	day1Path := filepath.Join(stateDir, "demo-day1.lp")
-	if err := os.WriteFile(day1Path, buf.Bytes(), 0o644); err != nil {
+	normalPath := filepath.Join(stateDir, "demo-normal.lp")
+	if err := os.WriteFile(normalPath, buf.Bytes(), 0o644); err != nil {
 		return "", err
 	}
 	fitStart := time.Now()
-	res, err := pipeline.Replay(ctx, pipeline.ReplayOptions{Config: cfg, Inputs: []string{day1Path}, Fit: true, Log: log})
+	res, err := pipeline.Replay(ctx, pipeline.ReplayOptions{Config: cfg, Inputs: []string{normalPath}, Fit: true, Log: log})
 	if err != nil {
-		return "", fmt.Errorf("fitting the first day: %w", err)
+		return "", fmt.Errorf("fitting the normal days: %w", err)
 	}
 	model, err := res.Pipeline.Baseline()
 	if err != nil {
-		return "", fmt.Errorf("fitting the first day: %w", err)
+		return "", fmt.Errorf("fitting the normal days: %w", err)
 	}
 	// As fit does: each unit's limits calibrated to alerts.budget on the
-	// held-out part of the day.
-	calNotes := calibrateBudgets(ctx, IO{In: env.In, Out: io.Discard, Err: env.Err}, cfg, []string{day1Path}, modelFlags{}, model)
+	// held-out part of the normal days.
+	calNotes := calibrateBudgets(ctx, IO{In: env.In, Out: io.Discard, Err: env.Err}, cfg, []string{normalPath}, modelFlags{}, model)
 	modelPath := filepath.Join(stateDir, "demo-model.json")
 	if err := pipeline.WriteModel(modelPath, model); err != nil {
 		return "", err
@@ -271,12 +269,25 @@ func demoFit(ctx context.Context, env IO, cfg *configs.Config, sc *sim.Scenario,
 			nCal++
 		}
 	}
-	fmt.Fprintf(w, "1. fitted %d units (%d sparse modes) on the first simulated day (%d frames of %s), %d calibrated to alerts.budget, in %s\n",
-		len(model.Units), nModes, model.Frames, sc.Period, nCal, time.Since(fitStart).Round(time.Millisecond))
+	fmt.Fprintf(w, "1. fitted %d units (%d sparse modes) on %s of normal operation (%d frames of %s), %d calibrated to alerts.budget, in %s\n",
+		len(model.Units), nModes, demoDays(normal.Duration), model.Frames, sc.Period, nCal, time.Since(fitStart).Round(time.Millisecond))
 	for _, n := range calNotes {
 		fmt.Fprintf(w, "   %s\n", n)
 	}
 	return modelPath, nil
+}
+
+// demoDays names a span of whole days in words ("3 days"), any other span
+// as a duration.
+func demoDays(d time.Duration) string {
+	const day = 24 * time.Hour
+	switch {
+	case d == day:
+		return "1 day"
+	case d > 0 && d%day == 0:
+		return fmt.Sprintf("%d days", d/day)
+	}
+	return d.String()
 }
 
 // demoPublish publishes live to the service at opt.speed until it ends,

@@ -150,8 +150,8 @@ func TestKillRestart(t *testing.T) {
 		t.Fatal(err)
 	}
 
-	// A baseline from the first simulated day, then 12 hours of the second
-	// (with the first labelled fault) stored in the stream in two halves,
+	// A baseline from the first simulated day, then the first 12 hours of
+	// the test days after the split (with the first labelled fault) stored in the stream in two halves,
 	// with the scenario's timestamp jitter and one dropout in ten lines: a
 	// frame right after a restart then carries, for some channel, a reading
 	// whose message was acknowledged with the checkpoint and is not
@@ -161,8 +161,7 @@ func TestKillRestart(t *testing.T) {
 	sc, _ := sim.Demo()
 	sc.Dropout = 0.1
 	modelPath := fitDemoDay1(t, dir)
-	first := sc.Clone()
-	first.Start = sc.Start.Add(24 * time.Hour)
+	first := sc.Tested()
 	first.Duration = 6 * time.Hour
 	second := first.Clone()
 	second.Start = first.Start.Add(first.Duration)

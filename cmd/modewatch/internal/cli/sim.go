@@ -84,18 +84,7 @@ The data is invented, for demonstrations and tests only.`)
 		return usagef("--duration %v: want 0 < D ≤ the scenario's %v", duration, s.Duration)
 	}
 	if duration > 0 {
-		s = s.Clone()
-		s.Duration = duration
-		if !s.Split.Before(s.End()) {
-			s.Split = time.Time{} // all of it is normal days: one file
-		}
-		var kept []sim.Episode
-		for _, e := range s.Episodes {
-			if e.Start.Before(s.End()) {
-				kept = append(kept, e)
-			}
-		}
-		s.Episodes = kept
+		s = s.Head(duration) // all normal days when it ends before the split: one file
 	}
 	files, err := s.WriteFiles(out, gz)
 	if err != nil {

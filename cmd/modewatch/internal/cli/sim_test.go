@@ -6,8 +6,10 @@ import (
 	"path/filepath"
 	"strings"
 	"testing"
+	"time"
 
 	"modewatch/cmd/modewatch/internal/evaluate"
+	"modewatch/sim"
 )
 
 // TestSimCommand: sim writes readings and a truth file, the same bytes for
@@ -33,7 +35,29 @@ func TestSimCommand(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	// Only the demo's first fault (day 2, 04:00) starts within 30 h.
+	// 30 h lie within the demo's normal days: one file, no fault.
+	if len(tr.Episodes) != 0 {
+		t.Errorf("episodes %+v, want none", tr.Episodes)
+	}
+	// Cut 6 h after the split: normal.lp and test.lp, and only the demo's
+	// first fault (4 h into the test days) starts within them.
+	sc, err := sim.Demo()
+	if err != nil {
+		t.Fatal(err)
+	}
+	cut := sc.Split.Sub(sc.Start) + 6*time.Hour
+	if code, _, errs := runCLI(t, "", "sim", "--duration", cut.String(), "--out", b); code != ExitOK {
+		t.Fatalf("exit %d: %s", code, errs)
+	}
+	nb, _ := os.ReadFile(filepath.Join(b, "normal.lp"))
+	tb, _ := os.ReadFile(filepath.Join(b, "test.lp"))
+	normal := int(sc.Split.Sub(sc.Start) / sc.Period)
+	if n, m := strings.Count(string(nb), "\n"), strings.Count(string(tb), "\n"); n != normal*13 || m != 1080*13 {
+		t.Errorf("%d and %d lines, want %d·13 and 1080·13", n, m, normal)
+	}
+	if tr, err = evaluate.ReadTruth(filepath.Join(b, "truth.json")); err != nil {
+		t.Fatal(err)
+	}
 	if len(tr.Episodes) != 1 || tr.Episodes[0].ID != "F1-header-bias" {
 		t.Errorf("episodes %+v", tr.Episodes)
 	}

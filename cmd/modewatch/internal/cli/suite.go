@@ -18,10 +18,6 @@ import (
 	"modewatch/sim"
 )
 
-// suiteDemoSplit is where the demo plant's normal part ends in the suite:
-// its fault-free first day, the day the demo fits on.
-const suiteDemoSplit = 24 * time.Hour
-
 // suiteOptions are the flags of "sim --suite".
 type suiteOptions struct {
 	config string   // --config FILE applied to fit and replay ("" : defaults)
@@ -74,9 +70,9 @@ type suitePlant struct {
 	s    *sim.Scenario
 }
 
-// suitePlants returns the realism plants and the demo plant (split after
-// its fault-free first day), keeping only the named ones when names is
-// not empty.
+// suitePlants returns the realism plants and the demo plant (split, as
+// the demo fits, after its fault-free normal days), keeping only the named
+// ones when names is not empty.
 func suitePlants(names []string) ([]suitePlant, error) {
 	var out []suitePlant
 	for _, p := range realism.Plants() {
@@ -90,8 +86,6 @@ func suitePlants(names []string) ([]suitePlant, error) {
 	if err != nil {
 		return nil, err
 	}
-	demo = demo.Clone()
-	demo.Split = demo.Start.Add(suiteDemoSplit)
 	out = append(out, suitePlant{"demo", demo})
 	if len(names) == 0 {
 		return out, nil

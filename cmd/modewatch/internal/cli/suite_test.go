@@ -64,8 +64,8 @@ func TestSimSuite(t *testing.T) {
 			if r.LongestOpenS != longest || r.OpenShare == nil {
 				t.Errorf("longest %g s (units %g s), open share %v", r.LongestOpenS, longest, r.OpenShare)
 			}
-			// One day each side, the demo has its one normal day.
-			if r.TestDays != 1 || (r.NormalDays != 1 && r.Plant != "demo") {
+			// One day each side.
+			if r.TestDays != 1 || r.NormalDays != 1 {
 				t.Errorf("days %g+%g, want 1+1", r.NormalDays, r.TestDays)
 			}
 			for _, f := range []string{"normal.lp", "test.lp", "model.json"} {

@@ -141,8 +141,8 @@ func TestServiceEndToEnd(t *testing.T) {
 	nc.Flush()
 
 	sc, _ := sim.Demo()
-	// Three simulated days in about eight seconds.
-	if _, err := sc.Live(ctx, nc, "modewatch", 3*24*3600/8.0); err != nil {
+	// All the simulated days (normal and test) in about eight seconds.
+	if _, err := sc.Live(ctx, nc, "modewatch", sc.Duration.Seconds()/8); err != nil {
 		t.Fatal(err)
 	}
 	// The last frames stay pending until later readings pass their end

@@ -16,16 +16,15 @@ import (
 )
 
 // DemoScenario returns a copy of the shipped demo scenario cut to its
-// first d of readings. A scenario that does not load ends the test.
+// first d of readings (sim.Scenario.Head: without its split when d ends
+// within the normal days). A scenario that does not load ends the test.
 func DemoScenario(tb testing.TB, d time.Duration) *sim.Scenario {
 	tb.Helper()
 	s, err := sim.Demo()
 	if err != nil {
 		tb.Fatal(err)
 	}
-	s = s.Clone()
-	s.Duration = d
-	return s
+	return s.Head(d)
 }
 
 // LineProtocol returns the readings of s as line protocol.
