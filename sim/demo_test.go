@@ -198,3 +198,50 @@ func TestLargeScenario(t *testing.T) {
 		t.Fatal(err)
 	}
 }
+
+// TestDemoParts: the demo's normal part (what the demo fits) is exactly
+// the normal.lp of one run written with its split, without a split or a
+// fault; its test part starts at the split, holds the two test days and
+// every fault; Head cuts before the split into normal days only and after
+// it keeps the split and the faults that started.
+func TestDemoParts(t *testing.T) {
+	s, err := Demo()
+	if err != nil {
+		t.Fatal(err)
+	}
+	n := s.Normal()
+	if !n.Split.IsZero() || n.End() != s.Split || len(n.Episodes) != 0 {
+		t.Errorf("normal part: split %v, end %v, %d episodes", n.Split, n.End(), len(n.Episodes))
+	}
+	dir := t.TempDir()
+	files, err := s.WriteSplit(dir, false, s.Start, s.Split.Add(time.Hour))
+	if err != nil {
+		t.Fatal(err)
+	}
+	written, err := os.ReadFile(files.Normal)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if got := lpBytes(t, n); !bytes.Equal(got, written) {
+		t.Errorf("the normal part's readings (%d bytes) differ from normal.lp (%d bytes)", len(got), len(written))
+	}
+	ts := s.Tested()
+	if !ts.Split.IsZero() || ts.Start != s.Split || ts.End() != s.End() || len(ts.Episodes) != len(s.Episodes) {
+		t.Errorf("test part: split %v, %v to %v, %d episodes", ts.Split, ts.Start, ts.End(), len(ts.Episodes))
+	}
+	if _, err := ts.NewGenerator(); err != nil {
+		t.Errorf("test part: %v", err)
+	}
+	if h := s.Head(30 * time.Hour); !h.Split.IsZero() || len(h.Episodes) != 0 || h.Duration != 30*time.Hour {
+		t.Errorf("head of 30 h: split %v, %d episodes", h.Split, len(h.Episodes))
+	}
+	if h := s.Head(s.Split.Sub(s.Start) + 6*time.Hour); h.Split != s.Split || len(h.Episodes) != 1 {
+		t.Errorf("head to 6 h past the split: split %v, %d episodes", h.Split, len(h.Episodes))
+	}
+	if len(s.Episodes) != 7 || s.Duration != 144*time.Hour {
+		t.Errorf("the parts changed the scenario: %d episodes, %v", len(s.Episodes), s.Duration)
+	}
+	if h := s.Head(time.Hour); h.Normal() != h || h.Tested() != h {
+		t.Error("a scenario without a split is its own normal and test part")
+	}
+}

@@ -34,17 +34,18 @@ func init() {
 
 const demoHelp = `
 Run the shipped demo: an invented utility block of four units and 50
-channels (configs/scenario-demo.yaml). The first simulated day (normal
-operation) is fitted offline; then the service starts with an embedded NATS
-server and its HTTP API, and the simulator publishes the next two days,
+channels (configs/scenario-demo.yaml). The simulated normal days before
+the scenario's split (four days of normal operation) are fitted offline, in
+a few seconds; then the service starts with an embedded NATS server and its
+HTTP API, and the simulator publishes the two test days after the split,
 with seven labelled faults, in live mode at a speed-up. A compact summary
 shows, per unit, T² and SPE against their limits and the open alerts with
 their top sensors. At the end the alerts are scored against the labels.
 
 The model and alarm settings are the defaults (the first lines of the
 output name them), with each unit's limits calibrated to alerts.budget on
-the first day as fit does; configs/demo.yaml (embedded in the binary) only
-sets the sample period, the embedded server and the intake queue.
+the normal days as fit does; configs/demo.yaml (embedded in the binary)
+only sets the sample period, the embedded server and the intake queue.
 
 Needs no configuration and no network. Data (model, checkpoints, spool)
 goes to a temporary directory unless --state-dir is given. The data is
@@ -86,7 +87,7 @@ func demoSettings(cfg *configs.Config) string {
 
 // demoOptions are the demo's flags.
 type demoOptions struct {
-	duration time.Duration // wall clock; 0: until the two days are sent
+	duration time.Duration // wall clock; 0: until the two test days are sent
 	listen   string
 	stateDir string // "" for a temporary directory
 	speed    float64
@@ -105,7 +106,7 @@ type demoOutcome struct {
 func runDemo(ctx context.Context, env IO, args []string) error {
 	fs := newFlags(env, "demo", "[--duration D] [--listen ADDR] [--speed X]", demoHelp)
 	var opt demoOptions
-	fs.DurationVar(&opt.duration, "duration", 0, "stop after this long (wall clock); default: when the two simulated days have been sent")
+	fs.DurationVar(&opt.duration, "duration", 0, "stop after this long (wall clock); default: when the two simulated test days have been sent")
 	fs.StringVar(&opt.listen, "listen", configs.DefaultListen, "`ADDR` of the HTTP API (another free port is used if it is taken)")
 	fs.Float64Var(&opt.speed, "speed", 1440, "simulated seconds per second (1440: a day per minute)")
 	fs.StringVar(&opt.stateDir, "state-dir", "", "keep the demo's data in `DIR` instead of a temporary directory")

@@ -43,24 +43,24 @@ func TestDemoRuns(t *testing.T) {
 	}
 }
 
-// TestDemoOutcome runs the whole demo (both simulated days) at a high
-// speed-up and checks its outcome against the labelled faults of the demo
-// plant, scored strictly (an alert counts only in the unit that holds the
-// faulty sensor).
+// TestDemoOutcome runs the whole demo (its four normal days fitted, both
+// test days live) at a high speed-up and checks its outcome against the
+// labelled faults of the demo plant, scored strictly (an alert counts only
+// in the unit that holds the faulty sensor).
 //
 // The demo runs with the default detection settings (chosen on the
 // realism suite, not on this plant) and each unit calibrated to the
-// default alerts.budget on the first day. Three live runs at 15000× each
-// measured 3 of 7 detected (F1 bias, F3 stuck, F4 noise), 3 isolated in
-// the top 3 and 2 false alerts over the two days (1.00 per simulated
-// day). The bounds are those figures, with one false alert more
-// (1.5 per simulated day): detection below 3 or more false alerts than
-// that is a change in the defaults' behaviour on this plant worth a look.
+// default alerts.budget on the normal days. Three live runs at 15000× each
+// measured 6 of 7 detected (all but the F1 header bias), 6 isolated in
+// the top 3 and no false alert over the two days. The bounds are those
+// figures, with one false alert more (0.5 per simulated day): detection
+// below 6 or more false alerts than that is a change in the defaults'
+// behaviour on this plant worth a look.
 // The data and the faults are invented (sim); this is a check of the
 // shipped demo, not a validation of the method.
 func TestDemoOutcome(t *testing.T) {
 	if testing.Short() {
-		t.Skip("runs the full demo (two simulated days) at a high speed-up")
+		t.Skip("runs the full demo (two simulated test days) at a high speed-up")
 	}
 	var out, errb bytes.Buffer
 	ctx, cancel := context.WithTimeout(context.Background(), 2*time.Minute)
@@ -82,14 +82,14 @@ func TestDemoOutcome(t *testing.T) {
 		t.Errorf("scored %d frames, want about 8640", oc.frames)
 	}
 	m := oc.metrics
-	if m.Episodes != 7 || m.Detected < 3 {
-		t.Errorf("detected %d of %d labelled faults, want at least 3 of 7", m.Detected, m.Episodes)
+	if m.Episodes != 7 || m.Detected < 6 {
+		t.Errorf("detected %d of %d labelled faults, want at least 6 of 7", m.Detected, m.Episodes)
 	}
-	if m.FalseAlertsPerDay == nil || *m.FalseAlertsPerDay > 1.5 || math.IsNaN(*m.FalseAlertsPerDay) {
-		t.Errorf("false alerts per day = %v (%d false alerts over %s), want at most 1.5", m.FalseAlertsPerDay, m.FalseAlerts, oc.span)
+	if m.FalseAlertsPerDay == nil || *m.FalseAlertsPerDay > 0.5 || math.IsNaN(*m.FalseAlertsPerDay) {
+		t.Errorf("false alerts per day = %v (%d false alerts over %s), want at most 0.5", m.FalseAlertsPerDay, m.FalseAlerts, oc.span)
 	}
-	if m.IsolatedTop3 < 3 {
-		t.Errorf("%d faults isolated in the top 3, want at least 3", m.IsolatedTop3)
+	if m.IsolatedTop3 < 6 {
+		t.Errorf("%d faults isolated in the top 3, want at least 6", m.IsolatedTop3)
 	}
 	text := out.String()
 	// The advisory caution opens and closes the output.

@@ -32,7 +32,7 @@ The data is invented, for demonstrations and tests only.`)
 	fs.StringVar(&scenario, "scenario", "", "scenario `FILE` (YAML); default: the built-in demo scenario")
 	fs.StringVar(&out, "out", "", "output `DIR` (created if needed; required)")
 	fs.BoolVar(&gz, "gz", false, "gzip the readings")
-	fs.DurationVar(&duration, "duration", 0, "write only this much from the scenario's start (e.g. 24h: the demo's fault-free first day)")
+	fs.DurationVar(&duration, "duration", 0, "write only this much from the scenario's start (e.g. 24h: the demo's first fault-free normal day)")
 	var suite, asJSON bool
 	var config, plants string
 	var days float64

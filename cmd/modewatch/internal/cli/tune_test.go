@@ -14,13 +14,22 @@ import (
 
 	"modewatch/cmd/modewatch/internal/evaluate"
 	"modewatch/cmd/modewatch/internal/testkit"
+	"modewatch/sim"
 )
 
-// demoWithTruth writes the first hours of the demo scenario (invented
-// data) and a truth file holding the episodes that start within them.
+// demoWithTruth writes hours of the demo scenario (invented data) from
+// the start of its last normal day, one fault-free day and then the test
+// days with their faults (F1 from 28 h on), as one log, and a truth file
+// holding the episodes that start within them.
 func demoWithTruth(t *testing.T, hours int) (log, truth string) {
 	t.Helper()
-	s := testkit.DemoScenario(t, time.Duration(hours)*time.Hour)
+	demo, err := sim.Demo()
+	if err != nil {
+		t.Fatal(err)
+	}
+	s := demo.Tested()
+	s.Start = s.Start.Add(-24 * time.Hour)
+	s.Duration = time.Duration(hours) * time.Hour
 	dir := t.TempDir()
 	files, err := s.WriteFiles(dir, false)
 	if err != nil {
@@ -79,7 +88,7 @@ func readCSV(t *testing.T, path string) []map[string]string {
 // setting) and once from a fitted model (an alarm setting × adapt).
 func TestTuneMatchesReplays(t *testing.T) {
 	log, truth := demoWithTruth(t, 50)
-	normal, _ := demoWithTruth(t, 24) // the demo's first day is fault-free
+	normal, _ := demoWithTruth(t, 24) // the last normal day, fault-free
 	dir := t.TempDir()
 	model := filepath.Join(dir, "demo.model")
 	if code, _, errs := runCLI(t, "", "fit", "--quiet", "--out", model, normal); code != ExitOK {
@@ -204,17 +213,26 @@ func TestTuneChecksFirst(t *testing.T) {
 }
 
 // TestDemoTune runs tune with the demo grid documented in the README
-// (configs/grid-demo.yaml) on the whole demo scenario (invented
-// data, 3 days, 7 labelled episodes) and checks the claim made there: the
-// best setting, scored strictly, stays within the budget of one false alert
-// per simulated day and detects at least 5 of the 7 episodes (measured: 5
-// of 7 at 0.33 per day; no setting of the grid detects all 7 within the
-// budget), and best.yaml replays to the same metrics.
+// (configs/grid-demo.yaml) on the whole demo scenario as sim writes it
+// (invented data, normal.lp and test.lp: 4 normal days and 2 test days, 7
+// labelled episodes) and checks the claim made there: the best setting,
+// scored strictly, stays within the budget of one false alert per
+// simulated day and detects at least 5 of the 7 episodes (measured: 5 of
+// 7 at 0.67 per day; no setting of the grid detects more than 5 within
+// the budget), and best.yaml replays to the same metrics.
 func TestDemoTune(t *testing.T) {
-	log, truth := demoWithTruth(t, 72)
+	s, err := sim.Demo()
+	if err != nil {
+		t.Fatal(err)
+	}
+	files, err := s.WriteFiles(t.TempDir(), false)
+	if err != nil {
+		t.Fatal(err)
+	}
+	truth := files.Truth
 	out := filepath.Join(t.TempDir(), "tune")
 	grid := filepath.Join("..", "..", "..", "..", "configs", "grid-demo.yaml")
-	code, stdout, errs := runCLI(t, "", "tune", "--input", log, "--truth", truth, "--grid", grid, "--out", out)
+	code, stdout, errs := runCLI(t, "", "tune", "--input", files.Normal, "--input", files.Test, "--truth", truth, "--grid", grid, "--out", out)
 	if code != ExitOK {
 		t.Fatalf("exit %d: %s", code, errs)
 	}
@@ -228,7 +246,7 @@ func TestDemoTune(t *testing.T) {
 	if perDay > 1 {
 		t.Errorf("best setting has %v false alerts per day", perDay)
 	}
-	code, js, errs := runCLI(t, "", "replay", "--config", filepath.Join(out, "best.yaml"), "--truth", truth, "--json", "--quiet", log)
+	code, js, errs := runCLI(t, "", "replay", "--config", filepath.Join(out, "best.yaml"), "--truth", truth, "--json", "--quiet", files.Normal, files.Test)
 	if code != ExitOK {
 		t.Fatalf("replay best.yaml: %s", errs)
 	}

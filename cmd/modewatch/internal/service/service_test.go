@@ -90,11 +90,11 @@ func getJSON(t *testing.T, url string, v any) int {
 // every unit.
 func TestServiceEndToEnd(t *testing.T) {
 	if testing.Short() {
-		t.Skip("publishes three simulated days")
+		t.Skip("publishes two simulated days")
 	}
 	dir := t.TempDir()
-	// The scenario is published at 32400 times real time (three days,
-	// 51840 messages, in about eight seconds); under the race detector on
+	// The demo's test days are published at 21600 times real time (two
+	// days, 34560 messages, in about eight seconds); under the race detector on
 	// a loaded machine the service decodes slower than that, and its
 	// bounded intake queue (default 4096 messages) drops the overflow, as
 	// it should: the last readings were lost and the frames stopped short
@@ -140,8 +140,9 @@ func TestServiceEndToEnd(t *testing.T) {
 	scores, _ := nc.SubscribeSync("modewatch.scores.air")
 	nc.Flush()
 
-	sc, _ := sim.Demo()
-	// All the simulated days (normal and test) in about eight seconds.
+	demo, _ := sim.Demo()
+	sc := demo.Tested() // the two test days after the split, with the faults
+	// The two test days in about eight seconds.
 	if _, err := sc.Live(ctx, nc, "modewatch", sc.Duration.Seconds()/8); err != nil {
 		t.Fatal(err)
 	}
