@@ -139,7 +139,10 @@ func TestClusterFailover(t *testing.T) {
 		units = append(units, u.Name)
 	}
 	modelPath := fitDemoDay1(t, dir)
-	part1 := sc.Tested() // the test days after the split: F1 from 4 h on
+	// From 8 h into the test days after the split: the supply drift from
+	// 12 h on and the stuck chiller return from 16 h on.
+	part1 := sc.Tested()
+	part1.Start = sc.Split.Add(8 * time.Hour)
 	part1.Duration = 12 * time.Hour
 	part2 := sc.Tested()
 	part2.Start = part1.End()

@@ -96,8 +96,7 @@ func TestClusterViews(t *testing.T) {
 	}
 	wait("two units on each instance", spread(a, map[string]int{"a": 2, "b": 2}))
 
-	hour := sc.Clone()
-	hour.Duration = time.Hour
+	hour := sc.Head(time.Hour)
 	if _, err := hour.Live(ctx, nc, "modewatch", 1e9); err != nil {
 		t.Fatal(err)
 	}

@@ -32,7 +32,7 @@ func TestStatusPageServed(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	live := sc.Clone()
+	live := sc.Normal() // the second normal day
 	live.Start = sc.Start.Add(24 * time.Hour)
 	live.Duration = 2 * time.Hour
 	live.Episodes = nil

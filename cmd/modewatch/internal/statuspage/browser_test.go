@@ -383,10 +383,11 @@ func TestBrowserDemo(t *testing.T) {
 	base := "http://" + rl.addr()
 	bctx := browser(t, path)
 
-	// The second simulated day, fault-free for 40 plant minutes, then a
-	// bias of 0.6 bar (12 times the channel's noise, configs/scenario-demo.yaml)
-	// on the boiler's steam pressure; 200x sends a 20 s frame every 0.1 s.
-	live := sc.Clone()
+	// The second simulated normal day, fault-free for 40 plant minutes,
+	// then a bias of 0.6 bar (12 times the channel's noise,
+	// configs/scenario-demo.yaml) on the boiler's steam pressure; 200x
+	// sends a 20 s frame every 0.1 s.
+	live := sc.Normal()
 	live.Start = sc.Start.Add(24 * time.Hour)
 	live.Duration = 8 * time.Hour
 	const faulty = "steam"
