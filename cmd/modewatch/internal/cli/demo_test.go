@@ -50,12 +50,13 @@ func TestDemoRuns(t *testing.T) {
 //
 // The demo runs with the default detection settings (chosen on the
 // realism suite, not on this plant) and each unit calibrated to the
-// default alerts.budget on the normal days. Three live runs at 15000× each
-// measured 6 of 7 detected (all but the F1 header bias), 6 isolated in
-// the top 3 and no false alert over the two days. The bounds are those
-// figures, with one false alert more (0.5 per simulated day): detection
-// below 6 or more false alerts than that is a change in the defaults'
-// behaviour on this plant worth a look.
+// default alerts.budget (0.25 a day) on the normal days. Three live runs at
+// 15000× each measured 5 of 7 detected (all but the F1 header bias and the
+// F2 supply drift), 4 isolated in the top 3 and no false alert over the two
+// days (with a budget of 0.5: 6, 6 and none). The bounds are those figures,
+// with one false alert more (0.5 per simulated day): detection below 5 or
+// more false alerts than that is a change in the defaults' behaviour on
+// this plant worth a look.
 // The data and the faults are invented (sim); this is a check of the
 // shipped demo, not a validation of the method.
 func TestDemoOutcome(t *testing.T) {
@@ -82,14 +83,14 @@ func TestDemoOutcome(t *testing.T) {
 		t.Errorf("scored %d frames, want about 8640", oc.frames)
 	}
 	m := oc.metrics
-	if m.Episodes != 7 || m.Detected < 6 {
-		t.Errorf("detected %d of %d labelled faults, want at least 6 of 7", m.Detected, m.Episodes)
+	if m.Episodes != 7 || m.Detected < 5 {
+		t.Errorf("detected %d of %d labelled faults, want at least 5 of 7", m.Detected, m.Episodes)
 	}
 	if m.FalseAlertsPerDay == nil || *m.FalseAlertsPerDay > 0.5 || math.IsNaN(*m.FalseAlertsPerDay) {
 		t.Errorf("false alerts per day = %v (%d false alerts over %s), want at most 0.5", m.FalseAlertsPerDay, m.FalseAlerts, oc.span)
 	}
-	if m.IsolatedTop3 < 6 {
-		t.Errorf("%d faults isolated in the top 3, want at least 6", m.IsolatedTop3)
+	if m.IsolatedTop3 < 4 {
+		t.Errorf("%d faults isolated in the top 3, want at least 4", m.IsolatedTop3)
 	}
 	text := out.String()
 	// The advisory caution opens and closes the output.

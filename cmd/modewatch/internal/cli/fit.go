@@ -26,7 +26,7 @@ half-life, alpha); to change them, fit again. Channels are auto-discovered
 and the frame period inferred unless the configuration or flags say
 otherwise. Input "-" is standard input.
 
-With alerts.budget (default 0.5: one false alert per unit every two days) each
+With alerts.budget (default 0.25: one false alert per unit every four days) each
 unit's limits are calibrated: a model learned on the first half of the
 log scores the second half, the whole alarm rule's statistic is fitted by
 an extreme-value model of block maxima, and every limit is multiplied by

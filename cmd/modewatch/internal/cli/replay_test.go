@@ -433,7 +433,7 @@ func TestFitBudget(t *testing.T) {
 	if code != ExitOK {
 		t.Fatalf("fit: exit %d: %s", code, errs)
 	}
-	if !strings.Contains(out, "budget 0.5 false alerts/day: limits ×") || !strings.Contains(out, "days of normal log needed") {
+	if !strings.Contains(out, "budget 0.25 false alerts/day: limits ×") || !strings.Contains(out, "days of normal log needed") {
 		t.Errorf("summary lacks the calibration or the too-short warning:\n%s", out)
 	}
 	mf, err := pipeline.ReadModel(model)
