@@ -146,16 +146,13 @@ const (
 	StateBaseline              // scoring against a fitted baseline held fixed (Fit)
 )
 
+var stateNames = [...]string{StateWarmUp: "warmup", StateAdapting: "adapting", StateFrozen: "frozen", StateBaseline: "baseline"}
+
+// String is the state's name as views and records show it ("adapting"),
+// or "State(n)" for a value outside the constants.
 func (s State) String() string {
-	switch s {
-	case StateWarmUp:
-		return "warmup"
-	case StateAdapting:
-		return "adapting"
-	case StateFrozen:
-		return "frozen"
-	case StateBaseline:
-		return "baseline"
+	if s >= 0 && int(s) < len(stateNames) {
+		return stateNames[s]
 	}
 	return fmt.Sprintf("State(%d)", int(s))
 }

@@ -996,3 +996,14 @@ func TestEmptyResidualSubspace(t *testing.T) {
 	approx(t, "φ limit = χ²(l)/τ²", sc.PhiLimit, chi/sc.T2Limit, 0, 1e-9)
 	approx(t, "φ = T²/τ²", sc.Phi, sc.T2/sc.T2Limit, 1e-12, 1e-9)
 }
+
+// TestStateString: every state has its name as views and records show it,
+// and a value outside the constants says what it is.
+func TestStateString(t *testing.T) {
+	for s, want := range map[State]string{StateWarmUp: "warmup", StateAdapting: "adapting", StateFrozen: "frozen",
+		StateBaseline: "baseline", State(7): "State(7)", State(-1): "State(-1)"} {
+		if got := s.String(); got != want {
+			t.Errorf("State(%d).String() = %q, want %q", int(s), got, want)
+		}
+	}
+}

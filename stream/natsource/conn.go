@@ -224,16 +224,14 @@ const (
 	StateClosed                    // closed for good (Close, Drain, or reconnects exhausted)
 )
 
+var stateNames = [...]string{StateConnecting: "connecting", StateConnected: "connected",
+	StateReconnecting: "reconnecting", StateClosed: "closed"}
+
+// String is the state's name in metrics and logs ("connected"), or
+// "State(n)" for a value outside the constants.
 func (s State) String() string {
-	switch s {
-	case StateConnecting:
-		return "connecting"
-	case StateConnected:
-		return "connected"
-	case StateReconnecting:
-		return "reconnecting"
-	case StateClosed:
-		return "closed"
+	if s >= 0 && int(s) < len(stateNames) {
+		return stateNames[s]
 	}
 	return fmt.Sprintf("State(%d)", int32(s))
 }
@@ -250,18 +248,14 @@ const (
 	EventError                         // asynchronous error, e.g. a slow consumer or permission error
 )
 
+var eventNames = [...]string{EventConnected: "connected", EventDisconnected: "disconnected",
+	EventReconnected: "reconnected", EventClosed: "closed", EventError: "error"}
+
+// String is the kind's name in logs ("reconnected"), or "EventKind(n)"
+// for a value outside the constants.
 func (k EventKind) String() string {
-	switch k {
-	case EventConnected:
-		return "connected"
-	case EventDisconnected:
-		return "disconnected"
-	case EventReconnected:
-		return "reconnected"
-	case EventClosed:
-		return "closed"
-	case EventError:
-		return "error"
+	if k >= 0 && int(k) < len(eventNames) {
+		return eventNames[k]
 	}
 	return fmt.Sprintf("EventKind(%d)", int(k))
 }

@@ -155,3 +155,20 @@ func TestSeveralURLs(t *testing.T) {
 		t.Errorf("server sees connections %+v", cz.Conns)
 	}
 }
+
+// TestStateAndEventNames: the names metrics and logs show, and a value
+// outside the constants saying what it is.
+func TestStateAndEventNames(t *testing.T) {
+	for s, want := range map[State]string{StateConnecting: "connecting", StateConnected: "connected",
+		StateReconnecting: "reconnecting", StateClosed: "closed", State(9): "State(9)", State(-1): "State(-1)"} {
+		if got := s.String(); got != want {
+			t.Errorf("State(%d).String() = %q, want %q", int32(s), got, want)
+		}
+	}
+	for k, want := range map[EventKind]string{EventConnected: "connected", EventDisconnected: "disconnected",
+		EventReconnected: "reconnected", EventClosed: "closed", EventError: "error", EventKind(9): "EventKind(9)"} {
+		if got := k.String(); got != want {
+			t.Errorf("EventKind(%d).String() = %q, want %q", int(k), got, want)
+		}
+	}
+}
