@@ -25,13 +25,18 @@ package pipeline
 const DefaultAcceptWeight = 0.2
 
 // acceptWeight is the unit's accept weight: alerts.accept_weight, or the
-// default; ≤ 0 means recentring the means.
+// default; ≤ 0 means recentring the means. It is read once (the recentring
+// window asks for it every frame, and resolving the unit's settings
+// allocates); the result is never 0, so 0 means not read yet.
 func (u *Unit) acceptWeight() float64 {
-	if u.p.cfg == nil {
-		return DefaultAcceptWeight
+	if u.acceptW != 0 {
+		return u.acceptW
 	}
-	if w := u.p.cfg.AlertsFor(u.Name).AcceptWeight; w != 0 {
-		return w
+	u.acceptW = DefaultAcceptWeight
+	if u.p.cfg != nil {
+		if w := u.p.cfg.AlertsFor(u.Name).AcceptWeight; w != 0 {
+			u.acceptW = w
+		}
 	}
-	return DefaultAcceptWeight
+	return u.acceptW
 }

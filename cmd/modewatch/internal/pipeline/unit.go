@@ -97,11 +97,12 @@ type Unit struct {
 	// its missing flags (beyond.go).
 	beyond    tracker.Score
 	bmiss     []bool
-	beyondSet int8   // alerts.beyond_incidents: 0 not read yet, 1 on, -1 off
-	masked    bool   // some channel of mask is set
-	locMark   []bool // scratch of location
-	recent    []bool // channels being recentred after an acceptance
-	recentK   int    // frames of the recentring done (recentreFrames: none pending)
+	beyondSet int8    // alerts.beyond_incidents: 0 not read yet, 1 on, -1 off
+	masked    bool    // some channel of mask is set
+	locMark   []bool  // scratch of location
+	recent    []bool  // channels being recentred after an acceptance
+	recentK   int     // frames of the recentring done (recentreFrames: none pending)
+	acceptW   float64 // alerts.accept_weight or its default; 0: not read yet (accept.go)
 
 	pending int // what stepModel left for finish (pendNone, ...)
 	worker  int // 1 + index of the scoring worker that steps this unit (pool.go); 0: none yet
