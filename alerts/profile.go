@@ -1,6 +1,9 @@
 package alerts
 
-import "math"
+import (
+	"fmt"
+	"math"
+)
 
 // QualitySilent is the data-quality kind of a unit whose channels are all
 // silent: every channel of the unit has had no reading for longer than the
@@ -112,6 +115,56 @@ func FlatTailScale(top []int) float64 {
 // larger of StuckMargin and StuckTail tail scales (FlatTail).
 func (p *ChannelProfile) StuckAfter() int {
 	return p.MaxFlat + max(StuckMargin, int(math.Ceil(StuckTail*p.FlatTail)))
+}
+
+// maxProfileRun bounds the run lengths of a profile read from a model
+// file (about 68 years of one-second frames), so that the stuck threshold
+// MaxFlat + StuckTail·FlatTail cannot overflow.
+const maxProfileRun = math.MaxInt32
+
+// Check reports, naming the field, what in a profile read from a model
+// file cannot have come from fit and would make the screen judge the
+// channel wrongly (nil: nothing): a negative count or run, a run or tail
+// scale beyond maxProfileRun (the stuck threshold would overflow and hold
+// every value stuck), more than MaxLevels levels or MaxRest rest values,
+// a negative or non-finite step, spike size or tail scale, and a spike
+// count beyond MaxSpikeCount (a negative one would hold the channel
+// spiky on every frame).
+func (p *ChannelProfile) Check() error {
+	ints := []struct {
+		name string
+		v    int
+	}{{"frames", p.Frames}, {"missing", p.Missing}, {"max_flat", p.MaxFlat}, {"max_gap", p.MaxGap},
+		{"levels", p.Levels}, {"spike_max", p.SpikeMax}, {"spike_span_frames", p.SpikeSpanFrames}}
+	for _, f := range ints {
+		if f.v < 0 {
+			return fmt.Errorf("%s %d is negative", f.name, f.v)
+		}
+	}
+	for _, f := range ints[2:4] {
+		if f.v > maxProfileRun {
+			return fmt.Errorf("%s %d is more than %d frames", f.name, f.v, maxProfileRun)
+		}
+	}
+	for _, f := range []struct {
+		name string
+		v    float64
+	}{{"step", p.Step}, {"spike_size", p.SpikeSize}, {"flat_tail", p.FlatTail}} {
+		if !(f.v >= 0) || math.IsInf(f.v, 0) {
+			return fmt.Errorf("%s %g is not a finite non-negative number", f.name, f.v)
+		}
+	}
+	switch {
+	case p.FlatTail > maxProfileRun:
+		return fmt.Errorf("flat_tail %g is more than %d frames", p.FlatTail, maxProfileRun)
+	case p.Levels > MaxLevels:
+		return fmt.Errorf("levels %d is more than %d", p.Levels, MaxLevels)
+	case len(p.Rest) > MaxRest:
+		return fmt.Errorf("%d rest values, at most %d", len(p.Rest), MaxRest)
+	case p.SpikeMax > MaxSpikeCount:
+		return fmt.Errorf("spike_max %d is more than %d", p.SpikeMax, MaxSpikeCount)
+	}
+	return nil
 }
 
 // MissingRate is the share of the normal log's frames in which the channel

@@ -1081,3 +1081,42 @@ func recordDiff(got, want []string) string {
 	}
 	return fmt.Sprintf("%d records, want %d", len(got), len(want))
 }
+
+// TestCheckpointBadQualityProfile: a checkpoint whose data-quality profile
+// could not have come from fit (here a negative spike count, which would
+// hold the channel spiky on every frame, and a longest flat run at which
+// the stuck threshold overflows) is refused, naming the field, and its
+// unit warms up again.
+func TestCheckpointBadQualityProfile(t *testing.T) {
+	cfg, ch, frames := demoFrames(t, 2*time.Hour, configs.Model{WarmUp: 100})
+	p, _ := New(Options{Config: cfg, Channels: ch, Period: demoPeriod})
+	runFrames(t, p, frames, nil)
+	dir := t.TempDir()
+	if _, err := p.WriteCheckpoints(dir); err != nil {
+		t.Fatal(err)
+	}
+	for _, c := range []struct {
+		field string
+		prof  alerts.ChannelProfile
+	}{
+		{"spike_max", alerts.ChannelProfile{Frames: 100, SpikeSize: 1, SpikeMax: -5, SpikeSpanFrames: 360}},
+		{"max_flat", alerts.ChannelProfile{Frames: 100, MaxFlat: math.MaxInt - 1}},
+		{"flat_tail", alerts.ChannelProfile{Frames: 100, FlatTail: -1}},
+	} {
+		cks, errs := ReadCheckpoints(dir)
+		if len(errs) != 0 || len(cks) == 0 {
+			t.Fatalf("checkpoints: %d, errors %v", len(cks), errs)
+		}
+		mu := &cks[0].Units[0]
+		c.prof.Channel = mu.Channels[0]
+		mu.Quality = []alerts.ChannelProfile{c.prof}
+		p2, _ := New(Options{Config: cfg, Channels: ch, Period: demoPeriod})
+		restored, rerrs := p2.Restore(cks[:1])
+		if len(restored) != 0 || len(rerrs) != 1 {
+			t.Fatalf("%s: restored %v, errors %v", c.field, restored, rerrs)
+		}
+		if !errors.Is(rerrs[0], ErrModelFile) || !strings.Contains(rerrs[0].Error(), c.field) {
+			t.Errorf("%s: error %v does not wrap ErrModelFile or name the field", c.field, rerrs[0])
+		}
+	}
+}

@@ -274,6 +274,11 @@ func (p *Pipeline) buildFromModel(mu *ModelUnit, period time.Duration) (*Unit, e
 	if err != nil {
 		return nil, fmt.Errorf("%w: unit %s: %v", ErrModelFile, mu.Name, err)
 	}
+	for i := range mu.Quality {
+		if err := mu.Quality[i].Check(); err != nil {
+			return nil, fmt.Errorf("%w: unit %s: quality profile %d (channel %.64q): %v", ErrModelFile, mu.Name, i, mu.Quality[i].Channel, err)
+		}
+	}
 	// The tracker state holds only under the settings it was saved with;
 	// whether it goes on learning comes from the configuration.
 	adapt := p.cfg.ModelFor(mu.Name).Adapt
