@@ -239,7 +239,7 @@ var settings = []Setting{
 	},
 	{
 		Name: "on_span", Section: "alerts", Grid: true,
-		Doc: "least plant time the on-delay window spans: at short frame periods M grows to cover it, and N in proportion; applies to the default on-delay, and to another when set (default: 50s)",
+		Doc: "least plant time the on-delay window spans: at short frame periods M grows to cover it, and N in proportion; applies to the default on-delay, and to another when set (default: " + FormatDuration(alerts.DefaultOnSpan) + ")",
 		set: setDuration(func(o *Overrides) *time.Duration { return &o.Alerts.OnSpan }),
 	},
 	{

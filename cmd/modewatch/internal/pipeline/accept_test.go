@@ -1,6 +1,7 @@
 package pipeline
 
 import (
+	"path/filepath"
 	"testing"
 
 	"modewatch/configs"
@@ -21,5 +22,21 @@ func TestAcceptWeightReadOnceNoAlloc(t *testing.T) {
 	d := &Unit{Name: "b", p: &Pipeline{cfg: cfg}}
 	if w := d.acceptWeight(); w != DefaultAcceptWeight {
 		t.Fatalf("acceptWeight of an unconfigured unit = %v, want the default %v", w, DefaultAcceptWeight)
+	}
+}
+
+// TestExampleStatesPipelineDefaults: the shipped example configuration
+// writes out the pipeline's own defaults (see the configs package's
+// TestExampleStatesDefaults); they must be the constants declared here.
+func TestExampleStatesPipelineDefaults(t *testing.T) {
+	c, err := configs.Load(filepath.Join("..", "..", "..", "..", "configs", "modewatch.yaml"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if w := c.Alerts.AcceptWeight; w != DefaultAcceptWeight {
+		t.Errorf("alerts.accept_weight: the example writes %v, the default is %v", w, DefaultAcceptWeight)
+	}
+	if f := c.Model.ResolutionFloor; f != DefaultResolutionFloor {
+		t.Errorf("model.resolution_floor: the example writes %v, the default is %v", f, DefaultResolutionFloor)
 	}
 }
