@@ -14,8 +14,8 @@ const MaxStates = 8
 // components): by the most probable component's model alone, or by the
 // posterior-weighted combination of every component's model
 // ([BIPRatio], Yu & Qin 2008). DefaultStateScoring was chosen on the
-// realism suite run with every unit's states found (the package README of
-// cmd/modewatch, or the branch notes, give the figures).
+// realism suite run with every unit's states found (README, "Found
+// states scored by their posterior", gives the figures).
 const (
 	StateScoringMostProbable = "most_probable"
 	StateScoringPosterior    = "posterior"
