@@ -2,9 +2,8 @@ package pipeline
 
 import (
 	"math"
+	"slices"
 	"time"
-
-	"modewatch/alerts"
 
 	"github.com/influxdata/line-protocol/v2/lineprotocol"
 )
@@ -21,6 +20,10 @@ const ScoreMeasurement = "modewatch_scores"
 // The statistics are left out during warm-up (and where a value is not
 // finite, which line protocol cannot carry); missing and state are always
 // present. Timestamps are in nanoseconds.
+//
+// It allocates nothing per line once its buffer has grown (it runs for
+// every unit and frame): values go in through lineprotocol.FloatValue and
+// StringValue, not the boxing NewValue, and the limit keys are built once.
 type ScoreEncoder struct {
 	enc lineprotocol.Encoder
 }
@@ -36,24 +39,29 @@ func (e *ScoreEncoder) Append(u *Unit, t time.Time) []byte {
 			key string
 			v   float64
 		}{{"t2", s.T2}, {"t2_limit", u.statScale(0) * s.T2Limit}, {"spe", s.SPE}, {"spe_limit", u.statScale(1) * s.SPELimit}, {"phi", s.Phi}, {"phi_limit", u.statScale(2) * s.PhiLimit}} {
-			if !math.IsNaN(f.v) && !math.IsInf(f.v, 0) {
-				e.enc.AddField(f.key, lineprotocol.MustNewValue(f.v))
+			if v, ok := lineprotocol.FloatValue(f.v); ok { // false: not finite
+				e.enc.AddField(f.key, v)
 			}
 		}
 		// The other alarm statistics of model.statistics (res, var, rel),
 		// as the alarms see them (smoothed ratios with model.smoothing).
 		for _, x := range u.last {
-			if x.Name == alerts.StatT2 || x.Name == alerts.StatSPE || x.Name == alerts.StatPhi {
+			k := slices.Index(statNames[:], x.Name)
+			if k < 3 { // t2, spe, phi above (or a name of no statistic)
 				continue
 			}
-			if !math.IsNaN(x.Value) && !math.IsInf(x.Value, 0) && !math.IsInf(x.Limit, 0) && !math.IsNaN(x.Limit) {
-				e.enc.AddField(x.Name, lineprotocol.MustNewValue(x.Value))
-				e.enc.AddField(x.Name+"_limit", lineprotocol.MustNewValue(u.StatScale(x.Name)*x.Limit))
+			v, ok := lineprotocol.FloatValue(x.Value)
+			l, lok := lineprotocol.FloatValue(u.statScale(k) * x.Limit)
+			if ok && lok && !math.IsInf(x.Limit, 0) {
+				e.enc.AddField(x.Name, v)
+				e.enc.AddField(statLimitKeys[k], l)
 			}
 		}
 	}
 	e.enc.AddField("missing", lineprotocol.IntValue(int64(len(s.Missing))))
-	e.enc.AddField("state", lineprotocol.MustNewValue(u.ModelState()))
+	if v, ok := lineprotocol.StringValue(u.ModelState()); ok {
+		e.enc.AddField("state", v)
+	}
 	e.enc.EndLine(t)
 	return e.enc.Bytes()
 }
@@ -68,3 +76,12 @@ func (e *ScoreEncoder) Err() error {
 	e.enc.ClearErr()
 	return err
 }
+
+// statLimitKeys holds the line-protocol key of each statistic's limit, in
+// the order of statNames.
+var statLimitKeys = func() (k [nStatistics]string) {
+	for i, n := range statNames {
+		k[i] = n + "_limit"
+	}
+	return k
+}()
