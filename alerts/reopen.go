@@ -63,8 +63,8 @@ func (r *recentClosed) note(u *unit, inc *incident, reason string) {
 	if u.rules.ReopenWithin <= 0 || reason != EndReturned || inc.g == nil || inc.g.qkind != "" || inc.kind != KindIncident {
 		return
 	}
-	if len(r.incs) == recentKept {
-		r.incs = slices.Delete(r.incs, 0, 1)
+	if n := len(r.incs) - recentKept + 1; n > 0 {
+		r.incs = slices.Delete(r.incs, 0, n)
 	}
 	r.incs = append(r.incs, inc)
 }

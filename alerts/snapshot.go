@@ -469,6 +469,9 @@ func (e *Engine) buildUnit(su snapUnit, lookup func(string) (*incident, error)) 
 	if err := e.restoreLocations(u, su, lookup); err != nil {
 		return nil, err
 	}
+	if len(su.Recent) > recentKept {
+		return nil, fmt.Errorf("%d recent incidents (that may re-open), at most %d", len(su.Recent), recentKept)
+	}
 	for _, id := range su.Recent {
 		inc, err := lookup(id)
 		if err != nil {
