@@ -251,9 +251,11 @@ func restartMatches(t *testing.T, cfg *configs.Config, ch *stream.Channels, peri
 	return len(want)
 }
 
-// TestCheckpointMismatch: a damaged checkpoint or one made under other
-// settings is reported and its unit warms up again; nothing panics.
-func TestCheckpointMismatch(t *testing.T) {
+// demoCheckpoints runs two hours of the demo plant (warm-up 100 frames)
+// and writes its unit checkpoints into a new directory, which it returns
+// with the configuration and channels they were made under.
+func demoCheckpoints(t *testing.T) (*configs.Config, *stream.Channels, string) {
+	t.Helper()
 	cfg, ch, frames := demoFrames(t, 2*time.Hour, configs.Model{WarmUp: 100})
 	p, _ := New(Options{Config: cfg, Channels: ch, Period: demoPeriod})
 	runFrames(t, p, frames, nil)
@@ -261,6 +263,13 @@ func TestCheckpointMismatch(t *testing.T) {
 	if _, err := p.WriteCheckpoints(dir); err != nil {
 		t.Fatal(err)
 	}
+	return cfg, ch, dir
+}
+
+// TestCheckpointMismatch: a damaged checkpoint or one made under other
+// settings is reported and its unit warms up again; nothing panics.
+func TestCheckpointMismatch(t *testing.T) {
+	cfg, ch, dir := demoCheckpoints(t)
 	// Damage one file, and make another claim a different unit.
 	gdir, err := currentDir(dir)
 	if err != nil || gdir == dir {
@@ -1088,13 +1097,7 @@ func recordDiff(got, want []string) string {
 // the stuck threshold overflows) is refused, naming the field, and its
 // unit warms up again.
 func TestCheckpointBadQualityProfile(t *testing.T) {
-	cfg, ch, frames := demoFrames(t, 2*time.Hour, configs.Model{WarmUp: 100})
-	p, _ := New(Options{Config: cfg, Channels: ch, Period: demoPeriod})
-	runFrames(t, p, frames, nil)
-	dir := t.TempDir()
-	if _, err := p.WriteCheckpoints(dir); err != nil {
-		t.Fatal(err)
-	}
+	cfg, ch, dir := demoCheckpoints(t)
 	for _, c := range []struct {
 		field string
 		prof  alerts.ChannelProfile
