@@ -1,6 +1,7 @@
 package tracker
 
 import (
+	"math"
 	"runtime"
 	"testing"
 	"time"
@@ -105,14 +106,21 @@ func TestStepMaskedWideAllocs(t *testing.T) {
 
 // mallocsOver returns the heap allocations made by n calls of step(k),
 // k = 0…n−1, on one OS thread (every allocation counted, where
-// testing.AllocsPerRun would round a few over many runs down to 0).
+// testing.AllocsPerRun would round a few over many runs down to 0): the
+// fewest of three passes, since an allocation of the code under test
+// shows in every pass while a stray one of the runtime (seen once in CI:
+// 1 in 200 frames) does not.
 func mallocsOver(n int, step func(k int)) uint64 {
 	defer runtime.GOMAXPROCS(runtime.GOMAXPROCS(1))
-	var ms0, ms1 runtime.MemStats
-	runtime.ReadMemStats(&ms0)
-	for k := 0; k < n; k++ {
-		step(k)
+	best := uint64(math.MaxUint64)
+	for range 3 {
+		var ms0, ms1 runtime.MemStats
+		runtime.ReadMemStats(&ms0)
+		for k := 0; k < n; k++ {
+			step(k)
+		}
+		runtime.ReadMemStats(&ms1)
+		best = min(best, ms1.Mallocs-ms0.Mallocs)
 	}
-	runtime.ReadMemStats(&ms1)
-	return ms1.Mallocs - ms0.Mallocs
+	return best
 }
