@@ -2,7 +2,6 @@ package tracker
 
 import (
 	"math"
-	"runtime"
 	"slices"
 	"testing"
 	"time"
@@ -122,16 +121,11 @@ func TestStepMaskedAllocs(t *testing.T) {
 	mask[2], mask[9] = true, true
 	sc.Missing = make([]int, 0, p)
 	tr.StepMasked(&sc, xs[0], nil, mask)
-	defer runtime.GOMAXPROCS(runtime.GOMAXPROCS(1))
-	var ms0, ms1 runtime.MemStats
-	runtime.ReadMemStats(&ms0)
-	for k := 0; k < 200; k++ {
+	if d := mallocsOver(200, func(k int) {
 		if err := tr.StepMasked(&sc, xs[k%64], nil, mask); err != nil {
 			t.Fatal(err)
 		}
-	}
-	runtime.ReadMemStats(&ms1)
-	if d := ms1.Mallocs - ms0.Mallocs; d != 0 {
+	}); d != 0 {
 		t.Errorf("200 masked frames (25 refreshes) made %d allocations", d)
 	}
 }

@@ -5,7 +5,6 @@ import (
 	"fmt"
 	"math"
 	"math/rand/v2"
-	"runtime"
 	"slices"
 	"testing"
 	"time"
@@ -699,17 +698,12 @@ func TestStepAllocs(t *testing.T) {
 	// dst's Missing list grows with the largest missing set seen (Score's
 	// slices are the caller's, reused); size it once as a service would.
 	sc.Missing = make([]int, 0, p)
-	defer runtime.GOMAXPROCS(runtime.GOMAXPROCS(1))
-	var ms0, ms1 runtime.MemStats
-	runtime.ReadMemStats(&ms0)
-	for n := 0; n < 200; n++ {
+	if d := mallocsOver(200, func(int) {
 		if err := tr.Step(&sc, xs[k%64], pats[k%40]); err != nil {
 			t.Fatal(err)
 		}
 		k++
-	}
-	runtime.ReadMemStats(&ms1)
-	if d := ms1.Mallocs - ms0.Mallocs; d != 0 {
+	}); d != 0 {
 		t.Errorf("200 frames with new missing patterns made %d allocations", d)
 	}
 	if !sc.Ready || len(sc.Missing) == 0 {
