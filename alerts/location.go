@@ -254,7 +254,7 @@ func (e *Engine) stepLocations(u *unit, o *Observation, t time.Time) {
 		// channel outside every location (Observation.Beyond): a second
 		// fault in other equipment, on the same on-delay as on a quiet
 		// unit.
-		if len(o.Beyond) > 0 && e.outsideAll(u, o.Beyond[:1]) == 0 {
+		if len(o.Beyond) > 0 && !u.located(o.Beyond[0]) {
 			if _, to, _ := u.loc.newLoc.Step(t, 2, 1); to == Active {
 				u.loc.newLoc.Reset(t)
 				e.support(first, o, t)
@@ -295,17 +295,6 @@ func (e *Engine) stepLocations(u *unit, o *Observation, t time.Time) {
 		}
 	}
 	e.stepHolds(u, o, t)
-}
-
-// outsideAll returns the index in chs of the first channel that lies in
-// no open incident's location of u, or -1.
-func (e *Engine) outsideAll(u *unit, chs []string) int {
-	for k, ch := range chs {
-		if !u.located(ch) {
-			return k
-		}
-	}
-	return -1
 }
 
 // located reports whether ch lies in the location of an open model
