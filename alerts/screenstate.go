@@ -51,8 +51,7 @@ func (s *Screen) AppendState(dst []ChannelRun) []ChannelRun {
 			}
 		}
 		for i := 0; i < t.n; i++ {
-			j := (t.head - 1 - i + MaxSpikeCount) % MaxSpikeCount
-			r.Spikes = append(r.Spikes, s.frame-t.ring[j])
+			r.Spikes = append(r.Spikes, s.frame-t.spike(i))
 		}
 		if r.Flat > 0 || r.Gap > 0 || len(r.Recent) > 0 || len(r.Spikes) > 0 {
 			dst = append(dst, r)

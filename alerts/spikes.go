@@ -85,14 +85,15 @@ func (s *spikeTrack) inAlarm(k int64, span, most int) bool {
 // count returns the spikes remembered at frames after k − span.
 func (s *spikeTrack) count(k int64, span int) int {
 	c := 0
-	for i := 0; i < s.n; i++ {
-		j := (s.head - 1 - i + MaxSpikeCount) % MaxSpikeCount
-		if s.ring[j] <= k-int64(span) {
-			break
-		}
+	for c < s.n && s.spike(c) > k-int64(span) {
 		c++
 	}
 	return c
+}
+
+// spike returns the frame of the i-th newest spike remembered (i < n).
+func (s *spikeTrack) spike(i int) int64 {
+	return s.ring[(s.head-1-i+MaxSpikeCount)%MaxSpikeCount]
 }
 
 // SpikeLearner learns a channel's spike profile from its normal log
