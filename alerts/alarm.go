@@ -78,10 +78,14 @@ type Alarm struct {
 	since  time.Time
 }
 
+// MaxOnWindow is the longest on-delay window M an Alarm keeps (its window
+// is a 64-bit mask).
+const MaxOnWindow = 64
+
 // NewAlarm returns an alarm in Normal with rule r; it panics if r is
 // invalid (programmer error: rules are validated with the Config).
 func NewAlarm(r AlarmRule) Alarm {
-	if r.N < 1 || r.M < r.N || r.M > 64 || r.Deadband < 0 || r.Deadband >= 1 || r.OnHold < 0 || r.OffDelay < 0 {
+	if r.N < 1 || r.M < r.N || r.M > MaxOnWindow || r.Deadband < 0 || r.Deadband >= 1 || r.OnHold < 0 || r.OffDelay < 0 {
 		panic(fmt.Sprintf("alerts: invalid alarm rule %+v", r))
 	}
 	return Alarm{rule: r}

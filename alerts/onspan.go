@@ -27,14 +27,10 @@ func SpanOnDelay(n, m int, period, span time.Duration) (int, int) {
 		return n, m
 	}
 	want := int(math.Ceil(float64(span) / float64(period)))
-	want = min(want, maxOnWindow)
+	want = min(want, MaxOnWindow)
 	if want <= m {
 		return n, m
 	}
 	n2 := int(math.Ceil(float64(n) * float64(want) / float64(m)))
 	return min(max(n2, 1), want), want
 }
-
-// maxOnWindow is the longest on-delay window an Alarm keeps (a 64-bit
-// mask).
-const maxOnWindow = 64

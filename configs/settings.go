@@ -171,9 +171,8 @@ func ParseOnDelay(s string) (OnDelay, error) {
 // String is the "N/M" form.
 func (o OnDelay) String() string { return fmt.Sprintf("%d/%d", o.N, o.M) }
 
-// maxOnWindow bounds on_delay's M (the alarm engine keeps the window in a
-// 64-bit mask).
-const maxOnWindow = 64
+// maxOnWindow bounds on_delay's M: the alarm engine's window.
+const maxOnWindow = alerts.MaxOnWindow
 
 var settings = []Setting{
 	{
