@@ -373,7 +373,7 @@ func (v *validator) alerts(p string, a Alerts, partial bool) {
 	if a.ReopenWithin < 0 {
 		v.add(p+".reopen_within", "negative")
 	}
-	if a.SpecificShare < 0 || a.SpecificShare > 1 {
+	if !(a.SpecificShare >= 0 && a.SpecificShare <= 1) {
 		v.add(p+".specific_share", "%g is not a share of the index in [0, 1]", a.SpecificShare)
 	}
 	if math.IsNaN(a.AcceptWeight) || math.IsInf(a.AcceptWeight, 0) || a.AcceptWeight > 10 {
