@@ -172,11 +172,7 @@ func (rs *resStat) refresh(m *model, alpha float64) {
 // L written in order). panel holds cholBlock·p values. It reports false
 // when A + εI is not positive definite.
 func factorLower(l, panel []float64, a blas64.Symmetric, p int, ridge float64) bool {
-	for i := 0; i < p; i++ {
-		copy(l[i*p+i:i*p+p], a.Data[i*a.Stride+i:i*a.Stride+p])
-		l[i*p+i] += ridge
-	}
-	if !cholUpper(l, p, p, panel) {
+	if !cholRidge(l, panel, a, p, ridge) {
 		return false
 	}
 	i0 := 0
@@ -323,11 +319,7 @@ func axpyRow(y []float64, a float64, x []float64) {
 // false when A + εI is not positive definite. Used by the relation modes
 // (the residual statistic needs only the factor: factorLower).
 func factorInverse(u, inv, panel []float64, a blas64.Symmetric, p int, ridge float64) bool {
-	for i := 0; i < p; i++ {
-		copy(u[i*p+i:i*p+p], a.Data[i*a.Stride+i:i*a.Stride+p])
-		u[i*p+i] += ridge
-	}
-	if !cholUpper(u, p, p, panel) {
+	if !cholRidge(u, panel, a, p, ridge) {
 		return false
 	}
 	forwardUnit(inv, p, u, p, nil, panel)

@@ -188,17 +188,26 @@ func (m *model) factorRidge(ridge float64) error {
 		m.panel = make([]float64, p*cholBlock)
 	}
 	m.chol = m.own
-	a := m.a.RawSymmetric()
-	u := m.chol
-	for i := 0; i < p; i++ {
-		copy(u[i*p+i:i*p+p], a.Data[i*a.Stride+i:i*a.Stride+p])
-		u[i*p+i] += ridge
-	}
-	if !cholUpper(u, p, p, m.panel) {
+	if !cholRidge(m.chol, m.panel, m.a.RawSymmetric(), p, ridge) {
 		return fmt.Errorf("tracker: missing-data model: correlation + %g·I is not positive definite", ridge)
 	}
 	m.cholOK = true
 	return nil
+}
+
+// cholRidge sets the upper triangle of u (row-major p × p) to the upper
+// Cholesky factor U of A + εI, A in the upper triangle of a (cholUpper;
+// the strict lower triangle of u is left as it was). panel holds
+// cholBlock·p values. It reports false when A + εI is not positive
+// definite. The one factorization of the missing-data model
+// (factorRidge), the residual statistic (factorLower) and the relation
+// modes (factorInverse).
+func cholRidge(u, panel []float64, a blas64.Symmetric, p int, ridge float64) bool {
+	for i := 0; i < p; i++ {
+		copy(u[i*p+i:i*p+p], a.Data[i*a.Stride+i:i*a.Stride+p])
+		u[i*p+i] += ridge
+	}
+	return cholUpper(u, p, p, panel)
 }
 
 // shareFactor takes u (row-major p × p, its upper triangle the factor U of
