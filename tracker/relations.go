@@ -4,6 +4,7 @@ import (
 	"fmt"
 	"math"
 
+	"gonum.org/v1/gonum/blas/blas64"
 	"gonum.org/v1/gonum/mat"
 
 	"modewatch/tracker/limits"
@@ -68,6 +69,22 @@ func newRelStat(p int, cfg *Config) (*relStat, error) {
 		u: make([]float64, p*p), inv: make([]float64, p*p), panel: make([]float64, p*cholBlock),
 		vari: make([]float64, m),
 		lim:  limits.ChiSquare(1-cfg.Alpha/float64(m), 1), ridge: cfg.ResidualRidge}, nil
+}
+
+// factorInverse sets u to the upper Cholesky factor of A + εI (row-major
+// p × p, A in the upper triangle of a) and inv to U⁻¹, by cholUpper and
+// forward substitution: row i of U⁻¹ solves Uᵀy = eᵢ (Golub & Van Loan,
+// Matrix Computations, §3.1), all rows together by panels of the factor
+// (forwardUnit, the factorization's AVX2/FMA kernel where the CPU has it):
+// O(p³/3) multiply-adds in all. panel holds cholBlock·p values. It reports
+// false when A + εI is not positive definite. The relation modes' factor
+// (the residual statistic needs only the factor: factorLower).
+func factorInverse(u, inv, panel []float64, a blas64.Symmetric, p int, ridge float64) bool {
+	if !cholRidge(u, panel, a, p, ridge) {
+		return false
+	}
+	forwardUnit(inv, p, u, p, nil, panel)
+	return true
 }
 
 // refresh recomputes the relation modes of the model's correlation.

@@ -310,22 +310,6 @@ func axpyRow(y []float64, a float64, x []float64) {
 	}
 }
 
-// factorInverse sets u to the upper Cholesky factor of A + εI (row-major
-// p × p, A in the upper triangle of a) and inv to U⁻¹, by cholUpper and
-// forward substitution: row i of U⁻¹ solves Uᵀy = eᵢ (Golub & Van Loan,
-// Matrix Computations, §3.1), all rows together by panels of the factor
-// (forwardUnit, the factorization's AVX2/FMA kernel where the CPU has it):
-// O(p³/3) multiply-adds in all. panel holds cholBlock·p values. It reports
-// false when A + εI is not positive definite. Used by the relation modes
-// (the residual statistic needs only the factor: factorLower).
-func factorInverse(u, inv, panel []float64, a blas64.Symmetric, p int, ridge float64) bool {
-	if !cholRidge(u, panel, a, p, ridge) {
-		return false
-	}
-	forwardUnit(inv, p, u, p, nil, panel)
-	return true
-}
-
 // score computes R and V for the standardized, imputed frame z, with dz = Dz
 // and t2 from the scoring path; nMiss is the number of missing (imputed)
 // channels, obs and stuck mark the channels seen in the frame. advance
