@@ -283,7 +283,7 @@ func upperSolveT(v, y, l []float64, p int) {
 	i := p - 1
 	for ; i >= 0 && (i+1)%4 != 0; i-- {
 		v[i] /= l[i*p+i]
-		axpyRow(v[:i], -v[i], l[i*p:i*p+i])
+		axpyTo(v[:i], -v[i], l[i*p:i*p+i])
 	}
 	for ; i >= 3; i -= 4 {
 		// Rows i−3…i: finish the 4 × 4 block, then subtract all four rows.
@@ -299,14 +299,6 @@ func upperSolveT(v, y, l []float64, p int) {
 		for c := range vv {
 			vv[c] -= a0*r0[c] + a1*r1[c] + a2*r2[c] + a3*r3[c]
 		}
-	}
-}
-
-// axpyRow sets y += a·x (len(x) = len(y)).
-func axpyRow(y []float64, a float64, x []float64) {
-	x = x[:len(y)]
-	for c, v := range x {
-		y[c] += a * v
 	}
 }
 
