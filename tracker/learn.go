@@ -136,20 +136,7 @@ func (t *Tracker) learnFrame(r float64, x []float64, mask []bool, scored bool) (
 // its missing channels imputed): the standardized values are copied, not
 // recomputed, so they are the same numbers.
 func (t *Tracker) maskScored(w, src *work, mask []bool) {
-	m := t.mdl
-	w.miss = w.miss[:0]
-	z, sz := w.z[:t.p], src.z[:t.p]
-	for i := range z {
-		switch {
-		case !m.include[i]:
-			z[i] = 0
-		case !t.obs[i] || t.stuck[i] || !(t.ew.Var(i) > 0) || (mask != nil && mask[i]):
-			z[i] = 0
-			w.miss = append(w.miss, i)
-		default:
-			z[i] = sz[i]
-		}
-	}
+	t.standardizeFrom(w, nil, mask, src.z[:t.p])
 }
 
 // addConditional adds to the EW variances and covariances of the masked

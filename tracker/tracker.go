@@ -616,6 +616,13 @@ func (t *Tracker) isStuck(i int) bool {
 // set in mask, which may be nil); z is 0 for those and for channels out of
 // the model.
 func (t *Tracker) standardize(w *work, x []float64, mask []bool) {
+	t.standardizeFrom(w, x, mask, nil)
+}
+
+// standardizeFrom is standardize, with the values of the channels kept
+// copied from from when it is not nil (the same frame standardized without
+// a mask; maskScored) instead of computed from x.
+func (t *Tracker) standardizeFrom(w *work, x []float64, mask []bool, from []float64) {
 	m := t.mdl
 	w.miss = w.miss[:0]
 	for i := 0; i < t.p; i++ {
@@ -625,6 +632,8 @@ func (t *Tracker) standardize(w *work, x []float64, mask []bool) {
 		case !t.obs[i] || t.stuck[i] || !(t.ew.Var(i) > 0) || (mask != nil && mask[i]):
 			w.z[i] = 0
 			w.miss = append(w.miss, i)
+		case from != nil:
+			w.z[i] = from[i]
 		default:
 			w.z[i] = (x[i] - t.ew.Mean(i)) / math.Sqrt(t.scaleVar(i))
 		}
