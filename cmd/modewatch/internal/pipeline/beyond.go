@@ -68,10 +68,7 @@ func (u *Unit) appendBeyond(dst []string) []string {
 // beyondOver reports whether an alarm statistic of score s exceeds its
 // limit times its budget scale.
 func (u *Unit) beyondOver(s *tracker.Score) bool {
-	st := u.stats
-	on := [nStatistics]bool{st.T2, st.SPE, st.Phi, st.Residual, st.Variance, st.Relation}
-	val := [nStatistics]float64{s.T2, s.SPE, s.Phi, s.Residual, s.Variance, s.Relation}
-	lim := [nStatistics]float64{s.T2Limit, s.SPELimit, s.PhiLimit, s.ResidualLimit, s.VarianceLimit, s.RelationLimit}
+	on, val, lim := u.statSlots(s)
 	for k := range on {
 		l := lim[k] * u.statScale(k)
 		if on[k] && l > 0 && !math.IsInf(l, 0) && val[k] > l {

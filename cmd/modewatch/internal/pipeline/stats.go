@@ -24,16 +24,26 @@ func alarmStats(m configs.Model) configs.Statistics {
 var statNames = [nStatistics]string{alerts.StatT2, alerts.StatSPE, alerts.StatPhi,
 	alerts.StatResidual, alerts.StatVariance, alerts.StatRelation}
 
+// statSlots returns, in the order of statNames, whether each statistic
+// raises alarms (model.statistics) and its value and limit in score s
+// (unscaled; statFields).
+func (u *Unit) statSlots(s *tracker.Score) (on [nStatistics]bool, val, lim [nStatistics]float64) {
+	st := u.stats
+	on = [nStatistics]bool{st.T2, st.SPE, st.Phi, st.Residual, st.Variance, st.Relation}
+	for k := range val {
+		v, l := statFields(s, k)
+		val[k], lim[k] = *v, *l
+	}
+	return on, val, lim
+}
+
 // frameStats computes the unit's alarm statistics of score s, chosen by
 // model.statistics, into u.last, unscaled. With model.smoothing λ each is
 // replaced by the EWMA of its ratio to its limit, r̃ ← (1 − λ)r̃ + λr,
 // against a limit of 1 (the smoothed statistic's own threshold comes from
 // the budget calibration, which multiplies it). Call once per frame.
 func (u *Unit) frameStats(s *tracker.Score) {
-	st := u.stats
-	on := [nStatistics]bool{st.T2, st.SPE, st.Phi, st.Residual, st.Variance, st.Relation}
-	val := [nStatistics]float64{s.T2, s.SPE, s.Phi, s.Residual, s.Variance, s.Relation}
-	lim := [nStatistics]float64{s.T2Limit, s.SPELimit, s.PhiLimit, s.ResidualLimit, s.VarianceLimit, s.RelationLimit}
+	on, val, lim := u.statSlots(s)
 	u.last = u.last[:0]
 	for k := range on {
 		if !on[k] || (k >= 3 && !(lim[k] > 0)) {
