@@ -211,49 +211,15 @@ func CalibrateBudget(t []time.Time, ratios [][nStatistics]float64, budget float6
 		return Calibration{HeldOutDays: days, DaysNeeded: need}, fmt.Errorf("%w: %.2f days of held-out normal data give %d blocks of %v, need %d",
 			ErrCalibration, days, nb, block, minBlocks)
 	}
-	// Rule statistic per frame.
-	nth := make([]float64, rule.M)
-	s := make([]float64, n)
-	for k := 0; k < n; k++ {
-		best := math.Inf(-1)
-		for j := 0; j < nStatistics; j++ {
-			w := nth[:0]
-			for i := max(0, k-rule.M+1); i <= k; i++ {
-				if v := ratios[i][j]; !math.IsNaN(v) {
-					w = append(w, v)
-				}
-			}
-			if len(w) < rule.N {
-				continue
-			}
-			slices.Sort(w)
-			best = math.Max(best, w[len(w)-rule.N])
-		}
-		s[k] = best
-	}
-	// Block maxima.
-	maxima := make([]float64, 0, nb)
-	t0 := t[0]
-	cur, have := math.Inf(-1), false
-	bi := 0
-	for k := 0; k < n; k++ {
-		b := int(t[k].Sub(t0) / block)
-		if b >= nb {
-			break
-		}
-		if b != bi {
-			if have {
-				maxima = append(maxima, cur)
-			}
-			bi, cur, have = b, math.Inf(-1), false
-		}
-		if !math.IsInf(s[k], -1) {
-			cur, have = math.Max(cur, s[k]), true
+	// Rule statistic per frame: the largest over the statistics.
+	s := ruleStat(ratios, 0, rule)
+	for j := 1; j < nStatistics; j++ {
+		for k, v := range ruleStat(ratios, j, rule) {
+			s[k] = math.Max(s[k], v)
 		}
 	}
-	if have {
-		maxima = append(maxima, cur)
-	}
+	// Block maxima, the blocks with a rule statistic.
+	maxima := slices.DeleteFunc(blockMaxima(t, s, block, nb), math.IsNaN)
 	if len(maxima) < minBlocks {
 		return Calibration{HeldOutDays: days}, fmt.Errorf("%w: %d blocks with a score, need %d", ErrCalibration, len(maxima), minBlocks)
 	}
