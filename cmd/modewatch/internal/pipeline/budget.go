@@ -288,17 +288,26 @@ func heldOutScale(t []time.Time, ratios [][nStatistics]float64, s []float64, lo,
 			hi = v
 		}
 	}
+	return leastWithin(lo, hi, allow, func(c float64) int { return countAlerts(t, ratios, c, rule) })
+}
+
+// leastWithin returns the smallest x above lo (to a relative 10⁻⁹) at
+// which count(x) ≤ allow, by bisection between lo and just above hi
+// (where the caller knows the count is 0). The count need not be
+// monotone, so the bisection's end is checked and the upper end returned
+// if it is not within allow (heldOutScale, raiseEach).
+func leastWithin(lo, hi, allow float64, count func(float64) int) float64 {
 	hi *= 1 + 1e-9
 	top := hi
 	for hi-lo > 1e-9*hi {
 		mid := lo + (hi-lo)/2
-		if float64(countAlerts(t, ratios, mid, rule)) <= allow {
+		if float64(count(mid)) <= allow {
 			hi = mid
 		} else {
 			lo = mid
 		}
 	}
-	if float64(countAlerts(t, ratios, hi, rule)) > allow {
+	if float64(count(hi)) > allow {
 		return top
 	}
 	return hi

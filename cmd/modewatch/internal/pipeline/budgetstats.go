@@ -210,7 +210,7 @@ func countAlertsEach(t []time.Time, ratios [][nStatistics]float64, sc [nStatisti
 // raiseEach returns the smallest common factor λ ≥ 1 (to a relative
 // 10⁻⁹) by which the scales sc must be multiplied for the rule to open at
 // most allow alerts over the held-out frames, by bisection up to the
-// factor at which no ratio reaches its limit (see heldOutScale).
+// factor at which no ratio reaches its limit (leastWithin, as heldOutScale).
 func raiseEach(t []time.Time, ratios [][nStatistics]float64, sc [nStatistics]float64, allow float64, rule alerts.AlarmRule) float64 {
 	mul := func(l float64) [nStatistics]float64 {
 		var out [nStatistics]float64
@@ -227,20 +227,7 @@ func raiseEach(t []time.Time, ratios [][nStatistics]float64, sc [nStatistics]flo
 			}
 		}
 	}
-	hi *= 1 + 1e-9
-	top, lo := hi, 1.0
-	for hi-lo > 1e-9*hi {
-		mid := lo + (hi-lo)/2
-		if float64(countAlertsEach(t, ratios, mul(mid), rule)) <= allow {
-			hi = mid
-		} else {
-			lo = mid
-		}
-	}
-	if float64(countAlertsEach(t, ratios, mul(hi), rule)) > allow {
-		return top
-	}
-	return hi
+	return leastWithin(1, hi, allow, func(l float64) int { return countAlertsEach(t, ratios, mul(l), rule) })
 }
 
 // calibrateEach adds the per-statistic scales to cal, the unit's single
