@@ -240,14 +240,7 @@ func CalibrateBudget(t []time.Time, ratios [][nStatistics]float64, budget float6
 	}
 	pc, se := fit.ExceedSE(c)
 	cal.Scale = c
-	cal.Rate = pc * perDay
-	// Interval on the log scale (P is positive and skewed).
-	rel := 0.0
-	if pc > 0 {
-		rel = se / pc
-	}
-	cal.RateLow = cal.Rate * math.Exp(-1.96*rel)
-	cal.RateHigh = cal.Rate * math.Exp(1.96*rel)
+	rel := cal.setRate(pc, se, perDay)
 	// Too short: the interval is wider than a factor 2 either side; the
 	// relative standard error falls as 1/√(blocks).
 	if f := 1.96 * rel / math.Ln2; f > 1 {
@@ -262,16 +255,24 @@ func CalibrateBudget(t []time.Time, ratios [][nStatistics]float64, budget float6
 		c = heldOutScale(t, ratios, s, c, allow, rule)
 		pc, se = fit.ExceedSE(c)
 		cal.Scale = c
-		cal.Rate = pc * perDay
-		rel = 0
-		if pc > 0 {
-			rel = se / pc
-		}
-		cal.RateLow = cal.Rate * math.Exp(-1.96*rel)
-		cal.RateHigh = cal.Rate * math.Exp(1.96*rel)
+		cal.setRate(pc, se, perDay)
 		cal.Observed = countAlerts(t, ratios, c, rule)
 	}
 	return cal, nil
+}
+
+// setRate sets the calibration's alert rate per day and its 95 % interval
+// from the GEV's block exceedance probability pc and its standard error
+// se, with perDay blocks a day, and returns the relative standard error.
+// The interval is on the log scale (P is positive and skewed).
+func (cal *Calibration) setRate(pc, se, perDay float64) (rel float64) {
+	if pc > 0 {
+		rel = se / pc
+	}
+	cal.Rate = pc * perDay
+	cal.RateLow = cal.Rate * math.Exp(-1.96*rel)
+	cal.RateHigh = cal.Rate * math.Exp(1.96*rel)
+	return rel
 }
 
 // heldOutScale returns the smallest scale above lo (to a relative 10⁻⁹)

@@ -270,12 +270,6 @@ func calibrateEach(cal *Calibration, t []time.Time, ratios [][nStatistics]float6
 			cal.Scales[statNames[j]] = c
 		}
 	}
-	rel := 0.0
-	if pc > 0 {
-		rel = se / pc
-	}
-	cal.Rate = pc * perDay
-	cal.RateLow = cal.Rate * math.Exp(-1.96*rel)
-	cal.RateHigh = cal.Rate * math.Exp(1.96*rel)
+	cal.setRate(pc, se, perDay)
 	cal.Observed = countAlertsEach(t, ratios, sc, rule)
 }
