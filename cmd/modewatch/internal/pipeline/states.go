@@ -186,9 +186,7 @@ func (u *Unit) newState(key float64, t time.Time) int {
 	if len(s.models) == 0 && u.tr != nil && u.frames == 0 && !u.baseline {
 		tr = u.tr // the unit's first tracker becomes its first state's
 	} else {
-		cfg, err := TrackerConfig(u.model, u.p.opt.Period, len(u.idx), u.equal)
-		u.p.learnSettings(&cfg, u.model, u.p.opt.Period)
-		u.stateModesConfig(&cfg)
+		cfg, err := u.trackerConfig(len(u.idx))
 		if err == nil {
 			tr, err = tracker.New(len(u.idx), cfg)
 		}
@@ -226,9 +224,7 @@ func (u *Unit) switchState(i int) {
 	m := s.models[i]
 	u.score, m.score = m.score, u.score
 	if p2 := len(u.idx); m.tr.P() < p2 {
-		if cfg, err := TrackerConfig(u.model, u.p.opt.Period, p2, u.equal); err == nil {
-			u.p.learnSettings(&cfg, u.model, u.p.opt.Period)
-			u.stateModesConfig(&cfg)
+		if cfg, err := u.trackerConfig(p2); err == nil {
 			if err := m.tr.Grow(p2, cfg); err != nil {
 				u.p.log.Error("operating state's model cannot take the unit's new channels", "unit", u.Name, "err", err)
 			}

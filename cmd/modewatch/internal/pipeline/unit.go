@@ -210,8 +210,7 @@ func (u *Unit) refuse(name string) {
 // reported and left out.
 func (u *Unit) grow() {
 	p0, p2 := u.tr.P(), len(u.idx)
-	cfg, err := TrackerConfig(u.model, u.p.opt.Period, p2, u.equal)
-	u.p.learnSettings(&cfg, u.model, u.p.opt.Period)
+	cfg, err := u.trackerConfig(p2)
 	if err == nil {
 		err = u.tr.Grow(p2, cfg)
 	}
@@ -242,10 +241,21 @@ func (u *Unit) Channels() []string { return append([]string(nil), u.names...) }
 // only be used from the frame goroutine or after the input has ended.
 func (u *Unit) Tracker() *tracker.Tracker { return u.tr }
 
+// trackerConfig returns the configuration of a tracker of the unit over
+// p columns: its model settings (TrackerConfig), the pipeline's learning
+// settings and, for a unit with operating states, their shared floor on
+// the mode count (stateModesConfig). Every tracker the unit builds or
+// grows online takes it, so a grown state model keeps the floor.
+func (u *Unit) trackerConfig(p int) (tracker.Config, error) {
+	cfg, err := TrackerConfig(u.model, u.p.opt.Period, p, u.equal)
+	u.p.learnSettings(&cfg, u.model, u.p.opt.Period)
+	u.stateModesConfig(&cfg)
+	return cfg, err
+}
+
 // build creates the tracker over the unit's current channels.
 func (u *Unit) build() error {
-	cfg, err := TrackerConfig(u.model, u.p.opt.Period, len(u.idx), u.equal)
-	u.p.learnSettings(&cfg, u.model, u.p.opt.Period)
+	cfg, err := u.trackerConfig(len(u.idx))
 	if err != nil {
 		return fmt.Errorf("pipeline: unit %s: %w", u.Name, err)
 	}
