@@ -137,7 +137,7 @@ func (u *Unit) setLast(last []LastReading) {
 	}
 }
 
-// seeded reports whether channel k, which frame f does not reach, carries
+// seeded reports as use whether channel k, which frame f does not reach, carries
 // the checkpoint's reading in f as an uninterrupted aligner would carry
 // it: its event time t before the frame's end E and E − t within the
 // staleness limit. After a restart the channel registry starts empty, and
@@ -145,14 +145,22 @@ func (u *Unit) setLast(last []LastReading) {
 // only when the channel's first reading is decoded again; a frame emitted
 // before that (the channel's next readings dropped or later) would
 // otherwise miss a reading the uninterrupted run had.
-func (u *Unit) seeded(k int, f *stream.Frame) bool {
+//
+// live reports whether the seed may still be carried by a later frame
+// (not reached by f, not stale at its end). end is f's end,
+// f.Start + period, in ns (seedEnd).
+func (u *Unit) seeded(k int, f *stream.Frame, end int64) (use, live bool) {
 	if i := u.idx[k]; i >= 0 && i < len(f.Values) {
-		return false // the aligner has the channel, and its seed
+		return false, false // the aligner has the channel, and its seed
 	}
 	at := u.seedAt[k]
-	end := f.Start.Add(u.p.opt.Period).UnixNano()
-	return at != noReading && at < end && end-at <= int64(u.p.stale)
+	live = at != noReading && end-at <= int64(u.p.stale)
+	return live && at < end, live
 }
+
+// seedEnd returns the end of frame f in ns, the instant seeded compares
+// the seeds' event times with.
+func (u *Unit) seedEnd(f *stream.Frame) int64 { return f.Start.Add(u.p.opt.Period).UnixNano() }
 
 // carrySeeds gives the channels of frame f that seeded holds for the
 // checkpoint's carried reading, and returns how many. Once no seed can be
@@ -160,15 +168,14 @@ func (u *Unit) seeded(k int, f *stream.Frame) bool {
 // dropped. It allocates nothing.
 func (u *Unit) carrySeeds(f *stream.Frame) int {
 	n, live := 0, false
-	end := f.Start.Add(u.p.opt.Period).UnixNano()
-	for k, at := range u.seedAt {
-		if u.seeded(k, f) {
+	end := u.seedEnd(f)
+	for k := range u.seedAt {
+		use, l := u.seeded(k, f, end)
+		if use {
 			u.x[k], u.miss[k] = u.seedV[k], false
 			n++
 		}
-		if i := u.idx[k]; at != noReading && end-at <= int64(u.p.stale) && (i < 0 || i >= len(f.Values)) {
-			live = true
-		}
+		live = live || l
 	}
 	if !live {
 		u.seedV, u.seedAt = nil, nil

@@ -420,8 +420,9 @@ func (u *Unit) keepLast(f *stream.Frame) {
 		u.lastAt = slices.Grow(u.lastAt[:0], len(u.idx))[:len(u.idx)]
 	}
 	f.Gather(u.lastV, nil, u.lastAt, u.idx)
+	end := u.seedEnd(f)
 	for k := range u.seedAt {
-		if u.seeded(k, f) {
+		if use, _ := u.seeded(k, f, end); use {
 			u.lastV[k], u.lastAt[k] = u.seedV[k], u.seedAt[k]
 		}
 	}
