@@ -1,6 +1,10 @@
 package tracker
 
-import "math"
+import (
+	"math"
+
+	"gonum.org/v1/gonum/mat"
+)
 
 // SetScaleFloor sets the smallest standard deviation each channel is
 // standardized with, in channel units (sd nil or all zero: none; else
@@ -76,17 +80,16 @@ func (t *Tracker) scaleVar(i int) float64 {
 	return v
 }
 
-// corrTo writes the correlation A of the standardized channels into the
-// model (see SetScaleFloor; without a floor, EW.CorrTo).
-func (t *Tracker) corrTo(include []bool) {
-	m := t.mdl
-	t.ew.CorrTo(m.a, include)
+// corrTo writes the correlation A of the standardized channels into dst
+// (p × p; see SetScaleFloor; without a floor, EW.CorrTo).
+func (t *Tracker) corrTo(dst *mat.SymDense, include []bool) {
+	t.ew.CorrTo(dst, include)
 	if t.floor == nil {
 		return
 	}
 	// A of the raw variances, rescaled: Aᵢⱼ·σᵢσⱼ/(sᵢsⱼ), diagonal kept at 1.
 	e, n := t.ew, t.p
-	raw := m.a.RawSymmetric()
+	raw := dst.RawSymmetric()
 	r := e.s // 1/σᵢ from CorrTo, reused as the ratio σᵢ/sᵢ
 	for i := 0; i < n; i++ {
 		c := e.cov.Data[i*n+i]

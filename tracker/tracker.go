@@ -367,6 +367,8 @@ type Tracker struct {
 	calScale [3]float64 // empirical / theoretical at the base pattern
 
 	floor []float64 // variance floor per channel (SetScaleFloor), nil: none
+
+	next refreshNext // what a Refresh forms before it succeeds (refresh.go)
 }
 
 func (c *Config) defaults(p int) error {
@@ -796,15 +798,19 @@ func (t *Tracker) ContributionsTo(rbc, spe, t2 []float64) {
 // so do channels added by Grow until they have WarmUp frames),
 // refreshes the modes from it (warm-started) and recomputes the limits.
 // Step calls it every RefreshEvery learned frames. On error the previous
-// model is kept. It drops empirical limits set by Calibrate.
+// model is kept whole: its correlation, its channels, its modes and its
+// limits. It drops empirical limits set by Calibrate.
 func (t *Tracker) Refresh() error {
 	m := t.mdl
+	// The candidate correlation and channels are formed beside the model's
+	// and swapped in only once the modes are found.
+	nx := t.next.sized(t.p)
 	nEff := math.Inf(1)
 	any := false
 	for i := 0; i < t.p; i++ {
 		in := t.ew.Count(i) >= 2 && t.ew.Var(i) > 0 && !t.isStuck(i) &&
 			(i < t.p0 || t.ew.Count(i) >= float64(t.cfg.WarmUp))
-		m.include[i] = in
+		nx.include[i] = in
 		if in {
 			any = true
 			nEff = math.Min(nEff, t.ew.NEff(i))
@@ -813,13 +819,16 @@ func (t *Tracker) Refresh() error {
 	if !any {
 		return fmt.Errorf("%w: no channel has variance", ErrModel)
 	}
-	t.corrTo(m.include)
-	if err := t.ms.Refresh(m.a); err != nil {
+	t.corrTo(nx.a, nx.include)
+	if err := t.ms.Refresh(nx.a); err != nil {
 		return fmt.Errorf("%w: %w", ErrModel, err)
 	}
 	if t.ms.Count() == 0 {
+		t.ms.Revert()
 		return fmt.Errorf("%w: the correlation matrix gave no modes", ErrModel)
 	}
+	m.a, nx.a = nx.a, m.a
+	m.include, nx.include = nx.include, m.include
 	t.install(nEff)
 	return nil
 }

@@ -180,6 +180,7 @@ func (t *Set) UnmarshalBinary(data []byte) error {
 		}
 	}
 	t.cur, t.nxt = s, t.cur
+	t.undo = setUndo{}
 	t.have = r > 0
 	t.coldNext = false
 	t.nextID = int(nextID)

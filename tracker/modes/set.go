@@ -162,6 +162,7 @@ type Set struct {
 	nextID    int
 	trace     float64
 	iters     int
+	undo      setUndo // what the last successful Refresh replaced (Revert)
 
 	ax0      []float64
 	bx, bc   []float64
@@ -403,6 +404,34 @@ func (t *Set) Iterations() int { return t.iters }
 // current modes.
 func (t *Set) ColdNext() { t.coldNext = true }
 
+// setUndo is the state a successful Refresh replaced besides the modes
+// themselves (those stay in Set.nxt until the next Refresh).
+type setUndo struct {
+	ok                       bool
+	have, coldNext           bool
+	refreshes, nextID, iters int
+	trace                    float64
+}
+
+// Revert undoes the last successful Refresh: the modes, their identities,
+// the warm starts of the next Refresh and the counters return to what they
+// were before it. A caller that cannot use what a Refresh found (no modes
+// at all, say) reverts to keep its previous modes whole. It reports false,
+// changing nothing, if there is no Refresh to undo: none yet, or already
+// reverted, or the modes were restored by UnmarshalBinary since. It does
+// not allocate.
+func (t *Set) Revert() bool {
+	u := t.undo
+	if !u.ok {
+		return false
+	}
+	t.cur, t.nxt = t.nxt, t.cur
+	t.have, t.coldNext = u.have, u.coldNext
+	t.refreshes, t.nextID, t.iters, t.trace = u.refreshes, u.nextID, u.iters, u.trace
+	t.undo = setUndo{}
+	return true
+}
+
 // Refresh recomputes the modes for a new matrix a (p × p, symmetric positive
 // semidefinite), each warm-started from its previous loadings. On an error
 // the previous modes are kept unchanged. It does not allocate.
@@ -484,6 +513,8 @@ func (t *Set) Refresh(a *mat.SymDense) error {
 	for i := range ws.e {
 		ws.e[i] = 0
 	}
+	t.undo = setUndo{ok: true, have: t.have, coldNext: t.coldNext,
+		refreshes: t.refreshes, nextID: t.nextID, iters: t.iters, trace: t.trace}
 	t.matchIDs(nx)
 	nx.fillLoadings(t.p, m)
 	t.cur, t.nxt = nx, t.cur
