@@ -37,11 +37,11 @@ const (
 	// holds a name, a series key and a few counters per channel.
 	MaxChannelsCeiling = 100000
 	// DefaultUnitMaxChannels caps the channels of one unit's model. A
-	// unit's model needs about 34·p² + 6000·p bytes (measured, see the
-	// README), so 2000 channels fit in about 150 MB, and with one
+	// unit's model needs about 42·p² + 6000·p bytes (measured, see the
+	// README), so 2000 channels fit in about 180 MB, and with one
 	// checkpoint being written or received beside it in under 256 MiB.
 	DefaultUnitMaxChannels = 2000
-	// UnitMaxChannelsCeiling bounds model.max_channels (about 3.4 GB).
+	// UnitMaxChannelsCeiling bounds model.max_channels (about 4.2 GB).
 	UnitMaxChannelsCeiling = 10000
 
 	// DefaultSparsity is the sparse-mode constraint of every mode: at most

@@ -11,17 +11,20 @@ import (
 )
 
 // UnitModelBytes estimates the memory of a unit's model of p channels in
-// bytes: 34·p² + 6000·p. The coefficients are fitted to the live heap of a
+// bytes: 42·p² + 6000·p. The coefficients are fitted to the live heap of a
 // tracker after warm-up with the default settings (p = 400, 800, 1600:
 // 5.1, 15.8 and 54.5 MB without the residual statistic; with it, the
 // default since model.statistics gained res, 7.8 and 26.3 MB at p = 400
-// and 800), and the test TestUnitModelBytes checks them again. The p²
-// term is the covariance, the correlation, the refresh workspace (18·p²)
-// and the residual statistic's factor and its inverse (16·p²); a
-// checkpoint of the unit adds about 9·p² while it is written.
+// and 800; with the refresh's candidate correlation, 8·p² more, 9.2 and
+// 31.5 MB), and the test TestUnitModelBytes checks them again. The p²
+// term is the covariance, the correlation and the candidate a refresh
+// forms beside it (so that a failed refresh keeps the model whole), the
+// refresh workspace (18·p²) and the residual statistic's factor and its
+// inverse (16·p²); a checkpoint of the unit adds about 9·p² while it is
+// written.
 func UnitModelBytes(p int) int64 {
 	q := int64(p)
-	return 34*q*q + 6000*q
+	return 42*q*q + 6000*q
 }
 
 // maxStateBytes bounds the size of a tracker state of p channels (the
