@@ -7,6 +7,7 @@ import (
 	"time"
 
 	"modewatch/alerts"
+	"modewatch/stream"
 	"modewatch/tracker"
 )
 
@@ -92,7 +93,8 @@ const screenRunBytes = (alerts.MaxSpikeCount+2)*25 + 256
 
 // checkUnitCaps checks the sizes a model unit asks for against the unit's
 // channel cap before anything is built from it: the channel count, the
-// names, the carried readings, and the tracker state's own channel count
+// names, the carried readings (their channels and their event times, within
+// stream.MinTime to stream.MaxTime), and the tracker state's own channel count
 // and length. Nothing is allocated.
 func checkUnitCaps(mu *ModelUnit, maxChannels int) error {
 	p := len(mu.Channels)
@@ -140,6 +142,12 @@ func checkUnitCaps(mu *ModelUnit, maxChannels int) error {
 	for i, r := range mu.Last {
 		if _, ok := seen[r.Channel]; !ok {
 			return fmt.Errorf("%w: unit %.64q: carried reading %d names channel %.64q, not one of the unit's", ErrModelFile, mu.Name, i, r.Channel)
+		}
+		// A reading the aligner could not have carried, and one whose
+		// nanoseconds would not fit an int64 (the seeds are compared in ns).
+		if r.Time.Before(stream.MinTime) || r.Time.After(stream.MaxTime) {
+			return fmt.Errorf("%w: unit %.64q: carried reading %d of channel %.64q at %s: %w (%s to %s)", ErrModelFile, mu.Name, i, r.Channel,
+				r.Time.Format(time.RFC3339Nano), stream.ErrTimeRange, stream.MinTime.Format(time.DateOnly), stream.MaxTime.Format(time.DateOnly))
 		}
 	}
 	for i, r := range mu.Screen {

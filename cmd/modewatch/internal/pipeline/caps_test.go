@@ -112,6 +112,17 @@ func restoreBody(t testing.TB, body []byte, cfg *configs.Config, ch *stream.Chan
 	return err, m1.TotalAlloc - m0.TotalAlloc
 }
 
+// withLastAt dates m's first carried reading at; it adds one for the
+// unit's first channel if m carries none.
+func withLastAt(m *ModelFile, at time.Time) *ModelFile {
+	mu := &m.Units[0]
+	if len(mu.Last) == 0 {
+		mu.Last = []LastReading{{Channel: mu.Channels[0], Value: 1}}
+	}
+	mu.Last[0].Time = at
+	return m
+}
+
 // TestHostileCheckpoints: unit checkpoints made to hurt (a huge channel
 // list, huge dimensions in the tracker state, NaN, truncation, corrupt
 // bytes) are refused with their reason, leave no unit behind, and the
@@ -191,6 +202,14 @@ func TestHostileCheckpoints(t *testing.T) {
 			m.Units[0].Last = append(m.Units[0].Last, LastReading{Channel: "nobody", Value: 1})
 			return enc(m)
 		}, "not one of the unit's"},
+		// Event times whose nanoseconds do not fit an int64 (before 1678,
+		// after 2262), and the zero time (year 1): refused, never used as
+		// a seed.
+		{"carried reading in 1600", func() []byte { return enc(withLastAt(clone(), time.Date(1600, 1, 1, 0, 0, 0, 0, time.UTC))) },
+			"event time out of range"},
+		{"carried reading in 2300", func() []byte { return enc(withLastAt(clone(), time.Date(2300, 1, 1, 0, 0, 0, 0, time.UTC))) },
+			"event time out of range"},
+		{"carried reading at the zero time", func() []byte { return enc(withLastAt(clone(), time.Time{})) }, "at 0001-01-01T00:00:00Z"},
 		{"screen run of a stranger", func() []byte {
 			m := clone()
 			m.Units[0].Screen = []alerts.ChannelRun{{Channel: "nobody", Flat: 3}}
