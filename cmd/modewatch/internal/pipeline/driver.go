@@ -74,6 +74,8 @@ type ReplayOptions struct {
 	Baseline *ModelFile
 	// Fit weighs every frame equally unless FitHalfLife.
 	Fit, FitHalfLife bool
+	// OwnStateModes: see Options.OwnStateModes.
+	OwnStateModes bool
 	// Publisher receives alert records; nil discards them.
 	Publisher alerts.Publisher
 	// OnScore is called per unit and frame.
@@ -142,7 +144,7 @@ func Replay(ctx context.Context, opt ReplayOptions) (*ReplayResult, error) {
 	}
 	pl, err := New(Options{
 		Config: cfg, Channels: chans, Period: res.Period, Publisher: opt.Publisher, OnScore: opt.OnScore,
-		Baseline: opt.Baseline, Fit: opt.Fit, FitHalfLife: opt.FitHalfLife, Log: log, Keep: opt.Keep,
+		Baseline: opt.Baseline, Fit: opt.Fit, FitHalfLife: opt.FitHalfLife, OwnStateModes: opt.OwnStateModes, Log: log, Keep: opt.Keep,
 	})
 	if err != nil {
 		return nil, err

@@ -40,6 +40,10 @@ type Options struct {
 	// the half-life was set explicitly (FitHalfLife).
 	Fit         bool
 	FitHalfLife bool
+	// OwnStateModes leaves each operating state's mode count to its own
+	// Share rule when fitting; the default (false) lets fit give the states
+	// a shared floor where their counts differ (see alignStateModes).
+	OwnStateModes bool
 	// Log receives unit events; nil discards them.
 	Log *slog.Logger
 	// Keep, if set, selects the frames by start time: a frame for which it

@@ -98,8 +98,14 @@ func qFit(t *testing.T, cfg *configs.Config) *ModelFile {
 // file.
 func fitBytes(t testing.TB, cfg *configs.Config, data []byte) *ModelFile {
 	t.Helper()
-	res, err := Replay(context.Background(), ReplayOptions{Config: cfg, Inputs: []string{"-"},
-		Stdin: bytes.NewReader(data), Fit: true})
+	return fitWith(t, ReplayOptions{Config: cfg}, data)
+}
+
+// fitWith is fitBytes with further replay options.
+func fitWith(t testing.TB, opt ReplayOptions, data []byte) *ModelFile {
+	t.Helper()
+	opt.Inputs, opt.Stdin, opt.Fit = []string{"-"}, bytes.NewReader(data), true
+	res, err := Replay(context.Background(), opt)
 	if err != nil {
 		t.Fatal(err)
 	}

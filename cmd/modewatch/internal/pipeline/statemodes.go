@@ -40,10 +40,6 @@ const (
 	stateModesRatio = 2
 )
 
-// ShareStateModes turns the shared floor on (fit); false leaves each
-// state's count to its own Share rule, as before.
-var ShareStateModes = true
-
 // stateModesConfig applies the states' floor on the mode count to a state
 // tracker's configuration (automatic count only).
 func (u *Unit) stateModesConfig(cfg *tracker.Config) {
@@ -69,10 +65,11 @@ func floorModes(cfg *tracker.Config, floor int) {
 // the warm-started modes of units it leaves alone), takes the largest of
 // their counts as the floor of all and rebuilds
 // the modes of each state under it, when the counts differ by a factor
-// stateModesRatio or more. It reports the floor (0: none set).
+// stateModesRatio or more, unless the engine leaves each state its own
+// count (Options.OwnStateModes). It reports the floor (0: none set).
 func (u *Unit) alignStateModes() int {
 	s := u.states
-	if !ShareStateModes || s == nil || len(s.models) < 2 {
+	if u.p.opt.OwnStateModes || s == nil || len(s.models) < 2 {
 		return 0
 	}
 	warm := uint64(u.tr.Config().WarmUp)

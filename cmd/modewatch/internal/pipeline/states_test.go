@@ -1008,7 +1008,7 @@ func wPlant(from, to int, warm func(k int) float64, stuck func(k int) bool, seed
 // states. Over a test day that runs warmer than the normal day (by up to
 // 2.5 σ of the river's normal wander) no model alert starts while the pump
 // stands by, and a river sensor frozen at a live value is still flagged
-// stuck. With each state counting its own modes (ShareStateModes off) the
+// stuck. With each state counting its own modes (OwnStateModes) the
 // stopped state keeps 3 modes, leaves river readings in its residual and
 // the same day alerts there, led by the river (behaviour test; the
 // water-works realism plant showed the same on its raw-water unit).
@@ -1018,11 +1018,8 @@ func TestStateModesShared(t *testing.T) {
 	stuck := func(k int) bool { return k >= day+5000 && k < day+5600 }
 	run := func(share bool) (stopped, all int, stuckAlert bool, m *ModelFile) {
 		t.Helper()
-		old := ShareStateModes
-		ShareStateModes = share
-		defer func() { ShareStateModes = old }()
 		cfg := sConfig(t, "")
-		m = fitBytes(t, cfg, wPlant(0, day, nil, nil, 1))
+		m = fitWith(t, ReplayOptions{Config: cfg, OwnStateModes: !share}, wPlant(0, day, nil, nil, 1))
 		replayIncidents(t, cfg, m, wPlant(day, 2*day, warm, stuck, 2), func(r *alerts.Record) {
 			if r.Quality != nil && r.Quality.Kind == alerts.QualityStuck && r.Quality.Channel == "r.river.temp" {
 				stuckAlert = true
@@ -1063,7 +1060,7 @@ func TestStateModesShared(t *testing.T) {
 	sf = m0.Units[0].States
 	t.Logf("own counts: modes per state %d, %d; %d model alerts, %d while stopped", len(sf.Models[0].Modes), len(sf.Models[1].Modes), all0, n0)
 	if sf.MinModes != 0 {
-		t.Errorf("ShareStateModes off: floor %d saved", sf.MinModes)
+		t.Errorf("OwnStateModes: floor %d saved", sf.MinModes)
 	}
 	if n0 == 0 {
 		t.Error("with each state's own count the warm day raised no alert while the pump stands by either: the test shows nothing")
