@@ -7,6 +7,7 @@ import (
 	"io"
 	"strings"
 
+	"modewatch/alerts"
 	"modewatch/cmd/modewatch/internal/pipeline"
 )
 
@@ -141,6 +142,7 @@ func runFit(ctx context.Context, env IO, args []string) error {
 				printModes(env.Out, u.Name, "    ", s.Modes)
 			}
 		}
+		printSpikes(env.Out, u.Name, "  ", u.Quality)
 		for _, s := range u.Suggested {
 			fmt.Fprintf(env.Out, "  context suggestion: %s (unit %s) explains %.0f%% of this unit's variance; list it in units[].context if it drives this unit\n",
 				s.Channel, s.Unit, 100*s.Share)
@@ -170,4 +172,33 @@ func printModes(w io.Writer, unit, indent string, modes []pipeline.ModeView) {
 		}
 		fmt.Fprintf(w, "%smode %d (%4.1f%%): %s\n", indent, m.ID, 100*m.VarianceShare, strings.Join(parts, ", "))
 	}
+}
+
+// printSpikes prints the spike sizes the unit's normal log taught (see
+// alerts.SpikeLearner) on one line: per channel, the least departure from
+// both neighbours that makes a reading a spike, in the channel's unit, and
+// the most spikes the log had within alerts.SpikeSpan; then the channels
+// without a spike rule (log too short, never changed, or spiky by nature).
+// Nothing is printed for a unit without profiles.
+func printSpikes(w io.Writer, unit, indent string, profiles []alerts.ChannelProfile) {
+	var with, without []string
+	for _, p := range profiles {
+		name := strings.TrimPrefix(p.Channel, unit+".")
+		if p.SpikeSize > 0 {
+			with = append(with, fmt.Sprintf("%s %.4g (%d)", name, p.SpikeSize, p.SpikeMax))
+		} else {
+			without = append(without, name)
+		}
+	}
+	if len(with)+len(without) == 0 {
+		return
+	}
+	line := fmt.Sprintf("%sspike sizes (most spikes of the normal log within %s): %s", indent, alerts.SpikeSpan, strings.Join(with, ", "))
+	if len(with) == 0 {
+		line += "none"
+	}
+	if len(without) > 0 {
+		line += "; no spike rule: " + strings.Join(without, ", ")
+	}
+	fmt.Fprintln(w, line)
 }

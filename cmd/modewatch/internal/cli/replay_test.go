@@ -439,6 +439,9 @@ func TestFitBudget(t *testing.T) {
 	if !strings.Contains(out, "budget 0.25 false alerts/day: limits ×") || !strings.Contains(out, "days of normal log needed") {
 		t.Errorf("summary lacks the calibration or the too-short warning:\n%s", out)
 	}
+	if !strings.Contains(out, "spike sizes (most spikes of the normal log within 1h0m0s): ") {
+		t.Errorf("summary lacks the learned spike sizes:\n%s", out)
+	}
 	mf, err := pipeline.ReadModel(model)
 	if err != nil {
 		t.Fatal(err)

@@ -1,0 +1,36 @@
+package cli
+
+import (
+	"bytes"
+	"testing"
+
+	"modewatch/alerts"
+)
+
+// fit prints per unit the spike sizes its normal log taught, channel names
+// without the unit, and the channels with no spike rule.
+func TestPrintSpikes(t *testing.T) {
+	cases := []struct {
+		name     string
+		profiles []alerts.ChannelProfile
+		want     string
+	}{
+		{"mixed", []alerts.ChannelProfile{
+			{Channel: "u.flow", SpikeSize: 2.3237, SpikeMax: 1, SpikeSpanFrames: 180},
+			{Channel: "u.state"},
+			{Channel: "u.temp", SpikeSize: 0.076791, SpikeMax: 0, SpikeSpanFrames: 180},
+		}, "  spike sizes (most spikes of the normal log within 1h0m0s): flow 2.324 (1), temp 0.07679 (0); no spike rule: state\n"},
+		{"none learned", []alerts.ChannelProfile{{Channel: "u.state"}},
+			"  spike sizes (most spikes of the normal log within 1h0m0s): none; no spike rule: state\n"},
+		{"no profiles", nil, ""},
+	}
+	for _, c := range cases {
+		t.Run(c.name, func(t *testing.T) {
+			var b bytes.Buffer
+			printSpikes(&b, "u", "  ", c.profiles)
+			if b.String() != c.want {
+				t.Errorf("got  %q\nwant %q", b.String(), c.want)
+			}
+		})
+	}
+}
