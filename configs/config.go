@@ -27,6 +27,7 @@ import (
 const (
 	DefaultStateDir           = "modewatch-data"
 	DefaultPrefix             = "modewatch"
+	DefaultClientName         = "modewatch"
 	DefaultCheckpointInterval = 5 * time.Minute
 	DefaultShutdownTimeout    = 15 * time.Second
 	DefaultLogFormat          = "text"
@@ -44,12 +45,12 @@ const (
 	// UnitMaxChannelsCeiling bounds model.max_channels (about 4.2 GB).
 	UnitMaxChannelsCeiling = 10000
 
-	// DefaultSparsity is the sparse-mode constraint of every mode: at most
-	// 6 channels per mode (l0-constrained, truncated power method).
+	// DefaultSparsity is the sparse-mode constraint of every mode: an l0
+	// constraint, at most K channels per mode (truncated power method).
 	DefaultSparsity = "l0:6"
 	// DefaultModes chooses the number of modes as the smallest r whose
-	// adjusted variance reaches 80 % of the total (common practice for PCA
-	// monitoring is a 70-90 % cumulative-variance rule).
+	// adjusted variance reaches the given share of the total (common
+	// practice for PCA monitoring is a 70-90 % cumulative-variance rule).
 	DefaultModes = "auto:0.8"
 	// DefaultMaxModes caps the automatic choice of the number of modes
 	// (the tracker's).
@@ -116,12 +117,13 @@ type Config struct {
 	// HTTP is the HTTP API (health, metrics, units, alerts).
 	HTTP HTTP `yaml:"http"`
 	// StateDir holds checkpoints, the embedded server's JetStream store and
-	// the delivery spools. Default "modewatch-data".
+	// the delivery spools. Default [DefaultStateDir].
 	StateDir string `yaml:"state_dir"`
 	// CheckpointInterval is the time between checkpoints of every unit
-	// (wall clock). Default 5m.
+	// (wall clock). Default [DefaultCheckpointInterval].
 	CheckpointInterval time.Duration `yaml:"checkpoint_interval"`
-	// ShutdownTimeout bounds a graceful shutdown. Default 15s.
+	// ShutdownTimeout bounds a graceful shutdown. Default
+	// [DefaultShutdownTimeout].
 	ShutdownTimeout time.Duration `yaml:"shutdown_timeout"`
 	// Log configures log/slog output.
 	Log Log `yaml:"log"`
@@ -139,7 +141,8 @@ type Config struct {
 type Server struct {
 	// URLs of the NATS servers ("nats://host:4222"). Empty: embedded server.
 	URLs []string `yaml:"urls"`
-	// Name of the client connection, shown by the server. Default "modewatch".
+	// Name of the client connection, shown by the server. Default
+	// [DefaultClientName].
 	Name            string `yaml:"name"`
 	User            string `yaml:"user"`
 	Password        string `yaml:"password"`
@@ -148,7 +151,7 @@ type Server struct {
 	CredentialsFile string `yaml:"credentials_file"`
 	TLS             TLS    `yaml:"tls"`
 	// Prefix of the subjects the service publishes on:
-	// <prefix>.alerts.<unit>, <prefix>.scores.<unit>. Default "modewatch".
+	// <prefix>.alerts.<unit>, <prefix>.scores.<unit>. Default [DefaultPrefix].
 	Prefix string `yaml:"prefix"`
 	// EmbeddedPort is the port of the embedded server (used only without
 	// URLs). 0 picks the NATS default 4222; -1 picks a free port.
@@ -186,12 +189,12 @@ type Intake struct {
 	// StallExit: when no readings can be consumed for this long (NATS
 	// connection down or refused, consumer gone and not recreated), the
 	// service exits with status 1 so that a supervisor restarts it.
-	// Default 10m; "off" never exits (readiness still says so).
+	// Default [DefaultStallExit]; "off" never exits (readiness still says so).
 	StallExit StallExit `yaml:"stall_exit"`
 	// Queue bounds the core-NATS messages waiting to be decoded; a message
 	// beyond either bound is dropped and counted (JetStream slows intake
-	// instead). Zero means the default of the message source (4096
-	// messages, 64 MiB).
+	// instead). Zero means the default of the message source
+	// (natsource.DefaultQueueMsgs and natsource.DefaultQueueBytes).
 	Queue Queue `yaml:"queue"`
 }
 
@@ -210,7 +213,7 @@ type JetStream struct {
 	Subjects []string `yaml:"subjects"`
 	// MaxAge and MaxBytes limit a stream the service creates: older
 	// readings, and the oldest beyond the size, are removed by the
-	// server. Defaults 7d and 1 GiB (see DefaultStreamMaxAge). An
+	// server. Defaults [DefaultStreamMaxAge] and [DefaultStreamMaxBytes]. An
 	// existing stream keeps its own limits.
 	MaxAge   time.Duration `yaml:"max_age"`
 	MaxBytes int64         `yaml:"max_bytes"`
@@ -250,17 +253,19 @@ type Frames struct {
 	// Period of a frame. 0: inferred from the data (median spacing).
 	Period time.Duration `yaml:"period"`
 	// Staleness: a channel's latest value older than this is missing.
-	// Default 3 periods.
+	// Default: the aligner's (stream.AlignConfig).
 	Staleness time.Duration `yaml:"staleness"`
 	// Lateness allowed after a frame's end before it is emitted; data
-	// arriving later is counted as late and dropped. Default 1 period.
+	// arriving later is counted as late and dropped. Default: the
+	// aligner's (stream.AlignConfig).
 	Lateness time.Duration `yaml:"lateness"`
-	// ClockJump: a gap in event time over this ends the segment. Default
-	// 100 periods.
+	// ClockJump: a gap in event time over this ends the segment. Default:
+	// the aligner's (stream.AlignConfig).
 	ClockJump time.Duration `yaml:"clock_jump"`
-	// Precision of line-protocol timestamps: ns, us, ms or s. Default ns.
+	// Precision of line-protocol timestamps: ns, us, ms or s. Default
+	// [DefaultPrecision].
 	Precision string `yaml:"precision"`
-	// MaxChannels caps auto-discovery. Default 10000.
+	// MaxChannels caps auto-discovery. Default [DefaultMaxChannels].
 	MaxChannels int `yaml:"max_channels"`
 }
 
@@ -301,28 +306,30 @@ type Model struct {
 	// Sparsity of every mode:
 	// none|l0:K|l1:S|l0pen:G|l1pen:G|l1sqrt:G|logpen:G[,EPS]|exppen:G[,EPS].
 	// K above the unit's channel count (S above √p) is lowered to it.
-	// Default "l0:6".
+	// Default [DefaultSparsity].
 	Sparsity string `yaml:"sparsity"`
 	// Modes: a fixed count "N" or "auto:SHARE" (smallest r reaching that
-	// share of the total variance). Default "auto:0.8".
+	// share of the total variance). Default [DefaultModes].
 	Modes ModeCount `yaml:"modes"`
-	// MaxModes caps the automatic choice. Default 10.
+	// MaxModes caps the automatic choice. Default [DefaultMaxModes].
 	MaxModes int `yaml:"max_modes"`
-	// HalfLife of the exponential weights. Default 7d.
+	// HalfLife of the exponential weights. Default [DefaultHalfLife].
 	HalfLife time.Duration `yaml:"halflife"`
 	// Alpha is the per-frame false-alarm rate of each limit, in (0, 0.5).
-	// Default 0.01.
+	// Default [DefaultAlpha].
 	Alpha float64 `yaml:"alpha"`
 	// Adapt says whether the model goes on learning. Default true.
 	Adapt *bool `yaml:"adapt"`
 	// Limits: "theory" (F / Box) or "empirical:FILE" (quantiles of a
 	// reference log). Default theory.
 	Limits Limits `yaml:"limits"`
-	// RefreshEvery frames the sparse modes are refreshed. Default 64.
+	// RefreshEvery frames the sparse modes are refreshed. Default
+	// [DefaultRefreshEvery].
 	RefreshEvery int `yaml:"refresh_every"`
 	// Robust is the Huber constant of the bounded-influence learning
 	// weight: a frame whose distance √(φ/φ_limit) exceeds it is learned
-	// with weight robust/distance. Zero: the tracker's default; negative:
+	// with weight robust/distance. Zero: the tracker's default
+	// ([tracker.DefaultRobust]); negative:
 	// every frame learned with full weight.
 	Robust float64 `yaml:"robust"`
 	// ScoreLag: each frame is learned this long (plant time) after it was
@@ -337,16 +344,17 @@ type Model struct {
 	// negative: no floor.
 	ResolutionFloor float64 `yaml:"resolution_floor"`
 	// WarmUp frames are learned before scores are reported. Default
-	// tracker.DefaultWarmUp (500).
+	// [DefaultWarmUp] (the tracker's).
 	WarmUp int `yaml:"warmup"`
 	// File is a fitted model (from "modewatch fit") to start from.
 	File string `yaml:"file"`
 	// MaxChannels caps the channels of the unit's model; a channel beyond
-	// it is refused, logged once and counted. Default 2000.
+	// it is refused, logged once and counted. Default
+	// [DefaultUnitMaxChannels].
 	MaxChannels int `yaml:"max_channels"`
 	// Statistics lists the statistics whose alarms open an alert:
 	// t2, spe, phi, res (residual Mahalanobis), var (per-channel
-	// variance), rel (relation modes). Default DefaultStatistics.
+	// variance), rel (relation modes). Default [DefaultStatistics].
 	Statistics string `yaml:"statistics"`
 	// Smoothing is the EWMA weight λ in (0, 1) applied to each alarm
 	// statistic's ratio to its limit before the alarm rule (a remedy for
@@ -357,7 +365,7 @@ type Model struct {
 	// auto) scores a frame: "posterior" (every state's model, weighted by
 	// the frame's posterior probability of the state; Yu & Qin 2008) or
 	// "most_probable" (the most probable state's model alone). Default
-	// tracker.DefaultStateScoring.
+	// [tracker.DefaultStateScoring].
 	StateScoring string `yaml:"state_scoring"`
 	// Lags is the number of lagged copies of the channels the model sees
 	// (dynamic modes, Ku, Storer & Georgakis 1995): each frame is modelled
@@ -376,7 +384,7 @@ type Alerts struct {
 	// fit calibrates each unit's thresholds to (by running the alarm rule
 	// over held-out normal data). It wins over alpha: alpha then only
 	// shapes the base limits that the calibrated scale multiplies.
-	// Default DefaultBudget; negative turns the calibration off (the
+	// Default [DefaultBudget]; negative turns the calibration off (the
 	// limits stay those of alpha).
 	Budget float64 `yaml:"budget"`
 	// BudgetPerStatistic: the budget calibration gives every alarm
@@ -388,25 +396,29 @@ type Alerts struct {
 	// for one more detection (README, Validation).
 	BudgetPerStatistic *bool `yaml:"budget_per_statistic"`
 	// OnDelay: active when over the limit in N of the last M frames
-	// (1 ≤ N ≤ M ≤ 64). Default 3 of 5.
+	// (1 ≤ N ≤ M ≤ 64). Default [DefaultOnDelayN] of [DefaultOnDelayM].
 	OnDelay OnDelay `yaml:"on_delay"`
-	// OnSpan is the least plant time the default on-delay window (3 of 5
-	// frames) spans: at short frame periods M grows to cover it, and N in
-	// proportion (alerts.SpanOnDelay). Another on_delay is taken as given
-	// unless on_span is set too. Zero: alerts.DefaultOnSpan.
+	// OnSpan is the least plant time the default on-delay window spans: at
+	// short frame periods M grows to cover it, and N in proportion
+	// ([alerts.SpanOnDelay]). Another on_delay is taken as given unless
+	// on_span is set too. Zero: [alerts.DefaultOnSpan].
 	OnSpan time.Duration `yaml:"on_span"`
 	// OffDelay: time below limit minus deadband before going back to normal.
+	// Default [DefaultOffDelay].
 	OffDelay time.Duration `yaml:"off_delay"`
-	// Deadband as a fraction of the limit, in [0, 1). Default 0.05.
+	// Deadband as a fraction of the limit, in [0, 1). Default
+	// [DefaultDeadband].
 	Deadband float64 `yaml:"deadband"`
-	// Severity bands by ratio statistic/limit, ascending. Default
-	// low ≥ 1, medium ≥ 2, high ≥ 4.
+	// Severity bands by ratio statistic/limit, ascending. Default: the
+	// bands of [DefaultAlerts] (low, medium, high).
 	Severity []SeverityBand `yaml:"severity"`
 	// Flood: more than Count new alerts of a unit within Window are grouped
-	// into one flood alert. Default 10 in 10m.
+	// into one flood alert. Default [DefaultFloodCount] in
+	// [DefaultFloodWindow].
 	Flood RateRule `yaml:"flood"`
 	// Chatter: Count activations of one alarm within Window make it
-	// chattering (suppressed and reported). Default 3 in 1m.
+	// chattering (suppressed and reported). Default [DefaultChatterCount]
+	// in [DefaultChatterWindow].
 	Chatter RateRule `yaml:"chattering"`
 	// FreezeOnAlert freezes a unit's learning while an alert is active.
 	// Default true.
@@ -423,8 +435,8 @@ type Alerts struct {
 	// AcceptAfter is the bounded hold: an incident whose statistics stay
 	// flat (no growth) this long of plant time is taken as the new normal
 	// and its channels are learned again. Zero: the alarm engine's default
-	// (4h, chosen on the realism suite); a very long one (8760h) in effect
-	// never.
+	// ([alerts.DefaultAcceptAfter], chosen on the realism suite); a very
+	// long one (8760h) in effect never.
 	AcceptAfter time.Duration `yaml:"accept_after"`
 	// BeyondIncidents: while a unit has open incidents, each frame is also
 	// scored with their channels reconstructed from the others (Dunia &
@@ -438,27 +450,27 @@ type Alerts struct {
 	// LocationQuiet: an incident whose location has had no channel over
 	// its own contribution limit this long of plant time, while the unit
 	// stays in alarm for another incident, ends. Zero: the alarm engine's
-	// default (15m, alerts.DefaultLocationQuiet).
+	// default ([alerts.DefaultLocationQuiet]).
 	LocationQuiet time.Duration `yaml:"location_quiet"`
 	// ReopenWithin: a model incident that returned to normal re-opens
 	// under its id, instead of a new alert, when its unit goes into alarm
 	// again within this time of plant time on a frame that names no place
 	// of its own (see specific_share): the same unit-wide disturbance
-	// re-alarming. Zero: the alarm engine's default (2h,
-	// alerts.DefaultReopenWithin); a very short one (1s) in effect never.
+	// re-alarming. Zero: the alarm engine's default
+	// ([alerts.DefaultReopenWithin]); a very short one (1s) in effect never.
 	ReopenWithin time.Duration `yaml:"reopen_within"`
 	// SpecificShare: a frame names a place of its own (may open an
 	// incident at a new location of a unit in alarm) only when its leading
 	// channel alone explains at least this share of the index (its
 	// reconstruction-based contribution over the index). Zero: the alarm
-	// engine's default (0.25, alerts.DefaultSpecificShare); a tiny one
+	// engine's default ([alerts.DefaultSpecificShare]); a tiny one
 	// (1e-9) in effect every frame with a channel over its limit.
 	SpecificShare float64 `yaml:"specific_share"`
 	// AcceptWeight is the weight of an accepted incident's state in the
 	// unit's normal experience: the state joins the learned covariance
 	// beside the old normal, so the incident closes and a return to the
-	// old operating point raises nothing. Zero: the default (0.2,
-	// pipeline.DefaultAcceptWeight); negative: the means of the accepted
+	// old operating point raises nothing. Zero: the engine's default
+	// (pipeline.DefaultAcceptWeight); negative: the means of the accepted
 	// channels move to their current level instead.
 	AcceptWeight float64 `yaml:"accept_weight"`
 }
@@ -496,15 +508,15 @@ type Delivery struct {
 	// Default <state_dir>/spool.
 	SpoolDir string `yaml:"spool_dir"`
 	// Queue is the bounded queue length of each delivery target.
-	// Default 1024.
+	// Default [DefaultDeliveryQueue].
 	Queue int `yaml:"queue"`
 }
 
 // Log configures logging.
 type Log struct {
-	// Format: text or json. Default text.
+	// Format: text or json. Default [DefaultLogFormat].
 	Format string `yaml:"format"`
-	// Level: debug, info, warn or error. Default info.
+	// Level: debug, info, warn or error. Default [DefaultLogLevel].
 	Level string `yaml:"level"`
 }
 
@@ -512,7 +524,7 @@ type Log struct {
 // Unit overrides are left empty (they inherit); use UnitModel and
 // UnitAlerts for a unit's effective settings.
 func (c *Config) ApplyDefaults() {
-	c.Server.Name = cmp.Or(c.Server.Name, "modewatch")
+	c.Server.Name = cmp.Or(c.Server.Name, DefaultClientName)
 	c.Server.Prefix = cmp.Or(c.Server.Prefix, DefaultPrefix)
 	if len(c.Intake.Subjects) == 0 && c.Intake.JetStream.Stream == "" && len(c.Intake.Files) == 0 {
 		c.Intake.Subjects = []string{c.Server.Prefix + ".readings.>"}
@@ -539,12 +551,21 @@ func (c *Config) ApplyDefaults() {
 	c.applyClusterDefaults()
 }
 
+// defaultModeCount is DefaultModes parsed.
+var defaultModeCount = func() ModeCount {
+	m, err := ParseModeCount(DefaultModes)
+	if err != nil {
+		panic("configs: DefaultModes: " + err.Error())
+	}
+	return m
+}()
+
 // DefaultModel returns the default model settings.
 func DefaultModel() Model {
 	adapt := true
 	return Model{
 		Sparsity:     DefaultSparsity,
-		Modes:        ModeCount{Share: 0.8},
+		Modes:        defaultModeCount,
 		MaxModes:     DefaultMaxModes,
 		HalfLife:     DefaultHalfLife,
 		Alpha:        DefaultAlpha,

@@ -2,6 +2,7 @@ package configs_test
 
 import (
 	"fmt"
+	"reflect"
 	"strings"
 	"testing"
 
@@ -81,4 +82,48 @@ func TestExampleStatesDefaults(t *testing.T) {
 			}
 		}
 	}
+}
+
+// TestExampleWritesTheDefaults: the example's model and alerts sections
+// (every unit's defaults) write out exactly the defaults: DefaultModel and
+// DefaultAlerts, with each field whose zero means "the owning package's
+// default" taken from that package, so that a default chosen again in code
+// is not left behind in the example. The pipeline's own (resolution_floor,
+// accept_weight) are checked in its package.
+func TestExampleWritesTheDefaults(t *testing.T) {
+	c, err := configs.Load("modewatch.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	m := configs.DefaultModel()
+	m.Robust = tracker.DefaultRobust
+	m.ResolutionFloor = c.Model.ResolutionFloor
+	a := configs.DefaultAlerts()
+	a.AcceptAfter, a.LocationQuiet, a.ReopenWithin = alerts.DefaultAcceptAfter, alerts.DefaultLocationQuiet, alerts.DefaultReopenWithin
+	a.SpecificShare = alerts.DefaultSpecificShare
+	a.AcceptWeight = c.Alerts.AcceptWeight
+	// Unset, these switches mean: learn around an alert, an incident per
+	// location, one budget scale, no scoring beyond the incidents.
+	on, off := true, false
+	a.LearnAroundAlert, a.IncidentsPerLocation, a.BudgetPerStatistic, a.BeyondIncidents = &on, &on, &off, &off
+	for _, x := range []struct {
+		section   string
+		got, want any
+	}{{"model", c.Model, m}, {"alerts", c.Alerts, a}} {
+		g, w := reflect.ValueOf(x.got), reflect.ValueOf(x.want)
+		for i := range g.NumField() {
+			if !reflect.DeepEqual(g.Field(i).Interface(), w.Field(i).Interface()) {
+				t.Errorf("%s.%s: the example writes %v, the default is %v", x.section, g.Type().Field(i).Name,
+					fmtField(g.Field(i)), fmtField(w.Field(i)))
+			}
+		}
+	}
+}
+
+// fmtField shows a settings field, the value behind a pointer.
+func fmtField(v reflect.Value) any {
+	if v.Kind() == reflect.Pointer && !v.IsNil() {
+		return v.Elem().Interface()
+	}
+	return v.Interface()
 }

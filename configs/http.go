@@ -73,13 +73,14 @@ type HTTP struct {
 	// (anyone who reaches the port may acknowledge, shelve and replace
 	// checkpoints). Logged as a warning at every start.
 	OpenAccess bool `yaml:"open_access"`
-	// ReadTimeout, WriteTimeout and IdleTimeout of the server.
-	// Defaults 2m, 2m, 2m.
+	// ReadTimeout, WriteTimeout and IdleTimeout of the server. Defaults
+	// [DefaultHTTPReadTimeout], [DefaultHTTPWriteTimeout] and
+	// [DefaultHTTPIdleTimeout].
 	ReadTimeout  time.Duration `yaml:"read_timeout"`
 	WriteTimeout time.Duration `yaml:"write_timeout"`
 	IdleTimeout  time.Duration `yaml:"idle_timeout"`
 	// LargeRequests is how many checkpoint uploads or downloads are served
-	// at once; more are answered 429. Default 1.
+	// at once; more are answered 429. Default [DefaultHTTPLargeRequests].
 	LargeRequests int `yaml:"large_requests"`
 }
 
