@@ -239,28 +239,59 @@ func (e *Engine) snapshotOf(us []*unit, only string) *snapshot {
 		}
 	}
 	for inc := range incs {
-		si := snapIncident{
-			ID: inc.id, Kind: inc.kind, Start: inc.start, End: inc.end, Ended: inc.ended, Updated: inc.updated,
-			Peak: inc.peak, HasPeak: inc.hasPeak, Sev: inc.sev, SevName: inc.sevName,
-			Contrib: inc.contrib, Missing: inc.missing, Ack: inc.ack, Stale: inc.stale, Chatter: inc.chatter,
-			Rev: inc.rev, Member: inc.member, MemberIdx: inc.memberIdx, EndReason: inc.endReason,
-			Members: inc.members, MemberCount: inc.memberCount, LastPub: inc.lastPub, Dirty: inc.dirty, MaxCount: inc.maxCount,
-			Reopened: inc.reopened, LastReopen: inc.lastReopen,
-		}
-		for k, st := range inc.stats {
-			si.Stats[k] = snapStat{Used: st.used, RecordStat: st.RecordStat}
-		}
-		if inc.g != nil {
-			si.Group = inc.g.key
-		}
-		si.Location = snapLocOf(inc.loc)
-		if inc.flood != nil {
-			si.Flood = inc.flood.id
-		}
-		s.Incidents = append(s.Incidents, si)
+		s.Incidents = append(s.Incidents, snapIncidentOf(inc))
 	}
 	slices.SortFunc(s.Incidents, func(a, b snapIncident) int { return cmp.Compare(a.ID, b.ID) })
 	return s
+}
+
+// incidentFields pairs each field of an incident that its snapshot
+// carries as it is with the snapshot's field: the one list that
+// snapIncidentOf (save) and buildIncidents (restore) both walk, so that no
+// field is saved and not restored, or the other way round. The statistics
+// and the location are converted, and the group and the flood resolved by
+// name, apart.
+func incidentFields(inc *incident, si *snapIncident) []fieldPair {
+	return []fieldPair{
+		pair(&inc.id, &si.ID), pair(&inc.kind, &si.Kind), pair(&inc.start, &si.Start), pair(&inc.end, &si.End),
+		pair(&inc.ended, &si.Ended), pair(&inc.updated, &si.Updated), pair(&inc.peak, &si.Peak),
+		pair(&inc.hasPeak, &si.HasPeak), pair(&inc.sev, &si.Sev), pair(&inc.sevName, &si.SevName),
+		pair(&inc.contrib, &si.Contrib), pair(&inc.missing, &si.Missing), pair(&inc.ack, &si.Ack),
+		pair(&inc.stale, &si.Stale), pair(&inc.chatter, &si.Chatter), pair(&inc.rev, &si.Rev),
+		pair(&inc.member, &si.Member), pair(&inc.memberIdx, &si.MemberIdx), pair(&inc.endReason, &si.EndReason),
+		pair(&inc.members, &si.Members), pair(&inc.memberCount, &si.MemberCount), pair(&inc.lastPub, &si.LastPub),
+		pair(&inc.dirty, &si.Dirty), pair(&inc.maxCount, &si.MaxCount), pair(&inc.reopened, &si.Reopened),
+		pair(&inc.lastReopen, &si.LastReopen),
+	}
+}
+
+// fieldPair copies one field from the live state into its snapshot (save)
+// or back (restore).
+type fieldPair struct{ save, restore func() }
+
+// pair is the fieldPair of a live field and its snapshot field, of the
+// same type.
+func pair[T any](live, snap *T) fieldPair {
+	return fieldPair{save: func() { *snap = *live }, restore: func() { *live = *snap }}
+}
+
+// snapIncidentOf returns the snapshot of inc.
+func snapIncidentOf(inc *incident) snapIncident {
+	var si snapIncident
+	for _, f := range incidentFields(inc, &si) {
+		f.save()
+	}
+	for k, st := range inc.stats {
+		si.Stats[k] = snapStat{Used: st.used, RecordStat: st.RecordStat}
+	}
+	if inc.g != nil {
+		si.Group = inc.g.key
+	}
+	si.Location = snapLocOf(inc.loc)
+	if inc.flood != nil {
+		si.Flood = inc.flood.id
+	}
+	return si
 }
 
 func snapAlarmOf(a *Alarm) snapAlarm {
@@ -438,13 +469,9 @@ func buildIncidents(s *snapshot) (map[string]*incident, error) {
 		if si.ID == "" || incs[si.ID] != nil {
 			return nil, fmt.Errorf("incident %d: empty or repeated id %q", i, si.ID)
 		}
-		inc := &incident{
-			id: si.ID, kind: si.Kind, start: si.Start, end: si.End, ended: si.Ended, updated: si.Updated,
-			peak: si.Peak, hasPeak: si.HasPeak, sev: si.Sev, sevName: si.SevName,
-			contrib: si.Contrib, missing: si.Missing, ack: si.Ack, stale: si.Stale, chatter: si.Chatter,
-			rev: si.Rev, member: si.Member, memberIdx: si.MemberIdx, endReason: si.EndReason,
-			members: si.Members, memberCount: si.MemberCount, lastPub: si.LastPub, dirty: si.Dirty, maxCount: si.MaxCount,
-			reopened: si.Reopened, lastReopen: si.LastReopen,
+		inc := &incident{}
+		for _, f := range incidentFields(inc, si) {
+			f.restore()
 		}
 		for k, st := range si.Stats {
 			inc.stats[k] = statPeak{used: st.Used, RecordStat: st.RecordStat}
