@@ -163,9 +163,10 @@ func frameLocation(o *Observation, lead []string) []string {
 }
 
 // leading appends to dst the channels of the first LeadCount contributors
-// of o that exceed their own limit.
-func leading(dst []string, o *Observation) []string {
-	top := 0.0
+// of o that exceed their own limit, and returns the Share of the first of
+// them (0 when there is none; see unit.specific).
+func leading(dst []string, o *Observation) ([]string, float64) {
+	top, share := 0.0, 0.0
 	for i := range o.Contributors {
 		c := &o.Contributors[i]
 		if len(dst) == LeadCount {
@@ -173,12 +174,12 @@ func leading(dst []string, o *Observation) []string {
 		}
 		if IsLeading(c.RBC, c.Limit, top) {
 			if top == 0 {
-				top = c.RBC
+				top, share = c.RBC, c.Share
 			}
 			dst = append(dst, c.Channel)
 		}
 	}
-	return dst
+	return dst, share
 }
 
 // IsLeading reports whether a contributor with reconstruction-based
@@ -192,7 +193,7 @@ func IsLeading(rbc, lim, first float64) bool {
 // locate sets the location of a model incident opening on frame o.
 func (e *Engine) locate(inc *incident, o *Observation, t time.Time) {
 	var buf [LeadCount]string
-	lead := leading(buf[:0], o)
+	lead, _ := leading(buf[:0], o)
 	inc.loc = &locState{lastSupport: t}
 	inc.loc.add(frameLocation(o, lead))
 	inc.loc.hold.start(t)
@@ -211,7 +212,7 @@ func (e *Engine) stepLocations(u *unit, o *Observation, t time.Time) {
 		return
 	}
 	var buf [LeadCount]string
-	lead := leading(buf[:0], o)
+	lead, share := leading(buf[:0], o)
 	all := u.modelIncidents()
 	// The first leading channel attributes the frame.
 	var first *incident
@@ -238,7 +239,7 @@ func (e *Engine) stepLocations(u *unit, o *Observation, t time.Time) {
 		g.inc.loc.add(frameLocation(o, lead))
 		g.inc.dirty = true
 		e.support(g.inc, o, t)
-	case first == nil && !u.specific(o):
+	case first == nil && !u.specific(lead, share):
 		// A frame that points at no place of its own (reopen.go) does
 		// not count towards a new location, nor does it speak for an
 		// open one.

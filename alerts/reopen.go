@@ -80,24 +80,12 @@ func (r *recentClosed) prune(t time.Time, w time.Duration) {
 	}
 }
 
-// firstLeadShare returns the Share of o's first leading contributor (over
-// its own limit), and false when there is none.
-func firstLeadShare(o *Observation) (float64, bool) {
-	for i := range o.Contributors {
-		c := &o.Contributors[i]
-		if IsLeading(c.RBC, c.Limit, 0) {
-			return c.Share, true
-		}
-	}
-	return 0, false
-}
-
-// specific reports whether frame o points at a place of its own under u's
-// rules: it has a leading channel that explains at least SpecificShare of
-// the index.
-func (u *unit) specific(o *Observation) bool {
-	s, ok := firstLeadShare(o)
-	return ok && s >= u.rules.SpecificShare
+// specific reports whether a frame with leading channels lead, the first
+// of which explains share of the index (both from leading), points at a
+// place of its own under u's rules: it has a leading channel that explains
+// at least SpecificShare of the index.
+func (u *unit) specific(lead []string, share float64) bool {
+	return len(lead) > 0 && share >= u.rules.SpecificShare
 }
 
 // reopenable returns the most recently ended model incident of u that the
@@ -108,7 +96,11 @@ func (u *unit) reopenable(o *Observation, t time.Time) *incident {
 		return nil
 	}
 	r.prune(t, u.rules.ReopenWithin)
-	if len(r.incs) == 0 || u.specific(o) {
+	if len(r.incs) == 0 {
+		return nil
+	}
+	var buf [LeadCount]string
+	if u.specific(leading(buf[:0], o)) {
 		return nil
 	}
 	return r.incs[len(r.incs)-1]
