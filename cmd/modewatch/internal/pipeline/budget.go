@@ -21,11 +21,19 @@ type Calibration struct {
 	// Budget is the target, false alerts per day.
 	Budget float64 `json:"budget_per_day"`
 	// Rate is the expected false alerts per day at Scale from the
-	// extreme-value model, RateLow and RateHigh its approximate 95 %
-	// interval (delta method).
+	// extreme-value model, RateSE its standard error and RateLow and
+	// RateHigh its approximate 95 % interval (delta method): where the
+	// true rate lies, not how many alerts a few days will count (Week,
+	// Predict).
 	Rate     float64 `json:"rate_per_day"`
+	RateSE   float64 `json:"rate_se_per_day"`
 	RateLow  float64 `json:"rate_low_per_day"`
 	RateHigh float64 `json:"rate_high_per_day"`
+	// Week is the predictive interval of the number of false alerts over
+	// PredictWeekDays of normal operation (Predict): the rate's
+	// uncertainty and the chance of counting together. Model files
+	// written before it have none.
+	Week *Prediction `json:"predicted_week,omitempty"`
 	// Observed is the number of alerts the whole alarm rule opened over
 	// the held-out data at Scale; HeldOutDays the held-out span.
 	Observed    int     `json:"observed_alerts"`
@@ -261,17 +269,21 @@ func CalibrateBudget(t []time.Time, ratios [][nStatistics]float64, budget float6
 	return cal, nil
 }
 
-// setRate sets the calibration's alert rate per day and its 95 % interval
-// from the GEV's block exceedance probability pc and its standard error
-// se, with perDay blocks a day, and returns the relative standard error.
-// The interval is on the log scale (P is positive and skewed).
+// setRate sets the calibration's alert rate per day, its standard error
+// and 95 % interval from the GEV's block exceedance probability pc and its
+// standard error se, with perDay blocks a day, and the week's predictive
+// interval of the count; it returns the relative standard error. The
+// rate's interval is on the log scale (P is positive and skewed).
 func (cal *Calibration) setRate(pc, se, perDay float64) (rel float64) {
 	if pc > 0 {
 		rel = se / pc
 	}
 	cal.Rate = pc * perDay
+	cal.RateSE = se * perDay
 	cal.RateLow = cal.Rate * math.Exp(-1.96*rel)
 	cal.RateHigh = cal.Rate * math.Exp(1.96*rel)
+	w := cal.Predict(PredictWeekDays)
+	cal.Week = &w
 	return rel
 }
 
