@@ -3,6 +3,7 @@ package cli
 import (
 	"context"
 	"fmt"
+	"math"
 	"time"
 
 	"modewatch/alerts"
@@ -100,8 +101,12 @@ func printCalibration(env IO, u pipeline.ModelUnit) {
 	if u.Limits.T2 != nil && u.Limits.SPE != nil {
 		th = fmt.Sprintf(" (T² %.2f, SPE %.2f)", c.Scale**u.Limits.T2, c.Scale**u.Limits.SPE)
 	}
-	fmt.Fprintf(env.Out, "  budget %.3g false alerts/day: limits ×%.3f%s; expected %.3g/day [95%% %.3g, %.3g]; held-out %.1f days: %d alerts of the whole rule at this scale; GEV of %d block maxima of %v\n",
+	fmt.Fprintf(env.Out, "  budget %.3g false alerts/day: limits ×%.3f%s; expected %.3g/day (rate's 95%% interval %.3g to %.3g); held-out %.1f days: %d alerts of the whole rule at this scale; GEV of %d block maxima of %v\n",
 		c.Budget, c.Scale, th, c.Rate, c.RateLow, c.RateHigh, c.HeldOutDays, c.Observed, c.Blocks, time.Duration(c.Block))
+	if w := c.Predict(pipeline.PredictWeekDays); !math.IsNaN(w.Coverage) {
+		fmt.Fprintf(env.Out, "  a week of normal running should bring %d to %d false alerts (95%% predictive: the rate's uncertainty and chance together; %.2g expected)\n",
+			w.Low, w.High, w.Expected)
+	}
 	if len(c.Scales) > 0 {
 		fmt.Fprintf(env.Out, "  per statistic (same tail probability, the whole rule at the budget):")
 		for _, n := range []string{alerts.StatT2, alerts.StatSPE, alerts.StatPhi, alerts.StatResidual, alerts.StatVariance, alerts.StatRelation} {

@@ -436,8 +436,9 @@ func TestFitBudget(t *testing.T) {
 	if code != ExitOK {
 		t.Fatalf("fit: exit %d: %s", code, errs)
 	}
-	if !strings.Contains(out, "budget 0.25 false alerts/day: limits ×") || !strings.Contains(out, "days of normal log needed") {
-		t.Errorf("summary lacks the calibration or the too-short warning:\n%s", out)
+	if !strings.Contains(out, "budget 0.25 false alerts/day: limits ×") || !strings.Contains(out, "days of normal log needed") ||
+		!strings.Contains(out, "a week of normal running should bring 0 to ") {
+		t.Errorf("summary lacks the calibration, the week's predictive interval or the too-short warning:\n%s", out)
 	}
 	if !strings.Contains(out, "spike sizes (most spikes of the normal log within 1h0m0s): ") {
 		t.Errorf("summary lacks the learned spike sizes:\n%s", out)
@@ -454,6 +455,11 @@ func TestFitBudget(t *testing.T) {
 		}
 		if !(c.Scale > 0) || !(c.RateLow <= c.Budget && c.Budget <= c.RateHigh) || c.Blocks < 20 || c.DaysNeeded <= 1 {
 			t.Errorf("unit %s: calibration %+v", u.Name, *c)
+		}
+		// The model file keeps the week's predictive interval, the same
+		// as Predict gives from the rate and its standard error.
+		if w := c.Predict(pipeline.PredictWeekDays); c.Week == nil || *c.Week != w || !(c.RateSE > 0) || w.Low != 0 || w.High < 2 {
+			t.Errorf("unit %s: week %+v, Predict(7) %+v, rate SE %g", u.Name, c.Week, w, c.RateSE)
 		}
 	}
 	cfg := filepath.Join(dir, "off.yaml")
