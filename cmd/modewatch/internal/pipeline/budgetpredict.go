@@ -49,8 +49,8 @@ type Prediction struct {
 // Its sampling distribution is taken as a gamma of the same mean and
 // standard deviation, and N given the rate is Poisson; N is then negative
 // binomial, the gamma–Poisson mixture (Gelman et al. 2013, Bayesian Data
-// Analysis, 3rd ed., §2.6 and Appendix A, quoted from memory; Greenwood &
-// Yule 1920):
+// Analysis, 3rd ed., §2.6 and Appendix A; Greenwood & Yule 1920, J. R.
+// Stat. Soc. 83; both quoted from memory):
 //
 //	λ ~ Gamma(a, b),  a = (Rate/RateSE)²,  b = a/Rate (days)
 //	N | λ ~ Poisson(λ · days)
@@ -60,7 +60,10 @@ type Prediction struct {
 // with mean Rate·days and variance Rate·days + (RateSE·days)²: Poisson
 // noise plus the rate's uncertainty. a is the number of alerts that would
 // pin the rate as well as the fit does, b the days they would take. With
-// RateSE = 0 (or a above 10⁸) N is Poisson(Rate·days).
+// RateSE = 0 (or a above 10⁸) N is Poisson(Rate·days). It carries the
+// rate's sampling error, not a bias of the rate: from about 20 block
+// maxima the GEV's rate tends to understate the true one (see the
+// README's budget section), and the interval is then too low.
 func (c Calibration) Predict(days float64) Prediction {
 	p := Prediction{Days: days, Expected: c.Rate * days, Coverage: 1}
 	switch {
