@@ -33,9 +33,12 @@ type Prediction struct {
 	// (1 + PredictLevel)/2 quantiles (the smallest k with P(N ≤ k) at
 	// least that), so that P(N < Low) and P(N > High) are each at most
 	// (1 − PredictLevel)/2. Divided by Days they bound the measured rate
-	// per day. An invalid horizon or rate gives NaN Expected and Coverage.
-	Low  int `json:"low"`
-	High int `json:"high"`
+	// per day: LowPerDay and HighPerDay, the measured rate's predictive
+	// interval. An invalid horizon or rate gives NaN Expected and Coverage.
+	Low        int     `json:"low"`
+	High       int     `json:"high"`
+	LowPerDay  float64 `json:"low_per_day"`
+	HighPerDay float64 `json:"high_per_day"`
 	// Coverage is the predictive probability of Low ≤ N ≤ High, at least
 	// PredictLevel (a count is discrete).
 	Coverage float64 `json:"coverage"`
@@ -78,6 +81,7 @@ func (c Calibration) Predict(days float64) Prediction {
 	p.Low = countQuantile(cdf, tail, p.Expected)
 	p.High = countQuantile(cdf, 1-tail, p.Expected)
 	p.Coverage = cdf(p.High) - cdf(p.Low-1)
+	p.LowPerDay, p.HighPerDay = float64(p.Low)/days, float64(p.High)/days
 	return p
 }
 

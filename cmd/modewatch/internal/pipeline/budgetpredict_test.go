@@ -60,6 +60,9 @@ func TestPredictNegativeBinomial(t *testing.T) {
 				if p.Low != c.low || p.High != c.high {
 					t.Errorf("interval [%d, %d], mpmath's quantiles [%d, %d]", p.Low, p.High, c.low, c.high)
 				}
+				if p.LowPerDay != float64(c.low)/c.d || p.HighPerDay != float64(c.high)/c.d {
+					t.Errorf("per day [%g, %g], want [%g, %g]", p.LowPerDay, p.HighPerDay, float64(c.low)/c.d, float64(c.high)/c.d)
+				}
 				if !scalar.EqualWithinAbsOrRel(p.Expected, c.rate*c.d, 1e-12, 1e-12) {
 					t.Errorf("expected %g, want %g", p.Expected, c.rate*c.d)
 				}
