@@ -1,6 +1,7 @@
 package pipeline
 
 import (
+	"fmt"
 	"math"
 	"math/rand/v2"
 	"testing"
@@ -157,93 +158,150 @@ func TestPredictEdges(t *testing.T) {
 	}
 }
 
+// coverage tallies where counts fall against predictive intervals: the
+// share inside [Low, High], below and above, beside the shares the
+// intervals state (the mean of their own probabilities).
+type coverage struct {
+	n, in, below, above                     int
+	stated, statedBelow, statedAbove, count float64
+	expected                                float64
+}
+
+// add records count k against calibration c's interval over days.
+func (v *coverage) add(c Calibration, days float64, k int) {
+	p := c.Predict(days)
+	cdf := c.countCDF(days)
+	v.n++
+	v.count += float64(k)
+	v.expected += p.Expected
+	v.stated += p.Coverage
+	v.statedBelow += cdf(p.Low - 1)
+	v.statedAbove += 1 - cdf(p.High)
+	switch {
+	case k < p.Low:
+		v.below++
+	case k > p.High:
+		v.above++
+	default:
+		v.in++
+	}
+}
+
+// check fails t unless the shares inside, below and above match the
+// stated ones within three binomial standard errors plus slack.
+func (v *coverage) check(t *testing.T, slack float64) {
+	t.Helper()
+	n := float64(v.n)
+	for _, c := range []struct {
+		name      string
+		got, want float64
+	}{{"inside", float64(v.in) / n, v.stated / n}, {"below", float64(v.below) / n, v.statedBelow / n}, {"above", float64(v.above) / n, v.statedAbove / n}} {
+		if se := math.Sqrt(c.want * (1 - c.want) / n); math.Abs(c.got-c.want) > 3*se+slack {
+			t.Errorf("%s: %.3f of %d repeats, stated %.3f (three binomial standard errors %.3f, slack %v)", c.name, c.got, v.n, c.want, 3*se, slack)
+		}
+	}
+}
+
+func (v *coverage) String() string {
+	n := float64(v.n)
+	return fmt.Sprintf("%d repeats: inside %.3f (stated %.3f), below %.3f (stated %.3f), above %.3f (stated %.3f); counted %.0f, expected %.1f",
+		v.n, float64(v.in)/n, v.stated/n, float64(v.below)/n, v.statedBelow/n, float64(v.above)/n, v.statedAbove/n, v.count, v.expected)
+}
+
 // TestPredictCoverage: the predictive interval's coverage over many
-// seeded repeats of the whole calibration. Each repeat calibrates a
-// statistic whose block maxima are exactly Gumbel (gumbelRatios, one frame
-// every 5 minutes, the rule 1 of 1) to a budget of 0.25 a day on 40
-// held-out days (50 block maxima of 19.2 h), as fit does, then counts the
-// alerts the rule opens at that scale over the next 7 days of the same
-// process. The share of repeats whose count lies inside Predict(7) must
-// match the mean of the intervals' own stated coverage (each at least
-// 95 %) within three binomial standard errors, and so must each tail
-// (count below Low, above High) its stated probability. Derived check (a
-// simulation of the method against its own statement; seeded). The rate's
-// interval, read as an interval for the measured rate, holds it in under
-// half of the repeats (asserted below 0.8): the comparison the suite used
-// to make. On 4 held-out days (20 block maxima) the calibrated rate
-// understates the true one (the README's budget section gives the
-// figures), so the coverage falls short there; this test does not hide
-// it, it checks the interval where the rate's estimate is close to right.
+// seeded repeats, against the probability each interval states (at least
+// 95 %, a count being discrete), within three binomial standard errors
+// plus a slack of 0.01 for the gamma's approximation of the rate's
+// sampling distribution, inside and in each tail. Derived checks
+// (simulations of the method against its own statement; seeded).
+//
+//   - rate from a count: the rate is estimated from k ~ Poisson(λT)
+//     alerts over T = 80 days at λ = 0.25 a day (Rate = k/T, RateSE =
+//     √k/T, the usual unbiased estimate and its standard error), and the
+//     interval for the next 40 days is checked against N ~ Poisson(40λ).
+//     Here the rate's error is what Predict assumes (no bias, the stated
+//     spread). In this run the interval held 0.962 against 0.965 stated;
+//     the Poisson of the estimated rate alone, which ignores the rate's
+//     error, held 0.915 against 0.967 and must fall short by more than
+//     0.03. (With T = 20 and 20 days, a mean of 5 alerts to estimate
+//     from, the gamma held 0.950 against 0.975: the approximation is
+//     coarser with fewer alerts behind the rate.)
+//   - the whole calibration: each repeat calibrates a statistic whose
+//     block maxima are exactly Gumbel (gumbelRatios, one frame every 15
+//     minutes, the rule 1 of 1) to a budget of 0.25 a day on 160
+//     held-out days (200 block maxima of 19.2 h), as fit does, and counts
+//     the alerts the rule opens at that scale over the next 7 days of the
+//     same process. The rate's interval, read as an interval for the
+//     measured rate, holds it in under a third of the repeats (the
+//     comparison the suite used to make). In this run the interval held
+//     0.977 against 0.985 stated (0.973 and 0.990 with two other seeds).
+//     Even here the calibration's
+//     rate is about a tenth low (one alert per block is counted where an
+//     iid statistic at 0.2 exceedances a block has 0.22 on average), and
+//     from the 20 block maxima of a few held-out days it is much lower
+//     (the README's budget section gives the figures): the interval
+//     carries the rate's sampling error, not its bias.
 func TestPredictCoverage(t *testing.T) {
 	if testing.Short() {
 		t.Skip("long run")
 	}
-	const (
-		repeats = 300
-		period  = 5 * time.Minute
-		heldOut = 40 * 24 * 12
-		days    = 7
-		budget  = 0.25
-	)
-	rule := alerts.AlarmRule{N: 1, M: 1}
-	rng := rand.New(rand.NewPCG(2026, 13))
-	var in, below, above, poissonIn, rateIn, n, failed int
-	var stated, statedBelow, statedAbove, counted, expected float64
-	t0 := time.Date(2026, 1, 1, 0, 0, 0, 0, time.UTC)
-	for r := range repeats {
-		ct, cr := gumbelRatios(rng, 1, t0, period, heldOut)
-		cal, err := CalibrateBudget(ct, cr, budget, rule, 4)
-		if err != nil {
-			// fit leaves such a unit at its α limits; the test days
-			// of this repeat are still drawn.
-			failed++
-			t.Logf("repeat %d: %v", r, err)
+	const days = 7
+	t.Run("rate from a count", func(t *testing.T) {
+		const lambda, span, horizon, repeats = 0.25, 80.0, 40.0, 20000
+		rng := rand.New(rand.NewPCG(13, 7))
+		var v, plug coverage
+		for range repeats {
+			k := distuv.Poisson{Lambda: lambda * span, Src: rng}.Rand()
+			n := int(distuv.Poisson{Lambda: lambda * horizon, Src: rng}.Rand())
+			c := Calibration{Rate: k / span, RateSE: math.Sqrt(k) / span}
+			v.add(c, horizon, n)
+			plug.add(Calibration{Rate: c.Rate}, horizon, n)
 		}
-		lt, lr := gumbelRatios(rng, 1, t0.Add(heldOut*period), period, days*24*12)
-		if err != nil {
-			continue
+		t.Logf("predictive: %v", &v)
+		t.Logf("Poisson of the estimated rate alone: %v", &plug)
+		v.check(t, 0.01)
+		if short := plug.stated/float64(plug.n) - float64(plug.in)/float64(plug.n); short < 0.03 {
+			t.Errorf("the Poisson of the estimated rate alone held %.3f against %.3f stated: expected it to fall short by 0.03",
+				float64(plug.in)/float64(plug.n), plug.stated/float64(plug.n))
 		}
-		k := countAlerts(lt, lr, cal.Scale, rule)
-		p := cal.Predict(days)
-		cdf := cal.countCDF(days)
-		n++
-		counted += float64(k)
-		expected += p.Expected
-		stated += p.Coverage
-		statedBelow += cdf(p.Low - 1)
-		statedAbove += 1 - cdf(p.High)
-		switch {
-		case k < p.Low:
-			below++
-		case k > p.High:
-			above++
-		default:
-			in++
+	})
+	t.Run("whole calibration", func(t *testing.T) {
+		const (
+			repeats = 300
+			period  = 15 * time.Minute
+			heldOut = 160 * 24 * 4
+			budget  = 0.25
+		)
+		rule := alerts.AlarmRule{N: 1, M: 1}
+		rng := rand.New(rand.NewPCG(2026, 13))
+		var v coverage
+		var rateIn, failed int
+		t0 := time.Date(2026, 1, 1, 0, 0, 0, 0, time.UTC)
+		for r := range repeats {
+			ct, cr := gumbelRatios(rng, 1, t0, period, heldOut)
+			cal, err := CalibrateBudget(ct, cr, budget, rule, 160)
+			lt, lr := gumbelRatios(rng, 1, t0.Add(heldOut*period), period, days*24*4)
+			if err != nil {
+				// fit leaves such a unit at its α limits.
+				failed++
+				t.Logf("repeat %d: %v", r, err)
+				continue
+			}
+			k := countAlerts(lt, lr, cal.Scale, rule)
+			v.add(cal, days, k)
+			if m := float64(k) / days; cal.RateLow <= m && m <= cal.RateHigh {
+				rateIn++
+			}
 		}
-		if pp := (Calibration{Rate: cal.Rate}).Predict(days); pp.Low <= k && k <= pp.High {
-			poissonIn++
+		t.Logf("%v; the rate's interval holds the measured rate in %.3f", &v, float64(rateIn)/float64(v.n))
+		if failed > repeats/50 {
+			t.Errorf("%d of %d calibrations failed", failed, repeats)
 		}
-		if m := float64(k) / days; cal.RateLow <= m && m <= cal.RateHigh {
-			rateIn++
+		v.check(t, 0.01)
+		if s := float64(rateIn) / float64(v.n); s > 1./3 {
+			t.Errorf("the rate's interval held the measured rate in %.3f of the repeats: expected it to fail as a test of a count", s)
 		}
-	}
-	if failed > repeats/50 {
-		t.Errorf("%d of %d calibrations failed", failed, repeats)
-	}
-	share := func(c int) float64 { return float64(c) / float64(n) }
-	t.Logf("%d repeats: predictive interval holds the count in %.3f (stated %.3f), below %.3f (stated %.3f), above %.3f (stated %.3f); Poisson of the rate alone %.3f; the rate's interval holds the measured rate in %.3f; alerts counted %.0f, expected %.1f",
-		n, share(in), stated/float64(n), share(below), statedBelow/float64(n), share(above), statedAbove/float64(n), share(poissonIn), share(rateIn), counted, expected)
-	if share(rateIn) > 0.8 {
-		t.Errorf("the rate's interval held the measured rate in %.3f of the repeats: expected it to fail as a test of a count", share(rateIn))
-	}
-	for _, c := range []struct {
-		name      string
-		got, want float64
-	}{{"inside", share(in), stated / float64(n)}, {"below", share(below), statedBelow / float64(n)}, {"above", share(above), statedAbove / float64(n)}} {
-		if se := math.Sqrt(c.want * (1 - c.want) / float64(n)); math.Abs(c.got-c.want) > 3*se+0.5/float64(n) {
-			t.Errorf("%s: %.3f of %d repeats, stated %.3f (three binomial standard errors %.3f)", c.name, c.got, n, c.want, 3*se)
-		}
-	}
+	})
 }
 
 // gumbelRatios returns n frames one period apart from start whose ratio
