@@ -323,6 +323,8 @@ func (e *Engine) resetAlarms(u *unit, t time.Time) {
 	g.acts.reset()
 	u.loc.extra = u.loc.extra[:0]
 	u.loc.newLoc.Reset(t)
+	u.point.conc.Reset(t)
+	u.point.learning = false
 	u.clearQuality()
 	u.openings.reset()
 }

@@ -111,6 +111,11 @@ type Rules struct {
 	// AcceptAfter is the bounded hold: an incident flat this long is taken
 	// as the new normal. Default DefaultAcceptAfter; negative: never.
 	AcceptAfter time.Duration
+	// NoNewPoint turns off the new-operating-point rule (newpoint.go): a
+	// model alarm of T² (and φ) alone, spread over many channels, with the
+	// residual statistics within their limits, is then an incident like
+	// any other. The zero value keeps the rule (DefaultNewPoint).
+	NoNewPoint bool
 	// FloodCount, FloodWindow, ChatterCount and ChatterWindow override the
 	// engine-wide figures of Config for this unit; zero means those.
 	FloodCount    int

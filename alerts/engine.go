@@ -53,6 +53,8 @@ const (
 	EventThaw           = "thaw"            // and thawed
 	EventAccept         = "accept"          // an incident was accepted as the new normal (bounded hold or operator)
 	EventReopen         = "reopen"          // an incident that had returned re-opened (reopen.go)
+	EventPoint          = "point"           // a new operating point was recorded and is being learned (newpoint.go)
+	EventPointEnd       = "point_end"       // its learning ended: learned, or escalated to an incident
 )
 
 // Event is one state change. Time is frame time (for commands: the unit's
@@ -202,6 +204,7 @@ type unit struct {
 	c        UnitCounters
 	loc      unitLoc      // incidents per location (location.go)
 	recent   recentClosed // model incidents that may re-open (reopen.go)
+	point    pointState   // new operating point (newpoint.go)
 }
 
 type group struct {
@@ -407,6 +410,7 @@ func (e *Engine) newUnitState(name string) *unit {
 	u.modelG = group{key: GroupModel, acts: newRing(u.rules.ChatterCount)}
 	u.openings = newRing(max(u.rules.FloodCount+1, e.cfg.FloodEnd))
 	u.loc.newLoc = NewAlarm(ar)
+	u.point.conc = NewAlarm(ar)
 	u.c.Unit = name
 	return u
 }
@@ -488,6 +492,9 @@ func (e *Engine) Observe(o *Observation) error {
 	in := false
 	for k := range u.stats {
 		in = in || u.stats[k].State().InAlarm()
+	}
+	if o.ModelState != ModelWarmup {
+		in = e.stepPoint(u, o, t, in)
 	}
 	g := &u.modelG
 	switch {

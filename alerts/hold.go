@@ -204,6 +204,14 @@ func (e *Engine) acceptUnit(c Command) Reply {
 	return Reply{OK: true, Unit: u.name, Message: "accepted as normal: " + strconv.Itoa(n) + " incident(s); their channels are learned again"}
 }
 
+// Moving is implemented by a Learning whose model can take the current
+// state of every channel of a unit as normal at once (a new operating
+// point, newpoint.go), as Accepting does for an incident's channels. The
+// engine calls Move under its lock, like Mask.
+type Moving interface {
+	Move(unit string)
+}
+
 // recentre tells an Accepting learner to take the current state of the
 // accepted incident's channels as normal.
 func (e *Engine) recentre(u *unit, inc *incident) {

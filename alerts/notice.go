@@ -6,7 +6,7 @@ import "time"
 // never count as alerts (no alarm state, no flood, no freeze) and carry
 // what happened in Record.Notice.
 const (
-	KindNotice  = "notice" // an informational record (a new operating state)
+	KindNotice  = "notice" // an informational record (a new operating state or point)
 	GroupState  = "state"  // the unit's operating state
 	EndNoted    = "noted"  // a notice: closed when published
 	SeverityLog = "info"   // the severity of a notice
@@ -23,18 +23,22 @@ func (e *Engine) Notice(unit, group, key, text string, t time.Time) bool {
 	if u.maint {
 		return false
 	}
+	e.pub.Publish(e.noticeRecord(u, group, key, text, t))
+	return true
+}
+
+// noticeRecord builds the informational record of u at t (see Notice).
+func (e *Engine) noticeRecord(u *unit, group, key, text string, t time.Time) *Record {
 	model := u.model
 	if model == "" {
 		model = ModelAdapting
 	}
 	end := t.UTC()
-	r := &Record{
-		ID: MakeID(unit, group+":"+key, t), Revision: 1, Kind: KindNotice, Unit: unit, Group: group,
+	return &Record{
+		ID: MakeID(u.name, group+":"+key, t), Revision: 1, Kind: KindNotice, Unit: u.name, Group: group,
 		Statistics: []RecordStat{}, Contributors: []RecordContributor{}, Missing: []string{},
 		Start: t.UTC(), End: &end, Updated: t.UTC(), State: Normal.String(), Severity: SeverityLog,
 		Peak: Peak{Statistic: group, Value: 1, Limit: 1, Ratio: 1, Time: t.UTC()}, ModelState: model, EndReason: EndNoted,
 		Notice: text, Caution: Caution,
 	}
-	e.pub.Publish(r)
-	return true
 }

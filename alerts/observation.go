@@ -75,6 +75,12 @@ type Observation struct {
 	// ModelState is one of ModelWarmup, ModelAdapting, ModelFrozen,
 	// ModelBaseline. In warm-up the statistics are ignored.
 	ModelState string
+	// TakingIn reports that the unit's model is taking in a new normal (an
+	// accepted incident's channels or a new operating point, see Accepting
+	// and Moving) and refreshes its modes and limits at the end: the
+	// statistics of this frame are measured against a model in change.
+	// A new operating point is not escalated on them (newpoint.go).
+	TakingIn bool
 }
 
 // Stat is one monitoring statistic and its control limit.

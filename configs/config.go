@@ -473,6 +473,15 @@ type Alerts struct {
 	// (pipeline.DefaultAcceptWeight); negative: the means of the accepted
 	// channels move to their current level instead.
 	AcceptWeight float64 `yaml:"accept_weight"`
+	// NewPoint: a model alarm of T² (and φ) alone, spread over the unit's
+	// channels (no channel explaining specific_share of it), with SPE and
+	// the residual statistics within their limits, is a new operating
+	// point, not an alert: one informational record, and the point is
+	// learned as normal at once; it becomes an alert if a residual
+	// statistic joins, one channel comes to explain the excess, or T² is
+	// not back within the hour. Unset: the alarm engine's default
+	// (alerts.DefaultNewPoint, true).
+	NewPoint *bool `yaml:"new_point"`
 }
 
 // OnDelay is the "N of the last M frames" rule.

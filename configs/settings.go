@@ -252,6 +252,18 @@ var settings = []Setting{
 		set: setFraction(1, "a fraction of the limit", func(o *Overrides) *float64 { return &o.Alerts.Deadband }),
 	},
 	{
+		Name: "new_point", Section: "alerts", Grid: true, Default: strconv.FormatBool(alerts.DefaultNewPoint),
+		Doc: "true|false: a model alarm of T² alone, spread over the unit's channels with SPE and the residual statistics within their limits, is recorded once as a new operating point and learned, not alerted",
+		set: func(o *Overrides, s string) (string, error) {
+			b, err := strconv.ParseBool(s)
+			if err != nil {
+				return s, fmt.Errorf("%q: want true or false", s)
+			}
+			o.Alerts.NewPoint = &b
+			return strconv.FormatBool(b), nil
+		},
+	},
+	{
 		Name: "adapt", Section: "model", Grid: true, Default: "true",
 		Doc: "true|false: keep learning while scoring",
 		set: func(o *Overrides, s string) (string, error) {

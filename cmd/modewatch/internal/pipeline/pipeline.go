@@ -161,6 +161,7 @@ func AlertsConfigAt(c *configs.Config, period time.Duration) alerts.Config {
 			LocationQuiet:  a.LocationQuiet,
 			ReopenWithin:   a.ReopenWithin,
 			SpecificShare:  a.SpecificShare,
+			NoNewPoint:     newPointOff(a),
 		}
 		r.OnCount, r.OnWindow = spanOnDelay(a, r.OnCount, r.OnWindow, period)
 		if r.OffDelay == 0 {
@@ -186,6 +187,15 @@ func AlertsConfigAt(c *configs.Config, period time.Duration) alerts.Config {
 		ac.Units[c.Units[i].Name] = rules(c.UnitAlerts(i))
 	}
 	return ac
+}
+
+// newPointOff reports whether a turns the new-operating-point rule off
+// (alerts.new_point false; unset: alerts.DefaultNewPoint).
+func newPointOff(a configs.Alerts) bool {
+	if a.NewPoint != nil {
+		return !*a.NewPoint
+	}
+	return !alerts.DefaultNewPoint
 }
 
 // learning lets the alarm engine freeze and thaw a unit's adaptation. It is

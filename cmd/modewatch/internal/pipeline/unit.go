@@ -452,6 +452,7 @@ func (u *Unit) observe(t time.Time) {
 	s := &u.score
 	o.Unit, o.Time = u.Name, t
 	o.ModelState = u.ModelState()
+	o.TakingIn = u.recentK < recentreFrames && len(u.recent) == len(u.x)
 	o.Stats = o.Stats[:0]
 	o.Contributors = o.Contributors[:0]
 	o.Missing = o.Missing[:0]

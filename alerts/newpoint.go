@@ -1,0 +1,206 @@
+package alerts
+
+import (
+	"fmt"
+	"math"
+	"slices"
+	"strings"
+	"time"
+)
+
+// A new operating point.
+//
+// A planned move of a unit to a point its normal log never reached (a
+// setpoint raised beyond its usual steps, a load the plant has not run at)
+// keeps the unit's correlation structure: every channel follows through
+// the same relations, only further along them. It shows in Hotelling's T²
+// (and so in φ), which measures the distance along the modes, while the
+// squared prediction error and the residual statistics, which measure a
+// break of the relations, stay within their limits. A fault that adds a
+// new event to the process (a sensor bias, a broken relation) moves the
+// frame off the model plane and shows in them (Kourti & MacGregor,
+// "Process analysis, monitoring and diagnosis, using multivariate
+// projection methods", Chemometr. Intell. Lab. Syst. 28, 1995; Qin,
+// "Statistical process monitoring: basics and beyond", J. Chemometr.
+// 17, 2003, §3: a T² alarm alone may be a change of operating region, an
+// SPE alarm a change of the correlation; both from memory).
+//
+// A single-channel fault can also show in T² alone, when its channel leads
+// a mode of its own (a level, a bearing temperature). It differs from a
+// move in where the excess sits: reconstructing that one channel removes
+// most of the index (Contributor.Share ≥ Rules.SpecificShare, the
+// "specific" frame of reopen.go; Alcalá & Qin 2009), while a move along a
+// mode spreads it over the mode's channels.
+//
+// So, when a unit's model alarm would open an incident with only T² and φ
+// in alarm, no residual statistic in alarm, a frame that names no channel
+// of its own (not specific), no model incident open or able to re-open,
+// and no new-operating-point record of the unit within the last
+// AcceptAfter, the engine publishes one informational record instead
+// (KindNotice, GroupPoint, EndNoted: no alert, never counted as one) and
+// hands every channel of the frame to the Accepting learner, which widens
+// the unit's learned normal to hold the new point (the accept path of
+// hold.go; pipeline.DefaultAcceptWeight). While the point is being learned
+// T² and φ open nothing. The point escalates to an incident, opened at the
+// frame it escalates on, when
+//
+//   - a residual statistic (SPE, res, var, rel) goes into alarm,
+//   - the T² excess concentrates on one channel (T² over its limit on
+//     specific frames for the unit's on-delay: the same N of M rule), or
+//   - T² or φ is still in alarm pointSettle after the record;
+//
+// it ends, silently, once T² and φ are back to normal. Nothing is judged
+// while the model is taking the point in (Observation.TakingIn): its
+// statistics are then measured against a model in change. A second excursion
+// within AcceptAfter of the record is an alert like any other, so the rule
+// never floods and never learns a sequence of excursions unseen.
+// Rules.NoNewPoint turns the rule off.
+
+// GroupPoint is the group of a new-operating-point record.
+const GroupPoint = "operating_point"
+
+// DefaultNewPoint: the new-operating-point rule is on by default (chosen on
+// the realism suite and the demo together, see the README).
+const DefaultNewPoint = true
+
+// pointSettle is how long T² and φ may stay in alarm after a new operating
+// point's record before it escalates to an incident (design choice: the
+// widening takes 30 frames, at most 30 min at the suite's slowest period
+// of 60 s, then the off-delay; twice that is left for the statistics to
+// come back).
+const pointSettle = time.Hour
+
+// pointState is a unit's new-operating-point rule.
+type pointState struct {
+	learning bool      // a point is being learned: T² and φ open nothing
+	last     time.Time // the unit's latest new-operating-point record
+	conc     Alarm     // on-delay of T² over its limit on specific frames
+}
+
+// newPointRule reports whether u runs the new-operating-point rule: it
+// needs a learner that can widen the unit's normal.
+func (e *Engine) newPointRule(u *unit) bool {
+	_, ok := e.learn.(Moving)
+	return ok && !u.rules.NoNewPoint && e.masking(u)
+}
+
+// residualInAlarm reports whether a statistic of u other than T² and φ is
+// in alarm.
+func (u *unit) residualInAlarm() bool {
+	for k := range u.stats {
+		if k != 0 && k != 2 && u.stats[k].State().InAlarm() {
+			return true
+		}
+	}
+	return false
+}
+
+// residualOver reports whether a statistic of u other than T² and φ is in
+// alarm and over its limit in o (an alarm clearing after its return, e.g.
+// from the frames the model was taking a point in, does not count).
+func (u *unit) residualOver(o *Observation) bool {
+	for i := range o.Stats {
+		s := &o.Stats[i]
+		k := statIndex(s.Name)
+		if k < 0 || k == 0 || k == 2 || !u.stats[k].State().InAlarm() {
+			continue
+		}
+		if s.Limit > 0 && s.Value > s.Limit {
+			return true
+		}
+	}
+	return false
+}
+
+// t2Over returns T²'s value over its limit in o (0 when absent).
+func t2Over(o *Observation) float64 {
+	for i := range o.Stats {
+		if s := &o.Stats[i]; s.Name == StatT2 {
+			if s.Limit > 0 && !math.IsInf(s.Limit, 0) && !math.IsNaN(s.Value) {
+				return s.Value / s.Limit
+			}
+		}
+	}
+	return 0
+}
+
+// stepPoint runs u's new-operating-point rule at frame o (time t); in says
+// whether a statistic of u is in alarm. It returns whether the unit's
+// model alarm is in alarm for the rest of Observe: false while a new point
+// is being learned on T² and φ alone.
+func (e *Engine) stepPoint(u *unit, o *Observation, t time.Time, in bool) bool {
+	if !e.newPointRule(u) {
+		return in
+	}
+	p := &u.point
+	r := t2Over(o)
+	if p.learning && o.TakingIn {
+		p.conc.Reset(t)
+		return false // the model is taking the point in: nothing to judge yet
+	}
+	v := 0.0
+	if r > 1 && u.specific(o) {
+		v = 2
+	}
+	p.conc.Step(t, v, 1)
+	g := &u.modelG
+	if p.learning {
+		switch {
+		case u.residualOver(o) || p.conc.State().InAlarm() || t.Sub(p.last) >= pointSettle:
+			p.learning = false // escalates: the model alarm activates on this frame
+			e.emit(Event{Time: t, Unit: u.name, Kind: EventPointEnd, Alarm: GroupPoint})
+			return in
+		case !in:
+			p.learning = false // learned: back within the limits
+			e.emit(Event{Time: t, Unit: u.name, Kind: EventPointEnd, Alarm: GroupPoint})
+		}
+		return false
+	}
+	if !in || g.inAlarm || g.inc != nil || len(u.loc.extra) > 0 || u.residualInAlarm() ||
+		p.conc.State() != Normal || u.specific(o) || u.reopenable(o, t) != nil ||
+		(!p.last.IsZero() && t.Sub(p.last) < u.rules.AcceptAfter) {
+		return in
+	}
+	p.learning, p.last = true, t
+	e.notePoint(u, o, t, r)
+	return false
+}
+
+// notePoint publishes the new-operating-point record of u at frame o and
+// hands every channel of the frame to the learner as the new normal.
+func (e *Engine) notePoint(u *unit, o *Observation, t time.Time, r float64) {
+	var lead strings.Builder
+	for i := range o.Contributors {
+		c := &o.Contributors[i]
+		if i < 3 {
+			if i > 0 {
+				lead.WriteString(", ")
+			}
+			fmt.Fprintf(&lead, "%s %.0f %%", c.Channel, 100*c.Share)
+		}
+	}
+	text := fmt.Sprintf("new operating point: %s moved beyond its normal range along its modes "+
+		"(T² %.2f times its limit, spread over its channels: %s; SPE and the residual statistics within their limits); "+
+		"learned as normal from now on. An alert follows if a residual statistic goes over its limit, "+
+		"one channel comes to explain the excess, or T² is not back within %v",
+		u.name, r, lead.String(), pointSettle)
+	rec := e.noticeRecord(u, GroupPoint, "move", text, t)
+	for i := range o.Contributors {
+		if i == maxNoticeContributors {
+			break
+		}
+		c := &o.Contributors[i]
+		rec.Contributors = append(rec.Contributors, RecordContributor{Rank: i + 1, Channel: c.Channel, Share: finite(c.Share),
+			RBC: finite(c.RBC), RBCLimit: finite(c.Limit), Modes: slices.Clone(c.Modes)})
+	}
+	rec.Peak = Peak{Statistic: StatT2, Value: r, Limit: 1, Ratio: r, Time: t.UTC()}
+	e.emit(Event{Time: t, Unit: u.name, Kind: EventPoint, Alarm: GroupPoint})
+	e.pub.Publish(rec)
+	if m, ok := e.learn.(Moving); ok {
+		m.Move(u.name)
+	}
+}
+
+// maxNoticeContributors bounds the channels a new-operating-point record
+// lists.
+const maxNoticeContributors = 5
