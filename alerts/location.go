@@ -527,6 +527,7 @@ func (e *Engine) restoreLocations(u *unit, su snapUnit, lookup func(string) (*in
 	if su.NewLoc != nil {
 		restoreAlarm(&u.loc.newLoc, *su.NewLoc)
 	}
+	u.point.restore(su.Point)
 	if u.rules.SingleIncident {
 		return nil
 	}

@@ -123,6 +123,7 @@ type snapUnit struct {
 	Extra     []string          `json:"extra_incidents,omitempty"`  // open model incidents after the first, oldest first
 	NewLoc    *snapAlarm        `json:"new_location,omitempty"`     // on-delay of a new location
 	Recent    []string          `json:"recent_incidents,omitempty"` // model incidents that may re-open, oldest end first
+	Point     *snapPoint        `json:"new_point,omitempty"`        // the new-operating-point rule (newpoint.go)
 }
 
 type snapshot struct {
@@ -207,6 +208,7 @@ func (e *Engine) snapshotOf(us []*unit, only string) *snapshot {
 		if nl := snapAlarmOf(&u.loc.newLoc); State(nl.State) != Normal || nl.Window != 0 {
 			su.NewLoc = &nl
 		}
+		su.Point = u.point.snap()
 		for _, q := range u.qorder { // sorted by kind, then channel
 			su.Quality = append(su.Quality, snapQuality{Kind: q.g.qkind, Channel: q.g.chann, Alarm: snapAlarmOf(&q.a), Group: snapGroupOf(&q.g, incs)})
 		}

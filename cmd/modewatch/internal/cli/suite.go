@@ -51,6 +51,9 @@ type suiteRow struct {
 	// driver move, or name a status channel (switchAlerts): the issue's
 	// target is none.
 	AtSwitch []string `json:"at_switch"`
+	// Notices are the informational records of the test days (a new
+	// operating point or state), which the scorer does not count.
+	Notices []suiteNotice `json:"notices"`
 	// Budgets sets each calibrated unit's measured false alerts beside
 	// fit's expected rate and interval (suiteBudgets).
 	Budgets []suiteBudget `json:"budget,omitempty"`
@@ -218,6 +221,9 @@ func runSuitePlant(ctx context.Context, dir string, p suitePlant, opt suiteOptio
 	if row.AtSwitch, err = switchAlerts(alertsFile, isFalse, sw, status); err != nil {
 		return fail(err)
 	}
+	if row.Notices, err = readNotices(alertsFile); err != nil {
+		return fail(err)
+	}
 	for i, e := range tr.Episodes {
 		k := row.Kinds[e.Kind]
 		k.Episodes++
@@ -267,6 +273,7 @@ func printSuite(w io.Writer, rows []suiteRow) {
 	}
 	fmt.Fprintf(w, "at a switch: false alerts starting within %v after a machine start or stop, a status change or a planned move (and its ramp), or naming a status channel (target 0; listed in --json): %s\n",
 		suiteSwitchWindow, strings.Join(parts, ", "))
+	printSuiteNotices(w, rows)
 	printSuiteBudgets(w, rows)
 	// Detection by fault kind, over all plants.
 	kinds := map[string]suiteDetect{}
