@@ -3,7 +3,6 @@ package alerts
 import (
 	"fmt"
 	"math"
-	"slices"
 	"strings"
 	"time"
 )
@@ -204,8 +203,10 @@ func (e *Engine) notePoint(u *unit, o *Observation, t time.Time, r float64) {
 			break
 		}
 		c := &o.Contributors[i]
-		rec.Contributors = append(rec.Contributors, RecordContributor{Rank: i + 1, Channel: c.Channel, Share: finite(c.Share),
-			RBC: finite(c.RBC), RBCLimit: finite(c.Limit), Modes: slices.Clone(c.Modes)})
+		d := RecordContributor{Rank: i + 1, Channel: c.Channel, Share: min(max(finite(c.Share), 0), 1),
+			RBC: max(finite(c.RBC), 0), RBCLimit: max(finite(c.Limit), 0), Modes: append([]int{}, c.Modes...)}
+		d.setExpected(c)
+		rec.Contributors = append(rec.Contributors, d)
 	}
 	rec.Peak = Peak{Statistic: StatT2, Value: r, Limit: 1, Ratio: r, Time: t.UTC()}
 	e.emit(Event{Time: t, Unit: u.name, Kind: EventPoint, Alarm: GroupPoint})

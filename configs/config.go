@@ -590,7 +590,7 @@ func DefaultModel() Model {
 
 // DefaultAlerts returns the default alarm settings.
 func DefaultAlerts() Alerts {
-	freeze := true
+	freeze, point := true, alerts.DefaultNewPoint
 	return Alerts{
 		Budget:   DefaultBudget,
 		OnDelay:  OnDelay{N: DefaultOnDelayN, M: DefaultOnDelayM},
@@ -604,6 +604,7 @@ func DefaultAlerts() Alerts {
 		Flood:         RateRule{Count: DefaultFloodCount, Window: DefaultFloodWindow},
 		Chatter:       RateRule{Count: DefaultChatterCount, Window: DefaultChatterWindow},
 		FreezeOnAlert: &freeze,
+		NewPoint:      &point,
 	}
 }
 

@@ -31,6 +31,7 @@ func TestSettingDefaults(t *testing.T) {
 		"smoothing":     "", // no smoothing
 		"statistics":    DefaultStatistics,
 		"state_scoring": tracker.DefaultStateScoring,
+		"new_point":     strconv.FormatBool(alerts.DefaultNewPoint),
 	}
 	if DefaultHalfLife != 7*24*time.Hour {
 		t.Fatalf("DefaultHalfLife = %v; the table above says 7d", DefaultHalfLife)

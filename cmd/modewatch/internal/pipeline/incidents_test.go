@@ -232,7 +232,9 @@ func TestRestartInsideRecentring(t *testing.T) {
 	b.level[0] = 3
 	b.run(3 * time.Hour)
 	ch, frames := collectFrames(t, b.lines.Bytes(), period)
-	cfg := &configs.Config{Alerts: configs.Alerts{AcceptAfter: 2 * time.Hour}}
+	// The step would be a new operating point (newpoint.go): the rule is
+	// off here so that it becomes an incident that is accepted.
+	cfg := &configs.Config{Alerts: configs.Alerts{AcceptAfter: 2 * time.Hour, NewPoint: &noPoint}}
 	cfg.ApplyDefaults()
 	var at time.Time
 	restartMatches(t, cfg, ch, period, frames, len(frames)-10, func(r *alerts.Record) {
@@ -341,8 +343,11 @@ func TestUnitWideMove(t *testing.T) {
 		}
 		return res
 	}
-	def := run(configs.Alerts{})
-	t.Logf("defaults: %d incidents of the move%s", def.move, describe(def.all))
+	// The rules compared here are specific_share and reopen_within; the
+	// new-operating-point rule, which takes the move in as a new point, is
+	// off in both runs and checked on its own below.
+	def := run(configs.Alerts{NewPoint: &noPoint})
+	t.Logf("defaults but new_point: %d incidents of the move%s", def.move, describe(def.all))
 	if def.move < 1 || def.move > 2 {
 		t.Errorf("the move opened %d incidents, want one or two", def.move)
 	}
@@ -355,12 +360,23 @@ func TestUnitWideMove(t *testing.T) {
 	// 12h: a shorter hold accepts and closes the train's incidents too
 	// (at 4h the rules off open 2 incidents on this seed), which would
 	// hide what the rules do.
-	off := run(configs.Alerts{SpecificShare: 1e-9, ReopenWithin: time.Nanosecond, AcceptAfter: 12 * time.Hour})
+	off := run(configs.Alerts{SpecificShare: 1e-9, ReopenWithin: time.Nanosecond, AcceptAfter: 12 * time.Hour, NewPoint: &noPoint})
 	t.Logf("rules off: %d incidents of the move, the bias on its own: %v%s", off.move, off.fault != nil, describe(off.all))
 	if off.move < def.move+3 {
 		t.Errorf("with the rules off the move opened %d incidents, with them %d: the test does not see them work", off.move, def.move)
 	}
+	// With every default, new_point included, the move opens no more
+	// incidents and the bias is still reported on its own.
+	all := run(configs.Alerts{})
+	t.Logf("defaults: %d incidents of the move%s", all.move, describe(all.all))
+	if all.move > def.move || all.fault == nil {
+		t.Errorf("with new_point the move opened %d incidents (%d without) and the bias was reported on its own: %v", all.move, def.move, all.fault != nil)
+	}
 }
+
+// noPoint turns the new-operating-point rule off (alerts.new_point false)
+// in tests of the incident rules it would bypass.
+var noPoint = false
 
 // TestSecondFaultBeyond: a strong fault on the pump (8σ on one channel),
 // then, while it persists, a weaker one on the dryer of the same unit
@@ -442,14 +458,15 @@ func TestAcceptedIncidentCloses(t *testing.T) {
 		}
 		return worst, accepted
 	}
-	w, n := open(configs.Alerts{AcceptAfter: 2 * time.Hour})
+	// The step would be a new operating point (newpoint.go): off here.
+	w, n := open(configs.Alerts{AcceptAfter: 2 * time.Hour, NewPoint: &noPoint})
 	if n == 0 {
 		t.Fatal("the setpoint step raised no incident accepted as the new normal")
 	}
 	if w > 30*time.Minute {
 		t.Errorf("an accepted incident stayed open %v after its acceptance, want at most 30m", w)
 	}
-	old, _ := open(configs.Alerts{AcceptAfter: 2 * time.Hour, AcceptWeight: -1})
+	old, _ := open(configs.Alerts{AcceptAfter: 2 * time.Hour, AcceptWeight: -1, NewPoint: &noPoint})
 	t.Logf("longest open after acceptance: widening %v, moving the means %v", w, old)
 }
 

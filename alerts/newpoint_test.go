@@ -1,0 +1,233 @@
+package alerts
+
+import (
+	"bytes"
+	"sync"
+	"testing"
+	"time"
+)
+
+// pointLog is a masking Learning that also takes in new normals,
+// recording each Move and Accept.
+type pointLog struct {
+	maskLog
+	mu      sync.Mutex
+	moves   []string
+	accepts int
+}
+
+func (p *pointLog) Move(unit string) {
+	p.mu.Lock()
+	defer p.mu.Unlock()
+	p.moves = append(p.moves, unit)
+}
+
+func (p *pointLog) Accept(unit string, ch []string) {
+	p.mu.Lock()
+	defer p.mu.Unlock()
+	p.accepts++
+}
+
+// pointHarness is a harness whose engine masks, accepts and moves.
+func pointHarness(t *testing.T, cfg Config) (*harness, *pointLog) {
+	t.Helper()
+	h := &harness{t: t, learn: &learnLog{}}
+	pl := &pointLog{}
+	cfg.OnEvent = func(ev Event) { h.events = append(h.events, ev) }
+	e, err := NewEngine(cfg, PublisherFunc(func(r *Record) {
+		validateRecord(t, r)
+		h.recs = append(h.recs, r)
+	}), pl, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	h.e = e
+	return h, pl
+}
+
+// pointFrame feeds unit "u" at second at: T² at t2 times its limit, SPE at
+// spe times its limit, φ between them, res inside; the leading channel
+// explains share of the index (the next two less), over its own limit.
+// taking marks the model as taking in a new normal.
+func (h *harness) pointFrame(at, t2, spe, share float64, taking bool) {
+	h.t.Helper()
+	phi := (t2 + spe) / 2
+	o := Observation{Unit: "u", Time: sec(at), ModelState: ModelAdapting, TakingIn: taking,
+		Stats: []Stat{{StatT2, 10 * t2, 10}, {StatSPE, 5 * spe, 5}, {StatPhi, phi, 1}, {StatResidual, 1, 8}}}
+	rest := (1 - share) / 3
+	for i, c := range []string{"u.header.pressure", "u.pump1.dp", "u.pump2.dp"} {
+		s := rest
+		if i == 0 {
+			s = share
+		}
+		o.Contributors = append(o.Contributors, Contributor{Channel: c, RBC: 4 * s, Limit: 0.3, Share: s})
+	}
+	if err := h.e.Observe(&o); err != nil {
+		h.t.Fatalf("observe at %v: %v", at, err)
+	}
+}
+
+// kinds counts the records of h by kind and group (first revisions).
+func (h *harness) kinds() (notices, incidents int) {
+	seen := map[string]bool{}
+	for _, r := range h.recs {
+		if seen[r.ID] {
+			continue
+		}
+		seen[r.ID] = true
+		switch {
+		case r.Kind == KindNotice && r.Group == GroupPoint:
+			notices++
+		case r.Kind == KindIncident && r.Group == GroupModel:
+			incidents++
+		}
+	}
+	return notices, incidents
+}
+
+// TestNewPoint: the new-operating-point rule (newpoint.go) on hand-made
+// frames at 10 s. A T² excursion spread over the channels (first share
+// 0.2) with SPE and res inside their limits is one notice and a Move, no
+// incident; the model's taking it in is not judged; back within the
+// limits, it is learned; a second excursion within accept_after is an
+// incident like any other. A T² excursion of the same size that one
+// channel explains (share 0.8) is an incident at once, with no notice.
+// After a point is taken in, SPE over its limit for the on-delay escalates
+// it to an incident. With the rule off the spread excursion is an
+// incident.
+func TestNewPoint(t *testing.T) {
+	t.Run("spread", func(t *testing.T) {
+		h, pl := pointHarness(t, Config{})
+		k := 0.0
+		for ; k < 5; k++ {
+			h.pointFrame(10*k, 0.5, 0.2, 0.2, false)
+		}
+		for ; k < 10; k++ {
+			h.pointFrame(10*k, 1.5, 0.2, 0.2, false)
+		}
+		if n, i := h.kinds(); n != 1 || i != 0 || len(pl.moves) != 1 {
+			t.Fatalf("spread T² excursion: %d notices, %d incidents, moves %v; want 1, 0, [u]", n, i, pl.moves)
+		}
+		for ; k < 40; k++ { // the model takes the point in: wild statistics are not judged
+			h.pointFrame(10*k, 4, 3, 0.6, true)
+		}
+		for ; k < 100; k++ {
+			h.pointFrame(10*k, 0.5, 0.2, 0.2, false)
+		}
+		if n, i := h.kinds(); n != 1 || i != 0 {
+			t.Fatalf("after the point was taken in: %d notices, %d incidents; want 1, 0", n, i)
+		}
+		if last := h.events[len(h.events)-1]; !hasEvent(h.events, EventPointEnd) {
+			t.Errorf("no %s event (last %+v)", EventPointEnd, last)
+		}
+		for ; k < 120; k++ { // within accept_after of the first: an alert
+			h.pointFrame(10*k, 1.5, 0.2, 0.2, false)
+		}
+		if n, i := h.kinds(); n != 1 || i != 1 || len(pl.moves) != 1 {
+			t.Errorf("second excursion within accept_after: %d notices, %d incidents, %d moves; want 1, 1, 1", n, i, len(pl.moves))
+		}
+	})
+	t.Run("one channel", func(t *testing.T) {
+		h, pl := pointHarness(t, Config{})
+		for k := 0.0; k < 10; k++ {
+			h.pointFrame(10*k, 1.5, 0.2, 0.8, false)
+		}
+		if n, i := h.kinds(); n != 0 || i != 1 || len(pl.moves) != 0 {
+			t.Errorf("T² excursion on one channel: %d notices, %d incidents, %d moves; want 0, 1, 0", n, i, len(pl.moves))
+		}
+	})
+	t.Run("escalates", func(t *testing.T) {
+		h, _ := pointHarness(t, Config{})
+		k := 0.0
+		for ; k < 10; k++ {
+			h.pointFrame(10*k, 1.5, 0.2, 0.2, false)
+		}
+		for ; k < 40; k++ {
+			h.pointFrame(10*k, 1.5, 0.2, 0.2, true)
+		}
+		for ; k < 60; k++ {
+			h.pointFrame(10*k, 1.5, 2, 0.2, false)
+		}
+		n, i := h.kinds()
+		if n != 1 || i != 1 {
+			t.Fatalf("SPE joining after the point was taken in: %d notices, %d incidents; want 1, 1", n, i)
+		}
+		for _, r := range h.recs {
+			if r.Kind == KindIncident && !r.Start.After(sec(400)) {
+				t.Errorf("incident %s starts at %v, before SPE went over its limit (400 s)", r.ID, r.Start)
+			}
+		}
+	})
+	t.Run("off", func(t *testing.T) {
+		h, pl := pointHarness(t, Config{Rules: Rules{NoNewPoint: true}})
+		for k := 0.0; k < 10; k++ {
+			h.pointFrame(10*k, 1.5, 0.2, 0.2, false)
+		}
+		if n, i := h.kinds(); n != 0 || i != 1 || len(pl.moves) != 0 {
+			t.Errorf("rule off: %d notices, %d incidents, %d moves; want 0, 1, 0", n, i, len(pl.moves))
+		}
+	})
+}
+
+// TestNewPointSnapshot: a snapshot taken while a point is being learned
+// restores it: the restored engine publishes the same records as the one
+// that went on.
+func TestNewPointSnapshot(t *testing.T) {
+	feed := func(h *harness, from, to float64) {
+		for k := from; k < to; k++ {
+			switch {
+			case k < 10:
+				h.pointFrame(10*k, 1.5, 0.2, 0.2, false)
+			case k < 40:
+				h.pointFrame(10*k, 1.5, 0.2, 0.2, true)
+			case k < 60:
+				h.pointFrame(10*k, 1.5, 0.2, 0.2, false) // still over: escalates an hour after the notice
+			default:
+				h.pointFrame(10*k, 1.5, 0.2, 0.2, false)
+			}
+		}
+	}
+	whole, _ := pointHarness(t, Config{})
+	feed(whole, 0, 500)
+	first, _ := pointHarness(t, Config{})
+	feed(first, 0, 20)
+	var snap bytes.Buffer
+	if err := first.e.Snapshot(&snap); err != nil {
+		t.Fatal(err)
+	}
+	second, _ := pointHarness(t, Config{})
+	if err := second.e.Restore(&snap); err != nil {
+		t.Fatal(err)
+	}
+	feed(second, 20, 500)
+	got := append(first.recs, second.recs...)
+	if len(got) != len(whole.recs) {
+		t.Fatalf("%d records across the restart, %d without", len(got), len(whole.recs))
+	}
+	for i := range got {
+		if got[i].ID != whole.recs[i].ID || got[i].Revision != whole.recs[i].Revision {
+			t.Errorf("record %d: %s rev %d across the restart, %s rev %d without", i, got[i].ID, got[i].Revision, whole.recs[i].ID, whole.recs[i].Revision)
+		}
+	}
+	if n, i := whole.kinds(); n != 1 || i != 1 {
+		t.Errorf("T² still over its limit an hour after the notice: %d notices, %d incidents; want 1, 1", n, i)
+	}
+	var noted time.Time
+	for _, r := range whole.recs {
+		switch {
+		case r.Kind == KindNotice:
+			noted = r.Start
+		case r.Kind == KindIncident && r.Start.Sub(noted) < pointSettle:
+			t.Errorf("incident %s at %v: before the hour after the notice (%v)", r.ID, r.Start, noted)
+		}
+	}
+}
+
+func hasEvent(evs []Event, kind string) bool {
+	for _, e := range evs {
+		if e.Kind == kind {
+			return true
+		}
+	}
+	return false
+}
