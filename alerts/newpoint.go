@@ -115,9 +115,9 @@ func (u *unit) residualOver(o *Observation) bool {
 // frame's excess to be concentrated on it (design choice: half of it; on
 // the realism suite a planned move's first channel explains 0.20, a
 // seeded move in TestNewOperatingPoint 0.15 to 0.26, a sensor bias on a
-// channel that leads a mode of its own 0.6 to 0.8 there; with a quarter,
-// the share that names a place, the suite got six records, one of them
-// inside a fault that was then missed).
+// channel that leads a mode of its own 0.6 to 0.8 there; a quarter, the
+// share that names a place, gives the same suite but turned one seeded
+// move of three into an alert).
 const pointShare = 0.5
 
 // concentrated reports whether o's first leading channel alone explains
