@@ -123,8 +123,9 @@ const pointShare = 0.5
 // concentrated reports whether o's first leading channel alone explains
 // at least pointShare of the index (see [unit.specific]).
 func concentrated(o *Observation) bool {
-	s, ok := firstLeadShare(o)
-	return ok && s >= pointShare
+	var buf [LeadCount]string
+	lead, s := leading(buf[:0], o)
+	return len(lead) > 0 && s >= pointShare
 }
 
 // t2Over returns T²'s value over its limit in o (0 when absent).
