@@ -29,19 +29,25 @@ func (m *maskLog) Mask(unit string, ch []string) {
 // locHarness is a harness whose engine masks instead of freezing.
 func locHarness(t *testing.T, cfg Config) (*harness, *maskLog) {
 	t.Helper()
-	h := &harness{t: t, learn: &learnLog{}}
 	ml := &maskLog{}
+	return learnHarness(t, cfg, ml), ml
+}
+
+// learnHarness is a harness whose engine uses the Learning learn.
+func learnHarness(t *testing.T, cfg Config, learn Learning) *harness {
+	t.Helper()
+	h := &harness{t: t, learn: &learnLog{}}
 	cfg.OnEvent = func(ev Event) { h.events = append(h.events, ev) }
 	e, err := NewEngine(cfg, PublisherFunc(func(r *Record) {
 		validateRecord(t, r)
 		h.recs = append(h.recs, r)
-	}), ml, nil)
+	}), learn, nil)
 	if err != nil {
 		t.Fatal(err)
 	}
 	e.SetClock(func() time.Time { return time.Date(2026, 3, 2, 9, 0, 0, 0, time.UTC) })
 	h.e = e
-	return h, ml
+	return h
 }
 
 // frame feeds unit "u" at second at with φ ratio r and the given channels

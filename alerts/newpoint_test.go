@@ -31,18 +31,8 @@ func (p *pointLog) Accept(unit string, ch []string) {
 // pointHarness is a harness whose engine masks, accepts and moves.
 func pointHarness(t *testing.T, cfg Config) (*harness, *pointLog) {
 	t.Helper()
-	h := &harness{t: t, learn: &learnLog{}}
 	pl := &pointLog{}
-	cfg.OnEvent = func(ev Event) { h.events = append(h.events, ev) }
-	e, err := NewEngine(cfg, PublisherFunc(func(r *Record) {
-		validateRecord(t, r)
-		h.recs = append(h.recs, r)
-	}), pl, nil)
-	if err != nil {
-		t.Fatal(err)
-	}
-	h.e = e
-	return h, pl
+	return learnHarness(t, cfg, pl), pl
 }
 
 // pointFrame feeds unit "u" at second at: T² at t2 times its limit, SPE at

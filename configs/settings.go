@@ -132,6 +132,19 @@ func setDuration(field func(o *Overrides) *time.Duration) func(*Overrides, strin
 	}
 }
 
+// setBool returns a setter of a true|false setting held in the field
+// field returns (nil: unset).
+func setBool(field func(o *Overrides) **bool) func(o *Overrides, s string) (string, error) {
+	return func(o *Overrides, s string) (string, error) {
+		b, err := strconv.ParseBool(s)
+		if err != nil {
+			return s, fmt.Errorf("%q: want true or false", s)
+		}
+		*field(o) = &b
+		return strconv.FormatBool(b), nil
+	}
+}
+
 // setFraction reads a number in (0, hi), what says what it is.
 func setFraction(hi float64, what string, field func(o *Overrides) *float64) func(*Overrides, string) (string, error) {
 	return func(o *Overrides, s string) (string, error) {
@@ -254,26 +267,12 @@ var settings = []Setting{
 	{
 		Name: "new_point", Section: "alerts", Grid: true, Default: strconv.FormatBool(alerts.DefaultNewPoint),
 		Doc: "true|false: a model alarm of T² alone, spread over the unit's channels with SPE and the residual statistics within their limits, is recorded once as a new operating point and learned, not alerted",
-		set: func(o *Overrides, s string) (string, error) {
-			b, err := strconv.ParseBool(s)
-			if err != nil {
-				return s, fmt.Errorf("%q: want true or false", s)
-			}
-			o.Alerts.NewPoint = &b
-			return strconv.FormatBool(b), nil
-		},
+		set: setBool(func(o *Overrides) **bool { return &o.Alerts.NewPoint }),
 	},
 	{
 		Name: "adapt", Section: "model", Grid: true, Default: "true",
 		Doc: "true|false: keep learning while scoring",
-		set: func(o *Overrides, s string) (string, error) {
-			b, err := strconv.ParseBool(s)
-			if err != nil {
-				return s, fmt.Errorf("%q: want true or false", s)
-			}
-			o.Model.Adapt = &b
-			return strconv.FormatBool(b), nil
-		},
+		set: setBool(func(o *Overrides) **bool { return &o.Model.Adapt }),
 	},
 	{
 		Name: "limits", Section: "model", Default: LimitsTheory,

@@ -30,15 +30,10 @@ import (
 func mpPlant(from, to int, move, bias func(k int) float64, seed uint64) []byte {
 	rng := rand.New(rand.NewPCG(seed, 77))
 	var b bytes.Buffer
-	levels := []float64{4.4, 4.5, 4.6}
 	phi := math.Exp(-10.0 / (6 * 3600))
 	lv := 0.0
 	for k := from; k < to; k++ {
-		sp := levels[(k/720)%3]
-		if move != nil {
-			sp += move(k)
-		}
-		d := 0.12*math.Sin(2*math.Pi*float64(k)/8640) + 0.03*math.Sin(2*math.Pi*float64(k)/700)
+		sp, d := spDemand(k, move)
 		n := func(s float64) float64 { return s * rng.NormFloat64() }
 		lv = phi*lv + 1.5*math.Sqrt(1-phi*phi)*rng.NormFloat64()
 		level := 70 + lv + n(0.3)

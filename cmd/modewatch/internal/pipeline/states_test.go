@@ -861,14 +861,9 @@ func TestContextSuggested(t *testing.T) {
 func spPlant(from, to int, move func(k int) float64, stuck func(k int) bool, seed uint64) []byte {
 	rng := rand.New(rand.NewPCG(seed, 41))
 	var b bytes.Buffer
-	levels := []float64{4.4, 4.5, 4.6}
 	held, temp := math.NaN(), 0.0
 	for k := from; k < to; k++ {
-		sp := levels[(k/720)%3]
-		if move != nil {
-			sp += move(k)
-		}
-		d := 0.12*math.Sin(2*math.Pi*float64(k)/8640) + 0.03*math.Sin(2*math.Pi*float64(k)/700)
+		sp, d := spDemand(k, move)
 		n := func(s float64) float64 { return s * rng.NormFloat64() }
 		temp = 0.999*temp + 0.05*rng.NormFloat64()
 		tv := 12 + temp + n(0.02)
@@ -883,6 +878,17 @@ func spPlant(from, to int, move func(k int) float64, stuck func(k int) bool, see
 			sp, sp+0.3*d+n(0.015), 600+800*d-40*(sp-4.5)+n(6), 150+120*d+30*(sp-4.5)+n(1), tv, ts)
 	}
 	return b.Bytes()
+}
+
+// spDemand returns at frame k (10 s) the setpoint sp of spPlant and
+// mpPlant, stepping between 4.4, 4.5 and 4.6 every 2 h and raised by
+// move(k) (nil: none), and the demand swing D (daily and 2-hourly).
+func spDemand(k int, move func(k int) float64) (sp, d float64) {
+	sp = []float64{4.4, 4.5, 4.6}[(k/720)%3]
+	if move != nil {
+		sp += move(k)
+	}
+	return sp, 0.12*math.Sin(2*math.Pi*float64(k)/8640) + 0.03*math.Sin(2*math.Pi*float64(k)/700)
 }
 
 // TestSetpointMoveAsDriver: the unit's own setpoint channel, named as a
