@@ -6,12 +6,14 @@ import (
 	"fmt"
 	"math"
 	"math/rand/v2"
+	"slices"
 	"strings"
 	"testing"
 	"time"
 
 	"modewatch/alerts"
 	"modewatch/configs"
+	"modewatch/stream"
 )
 
 // mpPlant writes frames [from, to) of an invented pressure-supply unit p at
@@ -161,6 +163,45 @@ func TestNewOperatingPoint(t *testing.T) {
 					bs.alerts, bs.lead, bs.points)
 			}
 			t.Logf("T² over its limit: move's record %.2f, bias alert's peak %.2f", mv.pointRatio, bs.ratio)
+		})
+	}
+}
+
+// TestRestartInsidePoint: a unit that learns from its first frame (no
+// fitted model) meets mpPlant's planned move on its second day; the move
+// is a new operating point, and the unit takes in every channel over the
+// next recentreFrames frames. A checkpoint cut at the record's frame (the
+// point handed over, not yet taken up) and one cut 10 frames into the
+// window restore to the uninterrupted run's scores and alert revisions bit
+// for bit (the checkpoint carries the alarm engine's point and the
+// window's channels).
+func TestRestartInsidePoint(t *testing.T) {
+	const day = 8640
+	move := func(k int) float64 {
+		if k < day+3000 {
+			return 0
+		}
+		return 0.4 * math.Min(1, float64(k-day-3000)/90)
+	}
+	ch, frames := collectFrames(t, mpPlant(0, day+4000, move, nil, 5), sPeriod)
+	cfg := mpConfig(t, "")
+	cfg.ApplyDefaults()
+	var at time.Time
+	restartMatches(t, cfg, ch, sPeriod, frames, len(frames)-10, func(r *alerts.Record) {
+		if r.Kind == alerts.KindNotice && r.Group == alerts.GroupPoint && at.IsZero() {
+			at = r.Start
+		}
+	})
+	if at.IsZero() {
+		t.Fatal("the move raised no new-operating-point record")
+	}
+	k := slices.IndexFunc(frames, func(f stream.Frame) bool { return f.Start.Equal(at) })
+	if k < 0 {
+		t.Fatalf("no frame at the record %v", at)
+	}
+	for _, after := range []int{0, 10} {
+		t.Run(fmt.Sprintf("cut %d frames after the record", after), func(t *testing.T) {
+			restartMatches(t, cfg, ch, sPeriod, frames, k+1+after, nil)
 		})
 	}
 }
