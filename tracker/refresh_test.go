@@ -126,3 +126,60 @@ func TestRefreshFailureKeepsModel(t *testing.T) {
 		})
 	}
 }
+
+// A Fit whose refresh fails leaves the tracker as it was: the learned
+// statistics that standardize each frame, the model, and the flat-run
+// counters of the stuck rule. The batch is independent channels, from which
+// the squared ℓ1 penalty γ = 2.5 keeps no mode (see above), while the
+// tracker learned two blocks of four channels correlated at 0.9.
+func TestFitFailureKeepsTracker(t *testing.T) {
+	const p = 8
+	tr, err := New(p, Config{Period: time.Second, HalfLife: time.Hour, WarmUp: 200, RefreshEvery: 1 << 20,
+		FlatFrames: 20, Modes: modes.Config{Count: 1, Sparsity: []modes.Sparsity{{Method: modes.L1Pen, Gamma: 2.5}}}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	src := newGaussSource(5, blockCorrelation(p, 4, 0.9))
+	var sc Score
+	x := make([]float64, p)
+	for k := 0; k < 300; k++ {
+		if err := tr.Step(&sc, src.frame(x), nil); err != nil {
+			t.Fatalf("frame %d: %v", k, err)
+		}
+	}
+	for k := 0; k < 5; k++ { // channel 3 starts a flat run of 5 frames
+		src.frame(x)
+		x[3] = 7.5
+		if err := tr.Step(&sc, x, nil); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if tr.Modes().Count() == 0 {
+		t.Fatal("no modes before the failed fit")
+	}
+	run := slices.Clone(tr.run)
+	var before Score
+	if err := tr.Evaluate(&before, x, nil); err != nil {
+		t.Fatal(err)
+	}
+
+	indep := newGaussSource(9, blockCorrelation(p, 1, 0))
+	batch := make([][]float64, 400)
+	for k := range batch {
+		batch[k] = slices.Clone(indep.frame(make([]float64, p)))
+	}
+	if err := tr.Fit(batch); !errors.Is(err, ErrModel) {
+		t.Fatalf("Fit: %v, want %v", err, ErrModel)
+	}
+
+	var after Score
+	if err := tr.Evaluate(&after, x, nil); err != nil {
+		t.Fatal(err)
+	}
+	if !reflect.DeepEqual(after, before) {
+		t.Errorf("score changed:\n%+v\nbefore\n%+v", after, before)
+	}
+	if !slices.Equal(tr.run, run) {
+		t.Errorf("flat runs %v, before the failed fit %v", tr.run, run)
+	}
+}

@@ -889,6 +889,8 @@ func (t *Tracker) install(nEff float64) {
 // the modes and limits, with the effective sample size n. The tracker then
 // scores against this baseline without learning until Thaw. Frames may not
 // have missing or non-finite values; the error names the first such value.
+// A Fit that fails, in its checks or in the refresh, leaves the tracker as
+// it was: its statistics, model, flat runs and lag ring.
 func (t *Tracker) Fit(frames [][]float64) error {
 	n := len(frames)
 	if n < 3 {
@@ -921,15 +923,19 @@ func (t *Tracker) Fit(frames [][]float64) error {
 		e.cov.Data[i] *= s
 	}
 	e.mu = t.ew.mu
+	// Refresh reads the statistics and the channel count it may include;
+	// a refresh that fails puts both back, so the tracker stays as it was.
+	oldEW, oldP0 := t.ew, t.p0
 	t.ew = e
 	t.p0 = t.p // every channel is in every fit frame
+	if err := t.Refresh(); err != nil {
+		t.ew, t.p0 = oldEW, oldP0
+		return err
+	}
 	t.lag.reset()
 	for i := range t.run {
 		t.run[i] = 0
 		t.last[i] = math.NaN()
-	}
-	if err := t.Refresh(); err != nil {
-		return err
 	}
 	t.baseline = true
 	t.learned = uint64(n)
