@@ -20,22 +20,33 @@ type Calibration struct {
 	Scale float64 `json:"scale"`
 	// Budget is the target, false alerts per day.
 	Budget float64 `json:"budget_per_day"`
-	// Rate is the expected false alerts per day at Scale from the
-	// extreme-value model, RateSE its standard error and RateLow and
-	// RateHigh its approximate 95 % interval (delta method): where the
-	// true rate lies, not how many alerts a few days will count (Week,
-	// Predict).
+	// Rate is the expected false alerts per day at Scale, RateSE its
+	// standard error and RateLow and RateHigh its approximate 95 %
+	// interval: where the true rate lies, not how many alerts a few days
+	// will count (Week, Predict). They come from the held-out alerts
+	// themselves, anchored at the level of the (Observed+1)-th held-out
+	// excursion and carried to Scale by the GEV's tail (stateRate); model
+	// files written before it state GEVRate here, with the delta method's
+	// interval.
 	Rate     float64 `json:"rate_per_day"`
 	RateSE   float64 `json:"rate_se_per_day"`
 	RateLow  float64 `json:"rate_low_per_day"`
 	RateHigh float64 `json:"rate_high_per_day"`
+	// GEVRate is the extreme-value model's own rate at Scale, −ln(1 − P)
+	// alerts per block for its block exceedance probability P: at the
+	// GEV's scale it is about the budget, and from 20 block maxima it
+	// understates the true rate (README, False-alert budget). Model files
+	// written before it have none.
+	GEVRate float64 `json:"gev_rate_per_day,omitempty"`
 	// Week is the predictive interval of the number of false alerts over
 	// PredictWeekDays of normal operation (Predict): the rate's
 	// uncertainty and the chance of counting together. Model files
 	// written before it have none.
 	Week *Prediction `json:"predicted_week,omitempty"`
 	// Observed is the number of alerts the whole alarm rule opened over
-	// the held-out data at Scale; HeldOutDays the held-out span.
+	// the held-out data at Scale; HeldOutDays the held-out exposure, the
+	// frames times their period (model files written before it: the
+	// span from the first to the last frame, one period less).
 	Observed    int     `json:"observed_alerts"`
 	HeldOutDays float64 `json:"held_out_days"`
 	// Blocks of length Block gave the block maxima of the rule statistic
@@ -47,8 +58,8 @@ type Calibration struct {
 	Xi     float64         `json:"gev_xi"`
 	// GEVScale, when set, is the GEV's scale for the budget, which opened
 	// more alerts over the held-out data than the budget allows there
-	// (⌊budget · HeldOutDays⌋); Scale was then raised to the smallest that
-	// does not, and Rate is the GEV's rate at it.
+	// (heldOutAllowance); Scale was then raised to the smallest that
+	// does not.
 	GEVScale float64 `json:"gev_scale,omitempty"`
 	// Scales, when set (alerts.budget_per_statistic), multiply each
 	// statistic's limit by its own factor, keyed by statistic name (t2,
@@ -183,12 +194,12 @@ func AlarmRule(c *configs.Config, name string) alerts.AlarmRule {
 // counts at most one alert per block, which holds at the rare levels of a
 // budget (the off-delay merges the frames of one excursion). c solves
 // rate(c) = budget: c = z_p, the GEV return level at p = budget · block /
-// day. The interval is the delta-method 95 % interval of P at c. The
-// whole alarm rule (alerts.Alarm per statistic, any active opens the
-// unit's alert, off-delay and deadband included) is then run over the
+// day. The whole alarm rule (alerts.Alarm per statistic, any active opens
+// the unit's alert, off-delay and deadband included) is then run over the
 // held-out frames at c to count the alerts it opens (Observed).
 //
-// When that count exceeds ⌊budget · held-out days⌋, the GEV contradicts
+// When that count is not below budget · held-out days
+// (heldOutAllowance), the GEV contradicts
 // the data it was fitted to (an excursion the block maxima count once
 // opens several alerts when the statistic hovers about the limit longer
 // than the off-delay), and c is raised to the smallest scale whose count
@@ -196,6 +207,12 @@ func AlarmRule(c *configs.Config, name string) alerts.AlarmRule {
 // suite this raised 7 of 10 units' scales by up to 24 % and took the
 // false alerts per day summed over the plants from 9.2 to 8.4 at the
 // same detections (README, Validation).
+//
+// The rate stated at the final scale (Rate, its interval and Week) comes
+// from the held-out alerts, anchored at the next excursion below the
+// scale and carried to it by the GEV (stateRate): the GEV's own rate
+// there, GEVRate, understates it from 20 block maxima. DaysNeeded is the
+// GEV's.
 //
 // learnDays, the span of normal log used for learning before the held-out
 // part, only enters DaysNeeded.
@@ -208,7 +225,7 @@ func CalibrateBudget(t []time.Time, ratios [][nStatistics]float64, budget float6
 		return Calibration{}, fmt.Errorf("%w: budget %v per day", ErrCalibration, budget)
 	}
 	span := t[n-1].Sub(t[0])
-	days := span.Hours() / 24
+	days := heldOutExposureDays(t)
 	// Blocks short enough that the budget's level is exceeded in at most
 	// 1 block in 5 (one alert per block), long enough to be independent.
 	block := span / minBlocks
@@ -255,7 +272,7 @@ func CalibrateBudget(t []time.Time, ratios [][nStatistics]float64, budget float6
 		cal.DaysNeeded = (days + learnDays) * f * f
 	}
 	cal.Observed = countAlerts(t, ratios, c, rule)
-	if allow := math.Floor(budget * days); float64(cal.Observed) > allow {
+	if allow := heldOutAllowance(budget, days); float64(cal.Observed) > allow {
 		// The held-out data contradicts the GEV: raise the scale to the
 		// smallest at which the whole rule opens at most the budget's
 		// share of alerts over them.
@@ -266,6 +283,8 @@ func CalibrateBudget(t []time.Time, ratios [][nStatistics]float64, budget float6
 		cal.setRate(pc, se, perDay)
 		cal.Observed = countAlerts(t, ratios, c, rule)
 	}
+	cal.stateRate(fit, func(g limits.GEV, x float64) float64 { return g.Exceed(c * x) },
+		func(x float64) int { return countAlerts(t, ratios, c*x, rule) }, perDay)
 	return cal, nil
 }
 
@@ -274,6 +293,7 @@ func CalibrateBudget(t []time.Time, ratios [][nStatistics]float64, budget float6
 // standard error se, with perDay blocks a day, and the week's predictive
 // interval of the count; it returns the relative standard error. The
 // rate's interval is on the log scale (P is positive and skewed).
+// CalibrateBudget and calibrateEach state the final rate with stateRate.
 func (cal *Calibration) setRate(pc, se, perDay float64) (rel float64) {
 	if pc > 0 {
 		rel = se / pc

@@ -8,6 +8,8 @@ import (
 	"testing"
 	"time"
 
+	"gonum.org/v1/gonum/floats/scalar"
+
 	"modewatch/alerts"
 	"modewatch/configs"
 	"modewatch/tracker"
@@ -120,7 +122,7 @@ func TestBudgetAR1(t *testing.T) {
 // their peak longer than the off-delay, so that each breaks into several
 // alerts, while the block maxima count each once. The GEV's scale then
 // opens more alerts over the held-out days than the budget allows there
-// (⌊budget · days⌋); the calibration raises the scale to the smallest
+// (fewer than budget · days); the calibration raises the scale to the smallest
 // that does not (checked against a scan of the whole rule) and keeps the
 // GEV's scale. Invented series (seeded), derived check.
 func TestBudgetHeldOutFloor(t *testing.T) {
@@ -151,7 +153,7 @@ func TestBudgetHeldOutFloor(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	allow := int(math.Floor(budget * days))
+	allow := int(heldOutAllowance(budget, cal.HeldOutDays))
 	t.Logf("GEV scale %.4f, calibrated %.4f, held-out alerts %d (allowed %d), rate %.3f [%.3f, %.3f]",
 		cal.GEVScale, cal.Scale, cal.Observed, allow, cal.Rate, cal.RateLow, cal.RateHigh)
 	if !(cal.GEVScale > 0) {
@@ -167,8 +169,11 @@ func TestBudgetHeldOutFloor(t *testing.T) {
 	if got := countAlerts(ts, rs, cal.Scale*0.998, rule); got <= allow {
 		t.Errorf("0.2 %% below the calibrated scale the rule opens %d alerts, still within %d: the scale is not the smallest", got, allow)
 	}
-	if !(cal.Rate < budget) {
-		t.Errorf("rate at the raised scale %.3f, want below the budget %v", cal.Rate, budget)
+	// After a raise the scale is the level of the (Observed+1)-th held-out
+	// excursion, and the stated rate the Gamma(Observed+1) pivot's mean
+	// (stateRate), not the GEV's rate there.
+	if want := float64(cal.Observed+1) / cal.HeldOutDays; !scalar.EqualWithinAbsOrRel(cal.Rate, want, 1e-12, 1e-12) || !(cal.GEVRate < cal.Rate) {
+		t.Errorf("rate at the raised scale %.3f (GEV's %.3f), want the pivot's %.3f above the GEV's", cal.Rate, cal.GEVRate, want)
 	}
 }
 
@@ -371,7 +376,7 @@ func TestBudgetPerStatistic(t *testing.T) {
 	if spe := cal.Scales[alerts.StatSPE]; !(spe < 0.5*single) || spe > 1.25*clean.Scales[alerts.StatSPE] {
 		t.Errorf("SPE scale ×%.3f: want well below the single ×%.3f and near the clean ×%.3f", spe, single, clean.Scales[alerts.StatSPE])
 	}
-	if allow := int(math.Floor(budget * cal.HeldOutDays)); cal.Observed > allow {
+	if allow := int(heldOutAllowance(budget, cal.HeldOutDays)); cal.Observed > allow {
 		t.Errorf("the per-statistic rule opens %d alerts over the held-out days, %d allowed", cal.Observed, allow)
 	}
 }

@@ -247,7 +247,7 @@ func calibrateEach(cal *Calibration, t []time.Time, ratios [][nStatistics]float6
 		return
 	}
 	pc, se := fit.ExceedSE(y)
-	if allow := math.Floor(cal.Budget * cal.HeldOutDays); float64(countAlertsEach(t, ratios, sc, rule)) > allow {
+	if allow := heldOutAllowance(cal.Budget, cal.HeldOutDays); float64(countAlertsEach(t, ratios, sc, rule)) > allow {
 		l := raiseEach(t, ratios, sc, allow, rule)
 		for j := range sc {
 			sc[j] *= l
@@ -272,4 +272,23 @@ func calibrateEach(cal *Calibration, t []time.Time, ratios [][nStatistics]float6
 	}
 	cal.setRate(pc, se, perDay)
 	cal.Observed = countAlertsEach(t, ratios, sc, rule)
+	mul := func(x float64) [nStatistics]float64 {
+		var out [nStatistics]float64
+		for j := range sc {
+			out[j] = x * sc[j]
+		}
+		return out
+	}
+	// The rule opens in a block at scales x·sc only if Y_b exceeds the
+	// smallest of the statistics' levels there (as after a raise above).
+	exceed := func(g limits.GEV, x float64) float64 {
+		y := gumbelCap
+		for j := range sc {
+			if f := fits[j]; f != nil {
+				y = min(y, gumbelY(f.GEV, x*sc[j]))
+			}
+		}
+		return g.Exceed(y)
+	}
+	cal.stateRate(fit, exceed, func(x float64) int { return countAlertsEach(t, ratios, mul(x), rule) }, perDay)
 }
