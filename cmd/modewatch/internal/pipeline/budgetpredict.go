@@ -64,9 +64,9 @@ type Prediction struct {
 // noise plus the rate's uncertainty. a is the number of alerts that would
 // pin the rate as well as the fit does, b the days they would take. With
 // RateSE = 0 (or a above 10⁸) N is Poisson(Rate·days). It carries the
-// rate's sampling error, not a bias of the rate: from about 20 block
-// maxima the GEV's rate tends to understate the true one (see the
-// README's budget section), and the interval is then too low.
+// rate's sampling error, not a bias of the rate (fit's rate comes from
+// the held-out alerts, stateRate, because the GEV's own understates it
+// from 20 block maxima).
 func (c Calibration) Predict(days float64) Prediction {
 	p := Prediction{Days: days, Expected: c.Rate * days, Coverage: 1}
 	switch {
