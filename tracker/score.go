@@ -240,9 +240,25 @@ const cholBlock = 16
 // α = −1) on the panel transposed into buf (n × cholBlock). It reports
 // false if a pivot is not positive.
 func cholUpper(a []float64, n, lda int, buf []float64) bool {
+	var offs [cholBlock]int
+	var coef [cholBlock]float64
 	for k0 := 0; k0 < n; k0 += cholBlock {
 		k1 := min(k0+cholBlock, n)
 		for r := k0; r < k1; r++ {
+			if hasPanelKernel && r > k0 {
+				// Row r gets the updates of the panel rows above it in
+				// one pass (left-looking): the same products and
+				// subtractions, in the same order, as the Axpy of each
+				// of those rows at its own step below.
+				cnt := 0
+				for q := k0; q < r; q++ {
+					if v := a[q*lda+r]; v != 0 {
+						offs[cnt], coef[cnt] = (q-r)*lda, v
+						cnt++
+					}
+				}
+				panelSub(a, r*lda+r, n-r, offs[:cnt], coef[:cnt])
+			}
 			d := a[r*lda+r]
 			if !(d > 0) {
 				return false
@@ -253,7 +269,7 @@ func cholUpper(a []float64, n, lda int, buf []float64) bool {
 			if len(row) > 0 {
 				blas64.Scal(1/d, blas64.Vector{N: len(row), Inc: 1, Data: row})
 			}
-			for s := r + 1; s < k1; s++ {
+			for s := r + 1; s < k1 && !hasPanelKernel; s++ {
 				v := a[r*lda+s]
 				if v == 0 {
 					continue

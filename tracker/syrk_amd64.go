@@ -73,14 +73,8 @@ func trailingUpdate(a []float64, lda, n, k0, k1 int) bool {
 			_ = a[(i+3)*lda+i+n8-1]
 			gerUpd(&a[k0*lda+i], a[k0*lda+i:], lda, k, a[i*lda+i:], lda, n8)
 		}
-		for j := i + n8; j < n; j++ {
-			for r := 0; r < 4; r++ {
-				s := 0.0
-				for l := k0; l < k1; l++ {
-					s += a[l*lda+i+r] * a[l*lda+j]
-				}
-				a[(i+r)*lda+j] -= s
-			}
+		if n8 < ncol {
+			tailColumns(a, lda, n, k0, k1, i, i+n8)
 		}
 	}
 	for ; i < n; i++ { // the last n mod 4 rows
@@ -93,6 +87,34 @@ func trailingUpdate(a []float64, lda, n, k0, k1 int) bool {
 		}
 	}
 	return true
+}
+
+// tailColumns subtracts from the rows i…i+3 of the trailing block, over
+// the columns j0…n−1 (fewer than 8, left over by gerUpd), the sums
+// Σ_{l=k0}^{k1−1} a[l][i+r]·a[l][j], each formed from zero by adding the
+// rounded products in the order of l, then subtracted: the arithmetic of
+// one scalar dot product per value, with the panel rows read once each
+// (the sums of the 4 × (n − j0) values kept side by side).
+func tailColumns(a []float64, lda, n, k0, k1, i, j0 int) {
+	var s [4][8]float64
+	m := n - j0
+	for l := k0; l < k1; l++ {
+		row := a[l*lda : l*lda+n]
+		p0, p1, p2, p3 := row[i], row[i+1], row[i+2], row[i+3]
+		q := row[j0:n]
+		for y, v := range q[:m] {
+			s[0][y] += float64(p0 * v)
+			s[1][y] += float64(p1 * v)
+			s[2][y] += float64(p2 * v)
+			s[3][y] += float64(p3 * v)
+		}
+	}
+	for r := 0; r < 4; r++ {
+		c := a[(i+r)*lda+j0 : (i+r)*lda+n]
+		for y := range c {
+			c[y] -= s[r][y]
+		}
+	}
 }
 
 // gerKernel subtracts Σ_l p[l][x]·q[l][y] from c[x][y] for the four rows

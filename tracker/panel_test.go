@@ -1,0 +1,105 @@
+package tracker
+
+import (
+	"math"
+	"math/rand/v2"
+	"testing"
+)
+
+// cholUpper gives the same bits with the panel kernel (panelSubAVX2, each
+// panel row updated once by all the rows above it) as with one gonum Axpy
+// per pair of panel rows, on seeded correlation-like matrices with zero
+// rows and columns (channels out of the model) and a ridge, for sizes
+// around the panel width and the kernel's 16- and 4-value blocks; skipped
+// without AVX2.
+func TestCholUpperPanelKernelSameBits(t *testing.T) {
+	if !hasPanelKernel {
+		t.Skip("no AVX2")
+	}
+	rng := rand.New(rand.NewPCG(3, 31))
+	for _, n := range []int{1, 3, 4, 5, 15, 16, 17, 33, 64, 101, 203} {
+		lda := n + 3
+		// A = GGᵀ/m, rows of G random, then channels 2 and n−1 zeroed.
+		m := n + 10
+		g := make([]float64, n*m)
+		for i := range g {
+			g[i] = rng.NormFloat64()
+		}
+		a := make([]float64, n*lda)
+		for i := 0; i < n; i++ {
+			for j := i; j < n; j++ {
+				s := 0.0
+				for l := 0; l < m; l++ {
+					s += g[i*m+l] * g[j*m+l]
+				}
+				a[i*lda+j] = s / float64(m)
+			}
+		}
+		for _, z := range []int{2, n - 1} {
+			if z >= n || n < 4 {
+				continue
+			}
+			for j := 0; j < n; j++ {
+				a[min(z, j)*lda+max(z, j)] = 0
+			}
+		}
+		for i := 0; i < n; i++ {
+			a[i*lda+i] += 1e-4
+		}
+		ref := append([]float64(nil), a...)
+		got := append([]float64(nil), a...)
+		hasPanelKernel = false
+		okRef := cholUpper(ref, n, lda, make([]float64, n*cholBlock))
+		hasPanelKernel = true
+		okGot := cholUpper(got, n, lda, make([]float64, n*cholBlock))
+		if !okRef || !okGot {
+			t.Fatalf("n=%d: not positive definite (%v, %v)", n, okRef, okGot)
+		}
+		for i := 0; i < n; i++ {
+			for j := i; j < n; j++ {
+				if math.Float64bits(ref[i*lda+j]) != math.Float64bits(got[i*lda+j]) {
+					t.Fatalf("n=%d: U[%d,%d] Axpy %v, panel kernel %v", n, i, j, ref[i*lda+j], got[i*lda+j])
+				}
+			}
+			for j := n; j < lda; j++ {
+				if got[i*lda+j] != 0 {
+					t.Fatalf("n=%d: padding [%d,%d] written", n, i, j)
+				}
+			}
+		}
+	}
+}
+
+// tailColumns gives the bits of one scalar dot product per value (the
+// form it replaced: for each value, s += a[l][i+r]·a[l][j] over the panel
+// rows, then a −= s), for 1 to 7 columns and panels of 1 to 16 rows.
+func TestTailColumnsSameBits(t *testing.T) {
+	rng := rand.New(rand.NewPCG(8, 4))
+	const n, lda = 40, 43
+	for _, k := range []int{1, 7, 16} {
+		for m := 1; m < 8; m++ {
+			a := make([]float64, n*lda)
+			for x := range a {
+				a[x] = rng.NormFloat64()
+			}
+			ref := append([]float64(nil), a...)
+			k0, k1, i := 2, 2+k, 20
+			j0 := n - m
+			for j := j0; j < n; j++ {
+				for r := 0; r < 4; r++ {
+					s := 0.0
+					for l := k0; l < k1; l++ {
+						s += ref[l*lda+i+r] * ref[l*lda+j]
+					}
+					ref[(i+r)*lda+j] -= s
+				}
+			}
+			tailColumns(a, lda, n, k0, k1, i, j0)
+			for x := range a {
+				if math.Float64bits(a[x]) != math.Float64bits(ref[x]) {
+					t.Fatalf("k=%d m=%d: value %d: dot form %v, tailColumns %v", k, m, x, ref[x], a[x])
+				}
+			}
+		}
+	}
+}
