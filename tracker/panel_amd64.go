@@ -1,25 +1,26 @@
 package tracker
 
-// panelSubAVX2 is the row kernel of cholUpper's panel (panel_amd64.s):
-// n (a multiple of 4) values at y get cnt ≥ 1 updates y ← y − coef[c]·x_c,
+// panelRowAVX2 is the row kernel of cholUpper's panel (panel_amd64.s):
+// n (a multiple of 4) values at y get cnt ≥ 0 updates y ← y − coef[c]·x_c,
 // x_c = y + offs[c] (elements), in order, each product rounded before its
-// subtraction.
+// subtraction, and are then multiplied by scale.
 //
 //go:noescape
-func panelSubAVX2(y *float64, n int, offs *int, coef *float64, cnt int)
+func panelRowAVX2(y *float64, n int, offs *int, coef *float64, cnt int, scale float64)
 
 // hasPanelKernel reports whether cholUpper factors its panels with
-// panelSubAVX2 (a variable, so that tests can compare both paths).
+// panelRowAVX2 (a variable, so that tests can compare both paths).
 var hasPanelKernel = hasAVX2FMA
 
-// panelSub applies to y = a[i0 : i0+n] the updates
-// y ← y − coef[c]·a[i0+offs[c] : …] for c = 0…len(coef)−1 in order, each
-// product rounded before its subtraction: the bits of len(coef) calls of
-// gonum's Axpy(−coef[c], x_c, y). The first n &^ 3 values by panelSubAVX2,
-// the rest here.
-func panelSub(a []float64, i0, n int, offs []int, coef []float64) {
+// panelRow finishes the panel row y = a[i0 : i0+n] (the part right of the
+// diagonal) of cholUpper: the updates y ← y − coef[c]·a[i0+offs[c] : …]
+// for c = 0…len(coef)−1 in order, each product rounded before its
+// subtraction, then y ← y·scale: the bits of len(coef) calls of gonum's
+// Axpy(−coef[c], x_c, y) and one of Scal(scale, y). The first n &^ 3
+// values by panelRowAVX2, the rest here.
+func panelRow(a []float64, i0, n int, offs []int, coef []float64, scale float64) {
 	cnt := len(coef)
-	if cnt == 0 || n <= 0 {
+	if n <= 0 {
 		return
 	}
 	n4 := n &^ 3
@@ -30,13 +31,25 @@ func panelSub(a []float64, i0, n int, offs []int, coef []float64) {
 			_ = a[i0+o]
 			_ = a[i0+o+n4-1]
 		}
-		panelSubAVX2(&a[i0], n4, &offs[0], &coef[0], cnt)
+		var o0 *int
+		var c0 *float64
+		if cnt > 0 {
+			o0, c0 = &offs[0], &coef[0]
+		}
+		panelRowAVX2(&a[i0], n4, o0, c0, cnt, scale)
 	}
 	for j := i0 + n4; j < i0+n; j++ {
 		y := a[j]
 		for c, o := range offs[:cnt] {
 			y -= float64(coef[c] * a[j+o]) // the conversion keeps the product rounded (no fused multiply-add)
 		}
-		a[j] = y
+		a[j] = y * scale
 	}
 }
+
+// tailSumsAVX2 forms the sums of tailColumns (panel_amd64.s): out[4y + r] =
+// Σ_l p[l][r]·q[l][y] for r < 4, y < m (1 ≤ m ≤ 7), k ≥ 1 rows at stride
+// ldp, each product rounded before it is added; out holds 28 values.
+//
+//go:noescape
+func tailSumsAVX2(p *float64, q *float64, ldp, k, m int, out *float64)

@@ -1,20 +1,22 @@
 #include "textflag.h"
 
-// func panelSubAVX2(y *float64, n int, offs *int, coef *float64, cnt int)
+// func panelRowAVX2(y *float64, n int, offs *int, coef *float64, cnt int, scale float64)
 //
-// For the cnt source rows x_c = y + offs[c] (offsets in elements, any
+// For the cnt ≥ 0 source rows x_c = y + offs[c] (offsets in elements, any
 // sign) and the n (a multiple of 4) values at y:
-//	y[j] ← (…((y[j] − coef[0]·x_0[j]) − coef[1]·x_1[j]) …) − coef[cnt−1]·x_{cnt−1}[j]
+//	y[j] ← ((…((y[j] − coef[0]·x_0[j]) − coef[1]·x_1[j]) …) − coef[cnt−1]·x_{cnt−1}[j])·scale
 // each product rounded before its subtraction (VMULPD, then VSUBPD; no
 // fused multiply-add), so every value gets the bits of cnt successive
-// y ← y + (−coef)·x updates (gonum's Axpy). 16 values per block in four
-// independent registers, then 4 at a time. cnt ≥ 1.
-TEXT ·panelSubAVX2(SB), NOSPLIT, $0-40
-	MOVQ y+0(FP), DI
-	MOVQ n+8(FP), CX
-	MOVQ offs+16(FP), R8
-	MOVQ coef+24(FP), R9
-	MOVQ cnt+32(FP), R10
+// y ← y + (−coef)·x updates (gonum's Axpy) and then y ← y·scale (gonum's
+// Scal). 16 values per block in four independent registers, then 4 at a
+// time.
+TEXT ·panelRowAVX2(SB), NOSPLIT, $0-48
+	MOVQ         y+0(FP), DI
+	MOVQ         n+8(FP), CX
+	MOVQ         offs+16(FP), R8
+	MOVQ         coef+24(FP), R9
+	MOVQ         cnt+32(FP), R10
+	VBROADCASTSD scale+40(FP), Y9
 
 blk16:
 	CMPQ    CX, $16
@@ -26,6 +28,8 @@ blk16:
 	XORQ    BX, BX
 
 src16:
+	CMPQ         BX, R10
+	JGE          end16
 	MOVQ         (R8)(BX*8), R11
 	LEAQ         (DI)(R11*8), R12
 	VBROADCASTSD (R9)(BX*8), Y4
@@ -38,9 +42,13 @@ src16:
 	VSUBPD       Y7, Y2, Y2
 	VSUBPD       Y8, Y3, Y3
 	INCQ         BX
-	CMPQ         BX, R10
-	JLT          src16
+	JMP          src16
 
+end16:
+	VMULPD  Y9, Y0, Y0
+	VMULPD  Y9, Y1, Y1
+	VMULPD  Y9, Y2, Y2
+	VMULPD  Y9, Y3, Y3
 	VMOVUPD Y0, (DI)
 	VMOVUPD Y1, 32(DI)
 	VMOVUPD Y2, 64(DI)
@@ -56,20 +64,99 @@ blk4:
 	XORQ    BX, BX
 
 src4:
+	CMPQ         BX, R10
+	JGE          end4
 	MOVQ         (R8)(BX*8), R11
 	LEAQ         (DI)(R11*8), R12
 	VBROADCASTSD (R9)(BX*8), Y4
 	VMULPD       (R12), Y4, Y5
 	VSUBPD       Y5, Y0, Y0
 	INCQ         BX
-	CMPQ         BX, R10
-	JLT          src4
+	JMP          src4
 
+end4:
+	VMULPD  Y9, Y0, Y0
 	VMOVUPD Y0, (DI)
 	ADDQ    $32, DI
 	SUBQ    $4, CX
 	JMP     blk4
 
 done:
+	VZEROUPPER
+	RET
+
+// func tailSumsAVX2(p *float64, q *float64, ldp, k, m int, out *float64)
+//
+// For the four values p[l][0…3] and the m (1 ≤ m ≤ 7) values q[l][0…m−1]
+// of k ≥ 1 panel rows (both at stride ldp):
+//	out[4y + r] = Σ_l p[l][r]·q[l][y]
+// summed from zero in the order of l, each product rounded before it is
+// added (VMULPD, then VADDPD; no fused multiply-add): the arithmetic of
+// one scalar dot product per value. out holds 28 values (all written).
+TEXT ·tailSumsAVX2(SB), NOSPLIT, $0-48
+	MOVQ   p+0(FP), SI
+	MOVQ   q+8(FP), DI
+	MOVQ   ldp+16(FP), R8
+	SHLQ   $3, R8
+	MOVQ   k+24(FP), CX
+	MOVQ   m+32(FP), R9
+	MOVQ   out+40(FP), DX
+	VXORPD Y0, Y0, Y0
+	VXORPD Y1, Y1, Y1
+	VXORPD Y2, Y2, Y2
+	VXORPD Y3, Y3, Y3
+	VXORPD Y4, Y4, Y4
+	VXORPD Y5, Y5, Y5
+	VXORPD Y6, Y6, Y6
+
+tloop:
+	VMOVUPD      (SI), Y7
+	VBROADCASTSD (DI), Y8
+	VMULPD       Y7, Y8, Y8
+	VADDPD       Y8, Y0, Y0
+	CMPQ         R9, $2
+	JLT          tnext
+	VBROADCASTSD 8(DI), Y8
+	VMULPD       Y7, Y8, Y8
+	VADDPD       Y8, Y1, Y1
+	CMPQ         R9, $3
+	JLT          tnext
+	VBROADCASTSD 16(DI), Y8
+	VMULPD       Y7, Y8, Y8
+	VADDPD       Y8, Y2, Y2
+	CMPQ         R9, $4
+	JLT          tnext
+	VBROADCASTSD 24(DI), Y8
+	VMULPD       Y7, Y8, Y8
+	VADDPD       Y8, Y3, Y3
+	CMPQ         R9, $5
+	JLT          tnext
+	VBROADCASTSD 32(DI), Y8
+	VMULPD       Y7, Y8, Y8
+	VADDPD       Y8, Y4, Y4
+	CMPQ         R9, $6
+	JLT          tnext
+	VBROADCASTSD 40(DI), Y8
+	VMULPD       Y7, Y8, Y8
+	VADDPD       Y8, Y5, Y5
+	CMPQ         R9, $7
+	JLT          tnext
+	VBROADCASTSD 48(DI), Y8
+	VMULPD       Y7, Y8, Y8
+	VADDPD       Y8, Y6, Y6
+
+tnext:
+	ADDQ R8, SI
+	ADDQ R8, DI
+	DECQ CX
+	JNZ  tloop
+
+	VMOVUPD Y0, (DX)
+	VMOVUPD Y1, 32(DX)
+	VMOVUPD Y2, 64(DX)
+	VMOVUPD Y3, 96(DX)
+	VMOVUPD Y4, 128(DX)
+	VMOVUPD Y5, 160(DX)
+	VMOVUPD Y6, 192(DX)
 	VZEROUPPER
 	RET

@@ -4,6 +4,6 @@ package tracker
 
 var hasPanelKernel = false
 
-func panelSub(a []float64, i0, n int, offs []int, coef []float64) {
-	panic("tracker: panelSub without the amd64 kernel")
+func panelRow(a []float64, i0, n int, offs []int, coef []float64, scale float64) {
+	panic("tracker: panelRow without the amd64 kernel")
 }

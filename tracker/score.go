@@ -245,11 +245,11 @@ func cholUpper(a []float64, n, lda int, buf []float64) bool {
 	for k0 := 0; k0 < n; k0 += cholBlock {
 		k1 := min(k0+cholBlock, n)
 		for r := k0; r < k1; r++ {
-			if hasPanelKernel && r > k0 {
+			if hasPanelKernel {
 				// Row r gets the updates of the panel rows above it in
-				// one pass (left-looking): the same products and
-				// subtractions, in the same order, as the Axpy of each
-				// of those rows at its own step below.
+				// one pass (left-looking), then its scaling: the same
+				// products, subtractions and scaling, in the same order,
+				// as the Axpy of each of those rows and the Scal below.
 				cnt := 0
 				for q := k0; q < r; q++ {
 					if v := a[q*lda+r]; v != 0 {
@@ -257,7 +257,17 @@ func cholUpper(a []float64, n, lda int, buf []float64) bool {
 						cnt++
 					}
 				}
-				panelSub(a, r*lda+r, n-r, offs[:cnt], coef[:cnt])
+				d := a[r*lda+r]
+				for c, o := range offs[:cnt] {
+					d -= float64(coef[c] * a[r*lda+r+o])
+				}
+				if !(d > 0) {
+					return false
+				}
+				d = math.Sqrt(d)
+				a[r*lda+r] = d
+				panelRow(a, r*lda+r+1, n-r-1, offs[:cnt], coef[:cnt], 1/d)
+				continue
 			}
 			d := a[r*lda+r]
 			if !(d > 0) {
@@ -269,7 +279,7 @@ func cholUpper(a []float64, n, lda int, buf []float64) bool {
 			if len(row) > 0 {
 				blas64.Scal(1/d, blas64.Vector{N: len(row), Inc: 1, Data: row})
 			}
-			for s := r + 1; s < k1 && !hasPanelKernel; s++ {
+			for s := r + 1; s < k1; s++ {
 				v := a[r*lda+s]
 				if v == 0 {
 					continue

@@ -96,8 +96,21 @@ func trailingUpdate(a []float64, lda, n, k0, k1 int) bool {
 // one scalar dot product per value, with the panel rows read once each
 // (the sums of the 4 × (n − j0) values kept side by side).
 func tailColumns(a []float64, lda, n, k0, k1, i, j0 int) {
-	var s [4][8]float64
 	m := n - j0
+	if hasPanelKernel && m >= 1 && m <= 7 && k1 > k0 {
+		var out [28]float64
+		_ = a[(k1-1)*lda+i+3]
+		_ = a[(k1-1)*lda+n-1]
+		tailSumsAVX2(&a[k0*lda+i], &a[k0*lda+j0], lda, k1-k0, m, &out[0])
+		for r := 0; r < 4; r++ {
+			c := a[(i+r)*lda+j0 : (i+r)*lda+n]
+			for y := range c {
+				c[y] -= out[4*y+r]
+			}
+		}
+		return
+	}
+	var s [4][8]float64
 	for l := k0; l < k1; l++ {
 		row := a[l*lda : l*lda+n]
 		p0, p1, p2, p3 := row[i], row[i+1], row[i+2], row[i+3]
