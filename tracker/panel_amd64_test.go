@@ -103,3 +103,52 @@ func TestTailColumnsSameBits(t *testing.T) {
 		}
 	}
 }
+
+// resStat.forward gives the same bits with eight rows of L per pass
+// (dotLanes8, the lane sums carried over the next four values) as with
+// rowKernel's four: y = L⁻¹z and ‖y‖², for sizes around the blocks of 4
+// and 8, with a channel out of the model (zero row and column of A, zero
+// z) and exact zeros in z.
+func TestForwardLanesSameBits(t *testing.T) {
+	if !hasLaneKernel {
+		t.Skip("no AVX2")
+	}
+	for _, p := range []int{1, 4, 7, 8, 9, 12, 15, 16, 17, 31, 64, 203, 500} {
+		rng := rand.New(rand.NewPCG(uint64(p), 53))
+		s := randomCov(rng, p, 5)
+		if p > 5 {
+			for j := 0; j < p; j++ {
+				s.SetSym(5, j, 0)
+			}
+		}
+		cfg := Config{Residual: true, ResidualRidge: DefaultResidualRidge, Alpha: 0.01, VarianceLambda: DefaultVarianceLambda}
+		rs := newResStat(p, &cfg)
+		if !factorLower(rs.gens[0].l, rs.panel, s.RawSymmetric(), p, rs.ridge) {
+			t.Fatalf("p=%d: not positive definite", p)
+		}
+		for trial := 0; trial < 4; trial++ {
+			z := make([]float64, p)
+			for i := range z {
+				if rng.IntN(7) > 0 {
+					z[i] = rng.NormFloat64()
+				}
+			}
+			if p > 5 {
+				z[5] = 0
+			}
+			hasLaneKernel = false
+			qRef := rs.forward(z)
+			yRef := append([]float64(nil), rs.zb[:p]...)
+			hasLaneKernel = true
+			q := rs.forward(z)
+			if math.Float64bits(q) != math.Float64bits(qRef) {
+				t.Fatalf("p=%d: ‖y‖² %v, four rows per pass %v", p, q, qRef)
+			}
+			for i := range yRef {
+				if math.Float64bits(rs.zb[i]) != math.Float64bits(yRef[i]) {
+					t.Fatalf("p=%d: y[%d] %v, four rows per pass %v", p, i, rs.zb[i], yRef[i])
+				}
+			}
+		}
+	}
+}
