@@ -33,3 +33,10 @@ func gerUpd(p *float64, q []float64, ldp, k int, c []float64, ldc, ncol int) {
 		gerUpdAVX2(p, &q[n16], ldp, k, &c[n16], ldc, ncol-n16)
 	}
 }
+
+// gerUpd2AVX512 is gerUpdAVX512 for two consecutive panels of ka and kb
+// rows in one pass over c (ger512_amd64.s), ncol a multiple of 16: the
+// bits of one gerUpdAVX512 call per panel, in order.
+//
+//go:noescape
+func gerUpd2AVX512(p *float64, q *float64, ldp, ka, kb int, c *float64, ldc, ncol int)

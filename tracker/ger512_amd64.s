@@ -93,3 +93,134 @@ zloop:
 zdone:
 	VZEROUPPER
 	RET
+
+
+// func gerUpd2AVX512(p *float64, q *float64, ldp, ka, kb int, c *float64, ldc, ncol int)
+//
+// gerUpdAVX512 for two panels in one pass over c: the ka rows at p, q and
+// then the kb rows after them (ka, kb ≥ 1):
+//	c[x][y] ← (c[x][y] − Σ_{l<ka} p[l][x]·q[l][y]) − Σ_{ka≤l<ka+kb} p[l][x]·q[l][y]
+// each sum formed from zero as by gerUpdAVX512 and subtracted in turn, so
+// every value gets the bits of two gerUpdAVX512 calls, one per panel; c is
+// read and written once instead of twice.
+TEXT ·gerUpd2AVX512(SB), NOSPLIT, $0-64
+	MOVQ p+0(FP), SI
+	MOVQ q+8(FP), DI
+	MOVQ ldp+16(FP), R8
+	SHLQ $3, R8
+	MOVQ ka+24(FP), CX
+	MOVQ c+40(FP), DX
+	MOVQ ldc+48(FP), R10
+	SHLQ $3, R10
+	MOVQ ncol+56(FP), R9
+
+wblock:
+	CMPQ    R9, $16
+	JLT     wdone
+	LEAQ    (DX)(R10*2), R13
+	VMOVUPD (DX), Z16
+	VMOVUPD 64(DX), Z17
+	VMOVUPD (DX)(R10*1), Z18
+	VMOVUPD 64(DX)(R10*1), Z19
+	VMOVUPD (R13), Z20
+	VMOVUPD 64(R13), Z21
+	VMOVUPD (R13)(R10*1), Z22
+	VMOVUPD 64(R13)(R10*1), Z23
+	MOVQ    SI, R11
+	MOVQ    DI, R12
+	MOVQ    CX, BX
+	VPXORQ Z0, Z0, Z0
+	VPXORQ Z1, Z1, Z1
+	VPXORQ Z2, Z2, Z2
+	VPXORQ Z3, Z3, Z3
+	VPXORQ Z4, Z4, Z4
+	VPXORQ Z5, Z5, Z5
+	VPXORQ Z6, Z6, Z6
+	VPXORQ Z7, Z7, Z7
+
+wloop:
+	VMOVUPD      (R12), Z8
+	VMOVUPD      64(R12), Z9
+	VBROADCASTSD (R11), Z10
+	VFMADD231PD  Z8, Z10, Z0
+	VFMADD231PD  Z9, Z10, Z1
+	VBROADCASTSD 8(R11), Z11
+	VFMADD231PD  Z8, Z11, Z2
+	VFMADD231PD  Z9, Z11, Z3
+	VBROADCASTSD 16(R11), Z12
+	VFMADD231PD  Z8, Z12, Z4
+	VFMADD231PD  Z9, Z12, Z5
+	VBROADCASTSD 24(R11), Z13
+	VFMADD231PD  Z8, Z13, Z6
+	VFMADD231PD  Z9, Z13, Z7
+	ADDQ         R8, R11
+	ADDQ         R8, R12
+	DECQ         BX
+	JNZ          wloop
+
+	VSUBPD Z0, Z16, Z16
+	VSUBPD Z1, Z17, Z17
+	VSUBPD Z2, Z18, Z18
+	VSUBPD Z3, Z19, Z19
+	VSUBPD Z4, Z20, Z20
+	VSUBPD Z5, Z21, Z21
+	VSUBPD Z6, Z22, Z22
+	VSUBPD Z7, Z23, Z23
+
+	// The second panel: its rows follow the first's (R11, R12 are there).
+	MOVQ kb+32(FP), BX
+	VPXORQ Z0, Z0, Z0
+	VPXORQ Z1, Z1, Z1
+	VPXORQ Z2, Z2, Z2
+	VPXORQ Z3, Z3, Z3
+	VPXORQ Z4, Z4, Z4
+	VPXORQ Z5, Z5, Z5
+	VPXORQ Z6, Z6, Z6
+	VPXORQ Z7, Z7, Z7
+
+w2loop:
+	VMOVUPD      (R12), Z8
+	VMOVUPD      64(R12), Z9
+	VBROADCASTSD (R11), Z10
+	VFMADD231PD  Z8, Z10, Z0
+	VFMADD231PD  Z9, Z10, Z1
+	VBROADCASTSD 8(R11), Z11
+	VFMADD231PD  Z8, Z11, Z2
+	VFMADD231PD  Z9, Z11, Z3
+	VBROADCASTSD 16(R11), Z12
+	VFMADD231PD  Z8, Z12, Z4
+	VFMADD231PD  Z9, Z12, Z5
+	VBROADCASTSD 24(R11), Z13
+	VFMADD231PD  Z8, Z13, Z6
+	VFMADD231PD  Z9, Z13, Z7
+	ADDQ         R8, R11
+	ADDQ         R8, R12
+	DECQ         BX
+	JNZ          w2loop
+
+	VSUBPD Z0, Z16, Z16
+	VSUBPD Z1, Z17, Z17
+	VSUBPD Z2, Z18, Z18
+	VSUBPD Z3, Z19, Z19
+	VSUBPD Z4, Z20, Z20
+	VSUBPD Z5, Z21, Z21
+	VSUBPD Z6, Z22, Z22
+	VSUBPD Z7, Z23, Z23
+
+	VMOVUPD Z16, (DX)
+	VMOVUPD Z17, 64(DX)
+	VMOVUPD Z18, (DX)(R10*1)
+	VMOVUPD Z19, 64(DX)(R10*1)
+	VMOVUPD Z20, (R13)
+	VMOVUPD Z21, 64(R13)
+	VMOVUPD Z22, (R13)(R10*1)
+	VMOVUPD Z23, 64(R13)(R10*1)
+
+	ADDQ $128, DI
+	ADDQ $128, DX
+	SUBQ $16, R9
+	JMP  wblock
+
+wdone:
+	VZEROUPPER
+	RET

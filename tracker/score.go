@@ -242,6 +242,7 @@ const cholBlock = 16
 func cholUpper(a []float64, n, lda int, buf []float64) bool {
 	var offs [cholBlock]int
 	var coef [cholBlock]float64
+	pend := -1 // a panel whose update of the rows past the next panel is deferred (hasTwoPanel)
 	for k0 := 0; k0 < n; k0 += cholBlock {
 		k1 := min(k0+cholBlock, n)
 		for r := k0; r < k1; r++ {
@@ -291,6 +292,22 @@ func cholUpper(a []float64, n, lda int, buf []float64) bool {
 		}
 		if k1 == n {
 			break
+		}
+		if hasTwoPanel {
+			// Every other panel updates only the next panel's rows; the
+			// rows past that get both panels' updates in one pass
+			// (trailingRows2), in the same order: the same bits.
+			if pend < 0 {
+				k2 := min(k1+cholBlock, n)
+				trailingRows(a, lda, n, k0, k1, k1, k2)
+				if k2 < n {
+					pend = k0
+				}
+			} else {
+				trailingRows2(a, lda, n, pend, k0, k1, k1)
+				pend = -1
+			}
+			continue
 		}
 		if trailingUpdate(a, lda, n, k0, k1) {
 			continue

@@ -63,9 +63,16 @@ func trailingUpdate(a []float64, lda, n, k0, k1 int) bool {
 	if !hasAVX2FMA {
 		return false
 	}
+	trailingRows(a, lda, n, k0, k1, k1, n)
+	return true
+}
+
+// trailingRows is trailingUpdate for the rows i0…i1−1 of the trailing block
+// only (i0 ≥ k1, a multiple of 4 unless i1 = n).
+func trailingRows(a []float64, lda, n, k0, k1, i0, i1 int) {
 	k := k1 - k0
-	i := k1
-	for ; i+4 <= n; i += 4 {
+	i := i0
+	for ; i+4 <= i1; i += 4 {
 		ncol := n - i
 		n8 := ncol &^ 7
 		if n8 > 0 {
@@ -77,16 +84,59 @@ func trailingUpdate(a []float64, lda, n, k0, k1 int) bool {
 			tailColumns(a, lda, n, k0, k1, i, i+n8)
 		}
 	}
-	for ; i < n; i++ { // the last n mod 4 rows
-		for j := i; j < n; j++ {
-			s := 0.0
-			for l := k0; l < k1; l++ {
-				s += a[l*lda+i] * a[l*lda+j]
+	for ; i < i1; i++ { // the last n mod 4 rows
+		lastRow(a, lda, n, k0, k1, i)
+	}
+}
+
+// lastRow subtracts from row i of the trailing block, columns i…n−1, the
+// panel's dot products (scalar, one per value).
+func lastRow(a []float64, lda, n, k0, k1, i int) {
+	for j := i; j < n; j++ {
+		s := 0.0
+		for l := k0; l < k1; l++ {
+			s += a[l*lda+i] * a[l*lda+j]
+		}
+		a[i*lda+j] -= s
+	}
+}
+
+// hasTwoPanel reports whether cholUpper defers every other panel's
+// trailing update to apply two panels in one pass (gerUpd2AVX512).
+var hasTwoPanel = hasPanelKernel && hasAVX512F
+
+// trailingRows2 applies, to the rows i0…n−1 of the trailing block (i0 = k2),
+// the updates of the panel of rows k0…k1−1 and then of the panel of rows
+// k1…k2−1: every value gets the bits of trailingRows for the first panel
+// followed by trailingRows for the second, the columns of 16 with both
+// panels in one pass (gerUpd2AVX512), the others panel by panel.
+func trailingRows2(a []float64, lda, n, k0, k1, k2, i0 int) {
+	ka, kb := k1-k0, k2-k1
+	i := i0
+	for ; i+4 <= n; i += 4 {
+		ncol := n - i
+		n8 := ncol &^ 7
+		n16 := n8 &^ 15
+		if n16 > 0 {
+			_ = a[(k2-1)*lda+i+n16-1]
+			_ = a[(i+3)*lda+i+n16-1]
+			gerUpd2AVX512(&a[k0*lda+i], &a[k0*lda+i], lda, ka, kb, &a[i*lda+i], lda, n16)
+		}
+		for _, pn := range [2][2]int{{k0, k1}, {k1, k2}} {
+			if n8 > n16 {
+				_ = a[(pn[1]-1)*lda+i+n8-1]
+				_ = a[(i+3)*lda+i+n8-1]
+				gerUpdAVX2(&a[pn[0]*lda+i], &a[pn[0]*lda+i+n16], lda, pn[1]-pn[0], &a[i*lda+i+n16], lda, n8-n16)
 			}
-			a[i*lda+j] -= s
+			if n8 < ncol {
+				tailColumns(a, lda, n, pn[0], pn[1], i, i+n8)
+			}
 		}
 	}
-	return true
+	for ; i < n; i++ {
+		lastRow(a, lda, n, k0, k1, i)
+		lastRow(a, lda, n, k1, k2, i)
+	}
 }
 
 // tailColumns subtracts from the rows i…i+3 of the trailing block, over
