@@ -40,3 +40,9 @@ func gerUpd(p *float64, q []float64, ldp, k int, c []float64, ldc, ncol int) {
 //
 //go:noescape
 func gerUpd2AVX512(p *float64, q *float64, ldp, ka, kb int, c *float64, ldc, ncol int)
+
+// panelRowAVX512 is panelRowAVX2 with 8-wide vectors (ger512_amd64.s), n a
+// multiple of 8: the same operations on each value, the same bits.
+//
+//go:noescape
+func panelRowAVX512(y *float64, n int, offs *int, coef *float64, cnt int, scale float64)

@@ -16,8 +16,9 @@ var hasPanelKernel = hasAVX2FMA
 // diagonal) of cholUpper: the updates y ← y − coef[c]·a[i0+offs[c] : …]
 // for c = 0…len(coef)−1 in order, each product rounded before its
 // subtraction, then y ← y·scale: the bits of len(coef) calls of gonum's
-// Axpy(−coef[c], x_c, y) and one of Scal(scale, y). The first n &^ 3
-// values by panelRowAVX2, the rest here.
+// Axpy(−coef[c], x_c, y) and one of Scal(scale, y). The first n &^ 7
+// values by panelRowAVX512 where the CPU has AVX-512F, up to n &^ 3 by
+// panelRowAVX2, the rest here.
 func panelRow(a []float64, i0, n int, offs []int, coef []float64, scale float64) {
 	cnt := len(coef)
 	if n <= 0 {
@@ -36,7 +37,16 @@ func panelRow(a []float64, i0, n int, offs []int, coef []float64, scale float64)
 		if cnt > 0 {
 			o0, c0 = &offs[0], &coef[0]
 		}
-		panelRowAVX2(&a[i0], n4, o0, c0, cnt, scale)
+		n8 := 0
+		if hasAVX512F {
+			n8 = n4 &^ 7
+			if n8 > 0 {
+				panelRowAVX512(&a[i0], n8, o0, c0, cnt, scale)
+			}
+		}
+		if n4 > n8 {
+			panelRowAVX2(&a[i0+n8], n4-n8, o0, c0, cnt, scale)
+		}
 	}
 	for j := i0 + n4; j < i0+n; j++ {
 		y := a[j]
