@@ -46,3 +46,14 @@ func gerUpd2AVX512(p *float64, q *float64, ldp, ka, kb int, c *float64, ldc, nco
 //
 //go:noescape
 func panelRowAVX512(y *float64, n int, offs *int, coef *float64, cnt int, scale float64)
+
+// syrkRow4x4AVX512 is syrkRow4AVX2 four columns at a time (ger512_amd64.s),
+// ncol a multiple of 4: each lane sums the same products in the same
+// order and is reduced the same way, so it gives the same bits.
+//
+//go:noescape
+func syrkRow4x4AVX512(a *float64, lda, k int, b *float64, ncol int, c *float64, ldc int, alpha, beta float64)
+
+// hasQuadKernel reports whether rowKernel takes four columns at a time
+// with syrkRow4x4AVX512 (a variable, so that tests can compare both).
+var hasQuadKernel = hasAVX512F

@@ -304,3 +304,140 @@ qend8:
 qdone:
 	VZEROUPPER
 	RET
+
+// func syrkRow4x4AVX512(a *float64, lda, k int, b *float64, ncol int, c *float64, ldc int, alpha, beta float64)
+//
+// syrkRow4AVX2 four columns at a time (ncol a multiple of 4): each 8-wide
+// accumulator holds the 4-wide accumulators of two columns side by side
+// (the row's four values broadcast to both halves), so every lane sums the
+// same products in the same order with the same fused multiply-adds, and
+// the halves are then reduced exactly as syrkRow4AVX2 reduces them: the
+// same bits, with half the multiply-add instructions and eight
+// accumulators per pass.
+TEXT ·syrkRow4x4AVX512(SB), NOSPLIT, $0-72
+	MOVQ         a+0(FP), SI
+	MOVQ         lda+8(FP), R8
+	SHLQ         $3, R8
+	MOVQ         k+16(FP), BX
+	SHLQ         $3, BX
+	MOVQ         b+24(FP), DI
+	MOVQ         ncol+32(FP), CX
+	MOVQ         c+40(FP), DX
+	MOVQ         ldc+48(FP), R10
+	SHLQ         $3, R10
+	VBROADCASTSD alpha+56(FP), Y15
+	VBROADCASTSD beta+64(FP), Y14
+	LEAQ         (R8)(R8*2), R9
+
+quad:
+	CMPQ   CX, $4
+	JLT    quaddone
+	VPXORQ Z0, Z0, Z0
+	VPXORQ Z1, Z1, Z1
+	VPXORQ Z2, Z2, Z2
+	VPXORQ Z3, Z3, Z3
+	VPXORQ Z4, Z4, Z4
+	VPXORQ Z5, Z5, Z5
+	VPXORQ Z6, Z6, Z6
+	VPXORQ Z7, Z7, Z7
+	MOVQ   SI, R11
+	MOVQ   DI, R12
+	XORQ   AX, AX
+
+quadloop:
+	VMOVUPD         (R12), Y10
+	VINSERTF64X4    $1, (R12)(R8*1), Z10, Z10
+	VMOVUPD         (R12)(R8*2), Y11
+	VINSERTF64X4    $1, (R12)(R9*1), Z11, Z11
+	VBROADCASTF64X4 (R11), Z12
+	VFMADD231PD     Z12, Z10, Z0
+	VFMADD231PD     Z12, Z11, Z1
+	VBROADCASTF64X4 (R11)(R8*1), Z13
+	VFMADD231PD     Z13, Z10, Z2
+	VFMADD231PD     Z13, Z11, Z3
+	VBROADCASTF64X4 (R11)(R8*2), Z12
+	VFMADD231PD     Z12, Z10, Z4
+	VFMADD231PD     Z12, Z11, Z5
+	VBROADCASTF64X4 (R11)(R9*1), Z13
+	VFMADD231PD     Z13, Z10, Z6
+	VFMADD231PD     Z13, Z11, Z7
+	ADDQ            $32, R11
+	ADDQ            $32, R12
+	ADDQ            $32, AX
+	CMPQ            AX, BX
+	JLT             quadloop
+
+	LEAQ (DX)(R10*2), AX
+	VEXTRACTF64X4 $1, Z0, Y9
+	VHADDPD       Y9, Y0, Y8
+	VEXTRACTF128  $1, Y8, X9
+	VADDPD        X9, X8, X8
+	VMULPD        X15, X8, X8
+	VMOVUPD       (DX), X9
+	VFMADD231PD   X14, X9, X8
+	VMOVUPD       X8, (DX)
+	VEXTRACTF64X4 $1, Z1, Y9
+	VHADDPD       Y9, Y1, Y8
+	VEXTRACTF128  $1, Y8, X9
+	VADDPD        X9, X8, X8
+	VMULPD        X15, X8, X8
+	VMOVUPD       16(DX), X9
+	VFMADD231PD   X14, X9, X8
+	VMOVUPD       X8, 16(DX)
+	VEXTRACTF64X4 $1, Z2, Y9
+	VHADDPD       Y9, Y2, Y8
+	VEXTRACTF128  $1, Y8, X9
+	VADDPD        X9, X8, X8
+	VMULPD        X15, X8, X8
+	VMOVUPD       (DX)(R10*1), X9
+	VFMADD231PD   X14, X9, X8
+	VMOVUPD       X8, (DX)(R10*1)
+	VEXTRACTF64X4 $1, Z3, Y9
+	VHADDPD       Y9, Y3, Y8
+	VEXTRACTF128  $1, Y8, X9
+	VADDPD        X9, X8, X8
+	VMULPD        X15, X8, X8
+	VMOVUPD       16(DX)(R10*1), X9
+	VFMADD231PD   X14, X9, X8
+	VMOVUPD       X8, 16(DX)(R10*1)
+	VEXTRACTF64X4 $1, Z4, Y9
+	VHADDPD       Y9, Y4, Y8
+	VEXTRACTF128  $1, Y8, X9
+	VADDPD        X9, X8, X8
+	VMULPD        X15, X8, X8
+	VMOVUPD       (AX), X9
+	VFMADD231PD   X14, X9, X8
+	VMOVUPD       X8, (AX)
+	VEXTRACTF64X4 $1, Z5, Y9
+	VHADDPD       Y9, Y5, Y8
+	VEXTRACTF128  $1, Y8, X9
+	VADDPD        X9, X8, X8
+	VMULPD        X15, X8, X8
+	VMOVUPD       16(AX), X9
+	VFMADD231PD   X14, X9, X8
+	VMOVUPD       X8, 16(AX)
+	VEXTRACTF64X4 $1, Z6, Y9
+	VHADDPD       Y9, Y6, Y8
+	VEXTRACTF128  $1, Y8, X9
+	VADDPD        X9, X8, X8
+	VMULPD        X15, X8, X8
+	VMOVUPD       (AX)(R10*1), X9
+	VFMADD231PD   X14, X9, X8
+	VMOVUPD       X8, (AX)(R10*1)
+	VEXTRACTF64X4 $1, Z7, Y9
+	VHADDPD       Y9, Y7, Y8
+	VEXTRACTF128  $1, Y8, X9
+	VADDPD        X9, X8, X8
+	VMULPD        X15, X8, X8
+	VMOVUPD       16(AX)(R10*1), X9
+	VFMADD231PD   X14, X9, X8
+	VMOVUPD       X8, 16(AX)(R10*1)
+
+	ADDQ $32, DX
+	LEAQ (DI)(R8*4), DI
+	SUBQ $4, CX
+	JMP  quad
+
+quaddone:
+	VZEROUPPER
+	RET

@@ -156,3 +156,47 @@ func TestForwardLanesSameBits(t *testing.T) {
 		}
 	}
 }
+
+// rowKernel gives the same bits with four columns per pass
+// (syrkRow4x4AVX512, two columns' accumulators side by side in each 8-wide
+// register) as with syrkRow4AVX2's two, for 2 to 13 columns, lengths 4 to
+// 64 and the α, β of its callers (1, 0; −1, 1; a decay) and others;
+// skipped without AVX-512F.
+func TestRowKernelQuadSameBits(t *testing.T) {
+	if !hasQuadKernel {
+		t.Skip("no AVX-512F")
+	}
+	rng := rand.New(rand.NewPCG(9, 17))
+	for _, k := range []int{4, 8, 12, 64} {
+		for ncol := 2; ncol <= 13; ncol++ {
+			for _, ab := range [][2]float64{{1, 0}, {-1, 1}, {1, 0.9993}, {0.37, -1.25}} {
+				const lda, ldc = 70, 19
+				a := make([]float64, 4*lda)
+				b := make([]float64, ncol*lda)
+				c := make([]float64, 4*ldc)
+				for i := range a {
+					a[i] = rng.NormFloat64()
+				}
+				for i := range b {
+					b[i] = rng.NormFloat64()
+				}
+				for i := range c {
+					c[i] = rng.NormFloat64()
+				}
+				ref := append([]float64(nil), c...)
+				hasQuadKernel = false
+				okRef := rowKernel(a, lda, k, b, ncol, ref, ldc, ab[0], ab[1])
+				hasQuadKernel = true
+				ok := rowKernel(a, lda, k, b, ncol, c, ldc, ab[0], ab[1])
+				if !ok || !okRef {
+					t.Fatal("kernel not run")
+				}
+				for i := range c {
+					if math.Float64bits(c[i]) != math.Float64bits(ref[i]) {
+						t.Fatalf("k=%d ncol=%d α,β=%v: c[%d] two columns %v, four %v", k, ncol, ab, i, ref[i], c[i])
+					}
+				}
+			}
+		}
+	}
+}

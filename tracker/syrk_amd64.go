@@ -42,7 +42,14 @@ func rowKernel(a []float64, lda, k int, b []float64, ncol int, c []float64, ldc 
 	_ = a[3*lda+k-1]
 	_ = b[(ncol-1)*lda+k-1]
 	_ = c[3*ldc+ncol-1]
-	syrkRow4AVX2(&a[0], lda, k, &b[0], ncol&^1, &c[0], ldc, alpha, beta)
+	n4 := 0
+	if hasQuadKernel && ncol >= 4 {
+		n4 = ncol &^ 3
+		syrkRow4x4AVX512(&a[0], lda, k, &b[0], n4, &c[0], ldc, alpha, beta)
+	}
+	if n2 := ncol&^1 - n4; n2 > 0 {
+		syrkRow4AVX2(&a[0], lda, k, &b[n4*lda], n2, &c[n4], ldc, alpha, beta)
+	}
 	return true
 }
 
