@@ -363,7 +363,9 @@ func (rs *resStat) score(dst *Score, m *model, z, dz []float64, t2 float64, nMis
 // forward sets y = L⁻¹z (rs.zb[:p]) under the current factor and returns
 // ‖y‖² = zᵀΩz: lowerSolve for one right-hand side, written out (the dots
 // of four rows of L with the solved part of y by rowKernel, its zero
-// second column the row rs.zb[p:], then the 4 × 4 diagonal block).
+// second column the row rs.zb[p:], then the 4 × 4 diagonal block). Where
+// the CPU has AVX2, eight rows of L per pass over y (dotLanes8) with the
+// same sums in the same order: the same bits (TestForwardLanesSameBits).
 func (rs *resStat) forward(z []float64) float64 {
 	p := rs.p
 	l := rs.gens[rs.cur].l

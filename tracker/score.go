@@ -239,6 +239,14 @@ const cholBlock = 16
 // AVX2/FMA (trailingUpdate), else with the rank-update kernel (rankUpdate,
 // α = −1) on the panel transposed into buf (n × cholBlock). It reports
 // false if a pivot is not positive.
+//
+// Where the CPU has AVX2 the panel rows are finished one pass each
+// (panelRow: the updates of the panel rows above, then the scaling), and
+// with AVX-512F every other panel updates only the next panel's rows, the
+// rows past it getting both panels' updates in one pass over the trailing
+// block (trailingRows2). Each value then sees the same operations in the
+// same order as above, so the factor has the same bits either way
+// (TestCholUpperPanelKernelSameBits); only the passes over memory differ.
 func cholUpper(a []float64, n, lda int, buf []float64) bool {
 	var offs [cholBlock]int
 	var coef [cholBlock]float64
