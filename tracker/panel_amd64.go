@@ -64,25 +64,27 @@ func panelRow(a []float64, i0, n int, offs []int, coef []float64, scale float64)
 //go:noescape
 func tailSumsAVX2(p *float64, q *float64, ldp, k, m int, out *float64)
 
-// dotLanes8AVX2 writes the unreduced lane sums of eight rows' dot products
-// with y (panel_amd64.s): out[4r + j] = Σ_{l ≡ j (mod 4)} a[r][l]·y[l],
-// fused multiply-adds in the order of l, k a positive multiple of 4.
-//
-//go:noescape
-func dotLanes8AVX2(a *float64, lda, k int, y *float64, out *float64)
-
 // hasLaneKernel reports whether resStat.forward takes eight rows of L per
-// pass with dotLanes8AVX2 (a variable, so that tests can compare both
-// paths).
+// pass with dotLanes8PackedAVX2 (a variable, so that tests can compare
+// both paths).
 var hasLaneKernel = hasAVX2FMA
 
-// dotLanes8 is dotLanes8AVX2 on the eight rows at a (stride lda) over
-// their first k values (a positive multiple of 4) and y, into out (32
-// values).
-func dotLanes8(a []float64, lda, k int, y, out []float64) {
+// dotLanes8PackedAVX2 writes the unreduced lane sums of eight rows' dot
+// products with y (panel_amd64.s), the rows in forward's packed layout
+// (packedLen: values l…l+3 of row r at a[8l + 4r : 8l + 4r + 4]):
+// out[4r + j] = Σ_{l ≡ j (mod 4)} a_r[l]·y[l], fused multiply-adds in the
+// order of l, k a positive multiple of 4.
+//
+//go:noescape
+func dotLanes8PackedAVX2(a *float64, k int, y *float64, out *float64)
+
+// dotLanes8Packed is dotLanes8PackedAVX2 on a block of eight rows in the
+// packed layout (8k values over the first k columns, k a positive
+// multiple of 4), into out (32 values).
+func dotLanes8Packed(a []float64, k int, y, out []float64) {
 	// Bounds the assembly relies on.
-	_ = a[7*lda+k-1]
+	_ = a[8*k-1]
 	_ = y[k-1]
 	_ = out[31]
-	dotLanes8AVX2(&a[0], lda, k, &y[0], &out[0])
+	dotLanes8PackedAVX2(&a[0], k, &y[0], &out[0])
 }

@@ -161,25 +161,22 @@ tnext:
 	VZEROUPPER
 	RET
 
-// func dotLanes8AVX2(a *float64, lda, k int, y *float64, out *float64)
+// func dotLanes8PackedAVX2(a *float64, k int, y *float64, out *float64)
 //
-// For the eight rows a, a+lda, …, a+7·lda (k values each, k a positive
-// multiple of 4) and the k values at y, writes the four lane sums of each
-// row's dot product with y, unreduced:
-//	out[4r + j] = Σ_{l ≡ j (mod 4)} a[r][l]·y[l]
+// For eight rows stored interleaved by four values (the values l…l+3 of
+// row r at a[8l + 4r : 8l + 4r + 4], l = 0, 4, 8, …: one sequential stream
+// of 8k values, k a positive multiple of 4) and the k values at y, writes
+// the four lane sums of each row's dot product with y, unreduced:
+//	out[4r + j] = Σ_{l ≡ j (mod 4)} a_r[l]·y[l]
 // each lane a chain of fused multiply-adds from zero in the order of l:
 // the accumulators of syrkRow4AVX2 before its horizontal sum, for twice
 // the rows per pass over y (one column, no second one). out holds 32
 // values.
-TEXT ·dotLanes8AVX2(SB), NOSPLIT, $0-40
+TEXT ·dotLanes8PackedAVX2(SB), NOSPLIT, $0-32
 	MOVQ   a+0(FP), SI
-	MOVQ   lda+8(FP), R8
-	SHLQ   $3, R8
-	MOVQ   k+16(FP), CX
-	MOVQ   y+24(FP), DI
-	MOVQ   out+32(FP), DX
-	LEAQ   (R8)(R8*2), R9
-	LEAQ   (SI)(R8*4), R11
+	MOVQ   k+8(FP), CX
+	MOVQ   y+16(FP), DI
+	MOVQ   out+24(FP), DX
 	VXORPD Y0, Y0, Y0
 	VXORPD Y1, Y1, Y1
 	VXORPD Y2, Y2, Y2
@@ -189,21 +186,20 @@ TEXT ·dotLanes8AVX2(SB), NOSPLIT, $0-40
 	VXORPD Y6, Y6, Y6
 	VXORPD Y7, Y7, Y7
 
-dloop:
+ploop:
 	VMOVUPD     (DI), Y8
 	VFMADD231PD (SI), Y8, Y0
-	VFMADD231PD (SI)(R8*1), Y8, Y1
-	VFMADD231PD (SI)(R8*2), Y8, Y2
-	VFMADD231PD (SI)(R9*1), Y8, Y3
-	VFMADD231PD (R11), Y8, Y4
-	VFMADD231PD (R11)(R8*1), Y8, Y5
-	VFMADD231PD (R11)(R8*2), Y8, Y6
-	VFMADD231PD (R11)(R9*1), Y8, Y7
-	ADDQ        $32, SI
-	ADDQ        $32, R11
+	VFMADD231PD 32(SI), Y8, Y1
+	VFMADD231PD 64(SI), Y8, Y2
+	VFMADD231PD 96(SI), Y8, Y3
+	VFMADD231PD 128(SI), Y8, Y4
+	VFMADD231PD 160(SI), Y8, Y5
+	VFMADD231PD 192(SI), Y8, Y6
+	VFMADD231PD 224(SI), Y8, Y7
+	ADDQ        $256, SI
 	ADDQ        $32, DI
 	SUBQ        $4, CX
-	JNZ         dloop
+	JNZ         ploop
 
 	VMOVUPD Y0, (DX)
 	VMOVUPD Y1, 32(DX)

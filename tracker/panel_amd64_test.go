@@ -109,10 +109,10 @@ func TestTailColumnsSameBits(t *testing.T) {
 }
 
 // resStat.forward gives the same bits with eight rows of L per pass
-// (dotLanes8, the lane sums carried over the next four values) as with
-// rowKernel's four: y = L⁻¹z and ‖y‖², for sizes around the blocks of 4
-// and 8, with a channel out of the model (zero row and column of A, zero
-// z) and exact zeros in z.
+// (dotLanes8Packed on the packed copy of L, the lane sums carried over the
+// next four values) as with rowKernel's four: y = L⁻¹z and ‖y‖², for sizes
+// around the blocks of 4 and 8, with a channel out of the model (zero row
+// and column of A, zero z) and exact zeros in z.
 func TestForwardLanesSameBits(t *testing.T) {
 	if !hasLaneKernel {
 		t.Skip("no AVX2")
@@ -127,7 +127,7 @@ func TestForwardLanesSameBits(t *testing.T) {
 		}
 		cfg := Config{Residual: true, ResidualRidge: DefaultResidualRidge, Alpha: 0.01, VarianceLambda: DefaultVarianceLambda}
 		rs := newResStat(p, &cfg)
-		if !factorLower(rs.gens[0].l, rs.panel, s.RawSymmetric(), p, rs.ridge) {
+		if !factorLower(rs.gens[0].l, rs.gens[0].pk, rs.panel, s.RawSymmetric(), p, rs.ridge) {
 			t.Fatalf("p=%d: not positive definite", p)
 		}
 		for trial := 0; trial < 4; trial++ {

@@ -10,6 +10,6 @@ func panelRow(a []float64, i0, n int, offs []int, coef []float64, scale float64)
 
 var hasLaneKernel = false
 
-func dotLanes8(a []float64, lda, k int, y, out []float64) {
-	panic("tracker: dotLanes8 without the amd64 kernel")
+func dotLanes8Packed(a []float64, k int, y, out []float64) {
+	panic("tracker: dotLanes8Packed without the amd64 kernel")
 }

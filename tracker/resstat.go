@@ -63,7 +63,9 @@ const (
 // (ResidualContributionsTo, Config.RankResidual with R further over its
 // limit than the index), from the factor and the frame they belong to.
 // Storage 2p² + O(p) (two factors: the current one and the one of the
-// last frame scored, which a refresh may have replaced), allocated in New.
+// last frame scored, which a refresh may have replaced), allocated in New;
+// 3p² where the CPU has AVX2, each factor's lower triangle also kept in
+// the packed layout that forward streams (packedLen).
 type resStat struct {
 	p            int
 	res, vr      bool
@@ -94,6 +96,7 @@ type resStat struct {
 // at that refresh, and, once formed (diag), Ωᵢᵢ and Mᵢᵢ = Ωᵢᵢ − Dᵢᵢ.
 type resGen struct {
 	l        []float64
+	pk       []float64 // L's rows in blocks of eight for forward (packedLen; nil without the lane kernel)
 	dd       []float64
 	inc      []bool
 	omd, mii []float64
@@ -118,6 +121,9 @@ func newResStat(p int, cfg *Config) *resStat {
 	for k := range rs.gens {
 		rs.gens[k] = resGen{l: make([]float64, p*p), dd: make([]float64, p), inc: make([]bool, p),
 			omd: make([]float64, p), mii: make([]float64, p)}
+		if hasLaneKernel {
+			rs.gens[k].pk = make([]float64, packedLen(p))
+		}
 	}
 	for i := range rs.q {
 		rs.q[i], rs.lvl[i] = 1, 1
@@ -142,7 +148,7 @@ func (rs *resStat) refresh(m *model, alpha float64) {
 		rs.contributions()
 	}
 	g := &rs.gens[nxt]
-	rs.ok = factorLower(g.l, rs.panel, m.a.RawSymmetric(), p, rs.ridge)
+	rs.ok = factorLower(g.l, g.pk, rs.panel, m.a.RawSymmetric(), p, rs.ridge)
 	if !rs.ok {
 		return
 	}
@@ -164,14 +170,28 @@ func (rs *resStat) refresh(m *model, alpha float64) {
 	}
 }
 
+// packedOff is the offset in resGen.pk of the block of rows 8b…8b+7: the
+// blocks before it hold 8·8b′ values each (their columns left of the
+// block, b′ < b).
+func packedOff(b int) int { return 32 * b * (b - 1) }
+
+// packedLen is the length of resGen.pk for p channels: the rows 8b…8b+7
+// of L, for each whole block of eight (b ≥ 1), over the columns 0…8b−1,
+// stored as groups of four columns of the eight rows side by side (values
+// j…j+3 of row r at 32·(j/4) + 4r), so that forward reads each block as
+// one sequential stream (dotLanes8Packed).
+func packedLen(p int) int { return packedOff(p / 8) }
+
 // factorLower sets l to the lower Cholesky factor L of A + εI = LLᵀ
 // (row-major p × p, A in the upper triangle of a; the upper triangle of l
 // keeps U = Lᵀ, for the missing-data model, factorU): cholUpper
 // gives U in place, then its transpose into the lower triangle, eight
 // rows of L at a time (one cache line of each row of U read, eight rows of
-// L written in order). panel holds cholBlock·p values. It reports false
-// when A + εI is not positive definite.
-func factorLower(l, panel []float64, a blas64.Symmetric, p int, ridge float64) bool {
+// L written in order), and, when pk is not nil (packedLen(p) values),
+// the same rows in forward's packed layout from the same reads. panel
+// holds cholBlock·p values. It reports false when A + εI is not positive
+// definite.
+func factorLower(l, pk, panel []float64, a blas64.Symmetric, p int, ridge float64) bool {
 	if !cholRidge(l, panel, a, p, ridge) {
 		return false
 	}
@@ -183,6 +203,16 @@ func factorLower(l, panel []float64, a blas64.Symmetric, p int, ridge float64) b
 			u := l[j*p+i0 : j*p+i0+8]
 			r0[j], r1[j], r2[j], r3[j] = u[0], u[1], u[2], u[3]
 			r4[j], r5[j], r6[j], r7[j] = u[4], u[5], u[6], u[7]
+		}
+		if pk != nil && i0 > 0 {
+			// The same eight rows into the packed block (packedLen):
+			// columns j…j+3 of rows 0…7 side by side.
+			blk := pk[packedOff(i0/8) : packedOff(i0/8)+8*i0]
+			for j := 0; j < i0; j++ {
+				u := l[j*p+i0 : j*p+i0+8]
+				d := blk[(j>>2)*32+(j&3) : (j>>2)*32+32]
+				d[0], d[4], d[8], d[12], d[16], d[20], d[24], d[28] = u[0], u[1], u[2], u[3], u[4], u[5], u[6], u[7]
+			}
 		}
 		for i := i0 + 1; i < i0+8; i++ {
 			for j := i0; j < i; j++ {
@@ -364,8 +394,10 @@ func (rs *resStat) score(dst *Score, m *model, z, dz []float64, t2 float64, nMis
 // ‖y‖² = zᵀΩz: lowerSolve for one right-hand side, written out (the dots
 // of four rows of L with the solved part of y by rowKernel, its zero
 // second column the row rs.zb[p:], then the 4 × 4 diagonal block). Where
-// the CPU has AVX2, eight rows of L per pass over y (dotLanes8) with the
-// same sums in the same order: the same bits (TestForwardLanesSameBits).
+// the CPU has AVX2, eight rows of L per pass over y (dotLanes8Packed, on
+// the factor's packed copy: one sequential stream per eight rows) with
+// the same sums in the same order: the same bits
+// (TestForwardLanesSameBits).
 func (rs *resStat) forward(z []float64) float64 {
 	p := rs.p
 	l := rs.gens[rs.cur].l
@@ -377,16 +409,16 @@ func (rs *resStat) forward(z []float64) float64 {
 	}
 	q := 0.0
 	r0 := 0
-	if hasLaneKernel {
-		// Eight rows per pass (dotLanes8): the lane sums of rowKernel over
-		// y[:r0], reduced as it reduces them for rows r0…r0+3 and carried
+	if pk := rs.gens[rs.cur].pk; hasLaneKernel && pk != nil {
+		// Eight rows per pass (dotLanes8Packed): the lane sums of
+		// rowKernel over y[:r0], reduced as it reduces them for rows r0…r0+3 and carried
 		// on over y[r0:r0+4] (one more fused multiply-add per lane, as
 		// rowKernel's next pass would add) for rows r0+4…r0+7: the same
 		// numbers in the same order, half the passes over y.
 		for ; r0+8 <= p; r0 += 8 {
 			var acc [32]float64
 			if r0 > 0 {
-				dotLanes8(l[r0*p:], p, r0, y, acc[:])
+				dotLanes8Packed(pk[packedOff(r0/8):packedOff(r0/8)+8*r0], r0, y, acc[:])
 			}
 			var c [8]float64
 			for r := 0; r < 4; r++ {

@@ -16,7 +16,7 @@ func BenchmarkResidualParts(b *testing.B) {
 	cfg := Config{Residual: true, ResidualRidge: DefaultResidualRidge, Alpha: 0.01, VarianceLambda: DefaultVarianceLambda}
 	rs := newResStat(p, &cfg)
 	g := &rs.gens[0]
-	if !factorLower(g.l, rs.panel, s.RawSymmetric(), p, rs.ridge) {
+	if !factorLower(g.l, g.pk, rs.panel, s.RawSymmetric(), p, rs.ridge) {
 		b.Fatal("not positive definite")
 	}
 	z := make([]float64, p)
@@ -27,7 +27,7 @@ func BenchmarkResidualParts(b *testing.B) {
 	b.Run("factor", func(b *testing.B) {
 		b.ReportAllocs()
 		for i := 0; i < b.N; i++ {
-			factorLower(scratch, rs.panel, s.RawSymmetric(), p, rs.ridge)
+			factorLower(scratch, nil, rs.panel, s.RawSymmetric(), p, rs.ridge)
 		}
 	})
 	b.Run("forward", func(b *testing.B) {
