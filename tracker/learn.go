@@ -118,7 +118,7 @@ func (t *Tracker) learnFrame(r float64, x []float64, mask []bool, scored bool) (
 			}
 		}
 		xl = lw.xl
-		_, _, phi := t.mdl.scoreZ(w, pt, t.cfg.RBCIndex)
+		_, _, phi := t.mdl.phiZ(w, pt)
 		lim := pt.phiLim
 		if t.cal {
 			lim *= t.calScale[2]
