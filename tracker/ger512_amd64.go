@@ -34,12 +34,12 @@ func gerUpd(p *float64, q []float64, ldp, k int, c []float64, ldc, ncol int) {
 	}
 }
 
-// gerUpd2AVX512 is gerUpdAVX512 for two consecutive panels of ka and kb
-// rows in one pass over c (ger512_amd64.s), ncol a multiple of 16: the
-// bits of one gerUpdAVX512 call per panel, in order.
+// gerUpdNAVX512 is gerUpdAVX512 for np consecutive panels of kp rows each
+// in one pass over c (ger512_amd64.s), ncol a multiple of 16: the bits of
+// one gerUpdAVX512 call per panel, in order.
 //
 //go:noescape
-func gerUpd2AVX512(p *float64, q *float64, ldp, ka, kb int, c *float64, ldc, ncol int)
+func gerUpdNAVX512(p *float64, q *float64, ldp, kp, np int, c *float64, ldc, ncol int)
 
 // panelRowAVX512 is panelRowAVX2 with 8-wide vectors (ger512_amd64.s), n a
 // multiple of 8: the same operations on each value, the same bits.

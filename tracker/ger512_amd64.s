@@ -95,28 +95,28 @@ zdone:
 	RET
 
 
-// func gerUpd2AVX512(p *float64, q *float64, ldp, ka, kb int, c *float64, ldc, ncol int)
+// func gerUpdNAVX512(p *float64, q *float64, ldp, kp, np int, c *float64, ldc, ncol int)
 //
-// gerUpdAVX512 for two panels in one pass over c: the ka rows at p, q and
-// then the kb rows after them (ka, kb ≥ 1):
-//	c[x][y] ← (c[x][y] − Σ_{l<ka} p[l][x]·q[l][y]) − Σ_{ka≤l<ka+kb} p[l][x]·q[l][y]
+// gerUpdAVX512 for np ≥ 1 consecutive panels of kp ≥ 1 rows each in one
+// pass over c:
+//	c[x][y] ← (…(c[x][y] − S₀[x][y]) − S₁[x][y] …) − S_{np−1}[x][y],
+//	S_t[x][y] = Σ_{t·kp ≤ l < (t+1)·kp} p[l][x]·q[l][y]
 // each sum formed from zero as by gerUpdAVX512 and subtracted in turn, so
-// every value gets the bits of two gerUpdAVX512 calls, one per panel; c is
-// read and written once instead of twice.
-TEXT ·gerUpd2AVX512(SB), NOSPLIT, $0-64
+// every value gets the bits of one gerUpdAVX512 call per panel, in order;
+// c is read and written once instead of np times.
+TEXT ·gerUpdNAVX512(SB), NOSPLIT, $0-64
 	MOVQ p+0(FP), SI
 	MOVQ q+8(FP), DI
 	MOVQ ldp+16(FP), R8
 	SHLQ $3, R8
-	MOVQ ka+24(FP), CX
 	MOVQ c+40(FP), DX
 	MOVQ ldc+48(FP), R10
 	SHLQ $3, R10
 	MOVQ ncol+56(FP), R9
 
-wblock:
+nblock:
 	CMPQ    R9, $16
-	JLT     wdone
+	JLT     ndone
 	LEAQ    (DX)(R10*2), R13
 	VMOVUPD (DX), Z16
 	VMOVUPD 64(DX), Z17
@@ -128,7 +128,9 @@ wblock:
 	VMOVUPD 64(R13)(R10*1), Z23
 	MOVQ    SI, R11
 	MOVQ    DI, R12
-	MOVQ    CX, BX
+	MOVQ    np+32(FP), CX
+
+npanel:
 	VPXORQ Z0, Z0, Z0
 	VPXORQ Z1, Z1, Z1
 	VPXORQ Z2, Z2, Z2
@@ -137,8 +139,9 @@ wblock:
 	VPXORQ Z5, Z5, Z5
 	VPXORQ Z6, Z6, Z6
 	VPXORQ Z7, Z7, Z7
+	MOVQ   kp+24(FP), BX
 
-wloop:
+nloop:
 	VMOVUPD      (R12), Z8
 	VMOVUPD      64(R12), Z9
 	VBROADCASTSD (R11), Z10
@@ -156,7 +159,7 @@ wloop:
 	ADDQ         R8, R11
 	ADDQ         R8, R12
 	DECQ         BX
-	JNZ          wloop
+	JNZ          nloop
 
 	VSUBPD Z0, Z16, Z16
 	VSUBPD Z1, Z17, Z17
@@ -166,46 +169,8 @@ wloop:
 	VSUBPD Z5, Z21, Z21
 	VSUBPD Z6, Z22, Z22
 	VSUBPD Z7, Z23, Z23
-
-	// The second panel: its rows follow the first's (R11, R12 are there).
-	MOVQ kb+32(FP), BX
-	VPXORQ Z0, Z0, Z0
-	VPXORQ Z1, Z1, Z1
-	VPXORQ Z2, Z2, Z2
-	VPXORQ Z3, Z3, Z3
-	VPXORQ Z4, Z4, Z4
-	VPXORQ Z5, Z5, Z5
-	VPXORQ Z6, Z6, Z6
-	VPXORQ Z7, Z7, Z7
-
-w2loop:
-	VMOVUPD      (R12), Z8
-	VMOVUPD      64(R12), Z9
-	VBROADCASTSD (R11), Z10
-	VFMADD231PD  Z8, Z10, Z0
-	VFMADD231PD  Z9, Z10, Z1
-	VBROADCASTSD 8(R11), Z11
-	VFMADD231PD  Z8, Z11, Z2
-	VFMADD231PD  Z9, Z11, Z3
-	VBROADCASTSD 16(R11), Z12
-	VFMADD231PD  Z8, Z12, Z4
-	VFMADD231PD  Z9, Z12, Z5
-	VBROADCASTSD 24(R11), Z13
-	VFMADD231PD  Z8, Z13, Z6
-	VFMADD231PD  Z9, Z13, Z7
-	ADDQ         R8, R11
-	ADDQ         R8, R12
-	DECQ         BX
-	JNZ          w2loop
-
-	VSUBPD Z0, Z16, Z16
-	VSUBPD Z1, Z17, Z17
-	VSUBPD Z2, Z18, Z18
-	VSUBPD Z3, Z19, Z19
-	VSUBPD Z4, Z20, Z20
-	VSUBPD Z5, Z21, Z21
-	VSUBPD Z6, Z22, Z22
-	VSUBPD Z7, Z23, Z23
+	DECQ   CX
+	JNZ    npanel
 
 	VMOVUPD Z16, (DX)
 	VMOVUPD Z17, 64(DX)
@@ -219,9 +184,9 @@ w2loop:
 	ADDQ $128, DI
 	ADDQ $128, DX
 	SUBQ $16, R9
-	JMP  wblock
+	JMP  nblock
 
-wdone:
+ndone:
 	VZEROUPPER
 	RET
 

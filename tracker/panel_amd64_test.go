@@ -8,19 +8,19 @@ import (
 
 // cholUpper gives the same bits with the panel kernel (panelRowAVX2, each
 // panel row updated once by all the rows above it and scaled in the same
-// pass) and, with AVX-512F, two panels' trailing updates in one pass
-// (gerUpd2AVX512), as with one gonum Axpy per pair of panel rows, one
-// Scal per row and one trailing update per panel, on seeded
+// pass) and, with AVX-512F, the trailing updates of groups of panels in
+// one pass (gerUpdNAVX512), as with one gonum Axpy per pair of panel
+// rows, one Scal per row and one trailing update per panel, on seeded
 // correlation-like matrices with zero rows and columns (channels out of
-// the model) and a ridge, for sizes around the panel width, odd and even
-// numbers of panels, and the kernels' 16-, 8- and 4-value blocks; skipped
-// without AVX2.
+// the model) and a ridge, for sizes around the panel width, whole and
+// partial groups of panels, and the kernels' 16-, 8- and 4-value blocks;
+// skipped without AVX2.
 func TestCholUpperPanelKernelSameBits(t *testing.T) {
 	if !hasPanelKernel {
 		t.Skip("no AVX2")
 	}
 	rng := rand.New(rand.NewPCG(3, 31))
-	for _, n := range []int{1, 3, 4, 5, 15, 16, 17, 33, 48, 64, 101, 203, 262, 500} {
+	for _, n := range []int{1, 3, 4, 5, 15, 16, 17, 33, 48, 64, 65, 80, 101, 203, 262, 500} {
 		lda := n + 3
 		// A = GGᵀ/m, rows of G random, then channels 2 and n−1 zeroed.
 		m := n + 10
@@ -51,10 +51,10 @@ func TestCholUpperPanelKernelSameBits(t *testing.T) {
 		}
 		ref := append([]float64(nil), a...)
 		got := append([]float64(nil), a...)
-		two := hasTwoPanel
-		hasPanelKernel, hasTwoPanel = false, false
+		multi := hasMultiPanel
+		hasPanelKernel, hasMultiPanel = false, false
 		okRef := cholUpper(ref, n, lda, make([]float64, n*cholBlock))
-		hasPanelKernel, hasTwoPanel = true, two
+		hasPanelKernel, hasMultiPanel = true, multi
 		okGot := cholUpper(got, n, lda, make([]float64, n*cholBlock))
 		if !okRef || !okGot {
 			t.Fatalf("n=%d: not positive definite (%v, %v)", n, okRef, okGot)

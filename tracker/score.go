@@ -242,17 +242,21 @@ const cholBlock = 16
 //
 // Where the CPU has AVX2 the panel rows are finished one pass each
 // (panelRow: the updates of the panel rows above, then the scaling), and
-// with AVX-512F every other panel updates only the next panel's rows, the
-// rows past it getting both panels' updates in one pass over the trailing
-// block (trailingRows2). Each value then sees the same operations in the
+// with AVX-512F the trailing updates of a group of panelGroup panels are
+// deferred and applied in one pass over the rows past the group
+// (trailingRowsN; a panel inside the group gets those of the group's
+// earlier panels just before it is factored). Each value then sees the same operations in the
 // same order as above, so the factor has the same bits either way
 // (TestCholUpperPanelKernelSameBits); only the passes over memory differ.
 func cholUpper(a []float64, n, lda int, buf []float64) bool {
 	var offs [cholBlock]int
 	var coef [cholBlock]float64
-	pend := -1 // a panel whose update of the rows past the next panel is deferred (hasTwoPanel)
+	g0 := 0 // the first panel of the group whose trailing updates are deferred (hasMultiPanel)
 	for k0 := 0; k0 < n; k0 += cholBlock {
 		k1 := min(k0+cholBlock, n)
+		if hasMultiPanel && k0 > g0 {
+			trailingRowsN(a, lda, n, g0, cholBlock, (k0-g0)/cholBlock, k0, k1)
+		}
 		for r := k0; r < k1; r++ {
 			if hasPanelKernel {
 				// Row r gets the updates of the panel rows above it in
@@ -301,19 +305,15 @@ func cholUpper(a []float64, n, lda int, buf []float64) bool {
 		if k1 == n {
 			break
 		}
-		if hasTwoPanel {
-			// Every other panel updates only the next panel's rows; the
-			// rows past that get both panels' updates in one pass
-			// (trailingRows2), in the same order: the same bits.
-			if pend < 0 {
-				k2 := min(k1+cholBlock, n)
-				trailingRows(a, lda, n, k0, k1, k1, k2)
-				if k2 < n {
-					pend = k0
-				}
-			} else {
-				trailingRows2(a, lda, n, pend, k0, k1, k1)
-				pend = -1
+		if hasMultiPanel {
+			// The rows past a group of panelGroup panels get the group's
+			// updates in one pass once its last panel is factored; a
+			// panel inside the group gets those of the group's earlier
+			// panels just before it is factored (above). Each value sees
+			// the panels' updates in the same order: the same bits.
+			if (k1-g0)/cholBlock == panelGroup {
+				trailingRowsN(a, lda, n, g0, cholBlock, panelGroup, k1, n)
+				g0 = k1
 			}
 			continue
 		}

@@ -108,41 +108,48 @@ func lastRow(a []float64, lda, n, k0, k1, i int) {
 	}
 }
 
-// hasTwoPanel reports whether cholUpper defers every other panel's
-// trailing update to apply two panels in one pass (gerUpd2AVX512).
-var hasTwoPanel = hasPanelKernel && hasAVX512F
+// hasMultiPanel reports whether cholUpper defers the trailing updates of
+// the panels of a group of panelGroup panels to apply them in one pass
+// (gerUpdNAVX512).
+var hasMultiPanel = hasPanelKernel && hasAVX512F
 
-// trailingRows2 applies, to the rows i0…n−1 of the trailing block (i0 = k2),
-// the updates of the panel of rows k0…k1−1 and then of the panel of rows
-// k1…k2−1: every value gets the bits of trailingRows for the first panel
-// followed by trailingRows for the second, the columns of 16 with both
-// panels in one pass (gerUpd2AVX512), the others panel by panel.
-func trailingRows2(a []float64, lda, n, k0, k1, k2, i0 int) {
-	ka, kb := k1-k0, k2-k1
+// panelGroup is the number of panels whose trailing updates cholUpper
+// applies in one pass over the rows past them (hasMultiPanel).
+const panelGroup = 4
+
+// trailingRowsN applies, to the rows i0…i1−1 of the trailing block (i0 a
+// multiple of 4 unless i1 = n, i0 ≥ k1), the updates of the np panels of
+// bs rows each from row k0 on (k1 = k0 + np·bs), in order: every value
+// gets the bits of trailingRows for each panel in turn, the columns of 16
+// with all the panels in one pass (gerUpdNAVX512), the others panel by
+// panel.
+func trailingRowsN(a []float64, lda, n, k0, bs, np, i0, i1 int) {
+	k1 := k0 + np*bs
 	i := i0
-	for ; i+4 <= n; i += 4 {
+	for ; i+4 <= i1; i += 4 {
 		ncol := n - i
 		n8 := ncol &^ 7
 		n16 := n8 &^ 15
 		if n16 > 0 {
-			_ = a[(k2-1)*lda+i+n16-1]
+			_ = a[(k1-1)*lda+i+n16-1]
 			_ = a[(i+3)*lda+i+n16-1]
-			gerUpd2AVX512(&a[k0*lda+i], &a[k0*lda+i], lda, ka, kb, &a[i*lda+i], lda, n16)
+			gerUpdNAVX512(&a[k0*lda+i], &a[k0*lda+i], lda, bs, np, &a[i*lda+i], lda, n16)
 		}
-		for _, pn := range [2][2]int{{k0, k1}, {k1, k2}} {
+		for t := k0; t < k1; t += bs {
 			if n8 > n16 {
-				_ = a[(pn[1]-1)*lda+i+n8-1]
+				_ = a[(t+bs-1)*lda+i+n8-1]
 				_ = a[(i+3)*lda+i+n8-1]
-				gerUpdAVX2(&a[pn[0]*lda+i], &a[pn[0]*lda+i+n16], lda, pn[1]-pn[0], &a[i*lda+i+n16], lda, n8-n16)
+				gerUpdAVX2(&a[t*lda+i], &a[t*lda+i+n16], lda, bs, &a[i*lda+i+n16], lda, n8-n16)
 			}
 			if n8 < ncol {
-				tailColumns(a, lda, n, pn[0], pn[1], i, i+n8)
+				tailColumns(a, lda, n, t, t+bs, i, i+n8)
 			}
 		}
 	}
-	for ; i < n; i++ {
-		lastRow(a, lda, n, k0, k1, i)
-		lastRow(a, lda, n, k1, k2, i)
+	for ; i < i1; i++ {
+		for t := k0; t < k1; t += bs {
+			lastRow(a, lda, n, t, t+bs, i)
+		}
 	}
 }
 

@@ -10,10 +10,10 @@ func rowKernel(a []float64, lda, k int, b []float64, ncol int, c []float64, ldc 
 
 func trailingUpdate(a []float64, lda, n, k0, k1 int) bool { return false }
 
-const hasTwoPanel = false
+const hasMultiPanel = false
 
-func trailingRows(a []float64, lda, n, k0, k1, i0, i1 int) {}
+const panelGroup = 4
 
-func trailingRows2(a []float64, lda, n, k0, k1, k2, i0 int) {}
+func trailingRowsN(a []float64, lda, n, k0, bs, np, i0, i1 int) {}
 
 func gerKernel(p, q []float64, ldp, k int, c []float64, ldc, ncol int) int { return 0 }
