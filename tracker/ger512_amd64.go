@@ -1,11 +1,5 @@
 package tracker
 
-// gerUpdAVX512 is gerUpdAVX2 with 8-wide vectors (ger512_amd64.s), ncol a
-// multiple of 16; it gives the same bits.
-//
-//go:noescape
-func gerUpdAVX512(p *float64, q *float64, ldp, k int, c *float64, ldc, ncol int)
-
 // hasAVX512F reports whether the CPU and the operating system support
 // AVX-512F (CPUID leaf 7 EBX bit 16; XCR0 bits 5–7 opmask and ZMM state
 // besides bits 1–2; Intel SDM vol. 2A, CPUID and XGETBV), with AVX2/FMA.
@@ -18,15 +12,15 @@ var hasAVX512F = func() bool {
 }()
 
 // gerUpd is gerUpdAVX2 over ncol (a multiple of 8) columns, the first
-// ncol &^ 15 by gerUpdAVX512 where the CPU has AVX-512F (same results:
-// each value is summed in the same order; the wider vectors halve the
-// instructions of the trailing update of the factorization).
+// ncol &^ 15 by gerUpdNAVX512 (one panel) where the CPU has AVX-512F (same
+// results: each value is summed in the same order; the wider vectors halve
+// the instructions of the trailing update of the factorization).
 func gerUpd(p *float64, q []float64, ldp, k int, c []float64, ldc, ncol int) {
 	n16 := 0
 	if hasAVX512F {
 		n16 = ncol &^ 15
 		if n16 > 0 {
-			gerUpdAVX512(p, &q[0], ldp, k, &c[0], ldc, n16)
+			gerUpdNAVX512(p, &q[0], ldp, k, 1, &c[0], ldc, n16)
 		}
 	}
 	if ncol > n16 {
@@ -34,9 +28,9 @@ func gerUpd(p *float64, q []float64, ldp, k int, c []float64, ldc, ncol int) {
 	}
 }
 
-// gerUpdNAVX512 is gerUpdAVX512 for np consecutive panels of kp rows each
-// in one pass over c (ger512_amd64.s), ncol a multiple of 16: the bits of
-// one gerUpdAVX512 call per panel, in order.
+// gerUpdNAVX512 is gerUpdAVX2 with 8-wide vectors for np consecutive
+// panels of kp rows each in one pass over c (ger512_amd64.s), ncol a
+// multiple of 16: the bits of one gerUpdAVX2 call per panel, in order.
 //
 //go:noescape
 func gerUpdNAVX512(p *float64, q *float64, ldp, kp, np int, c *float64, ldc, ncol int)

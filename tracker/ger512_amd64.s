@@ -1,109 +1,19 @@
 #include "textflag.h"
 
-// func gerUpdAVX512(p *float64, q *float64, ldp, k int, c *float64, ldc, ncol int)
-//
-// gerUpdAVX2 with 8-wide vectors: for the four rows x = 0…3 at p and the
-// ncol (a multiple of 16) columns y at q of a k-row panel (rows at stride
-// ldp):
-//	c[x][y] ← c[x][y] − Σ_l p[l][x]·q[l][y]
-// Per panel row: four broadcasts, two 8-wide loads, eight fused
-// multiply-adds into eight accumulators (4 rows × 16 columns). Each c
-// value is summed over l in the same order as by gerUpdAVX2, so the two
-// give the same bits. k ≥ 1. Strides are in elements.
-TEXT ·gerUpdAVX512(SB), NOSPLIT, $0-56
-	MOVQ p+0(FP), SI
-	MOVQ q+8(FP), DI
-	MOVQ ldp+16(FP), R8
-	SHLQ $3, R8
-	MOVQ k+24(FP), CX
-	MOVQ c+32(FP), DX
-	MOVQ ldc+40(FP), R10
-	SHLQ $3, R10
-	MOVQ ncol+48(FP), R9
-
-zblock:
-	CMPQ   R9, $16
-	JLT    zdone
-	VPXORQ Z0, Z0, Z0
-	VPXORQ Z1, Z1, Z1
-	VPXORQ Z2, Z2, Z2
-	VPXORQ Z3, Z3, Z3
-	VPXORQ Z4, Z4, Z4
-	VPXORQ Z5, Z5, Z5
-	VPXORQ Z6, Z6, Z6
-	VPXORQ Z7, Z7, Z7
-	MOVQ   SI, R11
-	MOVQ   DI, R12
-	MOVQ   CX, BX
-
-zloop:
-	VMOVUPD      (R12), Z8
-	VMOVUPD      64(R12), Z9
-	VBROADCASTSD (R11), Z10
-	VFMADD231PD  Z8, Z10, Z0
-	VFMADD231PD  Z9, Z10, Z1
-	VBROADCASTSD 8(R11), Z11
-	VFMADD231PD  Z8, Z11, Z2
-	VFMADD231PD  Z9, Z11, Z3
-	VBROADCASTSD 16(R11), Z12
-	VFMADD231PD  Z8, Z12, Z4
-	VFMADD231PD  Z9, Z12, Z5
-	VBROADCASTSD 24(R11), Z13
-	VFMADD231PD  Z8, Z13, Z6
-	VFMADD231PD  Z9, Z13, Z7
-	ADDQ         R8, R11
-	ADDQ         R8, R12
-	DECQ         BX
-	JNZ          zloop
-
-	VMOVUPD (DX), Z8
-	VSUBPD  Z0, Z8, Z8
-	VMOVUPD Z8, (DX)
-	VMOVUPD 64(DX), Z9
-	VSUBPD  Z1, Z9, Z9
-	VMOVUPD Z9, 64(DX)
-
-	VMOVUPD (DX)(R10*1), Z8
-	VSUBPD  Z2, Z8, Z8
-	VMOVUPD Z8, (DX)(R10*1)
-	VMOVUPD 64(DX)(R10*1), Z9
-	VSUBPD  Z3, Z9, Z9
-	VMOVUPD Z9, 64(DX)(R10*1)
-
-	VMOVUPD (DX)(R10*2), Z8
-	VSUBPD  Z4, Z8, Z8
-	VMOVUPD Z8, (DX)(R10*2)
-	VMOVUPD 64(DX)(R10*2), Z9
-	VSUBPD  Z5, Z9, Z9
-	VMOVUPD Z9, 64(DX)(R10*2)
-
-	LEAQ    (DX)(R10*2), R13
-	VMOVUPD (R13)(R10*1), Z8
-	VSUBPD  Z6, Z8, Z8
-	VMOVUPD Z8, (R13)(R10*1)
-	VMOVUPD 64(R13)(R10*1), Z9
-	VSUBPD  Z7, Z9, Z9
-	VMOVUPD Z9, 64(R13)(R10*1)
-
-	ADDQ $128, DI
-	ADDQ $128, DX
-	SUBQ $16, R9
-	JMP  zblock
-
-zdone:
-	VZEROUPPER
-	RET
-
-
 // func gerUpdNAVX512(p *float64, q *float64, ldp, kp, np int, c *float64, ldc, ncol int)
 //
-// gerUpdAVX512 for np ≥ 1 consecutive panels of kp ≥ 1 rows each in one
-// pass over c:
+// The outer-product update of gerUpdAVX2 with 8-wide vectors, for the four
+// rows x = 0…3 at p and the ncol (a multiple of 16) columns y at q, over
+// np ≥ 1 consecutive panels of kp ≥ 1 rows each (rows at stride ldp), in
+// one pass over c:
 //	c[x][y] ← (…(c[x][y] − S₀[x][y]) − S₁[x][y] …) − S_{np−1}[x][y],
 //	S_t[x][y] = Σ_{t·kp ≤ l < (t+1)·kp} p[l][x]·q[l][y]
-// each sum formed from zero as by gerUpdAVX512 and subtracted in turn, so
-// every value gets the bits of one gerUpdAVX512 call per panel, in order;
-// c is read and written once instead of np times.
+// Per panel row: four broadcasts, two 8-wide loads, eight fused
+// multiply-adds into eight accumulators (4 rows × 16 columns). Each sum is
+// formed from zero over its panel's rows in the same order as by
+// gerUpdAVX2 and subtracted in turn, so every value gets the bits of one
+// gerUpdAVX2 call per panel, in order; c is read and written once instead
+// of np times. Strides are in elements.
 TEXT ·gerUpdNAVX512(SB), NOSPLIT, $0-64
 	MOVQ p+0(FP), SI
 	MOVQ q+8(FP), DI
@@ -270,6 +180,19 @@ qdone:
 	VZEROUPPER
 	RET
 
+// REDUCEPAIR reduces the accumulator z (two columns' 4-wide lane sums
+// side by side, its low half y) as syrkRow4AVX2 reduces a pair of its
+// accumulators, and updates the two values at addr: c ← β·c + α·s.
+#define REDUCEPAIR(z, y, addr) \
+	VEXTRACTF64X4 $1, z, Y9  \
+	VHADDPD       Y9, y, Y8  \
+	VEXTRACTF128  $1, Y8, X9 \
+	VADDPD        X9, X8, X8 \
+	VMULPD        X15, X8, X8 \
+	VMOVUPD       addr, X9   \
+	VFMADD231PD   X14, X9, X8 \
+	VMOVUPD       X8, addr
+
 // func syrkRow4x4AVX512(a *float64, lda, k int, b *float64, ncol int, c *float64, ldc int, alpha, beta float64)
 //
 // syrkRow4AVX2 four columns at a time (ncol a multiple of 4): each 8-wide
@@ -333,70 +256,14 @@ quadloop:
 	JLT             quadloop
 
 	LEAQ (DX)(R10*2), AX
-	VEXTRACTF64X4 $1, Z0, Y9
-	VHADDPD       Y9, Y0, Y8
-	VEXTRACTF128  $1, Y8, X9
-	VADDPD        X9, X8, X8
-	VMULPD        X15, X8, X8
-	VMOVUPD       (DX), X9
-	VFMADD231PD   X14, X9, X8
-	VMOVUPD       X8, (DX)
-	VEXTRACTF64X4 $1, Z1, Y9
-	VHADDPD       Y9, Y1, Y8
-	VEXTRACTF128  $1, Y8, X9
-	VADDPD        X9, X8, X8
-	VMULPD        X15, X8, X8
-	VMOVUPD       16(DX), X9
-	VFMADD231PD   X14, X9, X8
-	VMOVUPD       X8, 16(DX)
-	VEXTRACTF64X4 $1, Z2, Y9
-	VHADDPD       Y9, Y2, Y8
-	VEXTRACTF128  $1, Y8, X9
-	VADDPD        X9, X8, X8
-	VMULPD        X15, X8, X8
-	VMOVUPD       (DX)(R10*1), X9
-	VFMADD231PD   X14, X9, X8
-	VMOVUPD       X8, (DX)(R10*1)
-	VEXTRACTF64X4 $1, Z3, Y9
-	VHADDPD       Y9, Y3, Y8
-	VEXTRACTF128  $1, Y8, X9
-	VADDPD        X9, X8, X8
-	VMULPD        X15, X8, X8
-	VMOVUPD       16(DX)(R10*1), X9
-	VFMADD231PD   X14, X9, X8
-	VMOVUPD       X8, 16(DX)(R10*1)
-	VEXTRACTF64X4 $1, Z4, Y9
-	VHADDPD       Y9, Y4, Y8
-	VEXTRACTF128  $1, Y8, X9
-	VADDPD        X9, X8, X8
-	VMULPD        X15, X8, X8
-	VMOVUPD       (AX), X9
-	VFMADD231PD   X14, X9, X8
-	VMOVUPD       X8, (AX)
-	VEXTRACTF64X4 $1, Z5, Y9
-	VHADDPD       Y9, Y5, Y8
-	VEXTRACTF128  $1, Y8, X9
-	VADDPD        X9, X8, X8
-	VMULPD        X15, X8, X8
-	VMOVUPD       16(AX), X9
-	VFMADD231PD   X14, X9, X8
-	VMOVUPD       X8, 16(AX)
-	VEXTRACTF64X4 $1, Z6, Y9
-	VHADDPD       Y9, Y6, Y8
-	VEXTRACTF128  $1, Y8, X9
-	VADDPD        X9, X8, X8
-	VMULPD        X15, X8, X8
-	VMOVUPD       (AX)(R10*1), X9
-	VFMADD231PD   X14, X9, X8
-	VMOVUPD       X8, (AX)(R10*1)
-	VEXTRACTF64X4 $1, Z7, Y9
-	VHADDPD       Y9, Y7, Y8
-	VEXTRACTF128  $1, Y8, X9
-	VADDPD        X9, X8, X8
-	VMULPD        X15, X8, X8
-	VMOVUPD       16(AX)(R10*1), X9
-	VFMADD231PD   X14, X9, X8
-	VMOVUPD       X8, 16(AX)(R10*1)
+	REDUCEPAIR(Z0, Y0, (DX))
+	REDUCEPAIR(Z1, Y1, 16(DX))
+	REDUCEPAIR(Z2, Y2, (DX)(R10*1))
+	REDUCEPAIR(Z3, Y3, 16(DX)(R10*1))
+	REDUCEPAIR(Z4, Y4, (AX))
+	REDUCEPAIR(Z5, Y5, 16(AX))
+	REDUCEPAIR(Z6, Y6, (AX)(R10*1))
+	REDUCEPAIR(Z7, Y7, 16(AX)(R10*1))
 
 	ADDQ $32, DX
 	LEAQ (DI)(R8*4), DI

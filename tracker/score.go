@@ -50,39 +50,13 @@ func (m *model) impute(z []float64, pt *pattern, tmp []float64) {
 // nonzero row of P or Q (m.act): a channel outside every mode has e = z,
 // D'z = 0.
 func (m *model) scoreZ(w *work, pt *pattern, rbc Index) (t2, spe, phi float64) {
-	p, R, r, rq := m.p, m.maxR, m.r, m.rq
+	p, r, rq := m.p, m.r, m.rq
 	z := w.z
 	nw := r + rq
-	// tq = [Pᵀz | Qᵀz] over the active rows.
-	tq := w.tq[:nw]
-	for j := range tq {
-		tq[j] = 0
-	}
+	t2 = m.modeScores(w, pt)
 	act := m.act
 	pq := m.pq[:len(act)*nw]
-	for a, i := range act {
-		zi := z[i]
-		if zi == 0 {
-			continue
-		}
-		row := pq[a*nw : a*nw+nw]
-		for j, v := range row {
-			tq[j] += v * zi
-		}
-	}
-	tv, qv := tq[:r], tq[r:]
-	// y = M'⁺t, T² = tᵀy
-	y := w.y[:r]
-	t2 = 0
-	for a := 0; a < r; a++ {
-		mr := pt.minv[a*R : a*R+r]
-		s := 0.0
-		for b, v := range mr {
-			s += v * tv[b]
-		}
-		y[a] = s
-		t2 += tv[a] * s
-	}
+	qv, y := w.tq[r:nw], w.y[:r]
 	tau2, delta2 := pt.t2Lim, pt.speLim
 	// The RBC numerator is (Mz)ᵢ with M = Φ = D/τ² + C̃/δ² or M = C̃.
 	cd, ce := 1/tau2, 1/delta2
@@ -123,6 +97,43 @@ func (m *model) scoreZ(w *work, pt *pattern, rbc Index) (t2, spe, phi float64) {
 	}
 	phi = spe/delta2 + t2/tau2
 	return t2, spe, phi
+}
+
+// modeScores sets w.tq = [Pᵀz | Qᵀz] (from the active rows) and w.y = M'⁺t
+// for the frame in w.z under pattern pt, and returns T² = tᵀM'⁺t: the part
+// of scoreZ and phiZ before the per-channel loop.
+func (m *model) modeScores(w *work, pt *pattern) (t2 float64) {
+	R, r, rq := m.maxR, m.r, m.rq
+	z := w.z
+	nw := r + rq
+	tq := w.tq[:nw]
+	for j := range tq {
+		tq[j] = 0
+	}
+	act := m.act
+	pq := m.pq[:len(act)*nw]
+	for a, i := range act {
+		zi := z[i]
+		if zi == 0 {
+			continue
+		}
+		row := pq[a*nw : a*nw+nw]
+		for j, v := range row {
+			tq[j] += v * zi
+		}
+	}
+	tv := tq[:r]
+	y := w.y[:r]
+	for a := 0; a < r; a++ {
+		mr := pt.minv[a*R : a*R+r]
+		s := 0.0
+		for b, v := range mr {
+			s += v * tv[b]
+		}
+		y[a] = s
+		t2 += tv[a] * s
+	}
+	return t2
 }
 
 // lookupPattern returns the pattern for the missing set miss: from the
