@@ -415,25 +415,21 @@ func (rs *resStat) forward(z []float64) float64 {
 		// on over y[r0:r0+4] (one more fused multiply-add per lane, as
 		// rowKernel's next pass would add) for rows r0+4…r0+7: the same
 		// numbers in the same order, half the passes over y.
+		var acc [32]float64 // zero for the first block (no columns left of it); then all written by the kernel
 		for ; r0+8 <= p; r0 += 8 {
-			var acc [32]float64
 			if r0 > 0 {
 				dotLanes8Packed(pk[packedOff(r0/8):packedOff(r0/8)+8*r0], r0, y, acc[:])
 			}
-			var c [8]float64
-			for r := 0; r < 4; r++ {
-				c[2*r] = laneSum(acc[4*r : 4*r+4])
-			}
-			q += forward4(l, p, r0, y, &c)
-			for r := 0; r < 4; r++ {
-				a := acc[4*(r+4) : 4*(r+4)+4]
+			q += forward4c(l, p, r0, y, laneSum(acc[0:4]), laneSum(acc[4:8]), laneSum(acc[8:12]), laneSum(acc[12:16]))
+			var c [4]float64
+			y0, y1, y2, y3 := y[r0], y[r0+1], y[r0+2], y[r0+3]
+			for r := range c {
+				a := acc[16+4*r : 20+4*r]
 				row := l[(r0+4+r)*p+r0 : (r0+4+r)*p+r0+4]
-				for j, v := range row {
-					a[j] = math.FMA(v, y[r0+j], a[j])
-				}
-				c[2*r] = laneSum(a)
+				c[r] = ((math.FMA(row[0], y0, a[0]) + math.FMA(row[1], y1, a[1])) +
+					(math.FMA(row[2], y2, a[2]) + math.FMA(row[3], y3, a[3]))) + 0
 			}
-			q += forward4(l, p, r0+4, y, &c)
+			q += forward4c(l, p, r0+4, y, c[0], c[1], c[2], c[3])
 		}
 	}
 	for ; r0+4 <= p; r0 += 4 {
@@ -456,19 +452,24 @@ func (rs *resStat) forward(z []float64) float64 {
 // rows with y[:r0] given in c[0], c[2], c[4], c[6] (rowKernel's layout),
 // and returns the block's part of ‖y‖².
 func forward4(l []float64, p, r0 int, y []float64, c *[8]float64) float64 {
+	return forward4c(l, p, r0, y, c[0], c[2], c[4], c[6])
+}
+
+// forward4c is forward4 with the four dots c0…c3 as values.
+func forward4c(l []float64, p, r0 int, y []float64, c0, c1, c2, c3 float64) float64 {
 	l0, l1, l2, l3 := l[r0*p+r0:r0*p+r0+1], l[(r0+1)*p+r0:(r0+1)*p+r0+2], l[(r0+2)*p+r0:(r0+2)*p+r0+3], l[(r0+3)*p+r0:(r0+3)*p+r0+4]
-	y0 := (y[r0] - c[0]) / l0[0]
-	y1 := (y[r0+1] - c[2] - l1[0]*y0) / l1[1]
-	y2 := (y[r0+2] - c[4] - (l2[0]*y0 + l2[1]*y1)) / l2[2]
-	y3 := (y[r0+3] - c[6] - (l3[0]*y0 + l3[1]*y1 + l3[2]*y2)) / l3[3]
+	y0 := (y[r0] - c0) / l0[0]
+	y1 := (y[r0+1] - c1 - l1[0]*y0) / l1[1]
+	y2 := (y[r0+2] - c2 - (l2[0]*y0 + l2[1]*y1)) / l2[2]
+	y3 := (y[r0+3] - c3 - (l3[0]*y0 + l3[1]*y1 + l3[2]*y2)) / l3[3]
 	y[r0], y[r0+1], y[r0+2], y[r0+3] = y0, y1, y2, y3
 	return (y0*y0 + y1*y1) + (y2*y2 + y3*y3)
 }
 
 // laneSum reduces four lane sums as rowKernel does: (a₀ + a₁) + (a₂ + a₃),
-// then β·c + s with β = c = 0 (a fused multiply-add, so −0 becomes +0).
+// then β·c + s with β = c = 0, which is s + 0 (so −0 becomes +0).
 func laneSum(a []float64) float64 {
-	return math.FMA(0, 0, (a[0]+a[1])+(a[2]+a[3]))
+	return ((a[0] + a[1]) + (a[2] + a[3])) + 0
 }
 
 // contributions returns the RBC of R of the last frame scored, forming it
