@@ -395,6 +395,13 @@ type Alerts struct {
 	// on the realism suite it raised the false alerts of three plants
 	// for one more detection (README, Validation).
 	BudgetPerStatistic *bool `yaml:"budget_per_statistic"`
+	// CalibrationFolds is the number of consecutive blocks fit cuts the
+	// normal log into for the budget calibration (top level only: one
+	// calibration serves every unit). 1: learn on the first half and
+	// score the second; K ≥ 2: cross-fitting, every block scored by a
+	// model learned on the other K − 1, so that the calibration sees the
+	// whole log held out. Zero: DefaultCalibrationFolds.
+	CalibrationFolds int `yaml:"calibration_folds"`
 	// OnDelay: active when over the limit in N of the last M frames
 	// (1 ≤ N ≤ M ≤ 64). Default [DefaultOnDelayN] of [DefaultOnDelayM].
 	OnDelay OnDelay `yaml:"on_delay"`

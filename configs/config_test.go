@@ -419,3 +419,22 @@ units:
 		t.Errorf("negative location_quiet: got %v", err)
 	}
 }
+
+// TestCalibrationFolds: alerts.calibration_folds is read at the top level
+// (one calibration serves every unit), from 1 to MaxCalibrationFolds; a
+// unit's own value or one out of range is refused with its place.
+func TestCalibrationFolds(t *testing.T) {
+	c, err := Parse("f.yaml", []byte("alerts: {calibration_folds: 2}\n"))
+	if err != nil || c.Alerts.CalibrationFolds != 2 {
+		t.Fatalf("got %v, %+v", err, c)
+	}
+	_, err = Parse("f.yaml", []byte(`
+alerts: {calibration_folds: 9}
+units:
+  - name: boiler
+    alerts: {calibration_folds: 2}
+`))
+	if err == nil || !strings.Contains(err.Error(), "alerts.calibration_folds: 9 blocks") || !strings.Contains(err.Error(), "units[0].alerts.calibration_folds: set at the top level only") {
+		t.Fatalf("got %v", err)
+	}
+}

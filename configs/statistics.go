@@ -64,3 +64,12 @@ func ParseStatistics(s string) (Statistics, error) {
 // alert a day (0.5 gave 1.8 on the district heating and 1.5 on the demo),
 // at 33 of 37 faults detected against 35 at 0.5.
 const DefaultBudget = 0.25
+
+// DefaultCalibrationFolds is the default of alerts.calibration_folds: the
+// budget's calibration learns on the first half of the normal log and
+// scores the second half.
+const DefaultCalibrationFolds = 1
+
+// MaxCalibrationFolds bounds alerts.calibration_folds: fit learns one
+// model per block.
+const MaxCalibrationFolds = 8

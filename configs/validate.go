@@ -353,6 +353,11 @@ func (v *validator) alerts(p string, a Alerts, partial bool) {
 	if math.IsNaN(a.Budget) || math.IsInf(a.Budget, 0) || a.Budget > 1440 {
 		v.add(p+".budget", "%v false alerts per day: want a finite number up to 1440 (negative: off)", a.Budget)
 	}
+	if a.CalibrationFolds != 0 && partial {
+		v.add(p+".calibration_folds", "set at the top level only (alerts.calibration_folds): one calibration serves every unit")
+	} else if a.CalibrationFolds < 0 || a.CalibrationFolds > MaxCalibrationFolds {
+		v.add(p+".calibration_folds", "%d blocks: want 1 to %d (0: the default, %d)", a.CalibrationFolds, MaxCalibrationFolds, DefaultCalibrationFolds)
+	}
 	od := a.OnDelay
 	if od != (OnDelay{}) || !partial {
 		if od.N < 1 || od.M < od.N {

@@ -21,11 +21,12 @@ func budgetFor(cfg *configs.Config, name string) float64 {
 }
 
 // calibrateBudgets calibrates every unit of the fitted model to its
-// alerts.budget (pipeline.CalibrateBudget): it learns a model on the first
-// pipeline.CalibrationShare of the normal log, replays the rest from it
-// with the settings the service uses (adapting, without freezing on
-// alerts), records the ratio of every alarm statistic to its limit, and
-// sets each unit's Calibration. It returns lines for the summary: which
+// alerts.budget (pipeline.CalibrateBudget): it scores held-out normal
+// frames with the settings the service uses (heldOutRatios: by default a
+// model learned on the first pipeline.CalibrationShare of the log scores
+// the rest; with alerts.calibration_folds every block of the log is scored
+// by a model of the others), records the ratio of every alarm statistic to
+// its limit, and sets each unit's Calibration. It returns lines for the summary: which
 // setting wins, units left uncalibrated and why.
 func calibrateBudgets(ctx context.Context, env IO, cfg *configs.Config, inputs []string, mf modelFlags, model *pipeline.ModelFile) []string {
 	any := false
@@ -43,29 +44,9 @@ func calibrateBudgets(ctx context.Context, env IO, cfg *configs.Config, inputs [
 			return []string{"alerts.budget: not calibrated (standard input cannot be read twice); the limits are those of alpha"}
 		}
 	}
-	from, to := model.From, model.To
-	split := from.Add(time.Duration(pipeline.CalibrationShare * float64(to.Sub(from))))
-	learnDays := split.Sub(from).Hours() / 24
-	quiet := runOutputs{quiet: true}
-	outA := quiet
-	outA.keep = func(t time.Time) bool { return t.Before(split) }
-	resA, _, err := runEngine(ctx, env, cfg, inputs, nil, true, mf.halfLifeSet(), outA)
-	if err != nil || resA == nil {
-		return []string{fmt.Sprintf("alerts.budget: not calibrated: learning on the first part of the log failed: %v", err)}
-	}
-	modelA, errA := resA.Pipeline.Baseline()
-	if len(modelA.Units) == 0 {
-		return []string{fmt.Sprintf("alerts.budget: not calibrated: no unit could be learned from the first part of the log: %v", errA)}
-	}
-	cfgB := *cfg
-	off := false
-	cfgB.Alerts.FreezeOnAlert = &off
-	rec := pipeline.NewRatioRecorder()
-	outB := quiet
-	outB.keep = func(t time.Time) bool { return !t.Before(split) }
-	outB.onScore = rec.OnScore
-	if _, _, err := runEngine(ctx, env, &cfgB, inputs, modelA, false, false, outB); err != nil {
-		return []string{fmt.Sprintf("alerts.budget: not calibrated: scoring the held-out part of the log failed: %v", err)}
+	rec, learnDays, err := heldOutRatios(ctx, env, cfg, inputs, mf, model.From, model.To, calibrationFolds(cfg))
+	if err != nil {
+		return []string{fmt.Sprintf("alerts.budget: not calibrated: %v", err)}
 	}
 	for i := range model.Units {
 		u := &model.Units[i]
