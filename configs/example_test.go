@@ -62,6 +62,7 @@ func TestExampleStatesDefaults(t *testing.T) {
 		got, want any
 	}{
 		{"alerts.budget", a.Budget, configs.DefaultBudget},
+		{"alerts.calibration_folds", a.CalibrationFolds, configs.DefaultCalibrationFolds},
 		{"alerts.off_delay", a.OffDelay, alerts.DefaultOffDelay},
 		{"alerts.deadband", a.Deadband, alerts.DefaultDeadband},
 		{"alerts.accept_after", a.AcceptAfter, alerts.DefaultAcceptAfter},
