@@ -608,10 +608,11 @@ func DefaultAlerts() Alerts {
 			{Name: "medium", Ratio: 2},
 			{Name: "high", Ratio: 4},
 		},
-		Flood:         RateRule{Count: DefaultFloodCount, Window: DefaultFloodWindow},
-		Chatter:       RateRule{Count: DefaultChatterCount, Window: DefaultChatterWindow},
-		FreezeOnAlert: &freeze,
-		NewPoint:      &point,
+		Flood:            RateRule{Count: DefaultFloodCount, Window: DefaultFloodWindow},
+		Chatter:          RateRule{Count: DefaultChatterCount, Window: DefaultChatterWindow},
+		FreezeOnAlert:    &freeze,
+		NewPoint:         &point,
+		CalibrationFolds: DefaultCalibrationFolds,
 	}
 }
 

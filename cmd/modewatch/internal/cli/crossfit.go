@@ -11,10 +11,7 @@ import (
 
 // calibrationFolds returns alerts.calibration_folds of cfg (top level).
 func calibrationFolds(cfg *configs.Config) int {
-	if k := cfg.Alerts.CalibrationFolds; k > 0 {
-		return k
-	}
-	return configs.DefaultCalibrationFolds
+	return cfg.Alerts.Over(configs.DefaultAlerts()).CalibrationFolds
 }
 
 // heldOutRatios scores the normal log [from, to] for the budget
