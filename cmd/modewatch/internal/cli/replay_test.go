@@ -657,3 +657,42 @@ func TestTennesseeEastmanCommands(t *testing.T) {
 	}
 	t.Log("\n" + b.String())
 }
+
+// TestFitCalibrationFolds: with alerts.calibration_folds 2, fit scores
+// every frame of the normal log once, each half by a model learned on the
+// other (cross-fitting), so each unit's calibration holds out the whole
+// day of the demo plant's first 24 h (invented data); by default it holds
+// out the second half only.
+func TestFitCalibrationFolds(t *testing.T) {
+	dir := t.TempDir()
+	p, _ := demoLog(t, 24)
+	cfg := filepath.Join(dir, "folds.yaml")
+	if err := os.WriteFile(cfg, []byte("alerts:\n  calibration_folds: 2\n"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	for _, c := range []struct {
+		name   string
+		args   []string
+		lo, hi float64 // held-out days
+	}{
+		{"default", nil, 0.45, 0.55},
+		{"two folds", []string{"--config", cfg}, 0.95, 1.01},
+	} {
+		t.Run(c.name, func(t *testing.T) {
+			model := filepath.Join(dir, c.name+".json")
+			args := append([]string{"fit", "--quiet", "--out", model}, c.args...)
+			if code, _, errs := runCLI(t, "", append(args, p)...); code != ExitOK {
+				t.Fatalf("fit: exit %d: %s", code, errs)
+			}
+			mf, err := pipeline.ReadModel(model)
+			if err != nil || len(mf.Units) == 0 {
+				t.Fatalf("model: %v", err)
+			}
+			for _, u := range mf.Units {
+				if cal := u.Calibration; cal == nil || cal.HeldOutDays < c.lo || cal.HeldOutDays > c.hi || !(cal.Scale > 0) {
+					t.Errorf("unit %s: calibration %+v, want %.2f to %.2f held-out days", u.Name, cal, c.lo, c.hi)
+				}
+			}
+		})
+	}
+}
