@@ -32,8 +32,8 @@ unit's limits are calibrated: a model learned on the first half of the
 log scores the second half (alerts.calibration_folds K: each of K blocks
 of the log is scored by a model learned on the others), the whole alarm
 rule's statistic is fitted by an extreme-value model of block maxima,
-and every limit is multiplied by
-the scale at which the expected false alerts per day meet the budget.
+and every limit is multiplied by the scale at which the expected false
+alerts per day meet the budget.
 fit prints the scale, the limits, the expected rate with its 95 %
 interval, and the days of normal log needed when the log is too short.
 The budget wins over alpha, which then only sets the base limits. Input
