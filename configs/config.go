@@ -343,6 +343,14 @@ type Model struct {
 	// deviations). Zero: the default (pipeline.DefaultResolutionFloor);
 	// negative: no floor.
 	ResolutionFloor float64 `yaml:"resolution_floor"`
+	// DriverLevel is the significance level, in (0, 0.5), of the test
+	// that keeps a context channel's slope in the regression that removes
+	// the drivers' part of the unit's channels: a slope not significant
+	// for the effective number of independent frames (serially correlated,
+	// exponentially weighted) is set to 0 (tracker.Drivers). Default
+	// [tracker.DefaultDriverLevel]; negative: every slope is kept
+	// untested.
+	DriverLevel float64 `yaml:"driver_level"`
 	// WarmUp frames are learned before scores are reported. Default
 	// [DefaultWarmUp] (the tracker's).
 	WarmUp int `yaml:"warmup"`
@@ -592,6 +600,7 @@ func DefaultModel() Model {
 		MaxChannels:  DefaultUnitMaxChannels,
 		Statistics:   DefaultStatistics,
 		StateScoring: tracker.DefaultStateScoring,
+		DriverLevel:  tracker.DefaultDriverLevel,
 	}
 }
 

@@ -288,6 +288,23 @@ var settings = []Setting{
 		yaml: quoted,
 	},
 	{
+		Name: "driver_level", Section: "model", Grid: true, Default: strconv.FormatFloat(tracker.DefaultDriverLevel, 'g', -1, 64),
+		Doc: "significance level in (0, 0.5) of the test that keeps a context channel's slope (for the effective number of independent frames), or off: every slope kept",
+		set: func(o *Overrides, s string) (string, error) {
+			if s == "off" {
+				o.Model.DriverLevel = -1
+				return s, nil
+			}
+			return setFraction(0.5, "a significance level", func(o *Overrides) *float64 { return &o.Model.DriverLevel })(o, s)
+		},
+		yaml: func(text string) string {
+			if text == "off" {
+				return "-1"
+			}
+			return text
+		},
+	},
+	{
 		Name: "smoothing", Section: "model",
 		Doc: "EWMA weight in (0, 1) of the alarm statistics before the alarm rule; its threshold comes from alerts.budget (default: none)",
 		set: setFraction(1, "an EWMA weight", func(o *Overrides) *float64 { return &o.Model.Smoothing }),

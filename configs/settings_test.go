@@ -32,6 +32,7 @@ func TestSettingDefaults(t *testing.T) {
 		"statistics":    DefaultStatistics,
 		"state_scoring": tracker.DefaultStateScoring,
 		"new_point":     strconv.FormatBool(alerts.DefaultNewPoint),
+		"driver_level":  strconv.FormatFloat(tracker.DefaultDriverLevel, 'g', -1, 64),
 	}
 	if DefaultHalfLife != 7*24*time.Hour {
 		t.Fatalf("DefaultHalfLife = %v; the table above says 7d", DefaultHalfLife)

@@ -332,6 +332,9 @@ func (v *validator) model(p string, m Model, partial bool) {
 	if math.IsNaN(m.ResolutionFloor) || math.IsInf(m.ResolutionFloor, 0) {
 		v.add(p+".resolution_floor", "%g is not a finite multiple of the resolution", m.ResolutionFloor)
 	}
+	if math.IsNaN(m.DriverLevel) || m.DriverLevel >= 0.5 || math.IsInf(m.DriverLevel, -1) {
+		v.add(p+".driver_level", "%g is not a significance level in (0, 0.5) (negative: no test)", m.DriverLevel)
+	}
 	if m.Alpha != 0 && !(m.Alpha > 0 && m.Alpha < 0.5) {
 		v.add(p+".alpha", "%g is not a false-alarm rate in (0, 0.5)", m.Alpha)
 	}

@@ -38,8 +38,20 @@ type Drivers struct {
 	b        []float64 // o × c, row-major
 	slope    []float64 // o × c: B in channel units at the last Fit
 	acc, inv []float64 // c × c
+	acc0     []float64 // c × c: A_cc + εI, kept for refitRow
 	z        []float64 // c
 	ready    bool
+
+	// The slope test (driverlag.go).
+	level             float64
+	lag               *driverLag
+	keep              []bool    // o × c
+	sub               []int     // c
+	subAcc, subInv    []float64 // c × c
+	rho               []float64 // p: lag-1 autocorrelations
+	comp              []int     // p: union-find parents of the channel graph
+	crits             []float64 // t quantiles by degrees of freedom, 0: not yet
+	omega, work, dmat []float64 // p × p
 }
 
 // MaxDrivers bounds the context channels of one unit.
@@ -70,7 +82,15 @@ func NewDrivers(p int, ctx []bool) (*Drivers, error) {
 	d.slope = make([]float64, len(d.own)*c)
 	d.acc = make([]float64, c*c)
 	d.inv = make([]float64, c*c)
+	d.acc0 = make([]float64, c*c)
 	d.z = make([]float64, c)
+	d.level = DefaultDriverLevel
+	d.lag = newDriverLag(p)
+	d.rho, d.comp, d.crits = make([]float64, p), make([]int, p), make([]float64, 1024)
+	d.omega, d.work, d.dmat = make([]float64, p*p), make([]float64, p*p), make([]float64, p*p)
+	d.keep = make([]bool, len(d.own)*c)
+	d.sub = make([]int, 0, c)
+	d.subAcc, d.subInv = make([]float64, c*c), make([]float64, c*c)
 	return d, nil
 }
 
@@ -116,6 +136,7 @@ func (d *Drivers) Fit(t *Tracker) error {
 			d.acc[a*c+a] = 1 // a context channel without variance explains nothing
 		}
 	}
+	copy(d.acc0, d.acc)
 	if !invert(d.inv, d.acc, c) {
 		d.ready = false
 		return fmt.Errorf("%w: context channels are collinear", ErrModel)
@@ -130,6 +151,7 @@ func (d *Drivers) Fit(t *Tracker) error {
 			row[b] = s
 		}
 	}
+	d.test(t)
 	// Slopes in channel units, fixed until the next Fit: the means and
 	// variances move with every frame, the correlation only at a refresh.
 	e := t.ew

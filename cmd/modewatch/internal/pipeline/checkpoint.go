@@ -98,7 +98,7 @@ func (p *Pipeline) checkpointOf(u *Unit) (*ModelFile, error) {
 		Frames: u.frames, From: u.firstT, To: u.lastT,
 		Units: []ModelUnit{{Name: u.Name, Channels: append([]string(nil), u.names...), Settings: settings,
 			Modes: u.modesView(), State: state, Alerts: snap.Bytes(), Last: u.lastReadings(), Quality: u.Profiles(), States: sf, Context: u.contextIn(),
-			DriverSlopes: u.driverSlopes(u.tr, false), Calibration: u.cal, Recentre: u.recentreState(), Smoothed: u.smoothedState(), Lagged: u.laggedState(),
+			DriverSlopes: u.driverSlopes(u.tr, false), DriverLags: u.driverLags(u.tr), Calibration: u.cal, Recentre: u.recentreState(), Smoothed: u.smoothedState(), Lagged: u.laggedState(),
 			Screen: u.screenState()}},
 	}, nil
 }

@@ -93,10 +93,16 @@ func (u *Unit) scoreDrivers(refreshed bool) {
 			return
 		}
 		u.drivers[u.tr] = d
-		if s := u.slopes[u.tr]; s != nil && d.SetSlopes(s) == nil {
-			delete(u.slopes, u.tr) // restored: goes on as before the restart
+		d.SetLevel(u.driverLevel())
+		if s := u.slopes[u.tr]; s.slopes != nil && d.SetSlopes(s.slopes) == nil {
+			// Restored: goes on as before the restart. Lag statistics that do
+			// not fit (or none, from a file written before the test) start
+			// afresh.
+			_ = d.SetLags(s.lags)
+			delete(u.slopes, u.tr)
 		}
 	}
+	d.Observe(u.x, u.miss, u.tr)
 	if refreshed || !d.Ready() {
 		if err := d.Fit(u.tr); err != nil {
 			return
@@ -125,6 +131,7 @@ func (u *Unit) driverSlopes(tr *tracker.Tracker, fit bool) []float64 {
 			if d, err = tracker.NewDrivers(len(u.names), u.ctx); err != nil {
 				return nil
 			}
+			d.SetLevel(u.driverLevel())
 			u.drivers[tr] = d
 		}
 		if d.Fit(tr) != nil {
@@ -132,20 +139,49 @@ func (u *Unit) driverSlopes(tr *tracker.Tracker, fit bool) []float64 {
 		}
 	}
 	if d == nil {
-		return u.slopes[tr] // restored, not used yet
+		return u.slopes[tr].slopes // restored, not used yet
 	}
 	return d.Slopes()
 }
 
-// restoreSlopes keeps a saved regression for tr until its drivers exist.
-func (u *Unit) restoreSlopes(tr *tracker.Tracker, s []float64) {
+// driverLags returns the lag statistics of tr's drivers' slope test to
+// save with it (nil without context channels); call it after driverSlopes.
+func (u *Unit) driverLags(tr *tracker.Tracker) []float64 {
+	if u.drivers == nil {
+		return nil
+	}
+	if d := u.drivers[tr]; d != nil {
+		return d.Lags()
+	}
+	return u.slopes[tr].lags // restored, not used yet
+}
+
+// savedDrivers is a regression and its test's lag statistics restored
+// from a model file, kept until the model's drivers exist.
+type savedDrivers struct{ slopes, lags []float64 }
+
+// restoreSlopes keeps a saved regression (and the lag statistics of its
+// slope test, nil in files written before the test) for tr until its
+// drivers exist.
+func (u *Unit) restoreSlopes(tr *tracker.Tracker, s, lags []float64) {
 	if len(s) == 0 {
 		return
 	}
 	if u.slopes == nil {
-		u.slopes = map[*tracker.Tracker][]float64{}
+		u.slopes = map[*tracker.Tracker]savedDrivers{}
 	}
-	u.slopes[tr] = s
+	u.slopes[tr] = savedDrivers{s, lags}
+}
+
+// driverLevel is the unit's model.driver_level: the significance level of
+// the test that keeps a driver's slope (tracker.DefaultDriverLevel when
+// unset; negative: every slope kept untested).
+func (u *Unit) driverLevel() float64 {
+	l := u.p.cfg.ModelFor(u.Name).DriverLevel
+	if l == 0 {
+		return tracker.DefaultDriverLevel
+	}
+	return l
 }
 
 // contextIn returns the unit's context channels among its model channels.

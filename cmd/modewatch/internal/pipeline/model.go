@@ -137,6 +137,11 @@ type ModelUnit struct {
 	// DriverSlopes is the regression on the context channels of the model
 	// in State (context.go), so that a restart goes on with it.
 	DriverSlopes []float64 `json:"driver_slopes,omitempty"`
+	// DriverLags holds the lag-1 statistics of the test that keeps a
+	// driver's slope (tracker.Drivers.Lags), so that a restart tests the
+	// next regression as an uninterrupted run would; absent in files
+	// written before the test (it then starts from none).
+	DriverLags []float64 `json:"driver_lags,omitempty"`
 	// Lagged holds, in a unit checkpoint with model.lags, the previous
 	// frames of the lagged model (tracker.Lagged.MarshalBinary); absent in
 	// fitted models (a restart from one starts with the lagged values
@@ -317,7 +322,7 @@ func (p *Pipeline) buildFromModel(mu *ModelUnit, period time.Duration) (*Unit, e
 		}
 	}
 	u.states = nil
-	u.restoreSlopes(tr, mu.DriverSlopes)
+	u.restoreSlopes(tr, mu.DriverSlopes, mu.DriverLags)
 	if mu.States != nil {
 		if err := u.restoreStates(mu.States, len(mu.Channels), cfg); err != nil {
 			return nil, fmt.Errorf("%w: unit %s: %v", ErrModelFile, mu.Name, err)
@@ -412,7 +417,7 @@ func (p *Pipeline) Baseline() (*ModelFile, error) {
 		}
 		mu := ModelUnit{Name: u.Name, Channels: append([]string(nil), u.names...), Settings: settings,
 			Modes: u.modesView(), Limits: u.baseLimits(), State: state, Quality: u.Profiles(), States: sf, Context: u.contextIn(), Suggested: sug[u.Name],
-			DriverSlopes: u.driverSlopes(u.tr, true)}
+			DriverSlopes: u.driverSlopes(u.tr, true), DriverLags: u.driverLags(u.tr)}
 		m.Units = append(m.Units, mu)
 	}
 	if len(m.Units) == 0 && len(errs) == 0 {

@@ -343,6 +343,8 @@ type StateModel struct {
 	State  []byte     `json:"state"`
 	// DriverSlopes: the state model's regression on the context channels.
 	DriverSlopes []float64 `json:"driver_slopes,omitempty"`
+	// DriverLags: the lag-1 statistics of its slope test.
+	DriverLags []float64 `json:"driver_lags,omitempty"`
 	// Online: a state new to the fitted model, learned in the run that
 	// wrote this checkpoint; LearnFrames its bounded hold in frames
 	// (stateModel.learnFrames). Absent in fitted models.
@@ -397,7 +399,7 @@ func (u *Unit) statesBaseline(withLimits bool) (*StatesFile, int, error) {
 			continue
 		}
 		sm := StateModel{Key: m.key, Label: s.label(m.key), Frames: m.frames, Modes: u.modesOf(m.tr), State: b,
-			DriverSlopes: u.driverSlopes(m.tr, u.p.opt.Fit), Online: !m.fitted && !u.p.opt.Fit, LearnFrames: m.learnFrames}
+			DriverSlopes: u.driverSlopes(m.tr, u.p.opt.Fit), DriverLags: u.driverLags(m.tr), Online: !m.fitted && !u.p.opt.Fit, LearnFrames: m.learnFrames}
 		if withLimits {
 			sm.Limits = limitsOf(m.tr)
 		}
@@ -441,7 +443,7 @@ func (u *Unit) restoreStates(sf *StatesFile, p int, cfg tracker.Config) error {
 			return fmt.Errorf("more than %d operating states", tracker.MaxStates)
 		}
 		s.models = append(s.models, &stateModel{key: sm.Key, tr: tr, frames: sm.Frames, fitted: !sm.Online, learnFrames: sm.LearnFrames})
-		u.restoreSlopes(tr, sm.DriverSlopes)
+		u.restoreSlopes(tr, sm.DriverSlopes, sm.DriverLags)
 	}
 	if len(s.models) == 0 {
 		return fmt.Errorf("operating states without a model")

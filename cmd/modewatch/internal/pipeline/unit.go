@@ -74,7 +74,7 @@ type Unit struct {
 	ctx     []bool
 	nCtx    int
 	drivers map[*tracker.Tracker]*tracker.Drivers // one regression per model (state)
-	slopes  map[*tracker.Tracker][]float64        // saved regressions to restore (model file)
+	slopes  map[*tracker.Tracker]savedDrivers     // saved regressions to restore (model file)
 	adj     []float64
 	autoBuf *autoBuffer // fit with state: auto: the frames kept
 
