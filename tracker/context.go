@@ -45,7 +45,8 @@ type Drivers struct {
 	// The slope test (driverlag.go).
 	level             float64
 	lag               *driverLag
-	keep              []bool    // o × c
+	keep              []bool    // o × c: the drivers each own channel keeps
+	kept              bool      // keep holds a test's result
 	sub               []int     // c
 	subAcc, subInv    []float64 // c × c
 	rho               []float64 // p: lag-1 autocorrelations
@@ -87,7 +88,9 @@ func NewDrivers(p int, ctx []bool) (*Drivers, error) {
 	d.level = DefaultDriverLevel
 	d.lag = newDriverLag(p)
 	d.rho, d.comp, d.crits = make([]float64, p), make([]int, p), make([]float64, 1024)
-	d.omega, d.work, d.dmat = make([]float64, p*p), make([]float64, p*p), make([]float64, p*p)
+	if p <= MaxDriverTestChannels {
+		d.omega, d.work, d.dmat = make([]float64, p*p), make([]float64, p*p), make([]float64, p*p)
+	}
 	d.keep = make([]bool, len(d.own)*c)
 	d.sub = make([]int, 0, c)
 	d.subAcc, d.subInv = make([]float64, c*c), make([]float64, c*c)

@@ -13,10 +13,26 @@ import (
 // keeps a driver's slope (see [Drivers.SetLevel]): two-sided, 1 %.
 const DefaultDriverLevel = 0.01
 
-// driverSpan is the time constant, in frames, of the smoothing by which
-// the slope test measures each series' long-run variance (see test): serial
-// correlation up to about this many frames is seen.
-const driverSpan = 256
+// MaxDriverTestChannels bounds the channels of a unit whose drivers'
+// slopes are tested (the test costs O(p³) per run): a wider unit keeps
+// every slope, as with the test off.
+const MaxDriverTestChannels = 512
+
+const (
+	// driverSpan is the time constant, in frames, of the smoothing by
+	// which the slope test measures each series' long-run variance (see
+	// test): serial correlation up to about this many frames is seen.
+	driverSpan = 256
+	// driverStride: the smoothed frames are folded into their covariance
+	// every driverStride frames (they change little in that time), so
+	// Observe costs p²/(2·driverStride) multiply-adds per frame.
+	driverStride = 8
+	// driverTestCube: the graph is built at every Fit up to this many
+	// channels, and at every ⌈(p/driverTestCube)³⌉-th Fit above (the
+	// drivers each channel keeps are remembered in between), so that its
+	// cost per frame stays about that of 64 channels.
+	driverTestCube = 64
+)
 
 // driverLag holds the covariance of the exponentially smoothed frames of
 // the tracker's channels, from which the slope test measures the serial
@@ -26,20 +42,25 @@ const driverSpan = 256
 //	s(t) = s(t−1) + λ (x(t) − s(t−1)),  λ = 1/driverSpan
 //	Sᵢⱼ  = E[(sᵢ − mᵢ)(sⱼ − mⱼ)]            (channel units squared)
 //
-// with m the tracker's current means, averaged with the step
-// a = max(1 − μ, 1/k) of the k-th frame (equal weights at first, then the
-// tracker's forgetting μ). A missing value leaves its channel's s as it
-// is; frames the tracker does not learn (frozen) are smoothed but not
-// counted.
+// with m the tracker's current means, averaged over every driverStride-th
+// learned frame with the step a = max(1 − μ^driverStride, 1/k) of the
+// k-th (equal weights at first, then the tracker's forgetting μ). A
+// missing value leaves its channel's s as it is; frames the tracker does
+// not learn (frozen) are smoothed but not counted.
 type driverLag struct {
-	k float64   // frames counted
-	s []float64 // p: smoothed frame, NaN before a channel's first value
-	d []float64 // upper triangle of S, row-major, p(p+1)/2
-	u []float64 // p: scratch, s − m
+	k     float64   // covariance updates so far
+	phase float64   // learned frames since the last update
+	since float64   // Fits since the graph was last built (see test)
+	s     []float64 // p: smoothed frame, NaN before a channel's first value
+	d     []float64 // upper triangle of S, row-major, p(p+1)/2
+	u     []float64 // p: scratch, s − m
 }
 
 func newDriverLag(p int) *driverLag {
-	l := &driverLag{s: make([]float64, p), d: make([]float64, p*(p+1)/2), u: make([]float64, p)}
+	l := &driverLag{s: make([]float64, p), u: make([]float64, p)}
+	if p <= MaxDriverTestChannels {
+		l.d = make([]float64, p*(p+1)/2)
+	}
 	for i := range l.s {
 		l.s[i] = math.NaN()
 	}
@@ -49,12 +70,16 @@ func newDriverLag(p int) *driverLag {
 // Observe folds the frame x just learned by t (missing: nil or len p) into
 // the statistics of the slope test. Call it after every Step of t, with
 // the same frame. While t is frozen (the frame is not learned) it only
-// smooths x. It allocates nothing; its cost is p²/2 multiply-adds.
+// smooths x. It allocates nothing. A unit of more than
+// MaxDriverTestChannels channels has no test and nothing to observe.
 func (d *Drivers) Observe(x []float64, missing []bool, t *Tracker) {
 	if t.P() != d.p {
 		panic("tracker: Drivers.Observe: width mismatch")
 	}
 	l, e := d.lag, t.ew
+	if l.d == nil {
+		return
+	}
 	const lambda = 1.0 / driverSpan
 	for i, si := range l.s {
 		if (missing == nil || !missing[i]) && !math.IsNaN(x[i]) {
@@ -63,13 +88,19 @@ func (d *Drivers) Observe(x []float64, missing []bool, t *Tracker) {
 			}
 			l.s[i] = si + lambda*(x[i]-si)
 		}
-		l.u[i] = l.s[i] - e.Mean(i)
 	}
 	if t.Frozen() {
 		return
 	}
+	if l.phase++; l.phase < driverStride {
+		return
+	}
+	l.phase = 0
+	for i, si := range l.s {
+		l.u[i] = si - e.Mean(i)
+	}
 	l.k++
-	a := math.Max(1-e.mu, 1/l.k)
+	a := math.Max(1-math.Pow(e.mu, driverStride), 1/l.k)
 	n := d.p
 	for i, ui := range l.u {
 		if math.IsNaN(ui) {
@@ -84,26 +115,40 @@ func (d *Drivers) Observe(x []float64, missing []bool, t *Tracker) {
 	}
 }
 
-// Lags returns the state of the slope test's statistics (a checkpoint
-// saves it with [Drivers.Slopes], so that a restart tests the next
-// regression on the same statistics).
+// Lags returns the state of the slope test (its statistics and the
+// drivers each channel keeps; a checkpoint saves it with
+// [Drivers.Slopes], so that a restart tests the next regression as an
+// uninterrupted run would).
 func (d *Drivers) Lags() []float64 {
 	l := d.lag
-	out := make([]float64, 0, 1+len(l.s)+len(l.d))
-	out = append(out, l.k)
+	out := make([]float64, 0, 3+len(l.s)+len(l.d)+len(d.keep))
+	out = append(out, l.k, l.phase, l.since)
 	out = append(out, l.s...)
-	return append(out, l.d...)
+	out = append(out, l.d...)
+	for _, k := range d.keep {
+		v := 0.0
+		if k {
+			v = 1
+		}
+		out = append(out, v)
+	}
+	return out
 }
 
 // SetLags restores the state saved by Lags.
 func (d *Drivers) SetLags(s []float64) error {
 	l := d.lag
-	if n := 1 + len(l.s) + len(l.d); len(s) != n {
+	if n := 3 + len(l.s) + len(l.d) + len(d.keep); len(s) != n {
 		return fmt.Errorf("%w: %d driver lag statistics, want %d", ErrWidth, len(s), n)
 	}
-	l.k = s[0]
-	copy(l.s, s[1:])
-	copy(l.d, s[1+len(l.s):])
+	l.k, l.phase, l.since = s[0], s[1], s[2]
+	s = s[3:]
+	s = s[copy(l.s, s):]
+	s = s[copy(l.d, s):]
+	for i, v := range s {
+		d.keep[i] = v != 0
+	}
+	d.kept = true
 	return nil
 }
 
@@ -121,27 +166,40 @@ func (d *Drivers) SetLevel(level float64) {
 // significant at d.level for the effective number of independent frames,
 // or cannot be tested for too few of them; an own channel keeps the
 // drivers in its connected component, refitted on those alone (one pass),
-// and its other slopes are 0 (no driver in its component: all 0).
+// and its other slopes are 0 (no driver in its component: all 0). With
+// Ω = (A + εI)⁻¹ from the tracker's correlation A, S̃ the smoothed frames'
+// covariance (driverLag) over the channels' standard deviations,
+// λ = 1/driverSpan, and for channels i, j (ωᵢ the i-th column of Ω):
 //
-// With Ω = (A + εI)⁻¹ from the tracker's correlation A, D̃ the
-// difference covariance over the standard deviations, and for channels
-// i, j:
+//	rᵢⱼ = −Ωᵢⱼ / √(ΩᵢᵢΩⱼⱼ)                        partial correlation
+//	Rᵢ  = max(1, ωᵢᵀS̃ωᵢ / Ωᵢᵢ · (2 − λ)/λ)         long-run variance ratio of i's partial residual ωᵢᵀz
+//	n*  = n / min(Rᵢ, Rⱼ)                          n: Kish's (Σw)²/Σw² of the weights
+//	t   = rᵢⱼ √(n* − p) / √(1 − rᵢⱼ²)               edge when |t| ≥ t(1 − a/2; n* − p), or n* < p + 1
 //
-//	rᵢⱼ = −Ωᵢⱼ / √(ΩᵢᵢΩⱼⱼ)                      partial correlation
-//	ρᵢ  = 1 − ωᵢᵀD̃ωᵢ / (2 Ωᵢᵢ)                    lag-1 autocorrelation of i's partial residual ωᵢᵀz
-//	n*  = n (1 − ρᵢρⱼ) / (1 + ρᵢρⱼ)              at most n, Kish's (Σw)²/Σw² of the weights
-//	t   = r √(n* − p) / √(1 − r²)                edge when |t| ≥ t(1 − level/2; n* − p), or n* − p < 1
-//
-// (ωᵢ the i-th column of Ω; p channels, so p − 2 are conditioned on).
-// Kish 1965 (Survey Sampling) for n; the factor is the large-sample
-// variance inflation of a correlation between two first-order
-// autoregressive series (Bartlett 1935, "Some aspects of the
+// with a = level/(p − 1), Bonferroni over the p − 1 edges of a channel, so
+// that a channel unrelated to all the others is left alone with
+// probability at least 1 − level.
+// The t test of a partial correlation given p − 2 others has n − p
+// degrees of freedom (Anderson 2003, An Introduction to Multivariate
+// Statistical Analysis, §4.3; from memory), and n is Kish's effective
+// size of the weights (Kish 1965, Survey Sampling). Serial correlation
+// shrinks n: the variance of a correlation between two autocorrelated
+// series is (1/n) Σₖ ρᵢ(k)ρⱼ(k) (Bartlett 1935, "Some aspects of the
 // time-correlation problem in regard to tests of significance", J. Roy.
-// Statist. Soc. 98; in this form eq. 31 of Bretherton, Widmann, Dymnikov,
-// Wallace & Bladé 1999, "The effective number of spatial degrees of
-// freedom of a time-varying field", J. Climate 12); ρ from differences is
-// von Neumann's successive-difference form, 1 − δ²/2s²; ρ = 0 before
-// any differences.
+// Statist. Soc. 98; the effective number of degrees of freedom of
+// Bretherton, Widmann, Dymnikov, Wallace & Bladé 1999, J. Climate 12,
+// whose eq. 31 is its first-order autoregressive case,
+// n(1 − ρᵢρⱼ)/(1 + ρᵢρⱼ)). When one series is much the smoother, its ρ
+// stays near 1 over the other's correlation time and the sum is the
+// other's Σₖ ρ(k) = R, its long-run variance over its variance; min(R)
+// is that sum there and larger than it otherwise (fewer edges). R is
+// measured, not modelled: an exponential smoothing of weight λ keeps
+// λ/(2 − λ) of the variance of white noise and about R times that of a
+// series whose correlation time is short against 1/λ (common practice,
+// the EWMA chart's variance). The first-order form with ρ from lag 1
+// was tried first and fails here: a partial residual of white noise and
+// a small slow part has ρ(1) near 0 and a large Σₖ ρᵢ(k)ρⱼ(k) with a slow
+// partner, and chance partial correlations passed (README, Drivers).
 //
 // Why components: in a Gaussian graphical model channels in different
 // connected components of the partial-correlation graph are independent
@@ -152,10 +210,45 @@ func (d *Drivers) SetLevel(level float64) {
 // more than a pressure setpoint is tied to the setpoint once the channels
 // carrying the demand are conditioned on. A false edge only keeps a
 // slope, as without the test.
+//
+// The graph costs O(p³): it is built at every Fit up to driverTestCube
+// channels and at every ⌈(p/driverTestCube)³⌉-th above, the drivers each
+// channel keeps remembered in between; a unit of more than
+// MaxDriverTestChannels channels keeps every slope.
 func (d *Drivers) test(t *Tracker) {
-	if !(d.level > 0) {
+	if !(d.level > 0) || d.lag.d == nil {
 		return
 	}
+	every := math.Ceil(math.Pow(float64(d.p)/driverTestCube, 3))
+	if d.lag.since++; !d.kept || d.lag.since >= every {
+		d.lag.since = 0
+		if !d.graph(t) {
+			return
+		}
+		d.kept = true
+	}
+	c := len(d.ctx)
+	for r, i := range d.own {
+		row, keep := d.b[r*c:(r+1)*c], d.keep[r*c:(r+1)*c]
+		kept := 0
+		for _, k := range keep {
+			if k {
+				kept++
+			}
+		}
+		switch {
+		case kept == 0:
+			clear(row)
+		case kept < c:
+			d.refitRow(row, i, keep)
+		}
+	}
+}
+
+// graph builds the graph of test and marks in d.keep the drivers in each
+// own channel's component. It reports false (d.keep as it was) when the
+// correlation cannot be inverted.
+func (d *Drivers) graph(t *Tracker) bool {
 	p, e, l := d.p, t.ew, d.lag
 	// Ω in d.omega (d.work is overwritten).
 	for i := range p {
@@ -168,7 +261,7 @@ func (d *Drivers) test(t *Tracker) {
 		}
 	}
 	if !invert(d.omega, d.work, p) {
-		return // collinear: every slope kept
+		return false
 	}
 	// d.dmat ← S̃ (S over the standard deviations), then d.work ← S̃ Ω.
 	for i := range p {
@@ -215,21 +308,11 @@ func (d *Drivers) test(t *Tracker) {
 	}
 	c := len(d.ctx)
 	for r, i := range d.own {
-		row, keep := d.b[r*c:(r+1)*c], d.keep[r*c:(r+1)*c]
-		kept := 0
 		for a, j := range d.ctx {
-			keep[a] = d.find(i) == d.find(j)
-			if keep[a] {
-				kept++
-			}
-		}
-		switch {
-		case kept == 0:
-			clear(row)
-		case kept < c:
-			d.refitRow(row, i, keep)
+			d.keep[r*c+a] = d.find(i) == d.find(j)
 		}
 	}
+	return true
 }
 
 // at returns Dᵢⱼ from the upper triangle.
@@ -249,13 +332,14 @@ func (d *Drivers) find(i int) int {
 	return i
 }
 
-// crit returns Student's t quantile 1 − level/2 on ⌊df⌋ degrees of freedom
+// crit returns Student's t quantile 1 − a/2, a = level/(p − 1), on ⌊df⌋ degrees of freedom
 // (at most len(d.crits) − 1: a larger df uses that quantile, a little
 // higher than its own), cached.
 func (d *Drivers) crit(df float64) float64 {
 	k := min(int(df), len(d.crits)-1)
 	if d.crits[k] == 0 {
-		d.crits[k] = distuv.StudentsT{Mu: 0, Sigma: 1, Nu: float64(k)}.Quantile(1 - d.level/2)
+		a := d.level / float64(max(d.p-1, 1)) // Bonferroni over a channel's p − 1 edges
+		d.crits[k] = distuv.StudentsT{Mu: 0, Sigma: 1, Nu: float64(k)}.Quantile(1 - a/2)
 	}
 	return d.crits[k]
 }

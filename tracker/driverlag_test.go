@@ -1,6 +1,7 @@
 package tracker
 
 import (
+	"fmt"
 	"math"
 	"math/rand/v2"
 	"testing"
@@ -58,7 +59,8 @@ func driverSeries(n int, seed uint64) [5][]float64 {
 //     channels unrelated to every channel the driver moves; the
 //     wandering y3 gets 0 in at least 9 of the 10 runs, where least
 //     squares gives it a chance slope (its partial correlations with the
-//     four others are each tested at 1 %, so about 4 % of runs keep it).
+//     four others are tested at 1 %/4 each, so at most 1 % of runs keep
+//     it).
 //
 // Tolerances by hand (Bartlett's variance of a slope between serially
 // correlated series, Var ≈ σₑ²/(n σ_c²) · Σₖ ρ_c(k)ρₑ(k)): y1's residual
@@ -177,5 +179,46 @@ func TestDriverLagsRoundTrip(t *testing.T) {
 	}
 	if allocs := testing.AllocsPerRun(20, func() { _ = a.Fit(tr) }); allocs != 0 {
 		t.Errorf("Fit with the slope test allocates %v", allocs)
+	}
+}
+
+// BenchmarkDriverFrame measures one frame of a unit with 2 context
+// channels through Step alone and through Step, the drivers' Observe and
+// Adjust and their Fit with the slope test at every refresh (64 frames),
+// at p channels; the ratio of the two is the drivers' cost.
+func BenchmarkDriverFrame(b *testing.B) {
+	for _, p := range []int{50, 200} {
+		for _, withDrivers := range []bool{false, true} {
+			name := fmt.Sprintf("p=%d/step", p)
+			if withDrivers {
+				name = fmt.Sprintf("p=%d/step+drivers", p)
+			}
+			b.Run(name, func(b *testing.B) {
+				var sc Score
+				tr, frames := newBenchTracker(b, &sc, p, 64, 64, 512)
+				ctx := make([]bool, p)
+				ctx[0], ctx[1] = true, true
+				d, err := NewDrivers(p, ctx)
+				if err != nil {
+					b.Fatal(err)
+				}
+				adj := make([]float64, p)
+				b.ReportAllocs()
+				b.ResetTimer()
+				for i := 0; i < b.N; i++ {
+					x := frames[i%len(frames)]
+					if err := tr.Step(&sc, x, nil); err != nil {
+						b.Fatal(err)
+					}
+					if withDrivers {
+						d.Observe(x, nil, tr)
+						if sc.NextRefresh == tr.cfg.RefreshEvery || !d.Ready() {
+							_ = d.Fit(tr)
+						}
+						d.Adjust(adj, x, nil, tr)
+					}
+				}
+			})
+		}
 	}
 }
