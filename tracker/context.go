@@ -29,7 +29,14 @@ import (
 // to its own unit. The adjusted own channels vary less than the model
 // expects (by the explained share), so the test is conservative.
 //
-// Fit recomputes B from the tracker (after each refresh); Adjust is
+// A slope is kept only where the data tie the channel to a driver (the
+// slope test of Fit, see [Drivers.SetLevel]): an own channel that no chain
+// of significant partial correlations links to a driver gets slope 0, so
+// a chance correlation of a slowly wandering channel with the drivers in
+// the learning data is not carried far by a driver's move.
+//
+// Fit recomputes B from the tracker (after each refresh), Observe feeds
+// the slope test every learned frame; Fit, Observe and Adjust are
 // allocation-free.
 type Drivers struct {
 	p        int
@@ -122,7 +129,10 @@ func (d *Drivers) SetSlopes(s []float64) error {
 }
 
 // Fit recomputes B from t's current correlation (with the tracker's
-// ridge ε). It allocates nothing.
+// ridge ε), then applies the slope test (unless its level is 0): the
+// slopes of an own channel on drivers outside its component of the
+// partial-correlation graph are 0 and the rest refitted (see test in
+// driverlag.go). It allocates nothing.
 func (d *Drivers) Fit(t *Tracker) error {
 	if t.P() != d.p {
 		return fmt.Errorf("%w: drivers of %d channels, tracker of %d", ErrWidth, d.p, t.P())
