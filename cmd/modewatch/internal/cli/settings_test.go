@@ -21,6 +21,7 @@ func TestSettingRoutesAgree(t *testing.T) {
 		"deadband": "0.1", "adapt": "false", "limits": "empirical:reference.lp", "smoothing": "0.3",
 		"on_span":    "2m",
 		"statistics": "t2,spe", "state_scoring": "most_probable", "new_point": "false",
+		"driver_level": "off",
 	}
 	base := &configs.Config{}
 	base.ApplyDefaults()
