@@ -276,8 +276,9 @@ func (d *Drivers) graph(t *Tracker) bool {
 			d.dmat[i*p+j], d.dmat[j*p+i] = v, v
 		}
 	}
-	gen := func(s []float64) blas64.General { return blas64.General{Rows: p, Cols: p, Stride: p, Data: s} }
-	blas64.Gemm(blas.NoTrans, blas.NoTrans, 1, gen(d.dmat), gen(d.omega), 0, gen(d.work))
+	// Symm, not Gemm: gonum's Gemm runs large products on goroutines.
+	blas64.Symm(blas.Left, 1, blas64.Symmetric{N: p, Stride: p, Data: d.dmat, Uplo: blas.Upper},
+		blas64.General{Rows: p, Cols: p, Stride: p, Data: d.omega}, 0, blas64.General{Rows: p, Cols: p, Stride: p, Data: d.work})
 	const lambda = 1.0 / driverSpan
 	for i := range p {
 		num := 0.0

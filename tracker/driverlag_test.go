@@ -1,9 +1,9 @@
 package tracker
 
 import (
-	"fmt"
 	"math"
 	"math/rand/v2"
+	"strconv"
 	"testing"
 	"time"
 
@@ -44,6 +44,33 @@ func driverSeries(n int, seed uint64) [5][]float64 {
 	return x
 }
 
+// learnDriverSeries steps a tracker with equal weights (no refresh after
+// the first) through the frames x of driverSeries, with drivers (channel 0
+// the context channel) observing them; it returns both and the last frame.
+func learnDriverSeries(t *testing.T, x [5][]float64) (*Tracker, *Drivers, []float64) {
+	t.Helper()
+	tr, err := New(len(x), Config{Period: time.Second, WarmUp: 200, RefreshEvery: 1 << 30})
+	if err != nil {
+		t.Fatal(err)
+	}
+	d, err := NewDrivers(len(x), []bool{true, false, false, false, false})
+	if err != nil {
+		t.Fatal(err)
+	}
+	var sc Score
+	f := make([]float64, len(x))
+	for k := range x[0] {
+		for i := range f {
+			f[i] = x[i][k]
+		}
+		if err := tr.Step(&sc, f, nil); err != nil {
+			t.Fatal(err)
+		}
+		d.Observe(f, nil, tr)
+	}
+	return tr, d, f
+}
+
 // TestDriverSlopeTest: the slope test keeps the slopes of truly driven
 // channels and sets an undriven one's to 0. Each seeded run learns 20 000
 // frames of driverSeries with equal weights and fits the drivers twice:
@@ -72,25 +99,7 @@ func TestDriverSlopeTest(t *testing.T) {
 	kept3 := 0
 	for seed := uint64(1); seed <= 10; seed++ {
 		x := driverSeries(n, seed)
-		tr, err := New(p, Config{Period: time.Second, WarmUp: 200, RefreshEvery: 1 << 30})
-		if err != nil {
-			t.Fatal(err)
-		}
-		d, err := NewDrivers(p, []bool{true, false, false, false, false})
-		if err != nil {
-			t.Fatal(err)
-		}
-		var sc Score
-		f := make([]float64, p)
-		for k := range n {
-			for i := range f {
-				f[i] = x[i][k]
-			}
-			if err := tr.Step(&sc, f, nil); err != nil {
-				t.Fatal(err)
-			}
-			d.Observe(f, nil, tr)
-		}
+		tr, d, _ := learnDriverSeries(t, x)
 		var ols [p]float64
 		for i := 1; i < p; i++ {
 			_, ols[i] = stat.LinearRegression(x[0], x[i], nil, false)
@@ -139,24 +148,8 @@ func TestDriverSlopeTest(t *testing.T) {
 func TestDriverLagsRoundTrip(t *testing.T) {
 	const n, p = 3000, 5
 	x := driverSeries(n, 3)
-	tr, err := New(p, Config{Period: time.Second, WarmUp: 200, RefreshEvery: 1 << 30})
-	if err != nil {
-		t.Fatal(err)
-	}
-	ctx := []bool{true, false, false, false, false}
-	a, _ := NewDrivers(p, ctx)
-	var sc Score
-	f := make([]float64, p)
-	for k := range n {
-		for i := range f {
-			f[i] = x[i][k]
-		}
-		if err := tr.Step(&sc, f, nil); err != nil {
-			t.Fatal(err)
-		}
-		a.Observe(f, nil, tr)
-	}
-	b, _ := NewDrivers(p, ctx)
+	tr, a, f := learnDriverSeries(t, x)
+	b, _ := NewDrivers(p, []bool{true, false, false, false, false})
 	if err := b.SetLags(a.Lags()); err != nil {
 		t.Fatal(err)
 	}
@@ -189,9 +182,9 @@ func TestDriverLagsRoundTrip(t *testing.T) {
 func BenchmarkDriverFrame(b *testing.B) {
 	for _, p := range []int{50, 200} {
 		for _, withDrivers := range []bool{false, true} {
-			name := fmt.Sprintf("p=%d/step", p)
+			name := "p=" + strconv.Itoa(p) + "/step"
 			if withDrivers {
-				name = fmt.Sprintf("p=%d/step+drivers", p)
+				name += "+drivers"
 			}
 			b.Run(name, func(b *testing.B) {
 				var sc Score
