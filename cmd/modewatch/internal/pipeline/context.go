@@ -13,6 +13,9 @@ import (
 // is then scored with their explained part removed (tracker.Drivers), so
 // that a driver moving the unit raises nothing in it; they are never named
 // as contributors, and their data quality is their own unit's business.
+// Each frame learned also feeds the regression's slope test
+// (tracker.Drivers.Observe; its level is model.driver_level), whose
+// statistics a checkpoint saves beside the slopes (driver_lags).
 
 // contextOf returns the context channel names of the configured unit name.
 func (p *Pipeline) contextOf(name string) []string {
