@@ -16,6 +16,10 @@ const (
 	// maxGammaShape: above it the rate is known so well that the count is
 	// Poisson (the negative binomial's shape goes to infinity).
 	maxGammaShape = 1e8
+	// maxPredictCount bounds the expected count Predict takes: beyond it
+	// the count's quantiles would not fit the search's int (a rate no fit
+	// states, from a model file say).
+	maxPredictCount = 1 << 30
 )
 
 // Prediction is a predictive interval of the number of false alerts a
@@ -34,7 +38,9 @@ type Prediction struct {
 	// least that), so that P(N < Low) and P(N > High) are each at most
 	// (1 − PredictLevel)/2. Divided by Days they bound the measured rate
 	// per day: LowPerDay and HighPerDay, the measured rate's predictive
-	// interval. An invalid horizon or rate gives NaN Expected and Coverage.
+	// interval. An invalid horizon, rate or standard error (negative, NaN
+	// or infinite), or an expected count above maxPredictCount, gives NaN
+	// Expected and Coverage and a zero interval.
 	Low        int     `json:"low"`
 	High       int     `json:"high"`
 	LowPerDay  float64 `json:"low_per_day"`
@@ -63,14 +69,17 @@ type Prediction struct {
 // with mean Rate·days and variance Rate·days + (RateSE·days)²: Poisson
 // noise plus the rate's uncertainty. a is the number of alerts that would
 // pin the rate as well as the fit does, b the days they would take. With
-// RateSE = 0 (or a above 10⁸) N is Poisson(Rate·days). It carries the
+// RateSE = 0 (or a above 10⁸) N is Poisson(Rate·days); with a so small
+// that it underflows to 0 (RateSE ≫ Rate), N is 0 with certainty, the
+// limit of P(N = 0) = q^a as a → 0. It carries the
 // rate's sampling error, not a bias of the rate (fit's rate comes from
 // the held-out alerts, stateRate, because the GEV's own understates it
 // from 20 block maxima).
 func (c Calibration) Predict(days float64) Prediction {
 	p := Prediction{Days: days, Expected: c.Rate * days, Coverage: 1}
 	switch {
-	case !(days > 0) || math.IsInf(days, 0) || !(c.Rate >= 0) || math.IsInf(c.Rate, 0) || !(c.RateSE >= 0):
+	case !(days > 0) || math.IsInf(days, 0) || !(c.Rate >= 0) || math.IsInf(c.Rate, 0) || !(c.RateSE >= 0) ||
+		math.IsInf(c.RateSE, 0) || !(p.Expected <= maxPredictCount):
 		p.Expected, p.Coverage = math.NaN(), math.NaN()
 		return p
 	case c.Rate == 0:
@@ -98,8 +107,11 @@ func (c Calibration) countCDF(days float64) func(k int) float64 {
 	}
 	q := a / (a + mean) // b/(b+days) with b = a/Rate
 	return func(k int) float64 {
-		if k < 0 {
+		switch {
+		case k < 0:
 			return 0
+		case a == 0 || q == 0:
+			return 1 // the shape's limit: no alert (RegIncBeta needs a, q > 0)
 		}
 		return mathext.RegIncBeta(a, float64(k)+1, q)
 	}

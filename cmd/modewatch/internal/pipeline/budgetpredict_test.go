@@ -316,3 +316,24 @@ func gumbelRatios(rng *rand.Rand, loc float64, start time.Time, period time.Dura
 	}
 	return ts, rs
 }
+
+// TestPredictOutOfRange: rates and standard errors a model file can carry
+// (finite JSON numbers) but that no fit states never panic and never
+// return an interval that does not hold its own expected count. A
+// standard error so much larger than the rate that the gamma's shape
+// (Rate/RateSE)² underflows to 0 is the shape's limit, all the count's
+// mass at 0 (the negative binomial's P(N = 0) = q^a → 1 as a → 0, derived
+// by hand); an infinite standard error, or an expected count beyond
+// maxPredictCount, is out of range: NaN.
+func TestPredictOutOfRange(t *testing.T) {
+	for _, c := range []Calibration{{Rate: 1e-200, RateSE: 1}, {Rate: 1e6, RateSE: 1e167}} {
+		if p := c.Predict(7); p.Low != 0 || p.High != 0 || p.Coverage != 1 {
+			t.Errorf("%+v: shape underflowing: %+v, want [0, 0] with coverage 1", c, p)
+		}
+	}
+	for _, c := range []Calibration{{Rate: 0.25, RateSE: math.Inf(1)}, {Rate: 1e300, RateSE: 1}, {Rate: 1e300}, {Rate: 1e12}} {
+		if p := c.Predict(7); !math.IsNaN(p.Coverage) || !math.IsNaN(p.Expected) {
+			t.Errorf("%+v: %+v, want NaN", c, p)
+		}
+	}
+}
