@@ -123,10 +123,23 @@ func withLastAt(m *ModelFile, at time.Time) *ModelFile {
 	return m
 }
 
+// withCalibration gives m's first unit a calibration as fit states it (a
+// rate of 0.5 a day from 3 held-out alerts over 4 days, its week
+// predicted by Predict), edited by edit.
+func withCalibration(m *ModelFile, edit func(c *Calibration)) *ModelFile {
+	c := &Calibration{Scale: 1.2, Budget: 0.5, Rate: 0.5, RateSE: 0.25, RateLow: 0.15, RateHigh: 1.2, GEVRate: 0.3,
+		Observed: 3, HeldOutDays: 4, Blocks: 20}
+	w := c.Predict(PredictWeekDays)
+	c.Week = &w
+	edit(c)
+	m.Units[0].Calibration = c
+	return m
+}
+
 // TestHostileCheckpoints: unit checkpoints made to hurt (a huge channel
 // list, huge dimensions in the tracker state, NaN, truncation, corrupt
-// bytes) are refused with their reason, leave no unit behind, and the
-// bytes allocated on the way (TotalAlloc, which bounds the peak heap's
+// bytes, a calibration no fit states) are refused with their reason,
+// leave no unit behind, and the bytes allocated on the way (TotalAlloc, which bounds the peak heap's
 // growth) stay within a few times the body, far below what the sizes they
 // name would take.
 func TestHostileCheckpoints(t *testing.T) {
@@ -153,6 +166,9 @@ func TestHostileCheckpoints(t *testing.T) {
 	}
 	if err, _ := restoreBody(t, enc(good), cfg, ch); err != nil {
 		t.Fatalf("the unmodified checkpoint is refused: %v", err)
+	}
+	if err, _ := restoreBody(t, enc(withCalibration(clone(), func(*Calibration) {})), cfg, ch); err != nil {
+		t.Fatalf("the checkpoint with a calibration as fit states it is refused: %v", err)
 	}
 	cases := []struct {
 		name string
@@ -220,6 +236,24 @@ func TestHostileCheckpoints(t *testing.T) {
 			m.Units[0].Screen = make([]alerts.ChannelRun, len(m.Units[0].Channels)+1)
 			return enc(m)
 		}, "screen runs for"},
+		// A calibration's stated rate and the week's prediction (fit
+		// writes them; they are carried into every checkpoint).
+		{"calibration rate SE negative", func() []byte { return enc(withCalibration(clone(), func(c *Calibration) { c.RateSE = -1 })) },
+			"calibration: rate_se_per_day -1"},
+		{"calibration GEV rate negative", func() []byte { return enc(withCalibration(clone(), func(c *Calibration) { c.GEVRate = -0.5 })) },
+			"calibration: gev_rate_per_day -0.5"},
+		{"calibration interval upside down", func() []byte {
+			return enc(withCalibration(clone(), func(c *Calibration) { c.RateLow, c.RateHigh = 2, 1 }))
+		}, "rate_low_per_day 2 above rate_high_per_day 1"},
+		{"predicted week of no days", func() []byte { return enc(withCalibration(clone(), func(c *Calibration) { c.Week.Days = 0 })) },
+			"predicted_week: days 0"},
+		{"predicted week upside down", func() []byte {
+			return enc(withCalibration(clone(), func(c *Calibration) { c.Week.Low, c.Week.High = 9, 2 }))
+		}, "predicted_week: interval [9, 2]"},
+		{"predicted week negative", func() []byte { return enc(withCalibration(clone(), func(c *Calibration) { c.Week.Low = -3 })) },
+			"predicted_week: interval [-3,"},
+		{"predicted week coverage over 1", func() []byte { return enc(withCalibration(clone(), func(c *Calibration) { c.Week.Coverage = 1.5 })) },
+			"predicted_week: coverage 1.5"},
 		{"screen spikes out of order", func() []byte {
 			m := clone()
 			m.Units[0].Screen = []alerts.ChannelRun{{Channel: m.Units[0].Channels[0], Spikes: []int64{5, 5}}}

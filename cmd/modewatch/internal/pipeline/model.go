@@ -279,6 +279,9 @@ func (p *Pipeline) buildFromModel(mu *ModelUnit, period time.Duration) (*Unit, e
 	if err != nil {
 		return nil, fmt.Errorf("%w: unit %s: %v", ErrModelFile, mu.Name, err)
 	}
+	if err := mu.Calibration.check(); err != nil {
+		return nil, fmt.Errorf("%w: unit %s: calibration: %v", ErrModelFile, mu.Name, err)
+	}
 	for i := range mu.Quality {
 		if err := mu.Quality[i].Check(); err != nil {
 			return nil, fmt.Errorf("%w: unit %s: quality profile %d (channel %.64q): %v", ErrModelFile, mu.Name, i, mu.Quality[i].Channel, err)
