@@ -139,9 +139,9 @@ func withCalibration(m *ModelFile, edit func(c *Calibration)) *ModelFile {
 // TestHostileCheckpoints: unit checkpoints made to hurt (a huge channel
 // list, huge dimensions in the tracker state, NaN, truncation, corrupt
 // bytes, a calibration no fit states) are refused with their reason,
-// leave no unit behind, and the bytes allocated on the way (TotalAlloc, which bounds the peak heap's
-// growth) stay within a few times the body, far below what the sizes they
-// name would take.
+// leave no unit behind, and the bytes allocated on the way (TotalAlloc,
+// which bounds the peak heap's growth) stay within a few times the body,
+// far below what the sizes they name would take.
 func TestHostileCheckpoints(t *testing.T) {
 	good, cfg, ch := unitCheckpoint(t)
 	enc := func(m *ModelFile) []byte {
