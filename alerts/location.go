@@ -527,7 +527,9 @@ func (e *Engine) restoreLocations(u *unit, su snapUnit, lookup func(string) (*in
 	if su.NewLoc != nil {
 		restoreAlarm(&u.loc.newLoc, *su.NewLoc)
 	}
-	u.point.restore(su.Point)
+	if err := u.point.restore(su.Point, su.Last); err != nil {
+		return err
+	}
 	if u.rules.SingleIncident {
 		return nil
 	}

@@ -1,6 +1,7 @@
 package alerts
 
 import (
+	"errors"
 	"fmt"
 	"math"
 	"strings"
@@ -239,11 +240,24 @@ func (p *pointState) snap() *snapPoint {
 	return &snapPoint{Learning: p.learning, Last: p.last, Conc: c}
 }
 
-// restore sets p from a snapshot (nil: the initial state, kept).
-func (p *pointState) restore(s *snapPoint) {
+// restore sets p from a snapshot (nil: the initial state, kept) of a
+// unit whose latest frame was at last. A record time after that frame, or
+// a point being learned without one, is no state the rule reaches: the
+// first would keep the rule from noting any point until that time (the
+// AcceptAfter gap), the second escalate at the next frame. Both are
+// refused, leaving p as it was.
+func (p *pointState) restore(s *snapPoint, last time.Time) error {
 	if s == nil {
-		return
+		return nil
+	}
+	switch {
+	case s.Last.After(last):
+		return fmt.Errorf("new_point: last record %s after the unit's last frame %s",
+			s.Last.UTC().Format(time.RFC3339Nano), last.UTC().Format(time.RFC3339Nano))
+	case s.Learning && s.Last.IsZero():
+		return errors.New("new_point: learning a point that has no record time")
 	}
 	p.learning, p.last = s.Learning, s.Last
 	restoreAlarm(&p.conc, s.Conc)
+	return nil
 }

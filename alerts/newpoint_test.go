@@ -2,6 +2,8 @@ package alerts
 
 import (
 	"bytes"
+	"encoding/json"
+	"strings"
 	"sync"
 	"testing"
 	"time"
@@ -220,4 +222,61 @@ func hasEvent(evs []Event, kind string) bool {
 		}
 	}
 	return false
+}
+
+// TestNewPointSnapshotRefused: a snapshot whose new-operating-point state
+// the rule cannot reach is refused with its reason, and the engine keeps
+// its state: a record time after the unit's last frame (it would keep the
+// rule from noting any point until then) and a point being learned with
+// no record time (it would escalate at the next frame).
+func TestNewPointSnapshotRefused(t *testing.T) {
+	h, _ := pointHarness(t, Config{})
+	for k := 0.0; k < 20; k++ {
+		h.pointFrame(10*k, 1.5, 0.2, 0.2, k >= 10)
+	}
+	var snap bytes.Buffer
+	if err := h.e.Snapshot(&snap); err != nil {
+		t.Fatal(err)
+	}
+	for _, c := range []struct {
+		name string
+		edit func(p map[string]any)
+		want string
+	}{
+		{"record after the last frame", func(p map[string]any) { p["last"] = "2100-01-01T00:00:00Z" },
+			"new_point: last record 2100-01-01T00:00:00Z after the unit's last frame"},
+		{"learning without a record", func(p map[string]any) { delete(p, "last") }, "learning a point that has no record time"},
+	} {
+		t.Run(c.name, func(t *testing.T) {
+			var s map[string]any
+			if err := json.Unmarshal(snap.Bytes(), &s); err != nil {
+				t.Fatal(err)
+			}
+			u := s["units"].([]any)[0].(map[string]any)
+			p, ok := u["new_point"].(map[string]any)
+			if !ok || p["learning"] != true {
+				t.Fatalf("the snapshot holds no point being learned: %v", u["new_point"])
+			}
+			c.edit(p)
+			b, err := json.Marshal(s)
+			if err != nil {
+				t.Fatal(err)
+			}
+			fresh, _ := pointHarness(t, Config{})
+			var before bytes.Buffer
+			if err := fresh.e.Snapshot(&before); err != nil {
+				t.Fatal(err)
+			}
+			if err := fresh.e.Restore(bytes.NewReader(b)); err == nil || !strings.Contains(err.Error(), c.want) {
+				t.Fatalf("restore: %v, want %q", err, c.want)
+			}
+			var after bytes.Buffer
+			if err := fresh.e.Snapshot(&after); err != nil {
+				t.Fatal(err)
+			}
+			if !bytes.Equal(before.Bytes(), after.Bytes()) {
+				t.Errorf("a refused snapshot changed the engine")
+			}
+		})
+	}
 }
