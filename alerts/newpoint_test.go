@@ -280,3 +280,57 @@ func TestNewPointSnapshotRefused(t *testing.T) {
 		})
 	}
 }
+
+// TestNewPointAllocs guards the per-frame path of the new-operating-point
+// rule (testing.AllocsPerRun, as TestObserveAllocs, whose engine has no
+// learner and so never runs the rule): no allocation within the limits,
+// nor while a point is being learned, with the model taking it in or with
+// T² still over its limit, spread over the channels, and SPE in. Only the
+// frame that notes the point publishes a record.
+func TestNewPointAllocs(t *testing.T) {
+	e, err := NewEngine(Config{}, PublisherFunc(func(*Record) {}), &pointLog{}, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	o := Observation{Unit: "u", ModelState: ModelAdapting,
+		Stats: []Stat{{StatT2, 5, 10}, {StatSPE, 1, 5}, {StatPhi, 0.5, 1}, {StatResidual, 1, 8}}}
+	for i, c := range []string{"u.header.pressure", "u.pump1.dp", "u.pump2.dp"} {
+		s := 0.2
+		if i > 0 {
+			s = 0.4
+		}
+		o.Contributors = append(o.Contributors, Contributor{Channel: c, RBC: 4 * s, Limit: 0.3, Share: s, Modes: []int{0}})
+	}
+	s := 0
+	step := func() {
+		s++
+		o.Time = sec(float64(s))
+		if err := e.Observe(&o); err != nil {
+			t.Fatal(err)
+		}
+	}
+	for range 10 {
+		step()
+	}
+	if a := testing.AllocsPerRun(200, step); a != 0 {
+		t.Errorf("within the limits: %v allocs per frame, want 0", a)
+	}
+	o.Stats[0].Value, o.Stats[2].Value = 15, 1.2 // T² at 1.5 times its limit, spread
+	for range 10 {
+		step()
+	}
+	if u := e.units["u"]; !u.point.learning {
+		t.Fatalf("no point is being learned after T² went over its limit, spread")
+	}
+	o.TakingIn = true
+	if a := testing.AllocsPerRun(200, step); a != 0 {
+		t.Errorf("taking a point in: %v allocs per frame, want 0", a)
+	}
+	o.TakingIn = false
+	if a := testing.AllocsPerRun(200, step); a != 0 {
+		t.Errorf("learning a point, T² over its limit: %v allocs per frame, want 0", a)
+	}
+	if u := e.units["u"]; !u.point.learning || u.modelG.inAlarm {
+		t.Errorf("the point escalated within %d s of its record (learning %v, model alarm %v)", s, u.point.learning, u.modelG.inAlarm)
+	}
+}
