@@ -1,6 +1,7 @@
 package alerts
 
 import (
+	"bytes"
 	"context"
 	"errors"
 	"fmt"
@@ -36,20 +37,44 @@ type harness struct {
 
 // newHarness returns an engine whose every published record is validated
 // against the schema and kept, and whose events are kept.
+// Its learner is h.learn, which freezes and thaws.
 func newHarness(t *testing.T, cfg Config) *harness {
 	t.Helper()
-	h := &harness{t: t, learn: &learnLog{}}
-	cfg.OnEvent = func(ev Event) { h.events = append(h.events, ev) }
-	e, err := NewEngine(cfg, PublisherFunc(func(r *Record) {
-		validateRecord(t, r)
-		h.recs = append(h.recs, r)
-	}), h.learn, nil)
-	if err != nil {
-		t.Fatal(err)
-	}
-	e.SetClock(func() time.Time { return time.Date(2026, 3, 2, 9, 0, 0, 0, time.UTC) })
-	h.e = e
+	l := &learnLog{}
+	h := learnHarness(t, cfg, l)
+	h.learn = l
 	return h
+}
+
+// snapshot returns the snapshot of h's engine.
+func (h *harness) snapshot() []byte {
+	h.t.Helper()
+	var b bytes.Buffer
+	if err := h.e.Snapshot(&b); err != nil {
+		h.t.Fatal(err)
+	}
+	return b.Bytes()
+}
+
+// restore replaces the state of h's engine by snapshot b.
+func (h *harness) restore(b []byte) {
+	h.t.Helper()
+	if err := h.e.Restore(bytes.NewReader(b)); err != nil {
+		h.t.Fatal(err)
+	}
+}
+
+// stepper returns a function that feeds o to e one second after the
+// previous frame, failing t on an error.
+func stepper(t *testing.T, e *Engine, o *Observation) func() {
+	s := 0
+	return func() {
+		s++
+		o.Time = sec(float64(s))
+		if err := e.Observe(o); err != nil {
+			t.Fatal(err)
+		}
+	}
 }
 
 // model feeds one frame of unit "u" at second at with T² ratio r (limit 10)
@@ -656,14 +681,7 @@ func TestObserveAllocs(t *testing.T) {
 		Missing:      []string{"u.b"}, // missing, but not yet for the hold time
 		Quality:      []Quality{{"u.c", QualityStuck}},
 	}
-	s := 0
-	step := func() {
-		s++
-		o.Time = sec(float64(s))
-		if err := e.Observe(&o); err != nil {
-			t.Fatal(err)
-		}
-	}
+	step := stepper(t, e, &o)
 	for i := 0; i < 10; i++ {
 		step()
 	}

@@ -1,9 +1,6 @@
 package alerts
 
 import (
-	"bytes"
-	"encoding/json"
-	"strings"
 	"sync"
 	"testing"
 	"time"
@@ -59,6 +56,14 @@ func (h *harness) pointFrame(at, t2, spe, share float64, taking bool) {
 	}
 }
 
+// pointFrames feeds pointFrame at seconds 10k for k in [from, to).
+func (h *harness) pointFrames(from, to, t2, spe, share float64, taking bool) {
+	h.t.Helper()
+	for k := from; k < to; k++ {
+		h.pointFrame(10*k, t2, spe, share, taking)
+	}
+}
+
 // kinds counts the records of h by kind and group (first revisions).
 func (h *harness) kinds() (notices, incidents int) {
 	seen := map[string]bool{}
@@ -90,56 +95,36 @@ func (h *harness) kinds() (notices, incidents int) {
 func TestNewPoint(t *testing.T) {
 	t.Run("spread", func(t *testing.T) {
 		h, pl := pointHarness(t, Config{})
-		k := 0.0
-		for ; k < 5; k++ {
-			h.pointFrame(10*k, 0.5, 0.2, 0.2, false)
-		}
-		for ; k < 10; k++ {
-			h.pointFrame(10*k, 1.5, 0.2, 0.2, false)
-		}
+		h.pointFrames(0, 5, 0.5, 0.2, 0.2, false)
+		h.pointFrames(5, 10, 1.5, 0.2, 0.2, false)
 		if n, i := h.kinds(); n != 1 || i != 0 || len(pl.moves) != 1 {
 			t.Fatalf("spread T² excursion: %d notices, %d incidents, moves %v; want 1, 0, [u]", n, i, pl.moves)
 		}
-		for ; k < 40; k++ { // the model takes the point in: wild statistics are not judged
-			h.pointFrame(10*k, 4, 3, 0.6, true)
-		}
-		for ; k < 100; k++ {
-			h.pointFrame(10*k, 0.5, 0.2, 0.2, false)
-		}
+		h.pointFrames(10, 40, 4, 3, 0.6, true) // the model takes the point in: wild statistics are not judged
+		h.pointFrames(40, 100, 0.5, 0.2, 0.2, false)
 		if n, i := h.kinds(); n != 1 || i != 0 {
 			t.Fatalf("after the point was taken in: %d notices, %d incidents; want 1, 0", n, i)
 		}
 		if last := h.events[len(h.events)-1]; !hasEvent(h.events, EventPointEnd) {
 			t.Errorf("no %s event (last %+v)", EventPointEnd, last)
 		}
-		for ; k < 120; k++ { // within accept_after of the first: an alert
-			h.pointFrame(10*k, 1.5, 0.2, 0.2, false)
-		}
+		h.pointFrames(100, 120, 1.5, 0.2, 0.2, false) // within accept_after of the first: an alert
 		if n, i := h.kinds(); n != 1 || i != 1 || len(pl.moves) != 1 {
 			t.Errorf("second excursion within accept_after: %d notices, %d incidents, %d moves; want 1, 1, 1", n, i, len(pl.moves))
 		}
 	})
 	t.Run("one channel", func(t *testing.T) {
 		h, pl := pointHarness(t, Config{})
-		for k := 0.0; k < 10; k++ {
-			h.pointFrame(10*k, 1.5, 0.2, 0.8, false)
-		}
+		h.pointFrames(0, 10, 1.5, 0.2, 0.8, false)
 		if n, i := h.kinds(); n != 0 || i != 1 || len(pl.moves) != 0 {
 			t.Errorf("T² excursion on one channel: %d notices, %d incidents, %d moves; want 0, 1, 0", n, i, len(pl.moves))
 		}
 	})
 	t.Run("escalates", func(t *testing.T) {
 		h, _ := pointHarness(t, Config{})
-		k := 0.0
-		for ; k < 10; k++ {
-			h.pointFrame(10*k, 1.5, 0.2, 0.2, false)
-		}
-		for ; k < 40; k++ {
-			h.pointFrame(10*k, 1.5, 0.2, 0.2, true)
-		}
-		for ; k < 60; k++ {
-			h.pointFrame(10*k, 1.5, 2, 0.2, false)
-		}
+		h.pointFrames(0, 10, 1.5, 0.2, 0.2, false)
+		h.pointFrames(10, 40, 1.5, 0.2, 0.2, true)
+		h.pointFrames(40, 60, 1.5, 2, 0.2, false)
 		n, i := h.kinds()
 		if n != 1 || i != 1 {
 			t.Fatalf("SPE joining after the point was taken in: %d notices, %d incidents; want 1, 1", n, i)
@@ -152,9 +137,7 @@ func TestNewPoint(t *testing.T) {
 	})
 	t.Run("off", func(t *testing.T) {
 		h, pl := pointHarness(t, Config{Rules: Rules{NoNewPoint: true}})
-		for k := 0.0; k < 10; k++ {
-			h.pointFrame(10*k, 1.5, 0.2, 0.2, false)
-		}
+		h.pointFrames(0, 10, 1.5, 0.2, 0.2, false)
 		if n, i := h.kinds(); n != 0 || i != 1 || len(pl.moves) != 0 {
 			t.Errorf("rule off: %d notices, %d incidents, %d moves; want 0, 1, 0", n, i, len(pl.moves))
 		}
@@ -165,32 +148,18 @@ func TestNewPoint(t *testing.T) {
 // restores it: the restored engine publishes the same records as the one
 // that went on.
 func TestNewPointSnapshot(t *testing.T) {
+	// T² stays over: the point escalates an hour after the notice.
 	feed := func(h *harness, from, to float64) {
 		for k := from; k < to; k++ {
-			switch {
-			case k < 10:
-				h.pointFrame(10*k, 1.5, 0.2, 0.2, false)
-			case k < 40:
-				h.pointFrame(10*k, 1.5, 0.2, 0.2, true)
-			case k < 60:
-				h.pointFrame(10*k, 1.5, 0.2, 0.2, false) // still over: escalates an hour after the notice
-			default:
-				h.pointFrame(10*k, 1.5, 0.2, 0.2, false)
-			}
+			h.pointFrame(10*k, 1.5, 0.2, 0.2, k >= 10 && k < 40)
 		}
 	}
 	whole, _ := pointHarness(t, Config{})
 	feed(whole, 0, 500)
 	first, _ := pointHarness(t, Config{})
 	feed(first, 0, 20)
-	var snap bytes.Buffer
-	if err := first.e.Snapshot(&snap); err != nil {
-		t.Fatal(err)
-	}
 	second, _ := pointHarness(t, Config{})
-	if err := second.e.Restore(&snap); err != nil {
-		t.Fatal(err)
-	}
+	second.restore(first.snapshot())
 	feed(second, 20, 500)
 	got := append(first.recs, second.recs...)
 	if len(got) != len(whole.recs) {
@@ -224,63 +193,6 @@ func hasEvent(evs []Event, kind string) bool {
 	return false
 }
 
-// TestNewPointSnapshotRefused: a snapshot whose new-operating-point state
-// the rule cannot reach is refused with its reason, and the engine keeps
-// its state: a record time after the unit's last frame (it would keep the
-// rule from noting any point until then) and a point being learned with
-// no record time (it would escalate at the next frame).
-func TestNewPointSnapshotRefused(t *testing.T) {
-	h, _ := pointHarness(t, Config{})
-	for k := 0.0; k < 20; k++ {
-		h.pointFrame(10*k, 1.5, 0.2, 0.2, k >= 10)
-	}
-	var snap bytes.Buffer
-	if err := h.e.Snapshot(&snap); err != nil {
-		t.Fatal(err)
-	}
-	for _, c := range []struct {
-		name string
-		edit func(p map[string]any)
-		want string
-	}{
-		{"record after the last frame", func(p map[string]any) { p["last"] = "2100-01-01T00:00:00Z" },
-			"new_point: last record 2100-01-01T00:00:00Z after the unit's last frame"},
-		{"learning without a record", func(p map[string]any) { delete(p, "last") }, "learning a point that has no record time"},
-	} {
-		t.Run(c.name, func(t *testing.T) {
-			var s map[string]any
-			if err := json.Unmarshal(snap.Bytes(), &s); err != nil {
-				t.Fatal(err)
-			}
-			u := s["units"].([]any)[0].(map[string]any)
-			p, ok := u["new_point"].(map[string]any)
-			if !ok || p["learning"] != true {
-				t.Fatalf("the snapshot holds no point being learned: %v", u["new_point"])
-			}
-			c.edit(p)
-			b, err := json.Marshal(s)
-			if err != nil {
-				t.Fatal(err)
-			}
-			fresh, _ := pointHarness(t, Config{})
-			var before bytes.Buffer
-			if err := fresh.e.Snapshot(&before); err != nil {
-				t.Fatal(err)
-			}
-			if err := fresh.e.Restore(bytes.NewReader(b)); err == nil || !strings.Contains(err.Error(), c.want) {
-				t.Fatalf("restore: %v, want %q", err, c.want)
-			}
-			var after bytes.Buffer
-			if err := fresh.e.Snapshot(&after); err != nil {
-				t.Fatal(err)
-			}
-			if !bytes.Equal(before.Bytes(), after.Bytes()) {
-				t.Errorf("a refused snapshot changed the engine")
-			}
-		})
-	}
-}
-
 // TestNewPointAllocs guards the per-frame path of the new-operating-point
 // rule (testing.AllocsPerRun, as TestObserveAllocs, whose engine has no
 // learner and so never runs the rule): no allocation within the limits,
@@ -301,14 +213,7 @@ func TestNewPointAllocs(t *testing.T) {
 		}
 		o.Contributors = append(o.Contributors, Contributor{Channel: c, RBC: 4 * s, Limit: 0.3, Share: s, Modes: []int{0}})
 	}
-	s := 0
-	step := func() {
-		s++
-		o.Time = sec(float64(s))
-		if err := e.Observe(&o); err != nil {
-			t.Fatal(err)
-		}
-	}
+	step := stepper(t, e, &o)
 	for range 10 {
 		step()
 	}
@@ -331,6 +236,6 @@ func TestNewPointAllocs(t *testing.T) {
 		t.Errorf("learning a point, T² over its limit: %v allocs per frame, want 0", a)
 	}
 	if u := e.units["u"]; !u.point.learning || u.modelG.inAlarm {
-		t.Errorf("the point escalated within %d s of its record (learning %v, model alarm %v)", s, u.point.learning, u.modelG.inAlarm)
+		t.Errorf("the point escalated within the %v after its record (learning %v, model alarm %v)", pointSettle, u.point.learning, u.modelG.inAlarm)
 	}
 }

@@ -1,7 +1,6 @@
 package alerts
 
 import (
-	"bytes"
 	"fmt"
 	"math/rand/v2"
 	"slices"
@@ -138,14 +137,8 @@ func TestReopenAfterRestore(t *testing.T) {
 	rng := rand.New(rand.NewPCG(7, 8))
 	h.wide(0, 600, 1.2, rng)
 	h.wide(600, 1500, 0.2, rng)
-	var buf bytes.Buffer
-	if err := h.e.Snapshot(&buf); err != nil {
-		t.Fatal(err)
-	}
 	h2, _ := locHarness(t, Config{})
-	if err := h2.e.Restore(&buf); err != nil {
-		t.Fatal(err)
-	}
+	h2.restore(h.snapshot())
 	h2.wide(1500, 1600, 1.2, rng)
 	recs := h2.byStart()
 	if len(recs) != 1 || recs[0].ID != h.byStart()[0].ID || recs[0].Reopened != 1 {

@@ -291,3 +291,49 @@ func TestRestoreFormerStateNames(t *testing.T) {
 		t.Fatalf("no cut caught both a confirming and a clearing alarm: %v", seen)
 	}
 }
+
+// TestNewPointSnapshotRefused: a snapshot whose new-operating-point state
+// the rule cannot reach is refused with its reason, and the engine keeps
+// its state: a record time after the unit's last frame (it would keep the
+// rule from noting any point until then) and a point being learned with
+// no record time (it would escalate at the next frame).
+func TestNewPointSnapshotRefused(t *testing.T) {
+	h, _ := pointHarness(t, Config{})
+	h.pointFrames(0, 10, 1.5, 0.2, 0.2, false)
+	h.pointFrames(10, 20, 1.5, 0.2, 0.2, true)
+	snap := h.snapshot()
+	for _, c := range []struct {
+		name string
+		edit func(p map[string]any)
+		want string
+	}{
+		{"record after the last frame", func(p map[string]any) { p["last"] = "2100-01-01T00:00:00Z" },
+			"new_point: last record 2100-01-01T00:00:00Z after the unit's last frame"},
+		{"learning without a record", func(p map[string]any) { delete(p, "last") }, "learning a point that has no record time"},
+	} {
+		t.Run(c.name, func(t *testing.T) {
+			var s map[string]any
+			if err := json.Unmarshal(snap, &s); err != nil {
+				t.Fatal(err)
+			}
+			u := s["units"].([]any)[0].(map[string]any)
+			p, ok := u["new_point"].(map[string]any)
+			if !ok || p["learning"] != true {
+				t.Fatalf("the snapshot holds no point being learned: %v", u["new_point"])
+			}
+			c.edit(p)
+			b, err := json.Marshal(s)
+			if err != nil {
+				t.Fatal(err)
+			}
+			fresh, _ := pointHarness(t, Config{})
+			before := fresh.snapshot()
+			if err := fresh.e.Restore(bytes.NewReader(b)); err == nil || !strings.Contains(err.Error(), c.want) {
+				t.Fatalf("restore: %v, want %q", err, c.want)
+			}
+			if !bytes.Equal(before, fresh.snapshot()) {
+				t.Errorf("a refused snapshot changed the engine")
+			}
+		})
+	}
+}
