@@ -137,7 +137,12 @@ func printSuiteBudgets(w io.Writer, rows []suiteRow) {
 		}
 		return " (not: " + strings.Join(s, "; ") + ")"
 	}
-	lo, hi := poissonInterval(total, expected)
-	fmt.Fprintf(w, "budget, per unit, false alerts on the test days against fit's calibration: within a factor 2 of the budget %d/%d%s; count inside fit's 95 %% predictive interval for the test days %d/%d%s; fit's rate interval overlapping the count's own 95 %% interval %d/%d%s; all units: %d counted, %.1f expected, ratio %.2f [95 %% %.2f, %.2f]\n",
-		f2, n, list(notF2), in, n, list(notIn), cons, n, list(notCons), total, expected, float64(total)/expected, lo, hi)
+	// The ratio needs an expected count: none when every rate is 0.
+	ratio := ""
+	if expected > 0 {
+		lo, hi := poissonInterval(total, expected)
+		ratio = fmt.Sprintf(", ratio %.2f [95 %% %.2f, %.2f]", float64(total)/expected, lo, hi)
+	}
+	fmt.Fprintf(w, "budget, per unit, false alerts on the test days against fit's calibration: within a factor 2 of the budget %d/%d%s; count inside fit's 95 %% predictive interval for the test days %d/%d%s; fit's rate interval overlapping the count's own 95 %% interval %d/%d%s; all units: %d counted, %.1f expected%s\n",
+		f2, n, list(notF2), in, n, list(notIn), cons, n, list(notCons), total, expected, ratio)
 }

@@ -64,3 +64,16 @@ func TestUnitBudget(t *testing.T) {
 		t.Errorf("line\n%s\nwant it to end\n%s", w.String(), want)
 	}
 }
+
+// TestSuiteBudgetsNothingExpected: units whose calibrations expect no
+// false alert at all (rate 0) give no ratio of counted to expected, which
+// would divide by zero (NaN or +Inf on the line); the counts are still
+// printed.
+func TestSuiteBudgetsNothingExpected(t *testing.T) {
+	zero := unitBudget("a", pipeline.Calibration{Budget: 0.25}, 1, 5)
+	var w strings.Builder
+	printSuiteBudgets(&w, []suiteRow{{Plant: "p", Budgets: []suiteBudget{zero}}})
+	if s := w.String(); strings.Contains(s, "NaN") || strings.Contains(s, "Inf") || !strings.HasSuffix(s, "all units: 1 counted, 0.0 expected\n") {
+		t.Errorf("line\n%s\nwant it to end with the counts and no ratio", s)
+	}
+}
