@@ -38,10 +38,17 @@ const (
 	// holds a name, a series key and a few counters per channel.
 	MaxChannelsCeiling = 100000
 	// DefaultUnitMaxChannels caps the channels of one unit's model. A
-	// unit's model needs about 42·p² + 6000·p bytes (measured, see the
-	// README), so 2000 channels fit in about 180 MB, and with one
-	// checkpoint being written or received beside it in under 256 MiB.
+	// unit's model needs about UnitModelBytesSq·p² + UnitModelBytesLin·p
+	// bytes, so 2000 channels fit in about 180 MB, and with one checkpoint
+	// being written or received beside it in under 256 MiB.
 	DefaultUnitMaxChannels = 2000
+	// UnitModelBytesSq and UnitModelBytesLin are the coefficients of a
+	// unit's model size in bytes for p channels, UnitModelBytesSq·p² +
+	// UnitModelBytesLin·p: the estimate the engine makes
+	// (pipeline.UnitModelBytes, where they are measured and checked) and
+	// the size max_channels is validated against.
+	UnitModelBytesSq  = 42
+	UnitModelBytesLin = 6000
 	// UnitMaxChannelsCeiling bounds model.max_channels (about 4.2 GB).
 	UnitMaxChannelsCeiling = 10000
 

@@ -345,7 +345,7 @@ func (v *validator) model(p string, m Model, partial bool) {
 		v.add(p+".warmup", "negative")
 	}
 	if m.MaxChannels < 0 || m.MaxChannels > UnitMaxChannelsCeiling {
-		v.add(p+".max_channels", "%d is outside 0…%d (a unit's model needs about 42·p² bytes)", m.MaxChannels, UnitMaxChannelsCeiling)
+		v.add(p+".max_channels", "%d is outside 0…%d (a unit's model needs about %d·p² bytes)", m.MaxChannels, UnitMaxChannelsCeiling, UnitModelBytesSq)
 	}
 	if !partial && m.Alpha == 0 {
 		v.add(p+".alpha", "missing")

@@ -7,13 +7,15 @@ import (
 	"time"
 
 	"modewatch/alerts"
+	"modewatch/configs"
 	"modewatch/stream"
 	"modewatch/tracker"
 )
 
 // UnitModelBytes estimates the memory of a unit's model of p channels in
-// bytes: 42·p² + 6000·p. The coefficients are fitted to the live heap of a
-// tracker after warm-up with the default settings (p = 400, 800, 1600:
+// bytes: 42·p² + 6000·p (configs.UnitModelBytesSq and UnitModelBytesLin,
+// which the configuration's checks use too). The coefficients are fitted
+// to the live heap of a tracker after warm-up with the default settings (p = 400, 800, 1600:
 // 5.1, 15.8 and 54.5 MB without the residual statistic; with it, the
 // default since model.statistics gained res, 7.8 and 26.3 MB at p = 400
 // and 800; with the refresh's candidate correlation, 8·p² more, 9.2 and
@@ -25,7 +27,7 @@ import (
 // written.
 func UnitModelBytes(p int) int64 {
 	q := int64(p)
-	return 42*q*q + 6000*q
+	return configs.UnitModelBytesSq*q*q + configs.UnitModelBytesLin*q
 }
 
 // maxStateBytes bounds the size of a tracker state of p channels (the

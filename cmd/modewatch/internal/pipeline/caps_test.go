@@ -20,6 +20,18 @@ import (
 	"modewatch/tracker"
 )
 
+// TestMaxChannelsMessage: the configuration's check of model.max_channels
+// states the p² coefficient of the engine's own estimate, UnitModelBytes
+// (a·4 + 2b − 2(a + b) = 2a from its values at 2 and 1), so that a new
+// measurement is not left behind in one of them.
+func TestMaxChannelsMessage(t *testing.T) {
+	a := (UnitModelBytes(2) - 2*UnitModelBytes(1)) / 2
+	_, err := configs.Parse("m.yaml", []byte("model: {max_channels: 20000}\n"))
+	if want := fmt.Sprintf("about %d·p² bytes", a); err == nil || !strings.Contains(err.Error(), want) {
+		t.Errorf("max_channels 20000: %v, want it to say %q", err, want)
+	}
+}
+
 // TestUnitModelBytes checks the memory estimate against the live heap of
 // a tracker of p channels after warm-up under the default settings
 // (standard normal invented data), within 25 %.
