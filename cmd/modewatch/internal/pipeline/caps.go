@@ -96,8 +96,8 @@ const screenRunBytes = (alerts.MaxSpikeCount+2)*25 + 256
 // checkUnitCaps checks the sizes a model unit asks for against the unit's
 // channel cap before anything is built from it: the channel count, the
 // names, the carried readings (their channels and their event times, within
-// stream.MinTime to stream.MaxTime), and the tracker state's own channel count
-// and length. Nothing is allocated.
+// stream.MinTime to stream.MaxTime), the recentring's channel count, and
+// the tracker state's own channel count and length. Nothing is allocated.
 func checkUnitCaps(mu *ModelUnit, maxChannels int) error {
 	p := len(mu.Channels)
 	switch {
@@ -109,6 +109,10 @@ func checkUnitCaps(mu *ModelUnit, maxChannels int) error {
 		return fmt.Errorf("%w: unit %.64q carries %d readings for %d channels", ErrModelFile, mu.Name, len(mu.Last), p)
 	case len(mu.Screen) > p:
 		return fmt.Errorf("%w: unit %.64q carries %d screen runs for %d channels", ErrModelFile, mu.Name, len(mu.Screen), p)
+	case mu.Recentre != nil && len(mu.Recentre.Channels) > p:
+		// Distinct channels of the unit (all of them for a new operating
+		// point); setRecentre looks each of the unit's up in the list.
+		return fmt.Errorf("%w: unit %.64q recentres %d channels of %d", ErrModelFile, mu.Name, len(mu.Recentre.Channels), p)
 	case mu.Settings.Lags < 0 || mu.Settings.Lags > tracker.MaxLags:
 		return fmt.Errorf("%w: unit %.64q: %d lagged copies (0 to %d)", ErrModelFile, mu.Name, mu.Settings.Lags, tracker.MaxLags)
 	case p*(1+mu.Settings.Lags) > maxChannels:

@@ -10,6 +10,7 @@ import (
 	"math"
 	"math/rand/v2"
 	"runtime"
+	"slices"
 	"strings"
 	"testing"
 	"time"
@@ -248,6 +249,15 @@ func TestHostileCheckpoints(t *testing.T) {
 			m.Units[0].Screen = make([]alerts.ChannelRun, len(m.Units[0].Channels)+1)
 			return enc(m)
 		}, "screen runs for"},
+		// A recentring (an accepted incident's channels, or all of them
+		// at a new operating point) of more names than the unit has: the
+		// restore would look each channel up in a list as long as the
+		// body allows.
+		{"recentring over the channels", func() []byte {
+			m := clone()
+			m.Units[0].Recentre = &RecentreState{Channels: append(slices.Clone(m.Units[0].Channels), "extra")}
+			return enc(m)
+		}, "recentres"},
 		// A calibration's stated rate and the week's prediction (fit
 		// writes them; they are carried into every checkpoint).
 		{"calibration rate SE negative", func() []byte { return enc(withCalibration(clone(), func(c *Calibration) { c.RateSE = -1 })) },
