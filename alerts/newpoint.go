@@ -54,7 +54,9 @@ import (
 // statistics are then measured against a model in change. A second excursion
 // within AcceptAfter of the record is an alert like any other, so the rule
 // never floods and never learns a sequence of excursions unseen.
-// Rules.NoNewPoint turns the rule off.
+// Rules.NoNewPoint turns the rule off, and so does a negative
+// Rules.AcceptAfter: where nothing is ever taken as the new normal, a new
+// operating point is not either.
 
 // GroupPoint is the group of a new-operating-point record.
 const GroupPoint = "operating_point"
@@ -78,10 +80,10 @@ type pointState struct {
 }
 
 // newPointRule reports whether u runs the new-operating-point rule: it
-// needs a learner that can widen the unit's normal.
+// needs a learner that can widen the unit's normal, and a bounded hold.
 func (e *Engine) newPointRule(u *unit) bool {
 	_, ok := e.learn.(Moving)
-	return ok && !u.rules.NoNewPoint && e.masking(u)
+	return ok && !u.rules.NoNewPoint && u.rules.AcceptAfter >= 0 && e.masking(u)
 }
 
 // residualInAlarm reports whether a statistic of u other than T² and φ is

@@ -135,6 +135,15 @@ func TestNewPoint(t *testing.T) {
 			}
 		}
 	})
+	// accept_after negative: nothing is ever taken as the new normal, so a
+	// new operating point is not either; the excursion is an incident.
+	t.Run("never accept", func(t *testing.T) {
+		h, pl := pointHarness(t, Config{Rules: Rules{AcceptAfter: -1}})
+		h.pointFrames(0, 10, 1.5, 0.2, 0.2, false)
+		if n, i := h.kinds(); n != 0 || i != 1 || len(pl.moves) != 0 {
+			t.Errorf("accept_after never: %d notices, %d incidents, %d moves; want 0, 1, 0", n, i, len(pl.moves))
+		}
+	})
 	t.Run("off", func(t *testing.T) {
 		h, pl := pointHarness(t, Config{Rules: Rules{NoNewPoint: true}})
 		h.pointFrames(0, 10, 1.5, 0.2, 0.2, false)
