@@ -1,4 +1,5 @@
 #include "textflag.h"
+#include "kernels_amd64.h"
 
 // func gerUpdNAVX512(p *float64, q *float64, ldp, kp, np int, c *float64, ldc, ncol int)
 //
@@ -112,73 +113,7 @@ TEXT ·panelRowAVX512(SB), NOSPLIT, $0-48
 	MOVQ         coef+24(FP), R9
 	MOVQ         cnt+32(FP), R10
 	VBROADCASTSD scale+40(FP), Z9
-
-qblk32:
-	CMPQ    CX, $32
-	JLT     qblk8
-	VMOVUPD (DI), Z0
-	VMOVUPD 64(DI), Z1
-	VMOVUPD 128(DI), Z2
-	VMOVUPD 192(DI), Z3
-	XORQ    BX, BX
-
-qsrc32:
-	CMPQ         BX, R10
-	JGE          qend32
-	MOVQ         (R8)(BX*8), R11
-	LEAQ         (DI)(R11*8), R12
-	VBROADCASTSD (R9)(BX*8), Z4
-	VMULPD       (R12), Z4, Z5
-	VMULPD       64(R12), Z4, Z6
-	VMULPD       128(R12), Z4, Z7
-	VMULPD       192(R12), Z4, Z8
-	VSUBPD       Z5, Z0, Z0
-	VSUBPD       Z6, Z1, Z1
-	VSUBPD       Z7, Z2, Z2
-	VSUBPD       Z8, Z3, Z3
-	INCQ         BX
-	JMP          qsrc32
-
-qend32:
-	VMULPD  Z9, Z0, Z0
-	VMULPD  Z9, Z1, Z1
-	VMULPD  Z9, Z2, Z2
-	VMULPD  Z9, Z3, Z3
-	VMOVUPD Z0, (DI)
-	VMOVUPD Z1, 64(DI)
-	VMOVUPD Z2, 128(DI)
-	VMOVUPD Z3, 192(DI)
-	ADDQ    $256, DI
-	SUBQ    $32, CX
-	JMP     qblk32
-
-qblk8:
-	CMPQ    CX, $8
-	JLT     qdone
-	VMOVUPD (DI), Z0
-	XORQ    BX, BX
-
-qsrc8:
-	CMPQ         BX, R10
-	JGE          qend8
-	MOVQ         (R8)(BX*8), R11
-	LEAQ         (DI)(R11*8), R12
-	VBROADCASTSD (R9)(BX*8), Z4
-	VMULPD       (R12), Z4, Z5
-	VSUBPD       Z5, Z0, Z0
-	INCQ         BX
-	JMP          qsrc8
-
-qend8:
-	VMULPD  Z9, Z0, Z0
-	VMOVUPD Z0, (DI)
-	ADDQ    $64, DI
-	SUBQ    $8, CX
-	JMP     qblk8
-
-qdone:
-	VZEROUPPER
-	RET
+	PANELROW(64, Z0, Z1, Z2, Z3, Z4, Z5, Z6, Z7, Z8, Z9)
 
 // REDUCEPAIR reduces the accumulator z (two columns' 4-wide lane sums
 // side by side, its low half y) as syrkRow4AVX2 reduces a pair of its

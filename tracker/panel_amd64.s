@@ -1,4 +1,5 @@
 #include "textflag.h"
+#include "kernels_amd64.h"
 
 // func panelRowAVX2(y *float64, n int, offs *int, coef *float64, cnt int, scale float64)
 //
@@ -17,73 +18,7 @@ TEXT ·panelRowAVX2(SB), NOSPLIT, $0-48
 	MOVQ         coef+24(FP), R9
 	MOVQ         cnt+32(FP), R10
 	VBROADCASTSD scale+40(FP), Y9
-
-blk16:
-	CMPQ    CX, $16
-	JLT     blk4
-	VMOVUPD (DI), Y0
-	VMOVUPD 32(DI), Y1
-	VMOVUPD 64(DI), Y2
-	VMOVUPD 96(DI), Y3
-	XORQ    BX, BX
-
-src16:
-	CMPQ         BX, R10
-	JGE          end16
-	MOVQ         (R8)(BX*8), R11
-	LEAQ         (DI)(R11*8), R12
-	VBROADCASTSD (R9)(BX*8), Y4
-	VMULPD       (R12), Y4, Y5
-	VMULPD       32(R12), Y4, Y6
-	VMULPD       64(R12), Y4, Y7
-	VMULPD       96(R12), Y4, Y8
-	VSUBPD       Y5, Y0, Y0
-	VSUBPD       Y6, Y1, Y1
-	VSUBPD       Y7, Y2, Y2
-	VSUBPD       Y8, Y3, Y3
-	INCQ         BX
-	JMP          src16
-
-end16:
-	VMULPD  Y9, Y0, Y0
-	VMULPD  Y9, Y1, Y1
-	VMULPD  Y9, Y2, Y2
-	VMULPD  Y9, Y3, Y3
-	VMOVUPD Y0, (DI)
-	VMOVUPD Y1, 32(DI)
-	VMOVUPD Y2, 64(DI)
-	VMOVUPD Y3, 96(DI)
-	ADDQ    $128, DI
-	SUBQ    $16, CX
-	JMP     blk16
-
-blk4:
-	CMPQ    CX, $4
-	JLT     done
-	VMOVUPD (DI), Y0
-	XORQ    BX, BX
-
-src4:
-	CMPQ         BX, R10
-	JGE          end4
-	MOVQ         (R8)(BX*8), R11
-	LEAQ         (DI)(R11*8), R12
-	VBROADCASTSD (R9)(BX*8), Y4
-	VMULPD       (R12), Y4, Y5
-	VSUBPD       Y5, Y0, Y0
-	INCQ         BX
-	JMP          src4
-
-end4:
-	VMULPD  Y9, Y0, Y0
-	VMOVUPD Y0, (DI)
-	ADDQ    $32, DI
-	SUBQ    $4, CX
-	JMP     blk4
-
-done:
-	VZEROUPPER
-	RET
+	PANELROW(32, Y0, Y1, Y2, Y3, Y4, Y5, Y6, Y7, Y8, Y9)
 
 // func tailSumsAVX2(p *float64, q *float64, ldp, k, m int, out *float64)
 //

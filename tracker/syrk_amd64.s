@@ -1,4 +1,5 @@
 #include "textflag.h"
+#include "kernels_amd64.h"
 
 // func syrkRow4AVX2(a *float64, lda, k int, b *float64, ncol int, c *float64, ldc int, alpha, beta float64)
 //
