@@ -130,3 +130,28 @@ end1: \
 done: \
 	VZEROUPPER \
 	RET
+
+// SUBC2(M, A, B) subtracts A from the 4-wide vector of c at the memory
+// operand M and B from the one 32 bytes on (32 M: M with a 32-byte offset),
+// through Y8 and Y9: one row of gerUpdAVX2's 4 × 8 block.
+#define SUBC2(M, A, B) \
+	VMOVUPD M, Y8 \
+	VSUBPD  A, Y8, Y8 \
+	VMOVUPD Y8, M \
+	VMOVUPD 32 M, Y9 \
+	VSUBPD  B, Y9, Y9 \
+	VMOVUPD Y9, 32 M
+
+// ROWFMA2(X, A0, A1): A0 += X·Y12 and A1 += X·Y13 (fused multiply-adds):
+// one row of a (X) against the two columns of syrkRow4AVX2's pair.
+#define ROWFMA2(X, A0, A1) \
+	VFMADD231PD X, Y12, A0 \
+	VFMADD231PD X, Y13, A1
+
+// QUADFMA2(M, B, A0, A1): B ← the four values of a row of a at M broadcast
+// to both halves, A0 += B·Z10 and A1 += B·Z11 (fused multiply-adds): one row
+// against the four columns of syrkRow4x4AVX512's pass.
+#define QUADFMA2(M, B, A0, A1) \
+	VBROADCASTF64X4 M, B \
+	VFMADD231PD     B, Z10, A0 \
+	VFMADD231PD     B, Z11, A1
