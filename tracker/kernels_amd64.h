@@ -155,3 +155,25 @@ done: \
 	VBROADCASTF64X4 M, B \
 	VFMADD231PD     B, Z10, A0 \
 	VFMADD231PD     B, Z11, A1
+
+// TAILCOL(OFF, A): A += Y7·(q's value at OFF(DI) broadcast), the product
+// rounded before it is added (through Y8): one column of tailSumsAVX2.
+#define TAILCOL(OFF, A) \
+	VBROADCASTSD OFF(DI), Y8 \
+	VMULPD       Y7, Y8, Y8 \
+	VADDPD       Y8, A, A
+
+// TAILMORE(M) ends tailSumsAVX2's panel row (to tnext) unless it has at
+// least M columns (m in R9).
+#define TAILMORE(M) \
+	CMPQ R9, $M \
+	JLT  tnext
+
+// LANEFMA4(OFF, A, B, C, D): A += (the vector at OFF(SI))·Y8, B += (the
+// next)·Y8, … for four consecutive 4-wide vectors (fused multiply-adds):
+// four rows of dotLanes8PackedAVX2.
+#define LANEFMA4(OFF, A, B, C, D) \
+	VFMADD231PD OFF(SI), Y8, A \
+	VFMADD231PD (OFF+32)(SI), Y8, B \
+	VFMADD231PD (OFF+64)(SI), Y8, C \
+	VFMADD231PD (OFF+96)(SI), Y8, D
