@@ -14,26 +14,11 @@ import (
 // Run an embedded server, subscribe to a wildcard subject and receive one
 // message.
 func ExampleConn_SubscribeCore() {
-	ctx, cancel := context.WithTimeout(context.Background(), 10*time.Second)
-	defer cancel()
-	dir, err := os.MkdirTemp("", "natsource-example")
-	if err != nil {
-		fmt.Println(err)
+	ctx, conn, stop := exampleServer(10 * time.Second)
+	if conn == nil {
 		return
 	}
-	defer os.RemoveAll(dir)
-	srv, err := natsource.StartEmbedded(ctx, natsource.EmbeddedConfig{Port: -1, StoreDir: dir}, nil)
-	if err != nil {
-		fmt.Println(err)
-		return
-	}
-	defer srv.Shutdown()
-
-	conn, err := natsource.Connect(ctx, natsource.Options{URLs: []string{srv.ClientURL()}}, nil)
-	if err != nil {
-		fmt.Println(err)
-		return
-	}
+	defer stop()
 	got := make(chan string, 1)
 	sub, err := conn.SubscribeCore(ctx, natsource.CoreConfig{Subjects: []string{"plant.readings.*"}},
 		func(m natsource.Msg) error {
@@ -63,25 +48,11 @@ func ExampleConn_SubscribeCore() {
 // again at once; the frames the checkpoint holds are skipped, and the
 // readings its last frame carried are seeded (stream.Intake.SeedLast).
 func ExampleConn_ConsumeJetStream() {
-	ctx, cancel := context.WithTimeout(context.Background(), 20*time.Second)
-	defer cancel()
-	dir, err := os.MkdirTemp("", "natsource-example")
-	if err != nil {
-		fmt.Println(err)
+	ctx, conn, stop := exampleServer(20 * time.Second)
+	if conn == nil {
 		return
 	}
-	defer os.RemoveAll(dir)
-	srv, err := natsource.StartEmbedded(ctx, natsource.EmbeddedConfig{Port: -1, StoreDir: dir}, nil)
-	if err != nil {
-		fmt.Println(err)
-		return
-	}
-	defer srv.Shutdown()
-	conn, err := natsource.Connect(ctx, natsource.Options{URLs: []string{srv.ClientURL()}}, nil)
-	if err != nil {
-		fmt.Println(err)
-		return
-	}
+	defer stop()
 	defer conn.Drain(ctx)
 
 	var saved time.Time // the last frame the checkpoint holds; zero on first start
@@ -131,4 +102,37 @@ func ExampleConn_ConsumeJetStream() {
 	// 06:00:00 [40]
 	// 06:00:01 [41]
 	// acknowledged with the checkpoint: 2
+}
+
+// exampleServer starts an embedded server whose store lies in a new
+// temporary folder and connects to it, all under a context that times out
+// after d; stop shuts the server down, removes the folder and cancels the
+// context. On failure it prints the error and returns a nil conn.
+func exampleServer(d time.Duration) (ctx context.Context, conn *natsource.Conn, stop func()) {
+	ctx, cancel := context.WithTimeout(context.Background(), d)
+	dir, err := os.MkdirTemp("", "natsource-example")
+	if err != nil {
+		fmt.Println(err)
+		cancel()
+		return ctx, nil, nil
+	}
+	srv, err := natsource.StartEmbedded(ctx, natsource.EmbeddedConfig{Port: -1, StoreDir: dir}, nil)
+	if err != nil {
+		fmt.Println(err)
+		os.RemoveAll(dir)
+		cancel()
+		return ctx, nil, nil
+	}
+	stop = func() {
+		srv.Shutdown()
+		os.RemoveAll(dir)
+		cancel()
+	}
+	conn, err = natsource.Connect(ctx, natsource.Options{URLs: []string{srv.ClientURL()}}, nil)
+	if err != nil {
+		fmt.Println(err)
+		stop()
+		return ctx, nil, nil
+	}
+	return ctx, conn, stop
 }
