@@ -240,23 +240,12 @@ func TestSetAdjustedVariance(t *testing.T) {
 // Pitprops eigenvalues in REFERENCE.md: 32.45, 50.74, 65.19, 73.72, 80.72,
 // 86.998 % (first six 87.00 %).
 func TestSetAutoCount(t *testing.T) {
+	// Kaiser's rule off; share 1 stops one short of p (the residual minimum).
+	checkPitpropsCounts(t, []countCase{
+		{share: 0.30, want: 1}, {share: 0.50, want: 2}, {share: 0.80, want: 5},
+		{share: 0.86, want: 6}, {share: 0.871, want: 7}, {share: 1, want: 12},
+	})
 	a := loadPitprops(t)
-	for _, c := range []struct {
-		share float64
-		want  int
-	}{{0.30, 1}, {0.50, 2}, {0.80, 5}, {0.86, 6}, {0.871, 7}, {1, 12}} {
-		// Kaiser's rule off; share 1 stops one short of p (the residual minimum).
-		tr, err := NewSet(13, Config{Share: c.share, MaxCount: 13, Tol: 1e-10})
-		if err != nil {
-			t.Fatal(err)
-		}
-		if err := tr.Refresh(a); err != nil {
-			t.Fatal(err)
-		}
-		if tr.Count() != c.want {
-			t.Errorf("share %.3f: %d modes, want %d", c.share, tr.Count(), c.want)
-		}
-	}
 	tr, _ := NewSet(13, Config{Share: 0.5, MaxCount: 13, Tol: 1e-10})
 	_ = tr.Refresh(a)
 	// Eigenvalues 4.218633, 2.378101 (REFERENCE.md).
@@ -267,46 +256,22 @@ func TestSetAutoCount(t *testing.T) {
 	}
 }
 
-// TestSetKaiser: with MinAdjusted 1 the automatic count keeps
-// the modes whose eigenvalue exceeds 1, four on Pitprops (eigenvalues
-// 4.218633, 2.378101, 1.878226, 1.109390, 0.910047, … in REFERENCE.md),
-// whatever the share asks; Jolliffe's 0.7 keeps six (0.815413 > 0.7 >
-// 0.576345); with the rule off, share 0.95 needs nine (cumulative 12.326
-// of 13 after eight, 12.678 after nine).
-func TestSetKaiser(t *testing.T) {
-	a := loadPitprops(t)
-	for _, c := range []struct {
-		rel   float64
-		share float64
-		want  int
-	}{{1, 0.95, 4}, {1, 0.5, 2}, {0.7, 0.95, 6}, {0, 0.95, 9}} {
-		tr, err := NewSet(13, Config{Share: c.share, MaxCount: 13, Tol: 1e-10, MinAdjusted: c.rel})
-		if err != nil {
-			t.Fatal(err)
-		}
-		if err := tr.Refresh(a); err != nil {
-			t.Fatal(err)
-		}
-		if tr.Count() != c.want {
-			t.Errorf("MinAdjusted %g, share %g: %d modes, want %d", c.rel, c.share, tr.Count(), c.want)
-		}
-	}
+// countCase is a Set configuration on Pitprops (13 channels, MaxCount 13,
+// Tol 1e-10) and the number of modes it should keep: Share, MinCount
+// (floor) and MinAdjusted (rel).
+type countCase struct {
+	share float64
+	floor int
+	rel   float64
+	want  int
 }
 
-// TestSetMinCount: MinCount is a floor on the Share rule only. On
-// Pitprops (eigenvalues in REFERENCE.md) share 0.5 stops at 2 modes; a
-// floor of 5 keeps 5, a floor of 13 stops at the residual minimum (12 of
-// 13 channels), a floor below the Share count changes nothing, and
-// Kaiser's rule (MinAdjusted 1: four eigenvalues above 1) still stops at 4
-// under a floor of 6. A fixed Count with a floor is a configuration error.
-func TestSetMinCount(t *testing.T) {
+// checkPitpropsCounts refreshes a Set configured by each case once on the
+// Pitprops correlation matrix and checks its mode count.
+func checkPitpropsCounts(t *testing.T, cases []countCase) {
+	t.Helper()
 	a := loadPitprops(t)
-	for _, c := range []struct {
-		share float64
-		floor int
-		rel   float64
-		want  int
-	}{{0.5, 0, 0, 2}, {0.5, 5, 0, 5}, {0.5, 13, 0, 12}, {0.8, 3, 0, 5}, {0.5, 6, 1, 4}} {
+	for _, c := range cases {
 		tr, err := NewSet(13, Config{Share: c.share, MaxCount: 13, MinCount: c.floor, Tol: 1e-10, MinAdjusted: c.rel})
 		if err != nil {
 			t.Fatal(err)
@@ -318,6 +283,33 @@ func TestSetMinCount(t *testing.T) {
 			t.Errorf("share %g, MinCount %d, MinAdjusted %g: %d modes, want %d", c.share, c.floor, c.rel, tr.Count(), c.want)
 		}
 	}
+}
+
+// TestSetKaiser: with MinAdjusted 1 the automatic count keeps
+// the modes whose eigenvalue exceeds 1, four on Pitprops (eigenvalues
+// 4.218633, 2.378101, 1.878226, 1.109390, 0.910047, … in REFERENCE.md),
+// whatever the share asks; Jolliffe's 0.7 keeps six (0.815413 > 0.7 >
+// 0.576345); with the rule off, share 0.95 needs nine (cumulative 12.326
+// of 13 after eight, 12.678 after nine).
+func TestSetKaiser(t *testing.T) {
+	checkPitpropsCounts(t, []countCase{
+		{rel: 1, share: 0.95, want: 4}, {rel: 1, share: 0.5, want: 2},
+		{rel: 0.7, share: 0.95, want: 6}, {rel: 0, share: 0.95, want: 9},
+	})
+}
+
+// TestSetMinCount: MinCount is a floor on the Share rule only. On
+// Pitprops (eigenvalues in REFERENCE.md) share 0.5 stops at 2 modes; a
+// floor of 5 keeps 5, a floor of 13 stops at the residual minimum (12 of
+// 13 channels), a floor below the Share count changes nothing, and
+// Kaiser's rule (MinAdjusted 1: four eigenvalues above 1) still stops at 4
+// under a floor of 6. A fixed Count with a floor is a configuration error.
+func TestSetMinCount(t *testing.T) {
+	checkPitpropsCounts(t, []countCase{
+		{share: 0.5, floor: 0, want: 2}, {share: 0.5, floor: 5, want: 5},
+		{share: 0.5, floor: 13, want: 12}, {share: 0.8, floor: 3, want: 5},
+		{share: 0.5, floor: 6, rel: 1, want: 4},
+	})
 	if _, err := NewSet(13, Config{Count: 3, MinCount: 4}); !errors.Is(err, ErrConfig) {
 		t.Errorf("Count 3 with MinCount 4: err %v, want ErrConfig", err)
 	}
