@@ -45,6 +45,15 @@ func eventTimes(n int) []time.Time {
 	return ts
 }
 
+// jetStreamEvents checks the test for leaked goroutines (checkNoLeak),
+// starts a JetStream server and returns its client URL and the event times
+// of n messages (eventTimes).
+func jetStreamEvents(t *testing.T, n int) (url string, ts []time.Time) {
+	t.Helper()
+	checkNoLeak(t)
+	return natstest.StartJetStream(t).ClientURL(), eventTimes(n)
+}
+
 // consumerRun is one life of a consuming process: a connection and a
 // JetStream consumer, acknowledging each message once a simulated aligner's
 // watermark (the newest event time fed, minus wmLag) passes the message's
@@ -173,10 +182,8 @@ func (r *consumerRun) waitCount(t *testing.T, n int, d time.Duration) {
 // of order above the floor (at least once; the service skips the frames
 // its checkpoint already holds). In the end every message is acknowledged.
 func TestJetStreamCrashRestartRedelivers(t *testing.T) {
-	checkNoLeak(t)
-	s := natstest.StartJetStream(t)
 	const n = 400
-	ts := eventTimes(n)
+	url, ts := jetStreamEvents(t, n)
 	cfg := JetStreamConfig{
 		Stream: "READINGS", Durable: "modewatch", CreateStream: true,
 		StreamSubjects: []string{"plant.readings.>"}, FilterSubjects: []string{"plant.readings.>"},
@@ -187,7 +194,7 @@ func TestJetStreamCrashRestartRedelivers(t *testing.T) {
 		MaxAckPending: 128, PullBatch: 16,
 	}
 
-	r1 := startRun(t, s.ClientURL(), cfg, ts, 20*time.Second)
+	r1 := startRun(t, url, cfg, ts, 20*time.Second)
 	r1.mu.Lock()
 	r1.loseAck = func(seq uint64, _ int) bool { return seq%7 == 3 } // acknowledgements lost in the crash
 	r1.limit = 290
@@ -212,7 +219,7 @@ func TestJetStreamCrashRestartRedelivers(t *testing.T) {
 		t.Errorf("%d waiting, above MaxAckPending %d", waiting, cfg.MaxAckPending)
 	}
 
-	r2 := startRun(t, s.ClientURL(), JetStreamConfig{
+	r2 := startRun(t, url, JetStreamConfig{
 		Stream: cfg.Stream, Durable: cfg.Durable, MaxAckPending: cfg.MaxAckPending,
 	}, ts, 0)
 	r2.mu.Lock()
@@ -249,15 +256,13 @@ func TestJetStreamCrashRestartRedelivers(t *testing.T) {
 // acknowledged, and in the end nothing is left unacknowledged on the
 // server.
 func TestJetStreamRedelivery(t *testing.T) {
-	checkNoLeak(t)
-	s := natstest.StartJetStream(t)
 	const n = 60
-	ts := eventTimes(n)
+	url, ts := jetStreamEvents(t, n)
 	cfg := JetStreamConfig{
 		Stream: "R", Durable: "d", CreateStream: true, StreamSubjects: []string{"r.>"},
 		AckWait: 300 * time.Millisecond, MaxAckPending: 100,
 	}
-	r := startRun(t, s.ClientURL(), cfg, ts, 1000*time.Hour) // watermark stalled
+	r := startRun(t, url, cfg, ts, 1000*time.Hour) // watermark stalled
 	r.mu.Lock()
 	r.loseAck = func(seq uint64, delivery int) bool { return seq%5 == 0 && delivery == 1 }
 	r.mu.Unlock()
@@ -291,11 +296,9 @@ func TestJetStreamRedelivery(t *testing.T) {
 // server delivers exactly MaxAckPending messages and holds the rest back,
 // which is how intake slows when processing falls behind.
 func TestJetStreamMaxAckPendingBackpressure(t *testing.T) {
-	checkNoLeak(t)
-	s := natstest.StartJetStream(t)
 	const n, maxAck = 200, 25
-	ts := eventTimes(n)
-	r := startRun(t, s.ClientURL(), JetStreamConfig{
+	url, ts := jetStreamEvents(t, n)
+	r := startRun(t, url, JetStreamConfig{
 		Stream: "B", Durable: "b", CreateStream: true, StreamSubjects: []string{"b"}, MaxAckPending: maxAck,
 	}, ts, 1000*time.Hour)
 	publishN(t, r.conn.NATS(), "b", 1, n)
@@ -468,11 +471,9 @@ func TestJetStreamConfigErrors(t *testing.T) {
 // floor stops below it, and the server sends it again after AckWait,
 // although newer messages were processed and acknowledged meanwhile.
 func TestJetStreamLostDelivery(t *testing.T) {
-	checkNoLeak(t)
-	s := natstest.StartJetStream(t)
 	const n, lost = 40, 10
-	ts := eventTimes(n)
-	r := startRun(t, s.ClientURL(), JetStreamConfig{
+	url, ts := jetStreamEvents(t, n)
+	r := startRun(t, url, JetStreamConfig{
 		Stream: "L", Durable: "d", CreateStream: true, StreamSubjects: []string{"l"},
 		AckWait: 300 * time.Millisecond,
 	}, ts, 0)
