@@ -53,7 +53,7 @@ nloop:
 	VOP4(VSUBPD, Z0, Z1, Z2, Z3, Z16, Z17, Z18, Z19)
 	VOP4(VSUBPD, Z4, Z5, Z6, Z7, Z20, Z21, Z22, Z23)
 	DECQ CX
-	JNZ    npanel
+	JNZ  npanel
 
 	VMOVUPD Z16, (DX)
 	VMOVUPD Z17, 64(DX)
@@ -120,8 +120,8 @@ TEXT ·syrkRow4x4AVX512(SB), NOSPLIT, $0-72
 	LEAQ         (R8)(R8*2), R9
 
 quad:
-	CMPQ   CX, $4
-	JLT    quaddone
+	CMPQ CX, $4
+	JLT  quaddone
 	ZERO8(VPXORQ, Z0, Z1, Z2, Z3, Z4, Z5, Z6, Z7)
 	MOVQ SI, R11
 	MOVQ DI, R12
