@@ -90,7 +90,15 @@ type ChannelProfile struct {
 	// live flat-run lengths (frames; see FlatTailScale), 0 when unknown
 	// (fewer than StuckTailRuns+1 runs, or a model file from before it).
 	FlatTail float64 `json:"flat_tail,omitempty"`
+	// Autocorr is the channel's sample autocorrelation at lags 1, 2, 4,
+	// … frames (tracker.SerialLag), up to the longest lag the normal log
+	// held often enough; nil when unknown (a model file from before it).
+	// The model's correlation shrinkage (model.shrink) reads it.
+	Autocorr []float64 `json:"autocorr,omitempty"`
 }
+
+// MaxAutocorrLags bounds ChannelProfile.Autocorr.
+const MaxAutocorrLags = 32
 
 // FlatTailScale returns the exponential tail scale of run lengths from
 // top, the longest runs longest first: with the k = len(top) − 1 longest
@@ -152,6 +160,14 @@ func (p *ChannelProfile) Check() error {
 	}{{"step", p.Step}, {"spike_size", p.SpikeSize}, {"flat_tail", p.FlatTail}} {
 		if !(f.v >= 0) || math.IsInf(f.v, 0) {
 			return fmt.Errorf("%s %g is not a finite non-negative number", f.name, f.v)
+		}
+	}
+	if len(p.Autocorr) > MaxAutocorrLags {
+		return fmt.Errorf("%d autocorrelation lags, at most %d", len(p.Autocorr), MaxAutocorrLags)
+	}
+	for i, v := range p.Autocorr {
+		if !(v >= -1 && v <= 1) {
+			return fmt.Errorf("autocorr[%d] %g is not a correlation", i, v)
 		}
 	}
 	switch {

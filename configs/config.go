@@ -358,6 +358,12 @@ type Model struct {
 	// [tracker.DefaultDriverLevel]; negative: every slope is kept
 	// untested.
 	DriverLevel float64 `yaml:"driver_level"`
+	// Shrink shrinks the correlation of the standardized channels toward
+	// the identity at every refresh, by an intensity from the sampling
+	// variance of each correlation with the channels' serial correlation
+	// (learned in fit) counted: "none", "whole" (one intensity for the
+	// matrix) or "channel" (one per channel). Default [DefaultShrink].
+	Shrink string `yaml:"shrink"`
 	// WarmUp frames are learned before scores are reported. Default
 	// [DefaultWarmUp] (the tracker's).
 	WarmUp int `yaml:"warmup"`
@@ -608,6 +614,7 @@ func DefaultModel() Model {
 		Statistics:   DefaultStatistics,
 		StateScoring: tracker.DefaultStateScoring,
 		DriverLevel:  tracker.DefaultDriverLevel,
+		Shrink:       DefaultShrink,
 	}
 }
 
@@ -631,6 +638,15 @@ func DefaultAlerts() Alerts {
 		CalibrationFolds: DefaultCalibrationFolds,
 	}
 }
+
+// Values of Model.Shrink.
+const (
+	ShrinkNone    = "none"
+	ShrinkWhole   = "whole"
+	ShrinkChannel = "channel"
+	// DefaultShrink is the default of model.shrink.
+	DefaultShrink = ShrinkNone
+)
 
 // Over returns m with every zero field taken from base.
 func (m Model) Over(base Model) Model {

@@ -438,3 +438,26 @@ units:
 		t.Fatalf("got %v", err)
 	}
 }
+
+// TestShrink: model.shrink takes none, whole or channel, at the top level
+// and per unit (a unit inherits the top level's), and anything else is
+// refused at its place.
+func TestShrink(t *testing.T) {
+	c, err := Parse("s.yaml", []byte("model: {shrink: channel}\nunits:\n  - name: boiler\n    model: {shrink: none}\n  - name: air\n"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if got := c.ModelFor("boiler").Shrink; got != ShrinkNone {
+		t.Errorf("boiler: %q, want none", got)
+	}
+	if got := c.ModelFor("air").Shrink; got != ShrinkChannel {
+		t.Errorf("air: %q, want channel", got)
+	}
+	if c, _ = Parse("e.yaml", nil); c.ModelFor("any").Shrink != DefaultShrink {
+		t.Errorf("default: %q, want %q", c.ModelFor("any").Shrink, DefaultShrink)
+	}
+	_, err = Parse("s.yaml", []byte("model: {shrink: hard}\n"))
+	if err == nil || !strings.Contains(err.Error(), "s.yaml:1:17: model.shrink") {
+		t.Errorf("got %v, want an error at s.yaml:1:17 naming model.shrink", err)
+	}
+}

@@ -335,6 +335,11 @@ func (v *validator) model(p string, m Model, partial bool) {
 	if math.IsNaN(m.DriverLevel) || m.DriverLevel >= 0.5 || math.IsInf(m.DriverLevel, -1) {
 		v.add(p+".driver_level", "%g is not a significance level in (0, 0.5) (negative: no test)", m.DriverLevel)
 	}
+	switch m.Shrink {
+	case "", ShrinkNone, ShrinkWhole, ShrinkChannel:
+	default:
+		v.add(p+".shrink", "%q: want %s, %s or %s", m.Shrink, ShrinkNone, ShrinkWhole, ShrinkChannel)
+	}
 	if m.Alpha != 0 && !(m.Alpha > 0 && m.Alpha < 0.5) {
 		v.add(p+".alpha", "%g is not a false-alarm rate in (0, 0.5)", m.Alpha)
 	}

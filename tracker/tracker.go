@@ -369,6 +369,7 @@ type Tracker struct {
 	floor []float64 // variance floor per channel (SetScaleFloor), nil: none
 
 	next refreshNext // what a Refresh forms before it succeeds (refresh.go)
+	shr  *shrinker   // correlation shrinkage (SetSerialFactors; shrink.go), nil: none
 }
 
 func (c *Config) defaults(p int) error {
@@ -820,6 +821,7 @@ func (t *Tracker) Refresh() error {
 		return fmt.Errorf("%w: no channel has variance", ErrModel)
 	}
 	t.corrTo(nx.a, nx.include)
+	t.shrink(nx.a, nx.include)
 	if err := t.ms.Refresh(nx.a); err != nil {
 		return fmt.Errorf("%w: %w", ErrModel, err)
 	}

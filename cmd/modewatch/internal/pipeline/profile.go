@@ -33,6 +33,8 @@ type profiler struct {
 	// beyond maxRestCandidates (rest holds those of the others).
 	short [][alerts.RestRun]int
 	other [][]int
+	// serial learns each channel's autocorrelation (serial.go).
+	serial []serialLearner
 }
 
 type restRun struct {
@@ -72,6 +74,7 @@ func (pr *profiler) grow(names []string) {
 		pr.spikes = append(pr.spikes, alerts.NewSpikeLearner(pr.period))
 		pr.short = append(pr.short, [alerts.RestRun]int{})
 		pr.other = append(pr.other, nil)
+		pr.serial = append(pr.serial, serialLearner{})
 	}
 }
 
@@ -81,6 +84,7 @@ func (pr *profiler) add(x []float64, miss []bool) {
 	for k, v := range x {
 		p := &pr.prof[k]
 		pr.spikes[k].Add(v, !miss[k], p.Step)
+		pr.serial[k].add(v, !miss[k])
 		if miss[k] || v != v {
 			p.Missing++
 			pr.gap[k]++
@@ -183,6 +187,7 @@ func (pr *profiler) profiles() []alerts.ChannelProfile {
 		}
 		pr.spikes[k].Profile(&p)
 		p.FlatTail = pr.flatTail(k, p.Rest)
+		p.Autocorr = pr.serial[k].autocorr()
 		out = append(out, p)
 	}
 	return out

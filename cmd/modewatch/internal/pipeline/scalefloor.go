@@ -67,4 +67,5 @@ func (u *Unit) floorScale(tr *tracker.Tracker, prof []alerts.ChannelProfile) {
 		return
 	}
 	tr.SetScaleFloor(scaleFloorOf(u.names, tr.P(), prof, u.resolutionFloor()))
+	u.shrinkFrom(tr, prof) // the correlation shrinkage reads the same profiles (serial.go)
 }
