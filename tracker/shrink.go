@@ -38,10 +38,10 @@ const (
 	//  dᵢ = min(1, Σ_{j≠i} dⱼ·max(0, q_ij − u_ij) / Σ_{j≠i} dⱼ²·q_ij)
 	//  q_ij = r_ij²/(1 − r_ij²)²,  u_ij = S_ij/n_ij
 	// where q − u is the unbiased estimate of the squared true value
-	// (as in Schäfer & Strimmer 2005). A channel whose every correlation
-	// is within its sampling noise leaves the modes; a tight relation
-	// (r near 1, q ≫ u) keeps its channels at dᵢ ≈ 1, so that a bias
-	// still breaks it.
+	// (as in Schäfer & Strimmer 2005). A channel with one relation
+	// beyond 5 standard errors (q > 25u) keeps dᵢ = 1, so that a bias
+	// still breaks its relations; a channel whose every correlation is
+	// within its sampling noise leaves the modes.
 	ShrinkChannel
 )
 
@@ -104,6 +104,12 @@ func SerialFactorsTo(dst *mat.SymDense, rho [][]float64) {
 		}
 	}
 }
+
+// shrinkKeep is the ratio q_ij/u_ij (a squared z statistic: 5 standard
+// errors) beyond which one relation keeps channel i whole under
+// ShrinkChannel (dᵢ = 1). Chosen on the realism suite between 6.63
+// (χ²₁ at 1 %) and 25; see the README (Shrinking chance correlations).
+const shrinkKeep = 25
 
 // shrinkSweeps is the number of sweeps of ShrinkChannel's coordinate
 // descent.
@@ -202,6 +208,7 @@ func (t *Tracker) shrinkChannels(raw, s blas64.Symmetric, include []bool) {
 			if !include[i] {
 				continue
 			}
+			keep := false
 			var num, den float64
 			ni := t.ew.NEff(i)
 			for j := 0; j < p; j++ {
@@ -217,10 +224,15 @@ func (t *Tracker) shrinkChannels(raw, s blas64.Symmetric, include []bool) {
 				om := math.Max(1-r*r, 1e-6)
 				q := r * r / (om * om)
 				u := s.Data[a*s.Stride+b] / n
+				keep = keep || q > shrinkKeep*u
 				num += sh.d[j] * math.Max(0, q-u)
 				den += sh.d[j] * sh.d[j] * q
 			}
 			sh.d[i] = 0
+			if keep {
+				sh.d[i] = 1
+				continue
+			}
 			if den > 0 {
 				sh.d[i] = math.Min(1, num/den)
 			}
