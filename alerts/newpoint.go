@@ -47,7 +47,7 @@ import (
 //   - a residual statistic (SPE, res, var, rel) goes into alarm,
 //   - the T² excess concentrates on one channel (T² over its limit on
 //     specific frames for the unit's on-delay: the same N of M rule), or
-//   - T² or φ is still in alarm pointSettle after the record;
+//   - T² or φ is still in alarm PointSettle after the record;
 //
 // it ends, silently, once T² and φ are back to normal. Nothing is judged
 // while the model is taking the point in (Observation.TakingIn): its
@@ -65,12 +65,12 @@ const GroupPoint = "operating_point"
 // the realism suite and the demo together, see the README).
 const DefaultNewPoint = true
 
-// pointSettle is how long T² and φ may stay in alarm after a new operating
+// PointSettle is how long T² and φ may stay in alarm after a new operating
 // point's record before it escalates to an incident (design choice: the
 // widening takes 30 frames, at most 30 min at the suite's slowest period
 // of 60 s, then the off-delay; twice that is left for the statistics to
 // come back).
-const pointSettle = time.Hour
+const PointSettle = time.Hour
 
 // pointState is a unit's new-operating-point rule.
 type pointState struct {
@@ -114,21 +114,23 @@ func (u *unit) residualOver(o *Observation) bool {
 	return false
 }
 
-// pointShare is the share of the index one channel must explain for a
+// PointShare is the share of the index one channel must explain for a
 // frame's excess to be concentrated on it (design choice: half of it; on
 // the realism suite a planned move's first channel explains 0.20, a
 // seeded move in TestNewOperatingPoint 0.15 to 0.26, a sensor bias on a
 // channel that leads a mode of its own 0.6 to 0.8 there; a quarter, the
 // share that names a place, gives the same suite but turned one seeded
 // move of three into an alert).
-const pointShare = 0.5
+const PointShare = 0.5
 
-// concentrated reports whether o's first leading channel alone explains
-// at least pointShare of the index (see [unit.specific]).
-func concentrated(o *Observation) bool {
+// Concentrated reports whether o's first leading channel alone explains
+// at least PointShare of the index (see [unit.specific]): a model alarm on
+// such a frame is no new operating point. The budget calibration asks it
+// of every held-out frame (alerts.calibrate_points).
+func Concentrated(o *Observation) bool {
 	var buf [LeadCount]string
 	lead, s := leading(buf[:0], o)
-	return len(lead) > 0 && s >= pointShare
+	return len(lead) > 0 && s >= PointShare
 }
 
 // t2Over returns T²'s value over its limit in o (0 when absent).
@@ -158,14 +160,14 @@ func (e *Engine) stepPoint(u *unit, o *Observation, t time.Time, in bool) bool {
 		return false // the model is taking the point in: nothing to judge yet
 	}
 	v := 0.0
-	if r > 1 && concentrated(o) {
+	if r > 1 && Concentrated(o) {
 		v = 2
 	}
 	p.conc.Step(t, v, 1)
 	g := &u.modelG
 	if p.learning {
 		switch {
-		case u.residualOver(o) || p.conc.State().InAlarm() || t.Sub(p.last) >= pointSettle:
+		case u.residualOver(o) || p.conc.State().InAlarm() || t.Sub(p.last) >= PointSettle:
 			p.learning = false // escalates: the model alarm activates on this frame
 			e.emit(Event{Time: t, Unit: u.name, Kind: EventPointEnd, Alarm: GroupPoint})
 			return in
@@ -175,7 +177,7 @@ func (e *Engine) stepPoint(u *unit, o *Observation, t time.Time, in bool) bool {
 		}
 		return false
 	}
-	if !in || r <= 1 || concentrated(o) || g.inAlarm || g.inc != nil || len(u.loc.extra) > 0 || u.residualInAlarm() ||
+	if !in || r <= 1 || Concentrated(o) || g.inAlarm || g.inc != nil || len(u.loc.extra) > 0 || u.residualInAlarm() ||
 		p.conc.State() != Normal || u.reopenable(o, t) != nil ||
 		(!p.last.IsZero() && t.Sub(p.last) < u.rules.AcceptAfter) {
 		return in
@@ -202,7 +204,7 @@ func (e *Engine) notePoint(u *unit, o *Observation, t time.Time, r float64) {
 		"(T² %.2f times its limit, spread over its channels: %s; SPE and the residual statistics within their limits); "+
 		"learned as normal from now on. An alert follows if a residual statistic goes over its limit, "+
 		"one channel comes to explain the excess, or T² is not back within %v",
-		u.name, r, lead.String(), pointSettle)
+		u.name, r, lead.String(), PointSettle)
 	rec := e.noticeRecord(u, GroupPoint, "move", text, t)
 	for i := range o.Contributors {
 		if i == maxNoticeContributors {

@@ -187,7 +187,7 @@ func TestNewPointSnapshot(t *testing.T) {
 		switch {
 		case r.Kind == KindNotice:
 			noted = r.Start
-		case r.Kind == KindIncident && r.Start.Sub(noted) < pointSettle:
+		case r.Kind == KindIncident && r.Start.Sub(noted) < PointSettle:
 			t.Errorf("incident %s at %v: before the hour after the notice (%v)", r.ID, r.Start, noted)
 		}
 	}
@@ -245,6 +245,6 @@ func TestNewPointAllocs(t *testing.T) {
 		t.Errorf("learning a point, T² over its limit: %v allocs per frame, want 0", a)
 	}
 	if u := e.units["u"]; !u.point.learning || u.modelG.inAlarm {
-		t.Errorf("the point escalated within the %v after its record (learning %v, model alarm %v)", pointSettle, u.point.learning, u.modelG.inAlarm)
+		t.Errorf("the point escalated within the %v after its record (learning %v, model alarm %v)", PointSettle, u.point.learning, u.modelG.inAlarm)
 	}
 }

@@ -423,6 +423,13 @@ type Alerts struct {
 	// model learned on the other K − 1, so that the calibration sees the
 	// whole log held out. Zero: DefaultCalibrationFolds.
 	CalibrationFolds int `yaml:"calibration_folds"`
+	// CalibratePoints: the budget calibration leaves out of the alarm
+	// rule's statistic the held-out excursions the new-operating-point
+	// rule (new_point) would record as a notice, not an alert: T² and φ
+	// on frames where no channel explains alerts.PointShare of the index,
+	// unless they stay over the limit for alerts.PointSettle. Unset:
+	// DefaultCalibratePoints.
+	CalibratePoints *bool `yaml:"calibrate_points"`
 	// OnDelay: active when over the limit in N of the last M frames
 	// (1 ≤ N ≤ M ≤ 64). Default [DefaultOnDelayN] of [DefaultOnDelayM].
 	OnDelay OnDelay `yaml:"on_delay"`

@@ -270,6 +270,11 @@ var settings = []Setting{
 		set: setBool(func(o *Overrides) **bool { return &o.Alerts.NewPoint }),
 	},
 	{
+		Name: "calibrate_points", Section: "alerts", Default: strconv.FormatBool(DefaultCalibratePoints),
+		Doc: "true|false: fit's budget calibration does not count held-out excursions of T² alone, spread over the unit's channels, that the new-operating-point rule records as a notice",
+		set: setBool(func(o *Overrides) **bool { return &o.Alerts.CalibratePoints }),
+	},
+	{
 		Name: "adapt", Section: "model", Grid: true, Default: "true",
 		Doc: "true|false: keep learning while scoring",
 		set: setBool(func(o *Overrides) **bool { return &o.Model.Adapt }),

@@ -70,6 +70,15 @@ const DefaultBudget = 0.25
 // scores the second half.
 const DefaultCalibrationFolds = 1
 
+// DefaultCalibratePoints is the default of alerts.calibrate_points: the
+// budget's calibration does not count the held-out excursions the
+// new-operating-point rule records as notices. Chosen on the realism
+// suite (README, Validation, "The calibration and the new operating
+// point"): no plant's detections or false alerts got worse, 34 of 37
+// faults detected against 33 and 33 isolated against 32, the demo's
+// supply drift found and its pump fault 11 min sooner.
+const DefaultCalibratePoints = true
+
 // MaxCalibrationFolds bounds alerts.calibration_folds: fit learns one
 // model per block.
 const MaxCalibrationFolds = 8

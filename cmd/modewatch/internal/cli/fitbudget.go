@@ -55,7 +55,9 @@ func calibrateBudgets(ctx context.Context, env IO, cfg *configs.Config, inputs [
 			continue
 		}
 		perStat := cfg.AlertsFor(u.Name).BudgetPerStatistic
-		cal, err := rec.Calibrate(u.Name, b, pipeline.AlarmRuleAt(cfg, u.Name, time.Duration(model.Period)), learnDays, perStat != nil && *perStat)
+		accept, points := pipeline.CalibratesPoints(cfg, u.Name)
+		cal, err := rec.Calibrate(u.Name, b, pipeline.AlarmRuleAt(cfg, u.Name, time.Duration(model.Period)), learnDays,
+			perStat != nil && *perStat, points, accept)
 		if err != nil {
 			msg := fmt.Sprintf("warning: unit %s not calibrated to alerts.budget (limits of alpha kept): %v", u.Name, err)
 			if cal.DaysNeeded > 0 {

@@ -105,6 +105,9 @@ type RatioRecorder struct {
 type ratioSeries struct {
 	t []time.Time
 	r [][nStatistics]float64
+	// spread: no channel explains alerts.PointShare of the frame's index
+	// (not alerts.Concentrated), for alerts.calibrate_points.
+	spread []bool
 }
 
 // nStatistics is the number of statistics appendStats can report.
@@ -136,6 +139,7 @@ func (rr *RatioRecorder) OnScore(u *Unit, t time.Time) {
 	}
 	ser.t = append(ser.t, t)
 	ser.r = append(ser.r, row)
+	ser.spread = append(ser.spread, !alerts.Concentrated(&u.p.obs))
 }
 
 // Units returns the names of the units recorded.
@@ -150,15 +154,21 @@ func (rr *RatioRecorder) Units() []string {
 
 // Calibrate calibrates unit name (see CalibrateBudget); with perStat
 // (alerts.budget_per_statistic) each statistic also gets its own scale
-// (calibrateEach).
-func (rr *RatioRecorder) Calibrate(name string, budget float64, rule alerts.AlarmRule, learnDays float64, perStat bool) (Calibration, error) {
+// (calibrateEach); with points (alerts.calibrate_points, for a unit that
+// runs the new-operating-point rule with accept_after accept) the
+// excursions that rule records as notices are left out (pointRatios).
+func (rr *RatioRecorder) Calibrate(name string, budget float64, rule alerts.AlarmRule, learnDays float64, perStat, points bool, accept time.Duration) (Calibration, error) {
 	ser := rr.units[name]
 	if ser == nil || len(ser.t) == 0 {
 		return Calibration{}, fmt.Errorf("%w: unit %s: no scored frame in the held-out data", ErrCalibration, name)
 	}
-	cal, err := CalibrateBudget(ser.t, ser.r, budget, rule, learnDays)
+	r := ser.r
+	if points {
+		r = pointRatios(ser.t, ser.r, ser.spread, accept)
+	}
+	cal, err := CalibrateBudget(ser.t, r, budget, rule, learnDays)
 	if err == nil && perStat {
-		calibrateEach(&cal, ser.t, ser.r, rule)
+		calibrateEach(&cal, ser.t, r, rule)
 	}
 	return cal, err
 }
