@@ -627,7 +627,7 @@ func DefaultModel() Model {
 
 // DefaultAlerts returns the default alarm settings.
 func DefaultAlerts() Alerts {
-	freeze, point := true, alerts.DefaultNewPoint
+	freeze, point, calPoints := true, alerts.DefaultNewPoint, DefaultCalibratePoints
 	return Alerts{
 		Budget:   DefaultBudget,
 		OnDelay:  OnDelay{N: DefaultOnDelayN, M: DefaultOnDelayM},
@@ -643,6 +643,7 @@ func DefaultAlerts() Alerts {
 		FreezeOnAlert:    &freeze,
 		NewPoint:         &point,
 		CalibrationFolds: DefaultCalibrationFolds,
+		CalibratePoints:  &calPoints,
 	}
 }
 

@@ -3,7 +3,6 @@ package pipeline
 import (
 	"math"
 	"math/rand/v2"
-	"slices"
 	"testing"
 	"time"
 
@@ -110,13 +109,17 @@ func TestPointRatios(t *testing.T) {
 	// and 8 (spread); frame 9's T² is missing.
 	t2 := []float64{2, 1, 1, 1, 3, 1, 3, 1, 3, math.NaN(), 1, 1}
 	spread := []bool{true, true, true, true, true, true, false, true, true, true, true, true}
+	spe := 0
+	for statNames[spe] != alerts.StatSPE {
+		spe++
+	}
 	var ts []time.Time
 	var r [][nStatistics]float64
 	for k, v := range t2 {
 		ts = append(ts, start.Add(time.Duration(k)*step))
 		var row [nStatistics]float64
 		row[pointStats[0]], row[pointStats[1]] = v, v
-		row[slices.Index(statNames[:], alerts.StatSPE)] = v
+		row[spe] = v
 		r = append(r, row)
 	}
 	out := pointRatios(ts, r, spread, 4*time.Hour)
@@ -130,8 +133,8 @@ func TestPointRatios(t *testing.T) {
 				t.Errorf("frame %d statistic %s: %v, want %v", k, statNames[j], g, want[k])
 			}
 		}
-		if s := slices.Index(statNames[:], alerts.StatSPE); out[k][s] != r[k][s] && !math.IsNaN(r[k][s]) {
-			t.Errorf("frame %d: SPE changed %v → %v", k, r[k][s], out[k][s])
+		if out[k][spe] != r[k][spe] && !math.IsNaN(r[k][spe]) {
+			t.Errorf("frame %d: SPE changed %v → %v", k, r[k][spe], out[k][spe])
 		}
 	}
 }
