@@ -31,9 +31,9 @@ With alerts.budget (default 0.25: one false alert per unit every four days) each
 unit's limits are calibrated: a model learned on the first half of the
 log scores the second half (alerts.calibration_folds K: each of K blocks
 of the log is scored by a model learned on the others), the whole alarm
-rule's statistic (without the excursions of T² alone, spread over the
-channels, that alerts.new_point records as notices: alerts.calibrate_points)
-is fitted by an extreme-value model of block maxima,
+rule's statistic (with alerts.calibrate_points, without the excursions of
+T² alone, spread over the channels, that alerts.new_point records as
+notices) is fitted by an extreme-value model of block maxima,
 and every limit is multiplied by the scale at which the expected false
 alerts per day meet the budget.
 fit prints the scale, the limits, the expected rate with its 95 %
