@@ -135,11 +135,18 @@ func (d *Drivers) Lags() []float64 {
 	return out
 }
 
-// SetLags restores the state saved by Lags.
+// SetLags restores the state saved by Lags. A state no run of Observe and
+// Fit reaches (a count or phase out of range or not finite, an infinite
+// smoothed value, a non-finite covariance entry, a keep flag other than 0
+// or 1) is refused with ErrInput, and d is left as it was: a checkpoint is
+// untrusted input, and a NaN there would spread into every slope.
 func (d *Drivers) SetLags(s []float64) error {
 	l := d.lag
 	if n := 3 + len(l.s) + len(l.d) + len(d.keep); len(s) != n {
 		return fmt.Errorf("%w: %d driver lag statistics, want %d", ErrWidth, len(s), n)
+	}
+	if err := checkLags(s, len(l.s), len(l.d)); err != nil {
+		return err
 	}
 	l.k, l.phase, l.since = s[0], s[1], s[2]
 	s = s[3:]
@@ -149,6 +156,36 @@ func (d *Drivers) SetLags(s []float64) error {
 		d.keep[i] = v != 0
 	}
 	d.kept = true
+	return nil
+}
+
+// checkLags checks a state of Lags with p smoothed values and nd
+// covariance entries (see SetLags).
+func checkLags(s []float64, p, nd int) error {
+	finite := func(v float64) bool { return !math.IsNaN(v) && !math.IsInf(v, 0) }
+	switch {
+	case !finite(s[0]) || s[0] < 0:
+		return fmt.Errorf("%w: driver lag count %v", ErrInput, s[0])
+	case !finite(s[1]) || s[1] < 0 || s[1] >= driverStride:
+		return fmt.Errorf("%w: driver lag phase %v, want [0, %d)", ErrInput, s[1], driverStride)
+	case !finite(s[2]) || s[2] < 0:
+		return fmt.Errorf("%w: driver lag fits since the graph %v", ErrInput, s[2])
+	}
+	for i, v := range s[3 : 3+p] {
+		if math.IsInf(v, 0) {
+			return fmt.Errorf("%w: driver lag smoothed value %d is %v", ErrInput, i, v)
+		}
+	}
+	for i, v := range s[3+p : 3+p+nd] {
+		if !finite(v) {
+			return fmt.Errorf("%w: driver lag covariance entry %d is %v", ErrInput, i, v)
+		}
+	}
+	for i, v := range s[3+p+nd:] {
+		if v != 0 && v != 1 {
+			return fmt.Errorf("%w: driver lag keep flag %d is %v, want 0 or 1", ErrInput, i, v)
+		}
+	}
 	return nil
 }
 

@@ -1,8 +1,10 @@
 package tracker
 
 import (
+	"errors"
 	"math"
 	"math/rand/v2"
+	"slices"
 	"strconv"
 	"testing"
 	"time"
@@ -155,6 +157,26 @@ func TestDriverLagsRoundTrip(t *testing.T) {
 	}
 	if err := b.SetLags(a.Lags()[1:]); err == nil {
 		t.Error("SetLags took a state one value short")
+	}
+	// States no run reaches are refused and leave b as it was: the count,
+	// phase and Fit counter, a smoothed value, a covariance entry and a
+	// keep flag.
+	good := a.Lags()
+	before := b.Lags()
+	last := len(good) - 1
+	cov := 3 + p // the first covariance entry
+	for _, c := range []struct {
+		at int
+		v  float64
+	}{{0, math.NaN()}, {0, -1}, {1, 8}, {1, math.Inf(1)}, {2, -2}, {3, math.Inf(-1)}, {cov, math.NaN()}, {last, 0.5}} {
+		bad := slices.Clone(good)
+		bad[c.at] = c.v
+		if err := b.SetLags(bad); !errors.Is(err, ErrInput) {
+			t.Errorf("SetLags with value %d = %v: %v, want %v", c.at, c.v, err, ErrInput)
+		}
+		if !slices.Equal(b.Lags(), before) {
+			t.Errorf("a refused state (value %d = %v) changed the test's statistics", c.at, c.v)
+		}
 	}
 	if err := a.Fit(tr); err != nil {
 		t.Fatal(err)
