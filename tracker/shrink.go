@@ -1,9 +1,9 @@
 package tracker
 
 import (
-	"gonum.org/v1/gonum/blas/blas64"
 	"math"
 
+	"gonum.org/v1/gonum/blas/blas64"
 	"gonum.org/v1/gonum/mat"
 )
 
