@@ -159,8 +159,9 @@ func (e *Engine) stepPoint(u *unit, o *Observation, t time.Time, in bool) bool {
 		p.conc.Reset(t)
 		return false // the model is taking the point in: nothing to judge yet
 	}
+	conc := r > 1 && Concentrated(o) // the only walk of o's contributors here
 	v := 0.0
-	if r > 1 && Concentrated(o) {
+	if conc {
 		v = 2
 	}
 	p.conc.Step(t, v, 1)
@@ -177,7 +178,7 @@ func (e *Engine) stepPoint(u *unit, o *Observation, t time.Time, in bool) bool {
 		}
 		return false
 	}
-	if !in || r <= 1 || Concentrated(o) || g.inAlarm || g.inc != nil || len(u.loc.extra) > 0 || u.residualInAlarm() ||
+	if !in || r <= 1 || conc || g.inAlarm || g.inc != nil || len(u.loc.extra) > 0 || u.residualInAlarm() ||
 		p.conc.State() != Normal || u.reopenable(o, t) != nil ||
 		(!p.last.IsZero() && t.Sub(p.last) < u.rules.AcceptAfter) {
 		return in
