@@ -427,7 +427,8 @@ type Alerts struct {
 	// rule's statistic the held-out excursions the new-operating-point
 	// rule (new_point) would record as a notice, not an alert: T² and φ
 	// on frames where no channel explains alerts.PointShare of the index,
-	// unless they stay over the limit for alerts.PointSettle. Unset:
+	// unless they stay over the limit for alerts.PointSettle or follow an
+	// earlier such excursion within accept_after. Unset:
 	// DefaultCalibratePoints.
 	CalibratePoints *bool `yaml:"calibrate_points"`
 	// OnDelay: active when over the limit in N of the last M frames
@@ -509,13 +510,13 @@ type Alerts struct {
 	// channels move to their current level instead.
 	AcceptWeight float64 `yaml:"accept_weight"`
 	// NewPoint: a model alarm of T² (and φ) alone, spread over the unit's
-	// channels (no channel explaining specific_share of it), with SPE and
-	// the residual statistics within their limits, is a new operating
+	// channels (no channel explaining alerts.PointShare of it), with SPE
+	// and the residual statistics within their limits, is a new operating
 	// point, not an alert: one informational record, and the point is
 	// learned as normal at once; it becomes an alert if a residual
 	// statistic joins, one channel comes to explain the excess, or T² is
-	// not back within the hour. Unset: the alarm engine's default
-	// (alerts.DefaultNewPoint, true).
+	// not back within alerts.PointSettle. Unset: the alarm engine's
+	// default, alerts.DefaultNewPoint.
 	NewPoint *bool `yaml:"new_point"`
 }
 
