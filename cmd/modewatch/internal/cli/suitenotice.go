@@ -35,24 +35,34 @@ func readNotices(path string) ([]suiteNotice, error) {
 
 // scanNotices is readNotices reading from r (named path in errors).
 func scanNotices(r io.Reader, path string) ([]suiteNotice, error) {
-	sc := bufio.NewScanner(r)
-	sc.Buffer(make([]byte, 0, 64<<10), 16<<20)
 	out := []suiteNotice{}
-	line := 0
-	for sc.Scan() {
-		line++
-		var rec alerts.Record
-		if err := json.Unmarshal(sc.Bytes(), &rec); err != nil {
-			return nil, fmt.Errorf("%s:%d: %w", path, line, err)
-		}
+	err := scanRecords(r, path, func(rec *alerts.Record) {
 		if rec.Kind == alerts.KindNotice {
 			out = append(out, suiteNotice{ID: rec.ID, Group: rec.Group, Text: rec.Notice})
 		}
-	}
-	if err := sc.Err(); err != nil {
-		return nil, fmt.Errorf("%s: %w", path, err)
+	})
+	if err != nil {
+		return nil, err
 	}
 	return out, nil
+}
+
+// scanRecords calls fn with each alert record of the JSON-lines stream r
+// (an alerts file, named path in errors with the line number).
+func scanRecords(r io.Reader, path string, fn func(*alerts.Record)) error {
+	sc := bufio.NewScanner(r)
+	sc.Buffer(make([]byte, 0, 64<<10), 16<<20)
+	for line := 1; sc.Scan(); line++ {
+		var rec alerts.Record
+		if err := json.Unmarshal(sc.Bytes(), &rec); err != nil {
+			return fmt.Errorf("%s:%d: %w", path, line, err)
+		}
+		fn(&rec)
+	}
+	if err := sc.Err(); err != nil {
+		return fmt.Errorf("%s: %w", path, err)
+	}
+	return nil
 }
 
 // noticeCounts is "N" or "N (group n, ...)" for a plant's notices.

@@ -1,8 +1,6 @@
 package cli
 
 import (
-	"bufio"
-	"encoding/json"
 	"fmt"
 	"io"
 	"math"
@@ -130,24 +128,18 @@ func switchAlerts(path string, isFalse func(unit string, start time.Time) bool, 
 	return readSwitchAlerts(f, path, isFalse, sw, status)
 }
 
-// readSwitchAlerts is switchAlerts reading the records from r (named
+// readSwitchAlerts is switchAlerts reading the records from rd (named
 // path in errors).
-func readSwitchAlerts(r io.Reader, path string, isFalse func(unit string, start time.Time) bool, sw []suiteSwitch, status map[string]bool) ([]string, error) {
+func readSwitchAlerts(rd io.Reader, path string, isFalse func(unit string, start time.Time) bool, sw []suiteSwitch, status map[string]bool) ([]string, error) {
 	var span time.Duration // the longest window after a switch's start
 	for _, w := range sw {
 		span = max(span, w.over+suiteSwitchWindow)
 	}
-	sc := bufio.NewScanner(r)
-	sc.Buffer(make([]byte, 0, 64<<10), 16<<20)
 	out := []string{}
 	done := map[string]bool{}
-	for sc.Scan() {
-		var r alerts.Record
-		if err := json.Unmarshal(sc.Bytes(), &r); err != nil {
-			return nil, fmt.Errorf("%s: %w", path, err)
-		}
+	err := scanRecords(rd, path, func(r *alerts.Record) {
 		if r.Kind != alerts.KindIncident || done[r.ID] || !isFalse(r.Unit, r.Start) {
-			continue
+			return
 		}
 		done[r.ID] = true
 		var why []string
@@ -176,7 +168,10 @@ func readSwitchAlerts(r io.Reader, path string, isFalse func(unit string, start 
 		if len(why) > 0 {
 			out = append(out, fmt.Sprintf("%s (%s)", r.ID, why[0]))
 		}
+	})
+	if err != nil {
+		return nil, err
 	}
 	slices.Sort(out)
-	return out, sc.Err()
+	return out, nil
 }
