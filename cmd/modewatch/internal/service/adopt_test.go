@@ -99,13 +99,24 @@ http: {listen: "127.0.0.1:0"}`)
 		deadline := time.Now().Add(20 * time.Second)
 		for {
 			if _, _, last := svc.Pipeline().Frames(); !last.Before(until) {
-				return
+				break
 			}
 			if time.Now().After(deadline) {
 				n, f, l := svc.Pipeline().Frames()
 				t.Fatalf("frames did not reach %v: %d frames %v … %v", until, n, f, l)
 			}
 			time.Sleep(20 * time.Millisecond)
+		}
+		// The aligner may still emit the frames it held back for late
+		// readings: wait until the count stops moving, so that what is
+		// compared below is not a frame in flight.
+		for n, _, _ := svc.Pipeline().Frames(); ; {
+			time.Sleep(300 * time.Millisecond)
+			m, _, _ := svc.Pipeline().Frames()
+			if m == n {
+				return
+			}
+			n = m
 		}
 	}
 	publish(func(l []byte) bool { return !bytes.HasPrefix(l, []byte(moved+",")) && lineTime(t, l).Before(cut) })
@@ -183,7 +194,7 @@ http: {listen: "127.0.0.1:0"}`)
 	var back pipeline.ModelFile
 	if code := getJSON(t, svc.Info().HTTP+"/api/units/"+moved+"/checkpoint", &back); code != http.StatusOK ||
 		len(back.Units) != 1 || back.Units[0].Name != moved || len(back.Units[0].Alerts) == 0 || back.Frames != v.Frames {
-		t.Errorf("GET checkpoint: %d, %d units, frames %d", code, len(back.Units), back.Frames)
+		t.Errorf("GET checkpoint: %d, %d units, frames %d (view %d)", code, len(back.Units), back.Frames, v.Frames)
 	}
 	if code := getJSON(t, svc.Info().HTTP+"/api/units/nosuch/checkpoint", nil); code != http.StatusNotFound {
 		t.Errorf("checkpoint of an unknown unit: %d", code)
