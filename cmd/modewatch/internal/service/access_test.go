@@ -149,7 +149,7 @@ http: {listen: "127.0.0.1:0", large_requests: 1}`)
 	}
 	// The client has sent the first bytes; the handler holds the slot
 	// only once the server has routed the request to it.
-	waitUntil(t, 10*time.Second, "the first upload holding the slot", func() bool { return len(svc.large) == 1 })
+	waitUntil(t, hangBound, "the first upload holding the slot", func() bool { return len(svc.large) == 1 })
 	code, rep := do(t, http.DefaultClient, "PUT", url, "", `{}`)
 	if code != http.StatusTooManyRequests {
 		t.Errorf("second upload during the first: %d %v, want 429", code, rep)
@@ -160,7 +160,7 @@ http: {listen: "127.0.0.1:0", large_requests: 1}`)
 		if c != http.StatusBadRequest {
 			t.Errorf("truncated first upload: %d, want 400", c)
 		}
-	case <-time.After(10 * time.Second):
+	case <-time.After(hangBound):
 		t.Fatal("first upload not answered")
 	}
 	if code, _ := do(t, http.DefaultClient, "PUT", url, "", `{}`); code == http.StatusTooManyRequests {

@@ -80,12 +80,14 @@ http: {listen: "127.0.0.1:0"}`)
 		}
 		firstMu.Unlock()
 	}})
+	var published uint64 // lines published so far
 	publish := func(keep func(l []byte) bool) {
 		var b bytes.Buffer
 		for _, l := range lines {
 			if len(l) == 0 || !keep(l) {
 				continue
 			}
+			published++
 			b.Write(l)
 			if b.Len() > 32<<10 {
 				nc.Publish("modewatch.readings.demo", bytes.Clone(b.Bytes()))
@@ -95,28 +97,16 @@ http: {listen: "127.0.0.1:0"}`)
 		nc.Publish("modewatch.readings.demo", b.Bytes())
 		nc.Flush()
 	}
+	// waitFrames waits until the service has decoded every line published
+	// so far: the frames they complete are scored by then (the intake
+	// scores a message's frames before it counts its lines), and the
+	// frames the aligner still holds back for late readings wait for
+	// readings that are not sent, so the counts compared below are final.
+	// The last frame must then have reached until.
 	waitFrames := func(until time.Time) {
-		deadline := time.Now().Add(20 * time.Second)
-		for {
-			if _, _, last := svc.Pipeline().Frames(); !last.Before(until) {
-				break
-			}
-			if time.Now().After(deadline) {
-				n, f, l := svc.Pipeline().Frames()
-				t.Fatalf("frames did not reach %v: %d frames %v … %v", until, n, f, l)
-			}
-			time.Sleep(20 * time.Millisecond)
-		}
-		// The aligner may still emit the frames it held back for late
-		// readings: wait until the count stops moving, so that what is
-		// compared below is not a frame in flight.
-		for n, _, _ := svc.Pipeline().Frames(); ; {
-			time.Sleep(300 * time.Millisecond)
-			m, _, _ := svc.Pipeline().Frames()
-			if m == n {
-				return
-			}
-			n = m
+		waitConsumed(t, svc, published)
+		if n, f, last := svc.Pipeline().Frames(); last.Before(until) {
+			t.Fatalf("frames did not reach %v: %d frames %v … %v", until, n, f, last)
 		}
 	}
 	publish(func(l []byte) bool { return !bytes.HasPrefix(l, []byte(moved+",")) && lineTime(t, l).Before(cut) })

@@ -6,6 +6,7 @@ import (
 	"net"
 	"net/http"
 	"sync"
+	"sync/atomic"
 	"testing"
 	"time"
 
@@ -40,7 +41,7 @@ func TestClusterStartServesSafely(t *testing.T) {
 	}
 	stop := make(chan struct{})
 	var wg sync.WaitGroup
-	served := 0
+	var served atomic.Int64 // requests answered, whole rounds of the three paths
 	wg.Go(func() {
 		cl := &http.Client{Timeout: 2 * time.Second}
 		for {
@@ -49,12 +50,18 @@ func TestClusterStartServesSafely(t *testing.T) {
 				return
 			default:
 			}
+			ok := true
 			for _, p := range []string{"/api/cluster", "/api/units", "/metrics"} {
-				if resp, err := cl.Get("http://" + addr + p); err == nil {
-					io.Copy(io.Discard, resp.Body)
-					resp.Body.Close()
-					served++
+				resp, err := cl.Get("http://" + addr + p)
+				if err != nil {
+					ok = false
+					continue
 				}
+				io.Copy(io.Discard, resp.Body)
+				resp.Body.Close()
+			}
+			if ok {
+				served.Add(1)
 			}
 		}
 	})
@@ -65,16 +72,12 @@ func TestClusterStartServesSafely(t *testing.T) {
 		t.Fatal(err)
 	}
 	t.Cleanup(func() { svc.Shutdown(context.Background()) })
-	// Let the poller see the started cluster too.
-	for end := time.Now().Add(5 * time.Second); time.Now().Before(end); time.Sleep(20 * time.Millisecond) {
-		if _, ok := svc.Cluster(); ok {
-			break
-		}
-	}
-	time.Sleep(200 * time.Millisecond)
+	// Let the poller see the started cluster too: two whole rounds of
+	// requests after the cluster part is up (the first may have begun
+	// before).
+	waitUntil(t, hangBound, "the cluster part started", func() bool { _, ok := svc.Cluster(); return ok })
+	from := served.Load()
+	waitUntil(t, hangBound, "two rounds of requests served after the cluster started", func() bool { return served.Load() >= from+2 })
 	close(stop)
 	wg.Wait()
-	if served == 0 {
-		t.Error("no request was served while the service started")
-	}
 }

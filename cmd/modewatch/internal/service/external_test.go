@@ -69,7 +69,7 @@ func TestExternalOldestServer(t *testing.T) {
 	}
 	t.Cleanup(func() { cmd.Process.Kill(); cmd.Wait() })
 	url := fmt.Sprintf("nats://127.0.0.1:%d", port)
-	waitUntil(t, 10*time.Second, "external server accepting connections", func() bool {
+	waitUntil(t, hangBound, "external server accepting connections", func() bool {
 		nc, err := nats.Connect(url)
 		if err == nil {
 			nc.Close()

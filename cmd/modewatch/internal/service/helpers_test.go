@@ -13,6 +13,7 @@ import (
 
 	"modewatch/alerts"
 	"modewatch/configs"
+	"modewatch/sim"
 )
 
 // openMissingAlert publishes 500 s of invented readings of unit tk (period
@@ -52,7 +53,7 @@ func openMissingAlertAt(t *testing.T, svc *Service, nc *nats.Conn) (string, time
 	}
 	nc.Flush()
 	eng := svc.Pipeline().Alerts()
-	deadline := time.Now().Add(10 * time.Second)
+	deadline := time.Now().Add(hangBound)
 	for {
 		for _, r := range eng.Open(nil) {
 			if r.Quality != nil && r.Quality.Kind == alerts.QualityMissing && r.Quality.Channel == "tk.x.b" {
@@ -64,6 +65,54 @@ func openMissingAlertAt(t *testing.T, svc *Service, nc *nats.Conn) (string, time
 		}
 		time.Sleep(20 * time.Millisecond)
 	}
+}
+
+// hangBound bounds the waits of these tests for something the service
+// does on its own goroutines (a frame scored, an alert raised, a record
+// delivered): it only stops a test that hangs, so it is far longer than
+// the wait takes on a loaded 2-core machine under the race detector.
+const hangBound = time.Minute
+
+// waitConsumed waits until the service's intake has decoded n reading
+// lines in all. A message's frames are scored before its lines are
+// counted (Intake.Feed forms and scores the frames it completes, then
+// publishes its counters), so from then on the frames and alerts of those
+// lines are all there: what the aligner still holds back waits for later
+// readings, not for time.
+func waitConsumed(t *testing.T, svc *Service, n uint64) {
+	t.Helper()
+	deadline := time.Now().Add(hangBound)
+	for {
+		st := svc.Intake().Stats()
+		if st.Lines >= n {
+			return
+		}
+		if time.Now().After(deadline) {
+			t.Fatalf("%d of %d published lines decoded (intake %+v, connection %+v)", st.Lines, n, st, svc.Conn().Stats())
+		}
+		time.Sleep(10 * time.Millisecond)
+	}
+}
+
+// scenarioLines counts the reading lines sim's Live publishes for sc
+// (its generator's lines, as Live sends them).
+func scenarioLines(t *testing.T, sc *sim.Scenario) uint64 {
+	t.Helper()
+	g, err := sc.NewGenerator()
+	if err != nil {
+		t.Fatal(err)
+	}
+	var n uint64
+	var buf []byte
+	for g.Step() {
+		for u := 0; u < g.Units(); u++ {
+			if buf, err = g.AppendUnit(buf[:0], u); err != nil {
+				t.Fatal(err)
+			}
+			n += uint64(bytes.Count(buf, []byte("\n")))
+		}
+	}
+	return n
 }
 
 // natsClient connects to the service's NATS server; closed at the end.

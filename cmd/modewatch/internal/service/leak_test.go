@@ -18,7 +18,7 @@ http: {listen: "127.0.0.1:0"}`)
 	if err != nil {
 		t.Fatal(err)
 	}
-	ctx, cancel := context.WithTimeout(context.Background(), 10*time.Second)
+	ctx, cancel := context.WithTimeout(context.Background(), hangBound)
 	defer cancel()
 	if err := svc.Shutdown(ctx); err != nil {
 		t.Fatal(err)
@@ -26,7 +26,7 @@ http: {listen: "127.0.0.1:0"}`)
 	if err := svc.Shutdown(ctx); err != nil {
 		t.Errorf("second Shutdown: %v", err)
 	}
-	deadline := time.Now().Add(5 * time.Second)
+	deadline := time.Now().Add(hangBound)
 	for runtime.NumGoroutine() > before {
 		if time.Now().After(deadline) {
 			buf := make([]byte, 1<<16)

@@ -90,7 +90,7 @@ http: {listen: "off"}`)
 		}
 		return kp.Sign(nonce)
 	}))
-	m, err := jo.Request("modewatch.control.jo", shelve("mallory"), 5*time.Second)
+	m, err := jo.Request("modewatch.control.jo", shelve("mallory"), hangBound)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -117,7 +117,7 @@ http: {listen: "off"}`)
 	if _, err := nc.Request("modewatch.control", b, 300*time.Millisecond); err == nil {
 		t.Error("the plain control subject answered")
 	}
-	m, err := nc.Request("modewatch.control.kim", b, 5*time.Second)
+	m, err := nc.Request("modewatch.control.kim", b, hangBound)
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -39,14 +39,29 @@ func TestStatusPageServed(t *testing.T) {
 	if _, err := live.Live(context.Background(), nc, "modewatch", math.Inf(1)); err != nil {
 		t.Fatal(err)
 	}
+	// Every reading decoded, so every frame the two hours form is scored
+	// and in the history ring; then the page's view (read from its source
+	// at most once per update interval) shows each unit's final count.
+	waitConsumed(t, svc, scenarioLines(t, live))
+	scored := map[string]uint64{}
+	for _, v := range svc.Pipeline().Views() {
+		scored[v.Name] = v.Frames
+	}
 	base := svc.Info().HTTP
 	var plant statuspage.Plant
-	deadline := time.Now().Add(30 * time.Second)
-	for time.Now().Before(deadline) {
+	deadline := time.Now().Add(hangBound)
+	for {
 		plant = statuspage.Plant{}
 		getJSON(t, base+"/page/data/plant", &plant)
-		if len(plant.Units) == len(sc.Units) && plant.Units[0].Trend != nil && plant.Units[0].Frames > 300 {
+		final := len(plant.Units) == len(scored)
+		for _, u := range plant.Units {
+			final = final && u.Frames == scored[u.Name]
+		}
+		if final {
 			break
+		}
+		if time.Now().After(deadline) {
+			t.Fatalf("plant view: %+v; scored frames per unit %v", plant.Units, scored)
 		}
 		time.Sleep(100 * time.Millisecond)
 	}
@@ -88,7 +103,7 @@ func TestStatusPageServed(t *testing.T) {
 	if line, _ := bufio.NewReader(res.Body).ReadString('\n'); !strings.HasPrefix(line, "retry:") {
 		t.Fatalf("event stream starts with %q", line)
 	}
-	ctx, cancel := context.WithTimeout(context.Background(), 20*time.Second)
+	ctx, cancel := context.WithTimeout(context.Background(), hangBound)
 	defer cancel()
 	if err := svc.Shutdown(ctx); err != nil {
 		t.Errorf("shutdown with an open event stream: %v", err)
@@ -122,7 +137,7 @@ func TestStatusPageTokens(t *testing.T) {
 	openMissingAlert(t, svc, nc)
 	base := svc.Info().HTTP
 	status := func(path, token string) int {
-		ctx, cancel := context.WithTimeout(context.Background(), 5*time.Second)
+		ctx, cancel := context.WithTimeout(context.Background(), hangBound)
 		defer cancel()
 		req, _ := http.NewRequestWithContext(ctx, "GET", base+path, nil)
 		if token != "" {

@@ -110,7 +110,7 @@ func TestServiceQualityRules(t *testing.T) {
 		}
 		return nil
 	}
-	deadline := time.Now().Add(20 * time.Second)
+	deadline := time.Now().Add(hangBound)
 	for find("sv", at(end-10)) == nil || find("ot", at(end-10)) == nil {
 		if time.Now().After(deadline) {
 			t.Fatalf("no silent alert of both units by the wall clock after the readings stopped; records %+v", svc.Records())

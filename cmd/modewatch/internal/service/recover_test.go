@@ -62,12 +62,12 @@ http: {listen: "127.0.0.1:0"}`)
 		}
 	}
 	publish(0, 100)
-	waitUntil(t, 10*time.Second, "frames up to 95 s", framesUpTo(95))
+	waitUntil(t, hangBound, "frames up to 95 s", framesUpTo(95))
 	if err := js.DeleteConsumer(t.Context(), "READINGS", "modewatch"); err != nil {
 		t.Fatal(err)
 	}
 	publish(100, 200) // held by the stream while the consumer is gone
-	waitUntil(t, 20*time.Second, "frames up to 195 s after the consumer was recreated", framesUpTo(195))
+	waitUntil(t, hangBound, "frames up to 195 s after the consumer was recreated", framesUpTo(195))
 	n, _, _ := svc.Pipeline().Frames()
 	if n < 195 {
 		t.Errorf("%d frames for 200 s of readings: some the stream held were lost", n)
@@ -75,13 +75,13 @@ http: {listen: "127.0.0.1:0"}`)
 	if err := js.DeleteStream(t.Context(), "READINGS"); err != nil {
 		t.Fatal(err)
 	}
-	waitUntil(t, 20*time.Second, "stream recreated", func() bool {
+	waitUntil(t, hangBound, "stream recreated", func() bool {
 		_, err := js.Stream(t.Context(), "READINGS")
 		return err == nil && svc.recreations.Load() == 2
 	})
 	publish(200, 300)
-	waitUntil(t, 20*time.Second, "frames up to 295 s after the stream was recreated", framesUpTo(295))
-	waitUntil(t, 5*time.Second, "ready again", func() bool { code, _ := readyz(t, svc); return code == http.StatusOK })
+	waitUntil(t, hangBound, "frames up to 295 s after the stream was recreated", framesUpTo(295))
+	waitUntil(t, hangBound, "ready again", func() bool { code, _ := readyz(t, svc); return code == http.StatusOK })
 	gaps := 0
 	for _, r := range svc.Records() {
 		if r.Unit == "rc" && r.Quality != nil && r.Quality.Kind == alerts.QualityIntakeGap {
@@ -106,14 +106,14 @@ func TestPasswordRotation(t *testing.T) {
 	cfg := serviceConfig(t, `server: {urls: [`+srv.ClientURL()+`], user: mw, password: first-secret}
 http: {listen: "127.0.0.1:0"}`)
 	svc := startService(t, Options{Config: cfg})
-	waitUntil(t, 5*time.Second, "ready", func() bool { code, _ := readyz(t, svc); return code == http.StatusOK })
+	waitUntil(t, hangBound, "ready", func() bool { code, _ := readyz(t, svc); return code == http.StatusOK })
 
 	rotated := opts.Clone()
 	rotated.Users = []*server.User{{Username: "mw", Password: "second-secret"}}
 	if err := srv.ReloadOptions(rotated); err != nil {
 		t.Fatal(err)
 	}
-	waitUntil(t, 20*time.Second, "readyz 503 naming the rejected credentials", func() bool {
+	waitUntil(t, hangBound, "readyz 503 naming the rejected credentials", func() bool {
 		code, reason := readyz(t, svc)
 		return code == http.StatusServiceUnavailable && strings.Contains(reason, "rejected the credentials")
 	})
@@ -123,7 +123,7 @@ http: {listen: "127.0.0.1:0"}`)
 	if err := srv.ReloadOptions(opts.Clone()); err != nil {
 		t.Fatal(err)
 	}
-	waitUntil(t, 40*time.Second, "ready again after the password was restored", func() bool {
+	waitUntil(t, hangBound, "ready again after the password was restored", func() bool {
 		code, _ := readyz(t, svc)
 		return code == http.StatusOK
 	})
@@ -155,8 +155,8 @@ http: {listen: "off"}`)
 	srv.Shutdown()
 	select {
 	case <-svc.Failed():
-	case <-time.After(30 * time.Second):
-		t.Fatal("the service did not give up within 30 s")
+	case <-time.After(hangBound):
+		t.Fatalf("the service did not give up within %v", hangBound)
 	}
 	took := time.Since(start)
 	t.Logf("gave up after %v", took)

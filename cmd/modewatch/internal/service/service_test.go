@@ -160,12 +160,12 @@ func TestServiceEndToEnd(t *testing.T) {
 		}
 		time.Sleep(50 * time.Millisecond)
 	}
-	if m, err := scores.NextMsg(5 * time.Second); err != nil || !bytes.HasPrefix(m.Data, []byte("modewatch_scores,unit=air ")) {
+	if m, err := scores.NextMsg(hangBound); err != nil || !bytes.HasPrefix(m.Data, []byte("modewatch_scores,unit=air ")) {
 		t.Errorf("score message %v: %v", m, err)
 	}
 	// Every record the service holds reaches the alerts subject, at its
 	// latest revision (the NATS delivery works from a queue).
-	natstest.WaitFor(t, 10*time.Second, "every record on the alerts subject", func() bool {
+	natstest.WaitFor(t, hangBound, "every record on the alerts subject", func() bool {
 		mu.Lock()
 		defer mu.Unlock()
 		for _, r := range svc.Records() {
@@ -324,7 +324,7 @@ func TestServiceEndToEnd(t *testing.T) {
 	}
 
 	// Graceful shutdown writes a checkpoint per unit.
-	sctx, scancel := context.WithTimeout(context.Background(), 15*time.Second)
+	sctx, scancel := context.WithTimeout(context.Background(), hangBound)
 	defer scancel()
 	if err := svc.Shutdown(sctx); err != nil {
 		t.Errorf("shutdown: %v", err)

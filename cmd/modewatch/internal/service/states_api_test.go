@@ -23,7 +23,7 @@ func TestAPIUnitsStates(t *testing.T) {
 		t.Fatal(err)
 	}
 	nc.Flush()
-	deadline := time.Now().Add(20 * time.Second)
+	deadline := time.Now().Add(hangBound)
 	for {
 		var units []pipeline.UnitView
 		if code := getJSON(t, svc.Info().HTTP+"/api/units", &units); code != 200 {

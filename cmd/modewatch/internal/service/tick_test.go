@@ -28,7 +28,7 @@ http: {listen: "off"}`)
 	// one period of lateness), so the last frame scored starts at
 	// t0 + 497 s.
 	last := t0.Add(497 * time.Second)
-	natstest.WaitFor(t, 10*time.Second, fmt.Sprintf("last frame of unit tk at %v", last), func() bool {
+	natstest.WaitFor(t, hangBound, fmt.Sprintf("last frame of unit tk at %v", last), func() bool {
 		return eng.LastFrame("tk").Equal(last)
 	})
 	frames, _, _ := svc.Pipeline().Frames()
@@ -73,7 +73,7 @@ http: {listen: "off"}`)
 	}
 	// No frame comes; the stall is noticed after 2 periods + lateness and
 	// the shelf, 1 s of frame time, expires at the next tick.
-	deadline := time.Now().Add(15 * time.Second)
+	deadline := time.Now().Add(hangBound)
 	for shelved() {
 		if time.Now().After(deadline) {
 			t.Fatal("shelf of a stalled unit did not expire")
