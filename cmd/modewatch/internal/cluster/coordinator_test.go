@@ -135,9 +135,12 @@ func balanced(w *world, units []string, ids []string, n int) bool {
 
 // TestCoordinatorFailover: three instances spread 12 units 4 each; when
 // one dies (no hand-over, its leases expire) the two others take its units
-// within 3 TTL, and no unit that was on a survivor moves.
+// within 3 TTL, and no unit that was on a survivor moves. The TTL is 5 s:
+// a survivor renews every TTL/3 within TTL/2 and gives its units up when
+// it could not for 2/3 TTL, so with a TTL of a second a loaded machine
+// could delay a survivor's round enough to move its units too.
 func TestCoordinatorFailover(t *testing.T) {
-	const ttl = time.Second
+	const ttl = 5 * time.Second
 	reg, open := newRegistry(t, ttl)
 	units := names("unit", 12)
 	w := newWorld(t)
@@ -145,7 +148,7 @@ func TestCoordinatorFailover(t *testing.T) {
 	cs := map[string]*runningCoord{"a": startCoord(t, reg, w, "a", units)}
 	cs["b"] = startCoord(t, open(), w, "b", units)
 	cs["c"] = startCoord(t, open(), w, "c", units)
-	waitFor(t, 10*time.Second, "12 units spread 4 each", func() bool { return balanced(w, units, ids, 4) })
+	waitFor(t, time.Minute, "12 units spread 4 each", func() bool { return balanced(w, units, ids, 4) })
 	before := w.snapshot()
 	w.mu.Lock()
 	w.moves = 0
@@ -173,7 +176,7 @@ func TestCoordinatorFailover(t *testing.T) {
 }
 
 // TestCoordinatorHandOver: a graceful stop hands the units over at once:
-// with a TTL of one minute, the others take them within seconds, which
+// with a TTL of one minute, the others take them within half of it, which
 // only the hand-over can explain; a joining instance gets its share, the
 // fewest moves the balance allows.
 func TestCoordinatorHandOver(t *testing.T) {
@@ -183,18 +186,18 @@ func TestCoordinatorHandOver(t *testing.T) {
 	w := newWorld(t)
 	a := startCoord(t, reg, w, "a", units)
 	b := startCoord(t, open(), w, "b", units)
-	waitFor(t, 10*time.Second, "12 units spread 6 each", func() bool { return balanced(w, units, []string{"a", "b"}, 6) })
+	waitFor(t, ttl/2, "12 units spread 6 each", func() bool { return balanced(w, units, []string{"a", "b"}, 6) })
 
 	w.mu.Lock()
 	w.moves = 0
 	w.mu.Unlock()
 	startCoord(t, open(), w, "c", units)
-	waitFor(t, 10*time.Second, "a joining instance gets 4 units", func() bool { return balanced(w, units, []string{"a", "b", "c"}, 4) })
+	waitFor(t, ttl/2, "a joining instance gets 4 units", func() bool { return balanced(w, units, []string{"a", "b", "c"}, 4) })
 	if m := w.moved(); m != 4 {
 		t.Errorf("%d units moved when c joined, want 4", m)
 	}
 
-	ctx, cancel := context.WithTimeout(context.Background(), 10*time.Second)
+	ctx, cancel := context.WithTimeout(context.Background(), ttl/2)
 	defer cancel()
 	if err := b.c.Stop(ctx); err != nil {
 		t.Fatal(err)
@@ -202,8 +205,8 @@ func TestCoordinatorHandOver(t *testing.T) {
 	if err := b.c.Stop(ctx); err != nil { // idempotent
 		t.Fatal(err)
 	}
-	waitFor(t, 10*time.Second, "b's units handed over before the TTL", func() bool { return balanced(w, units, []string{"a", "c"}, 6) })
-	waitFor(t, 10*time.Second, "a's status shows a and c owning every unit", func() bool {
+	waitFor(t, ttl/2, "b's units handed over before the TTL", func() bool { return balanced(w, units, []string{"a", "c"}, 6) })
+	waitFor(t, ttl/2, "a's status shows a and c owning every unit", func() bool {
 		st := a.c.Status()
 		if len(st.Members) != 2 || len(st.Units) != 12 {
 			return false
