@@ -171,7 +171,7 @@ func TestKillRestart(t *testing.T) {
 		if _, err := part.Live(context.Background(), nc, "modewatch", 1e9); err != nil {
 			t.Fatal(err)
 		}
-		for deadline := time.Now().Add(20 * time.Second); ; time.Sleep(20 * time.Millisecond) {
+		for deadline := time.Now().Add(time.Minute); ; time.Sleep(20 * time.Millisecond) {
 			info, err := js.StreamInfo("READINGS")
 			if err == nil && info.State.Msgs == uint64(total) {
 				break
@@ -503,6 +503,41 @@ func owners(t *testing.T, js jetstream.JetStream, group string) map[string]strin
 	return out
 }
 
+// watchReleases watches a group's unit leases from now on and reports
+// whether a unit's lease was deleted, which only its holder's release
+// does: a lease left to expire is removed by the bucket's TTL, with no
+// delete (a purge marker at most).
+func watchReleases(t *testing.T, js jetstream.JetStream, group string) func(unit string) bool {
+	t.Helper()
+	ctx, cancel := context.WithCancel(context.Background())
+	t.Cleanup(cancel)
+	kv, err := js.KeyValue(ctx, group+"_leases")
+	if err != nil {
+		t.Fatal(err)
+	}
+	w, err := kv.Watch(ctx, "unit.*", jetstream.UpdatesOnly())
+	if err != nil {
+		t.Fatal(err)
+	}
+	var mu sync.Mutex
+	seen := map[string]bool{}
+	go func() { // ends when Stop closes the updates
+		for e := range w.Updates() {
+			if e != nil && e.Operation() == jetstream.KeyValueDelete {
+				mu.Lock()
+				seen[strings.TrimPrefix(e.Key(), "unit.")] = true
+				mu.Unlock()
+			}
+		}
+	}()
+	t.Cleanup(func() { _ = w.Stop() })
+	return func(unit string) bool {
+		mu.Lock()
+		defer mu.Unlock()
+		return seen[unit]
+	}
+}
+
 // until polls cond every 50 ms until it holds or within passes.
 func until(t *testing.T, within time.Duration, what string, cond func() bool) time.Duration {
 	t.Helper()
@@ -726,6 +761,7 @@ func TestClusterFailover(t *testing.T) {
 	pub2 := publish(part2, 10*time.Second)
 	waitScores(len(units)*(want1+part2.Samples()/3), "part 2 before the graceful stop")
 	leaving, staying := inst[survivors[0]], inst[survivors[1]]
+	released := watchReleases(t, js, "mw")
 	before := owners(t, js, "mw")
 	t0 := time.Now()
 	leaving.stop(t)
@@ -740,8 +776,14 @@ func TestClusterFailover(t *testing.T) {
 	})
 	t.Logf("graceful stop of %s (owners %v): every unit on %s %v after the stop began, %v after it ended (lease TTL %v)",
 		leaving.name, before, staying.name, time.Since(t0).Round(100*time.Millisecond), handed.Round(100*time.Millisecond), ttl)
-	if handed >= ttl {
-		t.Errorf("hand-over took %v after the stop, not shorter than the lease TTL %v", handed, ttl)
+	// Handed over, not left to expire: the leaving instance deleted each
+	// of its leases (an expired lease leaves no delete in the bucket). A
+	// check on the hand-over's duration against the TTL would depend on
+	// how loaded the machine is.
+	for _, u := range units {
+		if before[u] == leaving.name {
+			until(t, time.Minute, "the release of unit "+u+" by "+leaving.name, func() bool { return released(u) })
+		}
 	}
 	if err := <-pub2; err != nil {
 		t.Fatal(err)

@@ -333,6 +333,9 @@ const slowAfter = 2 * time.Minute
 
 // slowWatch names settings whose replay runs longer than after, once each.
 type slowWatch struct {
+	out     io.Writer
+	after   time.Duration
+	now     func() time.Time // the clock of begin (tests set it)
 	mu      sync.Mutex
 	running map[string]time.Time
 	told    map[string]bool
@@ -341,7 +344,7 @@ type slowWatch struct {
 }
 
 func newSlowWatch(env IO, quiet bool, after time.Duration) *slowWatch {
-	w := &slowWatch{running: map[string]time.Time{}, told: map[string]bool{}, quit: make(chan struct{})}
+	w := &slowWatch{out: env.Err, after: after, now: time.Now, running: map[string]time.Time{}, told: map[string]bool{}, quit: make(chan struct{})}
 	if quiet {
 		return w
 	}
@@ -355,25 +358,31 @@ func newSlowWatch(env IO, quiet bool, after time.Duration) *slowWatch {
 			case <-w.quit:
 				return
 			case now := <-t.C:
-				w.mu.Lock()
-				for name, since := range w.running {
-					if d := now.Sub(since); d >= after && !w.told[name] {
-						w.told[name] = true
-						fmt.Fprintf(env.Err, "tune: still replaying %s after %s\n", name, d.Round(time.Second))
-					}
-				}
-				w.mu.Unlock()
+				w.check(now)
 			}
 		}
 	}()
 	return w
 }
 
+// check names, once each, the settings running for after or longer at
+// now.
+func (w *slowWatch) check(now time.Time) {
+	w.mu.Lock()
+	defer w.mu.Unlock()
+	for name, since := range w.running {
+		if d := now.Sub(since); d >= w.after && !w.told[name] {
+			w.told[name] = true
+			fmt.Fprintf(w.out, "tune: still replaying %s after %s\n", name, d.Round(time.Second))
+		}
+	}
+}
+
 // begin notes that the setting called name starts; the returned func
 // notes its end.
 func (w *slowWatch) begin(name string) func() {
 	w.mu.Lock()
-	w.running[name] = time.Now()
+	w.running[name] = w.now()
 	w.mu.Unlock()
 	return func() {
 		w.mu.Lock()

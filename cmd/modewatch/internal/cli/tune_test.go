@@ -256,24 +256,49 @@ func TestDemoTune(t *testing.T) {
 }
 
 // TestSlowWatch: a setting running past the threshold is named once on
-// standard error; one that ends in time is not.
+// standard error; one that ends in time is not, and none is named before
+// the threshold. The watch's clock is the test's here (its ticker is an
+// hour away), so that a pause of the test goroutine on a loaded machine
+// cannot make the quick setting run late; then the ticker itself names a
+// slow setting, once.
 func TestSlowWatch(t *testing.T) {
 	var errb testkit.SyncBuffer
-	w := newSlowWatch(IO{Err: &errb}, false, 20*time.Millisecond)
+	const after = time.Hour
+	w := newSlowWatch(IO{Err: &errb}, false, after)
+	t0 := time.Date(2026, 3, 9, 6, 0, 0, 0, time.UTC)
+	clock := t0
+	w.now = func() time.Time { return clock }
 	quick := w.begin("alpha=0.01")
-	quick()
 	done := w.begin("sparsity=l0:3")
-	deadline := time.Now().Add(5 * time.Second)
-	for !strings.Contains(errb.String(), "still replaying sparsity=l0:3") {
+	w.check(t0.Add(after - time.Nanosecond))
+	if s := errb.String(); s != "" {
+		t.Errorf("named before the threshold: %q", s)
+	}
+	quick()
+	for k := range 4 { // the threshold, then three more ticks: no repeat
+		w.check(t0.Add(after + time.Duration(k)*after/4))
+	}
+	done()
+	w.stop()
+	if s := errb.String(); strings.Count(s, "still replaying sparsity=l0:3 after 1h0m0s") != 1 || strings.Count(s, "still replaying") != 1 || strings.Contains(s, "alpha") {
+		t.Errorf("stderr %q", s)
+	}
+
+	// The ticker: a setting running past 20 ms is named, once.
+	var errb2 testkit.SyncBuffer
+	w2 := newSlowWatch(IO{Err: &errb2}, false, 20*time.Millisecond)
+	done2 := w2.begin("sparsity=l0:3")
+	deadline := time.Now().Add(time.Minute)
+	for !strings.Contains(errb2.String(), "still replaying sparsity=l0:3") {
 		if time.Now().After(deadline) {
-			t.Fatalf("no report of the slow setting: %q", errb.String())
+			t.Fatalf("no report of the slow setting: %q", errb2.String())
 		}
 		time.Sleep(5 * time.Millisecond)
 	}
-	time.Sleep(60 * time.Millisecond) // three more ticks: no repeat
-	done()
-	w.stop()
-	if s := errb.String(); strings.Count(s, "still replaying") != 1 || strings.Contains(s, "alpha") {
+	time.Sleep(60 * time.Millisecond) // room for three more ticks, which must not repeat it
+	done2()
+	w2.stop()
+	if s := errb2.String(); strings.Count(s, "still replaying") != 1 {
 		t.Errorf("stderr %q", s)
 	}
 }

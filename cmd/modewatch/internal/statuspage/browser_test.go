@@ -174,6 +174,9 @@ func smallPNG(t *testing.T, b []byte) []byte {
 	return buf.Bytes()
 }
 
+// poll waits until expr holds in the page; timeout is a hang bound (a
+// minute in these tests: the page, the service and the publisher share a
+// loaded machine).
 func poll(t *testing.T, ctx context.Context, what, expr string, timeout time.Duration) {
 	t.Helper()
 	if _, err := chromedp.Run(ctx, chromedp.Poll[bool](expr, chromedp.WithPollingInterval(20*time.Millisecond), chromedp.WithPollingTimeout(timeout))); err != nil {
@@ -413,7 +416,7 @@ func TestBrowserDemo(t *testing.T) {
 	var units []struct {
 		Name string `json:"name"`
 	}
-	deadline := time.Now().Add(30 * time.Second)
+	deadline := time.Now().Add(time.Minute)
 	for len(units) < len(sc.Units) && time.Now().Before(deadline) {
 		apiJSON(t, base, "/api/units", readerToken, &units)
 		time.Sleep(50 * time.Millisecond)
@@ -421,7 +424,7 @@ func TestBrowserDemo(t *testing.T) {
 	if len(units) != len(sc.Units) {
 		t.Fatalf("the API lists %d units, the demo plant has %d", len(units), len(sc.Units))
 	}
-	poll(t, reader, "plant view lists every unit", fmt.Sprintf(`document.querySelectorAll("#units .urow[data-unit]").length === %d`, len(units)), 20*time.Second)
+	poll(t, reader, "plant view lists every unit", fmt.Sprintf(`document.querySelectorAll("#units .urow[data-unit]").length === %d`, len(units)), time.Minute)
 	shown := eval[[]string](t, reader, `[...document.querySelectorAll("#units .urow[data-unit]")].map(r => r.dataset.unit).sort()`)
 	for i, u := range units {
 		if shown[i] != u.Name {
@@ -449,14 +452,28 @@ func TestBrowserDemo(t *testing.T) {
 	if id == "" {
 		t.Fatal("no incident on steam in /api/alerts within a minute of the fault")
 	}
+	// Within three update intervals, counted in the page's updates (one
+	// per interval while the plant changes, as it does here): the update
+	// events the page has received when the API shows the incident, and
+	// when the page first draws it, marked as the drawing happens (a
+	// mutation observer runs right after the event's handler). Counted in
+	// wall-clock time instead, a loaded machine (the service, the
+	// publisher and chromium on two cores) could stretch it.
 	seen := time.Now()
-	poll(t, reader, "the faulty unit at the top with its incident",
-		`(() => { const r = document.querySelector("#units .urow[data-unit]"); return !!r && r.dataset.unit === "steam" && !!r.querySelector(".incs .sev"); })()`,
-		10*time.Second)
+	_ = eval[bool](t, reader, `(() => {
+		const shown = () => { const r = document.querySelector("#units .urow[data-unit]"); return !!r && r.dataset.unit === "steam" && !!r.querySelector(".incs .sev"); };
+		const mark = () => { if (window.shownAtEvent === undefined && shown()) window.shownAtEvent = Number(document.body.dataset.events || "0"); };
+		window.eventsAtAPI = Number(document.body.dataset.events || "0");
+		mark();
+		new MutationObserver(mark).observe(document.body, { subtree: true, childList: true, attributes: true, characterData: true });
+		return true;
+	})()`)
+	poll(t, reader, "the faulty unit at the top with its incident", `window.shownAtEvent !== undefined`, time.Minute)
 	lag := time.Since(seen)
-	t.Logf("incident in /api/alerts → steam at the top of the page with it: %s (update interval %s)", lag.Round(time.Millisecond), statuspage.DefaultInterval)
-	if lag > 3*statuspage.DefaultInterval {
-		t.Errorf("the page showed the incident %s after the API, more than three update intervals", lag)
+	updates := eval[float64](t, reader, `window.shownAtEvent - window.eventsAtAPI`)
+	t.Logf("incident in /api/alerts → steam at the top of the page with it: %v updates later, %s (update interval %s)", updates, lag.Round(time.Millisecond), statuspage.DefaultInterval)
+	if updates > 3 {
+		t.Errorf("the page showed the incident %v updates after the API, more than three update intervals", updates)
 	}
 	screenshot(t, reader, "plant", true)
 
@@ -465,21 +482,21 @@ func TestBrowserDemo(t *testing.T) {
 	rl.drop()
 	poll(t, reader, "events again after the connections were dropped",
 		fmt.Sprintf(`window.loadedOnce === true && Number(document.body.dataset.events) > %s && document.getElementById("live").dataset.state === "live"`, before),
-		20*time.Second)
+		time.Minute)
 
 	// The reader: the incident is listed with no action buttons, and the
 	// API refuses the reader's acknowledgement.
 	hash(t, reader, "#/incidents")
-	poll(t, reader, "reader's incidents view", fmt.Sprintf(`!!document.querySelector('tr[data-id=%q]')`, id), 10*time.Second)
+	poll(t, reader, "reader's incidents view", fmt.Sprintf(`!!document.querySelector('tr[data-id=%q]')`, id), time.Minute)
 	if n := eval[int](t, reader, `document.querySelectorAll("button[data-act]").length`); n != 0 {
 		t.Errorf("the reader sees %d action buttons", n)
 	}
 	// The filters: another unit or another severity hides the incident.
 	for _, f := range [][2]string{{"f-unit", "air"}, {"f-sev", "low"}} {
 		_ = eval[bool](t, reader, fmt.Sprintf(`(() => { const s = document.getElementById(%q); s.value = %q; s.dispatchEvent(new Event("change")); return true; })()`, f[0], f[1]))
-		poll(t, reader, "filter "+f[0]+" = "+f[1]+" hides the incident", fmt.Sprintf(`!document.querySelector('tr[data-id=%q]')`, id), 5*time.Second)
+		poll(t, reader, "filter "+f[0]+" = "+f[1]+" hides the incident", fmt.Sprintf(`!document.querySelector('tr[data-id=%q]')`, id), time.Minute)
 		_ = eval[bool](t, reader, fmt.Sprintf(`(() => { const s = document.getElementById(%q); s.value = ""; s.dispatchEvent(new Event("change")); return true; })()`, f[0]))
-		poll(t, reader, "filter "+f[0]+" cleared shows the incident", fmt.Sprintf(`!!document.querySelector('tr[data-id=%q]')`, id), 5*time.Second)
+		poll(t, reader, "filter "+f[0]+" cleared shows the incident", fmt.Sprintf(`!!document.querySelector('tr[data-id=%q]')`, id), time.Minute)
 	}
 	body := fmt.Sprintf(`{"alert_id":%q,"by":"viewer"}`, id)
 	req, _ := http.NewRequest("POST", base+"/api/alerts/ack", strings.NewReader(body))
@@ -495,7 +512,7 @@ func TestBrowserDemo(t *testing.T) {
 	confirmAction(t, writer, ack, "comment", "seen on the local gauge")
 	poll(t, writer, "the incident acknowledged by the writer in the page",
 		fmt.Sprintf(`(() => { const r = document.querySelector('tr[data-id=%q]'); return !!r && r.dataset.state === "acknowledged" && r.textContent.includes("acknowledged by %s"); })()`, id, writerName),
-		10*time.Second)
+		time.Minute)
 	screenshot(t, writer, "incidents", true)
 	var open []alerts.Record
 	apiJSON(t, base, "/api/alerts", readerToken, &open)
@@ -511,9 +528,9 @@ func TestBrowserDemo(t *testing.T) {
 
 	// The unit view of the faulty unit, its incident with contributors.
 	hash(t, writer, "#/unit/"+faulty)
-	poll(t, writer, "unit view with charts and contributors", `document.querySelectorAll(".chart svg").length >= 2 && !!document.querySelector("table.contributors td")`, 10*time.Second)
+	poll(t, writer, "unit view with charts and contributors", `document.querySelectorAll(".chart svg").length >= 2 && !!document.querySelector("table.contributors td")`, time.Minute)
 	// The contributors carry their reading, expected value and band.
-	poll(t, writer, "the top contributor's expected value", `/^-?[0-9]/.test(document.querySelector('table.contributors td[data-k="expected"]')?.textContent || "")`, 10*time.Second)
+	poll(t, writer, "the top contributor's expected value", `/^-?[0-9]/.test(document.querySelector('table.contributors td[data-k="expected"]')?.textContent || "")`, time.Minute)
 	if n := eval[int](t, writer, `document.querySelectorAll('button[data-act="maintenance"]').length`); n != 1 {
 		t.Errorf("the writer's unit view has %d maintenance buttons, want 1", n)
 	}
@@ -524,11 +541,11 @@ func TestBrowserDemo(t *testing.T) {
 		t.Fatal(err)
 	}
 	hash(t, reader, "#/")
-	poll(t, reader, "narrow plant view", `document.querySelectorAll("#units .urow[data-unit]").length > 0`, 10*time.Second)
+	poll(t, reader, "narrow plant view", `document.querySelectorAll("#units .urow[data-unit]").length > 0`, time.Minute)
 	noSideways(t, reader, "narrow plant view")
 	screenshot(t, reader, "plant-narrow", true)
 	hash(t, reader, "#/unit/"+faulty)
-	poll(t, reader, "narrow unit view", `document.querySelectorAll(".chart svg").length >= 2`, 10*time.Second)
+	poll(t, reader, "narrow unit view", `document.querySelectorAll(".chart svg").length >= 2`, time.Minute)
 	noSideways(t, reader, "narrow unit view")
 	if n := eval[int](t, reader, `document.querySelectorAll("button[data-act]").length`); n != 0 {
 		t.Errorf("the reader's unit view has %d action buttons", n)
@@ -540,10 +557,10 @@ func TestBrowserDemo(t *testing.T) {
 	hash(t, writer, "#/incidents")
 	accept := fmt.Sprintf(`tr[data-id=%q] button[data-act="accept"]`, id)
 	confirmAction(t, writer, accept, "reason", "new burner setting, approved")
-	poll(t, writer, "the accepted incident leaves the open list", fmt.Sprintf(`!document.querySelector('tr[data-id=%q] button[data-act]')`, id), 10*time.Second)
+	poll(t, writer, "the accepted incident leaves the open list", fmt.Sprintf(`!document.querySelector('tr[data-id=%q] button[data-act]')`, id), time.Minute)
 	var all []alerts.Record
 	accepted := false
-	for deadline := time.Now().Add(10 * time.Second); !accepted && time.Now().Before(deadline); time.Sleep(50 * time.Millisecond) {
+	for deadline := time.Now().Add(time.Minute); !accepted && time.Now().Before(deadline); time.Sleep(50 * time.Millisecond) {
 		apiJSON(t, base, "/api/alerts?all=1", readerToken, &all)
 		for _, r := range all {
 			if r.ID == id && r.Accepted != nil && r.Accepted.By == writerName {
@@ -576,7 +593,7 @@ func TestBrowserLoad(t *testing.T) {
 		if err := chromedp.Do(ctx, chromedp.Navigate(srv.URL+"/?load="+fmt.Sprint(i)+"#/")); err != nil {
 			t.Fatal(err)
 		}
-		poll(t, ctx, "50 units drawn", `document.querySelectorAll("#units .urow[data-unit]").length === 50 && performance.getEntriesByName("modewatch-first-view").length === 1`, 20*time.Second)
+		poll(t, ctx, "50 units drawn", `document.querySelectorAll("#units .urow[data-unit]").length === 50 && performance.getEntriesByName("modewatch-first-view").length === 1`, time.Minute)
 		ms = append(ms, eval[float64](t, ctx, `performance.getEntriesByName("modewatch-first-view")[0].startTime`))
 	}
 	t.Logf("plant view of 50 units / 5,000 channels, navigation start to first complete render: %.0f ms (loads: %.0f)", median(ms), ms)
