@@ -27,7 +27,7 @@ func ExampleNewSet() {
 		Missing: []string{"boiler.drum.level"},
 		Quality: []alerts.Quality{{Channel: "boiler.fw.flow", Kind: alerts.QualityStuck}},
 	})
-	ctx, cancel := context.WithTimeout(context.Background(), 5*time.Second)
+	ctx, cancel := context.WithTimeout(context.Background(), time.Minute)
 	defer cancel()
 	if err := set.Close(ctx); err != nil {
 		panic(err)

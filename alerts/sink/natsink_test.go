@@ -230,7 +230,7 @@ func TestCoreNATS(t *testing.T) {
 		s.Submit(m)
 	}
 	for i := range ms {
-		m, err := sub.NextMsg(5 * time.Second)
+		m, err := sub.NextMsg(time.Minute)
 		if err != nil {
 			t.Fatal(err)
 		}

@@ -62,10 +62,11 @@ func (d *testDest) ids() []string {
 	return slices.Clone(d.got)
 }
 
-// waitFor polls cond until it holds or the deadline passes.
+// waitFor polls cond until it holds or the deadline passes (a hang
+// bound: a minute).
 func waitFor(t *testing.T, what string, cond func() bool) {
 	t.Helper()
-	deadline := time.Now().Add(10 * time.Second)
+	deadline := time.Now().Add(time.Minute)
 	for !cond() {
 		if time.Now().After(deadline) {
 			t.Fatalf("timed out waiting for %s", what)
@@ -90,7 +91,7 @@ var fast = Backoff{Initial: time.Millisecond, Max: 5 * time.Millisecond}
 
 func closeNow(t *testing.T, s *Sink) error {
 	t.Helper()
-	ctx, cancel := context.WithTimeout(context.Background(), 5*time.Second)
+	ctx, cancel := context.WithTimeout(context.Background(), time.Minute)
 	defer cancel()
 	return s.Close(ctx)
 }

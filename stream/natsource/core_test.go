@@ -72,7 +72,7 @@ func TestCoreWildcardSubjects(t *testing.T) {
 		t.Fatal(err)
 	}
 	want = append(want, "plant.readings.zz=end")
-	waitFor(t, 5*time.Second, "all matching messages", func() bool { return sub.Stats().Delivered >= uint64(len(want)) })
+	waitFor(t, time.Minute, "all matching messages", func() bool { return sub.Stats().Delivered >= uint64(len(want)) })
 	if err := sub.Stop(ctxT(t, 5*time.Second)); err != nil {
 		t.Fatal(err)
 	}
@@ -145,7 +145,7 @@ func TestCoreOverflowBounded(t *testing.T) {
 	if err := nc.Flush(); err != nil {
 		t.Fatal(err)
 	}
-	waitFor(t, 10*time.Second, "all messages received", func() bool { st := sub.Stats(); return st.Received+st.LibDropped == n })
+	waitFor(t, time.Minute, "all messages received", func() bool { st := sub.Stats(); return st.Received+st.LibDropped == n })
 	st := sub.Stats()
 	// Conservation: 1 in the handler + qMsgs queued + dropped = n.
 	if st.Queued != qMsgs || st.Dropped != n-1-qMsgs || st.Delivered != 1 || st.LibDropped != 0 {
@@ -154,7 +154,7 @@ func TestCoreOverflowBounded(t *testing.T) {
 	if st.QueuedBytes > qBytes {
 		t.Errorf("queued bytes %d above bound %d", st.QueuedBytes, qBytes)
 	}
-	e := ev.wait(t, EventError, 5*time.Second)
+	e := ev.wait(t, EventError, time.Minute)
 	if !errors.Is(e.Err, ErrOverflow) {
 		t.Errorf("overflow event error %v, want ErrOverflow", e.Err)
 	}
@@ -207,7 +207,7 @@ func TestCoreOverflowBytes(t *testing.T) {
 	if err := nc.Flush(); err != nil {
 		t.Fatal(err)
 	}
-	waitFor(t, 10*time.Second, "all received", func() bool { st := sub.Stats(); return st.Received+st.LibDropped == 101 })
+	waitFor(t, time.Minute, "all received", func() bool { st := sub.Stats(); return st.Received+st.LibDropped == 101 })
 	st := sub.Stats()
 	// 10 000 bytes of queue hold exactly 10 messages of 1000 bytes; the
 	// client library's list has the same byte bound, so the 90 others are
@@ -251,9 +251,9 @@ func TestCoreAcrossServerRestart(t *testing.T) {
 	defer sub.Stop(ctxT(t, 5*time.Second))
 	s1.Shutdown()
 	s1.WaitForShutdown()
-	ev.wait(t, EventDisconnected, 10*time.Second)
+	ev.wait(t, EventDisconnected, time.Minute)
 	s2 := natstest.Restart(t, s1, opts)
-	ev.wait(t, EventReconnected, 20*time.Second)
+	ev.wait(t, EventReconnected, time.Minute)
 	pub, err := Connect(ctxT(t, 5*time.Second), Options{URLs: []string{s2.ClientURL()}}, nil)
 	if err != nil {
 		t.Fatal(err)
@@ -273,7 +273,7 @@ func TestCoreAcrossServerRestart(t *testing.T) {
 		if m != "after" {
 			t.Errorf("got %q", m)
 		}
-	case <-time.After(10 * time.Second):
+	case <-time.After(time.Minute):
 		t.Fatal("no message after the restart")
 	}
 }

@@ -42,7 +42,7 @@ func TestEmbeddedJetStreamPersists(t *testing.T) {
 	for range 3 {
 		select {
 		case <-got:
-		case <-time.After(10 * time.Second):
+		case <-time.After(time.Minute):
 			t.Fatal("message not consumed")
 		}
 	}

@@ -186,7 +186,7 @@ func (p *process) checkpointLocked() checkpoint {
 // waitSeq waits until the message with stream sequence seq is fed.
 func (p *process) waitSeq(t *testing.T, seq uint64) {
 	t.Helper()
-	timer := time.NewTimer(20 * time.Second)
+	timer := time.NewTimer(time.Minute)
 	defer timer.Stop()
 	for {
 		select {
@@ -228,7 +228,7 @@ func TestIntakeJetStreamRestart(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	ctx, cancel := context.WithTimeout(context.Background(), 30*time.Second)
+	ctx, cancel := context.WithTimeout(context.Background(), 2*time.Minute)
 	defer cancel()
 	for k := 0; k <= n; k++ {
 		if _, err := js.Publish(ctx, "plant.readings.coolwater", e2ePayload(k, n)); err != nil {
@@ -297,7 +297,7 @@ func TestIntakeJetStreamRestart(t *testing.T) {
 	first.mu.Unlock()
 
 	// Every message acknowledged on the server.
-	deadline := time.Now().Add(10 * time.Second)
+	deadline := time.Now().Add(time.Minute)
 	for {
 		ci, err := p2.cons.Info(ctx)
 		if err == nil && ci.AckFloor.Stream == n+1 && ci.NumAckPending == 0 {

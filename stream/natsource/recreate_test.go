@@ -52,25 +52,25 @@ func TestJetStreamRecreate(t *testing.T) {
 	}
 	nc := c.NATS()
 	publishN(t, nc, "rd.a", 1, 10)
-	waitFor(t, 10*time.Second, "10 messages", handled(10))
+	waitFor(t, time.Minute, "10 messages", handled(10))
 
 	js, _ := jetstream.New(nc)
 	if err := js.DeleteConsumer(ctxT(t, 5*time.Second), "RD", "mw"); err != nil {
 		t.Fatal(err)
 	}
 	publishN(t, nc, "rd.a", 11, 30) // held by the stream while the consumer is gone
-	waitFor(t, 20*time.Second, "30 messages after the consumer was recreated", handled(30))
+	waitFor(t, time.Minute, "30 messages after the consumer was recreated", handled(30))
 
 	if err := js.DeleteStream(ctxT(t, 5*time.Second), "RD"); err != nil {
 		t.Fatal(err)
 	}
-	waitFor(t, 20*time.Second, "the stream recreated", func() bool {
+	waitFor(t, time.Minute, "the stream recreated", func() bool {
 		mu.Lock()
 		defer mu.Unlock()
 		return len(events) == 2
 	})
 	publishN(t, nc, "rd.a", 31, 40)
-	waitFor(t, 20*time.Second, "40 messages after the stream was recreated", handled(40))
+	waitFor(t, time.Minute, "40 messages after the stream was recreated", handled(40))
 
 	mu.Lock()
 	defer mu.Unlock()
