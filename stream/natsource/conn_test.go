@@ -125,7 +125,7 @@ func TestRetryOnFailedConnect(t *testing.T) {
 	o := natstest.JetStreamOptions(t)
 	o.Port = port
 	natstest.Run(t, o)
-	e := ev.wait(t, EventConnected, 10*time.Second)
+	e := ev.wait(t, EventConnected, time.Minute)
 	if c.State() != StateConnected || !strings.Contains(e.URL, fmt.Sprint(port)) {
 		t.Errorf("state %v, event %+v", c.State(), e)
 	}
