@@ -163,6 +163,10 @@ http: {listen: "127.0.0.1:0", large_requests: 1}`)
 	case <-time.After(hangBound):
 		t.Fatal("first upload not answered")
 	}
+	// The handler frees its slot as it returns, which may be just after
+	// the client has the answer: wait for that, not for the 1 s a request
+	// waits for a slot, which a loaded machine could outlast.
+	waitUntil(t, hangBound, "the first upload's slot freed", func() bool { return len(svc.large) == 0 })
 	if code, _ := do(t, http.DefaultClient, "PUT", url, "", `{}`); code == http.StatusTooManyRequests {
 		t.Error("upload after the first ended still refused as busy")
 	}
