@@ -43,22 +43,29 @@ func freePort(t testing.TB) int {
 // StartCluster runs n JetStream servers (n ≥ 3 for replicas 3) in one
 // cluster, each with its store in a temporary directory, and waits until
 // the cluster can create a stream with n replicas (bounded by ReadyTimeout
-// per attempt, 60 s in all). The servers stop when the test ends.
+// per attempt, 60 s in all). The servers stop when the test ends. The
+// route ports are found free before the servers start, so another process
+// may take one in between: then the servers started are stopped and the
+// cluster is started again on new ports (three attempts).
 func StartCluster(t testing.TB, n int) *Cluster {
 	t.Helper()
-	ports := make([]int, n)
-	var routes []*url.URL
-	for i := range ports {
-		ports[i] = freePort(t)
-		routes = append(routes, &url.URL{Scheme: "nats-route", Host: fmt.Sprintf("127.0.0.1:%d", ports[i])})
-	}
 	c := &Cluster{}
-	for i := 0; i < n; i++ {
-		o := JetStreamOptions(t)
-		o.ServerName = fmt.Sprintf("s%d", i+1)
-		o.Cluster = server.ClusterOpts{Name: "natstest", Host: "127.0.0.1", Port: ports[i]}
-		o.Routes = routes
-		c.Servers = append(c.Servers, Run(t, o))
+	for attempt := 1; ; attempt++ {
+		servers, err := startCluster(t, n)
+		if err == nil {
+			c.Servers = servers
+			break
+		}
+		if attempt == 3 {
+			t.Fatalf("natstest: cluster of %d: %v", n, err)
+		}
+		t.Logf("natstest: cluster of %d did not start (a port found free was taken meanwhile?); again on new ports: %v", n, err)
+	}
+	for _, s := range c.Servers {
+		t.Cleanup(func() {
+			s.Shutdown()
+			s.WaitForShutdown()
+		})
 	}
 	nc, err := nats.Connect(c.URLs())
 	if err != nil {
@@ -87,4 +94,32 @@ func StartCluster(t testing.TB, n int) *Cluster {
 		}
 		<-tick.C
 	}
+}
+
+// startCluster starts n servers joined by routes on free loopback ports;
+// if one does not start, it stops the others and returns why.
+func startCluster(t testing.TB, n int) ([]*server.Server, error) {
+	ports := make([]int, n)
+	var routes []*url.URL
+	for i := range ports {
+		ports[i] = freePort(t)
+		routes = append(routes, &url.URL{Scheme: "nats-route", Host: fmt.Sprintf("127.0.0.1:%d", ports[i])})
+	}
+	var servers []*server.Server
+	for i := 0; i < n; i++ {
+		o := JetStreamOptions(t)
+		o.ServerName = fmt.Sprintf("s%d", i+1)
+		o.Cluster = server.ClusterOpts{Name: "natstest", Host: "127.0.0.1", Port: ports[i]}
+		o.Routes = routes
+		s, err := start(o)
+		if err != nil {
+			for _, s := range servers {
+				s.Shutdown()
+				s.WaitForShutdown()
+			}
+			return nil, fmt.Errorf("server s%d (route port %d): %w", i+1, ports[i], err)
+		}
+		servers = append(servers, s)
+	}
+	return servers, nil
 }

@@ -9,6 +9,7 @@
 package natstest
 
 import (
+	"fmt"
 	"net/url"
 	"strconv"
 	"testing"
@@ -43,19 +44,32 @@ func JetStreamOptions(t testing.TB) *server.Options {
 // test ends. It fails the test if the server cannot start.
 func Run(t testing.TB, opts *server.Options) *server.Server {
 	t.Helper()
-	s, err := server.NewServer(opts)
+	s, err := start(opts)
 	if err != nil {
-		t.Fatalf("natstest: new server: %v", err)
+		t.Fatal(err)
 	}
-	go s.Start()
 	t.Cleanup(func() {
 		s.Shutdown()
 		s.WaitForShutdown()
 	})
-	if !s.ReadyForConnections(ReadyTimeout) {
-		t.Fatalf("natstest: server not ready within %v", ReadyTimeout)
-	}
 	return s
+}
+
+// start starts a server with opts and waits up to ReadyTimeout for it to
+// accept clients (and routes, when it has a cluster port); a server that
+// does not get there is shut down and its reason returned.
+func start(opts *server.Options) (*server.Server, error) {
+	s, err := server.NewServer(opts)
+	if err != nil {
+		return nil, fmt.Errorf("natstest: new server: %w", err)
+	}
+	go s.Start()
+	if !s.ReadyForConnections(ReadyTimeout) {
+		s.Shutdown()
+		s.WaitForShutdown()
+		return nil, fmt.Errorf("natstest: server not ready within %v", ReadyTimeout)
+	}
+	return s, nil
 }
 
 // Start runs a core NATS server (no JetStream) for the test.

@@ -54,28 +54,50 @@ func externalServer(t *testing.T) (bin, version string) {
 func TestExternalOldestServer(t *testing.T) {
 	bin, version := externalServer(t)
 	t.Logf("external server %s, version %s", bin, version)
-	ln, err := net.Listen("tcp", "127.0.0.1:0")
-	if err != nil {
-		t.Fatal(err)
-	}
-	port := ln.Addr().(*net.TCPAddr).Port
-	ln.Close()
+	// The server's port is found free before it starts, so another
+	// process may take it in between: the server then exits, and is
+	// started again on another port.
 	dir := t.TempDir()
-	var logs bytes.Buffer
-	cmd := exec.Command(bin, "-a", "127.0.0.1", "-p", strconv.Itoa(port), "-js", "-sd", filepath.Join(dir, "js"))
-	cmd.Stdout, cmd.Stderr = &logs, &logs
-	if err := cmd.Start(); err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(func() { cmd.Process.Kill(); cmd.Wait() })
-	url := fmt.Sprintf("nats://127.0.0.1:%d", port)
-	waitUntil(t, hangBound, "external server accepting connections", func() bool {
-		nc, err := nats.Connect(url)
-		if err == nil {
-			nc.Close()
+	var url string
+	for attempt := 1; ; attempt++ {
+		ln, err := net.Listen("tcp", "127.0.0.1:0")
+		if err != nil {
+			t.Fatal(err)
 		}
-		return err == nil
-	})
+		port := ln.Addr().(*net.TCPAddr).Port
+		ln.Close()
+		logs := new(testkit.SyncBuffer)
+		cmd := exec.Command(bin, "-a", "127.0.0.1", "-p", strconv.Itoa(port), "-js", "-sd", filepath.Join(dir, "js"))
+		cmd.Stdout, cmd.Stderr = logs, logs
+		if err := cmd.Start(); err != nil {
+			t.Fatal(err)
+		}
+		exited := make(chan struct{})
+		go func() { cmd.Wait(); close(exited) }()
+		t.Cleanup(func() { cmd.Process.Kill(); <-exited })
+		url = fmt.Sprintf("nats://127.0.0.1:%d", port)
+		up := false
+		waitUntil(t, hangBound, "external server accepting connections or gone", func() bool {
+			select {
+			case <-exited:
+				return true
+			default:
+			}
+			nc, err := nats.Connect(url)
+			if err == nil {
+				nc.Close()
+				up = true
+			}
+			return up
+		})
+		if up {
+			break
+		}
+		if attempt == 3 {
+			t.Fatalf("external server on port %d exited: %s", port, logs.Bytes())
+		}
+		t.Logf("external server on port %d exited (the port taken meanwhile?), another port: %s", port, logs.Bytes())
+	}
 	cfg := serviceConfig(t, `server: {urls: [`+url+`]}
 intake: {jetstream: {stream: READINGS, max_age: 1h, max_bytes: 67108864}}
 http: {listen: "127.0.0.1:0"}`)
