@@ -51,12 +51,25 @@ func childMain(args []string) int {
 // scoreLog keeps the score lines seen on the scores subject by unit and
 // frame time.
 type scoreLog struct {
-	mu    sync.Mutex
-	seen  map[string][]string // "unit time" -> every line published for it
-	total int
+	mu     sync.Mutex
+	seen   map[string][]string // "unit time" -> every line published for it
+	total  int
+	marked map[string]bool // markers of settle handled
 }
 
+// markSubject carries settle's markers on the score subscription.
+const markSubject = "modewatch.scores.test-marker"
+
 func (s *scoreLog) add(m *nats.Msg) {
+	if m.Subject == markSubject {
+		s.mu.Lock()
+		if s.marked == nil {
+			s.marked = map[string]bool{}
+		}
+		s.marked[string(m.Data)] = true
+		s.mu.Unlock()
+		return
+	}
 	f := strings.Fields(string(m.Data))
 	if len(f) < 3 {
 		return
@@ -66,6 +79,27 @@ func (s *scoreLog) add(m *nats.Msg) {
 	s.seen[k] = append(s.seen[k], string(m.Data))
 	s.total++
 	s.mu.Unlock()
+}
+
+// settle returns once the score subscription on nc has handled every line
+// a stopped process published: the server queued those lines to nc before
+// that process's connection closed, so they reach nc before the answer to
+// nc's flush, and a marker published after the flush is handled after
+// them (one subscription handles its messages in order).
+func (s *scoreLog) settle(t *testing.T, nc *nats.Conn) {
+	t.Helper()
+	if err := nc.Flush(); err != nil {
+		t.Fatal(err)
+	}
+	id := strconv.FormatInt(time.Now().UnixNano(), 10)
+	if err := nc.Publish(markSubject, []byte(id)); err != nil {
+		t.Fatal(err)
+	}
+	until(t, time.Minute, "the score lines of a stopped run handled", func() bool {
+		s.mu.Lock()
+		defer s.mu.Unlock()
+		return s.marked[id]
+	})
 }
 
 // reset forgets every line and returns what it had.
@@ -268,6 +302,9 @@ func TestKillRestart(t *testing.T) {
 	b = startB()
 	waitScores(4*want, "run b after the restart")
 	stop(b, "run b")
+	// Run b's last lines may still be on their way: the lines compared
+	// below as run a's must be run a's only.
+	scores.settle(t, nc)
 	countB, totalB := scores.distinct(), scores.total
 	linesB := scores.reset()
 
