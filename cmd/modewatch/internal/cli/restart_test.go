@@ -260,7 +260,7 @@ func TestKillRestart(t *testing.T) {
 	// that first holds the last frame may leave the last messages
 	// unacknowledged: wait for the one after it.
 	var firstHeld time.Time
-	for deadline := time.Now().Add(30 * time.Second); ; time.Sleep(20 * time.Millisecond) {
+	for deadline := time.Now().Add(time.Minute); ; time.Sleep(20 * time.Millisecond) {
 		cks, _ := pipeline.ReadCheckpoints(filepath.Join(dataB, "checkpoints"))
 		n := 0
 		var created time.Time
