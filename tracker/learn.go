@@ -26,7 +26,9 @@ func newLearnWork(p, maxR int) *learnWork {
 //     reconstruction from the other channels: the conditional expectation
 //     under the model, ẑ_m = A_mo A_oo⁻¹ z_o, as for missing channels
 //     (Dunia & Qin 1998; Alcalá & Qin 2009), so that the rest of the unit
-//     keeps learning while a fault in the masked channels is not learned;
+//     keeps learning while a fault in the masked channels is not learned
+//     (under the ridge of Config.LearnRidge: by default that of the
+//     residual statistic when the tracker has it, see learnPattern);
 //   - a bounded-influence weight (Huber 1964): with d = √(φ/φ_lim) the
 //     distance of the frame on its unmasked channels (φ and its limit
 //     under the reduced model of the masked pattern), the frame is learned
@@ -84,7 +86,7 @@ func (t *Tracker) StepMasked(dst *Score, x []float64, missing, mask []bool) erro
 // Per frame with k channels masked this costs, beyond Step, the product
 // ẑ_m = H z (k·p multiply-adds), a second scoring under the masked
 // pattern (its φ and limit, O(p + nnz·r)) and the conditional-covariance
-// term; the pattern's H and K come from the cache (lookupPattern), built
+// term; the pattern's H and K come from a cache (learnPattern), built
 // once per refresh and masked set.
 func (t *Tracker) learnFrame(r float64, x []float64, mask []bool, scored bool) ([]float64, float64, error) {
 	if !t.ready {
@@ -106,7 +108,7 @@ func (t *Tracker) learnFrame(r float64, x []float64, mask []bool, scored bool) (
 		} else {
 			t.standardize(w, x, mask)
 		}
-		pt, err := t.mdl.lookupPattern(w.miss, &t.ls, t.cfg.Ridge, t.cfg.PatternCache)
+		pt, err := t.learnPattern(w.miss)
 		if err != nil {
 			return nil, 0, ErrModel
 		}

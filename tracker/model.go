@@ -62,6 +62,8 @@ type model struct {
 	panel  []float64 // p × cholBlock scratch of cholUpper
 	cholOK bool      // chol is the factor of the current A
 
+	learn learnCache // patterns of masked learning on the residual statistic's factor (learnPattern)
+
 	// scratch (maxR-sized)
 	sc1, sc2, sc3, eig []float64
 	ev                 []float64
@@ -226,6 +228,7 @@ func (m *model) setLoadings(pm mat.Matrix) {
 	m.nCache = 0
 	m.next = 0
 	m.cholOK = false
+	m.learn.n, m.learn.next = 0, 0
 }
 
 // orthonormalise writes into the first columns of q the first r loadings

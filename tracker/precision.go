@@ -23,11 +23,16 @@ package tracker
 // Cost k·p² multiply-adds at most (less the zero head of each yₓ); no
 // allocation (the panel scratch of the factorization is reused).
 func (m *model) precisionRows(h []float64, miss []int) {
-	p, k := m.p, len(miss)
+	precisionRowsOf(h, miss, m.chol, m.p, m.panel)
+}
+
+// precisionRowsOf is precisionRows from the upper factor u (row-major
+// p × p, upper triangle) with pbuf its cholBlock·p scratch.
+func precisionRowsOf(h []float64, miss []int, u []float64, p int, pbuf []float64) {
+	k := len(miss)
 	kp := roundUp4(k)
-	u := m.chol
 	h = h[:kp*p]
-	forwardUnit(h, kp, u, p, miss, m.panel)
+	forwardUnit(h, kp, u, p, miss, pbuf)
 	const bs = cholBlock
 	// Backward: U w = y in place, by panels from the bottom (their starts
 	// b1 = p − j·cholBlock, so the kernel's length p − b1 is a multiple of 4).

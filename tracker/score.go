@@ -390,9 +390,17 @@ func cholLower(a []float64, n, lda int) bool {
 // O(|m|p² + |m|²p + |m|³); all storage is the pattern's (preallocated, see
 // newPattern).
 func (m *model) conditional(pt *pattern, ridge float64) error {
+	return m.conditionalOf(pt, m.chol, m.panel, ridge)
+}
+
+// conditionalOf is conditional with the rows Ω_{m,:} taken from u, the
+// upper Cholesky factor of A + εI for this ε = ridge (row-major p × p,
+// upper triangle), panel its cholBlock·p scratch (learnPattern passes the
+// residual statistic's factor).
+func (m *model) conditionalOf(pt *pattern, u, panel []float64, ridge float64) error {
 	k, p := len(pt.miss), m.p
 	h := pt.h[:k*p]
-	m.precisionRows(pt.h, pt.miss)
+	precisionRowsOf(h, pt.miss, u, p, panel)
 	// Ω_mm into the pattern's fac and its Cholesky factor (lower) there.
 	fac := pt.fac[:k*k]
 	for x := 0; x < k; x++ {

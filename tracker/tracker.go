@@ -211,7 +211,9 @@ type Config struct {
 	// TopContrib is the number of ranked contributors reported (default 10).
 	TopContrib int
 	// Ridge ε regularises the correlation, A + εI, when conditioning missing
-	// channels on observed ones (default 1e-6).
+	// channels on observed ones (default 1e-6); masked channels are
+	// conditioned for learning under it too, unless LearnRidge takes the
+	// residual statistic's ε_R instead.
 	Ridge float64
 	// PatternCache bounds the number of missing-channel patterns whose
 	// reduced models are cached between refreshes (default 16); each slot
@@ -237,6 +239,10 @@ type Config struct {
 	// and VarianceLambda the EWMA weight of the variance statistic
 	// (default DefaultVarianceLambda, in (0, 1]).
 	ResidualRidge, VarianceLambda float64
+	// LearnRidge selects the ridge under which StepMasked reconstructs
+	// masked channels for learning (default LearnRidgeResidual: ε_R, from
+	// the residual statistic's factor, when Residual or Variance is on).
+	LearnRidge LearnRidgeRule
 	// RankResidual ranks Score.Contrib by the RBC of the residual
 	// Mahalanobis statistic (with its limit χ²_{1−α}(1)) in frames where
 	// that statistic is further over its limit than the RBC index
@@ -430,6 +436,8 @@ func (c *Config) defaults(p int) error {
 	switch {
 	case c.Lag < 0 || c.Lag > MaxLag:
 		return fmt.Errorf("%w: Lag %d outside 0…%d frames", ErrConfig, c.Lag, MaxLag)
+	case c.LearnRidge != LearnRidgeResidual && c.LearnRidge != LearnRidgeMissing:
+		return fmt.Errorf("%w: LearnRidge %d", ErrConfig, c.LearnRidge)
 	case c.RefreshEvery < 0, c.Batch < 0, c.WarmUp < 2, c.StuckRel < 0, c.TopContrib < 0, c.Ridge < 0, c.PatternCache < 0:
 		return fmt.Errorf("%w: RefreshEvery %d, Batch %d, WarmUp %d, StuckRel %v, TopContrib %d, Ridge %v, PatternCache %d",
 			ErrConfig, c.RefreshEvery, c.Batch, c.WarmUp, c.StuckRel, c.TopContrib, c.Ridge, c.PatternCache)
