@@ -196,19 +196,7 @@ func TestStepMaskedResidualAllocs(t *testing.T) {
 	mask := make([]bool, p)
 	mask[2], mask[9], mask[17] = true, true, true
 	sc.Missing = make([]int, 0, p)
-	if err := tr.StepMasked(&sc, xs[0], nil, mask); err != nil {
-		t.Fatal(err)
-	}
-	if d := mallocsOver(200, func(k int) {
-		if err := tr.StepMasked(&sc, xs[k%64], nil, mask); err != nil {
-			t.Fatal(err)
-		}
-	}); d != 0 {
-		t.Errorf("200 masked frames (25 refreshes) made %d allocations", d)
-	}
-	if sc.LearnWeight == 0 {
-		t.Error("the masked frames were not learned")
-	}
+	maskedMallocs(t, tr, &sc, xs, mask, "200 masked frames (25 refreshes) with the residual statistic")
 	if tr.mdl.own != nil {
 		t.Error("the missing-data model factored A + εI for masked learning")
 	}

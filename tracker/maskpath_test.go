@@ -89,15 +89,24 @@ func TestStepMaskedWideAllocs(t *testing.T) {
 	sc.Missing = make([]int, 0, p)
 	sc.Excluded = make([]int, 0, p)
 	sc.Warming = make([]int, 0, p)
-	if err := tr.StepMasked(&sc, xs[0], nil, mask); err != nil {
+	maskedMallocs(t, tr, &sc, xs, mask, "200 frames with 24 channels masked (25 refreshes)")
+}
+
+// maskedMallocs steps tr through one masked frame (which may size storage
+// once), then checks that 200 more masked frames of xs (64 frames, a
+// refresh every 8 in the callers' trackers) allocate nothing
+// (mallocsOver) and that they were learned; what names them in the error.
+func maskedMallocs(t *testing.T, tr *Tracker, sc *Score, xs [][]float64, mask []bool, what string) {
+	t.Helper()
+	if err := tr.StepMasked(sc, xs[0], nil, mask); err != nil {
 		t.Fatal(err)
 	}
 	if d := mallocsOver(200, func(k int) {
-		if err := tr.StepMasked(&sc, xs[k%64], nil, mask); err != nil {
+		if err := tr.StepMasked(sc, xs[k%64], nil, mask); err != nil {
 			t.Fatal(err)
 		}
 	}); d != 0 {
-		t.Errorf("200 frames with 24 channels masked (25 refreshes) made %d allocations", d)
+		t.Errorf("%s made %d allocations", what, d)
 	}
 	if sc.LearnWeight == 0 {
 		t.Error("the masked frames were not learned")
