@@ -64,8 +64,12 @@ func newBenchTrackerResidual(b *testing.B, sc *Score, p, refreshEvery, batch, wa
 	if shareRidge {
 		ridge = DefaultResidualRidge
 	}
+	learn := LearnRidgeResidual
+	if learnMissing {
+		learn = LearnRidgeMissing
+	}
 	tr, err := New(p, Config{Period: time.Second, HalfLife: time.Hour, WarmUp: 256, RefreshEvery: refreshEvery, Batch: batch,
-		Residual: residual, Ridge: ridge,
+		Residual: residual, Ridge: ridge, LearnRidge: learn,
 		Modes: modes.Config{Count: 5, Sparsity: []modes.Sparsity{{Method: modes.L0, K: 10}}}})
 	if err != nil {
 		b.Fatal(err)
@@ -281,6 +285,22 @@ func BenchmarkFrameResidualMaskedSharedOverDecode(b *testing.B) {
 
 // shareRidge sets Ridge = ResidualRidge in newBenchTrackerResidual.
 var shareRidge bool
+
+// BenchmarkFrameResidualMaskedOwnRidgeOverDecode is
+// BenchmarkFrameResidualMaskedOverDecode with LearnRidge =
+// LearnRidgeMissing: the masked channels are reconstructed for learning
+// under Ridge from the missing-data model's own factor of A + εI, formed
+// at each refresh besides the residual statistic's (the learning before
+// LearnRidgeResidual).
+func BenchmarkFrameResidualMaskedOwnRidgeOverDecode(b *testing.B) {
+	learnMissing = true
+	defer func() { learnMissing = false }()
+	benchOverDecodeResidual(b, -1, 3, true)
+}
+
+// learnMissing sets LearnRidge = LearnRidgeMissing in
+// newBenchTrackerResidual.
+var learnMissing bool
 
 // benchOverDecode runs the interleaved benchmark with channel missing
 // missing (-1: none) and masked channels learned as their reconstruction
