@@ -273,6 +273,12 @@ func BenchmarkFrameResidualOverDecode(b *testing.B) { benchOverDecodeResidual(b,
 // with the residual Mahalanobis statistic on.
 func BenchmarkFrameResidualMaskedOverDecode(b *testing.B) { benchOverDecodeResidual(b, -1, 3, true) }
 
+// BenchmarkFrameResidualMissingOverDecode is BenchmarkFrameMissingOverDecode
+// with the residual statistic on: a frame with a channel missing is scored
+// under Ridge, so each refresh period holds the missing-data model's factor
+// of A + εI besides the residual statistic's (whatever LearnRidge).
+func BenchmarkFrameResidualMissingOverDecode(b *testing.B) { benchOverDecodeResidual(b, 7, 0, true) }
+
 // BenchmarkFrameResidualMaskedSharedOverDecode is
 // BenchmarkFrameResidualMaskedOverDecode with Ridge = ResidualRidge, so that
 // the missing-data model reads the residual statistic's factor
