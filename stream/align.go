@@ -11,7 +11,10 @@ import (
 // Frame is one aligned frame over all known channels (index = channel index
 // in the registry). The aligner reuses it: copy what you keep.
 type Frame struct {
-	Start   time.Time // start of the frame period, event time (UTC)
+	// Start is the frame's time kP, a whole multiple of the period since
+	// the Unix epoch (UTC): the frame holds the readings stamped within
+	// half a period of it, [kP − P/2, kP + P/2) (see Aligner).
+	Start   time.Time
 	Values  []float64 // one per channel, in the channel's engineering unit; NaN where Missing
 	Missing []bool    // true where no valid value within the staleness limit
 	// Times holds the event time (ns since the Unix epoch) of the reading
@@ -25,8 +28,8 @@ type Frame struct {
 // AlignConfig sets the frame alignment. The zero value of each duration
 // means its default.
 type AlignConfig struct {
-	// Period is the frame length; required (> 0). Frames start at integer
-	// multiples of Period since the Unix epoch.
+	// Period is the frame length; required (> 0). Frames are centred on
+	// integer multiples of Period since the Unix epoch (see Aligner).
 	Period time.Duration
 	// Staleness: a channel's latest reading is used in a frame ending at E
 	// while E - t ≤ Staleness; older, it is missing. Default 3 periods.
@@ -111,14 +114,25 @@ type slot struct {
 // Aligner collects readings into frames by event time. It is not safe for
 // concurrent use except Watermark, which any goroutine may call.
 //
-// Frame k covers [kP, (k+1)P) for period P. Its value for channel c is the
-// newest reading of c with timestamp < (k+1)P, if E - t ≤ Staleness;
+// Frame k, at time kP for period P, covers [kP − h, kP − h + P) with
+// h = ⌊P/2⌋: a reading belongs to the frame whose time is nearest its
+// timestamp. Its value for channel c is the newest reading of c with
+// timestamp < E = kP − h + P (the frame's end), if E - t ≤ Staleness;
 // otherwise missing. Frame k is emitted once the newest event time seen is
-// ≥ (k+1)P + Lateness, and always in order; a reading for an emitted frame is
+// ≥ E + Lateness, and always in order; a reading for an emitted frame is
 // late.
+//
+// The frames are centred on the grid, not started on it, because sources
+// publish on it: a gateway polled every P from a whole second or minute
+// stamps its readings at kP plus a small jitter either way. Frames
+// starting at kP would split those readings at random between two frames,
+// so that about a quarter of the frames would repeat the reading before
+// and a quarter of the readings would be overwritten unseen; centred
+// frames give each reading its own frame for any jitter below P/2.
 type Aligner struct {
 	cfg    AlignConfig
 	per    int64 // period, ns
+	half   int64 // ⌊per/2⌋: frame k covers [k·per − half, k·per − half + per)
 	stale  int64
 	late   int64
 	jump   int64
@@ -155,7 +169,7 @@ func NewAligner(cfg AlignConfig, p int, handle func(*Frame) error) (*Aligner, er
 	per := int64(cfg.Period)
 	n := int((int64(cfg.Lateness)+per-1)/per) + 3
 	a := &Aligner{
-		cfg: cfg, per: per, stale: int64(cfg.Staleness), late: int64(cfg.Lateness),
+		cfg: cfg, per: per, half: per / 2, stale: int64(cfg.Staleness), late: int64(cfg.Lateness),
 		jump: int64(cfg.ClockJump), handle: handle, ring: make([]slot, n),
 	}
 	a.watermark.Store(noTime)
@@ -226,7 +240,7 @@ func (a *Aligner) Advance(t int64) (bool, error) {
 			a.onJump(time.Unix(0, from).UTC(), time.Unix(0, t).UTC(), a.frame.Segment)
 		}
 	}
-	k := floorDiv(t, a.per)
+	k := a.frameOf(t)
 	if !a.started {
 		a.started = true
 		a.next, a.maxK, a.tmax = k, k, t
@@ -235,7 +249,7 @@ func (a *Aligner) Advance(t int64) (bool, error) {
 		a.tmax = t
 		// Emit frames whose end + lateness ≤ tmax, including frames of a gap
 		// shorter than ClockJump, which hold no readings.
-		for (a.next+1)*a.per <= a.tmax-a.late {
+		for a.end(a.next) <= a.tmax-a.late {
 			if a.next > a.maxK {
 				a.maxK = a.next
 			}
@@ -245,7 +259,7 @@ func (a *Aligner) Advance(t int64) (bool, error) {
 		}
 	}
 	if k < a.next {
-		if a.emitted || a.maxK-k >= int64(len(a.ring)) || k*a.per < a.watermark.Load() {
+		if a.emitted || a.maxK-k >= int64(len(a.ring)) || a.end(k)-a.per < a.watermark.Load() {
 			return false, nil
 		}
 		a.next = k // before any emission, a segment may extend backwards
@@ -293,6 +307,19 @@ func (a *Aligner) Add(c int, t time.Time, v float64) (bool, error) {
 	return true, nil
 }
 
+// frameOf returns the index of the frame holding event time t (ns).
+func (a *Aligner) frameOf(t int64) int64 { return floorDiv(t+a.half, a.per) }
+
+// end returns the end of frame k (ns): the first event time after it.
+func (a *Aligner) end(k int64) int64 { return (k+1)*a.per - a.half }
+
+// FrameEnd returns the end of the frame at time start (a Frame.Start) for
+// period: the first event time after the readings it can hold,
+// start − ⌊period/2⌋ + period (see Aligner).
+func FrameEnd(start time.Time, period time.Duration) time.Time {
+	return start.Add(period - period/2)
+}
+
 // slot returns the ring slot of frame k (k may be negative: before 1970).
 func (a *Aligner) slot(k int64) *slot {
 	n := int64(len(a.ring))
@@ -303,7 +330,7 @@ func (a *Aligner) slot(k int64) *slot {
 func (a *Aligner) emit() error {
 	k := a.next
 	s := a.slot(k)
-	end := (k + 1) * a.per
+	end := a.end(k)
 	f := &a.frame
 	// A carried reading is valid while t ≥ end - Staleness; noTime (the
 	// minimum int64) is always below that bound.

@@ -185,7 +185,7 @@ func TestRefused(t *testing.T) {
 // TestNowStamp: with Options.Now, lines without timestamp get the receive
 // time.
 func TestNowStamp(t *testing.T) {
-	now := time.Unix(1_700_000_000, 500e6)
+	now := time.Unix(1_700_000_000, 400e6) // in the frame at 1_700_000_000 s
 	in, s := newTestIntake(t, Options{Align: AlignConfig{Period: time.Second}, Now: func() time.Time { return now }})
 	latest, _ := in.Feed("f", []byte("m x=1\n"))
 	in.Flush()

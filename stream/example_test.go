@@ -70,7 +70,7 @@ func ExampleAligner() {
 	for _, r := range []struct {
 		sec float64
 		v   float64
-	}{{0.1, 1}, {1.2, 2}, {0.4, 9}, {2.5, 3}} {
+	}{{0.1, 1}, {1.2, 2}, {0.4, 9}, {2.3, 3}} {
 		a.Add(0, t0.Add(time.Duration(r.sec*float64(time.Second))), r.v)
 	}
 	a.Flush()
@@ -79,7 +79,7 @@ func ExampleAligner() {
 	// 0 [1]
 	// 1 [2]
 	// 2 [3]
-	// late 1, watermark +3s
+	// late 1, watermark +2.5s
 }
 
 // InferPeriod estimates the frame period from the first lines of a
@@ -95,7 +95,7 @@ boiler drum=4 1700000020
 }
 
 // A restart seeds the aligner with the reading the last checkpointed frame
-// carried (a flow of 12.5 read at 10:00:00.4), so the frame starting at
+// carried (a flow of 12.5 read at 10:00:00.4), so the frame at
 // 10:00:01, which has no flow reading of its own, carries it as an
 // uninterrupted run would (staleness 3 s, the default).
 func ExampleAligner_Seed() {
@@ -122,7 +122,7 @@ func ExampleAligner_ResumeAt() {
 		fmt.Println(f.Start.Format("15:04:05"), f.Values, f.Missing)
 		return nil
 	})
-	a.Seed(0, 80.1, t0.Add(1900*time.Millisecond))
+	a.Seed(0, 80.1, t0.Add(1400*time.Millisecond))
 	if err := a.ResumeAt(t0.Add(2 * time.Second)); err != nil {
 		fmt.Println(err)
 	}

@@ -5,8 +5,8 @@ import (
 	"time"
 )
 
-// ResumeAt makes the first frame the aligner emits the one that starts at
-// or after t, so that an aligner started afresh after a checkpoint whose
+// ResumeAt makes the first frame the aligner emits the one whose time
+// (Frame.Start) is at or after t, so that an aligner started afresh after a checkpoint whose
 // last frame began at T (ResumeAt(T + Period)) emits the frames right
 // after it even when they hold only readings carried from before it (see
 // Seed), as an uninterrupted run would. Without it the first frame is that
@@ -20,9 +20,9 @@ func (a *Aligner) ResumeAt(t time.Time) error {
 	if t.Before(MinTime) || t.After(MaxTime) {
 		return fmt.Errorf("stream: resume at %s: %w", t.Format(time.RFC3339Nano), ErrTimeRange)
 	}
-	k := floorDiv(t.UnixNano()+a.per-1, a.per) // the frame starting at or after t
+	k := floorDiv(t.UnixNano()+a.per-1, a.per) // the frame at or after t
 	a.started = true
-	a.next, a.maxK, a.tmax = k, k, k*a.per
+	a.next, a.maxK, a.tmax = k, k, a.end(k)-a.per
 	return nil
 }
 

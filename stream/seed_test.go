@@ -13,14 +13,15 @@ import (
 // cut (its present Values and Times) emits the frames after the cut exactly
 // as an uninterrupted aligner fed the whole sequence. Both runs follow the
 // rules in the Aligner doc, so the uninterrupted run is the reference; the
-// comments derive the staleness edges by hand. Period 1 s, lateness 0.5 s.
+// comments derive the staleness edges by hand (frame k covers
+// [k - 0.5, k + 0.5) s). Period 1 s, lateness 0.5 s.
 func TestAlignSeed(t *testing.T) {
 	tests := []struct {
 		name string
 		cfg  AlignConfig
 		in   []reading
 		cut  int     // readings taken before the restart
-		last float64 // start (s after t0) of the last frame emitted before the cut
+		last float64 // time (s after t0) of the last frame emitted before the cut
 		redo int     // readings before the cut delivered again after it (not in an emitted frame)
 		// first: a frame after the cut whose values (NaN: missing) are
 		// derived by hand in the comment.
@@ -29,44 +30,44 @@ func TestAlignSeed(t *testing.T) {
 		wantSeed int // channels present in the last frame (seeded)
 	}{
 		{
-			// Staleness 1 s. a@1.97 emits frame 0 (a = 1, b = 10) and is
+			// Staleness 1 s. a@1.47 emits frame 0 (a = 1, b = 10) and is
 			// still pending at the cut, so it comes again. Frame 1: a = 3,
-			// b@0.95 is 2 - 0.95 = 1.05 s > 1 s old: missing.
+			// b@0.45 is 1.5 - 0.45 = 1.05 s > 1 s old: missing.
 			name: "stale just over the limit",
 			cfg:  AlignConfig{Period: time.Second, Lateness: 500 * time.Millisecond, Staleness: time.Second},
-			in:   []reading{{0, 0.10, 1}, {1, 0.95, 10}, {0, 1.97, 3}, {1, 2.50, 11}, {0, 4.2, 5}},
+			in:   []reading{{0, -0.40, 1}, {1, 0.45, 10}, {0, 1.47, 3}, {1, 2.00, 11}, {0, 3.7, 5}},
 			cut:  3, last: 0, redo: 1, first: 1, values: []float64{3, nan}, wantSeed: 2,
 		},
 		{
-			// Staleness 1.05 s: b@0.95 is exactly 1.05 s old at the end of
+			// Staleness 1.05 s: b@0.45 is exactly 1.05 s old at the end of
 			// frame 1 (E - t = Staleness is still valid): b = 10 carried
 			// across the restart only by the seed.
 			name: "stale exactly at the limit",
 			cfg:  AlignConfig{Period: time.Second, Lateness: 500 * time.Millisecond, Staleness: 1050 * time.Millisecond},
-			in:   []reading{{0, 0.10, 1}, {1, 0.95, 10}, {0, 1.97, 3}, {1, 2.50, 11}, {0, 4.2, 5}},
+			in:   []reading{{0, -0.40, 1}, {1, 0.45, 10}, {0, 1.47, 3}, {1, 2.00, 11}, {0, 3.7, 5}},
 			cut:  3, last: 0, redo: 1, first: 1, values: []float64{3, 10}, wantSeed: 2,
 		},
 		{
-			// Default staleness 3 s; b reads only at 0.3 (a dropout after).
-			// a@2.1 emits frame 0; a@1.1 and a@2.1 are pending and come
-			// again. Frame 2: a = 3, b = 7 (3 - 0.3 = 2.7 ≤ 3); frame 3
-			// has b missing (4 - 0.3 = 3.7 > 3) in both runs.
+			// Default staleness 3 s; b reads only at -0.2 (a dropout after).
+			// a@1.6 emits frame 0; a@0.6 and a@1.6 are pending and come
+			// again. Frame 2: a = 3, b = 7 (2.5 + 0.2 = 2.7 ≤ 3); frame 3
+			// has b missing (3.5 + 0.2 = 3.7 > 3) in both runs.
 			name: "dropout carried for several frames",
 			cfg:  AlignConfig{Period: time.Second, Lateness: 500 * time.Millisecond},
-			in: []reading{{0, 0.1, 1}, {1, 0.3, 7}, {0, 1.1, 2}, {0, 2.1, 3}, {0, 3.1, 4},
-				{0, 4.1, 5}, {0, 5.1, 6}},
+			in: []reading{{0, -0.4, 1}, {1, -0.2, 7}, {0, 0.6, 2}, {0, 1.6, 3}, {0, 2.6, 4},
+				{0, 3.6, 5}, {0, 4.6, 6}},
 			cut: 4, last: 0, redo: 2, first: 2, values: []float64{3, 7}, wantSeed: 2,
 		},
 		{
-			// a@3.1 emits frame 1 (a@1.1, b@0.3 seeded). Redelivery goes
-			// back to b@0.3, so the restarted aligner emits frames 0 and 1
+			// a@2.6 emits frame 1 (a@0.6, b@-0.2 seeded). Redelivery goes
+			// back to b@-0.2, so the restarted aligner emits frames 0 and 1
 			// again (a restored unit skips them; a seed newer than a frame's
 			// end is not used in it) and matches from frame 2 on: a = 3,
 			// b = 7.
 			name: "redelivery from before the last frame",
 			cfg:  AlignConfig{Period: time.Second, Lateness: 500 * time.Millisecond},
-			in: []reading{{0, 0.1, 1}, {1, 0.3, 7}, {0, 1.1, 2}, {0, 2.1, 3}, {0, 3.1, 4},
-				{0, 4.1, 5}, {0, 5.1, 6}},
+			in: []reading{{0, -0.4, 1}, {1, -0.2, 7}, {0, 0.6, 2}, {0, 1.6, 3}, {0, 2.6, 4},
+				{0, 3.6, 5}, {0, 4.6, 6}},
 			cut: 5, last: 1, redo: 4, first: 2, values: []float64{3, 7}, wantSeed: 2,
 		},
 	}

@@ -181,8 +181,8 @@ func TestFeedAck(t *testing.T) {
 	if len(acked) != 0 || in.Stats().AckPending != 1 {
 		t.Fatalf("acked %v", acked)
 	}
-	in.FeedAck("s", []byte(lines(2, 3)), ack(2)) // t = 2 ≥ 1 + 1: frame 0 emitted, watermark t0+1
-	if fmt.Sprint(acked) != "[1]" || !in.Watermark().Equal(at(1)) {
+	in.FeedAck("s", []byte(lines(2, 3)), ack(2)) // t = 2 ≥ 0.5 + 1: frame 0 emitted, watermark t0+0.5
+	if fmt.Sprint(acked) != "[1]" || !in.Watermark().Equal(at(0.5)) {
 		t.Fatalf("acked %v watermark %v", acked, in.Watermark())
 	}
 	in.FeedAck("s", []byte(lines(0, 1)), ack(3))        // late: nothing contributed

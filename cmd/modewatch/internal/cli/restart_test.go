@@ -216,8 +216,10 @@ func TestKillRestart(t *testing.T) {
 		}
 	}
 	publish(first, first.Samples()*4)
-	// Frames per unit the aligner emits: all but the last, still pending.
-	want := first.Samples() + second.Samples() - 1
+	// Frames per unit the aligner emits: all but the last two, still
+	// pending (a frame ends half a period after its time and waits a
+	// period's lateness after that).
+	want := first.Samples() + second.Samples() - 2
 
 	scores := &scoreLog{seen: map[string][]string{}}
 	sub, _ := nc.Subscribe("modewatch.scores.>", scores.add)
@@ -254,7 +256,7 @@ func TestKillRestart(t *testing.T) {
 	// published, and run b restarted and killed again mid-stream.
 	dataB, startB := run("b")
 	b := startB()
-	waitScores(4*(first.Samples()-1), "run b before the first kill")
+	waitScores(4*(first.Samples()-2), "run b before the first kill")
 	lastFrame := scores.latest()
 	// A checkpoint acknowledges what was held when it began, so the one
 	// that first holds the last frame may leave the last messages
@@ -672,8 +674,8 @@ func TestClusterFailover(t *testing.T) {
 		}()
 		return done
 	}
-	want1 := part1.Samples() - 1 // frames per unit; the last stays pending
-	wantAll := part1.Samples() + part2.Samples() - 1
+	want1 := part1.Samples() - 2 // frames per unit; the last two stay pending
+	wantAll := part1.Samples() + part2.Samples() - 2
 
 	scores := &scoreLog{seen: map[string][]string{}}
 	sub, _ := nc.Subscribe("modewatch.scores.>", scores.add)

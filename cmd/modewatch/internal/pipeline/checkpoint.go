@@ -148,7 +148,7 @@ func (u *Unit) setLast(last []LastReading) {
 //
 // live reports whether the seed may still be carried by a later frame
 // (not reached by f, not stale at its end). end is f's end,
-// f.Start + period, in ns (seedEnd).
+// stream.FrameEnd of f, in ns (seedEnd).
 func (u *Unit) seeded(k int, f *stream.Frame, end int64) (use, live bool) {
 	if i := u.idx[k]; i >= 0 && i < len(f.Values) {
 		return false, false // the aligner has the channel, and its seed
@@ -160,7 +160,9 @@ func (u *Unit) seeded(k int, f *stream.Frame, end int64) (use, live bool) {
 
 // seedEnd returns the end of frame f in ns, the instant seeded compares
 // the seeds' event times with.
-func (u *Unit) seedEnd(f *stream.Frame) int64 { return f.Start.Add(u.p.opt.Period).UnixNano() }
+func (u *Unit) seedEnd(f *stream.Frame) int64 {
+	return stream.FrameEnd(f.Start, u.p.opt.Period).UnixNano()
+}
 
 // carrySeeds gives the channels of frame f that seeded holds for the
 // checkpoint's carried reading, and returns how many. Once no seed can be
