@@ -13,7 +13,7 @@ const ScoreMeasurement = "modewatch_scores"
 
 // ScoreEncoder writes one line-protocol line per unit and frame:
 //
-//	modewatch_scores,unit=<unit> t2=…,t2_limit=…,spe=…,spe_limit=…,phi=…,phi_limit=…,missing=<n>i,state="adapting" <frame start>
+//	modewatch_scores,unit=<unit> t2=…,t2_limit=…,spe=…,spe_limit=…,phi=…,phi_limit=…,missing=<n>i,state="adapting" <frame time>
 //
 // with res, var and rel (and their _limit) added when model.statistics
 // raises alarms on them.

@@ -190,7 +190,7 @@ func (h *Host) gain(ctx context.Context, unit string) error {
 		_ = pl.RemoveUnit(unit) // a stale copy from an earlier ownership
 	}
 	var seeds []pipeline.LastReading
-	var resume time.Time // start of the frame after the restored checkpoint's last
+	var resume time.Time // time of the frame after the restored checkpoint's last
 	if ck != nil {
 		restored, errs := pl.Restore([]*pipeline.ModelFile{ck})
 		if len(restored) == 1 {
