@@ -159,10 +159,10 @@ func (e *Engine) SetClock(now func() time.Time) {
 }
 
 // statistic indices
-var statNames = [nStats]string{StatT2, StatSPE, StatPhi, StatResidual, StatVariance, StatRelation}
+var statNames = [nStats]string{StatT2, StatSPE, StatPhi, StatResidual, StatVariance, StatRelation, StatMewma}
 
 // nStats is the number of statistics the engine keeps an alarm for.
-const nStats = 6
+const nStats = 7
 
 func statIndex(name string) int {
 	switch name {
@@ -178,6 +178,8 @@ func statIndex(name string) int {
 		return 4
 	case StatRelation:
 		return 5
+	case StatMewma:
+		return 6
 	}
 	return -1
 }

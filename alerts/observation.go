@@ -17,6 +17,9 @@ const (
 	// StatRelation is the relation-mode statistic (the largest score of a
 	// sparse tight relation among a few channels).
 	StatRelation = "rel"
+	// StatMewma is the multivariate EWMA statistic of the residual part
+	// (small persistent shifts of a relation; Lowry et al. 1992).
+	StatMewma = "mewma"
 )
 
 // Data-quality kinds accepted in Quality.Kind.
@@ -85,7 +88,7 @@ type Observation struct {
 
 // Stat is one monitoring statistic and its control limit.
 type Stat struct {
-	Name  string // StatT2, StatSPE, StatPhi, StatResidual, StatVariance or StatRelation
+	Name  string // StatT2, StatSPE, StatPhi, StatResidual, StatVariance, StatRelation or StatMewma
 	Value float64
 	Limit float64 // > 0; a frame with a non-finite or non-positive limit is skipped for this statistic
 }

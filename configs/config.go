@@ -375,8 +375,13 @@ type Model struct {
 	MaxChannels int `yaml:"max_channels"`
 	// Statistics lists the statistics whose alarms open an alert:
 	// t2, spe, phi, res (residual Mahalanobis), var (per-channel
-	// variance), rel (relation modes). Default [DefaultStatistics].
+	// variance), rel (relation modes), mewma (multivariate EWMA of the
+	// residual part, for small persistent shifts). Default
+	// [DefaultStatistics].
 	Statistics string `yaml:"statistics"`
+	// MewmaLambda is the EWMA weight λ in (0, 1) of the mewma statistic
+	// (a memory of about 1/λ frames). Default [tracker.DefaultMewmaLambda].
+	MewmaLambda float64 `yaml:"mewma_lambda"`
 	// Smoothing is the EWMA weight λ in (0, 1) applied to each alarm
 	// statistic's ratio to its limit before the alarm rule (a remedy for
 	// serially correlated statistics); its threshold then comes from
@@ -620,6 +625,7 @@ func DefaultModel() Model {
 		WarmUp:       DefaultWarmUp,
 		MaxChannels:  DefaultUnitMaxChannels,
 		Statistics:   DefaultStatistics,
+		MewmaLambda:  tracker.DefaultMewmaLambda,
 		StateScoring: tracker.DefaultStateScoring,
 		DriverLevel:  tracker.DefaultDriverLevel,
 		Shrink:       DefaultShrink,

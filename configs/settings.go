@@ -315,6 +315,11 @@ var settings = []Setting{
 		set: setFraction(1, "an EWMA weight", func(o *Overrides) *float64 { return &o.Model.Smoothing }),
 	},
 	{
+		Name: "mewma_lambda", Section: "model", Default: strconv.FormatFloat(tracker.DefaultMewmaLambda, 'g', -1, 64),
+		Doc: "EWMA weight in (0, 1) of the mewma statistic (statistics: mewma), a memory of about 1/λ frames",
+		set: setFraction(1, "an EWMA weight", func(o *Overrides) *float64 { return &o.Model.MewmaLambda }),
+	},
+	{
 		Name: "state_scoring", Section: "model", Default: tracker.DefaultStateScoring,
 		Doc: "found operating states (state: auto): posterior (every state's model, by the frame's posterior) or most_probable",
 		set: func(o *Overrides, s string) (string, error) {
@@ -327,7 +332,7 @@ var settings = []Setting{
 	},
 	{
 		Name: "statistics", Section: "model", Default: DefaultStatistics,
-		Doc: "statistics that raise alarms, a list of t2,spe,phi,res,var,rel",
+		Doc: "statistics that raise alarms, a list of t2,spe,phi,res,var,rel,mewma",
 		set: func(o *Overrides, s string) (string, error) {
 			if _, err := ParseStatistics(s); err != nil {
 				return s, err

@@ -30,6 +30,7 @@ func TestSettingDefaults(t *testing.T) {
 		"limits":           LimitsTheory,
 		"smoothing":        "", // no smoothing
 		"statistics":       DefaultStatistics,
+		"mewma_lambda":     strconv.FormatFloat(tracker.DefaultMewmaLambda, 'g', -1, 64),
 		"state_scoring":    tracker.DefaultStateScoring,
 		"new_point":        strconv.FormatBool(alerts.DefaultNewPoint),
 		"calibrate_points": strconv.FormatBool(DefaultCalibratePoints),

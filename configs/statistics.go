@@ -13,6 +13,9 @@ const (
 	StatisticResidual = "res" // residual Mahalanobis distance
 	StatisticVariance = "var" // per-channel variance (noise) statistic
 	StatisticRelation = "rel" // relation modes (sparse tight relations)
+	// StatisticMewma is the multivariate EWMA of the residual part, for
+	// small persistent shifts (Lowry et al. 1992).
+	StatisticMewma = "mewma"
 )
 
 // DefaultStatistics is the default of model.statistics: the statistics
@@ -23,18 +26,21 @@ const DefaultStatistics = "t2,spe,phi,res"
 const MaxRelations = 10
 
 // Statistics is the set of statistics that raise alarms, as the list
-// "t2,spe,phi,res,var,rel" (any non-empty subset, comma-separated).
+// "t2,spe,phi,res,var,rel,mewma" (any non-empty subset, comma-separated).
 // Relation modes take one relation per three channels, at most
 // MaxRelations.
 type Statistics struct {
-	T2, SPE, Phi, Residual, Variance, Relation bool
+	T2, SPE, Phi, Residual, Variance, Relation, Mewma bool
 }
+
+// statisticChoices lists the names ParseStatistics accepts, for its errors.
+const statisticChoices = "t2, spe, phi, res, var, rel, mewma"
 
 // ParseStatistics parses a model.statistics value.
 func ParseStatistics(s string) (Statistics, error) {
 	var st Statistics
 	if strings.TrimSpace(s) == "" {
-		return st, fmt.Errorf("empty list of statistics (choose from t2, spe, phi, res, var, rel)")
+		return st, fmt.Errorf("empty list of statistics (choose from %s)", statisticChoices)
 	}
 	for _, f := range strings.Split(s, ",") {
 		switch strings.ToLower(strings.TrimSpace(f)) {
@@ -50,8 +56,10 @@ func ParseStatistics(s string) (Statistics, error) {
 			st.Variance = true
 		case StatisticRelation:
 			st.Relation = true
+		case StatisticMewma:
+			st.Mewma = true
 		default:
-			return st, fmt.Errorf("unknown statistic %q (choose from t2, spe, phi, res, var, rel)", strings.TrimSpace(f))
+			return st, fmt.Errorf("unknown statistic %q (choose from %s)", strings.TrimSpace(f), statisticChoices)
 		}
 	}
 	return st, nil

@@ -315,6 +315,9 @@ func (v *validator) model(p string, m Model, partial bool) {
 	if m.Smoothing != 0 && !(m.Smoothing > 0 && m.Smoothing < 1) {
 		v.add(p+".smoothing", "%g is not an EWMA weight in (0, 1)", m.Smoothing)
 	}
+	if m.MewmaLambda != 0 && !(m.MewmaLambda > 0 && m.MewmaLambda < 1) {
+		v.add(p+".mewma_lambda", "%g is not an EWMA weight in (0, 1)", m.MewmaLambda)
+	}
 	if m.Statistics != "" {
 		if _, err := ParseStatistics(m.Statistics); err != nil {
 			v.add(p+".statistics", "%v", err)

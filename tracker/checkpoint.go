@@ -12,7 +12,7 @@ import (
 // ErrCheckpoint reports a checkpoint that cannot be restored.
 var ErrCheckpoint = errors.New("tracker: bad checkpoint")
 
-// Checkpoint format, version 4. All integers and floats little-endian:
+// Checkpoint format, version 5. All integers and floats little-endian:
 //
 //	"MWTK" | u16 version | u32 p | u64 config fingerprint (FNV-1a)
 //	u8 flags (1 ready, 2 frozen, 4 baseline, 8 calibrated)
@@ -33,19 +33,22 @@ var ErrCheckpoint = errors.New("tracker: bad checkpoint")
 //	       the variance statistic's EWMA, normal level and frames behind it
 //	       (restored into a tracker with the statistic off: ignored; into
 //	       one with it on from a checkpoint without: started again)
+//	mewma: u8 present (Config.Mewma) | p × f64 z̄                         [v5]
+//	       the MEWMA statistic's smoothed frame (off: ignored; a checkpoint
+//	       without: started again from z̄ = 0)
 //	modes: u32 n | n bytes of modes.Set.MarshalBinary
 //	u32 CRC-32 (IEEE) of everything before
 //
-// Versions 1 (no p0, no per-channel steps), 2 (no lag section) and 3 (no
+// Versions 1 (no p0, no per-channel steps), 2 (no lag section), 3 (no
 // variance section: a restored variance statistic starts again from its
-// EWMA and normal level at 1) are still read.
+// EWMA and normal level at 1) and 4 (no MEWMA section) are still read.
 //
 // The model snapshot (loadings, limits, per-channel data) is recomputed on
 // restore from A and the restored modes by the same code as at the refresh,
 // so it is bit-identical.
 const (
 	ckMagic   = "MWTK"
-	ckVersion = 4
+	ckVersion = 5
 )
 
 // fingerprint hashes the configuration fields that shape the state.
@@ -173,6 +176,14 @@ func (t *Tracker) MarshalBinary() ([]byte, error) {
 	} else {
 		b = append(b, 0)
 	}
+	if mw := t.mw; mw != nil {
+		b = append(b, 1)
+		for _, v := range mw.zbar {
+			f64(v)
+		}
+	} else {
+		b = append(b, 0)
+	}
 	b = le.AppendUint32(b, uint32(len(mb)))
 	b = append(b, mb...)
 	b = le.AppendUint32(b, crc32.ChecksumIEEE(b))
@@ -273,6 +284,7 @@ type ckState struct {
 	lagX, lagRatio                []float64
 	lagFlags                      []byte
 	vq, vl, vn                    []float64 // variance statistic (version ≥ 4; nil: start again)
+	mz                            []float64 // MEWMA statistic's z̄ (version ≥ 5; nil: start again)
 	modes                         []byte
 }
 
@@ -371,6 +383,16 @@ func (t *Tracker) decodeCheckpoint(data []byte) (*ckState, error) {
 			r.floats(st.vn, "variance level counts")
 		}
 	}
+	if version >= 5 {
+		switch has := r.u8("MEWMA flag"); {
+		case r.err != nil:
+		case has > 1:
+			return nil, ckError("MEWMA flag %d is neither 0 nor 1", has)
+		case has == 1:
+			st.mz = make([]float64, p)
+			r.floats(st.mz, "MEWMA smoothed frame")
+		}
+	}
 	nm := int(r.u32("modes length"))
 	if r.need(nm, "modes") {
 		st.modes = r.b[r.off : r.off+nm]
@@ -461,6 +483,11 @@ func (st *ckState) check() error {
 			return ckError("variance statistic of channel %d: EWMA %v, normal level %v, count %v", i, q, l, n)
 		}
 	}
+	for i, v := range st.mz {
+		if math.IsNaN(v) || math.IsInf(v, 0) {
+			return ckError("MEWMA statistic of channel %d: smoothed value %v", i, v)
+		}
+	}
 	return nil
 }
 
@@ -523,6 +550,10 @@ func (t *Tracker) apply(st *ckState) {
 				rs.q[i], rs.lvl[i], rs.lvlN[i] = 1, 1, 0
 			}
 		}
+	}
+	if mw := t.mw; mw != nil {
+		clear(mw.zbar)
+		copy(mw.zbar, st.mz)
 	}
 	t.since = st.since
 	t.cal = st.flags&8 != 0

@@ -224,6 +224,7 @@ func (t *Tracker) Recentre(x []float64, which []bool, k int) {
 	if len(x) != t.p || len(which) != t.p || k < 1 {
 		panic("tracker: Recentre: length mismatch or k < 1")
 	}
+	t.resetMewmaChannels(which)
 	for i, w := range which {
 		if w && !math.IsNaN(x[i]) && !math.IsInf(x[i], 0) && t.ew.count[i] > 0 {
 			t.ew.mean[i] += (x[i] - t.ew.mean[i]) / float64(k)

@@ -108,7 +108,7 @@ type resGen struct {
 const resDiagBlock = 16
 
 func newResStat(p int, cfg *Config) *resStat {
-	if !cfg.Residual && !cfg.Variance {
+	if !cfg.Residual && !cfg.Variance && !cfg.Mewma {
 		return nil
 	}
 	rs := &resStat{
@@ -341,8 +341,8 @@ func upperSolveT(v, y, l []float64, p int) {
 // channels of the model.
 func (rs *resStat) score(dst *Score, m *model, z, dz []float64, t2 float64, nMiss int, obs, stuck []bool, advance, learn bool) {
 	dst.Residual, dst.ResidualLimit, dst.Variance, dst.VarianceLimit, dst.VarianceChannel = 0, 0, 0, 0, -1
-	if !rs.ok {
-		return
+	if !rs.ok || (!rs.res && !rs.vr) {
+		return // not asked for (the factor serves the MEWMA statistic alone)
 	}
 	p := rs.p
 	g := &rs.gens[rs.cur]
@@ -398,10 +398,14 @@ func (rs *resStat) score(dst *Score, m *model, z, dz []float64, t2 float64, nMis
 // the factor's packed copy: one sequential stream per eight rows) with
 // the same sums in the same order: the same bits
 // (TestForwardLanesSameBits).
-func (rs *resStat) forward(z []float64) float64 {
+func (rs *resStat) forward(z []float64) float64 { return rs.forwardIn(rs.zb, z) }
+
+// forwardIn is forward with the buffer b (2p values) in place of rs.zb:
+// y = L⁻¹z in b[:p], b[p:] zeroed.
+func (rs *resStat) forwardIn(b, z []float64) float64 {
 	p := rs.p
 	l := rs.gens[rs.cur].l
-	b := rs.zb[:2*p]
+	b = b[:2*p]
 	y := b[:p]
 	copy(y, z)
 	for j := range b[p:] {

@@ -103,10 +103,15 @@ func (m *model) scoreZ(w *work, pt *pattern, rbc Index) (t2, spe, phi float64) {
 // for the frame in w.z under pattern pt, and returns T² = tᵀM'⁺t: the part
 // of scoreZ and phiZ before the per-channel loop.
 func (m *model) modeScores(w *work, pt *pattern) (t2 float64) {
+	return m.modeScoresOf(w.z, w.tq, w.y, pt)
+}
+
+// modeScoresOf is modeScores for the vector z (len p) with the scratch
+// tq (2·maxR) and y (maxR) given: tq = [Pᵀz | Qᵀz], y = M'⁺t, T² = tᵀy.
+func (m *model) modeScoresOf(z, tqs, ys []float64, pt *pattern) (t2 float64) {
 	R, r, rq := m.maxR, m.r, m.rq
-	z := w.z
 	nw := r + rq
-	tq := w.tq[:nw]
+	tq := tqs[:nw]
 	for j := range tq {
 		tq[j] = 0
 	}
@@ -123,7 +128,7 @@ func (m *model) modeScores(w *work, pt *pattern) (t2 float64) {
 		}
 	}
 	tv := tq[:r]
-	y := w.y[:r]
+	y := ys[:r]
 	for a := 0; a < r; a++ {
 		mr := pt.minv[a*R : a*R+r]
 		s := 0.0

@@ -252,6 +252,14 @@ type Config struct {
 	// naming tight relations; see relStat), 0 for none, and RelationSize
 	// the channels per relation (default DefaultRelationSize).
 	Relations, RelationSize int
+	// Mewma adds the MEWMA statistic of the residual part (Score.Mewma;
+	// see mewma), for small persistent shifts of a relation, and
+	// MewmaLambda is its EWMA weight λ in (0, 1] (default
+	// DefaultMewmaLambda). It shares the factor of the residual statistic
+	// (2p² values, a factorization per refresh) and costs one more
+	// triangular solve, p²/2 multiply-adds, per frame.
+	Mewma       bool
+	MewmaLambda float64
 }
 
 // Errors.
@@ -329,8 +337,12 @@ type Score struct {
 	// (−1: none). Zero unless Config.Relations > 0 (see relStat).
 	Relation, RelationLimit float64
 	RelationMode            int
-	Frame                   uint64 // frames seen, this one included
-	NextRefresh             int    // learned frames until the next refresh (or the end of warm-up)
+	// Mewma is the MEWMA statistic of the residual part and MewmaLimit
+	// its limit (χ²_{1−α} on the residual dimensions; see mewma). Zero
+	// unless Config.Mewma.
+	Mewma, MewmaLimit float64
+	Frame             uint64 // frames seen, this one included
+	NextRefresh       int    // learned frames until the next refresh (or the end of warm-up)
 }
 
 // Tracker is the streaming model of one plant unit.
@@ -350,6 +362,7 @@ type Tracker struct {
 	maxR int
 	rs   *resStat // nil unless Config.Residual or Config.Variance
 	rl   *relStat // nil unless Config.Relations > 0
+	mw   *mewma   // nil unless Config.Mewma
 	// stepping: score is called from Step (advance the variance EWMA)
 	stepping bool
 
@@ -427,6 +440,12 @@ func (c *Config) defaults(p int) error {
 	if c.RelationSize == 0 {
 		c.RelationSize = DefaultRelationSize
 	}
+	if c.MewmaLambda == 0 {
+		c.MewmaLambda = DefaultMewmaLambda
+	}
+	if !(c.MewmaLambda > 0 && c.MewmaLambda <= 1) {
+		return fmt.Errorf("%w: MewmaLambda %v not in (0, 1]", ErrConfig, c.MewmaLambda)
+	}
 	if c.Relations < 0 || c.Relations > 64 || c.RelationSize < 2 {
 		return fmt.Errorf("%w: Relations %d (0 to 64), RelationSize %d (≥ 2)", ErrConfig, c.Relations, c.RelationSize)
 	}
@@ -486,6 +505,7 @@ func New(p int, cfg Config) (*Tracker, error) {
 		stuck: make([]bool, p),
 		top:   make([]int, 0, cfg.TopContrib+1),
 		rs:    newResStat(p, &cfg),
+		mw:    newMewma(p, maxR, &cfg),
 	}
 	if t.rl, err = newRelStat(p, &cfg); err != nil {
 		return nil, err
@@ -691,6 +711,9 @@ func (t *Tracker) score(dst *Score, x []float64) error {
 	if t.rl != nil {
 		t.rl.score(dst, w.z)
 	}
+	if t.mw != nil {
+		t.mw.score(dst, m, t.rs, w.z, t.stepping)
+	}
 	dst.Ready = true
 	dst.T2, dst.SPE, dst.Phi = t2, spe, phi
 	dst.T2Limit, dst.SPELimit, dst.PhiLimit = pt.t2Lim, pt.speLim, pt.phiLim
@@ -714,6 +737,10 @@ func (t *Tracker) score(dst *Score, x []float64) error {
 	if useRes {
 		rbc, index = t.rs.contributions(), dst.Residual
 	}
+	useMw := t.rankMewma(dst, index, indexLim, useRes)
+	if useMw {
+		rbc, index, useRes = t.mw.contributions(m, t.rs), dst.Mewma, false
+	}
 	top := t.rankTop(rbc, pt.rbcInv)
 	for _, i := range top {
 		n := len(dst.Contrib)
@@ -728,6 +755,9 @@ func (t *Tracker) score(dst *Score, x []float64) error {
 		c.RBCLimit = pt.rbcLim[i]
 		if useRes {
 			c.RBCLimit = t.rs.rbcLim
+		}
+		if useMw {
+			c.RBCLimit = t.rs.rbcLim * t.mw.rel
 		}
 		c.Share = 0
 		if index > 0 {
@@ -1108,6 +1138,7 @@ func (t *Tracker) Grow(p2 int, cfg Config) error {
 	t.lag = t.lag.grown(p2, cfg.Lag)
 	t.rs = newResStat(p2, &cfg)
 	t.rl = rl
+	t.mw = t.mw.grown(p2, maxR, &cfg)
 	if cap(t.top) < cfg.TopContrib+1 {
 		t.top = make([]int, 0, cfg.TopContrib+1)
 	}

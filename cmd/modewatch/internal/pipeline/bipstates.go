@@ -144,8 +144,10 @@ func statFields(s *tracker.Score, st int) (v, lim *float64) {
 		return &s.Residual, &s.ResidualLimit
 	case 4:
 		return &s.Variance, &s.VarianceLimit
+	case 5:
+		return &s.Relation, &s.RelationLimit
 	}
-	return &s.Relation, &s.RelationLimit
+	return &s.Mewma, &s.MewmaLimit
 }
 
 // statDOF returns the degrees of freedom of statistic slot st under the
@@ -155,7 +157,7 @@ func statDOF(s *tracker.Score, tr *tracker.Tracker, st int) float64 {
 	switch st {
 	case 0:
 		return r
-	case 1, 3:
+	case 1, 3, slotMewma:
 		return q
 	case 2:
 		return r + q

@@ -111,7 +111,7 @@ type ratioSeries struct {
 }
 
 // nStatistics is the number of statistics appendStats can report.
-const nStatistics = 6
+const nStatistics = 7
 
 // NewRatioRecorder returns an empty recorder.
 func NewRatioRecorder() *RatioRecorder { return &RatioRecorder{units: map[string]*ratioSeries{}} }
@@ -165,6 +165,9 @@ func (rr *RatioRecorder) Calibrate(name string, budget float64, rule alerts.Alar
 	r := ser.r
 	if points {
 		r = pointRatios(ser.t, ser.r, ser.spread, accept)
+	}
+	if !perStat && hasStat(r, slotMewma) {
+		return calibrateMewma(ser.t, r, budget, rule, learnDays)
 	}
 	cal, err := CalibrateBudget(ser.t, r, budget, rule, learnDays)
 	if err == nil && perStat {

@@ -115,17 +115,61 @@ func blockMaxima(t []time.Time, s []float64, block time.Duration, nb int) []floa
 	return m
 }
 
+// statGroups assigns each statistic (slot of statNames) to a group of
+// the per-statistic calibration: the statistics of one group share one
+// scale, set by the largest of their rule statistics.
+type statGroups [nStatistics]int
+
+// eachOwn puts every statistic in a group of its own
+// (alerts.budget_per_statistic).
+var eachOwn = statGroups{0, 1, 2, 3, 4, 5, 6}
+
+// mewmaOwn gives the MEWMA statistic a scale of its own and the others one
+// scale together: its smoothing makes it far more serially correlated
+// than the per-frame statistics, so that one scale for all would be set by
+// it (blinding the others) or, without it, leave it alarming for hours.
+var mewmaOwn = func() (g statGroups) {
+	g[slotMewma] = 1
+	return g
+}()
+
+// hasStat reports whether statistic j has a finite ratio in some frame.
+func hasStat(ratios [][nStatistics]float64, j int) bool {
+	for k := range ratios {
+		if !math.IsNaN(ratios[k][j]) {
+			return true
+		}
+	}
+	return false
+}
+
 // statScales computes the per-statistic scales (see above) for block
 // exceedance probability p of the whole rule, over nb blocks of length
-// block, and each statistic's GEV (nil: none). ok is false when fewer than two statistics have a GEV fit or the
-// combined fit fails (the unit's single scale is kept); scales[j] is 0 for
-// a statistic without a fit. fit is the GEV of the combined maxima Y_b and
-// y its level for p.
-func statScales(t []time.Time, ratios [][nStatistics]float64, rule alerts.AlarmRule, block time.Duration, nb int, p float64) (scales [nStatistics]float64, fits [nStatistics]*limits.GEVFit, fit limits.GEVFit, y float64, ok bool) {
+// block, the statistics of a group of gr (statGroups) taken together, and
+// each statistic's GEV, its group's (nil: none). ok is false when fewer
+// than two groups have a GEV fit or the combined fit fails (the unit's
+// single scale is kept); scales[j] is 0 for a statistic without a fit or
+// without ratios. fit is the GEV of the combined maxima Y_b and y its
+// level for p.
+func statScales(t []time.Time, ratios [][nStatistics]float64, rule alerts.AlarmRule, block time.Duration, nb int, p float64, gr statGroups) (scales [nStatistics]float64, fits [nStatistics]*limits.GEVFit, fit limits.GEVFit, y float64, ok bool) {
+	var rs [nStatistics][]float64 // rule statistic per group
+	for j := 0; j < nStatistics; j++ {
+		s, g := ruleStat(ratios, j, rule), gr[j]
+		if rs[g] == nil {
+			rs[g] = s
+			continue
+		}
+		for k, v := range s {
+			rs[g][k] = math.Max(rs[g][k], v)
+		}
+	}
 	var maxima [nStatistics][]float64
 	fitted := 0
 	for j := 0; j < nStatistics; j++ {
-		m := blockMaxima(t, ruleStat(ratios, j, rule), block, nb)
+		if rs[j] == nil {
+			continue
+		}
+		m := blockMaxima(t, rs[j], block, nb)
 		var have []float64
 		for _, v := range m {
 			if !math.IsNaN(v) {
@@ -179,6 +223,14 @@ func statScales(t []time.Time, ratios [][nStatistics]float64, rule alerts.AlarmR
 			return scales, fits, fit, 0, false
 		}
 		scales[j] = c
+	}
+	// From groups to their statistics.
+	gs, gf := scales, fits
+	for j := range scales {
+		scales[j], fits[j] = 0, nil
+		if hasStat(ratios, j) {
+			scales[j], fits[j] = gs[gr[j]], gf[gr[j]]
+		}
 	}
 	return scales, fits, f, y, true
 }
@@ -235,6 +287,11 @@ func raiseEach(t []time.Time, ratios [][nStatistics]float64, sc [nStatistics]flo
 // least two statistics have a fit; cal's rate, interval and held-out count
 // then describe the rule at those scales.
 func calibrateEach(cal *Calibration, t []time.Time, ratios [][nStatistics]float64, rule alerts.AlarmRule) {
+	calibrateGroups(cal, t, ratios, rule, eachOwn)
+}
+
+// calibrateGroups is calibrateEach with one scale per group of gr.
+func calibrateGroups(cal *Calibration, t []time.Time, ratios [][nStatistics]float64, rule alerts.AlarmRule, gr statGroups) {
 	if cal.Blocks < minBlocks || !(cal.Block > 0) {
 		return
 	}
@@ -242,7 +299,7 @@ func calibrateEach(cal *Calibration, t []time.Time, ratios [][nStatistics]float6
 	nb := int(t[len(t)-1].Sub(t[0]) / block)
 	perDay := 24 * float64(time.Hour) / float64(block)
 	p := cal.Budget / perDay
-	sc, fits, fit, y, ok := statScales(t, ratios, rule, block, nb, p)
+	sc, fits, fit, y, ok := statScales(t, ratios, rule, block, nb, p, gr)
 	if !ok {
 		return
 	}
@@ -291,4 +348,57 @@ func calibrateEach(cal *Calibration, t []time.Time, ratios [][nStatistics]float6
 		return g.Exceed(y)
 	}
 	cal.stateRate(fit, exceed, func(x float64) int { return countAlertsEach(t, ratios, mul(x), rule) }, perDay)
+}
+
+// calibrateMewma calibrates a unit whose statistics include the MEWMA
+// statistic (and not alerts.budget_per_statistic): the other statistics
+// are calibrated by CalibrateBudget without it, to the same single scale
+// as without the MEWMA statistic, then the two groups (mewmaOwn) get
+// their scales at the same tail probability and the whole rule at the
+// budget (calibrateGroups). When the MEWMA statistic's block maxima give
+// no GEV fit (a tail too heavy for 20 maxima), its scale is the smallest
+// at or above the others' at which the whole rule opens at most the
+// budget's share of alerts over the held-out frames (mewmaHeldOut).
+func calibrateMewma(t []time.Time, ratios [][nStatistics]float64, budget float64, rule alerts.AlarmRule, learnDays float64) (Calibration, error) {
+	rest := make([][nStatistics]float64, len(ratios))
+	for k, row := range ratios {
+		row[slotMewma] = math.NaN()
+		rest[k] = row
+	}
+	cal, err := CalibrateBudget(t, rest, budget, rule, learnDays)
+	if err != nil {
+		return cal, err
+	}
+	calibrateGroups(&cal, t, ratios, rule, mewmaOwn)
+	if _, ok := cal.Scales[alerts.StatMewma]; ok {
+		return cal, nil
+	}
+	var sc [nStatistics]float64
+	for j := range sc {
+		if hasStat(ratios, j) {
+			sc[j] = cal.Scale
+		}
+	}
+	allow := heldOutAllowance(budget, cal.HeldOutDays)
+	hi := cal.Scale
+	for k := range ratios {
+		if v := ratios[k][slotMewma]; !math.IsNaN(v) && !math.IsInf(v, 0) {
+			hi = math.Max(hi, v)
+		}
+	}
+	cm := leastWithin(cal.Scale, hi, allow, func(c float64) int {
+		s := sc
+		s[slotMewma] = c
+		return countAlertsEach(t, ratios, s, rule)
+	})
+	cal.Scales = map[string]float64{}
+	for j, c := range sc {
+		if c > 0 {
+			cal.Scales[statNames[j]] = c
+		}
+	}
+	cal.Scales[alerts.StatMewma] = cm
+	sc[slotMewma] = cm
+	cal.Observed = countAlertsEach(t, ratios, sc, rule)
+	return cal, nil
 }

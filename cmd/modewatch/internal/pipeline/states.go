@@ -218,6 +218,11 @@ func (u *Unit) newState(key float64, t time.Time) int {
 // switchState makes state i the unit's active model.
 func (u *Unit) switchState(i int) {
 	s := u.states
+	if i != s.cur {
+		// Its MEWMA statistic's smoothed frame is from the last time the
+		// state ran: start it again (tracker.ResetMewma).
+		s.models[i].tr.ResetMewma()
+	}
 	if s.cur >= 0 {
 		s.models[s.cur].score, u.score = u.score, s.models[s.cur].score
 	}

@@ -22,14 +22,17 @@ func alarmStats(m configs.Model) configs.Statistics {
 // statNames lists the alarm statistics in their fixed order (the slots of
 // Unit.sm and of the ratio recorder).
 var statNames = [nStatistics]string{alerts.StatT2, alerts.StatSPE, alerts.StatPhi,
-	alerts.StatResidual, alerts.StatVariance, alerts.StatRelation}
+	alerts.StatResidual, alerts.StatVariance, alerts.StatRelation, alerts.StatMewma}
+
+// slotMewma is the slot of the MEWMA statistic in statNames.
+const slotMewma = 6
 
 // statSlots returns, in the order of statNames, whether each statistic
 // raises alarms (model.statistics) and its value and limit in score s
 // (unscaled; statFields).
 func (u *Unit) statSlots(s *tracker.Score) (on [nStatistics]bool, val, lim [nStatistics]float64) {
 	st := u.stats
-	on = [nStatistics]bool{st.T2, st.SPE, st.Phi, st.Residual, st.Variance, st.Relation}
+	on = [nStatistics]bool{st.T2, st.SPE, st.Phi, st.Residual, st.Variance, st.Relation, st.Mewma}
 	for k := range val {
 		v, l := statFields(s, k)
 		val[k], lim[k] = *v, *l
@@ -99,6 +102,12 @@ func (u *Unit) StatScale(name string) float64 {
 	}
 	return u.limitScale()
 }
+
+// mewmaRel returns the factor by which the budget calibration raises the
+// MEWMA statistic's limit over the RBC index's (φ): the tracker ranks the
+// contributors by the MEWMA statistic only when it is further over its
+// own alarm limit than φ over its (tracker.SetMewmaScale).
+func (u *Unit) mewmaRel() float64 { return u.statScale(slotMewma) / u.statScale(2) }
 
 // setCalibration sets the unit's budget calibration (nil or unusable:
 // none).

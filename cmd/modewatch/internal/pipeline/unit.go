@@ -340,6 +340,7 @@ func (u *Unit) stepModel(f *stream.Frame) {
 	// learns the last frame before it is due (NextRefresh == 1 before).
 	refreshDue := !u.frozen && u.score.NextRefresh == 1
 	t0 := time.Now()
+	u.tr.SetMewmaScale(u.mewmaRel())
 	err := u.tr.StepMasked(&u.score, u.x, u.miss, u.lagMask(u.learnMask()))
 	if refreshDue && err == nil {
 		u.refreshes++
