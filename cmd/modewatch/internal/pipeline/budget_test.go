@@ -759,3 +759,53 @@ func TestSerialLearnerAutocorr(t *testing.T) {
 		t.Errorf("constant channel: %v, want nil", r)
 	}
 }
+
+// TestBudgetMewmaOwnScale: the AR(1) plant of TestBudgetAR1 with a fourth,
+// smoothed statistic in the MEWMA slot (the EWMA, λ = 0.02, of its SPE
+// ratio, times (2 − λ)/λ: far more serially correlated than the per-frame
+// ratios and on another scale). The calibration gives it a scale of its
+// own and T², SPE and φ one scale together, keeps the whole rule within
+// the budget's share of held-out alerts, and the rate measured over 100
+// further days lies within the calibration's 95 % interval (invented
+// series, seeded; derived check).
+func TestBudgetMewmaOwnScale(t *testing.T) {
+	tr, a, rule, t0 := fittedAR1(t)
+	const period, day = time.Minute, 24 * 60
+	const budget, lam = 1.0, 0.02
+	smooth := func(r [][nStatistics]float64) {
+		z := 0.0
+		for k := range r {
+			z += lam * (r[k][1] - z)
+			r[k][slotMewma] = (2 - lam) / lam * z
+		}
+	}
+	ct, cr := ratiosOf(t, tr, a, t0, period, 10*day)
+	smooth(cr)
+	rr := &RatioRecorder{units: map[string]*ratioSeries{"u": {t: ct, r: cr, spread: make([]bool, len(ct))}}}
+	cal, err := rr.Calibrate("u", budget, rule, 5, false, false, 0)
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Logf("scales %v, single ×%.3f, expected %.3f/day [%.3f, %.3f], held-out alerts %d", cal.Scales, cal.Scale, cal.Rate, cal.RateLow, cal.RateHigh, cal.Observed)
+	m, ok := cal.Scales[alerts.StatMewma]
+	if !ok || cal.Scales[alerts.StatT2] != cal.Scales[alerts.StatSPE] || cal.Scales[alerts.StatSPE] != cal.Scales[alerts.StatPhi] {
+		t.Fatalf("scales %v: want one for t2, spe and phi together and one for mewma", cal.Scales)
+	}
+	if m < 2*cal.Scales[alerts.StatSPE] {
+		t.Errorf("mewma ×%.3f, spe ×%.3f: the smoothed statistic's heavier tail should give it the larger scale", m, cal.Scales[alerts.StatSPE])
+	}
+	if allow := heldOutAllowance(budget, cal.HeldOutDays); float64(cal.Observed) > allow {
+		t.Errorf("%d held-out alerts, allowance %.2f", cal.Observed, allow)
+	}
+	lt, lr := ratiosOf(t, tr, a, t0.Add(10*day*period), period, 100*day)
+	smooth(lr)
+	var sc [nStatistics]float64
+	for j, n := range statNames {
+		sc[j] = cal.Scales[n]
+	}
+	got := float64(countAlertsEach(lt, lr, sc, rule)) / 100
+	t.Logf("measured %.2f false alerts/day over 100 days", got)
+	if got < cal.RateLow || got > cal.RateHigh {
+		t.Errorf("measured %.2f false alerts/day, outside the calibration's interval [%.3f, %.3f]", got, cal.RateLow, cal.RateHigh)
+	}
+}
