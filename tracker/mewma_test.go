@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"encoding/binary"
 	"errors"
+	"fmt"
 	"hash/crc32"
 	"math"
 	"slices"
@@ -274,5 +275,38 @@ func TestMewmaConfig(t *testing.T) {
 	tr, err := New(4, Config{Mewma: true})
 	if err != nil || tr.Config().MewmaLambda != DefaultMewmaLambda {
 		t.Errorf("default weight: %v, %v", tr.Config().MewmaLambda, err)
+	}
+}
+
+// BenchmarkFrameMewma measures one frame through Step with the residual
+// statistic alone and with the MEWMA statistic added (its extra forward
+// solve and mode scores of z̄), at p = 50 and 500, refresh every 64 frames
+// amortised: compare the two in the same run.
+func BenchmarkFrameMewma(b *testing.B) {
+	for _, p := range []int{50, 500} {
+		for _, mw := range []bool{false, true} {
+			name := fmt.Sprintf("p=%d/res", p)
+			if mw {
+				name += "+mewma"
+			}
+			b.Run(name, func(b *testing.B) {
+				frames := benchFrames(p, 256)
+				tr, err := New(p, Config{Period: time.Second, HalfLife: time.Hour, WarmUp: 256, Residual: true, Mewma: mw,
+					Modes: modes.Config{Count: 5, Sparsity: []modes.Sparsity{{Method: modes.L0, K: 10}}}})
+				if err != nil {
+					b.Fatal(err)
+				}
+				var sc Score
+				for k := 0; k < 600; k++ {
+					tr.Step(&sc, frames[k%256], nil)
+				}
+				b.ReportAllocs()
+				b.ResetTimer()
+				for i := 0; i < b.N; i++ {
+					tr.Step(&sc, frames[i%256], nil)
+				}
+				benchSink += sc.Mewma
+			})
+		}
 	}
 }
