@@ -16,12 +16,19 @@ func TestLagsValidation(t *testing.T) {
 		{"model: {lags: 9}\n", "model.lags"},
 		{"units: [{name: a, model: {lags: 20}}]\n", "lags"},
 	} {
-		_, err := Parse("t.yaml", []byte(c.yaml))
-		switch {
-		case c.want == "" && err != nil:
-			t.Errorf("%q: %v", c.yaml, err)
-		case c.want != "" && (err == nil || !strings.Contains(err.Error(), c.want)):
-			t.Errorf("%q: error %v, want one naming %s", c.yaml, err, c.want)
-		}
+		checkKeyError(t, c.yaml, c.want)
+	}
+}
+
+// checkKeyError parses the configuration text y and checks that it is
+// accepted (want "") or refused with an error naming want.
+func checkKeyError(t *testing.T, y, want string) {
+	t.Helper()
+	_, err := Parse("t.yaml", []byte(y))
+	switch {
+	case want == "" && err != nil:
+		t.Errorf("%q: %v", y, err)
+	case want != "" && (err == nil || !strings.Contains(err.Error(), want)):
+		t.Errorf("%q: error %v, want one naming %s", y, err, want)
 	}
 }

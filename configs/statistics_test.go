@@ -42,12 +42,6 @@ func TestMewmaValidation(t *testing.T) {
 		{"model: {statistics: \"t2,mewmaa\"}\n", "model.statistics"},
 		{"units: [{name: a, model: {mewma_lambda: 2}}]\n", "mewma_lambda"},
 	} {
-		_, err := Parse("t.yaml", []byte(c.yaml))
-		switch {
-		case c.want == "" && err != nil:
-			t.Errorf("%q: %v", c.yaml, err)
-		case c.want != "" && (err == nil || !strings.Contains(err.Error(), c.want)):
-			t.Errorf("%q: error %v, want one naming %s", c.yaml, err, c.want)
-		}
+		checkKeyError(t, c.yaml, c.want)
 	}
 }

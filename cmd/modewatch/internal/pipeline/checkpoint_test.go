@@ -499,15 +499,7 @@ func TestCheckpointCarriedReadings(t *testing.T) {
 func TestCheckpointSmoothedAndVariance(t *testing.T) {
 	cfg, ch, frames := demoFrames(t, 4*time.Hour, configs.Model{WarmUp: 100, Smoothing: 0.1, Statistics: "t2,spe,phi,res,var"})
 
-	// Each unit's alarm statistics per frame, as exact bit patterns.
-	record := func(u *Unit) string {
-		var b strings.Builder
-		for _, s := range u.appendStats(nil) {
-			fmt.Fprintf(&b, "%s=%x/%x ", s.Name, math.Float64bits(s.Value), math.Float64bits(s.Limit))
-		}
-		return b.String()
-	}
-	run := newCutRun(t, Options{Config: cfg, Channels: ch, Period: demoPeriod}, frames, record)
+	run := newCutRun(t, Options{Config: cfg, Channels: ch, Period: demoPeriod}, frames, statBits)
 	carried := 0
 	for _, u := range run.cut.Units() {
 		carried += len(u.smoothedState())
@@ -528,6 +520,16 @@ func TestCheckpointSmoothedAndVariance(t *testing.T) {
 	if _, errs := pd.Restore(cks[:1]); len(errs) != 1 || !strings.Contains(errs[0].Error(), cks[0].Units[0].Name) {
 		t.Errorf("negative smoothed ratio: %v", errs)
 	}
+}
+
+// statBits records a unit's alarm statistics of the current frame (values
+// and scaled limits) as exact bit patterns.
+func statBits(u *Unit) string {
+	var b strings.Builder
+	for _, s := range u.appendStats(nil) {
+		fmt.Fprintf(&b, "%s=%x/%x ", s.Name, math.Float64bits(s.Value), math.Float64bits(s.Limit))
+	}
+	return b.String()
 }
 
 type unitPub struct {
@@ -1139,18 +1141,12 @@ func TestCheckpointBadQualityProfile(t *testing.T) {
 // statistics, a run cut in the middle, checkpointed and restored gives
 // bit-identical alarm statistics (values and scaled limits; the alarm
 // state steers learning, so they also show it) for the second half to an
-// uninterrupted run: its smoothed frame travels in the tracker's state. Restoring the same checkpoint with the smoothed frame set to
-// zero gives different statistics, so the comparison can see it.
+// uninterrupted run: its smoothed frame travels in the tracker's state.
+// Restoring the same checkpoint with the smoothed frame set to zero gives
+// different statistics, so the comparison can see it.
 func TestCheckpointMewma(t *testing.T) {
 	cfg, ch, frames := demoFrames(t, 4*time.Hour, configs.Model{WarmUp: 100, Statistics: "t2,spe,phi,res,mewma", MewmaLambda: 0.05})
-	record := func(u *Unit) string {
-		var b strings.Builder
-		for _, s := range u.appendStats(nil) {
-			fmt.Fprintf(&b, "%s=%x/%x ", s.Name, math.Float64bits(s.Value), math.Float64bits(s.Limit))
-		}
-		return b.String()
-	}
-	run := newCutRun(t, Options{Config: cfg, Channels: ch, Period: demoPeriod}, frames, record)
+	run := newCutRun(t, Options{Config: cfg, Channels: ch, Period: demoPeriod}, frames, statBits)
 	mewmas := 0
 	for _, recs := range run.wholeRecs {
 		for _, s := range recs {
