@@ -211,6 +211,43 @@ func TestCheckpointVersion1(t *testing.T) {
 	stepBoth(t, tr, restoreTracker(t, p, cfg, v1), src, p, 50, "version 1 restore")
 }
 
+// recordSteps steps tr through xs and returns pick of every frame's
+// score; a frame whose score is not ready or that ready rejects fails the
+// test, naming what it lacks.
+func recordSteps[T any](t *testing.T, tr *Tracker, xs [][]float64, what string, ready func(*Score) bool, pick func(*Score) T) []T {
+	t.Helper()
+	out := make([]T, len(xs))
+	var sc Score
+	for k, x := range xs {
+		if err := tr.Step(&sc, x, nil); err != nil {
+			t.Fatal(err)
+		}
+		if !sc.Ready || !ready(&sc) {
+			t.Fatalf("frame %d: no %s (%+v)", k, what, sc)
+		}
+		out[k] = pick(&sc)
+	}
+	return out
+}
+
+// replaysSame restores a tracker from ck (p channels, cfg), steps it
+// through xs and reports whether pick of every frame's score is the same
+// as want's (by same), and the first frame that is not (−1: none).
+func replaysSame[T any](t *testing.T, p int, cfg Config, ck []byte, xs [][]float64, want []T, pick func(*Score) T, same func(a, b T) bool) (bool, int) {
+	t.Helper()
+	re := restoreTracker(t, p, cfg, ck)
+	var sc Score
+	for k, x := range xs {
+		if err := re.Step(&sc, x, nil); err != nil {
+			t.Fatal(err)
+		}
+		if !same(pick(&sc), want[k]) {
+			return false, k
+		}
+	}
+	return true, -1
+}
+
 // steppedTracker returns a tracker of p channels that has stepped n frames
 // of its stream, the stream, and the tracker's checkpoint.
 func steppedTracker(t *testing.T, p int, cfg Config, n int) (*Tracker, *gaussSource, []byte) {
@@ -235,30 +272,13 @@ func TestCheckpointVarianceState(t *testing.T) {
 	tr, src, ck := steppedTracker(t, p, cfg, 317) // mid-batch, between refreshes
 	xs := src.frames(300, p)
 	type rv struct{ r, v, rl, vl float64 }
-	want := make([]rv, len(xs))
-	var sc Score
-	for k, x := range xs {
-		if err := tr.Step(&sc, x, nil); err != nil {
-			t.Fatal(err)
-		}
-		if !sc.Ready || !(sc.VarianceLimit > 0) {
-			t.Fatalf("frame %d: no variance statistic (%+v)", k, sc)
-		}
-		want[k] = rv{sc.Residual, sc.Variance, sc.ResidualLimit, sc.VarianceLimit}
-	}
+	pick := func(sc *Score) rv { return rv{sc.Residual, sc.Variance, sc.ResidualLimit, sc.VarianceLimit} }
+	want := recordSteps(t, tr, xs, "variance statistic", func(sc *Score) bool { return sc.VarianceLimit > 0 }, pick)
 	replay := func(ck []byte) (same bool, first int) {
-		re := restoreTracker(t, p, cfg, ck)
-		for k, x := range xs {
-			if err := re.Step(&sc, x, nil); err != nil {
-				t.Fatal(err)
-			}
-			got := rv{sc.Residual, sc.Variance, sc.ResidualLimit, sc.VarianceLimit}
-			if math.Float64bits(got.r) != math.Float64bits(want[k].r) || math.Float64bits(got.v) != math.Float64bits(want[k].v) ||
-				got.rl != want[k].rl || got.vl != want[k].vl {
-				return false, k
-			}
-		}
-		return true, -1
+		return replaysSame(t, p, cfg, ck, xs, want, pick, func(a, b rv) bool {
+			return math.Float64bits(a.r) == math.Float64bits(b.r) && math.Float64bits(a.v) == math.Float64bits(b.v) &&
+				a.rl == b.rl && a.vl == b.vl
+		})
 	}
 	if same, k := replay(ck); !same {
 		t.Fatalf("frame %d after restore: variance or residual statistic differs from the uninterrupted run", k)

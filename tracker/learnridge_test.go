@@ -34,10 +34,7 @@ func TestLearnRidgeSameAsOwnFactor(t *testing.T) {
 			c.LearnRidge = LearnRidgeMissing
 		}
 	})
-	rp := &relationPlant{rng: rand.New(rand.NewPCG(31, 5))}
-	x := make([]float64, p)
-	mask := make([]bool, p)
-	mask[2], mask[9] = true, true
+	rp, x, mask := maskedRelationPlant(31, 5, 2, 9)
 	var sc [4]Score
 	learned := 0
 	for f := 0; f < 500; f++ {

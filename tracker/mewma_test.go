@@ -21,21 +21,7 @@ import (
 // independent factors, channels 0–3 by the first and 4–7 by the second,
 // each with loading 0.9 and independent noise of variance 0.19: r = 0.81
 // within a group, 0 across. Two modes leave p − r = 6 residual dimensions.
-func twoFactorCorr() *mat.SymDense {
-	const p = 8
-	c := mat.NewSymDense(p, nil)
-	for i := 0; i < p; i++ {
-		for j := i; j < p; j++ {
-			switch {
-			case i == j:
-				c.SetSym(i, j, 1)
-			case i/4 == j/4:
-				c.SetSym(i, j, 0.81)
-			}
-		}
-	}
-	return c
-}
+func twoFactorCorr() *mat.SymDense { return blockCorrelation(8, 4, 0.81) }
 
 // mewmaBaseline returns a tracker of the two-factor channels fitted as a
 // baseline on n frames of src (held fixed: every later frame is scored
@@ -187,28 +173,10 @@ func TestCheckpointMewmaState(t *testing.T) {
 		Mewma: true, MewmaLambda: 0.1, Modes: modes.Config{Count: 2}}
 	tr, src, ck := steppedTracker(t, p, cfg, 317)
 	xs := src.frames(300, p)
-	want := make([]float64, len(xs))
-	var sc Score
-	for k, x := range xs {
-		if err := tr.Step(&sc, x, nil); err != nil {
-			t.Fatal(err)
-		}
-		if !sc.Ready || !(sc.MewmaLimit > 0) {
-			t.Fatalf("frame %d: no MEWMA statistic (%+v)", k, sc)
-		}
-		want[k] = sc.Mewma
-	}
+	pick := func(sc *Score) float64 { return sc.Mewma }
+	want := recordSteps(t, tr, xs, "MEWMA statistic", func(sc *Score) bool { return sc.MewmaLimit > 0 }, pick)
 	replay := func(ck []byte) (same bool, first int) {
-		re := restoreTracker(t, p, cfg, ck)
-		for k, x := range xs {
-			if err := re.Step(&sc, x, nil); err != nil {
-				t.Fatal(err)
-			}
-			if math.Float64bits(sc.Mewma) != math.Float64bits(want[k]) {
-				return false, k
-			}
-		}
-		return true, -1
+		return replaysSame(t, p, cfg, ck, xs, want, pick, func(a, b float64) bool { return math.Float64bits(a) == math.Float64bits(b) })
 	}
 	if same, k := replay(ck); !same {
 		t.Fatalf("frame %d after restore: MEWMA statistic differs from the uninterrupted run", k)

@@ -169,11 +169,8 @@ func TestSharedFactorSameScores(t *testing.T) {
 	newTrackers(t, trs[:], p, func(k int, c *Config) {
 		c.Residual, c.Ridge, c.ResidualRidge = k == 0, DefaultResidualRidge, DefaultResidualRidge
 	})
-	rp := &relationPlant{rng: rand.New(rand.NewPCG(29, 1))}
-	x := make([]float64, p)
+	rp, x, mask := maskedRelationPlant(29, 1, 2, 5)
 	miss := make([]bool, p)
-	mask := make([]bool, p)
-	mask[2], mask[5] = true, true
 	var sc [2]Score
 	incomplete := 0
 	for f := 0; f < 400; f++ {

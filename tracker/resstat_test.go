@@ -37,6 +37,16 @@ type relationPlant struct {
 	f   [3]float64
 }
 
+// maskedRelationPlant returns the plant seeded by (s1, s2), a frame
+// buffer for its 12 channels and a mask with the given channels set.
+func maskedRelationPlant(s1, s2 uint64, masked ...int) (*relationPlant, []float64, []bool) {
+	x, mask := make([]float64, 12), make([]bool, 12)
+	for _, k := range masked {
+		mask[k] = true
+	}
+	return &relationPlant{rng: rand.New(rand.NewPCG(s1, s2))}, x, mask
+}
+
 // relations lists the sensors of each planted relation.
 var relations = [3][]int{{0, 1, 9}, {3, 4, 10}, {6, 7, 11}}
 

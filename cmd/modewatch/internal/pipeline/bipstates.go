@@ -133,21 +133,10 @@ func (s *unitStates) combine(cur *tracker.Score, ci int, x []float64, miss []boo
 // statFields returns the value and the limit of statistic slot st of s
 // (statNames' order).
 func statFields(s *tracker.Score, st int) (v, lim *float64) {
-	switch st {
-	case 0:
-		return &s.T2, &s.T2Limit
-	case 1:
-		return &s.SPE, &s.SPELimit
-	case 2:
-		return &s.Phi, &s.PhiLimit
-	case 3:
-		return &s.Residual, &s.ResidualLimit
-	case 4:
-		return &s.Variance, &s.VarianceLimit
-	case 5:
-		return &s.Relation, &s.RelationLimit
-	}
-	return &s.Mewma, &s.MewmaLimit
+	vs := [...]*float64{&s.T2, &s.SPE, &s.Phi, &s.Residual, &s.Variance, &s.Relation, &s.Mewma}
+	lims := [...]*float64{&s.T2Limit, &s.SPELimit, &s.PhiLimit, &s.ResidualLimit, &s.VarianceLimit, &s.RelationLimit, &s.MewmaLimit}
+	st = min(max(st, 0), len(vs)-1)
+	return vs[st], lims[st]
 }
 
 // statDOF returns the degrees of freedom of statistic slot st under the
