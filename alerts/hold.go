@@ -18,8 +18,8 @@ import (
 //
 // Bounded hold. An incident whose level (the largest statistic/limit
 // ratio of each frame, smoothed over about holdSmooth frames) has not
-// grown by more than holdGrowth (relative) and whose location has not
-// grown for
+// grown by more than holdGrowth (relative to the level a growth settled
+// at, holdSettle) and whose location has not grown for
 // Rules.AcceptAfter of frame time is taken as the plant's new normal: its
 // channels leave the mask and are learned again, its record says so
 // (Accepted, ModelState ModelAccepted), and it ends with EndNewNormal once
@@ -72,13 +72,26 @@ const holdGrowth = 0.25
 // that the level is a level and not the noise's largest excursion).
 const holdSmooth = 30
 
+// holdSettle is how many frames after a growth the level is still taken
+// as rising to where the growth brings it: the reference the next growth
+// is measured against follows the level up for that long, without
+// restarting the hold (design choice: three spans of the level's
+// smoothing, after which it has covered 95 % of a step, since
+// (1 − 1/holdSmooth)^(3·holdSmooth) ≈ 0.05). Measured against the level
+// at the growth itself, while the smoothed level was still catching up
+// with a fault ramping in, a flat fault's own slow wander (on the water
+// works' pump wear ±15 % over hours) crossed the quarter and kept the
+// hold restarting.
+const holdSettle = 3 * holdSmooth
+
 // holdBy names the bounded hold as the author of an automatic acceptance.
 const holdBy = "modewatch bounded hold"
 
 // holdState is the bounded hold of one model incident.
 type holdState struct {
 	growth   time.Time // last growth of the level or the location
-	ref      float64   // level at the last growth
+	ref      float64   // level at the last growth, followed up while settling
+	settle   int       // frames left in which ref follows the level up
 	level    float64   // smoothed largest statistic/limit ratio
 	accepted *Ack      // who accepted it and when; nil while held
 }
@@ -114,8 +127,12 @@ func (e *Engine) stepHolds(u *unit, o *Observation, t time.Time) {
 			h.level += (r - h.level) / holdSmooth
 		}
 		if h.level > h.ref*(1+holdGrowth) {
-			h.growth, h.ref = t, h.level
+			h.growth, h.ref, h.settle = t, h.level, holdSettle
 			continue
+		}
+		if h.settle > 0 {
+			h.settle--
+			h.ref = max(h.ref, h.level)
 		}
 		if after > 0 && t.Sub(h.growth) >= after {
 			h.accepted = &Ack{By: holdBy, At: t.UTC(), Comment: "flat for " + after.String() + " (accept_after): learned as the new normal"}

@@ -485,6 +485,7 @@ type snapLoc struct {
 	MergedInto  string         `json:"merged_into,omitempty"`
 	Growth      time.Time      `json:"hold_growth"`
 	Ref         float64        `json:"hold_ref"`
+	Settle      int            `json:"hold_settle,omitempty"`
 	Level       float64        `json:"hold_level"`
 	Candidates  map[string]int `json:"candidates,omitempty"`
 	Accepted    *Ack           `json:"accepted,omitempty"`
@@ -495,7 +496,7 @@ func snapLocOf(l *locState) *snapLoc {
 		return nil
 	}
 	return &snapLoc{Channels: l.channels, LastSupport: l.lastSupport, Merged: l.merged, MergedInto: l.mergedInto,
-		Growth: l.hold.growth, Ref: l.hold.ref, Level: l.hold.level, Accepted: l.hold.accepted, Candidates: l.cand}
+		Growth: l.hold.growth, Ref: l.hold.ref, Settle: l.hold.settle, Level: l.hold.level, Accepted: l.hold.accepted, Candidates: l.cand}
 }
 
 func (s *snapLoc) restore() *locState {
@@ -503,7 +504,7 @@ func (s *snapLoc) restore() *locState {
 		return nil
 	}
 	l := &locState{lastSupport: s.LastSupport, merged: s.Merged, mergedInto: s.MergedInto,
-		hold: holdState{growth: s.Growth, ref: s.Ref, level: s.Level, accepted: s.Accepted}, cand: s.Candidates}
+		hold: holdState{growth: s.Growth, ref: s.Ref, settle: s.Settle, level: s.Level, accepted: s.Accepted}, cand: s.Candidates}
 	l.add(s.Channels)
 	return l
 }
