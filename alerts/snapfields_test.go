@@ -65,6 +65,7 @@ func TestSnapIncidentRoundTrip(t *testing.T) {
 		var si snapIncident
 		fillRandom(reflect.ValueOf(&si).Elem(), rng)
 		si.Group, si.Flood = "", ""
+		si.Location.Settle %= holdSettle + 1 // within the range a restore accepts
 		incs, err := buildIncidents(&snapshot{Incidents: []snapIncident{si}})
 		if err != nil {
 			t.Fatal(err)

@@ -6,6 +6,7 @@ import (
 	"errors"
 	"fmt"
 	"io"
+	"math"
 	"slices"
 	"time"
 )
@@ -477,6 +478,11 @@ func buildIncidents(s *snapshot) (map[string]*incident, error) {
 		}
 		for k, st := range si.Stats {
 			inc.stats[k] = statPeak{used: st.Used, RecordStat: st.RecordStat}
+		}
+		if l := si.Location; l != nil && (l.Settle < 0 || l.Settle > holdSettle || !(l.Ref >= 0) || !(l.Level >= 0) ||
+			math.IsInf(l.Ref, 0) || math.IsInf(l.Level, 0)) {
+			return nil, fmt.Errorf("incident %q: bounded hold level %v, reference %v, settling %d frames (at most %d)",
+				si.ID, l.Level, l.Ref, l.Settle, holdSettle)
 		}
 		inc.loc = si.Location.restore()
 		incs[si.ID] = inc

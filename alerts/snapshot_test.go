@@ -153,6 +153,14 @@ func TestRestoreRejects(t *testing.T) {
 			t.Errorf("%s: accepted", bad)
 		}
 	}
+	// A bounded hold out of its range (settling frames, reference, level)
+	// is refused as such, before the incident is looked for in its unit.
+	for _, hold := range []string{`"hold_settle":-1`, `"hold_settle":100000`, `"hold_ref":-1`, `"hold_level":-0.5`} {
+		bad := `{"version":2,"incidents":[{"id":"u/model/1","location":{` + hold + `}}]}`
+		if err := e.Restore(strings.NewReader(bad)); err == nil || !strings.Contains(err.Error(), "bounded hold") {
+			t.Errorf("%s: %v, want the bounded hold refused", bad, err)
+		}
+	}
 }
 
 // TestSnapshotUnit: one unit's state, snapshotted alone at any frame and
