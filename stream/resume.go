@@ -6,10 +6,10 @@ import (
 )
 
 // ResumeAt makes the first frame the aligner emits the one whose time
-// (Frame.Start) is at or after t, so that an aligner started afresh after a checkpoint whose
-// last frame began at T (ResumeAt(T + Period)) emits the frames right
-// after it even when they hold only readings carried from before it (see
-// Seed), as an uninterrupted run would. Without it the first frame is that
+// (Frame.Start) is at or after t, so that an aligner started afresh after
+// a checkpoint whose last frame was at T (ResumeAt(T + Period)) emits the
+// frames right after it even when they hold only readings carried from
+// before it (see Seed), as an uninterrupted run would. Without it the first frame is that
 // of the first reading. Readings before t still extend the segment
 // backwards until the first emission (the caller skips frames it scored
 // already). It must be called before the first reading (else ErrSeedLate).
