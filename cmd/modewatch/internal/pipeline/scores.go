@@ -38,7 +38,7 @@ func (e *ScoreEncoder) Append(u *Unit, t time.Time) []byte {
 		for _, f := range [...]struct {
 			key string
 			v   float64
-		}{{"t2", s.T2}, {"t2_limit", u.statScale(0) * s.T2Limit}, {"spe", s.SPE}, {"spe_limit", u.statScale(1) * s.SPELimit}, {"phi", s.Phi}, {"phi_limit", u.statScale(2) * s.PhiLimit}} {
+		}{{"t2", s.T2}, {"t2_limit", u.statScale(slotT2) * s.T2Limit}, {"spe", s.SPE}, {"spe_limit", u.statScale(slotSPE) * s.SPELimit}, {"phi", s.Phi}, {"phi_limit", u.statScale(slotPhi) * s.PhiLimit}} {
 			if v, ok := lineprotocol.FloatValue(f.v); ok { // false: not finite
 				e.enc.AddField(f.key, v)
 			}

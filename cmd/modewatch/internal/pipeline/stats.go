@@ -24,8 +24,16 @@ func alarmStats(m configs.Model) configs.Statistics {
 var statNames = [nStatistics]string{alerts.StatT2, alerts.StatSPE, alerts.StatPhi,
 	alerts.StatResidual, alerts.StatVariance, alerts.StatRelation, alerts.StatMewma}
 
-// slotMewma is the slot of the MEWMA statistic in statNames.
-const slotMewma = 6
+// The slots of the statistics in statNames.
+const (
+	slotT2 = iota
+	slotSPE
+	slotPhi
+	slotResidual
+	slotVariance
+	slotRelation
+	slotMewma
+)
 
 // statSlots returns, in the order of statNames, whether each statistic
 // raises alarms (model.statistics) and its value and limit in score s
@@ -107,7 +115,7 @@ func (u *Unit) StatScale(name string) float64 {
 // MEWMA statistic's limit over the RBC index's (φ): the tracker ranks the
 // contributors by the MEWMA statistic only when it is further over its
 // own alarm limit than φ over its (tracker.SetMewmaScale).
-func (u *Unit) mewmaRel() float64 { return u.statScale(slotMewma) / u.statScale(2) }
+func (u *Unit) mewmaRel() float64 { return u.statScale(slotMewma) / u.statScale(slotPhi) }
 
 // setCalibration sets the unit's budget calibration (nil or unusable:
 // none).
@@ -139,7 +147,7 @@ func (u *Unit) DropCalibration() { u.setCalibration(nil) }
 // the others with zero share and RBC (their contribution to the RBC index
 // was below the reported ones); the other contributors follow in rank.
 func (u *Unit) leadRelation(o *alerts.Observation, s *tracker.Score) {
-	if !u.stats.Relation || s.RelationMode < 0 || !(s.Relation > s.RelationLimit*u.statScale(5)) {
+	if !u.stats.Relation || s.RelationMode < 0 || !(s.Relation > s.RelationLimit*u.statScale(slotRelation)) {
 		return
 	}
 	supp := u.tr.RelationSupport(s.RelationMode)

@@ -164,7 +164,7 @@ func (u *Unit) View(t time.Time) UnitView {
 	v.EffectiveN = s.NEff
 	v.RefreshIterations = u.tr.Modes().Iterations()
 	v.Refreshes, v.LastRefreshS = u.refreshes, u.lastRefresh.Seconds()
-	c2, cq, cp := u.statScale(0), u.statScale(1), u.statScale(2)
+	c2, cq, cp := u.statScale(slotT2), u.statScale(slotSPE), u.statScale(slotPhi)
 	if s.Ready {
 		v.Limits = &LimitsView{Alpha: u.tr.Config().Alpha, T2: finite(c2 * s.T2Limit), SPE: finite(cq * s.SPELimit), Phi: finite(cp * s.PhiLimit)}
 	}
