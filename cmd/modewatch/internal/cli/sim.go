@@ -3,7 +3,9 @@ package cli
 import (
 	"context"
 	"errors"
+	"flag"
 	"fmt"
+	"runtime"
 	"strings"
 	"time"
 
@@ -15,7 +17,7 @@ func init() {
 }
 
 func runSim(ctx context.Context, env IO, args []string) error {
-	fs := newFlags(env, "sim", "[--scenario FILE] --out DIR [--gz] | --suite [--config FILE] [--plants A,B] [--days D] [--out DIR] [--json]", `
+	fs := newFlags(env, "sim", "[--scenario FILE] --out DIR [--gz] | --suite [--seeds N [--jobs J]] [--config FILE] [--plants A,B] [--days D] [--out DIR] [--json]", `
 Generate the readings of an invented plant from a scenario file (YAML) as
 line protocol, together with the truth file of its labelled fault
 episodes. Output is deterministic for a given scenario seed. Without
@@ -25,6 +27,18 @@ Writes DIR/readings.lp (or readings.lp.gz with --gz) and DIR/truth.json; a
 scenario with a split (the realism plants) writes DIR/normal.lp, the normal
 days to fit on, and DIR/test.lp, the days after the split, instead of
 readings.lp.
+
+--suite runs the realism suite (the plants of configs/realism and the
+demo) on each plant's own seed and prints one table. --suite --seeds N runs
+each plant on its shipped seed s and the next N-1, s+k for k = 0..N-1 (the
+compressor station 11001.., the district heating 11003.., the water works
+11002.., the demo 20260311..), and prints per plant the mean detected,
+isolated and false alerts a day, the share of runs meeting each target,
+the largest open share's mean and worst, and the per-unit budget summed
+over the runs (--json: every run's row and the summary). Runs are
+independent and go --jobs at a time; one seed of all four plants takes
+about 12 s of two cores, so --seeds 10 takes about 2 minutes on an idle
+2-core machine. With --out each run is kept in DIR/<plant>/<seed>.
 The data is invented, for demonstrations and tests only.`)
 	var scenario, out string
 	var gz bool
@@ -41,6 +55,9 @@ The data is invented, for demonstrations and tests only.`)
 	fs.StringVar(&plants, "plants", "", "with --suite: run only these plants (comma-separated names)")
 	fs.Float64Var(&days, "days", 0, "with --suite: keep only `D` days on each side of the split (a quick check)")
 	fs.BoolVar(&asJSON, "json", false, "with --suite: print the rows as JSON")
+	var seeds, jobs int
+	fs.IntVar(&seeds, "seeds", 0, "with --suite: run each plant on `N` seeds, its own and the next N-1, and sum the runs up (N = 10: about 2 min on 2 cores)")
+	fs.IntVar(&jobs, "jobs", runtime.GOMAXPROCS(0), "with --suite --seeds: runs at once")
 	pos, err := parseAll(fs, args)
 	if err != nil {
 		return err
@@ -48,6 +65,8 @@ The data is invented, for demonstrations and tests only.`)
 	if len(pos) > 0 {
 		return usagef("unexpected arguments %q", pos)
 	}
+	set := map[string]bool{}
+	fs.Visit(func(f *flag.Flag) { set[f.Name] = true })
 	if suite {
 		if scenario != "" || gz || duration != 0 {
 			return usagef("--suite runs the built-in plants: --scenario, --gz and --duration do not apply")
@@ -55,14 +74,26 @@ The data is invented, for demonstrations and tests only.`)
 		if days < 0 {
 			return usagef("--days %g: want D > 0", days)
 		}
-		opt := suiteOptions{config: config, days: days, out: out, json: asJSON}
+		opt := suiteOptions{config: config, days: days, out: out, json: asJSON, jobs: jobs}
 		if plants != "" {
 			opt.plants = strings.Split(plants, ",")
 		}
+		if set["seeds"] {
+			if seeds < 1 {
+				return usagef("--seeds %d: want N ≥ 1", seeds)
+			}
+			if jobs < 1 {
+				return usagef("--jobs %d: want J ≥ 1", jobs)
+			}
+			return runSuiteSeeds(ctx, env, opt, seeds, runSuitePlant)
+		}
+		if set["jobs"] {
+			return usagef("--jobs goes with --suite --seeds")
+		}
 		return runSuite(ctx, env, opt)
 	}
-	if config != "" || plants != "" || days != 0 || asJSON {
-		return usagef("--config, --plants, --days and --json go with --suite")
+	if config != "" || plants != "" || days != 0 || asJSON || set["seeds"] || set["jobs"] {
+		return usagef("--config, --plants, --days, --seeds, --jobs and --json go with --suite")
 	}
 	if out == "" {
 		return usagef("--out DIR is required")

@@ -6,7 +6,6 @@ import (
 	"encoding/json"
 	"fmt"
 	"io"
-	"os"
 	"path/filepath"
 	"slices"
 	"strings"
@@ -25,11 +24,15 @@ type suiteOptions struct {
 	days   float64  // > 0: keep only this many days on each side of the split
 	out    string   // "" : a temporary directory, removed afterwards
 	json   bool
+	jobs   int // with --seeds: runs at once (≤ 0: GOMAXPROCS)
 }
 
 // suiteRow is one plant's line of the suite table (and of --json).
 type suiteRow struct {
-	Plant        string           `json:"plant"`
+	Plant string `json:"plant"`
+	// Seed is the seed the plant's readings were drawn from (the plant
+	// file's, or one of the sequence of "--seeds").
+	Seed         uint64           `json:"seed"`
 	Period       string           `json:"period"`
 	Channels     int              `json:"channels"`
 	Units        int              `json:"units"`
@@ -117,19 +120,13 @@ func runSuite(ctx context.Context, env IO, opt suiteOptions) error {
 	if err != nil {
 		return err
 	}
-	dir := opt.out
-	if dir == "" {
-		if dir, err = os.MkdirTemp("", "modewatch-suite-"); err != nil {
-			return err
-		}
-		defer os.RemoveAll(dir)
+	dir, cleanup, err := suiteDir(opt)
+	if err != nil {
+		return err
 	}
-	settings := "default settings"
-	if opt.config != "" {
-		settings = "settings of " + opt.config
-	}
+	defer cleanup()
 	if !opt.json {
-		fmt.Fprintf(env.Out, "realism suite: per plant, fit on the normal days, replay the test days from that model, %s;\n", settings)
+		fmt.Fprintf(env.Out, "realism suite: per plant, fit on the normal days, replay the test days from that model, %s;\n", suiteSettings(opt))
 		fmt.Fprintln(env.Out, "alerts scored strictly (an alert counts only in the unit that holds the faulty channel). Invented plants.")
 	}
 	var rows []suiteRow
@@ -163,7 +160,7 @@ func runSuitePlant(ctx context.Context, dir string, p suitePlant, opt suiteOptio
 		keep := time.Duration(opt.days * float64(24*time.Hour))
 		from, to = maxTime(from, s.Split.Add(-keep)), minTime(to, s.Split.Add(keep))
 	}
-	row := suiteRow{Plant: p.name, Period: s.Period.String(), Channels: len(s.Channels()), Units: len(s.Units),
+	row := suiteRow{Plant: p.name, Seed: s.Seed, Period: s.Period.String(), Channels: len(s.Channels()), Units: len(s.Units),
 		NormalDays: s.Split.Sub(from).Hours() / 24, TestDays: to.Sub(s.Split).Hours() / 24, Kinds: map[string]suiteDetect{}}
 	fail := func(err error) suiteRow {
 		row.Error = err.Error()
