@@ -116,11 +116,7 @@ func suitePlants(names []string) ([]suitePlant, error) {
 // the test days from that model against the labelled faults, with the
 // default settings (or --config), and one table sums it up.
 func runSuite(ctx context.Context, env IO, opt suiteOptions) error {
-	plants, err := suitePlants(opt.plants)
-	if err != nil {
-		return err
-	}
-	dir, cleanup, err := suiteDir(opt)
+	plants, dir, cleanup, err := suiteSetup(opt)
 	if err != nil {
 		return err
 	}

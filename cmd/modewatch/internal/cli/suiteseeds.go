@@ -12,6 +12,7 @@ import (
 	"strconv"
 	"strings"
 	"sync"
+	"sync/atomic"
 	"text/tabwriter"
 	"time"
 
@@ -265,16 +266,24 @@ func runSeedRuns(ctx context.Context, dir string, plants []suitePlant, n, jobs i
 		jobs = runtime.GOMAXPROCS(0)
 	}
 	rows := make([]suiteRow, len(runs))
-	next := make(chan int)
+	var next atomic.Int64 // the next run to start
 	var wg sync.WaitGroup
 	var mu sync.Mutex
 	for range min(jobs, len(runs)) {
 		wg.Add(1)
 		go func() {
 			defer wg.Done()
-			for i := range next {
+			for {
+				i := int(next.Add(1) - 1)
+				if i >= len(runs) {
+					return
+				}
 				r := runs[i]
 				p := plants[r.plant]
+				if err := ctx.Err(); err != nil {
+					rows[i] = suiteRow{Plant: p.name, Seed: r.seed, Error: err.Error()}
+					continue
+				}
 				s := p.s.Clone()
 				s.Seed = r.seed
 				d := filepath.Join(dir, p.name, strconv.FormatUint(r.seed, 10))
@@ -290,22 +299,8 @@ func runSeedRuns(ctx context.Context, dir string, plants []suitePlant, n, jobs i
 			}
 		}()
 	}
-	var err error
-feed:
-	for i := range runs {
-		select {
-		case next <- i:
-		case <-ctx.Done():
-			err = ctx.Err()
-			break feed
-		}
-	}
-	close(next)
 	wg.Wait()
-	if err == nil {
-		err = ctx.Err()
-	}
-	return rows, err
+	return rows, ctx.Err()
 }
 
 // seedsReport is the JSON of "sim --suite --seeds N": every run's row, in
@@ -322,11 +317,7 @@ type seedsReport struct {
 // named by plant and seed in the table and in the returned error; the
 // others are still summed up.
 func runSuiteSeeds(ctx context.Context, env IO, opt suiteOptions, n int, run suiteRunner) error {
-	plants, err := suitePlants(opt.plants)
-	if err != nil {
-		return err
-	}
-	dir, cleanup, err := suiteDir(opt)
+	plants, dir, cleanup, err := suiteSetup(opt)
 	if err != nil {
 		return err
 	}
@@ -373,16 +364,20 @@ func suiteSettings(opt suiteOptions) string {
 	return "default settings"
 }
 
-// suiteDir returns the directory the suite writes its plants to: --out,
-// or a temporary directory that cleanup removes.
-func suiteDir(opt suiteOptions) (dir string, cleanup func(), err error) {
+// suiteSetup loads the plants of --plants and returns the directory the
+// suite writes them to: --out, or a temporary directory that cleanup
+// removes.
+func suiteSetup(opt suiteOptions) (plants []suitePlant, dir string, cleanup func(), err error) {
+	if plants, err = suitePlants(opt.plants); err != nil {
+		return nil, "", nil, err
+	}
 	if opt.out != "" {
-		return opt.out, func() {}, nil
+		return plants, opt.out, func() {}, nil
 	}
 	if dir, err = os.MkdirTemp("", "modewatch-suite-"); err != nil {
-		return "", nil, err
+		return nil, "", nil, err
 	}
-	return dir, func() { os.RemoveAll(dir) }, nil
+	return plants, dir, func() { os.RemoveAll(dir) }, nil
 }
 
 // printSuiteSeeds prints the table of the suite over seeds.
