@@ -37,8 +37,9 @@ isolated and false alerts a day, the share of runs meeting each target,
 the largest open share's mean and worst, and the per-unit budget summed
 over the runs (--json: every run's row and the summary). Runs are
 independent and go --jobs at a time; one seed of all four plants takes
-about 12 s of two cores, so --seeds 10 takes about 2 minutes on an idle
-2-core machine. With --out each run is kept in DIR/<plant>/<seed>.
+about 9 s of CPU, so --seeds 10 takes 1 to 2 minutes on 2 cores (more on
+a busy machine). With --out each run is kept in DIR/<plant>/<seed>
+(about 250 MB a seed); without it each run's files are removed as it ends.
 The data is invented, for demonstrations and tests only.`)
 	var scenario, out string
 	var gz bool
@@ -56,7 +57,7 @@ The data is invented, for demonstrations and tests only.`)
 	fs.Float64Var(&days, "days", 0, "with --suite: keep only `D` days on each side of the split (a quick check)")
 	fs.BoolVar(&asJSON, "json", false, "with --suite: print the rows as JSON")
 	var seeds, jobs int
-	fs.IntVar(&seeds, "seeds", 0, "with --suite: run each plant on `N` seeds, its own and the next N-1, and sum the runs up (N = 10: about 2 min on 2 cores)")
+	fs.IntVar(&seeds, "seeds", 0, "with --suite: run each plant on `N` seeds, its own and the next N-1, and sum the runs up (N = 10: 1–2 min on 2 cores)")
 	fs.IntVar(&jobs, "jobs", runtime.GOMAXPROCS(0), "with --suite --seeds: runs at once")
 	pos, err := parseAll(fs, args)
 	if err != nil {
