@@ -78,7 +78,7 @@ func unitBudget(name string, c pipeline.Calibration, k int, testDays float64) su
 	b := suiteBudget{Unit: name, Budget: c.Budget, Rate: c.Rate, RateLow: c.RateLow, RateHigh: c.RateHigh,
 		False: k, Measured: float64(k) / testDays, Expected: p.Expected, PredictedLow: p.Low, PredictedHigh: p.High}
 	b.CountLow, b.CountHigh = poissonInterval(k, testDays)
-	b.WithinFactor2 = b.Measured <= 2*b.Budget
+	b.WithinFactor2 = b.Measured <= targetBudgetFactor*b.Budget
 	b.InPrediction = p.Low <= k && k <= p.High
 	b.Consistent = b.CountLow <= b.RateHigh && b.RateLow <= b.CountHigh
 	return b

@@ -306,10 +306,23 @@ func TestSummariseSeeds(t *testing.T) {
 	budget := func(unit string, falses int, expected, perDay float64, within bool) suiteBudget {
 		return suiteBudget{Unit: unit, Budget: perDay, False: falses, Expected: expected, WithinFactor2: within}
 	}
-	// run makes one run's row of a plant with 10 episodes and 5 test days.
-	run := func(seed uint64, period string, det, iso int, perDay, delayS, open *float64, unit string, past int, b ...suiteBudget) suiteRow {
+	// run makes one run's row of a plant with 10 episodes and 5 test days,
+	// falses false alerts in them (falses/5 a day).
+	run := func(seed uint64, period string, det, iso, falses int, delayS, open *float64, unit string, past int, b ...suiteBudget) suiteRow {
 		return suiteRow{Plant: "p", Seed: seed, Period: period, TestDays: 5, WorstUnit: unit, OpenShare: open, PastHold: past, Budgets: b,
-			Metrics: evaluate.Metrics{Episodes: 10, Detected: det, IsolatedTop3: iso, FalseAlertsPerDay: perDay, MedianDelayS: delayS}}
+			Metrics: evaluate.Metrics{Episodes: 10, Detected: det, IsolatedTop3: iso, FalseAlerts: falses, FalseAlertsPerDay: f(float64(falses) / 5), MedianDelayS: delayS}}
+	}
+	// The replay's rate divides by the readings' own span, a little
+	// shorter than the 5 plant-days: 5 alerts can read 1.000002 a day and
+	// still meet the target of 1 a plant-day.
+	short := func(r suiteRow, perDay float64) suiteRow {
+		r.Metrics.FalseAlertsPerDay = &perDay
+		return r
+	}
+	// No test days: no rate, and the false-alert target does not apply.
+	noDays := func(r suiteRow) suiteRow {
+		r.TestDays, r.Metrics.FalseAlertsPerDay = 0, nil
+		return r
 	}
 	type shares = [7]int // met per target, in the order of suiteTargets
 	for _, c := range []struct {
@@ -327,15 +340,15 @@ func TestSummariseSeeds(t *testing.T) {
 		name: "three runs at 5 s",
 		rows: []suiteRow{
 			// 9/10 det, 8 iso, 0.2 a day, 10 min, 1 % open, 0 past hold, budget 1 of 2.5 expected, within.
-			run(11, "5s", 9, 8, f(0.2), f(600), f(0.01), "a", 0, budget("a", 1, 2.5, 0.25, true), budget("b", 0, 1.0, 0.25, true)),
-			// 8/10 det (80 % < 85 %), 7 iso (= 70 %), 1.0 a day (= 1), 30 min (= 30 min), 3 % (= 3 %).
-			run(12, "5s", 8, 7, f(1.0), f(1800), f(0.03), "b", 0, budget("a", 2, 2.5, 0.25, true), budget("b", 3, 1.0, 0.25, false)),
-			// 10/10, 6 iso (< 70 %), 1.6 a day, 31 min, 5 % open in "a", 2 past hold.
-			run(13, "5s", 10, 6, f(1.6), f(1860), f(0.05), "a", 2, budget("a", 5, 2.5, 0.25, false), budget("b", 1, 1.0, 0.25, true)),
+			run(11, "5s", 9, 8, 1, f(600), f(0.01), "a", 0, budget("a", 1, 2.5, 0.25, true), budget("b", 0, 1.0, 0.25, true)),
+			// 8/10 det (80 % < 85 %), 7 iso (= 70 %), 5 false alerts in 5 days (= 1 a day; the replay's rate 1.000002), 30 min (= 30 min), 3 % (= 3 %).
+			short(run(12, "5s", 8, 7, 5, f(1800), f(0.03), "b", 0, budget("a", 2, 2.5, 0.25, true), budget("b", 3, 1.0, 0.25, false)), 1.000002),
+			// 10/10, 6 iso (< 70 %), 8 false alerts (1.6 a day), 31 min, 5 % open in "a", 2 past hold.
+			run(13, "5s", 10, 6, 8, f(1860), f(0.05), "a", 2, budget("a", 5, 2.5, 0.25, false), budget("b", 1, 1.0, 0.25, true)),
 		},
 		runs: 3,
 		det:  27.0 / 3, iso: 21.0 / 3, // (9+8+10)/3, (8+7+6)/3
-		perDay:   f(2.8 / 3), // (0.2+1.0+1.6)/3
+		perDay:   f(2.800002 / 3), // (0.2+1.000002+1.6)/3
 		openMean: f(0.09 / 3), openMost: f(0.05), worstUnit: "a", worstSeed: 13,
 		// det: 11, 13; iso: 11, 12; false: 11, 12; open: 11, 12; hold: 11, 12; delay: 11, 12; budget: 11.
 		met: shares{2, 2, 2, 2, 2, 2, 1}, applies: shares{3, 3, 3, 3, 3, 3, 3},
@@ -347,9 +360,9 @@ func TestSummariseSeeds(t *testing.T) {
 		name: "a failed run and frames of a minute",
 		rows: []suiteRow{
 			// No delay target at 60 s; no budget lines: the budget target does not apply.
-			run(21, "1m0s", 9, 9, f(0.4), f(7200), f(0.02), "n", 1),
+			run(21, "1m0s", 9, 9, 2, f(7200), f(0.02), "n", 1),
 			{Plant: "p", Seed: 22, Period: "1m0s", Error: "fit: no data"},
-			run(23, "1m0s", 7, 5, f(0), nil, f(0.001), "m", 0),
+			run(23, "1m0s", 7, 5, 0, nil, f(0.001), "m", 0),
 		},
 		runs: 2, failed: 1,
 		det: 8, iso: 7, // (9+7)/2, (9+5)/2
@@ -360,10 +373,10 @@ func TestSummariseSeeds(t *testing.T) {
 		allMet: 0, past: 1,
 	}, {
 		name: "no rate, no open share, no delay",
-		rows: []suiteRow{run(31, "20s", 0, 0, nil, nil, nil, "", 0)},
+		rows: []suiteRow{noDays(run(31, "20s", 0, 0, 0, nil, nil, "", 0))},
 		runs: 1,
-		// det, iso 0 of 10; false: no rate, not met; open: none, met; hold 0 met; delay: none found, not met.
-		met: shares{0, 0, 0, 1, 1, 0, 0}, applies: shares{1, 1, 1, 1, 1, 1, 0},
+		// det, iso 0 of 10; false: no test days, does not apply; open: none, met; hold 0 met; delay: none found, not met.
+		met: shares{0, 0, 0, 1, 1, 0, 0}, applies: shares{1, 1, 0, 1, 1, 1, 0},
 	}, {
 		name:   "every run failed",
 		rows:   []suiteRow{{Plant: "p", Seed: 41, Period: "5s", Error: "x"}},
