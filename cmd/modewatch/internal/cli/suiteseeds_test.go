@@ -178,10 +178,16 @@ func TestSuiteSeedsSequence(t *testing.T) {
 }
 
 // TestSuiteSeedsRunDirs: with --out every run is kept in DIR/<plant>/<seed>,
-// and the JSON's runs carry the seeds of the sequence.
+// the JSON's runs carry the seeds of the sequence, and --config reaches
+// every run's fit (its model has the configuration's sparsity l0:3, where
+// the default is l0:6).
 func TestSuiteSeedsRunDirs(t *testing.T) {
 	out := t.TempDir()
-	code, stdout, errs := runCLI(t, "", "sim", "--suite", "--seeds", "2", "--days", "0.25", "--plants", "demo", "--out", out, "--json")
+	cfg := filepath.Join(t.TempDir(), "sparse.yaml")
+	if err := os.WriteFile(cfg, []byte("model:\n  sparsity: \"l0:3\"\n"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	code, stdout, errs := runCLI(t, "", "sim", "--suite", "--seeds", "2", "--days", "0.25", "--plants", "demo", "--out", out, "--json", "--config", cfg)
 	if code != ExitOK {
 		t.Fatalf("exit %d: %s", code, errs)
 	}
@@ -189,10 +195,17 @@ func TestSuiteSeedsRunDirs(t *testing.T) {
 	if err := json.Unmarshal([]byte(stdout), &rep); err != nil {
 		t.Fatal(err)
 	}
-	if len(rep.Runs) != 2 || rep.Runs[0].Seed != 20260311 || rep.Runs[1].Seed != 20260312 {
-		t.Fatalf("runs %+v", rep.Runs)
+	if len(rep.Runs) != 2 || rep.Runs[0].Seed != 20260311 || rep.Runs[1].Seed != 20260312 || rep.Settings != "settings of "+cfg {
+		t.Fatalf("settings %q, runs %+v", rep.Settings, rep.Runs)
 	}
 	for _, r := range rep.Runs {
+		model, err := os.ReadFile(filepath.Join(out, "demo", fmt.Sprint(r.Seed), "model.json"))
+		if err != nil {
+			t.Fatal(err)
+		}
+		if !strings.Contains(string(model), `"sparsity": "l0:3"`) {
+			t.Errorf("seed %d: the model was not fitted with the configuration's sparsity l0:3", r.Seed)
+		}
 		tr, err := evaluate.ReadTruth(filepath.Join(out, "demo", fmt.Sprint(r.Seed), "truth.json"))
 		if err != nil {
 			t.Fatal(err)
