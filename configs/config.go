@@ -339,6 +339,14 @@ type Model struct {
 	// ([tracker.DefaultRobust]); negative:
 	// every frame learned with full weight.
 	Robust float64 `yaml:"robust"`
+	// Persist is the constant of the persistence weight of learning, in
+	// conditional standard deviations: while the smoothed frames stay
+	// further than this from a relation the model holds (a slow drift
+	// under the per-frame limits), frames are learned with weight
+	// (persist/distance)², so the drift is not absorbed. Zero: the
+	// tracker's default ([tracker.DefaultPersist]); negative: off. Not
+	// applied while fitting.
+	Persist float64 `yaml:"persist"`
 	// ScoreLag: each frame is learned this long (plant time) after it was
 	// scored, so a slow drift is scored against a model that has not yet
 	// followed it (N-step-ahead scoring). Default 0.

@@ -12,7 +12,7 @@ import (
 // ErrCheckpoint reports a checkpoint that cannot be restored.
 var ErrCheckpoint = errors.New("tracker: bad checkpoint")
 
-// Checkpoint format, version 5. All integers and floats little-endian:
+// Checkpoint format, version 6. All integers and floats little-endian:
 //
 //	"MWTK" | u16 version | u32 p | u64 config fingerprint (FNV-1a)
 //	u8 flags (1 ready, 2 frozen, 4 baseline, 8 calibrated)
@@ -36,19 +36,23 @@ var ErrCheckpoint = errors.New("tracker: bad checkpoint")
 //	mewma: u8 present (Config.Mewma) | p × f64 z̄                         [v5]
 //	       the MEWMA statistic's smoothed frame (off: ignored; a checkpoint
 //	       without: started again from z̄ = 0)
+//	persist: u8 present (Config.Persist > 0) | p × f64 z̄ | p × f64 ℓ     [v6]
+//	       | p × f64 Σw: the persistence weight's smoothed frame and normal
+//	       levels (off: ignored; a checkpoint without: z̄ = 0, no levels)
 //	modes: u32 n | n bytes of modes.Set.MarshalBinary
 //	u32 CRC-32 (IEEE) of everything before
 //
 // Versions 1 (no p0, no per-channel steps), 2 (no lag section), 3 (no
 // variance section: a restored variance statistic starts again from its
-// EWMA and normal level at 1) and 4 (no MEWMA section) are still read.
+// EWMA and normal level at 1), 4 (no MEWMA section) and 5 (no persist
+// section) are still read.
 //
 // The model snapshot (loadings, limits, per-channel data) is recomputed on
 // restore from A and the restored modes by the same code as at the refresh,
 // so it is bit-identical.
 const (
 	ckMagic   = "MWTK"
-	ckVersion = 5
+	ckVersion = 6
 )
 
 // fingerprint hashes the configuration fields that shape the state.
@@ -184,6 +188,16 @@ func (t *Tracker) MarshalBinary() ([]byte, error) {
 	} else {
 		b = append(b, 0)
 	}
+	if ps := t.ps; ps != nil {
+		b = append(b, 1)
+		for _, s := range [][]float64{ps.zbar, ps.lvl, ps.lvlW} {
+			for _, v := range s {
+				f64(v)
+			}
+		}
+	} else {
+		b = append(b, 0)
+	}
 	b = le.AppendUint32(b, uint32(len(mb)))
 	b = append(b, mb...)
 	b = le.AppendUint32(b, crc32.ChecksumIEEE(b))
@@ -285,6 +299,7 @@ type ckState struct {
 	lagFlags                      []byte
 	vq, vl, vn                    []float64 // variance statistic (version ≥ 4; nil: start again)
 	mz                            []float64 // MEWMA statistic's z̄ (version ≥ 5; nil: start again)
+	pz, pl, pw                    []float64 // persistence weight (version ≥ 6; nil: start again)
 	modes                         []byte
 }
 
@@ -393,6 +408,18 @@ func (t *Tracker) decodeCheckpoint(data []byte) (*ckState, error) {
 			r.floats(st.mz, "MEWMA smoothed frame")
 		}
 	}
+	if version >= 6 {
+		switch has := r.u8("persist flag"); {
+		case r.err != nil:
+		case has > 1:
+			return nil, ckError("persist flag %d is neither 0 nor 1", has)
+		case has == 1:
+			st.pz, st.pl, st.pw = make([]float64, p), make([]float64, p), make([]float64, p)
+			r.floats(st.pz, "persist smoothed frame")
+			r.floats(st.pl, "persist levels")
+			r.floats(st.pw, "persist level weights")
+		}
+	}
 	nm := int(r.u32("modes length"))
 	if r.need(nm, "modes") {
 		st.modes = r.b[r.off : r.off+nm]
@@ -488,6 +515,12 @@ func (st *ckState) check() error {
 			return ckError("MEWMA statistic of channel %d: smoothed value %v", i, v)
 		}
 	}
+	for i := range st.pz {
+		z, l, w := st.pz[i], st.pl[i], st.pw[i]
+		if math.IsNaN(z) || math.IsInf(z, 0) || !(l > 0) || math.IsInf(l, 0) || !(w >= 0) || math.IsInf(w, 0) {
+			return ckError("persistence weight of channel %d: smoothed value %v, level %v, weight %v", i, z, l, w)
+		}
+	}
 	return nil
 }
 
@@ -554,6 +587,16 @@ func (t *Tracker) apply(st *ckState) {
 	if mw := t.mw; mw != nil {
 		clear(mw.zbar)
 		copy(mw.zbar, st.mz)
+	}
+	if ps := t.ps; ps != nil {
+		clear(ps.zbar)
+		clear(ps.lvlW)
+		for i := range ps.lvl {
+			ps.lvl[i] = 1
+		}
+		copy(ps.zbar, st.pz)
+		copy(ps.lvl, st.pl)
+		copy(ps.lvlW, st.pw)
 	}
 	t.since = st.since
 	t.cal = st.flags&8 != 0

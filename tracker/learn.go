@@ -126,11 +126,29 @@ func (t *Tracker) learnFrame(r float64, x []float64, mask []bool, scored bool) (
 			lim *= t.calScale[2]
 		}
 		r = ratio(phi, lim)
-		wt := huberWeight(r, t.cfg.Robust)
+		wt := huberWeight(r, t.cfg.Robust) * t.persistWeight(w.z, mask)
 		t.addConditional(pt, mask, wt)
 		return xl, wt, nil
 	}
-	return xl, huberWeight(r, t.cfg.Robust), nil
+	wt := huberWeight(r, t.cfg.Robust)
+	if t.ps != nil {
+		z := t.w.z
+		if !scored {
+			t.standardize(t.lw.w, x, nil)
+			z = t.lw.w.z
+		}
+		wt *= t.persistWeight(z, nil)
+	}
+	return xl, wt, nil
+}
+
+// persistWeight is the persistence weight (persist) of the frame being
+// learned, z standardized (masked channels reconstructed), 1 without it.
+func (t *Tracker) persistWeight(z []float64, mask []bool) float64 {
+	if t.ps == nil {
+		return 1
+	}
+	return t.ps.weight(t.mdl, t.rs, z, t.obs, t.stuck, mask)
 }
 
 // maskScored fills w as standardize(w, x, mask) would, from src, which
@@ -225,6 +243,7 @@ func (t *Tracker) Recentre(x []float64, which []bool, k int) {
 		panic("tracker: Recentre: length mismatch or k < 1")
 	}
 	t.resetMewmaChannels(which)
+	t.resetPersist(which)
 	for i, w := range which {
 		if w && !math.IsNaN(x[i]) && !math.IsInf(x[i], 0) && t.ew.count[i] > 0 {
 			t.ew.mean[i] += (x[i] - t.ew.mean[i]) / float64(k)

@@ -172,12 +172,14 @@ func (t *Tracker) SetMewmaScale(c float64) {
 }
 
 // ResetMewma starts the MEWMA statistic again from z̄ = 0 (see mewma: a
-// model entered from another operating state). Without Config.Mewma it
-// does nothing.
+// model entered from another operating state), and the smoothed frame of
+// the persistence weight (persist) with it. Without either it does
+// nothing.
 func (t *Tracker) ResetMewma() {
 	if t.mw != nil {
 		clear(t.mw.zbar)
 	}
+	t.resetPersist(nil)
 }
 
 // resetMewmaChannels sets z̄ᵢ = 0 for the channels set in which (a

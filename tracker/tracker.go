@@ -260,6 +260,22 @@ type Config struct {
 	// triangular solve, p²/2 multiply-adds, per frame.
 	Mewma       bool
 	MewmaLambda float64
+	// Persist is the constant k of the persistence weight of learning (see
+	// persist), in conditional standard deviations: a frame is learned
+	// with weight min(1, (k/D)²) where D is the largest deviation of a
+	// channel from its relation to the others in the smoothed frames
+	// learned, so a slow departure from a tight relation that stays under
+	// the per-frame limits is not absorbed within hours. Default
+	// DefaultPersist; negative: off (weight 1). Needs Residual, Variance
+	// or Mewma (the factor of Ω); costs p²/2 to p² multiply-adds per
+	// learned frame and p values of state. PersistLambda is the EWMA
+	// weight λ of the smoothed frames, in (0, 1] (default
+	// DefaultPersistLambda).
+	Persist, PersistLambda float64
+	// PersistLevelsOnly learns the normal levels of the persistence
+	// weight's smoothed deviations but weighs every frame 1 (fitting on a
+	// log that is normal by the user's word).
+	PersistLevelsOnly bool
 }
 
 // Errors.
@@ -363,6 +379,7 @@ type Tracker struct {
 	rs   *resStat // nil unless Config.Residual or Config.Variance
 	rl   *relStat // nil unless Config.Relations > 0
 	mw   *mewma   // nil unless Config.Mewma
+	ps   *persist // nil unless Config.Persist > 0 (persist.go)
 	// stepping: score is called from Step (advance the variance EWMA)
 	stepping bool
 
@@ -430,6 +447,15 @@ func (c *Config) defaults(p int) error {
 	}
 	if c.Robust == 0 {
 		c.Robust = DefaultRobust
+	}
+	if c.Persist == 0 {
+		c.Persist = DefaultPersist
+	}
+	if c.PersistLambda == 0 {
+		c.PersistLambda = DefaultPersistLambda
+	}
+	if !(c.PersistLambda > 0 && c.PersistLambda <= 1) || math.IsNaN(c.Persist) || math.IsInf(c.Persist, 0) {
+		return fmt.Errorf("%w: Persist %v, PersistLambda %v not in (0, 1]", ErrConfig, c.Persist, c.PersistLambda)
 	}
 	if c.ResidualRidge == 0 {
 		c.ResidualRidge = DefaultResidualRidge
@@ -506,6 +532,7 @@ func New(p int, cfg Config) (*Tracker, error) {
 		top:   make([]int, 0, cfg.TopContrib+1),
 		rs:    newResStat(p, &cfg),
 		mw:    newMewma(p, maxR, &cfg),
+		ps:    newPersist(p, &cfg),
 	}
 	if t.rl, err = newRelStat(p, &cfg); err != nil {
 		return nil, err
@@ -1139,6 +1166,7 @@ func (t *Tracker) Grow(p2 int, cfg Config) error {
 	t.rs = newResStat(p2, &cfg)
 	t.rl = rl
 	t.mw = t.mw.grown(p2, maxR, &cfg)
+	t.ps = t.ps.grown(p2, &cfg)
 	if cap(t.top) < cfg.TopContrib+1 {
 		t.top = make([]int, 0, cfg.TopContrib+1)
 	}

@@ -296,6 +296,8 @@ func (u *Unit) location(dst []string) []string {
 func (p *Pipeline) learnSettings(cfg *tracker.Config, m configs.Model, period time.Duration) {
 	m = m.Over(configs.DefaultModel())
 	cfg.Robust = m.Robust
+	cfg.Persist = m.Persist
+	cfg.PersistLevelsOnly = p.opt.Fit // the normal log is normal by the user's word: its levels are learned
 	cfg.Lag = 0
 	if !p.opt.Fit && m.ScoreLag > 0 && period > 0 {
 		cfg.Lag = int(m.ScoreLag / period)

@@ -1,0 +1,194 @@
+package tracker
+
+import "math"
+
+// Defaults of the persistence weight (Config.Persist, Config.PersistLambda).
+const (
+	// DefaultPersist is the default constant k of Config.Persist, in
+	// conditional standard deviations of one channel's relation to the
+	// others. Negative: off. Chosen on the realism suite and the demo
+	// together (README, Validation).
+	DefaultPersist = -1.0
+	// DefaultPersistLambda is the EWMA weight λ of the smoothed frame the
+	// persistence weight looks at: a memory of about 1/λ = 20 frames.
+	DefaultPersistLambda = 0.05
+)
+
+// persist is the persistence weight of learning (Config.Persist): a
+// bounded-influence weight on how far, and for how long, the frames being
+// learned have left a relation the model holds tightly.
+//
+// Why. The model learns every frame it does not mask. A relation the
+// model holds tightly has a tiny conditional variance, so a slow drift of
+// one of its channels that stays below the per-frame limits (a sensor
+// drifting by a few tenths of a degree an hour) inflates that direction's
+// variance severalfold within hours, even with a long half-life: the
+// frames are each only a few conditional standard deviations off, but
+// they are many, all off the same way, and the covariance learns their
+// squared deviations in full. The per-frame Huber weight (Config.Robust)
+// cannot see such frames: each is inside the limits.
+//
+// The weight. The frames as learned (masked channels reconstructed),
+// standardized, are smoothed,
+//
+//	z̄ₜ = λzₜ + (1 − λ)z̄ₜ₋₁,  z̄₀ = 0,
+//
+// and each channel's deviation from the relation the model holds to the
+// other channels is read off z̄ with Ω = (A + ε_R I)⁻¹ (the residual
+// statistic's factor, see resStat):
+//
+//	sᵢ = (Ωz̄)ᵢ / √Ωᵢᵢ,   D = maxᵢ |sᵢ|
+//
+// over the channels in the model, observed and not masked. For one frame,
+// (Ωz)ᵢ/√Ωᵢᵢ is channel i's deviation from its conditional expectation
+// given every other channel in its own conditional standard deviations,
+// about N(0, 1) in control; smoothing keeps |sᵢ| ≤ that scale for any
+// stationary series (an EWMA of a unit-variance series has variance at
+// most 1: λ/(2 − λ) for independent frames, up to 1 for a channel that
+// wanders slowly), while a persistent departure of δ conditional standard
+// deviations holds sᵢ at δ. The frame is learned with weight
+//
+//	w = min(1, (k/D)²)
+//
+// Huber's weight for scatter (Huber 1981, Robust Statistics, §8.4; the
+// M-estimators of multivariate scatter of Maronna 1976, Ann. Statist.
+// 4(1), 51–67, with u(d²) = min(1, k²/d²), stated from memory), taken on
+// the smoothed deviation: the influence of a frame on the learned
+// variance of the relation, w·D², is at most k², however long the
+// departure persists, where with w = 1 it grows as D². A single spike
+// moves sᵢ by λ times its size and leaves w at 1 (the per-frame weight
+// bounds it); a channel that wanders slowly, as it did in the normal data,
+// keeps |sᵢ| below k but for a share of frames about that of a normal
+// deviate beyond k, and is learned as before. k is in the usual range of
+// a robust rejection point, 2 to 4 standard deviations (Hampel,
+// Ronchetti, Rousseeuw & Stahel 1986, Robust Statistics: The Approach
+// Based on Influence Functions, §2.3; from memory).
+//
+// The weight multiplies the per-frame Huber weight. It needs the residual
+// statistic's factor (Config.Residual, Variance or Mewma); without it the
+// weight is 1. z̄ is state (checkpointed, version 6); a channel recentred
+// to a new normal (Recentre) has its entry set to 0, and a model entered
+// from another operating state starts from z̄ = 0 (ResetMewma).
+//
+// Cost per learned frame: one forward solve with the factor (p²/2
+// multiply-adds); the back solve for Ωz̄ (p²/2) only when ‖L⁻¹z̄‖ > k,
+// since |sᵢ| ≤ ‖L⁻¹z̄‖ (Cauchy–Schwarz: (Ωz̄)ᵢ² ≤ Ωᵢᵢ·z̄ᵀΩz̄). No
+// allocation.
+type persist struct {
+	p      int
+	k, lam float64
+	weigh  bool      // false: learn the levels, weigh nothing (Config.PersistLevelsOnly)
+	zbar   []float64 // z̄, the state
+	lvl    []float64 // ℓᵢ, the normal level of sᵢ² (state)
+	lvlW   []float64 // Σw behind ℓᵢ (state; 0: no level yet)
+	b      []float64 // 2p: [L⁻¹z̄ | 0] (resStat.forwardIn)
+	v      []float64 // Ωz̄
+	last   float64   // D of the last frame learned (0 when not formed)
+}
+
+func newPersist(p int, cfg *Config) *persist {
+	if !(cfg.Persist > 0) {
+		return nil
+	}
+	ps := &persist{p: p, k: cfg.Persist, lam: cfg.PersistLambda, weigh: !cfg.PersistLevelsOnly,
+		zbar: make([]float64, p), lvl: make([]float64, p), lvlW: make([]float64, p),
+		b: make([]float64, 2*p), v: make([]float64, p)}
+	for i := range ps.lvl {
+		ps.lvl[i] = 1
+	}
+	return ps
+}
+
+// grown returns the weight's state for p2 ≥ p channels under cfg, z̄ and
+// the levels carried on (the new channels at 0 and without a level).
+func (ps *persist) grown(p2 int, cfg *Config) *persist {
+	n := newPersist(p2, cfg)
+	if n != nil && ps != nil {
+		copy(n.zbar, ps.zbar)
+		copy(n.lvl, ps.lvl)
+		copy(n.lvlW, ps.lvlW)
+	}
+	return n
+}
+
+// weight smooths z (the frame as learned, standardized; the channels not
+// observed, stuck or out of the model keep their z̄) into z̄, returns the
+// persistence weight under the current factor of rs (the channels set in
+// mask, nil: none, left out of D) and folds sᵢ² into the normal levels
+// with that weight.
+func (ps *persist) weight(m *model, rs *resStat, z []float64, obs, stuck, mask []bool) float64 {
+	p := ps.p
+	zb := ps.zbar[:p]
+	for i, v := range z[:p] {
+		if m.include[i] && obs[i] && !stuck[i] {
+			zb[i] += ps.lam * (v - zb[i])
+		}
+	}
+	ps.last = 0
+	if rs == nil || !rs.ok {
+		return 1
+	}
+	rs.forwardIn(ps.b, zb)
+	g := &rs.gens[rs.cur]
+	rs.diagOf(g)
+	upperSolveT(ps.v, ps.b, g.l, p)
+	d := 0.0
+	for i := 0; i < p; i++ {
+		if !m.include[i] || !obs[i] || stuck[i] || (mask != nil && mask[i]) || !(g.omd[i] > 0) {
+			ps.v[i] = math.NaN()
+			continue
+		}
+		si := ps.v[i] / math.Sqrt(g.omd[i])
+		ps.v[i] = si * si
+		if ps.lvlW[i] > 0 {
+			d = math.Max(d, ps.v[i]/ps.lvl[i])
+		}
+	}
+	d = math.Sqrt(d)
+	ps.last = d
+	w := 1.0
+	if ps.weigh {
+		w = scatterWeight(d, ps.k)
+	}
+	for i, s2 := range ps.v[:p] {
+		if !math.IsNaN(s2) && w > 0 {
+			ps.lvlW[i] += w
+			ps.lvl[i] += w / ps.lvlW[i] * (s2 - ps.lvl[i])
+		}
+	}
+	return w
+}
+
+// scatterWeight is Huber's weight for scatter, min(1, (k/d)²), at the
+// distance d (see persist).
+func scatterWeight(d, k float64) float64 {
+	if !(d > k) {
+		return 1
+	}
+	return (k / d) * (k / d)
+}
+
+// resetPersist sets z̄ᵢ = 0 for the channels set in which (nil: all).
+func (t *Tracker) resetPersist(which []bool) {
+	ps := t.ps
+	if ps == nil {
+		return
+	}
+	for i := range ps.zbar {
+		if which == nil || (i < len(which) && which[i]) {
+			ps.zbar[i] = 0
+		}
+	}
+}
+
+// PersistDistance returns D of the last frame learned (see persist): the
+// largest smoothed deviation of a channel from its relation to the
+// others, in conditional standard deviations, or a bound on it below
+// Config.Persist when the weight was 1 without forming it; 0 when the
+// weight is off or nothing was formed.
+func (t *Tracker) PersistDistance() float64 {
+	if t.ps == nil {
+		return 0
+	}
+	return t.ps.last
+}
