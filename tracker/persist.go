@@ -114,8 +114,8 @@ func (ps *persist) grown(p2 int, cfg *Config) *persist {
 // weight smooths z (the frame as learned, standardized; the channels not
 // observed, stuck or out of the model keep their z̄) into z̄, returns the
 // persistence weight under the current factor of rs (the channels set in
-// mask, nil: none, left out of D) and folds sᵢ² into the normal levels
-// with that weight.
+// mask, nil: none, left out of D); a frame with D ≤ k folds sᵢ² into
+// the normal levels.
 func (ps *persist) weight(m *model, rs *resStat, z []float64, obs, stuck, mask []bool) float64 {
 	p := ps.p
 	zb := ps.zbar[:p]
@@ -140,7 +140,7 @@ func (ps *persist) weight(m *model, rs *resStat, z []float64, obs, stuck, mask [
 		}
 		si := ps.v[i] / math.Sqrt(g.omd[i])
 		ps.v[i] = si * si
-		if ps.lvlW[i] > 0 {
+		if ps.lvlW[i] >= 20/ps.lam {
 			d = math.Max(d, ps.v[i]/ps.lvl[i])
 		}
 	}
@@ -150,10 +150,16 @@ func (ps *persist) weight(m *model, rs *resStat, z []float64, obs, stuck, mask [
 	if ps.weigh {
 		w = scatterWeight(d, ps.k)
 	}
+	// Only frames within k teach the levels once each has 20/λ frames
+	// behind it (before, every frame: a level from a few frames would
+	// refuse the next ones): a level learned from the frames the weight
+	// bounds would grow with them (by up to k²·ℓ/n a frame, compounding)
+	// and let the departure in.
+	start := 20 / ps.lam // also the frames a level needs before it counts in D
 	for i, s2 := range ps.v[:p] {
-		if !math.IsNaN(s2) && w > 0 {
-			ps.lvlW[i] += w
-			ps.lvl[i] += w / ps.lvlW[i] * (s2 - ps.lvl[i])
+		if !math.IsNaN(s2) && (!(d > ps.k) || ps.lvlW[i] < start) {
+			ps.lvlW[i]++
+			ps.lvl[i] += (s2 - ps.lvl[i]) / ps.lvlW[i]
 		}
 	}
 	return w
