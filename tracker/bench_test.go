@@ -68,8 +68,12 @@ func newBenchTrackerResidual(b *testing.B, sc *Score, p, refreshEvery, batch, wa
 	if learnMissing {
 		learn = LearnRidgeMissing
 	}
+	persist := 0.0 // the default
+	if benchPersist {
+		persist = 3
+	}
 	tr, err := New(p, Config{Period: time.Second, HalfLife: time.Hour, WarmUp: 256, RefreshEvery: refreshEvery, Batch: batch,
-		Residual: residual, Ridge: ridge, LearnRidge: learn,
+		Residual: residual, Ridge: ridge, LearnRidge: learn, Persist: persist,
 		Modes: modes.Config{Count: 5, Sparsity: []modes.Sparsity{{Method: modes.L0, K: 10}}}})
 	if err != nil {
 		b.Fatal(err)
@@ -291,6 +295,19 @@ func BenchmarkFrameResidualMaskedSharedOverDecode(b *testing.B) {
 
 // shareRidge sets Ridge = ResidualRidge in newBenchTrackerResidual.
 var shareRidge bool
+
+// BenchmarkFramePersistOverDecode is BenchmarkFrameResidualOverDecode
+// with the persistence weight of learning on (Config.Persist 3): per
+// learned frame the forward and back solves for Ωz̄, per refresh the
+// diagonal of Ω.
+func BenchmarkFramePersistOverDecode(b *testing.B) {
+	benchPersist = true
+	defer func() { benchPersist = false }()
+	benchOverDecodeResidual(b, -1, 0, true)
+}
+
+// benchPersist sets Persist = 3 in newBenchTrackerResidual.
+var benchPersist bool
 
 // BenchmarkFrameResidualMaskedOwnRidgeOverDecode is
 // BenchmarkFrameResidualMaskedOverDecode with LearnRidge =

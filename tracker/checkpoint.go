@@ -37,8 +37,9 @@ var ErrCheckpoint = errors.New("tracker: bad checkpoint")
 //	       the MEWMA statistic's smoothed frame (off: ignored; a checkpoint
 //	       without: started again from z̄ = 0)
 //	persist: u8 present (Config.Persist > 0) | p × f64 z̄ | p × f64 ℓ     [v6]
-//	       | p × f64 Σw: the persistence weight's smoothed frame and normal
-//	       levels (off: ignored; a checkpoint without: z̄ = 0, no levels)
+//	       | p × f64 n | f64 w | u32 frames since w: the persistence
+//	       weight's smoothed frame, normal levels, last weight (off:
+//	       ignored; a checkpoint without: z̄ = 0, no levels)
 //	modes: u32 n | n bytes of modes.Set.MarshalBinary
 //	u32 CRC-32 (IEEE) of everything before
 //
@@ -195,6 +196,8 @@ func (t *Tracker) MarshalBinary() ([]byte, error) {
 				f64(v)
 			}
 		}
+		f64(ps.w)
+		b = le.AppendUint32(b, uint32(ps.n))
 	} else {
 		b = append(b, 0)
 	}
@@ -300,6 +303,8 @@ type ckState struct {
 	vq, vl, vn                    []float64 // variance statistic (version ≥ 4; nil: start again)
 	mz                            []float64 // MEWMA statistic's z̄ (version ≥ 5; nil: start again)
 	pz, pl, pw                    []float64 // persistence weight (version ≥ 6; nil: start again)
+	pWeight                       float64
+	pN                            int
 	modes                         []byte
 }
 
@@ -418,6 +423,8 @@ func (t *Tracker) decodeCheckpoint(data []byte) (*ckState, error) {
 			r.floats(st.pz, "persist smoothed frame")
 			r.floats(st.pl, "persist levels")
 			r.floats(st.pw, "persist level weights")
+			st.pWeight = r.f64("persist weight")
+			st.pN = int(r.u32("persist frames"))
 		}
 	}
 	nm := int(r.u32("modes length"))
@@ -515,6 +522,9 @@ func (st *ckState) check() error {
 			return ckError("MEWMA statistic of channel %d: smoothed value %v", i, v)
 		}
 	}
+	if st.pz != nil && (!(st.pWeight >= 0 && st.pWeight <= 1) || st.pN < 0 || st.pN >= persistEvery) {
+		return ckError("persistence weight %v, %d frames since its evaluation", st.pWeight, st.pN)
+	}
 	for i := range st.pz {
 		z, l, w := st.pz[i], st.pl[i], st.pw[i]
 		if math.IsNaN(z) || math.IsInf(z, 0) || !(l > 0) || math.IsInf(l, 0) || !(w >= 0) || math.IsInf(w, 0) {
@@ -597,6 +607,10 @@ func (t *Tracker) apply(st *ckState) {
 		copy(ps.zbar, st.pz)
 		copy(ps.lvl, st.pl)
 		copy(ps.lvlW, st.pw)
+		ps.w, ps.n = 1, 0
+		if st.pz != nil {
+			ps.w, ps.n = st.pWeight, st.pN
+		}
 	}
 	t.since = st.since
 	t.cal = st.flags&8 != 0

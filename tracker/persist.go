@@ -83,14 +83,22 @@ type persist struct {
 	lvlW   []float64 // Σw behind ℓᵢ (state; 0: no level yet)
 	b      []float64 // 2p: [L⁻¹z̄ | 0] (resStat.forwardIn)
 	v      []float64 // Ωz̄
-	last   float64   // D of the last frame learned (0 when not formed)
+	w      float64   // the weight of the last evaluation (state)
+	n      int       // learned frames since it, modulo persistEvery (state)
+	last   float64   // D of the last evaluation (0 when not formed)
 }
+
+// persistEvery is the number of learned frames one evaluation of the
+// persistence weight serves (z̄ is smoothed every frame): the solves cost
+// p² multiply-adds, about twice the residual statistic's per frame, and
+// z̄ moves by a share λ of a frame at a time.
+const persistEvery = 4
 
 func newPersist(p int, cfg *Config) *persist {
 	if !(cfg.Persist > 0) {
 		return nil
 	}
-	ps := &persist{p: p, k: cfg.Persist, lam: cfg.PersistLambda, weigh: !cfg.PersistLevelsOnly,
+	ps := &persist{p: p, k: cfg.Persist, lam: cfg.PersistLambda, weigh: !cfg.PersistLevelsOnly, w: 1,
 		zbar: make([]float64, p), lvl: make([]float64, p), lvlW: make([]float64, p),
 		b: make([]float64, 2*p), v: make([]float64, p)}
 	for i := range ps.lvl {
@@ -107,6 +115,7 @@ func (ps *persist) grown(p2 int, cfg *Config) *persist {
 		copy(n.zbar, ps.zbar)
 		copy(n.lvl, ps.lvl)
 		copy(n.lvlW, ps.lvlW)
+		n.w, n.n = ps.w, ps.n
 	}
 	return n
 }
@@ -124,23 +133,26 @@ func (ps *persist) weight(m *model, rs *resStat, z []float64, obs, stuck, mask [
 			zb[i] += ps.lam * (v - zb[i])
 		}
 	}
-	ps.last = 0
 	if rs == nil || !rs.ok {
+		ps.last, ps.w, ps.n = 0, 1, 0
 		return 1
 	}
+	if ps.n > 0 {
+		ps.n = (ps.n + 1) % persistEvery
+		return ps.w
+	}
+	ps.n = 1 % persistEvery
 	rs.forwardIn(ps.b, zb)
 	g := &rs.gens[rs.cur]
-	rs.diagOf(g)
 	upperSolveT(ps.v, ps.b, g.l, p)
 	d := 0.0
 	for i := 0; i < p; i++ {
-		if !m.include[i] || !obs[i] || stuck[i] || (mask != nil && mask[i]) || !(g.omd[i] > 0) {
+		if !m.include[i] || !obs[i] || stuck[i] || (mask != nil && mask[i]) {
 			ps.v[i] = math.NaN()
 			continue
 		}
-		si := ps.v[i] / math.Sqrt(g.omd[i])
-		ps.v[i] = si * si
-		if ps.lvlW[i] >= 20/ps.lam {
+		ps.v[i] *= ps.v[i]
+		if ps.lvlW[i] >= ps.start() {
 			d = math.Max(d, ps.v[i]/ps.lvl[i])
 		}
 	}
@@ -150,12 +162,13 @@ func (ps *persist) weight(m *model, rs *resStat, z []float64, obs, stuck, mask [
 	if ps.weigh {
 		w = scatterWeight(d, ps.k)
 	}
-	// Only frames within k teach the levels once each has 20/λ frames
-	// behind it (before, every frame: a level from a few frames would
-	// refuse the next ones): a level learned from the frames the weight
-	// bounds would grow with them (by up to k²·ℓ/n a frame, compounding)
-	// and let the departure in.
-	start := 20 / ps.lam // also the frames a level needs before it counts in D
+	ps.w = w
+	// Only frames within k teach the levels once each has start()
+	// evaluations behind it (before, every one: a level from a few frames
+	// would refuse the next ones): a level learned from the frames the
+	// weight bounds would grow with them (by up to k²·ℓ/n a frame,
+	// compounding) and let the departure in.
+	start := ps.start()
 	for i, s2 := range ps.v[:p] {
 		if !math.IsNaN(s2) && (!(d > ps.k) || ps.lvlW[i] < start) {
 			ps.lvlW[i]++
@@ -164,6 +177,10 @@ func (ps *persist) weight(m *model, rs *resStat, z []float64, obs, stuck, mask [
 	}
 	return w
 }
+
+// start is the number of evaluations (20/λ frames) a channel's level
+// needs before it counts in D and before only frames within k teach it.
+func (ps *persist) start() float64 { return 20 / ps.lam / persistEvery }
 
 // scatterWeight is Huber's weight for scatter, min(1, (k/d)²), at the
 // distance d (see persist).
