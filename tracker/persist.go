@@ -37,16 +37,27 @@ const (
 // other channels is read off z̄ with Ω = (A + ε_R I)⁻¹ (the residual
 // statistic's factor, see resStat):
 //
-//	sᵢ = (Ωz̄)ᵢ / √Ωᵢᵢ,   D = maxᵢ |sᵢ|
+//	sᵢ = (Ωz̄)ᵢ / √Ωᵢᵢ
 //
-// over the channels in the model, observed and not masked. For one frame,
-// (Ωz)ᵢ/√Ωᵢᵢ is channel i's deviation from its conditional expectation
-// given every other channel in its own conditional standard deviations,
-// about N(0, 1) in control; smoothing keeps |sᵢ| ≤ that scale for any
-// stationary series (an EWMA of a unit-variance series has variance at
-// most 1: λ/(2 − λ) for independent frames, up to 1 for a channel that
-// wanders slowly), while a persistent departure of δ conditional standard
-// deviations holds sᵢ at δ. The frame is learned with weight
+// For one frame, (Ωz)ᵢ/√Ωᵢᵢ is channel i's deviation from its conditional
+// expectation given every other channel in its own conditional standard
+// deviations, about N(0, 1) in control (the variance statistic's rᵢ).
+// sᵢ is compared with its own normal level, the mean ℓᵢ of sᵢ² over the
+// normal frames (learned in fit, then from the frames with D ≤ k, see
+// weight):
+//
+//	Dᵢ² = sᵢ² / ℓᵢ,   D = maxᵢ Dᵢ
+//
+// over the channels in the model, observed and not masked. The level
+// makes D a channel's smoothed relation residual in its own normal
+// spread: for a relation held only by measurement noise (frames
+// independent) the smoothed residual's spread is √(λ/(2 − λ)), 0.16 at
+// λ = 0.05, of the per-frame one, so a persistent departure of half a
+// conditional standard deviation already gives D ≈ 3; for a channel that
+// wanders slowly on its own the smoothed residual is as wide as the
+// per-frame one, so its slow changes, as wide as in the normal data, keep
+// D below k.
+// The frame is learned with weight
 //
 //	w = min(1, (k/D)²)
 //
@@ -56,31 +67,30 @@ const (
 // the smoothed deviation: the influence of a frame on the learned
 // variance of the relation, w·D², is at most k², however long the
 // departure persists, where with w = 1 it grows as D². A single spike
-// moves sᵢ by λ times its size and leaves w at 1 (the per-frame weight
-// bounds it); a channel that wanders slowly, as it did in the normal data,
-// keeps |sᵢ| below k but for a share of frames about that of a normal
-// deviate beyond k, and is learned as before. k is in the usual range of
-// a robust rejection point, 2 to 4 standard deviations (Hampel,
-// Ronchetti, Rousseeuw & Stahel 1986, Robust Statistics: The Approach
-// Based on Influence Functions, §2.3; from memory).
+// moves z̄ by λ times its size and mostly leaves w at 1 (the per-frame
+// weight bounds it). k is in the usual range of a robust rejection point,
+// 2 to 4 standard deviations (Hampel, Ronchetti, Rousseeuw & Stahel
+// 1986, Robust Statistics: The Approach Based on Influence Functions;
+// from memory); the realism suite chose 3 among 2, 2.5, 3 and 4 (README).
 //
 // The weight multiplies the per-frame Huber weight. It needs the residual
 // statistic's factor (Config.Residual, Variance or Mewma); without it the
-// weight is 1. z̄ is state (checkpointed, version 6); a channel recentred
-// to a new normal (Recentre) has its entry set to 0, and a model entered
-// from another operating state starts from z̄ = 0 (ResetMewma).
+// weight is 1. z̄, the levels and the last weight are state (checkpointed,
+// version 6); a channel recentred to a new normal (Recentre) has its
+// entry of z̄ set to 0, and a model entered from another operating state
+// starts from z̄ = 0 (ResetMewma).
 //
-// Cost per learned frame: one forward solve with the factor (p²/2
-// multiply-adds); the back solve for Ωz̄ (p²/2) only when ‖L⁻¹z̄‖ > k,
-// since |sᵢ| ≤ ‖L⁻¹z̄‖ (Cauchy–Schwarz: (Ωz̄)ᵢ² ≤ Ωᵢᵢ·z̄ᵀΩz̄). No
-// allocation.
+// Cost: z̄ every learned frame (O(p)); every persistEvery learned frames
+// one forward and one back solve with the factor (p² multiply-adds), whose
+// weight serves those frames; the diagonal of Ω once per refresh (p³/6,
+// as much as the factor). No allocation.
 type persist struct {
 	p      int
 	k, lam float64
 	weigh  bool      // false: learn the levels, weigh nothing (Config.PersistLevelsOnly)
 	zbar   []float64 // z̄, the state
 	lvl    []float64 // ℓᵢ, the normal level of sᵢ² (state)
-	lvlW   []float64 // Σw behind ℓᵢ (state; 0: no level yet)
+	lvlW   []float64 // evaluations behind ℓᵢ (state; 0: no level yet)
 	b      []float64 // 2p: [L⁻¹z̄ | 0] (resStat.forwardIn)
 	v      []float64 // Ωz̄
 	w      float64   // the weight of the last evaluation (state)
@@ -121,10 +131,11 @@ func (ps *persist) grown(p2 int, cfg *Config) *persist {
 }
 
 // weight smooths z (the frame as learned, standardized; the channels not
-// observed, stuck or out of the model keep their z̄) into z̄, returns the
-// persistence weight under the current factor of rs (the channels set in
-// mask, nil: none, left out of D); a frame with D ≤ k folds sᵢ² into
-// the normal levels.
+// observed, stuck or out of the model keep their z̄) into z̄ and returns
+// the persistence weight: every persistEvery calls it is formed under the
+// current factor of rs (the channels set in mask, nil: none, left out of
+// D) and, if D ≤ k (or the levels are young), sᵢ² is folded into the
+// normal levels; the calls between return the same weight.
 func (ps *persist) weight(m *model, rs *resStat, z []float64, obs, stuck, mask []bool) float64 {
 	p := ps.p
 	zb := ps.zbar[:p]
@@ -144,14 +155,15 @@ func (ps *persist) weight(m *model, rs *resStat, z []float64, obs, stuck, mask [
 	ps.n = 1 % persistEvery
 	rs.forwardIn(ps.b, zb)
 	g := &rs.gens[rs.cur]
+	rs.diagOf(g)
 	upperSolveT(ps.v, ps.b, g.l, p)
 	d := 0.0
 	for i := 0; i < p; i++ {
-		if !m.include[i] || !obs[i] || stuck[i] || (mask != nil && mask[i]) {
+		if !m.include[i] || !obs[i] || stuck[i] || (mask != nil && mask[i]) || !(g.omd[i] > 0) {
 			ps.v[i] = math.NaN()
 			continue
 		}
-		ps.v[i] *= ps.v[i]
+		ps.v[i] *= ps.v[i] / g.omd[i]
 		if ps.lvlW[i] >= ps.start() {
 			d = math.Max(d, ps.v[i]/ps.lvl[i])
 		}
