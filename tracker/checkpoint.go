@@ -207,6 +207,16 @@ func (t *Tracker) MarshalBinary() ([]byte, error) {
 	return b, nil
 }
 
+// flag reads the presence flag of an optional section: 0 or 1, anything
+// else an error naming it; false once the reader has failed.
+func (r *ckReader) flag(what string) (bool, error) {
+	f := r.u8(what)
+	if r.err == nil && f > 1 {
+		return false, ckError("%s %d is neither 0 nor 1", what, f)
+	}
+	return r.err == nil && f == 1, nil
+}
+
 type ckReader struct {
 	b   []byte
 	off int
@@ -391,12 +401,11 @@ func (t *Tracker) decodeCheckpoint(data []byte) (*ckState, error) {
 		}
 	}
 	if version >= 4 {
-		hasVar := r.u8("variance flag")
-		switch {
-		case r.err != nil:
-		case hasVar > 1:
-			return nil, ckError("variance flag %d is neither 0 nor 1", hasVar)
-		case hasVar == 1:
+		has, err := r.flag("variance flag")
+		if err != nil {
+			return nil, err
+		}
+		if has {
 			st.vq, st.vl, st.vn = make([]float64, p), make([]float64, p), make([]float64, p)
 			r.floats(st.vq, "variance EWMA")
 			r.floats(st.vl, "variance normal levels")
@@ -404,21 +413,21 @@ func (t *Tracker) decodeCheckpoint(data []byte) (*ckState, error) {
 		}
 	}
 	if version >= 5 {
-		switch has := r.u8("MEWMA flag"); {
-		case r.err != nil:
-		case has > 1:
-			return nil, ckError("MEWMA flag %d is neither 0 nor 1", has)
-		case has == 1:
+		has, err := r.flag("MEWMA flag")
+		if err != nil {
+			return nil, err
+		}
+		if has {
 			st.mz = make([]float64, p)
 			r.floats(st.mz, "MEWMA smoothed frame")
 		}
 	}
 	if version >= 6 {
-		switch has := r.u8("persist flag"); {
-		case r.err != nil:
-		case has > 1:
-			return nil, ckError("persist flag %d is neither 0 nor 1", has)
-		case has == 1:
+		has, err := r.flag("persist flag")
+		if err != nil {
+			return nil, err
+		}
+		if has {
 			st.pz, st.pl, st.pw = make([]float64, p), make([]float64, p), make([]float64, p)
 			r.floats(st.pz, "persist smoothed frame")
 			r.floats(st.pl, "persist levels")
