@@ -26,6 +26,13 @@ import (
 // its statistics return below the limits. An operator can accept an
 // incident, or every model incident of a unit, at once (OpAccept); the
 // record carries who and when, like an acknowledgement.
+//
+// A re-opened incident (reopen.go) keeps its hold: it is the same
+// disturbance repeating, its record keeps its start and counts the gap as
+// open, so its flat time runs from its last growth, not from the
+// re-opening. Restarted at each re-opening, the hold of a disturbance that
+// dips under its limits now and then could run far past its start plus
+// AcceptAfter. A level that comes back higher is a growth as on any frame.
 
 // Model states of an incident under learning by reconstruction (besides
 // the unit states ModelAdapting, ModelFrozen, ...).

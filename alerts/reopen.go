@@ -117,8 +117,8 @@ func (e *Engine) reopen(u *unit, inc *incident, o *Observation, t time.Time) {
 	inc.reopened++
 	inc.lastReopen = t.UTC()
 	if inc.loc != nil {
+		// The bounded hold goes on from the last growth (hold.go).
 		inc.loc.lastSupport = t
-		inc.loc.hold.start(t)
 	}
 	inc.dirty = true
 	// Out of the ring of closed incidents: it is open again, and its next

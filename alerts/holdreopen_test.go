@@ -1,0 +1,49 @@
+package alerts
+
+import (
+	"math/rand/v2"
+	"testing"
+	"time"
+)
+
+// TestHoldReopenKeepsHold: a unit-wide disturbance (invented data, frames
+// that name no place) holds its unit flat at 1.2 times the limit for two
+// hours but dips under the limits once, from 30 to 50 min in; its re-alarm
+// re-opens the same incident (reopen_within). The incident keeps its
+// start, so its bounded hold runs from its last growth: it is accepted one
+// accept_after (1 h) after its opening, not one after the re-opening, and
+// it closes as the new normal within its disturbance plus accept_after.
+// Before, the re-opening restarted the hold (accepted at 1 h 50 min in).
+func TestHoldReopenKeepsHold(t *testing.T) {
+	const after = time.Hour
+	h, _ := locHarness(t, Config{Rules: Rules{AcceptAfter: after}})
+	rng := rand.New(rand.NewPCG(5, 8))
+	h.wide(0, 1800, 1.2, rng)    // 30 min in alarm
+	h.wide(1800, 3000, 0.2, rng) // 20 min under: the off-delay ends it
+	h.wide(3000, 7200, 1.2, rng) // re-alarm: re-opened, then flat
+	h.wide(7200, 7800, 0.2, rng) // the disturbance ends
+	recs := h.byStart()
+	if len(recs) != 1 {
+		t.Fatalf("%d model incidents, want 1 (re-opened once): %v", len(recs), keys(h.modelRecords()))
+	}
+	r := recs[0]
+	if r.Reopened != 1 {
+		t.Fatalf("reopened %d times, want 1", r.Reopened)
+	}
+	if r.Accepted == nil {
+		t.Fatalf("a flat incident was not accepted by the hold in 2 h (accept_after %v)", after)
+	}
+	// Its last growth is in its first 8 minutes (the location widening to
+	// the twelve channels of the move, one at a time after growFrames), so
+	// the hold ends about 1 h 8 min after its start.
+	if got := r.Accepted.At.Sub(r.Start); got < after || got > after+10*time.Minute {
+		t.Errorf("accepted %v after its start, want accept_after (%v) plus at most 10 min", got, after)
+	}
+	if r.End == nil || r.EndReason != EndNewNormal {
+		t.Fatalf("end %v reason %q, want closed as the new normal", r.End, r.EndReason)
+	}
+	// The target: open no longer than its disturbance plus accept_after.
+	if due := sec(7200).Add(after); r.End.After(due) {
+		t.Errorf("closed at %v, after the disturbance's end plus accept_after (%v)", r.End, due)
+	}
+}
