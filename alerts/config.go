@@ -116,6 +116,10 @@ type Rules struct {
 	// residual statistics within their limits, is then an incident like
 	// any other. The zero value keeps the rule (DefaultNewPoint).
 	NoNewPoint bool
+	// SpreadRestartsHold: a growth of an incident's location restarts its
+	// bounded hold, as a growth of its level does (hold.go). The zero
+	// value does not (DefaultSpreadRestartsHold).
+	SpreadRestartsHold bool
 	// FloodCount, FloodWindow, ChatterCount and ChatterWindow override the
 	// engine-wide figures of Config for this unit; zero means those.
 	FloodCount    int

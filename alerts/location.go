@@ -269,7 +269,7 @@ func (e *Engine) stepLocations(u *unit, o *Observation, t time.Time) {
 		// location or in none widens first by the frame's location; if it
 		// now meets another incident's, they grew into each other.
 		if e.leadsOnly(u, first, lead) && first.loc.grows(lead) && first.loc.add(frameLocation(o, lead)) {
-			first.loc.noteGrowth(t)
+			first.loc.noteGrowth(u, t)
 			first.dirty = true
 			first = e.absorbOverlaps(u, first, t)
 		}

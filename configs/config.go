@@ -531,6 +531,11 @@ type Alerts struct {
 	// not back within alerts.PointSettle. Unset: the alarm engine's
 	// default, alerts.DefaultNewPoint.
 	NewPoint *bool `yaml:"new_point"`
+	// SpreadRestartsHold: a growth of an incident's location (a channel
+	// outside it leading the incident's frames) restarts its bounded hold,
+	// as a growth of its statistics does. Unset: the alarm engine's
+	// default, alerts.DefaultSpreadRestartsHold.
+	SpreadRestartsHold *bool `yaml:"spread_restarts_hold"`
 }
 
 // OnDelay is the "N of the last M frames" rule.
@@ -642,7 +647,7 @@ func DefaultModel() Model {
 
 // DefaultAlerts returns the default alarm settings.
 func DefaultAlerts() Alerts {
-	freeze, point, calPoints := true, alerts.DefaultNewPoint, DefaultCalibratePoints
+	freeze, point, calPoints, spread := true, alerts.DefaultNewPoint, DefaultCalibratePoints, alerts.DefaultSpreadRestartsHold
 	return Alerts{
 		Budget:   DefaultBudget,
 		OnDelay:  OnDelay{N: DefaultOnDelayN, M: DefaultOnDelayM},
@@ -659,6 +664,8 @@ func DefaultAlerts() Alerts {
 		NewPoint:         &point,
 		CalibrationFolds: DefaultCalibrationFolds,
 		CalibratePoints:  &calPoints,
+
+		SpreadRestartsHold: &spread,
 	}
 }
 

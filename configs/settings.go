@@ -270,6 +270,11 @@ var settings = []Setting{
 		set: setBool(func(o *Overrides) **bool { return &o.Alerts.NewPoint }),
 	},
 	{
+		Name: "spread_restarts_hold", Section: "alerts", Grid: true, Default: strconv.FormatBool(alerts.DefaultSpreadRestartsHold),
+		Doc: "true|false: a growth of an incident's location (a channel outside it leading its frames) restarts its bounded hold (accept_after), as a growth of its statistics does",
+		set: setBool(func(o *Overrides) **bool { return &o.Alerts.SpreadRestartsHold }),
+	},
+	{
 		Name: "calibrate_points", Section: "alerts", Default: strconv.FormatBool(DefaultCalibratePoints),
 		Doc: "true|false: fit's budget calibration does not count held-out excursions of T² alone, spread over the unit's channels, that the new-operating-point rule records as a notice",
 		set: setBool(func(o *Overrides) **bool { return &o.Alerts.CalibratePoints }),

@@ -17,25 +17,26 @@ import (
 // setting gives exactly the value the configuration fills in.
 func TestSettingDefaults(t *testing.T) {
 	owner := map[string]string{
-		"sparsity":         DefaultSparsity,
-		"modes":            DefaultModes,
-		"halflife":         "7d", // DefaultHalfLife
-		"alpha":            strconv.FormatFloat(tracker.DefaultAlpha, 'g', -1, 64),
-		"warmup":           strconv.Itoa(tracker.DefaultWarmUp),
-		"refresh_every":    strconv.Itoa(tracker.DefaultRefreshEvery),
-		"on_delay":         strconv.Itoa(alerts.DefaultOnCount) + "/" + strconv.Itoa(alerts.DefaultOnWindow),
-		"on_span":          "", // alerts.DefaultOnSpan, applied by the engine
-		"off_delay":        FormatDuration(alerts.DefaultOffDelay),
-		"deadband":         strconv.FormatFloat(alerts.DefaultDeadband, 'g', -1, 64),
-		"adapt":            "true",
-		"limits":           LimitsTheory,
-		"smoothing":        "", // no smoothing
-		"statistics":       DefaultStatistics,
-		"mewma_lambda":     strconv.FormatFloat(tracker.DefaultMewmaLambda, 'g', -1, 64),
-		"state_scoring":    tracker.DefaultStateScoring,
-		"new_point":        strconv.FormatBool(alerts.DefaultNewPoint),
-		"calibrate_points": strconv.FormatBool(DefaultCalibratePoints),
-		"driver_level":     strconv.FormatFloat(tracker.DefaultDriverLevel, 'g', -1, 64),
+		"sparsity":             DefaultSparsity,
+		"modes":                DefaultModes,
+		"halflife":             "7d", // DefaultHalfLife
+		"alpha":                strconv.FormatFloat(tracker.DefaultAlpha, 'g', -1, 64),
+		"warmup":               strconv.Itoa(tracker.DefaultWarmUp),
+		"refresh_every":        strconv.Itoa(tracker.DefaultRefreshEvery),
+		"on_delay":             strconv.Itoa(alerts.DefaultOnCount) + "/" + strconv.Itoa(alerts.DefaultOnWindow),
+		"on_span":              "", // alerts.DefaultOnSpan, applied by the engine
+		"off_delay":            FormatDuration(alerts.DefaultOffDelay),
+		"deadband":             strconv.FormatFloat(alerts.DefaultDeadband, 'g', -1, 64),
+		"adapt":                "true",
+		"limits":               LimitsTheory,
+		"smoothing":            "", // no smoothing
+		"statistics":           DefaultStatistics,
+		"mewma_lambda":         strconv.FormatFloat(tracker.DefaultMewmaLambda, 'g', -1, 64),
+		"state_scoring":        tracker.DefaultStateScoring,
+		"new_point":            strconv.FormatBool(alerts.DefaultNewPoint),
+		"calibrate_points":     strconv.FormatBool(DefaultCalibratePoints),
+		"spread_restarts_hold": strconv.FormatBool(alerts.DefaultSpreadRestartsHold),
+		"driver_level":         strconv.FormatFloat(tracker.DefaultDriverLevel, 'g', -1, 64),
 	}
 	if DefaultHalfLife != 7*24*time.Hour {
 		t.Fatalf("DefaultHalfLife = %v; the table above says 7d", DefaultHalfLife)

@@ -162,6 +162,11 @@ func AlertsConfigAt(c *configs.Config, period time.Duration) alerts.Config {
 			ReopenWithin:   a.ReopenWithin,
 			SpecificShare:  a.SpecificShare,
 			NoNewPoint:     newPointOff(a),
+
+			SpreadRestartsHold: alerts.DefaultSpreadRestartsHold,
+		}
+		if a.SpreadRestartsHold != nil {
+			r.SpreadRestartsHold = *a.SpreadRestartsHold
 		}
 		r.OnCount, r.OnWindow = spanOnDelay(a, r.OnCount, r.OnWindow, period)
 		if r.OffDelay == 0 {
