@@ -75,11 +75,10 @@ const DefaultAcceptAfter = 4 * time.Hour
 // its frames while its level stays flat) does not restart its bounded
 // hold. The hold is on the statistics ("flat, no growth"); a
 // disturbance that spreads also raises the level when it is more than a
-// wander of the leading channel. Chosen on the realism suite over seeds
-// and the demo together (see README, Validation): with the restart, a
-// warm afternoon that moved the compressor station's booster on its first
-// test day spread to the aftercooler 4.5 h in, at a flat level, and the
-// false alert stayed open 8.5 h.
+// wander of the leading channel. With the restart, a flat disturbance
+// whose lead wandered to another channel hours in was held as long again.
+// Chosen on the realism suite over seeds and the demo together (README,
+// Validation: The bounded hold over seeds).
 const DefaultSpreadRestartsHold = false
 
 // holdGrowth is the relative growth of an incident's peak ratio that
