@@ -159,10 +159,10 @@ func (e *Engine) SetClock(now func() time.Time) {
 }
 
 // statistic indices
-var statNames = [nStats]string{StatT2, StatSPE, StatPhi, StatResidual, StatVariance, StatRelation, StatMewma}
+var statNames = [nStats]string{StatT2, StatSPE, StatPhi, StatResidual, StatVariance, StatRelation, StatMewma, StatCreep}
 
 // nStats is the number of statistics the engine keeps an alarm for.
-const nStats = 7
+const nStats = 8
 
 func statIndex(name string) int {
 	switch name {
@@ -180,6 +180,8 @@ func statIndex(name string) int {
 		return 5
 	case StatMewma:
 		return 6
+	case StatCreep:
+		return 7
 	}
 	return -1
 }

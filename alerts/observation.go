@@ -20,6 +20,10 @@ const (
 	// StatMewma is the multivariate EWMA statistic of the residual part
 	// (small persistent shifts of a relation; Lowry et al. 1992).
 	StatMewma = "mewma"
+	// StatCreep is the creep statistic (each channel's smoothed
+	// reconstruction residual against its own normal variance: small
+	// persistent shifts of one relation).
+	StatCreep = "creep"
 )
 
 // Data-quality kinds accepted in Quality.Kind.
@@ -88,7 +92,7 @@ type Observation struct {
 
 // Stat is one monitoring statistic and its control limit.
 type Stat struct {
-	Name  string // StatT2, StatSPE, StatPhi, StatResidual, StatVariance, StatRelation or StatMewma
+	Name  string // StatT2, StatSPE, StatPhi, StatResidual, StatVariance, StatRelation, StatMewma or StatCreep
 	Value float64
 	Limit float64 // > 0; a frame with a non-finite or non-positive limit is skipped for this statistic
 }

@@ -384,12 +384,16 @@ type Model struct {
 	// Statistics lists the statistics whose alarms open an alert:
 	// t2, spe, phi, res (residual Mahalanobis), var (per-channel
 	// variance), rel (relation modes), mewma (multivariate EWMA of the
-	// residual part, for small persistent shifts). Default
+	// residual part, for small persistent shifts), creep (each channel's
+	// smoothed residual against its own normal variance). Default
 	// [DefaultStatistics].
 	Statistics string `yaml:"statistics"`
 	// MewmaLambda is the EWMA weight λ in (0, 1) of the mewma statistic
 	// (a memory of about 1/λ frames). Default [tracker.DefaultMewmaLambda].
 	MewmaLambda float64 `yaml:"mewma_lambda"`
+	// CreepLambda is the EWMA weight λ in (0, 1) of the creep statistic
+	// (a memory of about 1/λ frames). Default [tracker.DefaultCreepLambda].
+	CreepLambda float64 `yaml:"creep_lambda"`
 	// Smoothing is the EWMA weight λ in (0, 1) applied to each alarm
 	// statistic's ratio to its limit before the alarm rule (a remedy for
 	// serially correlated statistics); its threshold then comes from
@@ -639,6 +643,7 @@ func DefaultModel() Model {
 		MaxChannels:  DefaultUnitMaxChannels,
 		Statistics:   DefaultStatistics,
 		MewmaLambda:  tracker.DefaultMewmaLambda,
+		CreepLambda:  tracker.DefaultCreepLambda,
 		StateScoring: tracker.DefaultStateScoring,
 		DriverLevel:  tracker.DefaultDriverLevel,
 		Shrink:       DefaultShrink,

@@ -325,6 +325,11 @@ var settings = []Setting{
 		set: setFraction(1, "an EWMA weight", func(o *Overrides) *float64 { return &o.Model.MewmaLambda }),
 	},
 	{
+		Name: "creep_lambda", Section: "model", Default: strconv.FormatFloat(tracker.DefaultCreepLambda, 'g', -1, 64),
+		Doc: "EWMA weight in (0, 1) of the creep statistic (statistics: creep), a memory of about 1/λ frames",
+		set: setFraction(1, "an EWMA weight", func(o *Overrides) *float64 { return &o.Model.CreepLambda }),
+	},
+	{
 		Name: "state_scoring", Section: "model", Default: tracker.DefaultStateScoring,
 		Doc: "found operating states (state: auto): posterior (every state's model, by the frame's posterior) or most_probable",
 		set: func(o *Overrides, s string) (string, error) {
@@ -337,7 +342,7 @@ var settings = []Setting{
 	},
 	{
 		Name: "statistics", Section: "model", Default: DefaultStatistics,
-		Doc: "statistics that raise alarms, a list of t2,spe,phi,res,var,rel,mewma",
+		Doc: "statistics that raise alarms, a list of t2,spe,phi,res,var,rel,mewma,creep",
 		set: func(o *Overrides, s string) (string, error) {
 			if _, err := ParseStatistics(s); err != nil {
 				return s, err

@@ -32,6 +32,7 @@ func TestSettingDefaults(t *testing.T) {
 		"smoothing":            "", // no smoothing
 		"statistics":           DefaultStatistics,
 		"mewma_lambda":         strconv.FormatFloat(tracker.DefaultMewmaLambda, 'g', -1, 64),
+		"creep_lambda":         strconv.FormatFloat(tracker.DefaultCreepLambda, 'g', -1, 64),
 		"state_scoring":        tracker.DefaultStateScoring,
 		"new_point":            strconv.FormatBool(alerts.DefaultNewPoint),
 		"calibrate_points":     strconv.FormatBool(DefaultCalibratePoints),
@@ -175,6 +176,7 @@ func TestParseStatistics(t *testing.T) {
 		{"t2,spe,phi", Statistics{T2: true, SPE: true, Phi: true}, true},
 		{" RES , var", Statistics{Residual: true, Variance: true}, true},
 		{"t2,spe,phi,res,mewma", Statistics{T2: true, SPE: true, Phi: true, Residual: true, Mewma: true}, true},
+		{"t2,spe,phi,res,creep", Statistics{T2: true, SPE: true, Phi: true, Residual: true, Creep: true}, true},
 		{"", Statistics{}, false},
 		{"t2,q", Statistics{}, false},
 		{"t2,ewma", Statistics{}, false},
@@ -183,7 +185,7 @@ func TestParseStatistics(t *testing.T) {
 		if (err == nil) != c.ok || (c.ok && got != c.want) {
 			t.Errorf("%q: %+v, %v", c.in, got, err)
 		}
-		if err != nil && !strings.Contains(err.Error(), "mewma") {
+		if err != nil && (!strings.Contains(err.Error(), "mewma") || !strings.Contains(err.Error(), "creep")) {
 			t.Errorf("%q: error %q does not list the choices", c.in, err)
 		}
 	}
@@ -201,6 +203,10 @@ func TestMewmaValidation(t *testing.T) {
 		{"model: {mewma_lambda: -0.1}\n", "model.mewma_lambda"},
 		{"model: {mewma_lambda: 1}\n", "model.mewma_lambda"},
 		{"model: {statistics: \"t2,mewmaa\"}\n", "model.statistics"},
+		{"model: {statistics: \"t2,spe,phi,res,creep\", creep_lambda: 0.1}\n", ""},
+		{"model: {creep_lambda: 1}\n", "model.creep_lambda"},
+		{"model: {creep_lambda: -0.2}\n", "model.creep_lambda"},
+		{"units: [{name: a, model: {creep_lambda: 2}}]\n", "creep_lambda"},
 		{"units: [{name: a, model: {mewma_lambda: 2}}]\n", "mewma_lambda"},
 	} {
 		checkKeyError(t, c.yaml, c.want)

@@ -16,6 +16,10 @@ const (
 	// StatisticMewma is the multivariate EWMA of the residual part, for
 	// small persistent shifts (Lowry et al. 1992).
 	StatisticMewma = "mewma"
+	// StatisticCreep is the creep statistic: each channel's smoothed
+	// reconstruction residual against its own normal variance, for small
+	// persistent shifts of one relation.
+	StatisticCreep = "creep"
 )
 
 // DefaultStatistics is the default of model.statistics: the statistics
@@ -26,15 +30,15 @@ const DefaultStatistics = "t2,spe,phi,res"
 const MaxRelations = 10
 
 // Statistics is the set of statistics that raise alarms, as the list
-// "t2,spe,phi,res,var,rel,mewma" (any non-empty subset, comma-separated).
+// "t2,spe,phi,res,var,rel,mewma,creep" (any non-empty subset, comma-separated).
 // Relation modes take one relation per three channels, at most
 // MaxRelations.
 type Statistics struct {
-	T2, SPE, Phi, Residual, Variance, Relation, Mewma bool
+	T2, SPE, Phi, Residual, Variance, Relation, Mewma, Creep bool
 }
 
 // statisticChoices lists the names ParseStatistics accepts, for its errors.
-const statisticChoices = "t2, spe, phi, res, var, rel, mewma"
+const statisticChoices = "t2, spe, phi, res, var, rel, mewma, creep"
 
 // ParseStatistics parses a model.statistics value.
 func ParseStatistics(s string) (Statistics, error) {
@@ -58,6 +62,8 @@ func ParseStatistics(s string) (Statistics, error) {
 			st.Relation = true
 		case StatisticMewma:
 			st.Mewma = true
+		case StatisticCreep:
+			st.Creep = true
 		default:
 			return st, fmt.Errorf("unknown statistic %q (choose from %s)", strings.TrimSpace(f), statisticChoices)
 		}

@@ -73,7 +73,7 @@ func newBenchTrackerResidual(b *testing.B, sc *Score, p, refreshEvery, batch, wa
 		persist = 3
 	}
 	tr, err := New(p, Config{Period: time.Second, HalfLife: time.Hour, WarmUp: 256, RefreshEvery: refreshEvery, Batch: batch,
-		Residual: residual, Ridge: ridge, LearnRidge: learn, Persist: persist,
+		Residual: residual, Ridge: ridge, LearnRidge: learn, Persist: persist, Creep: benchCreep,
 		Modes: modes.Config{Count: 5, Sparsity: []modes.Sparsity{{Method: modes.L0, K: 10}}}})
 	if err != nil {
 		b.Fatal(err)
@@ -292,6 +292,19 @@ func BenchmarkFrameResidualMaskedSharedOverDecode(b *testing.B) {
 	defer func() { shareRidge = false }()
 	benchOverDecodeResidual(b, -1, 3, true)
 }
+
+// BenchmarkFrameResidualCreepOverDecode is BenchmarkFrameResidualOverDecode
+// with the creep statistic on (Config.Creep): at p = 500 Mz̄ (two
+// triangular solves) every creepEvery(500) = 16 frames, and the diagonal of
+// Ω once per refresh.
+func BenchmarkFrameResidualCreepOverDecode(b *testing.B) {
+	benchCreep = true
+	defer func() { benchCreep = false }()
+	benchOverDecodeResidual(b, -1, 0, true)
+}
+
+// benchCreep sets Config.Creep in newBenchTrackerResidual.
+var benchCreep bool
 
 // shareRidge sets Ridge = ResidualRidge in newBenchTrackerResidual.
 var shareRidge bool

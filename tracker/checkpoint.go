@@ -40,20 +40,26 @@ var ErrCheckpoint = errors.New("tracker: bad checkpoint")
 //	       | p × f64 n | f64 w | u32 frames since w: the persistence
 //	       weight's smoothed frame, normal levels, last weight (off:
 //	       ignored; a checkpoint without: z̄ = 0, no levels)
+//	creep: u8 present (Config.Creep) | p × f64 z̄ | p × f64 s̄ | p × f64 v  [v7]
+//	       | p × f64 n | p × f64 normaliser: the creep statistic's
+//	       smoothed frame, smoothed residuals, normal variances, evaluations
+//	       behind them and normalisers 1/√Mᵢᵢ (all 0: formed at the next
+//	       frame; off: ignored; a checkpoint without: started again from
+//	       z̄ = 0 and the variance of independent frames)
 //	modes: u32 n | n bytes of modes.Set.MarshalBinary
 //	u32 CRC-32 (IEEE) of everything before
 //
 // Versions 1 (no p0, no per-channel steps), 2 (no lag section), 3 (no
 // variance section: a restored variance statistic starts again from its
-// EWMA and normal level at 1), 4 (no MEWMA section) and 5 (no persist
-// section) are still read.
+// EWMA and normal level at 1), 4 (no MEWMA section), 5 (no persist
+// section) and 6 (no creep section) are still read.
 //
 // The model snapshot (loadings, limits, per-channel data) is recomputed on
 // restore from A and the restored modes by the same code as at the refresh,
 // so it is bit-identical.
 const (
 	ckMagic   = "MWTK"
-	ckVersion = 6
+	ckVersion = 7
 )
 
 // fingerprint hashes the configuration fields that shape the state.
@@ -201,6 +207,20 @@ func (t *Tracker) MarshalBinary() ([]byte, error) {
 	} else {
 		b = append(b, 0)
 	}
+	if cr := t.cr; cr != nil {
+		b = append(b, 1)
+		nrm := cr.nrm
+		if !cr.nrmOK {
+			nrm = make([]float64, p) // all 0: not formed
+		}
+		for _, s := range [][]float64{cr.zbar, cr.sbar, cr.v, cr.n, nrm} {
+			for _, v := range s {
+				f64(v)
+			}
+		}
+	} else {
+		b = append(b, 0)
+	}
 	b = le.AppendUint32(b, uint32(len(mb)))
 	b = append(b, mb...)
 	b = le.AppendUint32(b, crc32.ChecksumIEEE(b))
@@ -315,6 +335,7 @@ type ckState struct {
 	pz, pl, pw                    []float64 // persistence weight (version ≥ 6; nil: start again)
 	pWeight                       float64
 	pN                            int
+	cz, cs, cv, cn, cm            []float64 // creep statistic's z̄, s̄, v, n, normaliser (version ≥ 7; nil: start again)
 	modes                         []byte
 }
 
@@ -436,6 +457,20 @@ func (t *Tracker) decodeCheckpoint(data []byte) (*ckState, error) {
 			st.pN = int(r.u32("persist frames"))
 		}
 	}
+	if version >= 7 {
+		has, err := r.flag("creep flag")
+		if err != nil {
+			return nil, err
+		}
+		if has {
+			st.cz, st.cs, st.cv, st.cn, st.cm = make([]float64, p), make([]float64, p), make([]float64, p), make([]float64, p), make([]float64, p)
+			r.floats(st.cz, "creep smoothed frame")
+			r.floats(st.cs, "creep smoothed residuals")
+			r.floats(st.cv, "creep normal variances")
+			r.floats(st.cn, "creep variance counts")
+			r.floats(st.cm, "creep normalisers")
+		}
+	}
 	nm := int(r.u32("modes length"))
 	if r.need(nm, "modes") {
 		st.modes = r.b[r.off : r.off+nm]
@@ -540,6 +575,13 @@ func (st *ckState) check() error {
 			return ckError("persistence weight of channel %d: smoothed value %v, level %v, weight %v", i, z, l, w)
 		}
 	}
+	for i := range st.cz {
+		z, sb, v, n, nm := st.cz[i], st.cs[i], st.cv[i], st.cn[i], st.cm[i]
+		if math.IsNaN(z) || math.IsInf(z, 0) || math.IsNaN(sb) || math.IsInf(sb, 0) || !(v > 0) || math.IsInf(v, 0) ||
+			!(n >= 0) || math.IsInf(n, 0) || !(nm >= 0) || math.IsInf(nm, 0) {
+			return ckError("creep statistic of channel %d: smoothed value %v, residual %v, normal variance %v, count %v, normaliser %v", i, z, sb, v, n, nm)
+		}
+	}
 	return nil
 }
 
@@ -619,6 +661,23 @@ func (t *Tracker) apply(st *ckState) {
 		ps.w, ps.n = 1, 0
 		if st.pz != nil {
 			ps.w, ps.n = st.pWeight, st.pN
+		}
+	}
+	if cr := t.cr; cr != nil {
+		if st.cz != nil {
+			copy(cr.zbar, st.cz)
+			copy(cr.sbar, st.cs)
+			copy(cr.v, st.cv)
+			copy(cr.n, st.cn)
+			copy(cr.nrm, st.cm)
+			cr.limPin, cr.nrmOK = -1, false
+			for _, x := range st.cm {
+				cr.nrmOK = cr.nrmOK || x > 0
+			}
+		} else {
+			clear(cr.zbar)
+			clear(cr.sbar)
+			cr.prior()
 		}
 	}
 	t.since = st.since

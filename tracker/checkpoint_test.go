@@ -197,16 +197,17 @@ func TestCheckpointVersion1(t *testing.T) {
 	// learned 8, since 4, then the u32 initial width (version 2 on). The
 	// u32 count of the lag section (version 3 on), the u8 flag of the
 	// variance section (version 4 on), the u8 flag of the MEWMA section
-	// (version 5 on) and the u8 flag of the persist section (version 6 on)
-	// sit before the modes.
+	// (version 5 on), the u8 flag of the persist section (version 6 on)
+	// and the u8 flag of the creep section (version 7 on) sit before the
+	// modes.
 	const at = 4 + 2 + 4 + 8 + 1 + 8 + 8 + 4
 	mb, err := tr.ms.MarshalBinary()
 	if err != nil {
 		t.Fatal(err)
 	}
-	lagAt := len(ck) - 4 - len(mb) - 4 - 1 - 1 - 1 - 4
+	lagAt := len(ck) - 4 - len(mb) - 4 - 1 - 1 - 1 - 1 - 4
 	v1 := append(bytes.Clone(ck[:at]), ck[at+4:lagAt]...)
-	v1 = append(v1, ck[lagAt+4+1+1+1:len(ck)-4]...)
+	v1 = append(v1, ck[lagAt+4+1+1+1+1:len(ck)-4]...)
 	binary.LittleEndian.PutUint16(v1[4:], 1)
 	v1 = binary.LittleEndian.AppendUint32(v1, crc32.ChecksumIEEE(v1))
 	stepBoth(t, tr, restoreTracker(t, p, cfg, v1), src, p, 50, "version 1 restore")
@@ -297,11 +298,11 @@ func TestCheckpointVarianceState(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	varAt := len(ck) - 4 - len(mb) - 4 - 1 - 1 - (1 + 3*8*p) // then the MEWMA flag (version 5) and the persist flag (version 6), 0 here
-	if ck[varAt] != 1 || ck[varAt+1+3*8*p] != 0 {
-		t.Fatalf("variance flag %d at byte %d, want 1, then MEWMA flag %d, want 0", ck[varAt], varAt, ck[varAt+1+3*8*p])
+	varAt := len(ck) - 4 - len(mb) - 4 - 1 - 1 - 1 - (1 + 3*8*p) // then the MEWMA, persist and creep flags (versions 5–7), 0 here
+	if ck[varAt] != 1 || ck[varAt+1+3*8*p] != 0 || ck[varAt+3+3*8*p] != 0 {
+		t.Fatalf("variance flag %d at byte %d, want 1, then MEWMA flag %d and creep flag %d, want 0", ck[varAt], varAt, ck[varAt+1+3*8*p], ck[varAt+3+3*8*p])
 	}
-	v3 := append(bytes.Clone(ck[:varAt]), ck[varAt+1+3*8*p+1+1:len(ck)-4]...)
+	v3 := append(bytes.Clone(ck[:varAt]), ck[varAt+1+3*8*p+1+1+1:len(ck)-4]...)
 	binary.LittleEndian.PutUint16(v3[4:], 3)
 	v3 = binary.LittleEndian.AppendUint32(v3, crc32.ChecksumIEEE(v3))
 	if same, _ := replay(v3); same {

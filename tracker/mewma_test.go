@@ -187,11 +187,11 @@ func TestCheckpointMewmaState(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	at := len(ck) - 4 - len(mb) - 4 - 1 - (1 + 8*p) // the MEWMA section, then the persist flag (0 here) and the modes
+	at := len(ck) - 4 - len(mb) - 4 - 1 - 1 - (1 + 8*p) // the MEWMA section, then the persist and creep flags (0 here) and the modes
 	if ck[at] != 1 {
 		t.Fatalf("MEWMA flag %d at byte %d, want 1", ck[at], at)
 	}
-	v4 := append(bytes.Clone(ck[:at]), ck[at+1+8*p+1:len(ck)-4]...) // version 4: no flag, no z̄, no persist flag
+	v4 := append(bytes.Clone(ck[:at]), ck[at+1+8*p+1+1:len(ck)-4]...) // version 4: no flag, no z̄, no persist and creep flags
 	binary.LittleEndian.PutUint16(v4[4:], 4)
 	v4 = binary.LittleEndian.AppendUint32(v4, crc32.ChecksumIEEE(v4))
 	if same, _ := replay(v4); same {

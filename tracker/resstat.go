@@ -108,7 +108,7 @@ type resGen struct {
 const resDiagBlock = 16
 
 func newResStat(p int, cfg *Config) *resStat {
-	if !cfg.Residual && !cfg.Variance && !cfg.Mewma {
+	if !cfg.Residual && !cfg.Variance && !cfg.Mewma && !cfg.Creep {
 		return nil
 	}
 	rs := &resStat{
@@ -342,7 +342,7 @@ func upperSolveT(v, y, l []float64, p int) {
 func (rs *resStat) score(dst *Score, m *model, z, dz []float64, t2 float64, nMiss int, obs, stuck []bool, advance, learn bool) {
 	dst.Residual, dst.ResidualLimit, dst.Variance, dst.VarianceLimit, dst.VarianceChannel = 0, 0, 0, 0, -1
 	if !rs.ok || (!rs.res && !rs.vr) {
-		return // not asked for (the factor serves the MEWMA statistic alone)
+		return // not asked for (the factor serves the MEWMA or creep statistic alone)
 	}
 	p := rs.p
 	g := &rs.gens[rs.cur]

@@ -276,6 +276,15 @@ type Config struct {
 	// weight's smoothed deviations but weighs every frame 1 (fitting on a
 	// log that is normal by the user's word).
 	PersistLevelsOnly bool
+	// Creep adds the creep statistic (Score.Creep; see creep): each
+	// channel's standardized reconstruction residual, smoothed by an EWMA
+	// of weight CreepLambda in (0, 1] (default DefaultCreepLambda) and
+	// normalised by its own observed normal variance; the largest term.
+	// It shares the factor of the residual statistic and costs two
+	// triangular solves, p² multiply-adds, per evaluation (every frame up
+	// to 128 channels; see creepEvery).
+	Creep       bool
+	CreepLambda float64
 }
 
 // Errors.
@@ -357,6 +366,12 @@ type Score struct {
 	// its limit (χ²_{1−α} on the residual dimensions; see mewma). Zero
 	// unless Config.Mewma.
 	Mewma, MewmaLimit float64
+	// Creep is the creep statistic (the largest of the channels' smoothed
+	// residuals squared over their normal variance),
+	// CreepLimit its limit and CreepChannel the channel of the largest
+	// term (−1: none). Zero unless Config.Creep (see creep).
+	Creep, CreepLimit float64
+	CreepChannel      int
 	Frame             uint64 // frames seen, this one included
 	NextRefresh       int    // learned frames until the next refresh (or the end of warm-up)
 }
@@ -380,6 +395,7 @@ type Tracker struct {
 	rl   *relStat // nil unless Config.Relations > 0
 	mw   *mewma   // nil unless Config.Mewma
 	ps   *persist // nil unless Config.Persist > 0 (persist.go)
+	cr   *creep   // nil unless Config.Creep
 	// stepping: score is called from Step (advance the variance EWMA)
 	stepping bool
 
@@ -472,6 +488,12 @@ func (c *Config) defaults(p int) error {
 	if !(c.MewmaLambda > 0 && c.MewmaLambda <= 1) {
 		return fmt.Errorf("%w: MewmaLambda %v not in (0, 1]", ErrConfig, c.MewmaLambda)
 	}
+	if c.CreepLambda == 0 {
+		c.CreepLambda = DefaultCreepLambda
+	}
+	if !(c.CreepLambda > 0 && c.CreepLambda <= 1) {
+		return fmt.Errorf("%w: CreepLambda %v not in (0, 1]", ErrConfig, c.CreepLambda)
+	}
 	if c.Relations < 0 || c.Relations > 64 || c.RelationSize < 2 {
 		return fmt.Errorf("%w: Relations %d (0 to 64), RelationSize %d (≥ 2)", ErrConfig, c.Relations, c.RelationSize)
 	}
@@ -534,6 +556,7 @@ func New(p int, cfg Config) (*Tracker, error) {
 		mw:    newMewma(p, maxR, &cfg),
 		ps:    newPersist(p, &cfg),
 	}
+	t.cr = newCreep(p, maxR, t.ew.mu, &cfg)
 	if t.rl, err = newRelStat(p, &cfg); err != nil {
 		return nil, err
 	}
@@ -741,6 +764,9 @@ func (t *Tracker) score(dst *Score, x []float64) error {
 	if t.mw != nil {
 		t.mw.score(dst, m, t.rs, w.z, t.stepping)
 	}
+	if t.cr != nil {
+		t.cr.score(dst, m, t.rs, w.z, t.obs, t.stuck, t.frames, t.stepping, t.stepping && !t.frozen && !t.baseline)
+	}
 	dst.Ready = true
 	dst.T2, dst.SPE, dst.Phi = t2, spe, phi
 	dst.T2Limit, dst.SPELimit, dst.PhiLimit = pt.t2Lim, pt.speLim, pt.phiLim
@@ -764,9 +790,18 @@ func (t *Tracker) score(dst *Score, x []float64) error {
 	if useRes {
 		rbc, index = t.rs.contributions(), dst.Residual
 	}
+	best := ratio(index, indexLim)
+	if useRes {
+		best = ratio(dst.Residual, dst.ResidualLimit)
+	}
 	useMw := t.rankMewma(dst, index, indexLim, useRes)
 	if useMw {
 		rbc, index, useRes = t.mw.contributions(m, t.rs), dst.Mewma, false
+		best = dst.Mewma / (dst.MewmaLimit * t.mw.rel)
+	}
+	useCr := t.rankCreep(dst, best)
+	if useCr {
+		rbc, index, useRes, useMw = t.cr.term, dst.Creep, false, false
 	}
 	top := t.rankTop(rbc, pt.rbcInv)
 	for _, i := range top {
@@ -785,6 +820,9 @@ func (t *Tracker) score(dst *Score, x []float64) error {
 		}
 		if useMw {
 			c.RBCLimit = t.rs.rbcLim * t.mw.rel
+		}
+		if useCr {
+			c.RBCLimit = t.cr.lim * t.cr.rel
 		}
 		c.Share = 0
 		if index > 0 {
@@ -1167,6 +1205,7 @@ func (t *Tracker) Grow(p2 int, cfg Config) error {
 	t.rl = rl
 	t.mw = t.mw.grown(p2, maxR, &cfg)
 	t.ps = t.ps.grown(p2, &cfg)
+	t.cr = t.cr.grown(p2, maxR, t.ew.mu, &cfg)
 	if cap(t.top) < cfg.TopContrib+1 {
 		t.top = make([]int, 0, cfg.TopContrib+1)
 	}

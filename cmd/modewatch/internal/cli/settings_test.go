@@ -18,7 +18,7 @@ func TestSettingRoutesAgree(t *testing.T) {
 	sample := map[string]string{
 		"sparsity": "l0:4", "modes": "3", "halflife": "3d", "alpha": "0.001",
 		"warmup": "800", "refresh_every": "32", "on_delay": "6/10", "off_delay": "20m",
-		"deadband": "0.1", "adapt": "false", "limits": "empirical:reference.lp", "smoothing": "0.3", "mewma_lambda": "0.1",
+		"deadband": "0.1", "adapt": "false", "limits": "empirical:reference.lp", "smoothing": "0.3", "mewma_lambda": "0.1", "creep_lambda": "0.1",
 		"on_span":    "2m",
 		"statistics": "t2,spe", "state_scoring": "most_probable", "new_point": "false", "calibrate_points": "true", "spread_restarts_hold": "true",
 		"driver_level": "off",

@@ -133,8 +133,8 @@ func (s *unitStates) combine(cur *tracker.Score, ci int, x []float64, miss []boo
 // statFields returns the value and the limit of statistic slot st of s
 // (statNames' order).
 func statFields(s *tracker.Score, st int) (v, lim *float64) {
-	vs := [...]*float64{&s.T2, &s.SPE, &s.Phi, &s.Residual, &s.Variance, &s.Relation, &s.Mewma}
-	lims := [...]*float64{&s.T2Limit, &s.SPELimit, &s.PhiLimit, &s.ResidualLimit, &s.VarianceLimit, &s.RelationLimit, &s.MewmaLimit}
+	vs := [...]*float64{&s.T2, &s.SPE, &s.Phi, &s.Residual, &s.Variance, &s.Relation, &s.Mewma, &s.Creep}
+	lims := [...]*float64{&s.T2Limit, &s.SPELimit, &s.PhiLimit, &s.ResidualLimit, &s.VarianceLimit, &s.RelationLimit, &s.MewmaLimit, &s.CreepLimit}
 	st = min(max(st, 0), len(vs)-1)
 	return vs[st], lims[st]
 }

@@ -111,7 +111,7 @@ type ratioSeries struct {
 }
 
 // nStatistics is the number of statistics appendStats can report.
-const nStatistics = 7
+const nStatistics = 8
 
 // NewRatioRecorder returns an empty recorder.
 func NewRatioRecorder() *RatioRecorder { return &RatioRecorder{units: map[string]*ratioSeries{}} }
@@ -166,8 +166,8 @@ func (rr *RatioRecorder) Calibrate(name string, budget float64, rule alerts.Alar
 	if points {
 		r = pointRatios(ser.t, ser.r, ser.spread, accept)
 	}
-	if !perStat && hasStat(r, slotMewma) {
-		return calibrateMewma(ser.t, r, budget, rule, learnDays)
+	if !perStat && (hasStat(r, slotMewma) || hasStat(r, slotCreep)) {
+		return calibrateSmoothed(ser.t, r, budget, rule, learnDays)
 	}
 	cal, err := CalibrateBudget(ser.t, r, budget, rule, learnDays)
 	if err == nil && perStat {

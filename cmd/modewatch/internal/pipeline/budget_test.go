@@ -809,3 +809,45 @@ func TestBudgetMewmaOwnScale(t *testing.T) {
 		t.Errorf("measured %.2f false alerts/day, outside the calibration's interval [%.3f, %.3f]", got, cal.RateLow, cal.RateHigh)
 	}
 }
+
+// TestBudgetSmoothedOwnScales: the AR(1) plant of TestBudgetMewmaOwnScale
+// with two smoothed statistics, in the MEWMA slot (λ = 0.02) and in the
+// creep slot (λ = 0.1, a shorter memory, on its own scale): each gets a
+// scale of its own, T², SPE and φ one together, the heavier-tailed
+// smoothed statistic the larger, and the whole rule stays within the
+// budget's share of held-out alerts (invented series, seeded; derived
+// check).
+func TestBudgetSmoothedOwnScales(t *testing.T) {
+	tr, a, rule, t0 := fittedAR1(t)
+	const period, day = time.Minute, 24 * 60
+	const budget = 1.0
+	smooth := func(r [][nStatistics]float64) {
+		z, c := 0.0, 0.0
+		for k := range r {
+			z += 0.02 * (r[k][1] - z)
+			c += 0.1 * (r[k][1] - c)
+			r[k][slotMewma] = (2 - 0.02) / 0.02 * z
+			r[k][slotCreep] = c
+		}
+	}
+	ct, cr := ratiosOf(t, tr, a, t0, period, 10*day)
+	smooth(cr)
+	rr := &RatioRecorder{units: map[string]*ratioSeries{"u": {t: ct, r: cr, spread: make([]bool, len(ct))}}}
+	cal, err := rr.Calibrate("u", budget, rule, 5, false, false, 0)
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Logf("scales %v, held-out alerts %d", cal.Scales, cal.Observed)
+	m, okM := cal.Scales[alerts.StatMewma]
+	c, okC := cal.Scales[alerts.StatCreep]
+	s := cal.Scales[alerts.StatSPE]
+	if !okM || !okC || cal.Scales[alerts.StatT2] != s || cal.Scales[alerts.StatPhi] != s {
+		t.Fatalf("scales %v: want one for t2, spe and phi together, one for mewma, one for creep", cal.Scales)
+	}
+	if m == c || c == s {
+		t.Errorf("mewma ×%.3f, creep ×%.3f, spe ×%.3f: want three different scales", m, c, s)
+	}
+	if allow := heldOutAllowance(budget, cal.HeldOutDays); float64(cal.Observed) > allow {
+		t.Errorf("%d held-out alerts, allowance %.2f", cal.Observed, allow)
+	}
+}

@@ -122,14 +122,21 @@ type statGroups [nStatistics]int
 
 // eachOwn puts every statistic in a group of its own
 // (alerts.budget_per_statistic).
-var eachOwn = statGroups{0, 1, 2, 3, 4, 5, 6}
+var eachOwn = statGroups{0, 1, 2, 3, 4, 5, 6, 7}
 
-// mewmaOwn gives the MEWMA statistic a scale of its own and the others one
-// scale together: its smoothing makes it far more serially correlated
-// than the per-frame statistics, so that one scale for all would be set by
-// it (blinding the others) or, without it, leave it alarming for hours.
-var mewmaOwn = func() (g statGroups) {
-	g[slotMewma] = 1
+// smoothedSlots are the statistics smoothed over many frames (the MEWMA
+// and the creep statistic).
+var smoothedSlots = [...]int{slotMewma, slotCreep}
+
+// smoothedOwn gives each smoothed statistic a scale of its own and the
+// others one scale together: smoothing makes a statistic far more
+// serially correlated than the per-frame statistics, so that one scale
+// for all would be set by it (blinding the others) or, without it, leave
+// it alarming for hours.
+var smoothedOwn = func() (g statGroups) {
+	for k, j := range smoothedSlots {
+		g[j] = 1 + k
+	}
 	return g
 }()
 
@@ -350,55 +357,77 @@ func calibrateGroups(cal *Calibration, t []time.Time, ratios [][nStatistics]floa
 	cal.stateRate(fit, exceed, func(x float64) int { return countAlertsEach(t, ratios, mul(x), rule) }, perDay)
 }
 
-// calibrateMewma calibrates a unit whose statistics include the MEWMA
-// statistic (and not alerts.budget_per_statistic): the other statistics
-// are calibrated by CalibrateBudget without it, to the same single scale
-// as without the MEWMA statistic, then the two groups (mewmaOwn) get
-// their scales at the same tail probability and the whole rule at the
-// budget (calibrateGroups). When the MEWMA statistic's block maxima give
-// no GEV fit (a tail too heavy for 20 maxima), its scale is the smallest
-// at or above the others' at which the whole rule opens at most the
-// budget's share of alerts over the held-out frames (mewmaHeldOut).
-func calibrateMewma(t []time.Time, ratios [][nStatistics]float64, budget float64, rule alerts.AlarmRule, learnDays float64) (Calibration, error) {
+// calibrateSmoothed calibrates a unit whose statistics include a
+// statistic smoothed over many frames, the MEWMA or the creep statistic
+// (and not alerts.budget_per_statistic): the other statistics are
+// calibrated by CalibrateBudget without them, to the same single scale as
+// without them, then the groups (smoothedOwn: the per-frame statistics
+// together, each smoothed statistic alone) get their scales at the same
+// tail probability and the whole rule at the budget (calibrateGroups).
+// A smoothed statistic whose block maxima give no GEV fit (a tail too
+// heavy for 20 maxima) gets the smallest scale at or above the others' at
+// which the whole rule opens at most the budget's share of alerts over
+// the held-out frames, the smoothed statistics in slot order.
+func calibrateSmoothed(t []time.Time, ratios [][nStatistics]float64, budget float64, rule alerts.AlarmRule, learnDays float64) (Calibration, error) {
 	rest := make([][nStatistics]float64, len(ratios))
 	for k, row := range ratios {
-		row[slotMewma] = math.NaN()
+		for _, j := range smoothedSlots {
+			row[j] = math.NaN()
+		}
 		rest[k] = row
 	}
 	cal, err := CalibrateBudget(t, rest, budget, rule, learnDays)
 	if err != nil {
 		return cal, err
 	}
-	calibrateGroups(&cal, t, ratios, rule, mewmaOwn)
-	if _, ok := cal.Scales[alerts.StatMewma]; ok {
-		return cal, nil
-	}
+	calibrateGroups(&cal, t, ratios, rule, smoothedOwn)
 	var sc [nStatistics]float64
+	var todo []int
 	for j := range sc {
-		if hasStat(ratios, j) {
+		if !hasStat(ratios, j) {
+			continue
+		}
+		c, ok := cal.Scales[statNames[j]]
+		switch {
+		case ok:
+			sc[j] = c
+		case slices.Contains(smoothedSlots[:], j):
+			todo = append(todo, j)
+		default:
 			sc[j] = cal.Scale
 		}
 	}
-	allow := heldOutAllowance(budget, cal.HeldOutDays)
-	hi := cal.Scale
-	for k := range ratios {
-		if v := ratios[k][slotMewma]; !math.IsNaN(v) && !math.IsInf(v, 0) {
-			hi = math.Max(hi, v)
+	if len(todo) == 0 {
+		return cal, nil
+	}
+	if len(todo) == len(smoothedSlots) || len(cal.Scales) == 0 {
+		// No group scales: the others keep the single scale.
+		for j := range sc {
+			if sc[j] > 0 {
+				sc[j] = cal.Scale
+			}
 		}
 	}
-	cm := leastWithin(cal.Scale, hi, allow, func(c float64) int {
-		s := sc
-		s[slotMewma] = c
-		return countAlertsEach(t, ratios, s, rule)
-	})
+	allow := heldOutAllowance(budget, cal.HeldOutDays)
+	for _, j := range todo {
+		hi := cal.Scale
+		for k := range ratios {
+			if v := ratios[k][j]; !math.IsNaN(v) && !math.IsInf(v, 0) {
+				hi = math.Max(hi, v)
+			}
+		}
+		sc[j] = leastWithin(cal.Scale, hi, allow, func(c float64) int {
+			s := sc
+			s[j] = c
+			return countAlertsEach(t, ratios, s, rule)
+		})
+	}
 	cal.Scales = map[string]float64{}
 	for j, c := range sc {
 		if c > 0 {
 			cal.Scales[statNames[j]] = c
 		}
 	}
-	cal.Scales[alerts.StatMewma] = cm
-	sc[slotMewma] = cm
 	cal.Observed = countAlertsEach(t, ratios, sc, rule)
 	return cal, nil
 }

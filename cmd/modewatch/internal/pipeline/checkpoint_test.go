@@ -1179,3 +1179,44 @@ func TestCheckpointMewma(t *testing.T) {
 		t.Error("restoring without the MEWMA statistic's smoothed frame changed nothing: the test cannot see it")
 	}
 }
+
+// TestCheckpointCreep is TestCheckpointMewma for the creep statistic: its
+// smoothed frame, smoothed residuals, learned normal moments and factors
+// travel in the tracker's state (bit-identical alarm statistics after a
+// cut and restore); restoring with the smoothing started again
+// (tracker.ResetCreep) differs, so the comparison can see it.
+func TestCheckpointCreep(t *testing.T) {
+	cfg, ch, frames := demoFrames(t, 4*time.Hour, configs.Model{WarmUp: 100, Statistics: "t2,spe,phi,res,creep", CreepLambda: 0.05})
+	run := newCutRun(t, Options{Config: cfg, Channels: ch, Period: demoPeriod}, frames, statBits)
+	creeps := 0
+	for _, recs := range run.wholeRecs {
+		for _, s := range recs {
+			if strings.Contains(s, "creep=") {
+				creeps++
+			}
+		}
+	}
+	if creeps == 0 {
+		t.Fatal("no frame scored the creep statistic")
+	}
+	if where := run.resume(nil); where != "" {
+		t.Fatal(where)
+	}
+	reset := func(ck *ModelFile) {
+		mu := &ck.Units[0]
+		for _, u := range run.cut.Units() {
+			if u.Name != mu.Name || mu.States != nil {
+				continue
+			}
+			u.tr.ResetCreep()
+			b, err := u.tr.MarshalBinary()
+			if err != nil {
+				t.Fatal(err)
+			}
+			mu.State = b
+		}
+	}
+	if run.resume(reset) == "" {
+		t.Error("restoring with the creep statistic's smoothing started again changed nothing: the test cannot see it")
+	}
+}

@@ -61,6 +61,7 @@ func TrackerConfig(m configs.Model, period time.Duration, p int, equal bool) (tr
 	}
 	cfg.Residual, cfg.Variance = st.Residual, st.Variance
 	cfg.Mewma, cfg.MewmaLambda = st.Mewma, m.MewmaLambda
+	cfg.Creep, cfg.CreepLambda = st.Creep, m.CreepLambda
 	if st.Relation && p >= 3 {
 		cfg.Relations = min(p/3, configs.MaxRelations)
 	}
@@ -192,13 +193,15 @@ type ModelSettings struct {
 	Lags         int             `json:"lags,omitempty"`
 	// MewmaLambda is model.mewma_lambda (absent: the default).
 	MewmaLambda float64 `json:"mewma_lambda,omitempty"`
+	// CreepLambda is model.creep_lambda (absent: the default).
+	CreepLambda float64 `json:"creep_lambda,omitempty"`
 }
 
 func settingsOf(m configs.Model) ModelSettings {
 	return ModelSettings{
 		Sparsity: m.Sparsity, Modes: m.Modes.String(), MaxModes: m.MaxModes, HalfLife: alerts.Duration(m.HalfLife),
 		Alpha: m.Alpha, RefreshEvery: m.RefreshEvery, WarmUp: m.WarmUp, Statistics: m.Statistics, Smoothing: m.Smoothing, Lags: max(m.Lags, 0),
-		MewmaLambda: m.MewmaLambda,
+		MewmaLambda: m.MewmaLambda, CreepLambda: m.CreepLambda,
 	}
 }
 
@@ -210,7 +213,7 @@ func (s ModelSettings) model() (configs.Model, error) {
 	return configs.Model{
 		Sparsity: s.Sparsity, Modes: mc, MaxModes: s.MaxModes, HalfLife: time.Duration(s.HalfLife),
 		Alpha: s.Alpha, RefreshEvery: s.RefreshEvery, WarmUp: s.WarmUp, Statistics: s.Statistics, Smoothing: s.Smoothing, Lags: s.Lags,
-		MewmaLambda: s.MewmaLambda,
+		MewmaLambda: s.MewmaLambda, CreepLambda: s.CreepLambda,
 	}, nil
 }
 

@@ -222,6 +222,7 @@ func (u *Unit) switchState(i int) {
 		// Its MEWMA statistic's smoothed frame is from the last time the
 		// state ran: start it again (tracker.ResetMewma).
 		s.models[i].tr.ResetMewma()
+		s.models[i].tr.ResetCreep()
 	}
 	if s.cur >= 0 {
 		s.models[s.cur].score, u.score = u.score, s.models[s.cur].score

@@ -22,7 +22,7 @@ func alarmStats(m configs.Model) configs.Statistics {
 // statNames lists the alarm statistics in their fixed order (the slots of
 // Unit.sm and of the ratio recorder).
 var statNames = [nStatistics]string{alerts.StatT2, alerts.StatSPE, alerts.StatPhi,
-	alerts.StatResidual, alerts.StatVariance, alerts.StatRelation, alerts.StatMewma}
+	alerts.StatResidual, alerts.StatVariance, alerts.StatRelation, alerts.StatMewma, alerts.StatCreep}
 
 // The slots of the statistics in statNames.
 const (
@@ -33,6 +33,7 @@ const (
 	slotVariance
 	slotRelation
 	slotMewma
+	slotCreep
 )
 
 // statSlots returns, in the order of statNames, whether each statistic
@@ -40,7 +41,7 @@ const (
 // (unscaled; statFields).
 func (u *Unit) statSlots(s *tracker.Score) (on [nStatistics]bool, val, lim [nStatistics]float64) {
 	st := u.stats
-	on = [nStatistics]bool{st.T2, st.SPE, st.Phi, st.Residual, st.Variance, st.Relation, st.Mewma}
+	on = [nStatistics]bool{st.T2, st.SPE, st.Phi, st.Residual, st.Variance, st.Relation, st.Mewma, st.Creep}
 	for k := range val {
 		v, l := statFields(s, k)
 		val[k], lim[k] = *v, *l
@@ -116,6 +117,9 @@ func (u *Unit) StatScale(name string) float64 {
 // contributors by the MEWMA statistic only when it is further over its
 // own alarm limit than φ over its (tracker.SetMewmaScale).
 func (u *Unit) mewmaRel() float64 { return u.statScale(slotMewma) / u.statScale(slotPhi) }
+
+// creepRel is mewmaRel for the creep statistic (tracker.SetCreepScale).
+func (u *Unit) creepRel() float64 { return u.statScale(slotCreep) / u.statScale(slotPhi) }
 
 // setCalibration sets the unit's budget calibration (nil or unusable:
 // none).

@@ -341,6 +341,7 @@ func (u *Unit) stepModel(f *stream.Frame) {
 	refreshDue := !u.frozen && u.score.NextRefresh == 1
 	t0 := time.Now()
 	u.tr.SetMewmaScale(u.mewmaRel())
+	u.tr.SetCreepScale(u.creepRel())
 	err := u.tr.StepMasked(&u.score, u.x, u.miss, u.lagMask(u.learnMask()))
 	if refreshDue && err == nil {
 		u.refreshes++
