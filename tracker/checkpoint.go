@@ -566,7 +566,7 @@ func (st *ckState) check() error {
 			return ckError("MEWMA statistic of channel %d: smoothed value %v", i, v)
 		}
 	}
-	if st.pz != nil && (!(st.pWeight >= 0 && st.pWeight <= 1) || st.pN < 0 || st.pN >= persistEvery) {
+	if st.pz != nil && (!(st.pWeight >= 0 && st.pWeight <= 1) || st.pN < 0 || st.pN >= max(4, persistInterval(len(st.pz)))) {
 		return ckError("persistence weight %v, %d frames since its evaluation", st.pWeight, st.pN)
 	}
 	for i := range st.pz {
@@ -658,9 +658,10 @@ func (t *Tracker) apply(st *ckState) {
 		copy(ps.zbar, st.pz)
 		copy(ps.lvl, st.pl)
 		copy(ps.lvlW, st.pw)
-		ps.w, ps.n = 1, 0
+		ps.w, ps.n, ps.pinRef = 1, 0, -1
 		if st.pz != nil {
-			ps.w, ps.n = st.pWeight, st.pN
+			// Version 6 formed the weight every 4 frames at any width.
+			ps.w, ps.n = st.pWeight, st.pN%ps.every
 		}
 	}
 	if cr := t.cr; cr != nil {

@@ -80,10 +80,21 @@ const (
 // entry of z̄ set to 0, and a model entered from another operating state
 // starts from z̄ = 0 (ResetMewma).
 //
-// Cost: z̄ every learned frame (O(p)); every persistEvery learned frames
-// one forward and one back solve with the factor (p² multiply-adds), whose
-// weight serves those frames; the diagonal of Ω once per refresh (p³/6,
-// as much as the factor). No allocation.
+// Cost: z̄ every learned frame (O(p)); every e = persistInterval(p)
+// learned frames (1 up to persistWidth channels) one forward and one back
+// solve with the factor (p² multiply-adds), whose weight serves those e
+// frames: at most persistWidth·p multiply-adds a frame, O(p) amortised;
+// the diagonal of Ω once per factor the weight reads (p³/6, as much as
+// the factor itself). Up to persistWidth channels that factor is the
+// residual statistic's current one, so the weight is formed at every
+// learned frame under the model that scores it. A wider unit reads a
+// copy of the factor taken every e refreshes (the weight's own: p²/2
+// copied, Ω's diagonal formed once for it), so the diagonal costs at
+// most 1/e of the residual statistic's factorizations; its relation
+// residuals are then read against a model at most e refreshes old, one
+// model throughout (Ωz̄ and Ωᵢᵢ of the same factor). The copy is not
+// checkpointed: a restored wide unit takes the restored model's factor.
+// No allocation per frame.
 type persist struct {
 	p      int
 	k, lam float64
@@ -94,15 +105,28 @@ type persist struct {
 	b      []float64 // 2p: [L⁻¹z̄ | 0] (resStat.forwardIn)
 	v      []float64 // Ωz̄
 	w      float64   // the weight of the last evaluation (state)
-	n      int       // learned frames since it, modulo persistEvery (state)
+	n      int       // learned frames since it, modulo every (state)
 	last   float64   // D of the last evaluation (0 when not formed)
+	every  int       // persistInterval(p)
+	pin    *resGen   // the factor the weight reads when every > 1 (a copy; nil: the residual statistic's current one)
+	pinRef int       // resStat.nref when pin was taken (−1: none yet)
+	evals  int       // evaluations formed (for the cost rule's tests)
+	pins   int       // factors copied into pin (idem)
 }
 
-// persistEvery is the number of learned frames one evaluation of the
-// persistence weight serves (z̄ is smoothed every frame): the solves cost
-// p² multiply-adds, about twice the residual statistic's per frame, and
-// z̄ moves by a share λ of a frame at a time.
-const persistEvery = 4
+// persistWidth is the widest unit whose persistence weight is formed at
+// every learned frame under the current factor: the suite's units have
+// 19–60 channels. A wider unit forms it every persistInterval(p) learned
+// frames (persist, Cost).
+const persistWidth = 64
+
+// persistInterval is e = max(1, ⌈p/persistWidth⌉), the number of learned
+// frames one evaluation of the persistence weight serves at p channels
+// (z̄ is smoothed every frame; it moves by a share λ of a frame at a
+// time), and the number of refreshes between the factor copies of a
+// wide unit: the two solves (p² multiply-adds) every e frames cost at
+// most persistWidth·p a frame.
+func persistInterval(p int) int { return max(1, (p+persistWidth-1)/persistWidth) }
 
 func newPersist(p int, cfg *Config) *persist {
 	if !(cfg.Persist > 0) {
@@ -110,7 +134,14 @@ func newPersist(p int, cfg *Config) *persist {
 	}
 	ps := &persist{p: p, k: cfg.Persist, lam: cfg.PersistLambda, weigh: !cfg.PersistLevelsOnly, w: 1,
 		zbar: make([]float64, p), lvl: make([]float64, p), lvlW: make([]float64, p),
-		b: make([]float64, 2*p), v: make([]float64, p)}
+		b: make([]float64, 2*p), v: make([]float64, p), every: persistInterval(p), pinRef: -1}
+	if ps.every > 1 {
+		ps.pin = &resGen{l: make([]float64, p*p), dd: make([]float64, p), inc: make([]bool, p),
+			omd: make([]float64, p), mii: make([]float64, p)}
+		if hasLaneKernel {
+			ps.pin.pk = make([]float64, packedLen(p))
+		}
+	}
 	for i := range ps.lvl {
 		ps.lvl[i] = 1
 	}
@@ -125,17 +156,18 @@ func (ps *persist) grown(p2 int, cfg *Config) *persist {
 		copy(n.zbar, ps.zbar)
 		copy(n.lvl, ps.lvl)
 		copy(n.lvlW, ps.lvlW)
-		n.w, n.n = ps.w, ps.n
+		n.w, n.n = ps.w, ps.n%n.every
 	}
 	return n
 }
 
 // weight smooths z (the frame as learned, standardized; the channels not
 // observed, stuck or out of the model keep their z̄) into z̄ and returns
-// the persistence weight: every persistEvery calls it is formed under the
-// current factor of rs (the channels set in mask, nil: none, left out of
-// D) and, if D ≤ k (or the levels are young), sᵢ² is folded into the
-// normal levels; the calls between return the same weight.
+// the persistence weight: every persistInterval(p) calls it is formed
+// under the factor of rs that factor returns (the channels set in mask,
+// nil: none, left out of D) and, if D ≤ k (or the levels are young), sᵢ²
+// is folded into the normal levels; the calls between return the same
+// weight.
 func (ps *persist) weight(m *model, rs *resStat, z []float64, obs, stuck, mask []bool) float64 {
 	p := ps.p
 	zb := ps.zbar[:p]
@@ -149,17 +181,19 @@ func (ps *persist) weight(m *model, rs *resStat, z []float64, obs, stuck, mask [
 		return 1
 	}
 	if ps.n > 0 {
-		ps.n = (ps.n + 1) % persistEvery
+		ps.n = (ps.n + 1) % ps.every
 		return ps.w
 	}
-	ps.n = 1 % persistEvery
-	rs.forwardIn(ps.b, zb)
-	g := &rs.gens[rs.cur]
+	ps.n = 1 % ps.every
+	ps.evals++
+	g := ps.factor(rs)
+	rs.forwardGen(g, ps.b, zb)
 	rs.diagOf(g)
 	upperSolveT(ps.v, ps.b, g.l, p)
 	d := 0.0
 	for i := 0; i < p; i++ {
-		if !m.include[i] || !obs[i] || stuck[i] || (mask != nil && mask[i]) || !(g.omd[i] > 0) {
+		if !m.include[i] || !obs[i] || stuck[i] || (mask != nil && mask[i]) || !(g.omd[i] > 0) ||
+			(g == ps.pin && !g.inc[i]) { // out of the model when the copy was taken: no relation there
 			ps.v[i] = math.NaN()
 			continue
 		}
@@ -192,7 +226,35 @@ func (ps *persist) weight(m *model, rs *resStat, z []float64, obs, stuck, mask [
 
 // start is the number of evaluations (20/λ frames) a channel's level
 // needs before it counts in D and before only frames within k teach it.
-func (ps *persist) start() float64 { return 20 / ps.lam / persistEvery }
+func (ps *persist) start() float64 { return 20 / ps.lam / float64(ps.every) }
+
+// factor returns the factor the weight is formed under: the residual
+// statistic's current one up to persistWidth channels; for a wider unit
+// the copy in pin, taken again (lower triangle, packed rows, channels of
+// the model; Ω's diagonal formed anew by diagOf) once every refreshes
+// have passed since the last copy, or when there is none (a new or
+// restored tracker).
+func (ps *persist) factor(rs *resStat) *resGen {
+	if ps.pin == nil {
+		return &rs.gens[rs.cur]
+	}
+	if ps.pinRef >= 0 && rs.nref-ps.pinRef < ps.every {
+		return ps.pin
+	}
+	src, g, p := &rs.gens[rs.cur], ps.pin, ps.p
+	for i := 0; i < p; i++ {
+		copy(g.l[i*p:i*p+i+1], src.l[i*p:i*p+i+1])
+	}
+	if g.pk != nil && src.pk != nil {
+		copy(g.pk, src.pk)
+	}
+	copy(g.dd, src.dd)
+	copy(g.inc, src.inc)
+	g.diag = false
+	ps.pinRef = rs.nref
+	ps.pins++
+	return g
+}
 
 // scatterWeight is Huber's weight for scatter, min(1, (k/d)²), at the
 // distance d (see persist).

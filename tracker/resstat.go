@@ -85,6 +85,7 @@ type resStat struct {
 	q, lvl       []float64 // variance EWMA and its normal level
 	lvlN         []float64 // frames behind lvl (cumulative start)
 	ok           bool
+	nref         int // refreshes that gave a factor (the persistence weight pins one every few, persist.factor)
 	dims         int
 	lim, rbcLim  float64
 	vlim, vg, vh float64
@@ -153,6 +154,7 @@ func (rs *resStat) refresh(m *model, alpha float64) {
 		return
 	}
 	rs.cur = nxt
+	rs.nref++
 	copy(g.dd, m.base.dd)
 	copy(g.inc, m.include)
 	g.diag = false
@@ -402,9 +404,13 @@ func (rs *resStat) forward(z []float64) float64 { return rs.forwardIn(rs.zb, z) 
 
 // forwardIn is forward with the buffer b (2p values) in place of rs.zb:
 // y = L⁻¹z in b[:p], b[p:] zeroed.
-func (rs *resStat) forwardIn(b, z []float64) float64 {
+func (rs *resStat) forwardIn(b, z []float64) float64 { return rs.forwardGen(&rs.gens[rs.cur], b, z) }
+
+// forwardGen is forwardIn under the factor g (a slot of rs, or a copy of
+// one with its packed rows, persist.factor).
+func (rs *resStat) forwardGen(g *resGen, b, z []float64) float64 {
 	p := rs.p
-	l := rs.gens[rs.cur].l
+	l := g.l
 	b = b[:2*p]
 	y := b[:p]
 	copy(y, z)
@@ -413,7 +419,7 @@ func (rs *resStat) forwardIn(b, z []float64) float64 {
 	}
 	q := 0.0
 	r0 := 0
-	if pk := rs.gens[rs.cur].pk; hasLaneKernel && pk != nil {
+	if pk := g.pk; hasLaneKernel && pk != nil {
 		// Eight rows per pass (dotLanes8Packed): the lane sums of
 		// rowKernel over y[:r0], reduced as it reduces them for rows r0…r0+3 and carried
 		// on over y[r0:r0+4] (one more fused multiply-add per lane, as

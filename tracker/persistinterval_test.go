@@ -1,0 +1,256 @@
+package tracker
+
+import (
+	"math"
+	"math/rand/v2"
+	"slices"
+	"testing"
+	"time"
+
+	"gonum.org/v1/gonum/mat"
+
+	"modewatch/tracker/modes"
+)
+
+// persistRef forms D of the persistence weight (persist) for the smoothed
+// frame zbar directly from its definition, with gonum's Cholesky of
+// A + εI (A the model's correlation at the refresh the weight reads): Ω
+// = (A + εI)⁻¹, sᵢ² = (Ωz̄)ᵢ²/Ωᵢᵢ, D² = max sᵢ²/ℓᵢ over the channels in
+// the model whose level has at least start evaluations behind it.
+func persistRef(t *testing.T, a mat.Symmetric, ridge float64, include []bool, zbar, lvl, lvlW []float64, start float64) float64 {
+	t.Helper()
+	p := a.SymmetricDim()
+	ar := mat.NewSymDense(p, nil)
+	ar.CopySym(a)
+	for i := 0; i < p; i++ {
+		ar.SetSym(i, i, ar.At(i, i)+ridge)
+	}
+	var ch mat.Cholesky
+	if !ch.Factorize(ar) {
+		t.Fatal("A + εI not positive definite")
+	}
+	var om mat.SymDense
+	if err := ch.InverseTo(&om); err != nil {
+		t.Fatal(err)
+	}
+	v := mat.NewVecDense(p, nil)
+	v.MulVec(&om, mat.NewVecDense(p, slices.Clone(zbar)))
+	d := 0.0
+	for i := 0; i < p; i++ {
+		if !include[i] || lvlW[i] < start {
+			continue
+		}
+		s2 := v.AtVec(i) * v.AtVec(i) / om.At(i, i)
+		d = math.Max(d, s2/lvl[i])
+	}
+	return math.Sqrt(d)
+}
+
+// TestPersistEveryFrameSmallUnit: up to persistWidth channels the weight
+// is formed at every learned frame under the factor of the model that
+// scores the frame. On the six-channel unit of
+// TestPersistSlowDriftNotAbsorbed (fitted, then a slow drift of the tight
+// relation so that the weight falls below 1), every learned frame is one
+// evaluation, and each frame's D equals the one formed from its
+// definition with gonum's Cholesky inverse of A + ε_R·I (persistRef), to
+// 10⁻⁹ relative (two solves with a factor against an explicit inverse:
+// rounding only).
+func TestPersistEveryFrameSmallUnit(t *testing.T) {
+	if e := persistInterval(relP); e != 1 {
+		t.Fatalf("persistInterval(%d) = %d, want 1", relP, e)
+	}
+	for _, p := range []int{19, 60, persistWidth} { // the suite's unit widths
+		if e := persistInterval(p); e != 1 {
+			t.Errorf("persistInterval(%d) = %d, want 1", p, e)
+		}
+	}
+	cfg := relConfig(3)
+	ck, _ := fittedRel(t, cfg, 21, 2000)
+	tr, err := New(relP, cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := tr.UnmarshalBinary(ck); err != nil {
+		t.Fatal(err)
+	}
+	ps := tr.ps
+	src := newRelPlant(1021)
+	var sc Score
+	x := make([]float64, relP)
+	lvl, lvlW := make([]float64, relP), make([]float64, relP)
+	const n = 1500
+	below, compared := 0, 0
+	for k := 0; k < n; k++ {
+		src.frame(x)
+		x[0] += 0.6 * math.Min(float64(k)/800, 1) // about 12 conditional standard deviations at the end
+		a := mat.NewSymDense(relP, nil)
+		a.CopySym(tr.mdl.a)
+		include := slices.Clone(tr.mdl.include)
+		copy(lvl, ps.lvl)
+		copy(lvlW, ps.lvlW)
+		ok := tr.rs.ok
+		ev := ps.evals
+		if err := tr.Step(&sc, x, nil); err != nil {
+			t.Fatal(err)
+		}
+		if !ok {
+			continue
+		}
+		if ps.evals != ev+1 {
+			t.Fatalf("frame %d: %d evaluations, want 1", k, ps.evals-ev)
+		}
+		want := persistRef(t, a, tr.cfg.ResidualRidge, include, ps.zbar, lvl, lvlW, ps.start())
+		if math.Abs(ps.last-want) > 1e-9*math.Max(want, 1) {
+			t.Fatalf("frame %d: D %v, from the definition %v", k, ps.last, want)
+		}
+		if w := scatterWeight(want, 3); math.Abs(ps.w-w) > 1e-9 {
+			t.Fatalf("frame %d: weight %v, from the definition %v", k, ps.w, w)
+		}
+		compared++
+		if ps.w < 1 {
+			below++
+		}
+	}
+	t.Logf("%d frames compared, %d with a weight below 1", compared, below)
+	if compared < n-10 || below == 0 {
+		t.Fatalf("%d frames compared, %d below 1: the test sees nothing", compared, below)
+	}
+}
+
+// widePlant is a seeded invented unit of p channels driven by five
+// independent slow factors (AR(1), time constant 100 frames) with sparse
+// loadings, plus white measurement noise of 0.3.
+type widePlant struct {
+	rng  *rand.Rand
+	load []float64
+	f    [5]float64
+}
+
+func newWidePlant(p int, seed uint64) *widePlant {
+	s := &widePlant{rng: rand.New(rand.NewPCG(seed, 77)), load: make([]float64, 5*p)}
+	for i := range s.load {
+		if s.rng.IntN(3) == 0 {
+			s.load[i] = s.rng.NormFloat64()
+		}
+	}
+	return s
+}
+
+func (s *widePlant) frame(x []float64) []float64 {
+	a := math.Exp(-1.0 / 100)
+	for j := range s.f {
+		s.f[j] = a*s.f[j] + math.Sqrt(1-a*a)*s.rng.NormFloat64()
+	}
+	for i := range x {
+		v := 0.3 * s.rng.NormFloat64()
+		for j, f := range s.f {
+			v += s.load[5*i+j] * f
+		}
+		x[i] = v
+	}
+	return x
+}
+
+// TestPersistWideUnitCostRule: above persistWidth channels the weight is
+// formed every e = ⌈p/persistWidth⌉ learned frames (counted, not timed),
+// so its two solves cost at most persistWidth·p multiply-adds per learned
+// frame, and the factor it reads is copied (with Ω's diagonal formed for
+// it) once every e refreshes; the frames between evaluations keep the
+// last weight; and each evaluation's D equals the one formed from its
+// definition (persistRef) under the model at the last copy, to 10⁻⁹
+// relative: one model throughout, at most e refreshes old.
+func TestPersistWideUnitCostRule(t *testing.T) {
+	const p, n = 150, 3000
+	e := persistInterval(p)
+	if e != 3 {
+		t.Fatalf("persistInterval(%d) = %d, want 3", p, e)
+	}
+	if e := persistInterval(500); e != 8 {
+		t.Fatalf("persistInterval(500) = %d, want 8", e)
+	}
+	cfg := Config{Period: time.Second, WarmUp: 300, RefreshEvery: 32, Residual: true, FlatFrames: -1, Persist: 3,
+		Modes: modes.Config{Count: 3}}
+	tr, err := New(p, cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	ps := tr.ps
+	src := newWidePlant(p, 5)
+	var sc Score
+	x := make([]float64, p)
+	lvl, lvlW := make([]float64, p), make([]float64, p)
+	var aPin *mat.SymDense
+	var incPin []bool
+	learned, refreshes, checked, below := 0, 0, 0, 0
+	lastW := 1.0
+	for k := 0; k < n; k++ {
+		src.frame(x)
+		if k > 2000 {
+			x[0] += 0.02 * float64(k-2000) / 100 // a slow drift, so the weight moves
+		}
+		a := mat.NewSymDense(p, nil)
+		a.CopySym(tr.mdl.a)
+		include := slices.Clone(tr.mdl.include)
+		copy(lvl, ps.lvl)
+		copy(lvlW, ps.lvlW)
+		ok, ev, pins, nref := tr.rs != nil && tr.rs.ok, ps.evals, ps.pins, 0
+		if ok {
+			nref = tr.rs.nref
+		}
+		if err := tr.Step(&sc, x, nil); err != nil {
+			t.Fatal(err)
+		}
+		if tr.rs.nref > nref && ok {
+			refreshes++
+		}
+		if !ok {
+			continue
+		}
+		learned++
+		if ps.pins > pins {
+			aPin, incPin = a, include
+			if ps.pinRef != nref {
+				t.Fatalf("frame %d: copy of refresh %d, the current one is %d", k, ps.pinRef, nref)
+			}
+		}
+		switch ps.evals - ev {
+		case 0:
+			if ps.w != lastW {
+				t.Fatalf("frame %d: weight %v changed without an evaluation (was %v)", k, ps.w, lastW)
+			}
+			continue
+		case 1:
+		default:
+			t.Fatalf("frame %d: %d evaluations", k, ps.evals-ev)
+		}
+		if nref-ps.pinRef >= e {
+			t.Fatalf("frame %d: weight formed under the copy of refresh %d at refresh %d", k, ps.pinRef, nref)
+		}
+		inc := make([]bool, p)
+		for i := range inc {
+			inc[i] = include[i] && incPin[i]
+		}
+		want := persistRef(t, aPin, tr.cfg.ResidualRidge, inc, ps.zbar, lvl, lvlW, ps.start())
+		if math.Abs(ps.last-want) > 1e-9*math.Max(want, 1) {
+			t.Fatalf("frame %d: D %v, from the definition under the copied model %v", k, ps.last, want)
+		}
+		lastW = ps.w
+		checked++
+		if ps.w < 1 {
+			below++
+		}
+	}
+	t.Logf("%d learned frames, %d evaluations, %d refreshes, %d factor copies, %d weights below 1", learned, ps.evals, refreshes, ps.pins, below)
+	if want := (learned + e - 1) / e; ps.evals != want {
+		t.Errorf("%d evaluations over %d learned frames, want ⌈%d/%d⌉ = %d", ps.evals, learned, learned, e, want)
+	}
+	if work := float64(ps.evals) * p * p / float64(learned); work > persistWidth*p {
+		t.Errorf("solves %.0f multiply-adds per learned frame, over persistWidth·p = %d", work, persistWidth*p)
+	}
+	if maxPins := (refreshes+e-1)/e + 1; ps.pins > maxPins || ps.pins < refreshes/e {
+		t.Errorf("%d factor copies over %d refreshes, want about %d/%d", ps.pins, refreshes, refreshes, e)
+	}
+	if checked < 100 || below == 0 {
+		t.Fatalf("%d evaluations checked, %d below 1: the test sees nothing", checked, below)
+	}
+}
