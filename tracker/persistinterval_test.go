@@ -1,6 +1,10 @@
 package tracker
 
 import (
+	"bytes"
+	"encoding/binary"
+	"errors"
+	"hash/crc32"
 	"math"
 	"math/rand/v2"
 	"slices"
@@ -13,28 +17,18 @@ import (
 )
 
 // persistRef forms D of the persistence weight (persist) for the smoothed
-// frame zbar directly from its definition, with gonum's Cholesky of
-// A + εI (A the model's correlation at the refresh the weight reads): Ω
+// frame zbar directly from its definition, with gonum's Cholesky inverse
+// of A + εI (refPrecision) (A the model's correlation at the refresh the weight reads): Ω
 // = (A + εI)⁻¹, sᵢ² = (Ωz̄)ᵢ²/Ωᵢᵢ, D² = max sᵢ²/ℓᵢ over the channels in
 // the model whose level has at least start evaluations behind it.
 func persistRef(t *testing.T, a mat.Symmetric, ridge float64, include []bool, zbar, lvl, lvlW []float64, start float64) float64 {
 	t.Helper()
 	p := a.SymmetricDim()
-	ar := mat.NewSymDense(p, nil)
-	ar.CopySym(a)
-	for i := 0; i < p; i++ {
-		ar.SetSym(i, i, ar.At(i, i)+ridge)
-	}
-	var ch mat.Cholesky
-	if !ch.Factorize(ar) {
-		t.Fatal("A + εI not positive definite")
-	}
-	var om mat.SymDense
-	if err := ch.InverseTo(&om); err != nil {
-		t.Fatal(err)
-	}
+	as := mat.NewSymDense(p, nil)
+	as.CopySym(a)
+	om, _ := refPrecision(t, as, ridge)
 	v := mat.NewVecDense(p, nil)
-	v.MulVec(&om, mat.NewVecDense(p, slices.Clone(zbar)))
+	v.MulVec(om, mat.NewVecDense(p, slices.Clone(zbar)))
 	d := 0.0
 	for i := 0; i < p; i++ {
 		if !include[i] || lvlW[i] < start {
@@ -82,7 +76,7 @@ func TestPersistEveryFrameSmallUnit(t *testing.T) {
 	below, compared := 0, 0
 	for k := 0; k < n; k++ {
 		src.frame(x)
-		x[0] += 0.6 * math.Min(float64(k)/800, 1) // about 12 conditional standard deviations at the end
+		x[0] += 0.1 * math.Min(float64(k)/800, 1) // about 3 conditional standard deviations at the end
 		a := mat.NewSymDense(relP, nil)
 		a.CopySym(tr.mdl.a)
 		include := slices.Clone(tr.mdl.include)
@@ -252,5 +246,42 @@ func TestPersistWideUnitCostRule(t *testing.T) {
 	}
 	if checked < 100 || below == 0 {
 		t.Fatalf("%d evaluations checked, %d below 1: the test sees nothing", checked, below)
+	}
+}
+
+// TestPersistCheckpointFramesSince: version 6 formed the weight every 4
+// learned frames at any width, so its count of frames since the last
+// evaluation (0–3) is read modulo persistInterval(p) (here 1: the next
+// frame is evaluated); 4 or more is refused as before.
+func TestPersistCheckpointFramesSince(t *testing.T) {
+	cfg := relConfig(3)
+	ck, _ := fittedRel(t, cfg, 3, 1200)
+	tr, _ := New(relP, cfg)
+	if err := tr.UnmarshalBinary(ck); err != nil {
+		t.Fatal(err)
+	}
+	mb, err := tr.ms.MarshalBinary()
+	if err != nil {
+		t.Fatal(err)
+	}
+	at := len(ck) - 4 - len(mb) - 4 - 4 // the persist section's u32 frames since its evaluation, just before the modes
+	if n, w := binary.LittleEndian.Uint32(ck[at:]), math.Float64frombits(binary.LittleEndian.Uint64(ck[at-8:])); n != 0 || w != tr.ps.w {
+		t.Fatalf("at byte %d: frames %d, weight %v (want 0, %v): not the persist section", at, n, w, tr.ps.w)
+	}
+	for _, c := range []struct {
+		n  uint32
+		ok bool
+	}{{3, true}, {4, false}} {
+		b := bytes.Clone(ck[:len(ck)-4])
+		binary.LittleEndian.PutUint32(b[at:], c.n)
+		b = binary.LittleEndian.AppendUint32(b, crc32.ChecksumIEEE(b))
+		nt, _ := New(relP, cfg)
+		err := nt.UnmarshalBinary(b)
+		if c.ok && (err != nil || nt.ps.n != 0) {
+			t.Errorf("%d frames since the evaluation: error %v, count %d (want nil, 0)", c.n, err, nt.ps.n)
+		}
+		if !c.ok && !errors.Is(err, ErrCheckpoint) {
+			t.Errorf("%d frames since the evaluation: want ErrCheckpoint, got %v", c.n, err)
+		}
 	}
 }
