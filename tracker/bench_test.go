@@ -310,9 +310,10 @@ var benchCreep bool
 var shareRidge bool
 
 // BenchmarkFramePersistOverDecode is BenchmarkFrameResidualOverDecode
-// with the persistence weight of learning on (Config.Persist 3): per
-// learned frame the forward and back solves for Ωz̄, per refresh the
-// diagonal of Ω.
+// with the persistence weight of learning on (Config.Persist 3): at
+// p = 500 every persistInterval(p) = 8 learned frames the forward and back
+// solves for Ωz̄ under the weight's copy of the factor, and every 8
+// refreshes that copy and its diagonal of Ω.
 func BenchmarkFramePersistOverDecode(b *testing.B) {
 	benchPersist = true
 	defer func() { benchPersist = false }()

@@ -152,7 +152,8 @@ func (s *widePlant) frame(x []float64) []float64 {
 // it) once every e refreshes; the frames between evaluations keep the
 // last weight; and each evaluation's D equals the one formed from its
 // definition (persistRef) under the model at the last copy, to 10⁻⁹
-// relative: one model throughout, at most e refreshes old.
+// relative: one model throughout, at most e refreshes old. No allocation
+// per frame.
 func TestPersistWideUnitCostRule(t *testing.T) {
 	const p, n = 150, 3000
 	e := persistInterval(p)
@@ -246,6 +247,19 @@ func TestPersistWideUnitCostRule(t *testing.T) {
 	}
 	if checked < 100 || below == 0 {
 		t.Fatalf("%d evaluations checked, %d below 1: the test sees nothing", checked, below)
+	}
+	// The evaluations and the copies allocate nothing: 200 frames span
+	// more than one copy (every e·RefreshEvery = 96 learned frames).
+	pins := ps.pins
+	if a := testing.AllocsPerRun(200, func() {
+		if err := tr.Step(&sc, src.frame(x), nil); err != nil {
+			t.Fatal(err)
+		}
+	}); a != 0 {
+		t.Errorf("%v allocations per Step", a)
+	}
+	if ps.pins < pins+2 {
+		t.Errorf("%d factor copies during the allocation check, want at least 2", ps.pins-pins)
 	}
 }
 
