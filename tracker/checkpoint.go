@@ -40,6 +40,10 @@ var ErrCheckpoint = errors.New("tracker: bad checkpoint")
 //	       | p × f64 n | f64 w | u32 frames since w: the persistence
 //	       weight's smoothed frame, normal levels, last weight (off:
 //	       ignored; a checkpoint without: z̄ = 0, no levels)
+//	       | u8 copy present | u32 refreshes since it | p × u8 in model   [v8]
+//	       | p(p+1)/2 × f64 rows of L: a wide unit's copy of the factor
+//	       (persist.factor; without it a restored unit copies the
+//	       restored model's)
 //	creep: u8 present (Config.Creep) | p × f64 z̄ | p × f64 s̄ | p × f64 v  [v7]
 //	       | p × f64 n | p × f64 normaliser: the creep statistic's
 //	       smoothed frame, smoothed residuals, normal variances, evaluations
@@ -52,14 +56,15 @@ var ErrCheckpoint = errors.New("tracker: bad checkpoint")
 // Versions 1 (no p0, no per-channel steps), 2 (no lag section), 3 (no
 // variance section: a restored variance statistic starts again from its
 // EWMA and normal level at 1), 4 (no MEWMA section), 5 (no persist
-// section) and 6 (no creep section) are still read.
+// section), 6 (no creep section) and 7 (no copy of the factor in the
+// persist section) are still read.
 //
 // The model snapshot (loadings, limits, per-channel data) is recomputed on
 // restore from A and the restored modes by the same code as at the refresh,
 // so it is bit-identical.
 const (
 	ckMagic   = "MWTK"
-	ckVersion = 7
+	ckVersion = 8
 )
 
 // fingerprint hashes the configuration fields that shape the state.
@@ -204,6 +209,20 @@ func (t *Tracker) MarshalBinary() ([]byte, error) {
 		}
 		f64(ps.w)
 		b = le.AppendUint32(b, uint32(ps.n))
+		if g := ps.pin; g != nil && ps.pinRef >= 0 && t.rs != nil {
+			b = append(b, 1)
+			b = le.AppendUint32(b, uint32(t.rs.nref-ps.pinRef))
+			for _, in := range g.inc[:p] {
+				b = append(b, boolByte(in))
+			}
+			for i := 0; i < p; i++ {
+				for _, v := range g.l[i*p : i*p+i+1] {
+					f64(v)
+				}
+			}
+		} else {
+			b = append(b, 0)
+		}
 	} else {
 		b = append(b, 0)
 	}
@@ -336,6 +355,9 @@ type ckState struct {
 	pWeight                       float64
 	pN                            int
 	cz, cs, cv, cn, cm            []float64 // creep statistic's z̄, s̄, v, n, normaliser (version ≥ 7; nil: start again)
+	pAge                          int       // refreshes since the weight's copy of the factor (version ≥ 8)
+	pInc                          []bool    // its channels in the model
+	pL                            []float64 // its rows of L (nil: none)
 	modes                         []byte
 }
 
@@ -455,6 +477,11 @@ func (t *Tracker) decodeCheckpoint(data []byte) (*ckState, error) {
 			r.floats(st.pw, "persist level weights")
 			st.pWeight = r.f64("persist weight")
 			st.pN = int(r.u32("persist frames"))
+			if version >= 8 {
+				if err := st.decodePersistCopy(r, p); err != nil {
+					return nil, err
+				}
+			}
 		}
 	}
 	if version >= 7 {
@@ -569,6 +596,20 @@ func (st *ckState) check() error {
 	if st.pz != nil && (!(st.pWeight >= 0 && st.pWeight <= 1) || st.pN < 0 || st.pN >= max(4, persistInterval(len(st.pz)))) {
 		return ckError("persistence weight %v, %d frames since its evaluation", st.pWeight, st.pN)
 	}
+	if st.pL != nil {
+		if e := persistInterval(len(st.pz)); e == 1 || st.pAge < 0 || st.pAge >= e {
+			return ckError("persistence weight's copy of the factor %d refreshes old, for a unit that copies every %d", st.pAge, e)
+		}
+		k := 0
+		for i := range st.pz {
+			for j := 0; j <= i; j++ {
+				if v := st.pL[k]; math.IsNaN(v) || math.IsInf(v, 0) || (j == i && !(v > 0)) {
+					return ckError("persistence weight's copy of the factor: row %d, column %d is %v", i, j, v)
+				}
+				k++
+			}
+		}
+	}
 	for i := range st.pz {
 		z, l, w := st.pz[i], st.pl[i], st.pw[i]
 		if math.IsNaN(z) || math.IsInf(z, 0) || !(l > 0) || math.IsInf(l, 0) || !(w >= 0) || math.IsInf(w, 0) {
@@ -660,8 +701,21 @@ func (t *Tracker) apply(st *ckState) {
 		copy(ps.lvlW, st.pw)
 		ps.w, ps.n, ps.pinRef = 1, 0, -1
 		if st.pz != nil {
-			// Version 6 formed the weight every 4 frames at any width.
+			// Versions 6 and 7 formed the weight every 4 frames at any width.
 			ps.w, ps.n = st.pWeight, st.pN%ps.every
+		}
+		if g := ps.pin; g != nil && st.pL != nil && t.rs != nil {
+			k := 0
+			for i := 0; i < p; i++ {
+				copy(g.l[i*p:i*p+i+1], st.pL[k:k+i+1])
+				k += i + 1
+			}
+			if g.pk != nil {
+				packLower(g.pk, g.l, p)
+			}
+			copy(g.inc, st.pInc)
+			g.diag = false
+			ps.pinRef = t.rs.nref - st.pAge
 		}
 	}
 	if cr := t.cr; cr != nil {
@@ -685,4 +739,34 @@ func (t *Tracker) apply(st *ckState) {
 	t.cal = st.flags&8 != 0
 	t.calT2, t.calSPE, t.calPhi = st.cal[0], st.cal[1], st.cal[2]
 	t.calScale = [3]float64{st.cal[3], st.cal[4], st.cal[5]}
+}
+
+// decodePersistCopy reads the persistence weight's copy of the factor
+// (version 8): a flag, then its age in refreshes, its channels in the
+// model and the rows of L.
+func (st *ckState) decodePersistCopy(r *ckReader, p int) error {
+	has, err := r.flag("persist copy flag")
+	if err != nil || !has {
+		return err
+	}
+	st.pAge = int(r.u32("persist copy age"))
+	st.pInc = make([]bool, p)
+	for i := range st.pInc {
+		v := r.u8("persist copy channels")
+		if r.err == nil && v > 1 {
+			return ckError("persistence weight's copy of the factor: channel %d flag %d is neither 0 nor 1", i, v)
+		}
+		st.pInc[i] = v == 1
+	}
+	st.pL = make([]float64, p*(p+1)/2)
+	r.floats(st.pL, "persist copy factor")
+	return nil
+}
+
+// boolByte is 1 for true, 0 for false.
+func boolByte(b bool) byte {
+	if b {
+		return 1
+	}
+	return 0
 }

@@ -76,7 +76,7 @@ const (
 // The weight multiplies the per-frame Huber weight. It needs the residual
 // statistic's factor (Config.Residual, Variance or Mewma); without it the
 // weight is 1. z̄, the levels and the last weight are state (checkpointed,
-// version 6); a channel recentred to a new normal (Recentre) has its
+// version 6 on); a channel recentred to a new normal (Recentre) has its
 // entry of z̄ set to 0, and a model entered from another operating state
 // starts from z̄ = 0 (ResetMewma).
 //
@@ -92,9 +92,10 @@ const (
 // copied, Ω's diagonal formed once for it), so the diagonal costs at
 // most 1/e of the residual statistic's factorizations; its relation
 // residuals are then read against a model at most e refreshes old, one
-// model throughout (Ωz̄ and Ωᵢᵢ of the same factor). The copy is not
-// checkpointed: a restored wide unit takes the restored model's factor.
-// No allocation per frame.
+// model throughout (Ωz̄ and Ωᵢᵢ of the same factor). The copy is
+// checkpointed with its age in refreshes (version 8), so a restored unit
+// goes on as the one that ran on; from an older checkpoint a restored
+// wide unit copies the restored model's factor. No allocation per frame.
 type persist struct {
 	p      int
 	k, lam float64

@@ -263,7 +263,7 @@ func TestPersistWideUnitCostRule(t *testing.T) {
 	}
 }
 
-// TestPersistCheckpointFramesSince: version 6 formed the weight every 4
+// TestPersistCheckpointFramesSince: versions 6 and 7 formed the weight every 4
 // learned frames at any width, so its count of frames since the last
 // evaluation (0–3) is read modulo persistInterval(p) (here 1: the next
 // frame is evaluated); 4 or more is refused as before.
@@ -278,7 +278,7 @@ func TestPersistCheckpointFramesSince(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	at := len(ck) - 4 - len(mb) - 4 - 4 // the persist section's u32 frames since its evaluation, just before the modes
+	at := len(ck) - 4 - len(mb) - 4 - 1 - 1 - 4 // the persist section's u32 frames since its evaluation, then the copy flag (0), the creep flag (0) and the modes
 	if n, w := binary.LittleEndian.Uint32(ck[at:]), math.Float64frombits(binary.LittleEndian.Uint64(ck[at-8:])); n != 0 || w != tr.ps.w {
 		t.Fatalf("at byte %d: frames %d, weight %v (want 0, %v): not the persist section", at, n, w, tr.ps.w)
 	}
@@ -297,5 +297,109 @@ func TestPersistCheckpointFramesSince(t *testing.T) {
 		if !c.ok && !errors.Is(err, ErrCheckpoint) {
 			t.Errorf("%d frames since the evaluation: want ErrCheckpoint, got %v", c.n, err)
 		}
+	}
+}
+
+// TestPersistWideCheckpoint: a wide unit's copy of the factor goes through
+// a checkpoint (version 8): a tracker restored mid-run forms the next
+// weights bit for bit as the one that ran on, the copy included (its age
+// in refreshes kept, so the next copy comes at the same frame); the same
+// checkpoint written as version 7 (the copy dropped) restores, and its
+// weights differ (a restored unit then copies the restored model's
+// factor): the test sees the copy.
+func TestPersistWideCheckpoint(t *testing.T) {
+	const p, n0, n1 = 150, 1500, 600
+	cfg := Config{Period: time.Second, WarmUp: 300, RefreshEvery: 32, Residual: true, FlatFrames: -1, Persist: 3,
+		Modes: modes.Config{Count: 3}}
+	tr, err := New(p, cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	src := newWidePlant(p, 9)
+	var sc Score
+	x := make([]float64, p)
+	frame := func(k int) []float64 {
+		src.frame(x)
+		if k > 1200 {
+			x[0] += 0.02 * float64(k-1200) / 100 // a slow drift, so the weight moves
+		}
+		return x
+	}
+	for k := 0; k < n0; k++ {
+		if err := tr.Step(&sc, frame(k), nil); err != nil {
+			t.Fatal(err)
+		}
+	}
+	ck, err := tr.MarshalBinary()
+	if err != nil {
+		t.Fatal(err)
+	}
+	mb, err := tr.ms.MarshalBinary() // the modes at the checkpoint
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Logf("copy %d refreshes old at the checkpoint (a copy every %d)", tr.rs.nref-tr.ps.pinRef, tr.ps.every)
+	xs := make([][]float64, n1)
+	for k := range xs {
+		xs[k] = slices.Clone(frame(n0 + k))
+	}
+	run := func(tr *Tracker) (w, d []float64, pins int) {
+		p0 := tr.ps.pins
+		for _, x := range xs {
+			if err := tr.Step(&sc, x, nil); err != nil {
+				t.Fatal(err)
+			}
+			w, d = append(w, tr.ps.w), append(d, tr.ps.last)
+		}
+		return w, d, tr.ps.pins - p0
+	}
+	restore := func(ck []byte) *Tracker {
+		nt, err := New(p, cfg)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if err := nt.UnmarshalBinary(ck); err != nil {
+			t.Fatal(err)
+		}
+		return nt
+	}
+	w0, d0, pins0 := run(tr)
+	w1, d1, pins1 := run(restore(ck))
+	below := 0
+	for k := range w0 {
+		if w0[k] != w1[k] || d0[k] != d1[k] {
+			t.Fatalf("frame %d after the restore: weight %v, D %v; ran on: %v, %v", k, w1[k], d1[k], w0[k], d0[k])
+		}
+		if w0[k] < 1 {
+			below++
+		}
+	}
+	if pins0 != pins1 || pins0 == 0 || below == 0 {
+		t.Fatalf("copies %d and %d after the checkpoint, %d weights below 1: the test sees nothing", pins0, pins1, below)
+	}
+	// Version 7: the copy dropped (the creep flag after it stays).
+	cp := 1 + 4 + p + 8*p*(p+1)/2
+	at := len(ck) - 4 - len(mb) - 4 - 1 - cp // the copy, then the creep flag (0 here) and the modes
+	if ck[at] != 1 {
+		t.Fatalf("copy flag %d at byte %d, want 1", ck[at], at)
+	}
+	v7 := append(bytes.Clone(ck[:at]), ck[at+cp:len(ck)-4]...)
+	binary.LittleEndian.PutUint16(v7[4:], 7)
+	v7 = binary.LittleEndian.AppendUint32(v7, crc32.ChecksumIEEE(v7))
+	w2, d2, _ := run(restore(v7))
+	same := true
+	for k := range w0 {
+		same = same && w2[k] == w0[k] && d2[k] == d0[k]
+	}
+	if same {
+		t.Error("a version 7 checkpoint (no copy of the factor) gave the same weights: the test cannot see the copy")
+	}
+	// A copy older than the interval is refused.
+	bad := bytes.Clone(ck[:len(ck)-4])
+	binary.LittleEndian.PutUint32(bad[at+1:], uint32(persistInterval(p)))
+	bad = binary.LittleEndian.AppendUint32(bad, crc32.ChecksumIEEE(bad))
+	nt, _ := New(p, cfg)
+	if err := nt.UnmarshalBinary(bad); !errors.Is(err, ErrCheckpoint) {
+		t.Errorf("a copy %d refreshes old: want ErrCheckpoint, got %v", persistInterval(p), err)
 	}
 }

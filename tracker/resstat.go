@@ -230,6 +230,21 @@ func factorLower(l, pk, panel []float64, a blas64.Symmetric, p int, ridge float6
 	return true
 }
 
+// packLower writes the rows of L (the lower triangle of l, row-major
+// p × p) into pk in forward's packed layout (packedLen), as factorLower
+// does from the same values.
+func packLower(pk, l []float64, p int) {
+	for i0 := 8; i0+8 <= p; i0 += 8 {
+		blk := pk[packedOff(i0/8) : packedOff(i0/8)+8*i0]
+		for j := 0; j < i0; j++ {
+			d := blk[(j>>2)*32+(j&3) : (j>>2)*32+32]
+			for r := 0; r < 8; r++ {
+				d[4*r] = l[(i0+r)*p+j]
+			}
+		}
+	}
+}
+
 // factorU returns the current factor's buffer, whose upper triangle holds
 // U = Lᵀ (row-major p × p), for the missing-data model when its ridge is
 // ε_R (model.shareFactor). Valid until the next refresh but one.
