@@ -597,8 +597,10 @@ func (st *ckState) check() error {
 		return ckError("persistence weight %v, %d frames since its evaluation", st.pWeight, st.pN)
 	}
 	if st.pL != nil {
-		if e := persistInterval(len(st.pz)); e == 1 || st.pAge < 0 || st.pAge >= e {
-			return ckError("persistence weight's copy of the factor %d refreshes old, for a unit that copies every %d", st.pAge, e)
+		// Any age: the copy is taken again at the next evaluation once it
+		// is persistInterval refreshes old (a checkpoint may fall between).
+		if e := persistInterval(len(st.pz)); e == 1 {
+			return ckError("persistence weight's copy of the factor for a unit of %d channels, which reads the current one", len(st.pz))
 		}
 		k := 0
 		for i := range st.pz {

@@ -394,12 +394,12 @@ func TestPersistWideCheckpoint(t *testing.T) {
 	if same {
 		t.Error("a version 7 checkpoint (no copy of the factor) gave the same weights: the test cannot see the copy")
 	}
-	// A copy older than the interval is refused.
+	// A copy whose first diagonal value is not positive is refused.
 	bad := bytes.Clone(ck[:len(ck)-4])
-	binary.LittleEndian.PutUint32(bad[at+1:], uint32(persistInterval(p)))
+	binary.LittleEndian.PutUint64(bad[at+1+4+p:], math.Float64bits(-1))
 	bad = binary.LittleEndian.AppendUint32(bad, crc32.ChecksumIEEE(bad))
 	nt, _ := New(p, cfg)
 	if err := nt.UnmarshalBinary(bad); !errors.Is(err, ErrCheckpoint) {
-		t.Errorf("a copy %d refreshes old: want ErrCheckpoint, got %v", persistInterval(p), err)
+		t.Errorf("a copy with L₀₀ = −1: want ErrCheckpoint, got %v", err)
 	}
 }
