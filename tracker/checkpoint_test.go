@@ -262,6 +262,71 @@ func steppedTracker(t *testing.T, p int, cfg Config, n int) (*Tracker, *gaussSou
 	return tr, src, ck
 }
 
+// stateCheckpointConfig is the learning of the statistics' checkpoint
+// tests (two modes, batches of 4, a refresh every 16 frames), without the
+// statistic each of them sets on.
+func stateCheckpointConfig() Config {
+	return Config{Period: time.Second, HalfLife: 10 * time.Minute, WarmUp: 60, RefreshEvery: 16, Batch: 4, Modes: modes.Config{Count: 2}}
+}
+
+// replayCheck steps a tracker of p channels under cfg through n frames of
+// its stream (steppedTracker), checkpoints it and records pick of the
+// scores of the next m frames (recordSteps: each must be ready, and ready,
+// else the test ends naming what). A tracker restored from the checkpoint
+// must give the same picks (by same) over those frames, else the test
+// ends. It returns the checkpoint and replay, which reports for any
+// checkpoint whether a tracker restored from it gives the same picks, and
+// the first frame that does not (replaysSame).
+func replayCheck[T any](t *testing.T, p int, cfg Config, n, m int, what string, ready func(*Score) bool, pick func(*Score) T, same func(a, b T) bool) ([]byte, func(ck []byte) (bool, int)) {
+	t.Helper()
+	tr, src, ck := steppedTracker(t, p, cfg, n)
+	xs := src.frames(m, p)
+	want := recordSteps(t, tr, xs, what, ready, pick)
+	replay := func(ck []byte) (bool, int) { return replaysSame(t, p, cfg, ck, xs, want, pick, same) }
+	if ok, k := replay(ck); !ok {
+		t.Fatalf("p = %d, frame %d after restore: %s differs from the uninterrupted run", p, k, what)
+	}
+	return ck, replay
+}
+
+// modesLen returns the length of the modes section of the checkpoint ck
+// of a tracker of p channels under cfg: the section stands between its
+// u32 length and the checksum, at the end.
+func modesLen(t *testing.T, p int, cfg Config, ck []byte) int {
+	t.Helper()
+	mb, err := restoreTracker(t, p, cfg, ck).ms.MarshalBinary()
+	if err != nil {
+		t.Fatal(err)
+	}
+	return len(mb)
+}
+
+// asVersion returns the checkpoint ck written as the older version v: the
+// n bytes from at (the sections v lacks) cut out, the version and the
+// checksum written again.
+func asVersion(ck []byte, v uint16, at, n int) []byte {
+	old := append(bytes.Clone(ck[:at]), ck[at+n:len(ck)-4]...)
+	binary.LittleEndian.PutUint16(old[4:], v)
+	return binary.LittleEndian.AppendUint32(old, crc32.ChecksumIEEE(old))
+}
+
+// refusesFloat checks that a tracker of p channels under cfg refuses, with
+// ErrCheckpoint, the checkpoint ck with the float64 at byte off set to v
+// (and the checksum written again); name says what the value is.
+func refusesFloat(t *testing.T, p int, cfg Config, ck []byte, off int, v float64, name string) {
+	t.Helper()
+	bad := bytes.Clone(ck[:len(ck)-4])
+	binary.LittleEndian.PutUint64(bad[off:], math.Float64bits(v))
+	bad = binary.LittleEndian.AppendUint32(bad, crc32.ChecksumIEEE(bad))
+	nt, err := New(p, cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := nt.UnmarshalBinary(bad); !errors.Is(err, ErrCheckpoint) {
+		t.Errorf("%s: want ErrCheckpoint, got %v", name, err)
+	}
+}
+
 // The variance statistic's EWMA and normal levels travel in the checkpoint
 // (version 4): a tracker restored mid-stream gives bit-identical R and V
 // to an uninterrupted one. A version 3 checkpoint (no variance section)
@@ -269,52 +334,27 @@ func steppedTracker(t *testing.T, p int, cfg Config, n int) (*Tracker, *gaussSou
 // gives different V: the comparison this test makes can fail.
 func TestCheckpointVarianceState(t *testing.T) {
 	const p = 9
-	cfg := Config{Period: time.Second, HalfLife: 10 * time.Minute, WarmUp: 60, RefreshEvery: 16, Batch: 4,
-		Residual: true, Variance: true, Modes: modes.Config{Count: 2}}
-	tr, src, ck := steppedTracker(t, p, cfg, 317) // mid-batch, between refreshes
-	xs := src.frames(300, p)
+	cfg := stateCheckpointConfig()
+	cfg.Residual, cfg.Variance = true, true
 	type rv struct{ r, v, rl, vl float64 }
-	pick := func(sc *Score) rv { return rv{sc.Residual, sc.Variance, sc.ResidualLimit, sc.VarianceLimit} }
-	want := recordSteps(t, tr, xs, "variance statistic", func(sc *Score) bool { return sc.VarianceLimit > 0 }, pick)
-	replay := func(ck []byte) (same bool, first int) {
-		return replaysSame(t, p, cfg, ck, xs, want, pick, func(a, b rv) bool {
+	ck, replay := replayCheck(t, p, cfg, 317, 300, "variance statistic", // mid-batch, between refreshes
+		func(sc *Score) bool { return sc.VarianceLimit > 0 },
+		func(sc *Score) rv { return rv{sc.Residual, sc.Variance, sc.ResidualLimit, sc.VarianceLimit} },
+		func(a, b rv) bool {
 			return math.Float64bits(a.r) == math.Float64bits(b.r) && math.Float64bits(a.v) == math.Float64bits(b.v) &&
 				a.rl == b.rl && a.vl == b.vl
 		})
-	}
-	if same, k := replay(ck); !same {
-		t.Fatalf("frame %d after restore: variance or residual statistic differs from the uninterrupted run", k)
-	}
 
 	// The same state written as version 3: drop the variance section
 	// (flag, then 3p floats, just before the modes).
-	mb, err := func() ([]byte, error) {
-		re, _ := New(p, cfg)
-		if err := re.UnmarshalBinary(ck); err != nil {
-			return nil, err
-		}
-		return re.ms.MarshalBinary()
-	}()
-	if err != nil {
-		t.Fatal(err)
-	}
-	varAt := len(ck) - 4 - len(mb) - 4 - 1 - 1 - 1 - (1 + 3*8*p) // then the MEWMA, persist and creep flags (versions 5–7), 0 here
+	varAt := len(ck) - 4 - modesLen(t, p, cfg, ck) - 4 - 1 - 1 - 1 - (1 + 3*8*p) // then the MEWMA, persist and creep flags (versions 5–7), 0 here
 	if ck[varAt] != 1 || ck[varAt+1+3*8*p] != 0 || ck[varAt+3+3*8*p] != 0 {
 		t.Fatalf("variance flag %d at byte %d, want 1, then MEWMA flag %d and creep flag %d, want 0", ck[varAt], varAt, ck[varAt+1+3*8*p], ck[varAt+3+3*8*p])
 	}
-	v3 := append(bytes.Clone(ck[:varAt]), ck[varAt+1+3*8*p+1+1+1:len(ck)-4]...)
-	binary.LittleEndian.PutUint16(v3[4:], 3)
-	v3 = binary.LittleEndian.AppendUint32(v3, crc32.ChecksumIEEE(v3))
-	if same, _ := replay(v3); same {
+	if same, _ := replay(asVersion(ck, 3, varAt, 1+3*8*p+1+1+1)); same {
 		t.Error("a version 3 checkpoint (variance state dropped) gave the same variance statistic: the test cannot see the state")
 	}
 
 	// A corrupt normal level is refused.
-	bad := bytes.Clone(ck[:len(ck)-4])
-	binary.LittleEndian.PutUint64(bad[varAt+1+8*p:], math.Float64bits(-1))
-	bad = binary.LittleEndian.AppendUint32(bad, crc32.ChecksumIEEE(bad))
-	re, _ := New(p, cfg)
-	if err := re.UnmarshalBinary(bad); !errors.Is(err, ErrCheckpoint) {
-		t.Errorf("negative normal level: want ErrCheckpoint, got %v", err)
-	}
+	refusesFloat(t, p, cfg, ck, varAt+1+8*p, -1, "negative normal level")
 }

@@ -1,16 +1,11 @@
 package tracker
 
 import (
-	"bytes"
-	"encoding/binary"
-	"errors"
-	"hash/crc32"
 	"math"
 	"math/rand/v2"
 	"testing"
 	"time"
 
-	"gonum.org/v1/gonum/mat"
 	"gonum.org/v1/gonum/stat"
 
 	"modewatch/tracker/modes"
@@ -191,14 +186,7 @@ func TestCreepLearnsAR1Variance(t *testing.T) {
 func TestCreepShiftNotWander(t *testing.T) {
 	const lam = 0.05
 	corr := twoFactorCorr()
-	var om mat.SymDense
-	var ch mat.Cholesky
-	if !ch.Factorize(corr) {
-		t.Fatal("not SPD")
-	}
-	if err := ch.InverseTo(&om); err != nil {
-		t.Fatal(err)
-	}
+	om, _ := refPrecision(t, corr, 0)
 	half := func(i int) float64 { return 0.5 / math.Sqrt(om.At(i, i)) } // in standardized units of the source
 	src := &arSource{gaussSource: newGaussSource(85, corr), ch: 6, phi: math.Exp(-1.0 / 1000), sd: half(6), rng: rand.New(rand.NewPCG(9, 10))}
 	cfg := Config{Period: time.Second, HalfLife: 1000 * time.Hour, WarmUp: 500, Creep: true, CreepLambda: lam,
@@ -252,9 +240,7 @@ func TestCreepShiftNotWander(t *testing.T) {
 	if over := int(outCr * 3000); named < over*9/10 {
 		t.Errorf("channel 1 named in %d of %d frames over the limit, want ≥ 90 %%", named, over)
 	}
-	if len(sc.Contrib) == 0 || sc.Contrib[0].Channel != 1 {
-		t.Errorf("last shifted frame: contributors %+v, want channel 1 first", sc.Contrib)
-	}
+	wantLeader(t, &sc, 1)
 }
 
 // The creep statistic's state travels in the checkpoint (version 7): a
@@ -265,52 +251,32 @@ func TestCreepShiftNotWander(t *testing.T) {
 // the comparison can fail; a non-finite or non-positive value is refused.
 func TestCheckpointCreepState(t *testing.T) {
 	const p = 9
-	cfg := Config{Period: time.Second, HalfLife: 10 * time.Minute, WarmUp: 60, RefreshEvery: 16, Batch: 4,
-		Creep: true, CreepLambda: 0.1, Modes: modes.Config{Count: 2}}
-	tr, src, ck := steppedTracker(t, p, cfg, 317)
-	xs := src.frames(300, p)
+	cfg := stateCheckpointConfig()
+	cfg.Creep, cfg.CreepLambda = true, 0.1
 	type cv struct {
 		c, l float64
 		ch   int
 	}
+	ready := func(sc *Score) bool { return sc.CreepLimit > 0 }
 	pick := func(sc *Score) cv { return cv{sc.Creep, sc.CreepLimit, sc.CreepChannel} }
-	want := recordSteps(t, tr, xs, "creep statistic", func(sc *Score) bool { return sc.CreepLimit > 0 }, pick)
-	replay := func(ck []byte) (same bool, first int) {
-		return replaysSame(t, p, cfg, ck, xs, want, pick, func(a, b cv) bool {
-			return math.Float64bits(a.c) == math.Float64bits(b.c) && math.Float64bits(a.l) == math.Float64bits(b.l) && a.ch == b.ch
-		})
-	}
-	if same, k := replay(ck); !same {
-		t.Fatalf("frame %d after restore: creep statistic differs from the uninterrupted run", k)
-	}
+	ck, replay := replayCheck(t, p, cfg, 317, 300, "creep statistic", ready, pick, func(a, b cv) bool {
+		return math.Float64bits(a.c) == math.Float64bits(b.c) && math.Float64bits(a.l) == math.Float64bits(b.l) && a.ch == b.ch
+	})
 	{
 		const p = 130 // above creepFullP: an evaluation every 4 frames, normalisers every 256
 		cfg := cfg
 		cfg.RefreshEvery = 64
-		tr, src, ck := steppedTracker(t, p, cfg, 1000)
-		xs := src.frames(600, p)
-		want := recordSteps(t, tr, xs, "creep statistic", func(sc *Score) bool { return sc.CreepLimit > 0 }, pick)
-		if same, k := replaysSame(t, p, cfg, ck, xs, want, pick, func(a, b cv) bool {
+		replayCheck(t, p, cfg, 1000, 600, "creep statistic", ready, pick, func(a, b cv) bool {
 			return math.Float64bits(a.c) == math.Float64bits(b.c) && a.ch == b.ch
-		}); !same {
-			t.Fatalf("p = %d, frame %d after restore: creep statistic differs from the uninterrupted run", p, k)
-		}
+		})
 	}
 
-	re := restoreTracker(t, p, cfg, ck)
-	mb, err := re.ms.MarshalBinary()
-	if err != nil {
-		t.Fatal(err)
-	}
 	sec := 1 + 5*8*p
-	at := len(ck) - 4 - len(mb) - 4 - sec // the creep section, just before the modes
+	at := len(ck) - 4 - modesLen(t, p, cfg, ck) - 4 - sec // the creep section, just before the modes
 	if ck[at] != 1 {
 		t.Fatalf("creep flag %d at byte %d, want 1", ck[at], at)
 	}
-	v6 := append(bytes.Clone(ck[:at]), ck[at+sec:len(ck)-4]...) // version 6: no creep section
-	binary.LittleEndian.PutUint16(v6[4:], 6)
-	v6 = binary.LittleEndian.AppendUint32(v6, crc32.ChecksumIEEE(v6))
-	if same, _ := replay(v6); same {
+	if same, _ := replay(asVersion(ck, 6, at, sec)); same { // version 6: no creep section
 		t.Error("a version 6 checkpoint (creep state dropped) gave the same creep statistic: the test cannot see the state")
 	}
 	for _, c := range []struct {
@@ -322,41 +288,14 @@ func TestCheckpointCreepState(t *testing.T) {
 		{"zero variance", 1 + 8*(2*p+1), 0},
 		{"negative normaliser", 1 + 8*(4*p+2), -1},
 	} {
-		bad := bytes.Clone(ck[:len(ck)-4])
-		binary.LittleEndian.PutUint64(bad[at+c.off:], math.Float64bits(c.v))
-		bad = binary.LittleEndian.AppendUint32(bad, crc32.ChecksumIEEE(bad))
-		nt, _ := New(p, cfg)
-		if err := nt.UnmarshalBinary(bad); !errors.Is(err, ErrCheckpoint) {
-			t.Errorf("%s: want ErrCheckpoint, got %v", c.name, err)
-		}
+		refusesFloat(t, p, cfg, ck, at+c.off, c.v, c.name)
 	}
 }
 
 // Step with the creep statistic allocates nothing: in control and in
 // frames whose contributors it ranks.
 func TestCreepStepAllocs(t *testing.T) {
-	src := newGaussSource(87, twoFactorCorr())
-	tr := creepLearner(t, 8, 0.05, 2, 4)
-	var sc Score
-	x := make([]float64, 8)
-	for k := 0; k < 3000; k++ {
-		tr.Step(&sc, src.frame(x), nil)
-	}
-	if a := testing.AllocsPerRun(300, func() { tr.Step(&sc, src.frame(x), nil) }); a != 0 {
-		t.Errorf("in control: %v allocations per Step", a)
-	}
-	tr.Freeze()
-	step := func() {
-		src.frame(x)
-		x[1] += 3 * src.sd[1]
-		tr.Step(&sc, x, nil)
-	}
-	for k := 0; k < 300; k++ {
-		step()
-	}
-	if a := testing.AllocsPerRun(200, step); a != 0 {
-		t.Errorf("shifted: %v allocations per Step", a)
-	}
+	sc := checkStepAllocs(t, creepLearner(t, 8, 0.05, 2, 4), newGaussSource(87, twoFactorCorr()), 3000, true)
 	if sc.CreepChannel != 1 {
 		t.Errorf("shifted: creep channel %d, want 1", sc.CreepChannel)
 	}
@@ -420,13 +359,6 @@ func TestCreepEvery(t *testing.T) {
 
 // Configuration: the weight must lie in (0, 1].
 func TestCreepConfig(t *testing.T) {
-	for _, lam := range []float64{-0.1, 1.5, math.NaN()} {
-		if _, err := New(4, Config{Creep: true, CreepLambda: lam}); !errors.Is(err, ErrConfig) {
-			t.Errorf("CreepLambda %v: want ErrConfig, got %v", lam, err)
-		}
-	}
-	tr, err := New(4, Config{Creep: true})
-	if err != nil || tr.Config().CreepLambda != DefaultCreepLambda {
-		t.Errorf("default weight: %v, %v", tr.Config().CreepLambda, err)
-	}
+	checkWeightConfig(t, "CreepLambda", func(lam float64) Config { return Config{Creep: true, CreepLambda: lam} },
+		func(c Config) float64 { return c.CreepLambda }, DefaultCreepLambda)
 }

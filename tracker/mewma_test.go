@@ -1,11 +1,8 @@
 package tracker
 
 import (
-	"bytes"
-	"encoding/binary"
 	"errors"
 	"fmt"
-	"hash/crc32"
 	"math"
 	"slices"
 	"testing"
@@ -129,14 +126,7 @@ func TestMewmaSeesSmallShift(t *testing.T) {
 
 	// Half the conditional standard deviation of channel 1 given the
 	// others, 1/√Ω₁₁ with Ω = A⁻¹, in its units (sd 1.5 in gaussSource).
-	var om mat.SymDense
-	var ch mat.Cholesky
-	if !ch.Factorize(corr) {
-		t.Fatal("not SPD")
-	}
-	if err := ch.InverseTo(&om); err != nil {
-		t.Fatal(err)
-	}
+	om, _ := refPrecision(t, corr, 0)
 	shift := 0.5 * src.sd[1] / math.Sqrt(om.At(1, 1))
 	speOut, mwOut := run(3000, shift)
 	over := func(v []float64, lim float64) float64 {
@@ -157,8 +147,15 @@ func TestMewmaSeesSmallShift(t *testing.T) {
 		t.Errorf("SPE over its in-control 0.99 quantile in %.3f of the shifted frames, want ≤ 0.03 (it should not see the shift)", rSPE)
 	}
 	// The MEWMA statistic leads the frame and names the shifted channel.
-	if len(sc.Contrib) == 0 || sc.Contrib[0].Channel != 1 {
-		t.Errorf("last shifted frame: contributors %+v, want channel 1 first", sc.Contrib)
+	wantLeader(t, &sc, 1)
+}
+
+// wantLeader checks that channel ch leads the contributors of the score
+// sc of the last shifted frame.
+func wantLeader(t *testing.T, sc *Score, ch int) {
+	t.Helper()
+	if len(sc.Contrib) == 0 || sc.Contrib[0].Channel != ch {
+		t.Errorf("last shifted frame: contributors %+v, want channel %d first", sc.Contrib, ch)
 	}
 }
 
@@ -169,56 +166,47 @@ func TestMewmaSeesSmallShift(t *testing.T) {
 // fail; a non-finite z̄ is refused.
 func TestCheckpointMewmaState(t *testing.T) {
 	const p = 9
-	cfg := Config{Period: time.Second, HalfLife: 10 * time.Minute, WarmUp: 60, RefreshEvery: 16, Batch: 4,
-		Mewma: true, MewmaLambda: 0.1, Modes: modes.Config{Count: 2}}
-	tr, src, ck := steppedTracker(t, p, cfg, 317)
-	xs := src.frames(300, p)
-	pick := func(sc *Score) float64 { return sc.Mewma }
-	want := recordSteps(t, tr, xs, "MEWMA statistic", func(sc *Score) bool { return sc.MewmaLimit > 0 }, pick)
-	replay := func(ck []byte) (same bool, first int) {
-		return replaysSame(t, p, cfg, ck, xs, want, pick, func(a, b float64) bool { return math.Float64bits(a) == math.Float64bits(b) })
-	}
-	if same, k := replay(ck); !same {
-		t.Fatalf("frame %d after restore: MEWMA statistic differs from the uninterrupted run", k)
-	}
+	cfg := stateCheckpointConfig()
+	cfg.Mewma, cfg.MewmaLambda = true, 0.1
+	ck, replay := replayCheck(t, p, cfg, 317, 300, "MEWMA statistic", func(sc *Score) bool { return sc.MewmaLimit > 0 },
+		func(sc *Score) float64 { return sc.Mewma }, func(a, b float64) bool { return math.Float64bits(a) == math.Float64bits(b) })
 
-	re := restoreTracker(t, p, cfg, ck)
-	mb, err := re.ms.MarshalBinary()
-	if err != nil {
-		t.Fatal(err)
-	}
-	at := len(ck) - 4 - len(mb) - 4 - 1 - 1 - (1 + 8*p) // the MEWMA section, then the persist and creep flags (0 here) and the modes
+	at := len(ck) - 4 - modesLen(t, p, cfg, ck) - 4 - 1 - 1 - (1 + 8*p) // the MEWMA section, then the persist and creep flags (0 here) and the modes
 	if ck[at] != 1 {
 		t.Fatalf("MEWMA flag %d at byte %d, want 1", ck[at], at)
 	}
-	v4 := append(bytes.Clone(ck[:at]), ck[at+1+8*p+1+1:len(ck)-4]...) // version 4: no flag, no z̄, no persist and creep flags
-	binary.LittleEndian.PutUint16(v4[4:], 4)
-	v4 = binary.LittleEndian.AppendUint32(v4, crc32.ChecksumIEEE(v4))
-	if same, _ := replay(v4); same {
+	// Version 4: no flag, no z̄, no persist and creep flags.
+	if same, _ := replay(asVersion(ck, 4, at, 1+8*p+1+1)); same {
 		t.Error("a version 4 checkpoint (MEWMA state dropped) gave the same MEWMA statistic: the test cannot see the state")
 	}
-
-	bad := bytes.Clone(ck[:len(ck)-4])
-	binary.LittleEndian.PutUint64(bad[at+1+8*3:], math.Float64bits(math.NaN()))
-	bad = binary.LittleEndian.AppendUint32(bad, crc32.ChecksumIEEE(bad))
-	nt, _ := New(p, cfg)
-	if err := nt.UnmarshalBinary(bad); !errors.Is(err, ErrCheckpoint) {
-		t.Errorf("NaN in the MEWMA state: want ErrCheckpoint, got %v", err)
-	}
+	refusesFloat(t, p, cfg, ck, at+1+8*3, math.NaN(), "NaN in the MEWMA state")
 }
 
 // Step with the MEWMA statistic allocates nothing, also in frames whose
 // contributors it ranks.
 func TestMewmaStepAllocs(t *testing.T) {
 	src := newGaussSource(74, twoFactorCorr())
-	tr := mewmaBaseline(t, src, 0.05, 5000)
+	checkStepAllocs(t, mewmaBaseline(t, src, 0.05, 5000), src, 300, false)
+}
+
+// checkStepAllocs checks that Step of tr allocates nothing on the frames
+// of src (eight channels): after warm frames in control, in control; then,
+// after 300 frames with channel 1 shifted by three of its standard
+// deviations (the shifted statistic ranks the contributors), shifted.
+// With freeze, learning is frozen before the shift. It returns the score
+// of the last shifted frame.
+func checkStepAllocs(t *testing.T, tr *Tracker, src *gaussSource, warm int, freeze bool) Score {
+	t.Helper()
 	var sc Score
 	x := make([]float64, 8)
-	for k := 0; k < 300; k++ {
+	for k := 0; k < warm; k++ {
 		tr.Step(&sc, src.frame(x), nil)
 	}
 	if a := testing.AllocsPerRun(200, func() { tr.Step(&sc, src.frame(x), nil) }); a != 0 {
 		t.Errorf("in control: %v allocations per Step", a)
+	}
+	if freeze {
+		tr.Freeze()
 	}
 	step := func() {
 		src.frame(x)
@@ -231,18 +219,30 @@ func TestMewmaStepAllocs(t *testing.T) {
 	if a := testing.AllocsPerRun(200, step); a != 0 {
 		t.Errorf("shifted: %v allocations per Step", a)
 	}
+	return sc
 }
 
 // Configuration: the weight must lie in (0, 1].
 func TestMewmaConfig(t *testing.T) {
+	checkWeightConfig(t, "MewmaLambda", func(lam float64) Config { return Config{Mewma: true, MewmaLambda: lam} },
+		func(c Config) float64 { return c.MewmaLambda }, DefaultMewmaLambda)
+}
+
+// checkWeightConfig checks the configuration of a smoothed statistic's
+// weight: on(λ) turns the statistic on with weight λ (0: its default),
+// got reads the weight back from a tracker's Config. New refuses a weight
+// outside (0, 1] with ErrConfig, naming it name in the test's errors, and
+// fills in def for 0.
+func checkWeightConfig(t *testing.T, name string, on func(lam float64) Config, got func(Config) float64, def float64) {
+	t.Helper()
 	for _, lam := range []float64{-0.1, 1.5, math.NaN()} {
-		if _, err := New(4, Config{Mewma: true, MewmaLambda: lam}); !errors.Is(err, ErrConfig) {
-			t.Errorf("MewmaLambda %v: want ErrConfig, got %v", lam, err)
+		if _, err := New(4, on(lam)); !errors.Is(err, ErrConfig) {
+			t.Errorf("%s %v: want ErrConfig, got %v", name, lam, err)
 		}
 	}
-	tr, err := New(4, Config{Mewma: true})
-	if err != nil || tr.Config().MewmaLambda != DefaultMewmaLambda {
-		t.Errorf("default weight: %v, %v", tr.Config().MewmaLambda, err)
+	tr, err := New(4, on(0))
+	if err != nil || got(tr.Config()) != def {
+		t.Errorf("default weight: %v, %v", got(tr.Config()), err)
 	}
 }
 
