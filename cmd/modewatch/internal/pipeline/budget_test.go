@@ -760,6 +760,22 @@ func TestSerialLearnerAutocorr(t *testing.T) {
 	}
 }
 
+// calibrateSmoothedAR1 calibrates a budget of budget false alerts a day
+// (five learning days, scales by group) on the first ten days, a minute
+// apart from t0, of the fitted AR(1) plant's ratios (fittedAR1), after
+// smooth has written its smoothed statistics into them.
+func calibrateSmoothedAR1(t *testing.T, tr *tracker.Tracker, a *ar1Plant, rule alerts.AlarmRule, t0 time.Time, budget float64, smooth func([][nStatistics]float64)) Calibration {
+	t.Helper()
+	ct, cr := ratiosOf(t, tr, a, t0, time.Minute, 10*24*60)
+	smooth(cr)
+	rr := &RatioRecorder{units: map[string]*ratioSeries{"u": {t: ct, r: cr, spread: make([]bool, len(ct))}}}
+	cal, err := rr.Calibrate("u", budget, rule, 5, false, false, 0)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return cal
+}
+
 // TestBudgetMewmaOwnScale: the AR(1) plant of TestBudgetAR1 with a fourth,
 // smoothed statistic in the MEWMA slot (the EWMA, λ = 0.02, of its SPE
 // ratio, times (2 − λ)/λ: far more serially correlated than the per-frame
@@ -779,13 +795,7 @@ func TestBudgetMewmaOwnScale(t *testing.T) {
 			r[k][slotMewma] = (2 - lam) / lam * z
 		}
 	}
-	ct, cr := ratiosOf(t, tr, a, t0, period, 10*day)
-	smooth(cr)
-	rr := &RatioRecorder{units: map[string]*ratioSeries{"u": {t: ct, r: cr, spread: make([]bool, len(ct))}}}
-	cal, err := rr.Calibrate("u", budget, rule, 5, false, false, 0)
-	if err != nil {
-		t.Fatal(err)
-	}
+	cal := calibrateSmoothedAR1(t, tr, a, rule, t0, budget, smooth)
 	t.Logf("scales %v, single ×%.3f, expected %.3f/day [%.3f, %.3f], held-out alerts %d", cal.Scales, cal.Scale, cal.Rate, cal.RateLow, cal.RateHigh, cal.Observed)
 	m, ok := cal.Scales[alerts.StatMewma]
 	if !ok || cal.Scales[alerts.StatT2] != cal.Scales[alerts.StatSPE] || cal.Scales[alerts.StatSPE] != cal.Scales[alerts.StatPhi] {
@@ -819,7 +829,6 @@ func TestBudgetMewmaOwnScale(t *testing.T) {
 // check).
 func TestBudgetSmoothedOwnScales(t *testing.T) {
 	tr, a, rule, t0 := fittedAR1(t)
-	const period, day = time.Minute, 24 * 60
 	const budget = 1.0
 	smooth := func(r [][nStatistics]float64) {
 		z, c := 0.0, 0.0
@@ -830,13 +839,7 @@ func TestBudgetSmoothedOwnScales(t *testing.T) {
 			r[k][slotCreep] = c
 		}
 	}
-	ct, cr := ratiosOf(t, tr, a, t0, period, 10*day)
-	smooth(cr)
-	rr := &RatioRecorder{units: map[string]*ratioSeries{"u": {t: ct, r: cr, spread: make([]bool, len(ct))}}}
-	cal, err := rr.Calibrate("u", budget, rule, 5, false, false, 0)
-	if err != nil {
-		t.Fatal(err)
-	}
+	cal := calibrateSmoothedAR1(t, tr, a, rule, t0, budget, smooth)
 	t.Logf("scales %v, held-out alerts %d", cal.Scales, cal.Observed)
 	m, okM := cal.Scales[alerts.StatMewma]
 	c, okC := cal.Scales[alerts.StatCreep]

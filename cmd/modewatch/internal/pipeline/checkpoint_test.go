@@ -22,6 +22,31 @@ import (
 	"modewatch/stream"
 )
 
+// feedIntake feeds lines, as from source, through a new intake of the
+// registry ch under opt into p, after seeding the intake with the carried
+// readings seeds; with flush it flushes the aligner at the end (without,
+// the run stops as a crash would). An error ends the test.
+func feedIntake(t *testing.T, ch *stream.Channels, opt stream.Options, p *Pipeline, seeds []LastReading, source string, lines [][]byte, flush bool) {
+	t.Helper()
+	in, err := stream.NewIntake(ch, opt, p.Frame)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, r := range seeds {
+		if err := in.SeedLast(r.Channel, r.Value, r.Time); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if _, err := in.Feed(source, bytes.Join(lines, nil)); err != nil {
+		t.Fatal(err)
+	}
+	if flush {
+		if err := in.Flush(); err != nil {
+			t.Fatal(err)
+		}
+	}
+}
+
 // collectFrames decodes data into copies of its aligned frames.
 func collectFrames(t testing.TB, data []byte, period time.Duration) (*stream.Channels, []stream.Frame) {
 	t.Helper()
@@ -386,21 +411,7 @@ func TestCheckpointCarriedReadings(t *testing.T) {
 	}
 	run := func(p *Pipeline, seed []LastReading, lines [][]byte) {
 		t.Helper()
-		in, err := stream.NewIntake(ch, align, p.Frame)
-		if err != nil {
-			t.Fatal(err)
-		}
-		for _, r := range seed {
-			if err := in.SeedLast(r.Channel, r.Value, r.Time); err != nil {
-				t.Fatal(err)
-			}
-		}
-		if _, err := in.Feed("demo", bytes.Join(lines, nil)); err != nil {
-			t.Fatal(err)
-		}
-		if err := in.Flush(); err != nil {
-			t.Fatal(err)
-		}
+		feedIntake(t, ch, align, p, seed, "demo", lines, true)
 	}
 	whole := map[string][]rec{}
 	pa, _ := New(Options{Config: cfg, Channels: ch, Period: demoPeriod, OnScore: record(whole)})
@@ -410,17 +421,10 @@ func TestCheckpointCarriedReadings(t *testing.T) {
 	// (a crash), then a checkpoint.
 	cut := len(lines) / 2
 	pb, _ := New(Options{Config: cfg, Channels: ch, Period: demoPeriod})
-	inB, _ := stream.NewIntake(ch, align, pb.Frame)
-	if _, err := inB.Feed("demo", bytes.Join(lines[:cut], nil)); err != nil {
-		t.Fatal(err)
-	}
-	dir := t.TempDir()
-	if _, err := pb.WriteCheckpoints(dir); err != nil {
-		t.Fatal(err)
-	}
-	cks, errs := ReadCheckpoints(dir)
-	if len(errs) > 0 || len(cks) != 4 {
-		t.Fatalf("%d checkpoints: %v", len(cks), errs)
+	feedIntake(t, ch, align, pb, nil, "demo", lines[:cut], false)
+	cks := checkpointsOf(t, pb)
+	if len(cks) != 4 {
+		t.Fatalf("%d checkpoints", len(cks))
 	}
 	var seeds []LastReading
 	var to time.Time
@@ -862,23 +866,7 @@ func TestCheckpointSeedBeforeDiscovery(t *testing.T) {
 	}
 	feed := func(ch *stream.Channels, p *Pipeline, seeds []LastReading, lines [][]byte, flush bool) {
 		t.Helper()
-		in, err := stream.NewIntake(ch, stream.Options{Align: stream.AlignConfig{Period: period}}, p.Frame)
-		if err != nil {
-			t.Fatal(err)
-		}
-		for _, r := range seeds {
-			if err := in.SeedLast(r.Channel, r.Value, r.Time); err != nil {
-				t.Fatal(err)
-			}
-		}
-		if _, err := in.Feed("u", bytes.Join(lines, nil)); err != nil {
-			t.Fatal(err)
-		}
-		if flush {
-			if err := in.Flush(); err != nil {
-				t.Fatal(err)
-			}
-		}
+		feedIntake(t, ch, stream.Options{Align: stream.AlignConfig{Period: period}}, p, seeds, "u", lines, flush)
 	}
 	newRun := func(ch *stream.Channels, dst map[time.Time]rec) *Pipeline {
 		p, err := New(Options{Config: cfg, Channels: ch, Period: period, OnScore: func(u *Unit, at time.Time) {
@@ -905,13 +893,9 @@ func TestCheckpointSeedBeforeDiscovery(t *testing.T) {
 	chB := registry()
 	pb := newRun(chB, map[time.Time]rec{})
 	feed(chB, pb, nil, lines[:last+1], false)
-	dir := t.TempDir()
-	if _, err := pb.WriteCheckpoints(dir); err != nil {
-		t.Fatal(err)
-	}
-	cks, errs := ReadCheckpoints(dir)
-	if len(errs) > 0 || len(cks) != 1 {
-		t.Fatalf("%d checkpoints: %v", len(cks), errs)
+	cks := checkpointsOf(t, pb)
+	if len(cks) != 1 {
+		t.Fatalf("%d checkpoints", len(cks))
 	}
 	to := cks[0].To
 	if want := start.Add((last - 2) * period); !to.Equal(want) {
@@ -1145,39 +1129,8 @@ func TestCheckpointBadQualityProfile(t *testing.T) {
 // Restoring the same checkpoint with the smoothed frame set to zero gives
 // different statistics, so the comparison can see it.
 func TestCheckpointMewma(t *testing.T) {
-	cfg, ch, frames := demoFrames(t, 4*time.Hour, configs.Model{WarmUp: 100, Statistics: "t2,spe,phi,res,mewma", MewmaLambda: 0.05})
-	run := newCutRun(t, Options{Config: cfg, Channels: ch, Period: demoPeriod}, frames, statBits)
-	mewmas := 0
-	for _, recs := range run.wholeRecs {
-		for _, s := range recs {
-			if strings.Contains(s, "mewma=") {
-				mewmas++
-			}
-		}
-	}
-	if mewmas == 0 {
-		t.Fatal("no frame scored the MEWMA statistic")
-	}
-	if where := run.resume(nil); where != "" {
-		t.Fatal(where)
-	}
-	zeroed := func(ck *ModelFile) {
-		mu := &ck.Units[0]
-		for _, u := range run.cut.Units() {
-			if u.Name != mu.Name || mu.States != nil {
-				continue
-			}
-			u.tr.ResetMewma()
-			b, err := u.tr.MarshalBinary()
-			if err != nil {
-				t.Fatal(err)
-			}
-			mu.State = b
-		}
-	}
-	if run.resume(zeroed) == "" {
-		t.Error("restoring without the MEWMA statistic's smoothed frame changed nothing: the test cannot see it")
-	}
+	checkSmoothedCut(t, configs.Model{WarmUp: 100, Statistics: "t2,spe,phi,res,mewma", MewmaLambda: 0.05}, "mewma", "MEWMA statistic",
+		func(u *Unit) { u.tr.ResetMewma() }, "without the MEWMA statistic's smoothed frame")
 }
 
 // TestCheckpointCreep is TestCheckpointMewma for the creep statistic: its
@@ -1186,29 +1139,42 @@ func TestCheckpointMewma(t *testing.T) {
 // cut and restore); restoring with the smoothing started again
 // (tracker.ResetCreep) differs, so the comparison can see it.
 func TestCheckpointCreep(t *testing.T) {
-	cfg, ch, frames := demoFrames(t, 4*time.Hour, configs.Model{WarmUp: 100, Statistics: "t2,spe,phi,res,creep", CreepLambda: 0.05})
+	checkSmoothedCut(t, configs.Model{WarmUp: 100, Statistics: "t2,spe,phi,res,creep", CreepLambda: 0.05}, "creep", "creep statistic",
+		func(u *Unit) { u.tr.ResetCreep() }, "with the creep statistic's smoothing started again")
+}
+
+// checkSmoothedCut runs four hours of the demo plant under model, cut in
+// the middle, checkpointed and restored (newCutRun), and checks that some
+// frame scored the smoothed statistic what (record key key), that the
+// restored run's alarm statistics are bit-identical to the uninterrupted
+// run's (statBits), and that restoring the checkpoint with the first
+// unit's tracker state taken after reset gives different statistics, else
+// the test cannot see the state; lost says what reset drops.
+func checkSmoothedCut(t *testing.T, model configs.Model, key, what string, reset func(*Unit), lost string) {
+	t.Helper()
+	cfg, ch, frames := demoFrames(t, 4*time.Hour, model)
 	run := newCutRun(t, Options{Config: cfg, Channels: ch, Period: demoPeriod}, frames, statBits)
-	creeps := 0
+	scored := 0
 	for _, recs := range run.wholeRecs {
 		for _, s := range recs {
-			if strings.Contains(s, "creep=") {
-				creeps++
+			if strings.Contains(s, key+"=") {
+				scored++
 			}
 		}
 	}
-	if creeps == 0 {
-		t.Fatal("no frame scored the creep statistic")
+	if scored == 0 {
+		t.Fatalf("no frame scored the %s", what)
 	}
 	if where := run.resume(nil); where != "" {
 		t.Fatal(where)
 	}
-	reset := func(ck *ModelFile) {
+	restarted := func(ck *ModelFile) {
 		mu := &ck.Units[0]
 		for _, u := range run.cut.Units() {
 			if u.Name != mu.Name || mu.States != nil {
 				continue
 			}
-			u.tr.ResetCreep()
+			reset(u)
 			b, err := u.tr.MarshalBinary()
 			if err != nil {
 				t.Fatal(err)
@@ -1216,7 +1182,7 @@ func TestCheckpointCreep(t *testing.T) {
 			mu.State = b
 		}
 	}
-	if run.resume(reset) == "" {
-		t.Error("restoring with the creep statistic's smoothing started again changed nothing: the test cannot see it")
+	if run.resume(restarted) == "" {
+		t.Errorf("restoring %s changed nothing: the test cannot see it", lost)
 	}
 }

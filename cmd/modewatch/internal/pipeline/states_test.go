@@ -211,12 +211,7 @@ func TestOperatingStates(t *testing.T) {
 		t.Errorf("state models: %d false alerts, one model %d", sFalse, oFalse)
 	}
 
-	var mix *ModelUnit
-	for i := range m.Units {
-		if m.Units[i].Name == "mix" {
-			mix = &m.Units[i]
-		}
-	}
+	mix := unitNamed(m, "mix")
 	if mix == nil || mix.States == nil || len(mix.States.Models) != 2 || mix.States.Channel != "ctl.a.mode" {
 		t.Fatalf("model file: unit mix states %+v", mix)
 	}
@@ -370,12 +365,7 @@ func TestFoundStates(t *testing.T) {
 	fault := func(k int) bool { return k >= sNormal && sState(k) == 0 && k%1080 >= 360 }
 	cfg := sConfig(t, "units: [{name: mix, state: auto}]\n")
 	starts, over, m := sRunLag(t, cfg, nil, nil, fault, 0, true, nil)
-	var mix *ModelUnit
-	for i := range m.Units {
-		if m.Units[i].Name == "mix" {
-			mix = &m.Units[i]
-		}
-	}
+	mix := unitNamed(m, "mix")
 	if mix == nil || mix.States == nil || mix.States.Auto == nil {
 		t.Fatalf("no found states in the model file: %+v", mix)
 	}
@@ -1202,12 +1192,7 @@ func TestFoundStatesPosterior(t *testing.T) {
 	// One frame deep inside state 0 (the load at its mean): the posterior
 	// of the other state is negligible and the combination leaves the
 	// statistics as the state's own.
-	var mix *ModelUnit
-	for i := range m.Units {
-		if m.Units[i].Name == "mix" {
-			mix = &m.Units[i]
-		}
-	}
+	mix := unitNamed(m, "mix")
 	if mix == nil || mix.States == nil || mix.States.Auto == nil {
 		t.Fatalf("no found states: %+v", mix)
 	}
@@ -1232,6 +1217,16 @@ func TestFoundStatesPosterior(t *testing.T) {
 	if n := testing.AllocsPerRun(50, func() { s.combine(&comb, ci, x, miss) }); n != 0 {
 		t.Errorf("combining a frame allocates %v times", n)
 	}
+}
+
+// unitNamed returns the unit called name in the model file m, or nil.
+func unitNamed(m *ModelFile, name string) *ModelUnit {
+	for i := range m.Units {
+		if m.Units[i].Name == name {
+			return &m.Units[i]
+		}
+	}
+	return nil
 }
 
 // foundStates rebuilds the found states of a fitted unit (models held
@@ -1274,12 +1269,7 @@ func foundStates(tb testing.TB, mix *ModelUnit) *unitStates {
 func BenchmarkFoundStateScoring(b *testing.B) {
 	cfg := sConfig(b, "units: [{name: mix, state: auto}]\n")
 	m := fitBytes(b, cfg, sPlant(0, sNormal, nil, nil, 1, 0, true))
-	var mix *ModelUnit
-	for i := range m.Units {
-		if m.Units[i].Name == "mix" {
-			mix = &m.Units[i]
-		}
-	}
+	mix := unitNamed(m, "mix")
 	if mix == nil || mix.States == nil || mix.States.Auto == nil {
 		b.Fatal("no found states")
 	}
