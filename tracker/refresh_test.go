@@ -53,13 +53,7 @@ func TestRefreshFailureKeepsModel(t *testing.T) {
 				t.Fatal(err)
 			}
 			src := newGaussSource(5, corr)
-			var sc Score
-			x := make([]float64, p)
-			for k := 0; k < 300; k++ {
-				if err := tr.Step(&sc, src.frame(x), nil); err != nil {
-					t.Fatalf("frame %d: %v", k, err)
-				}
-			}
+			sc, x := stepThrough(t, tr, src, p, 300)
 			if tr.Modes().Count() == 0 {
 				t.Fatal("no modes before the failed refresh")
 			}
@@ -140,13 +134,7 @@ func TestFitFailureKeepsTracker(t *testing.T) {
 		t.Fatal(err)
 	}
 	src := newGaussSource(5, blockCorrelation(p, 4, 0.9))
-	var sc Score
-	x := make([]float64, p)
-	for k := 0; k < 300; k++ {
-		if err := tr.Step(&sc, src.frame(x), nil); err != nil {
-			t.Fatalf("frame %d: %v", k, err)
-		}
-	}
+	sc, x := stepThrough(t, tr, src, p, 300)
 	for k := 0; k < 5; k++ { // channel 3 starts a flat run of 5 frames
 		src.frame(x)
 		x[3] = 7.5

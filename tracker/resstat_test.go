@@ -91,6 +91,29 @@ func q99(v []float64) float64 {
 	return s[len(s)-(len(s)/100+1)]
 }
 
+// brokenRelation scores m frames of rp with relation 1 broken (+0.3 on
+// channel 9: six of its noise standard deviations) into sc by score
+// (Step or Evaluate), calls each after every frame, and returns the
+// number of frames whose SPE is over speLim. A scoring error ends the
+// test.
+func brokenRelation(t *testing.T, rp *relationPlant, score func(*Score, []float64, []bool) error, sc *Score, m int, speLim float64, each func()) int {
+	t.Helper()
+	x := make([]float64, 12)
+	over := 0
+	for k := 0; k < m; k++ {
+		rp.frame(x)
+		x[9] += 0.3
+		if err := score(sc, x, nil); err != nil {
+			t.Fatal(err)
+		}
+		if sc.SPE > speLim {
+			over++
+		}
+		each()
+	}
+	return over
+}
+
 // TestResidualSeesBrokenRelation: breaking one tight relation by 6 of its
 // own noise standard deviations (+0.3 on ch9, whose total sd is about 1.6)
 // is seen by the residual Mahalanobis statistic in most frames, and its
@@ -124,17 +147,9 @@ func TestResidualSeesBrokenRelation(t *testing.T) {
 	}
 	speLim, resLim := q99(speN), q99(resN)
 	rbc := make([]float64, 12)
-	overSPE, overR, named := 0, 0, 0
+	overR, named := 0, 0
 	const m = 2000
-	for k := 0; k < m; k++ {
-		rp.frame(x)
-		x[9] += 0.3
-		if err := tr.Step(&sc, x, nil); err != nil {
-			t.Fatal(err)
-		}
-		if sc.SPE > speLim {
-			overSPE++
-		}
+	overSPE := brokenRelation(t, rp, tr.Step, &sc, m, speLim, func() {
 		if sc.Residual > resLim {
 			overR++
 			tr.ResidualContributionsTo(rbc)
@@ -146,7 +161,7 @@ func TestResidualSeesBrokenRelation(t *testing.T) {
 				t.Errorf("top contributor %d, top RBC of R %d", sc.Contrib[0].Channel, argmax(rbc))
 			}
 		}
-	}
+	})
 	t.Logf("broken relation: R over its 99%% quantile in %d of %d frames (named %d), SPE in %d; %d residual dims",
 		overR, m, named, overSPE, dims)
 	if overR < m*8/10 {
@@ -275,13 +290,7 @@ func TestResidualAlwaysExists(t *testing.T) {
 				t.Fatal(err)
 			}
 			src := newGaussSource(5, blockCorrelation(p, 3, 0.8))
-			var sc Score
-			x := make([]float64, p)
-			for k := 0; k < 2000; k++ {
-				if err := tr.Step(&sc, src.frame(x), nil); err != nil {
-					t.Fatal(err)
-				}
-			}
+			sc, x := stepThrough(t, tr, src, p, 2000)
 			if sc.Modes != c.r || tr.ResidualDims() != c.dims {
 				t.Errorf("%d modes, %d residual dimensions; want %d and %d", sc.Modes, tr.ResidualDims(), c.r, c.dims)
 			}
@@ -350,24 +359,16 @@ func TestRelationModes(t *testing.T) {
 	}
 	speLim, relLim := q99(speN), q99(relN)
 	t.Logf("limits: relation χ² %.2f (99 %% quantile %.2f), SPE 99 %% quantile %.2f", sc.RelationLimit, relLim, speLim)
-	over, named, overSPE := 0, 0, 0
+	over, named := 0, 0
 	const m = 2000
-	for k := 0; k < m; k++ {
-		rp.frame(x)
-		x[9] += 0.3
-		if err := tr.Evaluate(&sc, x, nil); err != nil {
-			t.Fatal(err)
-		}
-		if sc.SPE > speLim {
-			overSPE++
-		}
+	overSPE := brokenRelation(t, rp, tr.Evaluate, &sc, m, speLim, func() {
 		if sc.Relation > relLim {
 			over++
 			if sc.RelationMode == found[0] {
 				named++
 			}
 		}
-	}
+	})
 	t.Logf("broken relation 1: relation statistic over in %d of %d frames (named %d), SPE over in %d", over, m, named, overSPE)
 	if over < m*8/10 || named < over*95/100 {
 		t.Errorf("relation statistic over its limit in %d of %d faulty frames, naming the broken relation in %d", over, m, named)

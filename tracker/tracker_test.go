@@ -472,6 +472,15 @@ func newStream(t *testing.T, p int, cfg Config) (*Tracker, *gaussSource) {
 func warmStream(t *testing.T, p int, cfg Config, n int) (*Tracker, *gaussSource, Score, []float64) {
 	t.Helper()
 	tr, src := newStream(t, p, cfg)
+	sc, x := stepThrough(t, tr, src, p, n)
+	return tr, src, sc, x
+}
+
+// stepThrough steps tr through n frames of src (p channels) and returns
+// the last frame's score and the frame buffer. A step error ends the
+// test, naming the frame.
+func stepThrough(t *testing.T, tr *Tracker, src *gaussSource, p, n int) (Score, []float64) {
+	t.Helper()
 	var sc Score
 	x := make([]float64, p)
 	for k := 0; k < n; k++ {
@@ -479,7 +488,7 @@ func warmStream(t *testing.T, p int, cfg Config, n int) (*Tracker, *gaussSource,
 			t.Fatalf("frame %d: %v", k, err)
 		}
 	}
-	return tr, src, sc, x
+	return sc, x
 }
 
 // Warm-up: no scores before WarmUp learned frames, stated in the output;
