@@ -157,6 +157,31 @@ func setFraction(hi float64, what string, field func(o *Overrides) *float64) fun
 	}
 }
 
+// setParsed reads a value of a type with a text form by parse into the
+// field of o that field returns; the normal form is the value's String.
+func setParsed[T fmt.Stringer](parse func(string) (T, error), field func(o *Overrides) *T) func(*Overrides, string) (string, error) {
+	return func(o *Overrides, s string) (string, error) {
+		v, err := parse(s)
+		if err != nil {
+			return s, err
+		}
+		*field(o) = v
+		return v.String(), nil
+	}
+}
+
+// setChecked stores the text, unchanged, in the field of o that field
+// returns once check accepts it.
+func setChecked(check func(string) error, field func(o *Overrides) *string) func(*Overrides, string) (string, error) {
+	return func(o *Overrides, s string) (string, error) {
+		if err := check(s); err != nil {
+			return s, err
+		}
+		*field(o) = s
+		return s, nil
+	}
+}
+
 // setFrames reads a whole number of frames ≥ lo.
 func setFrames(lo int, field func(o *Overrides) *int) func(*Overrides, string) (string, error) {
 	return func(o *Overrides, s string) (string, error) {
@@ -190,27 +215,14 @@ const maxOnWindow = alerts.MaxOnWindow
 var settings = []Setting{
 	{
 		Name: "sparsity", Section: "model", Model: true, Grid: true, Default: DefaultSparsity,
-		Doc: "sparsity of every mode: none|l0:K|l1:S|l0pen:G|l1pen:G|l1sqrt:G|logpen:G[,EPS]|exppen:G[,EPS]",
-		set: func(o *Overrides, s string) (string, error) {
-			if err := CheckSparsity(s); err != nil {
-				return s, err
-			}
-			o.Model.Sparsity = s
-			return s, nil
-		},
+		Doc:  "sparsity of every mode: none|l0:K|l1:S|l0pen:G|l1pen:G|l1sqrt:G|logpen:G[,EPS]|exppen:G[,EPS]",
+		set:  setChecked(CheckSparsity, func(o *Overrides) *string { return &o.Model.Sparsity }),
 		yaml: quoted,
 	},
 	{
 		Name: "modes", Section: "model", Model: true, Grid: true, Default: DefaultModes,
-		Doc: "number of modes: N or auto:SHARE",
-		set: func(o *Overrides, s string) (string, error) {
-			mc, err := ParseModeCount(s)
-			if err != nil {
-				return s, err
-			}
-			o.Model.Modes = mc
-			return mc.String(), nil
-		},
+		Doc:  "number of modes: N or auto:SHARE",
+		set:  setParsed(ParseModeCount, func(o *Overrides) *ModeCount { return &o.Model.Modes }),
 		yaml: quoted,
 	},
 	{
@@ -236,14 +248,7 @@ var settings = []Setting{
 	{
 		Name: "on_delay", Section: "alerts", Grid: true, Default: OnDelay{N: alerts.DefaultOnCount, M: alerts.DefaultOnWindow}.String(),
 		Doc: "N/M: an alarm goes active when over its limit in N of the last M frames",
-		set: func(o *Overrides, s string) (string, error) {
-			od, err := ParseOnDelay(s)
-			if err != nil {
-				return s, err
-			}
-			o.Alerts.OnDelay = od
-			return od.String(), nil
-		},
+		set: setParsed(ParseOnDelay, func(o *Overrides) *OnDelay { return &o.Alerts.OnDelay }),
 		yaml: func(text string) string {
 			od, _ := ParseOnDelay(text)
 			return fmt.Sprintf("{n: %d, m: %d}", od.N, od.M)
@@ -286,15 +291,8 @@ var settings = []Setting{
 	},
 	{
 		Name: "limits", Section: "model", Default: LimitsTheory,
-		Doc: "control limits: theory|empirical:FILE",
-		set: func(o *Overrides, s string) (string, error) {
-			l, err := ParseLimits(s)
-			if err != nil {
-				return s, err
-			}
-			o.Model.Limits = l
-			return s, nil
-		},
+		Doc:  "control limits: theory|empirical:FILE",
+		set:  setParsed(ParseLimits, func(o *Overrides) *Limits { return &o.Model.Limits }),
 		yaml: quoted,
 	},
 	{
@@ -332,24 +330,13 @@ var settings = []Setting{
 	{
 		Name: "state_scoring", Section: "model", Default: tracker.DefaultStateScoring,
 		Doc: "found operating states (state: auto): posterior (every state's model, by the frame's posterior) or most_probable",
-		set: func(o *Overrides, s string) (string, error) {
-			if err := CheckStateScoring(s); err != nil {
-				return s, err
-			}
-			o.Model.StateScoring = s
-			return s, nil
-		},
+		set: setChecked(CheckStateScoring, func(o *Overrides) *string { return &o.Model.StateScoring }),
 	},
 	{
 		Name: "statistics", Section: "model", Default: DefaultStatistics,
 		Doc: "statistics that raise alarms, a list of t2,spe,phi,res,var,rel,mewma,creep",
-		set: func(o *Overrides, s string) (string, error) {
-			if _, err := ParseStatistics(s); err != nil {
-				return s, err
-			}
-			o.Model.Statistics = s
-			return s, nil
-		},
+		set: setChecked(func(s string) error { _, err := ParseStatistics(s); return err },
+			func(o *Overrides) *string { return &o.Model.Statistics }),
 		yaml: quoted,
 	},
 }
