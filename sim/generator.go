@@ -3,6 +3,7 @@ package sim
 import (
 	"fmt"
 	"hash/fnv"
+	"iter"
 	"math"
 	"math/rand/v2"
 	"time"
@@ -269,11 +270,9 @@ func (g *Generator) Step() bool {
 func (g *Generator) channel(ci int) float64 {
 	c := &g.ch[ci]
 	anyActive := false
-	for _, r := range c.eps {
-		if g.active[r.ep] {
-			anyActive = true
-			break
-		}
+	for range g.activeEps(c) {
+		anyActive = true
+		break
 	}
 	x := g.x
 	if anyActive {
@@ -306,9 +305,8 @@ func (g *Generator) channel(ci int) float64 {
 func (g *Generator) relationDrivers(c *chanState) []float64 {
 	x := g.x
 	copied := false
-	for _, r := range c.eps {
-		e := &g.eps[r.ep]
-		if !g.active[r.ep] || e.Kind != Relation {
+	for e, pos := range g.activeEps(c) {
+		if e.Kind != Relation {
 			continue
 		}
 		if !copied {
@@ -319,7 +317,7 @@ func (g *Generator) relationDrivers(c *chanState) []float64 {
 		if e.Ramp > 0 {
 			shift *= math.Min(1, float64(g.now-e.start)/float64(e.Ramp))
 		}
-		if r.pos == 0 {
+		if pos == 0 {
 			x[e.driver] -= shift
 		} else {
 			x[e.driver] += shift
@@ -344,9 +342,8 @@ func (g *Generator) process(c *chanState, x []float64, anyActive bool) float64 {
 		}
 		gain := t.Gain
 		if anyActive {
-			for _, r := range c.eps {
-				e := &g.eps[r.ep]
-				if g.active[r.ep] && e.Kind == Effect && (t.A == e.driver || (t.Kind == Product && t.B == e.driver)) {
+			for e := range g.activeEps(c) {
+				if e.Kind == Effect && (t.A == e.driver || (t.Kind == Product && t.B == e.driver)) {
 					gain *= 1 + (e.Factor-1)*g.frac(e)
 				}
 			}
@@ -379,11 +376,7 @@ func (g *Generator) sensorNoise(c *chanState, y float64) float64 {
 // sensorFaults adds the active bias, drift, noise and spike faults of
 // channel c to y.
 func (g *Generator) sensorFaults(c *chanState, y float64) float64 {
-	for _, r := range c.eps {
-		e := &g.eps[r.ep]
-		if !g.active[r.ep] {
-			continue
-		}
+	for e := range g.activeEps(c) {
 		switch e.Kind {
 		case Bias:
 			y += e.Size
@@ -421,22 +414,30 @@ func (c *chanState) reading(y float64) float64 {
 // loses the reading.
 func (g *Generator) heldOrLost(c *chanState, y float64) (float64, bool) {
 	lost := false
-	for _, r := range c.eps {
-		e := &g.eps[r.ep]
-		if !g.active[r.ep] {
-			continue
-		}
+	for e, pos := range g.activeEps(c) {
 		switch e.Kind {
 		case Stuck:
-			if !e.heldSet[r.pos] {
-				e.held[r.pos], e.heldSet[r.pos] = y, true
+			if !e.heldSet[pos] {
+				e.held[pos], e.heldSet[pos] = y, true
 			}
-			y = e.held[r.pos]
+			y = e.held[pos]
 		case Dropout, Outage:
 			lost = true
 		}
 	}
 	return y, lost
+}
+
+// activeEps yields the episodes of channel c active at the current
+// sample, in the channel's order, each with the channel's position in it.
+func (g *Generator) activeEps(c *chanState) iter.Seq2[*epState, int] {
+	return func(yield func(*epState, int) bool) {
+		for _, r := range c.eps {
+			if g.active[r.ep] && !yield(&g.eps[r.ep], r.pos) {
+				return
+			}
+		}
+	}
 }
 
 // frac is the elapsed fraction of episode e at the current sample, in [0, 1).
