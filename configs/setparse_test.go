@@ -1,6 +1,9 @@
 package configs
 
-import "testing"
+import (
+	"strings"
+	"testing"
+)
 
 // TestSettingParseForms checks the settings read by setParsed and
 // setChecked: a good value is stored and its normal form returned (the
@@ -32,6 +35,28 @@ func TestSettingParseForms(t *testing.T) {
 		}
 		if got := c.got(o); got != c.field {
 			t.Errorf("%s %q: field %+v, want %+v", c.name, c.text, got, c.field)
+		}
+	}
+}
+
+// TestParseStatisticsEvery checks that every name of model.statistics sets
+// its own flag, and that an error lists every choice in list order.
+func TestParseStatisticsEvery(t *testing.T) {
+	got, err := ParseStatistics("creep,MEWMA, rel,var,res,phi,spe,t2")
+	want := Statistics{T2: true, SPE: true, Phi: true, Residual: true, Variance: true, Relation: true, Mewma: true, Creep: true}
+	if err != nil || got != want {
+		t.Errorf("every statistic: %+v, %v", got, err)
+	}
+	for name, one := range map[string]Statistics{"t2": {T2: true}, "spe": {SPE: true}, "phi": {Phi: true}, "res": {Residual: true},
+		"var": {Variance: true}, "rel": {Relation: true}, "mewma": {Mewma: true}, "creep": {Creep: true}} {
+		if got, err := ParseStatistics(name); err != nil || got != one {
+			t.Errorf("%q: %+v, %v", name, got, err)
+		}
+	}
+	const choices = "(choose from t2, spe, phi, res, var, rel, mewma, creep)"
+	for _, bad := range []string{"", "t2,nonesuch"} {
+		if _, err := ParseStatistics(bad); err == nil || !strings.HasSuffix(err.Error(), choices) {
+			t.Errorf("%q: error %v, want it to end %s", bad, err, choices)
 		}
 	}
 }

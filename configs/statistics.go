@@ -2,6 +2,7 @@ package configs
 
 import (
 	"fmt"
+	"slices"
 	"strings"
 )
 
@@ -37,36 +38,45 @@ type Statistics struct {
 	T2, SPE, Phi, Residual, Variance, Relation, Mewma, Creep bool
 }
 
-// statisticChoices lists the names ParseStatistics accepts, for its errors.
-const statisticChoices = "t2, spe, phi, res, var, rel, mewma, creep"
+// flags lists the names of model.statistics in list order, each with its
+// flag in st: the one list ParseStatistics reads and names in its errors.
+func (st *Statistics) flags() []statisticFlag {
+	return []statisticFlag{
+		{StatisticT2, &st.T2}, {StatisticSPE, &st.SPE}, {StatisticPhi, &st.Phi}, {StatisticResidual, &st.Residual},
+		{StatisticVariance, &st.Variance}, {StatisticRelation, &st.Relation}, {StatisticMewma, &st.Mewma}, {StatisticCreep, &st.Creep},
+	}
+}
+
+type statisticFlag struct {
+	name string
+	on   *bool
+}
+
+// statisticChoices lists the names ParseStatistics accepts, for its
+// errors: "t2, spe, …".
+func statisticChoices() string {
+	var st Statistics
+	var names []string
+	for _, f := range st.flags() {
+		names = append(names, f.name)
+	}
+	return strings.Join(names, ", ")
+}
 
 // ParseStatistics parses a model.statistics value.
 func ParseStatistics(s string) (Statistics, error) {
 	var st Statistics
 	if strings.TrimSpace(s) == "" {
-		return st, fmt.Errorf("empty list of statistics (choose from %s)", statisticChoices)
+		return st, fmt.Errorf("empty list of statistics (choose from %s)", statisticChoices())
 	}
+	flags := st.flags()
 	for _, f := range strings.Split(s, ",") {
-		switch strings.ToLower(strings.TrimSpace(f)) {
-		case StatisticT2:
-			st.T2 = true
-		case StatisticSPE:
-			st.SPE = true
-		case StatisticPhi:
-			st.Phi = true
-		case StatisticResidual:
-			st.Residual = true
-		case StatisticVariance:
-			st.Variance = true
-		case StatisticRelation:
-			st.Relation = true
-		case StatisticMewma:
-			st.Mewma = true
-		case StatisticCreep:
-			st.Creep = true
-		default:
-			return st, fmt.Errorf("unknown statistic %q (choose from %s)", strings.TrimSpace(f), statisticChoices)
+		name := strings.ToLower(strings.TrimSpace(f))
+		i := slices.IndexFunc(flags, func(fl statisticFlag) bool { return fl.name == name })
+		if i < 0 {
+			return st, fmt.Errorf("unknown statistic %q (choose from %s)", strings.TrimSpace(f), statisticChoices())
 		}
+		*flags[i].on = true
 	}
 	return st, nil
 }

@@ -48,14 +48,7 @@ func ParseModeCount(s string) (ModeCount, error) {
 }
 
 // UnmarshalText implements encoding.TextUnmarshaler.
-func (m *ModeCount) UnmarshalText(b []byte) error {
-	v, err := ParseModeCount(string(b))
-	if err != nil {
-		return err
-	}
-	*m = v
-	return nil
-}
+func (m *ModeCount) UnmarshalText(b []byte) error { return parseText(m, b, ParseModeCount) }
 
 // MarshalText implements encoding.TextMarshaler.
 func (m ModeCount) MarshalText() ([]byte, error) { return []byte(m.String()), nil }
@@ -100,12 +93,17 @@ func ParseLimits(s string) (Limits, error) {
 }
 
 // UnmarshalText implements encoding.TextUnmarshaler.
-func (l *Limits) UnmarshalText(b []byte) error {
-	v, err := ParseLimits(string(b))
+func (l *Limits) UnmarshalText(b []byte) error { return parseText(l, b, ParseLimits) }
+
+// parseText sets *dst to the value parse reads from the text b, for the
+// UnmarshalText of a type with a text form; on an error *dst is left as
+// it was.
+func parseText[T any](dst *T, b []byte, parse func(string) (T, error)) error {
+	v, err := parse(string(b))
 	if err != nil {
 		return err
 	}
-	*l = v
+	*dst = v
 	return nil
 }
 
