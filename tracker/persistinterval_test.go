@@ -353,18 +353,8 @@ func TestPersistWideCheckpoint(t *testing.T) {
 		}
 		return w, d, tr.ps.pins - p0
 	}
-	restore := func(ck []byte) *Tracker {
-		nt, err := New(p, cfg)
-		if err != nil {
-			t.Fatal(err)
-		}
-		if err := nt.UnmarshalBinary(ck); err != nil {
-			t.Fatal(err)
-		}
-		return nt
-	}
 	w0, d0, pins0 := run(tr)
-	w1, d1, pins1 := run(restore(ck))
+	w1, d1, pins1 := run(restoreTracker(t, p, cfg, ck))
 	below := 0
 	for k := range w0 {
 		if w0[k] != w1[k] || d0[k] != d1[k] {
@@ -383,10 +373,7 @@ func TestPersistWideCheckpoint(t *testing.T) {
 	if ck[at] != 1 {
 		t.Fatalf("copy flag %d at byte %d, want 1", ck[at], at)
 	}
-	v7 := append(bytes.Clone(ck[:at]), ck[at+cp:len(ck)-4]...)
-	binary.LittleEndian.PutUint16(v7[4:], 7)
-	v7 = binary.LittleEndian.AppendUint32(v7, crc32.ChecksumIEEE(v7))
-	w2, d2, _ := run(restore(v7))
+	w2, d2, _ := run(restoreTracker(t, p, cfg, asVersion(ck, 7, at, cp)))
 	same := true
 	for k := range w0 {
 		same = same && w2[k] == w0[k] && d2[k] == d0[k]
@@ -395,11 +382,5 @@ func TestPersistWideCheckpoint(t *testing.T) {
 		t.Error("a version 7 checkpoint (no copy of the factor) gave the same weights: the test cannot see the copy")
 	}
 	// A copy whose first diagonal value is not positive is refused.
-	bad := bytes.Clone(ck[:len(ck)-4])
-	binary.LittleEndian.PutUint64(bad[at+1+4+p:], math.Float64bits(-1))
-	bad = binary.LittleEndian.AppendUint32(bad, crc32.ChecksumIEEE(bad))
-	nt, _ := New(p, cfg)
-	if err := nt.UnmarshalBinary(bad); !errors.Is(err, ErrCheckpoint) {
-		t.Errorf("a copy with L₀₀ = −1: want ErrCheckpoint, got %v", err)
-	}
+	refusesFloat(t, p, cfg, ck, at+1+4+p, -1, "a copy with L₀₀ = −1")
 }
