@@ -323,6 +323,7 @@ func (e *Engine) resetAlarms(u *unit, t time.Time) {
 	g.acts.reset()
 	u.loc.extra = u.loc.extra[:0]
 	u.loc.newLoc.Reset(t)
+	u.loc.cover.clear()
 	u.point.conc.Reset(t)
 	u.point.learning = false
 	u.clearQuality()

@@ -111,6 +111,13 @@ type Rules struct {
 	// AcceptAfter is the bounded hold: an incident flat this long is taken
 	// as the new normal. Default DefaultAcceptAfter; negative: never.
 	AcceptAfter time.Duration
+	// RelearnSpan is the plant time the unit's model takes to take an
+	// accepted incident's state in (the caller's recentring window and
+	// the refresh that ends it, at its frame period, plus any score lag):
+	// the bounded hold accepts an incident that much and the off-delay
+	// before AcceptAfter, so that it has returned by then (holdbound.go).
+	// Zero: a learner that takes the state in at once.
+	RelearnSpan time.Duration
 	// NoNewPoint turns off the new-operating-point rule (newpoint.go): a
 	// model alarm of T² (and φ) alone, spread over many channels, with the
 	// residual statistics within their limits, is then an incident like
@@ -255,6 +262,9 @@ func (r Rules) validate(where string, floodEnd int) error {
 	}
 	if r.OnHold < 0 {
 		errs = append(errs, fmt.Errorf("alerts: %s: on-hold %v is negative", where, r.OnHold))
+	}
+	if r.RelearnSpan < 0 {
+		errs = append(errs, fmt.Errorf("alerts: %s: relearn span %v is negative", where, r.RelearnSpan))
 	}
 	if !(r.SpecificShare >= 0 && r.SpecificShare <= 1) {
 		errs = append(errs, fmt.Errorf("alerts: %s: specific share %v not in [0, 1]", where, r.SpecificShare))

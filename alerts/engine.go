@@ -512,7 +512,8 @@ func (e *Engine) Observe(o *Observation) error {
 		}
 		e.endAllLocated(u, t)
 		e.deactivate(u, g, t)
-	case in && g.inc != nil:
+		u.loc.cover.clear()
+	case in && (g.inc != nil || u.loc.cover.on()):
 		e.stepLocations(u, o, t)
 	}
 

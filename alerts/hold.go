@@ -106,6 +106,16 @@ const holdSettle = 3 * holdSmooth
 // holdBy names the bounded hold as the author of an automatic acceptance.
 const holdBy = "modewatch bounded hold"
 
+// holdComment is the comment of an acceptance by the bounded hold after
+// flat time flat, under accept_after after, lead before it (holdbound.go).
+func holdComment(flat, after, lead time.Duration) string {
+	s := "flat for " + flat.String() + " (accept_after " + after.String()
+	if lead > 0 {
+		s += " less the " + lead.String() + " its statistics need to return once learned"
+	}
+	return s + "): learned as the new normal"
+}
+
 // holdState is the bounded hold of one model incident.
 type holdState struct {
 	growth   time.Time // last growth of the level or the location
@@ -134,16 +144,32 @@ func (e *Engine) stepHolds(u *unit, o *Observation, t time.Time) {
 			r = s.Value / s.Limit
 		}
 	}
+	// The bound of the hold (holdbound.go) holds where the incident's
+	// channels are learned again once accepted.
+	bound := e.masking(u)
+	lead := time.Duration(0)
+	if bound {
+		lead = u.rules.acceptLead()
+	}
+	var due *incident // the first accepted incident at the end of its hold
 	for _, inc := range u.modelIncidents() {
 		l := inc.loc
-		if l == nil || l.hold.accepted != nil {
+		if l == nil {
 			continue
 		}
 		h := &l.hold
 		if h.level == 0 {
-			h.level = r
+			// The first level is where the hold starts from, not a
+			// growth: its flat time runs from the opening.
+			h.level, h.ref, h.settle = r, r, holdSettle
 		} else {
 			h.level += (r - h.level) / holdSmooth
+		}
+		if h.accepted != nil {
+			if bound && due == nil && after > 0 && t.Sub(h.growth) >= after {
+				due = inc
+			}
+			continue
 		}
 		if h.level > h.ref*(1+holdGrowth) {
 			h.growth, h.ref, h.settle = t, h.level, holdSettle
@@ -153,12 +179,17 @@ func (e *Engine) stepHolds(u *unit, o *Observation, t time.Time) {
 			h.settle--
 			h.ref = max(h.ref, h.level)
 		}
-		if after > 0 && t.Sub(h.growth) >= after {
-			h.accepted = &Ack{By: holdBy, At: t.UTC(), Comment: "flat for " + after.String() + " (accept_after): learned as the new normal"}
+		if after > 0 && t.Sub(h.growth) >= after-lead {
+			h.accepted = &Ack{By: holdBy, At: t.UTC(), Comment: holdComment(t.Sub(h.growth), after, lead)}
 			e.emit(Event{Time: t, Unit: u.name, Kind: EventAccept, AlertID: inc.id})
 			e.recentre(u, inc)
 			e.publish(inc, t)
 		}
+	}
+	u.loc.cover.step(r)
+	if due != nil {
+		e.expireHold(u, due, t) // syncs the mask
+		return
 	}
 	e.syncMask(u, t)
 }

@@ -121,6 +121,7 @@ type unitLoc struct {
 	all    []*incident // scratch: g.inc then extra
 	mask   []string    // scratch: channels of open, not accepted incidents
 	sent   []string    // the mask last handed to Masking
+	cover  holdCover   // channels of incidents past their hold, while in alarm (holdbound.go)
 }
 
 func (l *locState) holds(ch string) bool {
@@ -239,6 +240,10 @@ func (e *Engine) stepLocations(u *unit, o *Observation, t time.Time) {
 		g.inc.loc.add(frameLocation(o, lead))
 		g.inc.dirty = true
 		e.support(g.inc, o, t)
+	case first == nil && u.loc.cover.holds(lead[0]):
+		// Led by the channels of an incident that ended at the end of
+		// its hold (holdbound.go): no new incident.
+		u.loc.newLoc.Step(t, 0, 1)
 	case first == nil && !u.specific(lead, share):
 		// A frame that points at no place of its own (reopen.go) does
 		// not count towards a new location, nor does it speak for an
@@ -299,8 +304,12 @@ func (e *Engine) stepLocations(u *unit, o *Observation, t time.Time) {
 }
 
 // located reports whether ch lies in the location of an open model
-// incident of u.
+// incident of u, or of one that ended at the end of its hold while the
+// unit stays in alarm (holdbound.go).
 func (u *unit) located(ch string) bool {
+	if u.loc.cover.holds(ch) {
+		return true
+	}
 	for _, inc := range u.modelIncidents() {
 		if inc.loc != nil && inc.loc.holds(ch) {
 			return true
@@ -359,7 +368,11 @@ func (e *Engine) openLocation(u *unit, o *Observation, lead []string, t time.Tim
 		}
 	}
 	e.updateModel(inc, o, t)
-	u.loc.extra = append(u.loc.extra, inc)
+	if g.inc == nil {
+		g.inc = inc // the unit's incident ended at the end of its hold (holdbound.go)
+	} else {
+		u.loc.extra = append(u.loc.extra, inc)
+	}
 	e.remember(inc)
 	u.c.Opened++
 	u.rate.add(t)
@@ -389,11 +402,16 @@ func (e *Engine) absorbOverlaps(u *unit, inc *incident, t time.Time) *incident {
 }
 
 // leadsOnly reports whether every leading channel lies in inc's location
-// or in no open incident's location.
+// or in no open incident's location (nor among the channels covered after
+// an incident's hold ended, holdbound.go: accepted, they are not masked
+// again by a growth).
 func (e *Engine) leadsOnly(u *unit, inc *incident, lead []string) bool {
 	for _, ch := range lead {
 		if inc.loc.holds(ch) {
 			continue
+		}
+		if u.loc.cover.holds(ch) {
+			return false
 		}
 		for _, other := range u.modelIncidents() {
 			if other != inc && other.loc != nil && other.loc.holds(ch) {
@@ -531,6 +549,7 @@ func (e *Engine) restoreLocations(u *unit, su snapUnit, lookup func(string) (*in
 	if err := u.point.restore(su.Point, su.Last); err != nil {
 		return err
 	}
+	su.Cover.restore(&u.loc.cover)
 	if u.rules.SingleIncident {
 		return nil
 	}

@@ -125,6 +125,7 @@ type snapUnit struct {
 	NewLoc    *snapAlarm        `json:"new_location,omitempty"`     // on-delay of a new location
 	Recent    []string          `json:"recent_incidents,omitempty"` // model incidents that may re-open, oldest end first
 	Point     *snapPoint        `json:"new_point,omitempty"`        // the new-operating-point rule (newpoint.go)
+	Cover     *snapCover        `json:"hold_cover,omitempty"`       // channels of incidents past their hold (holdbound.go)
 }
 
 type snapshot struct {
@@ -210,6 +211,7 @@ func (e *Engine) snapshotOf(us []*unit, only string) *snapshot {
 			su.NewLoc = &nl
 		}
 		su.Point = u.point.snap()
+		su.Cover = snapCoverOf(&u.loc.cover)
 		for _, q := range u.qorder { // sorted by kind, then channel
 			su.Quality = append(su.Quality, snapQuality{Kind: q.g.qkind, Channel: q.g.chann, Alarm: snapAlarmOf(&q.a), Group: snapGroupOf(&q.g, incs)})
 		}

@@ -39,8 +39,11 @@ func newBench(seed uint64) *bench {
 func benchChannel(c int) string { return fmt.Sprintf("bench.%s.f%d", benchEquip[c/4], c%4) }
 
 // run appends d of frames.
-func (b *bench) run(d time.Duration) {
-	for end := b.t.Add(d); b.t.Before(end); b.t = b.t.Add(10 * time.Second) {
+func (b *bench) run(d time.Duration) { b.runEvery(d, 10*time.Second) }
+
+// runEvery appends d of frames every step.
+func (b *bench) runEvery(d, step time.Duration) {
+	for end := b.t.Add(d); b.t.Before(end); b.t = b.t.Add(step) {
 		for e, name := range benchEquip {
 			load := b.level[e] + b.rng.NormFloat64()
 			fmt.Fprintf(&b.lines, "bench,eq=%s ", name)

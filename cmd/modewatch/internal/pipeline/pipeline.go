@@ -145,9 +145,10 @@ func AlertsConfig(c *configs.Config) alerts.Config { return AlertsConfigAt(c, 0)
 // AlertsConfigAt is AlertsConfig at frame period period: the default
 // on-delay (3 of 5 frames) is widened to span alerts.on_span of plant time
 // (alerts.SpanOnDelay; a period of 0 leaves it); another on_delay is taken
-// as given unless on_span is set too.
+// as given unless on_span is set too. The period also sets each unit's
+// relearn span (relearnSpan; 0 with a period of 0).
 func AlertsConfigAt(c *configs.Config, period time.Duration) alerts.Config {
-	rules := func(a configs.Alerts) alerts.Rules {
+	rules := func(a configs.Alerts, m configs.Model) alerts.Rules {
 		r := alerts.Rules{
 			OnCount:  a.OnDelay.N,
 			OnWindow: a.OnDelay.M,
@@ -169,6 +170,7 @@ func AlertsConfigAt(c *configs.Config, period time.Duration) alerts.Config {
 			r.SpreadRestartsHold = *a.SpreadRestartsHold
 		}
 		r.OnCount, r.OnWindow = spanOnDelay(a, r.OnCount, r.OnWindow, period)
+		r.RelearnSpan = relearnSpan(m, period)
 		if r.OffDelay == 0 {
 			r.OffDelay = -1 // configured as zero: no off-delay
 		}
@@ -181,7 +183,7 @@ func AlertsConfigAt(c *configs.Config, period time.Duration) alerts.Config {
 	}
 	top := c.Alerts.Over(configs.DefaultAlerts())
 	ac := alerts.Config{
-		Rules:         rules(top),
+		Rules:         rules(top, c.Model.Over(configs.DefaultModel())),
 		Units:         map[string]alerts.Rules{},
 		FloodCount:    top.Flood.Count,
 		FloodWindow:   top.Flood.Window,
@@ -189,7 +191,7 @@ func AlertsConfigAt(c *configs.Config, period time.Duration) alerts.Config {
 		ChatterWindow: top.Chatter.Window,
 	}
 	for i := range c.Units {
-		ac.Units[c.Units[i].Name] = rules(c.UnitAlerts(i))
+		ac.Units[c.Units[i].Name] = rules(c.UnitAlerts(i), c.UnitModel(i))
 	}
 	return ac
 }

@@ -1,0 +1,139 @@
+package alerts
+
+import (
+	"slices"
+	"time"
+)
+
+// The bound of the hold.
+//
+// The bounded hold (hold.go) has two sides: an incident flat for
+// Rules.AcceptAfter is taken as the new normal and closes once its
+// statistics return below the limits; and no incident stays open longer
+// than its disturbance plus AcceptAfter. Accepted only after AcceptAfter
+// flat, an incident could only close later: the learner first takes the
+// accepted state in (Rules.RelearnSpan: the pipeline's recentring window
+// and the refresh that ends it, at the unit's frame period), then the
+// statistics must stay under limit·(1 − Deadband) for the off-delay. So
+// AcceptAfter is made the longest a flat incident stays open:
+//
+//   - the hold accepts a flat incident that closing time early, when its
+//     flat time reaches AcceptAfter − (RelearnSpan + OffDelay) (at most
+//     half of AcceptAfter early), so that one whose statistics return as
+//     the learner expects has closed as the new normal (EndNewNormal) by
+//     its last growth plus AcceptAfter;
+//   - an accepted incident still open at its last growth plus AcceptAfter
+//     ends there: with EndNewNormal when every statistic of the unit is
+//     below its limit by then (only the off-delay was still running),
+//     else with EndHoldElapsed. Its record keeps Accepted and the model
+//     state ModelAccepted, and its channels stay learned.
+//
+// The statistics of a unit whose incident ended by EndHoldElapsed may
+// still be over their limits: its model alarm stays in alarm (the alarm
+// states say what the statistics do), and the ended incident's channels
+// stay covered until the alarm returns to normal: frames they lead open
+// no new incident. Frames led by other channels open one on the unit's
+// on-delay as on a quiet unit (a second fault is still reported), and a
+// level that grows by holdGrowth over the level at the end uncovers them
+// (a later change in those channels is a new incident).
+
+// EndHoldElapsed: the incident had been accepted as the plant's new normal
+// and was still open at its last growth plus accept_after, the longest a
+// flat incident stays open; its channels stay learned.
+const EndHoldElapsed = "hold_elapsed"
+
+// acceptLead is how long before AcceptAfter of flat time the bounded hold
+// accepts an incident: the time its statistics need to return once it is
+// accepted, RelearnSpan + OffDelay, at most half of AcceptAfter.
+func (r *Rules) acceptLead() time.Duration {
+	return min(r.RelearnSpan+r.OffDelay, r.AcceptAfter/2)
+}
+
+// holdCover is what a unit keeps of its incidents ended by EndHoldElapsed
+// while its model alarm stays in alarm (see above).
+type holdCover struct {
+	channels []string // sorted; empty: none
+	level    float64  // smoothed largest statistic/limit ratio of the unit
+	ref      float64  // level at the last end (the largest), growth reference
+}
+
+func (c *holdCover) holds(ch string) bool {
+	_, ok := slices.BinarySearch(c.channels, ch)
+	return ok
+}
+
+func (c *holdCover) on() bool { return len(c.channels) > 0 }
+
+// add covers the channels of an incident ended at level.
+func (c *holdCover) add(chs []string, level float64) {
+	for _, ch := range chs {
+		if i, ok := slices.BinarySearch(c.channels, ch); !ok {
+			c.channels = slices.Insert(c.channels, i, ch)
+		}
+	}
+	c.level, c.ref = max(c.level, level), max(c.ref, level)
+}
+
+func (c *holdCover) clear() { c.channels, c.level, c.ref = c.channels[:0], 0, 0 }
+
+// step follows the unit's level r while channels are covered, and
+// uncovers them when it grows by holdGrowth over the reference.
+func (c *holdCover) step(r float64) {
+	if !c.on() {
+		return
+	}
+	c.level += (r - c.level) / holdSmooth
+	if c.level > c.ref*(1+holdGrowth) {
+		c.clear()
+	}
+}
+
+// expireHold ends inc, an accepted model incident of u still open at its
+// last growth plus AcceptAfter, with EndHoldElapsed, and covers its
+// channels while the unit stays in alarm. The unit's chattering episode
+// stays open (it ends by its own timer).
+func (e *Engine) expireHold(u *unit, inc *incident, t time.Time) {
+	level := inc.loc.hold.level
+	chs := inc.loc.channels
+	reason := EndHoldElapsed
+	if u.clearing() {
+		reason = EndNewNormal
+	}
+	if e.endLocated(u, inc, t, reason) && u.modelG.inAlarm {
+		u.loc.cover.add(chs, level)
+	}
+}
+
+// clearing reports whether every statistic of u is below its limit
+// (normal, or clearing: waiting out the off-delay).
+func (u *unit) clearing() bool {
+	for k := range u.stats {
+		if s := u.stats[k].State(); s == Active || s == Confirming {
+			return false
+		}
+	}
+	return true
+}
+
+// snapCover is the snapshot of a unit's holdCover.
+type snapCover struct {
+	Channels []string `json:"channels"`
+	Level    float64  `json:"level"`
+	Ref      float64  `json:"ref"`
+}
+
+func snapCoverOf(c *holdCover) *snapCover {
+	if !c.on() {
+		return nil
+	}
+	return &snapCover{Channels: slices.Clone(c.channels), Level: c.level, Ref: c.ref}
+}
+
+func (s *snapCover) restore(c *holdCover) {
+	c.clear()
+	if s == nil {
+		return
+	}
+	c.add(s.Channels, 0)
+	c.level, c.ref = s.Level, s.Ref
+}
