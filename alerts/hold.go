@@ -24,7 +24,10 @@ import (
 // as the plant's new normal: its
 // channels leave the mask and are learned again, its record says so
 // (Accepted, ModelState ModelAccepted), and it ends with EndNewNormal once
-// its statistics return below the limits. An operator can accept an
+// its statistics return below the limits. AcceptAfter is also the longest
+// a flat incident stays open: the hold accepts it early by the time its
+// statistics need to return, and ends it at its last growth plus
+// AcceptAfter if they have not (EndHoldElapsed, holdbound.go). An operator can accept an
 // incident, or every model incident of a unit, at once (OpAccept); the
 // record carries who and when, like an acknowledgement.
 //
@@ -151,7 +154,8 @@ func (e *Engine) stepHolds(u *unit, o *Observation, t time.Time) {
 	if bound {
 		lead = u.rules.acceptLead()
 	}
-	var due *incident // the first accepted incident at the end of its hold
+	var due *incident // the first incident at the end of its hold
+	below := bound && u.clearing()
 	for _, inc := range u.modelIncidents() {
 		l := inc.loc
 		if l == nil {
@@ -165,10 +169,11 @@ func (e *Engine) stepHolds(u *unit, o *Observation, t time.Time) {
 		} else {
 			h.level += (r - h.level) / holdSmooth
 		}
+		if bound && due == nil && after > 0 && t.Sub(h.growth) >= after && (h.accepted != nil || below) {
+			due = inc
+			continue
+		}
 		if h.accepted != nil {
-			if bound && due == nil && after > 0 && t.Sub(h.growth) >= after {
-				due = inc
-			}
 			continue
 		}
 		if h.level > h.ref*(1+holdGrowth) {
@@ -179,7 +184,9 @@ func (e *Engine) stepHolds(u *unit, o *Observation, t time.Time) {
 			h.settle--
 			h.ref = max(h.ref, h.level)
 		}
-		if after > 0 && t.Sub(h.growth) >= after-lead {
+		// Under the bound, a state the statistics have already left (all
+		// below their limits, the off-delay running) is not accepted.
+		if after > 0 && t.Sub(h.growth) >= after-lead && !below {
 			h.accepted = &Ack{By: holdBy, At: t.UTC(), Comment: holdComment(t.Sub(h.growth), after, lead)}
 			e.emit(Event{Time: t, Unit: u.name, Kind: EventAccept, AlertID: inc.id})
 			e.recentre(u, inc)

@@ -26,7 +26,10 @@ import (
 //     ends there: with EndNewNormal when every statistic of the unit is
 //     below its limit by then (only the off-delay was still running),
 //     else with EndHoldElapsed. Its record keeps Accepted and the model
-//     state ModelAccepted, and its channels stay learned.
+//     state ModelAccepted, and its channels stay learned. An incident
+//     whose statistics are all below their limits is not accepted (there
+//     is no state to take in); still open at the bound it ends there as
+//     EndReturned.
 //
 // The statistics of a unit whose incident ended by EndHoldElapsed may
 // still be over their limits: its model alarm stays in alarm (the alarm
@@ -52,7 +55,8 @@ func (r *Rules) acceptLead() time.Duration {
 // holdCover is what a unit keeps of its incidents ended by EndHoldElapsed
 // while its model alarm stays in alarm (see above).
 type holdCover struct {
-	channels []string // sorted; empty: none
+	active   bool     // an incident ended at its hold and the unit is still in alarm
+	channels []string // sorted; emptied by a growth
 	level    float64  // smoothed largest statistic/limit ratio of the unit
 	ref      float64  // level at the last end (the largest), growth reference
 }
@@ -62,10 +66,13 @@ func (c *holdCover) holds(ch string) bool {
 	return ok
 }
 
-func (c *holdCover) on() bool { return len(c.channels) > 0 }
+// on reports whether the unit's frames are attributed although it may
+// have no open incident (see above).
+func (c *holdCover) on() bool { return c.active }
 
 // add covers the channels of an incident ended at level.
 func (c *holdCover) add(chs []string, level float64) {
+	c.active = true
 	for _, ch := range chs {
 		if i, ok := slices.BinarySearch(c.channels, ch); !ok {
 			c.channels = slices.Insert(c.channels, i, ch)
@@ -74,29 +81,33 @@ func (c *holdCover) add(chs []string, level float64) {
 	c.level, c.ref = max(c.level, level), max(c.ref, level)
 }
 
-func (c *holdCover) clear() { c.channels, c.level, c.ref = c.channels[:0], 0, 0 }
+func (c *holdCover) clear() { c.active, c.channels, c.level, c.ref = false, c.channels[:0], 0, 0 }
 
 // step follows the unit's level r while channels are covered, and
 // uncovers them when it grows by holdGrowth over the reference.
 func (c *holdCover) step(r float64) {
-	if !c.on() {
+	if len(c.channels) == 0 {
 		return
 	}
 	c.level += (r - c.level) / holdSmooth
 	if c.level > c.ref*(1+holdGrowth) {
-		c.clear()
+		c.channels = c.channels[:0]
 	}
 }
 
-// expireHold ends inc, an accepted model incident of u still open at its
-// last growth plus AcceptAfter, with EndHoldElapsed, and covers its
+// expireHold ends inc, a model incident of u still open at its last
+// growth plus AcceptAfter, accepted or with the unit's statistics below
+// their limits (see above for the end reason), and covers its
 // channels while the unit stays in alarm. The unit's chattering episode
 // stays open (it ends by its own timer).
 func (e *Engine) expireHold(u *unit, inc *incident, t time.Time) {
 	level := inc.loc.hold.level
 	chs := inc.loc.channels
 	reason := EndHoldElapsed
-	if u.clearing() {
+	switch {
+	case inc.loc.hold.accepted == nil:
+		reason = EndReturned // below the limits, not accepted
+	case u.clearing():
 		reason = EndNewNormal
 	}
 	if e.endLocated(u, inc, t, reason) && u.modelG.inAlarm {
@@ -126,7 +137,7 @@ func snapCoverOf(c *holdCover) *snapCover {
 	if !c.on() {
 		return nil
 	}
-	return &snapCover{Channels: slices.Clone(c.channels), Level: c.level, Ref: c.ref}
+	return &snapCover{Channels: append([]string{}, c.channels...), Level: c.level, Ref: c.ref}
 }
 
 func (s *snapCover) restore(c *holdCover) {

@@ -487,7 +487,9 @@ type Alerts struct {
 	IncidentsPerLocation *bool `yaml:"incidents_per_location"`
 	// AcceptAfter is the bounded hold: an incident whose statistics stay
 	// flat (no growth) this long of plant time is taken as the new normal
-	// and its channels are learned again. Zero: the alarm engine's default
+	// and its channels are learned again; it is the longest a flat
+	// incident stays open (accepted that early that it has closed by
+	// then, ended there otherwise). Zero: the alarm engine's default
 	// ([alerts.DefaultAcceptAfter], chosen on the realism suite); a very
 	// long one (8760h) in effect never.
 	AcceptAfter time.Duration `yaml:"accept_after"`
