@@ -18,8 +18,8 @@ import (
 // AcceptAfter is made the longest a flat incident stays open:
 //
 //   - the hold accepts a flat incident that closing time early, when its
-//     flat time reaches AcceptAfter − (RelearnSpan + OffDelay) (at most
-//     half of AcceptAfter early), so that one whose statistics return as
+//     flat time reaches AcceptAfter − (RelearnSpan + 2·OffDelay) (at most
+//     half of AcceptAfter early, acceptLead), so that one whose statistics return as
 //     the learner expects has closed as the new normal (EndNewNormal) by
 //     its last growth plus AcceptAfter;
 //   - an accepted incident still open at its last growth plus AcceptAfter
@@ -47,9 +47,14 @@ const EndHoldElapsed = "hold_elapsed"
 
 // acceptLead is how long before AcceptAfter of flat time the bounded hold
 // accepts an incident: the time its statistics need to return once it is
-// accepted, RelearnSpan + OffDelay, at most half of AcceptAfter.
+// accepted, RelearnSpan + 2·OffDelay, at most half of AcceptAfter. The
+// off-delay counts twice: once for the statistics to settle under their
+// limits after the learner's refresh (they cross back over now and then
+// in its first minutes, restarting the off-delay), once to clear (design
+// choice, from the time accepted incidents took to close on the realism
+// suite over seeds: the README, The bound of the hold).
 func (r *Rules) acceptLead() time.Duration {
-	return min(r.RelearnSpan+r.OffDelay, r.AcceptAfter/2)
+	return min(r.RelearnSpan+2*r.OffDelay, r.AcceptAfter/2)
 }
 
 // holdCover is what a unit keeps of its incidents ended by EndHoldElapsed

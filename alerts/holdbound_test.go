@@ -30,8 +30,8 @@ func holdBoundScript(h *harness, from, end float64) {
 }
 
 // TestHoldBound: a flat incident is accepted accept_after (10 min) less the
-// time its statistics need to return (here the off-delay, 5 min: no
-// learner) after its opening and, its statistics still over the limits,
+// time its statistics need to return (twice the off-delay with no
+// learner, capped at half of accept_after: 5 min) after its opening and, its statistics still over the limits,
 // ends at its start plus accept_after with end reason hold_elapsed, model
 // state accepted, its channel out of the mask. The unit stays in alarm:
 // frames still led by the accepted channel open no new incident, a second
@@ -52,8 +52,8 @@ func TestHoldBound(t *testing.T) {
 	if flat.Accepted == nil || flat.Accepted.By != holdBy {
 		t.Fatalf("flat incident not accepted by the hold: %+v", flat.Accepted)
 	}
-	if got, want := flat.Accepted.At.Sub(flat.Start), after-DefaultOffDelay; got < want || got > want+2*time.Second {
-		t.Errorf("accepted %v after its start, want %v (accept_after less the off-delay)", got, want)
+	if got, want := flat.Accepted.At.Sub(flat.Start), after/2; got < want || got > want+2*time.Second {
+		t.Errorf("accepted %v after its start, want %v (half of accept_after)", got, want)
 	}
 	if flat.End == nil || !flat.End.Equal(flat.Start.Add(after)) || flat.EndReason != EndHoldElapsed || flat.ModelState != ModelAccepted {
 		t.Errorf("flat incident: end %v reason %q state %q, want ended at its start plus accept_after (%v), hold_elapsed, accepted",

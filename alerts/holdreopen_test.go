@@ -35,11 +35,12 @@ func TestHoldReopenKeepsHold(t *testing.T) {
 	}
 	// The hold runs from its opening (the location widening to the twelve
 	// channels of the move does not restart it, spread_restarts_hold
-	// false); it accepts the off-delay (5 min, the time its statistics
-	// need to return once learned, no learner here) before accept_after.
-	lead := DefaultOffDelay
+	// false); it accepts twice the off-delay (10 min, the time its
+	// statistics need to return once learned, no learner here) before
+	// accept_after.
+	lead := 2 * DefaultOffDelay
 	if got := r.Accepted.At.Sub(r.Start); got < after-lead || got > after-lead+10*time.Minute {
-		t.Errorf("accepted %v after its start, want accept_after (%v) less the off-delay (%v), plus at most 10 min", got, after, lead)
+		t.Errorf("accepted %v after its start, want accept_after (%v) less twice the off-delay (%v), plus at most 10 min", got, after, lead)
 	}
 	// Its statistics stay up (nothing learns here): it ends at the end of
 	// its hold, its start plus accept_after, within its disturbance.

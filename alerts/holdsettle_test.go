@@ -6,7 +6,8 @@ import (
 )
 
 // TestHoldSettles: a fault that steps up and then stays flat is accepted
-// AcceptAfter after its growth (less the off-delay, holdbound.go),
+// AcceptAfter after its growth (less the time its statistics need to
+// return, capped at half of AcceptAfter, holdbound.go),
 // although its level wanders a little above
 // a quarter over the level the growth was first noticed at. The growth is
 // noticed while the smoothed level is still catching up with the step
@@ -32,8 +33,8 @@ func TestHoldSettles(t *testing.T) {
 		h.frame(at, r(at), []string{"u.a"}, "u.a")
 	}
 	// The step was noticed about 21 frames in (the smoothed level passing
-	// 2.5), at about 121 s, so the hold accepts it 600 s less the
-	// off-delay (300 s) after that, at about 421 s.
+	// 2.5), at about 121 s, so the hold accepts it 600 s less its cap
+	// of half (300 s) after that, at about 421 s.
 	a := h.last().Accepted
 	if a == nil {
 		t.Fatalf("a flat fault was not accepted 10 min after its growth (frames to %v)", at)

@@ -9,7 +9,7 @@ import (
 // TestHoldSpreadAtFlatLevel: a disturbance whose level stays flat (φ at 3
 // times its limit) but whose leading channels spread, after 200 s, from
 // u.a to u.b as well (the location grows after growFrames frames) is
-// accepted accept_after (10 min, less the off-delay) after its start by
+// accepted accept_after (10 min, less its cap of half) after its start by
 // default: the hold is on the statistics, and they did not grow. It ends
 // by its start plus accept_after. Under
 // Rules.SpreadRestartsHold the location's growth restarts the hold and
@@ -43,14 +43,14 @@ func TestHoldSpreadAtFlatLevel(t *testing.T) {
 		}
 		return r
 	}
-	// The hold accepts the off-delay (5 min, no learner here) before
-	// accept_after; φ stays at 3, so the incident ends at the end of its
+	// The hold accepts twice the off-delay (no learner here), capped at
+	// half of accept_after (5 min), before accept_after; φ stays at 3, so the incident ends at the end of its
 	// hold (holdbound.go).
-	hold := after - DefaultOffDelay
+	hold := after / 2
 	r := run(false)
 	// The hold runs from the opening (the 3rd frame, at 2 s).
 	if got := r.Accepted.At.Sub(r.Start); got < hold || got > hold+5*time.Second {
-		t.Errorf("default: accepted %v after its start, want accept_after less the off-delay (%v)", got, hold)
+		t.Errorf("default: accepted %v after its start, want half of accept_after (%v)", got, hold)
 	}
 	if due := r.Start.Add(after); r.End.After(due) {
 		t.Errorf("default: closed at %v, after its start plus accept_after (%v)", r.End, due)

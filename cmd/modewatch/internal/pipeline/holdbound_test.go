@@ -14,8 +14,8 @@ import (
 // raises an incident that is accepted as the new normal and closed no
 // later than its start plus accept_after, at 5 s and at 60 s frames: the
 // hold accepts it the unit's relearn span (31 frames: 2 min 35 s at 5 s,
-// 31 min at 60 s) and the off-delay (5 min) early, so that the widening
-// has taken the state in and the off-delay has run by then. Before, it
+// 31 min at 60 s) and twice the off-delay (2 × 5 min) early, so that the
+// widening has taken the state in and the off-delay has run by then. Before, it
 // was accepted at its start plus accept_after and closed only after the
 // widening and the off-delay (about 8 and 36 min later). Its record says
 // so: model state accepted, end reason new_normal (or hold_elapsed where
