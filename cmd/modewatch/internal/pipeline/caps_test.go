@@ -33,6 +33,57 @@ func TestMaxChannelsMessage(t *testing.T) {
 	}
 }
 
+// TestStateBoundPersist: the tracker state of a wide unit with the
+// persistence weight on (model.persist, which keeps a copy of the residual
+// factor) stays within the bound a model file's or checkpoint's state is
+// checked against (maxStateBytes), with room to spare; the same unit
+// without the weight is smaller, so the test sees the copy.
+func TestStateBoundPersist(t *testing.T) {
+	if testing.Short() {
+		t.Skip("builds trackers of 1000 channels")
+	}
+	for _, p := range []int{400, 1000} {
+		size := func(persist float64) int {
+			m := configs.DefaultModel()
+			m.WarmUp = 100
+			cfg, err := TrackerConfig(m, time.Second, p, false)
+			if err != nil {
+				t.Fatal(err)
+			}
+			cfg.Persist = persist // as the unit's learner sets it (location.go)
+			tr, err := tracker.New(p, cfg)
+			if err != nil {
+				t.Fatal(err)
+			}
+			rng := rand.New(rand.NewPCG(2, uint64(p)))
+			x := make([]float64, p)
+			var sc tracker.Score
+			for k := 0; k < 3*p/2; k++ { // more frames than channels: a full-rank covariance
+				for i := range x {
+					x[i] = rng.NormFloat64()
+				}
+				if err := tr.Step(&sc, x, nil); err != nil {
+					t.Fatal(err)
+				}
+			}
+			st, err := tr.MarshalBinary()
+			if err != nil {
+				t.Fatal(err)
+			}
+			return len(st)
+		}
+		on, off := size(3.5), size(-1)
+		t.Logf("p=%d: state %.1f·p² with the weight, %.1f·p² without; bound %.1f·p²", p,
+			float64(on)/float64(p*p), float64(off)/float64(p*p), float64(maxStateBytes(p))/float64(p*p))
+		if on <= off {
+			t.Errorf("p=%d: state %d bytes with the weight, %d without: the copy of the factor is not in it", p, on, off)
+		}
+		if float64(on) > 0.9*float64(maxStateBytes(p)) {
+			t.Errorf("p=%d: state %d bytes with the weight, bound %d: less than 10 %% to spare", p, on, maxStateBytes(p))
+		}
+	}
+}
+
 // TestUnitModelBytes checks the memory estimate against the live heap of
 // a tracker of p channels after warm-up under the default settings
 // (standard normal invented data), within 25 %.
