@@ -5,6 +5,7 @@ import (
 	"flag"
 	"fmt"
 	"os"
+	"slices"
 	"strings"
 	"time"
 
@@ -61,6 +62,25 @@ func (m *modelFlags) register(fs *flag.FlagSet, withConfig bool) {
 		m.values[st.Name] = fs.String(st.Flag(), "", usage)
 	}
 	fs.StringVar(&m.period, "period", "", "frame period, e.g. 10s (default: from the configuration, else inferred from the data)")
+}
+
+// modelFileSettings are the settings a fitted model file fixes for the
+// units it holds (pipeline.ModelSettings): a unit's tracker state is valid
+// only under the settings it was fitted with, so replay and run use the
+// file's values for those units.
+var modelFileSettings = []string{"sparsity", "modes", "halflife", "alpha", "warmup", "refresh_every",
+	"statistics", "smoothing", "mewma_lambda", "creep_lambda"}
+
+// fixedByModel returns the flags given (after load) for settings that a
+// fitted model file fixes for its units, in the settings' order.
+func (m *modelFlags) fixedByModel() []string {
+	var out []string
+	for _, st := range configs.Settings() {
+		if m.set[st.Flag()] && slices.Contains(modelFileSettings, st.Name) {
+			out = append(out, st.Flag())
+		}
+	}
+	return out
 }
 
 // load reads the configuration (or starts from defaults), applies the

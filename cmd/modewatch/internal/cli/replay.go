@@ -40,7 +40,10 @@ period is inferred from the data.
 Without --model each unit learns from the start (warm-up, then scoring while
 adapting). With --model the units start from a fitted baseline and go on
 adapting, frozen while an alert is active; --adapt=false holds the model
-fixed.
+fixed. A fitted unit keeps the model settings it was fitted with
+(sparsity, modes, halflife, alpha, warmup, refresh_every, statistics,
+smoothing, mewma_lambda, creep_lambda): such flags apply only to units the
+model file does not hold, and replay says so on standard error.
 
 Input "-" is standard input; files ending in .gz (or gzip content) are
 decompressed. Bad lines are reported with file:line:column and counted; the
@@ -139,6 +142,11 @@ func runReplay(ctx context.Context, env IO, args []string) error {
 	if model != "" {
 		if baseline, err = pipeline.ReadModel(model); err != nil {
 			return usagef("--model: %v", err)
+		}
+		// Said, not silently dropped: the file's units keep the settings
+		// they were fitted with.
+		for _, f := range mf.fixedByModel() {
+			fmt.Fprintf(env.Err, "replay: --%s applies only to units the model file %s does not hold: its units keep the setting they were fitted with (fit again to change it)\n", f, model)
 		}
 	}
 	if out.prepare, err = empiricalLimits(cfg, baseline); err != nil {

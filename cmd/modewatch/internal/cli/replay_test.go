@@ -360,6 +360,57 @@ func TestReplayUsage(t *testing.T) {
 	}
 }
 
+// TestReplayModelFixesSettings: with --model, a fitted unit keeps the
+// model settings it was fitted with (its tracker state is valid only under
+// them), so --halflife and --alpha do not change its scores; replay says
+// so for each such flag on standard error instead of dropping it silently,
+// while an alarm flag (--on-delay) is not named. Without
+// --model nothing is said. Invented data (the demo plant's first 12 h).
+func TestReplayModelFixesSettings(t *testing.T) {
+	if testing.Short() {
+		t.Skip("fits the demo plant's first 12 h")
+	}
+	p, _ := demoLog(t, 12)
+	dir := t.TempDir()
+	model := filepath.Join(dir, "model.json")
+	if code, _, errs := runCLI(t, "", "fit", "--quiet", "--out", model, p); code != ExitOK {
+		t.Fatalf("fit: exit %d: %s", code, errs)
+	}
+	scores := func(args ...string) (string, string) {
+		out := filepath.Join(dir, "scores.lp")
+		code, _, errs := runCLI(t, "", append([]string{"replay", "--quiet", "--scores", out, "--model", model, p}, args...)...)
+		if code != ExitOK {
+			t.Fatalf("replay %v: exit %d: %s", args, code, errs)
+		}
+		b, err := os.ReadFile(out)
+		if err != nil {
+			t.Fatal(err)
+		}
+		return string(b), errs
+	}
+	plain, errs := scores()
+	if strings.Contains(errs, "applies only to units") {
+		t.Errorf("no model flag given, yet: %s", errs)
+	}
+	flagged, errs := scores("--halflife", "1d", "--alpha", "0.001")
+	for _, f := range []string{"--halflife", "--alpha"} {
+		if !strings.Contains(errs, "replay: "+f+" applies only to units the model file") {
+			t.Errorf("stderr does not name %s: %q", f, errs)
+		}
+	}
+	if _, errs := scores("--on-delay", "5/8"); strings.Contains(errs, "applies only to units") {
+		t.Errorf("an alarm flag was named as fixed by the model file: %q", errs)
+	}
+	// The claim itself: the fitted units' scores (T², SPE, limits) are the
+	// same without and with those flags.
+	if plain != flagged {
+		t.Error("--halflife/--alpha changed the scores of the model file's units")
+	}
+	if code, _, errs := runCLI(t, "", "replay", "--quiet", "--halflife", "1d", p); code != ExitOK || strings.Contains(errs, "applies only to units") {
+		t.Errorf("without --model: exit %d, %q", code, errs)
+	}
+}
+
 // scoreLine is one line of a --scores file.
 type scoreLine struct {
 	unit   string
