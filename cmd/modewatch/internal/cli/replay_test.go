@@ -360,6 +360,20 @@ func TestReplayUsage(t *testing.T) {
 	}
 }
 
+// fitDemo fits the demo plant's first hours (invented data) with the
+// default settings into a model file in a temporary directory and returns
+// the log, the model file and fit's summary; a failed fit ends the test.
+func fitDemo(t *testing.T, hours int) (log, model, summary string) {
+	t.Helper()
+	log, _ = demoLog(t, hours)
+	model = filepath.Join(t.TempDir(), "model.json")
+	code, out, errs := runCLI(t, "", "fit", "--quiet", "--out", model, log)
+	if code != ExitOK {
+		t.Fatalf("fit: exit %d: %s", code, errs)
+	}
+	return log, model, out
+}
+
 // TestReplayModelFixesSettings: with --model, a fitted unit keeps the
 // model settings it was fitted with (its tracker state is valid only under
 // them), so --halflife and --alpha do not change its scores; replay says
@@ -370,12 +384,8 @@ func TestReplayModelFixesSettings(t *testing.T) {
 	if testing.Short() {
 		t.Skip("fits the demo plant's first 12 h")
 	}
-	p, _ := demoLog(t, 12)
-	dir := t.TempDir()
-	model := filepath.Join(dir, "model.json")
-	if code, _, errs := runCLI(t, "", "fit", "--quiet", "--out", model, p); code != ExitOK {
-		t.Fatalf("fit: exit %d: %s", code, errs)
-	}
+	p, model, _ := fitDemo(t, 12)
+	dir := filepath.Dir(model)
 	scores := func(args ...string) (string, string) {
 		out := filepath.Join(dir, "scores.lp")
 		code, _, errs := runCLI(t, "", append([]string{"replay", "--quiet", "--scores", out, "--model", model, p}, args...)...)
@@ -480,13 +490,8 @@ func TestFitBudget(t *testing.T) {
 	if testing.Short() {
 		t.Skip("fits a day of the demo plant three times")
 	}
-	p, _ := demoLog(t, 24)
-	dir := t.TempDir()
-	model := filepath.Join(dir, "model.json")
-	code, out, errs := runCLI(t, "", "fit", "--quiet", "--out", model, p)
-	if code != ExitOK {
-		t.Fatalf("fit: exit %d: %s", code, errs)
-	}
+	p, model, out := fitDemo(t, 24)
+	dir := filepath.Dir(model)
 	if !strings.Contains(out, "budget 0.25 false alerts/day: limits ×") || !strings.Contains(out, "days of normal log needed") ||
 		!strings.Contains(out, "a week of normal running should bring 0 to ") {
 		t.Errorf("summary lacks the calibration, the week's predictive interval or the too-short warning:\n%s", out)
@@ -517,7 +522,7 @@ func TestFitBudget(t *testing.T) {
 	if err := os.WriteFile(cfg, []byte("alerts:\n  budget: -1\n"), 0o644); err != nil {
 		t.Fatal(err)
 	}
-	code, out, errs = runCLI(t, "", "fit", "--quiet", "--json", "--config", cfg, "--out", filepath.Join(dir, "off.json"), p)
+	code, out, errs := runCLI(t, "", "fit", "--quiet", "--json", "--config", cfg, "--out", filepath.Join(dir, "off.json"), p)
 	if code != ExitOK {
 		t.Fatalf("fit with the budget off: exit %d: %s", code, errs)
 	}
