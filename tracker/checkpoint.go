@@ -308,6 +308,17 @@ func (r *ckReader) floats(dst []float64, what string) {
 	}
 }
 
+// vectors reads a section of len(names) vectors of p floats each, every
+// one named for the errors, into fresh slices.
+func (r *ckReader) vectors(p int, names ...string) [][]float64 {
+	vs := make([][]float64, len(names))
+	for i, what := range names {
+		vs[i] = make([]float64, p)
+		r.floats(vs[i], what)
+	}
+	return vs
+}
+
 // UnmarshalBinary restores a state written by MarshalBinary into a tracker
 // made by New with the same number of channels and the same Config. The
 // data is checked completely (length, checksum, version, channel count,
@@ -449,10 +460,8 @@ func (t *Tracker) decodeCheckpoint(data []byte) (*ckState, error) {
 			return nil, err
 		}
 		if has {
-			st.vq, st.vl, st.vn = make([]float64, p), make([]float64, p), make([]float64, p)
-			r.floats(st.vq, "variance EWMA")
-			r.floats(st.vl, "variance normal levels")
-			r.floats(st.vn, "variance level counts")
+			v := r.vectors(p, "variance EWMA", "variance normal levels", "variance level counts")
+			st.vq, st.vl, st.vn = v[0], v[1], v[2]
 		}
 	}
 	if version >= 5 {
@@ -461,8 +470,7 @@ func (t *Tracker) decodeCheckpoint(data []byte) (*ckState, error) {
 			return nil, err
 		}
 		if has {
-			st.mz = make([]float64, p)
-			r.floats(st.mz, "MEWMA smoothed frame")
+			st.mz = r.vectors(p, "MEWMA smoothed frame")[0]
 		}
 	}
 	if version >= 6 {
@@ -471,10 +479,8 @@ func (t *Tracker) decodeCheckpoint(data []byte) (*ckState, error) {
 			return nil, err
 		}
 		if has {
-			st.pz, st.pl, st.pw = make([]float64, p), make([]float64, p), make([]float64, p)
-			r.floats(st.pz, "persist smoothed frame")
-			r.floats(st.pl, "persist levels")
-			r.floats(st.pw, "persist level weights")
+			v := r.vectors(p, "persist smoothed frame", "persist levels", "persist level weights")
+			st.pz, st.pl, st.pw = v[0], v[1], v[2]
 			st.pWeight = r.f64("persist weight")
 			st.pN = int(r.u32("persist frames"))
 			if version >= 8 {
@@ -490,12 +496,8 @@ func (t *Tracker) decodeCheckpoint(data []byte) (*ckState, error) {
 			return nil, err
 		}
 		if has {
-			st.cz, st.cs, st.cv, st.cn, st.cm = make([]float64, p), make([]float64, p), make([]float64, p), make([]float64, p), make([]float64, p)
-			r.floats(st.cz, "creep smoothed frame")
-			r.floats(st.cs, "creep smoothed residuals")
-			r.floats(st.cv, "creep normal variances")
-			r.floats(st.cn, "creep variance counts")
-			r.floats(st.cm, "creep normalisers")
+			v := r.vectors(p, "creep smoothed frame", "creep smoothed residuals", "creep normal variances", "creep variance counts", "creep normalisers")
+			st.cz, st.cs, st.cv, st.cn, st.cm = v[0], v[1], v[2], v[3], v[4]
 		}
 	}
 	nm := int(r.u32("modes length"))

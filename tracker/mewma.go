@@ -171,15 +171,24 @@ func (t *Tracker) SetMewmaScale(c float64) {
 	}
 }
 
-// ResetMewma starts the MEWMA statistic again from z̄ = 0 (see mewma: a
-// model entered from another operating state), and the smoothed frame of
-// the persistence weight (persist) with it. Without either it does
-// nothing.
+// ResetMewma starts the MEWMA statistic again from z̄ = 0 (see mewma).
+// Without Config.Mewma it does nothing.
 func (t *Tracker) ResetMewma() {
 	if t.mw != nil {
 		clear(t.mw.zbar)
 	}
+}
+
+// ResetSmoothing starts every smoothed frame of the tracker again from
+// z̄ = 0: the MEWMA statistic's, the persistence weight's and the creep
+// statistic's (which keeps its normal variances), as for a model entered
+// from another operating state, whose smoothed frames are from the last
+// time it ran. The one place a new smoothed state is reset with the others;
+// what is off is left alone.
+func (t *Tracker) ResetSmoothing() {
+	t.ResetMewma()
 	t.resetPersist(nil)
+	t.ResetCreep()
 }
 
 // resetMewmaChannels sets z̄ᵢ = 0 for the channels set in which (a

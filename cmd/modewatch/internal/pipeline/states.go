@@ -219,10 +219,9 @@ func (u *Unit) newState(key float64, t time.Time) int {
 func (u *Unit) switchState(i int) {
 	s := u.states
 	if i != s.cur {
-		// Its MEWMA statistic's smoothed frame is from the last time the
-		// state ran: start it again (tracker.ResetMewma).
-		s.models[i].tr.ResetMewma()
-		s.models[i].tr.ResetCreep()
+		// Its smoothed frames are from the last time the state ran: start
+		// them again (tracker.ResetSmoothing).
+		s.models[i].tr.ResetSmoothing()
 	}
 	if s.cur >= 0 {
 		s.models[s.cur].score, u.score = u.score, s.models[s.cur].score
