@@ -1,6 +1,8 @@
 package alerts
 
 import (
+	"fmt"
+	"math"
 	"slices"
 	"time"
 )
@@ -145,11 +147,17 @@ func snapCoverOf(c *holdCover) *snapCover {
 	return &snapCover{Channels: append([]string{}, c.channels...), Level: c.level, Ref: c.ref}
 }
 
-func (s *snapCover) restore(c *holdCover) {
+// restore sets c from s (nil: nothing covered); a level or reference
+// that is negative or not finite is refused, as for an incident's hold.
+func (s *snapCover) restore(c *holdCover) error {
 	c.clear()
 	if s == nil {
-		return
+		return nil
+	}
+	if !(s.Level >= 0) || !(s.Ref >= 0) || math.IsInf(s.Level, 0) || math.IsInf(s.Ref, 0) {
+		return fmt.Errorf("hold cover: level %v, reference %v", s.Level, s.Ref)
 	}
 	c.add(s.Channels, 0)
 	c.level, c.ref = s.Level, s.Ref
+	return nil
 }

@@ -549,7 +549,9 @@ func (e *Engine) restoreLocations(u *unit, su snapUnit, lookup func(string) (*in
 	if err := u.point.restore(su.Point, su.Last); err != nil {
 		return err
 	}
-	su.Cover.restore(&u.loc.cover)
+	if err := su.Cover.restore(&u.loc.cover); err != nil {
+		return err
+	}
 	if u.rules.SingleIncident {
 		return nil
 	}

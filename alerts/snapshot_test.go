@@ -161,6 +161,14 @@ func TestRestoreRejects(t *testing.T) {
 			t.Errorf("%s: %v, want the bounded hold refused", bad, err)
 		}
 	}
+	// So is a unit's hold cover (holdbound.go) with a level or reference
+	// that is negative or not a number.
+	for _, cover := range []string{`"level":-1,"ref":1`, `"level":1,"ref":-0.5`} {
+		bad := `{"version":2,"units":[{"name":"u","hold_cover":{"channels":["u.a"],` + cover + `}}]}`
+		if err := e.Restore(strings.NewReader(bad)); err == nil || !strings.Contains(err.Error(), "hold cover") {
+			t.Errorf("%s: %v, want the hold cover refused", bad, err)
+		}
+	}
 }
 
 // TestSnapshotUnit: one unit's state, snapshotted alone at any frame and
