@@ -191,7 +191,7 @@ func TestCheckpointBaseline(t *testing.T) {
 // width field), restores with bit-identical scores.
 func TestCheckpointVersion1(t *testing.T) {
 	const p = 7
-	cfg := Config{Period: time.Second, HalfLife: 10 * time.Minute, WarmUp: 40, RefreshEvery: 8, Batch: 16, Modes: modes.Config{Count: 2}}
+	cfg := Config{Period: time.Second, HalfLife: 10 * time.Minute, WarmUp: 40, RefreshEvery: 8, Batch: 16, Modes: modes.Config{Count: 2}, Persist: -1}
 	tr, src, ck := steppedTracker(t, p, cfg, 101)
 	// Header: magic 4, version 2, p 4, fingerprint 8, flags 1, frames 8,
 	// learned 8, since 4, then the u32 initial width (version 2 on). The
@@ -264,9 +264,10 @@ func steppedTracker(t *testing.T, p int, cfg Config, n int) (*Tracker, *gaussSou
 
 // stateCheckpointConfig is the learning of the statistics' checkpoint
 // tests (two modes, batches of 4, a refresh every 16 frames), without the
-// statistic each of them sets on.
+// statistic each of them sets on, and with the persistence weight off
+// (its own tests set it), so the byte layouts they read hold its flag 0.
 func stateCheckpointConfig() Config {
-	return Config{Period: time.Second, HalfLife: 10 * time.Minute, WarmUp: 60, RefreshEvery: 16, Batch: 4, Modes: modes.Config{Count: 2}}
+	return Config{Period: time.Second, HalfLife: 10 * time.Minute, WarmUp: 60, RefreshEvery: 16, Batch: 4, Modes: modes.Config{Count: 2}, Persist: -1}
 }
 
 // replayCheck steps a tracker of p channels under cfg through n frames of
