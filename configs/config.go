@@ -39,17 +39,17 @@ const (
 	MaxChannelsCeiling = 100000
 	// DefaultUnitMaxChannels caps the channels of one unit's model. A
 	// unit's model needs about UnitModelBytesSq·p² + UnitModelBytesLin·p
-	// bytes, so 2000 channels fit in about 180 MB, and with one checkpoint
-	// being written or received beside it in under 256 MiB.
+	// bytes, so 2000 channels take about 260 MB by that estimate, and with
+	// one checkpoint being written or received beside it about 310 MB.
 	DefaultUnitMaxChannels = 2000
 	// UnitModelBytesSq and UnitModelBytesLin are the coefficients of a
 	// unit's model size in bytes for p channels, UnitModelBytesSq·p² +
 	// UnitModelBytesLin·p: the estimate the engine makes
 	// (pipeline.UnitModelBytes, where they are measured and checked) and
 	// the size max_channels is validated against.
-	UnitModelBytesSq  = 42
+	UnitModelBytesSq  = 62
 	UnitModelBytesLin = 6000
-	// UnitMaxChannelsCeiling bounds model.max_channels (about 4.2 GB).
+	// UnitMaxChannelsCeiling bounds model.max_channels (about 6.3 GB).
 	UnitMaxChannelsCeiling = 10000
 
 	// DefaultSparsity is the sparse-mode constraint of every mode: an l0

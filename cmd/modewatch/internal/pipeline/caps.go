@@ -13,31 +13,36 @@ import (
 )
 
 // UnitModelBytes estimates the memory of a unit's model of p channels in
-// bytes: 42·p² + 6000·p (configs.UnitModelBytesSq and UnitModelBytesLin,
+// bytes: 62·p² + 6000·p (configs.UnitModelBytesSq and UnitModelBytesLin,
 // which the configuration's checks use too). The coefficients are fitted
-// to the live heap of a tracker after warm-up with the default settings (p = 400, 800, 1600:
-// 5.1, 15.8 and 54.5 MB without the residual statistic; with it, the
-// default since model.statistics gained res, 7.8 and 26.3 MB at p = 400
-// and 800; with the refresh's candidate correlation, 8·p² more, 9.2 and
-// 31.5 MB), and the test TestUnitModelBytes checks them again. The p²
-// term is the covariance, the correlation and the candidate a refresh
-// forms beside it (so that a failed refresh keeps the model whole), the
-// refresh workspace (18·p²) and the residual statistic's factor and its
-// inverse (16·p²); a checkpoint of the unit adds about 9·p² while it is
-// written.
+// to the live heap of a tracker after warm-up with the default settings
+// (p = 400 and 800: 12.4 and 44.3 MB with the persistence weight,
+// model.persist, on by default since its calibration was mended; 9.2 and
+// 31.5 MB without it; 5.1 and 15.8 MB before the residual statistic
+// joined the defaults), and the test TestUnitModelBytes checks them
+// again. The p² term is the covariance, the correlation and the
+// candidate a refresh forms beside it (so that a failed refresh keeps the
+// model whole), the refresh workspace (18·p²), the residual statistic's
+// factor and its inverse (16·p²) and, in a unit of more than 64 channels,
+// the persistence weight's copy of that factor with its packed rows
+// (20·p² more, measured); a checkpoint of the unit adds about 13·p² while it is
+// written. A unit of 64 channels or fewer keeps no copy, so the estimate
+// is high for it and for a unit with model.persist off.
 func UnitModelBytes(p int) int64 {
 	q := int64(p)
 	return configs.UnitModelBytesSq*q*q + configs.UnitModelBytesLin*q
 }
 
-// maxStateBytes bounds the size of a tracker state of p channels (the
-// measured states take 8.2·p² … 11.7·p² bytes from p = 100 up, plus the
-// batch buffer and the modes for small p; with model.persist on, a unit
-// of more than 64 channels also keeps the persistence weight's packed copy
-// of the residual factor: 13.3·p² at p = 400 and 12.5·p² at p = 1000, 76 %
-// and 89 % of this bound, TestStateBoundPersist).
+// maxStateBytes bounds the size of a tracker state of p channels: 16·p²
+// bytes plus linear terms. Measured states take 8.2·p² … 11.7·p² bytes
+// from p = 100 up without the persistence weight, plus the batch buffer
+// and the modes for small p; with the weight (model.persist, on by
+// default), a unit of more than 64 channels also keeps the weight's
+// copy of the residual factor's lower triangle, 4·p² more: 13.3·p² at
+// p = 400 and 12.5·p² at p = 1000, 62 % and 69 % of this bound
+// (TestStateBoundPersist), and about 12·p² for the widest units.
 func maxStateBytes(p int) int {
-	return 12*p*p + 2048*p + 64<<10
+	return 16*p*p + 2048*p + 64<<10
 }
 
 // checkState checks one tracker state of p channels: its length against
