@@ -8,7 +8,7 @@ const (
 	// conditional standard deviations of one channel's relation to the
 	// others. Negative: off. Chosen on the realism suite and the demo
 	// together (README, Validation).
-	DefaultPersist = -1.0
+	DefaultPersist = 3.5
 	// DefaultPersistLambda is the EWMA weight λ of the smoothed frame the
 	// persistence weight looks at: a memory of about 1/λ = 20 frames.
 	DefaultPersistLambda = 0.05
