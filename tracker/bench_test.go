@@ -68,9 +68,9 @@ func newBenchTrackerResidual(b *testing.B, sc *Score, p, refreshEvery, batch, wa
 	if learnMissing {
 		learn = LearnRidgeMissing
 	}
-	persist := 0.0 // the default
+	persist := -1.0 // off: the residual statistic's own cost
 	if benchPersist {
-		persist = 3
+		persist = DefaultPersist
 	}
 	tr, err := New(p, Config{Period: time.Second, HalfLife: time.Hour, WarmUp: 256, RefreshEvery: refreshEvery, Batch: batch,
 		Residual: residual, Ridge: ridge, LearnRidge: learn, Persist: persist, Creep: benchCreep,
@@ -310,7 +310,9 @@ var benchCreep bool
 var shareRidge bool
 
 // BenchmarkFramePersistOverDecode is BenchmarkFrameResidualOverDecode
-// with the persistence weight of learning on (Config.Persist 3): at
+// with the persistence weight of learning on (Config.Persist at its
+// default, as the service runs; BenchmarkFrameResidualOverDecode and the
+// other residual benchmarks leave it off, to show each cost alone): at
 // p = 500 every persistInterval(p) = 8 learned frames the forward and back
 // solves for Ωz̄ under the weight's copy of the factor, and every 8
 // refreshes that copy and its diagonal of Ω.
@@ -320,7 +322,8 @@ func BenchmarkFramePersistOverDecode(b *testing.B) {
 	benchOverDecodeResidual(b, -1, 0, true)
 }
 
-// benchPersist sets Persist = 3 in newBenchTrackerResidual.
+// benchPersist sets Persist = DefaultPersist in newBenchTrackerResidual
+// (otherwise off).
 var benchPersist bool
 
 // BenchmarkFrameResidualMaskedOwnRidgeOverDecode is
