@@ -881,21 +881,30 @@ func (e *Engine) updateModel(inc *incident, o *Observation, t time.Time) bool {
 		return false
 	}
 	// Contributors and missing channels at the frame of the peak; the
-	// incident's buffers are reused.
+	// incident's buffers are reused. The channels over their own control
+	// limit come first (overLimit), then the others, each group in the
+	// order of the observation (by RBC).
 	n := min(len(o.Contributors), e.cfg.MaxContributors)
 	for len(inc.contrib) < n {
 		inc.contrib = append(inc.contrib, RecordContributor{})
 	}
 	inc.contrib = inc.contrib[:n]
-	for i := 0; i < n; i++ {
-		c := &o.Contributors[i]
-		d := &inc.contrib[i]
-		d.Rank, d.Channel = i+1, c.Channel
-		// Clamped into their ranges: rounding can leave an RBC of -1e-17.
-		d.Share = min(max(finite(c.Share), 0), 1)
-		d.RBC, d.RBCLimit = max(finite(c.RBC), 0), max(finite(c.Limit), 0)
-		d.Modes = append(d.Modes[:0], c.Modes...)
-		d.setExpected(c)
+	k := 0
+	for _, over := range [2]bool{true, false} {
+		for i := range o.Contributors {
+			c := &o.Contributors[i]
+			if k == n || overLimit(c) != over {
+				continue
+			}
+			d := &inc.contrib[k]
+			k++
+			d.Rank, d.Channel = k, c.Channel
+			// Clamped into their ranges: rounding can leave an RBC of -1e-17.
+			d.Share = min(max(finite(c.Share), 0), 1)
+			d.RBC, d.RBCLimit = max(finite(c.RBC), 0), max(finite(c.Limit), 0)
+			d.Modes = append(d.Modes[:0], c.Modes...)
+			d.setExpected(c)
+		}
 	}
 	inc.missing = append(inc.missing[:0], o.Missing...)
 	sev := severityIndex(u.rules.Severity, inc.peak.Ratio)

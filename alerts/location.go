@@ -183,6 +183,11 @@ func leading(dst []string, o *Observation) ([]string, float64) {
 	return dst, share
 }
 
+// overLimit reports whether c's reconstruction-based contribution is over
+// its own control limit: such a channel is significant for the alarm on
+// its own, whatever its share of the index.
+func overLimit(c *Contributor) bool { return c.Limit > 0 && c.RBC > c.Limit }
+
 // IsLeading reports whether a contributor with reconstruction-based
 // contribution rbc and limit lim is leading, given the RBC of the first
 // leading contributor of the frame (0 while there is none): over its
