@@ -51,6 +51,7 @@ func TestRunExitsWhenReadingsStall(t *testing.T) {
 		t.Skip("waits 10 s for the stall limit")
 	}
 	srv := natstest.Run(t, natstest.Options())
+	subs := srv.NumSubscriptions() // the server's own (system account, JetStream)
 	cfg := filepath.Join(t.TempDir(), "stall.yaml")
 	os.WriteFile(cfg, []byte("frames: {period: 1s}\nserver: {urls: ["+srv.ClientURL()+"]}\nintake: {stall_exit: 10s}\nhttp: {listen: \"off\"}\n"+
 		"state_dir: "+filepath.Join(t.TempDir(), "data")+"\nshutdown_timeout: 2s\n"), 0o600)
@@ -63,9 +64,11 @@ func TestRunExitsWhenReadingsStall(t *testing.T) {
 		code, _, errs := runCLI(t, "", "run", "--config", cfg)
 		done <- result{code, errs}
 	}()
-	// Once it runs, take the server away.
+	// Once it runs and has subscribed to the readings, take the server
+	// away (taken away between the connection and the subscription, the
+	// subscription fails instead, a different exit).
 	deadline := time.Now().Add(time.Minute)
-	for srv.NumClients() == 0 {
+	for srv.NumClients() == 0 || srv.NumSubscriptions() <= subs {
 		if time.Now().After(deadline) {
 			t.Fatal("run never connected")
 		}
