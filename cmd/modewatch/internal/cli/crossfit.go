@@ -32,14 +32,15 @@ func calibrationFolds(cfg *configs.Config) int {
 // for it, which in the alarm engine also turns off the learning around
 // open incidents by reconstruction (alerts.Rules.NoFreeze), so it neither
 // freezes nor masks (the service masks; scoring the held-out part with
-// the masking, measured on the realism suite, raised the scales and lost
-// detections: README, A persistence weight of learning). And it does not
-// weigh frames by the persistence weight (model.persist): the held-out
-// part is normal by the user's word, as the part the model learned on,
-// where fit learns the weight's levels and weighs nothing; weighed, a
-// held-out day that first visits an operating point the learned part
-// did not show stays refused, and its block maxima (a jump that outlasts
-// the half-day) leave no regular extreme-value fit.
+// the masking, measured on the realism suite, lost detections and raised
+// the demo's false alerts: README, A persistence weight of learning).
+// And it does not weigh frames by the persistence weight
+// (model.persist): the held-out part is normal by the user's word, as
+// the part the model learned on, where fit learns the weight's levels
+// and weighs nothing; weighed, a held-out day that first visits an
+// operating point the learned part did not show stays refused, and its
+// block maxima (a jump that outlasts the half-day) leave no regular
+// extreme-value fit.
 func heldOutRatios(ctx context.Context, env IO, cfg *configs.Config, inputs []string, mf modelFlags, from, to time.Time, folds int) (*pipeline.RatioRecorder, float64, error) {
 	quiet := runOutputs{quiet: true}
 	cfgB := *cfg

@@ -25,9 +25,9 @@ import (
 // model whole), the refresh workspace (18·p²), the residual statistic's
 // factor and its inverse (16·p²) and, in a unit of more than 64 channels,
 // the persistence weight's copy of that factor with its packed rows
-// (20·p² more, measured); a checkpoint of the unit adds about 13·p² while it is
-// written. A unit of 64 channels or fewer keeps no copy, so the estimate
-// is high for it and for a unit with model.persist off.
+// (20·p² more, measured); a checkpoint of the unit adds about 13·p²
+// while it is written. A unit of 64 channels or fewer keeps no copy, so
+// the estimate is high for it and for a unit with model.persist off.
 func UnitModelBytes(p int) int64 {
 	q := int64(p)
 	return configs.UnitModelBytesSq*q*q + configs.UnitModelBytesLin*q
@@ -40,7 +40,8 @@ func UnitModelBytes(p int) int64 {
 // default), a unit of more than 64 channels also keeps the weight's
 // copy of the residual factor's lower triangle, 4·p² more: 13.3·p² at
 // p = 400 and 12.5·p² at p = 1000, 62 % and 69 % of this bound
-// (TestStateBoundPersist), and about 12·p² for the widest units.
+// (TestStateBoundPersist); about 12·p² for the widest units by the same
+// count (an estimate, not measured).
 func maxStateBytes(p int) int {
 	return 16*p*p + 2048*p + 64<<10
 }
