@@ -186,7 +186,11 @@ func statScales(t []time.Time, ratios [][nStatistics]float64, rule alerts.AlarmR
 		if len(have) < minBlocks {
 			continue
 		}
-		f, err := limits.FitGEV(have)
+		fitGEV := limits.FitGEV
+		if unboundedTail(gr, j) {
+			fitGEV = limits.FitGEVUnbounded
+		}
+		f, err := fitGEV(have)
 		if err != nil || !(f.Sigma > 0) {
 			continue
 		}
