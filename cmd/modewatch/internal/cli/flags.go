@@ -9,6 +9,7 @@ import (
 	"strings"
 	"time"
 
+	"modewatch/cmd/modewatch/internal/pipeline"
 	"modewatch/configs"
 )
 
@@ -64,19 +65,19 @@ func (m *modelFlags) register(fs *flag.FlagSet, withConfig bool) {
 	fs.StringVar(&m.period, "period", "", "frame period, e.g. 10s (default: from the configuration, else inferred from the data)")
 }
 
-// modelFileSettings are the settings a fitted model file fixes for the
-// units it holds (pipeline.ModelSettings): a unit's tracker state is valid
-// only under the settings it was fitted with, so replay and run use the
-// file's values for those units.
-var modelFileSettings = []string{"sparsity", "modes", "halflife", "alpha", "warmup", "refresh_every",
-	"statistics", "smoothing", "mewma_lambda", "creep_lambda"}
+// keptMessage says that setting k of the configuration does not apply to
+// the units of the model file that it names.
+func keptMessage(k pipeline.KeptSetting, file string) string {
+	return fmt.Sprintf("model.%s %s in the configuration does not apply to unit(s) %s of the model file %s: they keep %s, the value they were fitted with (fit again to change it)",
+		k.Name, k.Configured, strings.Join(k.Units, ", "), file, k.Fitted)
+}
 
 // fixedByModel returns the flags given (after load) for settings that a
 // fitted model file fixes for its units, in the settings' order.
 func (m *modelFlags) fixedByModel() []string {
 	var out []string
 	for _, st := range configs.Settings() {
-		if m.set[st.Flag()] && slices.Contains(modelFileSettings, st.Name) {
+		if m.set[st.Flag()] && slices.Contains(pipeline.FixedSettings(), st.Name) {
 			out = append(out, st.Flag())
 		}
 	}

@@ -10,6 +10,7 @@ import (
 	"io"
 	"log/slog"
 	"os"
+	"slices"
 	"sort"
 	"strings"
 	"sync"
@@ -145,8 +146,14 @@ func runReplay(ctx context.Context, env IO, args []string) error {
 		}
 		// Said, not silently dropped: the file's units keep the settings
 		// they were fitted with.
-		for _, f := range mf.fixedByModel() {
+		flags := mf.fixedByModel()
+		for _, f := range flags {
 			fmt.Fprintf(env.Err, "replay: --%s applies only to units the model file %s does not hold: its units keep the setting they were fitted with (fit again to change it)\n", f, model)
+		}
+		for _, k := range baseline.Kept(cfg) {
+			if !slices.Contains(flags, strings.ReplaceAll(k.Name, "_", "-")) {
+				fmt.Fprintf(env.Err, "replay: %s\n", keptMessage(k, model))
+			}
 		}
 	}
 	if out.prepare, err = empiricalLimits(cfg, baseline); err != nil {

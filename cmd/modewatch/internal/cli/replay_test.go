@@ -419,6 +419,29 @@ func TestReplayModelFixesSettings(t *testing.T) {
 	if code, _, errs := runCLI(t, "", "replay", "--quiet", "--halflife", "1d", p); code != ExitOK || strings.Contains(errs, "applies only to units") {
 		t.Errorf("without --model: exit %d, %q", code, errs)
 	}
+	// The same settings from a configuration file are named too, once
+	// each, with the units and both values; a flag given as well is named
+	// as a flag only, and the scores stay those of the fitted settings.
+	cfg := filepath.Join(dir, "fixed.yaml")
+	if err := os.WriteFile(cfg, []byte("model:\n  alpha: 0.002\n  halflife: 2d\nunits:\n  - name: air\n    model: {warmup: 300}\n"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	configured, errs := scores("--config", cfg, "--halflife", "1d")
+	for _, want := range []string{
+		"replay: model.alpha 0.002 in the configuration does not apply to unit(s) air, chill, coolwater, steam of the model file " + model + ": they keep 0.01, the value they were fitted with",
+		"replay: model.warmup 300 in the configuration does not apply to unit(s) air of the model file",
+		"replay: --halflife applies only to units the model file",
+	} {
+		if !strings.Contains(errs, want) {
+			t.Errorf("stderr lacks %q:\n%s", want, errs)
+		}
+	}
+	if strings.Contains(errs, "model.halflife") {
+		t.Errorf("halflife named from the configuration although its flag was given:\n%s", errs)
+	}
+	if configured != plain {
+		t.Error("the configuration's model settings changed the scores of the model file's units")
+	}
 }
 
 // scoreLine is one line of a --scores file.

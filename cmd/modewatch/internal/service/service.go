@@ -16,6 +16,7 @@ import (
 	"os"
 	"path/filepath"
 	"sort"
+	"strings"
 	"sync"
 	"sync/atomic"
 	"time"
@@ -140,6 +141,12 @@ func Start(ctx context.Context, opt Options) (_ *Service, err error) {
 	if cfg.Model.File != "" {
 		if baseline, err = pipeline.ReadModel(cfg.Model.File); err != nil {
 			return nil, err
+		}
+		// Said, not silently dropped: the file's units keep the model
+		// settings they were fitted with.
+		for _, k := range baseline.Kept(cfg) {
+			log.Warn("a model setting of the configuration does not apply to units of the model file: they keep the value they were fitted with (fit again to change it)",
+				"setting", "model."+k.Name, "configured", k.Configured, "fitted", k.Fitted, "units", strings.Join(k.Units, ","), "file", cfg.Model.File)
 		}
 	}
 	period := cfg.Frames.Period
