@@ -150,15 +150,25 @@ func (f GEVFit) quad(g [3]float64) float64 {
 // estimates, then the observed information by central differences for
 // Cov. It needs at least 5 finite maxima with some spread. It allocates
 // (a per-calibration call, not a per-frame one).
-func FitGEV(x []float64) (GEVFit, error) {
+func FitGEV(x []float64) (GEVFit, error) { return fitML(x, true) }
+
+// fitML is the maximum-likelihood fit of FitGEV (free shape) and, with
+// free false, of FitGumbel (ξ held at 0): the parameters are (μ, log σ)
+// and, free, ξ; the observed information is taken in (μ, σ[, ξ]) and its
+// inverse fills Cov (the row and column of a fixed ξ stay 0).
+func fitML(x []float64, free bool) (GEVFit, error) {
+	name, k := "Gumbel fit", 2
+	if free {
+		name, k = "GEV fit", 3
+	}
 	n := len(x)
 	if n < 5 {
-		return GEVFit{}, fmt.Errorf("%w: GEV fit needs at least 5 block maxima, got %d", ErrDomain, n)
+		return GEVFit{}, fmt.Errorf("%w: %s needs at least 5 block maxima, got %d", ErrDomain, name, n)
 	}
 	mean, ss := 0.0, 0.0
 	for _, v := range x {
 		if math.IsNaN(v) || math.IsInf(v, 0) {
-			return GEVFit{}, fmt.Errorf("%w: GEV fit: non-finite maximum %v", ErrDomain, v)
+			return GEVFit{}, fmt.Errorf("%w: %s: non-finite maximum %v", ErrDomain, name, v)
 		}
 		mean += v / float64(n)
 	}
@@ -167,12 +177,18 @@ func FitGEV(x []float64) (GEVFit, error) {
 	}
 	sd := math.Sqrt(ss / float64(n-1))
 	if !(sd > 0) {
-		return GEVFit{}, fmt.Errorf("%w: GEV fit: the %d maxima are all equal", ErrDomain, n)
+		return GEVFit{}, fmt.Errorf("%w: %s: the %d maxima are all equal", ErrDomain, name, n)
+	}
+	xi := func(v []float64) float64 {
+		if free {
+			return v[2]
+		}
+		return 0
 	}
 	s0 := sd * math.Sqrt(6) / math.Pi
-	x0 := []float64{mean - 0.5772156649*s0, math.Log(s0), 0.1}
+	x0 := []float64{mean - 0.5772156649*s0, math.Log(s0), 0.1}[:k]
 	nll := func(v []float64) float64 {
-		l := GEV{v[0], math.Exp(v[1]), v[2]}.LogLik(x)
+		l := GEV{v[0], math.Exp(v[1]), xi(v)}.LogLik(x)
 		if math.IsInf(l, -1) || math.IsNaN(l) {
 			return math.MaxFloat64 / 4
 		}
@@ -187,33 +203,36 @@ func FitGEV(x []float64) (GEVFit, error) {
 			&optimize.Settings{MajorIterations: 5000, Converger: &optimize.FunctionConverge{Absolute: 1e-12, Iterations: 200}},
 			&optimize.NelderMead{})
 		if err != nil && res == nil {
-			return GEVFit{}, fmt.Errorf("limits: GEV fit: %w", err)
+			return GEVFit{}, fmt.Errorf("limits: %s: %w", name, err)
 		}
 		if res.F <= bestF {
 			best, bestF = res.X, res.F
 		}
 	}
-	g := GEV{best[0], math.Exp(best[1]), best[2]}
+	g := GEV{best[0], math.Exp(best[1]), xi(best)}
 	fit := GEVFit{GEV: g, LogLik: -bestF, N: n}
-	// Observed information in (μ, σ, ξ).
-	h := mat.NewSymDense(3, nil)
+	// Observed information in (μ, σ[, ξ]).
+	h := mat.NewSymDense(k, nil)
 	fd.Hessian(h, func(v []float64) float64 {
-		l := GEV{v[0], v[1], v[2]}.LogLik(x)
+		l := GEV{v[0], v[1], xi(v)}.LogLik(x)
 		if math.IsInf(l, -1) {
 			return math.MaxFloat64 / 4
 		}
 		return -l
-	}, []float64{g.Mu, g.Sigma, g.Xi}, &fd.Settings{Formula: fd.Central, Step: 1e-4 * g.Sigma})
+	}, []float64{g.Mu, g.Sigma, g.Xi}[:k], &fd.Settings{Formula: fd.Central, Step: 1e-4 * g.Sigma})
 	var ch mat.Cholesky
 	if !ch.Factorize(h) {
-		return fit, fmt.Errorf("%w: GEV fit: observed information not positive definite (ξ = %.3g)", ErrDomain, g.Xi)
+		if free {
+			return fit, fmt.Errorf("%w: %s: observed information not positive definite (ξ = %.3g)", ErrDomain, name, g.Xi)
+		}
+		return fit, fmt.Errorf("%w: %s: observed information not positive definite", ErrDomain, name)
 	}
 	var cov mat.SymDense
 	if err := ch.InverseTo(&cov); err != nil {
-		return fit, fmt.Errorf("limits: GEV fit: %w", err)
+		return fit, fmt.Errorf("limits: %s: %w", name, err)
 	}
-	for i := 0; i < 3; i++ {
-		for j := 0; j < 3; j++ {
+	for i := 0; i < k; i++ {
+		for j := 0; j < k; j++ {
 			fit.Cov[i][j] = cov.At(i, j)
 		}
 	}
