@@ -185,8 +185,9 @@ func leading(dst []string, o *Observation) ([]string, float64) {
 
 // overLimit reports whether c's reconstruction-based contribution is over
 // its own control limit: such a channel is significant for the alarm on
-// its own, whatever its share of the index.
-func overLimit(c *Contributor) bool { return c.Limit > 0 && c.RBC > c.Limit }
+// its own, whatever its share of the index (IsLeading with no first
+// leading contributor yet).
+func overLimit(c *Contributor) bool { return IsLeading(c.RBC, c.Limit, 0) }
 
 // IsLeading reports whether a contributor with reconstruction-based
 // contribution rbc and limit lim is leading, given the RBC of the first

@@ -72,13 +72,14 @@ func keptMessage(k pipeline.KeptSetting, file string) string {
 		k.Name, k.Configured, strings.Join(k.Units, ", "), file, k.Fitted)
 }
 
-// fixedByModel returns the flags given (after load) for settings that a
-// fitted model file fixes for its units, in the settings' order.
+// fixedByModel returns the names of the settings given by flag (after
+// load) that a fitted model file fixes for its units, in the settings'
+// order.
 func (m *modelFlags) fixedByModel() []string {
 	var out []string
 	for _, st := range configs.Settings() {
 		if m.set[st.Flag()] && slices.Contains(pipeline.FixedSettings(), st.Name) {
-			out = append(out, st.Flag())
+			out = append(out, st.Name)
 		}
 	}
 	return out

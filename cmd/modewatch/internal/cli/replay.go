@@ -30,7 +30,7 @@ func init() {
 		summary: "score a recorded log frame by frame, as the live service would", run: runReplay})
 }
 
-const replayHelp = `
+var replayHelp = `
 Replay recorded line protocol through the same engine as the live service:
 decode, map and align the readings into frames, score every frame of every
 unit (T², SPE and φ against control limits, contributions by channel) and
@@ -41,10 +41,11 @@ period is inferred from the data.
 Without --model each unit learns from the start (warm-up, then scoring while
 adapting). With --model the units start from a fitted baseline and go on
 adapting, frozen while an alert is active; --adapt=false holds the model
-fixed. A fitted unit keeps the model settings it was fitted with
-(sparsity, modes, halflife, alpha, warmup, refresh_every, statistics,
-smoothing, mewma_lambda, creep_lambda): such flags apply only to units the
-model file does not hold, and replay says so on standard error.
+fixed. A fitted unit keeps the model settings it was fitted with,
+  `+strings.Join(pipeline.FixedSettings(), ", ")+`:
+such flags, and such settings of the configuration changed from their
+defaults, apply only to units the model file does not hold, and replay
+says so on standard error.
 
 Input "-" is standard input; files ending in .gz (or gzip content) are
 decompressed. Bad lines are reported with file:line:column and counted; the
@@ -146,12 +147,12 @@ func runReplay(ctx context.Context, env IO, args []string) error {
 		}
 		// Said, not silently dropped: the file's units keep the settings
 		// they were fitted with.
-		flags := mf.fixedByModel()
-		for _, f := range flags {
-			fmt.Fprintf(env.Err, "replay: --%s applies only to units the model file %s does not hold: its units keep the setting they were fitted with (fit again to change it)\n", f, model)
+		flagged := mf.fixedByModel()
+		for _, name := range flagged {
+			fmt.Fprintf(env.Err, "replay: --%s applies only to units the model file %s does not hold: its units keep the setting they were fitted with (fit again to change it)\n", configs.LookupSetting(name).Flag(), model)
 		}
 		for _, k := range baseline.Kept(cfg) {
-			if !slices.Contains(flags, strings.ReplaceAll(k.Name, "_", "-")) {
+			if !slices.Contains(flagged, k.Name) {
 				fmt.Fprintf(env.Err, "replay: %s\n", keptMessage(k, model))
 			}
 		}
