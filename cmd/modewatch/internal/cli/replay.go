@@ -42,7 +42,7 @@ Without --model each unit learns from the start (warm-up, then scoring while
 adapting). With --model the units start from a fitted baseline and go on
 adapting, frozen while an alert is active; --adapt=false holds the model
 fixed. A fitted unit keeps the model settings it was fitted with,
-  `+strings.Join(pipeline.FixedSettings(), ", ")+`:
+  ` + strings.Join(pipeline.FixedSettings(), ", ") + `:
 such flags, and such settings of the configuration changed from their
 defaults, apply only to units the model file does not hold, and replay
 says so on standard error.
