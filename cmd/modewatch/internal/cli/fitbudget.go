@@ -6,7 +6,6 @@ import (
 	"math"
 	"time"
 
-	"modewatch/alerts"
 	"modewatch/cmd/modewatch/internal/pipeline"
 	"modewatch/configs"
 )
@@ -92,7 +91,7 @@ func printCalibration(env IO, u pipeline.ModelUnit) {
 	}
 	if len(c.Scales) > 0 {
 		fmt.Fprintf(env.Out, "  per statistic (same tail probability, the whole rule at the budget):")
-		for _, n := range []string{alerts.StatT2, alerts.StatSPE, alerts.StatPhi, alerts.StatResidual, alerts.StatVariance, alerts.StatRelation, alerts.StatMewma, alerts.StatCreep} {
+		for _, n := range pipeline.StatisticNames() {
 			if v, ok := c.Scales[n]; ok {
 				fmt.Fprintf(env.Out, " %s ×%.3f", n, v)
 			}

@@ -24,6 +24,11 @@ func alarmStats(m configs.Model) configs.Statistics {
 var statNames = [nStatistics]string{alerts.StatT2, alerts.StatSPE, alerts.StatPhi,
 	alerts.StatResidual, alerts.StatVariance, alerts.StatRelation, alerts.StatMewma, alerts.StatCreep}
 
+// StatisticNames returns the names of the alarm statistics in their fixed
+// order (the order in which a calibration's per-statistic scales are
+// shown).
+func StatisticNames() []string { return append([]string(nil), statNames[:]...) }
+
 // The slots of the statistics in statNames.
 const (
 	slotT2 = iota
