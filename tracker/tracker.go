@@ -266,9 +266,10 @@ type Config struct {
 	// channel from its relation to the others in the smoothed frames
 	// learned, so a slow departure from a tight relation that stays under
 	// the per-frame limits is not absorbed within hours. Default
-	// DefaultPersist; negative: off (weight 1). Needs Residual, Variance
-	// or Mewma (the factor of Ω); costs p²/2 to p² multiply-adds per
-	// learned frame and p values of state. PersistLambda is the EWMA
+	// DefaultPersist; negative: off (weight 1). Needs Residual, Variance,
+	// Mewma or Creep (the factor of Ω; without any, every weight is 1);
+	// costs p²/2 to p² multiply-adds per learned frame and p values of
+	// state. PersistLambda is the EWMA
 	// weight λ of the smoothed frames, in (0, 1] (default
 	// DefaultPersistLambda).
 	Persist, PersistLambda float64
