@@ -156,3 +156,43 @@ func TestSpikeScreenAllocs(t *testing.T) {
 		t.Errorf("conditions %v, want spikes", q)
 	}
 }
+
+// TestSpikeCountMargin: with a normal log that had at most `most` spikes
+// within the span, the channel is in alarm once the span holds more than
+// most + SpikeMargin spikes and its last quarter more than a quarter of
+// that, and not before (the rule's definition; the margin is a design
+// choice made on the realism suite).
+func TestSpikeCountMargin(t *testing.T) {
+	const span, now = 180, 1000 // an hour at 20 s
+	// spikes returns n spike frames, gap apart, the newest at last.
+	spikes := func(n int, last, gap int64) []int64 {
+		f := make([]int64, n)
+		for i := range f {
+			f[i] = last - int64(n-1-i)*gap
+		}
+		return f
+	}
+	for _, most := range []int{0, 2} {
+		lim := most + SpikeMargin
+		for _, c := range []struct {
+			name   string
+			spikes []int64
+			want   bool
+		}{
+			{"the margin reached, not passed", spikes(lim, now-1, 10), false},
+			{"one past the margin, recent", spikes(lim+1, now-1, 10), true},
+			{"one past the margin, none in the last quarter", spikes(lim+1, now-span/4-1, 5), false},
+			{"one past the margin, the oldest before the span", append([]int64{now - span - 1}, spikes(lim, now-1, 10)...), false},
+		} {
+			var s spikeTrack
+			for _, k := range c.spikes {
+				s.ring[s.head] = k
+				s.head = (s.head + 1) % MaxSpikeCount
+				s.n++
+			}
+			if got := s.inAlarm(now, span, most); got != c.want {
+				t.Errorf("%s: most %d, spikes at %v, now %d: in alarm %v, want %v", c.name, most, c.spikes, now, got, c.want)
+			}
+		}
+	}
+}
