@@ -19,7 +19,8 @@ import "math"
 // while a return to the old operating point stays normal too, which a
 // move of the means (Recentre) would turn into a new alarm. The widening
 // fades with the unit's forgetting like any other frame. It does nothing
-// on a frozen tracker, and allocates nothing.
+// on a frozen tracker, and allocates nothing. It is [Tracker.DeviationTo]
+// followed by the widening of [Tracker.WidenBy] on every channel.
 func (t *Tracker) Widen(x []float64, which []bool, w float64) {
 	if len(x) != t.p || len(which) != t.p {
 		panic("tracker: Widen: length mismatch")
@@ -27,30 +28,86 @@ func (t *Tracker) Widen(x []float64, which []bool, w float64) {
 	if !(w > 0) || math.IsInf(w, 0) || t.frozen || t.baseline {
 		return
 	}
+	d := t.DeviationTo(t.ew.d, x, which)
+	t.widen(d, w, false)
+}
+
+// DeviationTo fills dst (len p) with the deviation of x from the EW
+// means on the channels set in which, in channel units, and returns it:
+//
+//	dstᵢ = xᵢ − μᵢ (a channel in which, learned at least once, xᵢ finite), else 0
+//
+// It is the deviation [Tracker.Widen] adds; [Tracker.WidenBy] adds a
+// deviation taken this way under another model (another operating state
+// of the same unit). It folds the frames buffered for the covariance
+// first and allocates nothing. It panics on a length mismatch.
+func (t *Tracker) DeviationTo(dst, x []float64, which []bool) []float64 {
+	if len(dst) != t.p || len(x) != t.p || len(which) != t.p {
+		panic("tracker: DeviationTo: length mismatch")
+	}
 	e := t.ew
 	e.Flush()
-	d := e.d
-	any := false
 	for i, on := range which {
-		d[i] = 0
+		dst[i] = 0
 		if on && e.count[i] > 0 && !math.IsNaN(x[i]) && !math.IsInf(x[i], 0) {
-			d[i] = x[i] - e.mean[i]
-			any = any || d[i] != 0
+			dst[i] = x[i] - e.mean[i]
 		}
 	}
-	if !any {
+	return dst
+}
+
+// WidenBy adds a deviation d (len p, channel units), taken under another
+// model of the same channels ([Tracker.DeviationTo]), to the EW covariance
+// with weight w > 0, on the channels this tracker's model holds now:
+//
+//	C ← C + w·d̃d̃ᵀ,   d̃ᵢ = dᵢ for a channel in the model, else 0
+//
+// The means stay where they are. A channel out of the model (stuck, at
+// rest in this operating state, warming up) takes nothing: a deviation
+// seen where it moved would give a channel at rest a spread it does not
+// have. Before the tracker has a model, and on a frozen tracker or one
+// held as a fitted baseline, it does nothing, as Widen. By the
+// Sherman–Morrison formula a state whose deviation from this model's means
+// is d̃ then lies within Mahalanobis distance 1/W of them once the weights
+// W of a window sum up and the model is refreshed (see Widen). It
+// allocates nothing and panics on a length mismatch.
+func (t *Tracker) WidenBy(d []float64, w float64) {
+	if len(d) != t.p {
+		panic("tracker: WidenBy: length mismatch")
+	}
+	if !(w > 0) || math.IsInf(w, 0) || t.frozen || t.baseline || !t.ready {
 		return
 	}
+	t.widen(d, w, true)
+}
+
+// widen adds w·ddᵀ to the EW covariance (and its diagonal to the
+// variances), on the channels with a finite, nonzero dᵢ, and, with
+// inModel, only on those the model holds.
+func (t *Tracker) widen(d []float64, w float64, inModel bool) {
+	e := t.ew
+	e.Flush()
 	p := e.p
 	for i := 0; i < p; i++ {
-		if d[i] == 0 {
+		if !t.widens(d, i, inModel) {
 			continue
 		}
 		wi := w * d[i]
 		row := e.cov.Data[i*p : i*p+p]
 		for j := i; j < p; j++ {
-			row[j] += wi * d[j]
+			if t.widens(d, j, inModel) {
+				row[j] += wi * d[j]
+			}
 		}
 		e.vari[i] += wi * d[i]
 	}
+}
+
+// widens reports whether channel i takes part in a widening by d.
+func (t *Tracker) widens(d []float64, i int, inModel bool) bool {
+	v := d[i]
+	if v == 0 || math.IsNaN(v) || math.IsInf(v, 0) {
+		return false
+	}
+	return !inModel || (t.ready && t.mdl.include[i])
 }

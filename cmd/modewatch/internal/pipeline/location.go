@@ -114,6 +114,7 @@ func (u *Unit) learnMask() []bool {
 	if u.recentK < recentreFrames && len(u.recent) == len(u.x) {
 		u.recentK++
 		if w := u.acceptWeight(); w > 0 {
+			u.widenStates(w / recentreFrames)
 			u.tr.Widen(u.x, u.recent, w/recentreFrames)
 		} else {
 			u.tr.Recentre(u.x, u.recent, u.recentK)
@@ -125,6 +126,7 @@ func (u *Unit) learnMask() []bool {
 				// failed refresh keeps the previous model until the
 				// regular one.
 				_ = u.tr.Refresh()
+				u.refreshStates()
 			}
 		}
 	}

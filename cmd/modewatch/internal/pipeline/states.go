@@ -80,8 +80,9 @@ type unitStates struct {
 	// minModes: the floor of every state's automatic mode count
 	// (statemodes.go), 0: none.
 	minModes  int
-	bip       *bipWork // posterior scoring of found states (bipstates.go)
-	posterior bool     // found states scored by their posterior (model.state_scoring)
+	bip       *bipWork  // posterior scoring of found states (bipstates.go)
+	posterior bool      // found states scored by their posterior (model.state_scoring)
+	dev       []float64 // scratch of an accepted deviation carried to the other states (acceptstates.go)
 }
 
 // newStates returns the states of a unit classified by channel.
