@@ -24,13 +24,17 @@ package pipeline
 // The old recentring of the means (a negative accept weight) stays with
 // the accepting state alone: a level is a state's own.
 
+// acrossStates turns widenStates and refreshStates on; tests turn it off
+// to show what it changes (the package's tests do not run in parallel).
+var acrossStates = true
+
 // widenStates widens every operating state's model other than the current
 // one by the current frame's deviation from the current model's means on
 // the channels being taken in (u.recent), with weight w (accept.go). It
 // allocates only the first time (the deviation's scratch).
 func (u *Unit) widenStates(w float64) {
 	s := u.states
-	if s == nil || len(s.models) < 2 || len(u.recent) != len(u.x) || u.tr.P() != len(u.x) {
+	if !acrossStates || s == nil || len(s.models) < 2 || len(u.recent) != len(u.x) || u.tr.P() != len(u.x) {
 		return
 	}
 	if len(s.dev) != len(u.x) {
@@ -40,6 +44,15 @@ func (u *Unit) widenStates(w float64) {
 	for _, m := range s.models {
 		if m.tr == u.tr || m.tr.P() != len(d) {
 			continue // the current state (widened by the caller), or one without the unit's channels yet
+		}
+		if m.tr.Frozen() {
+			// An inactive state's freeze is stale (a fitted baseline not
+			// yet run, or an alarm open when the plant left it): the
+			// current state's tracker is frozen or thawed at each frame
+			// (stepModel), and so is this one when the plant returns to
+			// it. A model held fixed (adapt=false) never gets here
+			// (learnMask).
+			m.tr.Thaw()
 		}
 		m.tr.WidenBy(d, w)
 	}
@@ -51,11 +64,11 @@ func (u *Unit) widenStates(w float64) {
 // failed refresh keeps that state's previous model until its regular one.
 func (u *Unit) refreshStates() {
 	s := u.states
-	if s == nil {
+	if !acrossStates || s == nil {
 		return
 	}
 	for _, m := range s.models {
-		if m.tr != u.tr && !m.tr.Frozen() {
+		if m.tr != u.tr {
 			_ = m.tr.Refresh()
 		}
 	}
