@@ -3,7 +3,6 @@ package alerts
 import (
 	"errors"
 	"fmt"
-	"math"
 	"strings"
 	"time"
 )
@@ -54,6 +53,8 @@ import (
 // statistics are then measured against a model in change. A second excursion
 // within AcceptAfter of the record is an alert like any other, so the rule
 // never floods and never learns a sequence of excursions unseen.
+// With Rules.PointByResidual, SPE and φ may show such a move too, judged
+// by the residual Mahalanobis statistic alone (newpointres.go).
 // Rules.NoNewPoint turns the rule off, and so does a negative
 // Rules.AcceptAfter: where nothing is ever taken as the new normal, a new
 // operating point is not either.
@@ -86,25 +87,26 @@ func (e *Engine) newPointRule(u *unit) bool {
 	return ok && !u.rules.NoNewPoint && u.rules.AcceptAfter >= 0 && e.masking(u)
 }
 
-// residualInAlarm reports whether a statistic of u other than T² and φ is
-// in alarm.
-func (u *unit) residualInAlarm() bool {
+// residualInAlarm reports whether a statistic of u that rd reads as a
+// break (other than T² and φ) is in alarm.
+func (u *unit) residualInAlarm(rd pointReading) bool {
 	for k := range u.stats {
-		if k != 0 && k != 2 && u.stats[k].State().InAlarm() {
+		if rd.breaks(k) && u.stats[k].State().InAlarm() {
 			return true
 		}
 	}
 	return false
 }
 
-// residualOver reports whether a statistic of u other than T² and φ is in
-// alarm and over its limit in o (an alarm clearing after its return, e.g.
-// from the frames the model was taking a point in, does not count).
-func (u *unit) residualOver(o *Observation) bool {
+// residualOver reports whether a statistic of u that rd reads as a break
+// (other than T² and φ) is in alarm and over its limit in o (an alarm
+// clearing after its return, e.g. from the frames the model was taking a
+// point in, does not count).
+func (u *unit) residualOver(o *Observation, rd pointReading) bool {
 	for i := range o.Stats {
 		s := &o.Stats[i]
 		k := statIndex(s.Name)
-		if k < 0 || k == 0 || k == 2 || !u.stats[k].State().InAlarm() {
+		if k < 0 || !rd.breaks(k) || !u.stats[k].State().InAlarm() {
 			continue
 		}
 		if s.Limit > 0 && s.Value > s.Limit {
@@ -133,18 +135,6 @@ func Concentrated(o *Observation) bool {
 	return len(lead) > 0 && s >= PointShare
 }
 
-// t2Over returns T²'s value over its limit in o (0 when absent).
-func t2Over(o *Observation) float64 {
-	for i := range o.Stats {
-		if s := &o.Stats[i]; s.Name == StatT2 {
-			if s.Limit > 0 && !math.IsInf(s.Limit, 0) && !math.IsNaN(s.Value) {
-				return s.Value / s.Limit
-			}
-		}
-	}
-	return 0
-}
-
 // stepPoint runs u's new-operating-point rule at frame o (time t); in says
 // whether a statistic of u is in alarm. It returns whether the unit's
 // model alarm is in alarm for the rest of Observe: false while a new point
@@ -154,12 +144,13 @@ func (e *Engine) stepPoint(u *unit, o *Observation, t time.Time, in bool) bool {
 		return in
 	}
 	p := &u.point
-	r := t2Over(o)
+	rd := u.readPoint(o)
+	r := rd.ratio
 	if p.learning && o.TakingIn {
 		p.conc.Reset(t)
 		return false // the model is taking the point in: nothing to judge yet
 	}
-	conc := r > 1 && Concentrated(o) // the only walk of o's contributors here
+	conc := u.concentrated(o, rd) // the only walks of o's contributors here
 	v := 0.0
 	if conc {
 		v = 2
@@ -168,7 +159,7 @@ func (e *Engine) stepPoint(u *unit, o *Observation, t time.Time, in bool) bool {
 	g := &u.modelG
 	if p.learning {
 		switch {
-		case u.residualOver(o) || p.conc.State().InAlarm() || t.Sub(p.last) >= PointSettle:
+		case u.residualOver(o, rd) || p.conc.State().InAlarm() || t.Sub(p.last) >= PointSettle:
 			p.learning = false // escalates: the model alarm activates on this frame
 			e.emit(Event{Time: t, Unit: u.name, Kind: EventPointEnd, Alarm: GroupPoint})
 			return in
@@ -178,19 +169,21 @@ func (e *Engine) stepPoint(u *unit, o *Observation, t time.Time, in bool) bool {
 		}
 		return false
 	}
-	if !in || r <= 1 || conc || g.inAlarm || g.inc != nil || len(u.loc.extra) > 0 || u.residualInAlarm() ||
+	if !in || r <= 1 || conc || g.inAlarm || g.inc != nil || len(u.loc.extra) > 0 || u.residualInAlarm(rd) ||
 		p.conc.State() != Normal || u.reopenable(o, t) != nil ||
 		(!p.last.IsZero() && t.Sub(p.last) < u.rules.AcceptAfter) {
 		return in
 	}
 	p.learning, p.last = true, t
-	e.notePoint(u, o, t, r)
+	e.notePoint(u, o, t, rd)
 	return false
 }
 
-// notePoint publishes the new-operating-point record of u at frame o and
-// hands every channel of the frame to the learner as the new normal.
-func (e *Engine) notePoint(u *unit, o *Observation, t time.Time, r float64) {
+// notePoint publishes the new-operating-point record of u at frame o, read
+// as rd, and hands every channel of the frame to the learner as the new
+// normal.
+func (e *Engine) notePoint(u *unit, o *Observation, t time.Time, rd pointReading) {
+	r := rd.ratio
 	var lead strings.Builder
 	for i := range o.Contributors {
 		c := &o.Contributors[i]
@@ -201,11 +194,15 @@ func (e *Engine) notePoint(u *unit, o *Observation, t time.Time, r float64) {
 			fmt.Fprintf(&lead, "%s %.0f %%", c.Channel, 100*c.Share)
 		}
 	}
-	text := fmt.Sprintf("new operating point: %s moved beyond its normal range along its modes "+
-		"(T² %.2f times its limit, spread over its channels: %s; SPE and the residual statistics within their limits); "+
+	along, within := "along its modes", "SPE and the residual statistics within their limits"
+	if rd.speMoves {
+		along, within = "along relations it learned", "the residual statistic res within its limit"
+	}
+	text := fmt.Sprintf("new operating point: %s moved beyond its normal range %s "+
+		"(%s %.2f times its limit, spread over its channels: %s; %s); "+
 		"learned as normal from now on. An alert follows if a residual statistic goes over its limit, "+
-		"one channel comes to explain the excess, or T² is not back within %v",
-		u.name, r, lead.String(), PointSettle)
+		"one channel comes to explain the excess, or %s is not back within %v",
+		u.name, along, rd.display(), r, lead.String(), within, rd.display(), PointSettle)
 	rec := e.noticeRecord(u, GroupPoint, "move", text, t)
 	for i := range o.Contributors {
 		if i == maxNoticeContributors {
@@ -217,7 +214,7 @@ func (e *Engine) notePoint(u *unit, o *Observation, t time.Time, r float64) {
 		d.setExpected(c)
 		rec.Contributors = append(rec.Contributors, d)
 	}
-	rec.Peak = Peak{Statistic: StatT2, Value: r, Limit: 1, Ratio: r, Time: t.UTC()}
+	rec.Peak = Peak{Statistic: rd.stat, Value: r, Limit: 1, Ratio: r, Time: t.UTC()}
 	e.emit(Event{Time: t, Unit: u.name, Kind: EventPoint, Alarm: GroupPoint})
 	e.pub.Publish(rec)
 	if m, ok := e.learn.(Moving); ok {

@@ -537,6 +537,14 @@ type Alerts struct {
 	// not back within alerts.PointSettle. Unset: the alarm engine's
 	// default, alerts.DefaultNewPoint.
 	NewPoint *bool `yaml:"new_point"`
+	// NewPointRes: where a unit scores the residual Mahalanobis statistic
+	// res, the new-operating-point rule judges a break of the relations by
+	// res alone and reads SPE and φ over their limits, with T² and res
+	// within theirs and no channel explaining alerts.specific_share of the
+	// index, as a move of the unit along relations it learned
+	// (alerts/newpointres.go). Unset: the alarm
+	// engine's default, alerts.DefaultPointByResidual.
+	NewPointRes *bool `yaml:"new_point_res"`
 	// SpreadRestartsHold: a growth of an incident's location (a channel
 	// outside it leading the incident's frames) restarts its bounded hold,
 	// as a growth of its statistics does. Unset: the alarm engine's
@@ -655,6 +663,7 @@ func DefaultModel() Model {
 // DefaultAlerts returns the default alarm settings.
 func DefaultAlerts() Alerts {
 	freeze, point, calPoints, spread := true, alerts.DefaultNewPoint, DefaultCalibratePoints, alerts.DefaultSpreadRestartsHold
+	pointRes := alerts.DefaultPointByResidual
 	return Alerts{
 		Budget:   DefaultBudget,
 		OnDelay:  OnDelay{N: DefaultOnDelayN, M: DefaultOnDelayM},
@@ -669,6 +678,7 @@ func DefaultAlerts() Alerts {
 		Chatter:          RateRule{Count: DefaultChatterCount, Window: DefaultChatterWindow},
 		FreezeOnAlert:    &freeze,
 		NewPoint:         &point,
+		NewPointRes:      &pointRes,
 		CalibrationFolds: DefaultCalibrationFolds,
 		CalibratePoints:  &calPoints,
 

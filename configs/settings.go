@@ -275,6 +275,11 @@ var settings = []Setting{
 		set: setBool(func(o *Overrides) **bool { return &o.Alerts.NewPoint }),
 	},
 	{
+		Name: "new_point_res", Section: "alerts", Grid: true, Default: strconv.FormatBool(alerts.DefaultPointByResidual),
+		Doc: "true|false: where a unit scores res, the new-operating-point rule judges a break of the relations by res alone: SPE and φ over their limits with T² and res within theirs and no channel explaining specific_share of the index are a move along relations the unit learned, recorded once and learned like a move in T²",
+		set: setBool(func(o *Overrides) **bool { return &o.Alerts.NewPointRes }),
+	},
+	{
 		Name: "spread_restarts_hold", Section: "alerts", Grid: true, Default: strconv.FormatBool(alerts.DefaultSpreadRestartsHold),
 		Doc: "true|false: a growth of an incident's location (a channel outside it leading its frames) restarts its bounded hold (accept_after), as a growth of its statistics does",
 		set: setBool(func(o *Overrides) **bool { return &o.Alerts.SpreadRestartsHold }),

@@ -35,6 +35,7 @@ func TestSettingDefaults(t *testing.T) {
 		"creep_lambda":         strconv.FormatFloat(tracker.DefaultCreepLambda, 'g', -1, 64),
 		"state_scoring":        tracker.DefaultStateScoring,
 		"new_point":            strconv.FormatBool(alerts.DefaultNewPoint),
+		"new_point_res":        strconv.FormatBool(alerts.DefaultPointByResidual),
 		"calibrate_points":     strconv.FormatBool(DefaultCalibratePoints),
 		"spread_restarts_hold": strconv.FormatBool(alerts.DefaultSpreadRestartsHold),
 		"driver_level":         strconv.FormatFloat(tracker.DefaultDriverLevel, 'g', -1, 64),
