@@ -150,9 +150,14 @@ func (e *Engine) stepPoint(u *unit, o *Observation, t time.Time, in bool) bool {
 		p.conc.Reset(t)
 		return false // the model is taking the point in: nothing to judge yet
 	}
-	conc := u.concentrated(o, rd) // the only walks of o's contributors here
+	// The on-delay of the concentration counts the frames of T² over its
+	// limit that one channel explains, and, while a point is learned, the
+	// frames of a move off the mode plane that name a place; a frame of the
+	// latter kind before any point keeps the unit from noting one there and
+	// then, but does not hold its rule up afterwards.
+	along, conc := u.concentrated(o, rd) // the only walks of o's contributors here
 	v := 0.0
-	if conc {
+	if along || (p.learning && conc) {
 		v = 2
 	}
 	p.conc.Step(t, v, 1)

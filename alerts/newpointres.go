@@ -95,20 +95,16 @@ func (u *unit) readPoint(o *Observation) pointReading {
 func (rd pointReading) offPlane() bool { return rd.speMoves && rd.ratio > 1 && rd.t2 <= 1 }
 
 // concentrated reports whether frame o, read as rd, is no move of u but
-// an excess one channel explains: for a move along the modes (T² over its
-// limit), the first leading channel explains PointShare of the index
-// (Concentrated); for a move off the mode plane, any channel explains
-// Rules.SpecificShare of it, the share at which a frame names a place of
-// its own (reopen.go): a driver that moves the unit off the plane moves
-// the many channels no sparse mode holds, each explaining a small part.
-func (u *unit) concentrated(o *Observation, rd pointReading) bool {
-	if rd.ratio <= 1 {
-		return false
-	}
-	if rd.offPlane() && rd.top >= u.rules.SpecificShare {
-		return true
-	}
-	return Concentrated(o)
+// an excess one channel explains. along: T² is over its limit and the
+// first leading channel explains PointShare of the index (Concentrated);
+// conc: along, or a move off the mode plane (rd.offPlane) in which some
+// channel explains Rules.SpecificShare of the index, the share at which a
+// frame names a place of its own (reopen.go): a driver that moves the
+// unit off the plane moves the many channels no sparse mode holds, each
+// explaining a small part. Without Rules.PointByResidual conc is along.
+func (u *unit) concentrated(o *Observation, rd pointReading) (along, conc bool) {
+	along = rd.t2 > 1 && Concentrated(o)
+	return along, along || (rd.offPlane() && rd.top >= u.rules.SpecificShare)
 }
 
 // breaks reports whether statistic k is one the rule reads as a break of
