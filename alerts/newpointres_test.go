@@ -116,6 +116,28 @@ func TestPointByResidual(t *testing.T) {
 			}
 		}
 	})
+	// Once a move off the plane is noted, frames on which one channel comes
+	// to explain SpecificShare of the index for the on-delay escalate it.
+	t.Run("escalates on a named place", func(t *testing.T) {
+		h, _ := pointHarness(t, on)
+		h.resFrames(0, 10, 0.5, 1.5, 1.2, 0.5, 0.2, false)
+		h.resFrames(10, 40, 0.5, 1.5, 1.2, 0.5, 0.2, true)
+		h.resFrames(40, 60, 0.5, 1.5, 1.2, 0.5, 0.3, false)
+		if n, i := h.kinds(); n != 1 || i != 1 {
+			t.Fatalf("a place named after the move was noted: %d notices, %d incidents; want 1, 1", n, i)
+		}
+	})
+	// An off-plane frame that names a place, before any point, is no move,
+	// but it does not hold up the rule for a T² move that follows.
+	t.Run("named place does not hold up a later move", func(t *testing.T) {
+		h, pl := pointHarness(t, on)
+		h.resFrames(0, 5, 0.5, 0.5, 0.5, 0.5, 0.2, false)
+		h.resFrame(50, 0.5, 1.5, 1.2, 0.5, 0.3, false) // one frame: no alarm
+		h.resFrames(6, 15, 1.5, 0.5, 1.2, 0.5, 0.2, false)
+		if n, i := h.kinds(); n != 1 || i != 0 || len(pl.moves) != 1 {
+			t.Fatalf("T² move after an off-plane frame naming a place: %d notices, %d incidents, %d moves; want 1, 0, 1", n, i, len(pl.moves))
+		}
+	})
 	t.Run("settle", func(t *testing.T) {
 		h, _ := pointHarness(t, on)
 		for k := 0.0; k < 500; k++ {
