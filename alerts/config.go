@@ -123,13 +123,14 @@ type Rules struct {
 	// residual statistics within their limits, is then an incident like
 	// any other. The zero value keeps the rule (DefaultNewPoint).
 	NoNewPoint bool
-	// PointByResidual: where the unit scores the residual Mahalanobis
-	// statistic (res), the new-operating-point rule judges a break of the
-	// relations by it alone and reads SPE and φ as it reads T², as measures
-	// of how far the unit moved, when no channel explains SpecificShare of
-	// the index (newpointres.go). The zero value keeps SPE a break
-	// (DefaultPointByResidual).
-	PointByResidual bool
+	// NoPointByResidual turns off the reading of newpointres.go: where the
+	// unit scores the residual Mahalanobis statistic (res), the
+	// new-operating-point rule judges a break of the relations by it alone
+	// and reads SPE and φ as it reads T², as measures of how far the unit
+	// moved, when no channel explains SpecificShare of the index. With it
+	// set, SPE is a break as any residual statistic. The zero value keeps
+	// the reading (DefaultPointByResidual).
+	NoPointByResidual bool
 	// SpreadRestartsHold: a growth of an incident's location restarts its
 	// bounded hold, as a growth of its level does (hold.go). The zero
 	// value does not (DefaultSpreadRestartsHold).

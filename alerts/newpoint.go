@@ -53,7 +53,7 @@ import (
 // statistics are then measured against a model in change. A second excursion
 // within AcceptAfter of the record is an alert like any other, so the rule
 // never floods and never learns a sequence of excursions unseen.
-// With Rules.PointByResidual, SPE and φ may show such a move too, judged
+// Unless Rules.NoPointByResidual, SPE and φ may show such a move too, judged
 // by the residual Mahalanobis statistic alone (newpointres.go).
 // Rules.NoNewPoint turns the rule off, and so does a negative
 // Rules.AcceptAfter: where nothing is ever taken as the new normal, a new

@@ -90,8 +90,8 @@ func (h *harness) kinds() (notices, incidents int) {
 // incident like any other. A T² excursion of the same size that one
 // channel explains (share 0.8) is an incident at once, with no notice.
 // After a point is taken in, SPE over its limit for the on-delay escalates
-// it to an incident. With the rule off the spread excursion is an
-// incident.
+// it to an incident (with SPE read as a break, Rules.NoPointByResidual).
+// With the rule off the spread excursion is an incident.
 func TestNewPoint(t *testing.T) {
 	t.Run("spread", func(t *testing.T) {
 		h, pl := pointHarness(t, Config{})
@@ -120,8 +120,11 @@ func TestNewPoint(t *testing.T) {
 			t.Errorf("T² excursion on one channel: %d notices, %d incidents, %d moves; want 0, 1, 0", n, i, len(pl.moves))
 		}
 	})
+	// SPE as a break: with the reading of newpointres.go on (the default),
+	// SPE over its limit with res inside is more of the move, and res
+	// escalates it (TestPointByResidual).
 	t.Run("escalates", func(t *testing.T) {
-		h, _ := pointHarness(t, Config{})
+		h, _ := pointHarness(t, Config{Rules: Rules{NoPointByResidual: true}})
 		h.pointFrames(0, 10, 1.5, 0.2, 0.2, false)
 		h.pointFrames(10, 40, 1.5, 0.2, 0.2, true)
 		h.pointFrames(40, 60, 1.5, 2, 0.2, false)

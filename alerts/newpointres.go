@@ -23,7 +23,7 @@ import "math"
 // others) is large. D² = zᵀΩz = T² + res splits the Mahalanobis distance
 // of the frame between the modes and the rest (Jackson, "A User's Guide to
 // Principal Components", Wiley 1991, §1.7 and §2.9, from memory). With
-// Rules.PointByResidual, a unit that scores res has its new operating
+// the reading on (Rules.NoPointByResidual unset), a unit that scores res has its new operating
 // point judged by res alone: SPE and φ over their limits with res within
 // its own are a move of the unit along relations it has learned, read as
 // T² is read by the rule of newpoint.go (once per AcceptAfter, escalating
@@ -37,8 +37,11 @@ import "math"
 // the modes cannot hold moves many channels, each a little. A unit that
 // does not score res keeps SPE a break.
 
-// DefaultPointByResidual is the default of Rules.PointByResidual.
-const DefaultPointByResidual = false
+// DefaultPointByResidual is the default of the reading (alerts.new_point_res;
+// Rules.NoPointByResidual turns it off): on
+// (chosen over twenty seeds of every realism plant and the demo, see the
+// README, A move off the mode plane).
+const DefaultPointByResidual = true
 
 // pointReading is how the new-operating-point rule reads one frame.
 type pointReading struct {
@@ -49,16 +52,16 @@ type pointReading struct {
 	// explains (read only when speMoves).
 	top float64
 	// speMoves: SPE and φ read as moves, and SPE is no break
-	// (Rules.PointByResidual and res scored on the frame).
+	// (the reading on, Rules.NoPointByResidual, and res scored on the frame).
 	speMoves bool
 }
 
 // readPoint returns how u's new-operating-point rule reads frame o: T²'s
-// ratio to its limit, or with Rules.PointByResidual on a frame that scores
-// res, the largest ratio of T², SPE and φ.
+// ratio to its limit, or, unless Rules.NoPointByResidual, on a frame that
+// scores res, the largest ratio of T², SPE and φ.
 func (u *unit) readPoint(o *Observation) pointReading {
 	rd := pointReading{stat: StatT2}
-	if u.rules.PointByResidual {
+	if !u.rules.NoPointByResidual {
 		for i := range o.Stats {
 			if s := &o.Stats[i]; s.Name == StatResidual && s.Limit > 0 && !math.IsInf(s.Limit, 0) {
 				rd.speMoves = true
@@ -101,7 +104,7 @@ func (rd pointReading) offPlane() bool { return rd.speMoves && rd.ratio > 1 && r
 // channel explains Rules.SpecificShare of the index, the share at which a
 // frame names a place of its own (reopen.go): a driver that moves the
 // unit off the plane moves the many channels no sparse mode holds, each
-// explaining a small part. Without Rules.PointByResidual conc is along.
+// explaining a small part. With Rules.NoPointByResidual conc is along.
 func (u *unit) concentrated(o *Observation, rd pointReading) (along, conc bool) {
 	along = rd.t2 > 1 && Concentrated(o)
 	return along, along || (rd.offPlane() && rd.top >= u.rules.SpecificShare)

@@ -37,18 +37,19 @@ func (h *harness) resFrames(from, to, t2, spe, phi, res, share float64, taking b
 	}
 }
 
-// TestPointByResidual: Rules.PointByResidual (newpointres.go) on hand-made
-// frames at 10 s. The cases follow the rule's contract: SPE over its limit
-// (1.5 times) with T² inside (0.5) and res inside (0.5), spread over the
-// channels (first share 0.2), is a move along learned relations: one notice
-// naming SPE and a Move, no incident. Without the setting, with res over its
-// limit, with no res scored, or with one channel explaining the excess
-// (share 0.8; off the mode plane already at Rules.SpecificShare, 0.3 here)
-// it is an incident, as before. φ over its limit alone is a
-// move too. After the point is taken in, res going over its limit
-// escalates it; SPE still over its limit an hour after the record does too.
+// TestPointByResidual: the reading of newpointres.go (on unless
+// Rules.NoPointByResidual) on hand-made frames at 10 s. The cases follow
+// its contract: SPE over its limit (1.5 times) with T² inside (0.5) and
+// res inside (0.5), spread over the channels (first share 0.2), is a move
+// along learned relations: one notice naming SPE and a Move, no incident.
+// With the reading off, with res over its limit, with no res scored, or
+// with one channel explaining the excess (share 0.8; off the mode plane
+// already at Rules.SpecificShare, 0.3 here) it is an incident, as before.
+// φ over its limit alone is a move too. After the point is taken in, res
+// going over its limit escalates it; SPE still over its limit an hour
+// after the record does too.
 func TestPointByResidual(t *testing.T) {
-	on := Config{Rules: Rules{PointByResidual: true}}
+	on := Config{}
 	cases := []struct {
 		name              string
 		cfg               Config
@@ -58,16 +59,16 @@ func TestPointByResidual(t *testing.T) {
 	}{
 		{"spe move", on, 0.5, 1.5, 1.2, 0.5, 0.2, 1, 0},
 		{"phi alone", on, 0.9, 0.9, 1.3, 0.5, 0.2, 1, 0},
-		{"setting off", Config{}, 0.5, 1.5, 1.2, 0.5, 0.2, 0, 1},
+		{"reading off", Config{Rules: Rules{NoPointByResidual: true}}, 0.5, 1.5, 1.2, 0.5, 0.2, 0, 1},
 		{"res over", on, 0.5, 1.5, 1.2, 1.5, 0.2, 0, 1},
 		{"no res scored", on, 0.5, 1.5, 1.2, -1, 0.2, 0, 1},
 		{"one channel", on, 0.5, 1.5, 1.2, 0.5, 0.8, 0, 1},
 		// Off the mode plane a channel explaining SpecificShare (0.25) of
 		// the index names a place: no move. Along the modes (T² over its
-		// limit) the same share is a move, as without the setting.
+		// limit) the same share is a move, as with the reading off.
 		{"names a place off the plane", on, 0.5, 1.5, 1.2, 0.5, 0.3, 0, 1},
 		{"same share along the modes", on, 1.5, 1.5, 1.2, 0.5, 0.3, 1, 0},
-		{"rule off", Config{Rules: Rules{PointByResidual: true, NoNewPoint: true}}, 0.5, 1.5, 1.2, 0.5, 0.2, 0, 1},
+		{"rule off", Config{Rules: Rules{NoNewPoint: true}}, 0.5, 1.5, 1.2, 0.5, 0.2, 0, 1},
 	}
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {
@@ -150,10 +151,10 @@ func TestPointByResidual(t *testing.T) {
 }
 
 // TestPointByResidualAllocs guards the per-frame path of the rule with
-// Rules.PointByResidual (as TestNewPointAllocs): no allocation within the
+// the reading of newpointres.go on (as TestNewPointAllocs): no allocation within the
 // limits, nor while an SPE move is being learned.
 func TestPointByResidualAllocs(t *testing.T) {
-	e, err := NewEngine(Config{Rules: Rules{PointByResidual: true}}, PublisherFunc(func(*Record) {}), &pointLog{}, nil)
+	e, err := NewEngine(Config{}, PublisherFunc(func(*Record) {}), &pointLog{}, nil)
 	if err != nil {
 		t.Fatal(err)
 	}

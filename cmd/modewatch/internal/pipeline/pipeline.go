@@ -164,12 +164,12 @@ func AlertsConfigAt(c *configs.Config, period time.Duration) alerts.Config {
 			SpecificShare:  a.SpecificShare,
 			NoNewPoint:     newPointOff(a),
 
-			PointByResidual: alerts.DefaultPointByResidual,
+			NoPointByResidual: !alerts.DefaultPointByResidual,
 
 			SpreadRestartsHold: alerts.DefaultSpreadRestartsHold,
 		}
 		if a.NewPointRes != nil {
-			r.PointByResidual = *a.NewPointRes
+			r.NoPointByResidual = !*a.NewPointRes
 		}
 		if a.SpreadRestartsHold != nil {
 			r.SpreadRestartsHold = *a.SpreadRestartsHold

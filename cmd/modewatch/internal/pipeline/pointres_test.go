@@ -8,7 +8,7 @@ import (
 )
 
 // TestNewPointResKey: alerts.new_point_res reaches the alarm rules of the
-// units (Rules.PointByResidual), a unit's own value over the plant's;
+// units (Rules.NoPointByResidual its negation), a unit's own value over the plant's;
 // unset, the alarm engine's default (alerts.DefaultPointByResidual)
 // applies.
 func TestNewPointResKey(t *testing.T) {
@@ -18,13 +18,13 @@ func TestNewPointResKey(t *testing.T) {
 		Units:  []configs.Unit{{Name: "network"}, {Name: "store", Alerts: configs.Alerts{NewPointRes: &off}}},
 	}
 	ac := AlertsConfig(c)
-	if !ac.Rules.PointByResidual || !ac.Units["network"].PointByResidual {
-		t.Errorf("plant true: plant %v, network %v, want both true", ac.Rules.PointByResidual, ac.Units["network"].PointByResidual)
+	if ac.Rules.NoPointByResidual || ac.Units["network"].NoPointByResidual {
+		t.Errorf("plant true: plant off %v, network off %v, want both on", ac.Rules.NoPointByResidual, ac.Units["network"].NoPointByResidual)
 	}
-	if ac.Units["store"].PointByResidual {
-		t.Error("store's own false: got true")
+	if !ac.Units["store"].NoPointByResidual {
+		t.Error("store's own false: got on")
 	}
-	if got := AlertsConfig(&configs.Config{}).Rules.PointByResidual; got != alerts.DefaultPointByResidual {
+	if got := !AlertsConfig(&configs.Config{}).Rules.NoPointByResidual; got != alerts.DefaultPointByResidual {
 		t.Errorf("unset: %v, want the default %v", got, alerts.DefaultPointByResidual)
 	}
 }
