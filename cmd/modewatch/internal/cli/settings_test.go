@@ -20,7 +20,7 @@ func TestSettingRoutesAgree(t *testing.T) {
 		"warmup": "800", "refresh_every": "32", "on_delay": "6/10", "off_delay": "20m",
 		"deadband": "0.1", "adapt": "false", "limits": "empirical:reference.lp", "smoothing": "0.3", "mewma_lambda": "0.1", "creep_lambda": "0.1",
 		"on_span":    "2m",
-		"statistics": "t2,spe", "state_scoring": "most_probable", "new_point": "false", "calibrate_points": "true", "spread_restarts_hold": "true",
+		"statistics": "t2,spe", "state_scoring": "most_probable", "new_point": "false", "new_point_res": "false", "calibrate_points": "true", "spread_restarts_hold": "true",
 		"driver_level": "off",
 	}
 	base := &configs.Config{}
