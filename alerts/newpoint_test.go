@@ -43,16 +43,23 @@ func (h *harness) pointFrame(at, t2, spe, share float64, taking bool) {
 	phi := (t2 + spe) / 2
 	o := Observation{Unit: "u", Time: sec(at), ModelState: ModelAdapting, TakingIn: taking,
 		Stats: []Stat{{StatT2, 10 * t2, 10}, {StatSPE, 5 * spe, 5}, {StatPhi, phi, 1}, {StatResidual, 1, 8}}}
-	rest := (1 - share) / 3
-	for i, c := range []string{"u.header.pressure", "u.pump1.dp", "u.pump2.dp"} {
+	h.observeSpread(&o, []string{"u.header.pressure", "u.pump1.dp", "u.pump2.dp"}, share, (1-share)/3)
+}
+
+// observeSpread gives o one contributor per channel, all over their own
+// limits: the first explains share of the index, each other rest; then
+// feeds o.
+func (h *harness) observeSpread(o *Observation, channels []string, share, rest float64) {
+	h.t.Helper()
+	for i, c := range channels {
 		s := rest
 		if i == 0 {
 			s = share
 		}
 		o.Contributors = append(o.Contributors, Contributor{Channel: c, RBC: 4 * s, Limit: 0.3, Share: s})
 	}
-	if err := h.e.Observe(&o); err != nil {
-		h.t.Fatalf("observe at %v: %v", at, err)
+	if err := h.e.Observe(o); err != nil {
+		h.t.Fatalf("observe at %v: %v", o.Time, err)
 	}
 }
 

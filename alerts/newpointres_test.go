@@ -16,17 +16,8 @@ func (h *harness) resFrame(at, t2, spe, phi, res, share float64, taking bool) {
 	if res >= 0 {
 		o.Stats = append(o.Stats, Stat{StatResidual, 8 * res, 8})
 	}
-	rest := (1 - share) / 5
-	for i, c := range []string{"u.sub01.flow", "u.sub02.flow", "u.sub03.flow", "u.sub04.flow", "u.sub05.flow", "u.sub06.flow"} {
-		s := rest
-		if i == 0 {
-			s = share
-		}
-		o.Contributors = append(o.Contributors, Contributor{Channel: c, RBC: 4 * s, Limit: 0.3, Share: s})
-	}
-	if err := h.e.Observe(&o); err != nil {
-		h.t.Fatalf("observe at %v: %v", at, err)
-	}
+	h.observeSpread(&o, []string{"u.sub01.flow", "u.sub02.flow", "u.sub03.flow", "u.sub04.flow", "u.sub05.flow", "u.sub06.flow"},
+		share, (1-share)/5)
 }
 
 // resFrames feeds resFrame at seconds 10k for k in [from, to).
