@@ -216,45 +216,58 @@ func hasEvent(evs []Event, kind string) bool {
 // rule (testing.AllocsPerRun, as TestObserveAllocs, whose engine has no
 // learner and so never runs the rule): no allocation within the limits,
 // nor while a point is being learned, with the model taking it in or with
-// T² still over its limit, spread over the channels, and SPE in. Only the
+// its statistic still over its limit, spread over the channels: T² (SPE
+// in), or SPE with T² and res in (the reading of newpointres.go). Only the
 // frame that notes the point publishes a record.
 func TestNewPointAllocs(t *testing.T) {
-	e, err := NewEngine(Config{}, PublisherFunc(func(*Record) {}), &pointLog{}, nil)
-	if err != nil {
-		t.Fatal(err)
+	cases := []struct {
+		name     string
+		channels []string
+		shares   []float64
+		k        int     // the statistic raised
+		v, phi   float64 // its value and φ's, then
+	}{
+		{"T²", []string{"u.header.pressure", "u.pump1.dp", "u.pump2.dp"}, []float64{0.2, 0.4, 0.4}, 0, 15, 1.2},
+		{"SPE off the plane", []string{"u.sub01.flow", "u.sub02.flow", "u.sub03.flow", "u.sub04.flow", "u.sub05.flow"},
+			[]float64{0.2, 0.2, 0.2, 0.2, 0.2}, 1, 7.5, 1.2},
 	}
-	o := Observation{Unit: "u", ModelState: ModelAdapting,
-		Stats: []Stat{{StatT2, 5, 10}, {StatSPE, 1, 5}, {StatPhi, 0.5, 1}, {StatResidual, 1, 8}}}
-	for i, c := range []string{"u.header.pressure", "u.pump1.dp", "u.pump2.dp"} {
-		s := 0.2
-		if i > 0 {
-			s = 0.4
-		}
-		o.Contributors = append(o.Contributors, Contributor{Channel: c, RBC: 4 * s, Limit: 0.3, Share: s, Modes: []int{0}})
-	}
-	step := stepper(t, e, &o)
-	for range 10 {
-		step()
-	}
-	if a := testing.AllocsPerRun(200, step); a != 0 {
-		t.Errorf("within the limits: %v allocs per frame, want 0", a)
-	}
-	o.Stats[0].Value, o.Stats[2].Value = 15, 1.2 // T² at 1.5 times its limit, spread
-	for range 10 {
-		step()
-	}
-	if u := e.units["u"]; !u.point.learning {
-		t.Fatalf("no point is being learned after T² went over its limit, spread")
-	}
-	o.TakingIn = true
-	if a := testing.AllocsPerRun(200, step); a != 0 {
-		t.Errorf("taking a point in: %v allocs per frame, want 0", a)
-	}
-	o.TakingIn = false
-	if a := testing.AllocsPerRun(200, step); a != 0 {
-		t.Errorf("learning a point, T² over its limit: %v allocs per frame, want 0", a)
-	}
-	if u := e.units["u"]; !u.point.learning || u.modelG.inAlarm {
-		t.Errorf("the point escalated within the %v after its record (learning %v, model alarm %v)", PointSettle, u.point.learning, u.modelG.inAlarm)
+	for _, c := range cases {
+		t.Run(c.name, func(t *testing.T) {
+			e, err := NewEngine(Config{}, PublisherFunc(func(*Record) {}), &pointLog{}, nil)
+			if err != nil {
+				t.Fatal(err)
+			}
+			o := Observation{Unit: "u", ModelState: ModelAdapting,
+				Stats: []Stat{{StatT2, 5, 10}, {StatSPE, 1, 5}, {StatPhi, 0.5, 1}, {StatResidual, 1, 8}}}
+			for i, ch := range c.channels {
+				s := c.shares[i]
+				o.Contributors = append(o.Contributors, Contributor{Channel: ch, RBC: 4 * s, Limit: 0.3, Share: s, Modes: []int{0}})
+			}
+			step := stepper(t, e, &o)
+			for range 10 {
+				step()
+			}
+			if a := testing.AllocsPerRun(200, step); a != 0 {
+				t.Errorf("within the limits: %v allocs per frame, want 0", a)
+			}
+			o.Stats[c.k].Value, o.Stats[2].Value = c.v, c.phi // 1.5 times its limit, spread
+			for range 10 {
+				step()
+			}
+			if u := e.units["u"]; !u.point.learning {
+				t.Fatalf("no point is being learned after %s went over its limit, spread", c.name)
+			}
+			o.TakingIn = true
+			if a := testing.AllocsPerRun(200, step); a != 0 {
+				t.Errorf("taking a point in: %v allocs per frame, want 0", a)
+			}
+			o.TakingIn = false
+			if a := testing.AllocsPerRun(200, step); a != 0 {
+				t.Errorf("learning a point, still over its limit: %v allocs per frame, want 0", a)
+			}
+			if u := e.units["u"]; !u.point.learning || u.modelG.inAlarm {
+				t.Errorf("the point escalated within the %v after its record (learning %v, model alarm %v)", PointSettle, u.point.learning, u.modelG.inAlarm)
+			}
+		})
 	}
 }

@@ -140,36 +140,3 @@ func TestPointByResidual(t *testing.T) {
 		}
 	})
 }
-
-// TestPointByResidualAllocs guards the per-frame path of the rule with
-// the reading of newpointres.go on (as TestNewPointAllocs): no allocation within the
-// limits, nor while an SPE move is being learned.
-func TestPointByResidualAllocs(t *testing.T) {
-	e, err := NewEngine(Config{}, PublisherFunc(func(*Record) {}), &pointLog{}, nil)
-	if err != nil {
-		t.Fatal(err)
-	}
-	o := Observation{Unit: "u", ModelState: ModelAdapting,
-		Stats: []Stat{{StatT2, 5, 10}, {StatSPE, 1, 5}, {StatPhi, 0.5, 1}, {StatResidual, 1, 8}}}
-	for _, c := range []string{"u.sub01.flow", "u.sub02.flow", "u.sub03.flow", "u.sub04.flow", "u.sub05.flow"} {
-		s := 0.2
-		o.Contributors = append(o.Contributors, Contributor{Channel: c, RBC: 4 * s, Limit: 0.3, Share: s, Modes: []int{0}})
-	}
-	step := stepper(t, e, &o)
-	for range 10 {
-		step()
-	}
-	if a := testing.AllocsPerRun(200, step); a != 0 {
-		t.Errorf("within the limits: %v allocs per frame, want 0", a)
-	}
-	o.Stats[1].Value, o.Stats[2].Value = 7.5, 1.2 // SPE at 1.5 times its limit, spread; res inside
-	for range 10 {
-		step()
-	}
-	if u := e.units["u"]; !u.point.learning {
-		t.Fatalf("no point is being learned after SPE went over its limit, spread, with res inside")
-	}
-	if a := testing.AllocsPerRun(200, step); a != 0 {
-		t.Errorf("learning an SPE move: %v allocs per frame, want 0", a)
-	}
-}
