@@ -233,7 +233,10 @@ type Screen struct {
 	gap   []int
 	skip  []bool // channels judged elsewhere (context channels of other units)
 	spk   []spikeTrack
-	frame int64 // frames stepped
+	// tailed counts the channels judged by a flat-run tail
+	// (tailedChannels), for the stuck rule's margin (StuckAfterOf).
+	tailed int
+	frame  int64 // frames stepped
 	// silent: every channel missing in the last Step.
 	silent bool
 }
@@ -265,12 +268,16 @@ func (s *Screen) Grow(names []string, prof []ChannelProfile) {
 		s.skip = append(s.skip, false)
 		s.spk = append(s.spk, spikeTrack{})
 	}
+	s.tailed = s.tailedChannels()
 }
 
 // Skip sets whether channel k is left to another unit's rules (a context
 // channel: a driver from another unit, judged there): it raises no
 // condition here and does not count for the unit's silence.
-func (s *Screen) Skip(k int, skip bool) { s.skip[k] = skip }
+func (s *Screen) Skip(k int, skip bool) {
+	s.skip[k] = skip
+	s.tailed = s.tailedChannels()
+}
 
 // Len returns the number of channels.
 func (s *Screen) Len() int { return len(s.names) }
@@ -326,7 +333,7 @@ func (s *Screen) MissingAlarm(k int) bool {
 //	silent        every channel missing (one condition, Channel = unit)
 //	stuck         a profiled channel, not discrete, repeating a value that
 //	              is not one of its rest values for more than
-//	              StuckAfter frames
+//	              StuckAfterOf frames (the unit's tail-judged channels)
 //	out_of_range  a profiled channel, not discrete, beyond its normal
 //	              range by more than the range's width (see ChannelProfile);
 //	              a status taking a value its normal log never had is a
@@ -354,7 +361,7 @@ func (s *Screen) AppendQuality(dst []Quality) []Quality {
 			continue
 		}
 		v := s.last[k]
-		if !p.Discrete() && s.flat[k] > p.StuckAfter() && !p.isRest(v) {
+		if !p.Discrete() && s.flat[k] > p.StuckAfterOf(s.tailed) && !p.isRest(v) {
 			dst = append(dst, Quality{Channel: s.names[k], Kind: QualityStuck})
 		}
 		if !p.Discrete() && p.outOfRange(v) {
