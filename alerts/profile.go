@@ -233,10 +233,11 @@ type Screen struct {
 	gap   []int
 	skip  []bool // channels judged elsewhere (context channels of other units)
 	spk   []spikeTrack
-	// tailed counts the channels judged by a flat-run tail
-	// (tailedChannels), for the stuck rule's margin (StuckAfterOf).
-	tailed int
-	frame  int64 // frames stepped
+	// tailM is the stuck rule's margin in tail scales for the unit's
+	// channels judged by a flat-run tail (stuckScales of tailedChannels;
+	// StuckAfterOf), kept up to date by Grow and Skip.
+	tailM float64
+	frame int64 // frames stepped
 	// silent: every channel missing in the last Step.
 	silent bool
 }
@@ -268,7 +269,7 @@ func (s *Screen) Grow(names []string, prof []ChannelProfile) {
 		s.skip = append(s.skip, false)
 		s.spk = append(s.spk, spikeTrack{})
 	}
-	s.tailed = s.tailedChannels()
+	s.tailM = stuckScales(s.tailedChannels())
 }
 
 // Skip sets whether channel k is left to another unit's rules (a context
@@ -276,7 +277,7 @@ func (s *Screen) Grow(names []string, prof []ChannelProfile) {
 // condition here and does not count for the unit's silence.
 func (s *Screen) Skip(k int, skip bool) {
 	s.skip[k] = skip
-	s.tailed = s.tailedChannels()
+	s.tailM = stuckScales(s.tailedChannels())
 }
 
 // Len returns the number of channels.
@@ -361,7 +362,7 @@ func (s *Screen) AppendQuality(dst []Quality) []Quality {
 			continue
 		}
 		v := s.last[k]
-		if !p.Discrete() && s.flat[k] > p.StuckAfterOf(s.tailed) && !p.isRest(v) {
+		if !p.Discrete() && s.flat[k] > p.stuckAfterScales(s.tailM) && !p.isRest(v) {
 			dst = append(dst, Quality{Channel: s.names[k], Kind: QualityStuck})
 		}
 		if !p.Discrete() && p.outOfRange(v) {

@@ -22,11 +22,21 @@ import "math"
 // value of the channel is stuck, in a unit of n channels with a flat-run
 // tail (n < 1 counts as 1): its normal longest run MaxFlat plus the larger
 // of StuckMargin and (StuckTail + ln n) tail scales (FlatTail).
-func (p *ChannelProfile) StuckAfterOf(n int) int {
-	m := float64(StuckTail)
+func (p *ChannelProfile) StuckAfterOf(n int) int { return p.stuckAfterScales(stuckScales(n)) }
+
+// stuckScales returns the tail scales of the stuck margin in a unit of n
+// channels with a flat-run tail: StuckTail + ln n (n < 1 counts as 1).
+func stuckScales(n int) float64 {
 	if n > 1 {
-		m += math.Log(float64(n))
+		return StuckTail + math.Log(float64(n))
 	}
+	return StuckTail
+}
+
+// stuckAfterScales returns MaxFlat plus the larger of StuckMargin and m
+// tail scales: the screen keeps m for its unit (Screen.tailM), so that the
+// per-frame test takes no logarithm.
+func (p *ChannelProfile) stuckAfterScales(m float64) int {
 	return p.MaxFlat + max(StuckMargin, int(math.Ceil(m*p.FlatTail)))
 }
 
