@@ -119,11 +119,11 @@ func FlatTailScale(top []int) float64 {
 }
 
 // StuckAfter returns the flat-run length (frames) beyond which a live
-// value of the channel is stuck: its normal longest run MaxFlat plus the
-// larger of StuckMargin and StuckTail tail scales (FlatTail).
-func (p *ChannelProfile) StuckAfter() int {
-	return p.MaxFlat + max(StuckMargin, int(math.Ceil(StuckTail*p.FlatTail)))
-}
+// value of the channel is stuck when it is judged alone: its normal
+// longest run MaxFlat plus the larger of StuckMargin and StuckTail tail
+// scales (FlatTail); StuckAfterOf(1). In a screen the unit's channels
+// judged by a flat-run tail widen it (stuckfamily.go).
+func (p *ChannelProfile) StuckAfter() int { return p.StuckAfterOf(1) }
 
 // maxProfileRun bounds the run lengths of a profile read from a model
 // file (about 68 years of one-second frames), so that the stuck threshold
