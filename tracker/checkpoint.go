@@ -50,21 +50,26 @@ var ErrCheckpoint = errors.New("tracker: bad checkpoint")
 //	       behind them and normalisers 1/√Mᵢᵢ (all 0: formed at the next
 //	       frame; off: ignored; a checkpoint without: started again from
 //	       z̄ = 0 and the variance of independent frames)
+//	level: u8 present (Config.LevelStep, frames in its ring) | u32 k    [v9]
+//	       | u32 rows filled | u32 next row | u32 frames since the sums
+//	       were formed | 2k·p × f64 ring | p × f64 ΣA | p × f64 ΣB
+//	       | p × u32 frames read in a row: the level steps' window ring
+//	       (off: ignored; another k, or a checkpoint without: empty)
 //	modes: u32 n | n bytes of modes.Set.MarshalBinary
 //	u32 CRC-32 (IEEE) of everything before
 //
 // Versions 1 (no p0, no per-channel steps), 2 (no lag section), 3 (no
 // variance section: a restored variance statistic starts again from its
 // EWMA and normal level at 1), 4 (no MEWMA section), 5 (no persist
-// section), 6 (no creep section) and 7 (no copy of the factor in the
-// persist section) are still read.
+// section), 6 (no creep section), 7 (no copy of the factor in the
+// persist section) and 8 (no level section) are still read.
 //
 // The model snapshot (loadings, limits, per-channel data) is recomputed on
 // restore from A and the restored modes by the same code as at the refresh,
 // so it is bit-identical.
 const (
 	ckMagic   = "MWTK"
-	ckVersion = 8
+	ckVersion = 9
 )
 
 // fingerprint hashes the configuration fields that shape the state.
@@ -240,6 +245,22 @@ func (t *Tracker) MarshalBinary() ([]byte, error) {
 	} else {
 		b = append(b, 0)
 	}
+	if ls := t.lst; ls != nil && ls.n > 0 {
+		b = append(b, 1)
+		for _, v := range []int{ls.k, ls.n, ls.head, ls.since} {
+			b = le.AppendUint32(b, uint32(v))
+		}
+		for _, s := range [][]float64{ls.ring, ls.sumA, ls.sumB} {
+			for _, v := range s {
+				f64(v)
+			}
+		}
+		for _, v := range ls.seen {
+			b = le.AppendUint32(b, uint32(v))
+		}
+	} else {
+		b = append(b, 0)
+	}
 	b = le.AppendUint32(b, uint32(len(mb)))
 	b = append(b, mb...)
 	b = le.AppendUint32(b, crc32.ChecksumIEEE(b))
@@ -366,6 +387,9 @@ type ckState struct {
 	pWeight                       float64
 	pN                            int
 	cz, cs, cv, cn, cm            []float64 // creep statistic's z̄, s̄, v, n, normaliser (version ≥ 7; nil: start again)
+	lk, ln, lhead, lsince         int       // level steps' window, rows, next row, since (version ≥ 9; lk 0: start again)
+	lring, lsumA, lsumB           []float64
+	lseen                         []int
 	pAge                          int       // refreshes since the weight's copy of the factor (version ≥ 8)
 	pInc                          []bool    // its channels in the model
 	pL                            []float64 // its rows of L (nil: none)
@@ -498,6 +522,11 @@ func (t *Tracker) decodeCheckpoint(data []byte) (*ckState, error) {
 		if has {
 			v := r.vectors(p, "creep smoothed frame", "creep smoothed residuals", "creep normal variances", "creep variance counts", "creep normalisers")
 			st.cz, st.cs, st.cv, st.cn, st.cm = v[0], v[1], v[2], v[3], v[4]
+		}
+	}
+	if version >= 9 {
+		if err := st.decodeLevel(r, p); err != nil {
+			return nil, err
 		}
 	}
 	nm := int(r.u32("modes length"))
@@ -739,10 +768,60 @@ func (t *Tracker) apply(st *ckState) {
 			cr.prior()
 		}
 	}
+	if ls := t.lst; ls != nil {
+		ls.reset()
+		if st.lk == ls.k && len(st.lring) == len(ls.ring) {
+			copy(ls.ring, st.lring)
+			copy(ls.sumA, st.lsumA)
+			copy(ls.sumB, st.lsumB)
+			copy(ls.seen, st.lseen)
+			ls.n, ls.head, ls.since = st.ln, st.lhead, st.lsince
+		}
+	}
 	t.since = st.since
 	t.cal = st.flags&8 != 0
 	t.calT2, t.calSPE, t.calPhi = st.cal[0], st.cal[1], st.cal[2]
 	t.calScale = [3]float64{st.cal[3], st.cal[4], st.cal[5]}
+}
+
+// decodeLevel reads the level steps' section (version 9): its window k
+// (at most MaxLevelStepFrames, so the ring's size is bounded by p), the
+// ring's position, the ring, the sums and the read runs.
+func (st *ckState) decodeLevel(r *ckReader, p int) error {
+	has, err := r.flag("level flag")
+	if err != nil || !has {
+		return err
+	}
+	k, n, head, since := int(r.u32("level window")), int(r.u32("level rows")), int(r.u32("level next row")), int(r.u32("level since"))
+	if r.err != nil {
+		return ckError("%v", r.err)
+	}
+	if k < 1 || k > MaxLevelStepFrames || n < 1 || n > 2*k || head >= 2*k || since > 2*k {
+		return ckError("level steps: window %d, rows %d, next row %d, since %d (window 1 to %d, rows 1 to 2·window)", k, n, head, since, MaxLevelStepFrames)
+	}
+	if !r.need(8*(2*k*p+2*p)+4*p, "level ring") {
+		return ckError("%v", r.err)
+	}
+	st.lk, st.ln, st.lhead, st.lsince = k, n, head, since
+	st.lring = make([]float64, 2*k*p)
+	r.floats(st.lring, "level ring")
+	v := r.vectors(p, "level sum A", "level sum B")
+	st.lsumA, st.lsumB = v[0], v[1]
+	st.lseen = make([]int, p)
+	for i := range st.lseen {
+		st.lseen[i] = int(r.u32("level read run"))
+		if st.lseen[i] > 2*k {
+			return ckError("level steps: channel %d read for %d frames in a row, more than 2·window %d", i, st.lseen[i], 2*k)
+		}
+	}
+	for _, s := range [][]float64{st.lring, st.lsumA, st.lsumB} {
+		for i, x := range s {
+			if math.IsNaN(x) || math.IsInf(x, 0) {
+				return ckError("level steps: value %d is %v", i, x)
+			}
+		}
+	}
+	return nil
 }
 
 // decodePersistCopy reads the persistence weight's copy of the factor

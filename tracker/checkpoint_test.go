@@ -197,17 +197,17 @@ func TestCheckpointVersion1(t *testing.T) {
 	// learned 8, since 4, then the u32 initial width (version 2 on). The
 	// u32 count of the lag section (version 3 on), the u8 flag of the
 	// variance section (version 4 on), the u8 flag of the MEWMA section
-	// (version 5 on), the u8 flag of the persist section (version 6 on)
-	// and the u8 flag of the creep section (version 7 on) sit before the
-	// modes.
+	// (version 5 on), the u8 flag of the persist section (version 6 on),
+	// the u8 flag of the creep section (version 7 on) and the u8 flag of
+	// the level section (version 9 on) sit before the modes.
 	const at = 4 + 2 + 4 + 8 + 1 + 8 + 8 + 4
 	mb, err := tr.ms.MarshalBinary()
 	if err != nil {
 		t.Fatal(err)
 	}
-	lagAt := len(ck) - 4 - len(mb) - 4 - 1 - 1 - 1 - 1 - 4
+	lagAt := len(ck) - 4 - len(mb) - 4 - 1 - 1 - 1 - 1 - 1 - 4
 	v1 := append(bytes.Clone(ck[:at]), ck[at+4:lagAt]...)
-	v1 = append(v1, ck[lagAt+4+1+1+1+1:len(ck)-4]...)
+	v1 = append(v1, ck[lagAt+4+1+1+1+1+1:len(ck)-4]...)
 	binary.LittleEndian.PutUint16(v1[4:], 1)
 	v1 = binary.LittleEndian.AppendUint32(v1, crc32.ChecksumIEEE(v1))
 	stepBoth(t, tr, restoreTracker(t, p, cfg, v1), src, p, 50, "version 1 restore")
@@ -348,11 +348,11 @@ func TestCheckpointVarianceState(t *testing.T) {
 
 	// The same state written as version 3: drop the variance section
 	// (flag, then 3p floats, just before the modes).
-	varAt := len(ck) - 4 - modesLen(t, p, cfg, ck) - 4 - 1 - 1 - 1 - (1 + 3*8*p) // then the MEWMA, persist and creep flags (versions 5–7), 0 here
+	varAt := len(ck) - 4 - modesLen(t, p, cfg, ck) - 4 - 1 - 1 - 1 - 1 - (1 + 3*8*p) // then the MEWMA, persist, creep and level flags (versions 5–7, 9), 0 here
 	if ck[varAt] != 1 || ck[varAt+1+3*8*p] != 0 || ck[varAt+3+3*8*p] != 0 {
 		t.Fatalf("variance flag %d at byte %d, want 1, then MEWMA flag %d and creep flag %d, want 0", ck[varAt], varAt, ck[varAt+1+3*8*p], ck[varAt+3+3*8*p])
 	}
-	if same, _ := replay(asVersion(ck, 3, varAt, 1+3*8*p+1+1+1)); same {
+	if same, _ := replay(asVersion(ck, 3, varAt, 1+3*8*p+1+1+1+1)); same {
 		t.Error("a version 3 checkpoint (variance state dropped) gave the same variance statistic: the test cannot see the state")
 	}
 

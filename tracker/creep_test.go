@@ -272,11 +272,11 @@ func TestCheckpointCreepState(t *testing.T) {
 	}
 
 	sec := 1 + 5*8*p
-	at := len(ck) - 4 - modesLen(t, p, cfg, ck) - 4 - sec // the creep section, just before the modes
+	at := len(ck) - 4 - modesLen(t, p, cfg, ck) - 4 - 1 - sec // the creep section, then the level flag (0 here) and the modes
 	if ck[at] != 1 {
 		t.Fatalf("creep flag %d at byte %d, want 1", ck[at], at)
 	}
-	if same, _ := replay(asVersion(ck, 6, at, sec)); same { // version 6: no creep section
+	if same, _ := replay(asVersion(ck, 6, at, sec+1)); same { // version 6: no creep section, no level flag
 		t.Error("a version 6 checkpoint (creep state dropped) gave the same creep statistic: the test cannot see the state")
 	}
 	for _, c := range []struct {

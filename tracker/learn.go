@@ -245,6 +245,7 @@ func (t *Tracker) Recentre(x []float64, which []bool, k int) {
 	t.resetMewmaChannels(which)
 	t.resetPersist(which)
 	t.resetCreepChannels(which)
+	t.lst.reset() // the frames before are standardized by the old means
 	for i, w := range which {
 		if w && !math.IsNaN(x[i]) && !math.IsInf(x[i], 0) && t.ew.count[i] > 0 {
 			t.ew.mean[i] += (x[i] - t.ew.mean[i]) / float64(k)

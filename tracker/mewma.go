@@ -181,7 +181,8 @@ func (t *Tracker) ResetMewma() {
 
 // ResetSmoothing starts every smoothed frame of the tracker again from
 // z̄ = 0: the MEWMA statistic's, the persistence weight's and the creep
-// statistic's (which keeps its normal variances), as for a model entered
+// statistic's (which keeps its normal variances) and the level steps'
+// window ring, as for a model entered
 // from another operating state, whose smoothed frames are from the last
 // time it ran. The one place a new smoothed state is reset with the others;
 // what is off is left alone.
@@ -189,6 +190,7 @@ func (t *Tracker) ResetSmoothing() {
 	t.ResetMewma()
 	t.resetPersist(nil)
 	t.ResetCreep()
+	t.lst.reset()
 }
 
 // resetMewmaChannels sets z̄ᵢ = 0 for the channels set in which (a

@@ -171,12 +171,12 @@ func TestCheckpointMewmaState(t *testing.T) {
 	ck, replay := replayCheck(t, p, cfg, 317, 300, "MEWMA statistic", func(sc *Score) bool { return sc.MewmaLimit > 0 },
 		func(sc *Score) float64 { return sc.Mewma }, func(a, b float64) bool { return math.Float64bits(a) == math.Float64bits(b) })
 
-	at := len(ck) - 4 - modesLen(t, p, cfg, ck) - 4 - 1 - 1 - (1 + 8*p) // the MEWMA section, then the persist and creep flags (0 here) and the modes
+	at := len(ck) - 4 - modesLen(t, p, cfg, ck) - 4 - 1 - 1 - 1 - (1 + 8*p) // the MEWMA section, then the persist, creep and level flags (0 here) and the modes
 	if ck[at] != 1 {
 		t.Fatalf("MEWMA flag %d at byte %d, want 1", ck[at], at)
 	}
 	// Version 4: no flag, no z̄, no persist and creep flags.
-	if same, _ := replay(asVersion(ck, 4, at, 1+8*p+1+1)); same {
+	if same, _ := replay(asVersion(ck, 4, at, 1+8*p+1+1+1)); same {
 		t.Error("a version 4 checkpoint (MEWMA state dropped) gave the same MEWMA statistic: the test cannot see the state")
 	}
 	refusesFloat(t, p, cfg, ck, at+1+8*3, math.NaN(), "NaN in the MEWMA state")

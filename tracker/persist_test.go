@@ -256,11 +256,11 @@ func TestPersistCheckpoint(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	at := len(ck) - 4 - len(mb) - 4 - 1 - (1 + 3*8*relP + 8 + 4 + 1) // the persist section (no copy of the factor: its flag 0), then the creep flag (0 here) and the modes
+	at := len(ck) - 4 - len(mb) - 4 - 1 - 1 - (1 + 3*8*relP + 8 + 4 + 1) // the persist section (no copy of the factor: its flag 0), then the creep and level flags (0 here) and the modes
 	if ck[at] != 1 {
 		t.Fatalf("persist flag %d at byte %d, want 1", ck[at], at)
 	}
-	v5 := append(bytes.Clone(ck[:at]), ck[at+1+3*8*relP+8+4+1+1:len(ck)-4]...) // version 5: no persist section, no creep flag
+	v5 := append(bytes.Clone(ck[:at]), ck[at+1+3*8*relP+8+4+1+1+1:len(ck)-4]...) // version 5: no persist section, no creep or level flag
 	binary.LittleEndian.PutUint16(v5[4:], 5)
 	v5 = binary.LittleEndian.AppendUint32(v5, crc32.ChecksumIEEE(v5))
 	w0 := weights(v5)

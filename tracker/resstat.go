@@ -109,7 +109,7 @@ type resGen struct {
 const resDiagBlock = 16
 
 func newResStat(p int, cfg *Config) *resStat {
-	if !cfg.Residual && !cfg.Variance && !cfg.Mewma && !cfg.Creep {
+	if !cfg.Residual && !cfg.Variance && !cfg.Mewma && !cfg.Creep && cfg.LevelStep <= 0 {
 		return nil
 	}
 	rs := &resStat{

@@ -286,6 +286,12 @@ type Config struct {
 	// to 128 channels; see creepEvery).
 	Creep       bool
 	CreepLambda float64
+	// LevelStep, when positive, keeps each channel's level step against
+	// its relation to the others over two adjacent windows of LevelStep
+	// frames (LevelStepsTo; see levelStep), at most MaxLevelStepFrames.
+	// It shares the factor of the residual statistic and keeps 2·LevelStep
+	// frames.
+	LevelStep int
 }
 
 // Errors.
@@ -392,11 +398,12 @@ type Tracker struct {
 	lag  *lagRing   // frames waiting to be learned (Config.Lag; lag.go), nil without
 	ls   limitSpec
 	maxR int
-	rs   *resStat // nil unless Config.Residual or Config.Variance
-	rl   *relStat // nil unless Config.Relations > 0
-	mw   *mewma   // nil unless Config.Mewma
-	ps   *persist // nil unless Config.Persist > 0 (persist.go)
-	cr   *creep   // nil unless Config.Creep
+	rs   *resStat   // nil unless Config.Residual or Config.Variance
+	rl   *relStat   // nil unless Config.Relations > 0
+	mw   *mewma     // nil unless Config.Mewma
+	ps   *persist   // nil unless Config.Persist > 0 (persist.go)
+	cr   *creep     // nil unless Config.Creep
+	lst  *levelStep // nil unless Config.LevelStep
 	// stepping: score is called from Step (advance the variance EWMA)
 	stepping bool
 
@@ -495,6 +502,9 @@ func (c *Config) defaults(p int) error {
 	if !(c.CreepLambda > 0 && c.CreepLambda <= 1) {
 		return fmt.Errorf("%w: CreepLambda %v not in (0, 1]", ErrConfig, c.CreepLambda)
 	}
+	if c.LevelStep < 0 || c.LevelStep > MaxLevelStepFrames {
+		return fmt.Errorf("%w: LevelStep %d not in [0, %d]", ErrConfig, c.LevelStep, MaxLevelStepFrames)
+	}
 	if c.Relations < 0 || c.Relations > 64 || c.RelationSize < 2 {
 		return fmt.Errorf("%w: Relations %d (0 to 64), RelationSize %d (≥ 2)", ErrConfig, c.Relations, c.RelationSize)
 	}
@@ -558,6 +568,7 @@ func New(p int, cfg Config) (*Tracker, error) {
 		ps:    newPersist(p, &cfg),
 	}
 	t.cr = newCreep(p, maxR, t.ew.mu, &cfg)
+	t.lst = newLevelStep(p, &cfg)
 	if t.rl, err = newRelStat(p, &cfg); err != nil {
 		return nil, err
 	}
@@ -767,6 +778,9 @@ func (t *Tracker) score(dst *Score, x []float64) error {
 	}
 	if t.cr != nil {
 		t.cr.score(dst, m, t.rs, w.z, t.obs, t.stuck, t.frames, t.stepping, t.stepping && !t.frozen && !t.baseline)
+	}
+	if t.lst != nil {
+		t.lst.score(t.rs, w.z, t.obs, t.stuck, m.include, t.frames, t.stepping)
 	}
 	dst.Ready = true
 	dst.T2, dst.SPE, dst.Phi = t2, spe, phi
@@ -1207,6 +1221,7 @@ func (t *Tracker) Grow(p2 int, cfg Config) error {
 	t.mw = t.mw.grown(p2, maxR, &cfg)
 	t.ps = t.ps.grown(p2, &cfg)
 	t.cr = t.cr.grown(p2, maxR, t.ew.mu, &cfg)
+	t.lst = t.lst.grown(p2, &cfg)
 	if cap(t.top) < cfg.TopContrib+1 {
 		t.top = make([]int, 0, cfg.TopContrib+1)
 	}

@@ -85,6 +85,7 @@ func (t *Tracker) WidenBy(d []float64, w float64) {
 // variances), on the channels with a finite, nonzero dᵢ, and, with
 // inModel, only on those the model holds.
 func (t *Tracker) widen(d []float64, w float64, inModel bool) {
+	t.lst.reset() // the variances move: the frames before were standardized by others
 	e := t.ew
 	e.Flush()
 	p := e.p
