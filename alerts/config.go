@@ -158,7 +158,8 @@ type QualityRule struct {
 // choices: missing for more than 5 min, stuck as soon as the tracker says so,
 // out of range or stale for 1 min; 1 min off-delay; a silent unit at once,
 // closed by its first reading; spikes at once (the count over SpikeSpan is
-// its own on-delay), 5 min off-delay.
+// its own on-delay), 5 min off-delay; a level shift alike (the window of
+// its mean is its own on-delay).
 func DefaultQuality() map[string]QualityRule {
 	return map[string]QualityRule{
 		QualityStuck:      {Hold: 0, OffDelay: time.Minute, Severity: "low"},
@@ -168,6 +169,7 @@ func DefaultQuality() map[string]QualityRule {
 		QualitySilent:     {Hold: 0, OffDelay: 0, Severity: "medium"},
 		QualityIntakeGap:  {Hold: 0, OffDelay: time.Minute, Severity: "medium"},
 		QualitySpikes:     {Hold: 0, OffDelay: 5 * time.Minute, Severity: "low"},
+		QualityLevelShift: {Hold: 0, OffDelay: 5 * time.Minute, Severity: "low"},
 	}
 }
 
@@ -342,7 +344,7 @@ func (c Config) Validate() error {
 	}
 	for k, q := range c.Quality {
 		switch k {
-		case QualityStuck, QualityOutOfRange, QualityStale, QualityMissing, QualitySilent, QualityIntakeGap, QualitySpikes:
+		case QualityStuck, QualityOutOfRange, QualityStale, QualityMissing, QualitySilent, QualityIntakeGap, QualitySpikes, QualityLevelShift:
 		default:
 			errs = append(errs, fmt.Errorf("alerts: quality[%s]: unknown kind", k))
 		}

@@ -95,6 +95,12 @@ type ChannelProfile struct {
 	// held often enough; nil when unknown (a model file from before it).
 	// The model's correlation shrinkage (model.shrink) reads it.
 	Autocorr []float64 `json:"autocorr,omitempty"`
+	// LevelStepMax is the largest level step of the channel's residual
+	// given the others over the later half of the normal log, in standard
+	// deviations of that residual (tracker.LevelStepsTo); 0 when unknown
+	// (no level steps, or a model file from before them): no level-shift
+	// rule for the channel.
+	LevelStepMax float64 `json:"level_step_max,omitempty"`
 }
 
 // MaxAutocorrLags bounds ChannelProfile.Autocorr.
@@ -157,7 +163,7 @@ func (p *ChannelProfile) Check() error {
 	for _, f := range []struct {
 		name string
 		v    float64
-	}{{"step", p.Step}, {"spike_size", p.SpikeSize}, {"flat_tail", p.FlatTail}} {
+	}{{"step", p.Step}, {"spike_size", p.SpikeSize}, {"flat_tail", p.FlatTail}, {"level_step_max", p.LevelStepMax}} {
 		if !(f.v >= 0) || math.IsInf(f.v, 0) {
 			return fmt.Errorf("%s %g is not a finite non-negative number", f.name, f.v)
 		}
@@ -240,12 +246,24 @@ type Screen struct {
 	frame int64 // frames stepped
 	// silent: every channel missing in the last Step.
 	silent bool
+	// lvl holds the channels' level steps of the last frame when lvlOK
+	// (SetLevelSteps); status: a discrete channel changed its value in
+	// the last Step (StatusChanged).
+	lvl     []float64
+	lvlOK   bool
+	lvlSpan int64
+	status  bool
+	// cond is, per channel, the last frame with a condition or a missing
+	// reading, and anyCond the last frame with a condition of any channel
+	// (SetLevelSteps); far in the past before any.
+	cond    []int64
+	anyCond int64
 }
 
 // NewScreen returns the screen of unit over channels names, each judged by
 // the profile of the same channel name in prof (none: no profile).
 func NewScreen(unit string, names []string, prof []ChannelProfile) *Screen {
-	s := &Screen{unit: unit}
+	s := &Screen{unit: unit, anyCond: math.MinInt32}
 	s.Grow(names, prof)
 	return s
 }
@@ -268,7 +286,10 @@ func (s *Screen) Grow(names []string, prof []ChannelProfile) {
 		s.gap = append(s.gap, 0)
 		s.skip = append(s.skip, false)
 		s.spk = append(s.spk, spikeTrack{})
+		s.lvl = append(s.lvl, 0)
+		s.cond = append(s.cond, math.MinInt32)
 	}
+	s.lvlOK = false
 	s.tailM = stuckScales(s.tailedChannels())
 }
 
@@ -296,6 +317,7 @@ func (s *Screen) Profiled(k int) bool { return s.prof[k].Frames > 0 || s.skip[k]
 // screen's channel order) and miss the missing flags.
 func (s *Screen) Step(x []float64, miss []bool) {
 	s.silent = len(x) > 0
+	s.status = false
 	s.frame++
 	for k, v := range x {
 		if p := &s.prof[k]; p.SpikeSize > 0 {
@@ -303,6 +325,7 @@ func (s *Screen) Step(x []float64, miss []bool) {
 		}
 		if miss[k] || v != v {
 			s.gap[k]++
+			s.cond[k] = s.frame
 			continue // a flat run goes on over a gap: a frozen sensor may also drop out
 		}
 		if !s.skip[k] {
@@ -312,6 +335,9 @@ func (s *Screen) Step(x []float64, miss []bool) {
 		if v == s.last[k] {
 			s.flat[k]++
 		} else {
+			if !s.skip[k] && s.prof[k].Discrete() && s.last[k] == s.last[k] {
+				s.status = true
+			}
 			s.last[k], s.flat[k] = v, 1
 		}
 	}
@@ -343,6 +369,9 @@ func (s *Screen) MissingAlarm(k int) bool {
 //	              that had more than SpikeMax + SpikeMargin one-frame
 //	              spikes in the last SpikeSpanFrames frames, and more than
 //	              a quarter of that in the last quarter of the span
+//	level_shift   the channel, not discrete, with the unit's largest level
+//	              step (SetLevelSteps), when it has a reading and that step
+//	              exceeds LevelShiftFactor times its profile's LevelStepMax
 //
 // Channels without a profile add nothing here: the caller applies the
 // rules without a profile to them.
@@ -355,6 +384,7 @@ func (s *Screen) AppendQuality(dst []Quality) []Quality {
 		if p.Frames == 0 || s.skip[k] {
 			continue
 		}
+		n0 := len(dst)
 		if p.SpikeSize > 0 && s.spk[k].inAlarm(s.frame, p.SpikeSpanFrames, p.SpikeMax) {
 			dst = append(dst, Quality{Channel: s.names[k], Kind: QualitySpikes})
 		}
@@ -368,6 +398,12 @@ func (s *Screen) AppendQuality(dst []Quality) []Quality {
 		if !p.Discrete() && p.outOfRange(v) {
 			dst = append(dst, Quality{Channel: s.names[k], Kind: QualityOutOfRange})
 		}
+		if len(dst) > n0 {
+			s.cond[k], s.anyCond = s.frame, s.frame
+		}
+	}
+	if k := s.levelShift(); k >= 0 {
+		dst = append(dst, Quality{Channel: s.names[k], Kind: QualityLevelShift})
 	}
 	return dst
 }
