@@ -368,6 +368,14 @@ type StatesFile struct {
 	// largest count of the fitted states; absent: none).
 	MinModes int          `json:"min_modes,omitempty"`
 	Models   []StateModel `json:"models"`
+	// Current is 1 + the index in Models of the state the unit was in,
+	// and Since the frames since it entered it (up to the hold-off
+	// window), in a checkpoint (absent in a fitted model file: a replay
+	// enters the state of its first frame). A restored unit goes on in
+	// that state, as an uninterrupted run does, instead of entering it
+	// anew at its first frame (which starts its smoothed frames again).
+	Current int `json:"current,omitempty"`
+	Since   int `json:"since,omitempty"`
 }
 
 // statesBaseline refreshes and freezes every state model with a model and
@@ -410,6 +418,9 @@ func (u *Unit) statesBaseline(withLimits bool) (*StatesFile, int, error) {
 			sm.Limits = limitsOf(m.tr)
 		}
 		out.Models = append(out.Models, sm)
+		if i == s.cur && !u.p.opt.Fit {
+			out.Current, out.Since = len(out.Models), s.since
+		}
 		if best < 0 || m.frames > bestN {
 			best, bestN = i, m.frames
 		}
@@ -456,6 +467,10 @@ func (u *Unit) restoreStates(sf *StatesFile, p int, cfg tracker.Config) error {
 	}
 	u.states = s
 	u.tr = s.models[0].tr
+	if c := sf.Current - 1; c >= 0 && c < len(s.models) && sf.Since >= 0 {
+		s.cur, s.since = c, min(sf.Since, holdOffWindow)
+		u.tr = s.models[c].tr
+	}
 	u.frozen = u.tr.Frozen()
 	return nil
 }
