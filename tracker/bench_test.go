@@ -73,7 +73,7 @@ func newBenchTrackerResidual(b *testing.B, sc *Score, p, refreshEvery, batch, wa
 		persist = DefaultPersist
 	}
 	tr, err := New(p, Config{Period: time.Second, HalfLife: time.Hour, WarmUp: 256, RefreshEvery: refreshEvery, Batch: batch,
-		Residual: residual, Ridge: ridge, LearnRidge: learn, Persist: persist, Creep: benchCreep,
+		Residual: residual, Ridge: ridge, LearnRidge: learn, Persist: persist, Creep: benchCreep, LevelStep: benchLevel,
 		Modes: modes.Config{Count: 5, Sparsity: []modes.Sparsity{{Method: modes.L0, K: 10}}}})
 	if err != nil {
 		b.Fatal(err)
@@ -328,6 +328,20 @@ func BenchmarkFramePersistOverDecode(b *testing.B) {
 // benchPersist sets Persist = DefaultPersist in newBenchTrackerResidual
 // (otherwise off).
 var benchPersist bool
+
+// BenchmarkFramePersistLevelOverDecode is BenchmarkFramePersistOverDecode
+// with the level steps on as the service runs them by default (the
+// pipeline's 5 min window at this 1 s period: 300 frames): per frame 2p
+// additions into the window sums, at p = 500 every creepEvery(500) = 16
+// frames two triangular solves, and the diagonal of Ω once per factor.
+func BenchmarkFramePersistLevelOverDecode(b *testing.B) {
+	benchPersist, benchLevel = true, 300
+	defer func() { benchPersist, benchLevel = false, 0 }()
+	benchOverDecodeResidual(b, -1, 0, true)
+}
+
+// benchLevel sets LevelStep in newBenchTrackerResidual (0: off).
+var benchLevel int
 
 // BenchmarkFrameResidualMaskedOwnRidgeOverDecode is
 // BenchmarkFrameResidualMaskedOverDecode with LearnRidge =

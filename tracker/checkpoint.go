@@ -53,8 +53,10 @@ var ErrCheckpoint = errors.New("tracker: bad checkpoint")
 //	level: u8 present (Config.LevelStep, frames in its ring) | u32 k    [v9]
 //	       | u32 rows filled | u32 next row | u32 frames since the sums
 //	       were formed | 2k·p × f64 ring | p × f64 ΣA | p × f64 ΣB
-//	       | p × u32 frames read in a row: the level steps' window ring
-//	       (off: ignored; another k, or a checkpoint without: empty)
+//	       | p × u32 frames read in a row | u32 evaluations since the
+//	       normalisers | p × f64 normalisers 1/√Ωᵢᵢ (all 0: formed at the
+//	       next evaluation): the level steps' window ring (off: ignored;
+//	       another k, or a checkpoint without: empty)
 //	modes: u32 n | n bytes of modes.Set.MarshalBinary
 //	u32 CRC-32 (IEEE) of everything before
 //
@@ -258,6 +260,13 @@ func (t *Tracker) MarshalBinary() ([]byte, error) {
 		for _, v := range ls.seen {
 			b = le.AppendUint32(b, uint32(v))
 		}
+		b = le.AppendUint32(b, uint32(ls.nrmAge))
+		for _, v := range ls.nrm {
+			if !ls.nrmOK {
+				v = 0
+			}
+			f64(v)
+		}
 	} else {
 		b = append(b, 0)
 	}
@@ -390,6 +399,8 @@ type ckState struct {
 	lk, ln, lhead, lsince         int       // level steps' window, rows, next row, since (version ≥ 9; lk 0: start again)
 	lring, lsumA, lsumB           []float64
 	lseen                         []int
+	lnrm                          []float64
+	lnrmAge                       int
 	pAge                          int       // refreshes since the weight's copy of the factor (version ≥ 8)
 	pInc                          []bool    // its channels in the model
 	pL                            []float64 // its rows of L (nil: none)
@@ -776,6 +787,11 @@ func (t *Tracker) apply(st *ckState) {
 			copy(ls.sumB, st.lsumB)
 			copy(ls.seen, st.lseen)
 			ls.n, ls.head, ls.since = st.ln, st.lhead, st.lsince
+			copy(ls.nrm, st.lnrm)
+			ls.nrmAge = st.lnrmAge
+			for _, x := range st.lnrm {
+				ls.nrmOK = ls.nrmOK || x > 0
+			}
 		}
 	}
 	t.since = st.since
@@ -799,7 +815,7 @@ func (st *ckState) decodeLevel(r *ckReader, p int) error {
 	if k < 1 || k > MaxLevelStepFrames || n < 1 || n > 2*k || head >= 2*k || since > 2*k {
 		return ckError("level steps: window %d, rows %d, next row %d, since %d (window 1 to %d, rows 1 to 2·window)", k, n, head, since, MaxLevelStepFrames)
 	}
-	if !r.need(8*(2*k*p+2*p)+4*p, "level ring") {
+	if !r.need(8*(2*k*p+3*p)+4*p+4, "level ring") {
 		return ckError("%v", r.err)
 	}
 	st.lk, st.ln, st.lhead, st.lsince = k, n, head, since
@@ -814,12 +830,22 @@ func (st *ckState) decodeLevel(r *ckReader, p int) error {
 			return ckError("level steps: channel %d read for %d frames in a row, more than 2·window %d", i, st.lseen[i], 2*k)
 		}
 	}
+	st.lnrmAge = int(r.u32("level normaliser age"))
+	st.lnrm = r.vectors(p, "level normalisers")[0]
 	for _, s := range [][]float64{st.lring, st.lsumA, st.lsumB} {
 		for i, x := range s {
 			if math.IsNaN(x) || math.IsInf(x, 0) {
 				return ckError("level steps: value %d is %v", i, x)
 			}
 		}
+	}
+	for i, x := range st.lnrm {
+		if !(x >= 0) || math.IsInf(x, 0) {
+			return ckError("level steps: normaliser of channel %d is %v", i, x)
+		}
+	}
+	if st.lnrmAge > creepNormEvery {
+		return ckError("level steps: normalisers %d evaluations old, at most %d", st.lnrmAge, creepNormEvery)
 	}
 	return nil
 }

@@ -42,7 +42,8 @@ const MaxLevelStepFrames = 360
 //
 // Cost per frame: 2p additions, and per evaluation (every frame up to 128
 // channels, then every ⌈p/128⌉² frames as creep) two triangular solves,
-// p² multiply-adds; the diagonal of Ω once per factor. No allocation.
+// p² multiply-adds; the diagonal of Ω (p³/6) at every evaluation up to 128
+// channels, above every creepNormEvery evaluations (nrm). No allocation.
 type levelStep struct {
 	p, k, every int
 	ring        []float64 // 2k rows of p: z of the last 2k frames, row head next
@@ -53,6 +54,14 @@ type levelStep struct {
 	s           []float64 // sᵢ of the last evaluation
 	ok          bool      // s is valid
 	seen        []int     // frames channel i has been read in a row (observed, not stuck)
+	// nrm holds 1/√Ωᵢᵢ of the channels in the model (0 for the others),
+	// formed at every evaluation up to creepFullP channels and above
+	// every creepNormEvery evaluations (nrmAge counts them; the diagonal
+	// of Ω costs p³/6 and moves slowly with the exponentially weighted
+	// correlation); nrmOK once formed.
+	nrm    []float64
+	nrmAge int
+	nrmOK  bool
 }
 
 // newLevelStep returns the level steps for p channels under cfg (nil
@@ -66,7 +75,7 @@ func newLevelStep(p int, cfg *Config) *levelStep {
 		p: p, k: k, every: creepEvery(p),
 		ring: make([]float64, 2*k*p), sumA: make([]float64, p), sumB: make([]float64, p),
 		d: make([]float64, p), b: make([]float64, 2*p), om: make([]float64, p), s: make([]float64, p),
-		seen: make([]int, p),
+		seen: make([]int, p), nrm: make([]float64, p),
 	}
 }
 
@@ -156,7 +165,17 @@ func (ls *levelStep) score(rs *resStat, z []float64, obs, stuck, include []bool,
 		return
 	}
 	g := &rs.gens[rs.cur]
-	rs.diagOf(g)
+	if ls.every == 1 || !ls.nrmOK || ls.nrmAge >= creepNormEvery {
+		rs.diagOf(g)
+		for i := range ls.nrm {
+			ls.nrm[i] = 0
+			if g.inc[i] && g.omd[i] > 0 {
+				ls.nrm[i] = 1 / math.Sqrt(g.omd[i])
+			}
+		}
+		ls.nrmAge, ls.nrmOK = 0, true
+	}
+	ls.nrmAge++
 	p := ls.p
 	inv := 1 / float64(ls.k)
 	for i := 0; i < p; i++ {
@@ -169,8 +188,8 @@ func (ls *levelStep) score(rs *resStat, z []float64, obs, stuck, include []bool,
 	upperSolveT(ls.om, ls.b, g.l, p)
 	for i := 0; i < p; i++ {
 		ls.s[i] = 0
-		if g.inc[i] && g.omd[i] > 0 && ls.seen[i] >= 2*ls.k {
-			ls.s[i] = ls.om[i] / math.Sqrt(g.omd[i])
+		if g.inc[i] && ls.seen[i] >= 2*ls.k {
+			ls.s[i] = ls.om[i] * ls.nrm[i]
 		}
 	}
 	ls.ok = true

@@ -273,7 +273,7 @@ func TestCheckpointLevelSteps(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	sec := 1 + 4*4 + 8*(2*k*p+2*p) + 4*p
+	sec := 1 + 4*4 + 8*(2*k*p+2*p) + 4*p + 4 + 8*p
 	at := len(ck) - 4 - len(mb) - 4 - sec
 	if ck[at] != 1 || binary.LittleEndian.Uint32(ck[at+1:]) != k {
 		t.Fatalf("level flag %d, window %d at byte %d; want 1, %d", ck[at], binary.LittleEndian.Uint32(ck[at+1:]), at, k)
