@@ -257,6 +257,7 @@ type Screen struct {
 	// reading, and anyCond the last frame with a condition of any channel
 	// (SetLevelSteps); far in the past before any.
 	cond    []int64
+	qcond   []int64 // per channel, the last frame with a data-quality condition
 	anyCond int64
 }
 
@@ -288,6 +289,7 @@ func (s *Screen) Grow(names []string, prof []ChannelProfile) {
 		s.spk = append(s.spk, spikeTrack{})
 		s.lvl = append(s.lvl, 0)
 		s.cond = append(s.cond, math.MinInt32)
+		s.qcond = append(s.qcond, math.MinInt32)
 	}
 	s.lvlOK = false
 	s.tailM = stuckScales(s.tailedChannels())
@@ -399,7 +401,7 @@ func (s *Screen) AppendQuality(dst []Quality) []Quality {
 			dst = append(dst, Quality{Channel: s.names[k], Kind: QualityOutOfRange})
 		}
 		if len(dst) > n0 {
-			s.cond[k], s.anyCond = s.frame, s.frame
+			s.cond[k], s.qcond[k], s.anyCond = s.frame, s.frame, s.frame
 		}
 	}
 	if k := s.levelShift(); k >= 0 {

@@ -27,7 +27,19 @@ type ChannelRun struct {
 	// Spikes holds the age in frames of each spike remembered (at most
 	// MaxSpikeCount), newest first: 1 is the frame before the last.
 	Spikes []int64 `json:"spikes,omitempty"`
+	// LevelHold and QualityHold are 1 + the age in frames of the
+	// channel's last gap or data-quality condition and of its last
+	// data-quality condition, while younger than maxLevelHold (0: none
+	// that recent): the level-shift rule waits for its windows to clear
+	// of them (SetLevelSteps).
+	LevelHold   int64 `json:"level_hold,omitempty"`
+	QualityHold int64 `json:"quality_hold,omitempty"`
 }
+
+// maxLevelHold bounds the ages ChannelRun carries for the level-shift
+// rule: its two windows together span at most 2·360 frames
+// (tracker.MaxLevelStepFrames).
+const maxLevelHold = 2 * 360
 
 // maxRecent is the number of readings the spike test looks back.
 const maxRecent = 2
@@ -53,7 +65,13 @@ func (s *Screen) AppendState(dst []ChannelRun) []ChannelRun {
 		for i := 0; i < t.n; i++ {
 			r.Spikes = append(r.Spikes, s.frame-t.spike(i))
 		}
-		if r.Flat > 0 || r.Gap > 0 || len(r.Recent) > 0 || len(r.Spikes) > 0 {
+		if a := s.frame - s.cond[k]; a >= 0 && a < maxLevelHold {
+			r.LevelHold = a + 1
+		}
+		if a := s.frame - s.qcond[k]; a >= 0 && a < maxLevelHold {
+			r.QualityHold = a + 1
+		}
+		if r.Flat > 0 || r.Gap > 0 || len(r.Recent) > 0 || len(r.Spikes) > 0 || r.LevelHold > 0 || r.QualityHold > 0 {
 			dst = append(dst, r)
 		}
 	}
@@ -90,7 +108,9 @@ func (s *Screen) SetState(runs []ChannelRun) error {
 	}
 	for k := range s.names {
 		s.last[k], s.flat[k], s.gap[k], s.spk[k] = math.NaN(), 0, 0, spikeTrack{}
+		s.cond[k], s.qcond[k] = math.MinInt32, math.MinInt32
 	}
+	s.anyCond = math.MinInt32
 	for i := range runs {
 		r := &runs[i]
 		k := idx[r.Channel]
@@ -98,6 +118,13 @@ func (s *Screen) SetState(runs []ChannelRun) error {
 			s.last[k], s.flat[k] = r.Value, r.Flat
 		}
 		s.gap[k] = r.Gap
+		if r.LevelHold > 0 {
+			s.cond[k] = s.frame - (r.LevelHold - 1)
+		}
+		if r.QualityHold > 0 {
+			s.qcond[k] = s.frame - (r.QualityHold - 1)
+			s.anyCond = max(s.anyCond, s.qcond[k])
+		}
 		t := &s.spk[k]
 		t.run = len(r.Recent)
 		switch t.run {
@@ -128,6 +155,8 @@ func (r *ChannelRun) problem() string {
 		return fmt.Sprintf("%d recent readings (at most %d)", len(r.Recent), maxRecent)
 	case len(r.Spikes) > MaxSpikeCount:
 		return fmt.Sprintf("%d spikes (at most %d)", len(r.Spikes), MaxSpikeCount)
+	case r.LevelHold < 0 || r.LevelHold > maxLevelHold || r.QualityHold < 0 || r.QualityHold > maxLevelHold:
+		return fmt.Sprintf("level-shift holds %d and %d (0 to %d)", r.LevelHold, r.QualityHold, maxLevelHold)
 	}
 	for _, v := range r.Recent {
 		if !isFinite(v) {

@@ -158,6 +158,8 @@ func TestScreenStateRefused(t *testing.T) {
 		{"age zero", []ChannelRun{{Channel: "u.spiky", Spikes: []int64{0}}}, "not positive and ascending"},
 		{"infinite value", []ChannelRun{{Channel: "u.flat", Flat: 2, Value: math.Inf(1)}}, "not finite"},
 		{"NaN reading", []ChannelRun{{Channel: "u.spiky", Recent: []float64{math.NaN()}}}, "not finite"},
+		{"level hold too old", []ChannelRun{{Channel: "u.flat", LevelHold: maxLevelHold + 1}}, "level-shift holds"},
+		{"negative quality hold", []ChannelRun{{Channel: "u.flat", QualityHold: -1}}, "level-shift holds"},
 	}
 	for _, c := range cases {
 		err := s.SetState(c.runs)
@@ -171,5 +173,51 @@ func TestScreenStateRefused(t *testing.T) {
 	// No state: every run starts empty.
 	if err := s.SetState(nil); err != nil || len(s.AppendState(nil)) != 0 {
 		t.Errorf("empty state: %v, runs left %v", err, s.AppendState(nil))
+	}
+}
+
+// The level-shift rule's waits travel in the screen state: a screen
+// restored from a state taken two frames after another channel's
+// out-of-range reading (span 3) names a level shift exactly when the one
+// that ran on does, and a channel's own gap likewise.
+func TestScreenStateLevelHolds(t *testing.T) {
+	prof := []ChannelProfile{
+		{Channel: "u.a", Frames: 100, LevelStepMax: 1, Min: 0, Max: 10},
+		{Channel: "u.b", Frames: 100, Min: 3, Max: 5},
+	}
+	names := []string{"u.a", "u.b"}
+	for _, c := range []struct {
+		name string
+		x    []float64
+		miss []bool
+	}{
+		{"another channel out of range", []float64{1, 1e6}, []bool{false, false}},
+		{"own gap", []float64{1, 4}, []bool{true, false}},
+	} {
+		run := NewScreen("u", names, prof)
+		run.Step([]float64{1, 4}, make([]bool, 2))
+		run.AppendQuality(nil)
+		run.Step(c.x, c.miss)
+		run.AppendQuality(nil)
+		run.Step([]float64{1.1, 4}, make([]bool, 2))
+		run.AppendQuality(nil)
+		st := run.AppendState(nil)
+		back := NewScreen("u", names, prof)
+		if err := back.SetState(st); err != nil {
+			t.Fatal(err)
+		}
+		for f := 0; f < 4; f++ {
+			var got [2]bool
+			for i, s := range []*Screen{run, back} {
+				s.Step([]float64{1.2 + float64(f)/10, 4}, make([]bool, 2))
+				s.SetLevelSteps([]float64{5, 0}, true, 3)
+				for _, q := range s.AppendQuality(nil) {
+					got[i] = got[i] || q.Kind == QualityLevelShift
+				}
+			}
+			if got[0] != got[1] || got[0] != (f >= 2) {
+				t.Errorf("%s, frame %d after the state: level shift %v (ran on) and %v (restored), want %v", c.name, f, got[0], got[1], f >= 2)
+			}
+		}
 	}
 }
