@@ -351,6 +351,17 @@ type Model struct {
 	// scored, so a slow drift is scored against a model that has not yet
 	// followed it (N-step-ahead scoring). Default 0.
 	ScoreLag time.Duration `yaml:"score_lag"`
+	// LevelShift turns on the level-shift rule: each channel's residual
+	// given the others, its mean over the last LevelWindow against the
+	// LevelWindow before, beyond alerts.LevelShiftFactor times the most
+	// the normal log showed (a transmitter that shifts against its
+	// relations: tracker.LevelStepsTo, alerts.QualityLevelShift). Default
+	// [DefaultLevelShift].
+	LevelShift *bool `yaml:"level_shift"`
+	// LevelWindow is the plant time of each of the level-shift rule's two
+	// windows (at least two frames, at most tracker.MaxLevelStepFrames).
+	// Default [DefaultLevelWindow].
+	LevelWindow time.Duration `yaml:"level_window"`
 	// ResolutionFloor: no channel is standardized with a standard
 	// deviation below this multiple of its resolution, the quantisation
 	// step its data-quality profile learned in fit (a nearly constant
@@ -639,8 +650,10 @@ var defaultModeCount = func() ModeCount {
 
 // DefaultModel returns the default model settings.
 func DefaultModel() Model {
-	adapt := true
+	adapt, level := true, DefaultLevelShift
 	return Model{
+		LevelShift:   &level,
+		LevelWindow:  DefaultLevelWindow,
 		Sparsity:     DefaultSparsity,
 		Modes:        defaultModeCount,
 		MaxModes:     DefaultMaxModes,

@@ -290,6 +290,16 @@ var settings = []Setting{
 		set: setBool(func(o *Overrides) **bool { return &o.Alerts.CalibratePoints }),
 	},
 	{
+		Name: "level_shift", Section: "model", Grid: true, Default: strconv.FormatBool(DefaultLevelShift),
+		Doc: "true|false: raise an alert on a channel whose residual given the others steps between two adjacent windows beyond 1.5 times the most its normal log showed",
+		set: setBool(func(o *Overrides) **bool { return &o.Model.LevelShift }),
+	},
+	{
+		Name: "level_window", Section: "model", Grid: true, Default: FormatDuration(DefaultLevelWindow),
+		Doc: "plant time of each of the level-shift rule's two windows (at least two frames)",
+		set: setDuration(func(o *Overrides) *time.Duration { return &o.Model.LevelWindow }),
+	},
+	{
 		Name: "adapt", Section: "model", Grid: true, Default: "true",
 		Doc: "true|false: keep learning while scoring",
 		set: setBool(func(o *Overrides) **bool { return &o.Model.Adapt }),

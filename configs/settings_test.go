@@ -39,6 +39,8 @@ func TestSettingDefaults(t *testing.T) {
 		"calibrate_points":     strconv.FormatBool(DefaultCalibratePoints),
 		"spread_restarts_hold": strconv.FormatBool(alerts.DefaultSpreadRestartsHold),
 		"driver_level":         strconv.FormatFloat(tracker.DefaultDriverLevel, 'g', -1, 64),
+		"level_shift":          strconv.FormatBool(DefaultLevelShift),
+		"level_window":         FormatDuration(DefaultLevelWindow),
 	}
 	if DefaultHalfLife != 7*24*time.Hour {
 		t.Fatalf("DefaultHalfLife = %v; the table above says 7d", DefaultHalfLife)

@@ -55,9 +55,15 @@ func TestDemoRuns(t *testing.T) {
 // F2 supply drift), 4 isolated in the top 3 and one false alert over the
 // two days (the chill unit's residual at Mar 6 10:07; before frames were
 // centred on the period grid: none, and with a budget of 0.5: 6, 6 and
-// none). The bounds are those figures: detection below 5 or more than one
-// false alert (0.5 per simulated day) is a change in the defaults'
-// behaviour on this plant worth a look.
+// none). With the persistence weight, 6 detected and 6 isolated. With the
+// level-shift rule (model.level_shift, on by default) a live run measured
+// 6 detected, 6 isolated and two false alerts: the chill unit's at 10:07
+// and a level shift of the air header pressure at Mar 6 18:02, a channel
+// that follows a setpoint the plant does not publish (the offline suite's
+// demo row has one of the same kind at 10:35). The bounds: detection
+// below 5 or more than two false alerts (one per simulated day, the
+// issue's target) is a change in the defaults' behaviour on this plant
+// worth a look.
 // The data and the faults are invented (sim); this is a check of the
 // shipped demo, not a validation of the method.
 func TestDemoOutcome(t *testing.T) {
@@ -87,10 +93,10 @@ func TestDemoOutcome(t *testing.T) {
 	if m.Episodes != 7 || m.Detected < 5 {
 		t.Errorf("detected %d of %d labelled faults, want at least 5 of 7", m.Detected, m.Episodes)
 	}
-	// One false alert over the two days (a frame or two short of 48 h) is
-	// a little over 0.5 a day: the bound is the count.
-	if m.FalseAlertsPerDay == nil || math.IsNaN(*m.FalseAlertsPerDay) || m.FalseAlerts > 1 {
-		t.Errorf("%d false alerts over %s, want at most 1 (0.5 per simulated day)", m.FalseAlerts, oc.span)
+	// Two false alerts over the two days (a frame or two short of 48 h)
+	// are a little over one a day: the bound is the count.
+	if m.FalseAlertsPerDay == nil || math.IsNaN(*m.FalseAlertsPerDay) || m.FalseAlerts > 2 {
+		t.Errorf("%d false alerts over %s, want at most 2 (1 per simulated day)", m.FalseAlerts, oc.span)
 	}
 	if m.IsolatedTop3 < 4 {
 		t.Errorf("%d faults isolated in the top 3, want at least 4", m.IsolatedTop3)

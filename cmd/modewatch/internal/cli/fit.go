@@ -147,6 +147,7 @@ func runFit(ctx context.Context, env IO, args []string) error {
 			}
 		}
 		printSpikes(env.Out, u.Name, "  ", u.Quality)
+		printLevels(env.Out, u.Name, "  ", u.Quality)
 		for _, s := range u.Suggested {
 			fmt.Fprintf(env.Out, "  context suggestion: %s (unit %s) explains %.0f%% of this unit's variance; list it in units[].context if it drives this unit\n",
 				s.Channel, s.Unit, 100*s.Share)
@@ -176,6 +177,34 @@ func printModes(w io.Writer, unit, indent string, modes []pipeline.ModeView) {
 		}
 		fmt.Fprintf(w, "%smode %d (%4.1f%%): %s\n", indent, m.ID, 100*m.VarianceShare, strings.Join(parts, ", "))
 	}
+}
+
+// printLevels prints on one line the normal level steps the unit's
+// normal log taught (alerts.ChannelProfile.LevelStepMax: per channel the
+// largest step of its residual given the others between two adjacent
+// windows, in standard deviations of that residual) and the level each
+// alerts at (alerts.LevelShiftFactor times it); then the channels without
+// a level-shift rule (discrete, or no steps learned). Nothing is printed
+// for a unit without profiles or without any level learned.
+func printLevels(w io.Writer, unit, indent string, profiles []alerts.ChannelProfile) {
+	var with, without []string
+	for _, p := range profiles {
+		name := strings.TrimPrefix(p.Channel, unit+".")
+		if p.LevelStepMax > 0 {
+			with = append(with, fmt.Sprintf("%s %.3g", name, p.LevelStepMax))
+		} else {
+			without = append(without, name)
+		}
+	}
+	if len(with) == 0 {
+		return
+	}
+	line := fmt.Sprintf("%slevel steps (largest of the normal log's later half, σ of each channel's residual given the others; a shift beyond %g times): %s",
+		indent, alerts.LevelShiftFactor, strings.Join(with, ", "))
+	if len(without) > 0 {
+		line += "; no level-shift rule: " + strings.Join(without, ", ")
+	}
+	fmt.Fprintln(w, line)
 }
 
 // printSpikes prints the spike sizes the unit's normal log taught (see

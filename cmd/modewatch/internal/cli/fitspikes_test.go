@@ -34,3 +34,30 @@ func TestPrintSpikes(t *testing.T) {
 		})
 	}
 }
+
+// fit prints per unit the normal level steps its log taught and the
+// channels without a level-shift rule; nothing without any level.
+func TestPrintLevels(t *testing.T) {
+	cases := []struct {
+		name     string
+		profiles []alerts.ChannelProfile
+		want     string
+	}{
+		{"mixed", []alerts.ChannelProfile{
+			{Channel: "u.flow", LevelStepMax: 1.2345},
+			{Channel: "u.state", Levels: 2},
+			{Channel: "u.temp", LevelStepMax: 0.5},
+		}, "  level steps (largest of the normal log's later half, σ of each channel's residual given the others; a shift beyond 1.5 times): flow 1.23, temp 0.5; no level-shift rule: state\n"},
+		{"none learned", []alerts.ChannelProfile{{Channel: "u.state"}}, ""},
+		{"no profiles", nil, ""},
+	}
+	for _, c := range cases {
+		t.Run(c.name, func(t *testing.T) {
+			var b bytes.Buffer
+			printLevels(&b, "u", "  ", c.profiles)
+			if b.String() != c.want {
+				t.Errorf("got  %q\nwant %q", b.String(), c.want)
+			}
+		})
+	}
+}

@@ -21,7 +21,7 @@ func TestSettingRoutesAgree(t *testing.T) {
 		"deadband": "0.1", "adapt": "false", "limits": "empirical:reference.lp", "smoothing": "0.3", "mewma_lambda": "0.1", "creep_lambda": "0.1",
 		"on_span":    "2m",
 		"statistics": "t2,spe", "state_scoring": "most_probable", "new_point": "false", "new_point_res": "false", "calibrate_points": "true", "spread_restarts_hold": "true",
-		"driver_level": "off",
+		"driver_level": "off", "level_shift": "false", "level_window": "10m",
 	}
 	base := &configs.Config{}
 	base.ApplyDefaults()

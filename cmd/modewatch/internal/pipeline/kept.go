@@ -28,6 +28,7 @@ var fixedSettings = []struct {
 	{"lags", func(s ModelSettings) string { return strconv.Itoa(s.Lags) }},
 	{"mewma_lambda", func(s ModelSettings) string { return strconv.FormatFloat(s.MewmaLambda, 'g', -1, 64) }},
 	{"creep_lambda", func(s ModelSettings) string { return strconv.FormatFloat(s.CreepLambda, 'g', -1, 64) }},
+	{"level_window", func(s ModelSettings) string { return configs.FormatDuration(time.Duration(s.LevelWindow)) }},
 }
 
 // FixedSettings returns the keys (in the configuration's model section)

@@ -304,4 +304,18 @@ func (p *Pipeline) learnSettings(cfg *tracker.Config, m configs.Model, period ti
 	if !p.opt.Fit && m.ScoreLag > 0 && period > 0 {
 		cfg.Lag = int(m.ScoreLag / period)
 	}
+	cfg.LevelStep = LevelStepFrames(m, period)
+}
+
+// LevelStepFrames returns the frames in each window of the level-shift
+// rule (model.level_shift, model.level_window) at frame period period: the
+// window's plant time in frames, rounded, at least 2 and at most
+// tracker.MaxLevelStepFrames; 0 when the rule is off or the period unknown.
+func LevelStepFrames(m configs.Model, period time.Duration) int {
+	m = m.Over(configs.DefaultModel())
+	if (m.LevelShift != nil && !*m.LevelShift) || period <= 0 || m.LevelWindow <= 0 {
+		return 0
+	}
+	k := int((m.LevelWindow + period/2) / period)
+	return min(max(k, 2), tracker.MaxLevelStepFrames)
 }

@@ -195,13 +195,17 @@ type ModelSettings struct {
 	MewmaLambda float64 `json:"mewma_lambda,omitempty"`
 	// CreepLambda is model.creep_lambda (absent: the default).
 	CreepLambda float64 `json:"creep_lambda,omitempty"`
+	// LevelWindow is model.level_window, the window the channels'
+	// normal level steps (alerts.ChannelProfile.LevelStepMax) were
+	// learned over (absent: the default).
+	LevelWindow alerts.Duration `json:"level_window,omitempty"`
 }
 
 func settingsOf(m configs.Model) ModelSettings {
 	return ModelSettings{
 		Sparsity: m.Sparsity, Modes: m.Modes.String(), MaxModes: m.MaxModes, HalfLife: alerts.Duration(m.HalfLife),
 		Alpha: m.Alpha, RefreshEvery: m.RefreshEvery, WarmUp: m.WarmUp, Statistics: m.Statistics, Smoothing: m.Smoothing, Lags: max(m.Lags, 0),
-		MewmaLambda: m.MewmaLambda, CreepLambda: m.CreepLambda,
+		MewmaLambda: m.MewmaLambda, CreepLambda: m.CreepLambda, LevelWindow: alerts.Duration(m.LevelWindow),
 	}
 }
 
@@ -213,7 +217,7 @@ func (s ModelSettings) model() (configs.Model, error) {
 	return configs.Model{
 		Sparsity: s.Sparsity, Modes: mc, MaxModes: s.MaxModes, HalfLife: time.Duration(s.HalfLife),
 		Alpha: s.Alpha, RefreshEvery: s.RefreshEvery, WarmUp: s.WarmUp, Statistics: s.Statistics, Smoothing: s.Smoothing, Lags: s.Lags,
-		MewmaLambda: s.MewmaLambda, CreepLambda: s.CreepLambda,
+		MewmaLambda: s.MewmaLambda, CreepLambda: s.CreepLambda, LevelWindow: time.Duration(s.LevelWindow),
 	}, nil
 }
 
@@ -304,6 +308,9 @@ func (p *Pipeline) buildFromModel(mu *ModelUnit, period time.Duration) (*Unit, e
 		return nil, fmt.Errorf("%w: unit %s: %v", ErrModelFile, mu.Name, err)
 	}
 	p.learnSettings(&cfg, p.cfg.ModelFor(mu.Name), period)
+	lm := p.cfg.ModelFor(mu.Name) // level_shift as configured, over the window the file's levels were learned with
+	lm.LevelWindow = settings.LevelWindow
+	cfg.LevelStep = LevelStepFrames(lm, period)
 	if mu.States != nil {
 		floorModes(&cfg, mu.States.MinModes) // the states' shared floor (statemodes.go)
 	}
@@ -320,6 +327,7 @@ func (p *Pipeline) buildFromModel(mu *ModelUnit, period time.Duration) (*Unit, e
 	u.smooth = settings.Smoothing
 	u.setCalibration(mu.Calibration)
 	u.model.Adapt = adapt
+	u.model.LevelShift = lm.LevelShift
 	u.model.MaxChannels = p.cfg.ModelFor(mu.Name).MaxChannels
 	u.fixed = adapt != nil && !*adapt
 	u.equal = equal
@@ -400,6 +408,9 @@ func (p *Pipeline) Baseline() (*ModelFile, error) {
 			p.log.Info("operating states found", "unit", u.Name, "states", k)
 		}
 		if u.states != nil {
+			for _, sm := range u.states.models {
+				sm.tr.ResetLevelSteps() // a replay starts after the normal log: no window across the gap
+			}
 			f, best, err := u.statesBaseline(true)
 			if err != nil {
 				errs = append(errs, fmt.Errorf("unit %s: %w", u.Name, err))
@@ -417,6 +428,7 @@ func (p *Pipeline) Baseline() (*ModelFile, error) {
 		}
 		u.tr.Freeze()
 		u.frozen = true
+		u.tr.ResetLevelSteps() // a replay starts after the normal log: no window across the gap
 		state, err := saveState(u.tr)
 		if err != nil {
 			errs = append(errs, fmt.Errorf("unit %s: %w", u.Name, err))

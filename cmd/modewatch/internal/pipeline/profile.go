@@ -35,6 +35,8 @@ type profiler struct {
 	other [][]int
 	// serial learns each channel's autocorrelation (serial.go).
 	serial []serialLearner
+	// level learns the channels' normal level steps (levelprofile.go).
+	level levelLearner
 }
 
 type restRun struct {
@@ -188,6 +190,9 @@ func (pr *profiler) profiles() []alerts.ChannelProfile {
 		pr.spikes[k].Profile(&p)
 		p.FlatTail = pr.flatTail(k, p.Rest)
 		p.Autocorr = pr.serial[k].autocorr()
+		if p.Levels == 0 {
+			p.LevelStepMax = pr.levelMax(k)
+		}
 		out = append(out, p)
 	}
 	return out

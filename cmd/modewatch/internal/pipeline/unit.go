@@ -66,6 +66,9 @@ type Unit struct {
 	profile []alerts.ChannelProfile
 	screen  *alerts.Screen
 	learn   *profiler
+	// lvl receives the tracker's level steps of the frame scored
+	// (tracker.LevelStepsTo), for the screen and, in fit, the profiler.
+	lvl []float64
 	// states: one model per operating state (nil: one model); see states.go.
 	states *unitStates
 	// Context channels (drivers from other units; context.go): their
@@ -342,7 +345,13 @@ func (u *Unit) stepModel(f *stream.Frame) {
 	t0 := time.Now()
 	u.tr.SetMewmaScale(u.mewmaRel())
 	u.tr.SetCreepScale(u.creepRel())
+	if u.screen.StatusChanged() {
+		u.tr.ResetLevelSteps() // a status moved: the relations before may differ
+	}
 	err := u.tr.StepMasked(&u.score, u.x, u.miss, u.lagMask(u.learnMask()))
+	if err == nil {
+		u.levelSteps()
+	}
 	if refreshDue && err == nil {
 		u.refreshes++
 		u.lastRefresh = time.Since(t0)
@@ -379,6 +388,30 @@ func (u *Unit) stepModel(f *stream.Frame) {
 	u.lastT = f.Start
 	u.keepLast(f)
 	u.pending = pendScored
+}
+
+// levelSteps hands the tracker's level steps of the frame just scored to
+// the screen and, in fit, to the profiler. It allocates only when the
+// unit's width grew.
+func (u *Unit) levelSteps() {
+	w := u.tr.P()
+	if len(u.lvl) < w {
+		u.lvl = make([]float64, w)
+	}
+	ok := u.tr.LevelStepsTo(u.lvl)
+	// Outside the operating region the model has seen (T² over its
+	// limit) its conditional expectations extrapolate: a move of the
+	// operating point steps the residuals of the channels it reaches
+	// beyond the range of their relation, which is not a shift of one
+	// reading.
+	if s := &u.score; s.Ready && s.T2Limit > 0 && s.T2 > s.T2Limit {
+		ok = false
+	}
+	p := len(u.names) // lagged columns after the channels are not judged
+	u.screen.SetLevelSteps(u.lvl[:p], ok, 2*u.tr.Config().LevelStep)
+	if u.learn != nil {
+		u.learn.addLevel(u.lvl[:p], ok)
+	}
 }
 
 // What finish hands on after learn.
