@@ -450,6 +450,20 @@ func TestStatesCheckpoint(t *testing.T) {
 	if restored, errs := pc.Restore([]*ModelFile{ck2}); len(errs) > 0 || len(restored) != 1 {
 		t.Fatalf("restored %v: %v", restored, errs)
 	}
+	// The restored unit goes on in the state it was in, with every state's
+	// tracker bit for bit (entering it anew would start its smoothed
+	// frames again).
+	ub, uc := pb.Unit("mix"), pc.Unit("mix")
+	if ub.states.cur != uc.states.cur || ub.states.since != uc.states.since {
+		t.Fatalf("restored in state %d (%d frames), checkpointed in %d (%d)", uc.states.cur, uc.states.since, ub.states.cur, ub.states.since)
+	}
+	for i, m := range ub.states.models {
+		a, errA := m.tr.MarshalBinary()
+		b, errB := uc.states.models[i].tr.MarshalBinary()
+		if errA != nil || errB != nil || !bytes.Equal(a, b) {
+			t.Fatalf("state %d's tracker differs after the restore (%v, %v)", i, errA, errB)
+		}
+	}
 	runFrames(t, pc, frames[half:], nil)
 	if len(first)+len(second) != len(whole) {
 		t.Fatalf("%d + %d frames scored, uninterrupted %d", len(first), len(second), len(whole))
