@@ -211,6 +211,9 @@ func TestMewmaValidation(t *testing.T) {
 		{"model: {creep_lambda: -0.2}\n", "model.creep_lambda"},
 		{"units: [{name: a, model: {creep_lambda: 2}}]\n", "creep_lambda"},
 		{"units: [{name: a, model: {mewma_lambda: 2}}]\n", "mewma_lambda"},
+		{"model: {level_shift: false, level_window: 10m}\n", ""},
+		{"model: {level_window: -5m}\n", "model.level_window"},
+		{"units: [{name: a, model: {level_window: -1s}}]\n", "level_window"},
 	} {
 		checkKeyError(t, c.yaml, c.want)
 	}

@@ -321,6 +321,9 @@ func (v *validator) model(p string, m Model, partial bool) {
 	if m.CreepLambda != 0 && !(m.CreepLambda > 0 && m.CreepLambda < 1) {
 		v.add(p+".creep_lambda", "%g is not an EWMA weight in (0, 1)", m.CreepLambda)
 	}
+	if m.LevelWindow < 0 {
+		v.add(p+".level_window", "negative")
+	}
 	if m.Statistics != "" {
 		if _, err := ParseStatistics(m.Statistics); err != nil {
 			v.add(p+".statistics", "%v", err)
