@@ -46,9 +46,12 @@ const (
 	// unit's model size in bytes for p channels, UnitModelBytesSq·p² +
 	// UnitModelBytesLin·p: the estimate the engine makes
 	// (pipeline.UnitModelBytes, where they are measured and checked) and
-	// the size max_channels is validated against.
+	// the size max_channels is validated against. The linear term holds
+	// the level steps' window ring at its largest (2·MaxLevelStepFrames
+	// frames of p values, model.level_window at 6 min or more at a 1 s
+	// period; at the default 5 min and 20 s, 15 frames).
 	UnitModelBytesSq  = 62
-	UnitModelBytesLin = 6000
+	UnitModelBytesLin = 6000 + 16*tracker.MaxLevelStepFrames
 	// UnitMaxChannelsCeiling bounds model.max_channels (about 6.3 GB).
 	UnitMaxChannelsCeiling = 10000
 

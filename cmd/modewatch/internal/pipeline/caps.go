@@ -41,10 +41,17 @@ func UnitModelBytes(p int) int64 {
 // copy of the residual factor's lower triangle, 4·p² more: 13.3·p² at
 // p = 400 and 12.5·p² at p = 1000, 62 % and 69 % of this bound
 // (TestStateBoundPersist); about 12·p² for the widest units by the same
-// count (an estimate, not measured).
+// count (an estimate, not measured). The level steps' window ring adds up
+// to levelRingBytes per channel (2·tracker.MaxLevelStepFrames frames, the
+// window sums, normalisers and read runs), whatever p.
 func maxStateBytes(p int) int {
-	return 16*p*p + 2048*p + 64<<10
+	return 16*p*p + (2048+levelRingBytes)*p + 64<<10
 }
+
+// levelRingBytes is the level steps' checkpoint section per channel at
+// its largest window: 2·MaxLevelStepFrames ring values, two sums and a
+// normaliser (8 bytes each) and a read run (4).
+const levelRingBytes = 8*(2*tracker.MaxLevelStepFrames+3) + 4
 
 // checkState checks one tracker state of p channels: its length against
 // the bounds for p, the channel count in its header and its checksum.

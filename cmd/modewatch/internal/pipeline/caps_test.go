@@ -35,9 +35,11 @@ func TestMaxChannelsMessage(t *testing.T) {
 
 // TestStateBoundPersist: the tracker state of a wide unit with the
 // persistence weight on (model.persist, which keeps a copy of the residual
-// factor) stays within the bound a model file's or checkpoint's state is
-// checked against (maxStateBytes), with room to spare; the same unit
-// without the weight is smaller, so the test sees the copy.
+// factor) and the level steps' ring at its largest (filled) stays within
+// the bound a model file's or checkpoint's state is checked against
+// (maxStateBytes), with room to spare; the same unit without the weight is
+// smaller, so the test sees the copy. TestStateBoundLevelRing checks the
+// ring's share in a narrow unit, where it dominates.
 func TestStateBoundPersist(t *testing.T) {
 	if testing.Short() {
 		t.Skip("builds trackers of 1000 channels")
@@ -51,6 +53,7 @@ func TestStateBoundPersist(t *testing.T) {
 				t.Fatal(err)
 			}
 			cfg.Persist = persist // as the unit's learner sets it (location.go)
+			cfg.LevelStep = tracker.MaxLevelStepFrames
 			tr, err := tracker.New(p, cfg)
 			if err != nil {
 				t.Fatal(err)
@@ -58,7 +61,7 @@ func TestStateBoundPersist(t *testing.T) {
 			rng := rand.New(rand.NewPCG(2, uint64(p)))
 			x := make([]float64, p)
 			var sc tracker.Score
-			for k := 0; k < 3*p/2; k++ { // more frames than channels: a full-rank covariance
+			for k := 0; k < max(3*p/2, 100+2*tracker.MaxLevelStepFrames); k++ { // a full-rank covariance and a full ring
 				for i := range x {
 					x[i] = rng.NormFloat64()
 				}
@@ -84,9 +87,50 @@ func TestStateBoundPersist(t *testing.T) {
 	}
 }
 
+// TestStateBoundLevelRing: the state of a narrow unit (20 channels,
+// where the ring outweighs the p² terms) with the level steps' ring at its
+// largest and filled stays within maxStateBytes, and is refused by
+// checkState only beyond it.
+func TestStateBoundLevelRing(t *testing.T) {
+	const p = 20
+	m := configs.DefaultModel()
+	m.WarmUp = 100
+	cfg, err := TrackerConfig(m, time.Second, p, false)
+	if err != nil {
+		t.Fatal(err)
+	}
+	cfg.LevelStep = tracker.MaxLevelStepFrames
+	tr, err := tracker.New(p, cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	rng := rand.New(rand.NewPCG(3, p))
+	x := make([]float64, p)
+	var sc tracker.Score
+	for k := 0; k < 100+2*tracker.MaxLevelStepFrames+10; k++ {
+		for i := range x {
+			x[i] = rng.NormFloat64()
+		}
+		if err := tr.Step(&sc, x, nil); err != nil {
+			t.Fatal(err)
+		}
+	}
+	st, err := tr.MarshalBinary()
+	if err != nil {
+		t.Fatal(err)
+	}
+	if ring := 8 * 2 * tracker.MaxLevelStepFrames * p; len(st) < ring {
+		t.Fatalf("state %d bytes, less than its ring alone (%d): the ring is not in it", len(st), ring)
+	}
+	if err := checkState("u", st, p); err != nil {
+		t.Errorf("state of %d bytes refused (bound %d): %v", len(st), maxStateBytes(p), err)
+	}
+}
+
 // TestUnitModelBytes checks the memory estimate against the live heap of
 // a tracker of p channels after warm-up under the default settings
-// (standard normal invented data), within 25 %.
+// (standard normal invented data), with the level steps' ring at its
+// largest, within 25 %.
 func TestUnitModelBytes(t *testing.T) {
 	if testing.Short() {
 		t.Skip("builds trackers of 800 channels")
@@ -98,6 +142,7 @@ func TestUnitModelBytes(t *testing.T) {
 		if err != nil {
 			t.Fatal(err)
 		}
+		cfg.LevelStep = tracker.MaxLevelStepFrames
 		runtime.GC()
 		var m0, m1 runtime.MemStats
 		runtime.ReadMemStats(&m0)
