@@ -25,6 +25,7 @@ const maxLevelBlocks = 512
 type levelLearner struct {
 	per    int         // frames per block (at least 1)
 	n      int         // frames in the current block
+	nb     int         // blocks so far, the open one included (every channel's slice has this length)
 	blocks [][]float64 // per channel: maxima of the closed blocks and, last, of the open one
 }
 
@@ -38,8 +39,11 @@ func (pr *profiler) addLevel(s []float64, ok bool) {
 			l.per = max(1, int(levelBlock/pr.period))
 		}
 	}
+	if l.nb == 0 {
+		l.nb = 1
+	}
 	for len(l.blocks) < len(s) {
-		l.blocks = append(l.blocks, []float64{0})
+		l.blocks = append(l.blocks, make([]float64, l.nb)) // a channel added later saw no step before
 	}
 	if ok {
 		for k, v := range s {
@@ -53,18 +57,20 @@ func (pr *profiler) addLevel(s []float64, ok bool) {
 		return
 	}
 	l.n = 0
+	merge := l.nb == maxLevelBlocks
+	if merge {
+		l.nb, l.per = maxLevelBlocks/2, 2*l.per
+	}
 	for k, b := range l.blocks {
-		if len(b) == maxLevelBlocks {
+		if merge {
 			for j := 0; j < len(b)/2; j++ {
 				b[j] = math.Max(b[2*j], b[2*j+1])
 			}
 			b = b[:len(b)/2]
-			if k == len(l.blocks)-1 {
-				l.per *= 2
-			}
 		}
 		l.blocks[k] = append(b, 0)
 	}
+	l.nb++
 }
 
 // levelMax returns channel k's normal level step: the largest block

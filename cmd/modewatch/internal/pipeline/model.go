@@ -307,10 +307,9 @@ func (p *Pipeline) buildFromModel(mu *ModelUnit, period time.Duration) (*Unit, e
 	if err != nil {
 		return nil, fmt.Errorf("%w: unit %s: %v", ErrModelFile, mu.Name, err)
 	}
-	p.learnSettings(&cfg, p.cfg.ModelFor(mu.Name), period)
-	lm := p.cfg.ModelFor(mu.Name) // level_shift as configured, over the window the file's levels were learned with
+	lm := p.cfg.ModelFor(mu.Name) // the learning as configured, the level window the file's levels were learned over
 	lm.LevelWindow = settings.LevelWindow
-	cfg.LevelStep = LevelStepFrames(lm, period)
+	p.learnSettings(&cfg, lm, period)
 	if mu.States != nil {
 		floorModes(&cfg, mu.States.MinModes) // the states' shared floor (statemodes.go)
 	}
