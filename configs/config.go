@@ -39,8 +39,8 @@ const (
 	MaxChannelsCeiling = 100000
 	// DefaultUnitMaxChannels caps the channels of one unit's model. A
 	// unit's model needs about UnitModelBytesSq·p² + UnitModelBytesLin·p
-	// bytes, so 2000 channels take about 260 MB by that estimate, and with
-	// one checkpoint being written or received beside it about 310 MB.
+	// bytes, so 2000 channels take about 270 MB by that estimate, and with
+	// one checkpoint being written or received beside it about 320 MB.
 	DefaultUnitMaxChannels = 2000
 	// UnitModelBytesSq and UnitModelBytesLin are the coefficients of a
 	// unit's model size in bytes for p channels, UnitModelBytesSq·p² +
