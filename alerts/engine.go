@@ -246,6 +246,7 @@ type incident struct {
 	stats     [nStats]statPeak
 	peak      Peak
 	hasPeak   bool
+	excess    []chanExcess // each channel's excess over its own limit (excess.go)
 	sev       int
 	sevName   string
 	contrib   []RecordContributor
@@ -877,6 +878,7 @@ func (e *Engine) updateModel(inc *incident, o *Observation, t time.Time) bool {
 		}
 	}
 	e.refreshStates(inc)
+	inc.addExcess(o)
 	if !newPeak {
 		return false
 	}
@@ -1166,12 +1168,16 @@ func (e *Engine) record(inc *incident) *Record {
 		s := *inc.g.shelf
 		r.Shelved = &s
 	}
-	for _, c := range inc.contrib {
-		c.Modes = slices.Clone(c.Modes)
-		if c.Modes == nil {
-			c.Modes = []int{}
+	if r.Group == GroupModel {
+		r.Contributors = inc.recordContributors(r.Contributors, e.cfg.MaxContributors)
+	} else {
+		for _, c := range inc.contrib {
+			c.Modes = slices.Clone(c.Modes)
+			if c.Modes == nil {
+				c.Modes = []int{}
+			}
+			r.Contributors = append(r.Contributors, c)
 		}
-		r.Contributors = append(r.Contributors, c)
 	}
 	r.Missing = append(r.Missing, inc.missing...)
 	return r

@@ -435,6 +435,7 @@ func (e *Engine) merge(earlier, later *incident, t time.Time) {
 		return
 	}
 	earlier.loc.add(later.loc.channels)
+	mergeExcess(earlier, later)
 	earlier.loc.merged = append(earlier.loc.merged, later.id)
 	earlier.loc.merged = append(earlier.loc.merged, later.loc.merged...)
 	later.loc.mergedInto = earlier.id

@@ -7,17 +7,17 @@ import (
 )
 
 // TestRecordRanksOverLimitFirst: a record lists the contributors over
-// their own control limit first, then the others, each group by RBC as
-// the observation ranks them, and keeps MaxContributors of them. A
-// channel is significant when its contribution exceeds its own control
-// limit (Alcalá & Qin 2009, the limit of each RBC; common practice for
-// contribution plots, Westerhuis, Gurden & Smilde 2000, from memory):
-// a tightly held channel that drifted (a small RBC, far over its small
+// their own control limit first, then the others by RBC as the
+// observation ranks them, and keeps MaxContributors of them. A channel is
+// significant when its contribution exceeds its own control limit
+// (Alcalá & Qin 2009, the limit of each RBC; common practice for
+// contribution plots, Westerhuis, Gurden & Smilde 2000, from memory): a
+// tightly held channel that drifted (a small RBC, far over its small
 // limit) is named before loosely held channels that wander with larger
-// RBC under their limits. A single-sensor fault whose channel is over its
-// limit keeps its first place, since that group is ranked by RBC (the
-// guarantee of Alcalá & Qin among the significant channels). Invented
-// values.
+// RBC under their limits. The channels over their limits are ranked by
+// their summed excess over the incident, Σ(RBC/limit − 1) (excess.go):
+// with the same frame repeated, by RBC/limit, so "d" (2 over a limit of
+// 1) comes before "c" (3 over 2). Invented values.
 func TestRecordRanksOverLimitFirst(t *testing.T) {
 	for _, tc := range []struct {
 		name string
@@ -31,7 +31,7 @@ func TestRecordRanksOverLimitFirst(t *testing.T) {
 			{Channel: "makeup", RBC: 0.14, Limit: 0.36}}, 5, []string{"supply", "basin", "bearing", "fan", "makeup"}},
 		{"two over, by RBC", []Contributor{
 			{Channel: "a", RBC: 5, Limit: 1}, {Channel: "b", RBC: 4, Limit: 9}, {Channel: "c", RBC: 3, Limit: 2},
-			{Channel: "d", RBC: 2, Limit: 1}}, 3, []string{"a", "c", "d"}},
+			{Channel: "d", RBC: 2, Limit: 1}}, 3, []string{"a", "d", "c"}},
 		{"none over: RBC order", []Contributor{
 			{Channel: "a", RBC: 5, Limit: 6}, {Channel: "b", RBC: 4, Limit: 9}, {Channel: "c", RBC: 3}}, 5, []string{"a", "b", "c"}},
 	} {

@@ -98,7 +98,11 @@ type Peak struct {
 	Time      time.Time `json:"time"`
 }
 
-// RecordContributor is one ranked channel at the time of the peak.
+// RecordContributor is one ranked channel of a record. In a model
+// incident's record the channels that went over their own contribution
+// limit come first, by their summed excess over the incident, each as at
+// the frame of its own largest RBC/limit; then the other channels of the
+// peak frame, as at that frame (excess.go).
 type RecordContributor struct {
 	Rank     int     `json:"rank"`
 	Channel  string  `json:"channel"`
@@ -106,8 +110,8 @@ type RecordContributor struct {
 	RBC      float64 `json:"rbc"`
 	RBCLimit float64 `json:"rbc_limit"`
 	Modes    []int   `json:"modes"`
-	// Reading is the channel's value at the frame of the peak, Expected
-	// the value the other channels imply under the model there and Band
+	// Reading is the channel's value at that frame, Expected the value
+	// the other channels imply under the model there and Band
 	// the half-width of the band Expected ± Band that holds the
 	// fault-free value with the probability BandCoverage; all in the
 	// channel's engineering unit, null where unknown (see
