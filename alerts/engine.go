@@ -247,6 +247,7 @@ type incident struct {
 	peak      Peak
 	hasPeak   bool
 	excess    []chanExcess // each channel's excess over its own limit (excess.go)
+	level     *LevelStep   // a level shift's size at its peak (quality incidents)
 	sev       int
 	sevName   string
 	contrib   []RecordContributor
@@ -505,7 +506,7 @@ func (e *Engine) Observe(o *Observation) error {
 	switch {
 	case in && !g.inAlarm:
 		g.inAlarm, g.since = true, t
-		e.activate(u, g, t, o, nil)
+		e.activate(u, g, t, o, nil, nil)
 	case !in && g.inAlarm:
 		g.inAlarm = false
 		if g.inc != nil {
@@ -530,19 +531,19 @@ func (e *Engine) Observe(o *Observation) error {
 			bad = fmt.Errorf("%w: unit %q: quality[%d]: empty channel", ErrInput, o.Unit, i)
 			continue
 		}
-		e.stepQuality(u, q.Kind, q.Channel, true, t, o)
+		e.stepQuality(u, q.Kind, q.Channel, true, t, o, q)
 	}
 	for i, ch := range o.Missing {
 		if ch == "" {
 			bad = fmt.Errorf("%w: unit %q: missing[%d]: empty channel", ErrInput, o.Unit, i)
 			continue
 		}
-		e.stepQuality(u, QualityMissing, ch, true, t, o)
+		e.stepQuality(u, QualityMissing, ch, true, t, o, nil)
 	}
 	for i := 0; i < len(u.qorder); i++ {
 		q := u.qorder[i]
 		if q.seq != u.seq {
-			e.stepQuality(u, q.g.qkind, q.g.chann, false, t, o)
+			e.stepQuality(u, q.g.qkind, q.g.chann, false, t, o, nil)
 			if q.a.State() == Normal && q.g.inc == nil && q.g.shelf == nil && !q.g.chattering && quiet(&q.g.acts, t, u.rules.ChatterWindow) {
 				u.dropQuality(i)
 				i--
@@ -661,7 +662,11 @@ func (u *unit) clearQuality() {
 	u.qorder = slices.Delete(u.qorder, 0, len(u.qorder))
 }
 
-func (e *Engine) stepQuality(u *unit, kind, ch string, present bool, t time.Time, o *Observation) {
+// stepQuality steps the data-quality alarm kind:ch, present or not in
+// this frame; m, when not nil, is the condition's entry of the frame with
+// its measure (Quality.Value, Quality.Limit), which sets the incident's
+// peak.
+func (e *Engine) stepQuality(u *unit, kind, ch string, present bool, t time.Time, o *Observation, m *Quality) {
 	k := qkey{kind, ch}
 	q := u.quality[k]
 	if q == nil {
@@ -689,16 +694,38 @@ func (e *Engine) stepQuality(u *unit, kind, ch string, present bool, t time.Time
 	switch in := to.InAlarm(); {
 	case in && !g.inAlarm:
 		g.inAlarm, g.since = true, t
-		e.activate(u, g, t, o, &q.a)
+		e.activate(u, g, t, o, &q.a, m)
 	case !in && g.inAlarm:
 		g.inAlarm = false
 		e.deactivate(u, g, t)
+	default:
+		if present && g.inc != nil && !g.inc.ended {
+			g.inc.qualityPeak(m, t)
+		}
+	}
+}
+
+// qualityPeak takes the measure of a data-quality condition's frame m
+// (nil or without a Limit: none) as inc's peak when its Value/Limit is
+// the largest yet, with a level shift's size.
+func (inc *incident) qualityPeak(m *Quality, t time.Time) {
+	if m == nil || !(m.Limit > 0) || math.IsNaN(m.Value) || math.IsInf(m.Value, 0) {
+		return
+	}
+	r := m.Value / m.Limit
+	if inc.hasPeak && r <= inc.peak.Ratio {
+		return
+	}
+	inc.hasPeak = true
+	inc.peak = Peak{Statistic: inc.g.qkind, Value: m.Value, Limit: m.Limit, Ratio: r, Time: t.UTC()}
+	if m.Level {
+		inc.level = &LevelStep{Before: Number(m.Before), After: Number(m.After), Step: Number(m.Step), Window: Duration(m.Window)}
 	}
 }
 
 // activate handles a group going into alarm at t: a new incident, or one
 // more activation of a chattering incident.
-func (e *Engine) activate(u *unit, g *group, t time.Time, o *Observation, qa *Alarm) {
+func (e *Engine) activate(u *unit, g *group, t time.Time, o *Observation, qa *Alarm, m *Quality) {
 	g.lastAct = t
 	if g.chattering && g.inc != nil {
 		g.inc.chatter.Activations++
@@ -734,6 +761,7 @@ func (e *Engine) activate(u *unit, g *group, t time.Time, o *Observation, qa *Al
 		inc.sevName = e.cfg.Quality[g.qkind].Severity
 		inc.sev = slices.IndexFunc(u.rules.Severity, func(b SeverityBand) bool { return b.Name == inc.sevName })
 		inc.missing = append(inc.missing[:0], o.Missing...)
+		inc.qualityPeak(m, t)
 	}
 	g.inc = inc
 	e.remember(inc)
@@ -1152,6 +1180,13 @@ func (e *Engine) record(inc *incident) *Record {
 		r.Group = GroupQuality
 		r.Quality = &RecordQuality{Kind: inc.g.qkind, Channel: inc.g.chann}
 		r.Peak = Peak{Statistic: inc.g.qkind, Value: 1, Limit: 1, Ratio: 1, Time: inc.start}
+		if inc.hasPeak {
+			r.Peak = inc.peak
+		}
+		if inc.level != nil {
+			l := *inc.level
+			r.Quality.Level = &l
+		}
 	default:
 		r.Group = GroupModel
 		r.Peak = inc.peak

@@ -601,7 +601,7 @@ func TestObserveErrors(t *testing.T) {
 	if !errors.Is(err, ErrInput) || !strings.Contains(err.Error(), `stats[0]: unknown statistic "q"`) {
 		t.Errorf("unknown stat: %v", err)
 	}
-	err = h.e.Observe(&Observation{Unit: "u", Time: sec(12), Quality: []Quality{{"c", "wobbly"}}})
+	err = h.e.Observe(&Observation{Unit: "u", Time: sec(12), Quality: []Quality{{Channel: "c", Kind: "wobbly"}}})
 	if !errors.Is(err, ErrInput) || !strings.Contains(err.Error(), `quality[0]`) {
 		t.Errorf("unknown quality: %v", err)
 	}
@@ -681,7 +681,7 @@ func TestObserveAllocs(t *testing.T) {
 		Stats:        []Stat{{StatT2, 5, 10}, {StatSPE, 1, 5}, {StatPhi, 1, 3}},
 		Contributors: []Contributor{{Channel: "a", Share: 1, RBC: 1, Modes: []int{0}}},
 		Missing:      []string{"u.b"}, // missing, but not yet for the hold time
-		Quality:      []Quality{{"u.c", QualityStuck}},
+		Quality:      []Quality{{Channel: "u.c", Kind: QualityStuck}},
 	}
 	step := stepper(t, e, &o)
 	for i := 0; i < 10; i++ {
@@ -706,7 +706,7 @@ func benchObserve(b *testing.B, nq int) {
 	e, _ := NewEngine(Config{}, PublisherFunc(func(*Record) {}), nil, nil)
 	o := Observation{Unit: "u", ModelState: ModelAdapting, Stats: []Stat{{StatT2, 5, 10}, {StatSPE, 1, 5}, {StatPhi, 1, 3}}}
 	for i := 0; i < nq; i++ {
-		o.Quality = append(o.Quality, Quality{fmt.Sprintf("u.c%d.x", i), QualityStuck})
+		o.Quality = append(o.Quality, Quality{Channel: fmt.Sprintf("u.c%d.x", i), Kind: QualityStuck})
 	}
 	o.Time = sec(0)
 	e.Observe(&o)

@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"math"
 	"strconv"
+	"time"
 )
 
 // Number is a measured value in a channel's engineering unit that may be
@@ -74,4 +75,26 @@ func (d *RecordContributor) setExpected(c *Contributor) {
 	if Number(c.Expected).Known() && Number(c.Band).Known() && c.Band >= 0 {
 		d.Expected, d.Band, d.BandCoverage = Number(c.Expected), Number(c.Band), c.BandCoverage
 	}
+}
+
+// Describe says what a data-quality record found, in the channel's terms:
+// its kind and channel and, for a level shift with its size,
+//
+//	level_shift air.header.pressure: 6.80 → 7.20 (means over 5m0s before and after), 0.38 not explained by the other channels
+//
+// (the digits follow the unexplained step's size, as Expectation's follow
+// the band's).
+func (q *RecordQuality) Describe() string {
+	s := q.Kind + " " + q.Channel
+	l := q.Level
+	if l == nil || !l.Before.Known() || !l.After.Known() || !l.Step.Known() {
+		return s
+	}
+	dec := 2
+	if a := math.Abs(float64(l.Step)); a > 0 {
+		dec = min(max(1-int(math.Floor(math.Log10(a))), 0), 6)
+	}
+	f := func(v Number) string { return strconv.FormatFloat(float64(v), 'f', dec, 64) }
+	return s + ": " + f(l.Before) + " → " + f(l.After) + " (means over " + time.Duration(l.Window).String() +
+		" before and after), " + f(l.Step) + " not explained by the other channels"
 }

@@ -67,3 +67,28 @@ func TestRecordExpected(t *testing.T) {
 		t.Errorf("round trip: %v %+v", err, back)
 	}
 }
+
+// Describe names a data-quality record's kind and channel and, for a level
+// shift with its size, the windows' means and the unexplained step with
+// digits from the step's size; a level with an unknown value names only
+// the kind and channel. Invented values.
+func TestQualityDescribe(t *testing.T) {
+	lv := func(b, a, s float64) *LevelStep {
+		return &LevelStep{Before: Number(b), After: Number(a), Step: Number(s), Window: Duration(5 * time.Minute)}
+	}
+	for _, tc := range []struct {
+		q    RecordQuality
+		want string
+	}{
+		{RecordQuality{Kind: QualityStuck, Channel: "u.a.x"}, "stuck u.a.x"},
+		{RecordQuality{Kind: QualityLevelShift, Channel: "air.header.pressure", Level: lv(6.8, 7.2, 0.38)},
+			"level_shift air.header.pressure: 6.80 → 7.20 (means over 5m0s before and after), 0.38 not explained by the other channels"},
+		{RecordQuality{Kind: QualityLevelShift, Channel: "p.flow", Level: lv(412.3, 431.9, -18.4)},
+			"level_shift p.flow: 412 → 432 (means over 5m0s before and after), -18 not explained by the other channels"},
+		{RecordQuality{Kind: QualityLevelShift, Channel: "p.flow", Level: lv(412.3, math.NaN(), 3)}, "level_shift p.flow"},
+	} {
+		if got := tc.q.Describe(); got != tc.want {
+			t.Errorf("got  %q\nwant %q", got, tc.want)
+		}
+	}
+}

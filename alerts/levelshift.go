@@ -36,7 +36,8 @@ func (s *Screen) SetLevelSteps(v []float64, ok bool, span int) {
 }
 
 // levelShift returns the channel whose level step of the last frame is a
-// shift, or −1: the channel with the largest absolute step of the unit's
+// shift, or −1, with its |sᵢ| and its threshold LevelShiftFactor·
+// LevelStepMax (both 0 with no channel): the channel with the largest absolute step of the unit's
 // judged channels (not discrete, not skipped), when that step exceeds
 // LevelShiftFactor times its profile's LevelStepMax. A step of one
 // channel's reading by δ moves every channel's standardized conditional
@@ -45,9 +46,9 @@ func (s *Screen) SetLevelSteps(v []float64, ok bool, span int) {
 // reasoning of the reconstruction-based contribution's guarantee for one
 // sensor's fault, Alcalá & Qin 2009): another channel over its own level
 // is smeared by it and is not named.
-func (s *Screen) levelShift() int {
+func (s *Screen) levelShift() (k int, v, lim float64) {
 	if !s.lvlOK {
-		return -1
+		return -1, 0, 0
 	}
 	best, bi := 0.0, -1
 	for k := range s.prof {
@@ -59,12 +60,12 @@ func (s *Screen) levelShift() int {
 		}
 	}
 	if bi < 0 || s.gap[bi] > 0 || s.prof[bi].Frames == 0 || s.frame-s.cond[bi] <= s.lvlSpan || s.frame-s.anyCond <= s.lvlSpan {
-		return -1
+		return -1, 0, 0
 	}
 	if m := s.prof[bi].LevelStepMax; !(m > 0) || best <= LevelShiftFactor*m {
-		return -1
+		return -1, 0, 0
 	}
-	return bi
+	return bi, best, LevelShiftFactor * s.prof[bi].LevelStepMax
 }
 
 // StatusChanged reports whether a discrete channel of the screen (a

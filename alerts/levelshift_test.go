@@ -3,6 +3,7 @@ package alerts
 import (
 	"strings"
 	"testing"
+	"time"
 )
 
 // The screen's level-shift rule: the channel with the unit's largest
@@ -115,5 +116,38 @@ func TestLevelShiftAlert(t *testing.T) {
 	h.quality(361)
 	if r := h.last(); r.End == nil {
 		t.Fatalf("open after the off-delay: %+v", r)
+	}
+}
+
+// A level shift's record carries its measure: the peak is the frame of the
+// largest step over its threshold (not the first), with the step's size
+// in the channel's unit (Quality.Level), valid under the schema; a
+// snapshot taken while it is open restores both. Invented values.
+func TestLevelShiftRecordSize(t *testing.T) {
+	h := newHarness(t, Config{})
+	q := func(v, before, after, step float64) Quality {
+		return Quality{Channel: "u.a.x", Kind: QualityLevelShift, Value: v, Limit: 2,
+			Before: before, After: after, Step: step, Window: 5 * time.Minute, Level: true}
+	}
+	h.quality(0, q(3, 6.80, 7.10, 0.25))
+	h.quality(20, q(5, 6.80, 7.20, 0.38)) // the peak
+	h.quality(40, q(4, 6.85, 7.20, 0.33))
+	h2 := newHarness(t, Config{})
+	h2.restore(h.snapshot())
+	for _, hh := range []*harness{h, h2} {
+		hh.quality(60)
+		hh.quality(361) // the off-delay ends it: the final record
+		r := hh.last()
+		validateRecord(t, r)
+		if r.End == nil {
+			t.Fatalf("open after the off-delay: %+v", r)
+		}
+		if r.Peak.Statistic != QualityLevelShift || r.Peak.Value != 5 || r.Peak.Limit != 2 || r.Peak.Ratio != 2.5 ||
+			!r.Peak.Time.Equal(sec(20)) {
+			t.Errorf("peak %+v, want the step 5 over its threshold 2 at 20 s", r.Peak)
+		}
+		if lv := r.Quality.Level; lv == nil || lv.Before != 6.80 || lv.After != 7.20 || lv.Step != 0.38 || time.Duration(lv.Window) != 5*time.Minute {
+			t.Errorf("level %+v, want 6.80 → 7.20, 0.38 unexplained, 5m0s windows", lv)
+		}
 	}
 }

@@ -116,5 +116,17 @@ type Contributor struct {
 // Quality is one data-quality condition of one channel in one frame.
 type Quality struct {
 	Channel string
-	Kind    string // QualityStuck, QualityOutOfRange, QualityStale, QualityMissing or QualitySilent
+	Kind    string // QualityStuck, QualityOutOfRange, QualityStale, QualityMissing, QualitySilent, QualitySpikes or QualityLevelShift
+	// Value and Limit measure the condition where its kind has a measure
+	// (QualityLevelShift: the channel's level step |sᵢ| and its threshold,
+	// in standard deviations of its conditional residual); 0 otherwise.
+	// The incident's peak is the frame of the largest Value/Limit.
+	Value, Limit float64
+	// Before and After are the channel's mean over the window before and
+	// the window after a level step and Step the part of After − Before
+	// that the other channels do not explain (sᵢ in the channel's unit),
+	// all in the channel's engineering unit; used when Level is true.
+	Before, After, Step float64
+	Window              time.Duration // each window's span
+	Level               bool
 }

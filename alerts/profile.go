@@ -404,8 +404,8 @@ func (s *Screen) AppendQuality(dst []Quality) []Quality {
 			s.cond[k], s.qcond[k], s.anyCond = s.frame, s.frame, s.frame
 		}
 	}
-	if k := s.levelShift(); k >= 0 {
-		dst = append(dst, Quality{Channel: s.names[k], Kind: QualityLevelShift})
+	if k, v, lim := s.levelShift(); k >= 0 {
+		dst = append(dst, Quality{Channel: s.names[k], Kind: QualityLevelShift, Value: v, Limit: lim})
 	}
 	return dst
 }

@@ -47,13 +47,13 @@ func TestScreen(t *testing.T) {
 		{"machine at rest and status held for long", 5000, [4]float64{0, 0, 40, 1}, [4]bool{false, false, true, true}, nil},
 		{"flow frozen just within margin", 3 + StuckMargin, [4]float64{1500, 1, 40, 1}, [4]bool{true, false, false, true}, nil},
 		{"flow frozen past margin", 4 + StuckMargin, [4]float64{1500, 1, 40, 1}, [4]bool{true, false, false, true},
-			[]Quality{{"u.flow", QualityStuck}}},
+			[]Quality{{Channel: "u.flow", Kind: QualityStuck}}},
 		{"speed frozen at a live value", 3 + StuckMargin, [4]float64{1500, 1, 40, 1}, [4]bool{false, false, true, true},
-			[]Quality{{"u.speed", QualityStuck}}},
-		{"flow far out of range", 1, [4]float64{1500, 1, 60, 1}, [4]bool{}, []Quality{{"u.flow", QualityOutOfRange}}},
+			[]Quality{{Channel: "u.speed", Kind: QualityStuck}}},
+		{"flow far out of range", 1, [4]float64{1500, 1, 60, 1}, [4]bool{}, []Quality{{Channel: "u.flow", Kind: QualityOutOfRange}}},
 		{"flow near its range", 1, [4]float64{1500, 1, 54, 1}, [4]bool{}, nil},
 		{"status at a value never seen", 1, [4]float64{1500, 7, 40, 1}, [4]bool{}, nil},
-		{"all silent", 3, [4]float64{nan, nan, nan, nan}, [4]bool{}, []Quality{{"u", QualitySilent}}},
+		{"all silent", 3, [4]float64{nan, nan, nan, nan}, [4]bool{}, []Quality{{Channel: "u", Kind: QualitySilent}}},
 	}
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {

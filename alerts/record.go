@@ -87,6 +87,24 @@ type RecordStat struct {
 type RecordQuality struct {
 	Kind    string `json:"kind"`
 	Channel string `json:"channel"`
+	// Level is a level shift's size at the incident's peak, in the
+	// channel's engineering unit (QualityLevelShift only).
+	Level *LevelStep `json:"level,omitempty"`
+}
+
+// LevelStep says how far a channel shifted against its relations: its
+// mean over the window before and over the window after the step, and the
+// part of the difference the unit's other channels do not explain (the
+// step of its conditional residual), all in the channel's unit, e.g.
+//
+//	level_shift air.header.pressure: 6.80 → 7.20 (means over 5m0s before and after), 0.38 not explained by the other channels
+//
+// (RecordQuality.Describe).
+type LevelStep struct {
+	Before Number   `json:"before"`
+	After  Number   `json:"after"`
+	Step   Number   `json:"unexplained"`
+	Window Duration `json:"window"`
 }
 
 // Peak is the largest value/limit ratio of the incident.

@@ -25,7 +25,7 @@ func (e *Engine) Silence(unit string, t time.Time) bool {
 	// A fresh sequence number marks the condition present for this step
 	// only; the next Observe (u.seq+1) steps it absent unless named again.
 	u.seq++
-	e.stepQuality(u, QualitySilent, unit, true, t, &Observation{Unit: unit, Time: t})
+	e.stepQuality(u, QualitySilent, unit, true, t, &Observation{Unit: unit, Time: t}, nil)
 	e.endTimers(u, t)
 	return true
 }
@@ -55,7 +55,7 @@ func (e *Engine) SilenceUnseen(unit string, t time.Time) bool {
 	}
 	e.startTimers(u, t)
 	u.seq++
-	e.stepQuality(u, QualitySilent, unit, true, t, &Observation{Unit: unit, Time: t})
+	e.stepQuality(u, QualitySilent, unit, true, t, &Observation{Unit: unit, Time: t}, nil)
 	e.endTimers(u, t)
 	return true
 }

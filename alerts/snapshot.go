@@ -88,6 +88,7 @@ type snapIncident struct {
 	SevName     string              `json:"sev_name"`
 	Contrib     []RecordContributor `json:"contrib,omitempty"`
 	Excess      []chanExcess        `json:"excess,omitempty"`
+	Level       *LevelStep          `json:"level,omitempty"`
 	Missing     []string            `json:"missing,omitempty"`
 	Ack         *Ack                `json:"ack,omitempty"`
 	Stale       bool                `json:"stale,omitempty"`
@@ -267,7 +268,7 @@ func incidentFields(inc *incident, si *snapIncident) []fieldPair {
 		pair(&inc.member, &si.Member), pair(&inc.memberIdx, &si.MemberIdx), pair(&inc.endReason, &si.EndReason),
 		pair(&inc.members, &si.Members), pair(&inc.memberCount, &si.MemberCount), pair(&inc.lastPub, &si.LastPub),
 		pair(&inc.dirty, &si.Dirty), pair(&inc.maxCount, &si.MaxCount), pair(&inc.reopened, &si.Reopened),
-		pair(&inc.lastReopen, &si.LastReopen), pair(&inc.excess, &si.Excess),
+		pair(&inc.lastReopen, &si.LastReopen), pair(&inc.excess, &si.Excess), pair(&inc.level, &si.Level),
 	}
 }
 

@@ -213,3 +213,23 @@ func (t *Tracker) LevelStepsTo(dst []float64) bool {
 // changed: the relations before and after differ); the steps are valid
 // again 2·LevelStep frames later. Without Config.LevelStep it does nothing.
 func (t *Tracker) ResetLevelSteps() { t.lst.reset() }
+
+// LevelStepOf returns, for channel i of the last scored frame, its mean
+// over the window before the level step and over the window after (the k
+// frames before the last k, and the last k) and the unexplained step, the
+// step of its conditional residual sᵢ/√Ωᵢᵢ, all in the channel's unit:
+// each window's mean of the standardized frames z̄ is carried back as
+// μᵢ + σᵢz̄ and the step as σᵢsᵢ/√Ωᵢᵢ, with the mean μᵢ and standard
+// deviation σᵢ the frames are standardized with now (the ring empties
+// when they move, see levelStep). ok is false when LevelStepsTo's steps
+// are not valid, i is not a channel, or channel i has no step (out of
+// the model, or not read throughout both windows).
+func (t *Tracker) LevelStepOf(i int) (before, after, step float64, ok bool) {
+	ls := t.lst
+	if ls == nil || !ls.ok || i < 0 || i >= ls.p || ls.nrm[i] == 0 || ls.seen[i] < 2*ls.k {
+		return 0, 0, 0, false
+	}
+	mu, sd := t.ew.Mean(i), math.Sqrt(t.scaleVar(i))
+	inv := 1 / float64(ls.k)
+	return mu + sd*ls.sumB[i]*inv, mu + sd*ls.sumA[i]*inv, sd * ls.s[i] * ls.nrm[i], true
+}

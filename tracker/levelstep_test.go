@@ -72,17 +72,33 @@ func TestLevelStepOneChannel(t *testing.T) {
 	var sc Score
 	x := make([]float64, 8)
 	got, mean := make([]float64, 8), make([]float64, 8)
+	meanStep := 0.0
 	for trial := 0; trial < trials; trial++ {
 		tr.ResetLevelSteps()
+		var before, after float64 // the shifted channel's window means, computed here
 		for f := 0; f < 3*k; f++ {
 			src.frame(x)
 			if f >= 2*k {
 				x[j] += delta * src.sd[j]
 			}
+			switch {
+			case f >= 2*k:
+				after += x[j] / k
+			case f >= k:
+				before += x[j] / k
+			}
 			if err := tr.Step(&sc, x, nil); err != nil {
 				t.Fatal(err)
 			}
 		}
+		// LevelStepOf in the channel's unit: the window means are the
+		// readings' own (the baseline does not move its means), the
+		// unexplained step σⱼsⱼ/√Ωⱼⱼ.
+		b, a, st, ok := tr.LevelStepOf(j)
+		if !ok || math.Abs(b-before) > 1e-9*src.sd[j] || math.Abs(a-after) > 1e-9*src.sd[j] {
+			t.Errorf("trial %d: LevelStepOf(%d) = %v → %v (ok %v), the readings' window means %v → %v", trial, j, b, a, ok, before, after)
+		}
+		meanStep += st / trials
 		if !tr.LevelStepsTo(got) {
 			t.Fatal("no level steps with a full ring")
 		}
@@ -96,6 +112,15 @@ func TestLevelStepOneChannel(t *testing.T) {
 		if best != j {
 			t.Errorf("trial %d: largest step in channel %d, not the shifted %d: %.3f", trial, best, j, got)
 		}
+	}
+	// The unexplained step of the shifted channel is its reading's step,
+	// δ·sd (the others do not move with it): each trial's has standard
+	// deviation sd·√(2/k)/√Ωⱼⱼ ≈ 0.05·sd, the mean of 12 0.014·sd.
+	if want := delta * src.sd[j]; math.Abs(meanStep-want) > 0.06*src.sd[j] {
+		t.Errorf("mean unexplained step %.4f, want δ·sd = %.4f", meanStep, want)
+	}
+	if _, _, _, ok := tr.LevelStepOf(8); ok {
+		t.Error("LevelStepOf(8) of 8 channels: ok")
 	}
 	// Each trial's sᵢ has standard deviation √(2/k) = 0.1 about its mean;
 	// the mean of 12, 0.029.

@@ -513,7 +513,7 @@ func (b *board) render(recs []alerts.Record) string {
 			top = append(top, fmt.Sprintf("%s %.0f%%", c.Channel, 100*c.Share))
 		}
 		if r.Quality != nil {
-			top = []string{r.Quality.Kind + " " + r.Quality.Channel}
+			top = []string{r.Quality.Describe()}
 		}
 		fmt.Fprintf(&sb, "  %-6s %-9s %-6s %s  %-5s ×%-5.1f %s\n", tag, r.Unit, r.Severity, r.Start.Format("Jan 2 15:04"),
 			r.Peak.Statistic, r.Peak.Ratio, strings.Join(top, ", "))

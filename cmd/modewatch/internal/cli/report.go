@@ -33,6 +33,9 @@ func writeReport(env IO, dir string, inputs []string, sum *summary, res *pipelin
 		if len(r.Contributors) > 0 && r.Contributors[0].Reading.Known() {
 			a.Expected = r.Contributors[0].Expectation()
 		}
+		if r.Quality != nil && r.Quality.Level != nil {
+			a.Expected = r.Quality.Describe()
+		}
 		in.Alerts = append(in.Alerts, a)
 	}
 	index, err := report.Write(dir, in)

@@ -109,6 +109,9 @@ func summarize(res *pipeline.ReplayResult, rec *recorder) *summary {
 		if len(r.Contributors) > 0 && r.Contributors[0].Expected.Known() {
 			al.expected = r.Contributors[0].Expectation()
 		}
+		if r.Quality != nil && r.Quality.Level != nil {
+			al.expected = r.Quality.Describe()
+		}
 		s.top = append(s.top, al)
 	}
 	s.Floods = rec.floods()

@@ -81,6 +81,23 @@ func TestLevelShiftReplay(t *testing.T) {
 		d := r.Start.Sub(qStart.Add(time.Duration(start) * qPeriod))
 		if r.Quality.Channel == "mix.line.b" && d >= 0 && d <= 10*time.Minute {
 			found = true
+			// Its size in b's unit: the other channels explain none of the
+			// bias, so the unexplained step is about 0.15 (±0.05: about 5
+			// standard errors of the difference of two 30-frame means of
+			// b's residual given the others, whose σ is at most b's 0.05
+			// noise); the windows' means differ by the bias plus the load's
+			// move, its walk's steps of σ 0.01 over the 60 frames (σ 0.08).
+			lv := r.Quality.Level
+			if lv == nil {
+				t.Errorf("level shift on b at %s: no size in its record", r.Start)
+			} else if d := float64(lv.After - lv.Before); math.Abs(d-0.15) > 0.25 || math.Abs(float64(lv.Step)-0.15) > 0.05 ||
+				time.Duration(lv.Window) != 5*time.Minute {
+				t.Errorf("level shift on b: %v → %v (%+.3f), unexplained %.3f over %v windows; want a step of about 0.15 over 5m0s",
+					lv.Before, lv.After, d, lv.Step, time.Duration(lv.Window))
+			}
+			if r.Peak.Statistic != alerts.QualityLevelShift || !(r.Peak.Ratio > 1) || r.Peak.Ratio != r.Peak.Value/r.Peak.Limit {
+				t.Errorf("level shift on b: peak %+v, want the step over its threshold", r.Peak)
+			}
 			continue
 		}
 		if d < 0 || d > time.Duration(end-start)*qPeriod+10*time.Minute {

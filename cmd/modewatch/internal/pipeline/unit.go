@@ -414,6 +414,27 @@ func (u *Unit) levelSteps() {
 	}
 }
 
+// levelSizes gives each level shift of q its size in the channel's unit
+// (tracker.LevelStepOf): the means of the two windows and the step the
+// other channels do not explain. No allocation.
+func (u *Unit) levelSizes(q []alerts.Quality) {
+	for j := range q {
+		if q[j].Kind != alerts.QualityLevelShift {
+			continue
+		}
+		i := slices.Index(u.names, q[j].Channel)
+		if i < 0 {
+			continue
+		}
+		b, a, st, ok := u.tr.LevelStepOf(i)
+		if !ok {
+			continue
+		}
+		q[j].Before, q[j].After, q[j].Step, q[j].Level = b, a, st, true
+		q[j].Window = time.Duration(u.tr.Config().LevelStep) * u.p.opt.Period
+	}
+}
+
 // What finish hands on after learn.
 const (
 	pendNone   = iota
@@ -528,6 +549,7 @@ func (u *Unit) observe(t time.Time) {
 		}
 	}
 	o.Quality = u.screen.AppendQuality(o.Quality)
+	u.levelSizes(o.Quality)
 	if u.gap.Swap(false) {
 		o.Quality = append(o.Quality, alerts.Quality{Channel: IntakeChannel, Kind: alerts.QualityIntakeGap})
 	}
