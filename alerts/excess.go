@@ -25,9 +25,11 @@ import "slices"
 // largest; then the peak frame's other contributors in their order.
 //
 // Chosen on the realism suite over twenty seeds of each plant against the
-// peak frame's contributors alone: faulty channels named in the top three
-// +11 −4 (README, Validation); the mean share of each channel's RBC and
-// each channel's largest RBCᵢ/limᵢ were measured too (+11 −16, +14 −10).
+// peak frame's contributors alone: faults with a faulty channel in the top
+// three +12 −3, nothing else moved (README, Validation, Contributors by
+// their excess over the incident); each channel's mean share of the index
+// and each channel's largest RBCᵢ/limᵢ were measured too (+11 −16 and
+// +14 −10).
 
 // chanExcess is one channel's evidence over a model incident: Sum is its
 // Eᵢ, Best its contributor entry at the frame of its largest RBC/limit.

@@ -36,10 +36,10 @@ func (s *Screen) SetLevelSteps(v []float64, ok bool, span int) {
 }
 
 // levelShift returns the channel whose level step of the last frame is a
-// shift, or −1, with its |sᵢ| and its threshold LevelShiftFactor·
-// LevelStepMax (both 0 with no channel): the channel with the largest absolute step of the unit's
-// judged channels (not discrete, not skipped), when that step exceeds
-// LevelShiftFactor times its profile's LevelStepMax. A step of one
+// shift, or −1, with its |sᵢ| and its threshold (both 0 with no channel):
+// the channel with the largest absolute step of the unit's judged
+// channels (not discrete, not skipped), when that step exceeds its
+// threshold, LevelShiftFactor times its profile's LevelStepMax. A step of one
 // channel's reading by δ moves every channel's standardized conditional
 // residual by Ωᵢⱼδ/√Ωᵢᵢ, and |Ωᵢⱼ| ≤ √(ΩᵢᵢΩⱼⱼ) for the positive definite Ω,
 // so the shifted channel's own step, √Ωⱼⱼ·δ, is the largest (the

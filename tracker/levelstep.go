@@ -221,7 +221,9 @@ func (t *Tracker) ResetLevelSteps() { t.lst.reset() }
 // each window's mean of the standardized frames z̄ is carried back as
 // μᵢ + σᵢz̄ and the step as σᵢsᵢ/√Ωᵢᵢ, with the mean μᵢ and standard
 // deviation σᵢ the frames are standardized with now (the ring empties
-// when they move, see levelStep). ok is false when LevelStepsTo's steps
+// when they move, see levelStep); the means are the last frame's, the
+// step the last evaluation's (every frame up to 128 channels, see
+// levelStep). ok is false when LevelStepsTo's steps
 // are not valid, i is not a channel, or channel i has no step (out of
 // the model, or not read throughout both windows).
 func (t *Tracker) LevelStepOf(i int) (before, after, step float64, ok bool) {
