@@ -913,7 +913,8 @@ func (e *Engine) updateModel(inc *incident, o *Observation, t time.Time) bool {
 	// Contributors and missing channels at the frame of the peak; the
 	// incident's buffers are reused. The channels over their own control
 	// limit come first (overLimit), then the others, each group in the
-	// order of the observation (by RBC).
+	// order of the observation (by RBC). The record lists these after the
+	// channels with an excess over the incident (excess.go).
 	n := min(len(o.Contributors), e.cfg.MaxContributors)
 	for len(inc.contrib) < n {
 		inc.contrib = append(inc.contrib, RecordContributor{})

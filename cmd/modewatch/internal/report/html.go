@@ -29,8 +29,10 @@ type Alert struct {
 	Ratio     float64 // peak value over its limit
 	Top       []string
 	// Expected says what the leading channel reads and what the other
-	// channels imply at the peak ("p.flow reads 71.2, expected 64.0 ± 1.1",
-	// alerts.RecordContributor.Expectation); "" when unknown.
+	// channels imply, at the frame of its largest contribution ("p.flow
+	// reads 71.2, expected 64.0 ± 1.1", alerts.RecordContributor.Expectation),
+	// or a level shift's size (alerts.RecordQuality.Describe); "" when
+	// unknown.
 	Expected string
 }
 
