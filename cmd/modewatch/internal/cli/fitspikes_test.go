@@ -2,6 +2,7 @@ package cli
 
 import (
 	"bytes"
+	"io"
 	"testing"
 
 	"modewatch/alerts"
@@ -10,11 +11,7 @@ import (
 // fit prints per unit the spike sizes its normal log taught, channel names
 // without the unit, and the channels with no spike rule.
 func TestPrintSpikes(t *testing.T) {
-	cases := []struct {
-		name     string
-		profiles []alerts.ChannelProfile
-		want     string
-	}{
+	cases := []profileCase{
 		{"mixed", []alerts.ChannelProfile{
 			{Channel: "u.flow", SpikeSize: 2.3237, SpikeMax: 1, SpikeSpanFrames: 180},
 			{Channel: "u.state"},
@@ -24,25 +21,13 @@ func TestPrintSpikes(t *testing.T) {
 			"  spike sizes (most spikes of the normal log within 1h0m0s): none; no spike rule: state\n"},
 		{"no profiles", nil, ""},
 	}
-	for _, c := range cases {
-		t.Run(c.name, func(t *testing.T) {
-			var b bytes.Buffer
-			printSpikes(&b, "u", "  ", c.profiles)
-			if b.String() != c.want {
-				t.Errorf("got  %q\nwant %q", b.String(), c.want)
-			}
-		})
-	}
+	checkPrinter(t, printSpikes, cases)
 }
 
 // fit prints per unit the normal level steps its log taught and the
 // channels without a level-shift rule; nothing without any level.
 func TestPrintLevels(t *testing.T) {
-	cases := []struct {
-		name     string
-		profiles []alerts.ChannelProfile
-		want     string
-	}{
+	cases := []profileCase{
 		{"mixed", []alerts.ChannelProfile{
 			{Channel: "u.flow", LevelStepMax: 1.2345},
 			{Channel: "u.state", Levels: 2},
@@ -51,10 +36,24 @@ func TestPrintLevels(t *testing.T) {
 		{"none learned", []alerts.ChannelProfile{{Channel: "u.state"}}, ""},
 		{"no profiles", nil, ""},
 	}
+	checkPrinter(t, printLevels, cases)
+}
+
+// profileCase is one case of a printer of fit's per-unit profile lines.
+type profileCase = struct {
+	name     string
+	profiles []alerts.ChannelProfile
+	want     string
+}
+
+// checkPrinter runs print for unit "u" with indent "  " on every case and
+// compares its output with the case's.
+func checkPrinter(t *testing.T, print func(w io.Writer, unit, indent string, profiles []alerts.ChannelProfile), cases []profileCase) {
+	t.Helper()
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {
 			var b bytes.Buffer
-			printLevels(&b, "u", "  ", c.profiles)
+			print(&b, "u", "  ", c.profiles)
 			if b.String() != c.want {
 				t.Errorf("got  %q\nwant %q", b.String(), c.want)
 			}

@@ -53,27 +53,8 @@ func TestStateBoundPersist(t *testing.T) {
 				t.Fatal(err)
 			}
 			cfg.Persist = persist // as the unit's learner sets it (location.go)
-			cfg.LevelStep = tracker.MaxLevelStepFrames
-			tr, err := tracker.New(p, cfg)
-			if err != nil {
-				t.Fatal(err)
-			}
-			rng := rand.New(rand.NewPCG(2, uint64(p)))
-			x := make([]float64, p)
-			var sc tracker.Score
-			for k := 0; k < max(3*p/2, 100+2*tracker.MaxLevelStepFrames); k++ { // a full-rank covariance and a full ring
-				for i := range x {
-					x[i] = rng.NormFloat64()
-				}
-				if err := tr.Step(&sc, x, nil); err != nil {
-					t.Fatal(err)
-				}
-			}
-			st, err := tr.MarshalBinary()
-			if err != nil {
-				t.Fatal(err)
-			}
-			return len(st)
+			// A full-rank covariance and a full ring.
+			return len(noiseState(t, p, cfg, max(3*p/2, 100+2*tracker.MaxLevelStepFrames), 2))
 		}
 		on, off := size(3.5), size(-1)
 		t.Logf("p=%d: state %.1f·p² with the weight, %.1f·p² without; bound %.1f·p²", p,
@@ -85,6 +66,34 @@ func TestStateBoundPersist(t *testing.T) {
 			t.Errorf("p=%d: state %d bytes with the weight, bound %d: less than 10 %% to spare", p, on, maxStateBytes(p))
 		}
 	}
+}
+
+// noiseState returns the tracker state of p channels under cfg, with the
+// level steps' ring at its largest, after n frames of independent standard
+// normal invented readings (seeded).
+func noiseState(t *testing.T, p int, cfg tracker.Config, n int, seed uint64) []byte {
+	t.Helper()
+	cfg.LevelStep = tracker.MaxLevelStepFrames
+	tr, err := tracker.New(p, cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	rng := rand.New(rand.NewPCG(seed, uint64(p)))
+	x := make([]float64, p)
+	var sc tracker.Score
+	for k := 0; k < n; k++ {
+		for i := range x {
+			x[i] = rng.NormFloat64()
+		}
+		if err := tr.Step(&sc, x, nil); err != nil {
+			t.Fatal(err)
+		}
+	}
+	st, err := tr.MarshalBinary()
+	if err != nil {
+		t.Fatal(err)
+	}
+	return st
 }
 
 // TestStateBoundLevelRing: the state of a narrow unit (20 channels,
@@ -99,26 +108,7 @@ func TestStateBoundLevelRing(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	cfg.LevelStep = tracker.MaxLevelStepFrames
-	tr, err := tracker.New(p, cfg)
-	if err != nil {
-		t.Fatal(err)
-	}
-	rng := rand.New(rand.NewPCG(3, p))
-	x := make([]float64, p)
-	var sc tracker.Score
-	for k := 0; k < 100+2*tracker.MaxLevelStepFrames+10; k++ {
-		for i := range x {
-			x[i] = rng.NormFloat64()
-		}
-		if err := tr.Step(&sc, x, nil); err != nil {
-			t.Fatal(err)
-		}
-	}
-	st, err := tr.MarshalBinary()
-	if err != nil {
-		t.Fatal(err)
-	}
+	st := noiseState(t, p, cfg, 100+2*tracker.MaxLevelStepFrames+10, 3)
 	if ring := 8 * 2 * tracker.MaxLevelStepFrames * p; len(st) < ring {
 		t.Fatalf("state %d bytes, less than its ring alone (%d): the ring is not in it", len(st), ring)
 	}
