@@ -454,6 +454,13 @@ type Alerts struct {
 	// model learned on the other K − 1, so that the calibration sees the
 	// whole log held out. Zero: DefaultCalibrationFolds.
 	CalibrationFolds int `yaml:"calibration_folds"`
+	// CalibrationShape is how the budget calibration takes the shape ξ of
+	// the GEV of each unit's held-out block maxima (top level only: one
+	// calibration serves every unit): [ShapeShared], one shape for all
+	// the units fitted together, each with its own location and scale,
+	// unless a likelihood-ratio test rejects a common shape; [ShapeOwn],
+	// each unit its own. Empty: DefaultCalibrationShape.
+	CalibrationShape string `yaml:"calibration_shape"`
 	// CalibratePoints: the budget calibration leaves out of the alarm
 	// rule's statistic the held-out excursions the new-operating-point
 	// rule (new_point) would record as a notice, not an alert: T² and φ
@@ -696,6 +703,7 @@ func DefaultAlerts() Alerts {
 		NewPoint:         &point,
 		NewPointRes:      &pointRes,
 		CalibrationFolds: DefaultCalibrationFolds,
+		CalibrationShape: DefaultCalibrationShape,
 		CalibratePoints:  &calPoints,
 
 		SpreadRestartsHold: &spread,

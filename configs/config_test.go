@@ -439,6 +439,28 @@ units:
 	}
 }
 
+// TestCalibrationShape: alerts.calibration_shape takes shared or own at
+// the top level (one calibration serves every unit) and defaults to
+// shared; a unit's own value or another word is refused with its place.
+func TestCalibrationShape(t *testing.T) {
+	c, err := Parse("s.yaml", []byte("alerts: {calibration_shape: own}\n"))
+	if err != nil || c.Alerts.CalibrationShape != ShapeOwn {
+		t.Fatalf("got %v, %+v", err, c)
+	}
+	if got := DefaultAlerts().CalibrationShape; got != ShapeShared {
+		t.Errorf("default %q, want %q", got, ShapeShared)
+	}
+	_, err = Parse("s.yaml", []byte(`
+alerts: {calibration_shape: pooled}
+units:
+  - name: boiler
+    alerts: {calibration_shape: own}
+`))
+	if err == nil || !strings.Contains(err.Error(), `alerts.calibration_shape: "pooled": want shared or own`) || !strings.Contains(err.Error(), "units[0].alerts.calibration_shape: set at the top level only") {
+		t.Fatalf("got %v", err)
+	}
+}
+
 // TestShrink: model.shrink takes none, whole or channel, at the top level
 // and per unit (a unit inherits the top level's), and anything else is
 // refused at its place.

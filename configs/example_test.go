@@ -63,6 +63,7 @@ func TestExampleStatesDefaults(t *testing.T) {
 	}{
 		{"alerts.budget", a.Budget, configs.DefaultBudget},
 		{"alerts.calibration_folds", a.CalibrationFolds, configs.DefaultCalibrationFolds},
+		{"alerts.calibration_shape", a.CalibrationShape, configs.DefaultCalibrationShape},
 		{"alerts.off_delay", a.OffDelay, alerts.DefaultOffDelay},
 		{"alerts.deadband", a.Deadband, alerts.DefaultDeadband},
 		{"alerts.accept_after", a.AcceptAfter, alerts.DefaultAcceptAfter},

@@ -375,6 +375,12 @@ func (v *validator) alerts(p string, a Alerts, partial bool) {
 	} else if a.CalibrationFolds < 0 || a.CalibrationFolds > MaxCalibrationFolds {
 		v.add(p+".calibration_folds", "%d blocks: want 1 to %d (0: the default, %d)", a.CalibrationFolds, MaxCalibrationFolds, DefaultCalibrationFolds)
 	}
+	switch {
+	case a.CalibrationShape != "" && partial:
+		v.add(p+".calibration_shape", "set at the top level only (alerts.calibration_shape): one calibration serves every unit")
+	case a.CalibrationShape != "" && a.CalibrationShape != ShapeShared && a.CalibrationShape != ShapeOwn:
+		v.add(p+".calibration_shape", "%q: want %s or %s", a.CalibrationShape, ShapeShared, ShapeOwn)
+	}
 	od := a.OnDelay
 	if od != (OnDelay{}) || !partial {
 		if od.N < 1 || od.M < od.N {

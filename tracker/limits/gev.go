@@ -3,6 +3,7 @@ package limits
 import (
 	"fmt"
 	"math"
+	"slices"
 
 	"gonum.org/v1/gonum/diff/fd"
 	"gonum.org/v1/gonum/mat"
@@ -150,16 +151,19 @@ func (f GEVFit) quad(g [3]float64) float64 {
 // estimates, then the observed information by central differences for
 // Cov. It needs at least 5 finite maxima with some spread. It allocates
 // (a per-calibration call, not a per-frame one).
-func FitGEV(x []float64) (GEVFit, error) { return fitML(x, true) }
+func FitGEV(x []float64) (GEVFit, error) { return fitML(x, true, 0) }
 
 // fitML is the maximum-likelihood fit of FitGEV (free shape) and, with
-// free false, of FitGumbel (ξ held at 0): the parameters are (μ, log σ)
-// and, free, ξ; the observed information is taken in (μ, σ[, ξ]) and its
-// inverse fills Cov (the row and column of a fixed ξ stay 0).
-func fitML(x []float64, free bool) (GEVFit, error) {
+// free false, of FitGumbel and FitGEVShape (ξ held at xi0): the
+// parameters are (μ, log σ) and, free, ξ; the observed information is
+// taken in (μ, σ[, ξ]) and its inverse fills Cov (the row and column of a
+// fixed ξ stay 0).
+func fitML(x []float64, free bool, xi0 float64) (GEVFit, error) {
 	name, k := "Gumbel fit", 2
 	if free {
 		name, k = "GEV fit", 3
+	} else if xi0 != 0 {
+		name = "GEV fit at a fixed shape"
 	}
 	n := len(x)
 	if n < 5 {
@@ -183,10 +187,19 @@ func fitML(x []float64, free bool) (GEVFit, error) {
 		if free {
 			return v[2]
 		}
-		return 0
+		return xi0
 	}
 	s0 := sd * math.Sqrt(6) / math.Pi
 	x0 := []float64{mean - 0.5772156649*s0, math.Log(s0), 0.1}[:k]
+	if !free && xi0 != 0 {
+		// Start inside the support 1 + ξ(z − μ)/σ > 0 of every maximum.
+		lo, hi := slices.Min(x), slices.Max(x)
+		if xi0 > 0 {
+			x0[0] = math.Min(x0[0], lo+0.9*s0/xi0)
+		} else {
+			x0[0] = math.Max(x0[0], hi+0.9*s0/xi0)
+		}
+	}
 	nll := func(v []float64) float64 {
 		l := GEV{v[0], math.Exp(v[1]), xi(v)}.LogLik(x)
 		if math.IsInf(l, -1) || math.IsNaN(l) {

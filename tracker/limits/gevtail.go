@@ -38,4 +38,9 @@ func FitGEVUnbounded(x []float64) (GEVFit, error) {
 // moment estimates, then the observed information of (μ, σ) by central
 // differences. Cov holds it in its first two rows and columns and zeros
 // for ξ (held fixed). It needs at least 5 finite maxima with some spread.
-func FitGumbel(x []float64) (GEVFit, error) { return fitML(x, false) }
+func FitGumbel(x []float64) (GEVFit, error) { return fitML(x, false, 0) }
+
+// FitGEVShape fits a GEV with its shape held at xi to the block maxima x
+// by maximum likelihood over (μ, σ), as FitGumbel does at ξ = 0; Cov holds
+// the observed information's inverse for (μ, σ) and zeros for ξ.
+func FitGEVShape(x []float64, xi float64) (GEVFit, error) { return fitML(x, false, xi) }

@@ -33,9 +33,11 @@ log scores the second half (alerts.calibration_folds K: each of K blocks
 of the log is scored by a model learned on the others), the whole alarm
 rule's statistic (with alerts.calibrate_points, without the excursions of
 T² alone, spread over the channels, that alerts.new_point records as
-notices) is fitted by an extreme-value model of block maxima,
-and every limit is multiplied by the scale at which the expected false
-alerts per day meet the budget.
+notices) is fitted by an extreme-value model of block maxima (its
+shape common to the units, each with its own location and scale; with
+alerts.calibration_shape: own, each unit's own shape), and every limit
+is multiplied by the scale at which the expected false alerts per day
+meet the budget.
 fit prints the scale, the limits, the expected rate with its 95 %
 interval, and the days of normal log needed when the log is too short.
 The budget wins over alpha, which then only sets the base limits. Input

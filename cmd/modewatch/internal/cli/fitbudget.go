@@ -4,6 +4,7 @@ import (
 	"context"
 	"fmt"
 	"math"
+	"strings"
 	"time"
 
 	"modewatch/cmd/modewatch/internal/pipeline"
@@ -47,6 +48,9 @@ func calibrateBudgets(ctx context.Context, env IO, cfg *configs.Config, inputs [
 	if err != nil {
 		return []string{fmt.Sprintf("alerts.budget: not calibrated: %v", err)}
 	}
+	if cfg.Alerts.Over(configs.DefaultAlerts()).CalibrationShape == configs.ShapeShared {
+		notes = append(notes, poolShape(rec, cfg, model)...)
+	}
 	for i := range model.Units {
 		u := &model.Units[i]
 		b := budgetFor(cfg, u.Name)
@@ -83,8 +87,12 @@ func printCalibration(env IO, u pipeline.ModelUnit) {
 	if u.Limits.T2 != nil && u.Limits.SPE != nil {
 		th = fmt.Sprintf(" (T² %.2f, SPE %.2f)", c.Scale**u.Limits.T2, c.Scale**u.Limits.SPE)
 	}
-	fmt.Fprintf(env.Out, "  budget %.3g false alerts/day: limits ×%.3f%s; expected %.3g/day (rate's 95%% interval %.3g to %.3g); held-out %.1f days: %d alerts of the whole rule at this scale; GEV of %d block maxima of %v\n",
-		c.Budget, c.Scale, th, c.Rate, c.RateLow, c.RateHigh, c.HeldOutDays, c.Observed, c.Blocks, time.Duration(c.Block))
+	shared := ""
+	if c.SharedShape {
+		shared = fmt.Sprintf(", shape ξ %.3f shared by the units", c.Xi)
+	}
+	fmt.Fprintf(env.Out, "  budget %.3g false alerts/day: limits ×%.3f%s; expected %.3g/day (rate's 95%% interval %.3g to %.3g); held-out %.1f days: %d alerts of the whole rule at this scale; GEV of %d block maxima of %v%s\n",
+		c.Budget, c.Scale, th, c.Rate, c.RateLow, c.RateHigh, c.HeldOutDays, c.Observed, c.Blocks, time.Duration(c.Block), shared)
 	if w := c.Predict(pipeline.PredictWeekDays); !math.IsNaN(w.Coverage) {
 		fmt.Fprintf(env.Out, "  a week of normal running should bring %d to %d false alerts (95%% predictive: the rate's uncertainty and chance together; %.2g expected)\n",
 			w.Low, w.High, w.Expected)
@@ -104,4 +112,36 @@ func printCalibration(env IO, u pipeline.ModelUnit) {
 	if c.DaysNeeded > 0 {
 		fmt.Fprintf(env.Out, "  warning: the normal log is too short for this budget: the interval is wider than a factor 2; about %.1f days of normal log needed\n", c.DaysNeeded)
 	}
+}
+
+// poolShape fits the units' held-out block maxima with one GEV shape
+// (alerts.calibration_shape: shared, pipeline.RatioRecorder.PoolShape)
+// and returns a line for the summary: the common shape, each unit's own
+// and the likelihood-ratio test of their difference.
+func poolShape(rec *pipeline.RatioRecorder, cfg *configs.Config, model *pipeline.ModelFile) []string {
+	var pu []pipeline.PoolUnit
+	for _, u := range model.Units {
+		pu = append(pu, pipeline.PoolUnit{Name: u.Name, Budget: budgetFor(cfg, u.Name),
+			Rule: pipeline.AlarmRuleAt(cfg, u.Name, time.Duration(model.Period))})
+	}
+	perStat := func(n string) bool { p := cfg.AlertsFor(n).BudgetPerStatistic; return p != nil && *p }
+	points := func(n string) bool { _, ok := pipeline.CalibratesPoints(cfg, n); return ok }
+	sh, err := rec.PoolShape(pu, perStat, points)
+	switch {
+	case err != nil:
+		return []string{fmt.Sprintf("alerts.calibration_shape: no shape common to the units (each unit its own): %v", err)}
+	case len(sh.Units) < 2:
+		return nil
+	}
+	var parts []string
+	for i, n := range sh.Units {
+		parts = append(parts, fmt.Sprintf("%s %.2f", n, sh.Own[i]))
+	}
+	own := strings.Join(parts, ", ")
+	differ := ""
+	if sh.P < 0.05 {
+		differ = "; they differ more than chance would over the held-out days, shared anyway (README, Validation, One tail shape for the plant's units)"
+	}
+	return []string{fmt.Sprintf("alerts.calibration_shape: %d units share the tail shape ξ = %.3f of their held-out block maxima (own ξ̂: %s; likelihood ratio %.2f, p = %.3f%s)",
+		len(sh.Units), sh.Xi, own, sh.LR, sh.P, differ)}
 }
