@@ -130,15 +130,19 @@ func TestPoolShape(t *testing.T) {
 	if len(sh.Units) != 3 || sh.Units[0] != "a" || sh.Units[2] != "c" {
 		t.Fatalf("pooled units %v, want [a b c] (m has a smoothed statistic)", sh.Units)
 	}
-	// The same maxima, formed here: 20 blocks of about 2h24m (the span
-	// from the first to the last frame / 20).
+	// The same maxima, formed here: blocks of the length the unit's own
+	// calibration states (the span from the first to the last frame cut
+	// into heldOutBlocks).
+	block, nb := time.Duration(own["a"].Block), own["a"].Blocks
+	if nb != heldOutBlocks {
+		t.Fatalf("%d blocks of %v, want %d over two days", nb, block, heldOutBlocks)
+	}
 	var xs [][]float64
 	for _, n := range sh.Units {
 		s := rr.units[n]
-		m := make([]float64, 20)
+		m := make([]float64, nb)
 		for k, v := range s.r {
-			b := int(s.t[k].Sub(t0) / (s.t[len(s.t)-1].Sub(t0) / 20))
-			if b < 20 {
+			if b := int(s.t[k].Sub(t0) / block); b < nb {
 				m[b] = math.Max(m[b], v[slotT2])
 			}
 		}
