@@ -92,7 +92,7 @@ func printCalibration(env IO, u pipeline.ModelUnit) {
 		shared = fmt.Sprintf(", shape ξ %.3f shared by the units", c.Xi)
 	}
 	fmt.Fprintf(env.Out, "  budget %.3g false alerts/day: limits ×%.3f%s; expected %.3g/day (rate's 95%% interval %.3g to %.3g); held-out %.1f days: %d alerts of the whole rule at this scale; GEV of %d block maxima of %v%s\n",
-		c.Budget, c.Scale, th, c.Rate, c.RateLow, c.RateHigh, c.HeldOutDays, c.Observed, c.Blocks, time.Duration(c.Block), shared)
+		c.Budget, c.Scale, th, c.Rate, c.RateLow, c.RateHigh, c.HeldOutDays, c.Observed, c.Blocks, time.Duration(c.Block).Round(time.Second), shared)
 	if w := c.Predict(pipeline.PredictWeekDays); !math.IsNaN(w.Coverage) {
 		fmt.Fprintf(env.Out, "  a week of normal running should bring %d to %d false alerts (95%% predictive: the rate's uncertainty and chance together; %.2g expected)\n",
 			w.Low, w.High, w.Expected)
