@@ -114,11 +114,11 @@ const (
 
 // DefaultCalibrationShape is the default of alerts.calibration_shape: the
 // units fitted together share the GEV shape of their held-out block
-// maxima. From 20 block maxima a unit's own shape has a standard error of
-// about 0.2, and the budget's return level moves with it; on the realism
-// suite over twenty seeds the shared shape took the false alerts from 180
-// to 140 in 80 runs with more faults found (README, Validation, "One tail
-// shape for the plant's units").
+// maxima. From 20 or 30 block maxima a unit's own shape has a standard
+// error of about 0.2, and the budget's return level moves with it; on the
+// realism suite over twenty seeds the shared shape took the false alerts
+// from 180 to 140 in 80 runs with more faults found (README, Validation,
+// "One tail shape for the plant's units").
 const DefaultCalibrationShape = ShapeShared
 
 // DefaultCalibratePoints is the default of alerts.calibrate_points: off,

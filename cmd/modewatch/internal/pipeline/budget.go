@@ -3,10 +3,11 @@ package pipeline
 import (
 	"errors"
 	"fmt"
-	"gonum.org/v1/gonum/stat/distuv"
 	"math"
 	"slices"
 	"time"
+
+	"gonum.org/v1/gonum/stat/distuv"
 
 	"modewatch/alerts"
 	"modewatch/configs"
@@ -459,7 +460,7 @@ type SharedShape struct {
 //
 // The common shape is kept even where the likelihood-ratio statistic
 // (SharedShape.P) says the held-out shapes differ: a unit's shape from 20
-// maxima of two days is mostly noise, and pooling a moderately
+// to 30 maxima of two days is mostly noise, and pooling a moderately
 // heterogeneous group still estimates the rare levels better than each
 // alone (Hosking & Wallis 1997, ch. 7, from memory). Measured on the
 // realism suite over twenty seeds (README, Validation): a 5 % test would
