@@ -455,7 +455,10 @@ type SharedShape struct {
 // statistic, calibrated per statistic or leaving out operating-point
 // excursions, which keep their own fit) with one GEV shape common to them
 // (limits.FitGEVCommonShape) and keeps each unit's fit for Calibrate.
-// With fewer than two such units nothing is pooled; when the common fit
+// A unit whose block maxima are all equal is left out (no GEV fits them);
+// one whose own fit fails otherwise (a singular observed information at
+// a shape near −1) is pooled, and the shared shape calibrates it. With fewer
+// than two such units nothing is pooled; when the common fit
 // fails, every unit keeps its own fit and the error says why.
 //
 // The common shape is kept even where the likelihood-ratio statistic
@@ -471,6 +474,7 @@ func (rr *RatioRecorder) PoolShape(units []PoolUnit, perStat, points func(name s
 	rr.shape = nil
 	var sh SharedShape
 	var xs [][]float64
+	var ownLL []float64
 	for _, u := range units {
 		ser := rr.units[u.Name]
 		if ser == nil || len(ser.t) == 0 || !(u.Budget > 0) || perStat(u.Name) || points(u.Name) {
@@ -483,7 +487,17 @@ func (rr *RatioRecorder) PoolShape(units []PoolUnit, perStat, points func(name s
 		if err != nil {
 			continue
 		}
+		lo, hi := slices.Min(rm.maxima), slices.Max(rm.maxima)
+		if !(hi-lo > 1e-9*math.Max(math.Abs(hi), 1)) {
+			continue // every maximum the same: CalibrateBudget says why
+		}
+		f, err := limits.FitGEV(rm.maxima)
+		if err != nil && !(f.Sigma > 0) {
+			f.Xi, f.LogLik = math.NaN(), math.NaN() // no own fit: no test
+		}
 		sh.Units = append(sh.Units, u.Name)
+		sh.Own = append(sh.Own, f.Xi)
+		ownLL = append(ownLL, f.LogLik)
 		xs = append(xs, rm.maxima)
 	}
 	if len(xs) < 2 {
@@ -495,13 +509,8 @@ func (rr *RatioRecorder) PoolShape(units []PoolUnit, perStat, points func(name s
 	}
 	sh.Xi = fits[0].Xi
 	own := 0.0
-	for u, x := range xs {
-		f, err := limits.FitGEV(x)
-		if err != nil && !(f.Sigma > 0) {
-			f.Xi, f.LogLik = math.NaN(), math.NaN() // no own fit: no test
-		}
-		sh.Own = append(sh.Own, f.Xi)
-		own += f.LogLik - fits[u].LogLik
+	for u := range xs {
+		own += ownLL[u] - fits[u].LogLik
 	}
 	sh.LR, sh.P = math.NaN(), math.NaN()
 	if !math.IsNaN(own) {

@@ -177,6 +177,14 @@ func TestPoolShape(t *testing.T) {
 	if cal, err := rr.Calibrate("m", budget, rule, 2, false, false, 0); err != nil || cal.SharedShape {
 		t.Errorf("unit with a smoothed statistic: shared %v, %v", cal.SharedShape, err)
 	}
+	// A unit whose ratio never moves (every block maximum equal) is left
+	// out; the others are still pooled.
+	flat := paretoUnit(rng, t0, 0.3, 0)
+	rr.units["flat"] = flat
+	sh, err = rr.PoolShape(append(pu, PoolUnit{Name: "flat", Budget: budget, Rule: rule}), no, no)
+	if err != nil || len(sh.Units) != 3 {
+		t.Errorf("with a flat unit: pooled %v, %v; want [a b c]", sh.Units, err)
+	}
 	// A unit calibrated per statistic is left out too.
 	sh, err = rr.PoolShape(pu, func(n string) bool { return n == "b" }, no)
 	if err != nil || len(sh.Units) != 2 {
