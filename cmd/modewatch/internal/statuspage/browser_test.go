@@ -513,6 +513,9 @@ func TestBrowserDemo(t *testing.T) {
 	poll(t, writer, "the incident acknowledged by the writer in the page",
 		fmt.Sprintf(`(() => { const r = document.querySelector('tr[data-id=%q]'); return !!r && r.dataset.state === "acknowledged" && r.textContent.includes("acknowledged by %s"); })()`, id, writerName),
 		time.Minute)
+	// The incident's row says what is wrong in the channel's terms.
+	poll(t, writer, "the incident's reading against its expected value in the incidents view",
+		fmt.Sprintf(`/ reads -?[0-9.]+, expected -?[0-9.]+ ± [0-9.]+$/.test(document.querySelector('tr[data-id=%q] .what')?.textContent || "")`, id), time.Minute)
 	screenshot(t, writer, "incidents", true)
 	var open []alerts.Record
 	apiJSON(t, base, "/api/alerts", readerToken, &open)

@@ -311,7 +311,7 @@ function renderUnit(d) {
   for (const r of d.open) {
     html += `<h2>Open incident ${sevBadge(r)} <span class="muted">${esc(r.id)} since ${when(r.start)}, peak ${esc(r.peak.statistic)} ${fmt(r.peak.ratio, 1)}× limit</span></h2>`;
     if (r.location && r.location.length) html += `<p>Location: <b>${esc(r.location.map((c) => short(u.name, c)).join(", "))}</b></p>`;
-    if (r.quality) { html += `<p class="quality">${esc(r.quality.kind)} on ${esc(short(u.name, r.quality.channel))}</p>`; continue; }
+    if (r.quality) { const w = what(r); html += `<p class="quality">${esc(r.quality.kind)} on ${esc(short(u.name, r.quality.channel))}${w ? `: <span class="what">${esc(w)}</span>` : ""}</p>`; continue; }
     html += `<table class="wide contributors"><thead><tr><th>#</th><th>Sensor</th><th class="num">Share</th><th class="num">RBC / limit</th><th>Modes</th><th class="num">Reading</th><th class="num">Expected</th><th class="num">Band${bandCov(r)}</th><th></th></tr></thead><tbody>`;
     for (const c of r.contributors) {
       html += `<tr><td data-k="#">${c.rank}</td><td data-k="sensor"><b title="${esc(c.channel)}">${esc(short(u.name, c.channel))}</b></td><td class="num" data-k="share">${pct(c.share)}</td><td class="num" data-k="RBC/limit">${c.rbc_limit ? fmt(c.rbc / c.rbc_limit) : "—"}</td><td data-k="modes">${(c.modes || []).map((m) => "M" + m).join(" ")}</td>${bandCell(c)}</tr>`;
@@ -365,6 +365,26 @@ function actionButtons(r) {
   return b.length ? `<div class="actions">${b.join("")}</div>` : `<span class="muted">view only</span>`;
 }
 
+// what says in the channel's own terms what a record found, with the
+// digits the alert records' text uses (alerts.RecordContributor's
+// Expectation, RecordQuality's Describe): "pump02.flow reads 71.2,
+// expected 64.0 ± 1.1" for the first contributor, or a level shift's
+// means before and after; "" when the record carries neither.
+function what(r) {
+  const dig = (s) => (s > 0 && isFinite(s) ? Math.min(Math.max(1 - Math.floor(Math.log10(s)), 0), 6) : 2);
+  if (r.quality) {
+    const l = r.quality.level;
+    if (!l || l.before == null || l.after == null || l.unexplained == null) return "";
+    const d = dig(Math.abs(l.unexplained));
+    return `${l.before.toFixed(d)} → ${l.after.toFixed(d)}, ${l.unexplained.toFixed(d)} not explained by the other channels`;
+  }
+  const c = (r.contributors || [])[0];
+  if (!c || c.reading == null) return "";
+  if (c.expected == null || c.band == null) return `${c.channel} reads ${c.reading.toFixed(2)}`;
+  const d = dig(c.band);
+  return `${c.channel} reads ${c.reading.toFixed(d)}, expected ${c.expected.toFixed(d)} ± ${c.band.toFixed(d)}`;
+}
+
 function incidentTable(recs, withActions) {
   if (!recs.length) return `<p class="muted">None.</p>`;
   let h = `<table class="wide incidents"><thead><tr><th>Severity</th><th>Unit</th><th>Started</th><th>State</th><th class="num">Peak</th><th>Top sensors</th><th>Who did what</th>${withActions ? "<th>Actions</th>" : ""}</tr></thead><tbody>`;
@@ -373,7 +393,7 @@ function incidentTable(recs, withActions) {
     h += `<tr data-id="${esc(r.id)}" data-state="${esc(r.end ? "closed" : r.acknowledged ? "acknowledged" : "open")}"><td data-k="severity">${sevBadge(r)}</td><td data-k="unit"><a href="#/unit/${encodeURIComponent(r.unit)}">${esc(r.unit)}</a></td>
       <td data-k="started">${when(r.start)}${r.end ? "<br><span class='muted'>ended " + when(r.end) + "</span>" : ""}</td>
       <td data-k="state">${esc(r.end ? "closed" : r.state)}${r.acknowledged ? ` <span class="tag">ack</span>` : ""}${r.shelved ? ` <span class="tag">shelved</span>` : ""}</td>
-      <td class="num" data-k="peak">${r.kind === "notice" ? "—" : esc(r.peak.statistic) + " " + fmt(r.peak.ratio, 1) + "×"}</td><td data-k="top">${top}</td><td class="who-did" data-k="who">${whoDid(r) || "—"}</td>
+      <td class="num" data-k="peak">${r.kind === "notice" ? "—" : esc(r.peak.statistic) + " " + fmt(r.peak.ratio, 1) + "×"}</td><td data-k="top">${top}${r.kind !== "notice" && what(r) ? `<br><span class="muted what">${esc(what(r))}</span>` : ""}</td><td class="who-did" data-k="who">${whoDid(r) || "—"}</td>
       ${withActions ? `<td data-k="actions">${actionButtons(r)}</td>` : ""}</tr>`;
   }
   return h + `</tbody></table>`;
