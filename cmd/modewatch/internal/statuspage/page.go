@@ -258,9 +258,14 @@ type IncidentBrief struct {
 	Ratio     float64  `json:"ratio"`
 	Statistic string   `json:"statistic"`
 	Top       []string `json:"top"`
-	Acked     bool     `json:"acked"`
-	Shelved   bool     `json:"shelved"`
-	Start     string   `json:"start"`
+	// What says what is wrong in the channel's terms, as the record's text
+	// does (alerts.RecordContributor.Expectation of the first contributor,
+	// alerts.RecordQuality.Describe); empty when the record carries
+	// neither a reading nor a quality finding.
+	What    string `json:"what,omitempty"`
+	Acked   bool   `json:"acked"`
+	Shelved bool   `json:"shelved"`
+	Start   string `json:"start"`
 }
 
 // Names is a channel list: its full count and at most a dozen names.
@@ -324,6 +329,9 @@ func brief(r *alerts.Record) IncidentBrief {
 	}
 	if r.Quality != nil {
 		b.Top = append(b.Top, r.Quality.Channel)
+		b.What = r.Quality.Describe()
+	} else if len(r.Contributors) > 0 && r.Contributors[0].Reading.Known() {
+		b.What = r.Contributors[0].Expectation()
 	}
 	return b
 }

@@ -146,6 +146,23 @@ func TestPlantOrder(t *testing.T) {
 	if p.Units[0].Incidents[0].Top[0] != "unit03.asset0.ch000" || len(p.Units[0].Incidents[0].Top) != 3 {
 		t.Errorf("top sensors %v, want the first three contributors", p.Units[0].Incidents[0].Top)
 	}
+	// What is wrong, in the first contributor's terms (the fake plant's
+	// reading 52, expected 50, band 1.2: one decimal for a band of 1.2).
+	if w := p.Units[0].Incidents[0].What; w != "unit03.asset0.ch000 reads 52.0, expected 50.0 ± 1.2" {
+		t.Errorf("incident's what %q, want the first contributor's reading against its expected value", w)
+	}
+	found := false
+	for _, b := range p.Units[1].Incidents {
+		if b.ID == "x" {
+			found = true
+			if b.What != "stuck unit07.asset0.ch001" {
+				t.Errorf("quality incident's what %q, want its kind and channel", b.What)
+			}
+		}
+	}
+	if !found {
+		t.Error("unit07's incident x not in the plant view")
+	}
 	if p.Units[2].Missing.Count != 3 {
 		t.Errorf("unit05 missing %+v, want 3", p.Units[2].Missing)
 	}

@@ -224,7 +224,7 @@ function renderPlant(p) {
     else if (abn) status = `<span class="sev sev-quality">data quality</span>`;
     if (u.maintenance) status += ` <span class="tag">maintenance</span>`;
     const st = [u.model_state, u.operating_state ? "state " + u.operating_state : ""].filter(Boolean).map(esc).join(" · ");
-    const incs = u.incidents.filter((i) => i.group !== "quality").map((i) => `<span>${i.group === "quality" ? `<span class="sev sev-quality">${esc(i.severity)}</span>` : `<span class="sev ${sevClass(i.severity)}">${esc(i.severity)}</span>`}
+    const incs = u.incidents.filter((i) => i.group !== "quality").map((i) => `<span${i.what ? ` title="${esc(i.what)}"` : ""}>${i.group === "quality" ? `<span class="sev sev-quality">${esc(i.severity)}</span>` : `<span class="sev ${sevClass(i.severity)}">${esc(i.severity)}</span>`}
        ${i.acked ? `<span class="tag">ack</span>` : ""}${i.shelved ? `<span class="tag">shelved</span>` : ""} ${esc(i.top.map((c) => short(u.name, c)).join(", "))} <span class="muted">${fmt(i.ratio, 1)}×</span></span>`).join("");
     html += `<div class="urow${abn || overAny ? " abn" : ""}" data-unit="${esc(u.name)}" style="--sev-col:${proc.length ? sevColour(worst) : abn && !overAny ? "var(--quality)" : "var(--ink)"}">
       <div class="ustatus">${status}</div>
