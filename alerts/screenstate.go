@@ -29,17 +29,18 @@ type ChannelRun struct {
 	Spikes []int64 `json:"spikes,omitempty"`
 	// LevelHold and QualityHold are 1 + the age in frames of the
 	// channel's last gap or data-quality condition and of its last
-	// data-quality condition, while younger than maxLevelHold (0: none
+	// data-quality condition, while younger than MaxLevelHold (0: none
 	// that recent): the level-shift rule waits for its windows to clear
 	// of them (SetLevelSteps).
 	LevelHold   int64 `json:"level_hold,omitempty"`
 	QualityHold int64 `json:"quality_hold,omitempty"`
 }
 
-// maxLevelHold bounds the ages ChannelRun carries for the level-shift
+// MaxLevelHold bounds the ages ChannelRun carries for the level-shift
 // rule: its two windows together span at most 2·360 frames
-// (tracker.MaxLevelStepFrames).
-const maxLevelHold = 2 * 360
+// (tracker.MaxLevelStepFrames; this package does not import the tracker,
+// so pipeline's TestLevelHoldCoversWindows checks the two agree).
+const MaxLevelHold = 2 * 360
 
 // maxRecent is the number of readings the spike test looks back.
 const maxRecent = 2
@@ -65,10 +66,10 @@ func (s *Screen) AppendState(dst []ChannelRun) []ChannelRun {
 		for i := 0; i < t.n; i++ {
 			r.Spikes = append(r.Spikes, s.frame-t.spike(i))
 		}
-		if a := s.frame - s.cond[k]; a >= 0 && a < maxLevelHold {
+		if a := s.frame - s.cond[k]; a >= 0 && a < MaxLevelHold {
 			r.LevelHold = a + 1
 		}
-		if a := s.frame - s.qcond[k]; a >= 0 && a < maxLevelHold {
+		if a := s.frame - s.qcond[k]; a >= 0 && a < MaxLevelHold {
 			r.QualityHold = a + 1
 		}
 		if r.Flat > 0 || r.Gap > 0 || len(r.Recent) > 0 || len(r.Spikes) > 0 || r.LevelHold > 0 || r.QualityHold > 0 {
@@ -155,8 +156,8 @@ func (r *ChannelRun) problem() string {
 		return fmt.Sprintf("%d recent readings (at most %d)", len(r.Recent), maxRecent)
 	case len(r.Spikes) > MaxSpikeCount:
 		return fmt.Sprintf("%d spikes (at most %d)", len(r.Spikes), MaxSpikeCount)
-	case r.LevelHold < 0 || r.LevelHold > maxLevelHold || r.QualityHold < 0 || r.QualityHold > maxLevelHold:
-		return fmt.Sprintf("level-shift holds %d and %d (0 to %d)", r.LevelHold, r.QualityHold, maxLevelHold)
+	case r.LevelHold < 0 || r.LevelHold > MaxLevelHold || r.QualityHold < 0 || r.QualityHold > MaxLevelHold:
+		return fmt.Sprintf("level-shift holds %d and %d (0 to %d)", r.LevelHold, r.QualityHold, MaxLevelHold)
 	}
 	for _, v := range r.Recent {
 		if !isFinite(v) {

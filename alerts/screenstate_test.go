@@ -158,7 +158,7 @@ func TestScreenStateRefused(t *testing.T) {
 		{"age zero", []ChannelRun{{Channel: "u.spiky", Spikes: []int64{0}}}, "not positive and ascending"},
 		{"infinite value", []ChannelRun{{Channel: "u.flat", Flat: 2, Value: math.Inf(1)}}, "not finite"},
 		{"NaN reading", []ChannelRun{{Channel: "u.spiky", Recent: []float64{math.NaN()}}}, "not finite"},
-		{"level hold too old", []ChannelRun{{Channel: "u.flat", LevelHold: maxLevelHold + 1}}, "level-shift holds"},
+		{"level hold too old", []ChannelRun{{Channel: "u.flat", LevelHold: MaxLevelHold + 1}}, "level-shift holds"},
 		{"negative quality hold", []ChannelRun{{Channel: "u.flat", QualityHold: -1}}, "level-shift holds"},
 	}
 	for _, c := range cases {

@@ -14,11 +14,13 @@ import (
 	"modewatch/tracker/modes"
 )
 
-// levelBaseline returns a tracker of the two-factor channels (two blocks
-// of four, correlation 0.81 within a block) fitted as a baseline on n
-// frames of src, with level steps over windows of k frames.
-func levelBaseline(t *testing.T, src *gaussSource, k, n int) *Tracker {
+// levelBaseline returns a seeded source of the two-factor channels (two
+// blocks of four, correlation 0.81 within a block) and a tracker fitted as
+// a baseline on n of its frames, with level steps over windows of k
+// frames.
+func levelBaseline(t *testing.T, seed uint64, k, n int) (*gaussSource, *Tracker) {
 	t.Helper()
+	src := newGaussSource(seed, twoFactorCorr())
 	cfg := Config{Period: time.Second, Residual: true, LevelStep: k, Modes: modes.Config{Count: 2}}
 	tr, err := New(8, cfg)
 	if err != nil {
@@ -27,7 +29,7 @@ func levelBaseline(t *testing.T, src *gaussSource, k, n int) *Tracker {
 	if err := tr.Fit(src.frames(n, 8)); err != nil {
 		t.Fatal(err)
 	}
-	return tr
+	return src, tr
 }
 
 // A step of δ standard deviations in channel j moves the standardized
@@ -42,8 +44,7 @@ func levelBaseline(t *testing.T, src *gaussSource, k, n int) *Tracker {
 // the shifted channel is the largest (|Ωᵢⱼ| ≤ √(ΩᵢᵢΩⱼⱼ)).
 func TestLevelStepOneChannel(t *testing.T) {
 	const k, j, delta, trials = 200, 1, 2.0, 12
-	src := newGaussSource(91, twoFactorCorr())
-	tr := levelBaseline(t, src, k, 20000)
+	src, tr := levelBaseline(t, 91, k, 20000)
 	corr := twoFactorCorr()
 	ridged := mat.NewSymDense(8, nil)
 	for a := 0; a < 8; a++ {
@@ -138,8 +139,7 @@ func TestLevelStepOneChannel(t *testing.T) {
 // variance, Basseville & Nikiforov 1993, ch. 2).
 func TestLevelStepInControlVariance(t *testing.T) {
 	const k, n = 20, 60000
-	src := newGaussSource(93, twoFactorCorr())
-	tr := levelBaseline(t, src, k, 20000)
+	src, tr := levelBaseline(t, 93, k, 20000)
 	var sc Score
 	x := make([]float64, 8)
 	s := make([]float64, 8)
@@ -169,8 +169,7 @@ func TestLevelStepInControlVariance(t *testing.T) {
 // has no step until it has been read for 2k frames in a row.
 func TestLevelStepResetAndMissing(t *testing.T) {
 	const k = 10
-	src := newGaussSource(95, twoFactorCorr())
-	tr := levelBaseline(t, src, k, 5000)
+	src, tr := levelBaseline(t, 95, k, 5000)
 	var sc Score
 	x := make([]float64, 8)
 	s := make([]float64, 8)
@@ -219,8 +218,7 @@ func TestLevelStepResetAndMissing(t *testing.T) {
 // the ring every 2k frames agree with the running ones.
 func TestLevelStepAllocs(t *testing.T) {
 	const k = 7
-	src := newGaussSource(97, twoFactorCorr())
-	tr := levelBaseline(t, src, k, 5000)
+	src, tr := levelBaseline(t, 97, k, 5000)
 	var sc Score
 	x := make([]float64, 8)
 	frames := src.frames(64, 8)

@@ -9,6 +9,7 @@ import (
 	"time"
 
 	"modewatch/alerts"
+	"modewatch/tracker"
 )
 
 // The level-shift rule end to end on a small invented plant (a behaviour
@@ -118,5 +119,15 @@ func TestLevelShiftReplay(t *testing.T) {
 	move := lsEvents{load: func(k int) float64 { return 3 * min(max(float64(k-start)/90, 0), 1) }}
 	if got := qualityOf(qReplay(t, cfg, m, lsPlant(from, to, move, 3)), alerts.QualityLevelShift, ""); len(got) != 0 {
 		t.Errorf("%d level-shift alerts at a move of the load: first %s at %s", len(got), got[0].Quality.Channel, got[0].Start)
+	}
+}
+
+// TestLevelHoldCoversWindows: the ages a screen's snapshot carries for
+// the level-shift rule (alerts.MaxLevelHold) cover the two windows of the
+// longest level step the tracker takes (tracker.MaxLevelStepFrames), so a
+// restored screen waits as long as the live one would.
+func TestLevelHoldCoversWindows(t *testing.T) {
+	if alerts.MaxLevelHold < 2*tracker.MaxLevelStepFrames {
+		t.Errorf("alerts.MaxLevelHold %d < 2 × tracker.MaxLevelStepFrames (%d)", alerts.MaxLevelHold, 2*tracker.MaxLevelStepFrames)
 	}
 }
